@@ -1,0 +1,5 @@
+import sys
+
+from chargebook.acquire.cli import main
+
+sys.exit(main())

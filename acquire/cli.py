@@ -1,0 +1,83 @@
+"""The `chargebook` command line: one entry point, one module per subcommand.
+
+Each subcommand lives in `chargebook.acquire.commands.<name>` and provides two things:
+
+    HELP: str                                   one line shown by `chargebook --help`
+    def add_arguments(parser: argparse.ArgumentParser) -> None
+    def run(args: argparse.Namespace) -> int    the exit status
+
+Command modules import nothing heavy (numpy, textual, sqlite-utils, pyvisa) at module level, so
+`chargebook --help` starts fast; they import what they need inside `run`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+#: Subcommand name -> module under chargebook.acquire.commands, in the order shown by --help.
+COMMANDS: dict[str, str] = {
+    "demo": "demo",
+    "correct": "correct",
+    "serve": "serve",
+    "run": "run_unattended",
+    "console": "console",
+    "simulate": "simulate",
+    "ports": "ports",
+    "sessions": "sessions",
+    "show": "show",
+    "export": "export",
+    "replay": "replay",
+    "history": "history",
+}
+
+EXIT_OK = 0
+EXIT_FAILURE = 1
+EXIT_INVALID_INPUT = 2
+
+CAUTION = (
+    "chargebook supports, and never replaces, the judgement of a qualified medical physicist "
+    "working under local regulations and the local code of practice."
+)
+
+
+def _load(module_name: str):
+    return importlib.import_module(f"chargebook.acquire.commands.{module_name}")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the argument parser with every subcommand that is installed."""
+    parser = argparse.ArgumentParser(
+        prog="chargebook",
+        description="Electrometer data acquisition and charge-to-dose corrections for "
+        "reference dosimetry of radiotherapy beams.",
+        epilog=CAUTION,
+    )
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, module_name in COMMANDS.items():
+        try:
+            module = _load(module_name)
+        except ModuleNotFoundError as error:
+            if error.name != f"chargebook.acquire.commands.{module_name}":
+                raise
+            continue
+        sub = subparsers.add_parser(name, help=module.HELP, description=module.HELP)
+        module.add_arguments(sub)
+        sub.set_defaults(_run=module.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the `chargebook` command line and return its exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if getattr(args, "_run", None) is None:
+        parser.print_help()
+        return EXIT_INVALID_INPUT
+    return args._run(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

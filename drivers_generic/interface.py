@@ -1,0 +1,139 @@
+"""The one small interface every electrometer driver offers the daemon.
+
+Drivers are synchronous (pyserial and pyvisa are); the daemon calls them from a worker thread.
+Charge is always reported in nanocoulombs, signed as read. Times are seconds on the clock the
+driver was given (``time.monotonic`` unless a test or a replay injects another).
+
+A capability the instrument lacks is declared absent, never faked: calling the method raises
+:class:`NotSupported`, and the daemon asks the operator to do the step by hand instead.
+"""
+
+from __future__ import annotations
+
+import enum
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Protocol, runtime_checkable
+
+
+class Capability(enum.StrEnum):
+    """What an electrometer can be asked to do over its wire."""
+
+    IDENTIFY = "identify"
+    ZERO = "zero"  # reset the integrator / null the input
+    INTEGRATE = "integrate"  # start and stop charge integration on command
+    READ_CHARGE = "read_charge"  # query the integrated charge
+    STREAM = "stream"  # the instrument pushes (time, charge) samples while integrating
+    PUSH_READINGS = "push_readings"  # the instrument pushes a completed reading at end of beam
+    SET_BIAS = "set_bias"  # the bias supply is under remote control
+    SET_RANGE = "set_range"
+
+
+class ReadingStatus(enum.StrEnum):
+    """Status the instrument attached to a value, mapped from the profile's status field."""
+
+    OK = "ok"
+    OVERRANGE = "overrange"
+    UNDERRANGE = "underrange"
+    BUSY = "busy"
+    ERROR = "error"
+
+
+@dataclass(frozen=True, slots=True)
+class Sample:
+    """One charge value read from the instrument.
+
+    ``t_s`` is the receive time on the driver's clock; ``charge_nC`` the signed integrated charge
+    in nC; ``complete`` is True when the instrument itself marked this as a finished reading
+    (push-readings mode); ``raw`` is the line as received, decoded with errors replaced.
+    """
+
+    t_s: float
+    charge_nC: float
+    status: ReadingStatus = ReadingStatus.OK
+    complete: bool = False
+    raw: str = ""
+
+
+class TrafficDirection(enum.StrEnum):
+    SENT = "tx"
+    RECEIVED = "rx"
+
+
+#: Called by the transport for every line sent or received, before it is parsed:
+#: (direction, t_s, raw bytes including terminators as far as they were seen).
+TrafficListener = Callable[[TrafficDirection, float, bytes], None]
+
+
+class InstrumentError(Exception):
+    """Base of every error an electrometer driver raises."""
+
+
+class InstrumentTimeout(InstrumentError):
+    """The instrument did not answer within the profile's timeout (after its retries)."""
+
+
+class InstrumentDisconnected(InstrumentError):
+    """The port or socket went away (cable pulled, pty closed, connection reset)."""
+
+
+class ProtocolError(InstrumentError):
+    """A line that does not match the profile: garbled, partial, over-long, NaN/inf, not UTF-8.
+
+    ``line`` holds the raw bytes so that the caller can record the rejected line.
+    """
+
+    def __init__(self, message: str, line: bytes = b"") -> None:
+        super().__init__(message)
+        self.line = line
+
+
+class InstrumentReportedError(InstrumentError):
+    """The instrument's error queue (SCPI ``SYST:ERR?``) or status field reported an error."""
+
+
+class NotSupported(InstrumentError):
+    """The instrument lacks this capability; the operator must do the step by hand."""
+
+
+@dataclass(frozen=True, slots=True)
+class Identity:
+    """What the instrument says it is (``*IDN?`` fields, or the profile's identity query)."""
+
+    manufacturer: str
+    model: str
+    serial: str
+    firmware: str
+    raw: str = ""
+
+
+@runtime_checkable
+class Electrometer(Protocol):
+    """The interface the daemon programs against. See the module docstring for conventions."""
+
+    @property
+    def capabilities(self) -> frozenset[Capability]: ...
+
+    def open(self) -> None:
+        """Open the transport. Raises InstrumentDisconnected when the port is not there."""
+
+    def close(self) -> None: ...
+
+    def identify(self) -> Identity: ...
+
+    def zero(self) -> None: ...
+
+    def start_integration(self) -> None: ...
+
+    def stop_integration(self) -> None: ...
+
+    def read_charge(self) -> Sample:
+        """Query the integrated charge now (query mode)."""
+
+    def next_sample(self, timeout_s: float) -> Sample | None:
+        """Return the next pushed sample (stream / push-readings mode), or None on timeout."""
+
+    def set_bias(self, volts: float) -> None:
+        """Set the chamber bias in volts, signed. Raises NotSupported without SET_BIAS."""
+
+    def set_range(self, name: str) -> None: ...
