@@ -1,0 +1,562 @@
+"""The daemon's control protocol: JSON-RPC 2.0 over a Unix socket, one message per line.
+
+This module is the contract between the daemon (``chargebook serve``) and its clients (the
+console, ``chargebook run``/``demo``, scripts). It is pure: standard library only, no store, no
+driver, no asyncio, so any client may import it.
+
+Framing
+    Newline-delimited UTF-8 JSON, one JSON-RPC 2.0 object per line, at most
+    :data:`MAX_MESSAGE_BYTES` bytes per line including the newline. A longer line gets an
+    ``invalid request`` error and that connection is closed; other clients are unaffected.
+    Batches (JSON arrays) are not supported and get ``invalid request``.
+
+Sequence of a client
+    1. ``hello`` {client, operator?}: names the client and the person at the keyboard (the
+       *actor* written in the audit log for every request on this connection).
+    2. ``subscribe``: from now on the daemon sends notifications on this connection:
+       ``snapshot`` (params: a whole :class:`Snapshot`, after every change) and ``event``
+       (params: one :class:`EventInfo`, the audit-log entry just committed).
+       ``subscribe`` returns the current snapshot, so a client never misses the state.
+    3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
+       lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
+
+Errors
+    Standard codes (:data:`PARSE_ERROR` ... :data:`INTERNAL_ERROR`) and application codes
+    (:data:`ILLEGAL_TRANSITION`, :data:`INPUT_ERROR`, :data:`INSTRUMENT_ERROR`,
+    :data:`NO_SESSION`, :data:`CONFIRMATION_REQUIRED`). Errors about one parameter carry
+    ``data: {"field": ..., "value": ..., "allowed": ...}`` (:class:`ErrorData`) so a client can
+    put the message next to the right input box. Every reading is committed to the store before
+    any client hears of it.
+
+Units: charge in nC, temperature in °C, pressure in kPa unless ``pressure_unit`` says hPa or
+mmHg (converted once by the daemon, both values kept), bias in V (signed), time in s.
+"""
+
+from __future__ import annotations
+
+import enum
+import json
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal, NotRequired, TypedDict
+
+PROTOCOL_VERSION = "1.0"
+JSONRPC = "2.0"
+
+#: Longest message on the wire, in bytes, newline included.
+MAX_MESSAGE_BYTES = 64 * 1024
+
+# ---------------------------------------------------------------------------------------------
+# Error codes
+# ---------------------------------------------------------------------------------------------
+PARSE_ERROR = -32700  #: the line is not JSON
+INVALID_REQUEST = -32600  #: JSON, but not a JSON-RPC 2.0 request (or the line is too long)
+METHOD_NOT_FOUND = -32601  #: no such method
+INVALID_PARAMS = -32602  #: a parameter is missing, unknown or of the wrong type (data names it)
+INTERNAL_ERROR = -32603  #: a fault in the daemon; the request changed nothing
+
+ILLEGAL_TRANSITION = -32001  #: the action is not legal in the current state (message says why)
+INPUT_ERROR = -32002  #: a value is out of its allowed range (data: field, value, allowed)
+INSTRUMENT_ERROR = -32003  #: the electrometer refused, timed out or is disconnected
+NO_SESSION = -32004  #: the action needs an open session and there is none
+CONFIRMATION_REQUIRED = -32005  #: a destructive action (abort) was sent without confirm=true
+
+ERROR_NAMES: dict[int, str] = {
+    PARSE_ERROR: "parse error",
+    INVALID_REQUEST: "invalid request",
+    METHOD_NOT_FOUND: "method not found",
+    INVALID_PARAMS: "invalid params",
+    INTERNAL_ERROR: "internal error",
+    ILLEGAL_TRANSITION: "illegal transition",
+    INPUT_ERROR: "input error",
+    INSTRUMENT_ERROR: "instrument error",
+    NO_SESSION: "no session",
+    CONFIRMATION_REQUIRED: "confirmation required",
+}
+
+
+class ErrorData(TypedDict):
+    """``error.data`` for an error about one parameter."""
+
+    field: str
+    value: Any
+    allowed: str
+
+
+# ---------------------------------------------------------------------------------------------
+# States and actions
+# ---------------------------------------------------------------------------------------------
+class EngineState(enum.StrEnum):
+    """Where the sequence is. The transitions are in ``chargebook.acquire.states``."""
+
+    IDLE = "idle"  #: no open session
+    WAITING_FOR_OPERATOR = "waiting_for_operator"  #: a step is current; the operator must act
+    SETTLING = "settling"  #: readings (or a wait) taken only to let the chamber settle
+    COLLECTING = "collecting"  #: readings of the current set are being taken
+    REVIEWING = "reviewing"  #: the set is complete; accept it or redo it
+    PAUSED = "paused"  #: held by the operator; resume returns to the state it left
+    INTERRUPTED = "interrupted"  #: the instrument was lost (or the daemon restarted) mid-set
+    FINISHED = "finished"  #: the session is closed with results
+    ABORTED = "aborted"  #: the session was abandoned; everything recorded is kept
+
+
+class ReadingPhase(enum.StrEnum):
+    """What the electrometer is doing within one reading."""
+
+    IDLE = "idle"  #: not integrating
+    ARMED = "armed"  #: integrating, waiting for the beam (charge not yet above the threshold)
+    RISING = "rising"  #: the beam is on: charge rising
+    HOLDING = "holding"  #: charge flat; end of beam is declared after the hold time
+    TIMED = "timed"  #: integrating for a fixed time (leakage step, no beam)
+
+
+class Method(enum.StrEnum):
+    """Every method the daemon answers. Parameters are in :data:`METHODS`."""
+
+    HELLO = "hello"
+    SUBSCRIBE = "subscribe"
+    UNSUBSCRIBE = "unsubscribe"
+    STATUS = "status"
+    SESSION_START = "session.start"
+    ENVIRONMENT_SET = "environment.set"
+    STEP_ARM = "step.arm"
+    STEP_MANUAL_DONE = "step.manual_done"
+    STEP_SKIP = "step.skip"
+    READING_CAPTURE = "reading.capture"
+    SET_ACCEPT = "set.accept"
+    SET_REDO = "set.redo"
+    SESSION_PAUSE = "session.pause"
+    SESSION_RESUME = "session.resume"
+    SESSION_STOP = "session.stop"
+    SESSION_ABORT = "session.abort"
+    SESSION_CLOSE = "session.close"
+
+
+#: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
+OPERATOR_ACTIONS: tuple[str, ...] = (
+    Method.SESSION_START,
+    Method.ENVIRONMENT_SET,
+    Method.STEP_ARM,
+    Method.STEP_MANUAL_DONE,
+    Method.STEP_SKIP,
+    Method.READING_CAPTURE,
+    Method.SET_ACCEPT,
+    Method.SET_REDO,
+    Method.SESSION_PAUSE,
+    Method.SESSION_RESUME,
+    Method.SESSION_STOP,
+    Method.SESSION_ABORT,
+    Method.SESSION_CLOSE,
+)
+
+NOTIFY_SNAPSHOT = "snapshot"
+NOTIFY_EVENT = "event"
+
+PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
+
+
+# ---------------------------------------------------------------------------------------------
+# Method parameters, declared as data (the daemon checks them with validate_params)
+# ---------------------------------------------------------------------------------------------
+ParamKind = Literal["string", "number", "integer", "boolean", "object", "string_or_object"]
+
+
+@dataclass(frozen=True, slots=True)
+class Param:
+    """One named parameter of a method: its JSON kind, whether it is required, what it means."""
+
+    name: str
+    kind: ParamKind
+    required: bool = False
+    doc: str = ""
+    choices: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, slots=True)
+class MethodSpec:
+    """A method: its parameters (by name), what it does and what it returns."""
+
+    name: str
+    doc: str
+    params: tuple[Param, ...] = ()
+    result: str = "the snapshot after the change"
+
+
+METHODS: dict[str, MethodSpec] = {
+    spec.name: spec
+    for spec in (
+        MethodSpec(
+            Method.HELLO,
+            "Name this connection; `operator` becomes the actor of its requests in the audit log.",
+            (
+                Param("client", "string", doc="program name, e.g. 'console'"),
+                Param("operator", "string", doc="the person at the keyboard"),
+            ),
+            result="HelloResult: protocol_version, daemon_pid, socket, state",
+        ),
+        MethodSpec(
+            Method.SUBSCRIBE,
+            "Start `snapshot` and `event` notifications on this connection.",
+            result="the current snapshot",
+        ),
+        MethodSpec(Method.UNSUBSCRIBE, "Stop notifications on this connection.", result="{}"),
+        MethodSpec(Method.STATUS, "Return the current snapshot.", result="the current snapshot"),
+        MethodSpec(
+            Method.SESSION_START,
+            "Open a session: metadata (machine, beam, chamber, electrometer, calibration, "
+            "convention, beam type, expected output, tolerance) and a plan (a shipped plan's "
+            "name, or a plan as a dict; default: the daemon's --plan).",
+            (
+                Param("metadata", "object", required=True, doc="session metadata"),
+                Param("plan", "string_or_object", doc="plan name or plan dict"),
+            ),
+        ),
+        MethodSpec(
+            Method.ENVIRONMENT_SET,
+            "Record the chamber's air temperature and pressure (an append-only entry).",
+            (
+                Param("temperature_C", "number", required=True, doc="°C, 10 to 40"),
+                Param("pressure", "number", required=True, doc="in pressure_unit"),
+                Param("pressure_unit", "string", doc="default kPa", choices=PRESSURE_UNITS),
+                Param("humidity_pct", "number", doc="relative humidity, %"),
+                Param("source", "string", doc="where the values come from, e.g. 'barometer'"),
+            ),
+        ),
+        MethodSpec(
+            Method.STEP_ARM,
+            "Start the current step's reading set (or continue an interrupted one): the daemon "
+            "zeroes and arms the electrometer for each reading in turn.",
+        ),
+        MethodSpec(
+            Method.STEP_MANUAL_DONE,
+            "Confirm that the manual action the prompt asks for (e.g. turning the bias switch) "
+            "was done by hand; recorded with who and when.",
+            (Param("note", "string", doc="optional remark for the audit log"),),
+        ),
+        MethodSpec(Method.STEP_SKIP, "Skip the current step; only optional steps can be skipped."),
+        MethodSpec(
+            Method.READING_CAPTURE,
+            "Capture the charge integrated so far as a reading now (manual capture).",
+        ),
+        MethodSpec(Method.SET_ACCEPT, "Accept the reviewed set and move to the next step."),
+        MethodSpec(
+            Method.SET_REDO,
+            "Redo the current step: the present set is kept, marked superseded with the reason.",
+            (Param("reason", "string", required=True, doc="why the set is redone"),),
+        ),
+        MethodSpec(
+            Method.SESSION_PAUSE,
+            "Hold the sequence; a reading in progress is dropped (and logged), nothing recorded "
+            "is lost.",
+        ),
+        MethodSpec(Method.SESSION_RESUME, "Return to the state the session was paused from."),
+        MethodSpec(
+            Method.SESSION_STOP,
+            "End the session early as finished, with results from the sets accepted so far.",
+            (Param("reason", "string", required=True, doc="why the session ends early"),),
+        ),
+        MethodSpec(
+            Method.SESSION_ABORT,
+            "Abandon the session: status aborted, the open set aborted, everything kept.",
+            (
+                Param("reason", "string", required=True, doc="why the session is abandoned"),
+                Param("confirm", "boolean", required=True, doc="must be true"),
+            ),
+        ),
+        MethodSpec(
+            Method.SESSION_CLOSE,
+            "Leave a finished or aborted session and return to idle (ready for a new one).",
+        ),
+    )
+}
+
+
+class ParamsError(ValueError):
+    """A request's params are wrong; ``field``, ``value`` and ``allowed`` say how."""
+
+    def __init__(self, field: str, value: Any, allowed: str) -> None:
+        self.field = field
+        self.value = value
+        self.allowed = allowed
+        super().__init__(f"{field} = {value!r} is not allowed: expected {allowed}")
+
+    def data(self) -> ErrorData:
+        """Return the JSON-RPC ``error.data`` for this error."""
+        return {"field": self.field, "value": _jsonable(self.value), "allowed": self.allowed}
+
+
+def _jsonable(value: Any) -> Any:
+    try:
+        json.dumps(value)
+    except (TypeError, ValueError):
+        return repr(value)
+    return value
+
+
+_KIND_CHECKS: dict[str, tuple[str, Any]] = {
+    "string": ("a string", lambda v: isinstance(v, str)),
+    "number": (
+        "a number",
+        lambda v: isinstance(v, int | float) and not isinstance(v, bool) and v == v,
+    ),
+    "integer": ("an integer", lambda v: isinstance(v, int) and not isinstance(v, bool)),
+    "boolean": ("true or false", lambda v: isinstance(v, bool)),
+    "object": ("a JSON object", lambda v: isinstance(v, dict)),
+    "string_or_object": ("a plan name or a plan object", lambda v: isinstance(v, str | dict)),
+}
+
+
+def validate_params(method: str, params: Any) -> dict[str, Any]:
+    """Return the params of ``method`` checked against :data:`METHODS` (kinds, required, unknown).
+
+    Raises :class:`ParamsError` naming the field for a missing, unknown or mistyped parameter
+    (``"warm"`` where a number belongs, for example), and KeyError for an unknown method.
+    Ranges (10–40 °C and so on) are checked by the daemon, which knows the physics limits.
+    """
+    spec = METHODS[method]
+    if params is None:
+        params = {}
+    if not isinstance(params, dict):
+        raise ParamsError("params", params, "a JSON object of named parameters")
+    known = {p.name: p for p in spec.params}
+    for name in params:
+        if name not in known:
+            names = ", ".join(known) or "no parameters"
+            raise ParamsError(name, params[name], f"one of: {names}")
+    for param in spec.params:
+        if param.name not in params or params[param.name] is None:
+            if param.required:
+                raise ParamsError(param.name, None, f"{_KIND_CHECKS[param.kind][0]} (required)")
+            continue
+        value = params[param.name]
+        description, check = _KIND_CHECKS[param.kind]
+        if not check(value):
+            raise ParamsError(param.name, value, description)
+        if param.choices and value not in param.choices:
+            raise ParamsError(param.name, value, "one of " + ", ".join(param.choices))
+    return dict(params)
+
+
+# ---------------------------------------------------------------------------------------------
+# The snapshot: the whole state, sent after every change
+# ---------------------------------------------------------------------------------------------
+class FlagInfo(TypedDict):
+    """A stability or plausibility flag, in words (from ``corrections``)."""
+
+    code: str
+    message: str
+    severity: str  # info | warning | error
+
+
+class ReadingInfo(TypedDict):
+    """One stored reading. ``settling`` readings are kept and shown but not used in results."""
+
+    id: int
+    seq: int  # 1, 2, ... within its set
+    t_s: float  # instrument clock, s
+    charge_nC: float  # signed as read
+    capture: str  # auto | pushed | manual
+    settling: bool
+    status: str  # the instrument's status for the value (ok, overrange, ...)
+    recorded_at: str  # UTC ISO time it was committed
+    flags: list[FlagInfo]  # per-reading flags (sign against bias, outlier, ...)
+
+
+class SetInfo(TypedDict):
+    """A reading set (one attempt at one plan step), superseded and interrupted ones included."""
+
+    id: int
+    step_index: int
+    step_key: str
+    purpose: str  # leakage | warmup | routine | opposite | reduced | return_check
+    polarity: int  # +1 | -1
+    bias_V: float  # signed
+    attempt: int  # 1 for the first try, 2 after one redo, ...
+    status: str  # collecting | reviewing | accepted | superseded | interrupted | aborted
+    reason: str | None  # why it was superseded / interrupted / aborted
+    readings: list[ReadingInfo]
+    readings_needed: int  # readings used for results (settling readings not counted)
+    readings_done: int  # non-settling readings taken so far
+    stats: dict[str, Any] | None  # statistics of the non-settling readings (from corrections)
+    flags: list[FlagInfo]  # set-level flags
+
+
+class StepInfo(TypedDict):
+    """A plan step and how far it has got."""
+
+    index: int
+    key: str
+    purpose: str
+    polarity: int
+    bias_V: float
+    readings: int
+    mu_per_reading: float
+    optional: bool
+    prompt: str
+    status: str  # pending | current | accepted | skipped
+
+
+class PromptInfo(TypedDict):
+    """What the operator must do now, in plain words."""
+
+    #: start | environment | manual | arm | deliver_beam | review | interrupted | paused | done
+    kind: str
+    text: str
+    manual_action: NotRequired[dict[str, Any]]  # e.g. {"action": "set_bias", "volts": -300}
+
+
+class LiveReading(TypedDict):
+    """The reading in progress."""
+
+    phase: str  # a ReadingPhase value
+    charge_nC: float | None  # latest sample
+    elapsed_s: float | None  # since the reading was armed (instrument clock)
+    seq: int | None  # the seq it will get when captured
+
+
+class InstrumentInfo(TypedDict):
+    """The electrometer as the daemon sees it."""
+
+    connected: bool
+    profile: str
+    identity: str | None  # manufacturer, model, serial, firmware as reported
+    capabilities: list[str]
+    message: str | None  # plain words when something is wrong (e.g. 'disconnected, retrying')
+    bench: bool  # True when the daemon drives a simulated linac (--bench-control)
+
+
+class EnvironmentInfo(TypedDict):
+    """The latest environment entry of the session."""
+
+    temperature_C: float
+    pressure_kPa: float
+    pressure_entered: float
+    pressure_unit: str
+    humidity_pct: float | None
+    source: str
+    recorded_at: str
+
+
+class SessionInfo(TypedDict):
+    """The session's stored row, decoded."""
+
+    id: int
+    status: str  # open | finished | aborted | interrupted
+    created_at: str
+    metadata: dict[str, Any]
+    convention: str
+    beam: str
+    plan_name: str
+    reason: str | None
+
+
+class Snapshot(TypedDict):
+    """The whole daemon state, as sent in ``snapshot`` notifications and method results.
+
+    ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed from the
+    accepted sets, the latest environment entry and the metadata; factors not yet measured are
+    *pending* (``factor_states``) and values that depend on them are null. While a set of a
+    step without an accepted set is being collected, its readings are included provisionally and
+    ``results_provisional`` is true.
+    """
+
+    seq: int  # increases with every snapshot
+    state: str  # an EngineState value
+    paused_from: str | None
+    allowed: list[str]  # operator actions legal now (subset of OPERATOR_ACTIONS)
+    prompt: PromptInfo
+    session: SessionInfo | None
+    plan: list[StepInfo]
+    step_index: int | None
+    current_set: SetInfo | None
+    sets: list[SetInfo]
+    live: LiveReading
+    environment: EnvironmentInfo | None
+    results: dict[str, Any] | None
+    results_provisional: bool
+    instrument: InstrumentInfo
+    caution: str
+
+
+class EventInfo(TypedDict):
+    """One audit-log entry, as committed (params of the ``event`` notification)."""
+
+    id: int
+    session_id: int | None
+    recorded_at: str
+    actor: str
+    kind: str
+    detail: dict[str, Any]
+
+
+class HelloResult(TypedDict):
+    protocol_version: str
+    daemon_pid: int
+    socket: str
+    state: str
+
+
+# ---------------------------------------------------------------------------------------------
+# Messages
+# ---------------------------------------------------------------------------------------------
+def request(request_id: int | str, method: str, params: dict[str, Any] | None = None) -> dict:
+    """Return a JSON-RPC request object."""
+    message: dict[str, Any] = {"jsonrpc": JSONRPC, "id": request_id, "method": method}
+    if params:
+        message["params"] = params
+    return message
+
+
+def notification(method: str, params: Any) -> dict:
+    """Return a JSON-RPC notification object (a request without an id)."""
+    return {"jsonrpc": JSONRPC, "method": method, "params": params}
+
+
+def result_response(request_id: int | str | None, result: Any) -> dict:
+    """Return a JSON-RPC success response."""
+    return {"jsonrpc": JSONRPC, "id": request_id, "result": result}
+
+
+def error_response(
+    request_id: int | str | None, code: int, message: str, data: Any | None = None
+) -> dict:
+    """Return a JSON-RPC error response; ``data`` is included when given."""
+    error: dict[str, Any] = {"code": code, "message": message}
+    if data is not None:
+        error["data"] = data
+    return {"jsonrpc": JSONRPC, "id": request_id, "error": error}
+
+
+def encode(message: dict) -> bytes:
+    """Return ``message`` as one line of UTF-8 JSON ending in a newline.
+
+    Raises ValueError if the line would exceed :data:`MAX_MESSAGE_BYTES`.
+    """
+    line = json.dumps(message, separators=(",", ":"), allow_nan=False).encode() + b"\n"
+    if len(line) > MAX_MESSAGE_BYTES:
+        raise ValueError(
+            f"message is {len(line)} bytes, more than the limit of {MAX_MESSAGE_BYTES} bytes"
+        )
+    return line
+
+
+# ---------------------------------------------------------------------------------------------
+# Where the socket lives
+# ---------------------------------------------------------------------------------------------
+SOCKET_NAME = "daemon.sock"
+
+
+def default_socket_dir() -> Path:
+    """Return the directory for the daemon's socket: ``$XDG_RUNTIME_DIR/chargebook``, else
+    ``<tmp>/chargebook-<uid>``. The daemon creates it with mode 0700."""
+    runtime = os.environ.get("XDG_RUNTIME_DIR")
+    if runtime and Path(runtime).is_dir():
+        return Path(runtime) / "chargebook"
+    return Path(tempfile.gettempdir()) / f"chargebook-{os.getuid()}"
+
+
+def default_socket_path() -> Path:
+    """Return the default socket path (``default_socket_dir() / 'daemon.sock'``)."""
+    return default_socket_dir() / SOCKET_NAME
