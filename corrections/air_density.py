@@ -1,0 +1,53 @@
+"""k_TP (TG-51: P_TP), the air-density correction of a vented chamber's reading.
+
+    k_TP = ((273.2 + T) / (273.2 + T0)) · (P0 / P)
+
+T, T0 in °C and P, P0 in kPa; (T0, P0) are the convention's reference conditions (TRS-398:
+20 °C, 101.325 kPa; TG-51: 22 °C, 101.33 kPa). Both protocols write the kelvin offset as 273.2.
+"""
+
+from __future__ import annotations
+
+from chargebook.corrections.conventions import Convention, constants
+from chargebook.corrections.limits import PRESSURE_KPA, TEMPERATURE_C, Number
+
+#: The kelvin offset as both protocols print it (the exact 273.15 differs by < 2e-6 in k_TP).
+KELVIN_OFFSET_PROTOCOL = 273.2
+
+
+def k_TP(
+    temperature_C: object,
+    pressure_kPa: object,
+    convention: Convention | str = Convention.TRS398,
+    *,
+    reference_temperature_C: float | None = None,
+    reference_pressure_kPa: float | None = None,
+    kelvin_offset: float = KELVIN_OFFSET_PROTOCOL,
+) -> Number:
+    """Return k_TP (dimensionless) for air at ``temperature_C`` (°C) and ``pressure_kPa`` (kPa).
+
+    Scalars or numpy arrays broadcast. The reference conditions come from ``convention`` unless
+    given explicitly (to reproduce a published worked example with other constants).
+    Raises InputError for a temperature outside 10–40 °C or a pressure outside 60–110 kPa.
+    """
+    reference = constants(convention)
+    T0 = (
+        reference.reference_temperature_C
+        if reference_temperature_C is None
+        else reference_temperature_C
+    )
+    P0 = (
+        reference.reference_pressure_kPa
+        if reference_pressure_kPa is None
+        else reference_pressure_kPa
+    )
+    T = TEMPERATURE_C.check("temperature_C", temperature_C)
+    P = PRESSURE_KPA.check("pressure_kPa", pressure_kPa)
+    return ((kelvin_offset + T) / (kelvin_offset + T0)) * (P0 / P)
+
+
+def k_TP_relative_sensitivity(
+    temperature_C: Number, pressure_kPa: Number, kelvin_offset: float = KELVIN_OFFSET_PROTOCOL
+) -> tuple[Number, Number]:
+    """Return (∂k_TP/∂T / k_TP in 1/°C, ∂k_TP/∂P / k_TP in 1/kPa) for uncertainty propagation."""
+    return 1.0 / (kelvin_offset + temperature_C), -1.0 / pressure_kPa

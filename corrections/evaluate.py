@@ -1,0 +1,642 @@
+"""evaluate(): everything known about a session in, every result and flag out.
+
+This is the one function the daemon's live results, the offline worksheet command, replay and
+exports call, so every number an operator sees is computed here, once. Partial inputs are normal
+(the daemon calls it after every reading): a factor whose inputs are missing is *pending*, and
+every value depending on it is None, never computed as if the factor were 1. Invalid inputs
+raise :class:`~chargebook.corrections.errors.InputError` naming the field, value and range.
+
+Factor states: "measured" (derived from readings or the environment), "entered" (typed in from a
+certificate), "default" (not entered, the stated conventional value used: k_elec = 1 for a
+chamber and electrometer calibrated together, k_h = 1 for 20–80 % RH), "pending" (not known yet).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+import numpy as np
+from chargebook.corrections import dose as dose_module
+from chargebook.corrections import limits, stability
+from chargebook.corrections.air_density import k_TP as k_TP_of
+from chargebook.corrections.conventions import Convention, constants, parse_convention
+from chargebook.corrections.errors import Flag, InputError
+from chargebook.corrections.polarity import k_pol as k_pol_of
+from chargebook.corrections.recombination import (
+    Beam,
+    parse_beam,
+    tabulated_coefficients,
+    voltage_ratio,
+)
+from chargebook.corrections.recombination import k_s as k_s_of
+from chargebook.corrections.recombination import method as recombination_method
+from chargebook.corrections.stability import Thresholds
+from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.uncertainty import (
+    COVERAGE_FACTOR,
+    Component,
+    Estimate,
+    ModelInputs,
+    RelativeInput,
+    budget,
+    combine_pct,
+    k_s_log_slope,
+)
+from chargebook.corrections.units import Conversion
+
+#: Factor keys in the order of the measurement model.
+FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw", "k_Q")
+#: Keys of the factors that make up the corrected charge (the rest turn it into dose).
+CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
+STATES: tuple[str, ...] = ("measured", "entered", "default", "pending")
+SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
+
+
+@dataclass(frozen=True)
+class Uncertainties:
+    """Type B inputs, with documented defaults.
+
+    ``u_N_Dw_pct_k2``: N_D,w's expanded uncertainty as on the calibration certificate (k = 2),
+    halved here; None: not given, left out of u_c and flagged. ``u_k_Q_pct``: k_Q's standard
+    uncertainty (%); None: likewise. ``u_k_elec_pct``: k_elec's standard uncertainty (%), 0 when
+    chamber and electrometer were calibrated together. ``u_temperature_C``: thermometer, 0.1 °C
+    (a calibrated probe; common practice). ``u_pressure_kPa``: barometer, 0.05 kPa (a calibrated
+    digital barometer; common practice).
+    """
+
+    u_N_Dw_pct_k2: float | None = None
+    u_k_Q_pct: float | None = None
+    u_k_elec_pct: float = 0.0
+    u_temperature_C: float = 0.1
+    u_pressure_kPa: float = 0.05
+
+
+@dataclass(frozen=True)
+class MeasurementInputs:
+    """Everything known about one session; None or an empty set means "not known yet".
+
+    Charges in nC signed as read; biases in V (routine signed, reduced signed or a magnitude of
+    the routine polarity); temperature in °C, pressure in kPa, humidity in % RH; N_D,w in Gy/nC;
+    ``leakage_nC`` the leakage charge collected over one reading's duration.
+    ``temperature_history_C`` and ``pressure_history_kPa`` are the values recorded during the
+    session, to flag a changing environment. ``conversions`` records unit conversions made
+    while reading the inputs, so they can be shown with the results.
+    """
+
+    convention: str = "trs398"
+    beam: str = "pulsed"
+    temperature_C: float | None = None
+    pressure_kPa: float | None = None
+    humidity_pct: float | None = None
+    routine_bias_V: float | None = None
+    reduced_bias_V: float | None = None
+    routine_nC: Sequence[float] = ()
+    opposite_nC: Sequence[float] = ()
+    reduced_nC: Sequence[float] = ()
+    leakage_nC: float | None = None
+    N_Dw_Gy_per_nC: float | None = None
+    k_Q: float | None = None
+    k_elec: float | None = None
+    monitor_units: float | None = None
+    expected_cGy_per_MU: float | None = None
+    tolerance_pct: float | None = None
+    uncertainties: Uncertainties = Uncertainties()
+    thresholds: Thresholds = field(default_factory=Thresholds)
+    temperature_history_C: Sequence[float] = ()
+    pressure_history_kPa: Sequence[float] = ()
+    conversions: tuple[Conversion, ...] = ()
+
+
+@dataclass(frozen=True)
+class Factor:
+    """One factor of the model: its printed symbol, value, state, relative u (%) and source."""
+
+    symbol: str
+    value: float | None
+    state: str
+    u_rel_pct: float | None = None
+    source: str = ""
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """Every result of one evaluation; values depending on a pending factor are None."""
+
+    convention: Convention
+    beam: Beam
+    factors: Mapping[str, Factor]
+    sets: Mapping[str, SetStatistics | None]
+    M_raw_nC: float | None
+    M_corrected_nC: float | None
+    dose_Gy: float | None
+    dose_per_MU_cGy: float | None
+    expected_cGy_per_MU: float | None
+    deviation_pct: float | None
+    tolerance_pct: float
+    tolerance_source: str
+    within_tolerance: bool | None
+    u_M_corrected_pct: float | None
+    u_combined_pct: float | None
+    U_expanded_pct: float | None
+    budget: tuple[Component, ...]
+    flags: tuple[Flag, ...]
+    voltage_ratio: float | None = None
+    charge_ratio: float | None = None
+    recombination_method: str = ""
+    conversions: tuple[Conversion, ...] = field(default_factory=tuple)
+
+    @property
+    def symbols(self) -> Mapping[str, str]:
+        """Return result key -> printed symbol under this evaluation's convention."""
+        return constants(self.convention).symbols
+
+    def to_dict(self) -> dict[str, object]:
+        """Return the results as JSON-ready plain types (the keys documented in the README)."""
+        reference = constants(self.convention)
+        result: dict[str, object] = {
+            "convention": self.convention.value,
+            "beam": self.beam.value,
+            "symbols": dict(reference.symbols),
+            "reference_temperature_C": reference.reference_temperature_C,
+            "reference_pressure_kPa": reference.reference_pressure_kPa,
+        }
+        for key in CHARGE_FACTOR_KEYS:
+            result[key] = self.factors[key].value
+        result["N_Dw_Gy_per_nC"] = self.factors["N_Dw"].value
+        result["k_Q"] = self.factors["k_Q"].value
+        result["factor_states"] = {key: f.state for key, f in self.factors.items()}
+        result["factor_sources"] = {key: f.source for key, f in self.factors.items()}
+        result["factor_u_rel_pct"] = {key: f.u_rel_pct for key, f in self.factors.items()}
+        result.update(
+            {
+                "voltage_ratio": self.voltage_ratio,
+                "charge_ratio": self.charge_ratio,
+                "recombination_method": self.recombination_method,
+                "M_raw_nC": self.M_raw_nC,
+                "M_corrected_nC": self.M_corrected_nC,
+                "dose_Gy": self.dose_Gy,
+                "dose_per_MU_cGy": self.dose_per_MU_cGy,
+                "expected_cGy_per_MU": self.expected_cGy_per_MU,
+                "deviation_pct": self.deviation_pct,
+                "tolerance_pct": self.tolerance_pct,
+                "tolerance_source": self.tolerance_source,
+                "within_tolerance": self.within_tolerance,
+                "u_M_corrected_pct": self.u_M_corrected_pct,
+                "u_combined_pct": self.u_combined_pct,
+                "U_expanded_pct": self.U_expanded_pct,
+                "budget": [c.to_dict() for c in self.budget],
+                "flags": [f.to_dict() for f in self.flags],
+                "sets": {k: (s.to_dict() if s else None) for k, s in self.sets.items()},
+                "conversions": [c.to_dict() for c in self.conversions],
+            }
+        )
+        return result
+
+
+# ---------------------------------------------------------------- checking the inputs
+
+
+def _optional(value: object, check: limits.Range, name: str) -> float | None:
+    return None if value is None else float(check.check(name, value))
+
+
+@dataclass(frozen=True)
+class _Checked:
+    """The scalar inputs after validation (None where not given)."""
+
+    temperature_C: float | None
+    pressure_kPa: float | None
+    humidity_pct: float | None
+    routine_bias_V: float | None
+    voltage_ratio: float | None
+    leakage_nC: float | None
+    N_Dw_Gy_per_nC: float | None
+    k_Q: float | None
+    k_elec: float | None
+    monitor_units: float | None
+    expected_cGy_per_MU: float | None
+    tolerance_pct: float
+
+
+def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
+    allowed = f"±{limits.BIAS_MAGNITUDE_V.text()}"
+    routine = None
+    if inputs.routine_bias_V is not None:
+        routine = float(limits.as_number("routine_bias_V", inputs.routine_bias_V, allowed))
+        limits.BIAS_MAGNITUDE_V.check("|routine_bias_V|", abs(routine))
+    if inputs.reduced_bias_V is None:
+        return routine, None
+    reduced = float(limits.as_number("reduced_bias_V", inputs.reduced_bias_V, allowed))
+    limits.BIAS_MAGNITUDE_V.check("|reduced_bias_V|", abs(reduced))
+    if routine is None:
+        return routine, None
+    return routine, float(voltage_ratio(routine, reduced))
+
+
+def _check_uncertainties(u: Uncertainties) -> None:
+    for name in ("u_N_Dw_pct_k2", "u_k_Q_pct", "u_k_elec_pct"):
+        _optional(getattr(u, name), limits.UNCERTAINTY_PCT, f"uncertainties.{name}")
+    limits.U_TEMPERATURE_C.check("uncertainties.u_temperature_C", u.u_temperature_C)
+    limits.U_PRESSURE_KPA.check("uncertainties.u_pressure_kPa", u.u_pressure_kPa)
+
+
+def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam) -> _Checked:
+    routine_V, n = _check_bias(inputs)
+    if n is not None and convention is Convention.TRS398 and beam is not Beam.CONTINUOUS:
+        tabulated_coefficients(n, beam)  # refuse a ratio with no tabulated row now, not later
+    _check_uncertainties(inputs.uncertainties)
+    for index, value in enumerate(inputs.temperature_history_C):
+        limits.TEMPERATURE_C.check(f"temperature_history_C[{index}]", value)
+    for index, value in enumerate(inputs.pressure_history_kPa):
+        limits.PRESSURE_KPA.check(f"pressure_history_kPa[{index}]", value)
+    tolerance = (
+        dose_module.NAMED_TOLERANCES_PCT[dose_module.DEFAULT_TOLERANCE_NAME]
+        if inputs.tolerance_pct is None
+        else dose_module.tolerance_pct(inputs.tolerance_pct)
+    )
+    return _Checked(
+        temperature_C=_optional(inputs.temperature_C, limits.TEMPERATURE_C, "temperature_C"),
+        pressure_kPa=_optional(inputs.pressure_kPa, limits.PRESSURE_KPA, "pressure_kPa"),
+        humidity_pct=_optional(inputs.humidity_pct, limits.HUMIDITY_PCT, "humidity_pct"),
+        routine_bias_V=routine_V,
+        voltage_ratio=n,
+        leakage_nC=_optional(inputs.leakage_nC, limits.LEAKAGE_NC, "leakage_nC"),
+        N_Dw_Gy_per_nC=_optional(inputs.N_Dw_Gy_per_nC, limits.N_DW_GY_PER_NC, "N_Dw_Gy_per_nC"),
+        k_Q=_optional(inputs.k_Q, limits.K_Q, "k_Q"),
+        k_elec=_optional(inputs.k_elec, limits.K_ELEC, "k_elec"),
+        monitor_units=_optional(inputs.monitor_units, limits.MONITOR_UNITS, "monitor_units"),
+        expected_cGy_per_MU=_optional(
+            inputs.expected_cGy_per_MU, limits.EXPECTED_CGY_PER_MU, "expected_cGy_per_MU"
+        ),
+        tolerance_pct=tolerance,
+    )
+
+
+def _check_set_signs(key: str, readings: np.ndarray, mean: float) -> None:
+    """Refuse a reading whose sign differs from its set's: within a set the bias is fixed."""
+    wrong = np.sign(readings) != np.sign(mean)
+    if wrong.any():
+        index = int(np.flatnonzero(wrong)[0])
+        raise InputError(
+            f"{key}_nC[{index}]",
+            float(readings[index]),
+            f"a {'negative' if mean < 0 else 'positive'} charge like the rest of the set",
+            "has a sign that contradicts the bias of its set",
+        )
+
+
+def _check_cross_signs(sets: Mapping[str, SetStatistics | None]) -> None:
+    """Refuse sets whose signs contradict their biases relative to the routine set."""
+    routine = sets["routine"]
+    if routine is None:
+        return
+    rules = (("opposite", -1.0, "the opposite sign to"), ("reduced", 1.0, "the same sign as"))
+    for key, relation, words in rules:
+        other = sets[key]
+        if other is not None and np.sign(other.mean_nC) != relation * np.sign(routine.mean_nC):
+            raise InputError(
+                f"{key}_nC",
+                other.mean_nC,
+                f"charges of {words} the routine readings",
+                "has a sign that contradicts its bias",
+            )
+
+
+def _reading_sets(
+    inputs: MeasurementInputs,
+) -> dict[str, SetStatistics | None]:
+    sets: dict[str, SetStatistics | None] = {}
+    threshold = inputs.thresholds.outlier_modified_z
+    for key in SET_KEYS:
+        readings = getattr(inputs, f"{key}_nC")
+        if readings is None or len(readings) == 0:
+            sets[key] = None
+            continue
+        stats = set_statistics(readings, f"{key}_nC", threshold)
+        _check_set_signs(key, np.asarray(readings, dtype=float), stats.mean_nC)
+        sets[key] = stats
+    _check_cross_signs(sets)
+    return sets
+
+
+# ---------------------------------------------------------------- the factors
+
+
+def _pending(symbol: str, needs: str) -> Factor:
+    return Factor(symbol, None, "pending", None, f"needs {needs}")
+
+
+def _factor_k_TP(
+    symbol: str, convention: Convention, checked: _Checked, u: Uncertainties
+) -> Factor:
+    if checked.temperature_C is None or checked.pressure_kPa is None:
+        return _pending(symbol, "temperature and pressure")
+    value = float(k_TP_of(checked.temperature_C, checked.pressure_kPa, convention))
+    u_rel = 100.0 * float(
+        np.hypot(
+            u.u_temperature_C / (273.2 + checked.temperature_C),
+            u.u_pressure_kPa / checked.pressure_kPa,
+        )
+    )
+    reference = constants(convention)
+    source = (
+        f"{checked.temperature_C:g} °C, {checked.pressure_kPa:g} kPa → "
+        f"{reference.reference_temperature_C:g} °C, {reference.reference_pressure_kPa:g} kPa"
+    )
+    return Factor(symbol, value, "measured", u_rel, source)
+
+
+def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
+    if humidity_pct is None:
+        return Factor(symbol, 1.0, "default", 0.0, "no humidity entered; 1 for 20–80 % RH")
+    return Factor(symbol, 1.0, "measured", 0.0, f"{humidity_pct:g} % RH; 1 for 20–80 % RH")
+
+
+def _factor_k_pol(symbol: str, sets: Mapping[str, SetStatistics | None]) -> Factor:
+    routine, opposite = sets["routine"], sets["opposite"]
+    if routine is None or opposite is None:
+        return _pending(symbol, "routine and opposite-polarity readings")
+    value = float(k_pol_of(routine.mean_nC, opposite.mean_nC))
+    u_rel = None
+    if routine.standard_error_nC is not None and opposite.standard_error_nC is not None:
+        share = abs(opposite.mean_nC) / (abs(routine.mean_nC) + abs(opposite.mean_nC))
+        u_rel = share * float(
+            np.hypot(routine.relative_standard_error_pct, opposite.relative_standard_error_pct)
+        )
+    return Factor(symbol, value, "measured", u_rel, "(|M+| + |M−|) / (2|M|)")
+
+
+def _factor_k_s(
+    symbol: str,
+    sets: Mapping[str, SetStatistics | None],
+    checked: _Checked,
+    beam: Beam,
+    convention: Convention,
+) -> Factor:
+    routine, reduced = sets["routine"], sets["reduced"]
+    if routine is None or reduced is None or checked.voltage_ratio is None:
+        return _pending(symbol, "routine and reduced-bias readings and both biases")
+    ratio = routine.mean_nC / reduced.mean_nC
+    value = float(k_s_of(ratio, checked.voltage_ratio, beam, convention))
+    u_rel = None
+    if routine.standard_error_nC is not None and reduced.standard_error_nC is not None:
+        sensitivity = abs(k_s_log_slope(ratio, checked.voltage_ratio, beam, convention))
+        u_rel = sensitivity * float(
+            np.hypot(routine.relative_standard_error_pct, reduced.relative_standard_error_pct)
+        )
+    source = f"n = {checked.voltage_ratio:g}, M1/M2 = {ratio:.5f}; " + recombination_method(
+        beam, convention
+    )
+    return Factor(symbol, value, "measured", u_rel, source)
+
+
+def _factor_entered(
+    symbol: str, value: float | None, u_rel_pct: float | None, needs: str, unit: str = ""
+) -> Factor:
+    if value is None:
+        return _pending(symbol, needs)
+    return Factor(symbol, value, "entered", u_rel_pct, f"entered{unit}")
+
+
+def _factors(
+    inputs: MeasurementInputs,
+    checked: _Checked,
+    sets: Mapping[str, SetStatistics | None],
+    convention: Convention,
+    beam: Beam,
+) -> dict[str, Factor]:
+    symbols = constants(convention).symbols
+    u = inputs.uncertainties
+    k_elec = (
+        Factor(
+            symbols["k_elec"],
+            1.0,
+            "default",
+            u.u_k_elec_pct,
+            "not entered; 1 (calibrated together)",
+        )
+        if checked.k_elec is None
+        else Factor(symbols["k_elec"], checked.k_elec, "entered", u.u_k_elec_pct, "entered")
+    )
+    u_N_Dw = None if u.u_N_Dw_pct_k2 is None else u.u_N_Dw_pct_k2 / COVERAGE_FACTOR
+    return {
+        "k_TP": _factor_k_TP(symbols["k_TP"], convention, checked, u),
+        "k_h": _factor_k_h(symbols["k_h"], checked.humidity_pct),
+        "k_pol": _factor_k_pol(symbols["k_pol"], sets),
+        "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention),
+        "k_elec": k_elec,
+        "N_Dw": _factor_entered(
+            symbols["N_Dw"],
+            checked.N_Dw_Gy_per_nC,
+            u_N_Dw,
+            "the calibration coefficient",
+            " (Gy/nC)",
+        ),
+        "k_Q": _factor_entered(symbols["k_Q"], checked.k_Q, u.u_k_Q_pct, "the beam quality factor"),
+    }
+
+
+# ---------------------------------------------------------------- results and uncertainty
+
+
+def _product(factors: Mapping[str, Factor], keys: Sequence[str]) -> float | None:
+    values = [factors[key].value for key in keys]
+    return None if any(v is None for v in values) else float(np.prod(values))
+
+
+def _model(
+    inputs: MeasurementInputs,
+    checked: _Checked,
+    sets: Mapping[str, SetStatistics | None],
+    factors: Mapping[str, Factor],
+    convention: Convention,
+    beam: Beam,
+) -> ModelInputs:
+    u = inputs.uncertainties
+
+    def estimate(key: str) -> Estimate | None:
+        stats = sets[key]
+        return None if stats is None else Estimate(stats.mean_nC, stats.standard_error_nC)
+
+    has_k_TP = factors["k_TP"].state != "pending"
+    k_elec_source = (
+        "Type B: electrometer calibration"
+        if factors["k_elec"].state == "entered"
+        else ("Type B: k_elec not entered (calibrated together)")
+    )
+    relative = (
+        RelativeInput("k_elec", u.u_k_elec_pct, f"{k_elec_source}, u = {u.u_k_elec_pct:g} %"),
+        RelativeInput(
+            "N_D,w calibration coefficient",
+            factors["N_Dw"].u_rel_pct,
+            "Type B: certificate, U(k=2) halved"
+            if u.u_N_Dw_pct_k2 is not None
+            else "not given: left out of u_c",
+            in_charge=False,
+        ),
+        RelativeInput(
+            "k_Q",
+            u.u_k_Q_pct,
+            "Type B: code of practice" if u.u_k_Q_pct is not None else "not given: left out of u_c",
+            in_charge=False,
+        ),
+    )
+    return ModelInputs(
+        convention,
+        beam,
+        estimate("routine"),
+        opposite_nC=estimate("opposite") if factors["k_pol"].state != "pending" else None,
+        reduced_nC=estimate("reduced") if factors["k_s"].state != "pending" else None,
+        voltage_ratio=checked.voltage_ratio if factors["k_s"].state != "pending" else None,
+        temperature_C=Estimate(checked.temperature_C, u.u_temperature_C) if has_k_TP else None,
+        pressure_kPa=Estimate(checked.pressure_kPa, u.u_pressure_kPa) if has_k_TP else None,
+        relative_inputs=relative,
+    )
+
+
+def _type_a_known(components: Sequence[Component]) -> bool:
+    return all(c.u_rel_pct is not None for c in components if c.source.startswith("Type A"))
+
+
+def _uncertainty_flags(components: Sequence[Component]) -> list[Flag]:
+    missing = [c.component for c in components if c.source.startswith("not given")]
+    if not missing:
+        return []
+    return [
+        Flag(
+            "uncertainty_incomplete",
+            f"No uncertainty was entered for {' and '.join(missing)}: the combined uncertainty "
+            "leaves it out and understates the true uncertainty of the dose.",
+            "info",
+        )
+    ]
+
+
+def _tolerance_flags(
+    deviation: float | None, tolerance: float, expected: float | None
+) -> list[Flag]:
+    if deviation is None or abs(deviation) <= tolerance:
+        return []
+    return [
+        Flag(
+            "outside_tolerance",
+            f"The dose per MU deviates by {deviation:+.2f} % from the expected "
+            f"{expected:g} cGy/MU, outside the ±{tolerance:g} % tolerance. Check the set-up "
+            "and every input before any adjustment; the physicist in charge decides.",
+        )
+    ]
+
+
+def _session_flags(
+    inputs: MeasurementInputs,
+    checked: _Checked,
+    sets: Mapping[str, SetStatistics | None],
+    factors: Mapping[str, Factor],
+) -> list[Flag]:
+    limits_ = inputs.thresholds
+    flags: list[Flag] = []
+    for key in SET_KEYS:
+        if sets[key] is not None:
+            flags += stability.set_flags(key, sets[key], limits_)
+    if factors["k_pol"].value is not None:
+        flags += stability.k_pol_flags(factors["k_pol"].value, factors["k_pol"].symbol, limits_)
+    if factors["k_s"].value is not None:
+        flags += stability.k_s_flags(factors["k_s"].value, factors["k_s"].symbol, limits_)
+    routine = sets["routine"]
+    if routine is not None and checked.leakage_nC is not None:
+        flags += stability.leakage_flags(checked.leakage_nC, routine.mean_nC, limits_)
+    if routine is not None and checked.routine_bias_V is not None:
+        flags += stability.sign_flags(checked.routine_bias_V, routine.mean_nC, limits_)
+    temperatures = list(inputs.temperature_history_C) + (
+        [checked.temperature_C] if checked.temperature_C is not None else []
+    )
+    pressures = list(inputs.pressure_history_kPa) + (
+        [checked.pressure_kPa] if checked.pressure_kPa is not None else []
+    )
+    flags += stability.environment_flags(temperatures, pressures, limits_)
+    flags += stability.humidity_flags(checked.humidity_pct)
+    if factors["k_elec"].state == "default":
+        flags.append(
+            Flag(
+                "k_elec_assumed",
+                f"No {factors['k_elec'].symbol} entered: 1 is used, as for a chamber and "
+                "electrometer calibrated together. Enter the electrometer's calibration factor "
+                "if they were calibrated separately.",
+                "info",
+            )
+        )
+    return flags
+
+
+def evaluate(inputs: MeasurementInputs) -> Evaluation:
+    """Return every factor, result, uncertainty and flag that ``inputs`` allow.
+
+    Deterministic; never raises for missing data (dependent values are None); raises
+    InputError naming the field, value and allowed range for invalid data.
+    """
+    convention = parse_convention(inputs.convention)
+    beam = parse_beam(inputs.beam)
+    checked = _check_scalars(inputs, convention, beam)
+    sets = _reading_sets(inputs)
+    factors = _factors(inputs, checked, sets, convention, beam)
+
+    routine = sets["routine"]
+    M_raw = None if routine is None else routine.mean_nC
+    charge_product = _product(factors, CHARGE_FACTOR_KEYS)
+    M_corrected = None if M_raw is None or charge_product is None else abs(M_raw) * charge_product
+    dose_product = _product(factors, ("N_Dw", "k_Q"))
+    dose_Gy = None if M_corrected is None or dose_product is None else M_corrected * dose_product
+    per_MU = None
+    if dose_Gy is not None and checked.monitor_units is not None:
+        per_MU = float(dose_module.dose_per_MU_cGy(dose_Gy, checked.monitor_units))
+    deviation = None
+    if per_MU is not None and checked.expected_cGy_per_MU is not None:
+        deviation = float(dose_module.deviation_pct(per_MU, checked.expected_cGy_per_MU))
+
+    components: tuple[Component, ...] = ()
+    u_charge = u_dose = None
+    if routine is not None:
+        components = budget(_model(inputs, checked, sets, factors, convention, beam))
+        if _type_a_known(components):
+            charge_parts = [c for c in components if c.in_charge]
+            u_charge = combine_pct(charge_parts) if M_corrected is not None else None
+            u_dose = combine_pct(components) if dose_Gy is not None else None
+
+    flags = _session_flags(inputs, checked, sets, factors)
+    if dose_Gy is not None:
+        flags += _uncertainty_flags(components)
+    flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
+    tolerance_source = (
+        f"default: AAPM TG-142 {dose_module.DEFAULT_TOLERANCE_NAME} output constancy"
+        if inputs.tolerance_pct is None
+        else "entered"
+    )
+    charge_ratio = None
+    if routine is not None and sets["reduced"] is not None:
+        charge_ratio = routine.mean_nC / sets["reduced"].mean_nC
+    return Evaluation(
+        convention=convention,
+        beam=beam,
+        factors=MappingProxyType(factors),
+        sets=MappingProxyType(sets),
+        M_raw_nC=M_raw,
+        M_corrected_nC=M_corrected,
+        dose_Gy=dose_Gy,
+        dose_per_MU_cGy=per_MU,
+        expected_cGy_per_MU=checked.expected_cGy_per_MU,
+        deviation_pct=deviation,
+        tolerance_pct=checked.tolerance_pct,
+        tolerance_source=tolerance_source,
+        within_tolerance=None if deviation is None else abs(deviation) <= checked.tolerance_pct,
+        u_M_corrected_pct=u_charge,
+        u_combined_pct=u_dose,
+        U_expanded_pct=None if u_dose is None else COVERAGE_FACTOR * u_dose,
+        budget=components,
+        flags=tuple(flags),
+        voltage_ratio=checked.voltage_ratio,
+        charge_ratio=charge_ratio,
+        recombination_method=recombination_method(beam, convention),
+        conversions=tuple(inputs.conversions),
+    )

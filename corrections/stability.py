@@ -1,0 +1,292 @@
+"""Flags: findings about readings and factors, each in plain words with what to do about it.
+
+Pure functions turn reading-set statistics, factors and the environment into :class:`Flag`s. Every
+limit is a field of :class:`Thresholds`, whose defaults are documented beside each field with
+where they come from (REFERENCE.md). A flag never stops the calculation: a physicist may
+knowingly accept what it reports.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from chargebook.corrections.errors import Flag, InputError
+from chargebook.corrections.humidity import BAND_HIGH_PCT, BAND_LOW_PCT, humidity_in_band
+from chargebook.corrections.statistics import MODIFIED_Z_THRESHOLD, SetStatistics
+
+#: Plain names of the three reading sets, for messages.
+SET_NAMES = {
+    "routine": "routine",
+    "opposite": "opposite-polarity",
+    "reduced": "reduced-bias",
+}
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """Limits beyond which a flag is raised; all are settings, with these defaults."""
+
+    #: Relative SD of a set, %. Repeat readings agree to about 0.1 % (common practice).
+    relative_sd_pct: float = 0.2
+    #: (max − min) of a set in % of its mean (common practice).
+    relative_range_pct: float = 0.5
+    #: |drift slope| of a set in % of the mean per reading (common practice).
+    drift_pct_per_reading: float = 0.05
+    #: |modified z-score| above which a reading is an outlier (Iglewicz and Hoaglin 1993).
+    outlier_modified_z: float = MODIFIED_Z_THRESHOLD
+    #: |first reading − mean of the rest| in % that suggests the chamber had not settled
+    #: after a polarity or bias change (common practice).
+    settling_pct: float = 0.2
+    #: Fewest readings per set for drift and outliers to be judged (common practice).
+    minimum_readings: int = 3
+    #: |k_pol − 1| in %, usual for reference-class chambers (TG-51 addendum, from memory).
+    k_pol_deviation_pct: float = 0.4
+    #: Largest usual k_s: above, the chamber is unsuitable for the beam (from memory).
+    k_s_max: float = 1.05
+    #: |leakage| in % of the routine reading (TG-51 addendum, from memory).
+    leakage_pct: float = 0.1
+    #: Largest change of temperature during a session, °C (common practice).
+    temperature_change_C: float = 0.5
+    #: Largest change of pressure during a session, kPa (common practice).
+    pressure_change_kPa: float = 0.2
+    #: Sign of the charge this electrometer shows for a positive bias (+1 or −1); None: the
+    #: convention is not known and only the consistency between sets is checked.
+    charge_sign_for_positive_bias: int | None = None
+
+    def __post_init__(self) -> None:
+        for name in (
+            "relative_sd_pct",
+            "relative_range_pct",
+            "drift_pct_per_reading",
+            "outlier_modified_z",
+            "settling_pct",
+            "k_pol_deviation_pct",
+            "leakage_pct",
+            "temperature_change_C",
+            "pressure_change_kPa",
+        ):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int | float) or value <= 0:
+                raise InputError(f"thresholds.{name}", value, "a number above 0")
+        if not 1.0 < self.k_s_max <= 2.0:
+            raise InputError("thresholds.k_s_max", self.k_s_max, "above 1 and at most 2")
+        if isinstance(self.minimum_readings, bool) or self.minimum_readings not in range(1, 101):
+            raise InputError("thresholds.minimum_readings", self.minimum_readings, "1 to 100")
+        if self.charge_sign_for_positive_bias not in (None, 1, -1):
+            raise InputError(
+                "thresholds.charge_sign_for_positive_bias",
+                self.charge_sign_for_positive_bias,
+                "1, -1 or not given",
+            )
+
+
+def _set_size_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
+    if stats.count == 1:
+        return [
+            Flag(
+                f"{key}_single_reading",
+                f"The {label} set has one reading: its SD is undefined, so its scatter and its "
+                "Type A uncertainty cannot be estimated yet. Take more readings.",
+                "info",
+            )
+        ]
+    if stats.count < limits.minimum_readings:
+        return [
+            Flag(
+                f"{key}_few_readings",
+                f"The {label} set has {stats.count} readings; at least "
+                f"{limits.minimum_readings} are needed to judge drift and outliers.",
+                "info",
+            )
+        ]
+    return []
+
+
+def _scatter_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
+    flags = []
+    if stats.relative_sd_pct is not None and stats.relative_sd_pct > limits.relative_sd_pct:
+        flags.append(
+            Flag(
+                f"{key}_sd_high",
+                f"The {label} readings scatter by {stats.relative_sd_pct:.3f} % (relative SD), "
+                f"above the {limits.relative_sd_pct:g} % limit. Check the cable, connections and "
+                "beam, then take more readings or redo the set.",
+            )
+        )
+    if (
+        stats.relative_range_pct is not None
+        and stats.relative_range_pct > limits.relative_range_pct
+    ):
+        flags.append(
+            Flag(
+                f"{key}_range_high",
+                f"The {label} readings span {stats.relative_range_pct:.3f} % of their mean "
+                f"(max − min), above the {limits.relative_range_pct:g} % limit. Look for a "
+                "stray reading before accepting the set.",
+            )
+        )
+    return flags
+
+
+def _trend_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
+    flags = []
+    drift = stats.drift_pct_per_reading
+    if drift is not None and abs(drift) > limits.drift_pct_per_reading:
+        flags.append(
+            Flag(
+                f"{key}_drift",
+                f"The {label} readings drift by {drift:+.3f} % per reading, beyond the "
+                f"±{limits.drift_pct_per_reading:g} % limit. The chamber may still be settling "
+                "or the temperature changing: wait, then redo the set.",
+            )
+        )
+    offset = stats.first_reading_offset_pct
+    if offset is not None and abs(offset) > limits.settling_pct:
+        flags.append(
+            Flag(
+                f"{key}_not_settled",
+                f"The first {label} reading differs from the others by {offset:+.3f} %, beyond "
+                f"±{limits.settling_pct:g} %: the chamber had probably not settled after the "
+                "bias change. Pre-irradiate, then redo the set.",
+            )
+        )
+    if stats.outliers:
+        numbers = ", ".join(str(i + 1) for i in stats.outliers)
+        flags.append(
+            Flag(
+                f"{key}_outlier",
+                f"{label.capitalize()} reading(s) {numbers} stand apart from the rest (modified "
+                f"z-score above {limits.outlier_modified_z:g}). Look for a spike or an "
+                "interrupted beam; exclude a reading only with a recorded reason.",
+            )
+        )
+    return flags
+
+
+def set_flags(key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
+    """Return the flags for one reading set; ``key`` is "routine", "opposite" or "reduced"."""
+    label = SET_NAMES.get(key, key)
+    return (
+        _set_size_flags(label, key, stats, limits)
+        + _scatter_flags(label, key, stats, limits)
+        + _trend_flags(label, key, stats, limits)
+    )
+
+
+def k_pol_flags(k_pol: float, symbol: str, limits: Thresholds) -> list[Flag]:
+    """Return a flag when |k_pol − 1| exceeds the usual limit for a reference-class chamber."""
+    deviation_pct = 100.0 * abs(k_pol - 1.0)
+    if deviation_pct <= limits.k_pol_deviation_pct:
+        return []
+    return [
+        Flag(
+            "k_pol_large",
+            f"{symbol} = {k_pol:.4f} differs from 1 by {deviation_pct:.2f} %, more than the "
+            f"{limits.k_pol_deviation_pct:g} % usual for a reference-class chamber. Check the "
+            "chamber, its cable and that both sets had settled before relying on it.",
+        )
+    ]
+
+
+def k_s_flags(k_s: float, symbol: str, limits: Thresholds) -> list[Flag]:
+    """Return a flag when k_s is above the largest correction the protocols accept."""
+    if k_s <= limits.k_s_max:
+        return []
+    return [
+        Flag(
+            "k_s_large",
+            f"{symbol} = {k_s:.4f} is above {limits.k_s_max:g}: recombination is too large for "
+            "this chamber in this beam. Use a chamber with a smaller electrode gap, a higher "
+            "bias, or a lower dose per pulse.",
+        )
+    ]
+
+
+def leakage_flags(leakage_nC: float, routine_mean_nC: float, limits: Thresholds) -> list[Flag]:
+    """Return a flag when the leakage charge exceeds its limit as a share of the reading."""
+    share_pct = 100.0 * abs(leakage_nC) / abs(routine_mean_nC)
+    if share_pct <= limits.leakage_pct:
+        return []
+    return [
+        Flag(
+            "leakage_high",
+            f"Leakage of {leakage_nC:g} nC is {share_pct:.3f} % of the routine reading, above "
+            f"{limits.leakage_pct:g} %. Check the cable and connectors and let the system "
+            "settle; the leakage is not subtracted.",
+        )
+    ]
+
+
+def _span(values: Sequence[float]) -> float:
+    return float(np.ptp(np.asarray(values, dtype=float))) if len(values) >= 2 else 0.0
+
+
+def environment_flags(
+    temperatures_C: Sequence[float], pressures_kPa: Sequence[float], limits: Thresholds
+) -> list[Flag]:
+    """Return flags when temperature or pressure changed by more than its limit in a session."""
+    flags = []
+    change_C = _span(temperatures_C)
+    if change_C > limits.temperature_change_C:
+        flags.append(
+            Flag(
+                "temperature_changing",
+                f"The temperature changed by {change_C:.2f} °C during the session, more than "
+                f"{limits.temperature_change_C:g} °C: the phantom was not in thermal "
+                "equilibrium. Wait until it is steady, then repeat the readings.",
+            )
+        )
+    change_kPa = _span(pressures_kPa)
+    if change_kPa > limits.pressure_change_kPa:
+        flags.append(
+            Flag(
+                "pressure_changing",
+                f"The pressure changed by {change_kPa:.2f} kPa during the session, more than "
+                f"{limits.pressure_change_kPa:g} kPa. Record the pressure at each set and "
+                "check the barometer.",
+            )
+        )
+    return flags
+
+
+def humidity_flags(humidity_pct: float | None) -> list[Flag]:
+    """Return a flag stating how k_h was chosen: assumed, or entered outside its band."""
+    if humidity_pct is None:
+        return [
+            Flag(
+                "k_h_assumed",
+                f"No humidity entered: k_h = 1 is used, which holds between {BAND_LOW_PCT:g} % "
+                f"and {BAND_HIGH_PCT:g} % relative humidity.",
+                "info",
+            )
+        ]
+    if humidity_in_band(humidity_pct):
+        return []
+    return [
+        Flag(
+            "humidity_out_of_band",
+            f"Relative humidity {humidity_pct:g} % lies outside {BAND_LOW_PCT:g}–"
+            f"{BAND_HIGH_PCT:g} %, where k_h = 1 holds; k_h = 1 was still used. Apply your code "
+            "of practice's humidity correction by hand.",
+        )
+    ]
+
+
+def sign_flags(routine_bias_V: float, routine_mean_nC: float, limits: Thresholds) -> list[Flag]:
+    """Return a flag when the routine charge's sign contradicts the electrometer's convention."""
+    if limits.charge_sign_for_positive_bias is None:
+        return []
+    expected = limits.charge_sign_for_positive_bias * np.sign(routine_bias_V)
+    if np.sign(routine_mean_nC) == expected:
+        return []
+    return [
+        Flag(
+            "sign_against_bias",
+            f"The routine readings are {'negative' if routine_mean_nC < 0 else 'positive'} with "
+            f"a {routine_bias_V:+g} V bias, but this electrometer gives "
+            f"{'positive' if limits.charge_sign_for_positive_bias > 0 else 'negative'} charge "
+            "for a positive bias. Check the bias setting and the cable.",
+        )
+    ]

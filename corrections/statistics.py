@@ -1,0 +1,152 @@
+"""Statistics of one reading set: how well repeated readings agree, and whether they wander.
+
+Mean, SD (ddof = 1), relative SD (%), standard error of the mean, relative range (%), drift
+slope (least squares against reading number, % of the mean per reading), the first reading's
+offset from the rest (a sign of a chamber still settling), and outliers by the modified z-score
+M_i = 0.6745 (x_i − median) / MAD with the threshold 3.5 (Iglewicz and Hoaglin, "How to Detect
+and Handle Outliers", ASQC 1993). When the MAD is zero (quantised readings, most of them
+identical) the mean absolute deviation scaled by 1.253314 stands in for it (common practice).
+
+Statistics that a set is too small to define (SD with one reading, drift with fewer than three)
+are None: said, not guessed. The array functions work along the last axis for many sets at once.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass
+
+import numpy as np
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.limits import CHARGE_NC
+
+#: Iglewicz & Hoaglin (1993): 0.6745 = the 0.75 quantile of the standard normal; 3.5 = cut-off.
+MODIFIED_Z_SCALE = 0.6745
+MODIFIED_Z_THRESHOLD = 3.5
+#: Mean absolute deviation scale used when the MAD is zero (common practice).
+MEAN_ABSOLUTE_DEVIATION_SCALE = 1.253314
+#: Fewest readings for which drift, settling and outliers are judged.
+MINIMUM_FOR_TRENDS = 3
+
+
+def mean_nC(readings_nC: np.ndarray) -> np.ndarray:
+    """Return the mean charge (nC) along the last axis."""
+    return np.mean(readings_nC, axis=-1)
+
+
+def relative_sd_pct(readings_nC: np.ndarray) -> np.ndarray:
+    """Return the relative sample SD (ddof = 1) in % of |mean| along the last axis."""
+    return 100.0 * np.std(readings_nC, axis=-1, ddof=1) / np.abs(np.mean(readings_nC, axis=-1))
+
+
+def relative_range_pct(readings_nC: np.ndarray) -> np.ndarray:
+    """Return (max − min) in % of |mean| along the last axis."""
+    spread = np.max(readings_nC, axis=-1) - np.min(readings_nC, axis=-1)
+    return 100.0 * spread / np.abs(np.mean(readings_nC, axis=-1))
+
+
+def drift_pct_per_reading(readings_nC: np.ndarray) -> np.ndarray:
+    """Return the least-squares slope against reading number, in % of the mean per reading.
+
+    Positive means the magnitude grows from reading to reading, whatever the sign of the charge.
+    """
+    readings = np.asarray(readings_nC, dtype=float)
+    index = np.arange(readings.shape[-1], dtype=float)
+    index -= index.mean()
+    mean = readings.mean(axis=-1)
+    slope = (readings - mean[..., None]) @ index / (index @ index)
+    return 100.0 * slope / mean
+
+
+def modified_z_scores(readings_nC: np.ndarray) -> np.ndarray:
+    """Return Iglewicz and Hoaglin's modified z-scores of the readings along the last axis."""
+    readings = np.asarray(readings_nC, dtype=float)
+    median = np.median(readings, axis=-1, keepdims=True)
+    deviation = readings - median
+    mad = np.median(np.abs(deviation), axis=-1, keepdims=True)
+    mean_ad = np.mean(np.abs(deviation), axis=-1, keepdims=True) * MEAN_ABSOLUTE_DEVIATION_SCALE
+    mad_z_scale = np.where(mad > 0, mad / MODIFIED_Z_SCALE, mean_ad)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(mad_z_scale > 0, deviation / mad_z_scale, 0.0)
+    return z
+
+
+def first_reading_offset_pct(readings_nC: np.ndarray) -> np.ndarray:
+    """Return the first reading's offset from the mean of the others, in % of that mean."""
+    readings = np.asarray(readings_nC, dtype=float)
+    rest = readings[..., 1:].mean(axis=-1)
+    return 100.0 * (readings[..., 0] - rest) / rest
+
+
+@dataclass(frozen=True)
+class SetStatistics:
+    """The statistics of one reading set; None where the set is too small to define a value."""
+
+    count: int
+    mean_nC: float
+    sd_nC: float | None
+    relative_sd_pct: float | None
+    standard_error_nC: float | None
+    relative_range_pct: float | None
+    drift_pct_per_reading: float | None
+    first_reading_offset_pct: float | None
+    outliers: tuple[int, ...]
+
+    @property
+    def relative_standard_error_pct(self) -> float | None:
+        """Return the standard error of the mean in % of |mean|, or None with one reading."""
+        if self.standard_error_nC is None:
+            return None
+        return 100.0 * self.standard_error_nC / abs(self.mean_nC)
+
+    def to_dict(self) -> dict[str, object]:
+        """Return the statistics as JSON-ready plain types."""
+        result = asdict(self)
+        result["outliers"] = list(self.outliers)
+        result["relative_standard_error_pct"] = self.relative_standard_error_pct
+        return result
+
+
+def readings_array(field: str, readings_nC: Sequence[float] | np.ndarray) -> np.ndarray:
+    """Return the readings as a 1-D float array; raise InputError if empty or not numbers."""
+    try:
+        one_dimensional = np.ndim(readings_nC) == 1
+    except ValueError:
+        one_dimensional = False
+    if isinstance(readings_nC, str | bytes) or not one_dimensional:
+        raise InputError(field, readings_nC, "a list of charges in nC", "is not a list of numbers")
+    if len(readings_nC) == 0:
+        raise InputError(field, [], "at least one reading", "is an empty reading set")
+    for index, value in enumerate(readings_nC):
+        CHARGE_NC.check(f"{field}[{index}]", value)
+    return np.asarray(readings_nC, dtype=float)
+
+
+def set_statistics(
+    readings_nC: Sequence[float] | np.ndarray,
+    field: str = "readings_nC",
+    outlier_threshold: float = MODIFIED_Z_THRESHOLD,
+) -> SetStatistics:
+    """Return the statistics of one reading set (charges in nC, signed as read).
+
+    Readings whose modified z-score exceeds ``outlier_threshold`` in magnitude are outliers.
+    Raises InputError for an empty set or a value that is not a finite number.
+    """
+    readings = readings_array(field, readings_nC)
+    count = readings.size
+    mean = float(readings.mean())
+    if mean == 0:
+        raise InputError(field, readings.tolist(), "readings with a non-zero mean", "averages zero")
+    sd = se = rel_sd = rel_range = drift = offset = None
+    outliers: tuple[int, ...] = ()
+    if count >= 2:
+        sd = float(np.std(readings, ddof=1))
+        se = sd / np.sqrt(count)
+        rel_sd = 100.0 * sd / abs(mean)
+        rel_range = float(relative_range_pct(readings))
+    if count >= MINIMUM_FOR_TRENDS:
+        drift = float(drift_pct_per_reading(readings))
+        offset = float(first_reading_offset_pct(readings))
+        z = modified_z_scores(readings)
+        outliers = tuple(int(i) for i in np.flatnonzero(np.abs(z) > outlier_threshold))
+    return SetStatistics(count, mean, sd, rel_sd, se, rel_range, drift, offset, outliers)
