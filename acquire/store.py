@@ -107,7 +107,7 @@ def utc_now() -> datetime:
 
 @dataclass(frozen=True, slots=True)
 class SessionRow:
-    """One measurement session. ``metadata`` and ``plan`` decode the stored JSON."""
+    """One measurement session. ``metadata()`` and ``plan()`` decode the stored JSON."""
 
     id: int
     created_at: str
@@ -120,11 +120,9 @@ class SessionRow:
     closed_at: str | None
     reason: str | None
 
-    @property
     def metadata(self) -> dict[str, Any]:
         return json.loads(self.metadata_json)
 
-    @property
     def plan(self) -> dict[str, Any]:
         return json.loads(self.plan_json)
 
@@ -181,7 +179,7 @@ class EnvironmentRow:
 
 @dataclass(frozen=True, slots=True)
 class EventRow:
-    """One audit event: who (``actor``) did what (``kind``), when, and the details (why)."""
+    """One audit event: who (``actor``) did what (``kind``), when, and ``detail()`` (why)."""
 
     id: int
     session_id: int | None
@@ -190,7 +188,6 @@ class EventRow:
     kind: str
     detail_json: str
 
-    @property
     def detail(self) -> dict[str, Any]:
         return json.loads(self.detail_json)
 

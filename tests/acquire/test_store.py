@@ -175,7 +175,7 @@ def test_rows_read_back_as_written(store: Store) -> None:
 
     session = store.session(session_id)
     assert (session.status, session.convention, session.beam) == ("open", "trs398", "6 MV")
-    assert session.metadata == METADATA and session.plan == PLAN
+    assert session.metadata() == METADATA and session.plan() == PLAN
     assert session.created_at == "2025-03-04T08:00:01.000000+00:00"
 
     (reading_set,) = store.sets(session_id)
@@ -205,7 +205,7 @@ def test_rows_read_back_as_written(store: Store) -> None:
     events = store.events(session_id)
     assert [e.kind for e in events] == ["session_created", "note"]
     assert events[-1].id == event_id and events[-1].actor == "A. Physicist"
-    assert events[-1].detail == {"why": "chamber swapped"}
+    assert events[-1].detail() == {"why": "chamber swapped"}
 
     (line,) = store.traffic(session_id)
     assert line.line == b"Q=+20.512E-9 C\r\n" and line.direction == "rx" and line.t_s == 12.5
@@ -226,7 +226,7 @@ def test_traffic_and_events_outside_a_session(store: Store) -> None:
     store.add_traffic(None, 0.1, "tx", b"*IDN?\n")
     store.add_event(None, "daemon", "instrument_identified", {"serial": "EM-2093"})
     assert [t.line for t in store.traffic(None)] == [b"*IDN?\n"]
-    assert [e.detail for e in store.events(None)] == [{"serial": "EM-2093"}]
+    assert [e.detail() for e in store.events(None)] == [{"serial": "EM-2093"}]
 
 
 def test_open_session_is_the_newest_open_one(store: Store) -> None:
@@ -270,7 +270,7 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     store.set_session_status(session_id, "open", "resumed", actor="J. Okafor")
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
-    changes = [e.detail for e in store.events(session_id) if e.kind == "session_status"]
+    changes = [e.detail() for e in store.events(session_id) if e.kind == "session_status"]
     assert changes == [
         {"from": "open", "to": "interrupted", "reason": "daemon restarted"},
         {"from": "interrupted", "to": "open", "reason": "resumed"},
@@ -304,7 +304,7 @@ def test_set_status_changes_are_written_as_events(store: Store) -> None:
     superseded = store.reading_set(set_id)
     assert superseded.ended_at == accepted_at
     assert superseded.reason == "redo: the operator moved the chamber"
-    changes = [(e.detail["from"], e.detail["to"]) for e in store.events(session_id)[1:]]
+    changes = [(e.detail()["from"], e.detail()["to"]) for e in store.events(session_id)[1:]]
     assert changes == [
         ("collecting", "reviewing"),
         ("reviewing", "accepted"),
@@ -467,7 +467,7 @@ def test_a_writer_that_dies_loses_nothing_and_the_session_resumes(tmp_path: Path
 
     with Store.open(path) as restarted:
         session = restarted.open_session()
-        assert session is not None and session.metadata == {"treatment_machine": "HCC-LA2"}
+        assert session is not None and session.metadata() == {"treatment_machine": "HCC-LA2"}
         readings = restarted.readings(session.id)
         assert [r.seq for r in readings] == announced
         assert [r.charge_nC for r in readings] == [20.5, 20.51, 20.52, 20.53, 20.54]
