@@ -222,17 +222,18 @@ class _Checked:
 
 def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
     allowed = f"±{limits.BIAS_MAGNITUDE_V.text()}"
-    routine = None
-    if inputs.routine_bias_V is not None:
-        routine = float(limits.as_number("routine_bias_V", inputs.routine_bias_V, allowed))
-        limits.BIAS_MAGNITUDE_V.check("|routine_bias_V|", abs(routine))
-    if inputs.reduced_bias_V is None:
+    biases = []
+    for name in ("routine_bias_V", "reduced_bias_V"):
+        value = getattr(inputs, name)
+        if value is not None:
+            value = float(limits.as_number(name, value, allowed))
+            limits.BIAS_MAGNITUDE_V.check(f"|{name}|", abs(value))
+        biases.append(value)
+    routine, reduced = biases
+    if routine is None or reduced is None:
         return routine, None
-    reduced = float(limits.as_number("reduced_bias_V", inputs.reduced_bias_V, allowed))
-    limits.BIAS_MAGNITUDE_V.check("|reduced_bias_V|", abs(reduced))
-    if routine is None:
-        return routine, None
-    return routine, float(voltage_ratio(routine, reduced))
+    n = voltage_ratio(routine, reduced, fields=("routine_bias_V", "reduced_bias_V"))
+    return routine, float(n)
 
 
 def _check_uncertainties(u: Uncertainties) -> None:

@@ -94,6 +94,8 @@ BIAS_MAGNITUDE_V = Range(10.0, 1000.0, "V")
 HUMIDITY_PCT = Range(0.0, 100.0, "%")
 K_Q = Range(0.8, 1.2)
 K_ELEC = Range(0.9, 1.1)
+#: Any measured correction factor given directly (k_pol, k_s) in a batch re-analysis.
+CORRECTION_FACTOR = Range(0.5, 1.5)
 N_DW_GY_PER_NC = Range(1e-4, 100.0, "Gy/nC")
 MONITOR_UNITS = Range(0.1, 100000.0, "MU")
 EXPECTED_CGY_PER_MU = Range(0.01, 10.0, "cGy/MU")

@@ -76,30 +76,37 @@ MINIMUM_VOLTAGE_RATIO = 2.0
 CHARGE_RATIO = Range(0.95, 2.0)
 
 
-def voltage_ratio(routine_V: object, reduced_V: object) -> Number:
+def voltage_ratio(
+    routine_V: object,
+    reduced_V: object,
+    *,
+    fields: tuple[str, str] = ("routine_V", "reduced_V"),
+) -> Number:
     """Return n = |V1|/|V2| (dimensionless) from the signed routine bias and the reduced bias (V).
 
     The reduced bias may be given as a magnitude or signed; if signed it must have the routine
     polarity. Raises InputError for a bias magnitude outside 10–1000 V, a reduced bias of the
-    other polarity, or n below 2.
+    other polarity, or n below 2. ``fields`` names the two inputs in error messages.
     """
-    V1 = as_number("routine_V", routine_V, f"±{BIAS_MAGNITUDE_V.text()}")
-    V2 = as_number("reduced_V", reduced_V, f"±{BIAS_MAGNITUDE_V.text()}")
-    BIAS_MAGNITUDE_V.check("|routine_V|", np.abs(V1))
-    BIAS_MAGNITUDE_V.check("|reduced_V|", np.abs(V2))
+    routine_field, reduced_field = fields
+    allowed = f"±{BIAS_MAGNITUDE_V.text()}"
+    V1 = as_number(routine_field, routine_V, allowed)
+    V2 = as_number(reduced_field, reduced_V, allowed)
+    BIAS_MAGNITUDE_V.check(f"|{routine_field}|", np.abs(V1))
+    BIAS_MAGNITUDE_V.check(f"|{reduced_field}|", np.abs(V2))
     opposite = (V2 < 0) & (V1 > 0)
     if np.any(opposite):
         raise InputError(
-            "reduced_V",
+            reduced_field,
             first_where(V2, opposite),
             "a magnitude, or a bias of the routine polarity",
-            "has the opposite polarity to routine_V",
+            f"has the opposite polarity to {routine_field}",
         )
     n = np.abs(V1) / np.abs(V2)
     too_small = n < MINIMUM_VOLTAGE_RATIO - RATIO_MATCH_TOLERANCE
     if np.any(too_small):
         raise InputError(
-            "voltage ratio routine_V/reduced_V",
+            f"voltage ratio {routine_field}/{reduced_field}",
             first_where(n, too_small),
             f"{MINIMUM_VOLTAGE_RATIO:g} or more",
         )
