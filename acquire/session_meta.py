@@ -1,0 +1,244 @@
+"""Session metadata: what was measured, with what, by whom, and against which calibration.
+
+``validate_metadata(data)`` checks a plain dict (from the console's form, a JSON-RPC request, or
+a session row read back) and returns a :class:`SessionMetadata`; ``to_dict()`` gives the plain
+data the store keeps, which validates again to the same value. Anything wrong raises
+``InputError`` naming the field, the value and what is allowed.
+
+Keys (required unless a default is shown)::
+
+    treatment_machine     "HCC-LA1"                   the treatment machine
+    beam                  "6 MV"                      the beam, as the clinic names it
+    beam_type             pulsed | pulsed-scanned | continuous   (recombination method)
+    convention            trs398 | tg51               the code of practice followed
+    chamber_model         "thimble 0.6 cc"
+    chamber_serial        "CH-4417"
+    electrometer_model    "..."
+    electrometer_serial   "EM-2093"
+    operator              the person taking the measurement
+    N_Dw                  calibration coefficient, in N_Dw_unit
+    N_Dw_unit             Gy/nC (default) | Gy/C | cGy/nC; converted once to N_Dw_Gy_per_nC
+    k_Q                   beam quality correction factor, from the user's code of practice
+    expected_cGy_per_MU   the expected output
+    u_N_Dw_pct_k2         None    N_D,w expanded uncertainty from the certificate (k = 2), %
+    u_k_Q_pct             None    k_Q standard uncertainty, %
+    k_elec                None    electrometer factor; None: 1, calibrated together (flagged)
+    u_k_elec_pct          0       k_elec standard uncertainty, %
+    u_temperature_C       None    thermometer standard uncertainty, °C (None: library default)
+    u_pressure_kPa        None    barometer standard uncertainty, kPa (None: library default)
+    tolerance_pct         None    a number in %, or daily | monthly | annual (AAPM TG-142);
+                                  None: the library's default (TG-142 monthly, 2 %)
+    calibration_date      None    date of the calibration certificate, YYYY-MM-DD
+    certificate           None    certificate number or laboratory
+    beam_quality          None    beam quality specifier as measured, e.g. "TPR20,10 = 0.668"
+    notes                 None    free text
+
+Monitor units per reading come from the plan, not from here.
+"""
+
+from __future__ import annotations
+
+import datetime
+import math
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, fields
+from typing import Any
+
+from chargebook.corrections import dose, limits, units
+from chargebook.corrections.conventions import parse_convention
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.evaluate import Uncertainties
+from chargebook.corrections.recombination import parse_beam
+from chargebook.corrections.units import Conversion
+
+TEXT_FIELDS = (
+    "treatment_machine",
+    "beam",
+    "chamber_model",
+    "chamber_serial",
+    "electrometer_model",
+    "electrometer_serial",
+    "operator",
+)
+OPTIONAL_TEXT_FIELDS = ("certificate", "beam_quality", "notes")
+MAX_TEXT = 200
+MAX_NOTES = 4000
+#: Relative difference tolerated between a stored N_Dw_Gy_per_nC and N_Dw converted again.
+CONVERSION_MATCH = 1e-12
+
+
+@dataclass(frozen=True, slots=True)
+class SessionMetadata:
+    """Checked session metadata. N_D,w is kept as entered and converted to Gy/nC once."""
+
+    treatment_machine: str
+    beam: str
+    beam_type: str
+    convention: str
+    chamber_model: str
+    chamber_serial: str
+    electrometer_model: str
+    electrometer_serial: str
+    operator: str
+    N_Dw: float
+    N_Dw_unit: str
+    N_Dw_Gy_per_nC: float
+    k_Q: float
+    expected_cGy_per_MU: float
+    u_N_Dw_pct_k2: float | None = None
+    u_k_Q_pct: float | None = None
+    k_elec: float | None = None
+    u_k_elec_pct: float = 0.0
+    u_temperature_C: float | None = None
+    u_pressure_kPa: float | None = None
+    tolerance_pct: float | None = None
+    calibration_date: str | None = None
+    certificate: str | None = None
+    beam_quality: str | None = None
+    notes: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the metadata as plain data, every key present (None where not given)."""
+        return asdict(self)
+
+    def uncertainties(self) -> Uncertainties:
+        """Return the Type B inputs for ``evaluate``; unset ones keep the library's defaults."""
+        given = {
+            "u_N_Dw_pct_k2": self.u_N_Dw_pct_k2,
+            "u_k_Q_pct": self.u_k_Q_pct,
+            "u_k_elec_pct": self.u_k_elec_pct,
+            "u_temperature_C": self.u_temperature_C,
+            "u_pressure_kPa": self.u_pressure_kPa,
+        }
+        return Uncertainties(**{k: v for k, v in given.items() if v is not None})
+
+    def conversions(self) -> tuple[Conversion, ...]:
+        """Return the unit conversion made on N_D,w, if it was entered in another unit."""
+        if self.N_Dw_unit == "Gy/nC":
+            return ()
+        return (Conversion("N_D,w", self.N_Dw, self.N_Dw_unit, self.N_Dw_Gy_per_nC, "Gy/nC"),)
+
+
+def _text(data: Mapping[str, Any], name: str, *, required: bool, longest: int) -> str | None:
+    value = data.get(name)
+    if value is None and not required:
+        return None
+    allowed = f"a text of 1 to {longest} characters"
+    if value is None:
+        raise InputError(name, None, allowed, "is missing")
+    if not isinstance(value, str):
+        raise InputError(name, value, allowed, "is not text")
+    stripped = value.strip()
+    if not stripped:
+        raise InputError(name, value, allowed, "is empty")
+    if len(stripped) > longest:
+        raise InputError(name, f"{stripped[:20]}…", allowed, f"has {len(stripped)} characters")
+    return stripped
+
+
+def _number(data: Mapping[str, Any], name: str, check: limits.Range, *, required: bool) -> Any:
+    value = data.get(name)
+    if value is None:
+        if required:
+            raise InputError(name, None, check.text(), "is missing")
+        return None
+    return float(check.check(name, value))
+
+
+def _date(data: Mapping[str, Any], name: str) -> str | None:
+    value = data.get(name)
+    if value is None:
+        return None
+    allowed = "a date written YYYY-MM-DD"
+    if isinstance(value, datetime.date) and not isinstance(value, datetime.datetime):
+        return value.isoformat()
+    if not isinstance(value, str):
+        raise InputError(name, value, allowed, "is not a date")
+    try:
+        return datetime.date.fromisoformat(value.strip()).isoformat()
+    except ValueError:
+        raise InputError(name, value, allowed, "is not a date") from None
+
+
+def _calibration(data: Mapping[str, Any]) -> tuple[float, str, float]:
+    """Return (N_Dw as entered, its unit, N_Dw in Gy/nC), cross-checking a stored conversion."""
+    stored = data.get("N_Dw_Gy_per_nC")
+    if data.get("N_Dw") is None:
+        if stored is None:
+            raise InputError("N_Dw", None, "the calibration coefficient N_D,w", "is missing")
+        value = float(units.N_Dw_Gy_per_nC(stored, "Gy/nC"))
+        return value, "Gy/nC", value
+    unit = data.get("N_Dw_unit", "Gy/nC")
+    if unit is None:
+        unit = "Gy/nC"
+    if not isinstance(unit, str):
+        raise InputError("N_Dw_unit", unit, ", ".join(units.N_DW_UNITS), "is not a known unit")
+    try:
+        converted = float(units.N_Dw_Gy_per_nC(data["N_Dw"], unit))
+    except InputError as error:
+        field = "N_Dw_unit" if error.value == unit and "unit" in error.field else "N_Dw"
+        raise InputError(field, error.value, error.allowed, error.problem) from None
+    if stored is not None:
+        stored_value = limits.as_number("N_Dw_Gy_per_nC", stored, f"{converted:.6g} Gy/nC")
+        if not math.isclose(stored_value, converted, rel_tol=CONVERSION_MATCH):
+            raise InputError(
+                "N_Dw_Gy_per_nC",
+                stored,
+                f"{converted:.6g} Gy/nC, N_Dw converted",
+                f"contradicts N_Dw = {data['N_Dw']} {unit}",
+            )
+    return float(data["N_Dw"]), unit, converted
+
+
+def _tolerance(data: Mapping[str, Any]) -> float | None:
+    value = data.get("tolerance_pct")
+    return None if value is None else float(dose.tolerance_pct(value))
+
+
+KNOWN_KEYS = tuple(f.name for f in fields(SessionMetadata))
+
+
+def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
+    """Return checked metadata from a plain mapping; raise InputError naming the bad field.
+
+    Unknown keys are refused (a typo would otherwise drop a value silently). Ranges are the
+    physics library's plausibility limits (k_Q 0.8–1.2, k_elec 0.9–1.1, N_D,w in Gy/nC 1e-4–100,
+    expected output 0.01–10 cGy/MU, tolerance 0.01–20 %, uncertainties 0–50 %).
+    """
+    if not isinstance(data, Mapping):
+        raise InputError("metadata", data, "a table of the session's details", "is not a table")
+    for key in data:
+        if key not in KNOWN_KEYS:
+            raise InputError(str(key), data[key], "one of " + ", ".join(KNOWN_KEYS), "is not known")
+    texts = {name: _text(data, name, required=True, longest=MAX_TEXT) for name in TEXT_FIELDS}
+    optional_texts = {
+        name: _text(data, name, required=False, longest=MAX_NOTES if name == "notes" else MAX_TEXT)
+        for name in OPTIONAL_TEXT_FIELDS
+    }
+    if data.get("beam_type") is None:
+        raise InputError("beam_type", None, "pulsed, pulsed-scanned or continuous", "is missing")
+    if data.get("convention") is None:
+        raise InputError("convention", None, "trs398 or tg51", "is missing")
+    N_Dw, N_Dw_unit, N_Dw_Gy_per_nC = _calibration(data)
+    u_k_elec = _number(data, "u_k_elec_pct", limits.UNCERTAINTY_PCT, required=False)
+    return SessionMetadata(
+        **texts,
+        beam_type=parse_beam(data["beam_type"]).value,
+        convention=parse_convention(data["convention"]).value,
+        N_Dw=N_Dw,
+        N_Dw_unit=N_Dw_unit,
+        N_Dw_Gy_per_nC=N_Dw_Gy_per_nC,
+        k_Q=_number(data, "k_Q", limits.K_Q, required=True),
+        expected_cGy_per_MU=_number(
+            data, "expected_cGy_per_MU", limits.EXPECTED_CGY_PER_MU, required=True
+        ),
+        u_N_Dw_pct_k2=_number(data, "u_N_Dw_pct_k2", limits.UNCERTAINTY_PCT, required=False),
+        u_k_Q_pct=_number(data, "u_k_Q_pct", limits.UNCERTAINTY_PCT, required=False),
+        k_elec=_number(data, "k_elec", limits.K_ELEC, required=False),
+        u_k_elec_pct=0.0 if u_k_elec is None else u_k_elec,
+        u_temperature_C=_number(data, "u_temperature_C", limits.U_TEMPERATURE_C, required=False),
+        u_pressure_kPa=_number(data, "u_pressure_kPa", limits.U_PRESSURE_KPA, required=False),
+        tolerance_pct=_tolerance(data),
+        calibration_date=_date(data, "calibration_date"),
+        **optional_texts,
+    )
