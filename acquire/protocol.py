@@ -476,6 +476,7 @@ class Snapshot(TypedDict):
     environment: EnvironmentInfo | None
     results: dict[str, Any] | None
     results_provisional: bool
+    results_error: str | None  # why results could not be computed from what is recorded
     instrument: InstrumentInfo
     caution: str
 

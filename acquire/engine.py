@@ -1,0 +1,628 @@
+"""The sequence engine: a plan's steps, one reading set at a time, as an explicit state machine.
+
+Pure of I/O: operator actions and instrument samples go in (method calls), instrument commands
+come out (:meth:`Engine.take_commands`), everything recorded goes to the store (committed before
+the method returns, so before any client hears of it), and :meth:`Engine.snapshot` describes the
+whole state. The clock is injected; the daemon (``chargebook.acquire.daemon``) runs the driver,
+feeds samples and clock ticks in and executes the commands.
+
+A *checkpoint* is the start of each reading set: a redo marks the current set superseded with
+its reason and rewinds to the same step (the chamber bias is already where the step wants it),
+a new attempt begins at the next arm. Stop, abort and pause are distinct: stop ends the session
+as finished with the sets accepted so far; abort ends it as aborted; pause holds it (a reading in
+progress is dropped and logged) until resume.
+
+Restart: :meth:`Engine.restore` picks up the store's open session. A set that was collecting
+when the daemon died is marked interrupted with its readings kept: the operator continues it
+(arm) or redoes it, as after an instrument disconnect. A physicist expects both choices after a
+crash: the readings taken are real, but only they can judge whether the chamber stayed settled.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from chargebook.acquire import live
+from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
+from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
+from chargebook.acquire.store import ReadingRow, SetRow, Store
+from chargebook.drivers_generic.interface import Capability
+
+log = logging.getLogger(__name__)
+S = EngineState
+
+DAEMON_ACTOR = "daemon"
+#: Settling readings taken at most while waiting for two consecutive readings to agree.
+MAX_SETTLING_READINGS = 10
+
+
+@dataclass(frozen=True, slots=True)
+class Command:
+    """One thing the daemon must do for the engine.
+
+    ``action``: ``zero``, ``start`` / ``stop`` (integration), ``set_bias`` (volts, remote),
+    ``beam`` (the bench delivers ``value`` MU), ``bench_bias`` (the bench turns the bias switch
+    the operator confirmed, volts).
+    """
+
+    action: str
+    value: float | None = None
+
+
+class ConfirmationRequired(Exception):
+    """A destructive action (abort) was asked for without confirm=true."""
+
+
+@dataclass
+class ActiveSet:
+    """The reading set being taken: its row id, step, attempt and readings so far."""
+
+    id: int
+    step_index: int
+    attempt: int
+    readings: list[ReadingRow] = field(default_factory=list)
+
+    @property
+    def settling_count(self) -> int:
+        return sum(1 for r in self.readings if r.settling)
+
+    @property
+    def used_count(self) -> int:
+        return sum(1 for r in self.readings if not r.settling)
+
+
+class Engine:
+    """The sequence state machine over one store. See the module docstring."""
+
+    def __init__(
+        self,
+        store: Store,
+        *,
+        capabilities: frozenset[Capability] | set[Capability] = frozenset(),
+        bench: bool = False,
+        clock: Callable[[], float] = time.monotonic,
+        default_plan: Any = "default",
+        profile: str = "",
+        on_change: Callable[[], None] | None = None,
+    ) -> None:
+        self.store = store
+        self.capabilities = frozenset(capabilities)
+        self.bench = bench
+        self.clock = clock
+        self.default_plan = default_plan
+        self.profile = profile
+        self.on_change = on_change
+        self.state = S.IDLE
+        self.paused_from: EngineState | None = None
+        self.session_id: int | None = None
+        self.plan: Any = None
+        self.metadata: dict[str, Any] = {}
+        self.step_index: int | None = None
+        self.active: ActiveSet | None = None
+        self.bias_V: float | None = None  # the chamber bias as last set or confirmed
+        self.pending_manual: dict[str, Any] | None = None
+        self.skipped: set[int] = set()
+        self.reading: ReadingCapture | None = None
+        self.settle_until_s: float | None = None
+        self.instrument_connected = True
+        self.instrument_message: str | None = None
+        self.identity: str | None = None
+        self.reading_status = "ok"  # the instrument's status of the latest sample
+        self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
+        self._commands: list[Command] = []
+        self._results_cache: tuple[int, Any] | None = None
+        self.seq = 0
+
+    # ------------------------------------------------------------------------ plumbing
+    @property
+    def step(self) -> Any:
+        """Return the current plan step (None outside a session or after the last step)."""
+        if self.plan is None or self.step_index is None:
+            return None
+        if 0 <= self.step_index < len(self.plan.steps):
+            return self.plan.steps[self.step_index]
+        return None
+
+    def take_commands(self) -> list[Command]:
+        """Return and forget the instrument commands issued since the last call."""
+        commands, self._commands = self._commands, []
+        return commands
+
+    def _changed(self) -> None:
+        self.seq += 1
+        self._results_cache = None
+        if self.on_change is not None:
+            self.on_change()
+
+    def _goto(self, new: EngineState, action: str, actor: str, **detail: Any) -> None:
+        check_transition(self.state, new, action)
+        old = self.state
+        self.state = new
+        log.info("%s: %s -> %s", action, old.value, new.value)
+        if self.session_id is not None:
+            self.store.add_event(
+                self.session_id,
+                actor,
+                "state_changed",
+                {"from": old.value, "to": new.value, "action": action, **detail},
+            )
+
+    def _event(self, actor: str, kind: str, **detail: Any) -> None:
+        if self.session_id is not None:
+            self.store.add_event(self.session_id, actor, kind, detail)
+
+    def _issue(self, action: str, value: float | None = None) -> None:
+        self._commands.append(Command(action, value))
+
+    def _can(self, capability: Capability) -> bool:
+        return capability in self.capabilities
+
+    # -------------------------------------------------------------------------- guards
+    def refusal(self, action: str) -> str | None:
+        """Return why ``action`` is not legal now, in words, or None when it is."""
+        states = ACTION_STATES.get(action)
+        if states is None:
+            return f"{action} is not an operator action"
+        if self.state not in states:
+            return f"it is not possible while the sequence is {self.state.value.replace('_', ' ')}"
+        step = self.step
+        if action == Method.STEP_ARM:
+            if not self.instrument_connected:
+                return "the electrometer is not connected"
+            if self.state is S.WAITING_FOR_OPERATOR:
+                if not self.store.environment(self.session_id):
+                    return "enter the air temperature and pressure first (environment.set)"
+                if self.pending_manual is not None:
+                    return "the manual step must be confirmed first (step.manual_done)"
+        if action == Method.STEP_MANUAL_DONE and self.pending_manual is None:
+            return "no manual step is waiting"
+        if action == Method.STEP_SKIP and not (step is not None and step.optional):
+            return "only an optional step can be skipped"
+        no_charge = self.reading is None or self.reading.last_charge_nC is None
+        if action == Method.READING_CAPTURE and no_charge:
+            return "no reading is in progress"
+        return None
+
+    def allowed(self) -> list[str]:
+        """Return the operator actions that are legal now."""
+        return [action for action in ACTION_STATES if self.refusal(action) is None]
+
+    def _require(self, action: str) -> None:
+        why = self.refusal(action)
+        if why is not None:
+            raise IllegalTransition(action, self.state, self.allowed(), why)
+
+    # ----------------------------------------------------------------- session actions
+    def start_session(
+        self, metadata: dict[str, Any], plan: Any = None, actor: str = DAEMON_ACTOR
+    ) -> int:
+        """Open a session with validated metadata and a plan; return its id."""
+        self._require(Method.SESSION_START)
+        checked = live.validate_metadata(metadata)
+        resolved = live.resolve_plan(plan if plan is not None else self.default_plan)
+        session_id = self.store.create_session(
+            metadata=checked,
+            plan=resolved.to_dict(),
+            convention=str(checked["convention"]),
+            beam=str(checked["beam"]),
+            actor=actor,
+        )
+        self.session_id, self.plan, self.metadata = session_id, resolved, checked
+        self.skipped, self.active, self.bias_V = set(), None, None
+        self.integration_s = {}
+        self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
+        self._enter_step(0, actor)
+        self._changed()
+        return session_id
+
+    def set_environment(
+        self,
+        temperature_C: float,
+        pressure: float,
+        pressure_unit: str = "kPa",
+        humidity_pct: float | None = None,
+        source: str = "operator",
+        actor: str = DAEMON_ACTOR,
+    ) -> int:
+        """Record an environment entry (°C, pressure in its unit, % RH) after range checks."""
+        self._require(Method.ENVIRONMENT_SET)
+        entry = live.check_environment(temperature_C, pressure, pressure_unit, humidity_pct)
+        assert self.session_id is not None
+        entry_id = self.store.add_environment(self.session_id, source=source, **entry)
+        self._event(actor, "environment_entered", environment_id=entry_id, source=source, **entry)
+        self._changed()
+        return entry_id
+
+    def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
+        """Record that the pending manual step was done by hand (who: ``actor``)."""
+        self._require(Method.STEP_MANUAL_DONE)
+        manual = self.pending_manual
+        assert manual is not None
+        self._event(actor, "manual_step_done", by_hand=True, note=note, **manual)
+        if manual.get("action") == "set_bias":
+            self.bias_V = float(manual["volts"])
+            self._event(actor, "bias_changed", volts=self.bias_V, how="by hand")
+            if self.bench:
+                self._issue("bench_bias", self.bias_V)
+        self.pending_manual = None
+        self._changed()
+
+    def skip(self, actor: str = DAEMON_ACTOR) -> None:
+        """Skip the current (optional) step."""
+        self._require(Method.STEP_SKIP)
+        assert self.step_index is not None
+        self._event(actor, "step_skipped", step_index=self.step_index, step_key=self.step.key)
+        self.skipped.add(self.step_index)
+        self._advance(actor, Method.STEP_SKIP)
+        self._changed()
+
+    def arm(self, actor: str = DAEMON_ACTOR) -> None:
+        """Start the current step's set (or continue an interrupted one)."""
+        self._require(Method.STEP_ARM)
+        if self.state is S.INTERRUPTED:
+            assert self.active is not None
+            self.store.set_set_status(
+                self.active.id, "collecting", "continued after the interruption", actor=actor
+            )
+            self._apply_bias(actor)
+            self._begin_reading(actor, Method.STEP_ARM)
+            self._changed()
+            return
+        step, step_index = self.step, self.step_index
+        assert step is not None and step_index is not None and self.session_id is not None
+        attempt = 1 + sum(1 for s in self.store.sets(self.session_id) if s.step_index == step_index)
+        set_id = self.store.add_set(
+            self.session_id, step_index, step.key, step.purpose, step.polarity, step.bias_V, attempt
+        )
+        self.active = ActiveSet(set_id, step_index, attempt)
+        self._apply_bias(actor)
+        wait_s = live.settling_wait_s(step)
+        if wait_s > 0:
+            self.settle_until_s = self.clock() + wait_s
+            self._goto(S.SETTLING, Method.STEP_ARM, actor, set_id=set_id, wait_s=wait_s)
+        else:
+            self._begin_reading(actor, Method.STEP_ARM)
+        self._changed()
+
+    def capture(self, actor: str = DAEMON_ACTOR) -> None:
+        """Capture the charge integrated so far as a manual reading."""
+        self._require(Method.READING_CAPTURE)
+        assert self.reading is not None
+        captured = self.reading.capture_now(self.clock())
+        if captured is not None:
+            self._record(captured, actor)
+        self._changed()
+
+    def accept(self, actor: str = DAEMON_ACTOR) -> None:
+        """Accept the reviewed set and go on to the next step (or finish)."""
+        self._require(Method.SET_ACCEPT)
+        assert self.active is not None
+        self.store.set_set_status(self.active.id, "accepted", actor=actor)
+        self.active = None
+        self._advance(actor, Method.SET_ACCEPT)
+        self._changed()
+
+    def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        """Mark the current set superseded with ``reason`` and rewind to the same step."""
+        self._require(Method.SET_REDO)
+        reason = live.require_reason("reason", reason)
+        self._drop_reading(actor, "redo")
+        if self.active is not None:
+            self.store.set_set_status(self.active.id, "superseded", reason, actor=actor)
+        self.active = None
+        self.settle_until_s = None
+        self._goto(S.WAITING_FOR_OPERATOR, Method.SET_REDO, actor, reason=reason)
+        self._changed()
+
+    def pause(self, actor: str = DAEMON_ACTOR) -> None:
+        """Hold the sequence; a reading in progress is dropped and logged."""
+        self._require(Method.SESSION_PAUSE)
+        self._drop_reading(actor, "pause")
+        self.paused_from = self.state
+        self._goto(S.PAUSED, Method.SESSION_PAUSE, actor)
+        self._changed()
+
+    def resume(self, actor: str = DAEMON_ACTOR) -> None:
+        """Return to the state the session was paused from; re-arm a set that was collecting."""
+        self._require(Method.SESSION_RESUME)
+        target = self.paused_from or S.WAITING_FOR_OPERATOR
+        self.paused_from = None
+        if target in (S.SETTLING, S.COLLECTING) and not self.instrument_connected:
+            target = S.INTERRUPTED
+        if target in (S.SETTLING, S.COLLECTING):
+            if self.settle_until_s is not None:
+                self.settle_until_s = self.clock() + live.settling_wait_s(self.step)
+                self._goto(S.SETTLING, Method.SESSION_RESUME, actor)
+            else:
+                self._begin_reading(actor, Method.SESSION_RESUME)
+        else:
+            self._goto(target, Method.SESSION_RESUME, actor)
+        self._changed()
+
+    def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        """End the session early as finished; a set not yet accepted is closed as aborted."""
+        self._require(Method.SESSION_STOP)
+        reason = live.require_reason("reason", reason)
+        self._close_session("finished", S.FINISHED, Method.SESSION_STOP, reason, actor)
+
+    def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
+        """Abandon the session (needs confirm=True); everything recorded is kept."""
+        self._require(Method.SESSION_ABORT)
+        reason = live.require_reason("reason", reason)
+        if confirm is not True:
+            raise ConfirmationRequired(
+                "abort needs confirm = true: the session will end as aborted (nothing is deleted)"
+            )
+        self._close_session("aborted", S.ABORTED, Method.SESSION_ABORT, reason, actor)
+
+    def close(self, actor: str = DAEMON_ACTOR) -> None:
+        """Leave a finished or aborted session; the engine is idle again."""
+        self._require(Method.SESSION_CLOSE)
+        self._goto(S.IDLE, Method.SESSION_CLOSE, actor)
+        self.session_id, self.plan, self.step_index, self.active = None, None, None, None
+        self.metadata, self.pending_manual = {}, None
+        self._changed()
+
+    def _close_session(
+        self, status: str, state: EngineState, action: str, reason: str, actor: str
+    ) -> None:
+        assert self.session_id is not None
+        self._drop_reading(actor, action)
+        if self.active is not None:
+            self.store.set_set_status(self.active.id, "aborted", reason, actor=actor)
+            self.active = None
+        self.settle_until_s, self.paused_from, self.pending_manual = None, None, None
+        self._goto(state, action, actor, reason=reason)
+        self.store.set_session_status(self.session_id, status, reason, actor=actor)
+        self._changed()
+
+    # ---------------------------------------------------------------- instrument input
+    def on_sample(self, t_s: float, charge_nC: float, complete: bool = False, status: str = "ok"):
+        """Take one sample from the instrument (charge in nC, instrument clock in s)."""
+        if self.reading is None:
+            return
+        self.reading_status = status
+        captured = self.reading.feed(t_s, charge_nC, complete)
+        if captured is not None:
+            self._record(captured, DAEMON_ACTOR)
+            self._changed()
+
+    def tick(self, now_s: float | None = None) -> None:
+        """Advance timers (settling wait, hold time, timed leakage) to ``now_s``."""
+        now_s = self.clock() if now_s is None else now_s
+        if self.settle_until_s is not None and self.state is S.SETTLING and self.reading is None:
+            if now_s >= self.settle_until_s:
+                self.settle_until_s = None
+                self._begin_reading(DAEMON_ACTOR, "settling wait over")
+                self._changed()
+            return
+        if self.reading is not None:
+            captured = self.reading.tick(now_s)
+            if captured is not None:
+                self._record(captured, DAEMON_ACTOR)
+                self._changed()
+
+    def instrument_lost(self, message: str) -> None:
+        """The electrometer went away: a set in progress becomes interrupted, readings kept."""
+        if not self.instrument_connected:
+            return
+        self.instrument_connected = False
+        self.instrument_message = message
+        self._event(DAEMON_ACTOR, "instrument_lost", message=message)
+        busy = (S.SETTLING, S.COLLECTING)
+        if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
+            self._drop_reading(DAEMON_ACTOR, "instrument lost")
+            assert self.active is not None
+            self.store.set_set_status(self.active.id, "interrupted", message)
+            self.settle_until_s = None
+            if self.state is S.PAUSED:
+                self.paused_from = S.INTERRUPTED
+            else:
+                self._goto(S.INTERRUPTED, "instrument lost", DAEMON_ACTOR, reason=message)
+        self._changed()
+
+    def instrument_back(self, identity: str | None = None) -> None:
+        """The electrometer answers again (or for the first time)."""
+        if identity is not None:
+            self.identity = identity
+        if self.instrument_connected and self.instrument_message is None:
+            self._changed()
+            return
+        self.instrument_connected, self.instrument_message = True, None
+        self._event(DAEMON_ACTOR, "instrument_back", identity=identity)
+        self._changed()
+
+    def wants_samples(self) -> bool:
+        """Return True while a reading is being integrated (the daemon then reads samples)."""
+        return self.reading is not None
+
+    # ------------------------------------------------------------------ sequence logic
+    def _enter_step(self, index: int, actor: str) -> None:
+        self.step_index = index
+        self.pending_manual = None
+        step = self.step
+        if step is None:
+            return
+        if not self._can(Capability.SET_BIAS) and self.bias_V != step.bias_V:
+            self.pending_manual = {"action": "set_bias", "volts": float(step.bias_V)}
+        self._event(actor, "step_entered", step_index=index, step_key=step.key)
+
+    def _advance(self, actor: str, action: str) -> None:
+        assert self.step_index is not None and self.plan is not None
+        following = self.step_index + 1
+        if following >= len(self.plan.steps):
+            self.step_index = following
+            self._goto(S.FINISHED, action, actor)
+            assert self.session_id is not None
+            self.store.set_session_status(self.session_id, "finished", "plan complete", actor)
+            return
+        self._goto(S.WAITING_FOR_OPERATOR, action, actor, next_step=following)
+        self._enter_step(following, actor)
+
+    def _apply_bias(self, actor: str) -> None:
+        step = self.step
+        if self._can(Capability.SET_BIAS) and step is not None:
+            self._issue("set_bias", float(step.bias_V))
+            if self.bias_V != step.bias_V:
+                self.bias_V = float(step.bias_V)
+                self._event(actor, "bias_changed", volts=self.bias_V, how="remote")
+
+    def _settling_needed(self) -> bool:
+        assert self.active is not None
+        return live.settling_needed(self.step, self.active.readings, MAX_SETTLING_READINGS)
+
+    def _begin_reading(self, actor: str, action: str) -> None:
+        step = self.step
+        assert step is not None and self.active is not None
+        settling = self._settling_needed()
+        new_state = S.SETTLING if settling else S.COLLECTING
+        if self.state is not new_state:
+            self._goto(new_state, action, actor, set_id=self.active.id)
+        self.reading = ReadingCapture(
+            live.capture_settings(self.plan), self.clock(), live.timed_s(step)
+        )
+        self.reading_status = "ok"
+        if self._can(Capability.ZERO):
+            self._issue("zero")
+        if self._can(Capability.INTEGRATE):
+            self._issue("start")
+        if self.bench and float(step.mu_per_reading) > 0:
+            self._issue("beam", float(step.mu_per_reading))
+
+    def _drop_reading(self, actor: str, why: str) -> None:
+        if self.reading is None:
+            return
+        self._event(actor, "reading_dropped", why=why, charge_nC=self.reading.last_charge_nC)
+        self.reading = None
+        if self._can(Capability.INTEGRATE) and self.instrument_connected:
+            self._issue("stop")
+
+    def _record(self, captured: Captured, actor: str) -> None:
+        step, active = self.step, self.active
+        assert step is not None and active is not None and self.session_id is not None
+        settling = self._settling_needed()
+        self.reading = None
+        if self._can(Capability.INTEGRATE):
+            self._issue("stop")
+        reading_id = self.store.add_reading(
+            self.session_id,
+            active.id,
+            len(active.readings) + 1,
+            captured.t_s,
+            captured.charge_nC,
+            captured.capture.value,
+            settling,
+            self.reading_status,
+        )
+        active.readings = self.store.readings(self.session_id, active.id)
+        self.integration_s[reading_id] = captured.integration_s
+        self._event(
+            actor,
+            "reading_recorded",
+            reading_id=reading_id,
+            set_id=active.id,
+            charge_nC=captured.charge_nC,
+            capture=captured.capture.value,
+            settling=settling,
+            integration_s=captured.integration_s,
+        )
+        if self._settling_needed() or active.used_count < int(step.readings):
+            self._begin_reading(actor, "reading recorded")
+            return
+        self.store.set_set_status(active.id, "reviewing", actor=actor)
+        self._goto(S.REVIEWING, "set complete", actor, set_id=active.id)
+
+    # ------------------------------------------------------------------------ restart
+    def restore(self) -> bool:
+        """Resume the store's open session, if any; return True when one was resumed."""
+        row = self.store.open_session()
+        if row is None:
+            return False
+        self.session_id, self.metadata = row.id, row.metadata()
+        self.plan = live.resolve_plan(row.plan())
+        events = self.store.events(row.id)
+        self.skipped = {e.detail()["step_index"] for e in events if e.kind == "step_skipped"}
+        for event in events:
+            detail = event.detail()
+            if event.kind == "bias_changed":
+                self.bias_V = float(detail["volts"])
+            elif event.kind == "reading_recorded" and "integration_s" in detail:
+                self.integration_s[int(detail["reading_id"])] = float(detail["integration_s"])
+        sets = self.store.sets(row.id)
+        done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
+        index = next((i for i in range(len(self.plan.steps)) if i not in done), None)
+        self.state = S.WAITING_FOR_OPERATOR
+        self.store.add_event(row.id, DAEMON_ACTOR, "session_resumed", {"step_index": index})
+        if index is None:
+            self.step_index = len(self.plan.steps)
+            self._goto(S.FINISHED, "restore", DAEMON_ACTOR)
+            self.store.set_session_status(row.id, "finished", "plan complete")
+            self._changed()
+            return True
+        self._enter_step(index, DAEMON_ACTOR)
+        open_set = _open_set(sets, index)
+        if open_set is not None:
+            self.active = ActiveSet(open_set.id, index, open_set.attempt)
+            self.active.readings = self.store.readings(row.id, open_set.id)
+            self.pending_manual = None
+            if open_set.status == "collecting":
+                reason = "the daemon restarted while the set was being collected"
+                self.store.set_set_status(open_set.id, "interrupted", reason)
+            restored = S.REVIEWING if open_set.status == "reviewing" else S.INTERRUPTED
+            self.state = restored
+            self._event(DAEMON_ACTOR, "state_restored", to=restored.value, set_id=open_set.id)
+        self._changed()
+        return True
+
+    # ----------------------------------------------------------------------- snapshot
+    def results(self) -> tuple[dict[str, Any] | None, bool, str | None]:
+        """Return (Evaluation.to_dict() so far, provisional?, error), cached until a change."""
+        if self._results_cache is not None and self._results_cache[0] == self.seq:
+            return self._results_cache[1]
+        if self.session_id is None:
+            value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
+        else:
+            value = live.compute_results(
+                self.store,
+                self.session_id,
+                self.plan,
+                self.metadata,
+                self.active.id if self.active is not None else None,
+                self.integration_s,
+            )
+        self._results_cache = (self.seq, value)
+        return value
+
+    def snapshot(self) -> dict[str, Any]:
+        """Return the whole state as a protocol Snapshot dict."""
+        from chargebook.acquire.snapshot import build_snapshot
+
+        return build_snapshot(self)
+
+    @property
+    def live_phase(self) -> ReadingPhase:
+        return self.reading.phase if self.reading is not None else ReadingPhase.IDLE
+
+
+def _open_set(sets: list[SetRow], step_index: int) -> SetRow | None:
+    candidates = [
+        s
+        for s in sets
+        if s.step_index == step_index and s.status in ("collecting", "reviewing", "interrupted")
+    ]
+    return candidates[-1] if candidates else None
+
+
+__all__ = [
+    "DAEMON_ACTOR",
+    "CaptureSettings",
+    "Command",
+    "ConfirmationRequired",
+    "Engine",
+    "IllegalTransition",
+]

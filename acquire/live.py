@@ -1,0 +1,280 @@
+"""Live results and the checks behind the engine's inputs, all through ``corrections``.
+
+After every change the engine asks :func:`compute_results` for the results so far: it gathers
+the readings of the accepted sets (and, provisionally, those of the set being taken for a step
+that has no accepted set yet), the latest environment entry and the session metadata into a
+``MeasurementInputs`` and calls ``corrections.evaluate.evaluate``. Factors not yet measured stay
+*pending* there; nothing here computes physics.
+
+Also here: the checks of operator input the engine needs (environment, reasons, metadata, plan)
+and the plan-step rules the engine applies (settling, timed leakage, capture settings).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire import session_meta
+from chargebook.acquire.capture import CaptureSettings
+from chargebook.acquire.plan import Plan, Step, load_plan
+from chargebook.acquire.session_meta import SessionMetadata
+from chargebook.acquire.store import ReadingRow, SetRow, Store
+from chargebook.corrections import limits, units
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.stability import Thresholds, set_flags
+from chargebook.corrections.statistics import set_statistics
+from chargebook.corrections.units import Conversion
+
+#: The plan purposes whose accepted readings feed the results, and their MeasurementInputs field.
+RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
+
+
+# ------------------------------------------------------------------------- operator input
+def check_environment(
+    temperature_C: object, pressure: object, pressure_unit: str = "kPa", humidity_pct: object = None
+) -> dict[str, Any]:
+    """Return an environment entry (°C, kPa, pressure as entered, unit, % RH) after range checks.
+
+    Raises InputError naming the field (``temperature_C``, ``pressure_hPa`` ...) when a value is
+    not a number or lies outside its plausible range (10–40 °C, 60–110 kPa; common practice).
+    """
+    temperature = float(limits.TEMPERATURE_C.check("temperature_C", temperature_C))
+    pressure_kPa = float(units.pressure_kPa(pressure, pressure_unit))
+    humidity = None
+    if humidity_pct is not None:
+        humidity = float(limits.HUMIDITY_PCT.check("humidity_pct", humidity_pct))
+    return {
+        "temperature_C": temperature,
+        "pressure_kPa": pressure_kPa,
+        "pressure_entered": float(pressure),  # type: ignore[arg-type]
+        "pressure_unit": pressure_unit,
+        "humidity_pct": humidity,
+    }
+
+
+def require_reason(field: str, value: object) -> str:
+    """Return ``value`` stripped; raise InputError naming ``field`` when it is empty."""
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(field, value, "a few words saying why", "is empty")
+    return value.strip()
+
+
+def validate_metadata(metadata: Mapping[str, Any]) -> dict[str, Any]:
+    """Return the session metadata checked by ``acquire.session_meta``, as plain data."""
+    return _session_metadata(metadata).to_dict()
+
+
+def _session_metadata(metadata: Mapping[str, Any]) -> SessionMetadata:
+    if not isinstance(metadata, Mapping):
+        raise InputError("metadata", metadata, "a table of the session's details", "is not one")
+    return session_meta.validate_metadata(dict(metadata))
+
+
+def resolve_plan(plan: Plan | str | Path | Mapping[str, Any]) -> Plan:
+    """Return a Plan from a Plan, a shipped plan's name, a TOML path or a plan dict."""
+    if isinstance(plan, Plan):
+        return plan
+    if isinstance(plan, Mapping):
+        return Plan.from_dict(dict(plan))
+    return load_plan(plan)
+
+
+# ------------------------------------------------------------------------ plan-step rules
+def capture_settings(plan: Plan) -> CaptureSettings:
+    """Return the end-of-beam settings: the engine's defaults with the plan's overrides."""
+    return CaptureSettings(**plan.capture.overrides())
+
+
+def timed_s(step: Step) -> float | None:
+    """Return the integration time (s) of a step read without beam (leakage), else None."""
+    return None if step.uses_beam else float(step.duration_s or 0.0)
+
+
+def settling_wait_s(step: Step | None) -> float:
+    """Return how long (s) to wait after setting the bias before the step's first reading."""
+    return 0.0 if step is None else float(step.settling.wait_s)
+
+
+def settling_needed(step: Step, readings: Sequence[ReadingRow], limit: int | None = None) -> bool:
+    """Return True when the next reading of the set is a settling reading under the step's rule.
+
+    The first ``discard_first`` readings settle; then, with ``until_stable_pct``, readings keep
+    settling until one differs from the one before by at most that percentage, up to
+    ``max_settling_readings`` (``limit`` overrides it).
+    """
+    rule = step.settling
+    settling = [r.charge_nC for r in readings if r.settling]
+    if any(not r.settling for r in readings):
+        return False  # once a reading has counted, the set has settled
+    most = rule.max_settling_readings if limit is None else min(limit, rule.max_settling_readings)
+    if len(settling) < rule.discard_first:
+        return True
+    if rule.until_stable_pct is None or len(settling) >= most:
+        return False
+    if len(settling) < 2 or len(settling) == rule.discard_first:
+        return True
+    previous, latest = settling[-2], settling[-1]
+    change_pct = 100.0 * abs(latest - previous) / abs(previous) if previous else float("inf")
+    return change_pct > rule.until_stable_pct
+
+
+# --------------------------------------------------------------------------- statistics
+def set_summary(
+    purpose: str, readings: Sequence[ReadingRow], thresholds: Thresholds
+) -> tuple[dict[str, Any] | None, list[dict[str, str]], dict[int, list[dict[str, str]]]]:
+    """Return (statistics, set flags, flags per reading id) of a set's non-settling readings."""
+    used = [r for r in readings if not r.settling]
+    per_reading: dict[int, list[dict[str, str]]] = {r.id: [] for r in readings}
+    for reading in readings:
+        if reading.status != "ok":
+            per_reading[reading.id].append(
+                {
+                    "code": "instrument_status",
+                    "message": f"The electrometer marked this reading {reading.status}.",
+                    "severity": "warning",
+                }
+            )
+        if reading.settling:
+            per_reading[reading.id].append(
+                {
+                    "code": "settling",
+                    "message": "Settling reading: kept, not used for results.",
+                    "severity": "info",
+                }
+            )
+    if not used:
+        return None, [], per_reading
+    stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
+    for index in stats.outliers:
+        per_reading[used[index].id].append(
+            {
+                "code": "outlier",
+                "message": "This reading lies far from the others of the set (median absolute "
+                "deviation test): look for a spike or an interrupted beam before accepting.",
+                "severity": "warning",
+            }
+        )
+    flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
+    return _plain(stats), flags, per_reading
+
+
+def _plain(stats: Any) -> dict[str, Any]:
+    return dict(stats.to_dict())
+
+
+# ------------------------------------------------------------------------------ results
+def _set_for(
+    sets: Sequence[SetRow], step_index: int, active_set_id: int | None
+) -> tuple[SetRow | None, bool]:
+    """Return the set that speaks for a step (its accepted one, else the active one) and
+    whether it is provisional."""
+    accepted = [s for s in sets if s.step_index == step_index and s.status == "accepted"]
+    if accepted:
+        return accepted[-1], False
+    active = [s for s in sets if s.id == active_set_id and s.step_index == step_index]
+    return (active[0], True) if active else (None, False)
+
+
+def measurement_inputs(
+    store: Store,
+    session_id: int,
+    plan: Plan,
+    metadata: Mapping[str, Any],
+    active_set_id: int | None,
+    integration_s: Mapping[int, float],
+) -> tuple[Any, bool]:
+    """Return (MeasurementInputs of what is known, provisional?) for the session."""
+    from chargebook.corrections.evaluate import MeasurementInputs
+
+    sets = store.sets(session_id)
+    readings = store.readings(session_id)
+    by_set: dict[int, list[ReadingRow]] = {}
+    for reading in readings:
+        by_set.setdefault(reading.set_id, []).append(reading)
+    values: dict[str, list[float]] = {}
+    provisional = False
+    leakage_nC = None
+    routine_times: list[float] = []
+    for index, step in enumerate(plan.steps):
+        chosen, is_provisional = _set_for(sets, index, active_set_id)
+        if chosen is None:
+            continue
+        used = [r for r in by_set.get(chosen.id, []) if not r.settling]
+        field = RESULT_PURPOSES.get(step.purpose)
+        if field is not None and field not in values and used:
+            values[field] = [r.charge_nC for r in used]
+            provisional = provisional or is_provisional
+            if step.purpose == "routine":
+                routine_times = [integration_s[r.id] for r in used if r.id in integration_s]
+        if step.purpose == "leakage" and used and not is_provisional and step.duration_s:
+            leakage_nC = (used[-1].charge_nC, float(step.duration_s))
+    environment = store.environment(session_id)
+    latest = environment[-1] if environment else None
+    leakage = None
+    if leakage_nC is not None and routine_times:
+        # Leakage charge scaled from the leakage step's time to a routine reading's time.
+        leakage = leakage_nC[0] * (sum(routine_times) / len(routine_times)) / leakage_nC[1]
+    meta = _session_metadata(metadata)
+    conversions = list(meta.conversions())
+    if latest is not None and latest.pressure_unit != "kPa":
+        conversions.append(
+            Conversion(
+                "pressure",
+                latest.pressure_entered,
+                latest.pressure_unit,
+                latest.pressure_kPa,
+                "kPa",
+            )
+        )
+    routine_step = next((s for s in plan.steps if s.purpose == "routine"), None)
+    inputs = MeasurementInputs(
+        convention=meta.convention,
+        beam=meta.beam_type,
+        temperature_C=latest.temperature_C if latest else None,
+        pressure_kPa=latest.pressure_kPa if latest else None,
+        humidity_pct=latest.humidity_pct if latest else None,
+        routine_bias_V=plan.routine_bias_V,
+        reduced_bias_V=plan.reduced_bias_V,
+        routine_nC=tuple(values.get("routine_nC", ())),
+        opposite_nC=tuple(values.get("opposite_nC", ())),
+        reduced_nC=tuple(values.get("reduced_nC", ())),
+        leakage_nC=leakage,
+        N_Dw_Gy_per_nC=meta.N_Dw_Gy_per_nC,
+        k_Q=meta.k_Q,
+        k_elec=meta.k_elec,
+        monitor_units=float(routine_step.mu_per_reading) if routine_step else None,
+        expected_cGy_per_MU=meta.expected_cGy_per_MU,
+        tolerance_pct=meta.tolerance_pct,
+        uncertainties=meta.uncertainties(),
+        temperature_history_C=tuple(e.temperature_C for e in environment),
+        pressure_history_kPa=tuple(e.pressure_kPa for e in environment),
+        conversions=tuple(conversions),
+    )
+    return inputs, provisional
+
+
+def compute_results(
+    store: Store,
+    session_id: int,
+    plan: Plan,
+    metadata: Mapping[str, Any],
+    active_set_id: int | None,
+    integration_s: Mapping[int, float],
+) -> tuple[dict[str, Any] | None, bool, str | None]:
+    """Return (``evaluate(...).to_dict()``, provisional?, error) for what is known now.
+
+    When the recorded values cannot be evaluated (``evaluate`` raises InputError, e.g. readings
+    whose sign contradicts the bias), the results are None and ``error`` says why in words;
+    nothing recorded is touched.
+    """
+    from chargebook.corrections.evaluate import evaluate
+
+    inputs, provisional = measurement_inputs(
+        store, session_id, plan, metadata, active_set_id, integration_s
+    )
+    try:
+        return evaluate(inputs).to_dict(), provisional, None
+    except InputError as error:
+        return None, provisional, f"The results cannot be computed: {error}"

@@ -1,0 +1,346 @@
+"""The sequence engine without I/O: a plain list-of-steps plan, an in-memory store, a hand clock.
+
+Samples are fed as an integrating electrometer would send them while a beam is delivered (the
+charge rises, then holds flat): common practice for end-of-beam capture. Factor check values are
+the published formulas of REFERENCE.md written out here, not the library's code.
+"""
+
+from __future__ import annotations
+
+import pytest
+from chargebook.acquire.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.plan import CaptureRule, Plan, SettlingRule, Step
+from chargebook.acquire.protocol import EngineState, Method
+from chargebook.acquire.states import IllegalTransition
+from chargebook.acquire.store import Store
+from chargebook.corrections.errors import InputError
+from chargebook.drivers_generic.interface import Capability
+
+S = EngineState
+
+#: Invented demo metadata (our own clinic, see the common brief); numbers are plausible magnitudes.
+METADATA = {
+    "treatment_machine": "HCC-LA1",
+    "beam": "6 MV",
+    "beam_type": "pulsed",
+    "convention": "trs398",
+    "chamber_model": "thimble 0.6 cc",
+    "chamber_serial": "CH-4417",
+    "electrometer_model": "bench electrometer",
+    "electrometer_serial": "EM-2093",
+    "operator": "R. Okafor",
+    "N_Dw": 0.0540,
+    "k_Q": 0.992,
+    "expected_cGy_per_MU": 1.0,
+}
+
+CAPTURE = CaptureRule(hold_s=1.0)
+ONE = SettlingRule(discard_first=1)
+
+
+def small_plan(settling: SettlingRule = ONE, return_check: bool = False) -> Plan:
+    """A plain list of steps: routine, opposite, reduced (and an optional return check)."""
+    steps = [
+        Step("routine", "routine", 1, 300.0, 3, 100.0, settling),
+        Step("opposite", "opposite", -1, -300.0, 3, 100.0, settling),
+        Step("reduced", "reduced", 1, 100.0, 3, 100.0, settling),
+    ]
+    if return_check:
+        steps.append(Step("check", "return_check", 1, 300.0, 2, 100.0, optional=True))
+    return Plan("small", tuple(steps), 300.0, 100.0, capture=CAPTURE)
+
+
+class Clock:
+    """A hand-driven clock in seconds."""
+
+    def __init__(self) -> None:
+        self.now = 1000.0
+
+    def __call__(self) -> float:
+        return self.now
+
+
+def make_engine(**kwargs) -> tuple[Engine, Clock]:
+    clock = Clock()
+    caps = kwargs.pop(
+        "capabilities", {Capability.ZERO, Capability.INTEGRATE, Capability.READ_CHARGE}
+    )
+    engine = Engine(Store.memory(), capabilities=caps, clock=clock, **kwargs)
+    return engine, clock
+
+
+def deliver(engine: Engine, clock: Clock, charge_nC: float) -> None:
+    """Feed one beam delivery: rise to charge_nC over 1 s, then flat until end of beam."""
+    assert engine.reading is not None, f"no reading armed in state {engine.state}"
+    for i in range(1, 11):
+        clock.now += 0.1
+        engine.on_sample(clock.now, charge_nC * i / 10)
+    reading = engine.reading
+    while engine.reading is reading:
+        clock.now += 0.1
+        engine.on_sample(clock.now, charge_nC)
+
+
+def started(engine: Engine, plan: Plan | None = None) -> int:
+    session_id = engine.start_session(METADATA, plan or small_plan(), actor="R. Okafor")
+    engine.set_environment(20.0, 101.325, actor="R. Okafor")
+    return session_id
+
+
+def take_set(engine: Engine, clock: Clock, charges: list[float]) -> None:
+    if engine.pending_manual is not None:
+        engine.manual_done(actor="R. Okafor")
+    engine.arm()
+    for charge in charges:
+        deliver(engine, clock, charge)
+
+
+def test_a_plan_runs_from_start_to_finish_with_settling_readings_kept_but_not_used():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    routine = [20.50, 20.00, 20.01, 19.99]  # first is the settling reading
+    opposite = [-20.30, -20.04, -20.05, -20.03]
+    reduced = [19.95, 19.90, 19.91, 19.89]
+    for charges in (routine, opposite, reduced):
+        take_set(engine, clock, charges)
+        assert engine.state is S.REVIEWING
+        engine.accept()
+    assert engine.state is S.FINISHED
+    store = engine.store
+    assert store.session(session_id).status == "finished"
+    readings = store.readings(session_id)
+    assert len(readings) == 12
+    assert [r.settling for r in readings].count(True) == 3
+    results, provisional, error = engine.results()
+    assert error is None and not provisional
+    # TRS-398: k_pol = (|M+| + |M-|) / (2 |M|), M the routine-polarity reading (REFERENCE.md).
+    m_plus, m_minus = sum(routine[1:]) / 3, sum(opposite[1:]) / 3
+    assert results["k_pol"] == pytest.approx((abs(m_plus) + abs(m_minus)) / (2 * abs(m_plus)))
+    assert results["M_raw_nC"] == pytest.approx(m_plus)
+    assert results["factor_states"]["k_s"] == "measured"
+    assert results["dose_Gy"] is not None
+
+
+def test_factors_not_yet_measured_are_pending_and_the_dose_waits_for_them():
+    engine, clock = make_engine()
+    started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    snapshot = engine.snapshot()
+    assert snapshot["results_provisional"] is True  # the routine set is not accepted yet
+    engine.accept()
+    results = engine.snapshot()["results"]
+    assert results["factor_states"]["k_pol"] == "pending"
+    assert results["factor_states"]["k_s"] == "pending"
+    assert results["k_pol"] is None and results["dose_Gy"] is None
+
+
+def test_an_illegal_request_names_the_state_and_what_is_allowed():
+    engine, _ = make_engine()
+    with pytest.raises(IllegalTransition) as refused:
+        engine.accept()
+    assert "idle" in str(refused.value) and "session.start" in str(refused.value)
+    started(engine)
+    with pytest.raises(IllegalTransition, match=r"waiting for operator.*allowed now"):
+        engine.accept()
+
+
+def test_arming_waits_for_the_environment_and_for_the_manual_bias_step():
+    engine, _ = make_engine()
+    engine.start_session(METADATA, small_plan())
+    assert Method.STEP_ARM not in engine.allowed()
+    with pytest.raises(IllegalTransition, match="temperature and pressure"):
+        engine.arm()
+    engine.set_environment(21.0, 1013.0, "hPa")
+    # The profile cannot set the bias: the operator turns the switch by hand first.
+    assert engine.snapshot()["prompt"]["kind"] == "manual"
+    with pytest.raises(IllegalTransition, match="manual step"):
+        engine.arm()
+    engine.manual_done(note="switch at +300 V", actor="R. Okafor")
+    assert Method.STEP_ARM in engine.allowed()
+    events = [e for e in engine.store.events(engine.session_id) if e.kind == "manual_step_done"]
+    assert events[0].actor == "R. Okafor" and events[0].detail()["by_hand"] is True
+
+
+def test_bad_environment_is_refused_naming_the_field_and_loses_nothing():
+    engine, _ = make_engine()
+    session_id = started(engine)
+    for args, field in (
+        ((80.0, 101.3), "temperature_C"),  # 10–40 °C (common practice)
+        ((21.0, 20.0), "pressure_kPa"),  # 60–110 kPa (common practice)
+        (("warm", 101.3), "temperature_C"),
+    ):
+        with pytest.raises(InputError) as refused:
+            engine.set_environment(*args)
+        assert refused.value.field == field
+    entries = engine.store.environment(session_id)
+    assert len(entries) == 1 and entries[0].temperature_C == 20.0
+
+
+def test_redo_keeps_the_old_set_superseded_with_its_reason():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.0, 23.0, 20.0])
+    engine.redo("spike on reading 3")
+    assert engine.state is S.WAITING_FOR_OPERATOR
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    sets = engine.store.sets(session_id)
+    assert [(s.attempt, s.status) for s in sets] == [(1, "superseded"), (2, "reviewing")]
+    assert sets[0].reason == "spike on reading 3"
+    assert len(engine.store.readings(session_id, sets[0].id)) == 4  # kept
+    with pytest.raises(InputError, match="reason"):
+        engine.redo("   ")
+
+
+def test_pause_drops_the_reading_in_progress_and_resume_arms_again():
+    engine, clock = make_engine()
+    started(engine)
+    engine.manual_done()
+    engine.arm()
+    engine.on_sample(clock.now + 0.1, 5.0)
+    engine.take_commands()
+    engine.pause()
+    assert engine.state is S.PAUSED and engine.reading is None
+    assert Command("stop") in engine.take_commands()
+    engine.resume()
+    assert engine.state is S.SETTLING and engine.reading is not None
+    assert engine.take_commands()[-1] == Command("start")
+    kinds = [e.kind for e in engine.store.events(engine.session_id)]
+    assert "reading_dropped" in kinds
+
+
+def test_stop_and_abort_are_distinct_and_keep_everything():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    engine.accept()
+    engine.manual_done()
+    engine.arm()
+    deliver(engine, clock, -20.3)
+    with pytest.raises(ConfirmationRequired):
+        engine.abort("chamber cable damaged")
+    engine.abort("chamber cable damaged", confirm=True)
+    assert engine.state is S.ABORTED
+    store = engine.store
+    assert store.session(session_id).status == "aborted"
+    assert [s.status for s in store.sets(session_id)] == ["accepted", "aborted"]
+    assert len(store.readings(session_id)) == 5
+    engine.close()
+    second = started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    engine.accept()
+    engine.stop("only the routine output was needed today")
+    assert store.session(second).status == "finished"
+    assert engine.state is S.FINISHED
+
+
+def test_instrument_lost_mid_set_interrupts_it_and_the_set_can_be_continued():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.0])
+    engine.instrument_lost("the serial port went away")
+    assert engine.state is S.INTERRUPTED
+    assert Method.STEP_ARM not in engine.allowed()  # not while it is away
+    assert engine.store.sets(session_id)[0].status == "interrupted"
+    engine.instrument_back("EM-2093")
+    engine.arm()  # continue the same set
+    deliver(engine, clock, 20.01)
+    deliver(engine, clock, 19.99)
+    assert engine.state is S.REVIEWING
+    sets = engine.store.sets(session_id)
+    assert len(sets) == 1 and len(engine.store.readings(session_id, sets[0].id)) == 4
+
+
+def test_a_restarted_engine_resumes_the_open_session_with_every_reading():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    engine.accept()
+    engine.manual_done()
+    engine.arm()
+    deliver(engine, clock, -20.3)
+    deliver(engine, clock, -20.0)
+    # The daemon dies here; a new engine opens the same store.
+    revived = Engine(engine.store, capabilities=engine.capabilities, clock=clock)
+    assert revived.restore() is True
+    assert revived.session_id == session_id and revived.state is S.INTERRUPTED
+    assert revived.step.key == "opposite" and revived.bias_V == -300.0
+    assert len(revived.active.readings) == 2
+    assert engine.store.sets(session_id)[1].status == "interrupted"
+    revived.arm()
+    deliver(revived, clock, -20.01)
+    deliver(revived, clock, -19.99)
+    assert revived.state is S.REVIEWING
+    assert len(engine.store.readings(session_id)) == 8
+
+
+def test_remote_bias_and_the_bench_turn_prompts_into_commands():
+    engine, _clock = make_engine(
+        capabilities={Capability.ZERO, Capability.INTEGRATE, Capability.SET_BIAS}, bench=True
+    )
+    started(engine)
+    assert engine.pending_manual is None
+    engine.arm()
+    assert engine.take_commands() == [
+        Command("set_bias", 300.0),
+        Command("zero"),
+        Command("start"),
+        Command("beam", 100.0),
+    ]
+
+
+def test_manual_bias_confirmed_with_a_bench_turns_the_simulated_switch():
+    engine, _ = make_engine(bench=True)
+    started(engine)
+    engine.manual_done()
+    assert engine.take_commands() == [Command("bench_bias", 300.0)]
+
+
+def test_settling_until_stable_keeps_taking_settling_readings():
+    rule = SettlingRule(until_stable_pct=0.1, max_settling_readings=5)
+    engine, clock = make_engine()
+    session_id = started(engine, small_plan(settling=rule))
+    take_set(engine, clock, [21.0, 20.4, 20.01, 20.0, 20.0, 20.0, 20.0])
+    flags = [r.settling for r in engine.store.readings(session_id)]
+    assert flags == [True, True, True, True, False, False, False]
+
+
+def test_only_an_optional_step_can_be_skipped():
+    engine, clock = make_engine()
+    session_id = started(engine, small_plan(return_check=True))
+    with pytest.raises(IllegalTransition, match="optional"):
+        engine.skip()
+    for charges in ([20.5, 20, 20, 20], [-20.3, -20, -20, -20], [19.95, 19.9, 19.9, 19.9]):
+        take_set(engine, clock, charges)
+        engine.accept()
+    engine.skip()
+    assert engine.state is S.FINISHED
+    assert engine.snapshot()["plan"][3]["status"] == "skipped"
+    assert engine.store.session(session_id).status == "finished"
+
+
+def test_manual_and_pushed_capture():
+    engine, clock = make_engine(
+        capabilities={Capability.PUSH_READINGS, Capability.STREAM}, default_plan=small_plan()
+    )
+    session_id = started(engine)
+    engine.manual_done()
+    engine.arm()
+    engine.on_sample(clock.now + 1, 20.4, complete=True)
+    engine.on_sample(clock.now + 2, 12.0)
+    engine.capture()
+    captures = [r.capture for r in engine.store.readings(session_id)]
+    assert captures == ["pushed", "manual"]
+
+
+def test_snapshot_lists_the_allowed_actions_and_the_whole_plan():
+    engine, _clock = make_engine()
+    snapshot = engine.snapshot()
+    assert snapshot["state"] == "idle" and snapshot["allowed"] == ["session.start"]
+    started(engine)
+    engine.manual_done()
+    engine.arm()
+    snapshot = engine.snapshot()
+    assert snapshot["state"] == "settling"
+    assert set(snapshot["allowed"]) >= {"session.pause", "set.redo", "session.abort"}
+    assert [step["status"] for step in snapshot["plan"]] == ["current", "pending", "pending"]
+    assert snapshot["prompt"]["kind"] == "deliver_beam"
