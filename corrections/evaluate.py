@@ -79,7 +79,9 @@ class MeasurementInputs:
 
     Charges in nC signed as read; biases in V (routine signed, reduced signed or a magnitude of
     the routine polarity); temperature in °C, pressure in kPa, humidity in % RH; N_D,w in Gy/nC;
-    ``leakage_nC`` the leakage charge collected over one reading's duration.
+    ``leakage_nC`` the leakage charge collected over one reading's duration. ``tolerance_pct``
+    is a percentage or a name ("daily" 3 %, "monthly" 2 %, "annual" 1 %; AAPM TG-142); None
+    uses the monthly 2 %.
     ``temperature_history_C`` and ``pressure_history_kPa`` are the values recorded during the
     session, to flag a changing environment. ``conversions`` records unit conversions made
     while reading the inputs, so they can be shown with the results.
@@ -101,7 +103,7 @@ class MeasurementInputs:
     k_elec: float | None = None
     monitor_units: float | None = None
     expected_cGy_per_MU: float | None = None
-    tolerance_pct: float | None = None
+    tolerance_pct: float | str | None = None
     uncertainties: Uncertainties = Uncertainties()
     thresholds: Thresholds = field(default_factory=Thresholds)
     temperature_history_C: Sequence[float] = ()
@@ -146,6 +148,9 @@ class Evaluation:
     charge_ratio: float | None = None
     recombination_method: str = ""
     conversions: tuple[Conversion, ...] = field(default_factory=tuple)
+    #: The propagation model behind ``budget`` (None before the first routine reading), for
+    #: a Monte Carlo cross-check with :func:`~chargebook.corrections.uncertainty.monte_carlo_u_pct`.
+    uncertainty_model: ModelInputs | None = None
 
     @property
     def symbols(self) -> Mapping[str, str]:
@@ -530,6 +535,14 @@ def _tolerance_flags(
     ]
 
 
+def _tolerance_source(tolerance: float | str | None) -> str:
+    if tolerance is None:
+        return f"default: AAPM TG-142 {dose_module.DEFAULT_TOLERANCE_NAME} output constancy"
+    if isinstance(tolerance, str):
+        return f"entered as {tolerance.strip().lower()!r}: AAPM TG-142"
+    return "entered"
+
+
 def _session_flags(
     inputs: MeasurementInputs,
     checked: _Checked,
@@ -597,9 +610,10 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         deviation = float(dose_module.deviation_pct(per_MU, checked.expected_cGy_per_MU))
 
     components: tuple[Component, ...] = ()
-    u_charge = u_dose = None
+    u_charge = u_dose = model = None
     if routine is not None:
-        components = budget(_model(inputs, checked, sets, factors, convention, beam))
+        model = _model(inputs, checked, sets, factors, convention, beam)
+        components = budget(model)
         if _type_a_known(components):
             charge_parts = [c for c in components if c.in_charge]
             u_charge = combine_pct(charge_parts) if M_corrected is not None else None
@@ -609,11 +623,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     if dose_Gy is not None:
         flags += _uncertainty_flags(components)
     flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
-    tolerance_source = (
-        f"default: AAPM TG-142 {dose_module.DEFAULT_TOLERANCE_NAME} output constancy"
-        if inputs.tolerance_pct is None
-        else "entered"
-    )
+    tolerance_source = _tolerance_source(inputs.tolerance_pct)
     charge_ratio = None
     if routine is not None and sets["reduced"] is not None:
         charge_ratio = routine.mean_nC / sets["reduced"].mean_nC
@@ -640,4 +650,5 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         charge_ratio=charge_ratio,
         recombination_method=recombination_method(beam, convention),
         conversions=tuple(inputs.conversions),
+        uncertainty_model=model,
     )

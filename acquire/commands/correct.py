@@ -1,0 +1,244 @@
+"""`chargebook correct WORKSHEET [--json]`: the offline mode, for readings copied from a logbook.
+
+Reads a TOML or JSON worksheet (see ``chargebook.acquire.worksheet``), evaluates it with
+``chargebook.corrections.evaluate`` and prints a table of every factor, the reading-set
+statistics, the corrected charge, the dose, the uncertainty budget and the flags, or with
+``--json`` one JSON object. Exit 0 on success, 2 on invalid input with the message on stderr.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from chargebook.acquire.worksheet import Worksheet
+    from chargebook.corrections.evaluate import Evaluation
+
+HELP = "correct readings copied from a logbook: factors, dose and uncertainty from a worksheet"
+
+#: Monte Carlo cross-check of the analytic uncertainty (GUM Supplement 1): draws and seed.
+MONTE_CARLO_TRIALS = 200_000
+MONTE_CARLO_SEED = 398
+
+SET_TITLES = {"routine": "routine", "opposite": "opposite polarity", "reduced": "reduced bias"}
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add the worksheet path and the --json switch."""
+    parser.add_argument("worksheet", metavar="WORKSHEET", help="a .toml or .json worksheet")
+    parser.add_argument("--json", action="store_true", help="print one JSON object instead")
+
+
+def _number(value: float | None, digits: int = 5, unit: str = "", missing: str = "—") -> str:
+    if value is None:
+        return missing
+    text = f"{value:.{digits}g}" if abs(value) >= 1e-3 or value == 0 else f"{value:.4e}"
+    return f"{text} {unit}".rstrip()
+
+
+def _fixed(value: float | None, digits: int = 3, signed: bool = False, missing: str = "—") -> str:
+    if value is None:
+        return missing
+    return f"{value:+.{digits}f}" if signed else f"{value:.{digits}f}"
+
+
+def _table(rows: list[list[str]], indent: str = "  ") -> list[str]:
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    return [
+        indent
+        + "  ".join(cell.ljust(width) for cell, width in zip(row, widths, strict=True)).rstrip()
+        for row in rows
+    ]
+
+
+def _header(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
+    from chargebook.corrections.conventions import constants
+
+    reference = constants(evaluation.convention)
+    lines = [
+        f"chargebook correct: {worksheet.path.name}",
+        f"convention   {reference.title} (air referred to {reference.reference_temperature_C:g} °C,"
+        f" {reference.reference_pressure_kPa:g} kPa); beam {evaluation.beam.value}",
+    ]
+    lines += [f"{key.replace('_', ' '):<12} {value}" for key, value in worksheet.session.items()]
+    if evaluation.conversions:
+        lines += ["", "Input conversions"]
+        lines += [f"  {conversion.text()}" for conversion in evaluation.conversions]
+    return lines
+
+
+def _bias_text(worksheet: Worksheet, key: str) -> str:
+    inputs = worksheet.inputs
+    routine, reduced = inputs.routine_bias_V, inputs.reduced_bias_V
+    if routine is None:
+        return ""
+    if key == "routine":
+        return f" ({routine:+g} V)"
+    if key == "opposite":
+        return f" ({-routine:+g} V)"
+    if reduced is None:
+        return ""
+    return f" ({abs(reduced) if routine > 0 else -abs(reduced):+g} V)"
+
+
+def _sets(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
+    rows = [
+        ["set", "n", "mean nC", "SD nC", "rel SD %", "SE nC", "range %", "drift %/rdg", "outliers"]
+    ]
+    for key, stats in evaluation.sets.items():
+        name = SET_TITLES[key] + _bias_text(worksheet, key)
+        if stats is None:
+            rows.append([name, "0", "no readings", "", "", "", "", "", ""])
+            continue
+        outliers = ", ".join(str(i + 1) for i in stats.outliers) or "none"
+        rows.append(
+            [
+                name,
+                str(stats.count),
+                f"{stats.mean_nC:.4f}",
+                _fixed(stats.sd_nC, 5, missing="undefined"),
+                _fixed(stats.relative_sd_pct),
+                _fixed(stats.standard_error_nC, 5, missing="undefined"),
+                _fixed(stats.relative_range_pct),
+                _fixed(stats.drift_pct_per_reading, signed=True),
+                outliers,
+            ]
+        )
+    return ["", "Reading sets (charges as read)", *_table(rows)]
+
+
+def _factors(evaluation: Evaluation) -> list[str]:
+    rows = [["symbol", "value", "state", "u %", "source"]]
+    for factor in evaluation.factors.values():
+        value = "pending" if factor.value is None else f"{factor.value:.5f}"
+        if factor.value is not None and factor.value < 0.01:
+            value = f"{factor.value:.5g}"
+        u = "—" if factor.u_rel_pct is None else f"{factor.u_rel_pct:.3f}"
+        rows.append([factor.symbol, value, factor.state, u, factor.source])
+    return ["", "Factors", *_table(rows)]
+
+
+def _results(evaluation: Evaluation) -> list[str]:
+    symbols = evaluation.symbols
+    pending = "pending (a factor above is pending)"
+    rows = [
+        [
+            f"{symbols['M_raw']} (mean routine)",
+            _number(evaluation.M_raw_nC, 6, "nC", "no readings"),
+        ],
+        [
+            f"{symbols['M_corrected']} (corrected)",
+            _number(evaluation.M_corrected_nC, 6, "nC", pending),
+        ],
+        [f"{symbols['dose']} (dose to water)", _number(evaluation.dose_Gy, 5, "Gy", pending)],
+        ["dose per MU", _number(evaluation.dose_per_MU_cGy, 5, "cGy/MU", "— (needs dose and MU)")],
+    ]
+    if evaluation.expected_cGy_per_MU is not None:
+        rows.append(["expected", _number(evaluation.expected_cGy_per_MU, 5, "cGy/MU")])
+    if evaluation.deviation_pct is not None:
+        verdict = "within tolerance" if evaluation.within_tolerance else "OUTSIDE tolerance"
+        rows.append(
+            [
+                "deviation",
+                f"{evaluation.deviation_pct:+.2f} %  (tolerance ±{evaluation.tolerance_pct:g} %, "
+                f"{evaluation.tolerance_source}): {verdict}",
+            ]
+        )
+    return ["", "Results", *_table(rows)]
+
+
+def _uncertainty(evaluation: Evaluation) -> list[str]:
+    from chargebook.corrections.uncertainty import monte_carlo_u_pct
+
+    lines = ["", "Uncertainty budget (GUM; relative standard uncertainty contributions)"]
+    if not evaluation.budget:
+        return [*lines, "  no routine readings yet"]
+    rows = [["component", "u %", "source"]]
+    rows += [
+        [c.component, "—" if c.u_rel_pct is None else f"{c.u_rel_pct:.3f}", c.source]
+        for c in evaluation.budget
+    ]
+    lines += _table(rows)
+    u_c, U = evaluation.u_combined_pct, evaluation.U_expanded_pct
+    if u_c is None:
+        what = "corrected charge" if evaluation.u_M_corrected_pct is not None else "dose"
+        lines.append(f"  combined standard uncertainty of the {what}: cannot be evaluated yet")
+        if evaluation.u_M_corrected_pct is not None:
+            lines.append(f"  u_c of the corrected charge = {evaluation.u_M_corrected_pct:.3f} %")
+        return lines
+    lines.append(f"  combined standard uncertainty of the dose  u_c = {u_c:.3f} %")
+    lines.append(f"  expanded uncertainty (k = 2)              U   = {U:.3f} %")
+    check = monte_carlo_u_pct(evaluation.uncertainty_model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED)
+    lines.append(
+        f"  Monte Carlo check (GUM Supplement 1, {MONTE_CARLO_TRIALS} draws, seed "
+        f"{MONTE_CARLO_SEED}): u_c = {check:.3f} %"
+    )
+    return lines
+
+
+def _flags(evaluation: Evaluation) -> list[str]:
+    lines = ["", "Flags"]
+    if not evaluation.flags:
+        return [*lines, "  none"]
+    return lines + [f"  [{flag.severity}] {flag.code}: {flag.message}" for flag in evaluation.flags]
+
+
+def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
+    """Return the readable report of one evaluated worksheet."""
+    from chargebook.acquire.cli import CAUTION
+
+    lines = (
+        _header(worksheet, evaluation)
+        + _sets(worksheet, evaluation)
+        + _factors(evaluation)
+        + _results(evaluation)
+        + _uncertainty(evaluation)
+        + _flags(evaluation)
+        + ["", CAUTION]
+    )
+    return "\n".join(lines) + "\n"
+
+
+def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
+    """Return the evaluation as one JSON object, with the worksheet's session description."""
+    from chargebook.acquire.cli import CAUTION
+    from chargebook.corrections.uncertainty import monte_carlo_u_pct
+
+    document: dict[str, Any] = {
+        "worksheet": str(worksheet.path),
+        "session": dict(worksheet.session),
+    }
+    document.update(evaluation.to_dict())
+    monte_carlo = None
+    if evaluation.u_combined_pct is not None:
+        monte_carlo = {
+            "trials": MONTE_CARLO_TRIALS,
+            "seed": MONTE_CARLO_SEED,
+            "u_combined_pct": monte_carlo_u_pct(
+                evaluation.uncertainty_model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED
+            ),
+        }
+    document["monte_carlo"] = monte_carlo
+    document["caution"] = CAUTION
+    return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
+
+
+def run(args: argparse.Namespace) -> int:
+    """Evaluate the worksheet and print the report; return 0, or 2 for invalid input."""
+    from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.worksheet import read_worksheet
+    from chargebook.corrections.errors import InputError
+    from chargebook.corrections.evaluate import evaluate
+
+    try:
+        worksheet = read_worksheet(args.worksheet)
+        evaluation = evaluate(worksheet.inputs)
+    except InputError as error:
+        print(f"chargebook correct: invalid input in {args.worksheet}: {error}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
+    render = render_json if args.json else render_table
+    sys.stdout.write(render(worksheet, evaluation))
+    return EXIT_OK

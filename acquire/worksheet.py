@@ -1,0 +1,278 @@
+"""Worksheets: readings copied from a logbook, in our own TOML or JSON format, for `correct`.
+
+A worksheet holds one session::
+
+    convention = "trs398"            # or "tg51"
+    beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
+    [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
+    [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
+    [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
+    [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC
+    [calibration]  N_Dw_Gy_per_nC | N_Dw_Gy_per_C | N_Dw_cGy_per_nC, k_Q, k_elec,
+                   monitor_units, expected_cGy_per_MU, tolerance_pct (number, or "daily",
+                   "monthly", "annual"), u_N_Dw_pct_k2, u_k_Q_pct
+    [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct
+    [thresholds]   any field of chargebook.corrections.stability.Thresholds
+
+Reading is strict: an unknown key, a value of the wrong type, an empty reading set or two
+spellings of one quantity is an InputError naming the key. Ranges are checked by ``evaluate``.
+Pressure and N_D,w given in other units are converted once, and the conversion is kept in
+``MeasurementInputs.conversions`` so the results can show it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime
+import json
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+from chargebook.corrections import units
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.evaluate import MeasurementInputs, Uncertainties
+from chargebook.corrections.stability import Thresholds
+
+NUMBER = "a number"
+NUMBERS = "a list of numbers"
+TEXT = "text"
+NUMBER_OR_TEXT = "a number or a name"
+INTEGER_OR_NONE = "an integer"
+
+#: Section -> key -> the kind of value it takes. "" is the top level.
+SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
+    {
+        "": {"convention": TEXT, "beam": TEXT},
+        "session": {
+            key: TEXT
+            for key in (
+                "machine",
+                "beam_quality",
+                "chamber",
+                "electrometer",
+                "date",
+                "operator",
+                "notes",
+            )
+        },
+        "environment": {
+            "temperature_C": NUMBER,
+            "pressure_kPa": NUMBER,
+            "pressure_hPa": NUMBER,
+            "pressure_mmHg": NUMBER,
+            "humidity_pct": NUMBER,
+        },
+        "bias": {"routine_V": NUMBER, "reduced_V": NUMBER},
+        "readings": {
+            "routine_nC": NUMBERS,
+            "opposite_nC": NUMBERS,
+            "reduced_nC": NUMBERS,
+            "leakage_nC": NUMBER,
+        },
+        "calibration": {
+            "N_Dw_Gy_per_nC": NUMBER,
+            "N_Dw_Gy_per_C": NUMBER,
+            "N_Dw_cGy_per_nC": NUMBER,
+            "k_Q": NUMBER,
+            "k_elec": NUMBER,
+            "monitor_units": NUMBER,
+            "expected_cGy_per_MU": NUMBER,
+            "tolerance_pct": NUMBER_OR_TEXT,
+            "u_N_Dw_pct_k2": NUMBER,
+            "u_k_Q_pct": NUMBER,
+        },
+        "uncertainty": {
+            "u_temperature_C": NUMBER,
+            "u_pressure_kPa": NUMBER,
+            "u_k_elec_pct": NUMBER,
+        },
+        "thresholds": {
+            item.name: (
+                INTEGER_OR_NONE
+                if item.name in ("minimum_readings", "charge_sign_for_positive_bias")
+                else NUMBER
+            )
+            for item in dataclasses.fields(Thresholds)
+        },
+    }
+)
+
+REQUIRED: tuple[tuple[str, str], ...] = (
+    ("", "convention"),
+    ("", "beam"),
+    ("readings", "routine_nC"),
+)
+
+
+@dataclass(frozen=True)
+class Worksheet:
+    """A worksheet read from ``path``: the inputs for ``evaluate`` and the session's description."""
+
+    path: Path
+    inputs: MeasurementInputs
+    session: Mapping[str, str]
+
+
+def _name(section: str, key: str) -> str:
+    return f"{section}.{key}" if section else key
+
+
+def _is_number(value: object) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool)
+
+
+def _typed(section: str, key: str, value: object) -> Any:
+    kind = SCHEMA[section][key]
+    name = _name(section, key)
+    if kind == NUMBER and _is_number(value):
+        return float(value)
+    if kind == INTEGER_OR_NONE and isinstance(value, int) and not isinstance(value, bool):
+        return value
+    if kind == TEXT and isinstance(value, str | datetime.date | datetime.time):
+        return str(value)
+    if kind == NUMBER_OR_TEXT and (_is_number(value) or isinstance(value, str)):
+        return value
+    if kind == NUMBERS and isinstance(value, list):
+        if not value:
+            raise InputError(name, [], "at least one reading in nC", "is an empty reading set")
+        for index, item in enumerate(value):
+            if not _is_number(item):
+                raise InputError(f"{name}[{index}]", item, "a charge in nC", "is not a number")
+        return tuple(float(item) for item in value)
+    raise InputError(name, value, kind, f"is of the wrong type ({type(value).__name__})")
+
+
+def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
+    """Return section -> {key: typed value}, refusing unknown sections and keys."""
+    result: dict[str, dict[str, Any]] = {section: {} for section in SCHEMA}
+    for key, value in document.items():
+        if key in SCHEMA[""]:
+            result[""][key] = _typed("", key, value)
+            continue
+        if key not in SCHEMA:
+            known = ", ".join([*SCHEMA[""], *(f"[{s}]" for s in SCHEMA if s)])
+            raise InputError(key, value, known, "is not a known key")
+        if not isinstance(value, Mapping):
+            raise InputError(key, value, f"a [{key}] table", "is not a table")
+        for inner, inner_value in value.items():
+            if inner not in SCHEMA[key]:
+                known = ", ".join(SCHEMA[key])
+                raise InputError(_name(key, inner), inner_value, known, "is not a known key")
+            result[key][inner] = _typed(key, inner, inner_value)
+    for section, key in REQUIRED:
+        if key not in result[section]:
+            raise InputError(_name(section, key), None, SCHEMA[section][key], "is missing")
+    return result
+
+
+def _one_of(section: str, values: Mapping[str, Any], keys: tuple[str, ...]) -> str | None:
+    given = [key for key in keys if key in values]
+    if len(given) > 1:
+        raise InputError(
+            _name(section, given[1]),
+            values[given[1]],
+            f"only one of {', '.join(keys)}",
+            f"is given together with {given[0]}",
+        )
+    return given[0] if given else None
+
+
+def _pressure(environment: Mapping[str, Any]) -> tuple[float | None, list[units.Conversion]]:
+    key = _one_of("environment", environment, ("pressure_kPa", "pressure_hPa", "pressure_mmHg"))
+    if key is None:
+        return None, []
+    unit = key.removeprefix("pressure_")
+    value = environment[key]
+    kPa = float(units.pressure_kPa(value, unit))
+    if unit == "kPa":
+        return kPa, []
+    return kPa, [units.Conversion("pressure", value, unit, kPa, "kPa")]
+
+
+def _calibration_coefficient(
+    calibration: Mapping[str, Any],
+) -> tuple[float | None, list[units.Conversion]]:
+    keys = ("N_Dw_Gy_per_nC", "N_Dw_Gy_per_C", "N_Dw_cGy_per_nC")
+    key = _one_of("calibration", calibration, keys)
+    if key is None:
+        return None, []
+    value = calibration[key]
+    if key == "N_Dw_Gy_per_nC":
+        return value, []  # range checked by evaluate under this name
+    unit = key.removeprefix("N_Dw_").replace("_per_", "/")
+    Gy_per_nC = float(units.N_Dw_Gy_per_nC(value, unit))
+    return Gy_per_nC, [units.Conversion("N_D,w", value, unit, Gy_per_nC, "Gy/nC")]
+
+
+def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>") -> Worksheet:
+    """Return the Worksheet held by a parsed TOML/JSON ``document``; raise InputError if invalid."""
+    if not isinstance(document, Mapping):
+        raise InputError("worksheet", document, "a table of keys", "is not a table")
+    sections = _sections(document)
+    environment, calibration = sections["environment"], sections["calibration"]
+    readings, uncertainty = sections["readings"], sections["uncertainty"]
+    pressure, pressure_conversions = _pressure(environment)
+    N_Dw, N_Dw_conversions = _calibration_coefficient(calibration)
+    uncertainties = Uncertainties(
+        u_N_Dw_pct_k2=calibration.get("u_N_Dw_pct_k2"),
+        u_k_Q_pct=calibration.get("u_k_Q_pct"),
+        **uncertainty,
+    )
+    inputs = MeasurementInputs(
+        convention=sections[""]["convention"],
+        beam=sections[""]["beam"],
+        temperature_C=environment.get("temperature_C"),
+        pressure_kPa=pressure,
+        humidity_pct=environment.get("humidity_pct"),
+        routine_bias_V=sections["bias"].get("routine_V"),
+        reduced_bias_V=sections["bias"].get("reduced_V"),
+        routine_nC=readings["routine_nC"],
+        opposite_nC=readings.get("opposite_nC", ()),
+        reduced_nC=readings.get("reduced_nC", ()),
+        leakage_nC=readings.get("leakage_nC"),
+        N_Dw_Gy_per_nC=N_Dw,
+        k_Q=calibration.get("k_Q"),
+        k_elec=calibration.get("k_elec"),
+        monitor_units=calibration.get("monitor_units"),
+        expected_cGy_per_MU=calibration.get("expected_cGy_per_MU"),
+        tolerance_pct=calibration.get("tolerance_pct"),
+        uncertainties=uncertainties,
+        thresholds=Thresholds(**sections["thresholds"]),
+        conversions=tuple(pressure_conversions + N_Dw_conversions),
+    )
+    return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))
+
+
+def _read_document(path: Path) -> Any:
+    suffix = path.suffix.lower()
+    if suffix not in (".toml", ".json"):
+        raise InputError("worksheet", str(path), "a .toml or .json file", "has an unknown type")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as error:
+        reason = getattr(error, "strerror", None) or str(error)
+        raise InputError(
+            "worksheet", str(path), "a readable file", f"cannot be read: {reason}"
+        ) from None
+    try:
+        return tomllib.loads(text) if suffix == ".toml" else json.loads(text)
+    except (tomllib.TOMLDecodeError, json.JSONDecodeError) as error:
+        kind = "TOML" if suffix == ".toml" else "JSON"
+        raise InputError(
+            "worksheet", str(path), f"valid {kind}", f"is not valid {kind}: {error}"
+        ) from None
+
+
+def read_worksheet(path: Path | str) -> Worksheet:
+    """Return the Worksheet in the TOML or JSON file at ``path``; raise InputError if invalid."""
+    path = Path(path)
+    return parse_worksheet(_read_document(path), path)
+
+
+def load_worksheet(path: Path | str) -> MeasurementInputs:
+    """Return the MeasurementInputs of the worksheet at ``path``; raise InputError if invalid."""
+    return read_worksheet(path).inputs
