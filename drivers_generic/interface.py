@@ -96,6 +96,19 @@ class NotSupported(InstrumentError):
     """The instrument lacks this capability; the operator must do the step by hand."""
 
 
+class SettingOutOfRange(InstrumentError, ValueError):
+    """A setting was refused before it reached the wire: outside what the profile allows.
+
+    Nothing is clamped: the caller learns the ``field``, the ``value`` and what is ``allowed``.
+    """
+
+    def __init__(self, field: str, value: object, allowed: str) -> None:
+        super().__init__(f"{field} = {value!r} is not allowed; allowed: {allowed}")
+        self.field = field
+        self.value = value
+        self.allowed = allowed
+
+
 @dataclass(frozen=True, slots=True)
 class Identity:
     """What the instrument says it is (``*IDN?`` fields, or the profile's identity query)."""

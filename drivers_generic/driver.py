@@ -1,0 +1,256 @@
+"""The profile-driven electrometer: one driver for every dialect a profile can describe.
+
+The driver knows no instrument: it looks up a command declaration in the profile, validates its
+arguments, sends the rendered lines through a :class:`Transport`, and reads the answer the way
+the profile says — a confirmation line (``ack`` style, serial dialects) or nothing followed by a
+look at the error queue (``error_queue`` style, SCPI's ``SYST:ERR?``). An instrument error becomes
+:class:`InstrumentReportedError`; a line that fits nothing becomes :class:`ProtocolError` carrying
+the line; no answer after the profile's retries becomes :class:`InstrumentTimeout`.
+
+In push mode the instrument streams reading lines at any time: lines that arrive while the driver
+waits for a confirmation are kept, in order, for :meth:`ProfileElectrometer.next_sample`, and so
+are rejected lines (as the ProtocolError to raise there), so nothing read is lost.
+
+A reading whose status field says overrange, underrange, busy or error is returned as a Sample
+with that status: the caller records it and decides.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import deque
+from collections.abc import Callable
+from typing import TypeVar
+
+from chargebook.drivers_generic.interface import (
+    Capability,
+    Identity,
+    InstrumentReportedError,
+    InstrumentTimeout,
+    NotSupported,
+    ProtocolError,
+    Sample,
+)
+from chargebook.drivers_generic.lines import decode_line, parse_identity, parse_reading
+from chargebook.drivers_generic.profile import COMMAND_CAPABILITY, CommandSpec, Profile
+from chargebook.drivers_generic.transport import ReceivedLine, Transport
+
+T = TypeVar("T")
+
+#: The most error-queue entries read after one command (a queue that never empties is a fault).
+MAX_ERROR_QUEUE_ENTRIES = 32
+
+
+class _NoReply(Exception):
+    """Nothing arrived within the timeout (internal: becomes a retry, then InstrumentTimeout)."""
+
+
+class ProfileElectrometer:
+    """An :class:`~chargebook.drivers_generic.interface.Electrometer` driven by a profile."""
+
+    def __init__(
+        self,
+        profile: Profile,
+        transport: Transport,
+        *,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        self.profile = profile
+        self.transport = transport
+        self.clock = clock
+        self._pending: deque[Sample | ProtocolError] = deque()
+
+    # -- the Electrometer interface ------------------------------------------------------------
+    @property
+    def capabilities(self) -> frozenset[Capability]:
+        """Return what this instrument can be asked to do over its wire."""
+        return self.profile.capabilities
+
+    def open(self) -> None:
+        """Open (or re-open, after InstrumentDisconnected) the transport with no stale input."""
+        if self.transport.is_open:
+            self.transport.close()
+        self._pending.clear()
+        self.transport.open()
+        self.transport.discard_input()
+
+    def close(self) -> None:
+        """Close the transport; a partial line still buffered is recorded as traffic."""
+        self.transport.close()
+
+    def identify(self) -> Identity:
+        """Return what the instrument says it is."""
+        identity = self.profile.identity
+        if identity is None:
+            raise NotSupported(f"profile {self.profile.name} declares no identity reply")
+        encoding = self.profile.framing.encoding
+        return self._run("identify", lambda line: parse_identity(identity, line.raw, encoding))
+
+    def zero(self) -> None:
+        """Reset the integrator to zero charge."""
+        self._run("zero", self._confirmation)
+
+    def start_integration(self) -> None:
+        """Start integrating charge."""
+        self._run("start", self._confirmation)
+
+    def stop_integration(self) -> None:
+        """Stop integrating; the charge holds."""
+        self._run("stop", self._confirmation)
+
+    def read_charge(self) -> Sample:
+        """Return the integrated charge now, in nC, with the instrument's status."""
+        return self._run("read", self._reading)
+
+    def next_sample(self, timeout_s: float) -> Sample | None:
+        """Return the next reading line the instrument sends unasked, or None after timeout_s."""
+        if self._pending:
+            return self._unqueue()
+        deadline = time.monotonic() + timeout_s
+        while True:
+            line = self.transport.read_line(max(deadline - time.monotonic(), 0.0))
+            if line is None:
+                return None
+            if not self._is_confirmation(line):
+                return self._reading(line)
+
+    def set_bias(self, volts: float) -> None:
+        """Set the chamber bias in volts, signed; refused outside the profile's limits."""
+        self._run("set_bias", self._confirmation, volts=volts)
+
+    def set_range(self, name: str) -> None:
+        """Select a measurement range by the profile's name for it."""
+        self._run("set_range", self._confirmation, range=name)
+
+    # -- commands ------------------------------------------------------------------------------
+    def _spec(self, name: str) -> CommandSpec:
+        capability = COMMAND_CAPABILITY[name]
+        if capability not in self.profile.capabilities:
+            raise NotSupported(
+                f"{self.profile.name} cannot {name.replace('_', ' ')} over its wire "
+                f"(no '{capability}' capability): the operator does this step by hand"
+            )
+        return self.profile.command(name)
+
+    def _run(self, name: str, interpret: Callable[[ReceivedLine], T], **arguments: object) -> T:
+        spec = self._spec(name)
+        result = None
+        for line in spec.render(**arguments):
+            if spec.parser == "ack" and self.profile.confirmation.style == "error_queue":
+                self.transport.write_line(line)
+                self._check_error_queue(line)
+            else:
+                result = self._exchange(line, interpret)
+        return result  # type: ignore[return-value]
+
+    def _exchange(self, line: str, interpret: Callable[[ReceivedLine], T]) -> T:
+        """Send ``line`` and return its interpreted answer, resending on silence."""
+        timing = self.profile.timing
+        for _ in range(timing.retries + 1):
+            self.transport.write_line(line)
+            try:
+                return self._await_answer(interpret, timing.timeout_s)
+            except _NoReply:
+                continue
+        if self.profile.confirmation.style == "error_queue":
+            self._check_error_queue(line)
+        raise InstrumentTimeout(
+            f"{self.profile.name}: no answer to {line!r} after {timing.retries + 1} attempt(s) "
+            f"of {timing.timeout_s} s"
+        )
+
+    def _await_answer(self, interpret: Callable[[ReceivedLine], T], timeout_s: float) -> T:
+        push = self.profile.mode == "push"
+        deadline = time.monotonic() + timeout_s
+        while True:
+            remaining = deadline - time.monotonic()
+            try:
+                line = self.transport.read_line(max(remaining, 0.0))
+                if line is None:
+                    raise _NoReply
+                if push and interpret != self._reading and self._keep_if_reading(line):
+                    continue
+                return interpret(line)
+            except ProtocolError as error:
+                if not push:
+                    raise
+                self._pending.append(error)
+
+    def _check_error_queue(self, command: str) -> None:
+        """Read the error queue until it reports no error; raise if it held any."""
+        confirmation = self.profile.confirmation
+        errors: list[str] = []
+        for _ in range(MAX_ERROR_QUEUE_ENTRIES):
+            code, message = self._exchange(confirmation.error_query, self._error_entry)
+            if code == confirmation.no_error_code:
+                break
+            errors.append(f"{code},{message}")
+        else:
+            errors.append(f"(error queue still not empty after {MAX_ERROR_QUEUE_ENTRIES} reads)")
+        if errors:
+            raise InstrumentReportedError(
+                f"{self.profile.name} reported after {command!r}: " + "; ".join(errors)
+            )
+
+    # -- interpreting answers ------------------------------------------------------------------
+    def _text(self, line: ReceivedLine) -> str:
+        return decode_line(line.raw, self.profile.framing.encoding)
+
+    def _confirmation(self, line: ReceivedLine) -> None:
+        confirmation = self.profile.confirmation
+        text = self._text(line)
+        if confirmation.ack_pattern is not None and confirmation.ack_pattern.fullmatch(text):
+            return None
+        self._raise_if_refusal(text)
+        raise ProtocolError(f"expected a confirmation, got {text[:80]!r}", line.raw)
+
+    def _reading(self, line: ReceivedLine) -> Sample:
+        profile = self.profile
+        try:
+            return parse_reading(profile.reading, line.raw, line.t_s, profile.framing.encoding)
+        except ProtocolError:
+            self._raise_if_refusal(self._text(line))
+            raise
+
+    def _error_entry(self, line: ReceivedLine) -> tuple[int, str]:
+        text = self._text(line)
+        match = self.profile.confirmation.error_pattern.fullmatch(text)
+        if match is None:
+            raise ProtocolError(f"expected an error-queue entry, got {text[:80]!r}", line.raw)
+        return int(match["code"]), match["message"]
+
+    def _raise_if_refusal(self, text: str) -> None:
+        confirmation = self.profile.confirmation
+        if confirmation.style != "ack" or confirmation.error_pattern is None:
+            return
+        match = confirmation.error_pattern.fullmatch(text)
+        if match is not None:
+            code = match["code"]
+            meaning = confirmation.error_messages.get(code, "no description in the profile")
+            raise InstrumentReportedError(
+                f"{self.profile.name} refused the command: error {code} ({meaning})"
+            )
+
+    def _is_confirmation(self, line: ReceivedLine) -> bool:
+        """Return True for a stray confirmation (a late ack), which carries no reading."""
+        pattern = self.profile.confirmation.ack_pattern
+        if pattern is None:
+            return False
+        try:
+            return pattern.fullmatch(self._text(line)) is not None
+        except ProtocolError:
+            return False
+
+    def _keep_if_reading(self, line: ReceivedLine) -> bool:
+        try:
+            sample = self._reading(line)
+        except (ProtocolError, InstrumentReportedError):
+            return False
+        self._pending.append(sample)
+        return True
+
+    def _unqueue(self) -> Sample:
+        item = self._pending.popleft()
+        if isinstance(item, ProtocolError):
+            raise item
+        return item

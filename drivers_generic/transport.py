@@ -1,0 +1,287 @@
+"""The one transport interface: write a line, read a line with a timeout.
+
+:class:`Transport` does the framing for every wire in one place: it adds the write terminator,
+cuts received bytes into lines at the read terminator, refuses over-long lines (they are reported
+and skipped up to the next terminator, never buffered forever), logs every line at DEBUG and calls
+the :data:`TrafficListener` for every line sent or received. Subclasses only move bytes:
+:class:`SerialTransport` (pyserial), :class:`VisaTransport` (pyvisa ``@py``) and
+:class:`ScriptedTransport` (a list of (command, reply) pairs, for protocol tests that read like
+the instrument's manual).
+
+Reads never sleep: they wait on the port with the caller's timeout, so a flood of lines is read
+as fast as it arrives.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from abc import ABC, abstractmethod
+from collections.abc import Callable, Iterable, Sequence
+from typing import NamedTuple
+
+from chargebook.drivers_generic.interface import (
+    InstrumentDisconnected,
+    ProtocolError,
+    TrafficDirection,
+    TrafficListener,
+)
+from chargebook.drivers_generic.profile import Framing
+
+wire_log = logging.getLogger("chargebook.drivers_generic.wire")
+
+
+class ReceivedLine(NamedTuple):
+    """One line as received: ``t_s`` on the transport's clock, ``raw`` without its terminator."""
+
+    t_s: float
+    raw: bytes
+
+
+class Transport(ABC):
+    """Base of every transport: framing, over-long line refusal, DEBUG logging, traffic calls."""
+
+    def __init__(
+        self,
+        framing: Framing,
+        *,
+        traffic: TrafficListener | None = None,
+        clock: Callable[[], float] = time.monotonic,
+        name: str = "",
+    ) -> None:
+        self.framing = framing
+        self.traffic = traffic
+        self.clock = clock
+        self.name = name
+        self._buffer = bytearray()
+        self._discarding = False
+        self._open_now = False
+
+    # -- what subclasses implement -------------------------------------------------------------
+    @abstractmethod
+    def _open(self) -> None:
+        """Open the wire; raise InstrumentDisconnected when it is not there."""
+
+    @abstractmethod
+    def _close(self) -> None: ...
+
+    @abstractmethod
+    def _write(self, data: bytes) -> None:
+        """Send bytes; raise InstrumentDisconnected when the wire is gone."""
+
+    @abstractmethod
+    def _read_available(self, timeout_s: float) -> bytes | None:
+        """Return the bytes that arrive within ``timeout_s`` (b"" if none); never sleep longer.
+
+        None means "nothing can arrive before the next write" (a script), so stop waiting.
+        """
+
+    # -- the interface -------------------------------------------------------------------------
+    @property
+    def is_open(self) -> bool:
+        """Return True while the wire is open."""
+        return self._open_now
+
+    def open(self) -> None:
+        """Open the wire with an empty receive buffer."""
+        self._buffer.clear()
+        self._discarding = False
+        self._open()
+        self._open_now = True
+
+    def close(self) -> None:
+        """Close the wire; a partial line still buffered is recorded as received traffic."""
+        self._flush_partial()
+        if self._open_now:
+            self._open_now = False
+            self._close()
+
+    def write_line(self, line: str | bytes) -> None:
+        """Send one line, adding the profile's write terminator."""
+        if not self._open_now:
+            raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
+        data = (line.encode(self.framing.encoding) if isinstance(line, str) else line) + (
+            self.framing.write_terminator
+        )
+        self._record(TrafficDirection.SENT, data)
+        try:
+            self._write(data)
+        except InstrumentDisconnected:
+            self._lost()
+            raise
+
+    def read_line(self, timeout_s: float) -> ReceivedLine | None:
+        """Return the next complete line within ``timeout_s`` seconds, or None on timeout.
+
+        Raises ProtocolError (carrying the first ``max_line_bytes`` bytes) for an over-long line,
+        and InstrumentDisconnected when the wire goes away.
+        """
+        if not self._open_now:
+            raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
+        deadline = time.monotonic() + timeout_s
+        while True:
+            line = self._take_line()
+            if line is not None:
+                return line
+            remaining = deadline - time.monotonic()
+            try:
+                chunk = self._read_available(max(remaining, 0.0))
+            except InstrumentDisconnected:
+                self._lost()
+                raise
+            if chunk:
+                self._buffer += chunk
+            elif chunk is None or remaining <= 0:
+                return None
+
+    def discard_input(self) -> None:
+        """Drop whatever arrived and was not read yet (stale lines from before an open)."""
+        self._buffer.clear()
+        self._discarding = False
+        for _ in range(1000):  # bounded: an instrument that streams never runs dry
+            if not (self._open_now and self._read_available(0.0)):
+                break
+
+    # -- framing -------------------------------------------------------------------------------
+    def _take_line(self) -> ReceivedLine | None:
+        terminator = self.framing.read_terminator
+        limit = self.framing.max_line_bytes
+        while True:
+            end = self._buffer.find(terminator)
+            if self._discarding:
+                if end < 0:
+                    keep = len(terminator) - 1
+                    del self._buffer[: max(len(self._buffer) - keep, 0)]
+                    return None
+                del self._buffer[: end + len(terminator)]
+                self._discarding = False
+                continue
+            if end < 0:
+                if len(self._buffer) > limit:
+                    self._refuse_long_line(bytes(self._buffer[:limit]))
+                return None
+            data = bytes(self._buffer[: end + len(terminator)])
+            del self._buffer[: end + len(terminator)]
+            t_s = self._record(TrafficDirection.RECEIVED, data)
+            if end > limit:
+                raise ProtocolError(f"line longer than {limit} bytes", data[:limit])
+            return ReceivedLine(t_s, data[:end])
+
+    def _refuse_long_line(self, head: bytes) -> None:
+        self._buffer.clear()
+        self._discarding = True
+        self._record(TrafficDirection.RECEIVED, head)
+        limit = self.framing.max_line_bytes
+        raise ProtocolError(f"line longer than {limit} bytes without a terminator", head)
+
+    def _record(self, direction: TrafficDirection, data: bytes) -> float:
+        t_s = self.clock()
+        if wire_log.isEnabledFor(logging.DEBUG):
+            wire_log.debug("%s %s %r", self.name, direction.value, data)
+        if self.traffic is not None:
+            self.traffic(direction, t_s, data)
+        return t_s
+
+    def _flush_partial(self) -> None:
+        if self._buffer and not self._discarding:
+            self._record(TrafficDirection.RECEIVED, bytes(self._buffer))
+        self._buffer.clear()
+        self._discarding = False
+
+    def _lost(self) -> None:
+        self._flush_partial()
+        self._open_now = False
+        try:
+            self._close()
+        except Exception:  # the wire is already gone; closing it is best effort
+            wire_log.debug("%s: close after loss failed", self.name, exc_info=True)
+
+
+class ScriptMismatch(AssertionError):
+    """A scripted exchange did not go as the script says (unexpected command, unused pair)."""
+
+
+#: A reply that stands for "the cable was pulled here".
+DISCONNECT = object()
+
+
+class ScriptedTransport(Transport):
+    """A transport that plays an instrument from a script of (command, reply) pairs.
+
+    ``command`` is the line the driver must send (without terminator), or None for lines the
+    instrument sends unasked. ``reply`` is a line, a list of lines, None for no answer at all, or
+    :data:`DISCONNECT`. A str gets the profile's read terminator; bytes are delivered exactly as
+    given (garbled, partial or over-long lines). Sending anything other than the next expected
+    command raises ScriptMismatch; so does :meth:`verify` (called by close) if pairs are unused.
+    """
+
+    def __init__(
+        self,
+        framing: Framing,
+        pairs: Iterable[tuple[str | None, object]],
+        *,
+        traffic: TrafficListener | None = None,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        super().__init__(framing, traffic=traffic, clock=clock, name="script")
+        self._pairs = list(pairs)
+        self._incoming = bytearray()
+        self._gone = False
+        self.sent: list[bytes] = []
+        self._deliver_unasked()
+
+    def _open(self) -> None:
+        if self._gone:
+            raise InstrumentDisconnected("scripted instrument is disconnected")
+
+    def _close(self) -> None:
+        pass
+
+    def close(self) -> None:
+        """Close, then fail if the script has pairs the driver never used."""
+        super().close()
+        self.verify()
+
+    def verify(self) -> None:
+        """Raise ScriptMismatch if any scripted pair was not used."""
+        if self._pairs:
+            raise ScriptMismatch(f"unused scripted pairs: {self._pairs!r}")
+
+    def _write(self, data: bytes) -> None:
+        if self._gone:
+            raise InstrumentDisconnected("scripted instrument is disconnected")
+        self.sent.append(data)
+        line = data[: -len(self.framing.write_terminator)].decode(self.framing.encoding)
+        if not self._pairs or self._pairs[0][0] != line:
+            expected = self._pairs[0][0] if self._pairs else "nothing more"
+            raise ScriptMismatch(f"driver sent {line!r}; the script expects {expected!r}")
+        _, reply = self._pairs.pop(0)
+        self._queue(reply)
+        self._deliver_unasked()
+
+    def _deliver_unasked(self) -> None:
+        while self._pairs and self._pairs[0][0] is None:
+            _, reply = self._pairs.pop(0)
+            self._queue(reply)
+
+    def _queue(self, reply: object) -> None:
+        if reply is None:
+            return
+        if reply is DISCONNECT:
+            self._gone = True
+            return
+        replies: Sequence = reply if isinstance(reply, list) else [reply]
+        for item in replies:
+            data = item.encode(self.framing.encoding) if isinstance(item, str) else bytes(item)
+            if isinstance(item, str):
+                data += self.framing.read_terminator
+            self._incoming += data
+
+    def _read_available(self, timeout_s: float) -> bytes | None:
+        if self._incoming:
+            data = bytes(self._incoming)
+            self._incoming.clear()
+            return data
+        if self._gone:
+            raise InstrumentDisconnected("scripted instrument is disconnected")
+        return None

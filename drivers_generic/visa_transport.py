@@ -1,0 +1,137 @@
+"""Lines over a VISA resource with pyvisa's pure-Python backend (``@py``).
+
+Resources such as ``TCPIP::127.0.0.1::5025::SOCKET`` or ``ASRL/dev/ttyUSB0::INSTR``. pyvisa is
+imported when the resource is opened. pyvisa-py reports a peer that closed a socket as a plain
+timeout, so after a timeout the socket is checked, and a closed peer becomes
+InstrumentDisconnected rather than an endless run of timeouts.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import socket
+import time
+from collections.abc import Callable
+from typing import Any
+
+from chargebook.drivers_generic.interface import InstrumentDisconnected, TrafficListener
+from chargebook.drivers_generic.profile import Framing, PortSettings
+from chargebook.drivers_generic.transport import Transport
+
+_PARITY_NAMES = {"N": "none", "E": "even", "O": "odd", "M": "mark", "S": "space"}
+_STOPBITS_NAMES = {1: "one", 1.5: "one_and_a_half", 2: "two"}
+
+
+class VisaTransport(Transport):
+    """Lines over a pyvisa ``@py`` resource; the serial settings apply to ASRL resources."""
+
+    def __init__(
+        self,
+        resource: str,
+        framing: Framing,
+        *,
+        settings: PortSettings | None = None,
+        open_timeout_s: float = 2.0,
+        traffic: TrafficListener | None = None,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        super().__init__(framing, traffic=traffic, clock=clock, name=resource)
+        self.resource = resource
+        self.settings = settings
+        self.open_timeout_s = open_timeout_s
+        self._manager: Any = None
+        self._instrument: Any = None
+        self._timeout_ms: float | None = None
+
+    def _open(self) -> None:
+        import pyvisa
+
+        try:
+            if self._manager is None:
+                self._manager = pyvisa.ResourceManager("@py")
+            instrument = self._manager.open_resource(
+                self.resource, open_timeout=int(self.open_timeout_s * 1000)
+            )
+        except Exception as error:  # pyvisa-py raises bare Exception when a socket is refused
+            raise InstrumentDisconnected(
+                f"cannot open VISA resource {self.resource}: {error}"
+            ) from None
+        self._instrument = instrument
+        self._timeout_ms = None
+        instrument.read_termination = self.framing.read_terminator[-1:].decode("latin-1")
+        instrument.write_termination = ""
+        if self.settings is not None and self.resource.upper().startswith("ASRL"):
+            self._apply_serial_settings(instrument)
+        if self._peer_closed():
+            self._close()
+            raise InstrumentDisconnected(f"VISA resource {self.resource} refused the connection")
+
+    def _apply_serial_settings(self, instrument: Any) -> None:
+        from pyvisa import constants
+
+        settings = self.settings
+        instrument.baud_rate = settings.baud
+        instrument.data_bits = settings.bytesize
+        instrument.parity = getattr(constants.Parity, _PARITY_NAMES[settings.parity])
+        instrument.stop_bits = getattr(constants.StopBits, _STOPBITS_NAMES[settings.stopbits])
+
+    def _close(self) -> None:
+        instrument, self._instrument = self._instrument, None
+        if instrument is not None:
+            # a session whose peer vanished may refuse to close cleanly
+            with contextlib.suppress(Exception):
+                instrument.close()
+
+    def _write(self, data: bytes) -> None:
+        import pyvisa
+
+        try:
+            self._instrument.write_raw(data)
+        except (pyvisa.Error, OSError) as error:
+            raise InstrumentDisconnected(
+                f"VISA resource {self.resource} went away: {error}"
+            ) from None
+
+    def _read_available(self, timeout_s: float) -> bytes:
+        import pyvisa
+        from pyvisa import constants
+
+        timeout_ms = max(1, round(timeout_s * 1000))
+        if timeout_ms != self._timeout_ms:
+            self._instrument.timeout = timeout_ms
+            self._timeout_ms = timeout_ms
+        try:
+            return self._instrument.read_raw()
+        except pyvisa.VisaIOError as error:
+            if error.error_code == constants.StatusCode.error_timeout and not self._peer_closed():
+                return b""
+            raise InstrumentDisconnected(
+                f"VISA resource {self.resource} went away: {error}"
+            ) from None
+        except (pyvisa.Error, OSError) as error:
+            raise InstrumentDisconnected(
+                f"VISA resource {self.resource} went away: {error}"
+            ) from None
+
+    def _peer_closed(self) -> bool:
+        """Return True when the resource is a socket whose far end has closed or refused."""
+        sock = self._socket()
+        if sock is None:
+            return False
+        try:
+            if sock.getsockopt(socket.SOL_SOCKET, socket.SO_ERROR):
+                return True
+            return sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT) == b""
+        except BlockingIOError:
+            return False
+        except OSError:
+            return True
+
+    def _socket(self) -> socket.socket | None:
+        instrument = self._instrument
+        if instrument is None:
+            return None
+        sessions = getattr(instrument.visalib, "sessions", {})
+        session = sessions.get(instrument.session) if isinstance(sessions, dict) else None
+        interface = getattr(session, "interface", None)
+        return interface if isinstance(interface, socket.socket) else None
