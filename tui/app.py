@@ -1,0 +1,201 @@
+"""The operator console: a Textual app attached to the daemon, holding no measurement state.
+
+``ConsoleApp`` keeps one connection to the daemon in a background worker: it subscribes, passes
+every snapshot down to the screen that shows it, and reconnects with backoff when the daemon
+goes away ("Not connected to the daemon — retrying…"). Operator actions are requests sent
+through :meth:`ConsoleApp.call_daemon`. Closing the console never stops a measurement.
+"""
+
+from __future__ import annotations
+
+import asyncio
+from collections.abc import Awaitable, Callable, Mapping
+from pathlib import Path
+from typing import Any, ClassVar
+
+from chargebook.acquire.client import ConnectionLost, DaemonClient
+from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
+from chargebook.tui import snapshot_view
+from chargebook.tui.messages import LinkChanged, LinkStatus, SetupFinished, SnapshotArrived
+from chargebook.tui.screens.base import ConsoleScreen
+from chargebook.tui.screens.measure import MeasureScreen
+from chargebook.tui.screens.setup import SetupScreen
+from chargebook.tui.screens.summary import SummaryScreen
+from chargebook.tui.widgets.status_line import NOT_CONNECTED
+from textual import on, work
+from textual.app import App, ComposeResult
+from textual.binding import Binding, BindingType
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+#: Opens a connection to the daemon at a socket path (``DaemonClient.connect`` by default).
+ClientFactory = Callable[[str], Awaitable[DaemonClient]]
+
+#: First and longest wait between attempts to reach the daemon, in seconds.
+RETRY_FIRST_S = 0.2
+RETRY_LONGEST_S = 2.0
+
+
+class ConsoleApp(App[int]):
+    """The console. Give it the daemon's socket path (or a client factory) and run it."""
+
+    TITLE = "chargebook console"
+    CSS_PATH = "console.tcss"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding(
+            "ctrl+q", "quit", "Quit", priority=True, tooltip="Close the console; measuring goes on"
+        )
+    ]
+
+    def __init__(
+        self,
+        socket_path: str | Path,
+        *,
+        operator: str | None = None,
+        setup_defaults: Mapping[str, Any] | None = None,
+        client_factory: ClientFactory | None = None,
+    ) -> None:
+        super().__init__()
+        self.socket_path = str(socket_path)
+        self.operator = operator
+        self.setup_defaults: dict[str, Any] = dict(setup_defaults or {})
+        self.client_factory = client_factory or self._connect
+        self.client: DaemonClient | None = None
+        self.snapshot: dict[str, Any] | None = None
+        self.link = LinkStatus(False, NOT_CONNECTED)
+        self._latest_seq = -1
+
+    def compose(self) -> ComposeResult:
+        yield Static(f"Connecting to the daemon at {self.socket_path}…", id="connecting")
+
+    def on_mount(self) -> None:
+        self.follow_daemon()
+
+    # -- the daemon link ---------------------------------------------------------------------
+    async def _connect(self, socket_path: str) -> DaemonClient:
+        return await DaemonClient.connect(socket_path, client="console", operator=self.operator)
+
+    @work(exclusive=True, group="daemon-link")
+    async def follow_daemon(self) -> None:
+        """Stay attached to the daemon: subscribe, relay snapshots, reconnect with backoff."""
+        delay_s = RETRY_FIRST_S
+        while True:
+            try:
+                client = await self.client_factory(self.socket_path)
+            except (OSError, ConnectionLost) as error:
+                self.post_message(LinkChanged(LinkStatus(False, f"{NOT_CONNECTED} ({error})")))
+                await asyncio.sleep(delay_s)
+                delay_s = min(2 * delay_s, RETRY_LONGEST_S)
+                continue
+            delay_s = RETRY_FIRST_S
+            await self._relay(client)
+            self.post_message(LinkChanged(LinkStatus(False, NOT_CONNECTED)))
+
+    async def _relay(self, client: DaemonClient) -> None:
+        self.client = client
+        try:
+            snapshot = await client.subscribe()
+            self.post_message(LinkChanged(LinkStatus(True, "Connected to the daemon")))
+            self.post_message(SnapshotArrived(snapshot))
+            async for note in client.notifications():
+                if note.method == NOTIFY_SNAPSHOT and isinstance(note.params, dict):
+                    self.post_message(SnapshotArrived(note.params))
+        except ConnectionLost:
+            pass
+        finally:
+            self.client = None
+            await client.close()
+
+    async def call_daemon(self, method: str, **params: Any) -> Any:
+        """Send one request to the daemon and return its result.
+
+        Raises ``DaemonError`` when the daemon refuses (its message names the field) and
+        ``ConnectionLost`` when the console is not attached.
+        """
+        if self.client is None or not self.client.connected:
+            raise ConnectionLost("not connected to the daemon; retrying in the background")
+        return await self.client.call(method, **params)
+
+    # -- passing the state down --------------------------------------------------------------
+    @on(SnapshotArrived)
+    def snapshot_arrived(self, message: SnapshotArrived) -> None:
+        seq = int(message.snapshot.get("seq", 0))
+        if seq < self._latest_seq:
+            return  # overtaken by a newer snapshot on the same connection
+        self._latest_seq = seq
+        self.snapshot = message.snapshot
+        self._remember_details(message.snapshot)
+        self._route()
+
+    @on(LinkChanged)
+    def link_changed(self, message: LinkChanged) -> None:
+        self.link = message.status
+        if not self.link.connected:
+            self._latest_seq = -1  # a restarted daemon counts its snapshots afresh
+        self._route()
+
+    @on(SetupFinished)
+    def setup_finished(self) -> None:
+        self._route()
+
+    def _remember_details(self, snapshot: dict[str, Any]) -> None:
+        """Keep the last session's details and air data to offer them for the next session."""
+        session = snapshot.get("session")
+        if session:
+            self.setup_defaults.update(session.get("metadata") or {})
+        environment = snapshot.get("environment")
+        if environment:
+            self.setup_defaults.update(environment)
+
+    @property
+    def main_screen(self) -> ConsoleScreen | None:
+        """Return the main screen under any open dialog, or None before the first snapshot."""
+        for screen in reversed(self.screen_stack):
+            if isinstance(screen, ConsoleScreen):
+                return screen
+        return None
+
+    def _route(self) -> None:
+        """Show the screen the latest snapshot belongs to, and pass the snapshot down."""
+        current = self.main_screen
+        if self.snapshot is None:
+            if current is not None:
+                current.show(self.snapshot, self.link)
+            return
+        wanted = snapshot_view.screen_for(self.snapshot)
+        if current is not None and (current.kind == wanted or current.holds_screen()):
+            current.show(self.snapshot, self.link)
+            return
+        while isinstance(self.screen, ModalScreen):
+            self.pop_screen()
+        screen = self._new_screen(wanted)
+        screen.show(self.snapshot, self.link)
+        if current is None:
+            self.push_screen(screen)
+        else:
+            self.switch_screen(screen)
+
+    def _new_screen(self, kind: str) -> ConsoleScreen:
+        if kind == "measure":
+            return MeasureScreen(self.call_daemon)
+        if kind == "summary":
+            return SummaryScreen(self.call_daemon)
+        return SetupScreen(self.call_daemon, self.setup_defaults)
+
+
+def run_console(
+    socket_path: str | Path,
+    *,
+    operator: str | None = None,
+    setup_defaults: Mapping[str, Any] | None = None,
+) -> int:
+    """Run the console attached to the daemon at ``socket_path``; return the exit status (0).
+
+    ``setup_defaults`` pre-fills the session form (keys of ``session_meta`` plus
+    ``temperature_C``, ``pressure_entered`` and ``pressure_unit``). Closing the console leaves
+    the daemon and any measurement running.
+    """
+    app = ConsoleApp(socket_path, operator=operator, setup_defaults=setup_defaults)
+    result = app.run()
+    return 0 if result is None else int(result)

@@ -1,0 +1,68 @@
+"""What every main screen of the console shares: the status line and how it is fed."""
+
+from __future__ import annotations
+
+from collections.abc import Awaitable, Callable
+from typing import Any
+
+from chargebook.tui.messages import LinkStatus
+from chargebook.tui.widgets.status_line import StatusLine
+from textual.screen import Screen
+
+#: Sends one request to the daemon and returns its result (``ConsoleApp.call_daemon``).
+Sender = Callable[..., Awaitable[Any]]
+
+
+class ConsoleScreen(Screen):
+    """A main screen: shown from the latest snapshot, never holding measurement state.
+
+    The app calls :meth:`show` after every snapshot and every change of the daemon link; a
+    subclass draws the snapshot in :meth:`render_snapshot`.
+    """
+
+    #: Which snapshots this screen is for ("setup", "measure" or "summary").
+    kind: str = ""
+
+    def __init__(self, send: Sender) -> None:
+        super().__init__()
+        self.send = send
+        self.snapshot: dict[str, Any] | None = None
+        self.link = LinkStatus(False, "")
+        self._shown_allowed: list[str] | None = None
+        self._composed = False
+
+    @property
+    def status_line(self) -> StatusLine:
+        """Return the line that says whether the daemon and electrometer are there."""
+        return self.query_one(StatusLine)
+
+    def holds_screen(self) -> bool:
+        """Return True while this screen must stay although the snapshot belongs elsewhere."""
+        return False
+
+    def show(self, snapshot: dict[str, Any] | None, link: LinkStatus) -> None:
+        """Show the latest snapshot and link status (called by the app, downward)."""
+        self.snapshot, self.link = snapshot, link
+        if not self._composed:
+            return
+        self.status_line.link = link
+        self.status_line.snapshot = snapshot
+        if snapshot is not None:
+            self.render_snapshot(snapshot)
+        allowed = self.allowed()
+        if allowed != self._shown_allowed:
+            self._shown_allowed = allowed
+            self.refresh_bindings()
+
+    def on_mount(self) -> None:
+        self._composed = True
+        self.show(self.snapshot, self.link)
+
+    def render_snapshot(self, snapshot: dict[str, Any]) -> None:
+        """Draw ``snapshot``; each screen shows its own part of it."""
+
+    def allowed(self) -> list[str]:
+        """Return the actions the daemon allows now (none while not connected)."""
+        if not self.link.connected or self.snapshot is None:
+            return []
+        return list(self.snapshot.get("allowed") or [])

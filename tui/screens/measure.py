@@ -1,0 +1,156 @@
+"""The measurement view: the step, what to do now, the set as it arrives, results, history.
+
+Keys and buttons come from :data:`chargebook.tui.actions.ACTIONS`; each is enabled exactly
+when the daemon's snapshot allows it. Redo asks for a reason, abort asks to confirm, and a new
+temperature and pressure open their own entry form.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+from chargebook.acquire.client import ConnectionLost, DaemonError
+from chargebook.acquire.protocol import Method
+from chargebook.tui.actions import ACTIONS, ACTIONS_BY_NAME, is_allowed
+from chargebook.tui.messages import ActionRequested
+from chargebook.tui.screens.base import ConsoleScreen
+from chargebook.tui.screens.dialogs import ConfirmScreen, redo_question
+from chargebook.tui.screens.environment import EnvironmentScreen
+from chargebook.tui.widgets.action_bar import ActionBar
+from chargebook.tui.widgets.history import SetHistory
+from chargebook.tui.widgets.plan_view import PlanView
+from chargebook.tui.widgets.reading_set import ReadingSetPanel
+from chargebook.tui.widgets.results_panel import ResultsPanel
+from chargebook.tui.widgets.status_line import StatusLine
+from chargebook.tui.widgets.step_panel import StepPanel
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal, VerticalScroll
+from textual.widgets import Footer, TabbedContent, TabPane
+
+#: Actions that go straight to the daemon, without a question first.
+DIRECT_METHODS: dict[str, str] = {
+    "arm": Method.STEP_ARM,
+    "capture": Method.READING_CAPTURE,
+    "accept": Method.SET_ACCEPT,
+    "pause": Method.SESSION_PAUSE,
+    "resume": Method.SESSION_RESUME,
+    "manual_done": Method.STEP_MANUAL_DONE,
+    "skip": Method.STEP_SKIP,
+}
+
+TABS: tuple[tuple[str, str, str], ...] = (
+    ("1", "now", "Now 1"),
+    ("2", "sets", "Sets 2"),
+    ("3", "plan", "Plan 3"),
+)
+
+
+class MeasureScreen(ConsoleScreen):
+    """The screen for an open session: everything the operator needs at each step."""
+
+    kind = "measure"
+    BINDINGS: ClassVar[list[BindingType]] = [
+        *(
+            Binding(action.key, f"do('{action.name}')", action.label, tooltip=action.help)
+            for action in ACTIONS
+        ),
+        *(Binding(key, f"show_tab('{tab}')", title, show=False) for key, tab, title in TABS),
+    ]
+
+    def compose(self) -> ComposeResult:
+        yield StatusLine(id="status-line")
+        yield StepPanel(id="step-panel")
+        with TabbedContent(id="measure-tabs", initial="now"):
+            with TabPane(TABS[0][2], id="now"), Horizontal(id="now-columns"):
+                yield ReadingSetPanel(id="reading-set")
+                yield ResultsPanel(id="results")
+            with TabPane(TABS[1][2], id="sets"):
+                yield SetHistory(id="set-history")
+            with TabPane(TABS[2][2], id="plan"), VerticalScroll():
+                yield PlanView(id="plan-view")
+        yield ActionBar(id="action-bar")
+        yield Footer(compact=True, show_command_palette=False)
+
+    # -- drawing, from the latest snapshot only --------------------------------------------
+    def render_snapshot(self, snapshot: dict[str, Any]) -> None:
+        self.query_one(StepPanel).snapshot = snapshot
+        self.query_one(ReadingSetPanel).set_info = self._shown_set(snapshot)
+        self.query_one(ResultsPanel).snapshot = snapshot
+        self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
+        self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
+        self.query_one(ActionBar).show_allowed(self.allowed())
+
+    @staticmethod
+    def _shown_set(snapshot: dict[str, Any]) -> dict[str, Any] | None:
+        """Return the set in progress, else the latest set of the current step."""
+        if snapshot.get("current_set"):
+            return snapshot["current_set"]
+        step_sets = [
+            s for s in snapshot.get("sets") or [] if s["step_index"] == snapshot.get("step_index")
+        ]
+        return step_sets[-1] if step_sets else None
+
+    # -- keys and buttons ------------------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Enable an operator action only when the daemon allows it; rare ones hide instead."""
+        if action != "do":
+            return True
+        operator_action = ACTIONS_BY_NAME[str(parameters[0])]
+        if is_allowed(operator_action, self.allowed()):
+            return True
+        return False if operator_action.hidden_unless_allowed else None
+
+    @on(ActionRequested)
+    async def button_action(self, message: ActionRequested) -> None:
+        await self.run_action(f"do('{message.name}')")
+
+    def action_show_tab(self, tab: str) -> None:
+        """Show one of the tabs: the set now, the history of sets, or the plan."""
+        self.query_one(TabbedContent).active = tab
+
+    def action_do(self, name: str) -> None:
+        """Carry out the operator action ``name`` (see ACTIONS); questions come first."""
+        questions = {
+            "redo": self.ask_redo,
+            "abort": self.ask_abort,
+            "environment": self.ask_environment,
+        }
+        if name in DIRECT_METHODS:
+            self.request(DIRECT_METHODS[name])
+        else:
+            questions[name]()
+
+    def ask_redo(self) -> None:
+        """Ask why, then redo the set (the present one is kept, marked superseded)."""
+
+        def redo(reason: str | None) -> None:
+            if reason:
+                self.request(Method.SET_REDO, reason=reason)
+
+        self.app.push_screen(redo_question(), redo)
+
+    def ask_abort(self) -> None:
+        """Ask to confirm with a reason, then abandon the session (everything is kept)."""
+
+        def abort(reason: str | None) -> None:
+            if reason:
+                self.request(Method.SESSION_ABORT, reason=reason, confirm=True)
+
+        self.app.push_screen(ConfirmScreen(), abort)
+
+    def ask_environment(self) -> None:
+        """Open the entry form for a new air temperature and pressure."""
+        current = (self.snapshot or {}).get("environment")
+        self.app.push_screen(EnvironmentScreen(self.send, current))
+
+    @work(group="requests")
+    async def request(self, method: str, **params: Any) -> None:
+        """Send one operator action; a refusal is shown in the daemon's words."""
+        try:
+            await self.send(method, **params)
+        except DaemonError as error:
+            self.notify(str(error), title="Not done", severity="error", timeout=8)
+        except ConnectionLost as error:
+            self.notify(f"Not done: {error}", title="Daemon unreachable", severity="error")

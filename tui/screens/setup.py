@@ -1,0 +1,105 @@
+"""Session setup: metadata, calibration, convention, beam type, air temperature and pressure.
+
+Every entry is checked as it is typed. Start opens the session in the daemon, then records the
+temperature and pressure; a refusal from the daemon appears under the entry it names.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any, ClassVar
+
+from chargebook.acquire.client import ConnectionLost, DaemonError
+from chargebook.acquire.protocol import Method
+from chargebook.tui.messages import SetupFinished
+from chargebook.tui.screens.base import ConsoleScreen, Sender
+from chargebook.tui.widgets.environment_fields import EnvironmentFields
+from chargebook.tui.widgets.session_form import SessionForm
+from chargebook.tui.widgets.status_line import StatusLine
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import VerticalScroll
+from textual.widgets import Button, Footer, Static
+
+INTRO = "New session. Check each entry (Tab moves on), then press Ctrl+S to start."
+
+
+class SetupScreen(ConsoleScreen):
+    """The form for a new session; stays up until the daemon has the session and the air data."""
+
+    kind = "setup"
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("ctrl+s", "start", "Start session", priority=True),
+    ]
+
+    def __init__(self, send: Sender, defaults: Mapping[str, Any] | None = None) -> None:
+        super().__init__(send)
+        self.defaults = dict(defaults or {})
+        self.starting = False  # a request to the daemon is under way
+        self.session_opened = False  # this form opened the session; the air data are still due
+
+    def compose(self) -> ComposeResult:
+        yield StatusLine(id="status-line")
+        yield Static(INTRO, id="setup-intro")
+        with VerticalScroll(id="setup-body"):
+            yield SessionForm(self.defaults)
+            yield Static("Air at the chamber", classes="section-title")
+            yield EnvironmentFields(self.defaults)
+            yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
+        yield Static("", id="setup-problem")
+        yield Footer(compact=True, show_command_palette=False)
+
+    @property
+    def form(self) -> SessionForm:
+        """Return the session details form."""
+        return self.query_one(SessionForm)
+
+    @property
+    def environment(self) -> EnvironmentFields:
+        """Return the temperature and pressure entries."""
+        return self.query_one(EnvironmentFields)
+
+    def holds_screen(self) -> bool:
+        """Stay up while the session is being started, until the air data are recorded too."""
+        return self.starting or self.session_opened
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Offer Start when the daemon has no session open (or this form opened it)."""
+        if action == "start":
+            return Method.SESSION_START in self.allowed() or self.session_opened or None
+        return True
+
+    @on(Button.Pressed, "#start")
+    def action_start(self) -> None:
+        """Check every entry, then open the session and record the air data."""
+        metadata = self.form.metadata()
+        environment = self.environment.params()
+        if metadata is None or environment is None:
+            self._say("Not started: correct the entries marked !! first.")
+            return
+        self._start(metadata, environment)
+
+    @work(exclusive=True, group="setup")
+    async def _start(self, metadata: dict[str, Any], environment: dict[str, Any]) -> None:
+        self.starting = True
+        try:
+            if not self.session_opened:
+                await self.send(Method.SESSION_START, metadata=metadata)
+                self.session_opened = True
+            await self.send(Method.ENVIRONMENT_SET, source="console", **environment)
+        except DaemonError as error:
+            shown = self.form.show_refusal(error.field, error.message)
+            shown = shown or self.environment.show_refusal(error.field, error.message)
+            self._say("Not started: see the entry marked !!" if shown else f"!! {error}")
+            return
+        except ConnectionLost as error:
+            self._say(f"!! Not started: {error}")
+            return
+        finally:
+            self.starting = False
+        self.session_opened = False
+        self.post_message(SetupFinished())
+
+    def _say(self, message: str) -> None:
+        self.query_one("#setup-problem", Static).update(message)

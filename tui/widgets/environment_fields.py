@@ -1,0 +1,93 @@
+"""The air temperature, pressure (with its unit) and humidity entries, checked as typed."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from chargebook.acquire.protocol import PRESSURE_UNITS
+from chargebook.tui import checks
+from chargebook.tui.widgets.fields import Field, choice
+from textual import on
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual.widgets import Select
+
+#: Daemon field names (as in its error data) -> the entry that shows the problem.
+FIELD_FOR_PARAM: dict[str, str] = {
+    "temperature_C": "temperature_C",
+    "pressure": "pressure",
+    "pressure_unit": "pressure",
+    "humidity_pct": "humidity_pct",
+}
+
+
+def _entered(value: Any) -> str:
+    return "" if value is None else f"{value:g}"
+
+
+class EnvironmentFields(Vertical):
+    """Temperature in °C, pressure in kPa, hPa or mmHg, optional humidity in %."""
+
+    def __init__(self, current: Mapping[str, Any] | None = None) -> None:
+        super().__init__(classes="environment-fields")
+        self.current = dict(current or {})
+
+    def compose(self) -> ComposeResult:
+        unit = str(self.current.get("pressure_unit") or "kPa")
+        pressure = self.current.get("pressure_entered", self.current.get("pressure_kPa"))
+        yield Field(
+            "Air temperature °C",
+            "temperature_C",
+            _entered(self.current.get("temperature_C")),
+            check=checks.TEMPERATURE,
+        )
+        yield Field(
+            "Air pressure",
+            "pressure",
+            _entered(pressure),
+            check=checks.pressure_in(lambda: self.pressure_unit),
+            suffix=choice("pressure_unit", [(name, name) for name in PRESSURE_UNITS], unit),
+        )
+        yield Field(
+            "Humidity % (optional)",
+            "humidity_pct",
+            _entered(self.current.get("humidity_pct")),
+            check=checks.HUMIDITY,
+        )
+
+    @property
+    def pressure_unit(self) -> str:
+        """Return the pressure unit chosen (kPa, hPa or mmHg)."""
+        return str(self.query_one("#choice-pressure_unit", Select).value)
+
+    def field(self, name: str) -> Field:
+        """Return the entry for ``name`` (temperature_C, pressure or humidity_pct)."""
+        return self.query_one(f"#field-{name}", Field)
+
+    @on(Select.Changed, "#choice-pressure_unit")
+    def unit_changed(self) -> None:
+        self.field("pressure").recheck()
+
+    def params(self) -> dict[str, Any] | None:
+        """Return the ``environment.set`` params, or None if an entry is wrong (each says why)."""
+        fields = [self.field(name) for name in ("temperature_C", "pressure", "humidity_pct")]
+        if not all([field.recheck() for field in fields]):
+            return None
+        params: dict[str, Any] = {
+            "temperature_C": float(self.field("temperature_C").value),
+            "pressure": float(self.field("pressure").value),
+            "pressure_unit": self.pressure_unit,
+        }
+        humidity = self.field("humidity_pct").value
+        if humidity:
+            params["humidity_pct"] = float(humidity)
+        return params
+
+    def show_refusal(self, field_name: str | None, message: str) -> bool:
+        """Show the daemon's refusal under the entry it names; return False if none matches."""
+        for prefix, entry in FIELD_FOR_PARAM.items():
+            if field_name and field_name.split("[")[0].startswith(prefix):
+                self.field(entry).show_problem(message)
+                return True
+        return False

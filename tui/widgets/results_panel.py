@@ -1,0 +1,64 @@
+"""Every correction factor with its state, then corrected charge, dose, deviation, uncertainty."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from chargebook.tui import snapshot_view, text
+from rich.table import Table
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual.reactive import reactive
+from textual.widgets import Static
+
+
+def factor_table(results: dict[str, Any] | None) -> Table:
+    """Return the factor table: symbol of the chosen convention, value, state in words."""
+    table = Table(box=None, padding=(0, 1), show_edge=False, expand=True)
+    table.add_column("Factor")
+    table.add_column("Value", justify="right")
+    table.add_column("State")
+    for symbol, value, state in snapshot_view.factor_rows(results):
+        table.add_row(symbol, value, state)
+    return table
+
+
+def results_table(snapshot: dict[str, Any]) -> Table:
+    """Return the results table: raw and corrected charge, dose, per MU, deviation, u_c."""
+    table = Table(box=None, padding=(0, 1), show_header=False, show_edge=False, expand=True)
+    table.add_column("What")
+    table.add_column("Value")
+    for label, value in snapshot_view.result_rows(snapshot):
+        table.add_row(label, value)
+    return table
+
+
+def results_title(snapshot: dict[str, Any]) -> str:
+    """Return the panel title, saying when the results include a set not yet accepted."""
+    results = snapshot.get("results") or {}
+    convention = text.convention(str(results.get("convention", "")))
+    title = f"Results, {convention}" if convention else "Results"
+    if snapshot.get("results_provisional"):
+        title += " (provisional)"
+    return title
+
+
+class ResultsPanel(Vertical):
+    """Factor table, results and the session's flags, as the daemon computed them."""
+
+    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+
+    def compose(self) -> ComposeResult:
+        yield Static("Results", id="results-title", classes="panel-title")
+        yield Static("", id="factor-table")
+        yield Static("", id="results-table")
+        yield Static("", id="session-flags")
+
+    def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
+        if snapshot is None:
+            return
+        self.query_one("#results-title", Static).update(results_title(snapshot))
+        self.query_one("#factor-table", Static).update(factor_table(snapshot.get("results")))
+        self.query_one("#results-table", Static).update(results_table(snapshot))
+        flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
+        self.query_one("#session-flags", Static).update("\n".join(flags))

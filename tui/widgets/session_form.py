@@ -1,0 +1,150 @@
+"""The session details form: metadata and calibration data, each entry checked as typed.
+
+The keys are those of ``chargebook.acquire.session_meta`` (the daemon checks them again on
+``session.start``); ranges and wording come from ``chargebook.corrections``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from chargebook.corrections import dose, limits
+from chargebook.tui import checks
+from chargebook.tui.widgets.fields import ChoiceField, Field, choice
+from textual import on
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual.widgets import Select, Static
+
+#: (key, label) of the text entries, grouped under a heading.
+TEXT_SECTIONS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
+    (
+        "Beam",
+        (
+            ("operator", "Operator"),
+            ("treatment_machine", "Treatment machine"),
+            ("beam", "Beam (e.g. 6 MV)"),
+        ),
+    ),
+    (
+        "Chamber and electrometer",
+        (
+            ("chamber_model", "Chamber model"),
+            ("chamber_serial", "Chamber serial"),
+            ("electrometer_model", "Electrometer model"),
+            ("electrometer_serial", "Electrometer serial"),
+        ),
+    ),
+)
+
+CONVENTIONS = (("IAEA TRS-398", "trs398"), ("AAPM TG-51", "tg51"))
+BEAM_TYPES = (
+    ("pulsed", "pulsed"),
+    ("pulsed-scanned", "pulsed-scanned"),
+    ("continuous", "continuous"),
+)
+N_DW_UNITS = (("Gy/nC", "Gy/nC"), ("Gy/C", "Gy/C"), ("cGy/nC", "cGy/nC"))
+
+#: (key, label, check, required) of the number entries of the calibration section.
+NUMBER_FIELDS: tuple[tuple[str, str, checks.Check, bool], ...] = (
+    (
+        "u_N_Dw_pct_k2",
+        "u(N_D,w) % k=2",
+        checks.in_range("u_N_Dw_pct_k2", limits.UNCERTAINTY_PCT),
+        False,
+    ),
+    ("k_Q", "k_Q", checks.in_range("k_Q", limits.K_Q), True),
+    ("u_k_Q_pct", "u(k_Q) %", checks.in_range("u_k_Q_pct", limits.UNCERTAINTY_PCT), False),
+    ("k_elec", "k_elec (empty: 1)", checks.in_range("k_elec", limits.K_ELEC), False),
+    (
+        "expected_cGy_per_MU",
+        "Expected cGy/MU",
+        checks.in_range("expected_cGy_per_MU", limits.EXPECTED_CGY_PER_MU),
+        True,
+    ),
+)
+
+
+def check_tolerance(value: str) -> object:
+    """Check a tolerance typed as a number in % or as daily, monthly or annual (TG-142)."""
+    return dose.tolerance_pct(checks.as_typed(value))
+
+
+def _shown(value: Any) -> str:
+    if value is None:
+        return ""
+    return f"{value:g}" if isinstance(value, int | float) else str(value)
+
+
+class SessionForm(Vertical):
+    """Metadata, convention, beam type and calibration entries of a new session."""
+
+    def __init__(self, defaults: Mapping[str, Any] | None = None) -> None:
+        super().__init__(id="session-form")
+        self.defaults = dict(defaults or {})
+
+    def compose(self) -> ComposeResult:
+        value = self.defaults.get
+        for heading, entries in TEXT_SECTIONS:
+            yield Static(heading, classes="section-title")
+            for key, label in entries:
+                yield Field(label, key, _shown(value(key)), check=checks.required_text(key))
+        yield ChoiceField("Beam type", "beam_type", BEAM_TYPES, value("beam_type") or "pulsed")
+        yield ChoiceField("Convention", "convention", CONVENTIONS, value("convention") or "trs398")
+        yield Static("Calibration and expected output", classes="section-title")
+        unit = value("N_Dw_unit") or "Gy/nC"
+        yield Field(
+            "N_D,w",
+            "N_Dw",
+            _shown(value("N_Dw")),
+            check=checks.calibration_in(lambda: self.N_Dw_unit),
+            suffix=choice("N_Dw_unit", N_DW_UNITS, unit),
+        )
+        for key, label, check, required in NUMBER_FIELDS:
+            yield Field(
+                label, key, _shown(value(key)), check=check if required else checks.optional(check)
+            )
+        yield Field(
+            "Tolerance % (or daily)",
+            "tolerance_pct",
+            _shown(value("tolerance_pct")),
+            check=checks.optional(check_tolerance),
+            placeholder="empty: TG-142 monthly",
+        )
+
+    @property
+    def N_Dw_unit(self) -> str:
+        """Return the unit chosen for N_D,w."""
+        return str(self.query_one("#choice-N_Dw_unit", Select).value)
+
+    @on(Select.Changed, "#choice-N_Dw_unit")
+    def unit_changed(self) -> None:
+        self.query_one("#field-N_Dw", Field).recheck()
+
+    def metadata(self) -> dict[str, Any] | None:
+        """Return the ``session.start`` metadata, or None if an entry is wrong (each says why)."""
+        fields = list(self.query(Field))
+        if not all([field.recheck() for field in fields]):
+            return None
+        metadata: dict[str, Any] = {
+            choice_field.field_name: choice_field.value for choice_field in self.query(ChoiceField)
+        }
+        metadata["N_Dw_unit"] = self.N_Dw_unit
+        for field in fields:
+            if field.value:
+                metadata[field.field_name] = checks.as_typed(field.value)
+        for key, _label in (entry for _heading, entries in TEXT_SECTIONS for entry in entries):
+            metadata[key] = self.query_one(f"#field-{key}", Field).value
+        return metadata
+
+    def show_refusal(self, field_name: str | None, message: str) -> bool:
+        """Show the daemon's refusal under the entry it names; return False if none matches."""
+        if not field_name:
+            return False
+        matches = self.query(f"#field-{field_name.split('[')[0]}")
+        for field in matches:
+            if isinstance(field, Field):
+                field.show_problem(message)
+                return True
+        return False

@@ -1,0 +1,43 @@
+"""The top line: the daemon link, the electrometer and the session, with trouble said first."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from chargebook.tui import snapshot_view
+from chargebook.tui.messages import LinkStatus
+from textual.reactive import reactive
+from textual.widgets import Static
+
+NOT_CONNECTED = "Not connected to the daemon — retrying…"
+
+
+def status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str, bool]:
+    """Return (the line to show, whether it reports trouble): the worst news comes first."""
+    if not link.connected:
+        return f"!! {link.text or NOT_CONNECTED}", True
+    if snapshot is None:
+        return "Connected to the daemon; waiting for its state…", False
+    instrument = snapshot.get("instrument") or {}
+    session = snapshot_view.session_text(snapshot)
+    if not instrument.get("connected"):
+        return f"{snapshot_view.instrument_text(snapshot)} · {session}", True
+    return f"{session} · electrometer connected", False
+
+
+class StatusLine(Static):
+    """One line: "!! Not connected to the daemon — retrying…", or the session and instrument."""
+
+    link: reactive[LinkStatus] = reactive(LinkStatus(False, NOT_CONNECTED))
+    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+
+    def watch_link(self) -> None:
+        self._render_line()
+
+    def watch_snapshot(self) -> None:
+        self._render_line()
+
+    def _render_line(self) -> None:
+        line, trouble = status_text(self.link, self.snapshot)
+        self.update(line)
+        self.set_class(trouble, "-trouble")
