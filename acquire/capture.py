@@ -62,21 +62,34 @@ class ReadingCapture:
     """Follows one reading from arming to capture; feed it samples and clock ticks.
 
     ``timed_s`` set: a timed integration (no beam) that ends ``timed_s`` seconds after arming.
+    ``baseline_nC``: the charge at arming when known (0 after the integrator was zeroed), so a
+    beam already under way at the first sample is still seen rising; None takes the first sample.
     """
 
-    def __init__(self, settings: CaptureSettings, armed_t_s: float, timed_s: float | None = None):
+    def __init__(
+        self,
+        settings: CaptureSettings,
+        armed_t_s: float,
+        timed_s: float | None = None,
+        baseline_nC: float | None = None,
+    ):
         self.settings = settings
         self.armed_t_s = armed_t_s
         self.timed_s = timed_s
         self.phase = ReadingPhase.TIMED if timed_s is not None else ReadingPhase.ARMED
-        self.baseline_nC: float | None = None
+        self.baseline_nC = baseline_nC
         self.last_charge_nC: float | None = None
         self.last_t_s: float | None = None
         self._flat_ref_nC = 0.0
         self._flat_since_s = armed_t_s
 
     def feed(self, t_s: float, charge_nC: float, complete: bool = False) -> Captured | None:
-        """Take one sample; return the reading if this sample completes it."""
+        """Take one sample; return the reading if this sample completes it.
+
+        A sample received before the reading was armed (a stale line) is ignored.
+        """
+        if t_s < self.armed_t_s:
+            return None
         if self.baseline_nC is None:
             self.baseline_nC = charge_nC
         self.last_charge_nC, self.last_t_s = charge_nC, t_s

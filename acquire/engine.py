@@ -88,6 +88,7 @@ class Engine:
         clock: Callable[[], float] = time.monotonic,
         default_plan: Any = "default",
         profile: str = "",
+        time_scale: float = 1.0,
         on_change: Callable[[], None] | None = None,
     ) -> None:
         self.store = store
@@ -96,6 +97,7 @@ class Engine:
         self.clock = clock
         self.default_plan = default_plan
         self.profile = profile
+        self.time_scale = time_scale
         self.on_change = on_change
         self.state = S.IDLE
         self.paused_from: EngineState | None = None
@@ -116,7 +118,8 @@ class Engine:
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
-        self.seq = 0
+        self.seq = 0  # every snapshot
+        self.data_version = 0  # every change of what is recorded or of the state
 
     # ------------------------------------------------------------------------ plumbing
     @property
@@ -135,9 +138,13 @@ class Engine:
 
     def _changed(self) -> None:
         self.seq += 1
-        self._results_cache = None
+        self.data_version += 1
         if self.on_change is not None:
             self.on_change()
+
+    def touch_live(self) -> None:
+        """Count a new snapshot for the reading in progress (results stay cached)."""
+        self.seq += 1
 
     def _goto(self, new: EngineState, action: str, actor: str, **detail: Any) -> None:
         check_transition(self.state, new, action)
@@ -281,7 +288,7 @@ class Engine:
         )
         self.active = ActiveSet(set_id, step_index, attempt)
         self._apply_bias(actor)
-        wait_s = live.settling_wait_s(step)
+        wait_s = live.settling_wait_s(step) * self.time_scale
         if wait_s > 0:
             self.settle_until_s = self.clock() + wait_s
             self._goto(S.SETTLING, Method.STEP_ARM, actor, set_id=set_id, wait_s=wait_s)
@@ -336,7 +343,8 @@ class Engine:
             target = S.INTERRUPTED
         if target in (S.SETTLING, S.COLLECTING):
             if self.settle_until_s is not None:
-                self.settle_until_s = self.clock() + live.settling_wait_s(self.step)
+                wait_s = live.settling_wait_s(self.step) * self.time_scale
+                self.settle_until_s = self.clock() + wait_s
                 self._goto(S.SETTLING, Method.SESSION_RESUME, actor)
             else:
                 self._begin_reading(actor, Method.SESSION_RESUME)
@@ -407,13 +415,15 @@ class Engine:
                 self._record(captured, DAEMON_ACTOR)
                 self._changed()
 
-    def instrument_lost(self, message: str) -> None:
-        """The electrometer went away: a set in progress becomes interrupted, readings kept."""
+    def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
+        """The electrometer went away (or failed a command, ``still_connected``): a set in
+        progress becomes interrupted with its readings kept."""
         if not self.instrument_connected:
             return
-        self.instrument_connected = False
+        self.instrument_connected = still_connected
         self.instrument_message = message
-        self._event(DAEMON_ACTOR, "instrument_lost", message=message)
+        kind = "instrument_fault" if still_connected else "instrument_lost"
+        self._event(DAEMON_ACTOR, kind, message=message)
         busy = (S.SETTLING, S.COLLECTING)
         if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
             self._drop_reading(DAEMON_ACTOR, "instrument lost")
@@ -483,8 +493,13 @@ class Engine:
         new_state = S.SETTLING if settling else S.COLLECTING
         if self.state is not new_state:
             self._goto(new_state, action, actor, set_id=self.active.id)
+        zeroed = self._can(Capability.ZERO)
+        timed_s = live.timed_s(step)
         self.reading = ReadingCapture(
-            live.capture_settings(self.plan), self.clock(), live.timed_s(step)
+            live.capture_settings(self.plan, self.time_scale),
+            self.clock(),
+            None if timed_s is None else timed_s * self.time_scale,
+            baseline_nC=0.0 if zeroed else None,
         )
         self.reading_status = "ok"
         if self._can(Capability.ZERO):
@@ -582,7 +597,7 @@ class Engine:
     # ----------------------------------------------------------------------- snapshot
     def results(self) -> tuple[dict[str, Any] | None, bool, str | None]:
         """Return (Evaluation.to_dict() so far, provisional?, error), cached until a change."""
-        if self._results_cache is not None and self._results_cache[0] == self.seq:
+        if self._results_cache is not None and self._results_cache[0] == self.data_version:
             return self._results_cache[1]
         if self.session_id is None:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
@@ -595,7 +610,7 @@ class Engine:
                 self.active.id if self.active is not None else None,
                 self.integration_s,
             )
-        self._results_cache = (self.seq, value)
+        self._results_cache = (self.data_version, value)
         return value
 
     def snapshot(self) -> dict[str, Any]:

@@ -13,6 +13,7 @@ and the plan-step rules the engine applies (settling, timed leakage, capture set
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -82,9 +83,21 @@ def resolve_plan(plan: Plan | str | Path | Mapping[str, Any]) -> Plan:
 
 
 # ------------------------------------------------------------------------ plan-step rules
-def capture_settings(plan: Plan) -> CaptureSettings:
-    """Return the end-of-beam settings: the engine's defaults with the plan's overrides."""
-    return CaptureSettings(**plan.capture.overrides())
+#: The shortest hold time after scaling, s: a few polls of a query-mode electrometer.
+MIN_SCALED_HOLD_S = 0.15
+
+
+def capture_settings(plan: Plan, time_scale: float = 1.0) -> CaptureSettings:
+    """Return the end-of-beam settings: the engine's defaults with the plan's overrides.
+
+    ``time_scale`` (< 1 for a simulated electrometer running faster than real time) shortens
+    the hold time, but not below MIN_SCALED_HOLD_S.
+    """
+    settings = CaptureSettings(**plan.capture.overrides())
+    if time_scale == 1.0:
+        return settings
+    hold_s = max(settings.hold_s * time_scale, min(settings.hold_s, MIN_SCALED_HOLD_S))
+    return replace(settings, hold_s=hold_s)
 
 
 def timed_s(step: Step) -> float | None:
@@ -209,12 +222,13 @@ def measurement_inputs(
             if step.purpose == "routine":
                 routine_times = [integration_s[r.id] for r in used if r.id in integration_s]
         if step.purpose == "leakage" and used and not is_provisional and step.duration_s:
-            leakage_nC = (used[-1].charge_nC, float(step.duration_s))
+            seconds = integration_s.get(used[-1].id, float(step.duration_s))
+            leakage_nC = (used[-1].charge_nC, seconds)
     environment = store.environment(session_id)
     latest = environment[-1] if environment else None
     leakage = None
     if leakage_nC is not None and routine_times:
-        # Leakage charge scaled from the leakage step's time to a routine reading's time.
+        # Leakage charge scaled from the leakage integration time to a routine reading's.
         leakage = leakage_nC[0] * (sum(routine_times) / len(routine_times)) / leakage_nC[1]
     meta = _session_metadata(metadata)
     conversions = list(meta.conversions())

@@ -106,3 +106,12 @@ def test_timed_integration_for_leakage_ends_after_its_duration():
 def test_settings_refuse_zero_or_negative_thresholds_naming_the_field(name):
     with pytest.raises(ValueError, match=name):
         CaptureSettings(**{name: 0.0})
+
+
+def test_a_zeroed_integrator_sees_a_beam_already_under_way_at_the_first_sample():
+    # Without a known baseline the first sample (mid-beam) would be taken as the start.
+    capture = ReadingCapture(SETTINGS, armed_t_s=0.0, baseline_nC=0.0)
+    assert capture.feed(0.1, 12.0) is None
+    assert capture.phase is ReadingPhase.RISING
+    result = run(capture, [(0.1 + 0.1 * i, 20.0) for i in range(1, 20)])
+    assert result is not None and result.charge_nC == 20.0

@@ -1,0 +1,514 @@
+"""The acquisition daemon: one process that owns the electrometer and the station database.
+
+Three parts, wired here:
+
+* an :class:`InstrumentLink` thread that owns the (synchronous) driver: it carries out the
+  engine's commands in order (zero, start, stop, set bias, and the bench's beam and bias
+  switch), reads samples while a reading is armed (pushed lines in stream mode, ``read_charge``
+  polled at :data:`POLL_INTERVAL_S` in query mode), records every raw line as traffic, and
+  reconnects with backoff when the instrument goes away;
+* the :class:`~chargebook.acquire.engine.Engine`, driven only from the asyncio loop;
+* the :class:`~chargebook.acquire.server.RpcServer` on the Unix socket.
+
+Every reading is committed by the engine before :meth:`Daemon.publish` tells any client.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+import os
+import queue
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire import protocol
+from chargebook.acquire.engine import Command, Engine
+from chargebook.acquire.server import Connection, RpcServer
+from chargebook.acquire.store import Store
+from chargebook.drivers_generic.interface import (
+    Capability,
+    Electrometer,
+    InstrumentDisconnected,
+    InstrumentError,
+    InstrumentTimeout,
+    NotSupported,
+    ProtocolError,
+    Sample,
+    TrafficDirection,
+)
+
+log = logging.getLogger(__name__)
+
+#: How often a query-mode electrometer is read while a reading is armed, s.
+POLL_INTERVAL_S = 0.05
+#: How often the engine's timers are advanced, s.
+TICK_S = 0.05
+#: Shortest time between two snapshots that only show the live charge, s.
+LIVE_INTERVAL_S = 0.25
+#: Timeouts in a row after which the instrument counts as lost.
+TIMEOUTS_BEFORE_LOST = 3
+#: Reconnection backoff: first pause and longest pause, s.
+RECONNECT_FIRST_S, RECONNECT_MAX_S = 0.2, 2.0
+
+
+@dataclass(frozen=True)
+class DaemonOptions:
+    """What ``chargebook serve`` was asked for."""
+
+    profile: str
+    db_path: Path
+    socket_path: Path
+    port: str | None = None
+    resource: str | None = None
+    plan: str = "default"
+    bench_control: str | None = None
+    time_scale: float = 1.0
+
+
+# ------------------------------------------------------------------------ instrument thread
+class InstrumentLink(threading.Thread):
+    """The thread that owns the electrometer (see the module docstring).
+
+    ``post(kind, payload)`` is called from this thread for ``sample`` ((generation, Sample)),
+    ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
+    """
+
+    def __init__(
+        self,
+        electrometer: Electrometer,
+        post: Callable[[str, Any], None],
+        *,
+        bench: Any = None,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        super().__init__(name="instrument", daemon=True)
+        self.electrometer = electrometer
+        self.post = post
+        self.bench = bench
+        self.clock = clock
+        self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
+        self.generation: int | None = None  # samples are read while this is set
+        self.fresh_after_s = 0.0  # samples received before this are stale
+        self.connected = False
+        self._timeouts = 0
+        self._next_poll_s = 0.0
+        self._quit = threading.Event()
+
+    # -- called from the asyncio loop ----------------------------------------------------------
+    def send(self, command: Command) -> None:
+        """Queue one engine command."""
+        self.inbox.put(("command", command))
+
+    def sample_for(self, generation: int | None) -> None:
+        """Read samples tagged ``generation`` from now on (None: stop reading)."""
+        self.inbox.put(("sampling", generation))
+
+    def stop(self) -> None:
+        """Ask the thread to end (it closes the instrument)."""
+        self._quit.set()
+        self.inbox.put(("quit", None))
+
+    # -- the thread ----------------------------------------------------------------------------
+    def run(self) -> None:
+        try:
+            while not self._quit.is_set():
+                if not self.connected:
+                    self._connect()
+                    continue
+                self._serve_once()
+        finally:
+            with contextlib.suppress(Exception):
+                self.electrometer.close()
+
+    def _connect(self) -> None:
+        delay_s = RECONNECT_FIRST_S
+        while not self._quit.is_set():
+            try:
+                self.electrometer.open()
+            except InstrumentError as error:
+                log.info("electrometer not reachable (%s); retrying in %.1f s", error, delay_s)
+                self._drain_while_away()
+                if self._quit.wait(delay_s):
+                    return
+                delay_s = min(delay_s * 2, RECONNECT_MAX_S)
+                continue
+            self.connected, self._timeouts = True, 0
+            self.post("connected", self._identity())
+            return
+
+    def _identity(self) -> str | None:
+        try:
+            identity = self.electrometer.identify()
+        except NotSupported:
+            return None
+        except InstrumentError as error:
+            log.warning("the electrometer did not identify itself: %s", error)
+            return None
+        return ", ".join(
+            part
+            for part in (identity.manufacturer, identity.model, identity.serial, identity.firmware)
+            if part
+        )
+
+    def _drain_while_away(self) -> None:
+        """Drop queued instrument commands while disconnected; keep bench commands."""
+        while True:
+            try:
+                kind, value = self.inbox.get_nowait()
+            except queue.Empty:
+                return
+            if kind == "quit":
+                self._quit.set()
+                return
+            if kind == "sampling":
+                self.generation = value
+            elif kind == "command" and value.action in ("beam", "bench_bias"):
+                self._bench(value)
+            else:
+                log.info("electrometer away: dropped command %s", value)
+
+    def _serve_once(self) -> None:
+        pushes = bool(
+            self.electrometer.capabilities & {Capability.STREAM, Capability.PUSH_READINGS}
+        )
+        if self.generation is None:
+            timeout_s = 0.2
+        elif pushes:
+            timeout_s = 0.0
+        else:
+            timeout_s = max(0.0, self._next_poll_s - self.clock())
+        try:
+            kind, value = (
+                self.inbox.get(timeout=timeout_s) if timeout_s else self.inbox.get_nowait()
+            )
+        except queue.Empty:
+            kind, value = "", None
+        try:
+            if kind == "quit":
+                return
+            if kind == "sampling":
+                self.generation = value
+            elif kind == "command":
+                self._execute(value)
+            if self.generation is not None and self.inbox.empty():
+                self._read_sample(pushes)
+        except InstrumentDisconnected as error:
+            self._lost(f"the electrometer was disconnected: {error}")
+        except InstrumentTimeout as error:
+            self._timeouts += 1
+            if self._timeouts >= TIMEOUTS_BEFORE_LOST:
+                self._lost(f"the electrometer stopped answering: {error}")
+        except ProtocolError as error:
+            log.warning("rejected a line from the electrometer: %s", error)
+        except InstrumentError as error:
+            self.post("fault", f"the electrometer refused a command: {error}")
+
+    def _lost(self, message: str) -> None:
+        self.connected = False
+        self.post("lost", message)
+        with contextlib.suppress(Exception):
+            self.electrometer.close()
+
+    def _execute(self, command: Command) -> None:
+        action = command.action
+        if action in ("beam", "bench_bias"):
+            self._bench(command)
+            return
+        if action == "zero":
+            self.electrometer.zero()
+        elif action == "start":
+            self.electrometer.start_integration()
+        elif action == "stop":
+            self.electrometer.stop_integration()
+        elif action == "set_bias":
+            assert command.value is not None
+            self.electrometer.set_bias(command.value)
+        self.fresh_after_s = self.clock()
+        self._timeouts = 0
+
+    def _bench(self, command: Command) -> None:
+        from chargebook.acquire.bench import BenchError
+
+        if self.bench is None:
+            return
+        try:
+            if command.action == "beam":
+                self.bench.deliver(command.value)
+            else:
+                self.bench.turn_bias(command.value)
+        except BenchError as error:
+            self.post("fault", str(error))
+
+    def _read_sample(self, pushes: bool) -> None:
+        if pushes:
+            sample = self.electrometer.next_sample(POLL_INTERVAL_S)
+        else:
+            now_s = self.clock()
+            if now_s < self._next_poll_s:
+                return
+            self._next_poll_s = now_s + POLL_INTERVAL_S
+            sample = self.electrometer.read_charge()
+        self._timeouts = 0
+        if sample is not None and sample.t_s >= self.fresh_after_s:
+            self.post("sample", (self.generation, sample))
+
+
+# --------------------------------------------------------------------------------- daemon
+class Daemon:
+    """Wires the instrument thread, the engine and the socket server; see the module docstring."""
+
+    def __init__(self, options: DaemonOptions, *, clock: Callable[[], float] = time.monotonic):
+        self.options = options
+        self.clock = clock
+        self.store: Store | None = None
+        self.engine: Engine | None = None
+        self.link: InstrumentLink | None = None
+        self.server = RpcServer(options.socket_path, self.dispatch)
+        self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
+        self._generation = 0
+        self._sampled_reading: object = None
+        self._published_seq = -1
+        self._published_event_id = 0
+        self._last_live: tuple[float, float | None] = (0.0, None)
+        self._stopping = asyncio.Event()
+
+    # -- starting and stopping -----------------------------------------------------------------
+    def _build(self) -> None:
+        from chargebook.drivers_generic import build_electrometer, load_profile
+
+        options = self.options
+        profile = load_profile(options.profile)
+        self.store = Store.open(options.db_path)
+        bench = None
+        if options.bench_control:
+            from chargebook.acquire.bench import Bench
+
+            bench = Bench(options.bench_control)
+        electrometer = build_electrometer(
+            profile,
+            port=options.port,
+            resource=options.resource,
+            traffic=self._record_traffic,
+            clock=self.clock,
+        )
+        self.engine = Engine(
+            self.store,
+            capabilities=profile.capabilities,
+            bench=bench is not None,
+            clock=self.clock,
+            default_plan=options.plan,
+            profile=profile.name,
+            time_scale=options.time_scale,
+        )
+        self.engine.instrument_connected = False
+        self.engine.instrument_message = "connecting to the electrometer"
+        loop = asyncio.get_running_loop()
+
+        def post(kind: str, payload: Any) -> None:
+            loop.call_soon_threadsafe(self._events.put_nowait, (kind, payload))
+
+        self.link = InstrumentLink(electrometer, post, bench=bench, clock=self.clock)
+
+    def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        engine, store = self.engine, self.store
+        if store is None:
+            return
+        session_id = engine.session_id if engine is not None else None
+        try:
+            store.add_traffic(session_id, t_s, TrafficDirection(direction).value, bytes(raw))
+        except Exception:  # a traffic record must never stop the instrument thread
+            log.exception("could not record a raw instrument line")
+
+    async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
+        """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
+        self._build()
+        assert self.engine is not None and self.link is not None and self.store is not None
+        resumed = self.engine.restore()
+        await self.server.start()
+        self.link.start()
+        info = {
+            "socket": str(self.options.socket_path),
+            "db": str(self.options.db_path),
+            "pid": os.getpid(),
+            "profile": self.engine.profile,
+            "resumed_session": self.engine.session_id if resumed else None,
+        }
+        if ready is not None:
+            ready(info)
+        tasks = [
+            asyncio.create_task(self._consume_instrument(), name="instrument-events"),
+            asyncio.create_task(self._tick(), name="ticker"),
+        ]
+        try:
+            await self._stopping.wait()
+        finally:
+            for task in tasks:
+                task.cancel()
+            await asyncio.gather(*tasks, return_exceptions=True)
+            await self.server.close()
+            self.link.stop()
+            await asyncio.to_thread(self.link.join, 5.0)
+            if self.options.bench_control and self.link.bench is not None:
+                self.link.bench.close()
+            self.store.close()
+
+    def shutdown(self) -> None:
+        """Ask :meth:`run` to end (from a signal handler or a test)."""
+        self._stopping.set()
+
+    # -- the loop's work -----------------------------------------------------------------------
+    async def _consume_instrument(self) -> None:
+        assert self.engine is not None
+        engine = self.engine
+        while True:
+            kind, payload = await self._events.get()
+            if kind == "sample":
+                generation, sample = payload
+                if generation != self._generation or not isinstance(sample, Sample):
+                    continue  # a sample of a reading already captured or dropped
+                engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+            elif kind == "connected":
+                engine.instrument_back(payload)
+                if payload:
+                    self._identified(payload)
+            elif kind == "lost":
+                engine.instrument_lost(payload)
+            elif kind == "fault":
+                engine.instrument_lost(payload, still_connected=True)
+            await self.after_change()
+
+    def _identified(self, identity: str) -> None:
+        assert self.store is not None and self.engine is not None
+        self.store.add_event(
+            self.engine.session_id,
+            "daemon",
+            "instrument_identified",
+            {"identity": identity, "profile": self.engine.profile},
+        )
+
+    async def _tick(self) -> None:
+        assert self.engine is not None
+        while True:
+            await asyncio.sleep(TICK_S)
+            self.engine.tick()
+            await self.after_change()
+
+    async def after_change(self) -> None:
+        """Send the engine's commands to the instrument and publish what changed."""
+        assert self.engine is not None and self.link is not None
+        engine = self.engine
+        for command in engine.take_commands():
+            self.link.send(command)
+        if engine.reading is not self._sampled_reading:
+            self._sampled_reading = engine.reading
+            self._generation += 1
+            self.link.sample_for(self._generation if engine.reading is not None else None)
+        reading = engine.reading
+        if reading is not None and engine.seq == self._published_seq:
+            last_at, last_charge = self._last_live
+            now = self.clock()
+            if reading.last_charge_nC != last_charge and now - last_at >= LIVE_INTERVAL_S:
+                self._last_live = (now, reading.last_charge_nC)
+                engine.touch_live()
+        await self.publish()
+
+    async def publish(self) -> None:
+        """Broadcast new audit events and, if the state changed, the snapshot."""
+        assert self.engine is not None and self.store is not None
+        engine = self.engine
+        if engine.session_id is not None:
+            fresh = [
+                e for e in self.store.events(engine.session_id) if e.id > self._published_event_id
+            ]
+            for event in fresh:
+                self._published_event_id = event.id
+                await self.server.broadcast(
+                    protocol.NOTIFY_EVENT,
+                    {
+                        "id": event.id,
+                        "session_id": event.session_id,
+                        "recorded_at": event.recorded_at,
+                        "actor": event.actor,
+                        "kind": event.kind,
+                        "detail": event.detail(),
+                    },
+                )
+        if engine.seq != self._published_seq:
+            self._published_seq = engine.seq
+            await self.server.broadcast(protocol.NOTIFY_SNAPSHOT, self.snapshot())
+
+    def snapshot(self) -> dict[str, Any]:
+        """Return the engine's snapshot, trimmed to fit one message if it must be."""
+        assert self.engine is not None
+        snapshot = self.engine.snapshot()
+        try:
+            protocol.encode(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
+        except ValueError:
+            current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
+            for entry in snapshot["sets"]:
+                if entry["id"] != current:
+                    entry["readings"] = []
+        return snapshot
+
+    # -- requests ------------------------------------------------------------------------------
+    async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
+        """Carry out one request from ``connection`` and return its result."""
+        assert self.engine is not None
+        if method == protocol.Method.HELLO:
+            connection.client = params.get("client") or connection.client
+            connection.operator = params.get("operator")
+            return {
+                "protocol_version": protocol.PROTOCOL_VERSION,
+                "daemon_pid": os.getpid(),
+                "socket": str(self.options.socket_path),
+                "state": self.engine.state.value,
+            }
+        if method == protocol.Method.SUBSCRIBE:
+            connection.subscribed = True
+            return self.snapshot()
+        if method == protocol.Method.UNSUBSCRIBE:
+            connection.subscribed = False
+            return {}
+        if method == protocol.Method.STATUS:
+            return self.snapshot()
+        try:
+            self._perform(method, params, connection.actor)
+        finally:
+            await self.after_change()  # a refused request may still have recorded something
+        return self.snapshot()
+
+    def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
+        engine = self.engine
+        assert engine is not None
+        M = protocol.Method
+        actions: dict[str, Callable[[], Any]] = {
+            M.SESSION_START: lambda: engine.start_session(
+                params["metadata"], params.get("plan"), actor=actor
+            ),
+            M.ENVIRONMENT_SET: lambda: engine.set_environment(
+                params["temperature_C"],
+                params["pressure"],
+                params.get("pressure_unit", "kPa"),
+                params.get("humidity_pct"),
+                params.get("source", "operator"),
+                actor=actor,
+            ),
+            M.STEP_ARM: lambda: engine.arm(actor=actor),
+            M.STEP_MANUAL_DONE: lambda: engine.manual_done(params.get("note"), actor=actor),
+            M.STEP_SKIP: lambda: engine.skip(actor=actor),
+            M.READING_CAPTURE: lambda: engine.capture(actor=actor),
+            M.SET_ACCEPT: lambda: engine.accept(actor=actor),
+            M.SET_REDO: lambda: engine.redo(params["reason"], actor=actor),
+            M.SESSION_PAUSE: lambda: engine.pause(actor=actor),
+            M.SESSION_RESUME: lambda: engine.resume(actor=actor),
+            M.SESSION_STOP: lambda: engine.stop(params["reason"], actor=actor),
+            M.SESSION_ABORT: lambda: engine.abort(params["reason"], params["confirm"], actor=actor),
+            M.SESSION_CLOSE: lambda: engine.close(actor=actor),
+        }
+        actions[method]()

@@ -1,0 +1,85 @@
+"""Starting the daemon from the command line: options, signals, the JSON line on stdout."""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import logging
+import signal
+import sys
+from pathlib import Path
+
+from chargebook.acquire import protocol
+from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.daemon import Daemon, DaemonOptions
+
+log = logging.getLogger(__name__)
+
+
+def options_from_args(args: argparse.Namespace, socket_path: Path | None = None) -> DaemonOptions:
+    """Return the daemon's options from parsed `serve`/`run` arguments, checked.
+
+    Raises InputError naming the option for a time scale that is not positive or a plan that
+    cannot be loaded, so a mistake is reported before anything starts.
+    """
+    from chargebook.acquire.plan import load_plan
+    from chargebook.acquire.store import default_db_path
+    from chargebook.corrections.errors import InputError
+
+    if not args.time_scale > 0:
+        raise InputError("--time-scale", args.time_scale, "a number above 0")
+    load_plan(args.plan)
+    socket = socket_path or Path(getattr(args, "socket", None) or protocol.default_socket_path())
+    return DaemonOptions(
+        profile=args.profile,
+        db_path=Path(args.db).expanduser() if args.db else default_db_path(),
+        socket_path=socket,
+        port=args.port,
+        resource=args.resource,
+        plan=args.plan,
+        bench_control=args.bench_control,
+        time_scale=args.time_scale,
+    )
+
+
+def startup_errors() -> tuple[type[BaseException], ...]:
+    """Return the exceptions that mean the daemon cannot start as asked (exit 2)."""
+    from chargebook.acquire.server import SocketInUse, UnsafeSocketDirectory
+    from chargebook.acquire.store import StoreError
+    from chargebook.drivers_generic import ProfileError
+    from chargebook.drivers_generic.interface import SettingOutOfRange
+
+    return (SocketInUse, UnsafeSocketDirectory, StoreError, ProfileError, SettingOutOfRange)
+
+
+def serve_forever(args: argparse.Namespace) -> int:
+    """Run `chargebook serve`: print the ready line, serve until SIGTERM/SIGINT, exit status."""
+    from chargebook.corrections.errors import InputError
+
+    logging.basicConfig(
+        level=args.log_level, stream=sys.stderr, format="%(asctime)s %(name)s %(message)s"
+    )
+    try:
+        options = options_from_args(args)
+        return asyncio.run(_serve(options))
+    except (InputError, *startup_errors()) as error:
+        print(f"chargebook serve: {error}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
+    except OSError as error:
+        print(f"chargebook serve: {error}", file=sys.stderr)
+        return EXIT_FAILURE
+
+
+def print_ready(info: dict) -> None:
+    """Print the daemon's ready line (one JSON object) on stdout and flush it."""
+    print(json.dumps(info), flush=True)
+
+
+async def _serve(options: DaemonOptions) -> int:
+    daemon = Daemon(options)
+    loop = asyncio.get_running_loop()
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        loop.add_signal_handler(signum, daemon.shutdown)
+    await daemon.run(print_ready)
+    return EXIT_OK

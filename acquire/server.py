@@ -1,0 +1,270 @@
+"""The JSON-RPC 2.0 server on the daemon's Unix socket (framing and errors in ``protocol``).
+
+One asyncio server, several clients at once. Each connection is read line by line with a bound
+on the line length; garbage, an over-long line, a slow reader or a vanished client affects only
+its own connection. The socket lives in a directory only its user can enter (0700) and is mode
+0600; there is no TCP listener.
+
+The server knows nothing of measurements: it calls ``dispatch(connection, method, params)``
+and turns the exceptions it raises into error responses (:func:`error_for`).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import logging
+import os
+import socket
+import stat
+from collections.abc import Awaitable, Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire import protocol
+from chargebook.acquire.states import IllegalTransition
+from chargebook.corrections.errors import InputError
+from chargebook.drivers_generic.interface import InstrumentError
+
+log = logging.getLogger(__name__)
+
+#: A subscriber whose unsent output grows beyond this many bytes is disconnected.
+MAX_PENDING_OUTPUT_BYTES = 4 * 1024 * 1024
+
+
+class SocketInUse(RuntimeError):
+    """Another daemon already answers on the socket path."""
+
+
+class UnsafeSocketDirectory(RuntimeError):
+    """The socket's directory is not private to this user (owner or mode)."""
+
+
+@dataclass(eq=False)
+class Connection:
+    """One client: its writer, who it is, whether it wants notifications."""
+
+    writer: asyncio.StreamWriter
+    number: int
+    client: str = "client"
+    operator: str | None = None
+    subscribed: bool = False
+    closed: bool = False
+    lock: asyncio.Lock = field(default_factory=asyncio.Lock)
+
+    @property
+    def actor(self) -> str:
+        """Return who is acting on this connection, for the audit log."""
+        return self.operator or self.client
+
+    async def send(self, line: bytes) -> None:
+        """Write one encoded message; close the connection if its reader cannot keep up."""
+        if self.closed:
+            return
+        transport = self.writer.transport
+        if transport.get_write_buffer_size() > MAX_PENDING_OUTPUT_BYTES:
+            log.warning("client %d is not reading; closing its connection", self.number)
+            self.close()
+            return
+        async with self.lock:
+            try:
+                self.writer.write(line)
+                await self.writer.drain()
+            except (ConnectionError, RuntimeError):
+                self.close()
+
+    def close(self) -> None:
+        if not self.closed:
+            self.closed = True
+            self.writer.close()
+
+
+Dispatch = Callable[[Connection, str, dict[str, Any]], Awaitable[Any]]
+
+
+def error_for(error: BaseException) -> tuple[int, str, Any]:
+    """Return (code, message, data) of the JSON-RPC error for an exception from dispatch."""
+    from chargebook.acquire.engine import ConfirmationRequired
+
+    if isinstance(error, protocol.ParamsError):
+        return protocol.INVALID_PARAMS, str(error), error.data()
+    if isinstance(error, IllegalTransition):
+        data = {"state": error.state.value, "allowed": error.allowed, "action": error.action}
+        return protocol.ILLEGAL_TRANSITION, str(error), data
+    if isinstance(error, InputError):
+        data = {"field": error.field, "value": _plain(error.value), "allowed": error.allowed}
+        return protocol.INPUT_ERROR, str(error), data
+    if isinstance(error, ConfirmationRequired):
+        return protocol.CONFIRMATION_REQUIRED, str(error), {"field": "confirm", "value": False}
+    if isinstance(error, InstrumentError):
+        return protocol.INSTRUMENT_ERROR, f"the electrometer: {error}", None
+    log.exception("internal error while handling a request", exc_info=error)
+    return protocol.INTERNAL_ERROR, f"internal error: {type(error).__name__}: {error}", None
+
+
+def _plain(value: Any) -> Any:
+    try:
+        json.dumps(value, allow_nan=False)
+    except (TypeError, ValueError):
+        return repr(value)
+    return value
+
+
+def prepare_socket_dir(path: Path) -> None:
+    """Create the socket's directory with mode 0700, or check that an existing one is private.
+
+    Raises UnsafeSocketDirectory when it belongs to someone else or others may enter it.
+    """
+    directory = path.parent
+    directory.mkdir(mode=0o700, parents=True, exist_ok=True)
+    info = directory.stat()
+    if info.st_uid != os.getuid():
+        raise UnsafeSocketDirectory(f"{directory} belongs to another user; choose --socket")
+    if stat.S_IMODE(info.st_mode) & 0o077:
+        raise UnsafeSocketDirectory(
+            f"{directory} can be entered by other users (mode {stat.S_IMODE(info.st_mode):o}); "
+            "make it 0700 or choose --socket"
+        )
+
+
+def remove_stale_socket(path: Path) -> None:
+    """Remove a socket file nobody answers on; raise SocketInUse when a daemon answers."""
+    if not path.exists() and not path.is_symlink():
+        return
+    if not stat.S_ISSOCK(path.lstat().st_mode):
+        raise SocketInUse(f"{path} exists and is not a socket; choose another --socket")
+    probe = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    try:
+        probe.connect(str(path))
+    except OSError:
+        path.unlink()  # stale: left by a daemon that died
+        return
+    finally:
+        probe.close()
+    raise SocketInUse(f"a daemon is already listening on {path}")
+
+
+class RpcServer:
+    """Serves JSON-RPC 2.0 on a Unix socket; see the module docstring."""
+
+    def __init__(self, socket_path: Path, dispatch: Dispatch) -> None:
+        self.socket_path = Path(socket_path)
+        self.dispatch = dispatch
+        self.connections: set[Connection] = set()
+        self._server: asyncio.base_events.Server | None = None
+        self._numbers = 0
+
+    async def start(self) -> None:
+        """Listen on the socket (private directory, mode 0600)."""
+        prepare_socket_dir(self.socket_path)
+        remove_stale_socket(self.socket_path)
+        old_umask = os.umask(0o177)  # the socket file is born 0600
+        try:
+            self._server = await asyncio.start_unix_server(
+                self._serve, path=str(self.socket_path), limit=protocol.MAX_MESSAGE_BYTES
+            )
+        finally:
+            os.umask(old_umask)
+        os.chmod(self.socket_path, 0o600)
+
+    async def close(self) -> None:
+        """Stop listening, close every connection and remove the socket file."""
+        if self._server is not None:
+            self._server.close()
+        for connection in list(self.connections):
+            connection.close()
+        if self._server is not None:
+            with contextlib.suppress(Exception):
+                await asyncio.wait_for(self._server.wait_closed(), 2.0)
+        with contextlib.suppress(FileNotFoundError):
+            self.socket_path.unlink()
+
+    async def broadcast(self, method: str, params: Any) -> None:
+        """Send a notification to every subscribed connection."""
+        line = protocol.encode(protocol.notification(method, params))
+        targets = [c for c in self.connections if c.subscribed and not c.closed]
+        await asyncio.gather(*(c.send(line) for c in targets))
+
+    async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        self._numbers += 1
+        connection = Connection(writer, self._numbers)
+        self.connections.add(connection)
+        log.info("client %d connected", connection.number)
+        try:
+            while not connection.closed:
+                try:
+                    line = await reader.readuntil(b"\n")
+                except asyncio.IncompleteReadError:
+                    break  # the client went away (a partial last line is ignored)
+                except asyncio.LimitOverrunError:
+                    await self._reply_error(
+                        connection,
+                        None,
+                        protocol.INVALID_REQUEST,
+                        f"message longer than {protocol.MAX_MESSAGE_BYTES} bytes; "
+                        "closing this connection",
+                    )
+                    break
+                if line.strip():
+                    await self._handle_line(connection, line)
+        except (ConnectionError, OSError):
+            pass
+        finally:
+            connection.close()
+            self.connections.discard(connection)
+            log.info("client %d disconnected", connection.number)
+
+    async def _reply_error(
+        self, connection: Connection, request_id: Any, code: int, message: str, data: Any = None
+    ) -> None:
+        await connection.send(
+            protocol.encode(protocol.error_response(request_id, code, message, data))
+        )
+
+    async def _handle_line(self, connection: Connection, line: bytes) -> None:
+        try:
+            message = json.loads(line)
+        except (ValueError, UnicodeDecodeError) as error:
+            await self._reply_error(connection, None, protocol.PARSE_ERROR, f"not JSON: {error}")
+            return
+        request_id = message.get("id") if isinstance(message, dict) else None
+        problem = _request_problem(message)
+        if problem is not None:
+            await self._reply_error(connection, request_id, protocol.INVALID_REQUEST, problem)
+            return
+        method = message["method"]
+        is_notification = "id" not in message
+        if method not in protocol.METHODS:
+            if not is_notification:
+                await self._reply_error(
+                    connection, request_id, protocol.METHOD_NOT_FOUND, f"no method {method!r}"
+                )
+            return
+        try:
+            params = protocol.validate_params(method, message.get("params"))
+            result = await self.dispatch(connection, method, params)
+            reply = protocol.result_response(request_id, result)
+        except Exception as error:  # every failure becomes an error response
+            code, text, data = error_for(error)
+            reply = protocol.error_response(request_id, code, text, data)
+        if not is_notification:
+            await connection.send(protocol.encode(reply))
+
+
+def _request_problem(message: Any) -> str | None:
+    """Return what makes ``message`` not a JSON-RPC 2.0 request, or None."""
+    if isinstance(message, list):
+        return "batches are not supported: send one request per line"
+    if not isinstance(message, dict):
+        return "a request must be a JSON object"
+    if message.get("jsonrpc") != protocol.JSONRPC:
+        return 'a request must have "jsonrpc": "2.0"'
+    if not isinstance(message.get("method"), str):
+        return "a request must name its method as a string"
+    request_id = message.get("id")
+    usable_id = isinstance(request_id, str | int) and not isinstance(request_id, bool)
+    if "id" in message and not (request_id is None or usable_id):
+        return "a request id must be a string, a number or null"
+    return None
