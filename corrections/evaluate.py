@@ -33,7 +33,7 @@ from chargebook.corrections.recombination import (
 from chargebook.corrections.recombination import k_s as k_s_of
 from chargebook.corrections.recombination import method as recombination_method
 from chargebook.corrections.stability import Thresholds
-from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.statistics import SetStatistics, readings_array, set_statistics
 from chargebook.corrections.uncertainty import (
     COVERAGE_FACTOR,
     Component,
@@ -251,7 +251,8 @@ def _check_uncertainties(u: Uncertainties) -> None:
 def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam) -> _Checked:
     routine_V, n = _check_bias(inputs)
     if n is not None and convention is Convention.TRS398 and beam is not Beam.CONTINUOUS:
-        tabulated_coefficients(n, beam)  # refuse a ratio with no tabulated row now, not later
+        # Refuse a ratio with no tabulated row now, before any reduced-bias reading is taken.
+        tabulated_coefficients(n, beam, "voltage ratio routine_bias_V/reduced_bias_V")
     _check_uncertainties(inputs.uncertainties)
     for index, value in enumerate(inputs.temperature_history_C):
         limits.TEMPERATURE_C.check(f"temperature_history_C[{index}]", value)
@@ -280,15 +281,21 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
     )
 
 
-def _check_set_signs(key: str, readings: np.ndarray, mean: float) -> None:
-    """Refuse a reading whose sign differs from its set's: within a set the bias is fixed."""
-    wrong = np.sign(readings) != np.sign(mean)
+def _check_set_signs(key: str, readings: np.ndarray) -> None:
+    """Refuse a reading whose sign differs from its set's: within a set the bias is fixed.
+
+    The set's sign is that of the majority of its readings (of the first reading on a tie); an
+    exact zero carries no sign and is refused too.
+    """
+    positive, negative = int((readings > 0).sum()), int((readings < 0).sum())
+    set_sign = 1.0 if positive > negative or (positive == negative and readings[0] > 0) else -1.0
+    wrong = np.sign(readings) != set_sign
     if wrong.any():
         index = int(np.flatnonzero(wrong)[0])
         raise InputError(
             f"{key}_nC[{index}]",
             float(readings[index]),
-            f"a {'negative' if mean < 0 else 'positive'} charge like the rest of the set",
+            f"a {'negative' if set_sign < 0 else 'positive'} charge like the rest of the set",
             "has a sign that contradicts the bias of its set",
         )
 
@@ -320,9 +327,9 @@ def _reading_sets(
         if readings is None or len(readings) == 0:
             sets[key] = None
             continue
-        stats = set_statistics(readings, f"{key}_nC", threshold)
-        _check_set_signs(key, np.asarray(readings, dtype=float), stats.mean_nC)
-        sets[key] = stats
+        values = readings_array(f"{key}_nC", readings)
+        _check_set_signs(key, values)
+        sets[key] = set_statistics(values, f"{key}_nC", threshold)
     _check_cross_signs(sets)
     return sets
 

@@ -121,10 +121,12 @@ def _table(beam: Beam) -> Mapping[float, tuple[float, float, float]]:
     raise InputError("beam", beam.value, "pulsed or pulsed-scanned", "has no tabulated quadratic")
 
 
-def tabulated_coefficients(n: object, beam: Beam | str) -> tuple[Number, Number, Number]:
+def tabulated_coefficients(
+    n: object, beam: Beam | str, field: str = "voltage ratio routine_V/reduced_V"
+) -> tuple[Number, Number, Number]:
     """Return the TRS-398 coefficients (a0, a1, a2) for voltage ratio ``n`` and ``beam``.
 
-    Raises InputError when ``n`` is not within 0.02 of a tabulated ratio.
+    Raises InputError naming ``field`` when ``n`` is not within 0.02 of a tabulated ratio.
     """
     table = _table(parse_beam(beam))
     rows = np.array(list(table))
@@ -137,7 +139,7 @@ def tabulated_coefficients(n: object, beam: Beam | str) -> tuple[Number, Number,
     if np.any(unmatched):
         allowed = ", ".join(f"{row:g}" for row in rows) + " (TRS-398 table, ±0.02)"
         raise InputError(
-            "voltage ratio routine_V/reduced_V",
+            field,
             first_where(ratio, unmatched),
             allowed,
             "is not in the table",

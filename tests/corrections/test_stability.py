@@ -1,0 +1,131 @@
+"""Flags: each limit raises its flag just past the threshold and stays quiet inside it."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import pytest
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.stability import (
+    Thresholds,
+    environment_flags,
+    humidity_flags,
+    k_pol_flags,
+    k_s_flags,
+    leakage_flags,
+    set_flags,
+    sign_flags,
+)
+from chargebook.corrections.statistics import set_statistics
+
+LIMITS = Thresholds()
+STEADY = [20.110, 20.112, 20.111, 20.113, 20.110]
+
+
+def codes(flags: list) -> list[str]:
+    return [flag.code for flag in flags]
+
+
+def test_documented_defaults() -> None:
+    # k_pol 0.4 % (TG-51 addendum, from memory); k_s 1.05 (from memory); leakage 0.1 %
+    # (TG-51 addendum, from memory); modified z 3.5 (Iglewicz and Hoaglin 1993).
+    assert LIMITS.k_pol_deviation_pct == 0.4
+    assert LIMITS.k_s_max == 1.05
+    assert LIMITS.leakage_pct == 0.1
+    assert LIMITS.outlier_modified_z == 3.5
+
+
+def test_steady_set_has_no_flags() -> None:
+    assert set_flags("routine", set_statistics(STEADY), LIMITS) == []
+
+
+def test_single_reading_is_said_not_guessed() -> None:
+    flags = set_flags("opposite", set_statistics([20.1]), LIMITS)
+    assert codes(flags) == ["opposite_single_reading"]
+    assert "SD is undefined" in flags[0].message
+    assert flags[0].severity == "info"
+
+
+def test_scatter_flag_says_how_much_and_the_limit() -> None:
+    flags = set_flags("routine", set_statistics([20.0, 20.1, 19.95, 20.08, 19.97]), LIMITS)
+    assert "routine_sd_high" in codes(flags)
+    message = next(f.message for f in flags if f.code == "routine_sd_high")
+    assert "0.2 % limit" in message
+
+
+def test_drift_flag() -> None:
+    drifting = [20.00, 20.02, 20.04, 20.06, 20.08]  # +0.1 % per reading
+    assert "reduced_drift" in codes(set_flags("reduced", set_statistics(drifting), LIMITS))
+
+
+def test_settling_flag_for_a_first_reading_apart() -> None:
+    readings = [20.20, 20.11, 20.11, 20.112, 20.109]
+    assert "opposite_not_settled" in codes(set_flags("opposite", set_statistics(readings), LIMITS))
+
+
+def test_outlier_flag_names_the_reading_number() -> None:
+    readings = [20.11, 20.112, 20.111, 20.30, 20.11]
+    flags = set_flags("routine", set_statistics(readings), LIMITS)
+    message = next(f.message for f in flags if f.code == "routine_outlier")
+    assert "reading(s) 4 " in message
+
+
+def test_thresholds_are_settings() -> None:
+    strict = dataclasses.replace(LIMITS, relative_sd_pct=0.001)
+    assert "routine_sd_high" in codes(set_flags("routine", set_statistics(STEADY), strict))
+
+
+@pytest.mark.parametrize(
+    ("k_pol", "flagged"), [(1.0039, False), (0.9961, False), (1.0041, True), (0.9959, True)]
+)
+def test_k_pol_limit(k_pol: float, flagged: bool) -> None:
+    assert bool(k_pol_flags(k_pol, "k_pol", LIMITS)) is flagged
+
+
+@pytest.mark.parametrize(("k_s", "flagged"), [(1.05, False), (1.0501, True)])
+def test_k_s_limit(k_s: float, flagged: bool) -> None:
+    flags = k_s_flags(k_s, "P_ion", LIMITS)
+    assert bool(flags) is flagged
+    if flagged:
+        assert flags[0].message.startswith("P_ion = 1.0501")
+
+
+@pytest.mark.parametrize(("leakage", "flagged"), [(0.02, False), (-0.021, True)])
+def test_leakage_limit(leakage: float, flagged: bool) -> None:
+    # 0.1 % of 20 nC is 0.02 nC.
+    assert bool(leakage_flags(leakage, 20.0, LIMITS)) is flagged
+
+
+def test_changing_environment() -> None:
+    flags = environment_flags([20.0, 20.3, 20.7], [101.0, 101.1], LIMITS)
+    assert codes(flags) == ["temperature_changing"]
+    flags = environment_flags([20.0], [101.0, 101.3], LIMITS)
+    assert codes(flags) == ["pressure_changing"]
+
+
+def test_humidity_flags() -> None:
+    assert codes(humidity_flags(None)) == ["k_h_assumed"]
+    assert humidity_flags(50.0) == []
+    assert codes(humidity_flags(90.0)) == ["humidity_out_of_band"]
+
+
+def test_sign_against_bias_only_when_the_convention_is_known() -> None:
+    assert sign_flags(300.0, -20.0, LIMITS) == []
+    known = dataclasses.replace(LIMITS, charge_sign_for_positive_bias=1)
+    assert codes(sign_flags(300.0, -20.0, known)) == ["sign_against_bias"]
+    assert sign_flags(-300.0, -20.0, known) == []
+
+
+@pytest.mark.parametrize(
+    ("change", "field"),
+    [
+        ({"relative_sd_pct": -0.1}, "thresholds.relative_sd_pct"),
+        ({"k_s_max": 0.99}, "thresholds.k_s_max"),
+        ({"minimum_readings": 0}, "thresholds.minimum_readings"),
+        ({"charge_sign_for_positive_bias": 2}, "thresholds.charge_sign_for_positive_bias"),
+    ],
+)
+def test_bad_thresholds_are_refused(change: dict, field: str) -> None:
+    with pytest.raises(InputError) as caught:
+        Thresholds(**change)
+    assert caught.value.field == field

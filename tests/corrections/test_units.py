@@ -1,0 +1,56 @@
+"""Input unit conversions: pressure in kPa/hPa/mmHg, N_D,w in Gy/nC, Gy/C, cGy/nC."""
+
+from __future__ import annotations
+
+import pytest
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.units import Conversion, N_Dw_Gy_per_nC, pressure_kPa
+
+
+def test_standard_atmosphere_in_mmHg() -> None:
+    # 1 mmHg = 0.133322 kPa (REFERENCE.md); 760 mmHg is one standard atmosphere, 101.325 kPa
+    # (the definition of the standard atmosphere; the 6-digit factor leaves 3e-4 kPa).
+    assert pressure_kPa(760.0, "mmHg") == pytest.approx(101.325, abs=5e-4)
+    assert pressure_kPa(750.0, "mmHg") == pytest.approx(750.0 * 0.133322, rel=1e-12)
+
+
+def test_hPa_is_a_tenth_of_a_kPa() -> None:
+    # SI prefixes: 1 hPa = 100 Pa = 0.1 kPa.
+    assert pressure_kPa(1013.25, "hPa") == pytest.approx(101.325, rel=1e-12)
+
+
+def test_pressure_range_is_checked_in_the_unit_entered() -> None:
+    with pytest.raises(InputError) as caught:
+        pressure_kPa(5000.0, "hPa")
+    assert caught.value.field == "pressure_hPa"
+    assert "600 to 1100 hPa" in str(caught.value)
+
+
+def test_unknown_pressure_unit_is_refused() -> None:
+    with pytest.raises(InputError, match="psi"):
+        pressure_kPa(14.7, "psi")
+
+
+@pytest.mark.parametrize(
+    ("value", "unit", "expected"),
+    [
+        (0.0538, "Gy/nC", 0.0538),
+        (5.38e7, "Gy/C", 0.0538),  # 1 nC = 1e-9 C (SI)
+        (5.38, "cGy/nC", 0.0538),  # 1 cGy = 0.01 Gy (SI)
+    ],
+)
+def test_calibration_coefficient_units(value: float, unit: str, expected: float) -> None:
+    assert N_Dw_Gy_per_nC(value, unit) == pytest.approx(expected, rel=1e-12)
+
+
+def test_negative_calibration_coefficient_is_refused() -> None:
+    with pytest.raises(InputError) as caught:
+        N_Dw_Gy_per_nC(-5.38e7, "Gy/C")
+    assert caught.value.field == "N_Dw_Gy_per_C"
+    assert "-5.38e+07" in str(caught.value)
+
+
+def test_conversion_reads_as_the_operator_sees_it() -> None:
+    conversion = Conversion("pressure", 1013.25, "hPa", 101.325, "kPa")
+    assert conversion.text() == "pressure 1013.25 hPa = 101.325 kPa"
+    assert conversion.to_dict()["text"] == conversion.text()
