@@ -665,6 +665,15 @@ class Store:
                 self._one(SessionRow, "sessions", session_id, "session")
             return self._insert("traffic", row)
 
+    def traffic_count(self, session_id: int | None) -> int:
+        """Return how many raw lines were recorded for the session (``None``: outside any)."""
+        where = "session_id IS NULL" if session_id is None else "session_id = ?"
+        params = () if session_id is None else (session_id,)
+        with self._lock:
+            return int(
+                self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
+            )
+
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""
         if session_id is None:

@@ -226,6 +226,7 @@ def test_traffic_and_events_outside_a_session(store: Store) -> None:
     store.add_traffic(None, 0.1, "tx", b"*IDN?\n")
     store.add_event(None, "daemon", "instrument_identified", {"serial": "EM-2093"})
     assert [t.line for t in store.traffic(None)] == [b"*IDN?\n"]
+    assert store.traffic_count(None) == 1
     assert [e.detail() for e in store.events(None)] == [{"serial": "EM-2093"}]
 
 
@@ -426,6 +427,7 @@ def test_a_worker_thread_can_record_traffic_while_readings_arrive(store: Store) 
         _reading(store, session_id, set_id, seq, 20.0 + seq / 1000)
     worker.join()
     assert [t.line for t in store.traffic(session_id)] == [f"{i}\n".encode() for i in range(200)]
+    assert store.traffic_count(session_id) == 200
     assert len(store.readings(session_id)) == 50
 
 
