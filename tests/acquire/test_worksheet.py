@@ -1,0 +1,149 @@
+"""Worksheets are read strictly: every shipped example loads, every mistake is named."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import chargebook.acquire
+import pytest
+from chargebook.acquire.worksheet import load_worksheet, read_worksheet
+from chargebook.corrections.errors import InputError
+
+EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
+
+MINIMAL = """
+convention = "trs398"
+beam = "pulsed"
+[readings]
+routine_nC = [14.7, 14.71, 14.69]
+"""
+
+
+def write(tmp_path: Path, text: str, name: str = "sheet.toml") -> Path:
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_the_six_mv_example_loads_every_section() -> None:
+    worksheet = read_worksheet(EXAMPLES / "hcc-la1-6mv.toml")
+    inputs = worksheet.inputs
+    assert inputs.convention == "trs398"
+    assert inputs.routine_nC[0] == 14.747
+    assert inputs.reduced_bias_V == 100.0
+    assert inputs.tolerance_pct == "annual"
+    assert inputs.uncertainties.u_N_Dw_pct_k2 == 1.1
+    assert worksheet.session["machine"] == "HCC-LA1"
+    assert worksheet.session["date"] == "2026-03-02"  # a TOML date, kept as text
+
+
+def test_conversions_are_recorded() -> None:
+    inputs = load_worksheet(EXAMPLES / "hcc-la2-10fff.toml")
+    texts = [c.text() for c in inputs.conversions]
+    # 1 hPa = 0.1 kPa; 1 Gy/C = 1e-9 Gy/nC (SI).
+    assert texts == ["pressure 1018.5 hPa = 101.85 kPa", "N_D,w 5.41e+07 Gy/C = 0.0541 Gy/nC"]
+    assert inputs.pressure_kPa == pytest.approx(101.85)
+    assert inputs.N_Dw_Gy_per_nC == pytest.approx(0.0541)
+
+
+def test_json_worksheet_with_mmHg() -> None:
+    inputs = load_worksheet(EXAMPLES / "hcc-co60.json")
+    assert inputs.beam == "continuous"
+    assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322)  # 1 mmHg = 0.133322 kPa
+
+
+def test_cGy_per_nC_is_converted(tmp_path: Path) -> None:
+    path = write(tmp_path, MINIMAL + "[calibration]\nN_Dw_cGy_per_nC = 5.38\n")
+    inputs = load_worksheet(path)
+    assert inputs.N_Dw_Gy_per_nC == pytest.approx(0.0538)
+    assert inputs.conversions[0].text() == "N_D,w 5.38 cGy/nC = 0.0538 Gy/nC"
+
+
+def test_minimal_worksheet_leaves_the_rest_unknown(tmp_path: Path) -> None:
+    inputs = load_worksheet(write(tmp_path, MINIMAL))
+    assert inputs.temperature_C is None
+    assert inputs.opposite_nC == ()
+    assert inputs.k_elec is None
+
+
+def test_thresholds_section(tmp_path: Path) -> None:
+    text = MINIMAL + "[thresholds]\nrelative_sd_pct = 0.1\ncharge_sign_for_positive_bias = 1\n"
+    inputs = load_worksheet(write(tmp_path, text))
+    assert inputs.thresholds.relative_sd_pct == 0.1
+    assert inputs.thresholds.charge_sign_for_positive_bias == 1
+
+
+@pytest.mark.parametrize(
+    ("extra", "field", "words"),
+    [
+        ("[environment]\ntemperature = 21.0\n", "environment.temperature", "not a known key"),
+        ("[environmnet]\ntemperature_C = 21.0\n", "environmnet", "not a known key"),
+        ("[environment]\ntemperature_C = '21.0'\n", "environment.temperature_C", "wrong type"),
+        ("[environment]\ntemperature_C = true\n", "environment.temperature_C", "wrong type"),
+        (
+            "[environment]\npressure_kPa = 101.0\npressure_hPa = 1010.0\n",
+            "environment.pressure_hPa",
+            "together with pressure_kPa",
+        ),
+        ("[environment]\npressure_mmHg = 7600\n", "pressure_mmHg", "mmHg"),
+        ("[calibration]\nN_Dw_Gy_per_C = -5.4e7\n", "N_Dw_Gy_per_C", "Gy/C"),
+        ("[readings_extra]\nx = 1\n", "readings_extra", "not a known key"),
+        ("[thresholds]\nk_s_max = 0.9\n", "thresholds.k_s_max", "above 1"),
+    ],
+)
+def test_mistakes_are_named(tmp_path: Path, extra: str, field: str, words: str) -> None:
+    with pytest.raises(InputError) as caught:
+        load_worksheet(write(tmp_path, MINIMAL + extra))
+    assert caught.value.field == field
+    assert words in str(caught.value)
+
+
+@pytest.mark.parametrize(
+    ("text", "field", "words"),
+    [
+        ('convention = "trs398"\n[readings]\nroutine_nC = [1.0]\n', "beam", "is missing"),
+        ('beam = "pulsed"\nconvention = "trs398"\n', "readings.routine_nC", "is missing"),
+        (
+            'beam = "pulsed"\nconvention = "trs398"\n[readings]\nroutine_nC = []\n',
+            "readings.routine_nC",
+            "empty reading set",
+        ),
+        (
+            'beam = "pulsed"\nconvention = "trs398"\n[readings]\nroutine_nC = [14.7, "14.8"]\n',
+            "readings.routine_nC[1]",
+            "not a number",
+        ),
+        ('beam = "pulsed"\nconvention = "trs398"\nreadings = 3\n', "readings", "not a table"),
+    ],
+)
+def test_structure_errors_are_named(tmp_path: Path, text: str, field: str, words: str) -> None:
+    with pytest.raises(InputError) as caught:
+        load_worksheet(write(tmp_path, text))
+    assert caught.value.field == field
+    assert words in str(caught.value)
+
+
+def test_missing_file(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="cannot be read"):
+        load_worksheet(tmp_path / "nowhere.toml")
+
+
+def test_toml_syntax_error(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="is not valid TOML"):
+        load_worksheet(write(tmp_path, "convention = \n"))
+
+
+def test_json_syntax_error(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="is not valid JSON"):
+        load_worksheet(write(tmp_path, "{", "sheet.json"))
+
+
+def test_json_must_hold_a_table(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="is not a table"):
+        load_worksheet(write(tmp_path, json.dumps([1, 2]), "sheet.json"))
+
+
+def test_unknown_file_type(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match=r"\.toml or \.json"):
+        load_worksheet(write(tmp_path, MINIMAL, "sheet.txt"))

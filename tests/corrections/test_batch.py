@@ -1,0 +1,96 @@
+"""Batch re-analysis gives, session by session, what evaluate() gives."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from chargebook.corrections.air_density import k_TP
+from chargebook.corrections.batch import corrected_readings_nC, evaluate_sessions
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.evaluate import evaluate
+
+SESSIONS = 40
+RNG = np.random.default_rng(2093)  # invented inputs, seeded
+
+
+def invented_sessions() -> dict[str, np.ndarray]:
+    """Return NaN-padded sets for SESSIONS sessions, each with its own environment."""
+    scale = RNG.uniform(0.98, 1.02, SESSIONS)[:, None]
+    routine = scale * 14.75 * (1 + 3e-4 * RNG.standard_normal((SESSIONS, 5)))
+    routine[::3, 4] = np.nan  # every third session took only four readings
+    return {
+        "routine": routine,
+        "opposite": -scale * 14.776 * (1 + 3e-4 * RNG.standard_normal((SESSIONS, 3))),
+        "reduced": scale * 14.569 * (1 + 3e-4 * RNG.standard_normal((SESSIONS, 3))),
+        "temperature_C": RNG.uniform(18.0, 25.0, SESSIONS),
+        "pressure_kPa": RNG.uniform(97.0, 104.0, SESSIONS),
+    }
+
+
+def test_each_session_matches_evaluate(session) -> None:
+    data = invented_sessions()
+    batch = evaluate_sessions(
+        data["routine"],
+        data["opposite"],
+        data["reduced"],
+        temperature_C=data["temperature_C"],
+        pressure_kPa=data["pressure_kPa"],
+        routine_bias_V=300.0,
+        reduced_bias_V=100.0,
+        N_Dw_Gy_per_nC=0.0538,
+        k_Q=0.992,
+        k_elec=1.0,
+        monitor_units=100.0,
+        expected_cGy_per_MU=0.8,
+    )
+    for i in range(SESSIONS):
+        routine = data["routine"][i]
+        single = evaluate(
+            session(
+                routine_nC=tuple(routine[~np.isnan(routine)]),
+                opposite_nC=tuple(data["opposite"][i]),
+                reduced_nC=tuple(data["reduced"][i]),
+                temperature_C=float(data["temperature_C"][i]),
+                pressure_kPa=float(data["pressure_kPa"][i]),
+            )
+        )
+        assert batch.count[i] == single.sets["routine"].count
+        assert batch.k_s[i] == pytest.approx(single.factors["k_s"].value, rel=1e-12)
+        assert batch.dose_Gy[i] == pytest.approx(single.dose_Gy, rel=1e-12)
+        assert batch.deviation_pct[i] == pytest.approx(single.deviation_pct, rel=1e-9, abs=1e-12)
+        assert batch.relative_sd_pct[i] == pytest.approx(
+            single.sets["routine"].relative_sd_pct, rel=1e-9
+        )
+
+
+def test_readings_corrected_one_by_one() -> None:
+    charge = np.array([-14.75, -14.76, -14.74])
+    temperature = np.array([20.0, 21.0, 22.0])
+    result = corrected_readings_nC(charge, temperature, 101.0, k_pol=1.001, k_s=1.006, k_elec=0.999)
+    expected = [
+        abs(q) * k_TP(t, 101.0) * 1.001 * 1.006 * 0.999
+        for q, t in zip(charge, temperature, strict=True)
+    ]
+    assert result == pytest.approx(expected, rel=1e-14)
+
+
+def test_an_empty_session_is_refused_by_row() -> None:
+    routine = np.array([[14.7, 14.8], [np.nan, np.nan]])
+    with pytest.raises(InputError) as caught:
+        evaluate_sessions(
+            routine,
+            -routine,
+            routine,
+            temperature_C=20.0,
+            pressure_kPa=101.0,
+            routine_bias_V=300.0,
+            reduced_bias_V=100.0,
+            N_Dw_Gy_per_nC=0.0538,
+            k_Q=0.99,
+        )
+    assert caught.value.field == "routine_nC[1]"
+
+
+def test_an_out_of_range_temperature_is_refused_by_index() -> None:
+    with pytest.raises(InputError, match=r"temperature_C\[1\] = 45"):
+        corrected_readings_nC([14.7, 14.7], [20.0, 45.0], 101.0, k_pol=1.0, k_s=1.0, k_elec=1.0)
