@@ -562,12 +562,10 @@ class Engine:
         self.plan = live.resolve_plan(row.plan())
         events = self.store.events(row.id)
         self.skipped = {e.detail()["step_index"] for e in events if e.kind == "step_skipped"}
-        for event in events:
-            detail = event.detail()
-            if event.kind == "bias_changed":
-                self.bias_V = float(detail["volts"])
-            elif event.kind == "reading_recorded" and "integration_s" in detail:
-                self.integration_s[int(detail["reading_id"])] = float(detail["integration_s"])
+        bias_events = [e.detail() for e in events if e.kind == "bias_changed"]
+        if bias_events:
+            self.bias_V = float(bias_events[-1]["volts"])
+        self.integration_s = live.integration_times(events)
         sets = self.store.sets(row.id)
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
         index = next((i for i in range(len(self.plan.steps)) if i not in done), None)

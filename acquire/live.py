@@ -21,7 +21,7 @@ from chargebook.acquire import session_meta
 from chargebook.acquire.capture import CaptureSettings
 from chargebook.acquire.plan import Plan, Step, load_plan
 from chargebook.acquire.session_meta import SessionMetadata
-from chargebook.acquire.store import ReadingRow, SetRow, Store
+from chargebook.acquire.store import EventRow, ReadingRow, SetRow, Store
 from chargebook.corrections import limits, units
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds, set_flags
@@ -178,6 +178,17 @@ def _plain(stats: Any) -> dict[str, Any]:
 
 
 # ------------------------------------------------------------------------------ results
+def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
+    """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
+    times: dict[int, float] = {}
+    for event in events:
+        if event.kind == "reading_recorded":
+            detail = event.detail()
+            if "integration_s" in detail:
+                times[int(detail["reading_id"])] = float(detail["integration_s"])
+    return times
+
+
 def _set_for(
     sets: Sequence[SetRow], step_index: int, active_set_id: int | None
 ) -> tuple[SetRow | None, bool]:

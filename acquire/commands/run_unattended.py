@@ -1,0 +1,153 @@
+"""`chargebook run --unattended`: the engine with the automatic operator, in one process."""
+
+from __future__ import annotations
+
+import argparse
+
+from chargebook.acquire.commands.serve import add_instrument_arguments
+
+HELP = "take a whole plan through unattended (automatic operator) and print the session result"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Declare the instrument options (as `serve`) and the unattended run's own."""
+    add_instrument_arguments(parser)
+    parser.add_argument(
+        "--unattended",
+        action="store_true",
+        help="required: accept every prompt automatically (an attended run uses serve + console)",
+    )
+    parser.add_argument("--json", action="store_true", help="print one JSON object")
+    parser.add_argument(
+        "--metadata",
+        metavar="FILE",
+        help="session metadata, a .json or .toml file (required unless --bench-control is "
+        "given, when the invented demo metadata is used)",
+    )
+    parser.add_argument("--temperature-C", type=float, help="air temperature to enter, °C")
+    parser.add_argument("--pressure-kPa", type=float, help="air pressure to enter, kPa")
+
+
+def load_metadata(path: str) -> dict:
+    """Return session metadata from a JSON or TOML file; InputError naming the file if unusable."""
+    import json
+    import tomllib
+    from pathlib import Path
+
+    from chargebook.corrections.errors import InputError
+
+    source = Path(path)
+    try:
+        text = source.read_text(encoding="utf-8")
+        data = tomllib.loads(text) if source.suffix == ".toml" else json.loads(text)
+    except (OSError, ValueError) as error:
+        raise InputError("--metadata", path, "a readable .json or .toml file", str(error)) from None
+    if not isinstance(data, dict):
+        raise InputError("--metadata", path, "a table of session details", "is not a table")
+    return data
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the plan unattended; print the result; return 0, 2 on invalid input, 1 on failure."""
+    import asyncio
+    import sys
+
+    from chargebook.acquire.cli import EXIT_INVALID_INPUT
+    from chargebook.acquire.daemon_main import startup_errors
+    from chargebook.corrections.errors import InputError
+
+    if not args.unattended:
+        print(
+            "chargebook run: only --unattended runs exist; for an attended session start "
+            "'chargebook serve' and 'chargebook console'",
+            file=sys.stderr,
+        )
+        return EXIT_INVALID_INPUT
+    try:
+        return asyncio.run(_run(args))
+    except (InputError, *startup_errors()) as error:
+        print(f"chargebook run: {error}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
+
+
+async def _run(args: argparse.Namespace) -> int:
+    import asyncio
+    import json
+    import logging
+    import sys
+    import tempfile
+    from pathlib import Path
+
+    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.client import DaemonClient
+    from chargebook.acquire.daemon import Daemon
+    from chargebook.acquire.daemon_main import options_from_args
+    from chargebook.acquire.demo_data import demo_metadata
+    from chargebook.acquire.operator_auto import ACTOR, AutoOperator, AutoOperatorError
+    from chargebook.acquire.session_result import result_document
+    from chargebook.acquire.summary_text import reading_line, result_table
+    from chargebook.corrections.errors import InputError
+
+    logging.basicConfig(level=args.log_level, stream=sys.stderr)
+    if args.metadata:
+        metadata = load_metadata(args.metadata)
+    elif args.bench_control:
+        metadata = demo_metadata()
+    else:
+        raise InputError("--metadata", None, "a metadata file for a real instrument", "is missing")
+    environment = environment_source(args)
+    with tempfile.TemporaryDirectory(prefix="chargebook-run-") as private:
+        options = options_from_args(args, Path(private) / "daemon.sock")
+        daemon = Daemon(options)
+        ready = asyncio.get_running_loop().create_future()
+        serving = asyncio.create_task(daemon.run(lambda info: ready.set_result(info)))
+        await asyncio.wait({serving, ready}, return_when=asyncio.FIRST_COMPLETED)
+        if serving.done():
+            serving.result()  # raises why the daemon could not start
+        client = await DaemonClient.connect(options.socket_path, client="run", operator=ACTOR)
+
+        def progress(reading_set: dict, reading: dict) -> None:
+            if not args.json:
+                print(reading_line(reading_set, reading), file=sys.stderr, flush=True)
+
+        try:
+            final = await AutoOperator(client, environment, on_reading=progress).run(metadata)
+            assert daemon.store is not None
+            document = result_document(daemon.store, final["session"]["id"])
+        except AutoOperatorError as error:
+            print(f"chargebook run: {error}", file=sys.stderr)
+            return EXIT_FAILURE
+        finally:
+            await client.close()
+            daemon.shutdown()
+            await serving
+    if args.json:
+        print(json.dumps(document, indent=2, ensure_ascii=False))
+    else:
+        print(result_table(document))
+    return EXIT_OK
+
+
+def environment_source(args: argparse.Namespace):
+    """Return a callable giving the Environment to enter: the options given, else the bench."""
+    from chargebook.acquire.operator_auto import Environment
+    from chargebook.corrections.errors import InputError
+
+    if args.temperature_C is not None and args.pressure_kPa is not None:
+        fixed = Environment(args.temperature_C, args.pressure_kPa, "entered for the run")
+        return lambda: fixed
+    if args.bench_control:
+        from chargebook.acquire.bench import Bench
+
+        def from_bench() -> Environment:
+            bench = Bench(args.bench_control)
+            try:
+                temperature_C, pressure_kPa = bench.environment()
+            finally:
+                bench.close()
+            return Environment(temperature_C, pressure_kPa, "bench thermometer and barometer")
+
+        return from_bench
+    raise InputError(
+        "--temperature-C/--pressure-kPa", None, "both, or --bench-control", "are missing"
+    )

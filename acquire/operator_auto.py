@@ -1,0 +1,121 @@
+"""The automatic operator: a daemon client that takes a whole plan through without a person.
+
+It does what a careful operator would, and nothing a person must judge is hidden: it reads
+the temperature and pressure (from the bench's thermometer and barometer, or values given),
+confirms each manual bias change (the daemon's bench turns the simulated switch), arms each
+step, lets the simulated linac deliver, accepts each completed set, continues a set that was
+interrupted once the instrument is back, and runs optional steps too. Every action is recorded
+in the audit log under the actor ``automatic operator``.
+
+Used by ``chargebook run --unattended`` and ``chargebook demo --unattended``, and by tests.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from chargebook.acquire.client import DaemonClient
+from chargebook.acquire.protocol import EngineState, Method
+
+ACTOR = "automatic operator"
+#: Longest wait for the daemon to move on by itself (a reading, a reconnection), s.
+STALL_TIMEOUT_S = 120.0
+
+
+class AutoOperatorError(RuntimeError):
+    """The automatic operator cannot go on; the message says why in plain words."""
+
+
+@dataclass(frozen=True)
+class Environment:
+    """Air temperature (°C) and pressure (kPa) to enter, and where they came from."""
+
+    temperature_C: float
+    pressure_kPa: float
+    source: str
+
+
+ReadingCallback = Callable[[dict[str, Any], dict[str, Any]], None]
+
+
+class AutoOperator:
+    """Runs the daemon's plan to the end through ``client`` (already connected)."""
+
+    def __init__(
+        self,
+        client: DaemonClient,
+        environment: Callable[[], Environment],
+        *,
+        on_reading: ReadingCallback | None = None,
+        stall_timeout_s: float = STALL_TIMEOUT_S,
+    ) -> None:
+        self.client = client
+        self.environment = environment
+        self.on_reading = on_reading
+        self.stall_timeout_s = stall_timeout_s
+        self._seen: set[int] = set()
+
+    async def run(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
+        """Start a session (or continue the open one) and return the final snapshot."""
+        snapshot = await self.client.subscribe()
+        if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
+            snapshot = await self.client.call(Method.SESSION_CLOSE)
+        if snapshot["state"] == EngineState.IDLE:
+            snapshot = await self.client.call(Method.SESSION_START, metadata=metadata, plan=plan)
+        while snapshot["state"] != EngineState.FINISHED:
+            self._report(snapshot)
+            if snapshot["state"] == EngineState.ABORTED:
+                raise AutoOperatorError("the session was aborted: " + str(snapshot["session"]))
+            snapshot = await self._act(snapshot)
+        self._report(snapshot)
+        return snapshot
+
+    async def _act(self, snapshot: dict[str, Any]) -> dict[str, Any]:
+        allowed = snapshot["allowed"]
+        prompt = snapshot["prompt"]
+        if prompt["kind"] == "environment" and Method.ENVIRONMENT_SET in allowed:
+            entry = self.environment()
+            return await self.client.call(
+                Method.ENVIRONMENT_SET,
+                temperature_C=entry.temperature_C,
+                pressure=entry.pressure_kPa,
+                pressure_unit="kPa",
+                source=entry.source,
+            )
+        if Method.STEP_MANUAL_DONE in allowed:
+            if not snapshot["instrument"]["bench"]:
+                raise AutoOperatorError(
+                    "the plan needs a manual step (" + prompt["text"] + ") and no bench is "
+                    "attached to do it; run the daemon with --bench-control, or attend the session"
+                )
+            return await self.client.call(Method.STEP_MANUAL_DONE, note="confirmed automatically")
+        if Method.SET_ACCEPT in allowed:
+            return await self.client.call(Method.SET_ACCEPT)
+        if Method.STEP_ARM in allowed:
+            if not snapshot["instrument"]["bench"] and _needs_beam(snapshot):
+                raise AutoOperatorError(
+                    "nobody can deliver the beam: run the daemon with --bench-control "
+                    "(a simulated linac), or attend the session"
+                )
+            return await self.client.call(Method.STEP_ARM)
+        seq = snapshot["seq"]
+        return await self.client.wait_for_snapshot(
+            lambda s: s["seq"] > seq, timeout_s=self.stall_timeout_s
+        )
+
+    def _report(self, snapshot: dict[str, Any]) -> None:
+        if self.on_reading is None:
+            return
+        for entry in snapshot["sets"]:
+            for reading in entry["readings"]:
+                if reading["id"] not in self._seen:
+                    self._seen.add(reading["id"])
+                    self.on_reading(entry, reading)
+
+
+def _needs_beam(snapshot: dict[str, Any]) -> bool:
+    index = snapshot["step_index"]
+    plan = snapshot["plan"]
+    return index is not None and index < len(plan) and plan[index]["mu_per_reading"] > 0
