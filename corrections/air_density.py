@@ -9,7 +9,8 @@ T, T0 in °C and P, P0 in kPa; (T0, P0) are the convention's reference condition
 from __future__ import annotations
 
 from chargebook.corrections.conventions import Convention, constants
-from chargebook.corrections.limits import PRESSURE_KPA, TEMPERATURE_C, Number
+from chargebook.corrections.limits import TEMPERATURE_C, Number
+from chargebook.corrections.units import pressure_kPa as pressure_in_kPa
 
 #: The kelvin offset as both protocols print it (the exact 273.15 differs by < 2e-6 in k_TP).
 KELVIN_OFFSET_PROTOCOL = 273.2
@@ -23,11 +24,14 @@ def k_TP(
     reference_temperature_C: float | None = None,
     reference_pressure_kPa: float | None = None,
     kelvin_offset: float = KELVIN_OFFSET_PROTOCOL,
+    pressure_unit: str = "kPa",
 ) -> Number:
-    """Return k_TP (dimensionless) for air at ``temperature_C`` (°C) and ``pressure_kPa`` (kPa).
+    """Return k_TP (dimensionless) for air at ``temperature_C`` (°C) and ``pressure_kPa``.
 
-    Scalars or numpy arrays broadcast. The reference conditions come from ``convention`` unless
-    given explicitly (to reproduce a published worked example with other constants).
+    The pressure is in kPa unless ``pressure_unit`` says "hPa" or "mmHg" (1 mmHg = 0.133322
+    kPa); it is converted once and checked in the unit given. Scalars or numpy arrays
+    broadcast. The reference conditions come from ``convention`` unless given explicitly (to
+    reproduce a published worked example with other constants).
     Raises InputError for a temperature outside 10–40 °C or a pressure outside 60–110 kPa.
     """
     reference = constants(convention)
@@ -42,7 +46,7 @@ def k_TP(
         else reference_pressure_kPa
     )
     T = TEMPERATURE_C.check("temperature_C", temperature_C)
-    P = PRESSURE_KPA.check("pressure_kPa", pressure_kPa)
+    P = pressure_in_kPa(pressure_kPa, pressure_unit)
     return ((kelvin_offset + T) / (kelvin_offset + T0)) * (P0 / P)
 
 

@@ -480,9 +480,11 @@ def _model(
         else ("Type B: k_elec not entered (calibrated together)")
     )
     relative = (
-        RelativeInput("k_elec", u.u_k_elec_pct, f"{k_elec_source}, u = {u.u_k_elec_pct:g} %"),
         RelativeInput(
-            "N_D,w calibration coefficient",
+            factors["k_elec"].symbol, u.u_k_elec_pct, f"{k_elec_source}, u = {u.u_k_elec_pct:g} %"
+        ),
+        RelativeInput(
+            f"{factors['N_Dw'].symbol} calibration coefficient",
             factors["N_Dw"].u_rel_pct,
             "Type B: certificate, U(k=2) halved"
             if u.u_N_Dw_pct_k2 is not None
@@ -490,7 +492,7 @@ def _model(
             in_charge=False,
         ),
         RelativeInput(
-            "k_Q",
+            factors["k_Q"].symbol,
             u.u_k_Q_pct,
             "Type B: code of practice" if u.u_k_Q_pct is not None else "not given: left out of u_c",
             in_charge=False,

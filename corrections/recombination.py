@@ -18,7 +18,8 @@ Every function takes scalars or numpy arrays and broadcasts.
 from __future__ import annotations
 
 import enum
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from types import MappingProxyType
 
 import numpy as np
@@ -223,14 +224,52 @@ def k_s_boag(charge_ratio: object, n: object) -> Number:
     return 1.0 / boag_efficiency(boag_u(charge_ratio, n))
 
 
-def method(beam: Beam | str, convention: Convention | str) -> str:
-    """Return, in words, the two-voltage method used for ``beam`` under ``convention``."""
+def _tabulated_slope(charge_ratio: Number, n: Number, beam: Beam) -> Number:
+    _, a1, a2 = tabulated_coefficients(n, beam)
+    return a1 + 2.0 * a2 * charge_ratio
+
+
+@dataclass(frozen=True)
+class _Method:
+    """One two-voltage method: its description, k_s(M1/M2, n, beam) and dk_s/d(M1/M2)."""
+
+    description: str
+    value: Callable[[object, object, Beam], Number]
+    slope: Callable[[Number, Number, Beam], Number]
+
+
+_CONTINUOUS = _Method(
+    "continuous beam: (n² − 1)/(n² − M1/M2)",
+    lambda r, n, beam: k_s_continuous(r, n),
+    lambda r, n, beam: (n * n - 1.0) / (n * n - r) ** 2,
+)
+_LINEAR = _Method(
+    "TG-51 linear: (1 − n)/(M1/M2 − n)",
+    lambda r, n, beam: P_ion_linear(r, n),
+    lambda r, n, beam: (n - 1.0) / (r - n) ** 2,
+)
+_QUADRATIC = _Method(
+    "TRS-398 quadratic a0 + a1·M1/M2 + a2·(M1/M2)²",
+    k_s_tabulated,
+    _tabulated_slope,
+)
+
+
+def _method(beam: Beam | str, convention: Convention | str) -> tuple[Beam, _Method]:
     beam = parse_beam(beam)
     if beam is Beam.CONTINUOUS:
-        return "continuous beam: (n² − 1)/(n² − M1/M2)"
+        return beam, _CONTINUOUS
     if parse_convention(convention) is Convention.TG51:
-        return f"{beam.value} beam, TG-51 linear: (1 − n)/(M1/M2 − n)"
-    return f"{beam.value} beam, TRS-398 quadratic a0 + a1·M1/M2 + a2·(M1/M2)²"
+        return beam, _LINEAR
+    return beam, _QUADRATIC
+
+
+def method(beam: Beam | str, convention: Convention | str) -> str:
+    """Return, in words, the two-voltage method used for ``beam`` under ``convention``."""
+    beam, chosen = _method(beam, convention)
+    if chosen is _CONTINUOUS:
+        return chosen.description
+    return f"{beam.value} beam, {chosen.description}"
 
 
 def k_s(
@@ -239,13 +278,13 @@ def k_s(
     beam: Beam | str = Beam.PULSED,
     convention: Convention | str = Convention.TRS398,
 ) -> Number:
-    """Return k_s (TG-51: P_ion) by the method the protocol prescribes for ``beam``."""
-    beam = parse_beam(beam)
-    if beam is Beam.CONTINUOUS:
-        return k_s_continuous(charge_ratio, n)
-    if parse_convention(convention) is Convention.TG51:
-        return P_ion_linear(charge_ratio, n)
-    return k_s_tabulated(charge_ratio, n, beam)
+    """Return k_s (TG-51: P_ion) by the method the protocol prescribes for ``beam``.
+
+    Continuous beams: (n² − 1)/(n² − M1/M2) under both protocols; pulsed and pulsed-scanned
+    beams: TRS-398's tabulated quadratic, or TG-51's linear form.
+    """
+    beam, chosen = _method(beam, convention)
+    return chosen.value(charge_ratio, n, beam)
 
 
 def k_s_slope(
@@ -255,10 +294,5 @@ def k_s_slope(
     convention: Convention | str = Convention.TRS398,
 ) -> Number:
     """Return dk_s/d(M1/M2), the derivative of :func:`k_s` used in uncertainty propagation."""
-    beam = parse_beam(beam)
-    if beam is Beam.CONTINUOUS:
-        return (n * n - 1.0) / (n * n - charge_ratio) ** 2
-    if parse_convention(convention) is Convention.TG51:
-        return (n - 1.0) / (charge_ratio - n) ** 2
-    _, a1, a2 = tabulated_coefficients(n, beam)
-    return a1 + 2.0 * a2 * charge_ratio
+    beam, chosen = _method(beam, convention)
+    return chosen.slope(charge_ratio, n, beam)

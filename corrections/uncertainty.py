@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from chargebook.corrections.air_density import k_TP, k_TP_relative_sensitivity
-from chargebook.corrections.conventions import Convention
+from chargebook.corrections.conventions import Convention, constants
 from chargebook.corrections.polarity import k_pol, k_pol_relative_sensitivity
 from chargebook.corrections.recombination import Beam, k_s, k_s_slope
 
@@ -110,6 +110,7 @@ def k_s_log_slope(
 
 
 def _reading_components(model: ModelInputs) -> list[Component]:
+    symbols = constants(model.convention).symbols
     routine_c = 1.0
     components = []
     s_ks = 0.0
@@ -125,7 +126,7 @@ def _reading_components(model: ModelInputs) -> list[Component]:
             Component(
                 "opposite-polarity readings",
                 _times(opposite_share, _relative_u_pct(model.opposite_nC)),
-                "Type A: standard error of the mean, through k_pol",
+                f"Type A: standard error of the mean, through {symbols['k_pol']}",
             )
         )
     if model.has_k_s:
@@ -133,13 +134,14 @@ def _reading_components(model: ModelInputs) -> list[Component]:
             Component(
                 "reduced-bias readings",
                 _times(s_ks, _relative_u_pct(model.reduced_nC)),
-                "Type A: standard error of the mean, through k_s",
+                f"Type A: standard error of the mean, through {symbols['k_s']}",
             )
         )
     routine = Component(
         "routine readings",
         _times(routine_c + s_ks, _relative_u_pct(model.routine_nC)),
-        "Type A: standard error of the mean, through M_raw, k_pol and k_s",
+        "Type A: standard error of the mean, through "
+        f"{symbols['M_raw']}, {symbols['k_pol']} and {symbols['k_s']}",
     )
     return [routine, *components]
 
@@ -147,17 +149,18 @@ def _reading_components(model: ModelInputs) -> list[Component]:
 def _environment_components(model: ModelInputs) -> list[Component]:
     if not model.has_k_TP:
         return []
+    symbols = constants(model.convention).symbols
     per_C, per_kPa = k_TP_relative_sensitivity(model.temperature_C.value, model.pressure_kPa.value)
     return [
         Component(
             "temperature",
             100.0 * abs(per_C) * model.temperature_C.u,
-            f"Type B: thermometer, u = {model.temperature_C.u:g} °C, through k_TP",
+            f"Type B: thermometer, u = {model.temperature_C.u:g} °C, through {symbols['k_TP']}",
         ),
         Component(
             "pressure",
             100.0 * abs(per_kPa) * model.pressure_kPa.u,
-            f"Type B: barometer, u = {model.pressure_kPa.u:g} kPa, through k_TP",
+            f"Type B: barometer, u = {model.pressure_kPa.u:g} kPa, through {symbols['k_TP']}",
         ),
     ]
 

@@ -73,3 +73,17 @@ def test_bad_input_names_the_field(temperature: object, pressure: object, field:
     with pytest.raises(InputError) as caught:
         k_TP(temperature, pressure)
     assert caught.value.field == field
+
+
+@pytest.mark.parametrize(
+    ("pressure", "unit"), [(101.325, "kPa"), (1013.25, "hPa"), (760.0, "mmHg")]
+)
+def test_pressure_units(pressure: float, unit: str) -> None:
+    # One standard atmosphere, 101.325 kPa = 1013.25 hPa = 760 mmHg (definition; the 6-digit
+    # mmHg factor 0.133322 leaves 3e-6 relative).
+    assert k_TP(20.0, pressure, pressure_unit=unit) == pytest.approx(1.0, abs=5e-6)
+
+
+def test_pressure_unit_range_is_checked_in_that_unit() -> None:
+    with pytest.raises(InputError, match=r"pressure_hPa = 101\.3 "):
+        k_TP(20.0, 101.3, pressure_unit="hPa")

@@ -11,6 +11,14 @@ from chargebook.corrections.evaluate import evaluate
 
 SESSIONS = 40
 RNG = np.random.default_rng(2093)  # invented inputs, seeded
+#: The session settings shared by every session of the batch (as in the conftest session).
+SETTINGS = {
+    "routine_bias_V": 300.0,
+    "reduced_bias_V": 100.0,
+    "N_Dw_Gy_per_nC": 0.0538,
+    "k_Q": 0.992,
+    "k_elec": 1.0,
+}
 
 
 def invented_sessions() -> dict[str, np.ndarray]:
@@ -35,11 +43,7 @@ def test_each_session_matches_evaluate(session) -> None:
         data["reduced"],
         temperature_C=data["temperature_C"],
         pressure_kPa=data["pressure_kPa"],
-        routine_bias_V=300.0,
-        reduced_bias_V=100.0,
-        N_Dw_Gy_per_nC=0.0538,
-        k_Q=0.992,
-        k_elec=1.0,
+        **SETTINGS,
         monitor_units=100.0,
         expected_cGy_per_MU=0.8,
     )
@@ -83,10 +87,7 @@ def test_an_empty_session_is_refused_by_row() -> None:
             routine,
             temperature_C=20.0,
             pressure_kPa=101.0,
-            routine_bias_V=300.0,
-            reduced_bias_V=100.0,
-            N_Dw_Gy_per_nC=0.0538,
-            k_Q=0.99,
+            **SETTINGS,
         )
     assert caught.value.field == "routine_nC[1]"
 
