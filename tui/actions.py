@@ -23,6 +23,12 @@ class OperatorAction:
     methods: tuple[str, ...]  #: daemon methods, any of which makes the action legal
     help: str  #: one line saying what it does, for the tooltip
     hidden_unless_allowed: bool = False  #: keep the key help short for rare actions
+    short_label: str = ""  #: the label in the key help when the full one is too long for 80 columns
+
+    @property
+    def key_help(self) -> str:
+        """Return the label shown in the key help at the foot of the screen."""
+        return self.short_label or self.label
 
 
 ACTIONS: tuple[OperatorAction, ...] = (
@@ -57,6 +63,7 @@ ACTIONS: tuple[OperatorAction, ...] = (
         "T & P",
         (Method.ENVIRONMENT_SET,),
         "Enter a new air temperature and pressure",
+        short_label="T&P",
     ),
     OperatorAction(
         "manual_done",
@@ -64,6 +71,7 @@ ACTIONS: tuple[OperatorAction, ...] = (
         "Done by hand",
         (Method.STEP_MANUAL_DONE,),
         "Confirm the step the prompt asks for was done by hand",
+        short_label="By hand",
     ),
     OperatorAction(
         "skip",

@@ -75,7 +75,7 @@ def step_heading(snapshot: Snapshot) -> str:
     if step.get("mu_per_reading"):
         parts.append(f"{step['readings']} × {step['mu_per_reading']:g} MU")
     else:
-        parts.append(f"{step['readings']} readings")
+        parts.append("beam off")
     if step.get("optional"):
         parts.append("optional")
     return " · ".join(parts)
@@ -240,10 +240,14 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     ]
 
 
-def session_flags(snapshot: Snapshot) -> list[dict[str, Any]]:
-    """Return the session-level flags of the results (k_pol, k_s, leakage, environment...)."""
+def session_flags(snapshot: Snapshot, shown_set: SetInfo | None = None) -> list[dict[str, Any]]:
+    """Return the flags of the results (k_pol, k_s, leakage, environment, sets...).
+
+    Flags that ``shown_set`` already carries (same code) are left out, so nothing is said twice.
+    """
     results = snapshot.get("results") or {}
-    return list(results.get("flags") or [])
+    already = {item.get("code") for item in (shown_set or {}).get("flags") or []}
+    return [item for item in results.get("flags") or [] if item.get("code") not in already]
 
 
 def instrument_text(snapshot: Snapshot) -> str:

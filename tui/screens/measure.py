@@ -17,6 +17,7 @@ from chargebook.tui.screens.base import ConsoleScreen
 from chargebook.tui.screens.dialogs import ConfirmScreen, redo_question
 from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.widgets.action_bar import ActionBar
+from chargebook.tui.widgets.flag_list import FlagList, flag_count
 from chargebook.tui.widgets.history import SetHistory
 from chargebook.tui.widgets.plan_view import PlanView
 from chargebook.tui.widgets.reading_set import ReadingSetPanel
@@ -41,9 +42,10 @@ DIRECT_METHODS: dict[str, str] = {
 }
 
 TABS: tuple[tuple[str, str, str], ...] = (
-    ("1", "now", "Now 1"),
-    ("2", "sets", "Sets 2"),
-    ("3", "plan", "Plan 3"),
+    ("1", "now", "1 Now"),
+    ("2", "sets", "2 Sets"),
+    ("3", "plan", "3 Plan"),
+    ("4", "flags", "4 Flags"),
 )
 
 
@@ -53,7 +55,7 @@ class MeasureScreen(ConsoleScreen):
     kind = "measure"
     BINDINGS: ClassVar[list[BindingType]] = [
         *(
-            Binding(action.key, f"do('{action.name}')", action.label, tooltip=action.help)
+            Binding(action.key, f"do('{action.name}')", action.key_help, tooltip=action.help)
             for action in ACTIONS
         ),
         *(Binding(key, f"show_tab('{tab}')", title, show=False) for key, tab, title in TABS),
@@ -70,13 +72,21 @@ class MeasureScreen(ConsoleScreen):
                 yield SetHistory(id="set-history")
             with TabPane(TABS[2][2], id="plan"), VerticalScroll():
                 yield PlanView(id="plan-view")
+            with TabPane(TABS[3][2], id="flags"), VerticalScroll():
+                yield FlagList(id="flag-list")
         yield ActionBar(id="action-bar")
         yield Footer(compact=True, show_command_palette=False)
 
     # -- drawing, from the latest snapshot only --------------------------------------------
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
+        shown_set = self._shown_set(snapshot)
         self.query_one(StepPanel).snapshot = snapshot
-        self.query_one(ReadingSetPanel).set_info = self._shown_set(snapshot)
+        self.query_one(ReadingSetPanel).set_info = shown_set
+        self.query_one(FlagList).show_flags(shown_set, snapshot)
+        count = flag_count(shown_set, snapshot)
+        self.query_one(TabbedContent).get_tab("flags").label = (
+            f"{TABS[3][2]} ({count} !)" if count else TABS[3][2]
+        )
         self.query_one(ResultsPanel).snapshot = snapshot
         self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
         self.query_one(PlanView).show_plan(snapshot.get("plan") or [])

@@ -32,9 +32,9 @@ class EnvironmentFields(Vertical):
     def __init__(self, current: Mapping[str, Any] | None = None) -> None:
         super().__init__(classes="environment-fields")
         self.current = dict(current or {})
+        self.pressure_unit = str(self.current.get("pressure_unit") or "kPa")
 
     def compose(self) -> ComposeResult:
-        unit = str(self.current.get("pressure_unit") or "kPa")
         pressure = self.current.get("pressure_entered", self.current.get("pressure_kPa"))
         yield Field(
             "Air temperature °C",
@@ -47,7 +47,9 @@ class EnvironmentFields(Vertical):
             "pressure",
             _entered(pressure),
             check=checks.pressure_in(lambda: self.pressure_unit),
-            suffix=choice("pressure_unit", [(name, name) for name in PRESSURE_UNITS], unit),
+            suffix=choice(
+                "pressure_unit", [(name, name) for name in PRESSURE_UNITS], self.pressure_unit
+            ),
         )
         yield Field(
             "Humidity % (optional)",
@@ -56,17 +58,13 @@ class EnvironmentFields(Vertical):
             check=checks.HUMIDITY,
         )
 
-    @property
-    def pressure_unit(self) -> str:
-        """Return the pressure unit chosen (kPa, hPa or mmHg)."""
-        return str(self.query_one("#choice-pressure_unit", Select).value)
-
     def field(self, name: str) -> Field:
         """Return the entry for ``name`` (temperature_C, pressure or humidity_pct)."""
         return self.query_one(f"#field-{name}", Field)
 
     @on(Select.Changed, "#choice-pressure_unit")
-    def unit_changed(self) -> None:
+    def unit_changed(self, event: Select.Changed) -> None:
+        self.pressure_unit = str(event.value)
         self.field("pressure").recheck()
 
     def params(self) -> dict[str, Any] | None:

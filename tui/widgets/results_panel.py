@@ -61,4 +61,6 @@ class ResultsPanel(Vertical):
         self.query_one("#factor-table", Static).update(factor_table(snapshot.get("results")))
         self.query_one("#results-table", Static).update(results_table(snapshot))
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
-        self.query_one("#session-flags", Static).update("\n".join(flags))
+        self.query_one("#session-flags", Static).update(
+            "Flags (all in tab 4):\n" + "\n".join(flags)
+        )

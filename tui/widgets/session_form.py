@@ -83,6 +83,7 @@ class SessionForm(Vertical):
     def __init__(self, defaults: Mapping[str, Any] | None = None) -> None:
         super().__init__(id="session-form")
         self.defaults = dict(defaults or {})
+        self.N_Dw_unit = str(self.defaults.get("N_Dw_unit") or "Gy/nC")
 
     def compose(self) -> ComposeResult:
         value = self.defaults.get
@@ -93,13 +94,12 @@ class SessionForm(Vertical):
         yield ChoiceField("Beam type", "beam_type", BEAM_TYPES, value("beam_type") or "pulsed")
         yield ChoiceField("Convention", "convention", CONVENTIONS, value("convention") or "trs398")
         yield Static("Calibration and expected output", classes="section-title")
-        unit = value("N_Dw_unit") or "Gy/nC"
         yield Field(
             "N_D,w",
             "N_Dw",
             _shown(value("N_Dw")),
             check=checks.calibration_in(lambda: self.N_Dw_unit),
-            suffix=choice("N_Dw_unit", N_DW_UNITS, unit),
+            suffix=choice("N_Dw_unit", N_DW_UNITS, self.N_Dw_unit),
         )
         for key, label, check, required in NUMBER_FIELDS:
             yield Field(
@@ -113,13 +113,9 @@ class SessionForm(Vertical):
             placeholder="empty: TG-142 monthly",
         )
 
-    @property
-    def N_Dw_unit(self) -> str:
-        """Return the unit chosen for N_D,w."""
-        return str(self.query_one("#choice-N_Dw_unit", Select).value)
-
     @on(Select.Changed, "#choice-N_Dw_unit")
-    def unit_changed(self) -> None:
+    def unit_changed(self, event: Select.Changed) -> None:
+        self.N_Dw_unit = str(event.value)
         self.query_one("#field-N_Dw", Field).recheck()
 
     def metadata(self) -> dict[str, Any] | None:
