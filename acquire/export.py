@@ -1,0 +1,176 @@
+"""Exports of one stored session: CSV (the readings), JSON (everything) and HTML (the report).
+
+CSV: one row per reading, settling and superseded ones included, with its set's step, purpose,
+bias, attempt and status, and ``used`` (1 when the reading counts for results: a non-settling
+reading of an accepted set). Columns: :data:`CSV_COLUMNS`.
+
+JSON: one object with the keys of :data:`JSON_KEYS`:
+
+* ``format`` ("chargebook-session") and ``format_version`` (1);
+* ``generated_at`` (UTC ISO) and ``chargebook_version``;
+* ``session``: the stored row (``id, created_at, status, convention, beam, replay_of,
+  closed_at, reason``) with ``metadata`` and ``plan`` decoded;
+* ``instrument``: the identity the daemon recorded (``instrument_identified``), or null;
+* ``sets``: each reading set's stored row, with ``readings`` (each reading's stored row);
+* ``environment``: every environment entry; ``events``: the whole audit log, ``detail`` decoded;
+* ``traffic_lines``: how many raw instrument lines are kept (``traffic`` too, with
+  ``include_traffic``: each line's ``t_s, recorded_at, direction`` and ``line`` as text with
+  undecodable bytes escaped);
+* ``results``: ``Evaluation.to_dict()`` recomputed from the raw values, or null;
+  ``results_error``: why there are no results, or null;
+* ``caution``: the safety caution.
+
+HTML: see ``report_html``.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from datetime import UTC, datetime
+from importlib import metadata as package_metadata
+from typing import Any
+
+from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.report_data import SessionRecord, plain
+from chargebook.acquire.store import Store
+
+FORMATS = ("csv", "json", "html")
+JSON_FORMAT = "chargebook-session"
+JSON_FORMAT_VERSION = 1
+JSON_KEYS = (
+    "format",
+    "format_version",
+    "generated_at",
+    "chargebook_version",
+    "session",
+    "instrument",
+    "sets",
+    "environment",
+    "events",
+    "traffic_lines",
+    "results",
+    "results_error",
+    "caution",
+)
+CSV_COLUMNS = (
+    "session_id",
+    "set_id",
+    "step_index",
+    "step_key",
+    "purpose",
+    "polarity",
+    "bias_V",
+    "attempt",
+    "set_status",
+    "reading_id",
+    "seq",
+    "t_s",
+    "charge_nC",
+    "capture",
+    "settling",
+    "status",
+    "used",
+    "recorded_at",
+)
+
+
+def chargebook_version() -> str:
+    """Return the installed chargebook version ("unknown" outside an installed tree)."""
+    try:
+        return package_metadata.version("chargebook")
+    except package_metadata.PackageNotFoundError:
+        return "unknown"
+
+
+def generated_at() -> str:
+    """Return the current UTC time as ISO 8601, seconds precision."""
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+def to_csv(record: SessionRecord) -> str:
+    """Return the session's readings as CSV text with a header row (:data:`CSV_COLUMNS`)."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(CSV_COLUMNS)
+    for reading_set in record.sets:
+        row = reading_set.row
+        for reading in reading_set.readings:
+            used = row.status == "accepted" and not reading.settling
+            writer.writerow(
+                (
+                    record.session.id,
+                    row.id,
+                    row.step_index,
+                    row.step_key,
+                    row.purpose,
+                    row.polarity,
+                    repr(row.bias_V),
+                    row.attempt,
+                    row.status,
+                    reading.id,
+                    reading.seq,
+                    repr(reading.t_s),
+                    repr(reading.charge_nC),
+                    reading.capture,
+                    int(reading.settling),
+                    reading.status,
+                    int(used),
+                    reading.recorded_at,
+                )
+            )
+    return out.getvalue()
+
+
+def to_json_data(
+    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+) -> dict[str, Any]:
+    """Return the session as a JSON-ready dict with the keys of :data:`JSON_KEYS`."""
+    session = plain(record.session)
+    session["metadata"] = record.session.metadata()
+    session["plan"] = record.session.plan()
+    del session["metadata_json"], session["plan_json"]
+    events = []
+    for event in record.events:
+        item = plain(event)
+        item["detail"] = event.detail()
+        del item["detail_json"]
+        events.append(item)
+    data: dict[str, Any] = {
+        "format": JSON_FORMAT,
+        "format_version": JSON_FORMAT_VERSION,
+        "generated_at": generated_at(),
+        "chargebook_version": chargebook_version(),
+        "session": session,
+        "instrument": record.instrument,
+        "sets": [{**plain(s.row), "readings": plain(s.readings)} for s in record.sets],
+        "environment": plain(record.environment),
+        "events": events,
+        "traffic_lines": record.traffic_lines,
+        "results": record.evaluation.to_dict() if record.evaluation else None,
+        "results_error": record.results_error,
+        "caution": CAUTION,
+    }
+    if include_traffic and store is not None:
+        data["traffic"] = [
+            {k: v for k, v in plain(t).items() if k not in ("id", "session_id")}
+            for t in store.traffic(record.session.id)
+        ]
+    return data
+
+
+def to_json(
+    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+) -> str:
+    """Return the session as JSON text (see :func:`to_json_data`), strict: no NaN."""
+    data = to_json_data(record, store, include_traffic)
+    return json.dumps(data, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def to_html(record: SessionRecord) -> str:
+    """Return the session's self-contained printable HTML report."""
+    from chargebook.acquire.report_html import session_html
+
+    stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
+    return session_html(record, stamp)

@@ -1,0 +1,173 @@
+"""Everything the read-side commands show about a session, loaded from the store once.
+
+A :class:`SessionRecord` holds the stored raw values (session row, plan, reading sets with their
+readings, environment entries, events) and the results, which are always recomputed from those
+raw values by ``chargebook.corrections.evaluate.evaluate``: the readings of the accepted sets,
+the latest environment entry and the metadata, gathered exactly as the daemon gathers them for
+its live results (``chargebook.acquire.live.measurement_inputs``).
+
+Nothing here writes to the store.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from chargebook.acquire.plan import Plan
+from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
+from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SessionRow, SetRow, Store
+from chargebook.corrections.errors import InputError
+from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
+
+#: Set statuses that end a set without it counting: the audit lists each with its reason.
+UNUSED_SET_STATUSES = ("superseded", "aborted", "interrupted")
+#: Event kinds the audit of a session lists (besides set and session status changes).
+AUDIT_EVENT_KINDS = (
+    "manual_step_done",
+    "bias_changed",
+    "step_skipped",
+    "reading_dropped",
+    "instrument_lost",
+    "instrument_back",
+    "session_resumed",
+    "note",
+)
+INSTRUMENT_EVENT = "instrument_identified"
+
+
+@dataclass(frozen=True)
+class SetRecord:
+    """One stored reading set and its readings, in the order taken."""
+
+    row: SetRow
+    readings: tuple[ReadingRow, ...]
+
+    @property
+    def used(self) -> tuple[ReadingRow, ...]:
+        """Return the readings that count (settling readings are kept but not used)."""
+        return tuple(r for r in self.readings if not r.settling)
+
+
+@dataclass(frozen=True)
+class SessionRecord:
+    """One session as stored, with its results recomputed from the raw values."""
+
+    session: SessionRow
+    plan: Plan | None
+    sets: tuple[SetRecord, ...]
+    environment: tuple[EnvironmentRow, ...]
+    events: tuple[EventRow, ...]
+    traffic_lines: int
+    evaluation: Evaluation | None
+    results_error: str | None
+
+    @property
+    def metadata(self) -> dict[str, Any]:
+        """Return the metadata as stored."""
+        return self.session.metadata()
+
+    @property
+    def instrument(self) -> dict[str, Any] | None:
+        """Return the latest instrument identity the daemon recorded, or None."""
+        found = [e for e in self.events if e.kind == INSTRUMENT_EVENT]
+        return found[-1].detail() if found else None
+
+    @property
+    def manual_readings(self) -> tuple[tuple[SetRow, ReadingRow], ...]:
+        """Return the readings captured by hand, with their sets."""
+        return tuple((s.row, r) for s in self.sets for r in s.readings if r.capture == "manual")
+
+    def audit(self) -> list[EventRow]:
+        """Return the events worth auditing: redos, aborts, manual steps, status changes."""
+        return [event for event in self.events if _worth_auditing(event)]
+
+
+def _worth_auditing(event: EventRow) -> bool:
+    if event.kind == "set_status":
+        return event.detail().get("to") in UNUSED_SET_STATUSES
+    return event.kind in AUDIT_EVENT_KINDS or event.kind == "session_status"
+
+
+def load_record(store: Store, session_id: int) -> SessionRecord:
+    """Return the session's stored record with results recomputed; NotFound if it is missing.
+
+    A session whose stored metadata or readings cannot be evaluated still loads: its
+    ``evaluation`` is None and ``results_error`` says why, in the words of the InputError.
+    """
+    session = store.session(session_id)
+    readings = store.readings(session_id)
+    sets = tuple(
+        SetRecord(row, tuple(r for r in readings if r.set_id == row.id))
+        for row in store.sets(session_id)
+    )
+    environment = tuple(store.environment(session_id))
+    events = tuple(store.events(session_id))
+    plan: Plan | None = None
+    evaluation: Evaluation | None = None
+    error: str | None = None
+    stage = "the stored plan cannot be read"
+    try:
+        plan = Plan.from_dict(session.plan())
+        stage = "the stored metadata cannot be used"
+        metadata = validate_metadata(session.metadata())
+        stage = "the recorded values cannot be evaluated"
+        evaluation = evaluate(session_inputs(store, session_id, plan, metadata, events))
+    except InputError as problem:
+        error = f"{stage}: {problem}"
+    return SessionRecord(
+        session=session,
+        plan=plan,
+        sets=sets,
+        environment=environment,
+        events=events,
+        traffic_lines=store.traffic_count(session_id),
+        evaluation=evaluation,
+        results_error=error,
+    )
+
+
+def integration_times_s(events: tuple[EventRow, ...]) -> dict[int, float]:
+    """Return reading id -> integration time (s) from the daemon's reading_recorded events."""
+    times: dict[int, float] = {}
+    for event in events:
+        if event.kind == "reading_recorded":
+            detail = event.detail()
+            if "integration_s" in detail and "reading_id" in detail:
+                times[int(detail["reading_id"])] = float(detail["integration_s"])
+    return times
+
+
+def session_inputs(
+    store: Store,
+    session_id: int,
+    plan: Plan,
+    metadata: SessionMetadata,
+    events: tuple[EventRow, ...],
+) -> MeasurementInputs:
+    """Return the inputs of ``evaluate`` for a stored session, from its raw values only.
+
+    The accepted sets, the environment entries and the metadata are gathered exactly as the
+    daemon gathers them for its live results, so a report says what the console said.
+    """
+    from chargebook.acquire.live import measurement_inputs
+
+    inputs, _ = measurement_inputs(
+        store, session_id, plan, metadata.to_dict(), None, integration_times_s(events)
+    )
+    return inputs
+
+
+def plain(value: Any) -> Any:
+    """Return ``value`` with dataclasses, tuples and mappings turned into JSON-ready types."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, Mapping):
+        return {str(k): plain(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [plain(v) for v in value]
+    if isinstance(value, bytes):
+        return value.decode("utf-8", errors="backslashreplace")
+    return value

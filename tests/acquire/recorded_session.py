@@ -1,0 +1,183 @@
+"""Build recorded sessions in a real store, through the Store API, for the read-side tests.
+
+The readings, environment and calibration are those of the invented example worksheet
+``acquire/examples/hcc-la1-6mv.toml`` (Harbourside Cancer Centre, HCC-LA1, 6 MV; not a real
+measurement), laid out as the daemon records a session: a leakage set, a routine set with one
+settling reading, an opposite-polarity set redone once (the first attempt superseded, one
+reading captured by hand), a reduced-bias set, the instrument identity, two environment entries
+(the pressure typed in hPa) and the events the daemon writes.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from importlib import resources
+from typing import Any
+
+from chargebook.acquire.plan import Plan, SettlingRule, Step
+from chargebook.acquire.session_meta import validate_metadata
+from chargebook.acquire.store import Store
+
+OPERATOR = "R. Okafor"
+ROUTINE_INTEGRATION_S = 6.0
+LEAKAGE_DURATION_S = 60.0
+SETTLING_READING_nC = 14.790
+SUPERSEDED_nC = (-14.702, -14.688)
+SUPERSEDE_REASON = "chamber cable moved during the beam"
+
+
+def example() -> dict[str, Any]:
+    """Return the example worksheet's contents (invented Harbourside data)."""
+    text = (resources.files("chargebook.acquire") / "examples" / "hcc-la1-6mv.toml").read_text()
+    return tomllib.loads(text)
+
+
+def example_plan() -> Plan:
+    """Return a plan shaped like the example: leakage, 5 routine (+1 settling), 3, 3."""
+    data = example()
+    routine_V = float(data["bias"]["routine_V"])
+    reduced_V = float(data["bias"]["reduced_V"])
+    mu = float(data["calibration"]["monitor_units"])
+    return Plan(
+        "harbourside-example",
+        (
+            Step("leakage", "leakage", 1, routine_V, 1, 0.0, duration_s=LEAKAGE_DURATION_S),
+            Step("routine", "routine", 1, routine_V, 5, mu, SettlingRule(discard_first=1)),
+            Step("opposite", "opposite", -1, -routine_V, 3, mu),
+            Step("reduced", "reduced", 1, reduced_V, 3, mu),
+        ),
+        routine_bias_V=routine_V,
+        reduced_bias_V=reduced_V,
+    )
+
+
+def example_metadata(**changes: Any) -> dict[str, Any]:
+    """Return session metadata built from the example worksheet (plus ``changes``)."""
+    data = example()
+    calibration, uncertainty = data["calibration"], data["uncertainty"]
+    metadata = {
+        "treatment_machine": data["session"]["machine"],
+        "beam": "6 MV",
+        "beam_type": data["beam"],
+        "convention": data["convention"],
+        "chamber_model": "thimble 0.6 cc",
+        "chamber_serial": "CH-4417",
+        "electrometer_model": "bench electrometer",
+        "electrometer_serial": data["session"]["electrometer"],
+        "operator": data["session"]["operator"],
+        "N_Dw": calibration["N_Dw_Gy_per_nC"],
+        "N_Dw_unit": "Gy/nC",
+        "k_Q": calibration["k_Q"],
+        "k_elec": calibration["k_elec"],
+        "expected_cGy_per_MU": calibration["expected_cGy_per_MU"],
+        "tolerance_pct": calibration["tolerance_pct"],
+        "u_N_Dw_pct_k2": calibration["u_N_Dw_pct_k2"],
+        "u_k_Q_pct": calibration["u_k_Q_pct"],
+        "u_temperature_C": uncertainty["u_temperature_C"],
+        "u_pressure_kPa": uncertainty["u_pressure_kPa"],
+        "u_k_elec_pct": uncertainty["u_k_elec_pct"],
+        "beam_quality": data["session"]["beam_quality"],
+    }
+    metadata.update(changes)
+    return validate_metadata(metadata).to_dict()
+
+
+def _readings(
+    store: Store, session_id: int, set_id: int, charges: list[float], *, first_seq: int = 1, **kw
+) -> list[int]:
+    ids = []
+    for offset, charge in enumerate(charges):
+        capture = kw.get("capture_of", {}).get(offset, "auto")
+        reading_id = store.add_reading(
+            session_id,
+            set_id,
+            first_seq + offset,
+            10.0 * (first_seq + offset),
+            charge,
+            capture,
+            kw.get("settling", False),
+            "ok",
+        )
+        store.add_event(
+            session_id,
+            OPERATOR if capture == "manual" else "daemon",
+            "reading_recorded",
+            {"reading_id": reading_id, "integration_s": kw.get("integration_s", 6.0)},
+        )
+        ids.append(reading_id)
+    return ids
+
+
+def _accept(store: Store, set_id: int) -> None:
+    store.set_set_status(set_id, "reviewing")
+    store.set_set_status(set_id, "accepted", actor=OPERATOR)
+
+
+def record_example_session(
+    store: Store,
+    *,
+    scale: float = 1.0,
+    status: str = "finished",
+    replay_of: int | None = None,
+    **metadata_changes: Any,
+) -> int:
+    """Record the example as a finished session (charges multiplied by ``scale``); its id."""
+    data = example()
+    readings = data["readings"]
+    plan = example_plan()
+    metadata = example_metadata(**metadata_changes)
+    session_id = store.create_session(
+        metadata,
+        plan.to_dict(),
+        metadata["convention"],
+        metadata["beam"],
+        replay_of=replay_of,
+        actor=OPERATOR,
+    )
+    store.add_event(
+        session_id,
+        "daemon",
+        "instrument_identified",
+        {"manufacturer": "Bench", "model": "EM-1", "serial": "EM-2093", "firmware": "1.4"},
+    )
+    env = data["environment"]
+    store.add_environment(
+        session_id, env["temperature_C"] - 0.2, env["pressure_kPa"], 1006.0, "hPa", 45.0, "operator"
+    )
+    store.add_environment(
+        session_id,
+        env["temperature_C"],
+        env["pressure_kPa"],
+        env["pressure_kPa"] * 10,
+        "hPa",
+        float(env["humidity_pct"]),
+        "operator",
+    )
+
+    leakage = store.add_set(session_id, 0, "leakage", "leakage", 1, plan.routine_bias_V, 1)
+    leakage_nC = readings["leakage_nC"] * LEAKAGE_DURATION_S / ROUTINE_INTEGRATION_S
+    _readings(store, session_id, leakage, [leakage_nC], integration_s=LEAKAGE_DURATION_S)
+    _accept(store, leakage)
+
+    routine = store.add_set(session_id, 1, "routine", "routine", 1, plan.routine_bias_V, 1)
+    _readings(store, session_id, routine, [SETTLING_READING_nC * scale], settling=True)
+    _readings(store, session_id, routine, [q * scale for q in readings["routine_nC"]], first_seq=2)
+    _accept(store, routine)
+
+    first_try = store.add_set(session_id, 2, "opposite", "opposite", -1, -plan.routine_bias_V, 1)
+    _readings(store, session_id, first_try, [q * scale for q in SUPERSEDED_nC])
+    store.set_set_status(first_try, "superseded", SUPERSEDE_REASON, actor=OPERATOR)
+    second = store.add_set(session_id, 2, "opposite", "opposite", -1, -plan.routine_bias_V, 2)
+    opposite = [q * scale for q in readings["opposite_nC"]]
+    _readings(store, session_id, second, opposite, capture_of={1: "manual"})
+    _accept(store, second)
+
+    reduced = store.add_set(session_id, 3, "reduced", "reduced", 1, plan.reduced_bias_V, 1)
+    _readings(store, session_id, reduced, [q * scale for q in readings["reduced_nC"]])
+    _accept(store, reduced)
+
+    for line in (b"*IDN?\n", b"Bench,EM-1,EM-2093,1.4\r\n"):
+        store.add_traffic(session_id, 0.5, "tx" if line.startswith(b"*") else "rx", line)
+    if status != "open":
+        store.set_session_status(session_id, status, "plan complete", actor=OPERATOR)
+    return session_id

@@ -1,0 +1,174 @@
+"""The HTML report: parsed back, its figures compared with the store and hand-computed physics.
+
+The session is the invented example worksheet recorded through the Store API (Harbourside
+Cancer Centre, HCC-LA1 6 MV; not a real measurement).
+"""
+
+from __future__ import annotations
+
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.export import to_html
+from chargebook.acquire.report_data import load_record
+from chargebook.acquire.store import Store
+from recorded_session import SUPERSEDE_REASON, record_example_session
+from test_export import hand_dose_per_MU_cGy
+
+
+class Report(HTMLParser):
+    """Collects what a reader of the report sees: sections, keyed rows, plot points."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.section = ""
+        self.sections: list[str] = []
+        self.rows: dict[tuple[str, str], list[str]] = {}
+        self.points: list[dict[str, str]] = []
+        self.figures: list[str] = []
+        self.tags: set[str] = set()
+        self.links: list[str] = []
+        self.cautions: list[str] = []
+        self._row: list[str] | None = None
+        self._key = ""
+        self._text: list[str] | None = None
+        self._in: str = ""
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        a = dict(attrs)
+        self.tags.add(tag)
+        self.links += [v for k, v in attrs if k in ("src", "href") and v]
+        if tag == "h2":
+            self._in, self._text = "h2", []
+        elif tag == "tr" and "data-key" in a:
+            self._row, self._key = [], a["data-key"] or ""
+        elif tag == "td" and self._row is not None:
+            self._text = []
+        elif tag == "circle":
+            self.points.append({k: v or "" for k, v in attrs})
+        elif tag == "figure" and "data-set-id" in a:
+            self.figures.append(a["data-set-id"] or "")
+        elif tag == "p" and "caution" in (a.get("class") or ""):
+            self._in, self._text = "caution", []
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == "h2" and self._text is not None:
+            self.section = "".join(self._text).strip()
+            self.sections.append(self.section)
+            self._text = None
+        elif tag == "td" and self._row is not None and self._text is not None:
+            self._row.append("".join(self._text).strip())
+            self._text = None
+        elif tag == "tr" and self._row is not None:
+            self.rows[(self.section, self._key)] = self._row
+            self._row = None
+        elif tag == "p" and self._in == "caution" and self._text is not None:
+            self.cautions.append("".join(self._text).strip())
+            self._text, self._in = None, ""
+
+    def handle_data(self, data: str) -> None:
+        if self._text is not None:
+            self._text.append(data)
+
+
+@pytest.fixture
+def report(tmp_path: Path) -> tuple[Report, Store]:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        record_example_session(store)
+    store = Store.open(path, read_only=True)
+    parsed = Report()
+    parsed.feed(to_html(load_record(store, 1)))
+    yield parsed, store
+    store.close()
+
+
+def test_report_is_one_self_contained_page_with_the_caution(report) -> None:
+    parsed, _ = report
+    assert "script" not in parsed.tags and "img" not in parsed.tags
+    assert parsed.links == []  # nothing fetched from elsewhere: one printable file
+    assert parsed.cautions == [CAUTION, CAUTION]
+    assert parsed.sections == [
+        "Session",
+        "Calibration",
+        "Environment",
+        "Reading sets",
+        "Readings",
+        "Correction factors",
+        "Results",
+        "Uncertainty budget",
+        "Flags",
+        "Audit: redos, manual steps and status changes",
+    ]
+
+
+def test_each_reading_set_has_a_plot_whose_points_are_the_stored_readings(report) -> None:
+    parsed, store = report
+    assert parsed.figures == [str(s.id) for s in store.sets(1)]
+    plotted = {int(p["data-reading-id"]): p for p in parsed.points}
+    readings = store.readings(1)
+    assert sorted(plotted) == [r.id for r in readings]
+    for reading in readings:
+        point = plotted[reading.id]
+        assert float(point["data-charge-nc"]) == reading.charge_nC
+        assert point["data-settling"] == ("1" if reading.settling else "0")
+        assert ("hollow" in point["class"]) == reading.settling
+
+
+def test_results_shown_agree_with_hand_physics_and_the_recomputed_evaluation(report) -> None:
+    parsed, store = report
+    evaluation = load_record(store, 1).evaluation
+    dose_per_MU = parsed.rows[("Results", "dose_per_MU_cGy")][1]
+    assert dose_per_MU == f"{evaluation.dose_per_MU_cGy:.4f}"
+    assert float(dose_per_MU) == pytest.approx(hand_dose_per_MU_cGy(), abs=5e-5)
+    # IAEA TRS-398 air density correction at 21.8 °C, 100.6 kPa, reference 20 °C, 101.325 kPa.
+    k_TP = (273.2 + 21.8) / (273.2 + 20.0) * (101.325 / 100.6)
+    assert parsed.rows[("Correction factors", "k_TP")][:3] == ["k_TP", f"{k_TP:.5f}", "measured"]
+    assert parsed.rows[("Results", "within_tolerance")][1] == "yes"
+    expanded = parsed.rows[("Results", "U_expanded_pct")][1]
+    assert expanded == f"{evaluation.U_expanded_pct:.2f}"
+    budget = [row for (section, _), row in parsed.rows.items() if section == "Uncertainty budget"]
+    assert [row[0] for row in budget] == [c.component for c in evaluation.budget]
+
+
+def test_environment_instrument_and_audit_are_shown(report) -> None:
+    parsed, _ = report
+    environment = [row for (s, _), row in parsed.rows.items() if s == "Environment"]
+    assert [row[1:4] for row in environment] == [
+        ["21.60", "100.600", "1006 hPa"],
+        ["21.80", "100.600", "1006 hPa"],
+    ]
+    instrument = parsed.rows[("Session", "instrument")][1]
+    assert "serial EM-2093" in instrument and "model EM-1" in instrument
+    audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
+    superseded = [row for row in audit if row[2] == "set status"]
+    assert len(superseded) == 1 and SUPERSEDE_REASON in superseded[0][3]
+    manual = [row for row in audit if row[2] == "manual capture"]
+    assert [row[1:] for row in manual] == [
+        ["R. Okafor", "manual capture", "-14.7770 nC in set 4 (opposite)"]
+    ]
+    assert any(row[2] == "session status" and "to: finished" in row[3] for row in audit)
+
+
+def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        session_id = record_example_session(store, status="open")
+        # A later session in which no environment was entered: k_TP and dose stay pending.
+        second = store.create_session(
+            store.session(session_id).metadata(),
+            store.session(session_id).plan(),
+            "trs398",
+            "6 MV",
+        )
+        set_id = store.add_set(second, 1, "routine", "routine", 1, 300.0, 1)
+        store.add_reading(second, set_id, 1, 1.0, 14.75, "auto", False, "ok")
+        store.set_set_status(set_id, "accepted")
+    with Store.open(path, read_only=True) as store:
+        parsed = Report()
+        parsed.feed(to_html(load_record(store, second)))
+    assert parsed.rows[("Correction factors", "k_TP")][1:3] == ["pending", "pending"]
+    assert parsed.rows[("Results", "dose_per_MU_cGy")][1] == "pending"
+    assert parsed.rows[("Results", "M_raw_nC")][1] == "14.7500"

@@ -1,0 +1,160 @@
+"""Output history of a beam: dose per MU by session, against a baseline and the tolerance.
+
+Sessions are the invented example worksheet (Harbourside Cancer Centre, HCC-LA1 6 MV) recorded
+through the Store API, with every charge scaled by a known factor. In the TRS-398 formalism
+D_w = M_raw · k_TP · k_pol · k_s · k_elec · N_D,w · k_Q, and k_pol and k_s depend only on ratios
+of charges, so scaling every charge by s scales the dose by s: the deviation of a session from
+an unscaled one is 100 (s − 1) % exactly.
+"""
+
+from __future__ import annotations
+
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.history import history_table, load_history, parse_baseline
+from chargebook.acquire.report_data import load_record
+from chargebook.acquire.report_html import history_html
+from chargebook.acquire.report_text import deviation_plot
+from chargebook.acquire.store import Store
+from chargebook.corrections.errors import InputError
+from recorded_session import record_example_session
+
+SCALES = (1.0, 1.008, 0.975, 1.0)
+#: The example's tolerance is "annual": 1 % (AAPM TG-142, from memory; see REFERENCE.md).
+TOLERANCE_PCT = 1.0
+
+
+@pytest.fixture
+def store(tmp_path: Path) -> Store:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as writer:
+        ids = [record_example_session(writer, scale=s) for s in SCALES]
+        record_example_session(writer, scale=1.5, status="aborted")
+        record_example_session(writer, scale=1.0, replay_of=ids[0])
+        record_example_session(writer, beam="10 MV", k_Q=0.98)
+        record_example_session(writer, treatment_machine="HCC-LA2", scale=1.003)
+    reader = Store.open(path, read_only=True)
+    yield reader
+    reader.close()
+
+
+def _deviations(history) -> list[float]:
+    return [p.deviation_pct for p in history.points]
+
+
+def test_finished_sessions_of_the_beam_are_listed_in_order(store: Store) -> None:
+    history = load_history(store, "6 mv")
+    assert [p.session_id for p in history.points] == [1, 2, 3, 4, 8]
+    assert {p.beam for p in history.points} == {"6 MV"}
+    assert [p.machine for p in history.points] == ["HCC-LA1"] * 4 + ["HCC-LA2"]
+    on_la1 = load_history(store, "6 MV", machine="hcc-la1")
+    assert [p.session_id for p in on_la1.points] == [1, 2, 3, 4]
+
+
+def test_deviation_from_the_first_session_is_the_charge_scale(store: Store) -> None:
+    history = load_history(store, "6 MV", machine="HCC-LA1", baseline="first")
+    expected = [100.0 * (s - 1.0) for s in SCALES]
+    assert _deviations(history) == pytest.approx(expected, abs=1e-9)
+    assert [p.within_tolerance for p in history.points] == [True, True, False, True]
+    assert history.tolerance_pct == TOLERANCE_PCT
+    first = load_record(store, 1).evaluation.dose_per_MU_cGy
+    assert history.baseline_cGy_per_MU == first
+    assert "the first session, 1" in history.baseline_label
+
+
+def test_baseline_expected_is_each_sessions_own_deviation(store: Store) -> None:
+    history = load_history(store, "6 MV", machine="HCC-LA1")
+    for point in history.points:
+        evaluation = load_record(store, point.session_id).evaluation
+        assert point.deviation_pct == evaluation.deviation_pct
+        assert point.dose_per_MU_cGy == evaluation.dose_per_MU_cGy
+        assert point.expected_cGy_per_MU == 0.8  # the example worksheet's expected output
+
+
+def test_other_baselines(store: Store) -> None:
+    second = load_history(store, "6 MV", machine="HCC-LA1", baseline="session:2")
+    assert _deviations(second) == pytest.approx([100.0 * (s / 1.008 - 1) for s in SCALES])
+    mean = load_history(store, "6 MV", machine="HCC-LA1", baseline="mean")
+    assert sum(_deviations(mean)) == pytest.approx(0.0, abs=1e-9)
+    number = load_history(store, "6 MV", machine="HCC-LA1", baseline="0.8")
+    expected = load_history(store, "6 MV", machine="HCC-LA1", baseline="expected")
+    assert _deviations(number) == pytest.approx(_deviations(expected), abs=1e-12)
+
+
+def test_all_includes_aborted_sessions_and_replays(store: Store) -> None:
+    history = load_history(store, "6 MV", machine="HCC-LA1", include_all=True)
+    assert [(p.session_id, p.status) for p in history.points] == [
+        (1, "finished"),
+        (2, "finished"),
+        (3, "finished"),
+        (4, "finished"),
+        (5, "aborted"),
+        (6, "finished"),
+    ]
+
+
+@pytest.mark.parametrize(
+    ("text", "words"),
+    [
+        ("last", "is not known"),
+        ("session:x", "is not a session id"),
+        ("50", "outside the allowed range 0.01 to 10 cGy/MU"),
+    ],
+)
+def test_bad_baselines_are_refused_naming_the_option(text: str, words: str) -> None:
+    with pytest.raises(InputError) as caught:
+        parse_baseline(text)
+    assert caught.value.field == "baseline" and words in str(caught.value)
+
+
+def test_a_baseline_session_that_does_not_exist_is_refused(store: Store) -> None:
+    with pytest.raises(InputError, match="baseline = 'session:99'"):
+        load_history(store, "6 MV", baseline="session:99")
+
+
+def test_no_matching_session_gives_an_empty_history(store: Store) -> None:
+    history = load_history(store, "18 MV")
+    assert history.points == ()
+    assert history_table(history).note == "No session of beam '18 MV' matches."
+
+
+def test_terminal_plot_puts_each_session_in_its_column_and_marks_the_outlier() -> None:
+    plot = deviation_plot([0.0, 0.8, -2.5, None], 1.0, ["1", "2", "3", "4"])
+    lines = plot.splitlines()
+    grid = [line.split("|", 1)[1] for line in lines if "|" in line]
+    levels = [float(line.split("%")[0]) for line in lines if "|" in line]
+    columns = [[row[3 * i : 3 * i + 3].strip() for row in grid] for i in range(4)]
+    for column, deviation, mark in zip(columns[:3], [0.0, 0.8, -2.5], ["o", "o", "X"], strict=True):
+        hits = [level for level, cell in zip(levels, column, strict=True) if cell == mark]
+        assert len(hits) == 1
+        assert abs(hits[0] - deviation) <= (levels[0] - levels[1]) / 2
+    assert columns[3].count("?") == 1
+    tolerance_rows = [lv for lv, row in zip(levels, grid, strict=True) if "=" in row]
+    assert tolerance_rows and all(abs(abs(lv) - 1.0) < 0.4 for lv in tolerance_rows)
+
+
+class Points(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.points: list[dict[str, str]] = []
+        self.bands: list[dict[str, str]] = []
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        if tag == "circle":
+            self.points.append({k: v or "" for k, v in attrs})
+        elif tag == "rect":
+            self.bands.append({k: v or "" for k, v in attrs})
+
+
+def test_html_history_plots_each_session_against_the_band(store: Store) -> None:
+    history = load_history(store, "6 MV", machine="HCC-LA1", baseline="first")
+    parsed = Points()
+    parsed.feed(history_html(history, history_table(history), "generated now"))
+    assert [int(p["data-session-id"]) for p in parsed.points] == [1, 2, 3, 4]
+    shown = [float(p["data-deviation-pct"]) for p in parsed.points]
+    assert shown == _deviations(history)
+    assert ["alarm" in p["class"] for p in parsed.points] == [False, False, True, False]
+    (band,) = parsed.bands
+    assert (float(band["data-low"]), float(band["data-high"])) == (-1.0, 1.0)
