@@ -267,6 +267,32 @@ def _read_document(path: Path) -> Any:
         ) from None
 
 
+#: MeasurementInputs field -> the worksheet key that fills it, where the names differ.
+_RENAMED = {
+    "routine_bias_V": "bias.routine_V",
+    "reduced_bias_V": "bias.reduced_V",
+    "uncertainties.u_N_Dw_pct_k2": "calibration.u_N_Dw_pct_k2",
+    "uncertainties.u_k_Q_pct": "calibration.u_k_Q_pct",
+}
+
+
+def worksheet_key(field: str) -> str | None:
+    """Return the worksheet key (``section.key``) behind an evaluate() error field, if any.
+
+    ``evaluate`` names fields as ``MeasurementInputs`` spells them (``reduced_bias_V``,
+    ``routine_nC[2]``, ``voltage ratio routine_bias_V/reduced_bias_V``); this finds the key the
+    operator typed, so the message can point at the line to fix.
+    """
+    for name, key in _RENAMED.items():
+        if name in field:
+            return key
+    base = field.strip("|").split("[", 1)[0].removeprefix("uncertainties.")
+    for section, keys in SCHEMA.items():
+        if section and base in keys:
+            return _name(section, base)
+    return None
+
+
 def read_worksheet(path: Path | str) -> Worksheet:
     """Return the Worksheet in the TOML or JSON file at ``path``; raise InputError if invalid."""
     path = Path(path)

@@ -301,18 +301,28 @@ def _check_set_signs(key: str, readings: np.ndarray) -> None:
 
 
 def _check_cross_signs(sets: Mapping[str, SetStatistics | None]) -> None:
-    """Refuse sets whose signs contradict their biases relative to the routine set."""
-    routine = sets["routine"]
-    if routine is None:
+    """Refuse sets whose signs contradict their biases relative to one another.
+
+    The routine and reduced-bias sets share a polarity; the opposite-polarity set has the
+    other. The routine set, when there is one, sets the sign the others are held to.
+    """
+    relation = {"routine": 1.0, "reduced": 1.0, "opposite": -1.0}
+    present = [key for key in SET_KEYS if sets[key] is not None]
+    if len(present) < 2:
         return
-    rules = (("opposite", -1.0, "the opposite sign to"), ("reduced", 1.0, "the same sign as"))
-    for key, relation, words in rules:
-        other = sets[key]
-        if other is not None and np.sign(other.mean_nC) != relation * np.sign(routine.mean_nC):
+    reference = present[0]
+    routine_sign = relation[reference] * np.sign(sets[reference].mean_nC)
+    for key in present[1:]:
+        if np.sign(sets[key].mean_nC) != relation[key] * routine_sign:
+            words = (
+                "the opposite sign to"
+                if relation[key] != relation[reference]
+                else ("the same sign as")
+            )
             raise InputError(
                 f"{key}_nC",
-                other.mean_nC,
-                f"charges of {words} the routine readings",
+                sets[key].mean_nC,
+                f"charges of {words} the {stability.SET_NAMES[reference]} readings",
                 "has a sign that contradicts its bias",
             )
 

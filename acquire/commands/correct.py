@@ -229,15 +229,24 @@ def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
 def run(args: argparse.Namespace) -> int:
     """Evaluate the worksheet and print the report; return 0, or 2 for invalid input."""
     from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK
-    from chargebook.acquire.worksheet import read_worksheet
+    from chargebook.acquire.worksheet import read_worksheet, worksheet_key
     from chargebook.corrections.errors import InputError
     from chargebook.corrections.evaluate import evaluate
 
     try:
         worksheet = read_worksheet(args.worksheet)
-        evaluation = evaluate(worksheet.inputs)
     except InputError as error:
         print(f"chargebook correct: invalid input in {args.worksheet}: {error}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
+    try:
+        evaluation = evaluate(worksheet.inputs)
+    except InputError as error:
+        key = worksheet_key(error.field)
+        where = f" (worksheet key {key})" if key and key != error.field else ""
+        print(
+            f"chargebook correct: invalid input in {args.worksheet}: {error}{where}",
+            file=sys.stderr,
+        )
         return EXIT_INVALID_INPUT
     render = render_json if args.json else render_table
     sys.stdout.write(render(worksheet, evaluation))

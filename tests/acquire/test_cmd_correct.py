@@ -131,6 +131,12 @@ def test_invalid_example_exits_2_naming_the_field() -> None:
             "[readings]\nroutine_nC = [14.7]\n",
             "is not in the table",
         ),
+        (
+            'convention = "trs398"\nbeam = "pulsed"\n[bias]\nroutine_V = 300\nreduced_V = -100\n'
+            "[readings]\nroutine_nC = [14.7]\n",
+            "has the opposite polarity to routine_bias_V (allowed: a magnitude, or a bias of the "
+            "routine polarity) (worksheet key bias.reduced_V)",
+        ),
     ],
 )
 def test_invalid_worksheets_exit_2(tmp_path: Path, text: str, words: str) -> None:

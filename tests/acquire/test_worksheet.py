@@ -7,7 +7,7 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.worksheet import load_worksheet, read_worksheet
+from chargebook.acquire.worksheet import load_worksheet, read_worksheet, worksheet_key
 from chargebook.corrections.errors import InputError
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
@@ -147,3 +147,20 @@ def test_json_must_hold_a_table(tmp_path: Path) -> None:
 def test_unknown_file_type(tmp_path: Path) -> None:
     with pytest.raises(InputError, match=r"\.toml or \.json"):
         load_worksheet(write(tmp_path, MINIMAL, "sheet.txt"))
+
+
+@pytest.mark.parametrize(
+    ("field", "key"),
+    [
+        ("reduced_bias_V", "bias.reduced_V"),
+        ("|routine_bias_V|", "bias.routine_V"),
+        ("voltage ratio routine_bias_V/reduced_bias_V", "bias.routine_V"),
+        ("temperature_C", "environment.temperature_C"),
+        ("opposite_nC[2]", "readings.opposite_nC"),
+        ("uncertainties.u_k_Q_pct", "calibration.u_k_Q_pct"),
+        ("uncertainties.u_pressure_kPa", "uncertainty.u_pressure_kPa"),
+        ("something else", None),
+    ],
+)
+def test_evaluate_fields_lead_back_to_worksheet_keys(field: str, key: str | None) -> None:
+    assert worksheet_key(field) == key

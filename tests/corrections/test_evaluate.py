@@ -273,3 +273,10 @@ def test_dose_monotonic_in_temperature(session: Session, t1: float, t2: float, p
     cold = evaluate(session(temperature_C=low, pressure_kPa=p)).dose_Gy
     warm = evaluate(session(temperature_C=high, pressure_kPa=p)).dose_Gy
     assert cold <= warm
+
+
+def test_signs_are_checked_between_sets_even_before_the_routine_set() -> None:
+    with pytest.raises(InputError) as caught:
+        evaluate(MeasurementInputs(opposite_nC=(-14.7,), reduced_nC=(-14.5,)))
+    assert caught.value.field == "reduced_nC"
+    assert "opposite sign to the opposite-polarity readings" in str(caught.value)
