@@ -10,7 +10,6 @@ an unscaled one is 100 (s − 1) % exactly.
 from __future__ import annotations
 
 from html.parser import HTMLParser
-from pathlib import Path
 
 import pytest
 from chargebook.acquire.history import history_table, load_history, parse_baseline
@@ -26,9 +25,10 @@ SCALES = (1.0, 1.008, 0.975, 1.0)
 TOLERANCE_PCT = 1.0
 
 
-@pytest.fixture
-def store(tmp_path: Path) -> Store:
-    path = tmp_path / "station.sqlite"
+@pytest.fixture(scope="module")
+def store(tmp_path_factory: pytest.TempPathFactory) -> Store:
+    """One station for the module: every test only reads it."""
+    path = tmp_path_factory.mktemp("history") / "station.sqlite"
     with Store.open(path) as writer:
         ids = [record_example_session(writer, scale=s) for s in SCALES]
         record_example_session(writer, scale=1.5, status="aborted")

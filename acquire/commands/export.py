@@ -1,0 +1,46 @@
+"""`chargebook export SESSION --format csv|json|html`: one recorded session, for keeping."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from chargebook.acquire.report_cli import add_db_argument, add_session_argument, run_reader
+
+HELP = (
+    "export one recorded session: csv (the readings), json (everything) or html "
+    "(a self-contained printable report)"
+)
+
+FORMATS = ("csv", "json", "html")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_session_argument(parser)
+    parser.add_argument("--format", choices=FORMATS, required=True, help="the export format")
+    parser.add_argument(
+        "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
+    )
+    parser.add_argument(
+        "--traffic", action="store_true", help="json: include the raw instrument lines"
+    )
+    add_db_argument(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    return run_reader(args, lambda store: _export(store, args))
+
+
+def _export(store, args: argparse.Namespace) -> int:
+    from chargebook.acquire import export
+    from chargebook.acquire.report_cli import write_output
+    from chargebook.acquire.report_data import load_record
+
+    record = load_record(store, args.session)
+    if args.format == "csv":
+        text = export.to_csv(record)
+    elif args.format == "json":
+        text = export.to_json(record, store, include_traffic=args.traffic)
+    else:
+        text = export.to_html(record)
+    return write_output(text, args.output)

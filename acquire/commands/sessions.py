@@ -1,0 +1,82 @@
+"""`chargebook sessions`: list the sessions recorded in the station database."""
+
+from __future__ import annotations
+
+import argparse
+
+from chargebook.acquire.report_cli import add_db_argument, run_reader
+
+HELP = "list the recorded sessions: id, date, status, machine, beam, operator, readings"
+
+STATUSES = ("open", "finished", "aborted", "interrupted")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_db_argument(parser)
+    parser.add_argument("--status", choices=STATUSES, help="only sessions with this status")
+    parser.add_argument("--beam", metavar="NAME", help='only this beam, e.g. "6 MV"')
+    parser.add_argument("--machine", metavar="NAME", help="only this treatment machine")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+
+
+def run(args: argparse.Namespace) -> int:
+    return run_reader(args, lambda store: _list(store, args))
+
+
+def _list(store, args: argparse.Namespace) -> int:
+    import json
+
+    from chargebook.acquire.cli import EXIT_OK
+    from chargebook.acquire.history import matches
+    from chargebook.acquire.report_sections import Table, when
+    from chargebook.acquire.report_text import table_text
+
+    rows = []
+    for session in store.sessions():
+        if args.status and session.status != args.status:
+            continue
+        if args.beam and not matches(session, args.beam, args.machine):
+            continue
+        if args.machine and not args.beam and not matches(session, session.beam, args.machine):
+            continue
+        meta = session.metadata()
+        sets = store.sets(session.id)
+        rows.append(
+            {
+                "id": session.id,
+                "created_at": session.created_at,
+                "status": session.status,
+                "treatment_machine": meta.get("treatment_machine"),
+                "beam": meta.get("beam", session.beam),
+                "operator": meta.get("operator"),
+                "convention": session.convention,
+                "sets_accepted": sum(1 for s in sets if s.status == "accepted"),
+                "sets": len(sets),
+                "readings": len(store.readings(session.id)),
+                "replay_of": session.replay_of,
+            }
+        )
+    if args.json:
+        print(json.dumps(rows, indent=2, ensure_ascii=False))
+        return EXIT_OK
+    table = Table(
+        "Sessions",
+        ("id", "started", "status", "machine", "beam", "operator", "sets", "readings", "replay of"),
+        tuple(
+            (
+                str(r["id"]),
+                when(r["created_at"]),
+                r["status"],
+                str(r["treatment_machine"] or "—"),
+                str(r["beam"] or "—"),
+                str(r["operator"] or "—"),
+                f"{r['sets_accepted']}/{r['sets']} accepted",
+                str(r["readings"]),
+                "" if r["replay_of"] is None else str(r["replay_of"]),
+            )
+            for r in rows
+        ),
+        note="" if rows else "No session matches.",
+    )
+    print(table_text(table, title=False))
+    return EXIT_OK

@@ -1,0 +1,39 @@
+"""`chargebook show SESSION`: one recorded session, its results recomputed from raw values."""
+
+from __future__ import annotations
+
+import argparse
+
+from chargebook.acquire.report_cli import add_db_argument, add_session_argument, run_reader
+
+HELP = (
+    "show one recorded session: metadata, environment, reading sets, factors, results, "
+    "uncertainty budget, flags and audit"
+)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_session_argument(parser)
+    add_db_argument(parser)
+    parser.add_argument("--json", action="store_true", help="print the JSON export instead of text")
+
+
+def run(args: argparse.Namespace) -> int:
+    return run_reader(args, lambda store: _show(store, args))
+
+
+def _show(store, args: argparse.Namespace) -> int:
+    from chargebook.acquire.cli import CAUTION, EXIT_OK
+    from chargebook.acquire.export import to_json
+    from chargebook.acquire.report_data import load_record
+    from chargebook.acquire.report_sections import all_sections
+    from chargebook.acquire.report_text import tables_text
+
+    record = load_record(store, args.session)
+    if args.json:
+        print(to_json(record), end="")
+    else:
+        print(tables_text(all_sections(record)))
+        print()
+        print(CAUTION)
+    return EXIT_OK

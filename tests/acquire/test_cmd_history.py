@@ -1,0 +1,68 @@
+"""`chargebook history --beam NAME`: table, terminal plot, JSON and HTML.
+
+The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
+Centre, HCC-LA1 6 MV) recorded several times with every charge scaled by a known factor, so
+that the deviation from the first session is 100 (s − 1) % (dose is proportional to the charge
+in the TRS-398 formalism; k_pol and k_s depend only on charge ratios).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
+from chargebook.acquire.store import Store
+from recorded_session import record_example_session
+
+SCALES = (1.0, 1.004, 0.985)
+
+
+@pytest.fixture
+def station(tmp_path: Path) -> Path:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        for scale in SCALES:
+            record_example_session(store, scale=scale)
+    return path
+
+
+def test_table_and_plot(station: Path, capsys) -> None:
+    argv = ["history", "--beam", "6 MV", "--baseline", "first", "--db", str(station)]
+    assert main(argv) == EXIT_OK
+    out = capsys.readouterr().out
+    rows = [line.split() for line in out.splitlines() if line[:1].isdigit()]
+    assert [row[0] for row in rows] == ["1", "2", "3"]
+    assert [row[8] for row in rows] == ["+0.00", "+0.40", "-1.50"]
+    assert [row[-1] for row in rows] == ["yes", "yes", "NO"]  # ±1 %, the example's "annual"
+    plot = [line for line in out.splitlines() if " % |" in line]
+    assert sum(line.count("X") for line in plot) == 1
+    assert sum(line.count("o") for line in plot) == 2
+    assert out.rstrip().endswith(CAUTION)
+
+
+def test_json_and_html(station: Path, tmp_path: Path, capsys) -> None:
+    page = tmp_path / "history.html"
+    argv = ["history", "--beam", "6 MV", "--baseline", "first", "--json", "--html", str(page)]
+    assert main([*argv, "--db", str(station)]) == EXIT_OK
+    data = json.loads(capsys.readouterr().out)
+    deviations = [p["deviation_pct"] for p in data["points"]]
+    assert deviations == pytest.approx([100.0 * (s - 1.0) for s in SCALES], abs=1e-9)
+    assert data["baseline"] == "first"
+    text = page.read_text(encoding="utf-8")
+    assert text.count("<circle") == 3 and CAUTION in text
+
+
+def test_bad_baseline_is_refused_in_words(station: Path, capsys) -> None:
+    argv = ["history", "--beam", "6 MV", "--baseline", "yesterday", "--db", str(station)]
+    assert main(argv) == EXIT_INVALID_INPUT
+    err = capsys.readouterr().err
+    assert "baseline = 'yesterday' is not known" in err and "session:ID" in err
+
+
+def test_the_beam_is_required(station: Path, capsys) -> None:
+    with pytest.raises(SystemExit) as caught:
+        main(["history", "--db", str(station)])
+    assert caught.value.code == 2
+    assert "--beam" in capsys.readouterr().err

@@ -1,0 +1,93 @@
+"""`chargebook sessions`, and what every read-side command shares (--db, read-only, errors).
+
+The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
+Centre) recorded through the Store API.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK, main
+from chargebook.acquire.store import Store
+from recorded_session import record_example_session
+
+
+@pytest.fixture
+def station(tmp_path: Path) -> Path:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        record_example_session(store)
+        record_example_session(store, status="open", treatment_machine="HCC-LA2")
+        record_example_session(store, beam="10 MV", k_Q=0.98)
+    return path
+
+
+def test_lists_every_session_as_a_table(station: Path, capsys) -> None:
+    assert main(["sessions", "--db", str(station)]) == EXIT_OK
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].split()[:3] == ["id", "started", "status"]
+    body = [line.split() for line in lines[2:]]
+    assert [row[0] for row in body] == ["1", "2", "3"]
+    assert [row[4] for row in body] == ["finished", "open", "finished"]
+    assert "4/5 accepted" in lines[2] and "HCC-LA2" in lines[3]
+
+
+def test_json_and_filters(station: Path, capsys) -> None:
+    assert main(["sessions", "--db", str(station), "--json", "--status", "finished"]) == EXIT_OK
+    rows = json.loads(capsys.readouterr().out)
+    assert [(r["id"], r["beam"]) for r in rows] == [(1, "6 MV"), (3, "10 MV")]
+    with Store.open(station, read_only=True) as store:
+        assert rows[0]["readings"] == len(store.readings(1))
+        assert rows[0]["sets"] == len(store.sets(1))
+    assert main(["sessions", "--db", str(station), "--json", "--beam", "6 mv"]) == EXIT_OK
+    assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [1, 2]
+    assert main(["sessions", "--db", str(station), "--json", "--machine", "HCC-LA2"]) == EXIT_OK
+    assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [2]
+
+
+def test_default_database_follows_xdg_data_home(tmp_path: Path, monkeypatch, capsys) -> None:
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path))
+    with Store.open(tmp_path / "chargebook" / "station.sqlite") as store:
+        record_example_session(store)
+    assert main(["sessions", "--json"]) == EXIT_OK
+    assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [1]
+
+
+def test_a_missing_database_is_named_and_not_created(tmp_path: Path, capsys) -> None:
+    missing = tmp_path / "nowhere.sqlite"
+    assert main(["sessions", "--db", str(missing)]) == EXIT_FAILURE
+    assert f"no station database at {missing}" in capsys.readouterr().err
+    assert not missing.exists()
+
+
+def test_reading_while_the_daemon_writes_changes_nothing(station: Path, capsys) -> None:
+    with Store.open(station) as writer:
+        writer.add_event(2, "daemon", "note", {"why": "still measuring"})
+        before = [len(writer.events(i)) for i in (1, 2, 3)]
+        assert main(["sessions", "--db", str(station), "--json"]) == EXIT_OK
+        assert main(["show", "2", "--db", str(station)]) == EXIT_OK
+        assert [len(writer.events(i)) for i in (1, 2, 3)] == before
+        routine_set = writer.sets(2)[1].id
+        reading_id = writer.add_reading(2, routine_set, 9, 1.0, 14.7, "auto", False, "ok")
+    capsys.readouterr()
+    assert main(["sessions", "--db", str(station), "--json"]) == EXIT_OK
+    rows = json.loads(capsys.readouterr().out)
+    assert reading_id and rows[1]["readings"] == 16
+
+
+def test_read_side_commands_import_nothing_heavy() -> None:
+    code = (
+        "import sys\n"
+        "from chargebook.acquire.commands import sessions, show, export, history\n"
+        "heavy = [m for m in ('numpy', 'sqlite_utils', 'textual') if m in sys.modules]\n"
+        "print(','.join(heavy))\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, check=True, timeout=60
+    )
+    assert result.stdout.strip() == ""

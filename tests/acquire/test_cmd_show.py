@@ -1,0 +1,71 @@
+"""`chargebook show SESSION`: the stored session and its recomputed results, as text or JSON.
+
+The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
+Centre, HCC-LA1 6 MV) recorded through the Store API.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
+from chargebook.acquire.export import JSON_KEYS
+from chargebook.acquire.store import Store
+from recorded_session import SUPERSEDE_REASON, record_example_session
+from test_export import hand_dose_per_MU_cGy
+
+
+@pytest.fixture
+def station(tmp_path: Path) -> Path:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        record_example_session(store)
+    return path
+
+
+def _value(text: str, label: str) -> str:
+    """Return the value column of the text row that starts with ``label``."""
+    (line,) = [line for line in text.splitlines() if line.startswith(label + "  ")]
+    return line[len(label) :].split()[0]
+
+
+def test_text_shows_every_section_and_the_results(station: Path, capsys) -> None:
+    assert main(["show", "1", "--db", str(station)]) == EXIT_OK
+    out = capsys.readouterr().out
+    for title in ("Session", "Environment", "Reading sets", "Correction factors", "Results"):
+        assert f"\n{title}\n" in f"\n{out}"
+    assert float(_value(out, "dose per MU (cGy/MU)")) == pytest.approx(
+        hand_dose_per_MU_cGy(), abs=5e-5
+    )
+    assert _value(out, "within tolerance") == "yes"
+    assert SUPERSEDE_REASON in out
+    assert "Instrument as identified" in out and "serial EM-2093" in out
+    assert out.rstrip().endswith(CAUTION)
+
+
+def test_json_is_the_export(station: Path, capsys) -> None:
+    assert main(["show", "1", "--db", str(station), "--json"]) == EXIT_OK
+    data = json.loads(capsys.readouterr().out)
+    assert tuple(data) == JSON_KEYS
+    assert data["results"]["dose_per_MU_cGy"] == pytest.approx(hand_dose_per_MU_cGy(), rel=1e-9)
+
+
+def test_an_unknown_session_is_named(station: Path, capsys) -> None:
+    assert main(["show", "42", "--db", str(station)]) == EXIT_INVALID_INPUT
+    err = capsys.readouterr().err
+    assert "no session with id 42" in err and "chargebook sessions" in err
+
+
+def test_a_session_whose_values_cannot_be_evaluated_is_still_shown(tmp_path: Path, capsys) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        session_id = record_example_session(store, status="open")
+        # A routine reading whose sign contradicts the rest of its set: evaluate refuses it.
+        routine = store.sets(session_id)[1].id
+        store.add_reading(session_id, routine, 7, 70.0, -14.75, "manual", False, "ok")
+    assert main(["show", str(session_id), "--db", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "No results: the recorded values cannot be evaluated: routine_nC[5]" in out
+    assert "-14.7500" in out  # the reading is shown, nothing is lost
