@@ -13,6 +13,8 @@ from typing import Any
 
 PENDING = "pending"
 MINUS = "\u2212"
+#: A space that never breaks a line, kept between a number and its unit.
+NBSP = "\u00a0"
 
 #: Marker put before a flag's message, by severity: readable without colour.
 SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
@@ -70,7 +72,7 @@ def number(value: float | None, digits: int, unit: str = "") -> str:
     if value is None:
         return PENDING
     text = signed(value, digits)
-    return f"{text} {unit}" if unit else text
+    return f"{text}{NBSP}{unit}" if unit else text
 
 
 def charge_nC(value: float | None) -> str:
@@ -88,7 +90,7 @@ def deviation_pct(value: float | None) -> str:
     if value is None:
         return PENDING
     text = signed(value, 2)
-    return f"{'+' if value >= 0 else ''}{text} %"
+    return f"{'+' if value >= 0 else ''}{text}{NBSP}%"
 
 
 def bias_V(value: float | None) -> str:
@@ -96,7 +98,7 @@ def bias_V(value: float | None) -> str:
     if value is None:
         return PENDING
     text = signed(value, 0)
-    return f"{'+' if value > 0 else ''}{text} V"
+    return f"{'+' if value > 0 else ''}{text}{NBSP}V"
 
 
 def purpose(name: str) -> str:

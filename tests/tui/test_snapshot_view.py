@@ -1,0 +1,57 @@
+"""Reading the daemon's snapshot: each piece the console shows comes from the snapshot as sent.
+
+The snapshots are fixed files made by the real sequence engine (tests/tui/fixtures).
+"""
+
+from __future__ import annotations
+
+from chargebook.tui import snapshot_view
+from harness import load_snapshot
+
+
+def test_each_state_is_shown_by_its_own_screen():
+    assert snapshot_view.screen_for(load_snapshot("idle")) == "setup"
+    assert snapshot_view.screen_for(load_snapshot("collecting")) == "measure"
+    assert snapshot_view.screen_for(load_snapshot("instrument_lost")) == "measure"
+    assert snapshot_view.screen_for(load_snapshot("finished")) == "summary"
+
+
+def test_the_step_heading_names_step_purpose_bias_and_beam():
+    heading = snapshot_view.step_heading(load_snapshot("reviewing_spike"))
+    assert heading == "Step 4 of 6 · Opposite polarity · \u2212300\u00a0V · 4 × 100 MU"
+
+
+def test_factors_use_the_conventions_symbols_and_say_pending_where_not_measured():
+    snapshot = load_snapshot("collecting")
+    rows = {
+        symbol: (value, state)
+        for symbol, value, state in snapshot_view.factor_rows(snapshot["results"])
+    }
+    assert rows["k_pol"] == ("pending", "pending")
+    assert rows["k_s"] == ("pending", "pending")
+    assert rows["k_elec"][1] == "default"
+    assert rows["N_D,w,Q0"] == ("0.05400", "entered")  # TRS-398's symbol for N_D,w
+
+
+def test_results_are_the_daemons_numbers_formatted_not_recomputed():
+    snapshot = load_snapshot("finished")
+    results = snapshot["results"]
+    rows = {
+        label: value.replace("\u00a0", " ") for label, value in snapshot_view.result_rows(snapshot)
+    }
+    assert rows["Dose per MU"] == f"{results['dose_per_MU_cGy']:.4f} cGy/MU"
+    assert rows["Corrected M_Q"] == f"{results['M_corrected_nC']:.4f} nC"
+    assert rows["Uncertainty u_c"].startswith(f"{results['u_combined_pct']:.2f} %")
+
+
+def test_the_history_keeps_superseded_sets_with_their_reason():
+    rows = snapshot_view.history_rows(load_snapshot("finished")["sets"])
+    statuses = [status for _step, _name, status, _mean, _sd in rows]
+    assert "superseded: spike on reading 4" in statuses
+    assert "superseded: interrupted by the cable" in statuses
+    assert statuses.count("accepted") == 6
+
+
+def test_an_instrument_disconnect_is_said_in_words():
+    line = snapshot_view.instrument_text(load_snapshot("instrument_lost"))
+    assert line.startswith("!! Electrometer DISCONNECTED")
