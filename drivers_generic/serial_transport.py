@@ -67,17 +67,12 @@ class SerialTransport(Transport):
             port.close()
 
     def _write(self, data: bytes) -> None:
-        import serial
-
         try:
             self._serial.write(data)
-            self._serial.flush()
-        except (serial.SerialException, OSError) as error:
+        except _port_errors() as error:
             raise InstrumentDisconnected(f"serial port {self.port} went away: {error}") from None
 
     def _read_available(self, timeout_s: float) -> bytes:
-        import serial
-
         port = self._serial
         try:
             waiting = port.in_waiting
@@ -86,7 +81,7 @@ class SerialTransport(Transport):
                     return b""
                 waiting = max(port.in_waiting, 1)
             return port.read(waiting)
-        except (serial.SerialException, OSError) as error:
+        except _port_errors() as error:
             raise InstrumentDisconnected(f"serial port {self.port} went away: {error}") from None
 
     def _wait_readable(self, timeout_s: float) -> bool:
@@ -100,3 +95,15 @@ class SerialTransport(Transport):
             return True
         ready, _, _ = select.select([fd], [], [], timeout_s)
         return bool(ready)
+
+
+def _port_errors() -> tuple[type[BaseException], ...]:
+    """Return the exceptions that mean the port went away (pyserial, OS, termios)."""
+    import serial
+
+    errors: tuple[type[BaseException], ...] = (serial.SerialException, OSError)
+    try:
+        import termios
+    except ImportError:  # not a POSIX system
+        return errors
+    return (*errors, termios.error)

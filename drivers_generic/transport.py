@@ -228,7 +228,6 @@ class ScriptedTransport(Transport):
         self._incoming = bytearray()
         self._gone = False
         self.sent: list[bytes] = []
-        self._deliver_unasked()
 
     def _open(self) -> None:
         if self._gone:
@@ -277,7 +276,13 @@ class ScriptedTransport(Transport):
                 data += self.framing.read_terminator
             self._incoming += data
 
+    def discard_input(self) -> None:
+        """Drop buffered input only: the script's lines are what arrives after the open."""
+        self._buffer.clear()
+        self._incoming.clear()
+
     def _read_available(self, timeout_s: float) -> bytes | None:
+        self._deliver_unasked()
         if self._incoming:
             data = bytes(self._incoming)
             self._incoming.clear()

@@ -65,6 +65,9 @@ class VisaTransport(Transport):
         if self._peer_closed():
             self._close()
             raise InstrumentDisconnected(f"VISA resource {self.resource} refused the connection")
+        sock = self._socket()
+        if sock is not None:  # a command and its SYST:ERR? must not wait for Nagle's algorithm
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
 
     def _apply_serial_settings(self, instrument: Any) -> None:
         from pyvisa import constants
@@ -96,6 +99,8 @@ class VisaTransport(Transport):
         import pyvisa
         from pyvisa import constants
 
+        if self._peer_closed():
+            raise InstrumentDisconnected(f"VISA resource {self.resource} closed the connection")
         timeout_ms = max(1, round(timeout_s * 1000))
         if timeout_ms != self._timeout_ms:
             self._instrument.timeout = timeout_ms
@@ -103,11 +108,13 @@ class VisaTransport(Transport):
         try:
             return self._instrument.read_raw()
         except pyvisa.VisaIOError as error:
-            if error.error_code == constants.StatusCode.error_timeout and not self._peer_closed():
-                return b""
-            raise InstrumentDisconnected(
-                f"VISA resource {self.resource} went away: {error}"
-            ) from None
+            if error.error_code != constants.StatusCode.error_timeout:
+                raise InstrumentDisconnected(f"VISA resource {self.resource}: {error}") from None
+            if self._peer_closed():
+                raise InstrumentDisconnected(
+                    f"VISA resource {self.resource} closed the connection"
+                ) from None
+            return b""
         except (pyvisa.Error, OSError) as error:
             raise InstrumentDisconnected(
                 f"VISA resource {self.resource} went away: {error}"

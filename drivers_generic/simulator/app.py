@@ -14,7 +14,7 @@ import signal
 import sys
 import tempfile
 import threading
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -25,9 +25,17 @@ from chargebook.drivers_generic.simulator.control import (
     drop_seconds,
     flood_arguments,
 )
-from chargebook.drivers_generic.simulator.device import SimulatedElectrometer
+from chargebook.drivers_generic.simulator.device import (
+    SimulatedElectrometer,
+    SimulatorInputError,
+    check_number,
+)
 from chargebook.drivers_generic.simulator.dialect import DialectResponder, Responder
-from chargebook.drivers_generic.simulator.physics import ChamberParameters, ChamberPhysics
+from chargebook.drivers_generic.simulator.physics import (
+    BEAM_KINDS,
+    ChamberParameters,
+    ChamberPhysics,
+)
 
 log = logging.getLogger("chargebook.simulator")
 
@@ -48,13 +56,23 @@ class SimulatorOptions:
     playback: Path | None = None
     speed: float = 1.0
     directory: Path | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
+
+    def check(self) -> None:
+        """Raise SimulatorInputError naming the first option outside what is allowed."""
+        check_number("--scpi", self.scpi_port if self.scpi_port is not None else 0, 0, 65535)
+        check_number("--time-scale", self.time_scale, 1e-6, 1e3)
+        check_number("--speed", self.speed, 0, 1e9)
+        if self.beam not in BEAM_KINDS:
+            raise SimulatorInputError("--beam", self.beam, ", ".join(BEAM_KINDS))
+        if self.playback is not None and not Path(self.playback).is_file():
+            raise SimulatorInputError("--playback", str(self.playback), "an existing log file")
 
 
 class Simulator:
     """The running simulated electrometer with all its wires (pty, SCPI socket, control)."""
 
     def __init__(self, options: SimulatorOptions) -> None:
+        options.check()
         self.options = options
         self.profile = load_profile(options.profile)
         physics = ChamberPhysics(ChamberParameters(beam=options.beam), options.seed)
@@ -77,7 +95,7 @@ class Simulator:
 
             mode = "query" if dialect == "scpi" else self.profile.mode
             return PlaybackResponder.from_file(self.options.playback, mode, self.options.speed)
-        if dialect == "scpi":
+        if dialect == "scpi" or self.profile.confirmation.style == "error_queue":
             from chargebook.drivers_generic.simulator.scpi_server import ScpiResponder
 
             return ScpiResponder(self.device)
@@ -157,6 +175,7 @@ class Simulator:
         return {"seconds": seconds}
 
     def _flood(self, request: dict[str, Any]) -> dict[str, Any]:
+        self._refuse_in_playback("flood")
         rate, count = flood_arguments(request)
         if self.pty is None:
             raise SimulatorControlError("flood needs the serial wire (start with --serial)")
@@ -201,7 +220,7 @@ def run_simulator(options: SimulatorOptions) -> int:
         announcement = simulator.start()
         sys.stdout.write(json.dumps(announcement) + "\n")
         sys.stdout.flush()
-        while not stop.wait(0.5):
+        while not stop.wait(0.1):
             pass
     finally:
         simulator.stop()

@@ -40,6 +40,8 @@ from chargebook.drivers_generic.simulator.device import (
 log = logging.getLogger("chargebook.simulator.control")
 
 MAX_REQUEST_BYTES = 65536
+#: How often the server thread checks for shutdown, in seconds (bounds the time to stop).
+SHUTDOWN_POLL_s = 0.05
 MAX_DROP_s = 3600.0
 MAX_FLOOD_COUNT = 10_000_000
 MAX_FLOOD_RATE_PER_s = 1e6
@@ -67,7 +69,7 @@ class ControlServer:
         self._server.daemon_threads = True
         self.path.chmod(0o600)
         self._thread = threading.Thread(
-            target=self._server.serve_forever, name="control", daemon=True
+            target=self._server.serve_forever, args=(SHUTDOWN_POLL_s,), name="control", daemon=True
         )
 
     def start(self) -> None:

@@ -145,7 +145,7 @@ class PtyServer:
         if not lines:
             return True
         terminator = self.framing.read_terminator
-        data = b"".join(line.encode(self.framing.encoding) + terminator for line in lines)
+        data = b"".join(_encode(line, self.framing.encoding) + terminator for line in lines)
         return self._write_all(data, wait_s)
 
     def _write_all(self, data: bytes, wait_s: float) -> bool:
@@ -202,3 +202,11 @@ class PtyServer:
                 log.warning("flood stopped after %d lines: port full or gone", index)
                 break
             self.lines_flooded = index + 1
+
+
+def _encode(line: str, encoding: str) -> bytes:
+    """Return the line's bytes; bytes kept by surrogateescape (playback) come back as they were."""
+    try:
+        return line.encode(encoding, errors="surrogateescape")
+    except UnicodeEncodeError:
+        return line.encode("utf-8", errors="surrogateescape")

@@ -1,0 +1,168 @@
+"""Playback: the simulated instrument replays a recorded log of its traffic.
+
+The log is JSON lines, one per line of traffic, as the driver saw it::
+
+    {"t_s": 12.034, "dir": "tx", "line": "Q?"}
+    {"t_s": 12.051, "dir": "rx", "line": "Q +20.1234 nC A"}
+
+``tx`` is what the driver sent, ``rx`` what the instrument answered; ``line`` is the text without
+its terminator (bytes that are not text are kept with Python's ``surrogateescape``). A ``tx``
+entry is a gate: playback waits there until the driver sends a command (a different command than
+the recorded one is logged as a warning and still answered, so a changed plan can be replayed).
+In query mode the ``rx`` lines after a gate are the answer, sent at once. In push mode they are
+sent with their recorded spacing divided by ``speed`` (``speed`` 0: as fast as possible).
+
+:class:`TrafficRecorder` is a TrafficListener that writes such a log.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+import threading
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+from chargebook.drivers_generic.interface import TrafficDirection
+
+log = logging.getLogger("chargebook.simulator.playback")
+
+
+class PlaybackLogError(ValueError):
+    """A playback log line is not a valid entry; the message names the line and the field."""
+
+
+def parse_log(lines: list[str], source: str = "log") -> list[tuple[float, str, str]]:
+    """Return the entries (t_s, dir, line) of a JSON-lines traffic log, strictly checked."""
+    entries = []
+    for number, text in enumerate(lines, start=1):
+        if not text.strip():
+            continue
+        where = f"{source} line {number}"
+        try:
+            entry = json.loads(text)
+        except json.JSONDecodeError as error:
+            raise PlaybackLogError(f"{where}: not valid JSON ({error})") from None
+        if not isinstance(entry, dict):
+            raise PlaybackLogError(f"{where}: expected an object with t_s, dir, line")
+        t_s, direction, line = entry.get("t_s"), entry.get("dir"), entry.get("line")
+        if isinstance(t_s, bool) or not isinstance(t_s, int | float) or not math.isfinite(t_s):
+            raise PlaybackLogError(f"{where}: t_s = {t_s!r} is not allowed; allowed: seconds")
+        if direction not in ("rx", "tx"):
+            raise PlaybackLogError(f"{where}: dir = {direction!r} is not allowed; allowed: rx, tx")
+        if not isinstance(line, str):
+            raise PlaybackLogError(f"{where}: line = {line!r} is not allowed; allowed: a string")
+        entries.append((float(t_s), direction, line))
+    return entries
+
+
+class PlaybackResponder:
+    """Answers a driver from a recorded traffic log (see the module docstring)."""
+
+    def __init__(
+        self,
+        entries: list[tuple[float, str, str]],
+        mode: str,
+        speed: float = 1.0,
+        *,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        if isinstance(speed, bool) or not (isinstance(speed, int | float) and 0 <= speed < 1e9):
+            raise PlaybackLogError(f"speed = {speed!r} is not allowed; allowed: 0 or more")
+        self.entries = entries
+        self.mode = mode
+        self.speed = float(speed)
+        self.clock = clock
+        self.position = 0
+        self._commands_waiting = 0
+        self._anchor: tuple[float, float] | None = None  # (wall time, log time)
+        self._lock = threading.Lock()
+        self._finished_logged = False
+
+    @classmethod
+    def from_file(cls, path: Path, mode: str, speed: float = 1.0) -> PlaybackResponder:
+        """Return a responder for the log at ``path``."""
+        text = Path(path).read_text(encoding="utf-8", errors="surrogateescape")
+        return cls(parse_log(text.splitlines(), str(path)), mode, speed)
+
+    @property
+    def finished(self) -> bool:
+        """Return True once every entry has been played."""
+        return self.position >= len(self.entries)
+
+    def respond(self, line: str) -> list[str]:
+        """Count the command; in query mode return the recorded answer at once."""
+        with self._lock:
+            self._commands_waiting += 1
+            if self.mode == "query":
+                return self._play(due_only=False)
+            return []
+
+    def tick(self) -> list[str]:
+        """Return the recorded lines now due (push mode)."""
+        with self._lock:
+            if self.mode == "query":
+                return []
+            return self._play(due_only=True)
+
+    def tick_interval_s(self) -> float:
+        """Return how often the server should call :meth:`tick`, in seconds."""
+        return 0.002 if self.speed == 0 else 0.01
+
+    def flood_line(self, index: int) -> str:
+        """Refuse: a flood has no place in a playback."""
+        raise RuntimeError("flood is not available in playback mode")
+
+    def _play(self, *, due_only: bool) -> list[str]:
+        lines: list[str] = []
+        while self.position < len(self.entries):
+            t_s, direction, text = self.entries[self.position]
+            if direction == "tx":
+                if self._commands_waiting == 0:
+                    break
+                self._commands_waiting -= 1
+                self._anchor = (self.clock(), t_s)
+                self.position += 1
+                continue
+            if due_only and not self._due(t_s):
+                break
+            lines.append(text)
+            self.position += 1
+        if self.finished and not self._finished_logged:
+            self._finished_logged = True
+            log.info("playback finished: %d entries", len(self.entries))
+        return lines
+
+    def _due(self, t_s: float) -> bool:
+        if self._anchor is None:
+            self._anchor = (self.clock(), t_s)
+        if self.speed == 0:
+            return True
+        wall_anchor, log_anchor = self._anchor
+        return self.clock() >= wall_anchor + (t_s - log_anchor) / self.speed
+
+
+class TrafficRecorder:
+    """A TrafficListener that keeps every line, to be written as a playback log."""
+
+    def __init__(self, read_terminator: bytes, write_terminator: bytes, encoding: str = "ascii"):
+        self.terminators = {
+            TrafficDirection.RECEIVED: read_terminator,
+            TrafficDirection.SENT: write_terminator,
+        }
+        self.encoding = encoding
+        self.entries: list[dict[str, object]] = []
+
+    def __call__(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        terminator = self.terminators[direction]
+        body = raw[: -len(terminator)] if raw.endswith(terminator) else raw
+        line = body.decode(self.encoding, errors="surrogateescape")
+        self.entries.append({"t_s": t_s, "dir": direction.value, "line": line})
+
+    def write(self, path: Path) -> Path:
+        """Write the log as JSON lines; return its path."""
+        text = "".join(json.dumps(entry) + "\n" for entry in self.entries)
+        Path(path).write_text(text, encoding="utf-8", errors="surrogateescape")
+        return Path(path)

@@ -1,0 +1,176 @@
+"""Each driver end to end against `chargebook simulate`: a real pty, a real loopback socket.
+
+The expected charge comes from the simulator's own `truth` op, through the definitions of the
+factors (TRS-398: M_corrected = M · k_TP · k_pol · k_s recovers the charge at reference
+conditions, full collection, both polarities averaged), so the check is independent of how the
+simulator computes it.
+"""
+
+from __future__ import annotations
+
+import pytest
+from chargebook.drivers_generic import build_electrometer, open_electrometer, reconnect
+from chargebook.drivers_generic.interface import (
+    InstrumentDisconnected,
+    InstrumentReportedError,
+    ReadingStatus,
+    Sample,
+    SettingOutOfRange,
+)
+
+#: Fast simulated time: a 100 MU delivery at 600 MU/min takes 10 ms of wall time.
+FAST = ("--time-scale", "0.001")
+MU = 100.0
+#: Simulated noise is 0.03 % per delivery; 0.15 % is five standard deviations.
+NOISE_BOUND = 0.0015
+
+
+def capture(driver, control, mu: float = MU) -> Sample:
+    """Return one reading of ``mu`` MU the way the daemon takes it (query or push mode)."""
+    driver.zero()
+    driver.start_integration()
+    if driver.profile.mode == "push":
+        control.beam(mu)
+        while True:
+            sample = driver.next_sample(5.0)
+            assert sample is not None, "the instrument stopped streaming"
+            if sample.complete:
+                break
+        driver.stop_integration()
+        return sample
+    control.beam(mu, wait=True)
+    driver.stop_integration()
+    return driver.read_charge()
+
+
+def expected_charge_nC(truth: dict, mu: float = MU) -> float:
+    """Return the charge a +300 V reading should show, from the true factors."""
+    at_reference = mu * truth["sensitivity_nC_per_MU"]
+    return at_reference / (truth["k_TP"] * truth["k_pol"] * truth["k_s"])
+
+
+@pytest.mark.parametrize("profile", ["lumen-q", "tallyline", "ohmra-eng", "scpi-generic"])
+def test_each_profile_reads_the_simulated_chamber_over_a_real_pty(simulator, profile):
+    sim = simulator("--serial", "--profile", profile, "--seed", "11", *FAST)
+    assert sim.info["profile"] == profile
+    traffic = []
+    driver = open_electrometer(
+        profile, port=sim.serial, traffic=lambda d, t, raw: traffic.append((d.value, raw))
+    )
+    try:
+        assert driver.identify().serial == "EM-2093"
+        readings = [capture(driver, sim.control) for _ in range(3)]
+    finally:
+        driver.close()
+    expected = expected_charge_nC(sim.control.truth())
+    for sample in readings:
+        assert sample.status is ReadingStatus.OK
+        assert sample.charge_nC == pytest.approx(expected, rel=NOISE_BOUND)
+    assert {direction for direction, _ in traffic} == {"tx", "rx"}
+
+
+def test_scpi_driver_over_pyvisa_on_a_loopback_socket(simulator):
+    sim = simulator("--scpi", "0", "--seed", "5", *FAST)
+    assert sim.scpi.startswith("TCPIP::127.0.0.1::") and sim.scpi.endswith("::SOCKET")
+    assert sim.info["serial"] is None
+    driver = open_electrometer("scpi-generic", resource=sim.scpi)
+    try:
+        assert driver.identify().model == "SIM-SCPI"
+        driver.set_bias(-300)
+        negative = capture(driver, sim.control)
+        driver.set_bias(300)
+        for _ in range(3):  # let the chamber settle after the polarity change
+            capture(driver, sim.control)
+        positive = capture(driver, sim.control)
+        driver.transport.write_line("NOT:A:COMMAND")
+        with pytest.raises(InstrumentReportedError, match="-113"):
+            driver.zero()
+        with pytest.raises(SettingOutOfRange):
+            driver.set_bias(1500)
+        driver.set_range("LOW")  # full scale 50 nC in the simulator: 300 MU is too much
+        over = capture(driver, sim.control, mu=300)
+    finally:
+        driver.close()
+    truth = sim.control.truth()
+    assert negative.charge_nC < 0 < positive.charge_nC
+    assert positive.charge_nC == pytest.approx(expected_charge_nC(truth), rel=NOISE_BOUND)
+    assert over.status is ReadingStatus.OVERRANGE
+
+
+def test_visa_asrl_resource_on_the_pty(simulator):
+    sim = simulator("--serial", "--profile", "lumen-q", *FAST)
+    driver = open_electrometer("lumen-q", resource=f"ASRL{sim.serial}::INSTR")
+    try:
+        assert driver.identify().model == "LUMEN-Q"
+        assert capture(driver, sim.control).charge_nC > 0
+    finally:
+        driver.close()
+
+
+@pytest.mark.parametrize("profile", ["lumen-q", "tallyline"])
+def test_the_pty_drops_and_comes_back_at_the_same_path(simulator, profile):
+    sim = simulator("--serial", "--profile", profile, *FAST)
+    driver = open_electrometer(profile, port=sim.serial)
+    try:
+        capture(driver, sim.control)
+        sim.control.drop(0.2)
+        with pytest.raises(InstrumentDisconnected):
+            driver.identify()
+            driver.identify()  # the first write may still land in a closing pty
+        attempts = reconnect(driver, attempts=30, backoff_s=0.02)
+        assert attempts >= 1
+        assert driver.identify().serial == "EM-2093"
+        assert capture(driver, sim.control).charge_nC > 0
+    finally:
+        driver.close()
+
+
+def test_the_scpi_socket_drops_and_comes_back(simulator):
+    sim = simulator("--scpi", "0", *FAST)
+    driver = open_electrometer("scpi-generic", resource=sim.scpi)
+    try:
+        driver.identify()
+        sim.control.drop(0.3)
+        with pytest.raises(InstrumentDisconnected):
+            driver.identify()
+        reconnect(driver, attempts=30, backoff_s=0.02)
+        assert driver.identify().model == "SIM-SCPI"
+    finally:
+        driver.close()
+
+
+def test_a_missing_port_is_instrument_disconnected_and_reconnect_gives_up(tmp_path):
+    driver = build_electrometer("lumen-q", port=str(tmp_path / "no-such-port"))
+    with pytest.raises(InstrumentDisconnected, match="no-such-port"):
+        reconnect(driver, attempts=3, backoff_s=0.0)
+
+
+def test_port_and_resource_are_exclusive():
+    with pytest.raises(SettingOutOfRange, match="exactly one"):
+        build_electrometer("lumen-q")
+    with pytest.raises(SettingOutOfRange, match="exactly one"):
+        build_electrometer("lumen-q", port="/dev/null", resource="ASRL1::INSTR")
+
+
+def test_same_seed_same_readings_whatever_the_timing(simulator):
+    # The simulator draws its noise per delivery, so only leakage (1e-5 nC/s over simulated
+    # time) depends on timing: at time scale 0.01, a few ms of jitter is ~1e-6 nC, below the
+    # instrument's last digit (0.1 pC); rounding may still flip that digit, hence one count.
+    runs = []
+    for extra_readings in (0, 1):
+        sim = simulator(
+            "--serial", "--profile", "ohmra-eng", "--seed", "42", "--time-scale", "0.01"
+        )
+        driver = open_electrometer("ohmra-eng", port=sim.serial)
+        try:
+            values = []
+            for _ in range(4):
+                values.append(capture(driver, sim.control).charge_nC)
+                if extra_readings:  # extra traffic between deliveries changes the timing only
+                    driver.identify()
+                    driver.read_charge()
+            runs.append(values)
+        finally:
+            driver.close()
+    assert runs[0] == pytest.approx(runs[1], abs=1.01e-4)
+    assert len(set(runs[0])) == 4  # the noise is there, and it is the same noise
