@@ -57,22 +57,38 @@ class AutoOperator:
         self.stall_timeout_s = stall_timeout_s
         self._seen: set[int] = set()
 
-    async def run(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
-        """Start a session (or continue the open one) and return the final snapshot."""
+    async def start(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
+        """Subscribe, start a session unless one is open (a finished one is closed first),
+        and return the snapshot."""
         snapshot = await self.client.subscribe()
         if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
             snapshot = await self.client.call(Method.SESSION_CLOSE)
         if snapshot["state"] == EngineState.IDLE:
             snapshot = await self.client.call(Method.SESSION_START, metadata=metadata, plan=plan)
-        while snapshot["state"] != EngineState.FINISHED:
+        return snapshot
+
+    async def run_until(
+        self, snapshot: dict[str, Any], done: Callable[[dict[str, Any]], bool]
+    ) -> dict[str, Any]:
+        """Act, one step at a time, until ``done(snapshot)``; return that snapshot."""
+        while not done(snapshot):
             self._report(snapshot)
-            if snapshot["state"] == EngineState.ABORTED:
-                raise AutoOperatorError("the session was aborted: " + str(snapshot["session"]))
-            snapshot = await self._act(snapshot)
+            if snapshot["state"] in (EngineState.ABORTED, EngineState.FINISHED):
+                raise AutoOperatorError(
+                    f"the session ended ({snapshot['state']}) before the goal was reached"
+                )
+            snapshot = await self.act(snapshot)
         self._report(snapshot)
         return snapshot
 
-    async def _act(self, snapshot: dict[str, Any]) -> dict[str, Any]:
+    async def run(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
+        """Start a session (or continue the open one), take it to the end, return the final
+        snapshot."""
+        snapshot = await self.start(metadata, plan)
+        return await self.run_until(snapshot, lambda s: s["state"] == EngineState.FINISHED)
+
+    async def act(self, snapshot: dict[str, Any]) -> dict[str, Any]:
+        """Do the one thing the snapshot asks for (or wait for the next snapshot)."""
         allowed = snapshot["allowed"]
         prompt = snapshot["prompt"]
         if prompt["kind"] == "environment" and Method.ENVIRONMENT_SET in allowed:

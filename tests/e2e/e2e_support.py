@@ -1,0 +1,229 @@
+"""Fixtures that run the real thing: `chargebook simulate` and `chargebook serve` as subprocesses.
+
+``tests/e2e/conftest.py`` imports the fixtures from here. Another test folder reuses them the
+same way, with this folder on ``sys.path`` (see ``tests/e2e/conftest.py``)::
+
+    sys.path.insert(0, str(Path(__file__).parents[1] / "e2e"))
+    from e2e_support import daemon, metadata, simulator, start_daemon, start_simulator
+
+Nothing is mocked. The simulated electrometer runs on a real pseudo-terminal with its control
+socket (the bench: linac, bias switch, thermometer); the daemon runs on a real SQLite file and
+listens on a real Unix socket; tests talk to it with the real ``DaemonClient``.
+
+Fixtures (function scope; everything started is stopped at teardown):
+
+``start_simulator(profile="lumen-q", seed=1, time_scale=TIME_SCALE, *extra_args)``
+    -> :class:`SimulatorProcess` with ``serial`` (pty path), ``control`` (control socket path),
+    ``profile``, ``pid`` and ``bench()`` (a ``SimulatorControl`` client).
+``start_daemon(simulator, db=None, plan=QUICK_PLAN, bench=True, time_scale=TIME_SCALE)``
+    -> :class:`DaemonProcess` with ``socket``, ``db``, ``pid``, ``info`` (its ready line),
+    ``connect(operator=...)`` (an async ``DaemonClient``), ``kill9()``, ``restart()``, ``stop()``.
+``simulator``  a default simulator;  ``daemon``  a daemon on it with the quick plan.
+``metadata``   the invented demo metadata (Harbourside Cancer Centre, demo only).
+
+Each process's stderr goes to a log file under ``tmp_path``, printed when a test fails to start
+one. The quick plan (``plans/quick.toml``) and TIME_SCALE keep a whole session to a few seconds.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import select
+import signal
+import subprocess
+import sys
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pytest
+from chargebook.acquire.client import DaemonClient
+from chargebook.acquire.demo_data import demo_metadata
+from chargebook.drivers_generic.simulator.control import SimulatorControl
+
+#: Wall seconds per simulated second, for the simulator and the daemon alike.
+TIME_SCALE = 0.02
+QUICK_PLAN = str(Path(__file__).parent / "plans" / "quick.toml")
+STARTUP_TIMEOUT_S = 20.0
+
+
+def chargebook_command(*args: str) -> list[str]:
+    """Return the command line that runs `chargebook ARGS` with this interpreter."""
+    return [sys.executable, "-m", "chargebook.acquire.cli", *args]
+
+
+def read_ready_line(process: subprocess.Popen, log_path: Path) -> dict[str, Any]:
+    """Return the JSON object a process prints first on stdout; fail with its log if it dies."""
+    assert process.stdout is not None
+    ready, _, _ = select.select([process.stdout], [], [], STARTUP_TIMEOUT_S)
+    line = process.stdout.readline() if ready else b""
+    if not line:
+        process.kill()
+        process.wait()
+        pytest.fail(f"{process.args} did not start:\n{log_path.read_text(errors='replace')}")
+    return json.loads(line)
+
+
+def stop_process(process: subprocess.Popen) -> None:
+    """End a process politely (SIGTERM), forcefully after 10 s."""
+    if process.poll() is None:
+        process.send_signal(signal.SIGTERM)
+        try:
+            process.wait(10)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            process.wait()
+    if process.stdout is not None:
+        process.stdout.close()
+
+
+@dataclass
+class SimulatorProcess:
+    """A running `chargebook simulate --serial`."""
+
+    process: subprocess.Popen
+    info: dict[str, Any]
+    log_path: Path
+
+    @property
+    def serial(self) -> str:
+        return self.info["serial"]
+
+    @property
+    def control(self) -> str:
+        return self.info["control"]
+
+    @property
+    def profile(self) -> str:
+        return self.info["profile"]
+
+    @property
+    def pid(self) -> int:
+        return self.info["pid"]
+
+    def bench(self) -> SimulatorControl:
+        """Return a client of the simulator's control socket (close it when done)."""
+        return SimulatorControl(self.control)
+
+
+@dataclass
+class DaemonProcess:
+    """A running `chargebook serve`; can be killed and restarted on the same file."""
+
+    args: list[str]
+    socket: Path
+    db: Path
+    log_path: Path
+    process: subprocess.Popen | None = None
+    info: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def pid(self) -> int:
+        assert self.process is not None
+        return self.process.pid
+
+    def start(self) -> DaemonProcess:
+        """Start the daemon and wait for its ready line."""
+        with self.log_path.open("ab") as log:
+            self.process = subprocess.Popen(
+                chargebook_command(*self.args), stdout=subprocess.PIPE, stderr=log
+            )
+        self.info = read_ready_line(self.process, self.log_path)
+        return self
+
+    def kill9(self) -> None:
+        """Kill the daemon with SIGKILL, as a crash would, and reap it."""
+        assert self.process is not None
+        os.kill(self.process.pid, signal.SIGKILL)
+        self.process.wait()
+        self.process.stdout.close()  # type: ignore[union-attr]
+
+    def restart(self) -> DaemonProcess:
+        """Start the daemon again with the same options (same database, same socket)."""
+        if self.process is not None and self.process.poll() is None:
+            stop_process(self.process)
+        return self.start()
+
+    def stop(self) -> None:
+        """Stop the daemon with SIGTERM."""
+        if self.process is not None:
+            stop_process(self.process)
+
+    async def connect(self, operator: str | None = "test operator") -> DaemonClient:
+        """Return a connected client of this daemon."""
+        return await DaemonClient.connect(self.socket, client="e2e test", operator=operator)
+
+
+@pytest.fixture
+def start_simulator(tmp_path: Path) -> Iterator[Callable[..., SimulatorProcess]]:
+    """Start `chargebook simulate --serial` processes; all are stopped at teardown."""
+    started: list[SimulatorProcess] = []
+
+    def start(
+        profile: str = "lumen-q", seed: int = 1, time_scale: float = TIME_SCALE, *extra: str
+    ) -> SimulatorProcess:
+        log_path = tmp_path / f"simulator-{len(started)}.log"
+        args = ["simulate", "--serial", "--profile", profile, "--seed", str(seed)]
+        args += ["--time-scale", str(time_scale), *extra]
+        with log_path.open("wb") as log:
+            process = subprocess.Popen(
+                chargebook_command(*args), stdout=subprocess.PIPE, stderr=log
+            )
+        simulator = SimulatorProcess(process, read_ready_line(process, log_path), log_path)
+        started.append(simulator)
+        return simulator
+
+    yield start
+    for simulator in started:
+        stop_process(simulator.process)
+
+
+@pytest.fixture
+def start_daemon(tmp_path: Path) -> Iterator[Callable[..., DaemonProcess]]:
+    """Start `chargebook serve` processes on a simulator; all are stopped at teardown."""
+    started: list[DaemonProcess] = []
+
+    def start(
+        simulator: SimulatorProcess,
+        db: Path | None = None,
+        plan: str = QUICK_PLAN,
+        bench: bool = True,
+        time_scale: float = TIME_SCALE,
+    ) -> DaemonProcess:
+        number = len(started)
+        socket_path = tmp_path / f"run-{number}" / "daemon.sock"
+        db_path = db or tmp_path / f"station-{number}.sqlite"
+        args = ["serve", "--profile", simulator.profile, "--port", simulator.serial]
+        args += ["--db", str(db_path), "--socket", str(socket_path), "--plan", plan]
+        args += ["--time-scale", str(time_scale), "--log-level", "INFO"]
+        if bench:
+            args += ["--bench-control", simulator.control]
+        daemon = DaemonProcess(args, socket_path, db_path, tmp_path / f"daemon-{number}.log")
+        started.append(daemon)
+        return daemon.start()
+
+    yield start
+    for daemon in started:
+        daemon.stop()
+
+
+@pytest.fixture
+def simulator(start_simulator: Callable[..., SimulatorProcess]) -> SimulatorProcess:
+    """A simulated electrometer (lumen-q dialect: query mode, remote bias) on a pty."""
+    return start_simulator()
+
+
+@pytest.fixture
+def daemon(
+    start_daemon: Callable[..., DaemonProcess], simulator: SimulatorProcess
+) -> DaemonProcess:
+    """The real daemon on ``simulator`` with the quick plan and the bench attached."""
+    return start_daemon(simulator)
+
+
+@pytest.fixture
+def metadata() -> dict[str, Any]:
+    """The invented demo session metadata (Harbourside Cancer Centre; demo only)."""
+    return demo_metadata()
