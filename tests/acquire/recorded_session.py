@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import tomllib
 from importlib import resources
+from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.plan import Plan, SettlingRule, Step
@@ -51,11 +52,10 @@ def example_plan() -> Plan:
     )
 
 
-def example_metadata(**changes: Any) -> dict[str, Any]:
-    """Return session metadata built from the example worksheet (plus ``changes``)."""
+def required_metadata() -> dict[str, Any]:
+    """Return the example's session metadata with only the required keys, as typed in."""
     data = example()
-    calibration, uncertainty = data["calibration"], data["uncertainty"]
-    metadata = {
+    return {
         "treatment_machine": data["session"]["machine"],
         "beam": "6 MV",
         "beam_type": data["beam"],
@@ -65,19 +65,21 @@ def example_metadata(**changes: Any) -> dict[str, Any]:
         "electrometer_model": "bench electrometer",
         "electrometer_serial": data["session"]["electrometer"],
         "operator": data["session"]["operator"],
-        "N_Dw": calibration["N_Dw_Gy_per_nC"],
-        "N_Dw_unit": "Gy/nC",
-        "k_Q": calibration["k_Q"],
-        "k_elec": calibration["k_elec"],
-        "expected_cGy_per_MU": calibration["expected_cGy_per_MU"],
-        "tolerance_pct": calibration["tolerance_pct"],
-        "u_N_Dw_pct_k2": calibration["u_N_Dw_pct_k2"],
-        "u_k_Q_pct": calibration["u_k_Q_pct"],
-        "u_temperature_C": uncertainty["u_temperature_C"],
-        "u_pressure_kPa": uncertainty["u_pressure_kPa"],
-        "u_k_elec_pct": uncertainty["u_k_elec_pct"],
-        "beam_quality": data["session"]["beam_quality"],
+        "N_Dw": data["calibration"]["N_Dw_Gy_per_nC"],
+        "k_Q": data["calibration"]["k_Q"],
+        "expected_cGy_per_MU": data["calibration"]["expected_cGy_per_MU"],
     }
+
+
+def example_metadata(**changes: Any) -> dict[str, Any]:
+    """Return the example's full session metadata (plus ``changes``), checked, as stored."""
+    data = example()
+    calibration, uncertainty = data["calibration"], data["uncertainty"]
+    metadata = required_metadata()
+    for key in ("k_elec", "tolerance_pct", "u_N_Dw_pct_k2", "u_k_Q_pct"):
+        metadata[key] = calibration[key]
+    metadata.update(uncertainty)
+    metadata["beam_quality"] = data["session"]["beam_quality"]
     metadata.update(changes)
     return validate_metadata(metadata).to_dict()
 
@@ -181,3 +183,11 @@ def record_example_session(
     if status != "open":
         store.set_session_status(session_id, status, "plan complete", actor=OPERATOR)
     return session_id
+
+
+def recorded_station(folder: Path) -> Path:
+    """Return a new station file in ``folder`` holding the example as one finished session."""
+    path = folder / "station.sqlite"
+    with Store.open(path) as store:
+        record_example_session(store)
+    return path

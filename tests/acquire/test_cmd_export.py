@@ -15,16 +15,13 @@ import pytest
 from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK, main
 from chargebook.acquire.export import CSV_COLUMNS
 from chargebook.acquire.store import Store
-from recorded_session import record_example_session
+from recorded_session import recorded_station
 from test_export_html import Report
 
 
 @pytest.fixture
 def station(tmp_path: Path) -> Path:
-    path = tmp_path / "station.sqlite"
-    with Store.open(path) as store:
-        record_example_session(store)
-    return path
+    return recorded_station(tmp_path)
 
 
 def test_csv_to_stdout(station: Path, capsys) -> None:

@@ -13,16 +13,13 @@ import pytest
 from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 from chargebook.acquire.export import JSON_KEYS
 from chargebook.acquire.store import Store
-from recorded_session import SUPERSEDE_REASON, record_example_session
+from recorded_session import SUPERSEDE_REASON, record_example_session, recorded_station
 from test_export import hand_dose_per_MU_cGy
 
 
 @pytest.fixture
 def station(tmp_path: Path) -> Path:
-    path = tmp_path / "station.sqlite"
-    with Store.open(path) as store:
-        record_example_session(store)
-    return path
+    return recorded_station(tmp_path)
 
 
 def _value(text: str, label: str) -> str:

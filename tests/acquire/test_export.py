@@ -21,16 +21,13 @@ from recorded_session import (
     SUPERSEDE_REASON,
     SETTLING_READING_nC,
     example,
-    record_example_session,
+    recorded_station,
 )
 
 
 @pytest.fixture
 def station(tmp_path: Path) -> Path:
-    path = tmp_path / "station.sqlite"
-    with Store.open(path) as store:
-        record_example_session(store)
-    return path
+    return recorded_station(tmp_path)
 
 
 @pytest.fixture

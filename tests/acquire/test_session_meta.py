@@ -9,22 +9,10 @@ import pytest
 from chargebook.acquire.session_meta import KNOWN_KEYS, SessionMetadata, validate_metadata
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Uncertainties
+from recorded_session import required_metadata
 
-# Invented demo scenario: our own clinic, Harbourside Cancer Centre. Not reference data.
-HARBOURSIDE = {
-    "treatment_machine": "HCC-LA1",
-    "beam": "6 MV",
-    "beam_type": "pulsed",
-    "convention": "trs398",
-    "chamber_model": "thimble 0.6 cc",
-    "chamber_serial": "CH-4417",
-    "electrometer_model": "bench electrometer",
-    "electrometer_serial": "EM-2093",
-    "operator": "R. Mahlangu",
-    "N_Dw": 0.05385,
-    "k_Q": 0.9915,
-    "expected_cGy_per_MU": 1.0,
-}
+#: The invented example worksheet's metadata (Harbourside Cancer Centre); not reference data.
+HARBOURSIDE = required_metadata()
 
 
 def _with(**changes: object) -> dict:
@@ -44,14 +32,14 @@ def test_a_complete_entry_is_accepted_and_keeps_its_values() -> None:
     meta = validate_metadata(HARBOURSIDE)
     assert isinstance(meta, SessionMetadata)
     assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("HCC-LA1", "6 MV", "pulsed")
-    assert (meta.N_Dw, meta.N_Dw_unit, meta.N_Dw_Gy_per_nC) == (0.05385, "Gy/nC", 0.05385)
+    assert (meta.N_Dw, meta.N_Dw_unit, meta.N_Dw_Gy_per_nC) == (0.0538, "Gy/nC", 0.0538)
     assert meta.k_elec is None and meta.u_k_elec_pct == 0.0 and meta.tolerance_pct is None
     assert meta.conversions() == ()
 
 
 def test_stored_form_validates_back_to_the_same_metadata() -> None:
     meta = validate_metadata(
-        _with(N_Dw=5.385, N_Dw_unit="cGy/nC", tolerance_pct="daily", calibration_date="2024-11-05")
+        _with(N_Dw=5.38, N_Dw_unit="cGy/nC", tolerance_pct="daily", calibration_date="2024-11-05")
     )
     stored = json.loads(json.dumps(meta.to_dict()))
     assert set(stored) == set(KNOWN_KEYS)
@@ -72,9 +60,9 @@ def test_names_and_choices_are_normalised() -> None:
     ("value", "unit", "gy_per_nc"),
     [
         # SI: 1 Gy/C = 1e-9 Gy/nC; 1 cGy = 0.01 Gy.
-        (5.385e7, "Gy/C", 0.05385),
-        (5.385, "cGy/nC", 0.05385),
-        (0.05385, "Gy/nC", 0.05385),
+        (5.38e7, "Gy/C", 0.0538),
+        (5.38, "cGy/nC", 0.0538),
+        (0.0538, "Gy/nC", 0.0538),
     ],
 )
 def test_N_Dw_is_converted_once_and_the_conversion_is_shown(value, unit, gy_per_nc) -> None:
@@ -83,14 +71,14 @@ def test_N_Dw_is_converted_once_and_the_conversion_is_shown(value, unit, gy_per_
     assert (meta.N_Dw, meta.N_Dw_unit) == (value, unit)
     if unit != "Gy/nC":
         (conversion,) = meta.conversions()
-        assert conversion.text() == f"N_D,w {value:g} {unit} = 0.05385 Gy/nC"
+        assert conversion.text() == f"N_D,w {value:g} {unit} = 0.0538 Gy/nC"
 
 
 def test_a_stored_conversion_that_disagrees_is_refused() -> None:
     with pytest.raises(InputError, match=r"N_Dw_Gy_per_nC = 0\.06 contradicts N_Dw"):
-        validate_metadata(_with(N_Dw=5.385, N_Dw_unit="cGy/nC", N_Dw_Gy_per_nC=0.06))
-    only_converted = validate_metadata(_with(N_Dw=DELETE, N_Dw_Gy_per_nC=0.05385))
-    assert only_converted.N_Dw == 0.05385 and only_converted.N_Dw_unit == "Gy/nC"
+        validate_metadata(_with(N_Dw=5.38, N_Dw_unit="cGy/nC", N_Dw_Gy_per_nC=0.06))
+    only_converted = validate_metadata(_with(N_Dw=DELETE, N_Dw_Gy_per_nC=0.0538))
+    assert only_converted.N_Dw == 0.0538 and only_converted.N_Dw_unit == "Gy/nC"
 
 
 @pytest.mark.parametrize(
@@ -153,8 +141,8 @@ def test_each_required_field_is_named_when_missing(missing: str) -> None:
         ({"k_Q": True}, "k_Q", "is not a number"),
         ({"k_elec": 0.5}, "k_elec", "0.9 to 1.1"),
         ({"expected_cGy_per_MU": 0}, "expected_cGy_per_MU", "0.01 to 10 cGy/MU"),
-        ({"N_Dw": 5.385e7}, "N_Dw", "0.0001 to 100 Gy/nC"),
-        ({"N_Dw": 5.385e7, "N_Dw_unit": "cGy/nC"}, "N_Dw", "0.01 to 10000 cGy/nC"),
+        ({"N_Dw": 5.38e7}, "N_Dw", "0.0001 to 100 Gy/nC"),
+        ({"N_Dw": 5.38e7, "N_Dw_unit": "cGy/nC"}, "N_Dw", "0.01 to 10000 cGy/nC"),
         ({"N_Dw_unit": "Gy/pC"}, "N_Dw_unit", "is not a known unit"),
         ({"u_N_Dw_pct_k2": -1}, "u_N_Dw_pct_k2", "0 to 50 %"),
         ({"u_temperature_C": float("nan")}, "u_temperature_C", "is not a finite number"),
