@@ -7,6 +7,7 @@ Light at import: the store (and sqlite-utils) is imported only when a command ru
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from collections.abc import Callable
 from pathlib import Path
@@ -62,6 +63,11 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
     except InputError as error:
         print(f"chargebook: {error}", file=sys.stderr)
         return EXIT_INVALID_INPUT
+    except BrokenPipeError:
+        # Whoever read the output went away (`| head`): stop quietly, as the Python
+        # documentation on SIGPIPE advises, so that the interpreter's final flush stays silent.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_FAILURE
     finally:
         store.close()
 

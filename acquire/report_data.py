@@ -63,17 +63,12 @@ class SessionRecord:
     traffic_lines: int
     evaluation: Evaluation | None
     results_error: str | None
+    instrument: dict[str, Any] | None = None
 
     @property
     def metadata(self) -> dict[str, Any]:
         """Return the metadata as stored."""
         return self.session.metadata()
-
-    @property
-    def instrument(self) -> dict[str, Any] | None:
-        """Return the latest instrument identity the daemon recorded, or None."""
-        found = [e for e in self.events if e.kind == INSTRUMENT_EVENT]
-        return found[-1].detail() if found else None
 
     @property
     def manual_readings(self) -> tuple[tuple[SetRow, ReadingRow], ...]:
@@ -88,7 +83,27 @@ class SessionRecord:
 def _worth_auditing(event: EventRow) -> bool:
     if event.kind == "set_status":
         return event.detail().get("to") in UNUSED_SET_STATUSES
+    if event.kind == "bias_changed":
+        return event.detail().get("how") != "remote"  # a change by hand is a manual step
     return event.kind in AUDIT_EVENT_KINDS or event.kind == "session_status"
+
+
+def instrument_identity(
+    store: Store, session: SessionRow, events: tuple[EventRow, ...]
+) -> dict[str, Any] | None:
+    """Return the instrument identity the daemon recorded for the session, or None.
+
+    The latest ``instrument_identified`` event of the session; else, since the daemon often
+    identifies the instrument before a session opens, the latest one recorded outside any
+    session before the session closed.
+    """
+    found = [e for e in events if e.kind == INSTRUMENT_EVENT]
+    if not found:
+        end = session.closed_at or "9999"
+        found = [
+            e for e in store.events(None) if e.kind == INSTRUMENT_EVENT and e.recorded_at <= end
+        ]
+    return found[-1].detail() if found else None
 
 
 def load_record(store: Store, session_id: int) -> SessionRecord:
@@ -126,6 +141,7 @@ def load_record(store: Store, session_id: int) -> SessionRecord:
         traffic_lines=store.traffic_count(session_id),
         evaluation=evaluation,
         results_error=error,
+        instrument=instrument_identity(store, session, events),
     )
 
 

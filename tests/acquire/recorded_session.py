@@ -161,11 +161,13 @@ def record_example_session(
     _readings(store, session_id, leakage, [leakage_nC], integration_s=LEAKAGE_DURATION_S)
     _accept(store, leakage)
 
+    store.add_event(session_id, "daemon", "bias_changed", {"volts": 300.0, "how": "remote"})
     routine = store.add_set(session_id, 1, "routine", "routine", 1, plan.routine_bias_V, 1)
     _readings(store, session_id, routine, [SETTLING_READING_nC * scale], settling=True)
     _readings(store, session_id, routine, [q * scale for q in readings["routine_nC"]], first_seq=2)
     _accept(store, routine)
 
+    store.add_event(session_id, OPERATOR, "bias_changed", {"volts": -300.0, "how": "by hand"})
     first_try = store.add_set(session_id, 2, "opposite", "opposite", -1, -plan.routine_bias_V, 1)
     _readings(store, session_id, first_try, [q * scale for q in SUPERSEDED_nC])
     store.set_set_status(first_try, "superseded", SUPERSEDE_REASON, actor=OPERATOR)

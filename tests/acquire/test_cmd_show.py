@@ -7,10 +7,12 @@ Centre, HCC-LA1 6 MV) recorded through the Store API.
 from __future__ import annotations
 
 import json
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
+from chargebook.acquire.cli import CAUTION, EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
 from chargebook.acquire.export import JSON_KEYS
 from chargebook.acquire.store import Store
 from recorded_session import SUPERSEDE_REASON, record_example_session, recorded_station
@@ -47,6 +49,18 @@ def test_json_is_the_export(station: Path, capsys) -> None:
     data = json.loads(capsys.readouterr().out)
     assert tuple(data) == JSON_KEYS
     assert data["results"]["dose_per_MU_cGy"] == pytest.approx(hand_dose_per_MU_cGy(), rel=1e-9)
+
+
+def test_a_reader_that_goes_away_ends_the_command_quietly(station: Path) -> None:
+    process = subprocess.Popen(
+        [sys.executable, "-m", "chargebook.acquire", "show", "1", "--db", str(station)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+    )
+    process.stdout.close()  # like `| head` exiting before the report is written
+    _, err = process.communicate(timeout=60)
+    assert process.returncode == EXIT_FAILURE
+    assert b"Traceback" not in err and err == b""
 
 
 def test_an_unknown_session_is_named(station: Path, capsys) -> None:

@@ -147,6 +147,19 @@ def test_json_with_traffic_keeps_the_raw_lines(reader: Store) -> None:
     ]
 
 
+def test_an_identity_taken_before_the_session_opened_is_reported(tmp_path: Path) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "old, EM-1000"})
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "sim, EM-2093"})
+        session_id = store.create_session({"beam": "6 MV"}, {"steps": []}, "trs398", "6 MV")
+        store.set_session_status(session_id, "finished")
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "later, EM-3000"})
+    with Store.open(path, read_only=True) as store:
+        data = _strict(to_json(load_record(store, session_id)))
+    assert data["instrument"] == {"identity": "sim, EM-2093"}
+
+
 def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:

@@ -150,6 +150,9 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
         ["R. Okafor", "manual capture", "-14.7770 nC in set 4 (opposite)"]
     ]
     assert any(row[2] == "session status" and "to: finished" in row[3] for row in audit)
+    # The bias turned by hand is a manual step; the remote one is routine and left out.
+    bias = [row[1:] for row in audit if row[2] == "bias changed"]
+    assert bias == [["R. Okafor", "bias changed", "how: by hand, volts: -300.0"]]
 
 
 def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
