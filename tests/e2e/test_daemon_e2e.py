@@ -284,3 +284,30 @@ def test_run_unattended_prints_the_worksheet_keys_plus_the_session_id(
     with simulator.bench() as bench:
         truth = bench.truth()
     assert document["k_pol"] == pytest.approx(truth["k_pol"], abs=K_POL_TOLERANCE)
+
+
+def test_demo_unattended_prints_a_dose_whose_factors_match_the_simulators_truth(tmp_path):
+    db = tmp_path / "demo.sqlite"
+    command = chargebook_command(
+        "demo", "--unattended", "--db", str(db), "--plan", QUICK_PLAN,
+        "--time-scale", str(TIME_SCALE), "--seed", "3",
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr
+    text = done.stdout
+    assert f"demo database: {db}" in text
+    assert "simulator truth" in text and "dose to water" in text and "M corrected" in text
+    assert "qualified medical physicist" in text  # the safety caution
+    assert text.count(" nC  auto") >= 10  # one progress line per reading
+    done = subprocess.run(
+        [*command, "--json"], capture_output=True, text=True, timeout=120, check=False
+    )
+    assert done.returncode == 0, done.stderr
+    document = json.loads(done.stdout)
+    truth = document["truth"]
+    assert document["k_TP"] == pytest.approx(truth["k_TP"], abs=K_TP_TOLERANCE)
+    assert document["k_pol"] == pytest.approx(truth["k_pol"], abs=K_POL_TOLERANCE)
+    assert document["k_s"] == pytest.approx(truth["k_s"], abs=K_S_TOLERANCE)
+    assert document["dose_Gy"] is not None and document["M_corrected_nC"] is not None
+    with stored(db) as store:
+        assert [s.status for s in store.sessions()] == ["finished", "finished"]

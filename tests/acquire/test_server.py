@@ -1,0 +1,167 @@
+"""The JSON-RPC server and client on a real Unix socket.
+
+The server's collaborator here is a small dispatcher that raises the daemon's real errors; the
+whole daemon behind the same server is tested in tests/e2e. Wire format: JSON-RPC 2.0
+(jsonrpc.org/specification), newline-delimited, at most 64 KiB per message.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import socket
+import stat
+
+import pytest
+from chargebook.acquire import protocol
+from chargebook.acquire.client import (
+    ConnectionLost,
+    DaemonClient,
+    DaemonError,
+    connect_with_retry,
+)
+from chargebook.acquire.engine import ConfirmationRequired
+from chargebook.acquire.protocol import EngineState
+from chargebook.acquire.server import (
+    RpcServer,
+    SocketInUse,
+    UnsafeSocketDirectory,
+    prepare_socket_dir,
+)
+from chargebook.acquire.states import IllegalTransition
+from chargebook.corrections.errors import InputError
+
+
+async def dispatch(connection, method, params):
+    """Answer like the daemon: results, or its real errors."""
+    if method == "hello":
+        connection.operator = params.get("operator")
+        return {"protocol_version": protocol.PROTOCOL_VERSION}
+    if method == "subscribe":
+        connection.subscribed = True
+        return {"seq": 0, "actor": connection.actor}
+    if method == "environment.set":
+        raise InputError("temperature_C", params["temperature_C"], "10 to 40 °C")
+    if method == "set.accept":
+        raise IllegalTransition("set.accept", EngineState.IDLE, ["session.start"])
+    if method == "session.abort":
+        raise ConfirmationRequired("abort needs confirm = true")
+    if method == "session.pause":
+        raise RuntimeError("a fault inside the daemon")
+    return {"method": method, "params": params}
+
+
+@pytest.fixture
+async def server(tmp_path):
+    rpc = RpcServer(tmp_path / "private" / "daemon.sock", dispatch)
+    await rpc.start()
+    yield rpc
+    await rpc.close()
+
+
+async def test_the_socket_is_private_and_a_second_daemon_is_refused(server, tmp_path):
+    path = server.socket_path
+    assert stat.S_IMODE(os.stat(path).st_mode) == 0o600
+    assert stat.S_IMODE(os.stat(path.parent).st_mode) == 0o700
+    with pytest.raises(SocketInUse):
+        await RpcServer(path, dispatch).start()
+
+
+async def test_a_stale_socket_is_replaced_and_an_open_directory_refused(tmp_path):
+    directory = tmp_path / "private"
+    directory.mkdir(mode=0o700)
+    stale = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    stale.bind(str(directory / "daemon.sock"))
+    stale.close()  # a daemon that died left its socket file behind
+    rpc = RpcServer(directory / "daemon.sock", dispatch)
+    await rpc.start()
+    await rpc.close()
+    shared = tmp_path / "shared"
+    shared.mkdir()
+    shared.chmod(0o755)
+    with pytest.raises(UnsafeSocketDirectory, match="755"):
+        prepare_socket_dir(shared / "daemon.sock")
+
+
+async def test_errors_come_back_with_their_codes_and_the_field(server):
+    client = await DaemonClient.connect(server.socket_path, client="test", operator="A. Reyes")
+    assert client.hello == {"protocol_version": protocol.PROTOCOL_VERSION}
+    with pytest.raises(DaemonError) as refused:
+        await client.call("environment.set", temperature_C=80.0, pressure=101.0)
+    assert refused.value.code == protocol.INPUT_ERROR and refused.value.field == "temperature_C"
+    with pytest.raises(DaemonError) as refused:
+        await client.call("environment.set", temperature_C="warm", pressure=101.0)
+    assert refused.value.code == protocol.INVALID_PARAMS and refused.value.field == "temperature_C"
+    with pytest.raises(DaemonError) as refused:
+        await client.call("set.accept")
+    assert refused.value.code == protocol.ILLEGAL_TRANSITION
+    assert refused.value.data["allowed"] == ["session.start"]
+    with pytest.raises(DaemonError) as refused:
+        await client.call("session.abort", reason="x", confirm=False)
+    assert refused.value.code == protocol.CONFIRMATION_REQUIRED
+    with pytest.raises(DaemonError) as refused:
+        await client.call("session.pause")
+    assert refused.value.code == protocol.INTERNAL_ERROR
+    assert (await client.call("status")) == {"method": "status", "params": {}}  # still fine
+    await client.close()
+
+
+async def test_notifications_reach_subscribers_only(server):
+    listener = await DaemonClient.connect(server.socket_path, operator="A. Reyes")
+    bystander = await DaemonClient.connect(server.socket_path)
+    assert (await listener.subscribe())["actor"] == "A. Reyes"
+    heard = []
+    listener.add_listener(heard.append)
+    await server.broadcast("snapshot", {"seq": 5, "state": "idle"})
+    snapshot = await listener.wait_for_snapshot(lambda s: s["seq"] == 5, 5)
+    assert snapshot["state"] == "idle" and heard[0].method == "snapshot"
+    notes = listener.notifications()
+    assert (await anext(notes)).params["seq"] == 5
+    await server.broadcast("event", {"kind": "state_changed"})
+    assert (await anext(notes)).method == "event"
+    assert (await bystander.call("status"))["method"] == "status"
+    await listener.close()
+    await bystander.close()
+
+
+async def test_garbage_and_an_over_long_line_close_only_that_connection(server):
+    good = await DaemonClient.connect(server.socket_path)
+    reader, writer = await asyncio.open_unix_connection(str(server.socket_path))
+
+    async def exchange(raw: bytes) -> dict:
+        writer.write(raw)
+        await writer.drain()
+        return json.loads(await reader.readline())
+
+    assert (await exchange(b"\xff\xfe not utf-8\n"))["error"]["code"] == protocol.PARSE_ERROR
+    assert (await exchange(b'"a string"\n'))["error"]["code"] == protocol.INVALID_REQUEST
+    reply = await exchange(b'{"jsonrpc": "2.0", "id": true, "method": "status"}\n')
+    assert reply["error"]["code"] == protocol.INVALID_REQUEST
+    reply = await exchange(b'{"jsonrpc": "2.0", "id": 9, "method": "status"}\n')
+    assert reply["result"]["method"] == "status"  # the same connection still works
+    writer.write(b'{"jsonrpc": "2.0", "method": "status"}\n')  # a notification: no reply
+    reply = await exchange(b"x" * (protocol.MAX_MESSAGE_BYTES + 10) + b"\n")
+    assert reply["error"]["code"] == protocol.INVALID_REQUEST and reply["id"] is None
+    assert "65536" in reply["error"]["message"]
+    assert await reader.read() == b""
+    writer.close()
+    assert (await good.call("status"))["method"] == "status"
+    await good.close()
+
+
+async def test_the_client_sees_the_daemon_go_and_can_wait_for_it_to_return(tmp_path):
+    path = tmp_path / "private" / "daemon.sock"
+    with pytest.raises(OSError):
+        await connect_with_retry(path, attempts=2, backoff_s=0.01)
+    rpc = RpcServer(path, dispatch)
+    await rpc.start()
+    client = await connect_with_retry(path, attempts=3, backoff_s=0.01)
+    await client.subscribe()
+    await rpc.close()
+    with pytest.raises(ConnectionLost):
+        await client.wait_for_snapshot(lambda s: s["seq"] > 100, 5)
+    assert [note async for note in client.notifications()] == []
+    with pytest.raises(ConnectionLost):
+        await client.call("status")
+    await client.close()
