@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 from chargebook.acquire.report_sections import Table
@@ -41,32 +42,37 @@ def deviation_plot(
     """Return a character plot of deviations (%) with the ±tolerance band, one column each.
 
     ``o`` is a point within tolerance, ``X`` one outside, ``?`` a session without a result.
-    Rows run from the largest deviation (top) to the most negative; ``=`` marks the tolerance
-    lines and ``.`` zero.
+    Rows run from the largest deviation (top) to the most negative, ``height`` rows at most, a
+    whole number of them per tolerance; ``=`` marks the tolerance lines and ``.`` zero. A point
+    beyond the plot is drawn on its edge row as ``^`` (above) or ``v`` (below).
     """
     known = [abs(d) for d in deviations_pct if d is not None]
-    span = max([tolerance_pct * 1.5, *known]) if known else tolerance_pct * 1.5
-    step = 2 * span / (height - 1)
-    levels = [span - i * step for i in range(height)]
+    span = max([tolerance_pct * 1.5, *known])
+    half = (height - 1) // 2
+    # A whole number of rows per tolerance, so that the tolerance lines fall on rows.
+    step = tolerance_pct / max(1, math.floor(half * tolerance_pct / span))
+    levels = [i * step for i in range(half, -half - 1, -1)]
     column = max([3, *(len(label) + 1 for label in labels)])
+    row_of = [_nearest_row(d, levels[0], step, len(levels)) for d in deviations_pct]
     rows = []
-    for level in levels:
+    for index, level in enumerate(levels):
         marker = _axis_marker(level, tolerance_pct, step)
         cells = []
-        for deviation in deviations_pct:
-            if deviation is None:
-                hit = abs(level) < step / 2
-                cells.append("?" if hit else marker)
-            elif abs(deviation - level) < step / 2 or _clipped(deviation, level, levels):
-                cells.append("X" if abs(deviation) > tolerance_pct else "o")
-            else:
+        for deviation, row in zip(deviations_pct, row_of, strict=True):
+            if row != index:
                 cells.append(marker)
+            elif deviation is None:
+                cells.append("?")
+            elif deviation > levels[0] + step / 2 or deviation < levels[-1] - step / 2:
+                cells.append("^" if deviation > 0 else "v")
+            else:
+                cells.append("X" if abs(deviation) > tolerance_pct else "o")
         rows.append((f"{level:+7.2f} % |" + "".join(c.center(column) for c in cells)).rstrip())
     axis = " " * 10 + "+" + "-" * (column * len(deviations_pct))
     names = (" " * 11 + "".join(label.center(column) for label in labels)).rstrip()
     legend = (
-        f"o within ±{tolerance_pct:g} %   X outside   ? no result   "
-        f"= tolerance line   . zero   columns: session ids"
+        f"o within ±{tolerance_pct:g} %   X outside   ^ v beyond the plot   ? no result   "
+        f"= tolerance   . zero   columns: session ids"
     )
     return "\n".join([*rows, axis, names, legend])
 
@@ -79,8 +85,7 @@ def _axis_marker(level: float, tolerance_pct: float, step: float) -> str:
     return " "
 
 
-def _clipped(deviation: float, level: float, levels: Sequence[float]) -> bool:
-    """True when the deviation lies beyond the plot and ``level`` is the nearest edge row."""
-    return (deviation > levels[0] and level == levels[0]) or (
-        deviation < levels[-1] and level == levels[-1]
-    )
+def _nearest_row(deviation: float | None, top: float, step: float, count: int) -> int:
+    """Return the row nearest ``deviation`` (zero's row for None), kept within the plot."""
+    value = 0.0 if deviation is None else deviation
+    return min(count - 1, max(0, round((top - value) / step)))

@@ -135,6 +135,13 @@ def test_terminal_plot_puts_each_session_in_its_column_and_marks_the_outlier() -
     assert tolerance_rows and all(abs(abs(lv) - 1.0) < 0.4 for lv in tolerance_rows)
 
 
+def test_terminal_plot_marks_points_beyond_its_edges() -> None:
+    lines = deviation_plot([17.0, -0.2, -30.0], 1.0, ["7", "8", "9"]).splitlines()
+    grid = [line.split("|", 1)[1] for line in lines if "|" in line]
+    assert grid[0].split() == ["^"] and grid[-1].split() == ["v"]
+    assert sum(row.count("o") for row in grid) == 1
+
+
 class Points(HTMLParser):
     def __init__(self) -> None:
         super().__init__()
