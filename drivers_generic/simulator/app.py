@@ -83,6 +83,7 @@ class Simulator:
             pressure_kPa=options.pressure_kPa,
             bias_V=options.bias_V,
         )
+        self._playback_entries = self._read_playback_log()
         self.directory = Path(options.directory or tempfile.mkdtemp(prefix="chargebook-sim-"))
         self.directory.chmod(0o700)
         self.pty = None
@@ -94,12 +95,19 @@ class Simulator:
             from chargebook.drivers_generic.simulator.playback import PlaybackResponder
 
             mode = "query" if dialect == "scpi" else self.profile.mode
-            return PlaybackResponder.from_file(self.options.playback, mode, self.options.speed)
+            return PlaybackResponder(self._playback_entries, mode, self.options.speed)
         if dialect == "scpi" or self.profile.confirmation.style == "error_queue":
             from chargebook.drivers_generic.simulator.scpi_server import ScpiResponder
 
             return ScpiResponder(self.device)
         return DialectResponder(self.profile, self.device)
+
+    def _read_playback_log(self) -> list[tuple[float, str, str]]:
+        if self.options.playback is None:
+            return []
+        from chargebook.drivers_generic.simulator.playback import read_log
+
+        return read_log(self.options.playback)
 
     def start(self) -> dict[str, Any]:
         """Open every wire; return the JSON-able announcement."""

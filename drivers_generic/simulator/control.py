@@ -78,7 +78,8 @@ class ControlServer:
 
     def stop(self) -> None:
         """Stop answering and remove the socket file."""
-        self._server.shutdown()
+        if self._thread.is_alive():
+            self._server.shutdown()
         self._server.server_close()
         self.path.unlink(missing_ok=True)
 

@@ -58,6 +58,12 @@ def parse_log(lines: list[str], source: str = "log") -> list[tuple[float, str, s
     return entries
 
 
+def read_log(path: Path) -> list[tuple[float, str, str]]:
+    """Return the entries of the traffic log at ``path`` (see :func:`parse_log`)."""
+    text = Path(path).read_text(encoding="utf-8", errors="surrogateescape")
+    return parse_log(text.splitlines(), str(path))
+
+
 class PlaybackResponder:
     """Answers a driver from a recorded traffic log (see the module docstring)."""
 
@@ -80,12 +86,6 @@ class PlaybackResponder:
         self._anchor: tuple[float, float] | None = None  # (wall time, log time)
         self._lock = threading.Lock()
         self._finished_logged = False
-
-    @classmethod
-    def from_file(cls, path: Path, mode: str, speed: float = 1.0) -> PlaybackResponder:
-        """Return a responder for the log at ``path``."""
-        text = Path(path).read_text(encoding="utf-8", errors="surrogateescape")
-        return cls(parse_log(text.splitlines(), str(path)), mode, speed)
 
     @property
     def finished(self) -> bool:

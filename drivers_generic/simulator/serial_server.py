@@ -63,7 +63,8 @@ class PtyServer:
     def stop(self) -> None:
         """Stop serving, close the pty and remove the symlink."""
         self._stop.set()
-        self._thread.join(timeout=5)
+        if self._thread.is_alive():
+            self._thread.join(timeout=5)
         if self._flood_thread is not None:
             self._flood_thread.join(timeout=5)
         self._close_pty()

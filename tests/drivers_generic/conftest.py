@@ -19,9 +19,13 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from chargebook.drivers_generic.interface import Sample
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 
 ANNOUNCE_TIMEOUT_s = 20.0
+#: Fast simulated time: a 100 MU delivery at 600 MU/min takes 10 ms of wall time.
+FAST = ("--time-scale", "0.001")
+MU = 100.0
 
 
 @dataclass
@@ -85,3 +89,21 @@ def simulator() -> Iterator:
         directory = Path(running.info["control"]).parent
         assert running.stop() == 0
         assert not directory.exists(), "the simulator left its private directory behind"
+
+
+def capture(driver, control, mu: float = MU) -> Sample:
+    """Return one reading of ``mu`` MU the way the daemon takes it (query or push mode)."""
+    driver.zero()
+    driver.start_integration()
+    if driver.profile.mode == "push":
+        control.beam(mu)
+        while True:
+            sample = driver.next_sample(5.0)
+            assert sample is not None, "the instrument stopped streaming"
+            if sample.complete:
+                break
+        driver.stop_integration()
+        return sample
+    control.beam(mu, wait=True)
+    driver.stop_integration()
+    return driver.read_charge()

@@ -14,33 +14,13 @@ from chargebook.drivers_generic.interface import (
     InstrumentDisconnected,
     InstrumentReportedError,
     ReadingStatus,
-    Sample,
     SettingOutOfRange,
 )
 
-#: Fast simulated time: a 100 MU delivery at 600 MU/min takes 10 ms of wall time.
-FAST = ("--time-scale", "0.001")
-MU = 100.0
+from .conftest import FAST, MU, capture
+
 #: Simulated noise is 0.03 % per delivery; 0.15 % is five standard deviations.
 NOISE_BOUND = 0.0015
-
-
-def capture(driver, control, mu: float = MU) -> Sample:
-    """Return one reading of ``mu`` MU the way the daemon takes it (query or push mode)."""
-    driver.zero()
-    driver.start_integration()
-    if driver.profile.mode == "push":
-        control.beam(mu)
-        while True:
-            sample = driver.next_sample(5.0)
-            assert sample is not None, "the instrument stopped streaming"
-            if sample.complete:
-                break
-        driver.stop_integration()
-        return sample
-    control.beam(mu, wait=True)
-    driver.stop_integration()
-    return driver.read_charge()
 
 
 def expected_charge_nC(truth: dict, mu: float = MU) -> float:

@@ -1,0 +1,115 @@
+"""Playback: a recorded session's traffic, played back by the simulator, reads back exactly."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+from chargebook.drivers_generic import load_profile, open_electrometer
+from chargebook.drivers_generic.simulator.playback import (
+    PlaybackLogError,
+    PlaybackResponder,
+    TrafficRecorder,
+    parse_log,
+)
+
+from .conftest import FAST, capture
+
+
+def record_session(sim, profile_name: str, readings: int) -> tuple[list[float], TrafficRecorder]:
+    profile = load_profile(profile_name)
+    framing = profile.framing
+    recorder = TrafficRecorder(framing.read_terminator, framing.write_terminator, framing.encoding)
+    driver = open_electrometer(profile_name, port=sim.serial, traffic=recorder)
+    try:
+        charges = [capture(driver, sim.control).charge_nC for _ in range(readings)]
+    finally:
+        driver.close()
+    return charges, recorder
+
+
+def replay_session(sim, profile_name: str, readings: int) -> list[float]:
+    driver = open_electrometer(profile_name, port=sim.serial)
+    try:
+        return [_replayed_reading(driver) for _ in range(readings)]
+    finally:
+        driver.close()
+
+
+def _replayed_reading(driver) -> float:
+    driver.zero()
+    driver.start_integration()
+    if driver.profile.mode == "push":
+        while not (sample := driver.next_sample(5.0)).complete:
+            pass
+        driver.stop_integration()
+        return sample.charge_nC
+    driver.stop_integration()
+    return driver.read_charge().charge_nC
+
+
+@pytest.mark.parametrize("profile", ["lumen-q", "tallyline"])
+def test_a_recorded_session_plays_back_to_the_same_readings(simulator, tmp_path, profile):
+    live = simulator("--serial", "--profile", profile, "--seed", "21", *FAST)
+    recorded, recorder = record_session(live, profile, readings=3)
+    log = recorder.write(tmp_path / "traffic.jsonl")
+
+    played = simulator("--serial", "--profile", profile, "--playback", str(log), "--speed", "0")
+    assert replay_session(played, profile, readings=3) == recorded
+    assert played.control.state()["playback"] == str(log)
+    with pytest.raises(Exception, match="playback"):
+        played.control.beam(100)
+
+
+def test_push_mode_keeps_the_recorded_spacing_scaled_by_speed():
+    entries = [(10.0, "tx", "GO"), (10.0, "rx", "ACK GO"), (12.0, "rx", "S t=2.000 q=+1E-9 C OK")]
+    now = [0.0]
+    responder = PlaybackResponder(entries, "push", speed=4.0, clock=lambda: now[0])
+    assert responder.tick() == []  # waits at the gate for the driver's command
+    assert responder.respond("GO") == []
+    assert responder.tick() == ["ACK GO"]
+    now[0] = 0.49  # 2 s recorded / speed 4 = 0.5 s
+    assert responder.tick() == []
+    now[0] = 0.5
+    assert responder.tick() == ["S t=2.000 q=+1E-9 C OK"]
+    assert responder.finished
+
+
+def test_query_mode_answers_each_command_with_the_recorded_reply():
+    entries = [(0.0, "tx", "Q?"), (0.1, "rx", "Q +1.0000 nC A"), (5.0, "tx", "Q?")]
+    entries.append((5.1, "rx", "Q +2.0000 nC A"))
+    responder = PlaybackResponder(entries, "query", speed=1.0)
+    assert responder.respond("Q?") == ["Q +1.0000 nC A"]
+    assert responder.respond("ZERO") == ["Q +2.0000 nC A"]  # a changed plan is still answered
+    assert responder.respond("Q?") == []
+
+
+@pytest.mark.parametrize(
+    ("line", "words"),
+    [
+        ("not json", ["line 1", "JSON"]),
+        ('{"t_s": "soon", "dir": "rx", "line": "x"}', ["t_s", "soon"]),
+        ('{"t_s": 1, "dir": "sideways", "line": "x"}', ["dir", "sideways", "rx, tx"]),
+        ('{"t_s": 1, "dir": "rx", "line": 5}', ["line = 5"]),
+    ],
+)
+def test_a_bad_log_line_is_refused_naming_the_line_and_field(line, words):
+    with pytest.raises(PlaybackLogError) as refused:
+        parse_log([line], "session.jsonl")
+    for word in words:
+        assert word in str(refused.value)
+
+
+def test_simulate_refuses_a_bad_playback_log_with_exit_status_2(tmp_path):
+    log = tmp_path / "bad.jsonl"
+    log.write_text('{"t_s": 0, "dir": "rx", "line": "ok"}\n{"t_s": 1}\n', encoding="utf-8")
+    result = subprocess.run(
+        [sys.executable, "-m", "chargebook.acquire.cli", "simulate", "--playback", str(log)],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert result.returncode == 2
+    assert "line 2" in result.stderr and "dir" in result.stderr
+    assert result.stdout == ""
