@@ -69,6 +69,7 @@ class DaemonOptions:
     plan: str = "default"
     bench_control: str | None = None
     time_scale: float = 1.0
+    thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
 
 
 # ------------------------------------------------------------------------ instrument thread
@@ -275,6 +276,7 @@ class Daemon:
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
+        self._events_checked_at: int | None = None  # engine.data_version at the last look
         self._last_live: tuple[float, float | None] = (0.0, None)
         self._stopping = asyncio.Event()
 
@@ -305,6 +307,7 @@ class Daemon:
             default_plan=options.plan,
             profile=profile.name,
             time_scale=options.time_scale,
+            thresholds=options.thresholds,
         )
         self.engine.instrument_connected = False
         self.engine.instrument_message = "connecting to the electrometer"
@@ -385,6 +388,7 @@ class Daemon:
 
     def _identified(self, identity: str) -> None:
         assert self.store is not None and self.engine is not None
+        self._events_checked_at = None
         self.store.add_event(
             self.engine.session_id,
             "daemon",
@@ -422,7 +426,8 @@ class Daemon:
         """Broadcast new audit events and, if the state changed, the snapshot."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
-        if engine.session_id is not None:
+        if engine.session_id is not None and self._events_checked_at != engine.data_version:
+            self._events_checked_at = engine.data_version
             fresh = [
                 e for e in self.store.events(engine.session_id) if e.id > self._published_event_id
             ]

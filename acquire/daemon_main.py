@@ -23,6 +23,7 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
     Raises InputError naming the option for a time scale that is not positive or a plan that
     cannot be loaded, so a mistake is reported before anything starts.
     """
+    from chargebook.acquire.live import load_thresholds
     from chargebook.acquire.plan import load_plan
     from chargebook.acquire.store import default_db_path
     from chargebook.corrections.errors import InputError
@@ -40,6 +41,7 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
         plan=args.plan,
         bench_control=args.bench_control,
         time_scale=args.time_scale,
+        thresholds=load_thresholds(args.thresholds) if args.thresholds else None,
     )
 
 

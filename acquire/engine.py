@@ -23,7 +23,7 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from typing import Any
 
 from chargebook.acquire import live
@@ -31,6 +31,7 @@ from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
 from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.store import ReadingRow, SetRow, Store
+from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
 log = logging.getLogger(__name__)
@@ -89,6 +90,7 @@ class Engine:
         default_plan: Any = "default",
         profile: str = "",
         time_scale: float = 1.0,
+        thresholds: Thresholds | None = None,
         on_change: Callable[[], None] | None = None,
     ) -> None:
         self.store = store
@@ -98,6 +100,8 @@ class Engine:
         self.default_plan = default_plan
         self.profile = profile
         self.time_scale = time_scale
+        self.default_thresholds = thresholds or Thresholds()
+        self.thresholds = self.default_thresholds
         self.on_change = on_change
         self.state = S.IDLE
         self.paused_from: EngineState | None = None
@@ -222,6 +226,8 @@ class Engine:
         self.session_id, self.plan, self.metadata = session_id, resolved, checked
         self.skipped, self.active, self.bias_V = set(), None, None
         self.integration_s = {}
+        self.thresholds = self.default_thresholds
+        self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
         self._enter_step(0, actor)
         self._changed()
@@ -566,6 +572,7 @@ class Engine:
         if bias_events:
             self.bias_V = float(bias_events[-1]["volts"])
         self.integration_s = live.integration_times(events)
+        self.thresholds = live.session_thresholds(events)
         sets = self.store.sets(row.id)
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
         index = next((i for i in range(len(self.plan.steps)) if i not in done), None)
@@ -607,6 +614,7 @@ class Engine:
                 self.metadata,
                 self.active.id if self.active is not None else None,
                 self.integration_s,
+                self.thresholds,
             )
         self._results_cache = (self.data_version, value)
         return value

@@ -13,7 +13,7 @@ and the plan-step rules the engine applies (settling, timed leakage, capture set
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import replace
+from dataclasses import fields, replace
 from pathlib import Path
 from typing import Any
 
@@ -177,6 +177,41 @@ def _plain(stats: Any) -> dict[str, Any]:
     return dict(stats.to_dict())
 
 
+# ----------------------------------------------------------------------------- thresholds
+THRESHOLDS_EVENT = "thresholds"
+
+
+def load_thresholds(path: str | Path) -> Thresholds:
+    """Return stability thresholds from a TOML file of Thresholds fields (others default).
+
+    Raises InputError naming the key for an unknown key or a value out of its range.
+    """
+    import tomllib
+
+    try:
+        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError) as error:
+        raise InputError("--thresholds", str(path), "a readable TOML file", str(error)) from None
+    return thresholds_from_dict(data)
+
+
+def thresholds_from_dict(data: Mapping[str, Any]) -> Thresholds:
+    """Return Thresholds from plain data; InputError naming an unknown key."""
+    known = [f.name for f in fields(Thresholds)]
+    for key in data:
+        if key not in known:
+            raise InputError(f"thresholds.{key}", data[key], "one of " + ", ".join(known))
+    return Thresholds(**data)
+
+
+def session_thresholds(events: Sequence[EventRow]) -> Thresholds:
+    """Return the thresholds a session was started with (its ``thresholds`` event)."""
+    for event in events:
+        if event.kind == THRESHOLDS_EVENT:
+            return thresholds_from_dict(event.detail())
+    return Thresholds()
+
+
 # ------------------------------------------------------------------------------ results
 def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
     """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
@@ -208,6 +243,7 @@ def measurement_inputs(
     metadata: Mapping[str, Any],
     active_set_id: int | None,
     integration_s: Mapping[int, float],
+    thresholds: Thresholds | None = None,
 ) -> tuple[Any, bool]:
     """Return (MeasurementInputs of what is known, provisional?) for the session."""
     from chargebook.corrections.evaluate import MeasurementInputs
@@ -276,6 +312,7 @@ def measurement_inputs(
         temperature_history_C=tuple(e.temperature_C for e in environment),
         pressure_history_kPa=tuple(e.pressure_kPa for e in environment),
         conversions=tuple(conversions),
+        thresholds=thresholds or Thresholds(),
     )
     return inputs, provisional
 
@@ -287,6 +324,7 @@ def compute_results(
     metadata: Mapping[str, Any],
     active_set_id: int | None,
     integration_s: Mapping[int, float],
+    thresholds: Thresholds | None = None,
 ) -> tuple[dict[str, Any] | None, bool, str | None]:
     """Return (``evaluate(...).to_dict()``, provisional?, error) for what is known now.
 
@@ -297,7 +335,7 @@ def compute_results(
     from chargebook.corrections.evaluate import evaluate
 
     inputs, provisional = measurement_inputs(
-        store, session_id, plan, metadata, active_set_id, integration_s
+        store, session_id, plan, metadata, active_set_id, integration_s, thresholds
     )
     try:
         return evaluate(inputs).to_dict(), provisional, None

@@ -22,8 +22,8 @@ Sequence of a client
 
 Errors
     Standard codes (:data:`PARSE_ERROR` ... :data:`INTERNAL_ERROR`) and application codes
-    (:data:`ILLEGAL_TRANSITION`, :data:`INPUT_ERROR`, :data:`INSTRUMENT_ERROR`,
-    :data:`NO_SESSION`, :data:`CONFIRMATION_REQUIRED`). Errors about one parameter carry
+    (:data:`ILLEGAL_TRANSITION` — also when no session is open —, :data:`INPUT_ERROR`,
+    :data:`INSTRUMENT_ERROR`, :data:`CONFIRMATION_REQUIRED`). Errors about one parameter carry
     ``data: {"field": ..., "value": ..., "allowed": ...}`` (:class:`ErrorData`) so a client can
     put the message next to the right input box. Every reading is committed to the store before
     any client hears of it.
@@ -60,7 +60,6 @@ INTERNAL_ERROR = -32603  #: a fault in the daemon; the request changed nothing
 ILLEGAL_TRANSITION = -32001  #: the action is not legal in the current state (message says why)
 INPUT_ERROR = -32002  #: a value is out of its allowed range (data: field, value, allowed)
 INSTRUMENT_ERROR = -32003  #: the electrometer refused, timed out or is disconnected
-NO_SESSION = -32004  #: the action needs an open session and there is none
 CONFIRMATION_REQUIRED = -32005  #: a destructive action (abort) was sent without confirm=true
 
 ERROR_NAMES: dict[int, str] = {
@@ -72,7 +71,6 @@ ERROR_NAMES: dict[int, str] = {
     ILLEGAL_TRANSITION: "illegal transition",
     INPUT_ERROR: "input error",
     INSTRUMENT_ERROR: "instrument error",
-    NO_SESSION: "no session",
     CONFIRMATION_REQUIRED: "confirmation required",
 }
 

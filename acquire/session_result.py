@@ -19,8 +19,12 @@ def session_evaluation(store: Store, session_id: int) -> Any:
 
     row = store.session(session_id)
     plan = live.resolve_plan(row.plan())
-    times = live.integration_times(store.events(session_id))
-    inputs, _ = live.measurement_inputs(store, session_id, plan, row.metadata(), None, times)
+    events = store.events(session_id)
+    times = live.integration_times(events)
+    thresholds = live.session_thresholds(events)
+    inputs, _ = live.measurement_inputs(
+        store, session_id, plan, row.metadata(), None, times, thresholds
+    )
     return evaluate(inputs)
 
 

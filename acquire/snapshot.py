@@ -8,7 +8,6 @@ from chargebook.acquire import live
 from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.protocol import EngineState, ReadingPhase
 from chargebook.acquire.store import ReadingRow, SetRow
-from chargebook.corrections.stability import Thresholds
 
 if TYPE_CHECKING:
     from chargebook.acquire.engine import Engine
@@ -71,7 +70,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
 
 def _set_info(engine: Engine, row: SetRow, readings: list[ReadingRow]) -> dict[str, Any]:
     own = [r for r in readings if r.set_id == row.id]
-    stats, flags, per_reading = live.set_summary(row.purpose, own, Thresholds())
+    stats, flags, per_reading = live.set_summary(row.purpose, own, engine.thresholds)
     step = engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
     return {
         "id": row.id,

@@ -38,6 +38,13 @@ def add_instrument_arguments(parser: argparse.ArgumentParser) -> None:
         "to match a simulated electrometer started with the same --time-scale (default 1)",
     )
     parser.add_argument(
+        "--thresholds",
+        metavar="FILE",
+        help="stability thresholds, a TOML file of chargebook.corrections.stability.Thresholds "
+        "fields (relative_sd_pct, drift_pct_per_reading, leakage_pct, ...); others keep their "
+        "documented defaults",
+    )
+    parser.add_argument(
         "--log-level", default="WARNING", choices=("DEBUG", "INFO", "WARNING", "ERROR")
     )
 

@@ -344,3 +344,22 @@ def test_snapshot_lists_the_allowed_actions_and_the_whole_plan():
     assert set(snapshot["allowed"]) >= {"session.pause", "set.redo", "session.abort"}
     assert [step["status"] for step in snapshot["plan"]] == ["current", "pending", "pending"]
     assert snapshot["prompt"]["kind"] == "deliver_beam"
+
+
+def test_thresholds_are_settings_recorded_with_the_session_and_restored():
+    from chargebook.corrections.stability import Thresholds
+
+    strict = Thresholds(relative_sd_pct=0.01)  # a physicist's own, tighter limit
+    engine, clock = make_engine(thresholds=strict)
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.00, 20.02, 19.98])  # relative SD 0.1 %
+    codes = {flag["code"] for flag in engine.snapshot()["current_set"]["flags"]}
+    assert "routine_sd_high" in codes
+    relaxed, _ = make_engine()
+    relaxed_session = started(relaxed)
+    take_set(relaxed, relaxed.clock, [20.5, 20.00, 20.02, 19.98])
+    assert relaxed.store.session(relaxed_session).status == "open"
+    assert "routine_sd_high" not in {f["code"] for f in relaxed.snapshot()["current_set"]["flags"]}
+    revived = Engine(engine.store, clock=clock)
+    revived.restore()
+    assert revived.session_id == session_id and revived.thresholds == strict

@@ -26,7 +26,6 @@ def test_error_codes_are_the_json_rpc_ones_and_application_codes_stay_out_of_the
         protocol.ILLEGAL_TRANSITION,
         protocol.INPUT_ERROR,
         protocol.INSTRUMENT_ERROR,
-        protocol.NO_SESSION,
         protocol.CONFIRMATION_REQUIRED,
     ]
     # -32000 to -32099 is reserved for implementation-defined server errors.
