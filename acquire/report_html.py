@@ -153,7 +153,7 @@ def history_html(history: History, history_table: Table, generated: str) -> str:
         title=f"Output of {history.beam}: deviation from {history.baseline_label}",
         x_label="session",
         y_label="deviation (%)",
-        lines=[Line(0.0, history.baseline_label)],
+        lines=[Line(0.0, "baseline")],
         bands=[] if tolerance is None else [Band(-tolerance, tolerance, f"±{tolerance:g} %")],
         x_ticks=[(float(i), str(p.session_id)) for i, p in enumerate(history.points)],
     )

@@ -7,6 +7,7 @@ check a figure against the store without measuring pixels.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from html import escape
@@ -17,6 +18,13 @@ MARGIN_LEFT = 72
 MARGIN_RIGHT = 16
 MARGIN_TOP = 14
 MARGIN_BOTTOM = 40
+#: Colours, also set by the report's CSS; written on the elements so a copied plot keeps them.
+INK = "#333"
+POINT = "#1f4e9a"
+ALARM = "#b00"
+BAND_FILL = "#dfe9df"
+#: A white outline under label text keeps it readable where it crosses a point.
+HALO = ' paint-order="stroke" stroke="#fff" stroke-width="3"'
 
 
 @dataclass(frozen=True)
@@ -68,16 +76,21 @@ def _limits(values: Sequence[float]) -> tuple[float, float]:
     return low - pad, high + pad
 
 
-def _ticks(low: float, high: float, count: int = 5) -> list[float]:
-    step = (high - low) / (count - 1)
-    return [low + i * step for i in range(count)]
+def _ticks(low: float, high: float, count: int = 6) -> list[float]:
+    """Return round tick values (1, 2, 2.5 or 5 times a power of ten apart) within low..high."""
+    raw = (high - low) / (count - 1)
+    magnitude = 10 ** math.floor(math.log10(raw))
+    step = next(m * magnitude for m in (1, 2, 2.5, 5, 10) if m * magnitude >= raw)
+    first = math.ceil(low / step)
+    return [
+        (first + i) * step
+        for i in range(int((high - low) / step) + 2)
+        if (first + i) * step <= high
+    ]
 
 
-def _fmt(value: float, span: float) -> str:
-    digits = 0
-    while digits < 6 and span < 10 ** (1 - digits):
-        digits += 1
-    return f"{value:.{digits}f}"
+def _fmt(value: float) -> str:
+    return f"{round(value, 9):g}"
 
 
 def plot(
@@ -107,7 +120,7 @@ def plot(
     for band in bands:
         top, bottom = sy(band.high), sy(band.low)
         parts.append(
-            f'<rect class="band" x="{MARGIN_LEFT}" y="{top:.1f}" '
+            f'<rect class="band" fill="{BAND_FILL}" x="{MARGIN_LEFT}" y="{top:.1f}" '
             f'width="{WIDTH - MARGIN_LEFT - MARGIN_RIGHT}" height="{bottom - top:.1f}" '
             f'data-low="{band.low!r}" data-high="{band.high!r}"><title>{escape(band.label)}'
             "</title></rect>"
@@ -118,21 +131,28 @@ def plot(
             f'<text class="tick" x="{sx(x):.1f}" y="{HEIGHT - MARGIN_BOTTOM + 14}" '
             f'text-anchor="middle">{escape(label)}</text>'
         )
+    labels = []
     for line in lines:
         y = sy(line.y)
         dash = ' stroke-dasharray="4 3"' if line.dashed else ""
         parts.append(
-            f'<line class="ref" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" y1="{y:.1f}" '
-            f'y2="{y:.1f}"{dash} data-y="{line.y!r}"/>'
+            f'<line class="ref" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" '
+            f'y1="{y:.1f}" y2="{y:.1f}"{dash} data-y="{line.y!r}"/>'
+        )
+        labels.append(  # drawn last, over the points, with a halo
             f'<text class="ref-label" x="{WIDTH - MARGIN_RIGHT - 2}" y="{y - 3:.1f}" '
-            f'text-anchor="end">{escape(line.label)}</text>'
+            f'text-anchor="end"{HALO}>{escape(line.label)}</text>'
         )
     for point in points:
         attrs = "".join(f' data-{k}="{escape(str(v))}"' for k, v in point.attrs.items())
         css = "point" + (" hollow" if point.hollow else "") + (" alarm" if point.alarm else "")
+        colour = ALARM if point.alarm else POINT
+        fill = "#fff" if point.hollow else colour
         parts.append(
-            f'<circle class="{css}" cx="{sx(point.x):.1f}" cy="{sy(point.y):.1f}" r="4"{attrs}/>'
+            f'<circle class="{css}" fill="{fill}" stroke="{colour}" cx="{sx(point.x):.1f}" '
+            f'cy="{sy(point.y):.1f}" r="4"{attrs}/>'
         )
+    parts += labels
     parts.append("</svg>")
     return "".join(parts)
 
@@ -140,10 +160,10 @@ def plot(
 def _axes(sy: _Scale, low: float, high: float, x_label: str, y_label: str) -> list[str]:
     bottom = HEIGHT - MARGIN_BOTTOM
     parts = [
-        f'<line class="axis" x1="{MARGIN_LEFT}" x2="{MARGIN_LEFT}" y1="{MARGIN_TOP}" '
-        f'y2="{bottom}"/>',
-        f'<line class="axis" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" y1="{bottom}" '
-        f'y2="{bottom}"/>',
+        f'<line class="axis" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{MARGIN_LEFT}" '
+        f'y1="{MARGIN_TOP}" y2="{bottom}"/>',
+        f'<line class="axis" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" '
+        f'y1="{bottom}" y2="{bottom}"/>',
         f'<text class="axis-label" x="{(MARGIN_LEFT + WIDTH) / 2:.0f}" y="{HEIGHT - 6}" '
         f'text-anchor="middle">{escape(x_label)}</text>',
         f'<text class="axis-label" x="12" y="{(MARGIN_TOP + bottom) / 2:.0f}" '
@@ -154,6 +174,6 @@ def _axes(sy: _Scale, low: float, high: float, x_label: str, y_label: str) -> li
         y = sy(tick)
         parts.append(
             f'<text class="tick" x="{MARGIN_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end">'
-            f"{_fmt(tick, high - low)}</text>"
+            f"{_fmt(tick)}</text>"
         )
     return parts
