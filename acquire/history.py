@@ -67,10 +67,13 @@ def _same(a: object, b: str) -> bool:
     return isinstance(a, str) and " ".join(a.split()).casefold() == " ".join(b.split()).casefold()
 
 
-def matches(row: SessionRow, beam: str, machine: str | None) -> bool:
-    """Return True when the session measured ``beam`` (on ``machine``, when one is given)."""
+def matches(row: SessionRow, beam: str | None, machine: str | None) -> bool:
+    """Return True when the session measured ``beam`` on ``machine`` (None: any).
+
+    Names compare without regard to case or repeated spaces ("6 mv" is "6 MV").
+    """
     meta = row.metadata()
-    beam_ok = _same(meta.get("beam"), beam) or _same(row.beam, beam)
+    beam_ok = beam is None or _same(meta.get("beam"), beam) or _same(row.beam, beam)
     return beam_ok and (machine is None or _same(meta.get("treatment_machine"), machine))
 
 

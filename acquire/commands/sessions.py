@@ -35,9 +35,7 @@ def _list(store, args: argparse.Namespace) -> int:
     for session in store.sessions():
         if args.status and session.status != args.status:
             continue
-        if args.beam and not matches(session, args.beam, args.machine):
-            continue
-        if args.machine and not args.beam and not matches(session, session.beam, args.machine):
+        if not matches(session, args.beam, args.machine):
             continue
         meta = session.metadata()
         sets = store.sets(session.id)
