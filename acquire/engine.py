@@ -228,6 +228,10 @@ class Engine:
         self.integration_s = {}
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
+        if self.identity is not None:
+            self._event(
+                DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
+            )
         self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
         self._enter_step(0, actor)
         self._changed()

@@ -134,40 +134,57 @@ def settling_needed(step: Step, readings: Sequence[ReadingRow], limit: int | Non
 
 
 # --------------------------------------------------------------------------- statistics
+def _flag(code: str, message: str, severity: str = "warning") -> dict[str, str]:
+    return {"code": code, "message": message, "severity": severity}
+
+
+def _expected_sign(bias_V: float, charges: Sequence[float], thresholds: Thresholds) -> float:
+    """Return the sign a reading should have: from the electrometer's known convention and the
+    bias, else the sign most readings of the set have (0 when there is no majority)."""
+    if thresholds.charge_sign_for_positive_bias is not None:
+        return thresholds.charge_sign_for_positive_bias * (1.0 if bias_V > 0 else -1.0)
+    balance = sum((charge > 0) - (charge < 0) for charge in charges)
+    return float((balance > 0) - (balance < 0))
+
+
+def reading_flags(reading: ReadingRow, purpose: str, expected_sign: float) -> list[dict[str, str]]:
+    """Return the flags of one reading: instrument status, settling, sign against the bias."""
+    flags = []
+    if reading.status != "ok":
+        flags.append(
+            _flag("instrument_status", f"The electrometer marked this reading {reading.status}.")
+        )
+    if reading.settling:
+        flags.append(_flag("settling", "Settling reading: kept, not used for results.", "info"))
+    sign = (reading.charge_nC > 0) - (reading.charge_nC < 0)
+    if purpose != "leakage" and expected_sign and sign != expected_sign:
+        flags.append(
+            _flag(
+                "sign_against_bias",
+                "This reading's sign contradicts the bias of the set: check the bias setting, "
+                "the polarity switch and the cable before accepting.",
+            )
+        )
+    return flags
+
+
 def set_summary(
-    purpose: str, readings: Sequence[ReadingRow], thresholds: Thresholds
+    purpose: str, bias_V: float, readings: Sequence[ReadingRow], thresholds: Thresholds
 ) -> tuple[dict[str, Any] | None, list[dict[str, str]], dict[int, list[dict[str, str]]]]:
     """Return (statistics, set flags, flags per reading id) of a set's non-settling readings."""
     used = [r for r in readings if not r.settling]
-    per_reading: dict[int, list[dict[str, str]]] = {r.id: [] for r in readings}
-    for reading in readings:
-        if reading.status != "ok":
-            per_reading[reading.id].append(
-                {
-                    "code": "instrument_status",
-                    "message": f"The electrometer marked this reading {reading.status}.",
-                    "severity": "warning",
-                }
-            )
-        if reading.settling:
-            per_reading[reading.id].append(
-                {
-                    "code": "settling",
-                    "message": "Settling reading: kept, not used for results.",
-                    "severity": "info",
-                }
-            )
+    expected = _expected_sign(bias_V, [r.charge_nC for r in readings], thresholds)
+    per_reading = {r.id: reading_flags(r, purpose, expected) for r in readings}
     if not used:
         return None, [], per_reading
     stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
     for index in stats.outliers:
         per_reading[used[index].id].append(
-            {
-                "code": "outlier",
-                "message": "This reading lies far from the others of the set (median absolute "
-                "deviation test): look for a spike or an interrupted beam before accepting.",
-                "severity": "warning",
-            }
+            _flag(
+                "outlier",
+                "This reading lies far from the others of the set (median absolute deviation "
+                "test): look for a spike or an interrupted beam before accepting.",
+            )
         )
     flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
     return _plain(stats), flags, per_reading

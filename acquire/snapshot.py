@@ -70,7 +70,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
 
 def _set_info(engine: Engine, row: SetRow, readings: list[ReadingRow]) -> dict[str, Any]:
     own = [r for r in readings if r.set_id == row.id]
-    stats, flags, per_reading = live.set_summary(row.purpose, own, engine.thresholds)
+    stats, flags, per_reading = live.set_summary(row.purpose, row.bias_V, own, engine.thresholds)
     step = engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
     return {
         "id": row.id,
