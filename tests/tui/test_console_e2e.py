@@ -1,0 +1,234 @@
+"""The console against the real daemon and the simulated electrometer, by key presses only.
+
+``chargebook simulate`` and ``chargebook serve`` run as subprocesses (tests/e2e fixtures); the
+console is the real ``ConsoleApp`` under Textual's Pilot at 80 × 24. Check values are the
+daemon's own record (read back over a second connection, or from ``chargebook run
+--unattended`` on a simulator with the same seed) and the simulator's bench.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+
+import pytest
+from chargebook.tui.app import ConsoleApp
+from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
+from chargebook.tui.screens.environment import EnvironmentScreen
+from chargebook.tui.widgets.fields import Field
+from console_driver import (
+    press_and_wait,
+    run_until,
+    screen_kind,
+    start_session,
+    state,
+    until,
+)
+from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
+from screen_text import screen_text
+
+pytestmark = pytest.mark.e2e
+
+SIZE = (80, 24)
+SEED = 5
+
+
+def bench_air(simulator) -> dict:
+    """Return the air temperature and pressure the bench's thermometer and barometer read."""
+    with simulator.bench() as bench:
+        reply = bench.environment()
+    return {
+        "temperature_C": reply["temperature_C"],
+        "pressure_entered": reply["pressure_kPa"],
+        "pressure_unit": "kPa",
+    }
+
+
+def console(daemon, metadata, simulator) -> ConsoleApp:
+    """Return the console attached to ``daemon``, its form filled as an operator would."""
+    return ConsoleApp(
+        daemon.socket,
+        operator="console test",
+        setup_defaults={**metadata, **bench_air(simulator)},
+    )
+
+
+def unattended_results(start_simulator, tmp_path, metadata) -> dict:
+    """Return `chargebook run --unattended --json` on a fresh simulator with the same seed."""
+    twin = start_simulator(seed=SEED)
+    metadata_file = tmp_path / "metadata.json"
+    metadata_file.write_text(json.dumps(metadata))
+    command = chargebook_command(
+        "run", "--unattended", "--json", "--profile", twin.profile, "--port", twin.serial,
+        "--bench-control", twin.control, "--plan", QUICK_PLAN, "--time-scale", str(TIME_SCALE),
+        "--db", str(tmp_path / "unattended.sqlite"), "--metadata", str(metadata_file),
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, check=True, timeout=120)
+    return json.loads(done.stdout)
+
+
+async def test_a_whole_session_by_keys_ends_in_the_summary_the_unattended_run_gives(
+    start_simulator, start_daemon, metadata, tmp_path
+):
+    simulator = start_simulator(seed=SEED)
+    daemon = start_daemon(simulator)
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(pilot, app, lambda: state(app) == "finished", "the end of the plan")
+        await until(pilot, lambda: screen_kind(app) == "summary", "the summary")
+        shown = screen_text(app)
+        results = dict(app.snapshot["results"])
+    expected = unattended_results(start_simulator, tmp_path, metadata)
+    # Same seed, same plan, same air: the console's session is the unattended session. A
+    # reading may differ in its last printed digit (0.0001 nC, about 5e-6 of a reading) when
+    # the end of beam is sampled a poll later, so the match is to 1e-4 relative, well inside
+    # the simulator's 0.03 % noise per reading.
+    for key in ("M_raw_nC", "k_TP", "k_pol", "k_s", "dose_per_MU_cGy", "U_expanded_pct"):
+        assert results[key] == pytest.approx(expected[key], rel=1e-4), key
+    assert "Session 1 finished" in shown
+    assert f"{results['dose_per_MU_cGy']:.4f} cGy/MU" in shown  # the daemon's number, shown
+    assert f"{results['M_corrected_nC']:.4f} nC" in shown
+
+
+async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
+    simulator, daemon, metadata
+):
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        with simulator.bench() as bench:
+            bench.spike()  # the next reading carries a spike
+        await run_until(pilot, app, lambda: state(app) == "reviewing", "the routine set's review")
+        assert "4 Flags" in screen_text(app)
+        await pilot.press("r")
+        await until(pilot, lambda: isinstance(app.screen, ReasonScreen), "the reason question")
+        await pilot.press(*"spike on a reading")
+        await press_and_wait(pilot, app, "enter")
+        await until(pilot, lambda: state(app) == "waiting_for_operator", "the step again")
+        sets = app.snapshot["sets"]
+        await pilot.press("2")
+        await pilot.pause()
+        history = screen_text(app)
+    assert [(s["step_key"], s["status"], s["reason"]) for s in sets][-1] == (
+        "routine",
+        "superseded",
+        "spike on a reading",
+    )
+    assert "superseded: spike on a reading" in history
+    client = await daemon.connect()
+    try:
+        record = await client.status()  # the daemon's own record, over another connection
+    finally:
+        await client.close()
+    superseded = [s for s in record["sets"] if s["status"] == "superseded"]
+    assert [s["reason"] for s in superseded] == ["spike on a reading"]
+    assert len(superseded[0]["readings"]) >= 1  # the old set's readings are kept
+
+
+async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborted(
+    simulator, daemon, metadata
+):
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        readings_before = sum(len(s["readings"]) for s in app.snapshot["sets"])
+        await pilot.press("x")
+        await until(pilot, lambda: isinstance(app.screen, ConfirmScreen), "the confirmation")
+        await pilot.press(*"chamber cable damaged")
+        await press_and_wait(pilot, app, "enter")
+        await until(pilot, lambda: screen_kind(app) == "summary", "the summary")
+        shown = screen_text(app)
+    assert "!! Session 1 ABORTED: chamber cable damaged" in shown
+    client = await daemon.connect()
+    try:
+        record = await client.status()
+    finally:
+        await client.close()
+    assert record["session"]["status"] == "aborted"
+    assert sum(len(s["readings"]) for s in record["sets"]) == readings_before
+
+
+async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lost(
+    simulator, daemon, metadata
+):
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        before = app.snapshot
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        temperature = app.screen.query_one("#field-temperature_C", Field)
+        temperature.input.value = ""
+        await pilot.press("8", "0", "enter")
+        await pilot.pause()
+        assert isinstance(app.screen, EnvironmentScreen)  # refused: the form stays open
+        # Plausible range 10-40 °C: common practice (REFERENCE.md, "Plausible input ranges").
+        refusal = "temperature_C = 80 is outside the allowed range 10 to 40 °C"
+        assert temperature.problem == refusal
+        assert "!! temperature_C = 80 is outside" in screen_text(app)
+        await pilot.press("escape")
+        await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
+    client = await daemon.connect()
+    try:
+        record = await client.status()
+    finally:
+        await client.close()
+    assert record["environment"] == before["environment"]  # no new entry
+    assert [s["readings"] for s in record["sets"]] == [s["readings"] for s in before["sets"]]
+    assert record["session"]["status"] == "open"
+
+
+async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanwhile(
+    simulator, daemon, metadata
+):
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        session_id = app.snapshot["session"]["id"]
+        daemon.kill9()
+        await until(pilot, lambda: not app.link.connected, "the lost daemon")
+        assert screen_text(app).startswith(" !! Not connected to the daemon — retrying…")
+        daemon.restart()
+        await until(pilot, lambda: app.link.connected, "the daemon back")
+        await until(pilot, lambda: screen_kind(app) == "measure", "the measure screen")
+        assert app.snapshot["session"]["id"] == session_id  # the same session, resumed
+        assert screen_text(app).startswith(f" Session {session_id} · HCC-LA1 6 MV")
+
+
+async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_continues(
+    simulator, daemon, metadata
+):
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        await press_and_wait(pilot, app, "a")
+        await until(pilot, lambda: readings_done(app) >= 1, "a first routine reading")
+        with simulator.bench() as bench:
+            bench.drop(1.0)  # the cable is pulled for a second
+        await until(pilot, lambda: not instrument_connected(app), "the lost electrometer")
+        assert screen_text(app).startswith(" !! Electrometer DISCONNECTED")
+        await until(pilot, lambda: state(app) == "interrupted", "the interrupted set")
+        kept = readings_done(app)
+        await until(pilot, lambda: instrument_connected(app), "the electrometer back")
+        shown = screen_text(app)
+        assert "electrometer connected" in shown.splitlines()[0]
+        assert "interrupted" in shown
+        await press_and_wait(pilot, app, "a")  # continue the interrupted set
+        await until(pilot, lambda: state(app) == "reviewing", "the routine set's review")
+        assert readings_done(app) >= kept  # the readings taken before the drop are kept
+
+
+def readings_done(app: ConsoleApp) -> int:
+    """Return the used readings of the set on screen in the console's latest snapshot."""
+    current = app.snapshot.get("current_set") or {}
+    return int(current.get("readings_done", 0))
+
+
+def instrument_connected(app: ConsoleApp) -> bool:
+    """Return whether the console's latest snapshot says the electrometer is connected."""
+    return bool(app.snapshot["instrument"]["connected"])
