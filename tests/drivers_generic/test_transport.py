@@ -1,0 +1,97 @@
+"""Framing in the transport base, over a scripted wire and over a real pseudo-terminal."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tty
+
+import pytest
+from chargebook.drivers_generic.interface import InstrumentDisconnected, ProtocolError
+from chargebook.drivers_generic.profile import Framing, PortSettings
+from chargebook.drivers_generic.serial_transport import SerialTransport
+from chargebook.drivers_generic.transport import ScriptedTransport
+
+CRLF = Framing(write_terminator=b"\r\n", read_terminator=b"\r\n", max_line_bytes=16)
+
+
+def opened(pairs, **kwargs) -> ScriptedTransport:
+    transport = ScriptedTransport(CRLF, pairs, **kwargs)
+    transport.open()
+    return transport
+
+
+def test_lines_split_across_chunks_and_several_per_chunk():
+    transport = opened([(None, b"ONE\r"), (None, b"\nTWO\r\nTHR"), (None, b"EE\r\n")])
+    lines = [transport.read_line(0.0) for _ in range(4)]
+    assert [line.raw if line else None for line in lines] == [b"ONE", b"TWO", b"THREE", None]
+
+
+def test_an_over_long_line_is_refused_and_the_next_line_still_read():
+    transport = opened([(None, b"X" * 40), (None, b"YYYY\r\nOK\r\n")])
+    with pytest.raises(ProtocolError, match="longer than 16 bytes") as refused:
+        transport.read_line(0.0)
+    assert refused.value.line == b"X" * 16
+    assert transport.read_line(0.0).raw == b"OK"  # the rest of the long line was skipped
+
+
+def test_an_over_long_line_with_its_terminator_is_refused_too():
+    transport = opened([(None, b"Z" * 20 + b"\r\nOK\r\n")])
+    with pytest.raises(ProtocolError):
+        transport.read_line(0.0)
+    assert transport.read_line(0.0).raw == b"OK"
+
+
+def test_every_line_is_reported_to_the_traffic_listener_with_its_terminator():
+    seen = []
+    ticks = iter([1.0, 2.0, 3.0])
+    transport = opened(
+        [("PING", "PONG")],
+        traffic=lambda d, t, raw: seen.append((d.value, t, raw)),
+        clock=ticks.__next__,
+    )
+    transport.write_line("PING")
+    received = transport.read_line(0.0)
+    assert seen == [("tx", 1.0, b"PING\r\n"), ("rx", 2.0, b"PONG\r\n")]
+    assert received.t_s == 2.0
+
+
+def test_a_closed_transport_refuses_to_write_or_read():
+    transport = ScriptedTransport(CRLF, [])
+    with pytest.raises(InstrumentDisconnected):
+        transport.write_line("X")
+    with pytest.raises(InstrumentDisconnected):
+        transport.read_line(0.0)
+
+
+@pytest.fixture
+def pty_pair():
+    master, slave = os.openpty()
+    tty.setraw(slave)
+    name = os.ttyname(slave)
+    yield master, name
+    for fd in (master, slave):
+        with contextlib.suppress(OSError):
+            os.close(fd)
+
+
+def test_serial_transport_on_a_real_pty_reads_writes_and_sees_the_port_vanish(pty_pair):
+    master, name = pty_pair
+    transport = SerialTransport(name, PortSettings(baud=115200), CRLF)
+    transport.open()
+    transport.write_line("HELLO")
+    assert os.read(master, 100) == b"HELLO\r\n"
+    os.write(master, b"WORLD\r\n")
+    assert transport.read_line(2.0).raw == b"WORLD"
+    assert transport.read_line(0.05) is None  # a timeout, not an error
+    os.close(master)
+    with pytest.raises(InstrumentDisconnected):
+        transport.read_line(2.0)
+        transport.write_line("ANYONE?")
+    assert not transport.is_open
+
+
+def test_serial_transport_open_of_a_missing_port_is_instrument_disconnected(tmp_path):
+    transport = SerialTransport(str(tmp_path / "ttyGone"), PortSettings(), CRLF)
+    with pytest.raises(InstrumentDisconnected, match="ttyGone"):
+        transport.open()
