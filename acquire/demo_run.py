@@ -46,17 +46,25 @@ def chargebook_args(*args: str) -> list[str]:
     return [sys.executable, "-m", "chargebook.acquire.cli", *args]
 
 
-def start_child(name: str, args: list[str], log_path: Path) -> Child:
-    """Start a chargebook subprocess and return it once it printed its JSON ready line."""
-    with log_path.open("wb") as log:
-        process = subprocess.Popen(chargebook_args(*args), stdout=subprocess.PIPE, stderr=log)
+def read_ready_line(process: subprocess.Popen, log_path: Path, name: str) -> dict[str, Any]:
+    """Return the JSON object a chargebook process prints first on stdout.
+
+    Raises DemoError with the tail of its log (and stops it) when it prints nothing in time.
+    """
     assert process.stdout is not None
     ready, _, _ = select.select([process.stdout], [], [], STARTUP_TIMEOUT_S)
     line = process.stdout.readline() if ready else b""
     if not line:
         stop_child(process)
         raise DemoError(f"the {name} did not start; its log is {log_path}:\n{_tail(log_path)}")
-    return Child(name, process, json.loads(line), log_path)
+    return json.loads(line)
+
+
+def start_child(name: str, args: list[str], log_path: Path) -> Child:
+    """Start a chargebook subprocess and return it once it printed its JSON ready line."""
+    with log_path.open("wb") as log:
+        process = subprocess.Popen(chargebook_args(*args), stdout=subprocess.PIPE, stderr=log)
+    return Child(name, process, read_ready_line(process, log_path, name), log_path)
 
 
 def _tail(path: Path, lines: int = 15) -> str:
@@ -163,16 +171,18 @@ async def _unattended(
     from chargebook.acquire.bench import Bench
     from chargebook.acquire.client import DaemonClient
     from chargebook.acquire.demo_data import demo_metadata
-    from chargebook.acquire.operator_auto import ACTOR, AutoOperator, AutoOperatorError, Environment
+    from chargebook.acquire.operator_auto import (
+        ACTOR,
+        AutoOperator,
+        AutoOperatorError,
+        environment_from_bench,
+    )
     from chargebook.acquire.session_result import result_document
     from chargebook.acquire.store import Store
     from chargebook.acquire.summary_text import reading_line, result_table
 
     bench = Bench(simulator.info["control"])
-
-    def environment() -> Environment:
-        temperature_C, pressure_kPa = bench.environment()
-        return Environment(temperature_C, pressure_kPa, "bench thermometer and barometer")
+    environment = environment_from_bench(simulator.info["control"])
 
     def progress(reading_set: dict[str, Any], reading: dict[str, Any]) -> None:
         print(reading_line(reading_set, reading), file=out, flush=True)

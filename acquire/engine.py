@@ -611,7 +611,7 @@ class Engine:
         if self.session_id is None:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
         else:
-            value = live.compute_results(
+            inputs, provisional = live.measurement_inputs(
                 self.store,
                 self.session_id,
                 self.plan,
@@ -620,6 +620,8 @@ class Engine:
                 self.integration_s,
                 self.thresholds,
             )
+            results, error = live.evaluate_inputs(inputs)
+            value = (results, provisional, error)
         self._results_cache = (self.data_version, value)
         return value
 

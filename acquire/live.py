@@ -1,6 +1,7 @@
 """Live results and the checks behind the engine's inputs, all through ``corrections``.
 
-After every change the engine asks :func:`compute_results` for the results so far: it gathers
+After every change the engine asks :func:`measurement_inputs` and :func:`evaluate_inputs`
+for the results so far: they gather
 the readings of the accepted sets (and, provisionally, those of the set being taken for a step
 that has no accepted set yet), the latest environment entry and the session metadata into a
 ``MeasurementInputs`` and calls ``corrections.evaluate.evaluate``. Factors not yet measured stay
@@ -334,27 +335,16 @@ def measurement_inputs(
     return inputs, provisional
 
 
-def compute_results(
-    store: Store,
-    session_id: int,
-    plan: Plan,
-    metadata: Mapping[str, Any],
-    active_set_id: int | None,
-    integration_s: Mapping[int, float],
-    thresholds: Thresholds | None = None,
-) -> tuple[dict[str, Any] | None, bool, str | None]:
-    """Return (``evaluate(...).to_dict()``, provisional?, error) for what is known now.
+def evaluate_inputs(inputs: Any) -> tuple[dict[str, Any] | None, str | None]:
+    """Return (``evaluate(inputs).to_dict()``, None), or (None, why) in words.
 
     When the recorded values cannot be evaluated (``evaluate`` raises InputError, e.g. readings
-    whose sign contradicts the bias), the results are None and ``error`` says why in words;
-    nothing recorded is touched.
+    whose sign contradicts the bias) the results are None and the error says why; nothing
+    recorded is touched.
     """
     from chargebook.corrections.evaluate import evaluate
 
-    inputs, provisional = measurement_inputs(
-        store, session_id, plan, metadata, active_set_id, integration_s, thresholds
-    )
     try:
-        return evaluate(inputs).to_dict(), provisional, None
+        return evaluate(inputs).to_dict(), None
     except InputError as error:
-        return None, provisional, f"The results cannot be computed: {error}"
+        return None, f"The results cannot be computed: {error}"

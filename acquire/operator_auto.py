@@ -40,6 +40,21 @@ class Environment:
 ReadingCallback = Callable[[dict[str, Any], dict[str, Any]], None]
 
 
+def environment_from_bench(control_path: str) -> Callable[[], Environment]:
+    """Return a callable that reads the bench's thermometer and barometer each time."""
+    from chargebook.acquire.bench import Bench
+
+    def read() -> Environment:
+        bench = Bench(control_path)
+        try:
+            temperature_C, pressure_kPa = bench.environment()
+        finally:
+            bench.close()
+        return Environment(temperature_C, pressure_kPa, "bench thermometer and barometer")
+
+    return read
+
+
 class AutoOperator:
     """Runs the daemon's plan to the end through ``client`` (already connected)."""
 

@@ -130,24 +130,14 @@ async def _run(args: argparse.Namespace) -> int:
 
 def environment_source(args: argparse.Namespace):
     """Return a callable giving the Environment to enter: the options given, else the bench."""
-    from chargebook.acquire.operator_auto import Environment
+    from chargebook.acquire.operator_auto import Environment, environment_from_bench
     from chargebook.corrections.errors import InputError
 
     if args.temperature_C is not None and args.pressure_kPa is not None:
         fixed = Environment(args.temperature_C, args.pressure_kPa, "entered for the run")
         return lambda: fixed
     if args.bench_control:
-        from chargebook.acquire.bench import Bench
-
-        def from_bench() -> Environment:
-            bench = Bench(args.bench_control)
-            try:
-                temperature_C, pressure_kPa = bench.environment()
-            finally:
-                bench.close()
-            return Environment(temperature_C, pressure_kPa, "bench thermometer and barometer")
-
-        return from_bench
+        return environment_from_bench(args.bench_control)
     raise InputError(
         "--temperature-C/--pressure-kPa", None, "both, or --bench-control", "are missing"
     )

@@ -8,6 +8,7 @@ the published formulas of REFERENCE.md written out here, not the library's code.
 from __future__ import annotations
 
 import pytest
+from chargebook.acquire.demo_data import demo_metadata
 from chargebook.acquire.engine import Command, ConfirmationRequired, Engine
 from chargebook.acquire.plan import CaptureRule, Plan, SettlingRule, Step
 from chargebook.acquire.protocol import EngineState, Method
@@ -18,21 +19,8 @@ from chargebook.drivers_generic.interface import Capability
 
 S = EngineState
 
-#: Invented demo metadata (our own clinic, see the common brief); numbers are plausible magnitudes.
-METADATA = {
-    "treatment_machine": "HCC-LA1",
-    "beam": "6 MV",
-    "beam_type": "pulsed",
-    "convention": "trs398",
-    "chamber_model": "thimble 0.6 cc",
-    "chamber_serial": "CH-4417",
-    "electrometer_model": "bench electrometer",
-    "electrometer_serial": "EM-2093",
-    "operator": "R. Okafor",
-    "N_Dw": 0.0540,
-    "k_Q": 0.992,
-    "expected_cGy_per_MU": 1.0,
-}
+#: The invented demo metadata (our own clinic, see acquire/demo_data.py); demo only.
+METADATA = demo_metadata()
 
 CAPTURE = CaptureRule(hold_s=1.0)
 ONE = SettlingRule(discard_first=1)
@@ -93,6 +81,13 @@ def take_set(engine: Engine, clock: Clock, charges: list[float]) -> None:
     engine.arm()
     for charge in charges:
         deliver(engine, clock, charge)
+
+
+def into_opposite_set(engine: Engine, clock: Clock, charges: list[float]) -> None:
+    """Take and accept the routine set, then start the opposite set with ``charges``."""
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    engine.accept()
+    take_set(engine, clock, charges)
 
 
 def test_a_plan_runs_from_start_to_finish_with_settling_readings_kept_but_not_used():
@@ -211,11 +206,7 @@ def test_pause_drops_the_reading_in_progress_and_resume_arms_again():
 def test_stop_and_abort_are_distinct_and_keep_everything():
     engine, clock = make_engine()
     session_id = started(engine)
-    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
-    engine.accept()
-    engine.manual_done()
-    engine.arm()
-    deliver(engine, clock, -20.3)
+    into_opposite_set(engine, clock, [-20.3])
     with pytest.raises(ConfirmationRequired):
         engine.abort("chamber cable damaged")
     engine.abort("chamber cable damaged", confirm=True)
@@ -253,12 +244,7 @@ def test_instrument_lost_mid_set_interrupts_it_and_the_set_can_be_continued():
 def test_a_restarted_engine_resumes_the_open_session_with_every_reading():
     engine, clock = make_engine()
     session_id = started(engine)
-    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
-    engine.accept()
-    engine.manual_done()
-    engine.arm()
-    deliver(engine, clock, -20.3)
-    deliver(engine, clock, -20.0)
+    into_opposite_set(engine, clock, [-20.3, -20.0])
     # The daemon dies here; a new engine opens the same store.
     revived = Engine(engine.store, capabilities=engine.capabilities, clock=clock)
     assert revived.restore() is True

@@ -27,12 +27,9 @@ one. The quick plan (``plans/quick.toml``) and TIME_SCALE keep a whole session t
 
 from __future__ import annotations
 
-import json
 import os
-import select
 import signal
 import subprocess
-import sys
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -41,42 +38,27 @@ from typing import Any
 import pytest
 from chargebook.acquire.client import DaemonClient
 from chargebook.acquire.demo_data import demo_metadata
+from chargebook.acquire.demo_run import DemoError, chargebook_args, stop_child
+from chargebook.acquire.demo_run import read_ready_line as ready_line
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 
 #: Wall seconds per simulated second, for the simulator and the daemon alike.
 TIME_SCALE = 0.02
 QUICK_PLAN = str(Path(__file__).parent / "plans" / "quick.toml")
-STARTUP_TIMEOUT_S = 20.0
 
 
-def chargebook_command(*args: str) -> list[str]:
-    """Return the command line that runs `chargebook ARGS` with this interpreter."""
-    return [sys.executable, "-m", "chargebook.acquire.cli", *args]
+#: `chargebook ARGS` run with this interpreter (the demo's own helper).
+chargebook_command = chargebook_args
+#: End a process politely (SIGTERM), forcefully after 10 s, and reap it.
+stop_process = stop_child
 
 
 def read_ready_line(process: subprocess.Popen, log_path: Path) -> dict[str, Any]:
     """Return the JSON object a process prints first on stdout; fail with its log if it dies."""
-    assert process.stdout is not None
-    ready, _, _ = select.select([process.stdout], [], [], STARTUP_TIMEOUT_S)
-    line = process.stdout.readline() if ready else b""
-    if not line:
-        process.kill()
-        process.wait()
-        pytest.fail(f"{process.args} did not start:\n{log_path.read_text(errors='replace')}")
-    return json.loads(line)
-
-
-def stop_process(process: subprocess.Popen) -> None:
-    """End a process politely (SIGTERM), forcefully after 10 s."""
-    if process.poll() is None:
-        process.send_signal(signal.SIGTERM)
-        try:
-            process.wait(10)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            process.wait()
-    if process.stdout is not None:
-        process.stdout.close()
+    try:
+        return ready_line(process, log_path, " ".join(map(str, process.args)))
+    except DemoError as error:
+        pytest.fail(str(error))
 
 
 @dataclass

@@ -17,7 +17,7 @@ import subprocess
 import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonError
-from chargebook.acquire.operator_auto import ACTOR, AutoOperator, Environment
+from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
 from chargebook.acquire.store import Store
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
@@ -32,12 +32,7 @@ CHARGE_TOLERANCE = 3e-3  # relative: noise, slow drift and settling left after c
 
 
 def bench_environment(simulator):
-    def read() -> Environment:
-        with simulator.bench() as bench:
-            reply = bench.environment()
-        return Environment(reply["temperature_C"], reply["pressure_kPa"], "bench")
-
-    return read
+    return environment_from_bench(simulator.control)
 
 
 def stored(db) -> Store:
