@@ -16,6 +16,7 @@ Restart: :meth:`Engine.restore` picks up the store's open session. A set that wa
 when the daemon died is marked interrupted with its readings kept: the operator continues it
 (arm) or redoes it, as after an instrument disconnect. A physicist expects both choices after a
 crash: the readings taken are real, but only they can judge whether the chamber stayed settled.
+A pause is not carried over a restart: the session comes back waiting, reviewing or interrupted.
 """
 
 from __future__ import annotations
@@ -501,6 +502,8 @@ class Engine:
         assert step is not None and self.active is not None
         settling = self._settling_needed()
         new_state = S.SETTLING if settling else S.COLLECTING
+        if self.instrument_connected:
+            self.instrument_message = None  # a fault the operator has seen and acted on
         if self.state is not new_state:
             self._goto(new_state, action, actor, set_id=self.active.id)
         zeroed = self._can(Capability.ZERO)

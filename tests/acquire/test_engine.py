@@ -358,3 +358,18 @@ def test_a_reading_whose_sign_contradicts_its_set_is_flagged():
     readings = engine.snapshot()["current_set"]["readings"]
     signs = [("sign_against_bias" in {f["code"] for f in r["flags"]}) for r in readings]
     assert signs == [False, False, True, False]
+
+
+def test_a_refused_command_interrupts_the_set_but_it_can_go_on_at_once():
+    engine, clock = make_engine()
+    started(engine)
+    take_set(engine, clock, [20.5])
+    engine.instrument_lost("the electrometer refused 'start'", still_connected=True)
+    snapshot = engine.snapshot()
+    assert snapshot["state"] == "interrupted"
+    assert snapshot["instrument"]["message"] == "the electrometer refused 'start'"
+    assert {"step.arm", "set.redo"} <= set(snapshot["allowed"])
+    engine.arm()
+    assert engine.snapshot()["instrument"]["message"] is None
+    kinds = [e.kind for e in engine.store.events(engine.session_id)]
+    assert "instrument_fault" in kinds
