@@ -306,3 +306,26 @@ def test_demo_unattended_prints_a_dose_whose_factors_match_the_simulators_truth(
     assert document["dose_Gy"] is not None and document["M_corrected_nC"] is not None
     with stored(db) as store:
         assert [s.status for s in store.sessions()] == ["finished", "finished"]
+
+
+@pytest.mark.parametrize(
+    ("options", "named"),
+    [
+        (["--plan", "no-such-plan"], "plan"),
+        (["--time-scale", "0"], "--time-scale"),
+        (["--thresholds", "THRESHOLDS"], "thresholds.relative_sd"),
+        (["--profile", "no-such-profile"], "no-such-profile"),
+    ],
+)
+def test_serve_refuses_bad_options_naming_them(simulator, tmp_path, options, named):
+    thresholds = tmp_path / "thresholds.toml"
+    thresholds.write_text("relative_sd = 0.1\n")  # the field is relative_sd_pct
+    options = [str(thresholds) if o == "THRESHOLDS" else o for o in options]
+    command = chargebook_command(
+        "serve", "--profile", simulator.profile, "--port", simulator.serial,
+        "--db", str(tmp_path / "s.sqlite"), "--socket", str(tmp_path / "run" / "d.sock"),
+        *options,
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, timeout=60, check=False)
+    assert done.returncode == 2
+    assert named in done.stderr and done.stdout == ""
