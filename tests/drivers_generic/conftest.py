@@ -20,6 +20,7 @@ from typing import Any
 
 import pytest
 from chargebook.drivers_generic.interface import Sample
+from chargebook.drivers_generic.readout import capture_reading
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 
 ANNOUNCE_TIMEOUT_s = 20.0
@@ -92,18 +93,5 @@ def simulator() -> Iterator:
 
 
 def capture(driver, control, mu: float = MU) -> Sample:
-    """Return one reading of ``mu`` MU the way the daemon takes it (query or push mode)."""
-    driver.zero()
-    driver.start_integration()
-    if driver.profile.mode == "push":
-        control.beam(mu)
-        while True:
-            sample = driver.next_sample(5.0)
-            assert sample is not None, "the instrument stopped streaming"
-            if sample.complete:
-                break
-        driver.stop_integration()
-        return sample
-    control.beam(mu, wait=True)
-    driver.stop_integration()
-    return driver.read_charge()
+    """Return one reading of ``mu`` MU, the beam delivered by the simulator's bench."""
+    return capture_reading(driver, lambda wait: control.beam(mu, wait=wait), timeout_s=10.0)

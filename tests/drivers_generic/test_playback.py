@@ -7,6 +7,7 @@ import sys
 
 import pytest
 from chargebook.drivers_generic import load_profile, open_electrometer
+from chargebook.drivers_generic.readout import capture_reading
 from chargebook.drivers_generic.simulator.playback import (
     PlaybackLogError,
     PlaybackResponder,
@@ -32,21 +33,10 @@ def record_session(sim, profile_name: str, readings: int) -> tuple[list[float], 
 def replay_session(sim, profile_name: str, readings: int) -> list[float]:
     driver = open_electrometer(profile_name, port=sim.serial)
     try:
-        return [_replayed_reading(driver) for _ in range(readings)]
+        # the log holds the beam: nothing to deliver, the recorded lines say it all
+        return [capture_reading(driver, lambda wait: None).charge_nC for _ in range(readings)]
     finally:
         driver.close()
-
-
-def _replayed_reading(driver) -> float:
-    driver.zero()
-    driver.start_integration()
-    if driver.profile.mode == "push":
-        while not (sample := driver.next_sample(5.0)).complete:
-            pass
-        driver.stop_integration()
-        return sample.charge_nC
-    driver.stop_integration()
-    return driver.read_charge().charge_nC
 
 
 @pytest.mark.parametrize("profile", ["lumen-q", "tallyline"])
