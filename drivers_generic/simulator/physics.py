@@ -153,7 +153,8 @@ class ChamberPhysics:
         bias_V: float,
         biases_V: list[float] | None = None,
     ) -> dict[str, object]:
-        """Return the true factors: k_TP, k_pol, k_s at each bias, sensitivity, leakage."""
+        """Return the true factors: k_TP, k_pol, k_s (at each bias), k_h, k_elec, sensitivity,
+        leakage. k_pol is for the routine polarity of ``reference_bias_V`` (positive)."""
         p = self.parameters
         routine = p.reference_bias_V
         wanted = sorted(
@@ -174,6 +175,8 @@ class ChamberPhysics:
                 "-": (plus + minus) / (2 * minus),
             },
             "k_s": 1.0 / self.collection_efficiency(routine),
+            "k_h": 1.0,  # humidity is not modelled: the simulated air is always at reference
+            "k_elec": 1.0,  # the simulated electrometer reads charge without calibration error
             "k_s_by_bias_V": k_s_by_bias,
             "routine_bias_V": routine,
             "bias_V": bias_V,

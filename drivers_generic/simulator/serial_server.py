@@ -49,6 +49,7 @@ class PtyServer:
         self._write_lock = threading.Lock()
         self._stop = threading.Event()
         self._reopen_at: float | None = None
+        self._drop_request: tuple[float, threading.Event] | None = None
         self._buffer = bytearray()
         self._thread = threading.Thread(target=self._serve, name="pty-server", daemon=True)
         self._flood_thread: threading.Thread | None = None
@@ -70,11 +71,24 @@ class PtyServer:
         self._close_pty()
 
     def drop(self, seconds: float) -> None:
-        """Close the pty now (the cable is pulled) and bring a new one back after ``seconds``."""
-        with self._fd_lock:
+        """Close the pty now (the cable is pulled) and bring a new one back after ``seconds``.
+
+        The serving thread closes it (it owns the descriptors, so no other thread can be left
+        waiting on a number the system may hand out again); this waits until it has.
+        """
+        done = threading.Event()
+        self._drop_request = (seconds, done)
+        if not done.wait(timeout=5.0):
+            raise RuntimeError("the pty server did not drop the port")
+
+    def _drop_now(self) -> None:
+        seconds, done = self._drop_request
+        self._drop_request = None
+        with self._write_lock:
             self._close_pty()
-            self._reopen_at = time.monotonic() + seconds
+        self._reopen_at = time.monotonic() + seconds
         log.info("pty dropped for %.3f s", seconds)
+        done.set()
 
     @property
     def connected(self) -> bool:
@@ -109,6 +123,8 @@ class PtyServer:
     def _serve(self) -> None:
         interval_s = getattr(self.responder, "tick_interval_s", lambda: 0.02)()
         while not self._stop.is_set():
+            if self._drop_request is not None:
+                self._drop_now()
             master = self._master
             if master is None:
                 self._reopen_if_due(interval_s)

@@ -57,6 +57,7 @@ def test_defaults_look_like_a_0_6_cc_chamber_at_300_V():
     assert 1.001 < truth["k_pol"] < 1.003
     assert 1.005 < truth["k_s"] < 1.01
     assert truth["k_TP"] == pytest.approx(1.0, abs=1e-12)
+    assert truth["k_h"] == truth["k_elec"] == 1.0  # neither is modelled: stated as exactly 1
 
 
 def test_same_seed_same_deliveries_and_different_seed_different_noise():
