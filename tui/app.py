@@ -67,7 +67,9 @@ class ConsoleApp(App[int]):
         self._latest_seq = -1
 
     def compose(self) -> ComposeResult:
-        yield Static(f"Connecting to the daemon at {self.socket_path}…", id="connecting")
+        yield Static(
+            f"Connecting to the daemon at {self.socket_path}…", id="connecting", markup=False
+        )
 
     def on_mount(self) -> None:
         self.follow_daemon()

@@ -11,6 +11,8 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
+from rich.text import Text
+
 PENDING = "pending"
 MINUS = "\u2212"
 #: A space that never breaks a line, kept between a number and its unit.
@@ -149,3 +151,13 @@ def reading_marker(flags: Iterable[Mapping[str, Any]], settling: bool) -> str:
         if marker in markers:
             return marker
     return OK_MARKER
+
+
+def plain(value: object) -> Text:
+    """Return ``value`` as text shown exactly as written (brackets are not markup)."""
+    return Text(str(value))
+
+
+def plain_row(values: Iterable[object]) -> list[Text]:
+    """Return a table row whose cells show exactly what they hold."""
+    return [plain(value) for value in values]

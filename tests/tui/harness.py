@@ -17,6 +17,7 @@ from chargebook.tui import app as console_app
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.screens.base import ConsoleScreen, Sender
 from textual.app import App
+from textual.widgets import Input
 
 FIXTURES = Path(__file__).parent / "fixtures"
 CONSOLE_CSS = Path(console_app.__file__).parent / "console.tcss"
@@ -61,3 +62,22 @@ class ScreenHarness(App):
     def console_screen(self) -> ConsoleScreen:
         """Return the screen under test (under any dialog it opened)."""
         return next(s for s in reversed(self.screen_stack) if isinstance(s, ConsoleScreen))
+
+
+def then_steady(*keys: str, action: Callable[[App], None] | None = None):
+    """Return a Pilot routine: press ``keys``, run ``action(app)``, then stop cursors blinking.
+
+    A blinking text cursor would make a screenshot depend on the instant it is taken.
+    """
+
+    async def routine(pilot) -> None:
+        await pilot.press(*keys)
+        await pilot.pause()
+        if action is not None:
+            action(pilot.app)
+            await pilot.pause()
+        for entry in pilot.app.screen.query(Input):
+            entry.cursor_blink = False
+        await pilot.pause()
+
+    return routine

@@ -154,3 +154,15 @@ async def test_the_summary_shows_results_history_and_the_safety_caution():
     assert f"{snapshot['results']['dose_per_MU_cGy']:.4f} cGy/MU" in shown
     assert "superseded: spike on" in shown
     assert "never replaces, the judgement of a qualified" in shown
+
+
+async def test_words_from_the_daemon_and_the_operator_are_shown_exactly_as_written():
+    snapshot = load_snapshot("finished")
+    snapshot["sets"][3]["reason"] = "[b]cable[/b] moved [1]"  # brackets are not markup
+    snapshot["results"]["flags"][0]["message"] = "leakage [high] in words"
+    app = ScreenHarness(SummaryScreen, snapshot)
+    async with app.run_test(size=(80, 70)) as pilot:
+        await pilot.pause()
+        shown = screen_text(app)
+    assert "[b]cable[/b] moved" in shown
+    assert "leakage [high] in words" in shown

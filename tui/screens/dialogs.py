@@ -34,12 +34,12 @@ class ReasonScreen(ModalScreen[str | None]):
         with Vertical(classes="dialog"):
             yield Label(self.dialog_title, classes="dialog-title")
             if self.warning:
-                yield Static(self.warning, classes="dialog-warning")
-            yield Static(self.question)
+                yield Static(self.warning, classes="dialog-warning", markup=False)
+            yield Static(self.question, markup=False)
             yield Field("Reason", "reason", check=required_text("reason"))
             with Horizontal(classes="dialog-buttons"):
                 yield Button(self.confirm_label, id="confirm", variant="primary", compact=True)
-                yield Button("Back [esc]", id="back", compact=True)
+                yield Button("Back (Esc)", id="back", compact=True)
 
     def on_mount(self) -> None:
         self.query_one(Input).focus()
@@ -70,7 +70,7 @@ class ConfirmScreen(ReasonScreen):
         super().__init__(
             "Abort the session?",
             "Give the reason and press Enter to abort. Back keeps measuring.",
-            "Abort session [enter]",
+            "Abort session (Enter)",
             warning="!! Aborting ends this session. Everything recorded is kept, marked "
             "aborted; the measurement cannot be continued.",
         )
@@ -82,5 +82,5 @@ def redo_question() -> ReasonScreen:
         "Redo this reading set",
         "Why is this set taken again? The present set is kept, marked superseded, with "
         "your reason.",
-        "Redo set [enter]",
+        "Redo set (Enter)",
     )

@@ -19,6 +19,9 @@ from textual.widgets import Button, Input, Label, Static
 Sender = Callable[..., Awaitable[Any]]
 
 
+READ_THE_INSTRUMENTS = "Read the thermometer and barometer at the chamber, then Enter."
+
+
 class EnvironmentScreen(ModalScreen[bool]):
     """Enter a new temperature and pressure; dismissed with True once the daemon recorded them.
 
@@ -36,12 +39,14 @@ class EnvironmentScreen(ModalScreen[bool]):
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
             yield Label("New air temperature and pressure", classes="dialog-title")
-            yield Static("Read the thermometer and barometer at the chamber, then Enter.")
+            yield Static(
+                "Read the thermometer and barometer at the chamber, then Enter.", markup=False
+            )
             yield EnvironmentFields(self.current)
-            yield Static("", id="environment-problem", classes="dialog-warning")
+            yield Static("", id="environment-problem", classes="dialog-warning", markup=False)
             with Horizontal(classes="dialog-buttons"):
-                yield Button("Record [enter]", id="record", variant="primary", compact=True)
-                yield Button("Back [esc]", id="back", compact=True)
+                yield Button("Record (Enter)", id="record", variant="primary", compact=True)
+                yield Button("Back (Esc)", id="back", compact=True)
 
     def on_mount(self) -> None:
         self.query_one(Input).focus()

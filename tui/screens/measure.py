@@ -62,7 +62,7 @@ class MeasureScreen(ConsoleScreen):
     ]
 
     def compose(self) -> ComposeResult:
-        yield StatusLine(id="status-line")
+        yield StatusLine(id="status-line", markup=False)
         yield StepPanel(id="step-panel")
         with TabbedContent(id="measure-tabs", initial="now"):
             with TabPane(TABS[0][2], id="now"), Horizontal(id="now-columns"):
@@ -73,7 +73,7 @@ class MeasureScreen(ConsoleScreen):
             with TabPane(TABS[2][2], id="plan"), VerticalScroll():
                 yield PlanView(id="plan-view")
             with TabPane(TABS[3][2], id="flags"), VerticalScroll():
-                yield FlagList(id="flag-list")
+                yield FlagList(id="flag-list", markup=False)
         yield ActionBar(id="action-bar")
         yield Footer(compact=True, show_command_palette=False)
 

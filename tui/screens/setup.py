@@ -40,14 +40,14 @@ class SetupScreen(ConsoleScreen):
         self.session_opened = False  # this form opened the session; the air data are still due
 
     def compose(self) -> ComposeResult:
-        yield StatusLine(id="status-line")
-        yield Static(INTRO, id="setup-intro")
+        yield StatusLine(id="status-line", markup=False)
+        yield Static(INTRO, id="setup-intro", markup=False)
         with VerticalScroll(id="setup-body"):
             yield SessionForm(self.defaults)
-            yield Static("Air at the chamber", classes="section-title")
+            yield Static("Air at the chamber", classes="section-title", markup=False)
             yield EnvironmentFields(self.defaults)
             yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
-        yield Static("", id="setup-problem")
+        yield Static("", id="setup-problem", markup=False)
         yield Footer(compact=True, show_command_palette=False)
 
     @property

@@ -51,8 +51,8 @@ def details_table(snapshot: dict[str, Any]) -> Table:
     for key, label in DETAILS:
         if metadata.get(key):
             shown = text.convention(metadata[key]) if key == "convention" else metadata[key]
-            table.add_row(label, str(shown))
-    table.add_row("Started", str(session.get("created_at", "")))
+            table.add_row(*text.plain_row((label, shown)))
+    table.add_row(*text.plain_row(("Started", session.get("created_at", ""))))
     environment = snapshot.get("environment")
     if environment:
         entered = ""
@@ -60,11 +60,11 @@ def details_table(snapshot: dict[str, Any]) -> Table:
             entered = (
                 f" (entered {environment['pressure_entered']:g} {environment['pressure_unit']})"
             )
-        table.add_row(
-            "Air",
+        air = (
             f"{text.number(environment['temperature_C'], 1, '°C')}, "
-            f"{text.number(environment['pressure_kPa'], 3, 'kPa')}{entered}",
+            f"{text.number(environment['pressure_kPa'], 3, 'kPa')}{entered}"
         )
+        table.add_row(*text.plain_row(("Air", air)))
     return table
 
 
@@ -74,7 +74,7 @@ def history_table(snapshot: dict[str, Any]) -> Table:
     for column in ("Step", "Set", "Status", "Mean", "Rel. SD"):
         table.add_column(column)
     for row in snapshot_view.history_rows(snapshot.get("sets") or []):
-        table.add_row(*row)
+        table.add_row(*text.plain_row(row))
     return table
 
 
@@ -87,16 +87,16 @@ class SummaryScreen(ConsoleScreen):
     ]
 
     def compose(self) -> ComposeResult:
-        yield StatusLine(id="status-line")
+        yield StatusLine(id="status-line", markup=False)
         with VerticalScroll(id="summary-body"):
-            yield Static("", id="summary-title", classes="panel-title")
-            yield Static("", id="summary-results")
-            yield Static("", id="summary-factors")
-            yield Static("", id="summary-flags")
-            yield Static("", id="summary-details")
-            yield Static("Reading sets", classes="panel-title")
-            yield Static("", id="summary-history")
-        yield Static("", id="summary-caution")
+            yield Static("", id="summary-title", classes="panel-title", markup=False)
+            yield Static("", id="summary-results", markup=False)
+            yield Static("", id="summary-factors", markup=False)
+            yield Static("", id="summary-flags", markup=False)
+            yield Static("", id="summary-details", markup=False)
+            yield Static("Reading sets", classes="panel-title", markup=False)
+            yield Static("", id="summary-history", markup=False)
+        yield Static("", id="summary-caution", markup=False)
         yield Footer(compact=True, show_command_palette=False)
 
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:

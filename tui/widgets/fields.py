@@ -52,7 +52,7 @@ class Field(Vertical):
             )
             if self.suffix is not None:
                 yield self.suffix
-        yield Static("", classes="field-problem")
+        yield Static("", classes="field-problem", markup=False)
 
     @property
     def input(self) -> Input:

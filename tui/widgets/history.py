@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
-from chargebook.tui import snapshot_view
+from chargebook.tui import snapshot_view, text
 from textual.widgets import DataTable
 
 COLUMNS = ("Step", "Set", "Status", "Mean", "Rel. SD")
@@ -26,4 +26,4 @@ class SetHistory(DataTable):
             return
         self._shown_rows = rows
         self.clear()
-        self.add_rows(rows)
+        self.add_rows([text.plain_row(row) for row in rows])

@@ -26,13 +26,9 @@ def plan_table(plan: Sequence[dict[str, Any]]) -> Table:
     for step in plan:
         mu = f" × {step['mu_per_reading']:g} MU" if step.get("mu_per_reading") else ""
         purpose = text.purpose(step["purpose"]) + (" (optional)" if step.get("optional") else "")
-        table.add_row(
-            str(step["index"] + 1),
-            purpose,
-            text.bias_V(step["bias_V"]),
-            f"{step['readings']}{mu}",
-            STEP_MARKERS.get(step.get("status", ""), step.get("status", "")),
-        )
+        status = STEP_MARKERS.get(step.get("status", ""), step.get("status", ""))
+        cells = (step["index"] + 1, purpose, text.bias_V(step["bias_V"]), f"{step['readings']}{mu}")
+        table.add_row(*text.plain_row((*cells, status)))
     return table
 
 

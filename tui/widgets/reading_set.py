@@ -20,12 +20,14 @@ def readings_table(set_info: dict[str, Any] | None) -> Table:
     table.add_column("How", width=6, no_wrap=True)
     table.add_column("Flag", min_width=8, no_wrap=True)
     for reading in (set_info or {}).get("readings", []):
-        table.add_row(
-            str(reading["seq"]),
+        marker = text.reading_marker(reading.get("flags") or [], bool(reading.get("settling")))
+        cells = (
+            reading["seq"],
             text.number(reading["charge_nC"], 4),
-            str(reading.get("capture", "")),
-            text.reading_marker(reading.get("flags") or [], bool(reading.get("settling"))),
+            reading.get("capture"),
+            marker,
         )
+        table.add_row(*text.plain_row(cells))
     return table
 
 
@@ -47,12 +49,12 @@ class ReadingSetPanel(Vertical):
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
 
     def compose(self) -> ComposeResult:
-        yield Static("", id="set-title", classes="panel-title")
+        yield Static("", id="set-title", classes="panel-title", markup=False)
         with VerticalScroll(id="readings-scroll"):
-            yield Static("", id="readings-table")
-            yield Static("", id="set-flags")
+            yield Static("", id="readings-table", markup=False)
+            yield Static("", id="set-flags", markup=False)
         yield Sparkline([], id="readings-plot")
-        yield Static("", id="set-stats")
+        yield Static("", id="set-stats", markup=False)
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
         title = "No reading set yet"

@@ -19,7 +19,7 @@ def factor_table(results: dict[str, Any] | None) -> Table:
     table.add_column("Value", justify="right")
     table.add_column("State")
     for symbol, value, state in snapshot_view.factor_rows(results):
-        table.add_row(symbol, value, state)
+        table.add_row(*text.plain_row((symbol, value, state)))
     return table
 
 
@@ -29,7 +29,7 @@ def results_table(snapshot: dict[str, Any]) -> Table:
     table.add_column("What")
     table.add_column("Value")
     for label, value in snapshot_view.result_rows(snapshot):
-        table.add_row(label, value)
+        table.add_row(*text.plain_row((label, value)))
     return table
 
 
@@ -49,10 +49,10 @@ class ResultsPanel(Vertical):
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
 
     def compose(self) -> ComposeResult:
-        yield Static("Results", id="results-title", classes="panel-title")
-        yield Static("", id="factor-table")
-        yield Static("", id="results-table")
-        yield Static("", id="session-flags")
+        yield Static("Results", id="results-title", classes="panel-title", markup=False)
+        yield Static("", id="factor-table", markup=False)
+        yield Static("", id="results-table", markup=False)
+        yield Static("", id="session-flags", markup=False)
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         if snapshot is None:
@@ -61,6 +61,5 @@ class ResultsPanel(Vertical):
         self.query_one("#factor-table", Static).update(factor_table(snapshot.get("results")))
         self.query_one("#results-table", Static).update(results_table(snapshot))
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
-        self.query_one("#session-flags", Static).update(
-            "Flags (all in tab 4):\n" + "\n".join(flags)
-        )
+        shown = "\n".join(["Session flags (every flag: tab 4):", *flags])
+        self.query_one("#session-flags", Static).update(shown)

@@ -88,12 +88,12 @@ class SessionForm(Vertical):
     def compose(self) -> ComposeResult:
         value = self.defaults.get
         for heading, entries in TEXT_SECTIONS:
-            yield Static(heading, classes="section-title")
+            yield Static(heading, classes="section-title", markup=False)
             for key, label in entries:
                 yield Field(label, key, _shown(value(key)), check=checks.required_text(key))
         yield ChoiceField("Beam type", "beam_type", BEAM_TYPES, value("beam_type") or "pulsed")
         yield ChoiceField("Convention", "convention", CONVENTIONS, value("convention") or "trs398")
-        yield Static("Calibration and expected output", classes="section-title")
+        yield Static("Calibration and expected output", classes="section-title", markup=False)
         yield Field(
             "N_D,w",
             "N_Dw",

@@ -18,11 +18,11 @@ class StepPanel(Vertical):
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="step-heading-row"):
-            yield Static("", id="step-heading")
+            yield Static("", id="step-heading", markup=False)
             yield ProgressBar(show_eta=False, show_percentage=False, id="plan-progress")
-            yield Static("", id="plan-progress-text")
-        yield Static("", id="step-prompt")
-        yield Static("", id="step-live")
+            yield Static("", id="plan-progress-text", markup=False)
+        yield Static("", id="step-prompt", markup=False)
+        yield Static("", id="step-live", markup=False)
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         if snapshot is None:
