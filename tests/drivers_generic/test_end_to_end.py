@@ -8,11 +8,21 @@ simulator computes it.
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
 import pytest
-from chargebook.drivers_generic import build_electrometer, open_electrometer, reconnect
+from chargebook.drivers_generic import (
+    build_electrometer,
+    load_profile,
+    open_electrometer,
+    reconnect,
+)
 from chargebook.drivers_generic.interface import (
     InstrumentDisconnected,
     InstrumentReportedError,
+    InstrumentTimeout,
+    ProtocolError,
     ReadingStatus,
     SettingOutOfRange,
 )
@@ -154,3 +164,55 @@ def test_same_seed_same_readings_whatever_the_timing(simulator):
             driver.close()
     assert runs[0] == pytest.approx(runs[1], abs=1.01e-4)
     assert len(set(runs[0])) == 4  # the noise is there, and it is the same noise
+
+
+def test_silence_on_a_real_pty_is_an_instrument_timeout_not_a_hang(simulator, tmp_path):
+    # A lumen-q driver (short timeout) talking to an instrument that speaks SCPI: SCPI answers
+    # unknown commands with nothing but an error-queue entry, so every attempt meets silence.
+    text = Path(load_profile("lumen-q").source).read_text(encoding="utf-8")
+    impatient = tmp_path / "impatient.toml"
+    impatient.write_text(text.replace("timeout_s = 1.0", "timeout_s = 0.05"), encoding="utf-8")
+    sim = simulator("--serial", "--profile", "scpi-generic", *FAST)
+    driver = open_electrometer(impatient, port=sim.serial)
+    try:
+        with pytest.raises(InstrumentTimeout, match="3 attempt"):
+            driver.read_charge()
+    finally:
+        driver.close()
+
+
+def test_garbage_over_a_real_pty_is_rejected_line_by_line(simulator, tmp_path):
+    replies = [
+        "\udcff\udcfeQ +1.0000 nC A",  # not ASCII (bytes 0xff 0xfe, kept by surrogateescape)
+        "Q +1.0000 nC A",
+        "Q +nan nC A",
+        "Q +2.0000 nC O",
+        "Q " + "9" * 300,  # over-long: the profile allows 128 bytes
+        "Q +3.0000 nC A",
+    ]
+    log = tmp_path / "garbage.jsonl"
+    entries = []
+    for index, reply in enumerate(replies):
+        entries.append({"t_s": index, "dir": "tx", "line": "Q?"})
+        entries.append({"t_s": index + 0.1, "dir": "rx", "line": reply})
+    log.write_text("".join(json.dumps(entry) + "\n" for entry in entries), encoding="utf-8")
+    sim = simulator("--serial", "--profile", "lumen-q", "--playback", str(log), "--speed", "0")
+    driver = open_electrometer("lumen-q", port=sim.serial)
+    outcomes = []
+    try:
+        for _ in replies:
+            try:
+                sample = driver.read_charge()
+                outcomes.append((sample.charge_nC, sample.status.value))
+            except ProtocolError as error:
+                outcomes.append(("rejected", error.line[:4]))
+    finally:
+        driver.close()
+    assert outcomes == [
+        ("rejected", b"\xff\xfeQ "),
+        (1.0, "ok"),
+        ("rejected", b"Q +n"),
+        (2.0, "overrange"),
+        ("rejected", b"Q 99"),
+        (3.0, "ok"),
+    ]
