@@ -1,0 +1,140 @@
+"""`chargebook console --socket PATH` in a real terminal: tmux at 80 × 24, keys sent with
+send-keys, the screen read back with capture-pane, against the real daemon and the simulated
+electrometer. CI installs tmux (.ci/run).
+
+The session is started by another client of the daemon (as a colleague at a second desk
+would); the console attaches to it, is closed mid-set without stopping the measurement, is
+opened again, and takes the plan to the summary by keys alone.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.protocol import Method
+from e2e_support import chargebook_command
+
+pytestmark = pytest.mark.e2e
+
+#: Longest wait for the screen to show something, in wall seconds (a deadline, not a check).
+DEADLINE_S = 60.0
+
+
+class Terminal:
+    """One tmux server of our own (its socket under tmp_path) running the console at 80 × 24."""
+
+    def __init__(self, tmp_path: Path) -> None:
+        tmux = shutil.which("tmux")
+        if tmux is None:
+            pytest.fail("tmux is not installed: apt-get install -y tmux (CI installs it)")
+        self.tmux = [tmux, "-S", str(tmp_path / "tmux.sock")]
+        self.name = "console"
+
+    def run(self, *args: str) -> str:
+        done = subprocess.run([*self.tmux, *args], capture_output=True, text=True, timeout=30)
+        if done.returncode != 0:
+            raise RuntimeError(f"tmux {' '.join(args)}: {done.stderr.strip()}")
+        return done.stdout
+
+    def open_console(self, socket: Path) -> None:
+        """Start `chargebook console --socket SOCKET` in a fresh 80 × 24 window."""
+        command = " ".join(chargebook_command("console", "--socket", str(socket)))
+        self.run("new-session", "-d", "-s", self.name, "-x", "80", "-y", "24", command)
+
+    def is_open(self) -> bool:
+        """Return True while the console's window is still there."""
+        done = subprocess.run([*self.tmux, "has-session", "-t", self.name], capture_output=True)
+        return done.returncode == 0
+
+    def screen(self) -> str:
+        """Return the characters on the screen (capture-pane)."""
+        return self.run("capture-pane", "-p", "-t", self.name)
+
+    def keys(self, *keys: str) -> None:
+        self.run("send-keys", "-t", self.name, *keys)
+
+    async def shows(self, text: str) -> str:
+        """Wait until the screen shows ``text``; return the screen, or fail showing it."""
+        screen = ""
+        for _ in range(int(DEADLINE_S / 0.1)):
+            screen = self.screen() if self.is_open() else ""
+            if text in screen:
+                return screen
+            await asyncio.sleep(0.1)
+        pytest.fail(f"the console never showed {text!r}; last screen:\n{screen}")
+
+    async def closed(self) -> None:
+        for _ in range(int(DEADLINE_S / 0.1)):
+            if not self.is_open():
+                return
+            await asyncio.sleep(0.1)
+        pytest.fail(f"the console did not close; last screen:\n{self.screen()}")
+
+    def kill(self) -> None:
+        subprocess.run([*self.tmux, "kill-server"], capture_output=True)
+
+
+@pytest.fixture
+def terminal(tmp_path: Path):
+    terminal = Terminal(tmp_path)
+    yield terminal
+    terminal.kill()
+
+
+#: The key for each action, in the order a plain run takes them.
+KEYS = ((Method.STEP_MANUAL_DONE, "d"), (Method.SET_ACCEPT, "k"), (Method.STEP_ARM, "a"))
+
+
+async def next_key(terminal: Terminal, client, snapshot: dict) -> dict:
+    """Press the key of the next move the daemon allows, then return the next snapshot."""
+    for method, key in KEYS:
+        if method in snapshot["allowed"]:
+            terminal.keys(key)
+            break
+    seq = snapshot["seq"]
+    return await client.wait_for_snapshot(lambda s: s["seq"] > seq, 60)
+
+
+async def test_the_console_in_a_terminal_attaches_quits_without_stopping_and_finishes(
+    terminal, simulator, daemon, metadata
+):
+    client = await daemon.connect(operator="second desk")
+    try:
+        await client.subscribe()
+        await client.call(Method.SESSION_START, metadata=metadata)
+        with simulator.bench() as bench:
+            air = bench.environment()
+        await client.call(
+            Method.ENVIRONMENT_SET, temperature_C=air["temperature_C"], pressure=air["pressure_kPa"]
+        )
+        terminal.open_console(daemon.socket)
+        await terminal.shows("Do now:")
+        screen = await terminal.shows("a Arm c Capture")  # the key help, always on screen
+        assert screen.splitlines()[0].startswith(" Session 1 · HCC-LA1 6 MV · waiting for you")
+        snapshot = client.latest_snapshot
+        while snapshot["step_index"] < 1:  # the leakage step, by keys
+            snapshot = await next_key(terminal, client, snapshot)
+        terminal.keys("a")  # arm the routine set ...
+        snapshot = await client.wait_for_snapshot(lambda s: s["state"] == "collecting", 60)
+        terminal.keys("C-q")  # ... and close the console in the middle of it
+        await terminal.closed()
+        still = await client.status()
+        assert still["state"] in ("collecting", "reviewing")  # the measurement goes on
+        terminal.open_console(daemon.socket)
+        await terminal.shows("Routine polarity")
+        snapshot = client.latest_snapshot
+        while snapshot["state"] != "finished":
+            snapshot = await next_key(terminal, client, snapshot)
+        await terminal.shows("Session 1 finished")
+        screen = await terminal.shows("n New session")
+    finally:
+        await client.close()
+    results = snapshot["results"]
+    words = " ".join(screen.replace("\u00a0", " ").split())  # as read, spacing aside
+    assert f"Dose per MU {results['dose_per_MU_cGy']:.4f} cGy/MU" in words
+    assert f"Corrected M_Q {results['M_corrected_nC']:.4f} nC" in words
+    assert "Caution: chargebook supports, and never replaces" in screen
