@@ -354,7 +354,7 @@ def test_thresholds_are_settings_recorded_with_the_session_and_restored():
 def test_a_reading_whose_sign_contradicts_its_set_is_flagged():
     engine, clock = make_engine()
     started(engine)
-    take_set(engine, clock, [20.5, 20.0, -20.0, 20.0])  # the cable or switch misbehaved once
+    take_set(engine, clock, [20.5, 20.0, -20.0, 20.1])  # the cable or switch misbehaved once
     readings = engine.snapshot()["current_set"]["readings"]
     signs = [("sign_against_bias" in {f["code"] for f in r["flags"]}) for r in readings]
     assert signs == [False, False, True, False]
