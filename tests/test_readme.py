@@ -5,7 +5,6 @@ import re
 from pathlib import Path
 
 import pytest
-
 from chargebook.acquire.cli import CAUTION, COMMANDS
 
 ROOT = Path(__file__).resolve().parents[1]
