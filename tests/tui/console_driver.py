@@ -92,3 +92,20 @@ async def start_session(pilot: Pilot, app: ConsoleApp) -> None:
 def current_results(app: ConsoleApp) -> dict[str, Any]:
     """Return the results in the console's latest snapshot."""
     return dict((app.snapshot or {}).get("results") or {})
+
+
+async def start_and_reach_step(pilot: Pilot, app: ConsoleApp, step_index: int) -> None:
+    """Start the session from the form, then operate by keys until ``step_index`` is current."""
+    await start_session(pilot, app)
+    await run_until(
+        pilot, app, lambda: app.snapshot["step_index"] == step_index, f"step {step_index + 1}"
+    )
+
+
+async def daemon_record(daemon) -> dict[str, Any]:
+    """Return the daemon's own state, asked over a connection of its own (not the console's)."""
+    client = await daemon.connect()
+    try:
+        return await client.status()
+    finally:
+        await client.close()

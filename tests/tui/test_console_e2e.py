@@ -17,9 +17,11 @@ from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.widgets.fields import Field
 from console_driver import (
+    daemon_record,
     press_and_wait,
     run_until,
     screen_kind,
+    start_and_reach_step,
     start_session,
     state,
     until,
@@ -31,6 +33,7 @@ pytestmark = pytest.mark.e2e
 
 SIZE = (80, 24)
 SEED = 5
+ROUTINE_STEP = 1  # the quick plan's second step (tests/e2e/plans/quick.toml)
 
 
 def bench_air(simulator) -> dict:
@@ -96,8 +99,7 @@ async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
 ):
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:
-        await start_session(pilot, app)
-        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        await start_and_reach_step(pilot, app, ROUTINE_STEP)
         with simulator.bench() as bench:
             bench.spike()  # the next reading carries a spike
         await run_until(pilot, app, lambda: state(app) == "reviewing", "the routine set's review")
@@ -117,11 +119,7 @@ async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
         "spike on a reading",
     )
     assert "superseded: spike on a reading" in history
-    client = await daemon.connect()
-    try:
-        record = await client.status()  # the daemon's own record, over another connection
-    finally:
-        await client.close()
+    record = await daemon_record(daemon)
     superseded = [s for s in record["sets"] if s["status"] == "superseded"]
     assert [s["reason"] for s in superseded] == ["spike on a reading"]
     assert len(superseded[0]["readings"]) >= 1  # the old set's readings are kept
@@ -132,8 +130,7 @@ async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborte
 ):
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:
-        await start_session(pilot, app)
-        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        await start_and_reach_step(pilot, app, ROUTINE_STEP)
         readings_before = sum(len(s["readings"]) for s in app.snapshot["sets"])
         await pilot.press("x")
         await until(pilot, lambda: isinstance(app.screen, ConfirmScreen), "the confirmation")
@@ -142,11 +139,7 @@ async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborte
         await until(pilot, lambda: screen_kind(app) == "summary", "the summary")
         shown = screen_text(app)
     assert "!! Session 1 ABORTED: chamber cable damaged" in shown
-    client = await daemon.connect()
-    try:
-        record = await client.status()
-    finally:
-        await client.close()
+    record = await daemon_record(daemon)
     assert record["session"]["status"] == "aborted"
     assert sum(len(s["readings"]) for s in record["sets"]) == readings_before
 
@@ -156,8 +149,7 @@ async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lo
 ):
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:
-        await start_session(pilot, app)
-        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        await start_and_reach_step(pilot, app, ROUTINE_STEP)
         before = app.snapshot
         await pilot.press("t")
         await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
@@ -172,11 +164,7 @@ async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lo
         assert "!! temperature_C = 80 is outside" in screen_text(app)
         await pilot.press("escape")
         await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
-    client = await daemon.connect()
-    try:
-        record = await client.status()
-    finally:
-        await client.close()
+    record = await daemon_record(daemon)
     assert record["environment"] == before["environment"]  # no new entry
     assert [s["readings"] for s in record["sets"]] == [s["readings"] for s in before["sets"]]
     assert record["session"]["status"] == "open"
@@ -204,8 +192,7 @@ async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_con
 ):
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:
-        await start_session(pilot, app)
-        await run_until(pilot, app, lambda: app.snapshot["step_index"] == 1, "the routine step")
+        await start_and_reach_step(pilot, app, ROUTINE_STEP)
         await press_and_wait(pilot, app, "a")
         await until(pilot, lambda: readings_done(app) >= 1, "a first routine reading")
         with simulator.bench() as bench:

@@ -7,6 +7,9 @@ pictures and accept them with ``pytest tests/tui/test_screen_snapshots.py --snap
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
+import pytest
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.screens.setup import SetupScreen
@@ -16,18 +19,24 @@ from harness import ScreenHarness, load_snapshot, then_steady
 from test_screens import setup_defaults
 
 SIZE = (80, 24)
+AWAY = LinkStatus(False, "Not connected to the daemon — retrying…")
 
 
-def measure(name: str, link: LinkStatus | None = None) -> ScreenHarness:
-    """Return the measure screen fed the fixed snapshot ``name``."""
+def measure(name: str, link: LinkStatus | None = None) -> Callable[[], ScreenHarness]:
+    """Return a maker of the measure screen fed the fixed snapshot ``name``."""
     if link is None:
-        return ScreenHarness(MeasureScreen, load_snapshot(name))
-    return ScreenHarness(MeasureScreen, load_snapshot(name), link)
+        return lambda: ScreenHarness(MeasureScreen, load_snapshot(name))
+    return lambda: ScreenHarness(MeasureScreen, load_snapshot(name), link)
 
 
 def setup() -> ScreenHarness:
     """Return the setup form, filled with the fixed finished session's details."""
     return ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+
+
+def summary() -> ScreenHarness:
+    """Return the summary of the fixed finished session."""
+    return ScreenHarness(SummaryScreen, load_snapshot("finished"))
 
 
 def type_into(field_id: str, value: str):
@@ -39,63 +48,29 @@ def type_into(field_id: str, value: str):
     return action
 
 
-def test_setup_screen(snap_compare):
-    assert snap_compare(setup(), terminal_size=SIZE, run_before=then_steady())
+#: (picture name, app maker, keys pressed, action then) for each screen worth a picture.
+SCREENS = [
+    ("setup", setup, (), None),
+    ("setup_refusing_k_Q_of_2", setup, (), type_into("k_Q", "2")),
+    ("measure_collecting", measure("collecting"), (), None),
+    ("measure_reviewing_a_spike", measure("reviewing_spike"), (), None),
+    ("measure_flags_tab", measure("reviewing_spike"), ("4",), None),
+    ("measure_history_of_sets", measure("instrument_lost"), ("2",), None),
+    ("measure_plan", measure("instrument_lost"), ("3",), None),
+    ("measure_electrometer_disconnected", measure("instrument_lost"), (), None),
+    ("measure_without_the_daemon", measure("collecting", AWAY), (), None),
+    ("redo_reason_dialog", measure("reviewing_spike"), ("r",), None),
+    ("abort_confirmation_dialog", measure("collecting"), ("x",), None),
+    ("air_dialog_refusing_80_C", measure("collecting"), ("t",), type_into("temperature_C", "80")),
+    ("summary", summary, (), None),
+]
 
 
-def test_setup_screen_refusing_an_entry(snap_compare):
-    steps = then_steady(action=type_into("k_Q", "2"))
-    assert snap_compare(setup(), terminal_size=SIZE, run_before=steps)
-
-
-def test_measure_screen_while_collecting(snap_compare):
-    assert snap_compare(measure("collecting"), terminal_size=SIZE, run_before=then_steady())
-
-
-def test_measure_screen_reviewing_a_set_with_a_spike(snap_compare):
-    assert snap_compare(measure("reviewing_spike"), terminal_size=SIZE, run_before=then_steady())
-
-
-def test_measure_screen_flags_tab(snap_compare):
-    steps = then_steady("4")
-    assert snap_compare(measure("reviewing_spike"), terminal_size=SIZE, run_before=steps)
-
-
-def test_measure_screen_history_of_sets(snap_compare):
-    steps = then_steady("2")
-    assert snap_compare(measure("instrument_lost"), terminal_size=SIZE, run_before=steps)
-
-
-def test_measure_screen_plan(snap_compare):
-    steps = then_steady("3")
-    assert snap_compare(measure("instrument_lost"), terminal_size=SIZE, run_before=steps)
-
-
-def test_measure_screen_with_the_electrometer_disconnected(snap_compare):
-    assert snap_compare(measure("instrument_lost"), terminal_size=SIZE, run_before=then_steady())
-
-
-def test_measure_screen_without_the_daemon(snap_compare):
-    away = LinkStatus(False, "Not connected to the daemon — retrying…")
-    app = measure("collecting", away)
-    assert snap_compare(app, terminal_size=SIZE, run_before=then_steady())
-
-
-def test_redo_reason_dialog(snap_compare):
-    steps = then_steady("r")
-    assert snap_compare(measure("reviewing_spike"), terminal_size=SIZE, run_before=steps)
-
-
-def test_abort_confirmation_dialog(snap_compare):
-    steps = then_steady("x")
-    assert snap_compare(measure("collecting"), terminal_size=SIZE, run_before=steps)
-
-
-def test_new_temperature_and_pressure_refusing_80_degrees(snap_compare):
-    steps = then_steady("t", action=type_into("temperature_C", "80"))
-    assert snap_compare(measure("collecting"), terminal_size=SIZE, run_before=steps)
-
-
-def test_summary_screen(snap_compare):
-    app = ScreenHarness(SummaryScreen, load_snapshot("finished"))
-    assert snap_compare(app, terminal_size=SIZE, run_before=then_steady())
+@pytest.mark.parametrize(
+    ("make_app", "keys", "action"),
+    [screen[1:] for screen in SCREENS],
+    ids=[screen[0] for screen in SCREENS],
+)
+def test_screen_picture(snap_compare, make_app, keys, action):
+    steps = then_steady(*keys, action=action)
+    assert snap_compare(make_app(), terminal_size=SIZE, run_before=steps)

@@ -6,25 +6,20 @@ operator backs out); the measure screen sends it to the daemon.
 
 from __future__ import annotations
 
-from typing import ClassVar
-
 from chargebook.tui.checks import required_text
+from chargebook.tui.screens.dialog_base import Dialog
 from chargebook.tui.widgets.fields import Field
 from textual import on
 from textual.app import ComposeResult
-from textual.binding import Binding, BindingType
-from textual.containers import Horizontal, Vertical
-from textual.screen import ModalScreen
+from textual.containers import Vertical
 from textual.widgets import Button, Input, Label, Static
 
 
-class ReasonScreen(ModalScreen[str | None]):
+class ReasonScreen(Dialog[str | None]):
     """Ask for a reason in words; dismiss with it, or with None if the operator backs out."""
 
-    BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "back", "Back", show=True)]
-
     def __init__(self, title: str, question: str, confirm_label: str, *, warning: str = "") -> None:
-        super().__init__(classes="dialog-screen")
+        super().__init__(backed_out=None)
         self.dialog_title = title
         self.question = question
         self.confirm_label = confirm_label
@@ -37,12 +32,7 @@ class ReasonScreen(ModalScreen[str | None]):
                 yield Static(self.warning, classes="dialog-warning", markup=False)
             yield Static(self.question, markup=False)
             yield Field("Reason", "reason", check=required_text("reason"))
-            with Horizontal(classes="dialog-buttons"):
-                yield Button(self.confirm_label, id="confirm", variant="primary", compact=True)
-                yield Button("Back (Esc)", id="back", compact=True)
-
-    def on_mount(self) -> None:
-        self.query_one(Input).focus()
+            yield self.buttons(self.confirm_label)
 
     @property
     def reason_field(self) -> Field:
@@ -56,11 +46,6 @@ class ReasonScreen(ModalScreen[str | None]):
         if not self.reason_field.recheck():
             return
         self.dismiss(self.reason_field.value)
-
-    @on(Button.Pressed, "#back")
-    def action_back(self) -> None:
-        """Dismiss with None: nothing is sent to the daemon."""
-        self.dismiss(None)
 
 
 class ConfirmScreen(ReasonScreen):

@@ -2,37 +2,31 @@
 
 from __future__ import annotations
 
-from collections.abc import Awaitable, Callable, Mapping
-from typing import Any, ClassVar
+from collections.abc import Mapping
+from typing import Any
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
+from chargebook.tui.screens.base import Sender
+from chargebook.tui.screens.dialog_base import Dialog
 from chargebook.tui.widgets.environment_fields import EnvironmentFields
 from textual import on, work
 from textual.app import ComposeResult
-from textual.binding import Binding, BindingType
-from textual.containers import Horizontal, Vertical
-from textual.screen import ModalScreen
+from textual.containers import Vertical
 from textual.widgets import Button, Input, Label, Static
-
-#: Sends one request to the daemon and returns its result (``ConsoleApp.call_daemon``).
-Sender = Callable[..., Awaitable[Any]]
-
 
 READ_THE_INSTRUMENTS = "Read the thermometer and barometer at the chamber, then Enter."
 
 
-class EnvironmentScreen(ModalScreen[bool]):
+class EnvironmentScreen(Dialog[bool]):
     """Enter a new temperature and pressure; dismissed with True once the daemon recorded them.
 
     A value the console or the daemon refuses stays on screen with the reason under its entry;
     nothing is sent until every entry is acceptable, and nothing recorded is touched.
     """
 
-    BINDINGS: ClassVar[list[BindingType]] = [Binding("escape", "back", "Back", show=True)]
-
     def __init__(self, send: Sender, current: Mapping[str, Any] | None = None) -> None:
-        super().__init__(classes="dialog-screen")
+        super().__init__(backed_out=False)
         self.send = send
         self.current = current
 
@@ -44,12 +38,7 @@ class EnvironmentScreen(ModalScreen[bool]):
             )
             yield EnvironmentFields(self.current)
             yield Static("", id="environment-problem", classes="dialog-warning", markup=False)
-            with Horizontal(classes="dialog-buttons"):
-                yield Button("Record (Enter)", id="record", variant="primary", compact=True)
-                yield Button("Back (Esc)", id="back", compact=True)
-
-    def on_mount(self) -> None:
-        self.query_one(Input).focus()
+            yield self.buttons("Record (Enter)")
 
     @property
     def fields(self) -> EnvironmentFields:
@@ -57,7 +46,7 @@ class EnvironmentScreen(ModalScreen[bool]):
         return self.query_one(EnvironmentFields)
 
     @on(Input.Submitted)
-    @on(Button.Pressed, "#record")
+    @on(Button.Pressed, "#confirm")
     def record(self) -> None:
         """Send the entries to the daemon if every one is acceptable."""
         params = self.fields.params()
@@ -83,8 +72,3 @@ class EnvironmentScreen(ModalScreen[bool]):
 
     def _say(self, message: str) -> None:
         self.query_one("#environment-problem", Static).update(message)
-
-    @on(Button.Pressed, "#back")
-    def action_back(self) -> None:
-        """Leave without recording anything."""
-        self.dismiss(False)
