@@ -17,6 +17,7 @@ from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.widgets.fields import Field
 from console_driver import (
+    allowed,
     daemon_record,
     press_and_wait,
     run_until,
@@ -219,3 +220,25 @@ def readings_done(app: ConsoleApp) -> int:
 def instrument_connected(app: ConsoleApp) -> bool:
     """Return whether the console's latest snapshot says the electrometer is connected."""
     return bool(app.snapshot["instrument"]["connected"])
+
+
+async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_by_hand(
+    start_simulator, start_daemon, metadata
+):
+    simulator = start_simulator(profile="tallyline")  # no remote bias supply
+    daemon = start_daemon(simulator)
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await run_until(
+            pilot, app, lambda: "step.manual_done" in allowed(app), "a step done by hand"
+        )
+        shown = " ".join(screen_text(app).split())
+        asked = app.snapshot["prompt"]["text"]  # the daemon's words, e.g. "Turn the bias to ..."
+        assert "step.arm" not in allowed(app)  # no readings before the switch is turned
+        await press_and_wait(pilot, app, "d")
+        await run_until(pilot, app, lambda: state(app) == "finished", "the end of the plan")
+    assert "by hand" in asked
+    assert f"Do now: {asked}" in shown  # said in plain words on the measure screen
+    record = await daemon_record(daemon)
+    assert record["session"]["status"] == "finished"

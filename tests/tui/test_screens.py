@@ -6,6 +6,7 @@ test_console_e2e.py.
 
 from __future__ import annotations
 
+from chargebook.acquire.session_meta import validate_metadata
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
@@ -49,6 +50,33 @@ async def test_a_key_sends_its_action_only_when_the_daemon_allows_it():
         await pilot.press("k")
         await pilot.pause()
         assert app.sent == [("set.accept", {})]
+
+
+async def test_the_mouse_does_what_the_keys_do_and_a_disabled_button_does_nothing():
+    app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.click("#do-arm")  # not allowed while reviewing: the button is disabled
+        await pilot.click("#do-accept")
+        await pilot.pause()
+    assert app.sent == [("set.accept", {})]
+
+
+async def test_p_pauses_or_resumes_as_the_daemon_allows():
+    paused = load_snapshot("collecting")
+    paused["state"], paused["paused_from"] = "paused", "collecting"
+    paused["allowed"] = ["environment.set", "session.resume", "session.stop", "session.abort"]
+    app = ScreenHarness(MeasureScreen, paused)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        assert "p Resume" in screen_text(app)
+        await pilot.press("p")
+        await pilot.pause()
+        app.console_screen.show(load_snapshot("collecting"), app.initial_link)
+        await pilot.pause()
+        assert "p Pause" in screen_text(app)
+        await pilot.press("p")
+        await pilot.pause()
+    assert app.sent == [("session.resume", {}), ("session.pause", {})]
 
 
 async def test_redo_asks_for_a_reason_and_refuses_an_empty_one():
@@ -124,6 +152,23 @@ async def test_the_setup_form_checks_entries_as_typed_and_rechecks_when_the_unit
         screen.query_one("#choice-pressure_unit", Select).value = "kPa"
         await pilot.pause()
         assert pressure.problem == ""  # the same 101.3, now in kPa, is accepted
+
+
+async def test_the_setup_form_gives_metadata_the_daemons_own_check_accepts():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=SIZE) as pilot:
+        form = app.console_screen.form
+        form.query_one("#field-chamber_serial", Field).input.value = "4417"
+        form.query_one("#field-tolerance_pct", Field).input.value = "daily"
+        form.query_one("#field-calibration_date", Field).input.value = "2024-11-05"
+        await pilot.pause()
+        metadata = form.metadata()
+    assert metadata is not None
+    assert metadata["chamber_serial"] == "4417"  # a serial number stays text
+    assert metadata["N_Dw"] == 0.054 and metadata["N_Dw_unit"] == "Gy/nC"
+    checked = validate_metadata(metadata)  # the daemon's own check of session.start
+    assert checked.tolerance_pct == 3.0  # "daily": AAPM TG-142 output constancy, 3 %
+    assert checked.calibration_date == "2024-11-05"
 
 
 async def test_not_connected_and_instrument_lost_are_said_plainly():

@@ -6,6 +6,7 @@ The keys are those of ``chargebook.acquire.session_meta`` (the daemon checks the
 
 from __future__ import annotations
 
+import datetime
 from collections.abc import Mapping
 from typing import Any
 
@@ -66,6 +67,30 @@ NUMBER_FIELDS: tuple[tuple[str, str, checks.Check, bool], ...] = (
 )
 
 
+#: (key, label) of the optional text entries about the calibration and the session.
+OPTIONAL_TEXT: tuple[tuple[str, str], ...] = (
+    ("calibration_date", "Calibrated on"),
+    ("certificate", "Certificate"),
+    ("beam_quality", "Beam quality"),
+    ("notes", "Notes"),
+)
+#: Entries whose text is sent as a number (or, for the tolerance, a TG-142 name).
+NUMBER_KEYS = frozenset({"N_Dw", "tolerance_pct", *(entry[0] for entry in NUMBER_FIELDS)})
+
+
+def check_date(value: str) -> object:
+    """Check a date typed as YYYY-MM-DD."""
+    try:
+        return datetime.date.fromisoformat(value.strip())
+    except ValueError:
+        raise ValueError(
+            f"calibration_date = {value.strip()!r} is not a date (allowed: YYYY-MM-DD)"
+        ) from None
+
+
+OPTIONAL_CHECKS: dict[str, checks.Check] = {"calibration_date": checks.optional(check_date)}
+
+
 def check_tolerance(value: str) -> object:
     """Check a tolerance typed as a number in % or as daily, monthly or annual (TG-142)."""
     return dose.tolerance_pct(checks.as_typed(value))
@@ -112,6 +137,9 @@ class SessionForm(Vertical):
             check=checks.optional(check_tolerance),
             placeholder="empty: TG-142 monthly",
         )
+        for key, label in OPTIONAL_TEXT:
+            check = OPTIONAL_CHECKS.get(key)
+            yield Field(f"{label} (optional)", key, _shown(value(key)), check=check)
 
     @on(Select.Changed, "#choice-N_Dw_unit")
     def unit_changed(self, event: Select.Changed) -> None:
@@ -128,10 +156,11 @@ class SessionForm(Vertical):
         }
         metadata["N_Dw_unit"] = self.N_Dw_unit
         for field in fields:
+            name = field.field_name
             if field.value:
-                metadata[field.field_name] = checks.as_typed(field.value)
-        for key, _label in (entry for _heading, entries in TEXT_SECTIONS for entry in entries):
-            metadata[key] = self.query_one(f"#field-{key}", Field).value
+                metadata[name] = (
+                    checks.as_typed(field.value) if name in NUMBER_KEYS else field.value
+                )
         return metadata
 
     def show_refusal(self, field_name: str | None, message: str) -> bool:
