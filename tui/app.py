@@ -164,6 +164,8 @@ class ConsoleApp(App[int]):
         if self.snapshot is None:
             if current is not None:
                 current.show(self.snapshot, self.link)
+            else:
+                self._say_waiting()
             return
         wanted = snapshot_view.screen_for(self.snapshot)
         if current is not None and (current.kind == wanted or current.holds_screen()):
@@ -177,6 +179,12 @@ class ConsoleApp(App[int]):
             self.push_screen(screen)
         else:
             self.switch_screen(screen)
+
+    def _say_waiting(self) -> None:
+        """Say, before the first snapshot, where the console is looking for the daemon."""
+        where = f"the daemon's socket: {self.socket_path}"
+        line = f"!! {self.link.text}" if not self.link.connected else self.link.text
+        self.query_one("#connecting", Static).update(f"{line}\n{where}\nCtrl+Q quits.")
 
     def _new_screen(self, kind: str) -> ConsoleScreen:
         if kind == "measure":

@@ -7,6 +7,7 @@ test_console_e2e.py.
 from __future__ import annotations
 
 from chargebook.acquire.session_meta import validate_metadata
+from chargebook.tui.app import ConsoleApp
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
@@ -211,3 +212,17 @@ async def test_words_from_the_daemon_and_the_operator_are_shown_exactly_as_writt
         shown = screen_text(app)
     assert "[b]cable[/b] moved" in shown
     assert "leakage [high] in words" in shown
+
+
+async def test_with_no_daemon_yet_the_console_says_so_and_where_it_looks(tmp_path):
+    socket_path = tmp_path / "no-daemon-here.sock"
+    app = ConsoleApp(socket_path)
+    async with app.run_test(size=SIZE) as pilot:
+        for _ in range(100):
+            if "Not connected" in screen_text(app):
+                break
+            await pilot.pause(0.05)
+        shown = screen_text(app)
+        await pilot.press("ctrl+q")
+    assert shown.startswith("!! Not connected to the daemon — retrying…")
+    assert str(socket_path) in "".join(shown.split())  # however the long path wraps
