@@ -6,7 +6,9 @@ Three parts, wired here:
   engine's commands in order (zero, start, stop, set bias, and the bench's beam and bias
   switch), reads samples while a reading is armed (pushed lines in stream mode, ``read_charge``
   polled at :data:`POLL_INTERVAL_S` in query mode), records every raw line as traffic, and
-  reconnects with backoff when the instrument goes away;
+  reconnects with backoff when the instrument goes away. The raw lines of one burst (a pushed
+  stream drained up to :data:`MAX_SAMPLES_PER_BATCH` lines, or one command's exchange) are
+  committed together, before the engine hears of any sample among them;
 * the :class:`~chargebook.acquire.engine.Engine`, driven only from the asyncio loop;
 * the :class:`~chargebook.acquire.server.RpcServer` on the Unix socket.
 
@@ -51,6 +53,12 @@ POLL_INTERVAL_S = 0.05
 TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
+#: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
+MAX_SAMPLES_PER_BATCH = 1024
+#: A pause between pushed lines longer than this ends a burst, s.
+BURST_GAP_S = 0.002
+#: How each traffic direction is written in the store.
+_DIRECTION_TEXT = {direction: direction.value for direction in TrafficDirection}
 #: Timeouts in a row after which the instrument counts as lost.
 TIMEOUTS_BEFORE_LOST = 3
 #: Reconnection backoff: first pause and longest pause, s.
@@ -76,8 +84,10 @@ class DaemonOptions:
 class InstrumentLink(threading.Thread):
     """The thread that owns the electrometer (see the module docstring).
 
-    ``post(kind, payload)`` is called from this thread for ``sample`` ((generation, Sample)),
-    ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
+    ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
+    Sample)), ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
+    ``flush()`` commits the raw lines recorded so far; it is called before every ``post`` and
+    after every turn of the thread's loop, so no line waits longer than one turn.
     """
 
     def __init__(
@@ -87,10 +97,12 @@ class InstrumentLink(threading.Thread):
         *,
         bench: Any = None,
         clock: Callable[[], float] = time.monotonic,
+        flush: Callable[[], None] = lambda: None,
     ) -> None:
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
         self.post = post
+        self.flush = flush
         self.bench = bench
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
@@ -126,6 +138,12 @@ class InstrumentLink(threading.Thread):
         finally:
             with contextlib.suppress(Exception):
                 self.electrometer.close()
+            self.flush()
+
+    def _hand_over(self, kind: str, payload: Any) -> None:
+        """Commit the raw lines recorded so far, then post ``kind`` to the engine's loop."""
+        self.flush()
+        self.post(kind, payload)
 
     def _connect(self) -> None:
         delay_s = RECONNECT_FIRST_S
@@ -140,7 +158,7 @@ class InstrumentLink(threading.Thread):
                 delay_s = min(delay_s * 2, RECONNECT_MAX_S)
                 continue
             self.connected, self._timeouts = True, 0
-            self.post("connected", self._identity())
+            self._hand_over("connected", self._identity())
             return
 
     def _identity(self) -> str | None:
@@ -198,7 +216,7 @@ class InstrumentLink(threading.Thread):
             elif kind == "command":
                 self._execute(value)
             if self.generation is not None and self.inbox.empty():
-                self._read_sample(pushes)
+                self._read_samples(pushes)
         except InstrumentDisconnected as error:
             self._lost(f"the electrometer was disconnected: {error}")
         except InstrumentTimeout as error:
@@ -208,11 +226,13 @@ class InstrumentLink(threading.Thread):
         except ProtocolError as error:
             log.warning("rejected a line from the electrometer: %s", error)
         except InstrumentError as error:
-            self.post("fault", f"the electrometer refused a command: {error}")
+            self._hand_over("fault", f"the electrometer refused a command: {error}")
+        finally:
+            self.flush()
 
     def _lost(self, message: str) -> None:
         self.connected = False
-        self.post("lost", message)
+        self._hand_over("lost", message)
         with contextlib.suppress(Exception):
             self.electrometer.close()
 
@@ -244,20 +264,42 @@ class InstrumentLink(threading.Thread):
             else:
                 self.bench.turn_bias(command.value)
         except BenchError as error:
-            self.post("fault", str(error))
+            self._hand_over("fault", str(error))
 
-    def _read_sample(self, pushes: bool) -> None:
-        if pushes:
-            sample = self.electrometer.next_sample(POLL_INTERVAL_S)
-        else:
-            now_s = self.clock()
-            if now_s < self._next_poll_s:
-                return
-            self._next_poll_s = now_s + POLL_INTERVAL_S
-            sample = self.electrometer.read_charge()
-        self._timeouts = 0
-        if sample is not None and sample.t_s >= self.fresh_after_s:
-            self.post("sample", (self.generation, sample))
+    def _read_samples(self, pushes: bool) -> None:
+        samples: list[Sample] = []
+        try:
+            if pushes:
+                self._drain_pushed(samples)
+            else:
+                now_s = self.clock()
+                if now_s < self._next_poll_s:
+                    return
+                self._next_poll_s = now_s + POLL_INTERVAL_S
+                samples.append(self.electrometer.read_charge())
+            self._timeouts = 0
+        finally:  # samples read before a disconnection are still handed over
+            fresh = [s for s in samples if s.t_s >= self.fresh_after_s]
+            if fresh:
+                self._hand_over("samples", (self.generation, fresh))
+
+    def _drain_pushed(self, samples: list[Sample]) -> None:
+        """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next one
+        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH.
+
+        A rejected line is logged and skipped; the burst goes on.
+        """
+        timeout_s = POLL_INTERVAL_S
+        while len(samples) < MAX_SAMPLES_PER_BATCH:
+            try:
+                sample = self.electrometer.next_sample(timeout_s)
+            except ProtocolError as error:
+                log.warning("rejected a line from the electrometer: %s", error)
+            else:
+                if sample is None:
+                    return
+                samples.append(sample)
+            timeout_s = BURST_GAP_S
 
 
 # --------------------------------------------------------------------------------- daemon
@@ -272,6 +314,7 @@ class Daemon:
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
+        self._traffic: list[tuple[int | None, float, str, bytes]] = []  # not yet committed
         self._generation = 0
         self._sampled_reading: object = None
         self._published_seq = -1
@@ -316,17 +359,29 @@ class Daemon:
         def post(kind: str, payload: Any) -> None:
             loop.call_soon_threadsafe(self._events.put_nowait, (kind, payload))
 
-        self.link = InstrumentLink(electrometer, post, bench=bench, clock=self.clock)
+        self.link = InstrumentLink(
+            electrometer, post, bench=bench, clock=self.clock, flush=self._commit_traffic
+        )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
-        engine, store = self.engine, self.store
-        if store is None:
+        """Keep one raw line for the next commit (called in the instrument thread only)."""
+        session_id = self.engine.session_id if self.engine is not None else None
+        self._traffic.append((session_id, t_s, _DIRECTION_TEXT[direction], bytes(raw)))
+
+    def _commit_traffic(self) -> None:
+        """Commit the raw lines kept so far in one transaction (instrument thread only)."""
+        lines, self._traffic = self._traffic, []
+        if not lines or self.store is None:
             return
-        session_id = engine.session_id if engine is not None else None
         try:
-            store.add_traffic(session_id, t_s, TrafficDirection(direction).value, bytes(raw))
+            self.store.add_traffic_many(lines)
         except Exception:  # a traffic record must never stop the instrument thread
-            log.exception("could not record a raw instrument line")
+            log.exception("could not record %d raw instrument lines at once", len(lines))
+            for line in lines:  # save every line that can be saved
+                try:
+                    self.store.add_traffic(*line)
+                except Exception:
+                    log.exception("could not record a raw instrument line: %r", line[3])
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
@@ -371,11 +426,8 @@ class Daemon:
         engine = self.engine
         while True:
             kind, payload = await self._events.get()
-            if kind == "sample":
-                generation, sample = payload
-                if generation != self._generation or not isinstance(sample, Sample):
-                    continue  # a sample of a reading already captured or dropped
-                engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+            if kind == "samples":
+                self._feed(*payload)
             elif kind == "connected":
                 engine.instrument_back(payload)
                 if payload:
@@ -385,6 +437,15 @@ class Daemon:
             elif kind == "fault":
                 engine.instrument_lost(payload, still_connected=True)
             await self.after_change()
+
+    def _feed(self, generation: int | None, samples: list[Sample]) -> None:
+        """Give the engine the samples of the reading now armed, until one completes it."""
+        assert self.engine is not None
+        engine = self.engine
+        for sample in samples:
+            if generation != self._generation or engine.reading is not self._sampled_reading:
+                return  # the rest belong to a reading already captured or dropped
+            engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
 
     def _identified(self, identity: str) -> None:
         assert self.store is not None and self.engine is not None
