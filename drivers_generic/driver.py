@@ -111,8 +111,9 @@ class ProfileElectrometer:
             line = self.transport.read_line(max(deadline - time.monotonic(), 0.0))
             if line is None:
                 return None
-            if not self._is_confirmation(line):
-                return self._reading(line)
+            sample = self._pushed(line)
+            if sample is not None:
+                return sample
 
     def set_bias(self, volts: float) -> None:
         """Set the chamber bias in volts, signed; refused outside the profile's limits."""
@@ -230,6 +231,22 @@ class ProfileElectrometer:
             raise InstrumentReportedError(
                 f"{self.profile.name} refused the command: error {code} ({meaning})"
             )
+
+    def _pushed(self, line: ReceivedLine) -> Sample | None:
+        """Return the reading a pushed line holds, or None for a stray confirmation (a late ack).
+
+        The line is parsed as a reading first (the common case in a stream: decoded once).
+        """
+        try:
+            sample = self._reading(line)
+        except ProtocolError:
+            if self._is_confirmation(line):
+                return None
+            raise
+        pattern = self.profile.confirmation.ack_pattern
+        if pattern is not None and pattern.fullmatch(sample.raw):
+            return None
+        return sample
 
     def _is_confirmation(self, line: ReceivedLine) -> bool:
         """Return True for a stray confirmation (a late ack), which carries no reading."""

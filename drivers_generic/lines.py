@@ -65,24 +65,24 @@ def parse_reading(fmt: ReadingFormat, raw: bytes, t_s: float, encoding: str = "a
     match = fmt.pattern.fullmatch(text)
     if match is None:
         raise ProtocolError(f"line does not match the reading pattern: {text[:80]!r}", raw)
-    value = parse_number(match["value"], fmt.number_format, raw)
-    unit = match.groupdict().get("unit") or fmt.unit
+    groups = match.groupdict()
+    value = parse_number(groups["value"], fmt.number_format, raw)
+    unit = groups.get("unit") or fmt.unit
     if unit not in CHARGE_UNITS_IN_nC:
         raise ProtocolError(f"unknown charge unit {unit!r}", raw)
     charge_nC = value * CHARGE_UNITS_IN_nC[unit]
     if not math.isfinite(charge_nC):
         raise ProtocolError(f"charge {value!r} {unit} is not finite in nC", raw)
-    status = _status(fmt, match, raw)
+    status = _status(fmt, groups.get("status"), raw)
     if fmt.overrange_abs is not None and abs(value) >= fmt.overrange_abs:
         status = ReadingStatus.OVERRANGE
     complete = False
     if fmt.complete_group is not None:
-        complete = match[fmt.complete_group] == fmt.complete_value
+        complete = groups[fmt.complete_group] == fmt.complete_value
     return Sample(t_s=t_s, charge_nC=charge_nC, status=status, complete=complete, raw=text)
 
 
-def _status(fmt: ReadingFormat, match: re.Match[str], raw: bytes) -> ReadingStatus:
-    word = match.groupdict().get("status")
+def _status(fmt: ReadingFormat, word: str | None, raw: bytes) -> ReadingStatus:
     if word is None:
         return ReadingStatus.OK
     try:
