@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.protocol import Method
+from chargebook.tui import text
 from e2e_support import chargebook_command
 
 pytestmark = pytest.mark.e2e
@@ -90,7 +91,11 @@ KEYS = ((Method.STEP_MANUAL_DONE, "d"), (Method.SET_ACCEPT, "k"), (Method.STEP_A
 
 
 async def next_key(terminal: Terminal, client, snapshot: dict) -> dict:
-    """Press the key of the next move the daemon allows, then return the next snapshot."""
+    """Press the key of the next move the daemon allows, once the console shows the same state
+    (it hears of each change a moment after this test's own client), then return the next
+    snapshot."""
+    await terminal.shows(f"Step {snapshot['step_index'] + 1} of")
+    await terminal.shows(text.state(snapshot["state"]))
     for method, key in KEYS:
         if method in snapshot["allowed"]:
             terminal.keys(key)
