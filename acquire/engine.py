@@ -12,6 +12,13 @@ a new attempt begins at the next arm. Stop, abort and pause are distinct: stop e
 as finished with the sets accepted so far; abort ends it as aborted; pause holds it (a reading in
 progress is dropped and logged) until resume.
 
+Time: a reading is captured only when a sample arrives, and its time is the receive time of
+that sample (the ``t_s`` of one raw line of traffic, which the reading links to). Clock ticks only
+end a settling wait. The clock is read when a reading is armed; that time is recorded with the
+reading (``armed_t_s`` in its ``reading_recorded`` event). So everything the engine decided can
+be decided again from the recorded traffic, the arming times and the operator's actions, which
+is what a replay does (``chargebook.acquire.replay``).
+
 Restart: :meth:`Engine.restore` picks up the store's open session. A set that was collecting
 when the daemon died is marked interrupted with its readings kept: the operator continues it
 (arm) or redoes it, as after an instrument disconnect. A physicist expects both choices after a
@@ -120,6 +127,7 @@ class Engine:
         self.instrument_message: str | None = None
         self.identity: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
+        self.reading_traffic_id: int | None = None  # the raw line of the latest sample
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
@@ -229,6 +237,7 @@ class Engine:
         self.integration_s = {}
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
+        self._event(actor, live.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale)
         if self.identity is not None:
             self._event(
                 DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
@@ -308,10 +317,10 @@ class Engine:
         self._changed()
 
     def capture(self, actor: str = DAEMON_ACTOR) -> None:
-        """Capture the charge integrated so far as a manual reading."""
+        """Capture the charge integrated so far (as of the latest sample) as a manual reading."""
         self._require(Method.READING_CAPTURE)
-        assert self.reading is not None
-        captured = self.reading.capture_now(self.clock())
+        assert self.reading is not None and self.reading.last_t_s is not None
+        captured = self.reading.capture_now(self.reading.last_t_s)
         if captured is not None:
             self._record(captured, actor)
         self._changed()
@@ -401,30 +410,37 @@ class Engine:
         self._changed()
 
     # ---------------------------------------------------------------- instrument input
-    def on_sample(self, t_s: float, charge_nC: float, complete: bool = False, status: str = "ok"):
-        """Take one sample from the instrument (charge in nC, instrument clock in s)."""
+    def on_sample(
+        self,
+        t_s: float,
+        charge_nC: float,
+        complete: bool = False,
+        status: str = "ok",
+        traffic_id: int | None = None,
+    ) -> None:
+        """Take one sample from the instrument (charge in nC, receive time in s on the driver's
+        clock, the id of the raw traffic line it was read from when recorded)."""
         if self.reading is None:
             return
         self.reading_status = status
+        self.reading_traffic_id = traffic_id
         captured = self.reading.feed(t_s, charge_nC, complete)
         if captured is not None:
             self._record(captured, DAEMON_ACTOR)
             self._changed()
 
     def tick(self, now_s: float | None = None) -> None:
-        """Advance timers (settling wait, hold time, timed leakage) to ``now_s``."""
+        """End a settling wait that is over at ``now_s`` (s on the engine's clock).
+
+        Readings are not captured here: the hold time and a timed integration end with the
+        first sample received after them (see the module docstring).
+        """
         now_s = self.clock() if now_s is None else now_s
-        if self.settle_until_s is not None and self.state is S.SETTLING and self.reading is None:
-            if now_s >= self.settle_until_s:
-                self.settle_until_s = None
-                self._begin_reading(DAEMON_ACTOR, "settling wait over")
-                self._changed()
-            return
-        if self.reading is not None:
-            captured = self.reading.tick(now_s)
-            if captured is not None:
-                self._record(captured, DAEMON_ACTOR)
-                self._changed()
+        waiting = self.state is S.SETTLING and self.reading is None
+        if waiting and self.settle_until_s is not None and now_s >= self.settle_until_s:
+            self.settle_until_s = None
+            self._begin_reading(DAEMON_ACTOR, "settling wait over")
+            self._changed()
 
     def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
         """The electrometer went away (or failed a command, ``still_connected``): a set in
@@ -515,6 +531,7 @@ class Engine:
             baseline_nC=0.0 if zeroed else None,
         )
         self.reading_status = "ok"
+        self.reading_traffic_id = None
         if self._can(Capability.ZERO):
             self._issue("zero")
         if self._can(Capability.INTEGRATE):
@@ -534,6 +551,8 @@ class Engine:
         step, active = self.step, self.active
         assert step is not None and active is not None and self.session_id is not None
         settling = self._settling_needed()
+        assert self.reading is not None
+        armed_t_s = self.reading.armed_t_s
         self.reading = None
         if self._can(Capability.INTEGRATE):
             self._issue("stop")
@@ -546,6 +565,7 @@ class Engine:
             captured.capture.value,
             settling,
             self.reading_status,
+            self.reading_traffic_id,
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s
@@ -558,6 +578,7 @@ class Engine:
             capture=captured.capture.value,
             settling=settling,
             integration_s=captured.integration_s,
+            armed_t_s=armed_t_s,
         )
         if self._settling_needed() or active.used_count < int(step.readings):
             self._begin_reading(actor, "reading recorded")

@@ -197,6 +197,9 @@ def _plain(stats: Any) -> dict[str, Any]:
 
 # ----------------------------------------------------------------------------- thresholds
 THRESHOLDS_EVENT = "thresholds"
+#: The event that records, at session start, the instrument profile and the daemon's time scale
+#: (what a replay needs to read the traffic and to time the plan's waits as the daemon did).
+ACQUISITION_EVENT = "acquisition"
 
 
 def load_thresholds(path: str | Path) -> Thresholds:

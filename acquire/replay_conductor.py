@@ -1,0 +1,356 @@
+"""The replay's loop: the recorded traffic, line by line, through the real driver and engine.
+
+The daemon decides from the wall clock when to poll the electrometer and hears the operator
+whenever they act. A replay must make every one of those moments the same, so the
+:class:`Conductor` takes them from the recording instead: it walks the recorded lines in order
+and, for each,
+
+* a poll (the profile's read command): polls through the driver and gives the sample to the
+  engine if the daemon would have (a reading is armed, every command the engine issued has
+  been sent, and the line came after the last command's answer); otherwise the sample was
+  stale, as it was for the daemon, and is dropped;
+* any other command: sends the engine's next command through the driver (it must be the one
+  recorded); the profile's identify command is sent as the daemon does after a reconnection;
+* a line the instrument sent unasked (push mode): reads it through the driver, as above;
+
+and applies each recorded input (the operator's actions, the instrument lost or back) after
+the lines recorded before it. Nothing is skipped: a line the engine did not want is still sent
+and read, so the simulated instrument stays in step.
+
+A strict conductor (an exact replay) raises :class:`Divergence` at the first line or input that
+does not fit. A what-if conductor (another plan) accepts a command sent with other values
+(another bias), and stops with :class:`WhatIfStop` where the recording holds nothing for what
+the plan asks (a reading more than was taken).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+from collections import deque
+from collections.abc import Callable, Sequence
+from typing import Any
+
+from chargebook.acquire.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.protocol import EngineState
+from chargebook.acquire.replay_recording import RecordedInput, RecordedLine
+from chargebook.acquire.replay_traffic import TX, Divergence, TrafficFollower, TrafficLogError
+from chargebook.acquire.states import IllegalTransition
+from chargebook.corrections.errors import InputError
+from chargebook.drivers_generic.interface import (
+    Capability,
+    InstrumentError,
+    ProtocolError,
+    Sample,
+)
+
+log = logging.getLogger(__name__)
+
+#: Longest wait for a line the playback must send unasked, in wall seconds.
+UNASKED_WAIT_S = 10.0
+#: Commands for the bench (the simulated linac and bias switch), not for the electrometer.
+BENCH_ACTIONS = ("beam", "bench_bias")
+
+
+class WhatIfStop(Exception):
+    """A what-if replay cannot go on: the recording holds nothing for what the plan asks."""
+
+
+class Pacer:
+    """Keeps the replay to the recorded pace divided by ``speed`` (0: no waiting at all)."""
+
+    def __init__(
+        self,
+        speed: float,
+        *,
+        clock: Callable[[], float] = time.monotonic,
+        sleep: Callable[[float], None] = time.sleep,
+    ) -> None:
+        self.speed = speed
+        self.clock = clock
+        self.sleep = sleep
+        self._anchor: tuple[float, float] | None = None  # (wall s, recorded s)
+
+    def wait_until(self, recorded_t_s: float) -> None:
+        """Sleep until the wall time that corresponds to ``recorded_t_s``."""
+        if self.speed == 0:
+            return
+        if self._anchor is None:
+            self._anchor = (self.clock(), recorded_t_s)
+            return
+        wall_s, anchor_s = self._anchor
+        pause_s = wall_s + (recorded_t_s - anchor_s) / self.speed - self.clock()
+        if pause_s > 0:
+            self.sleep(pause_s)
+
+
+class ArmingClock:
+    """The engine's clock in a replay: the time the original armed each reading.
+
+    The engine reads its clock when it arms a reading (and to start a settling wait). While
+    the replay has recorded ``k`` readings, the next one to be armed is the original's
+    reading ``k``, so the clock reads that reading's arming time; past the last recorded
+    reading (a reading the original dropped) it reads ``after``, the latest line's time.
+    """
+
+    def __init__(self, armed_times_s: Sequence[float], after: Callable[[], float]) -> None:
+        self.armed_times_s = tuple(armed_times_s)
+        self.after = after
+        self.recorded: Callable[[], int] = lambda: 0
+
+    def __call__(self) -> float:
+        k = self.recorded()
+        return self.armed_times_s[k] if k < len(self.armed_times_s) else self.after()
+
+
+class Conductor:
+    """Runs the replay loop (see the module docstring) until the recording is used up."""
+
+    def __init__(
+        self,
+        engine: Engine,
+        driver: Any,
+        follower: TrafficFollower,
+        inputs: Sequence[RecordedInput],
+        *,
+        strict: bool,
+        pacer: Pacer,
+        actor: Callable[[str], str],
+        original_lines: Sequence[RecordedLine] | None = None,
+        session_id: int | None = None,
+    ) -> None:
+        self.engine = engine
+        self.driver = driver
+        self.follower = follower
+        self.inputs = list(inputs)
+        self.strict = strict
+        self.pacer = pacer
+        self.actor = actor
+        self.original_lines = original_lines
+        self.session_id = session_id
+        profile = driver.profile
+        self.push = bool(profile.capabilities & {Capability.STREAM, Capability.PUSH_READINGS})
+        self.poll_line = _first_line(profile, "read")
+        self.identify_line = _first_line(profile, "identify")
+        self.pending: deque[Command] = deque()
+        self.fresh_after_s = -math.inf
+        self._next_input = 0
+
+    # -- the loop ----------------------------------------------------------------------------
+    def run(self) -> None:
+        """Play every recorded line and input; raise Divergence or WhatIfStop if they don't fit."""
+        lines = self.follower.lines
+        while True:
+            self._apply_inputs(self.follower.position)
+            if self.follower.finished:
+                break
+            line = lines[self.follower.position]
+            self.pacer.wait_until(line.t_s)
+            self._end_settling_wait()
+            if line.direction == TX:
+                self._send(line)
+            else:
+                self._read_unasked(line)
+        self._apply_inputs(len(lines))
+        self._take_commands()
+        if self.pending and self.strict:
+            wanted = ", ".join(c.action for c in self.pending)
+            raise Divergence(
+                f"the recording ends ({len(lines)} lines) while the replayed engine still wants "
+                f"to send: {wanted}"
+            )
+
+    def _send(self, line: RecordedLine) -> None:
+        text = self.follower.text(line)
+        self._take_commands()
+        if text == self.poll_line:
+            self._poll(line)
+        elif text == self.identify_line:
+            self._call(self.driver.identify)
+        elif self.pending:
+            self._execute(self.pending.popleft())
+        else:
+            self._unwanted_command(line, text)
+
+    def _unwanted_command(self, line: RecordedLine, text: str) -> None:
+        """The original sent a command the replayed engine does not want now."""
+        state = self.engine.state.value.replace("_", " ")
+        message = (
+            f"at traffic line {line.index + 1} the original sent {text!r}; the replayed engine "
+            f"had nothing to send (it is {state})"
+        )
+        if self.strict:
+            raise Divergence(message)
+        if self.engine.wants_samples():
+            raise WhatIfStop(
+                f"{message}: the original ended this reading while the plan still collects it"
+            )
+        self._call(lambda: self.driver.transport.write_line(text))
+        self._read_answer(line)
+
+    def _read_answer(self, line: RecordedLine) -> None:
+        """Read the recorded answer lines to a command sent as recorded (what-if only)."""
+        while (
+            not self.follower.finished
+            and self.follower.lines[self.follower.position].direction != TX
+        ):
+            if self._call(lambda: self.driver.transport.read_line(UNASKED_WAIT_S)) is None:
+                raise WhatIfStop(f"no answer arrived to traffic line {line.index + 1}")
+
+    # -- samples -----------------------------------------------------------------------------
+    def _poll(self, line: RecordedLine) -> None:
+        lines = self.follower.lines
+        answered = line.index + 1 < len(lines) and lines[line.index + 1].direction != TX
+        if not answered:  # the original got no answer (a timeout, or the cable was pulled)
+            self._call(lambda: self.driver.transport.write_line(self.poll_line))
+            return
+        sample = self._call(self.driver.read_charge)
+        self._offer(sample)
+
+    def _read_unasked(self, line: RecordedLine) -> None:
+        if not self.push:
+            raise Divergence(
+                f"at traffic line {line.index + 1} the original received "
+                f"{self.follower.text(line)!r} unasked, which a query-mode driver never reads"
+            )
+        while self.follower.position <= line.index:
+            sample = self._call(lambda: self.driver.next_sample(UNASKED_WAIT_S))
+            if sample is None and self.follower.position <= line.index:
+                raise Divergence(f"traffic line {line.index + 1} did not arrive from the playback")
+            self._offer(sample)
+
+    def _offer(self, sample: Sample | None) -> None:
+        """Give the engine a sample the daemon would have given it (see the module docstring)."""
+        self._take_commands()
+        if sample is None or self.pending or not self.engine.wants_samples():
+            return
+        if sample.t_s < self.fresh_after_s:
+            return
+        self.engine.on_sample(
+            sample.t_s,
+            sample.charge_nC,
+            sample.complete,
+            sample.status.value,
+            traffic_id=self.follower.traffic_id(sample.t_s),
+        )
+        self._take_commands()
+
+    # -- commands ----------------------------------------------------------------------------
+    def _take_commands(self) -> None:
+        for command in self.engine.take_commands():
+            if command.action in BENCH_ACTIONS:
+                continue  # the bench is not replayed: the recorded lines are the instrument
+            if not self.engine.instrument_connected:
+                log.info("instrument away: dropped command %s (as the daemon does)", command)
+                continue
+            self.pending.append(command)
+
+    def _execute(self, command: Command) -> None:
+        driver = self.driver
+        calls: dict[str, Callable[[], Any]] = {
+            "zero": driver.zero,
+            "start": driver.start_integration,
+            "stop": driver.stop_integration,
+            "set_bias": lambda: driver.set_bias(command.value),
+        }
+        self._call(calls[command.action])
+        self.fresh_after_s = self.follower.last_t_s
+
+    def _call(self, call: Callable[[], Any]) -> Any:
+        """Run a driver call; an instrument error is logged (the recorded inputs say what the
+        daemon made of it), a line the original read but this log garbles is refused."""
+        try:
+            return call()
+        except ProtocolError as error:
+            self._rejected(error)
+        except InstrumentError as error:
+            log.info("replayed instrument error (as recorded): %s", error)
+        return None
+
+    def _rejected(self, error: ProtocolError) -> None:
+        """A line could not be read: fine if the original line was the same, else refuse."""
+        index = self._index_of(error.line)
+        original = self.original_lines
+        if original is None or index < 0 or original[index].raw == self.follower.lines[index].raw:
+            log.info("replayed a line the daemon also rejected: %s", error)
+            return
+        raise TrafficLogError(
+            f"traffic log line {index + 1} for session {self.session_id}: "
+            f"{self.follower.text(self.follower.lines[index])!r} cannot be read by profile "
+            f"{self.driver.profile.name} ({error}); the session recorded "
+            f"{self.follower.text(original[index])!r} there"
+        )
+
+    def _index_of(self, raw: bytes) -> int:
+        """Return the index of the latest line seen that begins with ``raw`` (-1: none)."""
+        for index in range(self.follower.position - 1, -1, -1):
+            if self.follower.lines[index].raw.startswith(raw):
+                return index
+        return -1
+
+    # -- recorded inputs ---------------------------------------------------------------------
+    def _apply_inputs(self, position: int) -> None:
+        while self._next_input < len(self.inputs):
+            recorded = self.inputs[self._next_input]
+            if recorded.position > position:
+                return
+            self._next_input += 1
+            try:
+                self._apply(recorded)
+            except (IllegalTransition, InputError, ConfirmationRequired) as error:
+                message = (
+                    f"the recorded {recorded.kind.replace('_', ' ')} by {recorded.actor} (event "
+                    f"{recorded.event_id}, after traffic line {recorded.position}) does not fit "
+                    f"the replayed engine: {error}"
+                )
+                if self.strict:
+                    raise Divergence(message) from None
+                raise WhatIfStop(message) from None
+            self._take_commands()
+
+    def _apply(self, recorded: RecordedInput) -> None:
+        engine, detail = self.engine, recorded.detail
+        actor = self.actor(recorded.actor)
+        calls: dict[str, Callable[[], Any]] = {
+            "environment": lambda: engine.set_environment(
+                detail["temperature_C"],
+                detail["pressure_entered"],
+                detail["pressure_unit"],
+                detail.get("humidity_pct"),
+                detail.get("source", "operator"),
+                actor=actor,
+            ),
+            "arm": lambda: engine.arm(actor=actor),
+            "manual_done": lambda: engine.manual_done(detail.get("note"), actor=actor),
+            "skip": lambda: engine.skip(actor=actor),
+            "capture": lambda: engine.capture(actor=actor),
+            "accept": lambda: engine.accept(actor=actor),
+            "redo": lambda: engine.redo(detail["reason"], actor=actor),
+            "pause": lambda: engine.pause(actor=actor),
+            "resume": lambda: engine.resume(actor=actor),
+            "stop": lambda: engine.stop(detail["reason"], actor=actor),
+            "abort": lambda: engine.abort(detail["reason"], confirm=True, actor=actor),
+            "close": lambda: engine.close(actor=actor),
+            "instrument_lost": lambda: engine.instrument_lost(detail["message"]),
+            "instrument_fault": lambda: engine.instrument_lost(
+                detail["message"], still_connected=True
+            ),
+            "instrument_back": lambda: engine.instrument_back(detail.get("identity")),
+        }
+        calls[recorded.kind]()
+
+    def _end_settling_wait(self) -> None:
+        """A settling wait the original was in is over by the next recorded line."""
+        engine = self.engine
+        waiting = engine.state is EngineState.SETTLING and engine.reading is None
+        if waiting and engine.settle_until_s is not None:
+            engine.tick(engine.settle_until_s)
+            self._take_commands()
+
+
+def _first_line(profile: Any, name: str) -> str | None:
+    """Return the line the profile sends for command ``name`` (one without arguments)."""
+    if name not in profile.commands or profile.command(name).arguments:
+        return None
+    return profile.command(name).templates[0]
