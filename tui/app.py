@@ -13,7 +13,7 @@ from collections.abc import Awaitable, Callable, Mapping
 from pathlib import Path
 from typing import Any, ClassVar
 
-from chargebook.acquire.client import ConnectionLost, DaemonClient
+from chargebook.acquire.client import ConnectionLost, DaemonClient, DaemonError
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
 from chargebook.tui import snapshot_view
 from chargebook.tui.messages import LinkChanged, LinkStatus, SetupFinished, SnapshotArrived
@@ -65,6 +65,7 @@ class ConsoleApp(App[int]):
         self.snapshot: dict[str, Any] | None = None
         self.link = LinkStatus(False, NOT_CONNECTED)
         self._latest_seq = -1
+        self._incoming: dict[str, Any] | None = None
 
     def compose(self) -> ComposeResult:
         yield Static(
@@ -85,7 +86,7 @@ class ConsoleApp(App[int]):
         while True:
             try:
                 client = await self.client_factory(self.socket_path)
-            except (OSError, ConnectionLost) as error:
+            except (OSError, ConnectionLost, DaemonError) as error:
                 self.post_message(LinkChanged(LinkStatus(False, f"{NOT_CONNECTED} ({error})")))
                 await asyncio.sleep(delay_s)
                 delay_s = min(2 * delay_s, RETRY_LONGEST_S)
@@ -95,19 +96,25 @@ class ConsoleApp(App[int]):
             self.post_message(LinkChanged(LinkStatus(False, NOT_CONNECTED)))
 
     async def _relay(self, client: DaemonClient) -> None:
+        """Pass the daemon's snapshots on until the connection ends."""
         self.client = client
         try:
             snapshot = await client.subscribe()
             self.post_message(LinkChanged(LinkStatus(True, "Connected to the daemon")))
-            self.post_message(SnapshotArrived(snapshot))
+            self._pass_on(snapshot)
             async for note in client.notifications():
                 if note.method == NOTIFY_SNAPSHOT and isinstance(note.params, dict):
-                    self.post_message(SnapshotArrived(note.params))
-        except ConnectionLost:
+                    self._pass_on(note.params)
+        except (ConnectionLost, DaemonError):
             pass
         finally:
             self.client = None
             await client.close()
+
+    def _pass_on(self, snapshot: dict[str, Any]) -> None:
+        """Post the snapshot; while the screen is busy, only the newest one will be drawn."""
+        self._incoming = snapshot
+        self.post_message(SnapshotArrived(snapshot))
 
     async def call_daemon(self, method: str, **params: Any) -> Any:
         """Send one request to the daemon and return its result.
@@ -122,6 +129,8 @@ class ConsoleApp(App[int]):
     # -- passing the state down --------------------------------------------------------------
     @on(SnapshotArrived)
     def snapshot_arrived(self, message: SnapshotArrived) -> None:
+        if message.snapshot is not self._incoming:
+            return  # a newer snapshot is already on its way: draw that one
         seq = int(message.snapshot.get("seq", 0))
         if seq < self._latest_seq:
             return  # overtaken by a newer snapshot on the same connection
