@@ -59,6 +59,7 @@ class ProfileElectrometer:
         self.transport = transport
         self.clock = clock
         self._pending: deque[Sample | ProtocolError] = deque()
+        self._rendered: dict[str, list[str]] = {}  # commands without arguments, rendered
 
     # -- the Electrometer interface ------------------------------------------------------------
     @property
@@ -136,13 +137,22 @@ class ProfileElectrometer:
     def _run(self, name: str, interpret: Callable[[ReceivedLine], T], **arguments: object) -> T:
         spec = self._spec(name)
         result = None
-        for line in spec.render(**arguments):
+        for line in self._lines(spec, arguments):
             if spec.parser == "ack" and self.profile.confirmation.style == "error_queue":
                 self.transport.write_line(line)
                 self._check_error_queue(line)
             else:
                 result = self._exchange(line, interpret)
         return result  # type: ignore[return-value]
+
+    def _lines(self, spec: CommandSpec, arguments: dict[str, object]) -> list[str]:
+        """Return the command's lines; a command without arguments is rendered once."""
+        if arguments:
+            return spec.render(**arguments)
+        lines = self._rendered.get(spec.name)
+        if lines is None:
+            lines = self._rendered[spec.name] = spec.render()
+        return lines
 
     def _exchange(self, line: str, interpret: Callable[[ReceivedLine], T]) -> T:
         """Send ``line`` and return its interpreted answer, resending on silence."""

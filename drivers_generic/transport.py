@@ -120,7 +120,7 @@ class Transport(ABC):
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
         deadline = time.monotonic() + timeout_s
         while True:
-            line = self._take_line()
+            line = self._take_line() if self._buffer else None
             if line is not None:
                 return line
             remaining = deadline - time.monotonic()

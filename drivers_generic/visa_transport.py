@@ -20,6 +20,7 @@ from chargebook.drivers_generic.transport import Transport
 
 _PARITY_NAMES = {"N": "none", "E": "even", "O": "odd", "M": "mark", "S": "space"}
 _STOPBITS_NAMES = {1: "one", 1.5: "one_and_a_half", 2: "two"}
+_PEEK_WITHOUT_WAITING = int(socket.MSG_PEEK | socket.MSG_DONTWAIT)
 
 
 class VisaTransport(Transport):
@@ -41,6 +42,7 @@ class VisaTransport(Transport):
         self.open_timeout_s = open_timeout_s
         self._manager: Any = None
         self._instrument: Any = None
+        self._sock: socket.socket | None = None  # the TCP socket under a SOCKET resource
         self._timeout_ms: float | None = None
 
     def _open(self) -> None:
@@ -57,6 +59,7 @@ class VisaTransport(Transport):
                 f"cannot open VISA resource {self.resource}: {error}"
             ) from None
         self._instrument = instrument
+        self._sock = self._socket()
         self._timeout_ms = None
         instrument.read_termination = self.framing.read_terminator[-1:].decode("latin-1")
         instrument.write_termination = ""
@@ -65,9 +68,8 @@ class VisaTransport(Transport):
         if self._peer_closed():
             self._close()
             raise InstrumentDisconnected(f"VISA resource {self.resource} refused the connection")
-        sock = self._socket()
-        if sock is not None:  # a command and its SYST:ERR? must not wait for Nagle's algorithm
-            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        if self._sock is not None:  # a command and its SYST:ERR? must not wait for Nagle
+            self._sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
 
     def _apply_serial_settings(self, instrument: Any) -> None:
         from pyvisa import constants
@@ -79,7 +81,7 @@ class VisaTransport(Transport):
         instrument.stop_bits = getattr(constants.StopBits, _STOPBITS_NAMES[settings.stopbits])
 
     def _close(self) -> None:
-        instrument, self._instrument = self._instrument, None
+        instrument, self._instrument, self._sock = self._instrument, None, None
         if instrument is not None:
             # a session whose peer vanished may refuse to close cleanly
             with contextlib.suppress(Exception):
@@ -96,9 +98,6 @@ class VisaTransport(Transport):
             ) from None
 
     def _read_available(self, timeout_s: float) -> bytes:
-        import pyvisa
-        from pyvisa import constants
-
         if self._peer_closed():
             raise InstrumentDisconnected(f"VISA resource {self.resource} closed the connection")
         timeout_ms = max(1, round(timeout_s * 1000))
@@ -107,7 +106,15 @@ class VisaTransport(Transport):
             self._timeout_ms = timeout_ms
         try:
             return self._instrument.read_raw()
-        except pyvisa.VisaIOError as error:
+        except Exception as error:  # sorted out below; pyvisa is imported only on this path
+            return self._after_read_error(error)
+
+    def _after_read_error(self, error: Exception) -> bytes:
+        """Return b"" after a plain timeout; raise InstrumentDisconnected when the wire is gone."""
+        import pyvisa
+        from pyvisa import constants
+
+        if isinstance(error, pyvisa.VisaIOError):
             if error.error_code != constants.StatusCode.error_timeout:
                 raise InstrumentDisconnected(f"VISA resource {self.resource}: {error}") from None
             if self._peer_closed():
@@ -115,20 +122,23 @@ class VisaTransport(Transport):
                     f"VISA resource {self.resource} closed the connection"
                 ) from None
             return b""
-        except (pyvisa.Error, OSError) as error:
+        if isinstance(error, pyvisa.Error | OSError):
             raise InstrumentDisconnected(
                 f"VISA resource {self.resource} went away: {error}"
             ) from None
+        raise error
 
     def _peer_closed(self) -> bool:
-        """Return True when the resource is a socket whose far end has closed or refused."""
-        sock = self._socket()
+        """Return True when the resource is a socket whose far end has closed or refused.
+
+        One non-blocking peek: it reads b"" after the far end closed, and raises the socket's
+        pending error (reset, refused) if there is one.
+        """
+        sock = self._sock
         if sock is None:
             return False
         try:
-            if sock.getsockopt(socket.SOL_SOCKET, socket.SO_ERROR):
-                return True
-            return sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT) == b""
+            return sock.recv(1, _PEEK_WITHOUT_WAITING) == b""
         except BlockingIOError:
             return False
         except OSError:
