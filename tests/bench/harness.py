@@ -1,0 +1,182 @@
+"""The real processes the benchmark and fault scripts measure, started as a user starts them.
+
+``chargebook simulate`` (the simulated electrometer on a real pseudo-terminal, with its control
+socket) and ``chargebook serve`` (the daemon, on a real SQLite file and a real Unix socket) run
+as subprocesses through the demo's own helpers; scripts talk to the daemon with the real
+``DaemonClient`` and to the bench with ``SimulatorControl``. Nothing is mocked.
+
+Everything lives in a scratch directory on disk (not in memory), removed at the end unless
+``CHARGEBOOK_BENCH_KEEP`` is set, so the store pays for real fsyncs as a station's would.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import shutil
+import signal
+import sqlite3
+import tempfile
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import psutil
+from chargebook.acquire.client import DaemonClient
+from chargebook.acquire.demo_data import demo_metadata
+from chargebook.acquire.demo_run import Child, start_child, stop_child
+from chargebook.acquire.protocol import Method
+from chargebook.drivers_generic.simulator.control import SimulatorControl
+
+HERE = Path(__file__).resolve().parent
+REPO = HERE.parents[1]
+FLOOD_PLAN = HERE / "plans" / "flood.toml"
+MANY_READINGS_PLAN = HERE / "plans" / "many_readings.toml"
+PUSHED_EVERY_LINE = HERE / "profiles" / "pushed-every-line.toml"
+#: A push-mode dialect whose lines are samples; the simulator's own streaming is slowed to one
+#: line per 10 s (``--time-scale 100``) so that nearly every line on the wire is a flood line.
+QUIET_STREAM = ("--time-scale", "100")
+
+
+@contextlib.contextmanager
+def scratch(prefix: str) -> Iterator[Path]:
+    """Yield a private scratch directory on disk; remove it afterwards (unless told to keep)."""
+    path = Path(tempfile.mkdtemp(prefix=f"chargebook-{prefix}-"))
+    try:
+        yield path
+    finally:
+        if os.environ.get("CHARGEBOOK_BENCH_KEEP"):
+            print(f"  (kept {path})")
+        else:
+            shutil.rmtree(path, ignore_errors=True)
+
+
+@dataclass
+class Station:
+    """A simulated electrometer and, once started, a daemon on it, in one scratch directory."""
+
+    workdir: Path
+    profile: str | Path
+    simulator: Child
+    daemon: Child | None = None
+    daemon_args: list[str] = field(default_factory=list)
+    starts: int = 0
+
+    @property
+    def db(self) -> Path:
+        return self.workdir / "station.sqlite"
+
+    @property
+    def socket(self) -> Path:
+        return self.workdir / "run" / "daemon.sock"
+
+    @property
+    def serial(self) -> str:
+        return self.simulator.info["serial"]
+
+    @property
+    def control(self) -> str:
+        return self.simulator.info["control"]
+
+    def bench(self, timeout_s: float = 120.0) -> SimulatorControl:
+        """Return a client of the simulator's control socket (close it when done)."""
+        return SimulatorControl(self.control, timeout_s=timeout_s)
+
+    def start_daemon(
+        self, plan: Path | str, *, bench: bool = False, time_scale: float = 1.0, log: str = "INFO"
+    ) -> Child:
+        """Start `chargebook serve` on the simulator; return it once it is ready."""
+        args = ["serve", "--profile", str(self.profile), "--port", self.serial]
+        args += ["--db", str(self.db), "--socket", str(self.socket), "--plan", str(plan)]
+        args += ["--time-scale", str(time_scale), "--log-level", log]
+        if bench:
+            args += ["--bench-control", self.control]
+        self.daemon_args = args
+        return self.restart_daemon()
+
+    def restart_daemon(self) -> Child:
+        """Start the daemon again with the same options, on the same database and socket."""
+        self.starts += 1
+        log_path = self.workdir / f"daemon-{self.starts}.log"
+        self.daemon = start_child("daemon", self.daemon_args, log_path)
+        return self.daemon
+
+    def kill_daemon(self) -> None:
+        """Kill the daemon with SIGKILL, as a crash or a power cut would, and reap it."""
+        assert self.daemon is not None
+        process = self.daemon.process
+        os.kill(process.pid, signal.SIGKILL)
+        process.wait()
+        if process.stdout is not None:
+            process.stdout.close()
+
+    def daemon_alive(self) -> bool:
+        """Return True while the daemon process runs."""
+        return self.daemon is not None and self.daemon.process.poll() is None
+
+    def daemon_logs(self) -> str:
+        """Return every daemon log of this station, oldest first."""
+        logs = sorted(self.workdir.glob("daemon-*.log"), key=lambda p: int(p.stem.split("-")[1]))
+        return "".join(path.read_text(errors="replace") for path in logs)
+
+    def daemon_rss_bytes(self) -> int:
+        """Return the daemon's resident memory now, in bytes."""
+        assert self.daemon is not None
+        return psutil.Process(self.daemon.process.pid).memory_info().rss
+
+    async def connect(self, operator: str = "bench") -> DaemonClient:
+        """Return a client connected to the daemon."""
+        return await DaemonClient.connect(self.socket, client="bench", operator=operator)
+
+    def stop_daemon(self) -> None:
+        """Stop the daemon (SIGTERM, SIGKILL after 10 s); the simulator keeps running."""
+        if self.daemon is not None:
+            stop_child(self.daemon.process)
+
+    def stop(self) -> None:
+        """Stop the daemon and the simulator (SIGTERM, SIGKILL after 10 s)."""
+        self.stop_daemon()
+        stop_child(self.simulator.process)
+
+
+@contextlib.contextmanager
+def station(
+    prefix: str, profile: str | Path = "tallyline", *simulator_options: str
+) -> Iterator[Station]:
+    """Yield a Station with a running simulator; everything is stopped and removed afterwards."""
+    with scratch(prefix) as workdir:
+        args = ["simulate", "--serial", "--profile", str(profile), *simulator_options]
+        simulator = start_child("simulated electrometer", args, workdir / "simulator.log")
+        world = Station(workdir, profile, simulator)
+        try:
+            yield world
+        finally:
+            world.stop()
+
+
+async def arm_first_step(client: DaemonClient, metadata: dict[str, Any] | None = None) -> dict:
+    """Open a session on the daemon and take it to its first reading: return the snapshot.
+
+    Enters the demo metadata (invented: Harbourside Cancer Centre) and a plausible air
+    temperature and pressure, confirms the manual bias step the profile may need, and arms.
+    """
+    snapshot = await client.call(Method.SESSION_START, metadata=metadata or demo_metadata())
+    snapshot = await client.call(Method.ENVIRONMENT_SET, temperature_C=21.5, pressure=100.8)
+    if Method.STEP_MANUAL_DONE in snapshot["allowed"]:
+        snapshot = await client.call(Method.STEP_MANUAL_DONE, note="benchmark")
+    return await client.call(Method.STEP_ARM)
+
+
+def read_db(db: Path, sql: str, params: tuple = ()) -> list[tuple]:
+    """Return the rows of one query on the station database, opened read-only."""
+    connection = sqlite3.connect(f"{db.resolve().as_uri()}?mode=ro", uri=True, timeout=10)
+    try:
+        return connection.execute(sql, params).fetchall()
+    finally:
+        connection.close()
+
+
+def last_traffic_id(db: Path) -> int:
+    """Return the id of the newest raw line recorded (0 when none)."""
+    return int(read_db(db, "SELECT coalesce(max(id), 0) FROM traffic")[0][0])

@@ -1,0 +1,169 @@
+"""Benchmark: reading lines per second through the whole daemon, against raw pyserial.
+
+    python -m tests.bench.pipeline [--smoke]
+
+The simulated electrometer (tallyline dialect, push mode) floods its pseudo-terminal with
+reading lines as fast as the reader takes them (``SimulatorControl.flood(0, count)``).
+
+* Baseline: pyserial reads the same pty, the same lines with the same terminator, with
+  ``readline`` on an ``io.BufferedReader`` (64 KiB) over the port (timeout 0.05 s). pyserial's
+  own ``Serial.readline`` reads one byte per system call, which would flatter us by a factor of
+  ten or more; it is printed as a note, not used.
+* Measured: the real daemon (``chargebook serve``) with a reading armed (a timed leakage
+  integration): every line goes through the driver (framing, parsing), is committed to the
+  station database as raw traffic, and its sample is handed to the engine's capture. The clock
+  stops when the last line is committed; the daemon is then asked for its status, which it
+  answers only after the samples queued before the request.
+
+Targets (issue 7): at least 50 % of the baseline, and at least 10 times the line rate of a
+115200-baud port (about 720 readings/s, so 7200 readings/s).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import io
+import sqlite3
+import sys
+import time
+
+from chargebook.acquire.client import DaemonClient
+from chargebook.acquire.protocol import Method
+
+from tests.bench import report
+from tests.bench.harness import (
+    FLOOD_PLAN,
+    QUIET_STREAM,
+    Station,
+    arm_first_step,
+    last_traffic_id,
+    station,
+)
+
+FULL_COUNT = 200_000
+SMOKE_COUNT = 3_000
+ROUNDS = 3
+#: The line rate of a 115200-baud port as issue 7 counts it, readings/s.
+PORT_115200_PER_S = 720.0
+RATIO_TARGET = 0.5
+ABSOLUTE_TARGET_PER_S = 10 * PORT_115200_PER_S
+POLL_S = 0.01
+GIVE_UP_S = 300.0
+SETTLE_S = 0.3
+
+
+def raw_readline_per_s(world: Station, count: int, *, buffered: bool = True) -> float:
+    """Return the lines per second pyserial's readline takes from a flood of ``count`` lines."""
+    import serial
+
+    port = serial.serial_for_url(world.serial, baudrate=115200, timeout=0.05)
+    reader = io.BufferedReader(port, 65536) if buffered else port
+    try:
+        with world.bench() as bench:
+            started = time.perf_counter()
+            bench.flood(0, count)
+            received = 0
+            while received < count and reader.readline():
+                received += 1
+            elapsed = time.perf_counter() - started
+    finally:
+        port.close()
+    if received != count:
+        raise RuntimeError(f"raw readline received {received} of {count} lines")
+    return count / elapsed
+
+
+async def daemon_per_s(world: Station, client: DaemonClient, count: int) -> float:
+    """Return the lines per second the collecting daemon commits and hands to its engine."""
+    await asyncio.sleep(SETTLE_S)  # let the arming commands' lines land first
+    first_id = last_traffic_id(world.db)
+    watch = sqlite3.connect(f"{world.db.resolve().as_uri()}?mode=ro", uri=True)
+    try:
+        with world.bench() as bench:
+            started = time.perf_counter()
+            bench.flood(0, count)
+            await _wait_for_lines(watch, first_id, count, started)
+            elapsed = time.perf_counter() - started
+        status = await client.status()
+        received = watch.execute(
+            "SELECT count(*) FROM traffic WHERE id > ? AND direction = 'rx'", (first_id,)
+        ).fetchone()[0]
+    finally:
+        watch.close()
+    if status["state"] != "collecting" or received < count:
+        raise RuntimeError(f"the daemon recorded {received} of {count} lines ({status['state']})")
+    return count / elapsed
+
+
+async def _wait_for_lines(watch: sqlite3.Connection, first_id: int, count: int, started: float):
+    while True:
+        newest = watch.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0]
+        if newest - first_id >= count:
+            return
+        if time.perf_counter() - started > GIVE_UP_S:
+            raise RuntimeError(f"only {newest - first_id} of {count} lines after {GIVE_UP_S} s")
+        await asyncio.sleep(POLL_S)
+
+
+async def interleaved(world: Station, count: int, rounds: int) -> tuple[list[float], list[float]]:
+    """Return (raw rates, daemon rates) of ``rounds`` alternating runs on the same pty.
+
+    Between its runs the daemon's session is paused: it then does not read the port, and the
+    raw reader has the lines to itself.
+    """
+    world.start_daemon(FLOOD_PLAN)
+    client = await world.connect()
+    raw, daemon = [], []
+    try:
+        snapshot = await arm_first_step(client)
+        for number in range(rounds):
+            if number:
+                snapshot = await client.call(Method.SESSION_RESUME)
+            if snapshot["state"] != "collecting":
+                raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
+            daemon.append(await daemon_per_s(world, client, count))
+            snapshot = await client.call(Method.SESSION_PAUSE)
+            await asyncio.sleep(SETTLE_S)
+            raw.append(raw_readline_per_s(world, count))
+    finally:
+        await client.close()
+    return raw, daemon
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    count = SMOKE_COUNT if args.smoke else FULL_COUNT
+    rounds = 1 if args.smoke else ROUNDS
+    out = report.Report(
+        f"pipeline: {count} reading lines flooded on a pty (tallyline, push mode), "
+        f"{rounds} round(s)",
+        args.smoke,
+    )
+    with station("pipeline", "tallyline", *QUIET_STREAM) as world:
+        naive = raw_readline_per_s(world, max(count // 20, 500), buffered=False)
+        raw, daemon = asyncio.run(interleaved(world, count, rounds))
+    ratios = [d / r for d, r in zip(daemon, raw, strict=True)]
+    out.note(
+        "rounds, raw / daemon readings/s: "
+        + ", ".join(f"{r:.0f} / {d:.0f}" for r, d in zip(raw, daemon, strict=True))
+    )
+    out.note(f"pyserial's unbuffered Serial.readline (one read per byte): {naive:.0f}/s (not used)")
+    baseline, measured, ratio = report.median(raw), report.median(daemon), report.median(ratios)
+    out.baseline(
+        "raw pyserial readline, buffered, same pty and lines (median)", baseline, "readings/s"
+    )
+    out.measured("daemon: driver -> store (committed) -> engine (median)", measured, "readings/s")
+    out.ratio(ratio, "median of the rounds' measured / baseline")
+    out.target(
+        f"ratio >= {RATIO_TARGET}", ratio >= RATIO_TARGET, f"{ratio / RATIO_TARGET:.0%} of it"
+    )
+    out.target(
+        f"measured >= {ABSOLUTE_TARGET_PER_S:.0f} readings/s (10 x a 115200-baud port)",
+        measured >= ABSOLUTE_TARGET_PER_S,
+        f"{measured / ABSOLUTE_TARGET_PER_S:.0%} of it",
+    )
+    return out.finish()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
