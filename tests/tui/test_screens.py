@@ -226,3 +226,13 @@ async def test_with_no_daemon_yet_the_console_says_so_and_where_it_looks(tmp_pat
         await pilot.press("ctrl+q")
     assert shown.startswith("!! Not connected to the daemon — retrying…")
     assert str(socket_path) in "".join(shown.split())  # however the long path wraps
+
+
+async def test_results_the_daemon_could_not_compute_are_said_so_in_words():
+    snapshot = load_snapshot("reviewing_spike")
+    snapshot["results_error"] = "reduced_nC[1] = 0 averages zero"
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=(120, 30)) as pilot:  # wide enough for the line not to wrap
+        await pilot.pause()
+        shown = screen_text(app)
+    assert "!! Results not computed: reduced_nC[1] = 0 averages zero" in shown

@@ -50,6 +50,7 @@ class ResultsPanel(Vertical):
 
     def compose(self) -> ComposeResult:
         yield Static("Results", id="results-title", classes="panel-title", markup=False)
+        yield Static("", id="results-problem", markup=False)
         yield Static("", id="factor-table", markup=False)
         yield Static("", id="results-table", markup=False)
         yield Static("", id="session-flags", markup=False)
@@ -58,6 +59,10 @@ class ResultsPanel(Vertical):
         if snapshot is None:
             return
         self.query_one("#results-title", Static).update(results_title(snapshot))
+        problem = snapshot.get("results_error")
+        note = self.query_one("#results-problem", Static)
+        note.update(f"!! Results not computed: {problem}" if problem else "")
+        note.display = bool(problem)
         self.query_one("#factor-table", Static).update(factor_table(snapshot.get("results")))
         self.query_one("#results-table", Static).update(results_table(snapshot))
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
