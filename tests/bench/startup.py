@@ -1,0 +1,67 @@
+"""Benchmark: how long `chargebook --help` takes, against the interpreter starting and stopping.
+
+    python -m tests.bench.startup [--smoke]
+
+* Baseline: ``python -c pass`` with the interpreter chargebook is installed in (site packages
+  and the editable install's import hooks included, as every Python start pays them).
+* Measured: ``chargebook --help``, the installed console script (or, where there is none,
+  ``python -m chargebook.acquire.cli --help``): the parser with every subcommand.
+
+Runs alternate; the median wall time of each is compared. Target (issue 7): at most 3 times.
+"""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from tests.bench import report
+
+FULL_RUNS = 21
+SMOKE_RUNS = 3
+TARGET_RATIO = 3.0
+
+
+def chargebook_help_command() -> list[str]:
+    """Return the command line of `chargebook --help` next to this interpreter."""
+    script = shutil.which("chargebook", path=str(Path(sys.executable).parent))
+    if script is not None:
+        return [script, "--help"]
+    return [sys.executable, "-m", "chargebook.acquire.cli", "--help"]
+
+
+def wall_s(command: list[str]) -> float:
+    """Return the wall time of one run of ``command``, in seconds (it must succeed)."""
+    started = time.perf_counter()
+    subprocess.run(command, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return time.perf_counter() - started
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    runs = SMOKE_RUNS if args.smoke else FULL_RUNS
+    out = report.Report(f"startup: {runs} alternating runs of each command", args.smoke)
+    baseline_command = [sys.executable, "-c", "pass"]
+    measured_command = chargebook_help_command()
+    out.note("measured command: " + " ".join(measured_command))
+    wall_s(measured_command)  # warm the file cache once: every later run finds the same state
+    baseline_s, measured_s = [], []
+    for _ in range(runs):
+        baseline_s.append(wall_s(baseline_command))
+        measured_s.append(wall_s(measured_command))
+    baseline, measured = report.median(baseline_s), report.median(measured_s)
+    out.baseline("python -c pass (median)", baseline * 1000, "ms")
+    out.measured("chargebook --help (median)", measured * 1000, "ms")
+    ratio = measured / baseline
+    out.ratio(ratio, "measured / baseline")
+    out.target(
+        f"ratio <= {TARGET_RATIO:g}", ratio <= TARGET_RATIO, f"{ratio / TARGET_RATIO - 1:.0%} over"
+    )
+    return out.finish()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
