@@ -166,7 +166,7 @@ async def test_the_setup_form_gives_metadata_the_daemons_own_check_accepts():
         metadata = form.metadata()
     assert metadata is not None
     assert metadata["chamber_serial"] == "4417"  # a serial number stays text
-    assert metadata["N_Dw"] == 0.054 and metadata["N_Dw_unit"] == "Gy/nC"
+    assert metadata["N_Dw"] == setup_defaults()["N_Dw"] and metadata["N_Dw_unit"] == "Gy/nC"
     checked = validate_metadata(metadata)  # the daemon's own check of session.start
     assert checked.tolerance_pct == 3.0  # "daily": AAPM TG-142 output constancy, 3 %
     assert checked.calibration_date == "2024-11-05"

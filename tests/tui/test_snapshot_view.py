@@ -30,7 +30,8 @@ def test_factors_use_the_conventions_symbols_and_say_pending_where_not_measured(
     assert rows["k_pol"] == ("pending", "pending")
     assert rows["k_s"] == ("pending", "pending")
     assert rows["k_elec"][1] == "default"
-    assert rows["N_D,w,Q0"] == ("0.05400", "entered")  # TRS-398's symbol for N_D,w
+    N_Dw = f"{snapshot['results']['N_Dw_Gy_per_nC']:.5f}"
+    assert rows["N_D,w,Q0"] == (N_Dw, "entered")  # TRS-398's symbol for N_D,w
 
 
 def test_results_are_the_daemons_numbers_formatted_not_recomputed():
