@@ -127,7 +127,6 @@ class Engine:
         self.instrument_message: str | None = None
         self.identity: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
-        self.reading_traffic_id: int | None = None  # the raw line of the latest sample
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
@@ -411,19 +410,13 @@ class Engine:
 
     # ---------------------------------------------------------------- instrument input
     def on_sample(
-        self,
-        t_s: float,
-        charge_nC: float,
-        complete: bool = False,
-        status: str = "ok",
-        traffic_id: int | None = None,
+        self, t_s: float, charge_nC: float, complete: bool = False, status: str = "ok"
     ) -> None:
         """Take one sample from the instrument (charge in nC, receive time in s on the driver's
-        clock, the id of the raw traffic line it was read from when recorded)."""
+        clock; its raw line is in the store before the sample reaches the engine)."""
         if self.reading is None:
             return
         self.reading_status = status
-        self.reading_traffic_id = traffic_id
         captured = self.reading.feed(t_s, charge_nC, complete)
         if captured is not None:
             self._record(captured, DAEMON_ACTOR)
@@ -531,7 +524,6 @@ class Engine:
             baseline_nC=0.0 if zeroed else None,
         )
         self.reading_status = "ok"
-        self.reading_traffic_id = None
         if self._can(Capability.ZERO):
             self._issue("zero")
         if self._can(Capability.INTEGRATE):
@@ -565,7 +557,7 @@ class Engine:
             captured.capture.value,
             settling,
             self.reading_status,
-            self.reading_traffic_id,
+            self.store.received_line_id(self.session_id, captured.t_s),
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s

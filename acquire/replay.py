@@ -164,7 +164,7 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
         profile = load_profile(_profile_name(recording, request))
         lines = recording.lines
         if request.traffic_log is not None:
-            where = traffic_positions(original, recording.session_id)
+            where = traffic_positions(original, recording)
             lines = read_traffic_log(request.traffic_log, recording, profile, where)
         _check_start(recording, lines)
         plan = live.resolve_plan(request.plan or recording.session.plan())

@@ -22,7 +22,7 @@ from chargebook.acquire.store import ReadingRow, SetRow, Store
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
 
-#: Reading fields compared, with the name a difference shows.
+#: Reading fields compared (with its integration time and the position of its raw line).
 READING_FIELDS = ("charge_nC", "settling", "capture", "status", "t_s")
 SET_FIELDS = ("purpose", "polarity", "bias_V", "status", "reason")
 #: Result keys a threshold can change (the rest follow from readings, plan and metadata).
@@ -142,6 +142,37 @@ class Explanations:
     arming_times_recorded: bool = True
 
 
+@dataclass(frozen=True)
+class _Side:
+    """One session's rows, keyed so that the original's and the replay's line up."""
+
+    store: Store
+    session_id: int
+    sets: dict[SetKey, SetRow]
+    readings: dict[ReadingKey, ReadingRow]
+    lines: dict[int, int]  # traffic id -> position in the session's traffic
+    integration_s: dict[int, float]
+
+    @classmethod
+    def of(cls, store: Store, session_id: int) -> _Side:
+        sets = {(s.step_index, s.step_key, s.attempt): s for s in store.sets(session_id)}
+        keys = {s.id: key for key, s in sets.items()}
+        readings = {(keys[r.set_id], r.seq): r for r in store.readings(session_id)}
+        lines = {row.id: index for index, row in enumerate(store.traffic(session_id))}
+        times = live.integration_times(store.events(session_id))
+        return cls(store, session_id, sets, readings, lines, times)
+
+    def reading_values(self, key: ReadingKey) -> dict[str, Any] | None:
+        """Return the compared values of one reading (None when there is no such reading)."""
+        row = self.readings.get(key)
+        if row is None:
+            return None
+        values = {name: getattr(row, name) for name in READING_FIELDS}
+        values["integration_s"] = self.integration_s.get(row.id)
+        values["traffic line"] = self.lines.get(row.traffic_id) if row.traffic_id else None
+        return values
+
+
 def compare_sessions(
     original: Store,
     original_id: int,
@@ -150,82 +181,66 @@ def compare_sessions(
     explanations: Explanations = Explanations(),
 ) -> Comparison:
     """Return every difference between session ``original_id`` and its replay."""
-    old_sets, new_sets = _sets_by_key(original, original_id), _sets_by_key(replay, replay_id)
-    old_readings = _readings_by_key(original, original_id, old_sets)
-    new_readings = _readings_by_key(replay, replay_id, new_sets)
+    old, new = _Side.of(original, original_id), _Side.of(replay, replay_id)
     why = _Reasons(explanations)
-    comparison = Comparison(
-        readings_compared=len(old_readings),
-        results_compared=0,
-        changes=list(explanations.changes),
-    )
-    differences = comparison.differences
+    comparison = Comparison(len(old.readings), 0, changes=list(explanations.changes))
+    found = comparison.differences
     old_row, new_row = original.session(original_id), replay.session(replay_id)
     if old_row.status != new_row.status:
-        differences.append(
-            Difference("session status", old_row.status, new_row.status, why.session())
+        found.append(Difference("session status", old_row.status, new_row.status, why.session()))
+    for key in _keys(old.sets, new.sets):
+        found += _compare(
+            f"set {_set_name(key)}",
+            _values(old.sets.get(key), SET_FIELDS),
+            _values(new.sets.get(key), SET_FIELDS),
+            lambda present, key=key: why.row(key[1], present),
         )
-    for key in _keys(old_sets, new_sets):
-        differences += _compare_rows(
-            f"set {_set_name(key)}", old_sets.get(key), new_sets.get(key), SET_FIELDS, why.set(key)
+    for key in _keys(old.readings, new.readings):
+        old_values, new_values = old.reading_values(key), new.reading_values(key)
+        if old_values is not None and old_values["traffic line"] is None:
+            del old_values["traffic line"]  # recorded before readings were linked to lines
+            if new_values is not None:
+                del new_values["traffic line"]
+        found += _compare(
+            f"reading {_set_name(key[0])} #{key[1]}",
+            old_values,
+            new_values,
+            lambda present, key=key: why.row(key[0][1], present, reading=True),
         )
-    for key in _keys(old_readings, new_readings):
-        name = f"reading {_set_name(key[0])} #{key[1]}"
-        differences += _compare_rows(
-            name, old_readings.get(key), new_readings.get(key), READING_FIELDS, why.reading(key)
-        )
-    differences += _compare_integration(
-        original, original_id, replay, replay_id, old_readings, new_readings, why
-    )
+    readings_differ = bool(found)
     old_results, old_error = stored_results(original, original_id)
     new_results, new_error = stored_results(replay, replay_id)
     if old_error != new_error:
-        differences.append(Difference("results error", old_error, new_error, why.result("")))
+        found.append(Difference("results error", old_error, new_error, why.result("")))
     old_results, new_results = old_results or {}, new_results or {}
     comparison.results_compared = len(set(old_results) | set(new_results))
-    readings_differ = any(d.what.startswith("reading") for d in differences)
     for key in sorted(set(old_results) | set(new_results)):
         old_value, new_value = old_results.get(key), new_results.get(key)
         if not _identical(old_value, new_value):
-            differences.append(
-                Difference(f"result {key}", old_value, new_value, why.result(key, readings_differ))
-            )
+            reason = why.result(key, readings_differ)
+            found.append(Difference(f"result {key}", old_value, new_value, reason))
     return comparison
 
 
-def _compare_integration(
-    original: Store,
-    original_id: int,
-    replay: Store,
-    replay_id: int,
-    old_readings: Mapping[Any, ReadingRow],
-    new_readings: Mapping[Any, ReadingRow],
-    why: _Reasons,
-) -> list[Difference]:
-    """Return the differences of integration time (s) between readings present in both."""
-    old_times = live.integration_times(original.events(original_id))
-    new_times = live.integration_times(replay.events(replay_id))
-    found = []
-    for key, old in old_readings.items():
-        new = new_readings.get(key)
-        if new is None:
-            continue
-        a, b = old_times.get(old.id), new_times.get(new.id)
-        if not _identical(a, b):
-            name = f"reading {_set_name(key[0])} #{key[1]} integration_s"
-            found.append(Difference(name, a, b, why.reading(key, timing=True)))
-    return found
+def _values(row: Any, names: Sequence[str]) -> dict[str, Any] | None:
+    return None if row is None else {name: getattr(row, name) for name in names}
 
 
-def _compare_rows(
-    name: str, old: Any, new: Any, names: Sequence[str], why: str
+def _compare(
+    name: str,
+    old: dict[str, Any] | None,
+    new: dict[str, Any] | None,
+    why: Any,
 ) -> list[Difference]:
+    """Return the differences between two rows' values; ``why(present)`` gives the reason."""
     if old is None or new is None:
-        return [Difference(name, _exists(old), _exists(new), why)]
+        if old is new:
+            return []
+        return [Difference(name, _exists(old), _exists(new), why(False))]
     return [
-        Difference(f"{name} {field_name}", getattr(old, field_name), getattr(new, field_name), why)
-        for field_name in names
-        if not _identical(getattr(old, field_name), getattr(new, field_name))
+        Difference(f"{name} {field_name}", old[field_name], new.get(field_name), why(True))
+        for field_name in old
+        if not _identical(old[field_name], new.get(field_name))
     ]
 
 
@@ -234,17 +249,7 @@ def _exists(row: Any) -> str:
 
 
 SetKey = tuple[int, str, int]
-
-
-def _sets_by_key(store: Store, session_id: int) -> dict[SetKey, SetRow]:
-    return {(s.step_index, s.step_key, s.attempt): s for s in store.sets(session_id)}
-
-
-def _readings_by_key(
-    store: Store, session_id: int, sets: Mapping[SetKey, SetRow]
-) -> dict[tuple[SetKey, int], ReadingRow]:
-    keys = {s.id: key for key, s in sets.items()}
-    return {(keys[r.set_id], r.seq): r for r in store.readings(session_id)}
+ReadingKey = tuple[SetKey, int]
 
 
 def _keys(old: Mapping[Any, Any], new: Mapping[Any, Any]) -> list[Any]:
@@ -269,59 +274,60 @@ def _value(value: Any) -> str:
 
 
 # ------------------------------------------------------------------------------- reasons
+NOT_REACHED = "not reached: the replay stopped early (see above)"
+STOPPED = "the replay stopped before the end (see above)"
+READINGS_DIFFER = "the readings or sets it is computed from differ (see above)"
+OLD_ARMING = (
+    "the session was recorded before arming times were kept: integration times are rebuilt "
+    "from capture times and may differ in the last digits"
+)
+
+
 class _Reasons:
     """Chooses the words that say why a value differs (see the module docstring)."""
 
     def __init__(self, explanations: Explanations) -> None:
-        self.explanations = explanations
+        changes = explanations.changes
         self.plan = [
-            c
-            for c in explanations.changes
-            if c.what.startswith("plan") and c.what not in COSMETIC_PLAN_CHANGES
+            c for c in changes if c.what.startswith("plan") and c.what not in COSMETIC_PLAN_CHANGES
         ]
-        self.thresholds = [c for c in explanations.changes if c.what.startswith("threshold")]
+        self.thresholds = [c for c in changes if c.what.startswith("threshold")]
+        self.notes = list(explanations.traffic_notes)
+        self.stopped = explanations.stopped is not None
+        self.old_arming = not explanations.arming_times_recorded
 
-    def _stopped(self) -> list[str]:
-        stopped = self.explanations.stopped
-        return [f"the replay stopped early: {stopped}"] if stopped else []
-
-    def _join(self, reasons: list[str]) -> str:
+    @staticmethod
+    def _join(reasons: Sequence[str]) -> str:
         return "; ".join(reasons) if reasons else UNEXPLAINED
 
+    def _words(self, changes: Sequence[Change]) -> list[str]:
+        return [change.words() for change in changes]
+
     def session(self) -> str:
-        return self._join(self._stopped() + [c.words() for c in self.plan])
+        return self._join([STOPPED] if self.stopped else self._words(self.plan))
 
-    def set(self, key: SetKey) -> str:
-        step = [c.words() for c in self.plan if c.what.startswith(f"plan step '{key[1]}'")]
-        general = [c.words() for c in self.plan if not c.what.startswith("plan step")]
-        return self._join(self._stopped() + (step or general or self._plan_words()))
-
-    def reading(self, key: tuple[SetKey, int], *, timing: bool = False) -> str:
-        reasons = self._stopped()
-        reasons += [c.words() for c in self.plan if c.what.startswith(f"plan step '{key[0][1]}'")]
-        reasons += [c.words() for c in self.plan if c.what.startswith("plan capture")]
-        reasons += list(self.explanations.traffic_notes)
-        if not reasons and self.plan:
-            reasons.append("follows from the plan's changes: " + self._plan_words()[0])
-        if timing and not self.explanations.arming_times_recorded:
-            reasons.append(
-                "the session was recorded before arming times were kept, so integration times "
-                "are rebuilt from capture times and may differ in the last digits"
-            )
+    def row(self, step_key: str, present: bool, *, reading: bool = False) -> str:
+        """Return why a set or reading of step ``step_key`` differs (``present`` in both?)."""
+        if not present and self.stopped:
+            return NOT_REACHED
+        own = [c for c in self.plan if c.what.startswith(f"plan step '{step_key}'")]
+        if reading:
+            own += [c for c in self.plan if c.what.startswith("plan capture")]
+        reasons = self._words(own or self.plan)
+        if reading:
+            reasons += self.notes
+            if self.old_arming:
+                reasons.append(OLD_ARMING)
         return self._join(reasons)
 
     def result(self, key: str, readings_differ: bool = False) -> str:
-        reasons = self._stopped()
-        if self.thresholds and (key in THRESHOLD_KEYS or not key or not self.plan):
-            reasons += [c.words() for c in self.thresholds]
-        reasons += [c.words() for c in self.plan]
+        """Return why result ``key`` differs (readings_differ: some reading or set does)."""
+        reasons = [STOPPED] if self.stopped else []
+        if key in THRESHOLD_KEYS or not key or not self.plan:
+            reasons += self._words(self.thresholds)
+        reasons += self._words(self.plan)
         if readings_differ:
-            reasons.append("the readings it is computed from differ (see above)")
-        if not reasons and not self.explanations.arming_times_recorded:
-            reasons.append(
-                "integration times are rebuilt for a session recorded before arming times were kept"
-            )
+            reasons.append(READINGS_DIFFER)
+        if not reasons and self.old_arming:
+            reasons.append(OLD_ARMING)
         return self._join(reasons)
-
-    def _plan_words(self) -> list[str]:
-        return [", ".join(c.words() for c in self.plan)] if self.plan else []

@@ -33,7 +33,7 @@ from collections.abc import Callable, Sequence
 from typing import Any
 
 from chargebook.acquire.engine import Command, ConfirmationRequired, Engine
-from chargebook.acquire.protocol import EngineState
+from chargebook.acquire.protocol import EngineState as S
 from chargebook.acquire.replay_recording import RecordedInput, RecordedLine
 from chargebook.acquire.replay_traffic import TX, Divergence, TrafficFollower, TrafficLogError
 from chargebook.acquire.states import IllegalTransition
@@ -227,13 +227,7 @@ class Conductor:
             return
         if sample.t_s < self.fresh_after_s:
             return
-        self.engine.on_sample(
-            sample.t_s,
-            sample.charge_nC,
-            sample.complete,
-            sample.status.value,
-            traffic_id=self.follower.traffic_id(sample.t_s),
-        )
+        self.engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
         self._take_commands()
 
     # -- commands ----------------------------------------------------------------------------
@@ -302,12 +296,23 @@ class Conductor:
                 message = (
                     f"the recorded {recorded.kind.replace('_', ' ')} by {recorded.actor} (event "
                     f"{recorded.event_id}, after traffic line {recorded.position}) does not fit "
-                    f"the replayed engine: {error}"
+                    f"the replayed engine: {error}{self._still_collecting()}"
                 )
                 if self.strict:
                     raise Divergence(message) from None
                 raise WhatIfStop(message) from None
             self._take_commands()
+
+    def _still_collecting(self) -> str:
+        """Return, when the engine is still taking a set, how far it got, in words."""
+        engine = self.engine
+        if engine.active is None or engine.state not in (S.SETTLING, S.COLLECTING):
+            return ""
+        step = engine.step
+        return (
+            f"; the plan still collects step '{step.key}' after {engine.active.used_count} of "
+            f"its {step.readings} readings: the recording holds no more readings for it"
+        )
 
     def _apply(self, recorded: RecordedInput) -> None:
         engine, detail = self.engine, recorded.detail
@@ -343,7 +348,7 @@ class Conductor:
     def _end_settling_wait(self) -> None:
         """A settling wait the original was in is over by the next recorded line."""
         engine = self.engine
-        waiting = engine.state is EngineState.SETTLING and engine.reading is None
+        waiting = engine.state is S.SETTLING and engine.reading is None
         if waiting and engine.settle_until_s is not None:
             engine.tick(engine.settle_until_s)
             self._take_commands()

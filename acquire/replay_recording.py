@@ -89,6 +89,7 @@ class Recording:
     time_scale: float | None
     lines: tuple[RecordedLine, ...]
     inputs: tuple[RecordedInput, ...]
+    stamps: tuple[str, ...]  # when each line was written (``recorded_at``)
     armed_times_s: tuple[float, ...]
     armed_times_recorded: bool
     start_actor: str
@@ -111,6 +112,7 @@ def load_recording(store: Store, session_id: int) -> Recording:
         )
     events = store.events(session_id)
     traffic = store.traffic(session_id)
+    traffic = [*exchange_before(store, traffic), *traffic]
     profile, time_scale = _acquisition(events)
     armed, armed_recorded = armed_times(events, store, session_id)
     created = next((e for e in events if e.kind == "session_created"), None)
@@ -124,10 +126,33 @@ def load_recording(store: Store, session_id: int) -> Recording:
             for index, row in enumerate(traffic)
         ),
         inputs=tuple(recorded_inputs(events, traffic)),
+        stamps=tuple(row.recorded_at for row in traffic),
         armed_times_s=armed,
         armed_times_recorded=armed_recorded,
         start_actor=created.actor if created is not None else "daemon",
     )
+
+
+def exchange_before(store: Store, traffic: Sequence[TrafficRow]) -> list[TrafficRow]:
+    """Return the start of an exchange the session's traffic begins in the middle of.
+
+    A session can start while the daemon is talking to the instrument (identifying it after
+    connecting): the command then is recorded outside the session and its answer inside. The
+    lines returned are those just before the session's first line, back to that command.
+    """
+    if not traffic or traffic[0].direction == "tx":
+        return []
+    before = [row for row in store.traffic(None) if row.id < traffic[0].id]
+    run: list[TrafficRow] = []
+    expected_id = traffic[0].id - 1
+    for row in reversed(before):
+        if row.id != expected_id:
+            break
+        run.insert(0, row)
+        if row.direction == "tx":
+            return run
+        expected_id -= 1
+    return []
 
 
 def _acquisition(events: Sequence[EventRow]) -> tuple[str | None, float | None]:
@@ -202,13 +227,13 @@ def input_kind(event: EventRow, instrument_away: bool) -> str | None:
     return ACTIONS_BY_EVENT_KIND.get(event.kind)
 
 
-def traffic_positions(store: Store, session_id: int) -> list[str]:
-    """Return, for each count ``i`` of traffic lines (0 to all), where session ``session_id``
-    stood after its first ``i`` lines, in words ("in reading set 'routine' (attempt 1) after
-    2 readings"), for messages about a traffic log that stops or fails there."""
-    sets = {s.id: s for s in store.sets(session_id)}
-    stamps = [row.recorded_at for row in store.traffic(session_id)]
-    events = store.events(session_id)
+def traffic_positions(store: Store, recording: Recording) -> list[str]:
+    """Return, for each count ``i`` of recorded lines (0 to all), where the session stood
+    after its first ``i`` lines, in words ("in reading set 'routine' (attempt 1) after 2
+    readings"), for messages about a traffic log that stops or fails there."""
+    sets = {s.id: s for s in store.sets(recording.session_id)}
+    stamps = recording.stamps
+    events = store.events(recording.session_id)
     words: list[str] = []
     current = "before the first reading set"
     readings: dict[int, int] = {}

@@ -152,7 +152,6 @@ class TrafficFollower:
         self.notes: list[TrafficNote] = []
         self.store: Store | None = None
         self.session_id: int | None = None
-        self._ids_by_t_s: dict[float, int] = {}
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
 
     def attach(self, store: Store, session_id: int) -> None:
@@ -175,10 +174,6 @@ class TrafficFollower:
             return self.lines[self.position].t_s
         return self._last_t_s
 
-    def traffic_id(self, t_s: float) -> int | None:
-        """Return the id of the replayed line received at ``t_s`` (a sample's line)."""
-        return self._ids_by_t_s.get(t_s)
-
     def text(self, line: RecordedLine) -> str:
         """Return a recorded line as text (see :func:`line_text`)."""
         return line_text(self.profile, line)
@@ -189,9 +184,7 @@ class TrafficFollower:
         self._check(direction.value, bytes(raw))
         self._last_t_s = t_s
         if self.store is not None:
-            traffic_id = self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
-            if direction is TrafficDirection.RECEIVED:
-                self._ids_by_t_s[t_s] = traffic_id
+            self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
         self.position += 1
 
     def _check(self, direction: str, raw: bytes) -> None:

@@ -99,6 +99,7 @@ def run(args: argparse.Namespace) -> int:
     """Replay the session; print the verdict; return 0 when it reproduced (or a what-if ran),
     1 when an unchanged replay did not reproduce or failed, 2 for input that cannot be used."""
     import json
+    import os
     import sys
 
     from chargebook.acquire.cli import CAUTION, EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
@@ -145,10 +146,13 @@ def run(args: argparse.Namespace) -> int:
     except (StoreError, DemoError, OSError) as error:
         print(f"chargebook replay: {error}", file=sys.stderr)
         return EXIT_FAILURE
-    if args.json:
-        print(json.dumps(report.to_dict(), indent=2, ensure_ascii=False, default=str))
-    else:
-        print(replay_text(report))
-        print()
-        print(CAUTION)
+    try:
+        if args.json:
+            print(json.dumps(report.to_dict(), indent=2, ensure_ascii=False, default=str))
+        else:
+            print(replay_text(report))
+            print()
+            print(CAUTION)
+    except BrokenPipeError:  # whoever read the output went away (`| head`): stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
     return EXIT_OK if report.reproduced or report.what_if else EXIT_FAILURE

@@ -1,0 +1,386 @@
+"""`chargebook replay` end to end: sessions recorded by the unattended runner, replayed through
+the simulated electrometer in playback mode, the serial driver and the engine.
+
+The sessions are recorded once for the module, on one station database: a clean run of
+`chargebook run --unattended`, one with a spiked set that the automatic operator redoes, and one
+aborted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e). Each
+must replay exactly: every reading and every result bit-identical. The checks of exactness do
+not trust the replay's own comparison alone: they read both sessions back through the store and
+the project's result function, and check the what-if results against the published formulas.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import hashlib
+import json
+import shutil
+import subprocess
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+from chargebook.acquire.demo_data import demo_metadata
+from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.replay_recording import load_recording
+from chargebook.acquire.replay_traffic import write_playback_log
+from chargebook.acquire.session_result import session_evaluation
+from chargebook.acquire.store import Store
+from chargebook.drivers_generic import load_profile
+from e2e_support import (
+    QUICK_PLAN,
+    TIME_SCALE,
+    DaemonProcess,
+    SimulatorProcess,
+    chargebook_command,
+    read_ready_line,
+    stop_process,
+)
+
+pytestmark = pytest.mark.e2e
+
+REDO_REASON = "spike on the first routine reading"
+ABORT_REASON = "phantom moved"
+
+
+@dataclass(frozen=True)
+class Station:
+    """The recorded station database and the ids of its sessions."""
+
+    db: Path
+    work: Path
+    clean: int
+    redone: int
+    aborted: int
+
+
+def start_simulator(work: Path) -> SimulatorProcess:
+    """Start `chargebook simulate` (lumen-q, query mode, remote bias) on a pty."""
+    log_path = work / "simulator.log"
+    args = ["simulate", "--serial", "--profile", "lumen-q", "--seed", "1"]
+    args += ["--time-scale", str(TIME_SCALE)]
+    with log_path.open("wb") as log:
+        process = subprocess.Popen(chargebook_command(*args), stdout=subprocess.PIPE, stderr=log)
+    return SimulatorProcess(process, read_ready_line(process, log_path), log_path)
+
+
+def run_unattended(simulator: SimulatorProcess, db: Path) -> int:
+    """Record one session with `chargebook run --unattended`; return its id."""
+    command = chargebook_command(
+        "run", "--unattended", "--json", "--profile", simulator.profile,
+        "--port", simulator.serial, "--bench-control", simulator.control,
+        "--db", str(db), "--plan", QUICK_PLAN, "--time-scale", str(TIME_SCALE),
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout)["session_id"]
+
+
+def state_is(name: str):
+    return lambda snapshot: snapshot["state"] == name
+
+
+async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProcess):
+    """Record a session whose routine set is spiked and redone, then one aborted mid-set."""
+    client = await daemon.connect(operator=ACTOR)
+    operator = AutoOperator(client, environment_from_bench(simulator.control))
+    snapshot = await operator.start(demo_metadata())
+    snapshot = await operator.run_until(
+        snapshot, lambda s: s["plan"][1]["status"] == "current" and "step.arm" in s["allowed"]
+    )
+    with simulator.bench() as bench:
+        bench.spike()  # the routine set's first reading (it has no settling reading)
+    snapshot = await operator.run_until(snapshot, state_is("reviewing"))
+    snapshot = await client.call("set.redo", reason=REDO_REASON)
+    redone = await operator.run_until(snapshot, state_is("finished"))
+    snapshot = await operator.start(demo_metadata())
+    snapshot = await operator.run_until(
+        snapshot,
+        lambda s: s["current_set"] is not None and s["current_set"]["readings_done"] >= 2,
+    )
+    aborted = await client.call("session.abort", reason=ABORT_REASON, confirm=True)
+    await client.close()
+    return redone["session"]["id"], aborted["session"]["id"]
+
+
+@pytest.fixture(scope="module")
+def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
+    work = tmp_path_factory.mktemp("replay")
+    db = work / "station.sqlite"
+    simulator = start_simulator(work)
+    try:
+        clean = run_unattended(simulator, db)
+        args = ["serve", "--profile", simulator.profile, "--port", simulator.serial]
+        args += ["--db", str(db), "--socket", str(work / "run" / "daemon.sock")]
+        args += ["--plan", QUICK_PLAN, "--time-scale", str(TIME_SCALE), "--log-level", "INFO"]
+        args += ["--bench-control", simulator.control]
+        daemon = DaemonProcess(args, work / "run" / "daemon.sock", db, work / "daemon.log")
+        daemon.start()
+        try:
+            redone, aborted = asyncio.run(record_redo_and_abort(daemon, simulator))
+        finally:
+            daemon.stop()
+    finally:
+        stop_process(simulator.process)
+    yield Station(db, work, clean, redone, aborted)
+
+
+def copy_of(station: Station, name: str) -> Path:
+    """Return a copy of the recorded station database, for a test that writes to it."""
+    target = station.work / name
+    shutil.copyfile(station.db, target)
+    return target
+
+
+def replay(db: Path, session_id: int, *options: str) -> subprocess.CompletedProcess:
+    command = chargebook_command("replay", str(session_id), "--db", str(db), *options)
+    return subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
+
+
+def readings_by_set(store: Store, session_id: int) -> list[tuple[Any, ...]]:
+    """Return every reading as (step, attempt, set status, seq, charge nC, settling, capture,
+    time)."""
+    sets = {s.id: s for s in store.sets(session_id)}
+    rows = []
+    for r in store.readings(session_id):
+        reading_set = sets[r.set_id]
+        where = (reading_set.step_key, reading_set.attempt, reading_set.status)
+        rows.append((*where, r.seq, r.charge_nC, r.settling, r.capture, r.t_s))
+    return rows
+
+
+def line_of(store: Store, session_id: int, reading_traffic_id: int | None) -> bytes | None:
+    lines = {row.id: row.line for row in store.traffic(session_id)}
+    return lines.get(reading_traffic_id)
+
+
+def file_state(db: Path) -> tuple[str, str]:
+    """Return digests of the database file and of its write-ahead log (none: empty).
+
+    The shared-memory index and an empty log, which any reader of a WAL database may leave
+    beside it, hold no data and are not compared.
+    """
+    wal = db.with_name(db.name + "-wal")
+    logged = wal.read_bytes() if wal.exists() else b""
+    return hashlib.sha256(db.read_bytes()).hexdigest(), hashlib.sha256(logged).hexdigest()
+
+
+# ------------------------------------------------------------------------------ exactness
+@pytest.mark.parametrize("which", ["clean", "redone", "aborted"])
+def test_every_recorded_session_replays_exactly(station: Station, which: str):
+    db = copy_of(station, f"exact-{which}.sqlite")
+    original_id = getattr(station, which)
+    done = replay(db, original_id, "--speed", "0", "--json")
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["reproduced"] is True and report["differences"] == []
+    with Store.open(db, read_only=True) as store:
+        replay_id = report["replay_session_id"]
+        original, replayed = store.session(original_id), store.session(replay_id)
+        assert replayed.replay_of == original_id and replayed.status == original.status
+        old, new = readings_by_set(store, original_id), readings_by_set(store, replay_id)
+        assert len(old) >= 3 and new == old  # charges, settling, capture and times identical
+        assert report["readings_compared"] == len(old)
+        # Every replayed reading was parsed from the same raw line as the original one.
+        for before, after in zip(
+            store.readings(original_id), store.readings(replay_id), strict=True
+        ):
+            assert line_of(store, original_id, before.traffic_id) is not None
+            assert line_of(store, replay_id, after.traffic_id) == line_of(
+                store, original_id, before.traffic_id
+            )
+        results = session_evaluation(store, original_id).to_dict()
+        assert session_evaluation(store, replay_id).to_dict() == results
+        assert report["results_compared"] == len(results)
+
+
+def test_the_redone_set_is_replayed_superseded_with_its_reason(station: Station):
+    db = copy_of(station, "redo.sqlite")
+    done = replay(db, station.redone, "--speed", "0", "--json")
+    assert done.returncode == 0, done.stderr
+    replay_id = json.loads(done.stdout)["replay_session_id"]
+    with Store.open(db, read_only=True) as store:
+        routine = [s for s in store.sets(replay_id) if s.step_key == "routine"]
+        assert [(s.attempt, s.status) for s in routine] == [(1, "superseded"), (2, "accepted")]
+        assert routine[0].reason == REDO_REASON
+        actors = {e.actor for e in store.events(replay_id)}
+        assert f"{ACTOR} (replayed)" in actors
+
+
+def test_an_aborted_session_replays_at_the_recorded_pace_too(station: Station):
+    db = copy_of(station, "paced.sqlite")
+    done = replay(db, station.aborted, "--speed", "4")
+    assert done.returncode == 0, done.stderr
+    assert "exact reproduction:" in done.stdout
+    with Store.open(db, read_only=True) as store:
+        replayed = store.sessions()[-1]
+        assert (replayed.replay_of, replayed.status) == (station.aborted, "aborted")
+        assert replayed.reason == ABORT_REASON
+
+
+# ------------------------------------------------------------------------------ what if
+def test_a_stricter_sd_threshold_changes_flags_only_and_says_why(station: Station):
+    db = copy_of(station, "what-if-sd.sqlite")
+    done = replay(
+        db, station.clean, "--speed", "0", "--json", "--threshold", "relative_sd_pct=0.01"
+    )
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["what_if"] is True and report["reproduced"] is False
+    assert report["changes"] == [
+        {"what": "threshold relative_sd_pct", "original": 0.2, "replay": 0.01}
+    ]
+    differing = {d["what"] for d in report["differences"]}
+    assert differing and all(what.startswith("result ") for what in differing)
+    assert all("relative_sd_pct 0.2 → 0.01" in d["why"] for d in report["differences"])
+    flags = next(d for d in report["differences"] if d["what"] == "result flags")
+    added = {f["code"] for f in flags["replay"]} - {f["code"] for f in flags["original"]}
+    # numpy's sample SD (ddof=1) of the routine readings, against the new 0.01 % limit.
+    with Store.open(db, read_only=True) as store:
+        routine = next(s for s in store.sets(station.clean) if s.step_key == "routine")
+        charges = [r.charge_nC for r in store.readings(station.clean, routine.id)]
+    relative_sd_pct = 100 * np.std(charges, ddof=1) / abs(np.mean(charges))
+    assert ("routine_sd_high" in added) == (0.01 < relative_sd_pct < 0.2)
+
+
+def reduced_bias_plan(path: Path, reduced_bias_V: float, routine_readings: int = 3) -> Path:
+    """Write the quick plan with another reduced bias (and routine readings); return it."""
+    text = Path(QUICK_PLAN).read_text()
+    text = text.replace("reduced_bias_V = 100.0", f"reduced_bias_V = {reduced_bias_V}")
+    text = text.replace(
+        'purpose = "routine"\n', f'purpose = "routine"\nreadings = {routine_readings}\n'
+    )
+    path.write_text(text)
+    return path
+
+
+def test_another_reduced_bias_gives_the_two_voltage_k_s_of_the_new_ratio(station: Station):
+    db = copy_of(station, "what-if-plan.sqlite")
+    plan = reduced_bias_plan(station.work / "reduced-150.toml", 150.0)
+    done = replay(db, station.clean, "--speed", "0", "--json", "--plan", str(plan))
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["what_if"] is True and report["stopped"] is None
+    assert any("'BIAS +150'" in note and "'BIAS +100'" in note for note in report["traffic_notes"])
+    differences = {d["what"]: d for d in report["differences"]}
+    assert differences["result voltage_ratio"]["replay"] == 2.0
+    assert "reduced_bias_V 100.0 → 150.0" in differences["result k_s"]["why"]
+    # The same readings, so M1/M2 is unchanged; TRS-398's pulsed-beam quadratic for n = 2
+    # (a0, a1, a2 = 2.337, -3.636, 2.299; REFERENCE.md, from memory) gives the new k_s.
+    with Store.open(db, read_only=True) as store:
+        replay_id = report["replay_session_id"]
+        assert readings_by_set(store, replay_id) == readings_by_set(store, station.clean)
+        results = session_evaluation(store, replay_id).to_dict()
+    ratio = results["charge_ratio"]
+    assert results["k_s"] == pytest.approx(2.337 - 3.636 * ratio + 2.299 * ratio**2, abs=2e-3)
+    assert differences["result k_s"]["replay"] == results["k_s"]
+
+
+def test_a_plan_asking_for_more_readings_than_were_taken_stops_there_and_writes_nothing(
+    station: Station,
+):
+    db = copy_of(station, "what-if-more.sqlite")
+    before = file_state(db)
+    plan = reduced_bias_plan(station.work / "more-routine.toml", 100.0, routine_readings=4)
+    done = replay(db, station.clean, "--speed", "0", "--plan", str(plan))
+    assert done.returncode == 0, done.stderr
+    assert "stopped early:" in done.stdout and "(not stored)" in done.stdout
+    assert "the plan still collects step 'routine' after 3 of its 4 readings" in done.stdout
+    assert "set opposite (attempt 1): present → absent" in done.stdout
+    assert "step 'routine' readings 3 → 4" in done.stdout
+    assert file_state(db) == before
+
+
+# ---------------------------------------------------------------- corrupted and truncated logs
+def traffic_log(station: Station, path: Path, session_id: int) -> list[str]:
+    """Write the session's stored traffic as a JSON-lines log; return its lines."""
+    with Store.open(station.db, read_only=True) as store:
+        recording = load_recording(store, session_id)
+    write_playback_log(load_profile("lumen-q"), recording.lines, path)
+    return path.read_text().splitlines()
+
+
+def test_the_stored_traffic_written_as_a_log_replays_exactly(station: Station):
+    db = copy_of(station, "log-exact.sqlite")
+    log = station.work / "exact.jsonl"
+    traffic_log(station, log, station.clean)
+    done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
+    assert done.returncode == 0, done.stderr
+    assert "exact reproduction:" in done.stdout
+
+
+def corrupt_reading_line(lines: list[str]) -> tuple[list[str], int, str]:
+    """Return the log with one charge value garbled, the line number and its original text."""
+    for index, text in enumerate(lines):
+        entry = json.loads(text)
+        if entry["dir"] == "rx" and entry["line"].startswith("Q +1"):
+            original = entry["line"]
+            entry["line"] = original.replace(".", "x", 1)
+            return [*lines[:index], json.dumps(entry), *lines[index + 1 :]], index + 1, original
+    raise AssertionError("no reading line with a beam charge in the log")
+
+
+@pytest.mark.parametrize("fault", ["garbled reading", "not json", "truncated mid-set"])
+def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_written(
+    station: Station, fault: str
+):
+    db = copy_of(station, f"log-{fault.replace(' ', '-')}.sqlite")
+    log = station.work / f"{fault.replace(' ', '-')}.jsonl"
+    lines = traffic_log(station, log, station.clean)
+    if fault == "garbled reading":
+        lines, number, original = corrupt_reading_line(lines)
+        expected = [f"line {number}", f"{original!r}", "cannot be read by profile lumen-q"]
+    elif fault == "not json":
+        number = len(lines) // 2
+        lines[number - 1] = lines[number - 1][:-5]
+        expected = [f"line {number}", "not valid JSON"]
+    else:
+        cut = next(i for i, t in enumerate(lines) if "Q +1" in t) + 8  # inside the routine set
+        lines = lines[:cut]
+        expected = [f"ends after line {cut}", "truncated", "in reading set 'routine' (attempt 1)"]
+    log.write_text("\n".join(lines) + "\n")
+    before = file_state(db)
+    with Store.open(db, read_only=True) as store:
+        sessions_before = len(store.sessions())
+    done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
+    assert done.returncode == 2, done.stdout + done.stderr
+    message = done.stderr
+    assert f"session {station.clean}" in message and "nothing was written" in message
+    for words in expected:
+        assert words in message
+    assert file_state(db) == before
+    with Store.open(db, read_only=True) as store:
+        assert len(store.sessions()) == sessions_before
+
+
+# ---------------------------------------------------------------------------- bad requests
+def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(station: Station):
+    db = copy_of(station, "bad-session.sqlite")
+    done = replay(db, 99, "--speed", "0")
+    assert done.returncode == 2 and "no session with id 99" in done.stderr
+    with Store.open(db) as store:
+        row = store.session(station.clean)
+        open_id = store.create_session(row.metadata(), row.plan(), row.convention, row.beam)
+    before = file_state(db)
+    done = replay(db, open_id, "--speed", "0")
+    assert done.returncode == 2 and f"session {open_id} is still open" in done.stderr
+    assert file_state(db) == before
+
+
+@pytest.mark.parametrize(
+    ("options", "named"),
+    [
+        (["--threshold", "relative_sd=0.1"], "thresholds.relative_sd"),
+        (["--threshold", "relative_sd_pct"], "--threshold"),
+        (["--speed", "-1"], "--speed"),
+        (["--plan", "no-such-plan"], "plan"),
+        (["--profile", "no-such-profile"], "no-such-profile"),
+    ],
+)
+def test_bad_options_are_refused_naming_them(station: Station, options, named):
+    done = replay(station.db, station.clean, *options)
+    assert done.returncode == 2, done.stdout + done.stderr
+    assert named in done.stderr and done.stdout == ""
