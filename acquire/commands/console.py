@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-HELP = "Open the operator console on a running daemon (closing it never stops a measurement)."
+HELP = "open the operator console on a running daemon (closing it never stops a measurement)"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
