@@ -3,7 +3,11 @@
     k_TP = ((273.2 + T) / (273.2 + T0)) · (P0 / P)
 
 T, T0 in °C and P, P0 in kPa; (T0, P0) are the convention's reference conditions (TRS-398:
-20 °C, 101.325 kPa; TG-51: 22 °C, 101.33 kPa). Both protocols write the kelvin offset as 273.2.
+20 °C, 101.325 kPa; TG-51: 22 °C, 101.33 kPa). Both protocols write the kelvin offset as 273.2,
+and so does this module by default. The exact 273.15 gives a slightly different ratio: the
+relative difference is (T0 − T)·0.05 / ((273.2 + T0)(273.15 + T)), below 1e-6 within 1.5 °C of T0
+and up to about 1.1e-5 at the ends of the accepted 10–40 °C (so 0.001 % at worst, far inside a
+thermometer's uncertainty). ``kelvin_offset=273.15`` reproduces a worked example that used it.
 """
 
 from __future__ import annotations
@@ -12,8 +16,11 @@ from chargebook.corrections.conventions import Convention, constants
 from chargebook.corrections.limits import TEMPERATURE_C, Number
 from chargebook.corrections.units import pressure_kPa as pressure_in_kPa
 
-#: The kelvin offset as both protocols print it (the exact 273.15 differs by < 2e-6 in k_TP).
+#: The kelvin offset as both protocols print it (the exact 273.15 shifts k_TP by at most about
+#: 1.1e-5 relative over 10–40 °C; see the module docstring).
 KELVIN_OFFSET_PROTOCOL = 273.2
+#: The exact offset between the Celsius and the kelvin scales (SI).
+KELVIN_OFFSET_EXACT = 273.15
 
 
 def k_TP(

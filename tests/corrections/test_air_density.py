@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from chargebook.corrections.air_density import k_TP
+from chargebook.corrections.air_density import KELVIN_OFFSET_EXACT, k_TP
 from chargebook.corrections.errors import InputError
 from hypothesis import given
 from hypothesis import strategies as st
@@ -27,9 +27,27 @@ def test_published_worked_example() -> None:
 
 
 def test_protocol_kelvin_offset_stays_within_the_published_rounding() -> None:
-    # Same HPS example with the protocols' 273.2: the offset changes k_TP by < 2e-6 here.
+    # Same HPS example with the protocols' 273.2: the offset changes k_TP by 9e-7 here
+    # (1.5 °C from the reference temperature), well inside the answer's rounding.
     value = k_TP(23.5, 102.0, reference_temperature_C=22.0, reference_pressure_kPa=101.325)
     assert value == pytest.approx(0.99843, abs=5e-6)
+
+
+@pytest.mark.parametrize(
+    ("convention", "T0", "P0"), [("trs398", 20.0, 101.325), ("tg51", 22.0, 101.33)]
+)
+@pytest.mark.parametrize("temperature_C", [10.0, 18.5, 23.5, 40.0])
+def test_273_2_against_273_15_is_the_stated_small_shift(
+    convention: str, T0: float, P0: float, temperature_C: float
+) -> None:
+    # TRS-398 and TG-51 print 273.2; the SI offset is 273.15. Algebra on the two ratios gives
+    # the relative shift 0.05·(T0 − T)/((273.2 + T0)(273.15 + T)): about 1.1e-5 at 40 °C, the
+    # end of the accepted range, and below 1e-6 within 1.5 °C of T0.
+    protocol = k_TP(temperature_C, 101.0, convention)
+    exact = k_TP(temperature_C, 101.0, convention, kelvin_offset=KELVIN_OFFSET_EXACT)
+    shift = 0.05 * (T0 - temperature_C) / ((273.2 + T0) * (273.15 + temperature_C))
+    assert protocol / exact - 1.0 == pytest.approx(shift, rel=1e-6, abs=1e-15)
+    assert abs(protocol / exact - 1.0) < 1.1e-5
 
 
 @pytest.mark.parametrize(
