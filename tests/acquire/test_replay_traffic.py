@@ -1,0 +1,173 @@
+"""The recorded traffic in a replay: the playback log, a user's log, and the follower.
+
+The playback log is read back with the simulator's own reader
+(``drivers_generic.simulator.playback.read_log``), the other end of the format.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.replay_recording import RecordedLine, Recording, load_recording
+from chargebook.acquire.replay_traffic import (
+    Divergence,
+    TrafficFollower,
+    TrafficLogError,
+    line_bytes,
+    line_text,
+    read_traffic_log,
+    write_playback_log,
+)
+from chargebook.acquire.store import Store
+from chargebook.drivers_generic import load_profile
+from chargebook.drivers_generic.interface import TrafficDirection
+from chargebook.drivers_generic.simulator.playback import read_log
+from recorded_session import example_metadata, example_plan
+
+LUMEN_Q = load_profile("lumen-q")
+LINES = (
+    RecordedLine(0, 10.25, "tx", b"BIAS +300\r\n"),
+    RecordedLine(1, 10.2625, "rx", b"OK\r\n"),
+    RecordedLine(2, 10.5, "tx", b"Q?\r\n"),
+    RecordedLine(3, 10.503906, "rx", b"Q +19.6023 nC A\r\n"),
+)
+
+
+@pytest.fixture
+def recording() -> Recording:
+    store = Store.memory()
+    session_id = store.create_session(
+        example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
+    )
+    for line in LINES:
+        store.add_traffic(session_id, line.t_s, line.direction, line.raw)
+    store.set_session_status(session_id, "finished")
+    return load_recording(store, session_id)
+
+
+def test_a_line_keeps_bytes_that_are_not_text_through_its_text_form():
+    raw = b"Q +1\xff.0000 nC A\r\n"
+    text = line_text(LUMEN_Q, RecordedLine(0, 1.0, "rx", raw))
+    assert text == "Q +1\udcff.0000 nC A"  # Python's surrogateescape for byte 0xff
+    assert line_bytes(LUMEN_Q, "rx", text) == raw
+
+
+def test_the_playback_log_reads_back_with_the_simulators_reader(tmp_path: Path):
+    path = write_playback_log(LUMEN_Q, LINES, tmp_path / "playback.jsonl")
+    assert read_log(path) == [
+        (10.25, "tx", "BIAS +300"),
+        (10.2625, "rx", "OK"),
+        (10.5, "tx", "Q?"),
+        (10.503906, "rx", "Q +19.6023 nC A"),
+    ]
+
+
+def positions(recording: Recording) -> list[str]:
+    return [f"at {i}" for i in range(len(recording.lines) + 1)]
+
+
+def test_a_log_of_the_session_reads_as_its_lines(tmp_path: Path, recording: Recording):
+    path = write_playback_log(LUMEN_Q, recording.lines, tmp_path / "log.jsonl")
+    assert read_traffic_log(path, recording, LUMEN_Q, positions(recording)) == recording.lines
+
+
+def truncated(lines: list[str]) -> list[str]:
+    return lines[:3]
+
+
+def one_too_many(lines: list[str]) -> list[str]:
+    return [*lines, lines[-1]]
+
+
+def wrong_direction(lines: list[str]) -> list[str]:
+    return [lines[0], lines[1].replace('"rx"', '"tx"'), *lines[2:]]
+
+
+def cut_short(lines: list[str]) -> list[str]:
+    return [lines[0], lines[1][:-3], *lines[2:]]
+
+
+def time_as_text(lines: list[str]) -> list[str]:
+    return [lines[0], lines[1].replace("10.2625", '"late"'), *lines[2:]]
+
+
+@pytest.mark.parametrize(
+    ("edit", "message"),
+    [
+        (
+            truncated,
+            "is truncated: it ends after line 3, the session recorded 4 lines; it stops at 3",
+        ),
+        (one_too_many, "has 5 lines, session 1 recorded 4"),
+        (
+            wrong_direction,
+            "line 2: dir = 'tx' is not allowed; session 1 recorded 'rx' there (at 1)",
+        ),
+        (cut_short, "line 2: not valid JSON"),
+        (time_as_text, "line 2: t_s = 'late' is not allowed"),
+    ],
+)
+def test_a_corrupted_or_truncated_log_is_refused_naming_the_session_and_line(
+    tmp_path: Path, recording: Recording, edit, message: str
+):
+    path = write_playback_log(LUMEN_Q, recording.lines, tmp_path / "log.jsonl")
+    path.write_text("\n".join(edit(path.read_text().splitlines())) + "\n")
+    with pytest.raises(TrafficLogError) as refused:
+        read_traffic_log(path, recording, LUMEN_Q, positions(recording))
+    assert "session 1" in str(refused.value) and message in str(refused.value)
+
+
+def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
+    store = Store.memory()
+    session_id = store.create_session(
+        example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
+    )
+    follower = TrafficFollower(LINES, LUMEN_Q)
+    follower.attach(store, session_id)
+    for line in LINES:
+        t_s = follower.clock()
+        follower(TrafficDirection(line.direction), t_s, line.raw)
+    assert follower.finished and follower.last_t_s == 10.503906
+    assert [(r.t_s, r.direction, r.line) for r in store.traffic(session_id)] == [
+        (line.t_s, line.direction, line.raw) for line in LINES
+    ]
+
+
+def test_the_follower_stops_a_replay_at_the_first_line_that_differs():
+    follower = TrafficFollower(LINES, LUMEN_Q)
+    follower(TrafficDirection.SENT, follower.clock(), b"BIAS +300\r\n")
+    follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
+    with pytest.raises(Divergence) as diverged:
+        follower(TrafficDirection.SENT, follower.clock(), b"HOLD\r\n")
+    assert str(diverged.value) == (
+        "at traffic line 3 the replay sent 'HOLD' where the original sent 'Q?'"
+    )
+
+
+def test_a_what_if_follower_notes_the_same_command_sent_with_other_values():
+    def same_command(recorded: str, sent: str) -> bool:
+        return recorded.split()[0] == sent.split()[0]
+
+    follower = TrafficFollower(LINES, LUMEN_Q, same_command=same_command)
+    follower(TrafficDirection.SENT, follower.clock(), b"BIAS +150\r\n")
+    assert [(n.index, n.recorded, n.sent) for n in follower.notes] == [
+        (0, "BIAS +300", "BIAS +150")
+    ]
+    follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
+    with pytest.raises(Divergence, match="line 3"):
+        follower(TrafficDirection.SENT, follower.clock(), b"ZERO\r\n")
+
+
+def test_a_line_after_the_last_recorded_one_stops_the_replay():
+    follower = TrafficFollower(LINES[:1], LUMEN_Q)
+    follower(TrafficDirection.SENT, follower.clock(), b"BIAS +300\r\n")
+    with pytest.raises(Divergence, match=r"after the last recorded line \(1\).*received 'OK'"):
+        follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
+
+
+def test_the_log_keeps_recorded_times_exactly(tmp_path: Path):
+    awkward = (RecordedLine(0, 1234.5678901234567, "tx", b"Q?\r\n"),)
+    path = write_playback_log(LUMEN_Q, awkward, tmp_path / "times.jsonl")
+    assert json.loads(path.read_text())["t_s"] == 1234.5678901234567
