@@ -6,9 +6,18 @@ exports call, so every number an operator sees is computed here, once. Partial i
 every value depending on it is None, never computed as if the factor were 1. Invalid inputs
 raise :class:`~chargebook.corrections.errors.InputError` naming the field, value and range.
 
-Factor states: "measured" (derived from readings or the environment), "entered" (typed in from a
-certificate), "default" (not entered, the stated conventional value used: k_elec = 1 for a
-chamber and electrometer calibrated together, k_h = 1 for 20–80 % RH), "pending" (not known yet).
+Factor states, one rule for every factor (where its value comes from):
+
+* "measured": computed from this session's measurements: the charge readings (k_pol, k_s) or the
+  thermometer and barometer readings (k_TP), whether typed in or sent by a sensor;
+* "entered": the factor's own value typed in from a certificate or the code of practice
+  (k_elec, N_D,w, k_Q);
+* "default": no measurement or entry gives the value; the protocols' conventional value is used
+  and the source says why. k_h is always 1 here: with 20–80 % RH entered the protocols' rule
+  gives 1 (the source says the entered humidity is in the band), with none entered 1 is assumed
+  (flag ``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``).
+  k_elec = 1 when none is entered, as for a chamber and electrometer calibrated together;
+* "pending": not known yet; every value depending on it is None.
 """
 
 from __future__ import annotations
@@ -19,8 +28,9 @@ from types import MappingProxyType
 
 import numpy as np
 from chargebook.corrections import dose as dose_module
-from chargebook.corrections import limits, stability
+from chargebook.corrections import humidity, limits, stability
 from chargebook.corrections.air_density import k_TP as k_TP_of
+from chargebook.corrections.air_density import k_TP_relative_sensitivity
 from chargebook.corrections.conventions import Convention, constants, parse_convention
 from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.polarity import k_pol as k_pol_of
@@ -357,12 +367,8 @@ def _factor_k_TP(
     if checked.temperature_C is None or checked.pressure_kPa is None:
         return _pending(symbol, "temperature and pressure")
     value = float(k_TP_of(checked.temperature_C, checked.pressure_kPa, convention))
-    u_rel = 100.0 * float(
-        np.hypot(
-            u.u_temperature_C / (273.2 + checked.temperature_C),
-            u.u_pressure_kPa / checked.pressure_kPa,
-        )
-    )
+    per_C, per_kPa = k_TP_relative_sensitivity(checked.temperature_C, checked.pressure_kPa)
+    u_rel = 100.0 * float(np.hypot(per_C * u.u_temperature_C, per_kPa * u.u_pressure_kPa))
     reference = constants(convention)
     source = (
         f"{checked.temperature_C:g} °C, {checked.pressure_kPa:g} kPa → "
@@ -372,12 +378,27 @@ def _factor_k_TP(
 
 
 def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
+    """k_h is 1 by the protocols' rule, never computed: its state is "default" in every case."""
+    band = f"{humidity.BAND_LOW_PCT:g}–{humidity.BAND_HIGH_PCT:g} % RH"
     if humidity_pct is None:
-        return Factor(symbol, 1.0, "default", 0.0, "no humidity entered; 1 for 20–80 % RH")
-    return Factor(symbol, 1.0, "measured", 0.0, f"{humidity_pct:g} % RH; 1 for 20–80 % RH")
+        source = f"no humidity entered; 1 assumed (holds for {band})"
+    elif humidity.humidity_in_band(humidity_pct):
+        source = f"{humidity_pct:g} % RH entered, within {band}: 1 by rule"
+    else:
+        source = f"{humidity_pct:g} % RH entered, outside {band}: 1 used, see flags"
+    return Factor(symbol, 1.0, "default", 0.0, source)
 
 
-def _factor_k_pol(symbol: str, sets: Mapping[str, SetStatistics | None]) -> Factor:
+#: The polarity formula as each protocol prints it (they give the same number).
+_K_POL_FORMULA = {
+    Convention.TRS398: "(|M+| + |M−|) / (2|M|)",
+    Convention.TG51: "|(M+ − M−) / (2M)|",
+}
+
+
+def _factor_k_pol(
+    symbol: str, sets: Mapping[str, SetStatistics | None], convention: Convention
+) -> Factor:
     routine, opposite = sets["routine"], sets["opposite"]
     if routine is None or opposite is None:
         return _pending(symbol, "routine and opposite-polarity readings")
@@ -388,7 +409,7 @@ def _factor_k_pol(symbol: str, sets: Mapping[str, SetStatistics | None]) -> Fact
         u_rel = share * float(
             np.hypot(routine.relative_standard_error_pct, opposite.relative_standard_error_pct)
         )
-    return Factor(symbol, value, "measured", u_rel, "(|M+| + |M−|) / (2|M|)")
+    return Factor(symbol, value, "measured", u_rel, _K_POL_FORMULA[convention])
 
 
 def _factor_k_s(
@@ -447,7 +468,7 @@ def _factors(
     return {
         "k_TP": _factor_k_TP(symbols["k_TP"], convention, checked, u),
         "k_h": _factor_k_h(symbols["k_h"], checked.humidity_pct),
-        "k_pol": _factor_k_pol(symbols["k_pol"], sets),
+        "k_pol": _factor_k_pol(symbols["k_pol"], sets, convention),
         "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention),
         "k_elec": k_elec,
         "N_Dw": _factor_entered(

@@ -70,9 +70,11 @@ def test_to_dict_has_the_documented_keys_and_is_json(session: Session) -> None:
     result = evaluate(session()).to_dict()
     assert set(result) >= REQUIRED_KEYS
     assert json.loads(json.dumps(result)) == result
+    # One rule (corrections.evaluate): measured = from this session's readings, thermometer and
+    # barometer; entered = the factor typed in; default = the protocols' conventional value.
     assert result["factor_states"] == {
         "k_TP": "measured",
-        "k_h": "measured",
+        "k_h": "default",
         "k_pol": "measured",
         "k_s": "measured",
         "k_elec": "entered",
@@ -136,6 +138,41 @@ def test_k_elec_default_is_stated(session: Session) -> None:
     assert result["k_elec"] == 1.0
     assert result["factor_states"]["k_elec"] == "default"
     assert "k_elec_assumed" in flag_codes(result)
+
+
+@pytest.mark.parametrize(
+    ("humidity_pct", "words", "flag"),
+    [
+        (None, "no humidity entered; 1 assumed", "k_h_assumed"),
+        (45.0, "45 % RH entered, within 20–80 % RH: 1 by rule", None),
+        (85.0, "85 % RH entered, outside 20–80 % RH: 1 used", "humidity_out_of_band"),
+    ],
+)
+def test_k_h_is_one_by_rule_and_never_called_measured(
+    session: Session, humidity_pct: float | None, words: str, flag: str | None
+) -> None:
+    # k_h = 1 for 20–80 % RH with a chamber calibrated near 50 % RH (both protocols, from
+    # memory): nothing is computed from the humidity, so the state is "default" in every case
+    # and the source and flags say whether the entered humidity supports the rule.
+    result = evaluate(session(humidity_pct=humidity_pct))
+    factor = result.factors["k_h"]
+    assert (factor.value, factor.state) == (1.0, "default")
+    assert words in factor.source
+    codes = flag_codes(result.to_dict())
+    assert {"k_h_assumed", "humidity_out_of_band"} & set(codes) == ({flag} if flag else set())
+
+
+def test_k_TP_from_thermometer_and_barometer_is_measured(session: Session) -> None:
+    # T and P are this session's measurements (typed in or sent by a sensor): k_TP is
+    # "measured", and pending without either.
+    assert evaluate(session()).factors["k_TP"].state == "measured"
+    assert evaluate(session(temperature_C=None)).factors["k_TP"].state == "pending"
+
+
+def test_k_pol_source_prints_the_chosen_protocols_formula(session: Session) -> None:
+    # TRS-398 writes (|M+| + |M−|)/(2|M|); TG-51 writes |(M+ − M−)/(2M)| (REFERENCE.md).
+    assert evaluate(session()).factors["k_pol"].source == "(|M+| + |M−|) / (2|M|)"
+    assert evaluate(session(convention="tg51")).factors["k_pol"].source == "|(M+ − M−) / (2M)|"
 
 
 def test_tg51_names_its_symbols(session: Session) -> None:
