@@ -62,6 +62,8 @@ FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw",
 CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
 STATES: tuple[str, ...] = ("measured", "entered", "default", "pending")
 SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
+#: Budget source of a Type B input whose uncertainty was not given (flagged, never taken as 0).
+NOT_GIVEN = "not given: left out of u_c"
 
 
 @dataclass(frozen=True)
@@ -70,15 +72,17 @@ class Uncertainties:
 
     ``u_N_Dw_pct_k2``: N_D,w's expanded uncertainty as on the calibration certificate (k = 2),
     halved here; None: not given, left out of u_c and flagged. ``u_k_Q_pct``: k_Q's standard
-    uncertainty (%); None: likewise. ``u_k_elec_pct``: k_elec's standard uncertainty (%), 0 when
-    chamber and electrometer were calibrated together. ``u_temperature_C``: thermometer, 0.1 °C
+    uncertainty (%); None: likewise. ``u_k_elec_pct``: k_elec's standard uncertainty (%); None
+    with no k_elec entered means 0 (chamber and electrometer calibrated together: N_D,w's
+    uncertainty covers both), None with a k_elec entered means not given: left out of u_c and
+    flagged, never taken as 0. ``u_temperature_C``: thermometer, 0.1 °C
     (a calibrated probe; common practice). ``u_pressure_kPa``: barometer, 0.05 kPa (a calibrated
     digital barometer; common practice).
     """
 
     u_N_Dw_pct_k2: float | None = None
     u_k_Q_pct: float | None = None
-    u_k_elec_pct: float = 0.0
+    u_k_elec_pct: float | None = None
     u_temperature_C: float = 0.1
     u_pressure_kPa: float = 0.05
 
@@ -458,7 +462,7 @@ def _factors(
             symbols["k_elec"],
             1.0,
             "default",
-            u.u_k_elec_pct,
+            u.u_k_elec_pct or 0.0,
             "not entered; 1 (calibrated together)",
         )
         if checked.k_elec is None
@@ -505,27 +509,27 @@ def _model(
         return None if stats is None else Estimate(stats.mean_nC, stats.standard_error_nC)
 
     has_k_TP = factors["k_TP"].state != "pending"
-    k_elec_source = (
-        "Type B: electrometer calibration"
-        if factors["k_elec"].state == "entered"
-        else ("Type B: k_elec not entered (calibrated together)")
-    )
+    k_elec = factors["k_elec"]
+    if k_elec.u_rel_pct is None:
+        k_elec_source = NOT_GIVEN
+    elif k_elec.state == "entered":
+        k_elec_source = f"Type B: electrometer calibration, u = {k_elec.u_rel_pct:g} %"
+    else:
+        k_elec_source = f"Type B: {k_elec.symbol} not entered (calibrated together), u = " + (
+            f"{k_elec.u_rel_pct:g} %"
+        )
     relative = (
-        RelativeInput(
-            factors["k_elec"].symbol, u.u_k_elec_pct, f"{k_elec_source}, u = {u.u_k_elec_pct:g} %"
-        ),
+        RelativeInput(k_elec.symbol, k_elec.u_rel_pct, k_elec_source),
         RelativeInput(
             f"{factors['N_Dw'].symbol} calibration coefficient",
             factors["N_Dw"].u_rel_pct,
-            "Type B: certificate, U(k=2) halved"
-            if u.u_N_Dw_pct_k2 is not None
-            else "not given: left out of u_c",
+            "Type B: certificate, U(k=2) halved" if u.u_N_Dw_pct_k2 is not None else NOT_GIVEN,
             in_charge=False,
         ),
         RelativeInput(
             factors["k_Q"].symbol,
             u.u_k_Q_pct,
-            "Type B: code of practice" if u.u_k_Q_pct is not None else "not given: left out of u_c",
+            "Type B: code of practice" if u.u_k_Q_pct is not None else NOT_GIVEN,
             in_charge=False,
         ),
     )
@@ -546,15 +550,19 @@ def _type_a_known(components: Sequence[Component]) -> bool:
     return all(c.u_rel_pct is not None for c in components if c.source.startswith("Type A"))
 
 
-def _uncertainty_flags(components: Sequence[Component]) -> list[Flag]:
-    missing = [c.component for c in components if c.source.startswith("not given")]
+def _uncertainty_flags(components: Sequence[Component], dose_known: bool) -> list[Flag]:
+    """Flag inputs whose uncertainty was not given, among those of the results computed."""
+    missing = [
+        c.component for c in components if c.source == NOT_GIVEN and (dose_known or c.in_charge)
+    ]
     if not missing:
         return []
+    result = "dose" if dose_known else "corrected charge"
     return [
         Flag(
             "uncertainty_incomplete",
             f"No uncertainty was entered for {' and '.join(missing)}: the combined uncertainty "
-            "leaves it out and understates the true uncertainty of the dose.",
+            f"leaves it out and understates the true uncertainty of the {result}.",
             "info",
         )
     ]
@@ -660,8 +668,8 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
             u_dose = combine_pct(components) if dose_Gy is not None else None
 
     flags = _session_flags(inputs, checked, sets, factors)
-    if dose_Gy is not None:
-        flags += _uncertainty_flags(components)
+    if M_corrected is not None:
+        flags += _uncertainty_flags(components, dose_known=dose_Gy is not None)
     flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
     tolerance_source = _tolerance_source(inputs.tolerance_pct)
     charge_ratio = None

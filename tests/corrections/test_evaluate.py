@@ -219,6 +219,43 @@ def test_missing_type_b_uncertainty_is_flagged(session: Session) -> None:
     assert result["u_combined_pct"] < 0.2
 
 
+def budget_line(result: dict, component: str) -> dict:
+    return next(line for line in result["budget"] if line["component"] == component)
+
+
+def test_k_elec_entered_without_its_uncertainty_is_not_taken_as_exact(session: Session) -> None:
+    # GUM (JCGM 100:2008): an input with an unknown uncertainty cannot count as exact. A k_elec
+    # from a separate electrometer calibration carries its own uncertainty: left out and said.
+    result = evaluate(session(k_elec=0.998)).to_dict()
+    assert budget_line(result, "k_elec")["u_rel_pct"] is None
+    assert result["factor_u_rel_pct"]["k_elec"] is None
+    flag = next(f for f in result["flags"] if f["code"] == "uncertainty_incomplete")
+    assert "k_elec" in flag["message"] and "dose" in flag["message"]
+    given = evaluate(
+        session(k_elec=0.998, uncertainties=Uncertainties(1.1, 1.0, u_k_elec_pct=0.1))
+    ).to_dict()
+    assert budget_line(given, "k_elec")["u_rel_pct"] == 0.1
+    assert "uncertainty_incomplete" not in flag_codes(given)
+
+
+def test_k_elec_not_entered_is_exact_within_the_joint_calibration(session: Session) -> None:
+    # Chamber and electrometer calibrated together: k_elec = 1 with no uncertainty of its own
+    # (N_D,w's certificate covers the pair; REFERENCE.md).
+    result = evaluate(session(k_elec=None)).to_dict()
+    assert budget_line(result, "k_elec")["u_rel_pct"] == 0.0
+    assert "uncertainty_incomplete" not in flag_codes(result)
+
+
+def test_missing_uncertainty_of_the_charge_is_flagged_without_a_dose(session: Session) -> None:
+    # No N_D,w yet, so no dose: the corrected charge's u_c still must not hide a missing input.
+    no_type_b = Uncertainties()  # neither N_D,w's nor k_Q's nor k_elec's uncertainty given
+    result = evaluate(session(N_Dw_Gy_per_nC=None, k_elec=0.998, uncertainties=no_type_b)).to_dict()
+    assert result["dose_Gy"] is None and result["u_M_corrected_pct"] is not None
+    flag = next(f for f in result["flags"] if f["code"] == "uncertainty_incomplete")
+    assert "k_elec" in flag["message"] and "corrected charge" in flag["message"]
+    assert "k_Q" not in flag["message"]  # k_Q and N_D,w are not part of the corrected charge
+
+
 def test_certificate_uncertainty_is_halved(session: Session) -> None:
     # GUM: an expanded uncertainty stated at k = 2 is divided by 2 for the standard uncertainty.
     result = evaluate(session())
