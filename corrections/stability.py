@@ -24,6 +24,13 @@ SET_NAMES = {
 }
 
 
+def _finite_number(value: object) -> bool:
+    """Return True for an int or float (not a bool) that is finite."""
+    return (
+        isinstance(value, int | float) and not isinstance(value, bool) and bool(np.isfinite(value))
+    )
+
+
 @dataclass(frozen=True)
 class Thresholds:
     """Limits beyond which a flag is raised; all are settings, with these defaults."""
@@ -68,13 +75,15 @@ class Thresholds:
             "pressure_change_kPa",
         ):
             value = getattr(self, name)
-            if isinstance(value, bool) or not isinstance(value, int | float) or value <= 0:
-                raise InputError(f"thresholds.{name}", value, "a number above 0")
-        if not 1.0 < self.k_s_max <= 2.0:
+            # NaN compares false with everything: a NaN limit would silently never flag.
+            if not _finite_number(value) or value <= 0:
+                raise InputError(f"thresholds.{name}", value, "a finite number above 0")
+        if not _finite_number(self.k_s_max) or not 1.0 < self.k_s_max <= 2.0:
             raise InputError("thresholds.k_s_max", self.k_s_max, "above 1 and at most 2")
         if isinstance(self.minimum_readings, bool) or self.minimum_readings not in range(1, 101):
             raise InputError("thresholds.minimum_readings", self.minimum_readings, "1 to 100")
-        if self.charge_sign_for_positive_bias not in (None, 1, -1):
+        sign = self.charge_sign_for_positive_bias
+        if isinstance(sign, bool) or sign not in (None, 1, -1):
             raise InputError(
                 "thresholds.charge_sign_for_positive_bias",
                 self.charge_sign_for_positive_bias,

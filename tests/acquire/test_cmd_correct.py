@@ -122,6 +122,15 @@ def test_invalid_example_exits_2_naming_the_field() -> None:
     [
         ("convention = \n", "is not valid TOML"),
         (
+            'convention = "trs398"\nbeam = "pulsed"\n[readings]\nroutine_nC = [14.7, nan]\n',
+            "routine_nC[1] = nan is not a finite number",
+        ),
+        (
+            'convention = "trs398"\nbeam = "pulsed"\n[environment]\ntemperature_C = inf\n'
+            "pressure_kPa = 101.0\n[readings]\nroutine_nC = [14.7]\n",
+            "temperature_C = inf is not a finite number",
+        ),
+        (
             'convention = "trs398"\nbeam = "pulsed"\n'
             "[readings]\nroutine_nC = [14.7, -14.7, 14.7]\n",
             "routine_nC[1] = -14.7 has a sign that contradicts the bias",

@@ -90,6 +90,13 @@ def test_thresholds_section(tmp_path: Path) -> None:
         ("[calibration]\nN_Dw_Gy_per_C = -5.4e7\n", "N_Dw_Gy_per_C", "Gy/C"),
         ("[readings_extra]\nx = 1\n", "readings_extra", "not a known key"),
         ("[thresholds]\nk_s_max = 0.9\n", "thresholds.k_s_max", "above 1"),
+        # TOML spells NaN and infinity; a NaN limit would never flag anything.
+        ("[thresholds]\nrelative_sd_pct = nan\n", "thresholds.relative_sd_pct", "finite"),
+        (
+            "[thresholds]\ndrift_pct_per_reading = inf\n",
+            "thresholds.drift_pct_per_reading",
+            "finite",
+        ),
     ],
 )
 def test_mistakes_are_named(tmp_path: Path, extra: str, field: str, words: str) -> None:

@@ -120,6 +120,12 @@ def test_sign_against_bias_only_when_the_convention_is_known() -> None:
     ("change", "field"),
     [
         ({"relative_sd_pct": -0.1}, "thresholds.relative_sd_pct"),
+        # NaN compares false with every value, so a NaN limit would never flag: refused, as
+        # is an infinite one (a worksheet's TOML or JSON can spell both).
+        ({"relative_sd_pct": float("nan")}, "thresholds.relative_sd_pct"),
+        ({"leakage_pct": float("inf")}, "thresholds.leakage_pct"),
+        ({"k_s_max": float("nan")}, "thresholds.k_s_max"),
+        ({"charge_sign_for_positive_bias": True}, "thresholds.charge_sign_for_positive_bias"),
         ({"k_s_max": 0.99}, "thresholds.k_s_max"),
         ({"minimum_readings": 0}, "thresholds.minimum_readings"),
         ({"charge_sign_for_positive_bias": 2}, "thresholds.charge_sign_for_positive_bias"),
