@@ -18,6 +18,7 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.limits import CHARGE_NC, CORRECTION_FACTOR, K_ELEC
 from chargebook.corrections.polarity import k_pol
 from chargebook.corrections.recombination import Beam, k_s, voltage_ratio
+from chargebook.corrections.signs import set_signs
 
 
 @dataclass(frozen=True)
@@ -52,6 +53,31 @@ def padded_sets(field: str, readings_nC: object) -> np.ndarray:
         row = int(np.flatnonzero(empty)[0])
         raise InputError(f"{field}[{row}]", [], "at least one reading", "is an empty reading set")
     return array
+
+
+#: Sign of each set relative to the routine set: the reduced bias keeps the routine polarity.
+_SIGN_RELATIVE_TO_ROUTINE = {"opposite_nC": -1.0, "reduced_nC": 1.0}
+
+
+def check_signs(routine: np.ndarray, others: dict[str, np.ndarray]) -> None:
+    """Refuse rows whose readings contradict their bias, within a row or against the routine row.
+
+    ``others`` maps "opposite_nC" and "reduced_nC" to their NaN-padded rows. Raises InputError
+    naming the reading (``reduced_nC[3,1]``) or the row (``opposite_nC[3]``).
+    """
+    routine_sign = set_signs("routine_nC", routine)
+    for field, rows in others.items():
+        relation = _SIGN_RELATIVE_TO_ROUTINE[field]
+        wrong = np.broadcast_to(set_signs(field, rows) != relation * routine_sign, (len(rows),))
+        if wrong.any():
+            row = int(np.flatnonzero(wrong)[0])
+            words = "the opposite sign to" if relation < 0 else "the same sign as"
+            raise InputError(
+                f"{field}[{row}]",
+                float(np.nanmean(rows[row])),
+                f"charges of {words} the routine readings",
+                "has a sign that contradicts its bias",
+            )
 
 
 def _mean(array: np.ndarray) -> np.ndarray:
@@ -92,10 +118,11 @@ def evaluate_sessions(
     routine = padded_sets("routine_nC", routine_nC)
     opposite = padded_sets("opposite_nC", opposite_nC)
     reduced = padded_sets("reduced_nC", reduced_nC)
+    check_signs(routine, {"opposite_nC": opposite, "reduced_nC": reduced})
     M_raw = _mean(routine)
     air = k_TP(temperature_C, pressure_kPa, convention)
     polarity = k_pol(M_raw, _mean(opposite))
-    n = voltage_ratio(routine_bias_V, reduced_bias_V)
+    n = voltage_ratio(routine_bias_V, reduced_bias_V, fields=("routine_bias_V", "reduced_bias_V"))
     recombination = k_s(M_raw / _mean(reduced), n, beam, convention)
     electrometer = K_ELEC.check("k_elec", k_elec)
     M_corrected = np.abs(M_raw) * air * polarity * recombination * electrometer

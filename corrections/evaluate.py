@@ -42,6 +42,7 @@ from chargebook.corrections.recombination import (
 )
 from chargebook.corrections.recombination import k_s as k_s_of
 from chargebook.corrections.recombination import method as recombination_method
+from chargebook.corrections.signs import set_signs
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.statistics import SetStatistics, readings_array, set_statistics
 from chargebook.corrections.uncertainty import (
@@ -295,25 +296,6 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
     )
 
 
-def _check_set_signs(key: str, readings: np.ndarray) -> None:
-    """Refuse a reading whose sign differs from its set's: within a set the bias is fixed.
-
-    The set's sign is that of the majority of its readings (of the first reading on a tie); an
-    exact zero carries no sign and is refused too.
-    """
-    positive, negative = int((readings > 0).sum()), int((readings < 0).sum())
-    set_sign = 1.0 if positive > negative or (positive == negative and readings[0] > 0) else -1.0
-    wrong = np.sign(readings) != set_sign
-    if wrong.any():
-        index = int(np.flatnonzero(wrong)[0])
-        raise InputError(
-            f"{key}_nC[{index}]",
-            float(readings[index]),
-            f"a {'negative' if set_sign < 0 else 'positive'} charge like the rest of the set",
-            "has a sign that contradicts the bias of its set",
-        )
-
-
 def _check_cross_signs(sets: Mapping[str, SetStatistics | None]) -> None:
     """Refuse sets whose signs contradict their biases relative to one another.
 
@@ -352,7 +334,7 @@ def _reading_sets(
             sets[key] = None
             continue
         values = readings_array(f"{key}_nC", readings)
-        _check_set_signs(key, values)
+        set_signs(f"{key}_nC", values)
         sets[key] = set_statistics(values, f"{key}_nC", threshold)
     _check_cross_signs(sets)
     return sets

@@ -35,7 +35,16 @@ def invented_sessions() -> dict[str, np.ndarray]:
     }
 
 
-def test_each_session_matches_evaluate(session) -> None:
+@pytest.mark.parametrize(
+    ("convention", "beam"),
+    [
+        ("trs398", "pulsed"),
+        ("trs398", "pulsed-scanned"),
+        ("tg51", "pulsed"),
+        ("tg51", "continuous"),
+    ],
+)
+def test_each_session_matches_evaluate(session, convention: str, beam: str) -> None:
     data = invented_sessions()
     batch = evaluate_sessions(
         data["routine"],
@@ -46,6 +55,8 @@ def test_each_session_matches_evaluate(session) -> None:
         **SETTINGS,
         monitor_units=100.0,
         expected_cGy_per_MU=0.8,
+        convention=convention,
+        beam=beam,
     )
     for i in range(SESSIONS):
         routine = data["routine"][i]
@@ -56,9 +67,13 @@ def test_each_session_matches_evaluate(session) -> None:
                 reduced_nC=tuple(data["reduced"][i]),
                 temperature_C=float(data["temperature_C"][i]),
                 pressure_kPa=float(data["pressure_kPa"][i]),
+                convention=convention,
+                beam=beam,
             )
         )
         assert batch.count[i] == single.sets["routine"].count
+        assert batch.k_TP[i] == pytest.approx(single.factors["k_TP"].value, rel=1e-15)
+        assert batch.k_pol[i] == pytest.approx(single.factors["k_pol"].value, rel=1e-12)
         assert batch.k_s[i] == pytest.approx(single.factors["k_s"].value, rel=1e-12)
         assert batch.dose_Gy[i] == pytest.approx(single.dose_Gy, rel=1e-12)
         assert batch.deviation_pct[i] == pytest.approx(single.deviation_pct, rel=1e-9, abs=1e-12)
@@ -95,3 +110,75 @@ def test_an_empty_session_is_refused_by_row() -> None:
 def test_an_out_of_range_temperature_is_refused_by_index() -> None:
     with pytest.raises(InputError, match=r"temperature_C\[1\] = 45"):
         corrected_readings_nC([14.7, 14.7], [20.0, 45.0], 101.0, k_pol=1.0, k_s=1.0, k_elec=1.0)
+
+
+def sessions_with(**rows: list[list[float]]) -> dict[str, np.ndarray]:
+    """Return two plain sessions (routine +, opposite −, reduced +) with some rows replaced."""
+    data = {
+        "routine_nC": [[14.75, 14.76, 14.74], [14.70, 14.71, 14.69]],
+        "opposite_nC": [[-14.78, -14.77, -14.79], [-14.73, -14.72, -14.74]],
+        "reduced_nC": [[14.57, 14.56, 14.58], [14.52, 14.51, 14.53]],
+    }
+    data.update(rows)
+    return {key: np.array(value) for key, value in data.items()}
+
+
+@pytest.mark.parametrize(
+    ("rows", "field", "words"),
+    [
+        # A near-zero reading of the wrong sign in a reduced-bias row: its mean would still give a
+        # plausible-looking M1/M2 (about 1.5, k_s about 1.4) if the sign were not checked.
+        (
+            {"reduced_nC": [[14.57, 14.56, 14.58], [14.52, 14.51, -0.01]]},
+            "reduced_nC[1,2]",
+            "contradicts the bias of its set",
+        ),
+        (
+            {"routine_nC": [[14.75, 14.76, 14.74], [14.70, -14.71, 14.69]]},
+            "routine_nC[1,1]",
+            "contradicts the bias of its set",
+        ),
+        (
+            {"opposite_nC": [[-14.78, -14.77, -14.79], [14.73, 14.72, 14.74]]},
+            "opposite_nC[1]",
+            "opposite sign to the routine readings",
+        ),
+        (
+            {"reduced_nC": [[-14.57, -14.56, -14.58], [14.52, 14.51, 14.53]]},
+            "reduced_nC[0]",
+            "same sign as the routine readings",
+        ),
+    ],
+)
+def test_signs_that_contradict_the_bias_are_refused_by_row(
+    rows: dict, field: str, words: str
+) -> None:
+    # The same rule as evaluate(): one bias per set, the reduced bias keeps the routine
+    # polarity and the opposite set reverses it.
+    data = sessions_with(**rows)
+    with pytest.raises(InputError) as caught:
+        evaluate_sessions(
+            data["routine_nC"],
+            data["opposite_nC"],
+            data["reduced_nC"],
+            temperature_C=20.0,
+            pressure_kPa=101.0,
+            **SETTINGS,
+        )
+    assert caught.value.field == field
+    assert words in str(caught.value)
+
+
+def test_batch_bias_errors_use_the_batch_argument_names() -> None:
+    data = sessions_with()
+    settings = {**SETTINGS, "reduced_bias_V": -100.0}
+    with pytest.raises(InputError) as caught:
+        evaluate_sessions(
+            data["routine_nC"],
+            data["opposite_nC"],
+            data["reduced_nC"],
+            temperature_C=20.0,
+            pressure_kPa=101.0,
+            **settings,
+        )
+    assert caught.value.field == "reduced_bias_V"
