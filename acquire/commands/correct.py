@@ -162,12 +162,20 @@ def _uncertainty(evaluation: Evaluation) -> list[str]:
         for c in evaluation.budget
     ]
     lines += _table(rows)
-    u_c, U = evaluation.u_combined_pct, evaluation.U_expanded_pct
+    u_c, U, u_charge = (
+        evaluation.u_combined_pct,
+        evaluation.U_expanded_pct,
+        evaluation.u_M_corrected_pct,
+    )
     if u_c is None:
-        what = "corrected charge" if evaluation.u_M_corrected_pct is not None else "dose"
-        lines.append(f"  combined standard uncertainty of the {what}: cannot be evaluated yet")
-        if evaluation.u_M_corrected_pct is not None:
-            lines.append(f"  u_c of the corrected charge = {evaluation.u_M_corrected_pct:.3f} %")
+        if u_charge is None:
+            lines.append(
+                "  combined standard uncertainty: cannot be evaluated yet (a factor is pending "
+                "or a set has a single reading)"
+            )
+        else:
+            lines.append(f"  u_c of the corrected charge = {u_charge:.3f} %")
+            lines.append("  combined standard uncertainty of the dose: cannot be evaluated yet")
         return lines
     lines.append(f"  combined standard uncertainty of the dose  u_c = {u_c:.3f} %")
     lines.append(f"  expanded uncertainty (k = 2)              U   = {U:.3f} %")

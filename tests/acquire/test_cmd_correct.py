@@ -110,6 +110,34 @@ def test_partial_worksheet_shows_pending(tmp_path: Path) -> None:
     assert result["factor_states"]["k_pol"] == "pending"
 
 
+def test_charge_uncertainty_is_given_while_the_dose_is_pending(tmp_path: Path) -> None:
+    # No N_D,w yet: the corrected charge and its u_c are known, the dose and its u_c are not.
+    sheet = tmp_path / "no-calibration.toml"
+    sheet.write_text(
+        'convention = "trs398"\nbeam = "pulsed"\n'
+        "[environment]\ntemperature_C = 21.8\npressure_kPa = 100.6\n"
+        "[bias]\nroutine_V = 300\nreduced_V = 100\n"
+        "[readings]\nroutine_nC = [14.747, 14.751, 14.749]\n"
+        "opposite_nC = [-14.775, -14.777, -14.774]\nreduced_nC = [14.570, 14.567, 14.569]\n",
+        encoding="utf-8",
+    )
+    table = correct(sheet).stdout
+    result = json.loads(correct(sheet, "--json").stdout)
+    assert result["dose_Gy"] is None and result["u_combined_pct"] is None
+    assert f"u_c of the corrected charge = {result['u_M_corrected_pct']:.3f} %" in table
+    assert "combined standard uncertainty of the dose: cannot be evaluated yet" in table
+    assert "uncertainty of the corrected charge: cannot" not in table
+
+
+def test_no_uncertainty_without_a_type_a_estimate(tmp_path: Path) -> None:
+    sheet = tmp_path / "single.toml"
+    sheet.write_text(
+        'convention = "trs398"\nbeam = "pulsed"\n[readings]\nroutine_nC = [14.7]\n',
+        encoding="utf-8",
+    )
+    assert "combined standard uncertainty: cannot be evaluated yet" in correct(sheet).stdout
+
+
 def test_invalid_example_exits_2_naming_the_field() -> None:
     done = correct(EXAMPLES / "bad-temperature.toml")
     assert done.returncode == 2
