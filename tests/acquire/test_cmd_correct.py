@@ -56,6 +56,21 @@ def test_json_of_every_example(name: str) -> None:
     assert result["caution"] == CAUTION
 
 
+@pytest.mark.parametrize("name", GOOD)
+def test_every_example_is_a_plausible_reference_measurement(name: str) -> None:
+    # Invented data must still look like a sound measurement: factors inside the usual limits
+    # (|k_pol − 1| <= 0.4 %, TG-51 addendum, from memory; 1 <= k_s <= 1.05, from memory; k_TP
+    # within 5 % of 1 for a clinic near sea level, common practice), the output within its
+    # tolerance, a complete uncertainty budget, and no warning for the operator.
+    result = json.loads(correct(EXAMPLES / name, "--json").stdout)
+    assert abs(result["k_TP"] - 1.0) < 0.05
+    assert abs(result["k_pol"] - 1.0) <= 0.004
+    assert 1.0 <= result["k_s"] <= 1.05
+    assert result["within_tolerance"] in (True, None)
+    assert all(flag["severity"] == "info" for flag in result["flags"]), result["flags"]
+    assert "uncertainty_incomplete" not in [flag["code"] for flag in result["flags"]]
+
+
 def test_table_of_the_trs398_example() -> None:
     done = correct(EXAMPLES / "hcc-la1-6mv.toml")
     assert done.returncode == 0, done.stderr
