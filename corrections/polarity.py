@@ -21,6 +21,18 @@ def _nonzero(field: str, value: object) -> Number:
     return charge
 
 
+def _refuse_same_sign(first: Number, second: Number, names: tuple[str, str]) -> None:
+    """Refuse readings at opposite biases that share a sign: reversing the bias reverses it."""
+    same_sign = np.sign(first) == np.sign(second)
+    if np.any(same_sign):
+        raise InputError(
+            names[1],
+            first_where(second, same_sign),
+            f"a charge of the opposite sign to {names[0]}",
+            f"has the same sign as {names[0]}",
+        )
+
+
 def k_pol(routine_nC: object, opposite_nC: object) -> Number:
     """Return k_pol (dimensionless) from the mean routine and opposite-polarity readings (nC).
 
@@ -29,22 +41,20 @@ def k_pol(routine_nC: object, opposite_nC: object) -> Number:
     """
     routine = _nonzero("routine_nC", routine_nC)
     opposite = _nonzero("opposite_nC", opposite_nC)
-    same_sign = np.sign(routine) == np.sign(opposite)
-    if np.any(same_sign):
-        raise InputError(
-            "opposite_nC",
-            first_where(opposite, same_sign),
-            "a charge of the opposite sign to the routine reading",
-            "has the same sign as the routine reading",
-        )
+    _refuse_same_sign(routine, opposite, ("routine_nC", "opposite_nC"))
     return (np.abs(routine) + np.abs(opposite)) / (2.0 * np.abs(routine))
 
 
 def P_pol(plus_nC: object, minus_nC: object, routine_nC: object) -> Number:
-    """Return TG-51's P_pol = |(M+ − M−)/(2M)| from signed readings at + and − bias (nC)."""
+    """Return TG-51's P_pol = |(M+ − M−)/(2M)| from signed readings at + and − bias (nC).
+
+    ``routine_nC`` is M+ or M−, whichever polarity is routine. Raises InputError when M+ and
+    M− share a sign (the formula is only right for readings of opposite sign).
+    """
     plus = _nonzero("plus_nC", plus_nC)
     minus = _nonzero("minus_nC", minus_nC)
     routine = _nonzero("routine_nC", routine_nC)
+    _refuse_same_sign(plus, minus, ("plus_nC", "minus_nC"))
     return np.abs((plus - minus) / (2.0 * routine))
 
 

@@ -54,6 +54,15 @@ def test_same_sign_readings_contradict_the_bias_reversal() -> None:
     assert "same sign" in str(caught.value)
 
 
+def test_tg51_form_refuses_readings_of_one_sign() -> None:
+    # |(M+ − M−)/(2M)| equals TRS-398's k_pol only when M+ and M− have opposite signs; with
+    # one sign it would give about 0 instead of about 1, so it is refused.
+    with pytest.raises(InputError) as caught:
+        P_pol(20.0, 20.1, 20.0)
+    assert caught.value.field == "minus_nC"
+    assert "same sign as plus_nC" in str(caught.value)
+
+
 def test_zero_reading_carries_no_sign() -> None:
     with pytest.raises(InputError, match="routine_nC"):
         k_pol(0.0, -20.0)
