@@ -123,6 +123,20 @@ def sessions_with(**rows: list[list[float]]) -> dict[str, np.ndarray]:
     return {key: np.array(value) for key, value in data.items()}
 
 
+def refused_field(data: dict[str, np.ndarray], **changes: float) -> InputError:
+    """Return the InputError evaluate_sessions raises for ``data`` at 20 °C, 101 kPa."""
+    with pytest.raises(InputError) as caught:
+        evaluate_sessions(
+            data["routine_nC"],
+            data["opposite_nC"],
+            data["reduced_nC"],
+            temperature_C=20.0,
+            pressure_kPa=101.0,
+            **{**SETTINGS, **changes},
+        )
+    return caught.value
+
+
 @pytest.mark.parametrize(
     ("rows", "field", "words"),
     [
@@ -155,30 +169,10 @@ def test_signs_that_contradict_the_bias_are_refused_by_row(
 ) -> None:
     # The same rule as evaluate(): one bias per set, the reduced bias keeps the routine
     # polarity and the opposite set reverses it.
-    data = sessions_with(**rows)
-    with pytest.raises(InputError) as caught:
-        evaluate_sessions(
-            data["routine_nC"],
-            data["opposite_nC"],
-            data["reduced_nC"],
-            temperature_C=20.0,
-            pressure_kPa=101.0,
-            **SETTINGS,
-        )
-    assert caught.value.field == field
-    assert words in str(caught.value)
+    error = refused_field(sessions_with(**rows))
+    assert error.field == field
+    assert words in str(error)
 
 
 def test_batch_bias_errors_use_the_batch_argument_names() -> None:
-    data = sessions_with()
-    settings = {**SETTINGS, "reduced_bias_V": -100.0}
-    with pytest.raises(InputError) as caught:
-        evaluate_sessions(
-            data["routine_nC"],
-            data["opposite_nC"],
-            data["reduced_nC"],
-            temperature_C=20.0,
-            pressure_kPa=101.0,
-            **settings,
-        )
-    assert caught.value.field == "reduced_bias_V"
+    assert refused_field(sessions_with(), reduced_bias_V=-100.0).field == "reduced_bias_V"
