@@ -14,7 +14,11 @@ from dataclasses import dataclass
 import numpy as np
 from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.humidity import BAND_HIGH_PCT, BAND_LOW_PCT, humidity_in_band
-from chargebook.corrections.statistics import MODIFIED_Z_THRESHOLD, SetStatistics
+from chargebook.corrections.statistics import (
+    MINIMUM_FOR_TRENDS,
+    MODIFIED_Z_THRESHOLD,
+    SetStatistics,
+)
 
 #: Plain names of the three reading sets, for messages.
 SET_NAMES = {
@@ -46,7 +50,8 @@ class Thresholds:
     #: |first reading − mean of the rest| in % that suggests the chamber had not settled
     #: after a polarity or bias change (common practice).
     settling_pct: float = 0.2
-    #: Fewest readings per set for drift and outliers to be judged (common practice).
+    #: Fewest readings per set for drift, settling and outliers to be judged (common practice;
+    #: never fewer than the three a trend needs, statistics.MINIMUM_FOR_TRENDS).
     minimum_readings: int = 3
     #: |k_pol − 1| in %, usual for reference-class chambers (TG-51 addendum, from memory).
     k_pol_deviation_pct: float = 0.4
@@ -91,6 +96,11 @@ class Thresholds:
             )
 
 
+def _readings_for_trends(limits: Thresholds) -> int:
+    """Return how many readings a set needs before its drift, settling and outliers are judged."""
+    return max(limits.minimum_readings, MINIMUM_FOR_TRENDS)
+
+
 def _set_size_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
     if stats.count == 1:
         return [
@@ -101,12 +111,12 @@ def _set_size_flags(label: str, key: str, stats: SetStatistics, limits: Threshol
                 "info",
             )
         ]
-    if stats.count < limits.minimum_readings:
+    if stats.count < _readings_for_trends(limits):
         return [
             Flag(
                 f"{key}_few_readings",
                 f"The {label} set has {stats.count} readings; at least "
-                f"{limits.minimum_readings} are needed to judge drift and outliers.",
+                f"{_readings_for_trends(limits)} are needed to judge drift and outliers.",
                 "info",
             )
         ]
@@ -177,11 +187,10 @@ def _trend_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds)
 def set_flags(key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
     """Return the flags for one reading set; ``key`` is "routine", "opposite" or "reduced"."""
     label = SET_NAMES.get(key, key)
-    return (
-        _set_size_flags(label, key, stats, limits)
-        + _scatter_flags(label, key, stats, limits)
-        + _trend_flags(label, key, stats, limits)
-    )
+    flags = _set_size_flags(label, key, stats, limits) + _scatter_flags(label, key, stats, limits)
+    if stats.count >= _readings_for_trends(limits):
+        flags += _trend_flags(label, key, stats, limits)
+    return flags
 
 
 def k_pol_flags(k_pol: float, symbol: str, limits: Thresholds) -> list[Flag]:

@@ -70,6 +70,23 @@ def test_outlier_flag_names_the_reading_number() -> None:
     assert "reading(s) 4 " in message
 
 
+def test_minimum_readings_decides_when_trends_are_judged() -> None:
+    drifting = [20.00, 20.02, 20.04, 20.06]  # +0.1 % per reading: a drift with four readings
+    flags = set_flags("routine", set_statistics(drifting), LIMITS)
+    assert "routine_drift" in codes(flags)
+    # With 5 readings asked for, four are too few: said once, and no drift judged from them.
+    asking_five = dataclasses.replace(LIMITS, minimum_readings=5)
+    flags = set_flags("routine", set_statistics(drifting), asking_five)
+    assert codes(flags) == ["routine_few_readings"]
+    assert "at least 5 are needed" in flags[0].message
+    # Asking for 2 cannot judge a trend from two readings (a line through two points):
+    # the set is still said to be too small for that.
+    asking_two = dataclasses.replace(LIMITS, minimum_readings=2)
+    flags = set_flags("routine", set_statistics([20.00, 20.02]), asking_two)
+    assert codes(flags) == ["routine_few_readings"]
+    assert "at least 3 are needed" in flags[0].message
+
+
 def test_thresholds_are_settings() -> None:
     strict = dataclasses.replace(LIMITS, relative_sd_pct=0.001)
     assert "routine_sd_high" in codes(set_flags("routine", set_statistics(STEADY), strict))
