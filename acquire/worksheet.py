@@ -9,9 +9,11 @@ A worksheet holds one session::
     [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
     [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC
     [calibration]  N_Dw_Gy_per_nC | N_Dw_Gy_per_C | N_Dw_cGy_per_nC, k_Q, k_elec,
-                   monitor_units, expected_cGy_per_MU, tolerance_pct (number, or "daily",
-                   "monthly", "annual"), u_N_Dw_pct_k2, u_k_Q_pct
-    [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct
+                   monitor_units (per reading, the same for every set: k_pol and k_s are ratios
+                   of the sets' mean charges), expected_cGy_per_MU, tolerance_pct (number, or
+                   "daily", "monthly", "annual"), u_N_Dw_pct_k2, u_k_Q_pct
+    [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct (give it with k_elec: without
+                   it an entered k_elec is left out of u_c and flagged)
     [thresholds]   any field of chargebook.corrections.stability.Thresholds
 
 Reading is strict: an unknown key, a value of the wrong type, an empty reading set or two
