@@ -349,6 +349,17 @@ def test_dose_monotonic_in_temperature(session: Session, t1: float, t2: float, p
     assert cold <= warm
 
 
+@settings(max_examples=40, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.floats(10.0, 40.0), st.floats(60.0, 110.0), st.floats(60.0, 110.0))
+def test_dose_falls_as_pressure_rises(session: Session, t: float, p1: float, p2: float) -> None:
+    # Denser air gives more ionisation per unit dose (gas law; k_TP ∝ 1/P, TRS-398, TG-51).
+    low, high = sorted((p1, p2))
+    for convention in ("trs398", "tg51"):
+        thin = evaluate(session(temperature_C=t, pressure_kPa=low, convention=convention))
+        dense = evaluate(session(temperature_C=t, pressure_kPa=high, convention=convention))
+        assert thin.dose_Gy >= dense.dose_Gy
+
+
 def test_signs_are_checked_between_sets_even_before_the_routine_set() -> None:
     with pytest.raises(InputError) as caught:
         evaluate(MeasurementInputs(opposite_nC=(-14.7,), reduced_nC=(-14.5,)))
