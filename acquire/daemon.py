@@ -209,12 +209,17 @@ class InstrumentLink(threading.Thread):
         except queue.Empty:
             kind, value = "", None
         try:
-            if kind == "quit":
-                return
-            if kind == "sampling":
-                self.generation = value
-            elif kind == "command":
-                self._execute(value)
+            while kind:  # everything queued, so that one commit covers the commands' lines
+                if kind == "quit":
+                    return
+                if kind == "sampling":
+                    self.generation = value
+                elif kind == "command":
+                    self._execute(value)
+                try:
+                    kind, value = self.inbox.get_nowait()
+                except queue.Empty:
+                    kind = ""
             if self.generation is not None and self.inbox.empty():
                 self._read_samples(pushes)
         except InstrumentDisconnected as error:
@@ -300,6 +305,11 @@ class InstrumentLink(threading.Thread):
                     return
                 samples.append(sample)
             timeout_s = BURST_GAP_S
+
+
+def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
+    """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
+    return protocol.encode(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
 
 
 # --------------------------------------------------------------------------------- daemon
@@ -489,10 +499,7 @@ class Daemon:
         engine = self.engine
         if engine.session_id is not None and self._events_checked_at != engine.data_version:
             self._events_checked_at = engine.data_version
-            fresh = [
-                e for e in self.store.events(engine.session_id) if e.id > self._published_event_id
-            ]
-            for event in fresh:
+            for event in self.store.events_after(engine.session_id, self._published_event_id):
                 self._published_event_id = event.id
                 await self.server.broadcast(
                     protocol.NOTIFY_EVENT,
@@ -507,20 +514,32 @@ class Daemon:
                 )
         if engine.seq != self._published_seq:
             self._published_seq = engine.seq
-            await self.server.broadcast(protocol.NOTIFY_SNAPSHOT, self.snapshot())
+            if self.server.has_subscribers():  # nobody listening: no snapshot to build
+                _, line = self._snapshot_and_line()
+                if line is not None:
+                    await self.server.broadcast_line(line)
 
     def snapshot(self) -> dict[str, Any]:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
+        return self._snapshot_and_line()[0]
+
+    def _snapshot_and_line(self) -> tuple[dict[str, Any], bytes | None]:
+        """Return the engine's snapshot, trimmed to fit one message if it must be, and its
+        notification line, encoded once (None if even the trimmed snapshot does not fit)."""
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         try:
-            protocol.encode(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
+            return snapshot, _snapshot_notification(snapshot)
         except ValueError:
             current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
             for entry in snapshot["sets"]:
                 if entry["id"] != current:
                     entry["readings"] = []
-        return snapshot
+        try:
+            return snapshot, _snapshot_notification(snapshot)
+        except ValueError as error:
+            log.error("a snapshot was not sent: %s", error)
+            return snapshot, None
 
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:

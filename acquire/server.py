@@ -183,9 +183,16 @@ class RpcServer:
 
     async def broadcast(self, method: str, params: Any) -> None:
         """Send a notification to every subscribed connection."""
-        line = protocol.encode(protocol.notification(method, params))
+        await self.broadcast_line(protocol.encode(protocol.notification(method, params)))
+
+    async def broadcast_line(self, line: bytes) -> None:
+        """Send an encoded notification line to every subscribed connection."""
         targets = [c for c in self.connections if c.subscribed and not c.closed]
         await asyncio.gather(*(c.send(line) for c in targets))
+
+    def has_subscribers(self) -> bool:
+        """Return True when at least one open connection asked for notifications."""
+        return any(c.subscribed and not c.closed for c in self.connections)
 
     async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         self._numbers += 1

@@ -23,6 +23,7 @@ clock; ``t_s`` columns are seconds on the driver's monotonic clock, as the drive
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 import os
@@ -30,7 +31,7 @@ import sqlite3
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, fields
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
@@ -369,11 +370,13 @@ class Store:
         return int(cursor.lastrowid)
 
     def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
-        names = [f.name for f in fields(cls)]
-        sql = f"SELECT {', '.join(names)} FROM {table} WHERE {where} ORDER BY id"
+        return [cls(*row) for row in self._rows(cls, table, where, params)]
+
+    def _rows(self, cls: type, table: str, where: str, params: tuple = ()) -> list[tuple]:
+        """Return the raw rows of ``table`` with the columns of ``cls``, ordered by id."""
+        sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
         with self._lock:
-            rows = self.db.execute(sql, params).fetchall()
-        return [cls(*row) for row in rows]
+            return self.db.execute(sql, params).fetchall()
 
     def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
         found = self._select(cls, table, "id = ?", (row_id,))
@@ -592,12 +595,12 @@ class Store:
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
         if set_id is None:
-            rows = self._select(ReadingRow, "readings", "session_id = ?", (session_id,))
+            rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
         else:
-            rows = self._select(
+            rows = self._rows(
                 ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
             )
-        return [_with_bool_settling(row) for row in rows]
+        return [_reading_row(row) for row in rows]
 
     # ------------------------------------------------------------------------ environment
 
@@ -648,6 +651,10 @@ class Store:
         if session_id is None:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
+
+    def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
+        """Return the session's events newer than ``event_id``, oldest first."""
+        return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
 
     # ---------------------------------------------------------------------------- traffic
 
@@ -721,5 +728,15 @@ def _traffic_row(
     return (session_id, _require_finite("t_s", t_s), recorded_at, direction, bytes(line))
 
 
-def _with_bool_settling(row: ReadingRow) -> ReadingRow:
-    return replace(row, settling=bool(row.settling))
+@functools.cache
+def _column_list(cls: type) -> str:
+    """Return the columns of a row dataclass, in field order, for a SELECT."""
+    return ", ".join(field.name for field in fields(cls))
+
+
+_SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
+
+
+def _reading_row(row: tuple) -> ReadingRow:
+    """Return a ReadingRow from its raw columns, ``settling`` as a bool (stored 0 or 1)."""
+    return ReadingRow(*row[:_SETTLING], bool(row[_SETTLING]), *row[_SETTLING + 1 :])
