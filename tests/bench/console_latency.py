@@ -1,0 +1,204 @@
+"""Benchmark: from a reading committed to it being on the console's screen, at 50 readings/s.
+
+    python -m tests.bench.console_latency [--smoke]
+
+The real daemon takes readings from the simulated electrometer in a dialect where every pushed
+line is a completed reading (``profiles/pushed-every-line.toml``); the simulator pushes lines at
+50 per second, so the daemon commits about 50 readings a second into one set of 100 readings
+(``plans/many_readings.toml``). When the set is complete it is redone, and again, for several
+rounds. The real console (``chargebook console``) runs in a terminal of our own of 80 × 24 (a
+pseudo-terminal whose output is read and timed, ``tests.bench.terminal``); it shows the set's
+count, "37 of 100 readings".
+
+* Committed: each reading's ``recorded_at`` in the station database, stamped just before its
+  commit (so the figures include the commit itself).
+* Baseline: when a plain subscribed ``DaemonClient`` in this process received the first
+  snapshot holding the reading (the daemon's publishing and the socket, no drawing).
+* Measured: when the terminal received the frame showing the set's count reach that reading.
+  A reading drawn together with a later one counts from the later one's frame.
+
+Target (issue 7): median at most 50 ms.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import re
+import sys
+import time
+from datetime import datetime
+
+from chargebook.acquire.client import Notification
+from chargebook.acquire.demo_run import chargebook_args
+from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, Method
+
+from tests.bench import report
+from tests.bench.harness import (
+    MANY_READINGS_PLAN,
+    PUSHED_EVERY_LINE,
+    QUIET_STREAM,
+    Station,
+    arm_first_step,
+    read_db,
+    station,
+)
+from tests.bench.terminal import Terminal, text_pattern
+
+#: The daemon re-arms between pushed readings (stop, zero, start), and a line that arrives
+#: meanwhile is stale and dropped: pushing 100 lines/s commits about 50 readings/s.
+LINES_PER_S = 100.0
+READINGS_PER_SET = 100  # plans/many_readings.toml
+FULL_ROUNDS = 4
+SMOKE_READINGS = 12
+TARGET_MEDIAN_MS = 50.0
+DEADLINE_S = 60.0
+#: "37 of 100 readings" as the console draws it.
+COUNT = re.compile(rb"([0-9]{1,3})" + text_pattern(f" of {READINGS_PER_SET} readings"))
+
+
+class SnapshotClock:
+    """Notes when a subscribed client first received each reading (by id), wall time."""
+
+    def __init__(self) -> None:
+        self.first_seen: dict[int, float] = {}
+
+    def __call__(self, note: Notification) -> None:
+        if note.method != NOTIFY_SNAPSHOT or not isinstance(note.params, dict):
+            return
+        arrived = time.time()
+        current = note.params.get("current_set") or {}
+        for reading in current.get("readings", []):
+            self.first_seen.setdefault(reading["id"], arrived)
+
+
+async def wait_until(predicate, what: str) -> None:
+    deadline = time.monotonic() + DEADLINE_S
+    while not predicate():
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"gave up waiting for {what}")
+        await asyncio.sleep(0.05)
+
+
+async def take_readings(world: Station, rounds: int, per_round: int):
+    """Run the rounds with the console attached; return (terminal, subscribed client clock)."""
+    world.start_daemon(MANY_READINGS_PLAN)
+    client = await world.connect()
+    clock = SnapshotClock()
+    client.add_listener(clock)
+    terminal = Terminal(chargebook_args("console", "--socket", str(world.socket)))
+    try:
+        await client.subscribe()
+        snapshot = await arm_first_step(client)
+        await wait_until(lambda: terminal.shows(COUNT), "the console to show the set")
+        with world.bench() as bench:
+            bench.flood(LINES_PER_S, rounds * per_round * 4)  # more than enough; the rest unread
+        for number in range(rounds):
+            if number:
+                await client.call(Method.SET_REDO, reason="benchmark: the next round")
+                snapshot = await client.call(Method.STEP_ARM)
+            set_id = snapshot["current_set"]["id"]
+            await client.wait_for_snapshot(
+                lambda s, set_id=set_id: _done_in(s, set_id) >= per_round, DEADLINE_S
+            )
+        await asyncio.sleep(0.5)  # the last frame
+    finally:
+        await client.close()
+        terminal.close()
+    return terminal, clock
+
+
+def _done_in(snapshot: dict, set_id: int) -> int:
+    for entry in snapshot["sets"]:
+        if entry["id"] == set_id:
+            return len(entry["readings"])
+    return 0
+
+
+def on_screen_times(terminal: Terminal) -> list[dict[int, float]]:
+    """Return, per set in the order shown, when each count first appeared on screen."""
+    sets: list[dict[int, float]] = []
+    previous = None
+    for arrived, match in terminal.arrivals(COUNT):
+        count = int(match.group(1))
+        if previous is None or count < previous:
+            sets.append({})
+        sets[-1].setdefault(count, arrived)
+        previous = count
+    return [shown for shown in sets if max(shown) > 0]
+
+
+def latencies_ms(world: Station, terminal: Terminal, clock: SnapshotClock):
+    """Return (client latencies, screen latencies) in ms, one per reading both saw."""
+    rows = read_db(world.db, "SELECT id, set_id, seq, recorded_at FROM readings ORDER BY id")
+    committed: dict[int, list[tuple[int, int, float]]] = {}
+    for reading_id, set_id, seq, recorded_at in rows:
+        stamp = datetime.fromisoformat(recorded_at).timestamp()
+        committed.setdefault(set_id, []).append((reading_id, seq, stamp))
+    shown_sets = on_screen_times(terminal)
+    client_ms, screen_ms = [], []
+    for shown, set_id in zip(shown_sets, sorted(committed), strict=False):
+        counts = sorted(shown)
+        for reading_id, seq, stamp in committed[set_id]:
+            first_count = next((count for count in counts if count >= seq), None)
+            if first_count is None or reading_id not in clock.first_seen:
+                continue
+            screen_ms.append((shown[first_count] - stamp) * 1000)
+            client_ms.append((clock.first_seen[reading_id] - stamp) * 1000)
+    return client_ms, screen_ms
+
+
+def commit_rate(world: Station) -> tuple[int, float]:
+    """Return (readings committed, their rate per second within each set)."""
+    rows = read_db(
+        world.db,
+        "SELECT count(*), min(recorded_at), max(recorded_at) FROM readings GROUP BY set_id",
+    )
+    count = sum(row[0] for row in rows)
+    intervals = sum(row[0] - 1 for row in rows)
+    seconds = sum(
+        datetime.fromisoformat(last).timestamp() - datetime.fromisoformat(first).timestamp()
+        for _, first, last in rows
+    )
+    return count, intervals / seconds if seconds > 0 else 0.0
+
+
+def percentile(values: list[float], fraction: float) -> float:
+    ordered = sorted(values)
+    return ordered[min(len(ordered) - 1, int(fraction * len(ordered)))]
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    rounds, per_round = (1, SMOKE_READINGS) if args.smoke else (FULL_ROUNDS, READINGS_PER_SET)
+    out = report.Report(
+        f"console latency: {rounds} set(s) of {per_round} readings, {LINES_PER_S:g} lines/s "
+        "pushed, console at 80 x 24",
+        args.smoke,
+    )
+    with station("console", PUSHED_EVERY_LINE, *QUIET_STREAM) as world:
+        terminal, clock = asyncio.run(take_readings(world, rounds, per_round))
+        client_ms, screen_ms = latencies_ms(world, terminal, clock)
+        committed, rate = commit_rate(world)
+    if not screen_ms:
+        raise SystemExit("no reading was seen both on screen and by the client")
+    out.note(
+        f"{committed} readings committed, {rate:.1f}/s within each set; {len(screen_ms)} timed"
+    )
+    out.note(
+        f"on screen: 95th percentile {percentile(screen_ms, 0.95):.1f} ms, "
+        f"largest {max(screen_ms):.1f} ms"
+    )
+    baseline, measured = report.median(client_ms), report.median(screen_ms)
+    out.baseline("committed -> snapshot at a plain client (median)", baseline, "ms")
+    out.measured("committed -> on the console's screen (median)", measured, "ms")
+    out.ratio(measured / baseline, "measured / baseline")
+    out.target(
+        f"median <= {TARGET_MEDIAN_MS:g} ms",
+        measured <= TARGET_MEDIAN_MS,
+        f"{measured / TARGET_MEDIAN_MS - 1:.0%} over",
+    )
+    return out.finish()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
