@@ -55,6 +55,9 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.limits import BIAS_MAGNITUDE_V, MONITOR_UNITS
 
 PURPOSES = ("leakage", "warmup", "routine", "opposite", "reduced", "return_check")
+#: The purposes whose mean charges are compared with one another (k_pol, k_s, the return check),
+#: so they must take the same MU per reading.
+MU_COMPARED_PURPOSES = frozenset(("routine", "opposite", "reduced", "return_check"))
 #: Purposes whose polarity and bias are fixed by what the step measures.
 FIXED_SETTINGS: Mapping[str, tuple[str, str]] = {
     "routine": ("routine", "routine"),
@@ -377,6 +380,27 @@ class Plan:
                 raise InputError(f"steps[{index}].key", step.key, "a key not used before")
             seen.add(step.key)
             self._check_step_bias(index, step)
+        self._check_equal_mu()
+
+    def _check_equal_mu(self) -> None:
+        """Refuse result steps of unequal MU: k_pol and k_s are ratios of mean charges."""
+        compared = [
+            (index, step)
+            for index, step in enumerate(self.steps)
+            if step.purpose in MU_COMPARED_PURPOSES
+        ]
+        if not compared:
+            return
+        first_index, first = compared[0]
+        for index, step in compared[1:]:
+            if step.mu_per_reading != first.mu_per_reading:
+                raise InputError(
+                    f"steps[{index}].mu_per_reading",
+                    step.mu_per_reading,
+                    f"{first.mu_per_reading:g} MU, as steps[{first_index}] ({first.key}): the "
+                    "polarity and recombination corrections compare the sets' mean charges",
+                    "differs from the other result steps",
+                )
 
     def _check_step_bias(self, index: int, step: Step) -> None:
         polarity, bias = self.settings_of(step)

@@ -23,7 +23,8 @@ Keys (required unless a default is shown)::
     u_N_Dw_pct_k2         None    N_D,w expanded uncertainty from the certificate (k = 2), %
     u_k_Q_pct             None    k_Q standard uncertainty, %
     k_elec                None    electrometer factor; None: 1, calibrated together (flagged)
-    u_k_elec_pct          0       k_elec standard uncertainty, %
+    u_k_elec_pct          None    k_elec standard uncertainty, % (None with an entered k_elec:
+                                  left out of u_c and flagged, never counted as exact)
     u_temperature_C       None    thermometer standard uncertainty, °C (None: library default)
     u_pressure_kPa        None    barometer standard uncertainty, kPa (None: library default)
     tolerance_pct         None    a number in %, or daily | monthly | annual (AAPM TG-142);
@@ -88,7 +89,7 @@ class SessionMetadata:
     u_N_Dw_pct_k2: float | None = None
     u_k_Q_pct: float | None = None
     k_elec: float | None = None
-    u_k_elec_pct: float = 0.0
+    u_k_elec_pct: float | None = None
     u_temperature_C: float | None = None
     u_pressure_kPa: float | None = None
     tolerance_pct: float | None = None
@@ -235,7 +236,7 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         u_N_Dw_pct_k2=_number(data, "u_N_Dw_pct_k2", limits.UNCERTAINTY_PCT, required=False),
         u_k_Q_pct=_number(data, "u_k_Q_pct", limits.UNCERTAINTY_PCT, required=False),
         k_elec=_number(data, "k_elec", limits.K_ELEC, required=False),
-        u_k_elec_pct=0.0 if u_k_elec is None else u_k_elec,
+        u_k_elec_pct=u_k_elec,
         u_temperature_C=_number(data, "u_temperature_C", limits.U_TEMPERATURE_C, required=False),
         u_pressure_kPa=_number(data, "u_pressure_kPa", limits.U_PRESSURE_KPA, required=False),
         tolerance_pct=_tolerance(data),

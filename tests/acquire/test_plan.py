@@ -99,7 +99,7 @@ def test_negative_routine_polarity_flips_every_step() -> None:
     data = copy.deepcopy(MINIMAL)
     data["routine_bias_V"] = -250
     data["reduced_bias_V"] = -100
-    data["steps"].append({"key": "low", "purpose": "reduced", "readings": 3, "mu_per_reading": 50})
+    data["steps"].append({"key": "low", "purpose": "reduced", "readings": 3, "mu_per_reading": 100})
     plan = Plan.from_dict(data)
     assert [s.bias_V for s in plan.steps] == [-250.0, 250.0, -100.0]
     assert plan.routine_polarity == -1 and plan.voltage_ratio == 2.5
@@ -273,3 +273,21 @@ def test_any_valid_plan_round_trips(routine, divisor, sign, readings, mu, discar
     assert Plan.from_dict(json.loads(json.dumps(plan.to_dict()))) == plan
     assert [s.polarity for s in plan.steps] == [sign, -sign, sign, sign]
     assert all(s.deliveries_planned == readings + discard for s in plan.steps)
+
+
+def test_result_steps_of_unequal_mu_are_refused_naming_the_step() -> None:
+    # k_pol = (|M+| + |M-|) / (2|M|) and the two-voltage k_s compare mean charges of sets
+    # (IAEA TRS-398), which only holds when every set took the same MU per reading.
+    data = copy.deepcopy(MINIMAL)
+    data["steps"][1]["mu_per_reading"] = 200
+    with pytest.raises(InputError, match=r"steps\[1\]\.mu_per_reading") as refused:
+        Plan.from_dict(data)
+    assert "100 MU" in str(refused.value)
+
+
+def test_warm_up_may_take_more_mu_than_the_result_steps() -> None:
+    data = copy.deepcopy(MINIMAL)
+    data["steps"].insert(
+        0, {"key": "warm", "purpose": "warmup", "readings": 2, "mu_per_reading": 500}
+    )
+    assert [s.mu_per_reading for s in Plan.from_dict(data).steps] == [500, 100, 100]

@@ -33,7 +33,7 @@ def test_a_complete_entry_is_accepted_and_keeps_its_values() -> None:
     assert isinstance(meta, SessionMetadata)
     assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("HCC-LA1", "6 MV", "pulsed")
     assert (meta.N_Dw, meta.N_Dw_unit, meta.N_Dw_Gy_per_nC) == (0.0538, "Gy/nC", 0.0538)
-    assert meta.k_elec is None and meta.u_k_elec_pct == 0.0 and meta.tolerance_pct is None
+    assert meta.k_elec is None and meta.u_k_elec_pct is None and meta.tolerance_pct is None
     assert meta.conversions() == ()
 
 
@@ -97,7 +97,7 @@ def test_uncertainties_carry_what_was_entered_and_default_the_rest() -> None:
     assert meta.uncertainties() == Uncertainties(
         u_N_Dw_pct_k2=1.1,
         u_k_Q_pct=0.6,
-        u_k_elec_pct=0.0,
+        u_k_elec_pct=defaults.u_k_elec_pct,
         u_temperature_C=defaults.u_temperature_C,
         u_pressure_kPa=0.1,
     )
