@@ -68,17 +68,15 @@ __all__ = [
     "ReplayRequest",
     "TrafficLogError",
     "replay_session",
+    "save_traffic_log",
 ]
 
 #: Who the replay names as the actor of the events it writes itself.
 REPLAY_ACTOR = "replay"
 #: The event a replayed session starts with: what was replayed, and how.
 REPLAY_EVENT = "replay"
-#: Inputs a replay cannot apply yet, and why.
-UNSUPPORTED_INPUTS = {
-    "restart": "the daemon restarted during the session (a replay across a restart is not "
-    "supported yet)",
-}
+#: Inputs a replay cannot apply, and why (none at present: every recorded input is applied).
+UNSUPPORTED_INPUTS: dict[str, str] = {}
 
 
 @dataclass(frozen=True)
@@ -216,6 +214,18 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
     )
 
 
+def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | None) -> int:
+    """Write session ``session_id``'s recorded traffic to ``path`` as a JSON-lines traffic log
+    (what ``--traffic-log`` reads back); return how many lines were written."""
+    from chargebook.drivers_generic import load_profile
+
+    with Store.open(db_path, read_only=True) as store:
+        recording = load_recording(store, session_id)
+    request = ReplayRequest(db_path, session_id, profile=profile)
+    write_playback_log(load_profile(_profile_name(recording, request)), recording.lines, path)
+    return len(recording.lines)
+
+
 def _profile_name(recording: Recording, request: ReplayRequest) -> str:
     name = request.profile or recording.profile
     if name is None:
@@ -288,15 +298,27 @@ def _run_pipeline(
             )
             store = Store.memory()
             clock = ArmingClock(recording.armed_times_s, after=lambda: follower.last_t_s)
-            engine = Engine(
-                store,
-                capabilities=profile.capabilities,
-                clock=clock,
-                default_plan=plan,
-                profile=profile.name,
-                time_scale=time_scale,
-                thresholds=thresholds,
-            )
+
+            def new_engine() -> Engine:
+                return Engine(
+                    store,
+                    capabilities=profile.capabilities,
+                    clock=clock,
+                    default_plan=plan,
+                    profile=profile.name,
+                    time_scale=time_scale,
+                    thresholds=thresholds,
+                )
+
+            def restarted() -> Engine:
+                """A daemon started again on the same file (as ``Daemon.run`` does it)."""
+                engine = new_engine()
+                engine.instrument_connected = False
+                engine.instrument_message = "connecting to the electrometer"
+                engine.restore()
+                return engine
+
+            engine = new_engine()
             session_id = engine.start_session(
                 recording.session.metadata(), plan, actor=replayed(recording.start_actor)
             )
@@ -315,6 +337,7 @@ def _run_pipeline(
                 actor=replayed,
                 original_lines=recording.lines,
                 session_id=recording.session_id,
+                restart=restarted,
             )
             stopped = None
             driver.open()

@@ -22,7 +22,7 @@ from chargebook.acquire.store import ReadingRow, SetRow, Store
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
 
-#: Reading fields compared (with its integration time and the position of its raw line).
+#: Reading fields compared (with its integration time and the raw line it was read from).
 READING_FIELDS = ("charge_nC", "settling", "capture", "status", "t_s")
 SET_FIELDS = ("purpose", "polarity", "bias_V", "status", "reason")
 #: Result keys a threshold can change (the rest follow from readings, plan and metadata).
@@ -150,7 +150,7 @@ class _Side:
     session_id: int
     sets: dict[SetKey, SetRow]
     readings: dict[ReadingKey, ReadingRow]
-    lines: dict[int, int]  # traffic id -> position in the session's traffic
+    lines: dict[int, str]  # traffic id -> the raw line (bytes that are not text escaped)
     integration_s: dict[int, float]
 
     @classmethod
@@ -158,7 +158,10 @@ class _Side:
         sets = {(s.step_index, s.step_key, s.attempt): s for s in store.sets(session_id)}
         keys = {s.id: key for key, s in sets.items()}
         readings = {(keys[r.set_id], r.seq): r for r in store.readings(session_id)}
-        lines = {row.id: index for index, row in enumerate(store.traffic(session_id))}
+        lines = {
+            row.id: row.line.decode("ascii", errors="backslashreplace")
+            for row in store.traffic(session_id)
+        }
         times = live.integration_times(store.events(session_id))
         return cls(store, session_id, sets, readings, lines, times)
 
@@ -169,7 +172,7 @@ class _Side:
             return None
         values = {name: getattr(row, name) for name in READING_FIELDS}
         values["integration_s"] = self.integration_s.get(row.id)
-        values["traffic line"] = self.lines.get(row.traffic_id) if row.traffic_id else None
+        values["raw line"] = self.lines.get(row.traffic_id) if row.traffic_id else None
         return values
 
 
@@ -197,10 +200,10 @@ def compare_sessions(
         )
     for key in _keys(old.readings, new.readings):
         old_values, new_values = old.reading_values(key), new.reading_values(key)
-        if old_values is not None and old_values["traffic line"] is None:
-            del old_values["traffic line"]  # recorded before readings were linked to lines
+        if old_values is not None and old_values["raw line"] is None:
+            del old_values["raw line"]  # recorded before readings were linked to their lines
             if new_values is not None:
-                del new_values["traffic line"]
+                del new_values["raw line"]
         found += _compare(
             f"reading {_set_name(key[0])} #{key[1]}",
             old_values,

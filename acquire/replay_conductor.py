@@ -13,9 +13,9 @@ and, for each,
   recorded); the profile's identify command is sent as the daemon does after a reconnection;
 * a line the instrument sent unasked (push mode): reads it through the driver, as above;
 
-and applies each recorded input (the operator's actions, the instrument lost or back) after
-the lines recorded before it. Nothing is skipped: a line the engine did not want is still sent
-and read, so the simulated instrument stays in step.
+and applies each recorded input (the operator's actions, the instrument lost or back, the
+daemon restarting) after the lines recorded before it. Nothing is skipped: a line the engine
+did not want is still sent and read, so the simulated instrument stays in step.
 
 A strict conductor (an exact replay) raises :class:`Divergence` at the first line or input that
 does not fit. A what-if conductor (another plan) accepts a command sent with other values
@@ -119,8 +119,10 @@ class Conductor:
         actor: Callable[[str], str],
         original_lines: Sequence[RecordedLine] | None = None,
         session_id: int | None = None,
+        restart: Callable[[], Engine] | None = None,
     ) -> None:
         self.engine = engine
+        self.restart = restart
         self.driver = driver
         self.follower = follower
         self.inputs = list(inputs)
@@ -164,14 +166,32 @@ class Conductor:
     def _send(self, line: RecordedLine) -> None:
         text = self.follower.text(line)
         self._take_commands()
-        if text == self.poll_line:
-            self._poll(line)
+        if self._unanswered(line, text):
+            self._send_unanswered(text)
+        elif text == self.poll_line:
+            self._offer(self._call(self.driver.read_charge))
         elif text == self.identify_line:
             self._call(self.driver.identify)
         elif self.pending:
             self._execute(self.pending.popleft())
         else:
             self._unwanted_command(line, text)
+
+    def _unanswered(self, line: RecordedLine, text: str) -> bool:
+        """Return True when the original got no answer to a line that asks for one (it timed
+        out, or the cable was pulled while it was being sent)."""
+        lines = self.follower.lines
+        if line.index + 1 < len(lines) and lines[line.index + 1].direction != TX:
+            return False
+        confirmation = self.driver.profile.confirmation
+        queries = (self.poll_line, self.identify_line, getattr(confirmation, "error_query", None))
+        return confirmation.style == "ack" or text in queries
+
+    def _send_unanswered(self, text: str) -> None:
+        """Send a line as the original did, without waiting for the answer it never got."""
+        if self.pending and text not in (self.poll_line, self.identify_line):
+            self.pending.popleft()  # the engine's command, sent when the wire went away
+        self._call(lambda: self.driver.transport.write_line(text))
 
     def _unwanted_command(self, line: RecordedLine, text: str) -> None:
         """The original sent a command the replayed engine does not want now."""
@@ -199,15 +219,6 @@ class Conductor:
                 raise WhatIfStop(f"no answer arrived to traffic line {line.index + 1}")
 
     # -- samples -----------------------------------------------------------------------------
-    def _poll(self, line: RecordedLine) -> None:
-        lines = self.follower.lines
-        answered = line.index + 1 < len(lines) and lines[line.index + 1].direction != TX
-        if not answered:  # the original got no answer (a timeout, or the cable was pulled)
-            self._call(lambda: self.driver.transport.write_line(self.poll_line))
-            return
-        sample = self._call(self.driver.read_charge)
-        self._offer(sample)
-
     def _read_unasked(self, line: RecordedLine) -> None:
         if not self.push:
             raise Divergence(
@@ -337,13 +348,29 @@ class Conductor:
             "stop": lambda: engine.stop(detail["reason"], actor=actor),
             "abort": lambda: engine.abort(detail["reason"], confirm=True, actor=actor),
             "close": lambda: engine.close(actor=actor),
-            "instrument_lost": lambda: engine.instrument_lost(detail["message"]),
+            "instrument_lost": lambda: self._lost(detail["message"]),
             "instrument_fault": lambda: engine.instrument_lost(
                 detail["message"], still_connected=True
             ),
             "instrument_back": lambda: engine.instrument_back(detail.get("identity")),
+            "restart": self._restart,
         }
         calls[recorded.kind]()
+
+    def _lost(self, message: str) -> None:
+        """The instrument went away here: the daemon drops what it had queued for it."""
+        self.pending.clear()
+        self.engine.instrument_lost(message)
+
+    def _restart(self) -> None:
+        """The daemon restarted here: a new engine resumes the session, the port is reopened,
+        and what the old daemon had queued is gone with it."""
+        if self.restart is None:
+            raise Divergence("the daemon restarted during the session and no restart is set up")
+        self.pending.clear()
+        self.fresh_after_s = -math.inf
+        self.engine = self.restart()
+        self._call(self.driver.open)
 
     def _end_settling_wait(self) -> None:
         """A settling wait the original was in is over by the next recorded line."""

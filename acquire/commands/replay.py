@@ -54,6 +54,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "traffic stored with the session, e.g. a copy kept elsewhere",
     )
     parser.add_argument(
+        "--write-traffic-log",
+        metavar="FILE",
+        type=Path,
+        help="write the session's recorded traffic to FILE as such a log, and replay nothing",
+    )
+    parser.add_argument(
         "--profile", help="instrument profile, if the session does not name a loadable one"
     )
     parser.add_argument(
@@ -109,6 +115,7 @@ def run(args: argparse.Namespace) -> int:
         NotReplayable,
         ReplayRequest,
         replay_session,
+        save_traffic_log,
     )
     from chargebook.acquire.replay_text import replay_text
     from chargebook.acquire.store import NotFound, StoreError, default_db_path
@@ -116,6 +123,15 @@ def run(args: argparse.Namespace) -> int:
     from chargebook.drivers_generic import ProfileError
 
     try:
+        if args.write_traffic_log is not None:
+            count = save_traffic_log(
+                args.db or default_db_path(), args.session, args.write_traffic_log, args.profile
+            )
+            print(
+                f"wrote {args.write_traffic_log}: {count} lines of session {args.session}",
+                file=sys.stderr,
+            )
+            return EXIT_OK
         if not args.speed >= 0:
             raise InputError("--speed", args.speed, "0 (as fast as possible) or more")
         request = ReplayRequest(

@@ -2,8 +2,9 @@
 the simulated electrometer in playback mode, the serial driver and the engine.
 
 The sessions are recorded once for the module, on one station database: a clean run of
-`chargebook run --unattended`, one with a spiked set that the automatic operator redoes, and one
-aborted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e). Each
+`chargebook run --unattended`, one with a spiked set that the automatic operator redoes, one
+aborted mid-set, and one whose cable is pulled mid-set and whose daemon is killed (kill -9) and
+restarted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e). Each
 must replay exactly: every reading and every result bit-identical. The checks of exactness do
 not trust the replay's own comparison alone: they read both sessions back through the store and
 the project's result function, and check the what-if results against the published formulas.
@@ -23,16 +24,13 @@ from typing import Any
 
 import numpy as np
 import pytest
+from chargebook.acquire.cli import main
 from chargebook.acquire.demo_data import demo_metadata
 from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.replay_recording import load_recording
-from chargebook.acquire.replay_traffic import write_playback_log
 from chargebook.acquire.session_result import session_evaluation
 from chargebook.acquire.store import Store
-from chargebook.drivers_generic import load_profile
 from e2e_support import (
     QUICK_PLAN,
-    TIME_SCALE,
     DaemonProcess,
     SimulatorProcess,
     chargebook_command,
@@ -42,6 +40,8 @@ from e2e_support import (
 
 pytestmark = pytest.mark.e2e
 
+#: Wall seconds per simulated second while recording: a quick-plan session takes about 4 s.
+TIME_SCALE = 0.01
 REDO_REASON = "spike on the first routine reading"
 ABORT_REASON = "phantom moved"
 
@@ -55,6 +55,7 @@ class Station:
     clean: int
     redone: int
     aborted: int
+    interrupted: int
 
 
 def start_simulator(work: Path) -> SimulatorProcess:
@@ -81,6 +82,44 @@ def run_unattended(simulator: SimulatorProcess, db: Path) -> int:
 
 def state_is(name: str):
     return lambda snapshot: snapshot["state"] == name
+
+
+def collecting(step: int, readings_done: int):
+    def check(snapshot: dict[str, Any]) -> bool:
+        current = snapshot["current_set"]
+        return (
+            snapshot["state"] == "collecting"
+            and snapshot["step_index"] == step
+            and current["readings_done"] >= readings_done
+        )
+
+    return check
+
+
+async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProcess):
+    """Record a session whose routine set is spiked and redone, one aborted mid-set, and one
+    interrupted twice: the cable pulled, then the daemon killed."""
+    redone, aborted = await record_redo_and_abort(daemon, simulator)
+    client = await daemon.connect(operator=ACTOR)
+    operator = AutoOperator(client, environment_from_bench(simulator.control))
+    snapshot = await operator.start(demo_metadata())
+    snapshot = await operator.run_until(snapshot, collecting(1, 1))
+    with simulator.bench() as bench:
+        bench.drop(0.5)  # the cable is pulled for half a second
+    back = await client.wait_for_snapshot(
+        lambda s: s["instrument"]["connected"] and s["state"] == "interrupted", 30
+    )
+    snapshot = await operator.run_until(back, collecting(2, 1))
+    daemon.kill9()
+    await client.close()
+    daemon.restart()
+    client = await daemon.connect(operator=ACTOR)
+    final = await AutoOperator(client, environment_from_bench(simulator.control)).run(
+        demo_metadata()
+    )
+    await client.close()
+    assert final["session"]["id"] == snapshot["session"]["id"]
+    return redone, aborted, final["session"]["id"]
 
 
 async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProcess):
@@ -120,12 +159,12 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
         daemon = DaemonProcess(args, work / "run" / "daemon.sock", db, work / "daemon.log")
         daemon.start()
         try:
-            redone, aborted = asyncio.run(record_redo_and_abort(daemon, simulator))
+            redone, aborted, interrupted = asyncio.run(record_with_the_daemon(daemon, simulator))
         finally:
             daemon.stop()
     finally:
         stop_process(simulator.process)
-    yield Station(db, work, clean, redone, aborted)
+    yield Station(db, work, clean, redone, aborted, interrupted)
 
 
 def copy_of(station: Station, name: str) -> Path:
@@ -169,7 +208,35 @@ def file_state(db: Path) -> tuple[str, str]:
 
 
 # ------------------------------------------------------------------------------ exactness
-@pytest.mark.parametrize("which", ["clean", "redone", "aborted"])
+def redo_kept_with_its_reason(store: Store, replay_id: int) -> None:
+    routine = [s for s in store.sets(replay_id) if s.step_key == "routine"]
+    assert [(s.attempt, s.status) for s in routine] == [(1, "superseded"), (2, "accepted")]
+    assert routine[0].reason == REDO_REASON
+    assert f"{ACTOR} (replayed)" in {e.actor for e in store.events(replay_id)}
+
+
+def abort_kept_with_its_reason(store: Store, replay_id: int) -> None:
+    assert store.session(replay_id).reason == ABORT_REASON
+    assert store.sets(replay_id)[-1].status == "aborted"
+
+
+def interruptions_where_they_happened(store: Store, replay_id: int) -> None:
+    kinds = {e.kind for e in store.events(replay_id)}
+    assert {"instrument_lost", "instrument_back", "session_resumed"} <= kinds
+    reasons = [e.detail()["reason"] for e in store.events(replay_id) if e.kind == "set_status"]
+    assert "continued after the interruption" in reasons
+    assert "the daemon restarted while the set was being collected" in reasons
+
+
+SESSION_CHECKS = {
+    "clean": lambda store, replay_id: None,
+    "redone": redo_kept_with_its_reason,
+    "aborted": abort_kept_with_its_reason,
+    "interrupted": interruptions_where_they_happened,
+}
+
+
+@pytest.mark.parametrize("which", list(SESSION_CHECKS))
 def test_every_recorded_session_replays_exactly(station: Station, which: str):
     db = copy_of(station, f"exact-{which}.sqlite")
     original_id = getattr(station, which)
@@ -195,19 +262,7 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
         results = session_evaluation(store, original_id).to_dict()
         assert session_evaluation(store, replay_id).to_dict() == results
         assert report["results_compared"] == len(results)
-
-
-def test_the_redone_set_is_replayed_superseded_with_its_reason(station: Station):
-    db = copy_of(station, "redo.sqlite")
-    done = replay(db, station.redone, "--speed", "0", "--json")
-    assert done.returncode == 0, done.stderr
-    replay_id = json.loads(done.stdout)["replay_session_id"]
-    with Store.open(db, read_only=True) as store:
-        routine = [s for s in store.sets(replay_id) if s.step_key == "routine"]
-        assert [(s.attempt, s.status) for s in routine] == [(1, "superseded"), (2, "accepted")]
-        assert routine[0].reason == REDO_REASON
-        actors = {e.actor for e in store.events(replay_id)}
-        assert f"{ACTOR} (replayed)" in actors
+        SESSION_CHECKS[which](store, replay_id)
 
 
 def test_an_aborted_session_replays_at_the_recorded_pace_too(station: Station):
@@ -295,18 +350,20 @@ def test_a_plan_asking_for_more_readings_than_were_taken_stops_there_and_writes_
 
 
 # ---------------------------------------------------------------- corrupted and truncated logs
-def traffic_log(station: Station, path: Path, session_id: int) -> list[str]:
-    """Write the session's stored traffic as a JSON-lines log; return its lines."""
-    with Store.open(station.db, read_only=True) as store:
-        recording = load_recording(store, session_id)
-    write_playback_log(load_profile("lumen-q"), recording.lines, path)
+def traffic_log(station: Station, path: Path, session_id: int, capsys) -> list[str]:
+    """Write the session's stored traffic as a JSON-lines log with `chargebook replay
+    --write-traffic-log`; return its lines."""
+    status = main(
+        ["replay", str(session_id), "--db", str(station.db), "--write-traffic-log", str(path)]
+    )
+    assert status == 0 and f"lines of session {session_id}" in capsys.readouterr().err
     return path.read_text().splitlines()
 
 
-def test_the_stored_traffic_written_as_a_log_replays_exactly(station: Station):
+def test_the_stored_traffic_written_as_a_log_replays_exactly(station: Station, capsys):
     db = copy_of(station, "log-exact.sqlite")
     log = station.work / "exact.jsonl"
-    traffic_log(station, log, station.clean)
+    traffic_log(station, log, station.clean, capsys)
     done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
     assert done.returncode == 0, done.stderr
     assert "exact reproduction:" in done.stdout
@@ -325,11 +382,11 @@ def corrupt_reading_line(lines: list[str]) -> tuple[list[str], int, str]:
 
 @pytest.mark.parametrize("fault", ["garbled reading", "not json", "truncated mid-set"])
 def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_written(
-    station: Station, fault: str
+    station: Station, fault: str, capsys
 ):
     db = copy_of(station, f"log-{fault.replace(' ', '-')}.sqlite")
     log = station.work / f"{fault.replace(' ', '-')}.jsonl"
-    lines = traffic_log(station, log, station.clean)
+    lines = traffic_log(station, log, station.clean, capsys)
     if fault == "garbled reading":
         lines, number, original = corrupt_reading_line(lines)
         expected = [f"line {number}", f"{original!r}", "cannot be read by profile lumen-q"]
@@ -357,16 +414,26 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_
 
 
 # ---------------------------------------------------------------------------- bad requests
-def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(station: Station):
+def replay_in_process(capsys, db: Path, session_id: int, *options: str) -> tuple[int, str]:
+    """Run `chargebook replay` in this process (for refusals, which start nothing)."""
+    status = main(["replay", str(session_id), "--db", str(db), *options])
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    return status, captured.err
+
+
+def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(
+    station: Station, capsys
+):
     db = copy_of(station, "bad-session.sqlite")
-    done = replay(db, 99, "--speed", "0")
-    assert done.returncode == 2 and "no session with id 99" in done.stderr
+    status, message = replay_in_process(capsys, db, 99, "--speed", "0")
+    assert status == 2 and "no session with id 99" in message
     with Store.open(db) as store:
         row = store.session(station.clean)
         open_id = store.create_session(row.metadata(), row.plan(), row.convention, row.beam)
     before = file_state(db)
-    done = replay(db, open_id, "--speed", "0")
-    assert done.returncode == 2 and f"session {open_id} is still open" in done.stderr
+    status, message = replay_in_process(capsys, db, open_id, "--speed", "0")
+    assert status == 2 and f"session {open_id} is still open" in message
     assert file_state(db) == before
 
 
@@ -380,7 +447,8 @@ def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(stat
         (["--profile", "no-such-profile"], "no-such-profile"),
     ],
 )
-def test_bad_options_are_refused_naming_them(station: Station, options, named):
-    done = replay(station.db, station.clean, *options)
-    assert done.returncode == 2, done.stdout + done.stderr
-    assert named in done.stderr and done.stdout == ""
+def test_bad_options_are_refused_naming_them(station: Station, capsys, options, named):
+    before = file_state(station.db)
+    status, message = replay_in_process(capsys, station.db, station.clean, *options)
+    assert status == 2 and named in message and "nothing was written" in message
+    assert file_state(station.db) == before
