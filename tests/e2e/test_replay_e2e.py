@@ -3,9 +3,11 @@ the simulated electrometer in playback mode, the serial driver and the engine.
 
 The sessions are recorded once for the module, on one station database: a clean run of
 `chargebook run --unattended`, one with a spiked set that the automatic operator redoes, one
-aborted mid-set, and one whose cable is pulled mid-set and whose daemon is killed (kill -9) and
-restarted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e). Each
-must replay exactly: every reading and every result bit-identical. The checks of exactness do
+aborted mid-set, one whose cable is pulled mid-set and whose daemon is killed (kill -9) and
+restarted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e), and
+one more clean run on an electrometer that pushes its readings and has no remote bias (the
+tallyline profile: the bias is turned by hand). Each must replay exactly: every reading and
+every result bit-identical. The checks of exactness do
 not trust the replay's own comparison alone: they read both sessions back through the store and
 the project's result function, and check the what-if results against the published formulas.
 """
@@ -56,12 +58,13 @@ class Station:
     redone: int
     aborted: int
     interrupted: int
+    pushed: int
 
 
-def start_simulator(work: Path) -> SimulatorProcess:
-    """Start `chargebook simulate` (lumen-q, query mode, remote bias) on a pty."""
-    log_path = work / "simulator.log"
-    args = ["simulate", "--serial", "--profile", "lumen-q", "--seed", "1"]
+def start_simulator(work: Path, profile: str = "lumen-q") -> SimulatorProcess:
+    """Start `chargebook simulate` on a pty (lumen-q: query mode, remote bias)."""
+    log_path = work / f"simulator-{profile}.log"
+    args = ["simulate", "--serial", "--profile", profile, "--seed", "1"]
     args += ["--time-scale", str(TIME_SCALE)]
     with log_path.open("wb") as log:
         process = subprocess.Popen(chargebook_command(*args), stdout=subprocess.PIPE, stderr=log)
@@ -164,7 +167,12 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
             daemon.stop()
     finally:
         stop_process(simulator.process)
-    yield Station(db, work, clean, redone, aborted, interrupted)
+    pushing = start_simulator(work, "tallyline")
+    try:
+        pushed = run_unattended(pushing, db)
+    finally:
+        stop_process(pushing.process)
+    yield Station(db, work, clean, redone, aborted, interrupted, pushed)
 
 
 def copy_of(station: Station, name: str) -> Path:
@@ -228,8 +236,15 @@ def interruptions_where_they_happened(store: Store, replay_id: int) -> None:
     assert "the daemon restarted while the set was being collected" in reasons
 
 
+def bias_turned_by_hand(store: Store, replay_id: int) -> None:
+    done = [e for e in store.events(replay_id) if e.kind == "manual_step_done"]
+    assert len(done) >= 2 and all(e.actor.endswith("(replayed)") for e in done)
+    assert {r.capture for r in store.readings(replay_id)} >= {"pushed"}
+
+
 SESSION_CHECKS = {
     "clean": lambda store, replay_id: None,
+    "pushed": bias_turned_by_hand,
     "redone": redo_kept_with_its_reason,
     "aborted": abort_kept_with_its_reason,
     "interrupted": interruptions_where_they_happened,
