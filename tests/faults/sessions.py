@@ -11,7 +11,8 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-from collections.abc import Iterator
+import time
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -42,6 +43,7 @@ class Witness:
     announced: set[int] = field(default_factory=set)
     open_session: int | None = None
     state: str = ""
+    connected: bool = False
     snapshots: int = 0
 
     def __call__(self, note: Notification) -> None:
@@ -53,6 +55,7 @@ class Witness:
         """Take in one snapshot."""
         self.snapshots += 1
         self.state = snapshot.get("state", "")
+        self.connected = bool((snapshot.get("instrument") or {}).get("connected"))
         session = snapshot.get("session") or {}
         self.open_session = session.get("id") if session.get("status") == "open" else None
         for entry in snapshot.get("sets", []):
@@ -89,6 +92,15 @@ def readings_on_disk(world: Station) -> set[int]:
 def event_count(world: Station, kind: str) -> int:
     """Return how many audit events of ``kind`` the station database holds."""
     return int(read_db(world.db, "SELECT count(*) FROM events WHERE kind = ?", (kind,))[0][0])
+
+
+async def until(predicate: Callable[[], bool], what: str, timeout_s: float = 60.0) -> None:
+    """Wait until ``predicate()`` holds; raise RuntimeError naming ``what`` after the timeout."""
+    deadline = time.monotonic() + timeout_s
+    while not predicate():
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"gave up after {timeout_s:g} s waiting for {what}")
+        await asyncio.sleep(0.02)
 
 
 async def stop(task: asyncio.Task) -> None:
