@@ -54,11 +54,17 @@ def scratch(prefix: str) -> Iterator[Path]:
 
 @dataclass
 class Station:
-    """A simulated electrometer and, once started, a daemon on it, in one scratch directory."""
+    """An electrometer's port and, once started, a daemon on it, in one scratch directory.
+
+    The port is usually a ``chargebook simulate`` process's pty (``simulator``, with its
+    control socket); a fault run may serve the pty from its own process instead.
+    """
 
     workdir: Path
     profile: str | Path
-    simulator: Child
+    serial: str
+    control: str | None = None
+    simulator: Child | None = None
     daemon: Child | None = None
     daemon_args: list[str] = field(default_factory=list)
     starts: int = 0
@@ -71,16 +77,10 @@ class Station:
     def socket(self) -> Path:
         return self.workdir / "run" / "daemon.sock"
 
-    @property
-    def serial(self) -> str:
-        return self.simulator.info["serial"]
-
-    @property
-    def control(self) -> str:
-        return self.simulator.info["control"]
-
     def bench(self, timeout_s: float = 120.0) -> SimulatorControl:
         """Return a client of the simulator's control socket (close it when done)."""
+        if self.control is None:
+            raise RuntimeError("this station has no simulator control socket")
         return SimulatorControl(self.control, timeout_s=timeout_s)
 
     def start_daemon(
@@ -137,7 +137,8 @@ class Station:
     def stop(self) -> None:
         """Stop the daemon and the simulator (SIGTERM, SIGKILL after 10 s)."""
         self.stop_daemon()
-        stop_child(self.simulator.process)
+        if self.simulator is not None:
+            stop_child(self.simulator.process)
 
 
 @contextlib.contextmanager
@@ -148,7 +149,8 @@ def station(
     with scratch(prefix) as workdir:
         args = ["simulate", "--serial", "--profile", str(profile), *simulator_options]
         simulator = start_child("simulated electrometer", args, workdir / "simulator.log")
-        world = Station(workdir, profile, simulator)
+        info = simulator.info
+        world = Station(workdir, profile, info["serial"], info["control"], simulator)
         try:
             yield world
         finally:
