@@ -28,36 +28,32 @@ refused before anything runs.
 from __future__ import annotations
 
 import logging
-import tempfile
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-from chargebook.acquire.engine import Engine
 from chargebook.acquire.replay_compare import (
+    Change,
     Comparison,
     Explanations,
     compare_sessions,
     plan_changes,
     threshold_changes,
 )
-from chargebook.acquire.replay_conductor import ArmingClock, Conductor, Pacer, WhatIfStop
+from chargebook.acquire.replay_pipeline import PipelineRun, Setup, run_pipeline
 from chargebook.acquire.replay_recording import (
     NotReplayable,
-    RecordedLine,
     Recording,
     load_recording,
     traffic_positions,
 )
 from chargebook.acquire.replay_traffic import (
     Divergence,
-    TrafficFollower,
     TrafficLogError,
     read_traffic_log,
     write_playback_log,
 )
 from chargebook.acquire.store import Store
-from chargebook.corrections.stability import Thresholds
 
 log = logging.getLogger(__name__)
 
@@ -70,13 +66,6 @@ __all__ = [
     "replay_session",
     "save_traffic_log",
 ]
-
-#: Who the replay names as the actor of the events it writes itself.
-REPLAY_ACTOR = "replay"
-#: The event a replayed session starts with: what was replayed, and how.
-REPLAY_EVENT = "replay"
-#: Inputs a replay cannot apply, and why (none at present: every recorded input is applied).
-UNSUPPORTED_INPUTS: dict[str, str] = {}
 
 
 @dataclass(frozen=True)
@@ -135,16 +124,6 @@ class ReplayReport:
         }
 
 
-@dataclass
-class _Run:
-    """A replay run against a scratch store (see :func:`_run_pipeline`)."""
-
-    store: Store
-    session_id: int
-    stopped: str | None
-    notes: list[str]
-
-
 def replay_session(request: ReplayRequest) -> ReplayReport:
     """Replay one stored session as asked; return the report.
 
@@ -152,66 +131,86 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
     truncated log) and InputError for what cannot be replayed as asked, Divergence when an
     unchanged replay does not follow its recording. None of these writes anything.
     """
-    from chargebook.acquire import live
-    from chargebook.drivers_generic import load_profile
-
     original = Store.open(request.db_path, read_only=True)
     try:
-        recording = load_recording(original, request.session_id)
-        _check_inputs(recording)
-        profile = load_profile(_profile_name(recording, request))
-        lines = recording.lines
-        if request.traffic_log is not None:
-            where = traffic_positions(original, recording)
-            lines = read_traffic_log(request.traffic_log, recording, profile, where)
-        _check_start(recording, lines)
-        plan = live.resolve_plan(request.plan or recording.session.plan())
-        thresholds = live.thresholds_from_dict(
-            {**asdict(recording.thresholds), **request.thresholds}
-        )
-        changes = plan_changes(recording.session.plan(), plan.to_dict())
-        changes += threshold_changes(recording.thresholds, thresholds)
-        what_if = bool(changes)
-        run = _run_pipeline(
-            recording,
-            lines,
-            profile,
-            plan,
-            thresholds,
-            request,
-            strict=not any(c.what.startswith("plan") for c in changes),
-        )
-        explanations = Explanations(
-            changes=changes,
-            traffic_notes=run.notes,
-            stopped=run.stopped,
-            arming_times_recorded=recording.armed_times_recorded,
-        )
-        replay_id = None
-        if run.stopped is None and not request.dry_run:
-            replay_id = _store_replay(run, request.db_path, recording.session_id)
-            with Store.open(request.db_path, read_only=True) as station:
-                comparison = compare_sessions(
-                    original, recording.session_id, station, replay_id, explanations
-                )
-        else:
-            comparison = compare_sessions(
-                original, recording.session_id, run.store, run.session_id, explanations
-            )
-        run.store.close()
+        setup, changes = _setup(original, request)
+        run = run_pipeline(setup, request.speed, _replay_detail(setup.recording, request))
+        try:
+            replay_id, comparison = _finish(original, setup, run, changes, request)
+        finally:
+            run.store.close()
     finally:
         original.close()
     return ReplayReport(
-        original_id=recording.session_id,
+        original_id=setup.recording.session_id,
         replay_id=replay_id,
-        profile=profile.name,
+        profile=setup.profile.name,
         speed=request.speed,
-        traffic_lines=len(lines),
+        traffic_lines=len(setup.lines),
         comparison=comparison,
-        what_if=what_if,
+        what_if=bool(changes),
         stopped=run.stopped,
         traffic_notes=run.notes,
     )
+
+
+def _setup(original: Store, request: ReplayRequest) -> tuple[Setup, list[Change]]:
+    """Return what the pipeline runs (recording, profile, lines, plan, thresholds) and the
+    what-if changes, after every check that can refuse the request."""
+    from chargebook.acquire import live
+    from chargebook.drivers_generic import load_profile
+
+    recording = load_recording(original, request.session_id)
+    profile = load_profile(_profile_name(recording, request))
+    lines = recording.lines
+    if request.traffic_log is not None:
+        where = traffic_positions(original, recording)
+        lines = read_traffic_log(request.traffic_log, recording, profile, where)
+    if lines and lines[0].direction != "tx":
+        raise NotReplayable(
+            f"session {recording.session_id} cannot be replayed: its traffic begins with a "
+            "line the instrument sent unasked, before the replay could be listening"
+        )
+    plan = live.resolve_plan(request.plan or recording.session.plan())
+    thresholds = live.thresholds_from_dict({**asdict(recording.thresholds), **request.thresholds})
+    changes = plan_changes(recording.session.plan(), plan.to_dict())
+    changes += threshold_changes(recording.thresholds, thresholds)
+    setup = Setup(
+        recording=recording,
+        lines=lines,
+        profile=profile,
+        plan=plan,
+        thresholds=thresholds,
+        time_scale=_time_scale(recording, request),
+        strict=not any(c.what.startswith("plan") for c in changes),
+    )
+    return setup, changes
+
+
+def _finish(
+    original: Store, setup: Setup, run: PipelineRun, changes: list[Change], request: ReplayRequest
+) -> tuple[int | None, Comparison]:
+    """Store a replay that ran to the end (unless a dry run); compare it with the original."""
+    from chargebook.acquire.replay_copy import copy_session
+
+    recording = setup.recording
+    explanations = Explanations(
+        changes=changes,
+        traffic_notes=run.notes,
+        stopped=run.stopped,
+        arming_times_recorded=recording.armed_times_recorded,
+    )
+    if run.stopped is not None or request.dry_run:
+        comparison = compare_sessions(
+            original, recording.session_id, run.store, run.session_id, explanations
+        )
+        return None, comparison
+    with Store.open(request.db_path) as station:
+        replay_id = copy_session(run.store, run.session_id, station, recording.session_id)
+        comparison = compare_sessions(
+            original, recording.session_id, station, replay_id, explanations
+        )
+    return replay_id, comparison
 
 
 def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | None) -> int:
@@ -227,142 +226,31 @@ def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | 
 
 
 def _profile_name(recording: Recording, request: ReplayRequest) -> str:
-    name = request.profile or recording.profile
-    if name is None:
-        raise NotReplayable(
-            f"session {recording.session_id} does not say which instrument profile read it; "
-            "pass --profile NAME"
-        )
-    return name
+    return str(_given_or_recorded(recording, request.profile, recording.profile, "profile"))
 
 
 def _time_scale(recording: Recording, request: ReplayRequest) -> float:
-    time_scale = request.time_scale or recording.time_scale
-    if time_scale is None:
-        raise NotReplayable(
-            f"session {recording.session_id} does not say at which time scale the daemon ran; "
-            "pass --time-scale X"
-        )
-    return float(time_scale)
+    return float(_given_or_recorded(recording, request.time_scale, recording.time_scale, "time"))
 
 
-def _check_inputs(recording: Recording) -> None:
-    for recorded in recording.inputs:
-        why = UNSUPPORTED_INPUTS.get(recorded.kind)
-        if why is not None:
-            raise NotReplayable(
-                f"session {recording.session_id} cannot be replayed: {why} (event "
-                f"{recorded.event_id})"
-            )
+#: What a session may not say about how it was recorded: words, and the option to pass.
+_UNRECORDED = {
+    "profile": ("which instrument profile read it", "--profile NAME"),
+    "time": ("at which time scale the daemon ran", "--time-scale X"),
+}
 
 
-def _check_start(recording: Recording, lines: tuple[RecordedLine, ...]) -> None:
-    if lines and lines[0].direction != "tx":
-        raise NotReplayable(
-            f"session {recording.session_id} cannot be replayed: its traffic begins with a "
-            "line the instrument sent unasked, before the replay could be listening"
-        )
-
-
-def _run_pipeline(
-    recording: Recording,
-    lines: tuple[RecordedLine, ...],
-    profile: Any,
-    plan: Any,
-    thresholds: Thresholds,
-    request: ReplayRequest,
-    *,
-    strict: bool,
-) -> _Run:
-    """Run the recording through the playback simulator, the driver and the engine."""
-    from chargebook.acquire.demo_run import start_child, stop_child
-    from chargebook.drivers_generic import build_electrometer
-
-    time_scale = _time_scale(recording, request)
-    with tempfile.TemporaryDirectory(prefix="chargebook-replay-") as work:
-        playback = write_playback_log(profile, lines, Path(work) / "playback.jsonl")
-        simulator = start_child(
-            "simulated electrometer (playback)",
-            [
-                "simulate", "--serial", "--profile", profile.name, "--playback", str(playback),
-                "--speed", str(request.speed),
-            ],
-            Path(work) / "simulator.log",
-        )  # fmt: skip
-        try:
-            follower = TrafficFollower(
-                lines, profile, same_command=None if strict else _same_command(profile)
-            )
-            driver = build_electrometer(
-                profile, port=simulator.info["serial"], traffic=follower, clock=follower.clock
-            )
-            store = Store.memory()
-            clock = ArmingClock(recording.armed_times_s, after=lambda: follower.last_t_s)
-
-            def new_engine() -> Engine:
-                return Engine(
-                    store,
-                    capabilities=profile.capabilities,
-                    clock=clock,
-                    default_plan=plan,
-                    profile=profile.name,
-                    time_scale=time_scale,
-                    thresholds=thresholds,
-                )
-
-            def restarted() -> Engine:
-                """A daemon started again on the same file (as ``Daemon.run`` does it)."""
-                engine = new_engine()
-                engine.instrument_connected = False
-                engine.instrument_message = "connecting to the electrometer"
-                engine.restore()
-                return engine
-
-            engine = new_engine()
-            session_id = engine.start_session(
-                recording.session.metadata(), plan, actor=replayed(recording.start_actor)
-            )
-            clock.recorded = lambda: len(store.readings(session_id))
-            follower.attach(store, session_id)
-            store.add_event(
-                session_id, REPLAY_ACTOR, REPLAY_EVENT, _replay_detail(recording, request)
-            )
-            conductor = Conductor(
-                engine,
-                driver,
-                follower,
-                recording.inputs,
-                strict=strict,
-                pacer=Pacer(request.speed),
-                actor=replayed,
-                original_lines=recording.lines,
-                session_id=recording.session_id,
-                restart=restarted,
-            )
-            stopped = None
-            driver.open()
-            try:
-                conductor.run()
-            except WhatIfStop as stop:
-                stopped = str(stop)
-            finally:
-                driver.close()
-        finally:
-            stop_child(simulator.process)
-    notes = [
-        f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
-        f"{n.recorded!r}"
-        for n in follower.notes
-    ]
-    return _Run(store, session_id, stopped, notes)
-
-
-def replayed(actor: str) -> str:
-    """Return the actor a replayed action is recorded under."""
-    return f"{actor} (replayed)"
+def _given_or_recorded(recording: Recording, given: Any, recorded: Any, what: str) -> Any:
+    """Return the value given as an option, else the recorded one; NotReplayable if neither."""
+    value = given if given is not None else recorded
+    if value is None:
+        words, option = _UNRECORDED[what]
+        raise NotReplayable(f"session {recording.session_id} does not say {words}; pass {option}")
+    return value
 
 
 def _replay_detail(recording: Recording, request: ReplayRequest) -> dict[str, Any]:
+    """Return the detail of the event a replayed session starts with."""
     return {
         "replay_of": recording.session_id,
         "speed": request.speed,
@@ -370,30 +258,3 @@ def _replay_detail(recording: Recording, request: ReplayRequest) -> dict[str, An
         "plan": request.plan,
         "thresholds": request.thresholds or None,
     }
-
-
-def _same_command(profile: Any):
-    """Return a test of whether two sent lines are the same command of ``profile``."""
-    from chargebook.drivers_generic.simulator.dialect import template_pattern
-
-    patterns = [
-        (spec.name, template_pattern(template))
-        for spec in profile.commands.values()
-        for template in spec.templates
-    ]
-
-    def name_of(text: str) -> str | None:
-        return next((name for name, pattern in patterns if pattern.fullmatch(text)), None)
-
-    def same(recorded: str, sent: str) -> bool:
-        name = name_of(recorded)
-        return name is not None and name == name_of(sent)
-
-    return same
-
-
-def _store_replay(run: _Run, db_path: Path, original_id: int) -> int:
-    from chargebook.acquire.replay_copy import copy_session
-
-    with Store.open(db_path) as station:
-        return copy_session(run.store, run.session_id, station, original_id)

@@ -1,4 +1,8 @@
-"""`chargebook replay SESSION`: replay a recorded session and say whether it reproduces."""
+"""`chargebook replay SESSION`: replay a recorded session and say whether it reproduces.
+
+See ``chargebook.acquire.replay`` for how. ``--write-traffic-log FILE`` only writes the
+session's recorded traffic as a JSON-lines log, which ``--traffic-log FILE`` plays back.
+"""
 
 from __future__ import annotations
 
@@ -134,6 +138,8 @@ def run(args: argparse.Namespace) -> int:
             return EXIT_OK
         if not args.speed >= 0:
             raise InputError("--speed", args.speed, "0 (as fast as possible) or more")
+        if args.time_scale is not None and not args.time_scale > 0:
+            raise InputError("--time-scale", args.time_scale, "a number above 0")
         request = ReplayRequest(
             db_path=args.db or default_db_path(),
             session_id=args.session,

@@ -10,6 +10,7 @@ import json
 from pathlib import Path
 
 import pytest
+from chargebook.acquire.replay_pipeline import same_command
 from chargebook.acquire.replay_recording import RecordedLine, Recording, load_recording
 from chargebook.acquire.replay_traffic import (
     Divergence,
@@ -147,16 +148,13 @@ def test_the_follower_stops_a_replay_at_the_first_line_that_differs():
 
 
 def test_a_what_if_follower_notes_the_same_command_sent_with_other_values():
-    def same_command(recorded: str, sent: str) -> bool:
-        return recorded.split()[0] == sent.split()[0]
-
-    follower = TrafficFollower(LINES, LUMEN_Q, same_command=same_command)
+    follower = TrafficFollower(LINES, LUMEN_Q, same_command=same_command(LUMEN_Q))
     follower(TrafficDirection.SENT, follower.clock(), b"BIAS +150\r\n")
     assert [(n.index, n.recorded, n.sent) for n in follower.notes] == [
         (0, "BIAS +300", "BIAS +150")
     ]
     follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
-    with pytest.raises(Divergence, match="line 3"):
+    with pytest.raises(Divergence, match="line 3"):  # another command than the recorded one
         follower(TrafficDirection.SENT, follower.clock(), b"ZERO\r\n")
 
 

@@ -458,6 +458,7 @@ def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(
         (["--threshold", "relative_sd=0.1"], "thresholds.relative_sd"),
         (["--threshold", "relative_sd_pct"], "--threshold"),
         (["--speed", "-1"], "--speed"),
+        (["--time-scale", "0"], "--time-scale"),
         (["--plan", "no-such-plan"], "plan"),
         (["--profile", "no-such-profile"], "no-such-profile"),
     ],

@@ -1,0 +1,183 @@
+"""The replay's pipeline: the playback simulator process, the real driver and the real engine.
+
+:func:`run_pipeline` starts ``chargebook simulate --playback`` on the recorded lines (a process
+of its own, on a real pseudo-terminal), opens the profile's driver on it with the
+:class:`~chargebook.acquire.replay_traffic.TrafficFollower` as its clock and traffic listener,
+starts the session again in a new engine on a scratch store in memory, and lets the
+:class:`~chargebook.acquire.replay_conductor.Conductor` play the recording through them.
+"""
+
+from __future__ import annotations
+
+import tempfile
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire.engine import Engine
+from chargebook.acquire.replay_conductor import ArmingClock, Conductor, Pacer, WhatIfStop
+from chargebook.acquire.replay_recording import RecordedLine, Recording
+from chargebook.acquire.replay_traffic import TrafficFollower, write_playback_log
+from chargebook.acquire.store import Store
+from chargebook.corrections.stability import Thresholds
+
+#: Who the replay names as the actor of the events it writes itself.
+REPLAY_ACTOR = "replay"
+#: The event a replayed session starts with: what was replayed, and how.
+REPLAY_EVENT = "replay"
+
+
+@dataclass(frozen=True)
+class Setup:
+    """What a replay runs: the recording, the lines to play, and how the engine is set up.
+
+    ``strict``: an unchanged replay, which stops at the first line that does not fit.
+    """
+
+    recording: Recording
+    lines: tuple[RecordedLine, ...]
+    profile: Any
+    plan: Any
+    thresholds: Thresholds
+    time_scale: float
+    strict: bool
+
+
+@dataclass
+class PipelineRun:
+    """The replayed session in its scratch store, and why it stopped early if it did."""
+
+    store: Store
+    session_id: int
+    stopped: str | None
+    notes: list[str]
+
+
+def replayed(actor: str) -> str:
+    """Return the actor a replayed action is recorded under."""
+    return f"{actor} (replayed)"
+
+
+def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> PipelineRun:
+    """Run the recording through the playback simulator, the driver and the engine.
+
+    ``speed`` paces it (0: as fast as possible); ``detail`` is written with the session's
+    ``replay`` event. Raises Divergence (strict) or TrafficLogError where the recording does
+    not fit; a what-if that cannot go on comes back with ``stopped`` set.
+    """
+    from chargebook.acquire.demo_run import start_child, stop_child
+    from chargebook.drivers_generic import build_electrometer
+
+    with tempfile.TemporaryDirectory(prefix="chargebook-replay-") as work:
+        playback = write_playback_log(setup.profile, setup.lines, Path(work) / "playback.jsonl")
+        simulator = start_child(
+            "simulated electrometer (playback)",
+            [
+                "simulate", "--serial", "--profile", setup.profile.name,
+                "--playback", str(playback), "--speed", str(speed),
+            ],
+            Path(work) / "simulator.log",
+        )  # fmt: skip
+        try:
+            same = None if setup.strict else same_command(setup.profile)
+            follower = TrafficFollower(setup.lines, setup.profile, same_command=same)
+            driver = build_electrometer(
+                setup.profile,
+                port=simulator.info["serial"],
+                traffic=follower,
+                clock=follower.clock,
+            )
+            return _play(setup, speed, detail, follower, driver)
+        finally:
+            stop_child(simulator.process)
+
+
+def _play(
+    setup: Setup, speed: float, detail: dict[str, Any], follower: TrafficFollower, driver: Any
+) -> PipelineRun:
+    """Start the session again in a new engine and play the recording through the driver."""
+    recording = setup.recording
+    store = Store.memory()
+    clock = ArmingClock(recording.armed_times_s, after=lambda: follower.last_t_s)
+    new_engine = _engine_factory(setup, store, clock)
+    engine = new_engine()
+    session_id = engine.start_session(
+        recording.session.metadata(), setup.plan, actor=replayed(recording.start_actor)
+    )
+    clock.recorded = lambda: len(store.readings(session_id))
+    follower.attach(store, session_id)
+    store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
+    conductor = Conductor(
+        engine,
+        driver,
+        follower,
+        recording.inputs,
+        strict=setup.strict,
+        pacer=Pacer(speed),
+        actor=replayed,
+        original_lines=recording.lines,
+        session_id=recording.session_id,
+        restart=lambda: _restarted(new_engine()),
+    )
+    stopped = None
+    driver.open()
+    try:
+        conductor.run()
+    except WhatIfStop as stop:
+        stopped = str(stop)
+    finally:
+        driver.close()
+    notes = [
+        f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
+        f"{n.recorded!r}"
+        for n in follower.notes
+    ]
+    return PipelineRun(store, session_id, stopped, notes)
+
+
+def _engine_factory(setup: Setup, store: Store, clock: ArmingClock) -> Callable[[], Engine]:
+    """Return a maker of engines set up as the session's daemon set up its own."""
+
+    def new_engine() -> Engine:
+        return Engine(
+            store,
+            capabilities=setup.profile.capabilities,
+            clock=clock,
+            default_plan=setup.plan,
+            profile=setup.profile.name,
+            time_scale=setup.time_scale,
+            thresholds=setup.thresholds,
+        )
+
+    return new_engine
+
+
+def _restarted(engine: Engine) -> Engine:
+    """Return ``engine`` resuming the open session, as a daemon started again on the same file
+    does it (``Daemon.run``): not yet connected to the instrument."""
+    engine.instrument_connected = False
+    engine.instrument_message = "connecting to the electrometer"
+    engine.restore()
+    return engine
+
+
+def same_command(profile: Any) -> Callable[[str, str], bool]:
+    """Return a test of whether two sent lines are the same command of ``profile`` (a what-if
+    plan may send a command with other values, such as another bias)."""
+    from chargebook.drivers_generic.simulator.dialect import template_pattern
+
+    patterns = [
+        (spec.name, template_pattern(template))
+        for spec in profile.commands.values()
+        for template in spec.templates
+    ]
+
+    def name_of(text: str) -> str | None:
+        return next((name for name, pattern in patterns if pattern.fullmatch(text)), None)
+
+    def same(recorded: str, sent: str) -> bool:
+        name = name_of(recorded)
+        return name is not None and name == name_of(sent)
+
+    return same
