@@ -94,7 +94,7 @@ def plan_changes(original: Mapping[str, Any], replay: Mapping[str, Any]) -> list
     for key in [*old_steps, *(k for k in new_steps if k not in old_steps)]:
         old, new = old_steps.get(key), new_steps.get(key)
         if old is None or new is None:
-            changes.append(Change(f"plan step '{key}'", _present(old), _present(new)))
+            changes.append(Change(f"plan step '{key}'", _exists(old), _exists(new)))
             continue
         for name in sorted(set(old) | set(new)):
             if name != "prompt" and old.get(name) != new.get(name):
@@ -108,28 +108,15 @@ def threshold_changes(original: Thresholds, replay: Thresholds) -> list[Change]:
     return [Change(f"threshold {k}", old[k], new[k]) for k in old if old[k] != new[k]]
 
 
-def _present(step: Mapping[str, Any] | None) -> str:
-    return "absent" if step is None else "present"
-
-
 # ----------------------------------------------------------------------------- comparing
 def stored_results(store: Store, session_id: int) -> tuple[dict[str, Any] | None, str | None]:
     """Return (``evaluate(...).to_dict()`` of a stored session, None) or (None, why not)."""
-    row = store.session(session_id)
-    events = store.events(session_id)
+    from chargebook.acquire.session_result import session_evaluation
+
     try:
-        inputs, _ = live.measurement_inputs(
-            store,
-            session_id,
-            live.resolve_plan(row.plan()),
-            row.metadata(),
-            None,
-            live.integration_times(events),
-            live.session_thresholds(events),
-        )
+        return session_evaluation(store, session_id).to_dict(), None
     except InputError as error:
         return None, f"The results cannot be computed: {error}"
-    return live.evaluate_inputs(inputs)
 
 
 @dataclass(frozen=True)

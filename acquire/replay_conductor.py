@@ -25,6 +25,7 @@ the plan asks (a reading more than was taken).
 
 from __future__ import annotations
 
+import bisect
 import logging
 import math
 import time
@@ -51,6 +52,10 @@ log = logging.getLogger(__name__)
 UNASKED_WAIT_S = 10.0
 #: Commands for the bench (the simulated linac and bias switch), not for the electrometer.
 BENCH_ACTIONS = ("beam", "bench_bias")
+
+
+#: What a driver call returns in a replay when the instrument refused it or a line was garbled.
+FAILED = object()
 
 
 class WhatIfStop(Exception):
@@ -86,22 +91,34 @@ class Pacer:
 
 
 class ArmingClock:
-    """The engine's clock in a replay: the time the original armed each reading.
+    """The engine's clock in a replay: the time the original armed a reading, read where the
+    replay arms one at the same point of the traffic.
 
-    The engine reads its clock when it arms a reading (and to start a settling wait). While
-    the replay has recorded ``k`` readings, the next one to be armed is the original's
-    reading ``k``, so the clock reads that reading's arming time; past the last recorded
-    reading (a reading the original dropped) it reads ``after``, the latest line's time.
+    The engine reads its clock when it arms a reading (and to start a settling wait). In the
+    original, a reading was armed after the lines played so far (``played``: the latest one's
+    time, -inf before any) and before the command that started its integration (``until``: the
+    time of the next recorded start command). The clock reads the original arming time in that
+    window, or, where the original armed nothing there (a what-if plan arms elsewhere),
+    ``otherwise`` (the time of the latest line).
     """
 
-    def __init__(self, armed_times_s: Sequence[float], after: Callable[[], float]) -> None:
-        self.armed_times_s = tuple(armed_times_s)
-        self.after = after
-        self.recorded: Callable[[], int] = lambda: 0
+    def __init__(
+        self,
+        armed_times_s: Sequence[float],
+        played: Callable[[], float],
+        until: Callable[[], float],
+        otherwise: Callable[[], float],
+    ) -> None:
+        self.armed_times_s = sorted(armed_times_s)
+        self.played = played
+        self.until = until
+        self.otherwise = otherwise
 
     def __call__(self) -> float:
-        k = self.recorded()
-        return self.armed_times_s[k] if k < len(self.armed_times_s) else self.after()
+        index = bisect.bisect_left(self.armed_times_s, self.played())
+        if index < len(self.armed_times_s) and self.armed_times_s[index] < self.until():
+            return self.armed_times_s[index]
+        return self.otherwise()
 
 
 class Conductor:
@@ -141,7 +158,16 @@ class Conductor:
 
     # -- the loop ----------------------------------------------------------------------------
     def run(self) -> None:
-        """Play every recorded line and input; raise Divergence or WhatIfStop if they don't fit."""
+        """Play every recorded line and input; raise Divergence (strict) or WhatIfStop where
+        they do not fit."""
+        try:
+            self._play()
+        except Divergence as divergence:
+            if self.strict:
+                raise
+            raise WhatIfStop(str(divergence)) from None
+
+    def _play(self) -> None:
         lines = self.follower.lines
         while True:
             self._apply_inputs(self.follower.position)
@@ -190,7 +216,13 @@ class Conductor:
     def _send_unanswered(self, text: str) -> None:
         """Send a line as the original did, without waiting for the answer it never got."""
         if self.pending and text not in (self.poll_line, self.identify_line):
-            self.pending.popleft()  # the engine's command, sent when the wire went away
+            command = self.pending.popleft()  # the engine's, sent as the wire went away
+            wanted = _command_lines(self.driver.profile, command)
+            if text not in wanted:
+                raise Divergence(
+                    f"the original sent {text!r} (unanswered) where the replayed engine wanted "
+                    f"to send {wanted[0]!r}"
+                )
         self._call(lambda: self.driver.transport.write_line(text))
 
     def _unwanted_command(self, line: RecordedLine, text: str) -> None:
@@ -215,7 +247,8 @@ class Conductor:
             not self.follower.finished
             and self.follower.lines[self.follower.position].direction != TX
         ):
-            if self._call(lambda: self.driver.transport.read_line(UNASKED_WAIT_S)) is None:
+            answer = self._call(lambda: self.driver.transport.read_line(UNASKED_WAIT_S))
+            if answer is None or answer is FAILED:
                 raise WhatIfStop(f"no answer arrived to traffic line {line.index + 1}")
 
     # -- samples -----------------------------------------------------------------------------
@@ -231,10 +264,10 @@ class Conductor:
                 raise Divergence(f"traffic line {line.index + 1} did not arrive from the playback")
             self._offer(sample)
 
-    def _offer(self, sample: Sample | None) -> None:
+    def _offer(self, sample: object) -> None:
         """Give the engine a sample the daemon would have given it (see the module docstring)."""
         self._take_commands()
-        if sample is None or self.pending or not self.engine.wants_samples():
+        if not isinstance(sample, Sample) or self.pending or not self.engine.wants_samples():
             return
         if sample.t_s < self.fresh_after_s:
             return
@@ -259,19 +292,20 @@ class Conductor:
             "stop": driver.stop_integration,
             "set_bias": lambda: driver.set_bias(command.value),
         }
-        self._call(calls[command.action])
-        self.fresh_after_s = self.follower.last_t_s
+        if self._call(calls[command.action]) is not FAILED:
+            self.fresh_after_s = self.follower.last_t_s  # as the daemon, after a command done
 
     def _call(self, call: Callable[[], Any]) -> Any:
-        """Run a driver call; an instrument error is logged (the recorded inputs say what the
-        daemon made of it), a line the original read but this log garbles is refused."""
+        """Run a driver call and return its result, or FAILED: an instrument error is logged
+        (the recorded inputs say what the daemon made of it), a line the original read but
+        this log garbles is refused."""
         try:
             return call()
         except ProtocolError as error:
             self._rejected(error)
         except InstrumentError as error:
             log.info("replayed instrument error (as recorded): %s", error)
-        return None
+        return FAILED
 
     def _rejected(self, error: ProtocolError) -> None:
         """A line could not be read: fine if the original line was the same, else refuse."""
@@ -379,6 +413,12 @@ class Conductor:
         if waiting and engine.settle_until_s is not None:
             engine.tick(engine.settle_until_s)
             self._take_commands()
+
+
+def _command_lines(profile: Any, command: Command) -> list[str]:
+    """Return the lines the profile sends for an engine command."""
+    arguments = {"volts": command.value} if command.action == "set_bias" else {}
+    return profile.command(command.action).render(**arguments)
 
 
 def _first_line(profile: Any, name: str) -> str | None:

@@ -99,13 +99,18 @@ def _play(
     """Start the session again in a new engine and play the recording through the driver."""
     recording = setup.recording
     store = Store.memory()
-    clock = ArmingClock(recording.armed_times_s, after=lambda: follower.last_t_s)
+    start = _starting_line(setup.profile)
+    clock = ArmingClock(
+        recording.armed_times_s,
+        played=lambda: follower.played_t_s,
+        until=lambda: follower.next_sent_t_s(start),
+        otherwise=lambda: follower.last_t_s,
+    )
     new_engine = _engine_factory(setup, store, clock)
     engine = new_engine()
     session_id = engine.start_session(
         recording.session.metadata(), setup.plan, actor=replayed(recording.start_actor)
     )
-    clock.recorded = lambda: len(store.readings(session_id))
     follower.attach(store, session_id)
     store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
     conductor = Conductor(
@@ -134,6 +139,15 @@ def _play(
         for n in follower.notes
     ]
     return PipelineRun(store, session_id, stopped, notes)
+
+
+def _starting_line(profile: Any) -> str | None:
+    """Return the line that begins a reading's integration (start, else zero), if any: each
+    arming sends it, and nothing else does."""
+    for name in ("start", "zero"):
+        if name in profile.commands:
+            return profile.command(name).templates[0]
+    return None
 
 
 def _engine_factory(setup: Setup, store: Store, clock: ArmingClock) -> Callable[[], Engine]:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import json
 import logging
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -168,11 +169,23 @@ class TrafficFollower:
         """Return the recorded time of the latest line seen (the first line's before any)."""
         return self._last_t_s
 
+    @property
+    def played_t_s(self) -> float:
+        """Return the recorded time of the latest line seen (-inf before any)."""
+        return self._last_t_s if self.position else -math.inf
+
     def clock(self) -> float:
         """Return the recorded time of the next line: the driver stamps that line with it."""
         if self.position < len(self.lines):
             return self.lines[self.position].t_s
         return self._last_t_s
+
+    def next_sent_t_s(self, text: str | None) -> float:
+        """Return the recorded time of the next line sent that reads ``text`` (inf: none)."""
+        for line in self.lines[self.position :]:
+            if line.direction == TX and self.text(line) == text:
+                return line.t_s
+        return math.inf
 
     def text(self, line: RecordedLine) -> str:
         """Return a recorded line as text (see :func:`line_text`)."""

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import math
 from pathlib import Path
 
 import pytest
@@ -45,15 +46,22 @@ def test_speed_zero_never_waits():
     assert time.slept == []
 
 
-def test_the_arming_clock_reads_the_original_arming_time_of_the_next_reading():
-    recorded = {"count": 0}
-    clock = ArmingClock((10.0, 20.5), after=lambda: 99.0)
-    clock.recorded = lambda: recorded["count"]
-    assert clock() == 10.0
-    recorded["count"] = 1
+def test_the_arming_clock_reads_the_original_arming_time_at_the_same_point_of_the_traffic():
+    window = {"now": 10.0, "until": 10.2}  # the latest line played, the next command sent
+    clock = ArmingClock(
+        (10.05, 20.5),
+        played=lambda: window["now"],
+        until=lambda: window["until"],
+        otherwise=lambda: window["now"],
+    )
+    assert clock() == 10.05
+    assert clock() == 10.05  # read twice for one arming (a settling wait, then the reading)
+    window.update(now=20.5, until=20.51)  # the original armed just as the line came in
     assert clock() == 20.5
-    recorded["count"] = 2  # a reading the original never recorded (it was dropped)
-    assert clock() == 99.0
+    window.update(now=15.0, until=15.1)  # a what-if arms where the original armed nothing
+    assert clock() == 15.0
+    window.update(now=-math.inf, until=10.1)  # before the first line: the first arming
+    assert clock() == 10.05
 
 
 def parse(*argv: str) -> argparse.Namespace:

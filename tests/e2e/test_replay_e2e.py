@@ -349,6 +349,32 @@ def test_another_reduced_bias_gives_the_two_voltage_k_s_of_the_new_ratio(station
     assert differences["result k_s"]["replay"] == results["k_s"]
 
 
+def test_a_plan_asking_for_fewer_readings_uses_the_first_ones_and_keeps_the_rest_in_step(
+    station: Station,
+):
+    db = copy_of(station, "what-if-fewer.sqlite")
+    plan = reduced_bias_plan(station.work / "fewer-routine.toml", 100.0, routine_readings=2)
+    done = replay(db, station.clean, "--speed", "0", "--json", "--plan", str(plan))
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["stopped"] is None and report["replay_session_id"] is not None
+    readings = [d for d in report["differences"] if d["what"].startswith("reading")]
+    assert readings == [
+        {
+            "what": "reading routine (attempt 1) #3",
+            "original": "present",
+            "replay": "absent",
+            "why": "plan step 'routine' readings 3 → 2",
+        }
+    ]
+    # M_raw is the mean of the routine readings used: numpy's mean of the first two.
+    with Store.open(db, read_only=True) as store:
+        routine = next(s for s in store.sets(station.clean) if s.step_key == "routine")
+        first_two = [r.charge_nC for r in store.readings(station.clean, routine.id)][:2]
+        results = session_evaluation(store, report["replay_session_id"]).to_dict()
+    assert results["M_raw_nC"] == pytest.approx(np.mean(first_two), rel=1e-12)
+
+
 def test_a_plan_asking_for_more_readings_than_were_taken_stops_there_and_writes_nothing(
     station: Station,
 ):
