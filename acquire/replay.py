@@ -68,6 +68,13 @@ __all__ = [
 ]
 
 
+#: Why a session recorded before readings were captured on samples may not replay exactly.
+OLDER_RECORDING = (
+    "the session was recorded by an older chargebook, which captured readings on clock ticks "
+    "and kept no arming times: its capture decisions cannot be made again from its traffic"
+)
+
+
 @dataclass(frozen=True)
 class ReplayRequest:
     """What to replay, and how. ``speed`` 0 runs as fast as the pipeline allows.
@@ -134,7 +141,12 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
     original = Store.open(request.db_path, read_only=True)
     try:
         setup, changes = _setup(original, request)
-        run = run_pipeline(setup, request.speed, _replay_detail(setup.recording, request))
+        try:
+            run = run_pipeline(setup, request.speed, _replay_detail(setup.recording, request))
+        except Divergence as divergence:
+            if setup.recording.armed_times_recorded:
+                raise
+            raise Divergence(f"{divergence} ({OLDER_RECORDING})") from None
         try:
             replay_id, comparison = _finish(original, setup, run, changes, request)
         finally:
