@@ -32,7 +32,7 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.engine import Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
-from chargebook.acquire.store import Store
+from chargebook.acquire.store import Store, TrafficLine
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -324,7 +324,7 @@ class Daemon:
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
-        self._traffic: list[tuple[int | None, float, str, bytes]] = []  # not yet committed
+        self._traffic: list[TrafficLine] = []  # recorded, not yet committed
         self._generation = 0
         self._sampled_reading: object = None
         self._published_seq = -1
@@ -374,9 +374,12 @@ class Daemon:
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
-        """Keep one raw line for the next commit (called in the instrument thread only)."""
+        """Keep one raw line, stamped now, for the next commit (in the instrument thread only)."""
+        if self.store is None:
+            return
         session_id = self.engine.session_id if self.engine is not None else None
-        self._traffic.append((session_id, t_s, _DIRECTION_TEXT[direction], bytes(raw)))
+        stamp = self.store.stamp()
+        self._traffic.append((session_id, t_s, _DIRECTION_TEXT[direction], bytes(raw), stamp))
 
     def _commit_traffic(self) -> None:
         """Commit the raw lines kept so far in one transaction (instrument thread only)."""
@@ -389,7 +392,7 @@ class Daemon:
             log.exception("could not record %d raw instrument lines at once", len(lines))
             for line in lines:  # save every line that can be saved
                 try:
-                    self.store.add_traffic(*line)
+                    self.store.add_traffic_many([line])
                 except Exception:
                     log.exception("could not record a raw instrument line: %r", line[3])
 

@@ -207,8 +207,8 @@ class TrafficRow:
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
-#: One raw line to record: (session_id, t_s, direction, line bytes).
-TrafficLine = tuple[int | None, float, str, bytes]
+#: One raw line to record: (session_id, t_s, direction, line bytes, recorded_at).
+TrafficLine = tuple[int | None, float, str, bytes, str]
 
 
 # --------------------------------------------------------------------------------- validation
@@ -672,15 +672,21 @@ class Store:
                 self._one(SessionRow, "sessions", session_id, "session")
             return self._insert("traffic", row)
 
-    def add_traffic_many(self, lines: Sequence[TrafficLine]) -> int:
-        """Record raw instrument lines, each (session_id, t_s, direction, line), in one commit.
+    def stamp(self) -> str:
+        """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
+        return self._stamp()
 
-        Returns how many were recorded. One commit (one fsync) for a burst of lines is what lets
-        the daemon keep up with an instrument that streams thousands of lines a second. Every
-        line is checked before anything is written: one bad line refuses the whole call.
+    def add_traffic_many(self, lines: Sequence[TrafficLine]) -> int:
+        """Record raw instrument lines in one commit; return how many were recorded.
+
+        Each line is (session_id, t_s, direction, line bytes, recorded_at), ``recorded_at``
+        taken with :meth:`stamp` when the line was sent or received, so that the record keeps
+        the order of lines and events even though the lines are written a burst at a time (one
+        commit, one fsync, is what lets the daemon keep up with an instrument that streams
+        thousands of lines a second). Every line is checked before anything is written: one
+        bad line refuses the whole call.
         """
-        stamp = self._stamp()
-        rows = [_traffic_row(*line, stamp) for line in lines]
+        rows = [_traffic_row(*line) for line in lines]
         with self._atomic() as db:
             for session_id in {row[0] for row in rows} - {None}:
                 self._one(SessionRow, "sessions", session_id, "session")
@@ -725,6 +731,7 @@ def _traffic_row(
     _require_choice("direction", direction, TRAFFIC_DIRECTIONS)
     if not isinstance(line, bytes | bytearray | memoryview):
         raise InputError("line", line, "the raw bytes of the line", "is not bytes")
+    _require_text("recorded_at", recorded_at)
     return (session_id, _require_finite("t_s", t_s), recorded_at, direction, bytes(line))
 
 
