@@ -287,7 +287,7 @@ class ParamsError(ValueError):
 
 def _jsonable(value: Any) -> Any:
     try:
-        json.dumps(value)
+        json.dumps(value, allow_nan=False)
     except (TypeError, ValueError):
         return repr(value)
     return value

@@ -232,11 +232,13 @@ class RpcServer:
 
     async def _handle_line(self, connection: Connection, line: bytes) -> None:
         try:
-            message = json.loads(line)
-        except (ValueError, UnicodeDecodeError) as error:
+            message = json.loads(line, parse_constant=_not_a_json_number)
+        except (ValueError, UnicodeDecodeError, RecursionError) as error:  # nested too deep
             await self._reply_error(connection, None, protocol.PARSE_ERROR, f"not JSON: {error}")
             return
         request_id = message.get("id") if isinstance(message, dict) else None
+        if not _usable_id(request_id):
+            request_id = None  # JSON-RPC 2.0: an id that cannot be read is answered as null
         problem = _request_problem(message)
         if problem is not None:
             await self._reply_error(connection, request_id, protocol.INVALID_REQUEST, problem)
@@ -257,7 +259,29 @@ class RpcServer:
             code, text, data = error_for(error)
             reply = protocol.error_response(request_id, code, text, data)
         if not is_notification:
-            await connection.send(protocol.encode(reply))
+            await connection.send(_encoded_reply(reply, request_id))
+
+
+def _encoded_reply(reply: dict[str, Any], request_id: Any) -> bytes:
+    """Return the reply as one line, or an internal error if it cannot be sent as it is."""
+    try:
+        return protocol.encode(reply)
+    except ValueError as error:  # over the size limit, or a value JSON cannot carry
+        log.warning("a reply could not be encoded: %s", error)
+        text = f"internal error: the reply could not be sent ({error})"
+        return protocol.encode(protocol.error_response(request_id, protocol.INTERNAL_ERROR, text))
+
+
+def _not_a_json_number(name: str) -> Any:
+    """Refuse NaN, Infinity and -Infinity, which Python reads but JSON does not have."""
+    raise ValueError(f"{name} is not a JSON value")
+
+
+def _usable_id(request_id: Any) -> bool:
+    """Return True for an id a reply can carry: a string, a whole number or null."""
+    return request_id is None or (
+        isinstance(request_id, str | int) and not isinstance(request_id, bool)
+    )
 
 
 def _request_problem(message: Any) -> str | None:
@@ -270,8 +294,6 @@ def _request_problem(message: Any) -> str | None:
         return 'a request must have "jsonrpc": "2.0"'
     if not isinstance(message.get("method"), str):
         return "a request must name its method as a string"
-    request_id = message.get("id")
-    usable_id = isinstance(request_id, str | int) and not isinstance(request_id, bool)
-    if "id" in message and not (request_id is None or usable_id):
+    if not _usable_id(message.get("id")):
         return "a request id must be a string, a number or null"
     return None
