@@ -431,6 +431,27 @@ def test_a_worker_thread_can_record_traffic_while_readings_arrive(store: Store) 
     assert len(store.readings(session_id)) == 50
 
 
+def test_a_burst_of_raw_lines_is_recorded_in_order_with_the_stamps_given(store: Store) -> None:
+    session_id, _ = _session_with_set(store)
+    stamps = [store.stamp() for _ in range(3)]  # taken as each line arrived
+    lines = [(session_id, float(i), "rx", f"{i}\n".encode(), stamps[i]) for i in range(3)]
+    assert store.add_traffic_many(lines) == 3
+    recorded = store.traffic(session_id)
+    assert [(t.t_s, t.line, t.recorded_at) for t in recorded] == [
+        (float(i), f"{i}\n".encode(), stamps[i]) for i in range(3)
+    ]
+
+
+def test_a_burst_with_one_bad_line_is_refused_whole(store: Store) -> None:
+    session_id, _ = _session_with_set(store)
+    good = (session_id, 1.0, "rx", b"20.5\n", store.stamp())
+    bad = (session_id, NAN, "rx", b"20.6\n", store.stamp())
+    with pytest.raises(InputError) as refused:
+        store.add_traffic_many([good, bad])
+    assert refused.value.field == "t_s"
+    assert store.traffic(session_id) == []  # nothing half-written
+
+
 # ------------------------------------------------------------------ durability and resume
 
 WRITER = textwrap.dedent(
