@@ -1,0 +1,44 @@
+"""Each benchmark's ``--smoke`` run: it runs, from the repository root, and prints its figures.
+
+No timing is asserted here (speed belongs to the scripts' full runs, by hand): only that each
+script ran to its end and printed a baseline, a measured figure, their ratio, at least one
+target and a result, in the shape ``tests.bench.report`` prints.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+
+from tests.bench import report
+from tests.bench.harness import REPO
+
+pytestmark = pytest.mark.e2e
+
+SCRIPTS = ["pipeline", "scpi", "reanalysis", "startup", "console_latency", "memory"]
+
+
+def run_smoke(module: str) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m <module> --smoke`` from the repository root; return what it did."""
+    return subprocess.run(
+        [sys.executable, "-m", module, "--smoke"],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=110,
+        check=False,
+    )
+
+
+@pytest.mark.parametrize("name", SCRIPTS)
+def test_the_smoke_run_prints_its_figures(name: str) -> None:
+    done = run_smoke(f"tests.bench.{name}")
+    assert done.returncode in (report.EXIT_MET, report.EXIT_MISSED), done.stderr
+    lines = report.parse(done.stdout)
+    assert set(lines) == {"baseline", "measured", "ratio", "target", "result"}, done.stdout
+    assert all(line.endswith((report.MET, report.MISSED)) for line in lines["target"])
+    met = all(line.endswith(report.MET) for line in lines["target"])
+    assert lines["result"] == [report.MET if met else report.MISSED]
+    assert (done.returncode == report.EXIT_MET) == met

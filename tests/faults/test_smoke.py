@@ -1,0 +1,26 @@
+"""Each fault run's ``--smoke`` run, from the repository root: small counts, real processes.
+
+Unlike speed, what a fault run counts does not depend on the machine: readings lost, sessions
+resumed, drops recorded, lines logged, messages refused. So besides printing its figures, each
+smoke run must meet its targets.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from tests.bench import report
+from tests.bench.test_smoke import run_smoke
+
+pytestmark = pytest.mark.e2e
+
+SCRIPTS = ["kill9", "drop", "fuzz_lines", "bad_rpc"]
+
+
+@pytest.mark.parametrize("name", SCRIPTS)
+def test_the_smoke_run_meets_its_targets(name: str) -> None:
+    done = run_smoke(f"tests.faults.{name}")
+    lines = report.parse(done.stdout)
+    assert {"baseline", "measured", "ratio", "target", "result"} <= set(lines), done.stderr
+    assert lines["result"] == [report.MET], done.stdout
+    assert done.returncode == report.EXIT_MET
