@@ -16,6 +16,8 @@ import os
 import shutil
 import signal
 import sqlite3
+import subprocess
+import sys
 import tempfile
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -168,6 +170,18 @@ async def arm_first_step(client: DaemonClient, metadata: dict[str, Any] | None =
     if Method.STEP_MANUAL_DONE in snapshot["allowed"]:
         snapshot = await client.call(Method.STEP_MANUAL_DONE, note="benchmark")
     return await client.call(Method.STEP_ARM)
+
+
+def run_smoke(module: str) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m <module> --smoke`` from the repository root; return what it did."""
+    return subprocess.run(
+        [sys.executable, "-m", module, "--smoke"],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=110,
+        check=False,
+    )
 
 
 def read_db(db: Path, sql: str, params: tuple = ()) -> list[tuple]:

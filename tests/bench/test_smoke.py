@@ -7,29 +7,14 @@ target and a result, in the shape ``tests.bench.report`` prints.
 
 from __future__ import annotations
 
-import subprocess
-import sys
-
 import pytest
 
 from tests.bench import report
-from tests.bench.harness import REPO
+from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
 SCRIPTS = ["pipeline", "scpi", "reanalysis", "startup", "console_latency", "memory"]
-
-
-def run_smoke(module: str) -> subprocess.CompletedProcess[str]:
-    """Run ``python -m <module> --smoke`` from the repository root; return what it did."""
-    return subprocess.run(
-        [sys.executable, "-m", module, "--smoke"],
-        cwd=REPO,
-        capture_output=True,
-        text=True,
-        timeout=110,
-        check=False,
-    )
 
 
 @pytest.mark.parametrize("name", SCRIPTS)

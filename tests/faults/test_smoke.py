@@ -10,7 +10,7 @@ from __future__ import annotations
 import pytest
 
 from tests.bench import report
-from tests.bench.test_smoke import run_smoke
+from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
