@@ -379,7 +379,7 @@ class Daemon:
             return
         session_id = self.engine.session_id if self.engine is not None else None
         stamp = self.store.stamp()
-        self._traffic.append((session_id, t_s, _DIRECTION_TEXT[direction], bytes(raw), stamp))
+        self._traffic.append((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
 
     def _commit_traffic(self) -> None:
         """Commit the raw lines kept so far in one transaction (instrument thread only)."""

@@ -29,6 +29,7 @@ import math
 import os
 import sqlite3
 import threading
+import time
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
@@ -102,6 +103,22 @@ def default_db_path() -> Path:
 def utc_now() -> datetime:
     """Return the current time, timezone-aware UTC."""
     return datetime.now(UTC)
+
+
+def utc_stamp_now() -> str:
+    """Return the time now as ``recorded_at`` is written: UTC, ISO 8601, to the microsecond.
+
+    The same text as ``utc_now().isoformat(timespec="microseconds")``, in less than half the
+    time: every raw line is stamped, and lines may arrive by the ten thousand a second.
+    """
+    second, micro = divmod(time.time_ns() // 1000, 1_000_000)
+    return f"{_utc_second(second)}.{micro:06d}+00:00"
+
+
+@functools.lru_cache(maxsize=2)
+def _utc_second(second: int) -> str:
+    """Return the date and time of a whole second since the epoch, UTC, without the offset."""
+    return datetime.fromtimestamp(second, UTC).isoformat(timespec="seconds").removesuffix("+00:00")
 
 
 # --------------------------------------------------------------------------------------- rows
@@ -207,8 +224,9 @@ class TrafficRow:
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
-#: One raw line to record: (session_id, t_s, direction, line bytes, recorded_at).
-TrafficLine = tuple[int | None, float, str, bytes, str]
+#: One raw line to record, in the traffic table's column order:
+#: (session_id, t_s, recorded_at, direction, line bytes).
+TrafficLine = tuple[int | None, float, str, str, bytes]
 
 
 # --------------------------------------------------------------------------------- validation
@@ -359,6 +377,8 @@ class Store:
             yield self.db
 
     def _stamp(self) -> str:
+        if self._now is utc_now:
+            return utc_stamp_now()
         return self._now().astimezone(UTC).isoformat(timespec="microseconds")
 
     def _insert(self, table: str, row: dict[str, Any]) -> int:
@@ -663,7 +683,7 @@ class Store:
         row = dict(
             zip(
                 _TRAFFIC_COLUMNS,
-                _traffic_row(session_id, t_s, direction, line, self._stamp()),
+                _traffic_row((session_id, t_s, self._stamp(), direction, line)),
                 strict=True,
             )
         )
@@ -679,14 +699,14 @@ class Store:
     def add_traffic_many(self, lines: Sequence[TrafficLine]) -> int:
         """Record raw instrument lines in one commit; return how many were recorded.
 
-        Each line is (session_id, t_s, direction, line bytes, recorded_at), ``recorded_at``
+        Each line is (session_id, t_s, recorded_at, direction, line bytes), ``recorded_at``
         taken with :meth:`stamp` when the line was sent or received, so that the record keeps
         the order of lines and events even though the lines are written a burst at a time (one
         commit, one fsync, is what lets the daemon keep up with an instrument that streams
         thousands of lines a second). Every line is checked before anything is written: one
         bad line refuses the whole call.
         """
-        rows = [_traffic_row(*line) for line in lines]
+        rows = [_traffic_row(line) for line in lines]
         with self._atomic() as db:
             for session_id in {row[0] for row in rows} - {None}:
                 self._one(SessionRow, "sessions", session_id, "session")
@@ -724,15 +744,23 @@ _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_TRAFFIC = f"INSERT INTO traffic ({', '.join(_TRAFFIC_COLUMNS)}) VALUES (?, ?, ?, ?, ?)"
 
 
-def _traffic_row(
-    session_id: int | None, t_s: float, direction: str, line: bytes, recorded_at: str
-) -> tuple[int | None, float, str, str, bytes]:
-    """Return one checked traffic row, in the order of _TRAFFIC_COLUMNS."""
+def _traffic_row(line: TrafficLine) -> TrafficLine:
+    """Return one raw line, checked, as a row in the order of _TRAFFIC_COLUMNS."""
+    session_id, t_s, recorded_at, direction, data = line
+    if (
+        type(t_s) is float
+        and math.isfinite(t_s)
+        and type(data) is bytes
+        and direction in TRAFFIC_DIRECTIONS
+        and type(recorded_at) is str
+        and recorded_at
+    ):
+        return line  # the common case, checked at the speed lines arrive
     _require_choice("direction", direction, TRAFFIC_DIRECTIONS)
-    if not isinstance(line, bytes | bytearray | memoryview):
-        raise InputError("line", line, "the raw bytes of the line", "is not bytes")
+    if not isinstance(data, bytes | bytearray | memoryview):
+        raise InputError("line", data, "the raw bytes of the line", "is not bytes")
     _require_text("recorded_at", recorded_at)
-    return (session_id, _require_finite("t_s", t_s), recorded_at, direction, bytes(line))
+    return (session_id, _require_finite("t_s", t_s), recorded_at, direction, bytes(data))
 
 
 @functools.cache

@@ -16,7 +16,13 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.migrations import MIGRATIONS, SCHEMA_VERSION, migrate, schema_version
-from chargebook.acquire.store import NotFound, Store, StoreError, default_db_path
+from chargebook.acquire.store import (
+    NotFound,
+    Store,
+    StoreError,
+    default_db_path,
+    utc_stamp_now,
+)
 from chargebook.corrections.errors import InputError
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -434,7 +440,7 @@ def test_a_worker_thread_can_record_traffic_while_readings_arrive(store: Store) 
 def test_a_burst_of_raw_lines_is_recorded_in_order_with_the_stamps_given(store: Store) -> None:
     session_id, _ = _session_with_set(store)
     stamps = [store.stamp() for _ in range(3)]  # taken as each line arrived
-    lines = [(session_id, float(i), "rx", f"{i}\n".encode(), stamps[i]) for i in range(3)]
+    lines = [(session_id, float(i), stamps[i], "rx", f"{i}\n".encode()) for i in range(3)]
     assert store.add_traffic_many(lines) == 3
     recorded = store.traffic(session_id)
     assert [(t.t_s, t.line, t.recorded_at) for t in recorded] == [
@@ -442,10 +448,19 @@ def test_a_burst_of_raw_lines_is_recorded_in_order_with_the_stamps_given(store: 
     ]
 
 
+def test_the_quick_stamp_is_the_iso_text_of_now() -> None:
+    slack = timedelta(microseconds=1)  # the two clocks may round the same instant apart
+    before = datetime.now(UTC)
+    stamp = utc_stamp_now()
+    after = datetime.now(UTC)
+    assert before - slack <= datetime.fromisoformat(stamp) <= after + slack
+    assert stamp == datetime.fromisoformat(stamp).isoformat(timespec="microseconds")
+
+
 def test_a_burst_with_one_bad_line_is_refused_whole(store: Store) -> None:
     session_id, _ = _session_with_set(store)
-    good = (session_id, 1.0, "rx", b"20.5\n", store.stamp())
-    bad = (session_id, NAN, "rx", b"20.6\n", store.stamp())
+    good = (session_id, 1.0, store.stamp(), "rx", b"20.5\n")
+    bad = (session_id, NAN, store.stamp(), "rx", b"20.6\n")
     with pytest.raises(InputError) as refused:
         store.add_traffic_many([good, bad])
     assert refused.value.field == "t_s"
