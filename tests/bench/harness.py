@@ -184,6 +184,21 @@ def run_smoke(module: str) -> subprocess.CompletedProcess[str]:
     )
 
 
+async def collecting_daemon(world: Station, plan: Path = FLOOD_PLAN) -> DaemonClient:
+    """Start the daemon on ``plan`` and arm its first step; return a client of it.
+
+    Raises RuntimeError when the daemon is not collecting then (the flood plan's long timed
+    leakage integration keeps it collecting for an hour, reading every line pushed).
+    """
+    world.start_daemon(plan)
+    client = await world.connect()
+    snapshot = await arm_first_step(client)
+    if snapshot["state"] != "collecting":
+        await client.close()
+        raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
+    return client
+
+
 def read_db(db: Path, sql: str, params: tuple = ()) -> list[tuple]:
     """Return the rows of one query on the station database, opened read-only."""
     connection = sqlite3.connect(f"{db.resolve().as_uri()}?mode=ro", uri=True, timeout=10)

@@ -21,7 +21,7 @@ import asyncio
 import sys
 
 from tests.bench import report
-from tests.bench.harness import FLOOD_PLAN, QUIET_STREAM, Station, arm_first_step, station
+from tests.bench.harness import QUIET_STREAM, Station, collecting_daemon, station
 from tests.bench.pipeline import daemon_per_s
 
 FULL_WARM_UP, FULL_COUNT = 100_000, 1_000_000
@@ -33,12 +33,8 @@ MB = 1024 * 1024
 
 async def rss_during_flood(world: Station, warm_up: int, count: int) -> dict[str, float]:
     """Return the daemon's RSS (bytes) after the warm-up, at the end and at its largest."""
-    world.start_daemon(FLOOD_PLAN)
-    client = await world.connect()
+    client = await collecting_daemon(world)
     try:
-        snapshot = await arm_first_step(client)
-        if snapshot["state"] != "collecting":
-            raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
         await daemon_per_s(world, client, warm_up)
         await asyncio.sleep(1.0)
         before = world.daemon_rss_bytes()

@@ -32,10 +32,9 @@ from chargebook.acquire.protocol import Method
 
 from tests.bench import report
 from tests.bench.harness import (
-    FLOOD_PLAN,
     QUIET_STREAM,
     Station,
-    arm_first_step,
+    collecting_daemon,
     last_traffic_id,
     station,
 )
@@ -111,16 +110,14 @@ async def interleaved(world: Station, count: int, rounds: int) -> tuple[list[flo
     Between its runs the daemon's session is paused: it then does not read the port, and the
     raw reader has the lines to itself.
     """
-    world.start_daemon(FLOOD_PLAN)
-    client = await world.connect()
+    client = await collecting_daemon(world)
     raw, daemon = [], []
     try:
-        snapshot = await arm_first_step(client)
         for number in range(rounds):
             if number:
                 snapshot = await client.call(Method.SESSION_RESUME)
-            if snapshot["state"] != "collecting":
-                raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
+                if snapshot["state"] != "collecting":
+                    raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
             daemon.append(await daemon_per_s(world, client, count))
             snapshot = await client.call(Method.SESSION_PAUSE)
             await asyncio.sleep(SETTLE_S)

@@ -33,9 +33,8 @@ from chargebook.drivers_generic.simulator.serial_server import PtyServer
 
 from tests.bench import report
 from tests.bench.harness import (
-    FLOOD_PLAN,
     Station,
-    arm_first_step,
+    collecting_daemon,
     last_traffic_id,
     read_db,
     scratch,
@@ -147,12 +146,8 @@ class FuzzingResponder(DialectResponder):
 
 async def fuzz(world: Station, pty: PtyServer, responder: FuzzingResponder, lines: int) -> dict:
     """Flood the daemon with fuzzed lines, then good ones; return the counts."""
-    world.start_daemon(FLOOD_PLAN)
-    client = await world.connect()
+    client = await collecting_daemon(world)
     try:
-        snapshot = await arm_first_step(client)
-        if snapshot["state"] != "collecting":
-            raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
         await asyncio.sleep(0.3)
         first_id = last_traffic_id(world.db)
         logged_before = world.daemon_logs().count(REJECTED)
