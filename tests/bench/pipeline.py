@@ -41,7 +41,7 @@ from tests.bench.harness import (
 
 FULL_COUNT = 200_000
 SMOKE_COUNT = 3_000
-ROUNDS = 3
+ROUNDS = 5
 #: The line rate of a 115200-baud port as issue 7 counts it, readings/s.
 PORT_115200_PER_S = 720.0
 RATIO_TARGET = 0.5
