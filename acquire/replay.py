@@ -27,7 +27,6 @@ refused before anything runs.
 
 from __future__ import annotations
 
-import logging
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
@@ -54,8 +53,6 @@ from chargebook.acquire.replay_traffic import (
     write_playback_log,
 )
 from chargebook.acquire.store import Store
-
-log = logging.getLogger(__name__)
 
 __all__ = [
     "Divergence",

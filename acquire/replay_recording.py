@@ -125,12 +125,17 @@ def load_recording(store: Store, session_id: int) -> Recording:
             RecordedLine(index, row.t_s, row.direction, row.line)
             for index, row in enumerate(traffic)
         ),
-        inputs=tuple(recorded_inputs(events, traffic)),
+        inputs=tuple(recorded_inputs(events, traffic, _capture_times(store, session_id))),
         stamps=tuple(row.recorded_at for row in traffic),
         armed_times_s=armed,
         armed_times_recorded=armed_recorded,
         start_actor=created.actor if created is not None else "daemon",
     )
+
+
+def _capture_times(store: Store, session_id: int) -> dict[int, float]:
+    """Return each reading's time (s): the receive time of the sample it was taken from."""
+    return {reading.id: reading.t_s for reading in store.readings(session_id)}
 
 
 def exchange_before(store: Store, traffic: Sequence[TrafficRow]) -> list[TrafficRow]:
@@ -191,11 +196,20 @@ def armed_times(
 
 
 def recorded_inputs(
-    events: Sequence[EventRow], traffic: Sequence[TrafficRow]
+    events: Sequence[EventRow],
+    traffic: Sequence[TrafficRow],
+    captured_at: dict[int, float] | None = None,
 ) -> list[RecordedInput]:
     """Return the engine's inputs that are not traffic, each placed after the traffic lines
-    written before it (see the module docstring)."""
+    written before it (see the module docstring).
+
+    A capture by hand is placed exactly: right after the line of the sample it took
+    (``captured_at``: reading id -> its time, the sample's receive time). A sample written just
+    before the operator's request may reach the engine just after it; the reading says which
+    sample the engine had.
+    """
     stamps = [row.recorded_at for row in traffic]
+    received = {row.t_s: index for index, row in enumerate(traffic) if row.direction == "rx"}
     inputs: list[RecordedInput] = []
     position = 0
     lost = False
@@ -208,7 +222,12 @@ def recorded_inputs(
         )
         while position < len(stamps) and stamps[position] < event.recorded_at:
             position += 1
-        inputs.append(RecordedInput(position, kind, event.actor, event.detail(), event.id))
+        placed = position
+        if kind == "capture" and captured_at is not None:
+            sample = received.get(captured_at.get(event.detail().get("reading_id"), math.nan))
+            if sample is not None:
+                placed = max(sample + 1, inputs[-1].position if inputs else 0)
+        inputs.append(RecordedInput(placed, kind, event.actor, event.detail(), event.id))
     return inputs
 
 

@@ -14,9 +14,8 @@
 from __future__ import annotations
 
 import json
-import logging
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -24,8 +23,6 @@ from chargebook.acquire.replay_recording import NotReplayable, RecordedLine, Rec
 from chargebook.acquire.store import Store
 from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.profile import Profile
-
-log = logging.getLogger(__name__)
 
 TX, RX = TrafficDirection.SENT.value, TrafficDirection.RECEIVED.value
 
@@ -144,7 +141,7 @@ class TrafficFollower:
         lines: Sequence[RecordedLine],
         profile: Profile,
         *,
-        same_command=None,
+        same_command: Callable[[str, str], bool] | None = None,
     ) -> None:
         self.lines = tuple(lines)
         self.profile = profile

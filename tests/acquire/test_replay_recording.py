@@ -155,3 +155,19 @@ def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
     assert words[0] == "in reading set 'routine' (attempt 1) after 0 readings"
     assert words[2] == "in reading set 'routine' (attempt 1) after 1 reading"
     assert words[4] == "after reading set 'routine' (attempt 1) ended accepted"
+
+
+def test_a_capture_by_hand_is_placed_right_after_the_sample_it_took(store: Store):
+    session_id = new_session(store)
+    set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
+    state_changed(store, session_id, "step.arm", set_id=set_id)
+    exchange(store, session_id, 10.1, b"Q?\r\n", b"Q +7.5000 nC A\r\n")
+    # The next sample was written before the request reached the engine, but came after it.
+    exchange(store, session_id, 10.15, b"Q?\r\n", b"Q +9.9000 nC A\r\n")
+    received_t_s = 10.1 + 0.001  # the first sample's line, as exchange() writes it
+    reading = store.add_reading(session_id, set_id, 1, received_t_s, 7.5, "manual", False, "ok")
+    detail = {"reading_id": reading, "capture": "manual", "set_id": set_id}
+    store.add_event(session_id, "R. Okafor", "reading_recorded", detail)
+    store.set_session_status(session_id, "aborted", "phantom moved")
+    placed = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
+    assert placed == [(0, "arm"), (2, "capture")]

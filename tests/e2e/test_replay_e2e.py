@@ -2,14 +2,14 @@
 the simulated electrometer in playback mode, the serial driver and the engine.
 
 The sessions are recorded once for the module, on one station database: a clean run of
-`chargebook run --unattended`, one with a spiked set that the automatic operator redoes, one
-aborted mid-set, one whose cable is pulled mid-set and whose daemon is killed (kill -9) and
-restarted mid-set (the real daemon and the real simulator on a pty, as in test_daemon_e2e), and
-one more clean run on an electrometer that pushes its readings and has no remote bias (the
-tallyline profile: the bias is turned by hand). Each must replay exactly: every reading and
-every result bit-identical. The checks of exactness do
-not trust the replay's own comparison alone: they read both sessions back through the store and
-the project's result function, and check the what-if results against the published formulas.
+`chargebook run --unattended`; one with a spiked set that the automatic operator redoes; one
+paused, resumed, captured by hand and aborted mid-set; one whose cable is pulled mid-set and
+whose daemon is killed (kill -9) and restarted mid-set (the real daemon and the real simulator
+on a pty, as in test_daemon_e2e); and one more clean run on an electrometer that pushes its
+readings and has no remote bias (the tallyline profile: the bias is turned by hand). Each must
+replay exactly: every reading and every result bit-identical. The checks of exactness do not
+trust the replay's own comparison alone: they read both sessions back through the store and the
+project's result function, and check the what-if results against the published formulas.
 """
 
 from __future__ import annotations
@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 import pytest
 from chargebook.acquire.cli import main
+from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.demo_data import demo_metadata
 from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
 from chargebook.acquire.session_result import session_evaluation
@@ -100,8 +101,8 @@ def collecting(step: int, readings_done: int):
 
 
 async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProcess):
-    """Record a session whose routine set is spiked and redone, one aborted mid-set, and one
-    interrupted twice: the cable pulled, then the daemon killed."""
+    """Record a session whose routine set is spiked and redone, one paused, captured by hand
+    and aborted mid-set, and one interrupted twice: the cable pulled, then the daemon killed."""
     redone, aborted = await record_redo_and_abort(daemon, simulator)
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
@@ -125,8 +126,22 @@ async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProc
     return redone, aborted, final["session"]["id"]
 
 
+async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
+    """Capture the charge so far as soon as a sample of the reading under way has arrived
+    (the daemon refuses a capture before that, naming why)."""
+    for _ in range(attempts):
+        try:
+            await client.call("reading.capture")
+            return
+        except DaemonError as refused:
+            assert "no reading is in progress" in refused.message, refused.message
+            await asyncio.sleep(0.005)
+    pytest.fail("no sample arrived for the reading under way")
+
+
 async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProcess):
-    """Record a session whose routine set is spiked and redone, then one aborted mid-set."""
+    """Record a session whose routine set is spiked and redone, then one paused, resumed,
+    captured by hand and aborted mid-set."""
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -139,10 +154,11 @@ async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProce
     snapshot = await client.call("set.redo", reason=REDO_REASON)
     redone = await operator.run_until(snapshot, state_is("finished"))
     snapshot = await operator.start(demo_metadata())
-    snapshot = await operator.run_until(
-        snapshot,
-        lambda s: s["current_set"] is not None and s["current_set"]["readings_done"] >= 2,
-    )
+    snapshot = await operator.run_until(snapshot, state_is("reviewing"))  # the leakage set
+    await client.call("session.pause")
+    snapshot = await client.call("session.resume")
+    await operator.run_until(snapshot, collecting(1, 1))
+    await capture_by_hand(client)  # the second routine reading, mid-beam
     aborted = await client.call("session.abort", reason=ABORT_REASON, confirm=True)
     await client.close()
     return redone["session"]["id"], aborted["session"]["id"]
@@ -223,9 +239,12 @@ def redo_kept_with_its_reason(store: Store, replay_id: int) -> None:
     assert f"{ACTOR} (replayed)" in {e.actor for e in store.events(replay_id)}
 
 
-def abort_kept_with_its_reason(store: Store, replay_id: int) -> None:
+def pause_capture_and_abort_kept(store: Store, replay_id: int) -> None:
     assert store.session(replay_id).reason == ABORT_REASON
     assert store.sets(replay_id)[-1].status == "aborted"
+    assert [r.capture for r in store.readings(replay_id)][-1] == "manual"
+    actions = [e.detail().get("action") for e in store.events(replay_id)]
+    assert {"session.pause", "session.resume", "session.abort"} <= set(actions)
 
 
 def interruptions_where_they_happened(store: Store, replay_id: int) -> None:
@@ -246,7 +265,7 @@ SESSION_CHECKS = {
     "clean": lambda store, replay_id: None,
     "pushed": bias_turned_by_hand,
     "redone": redo_kept_with_its_reason,
-    "aborted": abort_kept_with_its_reason,
+    "aborted": pause_capture_and_abort_kept,
     "interrupted": interruptions_where_they_happened,
 }
 
