@@ -50,6 +50,8 @@ log = logging.getLogger(__name__)
 
 #: Longest wait for a line the playback must send unasked, in wall seconds.
 UNASKED_WAIT_S = 10.0
+#: Inputs that drop a reading under way.
+DROPPING_INPUTS = ("pause", "redo", "stop", "abort", "instrument_lost", "instrument_fault")
 #: Commands for the bench (the simulated linac and bias switch), not for the electrometer.
 BENCH_ACTIONS = ("beam", "bench_bias")
 
@@ -137,9 +139,11 @@ class Conductor:
         original_lines: Sequence[RecordedLine] | None = None,
         session_id: int | None = None,
         restart: Callable[[], Engine] | None = None,
+        captured_times_s: frozenset[float] = frozenset(),
     ) -> None:
         self.engine = engine
         self.restart = restart
+        self.captured_times_s = captured_times_s
         self.driver = driver
         self.follower = follower
         self.inputs = list(inputs)
@@ -269,10 +273,25 @@ class Conductor:
         self._take_commands()
         if not isinstance(sample, Sample) or self.pending or not self.engine.wants_samples():
             return
-        if sample.t_s < self.fresh_after_s:
+        if sample.t_s < self.fresh_after_s or self._maybe_dropped(sample):
             return
         self.engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
         self._take_commands()
+
+    def _maybe_dropped(self, sample: Sample) -> bool:
+        """Return True for a sample the daemon may have dropped: the last one before an input
+        that drops the reading (pause, redo, stop, abort, the instrument lost). Written before
+        that input, it may have reached the engine after it; then it was stale. An exact
+        replay gives it to the engine only if the original took a reading from it (had the
+        engine had it and not taken a reading, the reading was dropped anyway)."""
+        if not self.strict or self._next_input >= len(self.inputs):
+            return False
+        upcoming = self.inputs[self._next_input]
+        return (
+            upcoming.kind in DROPPING_INPUTS
+            and upcoming.position <= self.follower.position
+            and sample.t_s not in self.captured_times_s
+        )
 
     # -- commands ----------------------------------------------------------------------------
     def _take_commands(self) -> None:

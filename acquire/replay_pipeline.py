@@ -124,6 +124,7 @@ def _play(
         original_lines=recording.lines,
         session_id=recording.session_id,
         restart=lambda: _restarted(new_engine()),
+        captured_times_s=recording.captured_times_s,
     )
     stopped = None
     driver.open()

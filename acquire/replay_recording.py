@@ -92,6 +92,7 @@ class Recording:
     stamps: tuple[str, ...]  # when each line was written (``recorded_at``)
     armed_times_s: tuple[float, ...]
     armed_times_recorded: bool
+    captured_times_s: frozenset[float]  # when each reading was taken: its sample's time
     start_actor: str
 
     @property
@@ -115,6 +116,7 @@ def load_recording(store: Store, session_id: int) -> Recording:
     traffic = [*exchange_before(store, traffic), *traffic]
     profile, time_scale = _acquisition(events)
     armed, armed_recorded = armed_times(events, store, session_id)
+    captured = _capture_times(store, session_id)
     created = next((e for e in events if e.kind == "session_created"), None)
     return Recording(
         session=session,
@@ -125,10 +127,11 @@ def load_recording(store: Store, session_id: int) -> Recording:
             RecordedLine(index, row.t_s, row.direction, row.line)
             for index, row in enumerate(traffic)
         ),
-        inputs=tuple(recorded_inputs(events, traffic, _capture_times(store, session_id))),
+        inputs=tuple(recorded_inputs(events, traffic, captured)),
         stamps=tuple(row.recorded_at for row in traffic),
         armed_times_s=armed,
         armed_times_recorded=armed_recorded,
+        captured_times_s=frozenset(captured.values()),
         start_actor=created.actor if created is not None else "daemon",
     )
 
