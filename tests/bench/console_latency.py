@@ -31,6 +31,7 @@ from datetime import datetime
 from chargebook.acquire.client import Notification
 from chargebook.acquire.demo_run import chargebook_args
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, Method
+from chargebook.tui.snapshot_view import set_count_text
 
 from tests.bench import report
 from tests.bench.harness import (
@@ -52,8 +53,9 @@ FULL_ROUNDS = 4
 SMOKE_READINGS = 12
 TARGET_MEDIAN_MS = 50.0
 DEADLINE_S = 60.0
-#: "37 of 100 readings" as the console draws it.
-COUNT = re.compile(rb"([0-9]{1,3})" + text_pattern(f" of {READINGS_PER_SET} readings"))
+#: "37 of 100 readings" as the console draws it (its words, from the console's own text).
+_SAID = set_count_text({"readings_done": 7, "readings_needed": READINGS_PER_SET, "readings": []})
+COUNT = re.compile(rb"([0-9]{1,3})" + text_pattern(_SAID.split("7", 1)[1]))
 
 
 class SnapshotClock:
