@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import weakref
 from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire import live
@@ -13,6 +14,12 @@ if TYPE_CHECKING:
     from chargebook.acquire.engine import Engine
 
 S = EngineState
+
+#: Per engine, per set id: (what the set's entry was computed from, the entry). A set's
+#: statistics and flags are recomputed only when its row, its readings, the thresholds or its
+#: plan step changed, so a finished set costs nothing while another one is being taken.
+_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], dict[str, Any]]]]
+_SET_CACHE = weakref.WeakKeyDictionary()
 
 
 def build_snapshot(engine: Engine) -> dict[str, Any]:
@@ -35,7 +42,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
             "reason": row.reason,
         }
         readings = store.readings(session_id)
-        sets = [_set_info(engine, s, readings) for s in store.sets(session_id)]
+        sets = _sets_info(engine, store.sets(session_id), readings)
         entries = store.environment(session_id)
         if entries:
             environment = _environment_info(entries[-1])
@@ -68,10 +75,37 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
     }
 
 
-def _set_info(engine: Engine, row: SetRow, readings: list[ReadingRow]) -> dict[str, Any]:
-    own = [r for r in readings if r.set_id == row.id]
+def _sets_info(
+    engine: Engine, rows: list[SetRow], readings: list[ReadingRow]
+) -> list[dict[str, Any]]:
+    """Return every set's entry, reusing the entries of sets whose inputs did not change."""
+    by_set: dict[int, list[ReadingRow]] = {row.id: [] for row in rows}
+    for reading in readings:
+        by_set.setdefault(reading.set_id, []).append(reading)
+    cache = _SET_CACHE.setdefault(engine, {})
+    fresh: dict[int, tuple[tuple[Any, ...], dict[str, Any]]] = {}
+    entries = []
+    for row in rows:
+        own = by_set[row.id]
+        step = (
+            engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
+        )
+        inputs = (row, tuple(own), engine.thresholds, step)
+        cached = cache.get(row.id)
+        entry = cached[1] if cached is not None and cached[0] == inputs else None
+        if entry is None:
+            entry = _set_info(engine, row, own, step)
+        fresh[row.id] = (inputs, entry)
+        entries.append(dict(entry))  # a shallow copy: a caller may trim the copy's readings
+    _SET_CACHE[engine] = fresh
+    return entries
+
+
+def _set_info(
+    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None
+) -> dict[str, Any]:
+    """Return the protocol entry of one set: its readings, statistics and flags."""
     stats, flags, per_reading = live.set_summary(row.purpose, row.bias_V, own, engine.thresholds)
-    step = engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
     return {
         "id": row.id,
         "step_index": row.step_index,
