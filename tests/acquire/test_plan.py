@@ -57,7 +57,8 @@ def test_default_plan_step_details() -> None:
     assert (routine.readings, routine.mu_per_reading) == (4, 100.0)
     assert routine.settling == SettlingRule(discard_first=1)
     assert routine.deliveries_planned == 5
-    assert opposite.settling.discard_first == 1 and opposite.readings == 4
+    # After a polarity reversal the chamber settles more slowly: two settling readings.
+    assert opposite.settling.discard_first == 2 and opposite.readings == 4
     assert (reduced.readings, check.readings) == (3, 3)
     for step in plan.steps:
         assert step.prompt and f"{step.bias_V:+g} V" in step.prompt
