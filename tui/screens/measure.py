@@ -84,9 +84,10 @@ class MeasureScreen(ConsoleScreen):
         self.query_one(ReadingSetPanel).set_info = shown_set
         self.query_one(FlagList).show_flags(shown_set, snapshot)
         count = flag_count(shown_set, snapshot)
-        self.query_one(TabbedContent).get_tab("flags").label = (
-            f"{TABS[3][2]} ({count} !)" if count else TABS[3][2]
-        )
+        label = f"{TABS[3][2]} ({count} !)" if count else TABS[3][2]
+        tab = self.query_one(TabbedContent).get_tab("flags")
+        if str(tab.label) != label:
+            tab.label = label
         self.query_one(ResultsPanel).snapshot = snapshot
         self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
         self.query_one(PlanView).show_plan(snapshot.get("plan") or [])

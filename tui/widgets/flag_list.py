@@ -6,7 +6,7 @@ from typing import Any
 
 from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.reading_set import reading_flag_lines
-from textual.widgets import Static
+from chargebook.tui.widgets.text_block import TextBlock
 
 #: Severities that ask the operator to look (info flags are stated for the record only).
 LOOK_SEVERITIES = ("warning", "error")
@@ -40,9 +40,9 @@ def flag_text(set_info: dict[str, Any] | None, snapshot: dict[str, Any]) -> str:
     )
 
 
-class FlagList(Static):
+class FlagList(TextBlock):
     """All flags of the set on screen and of the session, each with its text marker."""
 
     def show_flags(self, set_info: dict[str, Any] | None, snapshot: dict[str, Any]) -> None:
         """Show the flags of ``set_info`` and of the session in ``snapshot``."""
-        self.update(flag_text(set_info, snapshot))
+        self.show(flag_text(set_info, snapshot))

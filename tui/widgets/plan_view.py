@@ -6,8 +6,8 @@ from collections.abc import Sequence
 from typing import Any
 
 from chargebook.tui import text
+from chargebook.tui.widgets.text_block import TextBlock
 from rich.table import Table
-from textual.widgets import Static
 
 #: Text marker per step status, readable without colour.
 STEP_MARKERS: dict[str, str] = {
@@ -32,9 +32,9 @@ def plan_table(plan: Sequence[dict[str, Any]]) -> Table:
     return table
 
 
-class PlanView(Static):
+class PlanView(TextBlock):
     """The plan as a table of steps."""
 
     def show_plan(self, plan: Sequence[dict[str, Any]]) -> None:
         """Show the steps of ``Snapshot.plan``."""
-        self.update(plan_table(plan))
+        self.show_built(list(plan), lambda: plan_table(plan))

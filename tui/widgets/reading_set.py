@@ -5,30 +5,60 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view, text
-from rich.table import Table
+from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Vertical, VerticalScroll
+from textual.content import Content
 from textual.reactive import reactive
-from textual.widgets import Sparkline, Static
+from textual.widgets import Sparkline
+
+#: The readings' columns: heading, least width in characters, aligned right?
+READING_COLUMNS: tuple[tuple[str, int, bool], ...] = (
+    ("#", 2, True),
+    ("Charge nC", 9, True),
+    ("How", 6, False),
+    ("Flag", 8, False),
+)
 
 
-def readings_table(set_info: dict[str, Any] | None) -> Table:
-    """Return a table of the set's readings: number, charge, how captured, flag marker."""
-    table = Table(box=None, padding=(0, 1), show_edge=False)
-    table.add_column("#", justify="right", width=2, no_wrap=True)
-    table.add_column("Charge nC", justify="right", min_width=9, no_wrap=True)
-    table.add_column("How", width=6, no_wrap=True)
-    table.add_column("Flag", min_width=8, no_wrap=True)
-    for reading in (set_info or {}).get("readings", []):
-        marker = text.reading_marker(reading.get("flags") or [], bool(reading.get("settling")))
-        cells = (
-            reading["seq"],
-            text.number(reading["charge_nC"], 4),
-            reading.get("capture"),
-            marker,
+def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
+    """Return one reading's cells: number, charge in nC, how captured, flag marker."""
+    marker = text.reading_marker(reading.get("flags") or [], bool(reading.get("settling")))
+    return (
+        str(reading["seq"]),
+        text.number(reading["charge_nC"], 4),
+        str(reading.get("capture") or ""),
+        marker,
+    )
+
+
+def readings_text(set_info: dict[str, Any] | None) -> str:
+    """Return the set's readings as one block of fixed-width lines under a heading line.
+
+    Plain lines, not a table widget: at 50 readings a second the console redraws this block
+    many times a second, and plain lines cost little to measure and paint.
+    """
+    rows = [reading_cells(reading) for reading in (set_info or {}).get("readings", [])]
+    headings = tuple(heading for heading, _width, _right in READING_COLUMNS)
+    widths = [
+        max(least, *(len(row[index]) for row in (headings, *rows)))
+        for index, (_heading, least, _right) in enumerate(READING_COLUMNS)
+    ]
+
+    def line(cells: tuple[str, ...]) -> str:
+        padded = (
+            cell.rjust(width) if right else cell.ljust(width)
+            for cell, width, (_h, _l, right) in zip(cells, widths, READING_COLUMNS, strict=True)
         )
-        table.add_row(*text.plain_row(cells))
-    return table
+        return " " + "  ".join(padded) + " "
+
+    return "\n".join(line(cells) for cells in (headings, *rows))
+
+
+def with_bold_heading(lines: str) -> Content:
+    """Return ``lines`` shown exactly as written, the first (heading) line in bold."""
+    heading_end = lines.find("\n")
+    return Content(lines).stylize("bold", 0, heading_end if heading_end >= 0 else len(lines))
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
@@ -47,25 +77,34 @@ class ReadingSetPanel(Vertical):
     """The set being taken (or just taken): table, sparkline, mean and relative SD, flags."""
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+    _shown_set: dict[str, Any] | None = None
 
     def compose(self) -> ComposeResult:
-        yield Static("", id="set-title", classes="panel-title", markup=False)
+        yield TextBlock(id="set-title", classes="panel-title")
         with VerticalScroll(id="readings-scroll"):
-            yield Static("", id="readings-table", markup=False)
-            yield Static("", id="set-flags", markup=False)
+            yield TextBlock(id="readings-table")
+            yield TextBlock(id="set-flags")
         yield Sparkline([], id="readings-plot")
-        yield Static("", id="set-stats", markup=False)
+        yield TextBlock(id="set-stats")
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
+        if set_info == self._shown_set and self._shown_set is not None:
+            return  # the same set, the same readings: nothing to redraw
+        self._shown_set = set_info
         title = "No reading set yet"
         if set_info:
             status = text.set_status(set_info["status"])
             title = f"{snapshot_view.set_title(set_info)}: {status}"
-        self.query_one("#set-title", Static).update(title)
-        self.query_one("#readings-table", Static).update(readings_table(set_info))
+        self.query_one("#set-title", TextBlock).show(title)
+        lines = readings_text(set_info)
+        self.query_one("#readings-table", TextBlock).show_built(
+            lines, lambda: with_bold_heading(lines)
+        )
         charges = [abs(charge) for charge in snapshot_view.set_charges_nC(set_info)]
-        self.query_one(Sparkline).data = charges
-        self.query_one("#set-stats", Static).update(
+        plot = self.query_one(Sparkline)
+        if plot.data != charges:
+            plot.data = charges
+        self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )
-        self.query_one("#set-flags", Static).update("\n".join(reading_flag_lines(set_info)))
+        self.query_one("#set-flags", TextBlock).show("\n".join(reading_flag_lines(set_info)))

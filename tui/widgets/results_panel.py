@@ -5,11 +5,11 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.text_block import TextBlock
 from rich.table import Table
 from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.reactive import reactive
-from textual.widgets import Static
 
 
 def factor_table(results: dict[str, Any] | None) -> Table:
@@ -49,22 +49,29 @@ class ResultsPanel(Vertical):
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
 
     def compose(self) -> ComposeResult:
-        yield Static("Results", id="results-title", classes="panel-title", markup=False)
-        yield Static("", id="results-problem", markup=False)
-        yield Static("", id="factor-table", markup=False)
-        yield Static("", id="results-table", markup=False)
-        yield Static("", id="session-flags", markup=False)
+        yield TextBlock("Results", id="results-title", classes="panel-title")
+        yield TextBlock(id="results-problem")
+        yield TextBlock(id="factor-table")
+        yield TextBlock(id="results-table")
+        yield TextBlock(id="session-flags")
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         if snapshot is None:
             return
-        self.query_one("#results-title", Static).update(results_title(snapshot))
+        self.query_one("#results-title", TextBlock).show(results_title(snapshot))
         problem = snapshot.get("results_error")
-        note = self.query_one("#results-problem", Static)
-        note.update(f"!! Results not computed: {problem}" if problem else "")
+        note = self.query_one("#results-problem", TextBlock)
+        note.show(f"!! Results not computed: {problem}" if problem else "")
         note.display = bool(problem)
-        self.query_one("#factor-table", Static).update(factor_table(snapshot.get("results")))
-        self.query_one("#results-table", Static).update(results_table(snapshot))
+        results = snapshot.get("results")
+        factors = snapshot_view.factor_rows(results)
+        self.query_one("#factor-table", TextBlock).show_built(
+            factors, lambda: factor_table(results)
+        )
+        rows = snapshot_view.result_rows(snapshot)
+        self.query_one("#results-table", TextBlock).show_built(
+            rows, lambda: results_table(snapshot)
+        )
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
         shown = "\n".join(["Session flags (every flag: tab 4):", *flags])
-        self.query_one("#session-flags", Static).update(shown)
+        self.query_one("#session-flags", TextBlock).show(shown)

@@ -6,8 +6,8 @@ from typing import Any
 
 from chargebook.tui import snapshot_view
 from chargebook.tui.messages import LinkStatus
+from chargebook.tui.widgets.text_block import TextBlock
 from textual.reactive import reactive
-from textual.widgets import Static
 
 NOT_CONNECTED = "Not connected to the daemon — retrying…"
 
@@ -25,7 +25,7 @@ def status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str,
     return f"{session} · electrometer connected", False
 
 
-class StatusLine(Static):
+class StatusLine(TextBlock):
     """One line: "!! Not connected to the daemon — retrying…", or the session and instrument."""
 
     link: reactive[LinkStatus] = reactive(LinkStatus(False, NOT_CONNECTED))
@@ -39,5 +39,5 @@ class StatusLine(Static):
 
     def _render_line(self) -> None:
         line, trouble = status_text(self.link, self.snapshot)
-        self.update(line)
+        self.show(line)
         self.set_class(trouble, "-trouble")

@@ -5,10 +5,11 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view
+from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.reactive import reactive
-from textual.widgets import ProgressBar, Static
+from textual.widgets import ProgressBar
 
 
 class StepPanel(Vertical):
@@ -18,20 +19,22 @@ class StepPanel(Vertical):
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="step-heading-row"):
-            yield Static("", id="step-heading", markup=False)
+            yield TextBlock(id="step-heading")
             yield ProgressBar(show_eta=False, show_percentage=False, id="plan-progress")
-            yield Static("", id="plan-progress-text", markup=False)
-        yield Static("", id="step-prompt", markup=False)
-        yield Static("", id="step-live", markup=False)
+            yield TextBlock(id="plan-progress-text")
+        yield TextBlock(id="step-prompt")
+        yield TextBlock(id="step-live")
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         if snapshot is None:
             return
-        self.query_one("#step-heading", Static).update(snapshot_view.step_heading(snapshot))
+        self.query_one("#step-heading", TextBlock).show(snapshot_view.step_heading(snapshot))
         done, total = snapshot_view.steps_done(snapshot)
-        self.query_one(ProgressBar).update(total=max(total, 1), progress=done)
-        self.query_one("#plan-progress-text", Static).update(f"{done}/{total} done")
-        self.query_one("#step-prompt", Static).update(
+        bar = self.query_one(ProgressBar)
+        if (bar.total, bar.progress) != (max(total, 1), done):
+            bar.update(total=max(total, 1), progress=done)
+        self.query_one("#plan-progress-text", TextBlock).show(f"{done}/{total} done")
+        self.query_one("#step-prompt", TextBlock).show(
             f"Do now: {snapshot_view.prompt_text(snapshot)}"
         )
-        self.query_one("#step-live", Static).update(snapshot_view.live_text(snapshot))
+        self.query_one("#step-live", TextBlock).show(snapshot_view.live_text(snapshot))
