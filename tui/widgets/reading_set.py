@@ -5,10 +5,10 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Vertical, VerticalScroll
-from textual.content import Content
 from textual.reactive import reactive
 from textual.widgets import Sparkline
 
@@ -32,11 +32,11 @@ def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     )
 
 
-def readings_text(set_info: dict[str, Any] | None) -> str:
-    """Return the set's readings as one block of fixed-width lines under a heading line.
+def readings_lines(set_info: dict[str, Any] | None) -> list[str]:
+    """Return the set's readings as fixed-width lines under a heading line.
 
-    Plain lines, not a table widget: at 50 readings a second the console redraws this block
-    many times a second, and plain lines cost little to measure and paint.
+    Plain lines, not a table widget: at 50 readings a second the console redraws them many
+    times a second, and plain lines cost little to measure and paint.
     """
     rows = [reading_cells(reading) for reading in (set_info or {}).get("readings", [])]
     headings = tuple(heading for heading, _width, _right in READING_COLUMNS)
@@ -52,13 +52,7 @@ def readings_text(set_info: dict[str, Any] | None) -> str:
         )
         return " " + "  ".join(padded) + " "
 
-    return "\n".join(line(cells) for cells in (headings, *rows))
-
-
-def with_bold_heading(lines: str) -> Content:
-    """Return ``lines`` shown exactly as written, the first (heading) line in bold."""
-    heading_end = lines.find("\n")
-    return Content(lines).stylize("bold", 0, heading_end if heading_end >= 0 else len(lines))
+    return [line(cells) for cells in (headings, *rows)]
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
@@ -82,7 +76,7 @@ class ReadingSetPanel(Vertical):
     def compose(self) -> ComposeResult:
         yield TextBlock(id="set-title", classes="panel-title")
         with VerticalScroll(id="readings-scroll"):
-            yield TextBlock(id="readings-table")
+            yield ReadingLines(id="readings-table")
             yield TextBlock(id="set-flags")
         yield Sparkline([], id="readings-plot")
         yield TextBlock(id="set-stats")
@@ -96,10 +90,7 @@ class ReadingSetPanel(Vertical):
             status = text.set_status(set_info["status"])
             title = f"{snapshot_view.set_title(set_info)}: {status}"
         self.query_one("#set-title", TextBlock).show(title)
-        lines = readings_text(set_info)
-        self.query_one("#readings-table", TextBlock).show_built(
-            lines, lambda: with_bold_heading(lines)
-        )
+        self.query_one(ReadingLines).show_lines(readings_lines(set_info))
         charges = [abs(charge) for charge in snapshot_view.set_charges_nC(set_info)]
         plot = self.query_one(Sparkline)
         if plot.data != charges:
