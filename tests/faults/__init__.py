@@ -1,3 +1,3 @@
 """Fault-injection runs: scripts run by hand (``python -m tests.faults.<name> [--smoke]``), each
 breaking one part of the real system on purpose and counting what survived. See
-``tests/bench/RESULTS.md``."""
+the README's "Performance and robustness" section."""
