@@ -236,3 +236,12 @@ async def test_results_the_daemon_could_not_compute_are_said_so_in_words():
         await pilot.pause()
         shown = screen_text(app)
     assert "!! Results not computed: reduced_nC[1] = 0 averages zero" in shown
+
+
+async def test_the_setup_form_shows_the_safety_caution_beside_start():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=(80, 80)) as pilot:
+        await pilot.pause()
+        shown = screen_text(app)
+    assert "never replaces, the judgement of a qualified" in shown
+    assert shown.index("Caution:") < shown.index("Start session (Ctrl+S)")

@@ -9,6 +9,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
+from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
 from chargebook.tui.messages import SetupFinished
@@ -46,6 +47,7 @@ class SetupScreen(ConsoleScreen):
             yield SessionForm(self.defaults)
             yield Static("Air at the chamber", classes="section-title", markup=False)
             yield EnvironmentFields(self.defaults)
+            yield Static(f"Caution: {CAUTION}", id="setup-caution", markup=False)
             yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
         yield Static("", id="setup-problem", markup=False)
         yield Footer(compact=True, show_command_palette=False)
