@@ -70,7 +70,7 @@ def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
 class ReadingSetPanel(Vertical):
     """The set being taken (or just taken): table, sparkline, mean and relative SD, flags."""
 
-    set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+    set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
 
     def compose(self) -> ComposeResult:

@@ -46,7 +46,7 @@ def results_title(snapshot: dict[str, Any]) -> str:
 class ResultsPanel(Vertical):
     """Factor table, results and the session's flags, as the daemon computed them."""
 
-    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
 
     def compose(self) -> ComposeResult:
         yield TextBlock("Results", id="results-title", classes="panel-title")

@@ -28,8 +28,8 @@ def status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str,
 class StatusLine(TextBlock):
     """One line: "!! Not connected to the daemon — retrying…", or the session and instrument."""
 
-    link: reactive[LinkStatus] = reactive(LinkStatus(False, NOT_CONNECTED))
-    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+    link: reactive[LinkStatus] = reactive(LinkStatus(False, NOT_CONNECTED), repaint=False)
+    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
 
     def watch_link(self) -> None:
         self._render_line()

@@ -15,7 +15,7 @@ from textual.widgets import ProgressBar
 class StepPanel(Vertical):
     """Step heading with progress, then "Do now: …" in the daemon's words, then the live reading."""
 
-    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True)
+    snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="step-heading-row"):
