@@ -20,7 +20,7 @@ from typing import Any
 
 from chargebook.acquire import session_meta
 from chargebook.acquire.capture import CaptureSettings
-from chargebook.acquire.plan import Plan, Step, load_plan
+from chargebook.acquire.plan import COMPARED_PURPOSES, Plan, Step, load_plan
 from chargebook.acquire.session_meta import SessionMetadata
 from chargebook.acquire.store import EventRow, ReadingRow, SetRow, Store
 from chargebook.corrections import limits, units
@@ -31,11 +31,6 @@ from chargebook.corrections.units import Conversion
 
 #: The plan purposes whose accepted readings feed the results, and their MeasurementInputs field.
 RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
-
-#: The purposes whose readings are judged for scatter, drift and outliers: the sets that feed the
-#: results and the return check compared with them. A leakage set (one timed reading) and a
-#: warm-up set (pre-irradiation, not used) are shown with their statistics but not judged.
-JUDGED_PURPOSES = frozenset((*RESULT_PURPOSES, "return_check"))
 
 
 # ------------------------------------------------------------------------- operator input
@@ -184,7 +179,7 @@ def set_summary(
     if not used:
         return None, [], per_reading
     stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
-    if purpose not in JUDGED_PURPOSES:
+    if purpose not in COMPARED_PURPOSES:
         return _plain(stats), [], per_reading
     for index in stats.outliers:
         per_reading[used[index].id].append(

@@ -55,9 +55,10 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.limits import BIAS_MAGNITUDE_V, MONITOR_UNITS
 
 PURPOSES = ("leakage", "warmup", "routine", "opposite", "reduced", "return_check")
-#: The purposes whose mean charges are compared with one another (k_pol, k_s, the return check),
-#: so they must take the same MU per reading.
-MU_COMPARED_PURPOSES = frozenset(("routine", "opposite", "reduced", "return_check"))
+#: The purposes whose mean charges are compared with one another (k_pol, k_s, the return check):
+#: they must take the same MU per reading, and their sets are judged for scatter, drift and
+#: outliers. Leakage (one timed reading) and warm-up (pre-irradiation) are neither.
+COMPARED_PURPOSES = frozenset(("routine", "opposite", "reduced", "return_check"))
 #: Purposes whose polarity and bias are fixed by what the step measures.
 FIXED_SETTINGS: Mapping[str, tuple[str, str]] = {
     "routine": ("routine", "routine"),
@@ -387,7 +388,7 @@ class Plan:
         compared = [
             (index, step)
             for index, step in enumerate(self.steps)
-            if step.purpose in MU_COMPARED_PURPOSES
+            if step.purpose in COMPARED_PURPOSES
         ]
         if not compared:
             return
