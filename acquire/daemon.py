@@ -24,6 +24,7 @@ import os
 import queue
 import threading
 import time
+import traceback
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,6 +33,7 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.engine import Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
+from chargebook.acquire.station_lock import StationLock
 from chargebook.acquire.store import Store, TrafficLine
 from chargebook.drivers_generic.interface import (
     Capability,
@@ -147,11 +149,17 @@ class InstrumentLink(threading.Thread):
 
     def _connect(self) -> None:
         delay_s = RECONNECT_FIRST_S
+        said: str | None = None
         while not self._quit.is_set():
             try:
                 self.electrometer.open()
             except InstrumentError as error:
-                log.info("electrometer not reachable (%s); retrying in %.1f s", error, delay_s)
+                why = str(error)
+                level = logging.INFO if why == said else logging.WARNING  # say each new cause
+                log.log(level, "electrometer not reachable (%s); retrying in %.1f s", why, delay_s)
+                if why != said:
+                    said = why
+                    self.post("unreachable", f"electrometer not reachable: {why}")
                 self._drain_while_away()
                 if self._quit.wait(delay_s):
                     return
@@ -320,6 +328,7 @@ class Daemon:
         self.options = options
         self.clock = clock
         self.store: Store | None = None
+        self.station_lock = StationLock(options.db_path)
         self.engine: Engine | None = None
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
@@ -339,6 +348,7 @@ class Daemon:
 
         options = self.options
         profile = load_profile(options.profile)
+        self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
         bench = None
         if options.bench_control:
@@ -398,7 +408,13 @@ class Daemon:
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
-        self._build()
+        try:
+            self._build()
+        except BaseException:
+            if self.store is not None:
+                self.store.close()
+            self.station_lock.release()
+            raise
         assert self.engine is not None and self.link is not None and self.store is not None
         resumed = self.engine.restore()
         await self.server.start()
@@ -428,6 +444,7 @@ class Daemon:
             if self.options.bench_control and self.link.bench is not None:
                 self.link.bench.close()
             self.store.close()
+            self.station_lock.release()
 
     def shutdown(self) -> None:
         """Ask :meth:`run` to end (from a signal handler or a test)."""
@@ -435,21 +452,29 @@ class Daemon:
 
     # -- the loop's work -----------------------------------------------------------------------
     async def _consume_instrument(self) -> None:
-        assert self.engine is not None
-        engine = self.engine
         while True:
             kind, payload = await self._events.get()
-            if kind == "samples":
-                self._feed(*payload)
-            elif kind == "connected":
-                engine.instrument_back(payload)
-                if payload:
-                    self._identified(payload)
-            elif kind == "lost":
-                engine.instrument_lost(payload)
-            elif kind == "fault":
-                engine.instrument_lost(payload, still_connected=True)
-            await self.after_change()
+            try:
+                self._take_instrument_event(kind, payload)
+                await self.after_change()
+            except Exception:  # supervised: log it, record it, keep taking the instrument's news
+                self._unexpected(f"handling the instrument's {kind!r}")
+
+    def _take_instrument_event(self, kind: str, payload: Any) -> None:
+        assert self.engine is not None
+        engine = self.engine
+        if kind == "samples":
+            self._feed(*payload)
+        elif kind == "connected":
+            engine.instrument_back(payload)
+            if payload:
+                self._identified(payload)
+        elif kind == "lost":
+            engine.instrument_lost(payload)
+        elif kind == "fault":
+            engine.instrument_lost(payload, still_connected=True)
+        elif kind == "unreachable":
+            engine.instrument_unreachable(payload)
 
     def _feed(self, generation: int | None, samples: list[Sample]) -> None:
         """Give the engine the samples of the reading now armed, until one completes it."""
@@ -474,8 +499,22 @@ class Daemon:
         assert self.engine is not None
         while True:
             await asyncio.sleep(TICK_S)
-            self.engine.tick()
-            await self.after_change()
+            try:
+                self.engine.tick()
+                await self.after_change()
+            except Exception:  # supervised, as the instrument events are
+                self._unexpected("the clock tick")
+
+    def _unexpected(self, doing: str) -> None:
+        """Log an unexpected error with its traceback and record it as an event; carry on."""
+        log.exception("unexpected error while %s; the daemon carries on", doing)
+        if self.store is None or self.engine is None:
+            return
+        with contextlib.suppress(Exception):
+            error = traceback.format_exc(limit=8)
+            self.store.add_event(
+                self.engine.session_id, "daemon", "daemon_error", {"while": doing, "error": error}
+            )
 
     async def after_change(self) -> None:
         """Send the engine's commands to the instrument and publish what changed."""

@@ -48,11 +48,19 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
 def startup_errors() -> tuple[type[BaseException], ...]:
     """Return the exceptions that mean the daemon cannot start as asked (exit 2)."""
     from chargebook.acquire.server import SocketInUse, UnsafeSocketDirectory
+    from chargebook.acquire.station_lock import StationInUse
     from chargebook.acquire.store import StoreError
     from chargebook.drivers_generic import ProfileError
     from chargebook.drivers_generic.interface import SettingOutOfRange
 
-    return (SocketInUse, UnsafeSocketDirectory, StoreError, ProfileError, SettingOutOfRange)
+    return (
+        SocketInUse,
+        UnsafeSocketDirectory,
+        StationInUse,
+        StoreError,
+        ProfileError,
+        SettingOutOfRange,
+    )
 
 
 def serve_forever(args: argparse.Namespace) -> int:

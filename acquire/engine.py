@@ -456,6 +456,13 @@ class Engine:
                 self._goto(S.INTERRUPTED, "instrument lost", DAEMON_ACTOR, reason=message)
         self._changed()
 
+    def instrument_unreachable(self, message: str) -> None:
+        """The electrometer cannot be reached yet (or again): show why, while it stays away."""
+        if self.instrument_connected or message == self.instrument_message:
+            return
+        self.instrument_message = message
+        self._changed()
+
     def instrument_back(self, identity: str | None = None) -> None:
         """The electrometer answers again (or for the first time)."""
         if identity is not None:

@@ -54,11 +54,17 @@ class SerialTransport(Transport):
                 stopbits=settings.stopbits,
                 timeout=0,
                 write_timeout=self.write_timeout_s,
+                exclusive=True,  # a second program on the port would corrupt the readings
                 **_FLOW_KEYWORDS[settings.flow_control],
             )
             self._serial.reset_input_buffer()
         except (serial.SerialException, OSError, ValueError) as error:
             self._serial = None
+            if "exclusively lock" in str(error):
+                raise InstrumentDisconnected(
+                    f"serial port {self.port} is in use by another program "
+                    "(another daemon or terminal holds it); close that program first"
+                ) from None
             raise InstrumentDisconnected(f"cannot open serial port {self.port}: {error}") from None
 
     def _close(self) -> None:
