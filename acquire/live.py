@@ -178,7 +178,10 @@ def set_summary(
     per_reading = {r.id: reading_flags(r, purpose, expected) for r in readings}
     if not used:
         return None, [], per_reading
-    stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
+    try:
+        stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
+    except InputError as error:  # display never raises: say why there are no statistics
+        return None, [_unsummarised(purpose, error)], per_reading
     if purpose not in COMPARED_PURPOSES:
         return _plain(stats), [], per_reading
     for index in stats.outliers:
@@ -191,6 +194,22 @@ def set_summary(
         )
     flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
     return _plain(stats), flags, per_reading
+
+
+def _unsummarised(purpose: str, error: InputError) -> dict[str, str]:
+    """Return the flag shown in place of a set's statistics that cannot be formed."""
+    if purpose == "leakage":
+        return _flag(
+            "leakage_zero",
+            "The leakage readings average exactly zero: no leakage shows at the instrument's "
+            "resolution, so there is no relative spread to state.",
+            "info",
+        )
+    return _flag(
+        "statistics_unavailable",
+        f"No statistics for this set ({error}): check the readings, the bias and the cable, "
+        "then redo the set.",
+    )
 
 
 def _plain(stats: Any) -> dict[str, Any]:

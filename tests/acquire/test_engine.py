@@ -373,3 +373,14 @@ def test_a_refused_command_interrupts_the_set_but_it_can_go_on_at_once():
     assert engine.snapshot()["instrument"]["message"] is None
     kinds = [e.kind for e in engine.store.events(engine.session_id)]
     assert "instrument_fault" in kinds
+
+
+def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():
+    # Display never raises: set statistics that cannot be formed are a flag in the snapshot.
+    engine, clock = make_engine()
+    started(engine)
+    take_set(engine, clock, [20.5, 2.0, -2.0])  # first is the settling reading
+    snapshot = engine.snapshot()
+    current = snapshot["current_set"]
+    assert current["stats"] is None
+    assert "statistics_unavailable" in [flag["code"] for flag in current["flags"]]

@@ -48,3 +48,25 @@ def test_leakage_and_warm_up_sets_are_shown_but_not_judged(
     assert stats is not None and stats["count"] == len(charges_nC)
     assert flags == []
     assert all(reading_flags == [] for reading_flags in per_reading.values())
+
+
+def test_a_leakage_set_of_exact_zeros_is_shown_with_a_plain_word_not_an_error() -> None:
+    # The best possible leakage result: it used to raise inside the snapshot and freeze the daemon.
+    stats, flags, per_reading = live.set_summary("leakage", 300.0, _rows(0.0, 0.0), Thresholds())
+    assert stats is None
+    assert [flag["code"] for flag in flags] == ["leakage_zero"]
+    assert flags[0]["severity"] == "info"
+    assert set(per_reading) == {1, 2}
+
+
+def test_a_set_that_averages_zero_says_why_it_has_no_statistics() -> None:
+    # Readings that change sign within a set: no relative spread exists; the set is flagged.
+    stats, flags, _ = live.set_summary("routine", 300.0, _rows(1.0, -1.0), Thresholds())
+    assert stats is None
+    assert [flag["code"] for flag in flags] == ["statistics_unavailable"]
+    assert "averages zero" in flags[0]["message"]
+
+
+def test_a_reading_of_a_picocoulomb_fraction_still_gets_statistics() -> None:
+    stats, _, _ = live.set_summary("routine", 300.0, _rows(1e-12, 1.1e-12), Thresholds())
+    assert stats is not None and stats["count"] == 2
