@@ -154,8 +154,15 @@ class ProfileElectrometer:
             lines = self._rendered[spec.name] = spec.render()
         return lines
 
-    def _exchange(self, line: str, interpret: Callable[[ReceivedLine], T]) -> T:
-        """Send ``line`` and return its interpreted answer, resending on silence."""
+    def _exchange(
+        self, line: str, interpret: Callable[[ReceivedLine], T], *, ask_error_queue: bool = True
+    ) -> T:
+        """Send ``line`` and return its interpreted answer, resending on silence.
+
+        After the last silent attempt the error queue is asked why, once (``ask_error_queue``);
+        the error query itself never asks again, so a mute instrument ends in
+        :class:`InstrumentTimeout`, not in a chain of queries without end.
+        """
         timing = self.profile.timing
         for _ in range(timing.retries + 1):
             self.transport.write_line(line)
@@ -163,7 +170,7 @@ class ProfileElectrometer:
                 return self._await_answer(interpret, timing.timeout_s)
             except _NoReply:
                 continue
-        if self.profile.confirmation.style == "error_queue":
+        if ask_error_queue and self.profile.confirmation.style == "error_queue":
             self._check_error_queue(line)
         raise InstrumentTimeout(
             f"{self.profile.name}: no answer to {line!r} after {timing.retries + 1} attempt(s) "
@@ -192,7 +199,9 @@ class ProfileElectrometer:
         confirmation = self.profile.confirmation
         errors: list[str] = []
         for _ in range(MAX_ERROR_QUEUE_ENTRIES):
-            code, message = self._exchange(confirmation.error_query, self._error_entry)
+            code, message = self._exchange(
+                confirmation.error_query, self._error_entry, ask_error_queue=False
+            )
             if code == confirmation.no_error_code:
                 break
             errors.append(f"{code},{message}")

@@ -312,6 +312,19 @@ def test_scpi_query_without_answer_consults_the_error_queue():
     finish(driver)
 
 
+def test_a_mute_scpi_instrument_times_out_after_one_round_of_error_queries():
+    # It answered neither the query nor SYST:ERR?: the error query is not asked about itself
+    # again (it used to recurse until RecursionError killed the instrument thread).
+    driver, transport = scripted(
+        "scpi-generic",
+        [("FETC?", None), ("FETC?", None), ("SYST:ERR?", None), ("SYST:ERR?", None)],
+    )
+    with pytest.raises(InstrumentTimeout, match="SYST:ERR"):
+        driver.read_charge()
+    assert len(transport.sent) == 4
+    finish(driver)
+
+
 # -- every profile --------------------------------------------------------------------------------
 
 
