@@ -113,7 +113,7 @@ class DaemonClient:
         """
         path = str(socket_path or protocol.default_socket_path())
         reader, writer = await asyncio.open_unix_connection(
-            path, limit=protocol.MAX_MESSAGE_BYTES + 1
+            path, limit=protocol.MAX_DAEMON_MESSAGE_BYTES + 1
         )
         self = cls(reader, writer, path)
         params: dict[str, Any] = {"client": client}

@@ -317,7 +317,7 @@ class InstrumentLink(threading.Thread):
 
 def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
-    return protocol.encode(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
+    return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
 
 
 # --------------------------------------------------------------------------------- daemon

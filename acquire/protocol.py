@@ -6,7 +6,8 @@ driver, no asyncio, so any client may import it.
 
 Framing
     Newline-delimited UTF-8 JSON, one JSON-RPC 2.0 object per line, at most
-    :data:`MAX_MESSAGE_BYTES` bytes per line including the newline. A longer line gets an
+    :data:`MAX_MESSAGE_BYTES` bytes per request line including the newline (the daemon's own
+    messages may be up to :data:`MAX_DAEMON_MESSAGE_BYTES`). A longer request gets an
     ``invalid request`` error and that connection is closed; other clients are unaffected.
     Batches (JSON arrays) are not supported and get ``invalid request``.
 
@@ -45,8 +46,12 @@ from typing import Any, Literal, NotRequired, TypedDict
 PROTOCOL_VERSION = "1.0"
 JSONRPC = "2.0"
 
-#: Longest message on the wire, in bytes, newline included.
+#: Longest message a client may send the daemon, in bytes, newline included.
 MAX_MESSAGE_BYTES = 64 * 1024
+#: Longest message the daemon sends a client (a snapshot of a long session, a reply carrying
+#: one), in bytes, newline included. Not bounded by the request limit: a session of 500 sets
+#: must still reach its console.
+MAX_DAEMON_MESSAGE_BYTES = 32 * 1024 * 1024
 
 # ---------------------------------------------------------------------------------------------
 # Error codes
@@ -528,17 +533,23 @@ def error_response(
     return {"jsonrpc": JSONRPC, "id": request_id, "error": error}
 
 
-def encode(message: dict) -> bytes:
+def encode(message: dict, limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
     """Return ``message`` as one line of UTF-8 JSON ending in a newline.
 
-    Raises ValueError if the line would exceed :data:`MAX_MESSAGE_BYTES`.
+    Raises ValueError if the line would exceed ``limit_bytes`` (a client's request limit unless
+    the daemon passes :data:`MAX_DAEMON_MESSAGE_BYTES` for its own messages).
     """
     line = json.dumps(message, separators=(",", ":"), allow_nan=False).encode() + b"\n"
-    if len(line) > MAX_MESSAGE_BYTES:
+    if len(line) > limit_bytes:
         raise ValueError(
-            f"message is {len(line)} bytes, more than the limit of {MAX_MESSAGE_BYTES} bytes"
+            f"message is {len(line)} bytes, more than the limit of {limit_bytes} bytes"
         )
     return line
+
+
+def encode_from_daemon(message: dict) -> bytes:
+    """Return a message of the daemon's as one line, bounded by MAX_DAEMON_MESSAGE_BYTES."""
+    return encode(message, MAX_DAEMON_MESSAGE_BYTES)
 
 
 # ---------------------------------------------------------------------------------------------

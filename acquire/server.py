@@ -2,8 +2,8 @@
 
 One asyncio server, several clients at once. Each connection is read line by line with a bound
 on the line length; garbage, an over-long line, a slow reader or a vanished client affects only
-its own connection. The socket lives in a directory only its user can enter (0700) and is mode
-0600; there is no TCP listener.
+its own connection: nothing sent to a client waits for that client to read. The socket lives
+in a directory only its user can enter (0700) and is mode 0600; there is no TCP listener.
 
 The server knows nothing of measurements: it calls ``dispatch(connection, method, params)``
 and turns the exceptions it raises into error responses (:func:`error_for`).
@@ -19,7 +19,7 @@ import os
 import socket
 import stat
 from collections.abc import Awaitable, Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -52,7 +52,6 @@ class Connection:
     operator: str | None = None
     subscribed: bool = False
     closed: bool = False
-    lock: asyncio.Lock = field(default_factory=asyncio.Lock)
 
     @property
     def actor(self) -> str:
@@ -60,20 +59,29 @@ class Connection:
         return self.operator or self.client
 
     async def send(self, line: bytes) -> None:
-        """Write one encoded message; close the connection if its reader cannot keep up."""
+        """Queue one encoded message for this client; never wait for the client to read it.
+
+        The connection's outgoing queue is its transport's buffer, written out by the event
+        loop as the client reads. A client that falls more than MAX_PENDING_OUTPUT_BYTES behind
+        (a suspended console, a stalled script) is disconnected with a logged reason, so it can
+        delay neither acquisition nor any other client.
+        """
         if self.closed:
             return
-        transport = self.writer.transport
-        if transport.get_write_buffer_size() > MAX_PENDING_OUTPUT_BYTES:
-            log.warning("client %d is not reading; closing its connection", self.number)
+        behind_bytes = self.writer.transport.get_write_buffer_size()
+        if behind_bytes + len(line) > MAX_PENDING_OUTPUT_BYTES:
+            log.warning(
+                "client %d (%s) is %d bytes behind and not reading; closing its connection",
+                self.number,
+                self.actor,
+                behind_bytes,
+            )
             self.close()
             return
-        async with self.lock:
-            try:
-                self.writer.write(line)
-                await self.writer.drain()
-            except (ConnectionError, RuntimeError):
-                self.close()
+        try:
+            self.writer.write(line)
+        except (ConnectionError, RuntimeError):
+            self.close()
 
     def close(self) -> None:
         if not self.closed:
@@ -183,7 +191,9 @@ class RpcServer:
 
     async def broadcast(self, method: str, params: Any) -> None:
         """Send a notification to every subscribed connection."""
-        await self.broadcast_line(protocol.encode(protocol.notification(method, params)))
+        await self.broadcast_line(
+            protocol.encode_from_daemon(protocol.notification(method, params))
+        )
 
     async def broadcast_line(self, line: bytes) -> None:
         """Send an encoded notification line to every subscribed connection."""
@@ -227,7 +237,7 @@ class RpcServer:
         self, connection: Connection, request_id: Any, code: int, message: str, data: Any = None
     ) -> None:
         await connection.send(
-            protocol.encode(protocol.error_response(request_id, code, message, data))
+            protocol.encode_from_daemon(protocol.error_response(request_id, code, message, data))
         )
 
     async def _handle_line(self, connection: Connection, line: bytes) -> None:
@@ -265,11 +275,13 @@ class RpcServer:
 def _encoded_reply(reply: dict[str, Any], request_id: Any) -> bytes:
     """Return the reply as one line, or an internal error if it cannot be sent as it is."""
     try:
-        return protocol.encode(reply)
+        return protocol.encode_from_daemon(reply)
     except ValueError as error:  # over the size limit, or a value JSON cannot carry
         log.warning("a reply could not be encoded: %s", error)
         text = f"internal error: the reply could not be sent ({error})"
-        return protocol.encode(protocol.error_response(request_id, protocol.INTERNAL_ERROR, text))
+        return protocol.encode_from_daemon(
+            protocol.error_response(request_id, protocol.INTERNAL_ERROR, text)
+        )
 
 
 def _not_a_json_number(name: str) -> Any:

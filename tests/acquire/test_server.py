@@ -2,7 +2,7 @@
 
 The server's collaborator here is a small dispatcher that raises the daemon's real errors; the
 whole daemon behind the same server is tested in tests/e2e. Wire format: JSON-RPC 2.0
-(jsonrpc.org/specification), newline-delimited, at most 64 KiB per message.
+(jsonrpc.org/specification), newline-delimited, at most 64 KiB per request.
 """
 
 from __future__ import annotations
@@ -165,3 +165,36 @@ async def test_the_client_sees_the_daemon_go_and_can_wait_for_it_to_return(tmp_p
     with pytest.raises(ConnectionLost):
         await client.call("status")
     await client.close()
+
+
+async def test_a_subscriber_that_stops_reading_delays_neither_broadcasts_nor_other_clients(server):
+    # A suspended console (Ctrl-Z) is a connected socket whose process no longer reads: the
+    # daemon used to wait on it while holding its lock, freezing acquisition for everyone.
+    stalled = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    stalled.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)
+    stalled.connect(str(server.socket_path))
+    stalled.sendall(b'{"jsonrpc":"2.0","id":1,"method":"subscribe"}\n')
+    other = await DaemonClient.connect(server.socket_path)
+    for _ in range(100):  # until the server has taken the subscription
+        if server.has_subscribers():
+            break
+        await asyncio.sleep(0.01)
+    params = {"seq": 1, "padding": "x" * 20_000}
+    # 400 snapshots of 20 kB: far beyond the socket's buffers and the 4 MiB outgoing bound.
+    for _ in range(400):
+        await asyncio.wait_for(server.broadcast("snapshot", params), 2.0)
+    reply = await asyncio.wait_for(other.call("status"), 5.0)
+    assert reply["method"] == "status"
+    assert not server.has_subscribers()  # the stalled reader was let go, with a logged reason
+    stalled.close()
+    await other.close()
+
+
+async def test_a_daemon_message_longer_than_the_request_limit_reaches_the_client(server):
+    # A snapshot of a long session outgrows 64 KiB; the request limit must not bound it.
+    listener = await DaemonClient.connect(server.socket_path)
+    await listener.subscribe()
+    await server.broadcast("snapshot", {"seq": 9, "sets": ["x" * 1000] * 300})
+    snapshot = await listener.wait_for_snapshot(lambda s: s["seq"] == 9, 5)
+    assert len(snapshot["sets"]) == 300
+    await listener.close()
