@@ -371,10 +371,31 @@ class Store:
     # ---------------------------------------------------------------------------- helpers
 
     @contextmanager
-    def _atomic(self) -> Iterator[Database]:
-        """Hold the lock and run the block in one transaction (committed on exit)."""
-        with self._lock, self.db.atomic():
-            yield self.db
+    def atomic(self) -> Iterator[Database]:
+        """Hold the lock and run the block in one transaction, committed on exit.
+
+        The outermost block begins IMMEDIATE: it takes the write lock first, so a concurrent
+        writer (a replay, a reviewer's tool) makes it wait up to the busy timeout instead of
+        failing at once, as a deferred transaction that read before writing did. A nested
+        block is a savepoint: an error rolls back that block's rows only.
+        """
+        with self._lock:
+            conn = self.db.conn
+            if conn.in_transaction:
+                with self.db.atomic():  # a savepoint inside the open transaction
+                    yield self.db
+                return
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                yield self.db
+            except BaseException:
+                conn.rollback()
+                raise
+            try:
+                conn.execute("COMMIT")
+            except BaseException:
+                conn.rollback()
+                raise
 
     def _stamp(self) -> str:
         if self._now is utc_now:
@@ -437,7 +458,7 @@ class Store:
             "beam": _require_text("beam", beam),
             "replay_of": replay_of,
         }
-        with self._atomic():
+        with self.atomic():
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
             session_id = self._insert("sessions", row)
@@ -463,7 +484,7 @@ class Store:
         clears it. A finished or aborted session is final: changing it raises StoreError.
         """
         _require_choice("status", status, SESSION_STATUSES)
-        with self._atomic():
+        with self.atomic():
             old = self._one(SessionRow, "sessions", session_id, "session")
             if old.status in SESSION_FINAL_STATUSES and status != old.status:
                 raise StoreError(
@@ -520,7 +541,7 @@ class Store:
             "status": "collecting",
             "started_at": self._stamp(),
         }
-        with self._atomic():
+        with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
             return self._insert("reading_sets", row)
 
@@ -533,7 +554,7 @@ class Store:
         A superseded or aborted set is final: changing it raises StoreError.
         """
         _require_choice("status", status, SET_STATUSES)
-        with self._atomic():
+        with self.atomic():
             old = self._one(SetRow, "reading_sets", set_id, "reading set")
             if old.status in SET_FINAL_STATUSES and status != old.status:
                 raise StoreError(
@@ -601,7 +622,7 @@ class Store:
             "traffic_id": traffic_id,
             "recorded_at": self._stamp(),
         }
-        with self._atomic():
+        with self.atomic():
             reading_set = self._one(SetRow, "reading_sets", set_id, "reading set")
             if reading_set.session_id != session_id:
                 raise InputError(
@@ -649,7 +670,7 @@ class Store:
             "humidity_pct": _require_finite("humidity_pct", humidity_pct, optional=True),
             "source": _require_text("source", source),
         }
-        with self._atomic():
+        with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
             return self._insert("environment", row)
 
@@ -661,7 +682,7 @@ class Store:
 
     def add_event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
         """Record one audit event (who, what, and why in ``detail``); return its id."""
-        with self._atomic():
+        with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
             return self._event(session_id, actor, kind, detail)
@@ -687,7 +708,7 @@ class Store:
                 strict=True,
             )
         )
-        with self._atomic():
+        with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
             return self._insert("traffic", row)
@@ -707,7 +728,7 @@ class Store:
         bad line refuses the whole call.
         """
         rows = [_traffic_row(line) for line in lines]
-        with self._atomic() as db:
+        with self.atomic() as db:
             for session_id in {row[0] for row in rows} - {None}:
                 self._one(SessionRow, "sessions", session_id, "session")
             db.conn.executemany(_INSERT_TRAFFIC, rows)

@@ -513,3 +513,34 @@ def test_a_writer_that_dies_loses_nothing_and_the_session_resumes(tmp_path: Path
         assert len(restarted.traffic(session.id)) == 5
         (reading_set,) = restarted.sets(session.id)
         assert reading_set.status == "collecting"
+
+
+def test_a_concurrent_writer_makes_a_write_wait_not_fail(tmp_path: Path) -> None:
+    # Another process (a replay, a reviewer's tool) commits while the daemon writes: a
+    # deferred transaction that read first failed at once with "database is locked" and the
+    # daemon dropped raw lines. An immediate one waits for the lock (SQLite's busy timeout).
+    path = tmp_path / "station.sqlite"
+    store = Store.open(path)
+    session_id, _ = _session_with_set(store)
+    holding, other_done = threading.Event(), threading.Event()
+
+    def other_writer() -> None:
+        conn = sqlite3.connect(path)
+        conn.execute("BEGIN IMMEDIATE")
+        conn.execute(
+            "INSERT INTO traffic (session_id, t_s, recorded_at, direction, line) "
+            "VALUES (NULL, 0, '2026-12-02T00:00:00+00:00', 'rx', x'30')"
+        )
+        holding.set()
+        other_done.wait(0.5)  # hold the write lock half a second, then commit
+        conn.commit()
+        conn.close()
+
+    writer = threading.Thread(target=other_writer)
+    writer.start()
+    holding.wait(5)
+    line = (session_id, 1.0, store.stamp(), "rx", b"1\n")
+    assert store.add_traffic_many([line]) == 1  # waited for the other writer, then committed
+    writer.join()
+    assert store.traffic_count(session_id) == 1 and store.traffic_count(None) == 1
+    store.close()
