@@ -47,6 +47,8 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
     A missing session or bad input exits with status 2, a database that cannot be read with 1;
     each prints one line on stderr saying what is wrong.
     """
+    import sqlite3
+
     from chargebook.acquire.store import NotFound, StoreError
     from chargebook.corrections.errors import InputError
 
@@ -63,6 +65,13 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
     except InputError as error:
         print(f"chargebook: {error}", file=sys.stderr)
         return EXIT_INVALID_INPUT
+    except sqlite3.DatabaseError as error:  # a damaged file shows only when its pages are read
+        print(
+            f"chargebook: the station database {store.path} cannot be read: {error}; "
+            "restore it from a backup (`sqlite3 FILE .recover` may save what is left)",
+            file=sys.stderr,
+        )
+        return EXIT_FAILURE
     except BrokenPipeError:
         # Whoever read the output went away (`| head`): stop quietly, as the Python
         # documentation on SIGPIPE advises, so that the interpreter's final flush stays silent.

@@ -339,6 +339,11 @@ class Store:
         db.execute("PRAGMA foreign_keys = ON")
         if read_only:
             version = schema_version(db)
+            if version > SCHEMA_VERSION:
+                raise StoreError(
+                    f"schema version {version} was written by a newer chargebook; this one reads "
+                    f"version {SCHEMA_VERSION}: install the newer chargebook to read it"
+                )
             if version != SCHEMA_VERSION:
                 raise StoreError(
                     f"schema version {version}, this chargebook reads version {SCHEMA_VERSION}; "

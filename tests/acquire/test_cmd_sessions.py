@@ -91,3 +91,18 @@ def test_read_side_commands_import_nothing_heavy() -> None:
         [sys.executable, "-c", code], capture_output=True, text=True, check=True, timeout=60
     )
     assert result.stdout.strip() == ""
+
+
+@pytest.mark.parametrize("command", ["sessions", "show"])
+def test_a_damaged_station_file_is_refused_in_words_not_a_traceback(
+    station: Path, command: str, capsys
+) -> None:
+    data = bytearray(station.read_bytes())
+    for offset in range(2 * 4096, len(data), 7):  # scribble over every page after the schema
+        data[offset] = 0x5A
+    station.write_bytes(data)
+    args = [command, "1"] if command == "show" else [command]
+    assert main([*args, "--db", str(station)]) == EXIT_FAILURE
+    err = capsys.readouterr().err
+    assert "cannot be read" in err and str(station) in err
+    assert "Traceback" not in err

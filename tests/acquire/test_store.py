@@ -114,6 +114,9 @@ def test_a_database_from_a_newer_chargebook_is_refused(tmp_path: Path) -> None:
     raw.close()
     with pytest.raises(StoreError, match=r"schema version 99.*up to 2"):
         Store.open(path)
+    with pytest.raises(StoreError, match=r"newer chargebook.*install the newer") as refused:
+        Store.open(path, read_only=True)  # the reading commands: no advice the daemon refuses
+    assert "migrate" not in str(refused.value)
 
 
 def test_a_file_that_is_not_a_database_is_refused_by_path(tmp_path: Path) -> None:
