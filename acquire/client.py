@@ -23,6 +23,7 @@ import contextlib
 import itertools
 import json
 import logging
+import os
 from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -53,6 +54,40 @@ class DaemonError(Exception):
     def __str__(self) -> str:
         name = protocol.ERROR_NAMES.get(self.code, str(self.code))
         return f"{self.message} ({name})"
+
+
+class UntrustedSocket(PermissionError):
+    """The socket's directory, or the process answering on it, is not this user's own."""
+
+
+def check_socket_directory(socket_path: Path) -> None:
+    """Raise :class:`UntrustedSocket` unless the socket's directory is private to this user.
+
+    A missing directory is left to the connection attempt (FileNotFoundError: no daemon).
+    """
+    directory = socket_path.parent
+    if not (directory.exists() or directory.is_symlink()):
+        return
+    problem = protocol.socket_directory_problem(directory)
+    if problem is not None:
+        raise UntrustedSocket(f"not talking to a daemon through {socket_path}: {problem}")
+
+
+def check_peer_is_this_user(writer: asyncio.StreamWriter, socket_path: str) -> None:
+    """Raise :class:`UntrustedSocket` unless the process on the socket runs as this user."""
+    import socket
+    import struct
+
+    sock = writer.get_extra_info("socket")
+    if sock is None or not hasattr(socket, "SO_PEERCRED"):
+        return  # no peer credentials on this platform: the directory check stands alone
+    credentials = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
+    pid, uid, _gid = struct.unpack("3i", credentials)
+    if uid != os.getuid():
+        raise UntrustedSocket(
+            f"not talking to the process on {socket_path}: it runs as uid {uid} (pid {pid}), "
+            f"not as this user (uid {os.getuid()})"
+        )
 
 
 class ConnectionLost(ConnectionError):
@@ -112,9 +147,15 @@ class DaemonClient:
         FileNotFoundError / ConnectionRefusedError when no daemon listens there.
         """
         path = str(socket_path or protocol.default_socket_path())
+        check_socket_directory(Path(path))
         reader, writer = await asyncio.open_unix_connection(
             path, limit=protocol.MAX_DAEMON_MESSAGE_BYTES + 1
         )
+        try:
+            check_peer_is_this_user(writer, path)
+        except UntrustedSocket:
+            writer.close()
+            raise
         self = cls(reader, writer, path)
         params: dict[str, Any] = {"client": client}
         if operator:

@@ -570,3 +570,29 @@ def default_socket_dir() -> Path:
 def default_socket_path() -> Path:
     """Return the default socket path (``default_socket_dir() / 'daemon.sock'``)."""
     return default_socket_dir() / SOCKET_NAME
+
+
+def socket_directory_problem(directory: Path) -> str | None:
+    """Return why ``directory`` is no safe home for the daemon's socket, or None when it is.
+
+    Safe means a real directory (not a symlink, which another user could point elsewhere),
+    owned by this user, that nobody else may enter (no group or other permission bits). The
+    daemon refuses to listen in an unsafe one and a client refuses to talk through one: another
+    local user who pre-creates ``/tmp/chargebook-<uid>`` must not receive an operator's actions.
+    """
+    import stat
+
+    try:
+        info = directory.lstat()
+    except FileNotFoundError:
+        return f"{directory} does not exist (is the daemon running?)"
+    if stat.S_ISLNK(info.st_mode):
+        return f"{directory} is a symbolic link; the socket's directory must be a real one"
+    if not stat.S_ISDIR(info.st_mode):
+        return f"{directory} is not a directory"
+    if info.st_uid != os.getuid():
+        return f"{directory} belongs to another user (uid {info.st_uid})"
+    mode = stat.S_IMODE(info.st_mode)
+    if mode & 0o077:
+        return f"{directory} can be entered by other users (mode {mode:o}); it must be 0700"
+    return None

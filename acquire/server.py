@@ -126,15 +126,11 @@ def prepare_socket_dir(path: Path) -> None:
     Raises UnsafeSocketDirectory when it belongs to someone else or others may enter it.
     """
     directory = path.parent
-    directory.mkdir(mode=0o700, parents=True, exist_ok=True)
-    info = directory.stat()
-    if info.st_uid != os.getuid():
-        raise UnsafeSocketDirectory(f"{directory} belongs to another user; choose --socket")
-    if stat.S_IMODE(info.st_mode) & 0o077:
-        raise UnsafeSocketDirectory(
-            f"{directory} can be entered by other users (mode {stat.S_IMODE(info.st_mode):o}); "
-            "make it 0700 or choose --socket"
-        )
+    if not directory.is_symlink():
+        directory.mkdir(mode=0o700, parents=True, exist_ok=True)
+    problem = protocol.socket_directory_problem(directory)
+    if problem is not None:
+        raise UnsafeSocketDirectory(f"{problem}; choose --socket")
 
 
 def remove_stale_socket(path: Path) -> None:

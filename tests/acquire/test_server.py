@@ -19,6 +19,7 @@ from chargebook.acquire.client import (
     ConnectionLost,
     DaemonClient,
     DaemonError,
+    UntrustedSocket,
     connect_with_retry,
 )
 from chargebook.acquire.engine import ConfirmationRequired
@@ -198,3 +199,57 @@ async def test_a_daemon_message_longer_than_the_request_limit_reaches_the_client
     snapshot = await listener.wait_for_snapshot(lambda s: s["seq"] == 9, 5)
     assert len(snapshot["sets"]) == 300
     await listener.close()
+
+
+def test_a_symlinked_socket_directory_is_refused(tmp_path):
+    real = tmp_path / "real"
+    real.mkdir(mode=0o700)
+    (tmp_path / "link").symlink_to(real)
+    with pytest.raises(UnsafeSocketDirectory, match="symbolic link"):
+        prepare_socket_dir(tmp_path / "link" / "daemon.sock")
+
+
+async def test_a_client_sends_nothing_through_a_directory_another_user_could_have_made(tmp_path):
+    # Another local user pre-creates the socket directory (open to others) and listens in it:
+    # the client refuses before a single byte (an operator's action) reaches the impostor.
+    shared = tmp_path / "chargebook-impostor"
+    shared.mkdir()
+    shared.chmod(0o755)
+    heard = []
+
+    async def impostor(reader, writer):
+        heard.append(await reader.read(100))
+        writer.close()
+
+    listener = await asyncio.start_unix_server(impostor, path=str(shared / "daemon.sock"))
+    with pytest.raises(UntrustedSocket, match="755"):
+        await DaemonClient.connect(shared / "daemon.sock", operator="operator A")
+    await asyncio.sleep(0.05)
+    listener.close()
+    assert heard == []
+
+
+@pytest.mark.skipif(os.getuid() != 0, reason="starting a process as another user needs root")
+def test_a_client_refuses_a_daemon_that_runs_as_another_user(tmp_path):
+    # The directory is private and ours, but the process that listens runs as another uid.
+    directory = tmp_path / "private"
+    directory.mkdir(mode=0o700)
+    path = directory / "daemon.sock"
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    sock.bind(str(path))
+    ready_r, ready_w = os.pipe()
+    child = os.fork()
+    if child == 0:  # the impostor: drops to nobody, then listens (SO_PEERCRED names it)
+        os.setuid(65534)
+        sock.listen(1)
+        os.write(ready_w, b"1")
+        conn, _ = sock.accept()
+        os._exit(1 if conn.recv(100) else 0)
+    sock.close()
+    assert os.read(ready_r, 1) == b"1"  # it listens
+    try:
+        with pytest.raises(UntrustedSocket, match="uid 65534"):
+            asyncio.run(DaemonClient.connect(path, operator="operator A"))
+    finally:
+        os.kill(child, 15)
+        os.waitpid(child, 0)
