@@ -253,3 +253,12 @@ def test_a_client_refuses_a_daemon_that_runs_as_another_user(tmp_path):
     finally:
         os.kill(child, 15)
         os.waitpid(child, 0)
+
+
+async def test_two_hundred_clients_connecting_at_once_are_all_taken(server):
+    clients = await asyncio.gather(
+        *(DaemonClient.connect(server.socket_path) for _ in range(200)), return_exceptions=True
+    )
+    failed = [c for c in clients if isinstance(c, BaseException)]
+    assert failed == []
+    await asyncio.gather(*(c.close() for c in clients))
