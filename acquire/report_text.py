@@ -4,12 +4,36 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from dataclasses import replace
 
 from chargebook.acquire.report_sections import Table
 
+#: Control characters (C0 but newline and tab, DEL, C1) mapped to visible ``\\xNN`` escapes.
+_CONTROL_ESCAPES = {
+    code: f"\\x{code:02x}" for code in (*range(0x20), 0x7F, *range(0x80, 0xA0)) if code != 0x09
+}
+
+
+def printable(text: str) -> str:
+    """Return ``text`` with control characters shown as ``\\xNN``, newlines kept.
+
+    Stored text (an operator's comment, a metadata field, an instrument's identity) may hold
+    terminal escape sequences; printed raw they could rewrite what a reader sees.
+    """
+    lines = text.split("\n")
+    return "\n".join(line.translate(_CONTROL_ESCAPES) for line in lines)
+
 
 def table_text(table: Table, *, title: bool = True) -> str:
-    """Return ``table`` as aligned text columns, with its title and note."""
+    """Return ``table`` as aligned text columns, with its title and note; control characters
+    in any cell are escaped (:func:`printable`)."""
+    table = replace(
+        table,
+        title=printable(table.title),
+        headers=tuple(printable(h) for h in table.headers),
+        rows=tuple(tuple(printable(cell) for cell in row) for row in table.rows),
+        note=printable(table.note),
+    )
     lines = [table.title, "-" * len(table.title)] if title else []
     if table.rows:
         widths = [len(h) for h in table.headers]

@@ -80,3 +80,16 @@ def test_a_session_whose_values_cannot_be_evaluated_is_still_shown(tmp_path: Pat
     out = capsys.readouterr().out
     assert "No results: the recorded values cannot be evaluated: routine_nC[5]" in out
     assert "-14.7500" in out  # the reading is shown, nothing is lost
+
+
+def test_terminal_escapes_in_stored_text_are_shown_not_obeyed(tmp_path: Path, capsys) -> None:
+    # ESC [2J clears a terminal; stored text must never drive the reader's screen.
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        session_id = record_example_session(store, treatment_machine="LA\x1b[2J\x9b1")
+    assert main(["show", str(session_id), "--db", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "\x1b" not in out and "\x9b" not in out
+    assert "LA\\x1b[2J\\x9b1" in out
+    assert main(["sessions", "--db", str(path)]) == EXIT_OK
+    assert "\x1b" not in capsys.readouterr().out
