@@ -107,6 +107,10 @@ class PlaybackResponder:
                 return []
             return self._play(due_only=True)
 
+    #: How long a pushed line may wait for room on a full port (s): a recording's every line
+    #: must reach the reader, at any speed.
+    push_wait_s = 30.0
+
     def tick_interval_s(self) -> float:
         """Return how often the server should call :meth:`tick`, in seconds."""
         return 0.002 if self.speed == 0 else 0.01

@@ -122,6 +122,8 @@ class PtyServer:
     # -- serving -------------------------------------------------------------------------------
     def _serve(self) -> None:
         interval_s = getattr(self.responder, "tick_interval_s", lambda: 0.02)()
+        # A live instrument drops pushed lines nobody reads; a playback must deliver them all.
+        push_wait_s = getattr(self.responder, "push_wait_s", 0.0)
         while not self._stop.is_set():
             if self._drop_request is not None:
                 self._drop_now()
@@ -135,7 +137,7 @@ class PtyServer:
                     self._receive(os.read(master, 4096))
             except OSError:  # dropped while we waited
                 continue
-            self.send(self.responder.tick(), wait_s=0.0)
+            self.send(self.responder.tick(), wait_s=push_wait_s)
 
     def _reopen_if_due(self, interval_s: float) -> None:
         reopen_at = self._reopen_at
@@ -166,8 +168,15 @@ class PtyServer:
         return self._write_all(data, wait_s)
 
     def _write_all(self, data: bytes, wait_s: float) -> bool:
+        """Write ``data`` whole; give up only if nothing of it fit within ``wait_s``.
+
+        Once part of it is on the wire the rest follows (waiting up to ANSWER_WRITE_TIMEOUT_s
+        more), so a full port never delivers a cut line; a line that did not fit at all is
+        dropped whole, as an instrument's full output buffer would drop it.
+        """
         deadline = time.monotonic() + wait_s
         view = memoryview(data)
+        extended = False
         with self._write_lock:
             while view:
                 master = self._master
@@ -182,6 +191,9 @@ class PtyServer:
                 except OSError:
                     return False
                 remaining = deadline - time.monotonic()
+                if remaining <= 0 and len(view) < len(data) and not extended:
+                    extended, deadline = True, time.monotonic() + ANSWER_WRITE_TIMEOUT_s
+                    remaining = ANSWER_WRITE_TIMEOUT_s
                 if remaining <= 0 or self._stop.is_set():
                     return False
                 with contextlib.suppress(OSError, ValueError):

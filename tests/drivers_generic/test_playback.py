@@ -103,3 +103,35 @@ def test_simulate_refuses_a_bad_playback_log_with_exit_status_2(tmp_path):
     assert result.returncode == 2
     assert "line 2" in result.stderr and "dir" in result.stderr
     assert result.stdout == ""
+
+
+def test_a_push_playback_at_speed_0_delivers_every_byte_to_a_slow_reader(tmp_path):
+    # At --speed 0 every recorded line is due at once: the pty fills long before the reader
+    # looks. Lines used to be written with no wait, so a full port delivered a cut line.
+    import os
+    import time
+
+    from chargebook.drivers_generic.simulator.serial_server import PtyServer
+
+    framing = load_profile("tallyline").framing
+    lines = [f"S t={i / 1000:.3f} q=+{i}E-12 C OK" for i in range(5000)]
+    entries = [(i / 1000, "rx", line) for i, line in enumerate(lines)]
+    server = PtyServer(PlaybackResponder(entries, "push", speed=0), framing, tmp_path / "pty")
+    server.start()
+    try:
+        port = os.open(tmp_path / "pty", os.O_RDONLY | os.O_NOCTTY)
+        os.set_blocking(port, False)
+        time.sleep(0.5)  # a slow reader: the pty's buffer fills meanwhile
+        received = bytearray()
+        expected = sum(len(line) + len(framing.read_terminator) for line in lines)
+        deadline = time.monotonic() + 30
+        while len(received) < expected and time.monotonic() < deadline:
+            try:
+                received += os.read(port, 65536)
+            except BlockingIOError:
+                time.sleep(0.01)
+        os.close(port)
+    finally:
+        server.stop()
+    got = bytes(received).decode().split(framing.read_terminator.decode())
+    assert got[:-1] == lines and got[-1] == ""
