@@ -587,7 +587,11 @@ def _session_flags(
     if factors["k_pol"].value is not None:
         flags += stability.k_pol_flags(factors["k_pol"].value, factors["k_pol"].symbol, limits_)
     if factors["k_s"].value is not None:
-        flags += stability.k_s_flags(factors["k_s"].value, factors["k_s"].symbol, limits_)
+        reduced = sets["reduced"]
+        ratio = sets["routine"].mean_nC / reduced.mean_nC if reduced is not None else None
+        flags += stability.k_s_flags(
+            factors["k_s"].value, factors["k_s"].symbol, limits_, charge_ratio=ratio
+        )
     routine = sets["routine"]
     if routine is not None and checked.leakage_nC is not None:
         flags += stability.leakage_flags(checked.leakage_nC, routine.mean_nC, limits_)

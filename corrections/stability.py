@@ -57,6 +57,17 @@ class Thresholds:
     k_pol_deviation_pct: float = 0.4
     #: Largest usual k_s: above, the chamber is unsuitable for the beam (from memory).
     k_s_max: float = 1.05
+    #: Smallest k_s (TG-51: P_ion) accepted without a flag. Below 1 it is physically impossible
+    #: (a collection efficiency above 1). The tolerance covers the TRS-398 table's rounding near
+    #: saturation: its coefficients have 3 decimals, so a row gives 1 at M1/M2 = 1 only to about
+    #: ±0.001 (from memory); 0.999 keeps M1/M2 = 1 unflagged whatever the row.
+    k_s_min: float = 0.999
+    #: Smallest charge ratio M1/M2 (routine over reduced-bias mean) accepted without a flag.
+    #: Below 1 the reduced-bias reading is the larger one, which complete or incomplete
+    #: collection cannot give; 0.999 leaves room for the scatter of two set means of repeat
+    #: readings agreeing to about 0.1 % (common practice). It catches continuous beams, whose
+    #: k_s moves only slightly with M1/M2 (n = 3, M1/M2 = 0.99 gives k_s = 0.9988).
+    charge_ratio_min: float = 0.999
     #: |leakage| in % of the routine reading (TG-51 addendum, from memory).
     leakage_pct: float = 0.1
     #: Largest change of temperature during a session, °C (common practice).
@@ -85,6 +96,10 @@ class Thresholds:
                 raise InputError(f"thresholds.{name}", value, "a finite number above 0")
         if not _finite_number(self.k_s_max) or not 1.0 < self.k_s_max <= 2.0:
             raise InputError("thresholds.k_s_max", self.k_s_max, "above 1 and at most 2")
+        for name in ("k_s_min", "charge_ratio_min"):
+            value = getattr(self, name)
+            if not _finite_number(value) or not 0.9 <= value <= 1.0:
+                raise InputError(f"thresholds.{name}", value, "from 0.9 to 1")
         if isinstance(self.minimum_readings, bool) or self.minimum_readings not in range(1, 101):
             raise InputError("thresholds.minimum_readings", self.minimum_readings, "1 to 100")
         sign = self.charge_sign_for_positive_bias
@@ -208,18 +223,41 @@ def k_pol_flags(k_pol: float, symbol: str, limits: Thresholds) -> list[Flag]:
     ]
 
 
-def k_s_flags(k_s: float, symbol: str, limits: Thresholds) -> list[Flag]:
-    """Return a flag when k_s is above the largest correction the protocols accept."""
-    if k_s <= limits.k_s_max:
-        return []
-    return [
-        Flag(
-            "k_s_large",
-            f"{symbol} = {k_s:.4f} is above {limits.k_s_max:g}: recombination is too large for "
-            "this chamber in this beam. Use a chamber with a smaller electrode gap, a higher "
-            "bias, or a lower dose per pulse.",
+def k_s_flags(
+    k_s: float, symbol: str, limits: Thresholds, charge_ratio: float | None = None
+) -> list[Flag]:
+    """Return flags when k_s (dimensionless) is above the largest correction the protocols
+    accept, or when k_s or the charge ratio M1/M2 (routine over reduced-bias mean, dimensionless;
+    None: not known) is below 1 beyond rounding and scatter, which is physically impossible.
+    """
+    flags = []
+    if k_s > limits.k_s_max:
+        flags.append(
+            Flag(
+                "k_s_large",
+                f"{symbol} = {k_s:.4f} is above {limits.k_s_max:g}: recombination is too large "
+                "for this chamber in this beam. Use a chamber with a smaller electrode gap, a "
+                "higher bias, or a lower dose per pulse.",
+            )
         )
-    ]
+    low_k_s = k_s < limits.k_s_min
+    low_ratio = charge_ratio is not None and charge_ratio < limits.charge_ratio_min
+    if low_k_s or low_ratio:
+        ratio_text = "" if charge_ratio is None else f" (M1/M2 = {charge_ratio:.5f})"
+        flags.append(
+            Flag(
+                "k_s_below_one",
+                f"{symbol} = {k_s:.4f} is below 1{ratio_text}: the reduced-bias readings are "
+                "larger than the routine ones, which is impossible (a collection efficiency "
+                "above 1), and the dose would come out too low. Check that the routine and "
+                "reduced-bias sets are not swapped, that the chamber had settled after the bias "
+                "change (pre-irradiate and repeat the first set after it), and that the bias set "
+                "on the electrometer is the one entered for each set. Do not use this dose "
+                "until the sets are redone.",
+                severity="error",
+            )
+        )
+    return flags
 
 
 def leakage_flags(leakage_nC: float, routine_mean_nC: float, limits: Thresholds) -> list[Flag]:

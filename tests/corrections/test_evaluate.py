@@ -365,3 +365,18 @@ def test_signs_are_checked_between_sets_even_before_the_routine_set() -> None:
         evaluate(MeasurementInputs(opposite_nC=(-14.7,), reduced_nC=(-14.5,)))
     assert caught.value.field == "reduced_nC"
     assert "opposite sign to the opposite-polarity readings" in str(caught.value)
+
+
+@pytest.mark.parametrize("convention", ["trs398", "tg51"])
+def test_reduced_bias_larger_than_routine_is_flagged(session: Session, convention: str) -> None:
+    # M1/M2 = 0.99 at n = 3 gives k_s = 0.9953 (TRS-398 quadratic, n = 3 row, from memory) or
+    # P_ion = 2/2.01 = 0.9950 (TG-51 1999 linear form): impossible, so flagged.
+    reduced = tuple(r / 0.99 for r in session().routine_nC[:3])
+    result = evaluate(session(convention=convention, reduced_nC=reduced)).to_dict()
+    assert result["k_s"] < 0.999
+    assert "k_s_below_one" in flag_codes(result)
+
+
+def test_equal_readings_are_not_flagged_below_one(session: Session) -> None:
+    result = evaluate(session(reduced_nC=session().routine_nC)).to_dict()
+    assert "k_s_below_one" not in flag_codes(result)

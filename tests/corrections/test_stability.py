@@ -152,3 +152,27 @@ def test_bad_thresholds_are_refused(change: dict, field: str) -> None:
     with pytest.raises(InputError) as caught:
         Thresholds(**change)
     assert caught.value.field == field
+
+
+# k_s below 1 (issue 12 item 1). Check values: TRS-398 (2000) pulsed quadratic, n = 3.0 row
+# a0 = 1.198, a1 = -0.875, a2 = 0.677 (from memory): at M1/M2 = 0.99, by hand,
+# 1.198 - 0.86625 + 0.663527 = 0.995277; at 1.000, 1.000; at 1.01, 1.004631.
+# AAPM TG-51 (1999) linear form P_ion = (1 - n)/(M1/M2 - n), n = 3: at 0.99, 2/2.01 = 0.995025.
+@pytest.mark.parametrize(
+    ("k_s", "ratio", "flagged"),
+    [
+        (0.995277, 0.99, True),  # TRS-398 pulsed, n = 3
+        (2.0 / 2.01, 0.99, True),  # TG-51 linear, n = 3
+        (1.000, 1.000, False),  # complete collection, within the table's rounding
+        (1.004631, 1.01, False),  # normal recombination
+        (8.0 / 8.01, 0.99, True),  # continuous (n² − 1)/(n² − M1/M2), n = 3: ratio catches it
+    ],
+)
+def test_k_s_below_one_is_flagged(k_s: float, ratio: float, flagged: bool) -> None:
+    flags = [f for f in k_s_flags(k_s, "k_s", LIMITS, charge_ratio=ratio)]
+    assert ("k_s_below_one" in codes(flags)) is flagged
+    if flagged:
+        flag = next(f for f in flags if f.code == "k_s_below_one")
+        assert flag.severity == "error"
+        for words in ("swapped", "settled", "bias set on the electrometer"):
+            assert words in flag.message
