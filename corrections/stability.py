@@ -138,8 +138,23 @@ def _set_size_flags(label: str, key: str, stats: SetStatistics, limits: Threshol
     return []
 
 
+#: Identical readings this many or more in one set suggest a frozen electrometer: repeat
+#: readings of a real chamber differ in their last displayed digits (common practice).
+IDENTICAL_READINGS_MIN = 3
+
+
 def _scatter_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
     flags = []
+    if stats.count >= IDENTICAL_READINGS_MIN and stats.sd_nC == 0.0:
+        flags.append(
+            Flag(
+                f"{key}_identical",
+                f"All {stats.count} {label} readings are identical ({stats.mean_nC:.6g} nC): "
+                "a chamber's repeat readings always differ a little. Check that the "
+                "electrometer is not frozen or repeating a held value and that the beam was "
+                "delivered for every reading, then redo the set.",
+            )
+        )
     if stats.relative_sd_pct is not None and stats.relative_sd_pct > limits.relative_sd_pct:
         flags.append(
             Flag(

@@ -176,3 +176,15 @@ def test_k_s_below_one_is_flagged(k_s: float, ratio: float, flagged: bool) -> No
         assert flag.severity == "error"
         for words in ("swapped", "settled", "bias set on the electrometer"):
             assert words in flag.message
+
+
+def test_a_set_of_identical_readings_is_flagged_as_a_possibly_frozen_electrometer() -> None:
+    # Repeat readings of a reference-class chamber differ by about 0.1 % (common practice):
+    # three or more exactly equal readings point to a frozen or held display, not to stability.
+    flags = set_flags("routine", set_statistics([19.6000] * 4), LIMITS)
+    assert codes(flags) == ["routine_identical"]
+    assert "frozen" in flags[0].message and "4 routine" in flags[0].message
+    assert "routine_identical" not in codes(
+        set_flags("routine", set_statistics([19.6000, 19.6000]), LIMITS)
+    )  # two equal readings at the display's resolution happen
+    assert set_flags("routine", set_statistics([19.6000, 19.6000, 19.6001]), LIMITS) == []
