@@ -8,9 +8,11 @@ from dataclasses import replace
 
 from chargebook.acquire.report_sections import Table
 
-#: Control characters (C0 but newline and tab, DEL, C1) mapped to visible ``\\xNN`` escapes.
+#: Control characters (C0 but tab and newline, DEL, C1) mapped to visible ``\\xNN`` escapes.
 _CONTROL_ESCAPES = {
-    code: f"\\x{code:02x}" for code in (*range(0x20), 0x7F, *range(0x80, 0xA0)) if code != 0x09
+    code: f"\\x{code:02x}"
+    for code in (*range(0x20), 0x7F, *range(0x80, 0xA0))
+    if code not in (0x09, 0x0A)
 }
 
 
@@ -20,8 +22,7 @@ def printable(text: str) -> str:
     Stored text (an operator's comment, a metadata field, an instrument's identity) may hold
     terminal escape sequences; printed raw they could rewrite what a reader sees.
     """
-    lines = text.split("\n")
-    return "\n".join(line.translate(_CONTROL_ESCAPES) for line in lines)
+    return text.translate(_CONTROL_ESCAPES)
 
 
 def table_text(table: Table, *, title: bool = True) -> str:

@@ -126,7 +126,8 @@ def _plain(value: Any) -> Any:
 def prepare_socket_dir(path: Path) -> None:
     """Create the socket's directory with mode 0700, or check that an existing one is private.
 
-    Raises UnsafeSocketDirectory when it belongs to someone else or others may enter it.
+    Raises UnsafeSocketDirectory when it is a symlink, belongs to someone else or others may
+    enter it (:func:`protocol.socket_directory_problem`).
     """
     directory = path.parent
     if not directory.is_symlink():

@@ -5,6 +5,7 @@ pyserial is imported when the port is opened, so importing this module stays che
 
 from __future__ import annotations
 
+import errno
 import select
 import time
 from collections.abc import Callable
@@ -60,7 +61,7 @@ class SerialTransport(Transport):
             self._serial.reset_input_buffer()
         except (serial.SerialException, OSError, ValueError) as error:
             self._serial = None
-            if "exclusively lock" in str(error):
+            if getattr(error, "errno", None) == errno.EWOULDBLOCK:  # exclusive=True refused
                 raise InstrumentDisconnected(
                     f"serial port {self.port} is in use by another program "
                     "(another daemon or terminal holds it); close that program first"
