@@ -1,8 +1,10 @@
 """Exports of one stored session: CSV (the readings), JSON (everything) and HTML (the report).
 
 CSV: one row per reading, settling and superseded ones included, with its set's step, purpose,
-bias, attempt and status, and ``used`` (1 when the reading counts for results: a non-settling
-reading of an accepted set). Columns: :data:`CSV_COLUMNS`.
+bias, attempt and status; ``used`` (1 when the reading enters the dose: a non-settling reading of an
+accepted routine, opposite or reduced-bias set) and ``role`` (what the reading is for, in words:
+``dose``, ``leakage check``, ``return check``, ``warm-up``, ``settling``, or ``set superseded`` and
+the like for a set that was not accepted). Columns: :data:`CSV_COLUMNS`.
 
 JSON: one object with the keys of :data:`JSON_KEYS`:
 
@@ -72,8 +74,28 @@ CSV_COLUMNS = (
     "settling",
     "status",
     "used",
+    "role",
     "recorded_at",
 )
+
+#: What an accepted set's non-settling readings are for, by the set's purpose.
+READING_ROLES = {
+    "routine": "dose",
+    "opposite": "dose",
+    "reduced": "dose",
+    "leakage": "leakage check",
+    "return_check": "return check",
+    "warmup": "warm-up",
+}
+
+
+def reading_role(purpose: str, set_status: str, settling: bool) -> str:
+    """Return what a reading is for, in words (the CSV's ``role`` column)."""
+    if set_status != "accepted":
+        return f"set {set_status}"
+    if settling:
+        return "settling"
+    return READING_ROLES.get(purpose, purpose)
 
 
 def chargebook_version() -> str:
@@ -97,7 +119,7 @@ def to_csv(record: SessionRecord) -> str:
     for reading_set in record.sets:
         row = reading_set.row
         for reading in reading_set.readings:
-            used = row.status == "accepted" and not reading.settling
+            role = reading_role(row.purpose, row.status, reading.settling)
             writer.writerow(
                 (
                     record.session.id,
@@ -116,7 +138,8 @@ def to_csv(record: SessionRecord) -> str:
                     reading.capture,
                     int(reading.settling),
                     reading.status,
-                    int(used),
+                    int(role == "dose"),
+                    role,
                     reading.recorded_at,
                 )
             )
