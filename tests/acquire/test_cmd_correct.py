@@ -9,7 +9,7 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 GOOD = ["hcc-la1-6mv.toml", "hcc-la2-10fff.toml", "hcc-co60.json"]
@@ -204,3 +204,23 @@ def test_missing_file_exits_2(tmp_path: Path) -> None:
     done = correct(tmp_path / "absent.toml")
     assert done.returncode == 2
     assert "absent.toml" in done.stderr
+
+
+def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypatch) -> None:
+    import io
+
+    path = EXAMPLES / "hcc-la1-6mv.toml"
+    assert main(["correct", str(path), "--json"]) == EXIT_OK
+    from_file = json.loads(capsys.readouterr().out)
+    monkeypatch.setattr("sys.stdin", io.StringIO(path.read_text(encoding="utf-8")))
+    assert main(["correct", "-", "--json"]) == EXIT_OK
+    from_stdin = json.loads(capsys.readouterr().out)
+    assert (
+        from_stdin["dose_Gy"] == from_file["dose_Gy"] and from_stdin["flags"] == from_file["flags"]
+    )
+
+    monkeypatch.setattr("sys.stdin", io.StringIO('{"convention": "trs398", '))
+    assert main(["correct", "-"]) == EXIT_INVALID_INPUT
+    assert "invalid input in <stdin>: worksheet = '<stdin>' is not valid JSON" in (
+        capsys.readouterr().err
+    )
