@@ -88,8 +88,19 @@ def steps_done(snapshot: Snapshot) -> tuple[int, int]:
     return done, len(plan)
 
 
-def prompt_text(snapshot: Snapshot) -> str:
-    """Return what the operator must do now, in the daemon's plain words."""
+#: What replaces every instruction while the console cannot hear from the daemon: the last
+#: instruction it showed may no longer be true, and a beam given now may go unrecorded.
+NOT_CONNECTED_PROMPT = "NOT CONNECTED: do not deliver beam until the console is connected again."
+
+
+def prompt_text(snapshot: Snapshot, connected: bool = True) -> str:
+    """Return what the operator must do now, in the daemon's plain words.
+
+    While the console is not connected the daemon's last instruction is not shown: the
+    operator is told not to deliver beam (:data:`NOT_CONNECTED_PROMPT`).
+    """
+    if not connected:
+        return NOT_CONNECTED_PROMPT
     prompt = snapshot.get("prompt") or {}
     return str(prompt.get("text") or text.state(str(snapshot.get("state", "idle"))))
 

@@ -9,6 +9,7 @@ colour alone.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from datetime import UTC, datetime
 from typing import Any
 
 from rich.text import Text
@@ -75,6 +76,24 @@ def number(value: float | None, digits: int, unit: str = "") -> str:
         return PENDING
     text = signed(value, digits)
     return f"{text}{NBSP}{unit}" if unit else text
+
+
+def local_time(iso: str | None) -> str:
+    """Return a stored UTC time as local time with its offset: "2026-12-02 07:38:17 +01:00".
+
+    Text that is not an ISO 8601 time is returned as it is (never an error on screen).
+    """
+    if not iso:
+        return ""
+    try:
+        moment = datetime.fromisoformat(iso)
+    except ValueError:
+        return iso
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    local = moment.astimezone()
+    offset = local.strftime("%z")
+    return f"{local:%Y-%m-%d %H:%M:%S} {offset[:3]}:{offset[3:]}"
 
 
 def charge_nC(value: float | None) -> str:

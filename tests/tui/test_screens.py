@@ -245,3 +245,48 @@ async def test_the_setup_form_shows_the_safety_caution_beside_start():
         shown = screen_text(app)
     assert "never replaces, the judgement of a qualified" in shown
     assert shown.index("Caution:") < shown.index("Start session (Ctrl+S)")
+
+
+async def test_while_not_connected_every_instruction_says_do_not_deliver_beam():
+    collecting = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, collecting)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        assert "Deliver" in screen_text(app)  # the daemon's instruction while connected
+        app.console_screen.show(collecting, LinkStatus(False, "Not connected to the daemon"))
+        await pilot.pause()
+        shown = screen_text(app)
+        assert "Do now: NOT CONNECTED: do not deliver beam" in shown
+        assert "Deliver" not in shown  # the stale instruction is gone, not shown beside it
+        app.console_screen.show(collecting, LinkStatus(True, "Connected"))
+        await pilot.pause()
+        assert "NOT CONNECTED" not in screen_text(app)
+
+
+async def test_every_main_screen_keeps_a_one_line_caution_in_view_at_80_by_24():
+    screens = (
+        (lambda send: SetupScreen(send, setup_defaults()), "idle"),
+        (MeasureScreen, "collecting"),
+        (MeasureScreen, "reviewing_spike"),
+        (SummaryScreen, "finished"),
+    )
+    for make_screen, fixture in screens:
+        app = ScreenHarness(make_screen, load_snapshot(fixture))
+        async with app.run_test(size=SIZE) as pilot:
+            await pilot.pause()
+            shown = screen_text(app)
+        # The short line, or on the summary the whole caution, in view without scrolling.
+        assert "qualified medical physicist" in " ".join(shown.split()), fixture
+
+
+def test_closing_the_demo_says_where_an_open_session_is_kept_and_how_to_resume_it():
+    from chargebook.tui.app import closing_words
+
+    words = closing_words(
+        load_snapshot("collecting"), "/run/x.sock", demo_database="/d/demo.sqlite"
+    )
+    assert "session 1 still open" in words and "kept in /d/demo.sqlite" in words
+    assert "`chargebook demo` resumes it" in words
+    finished = closing_words(load_snapshot("finished"), "/run/x.sock")
+    assert finished.startswith("Console closed. The daemon at /run/x.sock goes on running.")
+    assert "chargebook console --socket /run/x.sock" in finished

@@ -14,6 +14,7 @@ from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
 from chargebook.tui.messages import SetupFinished
 from chargebook.tui.screens.base import ConsoleScreen, Sender
+from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.environment_fields import EnvironmentFields
 from chargebook.tui.widgets.session_form import SessionForm
 from chargebook.tui.widgets.status_line import StatusLine
@@ -50,6 +51,7 @@ class SetupScreen(ConsoleScreen):
             yield Static(f"Caution: {CAUTION}", id="setup-caution", markup=False)
             yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
         yield Static("", id="setup-problem", markup=False)
+        yield CautionLine()
         yield Footer(compact=True, show_command_palette=False)
 
     @property
