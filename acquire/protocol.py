@@ -39,9 +39,12 @@ import enum
 import json
 import os
 import tempfile
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Literal, NotRequired, TypedDict
+from typing import Any, Literal, NotRequired, TypedDict, TypeVar
+
+T = TypeVar("T")
 
 PROTOCOL_VERSION = "1.0"
 JSONRPC = "2.0"
@@ -345,6 +348,24 @@ def validate_params(method: str, params: Any) -> dict[str, Any]:
 # ---------------------------------------------------------------------------------------------
 # The snapshot: the whole state, sent after every change
 # ---------------------------------------------------------------------------------------------
+#: A flag's severity as a text marker, the same in the console, the CLI and the reports, so that
+#: meaning never rests on colour: "!!" error, "!" warning, "i" information.
+SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
+#: Severities, worst first: every list of flags is shown in this order.
+SEVERITY_ORDER: tuple[str, ...] = ("error", "warning", "info")
+
+
+def severity_rank(flag: Any) -> int:
+    """Return where a flag (a dict or an object with ``severity``) sorts: 0 for the worst."""
+    severity = flag.get("severity") if isinstance(flag, Mapping) else flag.severity
+    return SEVERITY_ORDER.index(severity) if severity in SEVERITY_ORDER else 1
+
+
+def by_severity(flags: Sequence[T]) -> list[T]:
+    """Return ``flags`` worst first, keeping their own order within a severity."""
+    return sorted(flags, key=severity_rank)
+
+
 class FlagInfo(TypedDict):
     """A stability or plausibility flag, in words (from ``corrections``)."""
 
@@ -357,7 +378,8 @@ class ReadingInfo(TypedDict):
     """One stored reading. ``settling`` readings are kept and shown but not used in results."""
 
     id: int
-    seq: int  # 1, 2, ... within its set
+    seq: int  # 1, 2, ... within its set, settling readings included (the stored order)
+    label: str  # how the reading is named everywhere: "s1", "s2" settling, then "1", "2", ...
     t_s: float  # instrument clock, s
     charge_nC: float  # signed as read
     capture: str  # auto | pushed | manual
@@ -417,6 +439,7 @@ class LiveReading(TypedDict):
     charge_nC: float | None  # latest sample
     elapsed_s: float | None  # since the reading was armed (instrument clock)
     seq: int | None  # the seq it will get when captured
+    label: str | None  # the label it will get when captured ("s1" while settling, "3", ...)
 
 
 class InstrumentInfo(TypedDict):

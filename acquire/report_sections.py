@@ -14,6 +14,8 @@ import json
 from dataclasses import dataclass, field
 from typing import Any
 
+from chargebook.acquire.numbering import reading_labels
+from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_data import SessionRecord, SetRecord
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
@@ -210,13 +212,27 @@ def reading_sets(record: SessionRecord) -> Table:
     )
 
 
+READING_HEADERS = (
+    "set", "key", "reading", "charge (nC)", "capture", "settling", "status", "t (s)", "recorded"
+)  # fmt: skip
+
+
 def readings(record: SessionRecord) -> Table:
     """Return every reading as stored, set by set, settling readings marked."""
+    labels = {
+        reading.id: label
+        for reading_set in record.sets
+        for reading, label in zip(
+            reading_set.readings,
+            reading_labels(r.settling for r in reading_set.readings),
+            strict=True,
+        )
+    }
     rows = tuple(
         (
             str(reading_set.row.id),
             reading_set.row.step_key,
-            str(reading.seq),
+            labels[reading.id],
             f"{reading.charge_nC:+.4f}",
             reading.capture,
             "settling" if reading.settling else "",
@@ -230,7 +246,17 @@ def readings(record: SessionRecord) -> Table:
     keys = tuple(f"reading-{r.id}" for s in record.sets for r in s.readings)
     return Table(
         "Readings",
-        ("set", "key", "seq", "charge (nC)", "capture", "settling", "status", "t (s)", "recorded"),
+        (
+            "set",
+            "key",
+            "reading",
+            "charge (nC)",
+            "capture",
+            "settling",
+            "status",
+            "t (s)",
+            "recorded",
+        ),
         rows,
         keys,
         note="" if rows else "No reading was recorded.",
@@ -324,12 +350,15 @@ def flags(record: SessionRecord) -> Table:
     evaluation = record.evaluation
     if evaluation is None:
         return Table("Flags", ("severity", "message"), (), note=_no_results(record))
-    rows = tuple((f.severity, f.message) for f in evaluation.flags)
+    ordered = by_severity(evaluation.flags)
+    rows = tuple(
+        (f"{SEVERITY_MARKERS.get(f.severity, '!')} {f.severity}", f.message) for f in ordered
+    )
     return Table(
         "Flags",
         ("severity", "message"),
         rows,
-        tuple(f.code for f in evaluation.flags),
+        tuple(f.code for f in ordered),
         note="" if rows else "No flags.",
     )
 

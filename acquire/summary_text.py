@@ -9,6 +9,7 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 
 FACTORS = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
 
@@ -56,6 +57,9 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
     ]
     flags = document.get("flags", [])
     if flags:
-        lines += ["", "Flags:"] + [f"  ! {flag['message']}" for flag in flags]
+        lines += ["", "Flags:"] + [
+            f"  {SEVERITY_MARKERS.get(flag.get('severity'), '!')} {flag['message']}"
+            for flag in by_severity(flags)
+        ]
     lines += ["", CAUTION]
     return "\n".join(lines) + "\n"

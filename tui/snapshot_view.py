@@ -116,7 +116,8 @@ def live_text(snapshot: Snapshot) -> str:
         parts.append(text.charge_nC(live["charge_nC"]))
     if live.get("elapsed_s") is not None:
         parts.append(f"{live['elapsed_s']:.1f} s")
-    label = f"Reading {live['seq']}: " if live.get("seq") is not None else ""
+    number = live.get("label") or live.get("seq")
+    label = f"Reading {number}: " if number is not None else ""
     return label + " · ".join(parts)
 
 

@@ -12,6 +12,7 @@ from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime
 from typing import Any
 
+from chargebook.acquire import protocol
 from rich.text import Text
 
 PENDING = "pending"
@@ -20,7 +21,7 @@ MINUS = "\u2212"
 NBSP = "\u00a0"
 
 #: Marker put before a flag's message, by severity: readable without colour.
-SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
+SEVERITY_MARKERS = protocol.SEVERITY_MARKERS
 OK_MARKER = "ok"
 
 PURPOSE_WORDS: dict[str, str] = {
@@ -157,7 +158,7 @@ def flag(flag_info: Mapping[str, Any]) -> str:
 
 def flags_or_ok(flags: Iterable[Mapping[str, Any]], ok_text: str = "no flags") -> list[str]:
     """Return one line per flag, or a single "ok" line when there are none."""
-    lines = [flag(item) for item in flags]
+    lines = [flag(item) for item in protocol.by_severity(list(flags))]
     return lines or [f"{OK_MARKER} {ok_text}"]
 
 

@@ -196,7 +196,12 @@ def _flags(evaluation: Evaluation) -> list[str]:
     lines = ["", "Flags"]
     if not evaluation.flags:
         return [*lines, "  none"]
-    return lines + [f"  [{flag.severity}] {flag.code}: {flag.message}" for flag in evaluation.flags]
+    from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
+
+    return lines + [
+        f"  {SEVERITY_MARKERS.get(flag.severity, '!')} {flag.message} [{flag.code}]"
+        for flag in by_severity(evaluation.flags)
+    ]
 
 
 def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:

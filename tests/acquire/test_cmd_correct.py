@@ -224,3 +224,23 @@ def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypa
     assert "invalid input in <stdin>: worksheet = '<stdin>' is not valid JSON" in (
         capsys.readouterr().err
     )
+
+
+def test_flags_are_listed_worst_first_with_the_markers_the_console_uses(
+    tmp_path: Path, capsys
+) -> None:
+    text = (EXAMPLES / "hcc-la1-6mv.toml").read_text(encoding="utf-8")
+    # Reduced-bias readings above the routine ones (k_s below 1: an error) and no k_elec
+    # entered (stated for the record: info).
+    text = text.replace("reduced_nC = [14.570, 14.567, 14.569]", "reduced_nC = [14.898, 14.899]")
+    text = "\n".join(line for line in text.splitlines() if not line.startswith("k_elec ="))
+    worksheet = tmp_path / "flags.toml"
+    worksheet.write_text(text, encoding="utf-8")
+    assert main(["correct", str(worksheet)]) == EXIT_OK
+    out = capsys.readouterr().out
+    lines = out[out.index("\nFlags\n") :].splitlines()[2:]
+    flag_lines = [line for line in lines if line.startswith("  ")]
+    markers = [line.split()[0] for line in flag_lines]
+    assert markers[0] == "!!" and "[k_s_below_one]" in flag_lines[0]
+    assert "i" in markers and any("[k_elec_assumed]" in line for line in flag_lines)
+    assert markers == sorted(markers, key=["!!", "!", "i"].index)

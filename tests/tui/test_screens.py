@@ -35,8 +35,11 @@ async def test_the_measure_view_says_flags_in_words_with_markers_at_80_by_24():
         shown = screen_text(app)
     assert "Do now: The set is complete." in shown
     assert "Step 4 of 6 · Opposite polarity · \u2212300 V" in shown
-    assert "   4   \u221219.4200  auto    !" in shown  # the spike, marked "!" not by colour
-    assert "#4 ! This reading lies far from" in shown
+    # The spike, marked "!" not by colour, and named the same way in the list, the reading's flag
+    # and the set's flag: "3", the third reading used (after settling readings s1 and s2).
+    assert "  s2   \u221218.6400  auto    settling" in shown
+    assert "   3   \u221219.4200  auto    !" in shown
+    assert "#3 ! This reading lies far from" in shown
     assert "rel. SD 2.281 %" in shown  # as the daemon computed it
     assert "4 Flags (7 !)" in shown
     assert "k Accept" in shown and "r Redo" in shown  # the key help is on screen
@@ -290,3 +293,16 @@ def test_closing_the_demo_says_where_an_open_session_is_kept_and_how_to_resume_i
     finished = closing_words(load_snapshot("finished"), "/run/x.sock")
     assert finished.startswith("Console closed. The daemon at /run/x.sock goes on running.")
     assert "chargebook console --socket /run/x.sock" in finished
+
+
+async def test_the_flags_tab_names_readings_as_the_list_does_and_puts_the_worst_first():
+    app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
+    async with app.run_test(size=(120, 60)) as pilot:
+        await pilot.press("4")
+        await pilot.pause()
+        words = " ".join(screen_text(app).split())
+    assert "#3 ! This reading lies far from" in words
+    assert "reading(s) 3 stand apart" in words  # the set's own flag names the same number
+    this_set = words[words.index("This set") : words.index("Session:")]
+    markers = [word for word in this_set.split() if word in ("!!", "!", "i")]
+    assert markers == sorted(markers, key=["!!", "!", "i"].index)  # worst first
