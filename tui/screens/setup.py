@@ -22,7 +22,7 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import VerticalScroll
-from textual.widgets import Button, Footer, Static
+from textual.widgets import Button, Footer, Input, Static
 
 INTRO = "New session. Check each entry (Tab moves on), then press Ctrl+S to start."
 
@@ -40,6 +40,7 @@ class SetupScreen(ConsoleScreen):
         self.defaults = dict(defaults or {})
         self.starting = False  # a request to the daemon is under way
         self.session_opened = False  # this form opened the session; the air data are still due
+        self.problem_said = False  # "Not started: ..." is on screen
 
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status-line", markup=False)
@@ -74,6 +75,12 @@ class SetupScreen(ConsoleScreen):
             return Method.SESSION_START in self.allowed() or self.session_opened or None
         return True
 
+    @on(Input.Changed)
+    def entry_changed(self) -> None:
+        """Clear "Not started: correct the entries" once every entry is right."""
+        if self.problem_said and self.form.is_valid() and self.environment.is_valid():
+            self._say("")
+
     @on(Button.Pressed, "#start")
     def action_start(self) -> None:
         """Check every entry, then open the session and record the air data."""
@@ -106,4 +113,5 @@ class SetupScreen(ConsoleScreen):
         self.post_message(SetupFinished())
 
     def _say(self, message: str) -> None:
+        self.problem_said = bool(message)
         self.query_one("#setup-problem", Static).update(message)

@@ -6,12 +6,13 @@ from collections.abc import Mapping
 from typing import Any
 
 from chargebook.acquire.protocol import PRESSURE_UNITS
+from chargebook.corrections import units
 from chargebook.tui import checks
-from chargebook.tui.widgets.fields import Field, choice
+from chargebook.tui.widgets.fields import Field, choice, conversion_note
 from textual import on
 from textual.app import ComposeResult
 from textual.containers import Vertical
-from textual.widgets import Select
+from textual.widgets import Input, Select
 
 #: Daemon field names (as in its error data) -> the entry that shows the problem.
 FIELD_FOR_PARAM: dict[str, str] = {
@@ -58,6 +59,10 @@ class EnvironmentFields(Vertical):
             check=checks.HUMIDITY,
         )
 
+    def is_valid(self) -> bool:
+        """Return True if every entry passes its check (nothing is shown)."""
+        return all(field.is_valid() for field in self.query(Field))
+
     def field(self, name: str) -> Field:
         """Return the entry for ``name`` (temperature_C, pressure or humidity_pct)."""
         return self.query_one(f"#field-{name}", Field)
@@ -65,7 +70,24 @@ class EnvironmentFields(Vertical):
     @on(Select.Changed, "#choice-pressure_unit")
     def unit_changed(self, event: Select.Changed) -> None:
         self.pressure_unit = str(event.value)
-        self.field("pressure").recheck()
+        field = self.field("pressure")
+        if field.value or field.touched:  # a unit set as the form opens is no cause to complain
+            field.recheck()
+        self._show_conversion()
+
+    @on(Input.Changed, "#input-pressure")
+    def pressure_changed(self) -> None:
+        self._show_conversion()
+
+    def on_mount(self) -> None:
+        self._show_conversion()
+
+    def _show_conversion(self) -> None:
+        """Show the pressure in kPa under an entry typed in hPa or mmHg, as the daemon converts."""
+        field = self.field("pressure")
+        field.note = conversion_note(
+            field.value, self.pressure_unit, units.pressure_kPa, "kPa", digits=3
+        )
 
     def params(self) -> dict[str, Any] | None:
         """Return the ``environment.set`` params, or None if an entry is wrong (each says why)."""
