@@ -256,14 +256,16 @@ class SetAir:
     temperature_C: float
     pressure_kPa: float
     source: str
+    entry: int | None
     k_TP: float
 
     def to_dict(self) -> dict[str, object]:
-        """Return the plain values (JSON keys temperature_C, pressure_kPa, source, k_TP)."""
+        """Return the plain values (keys temperature_C, pressure_kPa, source, entry, k_TP)."""
         return {
             "temperature_C": self.temperature_C,
             "pressure_kPa": self.pressure_kPa,
             "source": self.source,
+            "entry": self.entry,
             "k_TP": self.k_TP,
         }
 
@@ -524,7 +526,11 @@ def _set_air(
         scales[key] = air_scale(value, routine_k_TP)
         if sets[key] is not None and environment is not None and value is not None:
             air[key] = SetAir(
-                environment.temperature_C, environment.pressure_kPa, environment.source, value
+                environment.temperature_C,
+                environment.pressure_kPa,
+                environment.source,
+                environment.entry,
+                value,
             )
     return air, scales, routine_air
 

@@ -30,13 +30,15 @@ SESSION_WIDE = "the session-wide entry"
 class SetEnvironment:
     """The air while one set was taken: temperature (°C), pressure (kPa), and its provenance.
 
-    ``source`` says in words which entry it is (for example "entry 2, 2026-12-03 06:10:02 UTC");
-    the evaluation shows it beside the set's k_TP.
+    ``source`` says in words where the values come from (for example "entry 2", or a worksheet
+    table); ``entry`` is the entry's position (from 1) in a recorded session's environment
+    log, None otherwise. The evaluation shows both beside the set's k_TP.
     """
 
     temperature_C: float
     pressure_kPa: float
     source: str = ""
+    entry: int | None = None
 
 
 def check_set_environments(
@@ -56,6 +58,7 @@ def check_set_environments(
             float(limits.TEMPERATURE_C.check(f"{name}.temperature_C", entry.temperature_C)),
             float(limits.PRESSURE_KPA.check(f"{name}.pressure_kPa", entry.pressure_kPa)),
             str(entry.source),
+            entry.entry,
         )
     return checked
 
