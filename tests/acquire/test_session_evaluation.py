@@ -164,3 +164,32 @@ def test_a_session_that_cannot_be_read_says_why_in_one_wording(tmp_path: Path) -
         found = evaluate_session(store, session_id)
     assert found.evaluation is None
     assert found.error.startswith("the stored metadata cannot be used: ")
+
+
+def test_leakage_is_subtracted_only_when_chosen_and_the_choice_is_audited(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from recorded_session import example, record_example_session
+
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        kept = record_example_session(store)
+        taken = record_example_session(store, subtract_leakage=True)
+        engine = Engine(store, capabilities={Capability.READ_CHARGE}, clock=Clock())
+        chosen = engine.start_session({**demo_metadata(), "subtract_leakage": True}, small_plan())
+        audited = [e.kind for e in store.events(chosen)]
+        a = evaluate_session(store, kept).evaluation
+        b = evaluate_session(store, taken).evaluation
+    assert "leakage_subtraction_chosen" in audited
+    assert not a.leakage_subtracted and b.leakage_subtracted
+    # The leakage set's 60 s charge scaled to a 6 s routine reading gives back the example's
+    # leakage per reading (common practice: leakage current times integration time).
+    assert a.leakage_nC == pytest.approx(example()["readings"]["leakage_nC"], rel=1e-12)
+    routine = a.M_raw_nC
+    assert a.leakage_pct == pytest.approx(100 * a.leakage_nC / routine, rel=1e-12)
+    assert b.M_corrected_nC / a.M_corrected_nC == pytest.approx(
+        (routine - a.leakage_nC) / routine, rel=1e-12
+    )
+    text = _cli(capsys, "show", str(chosen), "--db", str(path))
+    assert "leakage subtraction chosen" in text  # the audit lists the choice
+    assert "not subtracted" in _cli(capsys, "show", str(kept), "--db", str(path))
