@@ -169,5 +169,5 @@ def test_leakage_subtraction_is_off_unless_chosen_and_must_be_yes_or_no() -> Non
     chosen = validate_metadata({**required_metadata(), "subtract_leakage": True})
     assert chosen.subtract_leakage is True
     assert validate_metadata(chosen.to_dict()) == chosen
-    with pytest.raises(InputError, match="subtract_leakage = 'yes'.*true or false"):
+    with pytest.raises(InputError, match=r"subtract_leakage = 'yes'.*true or false"):
         validate_metadata({**required_metadata(), "subtract_leakage": "yes"})
