@@ -22,6 +22,7 @@ Factor states, one rule for every factor (where its value comes from):
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
@@ -261,13 +262,7 @@ class SetAir:
 
     def to_dict(self) -> dict[str, object]:
         """Return the plain values (keys temperature_C, pressure_kPa, source, entry, k_TP)."""
-        return {
-            "temperature_C": self.temperature_C,
-            "pressure_kPa": self.pressure_kPa,
-            "source": self.source,
-            "entry": self.entry,
-            "k_TP": self.k_TP,
-        }
+        return dataclasses.asdict(self)
 
 
 # ---------------------------------------------------------------- checking the inputs
