@@ -454,7 +454,10 @@ def _factor_k_pol(
         u_rel = share * float(
             np.hypot(routine.relative_standard_error_pct, opposite.relative_standard_error_pct)
         )
-    return Factor(symbol, value, "measured", u_rel, _K_POL_FORMULA[convention])
+    source = _K_POL_FORMULA[convention]
+    if scales["opposite"] != 1.0:
+        source += "; opposite-polarity mean referred to the routine set's air"
+    return Factor(symbol, value, "measured", u_rel, source)
 
 
 def _factor_k_s(
