@@ -91,6 +91,8 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
     if truth is not None:
         header += f"{'simulator truth':>17}"
     lines = [f"Session {document['session_id']}", header]
+    if document.get("results_error"):
+        lines.insert(1, f"!! Results not computed: {document['results_error']}")
     for key in FACTORS:
         row = (
             f"{symbols.get(key, key):<10}{_number(document.get(key)):>12}  {states.get(key, ''):<9}"

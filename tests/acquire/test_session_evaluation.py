@@ -27,6 +27,7 @@ from chargebook.acquire.replay_compare import stored_results
 from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.session_result import result_document
 from chargebook.acquire.store import Store
+from chargebook.acquire.summary_text import result_table
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 from test_engine import Clock, small_plan, take_set
@@ -162,8 +163,11 @@ def test_a_session_that_cannot_be_read_says_why_in_one_wording(tmp_path: Path) -
             {"beam": "6 MV"}, small_plan().to_dict(), "trs398", "pulsed", actor="test"
         )
         found = evaluate_session(store, session_id)
+        document = result_document(store, session_id)
     assert found.evaluation is None
     assert found.error.startswith("the stored metadata cannot be used: ")
+    assert document["results_error"] == found.error and document["monte_carlo"] is None
+    assert f"!! Results not computed: {found.error}" in result_table(document)
 
 
 def test_leakage_is_subtracted_only_when_chosen_and_the_choice_is_audited(
