@@ -127,6 +127,7 @@ def test_the_text_and_html_reports_list_the_same_flags(
     parser = _Keys()
     parser.feed(html)
     assert {f["code"] for f in console["flags"]} <= set(parser.keys)
+    assert {"set_air-routine", "set_air-opposite", "k_s_boag", "leakage_pct"} <= set(parser.keys)
     history_text = _cli(capsys, "history", "--beam", demo_metadata()["beam"], "--all", *db)
     assert "routine_sd_high" in history_text
 
