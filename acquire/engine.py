@@ -37,6 +37,7 @@ from typing import Any
 from chargebook.acquire import live
 from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.session_evaluation import SessionContext, evaluate_session
 from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.store import ReadingRow, SetRow, Store
 from chargebook.corrections.stability import Thresholds
@@ -237,6 +238,8 @@ class Engine:
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._event(actor, live.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale)
+        if checked.get("subtract_leakage"):
+            self._event(actor, live.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
         if self.identity is not None:
             self._event(
                 DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
@@ -634,17 +637,10 @@ class Engine:
         if self.session_id is None:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
         else:
-            inputs, provisional = live.measurement_inputs(
-                self.store,
-                self.session_id,
-                self.plan,
-                self.metadata,
-                self.active.id if self.active is not None else None,
-                self.integration_s,
-                self.thresholds,
-            )
-            results, error = live.evaluate_inputs(inputs)
-            value = (results, provisional, error)
+            context = SessionContext(self.plan, self.metadata, self.thresholds, self.integration_s)
+            active_id = self.active.id if self.active is not None else None
+            found = evaluate_session(self.store, self.session_id, context, active_id)
+            value = (found.results(), found.provisional, found.error)
         self._results_cache = (self.data_version, value)
         return value
 

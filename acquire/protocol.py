@@ -481,8 +481,10 @@ class SessionInfo(TypedDict):
 class Snapshot(TypedDict):
     """The whole daemon state, as sent in ``snapshot`` notifications and method results.
 
-    ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed from the
-    accepted sets, the latest environment entry and the metadata; factors not yet measured are
+    ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed by
+    ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
+    entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
+    in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
     *pending* (``factor_states``) and values that depend on them are null. While a set of a
     step without an accepted set is being collected, its readings are included provisionally and
     ``results_provisional`` is true.
@@ -500,6 +502,7 @@ class Snapshot(TypedDict):
     sets: list[SetInfo]
     live: LiveReading
     environment: EnvironmentInfo | None
+    environment_entries: list[EnvironmentInfo]  # every entry of the session, oldest first
     results: dict[str, Any] | None
     results_provisional: bool
     results_error: str | None  # why results could not be computed from what is recorded

@@ -28,6 +28,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
     store, session_id = engine.store, engine.session_id
     sets: list[dict[str, Any]] = []
     environment = None
+    entries: list[dict[str, Any]] = []
     session = None
     results, provisional, results_error = engine.results()
     if session_id is not None:
@@ -44,9 +45,9 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         }
         readings = store.readings(session_id)
         sets = _sets_info(engine, store.sets(session_id), readings)
-        entries = store.environment(session_id)
+        entries = [_environment_info(entry) for entry in store.environment(session_id)]
         if entries:
-            environment = _environment_info(entries[-1])
+            environment = entries[-1]
     current = next((s for s in sets if engine.active and s["id"] == engine.active.id), None)
     return {
         "seq": engine.seq,
@@ -61,6 +62,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         "sets": sets,
         "live": _live(engine),
         "environment": environment,
+        "environment_entries": entries,
         "results": results,
         "results_provisional": provisional,
         "results_error": results_error,

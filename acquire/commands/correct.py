@@ -152,6 +152,9 @@ def _results(evaluation: Evaluation) -> list[str]:
                 f"{evaluation.tolerance_source}): {verdict}",
             ]
         )
+    from chargebook.acquire.summary_text import cross_check_rows
+
+    rows += [[label, text] for label, text in cross_check_rows(evaluation.to_dict())]
     return ["", "Results", *_table(rows)]
 
 

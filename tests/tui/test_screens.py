@@ -333,3 +333,36 @@ async def test_a_pressure_in_hpa_and_an_n_dw_in_gy_per_c_show_what_the_daemon_wi
     # 1 hPa = 0.1 kPa; 1 Gy/C = 1e-9 Gy/nC (SI prefixes).
     assert "= 101.200 kPa (converted from 1012 hPa)" in words
     assert "= 0.050400 Gy/nC (converted from 5.04e7 Gy/C)" in words
+
+
+async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
+    # Results as the daemon computes them (corrections.evaluate), with the temperature changed
+    # between the routine and the opposite set; the panel shows what it is sent, nothing more.
+    from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+    from chargebook.corrections.set_air import SetEnvironment
+
+    snapshot = load_snapshot("reviewing_spike")
+    first, second = SetEnvironment(21.4, 101.2, "entry 1", 1), SetEnvironment(21.8, 101.2, "", 2)
+    snapshot["results"] = evaluate(
+        MeasurementInputs(
+            temperature_C=21.8,
+            pressure_kPa=101.2,
+            routine_bias_V=300.0,
+            reduced_bias_V=100.0,
+            routine_nC=(18.531, 18.528, 18.534),
+            opposite_nC=(-18.566, -18.561, -18.569),
+            reduced_nC=(18.392, 18.390, 18.395),
+            leakage_nC=0.004,
+            set_environments={"routine": first, "opposite": second, "reduced": second},
+        )
+    ).to_dict()
+    stamp = {"recorded_at": "2025-03-14T09:30:00+00:00"}
+    snapshot["environment_entries"] = [stamp, {"recorded_at": "2025-03-14T09:41:12+00:00"}]
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=(160, 60)) as pilot:
+        await pilot.pause()
+        shown = " ".join(screen_text(app).split())
+    assert "Leakage 0.022 % of M, not subtracted" in shown
+    assert "k_s by Boag" in shown
+    assert "Air, routine 21.40 °C, 101.200 kPa (entry 1, 09:30:00 UTC)" in shown
+    assert "Air, opposite 21.80 °C, 101.200 kPa (entry 2, 09:41:12 UTC)" in shown
