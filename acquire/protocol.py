@@ -495,6 +495,7 @@ class Snapshot(TypedDict):
     paused_from: str | None
     allowed: list[str]  # operator actions legal now (subset of OPERATOR_ACTIONS)
     prompt: PromptInfo
+    notice: str | None  # something the engine did that the operator must know (a reading dropped)
     session: SessionInfo | None
     plan: list[StepInfo]
     step_index: int | None

@@ -55,6 +55,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         "paused_from": engine.paused_from.value if engine.paused_from else None,
         "allowed": engine.allowed(),
         "prompt": prompt(engine),
+        "notice": engine.notice,
         "session": session,
         "plan": _plan_info(engine, sets),
         "step_index": engine.step_index,

@@ -15,6 +15,7 @@ from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.screens.setup import SetupScreen
 from chargebook.tui.screens.summary import SummaryScreen
 from chargebook.tui.widgets.fields import Field
+from chargebook.tui.widgets.results_panel import ResultsPanel
 from harness import ScreenHarness, load_snapshot
 from screen_text import screen_text
 from textual.widgets import Select
@@ -166,6 +167,7 @@ async def test_the_setup_form_checks_entries_as_typed_and_rechecks_when_the_unit
         await pilot.pause()
         assert pressure.problem == ""  # the same 101.3, now in kPa, is accepted
         k_Q.input.value = "0.992"
+        screen.query_one("#field-temperature_C", Field).input.value = "21.4"
         await pilot.pause()
         assert "correct the entries marked !!" not in screen_text(app)  # all right now: gone
 
@@ -366,3 +368,73 @@ async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
     assert "k_s by Boag" in shown
     assert "Air, routine 21.40 °C, 101.200 kPa (entry 1, 09:30:00 UTC)" in shown
     assert "Air, opposite 21.80 °C, 101.200 kPa (entry 2, 09:41:12 UTC)" in shown
+
+
+async def test_a_discarded_reading_is_said_in_words_above_the_instruction():
+    paused = load_snapshot("collecting")
+    paused["notice"] = (
+        "The reading in progress (+12.3000 nC so far) was discarded because the session was "
+        "paused: it is not recorded as a reading. Deliver that beam again."
+    )
+    app = ScreenHarness(MeasureScreen, paused)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        words = " ".join(screen_text(app).split())
+    assert "!! The reading in progress (+12.3000 nC so far) was discarded" in words
+    assert words.index("was discarded") < words.index("Do now:")
+
+
+def reviewing_last_step() -> dict:
+    """The finished session's snapshot, as it was while its last set was being reviewed."""
+    snapshot = load_snapshot("finished")
+    snapshot["state"], snapshot["step_index"] = "reviewing", len(snapshot["plan"]) - 1
+    return snapshot
+
+
+async def test_every_result_can_be_reached_by_keyboard_at_80_by_24():
+    app = ScreenHarness(MeasureScreen, reviewing_last_step())
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        assert "Uncertainty u_c" not in screen_text(app)  # below the panel's bottom edge
+        for _ in range(12):  # Tab moves the focus until it reaches the results
+            if isinstance(app.focused, ResultsPanel):
+                break
+            await pilot.press("tab")
+        assert isinstance(app.focused, ResultsPanel)
+        seen = screen_text(app)
+        for _ in range(30):  # then the arrow key takes the operator down every line
+            await pilot.press("down")
+            await pilot.pause()
+            seen += screen_text(app)
+    assert "Uncertainty u_c" in seen and "Session flags" in seen
+    assert "No k_elec entered" in seen  # the last flag, at the very bottom
+
+
+async def test_the_step_heading_wraps_rather_than_cutting_the_mu():
+    app = ScreenHarness(MeasureScreen, reviewing_last_step())
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        shown = screen_text(app)
+    assert "Step 6 of 6 · Return-to-start check · +300 V · 3 × 100" in shown
+    assert "MU · optional" in shown and "…" not in shown  # on the next line, nothing cut
+
+
+async def test_a_new_session_asks_for_the_air_again_or_a_confirmation_of_the_last_entry():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=(80, 60)) as pilot:
+        screen = app.console_screen
+        await pilot.pause()
+        words = " ".join(screen_text(app).split())
+        assert "Last entry: 21.4 °C, 1012 hPa, at 2025-03-14 09:30:00 +00:00 (console)" in words
+        assert screen.environment.params() is None  # not carried over without a word
+        await pilot.press("ctrl+l")
+        await pilot.pause()
+        params = screen.environment.params()
+        source = screen.environment.source()
+    assert params == {
+        "temperature_C": 21.4,
+        "pressure": 1012.0,
+        "pressure_unit": "hPa",
+        "humidity_pct": 45.0,
+    }
+    assert source == "console: the entry of 2025-03-14 09:30:00 +00:00 confirmed by the operator"

@@ -33,6 +33,7 @@ class SetupScreen(ConsoleScreen):
     kind = "setup"
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("ctrl+s", "start", "Start session", priority=True),
+        Binding("ctrl+l", "use_last_entry", "Use last T & P", priority=True),
     ]
 
     def __init__(self, send: Sender, defaults: Mapping[str, Any] | None = None) -> None:
@@ -48,7 +49,7 @@ class SetupScreen(ConsoleScreen):
         with VerticalScroll(id="setup-body"):
             yield SessionForm(self.defaults)
             yield Static("Air at the chamber", classes="section-title", markup=False)
-            yield EnvironmentFields(self.defaults)
+            yield EnvironmentFields(self.defaults, ask_again=True)
             yield Static(f"Caution: {CAUTION}", id="setup-caution", markup=False)
             yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
         yield Static("", id="setup-problem", markup=False)
@@ -70,10 +71,17 @@ class SetupScreen(ConsoleScreen):
         return self.starting or self.session_opened
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        """Offer Start when the daemon has no session open (or this form opened it)."""
+        """Offer Start when the daemon has no session open (or this form opened it), and the
+        last temperature and pressure when there is one to confirm."""
         if action == "start":
             return Method.SESSION_START in self.allowed() or self.session_opened or None
+        if action == "use_last_entry":
+            return self.environment.last_entry is not None
         return True
+
+    def action_use_last_entry(self) -> None:
+        """Use the last temperature and pressure again, recorded as confirmed by the operator."""
+        self.environment.use_last_entry()
 
     @on(Input.Changed)
     def entry_changed(self) -> None:
@@ -98,7 +106,8 @@ class SetupScreen(ConsoleScreen):
             if not self.session_opened:
                 await self.send(Method.SESSION_START, metadata=metadata)
                 self.session_opened = True
-            await self.send(Method.ENVIRONMENT_SET, source="console", **environment)
+            source = self.environment.source()
+            await self.send(Method.ENVIRONMENT_SET, source=source, **environment)
         except DaemonError as error:
             shown = self.form.show_refusal(error.field, error.message)
             shown = shown or self.environment.show_refusal(error.field, error.message)

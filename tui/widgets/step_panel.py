@@ -24,6 +24,7 @@ class StepPanel(Vertical):
             yield TextBlock(id="step-heading")
             yield ProgressBar(show_eta=False, show_percentage=False, id="plan-progress")
             yield TextBlock(id="plan-progress-text")
+        yield TextBlock(id="step-notice")
         yield TextBlock(id="step-prompt")
         yield TextBlock(id="step-live")
 
@@ -36,6 +37,9 @@ class StepPanel(Vertical):
         if (bar.total, bar.progress) != (max(total, 1), done):
             bar.update(total=max(total, 1), progress=done)
         self.query_one("#plan-progress-text", TextBlock).show(f"{done}/{total} done")
+        notice = self.query_one("#step-notice", TextBlock)
+        notice.show(f"!! {snapshot['notice']}" if snapshot.get("notice") else "")
+        notice.display = bool(snapshot.get("notice"))
         prompt = self.query_one("#step-prompt", TextBlock)
         prompt.show(f"Do now: {snapshot_view.prompt_text(snapshot, self.connected)}")
         prompt.set_class(not self.connected, "-trouble")
