@@ -181,3 +181,36 @@ def plain(value: object) -> Text:
 def plain_row(values: Iterable[object]) -> list[Text]:
     """Return a table row whose cells show exactly what they hold."""
     return [plain(value) for value in values]
+
+
+#: Full scale of the readings' bar line: ± this percentage of the set's mean.
+BAR_SCALE_PCT = 0.1
+_BARS = "▁▂▃▄▅▆▇█"
+
+
+def deviation_bars(charges_nC: Iterable[float], mean_nC: float | None) -> str:
+    """Return one bar per reading for its deviation from ``mean_nC`` on a stated scale.
+
+    The lowest bar is −0.1 % of the mean or below, the highest +0.1 % or above (▼ and ▲ mark a
+    reading beyond the scale), so two readings 0.05 % apart draw bars four steps apart, never a
+    full and an empty bar. The scale follows the sign of the charge: higher means larger in
+    magnitude. Returns "" without a mean.
+    """
+    if not mean_nC:
+        return ""
+    bars = []
+    for charge in charges_nC:
+        deviation_pct = 100.0 * (charge / mean_nC - 1.0)
+        if deviation_pct > BAR_SCALE_PCT:
+            bars.append("▲")
+        elif deviation_pct < -BAR_SCALE_PCT:
+            bars.append("▼")
+        else:
+            level = (deviation_pct + BAR_SCALE_PCT) / (2 * BAR_SCALE_PCT) * (len(_BARS) - 1)
+            bars.append(_BARS[round(level)])
+    return " ".join(bars)
+
+
+def bar_scale_caption() -> str:
+    """Return the caption that states the bar line's scale."""
+    return f"{_BARS[0]} −{BAR_SCALE_PCT:g} % … {_BARS[-1]} +{BAR_SCALE_PCT:g} % of mean, ▲▼ beyond"

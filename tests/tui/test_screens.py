@@ -438,3 +438,15 @@ async def test_a_new_session_asks_for_the_air_again_or_a_confirmation_of_the_las
         "humidity_pct": 45.0,
     }
     assert source == "console: the entry of 2025-03-14 09:30:00 +00:00 confirmed by the operator"
+
+
+async def test_the_focused_entry_is_marked_in_text_not_only_by_a_shade():
+    app = ScreenHarness(lambda send: SetupScreen(send, {}), load_snapshot("idle"))
+    async with app.run_test(size=SIZE) as pilot:
+        app.console_screen.query_one("#field-operator", Field).input.focus()
+        await pilot.pause()
+        assert "▸ Operator" in screen_text(app)
+        await pilot.press("tab")
+        await pilot.pause()
+        shown = screen_text(app)
+    assert "▸ Operator" not in shown and "▸ Treatment machine" in shown

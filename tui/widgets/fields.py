@@ -93,8 +93,12 @@ class Field(Vertical):
         elif self.touched:
             self.problem = self._first(result)
 
+    def on_descendant_focus(self) -> None:
+        mark_focus(self, self.label, True)
+
     def on_descendant_blur(self) -> None:
         """The operator left the entry: from now on, say what is wrong with it."""
+        mark_focus(self, self.label, False)
         if not self.touched:
             self.recheck()
 
@@ -113,6 +117,15 @@ class Field(Vertical):
     def _first(result) -> str:
         descriptions = result.failure_descriptions
         return descriptions[0] if descriptions else "not accepted"
+
+
+#: Put before the label of the entry that has the focus, so it shows without colour.
+FOCUS_MARK = "▸ "
+
+
+def mark_focus(widget: Widget, label: str, focused: bool) -> None:
+    """Show ``label`` with the focus mark in front of it while the entry has the focus."""
+    widget.query_one(".field-label", Label).update(f"{FOCUS_MARK}{label}" if focused else label)
 
 
 def conversion_note(
@@ -164,3 +177,9 @@ class ChoiceField(Horizontal):
     def value(self) -> str:
         """Return the chosen value."""
         return str(self.query_one(Select).value)
+
+    def on_descendant_focus(self) -> None:
+        mark_focus(self, self.label, True)
+
+    def on_descendant_blur(self) -> None:
+        mark_focus(self, self.label, False)

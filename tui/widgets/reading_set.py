@@ -11,7 +11,6 @@ from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Vertical, VerticalScroll
 from textual.reactive import reactive
-from textual.widgets import Sparkline
 
 #: The readings' columns: heading, least width in characters, aligned right?
 READING_COLUMNS: tuple[tuple[str, int, bool], ...] = (
@@ -76,7 +75,8 @@ def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
 
 
 class ReadingSetPanel(Vertical):
-    """The set being taken (or just taken): table, sparkline, mean and relative SD, flags."""
+    """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
+    relative SD, flags."""
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
@@ -86,7 +86,7 @@ class ReadingSetPanel(Vertical):
         with VerticalScroll(id="readings-scroll"):
             yield ReadingLines(id="readings-table")
             yield TextBlock(id="set-flags")
-        yield Sparkline([], id="readings-plot")
+        yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
@@ -99,10 +99,12 @@ class ReadingSetPanel(Vertical):
             title = f"{snapshot_view.set_title(set_info)}: {status}"
         self.query_one("#set-title", TextBlock).show(title)
         self.query_one(ReadingLines).show_lines(readings_lines(set_info))
-        charges = [abs(charge) for charge in snapshot_view.set_charges_nC(set_info)]
-        plot = self.query_one(Sparkline)
-        if plot.data != charges:
-            plot.data = charges
+        charges = snapshot_view.set_charges_nC(set_info)
+        mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
+        bars = text.deviation_bars(charges, mean_nC)
+        self.query_one("#readings-plot", TextBlock).show(
+            f"{bars}\n{text.bar_scale_caption()}" if bars else ""
+        )
         self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )
