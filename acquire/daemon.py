@@ -34,7 +34,7 @@ from chargebook.acquire import protocol
 from chargebook.acquire.engine import Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
 from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store, TrafficLine
+from chargebook.acquire.store import Store
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -333,7 +333,6 @@ class Daemon:
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
-        self._traffic: list[TrafficLine] = []  # recorded, not yet committed
         self._generation = 0
         self._sampled_reading: object = None
         self._published_seq = -1
@@ -384,27 +383,28 @@ class Daemon:
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
-        """Keep one raw line, stamped now, for the next commit (in the instrument thread only)."""
+        """Keep one raw line, stamped now, for the next commit (in the instrument thread only).
+
+        The store writes kept lines before anything else it appends, so an operator's action
+        committed while a line waits still comes after that line in the session's chain.
+        """
         if self.store is None:
             return
         session_id = self.engine.session_id if self.engine is not None else None
         stamp = self.store.stamp()
-        self._traffic.append((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
+        self.store.keep_traffic((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
 
     def _commit_traffic(self) -> None:
-        """Commit the raw lines kept so far in one transaction (instrument thread only)."""
-        lines, self._traffic = self._traffic, []
-        if not lines or self.store is None:
+        """Commit the raw lines kept so far in one transaction (instrument thread only).
+
+        Lines that fail to commit stay kept, in order, and go with the next commit.
+        """
+        if self.store is None:
             return
         try:
-            self.store.add_traffic_many(lines)
+            self.store.commit_traffic()
         except Exception:  # a traffic record must never stop the instrument thread
-            log.exception("could not record %d raw instrument lines at once", len(lines))
-            for line in lines:  # save every line that can be saved
-                try:
-                    self.store.add_traffic_many([line])
-                except Exception:
-                    log.exception("could not record a raw instrument line: %r", line[3])
+            log.exception("could not record the raw instrument lines kept so far")
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""

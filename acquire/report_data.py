@@ -19,6 +19,7 @@ from typing import Any
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SessionRow, SetRow, Store
+from chargebook.acquire.verify import ChainReport, verify_session
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
 
@@ -64,6 +65,17 @@ class SessionRecord:
     evaluation: Evaluation | None
     results_error: str | None
     instrument: dict[str, Any] | None = None
+    integrity: ChainReport | None = None  # the check of the session's hash chain
+
+    def integrity_warning(self) -> str | None:
+        """Return, when the record does not verify, the warning to put at the top; else None."""
+        if self.integrity is None or self.integrity.verified:
+            return None
+        return (
+            f"WARNING: THIS RECORD DOES NOT VERIFY. It was changed after it was written; the "
+            f"values below may not be the ones measured (`chargebook verify {self.session.id}`).\n"
+            + self.integrity.summary()
+        )
 
     @property
     def metadata(self) -> dict[str, Any]:
@@ -142,6 +154,7 @@ def load_record(store: Store, session_id: int) -> SessionRecord:
         evaluation=evaluation,
         results_error=error,
         instrument=instrument_identity(store, session, events),
+        integrity=verify_session(store, session_id),
     )
 
 

@@ -37,6 +37,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
+from chargebook.acquire import chain
 from chargebook.acquire.migrations import (
     CAPTURE_MODES,
     SCHEMA_VERSION,
@@ -284,6 +285,9 @@ class Store:
         self.path = path
         self._now = now
         self._lock = threading.RLock()
+        self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
+        self._pending_lock = threading.Lock()
+        self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -383,6 +387,10 @@ class Store:
         writer (a replay, a reviewer's tool) makes it wait up to the busy timeout instead of
         failing at once, as a deferred transaction that read before writing did. A nested
         block is a savepoint: an error rolls back that block's rows only.
+
+        The outermost block first writes the raw lines kept with :meth:`keep_traffic`, so that
+        every row it appends comes after them in the session's chain, as it came after them in
+        time; if the transaction fails, those lines are kept again for the next commit.
         """
         with self._lock:
             conn = self.db.conn
@@ -392,15 +400,32 @@ class Store:
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
+                self._write_kept_traffic()
                 yield self.db
             except BaseException:
                 conn.rollback()
+                self._keep_again()
                 raise
             try:
                 conn.execute("COMMIT")
             except BaseException:
                 conn.rollback()
+                self._keep_again()
                 raise
+            self._in_flight = []
+
+    def _write_kept_traffic(self) -> None:
+        """Append the kept raw lines (lock held, transaction open)."""
+        with self._pending_lock:
+            self._in_flight, self._pending = self._pending, []
+        if self._in_flight:
+            self._append_traffic(self._in_flight)
+
+    def _keep_again(self) -> None:
+        """Put the lines of a failed transaction back in front of the kept ones."""
+        with self._pending_lock:
+            self._pending[:0] = self._in_flight
+        self._in_flight = []
 
     def _stamp(self) -> str:
         if self._now is utc_now:
@@ -430,8 +455,68 @@ class Store:
             raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
         return found[0]
 
+    def append_row(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row, as given (the columns of ``chain.COLUMNS[table]`` but ``id``), to a
+        chained table and commit it; return its id. For copying a recorded session (a replay):
+        the recording methods above check their values, this one does not."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
+        with self.atomic():
+            return self._append(table, row)
+
+    def _append(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row to a chained table, linked to its session's chain; return its id.
+
+        Call inside :meth:`atomic`. The id is given explicitly (the next one), since the hash
+        covers it.
+        """
+        row_id = self._next_id(table)
+        values = tuple(row_id if column == "id" else row[column] for column in chain.COLUMNS[table])
+        key = chain.chain_key(row["session_id"])
+        seq, previous = self._chain_head(key)
+        digest = chain.link(previous, seq + 1, table, values)
+        self.db.execute(_INSERT_CHAINED[table], (*values, seq + 1, digest))
+        self._set_chain_head(key, seq + 1, digest)
+        return row_id
+
+    def _append_traffic(self, lines: Sequence[TrafficLine]) -> int:
+        """Append checked raw lines, each linked to its session's chain, in one pass; return
+        the id of the last."""
+        next_id = self._next_id("traffic")
+        heads: dict[int, tuple[int, str]] = {}
+        rows = []
+        for line in lines:
+            key = chain.chain_key(line[0])
+            seq, previous = heads[key] if key in heads else self._chain_head(key)
+            values = (next_id, *line)
+            digest = chain.link(previous, seq + 1, "traffic", values)
+            rows.append((*values, seq + 1, digest))
+            heads[key] = (seq + 1, digest)
+            next_id += 1
+        self.db.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        for key, (seq, digest) in heads.items():
+            self._set_chain_head(key, seq, digest)
+        return next_id - 1
+
+    def _next_id(self, table: str) -> int:
+        return int(self.db.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+
+    def _chain_head(self, key: int) -> tuple[int, str]:
+        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
+        row = self.db.execute(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
+        ).fetchone()
+        return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+
+    def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
+        self.db.execute(
+            "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
+            "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
+            (key, seq, digest),
+        )
+
     def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        return self._insert(
+        return self._append(
             "events",
             {
                 "session_id": session_id,
@@ -496,15 +581,15 @@ class Store:
                     f"session {session_id} is {old.status}; its status can no longer change"
                 )
             closed_at = None if status == "open" else (old.closed_at or self._stamp())
-            self.db.execute(
-                "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
-                (status, reason, closed_at, session_id),
-            )
-            self._event(
+            self._event(  # first: a trigger refuses a status change that is not its last event
                 session_id,
                 actor,
                 "session_status",
-                {"from": old.status, "to": status, "reason": reason},
+                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
+            )
+            self.db.execute(
+                "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
+                (status, reason, closed_at, session_id),
             )
 
     def sessions(self) -> list[SessionRow]:
@@ -571,11 +656,7 @@ class Store:
                 ended_at = old.ended_at
             else:
                 ended_at = old.ended_at or self._stamp()
-            self.db.execute(
-                "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
-                (status, reason, ended_at, set_id),
-            )
-            self._event(
+            self._event(  # first: a trigger refuses a status change that is not its last event
                 old.session_id,
                 actor,
                 "set_status",
@@ -586,7 +667,12 @@ class Store:
                     "from": old.status,
                     "to": status,
                     "reason": reason,
+                    "ended_at": ended_at,
                 },
+            )
+            self.db.execute(
+                "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
+                (status, reason, ended_at, set_id),
             )
 
     def sets(self, session_id: int) -> list[SetRow]:
@@ -636,7 +722,7 @@ class Store:
                     f"a reading set of session {session_id}",
                     f"belongs to session {reading_set.session_id}",
                 )
-            return self._insert("readings", row)
+            return self._append("readings", row)
 
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
@@ -677,7 +763,7 @@ class Store:
         }
         with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("environment", row)
+            return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
         """Return the session's environment entries, oldest first (the last one is current)."""
@@ -716,7 +802,7 @@ class Store:
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("traffic", row)
+            return self._append_traffic([tuple(row.values())])
 
     def stamp(self) -> str:
         """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
@@ -733,11 +819,28 @@ class Store:
         bad line refuses the whole call.
         """
         rows = [_traffic_row(line) for line in lines]
-        with self.atomic() as db:
+        with self.atomic():
             for session_id in {row[0] for row in rows} - {None}:
                 self._one(SessionRow, "sessions", session_id, "session")
-            db.conn.executemany(_INSERT_TRAFFIC, rows)
+            self._append_traffic(rows)
         return len(rows)
+
+    def keep_traffic(self, line: TrafficLine) -> None:
+        """Keep one raw line (see :meth:`add_traffic_many` for its shape) to be written with the
+        next commit, before anything that commit appends: the order of the session's chain is
+        the order in which lines and events happened. Cheap, and safe from any thread."""
+        row = _traffic_row(line)
+        with self._pending_lock:
+            self._pending.append(row)
+
+    def commit_traffic(self) -> int:
+        """Write the raw lines kept so far in one commit; return how many there were."""
+        with self._pending_lock:
+            count = len(self._pending)
+        if count:
+            with self.atomic():
+                pass  # the outermost block writes the kept lines first
+        return count
 
     def traffic_count(self, session_id: int | None) -> int:
         """Return how many raw lines were recorded for the session (``None``: outside any)."""
@@ -767,7 +870,11 @@ class Store:
 
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
-_INSERT_TRAFFIC = f"INSERT INTO traffic ({', '.join(_TRAFFIC_COLUMNS)}) VALUES (?, ?, ?, ?, ?)"
+_INSERT_CHAINED = {
+    table: f"INSERT INTO {table} ({', '.join(columns)}, chain_seq, chain_hash) "
+    f"VALUES ({', '.join('?' for _ in columns)}, ?, ?)"
+    for table, columns in chain.COLUMNS.items()
+}
 
 
 def _traffic_row(line: TrafficLine) -> TrafficLine:

@@ -27,12 +27,15 @@ def _show(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.export import to_json
     from chargebook.acquire.report_data import load_record
     from chargebook.acquire.report_sections import all_sections
-    from chargebook.acquire.report_text import tables_text
+    from chargebook.acquire.report_text import printable, tables_text
 
     record = load_record(store, args.session)
     if args.json:
         print(to_json(record), end="")
     else:
+        warning = record.integrity_warning()
+        if warning is not None:
+            print(printable(warning) + "\n")
         print(tables_text(all_sections(record)))
         print()
         print(CAUTION)
