@@ -34,7 +34,7 @@ from chargebook.acquire import protocol
 from chargebook.acquire.engine import Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
 from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store
+from chargebook.acquire.store import Store, require_writable
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -347,6 +347,7 @@ class Daemon:
 
         options = self.options
         profile = load_profile(options.profile)
+        require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
         bench = None

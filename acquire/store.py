@@ -27,7 +27,9 @@ import functools
 import json
 import math
 import os
+import shutil
 import sqlite3
+import tempfile
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
@@ -99,6 +101,46 @@ def default_db_path() -> Path:
     data_home = os.environ.get("XDG_DATA_HOME", "")
     base = Path(data_home) if os.path.isabs(data_home) else Path.home() / ".local" / "share"
     return base / "chargebook" / "station.sqlite"
+
+
+def require_writable(path: Path) -> None:
+    """Raise :class:`StoreError` in words unless the daemon can create or write the station
+    database at ``path``: its folder (created if missing) and the file, if it exists."""
+    folder = path.parent
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise StoreError(
+            f"cannot create the folder {folder} for the station database: {error.strerror}; "
+            "choose a writable place with --db FILE"
+        ) from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise StoreError(
+            f"the folder {folder} is not writable by this user, and the station database needs "
+            "its -wal, -shm and lock files beside it; choose a writable place with --db FILE"
+        )
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        raise StoreError(
+            f"the station database {path} is read-only for this user: the daemon must write "
+            "to it; the read-side commands (sessions, show, export, verify) can read it as it "
+            "is, or serve a writable copy"
+        )
+
+
+def _writable(path: Path) -> bool:
+    """Return True when this user can write the file ``path`` and create files beside it."""
+    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK | os.X_OK)
+
+
+def _require_intact(conn: sqlite3.Connection, path: Path) -> None:
+    """Raise :class:`StoreError` when ``PRAGMA quick_check`` finds the file damaged."""
+    found = [row[0] for row in conn.execute("PRAGMA quick_check(5)").fetchall()]
+    if found != ["ok"]:
+        raise StoreError(
+            f"the file is damaged (SQLite's quick integrity check: "
+            f"{'; '.join(str(f) for f in found)}); restore it from a backup, or start on a new "
+            "file with --db FILE (`sqlite3 FILE .recover` may save what is left)"
+        )
 
 
 def utc_now() -> datetime:
@@ -288,6 +330,7 @@ class Store:
         self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
         self._pending_lock = threading.Lock()
         self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
+        self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -301,26 +344,66 @@ class Store:
     ) -> Store:
         """Open the station database at ``path``: create it and migrate it unless ``read_only``.
 
-        A writable open switches the file to WAL mode. A read-only open (the read-side commands,
-        while a daemon may be writing) never creates or migrates: it requires an existing file
-        at the current schema version. Raises :class:`StoreError` naming the path when the file
-        is missing, not a database, or at another schema version.
+        A writable open switches the file to WAL mode, and first checks that the file and its
+        folder can be written and that the file passes SQLite's quick integrity check. A
+        read-only open (the read-side commands, while a daemon may be writing) never creates or
+        migrates: it requires an existing file at the current schema version. A file this user
+        cannot write (an archive, a reviewer's copy, a read-only folder or mount), which SQLite
+        cannot open even read-only in WAL mode, is read through a private snapshot copy, removed
+        on :meth:`close`. Raises :class:`StoreError` naming the path when the file is missing,
+        not a database, damaged, unwritable (writable open), or at another schema version.
         """
         path = Path(path).expanduser()
         if read_only and not path.is_file():
             raise StoreError(f"no station database at {path} (pass --db FILE to choose one)")
-        if not read_only:
-            path.parent.mkdir(parents=True, exist_ok=True)
-        target = f"{path.resolve().as_uri()}?mode=ro" if read_only else str(path)
+        if read_only:
+            try:
+                return cls._connect(path, path, read_only=True, now=now)
+            except StoreError:
+                if _writable(path):
+                    raise
+            return cls._open_snapshot(path, now)
+        require_writable(path)
+        store = cls._connect(path, path, read_only=False, now=now)
+        return store
+
+    @classmethod
+    def _connect(
+        cls, path: Path, file: Path, *, read_only: bool, now: Callable[[], datetime]
+    ) -> Store:
+        """Open ``file`` (``path`` itself, or a snapshot copy of it) and prepare it."""
+        target = f"{file.resolve().as_uri()}?mode=ro" if read_only else str(file)
         conn = sqlite3.connect(target, uri=read_only, check_same_thread=False)
         try:
-            store = cls._prepare(conn, path, read_only=read_only, now=now)
+            if not read_only:
+                _require_intact(conn, path)
+            return cls._prepare(conn, path, read_only=read_only, now=now)
         except sqlite3.DatabaseError as error:
             conn.close()
             raise StoreError(f"{path} is not a usable chargebook database: {error}") from None
         except (SchemaTooNew, StoreError) as error:
             conn.close()
             raise StoreError(f"{path}: {error}") from None
+
+    @classmethod
+    def _open_snapshot(cls, path: Path, now: Callable[[], datetime]) -> Store:
+        """Open a private copy of the unwritable file ``path`` (and its ``-wal``, whose
+        committed transactions SQLite applies to the copy), read-only."""
+        folder = Path(tempfile.mkdtemp(prefix="chargebook-snapshot-"))
+        copy = folder / path.name
+        try:
+            shutil.copyfile(path, copy)
+            wal = path.with_name(path.name + "-wal")
+            if wal.is_file():
+                shutil.copyfile(wal, copy.with_name(copy.name + "-wal"))
+            store = cls._connect(path, copy, read_only=True, now=now)
+        except OSError as error:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise StoreError(f"{path} cannot be read: {error.strerror}") from None
+        except BaseException:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise
+        store._snapshot = folder
         return store
 
     @classmethod
@@ -364,6 +447,9 @@ class Store:
         """Close the database connection (everything written is already committed)."""
         with self._lock:
             self.db.close()
+            if self._snapshot is not None:
+                shutil.rmtree(self._snapshot, ignore_errors=True)
+                self._snapshot = None
 
     def __enter__(self) -> Store:
         return self
