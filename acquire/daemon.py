@@ -31,7 +31,7 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire import protocol
-from chargebook.acquire.engine import Command, Engine
+from chargebook.acquire.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
 from chargebook.acquire.station_lock import StationLock
 from chargebook.acquire.store import Store, require_writable
@@ -55,6 +55,8 @@ POLL_INTERVAL_S = 0.05
 TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
+#: The audit events of the daemon's own starts and stops: the last one says how it last ended.
+LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
 MAX_SAMPLES_PER_BATCH = 1024
 #: A pause between pushed lines longer than this ends a burst, s.
@@ -340,6 +342,7 @@ class Daemon:
         self._events_checked_at: int | None = None  # engine.data_version at the last look
         self._last_live: tuple[float, float | None] = (0.0, None)
         self._stopping = asyncio.Event()
+        self._stop_reason = "asked to stop"
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -417,6 +420,7 @@ class Daemon:
             self.station_lock.release()
             raise
         assert self.engine is not None and self.link is not None and self.store is not None
+        self._record_start()
         resumed = self.engine.restore()
         await self.server.start()
         self.link.start()
@@ -444,12 +448,42 @@ class Daemon:
             await asyncio.to_thread(self.link.join, 5.0)
             if self.options.bench_control and self.link.bench is not None:
                 self.link.bench.close()
+            if self._stopping.is_set():
+                self._record_stop()
             self.store.close()
             self.station_lock.release()
 
-    def shutdown(self) -> None:
-        """Ask :meth:`run` to end (from a signal handler or a test)."""
+    def shutdown(self, reason: str = "asked to stop") -> None:
+        """Ask :meth:`run` to end (from a signal handler or a test); ``reason`` is recorded in
+        the ``daemon_stopped`` event (``SIGTERM``, ``SIGINT``)."""
+        self._stop_reason = reason
         self._stopping.set()
+
+    def _record_start(self) -> None:
+        """Record ``daemon_started`` (a new file) or ``daemon_restarted``, saying whether the
+        previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
+        assert self.store is not None
+        session = self.store.open_session()
+        detail: dict[str, Any] = {"pid": os.getpid()}
+        last = self.store.last_event_of(LIFECYCLE_EVENTS)
+        if last is None:
+            kind = "daemon_started"
+        else:
+            kind = "daemon_restarted"
+            clean = last.kind == "daemon_stopped"
+            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
+            detail["previous_stop"] = last.detail().get("reason") if clean else None
+            detail["previous_pid"] = last.detail().get("pid")
+        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+
+    def _record_stop(self) -> None:
+        """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
+        assert self.store is not None and self.engine is not None
+        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        try:
+            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+        except Exception:  # the stop goes on; the next start will say the run crashed
+            log.exception("could not record the daemon's stop")
 
     # -- the loop's work -----------------------------------------------------------------------
     async def _consume_instrument(self) -> None:

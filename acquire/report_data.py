@@ -34,6 +34,8 @@ AUDIT_EVENT_KINDS = (
     "instrument_lost",
     "instrument_back",
     "session_resumed",
+    "daemon_stopped",
+    "daemon_restarted",
     "note",
 )
 INSTRUMENT_EVENT = "instrument_identified"

@@ -870,6 +870,17 @@ class Store:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
 
+    def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
+        """Return the newest event of one of ``kinds``, in any session or none; None if none."""
+        marks = ", ".join("?" for _ in kinds)
+        found = self._select(
+            EventRow,
+            "events",
+            f"id = (SELECT max(id) FROM events WHERE kind IN ({marks}))",
+            tuple(kinds),
+        )
+        return found[0] if found else None
+
     def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
         """Return the session's events newer than ``event_id``, oldest first."""
         return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))

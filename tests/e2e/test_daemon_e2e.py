@@ -167,6 +167,50 @@ async def test_kill_9_mid_set_loses_no_committed_reading_and_the_session_resumes
         assert on_disk <= {r.id for r in store.readings(session_id)}
 
 
+async def test_the_audit_tells_a_clean_stop_from_a_crash(daemon, simulator, metadata):
+    # A SIGTERM is recorded as daemon_stopped with its reason; each start says how the previous
+    # run ended: "stopped cleanly" after a daemon_stopped, "crashed" after a kill -9.
+    client = await daemon.connect()
+    snapshot = await AutoOperator(client, bench_environment(simulator)).start(metadata)
+    await client.close()
+    session_id = snapshot["session"]["id"]
+    first_pid = daemon.pid
+    daemon.stop()  # SIGTERM
+    daemon.restart()
+    second_pid = daemon.pid
+    daemon.kill9()
+    daemon.restart()
+    with stored(daemon.db) as store:
+        lifecycle = [
+            (e.kind, e.detail())
+            for e in store.events(session_id)
+            if e.kind in ("daemon_stopped", "daemon_restarted")
+        ]
+        (started,) = [e.detail() for e in store.events(None) if e.kind == "daemon_started"]
+    assert started["pid"] == first_pid
+    assert lifecycle == [
+        ("daemon_stopped", {"pid": first_pid, "reason": "SIGTERM"}),
+        (
+            "daemon_restarted",
+            {
+                "pid": second_pid,
+                "previous_run": "stopped cleanly",
+                "previous_stop": "SIGTERM",
+                "previous_pid": first_pid,
+            },
+        ),
+        (
+            "daemon_restarted",
+            {
+                "pid": daemon.pid,
+                "previous_run": "crashed",
+                "previous_stop": None,
+                "previous_pid": second_pid,
+            },
+        ),
+    ]
+
+
 async def test_the_instrument_disconnected_mid_set_then_back(daemon, simulator, metadata):
     client = await daemon.connect()
     operator = AutoOperator(client, bench_environment(simulator))
