@@ -870,6 +870,18 @@ class Store:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
 
+    def chain_places(self, table: str, session_id: int) -> dict[int, int]:
+        """Return row id -> place in the session's chain (``chain_seq``) for the session's rows
+        of the chained ``table``: the order in which the session's rows happened, across
+        tables, whatever the wall clock said."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        with self._lock:
+            rows = self.db.execute(
+                f"SELECT id, chain_seq FROM {table} WHERE session_id = ?", (session_id,)
+            ).fetchall()
+        return {int(row_id): int(seq) for row_id, seq in rows}
+
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
         """Return the newest event of one of ``kinds``, in any session or none; None if none."""
         marks = ", ".join("?" for _ in kinds)
