@@ -640,7 +640,8 @@ class Daemon:
         if method == protocol.Method.STATUS:
             return self.snapshot()
         try:
-            self._perform(method, params, connection.actor)
+            with self.store.on_behalf_of(connection.account):
+                self._perform(method, params, connection.actor)
         finally:
             await self.after_change()  # a refused request may still have recorded something
         return self.snapshot()

@@ -331,6 +331,7 @@ class Store:
         self._pending_lock = threading.Lock()
         self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
         self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
+        self._account: str | None = None  # the Unix account a client's request comes from
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -601,7 +602,21 @@ class Store:
             (key, seq, digest),
         )
 
+    @contextmanager
+    def on_behalf_of(self, account: str | None) -> Iterator[None]:
+        """Within the block, record ``account`` (the Unix account of the client whose request
+        is being carried out, from the socket's peer credentials) as ``account`` in the detail
+        of every event written, beside the operator name the client claims (``actor``)."""
+        with self._lock:
+            previous, self._account = self._account, account
+            try:
+                yield
+            finally:
+                self._account = previous
+
     def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
+        if self._account is not None and isinstance(detail, dict) and "account" not in detail:
+            detail = {**detail, "account": self._account}
         return self._append(
             "events",
             {
