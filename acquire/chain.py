@@ -30,34 +30,22 @@ from typing import Any
 #: The hash before a session's first row.
 GENESIS = "0" * 64
 
+
+def _names(text: str) -> tuple[str, ...]:
+    return tuple(text.split())
+
+
 #: The columns each chained table hashes, in this order (``chain_seq`` and ``chain_hash`` apart).
 COLUMNS: dict[str, tuple[str, ...]] = {
-    "readings": (
-        "id",
-        "session_id",
-        "set_id",
-        "seq",
-        "t_s",
-        "charge_nC",
-        "capture",
-        "settling",
-        "status",
-        "traffic_id",
-        "recorded_at",
+    "readings": _names(
+        "id session_id set_id seq t_s charge_nC capture settling status traffic_id recorded_at"
     ),
-    "environment": (
-        "id",
-        "session_id",
-        "recorded_at",
-        "temperature_C",
-        "pressure_kPa",
-        "pressure_entered",
-        "pressure_unit",
-        "humidity_pct",
-        "source",
+    "environment": _names(
+        "id session_id recorded_at temperature_C pressure_kPa pressure_entered pressure_unit "
+        "humidity_pct source"
     ),
-    "events": ("id", "session_id", "recorded_at", "actor", "kind", "detail_json"),
-    "traffic": ("id", "session_id", "t_s", "recorded_at", "direction", "line"),
+    "events": _names("id session_id recorded_at actor kind detail_json"),
+    "traffic": _names("id session_id t_s recorded_at direction line"),
 }
 #: Columns stored as REAL: hashed as floats, so 1 and 1.0 hash the same as SQLite stores them.
 _REAL = {

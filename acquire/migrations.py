@@ -9,9 +9,12 @@ Migrations only ever move forward. A database written by a newer chargebook (a v
 ones known here) is refused rather than guessed at.
 
 Append-only tables (readings, environment, events, traffic) carry ``BEFORE UPDATE`` and
-``BEFORE DELETE`` triggers that abort the statement. Sessions and reading sets may change their
-status (the store records each change as an event) but never their recorded facts, and are never
-deleted.
+``BEFORE DELETE`` triggers that abort the statement, and (from ``chain_appended_rows``)
+``BEFORE INSERT`` triggers that refuse a row whose id exists (``INSERT OR REPLACE`` would
+otherwise delete it without a DELETE trigger firing) or that lacks its place in the hash chain.
+Sessions and reading sets may change their status (the store records each change as an event,
+and a trigger refuses a change that is not preceded by its event) but never their recorded
+facts, and are never deleted.
 """
 
 from __future__ import annotations

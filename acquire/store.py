@@ -885,6 +885,11 @@ class Store:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
 
+    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+        """Return the rows of one query, run under the store's lock (for ``verify``)."""
+        with self._lock:
+            return self.db.execute(sql, params).fetchall()
+
     def chain_places(self, table: str, session_id: int) -> dict[int, int]:
         """Return row id -> place in the session's chain (``chain_seq``) for the session's rows
         of the chained ``table``: the order in which the session's rows happened, across

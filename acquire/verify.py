@@ -93,6 +93,12 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
     return ChainReport(session_id, len(rows), head, tuple(problems))
 
 
+def file_damage(store: Store) -> list[str]:
+    """Return what SQLite's quick integrity check finds wrong with the file (empty: intact)."""
+    found = [str(row[0]) for row in store.read("PRAGMA quick_check(20)")]
+    return [] if found == ["ok"] else found
+
+
 def verify_all(store: Store) -> list[ChainReport]:
     """Return the check of every session's chain, oldest first, then of the rows outside."""
     reports = [verify_session(store, session.id) for session in store.sessions()]
@@ -107,24 +113,23 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
     no place in it."""
     rows: list[Chained] = []
     problems: list[Problem] = []
-    with store._lock:
-        for table, columns in chain.COLUMNS.items():
-            sql = (
-                f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-                "WHERE session_id IS ? ORDER BY id"
-            )
-            for *values, seq, digest in store.db.execute(sql, (session_id,)).fetchall():
-                if seq is None or digest is None:
-                    problems.append(
-                        Problem(
-                            table,
-                            values[0],
-                            None,
-                            "has no place in the chain: it was written by another program",
-                        )
+    for table, columns in chain.COLUMNS.items():
+        sql = (
+            f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
+            "WHERE session_id IS ? ORDER BY id"
+        )
+        for *values, seq, digest in store.read(sql, (session_id,)):
+            if seq is None or digest is None:
+                problems.append(
+                    Problem(
+                        table,
+                        values[0],
+                        None,
+                        "has no place in the chain: it was written by another program",
                     )
-                    continue
-                rows.append((table, tuple(values), int(seq), str(digest)))
+                )
+                continue
+            rows.append((table, tuple(values), int(seq), str(digest)))
     rows.sort(key=lambda row: row[2])
     return rows, problems
 
@@ -167,11 +172,10 @@ def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
 
 def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> list[Problem]:
     """Return a problem when the chain ends before the end the store recorded."""
-    with store._lock:
-        found = store.db.execute(
-            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
-            (chain.chain_key(session_id),),
-        ).fetchone()
+    heads = store.read(
+        "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (chain.chain_key(session_id),)
+    )
+    found = heads[0] if heads else None
     last_seq, last_hash = (rows[-1][2], rows[-1][3]) if rows else (0, chain.GENESIS)
     if found is None:
         if rows:
@@ -211,27 +215,23 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
             session_status = detail
         elif isinstance(detail.get("set_id"), int):
             set_status[detail["set_id"]] = detail
-    problems: list[Problem] = []
     session = store.session(session_id)
-    problems += _status_differs(
-        "sessions",
-        session.id,
-        session_status,
-        (session.status, session.reason, session.closed_at),
-        "closed_at",
-    )
-    for reading_set in store.sets(session_id):
-        recorded = set_status.get(
-            reading_set.id, {"to": "collecting", "reason": None, "ended_at": None}
-        )
-        problems += _status_differs(
-            "reading_sets",
-            reading_set.id,
-            recorded,
-            (reading_set.status, reading_set.reason, reading_set.ended_at),
-            "ended_at",
-        )
+    checks = [
+        ("sessions", session.id, session_status, session, "closed_at"),
+        *(
+            ("reading_sets", row.id, set_status.get(row.id, _NEVER_CHANGED), row, "ended_at")
+            for row in store.sets(session_id)
+        ),
+    ]
+    problems: list[Problem] = []
+    for table, row_id, recorded, row, end_key in checks:
+        now = (row.status, row.reason, getattr(row, end_key))
+        problems += _status_differs(table, row_id, recorded, now, end_key)
     return problems
+
+
+#: What a set's status, reason and end time are before its first status event.
+_NEVER_CHANGED = {"to": "collecting", "reason": None, "ended_at": None}
 
 
 def _status_differs(

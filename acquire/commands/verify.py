@@ -37,15 +37,23 @@ def _verify(store, args: argparse.Namespace) -> int:
     import json
 
     from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK
-    from chargebook.acquire.verify import verify_all, verify_session
+    from chargebook.acquire.verify import file_damage, verify_all, verify_session
 
+    damage = file_damage(store)
     one = args.session is not None
     reports = [verify_session(store, args.session)] if one else verify_all(store)
-    verified = all(report.verified for report in reports)
+    verified = not damage and all(report.verified for report in reports)
     if args.json:
-        data = {"verified": verified, "chains": [report.to_dict() for report in reports]}
+        data = {
+            "verified": verified,
+            "file_damage": damage,
+            "chains": [report.to_dict() for report in reports],
+        }
         print(json.dumps(data, indent=2))
     else:
+        if damage:
+            print("the file is damaged (SQLite's quick integrity check):")
+            print("\n".join(f"  {line}" for line in damage))
         for report in reports:
             print(report.summary())
         print("the record verifies" if verified else "THE RECORD DOES NOT VERIFY: see above")

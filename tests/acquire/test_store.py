@@ -300,7 +300,7 @@ def test_a_final_session_status_cannot_change(store: Store) -> None:
     assert store.session(session_id).status == "finished"
     assert store.events(session_id) == events_before
     # The database itself refuses too, whoever writes to it.
-    with pytest.raises(sqlite3.IntegrityError, match="final|must follow its session_status"):
+    with pytest.raises(sqlite3.IntegrityError, match=r"final|must follow its session_status"):
         store.db.execute("UPDATE sessions SET status = 'open' WHERE id = ?", (session_id,))
 
 

@@ -235,3 +235,12 @@ def test_chain_canonical_bytes_treat_a_whole_number_real_as_a_float() -> None:
     assert chain.canonical("traffic", (1, 1, 1, "x", "rx", b"1")) == chain.canonical(
         "traffic", (1, 1, 1.0, "x", "rx", b"1")
     )
+
+
+def test_verify_says_a_damaged_file_does_not_verify(station: Path, capsys) -> None:
+    with station.open("r+b") as file:  # scribble over the second page, a table's b-tree
+        file.seek(4096 + 8)
+        file.write(b"\x07" * 3000)
+    assert main(["verify", "--db", str(station)]) == EXIT_FAILURE
+    out = capsys.readouterr().out
+    assert "the file is damaged" in out and "THE RECORD DOES NOT VERIFY" in out

@@ -205,6 +205,15 @@ def replay(db: Path, session_id: int, *options: str) -> subprocess.CompletedProc
     return subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
 
 
+def replayed_exactly(db: Path, session_id: int) -> dict[str, Any]:
+    """Replay ``session_id`` at speed 0, check that it says it reproduced, return its report."""
+    done = replay(db, session_id, "--speed", "0", "--json")
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["reproduced"] is True and report["differences"] == []
+    return report
+
+
 def readings_by_set(store: Store, session_id: int) -> list[tuple[Any, ...]]:
     """Return every reading as (step, attempt, set status, seq, charge nC, settling, capture,
     time)."""
@@ -276,10 +285,7 @@ SESSION_CHECKS = {
 def test_every_recorded_session_replays_exactly(station: Station, which: str):
     db = copy_of(station, f"exact-{which}.sqlite")
     original_id = getattr(station, which)
-    done = replay(db, original_id, "--speed", "0", "--json")
-    assert done.returncode == 0, done.stderr
-    report = json.loads(done.stdout)
-    assert report["reproduced"] is True and report["differences"] == []
+    report = replayed_exactly(db, original_id)
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         original, replayed = store.session(original_id), store.session(replay_id)
@@ -339,10 +345,7 @@ def test_a_session_whose_clock_stepped_back_still_replays_exactly(station: Stati
     db = copy_of(station, f"stepped-{which}.sqlite")
     original_id = getattr(station, which)
     step_the_clock_back(db, original_id, 5.0)
-    done = replay(db, original_id, "--speed", "0", "--json")
-    assert done.returncode == 0, done.stderr
-    report = json.loads(done.stdout)
-    assert report["reproduced"] is True and report["differences"] == []
+    report = replayed_exactly(db, original_id)
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         assert readings_by_set(store, replay_id) == readings_by_set(store, original_id)
