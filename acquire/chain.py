@@ -1,10 +1,12 @@
 """The hash chain that makes a changed record show: one chain per session over its appended rows.
 
 Every row appended to readings, environment, events and traffic carries ``chain_seq``, its place
-in its session's sequence of appended rows (1, 2, 3, ... across the four tables, in the order the
-rows were written; status changes of sessions and sets are events, so they are in it too), and
+in its session's sequence of rows (1, 2, 3, ... across the tables, in the order the rows were
+written; status changes of sessions and sets are events, so they are in it too), and
 ``chain_hash``, the SHA-256 of the previous row's hash and this row's canonical bytes
-(:func:`link`). Rows outside any session (``session_id`` NULL) form a chain of their own.
+(:func:`link`). The session's own row and its reading sets are in the chain too, by their fixed
+facts only (metadata, plan, bias, purpose ...: what may never change), since their status may.
+Rows outside any session (``session_id`` NULL) form a chain of their own.
 
 Changing a stored value, deleting a row or inserting one in the middle breaks the chain at that
 row, and :mod:`chargebook.acquire.verify` says which row of which table it was. The chain carries
@@ -35,8 +37,13 @@ def _names(text: str) -> tuple[str, ...]:
     return tuple(text.split())
 
 
-#: The columns each chained table hashes, in this order (``chain_seq`` and ``chain_hash`` apart).
+#: The columns each chained table hashes, in this order (``chain_seq`` and ``chain_hash`` apart):
+#: every column of the append-only tables, the fixed facts of sessions and reading sets.
 COLUMNS: dict[str, tuple[str, ...]] = {
+    "sessions": _names("id created_at metadata_json plan_json convention beam replay_of"),
+    "reading_sets": _names(
+        "id session_id step_index step_key purpose polarity bias_V attempt started_at"
+    ),
     "readings": _names(
         "id session_id set_id seq t_s charge_nC capture settling status traffic_id recorded_at"
     ),
@@ -44,11 +51,13 @@ COLUMNS: dict[str, tuple[str, ...]] = {
         "id session_id recorded_at temperature_C pressure_kPa pressure_entered pressure_unit "
         "humidity_pct source"
     ),
-    "events": _names("id session_id recorded_at actor kind detail_json"),
+    "events": _names("id session_id recorded_at actor kind detail_json account"),
     "traffic": _names("id session_id t_s recorded_at direction line"),
 }
 #: Columns stored as REAL: hashed as floats, so 1 and 1.0 hash the same as SQLite stores them.
 _REAL = {
+    "sessions": (),
+    "reading_sets": ("bias_V",),
     "readings": ("t_s", "charge_nC"),
     "environment": ("temperature_C", "pressure_kPa", "pressure_entered", "humidity_pct"),
     "events": (),
@@ -82,6 +91,13 @@ def link(previous_hash: str, seq: int, table: str, values: Sequence[Any]) -> str
     digest = hashlib.sha256(f"{previous_hash}:{seq}:".encode())
     digest.update(canonical(table, values))
     return digest.hexdigest()
+
+
+def owner(table: str, values: Sequence[Any]) -> int | None:
+    """Return the session a chained row belongs to (its own id for a session row)."""
+    if table == "sessions":
+        return values[0]
+    return values[1]  # session_id is the second column of every other chained table
 
 
 def chain_key(session_id: int | None) -> int:

@@ -218,6 +218,19 @@ def _chain_triggers(table: str) -> str:
     """
 
 
+def _refuse_chain_change_trigger(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_chain_change BEFORE UPDATE OF chain_seq, chain_hash ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: the chain place and hash of a row cannot change');
+    END;
+    """
+
+
+#: The stamp that orders the rows of a table when old files are chained (else recorded_at).
+_STAMP_COLUMNS = {"sessions": "created_at", "reading_sets": "started_at"}
+
+
 def _last_event_is(session: str, kind: str, matches: str) -> str:
     """Return SQL true when the newest event of ``session`` is a ``kind`` event whose detail
     ``matches`` (conditions on ``detail_json``)."""
@@ -278,24 +291,25 @@ def _chain_appended_rows(db: Database) -> None:
     Rows already recorded are chained in the order of their stamps (then table, then id), the
     order replay used for them, so that old files verify and replay as before.
     """
-    for table in APPEND_ONLY_TABLES:
+    db.execute("ALTER TABLE events ADD COLUMN account TEXT")  # the client's Unix account
+    for table in chain.CHAINED_TABLES:
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_seq INTEGER")
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_hash TEXT")
+    for table in APPEND_ONLY_TABLES:
         db.execute(f"DROP TRIGGER {table}_refuse_update")
     db.execute(
         "CREATE TABLE chain_heads ("
         "session_key INTEGER PRIMARY KEY, seq INTEGER NOT NULL, hash TEXT NOT NULL)"
     )
-    rank = {
-        table: index for index, table in enumerate(("traffic", "readings", "environment", "events"))
-    }
+    order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
+    rank = {table: index for index, table in enumerate(order)}
     rows: list[tuple[int, str, int, str, tuple]] = []
-    for table in APPEND_ONLY_TABLES:
-        columns = chain.COLUMNS[table]
-        for values in db.execute(f"SELECT {', '.join(columns)} FROM {table}").fetchall():
-            key = chain.chain_key(values[columns.index("session_id")])
-            stamp = values[columns.index("recorded_at")]
-            rows.append((key, stamp, rank[table], table, values))
+    for table, columns in chain.COLUMNS.items():
+        stamped = _STAMP_COLUMNS.get(table, "recorded_at")
+        sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"
+        for *values, stamp in db.execute(sql).fetchall():
+            key = chain.chain_key(chain.owner(table, values))
+            rows.append((key, stamp, rank[table], table, tuple(values)))
     heads: dict[int, tuple[int, str]] = {}
     for key, _stamp, _rank, table, values in sorted(
         rows, key=lambda r: (r[0], r[1], r[2], r[4][0])
@@ -312,7 +326,11 @@ def _chain_appended_rows(db: Database) -> None:
         [(key, seq, digest) for key, (seq, digest) in heads.items()],
     )
     for table in APPEND_ONLY_TABLES:
-        _run_triggers(db, _refuse_update_trigger(table) + _chain_triggers(table))
+        _run_triggers(db, _refuse_update_trigger(table))
+    for table in chain.CHAINED_TABLES:
+        _run_triggers(db, _chain_triggers(table))
+    for table in ("sessions", "reading_sets"):
+        _run_triggers(db, _refuse_chain_change_trigger(table))
     _run_triggers(db, _STATUS_AUDIT_TRIGGERS)
 
 

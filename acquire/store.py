@@ -249,6 +249,7 @@ class EventRow:
     actor: str
     kind: str
     detail_json: str
+    account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
         return json.loads(self.detail_json)
@@ -519,14 +520,6 @@ class Store:
             return utc_stamp_now()
         return self._now().astimezone(UTC).isoformat(timespec="microseconds")
 
-    def _insert(self, table: str, row: dict[str, Any]) -> int:
-        columns = ", ".join(row)
-        marks = ", ".join("?" for _ in row)
-        cursor = self.db.execute(
-            f"INSERT INTO {table} ({columns}) VALUES ({marks})", tuple(row.values())
-        )
-        return int(cursor.lastrowid)
-
     def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
         return [cls(*row) for row in self._rows(cls, table, where, params)]
 
@@ -543,9 +536,9 @@ class Store:
         return found[0]
 
     def append_row(self, table: str, row: dict[str, Any]) -> int:
-        """Append one row, as given (the columns of ``chain.COLUMNS[table]`` but ``id``), to a
-        chained table and commit it; return its id. For copying a recorded session (a replay):
-        the recording methods above check their values, this one does not."""
+        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
+        and commit it; return its id. For copying a recorded session (a replay): the recording
+        methods above check their values, this one does not."""
         if table not in chain.CHAINED_TABLES:
             raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
         with self.atomic():
@@ -555,14 +548,20 @@ class Store:
         """Append one row to a chained table, linked to its session's chain; return its id.
 
         Call inside :meth:`atomic`. The id is given explicitly (the next one), since the hash
-        covers it.
+        covers it; a session row starts its own chain. Columns of ``row`` that the chain does
+        not cover (a status) are stored too; those it covers and ``row`` lacks are NULL.
         """
         row_id = self._next_id(table)
-        values = tuple(row_id if column == "id" else row[column] for column in chain.COLUMNS[table])
-        key = chain.chain_key(row["session_id"])
+        row = {"id": row_id, **row}
+        values = tuple(row.get(column) for column in chain.COLUMNS[table])
+        key = chain.chain_key(chain.owner(table, values))
         seq, previous = self._chain_head(key)
         digest = chain.link(previous, seq + 1, table, values)
-        self.db.execute(_INSERT_CHAINED[table], (*values, seq + 1, digest))
+        columns = [*row, "chain_seq", "chain_hash"]
+        self.db.execute(
+            f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join('?' * len(columns))})",
+            (*row.values(), seq + 1, digest),
+        )
         self._set_chain_head(key, seq + 1, digest)
         return row_id
 
@@ -605,8 +604,8 @@ class Store:
     @contextmanager
     def on_behalf_of(self, account: str | None) -> Iterator[None]:
         """Within the block, record ``account`` (the Unix account of the client whose request
-        is being carried out, from the socket's peer credentials) as ``account`` in the detail
-        of every event written, beside the operator name the client claims (``actor``)."""
+        is being carried out, from the socket's peer credentials) in the ``account`` column of
+        every event written, beside the operator name the client claims (``actor``)."""
         with self._lock:
             previous, self._account = self._account, account
             try:
@@ -615,8 +614,6 @@ class Store:
                 self._account = previous
 
     def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        if self._account is not None and isinstance(detail, dict) and "account" not in detail:
-            detail = {**detail, "account": self._account}
         return self._append(
             "events",
             {
@@ -625,6 +622,7 @@ class Store:
                 "actor": _require_text("actor", actor),
                 "kind": _require_text("kind", kind),
                 "detail_json": _to_json("detail", detail),
+                "account": self._account,
             },
         )
 
@@ -652,7 +650,7 @@ class Store:
         with self.atomic():
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
-            session_id = self._insert("sessions", row)
+            session_id = self._append("sessions", row)
             self._event(
                 session_id,
                 actor,
@@ -734,7 +732,7 @@ class Store:
         }
         with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("reading_sets", row)
+            return self._append("reading_sets", row)
 
     def set_set_status(
         self, set_id: int, status: str, reason: str | None = None, actor: str = DAEMON_ACTOR
@@ -1000,9 +998,8 @@ class Store:
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_CHAINED = {
-    table: f"INSERT INTO {table} ({', '.join(columns)}, chain_seq, chain_hash) "
-    f"VALUES ({', '.join('?' for _ in columns)}, ?, ?)"
-    for table, columns in chain.COLUMNS.items()
+    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
 }
 
 

@@ -4,9 +4,10 @@
 the rows as they are now and reports every place where it does not hold: a row whose values no
 longer match its hash (changed), a place with no row (deleted), two rows at one place or a row
 with no place (inserted by another program), a chain that ends before the end the store
-recorded (the last rows deleted). It also checks that the status, reason and closing time of the
-session and of each reading set are the ones their last status event in the chain gave them (a
-status changed by a plain UPDATE, behind the store's back).
+recorded (the last rows deleted). The session's own row and its reading sets are checked by
+their fixed facts (metadata, plan, bias ...). It also checks that the status, reason and
+closing time of the session and of each reading set are the ones their last status event in
+the chain gave them (a status changed by a plain UPDATE, behind the store's back).
 
 Read-only: nothing here writes.
 """
@@ -114,9 +115,10 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
     rows: list[Chained] = []
     problems: list[Problem] = []
     for table, columns in chain.COLUMNS.items():
+        owner = "id" if table == "sessions" else "session_id"
         sql = (
             f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-            "WHERE session_id IS ? ORDER BY id"
+            f"WHERE {owner} IS ? ORDER BY id"
         )
         for *values, seq, digest in store.read(sql, (session_id,)):
             if seq is None or digest is None:

@@ -13,13 +13,13 @@ import io
 import json
 import os
 import shutil
-import sqlite3
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK, main
+from chargebook.acquire.store import Store
 from recorded_session import recorded_station
 
 NOBODY = 65534
@@ -126,14 +126,10 @@ def test_a_session_still_in_the_wal_is_read_from_an_unwritable_copy(shared_folde
     # After a kill -9 the last commits live only in the -wal file: the snapshot must carry it.
     live = _station(shared_folder / "live")
     _warm_up(live, ["sessions"])
-    writer = sqlite3.connect(live)
-    writer.execute("PRAGMA wal_autocheckpoint = 0")
-    (before,) = writer.execute("SELECT count(*) FROM sessions").fetchone()
-    writer.execute(  # a second session, committed into the -wal only
-        "INSERT INTO sessions (created_at, status, metadata_json, plan_json, convention, beam) "
-        "SELECT created_at, 'aborted', metadata_json, plan_json, convention, beam FROM sessions"
-    )
-    writer.commit()
+    writer = Store.open(live)
+    writer.db.execute("PRAGMA wal_autocheckpoint = 0")
+    before = len(writer.sessions())
+    writer.create_session({}, {}, "trs398", "6 MV")  # committed into the -wal only
     archive = shared_folder / "archive"
     archive.mkdir()
     for name in (live.name, live.name + "-wal"):  # the files as a crash leaves them

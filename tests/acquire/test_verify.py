@@ -49,26 +49,32 @@ def test_a_recorded_station_verifies(station: Path) -> None:
         reports = verify_all(store)
         rows = sum(
             store.db.execute(f"SELECT count(*) FROM {t} WHERE session_id = 1").fetchone()[0]
-            for t in APPEND_ONLY
+            for t in (*APPEND_ONLY, "reading_sets")
         )
     assert all(report.verified for report in reports)
-    assert reports[0].rows == rows and rows > 20
+    assert reports[0].rows == rows + 1 and rows > 20  # and the session's own row
 
 
 def test_the_chain_is_sha256_of_the_previous_hash_and_the_row(station: Path) -> None:
     # Recomputed here with hashlib directly, not with the chain module: the documented recipe.
     conn = sqlite3.connect(station)
     first = conn.execute(
-        "SELECT id, session_id, recorded_at, actor, kind, detail_json, chain_hash FROM events "
-        "WHERE session_id = 1 AND chain_seq = 1"
+        "SELECT id, created_at, metadata_json, plan_json, convention, beam, replay_of, "
+        "chain_hash FROM sessions WHERE id = 1 AND chain_seq = 1"
+    ).fetchone()
+    second = conn.execute(
+        "SELECT id, session_id, recorded_at, actor, kind, detail_json, account, chain_hash "
+        "FROM events WHERE session_id = 1 AND chain_seq = 2"
     ).fetchone()
     conn.close()
-    canonical = json.dumps(["events", *first[:6]], ensure_ascii=False, separators=(",", ":"))
+    canonical = json.dumps(["sessions", *first[:7]], ensure_ascii=False, separators=(",", ":"))
     expected = hashlib.sha256(f"{'0' * 64}:1:{canonical}".encode()).hexdigest()
-    assert first[6] == expected
+    assert first[7] == expected
+    canonical = json.dumps(["events", *second[:7]], ensure_ascii=False, separators=(",", ":"))
+    assert second[7] == hashlib.sha256(f"{expected}:2:{canonical}".encode()).hexdigest()
 
 
-@pytest.mark.parametrize("table", APPEND_ONLY)
+@pytest.mark.parametrize("table", (*APPEND_ONLY, "sessions", "reading_sets"))
 def test_insert_or_replace_is_refused_on_every_append_only_table(station: Path, table: str) -> None:
     conn = sqlite3.connect(station)
     columns = [row[1] for row in conn.execute(f"PRAGMA table_info({table})")]
@@ -111,6 +117,27 @@ def test_a_changed_reading_is_named_by_table_and_row(station: Path) -> None:
     )
     (problem,) = _problems(station)
     assert problem[:2] == ("readings", 5) and "changed after it was written" in problem[2]
+
+
+def test_a_changed_calibration_or_bias_is_named_though_those_tables_are_not_append_only(
+    station: Path,
+) -> None:
+    # A session's metadata (N_D,w, k_Q ...) and a set's bias change the dose as surely as a
+    # reading; their status may change, their facts may not.
+    _tamper(
+        station,
+        "DROP TRIGGER sessions_refuse_fact_change",
+        "DROP TRIGGER reading_sets_refuse_fact_change",
+        "UPDATE sessions SET metadata_json = replace(metadata_json, '\"operator\"', "
+        "'\"operator_was\"') WHERE id = 1",
+        "UPDATE reading_sets SET bias_V = bias_V / 2 WHERE id = 4",
+    )
+    problems = _problems(station)
+    assert [(table, row_id) for table, row_id, _ in problems] == [
+        ("sessions", 1),
+        ("reading_sets", 4),
+    ]
+    assert all("changed after it was written" in text for _, _, text in problems)
 
 
 def test_a_deleted_event_and_deleted_last_rows_are_named(station: Path) -> None:
@@ -206,11 +233,11 @@ def test_an_old_file_is_chained_in_stamp_order_by_the_migration_and_verifies(
             "SELECT 'events', id, chain_seq FROM events UNION ALL "
             "SELECT 'traffic', id, chain_seq FROM traffic ORDER BY 3"
         ).fetchall()
-        assert order == [("events", 1, 1), ("traffic", 1, 2), ("events", 2, 3)]
+        assert order == [("events", 1, 2), ("traffic", 1, 3), ("events", 2, 4)]  # session: 1
         assert verify_session(store, 1).verified
         store.add_event(1, "R. Okafor", "note", {"text": "after the migration"})
         report = verify_session(store, 1)
-    assert report.verified and report.rows == 4
+    assert report.verified and report.rows == 5
 
 
 def test_a_line_kept_before_an_event_comes_before_it_in_the_chain(tmp_path: Path) -> None:
@@ -227,7 +254,7 @@ def test_a_line_kept_before_an_event_comes_before_it_in_the_chain(tmp_path: Path
             "SELECT 'events', id, chain_seq FROM events WHERE id = ? ORDER BY 3",
             (event_id,),
         ).fetchall()
-        assert rows == [("traffic", 1.0, 2), ("events", event_id, 3), ("traffic", 2.0, 4)]
+        assert rows == [("traffic", 1.0, 3), ("events", event_id, 4), ("traffic", 2.0, 5)]
         assert verify_session(store, session_id).verified
 
 
