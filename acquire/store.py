@@ -575,7 +575,7 @@ class Store:
             key = chain.chain_key(line[0])
             seq, previous = heads[key] if key in heads else self._chain_head(key)
             values = (next_id, *line)
-            digest = chain.link(previous, seq + 1, "traffic", values)
+            digest = chain.link_traffic(previous, seq + 1, values)
             rows.append((*values, seq + 1, digest))
             heads[key] = (seq + 1, digest)
             next_id += 1

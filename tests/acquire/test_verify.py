@@ -264,6 +264,21 @@ def test_chain_canonical_bytes_treat_a_whole_number_real_as_a_float() -> None:
     )
 
 
+@pytest.mark.parametrize(
+    "values",
+    [
+        (12345, 3, 1234.567891, "2026-12-03T06:11:37.123456+00:00", "rx", b"+1.2E-08\r\n"),
+        (1, None, 1.0, "2026-12-03T06:11:37.123456+00:00", "tx", b""),
+        (2, 7, 1e-300, "\u00e9", "rx", b"\x00\xff"),
+        (3, 7, 5e22, 'a"b', "rx", b"x"),
+        (4, 7, -0.0, "a\\b", "rx", b"x"),
+        (5, 7, 0.1, "a\x1bb", "rx", b"x"),
+    ],
+)
+def test_the_fast_traffic_link_hashes_the_same_bytes_as_the_general_one(values: tuple) -> None:
+    assert chain.link_traffic("f" * 64, 9, values) == chain.link("f" * 64, 9, "traffic", values)
+
+
 def test_verify_says_a_damaged_file_does_not_verify(station: Path, capsys) -> None:
     with station.open("r+b") as file:  # scribble over the second page, a table's b-tree
         file.seek(4096 + 8)
