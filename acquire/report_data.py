@@ -120,8 +120,11 @@ def instrument_identity(
     return found[-1].detail() if found else None
 
 
-def load_record(store: Store, session_id: int) -> SessionRecord:
+def load_record(store: Store, session_id: int, *, check_chain: bool = True) -> SessionRecord:
     """Return the session's stored record with results recomputed; NotFound if it is missing.
+
+    ``integrity`` is the check of the session's hash chain (``verify``), unless ``check_chain``
+    is False (``history``, which loads every session of a beam: `chargebook verify` checks all).
 
     A session whose stored metadata or readings cannot be evaluated still loads: its
     ``evaluation`` is None and ``results_error`` says why, in the words of the InputError.
@@ -156,7 +159,7 @@ def load_record(store: Store, session_id: int) -> SessionRecord:
         evaluation=evaluation,
         results_error=error,
         instrument=instrument_identity(store, session, events),
-        integrity=verify_session(store, session_id),
+        integrity=verify_session(store, session_id) if check_chain else None,
     )
 
 
