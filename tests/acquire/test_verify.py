@@ -286,3 +286,16 @@ def test_verify_says_a_damaged_file_does_not_verify(station: Path, capsys) -> No
     assert main(["verify", "--db", str(station)]) == EXIT_FAILURE
     out = capsys.readouterr().out
     assert "the file is damaged" in out and "THE RECORD DOES NOT VERIFY" in out
+
+
+def test_kept_lines_survive_a_transaction_that_fails_and_go_with_the_next(tmp_path: Path) -> None:
+    with Store.open(tmp_path / "station.sqlite") as store:
+        session_id = store.create_session({}, {}, "trs398", "6 MV")
+        store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"))
+        with pytest.raises(KeyError):  # NotFound, after the kept line was written: rolled back
+            store.add_event(999, "R. Okafor", "note", {})
+        assert store.traffic_count(session_id) == 0
+        store.add_event(session_id, "R. Okafor", "note", {})
+        assert [row.line for row in store.traffic(session_id)] == [b"20.1\n"]
+        assert store.commit_traffic() == 0
+        assert verify_session(store, session_id).verified
