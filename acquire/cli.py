@@ -31,6 +31,7 @@ COMMANDS: dict[str, str] = {
     "export": "export",
     "replay": "replay",
     "history": "history",
+    "verify": "verify",
     "completion": "completion",
 }
 

@@ -22,6 +22,8 @@ JSON: one object with the keys of :data:`JSON_KEYS`:
   undecodable bytes escaped);
 * ``results``: ``Evaluation.to_dict()`` recomputed from the raw values, or null;
   ``results_error``: why there are no results, or null;
+* ``integrity``: the check of the session's hash chain (``verified``, ``rows``, ``head``,
+  ``problems``, each naming the table and row that no longer matches), as ``chargebook verify``;
 * ``caution``: the safety caution.
 
 HTML: see ``report_html``.
@@ -57,6 +59,7 @@ JSON_KEYS = (
     "traffic_lines",
     "results",
     "results_error",
+    "integrity",
     "caution",
 )
 CSV_COLUMNS = (
@@ -179,6 +182,7 @@ def to_json_data(
         "traffic_lines": record.traffic_lines,
         "results": record.evaluation.to_dict() if record.evaluation else None,
         "results_error": record.results_error,
+        "integrity": record.integrity.to_dict() if record.integrity else None,
         "caution": CAUTION,
     }
     if include_traffic and store is not None:

@@ -21,6 +21,7 @@ from chargebook.acquire.live import LEAKAGE_SUBTRACTION_EVENT
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_evaluation import SessionContext, evaluate_session, stored_context
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SessionRow, SetRow, Store
+from chargebook.acquire.verify import ChainReport, verify_session
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
 
@@ -35,6 +36,8 @@ AUDIT_EVENT_KINDS = (
     "instrument_lost",
     "instrument_back",
     "session_resumed",
+    "daemon_stopped",
+    "daemon_restarted",
     "note",
     LEAKAGE_SUBTRACTION_EVENT,
 )
@@ -67,6 +70,17 @@ class SessionRecord:
     evaluation: Evaluation | None
     results_error: str | None
     instrument: dict[str, Any] | None = None
+    integrity: ChainReport | None = None  # the check of the session's hash chain
+
+    def integrity_warning(self) -> str | None:
+        """Return, when the record does not verify, the warning to put at the top; else None."""
+        if self.integrity is None or self.integrity.verified:
+            return None
+        return (
+            f"WARNING: THIS RECORD DOES NOT VERIFY. It was changed after it was written; the "
+            f"values below may not be the ones measured (`chargebook verify {self.session.id}`).\n"
+            + self.integrity.summary()
+        )
 
     @property
     def metadata(self) -> dict[str, Any]:
@@ -109,8 +123,11 @@ def instrument_identity(
     return found[-1].detail() if found else None
 
 
-def load_record(store: Store, session_id: int) -> SessionRecord:
+def load_record(store: Store, session_id: int, *, check_chain: bool = True) -> SessionRecord:
     """Return the session's stored record with results recomputed; NotFound if it is missing.
+
+    ``integrity`` is the check of the session's hash chain (``verify``), unless ``check_chain``
+    is False (``history``, which loads every session of a beam: `chargebook verify` checks all).
 
     A session whose stored metadata or readings cannot be evaluated still loads: its
     ``evaluation`` is None and ``results_error`` says why, in the words of the InputError.
@@ -137,6 +154,7 @@ def load_record(store: Store, session_id: int) -> SessionRecord:
         evaluation=found.evaluation,
         results_error=found.error,
         instrument=instrument_identity(store, session, events),
+        integrity=verify_session(store, session_id) if check_chain else None,
     )
 
 

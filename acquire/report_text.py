@@ -46,7 +46,11 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
         for row in table.rows:
             widths = [max(w, len(cell)) for w, cell in zip(widths, row, strict=True)]
         if width is not None:
-            widths = _fit_widths(widths, [len(h) for h in table.headers], width)
+            longest_words = [
+                max((len(word) for row in table.rows for word in row[i].split()), default=0)
+                for i in range(len(widths))
+            ]
+            widths = _fit_widths(widths, [len(h) for h in table.headers], longest_words, width)
         if width is not None and _line_width(widths) > width:
             lines += _record_lines(table, width)  # too many columns: one block per row
         else:
@@ -77,7 +81,7 @@ def _record_lines(table: Table, width: int) -> list[str]:
         if number:
             lines.append("")
         for header, cell in zip(table.headers, row, strict=True):
-            values = textwrap.wrap(cell, value_width) or [""]
+            values = textwrap.wrap(cell, value_width, break_long_words=False) or [""]
             labels = [header] + [""] * (len(values) - 1)
             lines += [
                 _row((label, value), (label_width, value_width))
@@ -86,12 +90,15 @@ def _record_lines(table: Table, width: int) -> list[str]:
     return lines
 
 
-def _fit_widths(widths: list[int], header_widths: list[int], width: int) -> list[int]:
-    """Return column widths that fit ``width``, narrowing the widest columns first."""
+def _fit_widths(
+    widths: list[int], header_widths: list[int], longest_words: list[int], width: int
+) -> list[int]:
+    """Return column widths that fit ``width``, narrowing the widest columns first, never below
+    the longest word of a column (a time or a number is never cut in two)."""
     widths = list(widths)
     while _line_width(widths) > width:
         widest = max(range(len(widths)), key=lambda i: widths[i])
-        floor = max(_NARROWEST_WRAPPED, min(header_widths[widest], 20))
+        floor = max(_NARROWEST_WRAPPED, min(header_widths[widest], 20), longest_words[widest])
         if widths[widest] <= floor:
             break  # as narrow as it may go: the line stays long rather than unreadable
         widths[widest] -= 1
@@ -101,7 +108,7 @@ def _fit_widths(widths: list[int], header_widths: list[int], width: int) -> list
 def _wrapped_row(cells: Sequence[str], widths: Sequence[int]) -> list[str]:
     """Return one row as one or more lines, each cell wrapped to its column's width."""
     columns = [
-        textwrap.wrap(cell, w, break_long_words=True) or [""] if len(cell) > w else [cell]
+        textwrap.wrap(cell, w, break_long_words=False) or [""] if len(cell) > w else [cell]
         for cell, w in zip(cells, widths, strict=True)
     ]
     height = max(len(c) for c in columns)

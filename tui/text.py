@@ -212,5 +212,5 @@ def deviation_bars(charges_nC: Iterable[float], mean_nC: float | None) -> str:
 
 
 def bar_scale_caption() -> str:
-    """Return the caption that states the bar line's scale."""
-    return f"{_BARS[0]} −{BAR_SCALE_PCT:g} % … {_BARS[-1]} +{BAR_SCALE_PCT:g} % of mean, ▲▼ beyond"
+    """Return the caption that states the bar line's scale (▲ and ▼: beyond it)."""
+    return f"{_BARS[0]} −{BAR_SCALE_PCT:g} % to {_BARS[-1]} +{BAR_SCALE_PCT:g} % of the mean"

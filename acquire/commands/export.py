@@ -39,6 +39,13 @@ def _export(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.report_data import load_record
 
     record = load_record(store, args.session)
+    warning = record.integrity_warning()
+    if warning is not None:  # in every format on stderr; json and html carry it too
+        import sys
+
+        from chargebook.acquire.report_text import printable
+
+        print(f"chargebook: {printable(warning)}", file=sys.stderr)
     if args.format == "csv":
         text = export.to_csv(record)
     elif args.format == "json":

@@ -30,7 +30,7 @@ def _show(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.export import to_json
     from chargebook.acquire.report_data import load_record
     from chargebook.acquire.report_sections import all_sections
-    from chargebook.acquire.report_text import tables_text
+    from chargebook.acquire.report_text import printable, tables_text
 
     record = load_record(store, args.session)
     if args.json:
@@ -38,6 +38,10 @@ def _show(store, args: argparse.Namespace) -> int:
     else:
         # Wrapped to the terminal (or $COLUMNS); piped to a file or grep, lines stay whole.
         columns = shutil.get_terminal_size((0, 0)).columns
+        warning = record.integrity_warning()
+        if warning is not None:
+            shown = printable(warning)
+            print((textwrap.fill(shown, columns) if columns else shown) + "\n")
         print(tables_text(all_sections(record), width=columns or None))
         print()
         print(textwrap.fill(CAUTION, columns) if columns else CAUTION)

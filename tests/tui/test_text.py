@@ -73,5 +73,5 @@ def test_two_readings_0_05_pct_apart_are_drawn_on_the_stated_scale_not_full_and_
     assert text.deviation_bars([mean * 1.002, mean * 0.998], mean) == "▲ ▼"
     # Negative charges (negative bias): a larger magnitude draws a higher bar.
     assert text.deviation_bars([-mean * 1.0005], -mean) == "▆"  # +0.05 %: 5.25 of 7 steps
-    assert "0.1 % of mean" in text.bar_scale_caption()
+    assert "+0.1 % of the mean" in text.bar_scale_caption()
     assert text.deviation_bars([1.0], None) == ""
