@@ -131,7 +131,7 @@ def _play(
     try:
         conductor.run()
     except WhatIfStop as stop:
-        stopped = str(stop)
+        stopped = _plan_words(engine) or str(stop)
     finally:
         driver.close()
     notes = [
@@ -140,6 +140,19 @@ def _play(
         for n in follower.notes
     ]
     return PipelineRun(store, session_id, stopped, notes)
+
+
+def _plan_words(engine: Any) -> str | None:
+    """Return why a what-if stopped, in words about the plan, when the recording ran out while
+    the new plan still asked for readings ("the new plan asks for 6 routine readings; ...")."""
+    step, active = engine.step, engine.active
+    if step is None or active is None or not engine.wants_samples():
+        return None
+    purpose = str(step.purpose).replace("_", " ")
+    return (
+        f"the new plan asks for {int(step.readings)} {purpose} readings at step "
+        f"{engine.step_index + 1} ({step.key}); the recording holds {active.used_count}"
+    )
 
 
 def _starting_line(profile: Any) -> str | None:

@@ -3,9 +3,13 @@
 from __future__ import annotations
 
 import json
+import shutil
 from typing import Any
 
 from chargebook.acquire.replay import ReplayReport
+from chargebook.acquire.replay_compare import Difference
+from chargebook.acquire.report_sections import Table
+from chargebook.acquire.report_text import table_text
 
 #: Longest value shown in a difference; the JSON output has every value whole.
 CELL_CHARS = 60
@@ -25,12 +29,13 @@ def replay_text(report: ReplayReport) -> str:
         lines.append(f"stopped early: {report.stopped}")
     lines.append(verdict(report))
     if comparison.differences:
-        lines.append("")
-        for difference in comparison.differences:
-            lines.append(
-                f"{difference.what}: {change_cell(difference.original, difference.replay)}"
-            )
-            lines.append(f"  why: {difference.why}")
+        columns = shutil.get_terminal_size((0, 0)).columns or None  # piped: lines stay whole
+        lines += [
+            "",
+            differences_text(
+                comparison.differences, exact_digits=not report.what_if, width=columns
+            ),
+        ]
     if report.traffic_notes:
         lines += ["", "Commands sent differently:", *(f"  {n}" for n in report.traffic_notes)]
     return "\n".join(lines)
@@ -46,6 +51,65 @@ def verdict(report: ReplayReport) -> str:
     count = len(comparison.differences)
     word = "NOT reproduced" if not report.what_if else "what differs"
     return f"{word}: {count} difference{'s' if count != 1 else ''} over {counted}"
+
+
+def differences_text(
+    differences: list[Difference], *, exact_digits: bool, width: int | None = None
+) -> str:
+    """Return the differences as a table per reason, the reason said once under its table.
+
+    A what-if shows values at display precision (6 significant digits) with the relative change
+    in %; an unchanged replay that does not reproduce shows every digit, since a difference in
+    the last bit is what it reports. Flags are said in words: added, gone.
+    """
+    by_reason: dict[str, list[Difference]] = {}
+    for difference in differences:
+        by_reason.setdefault(difference.why, []).append(difference)
+    blocks = []
+    for why, group in by_reason.items():
+        rows = tuple(
+            (d.what, *_values(d.original, d.replay, exact_digits), _relative_change(d))
+            for d in group
+        )
+        table = Table("", ("what", "original", "replay", "change"), rows)
+        blocks.append(f"{table_text(table, title=False, width=width)}\n  why: {why}")
+    return "\n\n".join(blocks)
+
+
+def _values(original: Any, replay: Any, exact_digits: bool) -> tuple[str, str]:
+    if _flags(original) and _flags(replay):
+        return _flag_words(original, replay)
+    shown = cell if exact_digits else display
+    return shown(original), shown(replay)
+
+
+def _flag_words(original: list[dict[str, Any]], replay: list[dict[str, Any]]) -> tuple[str, str]:
+    """Return (the flags only the original raised, the flags only the replay raised), in their
+    words (their code when wordless)."""
+    old = {f["code"]: f for f in original}
+    new = {f["code"]: f for f in replay}
+    gone = "; ".join(f"{old[c].get('message') or c}" for c in old if c not in new)
+    added = "; ".join(f"{new[c].get('message') or c}" for c in new if c not in old)
+    if not gone and not added:
+        return "the same flags", "in other words"
+    return gone or "—", added or "—"
+
+
+def _relative_change(difference: Difference) -> str:
+    original, replay = difference.original, difference.replay
+    numbers = all(
+        isinstance(v, int | float) and not isinstance(v, bool) for v in (original, replay)
+    )
+    if not numbers or original == 0:
+        return ""
+    return f"{100.0 * (replay / original - 1.0):+.3g} %"
+
+
+def display(value: Any) -> str:
+    """Return one value at display precision: numbers to 6 significant digits."""
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return cell(value)
 
 
 def change_cell(original: Any, replay: Any) -> str:

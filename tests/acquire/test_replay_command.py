@@ -97,21 +97,39 @@ def test_an_exact_replay_says_so_in_one_line():
     ]
 
 
-def test_a_what_if_lists_its_changes_and_each_difference_with_its_reason():
+def test_a_what_if_lists_its_changes_and_each_difference_with_its_reason(monkeypatch):
+    monkeypatch.delenv("COLUMNS", raising=False)
     change = Change("threshold relative_sd_pct", 0.2, 0.01)
     flags = Difference(
         "result flags",
-        [{"code": "reduced_drift"}],
-        [{"code": "routine_sd_high"}, {"code": "reduced_drift"}],
+        [{"code": "reduced_drift", "message": "The reduced-bias set drifts."}],
+        [
+            {"code": "routine_sd_high", "message": "The routine set's relative SD is high."},
+            {"code": "reduced_drift", "message": "The reduced-bias set drifts."},
+        ],
         "threshold relative_sd_pct 0.2 → 0.01",
     )
-    lines = replay_text(report([flags], [change])).splitlines()
+    k_pol = Difference("k_pol", 1.0067123456, 1.0070123, "threshold relative_sd_pct 0.2 → 0.01")
+    lines = replay_text(report([flags, k_pol], [change])).splitlines()
     assert lines[1] == "changed: threshold relative_sd_pct 0.2 → 0.01"
-    assert lines[2] == "what differs: 1 difference over 12 readings, 34 results"
-    assert lines[4:] == [
-        "result flags: +routine_sd_high",
-        "  why: threshold relative_sd_pct 0.2 → 0.01",
-    ]
+    assert lines[2] == "what differs: 2 differences over 12 readings, 34 results"
+    rows = [line.split("  ") for line in lines[4:]]
+    assert [cell.strip() for cell in rows[0] if cell.strip()] == [
+        "what", "original", "replay", "change"
+    ]  # fmt: skip
+    # Flags in words (the one the replay added), values at display precision with the change
+    # in %, and the reason said once under the table.
+    assert "The routine set's relative SD is high." in lines[6] and "—" in lines[6]
+    assert lines[7].split() == ["k_pol", "1.00671", "1.00701", "+0.0298", "%"]
+    assert lines[8:] == ["  why: threshold relative_sd_pct 0.2 → 0.01"]
+
+
+def test_an_unchanged_replay_that_does_not_reproduce_shows_every_digit(monkeypatch):
+    monkeypatch.delenv("COLUMNS", raising=False)
+    last_bit = Difference("M_raw_nC", 19.5974, 19.597400000000004, "the readings differ")
+    text = replay_text(report([last_bit]))
+    assert "19.5974   19.597400000000004" in text
+    assert "NOT reproduced: 1 difference" in text
 
 
 def test_numbers_in_a_difference_are_shown_to_the_last_digit():

@@ -456,9 +456,13 @@ def test_a_plan_asking_for_more_readings_than_were_taken_stops_there_and_writes_
     done = replay(db, station.clean, "--speed", "0", "--plan", str(plan))
     assert done.returncode == 0, done.stderr
     assert "stopped early:" in done.stdout and "(not stored)" in done.stdout
-    assert "the plan still collects step 'routine' after 3 of its 4 readings" in done.stdout
-    assert "set opposite (attempt 1): present → absent" in done.stdout
-    assert "step 'routine' readings 3 → 4" in done.stdout
+    words = " ".join(done.stdout.split())
+    assert (
+        "the new plan asks for 4 routine readings at step 2 (routine); the recording holds 3"
+        in (words)
+    )
+    assert "set opposite (attempt 1) present absent" in words
+    assert "step 'routine' readings 3 → 4" in words
     assert file_state(db) == before
 
 
