@@ -71,6 +71,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
             "message": engine.instrument_message,
             "bench": engine.bench,
         },
+        "record": {"writable": engine.record_fault is None, "message": engine.record_fault},
         "caution": CAUTION,
     }
 
@@ -201,6 +202,12 @@ def _bias_text(volts: float) -> str:
 def prompt(engine: Engine) -> dict[str, Any]:
     """Return what the operator must do now, in plain words (PromptInfo)."""
     state, step = engine.state, engine.step
+    if engine.record_fault is not None:
+        return {
+            "kind": "record_fault",
+            "text": f"Do not deliver beam: {engine.record_fault}. No reading can be taken "
+            "until it is writable again; what was received is held and will be recorded.",
+        }
     if state is S.IDLE:
         return {"kind": "start", "text": "Start a session: enter the session details."}
     if state is S.FINISHED:

@@ -402,6 +402,11 @@ class Store:
                 conn.rollback()
                 raise
 
+    def checkpoint(self) -> None:
+        """Copy every commit held in the ``-wal`` file into the database file itself."""
+        with self._lock:
+            self.db.conn.execute("PRAGMA wal_checkpoint(FULL)").fetchall()
+
     def _stamp(self) -> str:
         if self._now is utc_now:
             return utc_stamp_now()
