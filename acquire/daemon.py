@@ -130,6 +130,7 @@ class InstrumentLink(threading.Thread):
         self._next_poll_s = 0.0
         self._quit = threading.Event()
         self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
+        self._reply_note: str | None = None  # the driver's note on late or slow answers
         self.backlog_full = False
 
     # -- called from the asyncio loop ----------------------------------------------------------
@@ -268,6 +269,14 @@ class InstrumentLink(threading.Thread):
             self._hand_over("fault", f"the electrometer refused a command: {error}")
         finally:
             self._release()
+            self._tell_reply_note()
+
+    def _tell_reply_note(self) -> None:
+        """Post the driver's note on late or slow answers when it changed."""
+        note = getattr(self.electrometer, "reply_note", None)
+        if note != self._reply_note:
+            self._reply_note = note
+            self._hand_over("reply_note", note)
 
     def _lost(self, message: str) -> None:
         self.connected = False
@@ -613,6 +622,9 @@ class Daemon:
         engine = self.engine
         if kind == "samples":
             self._feed(*payload)
+            return
+        if kind == "reply_note":
+            engine.set_reply_note(payload)
             return
         with engine.all_or_nothing():
             self._take_instrument_news(kind, payload)

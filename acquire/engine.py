@@ -128,6 +128,8 @@ class Engine:
         self.instrument_connected = True
         self.instrument_message: str | None = None
         self.identity: str | None = None
+        #: The driver's words on late or slow answers, or None while they come in good time.
+        self.reply_note: str | None = None
         #: Why the station database cannot commit now ("record not writable: ..."), or None.
         self.record_fault: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
@@ -162,6 +164,12 @@ class Engine:
         """Say why the record cannot commit (None: it can again); no action is taken meanwhile."""
         if message != self.record_fault:
             self.record_fault = message
+            self.seq += 1
+
+    def set_reply_note(self, note: str | None) -> None:
+        """Show the driver's words on late or slow answers (None: they come in good time)."""
+        if note != self.reply_note:
+            self.reply_note = note
             self.seq += 1
 
     @contextmanager

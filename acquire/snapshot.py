@@ -68,7 +68,10 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
             "profile": engine.profile,
             "identity": engine.identity,
             "capabilities": sorted(c.value for c in engine.capabilities),
-            "message": engine.instrument_message,
+            "message": "; ".join(
+                note for note in (engine.instrument_message, engine.reply_note) if note
+            )
+            or None,
             "bench": engine.bench,
         },
         "record": {"writable": engine.record_fault is None, "message": engine.record_fault},

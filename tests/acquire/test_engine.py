@@ -384,3 +384,43 @@ def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():
     current = snapshot["current_set"]
     assert current["stats"] is None
     assert "statistics_unavailable" in [flag["code"] for flag in current["flags"]]
+
+
+def test_a_capture_whose_commit_fails_changes_nothing_and_is_taken_again_once_it_can():
+    # a real SQLite refusal to write (the connection made read-only), not a mock
+    engine, clock = make_engine()
+    started(engine)
+    engine.manual_done(actor="R. Okafor")
+    engine.arm()
+    for i in range(1, 11):  # the beam: the charge rises to 20 nC, then holds
+        clock.now += 0.1
+        engine.on_sample(clock.now, 2.0 * i)
+    state, commands, seq = engine.state, list(engine._commands), engine.seq
+    engine.store.db.execute("PRAGMA query_only = 1")
+    clock.now += 1.1  # past the hold time: this sample ends the reading
+    with pytest.raises(Exception, match="readonly"):
+        engine.on_sample(clock.now, 20.0)
+    assert engine.state is state and engine._commands == commands and engine.seq == seq
+    assert engine.reading is not None and engine.active.readings == []
+    engine.set_record_fault("record not writable: the database file is read-only")
+    snapshot = engine.snapshot()
+    assert snapshot["record"] == {
+        "writable": False,
+        "message": "record not writable: the database file is read-only",
+    }
+    assert snapshot["allowed"] == [] and snapshot["prompt"]["kind"] == "record_fault"
+    engine.store.db.execute("PRAGMA query_only = 0")
+    engine.set_record_fault(None)
+    engine.on_sample(clock.now, 20.0)  # the same sample, fed again
+    assert [r.charge_nC for r in engine.active.readings] == [20.0]
+    assert len(engine.store.readings(engine.session_id)) == 1
+
+
+def test_the_drivers_note_on_late_answers_is_the_instruments_message():
+    engine, _ = make_engine()
+    engine.set_reply_note("answers are slow: 3 of the last 3 took over 0.5 s")
+    assert engine.snapshot()["instrument"]["message"] == (
+        "answers are slow: 3 of the last 3 took over 0.5 s"
+    )
+    engine.set_reply_note(None)
+    assert engine.snapshot()["instrument"]["message"] is None
