@@ -220,11 +220,13 @@ class ProfileElectrometer:
         if self.profile.mode == "push":
             return
         for _ in range(MAX_STALE_LINES):
+            if not self.transport.input_waiting():
+                return
             try:
                 line = self.transport.read_line(0.0)
             except ProtocolError:
                 line = True  # an unreadable stale line: dropped all the same
-            if line is None:
+            if line is None:  # only part of a line: the rest is still to come
                 return
             self._late_reply()
 
