@@ -39,11 +39,12 @@ def check_environment(
 ) -> dict[str, Any]:
     """Return an environment entry (°C, kPa, pressure as entered, unit, % RH) after range checks.
 
-    Raises InputError naming the field (``temperature_C``, ``pressure_hPa`` ...) when a value is
+    Raises InputError naming the field as the request names it (``temperature_C``,
+    ``pressure``, ``pressure_unit``, ``humidity_pct``) when a value is
     not a number or lies outside its plausible range (10–40 °C, 60–110 kPa; common practice).
     """
     temperature = float(limits.TEMPERATURE_C.check("temperature_C", temperature_C))
-    pressure_kPa = float(units.pressure_kPa(pressure, pressure_unit))
+    pressure_kPa = float(units.pressure_kPa(pressure, pressure_unit, field="pressure"))
     humidity = None
     if humidity_pct is not None:
         humidity = float(limits.HUMIDITY_PCT.check("humidity_pct", humidity_pct))
