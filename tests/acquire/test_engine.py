@@ -161,7 +161,7 @@ def test_bad_environment_is_refused_naming_the_field_and_loses_nothing():
     session_id = started(engine)
     for args, field in (
         ((80.0, 101.3), "temperature_C"),  # 10–40 °C (common practice)
-        ((21.0, 20.0), "pressure_kPa"),  # 60–110 kPa (common practice)
+        ((21.0, 20.0), "pressure"),  # 60–110 kPa (common practice), named as passed
         (("warm", 101.3), "temperature_C"),
     ):
         with pytest.raises(InputError) as refused:
@@ -424,3 +424,33 @@ def test_the_drivers_note_on_late_answers_is_the_instruments_message():
     )
     engine.set_reply_note(None)
     assert engine.snapshot()["instrument"]["message"] is None
+
+
+def _set_flag_codes(engine: Engine, purpose: str) -> list[str]:
+    entry = next(s for s in engine.snapshot()["sets"] if s["purpose"] == purpose)
+    return [flag["code"] for flag in entry["flags"]]
+
+
+def test_readings_integrated_faster_than_their_mu_can_be_delivered_are_flagged():
+    # each delivery here lasts about 2.1 s on the clock; 100 MU need 2.5 s even at the highest
+    # clinical dose rate (about 2400 MU/min, from memory)
+    engine, clock = make_engine()
+    started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    assert "routine_integration_too_short" in _set_flag_codes(engine, "routine")
+    # the same deliveries at a daemon time scale of 0.1 stand for 21 s each: no flag
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    assert "routine_integration_too_short" not in _set_flag_codes(engine, "routine")
+
+
+def test_a_set_with_half_the_routine_sets_charge_per_mu_is_flagged():
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    into_opposite_set(engine, clock, [-10.3, -10.0, -10.01, -10.0])  # 100 MU each, half charge
+    assert "opposite_charge_per_MU" in _set_flag_codes(engine, "opposite")
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    into_opposite_set(engine, clock, [-20.3, -20.0, -20.01, -20.0])
+    assert "opposite_charge_per_MU" not in _set_flag_codes(engine, "opposite")
