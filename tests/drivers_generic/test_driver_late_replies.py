@@ -10,15 +10,21 @@ and waits before the answers we choose.
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import os
+import sys
 import threading
 import time
 import tty
 from collections.abc import Callable, Iterator
+from pathlib import Path
 
 import pytest
 from chargebook.drivers_generic import build_electrometer
+
+sys.path.insert(0, str(Path(__file__).parents[1] / "e2e"))
+from e2e_support import QUICK_PLAN, DaemonProcess
 
 
 class SlowInstrument(threading.Thread):
@@ -44,6 +50,8 @@ class SlowInstrument(threading.Thread):
                     if line == b"Q?":
                         self.charges += 1
                         os.write(self.master, f"Q +{self.charges}.0000 nC A\r\n".encode())
+                    elif line == b"ID?":
+                        os.write(self.master, b"test bench;LUMEN-Q;EM-0001;0.1.0\r\n")
                     else:
                         os.write(self.master, b"OK\r\n")
 
@@ -98,3 +106,29 @@ def test_an_instrument_answering_in_good_time_has_no_note(instrument):
     driver.zero()
     assert driver.read_charge().charge_nC == 1.0
     assert driver.reply_note is None
+
+
+@pytest.mark.e2e
+async def test_the_daemon_shows_slow_answers_as_the_instruments_message(tmp_path):
+    master, slave = os.openpty()
+    tty.setraw(slave)
+    SlowInstrument(master, lambda n: 0.6).start()  # ID? answered after 0.6 s of the 1.0 s
+    args = ["serve", "--profile", "lumen-q", "--port", os.ttyname(slave), "--plan", QUICK_PLAN]
+    args += ["--db", str(tmp_path / "station.sqlite"), "--socket", str(tmp_path / "run" / "d.s")]
+    daemon = DaemonProcess(args, tmp_path / "run" / "d.s", tmp_path / "station.sqlite",
+                           tmp_path / "daemon.log").start()  # fmt: skip
+    try:
+        client = await daemon.connect()
+        for _ in range(100):
+            instrument = (await client.status())["instrument"]
+            if "slow" in (instrument["message"] or ""):
+                break
+            await asyncio.sleep(0.1)
+        await client.close()
+    finally:
+        daemon.stop()
+        for fd in (master, slave):
+            with contextlib.suppress(OSError):
+                os.close(fd)
+    assert instrument["connected"] is True
+    assert "answers are slow: 1 of the last 1 took over 0.5 s" in instrument["message"]
