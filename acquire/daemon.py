@@ -33,11 +33,11 @@ from typing import Any
 
 from chargebook.acquire import protocol
 from chargebook.acquire.engine import Command, Engine
-from chargebook.acquire.record_health import RecordFiles, commit_failure, not_writable
+from chargebook.acquire.record_health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.server import Connection, RpcServer
 from chargebook.acquire.states import IllegalTransition
 from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store, TrafficLine
+from chargebook.acquire.store import BUSY_TIMEOUT_MS, Store, TrafficLine
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -77,6 +77,9 @@ HELD_WARNING_SHARE = 0.8
 FILES_CHECK_S = 1.0
 #: How often commits that failed are tried again, s.
 RETRY_S = 0.5
+#: How long a commit of raw lines waits for another program's write lock, ms: the lines are
+#: held meanwhile, so the instrument thread never stops reading the port for long.
+LINES_WAIT_MS = 200
 
 
 @dataclass(frozen=True)
@@ -371,6 +374,7 @@ class Daemon:
         self._traffic: list[TrafficLine] = []  # recorded, not yet committed
         self._lines_fault: str | None = None  # why the last traffic commit failed (thread)
         self._lines_tried_at = -RETRY_S  # when the thread last tried a commit that failed
+        self._lines_failing_since: float | None = None  # first failed commit of lines held now
         self._lines_told: tuple[str | None, int] = (None, 0)  # the last news of held lines
         self._lines_told_at = 0.0
         self._held_events: collections.deque[tuple[str, Any]] = collections.deque()
@@ -444,12 +448,15 @@ class Daemon:
         if not self._traffic or self.store is None:
             return True
         now_s = time.monotonic()
-        if self._lines_fault is not None and now_s - self._lines_tried_at < RETRY_S:
+        if self._lines_failing_since is not None and now_s - self._lines_tried_at < RETRY_S:
             self._tell_held_lines()
             return False
         lines, self._traffic = self._traffic, []
         try:
-            self.store.add_traffic_many(lines)
+            # never wait long for another writer: the lines are kept, and the port goes on
+            # being read while they wait
+            with self.store.busy_timeout(LINES_WAIT_MS):
+                self.store.add_traffic_many(lines)
         except Exception as error:  # a traffic record must never stop the instrument thread
             cause = commit_failure(error)
             if cause is None:
@@ -457,17 +464,28 @@ class Daemon:
                 self._commit_one_by_one(lines)
                 return True
             self._traffic[:0] = lines
-            self._lines_tried_at = now_s
-            if cause != self._lines_fault:
-                log.error("%s; %d raw lines held in memory", not_writable(cause), len(lines))
-            self._lines_fault = cause
-            self._tell_held_lines()
+            self._lines_not_committed(cause, now_s)
             return False
-        if self._lines_fault is not None:
-            log.warning("the record is writable again; %d held raw lines committed", len(lines))
-            self._lines_fault = None
+        if self._lines_failing_since is not None:
+            if self._lines_fault is not None:
+                log.warning("the record is writable again; %d held raw lines committed", len(lines))
+            self._lines_fault = self._lines_failing_since = None
             self._tell_held_lines()
         return True
+
+    def _lines_not_committed(self, cause: str, now_s: float) -> None:
+        """Note a failed commit of raw lines; declare the record not writable at once, or, for
+        another program's write lock, once it has been held longer than the busy timeout."""
+        self._lines_tried_at = now_s
+        if self._lines_failing_since is None:
+            self._lines_failing_since = now_s
+        waited_s = now_s - self._lines_failing_since
+        if cause == LOCKED and waited_s * 1000 < BUSY_TIMEOUT_MS:
+            return  # a writer's ordinary transaction: the lines wait in memory meanwhile
+        if cause != self._lines_fault:
+            log.error("%s; %d raw lines held in memory", not_writable(cause), len(self._traffic))
+        self._lines_fault = cause
+        self._tell_held_lines()
 
     def _commit_one_by_one(self, lines: list[TrafficLine]) -> None:
         """Save every line of a refused batch that can be saved on its own."""

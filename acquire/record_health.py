@@ -16,10 +16,12 @@ from pathlib import Path
 
 #: The words that open every message of the condition.
 NOT_WRITABLE = "record not writable"
+#: How the cause is said when another program holds the database's write lock.
+LOCKED = "another program holds the database's write lock"
 #: SQLite's own words for the causes an operator can clear, and how we say them.
 _CAUSES = (
     ("database or disk is full", "the disk is full"),
-    ("database is locked", "another program holds the database's write lock"),
+    ("database is locked", LOCKED),
     ("disk i/o error", "a disk I/O error"),
     ("readonly database", "the database file is read-only"),
 )

@@ -402,6 +402,18 @@ class Store:
                 conn.rollback()
                 raise
 
+    @contextmanager
+    def busy_timeout(self, timeout_ms: int) -> Iterator[None]:
+        """Hold the lock; in the block, wait at most ``timeout_ms`` for another writer's lock
+        (instead of BUSY_TIMEOUT_MS)."""
+        with self._lock:
+            conn = self.db.conn
+            conn.execute(f"PRAGMA busy_timeout = {int(timeout_ms)}")
+            try:
+                yield
+            finally:
+                conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+
     def checkpoint(self) -> None:
         """Copy every commit held in the ``-wal`` file into the database file itself."""
         with self._lock:
