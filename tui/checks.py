@@ -57,7 +57,7 @@ def pressure_in(unit_of: Callable[[], str]) -> Check:
     """Return a check of a pressure typed in the unit that ``unit_of()`` names (kPa, hPa, mmHg)."""
 
     def check(value: str) -> object:
-        return units.pressure_kPa(as_typed(value), unit_of(), field="pressure")
+        return units.pressure_kPa(as_typed(value), unit_of())
 
     return check
 

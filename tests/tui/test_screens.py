@@ -143,7 +143,9 @@ async def test_the_setup_form_checks_entries_as_typed_and_rechecks_when_the_unit
         pressure.input.value = "101.3"  # typed in kPa while the unit still says hPa
         await pilot.pause()
         # 60-110 kPa is 600-1100 hPa: common practice range, 1 hPa = 0.1 kPa (REFERENCE.md).
-        assert pressure.problem == "pressure = 101.3 is outside the allowed range 600 to 1100 hPa"
+        assert (
+            pressure.problem == "pressure_hPa = 101.3 is outside the allowed range 600 to 1100 hPa"
+        )
         await pilot.press("ctrl+s")
         await pilot.pause()
         assert app.sent == []  # nothing is sent while an entry is wrong
