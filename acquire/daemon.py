@@ -18,6 +18,7 @@ Every reading is committed by the engine before :meth:`Daemon.publish` tells any
 from __future__ import annotations
 
 import asyncio
+import collections
 import contextlib
 import logging
 import os
@@ -32,9 +33,11 @@ from typing import Any
 
 from chargebook.acquire import protocol
 from chargebook.acquire.engine import DAEMON_ACTOR, Command, Engine
+from chargebook.acquire.record_health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.server import Connection, RpcServer
+from chargebook.acquire.states import IllegalTransition
 from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store, require_writable
+from chargebook.acquire.store import BUSY_TIMEOUT_MS, Store, require_writable
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -67,6 +70,18 @@ _DIRECTION_TEXT = {direction: direction.value for direction in TrafficDirection}
 TIMEOUTS_BEFORE_LOST = 3
 #: Reconnection backoff: first pause and longest pause, s.
 RECONNECT_FIRST_S, RECONNECT_MAX_S = 0.2, 2.0
+#: Raw lines held in memory at most while the record cannot commit (some 100 bytes each); at
+#: the bound the electrometer is no longer read until the lines are committed.
+MAX_HELD_LINES = 200_000
+#: Share of MAX_HELD_LINES at which the operator is told the bound nears.
+HELD_WARNING_SHARE = 0.8
+#: How often the daemon checks that its database and -wal files are the ones it opened, s.
+FILES_CHECK_S = 1.0
+#: How often commits that failed are tried again, s.
+RETRY_S = 0.5
+#: How long a commit of raw lines waits for another program's write lock, ms: the lines are
+#: held meanwhile, so the instrument thread never stops reading the port for long.
+LINES_WAIT_MS = 200
 
 
 @dataclass(frozen=True)
@@ -90,8 +105,11 @@ class InstrumentLink(threading.Thread):
 
     ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
     Sample)), ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
-    ``flush()`` commits the raw lines recorded so far; it is called before every ``post`` and
-    after every turn of the thread's loop, so no line waits longer than one turn.
+    ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
+    commit; it is called before every ``post`` and after every turn of the thread's loop, so no
+    line waits longer than one turn. What the engine must hear of after lines that could not be
+    committed is held, in order, and posted once they are. While ``backlog_full`` is set (too
+    many lines held) no samples are read.
     """
 
     def __init__(
@@ -101,7 +119,7 @@ class InstrumentLink(threading.Thread):
         *,
         bench: Any = None,
         clock: Callable[[], float] = time.monotonic,
-        flush: Callable[[], None] = lambda: None,
+        flush: Callable[[], bool] = lambda: True,
     ) -> None:
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
@@ -116,6 +134,9 @@ class InstrumentLink(threading.Thread):
         self._timeouts = 0
         self._next_poll_s = 0.0
         self._quit = threading.Event()
+        self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
+        self._reply_note: str | None = None  # the driver's note on late or slow answers
+        self.backlog_full = False
 
     # -- called from the asyncio loop ----------------------------------------------------------
     def send(self, command: Command) -> None:
@@ -142,12 +163,21 @@ class InstrumentLink(threading.Thread):
         finally:
             with contextlib.suppress(Exception):
                 self.electrometer.close()
-            self.flush()
+            self._release()
 
     def _hand_over(self, kind: str, payload: Any) -> None:
-        """Commit the raw lines recorded so far, then post ``kind`` to the engine's loop."""
-        self.flush()
-        self.post(kind, payload)
+        """Commit the raw lines recorded so far, then post ``kind`` to the engine's loop (held,
+        in order, while the lines cannot be committed)."""
+        self._held.append((kind, payload))
+        self._release()
+
+    def _release(self) -> None:
+        """Commit the raw lines recorded so far; if that worked, post what was held."""
+        if not self.flush() or not self._held:
+            return
+        held, self._held = self._held, []
+        for kind, payload in held:
+            self.post(kind, payload)
 
     def _connect(self) -> None:
         delay_s = RECONNECT_FIRST_S
@@ -206,7 +236,7 @@ class InstrumentLink(threading.Thread):
         pushes = bool(
             self.electrometer.capabilities & {Capability.STREAM, Capability.PUSH_READINGS}
         )
-        if self.generation is None:
+        if self.generation is None or self.backlog_full:
             timeout_s = 0.2
         elif pushes:
             timeout_s = 0.0
@@ -230,7 +260,7 @@ class InstrumentLink(threading.Thread):
                     kind, value = self.inbox.get_nowait()
                 except queue.Empty:
                     kind = ""
-            if self.generation is not None and self.inbox.empty():
+            if self.generation is not None and self.inbox.empty() and not self.backlog_full:
                 self._read_samples(pushes)
         except InstrumentDisconnected as error:
             self._lost(f"the electrometer was disconnected: {error}")
@@ -243,7 +273,15 @@ class InstrumentLink(threading.Thread):
         except InstrumentError as error:
             self._hand_over("fault", f"the electrometer refused a command: {error}")
         finally:
-            self.flush()
+            self._release()
+            self._tell_reply_note()
+
+    def _tell_reply_note(self) -> None:
+        """Post the driver's note on late or slow answers when it changed."""
+        note = getattr(self.electrometer, "reply_note", None)
+        if note != self._reply_note:
+            self._reply_note = note
+            self._hand_over("reply_note", note)
 
     def _lost(self, message: str) -> None:
         self.connected = False
@@ -335,6 +373,17 @@ class Daemon:
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
+        self._lines_fault: str | None = None  # why the last traffic commit failed (thread)
+        self._lines_tried_at = -RETRY_S  # when the thread last tried a commit that failed
+        self._lines_failing_since: float | None = None  # first failed commit of lines held now
+        self._lines_told: tuple[str | None, int] = (None, 0)  # the last news of held lines
+        self._lines_told_at = 0.0
+        self._held_events: collections.deque[tuple[str, Any]] = collections.deque()
+        self._faults: dict[str, str] = {}  # what cannot commit: "lines", "engine", "files"
+        self._held_lines = 0
+        self._files: RecordFiles | None = None
+        self._files_checked_at = 0.0
+        self._events_tried_at = 0.0
         self._generation = 0
         self._sampled_reading: object = None
         self._published_seq = -1
@@ -353,6 +402,7 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        self._files = RecordFiles.taken_now(options.db_path)
         bench = None
         if options.bench_control:
             from chargebook.acquire.bench import Bench
@@ -398,17 +448,64 @@ class Daemon:
         stamp = self.store.stamp()
         self.store.keep_traffic((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
 
-    def _commit_traffic(self) -> None:
-        """Commit the raw lines kept so far in one transaction (instrument thread only).
-
-        Lines that fail to commit stay kept, in order, and go with the next commit.
+    def _commit_traffic(self) -> bool:
+        """Commit the raw lines kept so far in one transaction (instrument thread only); return
+        False when the record cannot commit: the store keeps the lines, in order, for the next try
+        (they go first in whatever commits next, so the chain keeps the order things happened).
         """
-        if self.store is None:
-            return
+        if self.store is None or not self.store.kept_traffic_count():
+            return True
+        now_s = time.monotonic()
+        if self._lines_failing_since is not None and now_s - self._lines_tried_at < RETRY_S:
+            self._tell_held_lines()
+            return False
         try:
-            self.store.commit_traffic()
-        except Exception:  # a traffic record must never stop the instrument thread
-            log.exception("could not record the raw instrument lines kept so far")
+            # never wait long for another writer: the lines are kept, and the port goes on
+            # being read while they wait
+            with self.store.busy_timeout(LINES_WAIT_MS):
+                committed = self.store.commit_traffic()
+        except Exception as error:  # a traffic record must never stop the instrument thread
+            cause = commit_failure(error)
+            if cause is None:
+                log.exception("could not record the raw instrument lines kept so far")
+                return True
+            self._lines_not_committed(cause, now_s)
+            return False
+        if self._lines_failing_since is not None:
+            if self._lines_fault is not None:
+                log.warning("the record is writable again; %d held raw lines committed", committed)
+            self._lines_fault = self._lines_failing_since = None
+            self._tell_held_lines()
+        return True
+
+    def _lines_not_committed(self, cause: str, now_s: float) -> None:
+        """Note a failed commit of raw lines; declare the record not writable at once, or, for
+        another program's write lock, once it has been held longer than the busy timeout."""
+        assert self.store is not None
+        self._lines_tried_at = now_s
+        if self._lines_failing_since is None:
+            self._lines_failing_since = now_s
+        waited_s = now_s - self._lines_failing_since
+        if cause == LOCKED and waited_s * 1000 < BUSY_TIMEOUT_MS:
+            return  # a writer's ordinary transaction: the lines wait in memory meanwhile
+        if cause != self._lines_fault:
+            held = self.store.kept_traffic_count()
+            log.error("%s; %d raw lines held in memory", not_writable(cause), held)
+        self._lines_fault = cause
+        self._tell_held_lines()
+
+    def _tell_held_lines(self) -> None:
+        """Tell the loop why lines are held and how many (instrument thread only)."""
+        assert self.store is not None
+        held = self.store.kept_traffic_count() if self._lines_fault is not None else 0
+        told = (self._lines_fault, held * 20 // MAX_HELD_LINES)  # in steps of 5 % of the bound
+        now_s = time.monotonic()
+        fresh = told != self._lines_told or now_s - self._lines_told_at >= RETRY_S
+        if self.link is None or not fresh:
+            return
+        self._lines_told, self._lines_told_at = told, now_s
+        self.link.backlog_full = held >= MAX_HELD_LINES
+        self.link.post("record", (self._lines_fault, held))
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
@@ -490,17 +587,100 @@ class Daemon:
         while True:
             kind, payload = await self._events.get()
             try:
-                self._take_instrument_event(kind, payload)
+                if kind == "record":
+                    self._lines_not_writable(*payload)
+                else:
+                    self._held_events.append((kind, payload))
+                    self._take_held_events()
                 await self.after_change()
             except Exception:  # supervised: log it, record it, keep taking the instrument's news
                 self._unexpected(f"handling the instrument's {kind!r}")
+
+    # -- a record that cannot commit -------------------------------------------------------------
+    def _lines_not_writable(self, cause: str | None, held: int) -> None:
+        """Take the instrument thread's news: raw lines cannot be committed (``cause``), or can
+        again (None); ``held``: how many are waiting in memory."""
+        self._held_lines = held
+        self._set_fault("lines", cause)
+
+    def _set_fault(self, part: str, cause: str | None) -> None:
+        """Note (or clear, None) why ``part`` of the record cannot commit; tell the operator."""
+        if cause is None:
+            self._faults.pop(part, None)
+        else:
+            self._faults[part] = cause
+        assert self.engine is not None
+        if not self._faults:
+            self.engine.set_record_fault(None)
+            return
+        message = not_writable("; ".join(dict.fromkeys(self._faults.values())))
+        if self._held_lines:
+            plural = "s" if self._held_lines != 1 else ""
+            message += f" ({self._held_lines:,} raw line{plural} held in memory"
+            if self._held_lines >= HELD_WARNING_SHARE * MAX_HELD_LINES:
+                message += f"; at {MAX_HELD_LINES:,} the electrometer is no longer read"
+            message += ")"
+        self.engine.set_record_fault(message)
+
+    def _take_held_events(self) -> None:
+        """Give the engine the instrument's news in order; stop at one that cannot be committed
+        (it stays first in line, and is tried again)."""
+        self._events_tried_at = time.monotonic()
+        while self._held_events:
+            kind, payload = self._held_events[0]
+            try:
+                self._take_instrument_event(kind, payload)
+            except Exception as error:
+                cause = commit_failure(error)
+                if cause is None:
+                    self._held_events.popleft()
+                    raise
+                if cause != self._faults.get("engine"):
+                    log.error("%s; the instrument's %r is held", not_writable(cause), kind)
+                self._set_fault("engine", cause)
+                return
+            self._held_events.popleft()
+        if "engine" in self._faults:
+            log.warning("the record is writable again; held readings recorded")
+            self._set_fault("engine", None)
+
+    def _check_record(self) -> None:
+        """Try held news again, and check that the database files are the ones opened."""
+        assert self.store is not None
+        now_s = time.monotonic()
+        if self._held_events and now_s - self._events_tried_at >= RETRY_S:
+            self._take_held_events()
+        if self._files is None or now_s - self._files_checked_at < FILES_CHECK_S:
+            return
+        self._files_checked_at = now_s
+        changed = self._files.check()
+        if changed is None:
+            return
+        self.store.checkpoint()  # keep what the deleted -wal file holds: copy it into the file
+        if "files" not in self._faults:
+            log.error("%s", not_writable(changed))
+            self._set_fault(
+                "files",
+                f"{changed}; what was recorded is copied into the database file; stop the "
+                "daemon and start it again to go on (the session resumes)",
+            )
 
     def _take_instrument_event(self, kind: str, payload: Any) -> None:
         assert self.engine is not None
         engine = self.engine
         if kind == "samples":
             self._feed(*payload)
-        elif kind == "connected":
+            return
+        if kind == "reply_note":
+            engine.set_reply_note(payload)
+            return
+        with engine.all_or_nothing():
+            self._take_instrument_news(kind, payload)
+
+    def _take_instrument_news(self, kind: str, payload: Any) -> None:
+        engine = self.engine
+        assert engine is not None
+        if kind == "connected":
             engine.instrument_back(payload)
             if payload:
                 self._identified(payload)
@@ -515,10 +695,14 @@ class Daemon:
         """Give the engine the samples of the reading now armed, until one completes it."""
         assert self.engine is not None
         engine = self.engine
-        for sample in samples:
+        for index, sample in enumerate(samples):
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
-            engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+            try:
+                engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+            except Exception:
+                del samples[:index]  # those were taken; the rest are tried again
+                raise
 
     def _identified(self, identity: str) -> None:
         assert self.store is not None and self.engine is not None
@@ -535,7 +719,9 @@ class Daemon:
         while True:
             await asyncio.sleep(TICK_S)
             try:
-                self.engine.tick()
+                self._check_record()
+                if not self._faults:
+                    self.engine.tick()
                 await self.after_change()
             except Exception:  # supervised, as the instrument events are
                 self._unexpected("the clock tick")
@@ -640,8 +826,14 @@ class Daemon:
         if method == protocol.Method.STATUS:
             return self.snapshot()
         try:
-            with self.store.on_behalf_of(connection.account):
+            with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
+        except Exception as error:
+            cause = commit_failure(error)
+            if cause is None:
+                raise
+            why = f"{not_writable(cause)}; nothing was done"
+            raise IllegalTransition(method, self.engine.state, [], why) from error
         finally:
             await self.after_change()  # a refused request may still have recorded something
         return self.snapshot()

@@ -28,9 +28,11 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
+import copy
 import logging
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -127,6 +129,10 @@ class Engine:
         self.instrument_connected = True
         self.instrument_message: str | None = None
         self.identity: str | None = None
+        #: The driver's words on late or slow answers, or None while they come in good time.
+        self.reply_note: str | None = None
+        #: Why the station database cannot commit now ("record not writable: ..."), or None.
+        self.record_fault: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
         #: Words the operator must read about something the engine did on its own (a reading
         #: discarded by a pause), kept until the next reading is recorded or the set is closed.
@@ -157,6 +163,36 @@ class Engine:
         self.data_version += 1
         if self.on_change is not None:
             self.on_change()
+
+    def set_record_fault(self, message: str | None) -> None:
+        """Say why the record cannot commit (None: it can again); no action is taken meanwhile."""
+        if message != self.record_fault:
+            self.record_fault = message
+            self.seq += 1
+
+    def set_reply_note(self, note: str | None) -> None:
+        """Show the driver's words on late or slow answers (None: they come in good time)."""
+        if note != self.reply_note:
+            self.reply_note = note
+            self.seq += 1
+
+    @contextmanager
+    def all_or_nothing(self, reading_before: Any = None) -> Iterator[None]:
+        """Run the block in one store transaction; if it fails, undo the engine's own changes
+        too (``reading_before``: the reading as it was before a sample was fed to it)."""
+        saved = dict(self.__dict__)
+        saved["_commands"] = list(self._commands)
+        saved["integration_s"] = dict(self.integration_s)
+        saved["skipped"] = set(self.skipped)
+        saved["active"] = copy.copy(self.active)
+        if reading_before is not None:
+            saved["reading"] = reading_before
+        try:
+            with self.store.atomic():
+                yield
+        except BaseException:
+            self.__dict__.update(saved)
+            raise
 
     def touch_live(self) -> None:
         """Count a new snapshot for the reading in progress (results stay cached)."""
@@ -191,6 +227,8 @@ class Engine:
         states = ACTION_STATES.get(action)
         if states is None:
             return f"{action} is not an operator action"
+        if self.record_fault is not None:
+            return f"{self.record_fault}; nothing can be recorded until it is writable again"
         if self.state not in states:
             return f"it is not possible while the sequence is {self.state.value.replace('_', ' ')}"
         step = self.step
@@ -425,9 +463,13 @@ class Engine:
         clock; its raw line is in the store before the sample reaches the engine)."""
         if self.reading is None:
             return
-        self.reading_status = status
+        before = copy.copy(self.reading)  # a failed commit feeds this sample again
         captured = self.reading.feed(t_s, charge_nC, complete)
-        if captured is not None:
+        if captured is None:
+            self.reading_status = status
+            return
+        with self.all_or_nothing(reading_before=before):
+            self.reading_status = status
             self._record(captured, DAEMON_ACTOR)
             self._changed()
 
@@ -440,9 +482,10 @@ class Engine:
         now_s = self.clock() if now_s is None else now_s
         waiting = self.state is S.SETTLING and self.reading is None
         if waiting and self.settle_until_s is not None and now_s >= self.settle_until_s:
-            self.settle_until_s = None
-            self._begin_reading(DAEMON_ACTOR, "settling wait over")
-            self._changed()
+            with self.all_or_nothing():
+                self.settle_until_s = None
+                self._begin_reading(DAEMON_ACTOR, "settling wait over")
+                self._changed()
 
     def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
         """The electrometer went away (or failed a command, ``still_connected``): a set in

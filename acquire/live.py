@@ -17,10 +17,16 @@ from chargebook.acquire import session_meta
 from chargebook.acquire.capture import CaptureSettings
 from chargebook.acquire.plan import COMPARED_PURPOSES, Plan, Step, load_plan
 from chargebook.acquire.session_meta import SessionMetadata
-from chargebook.acquire.store import EventRow, ReadingRow
+from chargebook.acquire.store import EventRow, ReadingRow, SetRow
 from chargebook.corrections import limits, units
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.stability import Thresholds, set_flags
+from chargebook.corrections.stability import (
+    SET_NAMES,
+    Thresholds,
+    charge_per_MU_flags,
+    integration_time_flags,
+    set_flags,
+)
 from chargebook.corrections.statistics import set_statistics
 
 
@@ -30,11 +36,12 @@ def check_environment(
 ) -> dict[str, Any]:
     """Return an environment entry (°C, kPa, pressure as entered, unit, % RH) after range checks.
 
-    Raises InputError naming the field (``temperature_C``, ``pressure_hPa`` ...) when a value is
+    Raises InputError naming the field as the request names it (``temperature_C``,
+    ``pressure``, ``pressure_unit``, ``humidity_pct``) when a value is
     not a number or lies outside its plausible range (10–40 °C, 60–110 kPa; common practice).
     """
     temperature = float(limits.TEMPERATURE_C.check("temperature_C", temperature_C))
-    pressure_kPa = float(units.pressure_kPa(pressure, pressure_unit))
+    pressure_kPa = float(units.pressure_kPa(pressure, pressure_unit, field="pressure"))
     humidity = None
     if humidity_pct is not None:
         humidity = float(limits.HUMIDITY_PCT.check("humidity_pct", humidity_pct))
@@ -185,6 +192,46 @@ def set_summary(
         )
     flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
     return _plain(stats), flags, per_reading
+
+
+def delivery_flags(
+    step: Step | None,
+    readings: Sequence[ReadingRow],
+    integration_s: Mapping[int, float],
+    time_scale: float,
+    reference_nC_per_MU: float | None,
+) -> list[dict[str, str]]:
+    """Return the flags of a beam set's delivery: integrations too short for the step's MU
+    (the instrument clock's seconds divided by the daemon's ``time_scale``), and a charge per
+    MU far from the routine set's (``reference_nC_per_MU``; None while there is none)."""
+    if step is None or not step.uses_beam:
+        return []
+    used = [r for r in readings if not r.settling]
+    monitor_units = float(step.mu_per_reading)
+    label = SET_NAMES.get(step.purpose, step.purpose)
+    times = [integration_s[r.id] / time_scale for r in used if r.id in integration_s]
+    flags = integration_time_flags(label, step.purpose, times, monitor_units)
+    if used and reference_nC_per_MU is not None and step.purpose != "routine":
+        per_MU = sum(abs(r.charge_nC) for r in used) / len(used) / monitor_units
+        flags += charge_per_MU_flags(label, step.purpose, per_MU, "routine", reference_nC_per_MU)
+    return [flag.to_dict() for flag in flags]
+
+
+def routine_nC_per_MU(
+    plan: Plan, sets: Sequence[SetRow], readings: Mapping[int, Sequence[ReadingRow]]
+) -> float | None:
+    """Return the routine set's mean |charge| per MU (nC/MU): its accepted set's, else its
+    latest set's with readings; None before there is one."""
+    candidates = []
+    for row in sets:
+        step = plan.steps[row.step_index] if row.step_index < len(plan.steps) else None
+        used = [r for r in readings.get(row.id, ()) if not r.settling]
+        if step is not None and step.purpose == "routine" and step.uses_beam and used:
+            candidates.append((row.status == "accepted", row.id, used, step))
+    if not candidates:
+        return None
+    _, _, used, step = max(candidates, key=lambda c: (c[0], c[1]))
+    return sum(abs(r.charge_nC) for r in used) / len(used) / float(step.mu_per_reading)
 
 
 def _unsummarised(purpose: str, error: InputError) -> dict[str, str]:

@@ -427,6 +427,7 @@ class PromptInfo(TypedDict):
     """What the operator must do now, in plain words."""
 
     #: start | environment | manual | arm | deliver_beam | review | interrupted | paused | done
+    #: | record_fault (the record cannot commit: no beam, no action until it can)
     kind: str
     text: str
     manual_action: NotRequired[dict[str, Any]]  # e.g. {"action": "set_bias", "volts": -300}
@@ -451,6 +452,13 @@ class InstrumentInfo(TypedDict):
     capabilities: list[str]
     message: str | None  # plain words when something is wrong (e.g. 'disconnected, retrying')
     bench: bool  # True when the daemon drives a simulated linac (--bench-control)
+
+
+class RecordInfo(TypedDict):
+    """Whether the station database can commit now."""
+
+    writable: bool
+    message: str | None  # "record not writable: <cause>" and what is held in memory, or None
 
 
 class EnvironmentInfo(TypedDict):
@@ -508,6 +516,7 @@ class Snapshot(TypedDict):
     results_provisional: bool
     results_error: str | None  # why results could not be computed from what is recorded
     instrument: InstrumentInfo
+    record: RecordInfo
     caution: str
 
 

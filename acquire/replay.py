@@ -79,7 +79,10 @@ class ReplayRequest:
     ``plan`` (a plan name or TOML path) and ``thresholds`` (threshold names and values laid
     over the session's own) make it a what-if replay;
     ``traffic_log`` plays a JSON-lines log in place of the stored traffic; ``profile`` and
-    ``time_scale`` override what the session recorded; ``dry_run`` writes nothing.
+    ``time_scale`` override what the session recorded; ``dry_run`` writes nothing; ``keep``
+    stores an unchanged replay of a ``traffic_log`` even when it does not reproduce the
+    session (marked so by a ``replay_not_reproduced`` event): without it such a replay is
+    compared, never stored.
     """
 
     db_path: Path
@@ -91,6 +94,11 @@ class ReplayRequest:
     profile: str | None = None
     time_scale: float | None = None
     dry_run: bool = False
+    keep: bool = False
+
+
+#: The event that marks a stored replay of an edited traffic log that did not reproduce.
+NOT_REPRODUCED_EVENT = "replay_not_reproduced"
 
 
 @dataclass
@@ -106,6 +114,8 @@ class ReplayReport:
     what_if: bool
     stopped: str | None = None
     traffic_notes: list[str] = field(default_factory=list)
+    #: Why a replay that ran to the end was not stored (None: it was stored, or not asked to).
+    not_stored: str | None = None
 
     @property
     def reproduced(self) -> bool:
@@ -124,6 +134,7 @@ class ReplayReport:
             "reproduced": self.reproduced,
             "stopped": self.stopped,
             "traffic_notes": self.traffic_notes,
+            "not_stored": self.not_stored,
             **self.comparison.to_dict(),
         }
 
@@ -145,7 +156,7 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
                 raise
             raise Divergence(f"{divergence} ({OLDER_RECORDING})") from None
         try:
-            replay_id, comparison = _finish(original, setup, run, changes, request)
+            replay_id, comparison, not_stored = _finish(original, setup, run, changes, request)
         finally:
             run.store.close()
     finally:
@@ -160,6 +171,7 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
         what_if=bool(changes),
         stopped=run.stopped,
         traffic_notes=run.notes,
+        not_stored=not_stored,
     )
 
 
@@ -198,9 +210,12 @@ def _setup(original: Store, request: ReplayRequest) -> tuple[Setup, list[Change]
 
 def _finish(
     original: Store, setup: Setup, run: PipelineRun, changes: list[Change], request: ReplayRequest
-) -> tuple[int | None, Comparison]:
-    """Store a replay that ran to the end (unless a dry run); compare it with the original."""
+) -> tuple[int | None, Comparison, str | None]:
+    """Store a replay that ran to the end (unless a dry run, or an unchanged replay of a traffic
+    log that does not reproduce the session, unless kept); compare it with the original.
+    Return the stored session's id, the comparison, and why it was not stored if it was not."""
     from chargebook.acquire.replay_copy import copy_session
+    from chargebook.acquire.replay_pipeline import REPLAY_ACTOR
 
     recording = setup.recording
     explanations = Explanations(
@@ -213,13 +228,35 @@ def _finish(
         comparison = compare_sessions(
             original, recording.session_id, run.store, run.session_id, explanations
         )
-        return None, comparison
+        return None, comparison, None
+    from_log = request.traffic_log is not None and not changes
+    if from_log:
+        comparison = compare_sessions(
+            original, recording.session_id, run.store, run.session_id, explanations
+        )
+        if not comparison.exact and not request.keep:
+            why = (
+                f"the traffic log {request.traffic_log} does not reproduce the session; pass "
+                "--keep to store the replay all the same, marked as not reproduced"
+            )
+            return None, comparison, why
     with Store.open(request.db_path) as station:
         replay_id = copy_session(run.store, run.session_id, station, recording.session_id)
         comparison = compare_sessions(
             original, recording.session_id, station, replay_id, explanations
         )
-    return replay_id, comparison
+        if from_log and not comparison.exact:
+            station.add_event(
+                replay_id,
+                REPLAY_ACTOR,
+                NOT_REPRODUCED_EVENT,
+                {
+                    "traffic_log": str(request.traffic_log),
+                    "why": "stored with --keep although this traffic log does not reproduce "
+                    "the session it replays",
+                },
+            )
+    return replay_id, comparison, None
 
 
 def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | None) -> int:

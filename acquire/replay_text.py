@@ -27,6 +27,8 @@ def replay_text(report: ReplayReport) -> str:
     lines += [f"changed: {change.words()}" for change in comparison.changes]
     if report.stopped:
         lines.append(f"stopped early: {report.stopped}")
+    if report.not_stored:
+        lines.append(f"not stored: {report.not_stored}")
     lines.append(verdict(report))
     if comparison.differences:
         columns = shutil.get_terminal_size((0, 0)).columns or None  # piped: lines stay whole

@@ -96,6 +96,7 @@ def read_traffic_log(
     except (OSError, UnicodeError) as error:
         raise TrafficLogError(f"traffic log {path} cannot be read: {error}") from None
     stored = recording.lines
+    _refuse_a_missing_or_repeated_line(path, session, entries, stored, profile, where)
     if len(entries) < len(stored):
         last = len(entries)
         raise TrafficLogError(
@@ -116,6 +117,48 @@ def read_traffic_log(
             )
         lines.append(RecordedLine(index, t_s, direction, line_bytes(profile, direction, text)))
     return tuple(lines)
+
+
+def _refuse_a_missing_or_repeated_line(
+    path: Path,
+    session: int,
+    entries: Sequence[tuple[float, str, str]],
+    stored: Sequence[RecordedLine],
+    profile: Profile,
+    where: Sequence[str],
+) -> None:
+    """Raise TrafficLogError naming the line if the log is the session's traffic with one line
+    deleted from its middle or one line written twice; return otherwise."""
+    if abs(len(entries) - len(stored)) != 1:
+        return
+
+    def same(entry: tuple[float, str, str], line: RecordedLine) -> bool:
+        _, direction, text = entry
+        return direction == line.direction and line_bytes(profile, direction, text) == line.raw
+
+    first = next(
+        (i for i, (e, line) in enumerate(zip(entries, stored, strict=False)) if not same(e, line)),
+        min(len(entries), len(stored)),
+    )
+    counts = (
+        f"traffic log {path} has {len(entries)} lines, session {session} recorded {len(stored)}"
+    )
+    if len(entries) < len(stored) and first < len(entries):
+        rest = zip(entries[first:], stored[first + 1 :], strict=True)
+        if all(same(entry, line) for entry, line in rest):
+            missing = stored[first]
+            raise TrafficLogError(
+                f"{counts}: line {first + 1} of the session ({missing.direction} "
+                f"{shown(line_text(profile, missing))}, {where[first]}) is missing from the log, "
+                f"deleted between log lines {first} and {first + 1}"
+            )
+    if len(entries) > len(stored) and first > 0:
+        rest = zip(entries[first + 1 :], stored[first:], strict=True)
+        if same(entries[first], stored[first - 1]) and all(same(e, line) for e, line in rest):
+            raise TrafficLogError(
+                f"{counts}: log line {first + 1} repeats line {first} "
+                f"({shown(entries[first][2])}), a line written twice"
+            )
 
 
 # ---------------------------------------------------------------------------- the follower

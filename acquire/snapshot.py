@@ -72,9 +72,13 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
             "profile": engine.profile,
             "identity": engine.identity,
             "capabilities": sorted(c.value for c in engine.capabilities),
-            "message": engine.instrument_message,
+            "message": "; ".join(
+                note for note in (engine.instrument_message, engine.reply_note) if note
+            )
+            or None,
             "bench": engine.bench,
         },
+        "record": {"writable": engine.record_fault is None, "message": engine.record_fault},
         "caution": CAUTION,
     }
 
@@ -89,16 +93,17 @@ def _sets_info(
     cache = _SET_CACHE.setdefault(engine, {})
     fresh: dict[int, tuple[tuple[Any, ...], dict[str, Any]]] = {}
     entries = []
+    reference = live.routine_nC_per_MU(engine.plan, rows, by_set)
     for row in rows:
         own = by_set[row.id]
         step = (
             engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
         )
-        inputs = (row, tuple(own), engine.thresholds, step)
+        inputs = (row, tuple(own), engine.thresholds, step, reference)
         cached = cache.get(row.id)
         entry = cached[1] if cached is not None and cached[0] == inputs else None
         if entry is None:
-            entry = _set_info(engine, row, own, step)
+            entry = _set_info(engine, row, own, step, reference)
         fresh[row.id] = (inputs, entry)
         entries.append(dict(entry))  # a shallow copy: a caller may trim the copy's readings
     _SET_CACHE[engine] = fresh
@@ -106,10 +111,12 @@ def _sets_info(
 
 
 def _set_info(
-    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None
+    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None, reference: float | None
 ) -> dict[str, Any]:
-    """Return the protocol entry of one set: its readings, statistics and flags."""
+    """Return the protocol entry of one set: its readings, statistics and flags (``reference``:
+    the routine set's charge per MU, nC/MU)."""
     stats, flags, per_reading = live.set_summary(row.purpose, row.bias_V, own, engine.thresholds)
+    flags += live.delivery_flags(step, own, engine.integration_s, engine.time_scale, reference)
     return {
         "id": row.id,
         "step_index": row.step_index,
@@ -218,6 +225,12 @@ def _bias_text(volts: float) -> str:
 def prompt(engine: Engine) -> dict[str, Any]:
     """Return what the operator must do now, in plain words (PromptInfo)."""
     state, step = engine.state, engine.step
+    if engine.record_fault is not None:
+        return {
+            "kind": "record_fault",
+            "text": f"Do not deliver beam: {engine.record_fault}. No reading can be taken "
+            "until it is writable again; what was received is held and will be recorded.",
+        }
     if state is S.IDLE:
         return {"kind": "start", "text": "Start a session: enter the session details."}
     if state is S.FINISHED:

@@ -515,6 +515,23 @@ class Store:
             self._pending[:0] = self._in_flight
         self._in_flight = []
 
+    @contextmanager
+    def busy_timeout(self, timeout_ms: int) -> Iterator[None]:
+        """Hold the lock; in the block, wait at most ``timeout_ms`` for another writer's lock
+        (instead of BUSY_TIMEOUT_MS)."""
+        with self._lock:
+            conn = self.db.conn
+            conn.execute(f"PRAGMA busy_timeout = {int(timeout_ms)}")
+            try:
+                yield
+            finally:
+                conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+
+    def checkpoint(self) -> None:
+        """Copy every commit held in the ``-wal`` file into the database file itself."""
+        with self._lock:
+            self.db.conn.execute("PRAGMA wal_checkpoint(FULL)").fetchall()
+
     def _stamp(self) -> str:
         if self._now is utc_now:
             return utc_stamp_now()
@@ -959,6 +976,11 @@ class Store:
         row = _traffic_row(line)
         with self._pending_lock:
             self._pending.append(row)
+
+    def kept_traffic_count(self) -> int:
+        """Return how many raw lines are kept, not yet committed (safe from any thread)."""
+        with self._pending_lock:
+            return len(self._pending) + len(self._in_flight)
 
     def commit_traffic(self) -> int:
         """Write the raw lines kept so far in one commit; return how many there were."""

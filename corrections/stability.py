@@ -223,6 +223,61 @@ def set_flags(key: str, stats: SetStatistics, limits: Thresholds) -> list[Flag]:
     return flags
 
 
+#: The highest dose rate a clinical linac delivers, MU/min: flattening-filter-free beams reach
+#: about 2400 MU/min (from memory). No delivery of N MU can take less than N / this.
+MAX_DOSE_RATE_MU_PER_MIN = 2400.0
+#: A set's charge per MU this far (%) from the routine set's is beyond what polarity (k_pol
+#: within a few tenths of a percent) and recombination at a reduced bias (k_s up to 1.05, a few
+#: percent) explain: a wrong MU, a moved chamber or a wrong range (common practice).
+CHARGE_PER_MU_DEVIATION_PCT = 10.0
+
+
+def integration_time_flags(
+    label: str, key: str, integration_s: Sequence[float], monitor_units: float
+) -> list[Flag]:
+    """Return a flag if readings of ``monitor_units`` MU each were integrated for less time (s)
+    than the delivery takes even at MAX_DOSE_RATE_MU_PER_MIN."""
+    if not monitor_units > 0:
+        return []
+    needed_s = monitor_units * 60.0 / MAX_DOSE_RATE_MU_PER_MIN
+    short = [t for t in integration_s if t < needed_s]
+    if not short:
+        return []
+    return [
+        Flag(
+            f"{key}_integration_too_short",
+            f"{len(short)} of the {label} readings were integrated for {min(short):.2g} s at "
+            f"the shortest, but {monitor_units:g} MU take at least {needed_s:.2g} s even at "
+            f"{MAX_DOSE_RATE_MU_PER_MIN:g} MU/min: the beam cannot have been delivered in that "
+            "time. Check that the electrometer integrates (not a held or repeated value) and "
+            "that the end of beam was not declared early, then redo the set.",
+        )
+    ]
+
+
+def charge_per_MU_flags(
+    label: str, key: str, nC_per_MU: float, reference: str, reference_nC_per_MU: float
+) -> list[Flag]:
+    """Return a flag if a set's charge per MU (nC/MU) is further than
+    CHARGE_PER_MU_DEVIATION_PCT from the ``reference`` set's (signs ignored)."""
+    if not (_finite_number(nC_per_MU) and _finite_number(reference_nC_per_MU)):
+        return []
+    if reference_nC_per_MU == 0.0:
+        return []
+    deviation_pct = (abs(nC_per_MU) / abs(reference_nC_per_MU) - 1.0) * 100.0
+    if abs(deviation_pct) <= CHARGE_PER_MU_DEVIATION_PCT:
+        return []
+    return [
+        Flag(
+            f"{key}_charge_per_MU",
+            f"The {label} set gives {abs(nC_per_MU):.4g} nC per MU, {deviation_pct:+.1f} % from "
+            f"the {reference} set's {abs(reference_nC_per_MU):.4g} nC per MU: more than polarity "
+            f"and recombination explain (over {CHARGE_PER_MU_DEVIATION_PCT:g} %). Check the MU "
+            "delivered, the chamber's position and the electrometer's range, then redo the set.",
+        )
+    ]
+
+
 def k_pol_flags(k_pol: float, symbol: str, limits: Thresholds) -> list[Flag]:
     """Return a flag when |k_pol − 1| exceeds the usual limit for a reference-class chamber."""
     deviation_pct = 100.0 * abs(k_pol - 1.0)

@@ -62,15 +62,17 @@ def _factor(table: MappingProxyType, unit: str, field: str) -> float:
         raise InputError(field, unit, allowed, "is not a known unit") from None
 
 
-def pressure_kPa(value: object, unit: str = "kPa") -> Number:
+def pressure_kPa(value: object, unit: str = "kPa", field: str | None = None) -> Number:
     """Return the pressure in kPa from ``value`` in kPa, hPa or mmHg, checked 60–110 kPa.
 
-    The range is checked in the unit given, so the error names the field as entered
-    (``pressure_hPa = 5000 is outside the allowed range 600 to 1100 hPa``).
+    The range is checked in the unit given, so the error names the field as entered:
+    ``field`` when given (``pressure = 5000 is outside the allowed range 600 to 1100 hPa``, its
+    unit then ``<field>_unit``), else the unit-suffixed name a worksheet key has
+    (``pressure_hPa = 5000 ...``).
     """
-    factor = _factor(PRESSURE_UNITS, unit, "pressure unit")
+    factor = _factor(PRESSURE_UNITS, unit, f"{field}_unit" if field else "pressure unit")
     in_unit = PRESSURE_KPA.scaled(1.0 / factor, unit)
-    return in_unit.check(f"pressure_{unit}", value) * factor
+    return in_unit.check(field or f"pressure_{unit}", value) * factor
 
 
 def N_Dw_Gy_per_nC(value: object, unit: str = "Gy/nC") -> Number:

@@ -39,6 +39,12 @@ T = TypeVar("T")
 
 #: The most error-queue entries read after one command (a queue that never empties is a fault).
 MAX_ERROR_QUEUE_ENTRIES = 32
+#: An answer that takes longer than this share of the profile's timeout counts as slow.
+SLOW_SHARE = 0.5
+#: Answers looked at to tell a slow instrument: the note stays while any of these was slow.
+SLOW_WINDOW = 20
+#: The most stale lines dropped before one command (an instrument that never stops talking).
+MAX_STALE_LINES = 1000
 
 
 class _NoReply(Exception):
@@ -60,6 +66,11 @@ class ProfileElectrometer:
         self.clock = clock
         self._pending: deque[Sample | ProtocolError] = deque()
         self._rendered: dict[str, list[str]] = {}  # commands without arguments, rendered
+        #: The latest answers: seconds each took, or None for a late answer set aside.
+        self._recent: deque[float | None] = deque(maxlen=SLOW_WINDOW)
+        self.late_replies = 0  # answers that came after their command was given up on, in all
+        #: Plain words when answers are late or slow (None while they come in good time).
+        self.reply_note: str | None = None
 
     # -- the Electrometer interface ------------------------------------------------------------
     @property
@@ -165,11 +176,15 @@ class ProfileElectrometer:
         """
         timing = self.profile.timing
         for _ in range(timing.retries + 1):
+            self._drop_stale_lines()
             self.transport.write_line(line)
+            sent_s = time.monotonic()
             try:
-                return self._await_answer(interpret, timing.timeout_s)
+                answer = self._await_answer(interpret, timing.timeout_s)
             except _NoReply:
                 continue
+            self._note_answer_time(time.monotonic() - sent_s)
+            return answer
         if ask_error_queue and self.profile.confirmation.style == "error_queue":
             self._check_error_queue(line)
         raise InstrumentTimeout(
@@ -190,9 +205,72 @@ class ProfileElectrometer:
                     continue
                 return interpret(line)
             except ProtocolError as error:
-                if not push:
+                if push:
+                    self._pending.append(error)
+                elif error.line and self._answers_another_command(error.line):
+                    self._late_reply()  # a late answer to an earlier command: not this one's
+                else:
                     raise
-                self._pending.append(error)
+
+    # -- late and slow answers -----------------------------------------------------------------
+    def _drop_stale_lines(self) -> None:
+        """Before a query, take every line already waiting: in query mode each is a late answer
+        to a command given up on (kept as traffic, counted, never taken as the next answer);
+        in push mode each is a pushed line, kept for next_sample."""
+        if self.profile.mode == "push":
+            return
+        for _ in range(MAX_STALE_LINES):
+            if not self.transport.input_waiting():
+                return
+            try:
+                line = self.transport.read_line(0.0)
+            except ProtocolError:
+                line = True  # an unreadable stale line: dropped all the same
+            if line is None:  # only part of a line: the rest is still to come
+                return
+            self._late_reply()
+
+    def _answers_another_command(self, raw: bytes) -> bool:
+        """Return True if ``raw`` is a well-formed answer of another kind (a reading while a
+        confirmation was awaited, or the reverse): the answer to an earlier command."""
+        line = ReceivedLine(0.0, raw)
+        if self._is_confirmation(line):
+            return True
+        try:
+            self._reading(line)
+        except (ProtocolError, InstrumentReportedError):
+            return False
+        return True
+
+    def _late_reply(self) -> None:
+        self.late_replies += 1
+        self._recent.append(None)
+        self._update_reply_note()
+
+    def _note_answer_time(self, answer_s: float) -> None:
+        self._recent.append(answer_s)
+        self._update_reply_note()
+
+    def _update_reply_note(self) -> None:
+        """Say, from the latest answers, whether answers come late or slow (None: in time)."""
+        timeout_s = self.profile.timing.timeout_s
+        late = sum(1 for s in self._recent if s is None)
+        slow = [s for s in self._recent if s is not None and s > SLOW_SHARE * timeout_s]
+        notes = []
+        if late:
+            notes.append(
+                f"{late} late answer(s) among the last {len(self._recent)} set aside (each came "
+                "after its command was sent again or given up on)"
+            )
+        if slow:
+            notes.append(
+                f"answers are slow: {len(slow)} of the last {len(self._recent)} took over "
+                f"{SLOW_SHARE * timeout_s:g} s (longest {max(slow):.2f} s of the {timeout_s:g} s "
+                "allowed)"
+            )
+        if notes:
+            notes.append("check the cable, the port settings and the instrument")
+        self.reply_note = "; ".join(notes) or None
 
     def _check_error_queue(self, command: str) -> None:
         """Read the error queue until it reports no error; raise if it held any."""

@@ -79,6 +79,15 @@ class SerialTransport(Transport):
         except _port_errors() as error:
             raise InstrumentDisconnected(f"serial port {self.port} went away: {error}") from None
 
+    def input_waiting(self) -> bool:
+        """Return True when bytes wait in this transport's buffer or the port's."""
+        if self._buffer:
+            return True
+        try:
+            return self._serial is not None and self._serial.in_waiting > 0
+        except _port_errors():
+            return True  # the read that follows says the port went away
+
     def _read_available(self, timeout_s: float) -> bytes:
         port = self._serial
         try:

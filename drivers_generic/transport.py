@@ -134,6 +134,11 @@ class Transport(ABC):
             elif chunk is None or remaining <= 0:
                 return None
 
+    def input_waiting(self) -> bool:
+        """Return True when received bytes wait to be read (those already buffered here; a
+        transport that can ask its wire cheaply asks it too)."""
+        return bool(self._buffer)
+
     def discard_input(self) -> None:
         """Drop whatever arrived and was not read yet (stale lines from before an open)."""
         self._buffer.clear()

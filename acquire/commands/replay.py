@@ -73,6 +73,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="the daemon's --time-scale, if the session does not record it",
     )
     parser.add_argument("--dry-run", action="store_true", help="compare only: write no new session")
+    parser.add_argument(
+        "--keep",
+        action="store_true",
+        help="store the replay of a --traffic-log that does not reproduce the session all the "
+        "same, marked as not reproduced (without it, such a replay is compared, not stored)",
+    )
     parser.add_argument("--json", action="store_true", help="print one JSON object")
 
 
@@ -150,6 +156,7 @@ def run(args: argparse.Namespace) -> int:
             profile=args.profile,
             time_scale=args.time_scale,
             dry_run=args.dry_run,
+            keep=args.keep,
         )
         report = replay_session(request)
     except NotFound as error:

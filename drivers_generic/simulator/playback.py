@@ -17,6 +17,7 @@ sent with their recorded spacing divided by ``speed`` (``speed`` 0: as fast as p
 
 from __future__ import annotations
 
+import itertools
 import json
 import logging
 import math
@@ -28,6 +29,12 @@ from pathlib import Path
 from chargebook.drivers_generic.interface import TrafficDirection
 
 log = logging.getLogger("chargebook.simulator.playback")
+
+
+#: The longest line a traffic log may have, in bytes (newline included): an entry holds one
+#: recorded line, which a profile bounds to at most 64 KiB (``max_line_bytes``), six times that
+#: at worst once escaped as JSON.
+MAX_LOG_LINE_BYTES = 1 << 20
 
 
 class PlaybackLogError(ValueError):
@@ -59,9 +66,24 @@ def parse_log(lines: list[str], source: str = "log") -> list[tuple[float, str, s
 
 
 def read_log(path: Path) -> list[tuple[float, str, str]]:
-    """Return the entries of the traffic log at ``path`` (see :func:`parse_log`)."""
-    text = Path(path).read_text(encoding="utf-8", errors="surrogateescape")
-    return parse_log(text.splitlines(), str(path))
+    """Return the entries of the traffic log at ``path`` (see :func:`parse_log`).
+
+    The file is read a line at a time, each at most MAX_LOG_LINE_BYTES: a longer line is
+    refused as soon as that many bytes are read, never held whole in memory.
+    """
+    lines = []
+    with Path(path).open("rb") as log_file:
+        for number in itertools.count(1):
+            raw = log_file.readline(MAX_LOG_LINE_BYTES + 1)
+            if not raw:
+                break
+            if len(raw) > MAX_LOG_LINE_BYTES and not raw.endswith(b"\n"):
+                raise PlaybackLogError(
+                    f"{path} line {number}: longer than {MAX_LOG_LINE_BYTES:,} bytes, so not a "
+                    "traffic log entry (an entry holds one recorded instrument line)"
+                )
+            lines.append(raw.decode("utf-8", errors="surrogateescape").rstrip("\r\n"))
+    return parse_log(lines, str(path))
 
 
 class PlaybackResponder:

@@ -161,7 +161,7 @@ def test_bad_environment_is_refused_naming_the_field_and_loses_nothing():
     session_id = started(engine)
     for args, field in (
         ((80.0, 101.3), "temperature_C"),  # 10–40 °C (common practice)
-        ((21.0, 20.0), "pressure_kPa"),  # 60–110 kPa (common practice)
+        ((21.0, 20.0), "pressure"),  # 60–110 kPa (common practice), named as passed
         (("warm", 101.3), "temperature_C"),
     ):
         with pytest.raises(InputError) as refused:
@@ -413,3 +413,73 @@ def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():
     current = snapshot["current_set"]
     assert current["stats"] is None
     assert "statistics_unavailable" in [flag["code"] for flag in current["flags"]]
+
+
+def test_a_capture_whose_commit_fails_changes_nothing_and_is_taken_again_once_it_can():
+    # a real SQLite refusal to write (the connection made read-only), not a mock
+    engine, clock = make_engine()
+    started(engine)
+    engine.manual_done(actor="R. Okafor")
+    engine.arm()
+    for i in range(1, 11):  # the beam: the charge rises to 20 nC, then holds
+        clock.now += 0.1
+        engine.on_sample(clock.now, 2.0 * i)
+    state, commands, seq = engine.state, list(engine._commands), engine.seq
+    engine.store.db.execute("PRAGMA query_only = 1")
+    clock.now += 1.1  # past the hold time: this sample ends the reading
+    with pytest.raises(Exception, match="readonly"):
+        engine.on_sample(clock.now, 20.0)
+    assert engine.state is state and engine._commands == commands and engine.seq == seq
+    assert engine.reading is not None and engine.active.readings == []
+    engine.set_record_fault("record not writable: the database file is read-only")
+    snapshot = engine.snapshot()
+    assert snapshot["record"] == {
+        "writable": False,
+        "message": "record not writable: the database file is read-only",
+    }
+    assert snapshot["allowed"] == [] and snapshot["prompt"]["kind"] == "record_fault"
+    engine.store.db.execute("PRAGMA query_only = 0")
+    engine.set_record_fault(None)
+    engine.on_sample(clock.now, 20.0)  # the same sample, fed again
+    assert [r.charge_nC for r in engine.active.readings] == [20.0]
+    assert len(engine.store.readings(engine.session_id)) == 1
+
+
+def test_the_drivers_note_on_late_answers_is_the_instruments_message():
+    engine, _ = make_engine()
+    engine.set_reply_note("answers are slow: 3 of the last 3 took over 0.5 s")
+    assert engine.snapshot()["instrument"]["message"] == (
+        "answers are slow: 3 of the last 3 took over 0.5 s"
+    )
+    engine.set_reply_note(None)
+    assert engine.snapshot()["instrument"]["message"] is None
+
+
+def _set_flag_codes(engine: Engine, purpose: str) -> list[str]:
+    entry = next(s for s in engine.snapshot()["sets"] if s["purpose"] == purpose)
+    return [flag["code"] for flag in entry["flags"]]
+
+
+def test_readings_integrated_faster_than_their_mu_can_be_delivered_are_flagged():
+    # each delivery here lasts about 2.1 s on the clock; 100 MU need 2.5 s even at the highest
+    # clinical dose rate (about 2400 MU/min, from memory)
+    engine, clock = make_engine()
+    started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    assert "routine_integration_too_short" in _set_flag_codes(engine, "routine")
+    # the same deliveries at a daemon time scale of 0.1 stand for 21 s each: no flag
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])
+    assert "routine_integration_too_short" not in _set_flag_codes(engine, "routine")
+
+
+def test_a_set_with_half_the_routine_sets_charge_per_mu_is_flagged():
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    into_opposite_set(engine, clock, [-10.3, -10.0, -10.01, -10.0])  # 100 MU each, half charge
+    assert "opposite_charge_per_MU" in _set_flag_codes(engine, "opposite")
+    engine, clock = make_engine(time_scale=0.1)
+    started(engine)
+    into_opposite_set(engine, clock, [-20.3, -20.0, -20.01, -20.0])
+    assert "opposite_charge_per_MU" not in _set_flag_codes(engine, "opposite")

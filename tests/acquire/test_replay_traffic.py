@@ -90,6 +90,14 @@ def cut_short(lines: list[str]) -> list[str]:
     return [lines[0], lines[1][:-3], *lines[2:]]
 
 
+def middle_line_deleted(lines: list[str]) -> list[str]:
+    return [lines[0], *lines[2:]]
+
+
+def middle_line_twice(lines: list[str]) -> list[str]:
+    return [lines[0], lines[1], lines[1], *lines[2:]]
+
+
 def time_as_text(lines: list[str]) -> list[str]:
     return [lines[0], lines[1].replace("10.2625", '"late"'), *lines[2:]]
 
@@ -101,7 +109,16 @@ def time_as_text(lines: list[str]) -> list[str]:
             truncated,
             "is truncated: it ends after line 3, the session recorded 4 lines; it stops at 3",
         ),
-        (one_too_many, "has 5 lines, session 1 recorded 4"),
+        (one_too_many, "has 5 lines, session 1 recorded 4: log line 5 repeats line 4"),
+        (
+            middle_line_deleted,
+            "has 3 lines, session 1 recorded 4: line 2 of the session (rx 'OK', at 1) is "
+            "missing from the log, deleted between log lines 1 and 2",
+        ),
+        (
+            middle_line_twice,
+            "has 5 lines, session 1 recorded 4: log line 3 repeats line 2 ('OK')",
+        ),
         (
             wrong_direction,
             "line 2: dir = 'tx' is not allowed; session 1 recorded 'rx' there (at 1)",

@@ -148,15 +148,23 @@ def station(
     prefix: str, profile: str | Path = "tallyline", *simulator_options: str
 ) -> Iterator[Station]:
     """Yield a Station with a running simulator; everything is stopped and removed afterwards."""
-    with scratch(prefix) as workdir:
-        args = ["simulate", "--serial", "--profile", str(profile), *simulator_options]
-        simulator = start_child("simulated electrometer", args, workdir / "simulator.log")
-        info = simulator.info
-        world = Station(workdir, profile, info["serial"], info["control"], simulator)
-        try:
-            yield world
-        finally:
-            world.stop()
+    with scratch(prefix) as workdir, station_in(workdir, profile, *simulator_options) as world:
+        yield world
+
+
+@contextlib.contextmanager
+def station_in(
+    workdir: Path, profile: str | Path = "tallyline", *simulator_options: str
+) -> Iterator[Station]:
+    """Yield a Station in ``workdir`` with a running simulator; stop everything afterwards."""
+    args = ["simulate", "--serial", "--profile", str(profile), *simulator_options]
+    simulator = start_child("simulated electrometer", args, workdir / "simulator.log")
+    info = simulator.info
+    world = Station(workdir, profile, info["serial"], info["control"], simulator)
+    try:
+        yield world
+    finally:
+        world.stop()
 
 
 async def arm_first_step(client: DaemonClient, metadata: dict[str, Any] | None = None) -> dict:

@@ -8,8 +8,10 @@ import pytest
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import (
     Thresholds,
+    charge_per_MU_flags,
     environment_flags,
     humidity_flags,
+    integration_time_flags,
     k_pol_flags,
     k_s_flags,
     leakage_flags,
@@ -188,3 +190,22 @@ def test_a_set_of_identical_readings_is_flagged_as_a_possibly_frozen_electromete
         set_flags("routine", set_statistics([19.6000, 19.6000]), LIMITS)
     )  # two equal readings at the display's resolution happen
     assert set_flags("routine", set_statistics([19.6000, 19.6000, 19.6001]), LIMITS) == []
+
+
+def test_an_integration_shorter_than_any_delivery_of_its_mu_is_flagged() -> None:
+    # 100 MU at the highest clinical dose rate, about 2400 MU/min (FFF beams, from memory),
+    # take 2.5 s: a 0.2 s integration cannot hold them; 10 s (600 MU/min) can.
+    flags = integration_time_flags("routine", "routine", [10.0, 0.2, 9.8], 100.0)
+    assert codes(flags) == ["routine_integration_too_short"]
+    assert "0.2 s" in flags[0].message and "2.5 s" in flags[0].message
+    assert integration_time_flags("routine", "routine", [10.0, 2.6], 100.0) == []
+    assert integration_time_flags("leakage", "leakage", [0.1], 0.0) == []
+
+
+def test_a_charge_per_mu_far_from_the_routine_sets_is_flagged() -> None:
+    # Polarity moves the charge by tenths of a percent and recombination at half the bias by a
+    # few percent (TRS-398 k_pol, k_s; common practice): 0.196 vs 0.1960 nC/MU is fine, half is not
+    assert charge_per_MU_flags("reduced-bias", "reduced", 0.191, "routine", 0.196) == []
+    flags = charge_per_MU_flags("opposite-polarity", "opposite", -0.098, "routine", 0.196)
+    assert codes(flags) == ["opposite_charge_per_MU"]
+    assert "-50.0 %" in flags[0].message and "MU delivered" in flags[0].message

@@ -26,6 +26,17 @@ def test_pressure_range_is_checked_in_the_unit_entered() -> None:
     assert "600 to 1100 hPa" in str(caught.value)
 
 
+def test_a_pressure_given_under_another_name_is_refused_under_that_name() -> None:
+    # the daemon's environment.set takes "pressure" and "pressure_unit": name those, not kPa
+    with pytest.raises(InputError) as caught:
+        pressure_kPa(5000.0, "hPa", field="pressure")
+    assert caught.value.field == "pressure"
+    assert str(caught.value) == "pressure = 5000 is outside the allowed range 600 to 1100 hPa"
+    with pytest.raises(InputError) as caught:
+        pressure_kPa(1.0, "bar", field="pressure")
+    assert caught.value.field == "pressure_unit"
+
+
 def test_unknown_pressure_unit_is_refused() -> None:
     with pytest.raises(InputError, match="psi"):
         pressure_kPa(14.7, "psi")

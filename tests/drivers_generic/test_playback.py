@@ -9,10 +9,12 @@ import pytest
 from chargebook.drivers_generic import load_profile, open_electrometer
 from chargebook.drivers_generic.readout import capture_reading
 from chargebook.drivers_generic.simulator.playback import (
+    MAX_LOG_LINE_BYTES,
     PlaybackLogError,
     PlaybackResponder,
     TrafficRecorder,
     parse_log,
+    read_log,
 )
 
 from .conftest import FAST, capture
@@ -135,3 +137,24 @@ def test_a_push_playback_at_speed_0_delivers_every_byte_to_a_slow_reader(tmp_pat
         server.stop()
     got = bytes(received).decode().split(framing.read_terminator.decode())
     assert got[:-1] == lines and got[-1] == ""
+
+
+def test_a_log_line_over_the_bound_is_refused_naming_it_without_reading_it_whole(tmp_path):
+    path = tmp_path / "session.jsonl"
+    good = '{"t_s": 1.0, "dir": "tx", "line": "Q?"}\n'
+    with path.open("w") as log:
+        log.write(good)
+        log.write('{"t_s": 2.0, "dir": "rx", "line": "' + "9" * (3 * MAX_LOG_LINE_BYTES) + '"}\n')
+        log.write(good)
+    with pytest.raises(PlaybackLogError) as refused:
+        read_log(path)
+    message = str(refused.value)
+    assert f"{path} line 2: longer than 1,048,576 bytes" in message
+
+
+def test_a_log_line_just_within_the_bound_is_read(tmp_path):
+    path = tmp_path / "session.jsonl"
+    head, tail = '{"t_s": 1.0, "dir": "rx", "line": "', '"}\n'
+    body = "9" * (MAX_LOG_LINE_BYTES - len(head) - len(tail))
+    path.write_text(head + body + tail)
+    assert read_log(path) == [(1.0, "rx", body)]

@@ -530,6 +530,41 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_
         assert len(store.sessions()) == sessions_before
 
 
+def edit_reading_values(lines: list[str]) -> list[str]:
+    """Return the log with every beam charge of 10 to 20 nC raised by 10 nC (valid lines)."""
+    edited = []
+    for text in lines:
+        entry = json.loads(text)
+        if entry["dir"] == "rx" and entry["line"].startswith("Q +1"):
+            entry["line"] = entry["line"].replace("Q +1", "Q +2", 1)
+        edited.append(json.dumps(entry))
+    assert edited != lines, "no reading line with a beam charge in the log"
+    return edited
+
+
+def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_marked(
+    station: Station, capsys
+):
+    db = copy_of(station, "log-edited.sqlite")
+    log = station.work / "edited.jsonl"
+    lines = edit_reading_values(traffic_log(station, log, station.clean, capsys))
+    log.write_text("\n".join(lines) + "\n")
+    before = file_state(db)
+    done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
+    assert done.returncode == 1, done.stdout + done.stderr
+    assert "NOT reproduced" in done.stdout and "(not stored)" in done.stdout
+    assert "not stored: the traffic log" in done.stdout and "pass --keep" in done.stdout
+    assert file_state(db) == before  # nothing written
+    kept = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log), "--keep")
+    assert kept.returncode == 1, kept.stdout + kept.stderr
+    assert "NOT reproduced" in kept.stdout and "(not stored)" not in kept.stdout
+    with Store.open(db, read_only=True) as store:
+        replay_id = store.sessions()[-1].id
+        assert store.session(replay_id).replay_of == station.clean
+        marks = [e for e in store.events(replay_id) if e.kind == "replay_not_reproduced"]
+    assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
+
+
 # ---------------------------------------------------------------------------- bad requests
 def replay_in_process(capsys, db: Path, session_id: int, *options: str) -> tuple[int, str]:
     """Run `chargebook replay` in this process (for refusals, which start nothing)."""

@@ -14,7 +14,7 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["kill9", "drop", "fuzz_lines", "bad_rpc"]
+SCRIPTS = ["kill9", "drop", "fuzz_lines", "bad_rpc", "store_faults", "stalled_clients"]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)

@@ -20,6 +20,9 @@ def status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str,
         return "Connected to the daemon; waiting for its state…", False
     instrument = snapshot.get("instrument") or {}
     session = snapshot_view.session_text(snapshot)
+    record = snapshot.get("record") or {}
+    if record.get("message"):
+        return f"!! {record['message']} — do not deliver beam · {session}", True
     if not instrument.get("connected"):
         return f"{snapshot_view.instrument_text(snapshot)} · {session}", True
     return f"{session} · electrometer connected", False
