@@ -16,6 +16,9 @@ What it gathers, from the store:
   when that set was taken: the entry recorded last at or before the set's first reading (the
   first entry of the session when none was recorded before it). ``corrections`` refers each
   set's mean to reference air with it before forming k_pol and k_s.
+* the carried k_pol and k_s of an output check, as copied into the session's metadata when it
+  started (``carried_k_pol``, ``carried_k_s``; :mod:`chargebook.acquire.carried_start`), so a
+  later session never changes an old record's results.
 
 Nothing here computes physics.
 """
@@ -264,5 +267,7 @@ def _inputs(
         thresholds=context.thresholds,
         set_environments=per_set,
         subtract_leakage=meta.subtract_leakage,
+        carried=meta.carried(),
+        measured_on=meta.measured_on(),
     )
     return inputs, chosen.provisional
