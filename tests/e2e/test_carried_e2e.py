@@ -8,6 +8,8 @@ with them.
 
 from __future__ import annotations
 
+import json
+import subprocess
 from pathlib import Path
 
 import pytest
@@ -15,6 +17,7 @@ from chargebook.acquire.client import DaemonError
 from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
 from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.store import Store
+from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
 pytestmark = pytest.mark.e2e
 
@@ -76,3 +79,30 @@ async def test_an_output_check_with_nothing_to_carry_is_refused_in_words(
     await client.close()
     with Store.open(daemon.db, read_only=True) as store:
         assert store.sessions() == []  # nothing was started, nothing recorded is lost
+
+
+def test_demo_monthly_check_after_a_full_calibration_gives_a_dose_with_carried_factors(tmp_path):
+    db = tmp_path / "demo.sqlite"
+
+    def demo(plan: str, *more: str) -> subprocess.CompletedProcess[str]:
+        command = chargebook_command(
+            "demo", "--unattended", "--db", str(db), "--plan", plan,
+            "--time-scale", str(TIME_SCALE), *more,
+        )  # fmt: skip
+        return subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
+
+    refused = demo("monthly-check")
+    assert refused.returncode != 0
+    assert "no finished full calibration of HCC-LA1 6 MV" in refused.stderr
+    full = demo(QUICK_PLAN, "--json")
+    assert full.returncode == 0, full.stderr
+    check = demo("monthly-check", "--json")
+    assert check.returncode == 0, check.stderr
+    full_document, document = json.loads(full.stdout), json.loads(check.stdout)
+    assert document["factor_states"]["k_pol"] == document["factor_states"]["k_s"] == "carried"
+    assert (document["k_pol"], document["k_s"]) == (full_document["k_pol"], full_document["k_s"])
+    source = f"session {full_document['session_id']} of "
+    assert source in document["factor_sources"]["k_s"]
+    assert document["dose_Gy"] is not None
+    table = demo("monthly-check").stdout
+    assert "k_pol carried: session" in table and "full calibration" in table
