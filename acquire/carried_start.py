@@ -14,8 +14,9 @@ last full calibration in this station file. That is the newest session that
 
 The factor's value, its Type A uncertainty in that session, the session's id and date are
 copied into the new session's metadata, so the record holds what was used and a later session
-never changes an old record's results. When nothing can be carried, the start is refused in
-words that say what to do. A factor both carried and measured by the plan is refused.
+never changes an old record's results. When nothing can be carried (no such calibration, or
+only one with another chamber or electrometer) the factor stays pending and so does the dose,
+as for any plan that lacks readings. A factor both carried and measured by the plan is refused.
 """
 
 from __future__ import annotations
@@ -67,6 +68,8 @@ def carried_metadata(
             continue
         if given is None:
             given = _from_full_calibration(store, result, key)
+        if given is None:
+            continue  # nothing to carry: the factor stays pending, as with no readings
         result[name] = {**given, "session_date": given.get("session_date") or today}
     return result
 
@@ -88,8 +91,11 @@ def _full_calibrations(store: Store, metadata: Mapping[str, Any]) -> list[Sessio
     ]
 
 
-def _from_full_calibration(store: Store, metadata: Mapping[str, Any], key: str) -> dict[str, Any]:
-    """Return the carried-factor object of ``key`` from the beam's last full calibration."""
+def _from_full_calibration(
+    store: Store, metadata: Mapping[str, Any], key: str
+) -> dict[str, Any] | None:
+    """Return the carried-factor object of ``key`` from the beam's last full calibration with
+    this chamber and electrometer, or None when there is none."""
     candidates = _full_calibrations(store, metadata)
     for row in candidates:
         if not _matches(row, metadata, MATCHED_FIELDS[2:]):
@@ -110,28 +116,4 @@ def _from_full_calibration(store: Store, metadata: Mapping[str, Any], key: str) 
             "electrometer_serial": metadata["electrometer_serial"],
             "from_session": row.id,
         }
-    raise InputError(
-        f"carried_{key}",
-        None,
-        f"a carried_{key} object {{value, source, date}} in the session's details, or a "
-        "finished full calibration of this beam with this chamber and electrometer",
-        _not_found_words(candidates, metadata, key),
-    )
-
-
-def _not_found_words(candidates: list[SessionRow], metadata: Mapping[str, Any], key: str) -> str:
-    """Return why no full calibration can give ``key``, naming another chamber if that is why."""
-    words = (
-        f"is needed: this plan does not measure {key}, and no finished full calibration of "
-        f"{metadata['treatment_machine']} {metadata['beam']} with chamber "
-        f"{metadata['chamber_serial']} and electrometer {metadata['electrometer_serial']} is "
-        "recorded in this station file"
-    )
-    if candidates:
-        other = candidates[0].metadata()
-        words += (
-            f" (the last full calibration of this beam, session {candidates[0].id}, used chamber "
-            f"{other.get('chamber_serial')} and electrometer {other.get('electrometer_serial')}: "
-            "a factor from another chamber or electrometer is not carried)"
-        )
-    return words
+    return None
