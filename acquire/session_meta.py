@@ -58,7 +58,12 @@ from dataclasses import asdict, dataclass, fields
 from typing import Any
 
 from chargebook.corrections import dose, limits, units
-from chargebook.corrections.carried import CarriedFactor, carried_factor, parse_date
+from chargebook.corrections.carried import (
+    CarriedFactor,
+    carried_factor,
+    checked_text,
+    parse_date,
+)
 from chargebook.corrections.conventions import parse_convention
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Uncertainties
@@ -154,17 +159,9 @@ def _text(data: Mapping[str, Any], name: str, *, required: bool, longest: int) -
     value = data.get(name)
     if value is None and not required:
         return None
-    allowed = f"a text of 1 to {longest} characters"
     if value is None:
-        raise InputError(name, None, allowed, "is missing")
-    if not isinstance(value, str):
-        raise InputError(name, value, allowed, "is not text")
-    stripped = value.strip()
-    if not stripped:
-        raise InputError(name, value, allowed, "is empty")
-    if len(stripped) > longest:
-        raise InputError(name, f"{stripped[:20]}…", allowed, f"has {len(stripped)} characters")
-    return stripped
+        raise InputError(name, None, f"a text of 1 to {longest} characters", "is missing")
+    return checked_text(name, value, longest)
 
 
 def _number(data: Mapping[str, Any], name: str, check: limits.Range, *, required: bool) -> Any:

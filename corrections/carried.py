@@ -63,16 +63,23 @@ def parse_date(field: str, value: object) -> datetime.date:
         raise InputError(field, value, DATE_WORDS, "is not a date") from None
 
 
-def _source(field: str, value: object) -> str:
-    allowed = f"a text of 1 to {MAX_SOURCE} characters saying where the value came from"
+def checked_text(field: str, value: object, longest: int, allowed: str = "") -> str:
+    """Return ``value`` stripped; InputError naming ``field`` unless a text of 1 to ``longest``
+    characters (``allowed`` says what is allowed, by default in those words)."""
+    allowed = allowed or f"a text of 1 to {longest} characters"
     if not isinstance(value, str):
         raise InputError(field, value, allowed, "is not text")
     text = value.strip()
     if not text:
         raise InputError(field, value, allowed, "is empty")
-    if len(text) > MAX_SOURCE:
+    if len(text) > longest:
         raise InputError(field, f"{text[:20]}…", allowed, f"has {len(text)} characters")
     return text
+
+
+def _source(field: str, value: object) -> str:
+    allowed = f"a text of 1 to {MAX_SOURCE} characters saying where the value came from"
+    return checked_text(field, value, MAX_SOURCE, allowed)
 
 
 def carried_factor(field: str, data: object, on: str | None = None) -> CarriedFactor:
