@@ -27,10 +27,10 @@ from typing import Any
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.store import SessionRow, Store
+from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
+from chargebook.corrections.stability import SET_NAMES
 
-#: Carried factor -> the plan purpose that measures it, and that purpose's name in words.
-MEASURED_BY = {"k_pol": ("opposite", "opposite-polarity"), "k_s": ("reduced", "reduced-bias")}
 #: The metadata fields a full calibration must share with the output check.
 MATCHED_FIELDS = ("treatment_machine", "beam", "chamber_serial", "electrometer_serial")
 FULL_CALIBRATION = "full calibration"
@@ -54,7 +54,8 @@ def carried_metadata(
     """
     result = dict(metadata)
     purposes = {step.purpose for step in plan.steps}
-    for key, (purpose, words) in MEASURED_BY.items():
+    for key, purpose in MEASURED_BY.items():
+        words = SET_NAMES[purpose]
         name = f"carried_{key}"
         given = result.get(name)
         if purpose in purposes:

@@ -33,6 +33,7 @@ from chargebook.acquire import live
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
+from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
 from chargebook.corrections.set_air import SetEnvironment
@@ -269,5 +270,10 @@ def _inputs(
         subtract_leakage=meta.subtract_leakage,
         carried=meta.carried(),
         measured_on=meta.measured_on(),
+        not_measured=tuple(
+            key
+            for key, purpose in MEASURED_BY.items()
+            if all(step.purpose != purpose for step in plan.steps)
+        ),
     )
     return inputs, chosen.provisional

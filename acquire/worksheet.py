@@ -46,7 +46,13 @@ from types import MappingProxyType
 from typing import Any
 
 from chargebook.corrections import units
-from chargebook.corrections.carried import CARRIED_KEYS, CarriedFactor, carried_factor, parse_date
+from chargebook.corrections.carried import (
+    CARRIED_KEYS,
+    MEASURED_BY,
+    CarriedFactor,
+    carried_factor,
+    parse_date,
+)
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
 from chargebook.corrections.set_air import SetEnvironment
@@ -336,6 +342,11 @@ def parse_worksheet(
         set_environments=per_set,
         carried=_carried(sections["carried"], measured_on) if measured_on else {},
         measured_on=measured_on,
+        not_measured=tuple(
+            key
+            for key, set_key in MEASURED_BY.items()
+            if not readings.get(f"{set_key}_nC") and key not in sections["carried"]
+        ),
     )
     return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))
 

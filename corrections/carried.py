@@ -24,6 +24,8 @@ from chargebook.corrections.errors import Flag, InputError
 
 #: The factors that may be carried (the ones a routine-only session cannot measure).
 CARRIED_KEYS: tuple[str, ...] = ("k_pol", "k_s")
+#: The reading set (and plan purpose) whose readings measure each factor that may be carried.
+MEASURED_BY: dict[str, str] = {"k_pol": "opposite", "k_s": "reduced"}
 #: The keys of one carried factor's table, required first.
 REQUIRED_KEYS: tuple[str, ...] = ("value", "source", "date")
 OPTIONAL_KEYS: tuple[str, ...] = ("u_pct", "u_source")
@@ -133,6 +135,17 @@ def _required_words(key: str) -> str:
 def state_source(factor: CarriedFactor) -> str:
     """Return the words shown beside a carried factor: its source and date."""
     return f"carried: {factor.source}, dated {factor.date}"
+
+
+def not_measured_flag(key: str, symbol: str, set_name: str) -> Flag:
+    """Return the warning for a factor the measurement does not measure and nobody carried."""
+    return Flag(
+        f"{key}_not_measured",
+        f"{symbol} is pending: this measurement takes no {set_name} readings and no {symbol} "
+        "was carried, so the dose is pending too. For an output check, carry it from the "
+        f"beam's full calibration (a worksheet's [carried] table; a session's carried_{key}, "
+        "or a finished full calibration of the beam with the same chamber and electrometer).",
+    )
 
 
 def age_flags(

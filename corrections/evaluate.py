@@ -126,6 +126,8 @@ class MeasurementInputs:
     a factor both carried and measured (its readings given) is refused. ``measured_on``: the
     measurement's date (YYYY-MM-DD); a carried factor dated after it is refused, one older
     than ``thresholds.carried_max_age_days`` is flagged. None: neither is checked.
+    ``not_measured``: the factors (k_pol, k_s) this measurement will not measure (its plan has
+    no such step, or a worksheet no such readings); one of them still pending is flagged.
     """
 
     convention: str = "trs398"
@@ -154,6 +156,7 @@ class MeasurementInputs:
     subtract_leakage: bool = False
     carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
     measured_on: str | None = None
+    not_measured: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -526,10 +529,6 @@ def _factor_k_s(
     return Factor(symbol, value, "measured", u_rel, source)
 
 
-#: The reading set whose readings measure each factor that may be carried.
-_MEASURED_BY = {"k_pol": "opposite", "k_s": "reduced"}
-
-
 def _carried_or(
     key: str, checked: _Checked, sets: Mapping[str, SetStatistics | None], measured: Factor
 ) -> Factor:
@@ -541,7 +540,7 @@ def _carried_or(
     factor = checked.carried.get(key)
     if factor is None:
         return measured
-    set_key = _MEASURED_BY[key]
+    set_key = carried_module.MEASURED_BY[key]
     if sets[set_key] is not None:
         raise InputError(
             f"carried.{key}",
@@ -832,6 +831,10 @@ def _session_flags(
         + ([checked.pressure_kPa] if checked.pressure_kPa is not None else [])
     )
     flags += stability.environment_flags(temperatures, pressures, limits_)
+    for key in inputs.not_measured:
+        if factors[key].state == "pending":
+            set_name = stability.SET_NAMES[carried_module.MEASURED_BY[key]]
+            flags.append(carried_module.not_measured_flag(key, factors[key].symbol, set_name))
     for key, carried in checked.carried.items():
         flags += carried_module.age_flags(
             key, factors[key].symbol, carried, inputs.measured_on, limits_.carried_max_age_days

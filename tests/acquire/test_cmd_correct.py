@@ -123,6 +123,9 @@ def test_partial_worksheet_shows_pending(tmp_path: Path) -> None:
     result = json.loads(correct(sheet, "--json").stdout)
     assert result["dose_Gy"] is None
     assert result["factor_states"]["k_pol"] == "pending"
+    # No opposite or reduced readings and nothing carried: said in words, not silently null.
+    codes = [flag["code"] for flag in result["flags"]]
+    assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
 
 
 def test_charge_uncertainty_is_given_while_the_dose_is_pending(tmp_path: Path) -> None:

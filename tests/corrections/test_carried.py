@@ -75,6 +75,16 @@ def test_carried_uncertainty_is_a_type_b_line_and_not_given_is_flagged(session: 
     assert mc == pytest.approx(result.u_combined_pct, rel=0.02)
 
 
+def test_a_factor_not_measured_is_flagged_only_while_nothing_is_carried(session: Session) -> None:
+    def codes(**changes: object) -> list[str]:
+        result = evaluate(routine_only(session, not_measured=("k_pol", "k_s"), **changes))
+        return [flag.code for flag in result.flags]
+
+    assert "k_pol_not_measured" not in codes()
+    assert "k_pol_not_measured" in codes(carried={"k_s": K_S})
+    assert "k_s_not_measured" not in codes(carried={"k_s": K_S})
+
+
 def test_both_measured_and_carried_is_refused_by_name(session: Session) -> None:
     with pytest.raises(InputError, match=r"carried\.k_pol .*is both measured and carried"):
         evaluate(session(carried={"k_pol": K_POL}))

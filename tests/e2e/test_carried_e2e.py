@@ -80,6 +80,8 @@ async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from
     # The only full calibration used another chamber: nothing is carried, the dose is pending.
     assert check["results"]["factor_states"]["k_pol"] == "pending"
     assert check["results"]["dose_Gy"] is None
+    codes = [flag["code"] for flag in check["results"]["flags"]]
+    assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
 
 
 def test_demo_monthly_check_after_a_full_calibration_gives_a_dose_with_carried_factors(tmp_path):
