@@ -55,6 +55,18 @@ async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit
     # Live results and the stored record's one evaluation agree.
     assert stored["dose_Gy"] == results["dose_Gy"]
     assert stored["factor_sources"] == results["factor_sources"]
+    # A replay of the output check reproduces it exactly, with the copied factors.
+    daemon.stop()
+    command = chargebook_command("replay", str(check_id), "--db", str(daemon.db), "--speed", "0")
+    done = subprocess.run(
+        [*command, "--json"], capture_output=True, text=True, timeout=120, check=False
+    )
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["reproduced"] is True and report["differences"] == []
+    with Store.open(daemon.db, read_only=True) as store:
+        replayed = evaluate_session(store, report["replay_session_id"]).results()
+    assert replayed == stored
 
 
 async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from_one(
