@@ -120,3 +120,17 @@ def test_entered_factors_are_kept_and_a_measured_one_cannot_also_be_carried(stor
     full_plan = load_plan("default")
     with pytest.raises(InputError, match=r"carried_k_pol .*is both measured and carried"):
         carried_metadata(store, example_metadata(carried_k_pol=entered), full_plan, TODAY)
+
+
+def test_an_old_entered_factor_is_flagged_against_the_sessions_own_start_date(
+    store: Store,
+) -> None:
+    old = {"value": 1.0011, "source": "annual calibration report", "date": "2025-11-01"}
+    metadata = carried_metadata(
+        store, example_metadata(carried_k_pol=old, carried_k_s=old), MONTHLY, TODAY
+    )
+    results = evaluate_session(store, record_output_check(store, metadata)).results()
+    flag = next(f for f in results["flags"] if f["code"] == "k_pol_carried_old")
+    assert "397 days" in flag["message"]  # 2025-11-01 to 2026-12-03, the session's start
+    assert results["carried"]["k_s"]["age_days"] == 397
+    assert results["factor_states"]["k_s"] == "carried" and results["dose_Gy"] is not None
