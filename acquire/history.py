@@ -19,7 +19,7 @@ from __future__ import annotations
 import statistics
 from dataclasses import dataclass
 
-from chargebook.acquire.carried_start import session_kind
+from chargebook.acquire.carried_start import OUTPUT_CHECK, session_kind
 from chargebook.acquire.report_data import SessionRecord, load_record
 from chargebook.acquire.report_sections import Table, number, signed, when
 from chargebook.acquire.store import NotFound, SessionRow, Store
@@ -194,6 +194,24 @@ def load_history(
         baseline_cGy_per_MU=value,
         points=tuple(_point(record, value) for record in records),
     )
+
+
+#: Marks an output check's session id in the terminal plot, and the legend saying so.
+OUTPUT_CHECK_MARK = "*"
+OUTPUT_CHECK_LEGEND = (
+    f"{OUTPUT_CHECK_MARK} after a session id: an output check (k_pol, k_s carried)"
+)
+
+
+def plot_labels(history: History) -> tuple[list[str], str | None]:
+    """Return the session ids to label the plot's columns (output checks marked), and the
+    legend line for the mark (None when no output check is listed)."""
+    labels = [
+        f"{p.session_id}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}"
+        for p in history.points
+    ]
+    marked = any(p.kind == OUTPUT_CHECK for p in history.points)
+    return labels, OUTPUT_CHECK_LEGEND if marked else None
 
 
 def history_table(history: History) -> Table:

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.carried_start import carried_metadata
-from chargebook.acquire.history import history_table, load_history
+from chargebook.acquire.history import history_table, load_history, plot_labels
 from chargebook.acquire.plan import load_plan
 from chargebook.acquire.report_html import history_html
 from chargebook.acquire.session_evaluation import evaluate_session
@@ -89,6 +89,9 @@ def test_an_output_checks_record_keeps_its_copy_and_history_tells_kinds_apart(
     page = history_html(history, table, "now")
     assert page.count('data-kind="output check"') == 1
     assert page.count('class="point hollow') == 1
+    labels, legend = plot_labels(history)
+    assert labels == [str(full_id), f"{check_id}*", str(check_id + 1)]
+    assert legend is not None and "output check" in legend
 
 
 def test_a_factor_from_another_chamber_or_electrometer_is_refused(store: Store) -> None:
