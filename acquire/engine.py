@@ -38,6 +38,7 @@ from typing import Any
 
 from chargebook.acquire import live
 from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
+from chargebook.acquire.carried_start import MEASURED_BY, carried_metadata
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
 from chargebook.acquire.session_evaluation import SessionContext, evaluate_session
 from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
@@ -51,6 +52,8 @@ S = EngineState
 DAEMON_ACTOR = "daemon"
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
+#: The event recording the carried k_pol and k_s copied into a session at its start.
+CARRIED_EVENT = "carried_factors"
 
 
 @dataclass(frozen=True, slots=True)
@@ -264,8 +267,12 @@ class Engine:
     ) -> int:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
-        checked = live.validate_metadata(metadata)
         resolved = live.resolve_plan(plan if plan is not None else self.default_plan)
+        checked = live.validate_metadata(
+            carried_metadata(
+                self.store, live.validate_metadata(metadata), resolved, self.store.stamp()[:10]
+            )
+        )
         session_id = self.store.create_session(
             metadata=checked,
             plan=resolved.to_dict(),
@@ -279,6 +286,9 @@ class Engine:
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._event(actor, live.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale)
+        carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
+        if carried:
+            self._event(actor, CARRIED_EVENT, **carried)
         if checked.get("subtract_leakage"):
             self._event(actor, live.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
         if self.identity is not None:

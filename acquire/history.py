@@ -10,7 +10,8 @@ baseline is one of:
 * a number: a dose per MU in cGy/MU.
 
 The tolerance band of each session is the tolerance it was evaluated with (entered, or the
-library's default from AAPM TG-142).
+library's default from AAPM TG-142). Each session's kind says whether it measured k_pol and k_s
+("full calibration") or carried them ("output check").
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from __future__ import annotations
 import statistics
 from dataclasses import dataclass
 
+from chargebook.acquire.carried_start import OUTPUT_CHECK, session_kind
 from chargebook.acquire.report_data import SessionRecord, load_record
 from chargebook.acquire.report_sections import Table, number, signed, when
 from chargebook.acquire.store import NotFound, SessionRow, Store
@@ -46,6 +48,8 @@ class HistoryPoint:
     #: The codes of the session's warning and error flags (info flags left out), as ``show``
     #: and the console list them.
     flags: tuple[str, ...] = ()
+    #: "full calibration" (the plan measures k_pol and k_s) or "output check" (they are carried).
+    kind: str = ""
 
 
 @dataclass(frozen=True)
@@ -127,6 +131,7 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         within_tolerance=within,
         problem=problem,
         flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
+        kind=session_kind(record.session.plan()),
     )
 
 
@@ -191,6 +196,24 @@ def load_history(
     )
 
 
+#: Marks an output check's session id in the terminal plot, and the legend saying so.
+OUTPUT_CHECK_MARK = "*"
+OUTPUT_CHECK_LEGEND = (
+    f"{OUTPUT_CHECK_MARK} after a session id: an output check (k_pol, k_s carried)"
+)
+
+
+def plot_labels(history: History) -> tuple[list[str], str | None]:
+    """Return the session ids to label the plot's columns (output checks marked), and the
+    legend line for the mark (None when no output check is listed)."""
+    labels = [
+        f"{p.session_id}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}"
+        for p in history.points
+    ]
+    marked = any(p.kind == OUTPUT_CHECK for p in history.points)
+    return labels, OUTPUT_CHECK_LEGEND if marked else None
+
+
 def history_table(history: History) -> Table:
     """Return the history as a table: one row per session."""
     within = {None: "—", True: "yes", False: "NO"}
@@ -200,6 +223,7 @@ def history_table(history: History) -> Table:
             when(p.created_at),
             p.machine,
             p.status,
+            p.kind,
             number(p.dose_per_MU_cGy, 4, "—"),
             number(p.expected_cGy_per_MU, 4, "—"),
             signed(p.deviation_pct, 2, "—"),
@@ -217,6 +241,7 @@ def history_table(history: History) -> Table:
             "date",
             "machine",
             "status",
+            "kind",
             "dose/MU (cGy/MU)",
             "expected",
             "deviation (%)",

@@ -493,9 +493,10 @@ class Snapshot(TypedDict):
     ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
     entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
     in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
-    *pending* (``factor_states``) and values that depend on them are null. While a set of a
-    step without an accepted set is being collected, its readings are included provisionally and
-    ``results_provisional`` is true.
+    *pending* (``factor_states``) and values that depend on them are null; k_pol and k_s of an
+    output check are *carried* (``results["carried"]``: value, source, date, age_days). While a
+    set of a step without an accepted set is being collected, its readings are included
+    provisionally and ``results_provisional`` is true.
     """
 
     seq: int  # increases with every snapshot

@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from html import escape
 
+from chargebook.acquire.carried_start import OUTPUT_CHECK
 from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.history import History
 from chargebook.acquire.report_data import SessionRecord, SetRecord
@@ -141,8 +142,10 @@ def history_html(history: History, history_table: Table, generated: str) -> str:
             x=float(index),
             y=point.deviation_pct,
             alarm=not point.within_tolerance,
+            hollow=point.kind == OUTPUT_CHECK,
             attrs={
                 "session-id": str(point.session_id),
+                "kind": point.kind,
                 "dose-per-mu-cgy": repr(point.dose_per_MU_cGy),
                 "deviation-pct": repr(point.deviation_pct),
             },
@@ -163,7 +166,8 @@ def history_html(history: History, history_table: Table, generated: str) -> str:
     caption = (
         f"Dose per MU by session, as a deviation from {escape(history.baseline_label)}; "
         + (f"the band is the ±{tolerance:g} % tolerance. " if tolerance is not None else "")
-        + "Red points lie outside their session's tolerance."
+        + "Red points lie outside their session's tolerance. Filled points are full "
+        "calibrations; hollow points are output checks, whose k_pol and k_s were carried."
     )
     figure = f'<figure data-key="history-plot">{svg}<figcaption>{caption}</figcaption></figure>'
     title = f"chargebook output history: {history.beam}"

@@ -16,6 +16,9 @@ What it gathers, from the store:
   when that set was taken: the entry recorded last at or before the set's first reading (the
   first entry of the session when none was recorded before it). ``corrections`` refers each
   set's mean to reference air with it before forming k_pol and k_s.
+* the carried k_pol and k_s of an output check, as copied into the session's metadata when it
+  started (``carried_k_pol``, ``carried_k_s``; :mod:`chargebook.acquire.carried_start`), so a
+  later session never changes an old record's results.
 
 Nothing here computes physics.
 """
@@ -30,6 +33,7 @@ from chargebook.acquire import live
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
+from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
 from chargebook.corrections.set_air import SetEnvironment
@@ -264,5 +268,12 @@ def _inputs(
         thresholds=context.thresholds,
         set_environments=per_set,
         subtract_leakage=meta.subtract_leakage,
+        carried=meta.carried(),
+        measured_on=meta.measured_on(),
+        not_measured=tuple(
+            key
+            for key, purpose in MEASURED_BY.items()
+            if all(step.purpose != purpose for step in plan.steps)
+        ),
     )
     return inputs, chosen.provisional

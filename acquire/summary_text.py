@@ -101,6 +101,12 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
         if truth is not None and key in truth:
             row += f"{truth[key]:>17.5f}"
         lines.append(row)
+    sources = document.get("factor_sources", {})
+    lines += [
+        f"{symbols.get(key, key)} {sources.get(key, 'carried')}"
+        for key in FACTORS
+        if states.get(key) == "carried"
+    ]
     unit = "%"
     lines += [
         "",

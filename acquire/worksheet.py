@@ -19,6 +19,13 @@ A worksheet holds one session::
     [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct (give it with k_elec: without
                    it an entered k_elec is left out of u_c and flagged)
     [thresholds]   any field of chargebook.corrections.stability.Thresholds
+    [carried]      k_pol = { value, source, date, u_pct }, k_s = { ... } (optional): a factor
+                   carried from an earlier full calibration, for a routine output check with
+                   no opposite-polarity or reduced-bias readings (value, source and date
+                   required; u_pct its standard uncertainty in %, optional; u_source optional).
+                   Checked against [session] date, else the day the worksheet is read: a
+                   factor dated later is refused, one older than the threshold
+                   carried_max_age_days is flagged. A factor both carried and measured is refused.
 
 Reading is strict: an unknown key, a value of the wrong type, an empty reading set or two
 spellings of one quantity is an InputError naming the key. Ranges are checked by ``evaluate``.
@@ -39,6 +46,13 @@ from types import MappingProxyType
 from typing import Any
 
 from chargebook.corrections import units
+from chargebook.corrections.carried import (
+    CARRIED_KEYS,
+    MEASURED_BY,
+    CarriedFactor,
+    carried_factor,
+    parse_date,
+)
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
 from chargebook.corrections.set_air import SetEnvironment
@@ -48,6 +62,7 @@ NUMBER = "a number"
 NUMBERS = "a list of numbers"
 TEXT = "text"
 NUMBER_OR_TEXT = "a number or a name"
+CARRIED_TABLE = "a table with value, source, date and optionally u_pct, u_source"
 INTEGER_OR_NONE = "an integer"
 
 #: Section -> key -> the kind of value it takes. "" is the top level.
@@ -105,6 +120,7 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             )
             for item in dataclasses.fields(Thresholds)
         },
+        "carried": {key: CARRIED_TABLE for key in CARRIED_KEYS},
     }
 )
 
@@ -175,6 +191,9 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
             if inner not in SCHEMA[key]:
                 known = ", ".join(SCHEMA[key])
                 raise InputError(_name(key, inner), inner_value, known, "is not a known key")
+            if key == "carried":
+                result[key][inner] = inner_value  # checked whole by _carried
+                continue
             result[key][inner] = _typed(key, inner, inner_value)
     for section, key in REQUIRED:
         if key not in result[section]:
@@ -260,11 +279,35 @@ def _calibration_coefficient(
     return Gy_per_nC, [units.Conversion("N_D,w", value, unit, Gy_per_nC, "Gy/nC")]
 
 
-def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>") -> Worksheet:
-    """Return the Worksheet held by a parsed TOML/JSON ``document``; raise InputError if invalid."""
+def _measured_on(session: Mapping[str, Any], today: datetime.date | None) -> str:
+    """Return the measurement's date: [session] date when given, else ``today`` (or the
+    computer's date)."""
+    if "date" in session:
+        return parse_date("session.date", session["date"]).isoformat()
+    return (today or datetime.date.today()).isoformat()
+
+
+def _carried(tables: Mapping[str, Any], measured_on: str) -> dict[str, CarriedFactor]:
+    """Return the [carried] factors, each checked by name (``carried.k_pol.date``)."""
+    return {
+        key: carried_factor(f"carried.{key}", table, measured_on) for key, table in tables.items()
+    }
+
+
+def parse_worksheet(
+    document: Mapping[str, Any],
+    path: Path | str = "<worksheet>",
+    today: datetime.date | None = None,
+) -> Worksheet:
+    """Return the Worksheet held by a parsed TOML/JSON ``document``; raise InputError if invalid.
+
+    ``today``: the date a worksheet without [session] date is taken to be measured on (None:
+    the computer's date); carried factors are checked against it.
+    """
     if not isinstance(document, Mapping):
         raise InputError("worksheet", document, "a table of keys", "is not a table")
     sections = _sections(document)
+    measured_on = _measured_on(sections["session"], today) if sections["carried"] else None
     environment, calibration = sections["environment"], sections["calibration"]
     readings, uncertainty = sections["readings"], sections["uncertainty"]
     pressure, pressure_conversions = _pressure(environment)
@@ -297,6 +340,13 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
         thresholds=Thresholds(**sections["thresholds"]),
         conversions=tuple(pressure_conversions + set_conversions + N_Dw_conversions),
         set_environments=per_set,
+        carried=_carried(sections["carried"], measured_on) if measured_on else {},
+        measured_on=measured_on,
+        not_measured=tuple(
+            key
+            for key, set_key in MEASURED_BY.items()
+            if not readings.get(f"{set_key}_nC") and key not in sections["carried"]
+        ),
     )
     return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))
 
@@ -337,6 +387,8 @@ def worksheet_key(field: str) -> str | None:
     ``routine_nC[2]``, ``voltage ratio routine_bias_V/reduced_bias_V``); this finds the key the
     operator typed, so the message can point at the line to fix.
     """
+    if field.startswith("carried."):
+        return field
     if field.startswith("set_environments."):
         return "environment." + field.removeprefix("set_environments.")
     for name, key in _RENAMED.items():

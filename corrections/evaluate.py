@@ -17,6 +17,10 @@ Factor states, one rule for every factor (where its value comes from):
   gives 1 (the source says the entered humidity is in the band), with none entered 1 is assumed
   (flag ``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``).
   k_elec = 1 when none is entered, as for a chamber and electrometer calibrated together;
+* "carried": k_pol or k_s of a routine output check, which takes no opposite-polarity or
+  reduced-bias readings: the value measured in an earlier full calibration (or entered from a
+  calibration report), shown with its source and date (:mod:`chargebook.corrections.carried`);
+  its uncertainty enters the budget as Type B;
 * "pending": not known yet; every value depending on it is None.
 """
 
@@ -28,10 +32,12 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
+from chargebook.corrections import carried as carried_module
 from chargebook.corrections import dose as dose_module
 from chargebook.corrections import humidity, limits, stability
 from chargebook.corrections.air_density import k_TP as k_TP_of
 from chargebook.corrections.air_density import k_TP_relative_sensitivity
+from chargebook.corrections.carried import CARRIED_KEYS, CarriedFactor
 from chargebook.corrections.conventions import Convention, constants, parse_convention
 from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.polarity import k_pol as k_pol_of
@@ -71,7 +77,7 @@ from chargebook.corrections.units import Conversion
 FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw", "k_Q")
 #: Keys of the factors that make up the corrected charge (the rest turn it into dose).
 CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
-STATES: tuple[str, ...] = ("measured", "entered", "default", "pending")
+STATES: tuple[str, ...] = ("measured", "entered", "default", "carried", "pending")
 SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
 #: Budget source of a Type B input whose uncertainty was not given (flagged, never taken as 0).
 NOT_GIVEN = "not given: left out of u_c"
@@ -116,6 +122,12 @@ class MeasurementInputs:
     (:mod:`chargebook.corrections.set_air`); the routine set's k_TP is the result's.
     ``subtract_leakage``: subtract ``leakage_nC`` from the routine mean (the operator's choice;
     off by default, the leakage is then only reported as a percentage of the routine reading).
+    ``carried``: k_pol and/or k_s carried from an earlier full calibration (state "carried");
+    a factor both carried and measured (its readings given) is refused. ``measured_on``: the
+    measurement's date (YYYY-MM-DD); a carried factor dated after it is refused, one older
+    than ``thresholds.carried_max_age_days`` is flagged. None: neither is checked.
+    ``not_measured``: the factors (k_pol, k_s) this measurement will not measure (its plan has
+    no such step, or a worksheet no such readings); one of them still pending is flagged.
     """
 
     convention: str = "trs398"
@@ -142,6 +154,9 @@ class MeasurementInputs:
     conversions: tuple[Conversion, ...] = ()
     set_environments: Mapping[str, SetEnvironment] = field(default_factory=dict)
     subtract_leakage: bool = False
+    carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
+    measured_on: str | None = None
+    not_measured: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -195,6 +210,10 @@ class Evaluation:
     #: and the protocol's k_s relative to it (%); None for continuous beams or no k_s.
     k_s_boag: float | None = None
     k_s_boag_difference_pct: float | None = None
+    #: The carried factors used (key -> CarriedFactor) and the measurement's date they were
+    #: checked against (YYYY-MM-DD, None if not given).
+    carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
+    measured_on: str | None = None
 
     @property
     def symbols(self) -> Mapping[str, str]:
@@ -245,9 +264,16 @@ class Evaluation:
                 "leakage_subtracted": self.leakage_subtracted,
                 "k_s_boag": self.k_s_boag,
                 "k_s_boag_difference_pct": self.k_s_boag_difference_pct,
+                "carried": {key: self._carried_dict(key) for key in self.carried},
             }
         )
         return result
+
+    def _carried_dict(self, key: str) -> dict[str, object]:
+        """Return a carried factor's plain values with its age (days) on the measurement date."""
+        factor = self.carried[key]
+        age = None if self.measured_on is None else factor.age_days(self.measured_on)
+        return {**factor.to_dict(), "age_days": age}
 
 
 @dataclass(frozen=True)
@@ -289,6 +315,20 @@ class _Checked:
     expected_cGy_per_MU: float | None
     tolerance_pct: float
     set_environments: Mapping[str, SetEnvironment]
+    carried: Mapping[str, CarriedFactor]
+
+
+def _check_carried(inputs: MeasurementInputs) -> dict[str, CarriedFactor]:
+    """Return the carried factors checked again (range, date not after ``measured_on``)."""
+    if inputs.measured_on is not None:
+        carried_module.parse_date("measured_on", inputs.measured_on)
+    checked: dict[str, CarriedFactor] = {}
+    for key, factor in inputs.carried.items():
+        if key not in CARRIED_KEYS:
+            raise InputError(f"carried.{key}", key, " or ".join(CARRIED_KEYS), "is not known")
+        table = factor.to_dict() if isinstance(factor, CarriedFactor) else factor
+        checked[key] = carried_module.carried_factor(f"carried.{key}", table, inputs.measured_on)
+    return checked
 
 
 def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
@@ -345,6 +385,7 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
         ),
         tolerance_pct=tolerance,
         set_environments=check_set_environments(inputs.set_environments, SET_KEYS),
+        carried=_check_carried(inputs),
     )
 
 
@@ -488,6 +529,43 @@ def _factor_k_s(
     return Factor(symbol, value, "measured", u_rel, source)
 
 
+def _carried_or(
+    key: str, checked: _Checked, sets: Mapping[str, SetStatistics | None], measured: Factor
+) -> Factor:
+    """Return the carried factor for ``key`` if one is given, else ``measured``.
+
+    A factor both carried and measured (its set's readings given) is refused: which value
+    counts would otherwise be a silent choice.
+    """
+    factor = checked.carried.get(key)
+    if factor is None:
+        return measured
+    set_key = carried_module.MEASURED_BY[key]
+    if sets[set_key] is not None:
+        raise InputError(
+            f"carried.{key}",
+            factor.value,
+            f"either {stability.SET_NAMES[set_key]} readings or a carried {key}, not both",
+            "is both measured and carried",
+        )
+    return Factor(
+        measured.symbol, factor.value, "carried", factor.u_pct, carried_module.state_source(factor)
+    )
+
+
+def _carried_inputs(factors: Mapping[str, Factor], checked: _Checked) -> tuple[RelativeInput, ...]:
+    """Return the Type B budget lines of the carried factors (u not known: not given)."""
+    lines = []
+    for key, factor in checked.carried.items():
+        source = (
+            NOT_GIVEN
+            if factor.u_pct is None
+            else f"Type B: carried ({factor.u_source}), u = {factor.u_pct:g} %"
+        )
+        lines.append(RelativeInput(f"{factors[key].symbol} carried", factor.u_pct, source))
+    return tuple(lines)
+
+
 def _factor_entered(
     symbol: str, value: float | None, u_rel_pct: float | None, needs: str, unit: str = ""
 ) -> Factor:
@@ -568,8 +646,15 @@ def _factors(
     return {
         "k_TP": _factor_k_TP(symbols["k_TP"], convention, routine_air, u),
         "k_h": _factor_k_h(symbols["k_h"], checked.humidity_pct),
-        "k_pol": _factor_k_pol(symbols["k_pol"], sets, convention, scales),
-        "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention, scales),
+        "k_pol": _carried_or(
+            "k_pol", checked, sets, _factor_k_pol(symbols["k_pol"], sets, convention, scales)
+        ),
+        "k_s": _carried_or(
+            "k_s",
+            checked,
+            sets,
+            _factor_k_s(symbols["k_s"], sets, checked, beam, convention, scales),
+        ),
         "k_elec": k_elec,
         "N_Dw": _factor_entered(
             symbols["N_Dw"],
@@ -637,6 +722,7 @@ def _model(
             "Type B: code of practice" if u.u_k_Q_pct is not None else NOT_GIVEN,
             in_charge=False,
         ),
+        *_carried_inputs(factors, checked),
     )
     return ModelInputs(
         convention,
@@ -745,6 +831,14 @@ def _session_flags(
         + ([checked.pressure_kPa] if checked.pressure_kPa is not None else [])
     )
     flags += stability.environment_flags(temperatures, pressures, limits_)
+    for key in inputs.not_measured:
+        if factors[key].state == "pending":
+            set_name = stability.SET_NAMES[carried_module.MEASURED_BY[key]]
+            flags.append(carried_module.not_measured_flag(key, factors[key].symbol, set_name))
+    for key, carried in checked.carried.items():
+        flags += carried_module.age_flags(
+            key, factors[key].symbol, carried, inputs.measured_on, limits_.carried_max_age_days
+        )
     flags += stability.humidity_flags(checked.humidity_pct)
     if factors["k_elec"].state == "default":
         flags.append(
@@ -838,6 +932,8 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         leakage_subtracted=inputs.subtract_leakage and leakage_pct is not None,
         k_s_boag=boag,
         k_s_boag_difference_pct=boag_difference,
+        carried=MappingProxyType(dict(checked.carried)),
+        measured_on=inputs.measured_on,
     )
 
 

@@ -77,6 +77,9 @@ class Thresholds:
     #: Sign of the charge this electrometer shows for a positive bias (+1 or −1); None: the
     #: convention is not known and only the consistency between sets is checked.
     charge_sign_for_positive_bias: int | None = None
+    #: Oldest carried k_pol or k_s, in days, accepted without a flag: a full calibration a
+    #: year old (common practice; the AAPM TG-142 annual calibration, from memory).
+    carried_max_age_days: float = 365.0
 
     def __post_init__(self) -> None:
         for name in (
@@ -89,6 +92,7 @@ class Thresholds:
             "leakage_pct",
             "temperature_change_C",
             "pressure_change_kPa",
+            "carried_max_age_days",
         ):
             value = getattr(self, name)
             # NaN compares false with everything: a NaN limit would silently never flag.

@@ -183,7 +183,10 @@ def factor_value(results: Mapping[str, Any], key: str) -> float | None:
 
 
 def factor_rows(results: Mapping[str, Any] | None) -> list[tuple[str, str, str]]:
-    """Return (symbol for the convention, value, state) for each factor the results name."""
+    """Return (symbol for the convention, value, state) for each factor the results name.
+
+    A carried factor's state says where it came from and its date, as the daemon wrote it.
+    """
     if not results:
         return [(key, text.PENDING, "pending") for key in FACTOR_KEYS[:5]]
     symbols = results.get("symbols") or {}
@@ -194,6 +197,8 @@ def factor_rows(results: Mapping[str, Any] | None) -> list[tuple[str, str, str]]
             continue
         value = factor_value(results, key)
         state = str(states.get(key, "pending" if value is None else "entered"))
+        if state == "carried":
+            state = str((results.get("factor_sources") or {}).get(key) or state)
         rows.append(
             (str(symbols.get(key, key)), text.number(value, FACTOR_DIGITS.get(key, 4)), state)
         )

@@ -12,7 +12,7 @@ import pytest
 from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
-GOOD = ["hcc-la1-6mv.toml", "hcc-la2-10fff.toml", "hcc-co60.json"]
+GOOD = ["hcc-la1-6mv.toml", "hcc-la2-10fff.toml", "hcc-co60.json", "hcc-la1-6mv-monthly.toml"]
 
 #: Keys the issue asks the JSON to hold (item 6).
 JSON_KEYS = {
@@ -123,6 +123,9 @@ def test_partial_worksheet_shows_pending(tmp_path: Path) -> None:
     result = json.loads(correct(sheet, "--json").stdout)
     assert result["dose_Gy"] is None
     assert result["factor_states"]["k_pol"] == "pending"
+    # No opposite or reduced readings and nothing carried: said in words, not silently null.
+    codes = [flag["code"] for flag in result["flags"]]
+    assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
 
 
 def test_charge_uncertainty_is_given_while_the_dose_is_pending(tmp_path: Path) -> None:
@@ -276,3 +279,81 @@ def test_correct_shows_the_air_of_each_set_and_forms_k_pol_from_corrected_means(
     assert data["k_pol"] == pytest.approx((abs(M) + abs(M_opposite)) / (2 * abs(M)), rel=1e-9)
     assert data["k_s_boag"] is not None and "k_s cross-check" in result.stdout
     assert "leakage                 not measured" in result.stdout
+
+
+MONTHLY = (
+    'convention = "trs398"\nbeam = "pulsed"\n[session]\ndate = 2026-04-06\n'
+    "[environment]\ntemperature_C = 22.4\npressure_kPa = 101.2\n[bias]\nroutine_V = 300\n"
+    "[readings]\nroutine_nC = [14.702, 14.698, 14.705]\n"
+    "[calibration]\nN_Dw_Gy_per_nC = 0.0538\nk_Q = 0.992\n"
+)
+K_S_LINE = 'k_s = { value = 1.006, source = "session 4, full calibration", date = 2026-03-02 }\n'
+
+
+def test_a_monthly_check_gives_a_dose_with_carried_factors_and_their_provenance() -> None:
+    result = json.loads(correct(EXAMPLES / "hcc-la1-6mv-monthly.toml", "--json").stdout)
+    table = correct(EXAMPLES / "hcc-la1-6mv-monthly.toml").stdout
+    assert result["factor_states"]["k_pol"] == result["factor_states"]["k_s"] == "carried"
+    assert result["carried"]["k_pol"]["date"] == "2026-03-02"
+    assert result["carried"]["k_pol"]["age_days"] == 35
+    # TRS-398: D = M · k_TP · k_h · k_pol · k_s · k_elec · N_D,w · k_Q (k_h = 1, k_elec = 1).
+    product = result["k_TP"] * 1.00089 * 1.00603 * 0.0538 * 0.992
+    assert result["dose_Gy"] == pytest.approx(result["M_raw_nC"] * product, rel=1e-12)
+    line = next(row for row in table.splitlines() if row.strip().startswith("k_pol"))
+    assert "carried" in line and "full calibration of 2026-03-02" in line
+
+
+@pytest.mark.parametrize(
+    ("carried", "words"),
+    [
+        (
+            "k_pol = { value = 1.001, date = 2026-03-02 }\n",
+            "carried.k_pol.source = None is missing",
+        ),
+        (
+            'k_pol = { value = 1.001, source = "report" }\n',
+            "carried.k_pol.date = None is missing",
+        ),
+        (
+            'k_pol = { source = "report", date = 2026-03-02 }\n',
+            "carried.k_pol.value = None is missing",
+        ),
+        (
+            'k_pol = { value = 1.001, source = "report", date = 2026-05-01 }\n',
+            "carried.k_pol.date = '2026-05-01' is in the future",
+        ),
+        ('k_elec = { value = 1.0, source = "x", date = 2026-03-02 }\n', "carried.k_elec"),
+    ],
+)
+def test_a_bad_carried_factor_exits_2_naming_it(tmp_path: Path, carried: str, words: str) -> None:
+    sheet = tmp_path / "monthly.toml"
+    sheet.write_text(MONTHLY + "[carried]\n" + carried + K_S_LINE, encoding="utf-8")
+    done = correct(sheet, "--json")
+    assert done.returncode == EXIT_INVALID_INPUT
+    assert words in done.stderr
+    assert done.stdout == ""
+
+
+def test_a_factor_both_measured_and_carried_exits_2(tmp_path: Path) -> None:
+    sheet = tmp_path / "both.toml"
+    sheet.write_text(
+        MONTHLY.replace(
+            "[calibration]", "reduced_nC = [14.57, 14.56, 14.57]\n[calibration]"
+        ).replace("routine_V = 300", "routine_V = 300\nreduced_V = 100")
+        + "[carried]\n"
+        + K_S_LINE,
+        encoding="utf-8",
+    )
+    done = correct(sheet)
+    assert done.returncode == EXIT_INVALID_INPUT
+    assert "carried.k_s = 1.006 is both measured and carried" in done.stderr
+
+
+def test_an_old_carried_factor_is_flagged(tmp_path: Path) -> None:
+    sheet = tmp_path / "old.toml"
+    old = K_S_LINE.replace("2026-03-02", "2025-02-01")
+    sheet.write_text(MONTHLY + "[carried]\n" + old, encoding="utf-8")
+    result = json.loads(correct(sheet, "--json").stdout)
+    codes = [flag["code"] for flag in result["flags"]]
+    assert "k_s_carried_old" in codes
+    assert result["factor_states"]["k_pol"] == "pending"  # only k_s was carried

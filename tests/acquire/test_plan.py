@@ -64,6 +64,16 @@ def test_default_plan_step_details() -> None:
         assert step.prompt and f"{step.bias_V:+g} V" in step.prompt
 
 
+def test_the_monthly_check_takes_routine_readings_only_at_the_default_routine_bias() -> None:
+    assert "monthly-check" in shipped_plans()
+    plan, default = load_plan("monthly-check"), load_plan("default")
+    assert [s.purpose for s in plan.steps] == ["warmup", "routine"]
+    assert plan.routine_bias_V == default.routine_bias_V and plan.reduced_bias_V is None
+    routine = plan.steps[1]
+    assert routine.mu_per_reading == default.steps[2].mu_per_reading
+    assert "Deliver 100 MU per reading" in routine.prompt
+
+
 def test_the_default_capture_settings_are_accepted_by_the_engine() -> None:
     rule = load_plan("default").capture
     assert rule.hold_s == 2.0 and rule.flat_tolerance_pct == 0.02

@@ -2,12 +2,18 @@
 
 from __future__ import annotations
 
+import datetime
 import json
 from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.worksheet import load_worksheet, read_worksheet, worksheet_key
+from chargebook.acquire.worksheet import (
+    load_worksheet,
+    parse_worksheet,
+    read_worksheet,
+    worksheet_key,
+)
 from chargebook.corrections.errors import InputError
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
@@ -222,3 +228,21 @@ def test_an_out_of_range_set_environment_points_at_the_worksheet_key() -> None:
     assert worksheet_key("set_environments.reduced.temperature_C") == (
         "environment.reduced.temperature_C"
     )
+
+
+def test_carried_factors_without_a_session_date_are_checked_against_today() -> None:
+    document = {
+        "convention": "trs398",
+        "beam": "pulsed",
+        "readings": {"routine_nC": [14.7, 14.71]},
+        "carried": {"k_pol": {"value": 1.001, "source": "report", "date": "2026-05-01"}},
+    }
+    later = parse_worksheet(document, today=datetime.date(2026, 6, 1)).inputs
+    assert later.measured_on == "2026-06-01"
+    assert later.carried["k_pol"].value == 1.001
+    assert later.not_measured == ("k_s",)  # no reduced-bias readings and no carried k_s
+    with pytest.raises(InputError, match=r"carried\.k_pol\.date = '2026-05-01' is in the future"):
+        parse_worksheet(document, today=datetime.date(2026, 4, 1))
+    assert worksheet_key("carried.k_pol.date") == "carried.k_pol.date"
+    with pytest.raises(InputError, match=r"carried\.k_elec .*is not a known key"):
+        parse_worksheet({**document, "carried": {"k_elec": {}}})

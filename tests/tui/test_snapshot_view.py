@@ -34,6 +34,16 @@ def test_factors_use_the_conventions_symbols_and_say_pending_where_not_measured(
     assert rows["N_D,w,Q0"] == (N_Dw, "entered")  # TRS-398's symbol for N_D,w
 
 
+def test_a_carried_factor_shows_its_source_and_date():
+    results = dict(load_snapshot("finished")["results"])
+    source = "carried: session 12 of 2026-11-05, full calibration, dated 2026-11-05"
+    results["factor_states"] = {**results["factor_states"], "k_pol": "carried"}
+    results["factor_sources"] = {**results["factor_sources"], "k_pol": source}
+    rows = {symbol: state for symbol, _, state in snapshot_view.factor_rows(results)}
+    assert rows["k_pol"] == source
+    assert rows["k_s"] == "measured"
+
+
 def test_results_are_the_daemons_numbers_formatted_not_recomputed():
     snapshot = load_snapshot("finished")
     results = snapshot["results"]
