@@ -288,8 +288,25 @@ def results(record: SessionRecord) -> Table:
         ),
         (
             "U_expanded_pct",
-            "expanded uncertainty U, k = 2 (%)",
+            "expanded uncertainty U = k u_c (%)",
             number(evaluation.U_expanded_pct, 2),
+        ),
+        (
+            "coverage_factor",
+            "coverage factor k (Student's t)",
+            number(evaluation.coverage_factor, 3),
+        ),
+        (
+            "effective_dof",
+            "effective degrees of freedom ν_eff",
+            "∞"
+            if evaluation.effective_dof == float("inf")
+            else number(evaluation.effective_dof, 3),
+        ),
+        (
+            "coverage_probability",
+            "coverage probability (%)",
+            f"{100 * evaluation.coverage_probability:g}",
         ),
     ]
     conversions = "; ".join(c.text() for c in evaluation.conversions)
@@ -315,7 +332,10 @@ def budget(record: SessionRecord) -> Table:
         ("component", "relative u (%)", "source"),
         rows,
         tuple(f"budget-{i}" for i in range(len(rows))),
-        note="Standard uncertainties combined in quadrature (JCGM 100:2008); U = 2 u_c.",
+        note=(
+            "Standard uncertainties combined in quadrature (JCGM 100:2008); U = k u_c, k from "
+            "Student's t at ν_eff (Welch–Satterthwaite, JCGM 100:2008 G.4)."
+        ),
     )
 
 

@@ -31,8 +31,6 @@ def session_evaluation(store: Store, session_id: int) -> Any:
 def result_document(store: Store, session_id: int) -> dict[str, Any]:
     """Return the session's result document (see the module docstring)."""
     from chargebook.acquire.cli import CAUTION
-    from chargebook.acquire.commands.correct import MONTE_CARLO_SEED, MONTE_CARLO_TRIALS
-    from chargebook.corrections.uncertainty import monte_carlo_u_pct
 
     row = store.session(session_id)
     evaluation = session_evaluation(store, session_id)
@@ -41,15 +39,8 @@ def result_document(store: Store, session_id: int) -> dict[str, Any]:
         "session": {**row.metadata(), "status": row.status, "created_at": row.created_at},
     }
     document.update(evaluation.to_dict())
-    model = evaluation.uncertainty_model
     document["monte_carlo"] = (
-        None
-        if evaluation.u_combined_pct is None or model is None
-        else {
-            "trials": MONTE_CARLO_TRIALS,
-            "seed": MONTE_CARLO_SEED,
-            "u_combined_pct": monte_carlo_u_pct(model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED),
-        }
+        None if evaluation.u_combined_pct is None else evaluation.monte_carlo().to_dict()
     )
     document["caution"] = CAUTION
     return document

@@ -52,7 +52,8 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
         f"deviation       {_number(document.get('deviation_pct'), 2)} {unit} "
         f"(tolerance {document.get('tolerance_pct')} {unit})",
         f"u_c             {_number(document.get('u_combined_pct'), 2)} {unit}, "
-        f"U (k = 2) {_number(document.get('U_expanded_pct'), 2)} {unit}",
+        f"U (k = {_number(document.get('coverage_factor'), 3)}) "
+        f"{_number(document.get('U_expanded_pct'), 2)} {unit}",
     ]
     flags = document.get("flags", [])
     if flags:

@@ -107,3 +107,7 @@ U_PRESSURE_KPA = Range(0.0, 5.0, "kPa")
 LEAKAGE_NC = Range(-1e6, 1e6, "nC")
 #: Charge readings, either sign; an exact zero is refused elsewhere because it carries no sign.
 CHARGE_NC = Range(-1e9, 1e9, "nC")
+#: The coverage factor a calibration certificate states for its expanded uncertainty.
+CERTIFICATE_K = Range(1.0, 4.0)
+#: Coverage probability of an expanded uncertainty.
+COVERAGE_PROBABILITY = Range(0.5, 0.999)

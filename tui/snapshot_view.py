@@ -225,7 +225,8 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     uncertainty = (
         text.PENDING
         if combined is None
-        else f"{text.percent(combined)} (k=2: {text.percent(expanded)})"
+        else f"{text.percent(combined)} (k={results.get('coverage_factor') or 0:.2f}: "
+        f"{text.percent(expanded)})"
     )
     return [
         (f"Raw charge {symbols.get('M_raw', 'M_raw')}", text.charge_nC(results.get("M_raw_nC"))),

@@ -50,7 +50,7 @@ def test_conversions_are_recorded() -> None:
 def test_json_worksheet_with_mmHg() -> None:
     inputs = load_worksheet(EXAMPLES / "hcc-co60.json")
     assert inputs.beam == "continuous"
-    assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322)  # 1 mmHg = 0.133322 kPa
+    assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322387)  # conventional mmHg
 
 
 def test_cGy_per_nC_is_converted(tmp_path: Path) -> None:

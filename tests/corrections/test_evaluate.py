@@ -63,7 +63,7 @@ def test_complete_session_multiplies_the_factors_out(session: Session) -> None:
     assert result.dose_Gy == pytest.approx(routine * product * 0.0538 * 0.992, rel=1e-12)
     assert result.dose_per_MU_cGy == pytest.approx(result.dose_Gy, rel=1e-12)  # 100 MU
     assert result.deviation_pct == pytest.approx(100 * (result.dose_per_MU_cGy / 0.8 - 1), rel=1e-9)
-    assert result.U_expanded_pct == pytest.approx(2 * result.u_combined_pct)
+    assert result.U_expanded_pct == pytest.approx(result.coverage_factor * result.u_combined_pct)
 
 
 def test_to_dict_has_the_documented_keys_and_is_json(session: Session) -> None:
@@ -287,7 +287,7 @@ def test_continuous_beam(session: Session) -> None:
         (
             {"reduced_bias_V": 130.0},
             "voltage ratio routine_bias_V/reduced_bias_V",
-            "not in the table",
+            "not a tabulated voltage ratio",
         ),
         ({"reduced_bias_V": -100.0}, "reduced_bias_V", "opposite polarity"),
         ({"routine_nC": (14.7, -14.7, 14.7)}, "routine_nC[1]", "contradicts the bias"),
