@@ -1,6 +1,6 @@
 """Plausible input ranges and the checks that refuse anything outside them.
 
-The ranges are common practice (see REFERENCE.md, "Plausible input ranges"): water or air
+The ranges are common practice (see docs/physics.md, "Plausible input ranges"): water or air
 temperature 10–40 °C, pressure 60–110 kPa (high-altitude clinics sit near 70–80 kPa), bias
 magnitude 10–1000 V. The others are wide plausibility bounds that catch unit mistakes (an N_D,w
 typed in Gy/C into a Gy/nC field, a negative coefficient) without judging a physicist's choice.

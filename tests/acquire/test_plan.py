@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import itertools
 import json
 from pathlib import Path
 
@@ -38,19 +39,34 @@ def test_the_default_plan_ships_and_covers_every_purpose_in_order() -> None:
         "warmup",
         "routine",
         "opposite",
+        "warmup",
         "reduced",
         "return_check",
     ]
-    assert [s.bias_V for s in plan.steps] == [300.0, 300.0, 300.0, -300.0, 100.0, 300.0]
-    assert [s.polarity for s in plan.steps] == [1, 1, 1, -1, 1, 1]
-    # Two-voltage method: TRS-398 recommends V1/V2 ≥ 3 (from memory, see REFERENCE.md).
+    assert [s.bias_V for s in plan.steps] == [300.0, 300.0, 300.0, -300.0, 300.0, 100.0, 300.0]
+    assert [s.polarity for s in plan.steps] == [1, 1, 1, -1, 1, 1, 1]
+    # Two-voltage method: TRS-398 recommends V1/V2 ≥ 3 (from memory, see docs/physics.md).
     assert plan.voltage_ratio == 3.0
-    assert [s.optional for s in plan.steps] == [False] * 5 + [True]
+    assert [s.optional for s in plan.steps] == [False] * 6 + [True]
+
+
+def test_no_default_step_reverses_the_polarity_and_changes_the_bias_at_once() -> None:
+    # Issue 12 item 10: a reversal settles more slowly than a change of bias magnitude (common
+    # practice), so one settling rule cannot serve both; and every reversal is followed by at
+    # least two deliveries not used for dose.
+    steps = load_plan("default").steps
+    for before, step in itertools.pairwise(steps):
+        reversed_ = step.polarity != before.polarity
+        resized = abs(step.bias_V) != abs(before.bias_V)
+        assert not (reversed_ and resized), step.key
+        unused = step.readings if step.purpose == "warmup" else step.settling.discard_first
+        if reversed_:
+            assert unused >= 2, step.key
 
 
 def test_default_plan_step_details() -> None:
     plan = load_plan("default")
-    leakage, warmup, routine, opposite, reduced, check = plan.steps
+    leakage, warmup, routine, opposite, back, reduced, check = plan.steps
     assert (leakage.mu_per_reading, leakage.duration_s, leakage.uses_beam) == (0.0, 60.0, False)
     assert (warmup.readings, warmup.mu_per_reading, warmup.settling.is_none) == (2, 500.0, True)
     # Routine: five deliveries of 100 MU, the first one a settling reading.
@@ -60,6 +76,13 @@ def test_default_plan_step_details() -> None:
     # After a polarity reversal the chamber settles more slowly: two settling readings.
     assert opposite.settling.discard_first == 2 and opposite.readings == 4
     assert (reduced.readings, check.readings) == (3, 3)
+    # Back at the routine polarity before the bias is lowered: two deliveries, not used.
+    assert (back.purpose, back.bias_V, back.readings, back.settling.is_none) == (
+        "warmup",
+        300.0,
+        2,
+        True,
+    )
     for step in plan.steps:
         assert step.prompt and f"{step.bias_V:+g} V" in step.prompt
 
@@ -153,7 +176,7 @@ DELETE = object()
         ("steps.1.mu_per_reading", 0, "steps[1].mu_per_reading"),
         ("steps.1.mu_per_reading", -100, "steps[1].mu_per_reading"),
         ("steps.1.mu_per_reading", DELETE, "steps[1].mu_per_reading"),
-        # Bias magnitudes 10–1000 V: common practice (REFERENCE.md, plausible input ranges).
+        # Bias magnitudes 10–1000 V: common practice (docs/physics.md, plausible input ranges).
         ("routine_bias_V", 5, "routine_bias_V"),
         ("routine_bias_V", -1500, "routine_bias_V"),
         ("routine_bias_V", True, "routine_bias_V"),

@@ -170,7 +170,7 @@ def test_k_TP_from_thermometer_and_barometer_is_measured(session: Session) -> No
 
 
 def test_k_pol_source_prints_the_chosen_protocols_formula(session: Session) -> None:
-    # TRS-398 writes (|M+| + |M−|)/(2|M|); TG-51 writes |(M+ − M−)/(2M)| (REFERENCE.md).
+    # TRS-398 writes (|M+| + |M−|)/(2|M|); TG-51 writes |(M+ − M−)/(2M)| (docs/physics.md).
     assert evaluate(session()).factors["k_pol"].source == "(|M+| + |M−|) / (2|M|)"
     assert evaluate(session(convention="tg51")).factors["k_pol"].source == "|(M+ − M−) / (2M)|"
 
@@ -240,7 +240,7 @@ def test_k_elec_entered_without_its_uncertainty_is_not_taken_as_exact(session: S
 
 def test_k_elec_not_entered_is_exact_within_the_joint_calibration(session: Session) -> None:
     # Chamber and electrometer calibrated together: k_elec = 1 with no uncertainty of its own
-    # (N_D,w's certificate covers the pair; REFERENCE.md).
+    # (N_D,w's certificate covers the pair; docs/physics.md).
     result = evaluate(session(k_elec=None)).to_dict()
     assert budget_line(result, "k_elec")["u_rel_pct"] == 0.0
     assert "uncertainty_incomplete" not in flag_codes(result)

@@ -30,7 +30,7 @@ TABLES = {"pulsed": PULSED_COEFFICIENTS, "pulsed-scanned": PULSED_SCANNED_COEFFI
 
 
 def test_table_has_the_tabulated_ratios() -> None:
-    # TRS-398 two-voltage table rows n = 2, 2.5, 3, 3.5, 4, 5 (from memory, REFERENCE.md).
+    # TRS-398 two-voltage table rows n = 2, 2.5, 3, 3.5, 4, 5 (from memory, docs/physics.md).
     for table in TABLES.values():
         assert list(table) == [2.0, 2.5, 3.0, 3.5, 4.0, 5.0]
 
@@ -39,7 +39,7 @@ def test_table_has_the_tabulated_ratios() -> None:
 @pytest.mark.parametrize("n", [2.0, 2.5, 3.0, 3.5, 4.0, 5.0])
 def test_no_correction_when_both_readings_agree(beam: str, n: float) -> None:
     # Identity: M1 = M2 means complete collection, k_s = 1; each row sums to about 1
-    # (REFERENCE.md): pulsed rows to within 0.001, pulsed-scanned within 0.003.
+    # (docs/physics.md): pulsed rows to within 0.001, pulsed-scanned within 0.003.
     tolerance = 0.001 if beam == "pulsed" else 0.003
     assert k_s_tabulated(1.0, n, beam) == pytest.approx(1.0, abs=tolerance + 1e-12)
     assert sum(TABLES[beam][n]) == pytest.approx(1.0, abs=tolerance + 1e-12)
@@ -47,7 +47,7 @@ def test_no_correction_when_both_readings_agree(beam: str, n: float) -> None:
 
 @pytest.mark.parametrize("n", [2.0, 2.5, 3.0, 3.5, 4.0, 5.0])
 def test_boag_theory_agrees_with_the_pulsed_table(n: float) -> None:
-    # REFERENCE.md: the pulsed quadratics are fits to Boag's theory, agreement within about
+    # docs/physics.md: the pulsed quadratics are fits to Boag's theory, agreement within about
     # 0.1 % for k_s <= 1.05 (the 0.1 % is reached at k_s = 1 by rows summing to 1.001).
     u = np.linspace(0.0, 0.2, 2001)  # Boag's u at the routine bias; 1/f(0.2) ≈ 1.097
     theory = 1.0 / boag_efficiency(u)
@@ -88,7 +88,7 @@ def test_tg51_linear_form() -> None:
 
 
 def test_tg51_and_table_are_close_near_unity() -> None:
-    # REFERENCE.md: near k_s = 1 the table and the linear form differ by up to about 0.1 %
+    # docs/physics.md: near k_s = 1 the table and the linear form differ by up to about 0.1 %
     # at n = 2.5, 3.5, 5; a loose cross-check of two published forms.
     for n in (2.0, 3.0, 4.0):
         assert k_s_tabulated(1.01, n) == pytest.approx(P_ion_linear(1.01, n), abs=0.002)

@@ -121,7 +121,7 @@ async def test_80_degrees_is_refused_as_typed_naming_the_field_and_nothing_is_se
         temperature.input.value = ""
         await pilot.press("8", "0")
         await pilot.pause()
-        # Plausible range 10-40 °C: common practice (REFERENCE.md, "Plausible input ranges").
+        # Plausible range 10-40 °C: common practice (docs/physics.md, "Plausible input ranges").
         assert temperature.problem == "temperature_C = 80 is outside the allowed range 10 to 40 °C"
         await pilot.press("enter")
         await pilot.pause()
@@ -142,7 +142,7 @@ async def test_the_setup_form_checks_entries_as_typed_and_rechecks_when_the_unit
         pressure = screen.query_one("#field-pressure", Field)
         pressure.input.value = "101.3"  # typed in kPa while the unit still says hPa
         await pilot.pause()
-        # 60-110 kPa is 600-1100 hPa: common practice range, 1 hPa = 0.1 kPa (REFERENCE.md).
+        # 60-110 kPa is 600-1100 hPa: common practice range, 1 hPa = 0.1 kPa (docs/physics.md).
         assert (
             pressure.problem == "pressure_hPa = 101.3 is outside the allowed range 600 to 1100 hPa"
         )
