@@ -30,7 +30,12 @@ from chargebook.corrections.statistics import set_statistics
 from chargebook.corrections.units import Conversion
 
 #: The plan purposes whose accepted readings feed the results, and their MeasurementInputs field.
-RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
+RESULT_PURPOSES = {
+    "routine": "routine_nC",
+    "opposite": "opposite_nC",
+    "reduced": "reduced_nC",
+    "return_check": "return_nC",
+}
 
 
 # ------------------------------------------------------------------------- operator input
@@ -343,6 +348,7 @@ def measurement_inputs(
         routine_nC=tuple(values.get("routine_nC", ())),
         opposite_nC=tuple(values.get("opposite_nC", ())),
         reduced_nC=tuple(values.get("reduced_nC", ())),
+        return_nC=tuple(values.get("return_nC", ())),
         leakage_nC=leakage,
         N_Dw_Gy_per_nC=meta.N_Dw_Gy_per_nC,
         k_Q=meta.k_Q,
