@@ -10,7 +10,7 @@ calculation. Bands are common practice, chosen wide so that a sound measurement 
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 from chargebook.corrections.errors import Flag
@@ -65,16 +65,28 @@ def _pressure_flags(pressure: tuple[float, str] | None) -> list[Flag]:
     return []
 
 
-def _k_TP_flags(k_TP: float | None) -> list[Flag]:
-    if k_TP is None or K_TP.low <= k_TP <= K_TP.high:
+def _band_flags(
+    value: float | None, band: Range, code: str, words: Callable[[float], str]
+) -> list[Flag]:
+    """Return the flag ``code``, worded by ``words(value)``, when ``value`` is outside ``band``."""
+    if value is None or band.low <= value <= band.high:
         return []
-    return [
-        Flag(
-            "k_TP_implausible",
-            f"k_TP = {k_TP:.4f} lies outside {K_TP.text()}, which covers every clinic's air. "
-            "Check the pressure's unit (hPa, kPa or mmHg) and the temperature's (°C).",
-        )
-    ]
+    return [Flag(code, words(value))]
+
+
+def _k_TP_words(k_TP: float) -> str:
+    return (
+        f"k_TP = {k_TP:.4f} lies outside {K_TP.text()}, which covers every clinic's air. "
+        "Check the pressure's unit (hPa, kPa or mmHg) and the temperature's (°C)."
+    )
+
+
+def _dose_per_MU_words(per_MU: float) -> str:
+    return (
+        f"The dose per MU is {per_MU:.4g} cGy/MU, outside {DOSE_PER_MU_CGY.text()}, the band "
+        "of a linac beam at reference conditions. Check the unit of N_D,w (Gy/nC, not cGy/nC "
+        "or Gy/C), the MU per reading, and the unit of the readings (nC)."
+    )
 
 
 def _N_Dw_flags(N_Dw: float | None) -> list[Flag]:
@@ -87,19 +99,6 @@ def _N_Dw_flags(N_Dw: float | None) -> list[Flag]:
             "for a chamber of a few hundredths of a cm³ (a 0.6 cm³ chamber has about 0.05 "
             "Gy/nC). Check the certificate's unit: if it gives cGy/nC, enter it as "
             "N_Dw_cGy_per_nC.",
-        )
-    ]
-
-
-def _dose_per_MU_flags(per_MU: float | None) -> list[Flag]:
-    if per_MU is None or DOSE_PER_MU_CGY.low <= per_MU <= DOSE_PER_MU_CGY.high:
-        return []
-    return [
-        Flag(
-            "dose_per_MU_implausible",
-            f"The dose per MU is {per_MU:.4g} cGy/MU, outside {DOSE_PER_MU_CGY.text()}, the "
-            "band of a linac beam at reference conditions. Check the unit of N_D,w (Gy/nC, "
-            "not cGy/nC or Gy/C), the MU per reading, and the unit of the readings (nC).",
         )
     ]
 
@@ -123,8 +122,10 @@ def flags(entered: Entered) -> list[Flag]:
     """Return every plausibility flag for ``entered``, each saying what to check."""
     return (
         _pressure_flags(entered.pressure)
-        + _k_TP_flags(entered.k_TP)
+        + _band_flags(entered.k_TP, K_TP, "k_TP_implausible", _k_TP_words)
         + _N_Dw_flags(entered.N_Dw_Gy_per_nC)
-        + _dose_per_MU_flags(entered.dose_per_MU_cGy)
+        + _band_flags(
+            entered.dose_per_MU_cGy, DOSE_PER_MU_CGY, "dose_per_MU_implausible", _dose_per_MU_words
+        )
         + _charge_flags(entered.set_means_nC)
     )
