@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import itertools
 import json
+import math
 from pathlib import Path
 
 import pytest
@@ -315,3 +316,42 @@ def test_warm_up_may_take_more_mu_than_the_result_steps() -> None:
         0, {"key": "warm", "purpose": "warmup", "readings": 2, "mu_per_reading": 500}
     )
     assert [s.mu_per_reading for s in Plan.from_dict(data).steps] == [500, 100, 100]
+
+
+def _settling_deficits(steps: tuple[Step, ...] | list[Step]) -> dict[str, float]:
+    """Return each result step's mean settling deficit over its used readings, under the
+    simulator's model: a deficit s0·exp(−MU/τ) after a change, s0 larger for a reversal."""
+    from chargebook.drivers_generic.simulator.physics import ChamberParameters
+
+    p = ChamberParameters()
+    deficits: dict[str, float] = {}
+    bias, deficit, since = steps[0].bias_V, 0.0, math.inf
+    for step in steps:
+        if step.purpose == "leakage":
+            continue
+        if (step.bias_V > 0) != (bias > 0):
+            deficit, since = p.settling_polarity, 0.0
+        elif abs(step.bias_V) != abs(bias):
+            deficit, since = p.settling_bias, 0.0
+        bias = step.bias_V
+        used = []
+        for index in range(step.deliveries_planned):
+            if index >= step.settling.discard_first and step.purpose != "warmup":
+                used.append(deficit * math.exp(-since / p.settling_tau_MU))
+            since += step.mu_per_reading
+        if used:
+            deficits[step.purpose] = sum(used) / len(used)
+    return deficits
+
+
+def test_the_default_order_no_longer_biases_M1_over_M2_high() -> None:
+    # Issue 12 item 10. With the reduced-bias step straight after the reversal, the reversal's
+    # deficit (0.4 %, the simulator's invented model) was still 1.2e-4 on the reduced-bias mean,
+    # biasing M1/M2 high; settled back at the routine polarity first, the bias change alone
+    # leaves under 5e-5. The simulator's parameters are invented: a demonstration, not physics.
+    steps = list(load_plan("default").steps)
+    now = _settling_deficits(steps)
+    old_order = [s for s in steps if s.key != "back_to_routine"]
+    before = _settling_deficits(old_order)
+    assert before["reduced"] - before["routine"] > 1e-4
+    assert now["reduced"] - now["routine"] < 5e-5
