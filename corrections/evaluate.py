@@ -366,7 +366,7 @@ def _k_s_ratio(
 ) -> tuple[float | None, bool]:
     """Return (the ratio k_s is computed with, by Boag's theory?) and refuse an off-table n.
 
-    Under TRS-398 a pulsed beam's k_s comes from the table's row that n equals to the setting
+    Under TRS-398 (2000) a pulsed beam's k_s comes from the table's row that n equals to the setting
     resolution; an n off the table is refused now, before any reduced-bias reading is taken,
     unless the user chose Boag's theory for it.
     """
@@ -856,8 +856,9 @@ def _protocol_flags(
         flags.append(
             Flag(
                 "voltage_ratio_below_3",
-                f"The voltage ratio V1/V2 = {n:.6g} is below 3. TRS-398 tabulates n = 2 and 2.5 "
-                "but recommends a ratio of at least 3: a small ratio makes k_s more sensitive "
+                f"The voltage ratio V1/V2 = {n:.6g} is below 3. TRS-398 (2000) tabulates n = 2 "
+                "and 2.5 but recommends a ratio of at least 3: a small ratio makes k_s more "
+                "sensitive "
                 "to the scatter of the two sets. Allowed; use V1/V2 >= 3 where the electrometer "
                 "allows it.",
                 "info",

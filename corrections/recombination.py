@@ -3,7 +3,7 @@
 V1 is the routine (higher) bias, V2 the reduced one, n = V1/V2, and M1/M2 the ratio of the mean
 readings at the two biases (the "charge ratio"). Methods:
 
-* pulsed and pulsed-scanned beams, TRS-398: k_s = a0 + a1 (M1/M2) + a2 (M1/M2)², coefficients
+* pulsed and pulsed-scanned beams, TRS-398 (2000): k_s = a0 + a1 (M1/M2) + a2 (M1/M2)², coefficients
   tabulated for n = 2, 2.5, 3, 3.5, 4, 5 (TRS-398 (2000), the two-voltage table; values from
   memory, see docs/physics.md). A row is used only when n equals it to the setting resolution
   (``RATIO_RESOLUTION``, or one derived from the bias resolution): any other n is refused,
@@ -197,7 +197,7 @@ def _charge_ratio(charge_ratio: object, n: Number) -> Number:
 
 
 def k_s_tabulated(charge_ratio: object, n: object, beam: Beam | str = Beam.PULSED) -> Number:
-    """Return TRS-398's k_s = a0 + a1·(M1/M2) + a2·(M1/M2)² (dimensionless)."""
+    """Return TRS-398 (2000)'s k_s = a0 + a1·(M1/M2) + a2·(M1/M2)² (dimensionless)."""
     a0, a1, a2 = tabulated_coefficients(n, beam)
     r = _charge_ratio(charge_ratio, np.asarray(n))
     return a0 + a1 * r + a2 * r * r
@@ -359,7 +359,7 @@ def k_s(
     """Return k_s (TG-51: P_ion) by the method the protocol prescribes for ``beam``.
 
     Continuous beams: (n² − 1)/(n² − M1/M2) under both protocols; pulsed and pulsed-scanned
-    beams: TRS-398's tabulated quadratic, or TG-51's linear form; with ``use_boag`` (the
+    beams: TRS-398 (2000)'s tabulated quadratic, or TG-51's linear form; with ``use_boag`` (the
     user's choice for a ratio off the table) Boag's theory for pulsed beams.
     """
     beam, chosen = _method(beam, convention, use_boag)

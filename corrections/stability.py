@@ -63,9 +63,9 @@ class Thresholds:
     #: Largest usual k_s: above, the chamber is unsuitable for the beam (from memory).
     k_s_max: float = 1.05
     #: Smallest k_s (TG-51: P_ion) accepted without a flag. Below 1 it is physically impossible
-    #: (a collection efficiency above 1). The tolerance covers the TRS-398 table's rounding near
-    #: saturation: its coefficients have 3 decimals, so a row gives 1 at M1/M2 = 1 only to about
-    #: ±0.001 (from memory); 0.999 keeps M1/M2 = 1 unflagged whatever the row.
+    #: (a collection efficiency above 1). The tolerance covers the TRS-398 (2000) table's rounding
+    #: near saturation: its coefficients have 3 decimals, so a row gives 1 at M1/M2 = 1 only to
+    #: about ±0.001 (from memory); 0.999 keeps M1/M2 = 1 unflagged whatever the row.
     k_s_min: float = 0.999
     #: Smallest charge ratio M1/M2 (routine over reduced-bias mean) accepted without a flag.
     #: Below 1 the reduced-bias reading is the larger one, which complete or incomplete
