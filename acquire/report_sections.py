@@ -335,7 +335,19 @@ def budget(record: SessionRecord) -> Table:
         note=(
             "Standard uncertainties combined in quadrature (JCGM 100:2008); U = k u_c, k from "
             "Student's t at ν_eff (Welch–Satterthwaite, JCGM 100:2008 G.4)."
+            + _monte_carlo_note(evaluation)
         ),
+    )
+
+
+def _monte_carlo_note(evaluation: Any) -> str:
+    """Return the Monte Carlo cross-check in words, or nothing before u_c is known."""
+    if evaluation.u_combined_pct is None:
+        return ""
+    check = evaluation.monte_carlo()
+    return (
+        f" Monte Carlo check (JCGM 101:2008, {check.trials} draws, seed {check.seed}): "
+        f"{check.note}."
     )
 
 

@@ -171,3 +171,30 @@ def test_unknown_file_type(tmp_path: Path) -> None:
 )
 def test_evaluate_fields_lead_back_to_worksheet_keys(field: str, key: str | None) -> None:
     assert worksheet_key(field) == key
+
+
+def test_issue_12_keys_reach_the_inputs(tmp_path: Path) -> None:
+    text = MINIMAL.replace("[readings]\n", "[readings]\nreturn_nC = [14.72, 14.70, 14.71]\n")
+    text += (
+        "[calibration]\nu_N_Dw_pct_k2 = 1.2\nk_N_Dw = 2.4\n"
+        "[uncertainty]\ncoverage_probability = 0.99\nu_reference_conditions_pct = 0.3\n"
+        "u_electrometer_resolution_pct = 0.02\n"
+        '[thresholds]\nrecombination_off_table = "boag"\nbias_resolution_V = 1\n'
+        "outlier_floor_pct = 0.1\nreturn_check_pct = 0.3\n"
+    )
+    inputs = load_worksheet(write(tmp_path, text))
+    assert inputs.return_nC == (14.72, 14.70, 14.71)
+    u = inputs.uncertainties
+    assert (u.u_N_Dw_pct_k2, u.k_N_Dw, u.coverage_probability) == (1.2, 2.4, 0.99)
+    assert (u.u_reference_conditions_pct, u.u_electrometer_resolution_pct) == (0.3, 0.02)
+    t = inputs.thresholds
+    assert (t.recombination_off_table, t.bias_resolution_V) == ("boag", 1.0)
+    assert (t.outlier_floor_pct, t.return_check_pct) == (0.1, 0.3)
+
+
+def test_an_unknown_off_table_choice_is_named(tmp_path: Path) -> None:
+    text = MINIMAL + '[thresholds]\nrecombination_off_table = "nearest"\n'
+    with pytest.raises(InputError) as caught:
+        load_worksheet(write(tmp_path, text))
+    assert caught.value.field == "thresholds.recombination_off_table"
+    assert "refuse or boag" in str(caught.value)
