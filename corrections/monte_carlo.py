@@ -88,6 +88,8 @@ def validation_tolerance_pct(u_c_pct: float, digits: int = VALIDATION_SIGNIFICAN
 
 def _draw(rng: np.random.Generator, estimate: Estimate, trials: int) -> np.ndarray:
     u = estimate.u or 0.0
+    if u == 0.0:
+        return np.full(trials, estimate.value)
     if math.isfinite(estimate.dof):
         return estimate.value + u * rng.standard_t(estimate.dof, trials)
     return rng.normal(estimate.value, u, trials)
@@ -166,7 +168,9 @@ def monte_carlo_check(
     with np.errstate(all="ignore"):
         estimate = float(_output(model, None, 1, include_dose)[0])
         draws = _output(model, np.random.default_rng(seed), trials, include_dose)
-    invalid = ~np.isfinite(draws) | (draws <= 0)
+    # A finite draw is a value of the model, however far out in a tail (a heavy-tailed t draw may
+    # even push a factor below zero); only NaN and inf mark draws the formulas cannot evaluate.
+    invalid = ~np.isfinite(draws)
     count = int(invalid.sum())
     if not math.isfinite(estimate) or estimate <= 0 or count > MAX_INVALID_SHARE * trials:
         return MonteCarloCheck(
@@ -175,9 +179,10 @@ def monte_carlo_check(
             invalid_draws=count,
             note=(
                 f"cannot be computed: {count} of {trials} draws fell where the model has no "
-                "value (a drawn charge ratio M1/M2 at the voltage ratio n, or a drawn mean of "
-                "the wrong sign), because the reading sets scatter too much. The analytic "
-                "uncertainty stands alone; look at the flags on the reading sets."
+                "value (a drawn charge ratio M1/M2 at the voltage ratio n, or drawn means of "
+                "the two polarities with one sign), because the reading sets scatter too "
+                "much. The analytic uncertainty stands alone; look at the flags on the reading "
+                "sets."
             ),
         )
     relative = 100.0 * (draws[~invalid] / estimate - 1.0)
@@ -230,7 +235,7 @@ def monte_carlo_u_pct(
     """
     with np.errstate(all="ignore"):
         draws = _output(model, np.random.default_rng(seed), trials, include_dose)
-    valid = draws[np.isfinite(draws) & (draws > 0)]
+    valid = draws[np.isfinite(draws)]
     if valid.size < 2:
         return math.nan
     return float(100.0 * np.std(valid, ddof=1) / np.mean(valid))

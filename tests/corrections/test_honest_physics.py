@@ -342,3 +342,14 @@ def test_the_conventional_millimetre_of_mercury() -> None:
     # atmosphere to 1.5e-7 relative. The old constant 0.133322 kPa was 2.9e-6 short.
     assert pytest.approx(133.322387415, abs=1e-9) == KPA_PER_MMHG * 1000
     assert pytest.approx(101.325, rel=2e-7) == 760 * KPA_PER_MMHG
+
+
+def test_a_monte_carlo_that_cannot_be_computed_says_why(session: Session) -> None:
+    # Opposite-polarity readings scattering close to zero: many draws of their mean take the
+    # routine sign, where k_pol has no value. Reported in words, never raised.
+    result = evaluate(session(opposite_nC=(-0.05, -0.5, -0.9)))
+    check = result.monte_carlo(trials=20_000, seed=1)
+    assert not check.computed
+    assert check.note.startswith("cannot be computed")
+    assert check.invalid_draws > 20
+    assert check.to_dict()["interval_pct"] is None
