@@ -89,7 +89,7 @@ class Uncertainties:
     flagged, never taken as 0. ``u_temperature_C``: thermometer, 0.1 °C
     (a calibrated probe; common practice). ``u_pressure_kPa``: barometer, 0.05 kPa (a calibrated
     digital barometer; common practice). ``coverage_probability``: of the expanded
-    uncertainty, 0.95 by default (JCGM 100:2008 6.2.3; common practice).
+    uncertainty, 0.95 by default (common practice).
     """
 
     u_N_Dw_pct_k2: float | None = None

@@ -20,7 +20,7 @@ from collections.abc import Iterable
 
 from chargebook.corrections.errors import InputError
 
-#: The coverage probability used unless another is chosen (GUM 6.2.3; common practice).
+#: The coverage probability used unless another is chosen (common practice).
 DEFAULT_COVERAGE_PROBABILITY = 0.95
 #: Above this many degrees of freedom the normal distribution is used (t differs by < 1e-6).
 NORMAL_LIMIT_DOF = 1e7
