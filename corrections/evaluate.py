@@ -833,7 +833,11 @@ TRS398_RECOMMENDED_MINIMUM_RATIO = 3.0
 
 
 def _protocol_flags(
-    checked: _Checked, convention: Convention, beam: Beam, symbol: str
+    checked: _Checked,
+    convention: Convention,
+    beam: Beam,
+    symbol: str,
+    charge_ratio: float | None = None,
 ) -> list[Flag]:
     """Return flags for a voltage ratio or beam the protocol allows only with a caveat."""
     n = checked.voltage_ratio
@@ -858,24 +862,34 @@ def _protocol_flags(
                 "voltage_ratio_below_3",
                 f"The voltage ratio V1/V2 = {n:.6g} is below 3. TRS-398 (2000) tabulates n = 2 "
                 "and 2.5 but recommends a ratio of at least 3: a small ratio makes k_s more "
-                "sensitive "
-                "to the scatter of the two sets. Allowed; use V1/V2 >= 3 where the electrometer "
-                "allows it.",
+                "sensitive to the scatter of the two sets. Allowed; use V1/V2 >= 3 where the "
+                "electrometer allows it.",
                 "info",
             )
         )
     if convention is Convention.TG51 and beam is Beam.PULSED_SCANNED:
-        flags.append(
-            Flag(
-                "tg51_pulsed_scanned",
-                f"TG-51 gives no formula for pulsed-scanned beams: {symbol} was computed with "
-                "its pulsed-beam linear formula (1 − n)/(M1/M2 − n), which assumes a uniform "
-                "dose per pulse and can misstate the recombination of a scanned beam. Check "
-                "it against your code of practice (TRS-398 (2000) tabulates pulsed-scanned "
-                "coefficients).",
-            )
-        )
+        flags.append(_tg51_scanned_flag(n, charge_ratio, symbol))
     return flags
+
+
+def _tg51_scanned_flag(n: float, charge_ratio: float | None, symbol: str) -> Flag:
+    """Return the flag saying a pulsed-scanned beam got TG-51's pulsed linear P_ion."""
+    comparison = ""
+    row = tabulated_row(n, Beam.PULSED_SCANNED)
+    if charge_ratio is not None and row is not None:
+        linear = float(k_s_of(charge_ratio, n, Beam.PULSED, Convention.TG51))
+        scanned = float(k_s_of(charge_ratio, row, Beam.PULSED_SCANNED, Convention.TRS398))
+        comparison = (
+            f" Here the linear form gives {linear:.4f}; TRS-398 (2000)'s pulsed-scanned "
+            f"coefficients would give {scanned:.4f} ({100 * (scanned / linear - 1):+.2f} %)."
+        )
+    return Flag(
+        "tg51_pulsed_scanned",
+        f"For this pulsed-scanned beam {symbol} is TG-51's linear two-voltage formula "
+        "(1 − n)/(M1/M2 − n), the one it gives for pulsed beams: it has no separate method for "
+        "scanned beams, whose dose per pulse varies across the field." + comparison + " Check "
+        "which your code of practice asks for.",
+    )
 
 
 def evaluate(inputs: MeasurementInputs) -> Evaluation:
@@ -930,7 +944,14 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
             set_means_nC={key: stats.mean_nC for key, stats in sets.items() if stats},
         )
     )
-    flags += _protocol_flags(checked, convention, beam, factors["k_s"].symbol)
+    reduced = sets["reduced"]
+    flags += _protocol_flags(
+        checked,
+        convention,
+        beam,
+        factors["k_s"].symbol,
+        None if routine is None or reduced is None else routine.mean_nC / reduced.mean_nC,
+    )
     flags += _return_flags(returned, inputs.thresholds)
     if M_corrected is not None:
         flags += _uncertainty_flags(components, dose_known=dose_Gy is not None)

@@ -294,6 +294,11 @@ def test_trs398_flags_a_voltage_ratio_below_3(session: Session, reduced: float) 
 def test_tg51_says_a_pulsed_scanned_beam_gets_the_pulsed_formula(session: Session) -> None:
     result = evaluate(session(convention="tg51", beam="pulsed-scanned"))
     assert "tg51_pulsed_scanned" in codes(result)
+    message = next(f.message for f in result.flags if f.code == "tg51_pulsed_scanned")
+    # The TRS-398 (2000) pulsed-scanned row n = 3 (from memory) at this session's M1/M2.
+    r = result.charge_ratio
+    scanned = 2.001 - 2.402 * r + 1.404 * r * r
+    assert f"would give {scanned:.4f}" in message
     assert "tg51_pulsed_scanned" not in codes(evaluate(session(convention="tg51")))
 
 
