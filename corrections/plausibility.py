@@ -19,7 +19,8 @@ from chargebook.corrections.limits import Range
 #: Dose per MU of a linac beam at or near reference conditions: machines are set to about
 #: 1 cGy/MU at d_max, and depth, field and SSD move it within this band (common practice).
 DOSE_PER_MU_CGY = Range(0.3, 3.0, "cGy/MU")
-#: k_TP anywhere a clinic is: 10–40 °C and about 70–106 kPa give 0.93 to 1.3 (common practice).
+#: k_TP of a clinic below about 2000 m: 10–40 °C and 80–106 kPa give about 0.92 to 1.33; higher
+#: clinics (Mexico City, La Paz) legitimately exceed 1.3 and the flag says so (common practice).
 K_TP = Range(0.8, 1.3)
 #: N_D,w above this (Gy/nC) belongs to a chamber of a few hundredths of a cm³; a Farmer-type
 #: 0.6 cm³ chamber has about 0.05 Gy/nC (common practice).
@@ -76,8 +77,9 @@ def _band_flags(
 
 def _k_TP_words(k_TP: float) -> str:
     return (
-        f"k_TP = {k_TP:.4f} lies outside {K_TP.text()}, which covers every clinic's air. "
-        "Check the pressure's unit (hPa, kPa or mmHg) and the temperature's (°C)."
+        f"k_TP = {k_TP:.4f} lies outside {K_TP.text()}, the band of clinics below about "
+        "2000 m. Check the pressure's unit (hPa, kPa or mmHg) and the temperature's (°C); at a "
+        "high-altitude clinic a value above 1.3 can be right."
     )
 
 
