@@ -18,6 +18,8 @@ from chargebook.acquire.report_data import SessionRecord, SetRecord
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.student_t import dof_text
+from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
 
 PENDING = "pending"
 NOT_GIVEN = "—"
@@ -119,7 +121,10 @@ def calibration(record: SessionRecord) -> Table:
     rows = [
         ("N_D,w as entered", f"{meta.get('N_Dw', NOT_GIVEN)} {meta.get('N_Dw_unit', '')}"),
         ("N_D,w", f"{meta.get('N_Dw_Gy_per_nC', NOT_GIVEN)} Gy/nC"),
-        ("U(N_D,w), k = 2", _percent(meta.get("u_N_Dw_pct_k2"))),
+        (
+            f"U(N_D,w), k = {meta.get('k_N_Dw') or CERTIFICATE_COVERAGE_FACTOR:g}",
+            _percent(meta.get("u_N_Dw_pct_k2")),
+        ),
         ("Calibration date", str(meta.get("calibration_date") or NOT_GIVEN)),
         ("Certificate", str(meta.get("certificate") or NOT_GIVEN)),
         ("k_Q", str(meta.get("k_Q", NOT_GIVEN))),
@@ -299,9 +304,7 @@ def results(record: SessionRecord) -> Table:
         (
             "effective_dof",
             "effective degrees of freedom ν_eff",
-            "∞"
-            if evaluation.effective_dof == float("inf")
-            else number(evaluation.effective_dof, 3),
+            dof_text(evaluation.effective_dof),
         ),
         (
             "coverage_probability",

@@ -109,6 +109,20 @@ def coverage_factor(
     return 0.5 * (low + high)
 
 
+#: Degrees of freedom above which ν_eff is shown as "above 1000": k differs from the normal
+#: distribution's by less than 0.1 % there.
+SHOWN_DOF_LIMIT = 1000.0
+
+
+def dof_text(dof: float | None) -> str:
+    """Return degrees of freedom as shown to the operator: one decimal, or in words."""
+    if dof is None:
+        return "—"
+    if math.isinf(dof):
+        return "∞ (Type B only)"
+    return f"{dof:.1f}" if dof < SHOWN_DOF_LIMIT else f"above {SHOWN_DOF_LIMIT:g}"
+
+
 def welch_satterthwaite(contributions: Iterable[tuple[float, float]]) -> float:
     """Return ν_eff = u_c⁴ / Σ (u_i⁴ / ν_i) from (u_i, ν_i) pairs (GUM G.4.1, equation G.2b).
 

@@ -155,14 +155,12 @@ def _results(evaluation: Evaluation) -> list[str]:
 
 
 def _coverage_text(evaluation: Evaluation) -> str:
-    nu = evaluation.effective_dof
-    if nu is None or nu == float("inf"):
-        nu_text = "∞ (Type B only)"
-    else:
-        nu_text = f"{nu:.1f}" if nu < 1000 else "above 1000"
+    from chargebook.corrections.student_t import dof_text
+
     return (
-        f"ν_eff = {nu_text} (Welch–Satterthwaite), k = {evaluation.coverage_factor:.2f} "
-        f"(Student's t, coverage probability {100 * evaluation.coverage_probability:g} %)"
+        f"ν_eff = {dof_text(evaluation.effective_dof)} (Welch–Satterthwaite), "
+        f"k = {evaluation.coverage_factor:.2f} (Student's t, coverage probability "
+        f"{100 * evaluation.coverage_probability:g} %)"
     )
 
 
