@@ -9,8 +9,10 @@ colour alone.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from datetime import UTC, datetime
 from typing import Any
 
+from chargebook.acquire import protocol
 from rich.text import Text
 
 PENDING = "pending"
@@ -19,7 +21,7 @@ MINUS = "\u2212"
 NBSP = "\u00a0"
 
 #: Marker put before a flag's message, by severity: readable without colour.
-SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
+SEVERITY_MARKERS = protocol.SEVERITY_MARKERS
 OK_MARKER = "ok"
 
 PURPOSE_WORDS: dict[str, str] = {
@@ -75,6 +77,24 @@ def number(value: float | None, digits: int, unit: str = "") -> str:
         return PENDING
     text = signed(value, digits)
     return f"{text}{NBSP}{unit}" if unit else text
+
+
+def local_time(iso: str | None) -> str:
+    """Return a stored UTC time as local time with its offset: "2026-12-02 07:38:17 +01:00".
+
+    Text that is not an ISO 8601 time is returned as it is (never an error on screen).
+    """
+    if not iso:
+        return ""
+    try:
+        moment = datetime.fromisoformat(iso)
+    except ValueError:
+        return iso
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    local = moment.astimezone()
+    offset = local.strftime("%z")
+    return f"{local:%Y-%m-%d %H:%M:%S} {offset[:3]}:{offset[3:]}"
 
 
 def charge_nC(value: float | None) -> str:
@@ -138,7 +158,7 @@ def flag(flag_info: Mapping[str, Any]) -> str:
 
 def flags_or_ok(flags: Iterable[Mapping[str, Any]], ok_text: str = "no flags") -> list[str]:
     """Return one line per flag, or a single "ok" line when there are none."""
-    lines = [flag(item) for item in flags]
+    lines = [flag(item) for item in protocol.by_severity(list(flags))]
     return lines or [f"{OK_MARKER} {ok_text}"]
 
 

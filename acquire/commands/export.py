@@ -1,4 +1,4 @@
-"""`chargebook export SESSION --format csv|json|html`: one recorded session, for keeping."""
+"""`chargebook export SESSION [--format json|csv|html]`: one recorded session, for keeping."""
 
 from __future__ import annotations
 
@@ -17,7 +17,9 @@ FORMATS = ("csv", "json", "html")
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_session_argument(parser)
-    parser.add_argument("--format", choices=FORMATS, required=True, help="the export format")
+    parser.add_argument(
+        "--format", choices=FORMATS, default="json", help="the export format (default: json)"
+    )
     parser.add_argument(
         "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
     )

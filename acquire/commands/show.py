@@ -23,6 +23,9 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _show(store, args: argparse.Namespace) -> int:
+    import shutil
+    import textwrap
+
     from chargebook.acquire.cli import CAUTION, EXIT_OK
     from chargebook.acquire.export import to_json
     from chargebook.acquire.report_data import load_record
@@ -33,7 +36,9 @@ def _show(store, args: argparse.Namespace) -> int:
     if args.json:
         print(to_json(record), end="")
     else:
-        print(tables_text(all_sections(record)))
+        # Wrapped to the terminal (or $COLUMNS); piped to a file or grep, lines stay whole.
+        columns = shutil.get_terminal_size((0, 0)).columns
+        print(tables_text(all_sections(record), width=columns or None))
         print()
-        print(CAUTION)
+        print(textwrap.fill(CAUTION, columns) if columns else CAUTION)
     return EXIT_OK

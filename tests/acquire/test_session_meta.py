@@ -183,3 +183,12 @@ def test_user_components_and_the_certificate_k_reach_the_budget() -> None:
     assert validate_metadata(meta.to_dict()) == meta
     with pytest.raises(InputError, match="k_N_Dw"):
         validate_metadata({**data, "k_N_Dw": 0.5})
+
+
+def test_leakage_subtraction_is_off_unless_chosen_and_must_be_yes_or_no() -> None:
+    assert validate_metadata(required_metadata()).subtract_leakage is False
+    chosen = validate_metadata({**required_metadata(), "subtract_leakage": True})
+    assert chosen.subtract_leakage is True
+    assert validate_metadata(chosen.to_dict()) == chosen
+    with pytest.raises(InputError, match=r"subtract_leakage = 'yes'.*true or false"):
+        validate_metadata({**required_metadata(), "subtract_leakage": "yes"})

@@ -264,10 +264,17 @@ def test_run_unattended_prints_the_worksheet_keys_plus_the_session_id(
         "--port", simulator.serial, "--bench-control", simulator.control,
         "--db", str(tmp_path / "run.sqlite"), "--plan", QUICK_PLAN,
         "--time-scale", str(TIME_SCALE),
+        "--temperature-C", "21.5", "--pressure-hPa", "1008.0",  # a barometer reading in hPa
     )  # fmt: skip
     done = subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
     document = json.loads(done.stdout)
+    with stored(tmp_path / "run.sqlite") as store:
+        (entry,) = store.environment(document["session_id"])
+    assert (entry.pressure_entered, entry.pressure_unit) == (1008.0, "hPa")
+    assert entry.pressure_kPa == pytest.approx(100.8, rel=1e-12)  # 1 hPa = 0.1 kPa (SI)
+    # TRS-398 (2000) air-density correction at 21.5 °C, 100.8 kPa to 20 °C, 101.325 kPa
+    assert document["k_TP"] == pytest.approx((273.2 + 21.5) / 293.2 * 101.325 / 100.8, rel=1e-9)
     worksheet_keys = {
         "k_TP", "k_h", "k_pol", "k_s", "k_elec", "M_raw_nC", "M_corrected_nC", "dose_Gy",
         "dose_per_MU_cGy", "deviation_pct", "u_combined_pct", "U_expanded_pct", "flags",

@@ -30,7 +30,7 @@ from chargebook.acquire.cli import main
 from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.demo_data import demo_metadata
 from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.session_result import session_evaluation
+from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.store import Store
 from e2e_support import (
     QUICK_PLAN,
@@ -293,8 +293,8 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
             assert line_of(store, replay_id, after.traffic_id) == line_of(
                 store, original_id, before.traffic_id
             )
-        results = session_evaluation(store, original_id).to_dict()
-        assert session_evaluation(store, replay_id).to_dict() == results
+        results = evaluate_session(store, original_id).results()
+        assert evaluate_session(store, replay_id).results() == results
         assert report["results_compared"] == len(results)
         SESSION_CHECKS[which](store, replay_id)
 
@@ -362,7 +362,7 @@ def test_another_reduced_bias_gives_the_two_voltage_k_s_of_the_new_ratio(station
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         assert readings_by_set(store, replay_id) == readings_by_set(store, station.clean)
-        results = session_evaluation(store, replay_id).to_dict()
+        results = evaluate_session(store, replay_id).results()
     ratio = results["charge_ratio"]
     assert results["k_s"] == pytest.approx(2.337 - 3.636 * ratio + 2.299 * ratio**2, abs=2e-3)
     assert differences["result k_s"]["replay"] == results["k_s"]
@@ -390,7 +390,7 @@ def test_a_plan_asking_for_fewer_readings_uses_the_first_ones_and_keeps_the_rest
     with Store.open(db, read_only=True) as store:
         routine = next(s for s in store.sets(station.clean) if s.step_key == "routine")
         first_two = [r.charge_nC for r in store.readings(station.clean, routine.id)][:2]
-        results = session_evaluation(store, report["replay_session_id"]).to_dict()
+        results = evaluate_session(store, report["replay_session_id"]).results()
     assert results["M_raw_nC"] == pytest.approx(np.mean(first_two), rel=1e-12)
 
 

@@ -56,7 +56,7 @@ def test_the_coverage_factor_shown_is_the_daemons_not_a_fixed_2():
 def test_the_history_keeps_superseded_sets_with_their_reason():
     rows = snapshot_view.history_rows(load_snapshot("finished")["sets"])
     statuses = [status for _step, _name, status, _mean, _sd in rows]
-    assert "superseded: spike on reading 4" in statuses
+    assert "superseded: spike on reading 3" in statuses
     assert "superseded: interrupted by the cable" in statuses
     assert statuses.count("accepted") == 6
 

@@ -45,3 +45,17 @@ def test_states_steps_and_conventions_are_said_in_plain_words():
     assert text.purpose("opposite") == "Opposite polarity"
     assert text.convention("tg51") == "AAPM TG-51"
     assert text.set_status("superseded") == "superseded"
+
+
+def test_stored_utc_times_are_shown_in_local_time_with_their_offset(monkeypatch) -> None:
+    import time
+
+    monkeypatch.setenv("TZ", "CET-1")  # a POSIX zone one hour east of UTC, no tz database
+    time.tzset()
+    try:
+        assert text.local_time("2026-12-02T06:38:17.273976+00:00") == "2026-12-02 07:38:17 +01:00"
+        assert text.local_time("not a time") == "not a time"
+        assert text.local_time(None) == ""
+    finally:
+        monkeypatch.undo()
+        time.tzset()

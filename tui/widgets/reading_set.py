@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from chargebook.acquire.protocol import severity_rank
 from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
@@ -21,11 +22,16 @@ READING_COLUMNS: tuple[tuple[str, int, bool], ...] = (
 )
 
 
+def reading_label(reading: dict[str, Any]) -> str:
+    """Return the reading's name as the daemon gave it ("s1" settling, then "1", "2", ...)."""
+    return str(reading.get("label") or reading["seq"])
+
+
 def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     """Return one reading's cells: number, charge in nC, how captured, flag marker."""
     marker = text.reading_marker(reading.get("flags") or [], bool(reading.get("settling")))
     return (
-        str(reading["seq"]),
+        reading_label(reading),
         text.number(reading["charge_nC"], 4),
         str(reading.get("capture") or ""),
         marker,
@@ -56,15 +62,17 @@ def readings_lines(set_info: dict[str, Any] | None) -> list[str]:
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
-    """Return one line per flagged reading ("#3 ! outlier ..."), then the set's own flags."""
+    """Return the flags of the set and of its readings ("#3 ! outlier ..."), worst first."""
     if not set_info:
         return []
-    lines = [
-        f"#{reading['seq']} {text.flag(item)}"
+    flagged = [
+        (severity_rank(item), f"#{reading_label(reading)} {text.flag(item)}")
         for reading in set_info.get("readings", [])
         for item in reading.get("flags") or []
     ]
-    return lines + text.flags_or_ok(set_info.get("flags") or [], "set: no flags")
+    flagged += [(severity_rank(item), text.flag(item)) for item in set_info.get("flags") or []]
+    lines = [line for _rank, line in sorted(flagged, key=lambda pair: pair[0])]
+    return lines or text.flags_or_ok([], "set: no flags")
 
 
 class ReadingSetPanel(Vertical):
