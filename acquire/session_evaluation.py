@@ -43,9 +43,14 @@ RESULT_PURPOSES = {
     "reduced": "reduced_nC",
     "return_check": "return_nC",
 }
-#: The result sets whose means are referred to the routine set's air (``set_environments``):
-#: the return check is compared with the routine set as read.
-AIR_REFERRED_PURPOSES = ("routine", "opposite", "reduced")
+#: The plan purposes whose means are referred to the routine set's air, and their key in
+#: ``MeasurementInputs.set_environments``.
+AIR_KEY_OF_PURPOSE = {
+    "routine": "routine",
+    "opposite": "opposite",
+    "reduced": "reduced",
+    "return_check": "return",
+}
 
 
 @dataclass(frozen=True)
@@ -207,13 +212,11 @@ def _set_environments(
     environments: dict[str, SetEnvironment] = {}
     used: list[EnvironmentRow] = []
     for purpose, reading in first.items():
-        if purpose not in AIR_REFERRED_PURPOSES:
-            continue
         found = entry_in_force(entries, reading)
         if found is None:
             continue
         position, entry = found
-        environments[purpose] = SetEnvironment(
+        environments[AIR_KEY_OF_PURPOSE[purpose]] = SetEnvironment(
             entry.temperature_C,
             entry.pressure_kPa,
             _entry_words(position, entry, reading),

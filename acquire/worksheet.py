@@ -6,10 +6,11 @@ A worksheet holds one session::
     beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
     [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
     [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
-    [environment.routine], [environment.opposite], [environment.reduced]
+    [environment.routine], [environment.opposite], [environment.reduced], [environment.return]
                    (optional) the air while that set was taken: temperature_C and one pressure
-                   key; the set's mean is corrected with it before k_pol and k_s are formed,
-                   and the routine set's gives k_TP. A set without one uses [environment].
+                   key; the set's mean is corrected with it before k_pol and k_s are formed
+                   and the return check is compared, and the routine set's gives k_TP. A set
+                   without one uses [environment].
     [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
     [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC,
                    return_nC = [...] (the return to the routine setting at the end)
@@ -44,7 +45,7 @@ from typing import Any
 
 from chargebook.corrections import units
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
+from chargebook.corrections.evaluate import AIR_KEYS, MeasurementInputs, Uncertainties
 from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 
@@ -182,7 +183,7 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
         if not isinstance(value, Mapping):
             raise InputError(key, value, f"a [{key}] table", "is not a table")
         for inner, inner_value in value.items():
-            if key == "environment" and inner in SET_KEYS:
+            if key == "environment" and inner in AIR_KEYS:
                 result[key][inner] = _set_environment_table(inner, inner_value)
                 continue
             if inner not in SCHEMA[key]:
@@ -217,7 +218,7 @@ def _set_environments(
     """Return the per-set environments of the worksheet and the pressure conversions made."""
     found: dict[str, SetEnvironment] = {}
     conversions: list[units.Conversion] = []
-    for set_key in SET_KEYS:
+    for set_key in AIR_KEYS:
         table = environment.get(set_key)
         if table is None:
             continue

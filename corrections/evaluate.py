@@ -82,6 +82,9 @@ FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw",
 CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
 STATES: tuple[str, ...] = ("measured", "entered", "default", "pending")
 SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
+#: The sets that may have air of their own (``set_environments``): the result sets and the
+#: return check, whose mean is referred to the routine set's air before it is compared.
+AIR_KEYS: tuple[str, ...] = (*SET_KEYS, "return")
 #: Budget source of a Type B input whose uncertainty was not given (flagged, never taken as 0).
 NOT_GIVEN = "not given: left out of u_c"
 
@@ -131,9 +134,10 @@ class MeasurementInputs:
     ``temperature_history_C`` and ``pressure_history_kPa`` are the values recorded during the
     session, to flag a changing environment. ``conversions`` records unit conversions made
     while reading the inputs, so they can be shown with the results.
-    ``set_environments`` gives, per set ("routine", "opposite", "reduced"), the air in which
-    that set was taken; a set without one uses ``temperature_C`` and ``pressure_kPa``. Each
-    set's mean is referred to reference air with its own k_TP before k_pol and k_s are formed
+    ``set_environments`` gives, per set ("routine", "opposite", "reduced", "return"), the air
+    in which that set was taken; a set without one uses ``temperature_C`` and ``pressure_kPa``.
+    Each set's mean is referred to reference air with its own k_TP before k_pol and k_s are
+    formed and before the return check is compared with the routine set
     (:mod:`chargebook.corrections.set_air`); the routine set's k_TP is the result's.
     ``subtract_leakage``: subtract ``leakage_nC`` from the routine mean (the operator's choice;
     off by default, the leakage is then only reported as a percentage of the routine reading).
@@ -202,6 +206,8 @@ class ReturnCheck:
     ratio: float
     deviation_pct: float
     between_set_u_pct: float | None
+    #: k_TP(return set's air) / k_TP(routine set's air): 1.0 when both were taken in one air.
+    air_scale: float = 1.0
 
     def to_dict(self) -> dict[str, object]:
         """Return the check as JSON-ready plain types."""
@@ -210,18 +216,25 @@ class ReturnCheck:
             "ratio": self.ratio,
             "deviation_pct": self.deviation_pct,
             "between_set_u_pct": self.between_set_u_pct,
+            "air_scale": self.air_scale,
         }
 
 
-def return_check(routine: SetStatistics, returned: SetStatistics) -> ReturnCheck:
-    """Return the return-to-start comparison of two sets at the routine setting."""
-    ratio = returned.mean_nC / routine.mean_nC
+def return_check(
+    routine: SetStatistics, returned: SetStatistics, air_scale_: float = 1.0
+) -> ReturnCheck:
+    """Return the return-to-start comparison of two sets at the routine setting.
+
+    ``air_scale_`` = k_TP(return set's air) / k_TP(routine set's air) refers the return-check
+    mean to the routine set's air first, so a change of air is not taken for a change of output.
+    """
+    ratio = returned.mean_nC * air_scale_ / routine.mean_nC
     deviation = 100.0 * (ratio - 1.0)
     u_between = None
     u_r, u_ret = routine.relative_standard_error_pct, returned.relative_standard_error_pct
     if u_r is not None and u_ret is not None:
         u_between = math.sqrt(max(0.0, deviation**2 / 2.0 - (u_r**2 + u_ret**2) / 2.0))
-    return ReturnCheck(returned, ratio, deviation, u_between)
+    return ReturnCheck(returned, ratio, deviation, u_between, air_scale_)
 
 
 @dataclass(frozen=True)
@@ -473,7 +486,7 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
             inputs.expected_cGy_per_MU, limits.EXPECTED_CGY_PER_MU, "expected_cGy_per_MU"
         ),
         tolerance_pct=tolerance,
-        set_environments=check_set_environments(inputs.set_environments, SET_KEYS),
+        set_environments=check_set_environments(inputs.set_environments, AIR_KEYS),
     )
 
 
@@ -523,8 +536,12 @@ def _reading_sets(
 
 
 def _return_check(
-    inputs: MeasurementInputs, sets: Mapping[str, SetStatistics | None]
+    inputs: MeasurementInputs,
+    sets: Mapping[str, SetStatistics | None],
+    checked: _Checked,
+    convention: Convention,
 ) -> ReturnCheck | None:
+    """Return the return check, its mean referred to the routine set's air (None: not taken)."""
     if not inputs.return_nC or sets["routine"] is None:
         return None
     values = readings_array("return_nC", inputs.return_nC)
@@ -542,7 +559,12 @@ def _return_check(
             "charges of the same sign as the routine readings",
             "has a sign that contradicts its bias",
         )
-    return return_check(sets["routine"], stats)
+    own, T, P = checked.set_environments, checked.temperature_C, checked.pressure_kPa
+    scale = air_scale(
+        set_k_TP(environment_of("return", own, T, P), convention),
+        set_k_TP(environment_of("routine", own, T, P), convention),
+    )
+    return return_check(sets["routine"], stats, scale)
 
 
 def _return_flags(check: ReturnCheck | None, limits_: Thresholds) -> list[Flag]:
@@ -1042,7 +1064,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     beam = parse_beam(inputs.beam)
     checked = _check_scalars(inputs, convention, beam)
     sets = _reading_sets(inputs)
-    returned = _return_check(inputs, sets)
+    returned = _return_check(inputs, sets, checked, convention)
     set_air, scales, routine_air = _set_air(checked, sets, convention)
     factors = _factors(inputs, checked, sets, convention, beam, scales, routine_air)
 

@@ -115,6 +115,7 @@ def _sets(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
         lines.append(
             f"  return check: {check.stats.count} readings, mean {check.stats.mean_nC:.4f} nC, "
             f"ratio to routine {check.ratio:.5f} ({check.deviation_pct:+.3f} %)"
+            + ("" if check.air_scale == 1.0 else ", its mean referred to the routine set's air")
         )
     return lines
 

@@ -192,6 +192,14 @@ def test_issue_12_keys_reach_the_inputs(tmp_path: Path) -> None:
     assert (t.outlier_floor_pct, t.return_check_pct) == (0.1, 0.3)
 
 
+def test_the_return_check_may_have_its_own_environment_table(tmp_path: Path) -> None:
+    text = MINIMAL.replace("[readings]\n", "[readings]\nreturn_nC = [14.72, 14.70, 14.71]\n")
+    text += "[environment.return]\ntemperature_C = 22.3\npressure_kPa = 100.5\n"
+    air = load_worksheet(write(tmp_path, text)).set_environments["return"]
+    assert (air.temperature_C, air.pressure_kPa) == (22.3, 100.5)
+    assert air.source == "worksheet [environment.return]"
+
+
 def test_an_unknown_off_table_choice_is_named(tmp_path: Path) -> None:
     text = MINIMAL + '[thresholds]\nrecombination_off_table = "nearest"\n'
     with pytest.raises(InputError) as caught:

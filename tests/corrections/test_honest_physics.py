@@ -7,6 +7,7 @@ independent GUM implementation (GTC, the GUM Tree Calculator, a test-only depend
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable
 
@@ -15,6 +16,7 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import MeasurementInputs, Uncertainties, evaluate
 from chargebook.corrections.monte_carlo import validation_tolerance_pct
 from chargebook.corrections.recombination import k_s_tabulated
+from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.statistics import set_statistics
 from chargebook.corrections.student_t import coverage_factor, welch_satterthwaite
@@ -319,6 +321,22 @@ def test_return_check_reports_the_ratio_and_flags_a_move(session: Session) -> No
     assert between.dof == 1
     assert between.u_rel_pct > 0.2
     assert moved.to_dict()["return_check"]["ratio"] == pytest.approx(moved.return_check.ratio)
+
+
+def test_the_return_check_is_compared_in_the_routine_sets_air(session: Session) -> None:
+    # The chamber reads 0.17 % more after the air warmed 0.5 °C at the same pressure (the
+    # TRS-398 (2000) k_TP = ((273.2 + T)/293.2)·(101.325/P) ratio): the output did not move.
+    base = session(return_nC=(14.748, 14.750, 14.749))
+    T, P = base.temperature_C, base.pressure_kPa
+    scale = (273.2 + T + 0.5) / (273.2 + T)
+    returned = tuple(charge / scale for charge in base.return_nC)
+    warm = {"return": SetEnvironment(T + 0.5, P, "entry 2")}
+    checked = evaluate(dataclasses.replace(base, return_nC=returned, set_environments=warm))
+    assert checked.return_check.air_scale == pytest.approx(scale, rel=1e-12)
+    assert checked.return_check.ratio == pytest.approx(14.749 / 14.749, abs=1e-4)
+    assert "return_check_moved" not in codes(checked)
+    as_read = evaluate(dataclasses.replace(base, return_nC=returned))
+    assert as_read.return_check.deviation_pct == pytest.approx(-0.17, abs=0.01)
 
 
 # ------------------------------------------------------------------ items 14 and 15
