@@ -177,7 +177,12 @@ def set_summary(
     if not used:
         return None, [], per_reading
     try:
-        stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
+        stats = set_statistics(
+            [r.charge_nC for r in used],
+            f"{purpose} readings",
+            thresholds.outlier_modified_z,
+            thresholds.outlier_floor_pct,
+        )
     except InputError as error:  # display never raises: say why there are no statistics
         return None, [_unsummarised(purpose, error)], per_reading
     if purpose not in COMPARED_PURPOSES:

@@ -21,6 +21,8 @@ from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, 
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.student_t import dof_text
+from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
 
 PENDING = "pending"
 NOT_GIVEN = "—"
@@ -122,7 +124,10 @@ def calibration(record: SessionRecord) -> Table:
     rows = [
         ("N_D,w as entered", f"{meta.get('N_Dw', NOT_GIVEN)} {meta.get('N_Dw_unit', '')}"),
         ("N_D,w", f"{meta.get('N_Dw_Gy_per_nC', NOT_GIVEN)} Gy/nC"),
-        ("U(N_D,w), k = 2", _percent(meta.get("u_N_Dw_pct_k2"))),
+        (
+            f"U(N_D,w), k = {meta.get('k_N_Dw') or CERTIFICATE_COVERAGE_FACTOR:g}",
+            _percent(meta.get("u_N_Dw_pct_k2")),
+        ),
         ("Calibration date", str(meta.get("calibration_date") or NOT_GIVEN)),
         ("Certificate", str(meta.get("certificate") or NOT_GIVEN)),
         ("k_Q", str(meta.get("k_Q", NOT_GIVEN))),
@@ -323,8 +328,23 @@ def results(record: SessionRecord) -> Table:
         ),
         (
             "U_expanded_pct",
-            "expanded uncertainty U, k = 2 (%)",
+            "expanded uncertainty U = k u_c (%)",
             number(evaluation.U_expanded_pct, 2),
+        ),
+        (
+            "coverage_factor",
+            "coverage factor k (Student's t)",
+            number(evaluation.coverage_factor, 3),
+        ),
+        (
+            "effective_dof",
+            "effective degrees of freedom ν_eff",
+            dof_text(evaluation.effective_dof),
+        ),
+        (
+            "coverage_probability",
+            "coverage probability (%)",
+            f"{100 * evaluation.coverage_probability:g}",
         ),
     ]
     found = evaluation.to_dict()
@@ -360,7 +380,22 @@ def budget(record: SessionRecord) -> Table:
         ("component", "relative u (%)", "source"),
         rows,
         tuple(f"budget-{i}" for i in range(len(rows))),
-        note="Standard uncertainties combined in quadrature (JCGM 100:2008); U = 2 u_c.",
+        note=(
+            "Standard uncertainties combined in quadrature (JCGM 100:2008); U = k u_c, k from "
+            "Student's t at ν_eff (Welch–Satterthwaite, JCGM 100:2008 G.4)."
+            + _monte_carlo_note(evaluation)
+        ),
+    )
+
+
+def _monte_carlo_note(evaluation: Any) -> str:
+    """Return the Monte Carlo cross-check in words, or nothing before u_c is known."""
+    if evaluation.u_combined_pct is None:
+        return ""
+    check = evaluation.monte_carlo()
+    return (
+        f" Monte Carlo check (JCGM 101:2008, {check.trials} draws, seed {check.seed}): "
+        f"{check.note}."
     )
 
 

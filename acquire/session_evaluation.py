@@ -41,7 +41,20 @@ from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.units import Conversion
 
 #: The plan purposes whose readings feed the results, and their MeasurementInputs field.
-RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
+RESULT_PURPOSES = {
+    "routine": "routine_nC",
+    "opposite": "opposite_nC",
+    "reduced": "reduced_nC",
+    "return_check": "return_nC",
+}
+#: The plan purposes whose means are referred to the routine set's air, and their key in
+#: ``MeasurementInputs.set_environments``.
+AIR_KEY_OF_PURPOSE = {
+    "routine": "routine",
+    "opposite": "opposite",
+    "reduced": "reduced",
+    "return_check": "return",
+}
 
 
 @dataclass(frozen=True)
@@ -207,7 +220,7 @@ def _set_environments(
         if found is None:
             continue
         position, entry = found
-        environments[purpose] = SetEnvironment(
+        environments[AIR_KEY_OF_PURPOSE[purpose]] = SetEnvironment(
             entry.temperature_C,
             entry.pressure_kPa,
             _entry_words(position, entry, reading),
@@ -251,6 +264,7 @@ def _inputs(
         routine_nC=tuple(r.charge_nC for r in chosen.used.get("routine", ())),
         opposite_nC=tuple(r.charge_nC for r in chosen.used.get("opposite", ())),
         reduced_nC=tuple(r.charge_nC for r in chosen.used.get("reduced", ())),
+        return_nC=tuple(r.charge_nC for r in chosen.used.get("return_check", ())),
         leakage_nC=_leakage_nC(chosen, times),
         N_Dw_Gy_per_nC=meta.N_Dw_Gy_per_nC,
         k_Q=meta.k_Q,

@@ -27,6 +27,12 @@ Keys (required unless a default is shown)::
                                   left out of u_c and flagged, never counted as exact)
     u_temperature_C       None    thermometer standard uncertainty, °C (None: library default)
     u_pressure_kPa        None    barometer standard uncertainty, kPa (None: library default)
+    k_N_Dw                None    the certificate's coverage factor for u_N_Dw_pct_k2 (None: 2)
+    coverage_probability  None    of the expanded uncertainty (None: 0.95)
+    u_reference_conditions_pct, u_long_term_stability_pct, u_beam_monitor_pct,
+    u_electrometer_resolution_pct
+                          None    the user's own budget components, relative standard
+                                  uncertainties in % (None: not in the budget)
     tolerance_pct         None    a number in %, or daily | monthly | annual (AAPM TG-142);
                                   None: the library's default (TG-142 monthly, 2 %)
     calibration_date      None    date of the calibration certificate, YYYY-MM-DD
@@ -66,7 +72,7 @@ from chargebook.corrections.carried import (
 )
 from chargebook.corrections.conventions import parse_convention
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import Uncertainties
+from chargebook.corrections.evaluate import USER_COMPONENTS, Uncertainties
 from chargebook.corrections.recombination import parse_beam
 from chargebook.corrections.units import Conversion
 
@@ -110,6 +116,12 @@ class SessionMetadata:
     u_k_elec_pct: float | None = None
     u_temperature_C: float | None = None
     u_pressure_kPa: float | None = None
+    k_N_Dw: float | None = None
+    coverage_probability: float | None = None
+    u_reference_conditions_pct: float | None = None
+    u_long_term_stability_pct: float | None = None
+    u_beam_monitor_pct: float | None = None
+    u_electrometer_resolution_pct: float | None = None
     tolerance_pct: float | None = None
     calibration_date: str | None = None
     certificate: str | None = None
@@ -145,6 +157,9 @@ class SessionMetadata:
             "u_k_elec_pct": self.u_k_elec_pct,
             "u_temperature_C": self.u_temperature_C,
             "u_pressure_kPa": self.u_pressure_kPa,
+            "k_N_Dw": self.k_N_Dw,
+            "coverage_probability": self.coverage_probability,
+            **{name: getattr(self, name) for name in USER_COMPONENTS},
         }
         return Uncertainties(**{k: v for k, v in given.items() if v is not None})
 
@@ -314,6 +329,14 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         u_k_elec_pct=u_k_elec,
         u_temperature_C=_number(data, "u_temperature_C", limits.U_TEMPERATURE_C, required=False),
         u_pressure_kPa=_number(data, "u_pressure_kPa", limits.U_PRESSURE_KPA, required=False),
+        k_N_Dw=_number(data, "k_N_Dw", limits.CERTIFICATE_K, required=False),
+        coverage_probability=_number(
+            data, "coverage_probability", limits.COVERAGE_PROBABILITY, required=False
+        ),
+        **{
+            name: _number(data, name, limits.UNCERTAINTY_PCT, required=False)
+            for name in USER_COMPONENTS
+        },
         tolerance_pct=_tolerance(data),
         calibration_date=_date(data, "calibration_date"),
         subtract_leakage=_flag(data, "subtract_leakage"),

@@ -117,7 +117,8 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
         f"deviation       {_number(document.get('deviation_pct'), 2)} {unit} "
         f"(tolerance {document.get('tolerance_pct')} {unit})",
         f"u_c             {_number(document.get('u_combined_pct'), 2)} {unit}, "
-        f"U (k = 2) {_number(document.get('U_expanded_pct'), 2)} {unit}",
+        f"U (k = {_number(document.get('coverage_factor'), 3)}) "
+        f"{_number(document.get('U_expanded_pct'), 2)} {unit}",
     ]
     lines += [f"{label:<22} {text}" for label, text in cross_check_rows(document)]
     flags = document.get("flags", [])

@@ -6,18 +6,23 @@ A worksheet holds one session::
     beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
     [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
     [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
-    [environment.routine], [environment.opposite], [environment.reduced]
+    [environment.routine], [environment.opposite], [environment.reduced], [environment.return]
                    (optional) the air while that set was taken: temperature_C and one pressure
-                   key; the set's mean is corrected with it before k_pol and k_s are formed,
-                   and the routine set's gives k_TP. A set without one uses [environment].
+                   key; the set's mean is corrected with it before k_pol and k_s are formed
+                   and the return check is compared, and the routine set's gives k_TP. A set
+                   without one uses [environment].
     [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
-    [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC
+    [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC,
+                   return_nC = [...] (the return to the routine setting at the end)
     [calibration]  N_Dw_Gy_per_nC | N_Dw_Gy_per_C | N_Dw_cGy_per_nC, k_Q, k_elec,
                    monitor_units (per reading, the same for every set: k_pol and k_s are ratios
                    of the sets' mean charges), expected_cGy_per_MU, tolerance_pct (number, or
-                   "daily", "monthly", "annual"), u_N_Dw_pct_k2, u_k_Q_pct
+                   "daily", "monthly", "annual"), u_N_Dw_pct_k2 (the certificate's expanded
+                   uncertainty), k_N_Dw (its coverage factor, 2 unless stated), u_k_Q_pct
     [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct (give it with k_elec: without
-                   it an entered k_elec is left out of u_c and flagged)
+                   it an entered k_elec is left out of u_c and flagged), coverage_probability
+                   (0.95), and the user's components in %: u_reference_conditions_pct,
+                   u_long_term_stability_pct, u_beam_monitor_pct, u_electrometer_resolution_pct
     [thresholds]   any field of chargebook.corrections.stability.Thresholds
     [carried]      k_pol = { value, source, date, u_pct }, k_s = { ... } (optional): a factor
                    carried from an earlier full calibration, for a routine output check with
@@ -54,7 +59,7 @@ from chargebook.corrections.carried import (
     parse_date,
 )
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
+from chargebook.corrections.evaluate import AIR_KEYS, MeasurementInputs, Uncertainties
 from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 
@@ -93,6 +98,7 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             "routine_nC": NUMBERS,
             "opposite_nC": NUMBERS,
             "reduced_nC": NUMBERS,
+            "return_nC": NUMBERS,
             "leakage_nC": NUMBER,
         },
         "calibration": {
@@ -105,17 +111,25 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             "expected_cGy_per_MU": NUMBER,
             "tolerance_pct": NUMBER_OR_TEXT,
             "u_N_Dw_pct_k2": NUMBER,
+            "k_N_Dw": NUMBER,
             "u_k_Q_pct": NUMBER,
         },
         "uncertainty": {
             "u_temperature_C": NUMBER,
             "u_pressure_kPa": NUMBER,
             "u_k_elec_pct": NUMBER,
+            "coverage_probability": NUMBER,
+            "u_reference_conditions_pct": NUMBER,
+            "u_long_term_stability_pct": NUMBER,
+            "u_beam_monitor_pct": NUMBER,
+            "u_electrometer_resolution_pct": NUMBER,
         },
         "thresholds": {
             item.name: (
                 INTEGER_OR_NONE
                 if item.name in ("minimum_readings", "charge_sign_for_positive_bias")
+                else TEXT
+                if item.name == "recombination_off_table"
                 else NUMBER
             )
             for item in dataclasses.fields(Thresholds)
@@ -185,7 +199,7 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
         if not isinstance(value, Mapping):
             raise InputError(key, value, f"a [{key}] table", "is not a table")
         for inner, inner_value in value.items():
-            if key == "environment" and inner in SET_KEYS:
+            if key == "environment" and inner in AIR_KEYS:
                 result[key][inner] = _set_environment_table(inner, inner_value)
                 continue
             if inner not in SCHEMA[key]:
@@ -223,7 +237,7 @@ def _set_environments(
     """Return the per-set environments of the worksheet and the pressure conversions made."""
     found: dict[str, SetEnvironment] = {}
     conversions: list[units.Conversion] = []
-    for set_key in SET_KEYS:
+    for set_key in AIR_KEYS:
         table = environment.get(set_key)
         if table is None:
             continue
@@ -316,6 +330,7 @@ def parse_worksheet(
     uncertainties = Uncertainties(
         u_N_Dw_pct_k2=calibration.get("u_N_Dw_pct_k2"),
         u_k_Q_pct=calibration.get("u_k_Q_pct"),
+        **({"k_N_Dw": calibration["k_N_Dw"]} if "k_N_Dw" in calibration else {}),
         **uncertainty,
     )
     inputs = MeasurementInputs(
@@ -329,6 +344,7 @@ def parse_worksheet(
         routine_nC=readings["routine_nC"],
         opposite_nC=readings.get("opposite_nC", ()),
         reduced_nC=readings.get("reduced_nC", ()),
+        return_nC=readings.get("return_nC", ()),
         leakage_nC=readings.get("leakage_nC"),
         N_Dw_Gy_per_nC=N_Dw,
         k_Q=calibration.get("k_Q"),
@@ -377,6 +393,7 @@ _RENAMED = {
     "reduced_bias_V": "bias.reduced_V",
     "uncertainties.u_N_Dw_pct_k2": "calibration.u_N_Dw_pct_k2",
     "uncertainties.u_k_Q_pct": "calibration.u_k_Q_pct",
+    "uncertainties.k_N_Dw": "calibration.k_N_Dw",
 }
 
 

@@ -233,6 +233,12 @@ def deviation_text(snapshot: Snapshot) -> str:
     return shown + limit
 
 
+def _coverage_factor(results: dict[str, Any]) -> str:
+    """Return k as shown: Student's t at ν_eff; results recorded before ν_eff used k = 2."""
+    k = results.get("coverage_factor")
+    return "2" if k is None else f"{k:.2f}"
+
+
 def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     """Return (label, value) rows: raw and corrected charge, dose, per MU, deviation, u_c."""
     results = snapshot.get("results") or {}
@@ -242,7 +248,7 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     uncertainty = (
         text.PENDING
         if combined is None
-        else f"{text.percent(combined)} (k=2: {text.percent(expanded)})"
+        else f"{text.percent(combined)} (k={_coverage_factor(results)}: {text.percent(expanded)})"
     )
     return [
         (f"Raw charge {symbols.get('M_raw', 'M_raw')}", text.charge_nC(results.get("M_raw_nC"))),

@@ -2,7 +2,7 @@
 
 Samples are fed as an integrating electrometer would send them while a beam is delivered (the
 charge rises, then holds flat): common practice for end-of-beam capture. Factor check values are
-the published formulas of REFERENCE.md written out here, not the library's code.
+the published formulas of docs/physics.md written out here, not the library's code.
 """
 
 from __future__ import annotations
@@ -108,7 +108,7 @@ def test_a_plan_runs_from_start_to_finish_with_settling_readings_kept_but_not_us
     assert [r.settling for r in readings].count(True) == 3
     results, provisional, error = engine.results()
     assert error is None and not provisional
-    # TRS-398: k_pol = (|M+| + |M-|) / (2 |M|), M the routine-polarity reading (REFERENCE.md).
+    # TRS-398: k_pol = (|M+| + |M-|) / (2 |M|), M the routine-polarity reading (docs/physics.md).
     m_plus, m_minus = sum(routine[1:]) / 3, sum(opposite[1:]) / 3
     assert results["k_pol"] == pytest.approx((abs(m_plus) + abs(m_minus)) / (2 * abs(m_plus)))
     assert results["M_raw_nC"] == pytest.approx(m_plus)

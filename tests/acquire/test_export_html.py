@@ -175,3 +175,32 @@ def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
     assert parsed.rows[("Correction factors", "k_TP")][1:3] == ["pending", "pending"]
     assert parsed.rows[("Results", "dose_per_MU_cGy")][1] == "pending"
     assert parsed.rows[("Results", "M_raw_nC")][1] == "14.7500"
+
+
+def test_the_certificates_own_coverage_factor_is_shown_and_used(tmp_path: Path) -> None:
+    # Issue 12 item 8: a certificate at k = 2.4 (JCGM 100:2008 6.2.1: u = U/k).
+    from chargebook.acquire import report_sections
+
+    with Store.open(tmp_path / "station.sqlite") as store:
+        record_example_session(store, k_N_Dw=2.4)
+        record = load_record(store, 1)
+    labels = [row[0] for row in report_sections.calibration(record).rows]
+    assert "U(N_D,w), k = 2.4" in labels
+    u_N_Dw = record.evaluation.factors["N_Dw"].u_rel_pct
+    assert u_N_Dw == pytest.approx(record.metadata["u_N_Dw_pct_k2"] / 2.4)
+
+
+def test_the_report_states_nu_eff_k_and_the_monte_carlo_check(report) -> None:
+    # Issue 12 items 6 and 7: U = k u_c with k from Student's t at ν_eff (JCGM 100:2008 G.4),
+    # and the Monte Carlo interval beside it (JCGM 101:2008), the same numbers `correct` prints.
+    from chargebook.acquire import report_sections
+
+    parsed, store = report
+    record = load_record(store, 1)
+    evaluation = record.evaluation
+    assert parsed.rows[("Results", "coverage_factor")][1] == f"{evaluation.coverage_factor:.3f}"
+    # The example's budget is Type B dominant: ν_eff is large and k close to 1.96 (JCGM 100 G.2).
+    assert parsed.rows[("Results", "effective_dof")][1] == "above 1000"
+    assert evaluation.coverage_factor == pytest.approx(1.96, abs=0.005)
+    note = report_sections.budget(record).note
+    assert evaluation.monte_carlo().note in note

@@ -9,8 +9,8 @@ from chargebook.corrections.air_density import k_TP
 from chargebook.corrections.carried import CarriedFactor, carried_factor
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+from chargebook.corrections.monte_carlo import monte_carlo_u_pct
 from chargebook.corrections.stability import Thresholds
-from chargebook.corrections.uncertainty import monte_carlo_u_pct
 
 Session = Callable[..., MeasurementInputs]
 

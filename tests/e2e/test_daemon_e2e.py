@@ -3,7 +3,7 @@
 The closed loop: the simulator's chamber has known true factors (``truth``); the daemon reads it
 through the serial driver, and the corrections must recover them within the noise. Check values
 come from the simulator (an independent implementation of the physics, drivers_generic), and
-the factor definitions from TRS-398 as written in REFERENCE.md.
+the factor definitions from TRS-398 as written in docs/physics.md.
 """
 
 from __future__ import annotations
@@ -27,7 +27,7 @@ pytestmark = pytest.mark.e2e
 #: The simulator's noise is 0.03 % per reading (its ``truth`` says so); set means of 3–4
 #: readings are good to about 0.02 %, so factors are compared at these tolerances.
 K_POL_TOLERANCE = 1e-3
-K_S_TOLERANCE = 2e-3  # the TRS-398 quadratic fits Boag's theory to ~0.1 % (REFERENCE.md)
+K_S_TOLERANCE = 2e-3  # the TRS-398 quadratic fits Boag's theory to ~0.1 % (docs/physics.md)
 K_TP_TOLERANCE = 1e-4  # 273.2 (ours) against 273.15 (the simulator's) moves k_TP by ~1e-5
 CHARGE_TOLERANCE = 3e-3  # relative: noise, slow drift and settling left after correction
 

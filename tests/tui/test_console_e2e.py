@@ -159,7 +159,7 @@ async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lo
         await pilot.press("8", "0", "enter")
         await pilot.pause()
         assert isinstance(app.screen, EnvironmentScreen)  # refused: the form stays open
-        # Plausible range 10-40 °C: common practice (docs/physics.md, plausibility ranges).
+        # Plausible range 10-40 °C: common practice (docs/physics.md, 6.1 "Refused inputs").
         refusal = "Air temperature °C: 80 is outside 10 to 40 °C"
         assert temperature.problem == refusal
         assert "!! Air temperature °C: 80 is outside" in screen_text(app)

@@ -55,6 +55,14 @@ def test_results_are_the_daemons_numbers_formatted_not_recomputed():
     assert rows["Uncertainty u_c"].startswith(f"{results['u_combined_pct']:.2f} %")
 
 
+def test_the_coverage_factor_shown_is_the_daemons_not_a_fixed_2():
+    # Issue 12 item 6: U = k u_c with k from Student's t at ν_eff (JCGM 100:2008 G.4).
+    snapshot = load_snapshot("finished")
+    snapshot["results"] = {**snapshot["results"], "coverage_factor": 2.45, "U_expanded_pct": 2.8}
+    rows = dict(snapshot_view.result_rows(snapshot))
+    assert "k=2.45" in rows["Uncertainty u_c"].replace("\u00a0", " ")
+
+
 def test_the_history_keeps_superseded_sets_with_their_reason():
     rows = snapshot_view.history_rows(load_snapshot("finished")["sets"])
     statuses = [status for _step, _name, status, _mean, _sd in rows]
