@@ -467,8 +467,6 @@ class Daemon:
             self._feed(*payload)
         elif kind == "connected":
             engine.instrument_back(payload)
-            if payload:
-                self._identified(payload)
         elif kind == "lost":
             engine.instrument_lost(payload)
         elif kind == "fault":
@@ -484,16 +482,6 @@ class Daemon:
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
             engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
-
-    def _identified(self, identity: str) -> None:
-        assert self.store is not None and self.engine is not None
-        self._events_checked_at = None
-        self.store.add_event(
-            self.engine.session_id,
-            "daemon",
-            "instrument_identified",
-            {"identity": identity, "profile": self.engine.profile},
-        )
 
     async def _tick(self) -> None:
         assert self.engine is not None
