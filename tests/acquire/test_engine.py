@@ -384,3 +384,23 @@ def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():
     current = snapshot["current_set"]
     assert current["stats"] is None
     assert "statistics_unavailable" in [flag["code"] for flag in current["flags"]]
+
+
+def test_the_readings_list_flags_exactly_the_reading_the_results_refuse():
+    # A tie among the readings used for results (two of each sign) once showed no sign flag in
+    # the readings list while the results said a reading contradicted the bias: one rule now.
+    engine, clock = make_engine()
+    started(engine)
+    plan_steps = engine.plan.steps
+    assert plan_steps[0].readings == 3
+    take_set(engine, clock, [-20.5, 20.0, -20.0, 20.0])  # first is the settling reading
+    snapshot = engine.snapshot()
+    flagged = [
+        reading["charge_nC"]
+        for reading in snapshot["current_set"]["readings"]
+        if "sign_against_bias" in {f["code"] for f in reading["flags"]}
+    ]
+    assert flagged == [-20.5, -20.0]
+    results, _, error = engine.results()
+    assert results is None
+    assert "routine_nC[1]" in error and "contradicts the bias" in error  # the -20.0 reading
