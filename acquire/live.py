@@ -25,6 +25,7 @@ from chargebook.acquire.session_meta import SessionMetadata
 from chargebook.acquire.store import EventRow, ReadingRow, SetRow, Store
 from chargebook.corrections import limits, units
 from chargebook.corrections.errors import InputError
+from chargebook.corrections.leakage import leakage_per_reading_nC
 from chargebook.corrections.signs import contradicting
 from chargebook.corrections.stability import Thresholds, set_flags
 from chargebook.corrections.statistics import set_statistics
@@ -318,8 +319,7 @@ def measurement_inputs(
     latest = environment[-1] if environment else None
     leakage = None
     if leakage_nC is not None and routine_times:
-        # Leakage charge scaled from the leakage integration time to a routine reading's.
-        leakage = leakage_nC[0] * (sum(routine_times) / len(routine_times)) / leakage_nC[1]
+        leakage = leakage_per_reading_nC(leakage_nC[0], leakage_nC[1], routine_times)
     meta = _session_metadata(metadata)
     conversions = list(meta.conversions())
     if latest is not None and latest.pressure_unit != "kPa":
