@@ -109,6 +109,10 @@ class InstrumentLink(threading.Thread):
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
         self.generation: int | None = None  # samples are read while this is set
+        #: The session the lines now sent and received belong to: set in order with the
+        #: commands (:meth:`lines_for`), so a command issued for one session is recorded with
+        #: it even when the loop has moved on to the next session before the line goes out.
+        self.session_id: int | None = None
         self.fresh_after_s = 0.0  # samples received before this are stale
         self.connected = False
         self._timeouts = 0
@@ -119,6 +123,10 @@ class InstrumentLink(threading.Thread):
     def send(self, command: Command) -> None:
         """Queue one engine command."""
         self.inbox.put(("command", command))
+
+    def lines_for(self, session_id: int | None) -> None:
+        """Record the lines of the commands queued from now on with ``session_id``."""
+        self.inbox.put(("session", session_id))
 
     def sample_for(self, generation: int | None) -> None:
         """Read samples tagged ``generation`` from now on (None: stop reading)."""
@@ -195,6 +203,8 @@ class InstrumentLink(threading.Thread):
                 return
             if kind == "sampling":
                 self.generation = value
+            elif kind == "session":
+                self.session_id = value
             elif kind == "command" and value.action in ("beam", "bench_bias"):
                 self._bench(value)
             else:
@@ -222,6 +232,8 @@ class InstrumentLink(threading.Thread):
                     return
                 if kind == "sampling":
                     self.generation = value
+                elif kind == "session":
+                    self.session_id = value
                 elif kind == "command":
                     self._execute(value)
                 try:
@@ -335,6 +347,7 @@ class Daemon:
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
         self._traffic: list[TrafficLine] = []  # recorded, not yet committed
         self._generation = 0
+        self._line_session: int | None = None  # the session last given to the link's lines
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
@@ -387,7 +400,7 @@ class Daemon:
         """Keep one raw line, stamped now, for the next commit (in the instrument thread only)."""
         if self.store is None:
             return
-        session_id = self.engine.session_id if self.engine is not None else None
+        session_id = self.link.session_id if self.link is not None else None
         stamp = self.store.stamp()
         self._traffic.append((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
 
@@ -417,6 +430,7 @@ class Daemon:
             raise
         assert self.engine is not None and self.link is not None and self.store is not None
         resumed = self.engine.restore()
+        self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
         self.link.start()
         info = {
@@ -508,6 +522,9 @@ class Daemon:
         """Send the engine's commands to the instrument and publish what changed."""
         assert self.engine is not None and self.link is not None
         engine = self.engine
+        if engine.session_id != self._line_session:  # a session began or was left
+            self._line_session = engine.session_id
+            self.link.lines_for(engine.session_id)
         for command in engine.take_commands():
             self.link.send(command)
         if engine.reading is not self._sampled_reading:

@@ -329,3 +329,28 @@ def test_serve_refuses_bad_options_naming_them(simulator, tmp_path, options, nam
     done = subprocess.run(command, capture_output=True, text=True, timeout=60, check=False)
     assert done.returncode == 2
     assert named in done.stderr and done.stdout == ""
+
+
+async def test_the_stop_an_abort_sends_is_recorded_with_the_aborted_session_not_the_next(
+    daemon, simulator, metadata
+):
+    # The line is written by the instrument thread after the action; the next session may
+    # already be open by then. Replay needs each line in the session whose action sent it.
+    client = await daemon.connect()
+    operator = AutoOperator(client, bench_environment(simulator))
+    snapshot = await operator.start(metadata)
+    await operator.run_until(snapshot, collecting_with(1))
+    aborted = await client.call("session.abort", reason="chamber cable damaged", confirm=True)
+    await client.call("session.close")
+    following = await operator.start(metadata)
+    await client.close()
+    first, second = aborted["session"]["id"], following["session"]["id"]
+    for _ in range(400):  # the stop goes out within a turn of the instrument thread
+        with stored(daemon.db) as store:
+            sent = [row.line for row in store.traffic(first) if row.direction == "tx"]
+            later = [row.line for row in store.traffic(second) if row.direction == "tx"]
+        if sent and sent[-1].strip() == b"HOLD":  # lumen-q's stop (its profile's template)
+            break
+        await asyncio.sleep(0.05)
+    assert sent[-1].strip() == b"HOLD", sent[-3:]
+    assert b"HOLD" not in [line.strip() for line in later[:1]]
