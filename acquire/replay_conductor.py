@@ -354,6 +354,7 @@ class Conductor:
             if recorded.position > position:
                 return
             self._next_input += 1
+            self.follower.input_position = recorded.position
             try:
                 self._apply(recorded)
             except (IllegalTransition, InputError, ConfirmationRequired) as error:
@@ -365,6 +366,8 @@ class Conductor:
                 if self.strict:
                     raise Divergence(message) from None
                 raise WhatIfStop(message) from None
+            finally:
+                self.follower.input_position = None
             self._take_commands()
 
     def _still_collecting(self) -> str:

@@ -147,6 +147,8 @@ class TrafficFollower:
         self.profile = profile
         self.same_command = same_command
         self.position = 0
+        #: While a recorded input is applied: its place (lines recorded before it).
+        self.input_position: int | None = None
         self.notes: list[TrafficNote] = []
         self.store: Store | None = None
         self.session_id: int | None = None
@@ -168,7 +170,14 @@ class TrafficFollower:
 
     @property
     def played_t_s(self) -> float:
-        """Return the recorded time of the latest line seen (-inf before any)."""
+        """Return the recorded time of the latest line seen (-inf before any).
+
+        While a recorded input is applied (``input_position`` set), the latest line recorded
+        before that input: lines read since (lines pushed before a command's answer, read with
+        it) came after the input in the original.
+        """
+        if self.input_position is not None and self.input_position < self.position:
+            return self.lines[self.input_position - 1].t_s if self.input_position else -math.inf
         return self._last_t_s if self.position else -math.inf
 
     def clock(self) -> float:

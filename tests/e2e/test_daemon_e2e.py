@@ -55,6 +55,7 @@ def collecting_with(readings_done: int):
     return check
 
 
+@pytest.mark.slow
 async def test_the_default_plan_runs_start_to_finish_and_recovers_the_true_factors(
     start_daemon, simulator, metadata
 ):
@@ -139,6 +140,7 @@ async def test_abort_needs_confirmation_and_keeps_everything(daemon, simulator, 
         assert len(store.readings(session_id)) >= 3  # leakage + the routine readings so far
 
 
+@pytest.mark.slow
 async def test_kill_9_mid_set_loses_no_committed_reading_and_the_session_resumes(
     daemon, simulator, metadata
 ):
@@ -167,6 +169,7 @@ async def test_kill_9_mid_set_loses_no_committed_reading_and_the_session_resumes
         assert on_disk <= {r.id for r in store.readings(session_id)}
 
 
+@pytest.mark.slow
 async def test_the_instrument_disconnected_mid_set_then_back(daemon, simulator, metadata):
     client = await daemon.connect()
     operator = AutoOperator(client, bench_environment(simulator))
@@ -256,6 +259,7 @@ async def test_bad_operator_input_is_refused_naming_the_field(daemon, metadata):
         assert len(store.environment(snapshot["session"]["id"])) == 1  # nothing lost, nothing added
 
 
+@pytest.mark.slow
 def test_run_unattended_prints_the_worksheet_keys_plus_the_session_id(
     simulator, tmp_path, metadata
 ):
@@ -281,6 +285,7 @@ def test_run_unattended_prints_the_worksheet_keys_plus_the_session_id(
     assert document["k_pol"] == pytest.approx(truth["k_pol"], abs=K_POL_TOLERANCE)
 
 
+@pytest.mark.slow
 def test_demo_unattended_prints_a_dose_whose_factors_match_the_simulators_truth(tmp_path):
     db = tmp_path / "demo.sqlite"
     command = chargebook_command(

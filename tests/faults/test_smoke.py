@@ -14,7 +14,13 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["kill9", "drop", "fuzz_lines", "bad_rpc"]
+#: The fault runs, the ones whose smoke run takes more than a few seconds marked slow.
+SCRIPTS = [
+    pytest.param("kill9", marks=pytest.mark.slow),
+    pytest.param("drop", marks=pytest.mark.slow),
+    "fuzz_lines",
+    "bad_rpc",
+]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)

@@ -71,6 +71,7 @@ def unattended_results(start_simulator, tmp_path, metadata) -> dict:
     return json.loads(done.stdout)
 
 
+@pytest.mark.slow
 async def test_a_whole_session_by_keys_ends_in_the_summary_the_unattended_run_gives(
     start_simulator, start_daemon, metadata, tmp_path
 ):
@@ -95,6 +96,7 @@ async def test_a_whole_session_by_keys_ends_in_the_summary_the_unattended_run_gi
     assert f"{results['M_corrected_nC']:.4f} nC" in shown
 
 
+@pytest.mark.slow
 async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
     simulator, daemon, metadata
 ):
@@ -126,6 +128,7 @@ async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
     assert len(superseded[0]["readings"]) >= 1  # the old set's readings are kept
 
 
+@pytest.mark.slow
 async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborted(
     simulator, daemon, metadata
 ):
@@ -188,6 +191,7 @@ async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanw
         assert screen_text(app).startswith(f" Session {session_id} · HCC-LA1 6 MV")
 
 
+@pytest.mark.slow
 async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_continues(
     simulator, start_daemon, metadata
 ):
@@ -238,6 +242,7 @@ def instrument_connected(app: ConsoleApp) -> bool:
     return bool(app.snapshot["instrument"]["connected"])
 
 
+@pytest.mark.slow
 async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_by_hand(
     start_simulator, start_daemon, metadata
 ):
