@@ -67,6 +67,17 @@ TIMEOUTS_BEFORE_LOST = 3
 RECONNECT_FIRST_S, RECONNECT_MAX_S = 0.2, 2.0
 
 
+class LineRef:
+    """A raw line received from the instrument, kept for the next traffic commit; ``id`` is
+    its row id once committed (None before, or if it could not be recorded). A sample carries
+    the LineRef of the line it was read from, so its reading names that line."""
+
+    __slots__ = ("id",)
+
+    def __init__(self) -> None:
+        self.id: int | None = None
+
+
 @dataclass(frozen=True)
 class DaemonOptions:
     """What ``chargebook serve`` was asked for."""
@@ -87,7 +98,8 @@ class InstrumentLink(threading.Thread):
     """The thread that owns the electrometer (see the module docstring).
 
     ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
-    Sample)), ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
+    (Sample, LineRef of its raw line or None))), ``connected`` (identity text or None),
+    ``lost`` (message) and ``fault`` (message).
     ``flush()`` commits the raw lines recorded so far; it is called before every ``post`` and
     after every turn of the thread's loop, so no line waits longer than one turn.
     """
@@ -100,11 +112,13 @@ class InstrumentLink(threading.Thread):
         bench: Any = None,
         clock: Callable[[], float] = time.monotonic,
         flush: Callable[[], None] = lambda: None,
+        line_of: Callable[[], LineRef | None] = lambda: None,
     ) -> None:
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
         self.post = post
         self.flush = flush
+        self.line_of = line_of  # the latest line received: the one a sample just read came from
         self.bench = bench
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
@@ -292,7 +306,7 @@ class InstrumentLink(threading.Thread):
             self._hand_over("fault", str(error))
 
     def _read_samples(self, pushes: bool) -> None:
-        samples: list[Sample] = []
+        samples: list[tuple[Sample, LineRef | None]] = []
         try:
             if pushes:
                 self._drain_pushed(samples)
@@ -301,14 +315,14 @@ class InstrumentLink(threading.Thread):
                 if now_s < self._next_poll_s:
                     return
                 self._next_poll_s = now_s + POLL_INTERVAL_S
-                samples.append(self.electrometer.read_charge())
+                samples.append((self.electrometer.read_charge(), self.line_of()))
             self._timeouts = 0
         finally:  # samples read before a disconnection are still handed over
-            fresh = [s for s in samples if s.t_s >= self.fresh_after_s]
+            fresh = [pair for pair in samples if pair[0].t_s >= self.fresh_after_s]
             if fresh:
                 self._hand_over("samples", (self.generation, fresh))
 
-    def _drain_pushed(self, samples: list[Sample]) -> None:
+    def _drain_pushed(self, samples: list[tuple[Sample, LineRef | None]]) -> None:
         """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next one
         within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH.
 
@@ -323,7 +337,7 @@ class InstrumentLink(threading.Thread):
             else:
                 if sample is None:
                     return
-                samples.append(sample)
+                samples.append((sample, self.line_of()))
             timeout_s = BURST_GAP_S
 
 
@@ -346,8 +360,12 @@ class Daemon:
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
         self._traffic: list[TrafficLine] = []  # recorded, not yet committed
+        self._line_refs: list[LineRef | None] = []  # beside _traffic: received lines' refs
+        self._latest_received: LineRef | None = None
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
+        #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
+        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
@@ -393,7 +411,12 @@ class Daemon:
             loop.call_soon_threadsafe(self._events.put_nowait, (kind, payload))
 
         self.link = InstrumentLink(
-            electrometer, post, bench=bench, clock=self.clock, flush=self._commit_traffic
+            electrometer,
+            post,
+            bench=bench,
+            clock=self.clock,
+            flush=self._commit_traffic,
+            line_of=lambda: self._latest_received,
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
@@ -403,21 +426,37 @@ class Daemon:
         session_id = self.link.session_id if self.link is not None else None
         stamp = self.store.stamp()
         self._traffic.append((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
+        ref = None
+        if direction == TrafficDirection.RECEIVED:
+            ref = self._latest_received = LineRef()
+        self._line_refs.append(ref)
 
     def _commit_traffic(self) -> None:
         """Commit the raw lines kept so far in one transaction (instrument thread only)."""
         lines, self._traffic = self._traffic, []
+        refs, self._line_refs = self._line_refs, []
         if not lines or self.store is None:
             return
         try:
-            self.store.add_traffic_many(lines)
+            self._add_traffic(lines, refs)
         except Exception:  # a traffic record must never stop the instrument thread
             log.exception("could not record %d raw instrument lines at once", len(lines))
-            for line in lines:  # save every line that can be saved
+            for line, ref in zip(lines, refs, strict=True):  # save every line that can be saved
                 try:
-                    self.store.add_traffic_many([line])
+                    self._add_traffic([line], [ref])
                 except Exception:
                     log.exception("could not record a raw instrument line: %r", line[3])
+
+    def _add_traffic(self, lines: list[TrafficLine], refs: list[LineRef | None]) -> None:
+        """Commit raw lines and give each received line's ref its row id (ids of one commit
+        are consecutive: the transaction holds the only write lock)."""
+        assert self.store is not None
+        with self.store.atomic():
+            self.store.add_traffic_many(lines)
+            first_id = self.store.newest_traffic_id() - len(lines) + 1
+        for offset, ref in enumerate(refs):
+            if ref is not None:
+                ref.id = first_id + offset
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
@@ -488,14 +527,20 @@ class Daemon:
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 
-    def _feed(self, generation: int | None, samples: list[Sample]) -> None:
+    def _feed(self, generation: int | None, samples: list[tuple[Sample, LineRef | None]]) -> None:
         """Give the engine the samples of the reading now armed, until one completes it."""
         assert self.engine is not None
         engine = self.engine
-        for sample in samples:
+        for sample, line in samples:
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
-            engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+            engine.on_sample(
+                sample.t_s,
+                sample.charge_nC,
+                sample.complete,
+                sample.status.value,
+                line_id=None if line is None else line.id,
+            )
 
     async def _tick(self) -> None:
         assert self.engine is not None
@@ -570,9 +615,23 @@ class Daemon:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
         return self._snapshot_and_line()[0]
 
-    def _snapshot_and_line(self) -> tuple[dict[str, Any], bytes | None]:
+    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
         """Return the engine's snapshot, trimmed to fit one message if it must be, and its
-        notification line, encoded once (None if even the trimmed snapshot does not fit)."""
+        notification line, encoded once (None if even the trimmed snapshot does not fit).
+
+        ``reuse``: the one built last, if nothing changed since (``engine.seq``), so that an
+        action's reply is the snapshot its change was published with, built once.
+        """
+        assert self.engine is not None
+        built = self._built
+        if reuse and built is not None and built[0] == self.engine.seq:
+            return built[1], built[2]
+        seq = self.engine.seq
+        snapshot, line = self._build_snapshot()
+        self._built = (seq, snapshot, line)
+        return snapshot, line
+
+    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         try:
@@ -613,7 +672,7 @@ class Daemon:
             self._perform(method, params, connection.actor)
         finally:
             await self.after_change()  # a refused request may still have recorded something
-        return self.snapshot()
+        return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
 
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
         engine = self.engine

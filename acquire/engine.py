@@ -152,6 +152,7 @@ class Engine:
         self.instrument_message: str | None = None
         self.identity: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
+        self.sample_line_id: int | None = None  # the raw line (traffic id) of the latest sample
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
@@ -480,15 +481,24 @@ class Engine:
 
     # ---------------------------------------------------------------- instrument input
     def on_sample(
-        self, t_s: float, charge_nC: float, complete: bool = False, status: str = "ok"
+        self,
+        t_s: float,
+        charge_nC: float,
+        complete: bool = False,
+        status: str = "ok",
+        *,
+        line_id: int | None = None,
     ) -> None:
         """Take one sample from the instrument (charge in nC, receive time in s on the driver's
-        clock; its raw line is in the store before the sample reaches the engine)."""
+        clock; its raw line, row ``line_id``, is in the store before the sample reaches the
+        engine). A reading names the raw line of the sample it was taken at."""
         reading = self.reading
         if reading is None:
             return
         before = vars(reading).copy(), self.reading_status
         self.reading_status = status
+        if t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
+            self.sample_line_id = line_id
         captured = reading.feed(t_s, charge_nC, complete)
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
@@ -659,7 +669,7 @@ class Engine:
             captured.capture.value,
             settling,
             self.reading_status,
-            self.store.received_line_id(self.session_id, captured.t_s),
+            self.sample_line_id,  # the capture is at the latest sample (see capture.py)
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s

@@ -275,7 +275,13 @@ class Conductor:
             return
         if sample.t_s < self.fresh_after_s or self._maybe_dropped(sample):
             return
-        self.engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+        self.engine.on_sample(
+            sample.t_s,
+            sample.charge_nC,
+            sample.complete,
+            sample.status.value,
+            line_id=self.follower.last_received_id,
+        )
         self._take_commands()
 
     def _maybe_dropped(self, sample: Sample) -> bool:

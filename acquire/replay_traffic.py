@@ -152,6 +152,8 @@ class TrafficFollower:
         self.notes: list[TrafficNote] = []
         self.store: Store | None = None
         self.session_id: int | None = None
+        #: The row id of the latest received line written: the line a sample came from.
+        self.last_received_id: int | None = None
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
 
     def attach(self, store: Store, session_id: int) -> None:
@@ -203,7 +205,9 @@ class TrafficFollower:
         self._check(direction.value, bytes(raw))
         self._last_t_s = t_s
         if self.store is not None:
-            self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            line_id = self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            if direction is TrafficDirection.RECEIVED:
+                self.last_received_id = line_id
         self.position += 1
 
     def _check(self, direction: str, raw: bytes) -> None:

@@ -748,16 +748,10 @@ class Store:
                 self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
             )
 
-    def received_line_id(self, session_id: int, t_s: float) -> int | None:
-        """Return the id of the session's raw line received at ``t_s`` (s, the driver's clock),
-        the line a sample with that time was read from; None when there is none."""
+    def newest_traffic_id(self) -> int:
+        """Return the id of the newest raw line recorded (0 when there is none)."""
         with self._lock:
-            row = self.db.execute(
-                "SELECT id FROM traffic WHERE session_id = ? AND direction = 'rx' AND t_s = ? "
-                "ORDER BY id DESC LIMIT 1",
-                (session_id, t_s),
-            ).fetchone()
-        return None if row is None else int(row[0])
+            return int(self.db.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""
