@@ -22,9 +22,8 @@ from chargebook.drivers_generic.interface import TrafficDirection
 from tests.acquire.test_engine import small_plan
 
 
-async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
-    tmp_path: Path,
-) -> None:
+def daemon_on_file(tmp_path: Path) -> Daemon:
+    """Return a daemon (not running) with its station file open."""
     options = DaemonOptions(
         profile="lumen-q",
         db_path=tmp_path / "station.sqlite",
@@ -32,6 +31,14 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
     )
     daemon = Daemon(options)
     daemon.store = Store.open(options.db_path)
+    return daemon
+
+
+async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_on_file(tmp_path)
+    options = daemon.options
     profile = load_profile("lumen-q")
     daemon.engine = Engine(
         daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
@@ -80,13 +87,7 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
 def test_each_received_line_committed_gives_its_row_id_to_the_sample_read_from_it(
     tmp_path: Path,
 ) -> None:
-    options = DaemonOptions(
-        profile="lumen-q",
-        db_path=tmp_path / "station.sqlite",
-        socket_path=tmp_path / "run" / "daemon.sock",
-    )
-    daemon = Daemon(options)
-    daemon.store = Store.open(options.db_path)
+    daemon = daemon_on_file(tmp_path)
     try:
         daemon.store.add_traffic(None, 0.5, "rx", b"an older line\r\n")
         sent, first, second = (
