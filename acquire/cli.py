@@ -31,11 +31,20 @@ COMMANDS: dict[str, str] = {
     "export": "export",
     "replay": "replay",
     "history": "history",
+    "verify": "verify",
+    "completion": "completion",
 }
 
 EXIT_OK = 0
 EXIT_FAILURE = 1
 EXIT_INVALID_INPUT = 2
+
+#: What every command's exit status means, shown by ``--help`` and in the README.
+EXIT_STATUS_HELP = (
+    "exit status: 0 done; 1 the command ran and found a failure (a replay that does not "
+    "reproduce, a daemon, instrument or database that cannot be reached or read); 2 the input "
+    "cannot be used (a bad option or value, a file or session that does not exist)"
+)
 
 CAUTION = (
     "chargebook supports, and never replaces, the judgement of a qualified medical physicist "
@@ -47,14 +56,32 @@ def _load(module_name: str):
     return importlib.import_module(f"chargebook.acquire.commands.{module_name}")
 
 
+class _VersionAction(argparse.Action):
+    """``--version``: print the installed distribution's version, looked up only when asked."""
+
+    def __init__(self, option_strings: Sequence[str], dest: str, **kwargs: object) -> None:
+        super().__init__(option_strings, dest, nargs=0, help="print chargebook's version and exit")
+
+    def __call__(self, parser: argparse.ArgumentParser, *_: object) -> None:
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            installed = version("chargebook")
+        except PackageNotFoundError:  # run from a source tree that was never installed
+            installed = "unknown (not installed)"
+        print(f"chargebook {installed}")
+        parser.exit(EXIT_OK)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """Return the argument parser with every subcommand that is installed."""
     parser = argparse.ArgumentParser(
         prog="chargebook",
         description="Electrometer data acquisition and charge-to-dose corrections for "
         "reference dosimetry of radiotherapy beams.",
-        epilog=CAUTION,
+        epilog=f"{EXIT_STATUS_HELP}. {CAUTION}",
     )
+    parser.add_argument("--version", action=_VersionAction)
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, module_name in COMMANDS.items():
         try:
@@ -63,7 +90,9 @@ def build_parser() -> argparse.ArgumentParser:
             if error.name != f"chargebook.acquire.commands.{module_name}":
                 raise
             continue
-        sub = subparsers.add_parser(name, help=module.HELP, description=module.HELP)
+        sub = subparsers.add_parser(
+            name, help=module.HELP, description=module.HELP, epilog=EXIT_STATUS_HELP
+        )
         module.add_arguments(sub)
         sub.set_defaults(_run=module.run)
     return parser
@@ -74,7 +103,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if getattr(args, "_run", None) is None:
-        parser.print_help()
+        parser.print_help(sys.stderr)
         return EXIT_INVALID_INPUT
     return args._run(args)
 

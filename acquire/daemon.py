@@ -31,10 +31,10 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire import protocol
-from chargebook.acquire.engine import Command, Engine
+from chargebook.acquire.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.server import Connection, RpcServer
 from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store, TrafficLine
+from chargebook.acquire.store import Store, require_writable
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -55,6 +55,8 @@ POLL_INTERVAL_S = 0.05
 TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
+#: The audit events of the daemon's own starts and stops: the last one says how it last ended.
+LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
 MAX_SAMPLES_PER_BATCH = 1024
 #: A pause between pushed lines longer than this ends a burst, s.
@@ -76,6 +78,10 @@ class LineRef:
 
     def __init__(self) -> None:
         self.id: int | None = None
+
+    def written(self, line_id: int | None) -> None:
+        """Take the line's row id, as the store tells it (None: not written after all)."""
+        self.id = line_id
 
 
 @dataclass(frozen=True)
@@ -359,9 +365,7 @@ class Daemon:
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch)
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
-        self._traffic: list[TrafficLine] = []  # recorded, not yet committed
-        self._line_refs: list[LineRef | None] = []  # beside _traffic: received lines' refs
-        self._latest_received: LineRef | None = None
+        self._latest_received: LineRef | None = None  # the newest received line's ref
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
         #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
@@ -372,6 +376,7 @@ class Daemon:
         self._events_checked_at: int | None = None  # engine.data_version at the last look
         self._last_live: tuple[float, float | None] = (0.0, None)
         self._stopping = asyncio.Event()
+        self._stop_reason = "asked to stop"
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -379,6 +384,7 @@ class Daemon:
 
         options = self.options
         profile = load_profile(options.profile)
+        require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
         bench = None
@@ -420,43 +426,32 @@ class Daemon:
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
-        """Keep one raw line, stamped now, for the next commit (in the instrument thread only)."""
+        """Keep one raw line, stamped now, for the next commit (in the instrument thread only).
+
+        The store writes kept lines before anything else it appends, so an operator's action
+        committed while a line waits still comes after that line in the session's chain.
+        """
         if self.store is None:
             return
         session_id = self.link.session_id if self.link is not None else None
         stamp = self.store.stamp()
-        self._traffic.append((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
         ref = None
         if direction == TrafficDirection.RECEIVED:
             ref = self._latest_received = LineRef()
-        self._line_refs.append(ref)
+        line = (session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw))
+        self.store.keep_traffic(line, None if ref is None else ref.written)
 
     def _commit_traffic(self) -> None:
-        """Commit the raw lines kept so far in one transaction (instrument thread only)."""
-        lines, self._traffic = self._traffic, []
-        refs, self._line_refs = self._line_refs, []
-        if not lines or self.store is None:
+        """Commit the raw lines kept so far in one transaction (instrument thread only).
+
+        Lines that fail to commit stay kept, in order, and go with the next commit.
+        """
+        if self.store is None:
             return
         try:
-            self._add_traffic(lines, refs)
+            self.store.commit_traffic()
         except Exception:  # a traffic record must never stop the instrument thread
-            log.exception("could not record %d raw instrument lines at once", len(lines))
-            for line, ref in zip(lines, refs, strict=True):  # save every line that can be saved
-                try:
-                    self._add_traffic([line], [ref])
-                except Exception:
-                    log.exception("could not record a raw instrument line: %r", line[3])
-
-    def _add_traffic(self, lines: list[TrafficLine], refs: list[LineRef | None]) -> None:
-        """Commit raw lines and give each received line's ref its row id (ids of one commit
-        are consecutive: the transaction holds the only write lock)."""
-        assert self.store is not None
-        with self.store.atomic():
-            self.store.add_traffic_many(lines)
-            first_id = self.store.newest_traffic_id() - len(lines) + 1
-        for offset, ref in enumerate(refs):
-            if ref is not None:
-                ref.id = first_id + offset
+            log.exception("could not record the raw instrument lines kept so far")
 
     async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
@@ -468,6 +463,7 @@ class Daemon:
             self.station_lock.release()
             raise
         assert self.engine is not None and self.link is not None and self.store is not None
+        self._record_start()
         resumed = self.engine.restore()
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
@@ -496,12 +492,42 @@ class Daemon:
             await asyncio.to_thread(self.link.join, 5.0)
             if self.options.bench_control and self.link.bench is not None:
                 self.link.bench.close()
+            if self._stopping.is_set():
+                self._record_stop()
             self.store.close()
             self.station_lock.release()
 
-    def shutdown(self) -> None:
-        """Ask :meth:`run` to end (from a signal handler or a test)."""
+    def shutdown(self, reason: str = "asked to stop") -> None:
+        """Ask :meth:`run` to end (from a signal handler or a test); ``reason`` is recorded in
+        the ``daemon_stopped`` event (``SIGTERM``, ``SIGINT``)."""
+        self._stop_reason = reason
         self._stopping.set()
+
+    def _record_start(self) -> None:
+        """Record ``daemon_started`` (a new file) or ``daemon_restarted``, saying whether the
+        previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
+        assert self.store is not None
+        session = self.store.open_session()
+        detail: dict[str, Any] = {"pid": os.getpid()}
+        last = self.store.last_event_of(LIFECYCLE_EVENTS)
+        if last is None:
+            kind = "daemon_started"
+        else:
+            kind = "daemon_restarted"
+            clean = last.kind == "daemon_stopped"
+            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
+            detail["previous_stop"] = last.detail().get("reason") if clean else None
+            detail["previous_pid"] = last.detail().get("pid")
+        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+
+    def _record_stop(self) -> None:
+        """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
+        assert self.store is not None and self.engine is not None
+        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        try:
+            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+        except Exception:  # the stop goes on; the next start will say the run crashed
+            log.exception("could not record the daemon's stop")
 
     # -- the loop's work -----------------------------------------------------------------------
     async def _consume_instrument(self) -> None:
@@ -669,7 +695,8 @@ class Daemon:
         if method == protocol.Method.STATUS:
             return self.snapshot()
         try:
-            self._perform(method, params, connection.actor)
+            with self.store.on_behalf_of(connection.account):
+                self._perform(method, params, connection.actor)
         finally:
             await self.after_change()  # a refused request may still have recorded something
         return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent

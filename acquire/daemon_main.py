@@ -90,6 +90,6 @@ async def _serve(options: DaemonOptions) -> int:
     daemon = Daemon(options)
     loop = asyncio.get_running_loop()
     for signum in (signal.SIGTERM, signal.SIGINT):
-        loop.add_signal_handler(signum, daemon.shutdown)
+        loop.add_signal_handler(signum, daemon.shutdown, signal.Signals(signum).name)
     await daemon.run(print_ready)
     return EXIT_OK

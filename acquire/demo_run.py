@@ -129,7 +129,7 @@ def run_demo(args: argparse.Namespace) -> int:
     try:
         with demo_world(args, workdir) as (simulator, daemon):
             socket_path = daemon.info["socket"]
-            if not args.unattended and _open_console(socket_path, simulator) is not None:
+            if not args.unattended and _open_console(args, socket_path, simulator) is not None:
                 return EXIT_OK
             return asyncio.run(_unattended(args, socket_path, simulator, out))
     except DemoError as error:
@@ -142,7 +142,7 @@ def run_demo(args: argparse.Namespace) -> int:
         shutil.rmtree(workdir, ignore_errors=True)
 
 
-def _open_console(socket_path: str, simulator: Child) -> int | None:
+def _open_console(args: argparse.Namespace, socket_path: str, simulator: Child) -> int | None:
     """Run the console on the daemon; None when the console is not installed."""
     try:
         from chargebook.tui.app import run_console
@@ -162,7 +162,7 @@ def _open_console(socket_path: str, simulator: Child) -> int | None:
         "pressure_entered": pressure_kPa,
         "pressure_unit": "kPa",
     }
-    return run_console(socket_path, setup_defaults=defaults)
+    return run_console(socket_path, setup_defaults=defaults, demo_database=args.db_path)
 
 
 async def _unattended(

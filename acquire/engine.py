@@ -39,6 +39,7 @@ from typing import Any, ParamSpec, TypeVar
 from chargebook.acquire import live
 from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.session_evaluation import SessionContext, evaluate_session
 from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.store import ReadingRow, SetRow, Store
 from chargebook.corrections.stability import Thresholds
@@ -153,6 +154,9 @@ class Engine:
         self.identity: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
         self.sample_line_id: int | None = None  # the raw line (traffic id) of the latest sample
+        #: Words the operator must read about something the engine did on its own (a reading
+        #: discarded by a pause), kept until the next reading is recorded or the set is closed.
+        self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
@@ -296,6 +300,8 @@ class Engine:
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._event(actor, live.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale)
+        if checked.get("subtract_leakage"):
+            self._event(actor, live.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
         if self.identity is not None:
             self._event(
                 DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
@@ -395,6 +401,7 @@ class Engine:
         assert self.active is not None
         self.store.set_set_status(self.active.id, "accepted", actor=actor)
         self.active = None
+        self.notice = None
         self._advance(actor, Method.SET_ACCEPT)
         self._changed()
 
@@ -404,6 +411,7 @@ class Engine:
         self._require(Method.SET_REDO)
         reason = live.require_reason("reason", reason)
         self._drop_reading(actor, "redo")
+        self.notice = None  # the operator chose to start the set again: nothing to repeat
         if self.active is not None:
             self.store.set_set_status(self.active.id, "superseded", reason, actor=actor)
         self.active = None
@@ -471,6 +479,7 @@ class Engine:
     ) -> None:
         assert self.session_id is not None
         self._drop_reading(actor, action)
+        self.notice = None  # the session is closed: nothing more to deliver
         if self.active is not None:
             self.store.set_set_status(self.active.id, "aborted", reason, actor=actor)
             self.active = None
@@ -647,6 +656,7 @@ class Engine:
         if self.reading is None:
             return
         self._event(actor, "reading_dropped", why=why, charge_nC=self.reading.last_charge_nC)
+        self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
             self._issue("stop")
@@ -658,6 +668,7 @@ class Engine:
         assert self.reading is not None
         armed_t_s = self.reading.armed_t_s
         self.reading = None
+        self.notice = None
         if self._can(Capability.INTEGRATE):
             self._issue("stop")
         reading_id = self.store.add_reading(
@@ -740,17 +751,10 @@ class Engine:
         if self.session_id is None:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
         else:
-            inputs, provisional = live.measurement_inputs(
-                self.store,
-                self.session_id,
-                self.plan,
-                self.metadata,
-                self.active.id if self.active is not None else None,
-                self.integration_s,
-                self.thresholds,
-            )
-            results, error = live.evaluate_inputs(inputs)
-            value = (results, provisional, error)
+            context = SessionContext(self.plan, self.metadata, self.thresholds, self.integration_s)
+            active_id = self.active.id if self.active is not None else None
+            found = evaluate_session(self.store, self.session_id, context, active_id)
+            value = (found.results(), found.provisional, found.error)
         self._results_cache = (self.data_version, value)
         return value
 
@@ -763,6 +767,22 @@ class Engine:
     @property
     def live_phase(self) -> ReadingPhase:
         return self.reading.phase if self.reading is not None else ReadingPhase.IDLE
+
+
+def dropped_reading_notice(phase: ReadingPhase, charge_nC: float | None, why: str) -> str:
+    """Return what the operator must be told when a reading in progress is discarded."""
+    cause = {
+        "pause": "the session was paused",
+        "redo": "the set was redone",
+        "instrument lost": "the electrometer was lost",
+    }.get(why, why)
+    if phase in (ReadingPhase.RISING, ReadingPhase.HOLDING) or (charge_nC or 0.0) != 0.0:
+        so_far = f" ({charge_nC:+.4f} nC so far)" if charge_nC is not None else ""
+        return (
+            f"The reading in progress{so_far} was discarded because {cause}: it is not recorded "
+            "as a reading. Deliver that beam again."
+        )
+    return f"The armed reading was cancelled because {cause}; no beam had been seen."
 
 
 def _open_set(sets: list[SetRow], step_index: int) -> SetRow | None:

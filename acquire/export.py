@@ -1,8 +1,12 @@
 """Exports of one stored session: CSV (the readings), JSON (everything) and HTML (the report).
 
 CSV: one row per reading, settling and superseded ones included, with its set's step, purpose,
-bias, attempt and status, and ``used`` (1 when the reading counts for results: a non-settling
-reading of an accepted set). Columns: :data:`CSV_COLUMNS`.
+bias, attempt and status; ``seq`` (the stored order, settling readings included) and ``reading``
+(the reading's name everywhere else: "s1", "s2" settling, then "1", "2", ...); ``used`` (1 when
+the reading enters the dose: a non-settling reading of an accepted routine, opposite or
+reduced-bias set) and ``role`` (what the reading is for, in words: ``dose``, ``leakage check``,
+``return check``, ``warm-up``, ``settling``, or ``set superseded`` and the like for a set that
+was not accepted). Columns: :data:`CSV_COLUMNS`.
 
 JSON: one object with the keys of :data:`JSON_KEYS`:
 
@@ -18,6 +22,8 @@ JSON: one object with the keys of :data:`JSON_KEYS`:
   undecodable bytes escaped);
 * ``results``: ``Evaluation.to_dict()`` recomputed from the raw values, or null;
   ``results_error``: why there are no results, or null;
+* ``integrity``: the check of the session's hash chain (``verified``, ``rows``, ``head``,
+  ``problems``, each naming the table and row that no longer matches), as ``chargebook verify``;
 * ``caution``: the safety caution.
 
 HTML: see ``report_html``.
@@ -33,6 +39,7 @@ from importlib import metadata as package_metadata
 from typing import Any
 
 from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.report_data import SessionRecord, plain
 from chargebook.acquire.store import Store
 
@@ -52,6 +59,7 @@ JSON_KEYS = (
     "traffic_lines",
     "results",
     "results_error",
+    "integrity",
     "caution",
 )
 CSV_COLUMNS = (
@@ -66,14 +74,35 @@ CSV_COLUMNS = (
     "set_status",
     "reading_id",
     "seq",
+    "reading",
     "t_s",
     "charge_nC",
     "capture",
     "settling",
     "status",
     "used",
+    "role",
     "recorded_at",
 )
+
+#: What an accepted set's non-settling readings are for, by the set's purpose.
+READING_ROLES = {
+    "routine": "dose",
+    "opposite": "dose",
+    "reduced": "dose",
+    "leakage": "leakage check",
+    "return_check": "return check",
+    "warmup": "warm-up",
+}
+
+
+def reading_role(purpose: str, set_status: str, settling: bool) -> str:
+    """Return what a reading is for, in words (the CSV's ``role`` column)."""
+    if set_status != "accepted":
+        return f"set {set_status}"
+    if settling:
+        return "settling"
+    return READING_ROLES.get(purpose, purpose)
 
 
 def chargebook_version() -> str:
@@ -96,8 +125,9 @@ def to_csv(record: SessionRecord) -> str:
     writer.writerow(CSV_COLUMNS)
     for reading_set in record.sets:
         row = reading_set.row
-        for reading in reading_set.readings:
-            used = row.status == "accepted" and not reading.settling
+        labels = reading_labels(r.settling for r in reading_set.readings)
+        for reading, label in zip(reading_set.readings, labels, strict=True):
+            role = reading_role(row.purpose, row.status, reading.settling)
             writer.writerow(
                 (
                     record.session.id,
@@ -111,12 +141,14 @@ def to_csv(record: SessionRecord) -> str:
                     row.status,
                     reading.id,
                     reading.seq,
+                    label,
                     repr(reading.t_s),
                     repr(reading.charge_nC),
                     reading.capture,
                     int(reading.settling),
                     reading.status,
-                    int(used),
+                    int(role == "dose"),
+                    role,
                     reading.recorded_at,
                 )
             )
@@ -150,6 +182,7 @@ def to_json_data(
         "traffic_lines": record.traffic_lines,
         "results": record.evaluation.to_dict() if record.evaluation else None,
         "results_error": record.results_error,
+        "integrity": record.integrity.to_dict() if record.integrity else None,
         "caution": CAUTION,
     }
     if include_traffic and store is not None:

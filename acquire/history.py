@@ -43,6 +43,9 @@ class HistoryPoint:
     tolerance_pct: float | None
     within_tolerance: bool | None
     problem: str | None
+    #: The codes of the session's warning and error flags (info flags left out), as ``show``
+    #: and the console list them.
+    flags: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -123,6 +126,7 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         tolerance_pct=tolerance,
         within_tolerance=within,
         problem=problem,
+        flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
     )
 
 
@@ -141,7 +145,7 @@ def _baseline_value(
         return choice, f"{choice:g} cGy/MU"
     if isinstance(choice, int):
         try:
-            record = load_record(store, choice)
+            record = load_record(store, choice, check_chain=False)
         except NotFound:
             raise InputError("baseline", f"session:{choice}", "an existing session") from None
         if record.evaluation is None or record.evaluation.dose_per_MU_cGy is None:
@@ -175,7 +179,7 @@ def load_history(
         if matches(row, beam, machine)
         and (include_all or (row.status == "finished" and row.replay_of is None))
     ]
-    records = [load_record(store, row.id) for row in rows]
+    records = [load_record(store, row.id, check_chain=False) for row in rows]
     value, label = _baseline_value(choice, store, records)
     return History(
         beam=beam,
@@ -201,6 +205,7 @@ def history_table(history: History) -> Table:
             signed(p.deviation_pct, 2, "—"),
             "—" if p.tolerance_pct is None else f"±{p.tolerance_pct:g}",
             within[p.within_tolerance],
+            ", ".join(p.flags) or "none",
             p.problem or "",
         )
         for p in history.points
@@ -217,6 +222,7 @@ def history_table(history: History) -> Table:
             "deviation (%)",
             "tolerance (%)",
             "within",
+            "flags",
             "note",
         ),
         rows,

@@ -1,14 +1,9 @@
-"""Live results and the checks behind the engine's inputs, all through ``corrections``.
+"""The checks behind the engine's inputs and the plan-step rules it applies.
 
-After every change the engine asks :func:`measurement_inputs` and :func:`evaluate_inputs`
-for the results so far: they gather
-the readings of the accepted sets (and, provisionally, those of the set being taken for a step
-that has no accepted set yet), the latest environment entry and the session metadata into a
-``MeasurementInputs`` and calls ``corrections.evaluate.evaluate``. Factors not yet measured stay
-*pending* there; nothing here computes physics.
-
-Also here: the checks of operator input the engine needs (environment, reasons, metadata, plan)
-and the plan-step rules the engine applies (settling, timed leakage, capture settings).
+The checks of operator input the engine needs (environment, reasons, metadata, plan), the
+plan-step rules (settling, timed leakage, capture settings), the statistics and flags shown per
+set, and what a session's events say about it (its thresholds, integration times). The results
+themselves come from :func:`chargebook.acquire.session_evaluation.evaluate_session`.
 """
 
 from __future__ import annotations
@@ -22,17 +17,12 @@ from chargebook.acquire import session_meta
 from chargebook.acquire.capture import CaptureSettings
 from chargebook.acquire.plan import COMPARED_PURPOSES, Plan, Step, load_plan
 from chargebook.acquire.session_meta import SessionMetadata
-from chargebook.acquire.store import EventRow, ReadingRow, SetRow, Store
+from chargebook.acquire.store import EventRow, ReadingRow
 from chargebook.corrections import limits, units
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.leakage import leakage_per_reading_nC
 from chargebook.corrections.signs import contradicting
 from chargebook.corrections.stability import Thresholds, set_flags
 from chargebook.corrections.statistics import set_statistics
-from chargebook.corrections.units import Conversion
-
-#: The plan purposes whose accepted readings feed the results, and their MeasurementInputs field.
-RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
 
 
 # ------------------------------------------------------------------------- operator input
@@ -223,6 +213,9 @@ THRESHOLDS_EVENT = "thresholds"
 #: The event that records, at session start, the instrument profile and the daemon's time scale
 #: (what a replay needs to read the traffic and to time the plan's waits as the daemon did).
 ACQUISITION_EVENT = "acquisition"
+#: The event that records, at session start, the operator's choice to subtract the measured
+#: leakage from the routine reading (metadata ``subtract_leakage``); the audit lists it.
+LEAKAGE_SUBTRACTION_EVENT = "leakage_subtraction_chosen"
 
 
 def load_thresholds(path: str | Path) -> Thresholds:
@@ -256,7 +249,7 @@ def session_thresholds(events: Sequence[EventRow]) -> Thresholds:
     return Thresholds()
 
 
-# ------------------------------------------------------------------------------ results
+# ----------------------------------------------------------------------- session events
 def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
     """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
     times: dict[int, float] = {}
@@ -266,110 +259,3 @@ def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
             if "integration_s" in detail:
                 times[int(detail["reading_id"])] = float(detail["integration_s"])
     return times
-
-
-def _set_for(
-    sets: Sequence[SetRow], step_index: int, active_set_id: int | None
-) -> tuple[SetRow | None, bool]:
-    """Return the set that speaks for a step (its accepted one, else the active one) and
-    whether it is provisional."""
-    accepted = [s for s in sets if s.step_index == step_index and s.status == "accepted"]
-    if accepted:
-        return accepted[-1], False
-    active = [s for s in sets if s.id == active_set_id and s.step_index == step_index]
-    return (active[0], True) if active else (None, False)
-
-
-def measurement_inputs(
-    store: Store,
-    session_id: int,
-    plan: Plan,
-    metadata: Mapping[str, Any],
-    active_set_id: int | None,
-    integration_s: Mapping[int, float],
-    thresholds: Thresholds | None = None,
-) -> tuple[Any, bool]:
-    """Return (MeasurementInputs of what is known, provisional?) for the session."""
-    from chargebook.corrections.evaluate import MeasurementInputs
-
-    sets = store.sets(session_id)
-    readings = store.readings(session_id)
-    by_set: dict[int, list[ReadingRow]] = {}
-    for reading in readings:
-        by_set.setdefault(reading.set_id, []).append(reading)
-    values: dict[str, list[float]] = {}
-    provisional = False
-    leakage_nC = None
-    routine_times: list[float] = []
-    for index, step in enumerate(plan.steps):
-        chosen, is_provisional = _set_for(sets, index, active_set_id)
-        if chosen is None:
-            continue
-        used = [r for r in by_set.get(chosen.id, []) if not r.settling]
-        field = RESULT_PURPOSES.get(step.purpose)
-        if field is not None and field not in values and used:
-            values[field] = [r.charge_nC for r in used]
-            provisional = provisional or is_provisional
-            if step.purpose == "routine":
-                routine_times = [integration_s[r.id] for r in used if r.id in integration_s]
-        if step.purpose == "leakage" and used and not is_provisional and step.duration_s:
-            seconds = integration_s.get(used[-1].id, float(step.duration_s))
-            leakage_nC = (used[-1].charge_nC, seconds)
-    environment = store.environment(session_id)
-    latest = environment[-1] if environment else None
-    leakage = None
-    if leakage_nC is not None and routine_times:
-        leakage = leakage_per_reading_nC(leakage_nC[0], leakage_nC[1], routine_times)
-    meta = _session_metadata(metadata)
-    conversions = list(meta.conversions())
-    if latest is not None and latest.pressure_unit != "kPa":
-        conversions.append(
-            Conversion(
-                "pressure",
-                latest.pressure_entered,
-                latest.pressure_unit,
-                latest.pressure_kPa,
-                "kPa",
-            )
-        )
-    routine_step = next((s for s in plan.steps if s.purpose == "routine"), None)
-    inputs = MeasurementInputs(
-        convention=meta.convention,
-        beam=meta.beam_type,
-        temperature_C=latest.temperature_C if latest else None,
-        pressure_kPa=latest.pressure_kPa if latest else None,
-        humidity_pct=latest.humidity_pct if latest else None,
-        routine_bias_V=plan.routine_bias_V,
-        reduced_bias_V=plan.reduced_bias_V,
-        routine_nC=tuple(values.get("routine_nC", ())),
-        opposite_nC=tuple(values.get("opposite_nC", ())),
-        reduced_nC=tuple(values.get("reduced_nC", ())),
-        leakage_nC=leakage,
-        N_Dw_Gy_per_nC=meta.N_Dw_Gy_per_nC,
-        k_Q=meta.k_Q,
-        k_elec=meta.k_elec,
-        monitor_units=float(routine_step.mu_per_reading) if routine_step else None,
-        expected_cGy_per_MU=meta.expected_cGy_per_MU,
-        tolerance_pct=meta.tolerance_pct,
-        uncertainties=meta.uncertainties(),
-        temperature_history_C=tuple(e.temperature_C for e in environment),
-        pressure_history_kPa=tuple(e.pressure_kPa for e in environment),
-        conversions=tuple(conversions),
-        thresholds=thresholds or Thresholds(),
-    )
-    return inputs, provisional
-
-
-def evaluate_inputs(inputs: Any) -> tuple[dict[str, Any] | None, str | None]:
-    """Return (``evaluate(inputs).to_dict()``, None), or (None, why) in words.
-
-    When the recorded values cannot be evaluated (``evaluate`` raises InputError, e.g. readings
-    whose sign contradicts the bias) the results are None and the error says why; nothing
-    recorded is touched.
-    """
-    from chargebook.corrections.evaluate import evaluate
-
-    try:
-        return evaluate(inputs).to_dict(), None
-    except InputError as error:
-        return None, f"The results cannot be computed: {error}"

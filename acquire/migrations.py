@@ -9,9 +9,12 @@ Migrations only ever move forward. A database written by a newer chargebook (a v
 ones known here) is refused rather than guessed at.
 
 Append-only tables (readings, environment, events, traffic) carry ``BEFORE UPDATE`` and
-``BEFORE DELETE`` triggers that abort the statement. Sessions and reading sets may change their
-status (the store records each change as an event) but never their recorded facts, and are never
-deleted.
+``BEFORE DELETE`` triggers that abort the statement, and (from ``chain_appended_rows``)
+``BEFORE INSERT`` triggers that refuse a row whose id exists (``INSERT OR REPLACE`` would
+otherwise delete it without a DELETE trigger firing) or that lacks its place in the hash chain.
+Sessions and reading sets may change their status (the store records each change as an event,
+and a trigger refuses a change that is not preceded by its event) but never their recorded
+facts, and are never deleted.
 """
 
 from __future__ import annotations
@@ -20,6 +23,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from chargebook.acquire import chain
 from sqlite_utils import Database
 
 SESSION_STATUSES = ("open", "finished", "aborted", "interrupted")
@@ -51,17 +55,25 @@ def _sql_list(values: tuple[str, ...]) -> str:
     return ", ".join(f"'{value}'" for value in values)
 
 
-def _append_only_triggers(table: str) -> str:
+def _refuse_update_trigger(table: str) -> str:
     return f"""
     CREATE TRIGGER {table}_refuse_update BEFORE UPDATE ON {table}
     BEGIN
         SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be changed');
     END;
+    """
+
+
+def _append_only_triggers(table: str) -> str:
+    return (
+        _refuse_update_trigger(table)
+        + f"""
     CREATE TRIGGER {table}_refuse_delete BEFORE DELETE ON {table}
     BEGIN
         SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be deleted');
     END;
     """
+    )
 
 
 def _facts_fixed_trigger(table: str, fixed_columns: tuple[str, ...], final: tuple[str, ...]) -> str:
@@ -191,10 +203,150 @@ def _index_rows_by_session(db: Database) -> None:
     """)
 
 
+def _chain_triggers(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_replace BEFORE INSERT ON {table}
+    WHEN EXISTS (SELECT 1 FROM {table} WHERE id = NEW.id)
+    BEGIN
+        SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be replaced');
+    END;
+    CREATE TRIGGER {table}_refuse_unchained BEFORE INSERT ON {table}
+    WHEN NEW.chain_seq IS NULL OR NEW.chain_hash IS NULL
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: a row must be appended with its chain_seq and chain_hash');
+    END;
+    """
+
+
+def _refuse_chain_change_trigger(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_chain_change BEFORE UPDATE OF chain_seq, chain_hash ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: the chain place and hash of a row cannot change');
+    END;
+    """
+
+
+#: The stamp that orders the rows of a table when old files are chained (else recorded_at).
+_STAMP_COLUMNS = {"sessions": "created_at", "reading_sets": "started_at"}
+
+
+def _last_event_is(session: str, kind: str, matches: str) -> str:
+    """Return SQL true when the newest event of ``session`` is a ``kind`` event whose detail
+    ``matches`` (conditions on ``detail_json``)."""
+    return f"""EXISTS (
+        SELECT 1 FROM events
+        WHERE id = (SELECT max(id) FROM events WHERE session_id = {session})
+        AND kind = '{kind}' AND {matches})"""
+
+
+def _detail_is(key: str, column: str) -> str:
+    return f"json_extract(detail_json, '$.{key}') IS NEW.{column}"
+
+
+_STATUS_AUDIT_TRIGGERS = f"""
+    CREATE TRIGGER sessions_refuse_unaudited BEFORE UPDATE OF status, reason, closed_at
+    ON sessions
+    WHEN NOT {
+    _last_event_is(
+        "NEW.id",
+        "session_status",
+        " AND ".join(
+            (
+                _detail_is("to", "status"),
+                _detail_is("reason", "reason"),
+                _detail_is("closed_at", "closed_at"),
+            )
+        ),
+    )
+}
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: a status change must follow its session_status event');
+    END;
+    CREATE TRIGGER reading_sets_refuse_unaudited BEFORE UPDATE OF status, reason, ended_at
+    ON reading_sets
+    WHEN NOT {
+    _last_event_is(
+        "NEW.session_id",
+        "set_status",
+        " AND ".join(
+            (
+                _detail_is("set_id", "id"),
+                _detail_is("to", "status"),
+                _detail_is("reason", "reason"),
+                _detail_is("ended_at", "ended_at"),
+            )
+        ),
+    )
+}
+    BEGIN
+        SELECT RAISE(ABORT, 'reading_sets: a status change must follow its set_status event');
+    END;
+"""
+
+
+def _chain_appended_rows(db: Database) -> None:
+    """Give every appended row its place and hash in its session's chain (see ``chain``).
+
+    Rows already recorded are chained in the order of their stamps (then table, then id), the
+    order replay used for them, so that old files verify and replay as before.
+    """
+    db.execute("ALTER TABLE events ADD COLUMN account TEXT")  # the client's Unix account
+    for table in chain.CHAINED_TABLES:
+        db.execute(f"ALTER TABLE {table} ADD COLUMN chain_seq INTEGER")
+        db.execute(f"ALTER TABLE {table} ADD COLUMN chain_hash TEXT")
+    for table in APPEND_ONLY_TABLES:
+        db.execute(f"DROP TRIGGER {table}_refuse_update")
+    db.execute(
+        "CREATE TABLE chain_heads ("
+        "session_key INTEGER PRIMARY KEY, seq INTEGER NOT NULL, hash TEXT NOT NULL)"
+    )
+    order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
+    rank = {table: index for index, table in enumerate(order)}
+    rows: list[tuple[int, str, int, str, tuple]] = []
+    for table, columns in chain.COLUMNS.items():
+        stamped = _STAMP_COLUMNS.get(table, "recorded_at")
+        sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"
+        for *values, stamp in db.execute(sql).fetchall():
+            key = chain.chain_key(chain.owner(table, values))
+            rows.append((key, stamp, rank[table], table, tuple(values)))
+    heads: dict[int, tuple[int, str]] = {}
+    for key, _stamp, _rank, table, values in sorted(
+        rows, key=lambda r: (r[0], r[1], r[2], r[4][0])
+    ):
+        seq, previous = heads.get(key, (0, chain.GENESIS))
+        digest = chain.link(previous, seq + 1, table, values)
+        db.execute(
+            f"UPDATE {table} SET chain_seq = ?, chain_hash = ? WHERE id = ?",
+            (seq + 1, digest, values[0]),
+        )
+        heads[key] = (seq + 1, digest)
+    db.conn.executemany(
+        "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?)",
+        [(key, seq, digest) for key, (seq, digest) in heads.items()],
+    )
+    for table in APPEND_ONLY_TABLES:
+        _run_triggers(db, _refuse_update_trigger(table))
+    for table in chain.CHAINED_TABLES:
+        _run_triggers(db, _chain_triggers(table))
+    for table in ("sessions", "reading_sets"):
+        _run_triggers(db, _refuse_chain_change_trigger(table))
+    _run_triggers(db, _STATUS_AUDIT_TRIGGERS)
+
+
+def _run_triggers(db: Database, sql: str) -> None:
+    """Create the triggers in ``sql`` one statement at a time, inside the open transaction
+    (``executescript`` would commit it first)."""
+    for statement in sql.split("END;"):
+        if statement.strip():
+            db.execute(statement + "END;")
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
     Migration("index_rows_by_session", _index_rows_by_session),
+    Migration("chain_appended_rows", _chain_appended_rows),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

@@ -30,11 +30,16 @@ class AutoOperatorError(RuntimeError):
 
 @dataclass(frozen=True)
 class Environment:
-    """Air temperature (°C) and pressure (kPa) to enter, and where they came from."""
+    """Air temperature (°C) and pressure (in ``pressure_unit``) to enter, and where from.
+
+    The pressure goes to the daemon in the unit it was read in, which converts it once and
+    records the conversion.
+    """
 
     temperature_C: float
-    pressure_kPa: float
+    pressure: float
     source: str
+    pressure_unit: str = "kPa"
 
 
 ReadingCallback = Callable[[dict[str, Any], dict[str, Any]], None]
@@ -111,8 +116,8 @@ class AutoOperator:
             return await self.client.call(
                 Method.ENVIRONMENT_SET,
                 temperature_C=entry.temperature_C,
-                pressure=entry.pressure_kPa,
-                pressure_unit="kPa",
+                pressure=entry.pressure,
+                pressure_unit=entry.pressure_unit,
                 source=entry.source,
             )
         if Method.STEP_MANUAL_DONE in allowed:

@@ -39,9 +39,12 @@ import enum
 import json
 import os
 import tempfile
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Literal, NotRequired, TypedDict
+from typing import Any, Literal, NotRequired, TypedDict, TypeVar
+
+T = TypeVar("T")
 
 PROTOCOL_VERSION = "1.0"
 JSONRPC = "2.0"
@@ -345,6 +348,24 @@ def validate_params(method: str, params: Any) -> dict[str, Any]:
 # ---------------------------------------------------------------------------------------------
 # The snapshot: the whole state, sent after every change
 # ---------------------------------------------------------------------------------------------
+#: A flag's severity as a text marker, the same in the console, the CLI and the reports, so that
+#: meaning never rests on colour: "!!" error, "!" warning, "i" information.
+SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
+#: Severities, worst first: every list of flags is shown in this order.
+SEVERITY_ORDER: tuple[str, ...] = ("error", "warning", "info")
+
+
+def severity_rank(flag: Any) -> int:
+    """Return where a flag (a dict or an object with ``severity``) sorts: 0 for the worst."""
+    severity = flag.get("severity") if isinstance(flag, Mapping) else flag.severity
+    return SEVERITY_ORDER.index(severity) if severity in SEVERITY_ORDER else 1
+
+
+def by_severity(flags: Sequence[T]) -> list[T]:
+    """Return ``flags`` worst first, keeping their own order within a severity."""
+    return sorted(flags, key=severity_rank)
+
+
 class FlagInfo(TypedDict):
     """A stability or plausibility flag, in words (from ``corrections``)."""
 
@@ -357,7 +378,8 @@ class ReadingInfo(TypedDict):
     """One stored reading. ``settling`` readings are kept and shown but not used in results."""
 
     id: int
-    seq: int  # 1, 2, ... within its set
+    seq: int  # 1, 2, ... within its set, settling readings included (the stored order)
+    label: str  # how the reading is named everywhere: "s1", "s2" settling, then "1", "2", ...
     t_s: float  # instrument clock, s
     charge_nC: float  # signed as read
     capture: str  # auto | pushed | manual
@@ -417,6 +439,7 @@ class LiveReading(TypedDict):
     charge_nC: float | None  # latest sample
     elapsed_s: float | None  # since the reading was armed (instrument clock)
     seq: int | None  # the seq it will get when captured
+    label: str | None  # the label it will get when captured ("s1" while settling, "3", ...)
 
 
 class InstrumentInfo(TypedDict):
@@ -458,8 +481,10 @@ class SessionInfo(TypedDict):
 class Snapshot(TypedDict):
     """The whole daemon state, as sent in ``snapshot`` notifications and method results.
 
-    ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed from the
-    accepted sets, the latest environment entry and the metadata; factors not yet measured are
+    ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed by
+    ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
+    entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
+    in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
     *pending* (``factor_states``) and values that depend on them are null. While a set of a
     step without an accepted set is being collected, its readings are included provisionally and
     ``results_provisional`` is true.
@@ -470,6 +495,7 @@ class Snapshot(TypedDict):
     paused_from: str | None
     allowed: list[str]  # operator actions legal now (subset of OPERATOR_ACTIONS)
     prompt: PromptInfo
+    notice: str | None  # something the engine did that the operator must know (a reading dropped)
     session: SessionInfo | None
     plan: list[StepInfo]
     step_index: int | None
@@ -477,6 +503,7 @@ class Snapshot(TypedDict):
     sets: list[SetInfo]
     live: LiveReading
     environment: EnvironmentInfo | None
+    environment_entries: list[EnvironmentInfo]  # every entry of the session, oldest first
     results: dict[str, Any] | None
     results_provisional: bool
     results_error: str | None  # why results could not be computed from what is recorded

@@ -19,7 +19,6 @@ from typing import Any
 
 from chargebook.acquire import live
 from chargebook.acquire.store import ReadingRow, SetRow, Store
-from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
 
 #: Reading fields compared (with its integration time and the raw line it was read from).
@@ -111,12 +110,10 @@ def threshold_changes(original: Thresholds, replay: Thresholds) -> list[Change]:
 # ----------------------------------------------------------------------------- comparing
 def stored_results(store: Store, session_id: int) -> tuple[dict[str, Any] | None, str | None]:
     """Return (``evaluate(...).to_dict()`` of a stored session, None) or (None, why not)."""
-    from chargebook.acquire.session_result import session_evaluation
+    from chargebook.acquire.session_evaluation import evaluate_session
 
-    try:
-        return session_evaluation(store, session_id).to_dict(), None
-    except InputError as error:
-        return None, f"The results cannot be computed: {error}"
+    found = evaluate_session(store, session_id)
+    return found.results(), found.error
 
 
 @dataclass(frozen=True)

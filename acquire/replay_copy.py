@@ -6,18 +6,20 @@ to the station database, and so that a daemon writing to the same file is never 
 longer than the copy takes. :func:`copy_session` then writes the session, its reading sets,
 traffic, readings, environment entries and events in one transaction, with ``replay_of`` set,
 giving every row the next free id and rewriting the ids that rows and event details refer to.
+The rows are copied in the order of their session's hash chain and chained anew in the
+copy (their ids and session changed, so their hashes do too).
 """
 
 from __future__ import annotations
 
 import json
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from typing import Any
 
 from chargebook.acquire.store import Store
 
-#: Copied tables, in an order where every row's references are already copied, with the
-#: columns that refer to rows of other copied tables.
+#: Copied tables, with the columns that refer to rows of other copied tables. Rows are copied
+#: in their chain's order, where every reference is to an earlier row.
 TABLES: tuple[tuple[str, dict[str, str]], ...] = (
     ("sessions", {}),
     ("reading_sets", {"session_id": "sessions"}),
@@ -35,15 +37,18 @@ def copy_session(source: Store, session_id: int, target: Store, replay_of: int) 
     and return its id there. Nothing is written unless everything is (one transaction)."""
     target.session(replay_of)  # NotFound before anything is written
     new_ids: dict[str, dict[int, int]] = {table: {} for table, _ in TABLES}
-    with target.db.atomic():
-        for table, references in TABLES:
-            for row in _rows(source, table, session_id):
-                old_id = row.pop("id")
-                for column, other in references.items():
-                    if row[column] is not None:
-                        row[column] = new_ids[other][row[column]]
-                _fix_row(table, row, replay_of, lambda t, i: new_ids[t].get(i, i))
-                new_ids[table][old_id] = _insert(target, table, row)
+    references = dict(TABLES)
+    rows = [(table, row) for table, _ in TABLES for row in _rows(source, table, session_id)]
+    rows.sort(key=lambda item: item[1].pop("chain_seq"))  # the chain's order
+    with target.atomic():
+        for table, row in rows:
+            old_id = row.pop("id")
+            row.pop("chain_hash")
+            for column, other in references[table].items():
+                if row[column] is not None:
+                    row[column] = new_ids[other][row[column]]
+            _fix_row(table, row, replay_of, lambda t, i: new_ids[t].get(i, i))
+            new_ids[table][old_id] = target.append_row(table, row)
     return new_ids["sessions"][session_id]
 
 
@@ -68,12 +73,3 @@ def _fix_row(
         if row["kind"] == "session_created":
             detail["replay_of"] = replay_of
         row["detail_json"] = json.dumps(detail, sort_keys=True, allow_nan=False, ensure_ascii=False)
-
-
-def _insert(store: Store, table: str, row: dict[str, Any]) -> int:
-    columns: Sequence[str] = list(row)
-    cursor = store.db.execute(
-        f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join('?' for _ in columns)})",
-        tuple(row.values()),
-    )
-    return int(cursor.lastrowid)

@@ -7,15 +7,17 @@ point of the traffic where it happened, and the time each recorded reading was a
 else: the readings and results of the session are what the replay must produce again, so they
 are not read here (``replay_compare`` reads them to compare).
 
-Where an input happened: the store stamps every traffic line and every event with the time it
-was written (``recorded_at``). An input's ``position`` is the number of the session's traffic
-lines written before its event, so the replay applies it after exactly those lines.
+Where an input happened: every traffic line and every event has its place in the session's
+chain (``chain_seq``, see ``chain``), in the order they happened. An input's ``position`` is the
+number of the session's traffic lines before its event in that order, so the replay applies it
+after exactly those lines. The places do not depend on the wall clock: a clock stepped back
+during the session (``recorded_at`` going backwards) does not move an input.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -89,7 +91,7 @@ class Recording:
     time_scale: float | None
     lines: tuple[RecordedLine, ...]
     inputs: tuple[RecordedInput, ...]
-    stamps: tuple[str, ...]  # when each line was written (``recorded_at``)
+    places: tuple[int, ...]  # each line's place in the session's chain (0: before the session)
     armed_times_s: tuple[float, ...]
     armed_times_recorded: bool
     captured_times_s: frozenset[float]  # when each reading was taken: its sample's time
@@ -114,6 +116,9 @@ def load_recording(store: Store, session_id: int) -> Recording:
     events = store.events(session_id)
     traffic = store.traffic(session_id)
     traffic = [*exchange_before(store, traffic), *traffic]
+    line_places = store.chain_places("traffic", session_id)
+    places = tuple(line_places.get(row.id, 0) for row in traffic)
+    event_places = store.chain_places("events", session_id)
     profile, time_scale = _acquisition(events)
     armed, armed_recorded = armed_times(events, store, session_id)
     captured = _capture_times(store, session_id)
@@ -127,8 +132,8 @@ def load_recording(store: Store, session_id: int) -> Recording:
             RecordedLine(index, row.t_s, row.direction, row.line)
             for index, row in enumerate(traffic)
         ),
-        inputs=tuple(recorded_inputs(events, traffic, captured)),
-        stamps=tuple(row.recorded_at for row in traffic),
+        inputs=tuple(recorded_inputs(events, event_places, traffic, places, captured)),
+        places=places,
         armed_times_s=armed,
         armed_times_recorded=armed_recorded,
         captured_times_s=frozenset(captured.values()),
@@ -200,18 +205,20 @@ def armed_times(
 
 def recorded_inputs(
     events: Sequence[EventRow],
+    event_places: Mapping[int, int],
     traffic: Sequence[TrafficRow],
+    places: Sequence[int],
     captured_at: dict[int, float] | None = None,
 ) -> list[RecordedInput]:
     """Return the engine's inputs that are not traffic, each placed after the traffic lines
-    written before it (see the module docstring).
+    before it in the session's chain (``event_places``: event id -> place; ``places``: each
+    line's place; see the module docstring).
 
     A capture by hand is placed exactly: right after the line of the sample it took
     (``captured_at``: reading id -> its time, the sample's receive time). A sample written just
     before the operator's request may reach the engine just after it; the reading says which
     sample the engine had.
     """
-    stamps = [row.recorded_at for row in traffic]
     received = {row.t_s: index for index, row in enumerate(traffic) if row.direction == "rx"}
     inputs: list[RecordedInput] = []
     position = 0
@@ -223,7 +230,7 @@ def recorded_inputs(
         lost = kind in ("instrument_lost", "instrument_fault", "restart") or (
             lost and kind != "instrument_back"
         )
-        while position < len(stamps) and stamps[position] < event.recorded_at:
+        while position < len(places) and places[position] < event_places[event.id]:
             position += 1
         placed = position
         if kind == "capture" and captured_at is not None:
@@ -254,16 +261,17 @@ def traffic_positions(store: Store, recording: Recording) -> list[str]:
     after its first ``i`` lines, in words ("in reading set 'routine' (attempt 1) after 2
     readings"), for messages about a traffic log that stops or fails there."""
     sets = {s.id: s for s in store.sets(recording.session_id)}
-    stamps = recording.stamps
+    places = recording.places
     events = store.events(recording.session_id)
+    event_places = store.chain_places("events", recording.session_id)
     words: list[str] = []
     current = "before the first reading set"
     readings: dict[int, int] = {}
     event_index = 0
-    for count in range(len(stamps) + 1):
-        limit = stamps[count] if count < len(stamps) else None
+    for count in range(len(places) + 1):
+        limit = places[count] if count < len(places) else None
         while event_index < len(events) and (
-            limit is None or events[event_index].recorded_at < limit
+            limit is None or event_places[events[event_index].id] < limit
         ):
             current = _after_event(events[event_index], sets, readings, current)
             event_index += 1

@@ -41,17 +41,32 @@ def open_station(args: argparse.Namespace) -> Store:
     return Store.open(args.db or default_db_path(), read_only=True)
 
 
+def missing_station_words(path: Path) -> str:
+    """Return the sentence for a station database that does not exist, naming the demo's."""
+    from chargebook.acquire.store import default_db_path
+
+    words = f"no station database at {path} (pass --db FILE to choose one)"
+    demo = default_db_path().with_name("demo.sqlite")
+    if demo.exists() and demo != path:
+        words += f"; the demo's sessions are in {demo} (--db {demo})"
+    return words
+
+
 def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
     """Open the station read-only, run ``body`` on it, and turn known failures into words.
 
-    A missing session or bad input exits with status 2, a database that cannot be read with 1;
-    each prints one line on stderr saying what is wrong.
+    A missing database, a missing session or bad input exits with status 2, a database that
+    cannot be read with 1; each prints one line on stderr saying what is wrong.
     """
     import sqlite3
 
-    from chargebook.acquire.store import NotFound, StoreError
+    from chargebook.acquire.store import NotFound, StoreError, default_db_path
     from chargebook.corrections.errors import InputError
 
+    path = args.db or default_db_path()
+    if not Path(path).exists():
+        print(f"chargebook: {missing_station_words(Path(path))}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
     try:
         store = open_station(args)
     except StoreError as error:

@@ -2,25 +2,28 @@
 
 A :class:`SessionRecord` holds the stored raw values (session row, plan, reading sets with their
 readings, environment entries, events) and the results, which are always recomputed from those
-raw values by ``chargebook.corrections.evaluate.evaluate``: the readings of the accepted sets,
-the latest environment entry and the metadata, gathered exactly as the daemon gathers them for
-its live results (``chargebook.acquire.live.measurement_inputs``).
+raw values by :func:`chargebook.acquire.session_evaluation.evaluate_session`, the one evaluation
+the daemon's live results also use (with the session's own thresholds, the environment entry in
+force for each set and the metadata), so a report says what the console said.
 
 Nothing here writes to the store.
 """
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
+from chargebook.acquire.live import LEAKAGE_SUBTRACTION_EVENT
 from chargebook.acquire.plan import Plan
-from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
+from chargebook.acquire.session_evaluation import SessionContext, evaluate_session, stored_context
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SessionRow, SetRow, Store
+from chargebook.acquire.verify import ChainReport, verify_session
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
+from chargebook.corrections.evaluate import Evaluation
 
 #: Set statuses that end a set without it counting: the audit lists each with its reason.
 UNUSED_SET_STATUSES = ("superseded", "aborted", "interrupted")
@@ -33,7 +36,10 @@ AUDIT_EVENT_KINDS = (
     "instrument_lost",
     "instrument_back",
     "session_resumed",
+    "daemon_stopped",
+    "daemon_restarted",
     "note",
+    LEAKAGE_SUBTRACTION_EVENT,
 )
 INSTRUMENT_EVENT = "instrument_identified"
 
@@ -64,6 +70,17 @@ class SessionRecord:
     evaluation: Evaluation | None
     results_error: str | None
     instrument: dict[str, Any] | None = None
+    integrity: ChainReport | None = None  # the check of the session's hash chain
+
+    def integrity_warning(self) -> str | None:
+        """Return, when the record does not verify, the warning to put at the top; else None."""
+        if self.integrity is None or self.integrity.verified:
+            return None
+        return (
+            f"WARNING: THIS RECORD DOES NOT VERIFY. It was changed after it was written; the "
+            f"values below may not be the ones measured (`chargebook verify {self.session.id}`).\n"
+            + self.integrity.summary()
+        )
 
     @property
     def metadata(self) -> dict[str, Any]:
@@ -106,8 +123,11 @@ def instrument_identity(
     return found[-1].detail() if found else None
 
 
-def load_record(store: Store, session_id: int) -> SessionRecord:
+def load_record(store: Store, session_id: int, *, check_chain: bool = True) -> SessionRecord:
     """Return the session's stored record with results recomputed; NotFound if it is missing.
+
+    ``integrity`` is the check of the session's hash chain (``verify``), unless ``check_chain``
+    is False (``history``, which loads every session of a beam: `chargebook verify` checks all).
 
     A session whose stored metadata or readings cannot be evaluated still loads: its
     ``evaluation`` is None and ``results_error`` says why, in the words of the InputError.
@@ -120,60 +140,22 @@ def load_record(store: Store, session_id: int) -> SessionRecord:
     )
     environment = tuple(store.environment(session_id))
     events = tuple(store.events(session_id))
-    plan: Plan | None = None
-    evaluation: Evaluation | None = None
-    error: str | None = None
-    stage = "the stored plan cannot be read"
-    try:
-        plan = Plan.from_dict(session.plan())
-        stage = "the stored metadata cannot be used"
-        metadata = validate_metadata(session.metadata())
-        stage = "the recorded values cannot be evaluated"
-        evaluation = evaluate(session_inputs(store, session_id, plan, metadata, events))
-    except InputError as problem:
-        error = f"{stage}: {problem}"
+    context: SessionContext | None = None
+    with contextlib.suppress(InputError):  # evaluate_session says why, in its own words
+        context = stored_context(store, session_id, events)
+    found = evaluate_session(store, session_id, context)
     return SessionRecord(
         session=session,
-        plan=plan,
+        plan=None if context is None else context.plan,
         sets=sets,
         environment=environment,
         events=events,
         traffic_lines=store.traffic_count(session_id),
-        evaluation=evaluation,
-        results_error=error,
+        evaluation=found.evaluation,
+        results_error=found.error,
         instrument=instrument_identity(store, session, events),
+        integrity=verify_session(store, session_id) if check_chain else None,
     )
-
-
-def integration_times_s(events: tuple[EventRow, ...]) -> dict[int, float]:
-    """Return reading id -> integration time (s) from the daemon's reading_recorded events."""
-    times: dict[int, float] = {}
-    for event in events:
-        if event.kind == "reading_recorded":
-            detail = event.detail()
-            if "integration_s" in detail and "reading_id" in detail:
-                times[int(detail["reading_id"])] = float(detail["integration_s"])
-    return times
-
-
-def session_inputs(
-    store: Store,
-    session_id: int,
-    plan: Plan,
-    metadata: SessionMetadata,
-    events: tuple[EventRow, ...],
-) -> MeasurementInputs:
-    """Return the inputs of ``evaluate`` for a stored session, from its raw values only.
-
-    The accepted sets, the environment entries and the metadata are gathered exactly as the
-    daemon gathers them for its live results, so a report says what the console said.
-    """
-    from chargebook.acquire.live import measurement_inputs
-
-    inputs, _ = measurement_inputs(
-        store, session_id, plan, metadata.to_dict(), None, integration_times_s(events)
-    )
-    return inputs
 
 
 def plain(value: Any) -> Any:

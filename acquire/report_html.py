@@ -120,6 +120,9 @@ def set_figure(reading_set: SetRecord) -> str:
 def session_html(record: SessionRecord, generated: str) -> str:
     """Return the session's report as one self-contained, printable HTML page."""
     body = []
+    warning = record.integrity_warning()
+    if warning is not None:
+        body.append(f'<p class="caution" data-key="integrity">{escape(warning)}</p>')
     for table in all_sections(record):
         body.append(table_html(table))
         if table.title == "Reading sets":

@@ -14,7 +14,10 @@ import json
 from dataclasses import dataclass, field
 from typing import Any
 
+from chargebook.acquire.numbering import reading_labels
+from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_data import SessionRecord, SetRecord
+from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.statistics import SetStatistics, set_statistics
@@ -146,7 +149,11 @@ def _percent(value: object) -> str:
 
 
 def environment(record: SessionRecord) -> Table:
-    """Return every environment entry, oldest first; the last one is used for k_TP."""
+    """Return every environment entry, oldest first, with the sets whose air it gave."""
+    results = record.evaluation.to_dict() if record.evaluation else {}
+    used_by: dict[int, list[str]] = {}
+    for key, air in (results.get("set_air") or {}).items():
+        used_by.setdefault(air.get("entry"), []).append(SET_NAMES.get(key, key))
     rows = tuple(
         (
             when(e.recorded_at),
@@ -155,15 +162,19 @@ def environment(record: SessionRecord) -> Table:
             f"{e.pressure_entered:g} {e.pressure_unit}",
             number(e.humidity_pct, 0, NOT_GIVEN),
             e.source,
+            str(position),
+            ", ".join(used_by.get(position, [])) or NOT_GIVEN,
         )
-        for e in record.environment
+        for position, e in enumerate(record.environment, start=1)
     )
     return Table(
         "Environment",
-        ("recorded", "T (°C)", "P (kPa)", "P as entered", "RH (%)", "source"),
+        ("recorded", "T (°C)", "P (kPa)", "P as entered", "RH (%)", "source", "entry", "air of"),
         rows,
         tuple(f"environment-{e.id}" for e in record.environment),
-        note="The latest entry is used for the air-density correction."
+        note="Each set's mean is corrected to reference air with the entry in force when the "
+        "set was taken (the entry recorded last before its first reading); the routine set's "
+        "gives k_TP."
         if rows
         else "No environment entry was recorded: the air-density correction is pending.",
     )
@@ -210,13 +221,27 @@ def reading_sets(record: SessionRecord) -> Table:
     )
 
 
+READING_HEADERS = (
+    "set", "key", "reading", "charge (nC)", "capture", "settling", "status", "t (s)", "recorded"
+)  # fmt: skip
+
+
 def readings(record: SessionRecord) -> Table:
     """Return every reading as stored, set by set, settling readings marked."""
+    labels = {
+        reading.id: label
+        for reading_set in record.sets
+        for reading, label in zip(
+            reading_set.readings,
+            reading_labels(r.settling for r in reading_set.readings),
+            strict=True,
+        )
+    }
     rows = tuple(
         (
             str(reading_set.row.id),
             reading_set.row.step_key,
-            str(reading.seq),
+            labels[reading.id],
             f"{reading.charge_nC:+.4f}",
             reading.capture,
             "settling" if reading.settling else "",
@@ -230,7 +255,17 @@ def readings(record: SessionRecord) -> Table:
     keys = tuple(f"reading-{r.id}" for s in record.sets for r in s.readings)
     return Table(
         "Readings",
-        ("set", "key", "seq", "charge (nC)", "capture", "settling", "status", "t (s)", "recorded"),
+        (
+            "set",
+            "key",
+            "reading",
+            "charge (nC)",
+            "capture",
+            "settling",
+            "status",
+            "t (s)",
+            "recorded",
+        ),
         rows,
         keys,
         note="" if rows else "No reading was recorded.",
@@ -292,6 +327,16 @@ def results(record: SessionRecord) -> Table:
             number(evaluation.U_expanded_pct, 2),
         ),
     ]
+    found = evaluation.to_dict()
+    rows.append(("leakage_pct", "leakage", leakage_text(found)))
+    boag = boag_text(found)
+    if boag is not None:
+        rows.append(("k_s_boag", f"{symbols['k_s']} cross-check", boag))
+    times = {i: when(e.recorded_at) for i, e in enumerate(record.environment, start=1)}
+    rows += [
+        (f"set_air-{key}", f"air of the {name} set", text)
+        for key, (name, text) in zip(found["set_air"], set_air_rows(found, times), strict=True)
+    ]
     conversions = "; ".join(c.text() for c in evaluation.conversions)
     return Table(
         "Results",
@@ -324,12 +369,15 @@ def flags(record: SessionRecord) -> Table:
     evaluation = record.evaluation
     if evaluation is None:
         return Table("Flags", ("severity", "message"), (), note=_no_results(record))
-    rows = tuple((f.severity, f.message) for f in evaluation.flags)
+    ordered = by_severity(evaluation.flags)
+    rows = tuple(
+        (f"{SEVERITY_MARKERS.get(f.severity, '!')} {f.severity}", f.message) for f in ordered
+    )
     return Table(
         "Flags",
         ("severity", "message"),
         rows,
-        tuple(f.code for f in evaluation.flags),
+        tuple(f.code for f in ordered),
         note="" if rows else "No flags.",
     )
 

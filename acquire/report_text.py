@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import textwrap
 from collections.abc import Sequence
 from dataclasses import replace
 
@@ -25,9 +26,13 @@ def printable(text: str) -> str:
     return text.translate(_CONTROL_ESCAPES)
 
 
-def table_text(table: Table, *, title: bool = True) -> str:
+def table_text(table: Table, *, title: bool = True, width: int | None = None) -> str:
     """Return ``table`` as aligned text columns, with its title and note; control characters
-    in any cell are escaped (:func:`printable`)."""
+    in any cell are escaped (:func:`printable`).
+
+    With ``width`` (characters, e.g. the terminal's), a table wider than that has its widest
+    columns wrapped onto continuation lines, and the note is wrapped, so no line runs past it.
+    """
     table = replace(
         table,
         title=printable(table.title),
@@ -40,12 +45,74 @@ def table_text(table: Table, *, title: bool = True) -> str:
         widths = [len(h) for h in table.headers]
         for row in table.rows:
             widths = [max(w, len(cell)) for w, cell in zip(widths, row, strict=True)]
-        lines.append(_row(table.headers, widths))
-        lines.append(_row(tuple("-" * w for w in widths), widths))
-        lines += [_row(row, widths) for row in table.rows]
+        if width is not None:
+            longest_words = [
+                max((len(word) for row in table.rows for word in row[i].split()), default=0)
+                for i in range(len(widths))
+            ]
+            widths = _fit_widths(widths, [len(h) for h in table.headers], longest_words, width)
+        if width is not None and _line_width(widths) > width:
+            lines += _record_lines(table, width)  # too many columns: one block per row
+        else:
+            lines += _wrapped_row(table.headers, widths)
+            lines.append(_row(tuple("-" * w for w in widths), widths))
+            for row in table.rows:
+                lines += _wrapped_row(row, widths)
     if table.note:
-        lines.append(table.note)
+        lines += textwrap.wrap(table.note, width) if width is not None else [table.note]
     return "\n".join(lines)
+
+
+#: A column is never wrapped narrower than this, so words stay readable.
+_NARROWEST_WRAPPED = 12
+_GAP = 2  # spaces between columns
+
+
+def _line_width(widths: Sequence[int]) -> int:
+    return sum(widths) + _GAP * (len(widths) - 1)
+
+
+def _record_lines(table: Table, width: int) -> list[str]:
+    """Return each row as a block of ``header  value`` lines, values wrapped to ``width``."""
+    label_width = max(len(h) for h in table.headers)
+    value_width = max(width - label_width - _GAP, _NARROWEST_WRAPPED)
+    lines: list[str] = []
+    for number, row in enumerate(table.rows):
+        if number:
+            lines.append("")
+        for header, cell in zip(table.headers, row, strict=True):
+            values = textwrap.wrap(cell, value_width, break_long_words=False) or [""]
+            labels = [header] + [""] * (len(values) - 1)
+            lines += [
+                _row((label, value), (label_width, value_width))
+                for label, value in zip(labels, values, strict=True)
+            ]
+    return lines
+
+
+def _fit_widths(
+    widths: list[int], header_widths: list[int], longest_words: list[int], width: int
+) -> list[int]:
+    """Return column widths that fit ``width``, narrowing the widest columns first, never below
+    the longest word of a column (a time or a number is never cut in two)."""
+    widths = list(widths)
+    while _line_width(widths) > width:
+        widest = max(range(len(widths)), key=lambda i: widths[i])
+        floor = max(_NARROWEST_WRAPPED, min(header_widths[widest], 20), longest_words[widest])
+        if widths[widest] <= floor:
+            break  # as narrow as it may go: the line stays long rather than unreadable
+        widths[widest] -= 1
+    return widths
+
+
+def _wrapped_row(cells: Sequence[str], widths: Sequence[int]) -> list[str]:
+    """Return one row as one or more lines, each cell wrapped to its column's width."""
+    columns = [
+        textwrap.wrap(cell, w, break_long_words=False) or [""] if len(cell) > w else [cell]
+        for cell, w in zip(cells, widths, strict=True)
+    ]
+    height = max(len(c) for c in columns)
+    return [_row(tuple(c[i] if i < len(c) else "" for c in columns), widths) for i in range(height)]
 
 
 def _row(cells: Sequence[str], widths: Sequence[int]) -> str:
@@ -53,9 +120,9 @@ def _row(cells: Sequence[str], widths: Sequence[int]) -> str:
     return "  ".join(padded).rstrip()
 
 
-def tables_text(tables: Sequence[Table]) -> str:
-    """Return several tables as text, separated by blank lines."""
-    return "\n\n".join(table_text(t) for t in tables)
+def tables_text(tables: Sequence[Table], *, width: int | None = None) -> str:
+    """Return several tables as text, separated by blank lines (wrapped to ``width``)."""
+    return "\n\n".join(table_text(t, width=width) for t in tables)
 
 
 def deviation_plot(

@@ -55,6 +55,7 @@ class Connection:
     operator: str | None = None
     subscribed: bool = False
     closed: bool = False
+    account: str | None = None  # the Unix account of the peer process (SO_PEERCRED)
 
     @property
     def actor(self) -> str:
@@ -121,6 +122,26 @@ def _plain(value: Any) -> Any:
     except (TypeError, ValueError):
         return repr(value)
     return value
+
+
+def peer_account(writer: asyncio.StreamWriter) -> str | None:
+    """Return the Unix account of the process at the other end of a Unix socket: its user
+    name, or ``uid N`` when the uid has no name; None where peer credentials are not given."""
+    import pwd
+    import struct
+
+    sock = writer.get_extra_info("socket")
+    if sock is None or not hasattr(socket, "SO_PEERCRED"):
+        return None
+    try:
+        credentials = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
+    except OSError:
+        return None
+    _pid, uid, _gid = struct.unpack("3i", credentials)
+    try:
+        return pwd.getpwuid(uid).pw_name
+    except KeyError:
+        return f"uid {uid}"
 
 
 def prepare_socket_dir(path: Path) -> None:
@@ -209,7 +230,7 @@ class RpcServer:
 
     async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         self._numbers += 1
-        connection = Connection(writer, self._numbers)
+        connection = Connection(writer, self._numbers, account=peer_account(writer))
         self.connections.add(connection)
         log.info("client %d connected", connection.number)
         try:

@@ -33,6 +33,9 @@ Keys (required unless a default is shown)::
     certificate           None    certificate number or laboratory
     beam_quality          None    beam quality specifier as measured, e.g. "TPR20,10 = 0.668"
     notes                 None    free text
+    subtract_leakage      false   subtract the measured leakage from the routine reading (the
+                                  operator's choice, recorded in the audit); false: the leakage
+                                  is only reported as a percentage of the routine reading
 
 Monitor units per reading come from the plan, not from here.
 """
@@ -97,6 +100,7 @@ class SessionMetadata:
     certificate: str | None = None
     beam_quality: str | None = None
     notes: str | None = None
+    subtract_leakage: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         """Return the metadata as plain data, every key present (None where not given)."""
@@ -191,6 +195,16 @@ def _calibration(data: Mapping[str, Any]) -> tuple[float, str, float]:
     return float(data["N_Dw"]), unit, converted
 
 
+def _flag(data: Mapping[str, Any], name: str) -> bool:
+    """Return a yes/no setting (absent or None: False); InputError unless true or false."""
+    value = data.get(name)
+    if value is None:
+        return False
+    if not isinstance(value, bool):
+        raise InputError(name, value, "true or false", "is not a yes/no value")
+    return value
+
+
 def _tolerance(data: Mapping[str, Any]) -> float | None:
     value = data.get("tolerance_pct")
     return None if value is None else float(dose.tolerance_pct(value))
@@ -241,5 +255,6 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         u_pressure_kPa=_number(data, "u_pressure_kPa", limits.U_PRESSURE_KPA, required=False),
         tolerance_pct=_tolerance(data),
         calibration_date=_date(data, "calibration_date"),
+        subtract_leakage=_flag(data, "subtract_leakage"),
         **optional_texts,
     )

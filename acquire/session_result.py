@@ -1,31 +1,18 @@
 """A recorded session's result, recomputed from its stored raw values, as one JSON document.
 
 The document has the keys of ``chargebook correct --json`` (the ``Evaluation.to_dict()`` keys,
-``session``, ``monte_carlo`` and ``caution``; there is no ``worksheet``) plus ``session_id``,
-so scripts read a live session and a logbook worksheet alike.
+``session``, ``monte_carlo`` and ``caution``; there is no ``worksheet``) plus ``session_id``
+and ``results_error``, so scripts read a live session and a logbook worksheet alike. The
+results are those of :func:`chargebook.acquire.session_evaluation.evaluate_session`, the one
+evaluation every output of a session uses.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from chargebook.acquire import live
+from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.store import Store
-
-
-def session_evaluation(store: Store, session_id: int) -> Any:
-    """Return ``evaluate(...)`` of a stored session: accepted sets, latest environment, metadata."""
-    from chargebook.corrections.evaluate import evaluate
-
-    row = store.session(session_id)
-    plan = live.resolve_plan(row.plan())
-    events = store.events(session_id)
-    times = live.integration_times(events)
-    thresholds = live.session_thresholds(events)
-    inputs, _ = live.measurement_inputs(
-        store, session_id, plan, row.metadata(), None, times, thresholds
-    )
-    return evaluate(inputs)
 
 
 def result_document(store: Store, session_id: int) -> dict[str, Any]:
@@ -35,16 +22,18 @@ def result_document(store: Store, session_id: int) -> dict[str, Any]:
     from chargebook.corrections.uncertainty import monte_carlo_u_pct
 
     row = store.session(session_id)
-    evaluation = session_evaluation(store, session_id)
+    found = evaluate_session(store, session_id)
     document: dict[str, Any] = {
         "session_id": session_id,
         "session": {**row.metadata(), "status": row.status, "created_at": row.created_at},
+        "results_error": found.error,
     }
-    document.update(evaluation.to_dict())
-    model = evaluation.uncertainty_model
+    evaluation = found.evaluation
+    document.update(evaluation.to_dict() if evaluation is not None else {})
+    model = None if evaluation is None else evaluation.uncertainty_model
     document["monte_carlo"] = (
         None
-        if evaluation.u_combined_pct is None or model is None
+        if evaluation is None or evaluation.u_combined_pct is None or model is None
         else {
             "trials": MONTE_CARLO_TRIALS,
             "seed": MONTE_CARLO_SEED,

@@ -7,6 +7,7 @@ from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire import live
 from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.numbering import next_reading_label, reading_labels
 from chargebook.acquire.protocol import EngineState, ReadingPhase
 from chargebook.acquire.store import ReadingRow, SetRow
 
@@ -27,6 +28,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
     store, session_id = engine.store, engine.session_id
     sets: list[dict[str, Any]] = []
     environment = None
+    entries: list[dict[str, Any]] = []
     session = None
     results, provisional, results_error = engine.results()
     if session_id is not None:
@@ -43,9 +45,9 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         }
         readings = store.readings(session_id)
         sets = _sets_info(engine, store.sets(session_id), readings)
-        entries = store.environment(session_id)
+        entries = [_environment_info(entry) for entry in store.environment(session_id)]
         if entries:
-            environment = _environment_info(entries[-1])
+            environment = entries[-1]
     current = next((s for s in sets if engine.active and s["id"] == engine.active.id), None)
     return {
         "seq": engine.seq,
@@ -53,6 +55,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         "paused_from": engine.paused_from.value if engine.paused_from else None,
         "allowed": engine.allowed(),
         "prompt": prompt(engine),
+        "notice": engine.notice,
         "session": session,
         "plan": _plan_info(engine, sets),
         "step_index": engine.step_index,
@@ -60,6 +63,7 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
         "sets": sets,
         "live": _live(engine),
         "environment": environment,
+        "environment_entries": entries,
         "results": results,
         "results_provisional": provisional,
         "results_error": results_error,
@@ -120,6 +124,7 @@ def _set_info(
             {
                 "id": r.id,
                 "seq": r.seq,
+                "label": label,
                 "t_s": r.t_s,
                 "charge_nC": r.charge_nC,
                 "capture": r.capture,
@@ -128,7 +133,7 @@ def _set_info(
                 "recorded_at": r.recorded_at,
                 "flags": per_reading.get(r.id, []),
             }
-            for r in own
+            for r, label in zip(own, reading_labels(r.settling for r in own), strict=True)
         ],
         "readings_needed": int(step.readings) if step is not None else len(own),
         "readings_done": sum(1 for r in own if not r.settling),
@@ -183,14 +188,26 @@ def _plan_info(engine: Engine, sets: list[dict[str, Any]]) -> list[dict[str, Any
 def _live(engine: Engine) -> dict[str, Any]:
     reading = engine.reading
     if reading is None:
-        return {"phase": ReadingPhase.IDLE.value, "charge_nC": None, "elapsed_s": None, "seq": None}
+        return {
+            "phase": ReadingPhase.IDLE.value,
+            "charge_nC": None,
+            "elapsed_s": None,
+            "seq": None,
+            "label": None,
+        }
     elapsed = None if reading.last_t_s is None else reading.last_t_s - reading.armed_t_s
-    seq = len(engine.active.readings) + 1 if engine.active is not None else None
+    active = engine.active
+    seq = label = None
+    if active is not None:
+        seq = len(active.readings) + 1
+        taken = [bool(r.settling) for r in active.readings]
+        label = next_reading_label(taken, engine.state is S.SETTLING)
     return {
         "phase": reading.phase.value,
         "charge_nC": reading.last_charge_nC,
         "elapsed_s": elapsed,
         "seq": seq,
+        "label": label,
     }
 
 
@@ -259,8 +276,9 @@ def _beam_prompt(engine: Engine, step: Any) -> dict[str, Any]:
             "kind": "deliver_beam",
             "text": f"Measuring leakage with the beam off: {step.duration_s:g} s.",
         }
+    taken = [bool(r.settling) for r in active.readings] if active is not None else []
     which = (
-        "a settling reading"
+        f"settling reading {next_reading_label(taken, True)}, kept but not used"
         if engine.state is S.SETTLING
         else f"reading {done + 1} of {step.readings}"
     )

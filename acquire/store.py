@@ -27,7 +27,9 @@ import functools
 import json
 import math
 import os
+import shutil
 import sqlite3
+import tempfile
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
@@ -37,6 +39,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
+from chargebook.acquire import chain
 from chargebook.acquire.migrations import (
     CAPTURE_MODES,
     SCHEMA_VERSION,
@@ -98,6 +101,46 @@ def default_db_path() -> Path:
     data_home = os.environ.get("XDG_DATA_HOME", "")
     base = Path(data_home) if os.path.isabs(data_home) else Path.home() / ".local" / "share"
     return base / "chargebook" / "station.sqlite"
+
+
+def require_writable(path: Path) -> None:
+    """Raise :class:`StoreError` in words unless the daemon can create or write the station
+    database at ``path``: its folder (created if missing) and the file, if it exists."""
+    folder = path.parent
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise StoreError(
+            f"cannot create the folder {folder} for the station database: {error.strerror}; "
+            "choose a writable place with --db FILE"
+        ) from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise StoreError(
+            f"the folder {folder} is not writable by this user, and the station database needs "
+            "its -wal, -shm and lock files beside it; choose a writable place with --db FILE"
+        )
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        raise StoreError(
+            f"the station database {path} is read-only for this user: the daemon must write "
+            "to it; the read-side commands (sessions, show, export, verify) can read it as it "
+            "is, or serve a writable copy"
+        )
+
+
+def _writable(path: Path) -> bool:
+    """Return True when this user can write the file ``path`` and create files beside it."""
+    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK | os.X_OK)
+
+
+def _require_intact(conn: sqlite3.Connection, path: Path) -> None:
+    """Raise :class:`StoreError` when ``PRAGMA quick_check`` finds the file damaged."""
+    found = [row[0] for row in conn.execute("PRAGMA quick_check(5)").fetchall()]
+    if found != ["ok"]:
+        raise StoreError(
+            f"the file is damaged (SQLite's quick integrity check: "
+            f"{'; '.join(str(f) for f in found)}); restore it from a backup, or start on a new "
+            "file with --db FILE (`sqlite3 FILE .recover` may save what is left)"
+        )
 
 
 def utc_now() -> datetime:
@@ -206,6 +249,7 @@ class EventRow:
     actor: str
     kind: str
     detail_json: str
+    account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
         return json.loads(self.detail_json)
@@ -224,6 +268,8 @@ class TrafficRow:
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+#: Told the row id of a kept raw line once it is written (None when its transaction failed).
+LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
 #: (session_id, t_s, recorded_at, direction, line bytes).
 TrafficLine = tuple[int | None, float, str, str, bytes]
@@ -284,6 +330,14 @@ class Store:
         self.path = path
         self._now = now
         self._lock = threading.RLock()
+        self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
+        self._pending_lock = threading.Lock()
+        self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
+        #: Beside _pending and _in_flight: whom to tell each kept line's row id (None: nobody).
+        self._pending_told: list[LineIdListener | None] = []
+        self._in_flight_told: list[LineIdListener | None] = []
+        self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
+        self._account: str | None = None  # the Unix account a client's request comes from
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -297,26 +351,66 @@ class Store:
     ) -> Store:
         """Open the station database at ``path``: create it and migrate it unless ``read_only``.
 
-        A writable open switches the file to WAL mode. A read-only open (the read-side commands,
-        while a daemon may be writing) never creates or migrates: it requires an existing file
-        at the current schema version. Raises :class:`StoreError` naming the path when the file
-        is missing, not a database, or at another schema version.
+        A writable open switches the file to WAL mode, and first checks that the file and its
+        folder can be written and that the file passes SQLite's quick integrity check. A
+        read-only open (the read-side commands, while a daemon may be writing) never creates or
+        migrates: it requires an existing file at the current schema version. A file this user
+        cannot write (an archive, a reviewer's copy, a read-only folder or mount), which SQLite
+        cannot open even read-only in WAL mode, is read through a private snapshot copy, removed
+        on :meth:`close`. Raises :class:`StoreError` naming the path when the file is missing,
+        not a database, damaged, unwritable (writable open), or at another schema version.
         """
         path = Path(path).expanduser()
         if read_only and not path.is_file():
             raise StoreError(f"no station database at {path} (pass --db FILE to choose one)")
-        if not read_only:
-            path.parent.mkdir(parents=True, exist_ok=True)
-        target = f"{path.resolve().as_uri()}?mode=ro" if read_only else str(path)
+        if read_only:
+            try:
+                return cls._connect(path, path, read_only=True, now=now)
+            except StoreError:
+                if _writable(path):
+                    raise
+            return cls._open_snapshot(path, now)
+        require_writable(path)
+        store = cls._connect(path, path, read_only=False, now=now)
+        return store
+
+    @classmethod
+    def _connect(
+        cls, path: Path, file: Path, *, read_only: bool, now: Callable[[], datetime]
+    ) -> Store:
+        """Open ``file`` (``path`` itself, or a snapshot copy of it) and prepare it."""
+        target = f"{file.resolve().as_uri()}?mode=ro" if read_only else str(file)
         conn = sqlite3.connect(target, uri=read_only, check_same_thread=False)
         try:
-            store = cls._prepare(conn, path, read_only=read_only, now=now)
+            if not read_only:
+                _require_intact(conn, path)
+            return cls._prepare(conn, path, read_only=read_only, now=now)
         except sqlite3.DatabaseError as error:
             conn.close()
             raise StoreError(f"{path} is not a usable chargebook database: {error}") from None
         except (SchemaTooNew, StoreError) as error:
             conn.close()
             raise StoreError(f"{path}: {error}") from None
+
+    @classmethod
+    def _open_snapshot(cls, path: Path, now: Callable[[], datetime]) -> Store:
+        """Open a private copy of the unwritable file ``path`` (and its ``-wal``, whose
+        committed transactions SQLite applies to the copy), read-only."""
+        folder = Path(tempfile.mkdtemp(prefix="chargebook-snapshot-"))
+        copy = folder / path.name
+        try:
+            shutil.copyfile(path, copy)
+            wal = path.with_name(path.name + "-wal")
+            if wal.is_file():
+                shutil.copyfile(wal, copy.with_name(copy.name + "-wal"))
+            store = cls._connect(path, copy, read_only=True, now=now)
+        except OSError as error:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise StoreError(f"{path} cannot be read: {error.strerror}") from None
+        except BaseException:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise
+        store._snapshot = folder
         return store
 
     @classmethod
@@ -360,6 +454,9 @@ class Store:
         """Close the database connection (everything written is already committed)."""
         with self._lock:
             self.db.close()
+            if self._snapshot is not None:
+                shutil.rmtree(self._snapshot, ignore_errors=True)
+                self._snapshot = None
 
     def __enter__(self) -> Store:
         return self
@@ -383,6 +480,10 @@ class Store:
         writer (a replay, a reviewer's tool) makes it wait up to the busy timeout instead of
         failing at once, as a deferred transaction that read before writing did. A nested
         block is a savepoint: an error rolls back that block's rows only.
+
+        The outermost block first writes the raw lines kept with :meth:`keep_traffic`, so that
+        every row it appends comes after them in the session's chain, as it came after them in
+        time; if the transaction fails, those lines are kept again for the next commit.
         """
         with self._lock:
             conn = self.db.conn
@@ -392,28 +493,46 @@ class Store:
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
+                self._write_kept_traffic()
                 yield self.db
             except BaseException:
                 conn.rollback()
+                self._keep_again()
                 raise
             try:
                 conn.execute("COMMIT")
             except BaseException:
                 conn.rollback()
+                self._keep_again()
                 raise
+            self._in_flight, self._in_flight_told = [], []
+
+    def _write_kept_traffic(self) -> None:
+        """Append the kept raw lines (lock held, transaction open) and tell each line's
+        listener its row id."""
+        with self._pending_lock:
+            self._in_flight, self._pending = self._pending, []
+            self._in_flight_told, self._pending_told = self._pending_told, []
+        if self._in_flight:
+            first_id = self._append_traffic(self._in_flight) - len(self._in_flight) + 1
+            for offset, told in enumerate(self._in_flight_told):
+                if told is not None:
+                    told(first_id + offset)
+
+    def _keep_again(self) -> None:
+        """Put the lines of a failed transaction back in front of the kept ones."""
+        with self._pending_lock:
+            self._pending[:0] = self._in_flight
+            self._pending_told[:0] = self._in_flight_told
+        for told in self._in_flight_told:
+            if told is not None:
+                told(None)  # not written after all: no row id yet
+        self._in_flight, self._in_flight_told = [], []
 
     def _stamp(self) -> str:
         if self._now is utc_now:
             return utc_stamp_now()
         return self._now().astimezone(UTC).isoformat(timespec="microseconds")
-
-    def _insert(self, table: str, row: dict[str, Any]) -> int:
-        columns = ", ".join(row)
-        marks = ", ".join("?" for _ in row)
-        cursor = self.db.execute(
-            f"INSERT INTO {table} ({columns}) VALUES ({marks})", tuple(row.values())
-        )
-        return int(cursor.lastrowid)
 
     def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
         return [cls(*row) for row in self._rows(cls, table, where, params)]
@@ -430,8 +549,86 @@ class Store:
             raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
         return found[0]
 
+    def append_row(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
+        and commit it; return its id. For copying a recorded session (a replay): the recording
+        methods above check their values, this one does not."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
+        with self.atomic():
+            return self._append(table, row)
+
+    def _append(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row to a chained table, linked to its session's chain; return its id.
+
+        Call inside :meth:`atomic`. The id is given explicitly (the next one), since the hash
+        covers it; a session row starts its own chain. Columns of ``row`` that the chain does
+        not cover (a status) are stored too; those it covers and ``row`` lacks are NULL.
+        """
+        row_id = self._next_id(table)
+        row = {"id": row_id, **row}
+        values = tuple(row.get(column) for column in chain.COLUMNS[table])
+        key = chain.chain_key(chain.owner(table, values))
+        seq, previous = self._chain_head(key)
+        digest = chain.link(previous, seq + 1, table, values)
+        columns = [*row, "chain_seq", "chain_hash"]
+        self.db.execute(
+            f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join('?' * len(columns))})",
+            (*row.values(), seq + 1, digest),
+        )
+        self._set_chain_head(key, seq + 1, digest)
+        return row_id
+
+    def _append_traffic(self, lines: Sequence[TrafficLine]) -> int:
+        """Append checked raw lines, each linked to its session's chain, in one pass; return
+        the id of the last."""
+        next_id = self._next_id("traffic")
+        heads: dict[int, tuple[int, str]] = {}
+        rows = []
+        for line in lines:
+            key = chain.chain_key(line[0])
+            seq, previous = heads[key] if key in heads else self._chain_head(key)
+            values = (next_id, *line)
+            digest = chain.link_traffic(previous, seq + 1, values)
+            rows.append((*values, seq + 1, digest))
+            heads[key] = (seq + 1, digest)
+            next_id += 1
+        self.db.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        for key, (seq, digest) in heads.items():
+            self._set_chain_head(key, seq, digest)
+        return next_id - 1
+
+    def _next_id(self, table: str) -> int:
+        return int(self.db.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+
+    def _chain_head(self, key: int) -> tuple[int, str]:
+        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
+        row = self.db.execute(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
+        ).fetchone()
+        return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+
+    def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
+        self.db.execute(
+            "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
+            "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
+            (key, seq, digest),
+        )
+
+    @contextmanager
+    def on_behalf_of(self, account: str | None) -> Iterator[None]:
+        """Within the block, record ``account`` (the Unix account of the client whose request
+        is being carried out, from the socket's peer credentials) in the ``account`` column of
+        every event written, beside the operator name the client claims (``actor``)."""
+        with self._lock:
+            previous, self._account = self._account, account
+            try:
+                yield
+            finally:
+                self._account = previous
+
     def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        return self._insert(
+        return self._append(
             "events",
             {
                 "session_id": session_id,
@@ -439,6 +636,7 @@ class Store:
                 "actor": _require_text("actor", actor),
                 "kind": _require_text("kind", kind),
                 "detail_json": _to_json("detail", detail),
+                "account": self._account,
             },
         )
 
@@ -466,7 +664,7 @@ class Store:
         with self.atomic():
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
-            session_id = self._insert("sessions", row)
+            session_id = self._append("sessions", row)
             self._event(
                 session_id,
                 actor,
@@ -496,15 +694,15 @@ class Store:
                     f"session {session_id} is {old.status}; its status can no longer change"
                 )
             closed_at = None if status == "open" else (old.closed_at or self._stamp())
-            self.db.execute(
-                "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
-                (status, reason, closed_at, session_id),
-            )
-            self._event(
+            self._event(  # first: a trigger refuses a status change that is not its last event
                 session_id,
                 actor,
                 "session_status",
-                {"from": old.status, "to": status, "reason": reason},
+                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
+            )
+            self.db.execute(
+                "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
+                (status, reason, closed_at, session_id),
             )
 
     def sessions(self) -> list[SessionRow]:
@@ -548,7 +746,7 @@ class Store:
         }
         with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("reading_sets", row)
+            return self._append("reading_sets", row)
 
     def set_set_status(
         self, set_id: int, status: str, reason: str | None = None, actor: str = DAEMON_ACTOR
@@ -571,11 +769,7 @@ class Store:
                 ended_at = old.ended_at
             else:
                 ended_at = old.ended_at or self._stamp()
-            self.db.execute(
-                "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
-                (status, reason, ended_at, set_id),
-            )
-            self._event(
+            self._event(  # first: a trigger refuses a status change that is not its last event
                 old.session_id,
                 actor,
                 "set_status",
@@ -586,7 +780,12 @@ class Store:
                     "from": old.status,
                     "to": status,
                     "reason": reason,
+                    "ended_at": ended_at,
                 },
+            )
+            self.db.execute(
+                "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
+                (status, reason, ended_at, set_id),
             )
 
     def sets(self, session_id: int) -> list[SetRow]:
@@ -636,7 +835,7 @@ class Store:
                     f"a reading set of session {session_id}",
                     f"belongs to session {reading_set.session_id}",
                 )
-            return self._insert("readings", row)
+            return self._append("readings", row)
 
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
@@ -677,7 +876,7 @@ class Store:
         }
         with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("environment", row)
+            return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
         """Return the session's environment entries, oldest first (the last one is current)."""
@@ -698,6 +897,34 @@ class Store:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
 
+    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+        """Return the rows of one query, run under the store's lock (for ``verify``)."""
+        with self._lock:
+            return self.db.execute(sql, params).fetchall()
+
+    def chain_places(self, table: str, session_id: int) -> dict[int, int]:
+        """Return row id -> place in the session's chain (``chain_seq``) for the session's rows
+        of the chained ``table``: the order in which the session's rows happened, across
+        tables, whatever the wall clock said."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        with self._lock:
+            rows = self.db.execute(
+                f"SELECT id, chain_seq FROM {table} WHERE session_id = ?", (session_id,)
+            ).fetchall()
+        return {int(row_id): int(seq) for row_id, seq in rows}
+
+    def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
+        """Return the newest event of one of ``kinds``, in any session or none; None if none."""
+        marks = ", ".join("?" for _ in kinds)
+        found = self._select(
+            EventRow,
+            "events",
+            f"id = (SELECT max(id) FROM events WHERE kind IN ({marks}))",
+            tuple(kinds),
+        )
+        return found[0] if found else None
+
     def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
         """Return the session's events newer than ``event_id``, oldest first."""
         return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
@@ -716,7 +943,7 @@ class Store:
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
-            return self._insert("traffic", row)
+            return self._append_traffic([tuple(row.values())])
 
     def stamp(self) -> str:
         """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
@@ -733,11 +960,33 @@ class Store:
         bad line refuses the whole call.
         """
         rows = [_traffic_row(line) for line in lines]
-        with self.atomic() as db:
+        with self.atomic():
             for session_id in {row[0] for row in rows} - {None}:
                 self._one(SessionRow, "sessions", session_id, "session")
-            db.conn.executemany(_INSERT_TRAFFIC, rows)
+            self._append_traffic(rows)
         return len(rows)
+
+    def keep_traffic(self, line: TrafficLine, told: LineIdListener | None = None) -> None:
+        """Keep one raw line (see :meth:`add_traffic_many` for its shape) to be written with the
+        next commit, before anything that commit appends: the order of the session's chain is
+        the order in which lines and events happened. Cheap, and safe from any thread.
+
+        ``told(row_id)`` is called when the line is written (``told(None)`` if that
+        transaction fails): a sample read from the line then names it by id.
+        """
+        row = _traffic_row(line)
+        with self._pending_lock:
+            self._pending.append(row)
+            self._pending_told.append(told)
+
+    def commit_traffic(self) -> int:
+        """Write the raw lines kept so far in one commit; return how many there were."""
+        with self._pending_lock:
+            count = len(self._pending)
+        if count:
+            with self.atomic():
+                pass  # the outermost block writes the kept lines first
+        return count
 
     def traffic_count(self, session_id: int | None) -> int:
         """Return how many raw lines were recorded for the session (``None``: outside any)."""
@@ -761,7 +1010,10 @@ class Store:
 
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
-_INSERT_TRAFFIC = f"INSERT INTO traffic ({', '.join(_TRAFFIC_COLUMNS)}) VALUES (?, ?, ?, ?, ?)"
+_INSERT_CHAINED = {
+    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
+}
 
 
 def _traffic_row(line: TrafficLine) -> TrafficLine:

@@ -6,6 +6,10 @@ A worksheet holds one session::
     beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
     [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
     [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
+    [environment.routine], [environment.opposite], [environment.reduced]
+                   (optional) the air while that set was taken: temperature_C and one pressure
+                   key; the set's mean is corrected with it before k_pol and k_s are formed,
+                   and the routine set's gives k_TP. A set without one uses [environment].
     [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
     [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC
     [calibration]  N_Dw_Gy_per_nC | N_Dw_Gy_per_C | N_Dw_cGy_per_nC, k_Q, k_elec,
@@ -36,7 +40,8 @@ from typing import Any
 
 from chargebook.corrections import units
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import MeasurementInputs, Uncertainties
+from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
+from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 
 NUMBER = "a number"
@@ -103,6 +108,9 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
     }
 )
 
+#: The keys of a set's own environment table (``[environment.routine]`` ...).
+SET_ENVIRONMENT_KEYS = ("temperature_C", "pressure_kPa", "pressure_hPa", "pressure_mmHg")
+
 REQUIRED: tuple[tuple[str, str], ...] = (
     ("", "convention"),
     ("", "beam"),
@@ -161,6 +169,9 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
         if not isinstance(value, Mapping):
             raise InputError(key, value, f"a [{key}] table", "is not a table")
         for inner, inner_value in value.items():
+            if key == "environment" and inner in SET_KEYS:
+                result[key][inner] = _set_environment_table(inner, inner_value)
+                continue
             if inner not in SCHEMA[key]:
                 known = ", ".join(SCHEMA[key])
                 raise InputError(_name(key, inner), inner_value, known, "is not a known key")
@@ -169,6 +180,43 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
         if key not in result[section]:
             raise InputError(_name(section, key), None, SCHEMA[section][key], "is missing")
     return result
+
+
+def _set_environment_table(set_key: str, value: object) -> dict[str, float]:
+    """Return a set's own environment table, typed; InputError naming the key otherwise."""
+    section = f"environment.{set_key}"
+    if not isinstance(value, Mapping):
+        raise InputError(section, value, f"a [{section}] table", "is not a table")
+    table: dict[str, float] = {}
+    for key, item in value.items():
+        if key not in SET_ENVIRONMENT_KEYS:
+            known = ", ".join(SET_ENVIRONMENT_KEYS)
+            raise InputError(_name(section, key), item, known, "is not a known key")
+        table[key] = _typed("environment", key, item)
+    if "temperature_C" not in table:
+        raise InputError(_name(section, "temperature_C"), None, NUMBER, "is missing")
+    return table
+
+
+def _set_environments(
+    environment: Mapping[str, Any],
+) -> tuple[dict[str, SetEnvironment], list[units.Conversion]]:
+    """Return the per-set environments of the worksheet and the pressure conversions made."""
+    found: dict[str, SetEnvironment] = {}
+    conversions: list[units.Conversion] = []
+    for set_key in SET_KEYS:
+        table = environment.get(set_key)
+        if table is None:
+            continue
+        pressure, converted = _pressure(table, f"environment.{set_key}")
+        if pressure is None:
+            keys = ", ".join(SET_ENVIRONMENT_KEYS[1:])
+            raise InputError(f"environment.{set_key}.pressure_kPa", None, keys, "is missing")
+        found[set_key] = SetEnvironment(
+            table["temperature_C"], pressure, f"worksheet [environment.{set_key}]"
+        )
+        conversions += converted
+    return found, conversions
 
 
 def _one_of(section: str, values: Mapping[str, Any], keys: tuple[str, ...]) -> str | None:
@@ -183,8 +231,10 @@ def _one_of(section: str, values: Mapping[str, Any], keys: tuple[str, ...]) -> s
     return given[0] if given else None
 
 
-def _pressure(environment: Mapping[str, Any]) -> tuple[float | None, list[units.Conversion]]:
-    key = _one_of("environment", environment, ("pressure_kPa", "pressure_hPa", "pressure_mmHg"))
+def _pressure(
+    environment: Mapping[str, Any], section: str = "environment"
+) -> tuple[float | None, list[units.Conversion]]:
+    key = _one_of(section, environment, ("pressure_kPa", "pressure_hPa", "pressure_mmHg"))
     if key is None:
         return None, []
     unit = key.removeprefix("pressure_")
@@ -218,6 +268,7 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
     environment, calibration = sections["environment"], sections["calibration"]
     readings, uncertainty = sections["readings"], sections["uncertainty"]
     pressure, pressure_conversions = _pressure(environment)
+    per_set, set_conversions = _set_environments(environment)
     N_Dw, N_Dw_conversions = _calibration_coefficient(calibration)
     uncertainties = Uncertainties(
         u_N_Dw_pct_k2=calibration.get("u_N_Dw_pct_k2"),
@@ -244,7 +295,8 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
         tolerance_pct=calibration.get("tolerance_pct"),
         uncertainties=uncertainties,
         thresholds=Thresholds(**sections["thresholds"]),
-        conversions=tuple(pressure_conversions + N_Dw_conversions),
+        conversions=tuple(pressure_conversions + set_conversions + N_Dw_conversions),
+        set_environments=per_set,
     )
     return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))
 
@@ -285,6 +337,8 @@ def worksheet_key(field: str) -> str | None:
     ``routine_nC[2]``, ``voltage ratio routine_bias_V/reduced_bias_V``); this finds the key the
     operator typed, so the message can point at the line to fix.
     """
+    if field.startswith("set_environments."):
+        return "environment." + field.removeprefix("set_environments.")
     for name, key in _RENAMED.items():
         if name in field:
             return key

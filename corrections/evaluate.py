@@ -16,6 +16,7 @@ when none is entered ("default"), as for a chamber and electrometer calibrated t
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
@@ -31,12 +32,21 @@ from chargebook.corrections.factor_state import FactorState
 from chargebook.corrections.polarity import k_pol as k_pol_of
 from chargebook.corrections.recombination import (
     Beam,
+    k_s_boag,
     parse_beam,
     tabulated_coefficients,
     voltage_ratio,
 )
 from chargebook.corrections.recombination import k_s as k_s_of
 from chargebook.corrections.recombination import method as recombination_method
+from chargebook.corrections.set_air import (
+    SESSION_WIDE,
+    SetEnvironment,
+    air_scale,
+    check_set_environments,
+    environment_of,
+    set_k_TP,
+)
 from chargebook.corrections.signs import set_signs
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.statistics import SetStatistics, readings_array, set_statistics
@@ -94,6 +104,12 @@ class MeasurementInputs:
     ``temperature_history_C`` and ``pressure_history_kPa`` are the values recorded during the
     session, to flag a changing environment. ``conversions`` records unit conversions made
     while reading the inputs, so they can be shown with the results.
+    ``set_environments`` gives, per set ("routine", "opposite", "reduced"), the air in which
+    that set was taken; a set without one uses ``temperature_C`` and ``pressure_kPa``. Each
+    set's mean is referred to reference air with its own k_TP before k_pol and k_s are formed
+    (:mod:`chargebook.corrections.set_air`); the routine set's k_TP is the result's.
+    ``subtract_leakage``: subtract ``leakage_nC`` from the routine mean (the operator's choice;
+    off by default, the leakage is then only reported as a percentage of the routine reading).
     """
 
     convention: str = "trs398"
@@ -118,6 +134,8 @@ class MeasurementInputs:
     temperature_history_C: Sequence[float] = ()
     pressure_history_kPa: Sequence[float] = ()
     conversions: tuple[Conversion, ...] = ()
+    set_environments: Mapping[str, SetEnvironment] = field(default_factory=dict)
+    subtract_leakage: bool = False
 
 
 @dataclass(frozen=True)
@@ -160,6 +178,17 @@ class Evaluation:
     #: The propagation model behind ``budget`` (None before the first routine reading), for
     #: a Monte Carlo cross-check with :func:`~chargebook.corrections.uncertainty.monte_carlo_u_pct`.
     uncertainty_model: ModelInputs | None = None
+    #: Per set taken: the air it was taken in and its k_TP (see ``set_air``).
+    set_air: Mapping[str, SetAir] = field(default_factory=dict)
+    #: Leakage over one routine reading (nC, signed), as a percentage of the routine mean, and
+    #: whether it was subtracted from the routine mean (the operator's choice).
+    leakage_nC: float | None = None
+    leakage_pct: float | None = None
+    leakage_subtracted: bool = False
+    #: Boag's theory for a pulsed beam at the measured M1/M2 and n, beside the protocol's k_s,
+    #: and the protocol's k_s relative to it (%); None for continuous beams or no k_s.
+    k_s_boag: float | None = None
+    k_s_boag_difference_pct: float | None = None
 
     @property
     def symbols(self) -> Mapping[str, str]:
@@ -204,9 +233,30 @@ class Evaluation:
                 "flags": [f.to_dict() for f in self.flags],
                 "sets": {k: (s.to_dict() if s else None) for k, s in self.sets.items()},
                 "conversions": [c.to_dict() for c in self.conversions],
+                "set_air": {key: air.to_dict() for key, air in self.set_air.items()},
+                "leakage_nC": self.leakage_nC,
+                "leakage_pct": self.leakage_pct,
+                "leakage_subtracted": self.leakage_subtracted,
+                "k_s_boag": self.k_s_boag,
+                "k_s_boag_difference_pct": self.k_s_boag_difference_pct,
             }
         )
         return result
+
+
+@dataclass(frozen=True)
+class SetAir:
+    """The air one set was taken in (°C, kPa, where from) and the k_TP of that air."""
+
+    temperature_C: float
+    pressure_kPa: float
+    source: str
+    entry: int | None
+    k_TP: float
+
+    def to_dict(self) -> dict[str, object]:
+        """Return the plain values (keys temperature_C, pressure_kPa, source, entry, k_TP)."""
+        return dataclasses.asdict(self)
 
 
 # ---------------------------------------------------------------- checking the inputs
@@ -232,6 +282,7 @@ class _Checked:
     monitor_units: float | None
     expected_cGy_per_MU: float | None
     tolerance_pct: float
+    set_environments: Mapping[str, SetEnvironment]
 
 
 def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
@@ -287,6 +338,7 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
             inputs.expected_cGy_per_MU, limits.EXPECTED_CGY_PER_MU, "expected_cGy_per_MU"
         ),
         tolerance_pct=tolerance,
+        set_environments=check_set_environments(inputs.set_environments, SET_KEYS),
     )
 
 
@@ -342,18 +394,21 @@ def _pending(symbol: str, needs: str) -> Factor:
 
 
 def _factor_k_TP(
-    symbol: str, convention: Convention, checked: _Checked, u: Uncertainties
+    symbol: str, convention: Convention, air: SetEnvironment | None, u: Uncertainties
 ) -> Factor:
-    if checked.temperature_C is None or checked.pressure_kPa is None:
+    """Return k_TP of the routine set's air (its own entry, else the session-wide one)."""
+    if air is None:
         return _pending(symbol, "temperature and pressure")
-    value = float(k_TP_of(checked.temperature_C, checked.pressure_kPa, convention))
-    per_C, per_kPa = k_TP_relative_sensitivity(checked.temperature_C, checked.pressure_kPa)
+    value = float(k_TP_of(air.temperature_C, air.pressure_kPa, convention))
+    per_C, per_kPa = k_TP_relative_sensitivity(air.temperature_C, air.pressure_kPa)
     u_rel = 100.0 * float(np.hypot(per_C * u.u_temperature_C, per_kPa * u.u_pressure_kPa))
     reference = constants(convention)
     source = (
-        f"{checked.temperature_C:g} °C, {checked.pressure_kPa:g} kPa → "
+        f"{air.temperature_C:g} °C, {air.pressure_kPa:g} kPa → "
         f"{reference.reference_temperature_C:g} °C, {reference.reference_pressure_kPa:g} kPa"
     )
+    if air.source != SESSION_WIDE:
+        source += f" (routine set: {air.source})"
     return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
@@ -377,19 +432,26 @@ _K_POL_FORMULA = {
 
 
 def _factor_k_pol(
-    symbol: str, sets: Mapping[str, SetStatistics | None], convention: Convention
+    symbol: str,
+    sets: Mapping[str, SetStatistics | None],
+    convention: Convention,
+    scales: Mapping[str, float],
 ) -> Factor:
+    """Return k_pol of the means referred to the routine set's air (``scales``)."""
     routine, opposite = sets["routine"], sets["opposite"]
     if routine is None or opposite is None:
         return _pending(symbol, "routine and opposite-polarity readings")
-    value = float(k_pol_of(routine.mean_nC, opposite.mean_nC))
+    value = float(k_pol_of(routine.mean_nC, opposite.mean_nC * scales["opposite"]))
     u_rel = None
     if routine.standard_error_nC is not None and opposite.standard_error_nC is not None:
         share = abs(opposite.mean_nC) / (abs(routine.mean_nC) + abs(opposite.mean_nC))
         u_rel = share * float(
             np.hypot(routine.relative_standard_error_pct, opposite.relative_standard_error_pct)
         )
-    return Factor(symbol, value, FactorState.MEASURED, u_rel, _K_POL_FORMULA[convention])
+    source = _K_POL_FORMULA[convention]
+    if scales["opposite"] != 1.0:
+        source += "; opposite-polarity mean referred to the routine set's air"
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _factor_k_s(
@@ -398,11 +460,13 @@ def _factor_k_s(
     checked: _Checked,
     beam: Beam,
     convention: Convention,
+    scales: Mapping[str, float],
 ) -> Factor:
+    """Return k_s from M1/M2 of the means referred to the routine set's air (``scales``)."""
     routine, reduced = sets["routine"], sets["reduced"]
     if routine is None or reduced is None or checked.voltage_ratio is None:
         return _pending(symbol, "routine and reduced-bias readings and both biases")
-    ratio = routine.mean_nC / reduced.mean_nC
+    ratio = _charge_ratio(sets, scales)
     value = float(k_s_of(ratio, checked.voltage_ratio, beam, convention))
     u_rel = None
     if routine.standard_error_nC is not None and reduced.standard_error_nC is not None:
@@ -413,6 +477,8 @@ def _factor_k_s(
     source = f"n = {checked.voltage_ratio:g}, M1/M2 = {ratio:.5f}; " + recombination_method(
         beam, convention
     )
+    if scales["reduced"] != 1.0:
+        source += "; M2 referred to the routine set's air"
     return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
@@ -424,12 +490,60 @@ def _factor_entered(
     return Factor(symbol, value, FactorState.ENTERED, u_rel_pct, f"entered{unit}")
 
 
+def _charge_ratio(
+    sets: Mapping[str, SetStatistics | None], scales: Mapping[str, float]
+) -> float | None:
+    """Return M1/M2, the reduced-bias mean referred to the routine set's air; None without both."""
+    routine, reduced = sets["routine"], sets["reduced"]
+    if routine is None or reduced is None:
+        return None
+    return routine.mean_nC / (reduced.mean_nC * scales["reduced"])
+
+
+def _set_air(
+    checked: _Checked, sets: Mapping[str, SetStatistics | None], convention: Convention
+) -> tuple[dict[str, SetAir], dict[str, float], SetEnvironment | None]:
+    """Return (air of each set taken, mean scale per set, the routine set's air).
+
+    The scale refers a set's mean to the routine set's air: k_TP(set) / k_TP(routine).
+    """
+    own = checked.set_environments
+    routine_air = environment_of("routine", own, checked.temperature_C, checked.pressure_kPa)
+    routine_k_TP = set_k_TP(routine_air, convention)
+    air: dict[str, SetAir] = {}
+    scales: dict[str, float] = {}
+    for key in SET_KEYS:
+        environment = environment_of(key, own, checked.temperature_C, checked.pressure_kPa)
+        value = set_k_TP(environment, convention)
+        scales[key] = air_scale(value, routine_k_TP)
+        if sets[key] is not None and environment is not None and value is not None:
+            air[key] = SetAir(
+                environment.temperature_C,
+                environment.pressure_kPa,
+                environment.source,
+                environment.entry,
+                value,
+            )
+    return air, scales, routine_air
+
+
+@dataclass(frozen=True)
+class _AirReference:
+    """How each set's mean is referred to the routine set's air, and the routine's offset."""
+
+    scales: Mapping[str, float]
+    routine: SetEnvironment | None
+    leakage_subtracted_nC: float = 0.0
+
+
 def _factors(
     inputs: MeasurementInputs,
     checked: _Checked,
     sets: Mapping[str, SetStatistics | None],
     convention: Convention,
     beam: Beam,
+    scales: Mapping[str, float],
+    routine_air: SetEnvironment | None,
 ) -> dict[str, Factor]:
     symbols = constants(convention).symbols
     u = inputs.uncertainties
@@ -448,10 +562,10 @@ def _factors(
     )
     u_N_Dw = None if u.u_N_Dw_pct_k2 is None else u.u_N_Dw_pct_k2 / COVERAGE_FACTOR
     return {
-        "k_TP": _factor_k_TP(symbols["k_TP"], convention, checked, u),
+        "k_TP": _factor_k_TP(symbols["k_TP"], convention, routine_air, u),
         "k_h": _factor_k_h(symbols["k_h"], checked.humidity_pct),
-        "k_pol": _factor_k_pol(symbols["k_pol"], sets, convention),
-        "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention),
+        "k_pol": _factor_k_pol(symbols["k_pol"], sets, convention, scales),
+        "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention, scales),
         "k_elec": k_elec,
         "N_Dw": _factor_entered(
             symbols["N_Dw"],
@@ -479,14 +593,23 @@ def _model(
     factors: Mapping[str, Factor],
     convention: Convention,
     beam: Beam,
+    air: _AirReference,
 ) -> ModelInputs:
     u = inputs.uncertainties
 
     def estimate(key: str) -> Estimate | None:
+        """Return the set's mean referred to the routine air (the routine mean less any
+        subtracted leakage) with its standard error, scaled alike."""
         stats = sets[key]
-        return None if stats is None else Estimate(stats.mean_nC, stats.standard_error_nC)
+        if stats is None:
+            return None
+        scale = air.scales[key]
+        error = None if stats.standard_error_nC is None else stats.standard_error_nC * scale
+        offset = air.leakage_subtracted_nC if key == "routine" else 0.0
+        return Estimate(stats.mean_nC * scale - offset, error)
 
-    has_k_TP = factors["k_TP"].state != FactorState.PENDING
+    routine_air = air.routine
+    has_k_TP = factors["k_TP"].state != FactorState.PENDING and routine_air is not None
     k_elec = factors["k_elec"]
     if k_elec.u_rel_pct is None:
         k_elec_source = NOT_GIVEN
@@ -520,8 +643,8 @@ def _model(
         voltage_ratio=checked.voltage_ratio
         if factors["k_s"].state != FactorState.PENDING
         else None,
-        temperature_C=Estimate(checked.temperature_C, u.u_temperature_C) if has_k_TP else None,
-        pressure_kPa=Estimate(checked.pressure_kPa, u.u_pressure_kPa) if has_k_TP else None,
+        temperature_C=Estimate(routine_air.temperature_C, u.u_temperature_C) if has_k_TP else None,
+        pressure_kPa=Estimate(routine_air.pressure_kPa, u.u_pressure_kPa) if has_k_TP else None,
         relative_inputs=relative,
     )
 
@@ -576,6 +699,7 @@ def _session_flags(
     checked: _Checked,
     sets: Mapping[str, SetStatistics | None],
     factors: Mapping[str, Factor],
+    air: _AirReference,
 ) -> list[Flag]:
     limits_ = inputs.thresholds
     flags: list[Flag] = []
@@ -585,21 +709,38 @@ def _session_flags(
     if factors["k_pol"].value is not None:
         flags += stability.k_pol_flags(factors["k_pol"].value, factors["k_pol"].symbol, limits_)
     if factors["k_s"].value is not None:
-        reduced = sets["reduced"]
-        ratio = sets["routine"].mean_nC / reduced.mean_nC if reduced is not None else None
         flags += stability.k_s_flags(
-            factors["k_s"].value, factors["k_s"].symbol, limits_, charge_ratio=ratio
+            factors["k_s"].value,
+            factors["k_s"].symbol,
+            limits_,
+            charge_ratio=_charge_ratio(sets, air.scales),
         )
     routine = sets["routine"]
     if routine is not None and checked.leakage_nC is not None:
-        flags += stability.leakage_flags(checked.leakage_nC, routine.mean_nC, limits_)
+        flags += stability.leakage_flags(
+            checked.leakage_nC, routine.mean_nC, limits_, subtracted=inputs.subtract_leakage
+        )
+    if routine is not None and inputs.subtract_leakage and checked.leakage_nC is None:
+        flags.append(
+            Flag(
+                "leakage_not_measured",
+                "Leakage subtraction was chosen, but no leakage reading is known yet: nothing "
+                "is subtracted.",
+                "info",
+            )
+        )
     if routine is not None and checked.routine_bias_V is not None:
         flags += stability.sign_flags(checked.routine_bias_V, routine.mean_nC, limits_)
-    temperatures = list(inputs.temperature_history_C) + (
-        [checked.temperature_C] if checked.temperature_C is not None else []
+    own = list(checked.set_environments.values())
+    temperatures = (
+        list(inputs.temperature_history_C)
+        + [e.temperature_C for e in own]
+        + ([checked.temperature_C] if checked.temperature_C is not None else [])
     )
-    pressures = list(inputs.pressure_history_kPa) + (
-        [checked.pressure_kPa] if checked.pressure_kPa is not None else []
+    pressures = (
+        list(inputs.pressure_history_kPa)
+        + [e.pressure_kPa for e in own]
+        + ([checked.pressure_kPa] if checked.pressure_kPa is not None else [])
     )
     flags += stability.environment_flags(temperatures, pressures, limits_)
     flags += stability.humidity_flags(checked.humidity_pct)
@@ -626,12 +767,19 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     beam = parse_beam(inputs.beam)
     checked = _check_scalars(inputs, convention, beam)
     sets = _reading_sets(inputs)
-    factors = _factors(inputs, checked, sets, convention, beam)
+    set_air, scales, routine_air = _set_air(checked, sets, convention)
+    factors = _factors(inputs, checked, sets, convention, beam, scales, routine_air)
 
     routine = sets["routine"]
     M_raw = None if routine is None else routine.mean_nC
+    leakage_pct, subtracted_nC = _leakage(checked.leakage_nC, M_raw, inputs.subtract_leakage)
+    air = _AirReference(scales, routine_air, subtracted_nC)
     charge_product = _product(factors, CHARGE_FACTOR_KEYS)
-    M_corrected = None if M_raw is None or charge_product is None else abs(M_raw) * charge_product
+    M_corrected = (
+        None
+        if M_raw is None or charge_product is None
+        else abs(M_raw - subtracted_nC) * charge_product
+    )
     dose_product = _product(factors, ("N_Dw", "k_Q"))
     dose_Gy = None if M_corrected is None or dose_product is None else M_corrected * dose_product
     per_MU = None
@@ -644,21 +792,20 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     components: tuple[Component, ...] = ()
     u_charge = u_dose = model = None
     if routine is not None:
-        model = _model(inputs, checked, sets, factors, convention, beam)
+        model = _model(inputs, checked, sets, factors, convention, beam, air)
         components = budget(model)
         if _type_a_known(components):
             charge_parts = [c for c in components if c.in_charge]
             u_charge = combine_pct(charge_parts) if M_corrected is not None else None
             u_dose = combine_pct(components) if dose_Gy is not None else None
 
-    flags = _session_flags(inputs, checked, sets, factors)
+    flags = _session_flags(inputs, checked, sets, factors, air)
     if M_corrected is not None:
         flags += _uncertainty_flags(components, dose_known=dose_Gy is not None)
     flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
     tolerance_source = _tolerance_source(inputs.tolerance_pct)
-    charge_ratio = None
-    if routine is not None and sets["reduced"] is not None:
-        charge_ratio = routine.mean_nC / sets["reduced"].mean_nC
+    charge_ratio = _charge_ratio(sets, scales)
+    boag, boag_difference = _boag_cross_check(factors["k_s"], charge_ratio, checked, beam)
     return Evaluation(
         convention=convention,
         beam=beam,
@@ -683,4 +830,42 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         recombination_method=recombination_method(beam, convention),
         conversions=tuple(inputs.conversions),
         uncertainty_model=model,
+        set_air=MappingProxyType(set_air),
+        leakage_nC=checked.leakage_nC,
+        leakage_pct=leakage_pct,
+        leakage_subtracted=inputs.subtract_leakage and leakage_pct is not None,
+        k_s_boag=boag,
+        k_s_boag_difference_pct=boag_difference,
     )
+
+
+def _leakage(
+    leakage_nC: float | None, routine_mean_nC: float | None, subtract: bool
+) -> tuple[float | None, float]:
+    """Return (leakage in % of the routine mean, signed; the charge subtracted from it, nC).
+
+    Subtracted only when the operator chose it; otherwise 0 is subtracted and the leakage is
+    only reported.
+    """
+    if leakage_nC is None or routine_mean_nC is None:
+        return None, 0.0
+    share_pct = 100.0 * leakage_nC / routine_mean_nC
+    return share_pct, leakage_nC if subtract else 0.0
+
+
+def _boag_cross_check(
+    k_s: Factor, charge_ratio: float | None, checked: _Checked, beam: Beam
+) -> tuple[float | None, float | None]:
+    """Return (k_s by Boag's pulsed-beam theory, the protocol's k_s relative to it in %).
+
+    Shown beside the protocol's k_s for pulsed and pulsed-scanned beams: the tabulated
+    quadratics are fits to this theory, so a difference well above 0.1 % deserves a look.
+    None for continuous beams, a pending k_s, or a ratio the theory cannot reach.
+    """
+    if beam is Beam.CONTINUOUS or k_s.value is None or charge_ratio is None:
+        return None, None
+    try:
+        boag = float(k_s_boag(charge_ratio, checked.voltage_ratio))
+    except InputError:
+        return None, None
+    return boag, 100.0 * (k_s.value / boag - 1.0)

@@ -275,17 +275,27 @@ def k_s_flags(
     return flags
 
 
-def leakage_flags(leakage_nC: float, routine_mean_nC: float, limits: Thresholds) -> list[Flag]:
-    """Return a flag when the leakage charge exceeds its limit as a share of the reading."""
+def leakage_flags(
+    leakage_nC: float, routine_mean_nC: float, limits: Thresholds, subtracted: bool = False
+) -> list[Flag]:
+    """Return a flag when the leakage charge exceeds its limit as a share of the reading.
+
+    ``subtracted``: the operator chose to subtract the leakage (the words say which).
+    """
     share_pct = 100.0 * abs(leakage_nC) / abs(routine_mean_nC)
     if share_pct <= limits.leakage_pct:
         return []
+    treated = (
+        "it is subtracted from the routine reading, as chosen"
+        if subtracted
+        else "the leakage is not subtracted"
+    )
     return [
         Flag(
             "leakage_high",
             f"Leakage of {leakage_nC:g} nC is {share_pct:.3f} % of the routine reading, above "
             f"{limits.leakage_pct:g} %. Check the cable and connectors and let the system "
-            "settle; the leakage is not subtracted.",
+            f"settle; {treated}.",
         )
     ]
 

@@ -203,18 +203,50 @@ class ConsoleApp(App[int]):
         return SetupScreen(self.call_daemon, self.setup_defaults)
 
 
+def closing_words(
+    snapshot: Mapping[str, Any] | None,
+    socket_path: str,
+    *,
+    demo_database: str | Path | None = None,
+) -> str:
+    """Return what the console says as it closes: what goes on, where, and how to come back.
+
+    With ``demo_database`` the daemon stops with the console (the demo), so the words say where
+    the session is kept and how to resume it instead.
+    """
+    session = (snapshot or {}).get("session")
+    is_open = session is not None and snapshot_view.screen_for(snapshot or {}) == "measure"
+    if demo_database is not None:
+        if not is_open:
+            return f"Demo closed. Its sessions are kept in {demo_database}."
+        return (
+            f"Demo closed with session {session['id']} still open; it is kept in "
+            f"{demo_database}. `chargebook demo` resumes it; "
+            f"`chargebook sessions --db {demo_database}` lists it."
+        )
+    again = f"Re-attach with: chargebook console --socket {socket_path}"
+    if is_open:
+        return (
+            f"Console closed. Session {session['id']} stays open in the daemon at "
+            f"{socket_path}: the measurement goes on. {again}"
+        )
+    return f"Console closed. The daemon at {socket_path} goes on running. {again}"
+
+
 def run_console(
     socket_path: str | Path,
     *,
     operator: str | None = None,
     setup_defaults: Mapping[str, Any] | None = None,
+    demo_database: str | Path | None = None,
 ) -> int:
     """Run the console attached to the daemon at ``socket_path``; return the exit status (0).
 
     ``setup_defaults`` pre-fills the session form (keys of ``session_meta`` plus
     ``temperature_C``, ``pressure_entered`` and ``pressure_unit``). Closing the console leaves
-    the daemon and any measurement running.
+    the daemon and any measurement running, and says so (:func:`closing_words`).
     """
     app = ConsoleApp(socket_path, operator=operator, setup_defaults=setup_defaults)
     result = app.run()
+    print(closing_words(app.snapshot, str(socket_path), demo_database=demo_database))
     return 0 if result is None else int(result)

@@ -10,6 +10,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from chargebook.corrections import limits, units
+from chargebook.corrections.errors import InputError, describe_value
 from textual.validation import ValidationResult, Validator
 
 #: A check takes the text as typed and raises ValueError (InputError) naming the field if wrong.
@@ -47,10 +48,26 @@ def required_text(field: str) -> Check:
 
     def check(value: str) -> object:
         if not value.strip():
-            raise ValueError(f"{field} is empty: enter a value")
+            raise InputError(field, "", "", "is empty")
         return value.strip()
 
     return check
+
+
+def operator_words(error: ValueError, label: str) -> str:
+    """Return what is wrong with an entry in the operator's words, named by its label.
+
+    The daemon's messages name its parameters (``temperature_C = 80 ...``); the form names the
+    entry as the operator sees it ("Air temperature °C: 80 is outside 10 to 40 °C").
+    """
+    if not isinstance(error, InputError):
+        return f"{label}: {error}"
+    if error.value in ("", None):
+        return f"{label}: enter a value" + (f" ({error.allowed})" if error.allowed else "")
+    shown = describe_value(error.value)
+    if error.problem is None:
+        return f"{label}: {shown} is outside {error.allowed}"
+    return f"{label}: {shown} {error.problem} (allowed: {error.allowed})"
 
 
 def pressure_in(unit_of: Callable[[], str]) -> Check:
@@ -76,16 +93,18 @@ HUMIDITY = optional(in_range("humidity_pct", limits.HUMIDITY_PCT))
 
 
 class CheckValidator(Validator):
-    """A Textual validator that runs a :data:`Check` and reports its message on failure."""
+    """A Textual validator that runs a :data:`Check` and says what is wrong in the operator's
+    words, naming the entry by ``label``."""
 
-    def __init__(self, check: Check) -> None:
+    def __init__(self, check: Check, label: str) -> None:
         super().__init__()
         self.check = check
+        self.label = label
 
     def validate(self, value: str) -> ValidationResult:
-        """Return success, or a failure carrying the message that names the field and range."""
+        """Return success, or a failure carrying the message that names the entry and range."""
         try:
             self.check(value)
         except ValueError as error:
-            return self.failure(str(error))
+            return self.failure(operator_words(error, self.label))
         return self.success()

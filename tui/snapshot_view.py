@@ -88,8 +88,19 @@ def steps_done(snapshot: Snapshot) -> tuple[int, int]:
     return done, len(plan)
 
 
-def prompt_text(snapshot: Snapshot) -> str:
-    """Return what the operator must do now, in the daemon's plain words."""
+#: What replaces every instruction while the console cannot hear from the daemon: the last
+#: instruction it showed may no longer be true, and a beam given now may go unrecorded.
+NOT_CONNECTED_PROMPT = "NOT CONNECTED: do not deliver beam until the console is connected again."
+
+
+def prompt_text(snapshot: Snapshot, connected: bool = True) -> str:
+    """Return what the operator must do now, in the daemon's plain words.
+
+    While the console is not connected the daemon's last instruction is not shown: the
+    operator is told not to deliver beam (:data:`NOT_CONNECTED_PROMPT`).
+    """
+    if not connected:
+        return NOT_CONNECTED_PROMPT
     prompt = snapshot.get("prompt") or {}
     return str(prompt.get("text") or text.state(str(snapshot.get("state", "idle"))))
 
@@ -105,7 +116,8 @@ def live_text(snapshot: Snapshot) -> str:
         parts.append(text.charge_nC(live["charge_nC"]))
     if live.get("elapsed_s") is not None:
         parts.append(f"{live['elapsed_s']:.1f} s")
-    label = f"Reading {live['seq']}: " if live.get("seq") is not None else ""
+    number = live.get("label") or live.get("seq")
+    label = f"Reading {number}: " if number is not None else ""
     return label + " · ".join(parts)
 
 
@@ -238,7 +250,42 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
         ("Dose per MU", text.number(results.get("dose_per_MU_cGy"), 4, "cGy/MU")),
         ("Deviation", deviation_text(snapshot)),
         ("Uncertainty u_c", uncertainty),
+        *check_rows(snapshot),
     ]
+
+
+def check_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
+    """Return (label, value) rows for what the daemon sent beside the results: the leakage as
+    a share of the routine reading, Boag's k_s cross-check, and the air each set was corrected
+    with (one row when every set shares one entry). Rows whose values were not sent are left out.
+    """
+    results = snapshot.get("results") or {}
+    rows = []
+    if results.get("leakage_pct") is not None:
+        treated = "subtracted" if results.get("leakage_subtracted") else "not subtracted"
+        rows.append(("Leakage", f"{text.percent(results['leakage_pct'], 3)} of M, {treated}"))
+    if results.get("k_s_boag") is not None:
+        symbol = (results.get("symbols") or {}).get("k_s", "k_s")
+        difference = text.deviation_pct(results.get("k_s_boag_difference_pct"))
+        rows.append((f"{symbol} by Boag", f"{text.number(results['k_s_boag'], 4)} ({difference})"))
+    air = results.get("set_air") or {}
+    entries = snapshot.get("environment_entries") or []
+    if air and len({str(item.get("entry")) for item in air.values()}) == 1:
+        return [*rows, ("Air, all sets", _air_text(next(iter(air.values())), entries))]
+    return rows + [(f"Air, {key}", _air_text(item, entries)) for key, item in air.items()]
+
+
+def _air_text(air: Mapping[str, Any], entries: Sequence[Mapping[str, Any]]) -> str:
+    """Return a set's air in words: T, P, and which entry it is with the time it was recorded."""
+    position = air.get("entry")
+    stamp = ""
+    if isinstance(position, int) and 0 < position <= len(entries):
+        stamp = ", " + str(entries[position - 1].get("recorded_at", ""))[11:19] + " UTC"
+    where = f"entry {position}{stamp}" if position is not None else str(air.get("source", ""))
+    return (
+        f"{text.number(air.get('temperature_C'), 2, '°C')}, "
+        f"{text.number(air.get('pressure_kPa'), 3, 'kPa')} ({where})"
+    )
 
 
 def session_flags(snapshot: Snapshot, shown_set: SetInfo | None = None) -> list[dict[str, Any]]:

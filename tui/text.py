@@ -9,8 +9,10 @@ colour alone.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from datetime import UTC, datetime
 from typing import Any
 
+from chargebook.acquire import protocol
 from rich.text import Text
 
 PENDING = "pending"
@@ -19,7 +21,7 @@ MINUS = "\u2212"
 NBSP = "\u00a0"
 
 #: Marker put before a flag's message, by severity: readable without colour.
-SEVERITY_MARKERS: dict[str, str] = {"error": "!!", "warning": "!", "info": "i"}
+SEVERITY_MARKERS = protocol.SEVERITY_MARKERS
 OK_MARKER = "ok"
 
 PURPOSE_WORDS: dict[str, str] = {
@@ -75,6 +77,24 @@ def number(value: float | None, digits: int, unit: str = "") -> str:
         return PENDING
     text = signed(value, digits)
     return f"{text}{NBSP}{unit}" if unit else text
+
+
+def local_time(iso: str | None) -> str:
+    """Return a stored UTC time as local time with its offset: "2026-12-02 07:38:17 +01:00".
+
+    Text that is not an ISO 8601 time is returned as it is (never an error on screen).
+    """
+    if not iso:
+        return ""
+    try:
+        moment = datetime.fromisoformat(iso)
+    except ValueError:
+        return iso
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    local = moment.astimezone()
+    offset = local.strftime("%z")
+    return f"{local:%Y-%m-%d %H:%M:%S} {offset[:3]}:{offset[3:]}"
 
 
 def charge_nC(value: float | None) -> str:
@@ -138,7 +158,7 @@ def flag(flag_info: Mapping[str, Any]) -> str:
 
 def flags_or_ok(flags: Iterable[Mapping[str, Any]], ok_text: str = "no flags") -> list[str]:
     """Return one line per flag, or a single "ok" line when there are none."""
-    lines = [flag(item) for item in flags]
+    lines = [flag(item) for item in protocol.by_severity(list(flags))]
     return lines or [f"{OK_MARKER} {ok_text}"]
 
 
@@ -161,3 +181,36 @@ def plain(value: object) -> Text:
 def plain_row(values: Iterable[object]) -> list[Text]:
     """Return a table row whose cells show exactly what they hold."""
     return [plain(value) for value in values]
+
+
+#: Full scale of the readings' bar line: ± this percentage of the set's mean.
+BAR_SCALE_PCT = 0.1
+_BARS = "▁▂▃▄▅▆▇█"
+
+
+def deviation_bars(charges_nC: Iterable[float], mean_nC: float | None) -> str:
+    """Return one bar per reading for its deviation from ``mean_nC`` on a stated scale.
+
+    The lowest bar is −0.1 % of the mean or below, the highest +0.1 % or above (▼ and ▲ mark a
+    reading beyond the scale), so two readings 0.05 % apart draw bars four steps apart, never a
+    full and an empty bar. The scale follows the sign of the charge: higher means larger in
+    magnitude. Returns "" without a mean.
+    """
+    if not mean_nC:
+        return ""
+    bars = []
+    for charge in charges_nC:
+        deviation_pct = 100.0 * (charge / mean_nC - 1.0)
+        if deviation_pct > BAR_SCALE_PCT:
+            bars.append("▲")
+        elif deviation_pct < -BAR_SCALE_PCT:
+            bars.append("▼")
+        else:
+            level = (deviation_pct + BAR_SCALE_PCT) / (2 * BAR_SCALE_PCT) * (len(_BARS) - 1)
+            bars.append(_BARS[round(level)])
+    return " ".join(bars)
+
+
+def bar_scale_caption() -> str:
+    """Return the caption that states the bar line's scale (▲ and ▼: beyond it)."""
+    return f"{_BARS[0]} −{BAR_SCALE_PCT:g} % to {_BARS[-1]} +{BAR_SCALE_PCT:g} % of the mean"

@@ -28,7 +28,12 @@ SET_TITLES = {"routine": "routine", "opposite": "opposite polarity", "reduced": 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the worksheet path and the --json switch."""
-    parser.add_argument("worksheet", metavar="WORKSHEET", help="a .toml or .json worksheet")
+    parser.add_argument(
+        "worksheet",
+        metavar="WORKSHEET",
+        help="a .toml or .json worksheet, or - to read one from stdin (TOML, or JSON when it "
+        "starts with {)",
+    )
     parser.add_argument("--json", action="store_true", help="print one JSON object instead")
 
 
@@ -147,6 +152,9 @@ def _results(evaluation: Evaluation) -> list[str]:
                 f"{evaluation.tolerance_source}): {verdict}",
             ]
         )
+    from chargebook.acquire.summary_text import cross_check_rows
+
+    rows += [[label, text] for label, text in cross_check_rows(evaluation.to_dict())]
     return ["", "Results", *_table(rows)]
 
 
@@ -191,7 +199,12 @@ def _flags(evaluation: Evaluation) -> list[str]:
     lines = ["", "Flags"]
     if not evaluation.flags:
         return [*lines, "  none"]
-    return lines + [f"  [{flag.severity}] {flag.code}: {flag.message}" for flag in evaluation.flags]
+    from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
+
+    return lines + [
+        f"  {SEVERITY_MARKERS.get(flag.severity, '!')} {flag.message} [{flag.code}]"
+        for flag in by_severity(evaluation.flags)
+    ]
 
 
 def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
@@ -234,17 +247,37 @@ def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
     return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
 
 
+def stdin_document(text: str) -> object:
+    """Return the worksheet document read from stdin: JSON when it starts with ``{``, else TOML."""
+    import json
+    import tomllib
+
+    from chargebook.corrections.errors import InputError
+
+    kind = "JSON" if text.lstrip().startswith("{") else "TOML"
+    try:
+        return json.loads(text) if kind == "JSON" else tomllib.loads(text)
+    except ValueError as error:  # JSONDecodeError and TOMLDecodeError are ValueErrors
+        raise InputError(
+            "worksheet", "<stdin>", f"valid {kind}", f"is not valid {kind}: {error}"
+        ) from None
+
+
 def run(args: argparse.Namespace) -> int:
     """Evaluate the worksheet and print the report; return 0, or 2 for invalid input."""
     from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK
-    from chargebook.acquire.worksheet import read_worksheet, worksheet_key
+    from chargebook.acquire.worksheet import parse_worksheet, read_worksheet, worksheet_key
     from chargebook.corrections.errors import InputError
     from chargebook.corrections.evaluate import evaluate
 
+    source = "<stdin>" if args.worksheet == "-" else args.worksheet
     try:
-        worksheet = read_worksheet(args.worksheet)
+        if args.worksheet == "-":
+            worksheet = parse_worksheet(stdin_document(sys.stdin.read()), "<stdin>")
+        else:
+            worksheet = read_worksheet(args.worksheet)
     except InputError as error:
-        print(f"chargebook correct: invalid input in {args.worksheet}: {error}", file=sys.stderr)
+        print(f"chargebook correct: invalid input in {source}: {error}", file=sys.stderr)
         return EXIT_INVALID_INPUT
     try:
         evaluation = evaluate(worksheet.inputs)
@@ -252,7 +285,7 @@ def run(args: argparse.Namespace) -> int:
         key = worksheet_key(error.field)
         where = f" (worksheet key {key})" if key and key != error.field else ""
         print(
-            f"chargebook correct: invalid input in {args.worksheet}: {error}{where}",
+            f"chargebook correct: invalid input in {source}: {error}{where}",
             file=sys.stderr,
         )
         return EXIT_INVALID_INPUT

@@ -1,4 +1,4 @@
-"""`chargebook export SESSION --format csv|json|html`: one recorded session, for keeping."""
+"""`chargebook export SESSION [--format json|csv|html]`: one recorded session, for keeping."""
 
 from __future__ import annotations
 
@@ -17,7 +17,9 @@ FORMATS = ("csv", "json", "html")
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_session_argument(parser)
-    parser.add_argument("--format", choices=FORMATS, required=True, help="the export format")
+    parser.add_argument(
+        "--format", choices=FORMATS, default="json", help="the export format (default: json)"
+    )
     parser.add_argument(
         "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
     )
@@ -37,6 +39,13 @@ def _export(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.report_data import load_record
 
     record = load_record(store, args.session)
+    warning = record.integrity_warning()
+    if warning is not None:  # in every format on stderr; json and html carry it too
+        import sys
+
+        from chargebook.acquire.report_text import printable
+
+        print(f"chargebook: {printable(warning)}", file=sys.stderr)
     if args.format == "csv":
         text = export.to_csv(record)
     elif args.format == "json":

@@ -7,6 +7,8 @@ from pathlib import Path
 
 from chargebook.acquire.report_cli import add_db_argument, run_reader
 
+FORMATS = ("text", "json", "html")
+
 HELP = (
     "list dose per MU of one beam by session with its deviation from a baseline and the "
     "tolerance band, and plot it"
@@ -27,8 +29,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="include open, interrupted and aborted sessions and replays",
     )
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
-    parser.add_argument("--html", metavar="FILE", type=Path, help="also write an HTML report")
+    parser.add_argument(
+        "--format",
+        choices=FORMATS,
+        default="text",
+        help="text (a table and a plot, the default), json, or html (a printable report)",
+    )
+    parser.add_argument("--json", action="store_true", help="the same as --format json")
+    parser.add_argument(
+        "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
+    )
+    # Before -o existed: `--html FILE` is `--format html -o FILE`, kept for one release.
+    parser.add_argument("--html", metavar="FILE", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--no-plot", action="store_true", help="leave out the terminal plot")
     add_db_argument(parser)
 
@@ -39,8 +51,9 @@ def run(args: argparse.Namespace) -> int:
 
 def _history(store, args: argparse.Namespace) -> int:
     import json
+    import sys
 
-    from chargebook.acquire.cli import CAUTION, EXIT_OK
+    from chargebook.acquire.cli import CAUTION
     from chargebook.acquire.export import chargebook_version, generated_at
     from chargebook.acquire.history import history_table, load_history
     from chargebook.acquire.report_cli import write_output
@@ -50,24 +63,26 @@ def _history(store, args: argparse.Namespace) -> int:
 
     history = load_history(store, args.beam, args.machine, args.baseline, args.all)
     table = history_table(history)
-    if args.html is not None:
-        stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
-        status = write_output(history_html(history, table, stamp), args.html)
-        if status != EXIT_OK:
-            return status
+    output_format, output = args.format, args.output
     if args.json:
-        print(json.dumps(plain(history), indent=2, ensure_ascii=False, allow_nan=False))
-        return EXIT_OK
-    print(table_text(table))
+        output_format = "json"
+    if args.html is not None:
+        print("chargebook history: --html FILE is now --format html -o FILE", file=sys.stderr)
+        output_format, output = "html", args.html
+    if output_format == "html":
+        stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
+        return write_output(history_html(history, table, stamp), output)
+    if output_format == "json":
+        text = json.dumps(plain(history), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+        return write_output(text, output)
+    parts = [table_text(table)]
     if history.points and history.tolerance_pct is not None and not args.no_plot:
-        print()
-        print(
+        parts.append(
             deviation_plot(
                 [p.deviation_pct for p in history.points],
                 history.tolerance_pct,
                 [str(p.session_id) for p in history.points],
             )
         )
-    print()
-    print(CAUTION)
-    return EXIT_OK
+    parts.append(CAUTION)
+    return write_output("\n\n".join(parts) + "\n", output)

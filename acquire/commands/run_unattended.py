@@ -6,6 +6,9 @@ import argparse
 
 from chargebook.acquire.commands.serve import add_instrument_arguments
 
+#: The units the air pressure may be given in, as the worksheet and the console's form take them.
+PRESSURE_OPTION_UNITS = ("kPa", "hPa", "mmHg")
+
 HELP = "take a whole plan through unattended (automatic operator) and print the session result"
 
 
@@ -25,7 +28,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "given, when the invented demo metadata is used)",
     )
     parser.add_argument("--temperature-C", type=float, help="air temperature to enter, °C")
-    parser.add_argument("--pressure-kPa", type=float, help="air pressure to enter, kPa")
+    pressure = parser.add_mutually_exclusive_group()
+    for unit in PRESSURE_OPTION_UNITS:
+        pressure.add_argument(
+            f"--pressure-{unit}",
+            type=float,
+            dest=f"pressure_{unit}",
+            help=f"air pressure to enter, {unit} (converted once to kPa, and recorded)",
+        )
 
 
 def load_metadata(path: str) -> dict:
@@ -133,11 +143,16 @@ def environment_source(args: argparse.Namespace):
     from chargebook.acquire.operator_auto import Environment, environment_from_bench
     from chargebook.corrections.errors import InputError
 
-    if args.temperature_C is not None and args.pressure_kPa is not None:
-        fixed = Environment(args.temperature_C, args.pressure_kPa, "entered for the run")
+    given = [(getattr(args, f"pressure_{unit}"), unit) for unit in PRESSURE_OPTION_UNITS]
+    pressure, unit = next(((value, unit) for value, unit in given if value is not None), (None, ""))
+    if args.temperature_C is not None and pressure is not None:
+        fixed = Environment(args.temperature_C, pressure, "entered for the run", unit)
         return lambda: fixed
     if args.bench_control:
         return environment_from_bench(args.bench_control)
     raise InputError(
-        "--temperature-C/--pressure-kPa", None, "both, or --bench-control", "are missing"
+        "--temperature-C/--pressure-kPa (or --pressure-hPa, --pressure-mmHg)",
+        None,
+        "both, or --bench-control",
+        "are missing",
     )

@@ -23,17 +23,26 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _show(store, args: argparse.Namespace) -> int:
+    import shutil
+    import textwrap
+
     from chargebook.acquire.cli import CAUTION, EXIT_OK
     from chargebook.acquire.export import to_json
     from chargebook.acquire.report_data import load_record
     from chargebook.acquire.report_sections import all_sections
-    from chargebook.acquire.report_text import tables_text
+    from chargebook.acquire.report_text import printable, tables_text
 
     record = load_record(store, args.session)
     if args.json:
         print(to_json(record), end="")
     else:
-        print(tables_text(all_sections(record)))
+        # Wrapped to the terminal (or $COLUMNS); piped to a file or grep, lines stay whole.
+        columns = shutil.get_terminal_size((0, 0)).columns
+        warning = record.integrity_warning()
+        if warning is not None:
+            shown = printable(warning)
+            print((textwrap.fill(shown, columns) if columns else shown) + "\n")
+        print(tables_text(all_sections(record), width=columns or None))
         print()
-        print(CAUTION)
+        print(textwrap.fill(CAUTION, columns) if columns else CAUTION)
     return EXIT_OK

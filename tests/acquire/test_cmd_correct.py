@@ -9,7 +9,7 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.cli import CAUTION
+from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 GOOD = ["hcc-la1-6mv.toml", "hcc-la2-10fff.toml", "hcc-co60.json"]
@@ -204,3 +204,75 @@ def test_missing_file_exits_2(tmp_path: Path) -> None:
     done = correct(tmp_path / "absent.toml")
     assert done.returncode == 2
     assert "absent.toml" in done.stderr
+
+
+def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypatch) -> None:
+    import io
+
+    path = EXAMPLES / "hcc-la1-6mv.toml"
+    assert main(["correct", str(path), "--json"]) == EXIT_OK
+    from_file = json.loads(capsys.readouterr().out)
+    monkeypatch.setattr("sys.stdin", io.StringIO(path.read_text(encoding="utf-8")))
+    assert main(["correct", "-", "--json"]) == EXIT_OK
+    from_stdin = json.loads(capsys.readouterr().out)
+    assert (
+        from_stdin["dose_Gy"] == from_file["dose_Gy"] and from_stdin["flags"] == from_file["flags"]
+    )
+
+    monkeypatch.setattr("sys.stdin", io.StringIO('{"convention": "trs398", '))
+    assert main(["correct", "-"]) == EXIT_INVALID_INPUT
+    assert "invalid input in <stdin>: worksheet = '<stdin>' is not valid JSON" in (
+        capsys.readouterr().err
+    )
+
+
+def test_flags_are_listed_worst_first_with_the_markers_the_console_uses(
+    tmp_path: Path, capsys
+) -> None:
+    text = (EXAMPLES / "hcc-la1-6mv.toml").read_text(encoding="utf-8")
+    # Reduced-bias readings above the routine ones (k_s below 1: an error) and no k_elec
+    # entered (stated for the record: info).
+    text = text.replace("reduced_nC = [14.570, 14.567, 14.569]", "reduced_nC = [14.898, 14.899]")
+    text = "\n".join(line for line in text.splitlines() if not line.startswith("k_elec ="))
+    worksheet = tmp_path / "flags.toml"
+    worksheet.write_text(text, encoding="utf-8")
+    assert main(["correct", str(worksheet)]) == EXIT_OK
+    out = capsys.readouterr().out
+    lines = out[out.index("\nFlags\n") :].splitlines()[2:]
+    flag_lines = [line for line in lines if line.startswith("  ")]
+    markers = [line.split()[0] for line in flag_lines]
+    assert markers[0] == "!!" and "[k_s_below_one]" in flag_lines[0]
+    assert "i" in markers and any("[k_elec_assumed]" in line for line in flag_lines)
+    assert markers == sorted(markers, key=["!!", "!", "i"].index)
+
+
+def test_correct_shows_the_air_of_each_set_and_forms_k_pol_from_corrected_means(
+    tmp_path: Path,
+) -> None:
+    # A worksheet with an environment per set: T rises 0.4 °C between the routine and the
+    # opposite set. Check: TRS-398 (2000) k_TP = ((273.2 + T)/(273.2 + 20))·(101.325/P) and
+    # k_pol = (|M+| + |M−|)/(2|M|), each mean corrected with its own set's air.
+    sheet = tmp_path / "per-set.toml"
+    sheet.write_text(
+        'convention = "trs398"\nbeam = "pulsed"\n'
+        "[environment]\ntemperature_C = 22.2\npressure_kPa = 100.6\n"
+        "[environment.routine]\ntemperature_C = 21.8\npressure_kPa = 100.6\n"
+        "[bias]\nroutine_V = 300\nreduced_V = 100\n"
+        "[readings]\nroutine_nC = [14.747, 14.751, 14.749]\n"
+        "opposite_nC = [-14.775, -14.777, -14.774]\nreduced_nC = [14.570, 14.567, 14.569]\n",
+        encoding="utf-8",
+    )
+    result = correct(sheet)
+    assert result.returncode == 0, result.stderr
+    assert "air, routine            21.80 °C, 100.600 kPa" in result.stdout
+    assert "(worksheet [environment.routine])" in result.stdout
+    data = json.loads(correct(sheet, "--json").stdout)
+
+    def k_TP(T: float, P: float) -> float:
+        return ((273.2 + T) / (273.2 + 20.0)) * (101.325 / P)
+
+    M = 14.749 * k_TP(21.8, 100.6)
+    M_opposite = (-14.775 - 14.777 - 14.774) / 3 * k_TP(22.2, 100.6)
+    assert data["k_pol"] == pytest.approx((abs(M) + abs(M_opposite)) / (2 * abs(M)), rel=1e-9)
+    assert data["k_s_boag"] is not None and "k_s cross-check" in result.stdout
+    assert "leakage                 not measured" in result.stdout

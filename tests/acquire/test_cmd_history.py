@@ -35,7 +35,8 @@ def test_table_and_plot(station: Path, capsys) -> None:
     rows = [line.split() for line in out.splitlines() if line[:1].isdigit()]
     assert [row[0] for row in rows] == ["1", "2", "3"]
     assert [row[8] for row in rows] == ["+0.00", "+0.40", "-1.50"]
-    assert [row[-1] for row in rows] == ["yes", "yes", "NO"]  # ±1 %, the example's "annual"
+    assert [row[-2] for row in rows] == ["yes", "yes", "NO"]  # ±1 %, the example's "annual"
+    assert [row[-1] for row in rows] == ["none", "none", "outside_tolerance"]  # as `show` flags
     plot = [line for line in out.splitlines() if " % |" in line]
     assert sum(line.count("X") for line in plot) == 1
     assert sum(line.count("o") for line in plot) == 2
@@ -43,15 +44,42 @@ def test_table_and_plot(station: Path, capsys) -> None:
 
 
 def test_json_and_html(station: Path, tmp_path: Path, capsys) -> None:
-    page = tmp_path / "history.html"
-    argv = ["history", "--beam", "6 MV", "--baseline", "first", "--json", "--html", str(page)]
-    assert main([*argv, "--db", str(station)]) == EXIT_OK
+    argv = ["history", "--beam", "6 MV", "--baseline", "first", "--db", str(station)]
+    assert main([*argv, "--format", "json"]) == EXIT_OK
     data = json.loads(capsys.readouterr().out)
     deviations = [p["deviation_pct"] for p in data["points"]]
     assert deviations == pytest.approx([100.0 * (s - 1.0) for s in SCALES], abs=1e-9)
     assert data["baseline"] == "first"
+    assert main([*argv, "--json"]) == EXIT_OK  # the shorthand every listing command has
+    assert json.loads(capsys.readouterr().out) == data
+
+    page = tmp_path / "history.html"
+    assert main([*argv, "--format", "html", "-o", str(page)]) == EXIT_OK
+    assert capsys.readouterr().err.strip() == f"wrote {page}"
     text = page.read_text(encoding="utf-8")
     assert text.count("<circle") == 3 and CAUTION in text
+
+
+def test_every_format_goes_to_the_output_file_alone(station: Path, tmp_path: Path, capsys) -> None:
+    argv = ["history", "--beam", "6 MV", "--db", str(station)]
+    for output_format in ("text", "json"):
+        target = tmp_path / f"history.{output_format}"
+        assert main([*argv, "--format", output_format, "-o", str(target)]) == EXIT_OK
+        assert capsys.readouterr().out == ""
+        assert (
+            target.read_text(encoding="utf-8")
+            .rstrip()
+            .endswith(CAUTION if output_format == "text" else "}")
+        )
+
+
+def test_the_old_html_option_still_writes_the_report_and_says_what_replaces_it(
+    station: Path, tmp_path: Path, capsys
+) -> None:
+    page = tmp_path / "old.html"
+    assert main(["history", "--beam", "6 MV", "--db", str(station), "--html", str(page)]) == 0
+    assert "--format html -o FILE" in capsys.readouterr().err
+    assert "<circle" in page.read_text(encoding="utf-8")
 
 
 def test_bad_baseline_is_refused_in_words(station: Path, capsys) -> None:

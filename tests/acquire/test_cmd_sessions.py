@@ -12,7 +12,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK, main
+from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
 from chargebook.acquire.store import Store
 from recorded_session import record_example_session
 
@@ -60,9 +60,24 @@ def test_default_database_follows_xdg_data_home(tmp_path: Path, monkeypatch, cap
 
 def test_a_missing_database_is_named_and_not_created(tmp_path: Path, capsys) -> None:
     missing = tmp_path / "nowhere.sqlite"
-    assert main(["sessions", "--db", str(missing)]) == EXIT_FAILURE
-    assert f"no station database at {missing}" in capsys.readouterr().err
+    # A file the user named that does not exist is unusable input: 2, as `correct` gives for a
+    # missing worksheet and `show` for a missing session.
+    for argv in (["sessions"], ["show", "1"], ["export", "1"], ["history", "--beam", "6 MV"]):
+        assert main([*argv, "--db", str(missing)]) == EXIT_INVALID_INPUT, argv
+        assert f"no station database at {missing}" in capsys.readouterr().err
     assert not missing.exists()
+
+
+def test_a_missing_station_database_points_to_the_demo_database(
+    tmp_path: Path, monkeypatch, capsys
+) -> None:
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path))
+    with Store.open(tmp_path / "chargebook" / "demo.sqlite") as store:
+        record_example_session(store)
+    assert main(["sessions"]) == EXIT_INVALID_INPUT
+    err = capsys.readouterr().err
+    assert f"no station database at {tmp_path / 'chargebook' / 'station.sqlite'}" in err
+    assert f"--db {tmp_path / 'chargebook' / 'demo.sqlite'}" in err
 
 
 def test_reading_while_the_daemon_writes_changes_nothing(station: Path, capsys) -> None:

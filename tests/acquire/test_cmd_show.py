@@ -93,3 +93,21 @@ def test_terminal_escapes_in_stored_text_are_shown_not_obeyed(tmp_path: Path, ca
     assert "LA\\x1b[2J\\x9b1" in out
     assert main(["sessions", "--db", str(path)]) == EXIT_OK
     assert "\x1b" not in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("columns", [80, 120])
+def test_text_fits_the_terminal_width_and_loses_no_word(
+    station: Path, columns: int, monkeypatch, capsys
+) -> None:
+    monkeypatch.setenv("COLUMNS", str(columns))  # what shutil.get_terminal_size reads first
+    assert main(["show", "1", "--db", str(station)]) == EXIT_OK
+    wrapped = capsys.readouterr().out
+    assert max(len(line) for line in wrapped.splitlines()) <= columns
+
+    monkeypatch.setenv("COLUMNS", "1000")
+    assert main(["show", "1", "--db", str(station)]) == EXIT_OK
+    wide = capsys.readouterr().out
+    assert max(len(line) for line in wide.splitlines()) > columns  # there was something to wrap
+    # Every word is still printed (a table with too many columns becomes one block per row, so
+    # its headers repeat and its rules of dashes go).
+    assert {word for word in wide.split() if set(word) != {"-"}} <= set(wrapped.split())

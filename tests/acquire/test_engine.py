@@ -203,6 +203,35 @@ def test_pause_drops_the_reading_in_progress_and_resume_arms_again():
     assert "reading_dropped" in kinds
 
 
+def test_a_reading_dropped_by_a_pause_is_said_until_a_reading_is_recorded():
+    engine, clock = make_engine()
+    started(engine)
+    engine.manual_done()
+    engine.arm()
+    engine.on_sample(clock.now + 0.1, 0.0)
+    engine.on_sample(clock.now + 0.2, 5.0)  # the beam is on: charge rising
+    engine.pause()
+    notice = engine.snapshot()["notice"]
+    assert notice is not None and "+5.0000 nC so far" in notice
+    assert "discarded because the session was paused" in notice
+    assert "Deliver that beam again" in notice
+    engine.resume()
+    assert engine.snapshot()["notice"] == notice  # still said after resuming
+    deliver(engine, clock, 20.1)  # the settling reading, delivered again
+    assert engine.snapshot()["notice"] is None
+
+
+def test_a_pause_before_any_beam_says_no_beam_was_seen():
+    engine, _clock = make_engine()
+    started(engine)
+    engine.manual_done()
+    engine.arm()
+    engine.pause()
+    assert engine.snapshot()["notice"] == (
+        "The armed reading was cancelled because the session was paused; no beam had been seen."
+    )
+
+
 def test_stop_and_abort_are_distinct_and_keep_everything():
     engine, clock = make_engine()
     session_id = started(engine)

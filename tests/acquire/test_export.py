@@ -82,8 +82,12 @@ def test_csv_marks_which_readings_count(reader: Store) -> None:
     superseded = [r for r in rows if r["set_status"] == "superseded"]
     assert len(superseded) == 2 and all(r["used"] == "0" for r in superseded)
     used = [r for r in rows if r["used"] == "1"]
-    # leakage 1 + routine 5 + opposite 3 + reduced 3 (the example worksheet's counts)
-    assert len(used) == 12
+    # routine 5 + opposite 3 + reduced 3 (the example worksheet's counts): the leakage reading
+    # is read for the leakage check, not for the dose.
+    assert len(used) == 11 and {r["role"] for r in used} == {"dose"}
+    assert [r["role"] for r in rows if r["purpose"] == "leakage"] == ["leakage check"]
+    assert {r["role"] for r in superseded} == {"set superseded"}
+    assert [r["role"] for r in settling] == ["settling"]
     routine = [float(r["charge_nC"]) for r in used if r["purpose"] == "routine"]
     assert routine == example()["readings"]["routine_nC"]
     manual = [r for r in rows if r["capture"] == "manual"]
@@ -177,4 +181,6 @@ def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:
         )
         assert [r["charge_nC"] for s in data["sets"] for r in s["readings"]] == [14.2]
         rows = list(csv.DictReader(io.StringIO(to_csv(record))))
-        assert [(r["charge_nC"], r["used"]) for r in rows] == [("14.2", "0")]
+        assert [(r["charge_nC"], r["used"], r["role"]) for r in rows] == [
+            ("14.2", "0", "set collecting")
+        ]

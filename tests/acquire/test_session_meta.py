@@ -162,3 +162,12 @@ def test_bad_entries_name_the_field_value_and_range(changes, field, words) -> No
 def test_not_a_table_is_refused() -> None:
     with pytest.raises(InputError, match=r"metadata .* is not a table"):
         validate_metadata(["HCC-LA1", "6 MV"])
+
+
+def test_leakage_subtraction_is_off_unless_chosen_and_must_be_yes_or_no() -> None:
+    assert validate_metadata(required_metadata()).subtract_leakage is False
+    chosen = validate_metadata({**required_metadata(), "subtract_leakage": True})
+    assert chosen.subtract_leakage is True
+    assert validate_metadata(chosen.to_dict()) == chosen
+    with pytest.raises(InputError, match=r"subtract_leakage = 'yes'.*true or false"):
+        validate_metadata({**required_metadata(), "subtract_leakage": "yes"})

@@ -112,7 +112,7 @@ def test_a_database_from_a_newer_chargebook_is_refused(tmp_path: Path) -> None:
     raw = sqlite3.connect(path)
     raw.execute("PRAGMA user_version = 99")
     raw.close()
-    with pytest.raises(StoreError, match=r"schema version 99.*up to 2"):
+    with pytest.raises(StoreError, match=rf"schema version 99.*up to {SCHEMA_VERSION}"):
         Store.open(path)
     with pytest.raises(StoreError, match=r"newer chargebook.*install the newer") as refused:
         Store.open(path, read_only=True)  # the reading commands: no advice the daemon refuses
@@ -280,11 +280,12 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     store.set_session_status(session_id, "open", "resumed", actor="J. Okafor")
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
+    closed, aborted = interrupted.closed_at, store.session(session_id).closed_at
     changes = [e.detail() for e in store.events(session_id) if e.kind == "session_status"]
     assert changes == [
-        {"from": "open", "to": "interrupted", "reason": "daemon restarted"},
-        {"from": "interrupted", "to": "open", "reason": "resumed"},
-        {"from": "open", "to": "aborted", "reason": "beam fault"},
+        {"from": "open", "to": "interrupted", "reason": "daemon restarted", "closed_at": closed},
+        {"from": "interrupted", "to": "open", "reason": "resumed", "closed_at": None},
+        {"from": "open", "to": "aborted", "reason": "beam fault", "closed_at": aborted},
     ]
     actors = [e.actor for e in store.events(session_id) if e.kind == "session_status"]
     assert actors == ["daemon", "J. Okafor", "daemon"]
@@ -299,7 +300,7 @@ def test_a_final_session_status_cannot_change(store: Store) -> None:
     assert store.session(session_id).status == "finished"
     assert store.events(session_id) == events_before
     # The database itself refuses too, whoever writes to it.
-    with pytest.raises(sqlite3.IntegrityError, match="final"):
+    with pytest.raises(sqlite3.IntegrityError, match=r"final|must follow its session_status"):
         store.db.execute("UPDATE sessions SET status = 'open' WHERE id = ?", (session_id,))
 
 
@@ -531,8 +532,8 @@ def test_a_concurrent_writer_makes_a_write_wait_not_fail(tmp_path: Path) -> None
         conn = sqlite3.connect(path)
         conn.execute("BEGIN IMMEDIATE")
         conn.execute(
-            "INSERT INTO traffic (session_id, t_s, recorded_at, direction, line) "
-            "VALUES (NULL, 0, '2026-12-02T00:00:00+00:00', 'rx', x'30')"
+            "INSERT INTO traffic (session_id, t_s, recorded_at, direction, line, chain_seq, "
+            "chain_hash) VALUES (NULL, 0, '2026-12-02T00:00:00+00:00', 'rx', x'30', 1, 'x')"
         )
         holding.set()
         other_done.wait(0.5)  # hold the write lock half a second, then commit

@@ -171,3 +171,54 @@ def test_unknown_file_type(tmp_path: Path) -> None:
 )
 def test_evaluate_fields_lead_back_to_worksheet_keys(field: str, key: str | None) -> None:
     assert worksheet_key(field) == key
+
+
+PER_SET = """
+convention = "trs398"
+beam = "pulsed"
+[environment]
+temperature_C = 22.2
+pressure_kPa = 100.45
+[environment.routine]
+temperature_C = 21.8
+pressure_kPa = 100.6
+[environment.opposite]
+temperature_C = 22.2
+pressure_hPa = 1006.0
+[bias]
+routine_V = 300
+reduced_V = 100
+[readings]
+routine_nC = [14.747, 14.751, 14.749]
+opposite_nC = [-14.775, -14.777, -14.774]
+reduced_nC = [14.570, 14.567, 14.569]
+"""
+
+
+def test_a_set_may_have_its_own_environment_table(tmp_path: Path) -> None:
+    inputs = load_worksheet(write(tmp_path, PER_SET))
+    routine, opposite = inputs.set_environments["routine"], inputs.set_environments["opposite"]
+    assert (routine.temperature_C, routine.pressure_kPa) == (21.8, 100.6)
+    assert opposite.pressure_kPa == pytest.approx(100.6, rel=1e-15)  # 1006 hPa, converted once
+    assert "reduced" not in inputs.set_environments  # it uses [environment]
+    assert any(c.unit == "hPa" for c in inputs.conversions)
+
+
+@pytest.mark.parametrize(
+    ("table", "field"),
+    [
+        ("[environment.opposite]\ntemperature_C = 22.0\nhumidity_pct = 40", "humidity_pct"),
+        ("[environment.opposite]\npressure_kPa = 100.6", "temperature_C"),
+        ("[environment.opposite]\ntemperature_C = 22.0", "pressure_kPa"),
+    ],
+)
+def test_a_bad_set_environment_table_names_its_key(tmp_path: Path, table: str, field: str) -> None:
+    text = MINIMAL + "\n" + table + "\n"
+    with pytest.raises(InputError, match=rf"environment\.opposite\.{field}"):
+        read_worksheet(write(tmp_path, text))
+
+
+def test_an_out_of_range_set_environment_points_at_the_worksheet_key() -> None:
+    assert worksheet_key("set_environments.reduced.temperature_C") == (
+        "environment.reduced.temperature_C"
+    )

@@ -11,6 +11,7 @@ from __future__ import annotations
 import asyncio
 import json
 import os
+import pwd
 import stat
 import subprocess
 
@@ -169,6 +170,68 @@ async def test_kill_9_mid_set_loses_no_committed_reading_and_the_session_resumes
         assert on_disk <= {r.id for r in store.readings(session_id)}
 
 
+async def test_each_event_a_request_causes_names_the_unix_account_beside_the_operator(
+    daemon, simulator, metadata
+):
+    # The operator name is what the client claims; the account is what the kernel says about
+    # the process on the other end of the socket (SO_PEERCRED).
+    client = await daemon.connect(operator="claimed name")
+    snapshot = await AutoOperator(client, bench_environment(simulator)).start(metadata)
+    await client.close()
+    account = pwd.getpwuid(os.getuid()).pw_name
+    with stored(daemon.db) as store:
+        events = store.events(snapshot["session"]["id"])
+        (started,) = [e for e in store.events(None) if e.kind == "daemon_started"]
+    by_client = [e for e in events if e.actor == "claimed name"]
+    assert {e.kind for e in by_client} >= {"session_created", "acquisition"}
+    assert all(e.account == account for e in by_client)
+    assert started.account is None  # no client asked for it
+
+
+async def test_the_audit_tells_a_clean_stop_from_a_crash(daemon, simulator, metadata):
+    # A SIGTERM is recorded as daemon_stopped with its reason; each start says how the previous
+    # run ended: "stopped cleanly" after a daemon_stopped, "crashed" after a kill -9.
+    client = await daemon.connect()
+    snapshot = await AutoOperator(client, bench_environment(simulator)).start(metadata)
+    await client.close()
+    session_id = snapshot["session"]["id"]
+    first_pid = daemon.pid
+    daemon.stop()  # SIGTERM
+    daemon.restart()
+    second_pid = daemon.pid
+    daemon.kill9()
+    daemon.restart()
+    with stored(daemon.db) as store:
+        lifecycle = [
+            (e.kind, e.detail())
+            for e in store.events(session_id)
+            if e.kind in ("daemon_stopped", "daemon_restarted")
+        ]
+        (started,) = [e.detail() for e in store.events(None) if e.kind == "daemon_started"]
+    assert started["pid"] == first_pid
+    assert lifecycle == [
+        ("daemon_stopped", {"pid": first_pid, "reason": "SIGTERM"}),
+        (
+            "daemon_restarted",
+            {
+                "pid": second_pid,
+                "previous_run": "stopped cleanly",
+                "previous_stop": "SIGTERM",
+                "previous_pid": first_pid,
+            },
+        ),
+        (
+            "daemon_restarted",
+            {
+                "pid": daemon.pid,
+                "previous_run": "crashed",
+                "previous_stop": None,
+                "previous_pid": second_pid,
+            },
+        ),
+    ]
+
+
 @pytest.mark.slow
 async def test_the_instrument_disconnected_mid_set_then_back(daemon, simulator, metadata):
     client = await daemon.connect()
@@ -268,10 +331,17 @@ def test_run_unattended_prints_the_worksheet_keys_plus_the_session_id(
         "--port", simulator.serial, "--bench-control", simulator.control,
         "--db", str(tmp_path / "run.sqlite"), "--plan", QUICK_PLAN,
         "--time-scale", str(TIME_SCALE),
+        "--temperature-C", "21.5", "--pressure-hPa", "1008.0",  # a barometer reading in hPa
     )  # fmt: skip
     done = subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
     document = json.loads(done.stdout)
+    with stored(tmp_path / "run.sqlite") as store:
+        (entry,) = store.environment(document["session_id"])
+    assert (entry.pressure_entered, entry.pressure_unit) == (1008.0, "hPa")
+    assert entry.pressure_kPa == pytest.approx(100.8, rel=1e-12)  # 1 hPa = 0.1 kPa (SI)
+    # TRS-398 (2000) air-density correction at 21.5 °C, 100.8 kPa to 20 °C, 101.325 kPa
+    assert document["k_TP"] == pytest.approx((273.2 + 21.5) / 293.2 * 101.325 / 100.8, rel=1e-9)
     worksheet_keys = {
         "k_TP", "k_h", "k_pol", "k_s", "k_elec", "M_raw_nC", "M_corrected_nC", "dose_Gy",
         "dose_per_MU_cGy", "deviation_pct", "u_combined_pct", "U_expanded_pct", "flags",

@@ -18,9 +18,11 @@ import asyncio
 import hashlib
 import json
 import shutil
+import sqlite3
 import subprocess
 from collections.abc import Iterator
 from dataclasses import dataclass
+from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -30,7 +32,7 @@ from chargebook.acquire.cli import main
 from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.demo_data import demo_metadata
 from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.session_result import session_evaluation
+from chargebook.acquire.session_evaluation import evaluate_session
 from chargebook.acquire.store import Store
 from e2e_support import (
     QUICK_PLAN,
@@ -204,6 +206,15 @@ def replay(db: Path, session_id: int, *options: str) -> subprocess.CompletedProc
     return subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
 
 
+def replayed_exactly(db: Path, session_id: int) -> dict[str, Any]:
+    """Replay ``session_id`` at speed 0, check that it says it reproduced, return its report."""
+    done = replay(db, session_id, "--speed", "0", "--json")
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["reproduced"] is True and report["differences"] == []
+    return report
+
+
 def readings_by_set(store: Store, session_id: int) -> list[tuple[Any, ...]]:
     """Return every reading as (step, attempt, set status, seq, charge nC, settling, capture,
     time)."""
@@ -275,10 +286,7 @@ SESSION_CHECKS = {
 def test_every_recorded_session_replays_exactly(station: Station, which: str):
     db = copy_of(station, f"exact-{which}.sqlite")
     original_id = getattr(station, which)
-    done = replay(db, original_id, "--speed", "0", "--json")
-    assert done.returncode == 0, done.stderr
-    report = json.loads(done.stdout)
-    assert report["reproduced"] is True and report["differences"] == []
+    report = replayed_exactly(db, original_id)
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         original, replayed = store.session(original_id), store.session(replay_id)
@@ -294,9 +302,54 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
             assert line_of(store, replay_id, after.traffic_id) == line_of(
                 store, original_id, before.traffic_id
             )
-        results = session_evaluation(store, original_id).to_dict()
-        assert session_evaluation(store, replay_id).to_dict() == results
+        results = evaluate_session(store, original_id).results()
+        assert evaluate_session(store, replay_id).results() == results
         assert report["results_compared"] == len(results)
+        SESSION_CHECKS[which](store, replay_id)
+
+
+def step_the_clock_back(db: Path, session_id: int, seconds: float) -> None:
+    """Rewrite the stamps of the second half of a session's traffic and events ``seconds``
+    earlier, as a wall clock stepped back mid-session would have written them (the copy's
+    append-only triggers are dropped to do it)."""
+    conn = sqlite3.connect(db)
+    with conn:
+        for table in ("traffic", "events"):
+            conn.execute(f"DROP TRIGGER {table}_refuse_update")
+        places = [
+            row[0]
+            for row in conn.execute(
+                "SELECT chain_seq FROM traffic WHERE session_id = ? UNION "
+                "SELECT chain_seq FROM events WHERE session_id = ? ORDER BY 1",
+                (session_id, session_id),
+            )
+        ]
+        step_at = places[len(places) // 2]
+        for table in ("traffic", "events"):
+            rows = conn.execute(
+                f"SELECT id, recorded_at FROM {table} WHERE session_id = ? AND chain_seq >= ?",
+                (session_id, step_at),
+            ).fetchall()
+            for row_id, stamp in rows:
+                stepped = datetime.fromisoformat(stamp) - timedelta(seconds=seconds)
+                conn.execute(
+                    f"UPDATE {table} SET recorded_at = ? WHERE id = ?",
+                    (stepped.isoformat(timespec="microseconds"), row_id),
+                )
+    conn.close()
+
+
+@pytest.mark.parametrize("which", ["redone", "aborted"])
+def test_a_session_whose_clock_stepped_back_still_replays_exactly(station: Station, which: str):
+    # Operator actions are placed among the raw lines by the session's chain order, not by
+    # the wall-clock stamps: a clock stepped back 5 s mid-session moves nothing.
+    db = copy_of(station, f"stepped-{which}.sqlite")
+    original_id = getattr(station, which)
+    step_the_clock_back(db, original_id, 5.0)
+    report = replayed_exactly(db, original_id)
+    with Store.open(db, read_only=True) as store:
+        replay_id = report["replay_session_id"]
+        assert readings_by_set(store, replay_id) == readings_by_set(store, original_id)
         SESSION_CHECKS[which](store, replay_id)
 
 
@@ -363,7 +416,7 @@ def test_another_reduced_bias_gives_the_two_voltage_k_s_of_the_new_ratio(station
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         assert readings_by_set(store, replay_id) == readings_by_set(store, station.clean)
-        results = session_evaluation(store, replay_id).to_dict()
+        results = evaluate_session(store, replay_id).results()
     ratio = results["charge_ratio"]
     assert results["k_s"] == pytest.approx(2.337 - 3.636 * ratio + 2.299 * ratio**2, abs=2e-3)
     assert differences["result k_s"]["replay"] == results["k_s"]
@@ -391,7 +444,7 @@ def test_a_plan_asking_for_fewer_readings_uses_the_first_ones_and_keeps_the_rest
     with Store.open(db, read_only=True) as store:
         routine = next(s for s in store.sets(station.clean) if s.step_key == "routine")
         first_two = [r.charge_nC for r in store.readings(station.clean, routine.id)][:2]
-        results = session_evaluation(store, report["replay_session_id"]).to_dict()
+        results = evaluate_session(store, report["replay_session_id"]).results()
     assert results["M_raw_nC"] == pytest.approx(np.mean(first_two), rel=1e-12)
 
 

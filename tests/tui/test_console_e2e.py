@@ -162,10 +162,10 @@ async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lo
         await pilot.press("8", "0", "enter")
         await pilot.pause()
         assert isinstance(app.screen, EnvironmentScreen)  # refused: the form stays open
-        # Plausible range 10-40 °C: common practice (REFERENCE.md, "Plausible input ranges").
-        refusal = "temperature_C = 80 is outside the allowed range 10 to 40 °C"
+        # Plausible range 10-40 °C: common practice (docs/physics.md, plausibility ranges).
+        refusal = "Air temperature °C: 80 is outside 10 to 40 °C"
         assert temperature.problem == refusal
-        assert "!! temperature_C = 80 is outside" in screen_text(app)
+        assert "!! Air temperature °C: 80 is outside" in screen_text(app)
         await pilot.press("escape")
         await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
     record = await daemon_record(daemon)

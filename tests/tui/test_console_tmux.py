@@ -45,6 +45,8 @@ class Terminal:
         """Start `chargebook console --socket SOCKET` in a fresh 80 × 24 window."""
         command = " ".join(chargebook_command("console", "--socket", str(socket)))
         self.run("new-session", "-d", "-s", self.name, "-x", "80", "-y", "24", command)
+        # Keep the window when the console exits, so its last words can be read.
+        self.run("set-option", "-t", self.name, "remain-on-exit", "on")
 
     def is_open(self) -> bool:
         """Return True while the console's window is still there."""
@@ -68,10 +70,14 @@ class Terminal:
             await asyncio.sleep(0.1)
         pytest.fail(f"the console never showed {text!r}; last screen:\n{screen}")
 
-    async def closed(self) -> None:
+    async def last_words(self) -> str:
+        """Wait until the console has exited; return what it printed last, then close it."""
         for _ in range(int(DEADLINE_S / 0.1)):
-            if not self.is_open():
-                return
+            if self.run("display-message", "-p", "-t", self.name, "#{pane_dead}").strip() == "1":
+                # -J unwraps long lines; -S - includes what scrolled off the top
+                screen = self.run("capture-pane", "-p", "-J", "-S", "-", "-t", self.name)
+                self.run("kill-session", "-t", self.name)
+                return screen
             await asyncio.sleep(0.1)
         pytest.fail(f"the console did not close; last screen:\n{self.screen()}")
 
@@ -127,7 +133,9 @@ async def test_the_console_in_a_terminal_attaches_quits_without_stopping_and_fin
         terminal.keys("a")  # arm the routine set ...
         snapshot = await client.wait_for_snapshot(lambda s: s["state"] == "collecting", 60)
         terminal.keys("C-q")  # ... and close the console in the middle of it
-        await terminal.closed()
+        words = " ".join((await terminal.last_words()).split())
+        assert f"Session 1 stays open in the daemon at {daemon.socket}" in words
+        assert f"Re-attach with: chargebook console --socket {daemon.socket}" in words
         still = await client.status()
         assert still["state"] in ("collecting", "reviewing")  # the measurement goes on
         terminal.open_console(daemon.socket)

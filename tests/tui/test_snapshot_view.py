@@ -48,7 +48,7 @@ def test_results_are_the_daemons_numbers_formatted_not_recomputed():
 def test_the_history_keeps_superseded_sets_with_their_reason():
     rows = snapshot_view.history_rows(load_snapshot("finished")["sets"])
     statuses = [status for _step, _name, status, _mean, _sd in rows]
-    assert "superseded: spike on reading 4" in statuses
+    assert "superseded: spike on reading 3" in statuses
     assert "superseded: interrupted by the cable" in statuses
     assert statuses.count("accepted") == 6
 

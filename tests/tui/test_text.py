@@ -45,3 +45,33 @@ def test_states_steps_and_conventions_are_said_in_plain_words():
     assert text.purpose("opposite") == "Opposite polarity"
     assert text.convention("tg51") == "AAPM TG-51"
     assert text.set_status("superseded") == "superseded"
+
+
+def test_stored_utc_times_are_shown_in_local_time_with_their_offset(monkeypatch) -> None:
+    import time
+
+    monkeypatch.setenv("TZ", "CET-1")  # a POSIX zone one hour east of UTC, no tz database
+    time.tzset()
+    try:
+        assert text.local_time("2026-12-02T06:38:17.273976+00:00") == "2026-12-02 07:38:17 +01:00"
+        assert text.local_time("not a time") == "not a time"
+        assert text.local_time(None) == ""
+    finally:
+        monkeypatch.undo()
+        time.tzset()
+
+
+def test_two_readings_0_05_pct_apart_are_drawn_on_the_stated_scale_not_full_and_empty() -> None:
+    # Readings 0.05 % apart around their mean: 0.05/0.2 of the 8-level scale, one or two steps.
+    mean = 20.0
+    low, high = mean * (1 - 0.00025), mean * (1 + 0.00025)
+    bars = text.deviation_bars([low, high], mean).split()
+    levels = "▁▂▃▄▅▆▇█"
+    assert levels.index(bars[1]) - levels.index(bars[0]) in (1, 2)  # not an empty and a full bar
+    assert bars[0] not in ("▁", "▼") and bars[1] not in ("█", "▲")
+    # Beyond ±0.1 % of the mean: marked, never clipped silently to a full or empty bar.
+    assert text.deviation_bars([mean * 1.002, mean * 0.998], mean) == "▲ ▼"
+    # Negative charges (negative bias): a larger magnitude draws a higher bar.
+    assert text.deviation_bars([-mean * 1.0005], -mean) == "▆"  # +0.05 %: 5.25 of 7 steps
+    assert "+0.1 % of the mean" in text.bar_scale_caption()
+    assert text.deviation_bars([1.0], None) == ""

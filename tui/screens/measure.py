@@ -17,6 +17,7 @@ from chargebook.tui.screens.base import ConsoleScreen
 from chargebook.tui.screens.dialogs import ConfirmScreen, redo_question
 from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.widgets.action_bar import ActionBar
+from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.flag_list import FlagList, flag_count
 from chargebook.tui.widgets.history import SetHistory
 from chargebook.tui.widgets.plan_view import PlanView
@@ -75,12 +76,15 @@ class MeasureScreen(ConsoleScreen):
             with TabPane(TABS[3][2], id="flags"), VerticalScroll():
                 yield FlagList(id="flag-list", markup=False)
         yield ActionBar(id="action-bar")
+        yield CautionLine()
         yield Footer(compact=True, show_command_palette=False)
 
     # -- drawing, from the latest snapshot only --------------------------------------------
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         shown_set = self._shown_set(snapshot)
-        self.query_one(StepPanel).snapshot = snapshot
+        step_panel = self.query_one(StepPanel)
+        step_panel.connected = self.link.connected
+        step_panel.snapshot = snapshot
         self.query_one(ReadingSetPanel).set_info = shown_set
         self.query_one(FlagList).show_flags(shown_set, snapshot)
         count = flag_count(shown_set, snapshot)

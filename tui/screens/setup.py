@@ -14,6 +14,7 @@ from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
 from chargebook.tui.messages import SetupFinished
 from chargebook.tui.screens.base import ConsoleScreen, Sender
+from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.environment_fields import EnvironmentFields
 from chargebook.tui.widgets.session_form import SessionForm
 from chargebook.tui.widgets.status_line import StatusLine
@@ -21,7 +22,7 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import VerticalScroll
-from textual.widgets import Button, Footer, Static
+from textual.widgets import Button, Footer, Input, Static
 
 INTRO = "New session. Check each entry (Tab moves on), then press Ctrl+S to start."
 
@@ -32,6 +33,7 @@ class SetupScreen(ConsoleScreen):
     kind = "setup"
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("ctrl+s", "start", "Start session", priority=True),
+        Binding("ctrl+l", "use_last_entry", "Use last T & P", priority=True),
     ]
 
     def __init__(self, send: Sender, defaults: Mapping[str, Any] | None = None) -> None:
@@ -39,6 +41,7 @@ class SetupScreen(ConsoleScreen):
         self.defaults = dict(defaults or {})
         self.starting = False  # a request to the daemon is under way
         self.session_opened = False  # this form opened the session; the air data are still due
+        self.problem_said = False  # "Not started: ..." is on screen
 
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status-line", markup=False)
@@ -46,10 +49,11 @@ class SetupScreen(ConsoleScreen):
         with VerticalScroll(id="setup-body"):
             yield SessionForm(self.defaults)
             yield Static("Air at the chamber", classes="section-title", markup=False)
-            yield EnvironmentFields(self.defaults)
+            yield EnvironmentFields(self.defaults, ask_again=True)
             yield Static(f"Caution: {CAUTION}", id="setup-caution", markup=False)
             yield Button("Start session (Ctrl+S)", id="start", variant="primary", compact=True)
         yield Static("", id="setup-problem", markup=False)
+        yield CautionLine()
         yield Footer(compact=True, show_command_palette=False)
 
     @property
@@ -67,10 +71,23 @@ class SetupScreen(ConsoleScreen):
         return self.starting or self.session_opened
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        """Offer Start when the daemon has no session open (or this form opened it)."""
+        """Offer Start when the daemon has no session open (or this form opened it), and the
+        last temperature and pressure when there is one to confirm."""
         if action == "start":
             return Method.SESSION_START in self.allowed() or self.session_opened or None
+        if action == "use_last_entry":
+            return self.environment.last_entry is not None
         return True
+
+    def action_use_last_entry(self) -> None:
+        """Use the last temperature and pressure again, recorded as confirmed by the operator."""
+        self.environment.use_last_entry()
+
+    @on(Input.Changed)
+    def entry_changed(self) -> None:
+        """Clear "Not started: correct the entries" once every entry is right."""
+        if self.problem_said and self.form.is_valid() and self.environment.is_valid():
+            self._say("")
 
     @on(Button.Pressed, "#start")
     def action_start(self) -> None:
@@ -89,7 +106,8 @@ class SetupScreen(ConsoleScreen):
             if not self.session_opened:
                 await self.send(Method.SESSION_START, metadata=metadata)
                 self.session_opened = True
-            await self.send(Method.ENVIRONMENT_SET, source="console", **environment)
+            source = self.environment.source()
+            await self.send(Method.ENVIRONMENT_SET, source=source, **environment)
         except DaemonError as error:
             shown = self.form.show_refusal(error.field, error.message)
             shown = shown or self.environment.show_refusal(error.field, error.message)
@@ -104,4 +122,5 @@ class SetupScreen(ConsoleScreen):
         self.post_message(SetupFinished())
 
     def _say(self, message: str) -> None:
+        self.problem_said = bool(message)
         self.query_one("#setup-problem", Static).update(message)

@@ -52,7 +52,7 @@ def details_table(snapshot: dict[str, Any]) -> Table:
         if metadata.get(key):
             shown = text.convention(metadata[key]) if key == "convention" else metadata[key]
             table.add_row(*text.plain_row((label, shown)))
-    table.add_row(*text.plain_row(("Started", session.get("created_at", ""))))
+    table.add_row(*text.plain_row(("Started", text.local_time(session.get("created_at")))))
     environment = snapshot.get("environment")
     if environment:
         entered = ""

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
-from chargebook.tui.checks import Check, CheckValidator
+from chargebook.tui.checks import Check, CheckValidator, as_typed
 from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.reactive import reactive
@@ -16,10 +16,14 @@ class Field(Vertical):
     """One entry: label, input box and, under it, the problem with the entry (if any).
 
     ``name`` is the parameter it fills (``temperature_C``); the field checks every keystroke with
-    ``check`` and shows the daemon's own message when the daemon refuses the value.
+    ``check``. A problem is shown once the operator has left the entry (or pressed Start), in
+    words that name the entry by its label, and goes as soon as the entry is right; a refusal
+    from the daemon is shown in the daemon's words.
     """
 
     problem: reactive[str] = reactive("")
+    #: A line under the entry that is not a problem (e.g. "= 100.80 kPa", the value converted).
+    note: reactive[str] = reactive("")
 
     def __init__(
         self,
@@ -38,6 +42,7 @@ class Field(Vertical):
         self.check = check
         self.placeholder = placeholder
         self.suffix = suffix
+        self.touched = False  # left by the operator, or checked by Start
 
     def compose(self) -> ComposeResult:
         with Horizontal(classes="field-row"):
@@ -45,7 +50,7 @@ class Field(Vertical):
             yield Input(
                 self.initial_value,
                 placeholder=self.placeholder,
-                validators=[CheckValidator(self.check)] if self.check else [],
+                validators=[CheckValidator(self.check, self.label)] if self.check else [],
                 id=f"input-{self.field_name}",
                 compact=True,
                 validate_on=["changed", "submitted"],
@@ -53,6 +58,7 @@ class Field(Vertical):
             if self.suffix is not None:
                 yield self.suffix
         yield Static("", classes="field-problem", markup=False)
+        yield Static("", classes="field-note", markup=False)
 
     @property
     def input(self) -> Input:
@@ -64,8 +70,14 @@ class Field(Vertical):
         """Return the text as typed, without surrounding spaces."""
         return self.input.value.strip()
 
+    def is_valid(self) -> bool:
+        """Return True if the entry as typed passes its check (nothing is shown)."""
+        result = self.input.validate(self.input.value)
+        return result is None or result.is_valid
+
     def recheck(self) -> bool:
-        """Check the entry again (e.g. after its unit changed); return True if it is valid."""
+        """Check the entry now and show any problem (Start, or its unit changed); True if valid."""
+        self.touched = True
         result = self.input.validate(self.input.value)
         self.problem = "" if result is None or result.is_valid else self._first(result)
         return not self.problem
@@ -75,9 +87,25 @@ class Field(Vertical):
         self.problem = message
 
     def on_input_changed(self, event: Input.Changed) -> None:
-        event.stop()
         result = event.validation_result
-        self.problem = "" if result is None or result.is_valid else self._first(result)
+        if result is None or result.is_valid:
+            self.problem = ""  # right now: the problem goes at once
+        elif self.touched:
+            self.problem = self._first(result)
+
+    def on_descendant_focus(self) -> None:
+        mark_focus(self, self.label, True)
+
+    def on_descendant_blur(self) -> None:
+        """The operator left the entry: from now on, say what is wrong with it."""
+        mark_focus(self, self.label, False)
+        if not self.touched:
+            self.recheck()
+
+    def watch_note(self, note: str) -> None:
+        shown = self.query_one(".field-note", Static)
+        shown.update(note)
+        shown.display = bool(note)
 
     def watch_problem(self, problem: str) -> None:
         note = self.query_one(".field-problem", Static)
@@ -89,6 +117,34 @@ class Field(Vertical):
     def _first(result) -> str:
         descriptions = result.failure_descriptions
         return descriptions[0] if descriptions else "not accepted"
+
+
+#: Put before the label of the entry that has the focus, so it shows without colour.
+FOCUS_MARK = "▸ "
+
+
+def mark_focus(widget: Widget, label: str, focused: bool) -> None:
+    """Show ``label`` with the focus mark in front of it while the entry has the focus."""
+    widget.query_one(".field-label", Label).update(f"{FOCUS_MARK}{label}" if focused else label)
+
+
+def conversion_note(
+    typed: str,
+    unit: str,
+    convert: Callable[[object, str], float],
+    to_unit: str,
+    *,
+    digits: int,
+) -> str:
+    """Return "= 100.800 kPa": the typed value converted as the daemon will (empty if the unit
+    is already ``to_unit`` or the value is not accepted)."""
+    if unit == to_unit or not typed:
+        return ""
+    try:
+        converted = float(convert(as_typed(typed), unit))
+    except ValueError:
+        return ""
+    return f"= {converted:.{digits}f} {to_unit} (converted from {typed} {unit})"
 
 
 def choice(name: str, options: Sequence[tuple[str, str]], value: str) -> Select[str]:
@@ -121,3 +177,9 @@ class ChoiceField(Horizontal):
     def value(self) -> str:
         """Return the chosen value."""
         return str(self.query_one(Select).value)
+
+    def on_descendant_focus(self) -> None:
+        mark_focus(self, self.label, True)
+
+    def on_descendant_blur(self) -> None:
+        mark_focus(self, self.label, False)

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 from typing import Any
 
+from chargebook.acquire.protocol import severity_rank
 from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Vertical, VerticalScroll
 from textual.reactive import reactive
-from textual.widgets import Sparkline
 
 #: The readings' columns: heading, least width in characters, aligned right?
 READING_COLUMNS: tuple[tuple[str, int, bool], ...] = (
@@ -21,11 +21,16 @@ READING_COLUMNS: tuple[tuple[str, int, bool], ...] = (
 )
 
 
+def reading_label(reading: dict[str, Any]) -> str:
+    """Return the reading's name as the daemon gave it ("s1" settling, then "1", "2", ...)."""
+    return str(reading.get("label") or reading["seq"])
+
+
 def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     """Return one reading's cells: number, charge in nC, how captured, flag marker."""
     marker = text.reading_marker(reading.get("flags") or [], bool(reading.get("settling")))
     return (
-        str(reading["seq"]),
+        reading_label(reading),
         text.number(reading["charge_nC"], 4),
         str(reading.get("capture") or ""),
         marker,
@@ -56,19 +61,22 @@ def readings_lines(set_info: dict[str, Any] | None) -> list[str]:
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
-    """Return one line per flagged reading ("#3 ! outlier ..."), then the set's own flags."""
+    """Return the flags of the set and of its readings ("#3 ! outlier ..."), worst first."""
     if not set_info:
         return []
-    lines = [
-        f"#{reading['seq']} {text.flag(item)}"
+    flagged = [
+        (severity_rank(item), f"#{reading_label(reading)} {text.flag(item)}")
         for reading in set_info.get("readings", [])
         for item in reading.get("flags") or []
     ]
-    return lines + text.flags_or_ok(set_info.get("flags") or [], "set: no flags")
+    flagged += [(severity_rank(item), text.flag(item)) for item in set_info.get("flags") or []]
+    lines = [line for _rank, line in sorted(flagged, key=lambda pair: pair[0])]
+    return lines or text.flags_or_ok([], "set: no flags")
 
 
 class ReadingSetPanel(Vertical):
-    """The set being taken (or just taken): table, sparkline, mean and relative SD, flags."""
+    """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
+    relative SD, flags."""
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
@@ -78,7 +86,7 @@ class ReadingSetPanel(Vertical):
         with VerticalScroll(id="readings-scroll"):
             yield ReadingLines(id="readings-table")
             yield TextBlock(id="set-flags")
-        yield Sparkline([], id="readings-plot")
+        yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
@@ -91,10 +99,12 @@ class ReadingSetPanel(Vertical):
             title = f"{snapshot_view.set_title(set_info)}: {status}"
         self.query_one("#set-title", TextBlock).show(title)
         self.query_one(ReadingLines).show_lines(readings_lines(set_info))
-        charges = [abs(charge) for charge in snapshot_view.set_charges_nC(set_info)]
-        plot = self.query_one(Sparkline)
-        if plot.data != charges:
-            plot.data = charges
+        charges = snapshot_view.set_charges_nC(set_info)
+        mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
+        bars = text.deviation_bars(charges, mean_nC)
+        self.query_one("#readings-plot", TextBlock).show(
+            f"{bars}\n{text.bar_scale_caption()}" if bars else ""
+        )
         self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )

@@ -8,7 +8,7 @@ from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.text_block import TextBlock
 from rich.table import Table
 from textual.app import ComposeResult
-from textual.containers import Vertical
+from textual.containers import VerticalScroll
 from textual.reactive import reactive
 
 
@@ -43,8 +43,12 @@ def results_title(snapshot: dict[str, Any]) -> str:
     return title
 
 
-class ResultsPanel(Vertical):
-    """Factor table, results and the session's flags, as the daemon computed them."""
+class ResultsPanel(VerticalScroll):
+    """Factor table, results and the session's flags, as the daemon computed them.
+
+    It scrolls, and takes the focus (Tab), so that every line can be reached from the keyboard
+    (↑ ↓, Page Up, Page Down, Home, End) on an 80 × 24 terminal.
+    """
 
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
 

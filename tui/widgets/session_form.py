@@ -10,13 +10,13 @@ import datetime
 from collections.abc import Mapping
 from typing import Any
 
-from chargebook.corrections import dose, limits
+from chargebook.corrections import dose, limits, units
 from chargebook.tui import checks
-from chargebook.tui.widgets.fields import ChoiceField, Field, choice
+from chargebook.tui.widgets.fields import ChoiceField, Field, choice, conversion_note
 from textual import on
 from textual.app import ComposeResult
 from textual.containers import Vertical
-from textual.widgets import Select, Static
+from textual.widgets import Input, Select, Static
 
 #: (key, label) of the text entries, grouped under a heading.
 TEXT_SECTIONS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
@@ -131,11 +131,11 @@ class SessionForm(Vertical):
                 label, key, _shown(value(key)), check=check if required else checks.optional(check)
             )
         yield Field(
-            "Tolerance % (or daily)",
+            "Tolerance % or TG-142",
             "tolerance_pct",
             _shown(value("tolerance_pct")),
             check=checks.optional(check_tolerance),
-            placeholder="empty: TG-142 monthly",
+            placeholder="daily, monthly, annual; empty: monthly",
         )
         for key, label in OPTIONAL_TEXT:
             check = OPTIONAL_CHECKS.get(key)
@@ -144,7 +144,28 @@ class SessionForm(Vertical):
     @on(Select.Changed, "#choice-N_Dw_unit")
     def unit_changed(self, event: Select.Changed) -> None:
         self.N_Dw_unit = str(event.value)
-        self.query_one("#field-N_Dw", Field).recheck()
+        field = self.query_one("#field-N_Dw", Field)
+        if field.value or field.touched:  # a unit set as the form opens is no cause to complain
+            field.recheck()
+        self._show_conversion()
+
+    @on(Input.Changed, "#input-N_Dw")
+    def calibration_changed(self) -> None:
+        self._show_conversion()
+
+    def on_mount(self) -> None:
+        self._show_conversion()
+
+    def _show_conversion(self) -> None:
+        """Show N_D,w in Gy/nC under an entry typed in Gy/C or cGy/nC, as the daemon converts."""
+        field = self.query_one("#field-N_Dw", Field)
+        field.note = conversion_note(
+            field.value, self.N_Dw_unit, units.N_Dw_Gy_per_nC, "Gy/nC", digits=6
+        )
+
+    def is_valid(self) -> bool:
+        """Return True if every entry passes its check (nothing is shown)."""
+        return all(field.is_valid() for field in self.query(Field))
 
     def metadata(self) -> dict[str, Any] | None:
         """Return the ``session.start`` metadata, or None if an entry is wrong (each says why)."""

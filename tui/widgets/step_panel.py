@@ -16,12 +16,15 @@ class StepPanel(Vertical):
     """Step heading with progress, then "Do now: …" in the daemon's words, then the live reading."""
 
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
+    #: Whether the console hears from the daemon; set before ``snapshot`` by the screen.
+    connected: bool = True
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="step-heading-row"):
             yield TextBlock(id="step-heading")
             yield ProgressBar(show_eta=False, show_percentage=False, id="plan-progress")
             yield TextBlock(id="plan-progress-text")
+        yield TextBlock(id="step-notice")
         yield TextBlock(id="step-prompt")
         yield TextBlock(id="step-live")
 
@@ -34,7 +37,10 @@ class StepPanel(Vertical):
         if (bar.total, bar.progress) != (max(total, 1), done):
             bar.update(total=max(total, 1), progress=done)
         self.query_one("#plan-progress-text", TextBlock).show(f"{done}/{total} done")
-        self.query_one("#step-prompt", TextBlock).show(
-            f"Do now: {snapshot_view.prompt_text(snapshot)}"
-        )
+        notice = self.query_one("#step-notice", TextBlock)
+        notice.show(f"!! {snapshot['notice']}" if snapshot.get("notice") else "")
+        notice.display = bool(snapshot.get("notice"))
+        prompt = self.query_one("#step-prompt", TextBlock)
+        prompt.show(f"Do now: {snapshot_view.prompt_text(snapshot, self.connected)}")
+        prompt.set_class(not self.connected, "-trouble")
         self.query_one("#step-live", TextBlock).show(snapshot_view.live_text(snapshot))

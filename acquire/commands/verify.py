@@ -1,0 +1,60 @@
+"""`chargebook verify [SESSION]`: recompute the record's hash chain and say what was changed."""
+
+from __future__ import annotations
+
+import argparse
+
+from chargebook.acquire.report_cli import add_db_argument, run_reader
+
+HELP = (
+    "check that the record was not changed: recompute each session's hash chain and name "
+    "the row of the table that no longer matches (exit 0 verified, 1 not, 2 bad input)"
+)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "session", metavar="SESSION", type=int, nargs="?", help="session id (default: all)"
+    )
+    add_db_argument(parser)
+    parser.add_argument("--json", action="store_true", help="print JSON instead of text")
+
+
+def run(args: argparse.Namespace) -> int:
+    import sys
+
+    from chargebook.acquire.cli import EXIT_INVALID_INPUT
+    from chargebook.acquire.store import default_db_path
+
+    path = args.db or default_db_path()
+    if not path.is_file():
+        print(f"chargebook: no station database at {path} (pass --db FILE)", file=sys.stderr)
+        return EXIT_INVALID_INPUT
+    return run_reader(args, lambda store: _verify(store, args))
+
+
+def _verify(store, args: argparse.Namespace) -> int:
+    import json
+
+    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.verify import file_damage, verify_all, verify_session
+
+    damage = file_damage(store)
+    one = args.session is not None
+    reports = [verify_session(store, args.session)] if one else verify_all(store)
+    verified = not damage and all(report.verified for report in reports)
+    if args.json:
+        data = {
+            "verified": verified,
+            "file_damage": damage,
+            "chains": [report.to_dict() for report in reports],
+        }
+        print(json.dumps(data, indent=2))
+    else:
+        if damage:
+            print("the file is damaged (SQLite's quick integrity check):")
+            print("\n".join(f"  {line}" for line in damage))
+        for report in reports:
+            print(report.summary())
+        print("the record verifies" if verified else "THE RECORD DOES NOT VERIFY: see above")
+    return EXIT_OK if verified else EXIT_FAILURE

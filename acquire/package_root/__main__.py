@@ -1,0 +1,7 @@
+"""Run the `chargebook` command line: ``python -m chargebook`` is ``chargebook``."""
+
+import sys
+
+from chargebook.acquire.cli import main
+
+sys.exit(main())

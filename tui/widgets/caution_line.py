@@ -1,0 +1,16 @@
+"""The one-line safety caution every main screen of the console keeps in view."""
+
+from __future__ import annotations
+
+from textual.widgets import Static
+
+#: Short enough for an 80-column terminal; the full caution is on the setup form, the summary,
+#: every report and the README.
+CAUTION_LINE = "Caution: supports, never replaces, a qualified medical physicist's judgement"
+
+
+class CautionLine(Static):
+    """One line above the keys: the caution, shown on every screen."""
+
+    def __init__(self) -> None:
+        super().__init__(CAUTION_LINE, id="caution-line", markup=False)
