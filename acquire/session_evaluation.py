@@ -36,6 +36,7 @@ from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SetRo
 from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
+from chargebook.corrections.leakage import leakage_per_reading_nC
 from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.units import Conversion
@@ -184,7 +185,7 @@ def _leakage_nC(chosen: _ResultSets, integration_s: Mapping[int, float]) -> floa
     if chosen.leakage is None or not routine_times:
         return None
     charge_nC, seconds = chosen.leakage
-    return charge_nC * (sum(routine_times) / len(routine_times)) / seconds
+    return leakage_per_reading_nC(charge_nC, seconds, routine_times)
 
 
 def entry_in_force(

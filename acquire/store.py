@@ -268,6 +268,8 @@ class TrafficRow:
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+#: Told the row id of a kept raw line once it is written (None when its transaction failed).
+LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
 #: (session_id, t_s, recorded_at, direction, line bytes).
 TrafficLine = tuple[int | None, float, str, str, bytes]
@@ -331,6 +333,9 @@ class Store:
         self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
         self._pending_lock = threading.Lock()
         self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
+        #: Beside _pending and _in_flight: whom to tell each kept line's row id (None: nobody).
+        self._pending_told: list[LineIdListener | None] = []
+        self._in_flight_told: list[LineIdListener | None] = []
         self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
         self._account: str | None = None  # the Unix account a client's request comes from
 
@@ -500,20 +505,29 @@ class Store:
                 conn.rollback()
                 self._keep_again()
                 raise
-            self._in_flight = []
+            self._in_flight, self._in_flight_told = [], []
 
     def _write_kept_traffic(self) -> None:
-        """Append the kept raw lines (lock held, transaction open)."""
+        """Append the kept raw lines (lock held, transaction open) and tell each line's
+        listener its row id."""
         with self._pending_lock:
             self._in_flight, self._pending = self._pending, []
+            self._in_flight_told, self._pending_told = self._pending_told, []
         if self._in_flight:
-            self._append_traffic(self._in_flight)
+            first_id = self._append_traffic(self._in_flight) - len(self._in_flight) + 1
+            for offset, told in enumerate(self._in_flight_told):
+                if told is not None:
+                    told(first_id + offset)
 
     def _keep_again(self) -> None:
         """Put the lines of a failed transaction back in front of the kept ones."""
         with self._pending_lock:
             self._pending[:0] = self._in_flight
-        self._in_flight = []
+            self._pending_told[:0] = self._in_flight_told
+        for told in self._in_flight_told:
+            if told is not None:
+                told(None)  # not written after all: no row id yet
+        self._in_flight, self._in_flight_told = [], []
 
     @contextmanager
     def busy_timeout(self, timeout_ms: int) -> Iterator[None]:
@@ -969,13 +983,18 @@ class Store:
             self._append_traffic(rows)
         return len(rows)
 
-    def keep_traffic(self, line: TrafficLine) -> None:
+    def keep_traffic(self, line: TrafficLine, told: LineIdListener | None = None) -> None:
         """Keep one raw line (see :meth:`add_traffic_many` for its shape) to be written with the
         next commit, before anything that commit appends: the order of the session's chain is
-        the order in which lines and events happened. Cheap, and safe from any thread."""
+        the order in which lines and events happened. Cheap, and safe from any thread.
+
+        ``told(row_id)`` is called when the line is written (``told(None)`` if that
+        transaction fails): a sample read from the line then names it by id.
+        """
         row = _traffic_row(line)
         with self._pending_lock:
             self._pending.append(row)
+            self._pending_told.append(told)
 
     def kept_traffic_count(self) -> int:
         """Return how many raw lines are kept, not yet committed (safe from any thread)."""
@@ -1000,16 +1019,10 @@ class Store:
                 self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
             )
 
-    def received_line_id(self, session_id: int, t_s: float) -> int | None:
-        """Return the id of the session's raw line received at ``t_s`` (s, the driver's clock),
-        the line a sample with that time was read from; None when there is none."""
+    def newest_traffic_id(self) -> int:
+        """Return the id of the newest raw line recorded (0 when there is none)."""
         with self._lock:
-            row = self.db.execute(
-                "SELECT id FROM traffic WHERE session_id = ? AND direction = 'rx' AND t_s = ? "
-                "ORDER BY id DESC LIMIT 1",
-                (session_id, t_s),
-            ).fetchone()
-        return None if row is None else int(row[0])
+            return int(self.db.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""

@@ -6,22 +6,14 @@ exports call, so every number an operator sees is computed here, once. Partial i
 every value depending on it is None, never computed as if the factor were 1. Invalid inputs
 raise :class:`~chargebook.corrections.errors.InputError` naming the field, value and range.
 
-Factor states, one rule for every factor (where its value comes from):
-
-* "measured": computed from this session's measurements: the charge readings (k_pol, k_s) or the
-  thermometer and barometer readings (k_TP), whether typed in or sent by a sensor;
-* "entered": the factor's own value typed in from a certificate or the code of practice
-  (k_elec, N_D,w, k_Q);
-* "default": no measurement or entry gives the value; the protocols' conventional value is used
-  and the source says why. k_h is always 1 here: with 20–80 % RH entered the protocols' rule
-  gives 1 (the source says the entered humidity is in the band), with none entered 1 is assumed
-  (flag ``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``).
-  k_elec = 1 when none is entered, as for a chamber and electrometer calibrated together;
-* "carried": k_pol or k_s of a routine output check, which takes no opposite-polarity or
-  reduced-bias readings: the value measured in an earlier full calibration (or entered from a
-  calibration report), shown with its source and date (:mod:`chargebook.corrections.carried`);
-  its uncertainty enters the budget as Type B;
-* "pending": not known yet; every value depending on it is None.
+Factor states, one rule for every factor (where its value comes from), are defined once in
+:mod:`chargebook.corrections.factor_state`: measured, entered, default, carried (k_pol and k_s
+of a routine output check, from an earlier full calibration, with source and date), pending.
+k_h is always
+1 here and its state "default": with 20–80 % RH entered the protocols' rule gives 1 (the source
+says the entered humidity is in the band), with none entered 1 is assumed (flag
+``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``). k_elec = 1
+when none is entered ("default"), as for a chamber and electrometer calibrated together.
 """
 
 from __future__ import annotations
@@ -41,6 +33,7 @@ from chargebook.corrections.air_density import k_TP_relative_sensitivity
 from chargebook.corrections.carried import CARRIED_KEYS, CarriedFactor
 from chargebook.corrections.conventions import Convention, constants, parse_convention
 from chargebook.corrections.errors import Flag, InputError
+from chargebook.corrections.factor_state import FactorState
 from chargebook.corrections.monte_carlo import MonteCarloCheck, monte_carlo_check
 from chargebook.corrections.polarity import k_pol as k_pol_of
 from chargebook.corrections.recombination import (
@@ -86,7 +79,6 @@ from chargebook.corrections.units import Conversion
 FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw", "k_Q")
 #: Keys of the factors that make up the corrected charge (the rest turn it into dose).
 CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
-STATES: tuple[str, ...] = ("measured", "entered", "default", "carried", "pending")
 SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
 #: The sets that may have air of their own (``set_environments``): the result sets and the
 #: return check, whose mean is referred to the routine set's air before it is compared.
@@ -337,7 +329,7 @@ class Evaluation:
             result[key] = self.factors[key].value
         result["N_Dw_Gy_per_nC"] = self.factors["N_Dw"].value
         result["k_Q"] = self.factors["k_Q"].value
-        result["factor_states"] = {key: f.state for key, f in self.factors.items()}
+        result["factor_states"] = {key: str(f.state) for key, f in self.factors.items()}
         result["factor_sources"] = {key: f.source for key, f in self.factors.items()}
         result["factor_u_rel_pct"] = {key: f.u_rel_pct for key, f in self.factors.items()}
         result.update(
@@ -631,7 +623,7 @@ def _return_flags(check: ReturnCheck | None, limits_: Thresholds) -> list[Flag]:
 
 
 def _pending(symbol: str, needs: str) -> Factor:
-    return Factor(symbol, None, "pending", None, f"needs {needs}")
+    return Factor(symbol, None, FactorState.PENDING, None, f"needs {needs}")
 
 
 def _factor_k_TP(
@@ -650,7 +642,7 @@ def _factor_k_TP(
     )
     if air.source != SESSION_WIDE:
         source += f" (routine set: {air.source})"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
@@ -662,7 +654,7 @@ def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
         source = f"{humidity_pct:g} % RH entered, within {band}: 1 by rule"
     else:
         source = f"{humidity_pct:g} % RH entered, outside {band}: 1 used, see flags"
-    return Factor(symbol, 1.0, "default", 0.0, source)
+    return Factor(symbol, 1.0, FactorState.DEFAULT, 0.0, source)
 
 
 #: The polarity formula as each protocol prints it (they give the same number).
@@ -692,7 +684,7 @@ def _factor_k_pol(
     source = _K_POL_FORMULA[convention]
     if scales["opposite"] != 1.0:
         source += "; opposite-polarity mean referred to the routine set's air"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _factor_k_s(
@@ -721,7 +713,7 @@ def _factor_k_s(
     )
     if scales["reduced"] != 1.0:
         source += "; M2 referred to the routine set's air"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _carried_or(
@@ -744,7 +736,11 @@ def _carried_or(
             "is both measured and carried",
         )
     return Factor(
-        measured.symbol, factor.value, "carried", factor.u_pct, carried_module.state_source(factor)
+        measured.symbol,
+        factor.value,
+        FactorState.CARRIED,
+        factor.u_pct,
+        carried_module.state_source(factor),
     )
 
 
@@ -766,7 +762,7 @@ def _factor_entered(
 ) -> Factor:
     if value is None:
         return _pending(symbol, needs)
-    return Factor(symbol, value, "entered", u_rel_pct, f"entered{unit}")
+    return Factor(symbol, value, FactorState.ENTERED, u_rel_pct, f"entered{unit}")
 
 
 def _charge_ratio(
@@ -830,12 +826,14 @@ def _factors(
         Factor(
             symbols["k_elec"],
             1.0,
-            "default",
+            FactorState.DEFAULT,
             u.u_k_elec_pct or 0.0,
             "not entered; 1 (calibrated together)",
         )
         if checked.k_elec is None
-        else Factor(symbols["k_elec"], checked.k_elec, "entered", u.u_k_elec_pct, "entered")
+        else Factor(
+            symbols["k_elec"], checked.k_elec, FactorState.ENTERED, u.u_k_elec_pct, "entered"
+        )
     )
     u_N_Dw = None if u.u_N_Dw_pct_k2 is None else u.u_N_Dw_pct_k2 / u.k_N_Dw
     return {
@@ -894,11 +892,11 @@ def _model(
         return Estimate(stats.mean_nC * scale - offset, error, float(stats.count - 1))
 
     routine_air = air.routine
-    has_k_TP = factors["k_TP"].state != "pending" and routine_air is not None
+    has_k_TP = factors["k_TP"].state != FactorState.PENDING and routine_air is not None
     k_elec = factors["k_elec"]
     if k_elec.u_rel_pct is None:
         k_elec_source = NOT_GIVEN
-    elif k_elec.state == "entered":
+    elif k_elec.state == FactorState.ENTERED:
         k_elec_source = f"Type B: electrometer calibration, u = {k_elec.u_rel_pct:g} %"
     else:
         k_elec_source = f"Type B: {k_elec.symbol} not entered (calibrated together), u = " + (
@@ -945,9 +943,9 @@ def _model(
         convention,
         beam,
         estimate("routine"),
-        opposite_nC=estimate("opposite") if factors["k_pol"].state != "pending" else None,
-        reduced_nC=estimate("reduced") if factors["k_s"].state != "pending" else None,
-        voltage_ratio=checked.k_s_ratio if factors["k_s"].state != "pending" else None,
+        opposite_nC=estimate("opposite") if factors["k_pol"].state != FactorState.PENDING else None,
+        reduced_nC=estimate("reduced") if factors["k_s"].state != FactorState.PENDING else None,
+        voltage_ratio=checked.k_s_ratio if factors["k_s"].state != FactorState.PENDING else None,
         temperature_C=Estimate(routine_air.temperature_C, u.u_temperature_C) if has_k_TP else None,
         pressure_kPa=Estimate(routine_air.pressure_kPa, u.u_pressure_kPa) if has_k_TP else None,
         relative_inputs=relative,
@@ -1058,7 +1056,7 @@ def _session_flags(
             key, factors[key].symbol, carried, inputs.measured_on, limits_.carried_max_age_days
         )
     flags += stability.humidity_flags(checked.humidity_pct)
-    if factors["k_elec"].state == "default":
+    if factors["k_elec"].state == FactorState.DEFAULT:
         flags.append(
             Flag(
                 "k_elec_assumed",

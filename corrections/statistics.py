@@ -137,6 +137,7 @@ def set_statistics(
 
     Readings whose modified z-score exceeds ``outlier_threshold`` in magnitude and that lie
     more than ``outlier_floor_pct`` (%) from the median are outliers.
+    The first reading's offset is None when the others average zero (it would be infinite).
     Raises InputError for an empty set or a value that is not a finite number.
     """
     readings = readings_array(field, readings_nC)
@@ -153,7 +154,10 @@ def set_statistics(
         rel_range = float(relative_range_pct(readings))
     if count >= MINIMUM_FOR_TRENDS:
         drift = float(drift_pct_per_reading(readings))
-        offset = float(first_reading_offset_pct(readings))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            offset_pct = float(first_reading_offset_pct(readings))
+        # None when the other readings average zero: no offset relative to them exists
+        offset = offset_pct if np.isfinite(offset_pct) else None
         z = modified_z_scores(readings)
         median = np.median(readings)
         scale = abs(median) if median != 0 else abs(mean)

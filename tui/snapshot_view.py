@@ -183,20 +183,19 @@ def factor_value(results: Mapping[str, Any], key: str) -> float | None:
 
 
 def factor_rows(results: Mapping[str, Any] | None) -> list[tuple[str, str, str]]:
-    """Return (symbol for the convention, value, state) for each factor the results name.
-
-    A carried factor's state says where it came from and its date, as the daemon wrote it.
-    """
+    """Return (symbol for the convention, value, state) for each factor the daemon sent a state
+    for, in the model's order: no results, no rows (the console works out no state itself). A
+    carried factor's state says where it came from and its date, as the daemon wrote it."""
     if not results:
-        return [(key, text.PENDING, "pending") for key in FACTOR_KEYS[:5]]
+        return []
     symbols = results.get("symbols") or {}
     states = results.get("factor_states") or {}
     rows = []
     for key in FACTOR_KEYS:
-        if key not in states and factor_value(results, key) is None and key not in symbols:
+        if key not in states:
             continue
         value = factor_value(results, key)
-        state = str(states.get(key, "pending" if value is None else "entered"))
+        state = str(states[key])
         if state == "carried":
             state = str((results.get("factor_sources") or {}).get(key) or state)
         rows.append(

@@ -43,7 +43,8 @@ from e2e_support import (
     stop_process,
 )
 
-pytestmark = pytest.mark.e2e
+#: slow: every test here needs the recorded station, which takes about 25 s to record.
+pytestmark = [pytest.mark.e2e, pytest.mark.slow]
 
 #: Wall seconds per simulated second while recording: a quick-plan session takes about 4 s.
 TIME_SCALE = 0.01

@@ -74,3 +74,16 @@ def test_the_history_keeps_superseded_sets_with_their_reason():
 def test_an_instrument_disconnect_is_said_in_words():
     line = snapshot_view.instrument_text(load_snapshot("instrument_lost"))
     assert line.startswith("!! Electrometer DISCONNECTED")
+
+
+def test_factor_states_are_shown_as_the_daemon_sent_them_and_never_worked_out():
+    snapshot = load_snapshot("collecting")
+    results = dict(snapshot["results"])
+    states = dict(results["factor_states"])
+    del states["k_Q"]  # a state the daemon did not send: the console must not invent one
+    results["factor_states"] = states
+    shown = {state for _, _, state in snapshot_view.factor_rows(results)}
+    assert len(snapshot_view.factor_rows(results)) == len(states)
+    assert shown == set(states.values())
+    # No results (e.g. readings the results refuse): no factor is shown as "pending".
+    assert snapshot_view.factor_rows(None) == []
