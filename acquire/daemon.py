@@ -639,12 +639,36 @@ class Daemon:
             return {}
         if method == protocol.Method.STATUS:
             return self.snapshot()
+        if method == protocol.Method.SESSION_REVIEW:
+            return self._review(connection, params)
         try:
             with self.store.on_behalf_of(connection.account):
                 self._perform(method, params, connection.actor)
         finally:
             await self.after_change()  # a refused request may still have recorded something
         return self.snapshot()
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.review import record_review
+        from chargebook.corrections.errors import InputError
+
+        assert self.store is not None
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
+        with self.store.on_behalf_of(connection.account):
+            review = record_review(
+                self.store,
+                params["session"],
+                params["decision"],
+                params["reviewer"],
+                params["comment"],
+                allow_self_review=bool(params.get("allow_self_review", False)),
+            )
+        return review.to_dict()
 
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
         engine = self.engine

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 from chargebook.acquire.report_data import SessionRecord, load_record
 from chargebook.acquire.report_sections import Table, number, signed, when
+from chargebook.acquire.review import UNREVIEWED, review_status
 from chargebook.acquire.store import NotFound, SessionRow, Store
 from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
@@ -46,6 +47,8 @@ class HistoryPoint:
     #: The codes of the session's warning and error flags (info flags left out), as ``show``
     #: and the console list them.
     flags: tuple[str, ...] = ()
+    #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
+    review: str = UNREVIEWED
 
 
 @dataclass(frozen=True)
@@ -127,6 +130,7 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         within_tolerance=within,
         problem=problem,
         flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
+        review=review_status(record.review),
     )
 
 
@@ -171,7 +175,8 @@ def load_history(
     baseline: str = "expected",
     include_all: bool = False,
 ) -> History:
-    """Return the output history of ``beam`` (finished, non-replay sessions unless include_all)."""
+    """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
+    review, unless ``include_all`` (then every session, a rejected one marked)."""
     choice = parse_baseline(baseline)
     rows = [
         row
@@ -180,6 +185,8 @@ def load_history(
         and (include_all or (row.status == "finished" and row.replay_of is None))
     ]
     records = [load_record(store, row.id, check_chain=False) for row in rows]
+    if not include_all:
+        records = [r for r in records if review_status(r.review) != "rejected"]
     value, label = _baseline_value(choice, store, records)
     return History(
         beam=beam,
@@ -199,7 +206,7 @@ def history_table(history: History) -> Table:
             str(p.session_id),
             when(p.created_at),
             p.machine,
-            p.status,
+            p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",
             number(p.dose_per_MU_cGy, 4, "—"),
             number(p.expected_cGy_per_MU, 4, "—"),
             signed(p.deviation_pct, 2, "—"),

@@ -17,6 +17,7 @@ from typing import Any
 from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_data import SessionRecord, SetRecord
+from chargebook.acquire.review import review_words
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
@@ -78,6 +79,9 @@ def identity(record: SessionRecord) -> Table:
         convention = constants(meta.get("convention", convention)).title
     rows = [
         ("Session", f"{session.id} ({session.status})", "session"),
+        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
+        ("Station", _station_text(record), "station"),
+        ("Review", _review_text(record), "review"),
         ("Started", when(session.created_at), "created_at"),
         ("Closed", when(session.closed_at), "closed_at"),
         ("Treatment machine", str(meta.get("treatment_machine", NOT_GIVEN)), "treatment_machine"),
@@ -103,6 +107,17 @@ def identity(record: SessionRecord) -> Table:
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _station_text(record: SessionRecord) -> str:
+    station = record.station
+    return NOT_GIVEN if station is None else f"{station.name}, UUID {station.uuid}"
+
+
+def _review_text(record: SessionRecord) -> str:
+    review = record.review
+    words = review_words(review)
+    return words if review is None else f"{words}: {review.comment}"
 
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
