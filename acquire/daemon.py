@@ -82,6 +82,7 @@ class DaemonOptions:
     bench_control: str | None = None
     time_scale: float = 1.0
     thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
+    station_name: str | None = None  # the station's name; None: keep the recorded one
 
 
 # ------------------------------------------------------------------------ instrument thread
@@ -353,6 +354,8 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        if options.station_name:
+            self.store.name_station(options.station_name)
         bench = None
         if options.bench_control:
             from chargebook.acquire.bench import Bench
