@@ -8,10 +8,12 @@ daemon's own record (read back over a second connection, or from ``chargebook ru
 
 from __future__ import annotations
 
+import getpass
 import json
 import subprocess
 
 import pytest
+from chargebook.acquire.store import Store
 from chargebook.tui.app import ConsoleApp
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
@@ -248,10 +250,6 @@ async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_req
     simulator, daemon, metadata
 ):
     # The console was started as "console test"; the form says who measures (issue 15).
-    import getpass
-
-    from chargebook.acquire.store import Store
-
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:
         await start_session(pilot, app)
