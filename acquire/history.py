@@ -49,6 +49,7 @@ class HistoryPoint:
     flags: tuple[str, ...] = ()
     #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
     review: str = UNREVIEWED
+    session_uuid: str | None = None  # the session's id across stations
 
 
 @dataclass(frozen=True)
@@ -61,6 +62,7 @@ class History:
     baseline_label: str
     baseline_cGy_per_MU: float | None
     points: tuple[HistoryPoint, ...]
+    station_uuid: str | None = None  # the station that keeps the sessions
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -131,6 +133,7 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         problem=problem,
         flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
         review=review_status(record.review),
+        session_uuid=record.session.uuid,
     )
 
 
@@ -195,6 +198,7 @@ def load_history(
         baseline_label=label,
         baseline_cGy_per_MU=value,
         points=tuple(_point(record, value) for record in records),
+        station_uuid=store.station().uuid,
     )
 
 

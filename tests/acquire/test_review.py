@@ -161,5 +161,7 @@ def test_history_leaves_a_rejected_session_out_unless_all(station: Path, capsys)
     assert main([*history, "--all"]) == EXIT_OK
     points = {p["session_id"]: p for p in json.loads(capsys.readouterr().out)["points"]}
     assert points[4]["review"] == "rejected" and points[1]["review"] == "unreviewed"
+    with Store.open(station, read_only=True) as store:
+        assert points[4]["session_uuid"] == store.session(4).uuid  # carried in this export too
     assert main(["history", "--beam", "6 MV", "--db", str(station), "--all"]) == EXIT_OK
     assert "finished, rejected" in capsys.readouterr().out
