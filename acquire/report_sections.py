@@ -79,9 +79,6 @@ def identity(record: SessionRecord) -> Table:
         convention = constants(meta.get("convention", convention)).title
     rows = [
         ("Session", f"{session.id} ({session.status})", "session"),
-        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
-        ("Station", _station_text(record), "station"),
-        ("Review", _review_text(record), "review"),
         ("Started", when(session.created_at), "created_at"),
         ("Closed", when(session.closed_at), "closed_at"),
         ("Treatment machine", str(meta.get("treatment_machine", NOT_GIVEN)), "treatment_machine"),
@@ -98,6 +95,11 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+    rows[1:1] = [
+        ("Review", _review_text(record), "review"),
+        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
+        ("Station", _station_text(record), "station"),
+    ]
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
