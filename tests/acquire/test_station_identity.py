@@ -139,3 +139,17 @@ def test_every_export_carries_the_station_and_session_uuids(tmp_path: Path, caps
         station.uuid,
         station.name,
     )
+
+
+def test_serve_takes_the_station_name_and_refuses_a_blank_one(tmp_path: Path) -> None:
+    from chargebook.acquire.cli import build_parser
+    from chargebook.acquire.daemon_main import options_from_args
+    from chargebook.corrections.errors import InputError
+
+    serve = ["serve", "--profile", "lumen-q", "--port", "/dev/null", "--db", str(tmp_path / "s")]
+    args = build_parser().parse_args([*serve, "--station-name", "Physics bench 2"])
+    assert options_from_args(args, tmp_path / "d.sock").station_name == "Physics bench 2"
+    assert options_from_args(build_parser().parse_args(serve)).station_name is None
+    blank = build_parser().parse_args([*serve, "--station-name", "  "])
+    with pytest.raises(InputError, match="--station-name"):
+        options_from_args(blank)

@@ -104,3 +104,19 @@ async def test_the_daemon_refuses_approving_an_aborted_session_and_another_file(
     result = await client.call(protocol.Method.SESSION_REVIEW, decision="reject", **params)
     await client.close()
     assert (result["status"], result["reviewer"]) == ("rejected", REVIEWER)
+
+
+def test_serve_names_the_station_in_its_file(simulator, tmp_path):
+    from e2e_support import DaemonProcess
+
+    db = tmp_path / "named.sqlite"
+    args = ["serve", "--profile", simulator.profile, "--port", simulator.serial, "--db", str(db)]
+    args += ["--socket", str(tmp_path / "named" / "d.sock"), "--station-name", "Physics bench 2"]
+    daemon = DaemonProcess(args, tmp_path / "named" / "d.sock", db, tmp_path / "named.log")
+    try:
+        daemon.start()
+    finally:
+        daemon.stop()
+    with Store.open(db, read_only=True) as store:
+        assert store.station().name == "Physics bench 2"
+        assert [e.kind for e in store.events(None)].count("station_named") == 1
