@@ -17,6 +17,7 @@ from typing import Any
 from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_data import SessionRecord, SetRecord
+from chargebook.acquire.review import review_words
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
@@ -96,6 +97,11 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+    rows[1:1] = [
+        ("Review", _review_text(record), "review"),
+        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
+        ("Station", _station_text(record), "station"),
+    ]
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
@@ -105,6 +111,17 @@ def identity(record: SessionRecord) -> Table:
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _station_text(record: SessionRecord) -> str:
+    station = record.station
+    return NOT_GIVEN if station is None else f"{station.name}, UUID {station.uuid}"
+
+
+def _review_text(record: SessionRecord) -> str:
+    review = record.review
+    words = review_words(review)
+    return words if review is None else f"{words}: {review.comment}"
 
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
