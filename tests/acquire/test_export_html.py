@@ -90,25 +90,32 @@ def test_report_is_one_self_contained_page_with_the_caution(report) -> None:
     assert "script" not in parsed.tags and "img" not in parsed.tags
     assert parsed.links == []  # nothing fetched from elsewhere: one printable file
     assert parsed.cautions == [CAUTION, CAUTION]
+    # The result first; then the conditions, factors, sets, flags, budget, audit and review.
     assert parsed.sections == [
+        "Result",
         "Session",
         "Calibration",
+        "Reference conditions",
+        "Deliveries",
         "Environment",
+        "Correction factors",
         "Reading sets",
         "Readings",
-        "Correction factors",
-        "Results",
-        "Uncertainty budget",
+        "Results in detail",
         "Flags",
+        "Uncertainty budget",
         "Audit: redos, manual steps and status changes",
+        "Review and sign-off",
     ]
 
 
 def test_each_reading_set_has_a_plot_whose_points_are_the_stored_readings(report) -> None:
     parsed, store = report
-    assert parsed.figures == [str(s.id) for s in store.sets(1)]
+    # Every set with a beam has a plot; the leakage set (one integration, beam off) is a row.
+    beam_sets = [s for s in store.sets(1) if s.purpose != "leakage"]
+    assert parsed.figures == [str(s.id) for s in beam_sets]
     plotted = {int(p["data-reading-id"]): p for p in parsed.points}
-    readings = store.readings(1)
+    readings = [r for r in store.readings(1) if r.set_id in {s.id for s in beam_sets}]
     assert sorted(plotted) == [r.id for r in readings]
     for reading in readings:
         point = plotted[reading.id]
@@ -120,14 +127,14 @@ def test_each_reading_set_has_a_plot_whose_points_are_the_stored_readings(report
 def test_results_shown_agree_with_hand_physics_and_the_recomputed_evaluation(report) -> None:
     parsed, store = report
     evaluation = load_record(store, 1).evaluation
-    dose_per_MU = parsed.rows[("Results", "dose_per_MU_cGy")][1]
+    dose_per_MU = parsed.rows[("Results in detail", "dose_per_MU_cGy")][1]
     assert dose_per_MU == f"{evaluation.dose_per_MU_cGy:.4f}"
     assert float(dose_per_MU) == pytest.approx(hand_dose_per_MU_cGy(), abs=5e-5)
     # IAEA TRS-398 air density correction at 21.8 °C, 100.6 kPa, reference 20 °C, 101.325 kPa.
     k_TP = (273.2 + 21.8) / (273.2 + 20.0) * (101.325 / 100.6)
     assert parsed.rows[("Correction factors", "k_TP")][:3] == ["k_TP", f"{k_TP:.5f}", "measured"]
-    assert parsed.rows[("Results", "within_tolerance")][1] == "yes"
-    expanded = parsed.rows[("Results", "U_expanded_pct")][1]
+    assert parsed.rows[("Results in detail", "within_tolerance")][1] == "yes"
+    expanded = parsed.rows[("Results in detail", "U_expanded_pct")][1]
     assert expanded == f"{evaluation.U_expanded_pct:.2f}"
     budget = [row for (section, _), row in parsed.rows.items() if section == "Uncertainty budget"]
     assert [row[0] for row in budget] == [c.component for c in evaluation.budget]
@@ -143,16 +150,20 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
     instrument = parsed.rows[("Session", "instrument")][1]
     assert "serial EM-2093" in instrument and "model EM-1" in instrument
     audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
-    superseded = [row for row in audit if row[2] == "set status"]
-    assert len(superseded) == 1 and SUPERSEDE_REASON in superseded[0][3]
+    # In words, steps numbered from 1 as the console numbers them: the opposite-polarity set
+    # is the plan's third step (step_index 2).
+    superseded = [row for row in audit if row[2] == "Step 3, opposite polarity: redone"]
+    assert len(superseded) == 1
+    assert superseded[0][3] == f"attempt 1 (set 3) superseded, reason: {SUPERSEDE_REASON}"
     manual = [row for row in audit if row[2] == "manual capture"]
     assert [row[1:] for row in manual] == [
         ["R. Okafor", "manual capture", "-14.7770 nC in set 4 (opposite)"]
     ]
-    assert any(row[2] == "session status" and "to: finished" in row[3] for row in audit)
+    assert ["session finished", "was open, reason: plan complete"] in [row[2:] for row in audit]
     # The bias turned by hand is a manual step; the remote one is routine and left out.
-    bias = [row[1:] for row in audit if row[2] == "bias changed"]
-    assert bias == [["R. Okafor", "bias changed", "how: by hand, volts: -300.0"]]
+    bias = [row[1:] for row in audit if row[2] == "bias changed by hand"]
+    assert bias == [["R. Okafor", "bias changed by hand", "to -300 V"]]
+    assert not any("step_index" in cell or "step_key" in cell for row in audit for cell in row)
 
 
 def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
@@ -173,5 +184,7 @@ def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
         parsed = Report()
         parsed.feed(to_html(load_record(store, second)))
     assert parsed.rows[("Correction factors", "k_TP")][1:3] == ["pending", "pending"]
-    assert parsed.rows[("Results", "dose_per_MU_cGy")][1] == "pending"
-    assert parsed.rows[("Results", "M_raw_nC")][1] == "14.7500"
+    assert parsed.rows[("Results in detail", "dose_per_MU_cGy")][1] == "pending"
+    assert parsed.rows[("Results in detail", "M_raw_nC")][1] == "14.7500"
+    assert parsed.rows[("Result", "dose_per_MU_cGy")][1] == "pending"
+    assert parsed.rows[("Result", "verdict")][1].startswith("pending")
