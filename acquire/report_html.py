@@ -98,8 +98,11 @@ def readings_figure(
         ys = deviations_from_mean_pct(charges_nC, mean_nC)
         step_pct = None if resolution_nC is None else resolution_pct(resolution_nC, mean_nC)
         decimals = None if step_pct is None else max(0, math.ceil(-math.log10(step_pct)))
-        lines = [Line(0.0, f"mean {mean_nC:.4f} nC", True)]
-        y_label, scale = "reading − mean (% of mean)", "% of the set mean"
+        lines = [Line(0.0, "", True)]  # the mean, stated in the caption: no label over a point
+        y_label, scale = (
+            "reading − mean (% of mean)",
+            f"% of the set mean ({mean_nC:.4f} nC, dashed)",
+        )
     else:
         ys, step_pct, decimals, lines = tuple(charges_nC), None, None, []
         y_label, scale = "charge (nC)", "charge in nC"

@@ -151,10 +151,11 @@ def plot(
             f'<line class="ref" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" '
             f'y1="{y:.1f}" y2="{y:.1f}"{dash} data-y="{line.y!r}"/>'
         )
-        labels.append(  # drawn last, over the points, with a halo
-            f'<text class="ref-label" x="{WIDTH - MARGIN_RIGHT - 2}" y="{y - 3:.1f}" '
-            f'text-anchor="end"{HALO}>{escape(line.label)}</text>'
-        )
+        if line.label:  # drawn last, over the points, with a halo
+            labels.append(
+                f'<text class="ref-label" x="{WIDTH - MARGIN_RIGHT - 2}" y="{y - 3:.1f}" '
+                f'text-anchor="end"{HALO}>{escape(line.label)}</text>'
+            )
     for point in points:
         attrs = "".join(f' data-{k}="{escape(str(v))}"' for k, v in point.attrs.items())
         css = "point" + (" hollow" if point.hollow else "") + (" alarm" if point.alarm else "")

@@ -6,6 +6,9 @@ Cancer Centre, HCC-LA1 6 MV; not a real measurement).
 
 from __future__ import annotations
 
+import itertools
+import re
+import statistics
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -14,7 +17,7 @@ from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.export import to_html
 from chargebook.acquire.report_data import load_record
 from chargebook.acquire.store import Store
-from recorded_session import SUPERSEDE_REASON, record_example_session
+from recorded_session import SUPERSEDE_REASON, example_plan, record_example_session
 from test_export import hand_dose_per_MU_cGy
 
 
@@ -188,3 +191,64 @@ def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:
     assert parsed.rows[("Results in detail", "M_raw_nC")][1] == "14.7500"
     assert parsed.rows[("Result", "dose_per_MU_cGy")][1] == "pending"
     assert parsed.rows[("Result", "verdict")][1].startswith("pending")
+
+
+def test_set_plots_are_in_percent_of_the_set_mean_with_ticks_at_the_recorded_resolution(
+    tmp_path: Path,
+) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        record_example_session(store)
+    with Store.open(path, read_only=True) as store:
+        html = to_html(load_record(store, 1))
+        routine = next(s for s in store.sets(1) if s.step_key == "routine")
+        charges = {r.id: r.charge_nC for r in store.readings(1) if r.set_id == routine.id}
+        used = [r.charge_nC for r in store.readings(1) if r.set_id == routine.id and not r.settling]
+    parsed = Report()
+    parsed.feed(html)
+    mean = statistics.fmean(used)  # the Python standard library's mean, an independent oracle
+    for point in (p for p in parsed.points if int(p["data-reading-id"]) in charges):
+        expected = 100.0 * (charges[int(point["data-reading-id"])] - mean) / mean
+        assert float(point["data-plotted"]) == pytest.approx(expected, abs=1e-9)
+    figure = html[html.index(f'data-set-id="{routine.id}"') :]
+    figure = figure[: figure.index("</figure>")]
+    # The example's charges are written to 0.001 nC: 0.0068 % of a 14.75 nC mean, so the
+    # tick labels carry three decimals and are at least 0.01 % apart.
+    assert "readings recorded to 0.001 nC (0.0068 % of the mean)" in figure
+    ticks = re.findall(r'class="tick" x="[\d.]+" y="[\d.]+" text-anchor="end" '
+                       r'data-value="([^"]+)">([^<]+)<', figure)  # fmt: skip
+    assert len(ticks) >= 2
+    assert all(re.fullmatch(r"[+-]?\d+\.\d{3}", label) for _, label in ticks), ticks
+    values = sorted(float(value) for value, _ in ticks)
+    assert min(b - a for a, b in itertools.pairwise(values)) >= 0.01 - 1e-12
+
+
+def test_the_report_states_the_mu_per_reading_of_each_set(report) -> None:
+    parsed, store = report
+    mu = example_plan().steps[1].mu_per_reading  # the example worksheet's monitor_units
+    for reading_set in store.sets(1):
+        row = parsed.rows[("Reading sets", f"set-{reading_set.id}")]
+        expected = "beam off" if reading_set.purpose == "leakage" else f"{mu:g} MU"
+        assert row[4] == expected
+    assert parsed.rows[("Deliveries", "step-2")][:3] == [
+        "Step 2, routine setting",
+        "+300 V",
+        "100 MU",
+    ]
+
+
+def test_the_result_comes_first_with_pass_or_fail_and_the_expanded_uncertainty(report) -> None:
+    parsed, store = report
+    evaluation = load_record(store, 1).evaluation
+    assert parsed.sections[0] == "Result"
+    assert parsed.rows[("Result", "dose_per_MU_cGy")] == [
+        "dose per MU",
+        f"{evaluation.dose_per_MU_cGy:.4f} cGy/MU",
+    ]
+    assert parsed.rows[("Result", "deviation_pct")][1] == f"{evaluation.deviation_pct:+.2f} %"
+    # The example's tolerance is ±1 % (its worksheet), the deviation well inside it.
+    assert parsed.rows[("Result", "verdict")][1] == "PASS: within the tolerance of ±1 % (entered)"
+    assert parsed.rows[("Result", "U_expanded_pct")][1].startswith(
+        f"{evaluation.U_expanded_pct:.2f} % (k = "
+    )
+    assert parsed.rows[("Review and sign-off", "reviewed-by")] == ["", "", ""]
