@@ -14,7 +14,14 @@ from typing import Any
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.protocol import SEVERITY_ORDER
 from chargebook.acquire.report_audit import step_words
-from chargebook.acquire.report_sections import NOT_GIVEN, PENDING, Table, number, signed
+from chargebook.acquire.report_sections import (
+    NOT_GIVEN,
+    PENDING,
+    Table,
+    keyed_table,
+    number,
+    signed,
+)
 from chargebook.corrections.evaluate import Evaluation
 
 #: Reference conditions a session's metadata may state: key -> label (with its unit).
@@ -104,13 +111,7 @@ def result_table(
             ),
             ("flags", "flags", flag_count_text(evaluation)),
         ]
-    return Table(
-        "Result",
-        ("quantity", "value"),
-        tuple((label, value) for _, label, value in rows),
-        tuple(key for key, _, _ in rows),
-        extra={"class": "result"},
-    )
+    return keyed_table("Result", rows, **{"class": "result"})
 
 
 def _with_unit(text: str, unit: str) -> str:
@@ -157,6 +158,7 @@ def reference_conditions_table(metadata: Mapping[str, Any]) -> Table:
         tuple(key for key, _ in REFERENCE_CONDITIONS if metadata.get(key)),
         note=""
         if rows
-        else "Not recorded with this measurement: state the phantom, depth, SSD or SAD and "
-        "field size of the local code of practice beside the signatures.",
+        else "Not recorded as fields with this measurement (see any notes above): state the "
+        "phantom, depth, SSD or SAD and field size of the local code of practice beside the "
+        "signatures.",
     )

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -38,6 +39,20 @@ class Table:
     keys: tuple[str, ...] = ()
     note: str = ""
     extra: dict[str, Any] = field(default_factory=dict)
+
+
+def keyed_table(
+    title: str, rows: Sequence[tuple[str, str, str]], note: str = "", **extra: Any
+) -> Table:
+    """Return a two-column (item, value) table from (key, label, value) rows."""
+    return Table(
+        title,
+        ("item", "value"),
+        tuple((label, value) for _, label, value in rows),
+        tuple(key for key, _, _ in rows),
+        note=note,
+        extra=extra,
+    )
 
 
 def number(value: float | None, digits: int, missing: str = PENDING) -> str:

@@ -17,17 +17,22 @@ import subprocess
 import tempfile
 from pathlib import Path
 
+import chargebook.acquire
 import pytest
+from chargebook.acquire.cli import EXIT_OK, main
 from chargebook.acquire.export import to_html
 from chargebook.acquire.report_data import load_record
 from chargebook.acquire.report_print import SignOff, review_block
 from chargebook.acquire.store import Store
+from chargebook.acquire.worksheet import read_worksheet
+from chargebook.corrections.evaluate import evaluate
 from recorded_session import record_long_session
 from test_export_html import Report
 
 #: PDF page sizes in points (1/72 in): Letter 8.5 × 11 in, A4 210 × 297 mm (ISO 216).
 LETTER_PT = (612, 792)
 A4_PT = (595, 842)
+EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 
 
 def _tool(name: str, package: str) -> str:
@@ -93,28 +98,48 @@ def long_report(tmp_path_factory) -> tuple[str, int, float]:
         return to_html(record), session_id, record.evaluation.dose_per_MU_cGy
 
 
-@pytest.mark.e2e
-@pytest.mark.parametrize(("paper", "size_pt"), [("auto", LETTER_PT), ("A4", A4_PT)])
-def test_every_printed_page_carries_the_session_and_page_n_of_m(
-    long_report, tmp_path: Path, paper: str, size_pt: tuple[int, int]
-) -> None:
-    html, session_id, dose_per_MU = long_report
+def printed_pages(html: str, folder: Path, paper: str, running_head: str) -> list[str]:
+    """Print ``html`` on ``paper`` (auto: the printer's, Letter here; or A4) and return its
+    pages' text, having checked the paper size and that every page carries ``running_head``
+    and "page n of m"."""
     if paper != "auto":  # the printer's choice, as a print dialog would make it
         html = html.replace("size: auto;", f"size: {paper};", 1)
-    source = tmp_path / "report.html"
+    source = folder / "report.html"
     source.write_text(html, encoding="utf-8")
-    pdf = tmp_path / "report.pdf"
+    pdf = folder / "report.pdf"
     print_to_pdf(source, pdf)
-    assert page_size_pt(pdf) == size_pt
+    assert page_size_pt(pdf) == (A4_PT if paper == "A4" else LETTER_PT)
     pages = pdf_pages(pdf)
-    assert len(pages) >= 3, "the long session should need several pages"
     for number, text in enumerate(pages, start=1):
-        assert f"chargebook session {session_id} " in text, f"page {number} has no session id"
+        assert running_head in text, f"page {number} has no {running_head!r}"
         assert f"page {number} of {len(pages)}" in text, f"page {number} is not numbered"
+    return pages
+
+
+@pytest.mark.e2e
+@pytest.mark.parametrize("paper", ["auto", "A4"])
+def test_every_printed_page_carries_the_session_and_page_n_of_m(
+    long_report, tmp_path: Path, paper: str
+) -> None:
+    html, session_id, dose_per_MU = long_report
+    pages = printed_pages(html, tmp_path, paper, f"chargebook session {session_id} ")
+    assert len(pages) >= 3, "the long session should need several pages"
     first = pages[0]
     assert re.search(rf"dose per MU\s+{dose_per_MU:.4f} cGy/MU", first), first
     assert "PASS: within the tolerance" in first
     assert "Reviewed by" in pages[-1] and "signature" in pages[-1]
+
+
+@pytest.mark.e2e
+def test_a_printed_worksheet_carries_its_file_name_on_every_page(tmp_path: Path) -> None:
+    worksheet = EXAMPLES / "hcc-la1-6mv.toml"
+    target = tmp_path / "worksheet.html"
+    assert main(["correct", str(worksheet), "--html", "-o", str(target)]) == EXIT_OK
+    dose_per_MU = evaluate(read_worksheet(worksheet).inputs).dose_per_MU_cGy
+    html = target.read_text(encoding="utf-8")
+    pages = printed_pages(html, tmp_path, "A4", "chargebook worksheet hcc-la1-6mv.toml")
+    assert len(pages) >= 2
+    assert re.search(rf"dose per MU\s+{dose_per_MU:.4f} cGy/MU", pages[0]), pages[0]
 
 
 def test_the_print_rules_fit_a4_and_letter_and_keep_rows_whole(long_report) -> None:
