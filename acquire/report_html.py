@@ -176,11 +176,32 @@ def budget_with_coverage(table: Table, evaluation: Evaluation | None) -> Table:
     return dataclasses.replace(table, note=table.note + stated)
 
 
+#: The event a review and sign-off records (reviewer, status approved or rejected, comment).
+REVIEW_EVENT = "session_reviewed"
+
+
+def recorded_sign_off(record: SessionRecord) -> SignOff | None:
+    """Return the session's review as the review block shows it: its first ``session_reviewed``
+    event (the one that stands), or None while the session is unreviewed."""
+    for event in record.events:
+        if event.kind == REVIEW_EVENT:
+            detail = event.detail()
+            return SignOff(
+                str(detail.get("reviewer", NOT_GIVEN)),
+                str(detail.get("status", NOT_GIVEN)),
+                str(detail.get("comment") or ""),
+                when(event.recorded_at),
+            )
+    return None
+
+
 def session_html(record: SessionRecord, generated: str, review: SignOff | None = None) -> str:
     """Return the session's report as one self-contained, printable HTML page.
 
-    ``review``: the session's recorded review, for the review block (None: empty lines).
+    ``review``: the review for the review block; by default the recorded one
+    (:func:`recorded_sign_off`), and empty signature lines while there is none.
     """
+    review = review or recorded_sign_off(record)
     session, meta = record.session, record.metadata
     machine = meta.get("treatment_machine", NOT_GIVEN)
     beam = meta.get("beam", session.beam)
@@ -192,6 +213,7 @@ def session_html(record: SessionRecord, generated: str, review: SignOff | None =
     missing = f"No results: {record.results_error}" if record.results_error else "No results."
     context = [
         ("session", "session", f"{session.id} ({session.status})"),
+        ("review", "review", "not yet reviewed" if review is None else _review_words(review)),
         ("beam", "treatment machine and beam", f"{machine}, {beam}"),
         ("measured", "measured", f"{when(session.created_at)} by {operator}"),
     ]
@@ -222,6 +244,10 @@ def session_html(record: SessionRecord, generated: str, review: SignOff | None =
     title = f"chargebook session {session.id}: {machine} {beam}"
     running_head = f"chargebook session {session.id} · {machine} {beam}"
     return page(title, running_head, generated, body)
+
+
+def _review_words(review: SignOff) -> str:
+    return f"{review.decision} by {review.reviewer} on {review.when}"
 
 
 def history_html(history: History, history_table: Table, generated: str) -> str:

@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.export import to_html
+from chargebook.acquire.protocol import by_severity
 from chargebook.acquire.report_data import load_record
 from chargebook.acquire.store import Store
 from recorded_session import SUPERSEDE_REASON, example_plan, record_example_session
@@ -252,3 +253,46 @@ def test_the_result_comes_first_with_pass_or_fail_and_the_expanded_uncertainty(r
         f"{evaluation.U_expanded_pct:.2f} % (k = "
     )
     assert parsed.rows[("Review and sign-off", "reviewed-by")] == ["", "", ""]
+
+
+def test_a_recorded_review_fills_the_review_block_and_the_result(tmp_path: Path) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        session_id = record_example_session(store)
+        # The event a review records (branch signoff's `chargebook review`), written here
+        # through the Store API: a second, named person approves with a comment.
+        store.add_event(
+            session_id,
+            "B. Lind",
+            "session_reviewed",
+            {"status": "approved", "reviewer": "B. Lind", "comment": "k_s checked by hand"},
+        )
+    with Store.open(path, read_only=True) as store:
+        record = load_record(store, session_id)
+        reviewed_at = next(e for e in record.events if e.kind == "session_reviewed").recorded_at
+        parsed = Report()
+        parsed.feed(to_html(record))
+    stamp = reviewed_at[:19].replace("T", " ") + " UTC"
+    assert parsed.rows[("Review and sign-off", "reviewed-by")] == ["B. Lind", stamp, ""]
+    assert parsed.rows[("Review and sign-off", "measured-by")][0] == "R. Okafor"
+    assert parsed.rows[("Review and sign-off", "decision")] == ["approved: k_s checked by hand"]
+    assert parsed.rows[("Result", "review")][1] == f"approved by B. Lind on {stamp}"
+
+
+def test_a_failed_output_says_fail_first_and_lists_flags_worst_first(tmp_path: Path) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        # Every charge 3 % high: the dose per MU is 3 % above its expected value, outside the
+        # example's ±1 % tolerance (invented data). No k_elec and no u(k_Q): two info flags,
+        # which the evaluation raises before the warning.
+        record_example_session(store, scale=1.03, k_elec=None, u_k_Q_pct=None)
+    with Store.open(path, read_only=True) as store:
+        record = load_record(store, 1)
+        parsed = Report()
+        parsed.feed(to_html(record))
+    assert record.evaluation.within_tolerance is False
+    assert parsed.rows[("Result", "verdict")][1].startswith("FAIL: outside the tolerance of ±1 %")
+    shown = [row for (section, _), row in parsed.rows.items() if section == "Flags"]
+    assert [f.severity for f in record.evaluation.flags] == ["info", "info", "warning"]
+    assert [row[0] for row in shown] == ["! warning", "i info", "i info"]
+    assert [row[1] for row in shown] == [f.message for f in by_severity(record.evaluation.flags)]
