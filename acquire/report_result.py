@@ -56,13 +56,23 @@ def expanded_uncertainty_text(evaluation: Evaluation) -> str:
         return (
             f"{evaluation.U_expanded_pct:.2f} % (k = 2; effective degrees of freedom not evaluated)"
         )
-    if found.get("effective_dof_infinite"):
-        dof = "∞ (Type B only)"
-    else:
-        dof = number(found.get("effective_dof"), 1, NOT_GIVEN)
+    dof = _dof_text(found.get("effective_dof"), bool(found.get("effective_dof_infinite")))
     probability = found.get("coverage_probability")
     coverage = "" if probability is None else f", coverage probability {100 * probability:g} %"
     return f"{evaluation.U_expanded_pct:.2f} % (k = {k:.2f}, ν_eff = {dof}{coverage})"
+
+
+#: Above this, ν_eff is said in words: k no longer changes at the digits shown.
+SHOWN_DOF_LIMIT = 1000
+
+
+def _dof_text(dof: float | None, infinite: bool) -> str:
+    """Return ν_eff as shown: one decimal, "above 1000", or ∞ when every input is Type B."""
+    if infinite:
+        return "∞ (Type B only)"
+    if dof is None:
+        return NOT_GIVEN
+    return f"{dof:.1f}" if dof < SHOWN_DOF_LIMIT else f"above {SHOWN_DOF_LIMIT}"
 
 
 def flag_count_text(evaluation: Evaluation) -> str:
