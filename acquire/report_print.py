@@ -31,7 +31,6 @@ th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; text-align: left; vertica
 th { background: #eee; }
 td.num { text-align: right; white-space: nowrap; font-variant-numeric: tabular-nums; }
 p.note { font-size: 0.85em; color: #444; margin: 0.2em 0; }
-p.running { font-size: 0.85em; color: #444; margin: 0; }
 .caution { border: 2px solid #333; padding: 0.6em 0.8em; font-weight: 600; }
 table.result { font-size: 1.05em; }
 table.result td:first-child { width: 14em; font-weight: 600; }
@@ -77,14 +76,11 @@ def page_rules(running_head: str, generated: str) -> str:
     )
 
 
-def page(
-    title: str, running_head: str, generated: str, body: Sequence[str], *, stamp: str = ""
-) -> str:
+def page(title: str, running_head: str, generated: str, body: Sequence[str]) -> str:
     """Return one self-contained, printable HTML page: the caution at the top and the bottom.
 
     ``running_head`` is printed on every page (the session id, or the worksheet's name);
-    ``generated`` says when and by which version the file was made; ``stamp`` is a short
-    date for the top-right corner of each printed page (default: ``generated``).
+    ``generated`` says when and by which version the file was made (also on every page).
     """
     caution = f'<p class="caution" data-key="caution">{escape(CAUTION)}</p>'
     return "\n".join(
@@ -94,11 +90,10 @@ def page(
             "<head>",
             '<meta charset="utf-8">',
             f"<title>{escape(title)}</title>",
-            f"<style>{page_rules(running_head, stamp or generated)}{STYLE}</style>",
+            f"<style>{page_rules(running_head, generated)}{STYLE}</style>",
             "</head>",
             "<body>",
             f"<h1>{escape(title)}</h1>",
-            f'<p class="running" data-key="running-head">{escape(running_head)}</p>',
             f'<p class="note">{escape(generated)}</p>',
             caution,
             *body,
