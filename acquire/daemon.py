@@ -84,6 +84,21 @@ RETRY_S = 0.5
 LINES_WAIT_MS = 200
 
 
+class LineRef:
+    """A raw line received from the instrument, kept for the next traffic commit; ``id`` is
+    its row id once committed (None before, or if it could not be recorded). A sample carries
+    the LineRef of the line it was read from, so its reading names that line."""
+
+    __slots__ = ("id",)
+
+    def __init__(self) -> None:
+        self.id: int | None = None
+
+    def written(self, line_id: int | None) -> None:
+        """Take the line's row id, as the store tells it (None: not written after all)."""
+        self.id = line_id
+
+
 @dataclass(frozen=True)
 class DaemonOptions:
     """What ``chargebook serve`` was asked for."""
@@ -97,6 +112,7 @@ class DaemonOptions:
     bench_control: str | None = None
     time_scale: float = 1.0
     thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
+    station_name: str | None = None  # the station's name; None: keep the recorded one
 
 
 # ------------------------------------------------------------------------ instrument thread
@@ -104,7 +120,8 @@ class InstrumentLink(threading.Thread):
     """The thread that owns the electrometer (see the module docstring).
 
     ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
-    Sample)), ``connected`` (identity text or None), ``lost`` (message) and ``fault`` (message).
+    (Sample, LineRef of its raw line or None))), ``connected`` (identity text or None),
+    ``lost`` (message) and ``fault`` (message).
     ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
     commit; it is called before every ``post`` and after every turn of the thread's loop, so no
     line waits longer than one turn. What the engine must hear of after lines that could not be
@@ -120,15 +137,21 @@ class InstrumentLink(threading.Thread):
         bench: Any = None,
         clock: Callable[[], float] = time.monotonic,
         flush: Callable[[], bool] = lambda: True,
+        line_of: Callable[[], LineRef | None] = lambda: None,
     ) -> None:
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
         self.post = post
         self.flush = flush
+        self.line_of = line_of  # the latest line received: the one a sample just read came from
         self.bench = bench
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
         self.generation: int | None = None  # samples are read while this is set
+        #: The session the lines now sent and received belong to: set in order with the
+        #: commands (:meth:`lines_for`), so a command issued for one session is recorded with
+        #: it even when the loop has moved on to the next session before the line goes out.
+        self.session_id: int | None = None
         self.fresh_after_s = 0.0  # samples received before this are stale
         self.connected = False
         self._timeouts = 0
@@ -142,6 +165,10 @@ class InstrumentLink(threading.Thread):
     def send(self, command: Command) -> None:
         """Queue one engine command."""
         self.inbox.put(("command", command))
+
+    def lines_for(self, session_id: int | None) -> None:
+        """Record the lines of the commands queued from now on with ``session_id``."""
+        self.inbox.put(("session", session_id))
 
     def sample_for(self, generation: int | None) -> None:
         """Read samples tagged ``generation`` from now on (None: stop reading)."""
@@ -227,6 +254,8 @@ class InstrumentLink(threading.Thread):
                 return
             if kind == "sampling":
                 self.generation = value
+            elif kind == "session":
+                self.session_id = value
             elif kind == "command" and value.action in ("beam", "bench_bias"):
                 self._bench(value)
             else:
@@ -254,6 +283,8 @@ class InstrumentLink(threading.Thread):
                     return
                 if kind == "sampling":
                     self.generation = value
+                elif kind == "session":
+                    self.session_id = value
                 elif kind == "command":
                     self._execute(value)
                 try:
@@ -320,7 +351,7 @@ class InstrumentLink(threading.Thread):
             self._hand_over("fault", str(error))
 
     def _read_samples(self, pushes: bool) -> None:
-        samples: list[Sample] = []
+        samples: list[tuple[Sample, LineRef | None]] = []
         try:
             if pushes:
                 self._drain_pushed(samples)
@@ -329,14 +360,14 @@ class InstrumentLink(threading.Thread):
                 if now_s < self._next_poll_s:
                     return
                 self._next_poll_s = now_s + POLL_INTERVAL_S
-                samples.append(self.electrometer.read_charge())
+                samples.append((self.electrometer.read_charge(), self.line_of()))
             self._timeouts = 0
         finally:  # samples read before a disconnection are still handed over
-            fresh = [s for s in samples if s.t_s >= self.fresh_after_s]
+            fresh = [pair for pair in samples if pair[0].t_s >= self.fresh_after_s]
             if fresh:
                 self._hand_over("samples", (self.generation, fresh))
 
-    def _drain_pushed(self, samples: list[Sample]) -> None:
+    def _drain_pushed(self, samples: list[tuple[Sample, LineRef | None]]) -> None:
         """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next one
         within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH.
 
@@ -351,7 +382,7 @@ class InstrumentLink(threading.Thread):
             else:
                 if sample is None:
                     return
-                samples.append(sample)
+                samples.append((sample, self.line_of()))
             timeout_s = BURST_GAP_S
 
 
@@ -384,7 +415,11 @@ class Daemon:
         self._files: RecordFiles | None = None
         self._files_checked_at = 0.0
         self._events_tried_at = 0.0
+        self._latest_received: LineRef | None = None  # the newest received line's ref
         self._generation = 0
+        self._line_session: int | None = None  # the session last given to the link's lines
+        #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
+        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
@@ -402,6 +437,8 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        if options.station_name:
+            self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
         bench = None
         if options.bench_control:
@@ -433,7 +470,12 @@ class Daemon:
             loop.call_soon_threadsafe(self._events.put_nowait, (kind, payload))
 
         self.link = InstrumentLink(
-            electrometer, post, bench=bench, clock=self.clock, flush=self._commit_traffic
+            electrometer,
+            post,
+            bench=bench,
+            clock=self.clock,
+            flush=self._commit_traffic,
+            line_of=lambda: self._latest_received,
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
@@ -444,9 +486,13 @@ class Daemon:
         """
         if self.store is None:
             return
-        session_id = self.engine.session_id if self.engine is not None else None
+        session_id = self.link.session_id if self.link is not None else None
         stamp = self.store.stamp()
-        self.store.keep_traffic((session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw)))
+        ref = None
+        if direction == TrafficDirection.RECEIVED:
+            ref = self._latest_received = LineRef()
+        line = (session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw))
+        self.store.keep_traffic(line, None if ref is None else ref.written)
 
     def _commit_traffic(self) -> bool:
         """Commit the raw lines kept so far in one transaction (instrument thread only); return
@@ -519,6 +565,7 @@ class Daemon:
         assert self.engine is not None and self.link is not None and self.store is not None
         self._record_start()
         resumed = self.engine.restore()
+        self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
         self.link.start()
         info = {
@@ -682,8 +729,6 @@ class Daemon:
         assert engine is not None
         if kind == "connected":
             engine.instrument_back(payload)
-            if payload:
-                self._identified(payload)
         elif kind == "lost":
             engine.instrument_lost(payload)
         elif kind == "fault":
@@ -691,28 +736,24 @@ class Daemon:
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 
-    def _feed(self, generation: int | None, samples: list[Sample]) -> None:
+    def _feed(self, generation: int | None, samples: list[tuple[Sample, LineRef | None]]) -> None:
         """Give the engine the samples of the reading now armed, until one completes it."""
         assert self.engine is not None
         engine = self.engine
-        for index, sample in enumerate(samples):
+        for index, (sample, line) in enumerate(samples):
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
             try:
-                engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+                engine.on_sample(
+                    sample.t_s,
+                    sample.charge_nC,
+                    sample.complete,
+                    sample.status.value,
+                    line_id=None if line is None else line.id,
+                )
             except Exception:
                 del samples[:index]  # those were taken; the rest are tried again
                 raise
-
-    def _identified(self, identity: str) -> None:
-        assert self.store is not None and self.engine is not None
-        self._events_checked_at = None
-        self.store.add_event(
-            self.engine.session_id,
-            "daemon",
-            "instrument_identified",
-            {"identity": identity, "profile": self.engine.profile},
-        )
 
     async def _tick(self) -> None:
         assert self.engine is not None
@@ -741,6 +782,9 @@ class Daemon:
         """Send the engine's commands to the instrument and publish what changed."""
         assert self.engine is not None and self.link is not None
         engine = self.engine
+        if engine.session_id != self._line_session:  # a session began or was left
+            self._line_session = engine.session_id
+            self.link.lines_for(engine.session_id)
         for command in engine.take_commands():
             self.link.send(command)
         if engine.reading is not self._sampled_reading:
@@ -786,9 +830,23 @@ class Daemon:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
         return self._snapshot_and_line()[0]
 
-    def _snapshot_and_line(self) -> tuple[dict[str, Any], bytes | None]:
+    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
         """Return the engine's snapshot, trimmed to fit one message if it must be, and its
-        notification line, encoded once (None if even the trimmed snapshot does not fit)."""
+        notification line, encoded once (None if even the trimmed snapshot does not fit).
+
+        ``reuse``: the one built last, if nothing changed since (``engine.seq``), so that an
+        action's reply is the snapshot its change was published with, built once.
+        """
+        assert self.engine is not None
+        built = self._built
+        if reuse and built is not None and built[0] == self.engine.seq:
+            return built[1], built[2]
+        seq = self.engine.seq
+        snapshot, line = self._build_snapshot()
+        self._built = (seq, snapshot, line)
+        return snapshot, line
+
+    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         try:
@@ -825,6 +883,8 @@ class Daemon:
             return {}
         if method == protocol.Method.STATUS:
             return self.snapshot()
+        if method == protocol.Method.SESSION_REVIEW:
+            return self._review(connection, params)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -836,7 +896,29 @@ class Daemon:
             raise IllegalTransition(method, self.engine.state, [], why) from error
         finally:
             await self.after_change()  # a refused request may still have recorded something
-        return self.snapshot()
+        return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.review import record_review
+        from chargebook.corrections.errors import InputError
+
+        assert self.store is not None
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
+        with self.store.on_behalf_of(connection.account):
+            review = record_review(
+                self.store,
+                params["session"],
+                params["decision"],
+                params["reviewer"],
+                params["comment"],
+                allow_self_review=bool(params.get("allow_self_review", False)),
+            )
+        return review.to_dict()
 
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
         engine = self.engine

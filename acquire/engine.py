@@ -28,16 +28,17 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
-import copy
+import functools
 import logging
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import Any, ParamSpec, TypeVar
 
 from chargebook.acquire import live
 from chargebook.acquire.capture import Captured, CaptureSettings, ReadingCapture
+from chargebook.acquire.carried_start import MEASURED_BY, carried_metadata
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
 from chargebook.acquire.session_evaluation import SessionContext, evaluate_session
 from chargebook.acquire.states import ACTION_STATES, IllegalTransition, check_transition
@@ -47,10 +48,14 @@ from chargebook.drivers_generic.interface import Capability
 
 log = logging.getLogger(__name__)
 S = EngineState
+P = ParamSpec("P")
+R = TypeVar("R")
 
 DAEMON_ACTOR = "daemon"
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
+#: The event recording the carried k_pol and k_s copied into a session at its start.
+CARRIED_EVENT = "carried_factors"
 
 
 @dataclass(frozen=True, slots=True)
@@ -86,6 +91,27 @@ class ActiveSet:
     @property
     def used_count(self) -> int:
         return sum(1 for r in self.readings if not r.settling)
+
+
+def one_transaction(method: Callable[P, R]) -> Callable[P, R]:
+    """Run an Engine input (an operator action, an instrument change, a tick that ends a wait)
+    as one store transaction: all of its rows (set status, events, readings) or none.
+
+    This is the one place the engine's transaction boundary is drawn. If the input fails
+    part-way (an error, a commit the disk refuses), the store rolls the transaction back and
+    the engine's own state is put back as it was before the input, so memory and record agree.
+    Inputs nest (an action calling another is one transaction, the inner one a savepoint).
+    """
+
+    @functools.wraps(method)
+    def run(*args: P.args, **kwargs: P.kwargs) -> R:
+        engine = args[0]
+        assert isinstance(engine, Engine)
+        with engine.all_or_nothing():
+            return method(*args, **kwargs)
+
+    run.one_transaction = True  # type: ignore[attr-defined]  # checked by the tests
+    return run
 
 
 class Engine:
@@ -134,6 +160,7 @@ class Engine:
         #: Why the station database cannot commit now ("record not writable: ..."), or None.
         self.record_fault: str | None = None
         self.reading_status = "ok"  # the instrument's status of the latest sample
+        self.sample_line_id: int | None = None  # the raw line (traffic id) of the latest sample
         #: Words the operator must read about something the engine did on its own (a reading
         #: discarded by a pause), kept until the next reading is recorded or the set is closed.
         self.notice: str | None = None
@@ -176,24 +203,6 @@ class Engine:
             self.reply_note = note
             self.seq += 1
 
-    @contextmanager
-    def all_or_nothing(self, reading_before: Any = None) -> Iterator[None]:
-        """Run the block in one store transaction; if it fails, undo the engine's own changes
-        too (``reading_before``: the reading as it was before a sample was fed to it)."""
-        saved = dict(self.__dict__)
-        saved["_commands"] = list(self._commands)
-        saved["integration_s"] = dict(self.integration_s)
-        saved["skipped"] = set(self.skipped)
-        saved["active"] = copy.copy(self.active)
-        if reading_before is not None:
-            saved["reading"] = reading_before
-        try:
-            with self.store.atomic():
-                yield
-        except BaseException:
-            self.__dict__.update(saved)
-            raise
-
     def touch_live(self) -> None:
         """Count a new snapshot for the reading in progress (results stay cached)."""
         self.seq += 1
@@ -220,6 +229,38 @@ class Engine:
 
     def _can(self, capability: Capability) -> bool:
         return capability in self.capabilities
+
+    @contextmanager
+    def all_or_nothing(self) -> Iterator[None]:
+        """Run the block as one store transaction; on an error, roll the record back and put
+        the engine's state back as it was (see :func:`one_transaction`)."""
+        saved = self._checkpoint()
+        try:
+            with self.store.atomic():
+                yield
+        except BaseException:
+            self._restore_checkpoint(saved)
+            raise
+
+    def _checkpoint(self) -> tuple[dict[str, Any], dict[str, Any] | None, list[ReadingRow] | None]:
+        """Return the engine's state, copied deep enough to be put back after a failed input."""
+        state = {
+            key: value.copy() if isinstance(value, list | dict | set) else value
+            for key, value in vars(self).items()
+        }
+        reading = vars(self.reading).copy() if self.reading is not None else None
+        readings = list(self.active.readings) if self.active is not None else None
+        return state, reading, readings
+
+    def _restore_checkpoint(
+        self, saved: tuple[dict[str, Any], dict[str, Any] | None, list[ReadingRow] | None]
+    ) -> None:
+        state, reading, readings = saved
+        vars(self).update(state)
+        if self.reading is not None and reading is not None:  # the same object, as it was
+            vars(self.reading).update(reading)
+        if self.active is not None and readings is not None:
+            self.active.readings = readings
 
     # -------------------------------------------------------------------------- guards
     def refusal(self, action: str) -> str | None:
@@ -259,13 +300,18 @@ class Engine:
             raise IllegalTransition(action, self.state, self.allowed(), why)
 
     # ----------------------------------------------------------------- session actions
+    @one_transaction
     def start_session(
         self, metadata: dict[str, Any], plan: Any = None, actor: str = DAEMON_ACTOR
     ) -> int:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
-        checked = live.validate_metadata(metadata)
         resolved = live.resolve_plan(plan if plan is not None else self.default_plan)
+        checked = live.validate_metadata(
+            carried_metadata(
+                self.store, live.validate_metadata(metadata), resolved, self.store.stamp()[:10]
+            )
+        )
         session_id = self.store.create_session(
             metadata=checked,
             plan=resolved.to_dict(),
@@ -279,6 +325,9 @@ class Engine:
         self.thresholds = self.default_thresholds
         self._event(actor, live.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._event(actor, live.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale)
+        carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
+        if carried:
+            self._event(actor, CARRIED_EVENT, **carried)
         if checked.get("subtract_leakage"):
             self._event(actor, live.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
         if self.identity is not None:
@@ -290,6 +339,7 @@ class Engine:
         self._changed()
         return session_id
 
+    @one_transaction
     def set_environment(
         self,
         temperature_C: float,
@@ -308,6 +358,7 @@ class Engine:
         self._changed()
         return entry_id
 
+    @one_transaction
     def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
         """Record that the pending manual step was done by hand (who: ``actor``)."""
         self._require(Method.STEP_MANUAL_DONE)
@@ -322,6 +373,7 @@ class Engine:
         self.pending_manual = None
         self._changed()
 
+    @one_transaction
     def skip(self, actor: str = DAEMON_ACTOR) -> None:
         """Skip the current (optional) step."""
         self._require(Method.STEP_SKIP)
@@ -331,6 +383,7 @@ class Engine:
         self._advance(actor, Method.STEP_SKIP)
         self._changed()
 
+    @one_transaction
     def arm(self, actor: str = DAEMON_ACTOR) -> None:
         """Start the current step's set (or continue an interrupted one)."""
         self._require(Method.STEP_ARM)
@@ -359,6 +412,7 @@ class Engine:
             self._begin_reading(actor, Method.STEP_ARM)
         self._changed()
 
+    @one_transaction
     def capture(self, actor: str = DAEMON_ACTOR) -> None:
         """Capture the charge integrated so far (as of the latest sample) as a manual reading."""
         self._require(Method.READING_CAPTURE)
@@ -368,6 +422,7 @@ class Engine:
             self._record(captured, actor)
         self._changed()
 
+    @one_transaction
     def accept(self, actor: str = DAEMON_ACTOR) -> None:
         """Accept the reviewed set and go on to the next step (or finish)."""
         self._require(Method.SET_ACCEPT)
@@ -378,6 +433,7 @@ class Engine:
         self._advance(actor, Method.SET_ACCEPT)
         self._changed()
 
+    @one_transaction
     def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
         """Mark the current set superseded with ``reason`` and rewind to the same step."""
         self._require(Method.SET_REDO)
@@ -391,6 +447,7 @@ class Engine:
         self._goto(S.WAITING_FOR_OPERATOR, Method.SET_REDO, actor, reason=reason)
         self._changed()
 
+    @one_transaction
     def pause(self, actor: str = DAEMON_ACTOR) -> None:
         """Hold the sequence; a reading in progress is dropped and logged."""
         self._require(Method.SESSION_PAUSE)
@@ -399,6 +456,7 @@ class Engine:
         self._goto(S.PAUSED, Method.SESSION_PAUSE, actor)
         self._changed()
 
+    @one_transaction
     def resume(self, actor: str = DAEMON_ACTOR) -> None:
         """Return to the state the session was paused from; re-arm a set that was collecting."""
         self._require(Method.SESSION_RESUME)
@@ -417,12 +475,14 @@ class Engine:
             self._goto(target, Method.SESSION_RESUME, actor)
         self._changed()
 
+    @one_transaction
     def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
         """End the session early as finished; a set not yet accepted is closed as aborted."""
         self._require(Method.SESSION_STOP)
         reason = live.require_reason("reason", reason)
         self._close_session("finished", S.FINISHED, Method.SESSION_STOP, reason, actor)
 
+    @one_transaction
     def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
         """Abandon the session (needs confirm=True); everything recorded is kept."""
         self._require(Method.SESSION_ABORT)
@@ -433,6 +493,7 @@ class Engine:
             )
         self._close_session("aborted", S.ABORTED, Method.SESSION_ABORT, reason, actor)
 
+    @one_transaction
     def close(self, actor: str = DAEMON_ACTOR) -> None:
         """Leave a finished or aborted session; the engine is idle again."""
         self._require(Method.SESSION_CLOSE)
@@ -457,21 +518,39 @@ class Engine:
 
     # ---------------------------------------------------------------- instrument input
     def on_sample(
-        self, t_s: float, charge_nC: float, complete: bool = False, status: str = "ok"
+        self,
+        t_s: float,
+        charge_nC: float,
+        complete: bool = False,
+        status: str = "ok",
+        *,
+        line_id: int | None = None,
     ) -> None:
         """Take one sample from the instrument (charge in nC, receive time in s on the driver's
-        clock; its raw line is in the store before the sample reaches the engine)."""
-        if self.reading is None:
+        clock; its raw line, row ``line_id``, is in the store before the sample reaches the
+        engine). A reading names the raw line of the sample it was taken at."""
+        reading = self.reading
+        if reading is None:
             return
-        before = copy.copy(self.reading)  # a failed commit feeds this sample again
-        captured = self.reading.feed(t_s, charge_nC, complete)
+        before = vars(reading).copy(), self.reading_status
+        self.reading_status = status
+        if t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
+            self.sample_line_id = line_id
+        captured = reading.feed(t_s, charge_nC, complete)
         if captured is None:
-            self.reading_status = status
-            return
-        with self.all_or_nothing(reading_before=before):
-            self.reading_status = status
-            self._record(captured, DAEMON_ACTOR)
-            self._changed()
+            return  # nothing recorded: no transaction for a sample that only moves the charge
+        try:
+            self._record_captured(captured)
+        except BaseException:  # the sample is not taken: the next one may capture again
+            vars(reading).update(before[0])
+            self.reading_status = before[1]
+            raise
+
+    @one_transaction
+    def _record_captured(self, captured: Captured) -> None:
+        """Record a captured reading and all that follows from it in one transaction."""
+        self._record(captured, DAEMON_ACTOR)
+        self._changed()
 
     def tick(self, now_s: float | None = None) -> None:
         """End a settling wait that is over at ``now_s`` (s on the engine's clock).
@@ -482,11 +561,16 @@ class Engine:
         now_s = self.clock() if now_s is None else now_s
         waiting = self.state is S.SETTLING and self.reading is None
         if waiting and self.settle_until_s is not None and now_s >= self.settle_until_s:
-            with self.all_or_nothing():
-                self.settle_until_s = None
-                self._begin_reading(DAEMON_ACTOR, "settling wait over")
-                self._changed()
+            self._end_settling_wait()
 
+    @one_transaction
+    def _end_settling_wait(self) -> None:
+        """Begin the reading a settling wait held back, in one transaction."""
+        self.settle_until_s = None
+        self._begin_reading(DAEMON_ACTOR, "settling wait over")
+        self._changed()
+
+    @one_transaction
     def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
         """The electrometer went away (or failed a command, ``still_connected``): a set in
         progress becomes interrupted with its readings kept."""
@@ -515,10 +599,16 @@ class Engine:
         self.instrument_message = message
         self._changed()
 
+    @one_transaction
     def instrument_back(self, identity: str | None = None) -> None:
-        """The electrometer answers again (or for the first time)."""
-        if identity is not None:
+        """The electrometer answers again (or for the first time); record who it says it is
+        (``identity``, an ``instrument_identified`` event) with its return, in one transaction."""
+        if identity:
             self.identity = identity
+            detail = {"identity": identity, "profile": self.profile}
+            # recorded outside any session too: a report finds the instrument of a session
+            # started later from the station's latest identification
+            self.store.add_event(self.session_id, DAEMON_ACTOR, "instrument_identified", detail)
         if self.instrument_connected and self.instrument_message is None:
             self._changed()
             return
@@ -618,7 +708,7 @@ class Engine:
             captured.capture.value,
             settling,
             self.reading_status,
-            self.store.received_line_id(self.session_id, captured.t_s),
+            self.sample_line_id,  # the capture is at the latest sample (see capture.py)
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s
@@ -640,6 +730,7 @@ class Engine:
         self._goto(S.REVIEWING, "set complete", actor, set_id=active.id)
 
     # ------------------------------------------------------------------------ restart
+    @one_transaction
     def restore(self) -> bool:
         """Resume the store's open session, if any; return True when one was resumed."""
         row = self.store.open_session()

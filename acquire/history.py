@@ -10,7 +10,8 @@ baseline is one of:
 * a number: a dose per MU in cGy/MU.
 
 The tolerance band of each session is the tolerance it was evaluated with (entered, or the
-library's default from AAPM TG-142).
+library's default from AAPM TG-142). Each session's kind says whether it measured k_pol and k_s
+("full calibration") or carried them ("output check").
 """
 
 from __future__ import annotations
@@ -18,8 +19,10 @@ from __future__ import annotations
 import statistics
 from dataclasses import dataclass
 
+from chargebook.acquire.carried_start import OUTPUT_CHECK, session_kind
 from chargebook.acquire.report_data import SessionRecord, load_record
 from chargebook.acquire.report_sections import Table, number, signed, when
+from chargebook.acquire.review import UNREVIEWED, review_status
 from chargebook.acquire.store import NotFound, SessionRow, Store
 from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
@@ -46,6 +49,11 @@ class HistoryPoint:
     #: The codes of the session's warning and error flags (info flags left out), as ``show``
     #: and the console list them.
     flags: tuple[str, ...] = ()
+    #: "full calibration" (the plan measures k_pol and k_s) or "output check" (they are carried).
+    kind: str = ""
+    #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
+    review: str = UNREVIEWED
+    session_uuid: str | None = None  # the session's id across stations
 
 
 @dataclass(frozen=True)
@@ -58,6 +66,7 @@ class History:
     baseline_label: str
     baseline_cGy_per_MU: float | None
     points: tuple[HistoryPoint, ...]
+    station_uuid: str | None = None  # the station that keeps the sessions
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -127,6 +136,9 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         within_tolerance=within,
         problem=problem,
         flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
+        kind=session_kind(record.session.plan()),
+        review=review_status(record.review),
+        session_uuid=record.session.uuid,
     )
 
 
@@ -171,7 +183,8 @@ def load_history(
     baseline: str = "expected",
     include_all: bool = False,
 ) -> History:
-    """Return the output history of ``beam`` (finished, non-replay sessions unless include_all)."""
+    """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
+    review, unless ``include_all`` (then every session, a rejected one marked)."""
     choice = parse_baseline(baseline)
     rows = [
         row
@@ -180,6 +193,8 @@ def load_history(
         and (include_all or (row.status == "finished" and row.replay_of is None))
     ]
     records = [load_record(store, row.id, check_chain=False) for row in rows]
+    if not include_all:
+        records = [r for r in records if review_status(r.review) != "rejected"]
     value, label = _baseline_value(choice, store, records)
     return History(
         beam=beam,
@@ -188,7 +203,26 @@ def load_history(
         baseline_label=label,
         baseline_cGy_per_MU=value,
         points=tuple(_point(record, value) for record in records),
+        station_uuid=store.station().uuid,
     )
+
+
+#: Marks an output check's session id in the terminal plot, and the legend saying so.
+OUTPUT_CHECK_MARK = "*"
+OUTPUT_CHECK_LEGEND = (
+    f"{OUTPUT_CHECK_MARK} after a session id: an output check (k_pol, k_s carried)"
+)
+
+
+def plot_labels(history: History) -> tuple[list[str], str | None]:
+    """Return the session ids to label the plot's columns (output checks marked), and the
+    legend line for the mark (None when no output check is listed)."""
+    labels = [
+        f"{p.session_id}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}"
+        for p in history.points
+    ]
+    marked = any(p.kind == OUTPUT_CHECK for p in history.points)
+    return labels, OUTPUT_CHECK_LEGEND if marked else None
 
 
 def history_table(history: History) -> Table:
@@ -199,7 +233,8 @@ def history_table(history: History) -> Table:
             str(p.session_id),
             when(p.created_at),
             p.machine,
-            p.status,
+            p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",
+            p.kind,
             number(p.dose_per_MU_cGy, 4, "—"),
             number(p.expected_cGy_per_MU, 4, "—"),
             signed(p.deviation_pct, 2, "—"),
@@ -217,6 +252,7 @@ def history_table(history: History) -> Table:
             "date",
             "machine",
             "status",
+            "kind",
             "dose/MU (cGy/MU)",
             "expected",
             "deviation (%)",

@@ -20,6 +20,7 @@ from chargebook.acquire.session_meta import SessionMetadata
 from chargebook.acquire.store import EventRow, ReadingRow, SetRow
 from chargebook.corrections import limits, units
 from chargebook.corrections.errors import InputError
+from chargebook.corrections.signs import contradicting
 from chargebook.corrections.stability import (
     SET_NAMES,
     Thresholds,
@@ -137,17 +138,9 @@ def _flag(code: str, message: str, severity: str = "warning") -> dict[str, str]:
     return {"code": code, "message": message, "severity": severity}
 
 
-def _expected_sign(bias_V: float, charges: Sequence[float], thresholds: Thresholds) -> float:
-    """Return the sign a reading should have: from the electrometer's known convention and the
-    bias, else the sign most readings of the set have (0 when there is no majority)."""
-    if thresholds.charge_sign_for_positive_bias is not None:
-        return thresholds.charge_sign_for_positive_bias * (1.0 if bias_V > 0 else -1.0)
-    balance = sum((charge > 0) - (charge < 0) for charge in charges)
-    return float((balance > 0) - (balance < 0))
-
-
-def reading_flags(reading: ReadingRow, purpose: str, expected_sign: float) -> list[dict[str, str]]:
-    """Return the flags of one reading: instrument status, settling, sign against the bias."""
+def reading_flags(reading: ReadingRow, against_bias: bool) -> list[dict[str, str]]:
+    """Return the flags of one reading: instrument status, settling, and its sign against the
+    bias (``against_bias``, judged by ``corrections.signs.contradicting``)."""
     flags = []
     if reading.status != "ok":
         flags.append(
@@ -155,8 +148,7 @@ def reading_flags(reading: ReadingRow, purpose: str, expected_sign: float) -> li
         )
     if reading.settling:
         flags.append(_flag("settling", "Settling reading: kept, not used for results.", "info"))
-    sign = (reading.charge_nC > 0) - (reading.charge_nC < 0)
-    if purpose != "leakage" and expected_sign and sign != expected_sign:
+    if against_bias:
         flags.append(
             _flag(
                 "sign_against_bias",
@@ -172,12 +164,26 @@ def set_summary(
 ) -> tuple[dict[str, Any] | None, list[dict[str, str]], dict[int, list[dict[str, str]]]]:
     """Return (statistics, set flags, flags per reading id) of a set's non-settling readings."""
     used = [r for r in readings if not r.settling]
-    expected = _expected_sign(bias_V, [r.charge_nC for r in readings], thresholds)
-    per_reading = {r.id: reading_flags(r, purpose, expected) for r in readings}
+    against = [False] * len(readings)
+    if purpose != "leakage":  # leakage carries no bias-given sign
+        against = contradicting(
+            [r.charge_nC for r in readings],
+            [r.charge_nC for r in used or readings],  # the set's sign: as the results take it
+            bias_V,
+            thresholds.charge_sign_for_positive_bias,
+        ).tolist()
+    per_reading = {
+        r.id: reading_flags(r, wrong) for r, wrong in zip(readings, against, strict=True)
+    }
     if not used:
         return None, [], per_reading
     try:
-        stats = set_statistics([r.charge_nC for r in used], field=f"{purpose} readings")
+        stats = set_statistics(
+            [r.charge_nC for r in used],
+            f"{purpose} readings",
+            thresholds.outlier_modified_z,
+            thresholds.outlier_floor_pct,
+        )
     except InputError as error:  # display never raises: say why there are no statistics
         return None, [_unsummarised(purpose, error)], per_reading
     if purpose not in COMPARED_PURPOSES:

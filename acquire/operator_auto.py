@@ -16,7 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from chargebook.acquire.client import DaemonClient
+from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.protocol import EngineState, Method
 
 ACTOR = "automatic operator"
@@ -84,7 +84,12 @@ class AutoOperator:
         if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
             snapshot = await self.client.call(Method.SESSION_CLOSE)
         if snapshot["state"] == EngineState.IDLE:
-            snapshot = await self.client.call(Method.SESSION_START, metadata=metadata, plan=plan)
+            try:
+                snapshot = await self.client.call(
+                    Method.SESSION_START, metadata=metadata, plan=plan
+                )
+            except DaemonError as refused:
+                raise AutoOperatorError(f"the session cannot start: {refused.message}") from None
         return snapshot
 
     async def run_until(

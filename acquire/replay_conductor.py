@@ -275,7 +275,13 @@ class Conductor:
             return
         if sample.t_s < self.fresh_after_s or self._maybe_dropped(sample):
             return
-        self.engine.on_sample(sample.t_s, sample.charge_nC, sample.complete, sample.status.value)
+        self.engine.on_sample(
+            sample.t_s,
+            sample.charge_nC,
+            sample.complete,
+            sample.status.value,
+            line_id=self.follower.last_received_id,
+        )
         self._take_commands()
 
     def _maybe_dropped(self, sample: Sample) -> bool:
@@ -354,6 +360,7 @@ class Conductor:
             if recorded.position > position:
                 return
             self._next_input += 1
+            self.follower.input_position = recorded.position
             try:
                 self._apply(recorded)
             except (IllegalTransition, InputError, ConfirmationRequired) as error:
@@ -365,6 +372,8 @@ class Conductor:
                 if self.strict:
                     raise Divergence(message) from None
                 raise WhatIfStop(message) from None
+            finally:
+                self.follower.input_position = None
             self._take_commands()
 
     def _still_collecting(self) -> str:

@@ -190,9 +190,13 @@ class TrafficFollower:
         self.profile = profile
         self.same_command = same_command
         self.position = 0
+        #: While a recorded input is applied: its place (lines recorded before it).
+        self.input_position: int | None = None
         self.notes: list[TrafficNote] = []
         self.store: Store | None = None
         self.session_id: int | None = None
+        #: The row id of the latest received line written: the line a sample came from.
+        self.last_received_id: int | None = None
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
 
     def attach(self, store: Store, session_id: int) -> None:
@@ -211,7 +215,14 @@ class TrafficFollower:
 
     @property
     def played_t_s(self) -> float:
-        """Return the recorded time of the latest line seen (-inf before any)."""
+        """Return the recorded time of the latest line seen (-inf before any).
+
+        While a recorded input is applied (``input_position`` set), the latest line recorded
+        before that input: lines read since (lines pushed before a command's answer, read with
+        it) came after the input in the original.
+        """
+        if self.input_position is not None and self.input_position < self.position:
+            return self.lines[self.input_position - 1].t_s if self.input_position else -math.inf
         return self._last_t_s if self.position else -math.inf
 
     def clock(self) -> float:
@@ -237,7 +248,9 @@ class TrafficFollower:
         self._check(direction.value, bytes(raw))
         self._last_t_s = t_s
         if self.store is not None:
-            self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            line_id = self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            if direction is TrafficDirection.RECEIVED:
+                self.last_received_id = line_id
         self.position += 1
 
     def _check(self, direction: str, raw: bytes) -> None:

@@ -17,6 +17,7 @@ import math
 from collections.abc import Mapping, Sequence
 from html import escape
 
+from chargebook.acquire.carried_start import OUTPUT_CHECK
 from chargebook.acquire.history import History
 from chargebook.acquire.report_audit import step_words
 from chargebook.acquire.report_data import SessionRecord, SetRecord
@@ -176,23 +177,13 @@ def budget_with_coverage(table: Table, evaluation: Evaluation | None) -> Table:
     return dataclasses.replace(table, note=table.note + stated)
 
 
-#: The event a review and sign-off records (reviewer, status approved or rejected, comment).
-REVIEW_EVENT = "session_reviewed"
-
-
 def recorded_sign_off(record: SessionRecord) -> SignOff | None:
-    """Return the session's review as the review block shows it: its first ``session_reviewed``
-    event (the one that stands), or None while the session is unreviewed."""
-    for event in record.events:
-        if event.kind == REVIEW_EVENT:
-            detail = event.detail()
-            return SignOff(
-                str(detail.get("reviewer", NOT_GIVEN)),
-                str(detail.get("status", NOT_GIVEN)),
-                str(detail.get("comment") or ""),
-                when(event.recorded_at),
-            )
-    return None
+    """Return the session's recorded review (``chargebook review``) as the review block shows
+    it, or None while the session is unreviewed."""
+    review = record.review
+    if review is None:
+        return None
+    return SignOff(review.reviewer, review.status, review.comment, when(review.reviewed_at))
 
 
 def session_html(record: SessionRecord, generated: str, review: SignOff | None = None) -> str:
@@ -257,8 +248,10 @@ def history_html(history: History, history_table: Table, generated: str) -> str:
             x=float(index),
             y=point.deviation_pct,
             alarm=not point.within_tolerance,
+            hollow=point.kind == OUTPUT_CHECK,
             attrs={
                 "session-id": str(point.session_id),
+                "kind": point.kind,
                 "dose-per-mu-cgy": repr(point.dose_per_MU_cGy),
                 "deviation-pct": repr(point.deviation_pct),
             },
@@ -279,7 +272,8 @@ def history_html(history: History, history_table: Table, generated: str) -> str:
     caption = (
         f"Dose per MU by session, as a deviation from {escape(history.baseline_label)}; "
         + (f"the band is the ±{tolerance:g} % tolerance. " if tolerance is not None else "")
-        + "Red points lie outside their session's tolerance."
+        + "Red points lie outside their session's tolerance. Filled points are full "
+        "calibrations; hollow points are output checks, whose k_pol and k_s were carried."
     )
     figure = f'<figure data-key="history-plot">{svg}<figcaption>{caption}</figcaption></figure>'
     title = f"chargebook output history: {history.beam}"

@@ -19,11 +19,14 @@ from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_audit import event_words
 from chargebook.acquire.report_data import SessionRecord, SetRecord
+from chargebook.acquire.review import review_words
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.student_t import dof_text
+from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
 
 PENDING = "pending"
 NOT_GIVEN = "—"
@@ -111,6 +114,11 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+    rows[1:1] = [
+        ("Review", _review_text(record), "review"),
+        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
+        ("Station", _station_text(record), "station"),
+    ]
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
@@ -120,6 +128,17 @@ def identity(record: SessionRecord) -> Table:
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _station_text(record: SessionRecord) -> str:
+    station = record.station
+    return NOT_GIVEN if station is None else f"{station.name}, UUID {station.uuid}"
+
+
+def _review_text(record: SessionRecord) -> str:
+    review = record.review
+    words = review_words(review)
+    return words if review is None else f"{words}: {review.comment}"
 
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
@@ -139,7 +158,10 @@ def calibration(record: SessionRecord) -> Table:
     rows = [
         ("N_D,w as entered", f"{meta.get('N_Dw', NOT_GIVEN)} {meta.get('N_Dw_unit', '')}"),
         ("N_D,w", f"{meta.get('N_Dw_Gy_per_nC', NOT_GIVEN)} Gy/nC"),
-        ("U(N_D,w), k = 2", _percent(meta.get("u_N_Dw_pct_k2"))),
+        (
+            f"U(N_D,w), k = {meta.get('k_N_Dw') or CERTIFICATE_COVERAGE_FACTOR:g}",
+            _percent(meta.get("u_N_Dw_pct_k2")),
+        ),
         ("Calibration date", str(meta.get("calibration_date") or NOT_GIVEN)),
         ("Certificate", str(meta.get("certificate") or NOT_GIVEN)),
         ("k_Q", str(meta.get("k_Q", NOT_GIVEN))),
@@ -356,8 +378,23 @@ def results(record: SessionRecord) -> Table:
         ),
         (
             "U_expanded_pct",
-            "expanded uncertainty U, k = 2 (%)",
+            "expanded uncertainty U = k u_c (%)",
             number(evaluation.U_expanded_pct, 2),
+        ),
+        (
+            "coverage_factor",
+            "coverage factor k (Student's t)",
+            number(evaluation.coverage_factor, 3),
+        ),
+        (
+            "effective_dof",
+            "effective degrees of freedom ν_eff",
+            dof_text(evaluation.effective_dof),
+        ),
+        (
+            "coverage_probability",
+            "coverage probability (%)",
+            f"{100 * evaluation.coverage_probability:g}",
         ),
     ]
     found = evaluation.to_dict()
@@ -397,7 +434,22 @@ def budget_of(evaluation: Evaluation | None, missing: str = "No results.") -> Ta
         ("component", "relative u (%)", "source"),
         rows,
         tuple(f"budget-{i}" for i in range(len(rows))),
-        note="Standard uncertainties combined in quadrature (JCGM 100:2008); U = 2 u_c.",
+        note=(
+            "Standard uncertainties combined in quadrature (JCGM 100:2008); U = k u_c, k from "
+            "Student's t at ν_eff (Welch–Satterthwaite, JCGM 100:2008 G.4)."
+            + _monte_carlo_note(evaluation)
+        ),
+    )
+
+
+def _monte_carlo_note(evaluation: Any) -> str:
+    """Return the Monte Carlo cross-check in words, or nothing before u_c is known."""
+    if evaluation.u_combined_pct is None:
+        return ""
+    check = evaluation.monte_carlo()
+    return (
+        f" Monte Carlo check (JCGM 101:2008, {check.trials} draws, seed {check.seed}): "
+        f"{check.note}."
     )
 
 

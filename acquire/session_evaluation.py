@@ -16,6 +16,9 @@ What it gathers, from the store:
   when that set was taken: the entry recorded last at or before the set's first reading (the
   first entry of the session when none was recorded before it). ``corrections`` refers each
   set's mean to reference air with it before forming k_pol and k_s.
+* the carried k_pol and k_s of an output check, as copied into the session's metadata when it
+  started (``carried_k_pol``, ``carried_k_s``; :mod:`chargebook.acquire.carried_start`), so a
+  later session never changes an old record's results.
 
 Nothing here computes physics.
 """
@@ -30,14 +33,29 @@ from chargebook.acquire import live
 from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
+from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
+from chargebook.corrections.leakage import leakage_per_reading_nC
 from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.units import Conversion
 
 #: The plan purposes whose readings feed the results, and their MeasurementInputs field.
-RESULT_PURPOSES = {"routine": "routine_nC", "opposite": "opposite_nC", "reduced": "reduced_nC"}
+RESULT_PURPOSES = {
+    "routine": "routine_nC",
+    "opposite": "opposite_nC",
+    "reduced": "reduced_nC",
+    "return_check": "return_nC",
+}
+#: The plan purposes whose means are referred to the routine set's air, and their key in
+#: ``MeasurementInputs.set_environments``.
+AIR_KEY_OF_PURPOSE = {
+    "routine": "routine",
+    "opposite": "opposite",
+    "reduced": "reduced",
+    "return_check": "return",
+}
 
 
 @dataclass(frozen=True)
@@ -167,7 +185,7 @@ def _leakage_nC(chosen: _ResultSets, integration_s: Mapping[int, float]) -> floa
     if chosen.leakage is None or not routine_times:
         return None
     charge_nC, seconds = chosen.leakage
-    return charge_nC * (sum(routine_times) / len(routine_times)) / seconds
+    return leakage_per_reading_nC(charge_nC, seconds, routine_times)
 
 
 def entry_in_force(
@@ -203,7 +221,7 @@ def _set_environments(
         if found is None:
             continue
         position, entry = found
-        environments[purpose] = SetEnvironment(
+        environments[AIR_KEY_OF_PURPOSE[purpose]] = SetEnvironment(
             entry.temperature_C,
             entry.pressure_kPa,
             _entry_words(position, entry, reading),
@@ -247,6 +265,7 @@ def _inputs(
         routine_nC=tuple(r.charge_nC for r in chosen.used.get("routine", ())),
         opposite_nC=tuple(r.charge_nC for r in chosen.used.get("opposite", ())),
         reduced_nC=tuple(r.charge_nC for r in chosen.used.get("reduced", ())),
+        return_nC=tuple(r.charge_nC for r in chosen.used.get("return_check", ())),
         leakage_nC=_leakage_nC(chosen, times),
         N_Dw_Gy_per_nC=meta.N_Dw_Gy_per_nC,
         k_Q=meta.k_Q,
@@ -264,5 +283,12 @@ def _inputs(
         thresholds=context.thresholds,
         set_environments=per_set,
         subtract_leakage=meta.subtract_leakage,
+        carried=meta.carried(),
+        measured_on=meta.measured_on(),
+        not_measured=tuple(
+            key
+            for key, purpose in MEASURED_BY.items()
+            if all(step.purpose != purpose for step in plan.steps)
+        ),
     )
     return inputs, chosen.provisional

@@ -27,6 +27,12 @@ Keys (required unless a default is shown)::
                                   left out of u_c and flagged, never counted as exact)
     u_temperature_C       None    thermometer standard uncertainty, °C (None: library default)
     u_pressure_kPa        None    barometer standard uncertainty, kPa (None: library default)
+    k_N_Dw                None    the certificate's coverage factor for u_N_Dw_pct_k2 (None: 2)
+    coverage_probability  None    of the expanded uncertainty (None: 0.95)
+    u_reference_conditions_pct, u_long_term_stability_pct, u_beam_monitor_pct,
+    u_electrometer_resolution_pct
+                          None    the user's own budget components, relative standard
+                                  uncertainties in % (None: not in the budget)
     tolerance_pct         None    a number in %, or daily | monthly | annual (AAPM TG-142);
                                   None: the library's default (TG-142 monthly, 2 %)
     calibration_date      None    date of the calibration certificate, YYYY-MM-DD
@@ -36,6 +42,15 @@ Keys (required unless a default is shown)::
     subtract_leakage      false   subtract the measured leakage from the routine reading (the
                                   operator's choice, recorded in the audit); false: the leakage
                                   is only reported as a percentage of the routine reading
+    carried_k_pol         None    k_pol carried into a session whose plan takes no
+    carried_k_s           None    opposite-polarity (k_pol) or reduced-bias (k_s) readings: an
+                                  object {value, source, date (YYYY-MM-DD), u_pct?, u_source?,
+                                  chamber_serial?, electrometer_serial?, from_session?,
+                                  session_date?}. Refused when its chamber or electrometer
+                                  serial differs from the session's, or its date is after
+                                  session_date (the day the session started, which the daemon
+                                  fills in; absent: today). The daemon fills both in from the
+                                  beam's last full calibration when they are not given.
 
 Monitor units per reading come from the plan, not from here.
 """
@@ -49,9 +64,15 @@ from dataclasses import asdict, dataclass, fields
 from typing import Any
 
 from chargebook.corrections import dose, limits, units
+from chargebook.corrections.carried import (
+    CarriedFactor,
+    carried_factor,
+    checked_text,
+    parse_date,
+)
 from chargebook.corrections.conventions import parse_convention
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import Uncertainties
+from chargebook.corrections.evaluate import USER_COMPONENTS, Uncertainties
 from chargebook.corrections.recombination import parse_beam
 from chargebook.corrections.units import Conversion
 
@@ -95,12 +116,34 @@ class SessionMetadata:
     u_k_elec_pct: float | None = None
     u_temperature_C: float | None = None
     u_pressure_kPa: float | None = None
+    k_N_Dw: float | None = None
+    coverage_probability: float | None = None
+    u_reference_conditions_pct: float | None = None
+    u_long_term_stability_pct: float | None = None
+    u_beam_monitor_pct: float | None = None
+    u_electrometer_resolution_pct: float | None = None
     tolerance_pct: float | None = None
     calibration_date: str | None = None
     certificate: str | None = None
     beam_quality: str | None = None
     notes: str | None = None
     subtract_leakage: bool = False
+    carried_k_pol: dict[str, Any] | None = None
+    carried_k_s: dict[str, Any] | None = None
+
+    def carried(self) -> dict[str, CarriedFactor]:
+        """Return the carried factors for ``evaluate`` (key -> CarriedFactor)."""
+        found = {"k_pol": self.carried_k_pol, "k_s": self.carried_k_s}
+        return {
+            key: CarriedFactor(**{name: table[name] for name in CARRIED_FACTOR_FIELDS})
+            for key, table in found.items()
+            if table is not None
+        }
+
+    def measured_on(self) -> str | None:
+        """Return the day the session started as its carried factors record it, or None."""
+        tables = [t for t in (self.carried_k_pol, self.carried_k_s) if t is not None]
+        return tables[0]["session_date"] if tables else None
 
     def to_dict(self) -> dict[str, Any]:
         """Return the metadata as plain data, every key present (None where not given)."""
@@ -114,6 +157,9 @@ class SessionMetadata:
             "u_k_elec_pct": self.u_k_elec_pct,
             "u_temperature_C": self.u_temperature_C,
             "u_pressure_kPa": self.u_pressure_kPa,
+            "k_N_Dw": self.k_N_Dw,
+            "coverage_probability": self.coverage_probability,
+            **{name: getattr(self, name) for name in USER_COMPONENTS},
         }
         return Uncertainties(**{k: v for k, v in given.items() if v is not None})
 
@@ -128,17 +174,9 @@ def _text(data: Mapping[str, Any], name: str, *, required: bool, longest: int) -
     value = data.get(name)
     if value is None and not required:
         return None
-    allowed = f"a text of 1 to {longest} characters"
     if value is None:
-        raise InputError(name, None, allowed, "is missing")
-    if not isinstance(value, str):
-        raise InputError(name, value, allowed, "is not text")
-    stripped = value.strip()
-    if not stripped:
-        raise InputError(name, value, allowed, "is empty")
-    if len(stripped) > longest:
-        raise InputError(name, f"{stripped[:20]}…", allowed, f"has {len(stripped)} characters")
-    return stripped
+        raise InputError(name, None, f"a text of 1 to {longest} characters", "is missing")
+    return checked_text(name, value, longest)
 
 
 def _number(data: Mapping[str, Any], name: str, check: limits.Range, *, required: bool) -> Any:
@@ -211,6 +249,44 @@ def _tolerance(data: Mapping[str, Any]) -> float | None:
 
 
 KNOWN_KEYS = tuple(f.name for f in fields(SessionMetadata))
+CARRIED_FACTOR_FIELDS = tuple(f.name for f in fields(CarriedFactor))
+#: Where a carried factor was measured, beside its value: checked against the session.
+CARRIED_SERIALS = ("chamber_serial", "electrometer_serial")
+CARRIED_PROVENANCE = (*CARRIED_SERIALS, "from_session", "session_date")
+
+
+def _carried(data: Mapping[str, Any], name: str, texts: Mapping[str, Any]) -> dict | None:
+    """Return a checked carried factor object (plain data), or None when not given.
+
+    Its serials, when given, must be the session's: a factor measured with another chamber or
+    electrometer does not hold for this one.
+    """
+    table = data.get(name)
+    if table is None:
+        return None
+    if not isinstance(table, Mapping):
+        raise InputError(name, table, "an object with value, source and date", "is not a table")
+    core = {key: value for key, value in table.items() if key not in CARRIED_PROVENANCE}
+    today = datetime.datetime.now(datetime.UTC).date().isoformat()
+    session_date = table.get("session_date")
+    if session_date is not None:
+        session_date = parse_date(f"{name}.session_date", session_date).isoformat()
+    factor = carried_factor(name, core, session_date or today)
+    provenance: dict[str, Any] = {"session_date": session_date}
+    for serial in CARRIED_SERIALS:
+        value = _text(table, serial, required=False, longest=MAX_TEXT)
+        if value is not None and value != texts[serial]:
+            raise InputError(
+                f"{name}.{serial}",
+                value,
+                f"the session's {serial} {texts[serial]!r}",
+                f"is from another {serial.removesuffix('_serial')}",
+            )
+        provenance[serial] = value if value is not None else texts[serial]
+    origin = table.get("from_session")
+    if origin is not None and (isinstance(origin, bool) or not isinstance(origin, int)):
+        raise InputError(f"{name}.from_session", origin, "a session id", "is not a session id")
+    return {**factor.to_dict(), **provenance, "from_session": origin}
 
 
 def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
@@ -253,8 +329,18 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         u_k_elec_pct=u_k_elec,
         u_temperature_C=_number(data, "u_temperature_C", limits.U_TEMPERATURE_C, required=False),
         u_pressure_kPa=_number(data, "u_pressure_kPa", limits.U_PRESSURE_KPA, required=False),
+        k_N_Dw=_number(data, "k_N_Dw", limits.CERTIFICATE_K, required=False),
+        coverage_probability=_number(
+            data, "coverage_probability", limits.COVERAGE_PROBABILITY, required=False
+        ),
+        **{
+            name: _number(data, name, limits.UNCERTAINTY_PCT, required=False)
+            for name in USER_COMPONENTS
+        },
         tolerance_pct=_tolerance(data),
         calibration_date=_date(data, "calibration_date"),
         subtract_leakage=_flag(data, "subtract_leakage"),
+        carried_k_pol=_carried(data, "carried_k_pol", texts),
+        carried_k_s=_carried(data, "carried_k_s", texts),
         **optional_texts,
     )

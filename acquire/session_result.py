@@ -18,8 +18,6 @@ from chargebook.acquire.store import Store
 def result_document(store: Store, session_id: int) -> dict[str, Any]:
     """Return the session's result document (see the module docstring)."""
     from chargebook.acquire.cli import CAUTION
-    from chargebook.acquire.commands.correct import MONTE_CARLO_SEED, MONTE_CARLO_TRIALS
-    from chargebook.corrections.uncertainty import monte_carlo_u_pct
 
     row = store.session(session_id)
     found = evaluate_session(store, session_id)
@@ -30,15 +28,10 @@ def result_document(store: Store, session_id: int) -> dict[str, Any]:
     }
     evaluation = found.evaluation
     document.update(evaluation.to_dict() if evaluation is not None else {})
-    model = None if evaluation is None else evaluation.uncertainty_model
     document["monte_carlo"] = (
         None
-        if evaluation is None or evaluation.u_combined_pct is None or model is None
-        else {
-            "trials": MONTE_CARLO_TRIALS,
-            "seed": MONTE_CARLO_SEED,
-            "u_combined_pct": monte_carlo_u_pct(model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED),
-        }
+        if evaluation is None or evaluation.u_combined_pct is None
+        else evaluation.monte_carlo().to_dict()
     )
     document["caution"] = CAUTION
     return document

@@ -32,6 +32,7 @@ import sqlite3
 import tempfile
 import threading
 import time
+import uuid
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
@@ -69,6 +70,7 @@ __all__ = [
     "SchemaTooNew",
     "SessionRow",
     "SetRow",
+    "StationRow",
     "Store",
     "StoreError",
     "TrafficRow",
@@ -181,12 +183,22 @@ class SessionRow:
     replay_of: int | None
     closed_at: str | None
     reason: str | None
+    uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
         return json.loads(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
         return json.loads(self.plan_json)
+
+
+@dataclass(frozen=True, slots=True)
+class StationRow:
+    """The station that keeps this file: its global id and its configured name."""
+
+    uuid: str
+    name: str
+    created_at: str
 
 
 @dataclass(frozen=True, slots=True)
@@ -268,6 +280,8 @@ class TrafficRow:
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+#: Told the row id of a kept raw line once it is written (None when its transaction failed).
+LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
 #: (session_id, t_s, recorded_at, direction, line bytes).
 TrafficLine = tuple[int | None, float, str, str, bytes]
@@ -331,6 +345,9 @@ class Store:
         self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
         self._pending_lock = threading.Lock()
         self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
+        #: Beside _pending and _in_flight: whom to tell each kept line's row id (None: nobody).
+        self._pending_told: list[LineIdListener | None] = []
+        self._in_flight_told: list[LineIdListener | None] = []
         self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
         self._account: str | None = None  # the Unix account a client's request comes from
 
@@ -500,20 +517,29 @@ class Store:
                 conn.rollback()
                 self._keep_again()
                 raise
-            self._in_flight = []
+            self._in_flight, self._in_flight_told = [], []
 
     def _write_kept_traffic(self) -> None:
-        """Append the kept raw lines (lock held, transaction open)."""
+        """Append the kept raw lines (lock held, transaction open) and tell each line's
+        listener its row id."""
         with self._pending_lock:
             self._in_flight, self._pending = self._pending, []
+            self._in_flight_told, self._pending_told = self._pending_told, []
         if self._in_flight:
-            self._append_traffic(self._in_flight)
+            first_id = self._append_traffic(self._in_flight) - len(self._in_flight) + 1
+            for offset, told in enumerate(self._in_flight_told):
+                if told is not None:
+                    told(first_id + offset)
 
     def _keep_again(self) -> None:
         """Put the lines of a failed transaction back in front of the kept ones."""
         with self._pending_lock:
             self._pending[:0] = self._in_flight
-        self._in_flight = []
+            self._pending_told[:0] = self._in_flight_told
+        for told in self._in_flight_told:
+            if told is not None:
+                told(None)  # not written after all: no row id yet
+        self._in_flight, self._in_flight_told = [], []
 
     @contextmanager
     def busy_timeout(self, timeout_ms: int) -> Iterator[None]:
@@ -654,7 +680,12 @@ class Store:
         replay_of: int | None = None,
         actor: str = DAEMON_ACTOR,
     ) -> int:
-        """Record a new open session and its ``session_created`` event; return its id."""
+        """Record a new open session and its ``session_created`` event; return its id.
+
+        The session gets a random UUID (version 4), its id across stations, kept in its row and
+        in the event (so that the hash chain covers it).
+        """
+        session_uuid = str(uuid.uuid4())
         row = {
             "created_at": self._stamp(),
             "status": "open",
@@ -663,6 +694,7 @@ class Store:
             "convention": _require_text("convention", convention),
             "beam": _require_text("beam", beam),
             "replay_of": replay_of,
+            "uuid": session_uuid,
         }
         with self.atomic():
             if replay_of is not None:
@@ -672,7 +704,12 @@ class Store:
                 session_id,
                 actor,
                 "session_created",
-                {"convention": convention, "beam": beam, "replay_of": replay_of},
+                {
+                    "convention": convention,
+                    "beam": beam,
+                    "replay_of": replay_of,
+                    "uuid": session_uuid,
+                },
             )
         return session_id
 
@@ -707,6 +744,24 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+
+    def station(self) -> StationRow:
+        """Return the station that keeps this file (its UUID and name)."""
+        with self._lock:
+            row = self.db.execute("SELECT uuid, name, created_at FROM station").fetchone()
+        return StationRow(*row)
+
+    def name_station(self, name: str, actor: str = DAEMON_ACTOR) -> bool:
+        """Give the station ``name`` (``serve --station-name``), recording the change as a
+        ``station_named`` event outside any session; return False when it had that name."""
+        name = _require_text("station name", name).strip()
+        with self.atomic():
+            old = self.station().name
+            if old == name:
+                return False
+            self._event(None, actor, "station_named", {"from": old, "to": name})
+            self.db.execute("UPDATE station SET name = ?", (name,))
+        return True
 
     def sessions(self) -> list[SessionRow]:
         """Return every session, oldest first."""
@@ -969,13 +1024,18 @@ class Store:
             self._append_traffic(rows)
         return len(rows)
 
-    def keep_traffic(self, line: TrafficLine) -> None:
+    def keep_traffic(self, line: TrafficLine, told: LineIdListener | None = None) -> None:
         """Keep one raw line (see :meth:`add_traffic_many` for its shape) to be written with the
         next commit, before anything that commit appends: the order of the session's chain is
-        the order in which lines and events happened. Cheap, and safe from any thread."""
+        the order in which lines and events happened. Cheap, and safe from any thread.
+
+        ``told(row_id)`` is called when the line is written (``told(None)`` if that
+        transaction fails): a sample read from the line then names it by id.
+        """
         row = _traffic_row(line)
         with self._pending_lock:
             self._pending.append(row)
+            self._pending_told.append(told)
 
     def kept_traffic_count(self) -> int:
         """Return how many raw lines are kept, not yet committed (safe from any thread)."""
@@ -1000,16 +1060,10 @@ class Store:
                 self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
             )
 
-    def received_line_id(self, session_id: int, t_s: float) -> int | None:
-        """Return the id of the session's raw line received at ``t_s`` (s, the driver's clock),
-        the line a sample with that time was read from; None when there is none."""
+    def newest_traffic_id(self) -> int:
+        """Return the id of the newest raw line recorded (0 when there is none)."""
         with self._lock:
-            row = self.db.execute(
-                "SELECT id FROM traffic WHERE session_id = ? AND direction = 'rx' AND t_s = ? "
-                "ORDER BY id DESC LIMIT 1",
-                (session_id, t_s),
-            ).fetchone()
-        return None if row is None else int(row[0])
+            return int(self.db.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""

@@ -101,6 +101,12 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
         if truth is not None and key in truth:
             row += f"{truth[key]:>17.5f}"
         lines.append(row)
+    sources = document.get("factor_sources", {})
+    lines += [
+        f"{symbols.get(key, key)} {sources.get(key, 'carried')}"
+        for key in FACTORS
+        if states.get(key) == "carried"
+    ]
     unit = "%"
     lines += [
         "",
@@ -111,7 +117,8 @@ def result_table(document: dict[str, Any], truth: dict[str, Any] | None = None) 
         f"deviation       {_number(document.get('deviation_pct'), 2)} {unit} "
         f"(tolerance {document.get('tolerance_pct')} {unit})",
         f"u_c             {_number(document.get('u_combined_pct'), 2)} {unit}, "
-        f"U (k = 2) {_number(document.get('U_expanded_pct'), 2)} {unit}",
+        f"U (k = {_number(document.get('coverage_factor'), 3)}) "
+        f"{_number(document.get('U_expanded_pct'), 2)} {unit}",
     ]
     lines += [f"{label:<22} {text}" for label, text in cross_check_rows(document)]
     flags = document.get("flags", [])

@@ -6,19 +6,31 @@ A worksheet holds one session::
     beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
     [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
     [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
-    [environment.routine], [environment.opposite], [environment.reduced]
+    [environment.routine], [environment.opposite], [environment.reduced], [environment.return]
                    (optional) the air while that set was taken: temperature_C and one pressure
-                   key; the set's mean is corrected with it before k_pol and k_s are formed,
-                   and the routine set's gives k_TP. A set without one uses [environment].
+                   key; the set's mean is corrected with it before k_pol and k_s are formed
+                   and the return check is compared, and the routine set's gives k_TP. A set
+                   without one uses [environment].
     [bias]         routine_V (signed), reduced_V (magnitude, or signed with the routine polarity)
-    [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC
+    [readings]     routine_nC = [...], opposite_nC = [...], reduced_nC = [...], leakage_nC,
+                   return_nC = [...] (the return to the routine setting at the end)
     [calibration]  N_Dw_Gy_per_nC | N_Dw_Gy_per_C | N_Dw_cGy_per_nC, k_Q, k_elec,
                    monitor_units (per reading, the same for every set: k_pol and k_s are ratios
                    of the sets' mean charges), expected_cGy_per_MU, tolerance_pct (number, or
-                   "daily", "monthly", "annual"), u_N_Dw_pct_k2, u_k_Q_pct
+                   "daily", "monthly", "annual"), u_N_Dw_pct_k2 (the certificate's expanded
+                   uncertainty), k_N_Dw (its coverage factor, 2 unless stated), u_k_Q_pct
     [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct (give it with k_elec: without
-                   it an entered k_elec is left out of u_c and flagged)
+                   it an entered k_elec is left out of u_c and flagged), coverage_probability
+                   (0.95), and the user's components in %: u_reference_conditions_pct,
+                   u_long_term_stability_pct, u_beam_monitor_pct, u_electrometer_resolution_pct
     [thresholds]   any field of chargebook.corrections.stability.Thresholds
+    [carried]      k_pol = { value, source, date, u_pct }, k_s = { ... } (optional): a factor
+                   carried from an earlier full calibration, for a routine output check with
+                   no opposite-polarity or reduced-bias readings (value, source and date
+                   required; u_pct its standard uncertainty in %, optional; u_source optional).
+                   Checked against [session] date, else the day the worksheet is read: a
+                   factor dated later is refused, one older than the threshold
+                   carried_max_age_days is flagged. A factor both carried and measured is refused.
 
 Reading is strict: an unknown key, a value of the wrong type, an empty reading set or two
 spellings of one quantity is an InputError naming the key. Ranges are checked by ``evaluate``.
@@ -39,8 +51,15 @@ from types import MappingProxyType
 from typing import Any
 
 from chargebook.corrections import units
+from chargebook.corrections.carried import (
+    CARRIED_KEYS,
+    MEASURED_BY,
+    CarriedFactor,
+    carried_factor,
+    parse_date,
+)
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import SET_KEYS, MeasurementInputs, Uncertainties
+from chargebook.corrections.evaluate import AIR_KEYS, MeasurementInputs, Uncertainties
 from chargebook.corrections.set_air import SetEnvironment
 from chargebook.corrections.stability import Thresholds
 
@@ -48,6 +67,7 @@ NUMBER = "a number"
 NUMBERS = "a list of numbers"
 TEXT = "text"
 NUMBER_OR_TEXT = "a number or a name"
+CARRIED_TABLE = "a table with value, source, date and optionally u_pct, u_source"
 INTEGER_OR_NONE = "an integer"
 
 #: Section -> key -> the kind of value it takes. "" is the top level.
@@ -78,6 +98,7 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             "routine_nC": NUMBERS,
             "opposite_nC": NUMBERS,
             "reduced_nC": NUMBERS,
+            "return_nC": NUMBERS,
             "leakage_nC": NUMBER,
         },
         "calibration": {
@@ -90,21 +111,30 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             "expected_cGy_per_MU": NUMBER,
             "tolerance_pct": NUMBER_OR_TEXT,
             "u_N_Dw_pct_k2": NUMBER,
+            "k_N_Dw": NUMBER,
             "u_k_Q_pct": NUMBER,
         },
         "uncertainty": {
             "u_temperature_C": NUMBER,
             "u_pressure_kPa": NUMBER,
             "u_k_elec_pct": NUMBER,
+            "coverage_probability": NUMBER,
+            "u_reference_conditions_pct": NUMBER,
+            "u_long_term_stability_pct": NUMBER,
+            "u_beam_monitor_pct": NUMBER,
+            "u_electrometer_resolution_pct": NUMBER,
         },
         "thresholds": {
             item.name: (
                 INTEGER_OR_NONE
                 if item.name in ("minimum_readings", "charge_sign_for_positive_bias")
+                else TEXT
+                if item.name == "recombination_off_table"
                 else NUMBER
             )
             for item in dataclasses.fields(Thresholds)
         },
+        "carried": {key: CARRIED_TABLE for key in CARRIED_KEYS},
     }
 )
 
@@ -169,12 +199,15 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
         if not isinstance(value, Mapping):
             raise InputError(key, value, f"a [{key}] table", "is not a table")
         for inner, inner_value in value.items():
-            if key == "environment" and inner in SET_KEYS:
+            if key == "environment" and inner in AIR_KEYS:
                 result[key][inner] = _set_environment_table(inner, inner_value)
                 continue
             if inner not in SCHEMA[key]:
                 known = ", ".join(SCHEMA[key])
                 raise InputError(_name(key, inner), inner_value, known, "is not a known key")
+            if key == "carried":
+                result[key][inner] = inner_value  # checked whole by _carried
+                continue
             result[key][inner] = _typed(key, inner, inner_value)
     for section, key in REQUIRED:
         if key not in result[section]:
@@ -204,7 +237,7 @@ def _set_environments(
     """Return the per-set environments of the worksheet and the pressure conversions made."""
     found: dict[str, SetEnvironment] = {}
     conversions: list[units.Conversion] = []
-    for set_key in SET_KEYS:
+    for set_key in AIR_KEYS:
         table = environment.get(set_key)
         if table is None:
             continue
@@ -260,11 +293,35 @@ def _calibration_coefficient(
     return Gy_per_nC, [units.Conversion("N_D,w", value, unit, Gy_per_nC, "Gy/nC")]
 
 
-def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>") -> Worksheet:
-    """Return the Worksheet held by a parsed TOML/JSON ``document``; raise InputError if invalid."""
+def _measured_on(session: Mapping[str, Any], today: datetime.date | None) -> str:
+    """Return the measurement's date: [session] date when given, else ``today`` (or the
+    computer's date)."""
+    if "date" in session:
+        return parse_date("session.date", session["date"]).isoformat()
+    return (today or datetime.date.today()).isoformat()
+
+
+def _carried(tables: Mapping[str, Any], measured_on: str) -> dict[str, CarriedFactor]:
+    """Return the [carried] factors, each checked by name (``carried.k_pol.date``)."""
+    return {
+        key: carried_factor(f"carried.{key}", table, measured_on) for key, table in tables.items()
+    }
+
+
+def parse_worksheet(
+    document: Mapping[str, Any],
+    path: Path | str = "<worksheet>",
+    today: datetime.date | None = None,
+) -> Worksheet:
+    """Return the Worksheet held by a parsed TOML/JSON ``document``; raise InputError if invalid.
+
+    ``today``: the date a worksheet without [session] date is taken to be measured on (None:
+    the computer's date); carried factors are checked against it.
+    """
     if not isinstance(document, Mapping):
         raise InputError("worksheet", document, "a table of keys", "is not a table")
     sections = _sections(document)
+    measured_on = _measured_on(sections["session"], today) if sections["carried"] else None
     environment, calibration = sections["environment"], sections["calibration"]
     readings, uncertainty = sections["readings"], sections["uncertainty"]
     pressure, pressure_conversions = _pressure(environment)
@@ -273,6 +330,7 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
     uncertainties = Uncertainties(
         u_N_Dw_pct_k2=calibration.get("u_N_Dw_pct_k2"),
         u_k_Q_pct=calibration.get("u_k_Q_pct"),
+        **({"k_N_Dw": calibration["k_N_Dw"]} if "k_N_Dw" in calibration else {}),
         **uncertainty,
     )
     inputs = MeasurementInputs(
@@ -286,6 +344,7 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
         routine_nC=readings["routine_nC"],
         opposite_nC=readings.get("opposite_nC", ()),
         reduced_nC=readings.get("reduced_nC", ()),
+        return_nC=readings.get("return_nC", ()),
         leakage_nC=readings.get("leakage_nC"),
         N_Dw_Gy_per_nC=N_Dw,
         k_Q=calibration.get("k_Q"),
@@ -297,6 +356,13 @@ def parse_worksheet(document: Mapping[str, Any], path: Path | str = "<worksheet>
         thresholds=Thresholds(**sections["thresholds"]),
         conversions=tuple(pressure_conversions + set_conversions + N_Dw_conversions),
         set_environments=per_set,
+        carried=_carried(sections["carried"], measured_on) if measured_on else {},
+        measured_on=measured_on,
+        not_measured=tuple(
+            key
+            for key, set_key in MEASURED_BY.items()
+            if not readings.get(f"{set_key}_nC") and key not in sections["carried"]
+        ),
     )
     return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))
 
@@ -327,6 +393,7 @@ _RENAMED = {
     "reduced_bias_V": "bias.reduced_V",
     "uncertainties.u_N_Dw_pct_k2": "calibration.u_N_Dw_pct_k2",
     "uncertainties.u_k_Q_pct": "calibration.u_k_Q_pct",
+    "uncertainties.k_N_Dw": "calibration.k_N_Dw",
 }
 
 
@@ -337,6 +404,8 @@ def worksheet_key(field: str) -> str | None:
     ``routine_nC[2]``, ``voltage ratio routine_bias_V/reduced_bias_V``); this finds the key the
     operator typed, so the message can point at the line to fix.
     """
+    if field.startswith("carried."):
+        return field
     if field.startswith("set_environments."):
         return "environment." + field.removeprefix("set_environments.")
     for name, key in _RENAMED.items():

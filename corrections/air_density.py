@@ -35,10 +35,10 @@ def k_TP(
 ) -> Number:
     """Return k_TP (dimensionless) for air at ``temperature_C`` (°C) and ``pressure_kPa``.
 
-    The pressure is in kPa unless ``pressure_unit`` says "hPa" or "mmHg" (1 mmHg = 0.133322
-    kPa); it is converted once and checked in the unit given. Scalars or numpy arrays
-    broadcast. The reference conditions come from ``convention`` unless given explicitly (to
-    reproduce a published worked example with other constants).
+    The pressure is in kPa unless ``pressure_unit`` says "hPa" or "mmHg" (1 mmHg = 0.133322387
+    kPa, the conventional millimetre of mercury); it is converted once and checked in the unit
+    given. Scalars or numpy arrays broadcast. The reference conditions come from ``convention``
+    unless given explicitly (to reproduce a published worked example with other constants).
     Raises InputError for a temperature outside 10–40 °C or a pressure outside 60–110 kPa.
     """
     reference = constants(convention)

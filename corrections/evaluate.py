@@ -6,40 +6,44 @@ exports call, so every number an operator sees is computed here, once. Partial i
 every value depending on it is None, never computed as if the factor were 1. Invalid inputs
 raise :class:`~chargebook.corrections.errors.InputError` naming the field, value and range.
 
-Factor states, one rule for every factor (where its value comes from):
-
-* "measured": computed from this session's measurements: the charge readings (k_pol, k_s) or the
-  thermometer and barometer readings (k_TP), whether typed in or sent by a sensor;
-* "entered": the factor's own value typed in from a certificate or the code of practice
-  (k_elec, N_D,w, k_Q);
-* "default": no measurement or entry gives the value; the protocols' conventional value is used
-  and the source says why. k_h is always 1 here: with 20–80 % RH entered the protocols' rule
-  gives 1 (the source says the entered humidity is in the band), with none entered 1 is assumed
-  (flag ``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``).
-  k_elec = 1 when none is entered, as for a chamber and electrometer calibrated together;
-* "pending": not known yet; every value depending on it is None.
+Factor states, one rule for every factor (where its value comes from), are defined once in
+:mod:`chargebook.corrections.factor_state`: measured, entered, default, carried (k_pol and k_s
+of a routine output check, from an earlier full calibration, with source and date), pending.
+k_h is always
+1 here and its state "default": with 20–80 % RH entered the protocols' rule gives 1 (the source
+says the entered humidity is in the band), with none entered 1 is assumed (flag
+``k_h_assumed``), outside the band 1 is still used (warning ``humidity_out_of_band``). k_elec = 1
+when none is entered ("default"), as for a chamber and electrometer calibrated together.
 """
 
 from __future__ import annotations
 
 import dataclasses
+import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
+from chargebook.corrections import carried as carried_module
 from chargebook.corrections import dose as dose_module
-from chargebook.corrections import humidity, limits, stability
+from chargebook.corrections import humidity, limits, plausibility, stability
 from chargebook.corrections.air_density import k_TP as k_TP_of
 from chargebook.corrections.air_density import k_TP_relative_sensitivity
+from chargebook.corrections.carried import CARRIED_KEYS, CarriedFactor
 from chargebook.corrections.conventions import Convention, constants, parse_convention
 from chargebook.corrections.errors import Flag, InputError
+from chargebook.corrections.factor_state import FactorState
+from chargebook.corrections.monte_carlo import MonteCarloCheck, monte_carlo_check
 from chargebook.corrections.polarity import k_pol as k_pol_of
 from chargebook.corrections.recombination import (
+    RATIO_RESOLUTION,
     Beam,
     k_s_boag,
     parse_beam,
+    ratio_resolution,
     tabulated_coefficients,
+    tabulated_row,
     voltage_ratio,
 )
 from chargebook.corrections.recombination import k_s as k_s_of
@@ -55,14 +59,18 @@ from chargebook.corrections.set_air import (
 from chargebook.corrections.signs import set_signs
 from chargebook.corrections.stability import Thresholds
 from chargebook.corrections.statistics import SetStatistics, readings_array, set_statistics
+from chargebook.corrections.student_t import DEFAULT_COVERAGE_PROBABILITY, coverage_factor
 from chargebook.corrections.uncertainty import (
-    COVERAGE_FACTOR,
+    CERTIFICATE_COVERAGE_FACTOR,
+    MONTE_CARLO_SEED,
+    MONTE_CARLO_TRIALS,
     Component,
     Estimate,
     ModelInputs,
     RelativeInput,
     budget,
     combine_pct,
+    effective_dof,
     k_s_log_slope,
 )
 from chargebook.corrections.units import Conversion
@@ -71,8 +79,10 @@ from chargebook.corrections.units import Conversion
 FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec", "N_Dw", "k_Q")
 #: Keys of the factors that make up the corrected charge (the rest turn it into dose).
 CHARGE_FACTOR_KEYS: tuple[str, ...] = ("k_TP", "k_h", "k_pol", "k_s", "k_elec")
-STATES: tuple[str, ...] = ("measured", "entered", "default", "pending")
 SET_KEYS: tuple[str, ...] = ("routine", "opposite", "reduced")
+#: The sets that may have air of their own (``set_environments``): the result sets and the
+#: return check, whose mean is referred to the routine set's air before it is compared.
+AIR_KEYS: tuple[str, ...] = (*SET_KEYS, "return")
 #: Budget source of a Type B input whose uncertainty was not given (flagged, never taken as 0).
 NOT_GIVEN = "not given: left out of u_c"
 
@@ -81,14 +91,16 @@ NOT_GIVEN = "not given: left out of u_c"
 class Uncertainties:
     """Type B inputs, with documented defaults.
 
-    ``u_N_Dw_pct_k2``: N_D,w's expanded uncertainty as on the calibration certificate (k = 2),
-    halved here; None: not given, left out of u_c and flagged. ``u_k_Q_pct``: k_Q's standard
+    ``u_N_Dw_pct_k2``: N_D,w's expanded uncertainty as on the calibration certificate, divided
+    here by the certificate's coverage factor ``k_N_Dw`` (2 unless the certificate states
+    another); None: not given, left out of u_c and flagged. ``u_k_Q_pct``: k_Q's standard
     uncertainty (%); None: likewise. ``u_k_elec_pct``: k_elec's standard uncertainty (%); None
     with no k_elec entered means 0 (chamber and electrometer calibrated together: N_D,w's
     uncertainty covers both), None with a k_elec entered means not given: left out of u_c and
     flagged, never taken as 0. ``u_temperature_C``: thermometer, 0.1 °C
     (a calibrated probe; common practice). ``u_pressure_kPa``: barometer, 0.05 kPa (a calibrated
-    digital barometer; common practice).
+    digital barometer; common practice). ``coverage_probability``: of the expanded
+    uncertainty, 0.95 by default (common practice).
     """
 
     u_N_Dw_pct_k2: float | None = None
@@ -96,6 +108,16 @@ class Uncertainties:
     u_k_elec_pct: float | None = None
     u_temperature_C: float = 0.1
     u_pressure_kPa: float = 0.05
+    k_N_Dw: float = CERTIFICATE_COVERAGE_FACTOR
+    coverage_probability: float = DEFAULT_COVERAGE_PROBABILITY
+    #: The user's own components, relative standard uncertainties in % (None: not in the
+    #: budget): establishment of the reference conditions (depth, SSD, field), long-term
+    #: stability of the dosimeter, beam monitor and output stability between sets, and the
+    #: electrometer's resolution (the codes of practice list them; see docs/physics.md).
+    u_reference_conditions_pct: float | None = None
+    u_long_term_stability_pct: float | None = None
+    u_beam_monitor_pct: float | None = None
+    u_electrometer_resolution_pct: float | None = None
 
 
 @dataclass(frozen=True)
@@ -110,12 +132,19 @@ class MeasurementInputs:
     ``temperature_history_C`` and ``pressure_history_kPa`` are the values recorded during the
     session, to flag a changing environment. ``conversions`` records unit conversions made
     while reading the inputs, so they can be shown with the results.
-    ``set_environments`` gives, per set ("routine", "opposite", "reduced"), the air in which
-    that set was taken; a set without one uses ``temperature_C`` and ``pressure_kPa``. Each
-    set's mean is referred to reference air with its own k_TP before k_pol and k_s are formed
+    ``set_environments`` gives, per set ("routine", "opposite", "reduced", "return"), the air
+    in which that set was taken; a set without one uses ``temperature_C`` and ``pressure_kPa``.
+    Each set's mean is referred to reference air with its own k_TP before k_pol and k_s are
+    formed and before the return check is compared with the routine set
     (:mod:`chargebook.corrections.set_air`); the routine set's k_TP is the result's.
     ``subtract_leakage``: subtract ``leakage_nC`` from the routine mean (the operator's choice;
     off by default, the leakage is then only reported as a percentage of the routine reading).
+    ``carried``: k_pol and/or k_s carried from an earlier full calibration (state "carried");
+    a factor both carried and measured (its readings given) is refused. ``measured_on``: the
+    measurement's date (YYYY-MM-DD); a carried factor dated after it is refused, one older
+    than ``thresholds.carried_max_age_days`` is flagged. None: neither is checked.
+    ``not_measured``: the factors (k_pol, k_s) this measurement will not measure (its plan has
+    no such step, or a worksheet no such readings); one of them still pending is flagged.
     """
 
     convention: str = "trs398"
@@ -128,6 +157,8 @@ class MeasurementInputs:
     routine_nC: Sequence[float] = ()
     opposite_nC: Sequence[float] = ()
     reduced_nC: Sequence[float] = ()
+    #: The plan's return to the routine setting at the end (same bias and polarity).
+    return_nC: Sequence[float] = ()
     leakage_nC: float | None = None
     N_Dw_Gy_per_nC: float | None = None
     k_Q: float | None = None
@@ -142,6 +173,9 @@ class MeasurementInputs:
     conversions: tuple[Conversion, ...] = ()
     set_environments: Mapping[str, SetEnvironment] = field(default_factory=dict)
     subtract_leakage: bool = False
+    carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
+    measured_on: str | None = None
+    not_measured: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -153,6 +187,61 @@ class Factor:
     state: str
     u_rel_pct: float | None = None
     source: str = ""
+
+
+#: The user's components: Uncertainties field -> budget line.
+USER_COMPONENTS: Mapping[str, str] = MappingProxyType(
+    {
+        "u_reference_conditions_pct": "establishment of reference conditions",
+        "u_long_term_stability_pct": "long-term stability of the dosimeter",
+        "u_beam_monitor_pct": "beam monitor and output stability between sets",
+        "u_electrometer_resolution_pct": "electrometer resolution",
+    }
+)
+
+
+@dataclass(frozen=True)
+class ReturnCheck:
+    """The return to the routine setting at the end of the session, compared with the start.
+
+    ``ratio``: return-check mean / routine mean; ``deviation_pct`` = 100 (ratio − 1);
+    ``between_set_u_pct``: the between-set standard deviation this implies beyond the two sets'
+    own scatter, sqrt(max(0, d²/2 − (u_r² + u_ret²)/2)) in %, with 1 degree of freedom.
+    """
+
+    stats: SetStatistics
+    ratio: float
+    deviation_pct: float
+    between_set_u_pct: float | None
+    #: k_TP(return set's air) / k_TP(routine set's air): 1.0 when both were taken in one air.
+    air_scale: float = 1.0
+
+    def to_dict(self) -> dict[str, object]:
+        """Return the check as JSON-ready plain types."""
+        return {
+            "set": self.stats.to_dict(),
+            "ratio": self.ratio,
+            "deviation_pct": self.deviation_pct,
+            "between_set_u_pct": self.between_set_u_pct,
+            "air_scale": self.air_scale,
+        }
+
+
+def return_check(
+    routine: SetStatistics, returned: SetStatistics, air_scale_: float = 1.0
+) -> ReturnCheck:
+    """Return the return-to-start comparison of two sets at the routine setting.
+
+    ``air_scale_`` = k_TP(return set's air) / k_TP(routine set's air) refers the return-check
+    mean to the routine set's air first, so a change of air is not taken for a change of output.
+    """
+    ratio = returned.mean_nC * air_scale_ / routine.mean_nC
+    deviation = 100.0 * (ratio - 1.0)
+    u_between = None
+    u_r, u_ret = routine.relative_standard_error_pct, returned.relative_standard_error_pct
+    if u_r is not None and u_ret is not None:
+        u_between = math.sqrt(max(0.0, deviation**2 / 2.0 - (u_r**2 + u_ret**2) / 2.0))
+    return ReturnCheck(returned, ratio, deviation, u_between, air_scale_)
 
 
 @dataclass(frozen=True)
@@ -182,8 +271,16 @@ class Evaluation:
     recombination_method: str = ""
     conversions: tuple[Conversion, ...] = field(default_factory=tuple)
     #: The propagation model behind ``budget`` (None before the first routine reading), for
-    #: a Monte Carlo cross-check with :func:`~chargebook.corrections.uncertainty.monte_carlo_u_pct`.
+    #: the Monte Carlo cross-check (:meth:`monte_carlo`).
     uncertainty_model: ModelInputs | None = None
+    #: Effective degrees of freedom of u_c (Welch–Satterthwaite; inf: all Type B), the
+    #: coverage factor k = t_{(1+p)/2}(ν_eff) and p, the coverage probability of U = k·u_c.
+    effective_dof: float | None = None
+    coverage_factor: float | None = None
+    coverage_probability: float = DEFAULT_COVERAGE_PROBABILITY
+    #: The return to the routine setting compared with the routine set (None: not taken).
+    return_check: ReturnCheck | None = None
+
     #: Per set taken: the air it was taken in and its k_TP (see ``set_air``).
     set_air: Mapping[str, SetAir] = field(default_factory=dict)
     #: Leakage over one routine reading (nC, signed), as a percentage of the routine mean, and
@@ -195,6 +292,23 @@ class Evaluation:
     #: and the protocol's k_s relative to it (%); None for continuous beams or no k_s.
     k_s_boag: float | None = None
     k_s_boag_difference_pct: float | None = None
+    #: The carried factors used (key -> CarriedFactor) and the measurement's date they were
+    #: checked against (YYYY-MM-DD, None if not given).
+    carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
+    measured_on: str | None = None
+
+    def monte_carlo(
+        self, trials: int = MONTE_CARLO_TRIALS, seed: int = MONTE_CARLO_SEED
+    ) -> MonteCarloCheck:
+        """Return the seeded Monte Carlo cross-check of u_c and U (never raises)."""
+        return monte_carlo_check(
+            self.uncertainty_model,
+            self.u_combined_pct,
+            self.U_expanded_pct,
+            self.coverage_probability,
+            trials,
+            seed,
+        )
 
     @property
     def symbols(self) -> Mapping[str, str]:
@@ -215,7 +329,7 @@ class Evaluation:
             result[key] = self.factors[key].value
         result["N_Dw_Gy_per_nC"] = self.factors["N_Dw"].value
         result["k_Q"] = self.factors["k_Q"].value
-        result["factor_states"] = {key: f.state for key, f in self.factors.items()}
+        result["factor_states"] = {key: str(f.state) for key, f in self.factors.items()}
         result["factor_sources"] = {key: f.source for key, f in self.factors.items()}
         result["factor_u_rel_pct"] = {key: f.u_rel_pct for key, f in self.factors.items()}
         result.update(
@@ -235,6 +349,16 @@ class Evaluation:
                 "u_M_corrected_pct": self.u_M_corrected_pct,
                 "u_combined_pct": self.u_combined_pct,
                 "U_expanded_pct": self.U_expanded_pct,
+                "effective_dof": (
+                    None
+                    if self.effective_dof is None or not math.isfinite(self.effective_dof)
+                    else self.effective_dof
+                ),
+                "effective_dof_infinite": self.effective_dof is not None
+                and not math.isfinite(self.effective_dof),
+                "coverage_factor": self.coverage_factor,
+                "coverage_probability": self.coverage_probability,
+                "return_check": None if self.return_check is None else self.return_check.to_dict(),
                 "budget": [c.to_dict() for c in self.budget],
                 "flags": [f.to_dict() for f in self.flags],
                 "sets": {k: (s.to_dict() if s else None) for k, s in self.sets.items()},
@@ -245,9 +369,16 @@ class Evaluation:
                 "leakage_subtracted": self.leakage_subtracted,
                 "k_s_boag": self.k_s_boag,
                 "k_s_boag_difference_pct": self.k_s_boag_difference_pct,
+                "carried": {key: self._carried_dict(key) for key in self.carried},
             }
         )
         return result
+
+    def _carried_dict(self, key: str) -> dict[str, object]:
+        """Return a carried factor's plain values with its age (days) on the measurement date."""
+        factor = self.carried[key]
+        age = None if self.measured_on is None else factor.age_days(self.measured_on)
+        return {**factor.to_dict(), "age_days": age}
 
 
 @dataclass(frozen=True)
@@ -281,6 +412,11 @@ class _Checked:
     humidity_pct: float | None
     routine_bias_V: float | None
     voltage_ratio: float | None
+    #: The voltage ratio k_s is computed with: the tabulated row n equals to the setting
+    #: resolution, or n itself (formulas, Boag's theory).
+    k_s_ratio: float | None
+    #: k_s by Boag's theory: the user's choice for a ratio off the TRS-398 (2000) table.
+    use_boag: bool
     leakage_nC: float | None
     N_Dw_Gy_per_nC: float | None
     k_Q: float | None
@@ -289,9 +425,23 @@ class _Checked:
     expected_cGy_per_MU: float | None
     tolerance_pct: float
     set_environments: Mapping[str, SetEnvironment]
+    carried: Mapping[str, CarriedFactor]
 
 
-def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
+def _check_carried(inputs: MeasurementInputs) -> dict[str, CarriedFactor]:
+    """Return the carried factors checked again (range, date not after ``measured_on``)."""
+    if inputs.measured_on is not None:
+        carried_module.parse_date("measured_on", inputs.measured_on)
+    checked: dict[str, CarriedFactor] = {}
+    for key, factor in inputs.carried.items():
+        if key not in CARRIED_KEYS:
+            raise InputError(f"carried.{key}", key, " or ".join(CARRIED_KEYS), "is not known")
+        table = factor.to_dict() if isinstance(factor, CarriedFactor) else factor
+        checked[key] = carried_module.carried_factor(f"carried.{key}", table, inputs.measured_on)
+    return checked
+
+
+def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None, float | None]:
     allowed = f"±{limits.BIAS_MAGNITUDE_V.text()}"
     biases = []
     for name in ("routine_bias_V", "reduced_bias_V"):
@@ -302,23 +452,45 @@ def _check_bias(inputs: MeasurementInputs) -> tuple[float | None, float | None]:
         biases.append(value)
     routine, reduced = biases
     if routine is None or reduced is None:
-        return routine, None
+        return routine, None, None
     n = voltage_ratio(routine, reduced, fields=("routine_bias_V", "reduced_bias_V"))
-    return routine, float(n)
+    resolution = ratio_resolution(routine, reduced, inputs.thresholds.bias_resolution_V)
+    return routine, float(n), resolution
+
+
+def _k_s_ratio(
+    n: float | None, resolution: float | None, convention: Convention, beam: Beam, boag: bool
+) -> tuple[float | None, bool]:
+    """Return (the ratio k_s is computed with, by Boag's theory?) and refuse an off-table n.
+
+    Under TRS-398 (2000) a pulsed beam's k_s comes from the table's row that n equals to the setting
+    resolution; an n off the table is refused now, before any reduced-bias reading is taken,
+    unless the user chose Boag's theory for it.
+    """
+    if n is None or convention is not Convention.TRS398 or beam is Beam.CONTINUOUS:
+        return n, False
+    row = tabulated_row(n, beam, resolution)
+    if row is not None:
+        return row, False
+    if boag:
+        return n, True
+    tabulated_coefficients(n, beam, "voltage ratio routine_bias_V/reduced_bias_V", resolution)
+    return n, False  # not reached: the call above refused n
 
 
 def _check_uncertainties(u: Uncertainties) -> None:
-    for name in ("u_N_Dw_pct_k2", "u_k_Q_pct", "u_k_elec_pct"):
+    for name in ("u_N_Dw_pct_k2", "u_k_Q_pct", "u_k_elec_pct", *USER_COMPONENTS):
         _optional(getattr(u, name), limits.UNCERTAINTY_PCT, f"uncertainties.{name}")
     limits.U_TEMPERATURE_C.check("uncertainties.u_temperature_C", u.u_temperature_C)
     limits.U_PRESSURE_KPA.check("uncertainties.u_pressure_kPa", u.u_pressure_kPa)
+    limits.CERTIFICATE_K.check("uncertainties.k_N_Dw", u.k_N_Dw)
+    limits.COVERAGE_PROBABILITY.check("uncertainties.coverage_probability", u.coverage_probability)
 
 
 def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam) -> _Checked:
-    routine_V, n = _check_bias(inputs)
-    if n is not None and convention is Convention.TRS398 and beam is not Beam.CONTINUOUS:
-        # Refuse a ratio with no tabulated row now, before any reduced-bias reading is taken.
-        tabulated_coefficients(n, beam, "voltage ratio routine_bias_V/reduced_bias_V")
+    routine_V, n, resolution = _check_bias(inputs)
+    boag = inputs.thresholds.recombination_off_table == "boag"
+    k_s_ratio, use_boag = _k_s_ratio(n, resolution, convention, beam, boag)
     _check_uncertainties(inputs.uncertainties)
     for index, value in enumerate(inputs.temperature_history_C):
         limits.TEMPERATURE_C.check(f"temperature_history_C[{index}]", value)
@@ -335,6 +507,8 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
         humidity_pct=_optional(inputs.humidity_pct, limits.HUMIDITY_PCT, "humidity_pct"),
         routine_bias_V=routine_V,
         voltage_ratio=n,
+        k_s_ratio=k_s_ratio,
+        use_boag=use_boag,
         leakage_nC=_optional(inputs.leakage_nC, limits.LEAKAGE_NC, "leakage_nC"),
         N_Dw_Gy_per_nC=_optional(inputs.N_Dw_Gy_per_nC, limits.N_DW_GY_PER_NC, "N_Dw_Gy_per_nC"),
         k_Q=_optional(inputs.k_Q, limits.K_Q, "k_Q"),
@@ -344,7 +518,8 @@ def _check_scalars(inputs: MeasurementInputs, convention: Convention, beam: Beam
             inputs.expected_cGy_per_MU, limits.EXPECTED_CGY_PER_MU, "expected_cGy_per_MU"
         ),
         tolerance_pct=tolerance,
-        set_environments=check_set_environments(inputs.set_environments, SET_KEYS),
+        set_environments=check_set_environments(inputs.set_environments, AIR_KEYS),
+        carried=_check_carried(inputs),
     )
 
 
@@ -380,6 +555,7 @@ def _reading_sets(
 ) -> dict[str, SetStatistics | None]:
     sets: dict[str, SetStatistics | None] = {}
     threshold = inputs.thresholds.outlier_modified_z
+    floor = inputs.thresholds.outlier_floor_pct
     for key in SET_KEYS:
         readings = getattr(inputs, f"{key}_nC")
         if readings is None or len(readings) == 0:
@@ -387,16 +563,67 @@ def _reading_sets(
             continue
         values = readings_array(f"{key}_nC", readings)
         set_signs(f"{key}_nC", values)
-        sets[key] = set_statistics(values, f"{key}_nC", threshold)
+        sets[key] = set_statistics(values, f"{key}_nC", threshold, floor)
     _check_cross_signs(sets)
     return sets
+
+
+def _return_check(
+    inputs: MeasurementInputs,
+    sets: Mapping[str, SetStatistics | None],
+    checked: _Checked,
+    convention: Convention,
+) -> ReturnCheck | None:
+    """Return the return check, its mean referred to the routine set's air (None: not taken)."""
+    if not inputs.return_nC or sets["routine"] is None:
+        return None
+    values = readings_array("return_nC", inputs.return_nC)
+    set_signs("return_nC", values)
+    stats = set_statistics(
+        values,
+        "return_nC",
+        inputs.thresholds.outlier_modified_z,
+        inputs.thresholds.outlier_floor_pct,
+    )
+    if np.sign(stats.mean_nC) != np.sign(sets["routine"].mean_nC):
+        raise InputError(
+            "return_nC",
+            stats.mean_nC,
+            "charges of the same sign as the routine readings",
+            "has a sign that contradicts its bias",
+        )
+    own, T, P = checked.set_environments, checked.temperature_C, checked.pressure_kPa
+    scale = air_scale(
+        set_k_TP(environment_of("return", own, T, P), convention),
+        set_k_TP(environment_of("routine", own, T, P), convention),
+    )
+    return return_check(sets["routine"], stats, scale)
+
+
+def _return_flags(check: ReturnCheck | None, limits_: Thresholds) -> list[Flag]:
+    if check is None:
+        return []
+    flags = stability.set_flags("return", check.stats, limits_)
+    if abs(check.deviation_pct) > limits_.return_check_pct:
+        flags.append(
+            Flag(
+                "return_check_moved",
+                f"The return-check readings differ from the routine ones by "
+                f"{check.deviation_pct:+.3f} % (ratio {check.ratio:.5f}), beyond "
+                f"±{limits_.return_check_pct:g} %: the beam output, the monitor chamber or the "
+                "chamber's response moved during the session. Check the beam output and the "
+                "set-up, then redo the routine set; the difference is in the budget as a "
+                "between-set term.",
+            )
+        )
+    return flags
 
 
 # ---------------------------------------------------------------- the factors
 
 
 def _pending(symbol: str, needs: str) -> Factor:
-    return Factor(symbol, None, "pending", None, f"needs {needs}")
+    return Factor(symbol, None, FactorState.PENDING, None, f"needs {needs}")
 
 
 def _factor_k_TP(
@@ -415,7 +642,7 @@ def _factor_k_TP(
     )
     if air.source != SESSION_WIDE:
         source += f" (routine set: {air.source})"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
@@ -427,7 +654,7 @@ def _factor_k_h(symbol: str, humidity_pct: float | None) -> Factor:
         source = f"{humidity_pct:g} % RH entered, within {band}: 1 by rule"
     else:
         source = f"{humidity_pct:g} % RH entered, outside {band}: 1 used, see flags"
-    return Factor(symbol, 1.0, "default", 0.0, source)
+    return Factor(symbol, 1.0, FactorState.DEFAULT, 0.0, source)
 
 
 #: The polarity formula as each protocol prints it (they give the same number).
@@ -457,7 +684,7 @@ def _factor_k_pol(
     source = _K_POL_FORMULA[convention]
     if scales["opposite"] != 1.0:
         source += "; opposite-polarity mean referred to the routine set's air"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
 
 
 def _factor_k_s(
@@ -473,19 +700,61 @@ def _factor_k_s(
     if routine is None or reduced is None or checked.voltage_ratio is None:
         return _pending(symbol, "routine and reduced-bias readings and both biases")
     ratio = _charge_ratio(sets, scales)
-    value = float(k_s_of(ratio, checked.voltage_ratio, beam, convention))
+    n, boag = checked.k_s_ratio, checked.use_boag
+    value = float(k_s_of(ratio, n, beam, convention, boag))
     u_rel = None
     if routine.standard_error_nC is not None and reduced.standard_error_nC is not None:
-        sensitivity = abs(k_s_log_slope(ratio, checked.voltage_ratio, beam, convention))
+        sensitivity = abs(k_s_log_slope(ratio, n, beam, convention, boag))
         u_rel = sensitivity * float(
             np.hypot(routine.relative_standard_error_pct, reduced.relative_standard_error_pct)
         )
-    source = f"n = {checked.voltage_ratio:g}, M1/M2 = {ratio:.5f}; " + recombination_method(
-        beam, convention
+    source = f"n = {checked.voltage_ratio:.6g}, M1/M2 = {ratio:.5f}; " + recombination_method(
+        beam, convention, boag
     )
     if scales["reduced"] != 1.0:
         source += "; M2 referred to the routine set's air"
-    return Factor(symbol, value, "measured", u_rel, source)
+    return Factor(symbol, value, FactorState.MEASURED, u_rel, source)
+
+
+def _carried_or(
+    key: str, checked: _Checked, sets: Mapping[str, SetStatistics | None], measured: Factor
+) -> Factor:
+    """Return the carried factor for ``key`` if one is given, else ``measured``.
+
+    A factor both carried and measured (its set's readings given) is refused: which value
+    counts would otherwise be a silent choice.
+    """
+    factor = checked.carried.get(key)
+    if factor is None:
+        return measured
+    set_key = carried_module.MEASURED_BY[key]
+    if sets[set_key] is not None:
+        raise InputError(
+            f"carried.{key}",
+            factor.value,
+            f"either {stability.SET_NAMES[set_key]} readings or a carried {key}, not both",
+            "is both measured and carried",
+        )
+    return Factor(
+        measured.symbol,
+        factor.value,
+        FactorState.CARRIED,
+        factor.u_pct,
+        carried_module.state_source(factor),
+    )
+
+
+def _carried_inputs(factors: Mapping[str, Factor], checked: _Checked) -> tuple[RelativeInput, ...]:
+    """Return the Type B budget lines of the carried factors (u not known: not given)."""
+    lines = []
+    for key, factor in checked.carried.items():
+        source = (
+            NOT_GIVEN
+            if factor.u_pct is None
+            else f"Type B: carried ({factor.u_source}), u = {factor.u_pct:g} %"
+        )
+        lines.append(RelativeInput(f"{factors[key].symbol} carried", factor.u_pct, source))
+    return tuple(lines)
 
 
 def _factor_entered(
@@ -493,7 +762,7 @@ def _factor_entered(
 ) -> Factor:
     if value is None:
         return _pending(symbol, needs)
-    return Factor(symbol, value, "entered", u_rel_pct, f"entered{unit}")
+    return Factor(symbol, value, FactorState.ENTERED, u_rel_pct, f"entered{unit}")
 
 
 def _charge_ratio(
@@ -557,19 +826,28 @@ def _factors(
         Factor(
             symbols["k_elec"],
             1.0,
-            "default",
+            FactorState.DEFAULT,
             u.u_k_elec_pct or 0.0,
             "not entered; 1 (calibrated together)",
         )
         if checked.k_elec is None
-        else Factor(symbols["k_elec"], checked.k_elec, "entered", u.u_k_elec_pct, "entered")
+        else Factor(
+            symbols["k_elec"], checked.k_elec, FactorState.ENTERED, u.u_k_elec_pct, "entered"
+        )
     )
-    u_N_Dw = None if u.u_N_Dw_pct_k2 is None else u.u_N_Dw_pct_k2 / COVERAGE_FACTOR
+    u_N_Dw = None if u.u_N_Dw_pct_k2 is None else u.u_N_Dw_pct_k2 / u.k_N_Dw
     return {
         "k_TP": _factor_k_TP(symbols["k_TP"], convention, routine_air, u),
         "k_h": _factor_k_h(symbols["k_h"], checked.humidity_pct),
-        "k_pol": _factor_k_pol(symbols["k_pol"], sets, convention, scales),
-        "k_s": _factor_k_s(symbols["k_s"], sets, checked, beam, convention, scales),
+        "k_pol": _carried_or(
+            "k_pol", checked, sets, _factor_k_pol(symbols["k_pol"], sets, convention, scales)
+        ),
+        "k_s": _carried_or(
+            "k_s",
+            checked,
+            sets,
+            _factor_k_s(symbols["k_s"], sets, checked, beam, convention, scales),
+        ),
         "k_elec": k_elec,
         "N_Dw": _factor_entered(
             symbols["N_Dw"],
@@ -598,6 +876,7 @@ def _model(
     convention: Convention,
     beam: Beam,
     air: _AirReference,
+    returned: ReturnCheck | None = None,
 ) -> ModelInputs:
     u = inputs.uncertainties
 
@@ -610,14 +889,14 @@ def _model(
         scale = air.scales[key]
         error = None if stats.standard_error_nC is None else stats.standard_error_nC * scale
         offset = air.leakage_subtracted_nC if key == "routine" else 0.0
-        return Estimate(stats.mean_nC * scale - offset, error)
+        return Estimate(stats.mean_nC * scale - offset, error, float(stats.count - 1))
 
     routine_air = air.routine
-    has_k_TP = factors["k_TP"].state != "pending" and routine_air is not None
+    has_k_TP = factors["k_TP"].state != FactorState.PENDING and routine_air is not None
     k_elec = factors["k_elec"]
     if k_elec.u_rel_pct is None:
         k_elec_source = NOT_GIVEN
-    elif k_elec.state == "entered":
+    elif k_elec.state == FactorState.ENTERED:
         k_elec_source = f"Type B: electrometer calibration, u = {k_elec.u_rel_pct:g} %"
     else:
         k_elec_source = f"Type B: {k_elec.symbol} not entered (calibrated together), u = " + (
@@ -628,7 +907,11 @@ def _model(
         RelativeInput(
             f"{factors['N_Dw'].symbol} calibration coefficient",
             factors["N_Dw"].u_rel_pct,
-            "Type B: certificate, U(k=2) halved" if u.u_N_Dw_pct_k2 is not None else NOT_GIVEN,
+            (
+                f"Type B: certificate, U divided by its k = {u.k_N_Dw:g}"
+                if u.u_N_Dw_pct_k2 is not None
+                else NOT_GIVEN
+            ),
             in_charge=False,
         ),
         RelativeInput(
@@ -637,17 +920,36 @@ def _model(
             "Type B: code of practice" if u.u_k_Q_pct is not None else NOT_GIVEN,
             in_charge=False,
         ),
+        *_carried_inputs(factors, checked),
+        *(
+            RelativeInput(name, getattr(u, key), "Type B: entered by the user")
+            for key, name in USER_COMPONENTS.items()
+            if getattr(u, key) is not None
+        ),
+        *(
+            [
+                RelativeInput(
+                    "between-set stability (return check)",
+                    returned.between_set_u_pct,
+                    "Type A: routine and return-check means, 1 degree of freedom",
+                    dof=1.0,
+                )
+            ]
+            if returned is not None and returned.between_set_u_pct is not None
+            else []
+        ),
     )
     return ModelInputs(
         convention,
         beam,
         estimate("routine"),
-        opposite_nC=estimate("opposite") if factors["k_pol"].state != "pending" else None,
-        reduced_nC=estimate("reduced") if factors["k_s"].state != "pending" else None,
-        voltage_ratio=checked.voltage_ratio if factors["k_s"].state != "pending" else None,
+        opposite_nC=estimate("opposite") if factors["k_pol"].state != FactorState.PENDING else None,
+        reduced_nC=estimate("reduced") if factors["k_s"].state != FactorState.PENDING else None,
+        voltage_ratio=checked.k_s_ratio if factors["k_s"].state != FactorState.PENDING else None,
         temperature_C=Estimate(routine_air.temperature_C, u.u_temperature_C) if has_k_TP else None,
         pressure_kPa=Estimate(routine_air.pressure_kPa, u.u_pressure_kPa) if has_k_TP else None,
         relative_inputs=relative,
+        use_boag=checked.use_boag,
     )
 
 
@@ -745,8 +1047,16 @@ def _session_flags(
         + ([checked.pressure_kPa] if checked.pressure_kPa is not None else [])
     )
     flags += stability.environment_flags(temperatures, pressures, limits_)
+    for key in inputs.not_measured:
+        if factors[key].state == "pending":
+            set_name = stability.SET_NAMES[carried_module.MEASURED_BY[key]]
+            flags.append(carried_module.not_measured_flag(key, factors[key].symbol, set_name))
+    for key, carried in checked.carried.items():
+        flags += carried_module.age_flags(
+            key, factors[key].symbol, carried, inputs.measured_on, limits_.carried_max_age_days
+        )
     flags += stability.humidity_flags(checked.humidity_pct)
-    if factors["k_elec"].state == "default":
+    if factors["k_elec"].state == FactorState.DEFAULT:
         flags.append(
             Flag(
                 "k_elec_assumed",
@@ -759,6 +1069,83 @@ def _session_flags(
     return flags
 
 
+def _pressure_as_entered(
+    pressure_kPa: float | None, conversions: Sequence[Conversion]
+) -> tuple[float, str] | None:
+    """Return (the pressure as typed, its unit), from the recorded conversion if one was made."""
+    if pressure_kPa is None:
+        return None
+    for conversion in conversions:
+        if conversion.quantity == "pressure" and conversion.converted_value == pressure_kPa:
+            return conversion.value, conversion.unit
+    return pressure_kPa, "kPa"
+
+
+#: TRS-398 recommends a voltage ratio V1/V2 of at least 3 for the two-voltage method (TRS-398
+#: (2000), from memory); 2 and 2.5 are tabulated and allowed.
+TRS398_RECOMMENDED_MINIMUM_RATIO = 3.0
+
+
+def _protocol_flags(
+    checked: _Checked,
+    convention: Convention,
+    beam: Beam,
+    symbol: str,
+    charge_ratio: float | None = None,
+) -> list[Flag]:
+    """Return flags for a voltage ratio or beam the protocol allows only with a caveat."""
+    n = checked.voltage_ratio
+    if n is None:
+        return []
+    flags = []
+    if checked.use_boag:
+        flags.append(
+            Flag(
+                "k_s_by_boag",
+                f"The voltage ratio n = {n:.6g} is not a row of the TRS-398 (2000) table, so "
+                f"{symbol} was computed with Boag's theory for pulsed beams, as chosen "
+                '(thresholds.recombination_off_table = "boag"). The table\'s rows are fits to '
+                "that theory; state the method with the result.",
+                "info",
+            )
+        )
+    low = n < TRS398_RECOMMENDED_MINIMUM_RATIO - RATIO_RESOLUTION
+    if convention is Convention.TRS398 and low:
+        flags.append(
+            Flag(
+                "voltage_ratio_below_3",
+                f"The voltage ratio V1/V2 = {n:.6g} is below 3. TRS-398 (2000) tabulates n = 2 "
+                "and 2.5 but recommends a ratio of at least 3: a small ratio makes k_s more "
+                "sensitive to the scatter of the two sets. Allowed; use V1/V2 >= 3 where the "
+                "electrometer allows it.",
+                "info",
+            )
+        )
+    if convention is Convention.TG51 and beam is Beam.PULSED_SCANNED:
+        flags.append(_tg51_scanned_flag(n, charge_ratio, symbol))
+    return flags
+
+
+def _tg51_scanned_flag(n: float, charge_ratio: float | None, symbol: str) -> Flag:
+    """Return the flag saying a pulsed-scanned beam got TG-51's pulsed linear P_ion."""
+    comparison = ""
+    row = tabulated_row(n, Beam.PULSED_SCANNED)
+    if charge_ratio is not None and row is not None:
+        linear = float(k_s_of(charge_ratio, n, Beam.PULSED, Convention.TG51))
+        scanned = float(k_s_of(charge_ratio, row, Beam.PULSED_SCANNED, Convention.TRS398))
+        comparison = (
+            f" Here the linear form gives {linear:.4f}; TRS-398 (2000)'s pulsed-scanned "
+            f"coefficients would give {scanned:.4f} ({100 * (scanned / linear - 1):+.2f} %)."
+        )
+    return Flag(
+        "tg51_pulsed_scanned",
+        f"For this pulsed-scanned beam {symbol} is TG-51's linear two-voltage formula "
+        "(1 − n)/(M1/M2 − n), the one it gives for pulsed beams: it has no separate method for "
+        "scanned beams, whose dose per pulse varies across the field." + comparison + " Check "
+        "which your code of practice asks for.",
+    )
+
+
 def evaluate(inputs: MeasurementInputs) -> Evaluation:
     """Return every factor, result, uncertainty and flag that ``inputs`` allow.
 
@@ -769,6 +1156,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     beam = parse_beam(inputs.beam)
     checked = _check_scalars(inputs, convention, beam)
     sets = _reading_sets(inputs)
+    returned = _return_check(inputs, sets, checked, convention)
     set_air, scales, routine_air = _set_air(checked, sets, convention)
     factors = _factors(inputs, checked, sets, convention, beam, scales, routine_air)
 
@@ -794,19 +1182,36 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     components: tuple[Component, ...] = ()
     u_charge = u_dose = model = None
     if routine is not None:
-        model = _model(inputs, checked, sets, factors, convention, beam, air)
+        model = _model(inputs, checked, sets, factors, convention, beam, air, returned)
         components = budget(model)
         if _type_a_known(components):
             charge_parts = [c for c in components if c.in_charge]
             u_charge = combine_pct(charge_parts) if M_corrected is not None else None
             u_dose = combine_pct(components) if dose_Gy is not None else None
+    probability = inputs.uncertainties.coverage_probability
+    nu_eff = k = U = None
+    if u_dose is not None:
+        nu_eff = effective_dof(components)
+        k = coverage_factor(nu_eff, probability)
+        U = k * u_dose
 
     flags = _session_flags(inputs, checked, sets, factors, air)
+    flags += plausibility.flags(
+        plausibility.Entered(
+            pressure=_pressure_as_entered(checked.pressure_kPa, inputs.conversions),
+            N_Dw_Gy_per_nC=checked.N_Dw_Gy_per_nC,
+            k_TP=factors["k_TP"].value,
+            dose_per_MU_cGy=per_MU,
+            set_means_nC={key: stats.mean_nC for key, stats in sets.items() if stats},
+        )
+    )
+    charge_ratio = _charge_ratio(sets, scales)
+    flags += _protocol_flags(checked, convention, beam, factors["k_s"].symbol, charge_ratio)
+    flags += _return_flags(returned, inputs.thresholds)
     if M_corrected is not None:
         flags += _uncertainty_flags(components, dose_known=dose_Gy is not None)
     flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
     tolerance_source = _tolerance_source(inputs.tolerance_pct)
-    charge_ratio = _charge_ratio(sets, scales)
     boag, boag_difference = _boag_cross_check(factors["k_s"], charge_ratio, checked, beam)
     return Evaluation(
         convention=convention,
@@ -824,7 +1229,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         within_tolerance=None if deviation is None else abs(deviation) <= checked.tolerance_pct,
         u_M_corrected_pct=u_charge,
         u_combined_pct=u_dose,
-        U_expanded_pct=None if u_dose is None else COVERAGE_FACTOR * u_dose,
+        U_expanded_pct=U,
         budget=components,
         flags=tuple(flags),
         voltage_ratio=checked.voltage_ratio,
@@ -832,12 +1237,18 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         recombination_method=recombination_method(beam, convention),
         conversions=tuple(inputs.conversions),
         uncertainty_model=model,
+        effective_dof=nu_eff,
+        coverage_factor=k,
+        coverage_probability=probability,
+        return_check=returned,
         set_air=MappingProxyType(set_air),
         leakage_nC=checked.leakage_nC,
         leakage_pct=leakage_pct,
         leakage_subtracted=inputs.subtract_leakage and leakage_pct is not None,
         k_s_boag=boag,
         k_s_boag_difference_pct=boag_difference,
+        carried=MappingProxyType(dict(checked.carried)),
+        measured_on=inputs.measured_on,
     )
 
 

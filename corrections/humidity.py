@@ -1,7 +1,7 @@
 """k_h, the humidity correction of a chamber calibrated in air near 50 % relative humidity.
 
 Both protocols take k_h = 1 when the measurement is made between 20 % and 80 % RH with a chamber
-calibrated near 50 % RH (REFERENCE.md, from memory). Outside that band no correction is
+calibrated near 50 % RH (docs/physics.md, from memory). Outside that band no correction is
 tabulated here: the value stays 1 and :func:`humidity_in_band` lets the caller flag it.
 """
 

@@ -1,6 +1,6 @@
 """Plausible input ranges and the checks that refuse anything outside them.
 
-The ranges are common practice (see REFERENCE.md, "Plausible input ranges"): water or air
+The ranges are common practice (see docs/physics.md, "Plausible input ranges"): water or air
 temperature 10–40 °C, pressure 60–110 kPa (high-altitude clinics sit near 70–80 kPa), bias
 magnitude 10–1000 V. The others are wide plausibility bounds that catch unit mistakes (an N_D,w
 typed in Gy/C into a Gy/nC field, a negative coefficient) without judging a physicist's choice.
@@ -107,3 +107,7 @@ U_PRESSURE_KPA = Range(0.0, 5.0, "kPa")
 LEAKAGE_NC = Range(-1e6, 1e6, "nC")
 #: Charge readings, either sign; an exact zero is refused elsewhere because it carries no sign.
 CHARGE_NC = Range(-1e9, 1e9, "nC")
+#: The coverage factor a calibration certificate states for its expanded uncertainty.
+CERTIFICATE_K = Range(1.0, 4.0)
+#: Coverage probability of an expanded uncertainty.
+COVERAGE_PROBABILITY = Range(0.5, 0.999)

@@ -2,7 +2,7 @@
 
 Pure functions turn reading-set statistics, factors and the environment into :class:`Flag`s. Every
 limit is a field of :class:`Thresholds`, whose defaults are documented beside each field with
-where they come from (REFERENCE.md). A flag never stops the calculation: a physicist may
+where they come from (docs/physics.md). A flag never stops the calculation: a physicist may
 knowingly accept what it reports.
 """
 
@@ -25,7 +25,12 @@ SET_NAMES = {
     "routine": "routine",
     "opposite": "opposite-polarity",
     "reduced": "reduced-bias",
+    "return": "return-check",
 }
+
+
+#: What to do with a voltage ratio off the TRS-398 (2000) table.
+RECOMBINATION_OFF_TABLE = ("refuse", "boag")
 
 
 def _finite_number(value: object) -> bool:
@@ -58,9 +63,9 @@ class Thresholds:
     #: Largest usual k_s: above, the chamber is unsuitable for the beam (from memory).
     k_s_max: float = 1.05
     #: Smallest k_s (TG-51: P_ion) accepted without a flag. Below 1 it is physically impossible
-    #: (a collection efficiency above 1). The tolerance covers the TRS-398 table's rounding near
-    #: saturation: its coefficients have 3 decimals, so a row gives 1 at M1/M2 = 1 only to about
-    #: ±0.001 (from memory); 0.999 keeps M1/M2 = 1 unflagged whatever the row.
+    #: (a collection efficiency above 1). The tolerance covers the TRS-398 (2000) table's rounding
+    #: near saturation: its coefficients have 3 decimals, so a row gives 1 at M1/M2 = 1 only to
+    #: about ±0.001 (from memory); 0.999 keeps M1/M2 = 1 unflagged whatever the row.
     k_s_min: float = 0.999
     #: Smallest charge ratio M1/M2 (routine over reduced-bias mean) accepted without a flag.
     #: Below 1 the reduced-bias reading is the larger one, which complete or incomplete
@@ -77,6 +82,21 @@ class Thresholds:
     #: Sign of the charge this electrometer shows for a positive bias (+1 or −1); None: the
     #: convention is not known and only the consistency between sets is checked.
     charge_sign_for_positive_bias: int | None = None
+    #: Oldest carried k_pol or k_s, in days, accepted without a flag: a full calibration a
+    #: year old (common practice; the AAPM TG-142 annual calibration, from memory).
+    carried_max_age_days: float = 365.0
+    #: A reading within this % of its set's median is never an outlier, however small the MAD:
+    #: four readings 0.03 % apart are a good set, not one with an outlier (common practice).
+    outlier_floor_pct: float = 0.05
+    #: The smallest bias step of the electrometer, V; None: biases known to 0.001 in n. Sets how
+    #: closely n = V1/V2 must equal a TRS-398 (2000) table row for that row to be used.
+    bias_resolution_V: float | None = None
+    #: A voltage ratio off the TRS-398 (2000) table: "refuse" (default) or "boag" (k_s by
+    #: Boag's theory for pulsed beams, flagged with the method).
+    recombination_off_table: str = "refuse"
+    #: |return-check mean / routine mean − 1| in % above which the beam or chamber is taken to
+    #: have moved between the first and last sets (common practice).
+    return_check_pct: float = 0.2
 
     def __post_init__(self) -> None:
         for name in (
@@ -89,6 +109,9 @@ class Thresholds:
             "leakage_pct",
             "temperature_change_C",
             "pressure_change_kPa",
+            "carried_max_age_days",
+            "outlier_floor_pct",
+            "return_check_pct",
         ):
             value = getattr(self, name)
             # NaN compares false with everything: a NaN limit would silently never flag.
@@ -100,6 +123,15 @@ class Thresholds:
             value = getattr(self, name)
             if not _finite_number(value) or not 0.9 <= value <= 1.0:
                 raise InputError(f"thresholds.{name}", value, "from 0.9 to 1")
+        resolution = self.bias_resolution_V
+        if resolution is not None and (not _finite_number(resolution) or not 0 < resolution <= 10):
+            raise InputError("thresholds.bias_resolution_V", resolution, "above 0 to 10 V")
+        if self.recombination_off_table not in RECOMBINATION_OFF_TABLE:
+            raise InputError(
+                "thresholds.recombination_off_table",
+                self.recombination_off_table,
+                " or ".join(RECOMBINATION_OFF_TABLE),
+            )
         if isinstance(self.minimum_readings, bool) or self.minimum_readings not in range(1, 101):
             raise InputError("thresholds.minimum_readings", self.minimum_readings, "1 to 100")
         sign = self.charge_sign_for_positive_bias
@@ -207,8 +239,10 @@ def _trend_flags(label: str, key: str, stats: SetStatistics, limits: Thresholds)
             Flag(
                 f"{key}_outlier",
                 f"{label.capitalize()} reading(s) {numbers} stand apart from the rest (modified "
-                f"z-score above {limits.outlier_modified_z:g}). Look for a spike or an "
-                "interrupted beam; exclude a reading only with a recorded reason.",
+                f"z-score above {limits.outlier_modified_z:g}, and more than "
+                f"{limits.outlier_floor_pct:g} % from the median). Look for a spike or an "
+                "interrupted beam; if you find a cause, redo the set and record the reason in "
+                "the session notes. Every reading stays in the record and in the mean.",
             )
         )
     return flags

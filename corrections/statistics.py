@@ -6,6 +6,9 @@ offset from the rest (a sign of a chamber still settling), and outliers by the m
 M_i = 0.6745 (x_i − median) / MAD with the threshold 3.5 (Iglewicz and Hoaglin, "How to Detect
 and Handle Outliers", ASQC 1993). When the MAD is zero (quantised readings, most of them
 identical) the mean absolute deviation scaled by 1.253314 stands in for it (common practice).
+A reading within ``OUTLIER_FLOOR_PCT`` (0.05 %) of the median is never an outlier: with four
+readings 0.03 % apart the MAD is tiny and the z-score alone would call a perfectly good reading
+an outlier (common practice; a setting).
 
 Statistics that a set is too small to define (SD with one reading, drift with fewer than three)
 are None: said, not guessed. The array functions work along the last axis for many sets at once.
@@ -25,6 +28,8 @@ MODIFIED_Z_SCALE = 0.6745
 MODIFIED_Z_THRESHOLD = 3.5
 #: Mean absolute deviation scale used when the MAD is zero (common practice).
 MEAN_ABSOLUTE_DEVIATION_SCALE = 1.253314
+#: A reading within this % of the set's median is never an outlier (common practice).
+OUTLIER_FLOOR_PCT = 0.05
 #: Fewest readings for which drift, settling and outliers are judged.
 MINIMUM_FOR_TRENDS = 3
 
@@ -126,10 +131,13 @@ def set_statistics(
     readings_nC: Sequence[float] | np.ndarray,
     field: str = "readings_nC",
     outlier_threshold: float = MODIFIED_Z_THRESHOLD,
+    outlier_floor_pct: float = OUTLIER_FLOOR_PCT,
 ) -> SetStatistics:
     """Return the statistics of one reading set (charges in nC, signed as read).
 
-    Readings whose modified z-score exceeds ``outlier_threshold`` in magnitude are outliers.
+    Readings whose modified z-score exceeds ``outlier_threshold`` in magnitude and that lie
+    more than ``outlier_floor_pct`` (%) from the median are outliers.
+    The first reading's offset is None when the others average zero (it would be infinite).
     Raises InputError for an empty set or a value that is not a finite number.
     """
     readings = readings_array(field, readings_nC)
@@ -146,7 +154,13 @@ def set_statistics(
         rel_range = float(relative_range_pct(readings))
     if count >= MINIMUM_FOR_TRENDS:
         drift = float(drift_pct_per_reading(readings))
-        offset = float(first_reading_offset_pct(readings))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            offset_pct = float(first_reading_offset_pct(readings))
+        # None when the other readings average zero: no offset relative to them exists
+        offset = offset_pct if np.isfinite(offset_pct) else None
         z = modified_z_scores(readings)
-        outliers = tuple(int(i) for i in np.flatnonzero(np.abs(z) > outlier_threshold))
+        median = np.median(readings)
+        scale = abs(median) if median != 0 else abs(mean)
+        apart = 100.0 * np.abs(readings - median) / scale > outlier_floor_pct
+        outliers = tuple(int(i) for i in np.flatnonzero((np.abs(z) > outlier_threshold) & apart))
     return SetStatistics(count, mean, sd, rel_sd, se, rel_range, drift, offset, outliers)

@@ -1,7 +1,10 @@
 """Unit conversions of inputs, done once and recorded so that they can be shown.
 
-Pressure: 1 hPa = 0.1 kPa; 1 mmHg = 0.133322 kPa (133.322 Pa, the conventional millimetre of
-mercury). Calibration coefficient N_D,w: 1 Gy/C = 1e-9 Gy/nC; 1 cGy/nC = 0.01 Gy/nC.
+Pressure: 1 hPa = 0.1 kPa; 1 mmHg = 0.133322387415 kPa, the conventional millimetre of mercury,
+defined as the pressure of 1 mm of mercury of density 13 595.1 kg/m³ under standard gravity
+9.806 65 m/s² (so 760 mmHg is the standard atmosphere 101.325 kPa to within 1.5e-7; the torr,
+101325/760 Pa, differs from the mmHg by that much). Calibration coefficient N_D,w:
+1 Gy/C = 1e-9 Gy/nC; 1 cGy/nC = 0.01 Gy/nC.
 """
 
 from __future__ import annotations
@@ -13,7 +16,7 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.limits import N_DW_GY_PER_NC, PRESSURE_KPA, Number
 
 KPA_PER_HPA = 0.1
-KPA_PER_MMHG = 0.133322
+KPA_PER_MMHG = 13595.1 * 9.80665 * 1e-3 * 1e-3  # kg/m³ · m/s² · m → Pa → kPa
 GY_PER_NC_PER_GY_PER_C = 1e-9
 GY_PER_NC_PER_CGY_PER_NC = 0.01
 

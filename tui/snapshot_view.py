@@ -183,17 +183,21 @@ def factor_value(results: Mapping[str, Any], key: str) -> float | None:
 
 
 def factor_rows(results: Mapping[str, Any] | None) -> list[tuple[str, str, str]]:
-    """Return (symbol for the convention, value, state) for each factor the results name."""
+    """Return (symbol for the convention, value, state) for each factor the daemon sent a state
+    for, in the model's order: no results, no rows (the console works out no state itself). A
+    carried factor's state says where it came from and its date, as the daemon wrote it."""
     if not results:
-        return [(key, text.PENDING, "pending") for key in FACTOR_KEYS[:5]]
+        return []
     symbols = results.get("symbols") or {}
     states = results.get("factor_states") or {}
     rows = []
     for key in FACTOR_KEYS:
-        if key not in states and factor_value(results, key) is None and key not in symbols:
+        if key not in states:
             continue
         value = factor_value(results, key)
-        state = str(states.get(key, "pending" if value is None else "entered"))
+        state = str(states[key])
+        if state == "carried":
+            state = str((results.get("factor_sources") or {}).get(key) or state)
         rows.append(
             (str(symbols.get(key, key)), text.number(value, FACTOR_DIGITS.get(key, 4)), state)
         )
@@ -228,6 +232,12 @@ def deviation_text(snapshot: Snapshot) -> str:
     return shown + limit
 
 
+def _coverage_factor(results: dict[str, Any]) -> str:
+    """Return k as shown: Student's t at ν_eff; results recorded before ν_eff used k = 2."""
+    k = results.get("coverage_factor")
+    return "2" if k is None else f"{k:.2f}"
+
+
 def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     """Return (label, value) rows: raw and corrected charge, dose, per MU, deviation, u_c."""
     results = snapshot.get("results") or {}
@@ -237,7 +247,7 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     uncertainty = (
         text.PENDING
         if combined is None
-        else f"{text.percent(combined)} (k=2: {text.percent(expanded)})"
+        else f"{text.percent(combined)} (k={_coverage_factor(results)}: {text.percent(expanded)})"
     )
     return [
         (f"Raw charge {symbols.get('M_raw', 'M_raw')}", text.charge_nC(results.get("M_raw_nC"))),

@@ -22,9 +22,6 @@ if TYPE_CHECKING:
 
 HELP = "correct readings copied from a logbook: factors, dose and uncertainty from a worksheet"
 
-#: Monte Carlo cross-check of the analytic uncertainty (GUM Supplement 1): draws and seed.
-MONTE_CARLO_TRIALS = 200_000
-MONTE_CARLO_SEED = 398
 
 SET_TITLES = {"routine": "routine", "opposite": "opposite polarity", "reduced": "reduced bias"}
 
@@ -125,7 +122,15 @@ def _sets(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
                 outliers,
             ]
         )
-    return ["", "Reading sets (charges as read)", *_table(rows)]
+    lines = ["", "Reading sets (charges as read)", *_table(rows)]
+    check = evaluation.return_check
+    if check is not None:
+        lines.append(
+            f"  return check: {check.stats.count} readings, mean {check.stats.mean_nC:.4f} nC, "
+            f"ratio to routine {check.ratio:.5f} ({check.deviation_pct:+.3f} %)"
+            + ("" if check.air_scale == 1.0 else ", its mean referred to the routine set's air")
+        )
+    return lines
 
 
 def _factors(evaluation: Evaluation) -> list[str]:
@@ -171,9 +176,17 @@ def _results(evaluation: Evaluation) -> list[str]:
     return ["", "Results", *_table(rows)]
 
 
-def _uncertainty(evaluation: Evaluation) -> list[str]:
-    from chargebook.corrections.uncertainty import monte_carlo_u_pct
+def _coverage_text(evaluation: Evaluation) -> str:
+    from chargebook.corrections.student_t import dof_text
 
+    return (
+        f"ν_eff = {dof_text(evaluation.effective_dof)} (Welch–Satterthwaite), "
+        f"k = {evaluation.coverage_factor:.2f} (Student's t, coverage probability "
+        f"{100 * evaluation.coverage_probability:g} %)"
+    )
+
+
+def _uncertainty(evaluation: Evaluation) -> list[str]:
     lines = ["", "Uncertainty budget (GUM; relative standard uncertainty contributions)"]
     if not evaluation.budget:
         return [*lines, "  no routine readings yet"]
@@ -199,11 +212,13 @@ def _uncertainty(evaluation: Evaluation) -> list[str]:
             lines.append("  combined standard uncertainty of the dose: cannot be evaluated yet")
         return lines
     lines.append(f"  combined standard uncertainty of the dose  u_c = {u_c:.3f} %")
-    lines.append(f"  expanded uncertainty (k = 2)              U   = {U:.3f} %")
-    check = monte_carlo_u_pct(evaluation.uncertainty_model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED)
+    lines.append(f"  expanded uncertainty U = k u_c = {U:.3f} %")
+    lines.append(f"  {_coverage_text(evaluation)}")
+    check = evaluation.monte_carlo()
+    u_mc = "" if check.u_combined_pct is None else f"u_c = {check.u_combined_pct:.3f} %; "
     lines.append(
-        f"  Monte Carlo check (GUM Supplement 1, {MONTE_CARLO_TRIALS} draws, seed "
-        f"{MONTE_CARLO_SEED}): u_c = {check:.3f} %"
+        f"  Monte Carlo check (JCGM 101:2008, {check.trials} draws, seed {check.seed}): "
+        f"{u_mc}{check.note}"
     )
     return lines
 
@@ -239,23 +254,15 @@ def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
 def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
     """Return the evaluation as one JSON object, with the worksheet's session description."""
     from chargebook.acquire.cli import CAUTION
-    from chargebook.corrections.uncertainty import monte_carlo_u_pct
 
     document: dict[str, Any] = {
         "worksheet": str(worksheet.path),
         "session": dict(worksheet.session),
     }
     document.update(evaluation.to_dict())
-    monte_carlo = None
-    if evaluation.u_combined_pct is not None:
-        monte_carlo = {
-            "trials": MONTE_CARLO_TRIALS,
-            "seed": MONTE_CARLO_SEED,
-            "u_combined_pct": monte_carlo_u_pct(
-                evaluation.uncertainty_model, MONTE_CARLO_TRIALS, MONTE_CARLO_SEED
-            ),
-        }
-    document["monte_carlo"] = monte_carlo
+    document["monte_carlo"] = (
+        None if evaluation.u_combined_pct is None else evaluation.monte_carlo().to_dict()
+    )
     document["caution"] = CAUTION
     return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
 

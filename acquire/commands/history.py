@@ -27,7 +27,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--all",
         action="store_true",
-        help="include open, interrupted and aborted sessions and replays",
+        help="include open, interrupted and aborted sessions, replays and sessions rejected "
+        "by a review (marked rejected)",
     )
     parser.add_argument(
         "--format",
@@ -55,7 +56,7 @@ def _history(store, args: argparse.Namespace) -> int:
 
     from chargebook.acquire.cli import CAUTION
     from chargebook.acquire.export import chargebook_version, generated_at
-    from chargebook.acquire.history import history_table, load_history
+    from chargebook.acquire.history import history_table, load_history, plot_labels
     from chargebook.acquire.report_cli import write_output
     from chargebook.acquire.report_data import plain
     from chargebook.acquire.report_html import history_html
@@ -77,12 +78,10 @@ def _history(store, args: argparse.Namespace) -> int:
         return write_output(text, output)
     parts = [table_text(table)]
     if history.points and history.tolerance_pct is not None and not args.no_plot:
-        parts.append(
-            deviation_plot(
-                [p.deviation_pct for p in history.points],
-                history.tolerance_pct,
-                [str(p.session_id) for p in history.points],
-            )
+        labels, legend = plot_labels(history)
+        plot = deviation_plot(
+            [p.deviation_pct for p in history.points], history.tolerance_pct, labels
         )
+        parts.append(plot if legend is None else f"{plot}\n{legend}")
     parts.append(CAUTION)
     return write_output("\n\n".join(parts) + "\n", output)

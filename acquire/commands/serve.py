@@ -59,6 +59,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="control socket path (default: $XDG_RUNTIME_DIR/chargebook/daemon.sock, "
         "else <tmp>/chargebook-<uid>/daemon.sock); its directory is made private (0700)",
     )
+    parser.add_argument(
+        "--station-name",
+        metavar="NAME",
+        help="the station's name, recorded in the station file and carried in every export "
+        "(default: keep the recorded one; a new file is named after the host)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:

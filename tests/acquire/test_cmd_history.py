@@ -34,7 +34,8 @@ def test_table_and_plot(station: Path, capsys) -> None:
     out = capsys.readouterr().out
     rows = [line.split() for line in out.splitlines() if line[:1].isdigit()]
     assert [row[0] for row in rows] == ["1", "2", "3"]
-    assert [row[8] for row in rows] == ["+0.00", "+0.40", "-1.50"]
+    assert [row[6] for row in rows] == ["full", "full", "full"]  # kind: full calibration
+    assert [row[10] for row in rows] == ["+0.00", "+0.40", "-1.50"]
     assert [row[-2] for row in rows] == ["yes", "yes", "NO"]  # ±1 %, the example's "annual"
     assert [row[-1] for row in rows] == ["none", "none", "outside_tolerance"]  # as `show` flags
     plot = [line for line in out.splitlines() if " % |" in line]

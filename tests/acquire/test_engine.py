@@ -2,7 +2,7 @@
 
 Samples are fed as an integrating electrometer would send them while a beam is delivered (the
 charge rises, then holds flat): common practice for end-of-beam capture. Factor check values are
-the published formulas of REFERENCE.md written out here, not the library's code.
+the published formulas of docs/physics.md written out here, not the library's code.
 """
 
 from __future__ import annotations
@@ -108,7 +108,7 @@ def test_a_plan_runs_from_start_to_finish_with_settling_readings_kept_but_not_us
     assert [r.settling for r in readings].count(True) == 3
     results, provisional, error = engine.results()
     assert error is None and not provisional
-    # TRS-398: k_pol = (|M+| + |M-|) / (2 |M|), M the routine-polarity reading (REFERENCE.md).
+    # TRS-398: k_pol = (|M+| + |M-|) / (2 |M|), M the routine-polarity reading (docs/physics.md).
     m_plus, m_minus = sum(routine[1:]) / 3, sum(opposite[1:]) / 3
     assert results["k_pol"] == pytest.approx((abs(m_plus) + abs(m_minus)) / (2 * abs(m_plus)))
     assert results["M_raw_nC"] == pytest.approx(m_plus)
@@ -483,3 +483,44 @@ def test_a_set_with_half_the_routine_sets_charge_per_mu_is_flagged():
     started(engine)
     into_opposite_set(engine, clock, [-20.3, -20.0, -20.01, -20.0])
     assert "opposite_charge_per_MU" not in _set_flag_codes(engine, "opposite")
+
+
+def test_the_readings_list_flags_exactly_the_reading_the_results_refuse():
+    # A tie among the readings used for results (two of each sign) once showed no sign flag in
+    # the readings list while the results said a reading contradicted the bias: one rule now.
+    engine, clock = make_engine()
+    started(engine)
+    plan_steps = engine.plan.steps
+    assert plan_steps[0].readings == 3
+    take_set(engine, clock, [-20.5, 20.0, -20.0, 20.0])  # first is the settling reading
+    snapshot = engine.snapshot()
+    flagged = [
+        reading["charge_nC"]
+        for reading in snapshot["current_set"]["readings"]
+        if "sign_against_bias" in {f["code"] for f in reading["flags"]}
+    ]
+    assert flagged == [-20.5, -20.0]
+    results, _, error = engine.results()
+    assert results is None
+    assert "routine_nC[1]" in error and "contradicts the bias" in error  # the -20.0 reading
+
+
+def test_a_reading_names_the_raw_line_of_the_sample_it_was_taken_at():
+    # The daemon passes each sample's raw line (its row id); the reading keeps it, found by
+    # no lookup of the sample's time (two of these lines share one receive time).
+    engine, clock = make_engine(capabilities={Capability.PUSH_READINGS, Capability.STREAM})
+    session_id = started(engine)
+    engine.manual_done()
+    engine.arm()
+    t_s = clock.now + 1
+
+    def line(text: str) -> int:
+        return engine.store.add_traffic(session_id, t_s, "rx", text.encode() + b"\r\n")
+
+    stale, pushed, moving, stale_again = (line(f"line {n}") for n in range(4))
+    engine.on_sample(clock.now - 5.0, 3.0, line_id=stale)  # received before arming
+    engine.on_sample(t_s, 20.4, complete=True, line_id=pushed)
+    engine.on_sample(t_s, 12.0, line_id=moving)
+    engine.on_sample(clock.now - 5.0, 3.0, line_id=stale_again)  # stale: not the latest
+    engine.capture()
+    assert [r.traffic_id for r in engine.store.readings(session_id)] == [pushed, moving]

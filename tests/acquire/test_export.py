@@ -49,7 +49,7 @@ def hand_dose_per_MU_cGy() -> float:
     # IAEA TRS-398: k_pol = (|M+| + |M−|) / (2 |M|), M at the routine polarity.
     k_pol = (abs(M_plus) + abs(M_minus)) / (2 * abs(M_plus))
     # IAEA TRS-398 two-voltage method, pulsed beam, V1/V2 = 3: a0 = 1.198, a1 = −0.875,
-    # a2 = 0.677 (from memory, see REFERENCE.md).
+    # a2 = 0.677 (from memory, see docs/physics.md).
     ratio = M_plus / M_reduced
     k_s = 1.198 - 0.875 * ratio + 0.677 * ratio**2
     dose_Gy = M_plus * k_TP * k_pol * k_s * cal["k_elec"] * cal["N_Dw_Gy_per_nC"] * cal["k_Q"]

@@ -17,6 +17,7 @@ from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.export import to_html
 from chargebook.acquire.protocol import by_severity
 from chargebook.acquire.report_data import load_record
+from chargebook.acquire.review import record_review
 from chargebook.acquire.store import Store
 from recorded_session import SUPERSEDE_REASON, example_plan, record_example_session
 from test_export import hand_dose_per_MU_cGy
@@ -259,14 +260,8 @@ def test_a_recorded_review_fills_the_review_block_and_the_result(tmp_path: Path)
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
         session_id = record_example_session(store)
-        # The event a review records (branch signoff's `chargebook review`), written here
-        # through the Store API: a second, named person approves with a comment.
-        store.add_event(
-            session_id,
-            "B. Lind",
-            "session_reviewed",
-            {"status": "approved", "reviewer": "B. Lind", "comment": "k_s checked by hand"},
-        )
+        # A second, named person approves with a comment, as `chargebook review` records it.
+        record_review(store, session_id, "approve", "B. Lind", "k_s checked by hand")
     with Store.open(path, read_only=True) as store:
         record = load_record(store, session_id)
         reviewed_at = next(e for e in record.events if e.kind == "session_reviewed").recorded_at
@@ -296,3 +291,40 @@ def test_a_failed_output_says_fail_first_and_lists_flags_worst_first(tmp_path: P
     assert [f.severity for f in record.evaluation.flags] == ["info", "info", "warning"]
     assert [row[0] for row in shown] == ["! warning", "i info", "i info"]
     assert [row[1] for row in shown] == [f.message for f in by_severity(record.evaluation.flags)]
+
+
+def test_the_certificates_own_coverage_factor_is_shown_and_used(tmp_path: Path) -> None:
+    # Issue 12 item 8: a certificate at k = 2.4 (JCGM 100:2008 6.2.1: u = U/k).
+    from chargebook.acquire import report_sections
+
+    with Store.open(tmp_path / "station.sqlite") as store:
+        record_example_session(store, k_N_Dw=2.4)
+        record = load_record(store, 1)
+    labels = [row[0] for row in report_sections.calibration(record).rows]
+    assert "U(N_D,w), k = 2.4" in labels
+    u_N_Dw = record.evaluation.factors["N_Dw"].u_rel_pct
+    assert u_N_Dw == pytest.approx(record.metadata["u_N_Dw_pct_k2"] / 2.4)
+
+
+def test_the_report_states_nu_eff_k_and_the_monte_carlo_check(report) -> None:
+    # Issue 12 items 6 and 7: U = k u_c with k from Student's t at ν_eff (JCGM 100:2008 G.4),
+    # and the Monte Carlo interval beside it (JCGM 101:2008), the same numbers `correct` prints.
+    from chargebook.acquire import report_sections
+
+    parsed, store = report
+    record = load_record(store, 1)
+    evaluation = record.evaluation
+    assert (
+        parsed.rows[("Results in detail", "coverage_factor")][1]
+        == f"{evaluation.coverage_factor:.3f}"
+    )
+    # The example's budget is Type B dominant: ν_eff is large and k close to 1.96 (JCGM 100 G.2).
+    assert parsed.rows[("Results in detail", "effective_dof")][1] == "above 1000"
+    assert evaluation.coverage_factor == pytest.approx(1.96, abs=0.005)
+    note = report_sections.budget(record).note
+    assert evaluation.monte_carlo().note in note
+    # The result, first, states U with the same k and ν_eff.
+    assert parsed.rows[("Result", "U_expanded_pct")][1] == (
+        f"{evaluation.U_expanded_pct:.2f} % (k = {evaluation.coverage_factor:.2f}, "
+        "ν_eff = above 1000, coverage probability 95 %)"
+    )

@@ -21,7 +21,7 @@ from chargebook.corrections.errors import InputError
 from recorded_session import record_example_session
 
 SCALES = (1.0, 1.008, 0.975, 1.0)
-#: The example's tolerance is "annual": 1 % (AAPM TG-142, from memory; see REFERENCE.md).
+#: The example's tolerance is "annual": 1 % (AAPM TG-142, from memory; see docs/physics.md).
 TOLERANCE_PCT = 1.0
 
 

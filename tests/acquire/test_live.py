@@ -70,3 +70,16 @@ def test_a_set_that_averages_zero_says_why_it_has_no_statistics() -> None:
 def test_a_reading_of_a_picocoulomb_fraction_still_gets_statistics() -> None:
     stats, _, _ = live.set_summary("routine", 300.0, _rows(1e-12, 1.1e-12), Thresholds())
     assert stats is not None and stats["count"] == 2
+
+
+def test_the_outlier_floor_is_the_sessions_setting() -> None:
+    # Issue 12 item 14: four readings 0.03 % apart hold no outlier under the default 0.05 % floor
+    # (common practice); a session that sets a lower floor sees the z-score's verdict.
+    close = _rows(20.000, 20.000, 20.001, 20.006)
+    _, flags, per_reading = live.set_summary("routine", 300.0, close, Thresholds())
+    assert "routine_outlier" not in {flag["code"] for flag in flags}
+    _, flags, per_reading = live.set_summary(
+        "routine", 300.0, close, Thresholds(outlier_floor_pct=0.01)
+    )
+    assert "routine_outlier" in {flag["code"] for flag in flags}
+    assert [f["code"] for f in per_reading[4]] == ["outlier"]

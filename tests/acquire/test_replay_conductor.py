@@ -19,6 +19,7 @@ from chargebook.acquire.replay_recording import RecordedInput, RecordedLine
 from chargebook.acquire.replay_traffic import Divergence, TrafficFollower, line_bytes
 from chargebook.acquire.store import Store
 from chargebook.drivers_generic import ProfileElectrometer, load_profile
+from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.transport import ScriptedTransport
 
 LUMEN_Q = load_profile("lumen-q")
@@ -186,3 +187,19 @@ def test_an_input_the_engine_cannot_take_stops_an_exact_replay_naming_it():
 
 def test_the_first_arming_reads_the_original_time_before_any_line():
     assert math.isinf(TrafficFollower(recorded((1.0, "Q?", None)), LUMEN_Q).played_t_s)
+
+
+def test_an_input_reads_the_time_of_the_lines_before_it_not_of_lines_read_since():
+    # A pushing electrometer's lines arrive between a command and its answer; the replay reads
+    # them with the answer, past an input the original took before they arrived. Reading the
+    # time of the latest line seen there, an arming took a later time than the original's.
+    follower = TrafficFollower(recorded((1.0, "Q?", "Q +1.0000 nC A"), (2.0, "Q?", None)), LUMEN_Q)
+    for line in follower.lines[:3]:
+        follower(TrafficDirection(line.direction), line.t_s, line.raw)
+    assert follower.played_t_s == follower.lines[2].t_s
+    follower.input_position = 1  # the input was recorded after the first line only
+    assert follower.played_t_s == follower.lines[0].t_s
+    follower.input_position = 0
+    assert math.isinf(follower.played_t_s)
+    follower.input_position = None
+    assert follower.played_t_s == follower.lines[2].t_s

@@ -47,10 +47,12 @@ def started(**kwargs) -> tuple[Engine, Clock, int]:
 
 
 def sample(engine: Engine, t_s: float, charge_nC: float, line: bytes | None = None) -> None:
-    """Record the raw line the sample came from (as the daemon does), then feed the sample."""
+    """Record the raw line the sample came from, then feed the sample with the line's row id
+    (as the daemon does)."""
+    line_id = None
     if line is not None:
-        engine.store.add_traffic(engine.session_id, t_s, "rx", line)
-    engine.on_sample(t_s, charge_nC)
+        line_id = engine.store.add_traffic(engine.session_id, t_s, "rx", line)
+    engine.on_sample(t_s, charge_nC, line_id=line_id)
 
 
 def into_routine(engine: Engine, clock: Clock) -> None:

@@ -84,7 +84,7 @@ def test_a_stored_conversion_that_disagrees_is_refused() -> None:
 @pytest.mark.parametrize(
     ("name", "percent"),
     # AAPM TG-142 (Klein et al. 2009) output constancy: daily 3 %, monthly 2 %;
-    # annual 1 % (from memory, see REFERENCE.md).
+    # annual 1 % (from memory, see docs/physics.md).
     [("daily", 3.0), ("monthly", 2.0), ("annual", 1.0), (1.5, 1.5)],
 )
 def test_tolerance_by_name_or_number(name, percent) -> None:
@@ -162,6 +162,27 @@ def test_bad_entries_name_the_field_value_and_range(changes, field, words) -> No
 def test_not_a_table_is_refused() -> None:
     with pytest.raises(InputError, match=r"metadata .* is not a table"):
         validate_metadata(["HCC-LA1", "6 MV"])
+
+
+def test_user_components_and_the_certificate_k_reach_the_budget() -> None:
+    # Issue 12 item 8: the codes of practice list these user-side components (from memory); a
+    # certificate may state a coverage factor other than 2 (JCGM 100:2008 6.2.1: u = U/k).
+    data = dict(HARBOURSIDE)
+    data.update(
+        u_N_Dw_pct_k2=1.2,
+        k_N_Dw=2.4,
+        coverage_probability=0.99,
+        u_reference_conditions_pct=0.3,
+        u_beam_monitor_pct=0.2,
+    )
+    meta = validate_metadata(data)
+    u = meta.uncertainties()
+    assert (u.k_N_Dw, u.coverage_probability) == (2.4, 0.99)
+    assert (u.u_reference_conditions_pct, u.u_beam_monitor_pct) == (0.3, 0.2)
+    assert u.u_long_term_stability_pct is None
+    assert validate_metadata(meta.to_dict()) == meta
+    with pytest.raises(InputError, match="k_N_Dw"):
+        validate_metadata({**data, "k_N_Dw": 0.5})
 
 
 def test_leakage_subtraction_is_off_unless_chosen_and_must_be_yes_or_no() -> None:

@@ -548,3 +548,20 @@ def test_a_concurrent_writer_makes_a_write_wait_not_fail(tmp_path: Path) -> None
     writer.join()
     assert store.traffic_count(session_id) == 1 and store.traffic_count(None) == 1
     store.close()
+
+
+def test_a_kept_line_is_told_its_row_id_when_written_and_none_when_its_commit_fails(
+    store: Store,
+) -> None:
+    session_id, _ = _session_with_set(store)
+    told: dict[str, list[int | None]] = {"first": [], "second": []}
+    store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"), told["first"].append)
+    store.keep_traffic((session_id, 2.0, store.stamp(), "tx", b"Q?\n"))  # nobody asks its id
+    store.keep_traffic((session_id, 2.0, store.stamp(), "rx", b"20.2\n"), told["second"].append)
+    with pytest.raises(InputError), store.atomic():  # a transaction that fails after the write
+        store.add_event(session_id, "daemon", "note", {"bad": float("nan")})
+    assert told == {"first": [told["first"][0], None], "second": [told["second"][0], None]}
+    store.commit_traffic()
+    rows = {row.id: row.line for row in store.traffic(session_id)}
+    assert rows[told["first"][-1]] == b"20.1\n"
+    assert rows[told["second"][-1]] == b"20.2\n"

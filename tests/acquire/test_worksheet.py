@@ -2,12 +2,18 @@
 
 from __future__ import annotations
 
+import datetime
 import json
 from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.worksheet import load_worksheet, read_worksheet, worksheet_key
+from chargebook.acquire.worksheet import (
+    load_worksheet,
+    parse_worksheet,
+    read_worksheet,
+    worksheet_key,
+)
 from chargebook.corrections.errors import InputError
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
@@ -50,7 +56,7 @@ def test_conversions_are_recorded() -> None:
 def test_json_worksheet_with_mmHg() -> None:
     inputs = load_worksheet(EXAMPLES / "hcc-co60.json")
     assert inputs.beam == "continuous"
-    assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322)  # 1 mmHg = 0.133322 kPa
+    assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322387)  # conventional mmHg
 
 
 def test_cGy_per_nC_is_converted(tmp_path: Path) -> None:
@@ -173,6 +179,41 @@ def test_evaluate_fields_lead_back_to_worksheet_keys(field: str, key: str | None
     assert worksheet_key(field) == key
 
 
+def test_issue_12_keys_reach_the_inputs(tmp_path: Path) -> None:
+    text = MINIMAL.replace("[readings]\n", "[readings]\nreturn_nC = [14.72, 14.70, 14.71]\n")
+    text += (
+        "[calibration]\nu_N_Dw_pct_k2 = 1.2\nk_N_Dw = 2.4\n"
+        "[uncertainty]\ncoverage_probability = 0.99\nu_reference_conditions_pct = 0.3\n"
+        "u_electrometer_resolution_pct = 0.02\n"
+        '[thresholds]\nrecombination_off_table = "boag"\nbias_resolution_V = 1\n'
+        "outlier_floor_pct = 0.1\nreturn_check_pct = 0.3\n"
+    )
+    inputs = load_worksheet(write(tmp_path, text))
+    assert inputs.return_nC == (14.72, 14.70, 14.71)
+    u = inputs.uncertainties
+    assert (u.u_N_Dw_pct_k2, u.k_N_Dw, u.coverage_probability) == (1.2, 2.4, 0.99)
+    assert (u.u_reference_conditions_pct, u.u_electrometer_resolution_pct) == (0.3, 0.02)
+    t = inputs.thresholds
+    assert (t.recombination_off_table, t.bias_resolution_V) == ("boag", 1.0)
+    assert (t.outlier_floor_pct, t.return_check_pct) == (0.1, 0.3)
+
+
+def test_the_return_check_may_have_its_own_environment_table(tmp_path: Path) -> None:
+    text = MINIMAL.replace("[readings]\n", "[readings]\nreturn_nC = [14.72, 14.70, 14.71]\n")
+    text += "[environment.return]\ntemperature_C = 22.3\npressure_kPa = 100.5\n"
+    air = load_worksheet(write(tmp_path, text)).set_environments["return"]
+    assert (air.temperature_C, air.pressure_kPa) == (22.3, 100.5)
+    assert air.source == "worksheet [environment.return]"
+
+
+def test_an_unknown_off_table_choice_is_named(tmp_path: Path) -> None:
+    text = MINIMAL + '[thresholds]\nrecombination_off_table = "nearest"\n'
+    with pytest.raises(InputError) as caught:
+        load_worksheet(write(tmp_path, text))
+    assert caught.value.field == "thresholds.recombination_off_table"
+    assert "refuse or boag" in str(caught.value)
+
+
 PER_SET = """
 convention = "trs398"
 beam = "pulsed"
@@ -222,3 +263,21 @@ def test_an_out_of_range_set_environment_points_at_the_worksheet_key() -> None:
     assert worksheet_key("set_environments.reduced.temperature_C") == (
         "environment.reduced.temperature_C"
     )
+
+
+def test_carried_factors_without_a_session_date_are_checked_against_today() -> None:
+    document = {
+        "convention": "trs398",
+        "beam": "pulsed",
+        "readings": {"routine_nC": [14.7, 14.71]},
+        "carried": {"k_pol": {"value": 1.001, "source": "report", "date": "2026-05-01"}},
+    }
+    later = parse_worksheet(document, today=datetime.date(2026, 6, 1)).inputs
+    assert later.measured_on == "2026-06-01"
+    assert later.carried["k_pol"].value == 1.001
+    assert later.not_measured == ("k_s",)  # no reduced-bias readings and no carried k_s
+    with pytest.raises(InputError, match=r"carried\.k_pol\.date = '2026-05-01' is in the future"):
+        parse_worksheet(document, today=datetime.date(2026, 4, 1))
+    assert worksheet_key("carried.k_pol.date") == "carried.k_pol.date"
+    with pytest.raises(InputError, match=r"carried\.k_elec .*is not a known key"):
+        parse_worksheet({**document, "carried": {"k_elec": {}}})

@@ -97,8 +97,8 @@ def test_bad_input_names_the_field(temperature: object, pressure: object, field:
     ("pressure", "unit"), [(101.325, "kPa"), (1013.25, "hPa"), (760.0, "mmHg")]
 )
 def test_pressure_units(pressure: float, unit: str) -> None:
-    # One standard atmosphere, 101.325 kPa = 1013.25 hPa = 760 mmHg (definition; the 6-digit
-    # mmHg factor 0.133322 leaves 3e-6 relative).
+    # One standard atmosphere, 101.325 kPa = 1013.25 hPa = 760 mmHg (definition; the
+    # conventional mmHg, 133.322387 Pa, leaves 1.5e-7 relative).
     assert k_TP(20.0, pressure, pressure_unit=unit) == pytest.approx(1.0, abs=5e-6)
 
 

@@ -16,7 +16,7 @@ def test_reference_conditions_are_pinned() -> None:
 
 
 def test_the_two_reference_pressures_shift_k_TP_by_about_5e_5() -> None:
-    # REFERENCE.md: 101.325 vs 101.33 kPa shifts the factor by about 5e-5 (101.33/101.325 − 1).
+    # docs/physics.md: 101.325 vs 101.33 kPa shifts the factor by about 5e-5 (101.33/101.325 − 1).
     same_T = {"reference_temperature_C": 22.0}
     trs = k_TP(24.0, 99.0, "trs398", **same_T)
     tg = k_TP(24.0, 99.0, "tg51", **same_T)
@@ -24,7 +24,7 @@ def test_the_two_reference_pressures_shift_k_TP_by_about_5e_5() -> None:
 
 
 def test_symbols_follow_the_protocol() -> None:
-    # Symbols as printed in TRS-398 and in TG-51 (REFERENCE.md "Protocols").
+    # Symbols as printed in TRS-398 and in TG-51 (docs/physics.md "Protocols").
     assert [constants("trs398").symbols[k] for k in ("k_TP", "k_pol", "k_s", "k_elec")] == [
         "k_TP",
         "k_pol",

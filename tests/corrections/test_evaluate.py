@@ -63,7 +63,7 @@ def test_complete_session_multiplies_the_factors_out(session: Session) -> None:
     assert result.dose_Gy == pytest.approx(routine * product * 0.0538 * 0.992, rel=1e-12)
     assert result.dose_per_MU_cGy == pytest.approx(result.dose_Gy, rel=1e-12)  # 100 MU
     assert result.deviation_pct == pytest.approx(100 * (result.dose_per_MU_cGy / 0.8 - 1), rel=1e-9)
-    assert result.U_expanded_pct == pytest.approx(2 * result.u_combined_pct)
+    assert result.U_expanded_pct == pytest.approx(result.coverage_factor * result.u_combined_pct)
 
 
 def test_to_dict_has_the_documented_keys_and_is_json(session: Session) -> None:
@@ -170,7 +170,7 @@ def test_k_TP_from_thermometer_and_barometer_is_measured(session: Session) -> No
 
 
 def test_k_pol_source_prints_the_chosen_protocols_formula(session: Session) -> None:
-    # TRS-398 writes (|M+| + |M−|)/(2|M|); TG-51 writes |(M+ − M−)/(2M)| (REFERENCE.md).
+    # TRS-398 writes (|M+| + |M−|)/(2|M|); TG-51 writes |(M+ − M−)/(2M)| (docs/physics.md).
     assert evaluate(session()).factors["k_pol"].source == "(|M+| + |M−|) / (2|M|)"
     assert evaluate(session(convention="tg51")).factors["k_pol"].source == "|(M+ − M−) / (2M)|"
 
@@ -240,7 +240,7 @@ def test_k_elec_entered_without_its_uncertainty_is_not_taken_as_exact(session: S
 
 def test_k_elec_not_entered_is_exact_within_the_joint_calibration(session: Session) -> None:
     # Chamber and electrometer calibrated together: k_elec = 1 with no uncertainty of its own
-    # (N_D,w's certificate covers the pair; REFERENCE.md).
+    # (N_D,w's certificate covers the pair; docs/physics.md).
     result = evaluate(session(k_elec=None)).to_dict()
     assert budget_line(result, "k_elec")["u_rel_pct"] == 0.0
     assert "uncertainty_incomplete" not in flag_codes(result)
@@ -287,7 +287,7 @@ def test_continuous_beam(session: Session) -> None:
         (
             {"reduced_bias_V": 130.0},
             "voltage ratio routine_bias_V/reduced_bias_V",
-            "not in the table",
+            "not a tabulated voltage ratio",
         ),
         ({"reduced_bias_V": -100.0}, "reduced_bias_V", "opposite polarity"),
         ({"routine_nC": (14.7, -14.7, 14.7)}, "routine_nC[1]", "contradicts the bias"),

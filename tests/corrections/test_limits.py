@@ -14,7 +14,7 @@ from chargebook.corrections.limits import (
 
 
 def test_plausible_ranges_are_the_documented_ones() -> None:
-    # Common practice (REFERENCE.md "Plausible input ranges").
+    # Common practice (docs/physics.md "Plausible input ranges").
     assert (TEMPERATURE_C.low, TEMPERATURE_C.high) == (10.0, 40.0)
     assert (PRESSURE_KPA.low, PRESSURE_KPA.high) == (60.0, 110.0)
     assert (BIAS_MAGNITUDE_V.low, BIAS_MAGNITUDE_V.high) == (10.0, 1000.0)

@@ -26,7 +26,7 @@ def test_hand_worked_value() -> None:
 
 @given(magnitudes, magnitudes, st.booleans())
 def test_trs398_and_tg51_forms_agree(routine: float, opposite: float, positive: bool) -> None:
-    # REFERENCE.md: TG-51's |(M+ − M−)/(2M)| equals TRS-398's (|M+| + |M−|)/(2|M|).
+    # docs/physics.md: TG-51's |(M+ − M−)/(2M)| equals TRS-398's (|M+| + |M−|)/(2|M|).
     sign = 1.0 if positive else -1.0
     routine_nC, opposite_nC = sign * routine, -sign * opposite
     plus, minus = (routine_nC, opposite_nC) if positive else (opposite_nC, routine_nC)

@@ -135,3 +135,12 @@ def test_bad_sets_are_refused(readings: object, field: str) -> None:
     with pytest.raises(InputError) as caught:
         set_statistics(readings)  # type: ignore[arg-type]
     assert caught.value.field == field
+
+
+def test_a_first_reading_against_others_that_average_zero_has_no_offset() -> None:
+    # 20, -20, 20 nC: the mean is finite, but the other two average zero, so the first
+    # reading's offset from them (a division by their mean) does not exist. It once came out
+    # infinite, which no JSON message can carry: the daemon could not send its snapshot.
+    stats = set_statistics([20.0, -20.0, 20.0])
+    assert stats.first_reading_offset_pct is None
+    assert stats.mean_nC == pytest.approx(20.0 / 3)

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from chargebook.corrections.air_density import k_TP
 from chargebook.corrections.conventions import Convention
+from chargebook.corrections.monte_carlo import monte_carlo_u_pct
 from chargebook.corrections.polarity import k_pol
 from chargebook.corrections.recombination import Beam, k_s
 from chargebook.corrections.uncertainty import (
@@ -15,7 +16,6 @@ from chargebook.corrections.uncertainty import (
     RelativeInput,
     budget,
     combine_pct,
-    monte_carlo_u_pct,
 )
 
 MODEL = ModelInputs(
@@ -113,5 +113,5 @@ def test_only_the_known_factors_enter_the_budget() -> None:
 
 def test_budget_lines_are_plain() -> None:
     lines = [c.to_dict() for c in budget(MODEL)]
-    assert set(lines[0]) == {"component", "u_rel_pct", "source"}
+    assert set(lines[0]) == {"component", "u_rel_pct", "source", "dof"}
     assert np.isfinite([line["u_rel_pct"] for line in lines]).all()

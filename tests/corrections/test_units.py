@@ -8,10 +8,10 @@ from chargebook.corrections.units import Conversion, N_Dw_Gy_per_nC, pressure_kP
 
 
 def test_standard_atmosphere_in_mmHg() -> None:
-    # 1 mmHg = 0.133322 kPa (REFERENCE.md); 760 mmHg is one standard atmosphere, 101.325 kPa
-    # (the definition of the standard atmosphere; the 6-digit factor leaves 3e-4 kPa).
-    assert pressure_kPa(760.0, "mmHg") == pytest.approx(101.325, abs=5e-4)
-    assert pressure_kPa(750.0, "mmHg") == pytest.approx(750.0 * 0.133322, rel=1e-12)
+    # The conventional mmHg is 133.322387 Pa (docs/physics.md); 760 mmHg is one standard
+    # atmosphere, 101.325 kPa, to 1.5e-7 relative (the torr is 101325/760 Pa exactly).
+    assert pressure_kPa(760.0, "mmHg") == pytest.approx(101.325, rel=2e-7)
+    assert pressure_kPa(750.0, "mmHg") == pytest.approx(750.0 * 0.133322387415, rel=1e-12)
 
 
 def test_hPa_is_a_tenth_of_a_kPa() -> None:

@@ -9,7 +9,7 @@ textbook lines, and (elsewhere) the correction library.
 - k_TP = ((273.2 + T)/(273.2 + T0)) · (P0/P), T0 = 20 °C, P0 = 101.325 kPa (IAEA TRS-398).
 - k_pol = (|M+| + |M−|) / (2|M|), M at the routine polarity (IAEA TRS-398).
 - pulsed beams, Boag: f(u) = ln(1 + u)/u; solve f(u)/f(n·u) = M1/M2 for u, k_s = 1/f(u)
-  (Boag's theory, as summarised in REFERENCE.md).
+  (Boag's theory, as summarised in docs/physics.md).
 - pulsed beams, TRS-398 two-voltage quadratic for n = 3: k_s = 1.198 − 0.875·r + 0.677·r²,
   r = M1/M2 (coefficients from memory; the table is a fit to Boag within about 0.1 %).
 - continuous beams: k_s = (n² − 1)/(n² − M1/M2) (IAEA TRS-398; AAPM TG-51).

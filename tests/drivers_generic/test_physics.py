@@ -1,6 +1,6 @@
 """The simulator's physics against published formulas and identities.
 
-- Boag's collection efficiency for pulsed beams f(u) = ln(1 + u)/u (REFERENCE.md, Boag's theory):
+- Boag's collection efficiency for pulsed beams f(u) = ln(1 + u)/u (docs/physics.md, Boag's theory):
   f(1) = ln 2 is an identity of the formula.
 - Continuous beams: 1/f = 1 + a/V², for which the TRS-398 / TG-51 two-voltage formula
   k_s = (n² − 1)/(n² − M1/M2) is exact (algebra on the published formula).

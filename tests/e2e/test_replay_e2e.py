@@ -43,7 +43,8 @@ from e2e_support import (
     stop_process,
 )
 
-pytestmark = pytest.mark.e2e
+#: slow: every test here needs the recorded station, which takes about 25 s to record.
+pytestmark = [pytest.mark.e2e, pytest.mark.slow]
 
 #: Wall seconds per simulated second while recording: a quick-plan session takes about 4 s.
 TIME_SCALE = 0.01
@@ -411,7 +412,7 @@ def test_another_reduced_bias_gives_the_two_voltage_k_s_of_the_new_ratio(station
     assert differences["result voltage_ratio"]["replay"] == 2.0
     assert "reduced_bias_V 100.0 → 150.0" in differences["result k_s"]["why"]
     # The same readings, so M1/M2 is unchanged; TRS-398's pulsed-beam quadratic for n = 2
-    # (a0, a1, a2 = 2.337, -3.636, 2.299; REFERENCE.md, from memory) gives the new k_s.
+    # (a0, a1, a2 = 2.337, -3.636, 2.299; docs/physics.md, from memory) gives the new k_s.
     with Store.open(db, read_only=True) as store:
         replay_id = report["replay_session_id"]
         assert readings_by_set(store, replay_id) == readings_by_set(store, station.clean)

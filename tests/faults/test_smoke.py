@@ -14,7 +14,15 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["kill9", "drop", "fuzz_lines", "bad_rpc", "store_faults", "stalled_clients"]
+#: The fault runs, the ones whose smoke run takes more than a few seconds marked slow.
+SCRIPTS = [
+    pytest.param("kill9", marks=pytest.mark.slow),
+    pytest.param("drop", marks=pytest.mark.slow),
+    "fuzz_lines",
+    "bad_rpc",
+    pytest.param("store_faults", marks=pytest.mark.slow),
+    pytest.param("stalled_clients", marks=pytest.mark.slow),
+]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)

@@ -110,6 +110,7 @@ async def next_key(terminal: Terminal, client, snapshot: dict) -> dict:
     return await client.wait_for_snapshot(lambda s: s["seq"] > seq, 60)
 
 
+@pytest.mark.slow
 async def test_the_console_in_a_terminal_attaches_quits_without_stopping_and_finishes(
     terminal, simulator, daemon, metadata
 ):

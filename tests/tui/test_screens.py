@@ -130,7 +130,7 @@ async def test_80_degrees_is_refused_as_typed_naming_the_field_and_nothing_is_se
         await pilot.pause()
         assert isinstance(app.screen, EnvironmentScreen)  # still open, the entry kept
         assert temperature.value == "80"
-        # Plausible range 10-40 °C: common practice (docs/physics.md, plausibility ranges),
+        # Plausible range 10-40 °C: common practice (docs/physics.md, 6.1 "Refused inputs"),
         # said with the entry's own label, not the daemon's parameter name.
         assert temperature.problem == "Air temperature °C: 80 is outside 10 to 40 °C"
         assert "!! Air temperature °C: 80 is outside" in screen_text(app)

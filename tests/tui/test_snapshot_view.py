@@ -34,6 +34,16 @@ def test_factors_use_the_conventions_symbols_and_say_pending_where_not_measured(
     assert rows["N_D,w,Q0"] == (N_Dw, "entered")  # TRS-398's symbol for N_D,w
 
 
+def test_a_carried_factor_shows_its_source_and_date():
+    results = dict(load_snapshot("finished")["results"])
+    source = "carried: session 12 of 2026-11-05, full calibration, dated 2026-11-05"
+    results["factor_states"] = {**results["factor_states"], "k_pol": "carried"}
+    results["factor_sources"] = {**results["factor_sources"], "k_pol": source}
+    rows = {symbol: state for symbol, _, state in snapshot_view.factor_rows(results)}
+    assert rows["k_pol"] == source
+    assert rows["k_s"] == "measured"
+
+
 def test_results_are_the_daemons_numbers_formatted_not_recomputed():
     snapshot = load_snapshot("finished")
     results = snapshot["results"]
@@ -43,6 +53,14 @@ def test_results_are_the_daemons_numbers_formatted_not_recomputed():
     assert rows["Dose per MU"] == f"{results['dose_per_MU_cGy']:.4f} cGy/MU"
     assert rows["Corrected M_Q"] == f"{results['M_corrected_nC']:.4f} nC"
     assert rows["Uncertainty u_c"].startswith(f"{results['u_combined_pct']:.2f} %")
+
+
+def test_the_coverage_factor_shown_is_the_daemons_not_a_fixed_2():
+    # Issue 12 item 6: U = k u_c with k from Student's t at ν_eff (JCGM 100:2008 G.4).
+    snapshot = load_snapshot("finished")
+    snapshot["results"] = {**snapshot["results"], "coverage_factor": 2.45, "U_expanded_pct": 2.8}
+    rows = dict(snapshot_view.result_rows(snapshot))
+    assert "k=2.45" in rows["Uncertainty u_c"].replace("\u00a0", " ")
 
 
 def test_the_history_keeps_superseded_sets_with_their_reason():
@@ -56,3 +74,16 @@ def test_the_history_keeps_superseded_sets_with_their_reason():
 def test_an_instrument_disconnect_is_said_in_words():
     line = snapshot_view.instrument_text(load_snapshot("instrument_lost"))
     assert line.startswith("!! Electrometer DISCONNECTED")
+
+
+def test_factor_states_are_shown_as_the_daemon_sent_them_and_never_worked_out():
+    snapshot = load_snapshot("collecting")
+    results = dict(snapshot["results"])
+    states = dict(results["factor_states"])
+    del states["k_Q"]  # a state the daemon did not send: the console must not invent one
+    results["factor_states"] = states
+    shown = {state for _, _, state in snapshot_view.factor_rows(results)}
+    assert len(snapshot_view.factor_rows(results)) == len(states)
+    assert shown == set(states.values())
+    # No results (e.g. readings the results refuse): no factor is shown as "pending".
+    assert snapshot_view.factor_rows(None) == []

@@ -1,0 +1,109 @@
+"""The daemon's handling of one operator action, in process: its real socket server, engine and
+SQLite file, with the instrument thread built but not started (no electrometer is needed for
+the actions taken here: their commands wait in the thread's inbox).
+
+One snapshot per action: the reply to an action is the snapshot its subscribers were sent,
+built once (it was built twice, once to publish and once to reply).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from chargebook.acquire.client import DaemonClient, Notification
+from chargebook.acquire.daemon import Daemon, DaemonOptions, InstrumentLink
+from chargebook.acquire.demo_data import demo_metadata
+from chargebook.acquire.engine import Engine
+from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
+from chargebook.acquire.store import Store
+from chargebook.drivers_generic import build_electrometer, load_profile
+from chargebook.drivers_generic.interface import TrafficDirection
+
+from tests.acquire.test_engine import small_plan
+
+
+def daemon_on_file(tmp_path: Path) -> Daemon:
+    """Return a daemon (not running) with its station file open."""
+    options = DaemonOptions(
+        profile="lumen-q",
+        db_path=tmp_path / "station.sqlite",
+        socket_path=tmp_path / "run" / "daemon.sock",
+    )
+    daemon = Daemon(options)
+    daemon.store = Store.open(options.db_path)
+    return daemon
+
+
+async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_on_file(tmp_path)
+    options = daemon.options
+    profile = load_profile("lumen-q")
+    daemon.engine = Engine(
+        daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
+    )
+    electrometer = build_electrometer(profile, port=str(tmp_path / "no-such-port"))
+    daemon.link = InstrumentLink(electrometer, lambda kind, payload: None)  # never started
+    builds: list[int] = []
+    engine_snapshot = daemon.engine.snapshot
+
+    def counted() -> dict:
+        builds.append(daemon.engine.seq)
+        return engine_snapshot()
+
+    daemon.engine.snapshot = counted  # type: ignore[method-assign]  # counts, changes nothing
+    await daemon.server.start()
+    published: list[dict] = []
+
+    def heard(note: Notification) -> None:
+        if note.method == NOTIFY_SNAPSHOT:
+            published.append(note.params)
+
+    client = await DaemonClient.connect(options.socket_path, operator="R. Okafor")
+    try:
+        client.add_listener(heard)
+        await client.subscribe()
+        actions = [
+            ("session.start", {"metadata": demo_metadata()}),
+            ("environment.set", {"temperature_C": 20.0, "pressure": 101.325}),
+            ("step.arm", {}),
+            ("session.pause", {}),
+            ("session.resume", {}),
+            ("session.abort", {"reason": "chamber cable damaged", "confirm": True}),
+        ]
+        for method, params in actions:
+            builds.clear()
+            reply = await client.call(method, **params)
+            await client.wait_for_snapshot(lambda s, seq=reply["seq"]: s["seq"] == seq, 10)
+            assert len(builds) == 1, f"{method} built {len(builds)} snapshots"
+            assert published[-1] == reply  # the reply is the snapshot that was published
+    finally:
+        await client.close()
+        await daemon.server.close()
+        daemon.store.close()
+
+
+def test_each_received_line_committed_gives_its_row_id_to_the_sample_read_from_it(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_on_file(tmp_path)
+    try:
+        daemon.store.add_traffic(None, 0.5, "rx", b"an older line\r\n")
+        sent, first, second = (
+            (TrafficDirection.SENT, 1.0, b"Q?\r\n"),
+            (TrafficDirection.RECEIVED, 1.001, b"Q +19.6023 nC A\r\n"),
+            (TrafficDirection.RECEIVED, 1.001, b"Q +19.6030 nC A\r\n"),  # the same receive time
+        )
+        daemon._record_traffic(*sent)
+        daemon._record_traffic(*first)
+        first_ref = daemon._latest_received
+        daemon._record_traffic(*second)
+        second_ref = daemon._latest_received
+        assert first_ref is not None and second_ref is not None and first_ref.id is None
+        daemon._commit_traffic()
+        rows = {row.id: row for row in daemon.store.traffic(None)}
+        assert rows[first_ref.id].line == first[2]
+        assert rows[second_ref.id].line == second[2]  # not found by its (shared) time
+    finally:
+        daemon.store.close()
