@@ -77,12 +77,23 @@ class AutoOperator:
         self.stall_timeout_s = stall_timeout_s
         self._seen: set[int] = set()
 
-    async def start(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
-        """Subscribe, start a session unless one is open (a finished one is closed first),
-        and return the snapshot."""
+    async def start(
+        self, metadata: dict[str, Any], plan: Any = None, *, take_over: bool = False
+    ) -> dict[str, Any]:
+        """Subscribe, start a session (a finished one is closed first), and return the
+        snapshot. A session already open (left by a console, or by a daemon that stopped) is
+        refused unless ``take_over``: accepting every set of someone else's measurement is not
+        the automatic operator's to do."""
         snapshot = await self.client.subscribe()
         if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
             snapshot = await self.client.call(Method.SESSION_CLOSE)
+        if snapshot["state"] != EngineState.IDLE and not take_over:
+            session = snapshot.get("session") or {}
+            raise AutoOperatorError(
+                f"session {session.get('id')} is open ({snapshot['state']}): the automatic "
+                "operator does not take over a session it did not start. Finish or abort it at "
+                "the console, then run this again."
+            )
         if snapshot["state"] == EngineState.IDLE:
             try:
                 snapshot = await self.client.call(
@@ -106,10 +117,12 @@ class AutoOperator:
         self._report(snapshot)
         return snapshot
 
-    async def run(self, metadata: dict[str, Any], plan: Any = None) -> dict[str, Any]:
-        """Start a session (or continue the open one), take it to the end, return the final
-        snapshot."""
-        snapshot = await self.start(metadata, plan)
+    async def run(
+        self, metadata: dict[str, Any], plan: Any = None, *, take_over: bool = False
+    ) -> dict[str, Any]:
+        """Start a session (or, with ``take_over``, continue the open one), take it to the end,
+        return the final snapshot."""
+        snapshot = await self.start(metadata, plan, take_over=take_over)
         return await self.run_until(snapshot, lambda s: s["state"] == EngineState.FINISHED)
 
     async def act(self, snapshot: dict[str, Any]) -> dict[str, Any]:

@@ -163,7 +163,7 @@ async def test_kill_9_mid_set_loses_no_committed_reading_and_the_session_resumes
     assert resumed["state"] == "interrupted"
     assert resumed["current_set"]["status"] == "interrupted"
     assert {r["id"] for s in resumed["sets"] for r in s["readings"]} == on_disk
-    final = await AutoOperator(client, bench_environment(simulator)).run(metadata)
+    final = await AutoOperator(client, bench_environment(simulator)).run(metadata, take_over=True)
     await client.close()
     assert final["state"] == "finished" and final["session"]["id"] == session_id
     with stored(daemon.db) as store:
@@ -435,3 +435,23 @@ async def test_the_stop_an_abort_sends_is_recorded_with_the_aborted_session_not_
         await asyncio.sleep(0.05)
     assert sent[-1].strip() == b"HOLD", sent[-3:]
     assert b"HOLD" not in [line.strip() for line in later[:1]]
+
+
+async def test_the_automatic_operator_never_takes_over_a_session_it_did_not_start(
+    simulator, daemon, metadata
+):
+    from chargebook.acquire.operator_auto import AutoOperator, AutoOperatorError
+
+    console = await daemon.connect(operator="operator A")
+    try:
+        started = await console.call("session.start", metadata=metadata)  # left open at a desk
+        automatic = AutoOperator(console, bench_environment(simulator))
+        with pytest.raises(AutoOperatorError) as refused:
+            await automatic.run(metadata)
+        assert f"session {started['session']['id']} is open" in str(refused.value)
+        assert "does not take over a session it did not start" in str(refused.value)
+        still = await console.status()
+    finally:
+        await console.close()
+    assert still["session"]["id"] == started["session"]["id"]
+    assert still["sets"] == started["sets"]  # nothing accepted on the operator's behalf

@@ -69,7 +69,7 @@ async def operate(client: DaemonClient, world: Station, sessions: int | None = N
     finished = 0
     try:
         while sessions is None or finished < sessions:
-            await operator.run(demo_metadata())
+            await operator.run(demo_metadata(), take_over=True)  # a resumed session goes on
             finished += 1
     except ConnectionLost:
         pass
