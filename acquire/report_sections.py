@@ -18,6 +18,7 @@ from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.report_data import SessionRecord, SetRecord
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
+from chargebook.corrections.beam_quality import quality_text
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.statistics import SetStatistics, set_statistics
@@ -96,6 +97,9 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+    electron = _electron_text(record)
+    if electron is not None:
+        rows.append(("Electron beam", electron, "beam_quality_text"))
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
@@ -105,6 +109,15 @@ def identity(record: SessionRecord) -> Table:
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _electron_text(record: SessionRecord) -> str | None:
+    """Return "R50 = 4.2 cm, z_ref = 2.42 cm; plane-parallel chamber" for an electron beam."""
+    if record.evaluation is None:
+        return None
+    quality = record.evaluation.quality
+    text = quality_text(quality)
+    return None if text is None else f"{text}; {quality.chamber_type} chamber"
 
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:

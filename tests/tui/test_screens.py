@@ -370,6 +370,24 @@ async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
     assert "Air, opposite 21.80 °C, 101.200 kPa (entry 2, 09:41:12 UTC)" in shown
 
 
+async def test_the_results_panel_of_an_electron_beam_shows_R50_and_z_ref():
+    # Results as the daemon computes them; z_ref = 0.6 R50 − 0.1 cm (IAEA TRS-398 (2000) and
+    # AAPM TG-51 (1999), electron beams): 0.6 × 4.2 − 0.1 = 2.42 cm.
+    from chargebook.corrections.beam_quality import BeamQuality
+    from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+
+    snapshot = load_snapshot("reviewing_spike")
+    quality = BeamQuality("electron", 4.2, "plane-parallel", "own determination")
+    snapshot["results"] = evaluate(
+        MeasurementInputs(routine_nC=(12.831, 12.834), k_Q=0.91, quality=quality)
+    ).to_dict()
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=(160, 60)) as pilot:
+        await pilot.pause()
+        shown = " ".join(screen_text(app).split())
+    assert "Electron beam R50 = 4.2 cm, z_ref = 2.42 cm" in shown
+
+
 async def test_a_discarded_reading_is_said_in_words_above_the_instruction():
     paused = load_snapshot("collecting")
     paused["notice"] = (
