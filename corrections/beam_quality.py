@@ -19,7 +19,7 @@ import re
 from dataclasses import dataclass, replace
 
 from chargebook.corrections.conventions import Convention
-from chargebook.corrections.errors import Flag, InputError
+from chargebook.corrections.errors import Flag, InputError, parse_choice
 from chargebook.corrections.limits import Range
 from chargebook.corrections.recombination import Beam
 
@@ -81,20 +81,12 @@ def z_ref_cm(R50_cm: float) -> float:
 
 def parse_modality(value: object) -> Modality:
     """Return the Modality named by ``value``; InputError naming ``modality`` otherwise."""
-    try:
-        return Modality(value.strip().lower() if isinstance(value, str) else value)
-    except ValueError:
-        allowed = ", ".join(m.value for m in Modality)
-        raise InputError("modality", value, allowed, "is not a known modality") from None
+    return parse_choice(Modality, "modality", value, "modality")
 
 
 def parse_chamber_type(value: object) -> ChamberType:
     """Return the ChamberType named by ``value``; InputError naming ``chamber_type`` otherwise."""
-    try:
-        return ChamberType(value.strip().lower() if isinstance(value, str) else value)
-    except ValueError:
-        allowed = ", ".join(t.value for t in ChamberType)
-        raise InputError("chamber_type", value, allowed, "is not a known chamber type") from None
+    return parse_choice(ChamberType, "chamber_type", value, "chamber type")
 
 
 def _source(value: object) -> str | None:
