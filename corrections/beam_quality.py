@@ -20,7 +20,7 @@ from dataclasses import dataclass, replace
 
 from chargebook.corrections.conventions import Convention
 from chargebook.corrections.errors import Flag, InputError, parse_choice
-from chargebook.corrections.limits import Range
+from chargebook.corrections.limits import R50_CM
 from chargebook.corrections.recombination import Beam
 
 
@@ -38,10 +38,6 @@ class ChamberType(enum.StrEnum):
     PLANE_PARALLEL = "plane-parallel"
 
 
-#: R50 of clinical electron beams, cm: about 1.5 cm at 4 MeV to about 10 cm at 25 MeV; the
-#: range is kept wide to catch a unit slip (mm, or a depth in the wrong field) rather than
-#: judge a beam (common practice).
-R50_CM = Range(1.0, 20.0, "cm")
 #: Below this R50 (cm) the code of practice asks for a plane-parallel chamber (from memory:
 #: TRS-398 (2000) requires plane-parallel chambers for R50 < 4 g cm⁻²; TG-51 (1999) for
 #: R50 <= 2.6 cm, 6 MeV or less).

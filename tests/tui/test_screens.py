@@ -189,6 +189,32 @@ async def test_the_setup_form_gives_metadata_the_daemons_own_check_accepts():
     assert checked.calibration_date == "2024-11-05"
 
 
+async def test_the_setup_form_starts_an_electron_session_the_daemon_accepts():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=SIZE) as pilot:
+        form = app.console_screen.form
+        form.query_one("#field-beam", Field).input.value = "10 MeV"
+        form.query_one("#choice-modality", Select).value = "electron"
+        form.query_one("#choice-chamber_type", Select).value = "plane-parallel"
+        R50 = form.query_one("#field-R50_cm", Field)
+        R50.input.value = "42"  # typed in mm
+        await pilot.pause()
+        assert form.metadata() is None
+        assert R50.problem == "R50 cm (electrons): 42 is outside 1 to 20 cm"
+        R50.input.value = "4.2"
+        form.query_one("#field-k_Q_source", Field).input.value = "own determination"
+        await pilot.pause()
+        metadata = form.metadata()
+    assert metadata is not None
+    checked = validate_metadata(metadata)  # the daemon's own check of session.start
+    assert (checked.modality, checked.R50_cm, checked.chamber_type) == (
+        "electron",
+        4.2,
+        "plane-parallel",
+    )
+    assert checked.k_Q_source == "own determination"
+
+
 async def test_not_connected_and_instrument_lost_are_said_plainly():
     lost = load_snapshot("instrument_lost")
     app = ScreenHarness(
