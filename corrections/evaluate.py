@@ -935,7 +935,11 @@ def _model(
         RelativeInput(
             factors["k_Q"].symbol,
             u.u_k_Q_pct,
-            "Type B: code of practice" if u.u_k_Q_pct is not None else NOT_GIVEN,
+            (
+                f"Type B: {inputs.quality.k_Q_source or 'code of practice'}"
+                if u.u_k_Q_pct is not None
+                else NOT_GIVEN
+            ),
             in_charge=False,
         ),
         *_carried_inputs(factors, checked),

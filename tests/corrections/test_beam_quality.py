@@ -13,7 +13,7 @@ from chargebook.corrections.beam_quality import (
 )
 from chargebook.corrections.conventions import Convention
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+from chargebook.corrections.evaluate import MeasurementInputs, Uncertainties, evaluate
 from chargebook.corrections.recombination import Beam
 
 ELECTRON = BeamQuality("electron", 4.2, "plane-parallel", "TRS-398 (2000) table, chamber PP-1")
@@ -120,8 +120,15 @@ def test_electron_wording_passes() -> None:
 
 
 def test_evaluate_carries_the_beam_quality_and_k_Q_source_into_the_results() -> None:
-    inputs = MeasurementInputs(routine_nC=(10.0, 10.01), k_Q=0.918, quality=ELECTRON)
+    inputs = MeasurementInputs(
+        routine_nC=(10.0, 10.01),
+        k_Q=0.918,
+        uncertainties=Uncertainties(u_k_Q_pct=1.4),
+        quality=ELECTRON,
+    )
     result = evaluate(inputs).to_dict()
+    (k_Q_line,) = [line for line in result["budget"] if line["u_rel_pct"] == 1.4]
+    assert k_Q_line["source"] == "Type B: TRS-398 (2000) table, chamber PP-1"
     assert result["modality"] == "electron"
     assert result["R50_cm"] == 4.2
     assert result["z_ref_cm"] == pytest.approx(2.42)
