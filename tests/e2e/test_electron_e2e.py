@@ -7,6 +7,7 @@ electron beams: 0.6 × 4.2 − 0.1 = 2.42 cm), and no photon wording reaches the
 
 from __future__ import annotations
 
+import json
 import re
 import subprocess
 
@@ -70,6 +71,11 @@ async def test_an_electron_session_shows_R50_and_z_ref_and_no_photon_wording(
     html = report.read_text(encoding="utf-8")
     assert SAYS in html
     assert PHOTON.search(html) is None, PHOTON.search(html)
+    # A replay from the recorded traffic reproduces the electron session's results exactly.
+    daemon.stop()
+    replayed = run("replay", str(session.id), "--db", str(daemon.db), "--speed", "0", "--json")
+    report = json.loads(replayed)
+    assert report["reproduced"] is True and report["differences"] == []
 
 
 async def test_an_electron_session_without_k_Q_source_is_refused_and_nothing_is_recorded(
