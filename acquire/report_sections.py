@@ -97,18 +97,22 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
-    electron = _electron_text(record)
-    if electron is not None:
-        rows.append(("Electron beam", electron, "beam_quality_text"))
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
+    electron = _electron_text(record)
+    if electron is not None:
+        rows.append(("Electron beam", electron, "beam_quality_text"))
     return Table(
         "Session",
         ("item", "value"),
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
+    return f"{meta.get(model, NOT_GIVEN)}, serial {meta.get(serial, NOT_GIVEN)}"
 
 
 def _electron_text(record: SessionRecord) -> str | None:
@@ -118,10 +122,6 @@ def _electron_text(record: SessionRecord) -> str | None:
     quality = record.evaluation.quality
     text = quality_text(quality)
     return None if text is None else f"{text}; {quality.chamber_type} chamber"
-
-
-def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
-    return f"{meta.get(model, NOT_GIVEN)}, serial {meta.get(serial, NOT_GIVEN)}"
 
 
 def _instrument_text(detail: dict[str, Any] | None) -> str:
