@@ -21,6 +21,7 @@ from chargebook.acquire.report_audit import event_words
 from chargebook.acquire.report_data import SessionRecord, SetRecord
 from chargebook.acquire.review import review_words
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
+from chargebook.corrections.beam_quality import quality_text
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
@@ -122,6 +123,9 @@ def identity(record: SessionRecord) -> Table:
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
+    electron = _electron_text(record)
+    if electron is not None:
+        rows.append(("Electron beam", electron, "beam_quality_text"))
     return Table(
         "Session",
         ("item", "value"),
@@ -143,6 +147,15 @@ def _review_text(record: SessionRecord) -> str:
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
     return f"{meta.get(model, NOT_GIVEN)}, serial {meta.get(serial, NOT_GIVEN)}"
+
+
+def _electron_text(record: SessionRecord) -> str | None:
+    """Return "R50 = 4.2 cm, z_ref = 2.42 cm; plane-parallel chamber" for an electron beam."""
+    if record.evaluation is None:
+        return None
+    quality = record.evaluation.quality
+    text = quality_text(quality)
+    return None if text is None else f"{text}; {quality.chamber_type} chamber"
 
 
 def _instrument_text(detail: dict[str, Any] | None) -> str:

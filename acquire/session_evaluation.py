@@ -324,6 +324,7 @@ def _inputs(
         subtract_leakage=meta.subtract_leakage,
         carried=meta.carried(),
         measured_on=meta.measured_on(),
+        quality=meta.quality(),
         not_measured=tuple(
             key
             for key, purpose in MEASURED_BY.items()

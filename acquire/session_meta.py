@@ -39,6 +39,15 @@ Keys (required unless a default is shown)::
     certificate           None    certificate number or laboratory
     beam_quality          None    beam quality specifier as measured, e.g. "TPR20,10 = 0.668"
     notes                 None    free text
+    modality              photon  photon | electron
+    R50_cm                None    electron beams: R50, the depth of the 50 % dose in water, cm
+                                  (1 to 20); z_ref = 0.6 R50 − 0.1 cm is computed. Required for
+                                  an electron beam, refused for a photon beam
+    chamber_type          None    cylindrical | plane-parallel (required for an electron beam;
+                                  a cylindrical chamber below the protocol's R50 is flagged)
+    k_Q_source            None    where k_Q comes from (the code of practice's table for this
+                                  chamber and beam quality, or the user's own determination);
+                                  required for an electron beam
     subtract_leakage      false   subtract the measured leakage from the routine reading (the
                                   operator's choice, recorded in the audit); false: the leakage
                                   is only reported as a percentage of the routine reading
@@ -52,6 +61,9 @@ Keys (required unless a default is shown)::
                                   fills in; absent: today). The daemon fills both in from the
                                   beam's last full calibration when they are not given.
 
+An electron session's beam and beam_quality may not name a photon quality (TPR20,10, %dd(10)x,
+"MV", "photons"), and its beam_type is pulsed or pulsed-scanned.
+
 Monitor units per reading come from the plan, not from here.
 """
 
@@ -64,6 +76,7 @@ from dataclasses import asdict, dataclass, fields
 from typing import Any
 
 from chargebook.corrections import dose, limits, units
+from chargebook.corrections.beam_quality import BeamQuality, check_quality, check_wording
 from chargebook.corrections.carried import (
     CarriedFactor,
     carried_factor,
@@ -73,7 +86,7 @@ from chargebook.corrections.carried import (
 from chargebook.corrections.conventions import parse_convention
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import USER_COMPONENTS, Uncertainties
-from chargebook.corrections.recombination import parse_beam
+from chargebook.corrections.recombination import Beam, parse_beam
 from chargebook.corrections.units import Conversion
 
 TEXT_FIELDS = (
@@ -130,6 +143,15 @@ class SessionMetadata:
     subtract_leakage: bool = False
     carried_k_pol: dict[str, Any] | None = None
     carried_k_s: dict[str, Any] | None = None
+    modality: str = "photon"
+    R50_cm: float | None = None
+    chamber_type: str | None = None
+    k_Q_source: str | None = None
+
+    def quality(self) -> BeamQuality:
+        """Return the beam quality for ``evaluate``: modality, R50 (cm), chamber type, k_Q's
+        source."""
+        return BeamQuality(self.modality, self.R50_cm, self.chamber_type, self.k_Q_source)
 
     def carried(self) -> dict[str, CarriedFactor]:
         """Return the carried factors for ``evaluate`` (key -> CarriedFactor)."""
@@ -311,10 +333,14 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
     if data.get("convention") is None:
         raise InputError("convention", None, "trs398 or tg51", "is missing")
     N_Dw, N_Dw_unit, N_Dw_Gy_per_nC = _calibration(data)
+    beam_type = parse_beam(data["beam_type"])
+    quality = _quality(data, beam_type)
+    check_wording("beam", texts["beam"], quality.modality)
+    check_wording("beam_quality", optional_texts["beam_quality"], quality.modality)
     u_k_elec = _number(data, "u_k_elec_pct", limits.UNCERTAINTY_PCT, required=False)
     return SessionMetadata(
         **texts,
-        beam_type=parse_beam(data["beam_type"]).value,
+        beam_type=beam_type.value,
         convention=parse_convention(data["convention"]).value,
         N_Dw=N_Dw,
         N_Dw_unit=N_Dw_unit,
@@ -343,4 +369,20 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         carried_k_pol=_carried(data, "carried_k_pol", texts),
         carried_k_s=_carried(data, "carried_k_s", texts),
         **optional_texts,
+        modality=quality.modality,
+        R50_cm=quality.R50_cm,
+        chamber_type=quality.chamber_type,
+        k_Q_source=quality.k_Q_source,
     )
+
+
+def _quality(data: Mapping[str, Any], beam_type: Beam) -> BeamQuality:
+    """Return the checked modality, R50, chamber type and k_Q's source (photon when absent)."""
+    modality = data.get("modality")
+    given = BeamQuality(
+        "photon" if modality is None else modality,
+        data.get("R50_cm"),
+        data.get("chamber_type"),
+        data.get("k_Q_source"),
+    )
+    return check_quality(given, beam_type)

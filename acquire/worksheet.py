@@ -4,7 +4,12 @@ A worksheet holds one session::
 
     convention = "trs398"            # or "tg51"
     beam = "pulsed"                  # pulsed | pulsed-scanned | continuous
-    [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text)
+    modality = "photon"              # or "electron" (photon when absent)
+    R50_cm = 4.2                     # electron beams only: R50 in cm; z_ref = 0.6 R50 - 0.1 cm
+    [session]      machine, beam_quality, chamber, electrometer, date, operator, notes (text);
+                   chamber_type: cylindrical | plane-parallel (required for an electron beam).
+                   An electron worksheet's beam_quality may not name a photon quality
+                   (TPR20,10, %dd(10)x, "MV", "photons"): its quality is R50.
     [environment]  temperature_C, pressure_kPa | pressure_hPa | pressure_mmHg, humidity_pct
     [environment.routine], [environment.opposite], [environment.reduced], [environment.return]
                    (optional) the air while that set was taken: temperature_C and one pressure
@@ -18,7 +23,10 @@ A worksheet holds one session::
                    monitor_units (per reading, the same for every set: k_pol and k_s are ratios
                    of the sets' mean charges), expected_cGy_per_MU, tolerance_pct (number, or
                    "daily", "monthly", "annual"), u_N_Dw_pct_k2 (the certificate's expanded
-                   uncertainty), k_N_Dw (its coverage factor, 2 unless stated), u_k_Q_pct
+                   uncertainty), k_N_Dw (its coverage factor, 2 unless stated), u_k_Q_pct,
+                   k_Q_source (where k_Q comes from: the code of practice's table for this
+                   chamber and beam quality, or the user's own determination; required for an
+                   electron beam)
     [uncertainty]  u_temperature_C, u_pressure_kPa, u_k_elec_pct (give it with k_elec: without
                    it an entered k_elec is left out of u_c and flagged), coverage_probability
                    (0.95), and the user's components in %: u_reference_conditions_pct,
@@ -51,6 +59,7 @@ from types import MappingProxyType
 from typing import Any
 
 from chargebook.corrections import units
+from chargebook.corrections.beam_quality import BeamQuality, check_wording
 from chargebook.corrections.carried import (
     CARRIED_KEYS,
     MEASURED_BY,
@@ -73,7 +82,7 @@ INTEGER_OR_NONE = "an integer"
 #: Section -> key -> the kind of value it takes. "" is the top level.
 SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
     {
-        "": {"convention": TEXT, "beam": TEXT},
+        "": {"convention": TEXT, "beam": TEXT, "modality": TEXT, "R50_cm": NUMBER},
         "session": {
             key: TEXT
             for key in (
@@ -84,6 +93,7 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
                 "date",
                 "operator",
                 "notes",
+                "chamber_type",
             )
         },
         "environment": {
@@ -113,6 +123,7 @@ SCHEMA: Mapping[str, Mapping[str, str]] = MappingProxyType(
             "u_N_Dw_pct_k2": NUMBER,
             "k_N_Dw": NUMBER,
             "u_k_Q_pct": NUMBER,
+            "k_Q_source": TEXT,
         },
         "uncertainty": {
             "u_temperature_C": NUMBER,
@@ -321,6 +332,9 @@ def parse_worksheet(
     if not isinstance(document, Mapping):
         raise InputError("worksheet", document, "a table of keys", "is not a table")
     sections = _sections(document)
+    top, session = sections[""], sections["session"]
+    modality = top.get("modality", "photon")
+    check_wording("session.beam_quality", session.get("beam_quality"), modality)
     measured_on = _measured_on(sections["session"], today) if sections["carried"] else None
     environment, calibration = sections["environment"], sections["calibration"]
     readings, uncertainty = sections["readings"], sections["uncertainty"]
@@ -362,6 +376,9 @@ def parse_worksheet(
             key
             for key, set_key in MEASURED_BY.items()
             if not readings.get(f"{set_key}_nC") and key not in sections["carried"]
+        ),
+        quality=BeamQuality(
+            modality, top.get("R50_cm"), session.get("chamber_type"), calibration.get("k_Q_source")
         ),
     )
     return Worksheet(Path(path), inputs, MappingProxyType(dict(sections["session"])))

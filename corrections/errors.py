@@ -9,12 +9,14 @@ a polarity effect above 0.4 %, unstable readings): it is returned with the resul
 
 from __future__ import annotations
 
+import enum
 from dataclasses import dataclass
-from typing import Literal
+from typing import Literal, TypeVar
 
 import numpy as np
 
 Severity = Literal["info", "warning", "error"]
+Choice = TypeVar("Choice", bound=enum.StrEnum)
 SEVERITIES: tuple[str, ...] = ("info", "warning", "error")
 
 
@@ -71,3 +73,16 @@ class Flag:
     def to_dict(self) -> dict[str, str]:
         """Return the flag as JSON-ready plain types."""
         return {"code": self.code, "message": self.message, "severity": self.severity}
+
+
+def parse_choice(choices: type[Choice], field: str, value: object, what: str) -> Choice:
+    """Return the member of ``choices`` named by ``value`` (case and spaces ignored).
+
+    InputError naming ``field``, the value and the allowed names ("is not a known {what}")
+    otherwise.
+    """
+    try:
+        return choices(value.strip().lower() if isinstance(value, str) else value)
+    except ValueError:
+        allowed = ", ".join(choice.value for choice in choices)
+        raise InputError(field, value, allowed, f"is not a known {what}") from None

@@ -30,6 +30,12 @@ from chargebook.corrections import dose as dose_module
 from chargebook.corrections import humidity, limits, plausibility, stability
 from chargebook.corrections.air_density import k_TP as k_TP_of
 from chargebook.corrections.air_density import k_TP_relative_sensitivity
+from chargebook.corrections.beam_quality import (
+    BeamQuality,
+    check_quality,
+    quality_dict,
+    quality_flags,
+)
 from chargebook.corrections.carried import CARRIED_KEYS, CarriedFactor
 from chargebook.corrections.conventions import Convention, constants, parse_convention
 from chargebook.corrections.errors import Flag, InputError
@@ -145,6 +151,8 @@ class MeasurementInputs:
     than ``thresholds.carried_max_age_days`` is flagged. None: neither is checked.
     ``not_measured``: the factors (k_pol, k_s) this measurement will not measure (its plan has
     no such step, or a worksheet no such readings); one of them still pending is flagged.
+    ``quality``: the modality and, for an electron beam, R50, the chamber type and k_Q's
+    source (:mod:`chargebook.corrections.beam_quality`); the default is a photon beam.
     """
 
     convention: str = "trs398"
@@ -176,6 +184,7 @@ class MeasurementInputs:
     carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
     measured_on: str | None = None
     not_measured: tuple[str, ...] = ()
+    quality: BeamQuality = field(default_factory=BeamQuality)
 
 
 @dataclass(frozen=True)
@@ -296,6 +305,8 @@ class Evaluation:
     #: checked against (YYYY-MM-DD, None if not given).
     carried: Mapping[str, CarriedFactor] = field(default_factory=dict)
     measured_on: str | None = None
+    #: The checked modality, R50 and z_ref (electrons), chamber type and k_Q's source.
+    quality: BeamQuality = field(default_factory=BeamQuality)
 
     def monte_carlo(
         self, trials: int = MONTE_CARLO_TRIALS, seed: int = MONTE_CARLO_SEED
@@ -370,6 +381,7 @@ class Evaluation:
                 "k_s_boag": self.k_s_boag,
                 "k_s_boag_difference_pct": self.k_s_boag_difference_pct,
                 "carried": {key: self._carried_dict(key) for key in self.carried},
+                **quality_dict(self.quality),
             }
         )
         return result
@@ -856,7 +868,13 @@ def _factors(
             "the calibration coefficient",
             " (Gy/nC)",
         ),
-        "k_Q": _factor_entered(symbols["k_Q"], checked.k_Q, u.u_k_Q_pct, "the beam quality factor"),
+        "k_Q": _factor_entered(
+            symbols["k_Q"],
+            checked.k_Q,
+            u.u_k_Q_pct,
+            "the beam quality factor",
+            f" ({inputs.quality.k_Q_source})" if inputs.quality.k_Q_source else "",
+        ),
     }
 
 
@@ -917,7 +935,11 @@ def _model(
         RelativeInput(
             factors["k_Q"].symbol,
             u.u_k_Q_pct,
-            "Type B: code of practice" if u.u_k_Q_pct is not None else NOT_GIVEN,
+            (
+                f"Type B: {inputs.quality.k_Q_source or 'code of practice'}"
+                if u.u_k_Q_pct is not None
+                else NOT_GIVEN
+            ),
             in_charge=False,
         ),
         *_carried_inputs(factors, checked),
@@ -1154,6 +1176,8 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     """
     convention = parse_convention(inputs.convention)
     beam = parse_beam(inputs.beam)
+    quality = check_quality(inputs.quality, beam)
+    inputs = dataclasses.replace(inputs, quality=quality)
     checked = _check_scalars(inputs, convention, beam)
     sets = _reading_sets(inputs)
     returned = _return_check(inputs, sets, checked, convention)
@@ -1208,6 +1232,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
     charge_ratio = _charge_ratio(sets, scales)
     flags += _protocol_flags(checked, convention, beam, factors["k_s"].symbol, charge_ratio)
     flags += _return_flags(returned, inputs.thresholds)
+    flags += quality_flags(quality, convention)
     if M_corrected is not None:
         flags += _uncertainty_flags(components, dose_known=dose_Gy is not None)
     flags += _tolerance_flags(deviation, checked.tolerance_pct, checked.expected_cGy_per_MU)
@@ -1249,6 +1274,7 @@ def evaluate(inputs: MeasurementInputs) -> Evaluation:
         k_s_boag_difference_pct=boag_difference,
         carried=MappingProxyType(dict(checked.carried)),
         measured_on=inputs.measured_on,
+        quality=quality,
     )
 
 

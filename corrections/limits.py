@@ -109,5 +109,8 @@ LEAKAGE_NC = Range(-1e6, 1e6, "nC")
 CHARGE_NC = Range(-1e9, 1e9, "nC")
 #: The coverage factor a calibration certificate states for its expanded uncertainty.
 CERTIFICATE_K = Range(1.0, 4.0)
+#: R50 of an electron beam, cm: clinical beams run from about 1.5 cm (4 MeV) to about 10 cm
+#: (25 MeV); kept wide to catch a value typed in mm rather than judge a beam (common practice).
+R50_CM = Range(1.0, 20.0, "cm")
 #: Coverage probability of an expanded uncertainty.
 COVERAGE_PROBABILITY = Range(0.5, 0.999)

@@ -26,7 +26,7 @@ from types import MappingProxyType
 
 import numpy as np
 from chargebook.corrections.conventions import Convention, parse_convention
-from chargebook.corrections.errors import InputError
+from chargebook.corrections.errors import InputError, parse_choice
 from chargebook.corrections.limits import BIAS_MAGNITUDE_V, Number, Range, as_number, first_where
 
 
@@ -40,11 +40,7 @@ class Beam(enum.StrEnum):
 
 def parse_beam(value: object) -> Beam:
     """Return the Beam named by ``value``; raise InputError naming the allowed beams otherwise."""
-    try:
-        return Beam(value.strip().lower() if isinstance(value, str) else value)
-    except ValueError:
-        allowed = ", ".join(beam.value for beam in Beam)
-        raise InputError("beam", value, allowed, "is not a known beam type") from None
+    return parse_choice(Beam, "beam", value, "beam type")
 
 
 #: TRS-398 (2000) two-voltage coefficients (a0, a1, a2) for pulsed beams, by n (from memory).

@@ -239,7 +239,8 @@ def _coverage_factor(results: dict[str, Any]) -> str:
 
 
 def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
-    """Return (label, value) rows: raw and corrected charge, dose, per MU, deviation, u_c."""
+    """Return (label, value) rows: an electron beam's R50 and z_ref (as the daemon worded
+    them), raw and corrected charge, dose, per MU, deviation, u_c."""
     results = snapshot.get("results") or {}
     symbols = results.get("symbols") or {}
     combined = results.get("u_combined_pct")
@@ -249,7 +250,9 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
         if combined is None
         else f"{text.percent(combined)} (k={_coverage_factor(results)}: {text.percent(expanded)})"
     )
+    quality = results.get("beam_quality_text")
     return [
+        *([("Electron beam", str(quality))] if quality else []),
         (f"Raw charge {symbols.get('M_raw', 'M_raw')}", text.charge_nC(results.get("M_raw_nC"))),
         (
             f"Corrected {symbols.get('M_corrected', 'M')}",

@@ -70,6 +70,7 @@ def _table(rows: list[list[str]], indent: str = "  ") -> list[str]:
 
 
 def _header(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
+    from chargebook.corrections.beam_quality import quality_text
     from chargebook.corrections.conventions import constants
 
     reference = constants(evaluation.convention)
@@ -77,6 +78,8 @@ def _header(worksheet: Worksheet, evaluation: Evaluation) -> list[str]:
         f"chargebook correct: {worksheet.path.name}",
         f"convention   {reference.title} (air referred to {reference.reference_temperature_C:g} °C,"
         f" {reference.reference_pressure_kPa:g} kPa); beam {evaluation.beam.value}",
+        f"modality     {evaluation.quality.modality}"
+        + (f"; {text}" if (text := quality_text(evaluation.quality)) else ""),
     ]
     lines += [f"{key.replace('_', ' '):<12} {value}" for key, value in worksheet.session.items()]
     if evaluation.conversions:

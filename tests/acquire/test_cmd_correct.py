@@ -12,7 +12,13 @@ import pytest
 from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
-GOOD = ["hcc-la1-6mv.toml", "hcc-la2-10fff.toml", "hcc-co60.json", "hcc-la1-6mv-monthly.toml"]
+GOOD = [
+    "hcc-la1-6mv.toml",
+    "hcc-la2-10fff.toml",
+    "hcc-co60.json",
+    "hcc-la1-6mv-monthly.toml",
+    "hcc-la1-10mev.toml",
+]
 
 #: Keys the issue asks the JSON to hold (item 6).
 JSON_KEYS = {
@@ -421,3 +427,79 @@ def test_an_old_carried_factor_is_flagged(tmp_path: Path) -> None:
     codes = [flag["code"] for flag in result["flags"]]
     assert "k_s_carried_old" in codes
     assert result["factor_states"]["k_pol"] == "pending"  # only k_s was carried
+
+
+#: Wording that describes a photon beam's quality; none of it may reach an electron session.
+PHOTON_WORDS = ("TPR", "%dd", "dd(10)", "photon", " MV")
+
+
+def test_the_electron_example_shows_R50_and_z_ref_and_no_photon_wording() -> None:
+    table = correct(EXAMPLES / "hcc-la1-10mev.toml")
+    assert table.returncode == 0, table.stderr
+    # z_ref = 0.6 R50 − 0.1 cm: IAEA TRS-398 (2000) electron beams and AAPM TG-51 (1999) d_ref.
+    assert "modality     electron; R50 = 4.2 cm, z_ref = 2.42 cm" in table.stdout
+    assert "chamber type plane-parallel" in table.stdout
+    assert "TRS-398 electron table for this chamber model" in table.stdout  # k_Q's source
+    assert not [word for word in PHOTON_WORDS if word.lower() in table.stdout.lower()]
+    result = json.loads(correct(EXAMPLES / "hcc-la1-10mev.toml", "--json").stdout)
+    assert (result["modality"], result["R50_cm"], result["chamber_type"]) == (
+        "electron",
+        4.2,
+        "plane-parallel",
+    )
+    assert result["z_ref_cm"] == pytest.approx(2.42, abs=1e-12)  # TRS-398 and TG-51 formula
+    assert "TPR" not in json.dumps(result)
+
+
+ELECTRON_SHEET = """convention = "trs398"
+beam = "pulsed"
+modality = "electron"
+R50_cm = {R50}
+[session]
+chamber_type = "{chamber}"
+beam_quality = "{quality}"
+[readings]
+routine_nC = [12.83, 12.84]
+[calibration]
+k_Q = 0.91
+{source}
+"""
+
+
+@pytest.mark.parametrize(
+    ("changes", "words"),
+    [
+        ({"source": ""}, "calibration.k_Q_source"),
+        ({"R50": "42"}, "R50_cm = 42 is outside the allowed range 1 to 20 cm"),
+        ({"chamber": "thimble"}, "chamber_type = 'thimble' is not a known chamber type"),
+        ({"quality": "6 MV photons, TPR20,10 0.67"}, "session.beam_quality"),
+    ],
+)
+def test_a_bad_electron_worksheet_exits_2_naming_the_key(
+    tmp_path: Path, changes: dict[str, str], words: str
+) -> None:
+    fields = {
+        "R50": "4.2",
+        "chamber": "plane-parallel",
+        "quality": "10 MeV",
+        "source": 'k_Q_source = "own determination"',
+    }
+    sheet = tmp_path / "electron.toml"
+    sheet.write_text(ELECTRON_SHEET.format(**{**fields, **changes}), encoding="utf-8")
+    done = correct(sheet, "--json")
+    assert done.returncode == EXIT_INVALID_INPUT, done.stdout
+    assert words in done.stderr
+    assert done.stdout == ""
+
+
+def test_a_cylindrical_chamber_below_R50_4_cm_is_flagged_in_words(tmp_path: Path) -> None:
+    sheet = tmp_path / "electron.toml"
+    text = ELECTRON_SHEET.format(
+        R50="2.0", chamber="cylindrical", quality="6 MeV", source='k_Q_source = "own"'
+    )
+    sheet.write_text(text, encoding="utf-8")
+    done = correct(sheet)
+    assert done.returncode == EXIT_OK, done.stderr
+    # z_ref = 0.6 × 2.0 − 0.1 = 1.1 cm (TRS-398 (2000) and TG-51 (1999) formula).
+    assert "R50 = 2 cm, z_ref = 1.10 cm" in done.stdout
+    assert "asks for a plane-parallel chamber" in done.stdout

@@ -192,3 +192,61 @@ def test_leakage_subtraction_is_off_unless_chosen_and_must_be_yes_or_no() -> Non
     assert validate_metadata(chosen.to_dict()) == chosen
     with pytest.raises(InputError, match=r"subtract_leakage = 'yes'.*true or false"):
         validate_metadata({**required_metadata(), "subtract_leakage": "yes"})
+
+
+#: An electron beam of the invented demo clinic (not reference data).
+ELECTRON = {
+    "beam": "10 MeV",
+    "modality": "electron",
+    "R50_cm": 4.2,
+    "chamber_type": "plane-parallel",
+    "k_Q_source": "own determination against the station's cylindrical chamber",
+}
+
+
+def test_a_session_is_a_photon_beam_unless_it_says_otherwise() -> None:
+    meta = validate_metadata(HARBOURSIDE)
+    assert (meta.modality, meta.R50_cm, meta.chamber_type, meta.k_Q_source) == (
+        "photon",
+        None,
+        None,
+        None,
+    )
+    assert meta.quality().modality == "photon"
+
+
+def test_an_electron_session_keeps_R50_chamber_type_and_k_Q_source() -> None:
+    meta = validate_metadata(_with(**{**ELECTRON, "modality": " Electron "}))
+    assert (meta.modality, meta.R50_cm, meta.chamber_type) == ("electron", 4.2, "plane-parallel")
+    assert meta.quality().k_Q_source == ELECTRON["k_Q_source"]
+    assert validate_metadata(json.loads(json.dumps(meta.to_dict()))) == meta
+
+
+@pytest.mark.parametrize(
+    ("changes", "field", "words"),
+    [
+        ({"k_Q_source": DELETE}, "k_Q_source", "is missing for an electron beam"),
+        ({"R50_cm": DELETE}, "R50_cm", "is missing"),
+        ({"R50_cm": 0.42}, "R50_cm", "1 to 20 cm"),  # R50 typed in dm: common practice range
+        ({"R50_cm": "4.2 cm"}, "R50_cm", "is not a number"),
+        ({"chamber_type": DELETE}, "chamber_type", "is missing for an electron beam"),
+        ({"modality": "neutron"}, "modality", "is not a known modality"),
+        ({"beam_type": "continuous"}, "beam", "pulsed or pulsed-scanned"),
+        ({"beam": "6 MV"}, "beam", "names a photon beam"),
+        ({"beam_quality": "TPR20,10 = 0.668"}, "beam_quality", "in an electron session"),
+    ],
+)
+def test_what_an_electron_session_needs_is_refused_by_name(
+    changes: dict, field: str, words: str
+) -> None:
+    data = {**HARBOURSIDE, **ELECTRON, **changes}
+    with pytest.raises(InputError) as caught:
+        validate_metadata({key: value for key, value in data.items() if value is not DELETE})
+    assert caught.value.field == field
+    assert words in str(caught.value)
+
+
+def test_a_photon_session_takes_no_R50() -> None:
+    with pytest.raises(InputError) as caught:
+        validate_metadata(_with(R50_cm=4.2))
+    assert caught.value.field == "R50_cm"

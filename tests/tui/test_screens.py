@@ -189,6 +189,32 @@ async def test_the_setup_form_gives_metadata_the_daemons_own_check_accepts():
     assert checked.calibration_date == "2024-11-05"
 
 
+async def test_the_setup_form_starts_an_electron_session_the_daemon_accepts():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=SIZE) as pilot:
+        form = app.console_screen.form
+        form.query_one("#field-beam", Field).input.value = "10 MeV"
+        form.query_one("#choice-modality", Select).value = "electron"
+        form.query_one("#choice-chamber_type", Select).value = "plane-parallel"
+        R50 = form.query_one("#field-R50_cm", Field)
+        R50.input.value = "42"  # typed in mm
+        await pilot.pause()
+        assert form.metadata() is None
+        assert R50.problem == "R50 cm (electrons): 42 is outside 1 to 20 cm"
+        R50.input.value = "4.2"
+        form.query_one("#field-k_Q_source", Field).input.value = "own determination"
+        await pilot.pause()
+        metadata = form.metadata()
+    assert metadata is not None
+    checked = validate_metadata(metadata)  # the daemon's own check of session.start
+    assert (checked.modality, checked.R50_cm, checked.chamber_type) == (
+        "electron",
+        4.2,
+        "plane-parallel",
+    )
+    assert checked.k_Q_source == "own determination"
+
+
 async def test_not_connected_and_instrument_lost_are_said_plainly():
     lost = load_snapshot("instrument_lost")
     app = ScreenHarness(
@@ -368,6 +394,24 @@ async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
     assert "k_s by Boag" in shown
     assert "Air, routine 21.40 °C, 101.200 kPa (entry 1, 09:30:00 UTC)" in shown
     assert "Air, opposite 21.80 °C, 101.200 kPa (entry 2, 09:41:12 UTC)" in shown
+
+
+async def test_the_results_panel_of_an_electron_beam_shows_R50_and_z_ref():
+    # Results as the daemon computes them; z_ref = 0.6 R50 − 0.1 cm (IAEA TRS-398 (2000) and
+    # AAPM TG-51 (1999), electron beams): 0.6 × 4.2 − 0.1 = 2.42 cm.
+    from chargebook.corrections.beam_quality import BeamQuality
+    from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+
+    snapshot = load_snapshot("reviewing_spike")
+    quality = BeamQuality("electron", 4.2, "plane-parallel", "own determination")
+    snapshot["results"] = evaluate(
+        MeasurementInputs(routine_nC=(12.831, 12.834), k_Q=0.91, quality=quality)
+    ).to_dict()
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=(160, 60)) as pilot:
+        await pilot.pause()
+        shown = " ".join(screen_text(app).split())
+    assert "Electron beam R50 = 4.2 cm, z_ref = 2.42 cm" in shown
 
 
 async def test_a_discarded_reading_is_said_in_words_above_the_instruction():

@@ -46,6 +46,13 @@ BEAM_TYPES = (
     ("continuous", "continuous"),
 )
 N_DW_UNITS = (("Gy/nC", "Gy/nC"), ("Gy/C", "Gy/C"), ("cGy/nC", "cGy/nC"))
+MODALITIES = (("photon", "photon"), ("electron", "electron"))
+#: "" is not sent: the chamber's type is only needed for an electron beam.
+CHAMBER_TYPES = (
+    ("not stated", ""),
+    ("cylindrical", "cylindrical"),
+    ("plane-parallel", "plane-parallel"),
+)
 
 #: (key, label, check, required) of the number entries of the calibration section.
 NUMBER_FIELDS: tuple[tuple[str, str, checks.Check, bool], ...] = (
@@ -75,7 +82,7 @@ OPTIONAL_TEXT: tuple[tuple[str, str], ...] = (
     ("notes", "Notes"),
 )
 #: Entries whose text is sent as a number (or, for the tolerance, a TG-142 name).
-NUMBER_KEYS = frozenset({"N_Dw", "tolerance_pct", *(entry[0] for entry in NUMBER_FIELDS)})
+NUMBER_KEYS = frozenset({"N_Dw", "tolerance_pct", "R50_cm", *(entry[0] for entry in NUMBER_FIELDS)})
 
 
 def check_date(value: str) -> object:
@@ -140,6 +147,25 @@ class SessionForm(Vertical):
         for key, label in OPTIONAL_TEXT:
             check = OPTIONAL_CHECKS.get(key)
             yield Field(f"{label} (optional)", key, _shown(value(key)), check=check)
+        yield from self._electron_entries()
+
+    def _electron_entries(self) -> ComposeResult:
+        """Yield the entries an electron beam needs: modality, R50, chamber type, k_Q source."""
+        value = self.defaults.get
+        yield Static(
+            "Electron beam (R50, chamber, k_Q source)", classes="section-title", markup=False
+        )
+        yield ChoiceField("Modality", "modality", MODALITIES, value("modality") or "photon")
+        yield Field(
+            "R50 cm (electrons)",
+            "R50_cm",
+            _shown(value("R50_cm")),
+            check=checks.optional(checks.in_range("R50_cm", limits.R50_CM)),
+        )
+        yield ChoiceField(
+            "Chamber type", "chamber_type", CHAMBER_TYPES, value("chamber_type") or ""
+        )
+        yield Field("k_Q source", "k_Q_source", _shown(value("k_Q_source")))
 
     @on(Select.Changed, "#choice-N_Dw_unit")
     def unit_changed(self, event: Select.Changed) -> None:
@@ -173,7 +199,9 @@ class SessionForm(Vertical):
         if not all([field.recheck() for field in fields]):
             return None
         metadata: dict[str, Any] = {
-            choice_field.field_name: choice_field.value for choice_field in self.query(ChoiceField)
+            choice_field.field_name: choice_field.value
+            for choice_field in self.query(ChoiceField)
+            if choice_field.value
         }
         metadata["N_Dw_unit"] = self.N_Dw_unit
         for field in fields:
