@@ -1,7 +1,7 @@
 """The HTML report: parsed back, its figures compared with the store and hand-computed physics.
 
-The session is the invented example worksheet recorded through the Store API (Harbourside
-Cancer Centre, HCC-LA1 6 MV; not a real measurement).
+The session is the invented example worksheet recorded through the Store API (Example Clinic
+(fictional), DEMO-LINAC-1 6 MV; not a real measurement).
 """
 
 from __future__ import annotations
@@ -141,18 +141,18 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
         ["21.80", "100.600", "1006 hPa"],
     ]
     instrument = parsed.rows[("Session", "instrument")][1]
-    assert "serial EM-2093" in instrument and "model EM-1" in instrument
+    assert "serial SIM-EM-0001" in instrument and "model SIM-MODEL-1" in instrument
     audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
     superseded = [row for row in audit if row[2] == "set status"]
     assert len(superseded) == 1 and SUPERSEDE_REASON in superseded[0][3]
     manual = [row for row in audit if row[2] == "manual capture"]
     assert [row[1:] for row in manual] == [
-        ["R. Okafor", "manual capture", "-14.7770 nC in set 4 (opposite)"]
+        ["operator A", "manual capture", "-14.7770 nC in set 4 (opposite)"]
     ]
     assert any(row[2] == "session status" and "to: finished" in row[3] for row in audit)
     # The bias turned by hand is a manual step; the remote one is routine and left out.
     bias = [row[1:] for row in audit if row[2] == "bias changed"]
-    assert bias == [["R. Okafor", "bias changed", "how: by hand, volts: -300.0"]]
+    assert bias == [["operator A", "bias changed", "how: by hand, volts: -300.0"]]
 
 
 def test_a_session_with_a_pending_factor_says_so(tmp_path: Path) -> None:

@@ -1,7 +1,7 @@
 """Comparing a replay with its original, and writing a finished replay into the station.
 
 Sessions are the invented example worksheet recorded through the Store API
-(``recorded_session``: Harbourside Cancer Centre, demo data only).
+(``recorded_session``: Example Clinic (fictional), demo data only).
 """
 
 from __future__ import annotations
