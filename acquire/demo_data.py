@@ -1,7 +1,7 @@
 """Invented data for the demo only: our own clinic, machine, chamber and electrometer.
 
 Every name here is made up so that it cannot be taken for a real one: the clinic is called
-"Example Clinic (fictional)", its machines carry the prefix ``DEMO-`` (linac "DEMO-LINAC-1"), the
+"Example Clinic (fictional)", its machines carry the prefix ``DEMO-`` (linac "DEMO-LA1"), the
 serials of the chamber ("thimble 0.6 cc", SIM-CH-0001) and of the electrometer (SIM-EM-0001) the
 prefix ``SIM-``, and people appear only as roles ("demo operator", "operator A", "reviewer B"),
 never as personal names. The calibration numbers are plausible magnitudes for a 0.6 cc
@@ -14,7 +14,7 @@ from __future__ import annotations
 from typing import Any
 
 DEMO_METADATA: dict[str, Any] = {
-    "treatment_machine": "DEMO-LINAC-1",
+    "treatment_machine": "DEMO-LA1",
     "beam": "6 MV",
     "beam_type": "pulsed",
     "convention": "trs398",

@@ -7,7 +7,7 @@ data the store keeps, which validates again to the same value. Anything wrong ra
 
 Keys (required unless a default is shown)::
 
-    treatment_machine     "DEMO-LINAC-1"                   the treatment machine
+    treatment_machine     "DEMO-LA1"                   the treatment machine
     beam                  "6 MV"                      the beam, as the clinic names it
     beam_type             pulsed | pulsed-scanned | continuous   (recombination method)
     convention            trs398 | tg51               the code of practice followed

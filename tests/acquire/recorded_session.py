@@ -1,7 +1,7 @@
 """Build recorded sessions in a real store, through the Store API, for the read-side tests.
 
 The readings, environment and calibration are those of the invented example worksheet
-``acquire/examples/demo-linac-1-6mv.toml`` (the fictional Example Clinic, DEMO-LINAC-1, 6 MV; not
+``acquire/examples/demo-la1-6mv.toml`` (the fictional Example Clinic, DEMO-LA1, 6 MV; not
 a real measurement), laid out as the daemon records a session: a leakage set, a routine set with one
 settling reading, an opposite-polarity set redone once (the first attempt superseded, one
 reading captured by hand), a reduced-bias set, the instrument identity, two environment entries
@@ -29,9 +29,7 @@ SUPERSEDE_REASON = "chamber cable moved during the beam"
 
 def example() -> dict[str, Any]:
     """Return the example worksheet's contents (invented Example Clinic data)."""
-    text = (
-        resources.files("chargebook.acquire") / "examples" / "demo-linac-1-6mv.toml"
-    ).read_text()
+    text = (resources.files("chargebook.acquire") / "examples" / "demo-la1-6mv.toml").read_text()
     return tomllib.loads(text)
 
 

@@ -1,6 +1,6 @@
 """Carrying k_pol and k_s into an output check at session start, and history telling kinds apart.
 
-A real SQLite store holding the invented example (DEMO-LINAC-1 6 MV, recorded_session)
+A real SQLite store holding the invented example (DEMO-LA1 6 MV, recorded_session)
 as full calibrations; the output check is recorded as the engine records one. Check values are
 identities: the carried factor is the full calibration's own k_pol and k_s.
 """

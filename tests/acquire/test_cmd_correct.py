@@ -13,10 +13,10 @@ from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 GOOD = [
-    "demo-linac-1-6mv.toml",
-    "demo-linac-2-10fff.toml",
-    "demo-co-1-co60.json",
-    "demo-linac-1-6mv-monthly.toml",
+    "demo-la1-6mv.toml",
+    "demo-la2-10fff.toml",
+    "demo-co1-co60.json",
+    "demo-la1-6mv-monthly.toml",
 ]
 
 #: Keys the issue asks the JSON to hold (item 6).
@@ -82,12 +82,12 @@ def test_every_example_is_a_plausible_reference_measurement(name: str) -> None:
 
 
 def test_table_of_the_trs398_example() -> None:
-    done = correct(EXAMPLES / "demo-linac-1-6mv.toml")
+    done = correct(EXAMPLES / "demo-la1-6mv.toml")
     assert done.returncode == 0, done.stderr
     table = done.stdout
     for text in (
         "IAEA TRS-398",
-        "DEMO-LINAC-1",
+        "DEMO-LA1",
         "routine (+300 V)",
         "opposite polarity (-300 V)",
         "reduced bias (+100 V)",
@@ -107,7 +107,7 @@ def test_table_of_the_trs398_example() -> None:
 
 
 def test_table_of_the_tg51_example_uses_tg51_symbols_and_shows_conversions() -> None:
-    table = correct(EXAMPLES / "demo-linac-2-10fff.toml").stdout
+    table = correct(EXAMPLES / "demo-la2-10fff.toml").stdout
     for text in ("AAPM TG-51", "P_TP", "P_pol", "P_ion", "P_elec", "N_D,w^60Co", "D_w^Q"):
         assert text in table, text
     assert "pressure 1018.5 hPa = 101.85 kPa" in table
@@ -115,8 +115,8 @@ def test_table_of_the_tg51_example_uses_tg51_symbols_and_shows_conversions() -> 
 
 
 def test_the_json_and_the_table_agree() -> None:
-    result = json.loads(correct(EXAMPLES / "demo-co-1-co60.json", "--json").stdout)
-    table = correct(EXAMPLES / "demo-co-1-co60.json").stdout
+    result = json.loads(correct(EXAMPLES / "demo-co1-co60.json", "--json").stdout)
+    table = correct(EXAMPLES / "demo-co1-co60.json").stdout
     assert f"{result['dose_Gy']:.5g} Gy" in table
     assert "pressure 755 mmHg = 100.658 kPa" in table
 
@@ -233,7 +233,7 @@ def test_missing_file_exits_2(tmp_path: Path) -> None:
     ],
 )
 def test_monte_carlo_never_crashes_correct(tmp_path: Path, old: str, new: str) -> None:
-    text = (EXAMPLES / "demo-linac-1-6mv.toml").read_text(encoding="utf-8")
+    text = (EXAMPLES / "demo-la1-6mv.toml").read_text(encoding="utf-8")
     assert old in text
     sheet = tmp_path / "edge.toml"
     sheet.write_text(text.replace(old, new), encoding="utf-8")
@@ -248,7 +248,7 @@ def test_monte_carlo_never_crashes_correct(tmp_path: Path, old: str, new: str) -
 def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypatch) -> None:
     import io
 
-    path = EXAMPLES / "demo-linac-1-6mv.toml"
+    path = EXAMPLES / "demo-la1-6mv.toml"
     assert main(["correct", str(path), "--json"]) == EXIT_OK
     from_file = json.loads(capsys.readouterr().out)
     monkeypatch.setattr("sys.stdin", io.StringIO(path.read_text(encoding="utf-8")))
@@ -268,7 +268,7 @@ def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypa
 def test_flags_are_listed_worst_first_with_the_markers_the_console_uses(
     tmp_path: Path, capsys
 ) -> None:
-    text = (EXAMPLES / "demo-linac-1-6mv.toml").read_text(encoding="utf-8")
+    text = (EXAMPLES / "demo-la1-6mv.toml").read_text(encoding="utf-8")
     # Reduced-bias readings above the routine ones (k_s below 1: an error) and no k_elec
     # entered (stated for the record: info).
     text = text.replace("reduced_nC = [14.570, 14.567, 14.569]", "reduced_nC = [14.898, 14.899]")
@@ -327,8 +327,8 @@ K_S_LINE = 'k_s = { value = 1.006, source = "session 4, full calibration", date 
 
 
 def test_a_monthly_check_gives_a_dose_with_carried_factors_and_their_provenance() -> None:
-    result = json.loads(correct(EXAMPLES / "demo-linac-1-6mv-monthly.toml", "--json").stdout)
-    table = correct(EXAMPLES / "demo-linac-1-6mv-monthly.toml").stdout
+    result = json.loads(correct(EXAMPLES / "demo-la1-6mv-monthly.toml", "--json").stdout)
+    table = correct(EXAMPLES / "demo-la1-6mv-monthly.toml").stdout
     assert result["factor_states"]["k_pol"] == result["factor_states"]["k_s"] == "carried"
     assert result["carried"]["k_pol"]["date"] == "2026-03-02"
     assert result["carried"]["k_pol"]["age_days"] == 35

@@ -1,7 +1,7 @@
 """`chargebook show SESSION`: the stored session and its recomputed results, as text or JSON.
 
 The station is a real SQLite file holding the invented example worksheet (Example Clinic
-(fictional), DEMO-LINAC-1 6 MV) recorded through the Store API.
+(fictional), DEMO-LA1 6 MV) recorded through the Store API.
 """
 
 from __future__ import annotations

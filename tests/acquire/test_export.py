@@ -1,7 +1,7 @@
 """CSV and JSON exports, read back and compared with the store and with hand-computed physics.
 
 Sessions are recorded in a real SQLite file through the Store API with the readings of the
-invented example worksheet (Example Clinic (fictional), DEMO-LINAC-1 6 MV; not a real measurement).
+invented example worksheet (Example Clinic (fictional), DEMO-LA1 6 MV; not a real measurement).
 """
 
 from __future__ import annotations
@@ -168,7 +168,7 @@ def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
         session_id = store.create_session(
-            {"treatment_machine": "DEMO-LINAC-2"}, {"steps": []}, "tg51", "10 MV"
+            {"treatment_machine": "DEMO-LA2"}, {"steps": []}, "tg51", "10 MV"
         )
         set_id = store.add_set(session_id, 0, "routine", "routine", 1, 300.0, 1)
         store.add_reading(session_id, set_id, 1, 1.0, 14.2, "auto", False, "ok")

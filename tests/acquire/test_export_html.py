@@ -1,7 +1,7 @@
 """The HTML report: parsed back, its figures compared with the store and hand-computed physics.
 
 The session is the invented example worksheet recorded through the Store API (Example Clinic
-(fictional), DEMO-LINAC-1 6 MV; not a real measurement).
+(fictional), DEMO-LA1 6 MV; not a real measurement).
 """
 
 from __future__ import annotations

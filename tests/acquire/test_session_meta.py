@@ -31,7 +31,7 @@ DELETE = object()
 def test_a_complete_entry_is_accepted_and_keeps_its_values() -> None:
     meta = validate_metadata(HARBOURSIDE)
     assert isinstance(meta, SessionMetadata)
-    assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("DEMO-LINAC-1", "6 MV", "pulsed")
+    assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("DEMO-LA1", "6 MV", "pulsed")
     assert (meta.N_Dw, meta.N_Dw_unit, meta.N_Dw_Gy_per_nC) == (0.0538, "Gy/nC", 0.0538)
     assert meta.k_elec is None and meta.u_k_elec_pct is None and meta.tolerance_pct is None
     assert meta.conversions() == ()
@@ -165,7 +165,7 @@ def test_bad_entries_name_the_field_value_and_range(changes, field, words) -> No
 
 def test_not_a_table_is_refused() -> None:
     with pytest.raises(InputError, match=r"metadata .* is not a table"):
-        validate_metadata(["DEMO-LINAC-1", "6 MV"])
+        validate_metadata(["DEMO-LA1", "6 MV"])
 
 
 def test_user_components_and_the_certificate_k_reach_the_budget() -> None:

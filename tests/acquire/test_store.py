@@ -29,7 +29,7 @@ from hypothesis import strategies as st
 from sqlite_utils import Database
 
 # Invented demo scenario (our own clinic), not reference data.
-METADATA = {"treatment_machine": "DEMO-LINAC-1", "beam": "6 MV", "chamber_serial": "SIM-CH-0001"}
+METADATA = {"treatment_machine": "DEMO-LA1", "beam": "6 MV", "chamber_serial": "SIM-CH-0001"}
 NAN = float("nan")
 PLAN = {"name": "default", "steps": [{"key": "routine", "purpose": "routine"}]}
 
@@ -478,7 +478,7 @@ WRITER = textwrap.dedent(
     import os, sys
     from chargebook.acquire.store import Store
     store = Store.open(sys.argv[1])
-    session_id = store.create_session({"treatment_machine": "DEMO-LINAC-2"}, {"steps": []},
+    session_id = store.create_session({"treatment_machine": "DEMO-LA2"}, {"steps": []},
                                       "tg51", "6 MV")
     set_id = store.add_set(session_id, 0, "routine", "routine", 1, 300.0, 1)
     for seq in range(5):
@@ -509,7 +509,7 @@ def test_a_writer_that_dies_loses_nothing_and_the_session_resumes(tmp_path: Path
 
     with Store.open(path) as restarted:
         session = restarted.open_session()
-        assert session is not None and session.metadata() == {"treatment_machine": "DEMO-LINAC-2"}
+        assert session is not None and session.metadata() == {"treatment_machine": "DEMO-LA2"}
         readings = restarted.readings(session.id)
         assert [r.seq for r in readings] == announced
         assert [r.charge_nC for r in readings] == [20.5, 20.51, 20.52, 20.53, 20.54]
