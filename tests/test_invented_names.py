@@ -26,7 +26,7 @@ from chargebook.drivers_generic.simulator.scpi_server import ScpiResponder
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = ROOT / "acquire" / "examples"
 ROLE = re.compile(r"(demo operator|(operator|reviewer) [A-Z])")
-#: An initial, a full stop, a capitalised surname: "X. Surname". Not after a number and a space,
+#: An initial, a full stop, a space and a capitalised surname. Not after a number and a space,
 #: which is a unit ending a sentence ("+300 V. Deliver ...").
 PERSONAL_NAME = re.compile(r"(?<![0-9] )(?<![0-9])\b[A-Z]\. [A-Z][a-z]+")
 #: Authors of published methods cited by name in docs/physics.md (not invented people).
