@@ -277,7 +277,7 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     store.set_session_status(session_id, "interrupted", "daemon restarted", actor="daemon")
     interrupted = store.session(session_id)
     assert interrupted.closed_at is not None and interrupted.reason == "daemon restarted"
-    store.set_session_status(session_id, "open", "resumed", actor="reviewer D")
+    store.set_session_status(session_id, "open", "resumed", actor="reviewer B")
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
     closed, aborted = interrupted.closed_at, store.session(session_id).closed_at
@@ -288,7 +288,7 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
         {"from": "open", "to": "aborted", "reason": "beam fault", "closed_at": aborted},
     ]
     actors = [e.actor for e in store.events(session_id) if e.kind == "session_status"]
-    assert actors == ["daemon", "reviewer D", "daemon"]
+    assert actors == ["daemon", "reviewer B", "daemon"]
 
 
 def test_a_final_session_status_cannot_change(store: Store) -> None:
