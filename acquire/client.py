@@ -3,7 +3,7 @@
 Light on purpose: standard library and :mod:`chargebook.acquire.protocol` only, so the console
 and scripts can use it without pulling in the store or the drivers.
 
-    client = await DaemonClient.connect(socket_path, client="console", operator="A. Reyes")
+    client = await DaemonClient.connect(socket_path, client="console", operator="operator C")
     snapshot = await client.subscribe()          # notifications start now
     await client.call("environment.set", temperature_C=21.4, pressure=101.2)
     async for note in client.notifications():    # Notification(method, params)

@@ -75,7 +75,7 @@ def review_status(review: Review | None) -> str:
 
 
 def review_words(review: Review | None) -> str:
-    """Return the review in words: "approved by B. Lind on 2026-12-03 07:10 UTC" or
+    """Return the review in words: "approved by reviewer B on 2026-12-03 07:10 UTC" or
     "unreviewed"."""
     if review is None:
         return UNREVIEWED

@@ -7,14 +7,14 @@ data the store keeps, which validates again to the same value. Anything wrong ra
 
 Keys (required unless a default is shown)::
 
-    treatment_machine     "HCC-LA1"                   the treatment machine
+    treatment_machine     "DEMO-LA1"                   the treatment machine
     beam                  "6 MV"                      the beam, as the clinic names it
     beam_type             pulsed | pulsed-scanned | continuous   (recombination method)
     convention            trs398 | tg51               the code of practice followed
     chamber_model         "thimble 0.6 cc"
-    chamber_serial        "CH-4417"
+    chamber_serial        "SIM-CH-0001"
     electrometer_model    "..."
-    electrometer_serial   "EM-2093"
+    electrometer_serial   "SIM-EM-0001"
     operator              the person taking the measurement
     N_Dw                  calibration coefficient, in N_Dw_unit
     N_Dw_unit             Gy/nC (default) | Gy/C | cGy/nC; converted once to N_Dw_Gy_per_nC

@@ -1,7 +1,7 @@
 """Readings on the scale a report plots them: deviation from the set's mean in % of the mean,
 and the resolution the charges were recorded at.
 
-Pure: numpy only, no I/O. The report draws each set in % of its mean, with tick labels no finer
+Pure (numpy only, no I/O): the report draws each set in % of its mean, with tick labels no finer
 than the resolution of the readings as recorded (an instrument that reads to 0.001 nC cannot
 show a 0.0001 % step on a 15 nC mean).
 """

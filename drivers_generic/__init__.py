@@ -3,8 +3,8 @@
 The daemon needs two functions from here:
 
 ``open_electrometer(profile, port=..., resource=..., traffic=..., clock=...)``
-    Load a profile (a shipped name such as ``lumen-q``, or a path to a ``.toml`` file), build the
-    driver on a serial port (``port``) or a VISA resource (``resource``), open it and return it.
+    Load a profile (a shipped name such as ``query-plain``, or a path to a ``.toml`` file), build
+    the driver on a serial port (``port``) or a VISA resource (``resource``), open it and return it.
 ``reconnect(electrometer, attempts, backoff_s)``
     After InstrumentDisconnected, re-open with a growing pause between attempts.
 

@@ -5,8 +5,9 @@ are framed (terminators, encoding, the longest line accepted), how long to wait 
 retry, which commands exist (each a declaration: name, template, parser, validator, unit), what a
 reading line looks like (a regular expression with named groups ``value``, ``unit``, ``status``),
 and how the instrument confirms or refuses a command. A new electrometer is a new profile, not new
-code. The shipped profiles live in ``drivers_generic/profiles/``; see ``lumen-q.toml`` for a fully
-commented example.
+code. The shipped profiles live in ``drivers_generic/profiles/``; see ``query-plain.toml`` for a
+fully commented example. Each is named for its dialect; the names of the first release still work
+for one more release (``profile_aliases``).
 
 Some fields (``format`` strings) describe what the instrument *writes*; the driver never uses
 them, the simulated electrometer does, so that it speaks the dialect of the profile it was given.
@@ -22,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.drivers_generic.interface import Capability, ReadingStatus, SettingOutOfRange
+from chargebook.drivers_generic.profile_aliases import current_profile_name
 
 PROFILE_DIR = Path(__file__).with_name("profiles")
 
@@ -227,13 +229,13 @@ def available_profiles() -> list[str]:
 
 
 def resolve_profile_path(profile: str | Path) -> Path:
-    """Return the file of a profile given by shipped name or by path."""
+    """Return the file of a profile given by shipped name (an old name too) or by path."""
     path = Path(profile)
     if path.suffix == ".toml" or path.exists():
         if not path.is_file():
             raise ProfileError(str(profile), "path", str(profile), "an existing .toml file")
         return path
-    shipped = PROFILE_DIR / f"{profile}.toml"
+    shipped = PROFILE_DIR / f"{current_profile_name(str(profile))}.toml"
     if not shipped.is_file():
         names = ", ".join(available_profiles())
         raise ProfileError(str(profile), "name", str(profile), f"one of {names}, or a .toml path")
@@ -241,7 +243,7 @@ def resolve_profile_path(profile: str | Path) -> Path:
 
 
 def load_profile(profile: str | Path) -> Profile:
-    """Return the profile given by shipped name (``lumen-q``) or by path, strictly validated."""
+    """Return the profile given by shipped name (``query-plain``) or by path, strictly validated."""
     path = resolve_profile_path(profile)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))

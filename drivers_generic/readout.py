@@ -1,6 +1,6 @@
 """Read a few captures through a driver and print them: the quickest check of a wire.
 
-    python -m chargebook.drivers_generic.readout --profile lumen-q \\
+    python -m chargebook.drivers_generic.readout --profile query-plain \\
         --port /tmp/chargebook-sim-XXXX/electrometer --bench /tmp/chargebook-sim-XXXX/control.sock
 
 Each capture zeroes the integrator, starts it, has the beam delivered, and takes the reading:

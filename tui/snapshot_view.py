@@ -322,7 +322,7 @@ def instrument_text(snapshot: Snapshot) -> str:
 
 
 def session_text(snapshot: Snapshot) -> str:
-    """Return "Session 12 · HCC-LA1 6 MV · taking readings" (or "No session open")."""
+    """Return "Session 12 · DEMO-LA1 6 MV · taking readings" (or "No session open")."""
     session = snapshot.get("session")
     state = text.state(str(snapshot.get("state", "idle")))
     if not session:

@@ -19,7 +19,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("--seed", type=int, default=1, help="the simulator's seed (default 1)")
     parser.add_argument(
-        "--profile", default="lumen-q", help="the simulated instrument's dialect (default lumen-q)"
+        "--profile",
+        default="query-plain",
+        help="the simulated instrument's dialect (default query-plain)",
     )
     parser.add_argument(
         "--db", metavar="FILE", help="demo database (default <data dir>/chargebook/demo.sqlite)"

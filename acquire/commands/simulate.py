@@ -22,7 +22,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="serve SCPI on 127.0.0.1:PORT (0 picks a free port)",
     )
     parser.add_argument(
-        "--profile", default="lumen-q", help="the dialect spoken on the pty (default lumen-q)"
+        "--profile",
+        default="query-plain",
+        help="the dialect spoken on the pty (default query-plain)",
     )
     parser.add_argument("--seed", type=int, default=1, help="seed of the noise (default 1)")
     parser.add_argument(

@@ -46,7 +46,7 @@ class SimulatorOptions:
 
     serial: bool = True
     scpi_port: int | None = None
-    profile: str = "lumen-q"
+    profile: str = "query-plain"
     seed: int = 1
     time_scale: float = 1.0
     temperature_C: float = 21.5

@@ -27,7 +27,7 @@ from chargebook.drivers_generic.simulator.device import (
 
 SIMULATOR_MANUFACTURER = "chargebook-sim"
 SIMULATOR_FIRMWARE = "0.1.0"
-DEFAULT_SERIAL_NUMBER = "EM-2093"
+DEFAULT_SERIAL_NUMBER = "SIM-EM-0001"
 
 #: Error meanings the simulator may need to report, looked up in the profile's error table.
 UNKNOWN_COMMAND = "unknown command"

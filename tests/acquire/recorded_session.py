@@ -1,8 +1,8 @@
 """Build recorded sessions in a real store, through the Store API, for the read-side tests.
 
 The readings, environment and calibration are those of the invented example worksheet
-``acquire/examples/hcc-la1-6mv.toml`` (Harbourside Cancer Centre, HCC-LA1, 6 MV; not a real
-measurement), laid out as the daemon records a session: a leakage set, a routine set with one
+``acquire/examples/demo-la1-6mv.toml`` (the fictional Example Clinic, DEMO-LA1, 6 MV; not
+a real measurement), laid out as the daemon records a session: a leakage set, a routine set with one
 settling reading, an opposite-polarity set redone once (the first attempt superseded, one
 reading captured by hand), a reduced-bias set, the instrument identity, two environment entries
 (the pressure typed in hPa) and the events the daemon writes.
@@ -19,7 +19,7 @@ from chargebook.acquire.plan import Plan, SettlingRule, Step
 from chargebook.acquire.session_meta import validate_metadata
 from chargebook.acquire.store import Store
 
-OPERATOR = "R. Okafor"
+OPERATOR = "operator A"
 ROUTINE_INTEGRATION_S = 6.0
 LEAKAGE_DURATION_S = 60.0
 SETTLING_READING_nC = 14.790
@@ -28,8 +28,8 @@ SUPERSEDE_REASON = "chamber cable moved during the beam"
 
 
 def example() -> dict[str, Any]:
-    """Return the example worksheet's contents (invented Harbourside data)."""
-    text = (resources.files("chargebook.acquire") / "examples" / "hcc-la1-6mv.toml").read_text()
+    """Return the example worksheet's contents (invented Example Clinic data)."""
+    text = (resources.files("chargebook.acquire") / "examples" / "demo-la1-6mv.toml").read_text()
     return tomllib.loads(text)
 
 
@@ -40,7 +40,7 @@ def example_plan() -> Plan:
     reduced_V = float(data["bias"]["reduced_V"])
     mu = float(data["calibration"]["monitor_units"])
     return Plan(
-        "harbourside-example",
+        "example-clinic",
         (
             Step("leakage", "leakage", 1, routine_V, 1, 0.0, duration_s=LEAKAGE_DURATION_S),
             Step("routine", "routine", 1, routine_V, 5, mu, SettlingRule(discard_first=1)),
@@ -61,7 +61,7 @@ def required_metadata() -> dict[str, Any]:
         "beam_type": data["beam"],
         "convention": data["convention"],
         "chamber_model": "thimble 0.6 cc",
-        "chamber_serial": "CH-4417",
+        "chamber_serial": "SIM-CH-0001",
         "electrometer_model": "bench electrometer",
         "electrometer_serial": data["session"]["electrometer"],
         "operator": data["session"]["operator"],
@@ -140,7 +140,12 @@ def record_example_session(
         session_id,
         "daemon",
         "instrument_identified",
-        {"manufacturer": "Bench", "model": "EM-1", "serial": "EM-2093", "firmware": "1.4"},
+        {
+            "manufacturer": "Bench",
+            "model": "SIM-MODEL-1",
+            "serial": "SIM-EM-0001",
+            "firmware": "1.4",
+        },
     )
     env = data["environment"]
     store.add_environment(
@@ -180,7 +185,7 @@ def record_example_session(
     _readings(store, session_id, reduced, [q * scale for q in readings["reduced_nC"]])
     _accept(store, reduced)
 
-    for line in (b"*IDN?\n", b"Bench,EM-1,EM-2093,1.4\r\n"):
+    for line in (b"*IDN?\n", b"Bench,SIM-MODEL-1,SIM-EM-0001,1.4\r\n"):
         store.add_traffic(session_id, 0.5, "tx" if line.startswith(b"*") else "rx", line)
     if status != "open":
         store.set_session_status(session_id, status, "plan complete", actor=OPERATOR)

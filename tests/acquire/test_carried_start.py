@@ -1,6 +1,6 @@
 """Carrying k_pol and k_s into an output check at session start, and history telling kinds apart.
 
-A real SQLite store holding the invented example (Harbourside HCC-LA1 6 MV, recorded_session)
+A real SQLite store holding the invented example (DEMO-LA1 6 MV, recorded_session)
 as full calibrations; the output check is recorded as the engine records one. Check values are
 identities: the carried factor is the full calibration's own k_pol and k_s.
 """
@@ -51,7 +51,7 @@ def test_the_last_finished_full_calibration_of_the_same_chamber_is_carried(store
     second = record_example_session(store, scale=1.002)
     record_example_session(store, status="aborted")
     record_example_session(store, replay_of=second)
-    record_example_session(store, chamber_serial="CH-0001")
+    record_example_session(store, chamber_serial="SIM-CH-0002")
     metadata = carried_metadata(store, example_metadata(), MONTHLY, TODAY)
     full = evaluate_session(store, second).evaluation
     assert first != second
@@ -95,8 +95,8 @@ def test_an_output_checks_record_keeps_its_copy_and_history_tells_kinds_apart(
 
 
 def test_a_factor_from_another_chamber_or_electrometer_is_refused(store: Store) -> None:
-    record_example_session(store, chamber_serial="CH-0001")
-    record_example_session(store, electrometer_serial="EM-0001")
+    record_example_session(store, chamber_serial="SIM-CH-0002")
+    record_example_session(store, electrometer_serial="SIM-EM-0002")
     metadata = carried_metadata(store, example_metadata(), MONTHLY, TODAY)
     assert metadata["carried_k_pol"] is None and metadata["carried_k_s"] is None  # pending
     entered = {"value": 1.001, "source": "report 2026-03", "date": "2026-03-02"}
@@ -104,7 +104,7 @@ def test_a_factor_from_another_chamber_or_electrometer_is_refused(store: Store) 
         InputError, match=r"carried_k_s\.electrometer_serial .*another electrometer"
     ):
         example_metadata(
-            carried_k_pol=entered, carried_k_s={**entered, "electrometer_serial": "EM-1"}
+            carried_k_pol=entered, carried_k_s={**entered, "electrometer_serial": "SIM-EM-0003"}
         )
     with pytest.raises(InputError, match=r"carried_k_pol\.date .*is in the future"):
         example_metadata(carried_k_pol={**entered, "date": "2099-01-01"})

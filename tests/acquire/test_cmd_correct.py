@@ -13,11 +13,11 @@ from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 GOOD = [
-    "hcc-la1-6mv.toml",
-    "hcc-la2-10fff.toml",
-    "hcc-co60.json",
-    "hcc-la1-6mv-monthly.toml",
-    "hcc-la1-10mev.toml",
+    "demo-la1-6mv.toml",
+    "demo-la2-10fff.toml",
+    "demo-co1-co60.json",
+    "demo-la1-6mv-monthly.toml",
+    "demo-la1-10mev.toml",
 ]
 
 #: Keys the issue asks the JSON to hold (item 6).
@@ -83,12 +83,12 @@ def test_every_example_is_a_plausible_reference_measurement(name: str) -> None:
 
 
 def test_table_of_the_trs398_example() -> None:
-    done = correct(EXAMPLES / "hcc-la1-6mv.toml")
+    done = correct(EXAMPLES / "demo-la1-6mv.toml")
     assert done.returncode == 0, done.stderr
     table = done.stdout
     for text in (
         "IAEA TRS-398",
-        "HCC-LA1",
+        "DEMO-LA1",
         "routine (+300 V)",
         "opposite polarity (-300 V)",
         "reduced bias (+100 V)",
@@ -108,7 +108,7 @@ def test_table_of_the_trs398_example() -> None:
 
 
 def test_table_of_the_tg51_example_uses_tg51_symbols_and_shows_conversions() -> None:
-    table = correct(EXAMPLES / "hcc-la2-10fff.toml").stdout
+    table = correct(EXAMPLES / "demo-la2-10fff.toml").stdout
     for text in ("AAPM TG-51", "P_TP", "P_pol", "P_ion", "P_elec", "N_D,w^60Co", "D_w^Q"):
         assert text in table, text
     assert "pressure 1018.5 hPa = 101.85 kPa" in table
@@ -116,8 +116,8 @@ def test_table_of_the_tg51_example_uses_tg51_symbols_and_shows_conversions() -> 
 
 
 def test_the_json_and_the_table_agree() -> None:
-    result = json.loads(correct(EXAMPLES / "hcc-co60.json", "--json").stdout)
-    table = correct(EXAMPLES / "hcc-co60.json").stdout
+    result = json.loads(correct(EXAMPLES / "demo-co1-co60.json", "--json").stdout)
+    table = correct(EXAMPLES / "demo-co1-co60.json").stdout
     assert f"{result['dose_Gy']:.5g} Gy" in table
     assert "pressure 755 mmHg = 100.658 kPa" in table
 
@@ -234,7 +234,7 @@ def test_missing_file_exits_2(tmp_path: Path) -> None:
     ],
 )
 def test_monte_carlo_never_crashes_correct(tmp_path: Path, old: str, new: str) -> None:
-    text = (EXAMPLES / "hcc-la1-6mv.toml").read_text(encoding="utf-8")
+    text = (EXAMPLES / "demo-la1-6mv.toml").read_text(encoding="utf-8")
     assert old in text
     sheet = tmp_path / "edge.toml"
     sheet.write_text(text.replace(old, new), encoding="utf-8")
@@ -249,7 +249,7 @@ def test_monte_carlo_never_crashes_correct(tmp_path: Path, old: str, new: str) -
 def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypatch) -> None:
     import io
 
-    path = EXAMPLES / "hcc-la1-6mv.toml"
+    path = EXAMPLES / "demo-la1-6mv.toml"
     assert main(["correct", str(path), "--json"]) == EXIT_OK
     from_file = json.loads(capsys.readouterr().out)
     monkeypatch.setattr("sys.stdin", io.StringIO(path.read_text(encoding="utf-8")))
@@ -269,7 +269,7 @@ def test_a_worksheet_on_stdin_gives_the_same_result_as_the_file(capsys, monkeypa
 def test_flags_are_listed_worst_first_with_the_markers_the_console_uses(
     tmp_path: Path, capsys
 ) -> None:
-    text = (EXAMPLES / "hcc-la1-6mv.toml").read_text(encoding="utf-8")
+    text = (EXAMPLES / "demo-la1-6mv.toml").read_text(encoding="utf-8")
     # Reduced-bias readings above the routine ones (k_s below 1: an error) and no k_elec
     # entered (stated for the record: info).
     text = text.replace("reduced_nC = [14.570, 14.567, 14.569]", "reduced_nC = [14.898, 14.899]")
@@ -324,10 +324,10 @@ def test_html_report_of_a_worksheet_puts_the_result_first_and_names_the_file(
     from test_export_html import Report
 
     target = tmp_path / "report.html"
-    finished = correct(EXAMPLES / "hcc-la1-6mv.toml", "--html", "-o", target)
+    finished = correct(EXAMPLES / "demo-la1-6mv.toml", "--html", "-o", target)
     assert finished.returncode == EXIT_OK, finished.stderr
     assert finished.stdout == "" and f"wrote {target}" in finished.stderr
-    as_json = json.loads(correct(EXAMPLES / "hcc-la1-6mv.toml", "--json").stdout)
+    as_json = json.loads(correct(EXAMPLES / "demo-la1-6mv.toml", "--json").stdout)
     html = target.read_text(encoding="utf-8")
     parsed = Report()
     parsed.feed(html)
@@ -336,8 +336,8 @@ def test_html_report_of_a_worksheet_puts_the_result_first_and_names_the_file(
     assert parsed.rows[("Result", "dose_per_MU_cGy")][1] == (
         f"{as_json['dose_per_MU_cGy']:.4f} cGy/MU"
     )
-    assert parsed.rows[("Result", "worksheet")][1].startswith("hcc-la1-6mv.toml (no session id")
-    assert '@top-left { content: "chargebook worksheet hcc-la1-6mv.toml"' in html
+    assert parsed.rows[("Result", "worksheet")][1].startswith("demo-la1-6mv.toml (no session id")
+    assert '@top-left { content: "chargebook worksheet demo-la1-6mv.toml"' in html
     # The example's monitor_units (100 MU per reading) in every set; one plot per set.
     assert [
         parsed.rows[("Reading sets", f"set-{k}")][2] for k in ("routine", "opposite", "reduced")
@@ -347,7 +347,7 @@ def test_html_report_of_a_worksheet_puts_the_result_first_and_names_the_file(
 
 
 def test_json_and_html_cannot_both_be_asked_for() -> None:
-    finished = correct(EXAMPLES / "hcc-la1-6mv.toml", "--json", "--html")
+    finished = correct(EXAMPLES / "demo-la1-6mv.toml", "--json", "--html")
     assert finished.returncode == 2 and "not allowed with argument" in finished.stderr
 
 
@@ -361,8 +361,8 @@ K_S_LINE = 'k_s = { value = 1.006, source = "session 4, full calibration", date 
 
 
 def test_a_monthly_check_gives_a_dose_with_carried_factors_and_their_provenance() -> None:
-    result = json.loads(correct(EXAMPLES / "hcc-la1-6mv-monthly.toml", "--json").stdout)
-    table = correct(EXAMPLES / "hcc-la1-6mv-monthly.toml").stdout
+    result = json.loads(correct(EXAMPLES / "demo-la1-6mv-monthly.toml", "--json").stdout)
+    table = correct(EXAMPLES / "demo-la1-6mv-monthly.toml").stdout
     assert result["factor_states"]["k_pol"] == result["factor_states"]["k_s"] == "carried"
     assert result["carried"]["k_pol"]["date"] == "2026-03-02"
     assert result["carried"]["k_pol"]["age_days"] == 35
@@ -434,14 +434,14 @@ PHOTON_WORDS = ("TPR", "%dd", "dd(10)", "photon", " MV")
 
 
 def test_the_electron_example_shows_R50_and_z_ref_and_no_photon_wording() -> None:
-    table = correct(EXAMPLES / "hcc-la1-10mev.toml")
+    table = correct(EXAMPLES / "demo-la1-10mev.toml")
     assert table.returncode == 0, table.stderr
     # z_ref = 0.6 R50 − 0.1 cm: IAEA TRS-398 (2000) electron beams and AAPM TG-51 (1999) d_ref.
     assert "modality     electron; R50 = 4.2 cm, z_ref = 2.42 cm" in table.stdout
     assert "chamber type plane-parallel" in table.stdout
     assert "TRS-398 electron table for this chamber model" in table.stdout  # k_Q's source
     assert not [word for word in PHOTON_WORDS if word.lower() in table.stdout.lower()]
-    result = json.loads(correct(EXAMPLES / "hcc-la1-10mev.toml", "--json").stdout)
+    result = json.loads(correct(EXAMPLES / "demo-la1-10mev.toml", "--json").stdout)
     assert (result["modality"], result["R50_cm"], result["chamber_type"]) == (
         "electron",
         4.2,

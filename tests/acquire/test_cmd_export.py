@@ -1,7 +1,7 @@
 """`chargebook export SESSION --format csv|json|html`: files written whole, read back.
 
-The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
-Centre, HCC-LA1 6 MV) recorded through the Store API.
+The station is a real SQLite file holding the invented example worksheet (Example Clinic
+(fictional), DEMO-LA1 6 MV) recorded through the Store API.
 """
 
 from __future__ import annotations
@@ -49,7 +49,10 @@ def test_json_with_traffic(station: Path, tmp_path: Path) -> None:
     argv = ["export", "1", "--format", "json", "--traffic", "-o", str(target)]
     assert main([*argv, "--db", str(station)]) == EXIT_OK
     data = json.loads(target.read_text(encoding="utf-8"))
-    assert [t["line"] for t in data["traffic"]] == ["*IDN?\n", "Bench,EM-1,EM-2093,1.4\r\n"]
+    assert [t["line"] for t in data["traffic"]] == [
+        "*IDN?\n",
+        "Bench,SIM-MODEL-1,SIM-EM-0001,1.4\r\n",
+    ]
 
 
 def test_a_format_must_be_chosen_from_the_list(station: Path, capsys) -> None:

@@ -1,9 +1,9 @@
 """`chargebook history --beam NAME`: table, terminal plot, JSON and HTML.
 
-The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
-Centre, HCC-LA1 6 MV) recorded several times with every charge scaled by a known factor, so
-that the deviation from the first session is 100 (s − 1) % (dose is proportional to the charge
-in the TRS-398 formalism; k_pol and k_s depend only on charge ratios).
+The station is a real SQLite file holding the invented example worksheet (Example Clinic
+(fictional), DEMO-LA1 6 MV) recorded several times with every charge scaled by a known
+factor, so that the deviation from the first session is 100 (s − 1) % (dose is proportional to
+the charge in the TRS-398 formalism; k_pol and k_s depend only on charge ratios).
 """
 
 from __future__ import annotations

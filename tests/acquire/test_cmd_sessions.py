@@ -1,7 +1,7 @@
 """`chargebook sessions`, and what every read-side command shares (--db, read-only, errors).
 
-The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
-Centre) recorded through the Store API.
+The station is a real SQLite file holding the invented example worksheet (Example Clinic
+(fictional)) recorded through the Store API.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ def station(tmp_path: Path) -> Path:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
         record_example_session(store)
-        record_example_session(store, status="open", treatment_machine="HCC-LA2")
+        record_example_session(store, status="open", treatment_machine="DEMO-LA2")
         record_example_session(store, beam="10 MV", k_Q=0.98)
     return path
 
@@ -34,7 +34,7 @@ def test_lists_every_session_as_a_table(station: Path, capsys) -> None:
     body = [line.split() for line in lines[2:]]
     assert [row[0] for row in body] == ["1", "2", "3"]
     assert [row[4] for row in body] == ["finished", "open", "finished"]
-    assert "4/5 accepted" in lines[2] and "HCC-LA2" in lines[3]
+    assert "4/5 accepted" in lines[2] and "DEMO-LA2" in lines[3]
 
 
 def test_json_and_filters(station: Path, capsys) -> None:
@@ -46,7 +46,7 @@ def test_json_and_filters(station: Path, capsys) -> None:
         assert rows[0]["sets"] == len(store.sets(1))
     assert main(["sessions", "--db", str(station), "--json", "--beam", "6 mv"]) == EXIT_OK
     assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [1, 2]
-    assert main(["sessions", "--db", str(station), "--json", "--machine", "HCC-LA2"]) == EXIT_OK
+    assert main(["sessions", "--db", str(station), "--json", "--machine", "DEMO-LA2"]) == EXIT_OK
     assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [2]
 
 

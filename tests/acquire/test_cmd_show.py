@@ -1,7 +1,7 @@
 """`chargebook show SESSION`: the stored session and its recomputed results, as text or JSON.
 
-The station is a real SQLite file holding the invented example worksheet (Harbourside Cancer
-Centre, HCC-LA1 6 MV) recorded through the Store API.
+The station is a real SQLite file holding the invented example worksheet (Example Clinic
+(fictional), DEMO-LA1 6 MV) recorded through the Store API.
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ def test_text_shows_every_section_and_the_results(station: Path, capsys) -> None
     )
     assert _value(out, "within tolerance") == "yes"
     assert SUPERSEDE_REASON in out
-    assert "Instrument as identified" in out and "serial EM-2093" in out
+    assert "Instrument as identified" in out and "serial SIM-EM-0001" in out
     assert out.rstrip().endswith(CAUTION)
 
 

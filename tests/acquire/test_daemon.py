@@ -12,7 +12,9 @@ from chargebook.acquire.store import Store
 
 
 def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(tmp_path: Path):
-    daemon = Daemon(DaemonOptions("lumen-q", tmp_path / "s.sqlite", tmp_path / "run" / "d.sock"))
+    daemon = Daemon(
+        DaemonOptions("query-plain", tmp_path / "s.sqlite", tmp_path / "run" / "d.sock")
+    )
     daemon.engine = Engine(Store.memory())
     daemon._lines_not_writable("the disk is full", 1_000)
     assert daemon.engine.record_fault == (

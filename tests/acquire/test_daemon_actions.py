@@ -25,7 +25,7 @@ from tests.acquire.test_engine import small_plan
 def daemon_on_file(tmp_path: Path) -> Daemon:
     """Return a daemon (not running) with its station file open."""
     options = DaemonOptions(
-        profile="lumen-q",
+        profile="query-plain",
         db_path=tmp_path / "station.sqlite",
         socket_path=tmp_path / "run" / "daemon.sock",
     )
@@ -39,7 +39,7 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
 ) -> None:
     daemon = daemon_on_file(tmp_path)
     options = daemon.options
-    profile = load_profile("lumen-q")
+    profile = load_profile("query-plain")
     daemon.engine = Engine(
         daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
     )
@@ -60,7 +60,7 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
         if note.method == NOTIFY_SNAPSHOT:
             published.append(note.params)
 
-    client = await DaemonClient.connect(options.socket_path, operator="R. Okafor")
+    client = await DaemonClient.connect(options.socket_path, operator="operator A")
     try:
         client.add_listener(heard)
         await client.subscribe()

@@ -70,14 +70,14 @@ def deliver(engine: Engine, clock: Clock, charge_nC: float) -> None:
 
 
 def started(engine: Engine, plan: Plan | None = None) -> int:
-    session_id = engine.start_session(METADATA, plan or small_plan(), actor="R. Okafor")
-    engine.set_environment(20.0, 101.325, actor="R. Okafor")
+    session_id = engine.start_session(METADATA, plan or small_plan(), actor="operator A")
+    engine.set_environment(20.0, 101.325, actor="operator A")
     return session_id
 
 
 def take_set(engine: Engine, clock: Clock, charges: list[float]) -> None:
     if engine.pending_manual is not None:
-        engine.manual_done(actor="R. Okafor")
+        engine.manual_done(actor="operator A")
     engine.arm()
     for charge in charges:
         deliver(engine, clock, charge)
@@ -150,10 +150,10 @@ def test_arming_waits_for_the_environment_and_for_the_manual_bias_step():
     assert engine.snapshot()["prompt"]["kind"] == "manual"
     with pytest.raises(IllegalTransition, match="manual step"):
         engine.arm()
-    engine.manual_done(note="switch at +300 V", actor="R. Okafor")
+    engine.manual_done(note="switch at +300 V", actor="operator A")
     assert Method.STEP_ARM in engine.allowed()
     events = [e for e in engine.store.events(engine.session_id) if e.kind == "manual_step_done"]
-    assert events[0].actor == "R. Okafor" and events[0].detail()["by_hand"] is True
+    assert events[0].actor == "operator A" and events[0].detail()["by_hand"] is True
 
 
 def test_bad_environment_is_refused_naming_the_field_and_loses_nothing():
@@ -261,7 +261,7 @@ def test_instrument_lost_mid_set_interrupts_it_and_the_set_can_be_continued():
     assert engine.state is S.INTERRUPTED
     assert Method.STEP_ARM not in engine.allowed()  # not while it is away
     assert engine.store.sets(session_id)[0].status == "interrupted"
-    engine.instrument_back("EM-2093")
+    engine.instrument_back("SIM-EM-0001")
     engine.arm()  # continue the same set
     deliver(engine, clock, 20.01)
     deliver(engine, clock, 19.99)
@@ -419,7 +419,7 @@ def test_a_capture_whose_commit_fails_changes_nothing_and_is_taken_again_once_it
     # a real SQLite refusal to write (the connection made read-only), not a mock
     engine, clock = make_engine()
     started(engine)
-    engine.manual_done(actor="R. Okafor")
+    engine.manual_done(actor="operator A")
     engine.arm()
     for i in range(1, 11):  # the beam: the charge rises to 20 nC, then holds
         clock.now += 0.1

@@ -24,7 +24,7 @@ from chargebook.drivers_generic.interface import Capability
 from tests.acquire.test_engine import CAPTURE, METADATA, Clock, deliver, small_plan
 
 S = EngineState
-OPERATOR = "R. Okafor"
+OPERATOR = "operator A"
 
 
 def file_engine(tmp_path: Path, **kwargs) -> tuple[Engine, Clock]:
@@ -85,7 +85,7 @@ def test_every_operator_action_is_one_commit(tmp_path: Path) -> None:
     one_commit(engine, lambda: engine.pause(actor=OPERATOR))
     one_commit(engine, lambda: engine.resume(actor=OPERATOR))
     one_commit(engine, lambda: engine.instrument_lost("the serial port went away"))
-    one_commit(engine, lambda: engine.instrument_back("EM-2093"))
+    one_commit(engine, lambda: engine.instrument_back("SIM-EM-0001"))
     one_commit(engine, lambda: engine.redo("cable checked", actor=OPERATOR))
     one_commit(engine, lambda: engine.stop("only the routine output was needed", actor=OPERATOR))
     one_commit(engine, lambda: engine.close(actor=OPERATOR))

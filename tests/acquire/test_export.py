@@ -1,7 +1,7 @@
 """CSV and JSON exports, read back and compared with the store and with hand-computed physics.
 
 Sessions are recorded in a real SQLite file through the Store API with the readings of the
-invented example worksheet (Harbourside Cancer Centre, HCC-LA1 6 MV; not a real measurement).
+invented example worksheet (Example Clinic (fictional), DEMO-LA1 6 MV; not a real measurement).
 """
 
 from __future__ import annotations
@@ -128,7 +128,7 @@ def test_json_session_sets_and_readings_match_the_store(reader: Store) -> None:
     assert [e["kind"] for e in data["events"]] == [e.kind for e in reader.events(1)]
     assert data["events"][0]["detail"] == reader.events(1)[0].detail()
     assert [e["pressure_unit"] for e in data["environment"]] == ["hPa", "hPa"]
-    assert data["instrument"]["serial"] == "EM-2093"
+    assert data["instrument"]["serial"] == "SIM-EM-0001"
     assert data["traffic_lines"] == 2 and "traffic" not in data
 
 
@@ -147,28 +147,28 @@ def test_json_with_traffic_keeps_the_raw_lines(reader: Store) -> None:
     data = _strict(to_json(load_record(reader, 1), reader, include_traffic=True))
     assert [(t["direction"], t["line"]) for t in data["traffic"]] == [
         ("tx", "*IDN?\n"),
-        ("rx", "Bench,EM-1,EM-2093,1.4\r\n"),
+        ("rx", "Bench,SIM-MODEL-1,SIM-EM-0001,1.4\r\n"),
     ]
 
 
 def test_an_identity_taken_before_the_session_opened_is_reported(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "old, EM-1000"})
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "sim, EM-2093"})
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "old, SIM-EM-1000"})
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "sim, SIM-EM-0001"})
         session_id = store.create_session({"beam": "6 MV"}, {"steps": []}, "trs398", "6 MV")
         store.set_session_status(session_id, "finished")
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "later, EM-3000"})
+        store.add_event(None, "daemon", "instrument_identified", {"identity": "later, SIM-EM-3000"})
     with Store.open(path, read_only=True) as store:
         data = _strict(to_json(load_record(store, session_id)))
-    assert data["instrument"] == {"identity": "sim, EM-2093"}
+    assert data["instrument"] == {"identity": "sim, SIM-EM-0001"}
 
 
 def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
         session_id = store.create_session(
-            {"treatment_machine": "HCC-LA2"}, {"steps": []}, "tg51", "10 MV"
+            {"treatment_machine": "DEMO-LA2"}, {"steps": []}, "tg51", "10 MV"
         )
         set_id = store.add_set(session_id, 0, "routine", "routine", 1, 300.0, 1)
         store.add_reading(session_id, set_id, 1, 1.0, 14.2, "auto", False, "ok")

@@ -1,7 +1,7 @@
 """The HTML report: parsed back, its figures compared with the store and hand-computed physics.
 
-The session is the invented example worksheet recorded through the Store API (Harbourside
-Cancer Centre, HCC-LA1 6 MV; not a real measurement).
+The session is the invented example worksheet recorded through the Store API (Example Clinic
+(fictional), DEMO-LA1 6 MV; not a real measurement).
 """
 
 from __future__ import annotations
@@ -153,7 +153,7 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
         ["21.80", "100.600", "1006 hPa"],
     ]
     instrument = parsed.rows[("Session", "instrument")][1]
-    assert "serial EM-2093" in instrument and "model EM-1" in instrument
+    assert "serial SIM-EM-0001" in instrument and "model SIM-MODEL-1" in instrument
     audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
     # In words, steps numbered from 1 as the console numbers them: the opposite-polarity set
     # is the plan's third step (step_index 2).
@@ -162,12 +162,12 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
     assert superseded[0][3] == f"attempt 1 (set 3) superseded, reason: {SUPERSEDE_REASON}"
     manual = [row for row in audit if row[2] == "manual capture"]
     assert [row[1:] for row in manual] == [
-        ["R. Okafor", "manual capture", "-14.7770 nC in set 4 (opposite)"]
+        ["operator A", "manual capture", "-14.7770 nC in set 4 (opposite)"]
     ]
     assert ["session finished", "was open, reason: plan complete"] in [row[2:] for row in audit]
     # The bias turned by hand is a manual step; the remote one is routine and left out.
     bias = [row[1:] for row in audit if row[2] == "bias changed by hand"]
-    assert bias == [["R. Okafor", "bias changed by hand", "to -300 V"]]
+    assert bias == [["operator A", "bias changed by hand", "to -300 V"]]
     assert not any("step_index" in cell or "step_key" in cell for row in audit for cell in row)
 
 
@@ -261,17 +261,17 @@ def test_a_recorded_review_fills_the_review_block_and_the_result(tmp_path: Path)
     with Store.open(path) as store:
         session_id = record_example_session(store)
         # A second, named person approves with a comment, as `chargebook review` records it.
-        record_review(store, session_id, "approve", "B. Lind", "k_s checked by hand")
+        record_review(store, session_id, "approve", "reviewer B", "k_s checked by hand")
     with Store.open(path, read_only=True) as store:
         record = load_record(store, session_id)
         reviewed_at = next(e for e in record.events if e.kind == "session_reviewed").recorded_at
         parsed = Report()
         parsed.feed(to_html(record))
     stamp = reviewed_at[:19].replace("T", " ") + " UTC"
-    assert parsed.rows[("Review and sign-off", "reviewed-by")] == ["B. Lind", stamp, ""]
-    assert parsed.rows[("Review and sign-off", "measured-by")][0] == "R. Okafor"
+    assert parsed.rows[("Review and sign-off", "reviewed-by")] == ["reviewer B", stamp, ""]
+    assert parsed.rows[("Review and sign-off", "measured-by")][0] == "operator A"
     assert parsed.rows[("Review and sign-off", "decision")] == ["approved: k_s checked by hand"]
-    assert parsed.rows[("Result", "review")][1] == f"approved by B. Lind on {stamp}"
+    assert parsed.rows[("Result", "review")][1] == f"approved by reviewer B on {stamp}"
 
 
 def test_a_failed_output_says_fail_first_and_lists_flags_worst_first(tmp_path: Path) -> None:

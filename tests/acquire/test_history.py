@@ -1,6 +1,6 @@
 """Output history of a beam: dose per MU by session, against a baseline and the tolerance.
 
-Sessions are the invented example worksheet (Harbourside Cancer Centre, HCC-LA1 6 MV) recorded
+Sessions are the invented example worksheet (Example Clinic (fictional), DEMO-LA1 6 MV) recorded
 through the Store API, with every charge scaled by a known factor. In the TRS-398 formalism
 D_w = M_raw · k_TP · k_pol · k_s · k_elec · N_D,w · k_Q, and k_pol and k_s depend only on ratios
 of charges, so scaling every charge by s scales the dose by s: the deviation of a session from
@@ -34,7 +34,7 @@ def store(tmp_path_factory: pytest.TempPathFactory) -> Store:
         record_example_session(writer, scale=1.5, status="aborted")
         record_example_session(writer, scale=1.0, replay_of=ids[0])
         record_example_session(writer, beam="10 MV", k_Q=0.98)
-        record_example_session(writer, treatment_machine="HCC-LA2", scale=1.003)
+        record_example_session(writer, treatment_machine="DEMO-LA2", scale=1.003)
     reader = Store.open(path, read_only=True)
     yield reader
     reader.close()
@@ -48,13 +48,13 @@ def test_finished_sessions_of_the_beam_are_listed_in_order(store: Store) -> None
     history = load_history(store, "6 mv")
     assert [p.session_id for p in history.points] == [1, 2, 3, 4, 8]
     assert {p.beam for p in history.points} == {"6 MV"}
-    assert [p.machine for p in history.points] == ["HCC-LA1"] * 4 + ["HCC-LA2"]
-    on_la1 = load_history(store, "6 MV", machine="hcc-la1")
+    assert [p.machine for p in history.points] == ["DEMO-LA1"] * 4 + ["DEMO-LA2"]
+    on_la1 = load_history(store, "6 MV", machine="demo-la1")
     assert [p.session_id for p in on_la1.points] == [1, 2, 3, 4]
 
 
 def test_deviation_from_the_first_session_is_the_charge_scale(store: Store) -> None:
-    history = load_history(store, "6 MV", machine="HCC-LA1", baseline="first")
+    history = load_history(store, "6 MV", machine="DEMO-LA1", baseline="first")
     expected = [100.0 * (s - 1.0) for s in SCALES]
     assert _deviations(history) == pytest.approx(expected, abs=1e-9)
     assert [p.within_tolerance for p in history.points] == [True, True, False, True]
@@ -65,7 +65,7 @@ def test_deviation_from_the_first_session_is_the_charge_scale(store: Store) -> N
 
 
 def test_baseline_expected_is_each_sessions_own_deviation(store: Store) -> None:
-    history = load_history(store, "6 MV", machine="HCC-LA1")
+    history = load_history(store, "6 MV", machine="DEMO-LA1")
     for point in history.points:
         evaluation = load_record(store, point.session_id).evaluation
         assert point.deviation_pct == evaluation.deviation_pct
@@ -74,17 +74,17 @@ def test_baseline_expected_is_each_sessions_own_deviation(store: Store) -> None:
 
 
 def test_other_baselines(store: Store) -> None:
-    second = load_history(store, "6 MV", machine="HCC-LA1", baseline="session:2")
+    second = load_history(store, "6 MV", machine="DEMO-LA1", baseline="session:2")
     assert _deviations(second) == pytest.approx([100.0 * (s / 1.008 - 1) for s in SCALES])
-    mean = load_history(store, "6 MV", machine="HCC-LA1", baseline="mean")
+    mean = load_history(store, "6 MV", machine="DEMO-LA1", baseline="mean")
     assert sum(_deviations(mean)) == pytest.approx(0.0, abs=1e-9)
-    number = load_history(store, "6 MV", machine="HCC-LA1", baseline="0.8")
-    expected = load_history(store, "6 MV", machine="HCC-LA1", baseline="expected")
+    number = load_history(store, "6 MV", machine="DEMO-LA1", baseline="0.8")
+    expected = load_history(store, "6 MV", machine="DEMO-LA1", baseline="expected")
     assert _deviations(number) == pytest.approx(_deviations(expected), abs=1e-12)
 
 
 def test_all_includes_aborted_sessions_and_replays(store: Store) -> None:
-    history = load_history(store, "6 MV", machine="HCC-LA1", include_all=True)
+    history = load_history(store, "6 MV", machine="DEMO-LA1", include_all=True)
     assert [(p.session_id, p.status) for p in history.points] == [
         (1, "finished"),
         (2, "finished"),
@@ -156,7 +156,7 @@ class Points(HTMLParser):
 
 
 def test_html_history_plots_each_session_against_the_band(store: Store) -> None:
-    history = load_history(store, "6 MV", machine="HCC-LA1", baseline="first")
+    history = load_history(store, "6 MV", machine="DEMO-LA1", baseline="first")
     parsed = Points()
     parsed.feed(history_html(history, history_table(history), "generated now"))
     assert [int(p["data-session-id"]) for p in parsed.points] == [1, 2, 3, 4]

@@ -3,7 +3,7 @@
 An archive or a reviewer's copy is a file of mode 0444, or a file in a folder of mode 0555.
 Root ignores file modes, so under root each command runs in a forked child that has dropped to
 the unprivileged uid 65534 (nobody) first; as a normal user the modes bind us directly. The
-recorded session is the invented example worksheet (Harbourside Cancer Centre).
+recorded session is the invented example worksheet (Example Clinic (fictional)).
 """
 
 from __future__ import annotations
@@ -146,7 +146,7 @@ def test_serve_refuses_a_read_only_file_in_words(shared_folder: Path) -> None:
     path = _station(shared_folder)
     path.chmod(0o444)
     shared_folder.chmod(0o777)  # the folder is writable (by nobody too): only the file is not
-    argv = ["serve", "--profile", "lumen-q", "--port", "/dev/null", "--db", str(path)]
+    argv = ["serve", "--profile", "query-plain", "--port", "/dev/null", "--db", str(path)]
     argv += ["--socket", str(shared_folder / "daemon.sock")]
     _warm_up_serve()
     status, _out, err = _run_unprivileged(argv)
@@ -160,7 +160,7 @@ def test_serve_refuses_a_new_database_in_an_unwritable_folder_in_words(
     folder = shared_folder / "locked"
     folder.mkdir(mode=0o555)
     folder.chmod(0o555)
-    argv = ["serve", "--profile", "lumen-q", "--port", "/dev/null"]
+    argv = ["serve", "--profile", "query-plain", "--port", "/dev/null"]
     argv += ["--db", str(folder / "new.sqlite"), "--socket", str(shared_folder / "daemon.sock")]
     _warm_up_serve()
     status, _out, err = _run_unprivileged(argv)
@@ -174,7 +174,7 @@ def test_serve_refuses_a_damaged_file_in_words(tmp_path: Path, capsys) -> None:
     with path.open("r+b") as file:  # scribble over the second page, a table's b-tree
         file.seek(4096 + 8)
         file.write(b"\x07" * 3000)
-    argv = ["serve", "--profile", "lumen-q", "--port", "/dev/null", "--db", str(path)]
+    argv = ["serve", "--profile", "query-plain", "--port", "/dev/null", "--db", str(path)]
     status = main([*argv, "--socket", str(tmp_path / "daemon.sock")])
     err = capsys.readouterr().err
     assert status == EXIT_INVALID_INPUT
@@ -187,4 +187,4 @@ def _warm_up_serve() -> None:
     from chargebook.acquire import daemon, daemon_main  # noqa: F401
     from chargebook.drivers_generic import build_electrometer, load_profile  # noqa: F401
 
-    load_profile("lumen-q")
+    load_profile("query-plain")

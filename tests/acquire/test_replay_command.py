@@ -86,13 +86,13 @@ def test_a_threshold_that_cannot_be_read_is_refused_naming_the_option(item: str)
 
 def report(differences: list[Difference], changes: list[Change] | None = None) -> ReplayReport:
     comparison = Comparison(12, 34, differences, changes or [])
-    return ReplayReport(3, 9, "lumen-q", 0.0, 266, comparison, what_if=bool(changes))
+    return ReplayReport(3, 9, "query-plain", 0.0, 266, comparison, what_if=bool(changes))
 
 
 def test_an_exact_replay_says_so_in_one_line():
     text = replay_text(report([]))
     assert text.splitlines() == [
-        "Replay of session 3 as session 9: profile lumen-q, speed 0, 266 traffic lines",
+        "Replay of session 3 as session 9: profile query-plain, speed 0, 266 traffic lines",
         "exact reproduction: 12 readings, 34 results identical",
     ]
 

@@ -1,7 +1,7 @@
 """Comparing a replay with its original, and writing a finished replay into the station.
 
 Sessions are the invented example worksheet recorded through the Store API
-(``recorded_session``: Harbourside Cancer Centre, demo data only).
+(``recorded_session``: Example Clinic (fictional), demo data only).
 """
 
 from __future__ import annotations
@@ -123,7 +123,7 @@ def test_plan_changes_name_each_field_and_step_that_differs():
     other["steps"][1]["readings"] = 4
     other["name"] = "what-if"
     assert [c.words() for c in plan_changes(plan, other)] == [
-        "plan name harbourside-example → what-if",
+        "plan name example-clinic → what-if",
         "plan reduced_bias_V 100.0 → 150.0",
         "plan step 'routine' readings 5 → 4",
         "plan step 'reduced' bias_V 100.0 → 150.0",

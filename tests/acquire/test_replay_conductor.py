@@ -1,4 +1,4 @@
-"""The replay's loop without processes: the real lumen-q driver over a scripted transport (the
+"""The replay's loop without processes: the real query-plain driver over a scripted transport (the
 recorded lines, as the instrument's side), the real engine, an in-memory store.
 
 The recordings are written here line by line, as the daemon would have recorded them, so that
@@ -22,7 +22,7 @@ from chargebook.drivers_generic import ProfileElectrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.transport import ScriptedTransport
 
-LUMEN_Q = load_profile("lumen-q")
+QUERY_PLAIN = load_profile("query-plain")
 PLAN = Plan(
     "one-set",
     (Step("routine", "routine", 1, 300.0, 2, 100.0),),
@@ -38,9 +38,9 @@ def recorded(*exchanges: tuple[float, str, str | None]) -> tuple[RecordedLine, .
     """Return the lines of (time, command, answer) exchanges; the answer 1 ms after."""
     lines = []
     for t_s, command, answer in exchanges:
-        lines.append(RecordedLine(len(lines), t_s, "tx", line_bytes(LUMEN_Q, "tx", command)))
+        lines.append(RecordedLine(len(lines), t_s, "tx", line_bytes(QUERY_PLAIN, "tx", command)))
         if answer is not None:
-            raw = line_bytes(LUMEN_Q, "rx", answer)
+            raw = line_bytes(QUERY_PLAIN, "rx", answer)
             lines.append(RecordedLine(len(lines), t_s + 0.001, "rx", raw))
     return tuple(lines)
 
@@ -49,7 +49,7 @@ def arming(*polls: tuple[float, str], start_s: float = 1.0) -> list[tuple[float,
     """Return the exchanges of one reading: bias, zero and start, then the polls."""
     exchanges: list[tuple[float, str, str | None]] = [
         (start_s, "BIAS +300", "OK"),
-        (start_s + 0.01, "ZERO", "OK"),
+        (start_s + 0.01, "QZ", "OK"),
         (start_s + 0.02, "RUN", "OK"),
     ]
     return exchanges + [(t_s, "Q?", f"Q {charge} nC A") for t_s, charge in polls]
@@ -62,14 +62,16 @@ def replay(
     armed_times_s: tuple[float, ...] = (),
 ) -> tuple[Engine, int]:
     """Play ``lines`` and ``inputs`` through the driver and the engine; return both."""
-    follower = TrafficFollower(lines, LUMEN_Q)
+    follower = TrafficFollower(lines, QUERY_PLAIN)
     script = [
         (follower.text(line), [follower.text(n) for n in _answers(lines, line.index)])
         for line in lines
         if line.direction == "tx"
     ]
-    transport = ScriptedTransport(LUMEN_Q.framing, script, traffic=follower, clock=follower.clock)
-    driver = ProfileElectrometer(LUMEN_Q, transport)
+    transport = ScriptedTransport(
+        QUERY_PLAIN.framing, script, traffic=follower, clock=follower.clock
+    )
+    driver = ProfileElectrometer(QUERY_PLAIN, transport)
     store = Store.memory()
     clock = ArmingClock(
         armed_times_s or (0.99,),
@@ -77,8 +79,10 @@ def replay(
         until=lambda: follower.next_sent_t_s("RUN"),
         otherwise=lambda: follower.last_t_s,
     )
-    engine = Engine(store, capabilities=LUMEN_Q.capabilities, clock=clock, profile="lumen-q")
-    session_id = engine.start_session(demo_metadata(), PLAN, actor="R. Okafor")
+    engine = Engine(
+        store, capabilities=QUERY_PLAIN.capabilities, clock=clock, profile="query-plain"
+    )
+    session_id = engine.start_session(demo_metadata(), PLAN, actor="operator A")
     follower.attach(store, session_id)
     driver.open()
     Conductor(
@@ -105,7 +109,7 @@ def _answers(lines: tuple[RecordedLine, ...], index: int) -> list[RecordedLine]:
 
 
 def operator(position: int, kind: str, **detail) -> RecordedInput:
-    return RecordedInput(position, kind, "R. Okafor", detail, event_id=position)
+    return RecordedInput(position, kind, "operator A", detail, event_id=position)
 
 
 def test_readings_are_taken_from_the_recorded_lines_at_their_recorded_times():
@@ -113,7 +117,7 @@ def test_readings_are_taken_from_the_recorded_lines_at_their_recorded_times():
     second = [(2.05, "+19.0000"), (2.10, "+19.0000"), (2.25, "+19.0000")]
     lines = recorded(
         *arming(*flat),
-        (1.30, "HOLD", "OK"), (1.31, "ZERO", "OK"), (1.32, "RUN", "OK"),
+        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
         *[(t, "Q?", f"Q {q} nC A") for t, q in second],
         (2.30, "HOLD", "OK"),
     )  # fmt: skip
@@ -131,7 +135,7 @@ def test_a_poll_sent_before_the_engines_commands_is_stale_as_it_was_for_the_daem
     lines = recorded(
         *arming(*flat),
         (1.27, "Q?", "Q +20.0100 nC A"),  # polled before the daemon sent HOLD: stale
-        (1.30, "HOLD", "OK"), (1.31, "ZERO", "OK"), (1.32, "RUN", "OK"),
+        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
     )  # fmt: skip
     inputs = [operator(0, "environment", **ENVIRONMENT), operator(0, "arm")]
     engine, session_id = replay(lines, inputs)
@@ -159,7 +163,7 @@ def test_the_same_sample_taken_as_a_reading_in_the_original_is_taken_again():
     flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.25, "+20.0000")]
     lines = recorded(
         *arming(*flat),
-        (1.30, "HOLD", "OK"), (1.31, "ZERO", "OK"), (1.32, "RUN", "OK"),
+        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
         (1.40, "HOLD", "OK"),  # sent for the abort
     )  # fmt: skip
     inputs = [
@@ -181,19 +185,21 @@ def test_an_input_the_engine_cannot_take_stops_an_exact_replay_naming_it():
     ]
     with pytest.raises(Divergence) as stopped:
         replay(lines, inputs)
-    assert f"the recorded accept by R. Okafor (event {len(lines)}" in str(stopped.value)
+    assert f"the recorded accept by operator A (event {len(lines)}" in str(stopped.value)
     assert "cannot set.accept while the sequence is collecting" in str(stopped.value)
 
 
 def test_the_first_arming_reads_the_original_time_before_any_line():
-    assert math.isinf(TrafficFollower(recorded((1.0, "Q?", None)), LUMEN_Q).played_t_s)
+    assert math.isinf(TrafficFollower(recorded((1.0, "Q?", None)), QUERY_PLAIN).played_t_s)
 
 
 def test_an_input_reads_the_time_of_the_lines_before_it_not_of_lines_read_since():
     # A pushing electrometer's lines arrive between a command and its answer; the replay reads
     # them with the answer, past an input the original took before they arrived. Reading the
     # time of the latest line seen there, an arming took a later time than the original's.
-    follower = TrafficFollower(recorded((1.0, "Q?", "Q +1.0000 nC A"), (2.0, "Q?", None)), LUMEN_Q)
+    follower = TrafficFollower(
+        recorded((1.0, "Q?", "Q +1.0000 nC A"), (2.0, "Q?", None)), QUERY_PLAIN
+    )
     for line in follower.lines[:3]:
         follower(TrafficDirection(line.direction), line.t_s, line.raw)
     assert follower.played_t_s == follower.lines[2].t_s

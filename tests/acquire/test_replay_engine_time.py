@@ -39,10 +39,10 @@ class Clock:
 def started(**kwargs) -> tuple[Engine, Clock, int]:
     clock = Clock()
     engine = Engine(
-        Store.memory(), capabilities=CAPABILITIES, clock=clock, profile="lumen-q", **kwargs
+        Store.memory(), capabilities=CAPABILITIES, clock=clock, profile="query-plain", **kwargs
     )
-    session_id = engine.start_session(demo_metadata(), PLAN, actor="R. Okafor")
-    engine.set_environment(21.0, 101.0, actor="R. Okafor")
+    session_id = engine.start_session(demo_metadata(), PLAN, actor="operator A")
+    engine.set_environment(21.0, 101.0, actor="operator A")
     return engine, clock, session_id
 
 
@@ -66,7 +66,7 @@ def into_routine(engine: Engine, clock: Clock) -> None:
 def test_the_session_records_its_profile_and_time_scale():
     engine, _, session_id = started(time_scale=0.02)
     details = [e.detail() for e in engine.store.events(session_id) if e.kind == "acquisition"]
-    assert details == [{"profile": "lumen-q", "time_scale": 0.02}]
+    assert details == [{"profile": "query-plain", "time_scale": 0.02}]
 
 
 def test_a_tick_past_the_hold_time_does_not_end_the_reading_the_next_sample_does():
@@ -118,7 +118,7 @@ def test_a_manual_capture_takes_the_latest_sample_and_its_time():
     engine.arm()
     sample(engine, clock.now + 0.2, 7.5, b"Q +7.5000 nC A\r\n")
     clock.now += 30.0  # the operator captures much later: the reading is the sample's
-    engine.capture(actor="R. Okafor")
+    engine.capture(actor="operator A")
     reading = engine.store.readings(session_id)[-1]
     assert (reading.capture, reading.charge_nC, reading.t_s) == ("manual", 7.5, 500.2)
     assert reading.traffic_id is not None

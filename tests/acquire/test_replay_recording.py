@@ -37,10 +37,10 @@ def store() -> Store:
 def new_session(store: Store) -> int:
     metadata = example_metadata()
     plan = example_plan().to_dict()
-    return store.create_session(metadata, plan, "trs398", "6 MV", actor="R. Okafor")
+    return store.create_session(metadata, plan, "trs398", "6 MV", actor="operator A")
 
 
-def state_changed(store: Store, session_id: int, action: str, actor: str = "R. Okafor", **more):
+def state_changed(store: Store, session_id: int, action: str, actor: str = "operator A", **more):
     detail = {"from": "a", "to": "b", "action": action, **more}
     store.add_event(session_id, actor, "state_changed", detail)
 
@@ -55,7 +55,7 @@ def test_each_operator_action_is_placed_after_the_lines_written_before_it(store:
     state_changed(store, session_id, "session.start")  # the start is not a replayed input
     store.add_event(
         session_id,
-        "R. Okafor",
+        "operator A",
         "environment_entered",
         {"temperature_C": 21.0, "pressure_kPa": 101.0},
     )
@@ -64,7 +64,7 @@ def test_each_operator_action_is_placed_after_the_lines_written_before_it(store:
     exchange(store, session_id, 10.1, b"Q?\r\n", b"Q +0.0001 nC A\r\n")
     store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "capture": "auto"})
     store.add_event(
-        session_id, "R. Okafor", "reading_recorded", {"reading_id": 2, "capture": "manual"}
+        session_id, "operator A", "reading_recorded", {"reading_id": 2, "capture": "manual"}
     )
     exchange(store, session_id, 10.2, b"HOLD\r\n", b"OK\r\n")
     state_changed(store, session_id, "set.redo", reason="the phantom moved")
@@ -72,10 +72,10 @@ def test_each_operator_action_is_placed_after_the_lines_written_before_it(store:
     recording = load_recording(store, session_id)
     placed = [(i.position, i.kind, i.actor) for i in recording.inputs]
     assert placed == [
-        (0, "environment", "R. Okafor"),
-        (0, "arm", "R. Okafor"),
-        (4, "capture", "R. Okafor"),  # a manual capture; the automatic one is an outcome
-        (6, "redo", "R. Okafor"),
+        (0, "environment", "operator A"),
+        (0, "arm", "operator A"),
+        (4, "capture", "operator A"),  # a manual capture; the automatic one is an outcome
+        (6, "redo", "operator A"),
     ]
     assert recording.inputs[-1].detail["reason"] == "the phantom moved"
     assert [line.direction for line in recording.lines] == ["tx", "rx"] * 3
@@ -83,11 +83,13 @@ def test_each_operator_action_is_placed_after_the_lines_written_before_it(store:
 
 def test_the_instrument_coming_back_is_an_input_only_after_it_was_lost(store: Store):
     session_id = new_session(store)
-    identity = {"identity": "chargebook-sim, LUMEN-Q, EM-2093, 0.1.0"}
+    identity = {"identity": "chargebook-sim, QUERY-PLAIN, SIM-EM-0001, 0.1.0"}
     store.add_event(session_id, "daemon", "instrument_back", identity)  # first connection
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
     store.add_event(session_id, "daemon", "instrument_lost", {"message": "cable pulled"})
-    exchange(store, session_id, 5.0, b"ID?\r\n", b"chargebook-sim;LUMEN-Q;EM-2093;0.1.0\r\n")
+    exchange(
+        store, session_id, 5.0, b"ID?\r\n", b"chargebook-sim;QUERY-PLAIN;SIM-EM-0001;0.1.0\r\n"
+    )
     store.add_event(session_id, "daemon", "instrument_back", identity)
     store.set_session_status(session_id, "finished")
     kinds = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
@@ -97,7 +99,7 @@ def test_the_instrument_coming_back_is_an_input_only_after_it_was_lost(store: St
 def test_a_session_that_starts_mid_exchange_gets_the_command_from_before_it(store: Store):
     store.add_traffic(None, 0.5, "tx", b"*IDN?\n")  # sent before the session existed
     session_id = new_session(store)
-    store.add_traffic(session_id, 0.6, "rx", b"chargebook-sim,SIM-SCPI,EM-2093,0.1.0\n")
+    store.add_traffic(session_id, 0.6, "rx", b"chargebook-sim,SIM-SCPI,SIM-EM-0001,0.1.0\n")
     exchange(store, session_id, 1.0, b"FETC?\n", b"+2.0E-08\n")
     store.set_session_status(session_id, "finished")
     lines = load_recording(store, session_id).lines
@@ -128,11 +130,11 @@ def test_arming_times_are_read_from_the_readings_events(store: Store):
 
 def test_the_profile_and_time_scale_come_from_the_acquisition_event(store: Store):
     session_id = new_session(store)
-    detail = {"profile": "tallyline", "time_scale": 0.02}
+    detail = {"profile": "push-exponent", "time_scale": 0.02}
     store.add_event(session_id, "daemon", "acquisition", detail)
     store.set_session_status(session_id, "finished")
     recording = load_recording(store, session_id)
-    assert (recording.profile, recording.time_scale) == ("tallyline", 0.02)
+    assert (recording.profile, recording.time_scale) == ("push-exponent", 0.02)
 
 
 def test_an_open_session_is_not_replayable(store: Store):
@@ -167,7 +169,7 @@ def test_a_capture_by_hand_is_placed_right_after_the_sample_it_took(store: Store
     received_t_s = 10.1 + 0.001  # the first sample's line, as exchange() writes it
     reading = store.add_reading(session_id, set_id, 1, received_t_s, 7.5, "manual", False, "ok")
     detail = {"reading_id": reading, "capture": "manual", "set_id": set_id}
-    store.add_event(session_id, "R. Okafor", "reading_recorded", detail)
+    store.add_event(session_id, "operator A", "reading_recorded", detail)
     store.set_session_status(session_id, "aborted", "phantom moved")
     placed = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
     assert placed == [(0, "arm"), (2, "capture")]

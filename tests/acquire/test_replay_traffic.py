@@ -27,7 +27,7 @@ from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.simulator.playback import read_log
 from recorded_session import example_metadata, example_plan
 
-LUMEN_Q = load_profile("lumen-q")
+QUERY_PLAIN = load_profile("query-plain")
 LINES = (
     RecordedLine(0, 10.25, "tx", b"BIAS +300\r\n"),
     RecordedLine(1, 10.2625, "rx", b"OK\r\n"),
@@ -50,13 +50,13 @@ def recording() -> Recording:
 
 def test_a_line_keeps_bytes_that_are_not_text_through_its_text_form():
     raw = b"Q +1\xff.0000 nC A\r\n"
-    text = line_text(LUMEN_Q, RecordedLine(0, 1.0, "rx", raw))
+    text = line_text(QUERY_PLAIN, RecordedLine(0, 1.0, "rx", raw))
     assert text == "Q +1\udcff.0000 nC A"  # Python's surrogateescape for byte 0xff
-    assert line_bytes(LUMEN_Q, "rx", text) == raw
+    assert line_bytes(QUERY_PLAIN, "rx", text) == raw
 
 
 def test_the_playback_log_reads_back_with_the_simulators_reader(tmp_path: Path):
-    path = write_playback_log(LUMEN_Q, LINES, tmp_path / "playback.jsonl")
+    path = write_playback_log(QUERY_PLAIN, LINES, tmp_path / "playback.jsonl")
     assert read_log(path) == [
         (10.25, "tx", "BIAS +300"),
         (10.2625, "rx", "OK"),
@@ -70,8 +70,8 @@ def positions(recording: Recording) -> list[str]:
 
 
 def test_a_log_of_the_session_reads_as_its_lines(tmp_path: Path, recording: Recording):
-    path = write_playback_log(LUMEN_Q, recording.lines, tmp_path / "log.jsonl")
-    assert read_traffic_log(path, recording, LUMEN_Q, positions(recording)) == recording.lines
+    path = write_playback_log(QUERY_PLAIN, recording.lines, tmp_path / "log.jsonl")
+    assert read_traffic_log(path, recording, QUERY_PLAIN, positions(recording)) == recording.lines
 
 
 def truncated(lines: list[str]) -> list[str]:
@@ -130,10 +130,10 @@ def time_as_text(lines: list[str]) -> list[str]:
 def test_a_corrupted_or_truncated_log_is_refused_naming_the_session_and_line(
     tmp_path: Path, recording: Recording, edit, message: str
 ):
-    path = write_playback_log(LUMEN_Q, recording.lines, tmp_path / "log.jsonl")
+    path = write_playback_log(QUERY_PLAIN, recording.lines, tmp_path / "log.jsonl")
     path.write_text("\n".join(edit(path.read_text().splitlines())) + "\n")
     with pytest.raises(TrafficLogError) as refused:
-        read_traffic_log(path, recording, LUMEN_Q, positions(recording))
+        read_traffic_log(path, recording, QUERY_PLAIN, positions(recording))
     assert "session 1" in str(refused.value) and message in str(refused.value)
 
 
@@ -142,7 +142,7 @@ def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
     session_id = store.create_session(
         example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
     )
-    follower = TrafficFollower(LINES, LUMEN_Q)
+    follower = TrafficFollower(LINES, QUERY_PLAIN)
     follower.attach(store, session_id)
     for line in LINES:
         t_s = follower.clock()
@@ -154,7 +154,7 @@ def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
 
 
 def test_the_follower_stops_a_replay_at_the_first_line_that_differs():
-    follower = TrafficFollower(LINES, LUMEN_Q)
+    follower = TrafficFollower(LINES, QUERY_PLAIN)
     follower(TrafficDirection.SENT, follower.clock(), b"BIAS +300\r\n")
     follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
     with pytest.raises(Divergence) as diverged:
@@ -165,18 +165,18 @@ def test_the_follower_stops_a_replay_at_the_first_line_that_differs():
 
 
 def test_a_what_if_follower_notes_the_same_command_sent_with_other_values():
-    follower = TrafficFollower(LINES, LUMEN_Q, same_command=same_command(LUMEN_Q))
+    follower = TrafficFollower(LINES, QUERY_PLAIN, same_command=same_command(QUERY_PLAIN))
     follower(TrafficDirection.SENT, follower.clock(), b"BIAS +150\r\n")
     assert [(n.index, n.recorded, n.sent) for n in follower.notes] == [
         (0, "BIAS +300", "BIAS +150")
     ]
     follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
     with pytest.raises(Divergence, match="line 3"):  # another command than the recorded one
-        follower(TrafficDirection.SENT, follower.clock(), b"ZERO\r\n")
+        follower(TrafficDirection.SENT, follower.clock(), b"QZ\r\n")
 
 
 def test_a_line_after_the_last_recorded_one_stops_the_replay():
-    follower = TrafficFollower(LINES[:1], LUMEN_Q)
+    follower = TrafficFollower(LINES[:1], QUERY_PLAIN)
     follower(TrafficDirection.SENT, follower.clock(), b"BIAS +300\r\n")
     with pytest.raises(Divergence, match=r"after the last recorded line \(1\).*received 'OK'"):
         follower(TrafficDirection.RECEIVED, follower.clock(), b"OK\r\n")
@@ -184,5 +184,5 @@ def test_a_line_after_the_last_recorded_one_stops_the_replay():
 
 def test_the_log_keeps_recorded_times_exactly(tmp_path: Path):
     awkward = (RecordedLine(0, 1234.5678901234567, "tx", b"Q?\r\n"),)
-    path = write_playback_log(LUMEN_Q, awkward, tmp_path / "times.jsonl")
+    path = write_playback_log(QUERY_PLAIN, awkward, tmp_path / "times.jsonl")
     assert json.loads(path.read_text())["t_s"] == 1234.5678901234567

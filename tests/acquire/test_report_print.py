@@ -2,7 +2,7 @@
 
 Every printed page must carry the session id and "page n of m", and the first page the result
 (dose per MU), on Letter (Chromium's default paper, which ``size: auto`` leaves to the printer)
-and on A4. The session is the invented example worksheet (Harbourside Cancer Centre, HCC-LA1
+and on A4. The session is the invented example worksheet (Example Clinic (fictional), DEMO-LA1
 6 MV; not a real measurement) with many superseded attempts, so that it needs several pages.
 
 Needs ``chromium`` and ``pdftotext`` (Debian's ``chromium`` and ``poppler-utils``; ``.ci/run``
@@ -132,12 +132,12 @@ def test_every_printed_page_carries_the_session_and_page_n_of_m(
 
 @pytest.mark.e2e
 def test_a_printed_worksheet_carries_its_file_name_on_every_page(tmp_path: Path) -> None:
-    worksheet = EXAMPLES / "hcc-la1-6mv.toml"
+    worksheet = EXAMPLES / "demo-la1-6mv.toml"
     target = tmp_path / "worksheet.html"
     assert main(["correct", str(worksheet), "--html", "-o", str(target)]) == EXIT_OK
     dose_per_MU = evaluate(read_worksheet(worksheet).inputs).dose_per_MU_cGy
     html = target.read_text(encoding="utf-8")
-    pages = printed_pages(html, tmp_path, "A4", "chargebook worksheet hcc-la1-6mv.toml")
+    pages = printed_pages(html, tmp_path, "A4", "chargebook worksheet demo-la1-6mv.toml")
     assert len(pages) >= 2
     assert re.search(rf"dose per MU\s+{dose_per_MU:.4f} cGy/MU", pages[0]), pages[0]
 
@@ -155,18 +155,18 @@ def test_the_print_rules_fit_a4_and_letter_and_keep_rows_whole(long_report) -> N
 
 def test_the_review_block_has_empty_lines_until_a_review_fills_them() -> None:
     empty = Report()
-    empty.feed(review_block("R. Okafor", "2026-12-03 07:00:00 UTC", None))
+    empty.feed(review_block("operator A", "2026-12-03 07:00:00 UTC", None))
     assert empty.rows[("Review and sign-off", "measured-by")][:2] == [
-        "R. Okafor",
+        "operator A",
         "2026-12-03 07:00:00 UTC",
     ]
     assert empty.rows[("Review and sign-off", "reviewed-by")] == ["", "", ""]
     assert empty.rows[("Review and sign-off", "decision")] == ["not yet reviewed"]
-    review = SignOff("B. Lind", "approved", "k_s checked by hand", "2026-12-03 09:30:00 UTC")
+    review = SignOff("reviewer B", "approved", "k_s checked by hand", "2026-12-03 09:30:00 UTC")
     filled = Report()
-    filled.feed(review_block("R. Okafor", "2026-12-03 07:00:00 UTC", review))
+    filled.feed(review_block("operator A", "2026-12-03 07:00:00 UTC", review))
     assert filled.rows[("Review and sign-off", "reviewed-by")] == [
-        "B. Lind",
+        "reviewer B",
         "2026-12-03 09:30:00 UTC",
         "",
     ]

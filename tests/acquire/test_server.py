@@ -86,7 +86,7 @@ async def test_a_stale_socket_is_replaced_and_an_open_directory_refused(tmp_path
 
 
 async def test_errors_come_back_with_their_codes_and_the_field(server):
-    client = await DaemonClient.connect(server.socket_path, client="test", operator="A. Reyes")
+    client = await DaemonClient.connect(server.socket_path, client="test", operator="operator C")
     assert client.hello == {"protocol_version": protocol.PROTOCOL_VERSION}
     with pytest.raises(DaemonError) as refused:
         await client.call("environment.set", temperature_C=80.0, pressure=101.0)
@@ -109,9 +109,9 @@ async def test_errors_come_back_with_their_codes_and_the_field(server):
 
 
 async def test_notifications_reach_subscribers_only(server):
-    listener = await DaemonClient.connect(server.socket_path, operator="A. Reyes")
+    listener = await DaemonClient.connect(server.socket_path, operator="operator C")
     bystander = await DaemonClient.connect(server.socket_path)
-    assert (await listener.subscribe())["actor"] == "A. Reyes"
+    assert (await listener.subscribe())["actor"] == "operator C"
     heard = []
     listener.add_listener(heard.append)
     await server.broadcast("snapshot", {"seq": 5, "state": "idle"})

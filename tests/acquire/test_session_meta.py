@@ -11,12 +11,12 @@ from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Uncertainties
 from recorded_session import required_metadata
 
-#: The invented example worksheet's metadata (Harbourside Cancer Centre); not reference data.
-HARBOURSIDE = required_metadata()
+#: The invented example worksheet's metadata (Example Clinic (fictional)); not reference data.
+EXAMPLE_CLINIC = required_metadata()
 
 
 def _with(**changes: object) -> dict:
-    data = dict(HARBOURSIDE)
+    data = dict(EXAMPLE_CLINIC)
     for key, value in changes.items():
         if value is DELETE:
             del data[key]
@@ -29,9 +29,9 @@ DELETE = object()
 
 
 def test_a_complete_entry_is_accepted_and_keeps_its_values() -> None:
-    meta = validate_metadata(HARBOURSIDE)
+    meta = validate_metadata(EXAMPLE_CLINIC)
     assert isinstance(meta, SessionMetadata)
-    assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("HCC-LA1", "6 MV", "pulsed")
+    assert (meta.treatment_machine, meta.beam, meta.beam_type) == ("DEMO-LA1", "6 MV", "pulsed")
     assert (meta.N_Dw, meta.N_Dw_unit, meta.N_Dw_Gy_per_nC) == (0.0538, "Gy/nC", 0.0538)
     assert meta.k_elec is None and meta.u_k_elec_pct is None and meta.tolerance_pct is None
     assert meta.conversions() == ()
@@ -48,9 +48,13 @@ def test_stored_form_validates_back_to_the_same_metadata() -> None:
 
 def test_names_and_choices_are_normalised() -> None:
     meta = validate_metadata(
-        _with(convention=" TG51 ", beam_type="Pulsed-Scanned", operator="  K. Osei  ")
+        _with(convention=" TG51 ", beam_type="Pulsed-Scanned", operator="  operator E  ")
     )
-    assert (meta.convention, meta.beam_type, meta.operator) == ("tg51", "pulsed-scanned", "K. Osei")
+    assert (meta.convention, meta.beam_type, meta.operator) == (
+        "tg51",
+        "pulsed-scanned",
+        "operator E",
+    )
     assert validate_metadata(
         _with(calibration_date=datetime.date(2024, 3, 1))
     ).calibration_date == ("2024-03-01")
@@ -130,7 +134,7 @@ def test_each_required_field_is_named_when_missing(missing: str) -> None:
 @pytest.mark.parametrize(
     ("changes", "field", "words"),
     [
-        ({"chamber_serail": "CH-4417"}, "chamber_serail", "is not known"),
+        ({"chamber_serail": "SIM-CH-0001"}, "chamber_serail", "is not known"),
         ({"operator": "   "}, "operator", "is empty"),
         ({"chamber_serial": 4417}, "chamber_serial", "is not text"),
         ({"beam": "x" * 201}, "beam", "has 201 characters"),
@@ -161,13 +165,13 @@ def test_bad_entries_name_the_field_value_and_range(changes, field, words) -> No
 
 def test_not_a_table_is_refused() -> None:
     with pytest.raises(InputError, match=r"metadata .* is not a table"):
-        validate_metadata(["HCC-LA1", "6 MV"])
+        validate_metadata(["DEMO-LA1", "6 MV"])
 
 
 def test_user_components_and_the_certificate_k_reach_the_budget() -> None:
     # Issue 12 item 8: the codes of practice list these user-side components (from memory); a
     # certificate may state a coverage factor other than 2 (JCGM 100:2008 6.2.1: u = U/k).
-    data = dict(HARBOURSIDE)
+    data = dict(EXAMPLE_CLINIC)
     data.update(
         u_N_Dw_pct_k2=1.2,
         k_N_Dw=2.4,
@@ -205,7 +209,7 @@ ELECTRON = {
 
 
 def test_a_session_is_a_photon_beam_unless_it_says_otherwise() -> None:
-    meta = validate_metadata(HARBOURSIDE)
+    meta = validate_metadata(EXAMPLE_CLINIC)
     assert (meta.modality, meta.R50_cm, meta.chamber_type, meta.k_Q_source) == (
         "photon",
         None,
@@ -239,7 +243,7 @@ def test_an_electron_session_keeps_R50_chamber_type_and_k_Q_source() -> None:
 def test_what_an_electron_session_needs_is_refused_by_name(
     changes: dict, field: str, words: str
 ) -> None:
-    data = {**HARBOURSIDE, **ELECTRON, **changes}
+    data = {**EXAMPLE_CLINIC, **ELECTRON, **changes}
     with pytest.raises(InputError) as caught:
         validate_metadata({key: value for key, value in data.items() if value is not DELETE})
     assert caught.value.field == field

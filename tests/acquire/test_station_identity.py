@@ -146,7 +146,15 @@ def test_serve_takes_the_station_name_and_refuses_a_blank_one(tmp_path: Path) ->
     from chargebook.acquire.daemon_main import options_from_args
     from chargebook.corrections.errors import InputError
 
-    serve = ["serve", "--profile", "lumen-q", "--port", "/dev/null", "--db", str(tmp_path / "s")]
+    serve = [
+        "serve",
+        "--profile",
+        "query-plain",
+        "--port",
+        "/dev/null",
+        "--db",
+        str(tmp_path / "s"),
+    ]
     args = build_parser().parse_args([*serve, "--station-name", "Physics bench 2"])
     assert options_from_args(args, tmp_path / "d.sock").station_name == "Physics bench 2"
     assert options_from_args(build_parser().parse_args(serve)).station_name is None

@@ -29,7 +29,7 @@ from hypothesis import strategies as st
 from sqlite_utils import Database
 
 # Invented demo scenario (our own clinic), not reference data.
-METADATA = {"treatment_machine": "HCC-LA1", "beam": "6 MV", "chamber_serial": "CH-4417"}
+METADATA = {"treatment_machine": "DEMO-LA1", "beam": "6 MV", "chamber_serial": "SIM-CH-0001"}
 NAN = float("nan")
 PLAN = {"name": "default", "steps": [{"key": "routine", "purpose": "routine"}]}
 
@@ -180,7 +180,7 @@ def test_rows_read_back_as_written(store: Store) -> None:
         session_id, set_id, 0, 12.5, 20.512, "pushed", True, "ok", traffic_id
     )
     env_id = store.add_environment(session_id, 21.3, 101.2, 1012.0, "hPa", 45.0, "operator")
-    event_id = store.add_event(session_id, "A. Physicist", "note", {"why": "chamber swapped"})
+    event_id = store.add_event(session_id, "operator F", "note", {"why": "chamber swapped"})
 
     session = store.session(session_id)
     assert (session.status, session.convention, session.beam) == ("open", "trs398", "6 MV")
@@ -213,7 +213,7 @@ def test_rows_read_back_as_written(store: Store) -> None:
 
     events = store.events(session_id)
     assert [e.kind for e in events] == ["session_created", "note"]
-    assert events[-1].id == event_id and events[-1].actor == "A. Physicist"
+    assert events[-1].id == event_id and events[-1].actor == "operator F"
     assert events[-1].detail() == {"why": "chamber swapped"}
 
     (line,) = store.traffic(session_id)
@@ -233,10 +233,10 @@ def test_readings_filter_by_set_and_keep_their_order(store: Store) -> None:
 
 def test_traffic_and_events_outside_a_session(store: Store) -> None:
     store.add_traffic(None, 0.1, "tx", b"*IDN?\n")
-    store.add_event(None, "daemon", "instrument_identified", {"serial": "EM-2093"})
+    store.add_event(None, "daemon", "instrument_identified", {"serial": "SIM-EM-0001"})
     assert [t.line for t in store.traffic(None)] == [b"*IDN?\n"]
     assert store.traffic_count(None) == 1
-    assert [e.detail() for e in store.events(None)] == [{"serial": "EM-2093"}]
+    assert [e.detail() for e in store.events(None)] == [{"serial": "SIM-EM-0001"}]
 
 
 def test_open_session_is_the_newest_open_one(store: Store) -> None:
@@ -277,7 +277,7 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     store.set_session_status(session_id, "interrupted", "daemon restarted", actor="daemon")
     interrupted = store.session(session_id)
     assert interrupted.closed_at is not None and interrupted.reason == "daemon restarted"
-    store.set_session_status(session_id, "open", "resumed", actor="J. Okafor")
+    store.set_session_status(session_id, "open", "resumed", actor="reviewer B")
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
     closed, aborted = interrupted.closed_at, store.session(session_id).closed_at
@@ -288,7 +288,7 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
         {"from": "open", "to": "aborted", "reason": "beam fault", "closed_at": aborted},
     ]
     actors = [e.actor for e in store.events(session_id) if e.kind == "session_status"]
-    assert actors == ["daemon", "J. Okafor", "daemon"]
+    assert actors == ["daemon", "reviewer B", "daemon"]
 
 
 def test_a_final_session_status_cannot_change(store: Store) -> None:
@@ -478,7 +478,7 @@ WRITER = textwrap.dedent(
     import os, sys
     from chargebook.acquire.store import Store
     store = Store.open(sys.argv[1])
-    session_id = store.create_session({"treatment_machine": "HCC-LA2"}, {"steps": []},
+    session_id = store.create_session({"treatment_machine": "DEMO-LA2"}, {"steps": []},
                                       "tg51", "6 MV")
     set_id = store.add_set(session_id, 0, "routine", "routine", 1, 300.0, 1)
     for seq in range(5):
@@ -509,7 +509,7 @@ def test_a_writer_that_dies_loses_nothing_and_the_session_resumes(tmp_path: Path
 
     with Store.open(path) as restarted:
         session = restarted.open_session()
-        assert session is not None and session.metadata() == {"treatment_machine": "HCC-LA2"}
+        assert session is not None and session.metadata() == {"treatment_machine": "DEMO-LA2"}
         readings = restarted.readings(session.id)
         assert [r.seq for r in readings] == announced
         assert [r.charge_nC for r in readings] == [20.5, 20.51, 20.52, 20.53, 20.54]

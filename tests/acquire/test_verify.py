@@ -2,7 +2,7 @@
 
 Tampering is done the way a local user would: a second, plain ``sqlite3`` connection on the real
 station file (dropping the triggers first where a tamperer would have to). The recorded session
-is the invented example worksheet (Harbourside Cancer Centre), recorded through the Store API.
+is the invented example worksheet (Example Clinic (fictional)), recorded through the Store API.
 """
 
 from __future__ import annotations
@@ -224,7 +224,7 @@ def test_an_old_file_is_chained_in_stamp_order_by_the_migration_and_verifies(
     db.execute(
         "INSERT INTO events (id, session_id, recorded_at, actor, kind, detail_json) VALUES "
         "(1, 1, '2025-01-01T08:00:01.000000+00:00', 'daemon', 'session_created', '{}'), "
-        "(2, 1, '2025-01-01T08:00:03.000000+00:00', 'R. Okafor', 'note', '{}')"
+        "(2, 1, '2025-01-01T08:00:03.000000+00:00', 'operator A', 'note', '{}')"
     )
     db.conn.commit()
     db.close()
@@ -235,7 +235,7 @@ def test_an_old_file_is_chained_in_stamp_order_by_the_migration_and_verifies(
         ).fetchall()
         assert order == [("events", 1, 2), ("traffic", 1, 3), ("events", 2, 4)]  # session: 1
         assert verify_session(store, 1).verified
-        store.add_event(1, "R. Okafor", "note", {"text": "after the migration"})
+        store.add_event(1, "operator A", "note", {"text": "after the migration"})
         report = verify_session(store, 1)
     assert report.verified and report.rows == 5
 
@@ -246,7 +246,7 @@ def test_a_line_kept_before_an_event_comes_before_it_in_the_chain(tmp_path: Path
     with Store.open(tmp_path / "station.sqlite") as store:
         session_id = store.create_session({}, {}, "trs398", "6 MV")
         store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"))
-        event_id = store.add_event(session_id, "R. Okafor", "note", {})
+        event_id = store.add_event(session_id, "operator A", "note", {})
         store.keep_traffic((session_id, 2.0, store.stamp(), "rx", b"20.2\n"))
         assert store.commit_traffic() == 1
         rows = store.db.execute(
@@ -293,9 +293,9 @@ def test_kept_lines_survive_a_transaction_that_fails_and_go_with_the_next(tmp_pa
         session_id = store.create_session({}, {}, "trs398", "6 MV")
         store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"))
         with pytest.raises(KeyError):  # NotFound, after the kept line was written: rolled back
-            store.add_event(999, "R. Okafor", "note", {})
+            store.add_event(999, "operator A", "note", {})
         assert store.traffic_count(session_id) == 0
-        store.add_event(session_id, "R. Okafor", "note", {})
+        store.add_event(session_id, "operator A", "note", {})
         assert [row.line for row in store.traffic(session_id)] == [b"20.1\n"]
         assert store.commit_traffic() == 0
         assert verify_session(store, session_id).verified

@@ -33,19 +33,19 @@ def write(tmp_path: Path, text: str, name: str = "sheet.toml") -> Path:
 
 
 def test_the_six_mv_example_loads_every_section() -> None:
-    worksheet = read_worksheet(EXAMPLES / "hcc-la1-6mv.toml")
+    worksheet = read_worksheet(EXAMPLES / "demo-la1-6mv.toml")
     inputs = worksheet.inputs
     assert inputs.convention == "trs398"
     assert inputs.routine_nC[0] == 14.747
     assert inputs.reduced_bias_V == 100.0
     assert inputs.tolerance_pct == "annual"
     assert inputs.uncertainties.u_N_Dw_pct_k2 == 1.1
-    assert worksheet.session["machine"] == "HCC-LA1"
+    assert worksheet.session["machine"] == "DEMO-LA1"
     assert worksheet.session["date"] == "2026-03-02"  # a TOML date, kept as text
 
 
 def test_conversions_are_recorded() -> None:
-    inputs = load_worksheet(EXAMPLES / "hcc-la2-10fff.toml")
+    inputs = load_worksheet(EXAMPLES / "demo-la2-10fff.toml")
     texts = [c.text() for c in inputs.conversions]
     # 1 hPa = 0.1 kPa; 1 Gy/C = 1e-9 Gy/nC (SI).
     assert texts == ["pressure 1018.5 hPa = 101.85 kPa", "N_D,w 5.41e+07 Gy/C = 0.0541 Gy/nC"]
@@ -54,7 +54,7 @@ def test_conversions_are_recorded() -> None:
 
 
 def test_json_worksheet_with_mmHg() -> None:
-    inputs = load_worksheet(EXAMPLES / "hcc-co60.json")
+    inputs = load_worksheet(EXAMPLES / "demo-co1-co60.json")
     assert inputs.beam == "continuous"
     assert inputs.pressure_kPa == pytest.approx(755.0 * 0.133322387)  # conventional mmHg
 

@@ -145,7 +145,7 @@ class Station:
 
 @contextlib.contextmanager
 def station(
-    prefix: str, profile: str | Path = "tallyline", *simulator_options: str
+    prefix: str, profile: str | Path = "push-exponent", *simulator_options: str
 ) -> Iterator[Station]:
     """Yield a Station with a running simulator; everything is stopped and removed afterwards."""
     with scratch(prefix) as workdir, station_in(workdir, profile, *simulator_options) as world:
@@ -154,7 +154,7 @@ def station(
 
 @contextlib.contextmanager
 def station_in(
-    workdir: Path, profile: str | Path = "tallyline", *simulator_options: str
+    workdir: Path, profile: str | Path = "push-exponent", *simulator_options: str
 ) -> Iterator[Station]:
     """Yield a Station in ``workdir`` with a running simulator; stop everything afterwards."""
     args = ["simulate", "--serial", "--profile", str(profile), *simulator_options]
@@ -170,7 +170,7 @@ def station_in(
 async def arm_first_step(client: DaemonClient, metadata: dict[str, Any] | None = None) -> dict:
     """Open a session on the daemon and take it to its first reading: return the snapshot.
 
-    Enters the demo metadata (invented: Harbourside Cancer Centre) and a plausible air
+    Enters the demo metadata (invented: Example Clinic (fictional)) and a plausible air
     temperature and pressure, confirms the manual bias step the profile may need, and arms.
     """
     snapshot = await client.call(Method.SESSION_START, metadata=metadata or demo_metadata())

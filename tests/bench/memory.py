@@ -3,7 +3,7 @@
     python -m tests.bench.memory [--smoke]
 
 The real daemon, collecting (a timed leakage integration), reads a flood of 1,000,000 reading
-lines from the simulated electrometer (tallyline dialect) as fast as it can: each line is
+lines from the simulated electrometer (push-exponent dialect) as fast as it can: each line is
 parsed, committed to the station database as raw traffic and handed to the engine, exactly as
 in ``tests.bench.pipeline``.
 
@@ -64,7 +64,7 @@ def main(argv: list[str] | None = None) -> int:
         f"memory: daemon RSS across {count} reading lines (after {warm_up} to warm up)",
         args.smoke,
     )
-    with station("memory", "tallyline", *QUIET_STREAM) as world:
+    with station("memory", "push-exponent", *QUIET_STREAM) as world:
         figures = asyncio.run(rss_during_flood(world, warm_up, count))
     growth_MB = (figures["after"] - figures["before"]) / MB
     peak_growth_MB = (figures["peak"] - figures["before"]) / MB

@@ -2,7 +2,7 @@
 
     python -m tests.bench.pipeline [--smoke]
 
-The simulated electrometer (tallyline dialect, push mode) floods its pseudo-terminal with
+The simulated electrometer (push-exponent dialect, push mode) floods its pseudo-terminal with
 reading lines as fast as the reader takes them (``SimulatorControl.flood(0, count)``).
 
 * Baseline: pyserial reads the same pty, the same lines with the same terminator, with
@@ -132,11 +132,11 @@ def main(argv: list[str] | None = None) -> int:
     count = SMOKE_COUNT if args.smoke else FULL_COUNT
     rounds = 1 if args.smoke else ROUNDS
     out = report.Report(
-        f"pipeline: {count} reading lines flooded on a pty (tallyline, push mode), "
+        f"pipeline: {count} reading lines flooded on a pty (push-exponent, push mode), "
         f"{rounds} round(s)",
         args.smoke,
     )
-    with station("pipeline", "tallyline", *QUIET_STREAM) as world:
+    with station("pipeline", "push-exponent", *QUIET_STREAM) as world:
         naive = raw_readline_per_s(world, max(count // 20, 500), buffered=False)
         raw, daemon = asyncio.run(interleaved(world, count, rounds))
     ratios = [d / r for d, r in zip(daemon, raw, strict=True)]

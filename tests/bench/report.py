@@ -2,7 +2,7 @@
 
 ::
 
-    == pipeline: 200000 reading lines flooded on a pty (tallyline)
+    == pipeline: 200000 reading lines flooded on a pty (push-exponent)
     baseline: raw pyserial readline, buffered: 85970 readings/s
     measured: daemon, driver -> engine -> store: 47210 readings/s
     ratio: 0.549 (measured / baseline)

@@ -95,10 +95,10 @@ def measure(sim, profile: str) -> dict[str, float]:
 
 def test_pulsed_beam_corrections_recover_the_true_factors(simulator):
     sim = simulator(
-        "--serial", "--profile", "lumen-q", "--seed", "7", "--beam", "pulsed",
+        "--serial", "--profile", "query-plain", "--seed", "7", "--beam", "pulsed",
         "--temperature-C", "24.0", "--pressure-kPa", "98.5", *FAST,
     )  # fmt: skip
-    m = measure(sim, "lumen-q")
+    m = measure(sim, "query-plain")
     truth = sim.control.truth(biases_V=[ROUTINE_V, REDUCED_V])
     environment = sim.control.environment()
     ratio = m["M+"] / m["M2"]
@@ -121,11 +121,11 @@ def test_pulsed_beam_corrections_recover_the_true_factors(simulator):
 
 
 def test_continuous_beam_corrections_recover_the_true_factors_without_remote_bias(simulator):
-    # tallyline has no SET_BIAS: every bias change goes through the bench, as by hand.
+    # push-exponent has no SET_BIAS: every bias change goes through the bench, as by hand.
     sim = simulator(
-        "--serial", "--profile", "tallyline", "--seed", "3", "--beam", "continuous", *FAST
+        "--serial", "--profile", "push-exponent", "--seed", "3", "--beam", "continuous", *FAST
     )  # fmt: skip
-    m = measure(sim, "tallyline")
+    m = measure(sim, "push-exponent")
     truth = sim.control.truth(biases_V=[ROUTINE_V, REDUCED_V])
     ratio = m["M+"] / m["M2"]
 

@@ -20,7 +20,7 @@ def shared_simulator():
 
 
 def test_every_op_answers_with_ok(simulator):
-    sim = simulator("--serial", "--profile", "tallyline", *FAST)
+    sim = simulator("--serial", "--profile", "push-exponent", *FAST)
     control = sim.control
     started = control.beam(50, dose_rate_MU_per_min=300, wait=True)
     assert started["duration_s"] == pytest.approx(50 / 300 * 60 * 0.001)
@@ -40,7 +40,7 @@ def test_every_op_answers_with_ok(simulator):
     assert control.state()["spike_pending"] is True
     assert control.drop(0.05)["seconds"] == 0.05
     state = control.state()
-    assert state["profile"] == "tallyline" and state["bias_V"] == -150
+    assert state["profile"] == "push-exponent" and state["bias_V"] == -150
 
 
 @pytest.mark.parametrize(
@@ -97,8 +97,8 @@ def test_a_beam_while_one_is_on_is_refused_and_wait_blocks_until_the_end(simulat
 def test_flood_pushes_the_requested_number_of_lines(simulator):
     from chargebook.drivers_generic import open_electrometer
 
-    sim = simulator("--serial", "--profile", "tallyline", *FAST)
-    driver = open_electrometer("tallyline", port=sim.serial)
+    sim = simulator("--serial", "--profile", "push-exponent", *FAST)
+    driver = open_electrometer("push-exponent", port=sim.serial)
     try:
         sim.control.flood(0, 500)
         received = 0

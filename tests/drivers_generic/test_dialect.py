@@ -15,7 +15,7 @@ from chargebook.drivers_generic.simulator.physics import ChamberParameters, Cham
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-SERIAL_DIALECTS = ["lumen-q", "tallyline", "ohmra-eng"]
+SERIAL_DIALECTS = ["query-plain", "push-exponent", "query-engineering"]
 
 
 def responder(name: str) -> DialectResponder:
@@ -45,8 +45,8 @@ def test_reading_lines_round_trip_through_the_drivers_parser(name, charge_nC):
     profile = speaker.profile
     line = speaker.reading_line(charge_nC, "ok").encode()
     sample = parse_reading(profile.reading, line, 0.0, profile.framing.encoding)
-    resolution_nC = 10.0**-profile.reading.digits * (1e3 if name == "ohmra-eng" else 1.0)
-    if name == "tallyline":  # exponent format: relative resolution
+    resolution_nC = 10.0**-profile.reading.digits * (1e3 if name == "query-engineering" else 1.0)
+    if name == "push-exponent":  # exponent format: relative resolution
         resolution_nC = max(abs(charge_nC), 1e-12) * 10.0**-profile.reading.digits
     assert sample.charge_nC == pytest.approx(charge_nC, abs=resolution_nC)
 
@@ -60,11 +60,11 @@ def test_templates_become_patterns_that_capture_their_fields():
 @pytest.mark.parametrize(
     ("name", "command", "answer"),
     [
-        ("lumen-q", "BIAS +9999", ["ERR 2"]),
-        ("lumen-q", "FLY", ["ERR 1"]),
-        ("tallyline", "FLY", ["NAK 10"]),
-        ("ohmra-eng", "HV many", ["#5"]),
-        ("ohmra-eng", "RNG 1", ["#0"]),
+        ("query-plain", "BIAS +9999", ["ERR 2"]),
+        ("query-plain", "FLY", ["ERR 1"]),
+        ("push-exponent", "FLY", ["NAK 10"]),
+        ("query-engineering", "HV many", ["#5"]),
+        ("query-engineering", "RNG 1", ["#0"]),
     ],
 )
 def test_the_simulated_instrument_refuses_like_the_profile_says(name, command, answer):

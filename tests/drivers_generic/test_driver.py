@@ -38,22 +38,26 @@ def finish(driver: ProfileElectrometer) -> None:
     driver.close()
 
 
-# -- lumen-q: query mode, CR LF, plain decimals in nC, status letter -----------------------------
+# -- query-plain: query mode, CR LF, plain decimals in nC, status letter ---------------------------
 
 
-def test_lumen_q_reads_a_charge_in_nC_with_its_status_letter():
+def test_query_plain_reads_a_charge_in_nC_with_its_status_letter():
     driver, transport = scripted(
-        "lumen-q",
+        "query-plain",
         [
-            ("ID?", "chargebook-sim;LUMEN-Q;EM-2093;1.4.0"),
-            ("ZERO", "OK"),
+            ("ID?", "chargebook-sim;QUERY-PLAIN;SIM-EM-0001;1.4.0"),
+            ("QZ", "OK"),
             ("RUN", "OK"),
             ("HOLD", "OK"),
             ("Q?", "Q +20.1234 nC A"),
         ],
     )
     identity = driver.identify()
-    assert (identity.model, identity.serial, identity.firmware) == ("LUMEN-Q", "EM-2093", "1.4.0")
+    assert (identity.model, identity.serial, identity.firmware) == (
+        "QUERY-PLAIN",
+        "SIM-EM-0001",
+        "1.4.0",
+    )
     driver.zero()
     driver.start_integration()
     driver.stop_integration()
@@ -64,8 +68,8 @@ def test_lumen_q_reads_a_charge_in_nC_with_its_status_letter():
     finish(driver)
 
 
-def test_lumen_q_sets_bias_signed_and_refuses_beyond_500_V_before_the_wire():
-    driver, transport = scripted("lumen-q", [("BIAS -300", "OK"), ("RNG LO", "OK")])
+def test_query_plain_sets_bias_signed_and_refuses_beyond_500_V_before_the_wire():
+    driver, transport = scripted("query-plain", [("BIAS -300", "OK"), ("RNG LO", "OK")])
     driver.set_bias(-300)
     driver.set_range("LO")
     with pytest.raises(SettingOutOfRange) as refused:
@@ -80,29 +84,29 @@ def test_lumen_q_sets_bias_signed_and_refuses_beyond_500_V_before_the_wire():
     finish(driver)
 
 
-def test_lumen_q_overrange_letter_becomes_an_overrange_sample():
-    driver, _ = scripted("lumen-q", [("Q?", "Q +99.9999 nC O")])
+def test_query_plain_overrange_letter_becomes_an_overrange_sample():
+    driver, _ = scripted("query-plain", [("Q?", "Q +99.9999 nC O")])
     assert driver.read_charge().status is ReadingStatus.OVERRANGE
     finish(driver)
 
 
-def test_lumen_q_error_reply_names_the_code_and_its_meaning():
-    driver, _ = scripted("lumen-q", [("RUN", "ERR 3")])
+def test_query_plain_error_reply_names_the_code_and_its_meaning():
+    driver, _ = scripted("query-plain", [("RUN", "ERR 3")])
     with pytest.raises(InstrumentReportedError, match=r"error 3 \(not allowed while integrating\)"):
         driver.start_integration()
     finish(driver)
 
 
-def test_lumen_q_resends_on_silence_then_times_out_after_its_retries():
-    # timeout_s = 1.0, retries = 2 in lumen-q.toml: three attempts, then InstrumentTimeout.
-    driver, _ = scripted("lumen-q", [("Q?", None), ("Q?", None), ("Q?", None)])
+def test_query_plain_resends_on_silence_then_times_out_after_its_retries():
+    # timeout_s = 1.0, retries = 2 in query-plain.toml: three attempts, then InstrumentTimeout.
+    driver, _ = scripted("query-plain", [("Q?", None), ("Q?", None), ("Q?", None)])
     with pytest.raises(InstrumentTimeout, match="3 attempt"):
         driver.read_charge()
     finish(driver)
 
 
-def test_lumen_q_answers_after_one_silence():
-    driver, _ = scripted("lumen-q", [("Q?", None), ("Q?", "Q -0.0012 nC A")])
+def test_query_plain_answers_after_one_silence():
+    driver, _ = scripted("query-plain", [("Q?", None), ("Q?", "Q -0.0012 nC A")])
     assert driver.read_charge().charge_nC == pytest.approx(-0.0012, abs=1e-12)
     finish(driver)
 
@@ -118,17 +122,17 @@ def test_lumen_q_answers_after_one_silence():
         b"garbled \x00\x01\r\n",
     ],
 )
-def test_lumen_q_rejects_a_bad_reading_line_with_the_line_attached(reply):
-    driver, _ = scripted("lumen-q", [("Q?", reply)])
+def test_query_plain_rejects_a_bad_reading_line_with_the_line_attached(reply):
+    driver, _ = scripted("query-plain", [("Q?", reply)])
     with pytest.raises(ProtocolError) as rejected:
         driver.read_charge()
     assert rejected.value.line == reply[:-2]
     finish(driver)
 
 
-def test_lumen_q_over_long_reply_is_refused_not_buffered():
-    # max_line_bytes = 128 in lumen-q.toml; the instrument babbles 300 bytes without a terminator.
-    driver, _ = scripted("lumen-q", [("Q?", b"Q" * 300)])
+def test_query_plain_over_long_reply_is_refused_not_buffered():
+    # max_line_bytes = 128 in query-plain.toml; the instrument babbles 300 bytes, no terminator.
+    driver, _ = scripted("query-plain", [("Q?", b"Q" * 300)])
     with pytest.raises(ProtocolError, match="longer than 128 bytes") as rejected:
         driver.read_charge()
     assert len(rejected.value.line) == 128
@@ -137,7 +141,7 @@ def test_lumen_q_over_long_reply_is_refused_not_buffered():
 
 def test_a_partial_reply_times_out_and_is_recorded_as_traffic_at_close():
     seen = []
-    profile = load_profile("lumen-q")
+    profile = load_profile("query-plain")
     transport = ScriptedTransport(
         profile.framing,
         [("Q?", b"Q +20.12"), ("Q?", None), ("Q?", None)],
@@ -151,14 +155,14 @@ def test_a_partial_reply_times_out_and_is_recorded_as_traffic_at_close():
     assert ("rx", b"Q +20.12") in seen
 
 
-# -- tallyline: push mode, LF, exponent in coulombs, status word ----------------------------------
+# -- push-exponent: push mode, LF, exponent in coulombs, status word -------------------------------
 
 
-def test_tallyline_streams_samples_and_marks_the_end_of_beam_reading_complete():
+def test_push_exponent_streams_samples_and_marks_the_end_of_beam_reading_complete():
     driver, _ = scripted(
-        "tallyline",
+        "push-exponent",
         [
-            ("CLR", "ACK CLR"),
+            ("ZQ", "ACK ZQ"),
             ("GO", "ACK GO"),
             (None, ["S t=0.100 q=+1.000000E-09 C OK", "S t=0.200 q=+1.002000E-08 C OK"]),
             (None, "E t=0.300 q=+2.012345E-08 C OK"),
@@ -174,9 +178,9 @@ def test_tallyline_streams_samples_and_marks_the_end_of_beam_reading_complete():
     finish(driver)
 
 
-def test_tallyline_keeps_samples_that_arrive_while_it_waits_for_an_ack():
+def test_push_exponent_keeps_samples_that_arrive_while_it_waits_for_an_ack():
     driver, _ = scripted(
-        "tallyline",
+        "push-exponent",
         [("HALT", ["S t=1.000 q=+1.500000E-08 C OK", "garbage", "ACK HALT"])],
     )
     driver.stop_integration()
@@ -187,9 +191,9 @@ def test_tallyline_keeps_samples_that_arrive_while_it_waits_for_an_ack():
     finish(driver)
 
 
-def test_tallyline_fault_and_over_words_map_to_statuses():
+def test_push_exponent_fault_and_over_words_map_to_statuses():
     driver, _ = scripted(
-        "tallyline",
+        "push-exponent",
         [(None, ["S t=1.000 q=+5.000000E-06 C OVER", "S t=1.100 q=+0.000000E+00 C FAULT"])],
     )
     assert driver.next_sample(0.0).status is ReadingStatus.OVERRANGE
@@ -197,8 +201,8 @@ def test_tallyline_fault_and_over_words_map_to_statuses():
     finish(driver)
 
 
-def test_tallyline_cannot_set_bias_so_the_operator_must():
-    driver, transport = scripted("tallyline", [])
+def test_push_exponent_cannot_set_bias_so_the_operator_must():
+    driver, transport = scripted("push-exponent", [])
     assert Capability.SET_BIAS not in driver.capabilities
     with pytest.raises(NotSupported, match="by hand"):
         driver.set_bias(300)
@@ -208,14 +212,14 @@ def test_tallyline_cannot_set_bias_so_the_operator_must():
     finish(driver)
 
 
-def test_tallyline_nak_is_an_instrument_error():
-    driver, _ = scripted("tallyline", [("GO", "NAK 10")])
+def test_push_exponent_nak_is_an_instrument_error():
+    driver, _ = scripted("push-exponent", [("GO", "NAK 10")])
     with pytest.raises(InstrumentReportedError, match="unknown command"):
         driver.start_integration()
     finish(driver)
 
 
-# -- ohmra-eng: query mode, CR, engineering suffixes, numeric status ------------------------------
+# -- query-engineering: query mode, CR, engineering suffixes, numeric status -----------------------
 
 
 @pytest.mark.parametrize(
@@ -227,20 +231,24 @@ def test_tallyline_nak_is_an_instrument_error():
         ("+0.0000pC,3", 0.0, ReadingStatus.BUSY),
     ],
 )
-def test_ohmra_eng_reads_engineering_suffixes(reply, charge_nC, status):
-    driver, _ = scripted("ohmra-eng", [("CHG?", reply)])
+def test_query_engineering_reads_engineering_suffixes(reply, charge_nC, status):
+    driver, _ = scripted("query-engineering", [("CHG?", reply)])
     sample = driver.read_charge()
     assert sample.charge_nC == pytest.approx(charge_nC, rel=1e-12, abs=1e-15)
     assert sample.status is status
     finish(driver)
 
 
-def test_ohmra_eng_confirms_with_hash_zero_and_refuses_with_a_code():
+def test_query_engineering_confirms_with_hash_zero_and_refuses_with_a_code():
     driver, transport = scripted(
-        "ohmra-eng",
-        [("IDN", "chargebook-sim,OHMRA-ENG,EM-2093,0.1.0"), ("HV -100.0", "#0"), ("ACQ 1", "#5")],
+        "query-engineering",
+        [
+            ("IDN", "chargebook-sim,QUERY-ENGINEERING,SIM-EM-0001,0.1.0"),
+            ("HV -100.0", "#0"),
+            ("ACQ 1", "#5"),
+        ],
     )
-    assert driver.identify().serial == "EM-2093"
+    assert driver.identify().serial == "SIM-EM-0001"
     driver.set_bias(-100)
     with pytest.raises(InstrumentReportedError, match="value out of range"):
         driver.start_integration()
@@ -248,14 +256,14 @@ def test_ohmra_eng_confirms_with_hash_zero_and_refuses_with_a_code():
     finish(driver)
 
 
-# -- scpi-generic: no answer to settings, error queue read after each -----------------------------
+# -- scpi-generic: no answer to settings, error queue read after each ------------------------------
 
 
 def test_scpi_reads_the_error_queue_after_every_setting():
     driver, _ = scripted(
         "scpi-generic",
         [
-            ("*IDN?", "chargebook-sim,SIM-SCPI,EM-2093,0.1.0"),
+            ("*IDN?", "chargebook-sim,SIM-SCPI,SIM-EM-0001,0.1.0"),
             ("SOUR:VOLT 300.0", None),
             ("SYST:ERR?", '0,"No error"'),
             ("OUTP ON", None),
@@ -325,10 +333,12 @@ def test_a_mute_scpi_instrument_times_out_after_one_round_of_error_queries():
     finish(driver)
 
 
-# -- every profile --------------------------------------------------------------------------------
+# -- every profile ---------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("name", ["lumen-q", "tallyline", "ohmra-eng", "scpi-generic"])
+@pytest.mark.parametrize(
+    "name", ["query-plain", "push-exponent", "query-engineering", "scpi-generic"]
+)
 def test_every_profile_driver_satisfies_the_electrometer_interface(name):
     driver, _ = scripted(name, [])
     assert isinstance(driver, Electrometer)
@@ -336,7 +346,7 @@ def test_every_profile_driver_satisfies_the_electrometer_interface(name):
 
 
 def test_a_disconnect_becomes_instrument_disconnected_and_open_again_fails_while_gone():
-    driver, _ = scripted("lumen-q", [("Q?", DISCONNECT)])
+    driver, _ = scripted("query-plain", [("Q?", DISCONNECT)])
     with pytest.raises(InstrumentDisconnected):
         driver.read_charge()
     with pytest.raises(InstrumentDisconnected):
@@ -344,8 +354,8 @@ def test_a_disconnect_becomes_instrument_disconnected_and_open_again_fails_while
 
 
 def test_the_script_refuses_an_unexpected_command_and_reports_unused_pairs():
-    driver, _ = scripted("lumen-q", [("ZERO", "OK"), ("RUN", "OK")])
-    with pytest.raises(ScriptMismatch, match="expects 'ZERO'"):
+    driver, _ = scripted("query-plain", [("QZ", "OK"), ("RUN", "OK")])
+    with pytest.raises(ScriptMismatch, match="expects 'QZ'"):
         driver.start_integration()
     driver.zero()
     with pytest.raises(ScriptMismatch, match="unused"):

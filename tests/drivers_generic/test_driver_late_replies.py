@@ -2,8 +2,8 @@
 
 One late answer used to knock command/reply pairing off by one until a reconnect (the answer
 to a resent query was taken as the answer to the next command, and so on), and an instrument
-that answers every query slowly was never reported. The instrument here speaks the lumen-q
-dialect (``drivers_generic/profiles/lumen-q.toml``: "Q?" is answered "Q +n.0000 nC A", every
+that answers every query slowly was never reported. The instrument here speaks the query-plain
+dialect (``drivers_generic/profiles/query-plain.toml``: "Q?" is answered "Q +n.0000 nC A", every
 other command "OK"; the profile allows 1.0 s per answer) from a thread on the pty's master side,
 and waits before the answers we choose.
 """
@@ -28,7 +28,7 @@ from e2e_support import QUICK_PLAN, DaemonProcess
 
 
 class SlowInstrument(threading.Thread):
-    """Answers lumen-q commands on a pty; ``delay_s(n)`` is the wait before the n-th answer
+    """Answers query-plain commands on a pty; ``delay_s(n)`` is the wait before the n-th answer
     (1-based). Each "Q?" reports a charge one higher than the last, so answers can be told
     apart."""
 
@@ -51,21 +51,21 @@ class SlowInstrument(threading.Thread):
                         self.charges += 1
                         os.write(self.master, f"Q +{self.charges}.0000 nC A\r\n".encode())
                     elif line == b"ID?":
-                        os.write(self.master, b"test bench;LUMEN-Q;EM-0001;0.1.0\r\n")
+                        os.write(self.master, b"test bench;QUERY-PLAIN;SIM-EM-0002;0.1.0\r\n")
                     else:
                         os.write(self.master, b"OK\r\n")
 
 
 @pytest.fixture
 def instrument() -> Iterator[Callable[[Callable[[int], float]], object]]:
-    """Start a SlowInstrument on a fresh pty; return a driver (lumen-q) opened on it."""
+    """Start a SlowInstrument on a fresh pty; return a driver (query-plain) opened on it."""
     opened = []
 
     def start(delay_s: Callable[[int], float]):
         master, slave = os.openpty()
         tty.setraw(slave)
         SlowInstrument(master, delay_s).start()
-        driver = build_electrometer("lumen-q", port=os.ttyname(slave))
+        driver = build_electrometer("query-plain", port=os.ttyname(slave))
         driver.open()
         opened.append((driver, master, slave))
         return driver
@@ -83,7 +83,7 @@ def test_one_late_answer_does_not_put_the_following_commands_off_by_one(instrume
     assert driver.read_charge().charge_nC == 1.0
     # the 2nd "Q?" is resent after 1.0 s; its late answer (2) answers the same question
     assert driver.read_charge().charge_nC == 2.0
-    # the resent query's own answer (3) is still waiting: it must not be taken for ZERO's "OK"
+    # the resent query's own answer (3) is still waiting: it must not be taken for QZ's "OK"
     driver.zero()
     assert driver.read_charge().charge_nC == 4.0
     driver.start_integration()
@@ -113,7 +113,7 @@ async def test_the_daemon_shows_slow_answers_as_the_instruments_message(tmp_path
     master, slave = os.openpty()
     tty.setraw(slave)
     SlowInstrument(master, lambda n: 0.6).start()  # ID? answered after 0.6 s of the 1.0 s
-    args = ["serve", "--profile", "lumen-q", "--port", os.ttyname(slave), "--plan", QUICK_PLAN]
+    args = ["serve", "--profile", "query-plain", "--port", os.ttyname(slave), "--plan", QUICK_PLAN]
     args += ["--db", str(tmp_path / "station.sqlite"), "--socket", str(tmp_path / "run" / "d.s")]
     daemon = DaemonProcess(args, tmp_path / "run" / "d.s", tmp_path / "station.sqlite",
                            tmp_path / "daemon.log").start()  # fmt: skip

@@ -39,7 +39,9 @@ def expected_charge_nC(truth: dict, mu: float = MU) -> float:
     return at_reference / (truth["k_TP"] * truth["k_pol"] * truth["k_s"])
 
 
-@pytest.mark.parametrize("profile", ["lumen-q", "tallyline", "ohmra-eng", "scpi-generic"])
+@pytest.mark.parametrize(
+    "profile", ["query-plain", "push-exponent", "query-engineering", "scpi-generic"]
+)
 def test_each_profile_reads_the_simulated_chamber_over_a_real_pty(simulator, profile):
     sim = simulator("--serial", "--profile", profile, "--seed", "11", *FAST)
     assert sim.info["profile"] == profile
@@ -48,7 +50,7 @@ def test_each_profile_reads_the_simulated_chamber_over_a_real_pty(simulator, pro
         profile, port=sim.serial, traffic=lambda d, t, raw: traffic.append((d.value, raw))
     )
     try:
-        assert driver.identify().serial == "EM-2093"
+        assert driver.identify().serial == "SIM-EM-0001"
         readings = [capture(driver, sim.control) for _ in range(3)]
     finally:
         driver.close()
@@ -88,16 +90,16 @@ def test_scpi_driver_over_pyvisa_on_a_loopback_socket(simulator):
 
 
 def test_visa_asrl_resource_on_the_pty(simulator):
-    sim = simulator("--serial", "--profile", "lumen-q", *FAST)
-    driver = open_electrometer("lumen-q", resource=f"ASRL{sim.serial}::INSTR")
+    sim = simulator("--serial", "--profile", "query-plain", *FAST)
+    driver = open_electrometer("query-plain", resource=f"ASRL{sim.serial}::INSTR")
     try:
-        assert driver.identify().model == "LUMEN-Q"
+        assert driver.identify().model == "QUERY-PLAIN"
         assert capture(driver, sim.control).charge_nC > 0
     finally:
         driver.close()
 
 
-@pytest.mark.parametrize("profile", ["lumen-q", "tallyline"])
+@pytest.mark.parametrize("profile", ["query-plain", "push-exponent"])
 def test_the_pty_drops_and_comes_back_at_the_same_path(simulator, profile):
     sim = simulator("--serial", "--profile", profile, *FAST)
     driver = open_electrometer(profile, port=sim.serial)
@@ -109,7 +111,7 @@ def test_the_pty_drops_and_comes_back_at_the_same_path(simulator, profile):
             driver.identify()  # the first write may still land in a closing pty
         attempts = reconnect(driver, attempts=30, backoff_s=0.02)
         assert attempts >= 1
-        assert driver.identify().serial == "EM-2093"
+        assert driver.identify().serial == "SIM-EM-0001"
         assert capture(driver, sim.control).charge_nC > 0
     finally:
         driver.close()
@@ -130,16 +132,16 @@ def test_the_scpi_socket_drops_and_comes_back(simulator):
 
 
 def test_a_missing_port_is_instrument_disconnected_and_reconnect_gives_up(tmp_path):
-    driver = build_electrometer("lumen-q", port=str(tmp_path / "no-such-port"))
+    driver = build_electrometer("query-plain", port=str(tmp_path / "no-such-port"))
     with pytest.raises(InstrumentDisconnected, match="no-such-port"):
         reconnect(driver, attempts=3, backoff_s=0.0)
 
 
 def test_port_and_resource_are_exclusive():
     with pytest.raises(SettingOutOfRange, match="exactly one"):
-        build_electrometer("lumen-q")
+        build_electrometer("query-plain")
     with pytest.raises(SettingOutOfRange, match="exactly one"):
-        build_electrometer("lumen-q", port="/dev/null", resource="ASRL1::INSTR")
+        build_electrometer("query-plain", port="/dev/null", resource="ASRL1::INSTR")
 
 
 def test_same_seed_same_readings_whatever_the_timing(simulator):
@@ -149,9 +151,9 @@ def test_same_seed_same_readings_whatever_the_timing(simulator):
     runs = []
     for extra_readings in (0, 1):
         sim = simulator(
-            "--serial", "--profile", "ohmra-eng", "--seed", "42", "--time-scale", "0.01"
+            "--serial", "--profile", "query-engineering", "--seed", "42", "--time-scale", "0.01"
         )
-        driver = open_electrometer("ohmra-eng", port=sim.serial)
+        driver = open_electrometer("query-engineering", port=sim.serial)
         try:
             values = []
             for _ in range(4):
@@ -167,9 +169,9 @@ def test_same_seed_same_readings_whatever_the_timing(simulator):
 
 
 def test_silence_on_a_real_pty_is_an_instrument_timeout_not_a_hang(simulator, tmp_path):
-    # A lumen-q driver (short timeout) talking to an instrument that speaks SCPI: SCPI answers
+    # A query-plain driver (short timeout) talking to an instrument that speaks SCPI: SCPI answers
     # unknown commands with nothing but an error-queue entry, so every attempt meets silence.
-    text = Path(load_profile("lumen-q").source).read_text(encoding="utf-8")
+    text = Path(load_profile("query-plain").source).read_text(encoding="utf-8")
     impatient = tmp_path / "impatient.toml"
     impatient.write_text(text.replace("timeout_s = 1.0", "timeout_s = 0.05"), encoding="utf-8")
     sim = simulator("--serial", "--profile", "scpi-generic", *FAST)
@@ -196,8 +198,8 @@ def test_garbage_over_a_real_pty_is_rejected_line_by_line(simulator, tmp_path):
         entries.append({"t_s": index, "dir": "tx", "line": "Q?"})
         entries.append({"t_s": index + 0.1, "dir": "rx", "line": reply})
     log.write_text("".join(json.dumps(entry) + "\n" for entry in entries), encoding="utf-8")
-    sim = simulator("--serial", "--profile", "lumen-q", "--playback", str(log), "--speed", "0")
-    driver = open_electrometer("lumen-q", port=sim.serial)
+    sim = simulator("--serial", "--profile", "query-plain", "--playback", str(log), "--speed", "0")
+    driver = open_electrometer("query-plain", port=sim.serial)
     outcomes = []
     try:
         for _ in replies:

@@ -16,7 +16,7 @@ from chargebook.drivers_generic.transport import ScriptedTransport
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-PROFILES = ["lumen-q", "tallyline", "ohmra-eng", "scpi-generic"]
+PROFILES = ["query-plain", "push-exponent", "query-engineering", "scpi-generic"]
 LOADED = {name: load_profile(name) for name in PROFILES}
 
 
@@ -68,9 +68,9 @@ def test_non_numbers_and_non_finite_values_are_refused(text, number_format):
 @pytest.mark.parametrize(
     ("profile_name", "line", "charge_nC"),
     [
-        ("lumen-q", b"Q -19.6017 nC A", -19.6017),
-        ("tallyline", b"E t=1.488 q=+1.960222E-08 C OK", 19.60222),  # 1 C = 1e9 nC
-        ("ohmra-eng", b"+19.6022nC,0", 19.6022),
+        ("query-plain", b"Q -19.6017 nC A", -19.6017),
+        ("push-exponent", b"E t=1.488 q=+1.960222E-08 C OK", 19.60222),  # 1 C = 1e9 nC
+        ("query-engineering", b"+19.6022nC,0", 19.6022),
         ("scpi-generic", b"-1.960181E-08", -19.60181),
     ],
 )
@@ -83,12 +83,14 @@ def test_each_profile_reads_its_own_reading_line(profile_name, line, charge_nC):
 
 
 def test_identity_lines_give_their_four_fields():
-    profile = load_profile("ohmra-eng")
-    identity = parse_identity(profile.identity, b"chargebook-sim,OHMRA-ENG,EM-2093,0.1.0")
+    profile = load_profile("query-engineering")
+    identity = parse_identity(
+        profile.identity, b"chargebook-sim,QUERY-ENGINEERING,SIM-EM-0001,0.1.0"
+    )
     assert (identity.manufacturer, identity.model, identity.serial, identity.firmware) == (
         "chargebook-sim",
-        "OHMRA-ENG",
-        "EM-2093",
+        "QUERY-ENGINEERING",
+        "SIM-EM-0001",
         "0.1.0",
     )
     with pytest.raises(ProtocolError):
@@ -116,9 +118,9 @@ def test_any_bytes_become_a_sample_or_a_protocol_error(profile_name, raw):
 
 #: Lines that look almost right: a real reading with characters inserted, replaced or cut.
 _ALMOST = {
-    "lumen-q": "Q +20.1234 nC A",
-    "tallyline": "S t=0.100 q=+1.000000E-09 C OK",
-    "ohmra-eng": "+20.1234nC,0",
+    "query-plain": "Q +20.1234 nC A",
+    "push-exponent": "S t=0.100 q=+1.000000E-09 C OK",
+    "query-engineering": "+20.1234nC,0",
     "scpi-generic": "+2.012345E-08",
 }
 

@@ -8,15 +8,22 @@ import pytest
 from chargebook.drivers_generic import ProfileError, available_profiles, load_profile
 from chargebook.drivers_generic.interface import Capability, SettingOutOfRange
 
-LUMEN_Q = (Path(load_profile("lumen-q").source)).read_text(encoding="utf-8")
+QUERY_PLAIN = (Path(load_profile("query-plain").source)).read_text(encoding="utf-8")
 
 
 def test_the_shipped_profiles_are_the_three_dialects_and_scpi():
-    assert available_profiles() == ["lumen-q", "ohmra-eng", "scpi-generic", "tallyline"]
+    assert available_profiles() == [
+        "push-exponent",
+        "query-engineering",
+        "query-plain",
+        "scpi-generic",
+    ]
 
 
 def test_the_dialects_differ_in_baud_terminators_number_format_and_status():
-    profiles = {name: load_profile(name) for name in ("lumen-q", "tallyline", "ohmra-eng")}
+    profiles = {
+        name: load_profile(name) for name in ("query-plain", "push-exponent", "query-engineering")
+    }
     assert len({p.port.baud for p in profiles.values()}) == 3
     assert len({p.framing.read_terminator for p in profiles.values()}) == 3
     assert {p.reading.number_format for p in profiles.values()} == {
@@ -37,13 +44,17 @@ def test_at_least_one_profile_lacks_set_bias_and_one_has_it():
 
 def test_a_profile_can_be_given_by_path(tmp_path):
     path = tmp_path / "my-meter.toml"
-    path.write_text(LUMEN_Q.replace('name = "lumen-q"', 'name = "my-meter"'), encoding="utf-8")
+    path.write_text(
+        QUERY_PLAIN.replace('name = "query-plain"', 'name = "my-meter"'), encoding="utf-8"
+    )
     assert load_profile(path).name == "my-meter"
     assert load_profile(str(path)).name == "my-meter"
 
 
 def test_an_unknown_name_lists_the_shipped_profiles():
-    with pytest.raises(ProfileError, match="lumen-q, ohmra-eng, scpi-generic, tallyline"):
+    with pytest.raises(
+        ProfileError, match="push-exponent, query-engineering, query-plain, scpi-generic"
+    ):
         load_profile("no-such-meter")
 
 
@@ -63,14 +74,14 @@ def test_an_unknown_name_lists_the_shipped_profiles():
         ('mode = "query"', 'mode = "shout"', "profile.mode", "query, push"),
         ('"set_range"]', '"set_range", "teleport"]', "profile.capabilities", "identify"),
         ("min = -500, max = 500", "min = 500, max = -500", "validate.volts.max", "from 500"),
-        ('template = "ZERO"', "template = 7", "commands[1].template", "a string or a list"),
+        ('template = "QZ"', "template = 7", "commands[1].template", "a string or a list"),
         ('parser = "ack"', 'parser = "guess"', "parser", "ack, reading, identity"),
     ],
 )
 def test_a_bad_value_is_refused_naming_field_value_and_allowed(tmp_path, old, new, field, allowed):
-    assert old in LUMEN_Q
+    assert old in QUERY_PLAIN
     path = tmp_path / "bad.toml"
-    path.write_text(LUMEN_Q.replace(old, new, 1), encoding="utf-8")
+    path.write_text(QUERY_PLAIN.replace(old, new, 1), encoding="utf-8")
     with pytest.raises(ProfileError) as refused:
         load_profile(path)
     message = str(refused.value)
@@ -78,7 +89,7 @@ def test_a_bad_value_is_refused_naming_field_value_and_allowed(tmp_path, old, ne
 
 
 def test_a_declared_capability_needs_its_command(tmp_path):
-    text = LUMEN_Q.replace('template = "ID?"', 'template = "ID?"\n', 1)
+    text = QUERY_PLAIN.replace('template = "ID?"', 'template = "ID?"\n', 1)
     text = text.replace('[[commands]]\nname = "identify"', '[[other]]\nname = "identify"', 1)
     path = tmp_path / "bad.toml"
     path.write_text(text, encoding="utf-8")
@@ -88,7 +99,7 @@ def test_a_declared_capability_needs_its_command(tmp_path):
 
 def test_push_capabilities_need_push_mode(tmp_path):
     path = tmp_path / "bad.toml"
-    path.write_text(LUMEN_Q.replace('"set_range"]', '"set_range", "stream"]'), encoding="utf-8")
+    path.write_text(QUERY_PLAIN.replace('"set_range"]', '"set_range", "stream"]'), encoding="utf-8")
     with pytest.raises(ProfileError, match=r"profile\.mode"):
         load_profile(path)
 
@@ -101,7 +112,7 @@ def test_not_toml_at_all_is_refused(tmp_path):
 
 
 def test_commands_render_with_strict_validation_never_clamping():
-    command = load_profile("ohmra-eng").command("set_bias")
+    command = load_profile("query-engineering").command("set_bias")
     assert command.render(volts=-100) == ["HV -100.0"]
     for bad in (601, -600.5, "300", True, float("inf")):
         with pytest.raises(SettingOutOfRange) as refused:

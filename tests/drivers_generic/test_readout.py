@@ -24,7 +24,9 @@ def readout(*options: str) -> subprocess.CompletedProcess:
     )
 
 
-@pytest.mark.parametrize("profile", ["lumen-q", "tallyline", "ohmra-eng", "scpi-generic"])
+@pytest.mark.parametrize(
+    "profile", ["query-plain", "push-exponent", "query-engineering", "scpi-generic"]
+)
 def test_ten_captures_through_the_serial_driver(simulator, profile):
     sim = simulator("--serial", "--profile", profile, *FAST)
     result = readout(
@@ -48,13 +50,13 @@ def test_ten_captures_through_scpi_on_the_loopback_socket(simulator):
 
 
 def test_a_port_that_is_not_there_is_a_clear_error(tmp_path):
-    result = readout("--profile", "lumen-q", "--port", str(tmp_path / "ttyNone"))
+    result = readout("--profile", "query-plain", "--port", str(tmp_path / "ttyNone"))
     assert result.returncode == 2
     assert "ttyNone" in result.stderr and "Traceback" not in result.stderr
 
 
 def test_without_a_bench_and_without_an_operator_it_stops_cleanly(simulator):
     sim = simulator("--serial", *FAST)
-    result = readout("--profile", "lumen-q", "--port", sim.serial, "--count", "1")
+    result = readout("--profile", "query-plain", "--port", sim.serial, "--count", "1")
     assert result.returncode == 1
     assert "Deliver 100 MU" in result.stdout and "no beam was confirmed" in result.stderr

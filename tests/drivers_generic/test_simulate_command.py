@@ -13,10 +13,10 @@ from .conftest import FAST
 
 
 def test_the_announcement_is_one_json_line_with_the_contract_keys(simulator):
-    sim = simulator("--serial", "--scpi", "0", "--profile", "ohmra-eng", *FAST)
+    sim = simulator("--serial", "--scpi", "0", "--profile", "query-engineering", *FAST)
     assert set(sim.info) == {"serial", "scpi", "control", "profile", "pid"}
     assert sim.info["pid"] == sim.process.pid
-    assert sim.info["profile"] == "ohmra-eng"
+    assert sim.info["profile"] == "query-engineering"
     link = Path(sim.serial)
     assert link.is_symlink() and os.readlink(link).startswith("/dev/pts/")
     assert Path(sim.info["control"]).stat().st_mode & 0o777 == 0o600
@@ -25,13 +25,13 @@ def test_the_announcement_is_one_json_line_with_the_contract_keys(simulator):
 
 def test_without_options_it_serves_the_default_dialect_on_a_pty(simulator):
     sim = simulator(*FAST)
-    assert sim.info["scpi"] is None and sim.info["profile"] == "lumen-q"
+    assert sim.info["scpi"] is None and sim.info["profile"] == "query-plain"
 
 
 @pytest.mark.parametrize(
     ("options", "words"),
     [
-        (["--profile", "no-such-meter"], ["no-such-meter", "lumen-q"]),
+        (["--profile", "no-such-meter"], ["no-such-meter", "query-plain"]),
         (["--time-scale", "0"], ["--time-scale", "0"]),
         (["--scpi", "70000"], ["--scpi", "65535"]),
         (["--temperature-C", "80"], ["temperature_C", "80"]),

@@ -12,14 +12,14 @@ listens on a real Unix socket; tests talk to it with the real ``DaemonClient``.
 
 Fixtures (function scope; everything started is stopped at teardown):
 
-``start_simulator(profile="lumen-q", seed=1, time_scale=TIME_SCALE, *extra_args)``
+``start_simulator(profile="query-plain", seed=1, time_scale=TIME_SCALE, *extra_args)``
     -> :class:`SimulatorProcess` with ``serial`` (pty path), ``control`` (control socket path),
     ``profile``, ``pid`` and ``bench()`` (a ``SimulatorControl`` client).
 ``start_daemon(simulator, db=None, plan=QUICK_PLAN, bench=True, time_scale=TIME_SCALE)``
     -> :class:`DaemonProcess` with ``socket``, ``db``, ``pid``, ``info`` (its ready line),
     ``connect(operator=...)`` (an async ``DaemonClient``), ``kill9()``, ``restart()``, ``stop()``.
 ``simulator``  a default simulator;  ``daemon``  a daemon on it with the quick plan.
-``metadata``   the invented demo metadata (Harbourside Cancer Centre, demo only).
+``metadata``   the invented demo metadata (Example Clinic (fictional), demo only).
 
 Each process's stderr goes to a log file under ``tmp_path``, printed when a test fails to start
 one. The quick plan (``plans/quick.toml``) and TIME_SCALE keep a whole session to a few seconds.
@@ -144,7 +144,7 @@ def start_simulator(tmp_path: Path) -> Iterator[Callable[..., SimulatorProcess]]
     started: list[SimulatorProcess] = []
 
     def start(
-        profile: str = "lumen-q", seed: int = 1, time_scale: float = TIME_SCALE, *extra: str
+        profile: str = "query-plain", seed: int = 1, time_scale: float = TIME_SCALE, *extra: str
     ) -> SimulatorProcess:
         log_path = tmp_path / f"simulator-{len(started)}.log"
         args = ["simulate", "--serial", "--profile", profile, "--seed", str(seed)]
@@ -193,7 +193,7 @@ def start_daemon(tmp_path: Path) -> Iterator[Callable[..., DaemonProcess]]:
 
 @pytest.fixture
 def simulator(start_simulator: Callable[..., SimulatorProcess]) -> SimulatorProcess:
-    """A simulated electrometer (lumen-q dialect: query mode, remote bias) on a pty."""
+    """A simulated electrometer (query-plain dialect: query mode, remote bias) on a pty."""
     return start_simulator()
 
 
@@ -207,5 +207,5 @@ def daemon(
 
 @pytest.fixture
 def metadata() -> dict[str, Any]:
-    """The invented demo session metadata (Harbourside Cancer Centre; demo only)."""
+    """The invented demo session metadata (Example Clinic (fictional); demo only)."""
     return demo_metadata()

@@ -77,7 +77,7 @@ async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from
     entered = dict(
         metadata,
         carried_k_pol={"value": 1.001, "source": "report", "date": "2026-03-02",
-                       "chamber_serial": "CH-9999"},
+                       "chamber_serial": "SIM-CH-9999"},
     )  # fmt: skip
     with pytest.raises(DaemonError) as refused:
         await client.call("session.start", metadata=entered, plan=QUICK_MONTHLY)
@@ -86,7 +86,7 @@ async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from
     with Store.open(daemon.db, read_only=True) as store:
         assert store.sessions() == []  # nothing was started, nothing recorded is lost
     environment = environment_from_bench(simulator.control)
-    await AutoOperator(client, environment).run(dict(metadata, chamber_serial="CH-9999"))
+    await AutoOperator(client, environment).run(dict(metadata, chamber_serial="SIM-CH-9999"))
     check = await AutoOperator(client, environment).run(metadata, plan=QUICK_MONTHLY)
     await client.close()
     # The only full calibration used another chamber: nothing is carried, the dose is pending.

@@ -430,7 +430,7 @@ async def test_the_stop_an_abort_sends_is_recorded_with_the_aborted_session_not_
         with stored(daemon.db) as store:
             sent = [row.line for row in store.traffic(first) if row.direction == "tx"]
             later = [row.line for row in store.traffic(second) if row.direction == "tx"]
-        if sent and sent[-1].strip() == b"HOLD":  # lumen-q's stop (its profile's template)
+        if sent and sent[-1].strip() == b"HOLD":  # query-plain's stop (its profile's template)
             break
         await asyncio.sleep(0.05)
     assert sent[-1].strip() == b"HOLD", sent[-3:]

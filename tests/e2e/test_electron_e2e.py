@@ -26,7 +26,7 @@ ELECTRON = {
     "R50_cm": 4.2,
     "chamber_type": "plane-parallel",
     "chamber_model": "plane-parallel 0.35 cc",
-    "chamber_serial": "PP-1182",
+    "chamber_serial": "SIM-CH-0003",
     "k_Q": 0.91,
     "k_Q_source": "own determination against the station's reference chamber",
     "beam_quality": "10 MeV electrons",

@@ -6,7 +6,7 @@ The sessions are recorded once for the module, on one station database: a clean 
 paused, resumed, captured by hand and aborted mid-set; one whose cable is pulled mid-set and
 whose daemon is killed (kill -9) and restarted mid-set (the real daemon and the real simulator
 on a pty, as in test_daemon_e2e); and one more clean run on an electrometer that pushes its
-readings and has no remote bias (the tallyline profile: the bias is turned by hand). Each must
+readings and has no remote bias (the push-exponent profile: the bias is turned by hand). Each must
 replay exactly: every reading and every result bit-identical. The checks of exactness do not
 trust the replay's own comparison alone: they read both sessions back through the store and the
 project's result function, and check the what-if results against the published formulas.
@@ -65,8 +65,8 @@ class Station:
     pushed: int
 
 
-def start_simulator(work: Path, profile: str = "lumen-q") -> SimulatorProcess:
-    """Start `chargebook simulate` on a pty (lumen-q: query mode, remote bias)."""
+def start_simulator(work: Path, profile: str = "query-plain") -> SimulatorProcess:
+    """Start `chargebook simulate` on a pty (query-plain: query mode, remote bias)."""
     log_path = work / f"simulator-{profile}.log"
     args = ["simulate", "--serial", "--profile", profile, "--seed", "1"]
     args += ["--time-scale", str(TIME_SCALE)]
@@ -186,7 +186,7 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
             daemon.stop()
     finally:
         stop_process(simulator.process)
-    pushing = start_simulator(work, "tallyline")
+    pushing = start_simulator(work, "push-exponent")
     try:
         pushed = run_unattended(pushing, db)
     finally:
@@ -507,7 +507,7 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_
     lines = traffic_log(station, log, station.clean, capsys)
     if fault == "garbled reading":
         lines, number, original = corrupt_reading_line(lines)
-        expected = [f"line {number}", f"{original!r}", "cannot be read by profile lumen-q"]
+        expected = [f"line {number}", f"{original!r}", "cannot be read by profile query-plain"]
     elif fault == "not json":
         number = len(lines) // 2
         lines[number - 1] = lines[number - 1][:-5]

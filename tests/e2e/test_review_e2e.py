@@ -21,7 +21,7 @@ from e2e_support import chargebook_command
 
 pytestmark = pytest.mark.e2e
 
-REVIEWER = "B. Lind"
+REVIEWER = "reviewer B"
 
 
 def review(daemon, session_id: int, decision: str, reviewer: str) -> subprocess.CompletedProcess:

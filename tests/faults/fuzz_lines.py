@@ -3,7 +3,7 @@
     python -m tests.faults.fuzz_lines [--smoke]
 
 The instrument here is the simulated electrometer's own parts, run in this process: its
-tallyline dialect (``DialectResponder``) on a real pseudo-terminal (``PtyServer``), answering
+push-exponent dialect (``DialectResponder``) on a real pseudo-terminal (``PtyServer``), answering
 the daemon's commands as usual, but whose flood pushes fuzzed reading lines (seeded). The real
 daemon (``chargebook serve``) reads them with a reading armed.
 
@@ -43,10 +43,10 @@ from tests.bench.harness import (
 FULL_LINES, SMOKE_LINES = 100_000, 2_000
 GOOD_LINES = 100
 SEED = 3
-PROFILE = "tallyline"
+PROFILE = "push-exponent"
 REJECTED = "rejected a line from the electrometer"
 FLOOD_WAIT_S = 600.0
-LINE_LIMIT = 128  # tallyline.toml, max_line_bytes
+LINE_LIMIT = 128  # push-exponent.toml, max_line_bytes
 
 GOOD = b"S t=12.345 q=+2.012345E-08 C OK"
 #: First bytes a line may not start with: a reading (S, E), an ack (A) or a refusal (N).
@@ -119,12 +119,12 @@ FUZZERS = (
 
 
 def fuzzed_line(rng: random.Random) -> bytes:
-    """Return one line (without terminator) that the tallyline profile must reject."""
+    """Return one line (without terminator) that the push-exponent profile must reject."""
     return rng.choice(FUZZERS)(rng)
 
 
 class FuzzingResponder(DialectResponder):
-    """The simulated tallyline instrument whose flood pushes fuzzed lines (when ``fuzzing``)."""
+    """The simulated push-exponent instrument whose flood pushes fuzzed lines (when ``fuzzing``)."""
 
     def __init__(self, seed: int) -> None:
         profile = load_profile(PROFILE)

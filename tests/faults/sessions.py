@@ -1,6 +1,6 @@
 """What the fault runs share: a station whose sessions run by themselves, and what they saw.
 
-The daemon runs on the simulated electrometer (lumen-q dialect) with its bench attached, the
+The daemon runs on the simulated electrometer (query-plain dialect) with its bench attached, the
 end-to-end tests' quick plan and time scale, so a whole session takes a few seconds. The
 automatic operator (``acquire.operator_auto``) takes sessions through, one after another, as a
 background task; a :class:`Witness` subscribed beside it notes every reading a client was told
@@ -30,8 +30,8 @@ TIME_SCALE = 0.02
 
 @contextlib.contextmanager
 def quick_station(prefix: str) -> Iterator[Station]:
-    """Yield a station (lumen-q, fast time) whose daemon runs the quick plan with a bench."""
-    with station(prefix, "lumen-q", "--time-scale", str(TIME_SCALE)) as world:
+    """Yield a station (query-plain, fast time) whose daemon runs the quick plan with a bench."""
+    with station(prefix, "query-plain", "--time-scale", str(TIME_SCALE)) as world:
         world.start_daemon(QUICK_PLAN, bench=True, time_scale=TIME_SCALE)
         yield world
 

@@ -3,7 +3,7 @@
     python -m tests.faults.store_faults [--smoke]
 
 The daemon collects a set (a long timed integration) while the simulated electrometer
-(tallyline dialect, push mode, its own stream slowed to one line per 10 s) pushes reading lines
+(push-exponent dialect, push mode, its own stream slowed to one line per 10 s) pushes reading lines
 at a steady rate, and one of three faults strikes while the lines arrive:
 
 * disk full: the station's folder is a small tmpfs the script mounts (this needs root, as in CI
@@ -250,7 +250,7 @@ def main(argv: list[str] | None = None) -> int:
             cases.insert(0, ("disk full", DISK_FULL_S[pick]))
         else:
             out.note(f"disk full: SKIPPED, the tmpfs could not be mounted ({mount_failure})")
-        with station_in(workdir, "tallyline", *QUIET_STREAM) as world:
+        with station_in(workdir, "push-exponent", *QUIET_STREAM) as world:
             results = asyncio.run(run_cases(world, cases))
     return summarise(out, results)
 

@@ -190,7 +190,7 @@ async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanw
         await until(pilot, lambda: app.link.connected, "the daemon back")
         await until(pilot, lambda: screen_kind(app) == "measure", "the measure screen")
         assert app.snapshot["session"]["id"] == session_id  # the same session, resumed
-        assert screen_text(app).startswith(f" Session {session_id} · HCC-LA1 6 MV")
+        assert screen_text(app).startswith(f" Session {session_id} · DEMO-LA1 6 MV")
 
 
 @pytest.mark.slow
@@ -248,7 +248,7 @@ def instrument_connected(app: ConsoleApp) -> bool:
 async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_by_hand(
     start_simulator, start_daemon, metadata
 ):
-    simulator = start_simulator(profile="tallyline")  # no remote bias supply
+    simulator = start_simulator(profile="push-exponent")  # no remote bias supply
     daemon = start_daemon(simulator)
     app = console(daemon, metadata, simulator)
     async with app.run_test(size=SIZE) as pilot:

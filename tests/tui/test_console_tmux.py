@@ -126,7 +126,7 @@ async def test_the_console_in_a_terminal_attaches_quits_without_stopping_and_fin
         terminal.open_console(daemon.socket)
         await terminal.shows("Do now:")
         screen = await terminal.shows("a Arm c Capture")  # the key help, always on screen
-        assert screen.splitlines()[0].startswith(" Session 1 · HCC-LA1 6 MV · waiting for you")
+        assert screen.splitlines()[0].startswith(" Session 1 · DEMO-LA1 6 MV · waiting for you")
         snapshot = client.latest_snapshot
         while snapshot["step_index"] < 1:  # the leakage step, by keys
             snapshot = await next_key(terminal, client, snapshot)
