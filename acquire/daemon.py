@@ -462,6 +462,7 @@ class Daemon:
             resource=options.resource,
             traffic=self._record_traffic,
             clock=self.clock,
+            visa_library=options.visa_library,
         )
         self.engine = Engine(
             self.store,
