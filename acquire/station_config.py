@@ -48,8 +48,11 @@ def default_config_path(environ: dict[str, str] | None = None) -> Path | None:
     env = os.environ if environ is None else environ
     base = Path(env.get("XDG_CONFIG_HOME") or Path.home() / ".config")
     for candidate in (base / "chargebook" / "station.toml", SYSTEM_FILE):
-        if candidate.is_file():
-            return candidate
+        try:
+            if candidate.is_file():
+                return candidate
+        except PermissionError:  # a folder this user may not look into holds no file for it
+            continue
     return None
 
 

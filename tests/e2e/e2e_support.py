@@ -184,6 +184,7 @@ def start_daemon(tmp_path: Path) -> Iterator[Callable[..., DaemonProcess]]:
         args = ["serve", "--profile", simulator.profile, "--port", simulator.serial]
         args += ["--db", str(db_path), "--socket", str(socket_path), "--plan", plan]
         args += ["--time-scale", str(time_scale), "--log-level", "INFO"]
+        args += ["--config", os.devnull]  # no station file of this machine
         if bench:
             args += ["--bench-control", simulator.control]
         args += extra

@@ -151,3 +151,17 @@ def test_the_station_file_runs_the_daemon_and_the_command_line_overrides_it(
 
         stop_process(process)
     assert process.returncode == 0
+
+
+def test_the_demo_reads_no_station_file(tmp_path):
+    # A station machine's own file (here one serve would refuse) must not reach the demo.
+    (tmp_path / "chargebook").mkdir()
+    (tmp_path / "chargebook" / "station.toml").write_text('thresholds = "x"\nbaud = 1\n')
+    env = dict(os.environ, XDG_CONFIG_HOME=str(tmp_path))
+    command = chargebook_command(
+        "demo", "--unattended", "--plan", QUICK_PLAN, "--time-scale", "0.02",
+        "--db", str(tmp_path / "demo.sqlite"),
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120, env=env)
+    assert done.returncode == 0, done.stderr
+    assert "baud" not in done.stderr
