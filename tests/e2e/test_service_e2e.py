@@ -12,6 +12,7 @@ import os
 import socket
 import stat
 import subprocess
+import time
 
 import pytest
 from chargebook.acquire import protocol
@@ -165,3 +166,36 @@ def test_the_demo_reads_no_station_file(tmp_path):
     done = subprocess.run(command, capture_output=True, text=True, timeout=120, env=env)
     assert done.returncode == 0, done.stderr
     assert "baud" not in done.stderr
+
+
+def test_an_unreachable_electrometer_is_logged_at_the_default_level_once_per_cause(tmp_path):
+    # A service manager keeps WARNING and above: the operator's first clue must be among them,
+    # and the retries (every 0.2 to 2 s) must not flood the journal.
+    log_path = tmp_path / "serve.log"
+    command = chargebook_command(
+        "serve", "--profile", "lumen-q", "--port", str(tmp_path / "no-such-tty"),
+        "--db", str(tmp_path / "s.sqlite"), "--socket", str(tmp_path / "run" / "d.sock"),
+        "--config", os.devnull,
+    )  # fmt: skip
+    with log_path.open("wb") as log:
+        process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=log)
+    try:
+        from e2e_support import read_ready_line
+
+        read_ready_line(process, log_path)
+        for _ in range(600):  # until the first attempt has been logged
+            if "not reachable" in log_path.read_text():
+                break
+            time.sleep(0.05)
+        time.sleep(3.0)  # several retries with the same cause
+    finally:
+        from e2e_support import stop_process
+
+        stop_process(process)
+    said = [line for line in log_path.read_text().splitlines() if "not reachable" in line]
+    assert len(said) == 1, said
+    assert "no-such-tty" in said[0]
+    help_text = subprocess.run(
+        chargebook_command("serve", "--help"), capture_output=True, text=True, check=True
+    ).stdout
+    assert "once per new cause" in " ".join(help_text.split())
