@@ -579,7 +579,11 @@ class Daemon:
         resumed = self.engine.restore()
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
-        await self.watch_server.start()
+        try:
+            await self.watch_server.start()
+        except BaseException:
+            await self.server.close()  # leave no control socket behind a refused start
+            raise
         self.link.start()
         info = {
             "socket": str(self.options.socket_path),

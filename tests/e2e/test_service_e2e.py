@@ -199,3 +199,17 @@ def test_an_unreachable_electrometer_is_logged_at_the_default_level_once_per_cau
         chargebook_command("serve", "--help"), capture_output=True, text=True, check=True
     ).stdout
     assert "once per new cause" in " ".join(help_text.split())
+
+
+def test_a_watch_socket_path_that_is_taken_stops_the_start_and_leaves_no_control_socket(tmp_path):
+    run = tmp_path / "run"
+    run.mkdir(mode=0o700)
+    (run / "watch.sock").write_text("not a socket")
+    command = chargebook_command(
+        "serve", "--profile", "lumen-q", "--port", "/dev/null", "--db", str(tmp_path / "s.sqlite"),
+        "--socket", str(run / "daemon.sock"), "--config", os.devnull,
+    )  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, timeout=60, check=False)
+    assert done.returncode == 2
+    assert "watch.sock exists and is not a socket" in done.stderr
+    assert not (run / "daemon.sock").exists()
