@@ -32,6 +32,8 @@ COMMANDS: dict[str, str] = {
     "replay": "replay",
     "history": "history",
     "verify": "verify",
+    "review": "review",
+    "backup": "backup",
     "completion": "completion",
 }
 

@@ -114,6 +114,7 @@ class DaemonOptions:
     thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
     visa_library: str | None = None  # pyvisa's library for a resource; None: $PYVISA_LIBRARY/@py
     socket_group: str | None = None  # a group that may use the sockets (0750 / 0660); None: 0700
+    station_name: str | None = None  # the station's name; None: keep the recorded one
 
     @property
     def watch_socket_path(self) -> Path:
@@ -450,6 +451,8 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        if options.station_name:
+            self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
         bench = None
         if options.bench_control:
@@ -924,6 +927,8 @@ class Daemon:
             return {}
         if method == protocol.Method.STATUS:
             return self.snapshot()
+        if method == protocol.Method.SESSION_REVIEW:
+            return self._review(connection, params)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -936,6 +941,28 @@ class Daemon:
         finally:
             await self.after_change()  # a refused request may still have recorded something
         return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.review import record_review
+        from chargebook.corrections.errors import InputError
+
+        assert self.store is not None
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
+        with self.store.on_behalf_of(connection.account):
+            review = record_review(
+                self.store,
+                params["session"],
+                params["decision"],
+                params["reviewer"],
+                params["comment"],
+                allow_self_review=bool(params.get("allow_self_review", False)),
+            )
+        return review.to_dict()
 
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
         engine = self.engine

@@ -31,6 +31,9 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
     if not args.time_scale > 0:
         raise InputError("--time-scale", args.time_scale, "a number above 0")
     load_plan(args.plan)
+    station_name = getattr(args, "station_name", None)
+    if station_name is not None and not station_name.strip():
+        raise InputError("--station-name", station_name, "a non-empty name")
     socket = socket_path or Path(getattr(args, "socket", None) or protocol.default_socket_path())
     return DaemonOptions(
         profile=args.profile,
@@ -44,6 +47,7 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
         thresholds=load_thresholds(args.thresholds) if args.thresholds else None,
         visa_library=getattr(args, "visa_library", None),
         socket_group=getattr(args, "socket_group", None),
+        station_name=station_name,
     )
 
 

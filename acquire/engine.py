@@ -779,7 +779,9 @@ class Engine:
         if self.session_id is None:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
         else:
-            context = SessionContext(self.plan, self.metadata, self.thresholds, self.integration_s)
+            context = SessionContext(
+                self.plan, self.metadata, self.thresholds, self.integration_s, self.time_scale
+            )
             active_id = self.active.id if self.active is not None else None
             found = evaluate_session(self.store, self.session_id, context, active_id)
             value = (found.results(), found.provisional, found.error)

@@ -6,14 +6,18 @@ bias, attempt and status; ``seq`` (the stored order, settling readings included)
 the reading enters the dose: a non-settling reading of an accepted routine, opposite or
 reduced-bias set) and ``role`` (what the reading is for, in words: ``dose``, ``leakage check``,
 ``return check``, ``warm-up``, ``settling``, or ``set superseded`` and the like for a set that
-was not accepted). Columns: :data:`CSV_COLUMNS`.
+was not accepted); ``station_uuid`` and ``session_uuid`` (the session's ids across stations).
+Columns: :data:`CSV_COLUMNS`.
 
 JSON: one object with the keys of :data:`JSON_KEYS`:
 
 * ``format`` ("chargebook-session") and ``format_version`` (1);
 * ``generated_at`` (UTC ISO) and ``chargebook_version``;
 * ``session``: the stored row (``id, created_at, status, convention, beam, replay_of,
-  closed_at, reason``) with ``metadata`` and ``plan`` decoded;
+  closed_at, reason, uuid``) with ``metadata`` and ``plan`` decoded;
+* ``station``: the station that keeps the record (``uuid``, ``name``, ``created_at``);
+* ``review``: the review (``status`` approved or rejected, ``reviewer``, ``comment``,
+  ``reviewed_at``, ``account``, ``measured_by``), or null while unreviewed;
 * ``instrument``: the identity the daemon recorded (``instrument_identified``), or null;
 * ``sets``: each reading set's stored row, with ``readings`` (each reading's stored row);
 * ``environment``: every environment entry; ``events``: the whole audit log, ``detail`` decoded;
@@ -52,6 +56,8 @@ JSON_KEYS = (
     "generated_at",
     "chargebook_version",
     "session",
+    "station",
+    "review",
     "instrument",
     "sets",
     "environment",
@@ -83,6 +89,8 @@ CSV_COLUMNS = (
     "used",
     "role",
     "recorded_at",
+    "station_uuid",
+    "session_uuid",
 )
 
 #: What an accepted set's non-settling readings are for, by the set's purpose.
@@ -150,6 +158,8 @@ def to_csv(record: SessionRecord) -> str:
                     int(role == "dose"),
                     role,
                     reading.recorded_at,
+                    record.station.uuid if record.station else "",
+                    record.session.uuid or "",
                 )
             )
     return out.getvalue()
@@ -175,6 +185,8 @@ def to_json_data(
         "generated_at": generated_at(),
         "chargebook_version": chargebook_version(),
         "session": session,
+        "station": plain(record.station),
+        "review": record.review.to_dict() if record.review else None,
         "instrument": record.instrument,
         "sets": [{**plain(s.row), "readings": plain(s.readings)} for s in record.sets],
         "environment": plain(record.environment),

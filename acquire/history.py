@@ -22,6 +22,7 @@ from dataclasses import dataclass
 from chargebook.acquire.carried_start import OUTPUT_CHECK, session_kind
 from chargebook.acquire.report_data import SessionRecord, load_record
 from chargebook.acquire.report_sections import Table, number, signed, when
+from chargebook.acquire.review import UNREVIEWED, review_status
 from chargebook.acquire.store import NotFound, SessionRow, Store
 from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
@@ -50,6 +51,9 @@ class HistoryPoint:
     flags: tuple[str, ...] = ()
     #: "full calibration" (the plan measures k_pol and k_s) or "output check" (they are carried).
     kind: str = ""
+    #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
+    review: str = UNREVIEWED
+    session_uuid: str | None = None  # the session's id across stations
 
 
 @dataclass(frozen=True)
@@ -62,6 +66,7 @@ class History:
     baseline_label: str
     baseline_cGy_per_MU: float | None
     points: tuple[HistoryPoint, ...]
+    station_uuid: str | None = None  # the station that keeps the sessions
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -132,6 +137,8 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         problem=problem,
         flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
         kind=session_kind(record.session.plan()),
+        review=review_status(record.review),
+        session_uuid=record.session.uuid,
     )
 
 
@@ -176,7 +183,8 @@ def load_history(
     baseline: str = "expected",
     include_all: bool = False,
 ) -> History:
-    """Return the output history of ``beam`` (finished, non-replay sessions unless include_all)."""
+    """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
+    review, unless ``include_all`` (then every session, a rejected one marked)."""
     choice = parse_baseline(baseline)
     rows = [
         row
@@ -185,6 +193,8 @@ def load_history(
         and (include_all or (row.status == "finished" and row.replay_of is None))
     ]
     records = [load_record(store, row.id, check_chain=False) for row in rows]
+    if not include_all:
+        records = [r for r in records if review_status(r.review) != "rejected"]
     value, label = _baseline_value(choice, store, records)
     return History(
         beam=beam,
@@ -193,6 +203,7 @@ def load_history(
         baseline_label=label,
         baseline_cGy_per_MU=value,
         points=tuple(_point(record, value) for record in records),
+        station_uuid=store.station().uuid,
     )
 
 
@@ -222,7 +233,7 @@ def history_table(history: History) -> Table:
             str(p.session_id),
             when(p.created_at),
             p.machine,
-            p.status,
+            p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",
             p.kind,
             number(p.dose_per_MU_cGy, 4, "—"),
             number(p.expected_cGy_per_MU, 4, "—"),

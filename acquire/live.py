@@ -19,7 +19,7 @@ from chargebook.acquire.plan import COMPARED_PURPOSES, Plan, Step, load_plan
 from chargebook.acquire.session_meta import SessionMetadata
 from chargebook.acquire.store import EventRow, ReadingRow, SetRow
 from chargebook.corrections import limits, units
-from chargebook.corrections.errors import InputError
+from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.signs import contradicting
 from chargebook.corrections.stability import (
     SET_NAMES,
@@ -207,6 +207,18 @@ def delivery_flags(
     time_scale: float,
     reference_nC_per_MU: float | None,
 ) -> list[dict[str, str]]:
+    """Return :func:`delivery_flag_list` as the snapshot's flag dicts."""
+    flags = delivery_flag_list(step, readings, integration_s, time_scale, reference_nC_per_MU)
+    return [flag.to_dict() for flag in flags]
+
+
+def delivery_flag_list(
+    step: Step | None,
+    readings: Sequence[ReadingRow],
+    integration_s: Mapping[int, float],
+    time_scale: float,
+    reference_nC_per_MU: float | None,
+) -> list[Flag]:
     """Return the flags of a beam set's delivery: integrations too short for the step's MU
     (the instrument clock's seconds divided by the daemon's ``time_scale``), and a charge per
     MU far from the routine set's (``reference_nC_per_MU``; None while there is none)."""
@@ -220,7 +232,7 @@ def delivery_flags(
     if used and reference_nC_per_MU is not None and step.purpose != "routine":
         per_MU = sum(abs(r.charge_nC) for r in used) / len(used) / monitor_units
         flags += charge_per_MU_flags(label, step.purpose, per_MU, "routine", reference_nC_per_MU)
-    return [flag.to_dict() for flag in flags]
+    return flags
 
 
 def routine_nC_per_MU(

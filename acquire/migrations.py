@@ -19,6 +19,8 @@ facts, and are never deleted.
 
 from __future__ import annotations
 
+import socket
+import uuid
 from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -342,11 +344,77 @@ def _run_triggers(db: Database, sql: str) -> None:
             db.execute(statement + "END;")
 
 
+def session_uuid_at_migration(station_uuid: str, session_id: int) -> str:
+    """Return the UUID the migration ``station_identity`` gives a session recorded before it:
+    a name-based UUID (version 5) of the session id in the station's UUID as namespace, so
+    that it is the same whenever it is computed again (and ``verify`` can check it)."""
+    return str(uuid.uuid5(uuid.UUID(station_uuid), f"session {session_id}"))
+
+
+def default_station_name() -> str:
+    """Return the name a station gets until one is configured: the host name."""
+    return socket.gethostname() or "station"
+
+
+_STATION_TRIGGERS = """
+    CREATE TRIGGER station_refuse_identity_change BEFORE UPDATE OF id, uuid, created_at ON station
+    BEGIN
+        SELECT RAISE(ABORT, 'station: the identity of a station cannot change');
+    END;
+    CREATE TRIGGER station_refuse_delete BEFORE DELETE ON station
+    BEGIN
+        SELECT RAISE(ABORT, 'station: the station row cannot be deleted');
+    END;
+    CREATE TRIGGER station_refuse_second BEFORE INSERT ON station
+    WHEN EXISTS (SELECT 1 FROM station)
+    BEGIN
+        SELECT RAISE(ABORT, 'station: a file records one station');
+    END;
+    CREATE TRIGGER sessions_refuse_uuid_change BEFORE UPDATE OF uuid ON sessions
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: the uuid of a session cannot change');
+    END;
+    CREATE TRIGGER sessions_refuse_no_uuid BEFORE INSERT ON sessions
+    WHEN NEW.uuid IS NULL
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: a session must be recorded with its uuid');
+    END;
+"""
+
+
+def _station_identity(db: Database) -> None:
+    """Give the file a station (a new random UUID and, until configured, the host name) and
+    every session a UUID: sessions recorded before get :func:`session_uuid_at_migration`, new
+    ones a random UUID (version 4) recorded in their ``session_created`` event too."""
+    station_uuid = str(uuid.uuid4())
+    db.execute(
+        "CREATE TABLE station (id INTEGER PRIMARY KEY CHECK (id = 1), uuid TEXT NOT NULL, "
+        "name TEXT NOT NULL, created_at TEXT NOT NULL)"
+    )
+    db.execute(
+        "INSERT INTO station (id, uuid, name, created_at) VALUES (1, ?, ?, ?)",
+        (
+            station_uuid,
+            default_station_name(),
+            datetime.now(UTC).isoformat(timespec="microseconds"),
+        ),
+    )
+    db.execute("ALTER TABLE sessions ADD COLUMN uuid TEXT")
+    ids = [row[0] for row in db.execute("SELECT id FROM sessions").fetchall()]
+    db.conn.executemany(
+        "UPDATE sessions SET uuid = ? WHERE id = ?",
+        [(session_uuid_at_migration(station_uuid, session_id), session_id) for session_id in ids],
+    )
+    db.execute("CREATE UNIQUE INDEX sessions_by_uuid ON sessions(uuid)")
+    _run_triggers(db, _STATION_TRIGGERS)
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
     Migration("index_rows_by_session", _index_rows_by_session),
     Migration("chain_appended_rows", _chain_appended_rows),
+    Migration("station_identity", _station_identity),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

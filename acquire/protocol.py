@@ -138,6 +138,7 @@ class Method(enum.StrEnum):
     SESSION_STOP = "session.stop"
     SESSION_ABORT = "session.abort"
     SESSION_CLOSE = "session.close"
+    SESSION_REVIEW = "session.review"
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -161,6 +162,7 @@ NOTIFY_SNAPSHOT = "snapshot"
 NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
+REVIEW_DECISIONS = ("approve", "reject")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -274,6 +276,29 @@ METHODS: dict[str, MethodSpec] = {
         MethodSpec(
             Method.SESSION_CLOSE,
             "Leave a finished or aborted session and return to idle (ready for a new one).",
+        ),
+        MethodSpec(
+            Method.SESSION_REVIEW,
+            "Record the review of a finished or aborted session by a second person (any closed "
+            "session of the station, not only the current one): approved or rejected, with a "
+            "comment; the reviewer is the actor, the connection's Unix account is kept beside.",
+            (
+                Param("session", "integer", required=True, doc="the session id"),
+                Param("decision", "string", required=True, choices=REVIEW_DECISIONS),
+                Param("reviewer", "string", required=True, doc="the reviewer's name"),
+                Param("comment", "string", required=True, doc="why, in the reviewer's words"),
+                Param(
+                    "allow_self_review",
+                    "boolean",
+                    doc="let the operator who measured review (default false)",
+                ),
+                Param(
+                    "db",
+                    "string",
+                    doc="the station file the client means; refused if the daemon keeps another",
+                ),
+            ),
+            result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
         ),
     )
 }

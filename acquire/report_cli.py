@@ -29,6 +29,13 @@ def add_db_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--db", metavar="FILE", type=Path, default=None, help=DB_HELP)
 
 
+def add_output_argument(parser: argparse.ArgumentParser) -> None:
+    """Add ``-o/--output FILE``: write there (whole, or not at all) instead of stdout."""
+    parser.add_argument(
+        "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
+    )
+
+
 def add_session_argument(parser: argparse.ArgumentParser) -> None:
     """Add the SESSION positional argument (a session id, as `chargebook sessions` lists)."""
     parser.add_argument("session", metavar="SESSION", type=int, help="session id")

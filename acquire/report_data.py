@@ -19,8 +19,17 @@ from typing import Any
 
 from chargebook.acquire.live import LEAKAGE_SUBTRACTION_EVENT
 from chargebook.acquire.plan import Plan
+from chargebook.acquire.review import Review, review_of
 from chargebook.acquire.session_evaluation import SessionContext, evaluate_session, stored_context
-from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SessionRow, SetRow, Store
+from chargebook.acquire.store import (
+    EnvironmentRow,
+    EventRow,
+    ReadingRow,
+    SessionRow,
+    SetRow,
+    StationRow,
+    Store,
+)
 from chargebook.acquire.verify import ChainReport, verify_session
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
@@ -71,6 +80,12 @@ class SessionRecord:
     results_error: str | None
     instrument: dict[str, Any] | None = None
     integrity: ChainReport | None = None  # the check of the session's hash chain
+    station: StationRow | None = None  # the station that keeps the record
+
+    @property
+    def review(self) -> Review | None:
+        """Return the session's review (approved or rejected), or None while unreviewed."""
+        return review_of(self.events)
 
     def integrity_warning(self) -> str | None:
         """Return, when the record does not verify, the warning to put at the top; else None."""
@@ -155,6 +170,7 @@ def load_record(store: Store, session_id: int, *, check_chain: bool = True) -> S
         results_error=found.error,
         instrument=instrument_identity(store, session, events),
         integrity=verify_session(store, session_id) if check_chain else None,
+        station=store.station(),
     )
 
 

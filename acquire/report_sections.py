@@ -11,15 +11,19 @@ from __future__ import annotations
 
 import contextlib
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 from chargebook.acquire.numbering import reading_labels
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
+from chargebook.acquire.report_audit import event_words
 from chargebook.acquire.report_data import SessionRecord, SetRecord
+from chargebook.acquire.review import review_words
 from chargebook.acquire.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
+from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.statistics import SetStatistics, set_statistics
 from chargebook.corrections.student_t import dof_text
 from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
@@ -38,6 +42,20 @@ class Table:
     keys: tuple[str, ...] = ()
     note: str = ""
     extra: dict[str, Any] = field(default_factory=dict)
+
+
+def keyed_table(
+    title: str, rows: Sequence[tuple[str, str, str]], note: str = "", **extra: Any
+) -> Table:
+    """Return a two-column (item, value) table from (key, label, value) rows."""
+    return Table(
+        title,
+        ("item", "value"),
+        tuple((label, value) for _, label, value in rows),
+        tuple(key for key, _, _ in rows),
+        note=note,
+        extra=extra,
+    )
 
 
 def number(value: float | None, digits: int, missing: str = PENDING) -> str:
@@ -96,6 +114,11 @@ def identity(record: SessionRecord) -> Table:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
         rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+    rows[1:1] = [
+        ("Review", _review_text(record), "review"),
+        ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
+        ("Station", _station_text(record), "station"),
+    ]
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
@@ -105,6 +128,17 @@ def identity(record: SessionRecord) -> Table:
         tuple((label, value) for label, value, _ in rows),
         tuple(key for _, _, key in rows),
     )
+
+
+def _station_text(record: SessionRecord) -> str:
+    station = record.station
+    return NOT_GIVEN if station is None else f"{station.name}, UUID {station.uuid}"
+
+
+def _review_text(record: SessionRecord) -> str:
+    review = record.review
+    words = review_words(review)
+    return words if review is None else f"{words}: {review.comment}"
 
 
 def _pair(meta: dict[str, Any], model: str, serial: str) -> str:
@@ -198,6 +232,7 @@ def reading_sets(record: SessionRecord) -> Table:
                 row.step_key,
                 row.purpose,
                 f"{row.bias_V:+g} V",
+                mu_per_reading_text(record, row.step_index),
                 str(row.attempt),
                 row.status,
                 f"{len(reading_set.used)}" + (f" (+{settling} settling)" if settling else ""),
@@ -213,6 +248,7 @@ def reading_sets(record: SessionRecord) -> Table:
             "key",
             "purpose",
             "bias",
+            "MU per reading",
             "attempt",
             "status",
             "readings",
@@ -222,8 +258,18 @@ def reading_sets(record: SessionRecord) -> Table:
         ),
         tuple(rows),
         tuple(f"set-{s.row.id}" for s in record.sets),
-        note="Only accepted sets are used for results; settling readings are kept, not used.",
+        note="Only accepted sets are used for results; settling readings are kept, not used. "
+        "MU per reading: as the plan asks for each delivery.",
     )
+
+
+def mu_per_reading_text(record: SessionRecord, step_index: int) -> str:
+    """Return the MU per reading the plan sets for a step ("100 MU", "beam off", or "—")."""
+    plan = record.plan
+    if plan is None or not 0 <= step_index < len(plan.steps):
+        return NOT_GIVEN
+    step = plan.steps[step_index]
+    return "beam off" if step.purpose == "leakage" else f"{step.mu_per_reading:g} MU"
 
 
 READING_HEADERS = (
@@ -279,9 +325,13 @@ def readings(record: SessionRecord) -> Table:
 
 def factors(record: SessionRecord) -> Table:
     """Return the correction factors with their symbols, states and sources."""
-    evaluation = record.evaluation
+    return factors_of(record.evaluation, _no_results(record))
+
+
+def factors_of(evaluation: Evaluation | None, missing: str = "No results.") -> Table:
+    """Return an evaluation's correction factors (``missing``: the note when there is none)."""
     if evaluation is None:
-        return Table("Correction factors", ("symbol", "value"), (), note=_no_results(record))
+        return Table("Correction factors", ("symbol", "value"), (), note=missing)
     rows = tuple(
         (
             factor.symbol,
@@ -369,9 +419,13 @@ def results(record: SessionRecord) -> Table:
 
 def budget(record: SessionRecord) -> Table:
     """Return the uncertainty budget (GUM), one line per component."""
-    evaluation = record.evaluation
+    return budget_of(record.evaluation, _no_results(record))
+
+
+def budget_of(evaluation: Evaluation | None, missing: str = "No results.") -> Table:
+    """Return an evaluation's uncertainty budget (``missing``: the note when there is none)."""
     if evaluation is None or not evaluation.budget:
-        return Table("Uncertainty budget", ("component", "u (%)"), (), note=_no_results(record))
+        return Table("Uncertainty budget", ("component", "u (%)"), (), note=missing)
     rows = tuple(
         (c.component, number(c.u_rel_pct, 3, NOT_GIVEN), c.source) for c in evaluation.budget
     )
@@ -400,10 +454,14 @@ def _monte_carlo_note(evaluation: Any) -> str:
 
 
 def flags(record: SessionRecord) -> Table:
-    """Return the flags raised on the results, in words."""
-    evaluation = record.evaluation
+    """Return the flags raised on the results, in words, the most severe first."""
+    return flags_of(record.evaluation, _no_results(record))
+
+
+def flags_of(evaluation: Evaluation | None, missing: str = "No results.") -> Table:
+    """Return an evaluation's flags, the most severe first (``missing``: when there is none)."""
     if evaluation is None:
-        return Table("Flags", ("severity", "message"), (), note=_no_results(record))
+        return Table("Flags", ("severity", "message"), (), note=missing)
     ordered = by_severity(evaluation.flags)
     rows = tuple(
         (f"{SEVERITY_MARKERS.get(f.severity, '!')} {f.severity}", f.message) for f in ordered
@@ -418,11 +476,9 @@ def flags(record: SessionRecord) -> Table:
 
 
 def audit(record: SessionRecord) -> Table:
-    """Return the audit of redos, aborts, manual steps and status changes, oldest first."""
-    rows = [
-        (when(e.recorded_at), e.actor, e.kind.replace("_", " "), _detail_text(e.detail()))
-        for e in record.audit()
-    ]
+    """Return the audit of redos, aborts, manual steps and status changes, oldest first, in
+    words: "Step 6, return-to-start check: redone" (steps numbered from 1, as the console)."""
+    rows = [(when(e.recorded_at), e.actor, *event_words(record, e)) for e in record.audit()]
     keys = [f"event-{e.id}" for e in record.audit()]
     recorded_by = {
         e.detail().get("reading_id"): e.actor for e in record.events if e.kind == "reading_recorded"
@@ -445,10 +501,6 @@ def audit(record: SessionRecord) -> Table:
         tuple(keys[i] for i in order),
         note="" if rows else "No redo, manual step or status change was recorded.",
     )
-
-
-def _detail_text(detail: dict[str, Any]) -> str:
-    return ", ".join(f"{key}: {value}" for key, value in detail.items() if value not in (None, ""))
 
 
 def _no_results(record: SessionRecord) -> str:

@@ -76,11 +76,14 @@ def _limits(values: Sequence[float]) -> tuple[float, float]:
     return low - pad, high + pad
 
 
-def _ticks(low: float, high: float, count: int = 6) -> list[float]:
-    """Return round tick values (1, 2, 2.5 or 5 times a power of ten apart) within low..high."""
-    raw = (high - low) / (count - 1)
+def _ticks(low: float, high: float, count: int = 6, min_step: float = 0.0) -> list[float]:
+    """Return round tick values (1, 2, 2.5 or 5 times a power of ten apart, and at least
+    ``min_step``) within low..high."""
+    raw = max((high - low) / (count - 1), min_step)
     magnitude = 10 ** math.floor(math.log10(raw))
-    step = next(m * magnitude for m in (1, 2, 2.5, 5, 10) if m * magnitude >= raw)
+    # 2.5 needs one decimal more than its power of ten: not with a stated resolution.
+    factors = (1, 2, 2.5, 5, 10) if min_step == 0 else (1, 2, 5, 10)
+    step = next(m * magnitude for m in factors if m * magnitude >= raw)
     first = math.ceil(low / step)
     return [
         (first + i) * step
@@ -89,8 +92,11 @@ def _ticks(low: float, high: float, count: int = 6) -> list[float]:
     ]
 
 
-def _fmt(value: float) -> str:
-    return f"{round(value, 9):g}"
+def _fmt(value: float, decimals: int | None = None) -> str:
+    if decimals is None:
+        return f"{round(value, 9):g}"
+    text = f"{value:+.{decimals}f}"
+    return text if float(text) != 0 else f"{0:.{decimals}f}"
 
 
 def plot(
@@ -102,8 +108,14 @@ def plot(
     lines: Sequence[Line] = (),
     bands: Sequence[Band] = (),
     x_ticks: Sequence[tuple[float, str]] = (),
+    y_decimals: int | None = None,
+    y_min_step: float = 0.0,
 ) -> str:
-    """Return an inline ``<svg>`` element plotting ``points`` with reference lines and bands."""
+    """Return an inline ``<svg>`` element plotting ``points`` with reference lines and bands.
+
+    ``y_decimals``: the y tick labels' decimals (signed), e.g. the instrument's resolution;
+    ``y_min_step``: the finest y tick step (no finer than that resolution).
+    """
     ys = [p.y for p in points] + [line.y for line in lines]
     ys += [v for band in bands for v in (band.low, band.high)]
     xs = [p.x for p in points] or [0.0]
@@ -125,7 +137,7 @@ def plot(
             f'data-low="{band.low!r}" data-high="{band.high!r}"><title>{escape(band.label)}'
             "</title></rect>"
         )
-    parts += _axes(sy, y_low, y_high, x_label, y_label)
+    parts += _axes(sy, y_low, y_high, x_label, y_label, y_decimals, y_min_step)
     for x, label in x_ticks:
         parts.append(
             f'<text class="tick" x="{sx(x):.1f}" y="{HEIGHT - MARGIN_BOTTOM + 14}" '
@@ -139,10 +151,11 @@ def plot(
             f'<line class="ref" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{WIDTH - MARGIN_RIGHT}" '
             f'y1="{y:.1f}" y2="{y:.1f}"{dash} data-y="{line.y!r}"/>'
         )
-        labels.append(  # drawn last, over the points, with a halo
-            f'<text class="ref-label" x="{WIDTH - MARGIN_RIGHT - 2}" y="{y - 3:.1f}" '
-            f'text-anchor="end"{HALO}>{escape(line.label)}</text>'
-        )
+        if line.label:  # drawn last, over the points, with a halo
+            labels.append(
+                f'<text class="ref-label" x="{WIDTH - MARGIN_RIGHT - 2}" y="{y - 3:.1f}" '
+                f'text-anchor="end"{HALO}>{escape(line.label)}</text>'
+            )
     for point in points:
         attrs = "".join(f' data-{k}="{escape(str(v))}"' for k, v in point.attrs.items())
         css = "point" + (" hollow" if point.hollow else "") + (" alarm" if point.alarm else "")
@@ -157,7 +170,15 @@ def plot(
     return "".join(parts)
 
 
-def _axes(sy: _Scale, low: float, high: float, x_label: str, y_label: str) -> list[str]:
+def _axes(
+    sy: _Scale,
+    low: float,
+    high: float,
+    x_label: str,
+    y_label: str,
+    decimals: int | None,
+    min_step: float,
+) -> list[str]:
     bottom = HEIGHT - MARGIN_BOTTOM
     parts = [
         f'<line class="axis" stroke="{INK}" x1="{MARGIN_LEFT}" x2="{MARGIN_LEFT}" '
@@ -170,10 +191,10 @@ def _axes(sy: _Scale, low: float, high: float, x_label: str, y_label: str) -> li
         f'text-anchor="middle" transform="rotate(-90 12 {(MARGIN_TOP + bottom) / 2:.0f})">'
         f"{escape(y_label)}</text>",
     ]
-    for tick in _ticks(low, high):
+    for tick in _ticks(low, high, min_step=min_step):
         y = sy(tick)
         parts.append(
-            f'<text class="tick" x="{MARGIN_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end">'
-            f"{_fmt(tick)}</text>"
+            f'<text class="tick" x="{MARGIN_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end" '
+            f'data-value="{tick!r}">{_fmt(tick, decimals)}</text>'
         )
     return parts

@@ -26,7 +26,7 @@ Nothing here computes physics.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from chargebook.acquire import live
@@ -34,7 +34,7 @@ from chargebook.acquire.plan import Plan
 from chargebook.acquire.session_meta import SessionMetadata, validate_metadata
 from chargebook.acquire.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
 from chargebook.corrections.carried import MEASURED_BY
-from chargebook.corrections.errors import InputError
+from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
 from chargebook.corrections.leakage import leakage_per_reading_nC
 from chargebook.corrections.set_air import SetEnvironment
@@ -67,6 +67,9 @@ class SessionContext:
     metadata: Mapping[str, Any]
     thresholds: Thresholds
     integration_s: Mapping[int, float]
+    #: The daemon's --time-scale (its waits were this fraction of real ones), to judge
+    #: integration times against the MU delivered; 1 for a session with no such record.
+    time_scale: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -93,7 +96,17 @@ def stored_context(store: Store, session_id: int, events: Sequence[EventRow]) ->
         metadata=row.metadata(),
         thresholds=live.session_thresholds(events),
         integration_s=live.integration_times(events),
+        time_scale=_time_scale(events),
     )
+
+
+def _time_scale(events: Sequence[EventRow]) -> float:
+    """Return the time scale the daemon recorded for the session (1 when none was)."""
+    scale = 1.0
+    for event in events:
+        if event.kind == live.ACQUISITION_EVENT:
+            scale = float(event.detail().get("time_scale") or scale)
+    return scale
 
 
 def evaluate_session(
@@ -117,9 +130,35 @@ def evaluate_session(
         metadata = validate_metadata(dict(context.metadata))
         stage = "the recorded values cannot be evaluated"
         inputs, provisional = _inputs(store, session_id, context, metadata, active_set_id)
-        return SessionEvaluation(evaluate(inputs), None, provisional)
+        evaluation = evaluate(inputs)
+        extra = _delivery_flags(store, session_id, context, active_set_id)
+        known = {flag.code for flag in evaluation.flags}
+        extra = [flag for flag in extra if flag.code not in known]
+        if extra:
+            evaluation = replace(evaluation, flags=(*evaluation.flags, *extra))
+        return SessionEvaluation(evaluation, None, provisional)
     except InputError as problem:
         return SessionEvaluation(None, f"{stage}: {problem}")
+
+
+def _delivery_flags(
+    store: Store, session_id: int, context: SessionContext, active_set_id: int | None
+) -> list[Flag]:
+    """Return the delivery flags of the sets the results use (integrations too short for the
+    MU, a charge per MU far from the routine set's), as the console shows them on each set."""
+    plan, sets = context.plan, store.sets(session_id)
+    readings = {row.id: store.readings(session_id, row.id) for row in sets}
+    reference = live.routine_nC_per_MU(plan, sets, readings)
+    flags: list[Flag] = []
+    for index, step in enumerate(plan.steps):
+        if step.purpose not in RESULT_PURPOSES:
+            continue
+        row, _ = _set_for(sets, index, active_set_id)
+        if row is not None:
+            flags += live.delivery_flag_list(
+                step, readings[row.id], context.integration_s, context.time_scale, reference
+            )
+    return flags
 
 
 # ------------------------------------------------------------------------------ gathering

@@ -32,6 +32,7 @@ import sqlite3
 import tempfile
 import threading
 import time
+import uuid
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
@@ -69,6 +70,7 @@ __all__ = [
     "SchemaTooNew",
     "SessionRow",
     "SetRow",
+    "StationRow",
     "Store",
     "StoreError",
     "TrafficRow",
@@ -181,12 +183,22 @@ class SessionRow:
     replay_of: int | None
     closed_at: str | None
     reason: str | None
+    uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
         return json.loads(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
         return json.loads(self.plan_json)
+
+
+@dataclass(frozen=True, slots=True)
+class StationRow:
+    """The station that keeps this file: its global id and its configured name."""
+
+    uuid: str
+    name: str
+    created_at: str
 
 
 @dataclass(frozen=True, slots=True)
@@ -668,7 +680,12 @@ class Store:
         replay_of: int | None = None,
         actor: str = DAEMON_ACTOR,
     ) -> int:
-        """Record a new open session and its ``session_created`` event; return its id."""
+        """Record a new open session and its ``session_created`` event; return its id.
+
+        The session gets a random UUID (version 4), its id across stations, kept in its row and
+        in the event (so that the hash chain covers it).
+        """
+        session_uuid = str(uuid.uuid4())
         row = {
             "created_at": self._stamp(),
             "status": "open",
@@ -677,6 +694,7 @@ class Store:
             "convention": _require_text("convention", convention),
             "beam": _require_text("beam", beam),
             "replay_of": replay_of,
+            "uuid": session_uuid,
         }
         with self.atomic():
             if replay_of is not None:
@@ -686,7 +704,12 @@ class Store:
                 session_id,
                 actor,
                 "session_created",
-                {"convention": convention, "beam": beam, "replay_of": replay_of},
+                {
+                    "convention": convention,
+                    "beam": beam,
+                    "replay_of": replay_of,
+                    "uuid": session_uuid,
+                },
             )
         return session_id
 
@@ -721,6 +744,24 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+
+    def station(self) -> StationRow:
+        """Return the station that keeps this file (its UUID and name)."""
+        with self._lock:
+            row = self.db.execute("SELECT uuid, name, created_at FROM station").fetchone()
+        return StationRow(*row)
+
+    def name_station(self, name: str, actor: str = DAEMON_ACTOR) -> bool:
+        """Give the station ``name`` (``serve --station-name``), recording the change as a
+        ``station_named`` event outside any session; return False when it had that name."""
+        name = _require_text("station name", name).strip()
+        with self.atomic():
+            old = self.station().name
+            if old == name:
+                return False
+            self._event(None, actor, "station_named", {"from": old, "to": name})
+            self.db.execute("UPDATE station SET name = ?", (name,))
+        return True
 
     def sessions(self) -> list[SessionRow]:
         """Return every session, oldest first."""

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire import chain
+from chargebook.acquire.migrations import session_uuid_at_migration
 from chargebook.acquire.store import Store
 
 
@@ -91,6 +92,7 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
     if session_id is not None:
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_statuses(store, session_id, events)
+        problems += _check_uuid(store, session_id, events)
     return ChainReport(session_id, len(rows), head, tuple(problems))
 
 
@@ -227,6 +229,29 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
         now = (row.status, row.reason, getattr(row, end_key))
         problems += _status_differs(table, row_id, recorded, now, end_key)
     return problems
+
+
+def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+    """Return a problem when the session's UUID is not the one its chain recorded: the one in
+    its ``session_created`` event, or (a session recorded before sessions had UUIDs) the one
+    the migration derives from the station's UUID and the session id."""
+    kind_at = chain.COLUMNS["events"].index("kind")
+    detail_at = chain.COLUMNS["events"].index("detail_json")
+    recorded: Any = None
+    for values in events:
+        if values[kind_at] == "session_created":
+            try:
+                recorded = json.loads(values[detail_at]).get("uuid")
+            except ValueError:
+                return []  # a changed event: the link check has named it
+            break
+    if recorded is None:
+        recorded = session_uuid_at_migration(store.station().uuid, session_id)
+    found = store.session(session_id).uuid
+    if found == recorded:
+        return []
+    problem = f"uuid is {found!r}, the chain recorded {recorded!r}: changed after it was written"
+    return [Problem("sessions", session_id, None, problem)]
 
 
 #: What a set's status, reason and end time are before its first status event.

@@ -52,3 +52,4 @@ def test_the_example_station_file_is_read_and_matches_the_unit():
     assert data["socket_group"] == service["Group"]  # the runtime directory is 0750 for it
     assert service["RuntimeDirectoryMode"] == "0750"
     assert data["port"].startswith("/dev/serial/by-id/")
+    assert data["station_name"]

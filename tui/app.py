@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonClient, DaemonError
-from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
+from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, Method
 from chargebook.tui import snapshot_view
 from chargebook.tui.messages import LinkChanged, LinkStatus, SetupFinished, SnapshotArrived
 from chargebook.tui.screens.base import ConsoleScreen
@@ -129,7 +129,19 @@ class ConsoleApp(App[int]):
         """
         if self.client is None or not self.client.connected:
             raise ConnectionLost("not connected to the daemon; retrying in the background")
+        if method == Method.SESSION_START:
+            await self._act_as((params.get("metadata") or {}).get("operator"))
         return await self.client.call(method, **params)
+
+    async def _act_as(self, operator: object) -> None:
+        """Make the operator named in the setup form the actor of this console's requests from
+        now on (the audit's ``actor``; the Unix account is recorded beside it), on this
+        connection and on any after a reconnection."""
+        if not isinstance(operator, str) or not operator.strip() or operator == self.operator:
+            return
+        assert self.client is not None
+        await self.client.call(Method.HELLO, client="console", operator=operator)
+        self.operator = operator
 
     # -- passing the state down --------------------------------------------------------------
     @on(SnapshotArrived)

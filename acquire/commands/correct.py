@@ -1,9 +1,12 @@
-"""`chargebook correct WORKSHEET [--json]`: the offline mode, for readings copied from a logbook.
+"""`chargebook correct WORKSHEET [--json | --html] [-o FILE]`: the offline mode, for readings
+copied from a logbook.
 
 Reads a TOML or JSON worksheet (see ``chargebook.acquire.worksheet``), evaluates it with
 ``chargebook.corrections.evaluate`` and prints a table of every factor, the reading-set
 statistics, the corrected charge, the dose, the uncertainty budget and the flags, or with
-``--json`` one JSON object. Exit 0 on success, 2 on invalid input with the message on stderr.
+``--json`` one JSON object, or with ``--html`` the printable report a session's export gives
+(``report_worksheet``). ``-o FILE`` writes to a file instead of stdout. Exit 0 on success, 2 on
+invalid input with the message on stderr.
 """
 
 from __future__ import annotations
@@ -24,14 +27,24 @@ SET_TITLES = {"routine": "routine", "opposite": "opposite polarity", "reduced": 
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Add the worksheet path and the --json switch."""
+    """Add the worksheet path, the --json and --html switches and -o FILE."""
+    from chargebook.acquire.report_cli import add_output_argument
+
     parser.add_argument(
         "worksheet",
         metavar="WORKSHEET",
         help="a .toml or .json worksheet, or - to read one from stdin (TOML, or JSON when it "
         "starts with {)",
     )
-    parser.add_argument("--json", action="store_true", help="print one JSON object instead")
+    output = parser.add_mutually_exclusive_group()
+    output.add_argument("--json", action="store_true", help="print one JSON object instead")
+    output.add_argument(
+        "--html",
+        action="store_true",
+        help="print a self-contained printable HTML report instead (the worksheet's file name "
+        "stands for a session id)",
+    )
+    add_output_argument(parser)
 
 
 def _number(value: float | None, digits: int = 5, unit: str = "", missing: str = "—") -> str:
@@ -254,6 +267,15 @@ def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
     return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
 
 
+def render_html(worksheet: Worksheet, evaluation: Evaluation) -> str:
+    """Return the worksheet's self-contained printable HTML report."""
+    from chargebook.acquire.export import chargebook_version, generated_at
+    from chargebook.acquire.report_worksheet import worksheet_html
+
+    stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
+    return worksheet_html(worksheet, evaluation, stamp)
+
+
 def stdin_document(text: str) -> object:
     """Return the worksheet document read from stdin: JSON when it starts with ``{``, else TOML."""
     import json
@@ -272,7 +294,7 @@ def stdin_document(text: str) -> object:
 
 def run(args: argparse.Namespace) -> int:
     """Evaluate the worksheet and print the report; return 0, or 2 for invalid input."""
-    from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.cli import EXIT_INVALID_INPUT
     from chargebook.acquire.worksheet import parse_worksheet, read_worksheet, worksheet_key
     from chargebook.corrections.errors import InputError
     from chargebook.corrections.evaluate import evaluate
@@ -296,6 +318,7 @@ def run(args: argparse.Namespace) -> int:
             file=sys.stderr,
         )
         return EXIT_INVALID_INPUT
-    render = render_json if args.json else render_table
-    sys.stdout.write(render(worksheet, evaluation))
-    return EXIT_OK
+    render = render_json if args.json else render_html if args.html else render_table
+    from chargebook.acquire.report_cli import write_output
+
+    return write_output(render(worksheet, evaluation), args.output)

@@ -3,9 +3,13 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 
-from chargebook.acquire.report_cli import add_db_argument, add_session_argument, run_reader
+from chargebook.acquire.report_cli import (
+    add_db_argument,
+    add_output_argument,
+    add_session_argument,
+    run_reader,
+)
 
 HELP = (
     "export one recorded session: csv (the readings), json (everything) or html "
@@ -20,9 +24,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--format", choices=FORMATS, default="json", help="the export format (default: json)"
     )
-    parser.add_argument(
-        "-o", "--output", metavar="FILE", type=Path, help="write here instead of stdout"
-    )
+    add_output_argument(parser)
     parser.add_argument(
         "--traffic", action="store_true", help="json: include the raw instrument lines"
     )

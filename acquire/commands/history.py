@@ -27,7 +27,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--all",
         action="store_true",
-        help="include open, interrupted and aborted sessions and replays",
+        help="include open, interrupted and aborted sessions, replays and sessions rejected "
+        "by a review (marked rejected)",
     )
     parser.add_argument(
         "--format",

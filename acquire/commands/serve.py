@@ -95,6 +95,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "override it (default: $XDG_CONFIG_HOME/chargebook/station.toml, else "
         "/etc/chargebook/station.toml, when present)",
     )
+    parser.add_argument(
+        "--station-name",
+        metavar="NAME",
+        help="the station's name, recorded in the station file and carried in every export "
+        "(default: keep the recorded one; a new file is named after the host)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:

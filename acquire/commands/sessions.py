@@ -6,7 +6,7 @@ import argparse
 
 from chargebook.acquire.report_cli import add_db_argument, run_reader
 
-HELP = "list the recorded sessions: id, date, status, machine, beam, operator, readings"
+HELP = "list the recorded sessions: id, date, status, review, machine, beam, operator, readings"
 
 STATUSES = ("open", "finished", "aborted", "interrupted")
 
@@ -30,7 +30,9 @@ def _list(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.history import matches
     from chargebook.acquire.report_sections import Table, when
     from chargebook.acquire.report_text import table_text
+    from chargebook.acquire.review import review_of, review_status
 
+    station = store.station()
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:
@@ -39,9 +41,13 @@ def _list(store, args: argparse.Namespace) -> int:
             continue
         meta = session.metadata()
         sets = store.sets(session.id)
+        review = review_of(store.events(session.id))
         rows.append(
             {
                 "id": session.id,
+                "uuid": session.uuid,
+                "station_uuid": station.uuid,
+                "station_name": station.name,
                 "created_at": session.created_at,
                 "status": session.status,
                 "treatment_machine": meta.get("treatment_machine"),
@@ -52,6 +58,9 @@ def _list(store, args: argparse.Namespace) -> int:
                 "sets": len(sets),
                 "readings": len(store.readings(session.id)),
                 "replay_of": session.replay_of,
+                "review": review_status(review),
+                "reviewer": review.reviewer if review else None,
+                "reviewed_at": review.reviewed_at if review else None,
             }
         )
     if args.json:
@@ -59,12 +68,24 @@ def _list(store, args: argparse.Namespace) -> int:
         return EXIT_OK
     table = Table(
         "Sessions",
-        ("id", "started", "status", "machine", "beam", "operator", "sets", "readings", "replay of"),
+        (
+            "id",
+            "started",
+            "status",
+            "review",
+            "machine",
+            "beam",
+            "operator",
+            "sets",
+            "readings",
+            "replay of",
+        ),
         tuple(
             (
                 str(r["id"]),
                 when(r["created_at"]),
                 r["status"],
+                _review_cell(r),
                 str(r["treatment_machine"] or "—"),
                 str(r["beam"] or "—"),
                 str(r["operator"] or "—"),
@@ -78,3 +99,10 @@ def _list(store, args: argparse.Namespace) -> int:
     )
     print(table_text(table, title=False))
     return EXIT_OK
+
+
+def _review_cell(row: dict) -> str:
+    """Return the review column: unreviewed, or the decision, reviewer and date."""
+    if row["reviewer"] is None:
+        return str(row["review"])
+    return f"{row['review']} by {row['reviewer']} {str(row['reviewed_at'])[:10]}"

@@ -193,3 +193,42 @@ def recorded_station(folder: Path) -> Path:
     with Store.open(path) as store:
         record_example_session(store)
     return path
+
+
+#: Why each extra attempt of the long session was set aside (invented, for the demo clinic).
+REDO_REASONS = (
+    "monitor chamber reading jumped on the linac console",
+    "door interlock opened during the beam",
+    "chamber cable moved during the beam",
+)
+
+
+def record_long_session(store: Store, *, attempts: int = 3, readings_per_attempt: int = 12) -> int:
+    """Record the example with ``attempts`` extra superseded attempts of its routine, opposite
+    and reduced steps, each of ``readings_per_attempt`` readings, then finish it; its id.
+
+    A session long enough to print on several pages. The results are the example's: only the
+    accepted sets count.
+    """
+    session_id = record_example_session(store, status="open")
+    plan = example_plan()
+    readings = example()["readings"]
+    charges = {1: readings["routine_nC"], 2: readings["opposite_nC"], 3: readings["reduced_nC"]}
+    for step_index, step in enumerate(plan.steps):
+        if step.purpose == "leakage":
+            continue
+        for attempt in range(attempts):
+            set_id = store.add_set(
+                session_id, step_index, step.key, step.purpose, step.polarity, step.bias_V,
+                3 + attempt,
+            )  # fmt: skip
+            base = charges[step_index]
+            values = [
+                base[i % len(base)] * (1 + 0.0004 * (i % 5 - 2))
+                for i in range(readings_per_attempt)
+            ]
+            _readings(store, session_id, set_id, [round(v, 3) for v in values])
+            reason = REDO_REASONS[attempt % len(REDO_REASONS)]
+            store.set_set_status(set_id, "superseded", reason, actor=OPERATOR)
+    store.set_session_status(session_id, "finished", "plan complete", actor=OPERATOR)
+    return session_id

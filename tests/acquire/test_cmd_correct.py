@@ -312,6 +312,39 @@ def test_correct_shows_the_air_of_each_set_and_forms_k_pol_from_corrected_means(
     assert "leakage                 not measured" in result.stdout
 
 
+def test_html_report_of_a_worksheet_puts_the_result_first_and_names_the_file(
+    tmp_path: Path,
+) -> None:
+    from test_export_html import Report
+
+    target = tmp_path / "report.html"
+    finished = correct(EXAMPLES / "hcc-la1-6mv.toml", "--html", "-o", target)
+    assert finished.returncode == EXIT_OK, finished.stderr
+    assert finished.stdout == "" and f"wrote {target}" in finished.stderr
+    as_json = json.loads(correct(EXAMPLES / "hcc-la1-6mv.toml", "--json").stdout)
+    html = target.read_text(encoding="utf-8")
+    parsed = Report()
+    parsed.feed(html)
+    assert parsed.sections[0] == "Result" and parsed.sections[-1] == "Review and sign-off"
+    assert "Audit" not in " ".join(parsed.sections)  # a logbook copy has no audit
+    assert parsed.rows[("Result", "dose_per_MU_cGy")][1] == (
+        f"{as_json['dose_per_MU_cGy']:.4f} cGy/MU"
+    )
+    assert parsed.rows[("Result", "worksheet")][1].startswith("hcc-la1-6mv.toml (no session id")
+    assert '@top-left { content: "chargebook worksheet hcc-la1-6mv.toml"' in html
+    # The example's monitor_units (100 MU per reading) in every set; one plot per set.
+    assert [
+        parsed.rows[("Reading sets", f"set-{k}")][2] for k in ("routine", "opposite", "reduced")
+    ] == ["100 MU"] * 3
+    assert len([p for p in parsed.points if p.get("data-set") == "routine"]) == 5
+    assert parsed.cautions == [CAUTION, CAUTION]
+
+
+def test_json_and_html_cannot_both_be_asked_for() -> None:
+    finished = correct(EXAMPLES / "hcc-la1-6mv.toml", "--json", "--html")
+    assert finished.returncode == 2 and "not allowed with argument" in finished.stderr
+
+
 MONTHLY = (
     'convention = "trs398"\nbeam = "pulsed"\n[session]\ndate = 2026-04-06\n'
     "[environment]\ntemperature_C = 22.4\npressure_kPa = 101.2\n[bias]\nroutine_V = 300\n"

@@ -198,3 +198,18 @@ def test_leakage_is_subtracted_only_when_chosen_and_the_choice_is_audited(
     text = _cli(capsys, "show", str(chosen), "--db", str(path))
     assert "leakage subtraction chosen" in text  # the audit lists the choice
     assert "not subtracted" in _cli(capsys, "show", str(kept), "--db", str(path))
+
+
+def test_delivery_flags_reach_every_output_not_only_the_console(tmp_path) -> None:
+    # The frozen-electrometer checks (issue: integrations far shorter than the MU need) were on
+    # the console's set only; show, export and history read the one evaluation.
+    from chargebook.acquire.session_evaluation import evaluate_session
+    from test_engine import make_engine, started, take_set
+
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5, 20.0, 20.0, 20.0])  # each about 2.1 s on the clock
+    live_codes = {f["code"] for s in engine.snapshot()["sets"] for f in s["flags"]}
+    assert "routine_integration_too_short" in live_codes
+    stored = evaluate_session(engine.store, session_id, active_set_id=engine.active.id)
+    assert "routine_integration_too_short" in {f.code for f in stored.evaluation.flags}

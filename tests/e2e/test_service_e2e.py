@@ -127,7 +127,7 @@ def test_the_station_file_runs_the_daemon_and_the_command_line_overrides_it(
     group = grp.getgrgid(os.getgid()).gr_name
     (config_home / "chargebook" / "station.toml").write_text(
         f'profile = "{simulator.profile}"\nport = "{simulator.serial}"\n'
-        f'plan = "{QUICK_PLAN}"\ndatabase = "{db}"\n'
+        f'plan = "{QUICK_PLAN}"\ndatabase = "{db}"\nstation_name = "Bunker B bench"\n'
         f'socket = "{tmp_path / "unused" / "daemon.sock"}"\nsocket_group = "{group}"\n'
     )
     env = dict(os.environ, XDG_CONFIG_HOME=str(config_home))
@@ -152,6 +152,8 @@ def test_the_station_file_runs_the_daemon_and_the_command_line_overrides_it(
 
         stop_process(process)
     assert process.returncode == 0
+    with Store.open(db, read_only=True) as store:
+        assert store.station().name == "Bunker B bench"  # station_name from the file
 
 
 def test_the_demo_reads_no_station_file(tmp_path):

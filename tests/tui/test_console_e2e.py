@@ -8,10 +8,12 @@ daemon's own record (read back over a second connection, or from ``chargebook ru
 
 from __future__ import annotations
 
+import getpass
 import json
 import subprocess
 
 import pytest
+from chargebook.acquire.store import Store
 from chargebook.tui.app import ConsoleApp
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
@@ -254,6 +256,7 @@ async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_
         await run_until(
             pilot, app, lambda: "step.manual_done" in allowed(app), "a step done by hand"
         )
+        await run_until(pilot, app, lambda: "Do now:" in screen_text(app), "the instruction drawn")
         shown = " ".join(screen_text(app).split())
         asked = app.snapshot["prompt"]["text"]  # the daemon's words, e.g. "Turn the bias to ..."
         assert "step.arm" not in allowed(app)  # no readings before the switch is turned
@@ -292,3 +295,18 @@ async def test_the_watch_console_shows_the_session_and_offers_no_action(
     await control.close()
     assert after["state"] == snapshot["state"] and "step.arm" in after["allowed"]
     assert after["seq"] == seq  # nothing happened
+
+
+async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_requests(
+    simulator, daemon, metadata
+):
+    # The console was started as "console test"; the form says who measures (issue 15).
+    app = console(daemon, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        session_id = app.snapshot["session"]["id"]
+    with Store.open(daemon.db, read_only=True) as store:
+        events = store.events(session_id)
+    by_console = [e for e in events if e.kind in ("session_created", "environment_entered")]
+    assert {e.actor for e in by_console} == {metadata["operator"]}
+    assert {e.account for e in by_console} == {getpass.getuser()}
