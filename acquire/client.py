@@ -60,21 +60,27 @@ class UntrustedSocket(PermissionError):
     """The socket's directory, or the process answering on it, is not this user's own."""
 
 
-def check_socket_directory(socket_path: Path) -> None:
-    """Raise :class:`UntrustedSocket` unless the socket's directory is private to this user.
+def check_socket_directory(socket_path: Path) -> int:
+    """Return the uid of the account a daemon on ``socket_path`` may run as: this user, or the
+    owner of a socket group's directory this user belongs to (see
+    :func:`protocol.socket_directory_problem`). Raise :class:`UntrustedSocket` for any other.
 
     A missing directory is left to the connection attempt (FileNotFoundError: no daemon).
     """
     directory = socket_path.parent
     if not (directory.exists() or directory.is_symlink()):
-        return
-    problem = protocol.socket_directory_problem(directory)
+        return os.getuid()
+    problem = protocol.socket_directory_problem(directory, client=True)
     if problem is not None:
         raise UntrustedSocket(f"not talking to a daemon through {socket_path}: {problem}")
+    return directory.lstat().st_uid
 
 
-def check_peer_is_this_user(writer: asyncio.StreamWriter, socket_path: str) -> None:
-    """Raise :class:`UntrustedSocket` unless the process on the socket runs as this user."""
+def check_peer_is_this_user(
+    writer: asyncio.StreamWriter, socket_path: str, owner_uid: int | None = None
+) -> None:
+    """Raise :class:`UntrustedSocket` unless the process on the socket runs as this user or as
+    ``owner_uid`` (the owner of the socket group's directory)."""
     import socket
     import struct
 
@@ -83,10 +89,11 @@ def check_peer_is_this_user(writer: asyncio.StreamWriter, socket_path: str) -> N
         return  # no peer credentials on this platform: the directory check stands alone
     credentials = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
     pid, uid, _gid = struct.unpack("3i", credentials)
-    if uid != os.getuid():
+    if uid not in (os.getuid(), owner_uid):
+        owner = "" if owner_uid in (None, os.getuid()) else " nor as its directory's owner"
         raise UntrustedSocket(
             f"not talking to the process on {socket_path}: it runs as uid {uid} (pid {pid}), "
-            f"not as this user (uid {os.getuid()})"
+            f"not as this user (uid {os.getuid()}){owner}"
         )
 
 
@@ -147,12 +154,12 @@ class DaemonClient:
         FileNotFoundError / ConnectionRefusedError when no daemon listens there.
         """
         path = str(socket_path or protocol.default_socket_path())
-        check_socket_directory(Path(path))
+        owner_uid = check_socket_directory(Path(path))
         reader, writer = await asyncio.open_unix_connection(
             path, limit=protocol.MAX_DAEMON_MESSAGE_BYTES + 1
         )
         try:
-            check_peer_is_this_user(writer, path)
+            check_peer_is_this_user(writer, path, owner_uid)
         except UntrustedSocket:
             writer.close()
             raise

@@ -31,7 +31,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from chargebook.acquire import protocol
+from chargebook.acquire import protocol, sd_notify
 from chargebook.acquire.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.record_health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.server import Connection, RpcServer
@@ -112,7 +112,14 @@ class DaemonOptions:
     bench_control: str | None = None
     time_scale: float = 1.0
     thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
+    visa_library: str | None = None  # pyvisa's library for a resource; None: $PYVISA_LIBRARY/@py
+    socket_group: str | None = None  # a group that may use the sockets (0750 / 0660); None: 0700
     station_name: str | None = None  # the station's name; None: keep the recorded one
+
+    @property
+    def watch_socket_path(self) -> Path:
+        """The watch-only socket, beside the control socket."""
+        return self.socket_path.parent / protocol.WATCH_SOCKET_NAME
 
 
 # ------------------------------------------------------------------------ instrument thread
@@ -402,7 +409,14 @@ class Daemon:
         self.station_lock = StationLock(options.db_path)
         self.engine: Engine | None = None
         self.link: InstrumentLink | None = None
-        self.server = RpcServer(options.socket_path, self.dispatch)
+        self.server = RpcServer(options.socket_path, self.dispatch, group=options.socket_group)
+        #: The watch-only socket beside it: hello, subscribe and status, no action.
+        self.watch_server = RpcServer(
+            options.watch_socket_path,
+            self.dispatch,
+            group=options.socket_group,
+            methods=protocol.WATCH_METHODS,
+        )
         self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
         self._lines_fault: str | None = None  # why the last traffic commit failed (thread)
         self._lines_tried_at = -RETRY_S  # when the thread last tried a commit that failed
@@ -451,6 +465,7 @@ class Daemon:
             resource=options.resource,
             traffic=self._record_traffic,
             clock=self.clock,
+            visa_library=options.visa_library,
         )
         self.engine = Engine(
             self.store,
@@ -567,9 +582,15 @@ class Daemon:
         resumed = self.engine.restore()
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
+        try:
+            await self.watch_server.start()
+        except BaseException:
+            await self.server.close()  # leave no control socket behind a refused start
+            raise
         self.link.start()
         info = {
             "socket": str(self.options.socket_path),
+            "watch_socket": str(self.options.watch_socket_path),
             "db": str(self.options.db_path),
             "pid": os.getpid(),
             "profile": self.engine.profile,
@@ -581,6 +602,9 @@ class Daemon:
             asyncio.create_task(self._consume_instrument(), name="instrument-events"),
             asyncio.create_task(self._tick(), name="ticker"),
         ]
+        watchdog_s = sd_notify.watchdog_interval_s()
+        if watchdog_s is not None:
+            tasks.append(asyncio.create_task(self._watchdog(watchdog_s), name="watchdog"))
         try:
             await self._stopping.wait()
         finally:
@@ -588,6 +612,7 @@ class Daemon:
                 task.cancel()
             await asyncio.gather(*tasks, return_exceptions=True)
             await self.server.close()
+            await self.watch_server.close()
             self.link.stop()
             await asyncio.to_thread(self.link.join, 5.0)
             if self.options.bench_control and self.link.bench is not None:
@@ -601,7 +626,17 @@ class Daemon:
         """Ask :meth:`run` to end (from a signal handler or a test); ``reason`` is recorded in
         the ``daemon_stopped`` event (``SIGTERM``, ``SIGINT``)."""
         self._stop_reason = reason
+        if not self._stopping.is_set():
+            sd_notify.notify(sd_notify.STOPPING)
         self._stopping.set()
+
+    async def _watchdog(self, interval_s: float) -> None:
+        """Tell the service manager the loop is alive every ``interval_s`` (half its limit):
+        sent from the loop that serves the sockets and the engine, so a stuck loop goes quiet
+        and the manager restarts the daemon."""
+        while True:
+            sd_notify.notify(sd_notify.WATCHDOG)
+            await asyncio.sleep(interval_s)
 
     def _record_start(self) -> None:
         """Record ``daemon_started`` (a new file) or ``daemon_restarted``, saying whether the
@@ -808,7 +843,7 @@ class Daemon:
             self._events_checked_at = engine.data_version
             for event in self.store.events_after(engine.session_id, self._published_event_id):
                 self._published_event_id = event.id
-                await self.server.broadcast(
+                await self._broadcast(
                     protocol.NOTIFY_EVENT,
                     {
                         "id": event.id,
@@ -821,10 +856,18 @@ class Daemon:
                 )
         if engine.seq != self._published_seq:
             self._published_seq = engine.seq
-            if self.server.has_subscribers():  # nobody listening: no snapshot to build
+            servers = (self.server, self.watch_server)
+            if any(server.has_subscribers() for server in servers):  # else: nothing to build
                 _, line = self._snapshot_and_line()
                 if line is not None:
-                    await self.server.broadcast_line(line)
+                    for server in servers:
+                        await server.broadcast_line(line)
+
+    async def _broadcast(self, method: str, params: Any) -> None:
+        """Send a notification to the subscribers of both sockets."""
+        line = protocol.encode_from_daemon(protocol.notification(method, params))
+        for server in (self.server, self.watch_server):
+            await server.broadcast_line(line)
 
     def snapshot(self) -> dict[str, Any]:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
@@ -873,6 +916,7 @@ class Daemon:
                 "protocol_version": protocol.PROTOCOL_VERSION,
                 "daemon_pid": os.getpid(),
                 "socket": str(self.options.socket_path),
+                "watch_only": connection.watch_only,
                 "state": self.engine.state.value,
             }
         if method == protocol.Method.SUBSCRIBE:

@@ -10,7 +10,7 @@ import signal
 import sys
 from pathlib import Path
 
-from chargebook.acquire import protocol
+from chargebook.acquire import protocol, sd_notify
 from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 from chargebook.acquire.daemon import Daemon, DaemonOptions
 
@@ -45,6 +45,8 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
         bench_control=args.bench_control,
         time_scale=args.time_scale,
         thresholds=load_thresholds(args.thresholds) if args.thresholds else None,
+        visa_library=getattr(args, "visa_library", None),
+        socket_group=getattr(args, "socket_group", None),
         station_name=station_name,
     )
 
@@ -75,6 +77,10 @@ def serve_forever(args: argparse.Namespace) -> int:
         level=args.log_level, stream=sys.stderr, format="%(asctime)s %(name)s %(message)s"
     )
     try:
+        from chargebook.acquire.station_config import load_into
+
+        load_into(args)
+        args.plan = args.plan or "default"
         options = options_from_args(args)
         return asyncio.run(_serve(options))
     except (InputError, *startup_errors()) as error:
@@ -95,5 +101,10 @@ async def _serve(options: DaemonOptions) -> int:
     loop = asyncio.get_running_loop()
     for signum in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(signum, daemon.shutdown, signal.Signals(signum).name)
-    await daemon.run(print_ready)
+
+    def ready(info: dict) -> None:
+        print_ready(info)
+        sd_notify.notify(sd_notify.READY)
+
+    await daemon.run(ready)
     return EXIT_OK

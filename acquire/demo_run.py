@@ -11,6 +11,7 @@ import argparse
 import asyncio
 import contextlib
 import json
+import os
 import select
 import shutil
 import signal
@@ -105,6 +106,7 @@ def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child,
                 "--bench-control", simulator.info["control"], "--db", str(args.db_path),
                 "--socket", str(workdir / "daemon.sock"), "--plan", args.plan,
                 "--time-scale", str(args.time_scale), "--log-level", "INFO",
+                "--config", os.devnull,  # the demo reads no station file
             ],
             workdir / "daemon.log",
         )  # fmt: skip

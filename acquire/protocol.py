@@ -618,6 +618,10 @@ def encode_from_daemon(message: dict) -> bytes:
 # Where the socket lives
 # ---------------------------------------------------------------------------------------------
 SOCKET_NAME = "daemon.sock"
+#: The watch-only socket, beside the control socket: it answers WATCH_METHODS, nothing else.
+WATCH_SOCKET_NAME = "watch.sock"
+WATCH_METHODS = frozenset({Method.HELLO, Method.SUBSCRIBE, Method.STATUS})
+WATCH_ONLY = "this is the watch-only socket: actions are taken on the control socket"
 
 
 def default_socket_dir() -> Path:
@@ -634,13 +638,19 @@ def default_socket_path() -> Path:
     return default_socket_dir() / SOCKET_NAME
 
 
-def socket_directory_problem(directory: Path) -> str | None:
+def socket_directory_problem(
+    directory: Path, gid: int | None = None, *, client: bool = False
+) -> str | None:
     """Return why ``directory`` is no safe home for the daemon's socket, or None when it is.
 
-    Safe means a real directory (not a symlink, which another user could point elsewhere),
-    owned by this user, that nobody else may enter (no group or other permission bits). The
-    daemon refuses to listen in an unsafe one and a client refuses to talk through one: another
-    local user who pre-creates ``/tmp/chargebook-<uid>`` must not receive an operator's actions.
+    Safe means a real directory (not a symlink, which another user could point elsewhere) that
+    nobody outside may enter or change. For the daemon (``client=False``): owned by this user,
+    mode 0700, or with a socket group ``gid`` owned by that group and mode 0750. A client also
+    accepts a directory of another user that is 0750 and owned by a group this user belongs to
+    (a daemon run as a service account with a socket group), except the per-user directory
+    named for this user's uid. The daemon refuses to listen in an unsafe one and a client
+    refuses to talk through one: another local user who pre-creates ``/tmp/chargebook-<uid>``
+    must not receive an operator's actions.
     """
     import stat
 
@@ -652,9 +662,31 @@ def socket_directory_problem(directory: Path) -> str | None:
         return f"{directory} is a symbolic link; the socket's directory must be a real one"
     if not stat.S_ISDIR(info.st_mode):
         return f"{directory} is not a directory"
-    if info.st_uid != os.getuid():
-        return f"{directory} belongs to another user (uid {info.st_uid})"
     mode = stat.S_IMODE(info.st_mode)
-    if mode & 0o077:
+    mine = info.st_uid == os.getuid()
+    if client:
+        return _client_directory_problem(directory, info, mode, mine)
+    if not mine:
+        return f"{directory} belongs to another user (uid {info.st_uid})"
+    if gid is None and mode & 0o077:
         return f"{directory} can be entered by other users (mode {mode:o}); it must be 0700"
+    if gid is not None and info.st_gid != gid:
+        return f"{directory} is owned by group {info.st_gid}, not the socket group ({gid})"
+    if gid is not None and mode & 0o027:
+        return f"{directory} can be changed or entered by others (mode {mode:o}); it must be 0750"
+    return None
+
+
+def _client_directory_problem(directory: Path, info: Any, mode: int, mine: bool) -> str | None:
+    if mode & 0o027:
+        return (
+            f"{directory} can be changed or entered by others (mode {mode:o}); it must be 0700, "
+            "or 0750 for a socket group"
+        )
+    if mine:
+        return None
+    if info.st_gid not in {os.getgid(), *os.getgroups()} or not mode & 0o050:
+        return f"{directory} belongs to another user (uid {info.st_uid}) and not to your group"
+    if directory == Path(tempfile.gettempdir()) / f"chargebook-{os.getuid()}":
+        return f"{directory} is named for your uid but belongs to another user (uid {info.st_uid})"
     return None

@@ -3,7 +3,9 @@
 One asyncio server, several clients at once. Each connection is read line by line with a bound
 on the line length; garbage, an over-long line, a slow reader or a vanished client affects only
 its own connection: nothing sent to a client waits for that client to read. The socket lives
-in a directory only its user can enter (0700) and is mode 0600; there is no TCP listener.
+in a directory only its user can enter (0700) and is mode 0600, or, with a socket group, a
+directory 0750 and a socket 0660 owned by that group; there is no TCP listener. A server may
+answer only some methods (the watch-only socket) and refuses the others by name.
 
 The server knows nothing of measurements: it calls ``dispatch(connection, method, params)``
 and turns the exceptions it raises into error responses (:func:`error_for`).
@@ -56,6 +58,7 @@ class Connection:
     subscribed: bool = False
     closed: bool = False
     account: str | None = None  # the Unix account of the peer process (SO_PEERCRED)
+    watch_only: bool = False  # came in on the watch-only socket: may not act
 
     @property
     def actor(self) -> str:
@@ -144,8 +147,25 @@ def peer_account(writer: asyncio.StreamWriter) -> str | None:
         return f"uid {uid}"
 
 
-def prepare_socket_dir(path: Path) -> None:
-    """Create the socket's directory with mode 0700, or check that an existing one is private.
+def group_id(name: str) -> int:
+    """Return the id of the Unix group ``name``; UnsafeSocketDirectory if this user may not
+    give files to it (no such group, or not one of this process's groups)."""
+    import grp
+
+    try:
+        gid = grp.getgrnam(name).gr_gid
+    except KeyError:
+        raise UnsafeSocketDirectory(f"--socket-group {name}: no such group") from None
+    if gid != os.getgid() and gid not in os.getgroups():
+        raise UnsafeSocketDirectory(
+            f"--socket-group {name}: this user (uid {os.getuid()}) is not a member of it"
+        )
+    return gid
+
+
+def prepare_socket_dir(path: Path, gid: int | None = None) -> None:
+    """Create the socket's directory with mode 0700 (0750 owned by group ``gid`` when given),
+    or check that an existing one is as private as that.
 
     Raises UnsafeSocketDirectory when it is a symlink, belongs to someone else or others may
     enter it (:func:`protocol.socket_directory_problem`).
@@ -153,7 +173,10 @@ def prepare_socket_dir(path: Path) -> None:
     directory = path.parent
     if not directory.is_symlink():
         directory.mkdir(mode=0o700, parents=True, exist_ok=True)
-    problem = protocol.socket_directory_problem(directory)
+        if gid is not None and directory.lstat().st_uid == os.getuid():
+            os.chown(directory, -1, gid)
+            os.chmod(directory, 0o750)
+    problem = protocol.socket_directory_problem(directory, gid)
     if problem is not None:
         raise UnsafeSocketDirectory(f"{problem}; choose --socket")
 
@@ -178,16 +201,30 @@ def remove_stale_socket(path: Path) -> None:
 class RpcServer:
     """Serves JSON-RPC 2.0 on a Unix socket; see the module docstring."""
 
-    def __init__(self, socket_path: Path, dispatch: Dispatch) -> None:
+    def __init__(
+        self,
+        socket_path: Path,
+        dispatch: Dispatch,
+        *,
+        group: str | None = None,
+        methods: frozenset[str] | None = None,
+        refusal: str = protocol.WATCH_ONLY,
+    ) -> None:
+        """``group``: the Unix group that may use the socket (None: this user only);
+        ``methods``: the only methods answered (None: all), others refused with ``refusal``."""
         self.socket_path = Path(socket_path)
         self.dispatch = dispatch
+        self.group = group
+        self.methods = methods
+        self.refusal = refusal
         self.connections: set[Connection] = set()
         self._server: asyncio.base_events.Server | None = None
         self._numbers = 0
 
     async def start(self) -> None:
-        """Listen on the socket (private directory, mode 0600)."""
-        prepare_socket_dir(self.socket_path)
+        """Listen on the socket (private directory and mode 0600, or the group's 0750/0660)."""
+        gid = group_id(self.group) if self.group else None
+        prepare_socket_dir(self.socket_path, gid)
         remove_stale_socket(self.socket_path)
         old_umask = os.umask(0o177)  # the socket file is born 0600
         try:
@@ -199,7 +236,9 @@ class RpcServer:
             )
         finally:
             os.umask(old_umask)
-        os.chmod(self.socket_path, 0o600)
+        if gid is not None:
+            os.chown(self.socket_path, -1, gid)
+        os.chmod(self.socket_path, 0o600 if gid is None else 0o660)
 
     async def close(self) -> None:
         """Stop listening, close every connection and remove the socket file."""
@@ -230,7 +269,12 @@ class RpcServer:
 
     async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         self._numbers += 1
-        connection = Connection(writer, self._numbers, account=peer_account(writer))
+        connection = Connection(
+            writer,
+            self._numbers,
+            account=peer_account(writer),
+            watch_only=self.methods is not None,
+        )
         self.connections.add(connection)
         log.info("client %d connected", connection.number)
         try:
@@ -283,6 +327,16 @@ class RpcServer:
             if not is_notification:
                 await self._reply_error(
                     connection, request_id, protocol.METHOD_NOT_FOUND, f"no method {method!r}"
+                )
+            return
+        if self.methods is not None and method not in self.methods:
+            if not is_notification:
+                await self._reply_error(
+                    connection,
+                    request_id,
+                    protocol.METHOD_NOT_FOUND,
+                    f"{method} is refused: {self.refusal}",
+                    {"method": method, "answered": sorted(self.methods)},
                 )
             return
         try:

@@ -54,8 +54,10 @@ def build_transport(
     resource: str | None = None,
     traffic: TrafficListener | None = None,
     clock: Callable[[], float] = time.monotonic,
+    visa_library: str | None = None,
 ) -> Transport:
-    """Return an unopened transport: pyserial on ``port`` or pyvisa ``@py`` on ``resource``."""
+    """Return an unopened transport: pyserial on ``port`` or pyvisa on ``resource`` (with
+    ``visa_library``, else $PYVISA_LIBRARY, else ``@py``)."""
     if (port is None) == (resource is None):
         raise SettingOutOfRange(
             "port/resource", (port, resource), "exactly one of a serial port or a VISA resource"
@@ -74,7 +76,12 @@ def build_transport(
     from chargebook.drivers_generic.visa_transport import VisaTransport
 
     return VisaTransport(
-        resource, profile.framing, settings=profile.port, traffic=traffic, clock=clock
+        resource,
+        profile.framing,
+        settings=profile.port,
+        visa_library=visa_library,
+        traffic=traffic,
+        clock=clock,
     )
 
 
@@ -85,10 +92,18 @@ def build_electrometer(
     resource: str | None = None,
     traffic: TrafficListener | None = None,
     clock: Callable[[], float] = time.monotonic,
+    visa_library: str | None = None,
 ) -> ProfileElectrometer:
     """Return the driver for ``profile`` on ``port`` or ``resource``, not yet opened."""
     loaded = profile if isinstance(profile, Profile) else load_profile(profile)
-    transport = build_transport(loaded, port=port, resource=resource, traffic=traffic, clock=clock)
+    transport = build_transport(
+        loaded,
+        port=port,
+        resource=resource,
+        traffic=traffic,
+        clock=clock,
+        visa_library=visa_library,
+    )
     return ProfileElectrometer(loaded, transport, clock=clock)
 
 
@@ -99,6 +114,7 @@ def open_electrometer(
     resource: str | None = None,
     traffic: TrafficListener | None = None,
     clock: Callable[[], float] = time.monotonic,
+    visa_library: str | None = None,
 ) -> Electrometer:
     """Return the driver for ``profile`` on ``port`` or ``resource``, opened.
 
@@ -107,7 +123,12 @@ def open_electrometer(
     InstrumentDisconnected, call ``open()`` again, or :func:`reconnect`.
     """
     electrometer = build_electrometer(
-        profile, port=port, resource=resource, traffic=traffic, clock=clock
+        profile,
+        port=port,
+        resource=resource,
+        traffic=traffic,
+        clock=clock,
+        visa_library=visa_library,
     )
     electrometer.open()
     return electrometer

@@ -62,6 +62,12 @@ def _parser() -> argparse.ArgumentParser:
     wire = parser.add_mutually_exclusive_group(required=True)
     wire.add_argument("--port", help="serial port (or the simulator's pty symlink)")
     wire.add_argument("--resource", help="VISA resource, e.g. TCPIP::127.0.0.1::5025::SOCKET")
+    parser.add_argument(
+        "--visa-library",
+        metavar="LIB",
+        help="VISA library for --resource: @py, @ivi or a library's path "
+        "(default: $PYVISA_LIBRARY, else @py)",
+    )
     parser.add_argument("--bench", help="the simulator's control socket: it delivers the beam")
     parser.add_argument("--count", type=int, default=10, help="captures to take (default 10)")
     parser.add_argument("--mu", type=float, default=100.0, help="MU per capture (default 100)")
@@ -78,7 +84,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"--count = {args.count} is not allowed; allowed: 1 to 10000", file=sys.stderr)
         return 2
     try:
-        electrometer = open_electrometer(args.profile, port=args.port, resource=args.resource)
+        electrometer = open_electrometer(
+            args.profile,
+            port=args.port,
+            resource=args.resource,
+            visa_library=args.visa_library,
+        )
     except (ProfileError, InstrumentError, ValueError) as error:
         print(f"readout: {error}", file=sys.stderr)
         return 2

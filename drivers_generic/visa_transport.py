@@ -1,14 +1,22 @@
-"""Lines over a VISA resource with pyvisa's pure-Python backend (``@py``).
+"""Lines over a VISA resource, by default with pyvisa's pure-Python backend (``@py``).
 
 Resources such as ``TCPIP::127.0.0.1::5025::SOCKET`` or ``ASRL/dev/ttyUSB0::INSTR``. pyvisa is
-imported when the resource is opened. pyvisa-py reports a peer that closed a socket as a plain
-timeout, so after a timeout the socket is checked, and a closed peer becomes
-InstrumentDisconnected rather than an endless run of timeouts.
+imported when the resource is opened. The VISA library is ``--visa-library`` (``@py``, ``@ivi``
+or a vendor library's path), else ``$PYVISA_LIBRARY``, else ``@py``. ASRL resources get the
+profile's serial settings, flow control included.
+
+pyvisa-py reports a peer that closed a socket as a plain timeout, so after a timeout the socket
+is checked, and a closed peer becomes InstrumentDisconnected rather than an endless run of
+timeouts. The socket is found through pyvisa-py internals that are not its public interface
+(:data:`PYVISA_PY_INTERNALS`); tests/drivers_generic/test_visa_internals.py fails loudly when a
+pyvisa-py release changes them. With another VISA library there is no such socket, and a closed
+peer shows as timeouts until the driver counts the instrument lost.
 """
 
 from __future__ import annotations
 
 import contextlib
+import os
 import socket
 import time
 from collections.abc import Callable
@@ -21,6 +29,32 @@ from chargebook.drivers_generic.transport import Transport
 _PARITY_NAMES = {"N": "none", "E": "even", "O": "odd", "M": "mark", "S": "space"}
 _STOPBITS_NAMES = {1: "one", 1.5: "one_and_a_half", 2: "two"}
 _PEEK_WITHOUT_WAITING = int(socket.MSG_PEEK | socket.MSG_DONTWAIT)
+#: The profile's flow control, by pyvisa's ControlFlow name (dsrdtr: VISA's dtr_dsr).
+_FLOW_CONTROL_NAMES = {
+    "none": "none",
+    "xonxoff": "xon_xoff",
+    "rtscts": "rts_cts",
+    "dsrdtr": "dtr_dsr",
+}
+#: The attribute paths into pyvisa-py this module relies on, not part of its public interface:
+#: ``resource.visalib.sessions`` (session number -> session object) and that session's
+#: ``interface`` (the socket.socket of a TCPIP SOCKET resource; a serial.Serial for ASRL).
+PYVISA_PY_INTERNALS = ("visalib.sessions", "sessions[session].interface")
+DEFAULT_VISA_LIBRARY = "@py"
+
+
+def visa_library_spec(explicit: str | None = None, environ: dict[str, str] | None = None) -> str:
+    """Return the VISA library to open: ``explicit``, else ``$PYVISA_LIBRARY``, else ``@py``."""
+    env = os.environ if environ is None else environ
+    return explicit or env.get("PYVISA_LIBRARY") or DEFAULT_VISA_LIBRARY
+
+
+def pyvisa_py_interface(resource: Any) -> Any:
+    """Return the object pyvisa-py talks through for an open ``resource`` (a socket, a serial
+    port), or None when the library is not pyvisa-py or its internals differ."""
+    sessions = getattr(resource.visalib, "sessions", None)
+    session = sessions.get(resource.session) if isinstance(sessions, dict) else None
+    return getattr(session, "interface", None)
 
 
 class VisaTransport(Transport):
@@ -33,11 +67,14 @@ class VisaTransport(Transport):
         *,
         settings: PortSettings | None = None,
         open_timeout_s: float = 2.0,
+        visa_library: str | None = None,
         traffic: TrafficListener | None = None,
         clock: Callable[[], float] = time.monotonic,
     ) -> None:
+        """``visa_library``: see :func:`visa_library_spec`."""
         super().__init__(framing, traffic=traffic, clock=clock, name=resource)
         self.resource = resource
+        self.visa_library = visa_library_spec(visa_library)
         self.settings = settings
         self.open_timeout_s = open_timeout_s
         self._manager: Any = None
@@ -50,7 +87,7 @@ class VisaTransport(Transport):
 
         try:
             if self._manager is None:
-                self._manager = pyvisa.ResourceManager("@py")
+                self._manager = pyvisa.ResourceManager(self.visa_library)
             instrument = self._manager.open_resource(
                 self.resource, open_timeout=int(self.open_timeout_s * 1000)
             )
@@ -71,6 +108,11 @@ class VisaTransport(Transport):
         if self._sock is not None:  # a command and its SYST:ERR? must not wait for Nagle
             self._sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
 
+    @property
+    def interface(self) -> Any:
+        """The object pyvisa-py talks through while open (a socket, a serial port), or None."""
+        return None if self._instrument is None else pyvisa_py_interface(self._instrument)
+
     def _apply_serial_settings(self, instrument: Any) -> None:
         from pyvisa import constants
 
@@ -79,6 +121,9 @@ class VisaTransport(Transport):
         instrument.data_bits = settings.bytesize
         instrument.parity = getattr(constants.Parity, _PARITY_NAMES[settings.parity])
         instrument.stop_bits = getattr(constants.StopBits, _STOPBITS_NAMES[settings.stopbits])
+        instrument.flow_control = getattr(
+            constants.ControlFlow, _FLOW_CONTROL_NAMES[settings.flow_control]
+        )
 
     def _close(self) -> None:
         instrument, self._instrument, self._sock = self._instrument, None, None
@@ -145,10 +190,5 @@ class VisaTransport(Transport):
             return True
 
     def _socket(self) -> socket.socket | None:
-        instrument = self._instrument
-        if instrument is None:
-            return None
-        sessions = getattr(instrument.visalib, "sessions", {})
-        session = sessions.get(instrument.session) if isinstance(sessions, dict) else None
-        interface = getattr(session, "interface", None)
+        interface = self.interface
         return interface if isinstance(interface, socket.socket) else None

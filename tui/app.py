@@ -55,8 +55,11 @@ class ConsoleApp(App[int]):
         operator: str | None = None,
         setup_defaults: Mapping[str, Any] | None = None,
         client_factory: ClientFactory | None = None,
+        watch: bool = False,
     ) -> None:
+        """``watch``: attach to the watch-only socket ``socket_path``, offering no action."""
         super().__init__()
+        self.watch_only = watch
         self.socket_path = str(socket_path)
         self.operator = operator
         self.setup_defaults: dict[str, Any] = dict(setup_defaults or {})
@@ -100,7 +103,8 @@ class ConsoleApp(App[int]):
         self.client = client
         try:
             snapshot = await client.subscribe()
-            self.post_message(LinkChanged(LinkStatus(True, "Connected to the daemon")))
+            connected = LinkStatus(True, "Connected to the daemon", watching=self.watch_only)
+            self.post_message(LinkChanged(connected))
             self._pass_on(snapshot)
             async for note in client.notifications():
                 if note.method == NOTIFY_SNAPSHOT and isinstance(note.params, dict):
@@ -119,8 +123,9 @@ class ConsoleApp(App[int]):
     async def call_daemon(self, method: str, **params: Any) -> Any:
         """Send one request to the daemon and return its result.
 
-        Raises ``DaemonError`` when the daemon refuses (its message names the field) and
-        ``ConnectionLost`` when the console is not attached.
+        Raises ``DaemonError`` when the daemon refuses (its message names the field; the
+        watch-only socket refuses every action by name) and ``ConnectionLost`` when the console
+        is not attached.
         """
         if self.client is None or not self.client.connected:
             raise ConnectionLost("not connected to the daemon; retrying in the background")
@@ -248,6 +253,7 @@ def closing_words(
 def run_console(
     socket_path: str | Path,
     *,
+    watch: bool = False,
     operator: str | None = None,
     setup_defaults: Mapping[str, Any] | None = None,
     demo_database: str | Path | None = None,
@@ -258,7 +264,7 @@ def run_console(
     ``temperature_C``, ``pressure_entered`` and ``pressure_unit``). Closing the console leaves
     the daemon and any measurement running, and says so (:func:`closing_words`).
     """
-    app = ConsoleApp(socket_path, operator=operator, setup_defaults=setup_defaults)
+    app = ConsoleApp(socket_path, operator=operator, setup_defaults=setup_defaults, watch=watch)
     result = app.run()
     print(closing_words(app.snapshot, str(socket_path), demo_database=demo_database))
     return 0 if result is None else int(result)

@@ -18,6 +18,7 @@ class LinkStatus:
 
     connected: bool
     text: str
+    watching: bool = False  # attached to the watch-only socket: no actions offered
 
 
 @dataclass

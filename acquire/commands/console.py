@@ -15,6 +15,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="the daemon's control socket (default: the daemon's default socket path)",
     )
     parser.add_argument(
+        "--watch",
+        action="store_true",
+        help="watch only: attach to the watch-only socket beside the control socket "
+        "(watch.sock); everything is shown, no action is offered (e.g. from another room, over "
+        "ssh station -t chargebook console --watch)",
+    )
+    parser.add_argument(
         "--operator",
         metavar="NAME",
         help="your name, written in the audit log for every action you take",
@@ -23,7 +30,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the console until the operator quits; return the exit status."""
-    from chargebook.acquire.protocol import default_socket_path
+    from pathlib import Path
+
+    from chargebook.acquire.protocol import WATCH_SOCKET_NAME, default_socket_path
     from chargebook.tui.app import run_console
 
-    return run_console(args.socket or default_socket_path(), operator=args.operator)
+    socket = Path(args.socket or default_socket_path())
+    if args.watch:
+        return run_console(socket.parent / WATCH_SOCKET_NAME, watch=True)
+    return run_console(socket, operator=args.operator)

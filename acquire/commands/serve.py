@@ -7,18 +7,34 @@ import argparse
 HELP = "run the acquisition daemon: the electrometer, the plan, the record and the control socket"
 
 
-def add_instrument_arguments(parser: argparse.ArgumentParser) -> None:
-    """Declare the options that choose the electrometer and the record (shared with `run`)."""
+def add_instrument_arguments(parser: argparse.ArgumentParser, *, required: bool = True) -> None:
+    """Declare the options that choose the electrometer and the record (shared with `run`).
+
+    ``required=False`` (serve): the profile, the electrometer and the plan may come from the
+    station file instead, checked once it is read.
+    """
     parser.add_argument(
-        "--profile", required=True, help="instrument profile: a shipped name or a .toml file"
+        "--profile", required=required, help="instrument profile: a shipped name or a .toml file"
     )
-    where = parser.add_mutually_exclusive_group(required=True)
-    where.add_argument("--port", metavar="DEVICE", help="serial port, e.g. /dev/ttyUSB0")
+    where = parser.add_mutually_exclusive_group(required=required)
+    where.add_argument(
+        "--port",
+        metavar="DEVICE",
+        help="serial port, best by its stable name: /dev/serial/by-id/usb-...",
+    )
     where.add_argument(
         "--resource", metavar="VISA", help="VISA resource, e.g. TCPIP::127.0.0.1::5025::SOCKET"
     )
     parser.add_argument(
-        "--plan", default="default", help="measurement plan: a shipped name or a .toml file"
+        "--visa-library",
+        metavar="LIB",
+        help="the VISA library pyvisa opens a --resource with: @py (pyvisa-py, the default), "
+        "@ivi, or the path of a vendor's VISA library (default: $PYVISA_LIBRARY, else @py)",
+    )
+    parser.add_argument(
+        "--plan",
+        default="default" if required else None,
+        help="measurement plan: a shipped name or a .toml file (default: default)",
     )
     parser.add_argument(
         "--db", metavar="FILE", help="station database (default: the user's data directory)"
@@ -46,18 +62,38 @@ def add_instrument_arguments(parser: argparse.ArgumentParser) -> None:
         "documented defaults",
     )
     parser.add_argument(
-        "--log-level", default="WARNING", choices=("DEBUG", "INFO", "WARNING", "ERROR")
+        "--log-level",
+        default="WARNING",
+        choices=("DEBUG", "INFO", "WARNING", "ERROR"),
+        help="what the daemon logs on stderr: WARNING (the default) says when the electrometer "
+        "cannot be reached (once per new cause) and when the record cannot be written; INFO "
+        "adds every retry and client connection; DEBUG everything",
     )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Declare the daemon's options."""
-    add_instrument_arguments(parser)
+    add_instrument_arguments(parser, required=False)
     parser.add_argument(
         "--socket",
         metavar="PATH",
         help="control socket path (default: $XDG_RUNTIME_DIR/chargebook/daemon.sock, "
-        "else <tmp>/chargebook-<uid>/daemon.sock); its directory is made private (0700)",
+        "else <tmp>/chargebook-<uid>/daemon.sock); its directory is made private (0700); "
+        "the watch-only socket watch.sock is opened beside it",
+    )
+    parser.add_argument(
+        "--socket-group",
+        metavar="GROUP",
+        help="let the members of GROUP use the sockets: their directory becomes 0750 and the "
+        "sockets 0660, owned by GROUP (default: only this user)",
+    )
+    parser.add_argument(
+        "--config",
+        metavar="FILE",
+        help="station file (TOML) with the keys station_name, profile, port or resource, "
+        "visa_library, plan, database, thresholds, socket, socket_group; options given here "
+        "override it (default: $XDG_CONFIG_HOME/chargebook/station.toml, else "
+        "/etc/chargebook/station.toml, when present)",
     )
     parser.add_argument(
         "--station-name",

@@ -8,6 +8,7 @@ whole daemon behind the same server is tested in tests/e2e. Wire format: JSON-RP
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import json
 import os
 import socket
@@ -262,3 +263,66 @@ async def test_two_hundred_clients_connecting_at_once_are_all_taken(server):
     failed = [c for c in clients if isinstance(c, BaseException)]
     assert failed == []
     await asyncio.gather(*(c.close() for c in clients))
+
+
+def _service_directory(tmp_path, name: str, gid: int = 0, mode: int = 0o750):
+    """Return a socket directory as a service account (uid 65534) with a socket group makes."""
+    directory = tmp_path / name
+    directory.mkdir()
+    os.chown(directory, 65534, gid)
+    directory.chmod(mode)
+    return directory
+
+
+@contextlib.contextmanager
+def _listening_as(uid: int, path):
+    """Run a process that drops to ``uid`` (keeping group 0), listens on ``path`` and answers
+    one JSON-RPC hello; end it on leaving."""
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    sock.bind(str(path))
+    ready_r, ready_w = os.pipe()
+    child = os.fork()
+    if child == 0:
+        os.setgroups([0])
+        os.setuid(uid)
+        sock.listen(1)
+        os.write(ready_w, b"1")
+        conn, _ = sock.accept()
+        conn.recv(4096)
+        conn.sendall(b'{"jsonrpc": "2.0", "id": 1, "result": {"protocol_version": "1.0"}}\n')
+        conn.recv(1)
+        os._exit(0)
+    sock.close()
+    assert os.read(ready_r, 1) == b"1"
+    try:
+        yield
+    finally:
+        os.kill(child, 15)
+        os.waitpid(child, 0)
+
+
+@pytest.mark.skipif(os.getuid() != 0, reason="starting a process as another user needs root")
+def test_a_client_accepts_a_daemon_of_another_user_through_its_groups_0750_directory(tmp_path):
+    # A service account (here uid 65534) runs the daemon with a socket group this user is in
+    # (group 0): the directory is the service's, 0750, group-owned; the client talks to it.
+    directory = _service_directory(tmp_path, "run")
+    with _listening_as(65534, directory / "daemon.sock"):
+        client = asyncio.run(DaemonClient.connect(directory / "daemon.sock"))
+        assert client.hello == {"protocol_version": "1.0"}
+        asyncio.run(client.close())
+
+
+@pytest.mark.skipif(os.getuid() != 0, reason="starting a process as another user needs root")
+def test_a_group_directory_does_not_vouch_for_a_third_user_or_a_foreign_group(tmp_path):
+    directory = _service_directory(tmp_path, "run")
+    with (
+        _listening_as(1, directory / "daemon.sock"),  # uid 1 is not the directory's owner
+        pytest.raises(UntrustedSocket, match=r"uid 1 .*nor as its directory's owner"),
+    ):
+        asyncio.run(DaemonClient.connect(directory / "daemon.sock"))
+    foreign = _service_directory(tmp_path, "foreign", gid=20)  # a group root is not in
+    with pytest.raises(UntrustedSocket, match="not to your group"):
+        asyncio.run(DaemonClient.connect(foreign / "daemon.sock"))
+    writable = _service_directory(tmp_path, "writable", mode=0o770)  # the group could swap it
+    with pytest.raises(UntrustedSocket, match="770"):
+        asyncio.run(DaemonClient.connect(writable / "daemon.sock"))

@@ -15,7 +15,8 @@ Fixtures (function scope; everything started is stopped at teardown):
 ``start_simulator(profile="query-plain", seed=1, time_scale=TIME_SCALE, *extra_args)``
     -> :class:`SimulatorProcess` with ``serial`` (pty path), ``control`` (control socket path),
     ``profile``, ``pid`` and ``bench()`` (a ``SimulatorControl`` client).
-``start_daemon(simulator, db=None, plan=QUICK_PLAN, bench=True, time_scale=TIME_SCALE)``
+``start_daemon(simulator, db=None, plan=QUICK_PLAN, bench=True, time_scale=TIME_SCALE, *extra,
+env=None)`` (``extra``: more `serve` options; ``env``: its environment)
     -> :class:`DaemonProcess` with ``socket``, ``db``, ``pid``, ``info`` (its ready line),
     ``connect(operator=...)`` (an async ``DaemonClient``), ``kill9()``, ``restart()``, ``stop()``.
 ``simulator``  a default simulator;  ``daemon``  a daemon on it with the quick plan.
@@ -100,6 +101,7 @@ class DaemonProcess:
     log_path: Path
     process: subprocess.Popen | None = None
     info: dict[str, Any] = field(default_factory=dict)
+    env: dict[str, str] | None = None  # the environment (None: this process's)
 
     @property
     def pid(self) -> int:
@@ -110,7 +112,7 @@ class DaemonProcess:
         """Start the daemon and wait for its ready line."""
         with self.log_path.open("ab") as log:
             self.process = subprocess.Popen(
-                chargebook_command(*self.args), stdout=subprocess.PIPE, stderr=log
+                chargebook_command(*self.args), stdout=subprocess.PIPE, stderr=log, env=self.env
             )
         self.info = read_ready_line(self.process, self.log_path)
         return self
@@ -173,6 +175,8 @@ def start_daemon(tmp_path: Path) -> Iterator[Callable[..., DaemonProcess]]:
         plan: str = QUICK_PLAN,
         bench: bool = True,
         time_scale: float = TIME_SCALE,
+        *extra: str,
+        env: dict[str, str] | None = None,
     ) -> DaemonProcess:
         number = len(started)
         socket_path = tmp_path / f"run-{number}" / "daemon.sock"
@@ -180,9 +184,12 @@ def start_daemon(tmp_path: Path) -> Iterator[Callable[..., DaemonProcess]]:
         args = ["serve", "--profile", simulator.profile, "--port", simulator.serial]
         args += ["--db", str(db_path), "--socket", str(socket_path), "--plan", plan]
         args += ["--time-scale", str(time_scale), "--log-level", "INFO"]
+        args += ["--config", os.devnull]  # no station file of this machine
         if bench:
             args += ["--bench-control", simulator.control]
-        daemon = DaemonProcess(args, socket_path, db_path, tmp_path / f"daemon-{number}.log")
+        args += extra
+        log_path = tmp_path / f"daemon-{number}.log"
+        daemon = DaemonProcess(args, socket_path, db_path, log_path, env=env)
         started.append(daemon)
         return daemon.start()
 

@@ -268,6 +268,35 @@ async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_
     assert record["session"]["status"] == "finished"
 
 
+async def test_the_watch_console_shows_the_session_and_offers_no_action(
+    daemon, metadata, simulator
+):
+    from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
+    from chargebook.tui.actions import ACTIONS
+
+    control = await daemon.connect()
+    operator = AutoOperator(control, environment_from_bench(simulator.control))
+    snapshot = await operator.start(metadata)
+    snapshot = await operator.run_until(snapshot, lambda s: "step.arm" in s["allowed"])
+    app = ConsoleApp(daemon.socket.parent / "watch.sock", watch=True)
+    async with app.run_test(size=SIZE) as pilot:
+        await until(pilot, lambda: screen_kind(app) == "measure", "the measure screen")
+        screen = app.main_screen
+        assert "step.arm" in allowed(app)  # the daemon would allow it on the control socket
+        assert screen.allowed() == []  # but the watching console offers nothing
+        for action in ACTIONS:
+            assert screen.check_action("do", (action.name,)) is False
+        await until(pilot, lambda: "watching: no actions" in screen_text(app), "watching")
+        assert "Capture" not in screen_text(app)  # no action bar
+        seq = app.snapshot["seq"]
+        await pilot.press("a")  # the arm key of an operator's console
+        await pilot.pause(0.2)
+    after = await control.status()
+    await control.close()
+    assert after["state"] == snapshot["state"] and "step.arm" in after["allowed"]
+    assert after["seq"] == seq  # nothing happened
+
+
 async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_requests(
     simulator, daemon, metadata
 ):

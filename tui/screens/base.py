@@ -36,6 +36,21 @@ class ConsoleScreen(Screen):
         """Return the line that says whether the daemon and electrometer are there."""
         return self.query_one(StatusLine)
 
+    @property
+    def watching(self) -> bool:
+        """True when the console only watches (the watch-only socket): no action is offered."""
+        return self.link.watching
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Hide every action while watching but moving between tabs; else :meth:`offers`."""
+        if self.watching and action != "show_tab":
+            return False
+        return self.offers(action, parameters)
+
+    def offers(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Return whether ``action`` is offered now (True), shown disabled (None) or hidden."""
+        return True
+
     def holds_screen(self) -> bool:
         """Return True while this screen must stay although the snapshot belongs elsewhere."""
         return False
@@ -63,6 +78,6 @@ class ConsoleScreen(Screen):
 
     def allowed(self) -> list[str]:
         """Return the actions the daemon allows now (none while not connected)."""
-        if not self.link.connected or self.snapshot is None:
+        if not self.link.connected or self.snapshot is None or self.link.watching:
             return []
         return list(self.snapshot.get("allowed") or [])

@@ -95,7 +95,9 @@ class MeasureScreen(ConsoleScreen):
         self.query_one(ResultsPanel).snapshot = snapshot
         self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
         self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
-        self.query_one(ActionBar).show_allowed(self.allowed())
+        action_bar = self.query_one(ActionBar)
+        action_bar.display = not self.watching  # a watching console offers no action
+        action_bar.show_allowed(self.allowed())
 
     @staticmethod
     def _shown_set(snapshot: dict[str, Any]) -> dict[str, Any] | None:
@@ -108,7 +110,7 @@ class MeasureScreen(ConsoleScreen):
         return step_sets[-1] if step_sets else None
 
     # -- keys and buttons ------------------------------------------------------------------
-    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+    def offers(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """Enable an operator action only when the daemon allows it; rare ones hide instead."""
         if action != "do":
             return True

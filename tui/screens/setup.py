@@ -70,7 +70,7 @@ class SetupScreen(ConsoleScreen):
         """Stay up while the session is being started, until the air data are recorded too."""
         return self.starting or self.session_opened
 
-    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+    def offers(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """Offer Start when the daemon has no session open (or this form opened it), and the
         last temperature and pressure when there is one to confirm."""
         if action == "start":

@@ -111,7 +111,7 @@ class SummaryScreen(ConsoleScreen):
             f"Caution: {snapshot.get('caution') or CAUTION}"
         )
 
-    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+    def offers(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """Offer a new session only when the daemon allows closing this one."""
         if action == "new_session":
             return Method.SESSION_CLOSE in self.allowed() or None

@@ -10,10 +10,17 @@ from chargebook.tui.widgets.text_block import TextBlock
 from textual.reactive import reactive
 
 NOT_CONNECTED = "Not connected to the daemon — retrying…"
+WATCHING = "watching: no actions"
 
 
 def status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str, bool]:
-    """Return (the line to show, whether it reports trouble): the worst news comes first."""
+    """Return (the line to show, whether it reports trouble): the worst news comes first; a
+    watching console says so first."""
+    line, trouble = _status_text(link, snapshot)
+    return (f"{WATCHING} · {line}" if link.watching else line), trouble
+
+
+def _status_text(link: LinkStatus, snapshot: dict[str, Any] | None) -> tuple[str, bool]:
     if not link.connected:
         return f"!! {link.text or NOT_CONNECTED}", True
     if snapshot is None:

@@ -1,0 +1,93 @@
+"""The pyvisa-py internals the VISA transport relies on, on real resources: fail loudly if a
+pyvisa-py release changes them (visa_transport.PYVISA_PY_INTERNALS); the VISA library choice
+and flow control on ASRL resources.
+
+Resources are the simulated electrometer's loopback SCPI socket and its pseudo-terminal.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import socket
+
+import pytest
+import serial
+from chargebook.drivers_generic import load_profile, open_electrometer
+from chargebook.drivers_generic.interface import InstrumentDisconnected
+from chargebook.drivers_generic.visa_transport import (
+    PYVISA_PY_INTERNALS,
+    VisaTransport,
+    pyvisa_py_interface,
+    visa_library_spec,
+)
+
+from .conftest import FAST
+
+
+def _open_raw(resource: str):
+    import pyvisa
+
+    return pyvisa.ResourceManager("@py").open_resource(resource, open_timeout=2000)
+
+
+def test_pyvisa_py_keeps_the_socket_of_a_tcpip_socket_resource_where_the_driver_looks(simulator):
+    sim = simulator("--scpi", "0", *FAST)
+    resource = _open_raw(sim.scpi)
+    try:
+        sessions = resource.visalib.sessions  # PYVISA_PY_INTERNALS[0]
+        assert isinstance(sessions, dict), PYVISA_PY_INTERNALS
+        interface = sessions[resource.session].interface  # PYVISA_PY_INTERNALS[1]
+        assert isinstance(interface, socket.socket), PYVISA_PY_INTERNALS
+        assert interface.getpeername()[1] == int(sim.scpi.split("::")[2])  # the simulator's
+        assert pyvisa_py_interface(resource) is interface
+    finally:
+        resource.close()
+    driver = open_electrometer("scpi-generic", resource=sim.scpi)
+    try:
+        assert isinstance(driver.transport.interface, socket.socket)  # the path the driver uses
+    finally:
+        driver.close()
+
+
+def test_pyvisa_py_keeps_the_serial_port_of_an_asrl_resource_where_the_driver_looks(simulator):
+    sim = simulator("--serial", "--profile", "query-plain", *FAST)
+    resource = _open_raw(f"ASRL{sim.serial}::INSTR")
+    try:
+        interface = resource.visalib.sessions[resource.session].interface
+        assert isinstance(interface, serial.Serial), PYVISA_PY_INTERNALS
+        assert interface.port == sim.serial
+    finally:
+        resource.close()
+
+
+@pytest.mark.parametrize(
+    ("flow_control", "xonxoff", "rtscts"),
+    [("none", False, False), ("xonxoff", True, False), ("rtscts", False, True)],
+)
+def test_an_asrl_resource_gets_the_profiles_flow_control(simulator, flow_control, xonxoff, rtscts):
+    sim = simulator("--serial", "--profile", "query-plain", *FAST)
+    profile = load_profile("query-plain")
+    settings = dataclasses.replace(profile.port, flow_control=flow_control)
+    transport = VisaTransport(f"ASRL{sim.serial}::INSTR", profile.framing, settings=settings)
+    transport.open()
+    try:
+        port = transport.interface
+        assert (port.xonxoff, port.rtscts) == (xonxoff, rtscts)
+        assert port.baudrate == profile.port.baud
+    finally:
+        transport.close()
+
+
+def test_the_visa_library_is_the_option_else_pyvisa_library_else_at_py(simulator, monkeypatch):
+    assert visa_library_spec(None, {}) == "@py"
+    assert visa_library_spec(None, {"PYVISA_LIBRARY": "@ivi"}) == "@ivi"
+    assert visa_library_spec("@py", {"PYVISA_LIBRARY": "@ivi"}) == "@py"
+    sim = simulator("--scpi", "0", *FAST)
+    monkeypatch.setenv("PYVISA_LIBRARY", "@nosuchbackend")
+    with pytest.raises(InstrumentDisconnected, match="nosuchbackend"):
+        open_electrometer("scpi-generic", resource=sim.scpi)  # the variable is honoured
+    driver = open_electrometer("scpi-generic", resource=sim.scpi, visa_library="@py")
+    try:
+        assert driver.identify().model == "SIM-SCPI"  # the option wins over the variable
+    finally:
+        driver.close()
