@@ -209,7 +209,8 @@ def test_a_watch_socket_path_that_is_taken_stops_the_start_and_leaves_no_control
     (run / "watch.sock").write_text("not a socket")
     command = chargebook_command(
         "serve", "--profile", "query-plain", "--port", "/dev/null",
-        "--db", str(tmp_path / "s.sqlite"), "--socket", str(run / "daemon.sock"), "--config", os.devnull,
+        "--db", str(tmp_path / "s.sqlite"), "--socket", str(run / "daemon.sock"),
+        "--config", os.devnull,
     )  # fmt: skip
     done = subprocess.run(command, capture_output=True, text=True, timeout=60, check=False)
     assert done.returncode == 2
