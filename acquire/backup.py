@@ -57,6 +57,8 @@ def backup_station(source: Path, out: Path, *, force: bool = False) -> BackupRes
         raise InputError("OUT", str(out), "a new file name, or --force to replace it", "exists")
     if out.resolve() == source.resolve():
         raise InputError("OUT", str(out), "another file than the station file", "is the source")
+    if not out.parent.is_dir():
+        raise StoreError(f"cannot write the backup {out}: the folder {out.parent} does not exist")
     partial = out.with_name(f".{out.name}.partial")
     _remove(partial)
     try:

@@ -139,6 +139,14 @@ def record_review(
                 "a finished or aborted session",
                 f"is {session.status}: a session is reviewed once it is closed",
             )
+        if session.replay_of is not None:
+            raise InputError(
+                "session",
+                session_id,
+                "a measured session",
+                f"is a replay of session {session.replay_of}, not a measurement: review the "
+                "original",
+            )
         if decision == "approve" and session.status == "aborted":
             raise InputError(
                 "decision",

@@ -49,3 +49,11 @@ def test_a_copy_of_a_changed_record_is_kept_but_says_it_does_not_verify(
     error = capsys.readouterr().err
     assert "DOES NOT VERIFY" in error and "readings row 3" in error
     assert out.is_file()
+
+
+def test_a_backup_into_a_missing_folder_names_that_folder(tmp_path: Path, capsys) -> None:
+    station = recorded_station(tmp_path)
+    out = tmp_path / "no-such-folder" / "copy.sqlite"
+    assert main(["backup", "--db", str(station), str(out)]) == EXIT_FAILURE
+    err = capsys.readouterr().err
+    assert f"the folder {out.parent} does not exist" in err and str(station) not in err

@@ -165,3 +165,13 @@ def test_history_leaves_a_rejected_session_out_unless_all(station: Path, capsys)
         assert points[4]["session_uuid"] == store.session(4).uuid  # carried in this export too
     assert main(["history", "--beam", "6 MV", "--db", str(station), "--all"]) == EXIT_OK
     assert "finished, rejected" in capsys.readouterr().out
+
+
+def test_a_replay_is_not_a_measurement_and_cannot_be_reviewed(tmp_path: Path) -> None:
+    with Store.memory() as store:
+        original = record_example_session(store)
+        replay = record_example_session(store, replay_of=original)
+        with pytest.raises(InputError, match=f"is a replay of session {original}") as refused:
+            record_review(store, replay, "approve", "reviewer B", "fine")
+        assert refused.value.field == "session"
+        assert record_review(store, original, "approve", "reviewer B", "fine").status == "approved"
