@@ -85,7 +85,8 @@ def test_default_plan_step_details() -> None:
         True,
     )
     for step in plan.steps:
-        assert step.prompt and f"{step.bias_V:+g} V" in step.prompt
+        # the bias as the console writes it, a negative one with a true minus sign
+        assert step.prompt and f"{step.bias_V:+g} V".replace("-", "−") in step.prompt
 
 
 def test_the_monthly_check_takes_routine_readings_only_at_the_default_routine_bias() -> None:
