@@ -226,9 +226,9 @@ def deviation_text(snapshot: Snapshot) -> str:
     limit = f" (tolerance ±{tolerance:g} %)" if tolerance is not None else ""
     within = results.get("within_tolerance")
     if within is True:
-        return f"{shown}{limit} ok within"
+        return f"{shown}{limit}: ok, within tolerance"
     if within is False:
-        return f"{shown}{limit} !! OUTSIDE"
+        return f"{shown}{limit}: !! OUTSIDE tolerance"
     return shown + limit
 
 
@@ -288,11 +288,15 @@ def check_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
 
 
 def _air_text(air: Mapping[str, Any], entries: Sequence[Mapping[str, Any]]) -> str:
-    """Return a set's air in words: T, P, and which entry it is with the time it was recorded."""
+    """Return a set's air in words: T, P, and which entry it is, with its source and the local
+    time it was recorded."""
     position = air.get("entry")
     stamp = ""
     if isinstance(position, int) and 0 < position <= len(entries):
-        stamp = ", " + str(entries[position - 1].get("recorded_at", ""))[11:19] + " UTC"
+        entry = entries[position - 1]
+        when = text.local_time(entry.get("recorded_at"))[11:]  # the time of day and its offset
+        source = f"{entry['source']}, " if entry.get("source") else ""
+        stamp = f", {source}{when}"
     where = f"entry {position}{stamp}" if position is not None else str(air.get("source", ""))
     return (
         f"{text.number(air.get('temperature_C'), 2, '°C')}, "

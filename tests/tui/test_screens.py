@@ -384,16 +384,22 @@ async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
             set_environments={"routine": first, "opposite": second, "reduced": second},
         )
     ).to_dict()
-    stamp = {"recorded_at": "2025-03-14T09:30:00+00:00"}
-    snapshot["environment_entries"] = [stamp, {"recorded_at": "2025-03-14T09:41:12+00:00"}]
+    stamp = {"recorded_at": "2025-03-14T09:30:00+00:00", "source": "console"}
+    snapshot["environment_entries"] = [
+        stamp,
+        {"recorded_at": "2025-03-14T09:41:12+00:00", "source": "bench thermometer"},
+    ]
     app = ScreenHarness(MeasureScreen, snapshot)
     async with app.run_test(size=(160, 60)) as pilot:
         await pilot.pause()
         shown = " ".join(screen_text(app).split())
     assert "Leakage 0.022 % of M, not subtracted" in shown
     assert "k_s by Boag" in shown
-    assert "Air, routine 21.40 °C, 101.200 kPa (entry 1, 09:30:00 UTC)" in shown
-    assert "Air, opposite 21.80 °C, 101.200 kPa (entry 2, 09:41:12 UTC)" in shown
+    # each entry with its source and its local time (the console's tests run in UTC)
+    assert "Air, routine 21.40 °C, 101.200 kPa (entry 1, console, 09:30:00 +00:00)" in shown
+    assert (
+        "Air, opposite 21.80 °C, 101.200 kPa (entry 2, bench thermometer, 09:41:12 +00:00)" in shown
+    )
 
 
 async def test_the_results_panel_of_an_electron_beam_shows_R50_and_z_ref():
@@ -494,3 +500,25 @@ async def test_the_focused_entry_is_marked_in_text_not_only_by_a_shade():
         await pilot.pause()
         shown = screen_text(app)
     assert "▸ Operator" not in shown and "▸ Treatment machine" in shown
+
+
+async def test_the_setup_form_takes_the_certificates_k_and_your_own_uncertainty_components():
+    app = ScreenHarness(lambda send: SetupScreen(send, setup_defaults()), load_snapshot("idle"))
+    async with app.run_test(size=SIZE) as pilot:
+        form = app.console_screen.form
+        entries = {
+            "k_N_Dw": "2.2",
+            "u_reference_conditions_pct": "0.3",
+            "u_long_term_stability_pct": "0.2",
+            "u_beam_monitor_pct": "0.1",
+            "u_electrometer_resolution_pct": "0.05",
+        }
+        for key, typed in entries.items():
+            form.query_one(f"#field-{key}", Field).input.value = typed
+        await pilot.pause()
+        metadata = form.metadata()
+    assert metadata is not None
+    checked = validate_metadata(metadata)  # the daemon's own check of session.start
+    assert checked.k_N_Dw == 2.2 and checked.u_reference_conditions_pct == 0.3
+    assert checked.u_long_term_stability_pct == 0.2 and checked.u_beam_monitor_pct == 0.1
+    assert checked.u_electrometer_resolution_pct == 0.05

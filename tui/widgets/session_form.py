@@ -71,6 +71,21 @@ NUMBER_FIELDS: tuple[tuple[str, str, checks.Check, bool], ...] = (
         checks.in_range("expected_cGy_per_MU", limits.EXPECTED_CGY_PER_MU),
         True,
     ),
+    (
+        "k_N_Dw",
+        "k of u(N_D,w) (empty: 2)",
+        checks.in_range("k_N_Dw", limits.CERTIFICATE_K),
+        False,
+    ),
+    *(
+        (key, label, checks.in_range(key, limits.UNCERTAINTY_PCT), False)
+        for key, label in (
+            ("u_reference_conditions_pct", "u ref. conditions %"),
+            ("u_long_term_stability_pct", "u long-term stability %"),
+            ("u_beam_monitor_pct", "u beam monitor %"),
+            ("u_electrometer_resolution_pct", "u electrometer resol. %"),
+        )
+    ),
 )
 
 
