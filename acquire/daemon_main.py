@@ -30,7 +30,8 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
 
     if not args.time_scale > 0:
         raise InputError("--time-scale", args.time_scale, "a number above 0")
-    load_plan(args.plan)
+    plan = args.plan or "default"  # serve leaves it unset until its station file is read
+    load_plan(plan)
     station_name = getattr(args, "station_name", None)
     if station_name is not None and not station_name.strip():
         raise InputError("--station-name", station_name, "a non-empty name")
@@ -41,7 +42,7 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
         socket_path=socket,
         port=args.port,
         resource=args.resource,
-        plan=args.plan,
+        plan=plan,
         bench_control=args.bench_control,
         time_scale=args.time_scale,
         thresholds=load_thresholds(args.thresholds) if args.thresholds else None,

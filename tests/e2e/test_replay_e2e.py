@@ -122,7 +122,8 @@ async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProc
     daemon.restart()
     client = await daemon.connect(operator=ACTOR)
     final = await AutoOperator(client, environment_from_bench(simulator.control)).run(
-        demo_metadata()
+        demo_metadata(),
+        take_over=True,  # its own session, resumed after the kill
     )
     await client.close()
     assert final["session"]["id"] == snapshot["session"]["id"]
