@@ -47,6 +47,7 @@ def set_air_rows(
     ``entry_times``: entry position -> when it was recorded, as shown, to say when it was entered.
     """
     rows = []
+    k_TP = (results.get("symbols") or {}).get("k_TP", "k_TP")  # P_TP under TG-51
     for key, air in (results.get("set_air") or {}).items():
         stamp = (entry_times or {}).get(air.get("entry"))
         recorded = f", recorded {stamp}" if stamp else ""
@@ -54,7 +55,7 @@ def set_air_rows(
             (
                 SET_NAMES.get(key, key),
                 f"{air['temperature_C']:.2f} °C, {air['pressure_kPa']:.3f} kPa, "
-                f"k_TP {air['k_TP']:.5f} ({air['source']}{recorded})",
+                f"{k_TP} {air['k_TP']:.5f} ({air['source']}{recorded})",
             )
         )
     return rows
@@ -79,7 +80,8 @@ def cross_check_rows(results: dict[str, Any]) -> list[tuple[str, str]]:
     rows = [("leakage", leakage_text(results))]
     boag = boag_text(results)
     if boag is not None:
-        rows.append(("k_s cross-check", boag))
+        symbol = (results.get("symbols") or {}).get("k_s", "k_s")  # P_ion under TG-51
+        rows.append((f"{symbol} cross-check", boag))
     rows += [(f"air, {name}", text) for name, text in set_air_rows(results)]
     return rows
 

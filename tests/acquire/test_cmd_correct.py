@@ -503,3 +503,11 @@ def test_a_cylindrical_chamber_below_R50_4_cm_is_flagged_in_words(tmp_path: Path
     # z_ref = 0.6 × 2.0 − 0.1 = 1.1 cm (TRS-398 (2000) and TG-51 (1999) formula).
     assert "R50 = 2 cm, z_ref = 1.10 cm" in done.stdout
     assert "asks for a plane-parallel chamber" in done.stdout
+
+
+def test_a_tg51_worksheet_names_every_factor_by_tg51_symbols(capsys) -> None:
+    # AAPM TG-51 writes P_TP and P_ion where TRS-398 writes k_TP and k_s (common practice).
+    assert main(["correct", str(EXAMPLES / "demo-la2-10fff.toml")]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "P_ion cross-check" in out and ", P_TP 0." in out
+    assert "k_s cross-check" not in out and ", k_TP " not in out
