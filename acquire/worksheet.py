@@ -222,7 +222,8 @@ def _sections(document: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
             result[key][inner] = _typed(key, inner, inner_value)
     for section, key in REQUIRED:
         if key not in result[section]:
-            raise InputError(_name(section, key), None, SCHEMA[section][key], "is missing")
+            allowed = CHOICES.get(key, SCHEMA[section][key])
+            raise InputError(_name(section, key), None, allowed, "is missing")
     return result
 
 
@@ -319,6 +320,13 @@ def _carried(tables: Mapping[str, Any], measured_on: str) -> dict[str, CarriedFa
     }
 
 
+#: What a missing key of the worksheet's top level may be, said when it is missing.
+CHOICES = {
+    "convention": "trs398 or tg51",
+    "beam": "pulsed, pulsed-scanned or continuous",
+}
+
+
 def parse_worksheet(
     document: Mapping[str, Any],
     path: Path | str = "<worksheet>",
@@ -331,6 +339,14 @@ def parse_worksheet(
     """
     if not isinstance(document, Mapping):
         raise InputError("worksheet", document, "a table of keys", "is not a table")
+    if not document:
+        raise InputError(
+            "worksheet",
+            str(path),
+            "convention, beam, [environment], [bias], [readings] and [calibration] (see "
+            "acquire/examples/)",
+            "is empty",
+        )
     sections = _sections(document)
     top, session = sections[""], sections["session"]
     modality = top.get("modality", "photon")

@@ -49,6 +49,8 @@ class InputError(ValueError):
         shown = describe_value(value)
         if problem is None:
             message = f"{field} = {shown} is outside the allowed range {allowed}"
+        elif value is None and problem == "is missing":
+            message = f"{field} is missing (allowed: {allowed})"
         else:
             message = f"{field} = {shown} {problem} (allowed: {allowed})"
         super().__init__(message)

@@ -378,15 +378,15 @@ def test_a_monthly_check_gives_a_dose_with_carried_factors_and_their_provenance(
     [
         (
             "k_pol = { value = 1.001, date = 2026-03-02 }\n",
-            "carried.k_pol.source = None is missing",
+            "carried.k_pol.source is missing",
         ),
         (
             'k_pol = { value = 1.001, source = "report" }\n',
-            "carried.k_pol.date = None is missing",
+            "carried.k_pol.date is missing",
         ),
         (
             'k_pol = { source = "report", date = 2026-03-02 }\n',
-            "carried.k_pol.value = None is missing",
+            "carried.k_pol.value is missing",
         ),
         (
             'k_pol = { value = 1.001, source = "report", date = 2026-05-01 }\n',
@@ -511,3 +511,15 @@ def test_a_tg51_worksheet_names_every_factor_by_tg51_symbols(capsys) -> None:
     out = capsys.readouterr().out
     assert "P_ion cross-check" in out and ", P_TP 0." in out
     assert "k_s cross-check" not in out and ", k_TP " not in out
+
+
+def test_an_empty_worksheet_and_a_missing_key_are_said_in_plain_words(monkeypatch, capsys) -> None:
+    import io
+
+    monkeypatch.setattr("sys.stdin", io.StringIO("\n"))
+    assert main(["correct", "-"]) == EXIT_INVALID_INPUT
+    assert "worksheet = '<stdin>' is empty" in capsys.readouterr().err
+    monkeypatch.setattr("sys.stdin", io.StringIO('beam = "pulsed"\n'))
+    assert main(["correct", "-"]) == EXIT_INVALID_INPUT
+    err = capsys.readouterr().err
+    assert "convention is missing (allowed: trs398 or tg51)" in err and "None" not in err

@@ -177,7 +177,7 @@ def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:
         data = _strict(to_json(record))
         assert data["results"] is None
         assert data["results_error"] == (
-            "the stored plan cannot be read: name = None is missing (allowed: the plan's name)"
+            "the stored plan cannot be read: name is missing (allowed: the plan's name)"
         )
         assert [r["charge_nC"] for s in data["sets"] for r in s["readings"]] == [14.2]
         rows = list(csv.DictReader(io.StringIO(to_csv(record))))
