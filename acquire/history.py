@@ -67,6 +67,8 @@ class History:
     baseline_cGy_per_MU: float | None
     points: tuple[HistoryPoint, ...]
     station_uuid: str | None = None  # the station that keeps the sessions
+    #: When no session matches: the beams recorded at the station, the closest names first.
+    known_beams: tuple[str, ...] = ()
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -159,7 +161,9 @@ def _baseline_value(
         try:
             record = load_record(store, choice, check_chain=False)
         except NotFound:
-            raise InputError("baseline", f"session:{choice}", "an existing session") from None
+            raise InputError(
+                "baseline", f"session:{choice}", "a session recorded here", "is not recorded"
+            ) from None
         if record.evaluation is None or record.evaluation.dose_per_MU_cGy is None:
             problem = "has no dose per MU"
             raise InputError("baseline", f"session:{choice}", "a session with a result", problem)
@@ -204,7 +208,32 @@ def load_history(
         baseline_cGy_per_MU=value,
         points=tuple(_point(record, value) for record in records),
         station_uuid=store.station().uuid,
+        known_beams=() if rows else _beams_like(store, beam),
     )
+
+
+def _no_match(history: History) -> str:
+    """Return what history says when no session matches, with the beams that do exist."""
+    words = f"No session of beam {history.beam!r} matches."
+    if history.known_beams:
+        words += f" Beams recorded here: {', '.join(history.known_beams)}."
+    return words
+
+
+def _beams_like(store: Store, beam: str) -> tuple[str, ...]:
+    """Return the beams recorded at the station, those whose names are close to ``beam``
+    first (a mistyped "7 MV" finds "6 MV")."""
+    import difflib
+
+    names = sorted(
+        {
+            " ".join(str(row.metadata().get("beam") or row.beam).split())
+            for row in store.sessions()
+            if row.replay_of is None
+        }
+    )
+    close = difflib.get_close_matches(beam, names, n=len(names), cutoff=0.5)
+    return (*close, *(name for name in names if name not in close))
 
 
 #: Marks an output check's session id in the terminal plot, and the legend saying so.
@@ -265,5 +294,10 @@ def history_table(history: History) -> Table:
         tuple(f"session-{p.session_id}" for p in history.points),
         note=f"Deviation from {history.baseline_label}."
         if rows
-        else f"No session of beam {history.beam!r} matches.",
+        else f"No session of beam {history.beam!r} matches."
+        + (
+            f" Beams recorded here: {', '.join(history.known_beams)}."
+            if history.known_beams
+            else ""
+        ),
     )

@@ -301,7 +301,9 @@ def thresholds_from_dict(data: Mapping[str, Any]) -> Thresholds:
     known = [f.name for f in fields(Thresholds)]
     for key in data:
         if key not in known:
-            raise InputError(f"thresholds.{key}", data[key], "one of " + ", ".join(known))
+            raise InputError(
+                f"thresholds.{key}", data[key], "one of " + ", ".join(known), "is not a threshold"
+            )
     return Thresholds(**data)
 
 

@@ -95,3 +95,15 @@ def test_the_beam_is_required(station: Path, capsys) -> None:
         main(["history", "--db", str(station)])
     assert caught.value.code == 2
     assert "--beam" in capsys.readouterr().err
+
+
+def test_a_beam_with_no_session_lists_the_beams_recorded_here(station: Path, capsys) -> None:
+    assert main(["history", "--beam", "7 MV", "--db", str(station)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "No session of beam '7 MV' matches. Beams recorded here: 6 MV." in out
+
+
+def test_a_baseline_session_that_does_not_exist_is_said_so(station: Path, capsys) -> None:
+    argv = ["history", "--beam", "6 MV", "--baseline", "session:99", "--db", str(station)]
+    assert main(argv) == EXIT_INVALID_INPUT
+    assert "baseline = 'session:99' is not recorded" in capsys.readouterr().err
