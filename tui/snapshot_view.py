@@ -167,10 +167,19 @@ def history_rows(sets: Sequence[SetInfo]) -> list[tuple[str, str, str, str, str]
                 set_title(set_info),
                 status,
                 text.charge_nC(stats.get("mean_nC")),
-                text.percent(stats.get("relative_sd_pct"), 3),
+                _relative_sd_cell(set_info, stats),
             )
         )
     return rows
+
+
+def _relative_sd_cell(set_info: SetInfo, stats: Mapping[str, Any]) -> str:
+    """Return a set's relative SD, "—" when a closed set cannot have one (fewer than two
+    readings, as ``show`` writes it), "pending" only while it is still being taken."""
+    rel_sd = stats.get("relative_sd_pct")
+    if rel_sd is None and set_info.get("status") not in ("collecting", "interrupted"):
+        return "—"
+    return text.percent(rel_sd, 3)
 
 
 def factor_value(results: Mapping[str, Any], key: str) -> float | None:

@@ -87,3 +87,18 @@ def test_factor_states_are_shown_as_the_daemon_sent_them_and_never_worked_out():
     assert shown == set(states.values())
     # No results (e.g. readings the results refuse): no factor is shown as "pending".
     assert snapshot_view.factor_rows(None) == []
+
+
+def test_a_closed_set_with_no_relative_sd_shows_a_dash_as_show_does_not_pending():
+    leakage = {
+        "step_index": 0,
+        "purpose": "leakage",
+        "bias_V": 300.0,
+        "status": "accepted",
+        "reason": None,
+        "stats": {"mean_nC": 0.02, "relative_sd_pct": None},
+    }
+    (row,) = snapshot_view.history_rows([leakage])
+    assert row[4] == "—"
+    (row,) = snapshot_view.history_rows([{**leakage, "status": "collecting", "stats": {}}])
+    assert row[4] == "pending"
