@@ -8,6 +8,7 @@ conditions add the monitor units the plan delivers per reading and the reference
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -23,6 +24,7 @@ from chargebook.acquire.report_sections import (
     signed,
 )
 from chargebook.corrections.evaluate import Evaluation
+from chargebook.corrections.student_t import dof_text
 
 #: Reference conditions a session's metadata may state: key -> label (with its unit).
 REFERENCE_CONDITIONS = (
@@ -62,17 +64,11 @@ def expanded_uncertainty_text(evaluation: Evaluation) -> str:
     return f"{evaluation.U_expanded_pct:.2f} % (k = {k:.2f}, ν_eff = {dof}{coverage})"
 
 
-#: Above this, ν_eff is said in words: k no longer changes at the digits shown.
-SHOWN_DOF_LIMIT = 1000
-
-
 def _dof_text(dof: float | None, infinite: bool) -> str:
-    """Return ν_eff as shown: one decimal, "above 1000", or ∞ when every input is Type B."""
-    if infinite:
-        return "∞ (Type B only)"
-    if dof is None:
+    """Return ν_eff as shown everywhere (:func:`dof_text`); the JSON form carries ∞ as a flag."""
+    if dof is None and not infinite:
         return NOT_GIVEN
-    return f"{dof:.1f}" if dof < SHOWN_DOF_LIMIT else f"above {SHOWN_DOF_LIMIT}"
+    return dof_text(math.inf if infinite else dof)
 
 
 def flag_count_text(evaluation: Evaluation) -> str:
