@@ -277,6 +277,17 @@ THRESHOLDS_EVENT = "thresholds"
 #: The event that records, at session start, the instrument profile and the daemon's time scale
 #: (what a replay needs to read the traffic and to time the plan's waits as the daemon did).
 ACQUISITION_EVENT = "acquisition"
+
+
+def recorded_time_scale(events: Sequence[EventRow]) -> float | None:
+    """Return the daemon's time scale as its ``acquisition`` event recorded it (None: none did)."""
+    scale: float | None = None
+    for event in events:
+        if event.kind == ACQUISITION_EVENT:
+            scale = event.detail().get("time_scale", scale)
+    return scale
+
+
 #: The event that records, at session start, the operator's choice to subtract the measured
 #: leakage from the routine reading (metadata ``subtract_leakage``); the audit lists it.
 LEAKAGE_SUBTRACTION_EVENT = "leakage_subtraction_chosen"

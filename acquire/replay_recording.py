@@ -171,15 +171,13 @@ def exchange_before(store: Store, traffic: Sequence[TrafficRow]) -> list[Traffic
 def _acquisition(events: Sequence[EventRow]) -> tuple[str | None, float | None]:
     """Return (profile name, time scale) the daemon recorded, None where it did not."""
     profile: str | None = None
-    time_scale: float | None = None
     for event in events:
         detail = event.detail()
         if event.kind == live.ACQUISITION_EVENT:
             profile = detail.get("profile") or profile
-            time_scale = detail.get("time_scale", time_scale)
         elif event.kind == "instrument_identified" and profile is None:
             profile = detail.get("profile")
-    return profile, time_scale
+    return profile, live.recorded_time_scale(events)
 
 
 def armed_times(

@@ -96,17 +96,8 @@ def stored_context(store: Store, session_id: int, events: Sequence[EventRow]) ->
         metadata=row.metadata(),
         thresholds=live.session_thresholds(events),
         integration_s=live.integration_times(events),
-        time_scale=_time_scale(events),
+        time_scale=live.recorded_time_scale(events) or 1.0,
     )
-
-
-def _time_scale(events: Sequence[EventRow]) -> float:
-    """Return the time scale the daemon recorded for the session (1 when none was)."""
-    scale = 1.0
-    for event in events:
-        if event.kind == live.ACQUISITION_EVENT:
-            scale = float(event.detail().get("time_scale") or scale)
-    return scale
 
 
 def evaluate_session(
