@@ -71,7 +71,7 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
     from chargebook.corrections.errors import InputError
 
     path = args.db or default_db_path()
-    if not Path(path).exists():
+    if not Path(path).is_file():
         print(f"chargebook: {missing_station_words(Path(path))}", file=sys.stderr)
         return EXIT_INVALID_INPUT
     try:

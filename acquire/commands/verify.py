@@ -21,15 +21,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import sys
-
-    from chargebook.acquire.cli import EXIT_INVALID_INPUT
-    from chargebook.acquire.store import default_db_path
-
-    path = args.db or default_db_path()
-    if not path.is_file():
-        print(f"chargebook: no station database at {path} (pass --db FILE)", file=sys.stderr)
-        return EXIT_INVALID_INPUT
     return run_reader(args, lambda store: _verify(store, args))
 
 
