@@ -120,25 +120,29 @@ def evaluate_session(
         stage = "the stored metadata cannot be used"
         metadata = validate_metadata(dict(context.metadata))
         stage = "the recorded values cannot be evaluated"
-        inputs, provisional = _inputs(store, session_id, context, metadata, active_set_id)
+        sets, by_set = _recorded_sets(store, session_id)
+        chosen = _result_sets(sets, by_set, context.plan, context.integration_s, active_set_id)
+        inputs = _inputs(store, session_id, context, metadata, chosen)
         evaluation = evaluate(inputs)
-        extra = _delivery_flags(store, session_id, context, active_set_id)
+        extra = _delivery_flags(context, sets, by_set, active_set_id)
         known = {flag.code for flag in evaluation.flags}
         extra = [flag for flag in extra if flag.code not in known]
         if extra:
             evaluation = replace(evaluation, flags=(*evaluation.flags, *extra))
-        return SessionEvaluation(evaluation, None, provisional)
+        return SessionEvaluation(evaluation, None, chosen.provisional)
     except InputError as problem:
         return SessionEvaluation(None, f"{stage}: {problem}")
 
 
 def _delivery_flags(
-    store: Store, session_id: int, context: SessionContext, active_set_id: int | None
+    context: SessionContext,
+    sets: Sequence[SetRow],
+    readings: Mapping[int, Sequence[ReadingRow]],
+    active_set_id: int | None,
 ) -> list[Flag]:
     """Return the delivery flags of the sets the results use (integrations too short for the
     MU, a charge per MU far from the routine set's), as the console shows them on each set."""
-    plan, sets = context.plan, store.sets(session_id)
-    readings = {row.id: store.readings(session_id, row.id) for row in sets}
+    plan = context.plan
     reference = live.routine_nC_per_MU(plan, sets, readings)
     flags: list[Flag] = []
     for index, step in enumerate(plan.steps):
@@ -147,7 +151,7 @@ def _delivery_flags(
         row, _ = _set_for(sets, index, active_set_id)
         if row is not None:
             flags += live.delivery_flag_list(
-                step, readings[row.id], context.integration_s, context.time_scale, reference
+                step, readings.get(row.id, ()), context.integration_s, context.time_scale, reference
             )
     return flags
 
@@ -176,17 +180,23 @@ class _ResultSets:
     leakage: tuple[float, float] | None
 
 
+def _recorded_sets(
+    store: Store, session_id: int
+) -> tuple[list[SetRow], dict[int, list[ReadingRow]]]:
+    """Return the session's sets and their readings by set id, read once per evaluation."""
+    by_set: dict[int, list[ReadingRow]] = {}
+    for reading in store.readings(session_id):
+        by_set.setdefault(reading.set_id, []).append(reading)
+    return store.sets(session_id), by_set
+
+
 def _result_sets(
-    store: Store,
-    session_id: int,
+    sets: Sequence[SetRow],
+    by_set: Mapping[int, Sequence[ReadingRow]],
     plan: Plan,
     integration_s: Mapping[int, float],
     active: int | None,
 ) -> _ResultSets:
-    sets = store.sets(session_id)
-    by_set: dict[int, list[ReadingRow]] = {}
-    for reading in store.readings(session_id):
-        by_set.setdefault(reading.set_id, []).append(reading)
     used: dict[str, list[ReadingRow]] = {}
     first: dict[str, ReadingRow] = {}
     provisional = False
@@ -195,7 +205,7 @@ def _result_sets(
         chosen, is_provisional = _set_for(sets, index, active)
         if chosen is None:
             continue
-        own = by_set.get(chosen.id, [])
+        own = list(by_set.get(chosen.id, []))
         counted = [r for r in own if not r.settling]
         if step.purpose in RESULT_PURPOSES and step.purpose not in used and counted:
             used[step.purpose] = counted
@@ -275,11 +285,10 @@ def _inputs(
     session_id: int,
     context: SessionContext,
     meta: SessionMetadata,
-    active_set_id: int | None,
-) -> tuple[MeasurementInputs, bool]:
-    """Return (MeasurementInputs of what is recorded, provisional?)."""
+    chosen: _ResultSets,
+) -> MeasurementInputs:
+    """Return the MeasurementInputs of what is recorded, with the sets ``chosen`` for results."""
     plan, times = context.plan, context.integration_s
-    chosen = _result_sets(store, session_id, plan, times, active_set_id)
     entries = store.environment(session_id)
     latest = entries[-1] if entries else None
     per_set, used_entries = _set_environments(entries, chosen.first)
@@ -322,4 +331,4 @@ def _inputs(
             if all(step.purpose != purpose for step in plan.steps)
         ),
     )
-    return inputs, chosen.provisional
+    return inputs
