@@ -114,17 +114,6 @@ def display(value: Any) -> str:
     return cell(value)
 
 
-def change_cell(original: Any, replay: Any) -> str:
-    """Return ``original → replay`` for one difference; flags as the codes gone and added."""
-    if _flags(original) and _flags(replay):
-        old = [f["code"] for f in original]
-        new = [f["code"] for f in replay]
-        gone = [f"-{code}" for code in old if code not in new]
-        added = [f"+{code}" for code in new if code not in old]
-        return ", ".join(gone + added) or "same codes, other messages"
-    return f"{cell(original)} → {cell(replay)}"
-
-
 def _flags(value: Any) -> bool:
     return isinstance(value, list) and all(isinstance(v, dict) and "code" in v for v in value)
 

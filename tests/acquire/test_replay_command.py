@@ -11,7 +11,7 @@ from chargebook.acquire.commands.replay import add_arguments, threshold_values
 from chargebook.acquire.replay import ReplayReport
 from chargebook.acquire.replay_compare import Change, Comparison, Difference
 from chargebook.acquire.replay_conductor import ArmingClock, Pacer
-from chargebook.acquire.replay_text import change_cell, replay_text
+from chargebook.acquire.replay_text import cell, replay_text
 from chargebook.corrections.errors import InputError
 
 
@@ -133,4 +133,4 @@ def test_an_unchanged_replay_that_does_not_reproduce_shows_every_digit(monkeypat
 
 
 def test_numbers_in_a_difference_are_shown_to_the_last_digit():
-    assert change_cell(19.5974, 19.597400000000004) == "19.5974 → 19.597400000000004"
+    assert (cell(19.5974), cell(19.597400000000004)) == ("19.5974", "19.597400000000004")
