@@ -1,5 +1,5 @@
 import sys
 
-from chargebook.acquire.cli import main
+from chargebook.acquire.commands.cli import main
 
 sys.exit(main())

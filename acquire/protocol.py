@@ -44,6 +44,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal, NotRequired, TypedDict, TypeVar
 
+#: Shown with every result: by the console, the command line, reports and exports.
+CAUTION = (
+    "chargebook supports, and never replaces, the judgement of a qualified medical physicist "
+    "working under local regulations and the local code of practice."
+)
+
 T = TypeVar("T")
 
 PROTOCOL_VERSION = "1.0"
@@ -95,7 +101,7 @@ class ErrorData(TypedDict):
 # States and actions
 # ---------------------------------------------------------------------------------------------
 class EngineState(enum.StrEnum):
-    """Where the sequence is. The transitions are in ``chargebook.acquire.states``."""
+    """Where the sequence is. The transitions are in ``chargebook.acquire.engine.states``."""
 
     IDLE = "idle"  #: no open session
     WAITING_FOR_OPERATOR = "waiting_for_operator"  #: a step is current; the operator must act

@@ -8,7 +8,8 @@ import sys
 from importlib.metadata import version
 
 import pytest
-from chargebook.acquire.cli import COMMANDS, EXIT_INVALID_INPUT, EXIT_OK, build_parser
+from chargebook.acquire.commands.cli import COMMANDS, build_parser
+from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
 
 
 def _chargebook(*argv: str) -> subprocess.CompletedProcess[str]:

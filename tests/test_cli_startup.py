@@ -7,7 +7,7 @@ import sys
 
 PROBE = """
 import sys
-from chargebook.acquire.cli import build_parser
+from chargebook.acquire.commands.cli import build_parser
 parser = build_parser()
 parser.format_help()
 print(sorted(name for name in ("numpy", "textual", "sqlite_utils", "pyvisa", "serial")
@@ -23,7 +23,7 @@ def test_help_imports_nothing_heavy() -> None:
 
 def test_help_runs_and_lists_correct() -> None:
     done = subprocess.run(
-        [sys.executable, "-m", "chargebook.acquire.cli", "--help"],
+        [sys.executable, "-m", "chargebook", "--help"],
         capture_output=True,
         text=True,
         timeout=60,

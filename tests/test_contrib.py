@@ -8,7 +8,7 @@ import subprocess
 import sys
 from pathlib import Path
 
-from chargebook.acquire.station_config import read_config
+from chargebook.acquire.daemon.station_config import read_config
 
 CONTRIB = Path(__file__).parents[1] / "contrib"
 

@@ -15,7 +15,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.demo_data import demo_metadata
+from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.drivers_generic import available_profiles, load_profile
 from chargebook.drivers_generic.lines import parse_identity
 from chargebook.drivers_generic.simulator.device import SimulatedElectrometer

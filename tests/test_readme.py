@@ -5,7 +5,8 @@ import re
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION, COMMANDS
+from chargebook.acquire.commands.cli import COMMANDS
+from chargebook.acquire.protocol import CAUTION
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from chargebook.acquire.report_cli import add_db_argument
+from chargebook.acquire.commands.station_reader import add_db_argument
 
 HELP = (
     "copy the station file consistently, even while the daemon measures (SQLite's online "
@@ -22,9 +22,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import sys
 
-    from chargebook.acquire.backup import backup_station
-    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
-    from chargebook.acquire.store import StoreError, default_db_path
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.record.backup import backup_station
+    from chargebook.acquire.record.store import StoreError, default_db_path
     from chargebook.corrections.errors import InputError
 
     try:

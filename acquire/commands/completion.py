@@ -25,7 +25,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Print the completion script for ``args.shell``; return 0."""
     import shtab
-    from chargebook.acquire.cli import EXIT_OK, build_parser
+    from chargebook.acquire.commands.cli import build_parser
+    from chargebook.acquire.exit_codes import EXIT_OK
 
     print(shtab.complete(build_parser(), shell=args.shell), end="")
     return EXIT_OK

@@ -1,7 +1,7 @@
 """`chargebook correct WORKSHEET [--json | --html] [-o FILE]`: the offline mode, for readings
 copied from a logbook.
 
-Reads a TOML or JSON worksheet (see ``chargebook.acquire.worksheet``), evaluates it with
+Reads a TOML or JSON worksheet (see ``chargebook.acquire.session.worksheet``), evaluates it with
 ``chargebook.corrections.evaluate`` and prints a table of every factor, the reading-set
 statistics, the corrected charge, the dose, the uncertainty budget and the flags, or with
 ``--json`` one JSON object, or with ``--html`` the printable report a session's export gives
@@ -17,7 +17,7 @@ import sys
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from chargebook.acquire.worksheet import Worksheet
+    from chargebook.acquire.session.worksheet import Worksheet
     from chargebook.corrections.evaluate import Evaluation
 
 HELP = "correct readings copied from a logbook: factors, dose and uncertainty from a worksheet"
@@ -28,7 +28,7 @@ SET_TITLES = {"routine": "routine", "opposite": "opposite polarity", "reduced": 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the worksheet path, the --json and --html switches and -o FILE."""
-    from chargebook.acquire.report_cli import add_output_argument
+    from chargebook.acquire.commands.station_reader import add_output_argument
 
     parser.add_argument(
         "worksheet",
@@ -173,7 +173,7 @@ def _results(evaluation: Evaluation) -> list[str]:
                 f"{evaluation.tolerance_source}): {verdict}",
             ]
         )
-    from chargebook.acquire.summary_text import cross_check_rows
+    from chargebook.acquire.reports.summary_text import cross_check_rows
 
     rows += [[label, text] for label, text in cross_check_rows(evaluation.to_dict())]
     return ["", "Results", *_table(rows)]
@@ -240,7 +240,7 @@ def _flags(evaluation: Evaluation) -> list[str]:
 
 def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
     """Return the readable report of one evaluated worksheet."""
-    from chargebook.acquire.cli import CAUTION
+    from chargebook.acquire.protocol import CAUTION
 
     lines = (
         _header(worksheet, evaluation)
@@ -256,7 +256,7 @@ def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
 
 def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
     """Return the evaluation as one JSON object, with the worksheet's session description."""
-    from chargebook.acquire.cli import CAUTION
+    from chargebook.acquire.protocol import CAUTION
 
     document: dict[str, Any] = {
         "worksheet": str(worksheet.path),
@@ -272,8 +272,8 @@ def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
 
 def render_html(worksheet: Worksheet, evaluation: Evaluation) -> str:
     """Return the worksheet's self-contained printable HTML report."""
-    from chargebook.acquire.export import chargebook_version, generated_at
-    from chargebook.acquire.report_worksheet import worksheet_html
+    from chargebook.acquire.reports.export import chargebook_version, generated_at
+    from chargebook.acquire.reports.worksheet import worksheet_html
 
     stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
     return worksheet_html(worksheet, evaluation, stamp)
@@ -297,8 +297,8 @@ def stdin_document(text: str) -> object:
 
 def run(args: argparse.Namespace) -> int:
     """Evaluate the worksheet and print the report; return 0, or 2 for invalid input."""
-    from chargebook.acquire.cli import EXIT_INVALID_INPUT
-    from chargebook.acquire.worksheet import parse_worksheet, read_worksheet, worksheet_key
+    from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT
+    from chargebook.acquire.session.worksheet import parse_worksheet, read_worksheet, worksheet_key
     from chargebook.corrections.errors import InputError
     from chargebook.corrections.evaluate import evaluate
 
@@ -322,6 +322,6 @@ def run(args: argparse.Namespace) -> int:
         )
         return EXIT_INVALID_INPUT
     render = render_json if args.json else render_html if args.html else render_table
-    from chargebook.acquire.report_cli import write_output
+    from chargebook.acquire.commands.station_reader import write_output
 
     return write_output(render(worksheet, evaluation), args.output)

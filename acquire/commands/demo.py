@@ -41,6 +41,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the demo; return the exit status."""
-    from chargebook.acquire.demo_run import run_demo
+    from chargebook.acquire.commands.demo_run import run_demo
 
     return run_demo(args)

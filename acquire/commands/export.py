@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from chargebook.acquire.report_cli import (
+from chargebook.acquire.commands.station_reader import (
     add_db_argument,
     add_output_argument,
     add_session_argument,
@@ -36,16 +36,16 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _export(store, args: argparse.Namespace) -> int:
-    from chargebook.acquire import export
-    from chargebook.acquire.report_cli import write_output
-    from chargebook.acquire.report_data import load_record
+    from chargebook.acquire.commands.station_reader import write_output
+    from chargebook.acquire.reports import export
+    from chargebook.acquire.reports.data import load_record
 
     record = load_record(store, args.session)
     warning = record.integrity_warning()
     if warning is not None:  # in every format on stderr; json and html carry it too
         import sys
 
-        from chargebook.acquire.report_text import printable
+        from chargebook.acquire.reports.text import printable
 
         print(f"chargebook: {printable(warning)}", file=sys.stderr)
     if args.format == "csv":

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from chargebook.acquire.report_cli import add_db_argument, run_reader
+from chargebook.acquire.commands.station_reader import add_db_argument, run_reader
 
 FORMATS = ("text", "json", "html")
 
@@ -54,13 +54,13 @@ def _history(store, args: argparse.Namespace) -> int:
     import json
     import sys
 
-    from chargebook.acquire.cli import CAUTION
-    from chargebook.acquire.export import chargebook_version, generated_at
-    from chargebook.acquire.history import history_table, load_history, plot_labels
-    from chargebook.acquire.report_cli import write_output
-    from chargebook.acquire.report_data import plain
-    from chargebook.acquire.report_html import history_html
-    from chargebook.acquire.report_text import deviation_plot, table_text
+    from chargebook.acquire.commands.station_reader import write_output
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.reports.data import plain
+    from chargebook.acquire.reports.export import chargebook_version, generated_at
+    from chargebook.acquire.reports.history import history_table, load_history, plot_labels
+    from chargebook.acquire.reports.html import history_html
+    from chargebook.acquire.reports.text import deviation_plot, table_text
 
     history = load_history(store, args.beam, args.machine, args.baseline, args.all)
     table = history_table(history)

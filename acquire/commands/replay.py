@@ -1,7 +1,7 @@
 """`chargebook replay SESSION`: replay a recorded session and say whether it reproduces.
 
-See ``chargebook.acquire.replay`` for how. ``--write-traffic-log FILE`` only writes the
-session's recorded traffic as a JSON-lines log, which ``--traffic-log FILE`` plays back.
+See ``chargebook.acquire.replay.session_replay`` for how. ``--write-traffic-log FILE`` only
+writes the session's recorded traffic as a JSON-lines log, which ``--traffic-log FILE`` plays back.
 """
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from chargebook.acquire.report_cli import add_db_argument, add_session_argument
+from chargebook.acquire.commands.station_reader import add_db_argument, add_session_argument
 
 HELP = (
     "replay a recorded session's raw instrument traffic through the simulated electrometer, "
@@ -118,17 +118,18 @@ def run(args: argparse.Namespace) -> int:
     import os
     import sys
 
-    from chargebook.acquire.cli import CAUTION, EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
-    from chargebook.acquire.demo_run import DemoError
-    from chargebook.acquire.replay import (
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.processes import ChildStartError
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.record.store import NotFound, StoreError, default_db_path
+    from chargebook.acquire.replay.session_replay import (
         Divergence,
         NotReplayable,
         ReplayRequest,
         replay_session,
         save_traffic_log,
     )
-    from chargebook.acquire.replay_text import replay_text
-    from chargebook.acquire.store import NotFound, StoreError, default_db_path
+    from chargebook.acquire.replay.text import replay_text
     from chargebook.corrections.errors import InputError
     from chargebook.drivers_generic import ProfileError
 
@@ -172,7 +173,7 @@ def run(args: argparse.Namespace) -> int:
             file=sys.stderr,
         )
         return EXIT_FAILURE
-    except (StoreError, DemoError, OSError) as error:
+    except (StoreError, ChildStartError, OSError) as error:
         print(f"chargebook replay: {error}", file=sys.stderr)
         return EXIT_FAILURE
     try:

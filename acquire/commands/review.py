@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from chargebook.acquire.report_cli import add_db_argument, add_session_argument
+from chargebook.acquire.commands.station_reader import add_db_argument, add_session_argument
 
 HELP = (
     "review a finished or aborted session as a second person: approve or reject it with a "
@@ -48,10 +48,10 @@ def run(args: argparse.Namespace) -> int:
     """Record the review through the daemon that holds the station file, else directly."""
     import sys
 
-    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT
-    from chargebook.acquire.report_cli import missing_station_words
-    from chargebook.acquire.station_lock import StationInUse, StationLock
-    from chargebook.acquire.store import StoreError, default_db_path
+    from chargebook.acquire.commands.station_reader import missing_station_words
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
+    from chargebook.acquire.record.station_lock import StationInUse, StationLock
+    from chargebook.acquire.record.store import StoreError, default_db_path
     from chargebook.corrections.errors import InputError
 
     path = Path(args.db or default_db_path()).expanduser()
@@ -80,9 +80,9 @@ def run(args: argparse.Namespace) -> int:
 
 def _directly(args: argparse.Namespace, path: Path) -> int:
     """Write the review with the store (no daemon holds the file; this process holds its lock)."""
-    from chargebook.acquire.cli import EXIT_OK
-    from chargebook.acquire.review import local_account, record_review, review_words
-    from chargebook.acquire.store import Store
+    from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.record.review import local_account, record_review, review_words
+    from chargebook.acquire.record.store import Store
 
     with Store.open(path) as store, store.on_behalf_of(local_account()):
         review = record_review(
@@ -103,9 +103,9 @@ def _through_daemon(args: argparse.Namespace, path: Path) -> int:
     import sys
 
     from chargebook.acquire import protocol
-    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
     from chargebook.acquire.client import ConnectionLost, DaemonClient, DaemonError
-    from chargebook.acquire.review import Review, review_words
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.record.review import Review, review_words
 
     socket_path = args.socket or protocol.default_socket_path()
 

@@ -62,8 +62,8 @@ def run(args: argparse.Namespace) -> int:
     import asyncio
     import sys
 
-    from chargebook.acquire.cli import EXIT_INVALID_INPUT
-    from chargebook.acquire.daemon_main import startup_errors
+    from chargebook.acquire.daemon.main import startup_errors
+    from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT
     from chargebook.corrections.errors import InputError
 
     if not args.unattended:
@@ -88,14 +88,14 @@ async def _run(args: argparse.Namespace) -> int:
     import tempfile
     from pathlib import Path
 
-    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK
     from chargebook.acquire.client import DaemonClient
-    from chargebook.acquire.daemon import Daemon
-    from chargebook.acquire.daemon_main import options_from_args
-    from chargebook.acquire.demo_data import demo_metadata
-    from chargebook.acquire.operator_auto import ACTOR, AutoOperator, AutoOperatorError
-    from chargebook.acquire.session_result import result_document
-    from chargebook.acquire.summary_text import reading_line, result_table
+    from chargebook.acquire.commands.demo_data import demo_metadata
+    from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, AutoOperatorError
+    from chargebook.acquire.daemon.daemon import Daemon
+    from chargebook.acquire.daemon.main import options_from_args
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.reports.summary_text import reading_line, result_table
+    from chargebook.acquire.session.result import result_document
     from chargebook.corrections.errors import InputError
 
     logging.basicConfig(level=args.log_level, stream=sys.stderr)
@@ -140,7 +140,7 @@ async def _run(args: argparse.Namespace) -> int:
 
 def environment_source(args: argparse.Namespace):
     """Return a callable giving the Environment to enter: the options given, else the bench."""
-    from chargebook.acquire.operator_auto import Environment, environment_from_bench
+    from chargebook.acquire.commands.operator_auto import Environment, environment_from_bench
     from chargebook.corrections.errors import InputError
 
     given = [(getattr(args, f"pressure_{unit}"), unit) for unit in PRESSURE_OPTION_UNITS]

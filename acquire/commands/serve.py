@@ -105,6 +105,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the daemon until SIGTERM or SIGINT; print its socket as a JSON line first."""
-    from chargebook.acquire.daemon_main import serve_forever
+    from chargebook.acquire.daemon.main import serve_forever
 
     return serve_forever(args)

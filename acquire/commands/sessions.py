@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from chargebook.acquire.report_cli import add_db_argument, run_reader
+from chargebook.acquire.commands.station_reader import add_db_argument, run_reader
 
 HELP = "list the recorded sessions: id, date, status, review, machine, beam, operator, readings"
 
@@ -26,11 +26,11 @@ def run(args: argparse.Namespace) -> int:
 def _list(store, args: argparse.Namespace) -> int:
     import json
 
-    from chargebook.acquire.cli import EXIT_OK
-    from chargebook.acquire.history import matches
-    from chargebook.acquire.report_sections import Table, when
-    from chargebook.acquire.report_text import table_text
-    from chargebook.acquire.review import review_of, review_status
+    from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.record.review import review_of, review_status
+    from chargebook.acquire.reports.history import matches
+    from chargebook.acquire.reports.sections import Table, when
+    from chargebook.acquire.reports.text import table_text
 
     station = store.station()
     rows = []

@@ -4,7 +4,11 @@ from __future__ import annotations
 
 import argparse
 
-from chargebook.acquire.report_cli import add_db_argument, add_session_argument, run_reader
+from chargebook.acquire.commands.station_reader import (
+    add_db_argument,
+    add_session_argument,
+    run_reader,
+)
 
 HELP = (
     "show one recorded session: metadata, environment, reading sets, factors, results, "
@@ -26,11 +30,12 @@ def _show(store, args: argparse.Namespace) -> int:
     import shutil
     import textwrap
 
-    from chargebook.acquire.cli import CAUTION, EXIT_OK
-    from chargebook.acquire.export import to_json
-    from chargebook.acquire.report_data import load_record
-    from chargebook.acquire.report_sections import all_sections
-    from chargebook.acquire.report_text import printable, tables_text
+    from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.reports.data import load_record
+    from chargebook.acquire.reports.export import to_json
+    from chargebook.acquire.reports.sections import all_sections
+    from chargebook.acquire.reports.text import printable, tables_text
 
     record = load_record(store, args.session)
     if args.json:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from chargebook.acquire.report_cli import add_db_argument, run_reader
+from chargebook.acquire.commands.station_reader import add_db_argument, run_reader
 
 HELP = (
     "check that the record was not changed: recompute each session's hash chain and name "
@@ -27,8 +27,8 @@ def run(args: argparse.Namespace) -> int:
 def _verify(store, args: argparse.Namespace) -> int:
     import json
 
-    from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK
-    from chargebook.acquire.verify import file_damage, verify_all, verify_session
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.record.verify import file_damage, verify_all, verify_session
 
     damage = file_damage(store)
     one = args.session is not None

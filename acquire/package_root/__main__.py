@@ -2,6 +2,6 @@
 
 import sys
 
-from chargebook.acquire.cli import main
+from chargebook.acquire.commands.cli import main
 
 sys.exit(main())

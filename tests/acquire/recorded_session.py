@@ -15,9 +15,9 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from chargebook.acquire.plan import Plan, SettlingRule, Step
-from chargebook.acquire.session_meta import validate_metadata
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.metadata import validate_metadata
+from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 
 OPERATOR = "operator A"
 ROUTINE_INTEGRATION_S = 6.0

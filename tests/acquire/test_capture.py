@@ -7,7 +7,7 @@ tiny leakage) and the thresholds are common practice for an integrating electrom
 from __future__ import annotations
 
 import pytest
-from chargebook.acquire.capture import CaptureKind, CaptureSettings, ReadingCapture
+from chargebook.acquire.engine.capture import CaptureKind, CaptureSettings, ReadingCapture
 from chargebook.acquire.protocol import ReadingPhase
 
 SETTINGS = CaptureSettings(rise_threshold_nC=0.05, flat_tolerance_pct=0.02, hold_s=1.0)

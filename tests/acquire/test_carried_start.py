@@ -10,12 +10,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.carried_start import carried_metadata
-from chargebook.acquire.history import history_table, load_history, plot_labels
-from chargebook.acquire.plan import load_plan
-from chargebook.acquire.report_html import history_html
-from chargebook.acquire.session_evaluation import evaluate_session
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.history import history_table, load_history, plot_labels
+from chargebook.acquire.reports.html import history_html
+from chargebook.acquire.session.carried import carried_metadata
+from chargebook.acquire.session.evaluation import evaluate_session
+from chargebook.acquire.session.plan import load_plan
 from chargebook.corrections.errors import InputError
 from recorded_session import example, example_metadata, record_example_session
 

@@ -9,7 +9,9 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.protocol import CAUTION
 
 EXAMPLES = Path(chargebook.acquire.__file__).parent / "examples"
 GOOD = [
@@ -40,7 +42,7 @@ JSON_KEYS = {
 
 def correct(*args: str | Path) -> subprocess.CompletedProcess[str]:
     return subprocess.run(
-        [sys.executable, "-m", "chargebook.acquire.cli", "correct", *map(str, args)],
+        [sys.executable, "-m", "chargebook", "correct", *map(str, args)],
         capture_output=True,
         text=True,
         timeout=60,

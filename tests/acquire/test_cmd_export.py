@@ -12,9 +12,10 @@ import json
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_FAILURE, EXIT_OK, main
-from chargebook.acquire.export import CSV_COLUMNS
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.export import CSV_COLUMNS
 from recorded_session import recorded_station
 from test_export_html import Report
 

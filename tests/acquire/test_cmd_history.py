@@ -12,8 +12,10 @@ import json
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION, EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.protocol import CAUTION
+from chargebook.acquire.record.store import Store
 from recorded_session import record_example_session
 
 SCALES = (1.0, 1.004, 0.985)

@@ -12,8 +12,9 @@ import sys
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.record.store import Store
 from recorded_session import record_example_session
 
 

@@ -12,9 +12,11 @@ import sys
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION, EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.export import JSON_KEYS
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.protocol import CAUTION
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.export import JSON_KEYS
 from recorded_session import SUPERSEDE_REASON, record_example_session, recorded_station
 from test_export import hand_dose_per_MU_cGy
 

@@ -6,9 +6,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from chargebook.acquire.daemon import MAX_HELD_LINES, Daemon, DaemonOptions
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.store import Store
+from chargebook.acquire.daemon.daemon import MAX_HELD_LINES, Daemon, DaemonOptions
+from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.store import Store
 
 
 def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(tmp_path: Path):

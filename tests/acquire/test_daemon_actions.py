@@ -11,11 +11,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from chargebook.acquire.client import DaemonClient, Notification
-from chargebook.acquire.daemon import Daemon, DaemonOptions, InstrumentLink
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Engine
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions, InstrumentLink
+from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic import build_electrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
 

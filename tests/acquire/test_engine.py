@@ -8,18 +8,18 @@ the published formulas of docs/physics.md written out here, not the library's co
 from __future__ import annotations
 
 import pytest
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Command, ConfirmationRequired, Engine
-from chargebook.acquire.plan import CaptureRule, Plan, SettlingRule, Step
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
-from chargebook.acquire.states import IllegalTransition
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.plan import CaptureRule, Plan, SettlingRule, Step
 from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import Capability
 
 S = EngineState
 
-#: The invented demo metadata (our own clinic, see acquire/demo_data.py); demo only.
+#: The invented demo metadata (our own clinic, see acquire/commands/demo_data.py); demo only.
 METADATA = demo_metadata()
 
 CAPTURE = CaptureRule(hold_s=1.0)

@@ -11,10 +11,10 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.plan import Plan, SettlingRule, Step
+from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, encode_from_daemon, notification
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 from chargebook.drivers_generic.interface import Capability
 
 from tests.acquire.test_engine import CAPTURE, METADATA, ONE, Clock, small_plan

@@ -15,10 +15,10 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.plan import Plan, SettlingRule, Step
+from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import EngineState
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 from chargebook.drivers_generic.interface import Capability
 
 from tests.acquire.test_engine import CAPTURE, METADATA, Clock, deliver, small_plan

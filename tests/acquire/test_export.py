@@ -13,10 +13,10 @@ import statistics
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION
-from chargebook.acquire.export import CSV_COLUMNS, JSON_KEYS, to_csv, to_json
-from chargebook.acquire.report_data import load_record
-from chargebook.acquire.store import Store
+from chargebook.acquire.protocol import CAUTION
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.data import load_record
+from chargebook.acquire.reports.export import CSV_COLUMNS, JSON_KEYS, to_csv, to_json
 from recorded_session import (
     SUPERSEDE_REASON,
     SETTLING_READING_nC,

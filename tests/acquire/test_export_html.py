@@ -13,12 +13,11 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import CAUTION
-from chargebook.acquire.export import to_html
-from chargebook.acquire.protocol import by_severity
-from chargebook.acquire.report_data import load_record
-from chargebook.acquire.review import record_review
-from chargebook.acquire.store import Store
+from chargebook.acquire.protocol import CAUTION, by_severity
+from chargebook.acquire.record.review import record_review
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.data import load_record
+from chargebook.acquire.reports.export import to_html
 from recorded_session import SUPERSEDE_REASON, example_plan, record_example_session
 from test_export import hand_dose_per_MU_cGy
 
@@ -295,12 +294,12 @@ def test_a_failed_output_says_fail_first_and_lists_flags_worst_first(tmp_path: P
 
 def test_the_certificates_own_coverage_factor_is_shown_and_used(tmp_path: Path) -> None:
     # Issue 12 item 8: a certificate at k = 2.4 (JCGM 100:2008 6.2.1: u = U/k).
-    from chargebook.acquire import report_sections
+    from chargebook.acquire.reports import sections
 
     with Store.open(tmp_path / "station.sqlite") as store:
         record_example_session(store, k_N_Dw=2.4)
         record = load_record(store, 1)
-    labels = [row[0] for row in report_sections.calibration(record).rows]
+    labels = [row[0] for row in sections.calibration(record).rows]
     assert "U(N_D,w), k = 2.4" in labels
     u_N_Dw = record.evaluation.factors["N_Dw"].u_rel_pct
     assert u_N_Dw == pytest.approx(record.metadata["u_N_Dw_pct_k2"] / 2.4)
@@ -309,7 +308,7 @@ def test_the_certificates_own_coverage_factor_is_shown_and_used(tmp_path: Path) 
 def test_the_report_states_nu_eff_k_and_the_monte_carlo_check(report) -> None:
     # Issue 12 items 6 and 7: U = k u_c with k from Student's t at ν_eff (JCGM 100:2008 G.4),
     # and the Monte Carlo interval beside it (JCGM 101:2008), the same numbers `correct` prints.
-    from chargebook.acquire import report_sections
+    from chargebook.acquire.reports import sections
 
     parsed, store = report
     record = load_record(store, 1)
@@ -321,7 +320,7 @@ def test_the_report_states_nu_eff_k_and_the_monte_carlo_check(report) -> None:
     # The example's budget is Type B dominant: ν_eff is large and k close to 1.96 (JCGM 100 G.2).
     assert parsed.rows[("Results in detail", "effective_dof")][1] == "above 1000"
     assert evaluation.coverage_factor == pytest.approx(1.96, abs=0.005)
-    note = report_sections.budget(record).note
+    note = sections.budget(record).note
     assert evaluation.monte_carlo().note in note
     # The result, first, states U with the same k and ν_eff.
     assert parsed.rows[("Result", "U_expanded_pct")][1] == (

@@ -12,11 +12,11 @@ from __future__ import annotations
 from html.parser import HTMLParser
 
 import pytest
-from chargebook.acquire.history import history_table, load_history, parse_baseline
-from chargebook.acquire.report_data import load_record
-from chargebook.acquire.report_html import history_html
-from chargebook.acquire.report_text import deviation_plot
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.data import load_record
+from chargebook.acquire.reports.history import history_table, load_history, parse_baseline
+from chargebook.acquire.reports.html import history_html
+from chargebook.acquire.reports.text import deviation_plot
 from chargebook.corrections.errors import InputError
 from recorded_session import record_example_session
 

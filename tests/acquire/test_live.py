@@ -1,8 +1,8 @@
-"""Which reading sets the live results judge for stability (acquire/live.py)."""
+"""Which reading sets the live results judge for stability (acquire/session/rules.py)."""
 
 import pytest
-from chargebook.acquire import live
-from chargebook.acquire.store import ReadingRow
+from chargebook.acquire.record.store import ReadingRow
+from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
 
 
@@ -32,7 +32,7 @@ SCATTERED = (19.60, 19.70, 19.60, 19.72)
 
 @pytest.mark.parametrize("purpose", ["routine", "opposite", "reduced", "return_check"])
 def test_sets_used_for_results_are_judged(purpose: str) -> None:
-    stats, flags, _ = live.set_summary(purpose, 300.0, _rows(*SCATTERED), Thresholds())
+    stats, flags, _ = rules.set_summary(purpose, 300.0, _rows(*SCATTERED), Thresholds())
     assert stats is not None
     assert any(flag["code"].endswith("sd_high") for flag in flags)
 
@@ -44,7 +44,7 @@ def test_sets_used_for_results_are_judged(purpose: str) -> None:
 def test_leakage_and_warm_up_sets_are_shown_but_not_judged(
     purpose: str, charges_nC: tuple[float, ...]
 ) -> None:
-    stats, flags, per_reading = live.set_summary(purpose, 300.0, _rows(*charges_nC), Thresholds())
+    stats, flags, per_reading = rules.set_summary(purpose, 300.0, _rows(*charges_nC), Thresholds())
     assert stats is not None and stats["count"] == len(charges_nC)
     assert flags == []
     assert all(reading_flags == [] for reading_flags in per_reading.values())
@@ -52,7 +52,7 @@ def test_leakage_and_warm_up_sets_are_shown_but_not_judged(
 
 def test_a_leakage_set_of_exact_zeros_is_shown_with_a_plain_word_not_an_error() -> None:
     # The best possible leakage result: it used to raise inside the snapshot and freeze the daemon.
-    stats, flags, per_reading = live.set_summary("leakage", 300.0, _rows(0.0, 0.0), Thresholds())
+    stats, flags, per_reading = rules.set_summary("leakage", 300.0, _rows(0.0, 0.0), Thresholds())
     assert stats is None
     assert [flag["code"] for flag in flags] == ["leakage_zero"]
     assert flags[0]["severity"] == "info"
@@ -61,14 +61,14 @@ def test_a_leakage_set_of_exact_zeros_is_shown_with_a_plain_word_not_an_error() 
 
 def test_a_set_that_averages_zero_says_why_it_has_no_statistics() -> None:
     # Readings that change sign within a set: no relative spread exists; the set is flagged.
-    stats, flags, _ = live.set_summary("routine", 300.0, _rows(1.0, -1.0), Thresholds())
+    stats, flags, _ = rules.set_summary("routine", 300.0, _rows(1.0, -1.0), Thresholds())
     assert stats is None
     assert [flag["code"] for flag in flags] == ["statistics_unavailable"]
     assert "averages zero" in flags[0]["message"]
 
 
 def test_a_reading_of_a_picocoulomb_fraction_still_gets_statistics() -> None:
-    stats, _, _ = live.set_summary("routine", 300.0, _rows(1e-12, 1.1e-12), Thresholds())
+    stats, _, _ = rules.set_summary("routine", 300.0, _rows(1e-12, 1.1e-12), Thresholds())
     assert stats is not None and stats["count"] == 2
 
 
@@ -76,9 +76,9 @@ def test_the_outlier_floor_is_the_sessions_setting() -> None:
     # Issue 12 item 14: four readings 0.03 % apart hold no outlier under the default 0.05 % floor
     # (common practice); a session that sets a lower floor sees the z-score's verdict.
     close = _rows(20.000, 20.000, 20.001, 20.006)
-    _, flags, per_reading = live.set_summary("routine", 300.0, close, Thresholds())
+    _, flags, per_reading = rules.set_summary("routine", 300.0, close, Thresholds())
     assert "routine_outlier" not in {flag["code"] for flag in flags}
-    _, flags, per_reading = live.set_summary(
+    _, flags, per_reading = rules.set_summary(
         "routine", 300.0, close, Thresholds(outlier_floor_pct=0.01)
     )
     assert "routine_outlier" in {flag["code"] for flag in flags}

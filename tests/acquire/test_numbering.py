@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from chargebook.acquire.numbering import next_reading_label, reading_labels
+from chargebook.acquire.session.numbering import next_reading_label, reading_labels
 
 
 def test_settling_readings_are_numbered_apart_from_the_readings_used() -> None:

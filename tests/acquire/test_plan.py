@@ -9,8 +9,8 @@ import math
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.capture import CaptureSettings
-from chargebook.acquire.plan import (
+from chargebook.acquire.engine.capture import CaptureSettings
+from chargebook.acquire.session.plan import (
     CaptureRule,
     Plan,
     SettlingRule,

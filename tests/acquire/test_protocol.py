@@ -8,8 +8,8 @@ import os
 
 import pytest
 from chargebook.acquire import protocol
+from chargebook.acquire.engine.states import ACTION_STATES
 from chargebook.acquire.protocol import Method, ParamsError, validate_params
-from chargebook.acquire.states import ACTION_STATES
 
 
 def test_every_method_is_declared_and_every_operator_action_has_legal_states():

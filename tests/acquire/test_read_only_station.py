@@ -18,8 +18,9 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.record.store import Store
 from recorded_session import recorded_station
 
 NOBODY = 65534
@@ -184,7 +185,7 @@ def test_serve_refuses_a_damaged_file_in_words(tmp_path: Path, capsys) -> None:
 
 def _warm_up_serve() -> None:
     """Load what `serve` imports lazily (see :func:`_warm_up`)."""
-    from chargebook.acquire import daemon, daemon_main  # noqa: F401
+    from chargebook.acquire.daemon import daemon, main  # noqa: F401
     from chargebook.drivers_generic import build_electrometer, load_profile  # noqa: F401
 
     load_profile("query-plain")

@@ -8,10 +8,10 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.commands.replay import add_arguments, threshold_values
-from chargebook.acquire.replay import ReplayReport
-from chargebook.acquire.replay_compare import Change, Comparison, Difference
-from chargebook.acquire.replay_conductor import ArmingClock, Pacer
-from chargebook.acquire.replay_text import cell, replay_text
+from chargebook.acquire.replay.compare import Change, Comparison, Difference
+from chargebook.acquire.replay.conductor import ArmingClock, Pacer
+from chargebook.acquire.replay.session_replay import ReplayReport
+from chargebook.acquire.replay.text import cell, replay_text
 from chargebook.corrections.errors import InputError
 
 

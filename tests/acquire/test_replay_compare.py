@@ -10,7 +10,8 @@ import math
 import sqlite3
 
 import pytest
-from chargebook.acquire.replay_compare import (
+from chargebook.acquire.record.store import NotFound, Store
+from chargebook.acquire.replay.compare import (
     UNEXPLAINED,
     Change,
     Explanations,
@@ -19,8 +20,7 @@ from chargebook.acquire.replay_compare import (
     stored_results,
     threshold_changes,
 )
-from chargebook.acquire.replay_copy import copy_session
-from chargebook.acquire.store import NotFound, Store
+from chargebook.acquire.replay.kept_copy import copy_session
 from chargebook.corrections.stability import Thresholds
 from recorded_session import example_plan, record_example_session
 

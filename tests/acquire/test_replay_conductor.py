@@ -11,13 +11,13 @@ from __future__ import annotations
 import math
 
 import pytest
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.plan import CaptureRule, Plan, Step
-from chargebook.acquire.replay_conductor import ArmingClock, Conductor, Pacer
-from chargebook.acquire.replay_recording import RecordedInput, RecordedLine
-from chargebook.acquire.replay_traffic import Divergence, TrafficFollower, line_bytes
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.conductor import ArmingClock, Conductor, Pacer
+from chargebook.acquire.replay.recording import RecordedInput, RecordedLine
+from chargebook.acquire.replay.traffic import Divergence, TrafficFollower, line_bytes
+from chargebook.acquire.session.plan import CaptureRule, Plan, Step
 from chargebook.drivers_generic import ProfileElectrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.transport import ScriptedTransport

@@ -8,10 +8,10 @@ electrometer; the times are invented round numbers.
 
 from __future__ import annotations
 
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.plan import CaptureRule, Plan, Step
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.plan import CaptureRule, Plan, Step
 from chargebook.drivers_generic.interface import Capability
 
 CAPABILITIES = {Capability.ZERO, Capability.INTEGRATE, Capability.READ_CHARGE, Capability.SET_BIAS}

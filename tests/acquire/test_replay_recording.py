@@ -9,12 +9,12 @@ from __future__ import annotations
 from datetime import UTC, datetime, timedelta
 
 import pytest
-from chargebook.acquire.replay_recording import (
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.recording import (
     NotReplayable,
     load_recording,
     traffic_positions,
 )
-from chargebook.acquire.store import Store
 from recorded_session import example_metadata, example_plan
 
 

@@ -10,9 +10,10 @@ import json
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.replay_pipeline import same_command
-from chargebook.acquire.replay_recording import RecordedLine, Recording, load_recording
-from chargebook.acquire.replay_traffic import (
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.pipeline import same_command
+from chargebook.acquire.replay.recording import RecordedLine, Recording, load_recording
+from chargebook.acquire.replay.traffic import (
     Divergence,
     TrafficFollower,
     TrafficLogError,
@@ -21,7 +22,6 @@ from chargebook.acquire.replay_traffic import (
     read_traffic_log,
     write_playback_log,
 )
-from chargebook.acquire.store import Store
 from chargebook.drivers_generic import load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.simulator.playback import read_log

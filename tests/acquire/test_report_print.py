@@ -19,12 +19,13 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.cli import EXIT_OK, main
-from chargebook.acquire.export import to_html
-from chargebook.acquire.report_data import load_record
-from chargebook.acquire.report_print import SignOff, review_block
-from chargebook.acquire.store import Store
-from chargebook.acquire.worksheet import read_worksheet
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.data import load_record
+from chargebook.acquire.reports.export import to_html
+from chargebook.acquire.reports.printed import SignOff, review_block
+from chargebook.acquire.session.worksheet import read_worksheet
 from chargebook.corrections.evaluate import evaluate
 from recorded_session import record_long_session
 from test_export_html import Report

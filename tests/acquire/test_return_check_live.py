@@ -11,9 +11,9 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.plan import Plan, SettlingRule, Step
-from chargebook.acquire.session_result import result_document
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.plan import Plan, SettlingRule, Step
+from chargebook.acquire.session.result import result_document
 from recorded_session import OPERATOR, example, example_metadata
 
 

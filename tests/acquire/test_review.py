@@ -14,11 +14,12 @@ import sqlite3
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.review import REVIEW_EVENT, record_review
-from chargebook.acquire.station_lock import StationLock
-from chargebook.acquire.store import Store
-from chargebook.acquire.verify import verify_all
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.record.review import REVIEW_EVENT, record_review
+from chargebook.acquire.record.station_lock import StationLock
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.verify import verify_all
 from chargebook.corrections.errors import InputError
 from recorded_session import OPERATOR, record_example_session
 

@@ -23,15 +23,15 @@ from chargebook.acquire.client import (
     UntrustedSocket,
     connect_with_retry,
 )
-from chargebook.acquire.engine import ConfirmationRequired
-from chargebook.acquire.protocol import EngineState
-from chargebook.acquire.server import (
+from chargebook.acquire.daemon.server import (
     RpcServer,
     SocketInUse,
     UnsafeSocketDirectory,
     prepare_socket_dir,
 )
-from chargebook.acquire.states import IllegalTransition
+from chargebook.acquire.engine.engine import ConfirmationRequired
+from chargebook.acquire.engine.states import IllegalTransition
+from chargebook.acquire.protocol import EngineState
 from chargebook.corrections.errors import InputError
 
 

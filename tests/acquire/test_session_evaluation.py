@@ -19,15 +19,16 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_OK, main
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Engine
-from chargebook.acquire.history import load_history
-from chargebook.acquire.replay_compare import stored_results
-from chargebook.acquire.session_evaluation import evaluate_session
-from chargebook.acquire.session_result import result_document
-from chargebook.acquire.store import Store
-from chargebook.acquire.summary_text import result_table
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.compare import stored_results
+from chargebook.acquire.reports.history import load_history
+from chargebook.acquire.reports.summary_text import result_table
+from chargebook.acquire.session.evaluation import evaluate_session
+from chargebook.acquire.session.result import result_document
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 from test_engine import Clock, small_plan, take_set
@@ -203,7 +204,7 @@ def test_leakage_is_subtracted_only_when_chosen_and_the_choice_is_audited(
 def test_delivery_flags_reach_every_output_not_only_the_console(tmp_path) -> None:
     # The frozen-electrometer checks (issue: integrations far shorter than the MU need) were on
     # the console's set only; show, export and history read the one evaluation.
-    from chargebook.acquire.session_evaluation import evaluate_session
+    from chargebook.acquire.session.evaluation import evaluate_session
     from test_engine import make_engine, started, take_set
 
     engine, clock = make_engine()

@@ -6,7 +6,7 @@ import datetime
 import json
 
 import pytest
-from chargebook.acquire.session_meta import KNOWN_KEYS, SessionMetadata, validate_metadata
+from chargebook.acquire.session.metadata import KNOWN_KEYS, SessionMetadata, validate_metadata
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Uncertainties
 from recorded_session import required_metadata

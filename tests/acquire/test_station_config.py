@@ -6,8 +6,8 @@ import argparse
 import os
 
 import pytest
-from chargebook.acquire import sd_notify
-from chargebook.acquire.station_config import ConfigError, apply_config, read_config
+from chargebook.acquire.daemon import sd_notify
+from chargebook.acquire.daemon.station_config import ConfigError, apply_config, read_config
 
 
 def _args(**given) -> argparse.Namespace:

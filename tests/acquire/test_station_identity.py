@@ -15,10 +15,11 @@ import uuid
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.cli import EXIT_OK, main
-from chargebook.acquire.migrations import MIGRATIONS, migrate, session_uuid_at_migration
-from chargebook.acquire.store import Store
-from chargebook.acquire.verify import verify_all, verify_session
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.migrations import MIGRATIONS, migrate, session_uuid_at_migration
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.verify import verify_all, verify_session
 from recorded_session import record_example_session
 from sqlite_utils import Database
 
@@ -142,8 +143,8 @@ def test_every_export_carries_the_station_and_session_uuids(tmp_path: Path, caps
 
 
 def test_serve_takes_the_station_name_and_refuses_a_blank_one(tmp_path: Path) -> None:
-    from chargebook.acquire.cli import build_parser
-    from chargebook.acquire.daemon_main import options_from_args
+    from chargebook.acquire.commands.cli import build_parser
+    from chargebook.acquire.daemon.main import options_from_args
     from chargebook.corrections.errors import InputError
 
     serve = [

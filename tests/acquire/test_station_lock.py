@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 
 import pytest
-from chargebook.acquire.station_lock import StationInUse, StationLock, lock_path_for
+from chargebook.acquire.record.station_lock import StationInUse, StationLock, lock_path_for
 
 
 def test_a_second_lock_on_the_same_file_is_refused_naming_the_holder(tmp_path):

@@ -15,8 +15,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.migrations import MIGRATIONS, SCHEMA_VERSION, migrate, schema_version
-from chargebook.acquire.store import (
+from chargebook.acquire.record.migrations import MIGRATIONS, SCHEMA_VERSION, migrate, schema_version
+from chargebook.acquire.record.store import (
     NotFound,
     Store,
     StoreError,
@@ -476,7 +476,7 @@ def test_a_burst_with_one_bad_line_is_refused_whole(store: Store) -> None:
 WRITER = textwrap.dedent(
     """
     import os, sys
-    from chargebook.acquire.store import Store
+    from chargebook.acquire.record.store import Store
     store = Store.open(sys.argv[1])
     session_id = store.create_session({"treatment_machine": "DEMO-LA2"}, {"steps": []},
                                       "tg51", "6 MV")

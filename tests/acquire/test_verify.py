@@ -13,11 +13,12 @@ import sqlite3
 from pathlib import Path
 
 import pytest
-from chargebook.acquire import chain
-from chargebook.acquire.cli import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK, main
-from chargebook.acquire.migrations import migrate
-from chargebook.acquire.store import Store
-from chargebook.acquire.verify import verify_all, verify_session
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.record import chain
+from chargebook.acquire.record.migrations import migrate
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.verify import verify_all, verify_session
 from recorded_session import recorded_station
 from sqlite_utils import Database
 

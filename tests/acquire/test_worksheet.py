@@ -8,7 +8,7 @@ from pathlib import Path
 
 import chargebook.acquire
 import pytest
-from chargebook.acquire.worksheet import (
+from chargebook.acquire.session.worksheet import (
     load_worksheet,
     parse_worksheet,
     read_worksheet,

@@ -29,7 +29,7 @@ import time
 from datetime import datetime
 
 from chargebook.acquire.client import Notification
-from chargebook.acquire.demo_run import chargebook_args
+from chargebook.acquire.processes import chargebook_args
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, Method
 from chargebook.tui.snapshot_view import set_count_text
 

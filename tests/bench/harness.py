@@ -26,8 +26,8 @@ from typing import Any
 
 import psutil
 from chargebook.acquire.client import DaemonClient
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.demo_run import Child, start_child, stop_child
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.processes import Child, start_child, stop_child
 from chargebook.acquire.protocol import Method
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 

@@ -45,7 +45,7 @@ def main(argv: list[str] | None = None) -> int:
         args.smoke,
     )
     import pyvisa
-    from chargebook.acquire.demo_run import start_child, stop_child
+    from chargebook.acquire.processes import start_child, stop_child
     from chargebook.drivers_generic import open_electrometer
 
     with scratch("scpi") as workdir:

@@ -5,7 +5,7 @@
 * Baseline: ``python -c pass`` with the interpreter chargebook is installed in (site packages
   and the editable install's import hooks included, as every Python start pays them).
 * Measured: ``chargebook --help``, the installed console script (or, where there is none,
-  ``python -m chargebook.acquire.cli --help``): the parser with every subcommand.
+  ``python -m chargebook --help``): the parser with every subcommand.
 
 Runs alternate; the median wall time of each is compared. Target (issue 7): at most 3 times.
 """
@@ -30,7 +30,7 @@ def chargebook_help_command() -> list[str]:
     script = shutil.which("chargebook", path=str(Path(sys.executable).parent))
     if script is not None:
         return [script, "--help"]
-    return [sys.executable, "-m", "chargebook.acquire.cli", "--help"]
+    return [sys.executable, "-m", "chargebook", "--help"]
 
 
 def wall_s(command: list[str]) -> float:

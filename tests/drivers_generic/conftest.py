@@ -1,6 +1,6 @@
 """Fixtures for the instrument layer: the real simulator process, started the way a user would.
 
-``simulator(*options)`` runs ``python -m chargebook.acquire.cli simulate ...`` as a subprocess,
+``simulator(*options)`` runs ``python -m chargebook simulate ...`` as a subprocess,
 reads its JSON announcement line, and returns a :class:`RunningSimulator` (paths, a control
 client). Every simulator started is stopped (SIGTERM) at the end of the test, and its private
 directory is checked to be gone.
@@ -64,7 +64,7 @@ class RunningSimulator:
 
 def start_simulator(*options: str) -> RunningSimulator:
     """Start `chargebook simulate OPTIONS` and return it once it has announced itself."""
-    command = [sys.executable, "-m", "chargebook.acquire.cli", "simulate", *options]
+    command = [sys.executable, "-m", "chargebook", "simulate", *options]
     process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     ready, _, _ = select.select([process.stdout], [], [], ANNOUNCE_TIMEOUT_s)
     line = process.stdout.readline() if ready else ""

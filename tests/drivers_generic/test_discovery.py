@@ -40,7 +40,7 @@ def test_serial_ports_are_listed_by_device_name():
 
 def test_the_ports_command_prints_json_with_both_lists():
     result = subprocess.run(
-        [sys.executable, "-m", "chargebook.acquire.cli", "ports", "--json"],
+        [sys.executable, "-m", "chargebook", "ports", "--json"],
         capture_output=True,
         text=True,
         timeout=60,

@@ -97,7 +97,14 @@ def test_simulate_refuses_a_bad_playback_log_with_exit_status_2(tmp_path):
     log = tmp_path / "bad.jsonl"
     log.write_text('{"t_s": 0, "dir": "rx", "line": "ok"}\n{"t_s": 1}\n', encoding="utf-8")
     result = subprocess.run(
-        [sys.executable, "-m", "chargebook.acquire.cli", "simulate", "--playback", str(log)],
+        [
+            sys.executable,
+            "-m",
+            "chargebook.acquire.commands.cli",
+            "simulate",
+            "--playback",
+            str(log),
+        ],
         capture_output=True,
         text=True,
         timeout=60,

@@ -42,7 +42,7 @@ def test_without_options_it_serves_the_default_dialect_on_a_pty(simulator):
 )
 def test_a_bad_option_exits_2_naming_it_and_prints_no_announcement(options, words):
     result = subprocess.run(
-        [sys.executable, "-m", "chargebook.acquire.cli", "simulate", *options],
+        [sys.executable, "-m", "chargebook", "simulate", *options],
         capture_output=True,
         text=True,
         timeout=60,

@@ -38,9 +38,9 @@ from typing import Any
 
 import pytest
 from chargebook.acquire.client import DaemonClient
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.demo_run import DemoError, chargebook_args, stop_child
-from chargebook.acquire.demo_run import read_ready_line as ready_line
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.processes import ChildStartError, chargebook_args, stop_child
+from chargebook.acquire.processes import read_ready_line as ready_line
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 
 #: Wall seconds per simulated second, for the simulator and the daemon alike.
@@ -58,7 +58,7 @@ def read_ready_line(process: subprocess.Popen, log_path: Path) -> dict[str, Any]
     """Return the JSON object a process prints first on stdout; fail with its log if it dies."""
     try:
         return ready_line(process, log_path, " ".join(map(str, process.args)))
-    except DemoError as error:
+    except ChildStartError as error:
         pytest.fail(str(error))
 
 

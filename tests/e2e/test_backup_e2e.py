@@ -12,7 +12,7 @@ import sqlite3
 import subprocess
 
 import pytest
-from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
+from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
 from e2e_support import chargebook_command
 
 pytestmark = pytest.mark.e2e

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.client import DaemonError
-from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.session_evaluation import evaluate_session
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
 pytestmark = pytest.mark.e2e

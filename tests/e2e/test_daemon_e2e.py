@@ -18,8 +18,8 @@ import subprocess
 import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonError
-from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
 pytestmark = pytest.mark.e2e
@@ -440,7 +440,7 @@ async def test_the_stop_an_abort_sends_is_recorded_with_the_aborted_session_not_
 async def test_the_automatic_operator_never_takes_over_a_session_it_did_not_start(
     simulator, daemon, metadata
 ):
-    from chargebook.acquire.operator_auto import AutoOperator, AutoOperatorError
+    from chargebook.acquire.commands.operator_auto import AutoOperator, AutoOperatorError
 
     console = await daemon.connect(operator="operator A")
     try:

@@ -13,8 +13,8 @@ import subprocess
 
 import pytest
 from chargebook.acquire.client import DaemonError
-from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
 from e2e_support import chargebook_command
 
 pytestmark = pytest.mark.e2e

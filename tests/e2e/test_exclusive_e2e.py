@@ -12,8 +12,8 @@ import asyncio
 import subprocess
 
 import pytest
-from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
 from e2e_support import QUICK_PLAN, chargebook_command
 
 pytestmark = pytest.mark.e2e

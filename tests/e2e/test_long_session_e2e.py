@@ -6,10 +6,10 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.engine import Engine
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import MAX_MESSAGE_BYTES, encode_from_daemon, notification
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic.interface import Capability
 from e2e_support import QUICK_PLAN
 

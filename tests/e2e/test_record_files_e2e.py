@@ -13,9 +13,9 @@ import asyncio
 
 import pytest
 from chargebook.acquire.client import DaemonError
-from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
+from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
 from chargebook.acquire.protocol import Method
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
 
 pytestmark = pytest.mark.e2e
 

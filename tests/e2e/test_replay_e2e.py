@@ -28,12 +28,12 @@ from typing import Any
 
 import numpy as np
 import pytest
-from chargebook.acquire.cli import main
 from chargebook.acquire.client import DaemonClient, DaemonError
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.operator_auto import ACTOR, AutoOperator, environment_from_bench
-from chargebook.acquire.session_evaluation import evaluate_session
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import (
     QUICK_PLAN,
     DaemonProcess,

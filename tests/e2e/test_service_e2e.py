@@ -17,8 +17,8 @@ import time
 import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonClient, DaemonError
-from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
-from chargebook.acquire.store import Store
+from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
+from chargebook.acquire.record.store import Store
 from e2e_support import QUICK_PLAN, chargebook_command
 
 pytestmark = pytest.mark.e2e

@@ -17,8 +17,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from chargebook.acquire.client import ConnectionLost, DaemonClient, Notification
-from chargebook.acquire.demo_data import demo_metadata
-from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
 
 from tests.bench.harness import REPO, Station, read_db, station

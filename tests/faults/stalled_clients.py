@@ -34,7 +34,7 @@ from datetime import datetime
 
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonClient
-from chargebook.acquire.demo_run import chargebook_args
+from chargebook.acquire.processes import chargebook_args
 
 from tests.bench import report
 from tests.bench.harness import Station, read_db

@@ -13,7 +13,7 @@ import json
 import subprocess
 
 import pytest
-from chargebook.acquire.store import Store
+from chargebook.acquire.record.store import Store
 from chargebook.tui.app import ConsoleApp
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.screens.environment import EnvironmentScreen
@@ -271,7 +271,7 @@ async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_
 async def test_the_watch_console_shows_the_session_and_offers_no_action(
     daemon, metadata, simulator
 ):
-    from chargebook.acquire.operator_auto import AutoOperator, environment_from_bench
+    from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
     from chargebook.tui.actions import ACTIONS
 
     control = await daemon.connect()

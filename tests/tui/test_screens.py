@@ -6,7 +6,7 @@ test_console_e2e.py.
 
 from __future__ import annotations
 
-from chargebook.acquire.session_meta import validate_metadata
+from chargebook.acquire.session.metadata import validate_metadata
 from chargebook.tui.app import ConsoleApp
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen

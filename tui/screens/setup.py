@@ -9,9 +9,8 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
-from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.client import ConnectionLost, DaemonError
-from chargebook.acquire.protocol import Method
+from chargebook.acquire.protocol import CAUTION, Method
 from chargebook.tui.messages import SetupFinished
 from chargebook.tui.screens.base import ConsoleScreen, Sender
 from chargebook.tui.widgets.caution_line import CautionLine

@@ -4,9 +4,8 @@ from __future__ import annotations
 
 from typing import Any, ClassVar
 
-from chargebook.acquire.cli import CAUTION
 from chargebook.acquire.client import ConnectionLost, DaemonError
-from chargebook.acquire.protocol import Method
+from chargebook.acquire.protocol import CAUTION, Method
 from chargebook.tui import snapshot_view, text
 from chargebook.tui.screens.base import ConsoleScreen
 from chargebook.tui.widgets.results_panel import factor_table, results_table

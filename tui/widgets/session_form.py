@@ -1,6 +1,6 @@
 """The session details form: metadata and calibration data, each entry checked as typed.
 
-The keys are those of ``chargebook.acquire.session_meta`` (the daemon checks them again on
+The keys are those of ``chargebook.acquire.session.metadata`` (the daemon checks them again on
 ``session.start``); ranges and wording come from ``chargebook.corrections``.
 """
 

@@ -1,0 +1,147 @@
+"""`chargebook demo`: the simulated electrometer, the daemon and the console (or the automatic
+operator), each a process of its own, with a clean shutdown whatever happens.
+
+The demo has its own database (``<data dir>/chargebook/demo.sqlite`` unless ``--db``), never
+the station's record, and invented session metadata (``demo_data``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import contextlib
+import json
+import os
+import shutil
+import sys
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any, TextIO
+
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+from chargebook.acquire.processes import Child, ChildStartError, start_child, stop_child
+
+
+@contextlib.contextmanager
+def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child, Child]]:
+    """Start the simulator and the daemon on it; stop both on the way out."""
+    children: list[Child] = []
+    try:
+        simulator = start_child(
+            "simulated electrometer",
+            [
+                "simulate", "--serial", "--profile", args.profile, "--seed", str(args.seed),
+                "--time-scale", str(args.time_scale),
+            ],
+            workdir / "simulator.log",
+        )  # fmt: skip
+        children.append(simulator)
+        daemon = start_child(
+            "daemon",
+            [
+                "serve", "--profile", args.profile, "--port", simulator.info["serial"],
+                "--bench-control", simulator.info["control"], "--db", str(args.db_path),
+                "--socket", str(workdir / "daemon.sock"), "--plan", args.plan,
+                "--time-scale", str(args.time_scale), "--log-level", "INFO",
+                "--config", os.devnull,  # the demo reads no station file
+            ],
+            workdir / "daemon.log",
+        )  # fmt: skip
+        children.append(daemon)
+        yield simulator, daemon
+    finally:
+        for child in reversed(children):
+            stop_child(child.process)
+
+
+def run_demo(args: argparse.Namespace) -> int:
+    """Run the demo as asked; return the exit status."""
+    from chargebook.acquire.record.store import default_db_path
+
+    args.db_path = (
+        Path(args.db).expanduser() if args.db else default_db_path().with_name("demo.sqlite")
+    )
+    args.db_path.parent.mkdir(parents=True, exist_ok=True)
+    out = sys.stderr if args.json else sys.stdout
+    print(f"demo database: {args.db_path}", file=out)
+    workdir = Path(tempfile.mkdtemp(prefix="chargebook-demo-"))
+    try:
+        with demo_world(args, workdir) as (simulator, daemon):
+            socket_path = daemon.info["socket"]
+            if not args.unattended and _open_console(args, socket_path, simulator) is not None:
+                return EXIT_OK
+            return asyncio.run(_unattended(args, socket_path, simulator, out))
+    except ChildStartError as error:
+        print(f"chargebook demo: {error}", file=sys.stderr)
+        return EXIT_FAILURE
+    except KeyboardInterrupt:
+        print("chargebook demo: stopped; the demo database keeps what was recorded", file=out)
+        return 130
+    finally:
+        shutil.rmtree(workdir, ignore_errors=True)
+
+
+def _open_console(args: argparse.Namespace, socket_path: str, simulator: Child) -> int | None:
+    """Run the console on the daemon; None when the console is not installed."""
+    try:
+        from chargebook.tui.app import run_console
+    except ImportError:
+        return None
+    from chargebook.acquire.commands.demo_data import demo_metadata
+    from chargebook.acquire.daemon.bench import Bench
+
+    bench = Bench(simulator.info["control"])
+    try:
+        temperature_C, pressure_kPa = bench.environment()
+    finally:
+        bench.close()
+    defaults = {
+        **demo_metadata(),
+        "temperature_C": temperature_C,
+        "pressure_entered": pressure_kPa,
+        "pressure_unit": "kPa",
+    }
+    return run_console(socket_path, setup_defaults=defaults, demo_database=args.db_path)
+
+
+async def _unattended(
+    args: argparse.Namespace, socket_path: str, simulator: Child, out: TextIO
+) -> int:
+    from chargebook.acquire.client import DaemonClient
+    from chargebook.acquire.commands.demo_data import demo_metadata
+    from chargebook.acquire.commands.operator_auto import (
+        ACTOR,
+        AutoOperator,
+        AutoOperatorError,
+        environment_from_bench,
+    )
+    from chargebook.acquire.daemon.bench import Bench
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.reports.summary_text import reading_line, result_table
+    from chargebook.acquire.session.result import result_document
+
+    bench = Bench(simulator.info["control"])
+    environment = environment_from_bench(simulator.info["control"])
+
+    def progress(reading_set: dict[str, Any], reading: dict[str, Any]) -> None:
+        print(reading_line(reading_set, reading), file=out, flush=True)
+
+    client = await DaemonClient.connect(socket_path, client="demo", operator=ACTOR)
+    try:
+        final = await AutoOperator(client, environment, on_reading=progress).run(demo_metadata())
+        truth = bench.truth()
+    except AutoOperatorError as error:
+        print(f"chargebook demo: {error}", file=sys.stderr)
+        return EXIT_FAILURE
+    finally:
+        await client.close()
+        bench.close()
+    with Store.open(args.db_path, read_only=True) as store:
+        document = result_document(store, final["session"]["id"])
+    if args.json:
+        print(json.dumps({**document, "truth": truth}, indent=2, ensure_ascii=False))
+    else:
+        print("", file=out)
+        print(result_table(document, truth), file=out)
+    return EXIT_OK

@@ -1,0 +1,996 @@
+"""The acquisition daemon: one process that owns the electrometer and the station database.
+
+Three parts, wired here:
+
+* an :class:`InstrumentLink` thread that owns the (synchronous) driver: it carries out the
+  engine's commands in order (zero, start, stop, set bias, and the bench's beam and bias
+  switch), reads samples while a reading is armed (pushed lines in stream mode, ``read_charge``
+  polled at :data:`POLL_INTERVAL_S` in query mode), records every raw line as traffic, and
+  reconnects with backoff when the instrument goes away. The raw lines of one burst (a pushed
+  stream drained up to :data:`MAX_SAMPLES_PER_BATCH` lines, or one command's exchange) are
+  committed together, before the engine hears of any sample among them;
+* the :class:`~chargebook.acquire.engine.engine.Engine`, driven only from the asyncio loop;
+* the :class:`~chargebook.acquire.daemon.server.RpcServer` on the Unix socket.
+
+Every reading is committed by the engine before :meth:`Daemon.publish` tells any client.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import collections
+import contextlib
+import logging
+import os
+import queue
+import threading
+import time
+import traceback
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire import protocol
+from chargebook.acquire.daemon import sd_notify
+from chargebook.acquire.daemon.server import Connection, RpcServer
+from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
+from chargebook.acquire.engine.states import IllegalTransition
+from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
+from chargebook.acquire.record.station_lock import StationLock
+from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
+from chargebook.drivers_generic.interface import (
+    Capability,
+    Electrometer,
+    InstrumentDisconnected,
+    InstrumentError,
+    InstrumentTimeout,
+    NotSupported,
+    ProtocolError,
+    Sample,
+    TrafficDirection,
+)
+
+log = logging.getLogger(__name__)
+
+#: How often a query-mode electrometer is read while a reading is armed, s.
+POLL_INTERVAL_S = 0.05
+#: How often the engine's timers are advanced, s.
+TICK_S = 0.05
+#: Shortest time between two snapshots that only show the live charge, s.
+LIVE_INTERVAL_S = 0.25
+#: The audit events of the daemon's own starts and stops: the last one says how it last ended.
+LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
+#: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
+MAX_SAMPLES_PER_BATCH = 1024
+#: A pause between pushed lines longer than this ends a burst, s.
+BURST_GAP_S = 0.002
+#: How each traffic direction is written in the store.
+_DIRECTION_TEXT = {direction: direction.value for direction in TrafficDirection}
+#: Timeouts in a row after which the instrument counts as lost.
+TIMEOUTS_BEFORE_LOST = 3
+#: Reconnection backoff: first pause and longest pause, s.
+RECONNECT_FIRST_S, RECONNECT_MAX_S = 0.2, 2.0
+#: Raw lines held in memory at most while the record cannot commit (some 100 bytes each); at
+#: the bound the electrometer is no longer read until the lines are committed.
+MAX_HELD_LINES = 200_000
+#: Share of MAX_HELD_LINES at which the operator is told the bound nears.
+HELD_WARNING_SHARE = 0.8
+#: How often the daemon checks that its database and -wal files are the ones it opened, s.
+FILES_CHECK_S = 1.0
+#: How often commits that failed are tried again, s.
+RETRY_S = 0.5
+#: How long a commit of raw lines waits for another program's write lock, ms: the lines are
+#: held meanwhile, so the instrument thread never stops reading the port for long.
+LINES_WAIT_MS = 200
+
+
+class LineRef:
+    """A raw line received from the instrument, kept for the next traffic commit; ``id`` is
+    its row id once committed (None before, or if it could not be recorded). A sample carries
+    the LineRef of the line it was read from, so its reading names that line."""
+
+    __slots__ = ("id",)
+
+    def __init__(self) -> None:
+        self.id: int | None = None
+
+    def written(self, line_id: int | None) -> None:
+        """Take the line's row id, as the store tells it (None: not written after all)."""
+        self.id = line_id
+
+
+@dataclass(frozen=True)
+class DaemonOptions:
+    """What ``chargebook serve`` was asked for."""
+
+    profile: str
+    db_path: Path
+    socket_path: Path
+    port: str | None = None
+    resource: str | None = None
+    plan: str = "default"
+    bench_control: str | None = None
+    time_scale: float = 1.0
+    thresholds: Any = None  # corrections.stability.Thresholds; None: the documented defaults
+    visa_library: str | None = None  # pyvisa's library for a resource; None: $PYVISA_LIBRARY/@py
+    socket_group: str | None = None  # a group that may use the sockets (0750 / 0660); None: 0700
+    station_name: str | None = None  # the station's name; None: keep the recorded one
+
+    @property
+    def watch_socket_path(self) -> Path:
+        """The watch-only socket, beside the control socket."""
+        return self.socket_path.parent / protocol.WATCH_SOCKET_NAME
+
+
+# ------------------------------------------------------------------------ instrument thread
+class InstrumentLink(threading.Thread):
+    """The thread that owns the electrometer (see the module docstring).
+
+    ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
+    (Sample, LineRef of its raw line or None))), ``connected`` (identity text or None),
+    ``lost`` (message) and ``fault`` (message).
+    ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
+    commit; it is called before every ``post`` and after every turn of the thread's loop, so no
+    line waits longer than one turn. What the engine must hear of after lines that could not be
+    committed is held, in order, and posted once they are. While ``backlog_full`` is set (too
+    many lines held) no samples are read.
+    """
+
+    def __init__(
+        self,
+        electrometer: Electrometer,
+        post: Callable[[str, Any], None],
+        *,
+        bench: Any = None,
+        clock: Callable[[], float] = time.monotonic,
+        flush: Callable[[], bool] = lambda: True,
+        line_of: Callable[[], LineRef | None] = lambda: None,
+    ) -> None:
+        super().__init__(name="instrument", daemon=True)
+        self.electrometer = electrometer
+        self.post = post
+        self.flush = flush
+        self.line_of = line_of  # the latest line received: the one a sample just read came from
+        self.bench = bench
+        self.clock = clock
+        self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
+        self.generation: int | None = None  # samples are read while this is set
+        #: The session the lines now sent and received belong to: set in order with the
+        #: commands (:meth:`lines_for`), so a command issued for one session is recorded with
+        #: it even when the loop has moved on to the next session before the line goes out.
+        self.session_id: int | None = None
+        self.fresh_after_s = 0.0  # samples received before this are stale
+        self.connected = False
+        self._timeouts = 0
+        self._next_poll_s = 0.0
+        self._quit = threading.Event()
+        self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
+        self._reply_note: str | None = None  # the driver's note on late or slow answers
+        self.backlog_full = False
+
+    # -- called from the asyncio loop ----------------------------------------------------------
+    def send(self, command: Command) -> None:
+        """Queue one engine command."""
+        self.inbox.put(("command", command))
+
+    def lines_for(self, session_id: int | None) -> None:
+        """Record the lines of the commands queued from now on with ``session_id``."""
+        self.inbox.put(("session", session_id))
+
+    def sample_for(self, generation: int | None) -> None:
+        """Read samples tagged ``generation`` from now on (None: stop reading)."""
+        self.inbox.put(("sampling", generation))
+
+    def stop(self) -> None:
+        """Ask the thread to end (it closes the instrument)."""
+        self._quit.set()
+        self.inbox.put(("quit", None))
+
+    # -- the thread ----------------------------------------------------------------------------
+    def run(self) -> None:
+        try:
+            while not self._quit.is_set():
+                if not self.connected:
+                    self._connect()
+                    continue
+                self._serve_once()
+        finally:
+            with contextlib.suppress(Exception):
+                self.electrometer.close()
+            self._release()
+
+    def _hand_over(self, kind: str, payload: Any) -> None:
+        """Commit the raw lines recorded so far, then post ``kind`` to the engine's loop (held,
+        in order, while the lines cannot be committed)."""
+        self._held.append((kind, payload))
+        self._release()
+
+    def _release(self) -> None:
+        """Commit the raw lines recorded so far; if that worked, post what was held."""
+        if not self.flush() or not self._held:
+            return
+        held, self._held = self._held, []
+        for kind, payload in held:
+            self.post(kind, payload)
+
+    def _connect(self) -> None:
+        delay_s = RECONNECT_FIRST_S
+        said: str | None = None
+        while not self._quit.is_set():
+            try:
+                self.electrometer.open()
+            except InstrumentError as error:
+                why = str(error)
+                level = logging.INFO if why == said else logging.WARNING  # say each new cause
+                log.log(level, "electrometer not reachable (%s); retrying in %.1f s", why, delay_s)
+                if why != said:
+                    said = why
+                    self.post("unreachable", f"electrometer not reachable: {why}")
+                self._drain_while_away()
+                if self._quit.wait(delay_s):
+                    return
+                delay_s = min(delay_s * 2, RECONNECT_MAX_S)
+                continue
+            self.connected, self._timeouts = True, 0
+            self._hand_over("connected", self._identity())
+            return
+
+    def _identity(self) -> str | None:
+        try:
+            identity = self.electrometer.identify()
+        except NotSupported:
+            return None
+        except InstrumentError as error:
+            log.warning("the electrometer did not identify itself: %s", error)
+            return None
+        return ", ".join(
+            part
+            for part in (identity.manufacturer, identity.model, identity.serial, identity.firmware)
+            if part
+        )
+
+    def _drain_while_away(self) -> None:
+        """Drop queued instrument commands while disconnected; keep bench commands."""
+        while True:
+            try:
+                kind, value = self.inbox.get_nowait()
+            except queue.Empty:
+                return
+            if kind == "quit":
+                self._quit.set()
+                return
+            if kind == "sampling":
+                self.generation = value
+            elif kind == "session":
+                self.session_id = value
+            elif kind == "command" and value.action in ("beam", "bench_bias"):
+                self._bench(value)
+            else:
+                log.info("electrometer away: dropped command %s", value)
+
+    def _serve_once(self) -> None:
+        pushes = bool(
+            self.electrometer.capabilities & {Capability.STREAM, Capability.PUSH_READINGS}
+        )
+        if self.generation is None or self.backlog_full:
+            timeout_s = 0.2
+        elif pushes:
+            timeout_s = 0.0
+        else:
+            timeout_s = max(0.0, self._next_poll_s - self.clock())
+        try:
+            kind, value = (
+                self.inbox.get(timeout=timeout_s) if timeout_s else self.inbox.get_nowait()
+            )
+        except queue.Empty:
+            kind, value = "", None
+        try:
+            while kind:  # everything queued, so that one commit covers the commands' lines
+                if kind == "quit":
+                    return
+                if kind == "sampling":
+                    self.generation = value
+                elif kind == "session":
+                    self.session_id = value
+                elif kind == "command":
+                    self._execute(value)
+                try:
+                    kind, value = self.inbox.get_nowait()
+                except queue.Empty:
+                    kind = ""
+            if self.generation is not None and self.inbox.empty() and not self.backlog_full:
+                self._read_samples(pushes)
+        except InstrumentDisconnected as error:
+            self._lost(f"the electrometer was disconnected: {error}")
+        except InstrumentTimeout as error:
+            self._timeouts += 1
+            if self._timeouts >= TIMEOUTS_BEFORE_LOST:
+                self._lost(f"the electrometer stopped answering: {error}")
+        except ProtocolError as error:
+            log.warning("rejected a line from the electrometer: %s", error)
+        except InstrumentError as error:
+            self._hand_over("fault", f"the electrometer refused a command: {error}")
+        finally:
+            self._release()
+            self._tell_reply_note()
+
+    def _tell_reply_note(self) -> None:
+        """Post the driver's note on late or slow answers when it changed."""
+        note = getattr(self.electrometer, "reply_note", None)
+        if note != self._reply_note:
+            self._reply_note = note
+            self._hand_over("reply_note", note)
+
+    def _lost(self, message: str) -> None:
+        self.connected = False
+        self._hand_over("lost", message)
+        with contextlib.suppress(Exception):
+            self.electrometer.close()
+
+    def _execute(self, command: Command) -> None:
+        action = command.action
+        if action in ("beam", "bench_bias"):
+            self._bench(command)
+            return
+        if action == "zero":
+            self.electrometer.zero()
+        elif action == "start":
+            self.electrometer.start_integration()
+        elif action == "stop":
+            self.electrometer.stop_integration()
+        elif action == "set_bias":
+            assert command.value is not None
+            self.electrometer.set_bias(command.value)
+        self.fresh_after_s = self.clock()
+        self._timeouts = 0
+
+    def _bench(self, command: Command) -> None:
+        from chargebook.acquire.daemon.bench import BenchError
+
+        if self.bench is None:
+            return
+        try:
+            if command.action == "beam":
+                self.bench.deliver(command.value)
+            else:
+                self.bench.turn_bias(command.value)
+        except BenchError as error:
+            self._hand_over("fault", str(error))
+
+    def _read_samples(self, pushes: bool) -> None:
+        samples: list[tuple[Sample, LineRef | None]] = []
+        try:
+            if pushes:
+                self._drain_pushed(samples)
+            else:
+                now_s = self.clock()
+                if now_s < self._next_poll_s:
+                    return
+                self._next_poll_s = now_s + POLL_INTERVAL_S
+                samples.append((self.electrometer.read_charge(), self.line_of()))
+            self._timeouts = 0
+        finally:  # samples read before a disconnection are still handed over
+            fresh = [pair for pair in samples if pair[0].t_s >= self.fresh_after_s]
+            if fresh:
+                self._hand_over("samples", (self.generation, fresh))
+
+    def _drain_pushed(self, samples: list[tuple[Sample, LineRef | None]]) -> None:
+        """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next one
+        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH.
+
+        A rejected line is logged and skipped; the burst goes on.
+        """
+        timeout_s = POLL_INTERVAL_S
+        while len(samples) < MAX_SAMPLES_PER_BATCH:
+            try:
+                sample = self.electrometer.next_sample(timeout_s)
+            except ProtocolError as error:
+                log.warning("rejected a line from the electrometer: %s", error)
+            else:
+                if sample is None:
+                    return
+                samples.append((sample, self.line_of()))
+            timeout_s = BURST_GAP_S
+
+
+def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
+    """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
+    return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
+
+
+# --------------------------------------------------------------------------------- daemon
+class Daemon:
+    """Wires the instrument thread, the engine and the socket server; see the module docstring."""
+
+    def __init__(self, options: DaemonOptions, *, clock: Callable[[], float] = time.monotonic):
+        self.options = options
+        self.clock = clock
+        self.store: Store | None = None
+        self.station_lock = StationLock(options.db_path)
+        self.engine: Engine | None = None
+        self.link: InstrumentLink | None = None
+        self.server = RpcServer(options.socket_path, self.dispatch, group=options.socket_group)
+        #: The watch-only socket beside it: hello, subscribe and status, no action.
+        self.watch_server = RpcServer(
+            options.watch_socket_path,
+            self.dispatch,
+            group=options.socket_group,
+            methods=protocol.WATCH_METHODS,
+        )
+        self._events: asyncio.Queue[tuple[str, Any]] = asyncio.Queue()
+        self._lines_fault: str | None = None  # why the last traffic commit failed (thread)
+        self._lines_tried_at = -RETRY_S  # when the thread last tried a commit that failed
+        self._lines_failing_since: float | None = None  # first failed commit of lines held now
+        self._lines_told: tuple[str | None, int] = (None, 0)  # the last news of held lines
+        self._lines_told_at = 0.0
+        self._held_events: collections.deque[tuple[str, Any]] = collections.deque()
+        self._faults: dict[str, str] = {}  # what cannot commit: "lines", "engine", "files"
+        self._held_lines = 0
+        self._files: RecordFiles | None = None
+        self._files_checked_at = 0.0
+        self._events_tried_at = 0.0
+        self._latest_received: LineRef | None = None  # the newest received line's ref
+        self._generation = 0
+        self._line_session: int | None = None  # the session last given to the link's lines
+        #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
+        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
+        self._sampled_reading: object = None
+        self._published_seq = -1
+        self._published_event_id = 0
+        self._events_checked_at: int | None = None  # engine.data_version at the last look
+        self._last_live: tuple[float, float | None] = (0.0, None)
+        self._stopping = asyncio.Event()
+        self._stop_reason = "asked to stop"
+
+    # -- starting and stopping -----------------------------------------------------------------
+    def _build(self) -> None:
+        from chargebook.drivers_generic import build_electrometer, load_profile
+
+        options = self.options
+        profile = load_profile(options.profile)
+        require_writable(options.db_path)  # refused in words, before the lock file is made
+        self.station_lock.acquire()  # before anything is written: one daemon per station file
+        self.store = Store.open(options.db_path)
+        if options.station_name:
+            self.store.name_station(options.station_name)
+        self._files = RecordFiles.taken_now(options.db_path)
+        bench = None
+        if options.bench_control:
+            from chargebook.acquire.daemon.bench import Bench
+
+            bench = Bench(options.bench_control)
+        electrometer = build_electrometer(
+            profile,
+            port=options.port,
+            resource=options.resource,
+            traffic=self._record_traffic,
+            clock=self.clock,
+            visa_library=options.visa_library,
+        )
+        self.engine = Engine(
+            self.store,
+            capabilities=profile.capabilities,
+            bench=bench is not None,
+            clock=self.clock,
+            default_plan=options.plan,
+            profile=profile.name,
+            time_scale=options.time_scale,
+            thresholds=options.thresholds,
+        )
+        self.engine.instrument_connected = False
+        self.engine.instrument_message = "connecting to the electrometer"
+        loop = asyncio.get_running_loop()
+
+        def post(kind: str, payload: Any) -> None:
+            loop.call_soon_threadsafe(self._events.put_nowait, (kind, payload))
+
+        self.link = InstrumentLink(
+            electrometer,
+            post,
+            bench=bench,
+            clock=self.clock,
+            flush=self._commit_traffic,
+            line_of=lambda: self._latest_received,
+        )
+
+    def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        """Keep one raw line, stamped now, for the next commit (in the instrument thread only).
+
+        The store writes kept lines before anything else it appends, so an operator's action
+        committed while a line waits still comes after that line in the session's chain.
+        """
+        if self.store is None:
+            return
+        session_id = self.link.session_id if self.link is not None else None
+        stamp = self.store.stamp()
+        ref = None
+        if direction == TrafficDirection.RECEIVED:
+            ref = self._latest_received = LineRef()
+        line = (session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw))
+        self.store.keep_traffic(line, None if ref is None else ref.written)
+
+    def _commit_traffic(self) -> bool:
+        """Commit the raw lines kept so far in one transaction (instrument thread only); return
+        False when the record cannot commit: the store keeps the lines, in order, for the next try
+        (they go first in whatever commits next, so the chain keeps the order things happened).
+        """
+        if self.store is None or not self.store.kept_traffic_count():
+            return True
+        now_s = time.monotonic()
+        if self._lines_failing_since is not None and now_s - self._lines_tried_at < RETRY_S:
+            self._tell_held_lines()
+            return False
+        try:
+            # never wait long for another writer: the lines are kept, and the port goes on
+            # being read while they wait
+            with self.store.busy_timeout(LINES_WAIT_MS):
+                committed = self.store.commit_traffic()
+        except Exception as error:  # a traffic record must never stop the instrument thread
+            cause = commit_failure(error)
+            if cause is None:
+                log.exception("could not record the raw instrument lines kept so far")
+                return True
+            self._lines_not_committed(cause, now_s)
+            return False
+        if self._lines_failing_since is not None:
+            if self._lines_fault is not None:
+                log.warning("the record is writable again; %d held raw lines committed", committed)
+            self._lines_fault = self._lines_failing_since = None
+            self._tell_held_lines()
+        return True
+
+    def _lines_not_committed(self, cause: str, now_s: float) -> None:
+        """Note a failed commit of raw lines; declare the record not writable at once, or, for
+        another program's write lock, once it has been held longer than the busy timeout."""
+        assert self.store is not None
+        self._lines_tried_at = now_s
+        if self._lines_failing_since is None:
+            self._lines_failing_since = now_s
+        waited_s = now_s - self._lines_failing_since
+        if cause == LOCKED and waited_s * 1000 < BUSY_TIMEOUT_MS:
+            return  # a writer's ordinary transaction: the lines wait in memory meanwhile
+        if cause != self._lines_fault:
+            held = self.store.kept_traffic_count()
+            log.error("%s; %d raw lines held in memory", not_writable(cause), held)
+        self._lines_fault = cause
+        self._tell_held_lines()
+
+    def _tell_held_lines(self) -> None:
+        """Tell the loop why lines are held and how many (instrument thread only)."""
+        assert self.store is not None
+        held = self.store.kept_traffic_count() if self._lines_fault is not None else 0
+        told = (self._lines_fault, held * 20 // MAX_HELD_LINES)  # in steps of 5 % of the bound
+        now_s = time.monotonic()
+        fresh = told != self._lines_told or now_s - self._lines_told_at >= RETRY_S
+        if self.link is None or not fresh:
+            return
+        self._lines_told, self._lines_told_at = told, now_s
+        self.link.backlog_full = held >= MAX_HELD_LINES
+        self.link.post("record", (self._lines_fault, held))
+
+    async def run(self, ready: Callable[[dict[str, Any]], None] | None = None) -> None:
+        """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
+        try:
+            self._build()
+        except BaseException:
+            if self.store is not None:
+                self.store.close()
+            self.station_lock.release()
+            raise
+        assert self.engine is not None and self.link is not None and self.store is not None
+        self._record_start()
+        resumed = self.engine.restore()
+        self.link.session_id = self._line_session = self.engine.session_id
+        await self.server.start()
+        try:
+            await self.watch_server.start()
+        except BaseException:
+            await self.server.close()  # leave no control socket behind a refused start
+            raise
+        self.link.start()
+        info = {
+            "socket": str(self.options.socket_path),
+            "watch_socket": str(self.options.watch_socket_path),
+            "db": str(self.options.db_path),
+            "pid": os.getpid(),
+            "profile": self.engine.profile,
+            "resumed_session": self.engine.session_id if resumed else None,
+        }
+        if ready is not None:
+            ready(info)
+        tasks = [
+            asyncio.create_task(self._consume_instrument(), name="instrument-events"),
+            asyncio.create_task(self._tick(), name="ticker"),
+        ]
+        watchdog_s = sd_notify.watchdog_interval_s()
+        if watchdog_s is not None:
+            tasks.append(asyncio.create_task(self._watchdog(watchdog_s), name="watchdog"))
+        try:
+            await self._stopping.wait()
+        finally:
+            for task in tasks:
+                task.cancel()
+            await asyncio.gather(*tasks, return_exceptions=True)
+            await self.server.close()
+            await self.watch_server.close()
+            self.link.stop()
+            await asyncio.to_thread(self.link.join, 5.0)
+            if self.options.bench_control and self.link.bench is not None:
+                self.link.bench.close()
+            if self._stopping.is_set():
+                self._record_stop()
+            self.store.close()
+            self.station_lock.release()
+
+    def shutdown(self, reason: str = "asked to stop") -> None:
+        """Ask :meth:`run` to end (from a signal handler or a test); ``reason`` is recorded in
+        the ``daemon_stopped`` event (``SIGTERM``, ``SIGINT``)."""
+        self._stop_reason = reason
+        if not self._stopping.is_set():
+            sd_notify.notify(sd_notify.STOPPING)
+        self._stopping.set()
+
+    async def _watchdog(self, interval_s: float) -> None:
+        """Tell the service manager the loop is alive every ``interval_s`` (half its limit):
+        sent from the loop that serves the sockets and the engine, so a stuck loop goes quiet
+        and the manager restarts the daemon."""
+        while True:
+            sd_notify.notify(sd_notify.WATCHDOG)
+            await asyncio.sleep(interval_s)
+
+    def _record_start(self) -> None:
+        """Record ``daemon_started`` (a new file) or ``daemon_restarted``, saying whether the
+        previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
+        assert self.store is not None
+        session = self.store.open_session()
+        detail: dict[str, Any] = {"pid": os.getpid()}
+        last = self.store.last_event_of(LIFECYCLE_EVENTS)
+        if last is None:
+            kind = "daemon_started"
+        else:
+            kind = "daemon_restarted"
+            clean = last.kind == "daemon_stopped"
+            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
+            detail["previous_stop"] = last.detail().get("reason") if clean else None
+            detail["previous_pid"] = last.detail().get("pid")
+        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+
+    def _record_stop(self) -> None:
+        """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
+        assert self.store is not None and self.engine is not None
+        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        try:
+            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+        except Exception:  # the stop goes on; the next start will say the run crashed
+            log.exception("could not record the daemon's stop")
+
+    # -- the loop's work -----------------------------------------------------------------------
+    async def _consume_instrument(self) -> None:
+        while True:
+            kind, payload = await self._events.get()
+            try:
+                if kind == "record":
+                    self._lines_not_writable(*payload)
+                else:
+                    self._held_events.append((kind, payload))
+                    self._take_held_events()
+                await self.after_change()
+            except Exception:  # supervised: log it, record it, keep taking the instrument's news
+                self._unexpected(f"handling the instrument's {kind!r}")
+
+    # -- a record that cannot commit -------------------------------------------------------------
+    def _lines_not_writable(self, cause: str | None, held: int) -> None:
+        """Take the instrument thread's news: raw lines cannot be committed (``cause``), or can
+        again (None); ``held``: how many are waiting in memory."""
+        self._held_lines = held
+        self._set_fault("lines", cause)
+
+    def _set_fault(self, part: str, cause: str | None) -> None:
+        """Note (or clear, None) why ``part`` of the record cannot commit; tell the operator."""
+        if cause is None:
+            self._faults.pop(part, None)
+        else:
+            self._faults[part] = cause
+        assert self.engine is not None
+        if not self._faults:
+            self.engine.set_record_fault(None)
+            return
+        message = not_writable("; ".join(dict.fromkeys(self._faults.values())))
+        if self._held_lines:
+            plural = "s" if self._held_lines != 1 else ""
+            message += f" ({self._held_lines:,} raw line{plural} held in memory"
+            if self._held_lines >= HELD_WARNING_SHARE * MAX_HELD_LINES:
+                message += f"; at {MAX_HELD_LINES:,} the electrometer is no longer read"
+            message += ")"
+        self.engine.set_record_fault(message)
+
+    def _take_held_events(self) -> None:
+        """Give the engine the instrument's news in order; stop at one that cannot be committed
+        (it stays first in line, and is tried again)."""
+        self._events_tried_at = time.monotonic()
+        while self._held_events:
+            kind, payload = self._held_events[0]
+            try:
+                self._take_instrument_event(kind, payload)
+            except Exception as error:
+                cause = commit_failure(error)
+                if cause is None:
+                    self._held_events.popleft()
+                    raise
+                if cause != self._faults.get("engine"):
+                    log.error("%s; the instrument's %r is held", not_writable(cause), kind)
+                self._set_fault("engine", cause)
+                return
+            self._held_events.popleft()
+        if "engine" in self._faults:
+            log.warning("the record is writable again; held readings recorded")
+            self._set_fault("engine", None)
+
+    def _check_record(self) -> None:
+        """Try held news again, and check that the database files are the ones opened."""
+        assert self.store is not None
+        now_s = time.monotonic()
+        if self._held_events and now_s - self._events_tried_at >= RETRY_S:
+            self._take_held_events()
+        if self._files is None or now_s - self._files_checked_at < FILES_CHECK_S:
+            return
+        self._files_checked_at = now_s
+        changed = self._files.check()
+        if changed is None:
+            return
+        self.store.checkpoint()  # keep what the deleted -wal file holds: copy it into the file
+        if "files" not in self._faults:
+            log.error("%s", not_writable(changed))
+            self._set_fault(
+                "files",
+                f"{changed}; what was recorded is copied into the database file; stop the "
+                "daemon and start it again to go on (the session resumes)",
+            )
+
+    def _take_instrument_event(self, kind: str, payload: Any) -> None:
+        assert self.engine is not None
+        engine = self.engine
+        if kind == "samples":
+            self._feed(*payload)
+            return
+        if kind == "reply_note":
+            engine.set_reply_note(payload)
+            return
+        with engine.all_or_nothing():
+            self._take_instrument_news(kind, payload)
+
+    def _take_instrument_news(self, kind: str, payload: Any) -> None:
+        engine = self.engine
+        assert engine is not None
+        if kind == "connected":
+            engine.instrument_back(payload)
+        elif kind == "lost":
+            engine.instrument_lost(payload)
+        elif kind == "fault":
+            engine.instrument_lost(payload, still_connected=True)
+        elif kind == "unreachable":
+            engine.instrument_unreachable(payload)
+
+    def _feed(self, generation: int | None, samples: list[tuple[Sample, LineRef | None]]) -> None:
+        """Give the engine the samples of the reading now armed, until one completes it."""
+        assert self.engine is not None
+        engine = self.engine
+        for index, (sample, line) in enumerate(samples):
+            if generation != self._generation or engine.reading is not self._sampled_reading:
+                return  # the rest belong to a reading already captured or dropped
+            try:
+                engine.on_sample(
+                    sample.t_s,
+                    sample.charge_nC,
+                    sample.complete,
+                    sample.status.value,
+                    line_id=None if line is None else line.id,
+                )
+            except Exception:
+                del samples[:index]  # those were taken; the rest are tried again
+                raise
+
+    async def _tick(self) -> None:
+        assert self.engine is not None
+        while True:
+            await asyncio.sleep(TICK_S)
+            try:
+                self._check_record()
+                if not self._faults:
+                    self.engine.tick()
+                await self.after_change()
+            except Exception:  # supervised, as the instrument events are
+                self._unexpected("the clock tick")
+
+    def _unexpected(self, doing: str) -> None:
+        """Log an unexpected error with its traceback and record it as an event; carry on."""
+        log.exception("unexpected error while %s; the daemon carries on", doing)
+        if self.store is None or self.engine is None:
+            return
+        with contextlib.suppress(Exception):
+            error = traceback.format_exc(limit=8)
+            self.store.add_event(
+                self.engine.session_id, "daemon", "daemon_error", {"while": doing, "error": error}
+            )
+
+    async def after_change(self) -> None:
+        """Send the engine's commands to the instrument and publish what changed."""
+        assert self.engine is not None and self.link is not None
+        engine = self.engine
+        if engine.session_id != self._line_session:  # a session began or was left
+            self._line_session = engine.session_id
+            self.link.lines_for(engine.session_id)
+        for command in engine.take_commands():
+            self.link.send(command)
+        if engine.reading is not self._sampled_reading:
+            self._sampled_reading = engine.reading
+            self._generation += 1
+            self.link.sample_for(self._generation if engine.reading is not None else None)
+        reading = engine.reading
+        if reading is not None and engine.seq == self._published_seq:
+            last_at, last_charge = self._last_live
+            now = self.clock()
+            if reading.last_charge_nC != last_charge and now - last_at >= LIVE_INTERVAL_S:
+                self._last_live = (now, reading.last_charge_nC)
+                engine.touch_live()
+        await self.publish()
+
+    async def publish(self) -> None:
+        """Broadcast new audit events and, if the state changed, the snapshot."""
+        assert self.engine is not None and self.store is not None
+        engine = self.engine
+        if engine.session_id is not None and self._events_checked_at != engine.data_version:
+            self._events_checked_at = engine.data_version
+            for event in self.store.events_after(engine.session_id, self._published_event_id):
+                self._published_event_id = event.id
+                await self._broadcast(
+                    protocol.NOTIFY_EVENT,
+                    {
+                        "id": event.id,
+                        "session_id": event.session_id,
+                        "recorded_at": event.recorded_at,
+                        "actor": event.actor,
+                        "kind": event.kind,
+                        "detail": event.detail(),
+                    },
+                )
+        if engine.seq != self._published_seq:
+            self._published_seq = engine.seq
+            servers = (self.server, self.watch_server)
+            if any(server.has_subscribers() for server in servers):  # else: nothing to build
+                _, line = self._snapshot_and_line()
+                if line is not None:
+                    for server in servers:
+                        await server.broadcast_line(line)
+
+    async def _broadcast(self, method: str, params: Any) -> None:
+        """Send a notification to the subscribers of both sockets."""
+        line = protocol.encode_from_daemon(protocol.notification(method, params))
+        for server in (self.server, self.watch_server):
+            await server.broadcast_line(line)
+
+    def snapshot(self) -> dict[str, Any]:
+        """Return the engine's snapshot, trimmed to fit one message if it must be."""
+        return self._snapshot_and_line()[0]
+
+    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
+        """Return the engine's snapshot, trimmed to fit one message if it must be, and its
+        notification line, encoded once (None if even the trimmed snapshot does not fit).
+
+        ``reuse``: the one built last, if nothing changed since (``engine.seq``), so that an
+        action's reply is the snapshot its change was published with, built once.
+        """
+        assert self.engine is not None
+        built = self._built
+        if reuse and built is not None and built[0] == self.engine.seq:
+            return built[1], built[2]
+        seq = self.engine.seq
+        snapshot, line = self._build_snapshot()
+        self._built = (seq, snapshot, line)
+        return snapshot, line
+
+    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
+        assert self.engine is not None
+        snapshot = self.engine.snapshot()
+        try:
+            return snapshot, _snapshot_notification(snapshot)
+        except ValueError:
+            current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
+            for entry in snapshot["sets"]:
+                if entry["id"] != current:
+                    entry["readings"] = []
+        try:
+            return snapshot, _snapshot_notification(snapshot)
+        except ValueError as error:
+            log.error("a snapshot was not sent: %s", error)
+            return snapshot, None
+
+    # -- requests ------------------------------------------------------------------------------
+    async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
+        """Carry out one request from ``connection`` and return its result."""
+        assert self.engine is not None
+        if method == protocol.Method.HELLO:
+            connection.client = params.get("client") or connection.client
+            connection.operator = params.get("operator")
+            return {
+                "protocol_version": protocol.PROTOCOL_VERSION,
+                "daemon_pid": os.getpid(),
+                "socket": str(self.options.socket_path),
+                "watch_only": connection.watch_only,
+                "state": self.engine.state.value,
+            }
+        if method == protocol.Method.SUBSCRIBE:
+            connection.subscribed = True
+            return self.snapshot()
+        if method == protocol.Method.UNSUBSCRIBE:
+            connection.subscribed = False
+            return {}
+        if method == protocol.Method.STATUS:
+            return self.snapshot()
+        if method == protocol.Method.SESSION_REVIEW:
+            return self._review(connection, params)
+        try:
+            with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
+                self._perform(method, params, connection.actor)
+        except Exception as error:
+            cause = commit_failure(error)
+            if cause is None:
+                raise
+            why = f"{not_writable(cause)}; nothing was done"
+            raise IllegalTransition(method, self.engine.state, [], why) from error
+        finally:
+            await self.after_change()  # a refused request may still have recorded something
+        return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.record.review import record_review
+        from chargebook.corrections.errors import InputError
+
+        assert self.store is not None
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
+        with self.store.on_behalf_of(connection.account):
+            review = record_review(
+                self.store,
+                params["session"],
+                params["decision"],
+                params["reviewer"],
+                params["comment"],
+                allow_self_review=bool(params.get("allow_self_review", False)),
+            )
+        return review.to_dict()
+
+    def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
+        engine = self.engine
+        assert engine is not None
+        M = protocol.Method
+        actions: dict[str, Callable[[], Any]] = {
+            M.SESSION_START: lambda: engine.start_session(
+                params["metadata"], params.get("plan"), actor=actor
+            ),
+            M.ENVIRONMENT_SET: lambda: engine.set_environment(
+                params["temperature_C"],
+                params["pressure"],
+                params.get("pressure_unit", "kPa"),
+                params.get("humidity_pct"),
+                params.get("source", "operator"),
+                actor=actor,
+            ),
+            M.STEP_ARM: lambda: engine.arm(actor=actor),
+            M.STEP_MANUAL_DONE: lambda: engine.manual_done(params.get("note"), actor=actor),
+            M.STEP_SKIP: lambda: engine.skip(actor=actor),
+            M.READING_CAPTURE: lambda: engine.capture(actor=actor),
+            M.SET_ACCEPT: lambda: engine.accept(actor=actor),
+            M.SET_REDO: lambda: engine.redo(params["reason"], actor=actor),
+            M.SESSION_PAUSE: lambda: engine.pause(actor=actor),
+            M.SESSION_RESUME: lambda: engine.resume(actor=actor),
+            M.SESSION_STOP: lambda: engine.stop(params["reason"], actor=actor),
+            M.SESSION_ABORT: lambda: engine.abort(params["reason"], params["confirm"], actor=actor),
+            M.SESSION_CLOSE: lambda: engine.close(actor=actor),
+        }
+        actions[method]()

@@ -1,0 +1,156 @@
+"""Capture of one reading from the electrometer's sample stream.
+
+Three ways a reading is captured (the ``capture`` column of the store):
+
+* ``auto``: end-of-beam detection. After the electrometer is armed, the integrated charge rises
+  above ``rise_threshold_nC`` (the beam is on), then holds flat within the flatness tolerance
+  for ``hold_s`` seconds (the beam is off): the reading is the last charge seen. A timed
+  integration (leakage, no beam) is also ``auto``: the reading is the charge after its duration.
+* ``pushed``: the instrument itself sends a completed reading (``Sample.complete``).
+* ``manual``: the operator captures the charge integrated so far.
+
+Pure: no I/O and no clock of its own; times are the instrument clock's seconds passed in.
+"""
+
+from __future__ import annotations
+
+import enum
+from dataclasses import dataclass, replace
+
+from chargebook.acquire.protocol import ReadingPhase
+from chargebook.acquire.session.plan import Plan
+
+
+class CaptureKind(enum.StrEnum):
+    AUTO = "auto"
+    PUSHED = "pushed"
+    MANUAL = "manual"
+
+
+@dataclass(frozen=True, slots=True)
+class CaptureSettings:
+    """Thresholds of end-of-beam detection (defaults: common practice for ~20 nC readings).
+
+    ``rise_threshold_nC``: charge change from the armed value that means the beam is on.
+    ``flat_tolerance_pct`` / ``flat_tolerance_nC``: the charge counts as flat while it stays
+    within the larger of these (percent of the charge, or nC) of the start of the flat stretch.
+    ``hold_s``: how long it must stay flat before end of beam is declared, in seconds.
+    """
+
+    rise_threshold_nC: float = 0.05
+    flat_tolerance_pct: float = 0.02
+    flat_tolerance_nC: float = 0.001
+    hold_s: float = 1.0
+
+    def __post_init__(self) -> None:
+        for name in ("rise_threshold_nC", "flat_tolerance_pct", "flat_tolerance_nC", "hold_s"):
+            value = getattr(self, name)
+            if not value > 0:
+                raise ValueError(f"{name} = {value!r} is not allowed: expected a number > 0")
+
+
+@dataclass(frozen=True, slots=True)
+class Captured:
+    """A finished reading: its charge in nC, the instrument time it was taken, how."""
+
+    charge_nC: float
+    t_s: float
+    capture: CaptureKind
+    integration_s: float  # from arming to capture
+
+
+class ReadingCapture:
+    """Follows one reading from arming to capture; feed it samples and clock ticks.
+
+    ``timed_s`` set: a timed integration (no beam) that ends ``timed_s`` seconds after arming.
+    ``baseline_nC``: the charge at arming when known (0 after the integrator was zeroed), so a
+    beam already under way at the first sample is still seen rising; None takes the first sample.
+    """
+
+    def __init__(
+        self,
+        settings: CaptureSettings,
+        armed_t_s: float,
+        timed_s: float | None = None,
+        baseline_nC: float | None = None,
+    ):
+        self.settings = settings
+        self.armed_t_s = armed_t_s
+        self.timed_s = timed_s
+        self.phase = ReadingPhase.TIMED if timed_s is not None else ReadingPhase.ARMED
+        self.baseline_nC = baseline_nC
+        self.last_charge_nC: float | None = None
+        self.last_t_s: float | None = None
+        self._flat_ref_nC = 0.0
+        self._flat_since_s = armed_t_s
+
+    def feed(self, t_s: float, charge_nC: float, complete: bool = False) -> Captured | None:
+        """Take one sample; return the reading if this sample completes it.
+
+        A sample received before the reading was armed (a stale line) is ignored.
+        """
+        if t_s < self.armed_t_s:
+            return None
+        if self.baseline_nC is None:
+            self.baseline_nC = charge_nC
+        self.last_charge_nC, self.last_t_s = charge_nC, t_s
+        if complete:
+            return self._done(CaptureKind.PUSHED, t_s)
+        if self.phase is ReadingPhase.TIMED:
+            return self.tick(t_s)
+        if self.phase is ReadingPhase.ARMED:
+            if abs(charge_nC - self.baseline_nC) > self.settings.rise_threshold_nC:
+                self.phase = ReadingPhase.RISING
+                self._flat_ref_nC, self._flat_since_s = charge_nC, t_s
+            return None
+        tolerance = max(
+            self.settings.flat_tolerance_nC,
+            abs(self._flat_ref_nC) * self.settings.flat_tolerance_pct / 100.0,
+        )
+        if abs(charge_nC - self._flat_ref_nC) > tolerance:
+            self.phase = ReadingPhase.RISING
+            self._flat_ref_nC, self._flat_since_s = charge_nC, t_s
+            return None
+        self.phase = ReadingPhase.HOLDING
+        return self.tick(t_s)
+
+    def tick(self, now_s: float) -> Captured | None:
+        """Return the reading if the hold time (or the timed duration) has passed at ``now_s``."""
+        if self.last_charge_nC is None:
+            return None
+        if self.phase is ReadingPhase.TIMED:
+            if self.timed_s is not None and now_s - self.armed_t_s >= self.timed_s:
+                return self._done(CaptureKind.AUTO, now_s)
+            return None
+        held_s = now_s - self._flat_since_s
+        if self.phase is ReadingPhase.HOLDING and held_s >= self.settings.hold_s:
+            return self._done(CaptureKind.AUTO, now_s)
+        return None
+
+    def capture_now(self, now_s: float) -> Captured | None:
+        """Return the charge integrated so far as a manual reading (None before any sample)."""
+        if self.last_charge_nC is None:
+            return None
+        return self._done(CaptureKind.MANUAL, now_s)
+
+    def _done(self, kind: CaptureKind, t_s: float) -> Captured:
+        assert self.last_charge_nC is not None
+        self.phase = ReadingPhase.IDLE
+        return Captured(self.last_charge_nC, t_s, kind, max(0.0, t_s - self.armed_t_s))
+
+
+#: The shortest hold time after scaling, s: a few polls of a query-mode electrometer.
+MIN_SCALED_HOLD_S = 0.15
+
+
+def capture_settings(plan: Plan, time_scale: float = 1.0) -> CaptureSettings:
+    """Return the end-of-beam settings: the engine's defaults with the plan's overrides.
+
+    ``time_scale`` (< 1 for a simulated electrometer running faster than real time) shortens
+    the hold time, but not below MIN_SCALED_HOLD_S.
+    """
+    settings = CaptureSettings(**plan.capture.overrides())
+    if time_scale == 1.0:
+        return settings
+    hold_s = max(settings.hold_s * time_scale, min(settings.hold_s, MIN_SCALED_HOLD_S))
+    return replace(settings, hold_s=hold_s)

@@ -1,0 +1,298 @@
+"""The engine's whole state as a protocol ``Snapshot`` dict (see ``acquire/protocol.py``)."""
+
+from __future__ import annotations
+
+import weakref
+from typing import TYPE_CHECKING, Any
+
+from chargebook.acquire.protocol import CAUTION, EngineState, ReadingPhase
+from chargebook.acquire.record.store import ReadingRow, SetRow
+from chargebook.acquire.session import rules
+from chargebook.acquire.session.numbering import next_reading_label, reading_labels
+
+if TYPE_CHECKING:
+    from chargebook.acquire.engine.engine import Engine
+
+S = EngineState
+
+#: Per engine, per set id: (what the set's entry was computed from, the entry). A set's
+#: statistics and flags are recomputed only when its row, its readings, the thresholds or its
+#: plan step changed, so a finished set costs nothing while another one is being taken.
+_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], dict[str, Any]]]]
+_SET_CACHE = weakref.WeakKeyDictionary()
+
+
+def build_snapshot(engine: Engine) -> dict[str, Any]:
+    """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...)."""
+    store, session_id = engine.store, engine.session_id
+    sets: list[dict[str, Any]] = []
+    environment = None
+    entries: list[dict[str, Any]] = []
+    session = None
+    results, provisional, results_error = engine.results()
+    if session_id is not None:
+        row = store.session(session_id)
+        session = {
+            "id": row.id,
+            "status": row.status,
+            "created_at": row.created_at,
+            "metadata": row.metadata(),
+            "convention": row.convention,
+            "beam": row.beam,
+            "plan_name": engine.plan.name,
+            "reason": row.reason,
+        }
+        readings = store.readings(session_id)
+        sets = _sets_info(engine, store.sets(session_id), readings)
+        entries = [_environment_info(entry) for entry in store.environment(session_id)]
+        if entries:
+            environment = entries[-1]
+    current = next((s for s in sets if engine.active and s["id"] == engine.active.id), None)
+    return {
+        "seq": engine.seq,
+        "state": engine.state.value,
+        "paused_from": engine.paused_from.value if engine.paused_from else None,
+        "allowed": engine.allowed(),
+        "prompt": prompt(engine),
+        "notice": engine.notice,
+        "session": session,
+        "plan": _plan_info(engine, sets),
+        "step_index": engine.step_index,
+        "current_set": current,
+        "sets": sets,
+        "live": _live(engine),
+        "environment": environment,
+        "environment_entries": entries,
+        "results": results,
+        "results_provisional": provisional,
+        "results_error": results_error,
+        "instrument": {
+            "connected": engine.instrument_connected,
+            "profile": engine.profile,
+            "identity": engine.identity,
+            "capabilities": sorted(c.value for c in engine.capabilities),
+            "message": "; ".join(
+                note for note in (engine.instrument_message, engine.reply_note) if note
+            )
+            or None,
+            "bench": engine.bench,
+        },
+        "record": {"writable": engine.record_fault is None, "message": engine.record_fault},
+        "caution": CAUTION,
+    }
+
+
+def _sets_info(
+    engine: Engine, rows: list[SetRow], readings: list[ReadingRow]
+) -> list[dict[str, Any]]:
+    """Return every set's entry, reusing the entries of sets whose inputs did not change."""
+    by_set: dict[int, list[ReadingRow]] = {row.id: [] for row in rows}
+    for reading in readings:
+        by_set.setdefault(reading.set_id, []).append(reading)
+    cache = _SET_CACHE.setdefault(engine, {})
+    fresh: dict[int, tuple[tuple[Any, ...], dict[str, Any]]] = {}
+    entries = []
+    reference = rules.routine_nC_per_MU(engine.plan, rows, by_set)
+    for row in rows:
+        own = by_set[row.id]
+        step = (
+            engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
+        )
+        inputs = (row, tuple(own), engine.thresholds, step, reference)
+        cached = cache.get(row.id)
+        entry = cached[1] if cached is not None and cached[0] == inputs else None
+        if entry is None:
+            entry = _set_info(engine, row, own, step, reference)
+        fresh[row.id] = (inputs, entry)
+        entries.append(dict(entry))  # a shallow copy: a caller may trim the copy's readings
+    _SET_CACHE[engine] = fresh
+    return entries
+
+
+def _set_info(
+    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None, reference: float | None
+) -> dict[str, Any]:
+    """Return the protocol entry of one set: its readings, statistics and flags (``reference``:
+    the routine set's charge per MU, nC/MU)."""
+    stats, flags, per_reading = rules.set_summary(row.purpose, row.bias_V, own, engine.thresholds)
+    flags += rules.delivery_flags(step, own, engine.integration_s, engine.time_scale, reference)
+    return {
+        "id": row.id,
+        "step_index": row.step_index,
+        "step_key": row.step_key,
+        "purpose": row.purpose,
+        "polarity": row.polarity,
+        "bias_V": row.bias_V,
+        "attempt": row.attempt,
+        "status": row.status,
+        "reason": row.reason,
+        "readings": [
+            {
+                "id": r.id,
+                "seq": r.seq,
+                "label": label,
+                "t_s": r.t_s,
+                "charge_nC": r.charge_nC,
+                "capture": r.capture,
+                "settling": bool(r.settling),
+                "status": r.status,
+                "recorded_at": r.recorded_at,
+                "flags": per_reading.get(r.id, []),
+            }
+            for r, label in zip(own, reading_labels(r.settling for r in own), strict=True)
+        ],
+        "readings_needed": int(step.readings) if step is not None else len(own),
+        "readings_done": sum(1 for r in own if not r.settling),
+        "stats": stats,
+        "flags": flags,
+    }
+
+
+def _environment_info(entry: Any) -> dict[str, Any]:
+    return {
+        "temperature_C": entry.temperature_C,
+        "pressure_kPa": entry.pressure_kPa,
+        "pressure_entered": entry.pressure_entered,
+        "pressure_unit": entry.pressure_unit,
+        "humidity_pct": entry.humidity_pct,
+        "source": entry.source,
+        "recorded_at": entry.recorded_at,
+    }
+
+
+def _plan_info(engine: Engine, sets: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    if engine.plan is None:
+        return []
+    accepted = {s["step_index"] for s in sets if s["status"] == "accepted"}
+    steps = []
+    for index, step in enumerate(engine.plan.steps):
+        if index in accepted:
+            status = "accepted"
+        elif index in engine.skipped:
+            status = "skipped"
+        elif index == engine.step_index and engine.state not in (S.FINISHED, S.ABORTED):
+            status = "current"
+        else:
+            status = "pending"
+        steps.append(
+            {
+                "index": index,
+                "key": step.key,
+                "purpose": step.purpose,
+                "polarity": step.polarity,
+                "bias_V": step.bias_V,
+                "readings": step.readings,
+                "mu_per_reading": step.mu_per_reading,
+                "optional": step.optional,
+                "prompt": step.prompt,
+                "status": status,
+            }
+        )
+    return steps
+
+
+def _live(engine: Engine) -> dict[str, Any]:
+    reading = engine.reading
+    if reading is None:
+        return {
+            "phase": ReadingPhase.IDLE.value,
+            "charge_nC": None,
+            "elapsed_s": None,
+            "seq": None,
+            "label": None,
+        }
+    elapsed = None if reading.last_t_s is None else reading.last_t_s - reading.armed_t_s
+    active = engine.active
+    seq = label = None
+    if active is not None:
+        seq = len(active.readings) + 1
+        taken = [bool(r.settling) for r in active.readings]
+        label = next_reading_label(taken, engine.state is S.SETTLING)
+    return {
+        "phase": reading.phase.value,
+        "charge_nC": reading.last_charge_nC,
+        "elapsed_s": elapsed,
+        "seq": seq,
+        "label": label,
+    }
+
+
+def _bias_text(volts: float) -> str:
+    return f"{volts:+g} V".replace("-", "−")
+
+
+def prompt(engine: Engine) -> dict[str, Any]:
+    """Return what the operator must do now, in plain words (PromptInfo)."""
+    state, step = engine.state, engine.step
+    if engine.record_fault is not None:
+        return {
+            "kind": "record_fault",
+            "text": f"Do not deliver beam: {engine.record_fault}. No reading can be taken "
+            "until it is writable again; what was received is held and will be recorded.",
+        }
+    if state is S.IDLE:
+        return {"kind": "start", "text": "Start a session: enter the session details."}
+    if state is S.FINISHED:
+        return {"kind": "done", "text": "The session is finished. Review the results."}
+    if state is S.ABORTED:
+        return {"kind": "done", "text": "The session was aborted; everything recorded is kept."}
+    if state is S.PAUSED:
+        return {"kind": "paused", "text": "Paused. Resume to carry on where you left off."}
+    if state is S.INTERRUPTED:
+        where = "" if engine.instrument_connected else " It is not connected: waiting for it."
+        return {
+            "kind": "interrupted",
+            "text": "The set was interrupted before it was complete; its readings are kept."
+            + where
+            + " Continue the set (arm) or redo it.",
+        }
+    if state is S.REVIEWING:
+        return {
+            "kind": "review",
+            "text": "The set is complete. Check the readings and flags, then accept it or redo it.",
+        }
+    assert step is not None
+    if state is S.WAITING_FOR_OPERATOR:
+        return _waiting_prompt(engine, step)
+    if state is S.SETTLING and engine.reading is None:
+        return {
+            "kind": "deliver_beam",
+            "text": f"Letting the chamber settle at {_bias_text(step.bias_V)} before the readings.",
+        }
+    return _beam_prompt(engine, step)
+
+
+def _waiting_prompt(engine: Engine, step: Any) -> dict[str, Any]:
+    if engine.session_id is not None and not engine.store.environment(engine.session_id):
+        return {
+            "kind": "environment",
+            "text": "Enter the air temperature and pressure at the chamber.",
+        }
+    if engine.pending_manual is not None:
+        volts = engine.pending_manual["volts"]
+        return {
+            "kind": "manual",
+            "text": f"Turn the bias to {_bias_text(volts)} by hand, then confirm it is done.",
+            "manual_action": dict(engine.pending_manual),
+        }
+    if not engine.instrument_connected:
+        return {"kind": "interrupted", "text": "The electrometer is not connected: waiting for it."}
+    return {"kind": "arm", "text": f"{step.prompt} Arm when ready."}
+
+
+def _beam_prompt(engine: Engine, step: Any) -> dict[str, Any]:
+    active = engine.active
+    done = active.used_count if active is not None else 0
+    if not step.uses_beam:
+        return {
+            "kind": "deliver_beam",
+            "text": f"Measuring leakage with the beam off: {step.duration_s:g} s.",
+        }
+    taken = [bool(r.settling) for r in active.readings] if active is not None else []
+    which = (
+        f"settling reading {next_reading_label(taken, True)}, kept but not used"
+        if engine.state is S.SETTLING
+        else f"reading {done + 1} of {step.readings}"
+    )
+    who = "The bench is delivering" if engine.bench else "Deliver"
+    return {"kind": "deliver_beam", "text": f"{who} {step.mu_per_reading:g} MU now ({which})."}

@@ -1,0 +1,131 @@
+"""The hash chain that makes a changed record show: one chain per session over its appended rows.
+
+Every row appended to readings, environment, events and traffic carries ``chain_seq``, its place
+in its session's sequence of rows (1, 2, 3, ... across the tables, in the order the rows were
+written; status changes of sessions and sets are events, so they are in it too), and
+``chain_hash``, the SHA-256 of the previous row's hash and this row's canonical bytes
+(:func:`link`). The session's own row and its reading sets are in the chain too, by their fixed
+facts only (metadata, plan, bias, purpose ...: what may never change), since their status may.
+Rows outside any session (``session_id`` NULL) form a chain of their own.
+
+Changing a stored value, deleting a row or inserting one in the middle breaks the chain at that row,
+and :mod:`chargebook.acquire.record.verify` says which row of which table it was. The chain carries
+no secret: someone who recomputes every later hash after an edit is not caught by it alone. Note or
+print the head hash (``chargebook verify`` prints it) where the file cannot reach, and a rewritten
+record no longer ends at it.
+
+The sequence is also the record's order of events that does not depend on the wall clock:
+replay places operator actions among the raw lines by it (a clock stepped back during a session
+does not reorder them).
+
+This module is pure (hashlib and json only) so that the migration that chains old files and the
+store that chains new rows compute the same bytes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Sequence
+from typing import Any
+
+#: The hash before a session's first row.
+GENESIS = "0" * 64
+
+
+def _names(text: str) -> tuple[str, ...]:
+    return tuple(text.split())
+
+
+#: The columns each chained table hashes, in this order (``chain_seq`` and ``chain_hash`` apart):
+#: every column of the append-only tables, the fixed facts of sessions and reading sets.
+COLUMNS: dict[str, tuple[str, ...]] = {
+    "sessions": _names("id created_at metadata_json plan_json convention beam replay_of"),
+    "reading_sets": _names(
+        "id session_id step_index step_key purpose polarity bias_V attempt started_at"
+    ),
+    "readings": _names(
+        "id session_id set_id seq t_s charge_nC capture settling status traffic_id recorded_at"
+    ),
+    "environment": _names(
+        "id session_id recorded_at temperature_C pressure_kPa pressure_entered pressure_unit "
+        "humidity_pct source"
+    ),
+    "events": _names("id session_id recorded_at actor kind detail_json account"),
+    "traffic": _names("id session_id t_s recorded_at direction line"),
+}
+#: Columns stored as REAL: hashed as floats, so 1 and 1.0 hash the same as SQLite stores them.
+_REAL = {
+    "sessions": (),
+    "reading_sets": ("bias_V",),
+    "readings": ("t_s", "charge_nC"),
+    "environment": ("temperature_C", "pressure_kPa", "pressure_entered", "humidity_pct"),
+    "events": (),
+    "traffic": ("t_s",),
+}
+_REAL_INDEX = {
+    table: tuple(COLUMNS[table].index(name) for name in names) for table, names in _REAL.items()
+}
+
+#: The chained tables; a session's chain runs across all of them.
+CHAINED_TABLES = tuple(COLUMNS)
+
+
+def canonical(table: str, values: Sequence[Any]) -> bytes:
+    """Return the bytes hashed for one row of ``table`` (values in :data:`COLUMNS` order).
+
+    JSON of the table name and the values, REAL columns as floats, BLOBs as hex text.
+    """
+    row = list(values)
+    for index in _REAL_INDEX[table]:
+        if row[index] is not None:
+            row[index] = float(row[index])
+    row = [
+        value.hex() if isinstance(value, bytes | bytearray | memoryview) else value for value in row
+    ]
+    return json.dumps([table, *row], ensure_ascii=False, separators=(",", ":")).encode()
+
+
+def link(previous_hash: str, seq: int, table: str, values: Sequence[Any]) -> str:
+    """Return the hash of the row at place ``seq`` of its chain, after ``previous_hash``."""
+    digest = hashlib.sha256(f"{previous_hash}:{seq}:".encode())
+    digest.update(canonical(table, values))
+    return digest.hexdigest()
+
+
+def link_traffic(previous_hash: str, seq: int, values: Sequence[Any]) -> str:
+    """Return :func:`link` for a traffic row, the same bytes built faster: raw lines may arrive
+    by the ten thousand a second, and this runs once for each."""
+    row_id, session_id, t_s, recorded_at, direction, line = values
+    if (
+        type(t_s) is float
+        and type(line) is bytes
+        and type(row_id) is int
+        and (session_id is None or type(session_id) is int)
+        and _plain_text(recorded_at)
+        and _plain_text(direction)
+    ):
+        owner_text = "null" if session_id is None else session_id
+        text = (
+            f'{previous_hash}:{seq}:["traffic",{row_id},{owner_text},{t_s!r},'
+            f'"{recorded_at}","{direction}","{line.hex()}"]'
+        )
+        return hashlib.sha256(text.encode()).hexdigest()
+    return link(previous_hash, seq, "traffic", values)
+
+
+def _plain_text(value: object) -> bool:
+    """Return True for text that JSON writes as it is between quotes (no escapes needed)."""
+    return type(value) is str and value.isprintable() and '"' not in value and "\\" not in value
+
+
+def owner(table: str, values: Sequence[Any]) -> int | None:
+    """Return the session a chained row belongs to (its own id for a session row)."""
+    if table == "sessions":
+        return values[0]
+    return values[1]  # session_id is the second column of every other chained table
+
+
+def chain_key(session_id: int | None) -> int:
+    """Return the key of a session's chain in ``chain_heads``: its id, 0 outside sessions."""
+    return 0 if session_id is None else session_id

@@ -1,0 +1,456 @@
+"""The station database schema, as a list of named forward migrations.
+
+The schema version is ``PRAGMA user_version``: the number of migrations applied. Each migration
+runs inside one transaction together with its record in the ``migrations`` table and the new
+``user_version``, so a database is always at exactly one version: a migration that fails leaves
+the previous version untouched.
+
+Migrations only ever move forward. A database written by a newer chargebook (a version above the
+ones known here) is refused rather than guessed at.
+
+Append-only tables (readings, environment, events, traffic) carry ``BEFORE UPDATE`` and
+``BEFORE DELETE`` triggers that abort the statement, and (from ``chain_appended_rows``)
+``BEFORE INSERT`` triggers that refuse a row whose id exists (``INSERT OR REPLACE`` would
+otherwise delete it without a DELETE trigger firing) or that lacks its place in the hash chain.
+Sessions and reading sets may change their status (the store records each change as an event,
+and a trigger refuses a change that is not preceded by its event) but never their recorded
+facts, and are never deleted.
+"""
+
+from __future__ import annotations
+
+import socket
+import uuid
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import UTC, datetime
+
+from chargebook.acquire.record import chain
+from sqlite_utils import Database
+
+SESSION_STATUSES = ("open", "finished", "aborted", "interrupted")
+#: A session in one of these states is closed for good: its status can no longer change.
+SESSION_FINAL_STATUSES = ("finished", "aborted")
+SET_PURPOSES = ("leakage", "warmup", "routine", "opposite", "reduced", "return_check")
+SET_STATUSES = ("collecting", "reviewing", "accepted", "superseded", "interrupted", "aborted")
+#: A reading set in one of these states is closed for good: its status can no longer change.
+SET_FINAL_STATUSES = ("superseded", "aborted")
+CAPTURE_MODES = ("auto", "pushed", "manual")
+TRAFFIC_DIRECTIONS = ("tx", "rx")
+
+APPEND_ONLY_TABLES = ("readings", "environment", "events", "traffic")
+
+
+class SchemaTooNew(RuntimeError):
+    """The database was written by a newer chargebook whose schema this one does not know."""
+
+
+@dataclass(frozen=True, slots=True)
+class Migration:
+    """One forward step of the schema: ``apply`` runs inside the migration's transaction."""
+
+    name: str
+    apply: Callable[[Database], None]
+
+
+def _sql_list(values: tuple[str, ...]) -> str:
+    return ", ".join(f"'{value}'" for value in values)
+
+
+def _refuse_update_trigger(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_update BEFORE UPDATE ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be changed');
+    END;
+    """
+
+
+def _append_only_triggers(table: str) -> str:
+    return (
+        _refuse_update_trigger(table)
+        + f"""
+    CREATE TRIGGER {table}_refuse_delete BEFORE DELETE ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be deleted');
+    END;
+    """
+    )
+
+
+def _facts_fixed_trigger(table: str, fixed_columns: tuple[str, ...], final: tuple[str, ...]) -> str:
+    changed = " OR ".join(f"NEW.{column} IS NOT OLD.{column}" for column in fixed_columns)
+    return f"""
+    CREATE TRIGGER {table}_refuse_fact_change BEFORE UPDATE ON {table}
+    WHEN {changed}
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: only the status of a recorded row may change');
+    END;
+    CREATE TRIGGER {table}_refuse_reopen BEFORE UPDATE OF status ON {table}
+    WHEN OLD.status IN ({_sql_list(final)}) AND NEW.status IS NOT OLD.status
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: a row whose status is final cannot change status');
+    END;
+    CREATE TRIGGER {table}_refuse_delete BEFORE DELETE ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table} rows are kept: a recorded row cannot be deleted');
+    END;
+    """
+
+
+def _create_core_tables(db: Database) -> None:
+    db.executescript(f"""
+    CREATE TABLE sessions (
+        id INTEGER PRIMARY KEY,
+        created_at TEXT NOT NULL,
+        status TEXT NOT NULL CHECK (status IN ({_sql_list(SESSION_STATUSES)})),
+        metadata_json TEXT NOT NULL,
+        plan_json TEXT NOT NULL,
+        convention TEXT NOT NULL,
+        beam TEXT NOT NULL,
+        replay_of INTEGER REFERENCES sessions(id),
+        closed_at TEXT,
+        reason TEXT
+    );
+    CREATE TABLE reading_sets (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        step_index INTEGER NOT NULL CHECK (step_index >= 0),
+        step_key TEXT NOT NULL,
+        purpose TEXT NOT NULL CHECK (purpose IN ({_sql_list(SET_PURPOSES)})),
+        polarity INTEGER NOT NULL CHECK (polarity IN (1, -1)),
+        bias_V REAL NOT NULL,
+        attempt INTEGER NOT NULL CHECK (attempt >= 1),
+        status TEXT NOT NULL CHECK (status IN ({_sql_list(SET_STATUSES)})),
+        reason TEXT,
+        started_at TEXT NOT NULL,
+        ended_at TEXT
+    );
+    CREATE TABLE readings (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        set_id INTEGER NOT NULL REFERENCES reading_sets(id),
+        seq INTEGER NOT NULL,
+        t_s REAL NOT NULL,
+        charge_nC REAL NOT NULL,
+        capture TEXT NOT NULL CHECK (capture IN ({_sql_list(CAPTURE_MODES)})),
+        settling INTEGER NOT NULL CHECK (settling IN (0, 1)),
+        status TEXT NOT NULL,
+        traffic_id INTEGER REFERENCES traffic(id),
+        recorded_at TEXT NOT NULL
+    );
+    CREATE TABLE environment (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        recorded_at TEXT NOT NULL,
+        temperature_C REAL NOT NULL,
+        pressure_kPa REAL NOT NULL,
+        pressure_entered REAL NOT NULL,
+        pressure_unit TEXT NOT NULL,
+        humidity_pct REAL,
+        source TEXT NOT NULL
+    );
+    CREATE TABLE events (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER REFERENCES sessions(id),
+        recorded_at TEXT NOT NULL,
+        actor TEXT NOT NULL,
+        kind TEXT NOT NULL,
+        detail_json TEXT NOT NULL
+    );
+    CREATE TABLE traffic (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER REFERENCES sessions(id),
+        t_s REAL NOT NULL,
+        recorded_at TEXT NOT NULL,
+        direction TEXT NOT NULL CHECK (direction IN ({_sql_list(TRAFFIC_DIRECTIONS)})),
+        line BLOB NOT NULL
+    );
+    {"".join(_append_only_triggers(table) for table in APPEND_ONLY_TABLES)}
+    {
+        _facts_fixed_trigger(
+            "sessions",
+            ("id", "created_at", "metadata_json", "plan_json", "convention", "beam", "replay_of"),
+            SESSION_FINAL_STATUSES,
+        )
+    }
+    {
+        _facts_fixed_trigger(
+            "reading_sets",
+            (
+                "id",
+                "session_id",
+                "step_index",
+                "step_key",
+                "purpose",
+                "polarity",
+                "bias_V",
+                "attempt",
+                "started_at",
+            ),
+            SET_FINAL_STATUSES,
+        )
+    }
+    """)
+
+
+def _index_rows_by_session(db: Database) -> None:
+    db.executescript("""
+    CREATE INDEX reading_sets_by_session ON reading_sets(session_id, step_index, attempt);
+    CREATE INDEX readings_by_session ON readings(session_id, set_id, seq);
+    CREATE INDEX environment_by_session ON environment(session_id);
+    CREATE INDEX events_by_session ON events(session_id);
+    CREATE INDEX traffic_by_session ON traffic(session_id);
+    CREATE INDEX sessions_by_status ON sessions(status);
+    """)
+
+
+def _chain_triggers(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_replace BEFORE INSERT ON {table}
+    WHEN EXISTS (SELECT 1 FROM {table} WHERE id = NEW.id)
+    BEGIN
+        SELECT RAISE(ABORT, '{table} is append-only: a recorded row cannot be replaced');
+    END;
+    CREATE TRIGGER {table}_refuse_unchained BEFORE INSERT ON {table}
+    WHEN NEW.chain_seq IS NULL OR NEW.chain_hash IS NULL
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: a row must be appended with its chain_seq and chain_hash');
+    END;
+    """
+
+
+def _refuse_chain_change_trigger(table: str) -> str:
+    return f"""
+    CREATE TRIGGER {table}_refuse_chain_change BEFORE UPDATE OF chain_seq, chain_hash ON {table}
+    BEGIN
+        SELECT RAISE(ABORT, '{table}: the chain place and hash of a row cannot change');
+    END;
+    """
+
+
+#: The stamp that orders the rows of a table when old files are chained (else recorded_at).
+_STAMP_COLUMNS = {"sessions": "created_at", "reading_sets": "started_at"}
+
+
+def _last_event_is(session: str, kind: str, matches: str) -> str:
+    """Return SQL true when the newest event of ``session`` is a ``kind`` event whose detail
+    ``matches`` (conditions on ``detail_json``)."""
+    return f"""EXISTS (
+        SELECT 1 FROM events
+        WHERE id = (SELECT max(id) FROM events WHERE session_id = {session})
+        AND kind = '{kind}' AND {matches})"""
+
+
+def _detail_is(key: str, column: str) -> str:
+    return f"json_extract(detail_json, '$.{key}') IS NEW.{column}"
+
+
+_STATUS_AUDIT_TRIGGERS = f"""
+    CREATE TRIGGER sessions_refuse_unaudited BEFORE UPDATE OF status, reason, closed_at
+    ON sessions
+    WHEN NOT {
+    _last_event_is(
+        "NEW.id",
+        "session_status",
+        " AND ".join(
+            (
+                _detail_is("to", "status"),
+                _detail_is("reason", "reason"),
+                _detail_is("closed_at", "closed_at"),
+            )
+        ),
+    )
+}
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: a status change must follow its session_status event');
+    END;
+    CREATE TRIGGER reading_sets_refuse_unaudited BEFORE UPDATE OF status, reason, ended_at
+    ON reading_sets
+    WHEN NOT {
+    _last_event_is(
+        "NEW.session_id",
+        "set_status",
+        " AND ".join(
+            (
+                _detail_is("set_id", "id"),
+                _detail_is("to", "status"),
+                _detail_is("reason", "reason"),
+                _detail_is("ended_at", "ended_at"),
+            )
+        ),
+    )
+}
+    BEGIN
+        SELECT RAISE(ABORT, 'reading_sets: a status change must follow its set_status event');
+    END;
+"""
+
+
+def _chain_appended_rows(db: Database) -> None:
+    """Give every appended row its place and hash in its session's chain (see ``chain``).
+
+    Rows already recorded are chained in the order of their stamps (then table, then id), the
+    order replay used for them, so that old files verify and replay as before.
+    """
+    db.execute("ALTER TABLE events ADD COLUMN account TEXT")  # the client's Unix account
+    for table in chain.CHAINED_TABLES:
+        db.execute(f"ALTER TABLE {table} ADD COLUMN chain_seq INTEGER")
+        db.execute(f"ALTER TABLE {table} ADD COLUMN chain_hash TEXT")
+    for table in APPEND_ONLY_TABLES:
+        db.execute(f"DROP TRIGGER {table}_refuse_update")
+    db.execute(
+        "CREATE TABLE chain_heads ("
+        "session_key INTEGER PRIMARY KEY, seq INTEGER NOT NULL, hash TEXT NOT NULL)"
+    )
+    order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
+    rank = {table: index for index, table in enumerate(order)}
+    rows: list[tuple[int, str, int, str, tuple]] = []
+    for table, columns in chain.COLUMNS.items():
+        stamped = _STAMP_COLUMNS.get(table, "recorded_at")
+        sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"
+        for *values, stamp in db.execute(sql).fetchall():
+            key = chain.chain_key(chain.owner(table, values))
+            rows.append((key, stamp, rank[table], table, tuple(values)))
+    heads: dict[int, tuple[int, str]] = {}
+    for key, _stamp, _rank, table, values in sorted(
+        rows, key=lambda r: (r[0], r[1], r[2], r[4][0])
+    ):
+        seq, previous = heads.get(key, (0, chain.GENESIS))
+        digest = chain.link(previous, seq + 1, table, values)
+        db.execute(
+            f"UPDATE {table} SET chain_seq = ?, chain_hash = ? WHERE id = ?",
+            (seq + 1, digest, values[0]),
+        )
+        heads[key] = (seq + 1, digest)
+    db.conn.executemany(
+        "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?)",
+        [(key, seq, digest) for key, (seq, digest) in heads.items()],
+    )
+    for table in APPEND_ONLY_TABLES:
+        _run_triggers(db, _refuse_update_trigger(table))
+    for table in chain.CHAINED_TABLES:
+        _run_triggers(db, _chain_triggers(table))
+    for table in ("sessions", "reading_sets"):
+        _run_triggers(db, _refuse_chain_change_trigger(table))
+    _run_triggers(db, _STATUS_AUDIT_TRIGGERS)
+
+
+def _run_triggers(db: Database, sql: str) -> None:
+    """Create the triggers in ``sql`` one statement at a time, inside the open transaction
+    (``executescript`` would commit it first)."""
+    for statement in sql.split("END;"):
+        if statement.strip():
+            db.execute(statement + "END;")
+
+
+def session_uuid_at_migration(station_uuid: str, session_id: int) -> str:
+    """Return the UUID the migration ``station_identity`` gives a session recorded before it:
+    a name-based UUID (version 5) of the session id in the station's UUID as namespace, so
+    that it is the same whenever it is computed again (and ``verify`` can check it)."""
+    return str(uuid.uuid5(uuid.UUID(station_uuid), f"session {session_id}"))
+
+
+def default_station_name() -> str:
+    """Return the name a station gets until one is configured: the host name."""
+    return socket.gethostname() or "station"
+
+
+_STATION_TRIGGERS = """
+    CREATE TRIGGER station_refuse_identity_change BEFORE UPDATE OF id, uuid, created_at ON station
+    BEGIN
+        SELECT RAISE(ABORT, 'station: the identity of a station cannot change');
+    END;
+    CREATE TRIGGER station_refuse_delete BEFORE DELETE ON station
+    BEGIN
+        SELECT RAISE(ABORT, 'station: the station row cannot be deleted');
+    END;
+    CREATE TRIGGER station_refuse_second BEFORE INSERT ON station
+    WHEN EXISTS (SELECT 1 FROM station)
+    BEGIN
+        SELECT RAISE(ABORT, 'station: a file records one station');
+    END;
+    CREATE TRIGGER sessions_refuse_uuid_change BEFORE UPDATE OF uuid ON sessions
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: the uuid of a session cannot change');
+    END;
+    CREATE TRIGGER sessions_refuse_no_uuid BEFORE INSERT ON sessions
+    WHEN NEW.uuid IS NULL
+    BEGIN
+        SELECT RAISE(ABORT, 'sessions: a session must be recorded with its uuid');
+    END;
+"""
+
+
+def _station_identity(db: Database) -> None:
+    """Give the file a station (a new random UUID and, until configured, the host name) and
+    every session a UUID: sessions recorded before get :func:`session_uuid_at_migration`, new
+    ones a random UUID (version 4) recorded in their ``session_created`` event too."""
+    station_uuid = str(uuid.uuid4())
+    db.execute(
+        "CREATE TABLE station (id INTEGER PRIMARY KEY CHECK (id = 1), uuid TEXT NOT NULL, "
+        "name TEXT NOT NULL, created_at TEXT NOT NULL)"
+    )
+    db.execute(
+        "INSERT INTO station (id, uuid, name, created_at) VALUES (1, ?, ?, ?)",
+        (
+            station_uuid,
+            default_station_name(),
+            datetime.now(UTC).isoformat(timespec="microseconds"),
+        ),
+    )
+    db.execute("ALTER TABLE sessions ADD COLUMN uuid TEXT")
+    ids = [row[0] for row in db.execute("SELECT id FROM sessions").fetchall()]
+    db.conn.executemany(
+        "UPDATE sessions SET uuid = ? WHERE id = ?",
+        [(session_uuid_at_migration(station_uuid, session_id), session_id) for session_id in ids],
+    )
+    db.execute("CREATE UNIQUE INDEX sessions_by_uuid ON sessions(uuid)")
+    _run_triggers(db, _STATION_TRIGGERS)
+
+
+#: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
+MIGRATIONS: tuple[Migration, ...] = (
+    Migration("create_core_tables", _create_core_tables),
+    Migration("index_rows_by_session", _index_rows_by_session),
+    Migration("chain_appended_rows", _chain_appended_rows),
+    Migration("station_identity", _station_identity),
+)
+
+SCHEMA_VERSION = len(MIGRATIONS)
+
+
+def schema_version(db: Database) -> int:
+    """Return the schema version of ``db`` (``PRAGMA user_version``; 0 for a new file)."""
+    return int(db.execute("PRAGMA user_version").fetchone()[0])
+
+
+def migrate(db: Database, upto: int = SCHEMA_VERSION) -> list[str]:
+    """Apply the pending migrations up to version ``upto``; return the names applied, in order.
+
+    Each migration, its row in ``migrations`` and the new ``user_version`` commit together.
+    Raises :class:`SchemaTooNew` for a database newer than this chargebook.
+    """
+    if not 0 <= upto <= SCHEMA_VERSION:
+        raise ValueError(f"upto must be between 0 and {SCHEMA_VERSION}, got {upto}")
+    current = schema_version(db)
+    if current > SCHEMA_VERSION:
+        raise SchemaTooNew(
+            f"the database has schema version {current}, but this chargebook knows versions up "
+            f"to {SCHEMA_VERSION}: open it with the newer chargebook that wrote it"
+        )
+    applied: list[str] = []
+    for version, migration in enumerate(MIGRATIONS[current:upto], start=current + 1):
+        with db.atomic():
+            db.execute(
+                "CREATE TABLE IF NOT EXISTS migrations ("
+                "version INTEGER PRIMARY KEY, name TEXT NOT NULL UNIQUE, applied_at TEXT NOT NULL)"
+            )
+            migration.apply(db)
+            db.execute(
+                "INSERT INTO migrations (version, name, applied_at) VALUES (?, ?, ?)",
+                (version, migration.name, datetime.now(UTC).isoformat(timespec="microseconds")),
+            )
+            db.execute(f"PRAGMA user_version = {version}")
+        applied.append(migration.name)
+    return applied

@@ -1,0 +1,1117 @@
+"""The station's durable record: one SQLite file, written only by the daemon.
+
+Everything a session produced is kept here: the session and its plan and metadata, reading sets,
+readings, environment entries, the audit log of events (who did what, when, and why) and the raw
+instrument traffic. Readings, environment entries, events and traffic are append-only: triggers
+refuse UPDATE and DELETE. Sessions and reading sets may change their status (each change is also
+written as an event, in the same transaction) but never their recorded facts.
+
+Durability: the file is in WAL mode with ``synchronous=FULL``, and every public write method
+commits before it returns. A reading the daemon announces to a client is therefore on disk, and a
+power cut cannot take it back. FULL costs one fsync per commit (about 0.2 ms on the development
+machine's SSD, a few ms on a slow disk); readings arrive a few per minute, and raw lines, which
+may stream by the thousand per second, are committed a burst at a time (``add_traffic_many``),
+so the cost is affordable and NORMAL's risk of losing the last commits on power loss is not
+worth taking for a measurement record.
+
+Threads: the daemon calls the store from its event loop and from the driver's worker thread (raw
+traffic), so one connection is shared under a lock.
+
+Times: ``recorded_at`` columns are UTC ISO 8601 with microseconds, from the injected ``now``
+clock; ``t_s`` columns are seconds on the driver's monotonic clock, as the driver reported them.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import math
+import os
+import shutil
+import sqlite3
+import tempfile
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, fields
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, TypeVar
+
+from chargebook.acquire.record import chain
+from chargebook.acquire.record.migrations import (
+    CAPTURE_MODES,
+    SCHEMA_VERSION,
+    SESSION_FINAL_STATUSES,
+    SESSION_STATUSES,
+    SET_FINAL_STATUSES,
+    SET_PURPOSES,
+    SET_STATUSES,
+    TRAFFIC_DIRECTIONS,
+    SchemaTooNew,
+    migrate,
+    schema_version,
+)
+from chargebook.corrections.errors import InputError
+from sqlite_utils import Database
+
+__all__ = [
+    "CAPTURE_MODES",
+    "SESSION_STATUSES",
+    "SET_PURPOSES",
+    "SET_STATUSES",
+    "TRAFFIC_DIRECTIONS",
+    "EnvironmentRow",
+    "EventRow",
+    "NotFound",
+    "ReadingRow",
+    "SchemaTooNew",
+    "SessionRow",
+    "SetRow",
+    "StationRow",
+    "Store",
+    "StoreError",
+    "TrafficRow",
+    "default_db_path",
+]
+
+#: Who the store names as the actor of the events it writes itself, unless told otherwise.
+DAEMON_ACTOR = "daemon"
+#: How long a reader or the writer waits for the other's lock before giving up, in ms.
+BUSY_TIMEOUT_MS = 5000
+
+
+#: What a damaged file raises when its pages are first read, after it opened; the commands catch
+#: it to say so in words, without importing sqlite3 themselves.
+UnreadableRecord = sqlite3.DatabaseError
+
+
+class StoreError(Exception):
+    """The station database cannot do what was asked (missing file, final status, ...)."""
+
+
+class NotFound(StoreError, KeyError):
+    """A session or reading set with the given id is not in the database."""
+
+    def __str__(self) -> str:
+        return str(self.args[0]) if self.args else "not found"
+
+
+def default_db_path() -> Path:
+    """Return the station database path: ``$XDG_DATA_HOME/chargebook/station.sqlite``.
+
+    Falls back to ``~/.local/share/chargebook/station.sqlite`` when XDG_DATA_HOME is unset or
+    not absolute (as the XDG base directory specification says).
+    """
+    data_home = os.environ.get("XDG_DATA_HOME", "")
+    base = Path(data_home) if os.path.isabs(data_home) else Path.home() / ".local" / "share"
+    return base / "chargebook" / "station.sqlite"
+
+
+def require_writable(path: Path) -> None:
+    """Raise :class:`StoreError` in words unless the daemon can create or write the station
+    database at ``path``: its folder (created if missing) and the file, if it exists."""
+    folder = path.parent
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise StoreError(
+            f"cannot create the folder {folder} for the station database: {error.strerror}; "
+            "choose a writable place with --db FILE"
+        ) from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise StoreError(
+            f"the folder {folder} is not writable by this user, and the station database needs "
+            "its -wal, -shm and lock files beside it; choose a writable place with --db FILE"
+        )
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        raise StoreError(
+            f"the station database {path} is read-only for this user: the daemon must write "
+            "to it; the read-side commands (sessions, show, export, verify) can read it as it "
+            "is, or serve a writable copy"
+        )
+
+
+def _writable(path: Path) -> bool:
+    """Return True when this user can write the file ``path`` and create files beside it."""
+    return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK | os.X_OK)
+
+
+def _require_intact(conn: sqlite3.Connection, path: Path) -> None:
+    """Raise :class:`StoreError` when ``PRAGMA quick_check`` finds the file damaged."""
+    found = [row[0] for row in conn.execute("PRAGMA quick_check(5)").fetchall()]
+    if found != ["ok"]:
+        raise StoreError(
+            f"the file is damaged (SQLite's quick integrity check: "
+            f"{'; '.join(str(f) for f in found)}); restore it from a backup, or start on a new "
+            "file with --db FILE (`sqlite3 FILE .recover` may save what is left)"
+        )
+
+
+def utc_now() -> datetime:
+    """Return the current time, timezone-aware UTC."""
+    return datetime.now(UTC)
+
+
+def utc_stamp_now() -> str:
+    """Return the time now as ``recorded_at`` is written: UTC, ISO 8601, to the microsecond.
+
+    The same text as ``utc_now().isoformat(timespec="microseconds")``, in less than half the
+    time: every raw line is stamped, and lines may arrive by the ten thousand a second.
+    """
+    second, micro = divmod(time.time_ns() // 1000, 1_000_000)
+    return f"{_utc_second(second)}.{micro:06d}+00:00"
+
+
+@functools.lru_cache(maxsize=2)
+def _utc_second(second: int) -> str:
+    """Return the date and time of a whole second since the epoch, UTC, without the offset."""
+    return datetime.fromtimestamp(second, UTC).isoformat(timespec="seconds").removesuffix("+00:00")
+
+
+# --------------------------------------------------------------------------------------- rows
+
+
+@dataclass(frozen=True, slots=True)
+class SessionRow:
+    """One measurement session. ``metadata()`` and ``plan()`` decode the stored JSON."""
+
+    id: int
+    created_at: str
+    status: str
+    metadata_json: str
+    plan_json: str
+    convention: str
+    beam: str
+    replay_of: int | None
+    closed_at: str | None
+    reason: str | None
+    uuid: str | None = None  # the session's global id (migration station_identity)
+
+    def metadata(self) -> dict[str, Any]:
+        return json.loads(self.metadata_json)
+
+    def plan(self) -> dict[str, Any]:
+        return json.loads(self.plan_json)
+
+
+@dataclass(frozen=True, slots=True)
+class StationRow:
+    """The station that keeps this file: its global id and its configured name."""
+
+    uuid: str
+    name: str
+    created_at: str
+
+
+@dataclass(frozen=True, slots=True)
+class SetRow:
+    """One reading set: one attempt at one plan step. ``bias_V`` is signed."""
+
+    id: int
+    session_id: int
+    step_index: int
+    step_key: str
+    purpose: str
+    polarity: int
+    bias_V: float
+    attempt: int
+    status: str
+    reason: str | None
+    started_at: str
+    ended_at: str | None
+
+
+@dataclass(frozen=True, slots=True)
+class ReadingRow:
+    """One charge reading in nC, signed as the instrument reported it."""
+
+    id: int
+    session_id: int
+    set_id: int
+    seq: int
+    t_s: float
+    charge_nC: float
+    capture: str
+    settling: bool
+    status: str
+    traffic_id: int | None
+    recorded_at: str
+
+
+@dataclass(frozen=True, slots=True)
+class EnvironmentRow:
+    """One environment entry: temperature in °C, pressure in kPa (and as entered), RH in %."""
+
+    id: int
+    session_id: int
+    recorded_at: str
+    temperature_C: float
+    pressure_kPa: float
+    pressure_entered: float
+    pressure_unit: str
+    humidity_pct: float | None
+    source: str
+
+
+@dataclass(frozen=True, slots=True)
+class EventRow:
+    """One audit event: who (``actor``) did what (``kind``), when, and ``detail()`` (why)."""
+
+    id: int
+    session_id: int | None
+    recorded_at: str
+    actor: str
+    kind: str
+    detail_json: str
+    account: str | None = None  # the Unix account of the client that asked, if one did
+
+    def detail(self) -> dict[str, Any]:
+        return json.loads(self.detail_json)
+
+
+@dataclass(frozen=True, slots=True)
+class TrafficRow:
+    """One raw line sent to (``tx``) or received from (``rx``) the instrument."""
+
+    id: int
+    session_id: int | None
+    t_s: float
+    recorded_at: str
+    direction: str
+    line: bytes
+
+
+Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+#: Told the row id of a kept raw line once it is written (None when its transaction failed).
+LineIdListener = Callable[[int | None], None]
+#: One raw line to record, in the traffic table's column order:
+#: (session_id, t_s, recorded_at, direction, line bytes).
+TrafficLine = tuple[int | None, float, str, str, bytes]
+
+
+# --------------------------------------------------------------------------------- validation
+
+
+def _require_choice(field: str, value: object, allowed: tuple[Any, ...]) -> None:
+    if value not in allowed or isinstance(value, bool):
+        raise InputError(field, value, ", ".join(str(a) for a in allowed), "is not known")
+
+
+def _require_text(field: str, value: object) -> str:
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(field, value, "a non-empty text", "is empty or not text")
+    return value
+
+
+def _require_int(field: str, value: object, minimum: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise InputError(field, value, f"a whole number ≥ {minimum}", "is not a whole number")
+    if value < minimum:
+        raise InputError(field, value, f"a whole number ≥ {minimum}")
+    return value
+
+
+def _require_finite(field: str, value: object, *, optional: bool = False) -> float | None:
+    if value is None and optional:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        allowed = "a finite number" + (" or None" if optional else "")
+        raise InputError(field, value, allowed, "is not a finite number")
+    return float(value)
+
+
+def _to_json(field: str, value: object) -> str:
+    allowed = "a dict of JSON values with finite numbers"
+    if not isinstance(value, dict):
+        raise InputError(field, value, allowed, "is not a dict")
+    try:
+        return json.dumps(value, sort_keys=True, allow_nan=False, ensure_ascii=False)
+    except (TypeError, ValueError) as error:
+        raise InputError(field, value, allowed, f"cannot be stored as JSON ({error})") from None
+
+
+# -------------------------------------------------------------------------------------- store
+
+
+class Store:
+    """The station database. Every public write method commits before it returns."""
+
+    def __init__(
+        self, db: Database, path: Path | None, now: Callable[[], datetime] = utc_now
+    ) -> None:
+        """Wrap an open, migrated database. Use :meth:`open` or :meth:`memory` instead."""
+        self.db = db
+        self.path = path
+        self._now = now
+        self._lock = threading.RLock()
+        self._pending: list[TrafficLine] = []  # raw lines kept, written with the next commit
+        self._pending_lock = threading.Lock()
+        self._in_flight: list[TrafficLine] = []  # kept lines written in the open transaction
+        #: Beside _pending and _in_flight: whom to tell each kept line's row id (None: nobody).
+        self._pending_told: list[LineIdListener | None] = []
+        self._in_flight_told: list[LineIdListener | None] = []
+        self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
+        self._account: str | None = None  # the Unix account a client's request comes from
+
+    # ------------------------------------------------------------------ opening and closing
+
+    @classmethod
+    def open(
+        cls,
+        path: str | Path,
+        *,
+        read_only: bool = False,
+        now: Callable[[], datetime] = utc_now,
+    ) -> Store:
+        """Open the station database at ``path``: create it and migrate it unless ``read_only``.
+
+        A writable open switches the file to WAL mode, and first checks that the file and its
+        folder can be written and that the file passes SQLite's quick integrity check. A
+        read-only open (the read-side commands, while a daemon may be writing) never creates or
+        migrates: it requires an existing file at the current schema version. A file this user
+        cannot write (an archive, a reviewer's copy, a read-only folder or mount), which SQLite
+        cannot open even read-only in WAL mode, is read through a private snapshot copy, removed
+        on :meth:`close`. Raises :class:`StoreError` naming the path when the file is missing,
+        not a database, damaged, unwritable (writable open), or at another schema version.
+        """
+        path = Path(path).expanduser()
+        if read_only and not path.is_file():
+            raise StoreError(f"no station database at {path} (pass --db FILE to choose one)")
+        if read_only:
+            try:
+                return cls._connect(path, path, read_only=True, now=now)
+            except StoreError:
+                if _writable(path):
+                    raise
+            return cls._open_snapshot(path, now)
+        require_writable(path)
+        store = cls._connect(path, path, read_only=False, now=now)
+        return store
+
+    @classmethod
+    def _connect(
+        cls, path: Path, file: Path, *, read_only: bool, now: Callable[[], datetime]
+    ) -> Store:
+        """Open ``file`` (``path`` itself, or a snapshot copy of it) and prepare it."""
+        target = f"{file.resolve().as_uri()}?mode=ro" if read_only else str(file)
+        conn = sqlite3.connect(target, uri=read_only, check_same_thread=False)
+        try:
+            if not read_only:
+                _require_intact(conn, path)
+            return cls._prepare(conn, path, read_only=read_only, now=now)
+        except sqlite3.DatabaseError as error:
+            conn.close()
+            raise StoreError(f"{path} is not a usable chargebook database: {error}") from None
+        except (SchemaTooNew, StoreError) as error:
+            conn.close()
+            raise StoreError(f"{path}: {error}") from None
+
+    @classmethod
+    def _open_snapshot(cls, path: Path, now: Callable[[], datetime]) -> Store:
+        """Open a private copy of the unwritable file ``path`` (and its ``-wal``, whose
+        committed transactions SQLite applies to the copy), read-only."""
+        folder = Path(tempfile.mkdtemp(prefix="chargebook-snapshot-"))
+        copy = folder / path.name
+        try:
+            shutil.copyfile(path, copy)
+            wal = path.with_name(path.name + "-wal")
+            if wal.is_file():
+                shutil.copyfile(wal, copy.with_name(copy.name + "-wal"))
+            store = cls._connect(path, copy, read_only=True, now=now)
+        except OSError as error:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise StoreError(f"{path} cannot be read: {error.strerror}") from None
+        except BaseException:
+            shutil.rmtree(folder, ignore_errors=True)
+            raise
+        store._snapshot = folder
+        return store
+
+    @classmethod
+    def memory(cls, *, now: Callable[[], datetime] = utc_now) -> Store:
+        """Return a migrated in-memory store (for unit tests: nothing reaches a disk)."""
+        conn = sqlite3.connect(":memory:", check_same_thread=False)
+        return cls._prepare(conn, None, read_only=False, now=now)
+
+    @classmethod
+    def _prepare(
+        cls,
+        conn: sqlite3.Connection,
+        path: Path | None,
+        *,
+        read_only: bool,
+        now: Callable[[], datetime],
+    ) -> Store:
+        db = Database(conn)
+        db.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        db.execute("PRAGMA foreign_keys = ON")
+        if read_only:
+            version = schema_version(db)
+            if version > SCHEMA_VERSION:
+                raise StoreError(
+                    f"schema version {version} was written by a newer chargebook; this one reads "
+                    f"version {SCHEMA_VERSION}: install the newer chargebook to read it"
+                )
+            if version != SCHEMA_VERSION:
+                raise StoreError(
+                    f"schema version {version}, this chargebook reads version {SCHEMA_VERSION}; "
+                    "start the daemon on it once to migrate it"
+                )
+        else:
+            if path is not None:
+                db.enable_wal()
+            db.execute("PRAGMA synchronous = FULL")
+            migrate(db)
+        return cls(db, path, now)
+
+    def close(self) -> None:
+        """Close the database connection (everything written is already committed)."""
+        with self._lock:
+            self.db.close()
+            if self._snapshot is not None:
+                shutil.rmtree(self._snapshot, ignore_errors=True)
+                self._snapshot = None
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    @property
+    def schema_version(self) -> int:
+        """Return the schema version of the open database."""
+        with self._lock:
+            return schema_version(self.db)
+
+    # ---------------------------------------------------------------------------- helpers
+
+    @contextmanager
+    def atomic(self) -> Iterator[Database]:
+        """Hold the lock and run the block in one transaction, committed on exit.
+
+        The outermost block begins IMMEDIATE: it takes the write lock first, so a concurrent
+        writer (a replay, a reviewer's tool) makes it wait up to the busy timeout instead of
+        failing at once, as a deferred transaction that read before writing did. A nested
+        block is a savepoint: an error rolls back that block's rows only.
+
+        The outermost block first writes the raw lines kept with :meth:`keep_traffic`, so that
+        every row it appends comes after them in the session's chain, as it came after them in
+        time; if the transaction fails, those lines are kept again for the next commit.
+        """
+        with self._lock:
+            conn = self.db.conn
+            if conn.in_transaction:
+                with self.db.atomic():  # a savepoint inside the open transaction
+                    yield self.db
+                return
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                self._write_kept_traffic()
+                yield self.db
+            except BaseException:
+                conn.rollback()
+                self._keep_again()
+                raise
+            try:
+                conn.execute("COMMIT")
+            except BaseException:
+                conn.rollback()
+                self._keep_again()
+                raise
+            self._in_flight, self._in_flight_told = [], []
+
+    def _write_kept_traffic(self) -> None:
+        """Append the kept raw lines (lock held, transaction open) and tell each line's
+        listener its row id."""
+        with self._pending_lock:
+            self._in_flight, self._pending = self._pending, []
+            self._in_flight_told, self._pending_told = self._pending_told, []
+        if self._in_flight:
+            first_id = self._append_traffic(self._in_flight) - len(self._in_flight) + 1
+            for offset, told in enumerate(self._in_flight_told):
+                if told is not None:
+                    told(first_id + offset)
+
+    def _keep_again(self) -> None:
+        """Put the lines of a failed transaction back in front of the kept ones."""
+        with self._pending_lock:
+            self._pending[:0] = self._in_flight
+            self._pending_told[:0] = self._in_flight_told
+        for told in self._in_flight_told:
+            if told is not None:
+                told(None)  # not written after all: no row id yet
+        self._in_flight, self._in_flight_told = [], []
+
+    @contextmanager
+    def busy_timeout(self, timeout_ms: int) -> Iterator[None]:
+        """Hold the lock; in the block, wait at most ``timeout_ms`` for another writer's lock
+        (instead of BUSY_TIMEOUT_MS)."""
+        with self._lock:
+            conn = self.db.conn
+            conn.execute(f"PRAGMA busy_timeout = {int(timeout_ms)}")
+            try:
+                yield
+            finally:
+                conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+
+    def checkpoint(self) -> None:
+        """Copy every commit held in the ``-wal`` file into the database file itself."""
+        with self._lock:
+            self.db.conn.execute("PRAGMA wal_checkpoint(FULL)").fetchall()
+
+    def _stamp(self) -> str:
+        if self._now is utc_now:
+            return utc_stamp_now()
+        return self._now().astimezone(UTC).isoformat(timespec="microseconds")
+
+    def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
+        return [cls(*row) for row in self._rows(cls, table, where, params)]
+
+    def _rows(self, cls: type, table: str, where: str, params: tuple = ()) -> list[tuple]:
+        """Return the raw rows of ``table`` with the columns of ``cls``, ordered by id."""
+        sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
+        with self._lock:
+            return self.db.execute(sql, params).fetchall()
+
+    def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
+        found = self._select(cls, table, "id = ?", (row_id,))
+        if not found:
+            raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
+        return found[0]
+
+    def append_row(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
+        and commit it; return its id. For copying a recorded session (a replay): the recording
+        methods above check their values, this one does not."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
+        with self.atomic():
+            return self._append(table, row)
+
+    def _append(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row to a chained table, linked to its session's chain; return its id.
+
+        Call inside :meth:`atomic`. The id is given explicitly (the next one), since the hash
+        covers it; a session row starts its own chain. Columns of ``row`` that the chain does
+        not cover (a status) are stored too; those it covers and ``row`` lacks are NULL.
+        """
+        row_id = self._next_id(table)
+        row = {"id": row_id, **row}
+        values = tuple(row.get(column) for column in chain.COLUMNS[table])
+        key = chain.chain_key(chain.owner(table, values))
+        seq, previous = self._chain_head(key)
+        digest = chain.link(previous, seq + 1, table, values)
+        columns = [*row, "chain_seq", "chain_hash"]
+        self.db.execute(
+            f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join('?' * len(columns))})",
+            (*row.values(), seq + 1, digest),
+        )
+        self._set_chain_head(key, seq + 1, digest)
+        return row_id
+
+    def _append_traffic(self, lines: Sequence[TrafficLine]) -> int:
+        """Append checked raw lines, each linked to its session's chain, in one pass; return
+        the id of the last."""
+        next_id = self._next_id("traffic")
+        heads: dict[int, tuple[int, str]] = {}
+        rows = []
+        for line in lines:
+            key = chain.chain_key(line[0])
+            seq, previous = heads[key] if key in heads else self._chain_head(key)
+            values = (next_id, *line)
+            digest = chain.link_traffic(previous, seq + 1, values)
+            rows.append((*values, seq + 1, digest))
+            heads[key] = (seq + 1, digest)
+            next_id += 1
+        self.db.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        for key, (seq, digest) in heads.items():
+            self._set_chain_head(key, seq, digest)
+        return next_id - 1
+
+    def _next_id(self, table: str) -> int:
+        return int(self.db.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+
+    def _chain_head(self, key: int) -> tuple[int, str]:
+        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
+        row = self.db.execute(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
+        ).fetchone()
+        return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+
+    def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
+        self.db.execute(
+            "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
+            "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
+            (key, seq, digest),
+        )
+
+    @contextmanager
+    def on_behalf_of(self, account: str | None) -> Iterator[None]:
+        """Within the block, record ``account`` (the Unix account of the client whose request
+        is being carried out, from the socket's peer credentials) in the ``account`` column of
+        every event written, beside the operator name the client claims (``actor``)."""
+        with self._lock:
+            previous, self._account = self._account, account
+            try:
+                yield
+            finally:
+                self._account = previous
+
+    def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
+        return self._append(
+            "events",
+            {
+                "session_id": session_id,
+                "recorded_at": self._stamp(),
+                "actor": _require_text("actor", actor),
+                "kind": _require_text("kind", kind),
+                "detail_json": _to_json("detail", detail),
+                "account": self._account,
+            },
+        )
+
+    # ------------------------------------------------------------------------- sessions
+
+    def create_session(
+        self,
+        metadata: dict,
+        plan: dict,
+        convention: str,
+        beam: str,
+        replay_of: int | None = None,
+        actor: str = DAEMON_ACTOR,
+    ) -> int:
+        """Record a new open session and its ``session_created`` event; return its id.
+
+        The session gets a random UUID (version 4), its id across stations, kept in its row and
+        in the event (so that the hash chain covers it).
+        """
+        session_uuid = str(uuid.uuid4())
+        row = {
+            "created_at": self._stamp(),
+            "status": "open",
+            "metadata_json": _to_json("metadata", metadata),
+            "plan_json": _to_json("plan", plan),
+            "convention": _require_text("convention", convention),
+            "beam": _require_text("beam", beam),
+            "replay_of": replay_of,
+            "uuid": session_uuid,
+        }
+        with self.atomic():
+            if replay_of is not None:
+                self._one(SessionRow, "sessions", replay_of, "session")
+            session_id = self._append("sessions", row)
+            self._event(
+                session_id,
+                actor,
+                "session_created",
+                {
+                    "convention": convention,
+                    "beam": beam,
+                    "replay_of": replay_of,
+                    "uuid": session_uuid,
+                },
+            )
+        return session_id
+
+    def open_session(self) -> SessionRow | None:
+        """Return the newest session whose status is open (the one to resume), or None."""
+        rows = self._select(SessionRow, "sessions", "status = 'open'")
+        return rows[-1] if rows else None
+
+    def set_session_status(
+        self, session_id: int, status: str, reason: str | None = None, actor: str = DAEMON_ACTOR
+    ) -> None:
+        """Change a session's status and record the change as a ``session_status`` event.
+
+        Leaving open sets ``closed_at``; returning to open (resuming an interrupted session)
+        clears it. A finished or aborted session is final: changing it raises StoreError.
+        """
+        _require_choice("status", status, SESSION_STATUSES)
+        with self.atomic():
+            old = self._one(SessionRow, "sessions", session_id, "session")
+            if old.status in SESSION_FINAL_STATUSES and status != old.status:
+                raise StoreError(
+                    f"session {session_id} is {old.status}; its status can no longer change"
+                )
+            closed_at = None if status == "open" else (old.closed_at or self._stamp())
+            self._event(  # first: a trigger refuses a status change that is not its last event
+                session_id,
+                actor,
+                "session_status",
+                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
+            )
+            self.db.execute(
+                "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
+                (status, reason, closed_at, session_id),
+            )
+
+    def station(self) -> StationRow:
+        """Return the station that keeps this file (its UUID and name)."""
+        with self._lock:
+            row = self.db.execute("SELECT uuid, name, created_at FROM station").fetchone()
+        return StationRow(*row)
+
+    def name_station(self, name: str, actor: str = DAEMON_ACTOR) -> bool:
+        """Give the station ``name`` (``serve --station-name``), recording the change as a
+        ``station_named`` event outside any session; return False when it had that name."""
+        name = _require_text("station name", name).strip()
+        with self.atomic():
+            old = self.station().name
+            if old == name:
+                return False
+            self._event(None, actor, "station_named", {"from": old, "to": name})
+            self.db.execute("UPDATE station SET name = ?", (name,))
+        return True
+
+    def sessions(self) -> list[SessionRow]:
+        """Return every session, oldest first."""
+        return self._select(SessionRow, "sessions", "1")
+
+    def session(self, session_id: int) -> SessionRow:
+        """Return one session. Raises :class:`NotFound` (a KeyError) when there is none."""
+        return self._one(SessionRow, "sessions", session_id, "session")
+
+    # ---------------------------------------------------------------------- reading sets
+
+    def add_set(
+        self,
+        session_id: int,
+        step_index: int,
+        step_key: str,
+        purpose: str,
+        polarity: int,
+        bias_V: float,
+        attempt: int,
+    ) -> int:
+        """Record a new reading set, status collecting; return its id. ``bias_V`` is signed."""
+        _require_choice("purpose", purpose, SET_PURPOSES)
+        _require_choice("polarity", polarity, (1, -1))
+        bias_V = _require_finite("bias_V", bias_V)
+        if bias_V != 0 and math.copysign(1, bias_V) != polarity:
+            raise InputError(
+                "bias_V", bias_V, f"a bias of sign {polarity:+d}", "contradicts the polarity"
+            )
+        row = {
+            "session_id": session_id,
+            "step_index": _require_int("step_index", step_index, 0),
+            "step_key": _require_text("step_key", step_key),
+            "purpose": purpose,
+            "polarity": polarity,
+            "bias_V": bias_V,
+            "attempt": _require_int("attempt", attempt, 1),
+            "status": "collecting",
+            "started_at": self._stamp(),
+        }
+        with self.atomic():
+            self._one(SessionRow, "sessions", session_id, "session")
+            return self._append("reading_sets", row)
+
+    def set_set_status(
+        self, set_id: int, status: str, reason: str | None = None, actor: str = DAEMON_ACTOR
+    ) -> None:
+        """Change a reading set's status and record the change as a ``set_status`` event.
+
+        Leaving collecting/reviewing sets ``ended_at`` once; going back to collecting clears it.
+        A superseded or aborted set is final: changing it raises StoreError.
+        """
+        _require_choice("status", status, SET_STATUSES)
+        with self.atomic():
+            old = self._one(SetRow, "reading_sets", set_id, "reading set")
+            if old.status in SET_FINAL_STATUSES and status != old.status:
+                raise StoreError(
+                    f"reading set {set_id} is {old.status}; its status can no longer change"
+                )
+            if status == "collecting":
+                ended_at = None
+            elif status == "reviewing":
+                ended_at = old.ended_at
+            else:
+                ended_at = old.ended_at or self._stamp()
+            self._event(  # first: a trigger refuses a status change that is not its last event
+                old.session_id,
+                actor,
+                "set_status",
+                {
+                    "set_id": set_id,
+                    "step_key": old.step_key,
+                    "attempt": old.attempt,
+                    "from": old.status,
+                    "to": status,
+                    "reason": reason,
+                    "ended_at": ended_at,
+                },
+            )
+            self.db.execute(
+                "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
+                (status, reason, ended_at, set_id),
+            )
+
+    def sets(self, session_id: int) -> list[SetRow]:
+        """Return the session's reading sets, oldest first (superseded attempts included)."""
+        return self._select(SetRow, "reading_sets", "session_id = ?", (session_id,))
+
+    def reading_set(self, set_id: int) -> SetRow:
+        """Return one reading set. Raises :class:`NotFound` (a KeyError) when there is none."""
+        return self._one(SetRow, "reading_sets", set_id, "reading set")
+
+    # --------------------------------------------------------------------------- readings
+
+    def add_reading(
+        self,
+        session_id: int,
+        set_id: int,
+        seq: int,
+        t_s: float,
+        charge_nC: float,
+        capture: str,
+        settling: bool,
+        status: str,
+        traffic_id: int | None = None,
+    ) -> int:
+        """Record one charge reading (nC, signed) and commit it; return its id."""
+        _require_choice("capture", capture, CAPTURE_MODES)
+        if not isinstance(settling, bool | int) or settling not in (0, 1):
+            raise InputError("settling", settling, "True or False", "is not a yes/no value")
+        row = {
+            "session_id": session_id,
+            "set_id": set_id,
+            "seq": _require_int("seq", seq, 0),
+            "t_s": _require_finite("t_s", t_s),
+            "charge_nC": _require_finite("charge_nC", charge_nC),
+            "capture": capture,
+            "settling": int(settling),
+            "status": _require_text("status", status),
+            "traffic_id": traffic_id,
+            "recorded_at": self._stamp(),
+        }
+        with self.atomic():
+            reading_set = self._one(SetRow, "reading_sets", set_id, "reading set")
+            if reading_set.session_id != session_id:
+                raise InputError(
+                    "set_id",
+                    set_id,
+                    f"a reading set of session {session_id}",
+                    f"belongs to session {reading_set.session_id}",
+                )
+            return self._append("readings", row)
+
+    def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
+        """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
+        if set_id is None:
+            rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
+        else:
+            rows = self._rows(
+                ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
+            )
+        return [_reading_row(row) for row in rows]
+
+    # ------------------------------------------------------------------------ environment
+
+    def add_environment(
+        self,
+        session_id: int,
+        temperature_C: float,
+        pressure_kPa: float,
+        pressure_entered: float,
+        pressure_unit: str,
+        humidity_pct: float | None,
+        source: str,
+    ) -> int:
+        """Record one environment entry (°C, kPa and the pressure as entered, % RH); its id.
+
+        Ranges are the physics library's business; the store refuses only what is not a
+        finite number.
+        """
+        row = {
+            "session_id": session_id,
+            "recorded_at": self._stamp(),
+            "temperature_C": _require_finite("temperature_C", temperature_C),
+            "pressure_kPa": _require_finite("pressure_kPa", pressure_kPa),
+            "pressure_entered": _require_finite("pressure_entered", pressure_entered),
+            "pressure_unit": _require_text("pressure_unit", pressure_unit),
+            "humidity_pct": _require_finite("humidity_pct", humidity_pct, optional=True),
+            "source": _require_text("source", source),
+        }
+        with self.atomic():
+            self._one(SessionRow, "sessions", session_id, "session")
+            return self._append("environment", row)
+
+    def environment(self, session_id: int) -> list[EnvironmentRow]:
+        """Return the session's environment entries, oldest first (the last one is current)."""
+        return self._select(EnvironmentRow, "environment", "session_id = ?", (session_id,))
+
+    # ----------------------------------------------------------------------------- events
+
+    def add_event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
+        """Record one audit event (who, what, and why in ``detail``); return its id."""
+        with self.atomic():
+            if session_id is not None:
+                self._one(SessionRow, "sessions", session_id, "session")
+            return self._event(session_id, actor, kind, detail)
+
+    def events(self, session_id: int | None) -> list[EventRow]:
+        """Return the session's events, oldest first (``None``: events outside any session)."""
+        if session_id is None:
+            return self._select(EventRow, "events", "session_id IS NULL")
+        return self._select(EventRow, "events", "session_id = ?", (session_id,))
+
+    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+        """Return the rows of one query, run under the store's lock (for ``verify``)."""
+        with self._lock:
+            return self.db.execute(sql, params).fetchall()
+
+    def chain_places(self, table: str, session_id: int) -> dict[int, int]:
+        """Return row id -> place in the session's chain (``chain_seq``) for the session's rows
+        of the chained ``table``: the order in which the session's rows happened, across
+        tables, whatever the wall clock said."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        with self._lock:
+            rows = self.db.execute(
+                f"SELECT id, chain_seq FROM {table} WHERE session_id = ?", (session_id,)
+            ).fetchall()
+        return {int(row_id): int(seq) for row_id, seq in rows}
+
+    def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
+        """Return the newest event of one of ``kinds``, in any session or none; None if none."""
+        marks = ", ".join("?" for _ in kinds)
+        found = self._select(
+            EventRow,
+            "events",
+            f"id = (SELECT max(id) FROM events WHERE kind IN ({marks}))",
+            tuple(kinds),
+        )
+        return found[0] if found else None
+
+    def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
+        """Return the session's events newer than ``event_id``, oldest first."""
+        return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
+
+    # ---------------------------------------------------------------------------- traffic
+
+    def add_traffic(self, session_id: int | None, t_s: float, direction: str, line: bytes) -> int:
+        """Record one raw instrument line exactly as sent or received; return its id."""
+        row = dict(
+            zip(
+                _TRAFFIC_COLUMNS,
+                _traffic_row((session_id, t_s, self._stamp(), direction, line)),
+                strict=True,
+            )
+        )
+        with self.atomic():
+            if session_id is not None:
+                self._one(SessionRow, "sessions", session_id, "session")
+            return self._append_traffic([tuple(row.values())])
+
+    def stamp(self) -> str:
+        """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
+        return self._stamp()
+
+    def add_traffic_many(self, lines: Sequence[TrafficLine]) -> int:
+        """Record raw instrument lines in one commit; return how many were recorded.
+
+        Each line is (session_id, t_s, recorded_at, direction, line bytes), ``recorded_at``
+        taken with :meth:`stamp` when the line was sent or received, so that the record keeps
+        the order of lines and events even though the lines are written a burst at a time (one
+        commit, one fsync, is what lets the daemon keep up with an instrument that streams
+        thousands of lines a second). Every line is checked before anything is written: one
+        bad line refuses the whole call.
+        """
+        rows = [_traffic_row(line) for line in lines]
+        with self.atomic():
+            for session_id in {row[0] for row in rows} - {None}:
+                self._one(SessionRow, "sessions", session_id, "session")
+            self._append_traffic(rows)
+        return len(rows)
+
+    def keep_traffic(self, line: TrafficLine, told: LineIdListener | None = None) -> None:
+        """Keep one raw line (see :meth:`add_traffic_many` for its shape) to be written with the
+        next commit, before anything that commit appends: the order of the session's chain is
+        the order in which lines and events happened. Cheap, and safe from any thread.
+
+        ``told(row_id)`` is called when the line is written (``told(None)`` if that
+        transaction fails): a sample read from the line then names it by id.
+        """
+        row = _traffic_row(line)
+        with self._pending_lock:
+            self._pending.append(row)
+            self._pending_told.append(told)
+
+    def kept_traffic_count(self) -> int:
+        """Return how many raw lines are kept, not yet committed (safe from any thread)."""
+        with self._pending_lock:
+            return len(self._pending) + len(self._in_flight)
+
+    def commit_traffic(self) -> int:
+        """Write the raw lines kept so far in one commit; return how many there were."""
+        with self._pending_lock:
+            count = len(self._pending)
+        if count:
+            with self.atomic():
+                pass  # the outermost block writes the kept lines first
+        return count
+
+    def traffic_count(self, session_id: int | None) -> int:
+        """Return how many raw lines were recorded for the session (``None``: outside any)."""
+        where = "session_id IS NULL" if session_id is None else "session_id = ?"
+        params = () if session_id is None else (session_id,)
+        with self._lock:
+            return int(
+                self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
+            )
+
+    def newest_traffic_id(self) -> int:
+        """Return the id of the newest raw line recorded (0 when there is none)."""
+        with self._lock:
+            return int(self.db.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
+
+    def traffic(self, session_id: int | None) -> list[TrafficRow]:
+        """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""
+        if session_id is None:
+            return self._select(TrafficRow, "traffic", "session_id IS NULL")
+        return self._select(TrafficRow, "traffic", "session_id = ?", (session_id,))
+
+
+_TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
+_INSERT_CHAINED = {
+    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
+}
+
+
+def _traffic_row(line: TrafficLine) -> TrafficLine:
+    """Return one raw line, checked, as a row in the order of _TRAFFIC_COLUMNS."""
+    session_id, t_s, recorded_at, direction, data = line
+    if (
+        type(t_s) is float
+        and math.isfinite(t_s)
+        and type(data) is bytes
+        and direction in TRAFFIC_DIRECTIONS
+        and type(recorded_at) is str
+        and recorded_at
+    ):
+        return line  # the common case, checked at the speed lines arrive
+    _require_choice("direction", direction, TRAFFIC_DIRECTIONS)
+    if not isinstance(data, bytes | bytearray | memoryview):
+        raise InputError("line", data, "the raw bytes of the line", "is not bytes")
+    _require_text("recorded_at", recorded_at)
+    return (session_id, _require_finite("t_s", t_s), recorded_at, direction, bytes(data))
+
+
+@functools.cache
+def _column_list(cls: type) -> str:
+    """Return the columns of a row dataclass, in field order, for a SELECT."""
+    return ", ".join(field.name for field in fields(cls))
+
+
+_SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
+
+
+def _reading_row(row: tuple) -> ReadingRow:
+    """Return a ReadingRow from its raw columns, ``settling`` as a bool (stored 0 or 1)."""
+    return ReadingRow(*row[:_SETTLING], bool(row[_SETTLING]), *row[_SETTLING + 1 :])

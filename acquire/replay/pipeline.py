@@ -1,0 +1,211 @@
+"""The replay's pipeline: the playback simulator process, the real driver and the real engine.
+
+:func:`run_pipeline` starts ``chargebook simulate --playback`` on the recorded lines (a process
+of its own, on a real pseudo-terminal), opens the profile's driver on it with the
+:class:`~chargebook.acquire.replay.traffic.TrafficFollower` as its clock and traffic listener,
+starts the session again in a new engine on a scratch store in memory, and lets the
+:class:`~chargebook.acquire.replay.conductor.Conductor` play the recording through them.
+"""
+
+from __future__ import annotations
+
+import tempfile
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.conductor import ArmingClock, Conductor, Pacer, WhatIfStop
+from chargebook.acquire.replay.recording import RecordedLine, Recording
+from chargebook.acquire.replay.traffic import TrafficFollower, write_playback_log
+from chargebook.corrections.stability import Thresholds
+
+#: Who the replay names as the actor of the events it writes itself.
+REPLAY_ACTOR = "replay"
+#: The event a replayed session starts with: what was replayed, and how.
+REPLAY_EVENT = "replay"
+
+
+@dataclass(frozen=True)
+class Setup:
+    """What a replay runs: the recording, the lines to play, and how the engine is set up.
+
+    ``strict``: an unchanged replay, which stops at the first line that does not fit.
+    """
+
+    recording: Recording
+    lines: tuple[RecordedLine, ...]
+    profile: Any
+    plan: Any
+    thresholds: Thresholds
+    time_scale: float
+    strict: bool
+
+
+@dataclass
+class PipelineRun:
+    """The replayed session in its scratch store, and why it stopped early if it did."""
+
+    store: Store
+    session_id: int
+    stopped: str | None
+    notes: list[str]
+
+
+def replayed(actor: str) -> str:
+    """Return the actor a replayed action is recorded under."""
+    return f"{actor} (replayed)"
+
+
+def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> PipelineRun:
+    """Run the recording through the playback simulator, the driver and the engine.
+
+    ``speed`` paces it (0: as fast as possible); ``detail`` is written with the session's
+    ``replay`` event. Raises Divergence (strict) or TrafficLogError where the recording does
+    not fit; a what-if that cannot go on comes back with ``stopped`` set.
+    """
+    from chargebook.acquire.processes import start_child, stop_child
+    from chargebook.drivers_generic import build_electrometer
+
+    with tempfile.TemporaryDirectory(prefix="chargebook-replay-") as work:
+        playback = write_playback_log(setup.profile, setup.lines, Path(work) / "playback.jsonl")
+        simulator = start_child(
+            "simulated electrometer (playback)",
+            [
+                "simulate", "--serial", "--profile", setup.profile.name,
+                "--playback", str(playback), "--speed", str(speed),
+            ],
+            Path(work) / "simulator.log",
+        )  # fmt: skip
+        try:
+            same = None if setup.strict else same_command(setup.profile)
+            follower = TrafficFollower(setup.lines, setup.profile, same_command=same)
+            driver = build_electrometer(
+                setup.profile,
+                port=simulator.info["serial"],
+                traffic=follower,
+                clock=follower.clock,
+            )
+            return _play(setup, speed, detail, follower, driver)
+        finally:
+            stop_child(simulator.process)
+
+
+def _play(
+    setup: Setup, speed: float, detail: dict[str, Any], follower: TrafficFollower, driver: Any
+) -> PipelineRun:
+    """Start the session again in a new engine and play the recording through the driver."""
+    recording = setup.recording
+    store = Store.memory()
+    start = _starting_line(setup.profile)
+    clock = ArmingClock(
+        recording.armed_times_s,
+        played=lambda: follower.played_t_s,
+        until=lambda: follower.next_sent_t_s(start),
+        otherwise=lambda: follower.last_t_s,
+    )
+    new_engine = _engine_factory(setup, store, clock)
+    engine = new_engine()
+    session_id = engine.start_session(
+        recording.session.metadata(), setup.plan, actor=replayed(recording.start_actor)
+    )
+    follower.attach(store, session_id)
+    store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
+    conductor = Conductor(
+        engine,
+        driver,
+        follower,
+        recording.inputs,
+        strict=setup.strict,
+        pacer=Pacer(speed),
+        actor=replayed,
+        original_lines=recording.lines,
+        session_id=recording.session_id,
+        restart=lambda: _restarted(new_engine()),
+        captured_times_s=recording.captured_times_s,
+    )
+    stopped = None
+    driver.open()
+    try:
+        conductor.run()
+    except WhatIfStop as stop:
+        stopped = _plan_words(engine) or str(stop)
+    finally:
+        driver.close()
+    notes = [
+        f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
+        f"{n.recorded!r}"
+        for n in follower.notes
+    ]
+    return PipelineRun(store, session_id, stopped, notes)
+
+
+def _plan_words(engine: Any) -> str | None:
+    """Return why a what-if stopped, in words about the plan, when the recording ran out while
+    the new plan still asked for readings ("the new plan asks for 6 routine readings; ...")."""
+    step, active = engine.step, engine.active
+    if step is None or active is None or not engine.wants_samples():
+        return None
+    purpose = str(step.purpose).replace("_", " ")
+    return (
+        f"the new plan asks for {int(step.readings)} {purpose} readings at step "
+        f"{engine.step_index + 1} ({step.key}); the recording holds {active.used_count}"
+    )
+
+
+def _starting_line(profile: Any) -> str | None:
+    """Return the line that begins a reading's integration (start, else zero), if any: each
+    arming sends it, and nothing else does."""
+    for name in ("start", "zero"):
+        if name in profile.commands:
+            return profile.command(name).templates[0]
+    return None
+
+
+def _engine_factory(setup: Setup, store: Store, clock: ArmingClock) -> Callable[[], Engine]:
+    """Return a maker of engines set up as the session's daemon set up its own."""
+
+    def new_engine() -> Engine:
+        return Engine(
+            store,
+            capabilities=setup.profile.capabilities,
+            clock=clock,
+            default_plan=setup.plan,
+            profile=setup.profile.name,
+            time_scale=setup.time_scale,
+            thresholds=setup.thresholds,
+        )
+
+    return new_engine
+
+
+def _restarted(engine: Engine) -> Engine:
+    """Return ``engine`` resuming the open session, as a daemon started again on the same file
+    does it (``Daemon.run``): not yet connected to the instrument."""
+    engine.instrument_connected = False
+    engine.instrument_message = "connecting to the electrometer"
+    engine.restore()
+    return engine
+
+
+def same_command(profile: Any) -> Callable[[str, str], bool]:
+    """Return a test of whether two sent lines are the same command of ``profile`` (a what-if
+    plan may send a command with other values, such as another bias)."""
+    from chargebook.drivers_generic.simulator.dialect import template_pattern
+
+    patterns = [
+        (spec.name, template_pattern(template))
+        for spec in profile.commands.values()
+        for template in spec.templates
+    ]
+
+    def name_of(text: str) -> str | None:
+        return next((name for name, pattern in patterns if pattern.fullmatch(text)), None)
+
+    def same(recorded: str, sent: str) -> bool:
+        name = name_of(recorded)
+        return name is not None and name == name_of(sent)
+
+    return same

@@ -1,0 +1,279 @@
+"""The recorded traffic during a replay: the playback log, a user's traffic log, and the follower.
+
+* :func:`write_playback_log` writes the lines the simulated electrometer plays back (JSON lines
+  of ``t_s``, ``dir``, ``line``; see ``drivers_generic.simulator.playback``).
+* :func:`read_traffic_log` reads such a log given by the user (``--traffic-log``) in place of
+  the traffic stored with the session, and refuses a corrupted or truncated one before anything
+  runs, naming the session, the line and what is wrong.
+* :class:`TrafficFollower` is the driver's clock and traffic listener while it replays: every
+  line the driver sends or receives must be the next recorded line (the replay stops, naming
+  the line, where it is not), gets the time the line was recorded with, and is written to the
+  replay's session as its own traffic.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.replay.recording import NotReplayable, RecordedLine, Recording
+from chargebook.drivers_generic.interface import TrafficDirection
+from chargebook.drivers_generic.profile import Profile
+
+TX, RX = TrafficDirection.SENT.value, TrafficDirection.RECEIVED.value
+
+
+class TrafficLogError(NotReplayable):
+    """A traffic log is corrupted or truncated; the message names the session, line and fault."""
+
+
+class Divergence(Exception):
+    """The replay did not follow the recording; the message says where and how."""
+
+
+# ------------------------------------------------------------------------------- line text
+def terminator(profile: Profile, direction: str) -> bytes:
+    """Return the terminator of lines going ``direction`` (tx: write, rx: read)."""
+    framing = profile.framing
+    return framing.write_terminator if direction == TX else framing.read_terminator
+
+
+def line_text(profile: Profile, line: RecordedLine) -> str:
+    """Return a recorded line as text without its terminator (undecodable bytes escaped)."""
+    end = terminator(profile, line.direction)
+    body = line.raw[: -len(end)] if line.raw.endswith(end) else line.raw
+    return body.decode(profile.framing.encoding, errors="surrogateescape")
+
+
+def line_bytes(profile: Profile, direction: str, text: str) -> bytes:
+    """Return the raw bytes of a line of text going ``direction``, terminator included."""
+    try:
+        body = text.encode(profile.framing.encoding, errors="surrogateescape")
+    except UnicodeEncodeError:
+        body = text.encode("utf-8", errors="surrogateescape")
+    return body + terminator(profile, direction)
+
+
+def shown(text: str, limit: int = 60) -> str:
+    """Return a line for a message: quoted, undecodable bytes visible, cut at ``limit``."""
+    visible = text.encode("utf-8", errors="surrogateescape").decode("utf-8", errors="replace")
+    return repr(visible if len(visible) <= limit else visible[:limit] + "...")
+
+
+# -------------------------------------------------------------------------------- the logs
+def write_playback_log(profile: Profile, lines: Sequence[RecordedLine], path: Path) -> Path:
+    """Write the lines as a playback log for ``chargebook simulate --playback``; return it."""
+    text = "".join(
+        json.dumps({"t_s": line.t_s, "dir": line.direction, "line": line_text(profile, line)})
+        + "\n"
+        for line in lines
+    )
+    path.write_text(text, encoding="utf-8", errors="surrogateescape")
+    return path
+
+
+def read_traffic_log(
+    path: Path, recording: Recording, profile: Profile, where: Sequence[str]
+) -> tuple[RecordedLine, ...]:
+    """Return the lines of the traffic log at ``path``, to replay in place of the stored ones.
+
+    ``where[i]`` says in words where the session stood at stored line ``i`` (see
+    ``replay_compare.traffic_positions``). Raises TrafficLogError for a line that is not a
+    valid entry, a direction other than the one recorded there, or a log with fewer or more
+    lines than the session recorded.
+    """
+    from chargebook.drivers_generic.simulator.playback import PlaybackLogError, read_log
+
+    session = recording.session_id
+    try:
+        entries = read_log(path)
+    except PlaybackLogError as error:
+        raise TrafficLogError(f"traffic log for session {session}: {error}") from None
+    except (OSError, UnicodeError) as error:
+        raise TrafficLogError(f"traffic log {path} cannot be read: {error}") from None
+    stored = recording.lines
+    _refuse_a_missing_or_repeated_line(path, session, entries, stored, profile, where)
+    if len(entries) < len(stored):
+        last = len(entries)
+        raise TrafficLogError(
+            f"traffic log {path} for session {session} is truncated: it ends after line {last}, "
+            f"the session recorded {len(stored)} lines; it stops {where[last]}"
+        )
+    if len(entries) > len(stored):
+        raise TrafficLogError(
+            f"traffic log {path} has {len(entries)} lines, session {session} recorded "
+            f"{len(stored)}: line {len(stored) + 1} onwards belongs to no part of the session"
+        )
+    lines = []
+    for index, ((t_s, direction, text), original) in enumerate(zip(entries, stored, strict=True)):
+        if direction != original.direction:
+            raise TrafficLogError(
+                f"traffic log {path} line {index + 1}: dir = {direction!r} is not allowed; "
+                f"session {session} recorded {original.direction!r} there ({where[index]})"
+            )
+        lines.append(RecordedLine(index, t_s, direction, line_bytes(profile, direction, text)))
+    return tuple(lines)
+
+
+def _refuse_a_missing_or_repeated_line(
+    path: Path,
+    session: int,
+    entries: Sequence[tuple[float, str, str]],
+    stored: Sequence[RecordedLine],
+    profile: Profile,
+    where: Sequence[str],
+) -> None:
+    """Raise TrafficLogError naming the line if the log is the session's traffic with one line
+    deleted from its middle or one line written twice; return otherwise."""
+    if abs(len(entries) - len(stored)) != 1:
+        return
+
+    def same(entry: tuple[float, str, str], line: RecordedLine) -> bool:
+        _, direction, text = entry
+        return direction == line.direction and line_bytes(profile, direction, text) == line.raw
+
+    first = next(
+        (i for i, (e, line) in enumerate(zip(entries, stored, strict=False)) if not same(e, line)),
+        min(len(entries), len(stored)),
+    )
+    counts = (
+        f"traffic log {path} has {len(entries)} lines, session {session} recorded {len(stored)}"
+    )
+    if len(entries) < len(stored) and first < len(entries):
+        rest = zip(entries[first:], stored[first + 1 :], strict=True)
+        if all(same(entry, line) for entry, line in rest):
+            missing = stored[first]
+            raise TrafficLogError(
+                f"{counts}: line {first + 1} of the session ({missing.direction} "
+                f"{shown(line_text(profile, missing))}, {where[first]}) is missing from the log, "
+                f"deleted between log lines {first} and {first + 1}"
+            )
+    if len(entries) > len(stored) and first > 0:
+        rest = zip(entries[first + 1 :], stored[first:], strict=True)
+        if same(entries[first], stored[first - 1]) and all(same(e, line) for e, line in rest):
+            raise TrafficLogError(
+                f"{counts}: log line {first + 1} repeats line {first} "
+                f"({shown(entries[first][2])}), a line written twice"
+            )
+
+
+# ---------------------------------------------------------------------------- the follower
+@dataclass(frozen=True, slots=True)
+class TrafficNote:
+    """A line a what-if replay sent differently from the recording (same command)."""
+
+    index: int
+    recorded: str
+    sent: str
+
+
+class TrafficFollower:
+    """The driver's clock and traffic listener during a replay (see the module docstring).
+
+    ``same_command(recorded, sent)`` decides whether a sent line that differs from the
+    recorded one is still the same command (a what-if plan sets another bias): then it is
+    noted, not refused. Without it every difference stops the replay.
+    """
+
+    def __init__(
+        self,
+        lines: Sequence[RecordedLine],
+        profile: Profile,
+        *,
+        same_command: Callable[[str, str], bool] | None = None,
+    ) -> None:
+        self.lines = tuple(lines)
+        self.profile = profile
+        self.same_command = same_command
+        self.position = 0
+        #: While a recorded input is applied: its place (lines recorded before it).
+        self.input_position: int | None = None
+        self.notes: list[TrafficNote] = []
+        self.store: Store | None = None
+        self.session_id: int | None = None
+        #: The row id of the latest received line written: the line a sample came from.
+        self.last_received_id: int | None = None
+        self._last_t_s = self.lines[0].t_s if self.lines else 0.0
+
+    def attach(self, store: Store, session_id: int) -> None:
+        """Write the lines from now on to ``session_id`` in ``store``."""
+        self.store, self.session_id = store, session_id
+
+    @property
+    def finished(self) -> bool:
+        """Return True once every recorded line has been seen."""
+        return self.position >= len(self.lines)
+
+    @property
+    def last_t_s(self) -> float:
+        """Return the recorded time of the latest line seen (the first line's before any)."""
+        return self._last_t_s
+
+    @property
+    def played_t_s(self) -> float:
+        """Return the recorded time of the latest line seen (-inf before any).
+
+        While a recorded input is applied (``input_position`` set), the latest line recorded
+        before that input: lines read since (lines pushed before a command's answer, read with
+        it) came after the input in the original.
+        """
+        if self.input_position is not None and self.input_position < self.position:
+            return self.lines[self.input_position - 1].t_s if self.input_position else -math.inf
+        return self._last_t_s if self.position else -math.inf
+
+    def clock(self) -> float:
+        """Return the recorded time of the next line: the driver stamps that line with it."""
+        if self.position < len(self.lines):
+            return self.lines[self.position].t_s
+        return self._last_t_s
+
+    def next_sent_t_s(self, text: str | None) -> float:
+        """Return the recorded time of the next line sent that reads ``text`` (inf: none)."""
+        for line in self.lines[self.position :]:
+            if line.direction == TX and self.text(line) == text:
+                return line.t_s
+        return math.inf
+
+    def text(self, line: RecordedLine) -> str:
+        """Return a recorded line as text (see :func:`line_text`)."""
+        return line_text(self.profile, line)
+
+    def __call__(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        """Check one line against the recording, then write it to the replay's session."""
+        direction = TrafficDirection(direction)
+        self._check(direction.value, bytes(raw))
+        self._last_t_s = t_s
+        if self.store is not None:
+            line_id = self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            if direction is TrafficDirection.RECEIVED:
+                self.last_received_id = line_id
+        self.position += 1
+
+    def _check(self, direction: str, raw: bytes) -> None:
+        verb = "sent" if direction == TX else "received"
+        got = line_text(self.profile, RecordedLine(self.position, 0.0, direction, raw))
+        if self.position >= len(self.lines):
+            raise Divergence(
+                f"after the last recorded line ({len(self.lines)}) the replay {verb} {shown(got)}"
+            )
+        expected = self.lines[self.position]
+        if expected.direction == direction and expected.raw == raw:
+            return
+        recorded = self.text(expected)
+        number = self.position + 1
+        if (
+            direction == TX == expected.direction
+            and self.same_command is not None
+            and self.same_command(recorded, got)
+        ):
+            self.notes.append(TrafficNote(self.position, recorded, got))
+            return
+        said = "sent" if expected.direction == TX else "received"
+        raise Divergence(
+            f"at traffic line {number} the replay {verb} {shown(got)} where the original "
+            f"{said} {shown(recorded)}"
+        )

@@ -1,0 +1,107 @@
+"""The audit of a session in words: "Step 6, return-to-start check: redone, reason ...".
+
+Steps are numbered from 1, as the console numbers them, and named by their purpose in words;
+each event says what happened and why, never as stored keys (``step_index: 5``).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from chargebook.acquire.record.store import EventRow
+from chargebook.acquire.reports.data import SessionRecord
+
+#: A plan step's purpose, in words.
+PURPOSE_WORDS = {
+    "leakage": "leakage",
+    "warmup": "pre-irradiation",
+    "routine": "routine setting",
+    "opposite": "opposite polarity",
+    "reduced": "reduced bias",
+    "return_check": "return-to-start check",
+}
+#: What a set's final status means for its step.
+SET_OUTCOMES = {"superseded": "redone", "aborted": "abandoned", "interrupted": "interrupted"}
+
+
+def step_words(step_index: int, purpose: str) -> str:
+    """Return a step as the console names it: "Step 6, return-to-start check" (from 1)."""
+    return f"Step {step_index + 1}, {PURPOSE_WORDS.get(purpose, purpose.replace('_', ' '))}"
+
+
+def _step_of(record: SessionRecord, step_index: int | None, step_key: str) -> str:
+    if step_index is None:
+        return step_key
+    plan = record.plan
+    purpose = (
+        plan.steps[step_index].purpose if plan and 0 <= step_index < len(plan.steps) else step_key
+    )
+    return step_words(step_index, purpose)
+
+
+def _volts(value: Any) -> str:
+    return f"{float(value):+g} V" if isinstance(value, int | float) else str(value)
+
+
+def _reason(reason: Any) -> str:
+    return f"reason: {reason}" if reason else "no reason given"
+
+
+def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
+    """Return (what happened, its detail) for one audit event, in words."""
+    detail = event.detail()
+    kind = event.kind
+    if kind == "set_status":
+        rows = {s.row.id: s.row for s in record.sets}
+        row = rows.get(detail.get("set_id"))
+        step = (
+            _step_of(record, row.step_index, row.step_key)
+            if row
+            else str(detail.get("step_key", "?"))
+        )
+        outcome = SET_OUTCOMES.get(detail.get("to"), str(detail.get("to")))
+        return (
+            f"{step}: {outcome}",
+            f"attempt {detail.get('attempt', '?')} (set {detail.get('set_id')}) "
+            f"{detail.get('to')}, {_reason(detail.get('reason'))}",
+        )
+    if kind == "step_skipped":
+        step = _step_of(record, detail.get("step_index"), str(detail.get("step_key", "?")))
+        return f"{step}: skipped", "the optional step was not taken"
+    if kind == "session_resumed":
+        step = _step_of(record, detail.get("step_index"), "?")
+        return "session resumed", f"at {step}"
+    if kind == "session_status":
+        return (
+            f"session {detail.get('to')}",
+            f"was {detail.get('from')}, {_reason(detail.get('reason'))}",
+        )
+    if kind == "manual_step_done":
+        action = (
+            f"bias set to {_volts(detail['volts'])}"
+            if detail.get("action") == "set_bias" and "volts" in detail
+            else str(detail.get("action", "manual step"))
+        )
+        note = f"; note: {detail['note']}" if detail.get("note") else ""
+        return "manual step done by hand", action + note
+    if kind == "bias_changed":
+        return "bias changed by hand", f"to {_volts(detail.get('volts'))}"
+    if kind == "reading_dropped":
+        charge = detail.get("charge_nC")
+        value = f" ({charge:+.4f} nC)" if isinstance(charge, int | float) else ""
+        return "reading dropped", f"{detail.get('why', 'no reason given')}{value}"
+    if kind == "daemon_restarted":
+        previous = detail.get("previous_run", "unknown")
+        stop = f" ({detail['previous_stop']})" if detail.get("previous_stop") else ""
+        return "daemon restarted", f"the previous run {previous}{stop}"
+    if kind == "daemon_stopped":
+        return "daemon stopped", _reason(detail.get("reason"))
+    return kind.replace("_", " "), _detail_text(detail)
+
+
+def _detail_text(detail: dict[str, Any]) -> str:
+    return ", ".join(
+        f"{key.replace('_', ' ')}: {value}"
+        for key, value in detail.items()
+        if value not in (None, "")
+    )

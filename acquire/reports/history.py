@@ -1,0 +1,303 @@
+"""Output history of one beam: dose per MU by session, against a baseline and the tolerance.
+
+Each session's dose per MU is recomputed from its stored raw values (``report_data``). The
+baseline is one of:
+
+* ``expected``: each session's own expected output (the deviation ``evaluate`` reports);
+* ``first``: the dose per MU of the first session listed;
+* ``mean``: the mean dose per MU of the sessions listed;
+* ``session:ID``: the dose per MU of session ID (for example the last annual calibration);
+* a number: a dose per MU in cGy/MU.
+
+The tolerance band of each session is the tolerance it was evaluated with (entered, or the
+library's default from AAPM TG-142). Each session's kind says whether it measured k_pol and k_s
+("full calibration") or carried them ("output check").
+"""
+
+from __future__ import annotations
+
+import statistics
+from dataclasses import dataclass
+
+from chargebook.acquire.record.review import UNREVIEWED, review_status
+from chargebook.acquire.record.store import NotFound, SessionRow, Store
+from chargebook.acquire.reports.data import SessionRecord, load_record
+from chargebook.acquire.reports.sections import Table, number, signed, when
+from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
+from chargebook.corrections import dose, limits
+from chargebook.corrections.errors import InputError
+
+BASELINE_WORDS = ("expected", "first", "mean")
+BASELINE_ALLOWED = "expected, first, mean, session:ID or a dose per MU in cGy/MU"
+
+
+@dataclass(frozen=True)
+class HistoryPoint:
+    """One session of the history; values are None where the session has no result."""
+
+    session_id: int
+    created_at: str
+    status: str
+    machine: str
+    beam: str
+    dose_per_MU_cGy: float | None
+    expected_cGy_per_MU: float | None
+    deviation_pct: float | None
+    tolerance_pct: float | None
+    within_tolerance: bool | None
+    problem: str | None
+    #: The codes of the session's warning and error flags (info flags left out), as ``show``
+    #: and the console list them.
+    flags: tuple[str, ...] = ()
+    #: "full calibration" (the plan measures k_pol and k_s) or "output check" (they are carried).
+    kind: str = ""
+    #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
+    review: str = UNREVIEWED
+    session_uuid: str | None = None  # the session's id across stations
+
+
+@dataclass(frozen=True)
+class History:
+    """A beam's sessions in time order, with the baseline they are compared with."""
+
+    beam: str
+    machine: str | None
+    baseline: str
+    baseline_label: str
+    baseline_cGy_per_MU: float | None
+    points: tuple[HistoryPoint, ...]
+    station_uuid: str | None = None  # the station that keeps the sessions
+    #: When no session matches: the beams recorded at the station, the closest names first.
+    known_beams: tuple[str, ...] = ()
+
+    @property
+    def tolerance_pct(self) -> float | None:
+        """Return the tolerance of the latest session with one (for drawing the band)."""
+        known = [p.tolerance_pct for p in self.points if p.tolerance_pct is not None]
+        return known[-1] if known else None
+
+
+def _same(a: object, b: str) -> bool:
+    return isinstance(a, str) and " ".join(a.split()).casefold() == " ".join(b.split()).casefold()
+
+
+def matches(row: SessionRow, beam: str | None, machine: str | None) -> bool:
+    """Return True when the session measured ``beam`` on ``machine`` (None: any).
+
+    Names compare without regard to case or repeated spaces ("6 mv" is "6 MV").
+    """
+    meta = row.metadata()
+    beam_ok = beam is None or _same(meta.get("beam"), beam) or _same(row.beam, beam)
+    return beam_ok and (machine is None or _same(meta.get("treatment_machine"), machine))
+
+
+def parse_baseline(text: str) -> str | int | float:
+    """Return a baseline choice: a word, a session id (int) or a dose per MU (float)."""
+    cleaned = text.strip().lower()
+    if cleaned in BASELINE_WORDS:
+        return cleaned
+    if cleaned.startswith("session:"):
+        try:
+            return int(cleaned.removeprefix("session:"))
+        except ValueError:
+            raise InputError("baseline", text, BASELINE_ALLOWED, "is not a session id") from None
+    try:
+        value = float(cleaned)
+    except ValueError:
+        raise InputError("baseline", text, BASELINE_ALLOWED, "is not known") from None
+    return float(limits.EXPECTED_CGY_PER_MU.check("baseline", value))
+
+
+def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryPoint:
+    evaluation = record.evaluation
+    meta = record.metadata
+    per_MU = evaluation.dose_per_MU_cGy if evaluation else None
+    tolerance = evaluation.tolerance_pct if evaluation else None
+    if baseline_cGy_per_MU is None:
+        deviation = evaluation.deviation_pct if evaluation else None
+    else:
+        deviation = (
+            None if per_MU is None else float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
+        )
+    within = None
+    if deviation is not None and tolerance is not None:
+        within = bool(dose.within_tolerance(deviation, tolerance))
+    problem = record.results_error
+    if problem is None and per_MU is None:
+        problem = "dose per MU pending (a factor or reading set is missing)"
+    return HistoryPoint(
+        session_id=record.session.id,
+        created_at=record.session.created_at,
+        status=record.session.status,
+        machine=str(meta.get("treatment_machine", "")),
+        beam=str(meta.get("beam", record.session.beam)),
+        dose_per_MU_cGy=per_MU,
+        expected_cGy_per_MU=evaluation.expected_cGy_per_MU if evaluation else None,
+        deviation_pct=deviation,
+        tolerance_pct=tolerance,
+        within_tolerance=within,
+        problem=problem,
+        flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
+        kind=session_kind(record.session.plan()),
+        review=review_status(record.review),
+        session_uuid=record.session.uuid,
+    )
+
+
+def _baseline_value(
+    choice: str | int | float, store: Store, records: list[SessionRecord]
+) -> tuple[float | None, str]:
+    """Return (baseline dose per MU or None for 'expected', and a label saying what it is)."""
+    if choice == "expected":
+        return None, "each session's expected output"
+    values = [
+        (r.session.id, r.evaluation.dose_per_MU_cGy)
+        for r in records
+        if r.evaluation is not None and r.evaluation.dose_per_MU_cGy is not None
+    ]
+    if isinstance(choice, float):
+        return choice, f"{choice:g} cGy/MU"
+    if isinstance(choice, int):
+        try:
+            record = load_record(store, choice, check_chain=False)
+        except NotFound:
+            raise InputError(
+                "baseline", f"session:{choice}", "a session recorded here", "is not recorded"
+            ) from None
+        if record.evaluation is None or record.evaluation.dose_per_MU_cGy is None:
+            problem = "has no dose per MU"
+            raise InputError("baseline", f"session:{choice}", "a session with a result", problem)
+        value = record.evaluation.dose_per_MU_cGy
+        return value, f"session {choice} ({value:.4f} cGy/MU)"
+    if not values:
+        raise InputError(
+            "baseline", choice, "expected, when no session has a result", "has no data"
+        )
+    if choice == "first":
+        session_id, value = values[0]
+        return value, f"the first session, {session_id} ({value:.4f} cGy/MU)"
+    mean = statistics.fmean(v for _, v in values)
+    return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
+
+
+def load_history(
+    store: Store,
+    beam: str,
+    machine: str | None = None,
+    baseline: str = "expected",
+    include_all: bool = False,
+) -> History:
+    """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
+    review, unless ``include_all`` (then every session, a rejected one marked)."""
+    choice = parse_baseline(baseline)
+    rows = [
+        row
+        for row in store.sessions()
+        if matches(row, beam, machine)
+        and (include_all or (row.status == "finished" and row.replay_of is None))
+    ]
+    records = [load_record(store, row.id, check_chain=False) for row in rows]
+    if not include_all:
+        records = [r for r in records if review_status(r.review) != "rejected"]
+    value, label = _baseline_value(choice, store, records)
+    return History(
+        beam=beam,
+        machine=machine,
+        baseline=baseline,
+        baseline_label=label,
+        baseline_cGy_per_MU=value,
+        points=tuple(_point(record, value) for record in records),
+        station_uuid=store.station().uuid,
+        known_beams=() if rows else _beams_like(store, beam),
+    )
+
+
+def _no_match(history: History) -> str:
+    """Return what history says when no session matches, with the beams that do exist."""
+    words = f"No session of beam {history.beam!r} matches."
+    if history.known_beams:
+        words += f" Beams recorded here: {', '.join(history.known_beams)}."
+    return words
+
+
+def _beams_like(store: Store, beam: str) -> tuple[str, ...]:
+    """Return the beams recorded at the station, those whose names are close to ``beam``
+    first (a mistyped "7 MV" finds "6 MV")."""
+    import difflib
+
+    names = sorted(
+        {
+            " ".join(str(row.metadata().get("beam") or row.beam).split())
+            for row in store.sessions()
+            if row.replay_of is None
+        }
+    )
+    close = difflib.get_close_matches(beam, names, n=len(names), cutoff=0.5)
+    return (*close, *(name for name in names if name not in close))
+
+
+#: Marks an output check's session id in the terminal plot, and the legend saying so.
+OUTPUT_CHECK_MARK = "*"
+OUTPUT_CHECK_LEGEND = (
+    f"{OUTPUT_CHECK_MARK} after a session id: an output check (k_pol, k_s carried)"
+)
+
+
+def plot_labels(history: History) -> tuple[list[str], str | None]:
+    """Return the session ids to label the plot's columns (output checks marked), and the
+    legend line for the mark (None when no output check is listed)."""
+    labels = [
+        f"{p.session_id}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}"
+        for p in history.points
+    ]
+    marked = any(p.kind == OUTPUT_CHECK for p in history.points)
+    return labels, OUTPUT_CHECK_LEGEND if marked else None
+
+
+def history_table(history: History) -> Table:
+    """Return the history as a table: one row per session."""
+    within = {None: "—", True: "yes", False: "NO"}
+    rows = tuple(
+        (
+            str(p.session_id),
+            when(p.created_at),
+            p.machine,
+            p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",
+            p.kind,
+            number(p.dose_per_MU_cGy, 4, "—"),
+            number(p.expected_cGy_per_MU, 4, "—"),
+            signed(p.deviation_pct, 2, "—"),
+            "—" if p.tolerance_pct is None else f"±{p.tolerance_pct:g}",
+            within[p.within_tolerance],
+            ", ".join(p.flags) or "none",
+            p.problem or "",
+        )
+        for p in history.points
+    )
+    return Table(
+        f"Output history: {history.beam}" + (f" on {history.machine}" if history.machine else ""),
+        (
+            "session",
+            "date",
+            "machine",
+            "status",
+            "kind",
+            "dose/MU (cGy/MU)",
+            "expected",
+            "deviation (%)",
+            "tolerance (%)",
+            "within",
+            "flags",
+            "note",
+        ),
+        rows,
+        tuple(f"session-{p.session_id}" for p in history.points),
+        note=f"Deviation from {history.baseline_label}."
+        if rows
+        else f"No session of beam {history.beam!r} matches."
+        + (
+            f" Beams recorded here: {', '.join(history.known_beams)}."
+            if history.known_beams
+            else ""
+        ),
+    )
