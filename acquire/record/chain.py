@@ -70,6 +70,20 @@ _REAL_INDEX = {
 #: The chained tables; a session's chain runs across all of them.
 CHAINED_TABLES = tuple(COLUMNS)
 
+#: The tables of calibration visits (migration ``visits``), chained with the rows outside any
+#: session (chain 0): a visit spans several sessions and belongs to none. Kept apart from
+#: :data:`COLUMNS`, which the migration ``chain_appended_rows`` reads as the tables of its day.
+VISIT_COLUMNS: dict[str, tuple[str, ...]] = {
+    "visits": _names("id uuid created_at machine metadata_json"),
+    "visit_beams": _names("id visit_id position name plan metadata_json recorded_at"),
+    "visit_sessions": _names("id visit_id beam_id session_id recorded_at"),
+}
+
+
+def columns_of(table: str) -> tuple[str, ...]:
+    """Return the columns ``table`` hashes, in order (a session table or a visit table)."""
+    return COLUMNS[table] if table in COLUMNS else VISIT_COLUMNS[table]
+
 
 def canonical(table: str, values: Sequence[Any]) -> bytes:
     """Return the bytes hashed for one row of ``table`` (values in :data:`COLUMNS` order).
@@ -77,7 +91,7 @@ def canonical(table: str, values: Sequence[Any]) -> bytes:
     JSON of the table name and the values, REAL columns as floats, BLOBs as hex text.
     """
     row = list(values)
-    for index in _REAL_INDEX[table]:
+    for index in _REAL_INDEX.get(table, ()):
         if row[index] is not None:
             row[index] = float(row[index])
     row = [
@@ -120,7 +134,10 @@ def _plain_text(value: object) -> bool:
 
 
 def owner(table: str, values: Sequence[Any]) -> int | None:
-    """Return the session a chained row belongs to (its own id for a session row)."""
+    """Return the session a chained row belongs to (its own id for a session row; None for the
+    rows of a visit, which belong to no one session)."""
+    if table in VISIT_COLUMNS:
+        return None
     if table == "sessions":
         return values[0]
     return values[1]  # session_id is the second column of every other chained table

@@ -39,6 +39,9 @@ CAPTURE_MODES = ("auto", "pushed", "manual")
 TRAFFIC_DIRECTIONS = ("tx", "rx")
 
 APPEND_ONLY_TABLES = ("readings", "environment", "events", "traffic")
+VISIT_STATUSES = ("open", "closed")
+#: A visit in one of these states is closed for good.
+VISIT_FINAL_STATUSES = ("closed",)
 
 
 class SchemaTooNew(RuntimeError):
@@ -409,12 +412,88 @@ def _station_identity(db: Database) -> None:
     _run_triggers(db, _STATION_TRIGGERS)
 
 
+def _visits_tables() -> str:
+    return f"""
+    CREATE TABLE visits (
+        id INTEGER PRIMARY KEY,
+        uuid TEXT NOT NULL UNIQUE,
+        created_at TEXT NOT NULL,
+        machine TEXT NOT NULL,
+        metadata_json TEXT NOT NULL,
+        status TEXT NOT NULL CHECK (status IN ({_sql_list(VISIT_STATUSES)})),
+        closed_at TEXT,
+        reason TEXT,
+        chain_seq INTEGER,
+        chain_hash TEXT
+    );
+    CREATE TABLE visit_beams (
+        id INTEGER PRIMARY KEY,
+        visit_id INTEGER NOT NULL REFERENCES visits(id),
+        position INTEGER NOT NULL CHECK (position >= 1),
+        name TEXT NOT NULL COLLATE NOCASE,
+        plan TEXT NOT NULL,
+        metadata_json TEXT NOT NULL,
+        recorded_at TEXT NOT NULL,
+        chain_seq INTEGER,
+        chain_hash TEXT,
+        UNIQUE (visit_id, name),
+        UNIQUE (visit_id, position)
+    );
+    CREATE TABLE visit_sessions (
+        id INTEGER PRIMARY KEY,
+        visit_id INTEGER NOT NULL REFERENCES visits(id),
+        beam_id INTEGER NOT NULL REFERENCES visit_beams(id),
+        session_id INTEGER NOT NULL UNIQUE REFERENCES sessions(id),
+        recorded_at TEXT NOT NULL,
+        chain_seq INTEGER,
+        chain_hash TEXT
+    );
+    CREATE INDEX visit_beams_by_visit ON visit_beams(visit_id, position);
+    CREATE INDEX visit_sessions_by_visit ON visit_sessions(visit_id, beam_id);
+    """
+
+
+_VISIT_STATUS_AUDIT = """
+    CREATE TRIGGER visits_refuse_unaudited BEFORE UPDATE OF status, reason, closed_at ON visits
+    WHEN NOT EXISTS (
+        SELECT 1 FROM events
+        WHERE id = (SELECT max(id) FROM events WHERE session_id IS NULL)
+        AND kind = 'visit_status' AND json_extract(detail_json, '$.visit_id') IS NEW.id
+        AND json_extract(detail_json, '$.to') IS NEW.status
+        AND json_extract(detail_json, '$.reason') IS NEW.reason
+        AND json_extract(detail_json, '$.closed_at') IS NEW.closed_at)
+    BEGIN
+        SELECT RAISE(ABORT, 'visits: a status change must follow its visit_status event');
+    END;
+"""
+
+
+def _visits(db: Database) -> None:
+    """Add calibration visits: one sitting at one machine, several beams, one session each.
+
+    ``visits`` changes only its status (each change a ``visit_status`` event outside sessions,
+    written first); ``visit_beams`` (the beams in the order the physicist added them) and
+    ``visit_sessions`` (the session measuring a beam) are append-only. All three are chained
+    with the rows outside any session (``chain.VISIT_COLUMNS``)."""
+    for statement in _visits_tables().split(";"):
+        if statement.strip():
+            db.execute(statement)
+    triggers = _facts_fixed_trigger(
+        "visits", ("id", "uuid", "created_at", "machine", "metadata_json"), VISIT_FINAL_STATUSES
+    )
+    triggers += _chain_triggers("visits") + _refuse_chain_change_trigger("visits")
+    for table in ("visit_beams", "visit_sessions"):
+        triggers += _append_only_triggers(table) + _chain_triggers(table)
+    _run_triggers(db, triggers + _VISIT_STATUS_AUDIT)
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
     Migration("index_rows_by_session", _index_rows_by_session),
     Migration("chain_appended_rows", _chain_appended_rows),
     Migration("station_identity", _station_identity),
+    Migration("visits", _visits),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

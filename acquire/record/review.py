@@ -22,6 +22,8 @@ from chargebook.acquire.record.store import EventRow, NotFound, Store
 from chargebook.corrections.errors import InputError
 
 REVIEW_EVENT = "session_reviewed"
+#: The review of a whole calibration visit: an event outside sessions naming the visit.
+VISIT_REVIEW_EVENT = "visit_reviewed"
 #: What the command line and the protocol ask for -> what the record says.
 DECISIONS = {"approve": "approved", "reject": "rejected"}
 #: A session's review status as shown by ``sessions``, ``show`` and the reports.
@@ -53,10 +55,13 @@ class Review:
         }
 
 
-def review_of(events: tuple[EventRow, ...] | list[EventRow]) -> Review | None:
-    """Return the review among a session's events (the first, the one that stands), or None."""
+def review_of(
+    events: tuple[EventRow, ...] | list[EventRow], kind: str = REVIEW_EVENT
+) -> Review | None:
+    """Return the review among a session's events (the first, the one that stands), or None;
+    ``kind`` :data:`VISIT_REVIEW_EVENT` among a visit's events."""
     for event in events:
-        if event.kind == REVIEW_EVENT:
+        if event.kind == kind:
             detail = event.detail()
             return Review(
                 status=str(detail.get("status")),
@@ -179,6 +184,81 @@ def record_review(
             },
         )
         found = review_of(store.events(session_id))
+    assert found is not None
+    return found
+
+
+def record_visit_review(
+    store: Store,
+    visit_id: int,
+    decision: str,
+    reviewer: str,
+    comment: str,
+    *,
+    allow_self_review: bool = False,
+) -> Review:
+    """Record the review of a closed calibration visit and return it; refuse by name what is
+    not allowed, as :func:`record_review` does for a session.
+
+    Refused: a visit still open; an approval of a visit none of whose beams was measured; a
+    second review; and, unless self-review is allowed, a reviewer who is the visit's operator or
+    the operator of any beam's session. The sessions keep their own reviews.
+    """
+    from chargebook.acquire.record import visits
+
+    if decision not in DECISIONS:
+        raise InputError("decision", decision, "approve or reject", "is not known")
+    reviewer = _text("reviewer", reviewer)
+    comment = _text("comment", comment)
+    with store.atomic():
+        try:
+            visit = visits.visit(store, visit_id)
+        except NotFound:
+            raise InputError(
+                "visit", visit_id, "a visit recorded at this station", "is not recorded"
+            ) from None
+        if visit.status != "closed":
+            raise InputError(
+                "visit",
+                visit_id,
+                "a closed visit",
+                f"is {visit.status}: a visit is reviewed once it is closed",
+            )
+        states = visits.beam_states(store, visit_id)
+        if decision == "approve" and not any(state.status == "measured" for state in states):
+            raise InputError(
+                "decision",
+                decision,
+                "reject (a visit with no beam measured can only be rejected)",
+                f"cannot approve visit {visit_id}: none of its beams was measured",
+            )
+        events = visits.visit_events(store, visit_id)
+        earlier = review_of(events, VISIT_REVIEW_EVENT)
+        if earlier is not None:
+            raise InputError(
+                "visit", visit_id, "a visit not yet reviewed", f"is already {review_words(earlier)}"
+            )
+        operator = visit.metadata().get("operator")
+        if not allow_self_review:
+            created = next((e for e in events if e.kind == "visit_created"), None)
+            _refuse_self_review(reviewer, operator, created.account if created else None)
+            for session_id in {s for state in states for s in state.sessions}:
+                measured_by = store.session(session_id).metadata().get("operator")
+                _refuse_self_review(reviewer, measured_by, None)
+        store.add_event(
+            None,
+            reviewer,
+            VISIT_REVIEW_EVENT,
+            {
+                "visit_id": visit_id,
+                "status": DECISIONS[decision],
+                "reviewer": reviewer,
+                "comment": comment,
+                "measured_by": operator,
+                "self_review_allowed": allow_self_review,
+            },
+        )
+        found = review_of(visits.visit_events(store, visit_id), VISIT_REVIEW_EVENT)
     assert found is not None
     return found
 

@@ -586,9 +586,11 @@ class Store:
     def append_row(self, table: str, row: dict[str, Any]) -> int:
         """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
         and commit it; return its id. For copying a recorded session (a replay): the recording
-        methods above check their values, this one does not."""
-        if table not in chain.CHAINED_TABLES:
-            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
+        methods above check their values, this one does not. The visit tables
+        (``chain.VISIT_COLUMNS``) are appended through it by ``record.visits``."""
+        appended = (*chain.CHAINED_TABLES, *chain.VISIT_COLUMNS)
+        if table not in appended:
+            raise InputError("table", table, ", ".join(appended), "is not appended")
         with self.atomic():
             return self._append(table, row)
 
@@ -601,7 +603,7 @@ class Store:
         """
         row_id = self._next_id(table)
         row = {"id": row_id, **row}
-        values = tuple(row.get(column) for column in chain.COLUMNS[table])
+        values = tuple(row.get(column) for column in chain.columns_of(table))
         key = chain.chain_key(chain.owner(table, values))
         seq, previous = self._chain_head(key)
         digest = chain.link(previous, seq + 1, table, values)

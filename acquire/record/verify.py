@@ -93,6 +93,9 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_statuses(store, session_id, events)
         problems += _check_uuid(store, session_id, events)
+    else:
+        events = [values for table, values, _seq, _hash in rows if table == "events"]
+        problems += _check_visit_statuses(store, events)
     return ChainReport(session_id, len(rows), head, tuple(problems))
 
 
@@ -116,13 +119,15 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
     no place in it."""
     rows: list[Chained] = []
     problems: list[Problem] = []
-    for table, columns in chain.COLUMNS.items():
+    for table, columns in _tables_of(session_id):
         owner = "id" if table == "sessions" else "session_id"
+        where = "1" if table in chain.VISIT_COLUMNS else f"{owner} IS ?"
         sql = (
             f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-            f"WHERE {owner} IS ? ORDER BY id"
+            f"WHERE {where} ORDER BY id"
         )
-        for *values, seq, digest in store.read(sql, (session_id,)):
+        params = () if table in chain.VISIT_COLUMNS else (session_id,)
+        for *values, seq, digest in store.read(sql, params):
             if seq is None or digest is None:
                 problems.append(
                     Problem(
@@ -136,6 +141,13 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
             rows.append((table, tuple(values), int(seq), str(digest)))
     rows.sort(key=lambda row: row[2])
     return rows, problems
+
+
+def _tables_of(session_id: int | None) -> list[tuple[str, tuple[str, ...]]]:
+    """Return the tables (and their hashed columns) whose rows a chain holds: the visit
+    tables are in the chain of the rows outside any session."""
+    tables = list(chain.COLUMNS.items())
+    return tables if session_id is not None else [*tables, *chain.VISIT_COLUMNS.items()]
 
 
 def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
@@ -228,6 +240,30 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     for table, row_id, recorded, row, end_key in checks:
         now = (row.status, row.reason, getattr(row, end_key))
         problems += _status_differs(table, row_id, recorded, now, end_key)
+    return problems
+
+
+def _check_visit_statuses(store: Store, events: list[tuple[Any, ...]]) -> list[Problem]:
+    """Return the visits whose status, reason or closing time is not the one their last
+    ``visit_status`` event in the chain gave them."""
+    kind_at = chain.COLUMNS["events"].index("kind")
+    detail_at = chain.COLUMNS["events"].index("detail_json")
+    recorded: dict[int, dict[str, Any]] = {}
+    for values in events:
+        if values[kind_at] != "visit_status":
+            continue
+        try:
+            detail = json.loads(values[detail_at])
+        except ValueError:
+            continue  # a changed event: the link check has named it
+        recorded[detail.get("visit_id")] = detail
+    problems: list[Problem] = []
+    for row_id, status, reason, closed_at in store.read(
+        "SELECT id, status, reason, closed_at FROM visits ORDER BY id"
+    ):
+        expected = recorded.get(row_id, {"to": "open", "reason": None, "closed_at": None})
+        now = (status, reason, closed_at)
+        problems += _status_differs("visits", row_id, expected, now, "closed_at")
     return problems
 
 
