@@ -145,6 +145,25 @@ class Method(enum.StrEnum):
     SESSION_ABORT = "session.abort"
     SESSION_CLOSE = "session.close"
     SESSION_REVIEW = "session.review"
+    VISIT_START = "visit.start"
+    VISIT_ADD_BEAM = "visit.add_beam"
+    VISIT_START_BEAM = "visit.start_beam"
+    VISIT_SKIP_BEAM = "visit.skip_beam"
+    VISIT_CONFIRM_AIR = "visit.confirm_air"
+    VISIT_CLOSE = "visit.close"
+    VISIT_REVIEW = "visit.review"
+
+
+#: The calibration visit's methods (answered beside the engine's actions; the snapshot's
+#: ``visit`` shows the visit they act on).
+VISIT_ACTIONS: tuple[str, ...] = (
+    Method.VISIT_START,
+    Method.VISIT_ADD_BEAM,
+    Method.VISIT_START_BEAM,
+    Method.VISIT_SKIP_BEAM,
+    Method.VISIT_CONFIRM_AIR,
+    Method.VISIT_CLOSE,
+)
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -302,6 +321,69 @@ METHODS: dict[str, MethodSpec] = {
                     "db",
                     "string",
                     doc="the station file the client means; refused if the daemon keeps another",
+                ),
+            ),
+            result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
+        ),
+        MethodSpec(
+            Method.VISIT_START,
+            "Open a calibration visit: one sitting at one treatment machine, several beams.",
+            (
+                Param("machine", "string", required=True, doc="the treatment machine"),
+                Param(
+                    "metadata",
+                    "object",
+                    required=True,
+                    doc="operator; air_max_age_min (default 30); register_ids; notes",
+                ),
+            ),
+        ),
+        MethodSpec(
+            Method.VISIT_ADD_BEAM,
+            "Add a beam to the open visit, after the others: its session metadata (its name "
+            "is the metadata's beam; two beams of one name are refused) and its plan.",
+            (
+                Param("metadata", "object", required=True, doc="the beam's session metadata"),
+                Param("plan", "string", required=True, doc="a shipped plan's name"),
+            ),
+        ),
+        MethodSpec(
+            Method.VISIT_START_BEAM,
+            "Start the session of a beam of the visit (planned, skipped or left unfinished).",
+            (Param("beam", "string", required=True, doc="the beam's name"),),
+        ),
+        MethodSpec(
+            Method.VISIT_SKIP_BEAM,
+            "Record a beam of the visit as skipped, with the reason.",
+            (
+                Param("beam", "string", required=True, doc="the beam's name"),
+                Param("reason", "string", required=True, doc="why it is not measured"),
+            ),
+        ),
+        MethodSpec(
+            Method.VISIT_CONFIRM_AIR,
+            "Record the air temperature and pressure last read in this visit again for the "
+            "beam being measured, as confirmed by the operator; refused when they were read "
+            "more than the visit's air_max_age_min ago.",
+        ),
+        MethodSpec(
+            Method.VISIT_CLOSE,
+            "Close the visit; beams never measured are recorded unfinished with the reason.",
+            (Param("reason", "string", doc="needed when a beam was not measured"),),
+        ),
+        MethodSpec(
+            Method.VISIT_REVIEW,
+            "Record the review of a closed visit by a second person, as session.review does "
+            "for a session.",
+            (
+                Param("visit", "integer", required=True, doc="the visit id"),
+                Param("decision", "string", required=True, choices=REVIEW_DECISIONS),
+                Param("reviewer", "string", required=True, doc="the reviewer's name"),
+                Param("comment", "string", required=True, doc="why, in the reviewer's words"),
+                Param(
+                    "allow_self_review",
+                    "boolean",
+                    doc="let the operator who measured review (default false)",
                 ),
             ),
             result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
@@ -550,6 +632,10 @@ class Snapshot(TypedDict):
     instrument: InstrumentInfo
     record: RecordInfo
     caution: str
+    #: The calibration visit shown (open, or just closed): its beams in order with status and
+    #: results (``acquire.session.visit_summary``), its review, and ``air`` (when the air data
+    #: were last read in it); absent or None outside a visit.
+    visit: NotRequired[dict[str, Any] | None]
 
 
 class EventInfo(TypedDict):

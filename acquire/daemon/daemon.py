@@ -36,6 +36,7 @@ from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.engine.states import IllegalTransition
+from chargebook.acquire.engine.visit_desk import VisitDesk
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
@@ -409,6 +410,7 @@ class Daemon:
         self.store: Store | None = None
         self.station_lock = StationLock(options.db_path)
         self.engine: Engine | None = None
+        self.visits: VisitDesk | None = None
         self.link: InstrumentLink | None = None
         self.server = RpcServer(options.socket_path, self.dispatch, group=options.socket_group)
         #: The watch-only socket beside it: hello, subscribe and status, no action.
@@ -581,6 +583,7 @@ class Daemon:
         assert self.engine is not None and self.link is not None and self.store is not None
         self._record_start()
         resumed = self.engine.restore()
+        info_visit = self.visit_desk().visit_id
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
         try:
@@ -596,6 +599,7 @@ class Daemon:
             "pid": os.getpid(),
             "profile": self.engine.profile,
             "resumed_session": self.engine.session_id if resumed else None,
+            "resumed_visit": info_visit,
         }
         if ready is not None:
             ready(info)
@@ -893,6 +897,7 @@ class Daemon:
     def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
+        snapshot["visit"] = self.visit_desk().snapshot()
         try:
             return snapshot, _snapshot_notification(snapshot)
         except ValueError:
@@ -930,6 +935,10 @@ class Daemon:
             return self.snapshot()
         if method == protocol.Method.SESSION_REVIEW:
             return self._review(connection, params)
+        if method == protocol.Method.VISIT_REVIEW:
+            review = self._review_visit(connection, params)
+            await self.after_change()
+            return review
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -965,11 +974,44 @@ class Daemon:
             )
         return review.to_dict()
 
+    def _review_visit(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a visit's review (``visit.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.record.review import record_visit_review
+
+        assert self.store is not None and self.engine is not None
+        with self.store.on_behalf_of(connection.account):
+            review = record_visit_review(
+                self.store,
+                params["visit"],
+                params["decision"],
+                params["reviewer"],
+                params["comment"],
+                allow_self_review=bool(params.get("allow_self_review", False)),
+            )
+        self.visit_desk().version += 1
+        self.engine.touch_live()  # a new snapshot, showing the review
+        return review.to_dict()
+
+    def visit_desk(self) -> VisitDesk:
+        """Return the calibration visit kept beside the engine (made, and the visit left open
+        by an earlier run taken up, on first use)."""
+        assert self.engine is not None
+        if self.visits is None or self.visits.engine is not self.engine:
+            self.visits = VisitDesk(self.engine)
+            self.visits.restore()
+        return self.visits
+
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
-        engine = self.engine
+        engine, desk = self.engine, self.visit_desk()
         assert engine is not None
         M = protocol.Method
         actions: dict[str, Callable[[], Any]] = {
+            M.VISIT_START: lambda: desk.start(params["machine"], params["metadata"], actor),
+            M.VISIT_ADD_BEAM: lambda: desk.add_beam(params["metadata"], params["plan"], actor),
+            M.VISIT_START_BEAM: lambda: desk.start_beam(params["beam"], actor),
+            M.VISIT_SKIP_BEAM: lambda: desk.skip_beam(params["beam"], params["reason"], actor),
+            M.VISIT_CONFIRM_AIR: lambda: desk.confirm_air(actor),
+            M.VISIT_CLOSE: lambda: desk.close(params.get("reason"), actor),
             M.SESSION_START: lambda: engine.start_session(
                 params["metadata"], params.get("plan"), actor=actor
             ),

@@ -196,6 +196,11 @@ class Engine:
         if self.on_change is not None:
             self.on_change()
 
+    def record_changed(self) -> None:
+        """Count a change recorded beside the engine (a calibration visit's), for a new
+        snapshot."""
+        self._changed()
+
     def set_record_fault(self, message: str | None) -> None:
         """Say why the record cannot commit (None: it can again); no action is taken meanwhile."""
         if message != self.record_fault:

@@ -207,6 +207,7 @@ NOT_INPUTS = {
     "all_or_nothing",
     "allowed",
     "instrument_unreachable",  # shown, never recorded
+    "record_changed",  # counts a visit's change, written in the daemon's one transaction
     "refusal",
     "results",
     "set_record_fault",  # shown, never recorded: the record cannot commit
