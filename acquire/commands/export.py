@@ -7,20 +7,21 @@ import argparse
 from chargebook.acquire.commands.station_reader import (
     add_db_argument,
     add_output_argument,
-    add_session_argument,
+    add_session_or_visit_arguments,
+    require_session_or_visit,
     run_reader,
 )
 
 HELP = (
     "export one recorded session: csv (the readings), json (everything) or html "
-    "(a self-contained printable report)"
+    "(a self-contained printable report); with --visit, a calibration visit (json or html)"
 )
 
 FORMATS = ("csv", "json", "html")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_argument(parser)
+    add_session_or_visit_arguments(parser)
     parser.add_argument(
         "--format", choices=FORMATS, default="json", help="the export format (default: json)"
     )
@@ -40,6 +41,9 @@ def _export(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.reports import export
     from chargebook.acquire.reports.data import load_record
 
+    require_session_or_visit(args)
+    if args.visit is not None:
+        return write_output(export.visit_text(store, args.visit, args.format), args.output)
     record = load_record(store, args.session)
     warning = record.integrity_warning()
     if warning is not None:  # in every format on stderr; json and html carry it too

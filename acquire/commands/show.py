@@ -6,18 +6,19 @@ import argparse
 
 from chargebook.acquire.commands.station_reader import (
     add_db_argument,
-    add_session_argument,
+    add_session_or_visit_arguments,
+    require_session_or_visit,
     run_reader,
 )
 
 HELP = (
     "show one recorded session: metadata, environment, reading sets, factors, results, "
-    "uncertainty budget, flags and audit"
+    "uncertainty budget, flags and audit; or, with --visit, a calibration visit's result by beam"
 )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_argument(parser)
+    add_session_or_visit_arguments(parser)
     add_db_argument(parser)
     parser.add_argument("--json", action="store_true", help="print the JSON export instead of text")
 
@@ -37,6 +38,9 @@ def _show(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.reports.sections import all_sections
     from chargebook.acquire.reports.text import printable, tables_text
 
+    require_session_or_visit(args)
+    if args.visit is not None:
+        return _show_visit(store, args)
     record = load_record(store, args.session)
     if args.json:
         print(to_json(record), end="")
@@ -50,4 +54,24 @@ def _show(store, args: argparse.Namespace) -> int:
         print(tables_text(all_sections(record), width=columns or None))
         print()
         print(textwrap.fill(CAUTION, columns) if columns else CAUTION)
+    return EXIT_OK
+
+
+def _show_visit(store, args: argparse.Namespace) -> int:
+    import json
+    import shutil
+
+    from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.reports.text import tables_text
+    from chargebook.acquire.reports.visit import load_visit, visit_tables
+
+    summary, events = load_visit(store, args.visit)
+    if args.json:
+        print(json.dumps(summary.to_dict(), indent=2, ensure_ascii=False))
+        return EXIT_OK
+    columns = shutil.get_terminal_size((0, 0)).columns
+    print(tables_text(visit_tables(summary, events), width=columns or None))
+    print()
+    print(CAUTION)
     return EXIT_OK

@@ -41,6 +41,26 @@ def add_session_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("session", metavar="SESSION", type=int, help="session id")
 
 
+def add_session_or_visit_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add an optional SESSION and ``--visit ID`` (a calibration visit): one of the two."""
+    parser.add_argument("session", metavar="SESSION", type=int, nargs="?", help="session id")
+    parser.add_argument(
+        "--visit", metavar="ID", type=int, help="a calibration visit instead of a session"
+    )
+
+
+def require_session_or_visit(args: argparse.Namespace) -> None:
+    """Raise InputError unless exactly one of SESSION and ``--visit`` is given."""
+    from chargebook.corrections.errors import InputError
+
+    if args.session is None and args.visit is None:
+        raise InputError("SESSION", None, "a session id, or --visit ID", "is missing")
+    if args.session is not None and args.visit is not None:
+        raise InputError(
+            "--visit", args.visit, "a session id or --visit ID, not both", "is given with a session"
+        )
+
+
 def open_station(args: argparse.Namespace) -> Store:
     """Return the station database named by ``--db`` (or the default), opened read-only."""
     from chargebook.acquire.record.store import Store, default_db_path

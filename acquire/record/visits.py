@@ -296,13 +296,18 @@ def link_session(
                 "recorded_at": store.stamp(),
             },
         )
-        detail = {"visit_id": visit_id, "beam_id": beam_id, "session_id": session_id}
+        detail = {
+            "visit_id": visit_id,
+            "beam_id": beam_id,
+            "beam": beam.name,
+            "session_id": session_id,
+        }
         store.add_event(None, actor, BEAM_STARTED, detail)
         store.add_event(
             session_id,
             actor,
             SESSION_BEAM,
-            {**detail, "visit_uuid": current.uuid, "beam": beam.name, "position": beam.position},
+            {**detail, "visit_uuid": current.uuid, "position": beam.position},
         )
 
 
@@ -336,7 +341,13 @@ def mark_beam(
             None,
             actor,
             BEAM_STATUS,
-            {"visit_id": visit_id, "beam_id": beam_id, "to": status, "reason": reason},
+            {
+                "visit_id": visit_id,
+                "beam_id": beam_id,
+                "beam": state.beam.name,
+                "to": status,
+                "reason": reason,
+            },
         )
 
 

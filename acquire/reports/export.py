@@ -219,3 +219,20 @@ def to_html(record: SessionRecord) -> str:
 
     stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
     return session_html(record, stamp)
+
+
+def visit_text(store: Store, visit_id: int, format_: str) -> str:
+    """Return a calibration visit's export: its summary as JSON, or its printable HTML report
+    (csv holds readings, which are the sessions': export each beam's session for them)."""
+
+    from chargebook.acquire.reports.visit import load_visit, visit_html
+    from chargebook.corrections.errors import InputError
+
+    summary, events = load_visit(store, visit_id)
+    if format_ == "json":
+        data = {"generated_at": generated_at(), "chargebook_version": chargebook_version()}
+        return json.dumps({**data, "visit": summary.to_dict()}, indent=2, ensure_ascii=False)
+    if format_ == "html":
+        stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
+        return visit_html(summary, events, stamp)
+    raise InputError("--format", format_, "json or html for a visit", "holds no visit")
