@@ -217,6 +217,17 @@ class MethodSpec:
     result: str = "the snapshot after the change"
 
 
+#: The parameters of a review, of a session or of a visit.
+REVIEW_PARAMS: tuple[Param, ...] = (
+    Param("decision", "string", required=True, choices=REVIEW_DECISIONS),
+    Param("reviewer", "string", required=True, doc="the reviewer's name"),
+    Param("comment", "string", required=True, doc="why, in the reviewer's words"),
+    Param(
+        "allow_self_review", "boolean", doc="let the operator who measured review (default false)"
+    ),
+)
+REVIEW_RESULT = "the review: status, reviewer, comment, reviewed_at, account, measured_by"
+
 METHODS: dict[str, MethodSpec] = {
     spec.name: spec
     for spec in (
@@ -309,21 +320,14 @@ METHODS: dict[str, MethodSpec] = {
             "comment; the reviewer is the actor, the connection's Unix account is kept beside.",
             (
                 Param("session", "integer", required=True, doc="the session id"),
-                Param("decision", "string", required=True, choices=REVIEW_DECISIONS),
-                Param("reviewer", "string", required=True, doc="the reviewer's name"),
-                Param("comment", "string", required=True, doc="why, in the reviewer's words"),
-                Param(
-                    "allow_self_review",
-                    "boolean",
-                    doc="let the operator who measured review (default false)",
-                ),
+                *REVIEW_PARAMS,
                 Param(
                     "db",
                     "string",
                     doc="the station file the client means; refused if the daemon keeps another",
                 ),
             ),
-            result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
+            result=REVIEW_RESULT,
         ),
         MethodSpec(
             Method.VISIT_START,
@@ -377,16 +381,9 @@ METHODS: dict[str, MethodSpec] = {
             "for a session.",
             (
                 Param("visit", "integer", required=True, doc="the visit id"),
-                Param("decision", "string", required=True, choices=REVIEW_DECISIONS),
-                Param("reviewer", "string", required=True, doc="the reviewer's name"),
-                Param("comment", "string", required=True, doc="why, in the reviewer's words"),
-                Param(
-                    "allow_self_review",
-                    "boolean",
-                    doc="let the operator who measured review (default false)",
-                ),
+                *REVIEW_PARAMS,
             ),
-            result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
+            result=REVIEW_RESULT,
         ),
     )
 }

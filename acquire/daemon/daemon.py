@@ -957,39 +957,37 @@ class Daemon:
         from chargebook.acquire.record.review import record_review
         from chargebook.corrections.errors import InputError
 
-        assert self.store is not None
         meant = params.get("db")
         if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
             raise InputError(
                 "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
             )
-        with self.store.on_behalf_of(connection.account):
-            review = record_review(
-                self.store,
-                params["session"],
-                params["decision"],
-                params["reviewer"],
-                params["comment"],
-                allow_self_review=bool(params.get("allow_self_review", False)),
-            )
-        return review.to_dict()
+        return self._reviewed(connection, record_review, params["session"], params)
 
     def _review_visit(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
         """Record a visit's review (``visit.review``); the reviewer named in it is the actor."""
         from chargebook.acquire.record.review import record_visit_review
 
-        assert self.store is not None and self.engine is not None
+        assert self.engine is not None
+        review = self._reviewed(connection, record_visit_review, params["visit"], params)
+        self.visit_desk().version += 1
+        self.engine.touch_live()  # a new snapshot, showing the review
+        return review
+
+    def _reviewed(
+        self, connection: Connection, record: Callable[..., Any], of: int, params: dict[str, Any]
+    ) -> dict[str, Any]:
+        """Record a review of ``of`` with ``record`` on behalf of the connection's account."""
+        assert self.store is not None
         with self.store.on_behalf_of(connection.account):
-            review = record_visit_review(
+            review = record(
                 self.store,
-                params["visit"],
+                of,
                 params["decision"],
                 params["reviewer"],
                 params["comment"],
                 allow_self_review=bool(params.get("allow_self_review", False)),
             )
-        self.visit_desk().version += 1
-        self.engine.touch_live()  # a new snapshot, showing the review
         return review.to_dict()
 
     def visit_desk(self) -> VisitDesk:

@@ -126,10 +126,7 @@ def record_review(
     review that may not be given; nothing is written then. Call inside
     ``store.on_behalf_of(account)`` to record the reviewer's Unix account.
     """
-    if decision not in DECISIONS:
-        raise InputError("decision", decision, "approve or reject", "is not known")
-    reviewer = _text("reviewer", reviewer)
-    comment = _text("comment", comment)
+    reviewer, comment = _checked(decision, reviewer, comment)
     with store.atomic():
         try:
             session = store.session(session_id)
@@ -206,10 +203,7 @@ def record_visit_review(
     """
     from chargebook.acquire.record import visits
 
-    if decision not in DECISIONS:
-        raise InputError("decision", decision, "approve or reject", "is not known")
-    reviewer = _text("reviewer", reviewer)
-    comment = _text("comment", comment)
+    reviewer, comment = _checked(decision, reviewer, comment)
     with store.atomic():
         try:
             visit = visits.visit(store, visit_id)
@@ -261,6 +255,14 @@ def record_visit_review(
         found = review_of(visits.visit_events(store, visit_id), VISIT_REVIEW_EVENT)
     assert found is not None
     return found
+
+
+def _checked(decision: str, reviewer: str, comment: str) -> tuple[str, str]:
+    """Return the reviewer's name and comment, tidied; InputError for an unknown decision or
+    an empty name or comment."""
+    if decision not in DECISIONS:
+        raise InputError("decision", decision, "approve or reject", "is not known")
+    return _text("reviewer", reviewer), _text("comment", comment)
 
 
 def _text(field: str, value: object) -> str:
