@@ -137,6 +137,7 @@ class Method(enum.StrEnum):
     STEP_MANUAL_DONE = "step.manual_done"
     STEP_SKIP = "step.skip"
     READING_CAPTURE = "reading.capture"
+    READING_SHORT = "reading.short_delivery"
     SET_ACCEPT = "set.accept"
     SET_REDO = "set.redo"
     SESSION_PAUSE = "session.pause"
@@ -255,6 +256,11 @@ METHODS: dict[str, MethodSpec] = {
             (
                 Param("metadata", "object", required=True, doc="session metadata"),
                 Param("plan", "string_or_object", doc="plan name or plan dict"),
+                Param(
+                    "mu_per_reading",
+                    "number",
+                    doc="MU per reading of the plan's compared steps, instead of the plan's",
+                ),
             ),
         ),
         MethodSpec(
@@ -283,6 +289,17 @@ METHODS: dict[str, MethodSpec] = {
         MethodSpec(
             Method.READING_CAPTURE,
             "Capture the charge integrated so far as a reading now (manual capture).",
+        ),
+        MethodSpec(
+            Method.READING_SHORT,
+            "Record that the delivery of a reading of the session stopped short, with the MU "
+            "the treatment machine reports as delivered and why; the results refer the "
+            "reading to the planned MU.",
+            (
+                Param("reading", "integer", required=True, doc="the reading's id"),
+                Param("actual_MU", "number", required=True, doc="MU delivered, below planned"),
+                Param("reason", "string", required=True, doc="why the delivery stopped short"),
+            ),
         ),
         MethodSpec(Method.SET_ACCEPT, "Accept the reviewed set and move to the next step."),
         MethodSpec(

@@ -1011,7 +1011,10 @@ class Daemon:
             M.VISIT_CONFIRM_AIR: lambda: desk.confirm_air(actor),
             M.VISIT_CLOSE: lambda: desk.close(params.get("reason"), actor),
             M.SESSION_START: lambda: engine.start_session(
-                params["metadata"], params.get("plan"), actor=actor
+                params["metadata"],
+                params.get("plan"),
+                actor=actor,
+                mu_per_reading=params.get("mu_per_reading"),
             ),
             M.ENVIRONMENT_SET: lambda: engine.set_environment(
                 params["temperature_C"],
@@ -1025,6 +1028,9 @@ class Daemon:
             M.STEP_MANUAL_DONE: lambda: engine.manual_done(params.get("note"), actor=actor),
             M.STEP_SKIP: lambda: engine.skip(actor=actor),
             M.READING_CAPTURE: lambda: engine.capture(actor=actor),
+            M.READING_SHORT: lambda: engine.record_short_delivery(
+                params["reading"], params["actual_MU"], params["reason"], actor=actor
+            ),
             M.SET_ACCEPT: lambda: engine.accept(actor=actor),
             M.SET_REDO: lambda: engine.redo(params["reason"], actor=actor),
             M.SESSION_PAUSE: lambda: engine.pause(actor=actor),

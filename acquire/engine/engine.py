@@ -48,6 +48,8 @@ from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
+from chargebook.corrections.delivered_mu import check_actual_MU
+from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -170,6 +172,7 @@ class Engine:
         #: discarded by a pause), kept until the next reading is recorded or the set is closed.
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
+        self.actual_MU: dict[int, float] = {}  # reading id -> MU delivered, when stopped short
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Any] | None = None
         self.seq = 0  # every snapshot
@@ -312,11 +315,22 @@ class Engine:
     # ----------------------------------------------------------------- session actions
     @one_transaction
     def start_session(
-        self, metadata: dict[str, Any], plan: Any = None, actor: str = DAEMON_ACTOR
+        self,
+        metadata: dict[str, Any],
+        plan: Any = None,
+        actor: str = DAEMON_ACTOR,
+        mu_per_reading: float | None = None,
     ) -> int:
-        """Open a session with validated metadata and a plan; return its id."""
+        """Open a session with validated metadata and a plan; return its id.
+
+        ``mu_per_reading``: the MU per reading the operator chose in the setup for the plan's
+        compared steps (routine, opposite, reduced, return check), instead of the plan's.
+        """
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
+        planned_mu = resolved.result_mu_per_reading()
+        if mu_per_reading is not None:
+            resolved = resolved.with_mu_per_reading(mu_per_reading)
         checked = rules.validate_metadata(
             carried_metadata(
                 self.store, rules.validate_metadata(metadata), resolved, self.store.stamp()[:10]
@@ -331,7 +345,7 @@ class Engine:
         )
         self.session_id, self.plan, self.metadata = session_id, resolved, checked
         self.skipped, self.active, self.bias_V = set(), None, None
-        self.integration_s = {}
+        self.integration_s, self.actual_MU = {}, {}
         self.thresholds = self.default_thresholds
         self._event(actor, rules.THRESHOLDS_EVENT, **asdict(self.thresholds))
         self._event(
@@ -340,6 +354,13 @@ class Engine:
         carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
         if carried:
             self._event(actor, CARRIED_EVENT, **carried)
+        if mu_per_reading is not None:
+            self._event(
+                actor,
+                "mu_per_reading_set",
+                plan_MU=planned_mu,
+                mu_per_reading=resolved.result_mu_per_reading(),
+            )
         if checked.get("subtract_leakage"):
             self._event(actor, rules.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
         if self.identity is not None:
@@ -369,6 +390,50 @@ class Engine:
         self._event(actor, "environment_entered", environment_id=entry_id, source=source, **entry)
         self._changed()
         return entry_id
+
+    @one_transaction
+    def record_short_delivery(
+        self, reading_id: int, actual_MU: float, reason: str, actor: str = DAEMON_ACTOR
+    ) -> None:
+        """Record that the delivery of a reading of this session stopped short at ``actual_MU``
+        (the MU the treatment machine reports), with the operator's reason; the results then
+        refer the reading to the planned MU. Refused by name for a reading of another session
+        or without beam, an MU not below the planned, an empty reason, or a second record."""
+        if self.session_id is None or self.state in (S.IDLE, S.FINISHED, S.ABORTED):
+            raise IllegalTransition(
+                Method.READING_SHORT, self.state, self.allowed(), "no session is being measured"
+            )
+        found = [r for r in self.store.readings(self.session_id) if r.id == reading_id]
+        if not found:
+            raise InputError(
+                "reading", reading_id, f"a reading of session {self.session_id}", "is not one"
+            )
+        reading = found[0]
+        step = self.plan.steps[self.store.reading_set(reading.set_id).step_index]
+        if not step.uses_beam:
+            raise InputError("reading", reading_id, "a reading with beam", "was read without beam")
+        if reading_id in self.actual_MU:
+            raise InputError(
+                "reading",
+                reading_id,
+                "a reading whose delivered MU is not yet recorded",
+                f"is already recorded at {self.actual_MU[reading_id]:g} MU",
+            )
+        planned = float(step.mu_per_reading)
+        actual = check_actual_MU(actual_MU, planned)
+        if not isinstance(reason, str) or not reason.strip():
+            raise InputError("reason", reason, "why the delivery stopped short", "is empty")
+        self._event(
+            actor,
+            rules.SHORT_DELIVERY_EVENT,
+            reading_id=reading_id,
+            set_id=reading.set_id,
+            planned_MU=planned,
+            actual_MU=actual,
+            reason=reason.strip(),
+        )
+        self.actual_MU[reading_id] = actual
+        self._changed()
 
     @one_transaction
     def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
@@ -756,6 +821,7 @@ class Engine:
         if bias_events:
             self.bias_V = float(bias_events[-1]["volts"])
         self.integration_s = rules.integration_times(events)
+        self.actual_MU = rules.actual_monitor_units(events)
         self.thresholds = rules.session_thresholds(events)
         sets = self.store.sets(row.id)
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
@@ -792,7 +858,12 @@ class Engine:
             value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
         else:
             context = SessionContext(
-                self.plan, self.metadata, self.thresholds, self.integration_s, self.time_scale
+                self.plan,
+                self.metadata,
+                self.thresholds,
+                self.integration_s,
+                self.time_scale,
+                self.actual_MU,
             )
             active_id = self.active.id if self.active is not None else None
             found = evaluate_session(self.store, self.session_id, context, active_id)

@@ -96,6 +96,21 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         return "daemon restarted", f"the previous run {previous}{stop}"
     if kind == "daemon_stopped":
         return "daemon stopped", _reason(detail.get("reason"))
+    if kind == "delivery_short":
+        return "delivery stopped short", (
+            f"reading {detail.get('reading_id')}: {detail.get('actual_MU'):g} MU delivered of "
+            f"{detail.get('planned_MU'):g} planned, its charge referred to the planned MU; "
+            f"{_reason(detail.get('reason'))}"
+        )
+    if kind == "mu_per_reading_set":
+        return "MU per reading set in the setup", (
+            f"{detail.get('mu_per_reading'):g} MU (the plan's: {detail.get('plan_MU'):g} MU)"
+        )
+    if kind == "visit_beam":
+        return "beam of a visit", (
+            f"beam {detail.get('position')}, {detail.get('beam')}, "
+            f"of visit {detail.get('visit_id')}"
+        )
     return kind.replace("_", " "), _detail_text(detail)
 
 

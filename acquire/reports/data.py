@@ -49,6 +49,9 @@ AUDIT_EVENT_KINDS = (
     "daemon_restarted",
     "note",
     LEAKAGE_SUBTRACTION_EVENT,
+    "delivery_short",
+    "mu_per_reading_set",
+    "visit_beam",
 )
 INSTRUMENT_EVENT = "instrument_identified"
 

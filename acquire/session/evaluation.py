@@ -26,7 +26,7 @@ Nothing here computes physics.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 from chargebook.acquire.record.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
@@ -34,6 +34,7 @@ from chargebook.acquire.session import rules
 from chargebook.acquire.session.metadata import SessionMetadata, validate_metadata
 from chargebook.acquire.session.plan import Plan
 from chargebook.corrections.carried import MEASURED_BY
+from chargebook.corrections.delivered_mu import charge_at_planned_MU_nC
 from chargebook.corrections.errors import Flag, InputError
 from chargebook.corrections.evaluate import Evaluation, MeasurementInputs, evaluate
 from chargebook.corrections.leakage import leakage_per_reading_nC
@@ -70,6 +71,8 @@ class SessionContext:
     #: The daemon's --time-scale (its waits were this fraction of real ones), to judge
     #: integration times against the MU delivered; 1 for a session with no such record.
     time_scale: float = 1.0
+    #: Reading id -> the MU actually delivered, for deliveries that stopped short.
+    actual_MU: Mapping[int, float] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -97,6 +100,7 @@ def stored_context(store: Store, session_id: int, events: Sequence[EventRow]) ->
         thresholds=rules.session_thresholds(events),
         integration_s=rules.integration_times(events),
         time_scale=rules.recorded_time_scale(events) or 1.0,
+        actual_MU=rules.actual_monitor_units(events),
     )
 
 
@@ -121,6 +125,7 @@ def evaluate_session(
         metadata = validate_metadata(dict(context.metadata))
         stage = "the recorded values cannot be evaluated"
         sets, by_set = _recorded_sets(store, session_id)
+        by_set = _at_planned_MU(context, sets, by_set)
         chosen = _result_sets(sets, by_set, context.plan, context.integration_s, active_set_id)
         inputs = _inputs(store, session_id, context, metadata, chosen)
         evaluation = evaluate(inputs)
@@ -188,6 +193,32 @@ def _recorded_sets(
     for reading in store.readings(session_id):
         by_set.setdefault(reading.set_id, []).append(reading)
     return store.sets(session_id), by_set
+
+
+def _at_planned_MU(
+    context: SessionContext, sets: Sequence[SetRow], by_set: dict[int, list[ReadingRow]]
+) -> dict[int, list[ReadingRow]]:
+    """Return the readings by set with each short delivery's charge referred to the planned MU
+    (``corrections.delivered_mu``), so that the charge per MU and the dose use the actual MU."""
+    if not context.actual_MU:
+        return by_set
+    steps = {row.id: context.plan.steps[row.step_index] for row in sets}
+    return {
+        set_id: [
+            replace(
+                reading,
+                charge_nC=charge_at_planned_MU_nC(
+                    reading.charge_nC,
+                    float(steps[set_id].mu_per_reading),
+                    context.actual_MU[reading.id],
+                ),
+            )
+            if reading.id in context.actual_MU
+            else reading
+            for reading in readings
+        ]
+        for set_id, readings in by_set.items()
+    }
 
 
 def _result_sets(

@@ -46,7 +46,7 @@ import math
 import re
 import tomllib
 from collections.abc import Mapping
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field, fields, replace
 from importlib import resources
 from pathlib import Path
 from typing import Any
@@ -382,6 +382,36 @@ class Plan:
             seen.add(step.key)
             self._check_step_bias(index, step)
         self._check_equal_mu()
+
+    def result_mu_per_reading(self) -> float | None:
+        """Return the MU per reading of the compared steps (one value, by the equal-MU rule),
+        or None for a plan without one."""
+        compared = [s.mu_per_reading for s in self.steps if s.purpose in COMPARED_PURPOSES]
+        return float(compared[0]) if compared else None
+
+    def with_mu_per_reading(self, mu_per_reading: object) -> Plan:
+        """Return the plan with ``mu_per_reading`` MU per reading for every compared step
+        (routine, opposite, reduced, return check), checked as a plan is (the MU range, the
+        equal-MU rule); leakage and warm-up keep theirs. Each changed step's prompt says the
+        new MU where it said the old."""
+        if (
+            isinstance(mu_per_reading, bool)
+            or not isinstance(mu_per_reading, int | float)
+            or not math.isfinite(mu_per_reading)
+        ):
+            raise InputError("mu_per_reading", mu_per_reading, "a number of MU", "is not one")
+        mu = float(mu_per_reading)
+        steps = tuple(
+            replace(
+                step,
+                mu_per_reading=mu,
+                prompt=step.prompt.replace(f"{step.mu_per_reading:g} MU", f"{mu:g} MU"),
+            )
+            if step.purpose in COMPARED_PURPOSES
+            else step
+            for step in self.steps
+        )
+        return replace(self, steps=steps)
 
     def _check_equal_mu(self) -> None:
         """Refuse result steps of unequal MU: k_pol and k_s are ratios of mean charges."""

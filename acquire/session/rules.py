@@ -309,6 +309,20 @@ def session_thresholds(events: Sequence[EventRow]) -> Thresholds:
 
 
 # ----------------------------------------------------------------------- session events
+#: The event recording a delivery that stopped short, with the MU actually delivered.
+SHORT_DELIVERY_EVENT = "delivery_short"
+
+
+def actual_monitor_units(events: Sequence[EventRow]) -> dict[int, float]:
+    """Return reading id -> the MU actually delivered, for readings whose delivery stopped
+    short (``delivery_short`` events)."""
+    return {
+        int(event.detail()["reading_id"]): float(event.detail()["actual_MU"])
+        for event in events
+        if event.kind == SHORT_DELIVERY_EVENT
+    }
+
+
 def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
     """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
     times: dict[int, float] = {}
