@@ -365,13 +365,20 @@ METHODS: dict[str, MethodSpec] = {
             "is the metadata's beam; two beams of one name are refused) and its plan.",
             (
                 Param("metadata", "object", required=True, doc="the beam's session metadata"),
-                Param("plan", "string", required=True, doc="a shipped plan's name"),
+                Param("plan", "string", doc="a shipped plan's name or a file; default: --plan"),
             ),
         ),
         MethodSpec(
             Method.VISIT_START_BEAM,
             "Start the session of a beam of the visit (planned, skipped or left unfinished).",
-            (Param("beam", "string", required=True, doc="the beam's name"),),
+            (
+                Param("beam", "string", required=True, doc="the beam's name"),
+                Param(
+                    "mu_per_reading",
+                    "number",
+                    doc="MU per reading of the plan's compared steps, instead of the plan's",
+                ),
+            ),
         ),
         MethodSpec(
             Method.VISIT_SKIP_BEAM,
@@ -650,6 +657,9 @@ class Snapshot(TypedDict):
     #: results (``acquire.session.visit_summary``), its review, and ``air`` (when the air data
     #: were last read in it); absent or None outside a visit.
     visit: NotRequired[dict[str, Any] | None]
+    #: The plans a setup may choose (the daemon's own first): name, description,
+    #: mu_per_reading of the compared steps, daemon_default.
+    plans: NotRequired[list[dict[str, Any]]]
 
 
 class EventInfo(TypedDict):

@@ -898,6 +898,7 @@ class Daemon:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         snapshot["visit"] = self.visit_desk().snapshot()
+        snapshot["plans"] = self.visit_desk().plan_choices()
         try:
             return snapshot, _snapshot_notification(snapshot)
         except ValueError:
@@ -1005,8 +1006,10 @@ class Daemon:
         M = protocol.Method
         actions: dict[str, Callable[[], Any]] = {
             M.VISIT_START: lambda: desk.start(params["machine"], params["metadata"], actor),
-            M.VISIT_ADD_BEAM: lambda: desk.add_beam(params["metadata"], params["plan"], actor),
-            M.VISIT_START_BEAM: lambda: desk.start_beam(params["beam"], actor),
+            M.VISIT_ADD_BEAM: lambda: desk.add_beam(params["metadata"], params.get("plan"), actor),
+            M.VISIT_START_BEAM: lambda: desk.start_beam(
+                params["beam"], actor, params.get("mu_per_reading")
+            ),
             M.VISIT_SKIP_BEAM: lambda: desk.skip_beam(params["beam"], params["reason"], actor),
             M.VISIT_CONFIRM_AIR: lambda: desk.confirm_air(actor),
             M.VISIT_CLOSE: lambda: desk.close(params.get("reason"), actor),

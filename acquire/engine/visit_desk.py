@@ -13,6 +13,7 @@ Every method that writes runs inside the engine's ``all_or_nothing`` (the daemon
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
@@ -20,6 +21,7 @@ from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
 from chargebook.acquire.record import visits
 from chargebook.acquire.session import rules, visit_rules
+from chargebook.acquire.session.plan import load_plan, shipped_plans
 from chargebook.acquire.session.visit_summary import summarize_visit
 from chargebook.corrections.errors import InputError
 
@@ -33,6 +35,7 @@ class VisitDesk:
         self.visit_id: int | None = None  # the visit shown: open, or just closed
         self._summary: tuple[tuple[int, int], dict[str, Any] | None] | None = None
         self.version = 0
+        self._plans: list[dict[str, Any]] | None = None
 
     def restore(self) -> None:
         """Take up the visit left open by an earlier run of the daemon, if any."""
@@ -48,10 +51,14 @@ class VisitDesk:
         self._changed()
         return visit_id
 
-    def add_beam(self, metadata: dict[str, Any], plan: str, actor: str = DAEMON_ACTOR) -> int:
-        """Add a beam (its session metadata; its name is the metadata's ``beam``) with the
-        name of its plan (a full calibration or an output check); return its id."""
+    def add_beam(
+        self, metadata: dict[str, Any], plan: str | None = None, actor: str = DAEMON_ACTOR
+    ) -> int:
+        """Add a beam (its session metadata; its name is the metadata's ``beam``) with its
+        plan (a shipped plan's name or a plan file; None: the daemon's own); return its id."""
         current = self._open(Method.VISIT_ADD_BEAM)
+        if plan is None:
+            plan = self._own_plan()
         rules.resolve_plan(plan)  # an unknown plan is refused now, not when the beam starts
         checked = rules.validate_metadata(visit_rules.beam_metadata(current.machine, metadata))
         beam_id = visits.add_beam(
@@ -60,8 +67,18 @@ class VisitDesk:
         self._changed()
         return beam_id
 
-    def start_beam(self, beam: int | str, actor: str = DAEMON_ACTOR) -> int:
-        """Start the session of one beam (by id or name); return the session id."""
+    def _own_plan(self) -> str:
+        """Return the daemon's own plan as the name or file a beam records."""
+        default = self.engine.default_plan
+        if isinstance(default, str | Path):
+            return str(default)
+        raise InputError("plan", None, "a shipped plan's name or a plan file", "is missing")
+
+    def start_beam(
+        self, beam: int | str, actor: str = DAEMON_ACTOR, mu_per_reading: float | None = None
+    ) -> int:
+        """Start the session of one beam (by id or name), with the MU per reading chosen in
+        the setup (None: the plan's); return the session id."""
         current = self._open(Method.VISIT_START_BEAM)
         state = self._beam(current.id, beam)
         if state.status not in visits.STARTABLE:
@@ -71,7 +88,9 @@ class VisitDesk:
                 "a beam planned, skipped or left unfinished",
                 f"is {state.status} (session {state.session_id})",
             )
-        session_id = self.engine.start_session(state.beam.metadata(), state.beam.plan, actor)
+        session_id = self.engine.start_session(
+            state.beam.metadata(), state.beam.plan, actor, mu_per_reading
+        )
         visits.link_session(self.store, current.id, state.beam.id, session_id, actor)
         self._changed()
         return session_id
@@ -120,6 +139,25 @@ class VisitDesk:
         )
 
     # ------------------------------------------------------------------------- reading
+    def plan_choices(self) -> list[dict[str, Any]]:
+        """Return the plans a setup may choose, the daemon's own first: name, description and
+        MU per reading of the compared steps (what the setup's MU entry starts from)."""
+        if self._plans is None:
+            default = self.engine.default_plan
+            plans = [rules.resolve_plan(default)] if default is not None else []
+            names = {plan.name for plan in plans}
+            plans += [load_plan(name) for name in shipped_plans() if name not in names]
+            self._plans = [
+                {
+                    "name": plan.name,
+                    "description": plan.description,
+                    "mu_per_reading": plan.result_mu_per_reading(),
+                    "daemon_default": index == 0 and default is not None,
+                }
+                for index, plan in enumerate(plans)
+            ]
+        return self._plans
+
     def snapshot(self) -> dict[str, Any] | None:
         """Return the visit shown (summary across beams, the air data's reading time and the
         age limit), or None; cached until the engine's record or the visit changes."""

@@ -16,7 +16,12 @@ from chargebook.acquire.reports.html import table_html
 from chargebook.acquire.reports.printed import SignOff, page, review_block
 from chargebook.acquire.reports.result import expanded_uncertainty_text
 from chargebook.acquire.reports.sections import NOT_GIVEN, Table, keyed_table, number, signed, when
-from chargebook.acquire.session.visit_summary import BeamSummary, VisitSummary, summarize_visit
+from chargebook.acquire.session.visit_summary import (
+    BeamSummary,
+    VisitSummary,
+    plan_name,
+    summarize_visit,
+)
 
 
 def _status_text(beam: BeamSummary) -> str:
@@ -51,7 +56,7 @@ def summary_table(summary: VisitSummary) -> Table:
             (
                 str(beam.state.beam.position),
                 beam.state.beam.name,
-                beam.state.beam.plan,
+                plan_name(beam.state.beam.plan),
                 _status_text(beam),
                 NOT_GIVEN if beam.state.session_id is None else str(beam.state.session_id),
                 NOT_GIVEN if found is None else number(found.dose_per_MU_cGy, 4),

@@ -11,6 +11,7 @@ the numbers are the evaluation's. The console (through the daemon's snapshot), `
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.record import visits
@@ -45,7 +46,8 @@ class BeamSummary:
             "beam_id": beam.id,
             "position": beam.position,
             "name": beam.name,
-            "plan": beam.plan,
+            "plan": plan_name(beam.plan),
+            "plan_source": beam.plan,
             "status": self.state.status,
             "reason": self.state.reason,
             "session": self.state.session_id,
@@ -83,6 +85,11 @@ class VisitSummary:
             "beams": [beam.to_dict() for beam in self.beams],
             "review": None if self.review is None else self.review.to_dict(),
         }
+
+
+def plan_name(plan: str) -> str:
+    """Return a plan as a beam shows it: a shipped plan's name, or a plan file's stem."""
+    return Path(plan).stem if plan.endswith(".toml") else plan
 
 
 def summarize_visit(store: Store, visit_id: int) -> VisitSummary:

@@ -2,15 +2,19 @@
 
 Keys and buttons come from :data:`chargebook.tui.actions.ACTIONS`; each is enabled exactly
 when the daemon's snapshot allows it. Redo asks for a reason, abort asks to confirm, and a new
-temperature and pressure open their own entry form.
+temperature and pressure open their own entry form. In a calibration visit, under the step, the
+air entry in force, its source and its age (counted from when the values were read, flagged by
+name past the visit's age limit).
 """
 
 from __future__ import annotations
 
+from datetime import UTC, datetime
 from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
+from chargebook.tui import visit_view
 from chargebook.tui.actions import ACTIONS, ACTIONS_BY_NAME, is_allowed
 from chargebook.tui.messages import ActionRequested
 from chargebook.tui.screens.base import ConsoleScreen
@@ -29,7 +33,10 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, VerticalScroll
-from textual.widgets import Footer, TabbedContent, TabPane
+from textual.widgets import Footer, Static, TabbedContent, TabPane
+
+#: How often the air data's age is counted again while the screen stands still, in s.
+AIR_AGE_REFRESH_S = 30.0
 
 #: Actions that go straight to the daemon, without a question first.
 DIRECT_METHODS: dict[str, str] = {
@@ -65,6 +72,7 @@ class MeasureScreen(ConsoleScreen):
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status-line", markup=False)
         yield StepPanel(id="step-panel")
+        yield Static("", id="air-line", markup=False)
         with TabbedContent(id="measure-tabs", initial="now"):
             with TabPane(TABS[0][2], id="now"), Horizontal(id="now-columns"):
                 yield ReadingSetPanel(id="reading-set")
@@ -85,6 +93,7 @@ class MeasureScreen(ConsoleScreen):
         step_panel = self.query_one(StepPanel)
         step_panel.connected = self.link.connected
         step_panel.snapshot = snapshot
+        self.show_air()
         self.query_one(ReadingSetPanel).set_info = shown_set
         self.query_one(FlagList).show_flags(shown_set, snapshot)
         count = flag_count(shown_set, snapshot)
@@ -98,6 +107,18 @@ class MeasureScreen(ConsoleScreen):
         action_bar = self.query_one(ActionBar)
         action_bar.display = not self.watching  # a watching console offers no action
         action_bar.show_allowed(self.allowed())
+
+    def show_air(self) -> None:
+        """Show, in a calibration visit, the air entry in force, its source and its age now."""
+        shown = self.query_one("#air-line", Static)
+        visit = (self.snapshot or {}).get("visit") or {}
+        shown.display = visit.get("status") == "open"
+        if shown.display:
+            shown.update(visit_view.air_line(self.snapshot, datetime.now(UTC)))
+
+    def on_mount(self) -> None:
+        super().on_mount()
+        self.set_interval(AIR_AGE_REFRESH_S, self.show_air)
 
     @staticmethod
     def _shown_set(snapshot: dict[str, Any]) -> dict[str, Any] | None:

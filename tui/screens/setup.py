@@ -1,7 +1,11 @@
-"""Session setup: metadata, calibration, convention, beam type, air temperature and pressure.
+"""Session setup: metadata, calibration, convention, beam type, plan and MU per reading, air
+temperature and pressure; and the calibration visit, when one is open.
 
 Every entry is checked as it is typed. Start opens the session in the daemon, then records the
-temperature and pressure; a refusal from the daemon appears under the entry it names.
+temperature and pressure; a refusal from the daemon appears under the entry it names. In a
+visit (Ctrl+O opens one at the form's machine), Start measures the form's beam as the visit's
+next beam (or a beam already planned under that name), and the last temperature and pressure,
+confirmed with Ctrl+L, are carried by the daemon only if they were read recently enough.
 """
 
 from __future__ import annotations
@@ -11,9 +15,12 @@ from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import CAUTION, Method
+from chargebook.tui import visit_view
 from chargebook.tui.messages import SetupFinished
 from chargebook.tui.screens.base import ConsoleScreen, Sender
+from chargebook.tui.screens.dialogs import ReasonScreen
 from chargebook.tui.widgets.caution_line import CautionLine
+from chargebook.tui.widgets.delivery_fields import DeliveryFields
 from chargebook.tui.widgets.environment_fields import EnvironmentFields
 from chargebook.tui.widgets.session_form import SessionForm
 from chargebook.tui.widgets.status_line import StatusLine
@@ -33,6 +40,9 @@ class SetupScreen(ConsoleScreen):
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("ctrl+s", "start", "Start session", priority=True),
         Binding("ctrl+l", "use_last_entry", "Use last T & P", priority=True),
+        Binding("ctrl+o", "open_visit", "Open visit", priority=True),
+        Binding("ctrl+k", "skip_beam", "Skip next beam", priority=True),
+        Binding("ctrl+e", "close_visit", "Close visit", priority=True),
     ]
 
     def __init__(self, send: Sender, defaults: Mapping[str, Any] | None = None) -> None:
@@ -45,8 +55,10 @@ class SetupScreen(ConsoleScreen):
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status-line", markup=False)
         yield Static(INTRO, id="setup-intro", markup=False)
+        yield Static("", id="visit-panel", markup=False)
         with VerticalScroll(id="setup-body"):
             yield SessionForm(self.defaults)
+            yield DeliveryFields((self.snapshot or {}).get("plans") or [])
             yield Static("Air at the chamber", classes="section-title", markup=False)
             yield EnvironmentFields(self.defaults, ask_again=True)
             yield Static(f"Caution: {CAUTION}", id="setup-caution", markup=False)
@@ -65,6 +77,28 @@ class SetupScreen(ConsoleScreen):
         """Return the temperature and pressure entries."""
         return self.query_one(EnvironmentFields)
 
+    @property
+    def delivery(self) -> DeliveryFields:
+        """Return the plan and MU per reading entries."""
+        return self.query_one(DeliveryFields)
+
+    @property
+    def visit(self) -> dict[str, Any] | None:
+        """Return the open calibration visit, or None."""
+        visit = (self.snapshot or {}).get("visit")
+        return visit if visit and visit.get("status") == "open" else None
+
+    def render_snapshot(self, snapshot: dict[str, Any]) -> None:
+        """Show the calibration visit (its beams and their results), if there is one."""
+        lines = visit_view.visit_lines(snapshot)
+        panel = self.query_one("#visit-panel", Static)
+        panel.display = bool(lines)
+        panel.update("\n".join(lines))
+        label = (
+            "Measure this beam in the visit (Ctrl+S)" if self.visit else "Start session (Ctrl+S)"
+        )
+        self.query_one("#start", Button).label = label
+
     def holds_screen(self) -> bool:
         """Stay up while the session is being started, until the air data are recorded too."""
         return self.starting or self.session_opened
@@ -76,6 +110,12 @@ class SetupScreen(ConsoleScreen):
             return Method.SESSION_START in self.allowed() or self.session_opened or None
         if action == "use_last_entry":
             return self.environment.last_entry is not None
+        if action == "open_visit":
+            return self.visit is None and Method.SESSION_START in self.allowed()
+        if action == "skip_beam":
+            return self.visit is not None and visit_view.next_planned(self.snapshot) is not None
+        if action == "close_visit":
+            return self.visit is not None
         return True
 
     def action_use_last_entry(self) -> None:
@@ -93,23 +133,32 @@ class SetupScreen(ConsoleScreen):
         """Check every entry, then open the session and record the air data."""
         metadata = self.form.metadata()
         environment = self.environment.params()
-        if metadata is None or environment is None:
+        delivery = self.delivery.params()
+        if metadata is None or environment is None or delivery is None:
             self._say("Not started: correct the entries marked !! first.")
             return
-        self._start(metadata, environment)
+        self._start(metadata, environment, delivery)
 
     @work(exclusive=True, group="setup")
-    async def _start(self, metadata: dict[str, Any], environment: dict[str, Any]) -> None:
+    async def _start(
+        self, metadata: dict[str, Any], environment: dict[str, Any], delivery: dict[str, Any]
+    ) -> None:
         self.starting = True
         try:
             if not self.session_opened:
-                await self.send(Method.SESSION_START, metadata=metadata)
+                await self._open_session(metadata, delivery)
                 self.session_opened = True
-            source = self.environment.source()
-            await self.send(Method.ENVIRONMENT_SET, source=source, **environment)
+            if self.visit is not None and self.environment.confirmed_last:
+                await self.send(Method.VISIT_CONFIRM_AIR)
+            else:
+                source = self.environment.source()
+                await self.send(Method.ENVIRONMENT_SET, source=source, **environment)
         except DaemonError as error:
+            if error.field == "air_max_age_min":
+                self.environment.confirmed_last = False  # the values must be read again
             shown = self.form.show_refusal(error.field, error.message)
             shown = shown or self.environment.show_refusal(error.field, error.message)
+            shown = shown or self.delivery.show_refusal(error.field, error.message)
             self._say("Not started: see the entry marked !!" if shown else f"!! {error}")
             return
         except ConnectionLost as error:
@@ -119,6 +168,63 @@ class SetupScreen(ConsoleScreen):
             self.starting = False
         self.session_opened = False
         self.post_message(SetupFinished())
+
+    async def _open_session(self, metadata: dict[str, Any], delivery: dict[str, Any]) -> None:
+        """Open the session: on its own, or as a beam of the open visit (added to the visit
+        first unless a beam of that name is planned there already)."""
+        if self.visit is None:
+            await self.send(Method.SESSION_START, metadata=metadata, **delivery)
+            return
+        name = str(metadata.get("beam", ""))
+        known = [b for b in self.visit.get("beams") or [] if b.get("name") == name]
+        if not known:
+            plan = {"plan": delivery["plan"]} if "plan" in delivery else {}
+            await self.send(Method.VISIT_ADD_BEAM, metadata=metadata, **plan)
+        mu = {"mu_per_reading": delivery["mu_per_reading"]} if "mu_per_reading" in delivery else {}
+        await self.send(Method.VISIT_START_BEAM, beam=name, **mu)
+
+    def action_open_visit(self) -> None:
+        """Open a calibration visit at the form's machine, with the form's operator."""
+        metadata = self.form.metadata()
+        if metadata is None:
+            self._say("No visit opened: correct the entries marked !! first.")
+            return
+        self._request(
+            Method.VISIT_START,
+            machine=metadata.get("treatment_machine", ""),
+            metadata={"operator": metadata.get("operator", "")},
+        )
+
+    def action_skip_beam(self) -> None:
+        """Ask why, then record the visit's next planned beam as skipped."""
+        beam = visit_view.next_planned(self.snapshot)
+        if beam is None:
+            return
+
+        def skip(reason: str | None) -> None:
+            if reason:
+                self._request(Method.VISIT_SKIP_BEAM, beam=beam["name"], reason=reason)
+
+        question = f"Why is beam {beam['name']} not measured in this visit?"
+        self.app.push_screen(ReasonScreen("Skip a beam", question, "Skip beam (Enter)"), skip)
+
+    def action_close_visit(self) -> None:
+        """Ask why (beams not measured are recorded unfinished with it), then close the visit."""
+
+        def close(reason: str | None) -> None:
+            if reason:
+                self._request(Method.VISIT_CLOSE, reason=reason)
+
+        question = "Close the visit? Beams not measured are recorded unfinished, with your words."
+        self.app.push_screen(ReasonScreen("Close the visit", question, "Close (Enter)"), close)
+
+    @work(group="requests")
+    async def _request(self, method: str, **params: Any) -> None:
+        """Send one visit action; a refusal is said in the daemon's words."""
+        try:
+            await self.send(method, **params)
+        except (DaemonError, ConnectionLost) as error:
+            self._say(f"!! Not done: {error}")
 
     def _say(self, message: str) -> None:
         self.problem_said = bool(message)

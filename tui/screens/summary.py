@@ -6,7 +6,7 @@ from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import CAUTION, Method
-from chargebook.tui import snapshot_view, text
+from chargebook.tui import snapshot_view, text, visit_view
 from chargebook.tui.screens.base import ConsoleScreen
 from chargebook.tui.widgets.results_panel import factor_table, results_table
 from chargebook.tui.widgets.status_line import StatusLine
@@ -89,6 +89,7 @@ class SummaryScreen(ConsoleScreen):
         yield StatusLine(id="status-line", markup=False)
         with VerticalScroll(id="summary-body"):
             yield Static("", id="summary-title", classes="panel-title", markup=False)
+            yield Static("", id="summary-visit", markup=False)
             yield Static("", id="summary-results", markup=False)
             yield Static("", id="summary-factors", markup=False)
             yield Static("", id="summary-flags", markup=False)
@@ -100,6 +101,10 @@ class SummaryScreen(ConsoleScreen):
 
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         self.query_one("#summary-title", Static).update(summary_title(snapshot))
+        visit = self.query_one("#summary-visit", Static)
+        lines = visit_view.visit_lines(snapshot)
+        visit.display = bool(lines)
+        visit.update("\n".join(lines))
         self.query_one("#summary-details", Static).update(details_table(snapshot))
         self.query_one("#summary-factors", Static).update(factor_table(snapshot.get("results")))
         self.query_one("#summary-results", Static).update(results_table(snapshot))
