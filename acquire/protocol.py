@@ -227,6 +227,9 @@ REVIEW_PARAMS: tuple[Param, ...] = (
         "allow_self_review", "boolean", doc="let the operator who measured review (default false)"
     ),
 )
+REVIEW_DB_PARAM = Param(
+    "db", "string", doc="the station file the client means; refused if the daemon keeps another"
+)
 REVIEW_RESULT = "the review: status, reviewer, comment, reviewed_at, account, measured_by"
 
 METHODS: dict[str, MethodSpec] = {
@@ -338,11 +341,7 @@ METHODS: dict[str, MethodSpec] = {
             (
                 Param("session", "integer", required=True, doc="the session id"),
                 *REVIEW_PARAMS,
-                Param(
-                    "db",
-                    "string",
-                    doc="the station file the client means; refused if the daemon keeps another",
-                ),
+                REVIEW_DB_PARAM,
             ),
             result=REVIEW_RESULT,
         ),
@@ -406,6 +405,7 @@ METHODS: dict[str, MethodSpec] = {
             (
                 Param("visit", "integer", required=True, doc="the visit id"),
                 *REVIEW_PARAMS,
+                REVIEW_DB_PARAM,
             ),
             result=REVIEW_RESULT,
         ),

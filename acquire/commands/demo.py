@@ -6,7 +6,8 @@ import argparse
 
 HELP = (
     "try chargebook on the simulated electrometer: starts it and the daemon, then opens the "
-    "console (or, with --unattended, runs the plan and prints the result beside the truth)"
+    "console (or, with --unattended, measures a visit of three beams, or one session on --plan, "
+    "and prints the result)"
 )
 
 
@@ -26,7 +27,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--db", metavar="FILE", help="demo database (default <data dir>/chargebook/demo.sqlite)"
     )
-    parser.add_argument("--plan", default="default", help="measurement plan (default: default)")
+    parser.add_argument(
+        "--plan",
+        help="measure one session on this plan (default: unattended, a calibration visit of "
+        "three beams of DEMO-LA1; with the console, the plan default)",
+    )
     parser.add_argument(
         "--time-scale",
         type=float,

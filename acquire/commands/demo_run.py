@@ -2,7 +2,9 @@
 operator), each a process of its own, with a clean shutdown whatever happens.
 
 The demo has its own database (``<data dir>/chargebook/demo.sqlite`` unless ``--db``), never
-the station's record, and invented session metadata (``demo_data``).
+the station's record, and invented session metadata (``demo_data``). Unattended and with no
+``--plan``, the automatic operator runs a calibration visit of three beams of the invented
+DEMO-LA1 (``demo_data.DEMO_VISIT_BEAMS``); with ``--plan``, one session on that plan.
 """
 
 from __future__ import annotations
@@ -42,7 +44,7 @@ def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child,
             [
                 "serve", "--profile", args.profile, "--port", simulator.info["serial"],
                 "--bench-control", simulator.info["control"], "--db", str(args.db_path),
-                "--socket", str(workdir / "daemon.sock"), "--plan", args.plan,
+                "--socket", str(workdir / "daemon.sock"), "--plan", args.plan or "default",
                 "--time-scale", str(args.time_scale), "--log-level", "INFO",
                 "--config", os.devnull,  # the demo reads no station file
             ],
@@ -129,7 +131,10 @@ async def _unattended(
 
     client = await DaemonClient.connect(socket_path, client="demo", operator=ACTOR)
     try:
-        final = await AutoOperator(client, environment, on_reading=progress).run(demo_metadata())
+        operator = AutoOperator(client, environment, on_reading=progress)
+        if args.plan is None:
+            return await _visit(args, operator, bench, out)
+        final = await operator.run(demo_metadata())
         truth = bench.truth()
     except AutoOperatorError as error:
         print(f"chargebook demo: {error}", file=sys.stderr)
@@ -144,4 +149,41 @@ async def _unattended(
     else:
         print("", file=out)
         print(result_table(document, truth), file=out)
+    return EXIT_OK
+
+
+async def _visit(args: argparse.Namespace, operator: Any, bench: Any, out: TextIO) -> int:
+    """Run the demo visit of three beams with ``operator``; print its result by beam."""
+    import datetime
+
+    from chargebook.acquire.commands.demo_data import DEMO_METADATA, demo_visit_beams
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.reports.text import tables_text
+    from chargebook.acquire.reports.visit import load_visit, visit_tables
+
+    truth = bench.truth()
+    today = datetime.datetime.now(datetime.UTC).date().isoformat()
+    beams = demo_visit_beams(truth, today)
+
+    def starting(metadata: dict[str, Any], plan: str) -> None:
+        print(f"\nbeam {metadata['beam']}, plan {plan}", file=out, flush=True)
+
+    final = await operator.run_visit(
+        DEMO_METADATA["treatment_machine"], DEMO_METADATA["operator"], beams, starting
+    )
+    visit_id = final["visit"]["id"]
+    with Store.open(args.db_path, read_only=True) as store:
+        summary, events = load_visit(store, visit_id)
+        if args.json:
+            print(json.dumps({**summary.to_dict(), "truth": truth}, indent=2, ensure_ascii=False))
+        else:
+            print("", file=out)
+            print(tables_text(visit_tables(summary, events)), file=out)
+            print(f"\n{CAUTION}", file=out)
+            print(
+                f"\nReview it as a second person: chargebook review --visit {visit_id} --approve "
+                f'--reviewer "reviewer B" --comment "..." --db {args.db_path}',
+                file=out,
+            )
     return EXIT_OK

@@ -5,7 +5,10 @@ the temperature and pressure (from the bench's thermometer and barometer, or val
 confirms each manual bias change (the daemon's bench turns the simulated switch), arms each
 step, lets the simulated linac deliver, accepts each completed set, continues a set that was
 interrupted once the instrument is back, and runs optional steps too. Every action is recorded
-in the audit log under the actor ``automatic operator``.
+in the audit log under the actor ``automatic operator``. It also runs a calibration visit
+(:meth:`AutoOperator.run_visit`): each beam in turn, the air of the first beam read from the
+bench and confirmed for the next ones while the daemon accepts the confirmation (else read
+again), then the visit closed.
 
 Used by ``chargebook run --unattended`` and ``chargebook demo --unattended``, and by tests.
 """
@@ -76,6 +79,8 @@ class AutoOperator:
         self.on_reading = on_reading
         self.stall_timeout_s = stall_timeout_s
         self._seen: set[int] = set()
+        #: In a visit, confirm the air last read in it instead of reading it again.
+        self.confirm_air = False
 
     async def start(
         self, metadata: dict[str, Any], plan: Any = None, *, take_over: bool = False
@@ -125,11 +130,47 @@ class AutoOperator:
         snapshot = await self.start(metadata, plan, take_over=take_over)
         return await self.run_until(snapshot, lambda s: s["state"] == EngineState.FINISHED)
 
+    async def run_visit(
+        self,
+        machine: str,
+        operator: str,
+        beams: list[tuple[dict[str, Any], str]],
+        on_beam: Callable[[dict[str, Any], str], None] | None = None,
+    ) -> dict[str, Any]:
+        """Open a visit at ``machine``, measure ``beams`` ((session metadata, plan) each) in
+        order, close the visit; return the final snapshot (its ``visit`` is the summary).
+        ``on_beam`` is told of each beam as it starts."""
+        snapshot = await self.client.subscribe()
+        if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
+            snapshot = await self.client.call(Method.SESSION_CLOSE)
+        try:
+            await self.client.call(
+                Method.VISIT_START, machine=machine, metadata={"operator": operator}
+            )
+            for index, (metadata, plan) in enumerate(beams):
+                await self.client.call(Method.VISIT_ADD_BEAM, metadata=metadata, plan=plan)
+                if on_beam is not None:
+                    on_beam(metadata, plan)
+                self.confirm_air = index > 0
+                snapshot = await self.client.call(Method.VISIT_START_BEAM, beam=metadata["beam"])
+                await self.run_until(snapshot, lambda s: s["state"] == EngineState.FINISHED)
+                await self.client.call(Method.SESSION_CLOSE)
+            return await self.client.call(Method.VISIT_CLOSE)
+        except DaemonError as refused:
+            raise AutoOperatorError(f"the visit cannot go on: {refused.message}") from None
+
     async def act(self, snapshot: dict[str, Any]) -> dict[str, Any]:
         """Do the one thing the snapshot asks for (or wait for the next snapshot)."""
         allowed = snapshot["allowed"]
         prompt = snapshot["prompt"]
         if prompt["kind"] == "environment" and Method.ENVIRONMENT_SET in allowed:
+            if self.confirm_air:
+                self.confirm_air = False  # once: a refusal means read the air again
+                try:
+                    return await self.client.call(Method.VISIT_CONFIRM_AIR)
+                except DaemonError as refused:
+                    if refused.field != "air_max_age_min":
+                        raise
             entry = self.environment()
             return await self.client.call(
                 Method.ENVIRONMENT_SET,

@@ -1,20 +1,24 @@
-"""`chargebook review SESSION`: a second person approves or rejects a closed session."""
+"""`chargebook review SESSION` (or `--visit ID`): a second person approves or rejects a closed
+session or calibration visit."""
 
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
 
-from chargebook.acquire.commands.station_reader import add_db_argument, add_session_argument
+from chargebook.acquire.commands.station_reader import (
+    add_db_argument,
+    add_session_or_visit_arguments,
+)
 
 HELP = (
-    "review a finished or aborted session as a second person: approve or reject it with a "
-    "comment, recorded in its audit with who and when"
+    "review a finished or aborted session, or a closed calibration visit (--visit), as a second "
+    "person: approve or reject it with a comment, recorded in its audit with who and when"
 )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_argument(parser)
+    add_session_or_visit_arguments(parser)
     decision = parser.add_mutually_exclusive_group(required=True)
     decision.add_argument(
         "--approve", dest="decision", action="store_const", const="approve", help="approve it"
@@ -48,12 +52,20 @@ def run(args: argparse.Namespace) -> int:
     """Record the review through the daemon that holds the station file, else directly."""
     import sys
 
-    from chargebook.acquire.commands.station_reader import missing_station_words
+    from chargebook.acquire.commands.station_reader import (
+        missing_station_words,
+        require_session_or_visit,
+    )
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
     from chargebook.acquire.record.station_lock import StationInUse, StationLock
     from chargebook.acquire.record.store import StoreError, default_db_path
     from chargebook.corrections.errors import InputError
 
+    try:
+        require_session_or_visit(args)
+    except InputError as error:
+        print(f"chargebook: {error}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
     path = Path(args.db or default_db_path()).expanduser()
     if not path.is_file():
         print(f"chargebook: {missing_station_words(path)}", file=sys.stderr)
@@ -81,20 +93,36 @@ def run(args: argparse.Namespace) -> int:
 def _directly(args: argparse.Namespace, path: Path) -> int:
     """Write the review with the store (no daemon holds the file; this process holds its lock)."""
     from chargebook.acquire.exit_codes import EXIT_OK
-    from chargebook.acquire.record.review import local_account, record_review, review_words
+    from chargebook.acquire.record.review import (
+        local_account,
+        record_review,
+        record_visit_review,
+        review_words,
+    )
     from chargebook.acquire.record.store import Store
 
+    record = record_review if args.visit is None else record_visit_review
     with Store.open(path) as store, store.on_behalf_of(local_account()):
-        review = record_review(
+        review = record(
             store,
-            args.session,
+            _reviewed(args)[1],
             args.decision,
             args.reviewer,
             args.comment,
             allow_self_review=args.allow_self_review,
         )
-    print(f"session {args.session} {review_words(review)}: recorded in {path}")
+    print(f"{_reviewed_words(args)} {review_words(review)}: recorded in {path}")
     return EXIT_OK
+
+
+def _reviewed(args: argparse.Namespace) -> tuple[str, int]:
+    """Return what is reviewed: ("session", id) or ("visit", id)."""
+    return ("session", args.session) if args.visit is None else ("visit", args.visit)
+
+
+def _reviewed_words(args: argparse.Namespace) -> str:
+    kind, number = _reviewed(args)
+    return f"{kind} {number}"
 
 
 def _through_daemon(args: argparse.Namespace, path: Path) -> int:
@@ -113,9 +141,13 @@ def _through_daemon(args: argparse.Namespace, path: Path) -> int:
         async with await DaemonClient.connect(
             socket_path, client="review", operator=args.reviewer
         ) as client:
+            kind, number = _reviewed(args)
+            method = protocol.Method.SESSION_REVIEW
+            if kind == "visit":
+                method = protocol.Method.VISIT_REVIEW
             return await client.call(
-                protocol.Method.SESSION_REVIEW,
-                session=args.session,
+                method,
+                **{kind: number},
                 decision=args.decision,
                 reviewer=args.reviewer,
                 comment=args.comment,
@@ -137,5 +169,5 @@ def _through_daemon(args: argparse.Namespace, path: Path) -> int:
         )
         return EXIT_FAILURE
     words = review_words(Review(**review))
-    print(f"session {args.session} {words}: recorded by the daemon that holds {path}")
+    print(f"{_reviewed_words(args)} {words}: recorded by the daemon that holds {path}")
     return EXIT_OK

@@ -956,13 +956,7 @@ class Daemon:
     def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
         """Record a review (``session.review``); the reviewer named in it is the actor."""
         from chargebook.acquire.record.review import record_review
-        from chargebook.corrections.errors import InputError
 
-        meant = params.get("db")
-        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
-            raise InputError(
-                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
-            )
         return self._reviewed(connection, record_review, params["session"], params)
 
     def _review_visit(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
@@ -978,8 +972,16 @@ class Daemon:
     def _reviewed(
         self, connection: Connection, record: Callable[..., Any], of: int, params: dict[str, Any]
     ) -> dict[str, Any]:
-        """Record a review of ``of`` with ``record`` on behalf of the connection's account."""
+        """Record a review of ``of`` with ``record`` on behalf of the connection's account;
+        refuse a review meant for another station file (``db``)."""
+        from chargebook.corrections.errors import InputError
+
         assert self.store is not None
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
         with self.store.on_behalf_of(connection.account):
             review = record(
                 self.store,

@@ -181,9 +181,13 @@ def beam_states(store: Store, visit_id: int) -> list[BeamState]:
     return states
 
 
+#: The reason the engine gives a session that ran its whole plan (nothing to say on a beam).
+PLAN_COMPLETE = "plan complete"
+
+
 def _session_status(session: SessionRow) -> tuple[str, str | None]:
     if session.status == "finished":
-        return "measured", session.reason
+        return "measured", None if session.reason == PLAN_COMPLETE else session.reason
     if session.status == "aborted":
         return "unfinished", session.reason
     return "measuring", None
