@@ -39,26 +39,25 @@ def demo_metadata() -> dict[str, Any]:
     return dict(DEMO_METADATA)
 
 
+#: The demo clinic's electron beam (a plane-parallel chamber); demo only, not reference data.
+DEMO_ELECTRON: dict[str, Any] = {
+    "beam": "10 MeV",
+    "modality": "electron",
+    "R50_cm": 4.2,
+    "chamber_type": "plane-parallel",
+    "chamber_model": "plane-parallel 0.35 cc",
+    "chamber_serial": "SIM-CH-0003",
+    "k_Q": 0.91,
+    "k_Q_source": "own determination against the station's reference chamber",
+    "beam_quality": "10 MeV electrons",
+}
+
 #: The demo visit's beams of DEMO-LA1, in the order the demo measures them: (changes to the
 #: demo metadata, plan). Beam 2 is an output check whose k_pol and k_s are carried.
 DEMO_VISIT_BEAMS: tuple[tuple[dict[str, Any], str], ...] = (
     ({"beam": "6 MV"}, "default"),
     ({"beam": "10 MV", "k_Q": 0.985}, "monthly-check"),
-    (
-        {
-            "beam": "10 MeV",
-            "modality": "electron",
-            "R50_cm": 4.2,
-            "chamber_type": "plane-parallel",
-            "chamber_model": "plane-parallel 0.35 cc",
-            "chamber_serial": "SIM-CH-0003",
-            "k_Q": 0.91,
-            "k_Q_source": "own determination against the station's reference chamber (invented)",
-            "beam_quality": "10 MeV electrons",
-            "expected_cGy_per_MU": 0.92,
-        },
-        "default",
-    ),
+    ({**DEMO_ELECTRON, "expected_cGy_per_MU": 0.92}, "default"),
 )
 #: Where the demo's output check says its carried factors come from (invented).
 DEMO_CARRIED_SOURCE = "annual calibration of DEMO-LA1 10 MV at Example Clinic (fictional)"

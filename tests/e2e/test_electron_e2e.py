@@ -13,6 +13,7 @@ import subprocess
 
 import pytest
 from chargebook.acquire.client import DaemonError
+from chargebook.acquire.commands.demo_data import DEMO_ELECTRON
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
 from chargebook.acquire.record.store import Store
 from e2e_support import chargebook_command
@@ -20,17 +21,7 @@ from e2e_support import chargebook_command
 pytestmark = pytest.mark.e2e
 
 #: An electron beam of the invented demo clinic (demo only, not reference data).
-ELECTRON = {
-    "beam": "10 MeV",
-    "modality": "electron",
-    "R50_cm": 4.2,
-    "chamber_type": "plane-parallel",
-    "chamber_model": "plane-parallel 0.35 cc",
-    "chamber_serial": "SIM-CH-0003",
-    "k_Q": 0.91,
-    "k_Q_source": "own determination against the station's reference chamber",
-    "beam_quality": "10 MeV electrons",
-}
+ELECTRON = DEMO_ELECTRON
 #: Wording that describes a photon beam's quality (TPR20,10, %dd(10)x, "6 MV photons").
 PHOTON = re.compile(r"TPR|%dd|dd\(10|photon|\d\s*MV\b", re.IGNORECASE)
 SAYS = "R50 = 4.2 cm, z_ref = 2.42 cm"
