@@ -2,7 +2,8 @@
 
 Keys and buttons come from :data:`chargebook.tui.actions.ACTIONS`; each is enabled exactly
 when the daemon's snapshot allows it. Redo asks for a reason, abort asks to confirm, and a new
-temperature and pressure open their own entry form. In a calibration visit, under the step, the
+temperature and pressure open their own entry form, and ``m`` records that the latest reading's
+delivery stopped short (the MU delivered and why). In a calibration visit, under the step, the
 air entry in force, its source and its age (counted from when the values were read, flagged by
 name past the visit's age limit).
 """
@@ -14,12 +15,13 @@ from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
-from chargebook.tui import visit_view
+from chargebook.tui import snapshot_view, visit_view
 from chargebook.tui.actions import ACTIONS, ACTIONS_BY_NAME, is_allowed
 from chargebook.tui.messages import ActionRequested
 from chargebook.tui.screens.base import ConsoleScreen
 from chargebook.tui.screens.dialogs import ConfirmScreen, redo_question
 from chargebook.tui.screens.environment import EnvironmentScreen
+from chargebook.tui.screens.short_delivery import ShortDeliveryScreen, latest_reading
 from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.flag_list import FlagList, flag_count
@@ -67,6 +69,7 @@ class MeasureScreen(ConsoleScreen):
             for action in ACTIONS
         ),
         *(Binding(key, f"show_tab('{tab}')", title, show=False) for key, tab, title in TABS),
+        Binding("m", "short_delivery", "MU short", show=False, tooltip="A delivery stopped short"),
     ]
 
     def compose(self) -> ComposeResult:
@@ -159,6 +162,17 @@ class MeasureScreen(ConsoleScreen):
             self.request(DIRECT_METHODS[name])
         else:
             questions[name]()
+
+    def action_short_delivery(self) -> None:
+        """Ask the MU delivered and why, for the latest reading of the set shown."""
+        snapshot = self.snapshot or {}
+        reading = latest_reading(self._shown_set(snapshot))
+        step = snapshot_view.current_step(snapshot)
+        if reading is None or step is None or not step.get("mu_per_reading"):
+            self.notify("No reading with beam to correct yet.", title="Not done", timeout=6)
+            return
+        planned = float(step["mu_per_reading"])
+        self.app.push_screen(ShortDeliveryScreen(self.send, reading, planned))
 
     def ask_redo(self) -> None:
         """Ask why, then redo the set (the present one is kept, marked superseded)."""
