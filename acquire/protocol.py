@@ -365,6 +365,11 @@ METHODS: dict[str, MethodSpec] = {
             (
                 Param("metadata", "object", required=True, doc="the beam's session metadata"),
                 Param("plan", "string", doc="a shipped plan's name or a file; default: --plan"),
+                Param(
+                    "register_ids",
+                    "object",
+                    doc="the beam's rows in the station registers, by register name (optional)",
+                ),
             ),
         ),
         MethodSpec(

@@ -1008,7 +1008,9 @@ class Daemon:
         M = protocol.Method
         actions: dict[str, Callable[[], Any]] = {
             M.VISIT_START: lambda: desk.start(params["machine"], params["metadata"], actor),
-            M.VISIT_ADD_BEAM: lambda: desk.add_beam(params["metadata"], params.get("plan"), actor),
+            M.VISIT_ADD_BEAM: lambda: desk.add_beam(
+                params["metadata"], params.get("plan"), actor, params.get("register_ids")
+            ),
             M.VISIT_START_BEAM: lambda: desk.start_beam(
                 params["beam"], actor, params.get("mu_per_reading")
             ),

@@ -52,7 +52,11 @@ class VisitDesk:
         return visit_id
 
     def add_beam(
-        self, metadata: dict[str, Any], plan: str | None = None, actor: str = DAEMON_ACTOR
+        self,
+        metadata: dict[str, Any],
+        plan: str | None = None,
+        actor: str = DAEMON_ACTOR,
+        register_ids: dict[str, int] | None = None,
     ) -> int:
         """Add a beam (its session metadata; its name is the metadata's ``beam``) with its
         plan (a shipped plan's name or a plan file; None: the daemon's own); return its id."""
@@ -61,8 +65,9 @@ class VisitDesk:
             plan = self._own_plan()
         rules.resolve_plan(plan)  # an unknown plan is refused now, not when the beam starts
         checked = rules.validate_metadata(visit_rules.beam_metadata(current.machine, metadata))
+        registers = visit_rules.check_register_ids(register_ids)
         beam_id = visits.add_beam(
-            self.store, current.id, str(checked["beam"]), plan, checked, actor
+            self.store, current.id, str(checked["beam"]), plan, checked, actor, registers
         )
         self._changed()
         return beam_id

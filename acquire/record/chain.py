@@ -75,7 +75,9 @@ CHAINED_TABLES = tuple(COLUMNS)
 #: :data:`COLUMNS`, which the migration ``chain_appended_rows`` reads as the tables of its day.
 VISIT_COLUMNS: dict[str, tuple[str, ...]] = {
     "visits": _names("id uuid created_at machine metadata_json"),
-    "visit_beams": _names("id visit_id position name plan metadata_json recorded_at"),
+    "visit_beams": _names(
+        "id visit_id position name plan metadata_json register_ids_json recorded_at"
+    ),
     "visit_sessions": _names("id visit_id beam_id session_id recorded_at"),
 }
 

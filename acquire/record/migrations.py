@@ -433,6 +433,7 @@ def _visits_tables() -> str:
         name TEXT NOT NULL COLLATE NOCASE,
         plan TEXT NOT NULL,
         metadata_json TEXT NOT NULL,
+        register_ids_json TEXT NOT NULL,
         recorded_at TEXT NOT NULL,
         chain_seq INTEGER,
         chain_hash TEXT,

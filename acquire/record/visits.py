@@ -76,10 +76,14 @@ class VisitBeamRow:
     name: str
     plan: str
     metadata_json: str
+    register_ids_json: str  # register name -> row id in the station registers ({} until then)
     recorded_at: str
 
     def metadata(self) -> dict[str, Any]:
         return json.loads(self.metadata_json)
+
+    def register_ids(self) -> dict[str, int]:
+        return json.loads(self.register_ids_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -239,8 +243,11 @@ def add_beam(
     plan: str,
     metadata: dict[str, Any],
     actor: str = DAEMON_ACTOR,
+    register_ids: dict[str, int] | None = None,
 ) -> int:
     """Append a beam to an open visit, after the ones already there; return its id.
+    ``register_ids``: the beam's rows in the station registers (machine and beam, chamber,
+    electrometer), by register name, once the station has registers.
 
     Refused by name (InputError on ``beam``) when the visit already has a beam of that name
     (case and repeated spaces aside): two beams of one name could not be told apart.
@@ -265,6 +272,7 @@ def add_beam(
             "name": name,
             "plan": plan,
             "metadata_json": json.dumps(metadata, sort_keys=True, allow_nan=False),
+            "register_ids_json": json.dumps(register_ids or {}, sort_keys=True),
             "recorded_at": store.stamp(),
         }
         beam_id = store.append_row("visit_beams", row)
@@ -432,4 +440,4 @@ def _state(store: Store, visit_id: int, beam_id: int) -> BeamState:
 
 
 _VISIT = "id, uuid, created_at, machine, metadata_json, status, closed_at, reason"
-_BEAM = "id, visit_id, position, name, plan, metadata_json, recorded_at"
+_BEAM = "id, visit_id, position, name, plan, metadata_json, register_ids_json, recorded_at"

@@ -50,7 +50,21 @@ def validate_visit_metadata(metadata: Mapping[str, Any]) -> dict[str, Any]:
         or not low <= age <= high
     ):
         raise InputError("air_max_age_min", age, f"{low:g} to {high:g} min", "is out of range")
-    registers = metadata.get("register_ids") or {}
+    checked: dict[str, Any] = {
+        "operator": " ".join(operator.split()),
+        "air_max_age_min": float(age),
+        "register_ids": check_register_ids(metadata.get("register_ids")),
+    }
+    if metadata.get("notes"):
+        checked["notes"] = str(metadata["notes"])
+    return checked
+
+
+def check_register_ids(registers: object) -> dict[str, int]:
+    """Return register row ids checked (register name -> row id; None: none). The station
+    registers of machines and beams, chambers and electrometers are not built yet: this is
+    where their row ids go. Raises InputError naming ``register_ids``."""
+    registers = registers or {}
     if not isinstance(registers, Mapping) or not all(
         isinstance(key, str) and isinstance(value, int) and not isinstance(value, bool)
         for key, value in registers.items()
@@ -58,14 +72,7 @@ def validate_visit_metadata(metadata: Mapping[str, Any]) -> dict[str, Any]:
         raise InputError(
             "register_ids", registers, "register name -> row id (an integer)", "is not one"
         )
-    checked: dict[str, Any] = {
-        "operator": " ".join(operator.split()),
-        "air_max_age_min": float(age),
-        "register_ids": dict(registers),
-    }
-    if metadata.get("notes"):
-        checked["notes"] = str(metadata["notes"])
-    return checked
+    return dict(registers)
 
 
 def beam_metadata(machine: str, metadata: Mapping[str, Any]) -> dict[str, Any]:

@@ -48,6 +48,7 @@ class BeamSummary:
             "name": beam.name,
             "plan": plan_name(beam.plan),
             "plan_source": beam.plan,
+            "register_ids": beam.register_ids(),
             "status": self.state.status,
             "reason": self.state.reason,
             "session": self.state.session_id,

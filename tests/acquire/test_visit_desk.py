@@ -188,3 +188,15 @@ def test_the_visits_own_age_limit_is_checked(tmp_path: Path, clock: WallClock) -
         assert visits.visits(desk.store) == []
     finally:
         desk.store.close()
+
+
+def test_a_beam_keeps_its_register_row_ids_and_refuses_ones_that_are_not_ids(
+    desk: VisitDesk,
+) -> None:
+    desk.add_beam(_beam("15 MV"), "default", OPERATOR, {"beams": 3, "chambers": 1})
+    shown = desk.snapshot()["beams"][-1]
+    assert shown["register_ids"] == {"beams": 3, "chambers": 1}
+    with pytest.raises(InputError) as refused:
+        desk.add_beam(_beam("18 MV"), "default", OPERATOR, {"chambers": "the blue one"})
+    assert refused.value.field == "register_ids"
+    assert [b["name"] for b in desk.snapshot()["beams"]] == ["6 MV", "10 MV", "15 MV"]
