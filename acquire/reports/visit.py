@@ -8,6 +8,8 @@ page, the review block with signature lines). Every number is the beams' evaluat
 
 from __future__ import annotations
 
+import dataclasses
+
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.record import visits
 from chargebook.acquire.record.review import review_words
@@ -15,7 +17,15 @@ from chargebook.acquire.record.store import EventRow, Store
 from chargebook.acquire.reports.html import table_html
 from chargebook.acquire.reports.printed import SignOff, page, review_block
 from chargebook.acquire.reports.result import expanded_uncertainty_text
-from chargebook.acquire.reports.sections import NOT_GIVEN, Table, keyed_table, number, signed, when
+from chargebook.acquire.reports.sections import (
+    NOT_GIVEN,
+    Table,
+    factors_of,
+    keyed_table,
+    number,
+    signed,
+    when,
+)
 from chargebook.acquire.session.visit_summary import (
     BeamSummary,
     VisitSummary,
@@ -160,9 +170,32 @@ def audit_table(events: list[EventRow]) -> Table:
     )
 
 
+def beam_factor_tables(summary: VisitSummary) -> list[Table]:
+    """Return, for each beam with results, its MU per reading and its correction factors with
+    their states and sources (a carried factor names where it came from)."""
+    tables = []
+    for beam in summary.beams:
+        if beam.evaluation is None:
+            continue
+        row = beam.state.beam
+        mu = NOT_GIVEN if beam.mu_per_reading is None else f"{beam.mu_per_reading:g} MU"
+        title = (
+            f"Beam {row.position}, {row.name} (session {beam.state.session_id}, "
+            f"{plan_name(row.plan)}, {mu} per reading): correction factors"
+        )
+        tables.append(dataclasses.replace(factors_of(beam.evaluation), title=title))
+    return tables
+
+
 def visit_tables(summary: VisitSummary, events: list[EventRow]) -> list[Table]:
     """Return the visit's report as tables, the result first."""
-    return [summary_table(summary), visit_table(summary), flags_table(summary), audit_table(events)]
+    return [
+        summary_table(summary),
+        visit_table(summary),
+        *beam_factor_tables(summary),
+        flags_table(summary),
+        audit_table(events),
+    ]
 
 
 def load_visit(store: Store, visit_id: int) -> tuple[VisitSummary, list[EventRow]]:

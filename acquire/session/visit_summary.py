@@ -18,6 +18,7 @@ from chargebook.acquire.record import visits
 from chargebook.acquire.record.review import VISIT_REVIEW_EVENT, Review, review_of
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
+from chargebook.acquire.session.plan import Plan
 from chargebook.corrections.evaluate import Evaluation
 
 #: Pass or fail in one word, from ``Evaluation.within_tolerance`` (None: not known yet).
@@ -31,6 +32,7 @@ class BeamSummary:
     state: visits.BeamState
     evaluation: Evaluation | None
     error: str | None  # why the session's results cannot be computed
+    mu_per_reading: float | None = None  # of the session's compared steps, as measured
 
     @property
     def verdict(self) -> str:
@@ -57,6 +59,7 @@ class BeamSummary:
             "deviation_pct": None if found is None else found.deviation_pct,
             "tolerance_pct": None if found is None else found.tolerance_pct,
             "U_expanded_pct": None if found is None else found.U_expanded_pct,
+            "mu_per_reading": self.mu_per_reading,
             "verdict": self.verdict,
             "flags": [] if found is None else [flag.to_dict() for flag in found.flags],
             "results_error": self.error,
@@ -102,6 +105,9 @@ def summarize_visit(store: Store, visit_id: int) -> VisitSummary:
             beams.append(BeamSummary(state, None, None))
             continue
         found = evaluate_session(store, state.session_id)
-        beams.append(BeamSummary(state, found.evaluation, found.error))
+        plan = Plan.from_dict(store.session(state.session_id).plan())
+        beams.append(
+            BeamSummary(state, found.evaluation, found.error, plan.result_mu_per_reading())
+        )
     review = review_of(visits.visit_events(store, visit_id), VISIT_REVIEW_EVENT)
     return VisitSummary(visit, tuple(beams), review)

@@ -56,6 +56,9 @@ def test_show_visit_prints_the_result_by_beam_first(station, capsys) -> None:
     assert re.search(r"^2\s+10 MV\s+default\s+unfinished", out, re.M)
     assert re.search(r"^3\s+9 MeV\s+default\s+skipped: no applicator", out, re.M)
     assert f"approved by {REVIEWER}" in out
+    # Each measured beam's factors, with their states, after the result
+    assert re.search(r"^Beam 1, 6 MV \(session 1, default, \d+ MU per reading\)", out, re.M)
+    assert out.index("correction factors") > out.index("result by beam")
 
 
 def test_show_visit_json_has_each_beam_with_its_numbers(station, capsys) -> None:

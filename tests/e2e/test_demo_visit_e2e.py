@@ -10,6 +10,7 @@ page 1 and the visit id on every page. Check values: the simulator's own truth (
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -63,6 +64,10 @@ def test_the_demo_measures_a_visit_of_three_beams_that_a_second_person_approves(
     assert check["carried_k_pol"]["value"] == pytest.approx(
         visit["truth"]["k_pol"], abs=K_POL_TOLERANCE
     )
+    assert beams[1]["mu_per_reading"] == 100.0  # monthly-check's MU per reading
+    shown = run("show", "--visit", str(visit["id"]), "--db", str(db)).stdout
+    check_factors = shown[shown.index("Beam 2, 10 MV") :]
+    assert re.search(r"^k_pol\s+\S+\s+carried\s", check_factors, re.M)
     assert electron["modality"] == "electron"
     assert air.source.startswith("confirmed: read at")  # carried only as a confirmation
 
