@@ -22,7 +22,7 @@ from chargebook.acquire.protocol import EngineState, Method
 from chargebook.acquire.record import visits
 from chargebook.acquire.session import rules, visit_rules
 from chargebook.acquire.session.plan import load_plan, shipped_plans
-from chargebook.acquire.session.visit_summary import summarize_visit
+from chargebook.acquire.session.visit_summary import ClosedResults, summarize_visit
 from chargebook.corrections.errors import InputError
 
 
@@ -36,6 +36,7 @@ class VisitDesk:
         self._summary: tuple[tuple[int, int], dict[str, Any] | None] | None = None
         self.version = 0
         self._plans: list[dict[str, Any]] | None = None
+        self._closed: ClosedResults = {}  # results of the visit's sessions closed for good
 
     def restore(self) -> None:
         """Take up the visit left open by an earlier run of the daemon, if any."""
@@ -171,7 +172,7 @@ class VisitDesk:
             return self._summary[1]
         value = None
         if self.visit_id is not None:
-            value = summarize_visit(self.store, self.visit_id).to_dict()
+            value = summarize_visit(self.store, self.visit_id, self._closed).to_dict()
             read, read_in = self._last_read(self.visit_id)
             value["air"] = (
                 None

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.record import visits
+from chargebook.acquire.record.migrations import SESSION_FINAL_STATUSES
 from chargebook.acquire.record.review import VISIT_REVIEW_EVENT, Review, review_of
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
@@ -96,18 +97,36 @@ def plan_name(plan: str) -> str:
     return Path(plan).stem if plan.endswith(".toml") else plan
 
 
-def summarize_visit(store: Store, visit_id: int) -> VisitSummary:
-    """Return the visit's summary across its beams. Raises ``NotFound`` for no such visit."""
+#: A closed session's results, kept by the caller between summaries: (evaluation, error,
+#: MU per reading) by session id.
+ClosedResults = dict[int, tuple[Evaluation | None, str | None, float | None]]
+
+
+def summarize_visit(
+    store: Store, visit_id: int, closed: ClosedResults | None = None
+) -> VisitSummary:
+    """Return the visit's summary across its beams. Raises ``NotFound`` for no such visit.
+
+    ``closed``: results of sessions already closed for good, kept by the caller (the daemon
+    summarizes the visit after every reading); they are used as they are, and the sessions
+    closed since are added to it.
+    """
     visit = visits.visit(store, visit_id)
+    closed = {} if closed is None else closed
     beams = []
     for state in visits.beam_states(store, visit_id):
-        if state.session_id is None:
+        session_id = state.session_id
+        if session_id is None:
             beams.append(BeamSummary(state, None, None))
             continue
-        found = evaluate_session(store, state.session_id)
-        plan = Plan.from_dict(store.session(state.session_id).plan())
-        beams.append(
-            BeamSummary(state, found.evaluation, found.error, plan.result_mu_per_reading())
-        )
+        if session_id not in closed:
+            session = store.session(session_id)
+            found = evaluate_session(store, session_id)
+            mu = Plan.from_dict(session.plan()).result_mu_per_reading()
+            if session.status not in SESSION_FINAL_STATUSES:
+                beams.append(BeamSummary(state, found.evaluation, found.error, mu))
+                continue
+            closed[session_id] = (found.evaluation, found.error, mu)
+        beams.append(BeamSummary(state, *closed[session_id]))
     review = review_of(visits.visit_events(store, visit_id), VISIT_REVIEW_EVENT)
     return VisitSummary(visit, tuple(beams), review)
