@@ -6,13 +6,22 @@ The beams are the invented demo clinic's (Example Clinic (fictional), DEMO-LA1).
 
 from __future__ import annotations
 
+import subprocess
+
 import pytest
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all
+from e2e_support import chargebook_command
 
 pytestmark = pytest.mark.e2e
 
 OPERATOR = "operator A"
+
+
+def run(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        chargebook_command(*args), capture_output=True, text=True, timeout=60, check=False
+    )
 
 
 async def test_an_open_visit_and_its_beam_survive_a_killed_daemon(daemon, metadata) -> None:
@@ -44,6 +53,16 @@ async def test_an_open_visit_and_its_beam_survive_a_killed_daemon(daemon, metada
     finally:
         await client.close()
     assert closed["visit"]["status"] == "closed"
+    # A second person reviews it while the daemon holds the file: through its socket.
+    review = ["review", "--visit", str(closed["visit"]["id"]), "--comment", "checked"]
+    where = ["--db", str(daemon.db), "--socket", str(daemon.socket)]
+    refused = run(*review, "--approve", "--reviewer", "reviewer B", *where)
+    assert refused.returncode == 2  # no beam was measured: a rejection only
+    assert "cannot approve visit" in refused.stderr
+    done = run(*review, "--reject", "--reviewer", "reviewer B", *where)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.startswith("visit 1 rejected by reviewer B on ")
+    assert "recorded by the daemon that holds" in done.stdout
     daemon.stop()
     with Store.open(daemon.db, read_only=True) as store:
         assert all(report.verified for report in verify_all(store))
