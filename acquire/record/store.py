@@ -33,14 +33,15 @@ import tempfile
 import threading
 import time
 import uuid
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
-from chargebook.acquire.record import chain
+from chargebook.acquire.record import chain, events
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import (
     CAPTURE_MODES,
     SCHEMA_VERSION,
@@ -661,14 +662,16 @@ class Store:
             finally:
                 self._account = previous
 
-    def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
+    def _event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
         return self._append(
             "events",
             {
                 "session_id": session_id,
                 "recorded_at": self._stamp(),
                 "actor": _require_text("actor", actor),
-                "kind": _require_text("kind", kind),
+                "kind": events.check_detail(kind, detail).value,
                 "detail_json": _to_json("detail", detail),
                 "account": self._account,
             },
@@ -705,17 +708,13 @@ class Store:
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
             session_id = self._append("sessions", row)
-            self._event(
-                session_id,
-                actor,
-                "session_created",
-                {
-                    "convention": convention,
-                    "beam": beam,
-                    "replay_of": replay_of,
-                    "uuid": session_uuid,
-                },
-            )
+            created: events.SessionCreated = {
+                "convention": convention,
+                "beam": beam,
+                "replay_of": replay_of,
+                "uuid": session_uuid,
+            }
+            self._event(session_id, actor, EventKind.SESSION_CREATED, created)
         return session_id
 
     def open_session(self) -> SessionRow | None:
@@ -739,12 +738,14 @@ class Store:
                     f"session {session_id} is {old.status}; its status can no longer change"
                 )
             closed_at = None if status == "open" else (old.closed_at or self._stamp())
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                session_id,
-                actor,
-                "session_status",
-                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
-            )
+            change: events.SessionStatus = {
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "closed_at": closed_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(session_id, actor, EventKind.SESSION_STATUS, change)
             self.db.execute(
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
@@ -764,7 +765,8 @@ class Store:
             old = self.station().name
             if old == name:
                 return False
-            self._event(None, actor, "station_named", {"from": old, "to": name})
+            renamed: events.StationNamed = {"from": old, "to": name}
+            self._event(None, actor, EventKind.STATION_NAMED, renamed)
             self.db.execute("UPDATE station SET name = ?", (name,))
         return True
 
@@ -832,20 +834,17 @@ class Store:
                 ended_at = old.ended_at
             else:
                 ended_at = old.ended_at or self._stamp()
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                old.session_id,
-                actor,
-                "set_status",
-                {
-                    "set_id": set_id,
-                    "step_key": old.step_key,
-                    "attempt": old.attempt,
-                    "from": old.status,
-                    "to": status,
-                    "reason": reason,
-                    "ended_at": ended_at,
-                },
-            )
+            change: events.SetStatus = {
+                "set_id": set_id,
+                "step_key": old.step_key,
+                "attempt": old.attempt,
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "ended_at": ended_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(old.session_id, actor, EventKind.SET_STATUS, change)
             self.db.execute(
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
@@ -947,8 +946,14 @@ class Store:
 
     # ----------------------------------------------------------------------------- events
 
-    def add_event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        """Record one audit event (who, what, and why in ``detail``); return its id."""
+    def add_event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
+        """Record one audit event (who, what, and why in ``detail``); return its id.
+
+        Raises InputError naming the kind and the key when ``detail`` is not the shape
+        ``kind`` declares (``acquire/record/events.py``); nothing is written then.
+        """
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")

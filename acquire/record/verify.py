@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.record import chain
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
 from chargebook.acquire.record.store import Store
 
@@ -206,13 +207,13 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     session_status: dict[str, Any] = {"to": "open", "reason": None, "closed_at": None}
     set_status: dict[int, dict[str, Any]] = {}
     for values in events:
-        if values[kind_at] not in ("session_status", "set_status"):
+        if values[kind_at] not in (EventKind.SESSION_STATUS, EventKind.SET_STATUS):
             continue
         try:
             detail = json.loads(values[detail_at])
         except ValueError:
             continue  # a changed event: the link check has named it
-        if values[kind_at] == "session_status":
+        if values[kind_at] == EventKind.SESSION_STATUS:
             session_status = detail
         elif isinstance(detail.get("set_id"), int):
             set_status[detail["set_id"]] = detail
@@ -239,7 +240,7 @@ def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) ->
     detail_at = chain.COLUMNS["events"].index("detail_json")
     recorded: Any = None
     for values in events:
-        if values[kind_at] == "session_created":
+        if values[kind_at] == EventKind.SESSION_CREATED:
             try:
                 recorded = json.loads(values[detail_at]).get("uuid")
             except ValueError:
