@@ -31,7 +31,7 @@ from __future__ import annotations
 import functools
 import logging
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from typing import Any, ParamSpec, TypeVar
@@ -44,6 +44,8 @@ from chargebook.acquire.engine.capture import (
 )
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
@@ -59,8 +61,6 @@ R = TypeVar("R")
 DAEMON_ACTOR = "daemon"
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
-#: The event recording the carried k_pol and k_s copied into a session at its start.
-CARRIED_EVENT = "carried_factors"
 
 
 @dataclass(frozen=True, slots=True)
@@ -153,7 +153,7 @@ class Engine:
         self.step_index: int | None = None
         self.active: ActiveSet | None = None
         self.bias_V: float | None = None  # the chamber bias as last set or confirmed
-        self.pending_manual: dict[str, Any] | None = None
+        self.pending_manual: ev.ManualAction | None = None
         self.skipped: set[int] = set()
         self.reading: ReadingCapture | None = None
         self.settle_until_s: float | None = None
@@ -212,20 +212,33 @@ class Engine:
         """Count a new snapshot for the reading in progress (results stay cached)."""
         self.seq += 1
 
-    def _goto(self, new: EngineState, action: str, actor: str, **detail: Any) -> None:
+    def _goto(
+        self,
+        new: EngineState,
+        action: str,
+        actor: str,
+        *,
+        set_id: int | None = None,
+        wait_s: float | None = None,
+        reason: str | None = None,
+        next_step: int | None = None,
+    ) -> None:
         check_transition(self.state, new, action)
         old = self.state
         self.state = new
         log.info("%s: %s -> %s", action, old.value, new.value)
-        if self.session_id is not None:
-            self.store.add_event(
-                self.session_id,
-                actor,
-                "state_changed",
-                {"from": old.value, "to": new.value, "action": action, **detail},
-            )
+        change: ev.StateChanged = {"from": old.value, "to": new.value, "action": action}
+        if set_id is not None:
+            change["set_id"] = set_id
+        if wait_s is not None:
+            change["wait_s"] = wait_s
+        if reason is not None:
+            change["reason"] = reason
+        if next_step is not None:
+            change["next_step"] = next_step
+        self._event(actor, EventKind.STATE_CHANGED, change)
 
-    def _event(self, actor: str, kind: str, **detail: Any) -> None:
+    def _event(self, actor: str, kind: EventKind, detail: Mapping[str, object]) -> None:
         if self.session_id is not None:
             self.store.add_event(self.session_id, actor, kind, detail)
 
@@ -328,19 +341,18 @@ class Engine:
         self.skipped, self.active, self.bias_V = set(), None, None
         self.integration_s = {}
         self.thresholds = self.default_thresholds
-        self._event(actor, rules.THRESHOLDS_EVENT, **asdict(self.thresholds))
-        self._event(
-            actor, rules.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale
-        )
+        self._event(actor, EventKind.THRESHOLDS, asdict(self.thresholds))
+        acquisition = ev.Acquisition(profile=self.profile, time_scale=self.time_scale)
+        self._event(actor, EventKind.ACQUISITION, acquisition)
         carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
         if carried:
-            self._event(actor, CARRIED_EVENT, **carried)
+            self._event(actor, EventKind.CARRIED_FACTORS, carried)
         if checked.get("subtract_leakage"):
-            self._event(actor, rules.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
+            chosen = ev.LeakageSubtractionChosen(subtract_leakage=True)
+            self._event(actor, EventKind.LEAKAGE_SUBTRACTION_CHOSEN, chosen)
         if self.identity is not None:
-            self._event(
-                DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
-            )
+            identified = ev.InstrumentIdentified(identity=self.identity, profile=self.profile)
+            self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, identified)
         self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
         self._enter_step(0, actor)
         self._changed()
@@ -361,7 +373,8 @@ class Engine:
         entry = rules.check_environment(temperature_C, pressure, pressure_unit, humidity_pct)
         assert self.session_id is not None
         entry_id = self.store.add_environment(self.session_id, source=source, **entry)
-        self._event(actor, "environment_entered", environment_id=entry_id, source=source, **entry)
+        entered = ev.EnvironmentEntered(environment_id=entry_id, source=source, **entry)
+        self._event(actor, EventKind.ENVIRONMENT_ENTERED, entered)
         self._changed()
         return entry_id
 
@@ -371,10 +384,12 @@ class Engine:
         self._require(Method.STEP_MANUAL_DONE)
         manual = self.pending_manual
         assert manual is not None
-        self._event(actor, "manual_step_done", by_hand=True, note=note, **manual)
-        if manual.get("action") == "set_bias":
+        done = ev.ManualStepDone(by_hand=True, note=note, **manual)
+        self._event(actor, EventKind.MANUAL_STEP_DONE, done)
+        if manual["action"] == "set_bias":
             self.bias_V = float(manual["volts"])
-            self._event(actor, "bias_changed", volts=self.bias_V, how="by hand")
+            changed = ev.BiasChanged(volts=self.bias_V, how="by hand")
+            self._event(actor, EventKind.BIAS_CHANGED, changed)
             if self.bench:
                 self._issue("bench_bias", self.bias_V)
         self.pending_manual = None
@@ -385,7 +400,8 @@ class Engine:
         """Skip the current (optional) step."""
         self._require(Method.STEP_SKIP)
         assert self.step_index is not None
-        self._event(actor, "step_skipped", step_index=self.step_index, step_key=self.step.key)
+        skipped = ev.StepSkipped(step_index=self.step_index, step_key=self.step.key)
+        self._event(actor, EventKind.STEP_SKIPPED, skipped)
         self.skipped.add(self.step_index)
         self._advance(actor, Method.STEP_SKIP)
         self._changed()
@@ -585,8 +601,8 @@ class Engine:
             return
         self.instrument_connected = still_connected
         self.instrument_message = message
-        kind = "instrument_fault" if still_connected else "instrument_lost"
-        self._event(DAEMON_ACTOR, kind, message=message)
+        kind = EventKind.INSTRUMENT_FAULT if still_connected else EventKind.INSTRUMENT_LOST
+        self._event(DAEMON_ACTOR, kind, ev.InstrumentMessage(message=message))
         busy = (S.SETTLING, S.COLLECTING)
         if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
             self._drop_reading(DAEMON_ACTOR, "instrument lost")
@@ -612,15 +628,17 @@ class Engine:
         (``identity``, an ``instrument_identified`` event) with its return, in one transaction."""
         if identity:
             self.identity = identity
-            detail = {"identity": identity, "profile": self.profile}
+            detail = ev.InstrumentIdentified(identity=identity, profile=self.profile)
             # recorded outside any session too: a report finds the instrument of a session
             # started later from the station's latest identification
-            self.store.add_event(self.session_id, DAEMON_ACTOR, "instrument_identified", detail)
+            self.store.add_event(
+                self.session_id, DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, detail
+            )
         if self.instrument_connected and self.instrument_message is None:
             self._changed()
             return
         self.instrument_connected, self.instrument_message = True, None
-        self._event(DAEMON_ACTOR, "instrument_back", identity=identity)
+        self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_BACK, ev.InstrumentBack(identity=identity))
         self._changed()
 
     def wants_samples(self) -> bool:
@@ -635,8 +653,9 @@ class Engine:
         if step is None:
             return
         if not self._can(Capability.SET_BIAS) and self.bias_V != step.bias_V:
-            self.pending_manual = {"action": "set_bias", "volts": float(step.bias_V)}
-        self._event(actor, "step_entered", step_index=index, step_key=step.key)
+            self.pending_manual = ev.ManualAction(action="set_bias", volts=float(step.bias_V))
+        entered = ev.StepEntered(step_index=index, step_key=step.key)
+        self._event(actor, EventKind.STEP_ENTERED, entered)
 
     def _advance(self, actor: str, action: str) -> None:
         assert self.step_index is not None and self.plan is not None
@@ -656,7 +675,8 @@ class Engine:
             self._issue("set_bias", float(step.bias_V))
             if self.bias_V != step.bias_V:
                 self.bias_V = float(step.bias_V)
-                self._event(actor, "bias_changed", volts=self.bias_V, how="remote")
+                changed = ev.BiasChanged(volts=self.bias_V, how="remote")
+                self._event(actor, EventKind.BIAS_CHANGED, changed)
 
     def _settling_needed(self) -> bool:
         assert self.active is not None
@@ -690,7 +710,8 @@ class Engine:
     def _drop_reading(self, actor: str, why: str) -> None:
         if self.reading is None:
             return
-        self._event(actor, "reading_dropped", why=why, charge_nC=self.reading.last_charge_nC)
+        dropped = ev.ReadingDropped(why=why, charge_nC=self.reading.last_charge_nC)
+        self._event(actor, EventKind.READING_DROPPED, dropped)
         self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
@@ -719,9 +740,7 @@ class Engine:
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s
-        self._event(
-            actor,
-            "reading_recorded",
+        recorded = ev.ReadingRecorded(
             reading_id=reading_id,
             set_id=active.id,
             charge_nC=captured.charge_nC,
@@ -730,6 +749,7 @@ class Engine:
             integration_s=captured.integration_s,
             armed_t_s=armed_t_s,
         )
+        self._event(actor, EventKind.READING_RECORDED, recorded)
         if self._settling_needed() or active.used_count < int(step.readings):
             self._begin_reading(actor, "reading recorded")
             return
@@ -746,8 +766,10 @@ class Engine:
         self.session_id, self.metadata = row.id, row.metadata()
         self.plan = rules.resolve_plan(row.plan())
         events = self.store.events(row.id)
-        self.skipped = {e.detail()["step_index"] for e in events if e.kind == "step_skipped"}
-        bias_events = [e.detail() for e in events if e.kind == "bias_changed"]
+        self.skipped = {
+            e.detail()["step_index"] for e in events if e.kind == EventKind.STEP_SKIPPED
+        }
+        bias_events = [e.detail() for e in events if e.kind == EventKind.BIAS_CHANGED]
         if bias_events:
             self.bias_V = float(bias_events[-1]["volts"])
         self.integration_s = rules.integration_times(events)
@@ -756,7 +778,8 @@ class Engine:
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
         index = next((i for i in range(len(self.plan.steps)) if i not in done), None)
         self.state = S.WAITING_FOR_OPERATOR
-        self.store.add_event(row.id, DAEMON_ACTOR, "session_resumed", {"step_index": index})
+        resumed = ev.SessionResumed(step_index=index)
+        self.store.add_event(row.id, DAEMON_ACTOR, EventKind.SESSION_RESUMED, resumed)
         if index is None:
             self.step_index = len(self.plan.steps)
             self._goto(S.FINISHED, "restore", DAEMON_ACTOR)
@@ -774,7 +797,8 @@ class Engine:
                 self.store.set_set_status(open_set.id, "interrupted", reason)
             restored = S.REVIEWING if open_set.status == "reviewing" else S.INTERRUPTED
             self.state = restored
-            self._event(DAEMON_ACTOR, "state_restored", to=restored.value, set_id=open_set.id)
+            back = ev.StateRestored(to=restored.value, set_id=open_set.id)
+            self._event(DAEMON_ACTOR, EventKind.STATE_RESTORED, back)
         self._changed()
         return True
 
