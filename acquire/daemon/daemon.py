@@ -36,6 +36,8 @@ from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.engine.states import IllegalTransition
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
@@ -60,7 +62,7 @@ TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
-LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
+LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
 MAX_SAMPLES_PER_BATCH = 1024
 #: A pause between pushed lines longer than this ends a burst, s.
@@ -644,24 +646,28 @@ class Daemon:
         previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
         assert self.store is not None
         session = self.store.open_session()
-        detail: dict[str, Any] = {"pid": os.getpid()}
+        session_id = session.id if session else None
         last = self.store.last_event_of(LIFECYCLE_EVENTS)
         if last is None:
-            kind = "daemon_started"
-        else:
-            kind = "daemon_restarted"
-            clean = last.kind == "daemon_stopped"
-            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
-            detail["previous_stop"] = last.detail().get("reason") if clean else None
-            detail["previous_pid"] = last.detail().get("pid")
-        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+            started = ev.DaemonStarted(pid=os.getpid())
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STARTED, started)
+            return
+        clean = last.kind == EventKind.DAEMON_STOPPED
+        restarted = ev.DaemonRestarted(
+            pid=os.getpid(),
+            previous_run="stopped cleanly" if clean else "crashed",
+            previous_stop=last.detail().get("reason") if clean else None,
+            previous_pid=last.detail().get("pid"),
+        )
+        self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
     def _record_stop(self) -> None:
         """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
         assert self.store is not None and self.engine is not None
-        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        detail = ev.DaemonStopped(pid=os.getpid(), reason=self._stop_reason)
         try:
-            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+            session_id = self.engine.session_id
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
         except Exception:  # the stop goes on; the next start will say the run crashed
             log.exception("could not record the daemon's stop")
 
@@ -810,8 +816,9 @@ class Daemon:
             return
         with contextlib.suppress(Exception):
             error = traceback.format_exc(limit=8)
+            failed: ev.DaemonError = {"while": doing, "error": error}
             self.store.add_event(
-                self.engine.session_id, "daemon", "daemon_error", {"while": doing, "error": error}
+                self.engine.session_id, DAEMON_ACTOR, EventKind.DAEMON_ERROR, failed
             )
 
     async def after_change(self) -> None:
