@@ -13,6 +13,7 @@ from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.record.events import EnvironmentEntry, EventKind
 from chargebook.acquire.record.store import EventRow, ReadingRow, SetRow
 from chargebook.acquire.session import metadata as session_metadata
 from chargebook.acquire.session.metadata import SessionMetadata
@@ -33,7 +34,7 @@ from chargebook.corrections.statistics import set_statistics
 # ------------------------------------------------------------------------- operator input
 def check_environment(
     temperature_C: object, pressure: object, pressure_unit: str = "kPa", humidity_pct: object = None
-) -> dict[str, Any]:
+) -> EnvironmentEntry:
     """Return an environment entry (°C, kPa, pressure as entered, unit, % RH) after range checks.
 
     Raises InputError naming the field as the request names it (``temperature_C``,
@@ -45,13 +46,13 @@ def check_environment(
     humidity = None
     if humidity_pct is not None:
         humidity = float(limits.HUMIDITY_PCT.check("humidity_pct", humidity_pct))
-    return {
-        "temperature_C": temperature,
-        "pressure_kPa": pressure_kPa,
-        "pressure_entered": float(pressure),  # type: ignore[arg-type]
-        "pressure_unit": pressure_unit,
-        "humidity_pct": humidity,
-    }
+    return EnvironmentEntry(
+        temperature_C=temperature,
+        pressure_kPa=pressure_kPa,
+        pressure_entered=float(pressure),  # type: ignore[arg-type]
+        pressure_unit=pressure_unit,
+        humidity_pct=humidity,
+    )
 
 
 def require_reason(field: str, value: object) -> str:
@@ -255,24 +256,13 @@ def _plain(stats: Any) -> dict[str, Any]:
 
 
 # ----------------------------------------------------------------------------- thresholds
-THRESHOLDS_EVENT = "thresholds"
-#: The event that records, at session start, the instrument profile and the daemon's time scale
-#: (what a replay needs to read the traffic and to time the plan's waits as the daemon did).
-ACQUISITION_EVENT = "acquisition"
-
-
 def recorded_time_scale(events: Sequence[EventRow]) -> float | None:
     """Return the daemon's time scale as its ``acquisition`` event recorded it (None: none did)."""
     scale: float | None = None
     for event in events:
-        if event.kind == ACQUISITION_EVENT:
+        if event.kind == EventKind.ACQUISITION:
             scale = event.detail().get("time_scale", scale)
     return scale
-
-
-#: The event that records, at session start, the operator's choice to subtract the measured
-#: leakage from the routine reading (metadata ``subtract_leakage``); the audit lists it.
-LEAKAGE_SUBTRACTION_EVENT = "leakage_subtraction_chosen"
 
 
 def load_thresholds(path: str | Path) -> Thresholds:
@@ -303,7 +293,7 @@ def thresholds_from_dict(data: Mapping[str, Any]) -> Thresholds:
 def session_thresholds(events: Sequence[EventRow]) -> Thresholds:
     """Return the thresholds a session was started with (its ``thresholds`` event)."""
     for event in events:
-        if event.kind == THRESHOLDS_EVENT:
+        if event.kind == EventKind.THRESHOLDS:
             return thresholds_from_dict(event.detail())
     return Thresholds()
 
@@ -313,7 +303,7 @@ def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
     """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
     times: dict[int, float] = {}
     for event in events:
-        if event.kind == "reading_recorded":
+        if event.kind == EventKind.READING_RECORDED:
             detail = event.detail()
             if "integration_s" in detail:
                 times[int(detail["reading_id"])] = float(detail["integration_s"])
