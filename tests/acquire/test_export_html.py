@@ -152,7 +152,7 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
         ["21.80", "100.600", "1006 hPa"],
     ]
     instrument = parsed.rows[("Session", "instrument")][1]
-    assert "serial SIM-EM-0001" in instrument and "model SIM-MODEL-1" in instrument
+    assert instrument == "identity Bench, SIM-MODEL-1, SIM-EM-0001, 1.4, profile scpi-generic"
     audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
     # In words, steps numbered from 1 as the console numbers them: the opposite-polarity set
     # is the plan's third step (step_index 2).
