@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.protocol import CAUTION, by_severity
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.review import record_review
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.reports.data import load_record
@@ -263,7 +264,8 @@ def test_a_recorded_review_fills_the_review_block_and_the_result(tmp_path: Path)
         record_review(store, session_id, "approve", "reviewer B", "k_s checked by hand")
     with Store.open(path, read_only=True) as store:
         record = load_record(store, session_id)
-        reviewed_at = next(e for e in record.events if e.kind == "session_reviewed").recorded_at
+        reviewed = next(e for e in record.events if e.kind == EventKind.SESSION_REVIEWED)
+        reviewed_at = reviewed.recorded_at
         parsed = Report()
         parsed.feed(to_html(record))
     stamp = reviewed_at[:19].replace("T", " ") + " UTC"

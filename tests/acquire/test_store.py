@@ -220,7 +220,7 @@ def test_rows_read_back_as_written(store: Store) -> None:
     assert env.humidity_pct == 45.0 and env.source == "operator"
 
     events = store.events(session_id)
-    assert [e.kind for e in events] == ["session_created", "note"]
+    assert [e.kind for e in events] == [EventKind.SESSION_CREATED, "note"]
     assert events[-1].id == event_id and events[-1].actor == "operator F"
     assert events[-1].detail() == {"text": "chamber swapped"}
 
@@ -289,13 +289,13 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
     closed, aborted = interrupted.closed_at, store.session(session_id).closed_at
-    changes = [e.detail() for e in store.events(session_id) if e.kind == "session_status"]
+    changes = [e.detail() for e in store.events(session_id) if e.kind == EventKind.SESSION_STATUS]
     assert changes == [
         {"from": "open", "to": "interrupted", "reason": "daemon restarted", "closed_at": closed},
         {"from": "interrupted", "to": "open", "reason": "resumed", "closed_at": None},
         {"from": "open", "to": "aborted", "reason": "beam fault", "closed_at": aborted},
     ]
-    actors = [e.actor for e in store.events(session_id) if e.kind == "session_status"]
+    actors = [e.actor for e in store.events(session_id) if e.kind == EventKind.SESSION_STATUS]
     assert actors == ["daemon", "reviewer B", "daemon"]
 
 
