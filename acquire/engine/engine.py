@@ -42,6 +42,15 @@ from chargebook.acquire.engine.capture import (
     ReadingCapture,
     capture_settings,
 )
+from chargebook.acquire.engine.driver_commands import (
+    Command,
+    DeliverBeam,
+    SetBias,
+    StartIntegration,
+    StopIntegration,
+    TurnBiasSwitch,
+    Zero,
+)
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
 from chargebook.acquire.record import events as ev
@@ -61,19 +70,6 @@ R = TypeVar("R")
 DAEMON_ACTOR = "daemon"
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
-
-
-@dataclass(frozen=True, slots=True)
-class Command:
-    """One thing the daemon must do for the engine.
-
-    ``action``: ``zero``, ``start`` / ``stop`` (integration), ``set_bias`` (volts, remote),
-    ``beam`` (the bench delivers ``value`` MU), ``bench_bias`` (the bench turns the bias switch
-    the operator confirmed, volts).
-    """
-
-    action: str
-    value: float | None = None
 
 
 class ConfirmationRequired(Exception):
@@ -242,8 +238,8 @@ class Engine:
         if self.session_id is not None:
             self.store.add_event(self.session_id, actor, kind, detail)
 
-    def _issue(self, action: str, value: float | None = None) -> None:
-        self._commands.append(Command(action, value))
+    def _issue(self, command: Command) -> None:
+        self._commands.append(command)
 
     def _can(self, capability: Capability) -> bool:
         return capability in self.capabilities
@@ -391,7 +387,7 @@ class Engine:
             changed = ev.BiasChanged(volts=self.bias_V, how="by hand")
             self._event(actor, EventKind.BIAS_CHANGED, changed)
             if self.bench:
-                self._issue("bench_bias", self.bias_V)
+                self._issue(TurnBiasSwitch(self.bias_V))
         self.pending_manual = None
         self._changed()
 
@@ -672,7 +668,7 @@ class Engine:
     def _apply_bias(self, actor: str) -> None:
         step = self.step
         if self._can(Capability.SET_BIAS) and step is not None:
-            self._issue("set_bias", float(step.bias_V))
+            self._issue(SetBias(float(step.bias_V)))
             if self.bias_V != step.bias_V:
                 self.bias_V = float(step.bias_V)
                 changed = ev.BiasChanged(volts=self.bias_V, how="remote")
@@ -701,11 +697,11 @@ class Engine:
         )
         self.reading_status = "ok"
         if self._can(Capability.ZERO):
-            self._issue("zero")
+            self._issue(Zero())
         if self._can(Capability.INTEGRATE):
-            self._issue("start")
+            self._issue(StartIntegration())
         if self.bench and float(step.mu_per_reading) > 0:
-            self._issue("beam", float(step.mu_per_reading))
+            self._issue(DeliverBeam(float(step.mu_per_reading)))
 
     def _drop_reading(self, actor: str, why: str) -> None:
         if self.reading is None:
@@ -715,7 +711,7 @@ class Engine:
         self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
-            self._issue("stop")
+            self._issue(StopIntegration())
 
     def _record(self, captured: Captured, actor: str) -> None:
         step, active = self.step, self.active
@@ -726,7 +722,7 @@ class Engine:
         self.reading = None
         self.notice = None
         if self._can(Capability.INTEGRATE):
-            self._issue("stop")
+            self._issue(StopIntegration())
         reading_id = self.store.add_reading(
             self.session_id,
             active.id,
