@@ -34,7 +34,18 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
-from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
+from chargebook.acquire.engine.driver_commands import (
+    BENCH_COMMANDS,
+    BenchCommand,
+    Command,
+    DeliverBeam,
+    SetBias,
+    StartIntegration,
+    StopIntegration,
+    TurnBiasSwitch,
+    Zero,
+)
+from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.record import events as ev
 from chargebook.acquire.record.events import EventKind
@@ -266,7 +277,7 @@ class InstrumentLink(threading.Thread):
                 self.generation = value
             elif kind == "session":
                 self.session_id = value
-            elif kind == "command" and value.action in ("beam", "bench_bias"):
+            elif kind == "command" and isinstance(value, BENCH_COMMANDS):
                 self._bench(value)
             else:
                 log.info("electrometer away: dropped command %s", value)
@@ -331,32 +342,32 @@ class InstrumentLink(threading.Thread):
             self.electrometer.close()
 
     def _execute(self, command: Command) -> None:
-        action = command.action
-        if action in ("beam", "bench_bias"):
+        if isinstance(command, BENCH_COMMANDS):
             self._bench(command)
             return
-        if action == "zero":
-            self.electrometer.zero()
-        elif action == "start":
-            self.electrometer.start_integration()
-        elif action == "stop":
-            self.electrometer.stop_integration()
-        elif action == "set_bias":
-            assert command.value is not None
-            self.electrometer.set_bias(command.value)
+        match command:
+            case Zero():
+                self.electrometer.zero()
+            case StartIntegration():
+                self.electrometer.start_integration()
+            case StopIntegration():
+                self.electrometer.stop_integration()
+            case SetBias(bias_V=bias_V):
+                self.electrometer.set_bias(bias_V)
         self.fresh_after_s = self.clock()
         self._timeouts = 0
 
-    def _bench(self, command: Command) -> None:
+    def _bench(self, command: BenchCommand) -> None:
         from chargebook.acquire.daemon.bench import BenchError
 
         if self.bench is None:
             return
         try:
-            if command.action == "beam":
-                self.bench.deliver(command.value)
-            else:
-                self.bench.turn_bias(command.value)
+            match command:
+                case DeliverBeam(monitor_units=monitor_units):
+                    self.bench.deliver(monitor_units)
+                case TurnBiasSwitch(bias_V=bias_V):
+                    self.bench.turn_bias(bias_V)
         except BenchError as error:
             self._hand_over("fault", str(error))
 
