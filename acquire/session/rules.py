@@ -13,6 +13,7 @@ from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.protocol import FlagInfo
 from chargebook.acquire.record.events import EnvironmentEntry, EventKind
 from chargebook.acquire.record.store import EventRow, ReadingRow, SetRow
 from chargebook.acquire.session import metadata as session_metadata
@@ -117,11 +118,11 @@ def settling_needed(step: Step, readings: Sequence[ReadingRow], limit: int | Non
 
 
 # --------------------------------------------------------------------------- statistics
-def _flag(code: str, message: str, severity: str = "warning") -> dict[str, str]:
+def _flag(code: str, message: str, severity: str = "warning") -> FlagInfo:
     return {"code": code, "message": message, "severity": severity}
 
 
-def reading_flags(reading: ReadingRow, against_bias: bool) -> list[dict[str, str]]:
+def reading_flags(reading: ReadingRow, against_bias: bool) -> list[FlagInfo]:
     """Return the flags of one reading: instrument status, settling, and its sign against the
     bias (``against_bias``, judged by ``corrections.signs.contradicting``)."""
     flags = []
@@ -144,7 +145,7 @@ def reading_flags(reading: ReadingRow, against_bias: bool) -> list[dict[str, str
 
 def set_summary(
     purpose: str, bias_V: float, readings: Sequence[ReadingRow], thresholds: Thresholds
-) -> tuple[dict[str, Any] | None, list[dict[str, str]], dict[int, list[dict[str, str]]]]:
+) -> tuple[dict[str, Any] | None, list[FlagInfo], dict[int, list[FlagInfo]]]:
     """Return (statistics, set flags, flags per reading id) of a set's non-settling readings."""
     used = [r for r in readings if not r.settling]
     against = [False] * len(readings)
@@ -189,7 +190,7 @@ def delivery_flags(
     integration_s: Mapping[int, float],
     time_scale: float,
     reference_nC_per_MU: float | None,
-) -> list[dict[str, str]]:
+) -> list[FlagInfo]:
     """Return :func:`delivery_flag_list` as the snapshot's flag dicts."""
     flags = delivery_flag_list(step, readings, integration_s, time_scale, reference_nC_per_MU)
     return [flag.to_dict() for flag in flags]
@@ -235,7 +236,7 @@ def routine_nC_per_MU(
     return sum(abs(r.charge_nC) for r in used) / len(used) / float(step.mu_per_reading)
 
 
-def _unsummarised(purpose: str, error: InputError) -> dict[str, str]:
+def _unsummarised(purpose: str, error: InputError) -> FlagInfo:
     """Return the flag shown in place of a set's statistics that cannot be formed."""
     if purpose == "leakage":
         return _flag(
