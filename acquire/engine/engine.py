@@ -52,7 +52,7 @@ from chargebook.acquire.engine.driver_commands import (
     Zero,
 )
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
-from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.protocol import EngineState, Method, ReadingPhase, Snapshot
 from chargebook.acquire.record import events as ev
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import ReadingRow, SetRow, Store
@@ -68,6 +68,8 @@ P = ParamSpec("P")
 R = TypeVar("R")
 
 DAEMON_ACTOR = "daemon"
+#: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
+Results = tuple[dict[str, Any] | None, bool, str | None]
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
 
@@ -167,7 +169,7 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
-        self._results_cache: tuple[int, Any] | None = None
+        self._results_cache: tuple[int, Results] | None = None
         self.seq = 0  # every snapshot
         self.data_version = 0  # every change of what is recorded or of the state
 
@@ -291,6 +293,7 @@ class Engine:
             if not self.instrument_connected:
                 return "the electrometer is not connected"
             if self.state is S.WAITING_FOR_OPERATOR:
+                assert self.session_id is not None  # waiting: a session is open
                 if not self.store.environment(self.session_id):
                     return "enter the air temperature and pressure first (environment.set)"
                 if self.pending_manual is not None:
@@ -799,12 +802,12 @@ class Engine:
         return True
 
     # ----------------------------------------------------------------------- snapshot
-    def results(self) -> tuple[dict[str, Any] | None, bool, str | None]:
+    def results(self) -> Results:
         """Return (Evaluation.to_dict() so far, provisional?, error), cached until a change."""
         if self._results_cache is not None and self._results_cache[0] == self.data_version:
             return self._results_cache[1]
         if self.session_id is None:
-            value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
+            value: Results = (None, False, None)
         else:
             context = SessionContext(
                 self.plan, self.metadata, self.thresholds, self.integration_s, self.time_scale
@@ -815,8 +818,8 @@ class Engine:
         self._results_cache = (self.data_version, value)
         return value
 
-    def snapshot(self) -> dict[str, Any]:
-        """Return the whole state as a protocol Snapshot dict."""
+    def snapshot(self) -> Snapshot:
+        """Return the whole state as the protocol's Snapshot."""
         from chargebook.acquire.engine.snapshot import build_snapshot
 
         return build_snapshot(self)
