@@ -293,23 +293,25 @@ DETAIL_TYPES: dict[EventKind, type] = {
 }
 
 
+_KINDS = frozenset(kind.value for kind in EventKind)
+
+
 def detail_keys(kind: EventKind) -> tuple[frozenset[str], frozenset[str]]:
     """Return (required keys, optional keys) of the detail ``kind`` declares."""
     declared = DETAIL_TYPES[kind]
     if is_typeddict(declared):
-        return frozenset(declared.__required_keys__), frozenset(declared.__optional_keys__)
+        required: frozenset[str] = getattr(declared, "__required_keys__")  # noqa: B009
+        optional: frozenset[str] = getattr(declared, "__optional_keys__")  # noqa: B009
+        return frozenset(required), frozenset(optional)
     names = frozenset(field.name for field in dataclasses.fields(declared))
     return names, frozenset()
 
 
 def event_kind(kind: object) -> EventKind:
     """Return ``kind`` as an :class:`EventKind`; InputError naming it when it is none."""
-    try:
+    if isinstance(kind, str) and kind in _KINDS:
         return EventKind(kind)
-    except ValueError:
-        raise InputError(
-            "event kind", kind, "one of " + ", ".join(EventKind), "is not a kind of event"
-        ) from None
+    raise InputError("event kind", kind, "one of " + ", ".join(EventKind), "is not a kind of event")
 
 
 def check_detail(kind: object, detail: Mapping[str, object]) -> EventKind:

@@ -21,7 +21,7 @@ from typing import Any
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
-from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
 
 @dataclass(frozen=True, slots=True)
@@ -109,7 +109,7 @@ def verify_all(store: Store) -> list[ChainReport]:
     return [*reports, verify_session(store, None)]
 
 
-Chained = tuple[str, tuple[Any, ...], int | None, str | None]
+Chained = tuple[str, tuple[Any, ...], int, str]
 
 
 def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], list[Problem]]:
@@ -218,7 +218,7 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
         elif isinstance(detail.get("set_id"), int):
             set_status[detail["set_id"]] = detail
     session = store.session(session_id)
-    checks = [
+    checks: list[tuple[str, int, dict[str, Any], SessionRow | SetRow, str]] = [
         ("sessions", session.id, session_status, session, "closed_at"),
         *(
             ("reading_sets", row.id, set_status.get(row.id, _NEVER_CHANGED), row, "ended_at")
