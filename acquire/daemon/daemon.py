@@ -407,7 +407,7 @@ class InstrumentLink(threading.Thread):
             timeout_s = BURST_GAP_S
 
 
-def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
+def _snapshot_notification(snapshot: protocol.Snapshot) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
 
@@ -447,7 +447,7 @@ class Daemon:
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
         #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
-        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
+        self._built: tuple[int, protocol.Snapshot, bytes | None] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
@@ -888,11 +888,11 @@ class Daemon:
         for server in (self.server, self.watch_server):
             await server.broadcast_line(line)
 
-    def snapshot(self) -> dict[str, Any]:
+    def snapshot(self) -> protocol.Snapshot:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
         return self._snapshot_and_line()[0]
 
-    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
+    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[protocol.Snapshot, bytes | None]:
         """Return the engine's snapshot, trimmed to fit one message if it must be, and its
         notification line, encoded once (None if even the trimmed snapshot does not fit).
 
@@ -908,7 +908,7 @@ class Daemon:
         self._built = (seq, snapshot, line)
         return snapshot, line
 
-    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
+    def _build_snapshot(self) -> tuple[protocol.Snapshot, bytes | None]:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         try:
@@ -927,7 +927,7 @@ class Daemon:
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
         """Carry out one request from ``connection`` and return its result."""
-        assert self.engine is not None
+        assert self.engine is not None and self.store is not None
         if method == protocol.Method.HELLO:
             connection.client = params.get("client") or connection.client
             connection.operator = params.get("operator")
