@@ -13,6 +13,7 @@ from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from chargebook.acquire.protocol import FlagInfo
 from chargebook.acquire.record.events import EnvironmentEntry, EventKind
 from chargebook.acquire.record.store import EventRow, ReadingRow, SetRow
@@ -122,6 +123,11 @@ def _flag(code: str, message: str, severity: str = "warning") -> FlagInfo:
     return {"code": code, "message": message, "severity": severity}
 
 
+def _flag_info(flag: Flag) -> FlagInfo:
+    """Return a flag of ``corrections`` as the snapshot carries it."""
+    return _flag(flag.code, flag.message, flag.severity)
+
+
 def reading_flags(reading: ReadingRow, against_bias: bool) -> list[FlagInfo]:
     """Return the flags of one reading: instrument status, settling, and its sign against the
     bias (``against_bias``, judged by ``corrections.signs.contradicting``)."""
@@ -151,8 +157,8 @@ def set_summary(
     against = [False] * len(readings)
     if purpose != "leakage":  # leakage carries no bias-given sign
         against = contradicting(
-            [r.charge_nC for r in readings],
-            [r.charge_nC for r in used or readings],  # the set's sign: as the results take it
+            np.array([r.charge_nC for r in readings]),
+            np.array([r.charge_nC for r in used or readings]),  # the set's sign: as results take it
             bias_V,
             thresholds.charge_sign_for_positive_bias,
         ).tolist()
@@ -180,7 +186,7 @@ def set_summary(
                 "test): look for a spike or an interrupted beam before accepting.",
             )
         )
-    flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
+    flags = [_flag_info(flag) for flag in set_flags(purpose, stats, thresholds)]
     return _plain(stats), flags, per_reading
 
 
@@ -193,7 +199,7 @@ def delivery_flags(
 ) -> list[FlagInfo]:
     """Return :func:`delivery_flag_list` as the snapshot's flag dicts."""
     flags = delivery_flag_list(step, readings, integration_s, time_scale, reference_nC_per_MU)
-    return [flag.to_dict() for flag in flags]
+    return [_flag_info(flag) for flag in flags]
 
 
 def delivery_flag_list(
