@@ -20,6 +20,7 @@ from chargebook.acquire.protocol import (
 from chargebook.acquire.record.store import EnvironmentRow, ReadingRow, SetRow
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.numbering import next_reading_label, reading_labels
+from chargebook.acquire.session.plan import Step
 
 if TYPE_CHECKING:
     from chargebook.acquire.engine.engine import Engine
@@ -42,6 +43,7 @@ def build_snapshot(engine: Engine) -> Snapshot:
     session: SessionInfo | None = None
     results, provisional, results_error = engine.results()
     if session_id is not None:
+        assert engine.plan is not None  # a session is open: its plan is known
         row = store.session(session_id)
         session = {
             "id": row.id,
@@ -101,12 +103,12 @@ def _sets_info(engine: Engine, rows: list[SetRow], readings: list[ReadingRow]) -
     cache = _SET_CACHE.setdefault(engine, {})
     fresh: dict[int, tuple[tuple[Any, ...], SetInfo]] = {}
     entries: list[SetInfo] = []
-    reference = rules.routine_nC_per_MU(engine.plan, rows, by_set)
+    plan = engine.plan
+    assert plan is not None  # sets exist only in a session
+    reference = rules.routine_nC_per_MU(plan, rows, by_set)
     for row in rows:
         own = by_set[row.id]
-        step = (
-            engine.plan.steps[row.step_index] if row.step_index < len(engine.plan.steps) else None
-        )
+        step = plan.steps[row.step_index] if row.step_index < len(plan.steps) else None
         inputs = (row, tuple(own), engine.thresholds, step, reference)
         cached = cache.get(row.id)
         entry = cached[1] if cached is not None and cached[0] == inputs else None
@@ -119,7 +121,7 @@ def _sets_info(engine: Engine, rows: list[SetRow], readings: list[ReadingRow]) -
 
 
 def _set_info(
-    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None, reference: float | None
+    engine: Engine, row: SetRow, own: list[ReadingRow], step: Step | None, reference: float | None
 ) -> SetInfo:
     """Return the protocol entry of one set: its readings, statistics and flags (``reference``:
     the routine set's charge per MU, nC/MU)."""
@@ -271,7 +273,7 @@ def prompt(engine: Engine) -> PromptInfo:
     return _beam_prompt(engine, step)
 
 
-def _waiting_prompt(engine: Engine, step: Any) -> PromptInfo:
+def _waiting_prompt(engine: Engine, step: Step) -> PromptInfo:
     if engine.session_id is not None and not engine.store.environment(engine.session_id):
         return {
             "kind": "environment",
@@ -289,7 +291,7 @@ def _waiting_prompt(engine: Engine, step: Any) -> PromptInfo:
     return {"kind": "arm", "text": f"{step.prompt} Arm when ready."}
 
 
-def _beam_prompt(engine: Engine, step: Any) -> PromptInfo:
+def _beam_prompt(engine: Engine, step: Step) -> PromptInfo:
     active = engine.active
     done = active.used_count if active is not None else 0
     if not step.uses_beam:
