@@ -34,6 +34,7 @@ import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 from typing import Any, ParamSpec, TypeVar
 
 from chargebook.acquire.engine.capture import (
@@ -59,6 +60,7 @@ from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
+from chargebook.acquire.session.plan import Plan, Step
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -70,6 +72,8 @@ R = TypeVar("R")
 DAEMON_ACTOR = "daemon"
 #: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
 Results = tuple[dict[str, Any] | None, bool, str | None]
+#: A plan as the engine may be given it: a Plan, a shipped plan's name, a TOML path, a plan dict.
+PlanSource = Plan | str | Path | Mapping[str, Any]
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
 
@@ -127,7 +131,7 @@ class Engine:
         capabilities: frozenset[Capability] | set[Capability] = frozenset(),
         bench: bool = False,
         clock: Callable[[], float] = time.monotonic,
-        default_plan: Any = "default",
+        default_plan: PlanSource = "default",
         profile: str = "",
         time_scale: float = 1.0,
         thresholds: Thresholds | None = None,
@@ -146,7 +150,7 @@ class Engine:
         self.state = S.IDLE
         self.paused_from: EngineState | None = None
         self.session_id: int | None = None
-        self.plan: Any = None
+        self.plan: Plan | None = None
         self.metadata: dict[str, Any] = {}
         self.step_index: int | None = None
         self.active: ActiveSet | None = None
@@ -175,7 +179,7 @@ class Engine:
 
     # ------------------------------------------------------------------------ plumbing
     @property
-    def step(self) -> Any:
+    def step(self) -> Step | None:
         """Return the current plan step (None outside a session or after the last step)."""
         if self.plan is None or self.step_index is None:
             return None
@@ -319,7 +323,7 @@ class Engine:
     # ----------------------------------------------------------------- session actions
     @one_transaction
     def start_session(
-        self, metadata: dict[str, Any], plan: Any = None, actor: str = DAEMON_ACTOR
+        self, metadata: dict[str, Any], plan: PlanSource | None = None, actor: str = DAEMON_ACTOR
     ) -> int:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
@@ -398,7 +402,7 @@ class Engine:
     def skip(self, actor: str = DAEMON_ACTOR) -> None:
         """Skip the current (optional) step."""
         self._require(Method.STEP_SKIP)
-        assert self.step_index is not None
+        assert self.step_index is not None and self.step is not None
         skipped = ev.StepSkipped(step_index=self.step_index, step_key=self.step.key)
         self._event(actor, EventKind.STEP_SKIPPED, skipped)
         self.skipped.add(self.step_index)
@@ -678,12 +682,12 @@ class Engine:
                 self._event(actor, EventKind.BIAS_CHANGED, changed)
 
     def _settling_needed(self) -> bool:
-        assert self.active is not None
+        assert self.active is not None and self.step is not None
         return rules.settling_needed(self.step, self.active.readings, MAX_SETTLING_READINGS)
 
     def _begin_reading(self, actor: str, action: str) -> None:
         step = self.step
-        assert step is not None and self.active is not None
+        assert step is not None and self.active is not None and self.plan is not None
         settling = self._settling_needed()
         new_state = S.SETTLING if settling else S.COLLECTING
         if self.instrument_connected:
@@ -809,6 +813,7 @@ class Engine:
         if self.session_id is None:
             value: Results = (None, False, None)
         else:
+            assert self.plan is not None  # a session is open: its plan is known
             context = SessionContext(
                 self.plan, self.metadata, self.thresholds, self.integration_s, self.time_scale
             )
