@@ -381,6 +381,7 @@ class Conductor:
         if engine.active is None or engine.state not in (S.SETTLING, S.COLLECTING):
             return ""
         step = engine.step
+        assert step is not None  # a set is being taken: its step is current
         return (
             f"; the plan still collects step '{step.key}' after {engine.active.used_count} of "
             f"its {step.readings} readings: the recording holds no more readings for it"
