@@ -37,21 +37,14 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, ParamSpec, TypeVar
 
+from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.capture import (
     Captured,
     CaptureSettings,
     ReadingCapture,
     capture_settings,
 )
-from chargebook.acquire.engine.driver_commands import (
-    Command,
-    DeliverBeam,
-    SetBias,
-    StartIntegration,
-    StopIntegration,
-    TurnBiasSwitch,
-    Zero,
-)
+from chargebook.acquire.engine.driver_commands import Command
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
 from chargebook.acquire.protocol import EngineState, Method, ReadingPhase, Snapshot
 from chargebook.acquire.record import events as ev
@@ -394,7 +387,7 @@ class Engine:
             changed = ev.BiasChanged(volts=self.bias_V, how="by hand")
             self._event(actor, EventKind.BIAS_CHANGED, changed)
             if self.bench:
-                self._issue(TurnBiasSwitch(self.bias_V))
+                self._issue(driver_commands.TurnBiasSwitch(self.bias_V))
         self.pending_manual = None
         self._changed()
 
@@ -675,7 +668,7 @@ class Engine:
     def _apply_bias(self, actor: str) -> None:
         step = self.step
         if self._can(Capability.SET_BIAS) and step is not None:
-            self._issue(SetBias(float(step.bias_V)))
+            self._issue(driver_commands.SetBias(float(step.bias_V)))
             if self.bias_V != step.bias_V:
                 self.bias_V = float(step.bias_V)
                 changed = ev.BiasChanged(volts=self.bias_V, how="remote")
@@ -704,11 +697,11 @@ class Engine:
         )
         self.reading_status = "ok"
         if self._can(Capability.ZERO):
-            self._issue(Zero())
+            self._issue(driver_commands.Zero())
         if self._can(Capability.INTEGRATE):
-            self._issue(StartIntegration())
+            self._issue(driver_commands.StartIntegration())
         if self.bench and float(step.mu_per_reading) > 0:
-            self._issue(DeliverBeam(float(step.mu_per_reading)))
+            self._issue(driver_commands.DeliverBeam(float(step.mu_per_reading)))
 
     def _drop_reading(self, actor: str, why: str) -> None:
         if self.reading is None:
@@ -718,7 +711,7 @@ class Engine:
         self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
-            self._issue(StopIntegration())
+            self._issue(driver_commands.StopIntegration())
 
     def _record(self, captured: Captured, actor: str) -> None:
         step, active = self.step, self.active
@@ -729,7 +722,7 @@ class Engine:
         self.reading = None
         self.notice = None
         if self._can(Capability.INTEGRATE):
-            self._issue(StopIntegration())
+            self._issue(driver_commands.StopIntegration())
         reading_id = self.store.add_reading(
             self.session_id,
             active.id,

@@ -9,14 +9,7 @@ from __future__ import annotations
 
 import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
-from chargebook.acquire.engine.driver_commands import (
-    DeliverBeam,
-    SetBias,
-    StartIntegration,
-    StopIntegration,
-    TurnBiasSwitch,
-    Zero,
-)
+from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
@@ -205,10 +198,10 @@ def test_pause_drops_the_reading_in_progress_and_resume_arms_again():
     engine.take_commands()
     engine.pause()
     assert engine.state is S.PAUSED and engine.reading is None
-    assert StopIntegration() in engine.take_commands()
+    assert driver_commands.StopIntegration() in engine.take_commands()
     engine.resume()
     assert engine.state is S.SETTLING and engine.reading is not None
-    assert engine.take_commands()[-1] == StartIntegration()
+    assert engine.take_commands()[-1] == driver_commands.StartIntegration()
     kinds = [e.kind for e in engine.store.events(engine.session_id)]
     assert EventKind.READING_DROPPED in kinds
 
@@ -306,10 +299,10 @@ def test_remote_bias_and_the_bench_turn_prompts_into_commands():
     assert engine.pending_manual is None
     engine.arm()
     assert engine.take_commands() == [
-        SetBias(bias_V=300.0),
-        Zero(),
-        StartIntegration(),
-        DeliverBeam(monitor_units=100.0),
+        driver_commands.SetBias(bias_V=300.0),
+        driver_commands.Zero(),
+        driver_commands.StartIntegration(),
+        driver_commands.DeliverBeam(monitor_units=100.0),
     ]
 
 
@@ -317,7 +310,7 @@ def test_manual_bias_confirmed_with_a_bench_turns_the_simulated_switch():
     engine, _ = make_engine(bench=True)
     started(engine)
     engine.manual_done()
-    assert engine.take_commands() == [TurnBiasSwitch(bias_V=300.0)]
+    assert engine.take_commands() == [driver_commands.TurnBiasSwitch(bias_V=300.0)]
 
 
 def test_settling_until_stable_keeps_taking_settling_readings():
