@@ -34,17 +34,7 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
-from chargebook.acquire.engine.driver_commands import (
-    BENCH_COMMANDS,
-    BenchCommand,
-    Command,
-    DeliverBeam,
-    SetBias,
-    StartIntegration,
-    StopIntegration,
-    TurnBiasSwitch,
-    Zero,
-)
+from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.record import events as ev
@@ -183,7 +173,7 @@ class InstrumentLink(threading.Thread):
         self.backlog_full = False
 
     # -- called from the asyncio loop ----------------------------------------------------------
-    def send(self, command: Command) -> None:
+    def send(self, command: driver_commands.Command) -> None:
         """Queue one engine command."""
         self.inbox.put(("command", command))
 
@@ -277,7 +267,7 @@ class InstrumentLink(threading.Thread):
                 self.generation = value
             elif kind == "session":
                 self.session_id = value
-            elif kind == "command" and isinstance(value, BENCH_COMMANDS):
+            elif kind == "command" and isinstance(value, driver_commands.BENCH_COMMANDS):
                 self._bench(value)
             else:
                 log.info("electrometer away: dropped command %s", value)
@@ -341,32 +331,32 @@ class InstrumentLink(threading.Thread):
         with contextlib.suppress(Exception):
             self.electrometer.close()
 
-    def _execute(self, command: Command) -> None:
-        if isinstance(command, BENCH_COMMANDS):
+    def _execute(self, command: driver_commands.Command) -> None:
+        if isinstance(command, driver_commands.BENCH_COMMANDS):
             self._bench(command)
             return
         match command:
-            case Zero():
+            case driver_commands.Zero():
                 self.electrometer.zero()
-            case StartIntegration():
+            case driver_commands.StartIntegration():
                 self.electrometer.start_integration()
-            case StopIntegration():
+            case driver_commands.StopIntegration():
                 self.electrometer.stop_integration()
-            case SetBias(bias_V=bias_V):
+            case driver_commands.SetBias(bias_V=bias_V):
                 self.electrometer.set_bias(bias_V)
         self.fresh_after_s = self.clock()
         self._timeouts = 0
 
-    def _bench(self, command: BenchCommand) -> None:
+    def _bench(self, command: driver_commands.BenchCommand) -> None:
         from chargebook.acquire.daemon.bench import BenchError
 
         if self.bench is None:
             return
         try:
             match command:
-                case DeliverBeam(monitor_units=monitor_units):
+                case driver_commands.DeliverBeam(monitor_units=monitor_units):
                     self.bench.deliver(monitor_units)
-                case TurnBiasSwitch(bias_V=bias_V):
+                case driver_commands.TurnBiasSwitch(bias_V=bias_V):
                     self.bench.turn_bias(bias_V)
         except BenchError as error:
             self._hand_over("fault", str(error))
