@@ -521,7 +521,7 @@ class Snapshot(TypedDict):
     """The whole daemon state, as sent in ``snapshot`` notifications and method results.
 
     ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed by
-    ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
+    ``acquire.session.evaluation.evaluate_session`` from the accepted sets, the environment
     entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
     in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
     *pending* (``factor_states``) and values that depend on them are null; k_pol and k_s of an

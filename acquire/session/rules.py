@@ -65,7 +65,7 @@ def require_reason(field: str, value: object) -> str:
 
 
 def validate_metadata(metadata: Mapping[str, Any]) -> dict[str, Any]:
-    """Return the session metadata checked by ``acquire.session_meta``, as plain data."""
+    """Return the session metadata checked by ``acquire.session.metadata``, as plain data."""
     return _session_metadata(metadata).to_dict()
 
 
