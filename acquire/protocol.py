@@ -145,6 +145,9 @@ class Method(enum.StrEnum):
     SESSION_ABORT = "session.abort"
     SESSION_CLOSE = "session.close"
     SESSION_REVIEW = "session.review"
+    REGISTER_LIST = "register.list"
+    REGISTER_ADD = "register.add"
+    REGISTER_SUPERSEDE = "register.supersede"
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -305,6 +308,39 @@ METHODS: dict[str, MethodSpec] = {
                 ),
             ),
             result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
+        ),
+        MethodSpec(
+            Method.REGISTER_LIST,
+            "List the station's register rows (machines, beams, chambers, certificates, "
+            "electrometers, thermometers, barometers, k_Q), each with its name in words.",
+            (
+                Param("kind", "string", doc="only rows of this kind"),
+                Param("include_superseded", "boolean", doc="superseded rows too (default false)"),
+            ),
+            result="{rows: [register row with its name]}",
+        ),
+        MethodSpec(
+            Method.REGISTER_ADD,
+            "Add a register entry (its first row); the connection's operator is the actor.",
+            (
+                Param("kind", "string", required=True, doc="machine, beam, chamber, ..."),
+                Param("fields", "object", required=True, doc="field -> value"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the row added",
+        ),
+        MethodSpec(
+            Method.REGISTER_SUPERSEDE,
+            "Supersede a register row with its fields changed as given; the old row is kept.",
+            (
+                Param("row", "integer", required=True, doc="the current row of the entry"),
+                Param("fields", "object", required=True, doc="field -> new value"),
+                Param("reason", "string", required=True, doc="why, in words"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the new row",
         ),
     )
 }

@@ -39,6 +39,7 @@ from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
+from chargebook.acquire.session.register_requests import REGISTER_METHODS
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -930,6 +931,10 @@ class Daemon:
             return self.snapshot()
         if method == protocol.Method.SESSION_REVIEW:
             return self._review(connection, params)
+        if method in REGISTER_METHODS:
+            self._same_station(params)
+            with self.store.on_behalf_of(connection.account):
+                return REGISTER_METHODS[method](self.store, params, connection.actor)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -943,17 +948,22 @@ class Daemon:
             await self.after_change()  # a refused request may still have recorded something
         return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
 
-    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
-        """Record a review (``session.review``); the reviewer named in it is the actor."""
-        from chargebook.acquire.record.review import record_review
+    def _same_station(self, params: dict[str, Any]) -> None:
+        """Refuse a request meant for another station file (its ``db``, when given)."""
         from chargebook.corrections.errors import InputError
 
-        assert self.store is not None
         meant = params.get("db")
         if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
             raise InputError(
                 "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
             )
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.record.review import record_review
+
+        assert self.store is not None
+        self._same_station(params)
         with self.store.on_behalf_of(connection.account):
             review = record_review(
                 self.store,

@@ -28,6 +28,7 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
+import datetime
 import functools
 import logging
 import time
@@ -48,6 +49,10 @@ from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
+from chargebook.acquire.session.register_rows import (
+    CERTIFICATE_VALIDITY_YEARS,
+    fill_from_registers,
+)
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -134,8 +139,11 @@ class Engine:
         time_scale: float = 1.0,
         thresholds: Thresholds | None = None,
         on_change: Callable[[], None] | None = None,
+        certificate_validity_years: float = CERTIFICATE_VALIDITY_YEARS,
     ) -> None:
         self.store = store
+        #: Calibration certificates older than this are flagged (common practice: 2 years).
+        self.certificate_validity_years = certificate_validity_years
         self.capabilities = frozenset(capabilities)
         self.bench = bench
         self.clock = clock
@@ -312,10 +320,15 @@ class Engine:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
+        today = self.store.stamp()[:10]
+        filled = fill_from_registers(
+            self.store,
+            metadata,
+            on=datetime.date.fromisoformat(today),
+            validity_years=self.certificate_validity_years,
+        )
         checked = rules.validate_metadata(
-            carried_metadata(
-                self.store, rules.validate_metadata(metadata), resolved, self.store.stamp()[:10]
-            )
+            carried_metadata(self.store, rules.validate_metadata(filled), resolved, today)
         )
         session_id = self.store.create_session(
             metadata=checked,

@@ -691,3 +691,39 @@ def _belongs(rows: Mapping[str, RegisterRow], kind: str, owners: Mapping[str, in
                 f"a {kind} row of the session's {owner} (entry {entry})",
                 f"is for another {owner} (entry {row.fields[owner]})",
             )
+
+
+#: The metadata keys that name register rows, keep their copy and the warnings they raised.
+REGISTER_KEYS = ("registers", "register_copy", "register_warnings")
+
+
+def fill_from_registers(
+    store: Store,
+    metadata: Mapping[str, Any],
+    *,
+    on: datetime.date,
+    validity_years: float = CERTIFICATE_VALIDITY_YEARS,
+) -> dict[str, Any]:
+    """Return ``metadata`` with what its ``registers`` (kind -> row id) name filled in, a copy
+    of those rows (``register_copy``) and the warnings in words (``register_warnings``).
+
+    Metadata without ``registers`` is returned as it is (typed in). A value typed in that
+    differs from the registers' is refused by name: a session says one thing about its chamber.
+    """
+    result = dict(metadata)
+    if result.get("registers") is None:
+        for key in REGISTER_KEYS[1:]:
+            result.pop(key, None)
+        return result
+    picked = select(store, result["registers"], on=on, validity_years=validity_years)
+    for key, value in picked.metadata_fields().items():
+        typed = result.get(key)
+        if typed is not None and typed != value and key != "beam_quality":
+            raise InputError(
+                key, typed, f"{value!r}, as the registers hold it", "differs from the registers"
+            )
+        result[key] = value if typed is None or key != "beam_quality" else typed
+    result["registers"] = picked.ids()
+    result["register_copy"] = picked.copy()
+    result["register_warnings"] = picked.warnings()
+    return result

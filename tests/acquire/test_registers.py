@@ -221,3 +221,45 @@ def test_a_selection_refuses_a_certificate_of_another_chamber(store: Store) -> N
             },
             on=TODAY,
         )
+
+
+def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: Store) -> None:
+    from chargebook.acquire.engine.engine import Engine
+
+    ids = _ids(store)
+    chamber = ids[("chamber", "SIM-CH-0001")]
+    names = {
+        "beam": find_beam(store, "DEMO-LA1 6 MV").id,
+        "chamber": chamber,
+        "electrometer": ids[("electrometer", "SIM-EM-0001")],
+        "thermometer": ids[("thermometer", "SIM-TH-0001")],
+    }
+    engine = Engine(store, certificate_validity_years=0.1)  # a setting: short, to see a warning
+    session = engine.start_session(
+        {"registers": names, "convention": "trs398", "operator": "operator A"}, "default"
+    )
+    kept = store.session(session).metadata()
+    assert kept["chamber_serial"] == "SIM-CH-0001" and kept["N_Dw"] == 0.0504
+    assert kept["registers"]["certificate"] == register_rows(store, "certificate")[0].id
+    assert any("past its validity of 0.1 years" in w for w in kept["register_warnings"])
+    # a later edit of the registers does not change the session's copy
+    supersede_row(store, chamber, {"model": "thimble 0.6 cc, relabelled"}, actor="physicist C",
+                  reason="label", today=TODAY)  # fmt: skip
+    assert store.session(session).metadata()["register_copy"]["chamber"]["fields"]["model"] == (
+        "thimble 0.6 cc"
+    )
+
+
+def test_a_typed_value_that_contradicts_the_registers_is_refused(store: Store) -> None:
+    from chargebook.acquire.engine.engine import Engine
+
+    ids = _ids(store)
+    names = {
+        "beam": find_beam(store, "6 MV").id,
+        "chamber": ids[("chamber", "SIM-CH-0001")],
+        "electrometer": ids[("electrometer", "SIM-EM-0001")],
+    }
+    meta = {"registers": names, "convention": "trs398", "operator": "operator A", "k_Q": 0.98}
+    with pytest.raises(InputError, match=r"k_Q = 0\.98 differs from the registers"):
+        Engine(store).start_session(meta, "default")
+    assert store.sessions() == []

@@ -1,0 +1,60 @@
+"""The daemon's register requests (``register.list``, ``register.add``,
+``register.supersede``): the params of :data:`chargebook.acquire.protocol.METHODS` in, JSON-ready
+rows out. The daemon is the single writer while it runs, so a client adds rows through it."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+from chargebook.acquire import protocol
+from chargebook.acquire.record.registers import RegisterRow, register_rows
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.register_rows import add_row, row_name, supersede_row
+
+
+def named(store: Store, row: RegisterRow) -> dict[str, Any]:
+    """Return a row as JSON-ready data with its name in words (``name``)."""
+    return {**row.to_dict(), "name": row_name(store, row)}
+
+
+def list_rows(store: Store, params: dict[str, Any], actor: str) -> dict[str, Any]:
+    """Return ``{rows: [...]}``: the current rows (of ``kind``; superseded ones too if asked)."""
+    rows = register_rows(
+        store, params.get("kind"), include_superseded=bool(params.get("include_superseded"))
+    )
+    return {"rows": [named(store, row) for row in rows]}
+
+
+def add(store: Store, params: dict[str, Any], actor: str) -> dict[str, Any]:
+    """Add a register entry; return its first row."""
+    row = add_row(
+        store,
+        params["kind"],
+        params["fields"],
+        actor=actor,
+        effective_from=params.get("effective_from"),
+    )
+    return named(store, row)
+
+
+def supersede(store: Store, params: dict[str, Any], actor: str) -> dict[str, Any]:
+    """Supersede a register row; return the new row."""
+    row = supersede_row(
+        store,
+        params["row"],
+        params["fields"],
+        actor=actor,
+        reason=params["reason"],
+        effective_from=params.get("effective_from"),
+    )
+    return named(store, row)
+
+
+Handler = Callable[[Store, dict[str, Any], str], dict[str, Any]]
+#: Method name -> handler(store, params, actor).
+REGISTER_METHODS: dict[str, Handler] = {
+    protocol.Method.REGISTER_LIST: list_rows,
+    protocol.Method.REGISTER_ADD: add,
+    protocol.Method.REGISTER_SUPERSEDE: supersede,
+}
