@@ -49,10 +49,7 @@ from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
-from chargebook.acquire.session.register_rows import (
-    CERTIFICATE_VALIDITY_YEARS,
-    fill_from_registers,
-)
+from chargebook.acquire.session.register_rows import fill_from_registers
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -139,11 +136,8 @@ class Engine:
         time_scale: float = 1.0,
         thresholds: Thresholds | None = None,
         on_change: Callable[[], None] | None = None,
-        certificate_validity_years: float = CERTIFICATE_VALIDITY_YEARS,
     ) -> None:
         self.store = store
-        #: Calibration certificates older than this are flagged (common practice: 2 years).
-        self.certificate_validity_years = certificate_validity_years
         self.capabilities = frozenset(capabilities)
         self.bench = bench
         self.clock = clock
@@ -325,7 +319,7 @@ class Engine:
             self.store,
             metadata,
             on=datetime.date.fromisoformat(today),
-            validity_years=self.certificate_validity_years,
+            validity_years=self.default_thresholds.certificate_validity_years,
         )
         checked = rules.validate_metadata(
             carried_metadata(self.store, rules.validate_metadata(filled), resolved, today)

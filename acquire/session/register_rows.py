@@ -37,9 +37,11 @@ from chargebook.acquire.record.store import Store
 from chargebook.corrections import limits, units
 from chargebook.corrections.carried import checked_text, parse_date
 from chargebook.corrections.errors import InputError
+from chargebook.corrections.stability import Thresholds
 
-#: A calibration certificate older than this is flagged (common practice: two years).
-CERTIFICATE_VALIDITY_YEARS = 2.0
+#: A calibration certificate older than this is flagged (common practice: two years); the
+#: daemon's setting is ``Thresholds.certificate_validity_years``.
+CERTIFICATE_VALIDITY_YEARS = Thresholds().certificate_validity_years
 MAX_TEXT = 200
 BEAM_TYPES = ("pulsed", "pulsed-scanned", "continuous")
 MODALITIES = ("photon", "electron", "proton", "other")

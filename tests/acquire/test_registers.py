@@ -225,6 +225,7 @@ def test_a_selection_refuses_a_certificate_of_another_chamber(store: Store) -> N
 
 def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: Store) -> None:
     from chargebook.acquire.engine.engine import Engine
+    from chargebook.corrections.stability import Thresholds
 
     ids = _ids(store)
     chamber = ids[("chamber", "SIM-CH-0001")]
@@ -234,7 +235,8 @@ def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: S
         "electrometer": ids[("electrometer", "SIM-EM-0001")],
         "thermometer": ids[("thermometer", "SIM-TH-0001")],
     }
-    engine = Engine(store, certificate_validity_years=0.1)  # a setting: short, to see a warning
+    short = Thresholds(certificate_validity_years=0.1)  # a setting: short, to see a warning
+    engine = Engine(store, thresholds=short)
     session = engine.start_session(
         {"registers": names, "convention": "trs398", "operator": "operator A"}, "default"
     )
