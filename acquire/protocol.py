@@ -148,6 +148,7 @@ class Method(enum.StrEnum):
     REGISTER_LIST = "register.list"
     REGISTER_ADD = "register.add"
     REGISTER_SUPERSEDE = "register.supersede"
+    REGISTER_PICK = "register.pick"
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -341,6 +342,14 @@ METHODS: dict[str, MethodSpec] = {
                 Param("db", "string", doc="the station file the client means"),
             ),
             result="the new row",
+        ),
+        MethodSpec(
+            Method.REGISTER_PICK,
+            "Say what a session using these register rows would be given: the metadata they "
+            "fill and the warnings (an expired or missing certificate, no k_Q ...). Writes "
+            "nothing; send the ids as `registers` in session.start's metadata to use them.",
+            (Param("registers", "object", required=True, doc="kind -> row id"),),
+            result="{registers: kind -> row id, fields: metadata, warnings: [text]}",
         ),
     )
 }

@@ -934,7 +934,8 @@ class Daemon:
         if method in REGISTER_METHODS:
             self._same_station(params)
             with self.store.on_behalf_of(connection.account):
-                return REGISTER_METHODS[method](self.store, params, connection.actor)
+                handler = REGISTER_METHODS[method]
+                return handler(self.store, params, connection.actor, self.engine.default_thresholds)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)

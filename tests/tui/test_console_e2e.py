@@ -310,3 +310,50 @@ async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_req
     by_console = [e for e in events if e.kind in ("session_created", "environment_entered")]
     assert {e.actor for e in by_console} == {metadata["operator"]}
     assert {e.account for e in by_console} == {getpass.getuser()}
+
+
+async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_rows(
+    start_daemon, simulator, tmp_path
+):
+    """Ctrl+R lists the registers from the daemon; the chosen beam, chamber and electrometer
+    fill the form, the certificate's date is shown, and the session keeps the row ids."""
+    from chargebook.acquire.commands.demo_data import add_demo_registers
+    from chargebook.tui.screens.register_pick import RegisterPickScreen
+    from textual.widgets import Select
+
+    db = tmp_path / "station.sqlite"
+    with Store.open(db) as store:
+        ids = add_demo_registers(store, actor="physicist C")
+    daemon = start_daemon(simulator, db)
+    app = ConsoleApp(
+        daemon.socket,
+        operator="console test",
+        setup_defaults={"operator": "operator A", **bench_air(simulator)},
+    )
+    async with app.run_test(size=(100, 40)) as pilot:
+        await until(pilot, lambda: screen_kind(app) == "setup", "the setup form")
+        await pilot.press("ctrl+r")
+        await until(pilot, lambda: isinstance(app.screen, RegisterPickScreen), "the registers")
+        choices = {
+            kind: [label for label, _ in app.screen.query_one(f"#pick-{kind}", Select)._options]
+            for kind in ("beam", "chamber")
+        }
+        for kind, key in (("beam", "la1_6mv"), ("chamber", "ch1"), ("electrometer", "em1")):
+            app.screen.query_one(f"#pick-{kind}", Select).value = ids[key]
+        await pilot.click("#confirm")
+        await until(pilot, lambda: app.screen.kind == "setup", "the form again")
+        await until(
+            pilot,
+            lambda: app.screen.query_one("#input-chamber_serial").value == "SIM-CH-0001",
+            "the chamber's serial in the form",
+        )
+        shown = " ".join(screen_text(app).split())
+        await start_session(pilot, app)
+        kept = app.snapshot["session"]["metadata"]
+    assert "DEMO-LA1 6 MV" in choices["beam"] and "DEMO-LA1 10 MeV" in choices["beam"]
+    assert "SIM-CH-0003" in choices["chamber"]
+    assert "From the registers: DEMO-LA1 6 MV, chamber SIM-CH-0001" in shown
+    assert "certificate SIM-CAL-0001, Example Calibration Laboratory (fictional) of 20" in shown
+    assert kept["registers"]["beam"] == ids["la1_6mv"]
+    assert kept["register_copy"]["chamber"]["fields"]["serial"] == "SIM-CH-0001"
+    assert kept["k_Q"] == 0.992
