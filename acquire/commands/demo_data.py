@@ -116,3 +116,35 @@ def add_demo_registers(store: Any, *, actor: str, today: Any = None) -> dict[str
             given[name] = value
         ids[key] = add_row(store, kind, given, actor=actor, today=day).id
     return ids
+
+
+#: The register rows the demo's sessions use, by their keys in DEMO_REGISTERS.
+DEMO_PICK = {
+    "beam": "la1_6mv",
+    "chamber": "ch1",
+    "electrometer": "em1",
+    "thermometer": "th1",
+    "barometer": "ba1",
+}
+
+
+def demo_registers(store: Any, *, actor: str) -> dict[str, int]:
+    """Return the ids of the register rows the demo uses (kind -> row id), adding the demo
+    clinic's registers to ``store`` first when it holds none."""
+    from chargebook.acquire.record.registers import register_rows
+
+    if register_rows(store, "beam"):
+        by_name = {
+            (row.kind, row.fields.get("serial") or row.fields.get("name")): row
+            for row in register_rows(store)
+        }
+        wanted = {key: (kind, fields) for key, kind, fields in DEMO_REGISTERS}
+        found = {}
+        for kind, key in DEMO_PICK.items():
+            fields = wanted[key][1]
+            row = by_name.get((kind, fields.get("serial") or fields.get("name")))
+            if row is not None:
+                found[kind] = row.id
+        return found
+    ids = add_demo_registers(store, actor=actor)
+    return {kind: ids[key] for kind, key in DEMO_PICK.items()}

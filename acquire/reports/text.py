@@ -148,8 +148,7 @@ def deviation_plot(
     known = [abs(d) for d in deviations_pct if d is not None]
     span = max([tolerance_pct * 1.5, (action_pct or 0.0) * 1.2, *known])
     half = (height - 1) // 2
-    # A whole number of rows per tolerance, so that the tolerance lines fall on rows.
-    step = tolerance_pct / max(1, math.floor(half * tolerance_pct / span))
+    step = _row_step(tolerance_pct, action_pct, max(1, math.floor(half * tolerance_pct / span)))
     levels = [i * step for i in range(half, -half - 1, -1)]
     column = max([3, *(len(label) + 1 for label in [*labels, *(dates or ())])])
     row_of = [_nearest_row(d, levels[0], step, len(levels)) for d in deviations_pct]
@@ -160,7 +159,8 @@ def deviation_plot(
         cells = []
         for deviation, row, bar in zip(deviations_pct, row_of, bars, strict=True):
             if row != index:
-                cells.append("|" if bar[0] <= index <= bar[1] else marker)
+                in_bar = bar[0] <= index <= bar[1] and marker in (" ", ".")
+                cells.append("|" if in_bar else marker)
             elif deviation is None:
                 cells.append("?")
             elif deviation > levels[0] + step / 2 or deviation < levels[-1] - step / 2:
@@ -183,6 +183,16 @@ def deviation_plot(
     if action_pct is not None:
         legend += f"   # action level ±{action_pct:g} %"
     return "\n".join([*rows, axis, names, *extra, legend])
+
+
+def _row_step(tolerance_pct: float, action_pct: float | None, most: int) -> float:
+    """Return the plot's row step: a whole number of rows per tolerance (at most ``most``), so
+    that the tolerance lines fall on rows, and per action level too when one allows it."""
+    for rows in range(most, 0, -1):
+        step = tolerance_pct / rows
+        if action_pct is None or abs(action_pct / step - round(action_pct / step)) < 1e-9:
+            return step
+    return tolerance_pct / most
 
 
 def _bar_rows(

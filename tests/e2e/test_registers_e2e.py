@@ -60,3 +60,39 @@ async def test_rows_are_added_through_the_daemon_and_a_session_keeps_their_copy(
     assert (
         event.account == getpass.getuser() and event.detail()["fields"]["serial"] == "SIM-CH-0002"
     )
+
+
+def test_the_demo_picks_from_its_registers_then_a_monthly_check_carries_the_factors(tmp_path):
+    """Issue 14 item 6: `chargebook demo` (no --plan) names its beam, chamber and certificate
+    date from the invented clinic's registers, runs a full calibration, then a monthly check
+    whose k_pol and k_s are carried from it; `history` of that register beam shows both."""
+    import json
+
+    from e2e_support import TIME_SCALE
+
+    db = tmp_path / "demo.sqlite"
+    command = chargebook_command(
+        "demo", "--unattended", "--json", "--db", str(db), "--time-scale", str(TIME_SCALE)
+    )
+    done = subprocess.run(command, capture_output=True, text=True, timeout=240, check=False)
+    assert done.returncode == 0, done.stderr
+    assert "registers: beam DEMO-LA1 6 MV, chamber SIM-CH-0001 (certificate SIM-CAL-0001" in (
+        done.stderr
+    )
+    flow = json.loads(done.stdout)
+    full, check = flow["full_calibration"], flow["monthly_check"]
+    assert full["factor_states"]["k_pol"] == full["factor_states"]["k_s"] == "measured"
+    assert check["factor_states"]["k_pol"] == check["factor_states"]["k_s"] == "carried"
+    assert (check["k_pol"], check["k_s"]) == (full["k_pol"], full["k_s"])
+    assert f"session {full['session_id']} of " in check["factor_sources"]["k_pol"]
+    assert check["dose_Gy"] is not None
+    with Store.open(db, read_only=True) as store:
+        kept = [session.metadata() for session in store.sessions()]
+    assert [m["register_copy"]["beam"]["name"] for m in kept] == ["DEMO-LA1 6 MV"] * 2
+    history = subprocess.run(
+        chargebook_command("history", "--beam", "DEMO-LA1 6MV", "--json", "--db", str(db)),
+        capture_output=True, text=True, timeout=60, check=True,
+    )  # fmt: skip
+    points = json.loads(history.stdout)["points"]
+    assert [p["kind"] for p in points] == ["full calibration", "output check"]
+    assert all(p["U_expanded_pct"] is not None for p in points)

@@ -47,7 +47,7 @@ class SetupScreen(ConsoleScreen):
         self.session_opened = False  # this form opened the session; the air data are still due
         self.problem_said = False  # "Not started: ..." is on screen
         #: The register rows the form was filled from (kind -> row id), sent with the metadata.
-        self.registers: dict[str, int] | None = None
+        self.registers: dict[str, int] | None = self.defaults.pop("registers", None)
 
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status-line", markup=False)
@@ -102,8 +102,20 @@ class SetupScreen(ConsoleScreen):
             self._say("The registers hold no beam yet: add one with `chargebook register add`.")
             return
         chosen = await self.app.push_screen_wait(RegisterPickScreen(listed["rows"]))
-        if chosen is None:
-            return
+        if chosen is not None:
+            await self._fill_from_registers(chosen)
+
+    def on_mount(self) -> None:
+        """Fill the form from the register rows the console was started with (the demo's)."""
+        if self.registers is not None:
+            self._fill_on_mount(self.registers)
+
+    @work(exclusive=True, group="registers")
+    async def _fill_on_mount(self, chosen: dict[str, int]) -> None:
+        await self._fill_from_registers(chosen)
+
+    async def _fill_from_registers(self, chosen: dict[str, int]) -> None:
+        """Ask the daemon what the rows fill, fill the form, and say what they are."""
         try:
             picked = await self.send(Method.REGISTER_PICK, registers=chosen)
         except (DaemonError, ConnectionLost) as error:
