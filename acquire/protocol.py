@@ -149,6 +149,7 @@ class Method(enum.StrEnum):
     REGISTER_ADD = "register.add"
     REGISTER_SUPERSEDE = "register.supersede"
     REGISTER_PICK = "register.pick"
+    ENVIRONMENT_READ = "environment.read"
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -342,6 +343,13 @@ METHODS: dict[str, MethodSpec] = {
                 Param("db", "string", doc="the station file the client means"),
             ),
             result="the new row",
+        ),
+        MethodSpec(
+            Method.ENVIRONMENT_READ,
+            "Read the air temperature and pressure from the daemon's environment sensor "
+            "(serve --sensor-port) now, its certificate corrections from the registers applied, "
+            "and record them as an entry whose source names the sensor. The daemon also reads "
+            "it by itself when a session starts and before each set.",
         ),
         MethodSpec(
             Method.REGISTER_PICK,

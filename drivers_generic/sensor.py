@@ -191,7 +191,8 @@ class EnvironmentSensor:
         self.transport.close()
 
     def __enter__(self) -> EnvironmentSensor:
-        self.open()
+        if not self.transport.is_open:  # open_sensor has opened it already
+            self.open()
         return self
 
     def __exit__(self, *exc: object) -> None:

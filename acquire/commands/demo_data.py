@@ -83,13 +83,16 @@ DEMO_REGISTERS: tuple[tuple[str, str, dict[str, Any]], ...] = (
         "model": "simulated electrometer", "serial": "SIM-EM-0001", "profile": "query-plain",
         "calibrated_with_chamber": True,
     }),
+    # One simulated instrument reads both (the simulator's sensor, SIM-TP-0001): it reads
+    # 0.10 °C low and 0.05 kPa high, which its certificate's corrections put right.
     ("th1", "thermometer", {
-        "model": "simulated thermometer", "serial": "SIM-TH-0001", "certificate_date": -300,
-        "u_C": 0.1, "correction_C": 0.0,
+        "model": "simulated thermometer-barometer", "serial": "SIM-TP-0001",
+        "profile": "sensor-plain", "certificate_date": -300, "u_C": 0.1, "correction_C": 0.1,
     }),
     ("ba1", "barometer", {
-        "model": "simulated barometer", "serial": "SIM-BA-0001", "certificate_date": -300,
-        "u_kPa": 0.05, "correction_kPa": 0.0,
+        "model": "simulated thermometer-barometer", "serial": "SIM-TP-0001",
+        "profile": "sensor-plain", "certificate_date": -300, "u_kPa": 0.05,
+        "correction_kPa": -0.05,
     }),
     ("kq_6mv", "k_Q", {
         "chamber": "@ch1", "beam": "@la1_6mv", "value": 0.992, "u_pct": 1.0,

@@ -48,6 +48,7 @@ def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child,
                 "--socket", str(workdir / "daemon.sock"), "--plan", args.plan or FULL_PLAN,
                 "--time-scale", str(args.time_scale), "--log-level", "INFO",
                 "--config", os.devnull,  # the demo reads no station file
+                "--sensor-port", simulator.info["sensor"],  # the air, read by the daemon
             ],
             workdir / "daemon.log",
         )  # fmt: skip

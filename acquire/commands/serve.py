@@ -96,6 +96,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "/etc/chargebook/station.toml, when present)",
     )
     parser.add_argument(
+        "--sensor-port",
+        metavar="DEVICE",
+        help="serial port of a digital thermometer-barometer: the daemon reads the air from it "
+        "when a session starts, before each set and on demand (typed entries stay possible)",
+    )
+    parser.add_argument(
+        "--sensor-profile",
+        metavar="NAME",
+        default="sensor-plain",
+        help="the sensor's profile: a shipped sensor-* name or a .toml file (default sensor-plain)",
+    )
+    parser.add_argument(
         "--station-name",
         metavar="NAME",
         help="the station's name, recorded in the station file and carried in every export "

@@ -729,3 +729,40 @@ def fill_from_registers(
     result["register_copy"] = picked.copy()
     result["register_warnings"] = picked.warnings()
     return result
+
+
+@dataclass(frozen=True, slots=True)
+class SensorEntry:
+    """An air entry read from a sensor, its certificate corrections applied: temperature in
+    °C, pressure in kPa, and the source in words (serial, as read, corrections)."""
+
+    temperature_C: float
+    pressure_kPa: float
+    source: str
+
+
+def sensor_entry(
+    store: Store,
+    serial: str,
+    profile: str,
+    temperature_C: float,
+    pressure_kPa: float,
+    written: Mapping[str, str],
+) -> SensorEntry:
+    """Return the air entry of a sensor reading: the correction of the registers' current
+    thermometer and barometer rows with the sensor's ``serial`` added (none: 0, said so)."""
+    corrections: dict[str, float] = {}
+    for kind, key in (("thermometer", "correction_C"), ("barometer", "correction_kPa")):
+        for row in register_rows(store, kind):
+            if row.fields["serial"] == serial and key in row.fields:
+                corrections[key] = float(row.fields[key])
+    dT, dP = corrections.get("correction_C"), corrections.get("correction_kPa")
+    said = [f"{dT:+.2f} °C" if dT is not None else "none for the thermometer"]
+    said.append(f"{dP:+.3f} kPa" if dP is not None else "none for the barometer")
+    read = ", ".join(written.values())
+    return SensorEntry(
+        temperature_C=temperature_C + (dT or 0.0),
+        pressure_kPa=pressure_kPa + (dP or 0.0),
+        source=f"sensor {serial} ({profile}): read {read}; "
+        f"certificate corrections from the registers: {', '.join(said)}",
+    )

@@ -233,7 +233,7 @@ def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: S
         "beam": find_beam(store, "DEMO-LA1 6 MV").id,
         "chamber": chamber,
         "electrometer": ids[("electrometer", "SIM-EM-0001")],
-        "thermometer": ids[("thermometer", "SIM-TH-0001")],
+        "thermometer": ids[("thermometer", "SIM-TP-0001")],
     }
     short = Thresholds(certificate_validity_years=0.1)  # a setting: short, to see a warning
     engine = Engine(store, thresholds=short)
