@@ -96,3 +96,48 @@ def test_the_demo_picks_from_its_registers_then_a_monthly_check_carries_the_fact
     points = json.loads(history.stdout)["points"]
     assert [p["kind"] for p in points] == ["full calibration", "output check"]
     assert all(p["U_expanded_pct"] is not None for p in points)
+
+
+async def test_the_daemon_reads_the_air_from_the_sensor_with_its_certificate_correction(
+    start_daemon, simulator, tmp_path
+):
+    """Issue 14 item 4: with --sensor-port the daemon reads the simulated thermometer-barometer
+    when the session starts and on demand; the registers' corrections for its serial bring it
+    back to the bench's true air (the simulated sensor's own error, corrected); a typed entry
+    stays possible and keeps its own source."""
+    from e2e_support import QUICK_PLAN, TIME_SCALE
+
+    db = tmp_path / "station.sqlite"
+    with Store.open(db) as store:
+        ids = add_demo_registers(store, actor="physicist C")
+    sensor = ("--sensor-port", simulator.info["sensor"])
+    daemon = start_daemon(simulator, db, QUICK_PLAN, True, TIME_SCALE, *sensor)
+    with simulator.bench() as bench:
+        bench.set_environment(temperature_C=23.0, pressure_kPa=99.2)
+    client = await daemon.connect(operator="operator A")
+    names = {"beam": ids["la1_6mv"], "chamber": ids["ch1"], "electrometer": ids["em1"]}
+    metadata = {"registers": names, "convention": "trs398", "operator": "operator A"}
+    started = await client.call(protocol.Method.SESSION_START, metadata=metadata)
+    air = started["environment"]
+    assert air["source"].startswith("sensor SIM-TP-0001 (sensor-plain): read +22.90 C, 992.5 hPa")
+    assert "certificate corrections from the registers: +0.10 °C, -0.050 kPa" in air["source"]
+    assert air["temperature_C"] == pytest.approx(23.0, abs=1e-9)  # the bench's true air
+    assert air["pressure_kPa"] == pytest.approx(99.2, abs=1e-9)
+    again = await client.call(protocol.Method.ENVIRONMENT_READ)
+    assert again["environment"]["recorded_at"] > air["recorded_at"]
+    typed = await client.call(
+        protocol.Method.ENVIRONMENT_SET, temperature_C=22.0, pressure=100.0, source="typed"
+    )
+    assert typed["environment"]["source"] == "typed"
+    await client.close()
+    with Store.open(db, read_only=True) as store:
+        sources = [entry.source for entry in store.environment(started["session"]["id"])]
+    assert [s.split(" ")[0] for s in sources] == ["sensor", "sensor", "typed"]
+
+
+async def test_reading_the_air_without_a_sensor_is_refused_by_name(daemon):
+    client = await daemon.connect()
+    with pytest.raises(DaemonError) as refused:
+        await client.call(protocol.Method.ENVIRONMENT_READ)
+    await client.close()
+    assert refused.value.code == protocol.INPUT_ERROR and refused.value.field == "sensor"
