@@ -174,6 +174,17 @@ NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
 REVIEW_DECISIONS = ("approve", "reject")
+#: What the station's registers hold, one kind per row (``register.*`` requests).
+REGISTER_KINDS = (
+    "machine",
+    "beam",
+    "chamber",
+    "certificate",
+    "electrometer",
+    "thermometer",
+    "barometer",
+    "k_Q",
+)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -316,7 +327,7 @@ METHODS: dict[str, MethodSpec] = {
             "List the station's register rows (machines, beams, chambers, certificates, "
             "electrometers, thermometers, barometers, k_Q), each with its name in words.",
             (
-                Param("kind", "string", doc="only rows of this kind"),
+                Param("kind", "string", doc="only rows of this kind", choices=REGISTER_KINDS),
                 Param("include_superseded", "boolean", doc="superseded rows too (default false)"),
             ),
             result="{rows: [register row with its name]}",
@@ -325,7 +336,7 @@ METHODS: dict[str, MethodSpec] = {
             Method.REGISTER_ADD,
             "Add a register entry (its first row); the connection's operator is the actor.",
             (
-                Param("kind", "string", required=True, doc="machine, beam, chamber, ..."),
+                Param("kind", "string", required=True, doc="the kind", choices=REGISTER_KINDS),
                 Param("fields", "object", required=True, doc="field -> value"),
                 Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
                 Param("db", "string", doc="the station file the client means"),

@@ -268,17 +268,11 @@ def open_sensor(
     clock: Callable[[], float] = time.monotonic,
 ) -> EnvironmentSensor:
     """Return an opened sensor (its serial asked) on serial ``port``."""
-    from chargebook.drivers_generic.serial_transport import SerialTransport
+    from chargebook.drivers_generic import build_transport
 
     loaded = profile if isinstance(profile, SensorProfile) else load_sensor_profile(profile)
-    transport = SerialTransport(
-        port,
-        loaded.port,
-        loaded.framing,
-        write_timeout_s=loaded.timing.timeout_s,
-        traffic=traffic,
-        clock=clock,
-    )
+    # build_transport reads the port, framing and timing, which a sensor profile has too
+    transport = build_transport(loaded, port=port, traffic=traffic, clock=clock)  # type: ignore[arg-type]
     sensor = EnvironmentSensor(loaded, transport, clock=clock)
     sensor.open()
     return sensor

@@ -14,21 +14,16 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.commands.station_reader import add_db_argument
+from chargebook.acquire.commands.station_writer import (
+    add_socket_argument,
+    ask_daemon,
+    write_station,
+)
+from chargebook.acquire.protocol import REGISTER_KINDS as KINDS
 
 HELP = (
     "the station's registers: machines and beams, chambers and their certificates, "
     "electrometers, thermometers, barometers, k_Q (list, show, add, supersede, fields)"
-)
-#: The kinds, repeated here so that --help needs no import of the store.
-KINDS = (
-    "machine",
-    "beam",
-    "chamber",
-    "certificate",
-    "electrometer",
-    "thermometer",
-    "barometer",
-    "k_Q",
 )
 
 
@@ -49,12 +44,7 @@ def _write_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--actor", metavar="NAME", help="who makes the change (default: your Unix account)"
     )
-    parser.add_argument(
-        "--socket",
-        metavar="PATH",
-        type=Path,
-        help="the daemon's control socket, used when a daemon holds the station file",
-    )
+    add_socket_argument(parser)
     add_db_argument(parser)
     _json_flag(parser)
 
@@ -160,34 +150,15 @@ def _line(row: dict[str, Any]) -> str:
 
 def _write(args: argparse.Namespace, given: dict[str, str]) -> int:
     """Add or supersede through the daemon that holds the station file, else directly."""
-    from chargebook.acquire.commands.station_reader import missing_station_words
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
-    from chargebook.acquire.record.station_lock import StationInUse, StationLock
-    from chargebook.acquire.record.store import NotFound, StoreError, default_db_path
-    from chargebook.corrections.errors import InputError
+    from chargebook.acquire.record.store import default_db_path
 
     path = Path(args.db or default_db_path()).expanduser()
-    if args.action == "supersede" and not path.is_file():
-        print(f"chargebook: {missing_station_words(path)}", file=sys.stderr)
-        return EXIT_INVALID_INPUT
-    lock = StationLock(path)
-    try:
-        lock.acquire()  # held while writing: no daemon starts on the file meanwhile
-    except StationInUse:
-        return _through_daemon(args, path, given)
-    except OSError as error:
-        print(f"chargebook: cannot lock {path}: {error.strerror}", file=sys.stderr)
-        return EXIT_FAILURE
-    try:
-        return _directly(args, path, given)
-    except (InputError, NotFound) as error:
-        print(f"chargebook: {error}; nothing was recorded", file=sys.stderr)
-        return EXIT_INVALID_INPUT
-    except StoreError as error:
-        print(f"chargebook: {error}", file=sys.stderr)
-        return EXIT_FAILURE
-    finally:
-        lock.release()
+    return write_station(
+        path,
+        lambda: _directly(args, path, given),
+        lambda: _through_daemon(args, path, given),
+        must_exist=args.action == "supersede",
+    )
 
 
 def _actor(args: argparse.Namespace) -> str:
@@ -234,13 +205,9 @@ def _report(args: argparse.Namespace, row: dict[str, Any], where: str) -> int:
 
 def _through_daemon(args: argparse.Namespace, path: Path, given: dict[str, str]) -> int:
     """Ask the daemon that holds the station file to write the row."""
-    import asyncio
-
     from chargebook.acquire import protocol
-    from chargebook.acquire.client import ConnectionLost, DaemonClient, DaemonError
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
+    from chargebook.acquire.exit_codes import EXIT_OK
 
-    socket_path = args.socket or protocol.default_socket_path()
     params: dict[str, Any] = {"fields": given, "db": str(path.resolve())}
     if args.effective:
         params["effective_from"] = args.effective
@@ -250,24 +217,10 @@ def _through_daemon(args: argparse.Namespace, path: Path, given: dict[str, str])
     else:
         method = protocol.Method.REGISTER_SUPERSEDE
         params |= {"row": args.row, "reason": args.reason}
-
-    async def call() -> dict:
-        async with await DaemonClient.connect(
-            socket_path, client="register", operator=_actor(args)
-        ) as client:
-            return await client.call(method, **params)
-
-    try:
-        row = asyncio.run(call())
-    except DaemonError as error:
-        print(f"chargebook: the daemon refused the row: {error.message}", file=sys.stderr)
-        input_codes = (protocol.INPUT_ERROR, protocol.INVALID_PARAMS)
-        return EXIT_INVALID_INPUT if error.code in input_codes else EXIT_FAILURE
-    except (OSError, ConnectionLost) as error:
-        print(
-            f"chargebook: a daemon holds {path}, so the row must go through it, but its "
-            f"socket {socket_path} cannot be reached ({error}); pass --socket PATH",
-            file=sys.stderr,
-        )
-        return EXIT_FAILURE
+    status, row = ask_daemon(
+        path, args.socket, client="register", operator=_actor(args), method=method,
+        params=params, what="row",
+    )  # fmt: skip
+    if status != EXIT_OK:
+        return status
     return _report(args, row, f"recorded by the daemon that holds {path}")

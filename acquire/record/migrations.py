@@ -25,6 +25,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record import chain
 from sqlite_utils import Database
 
@@ -39,17 +40,6 @@ CAPTURE_MODES = ("auto", "pushed", "manual")
 TRAFFIC_DIRECTIONS = ("tx", "rx")
 
 APPEND_ONLY_TABLES = ("readings", "environment", "events", "traffic")
-#: What the station's registers hold (migration ``registers``), one kind per row.
-REGISTER_KINDS = (
-    "machine",
-    "beam",
-    "chamber",
-    "certificate",
-    "electrometer",
-    "thermometer",
-    "barometer",
-    "k_Q",
-)
 #: The event written before each register row, holding the row's whole content.
 REGISTER_EVENT = "register_row"
 

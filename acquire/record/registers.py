@@ -18,7 +18,8 @@ import json
 from dataclasses import dataclass
 from typing import Any
 
-from chargebook.acquire.record.migrations import REGISTER_EVENT, REGISTER_KINDS
+from chargebook.acquire.protocol import REGISTER_KINDS
+from chargebook.acquire.record.migrations import REGISTER_EVENT
 from chargebook.acquire.record.store import NotFound, Store
 from chargebook.corrections.errors import InputError
 

@@ -24,6 +24,7 @@ from chargebook.acquire.session.register_rows import (
     supersede_row,
 )
 from chargebook.corrections.errors import InputError
+from test_review import _dump
 
 TODAY = datetime.date(2026, 12, 3)
 
@@ -40,14 +41,6 @@ def station(tmp_path: Path) -> Path:
 def store(station: Path):
     with Store.open(station) as opened:
         yield opened
-
-
-def _dump(path: Path) -> list[tuple]:
-    conn = sqlite3.connect(path)
-    tables = [row[0] for row in conn.execute("SELECT name FROM sqlite_master WHERE type='table'")]
-    rows = [(t, *r) for t in sorted(tables) for r in conn.execute(f"SELECT * FROM {t}")]
-    conn.close()
-    return rows
 
 
 def _ids(store: Store) -> dict[str, int]:
