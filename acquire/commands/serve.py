@@ -91,7 +91,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--config",
         metavar="FILE",
         help="station file (TOML) with the keys station_name, profile, port or resource, "
-        "visa_library, plan, database, thresholds, socket, socket_group; options given here "
+        "visa_library, plan, database, thresholds, socket, socket_group, sensor_port, "
+        "sensor_profile; options given here "
         "override it (default: $XDG_CONFIG_HOME/chargebook/station.toml, else "
         "/etc/chargebook/station.toml, when present)",
     )

@@ -717,6 +717,11 @@ def fill_from_registers(
         for key in REGISTER_KEYS[1:]:
             result.pop(key, None)
         return result
+    kept = result.get("register_copy")
+    if isinstance(kept, Mapping) and {
+        kind: row.get("id") for kind, row in kept.items() if isinstance(row, Mapping)
+    } == dict(result["registers"]):
+        return result  # a recorded session started again (a replay): its copy stands
     picked = select(store, result["registers"], on=on, validity_years=validity_years)
     for key, value in picked.metadata_fields().items():
         typed = result.get(key)

@@ -258,3 +258,23 @@ def test_a_typed_value_that_contradicts_the_registers_is_refused(store: Store) -
     with pytest.raises(InputError, match=r"k_Q = 0\.98 differs from the registers"):
         Engine(store).start_session(meta, "default")
     assert store.sessions() == []
+
+
+def test_a_recorded_session_started_again_keeps_its_copy_without_the_registers(
+    store: Store,
+) -> None:
+    """A replay starts the recorded session again in a store of its own, which holds no
+    registers: the recorded copy stands, unchanged."""
+    from chargebook.acquire.engine.engine import Engine
+
+    ids = _ids(store)
+    names = {
+        "beam": find_beam(store, "6 MV").id,
+        "chamber": ids[("chamber", "SIM-CH-0001")],
+        "electrometer": ids[("electrometer", "SIM-EM-0001")],
+    }
+    meta = {"registers": names, "convention": "trs398", "operator": "operator A"}
+    recorded = store.session(Engine(store).start_session(meta, "default")).metadata()
+    elsewhere = Store.memory()
+    again = elsewhere.session(Engine(elsewhere).start_session(recorded, "default")).metadata()
+    assert again == recorded
