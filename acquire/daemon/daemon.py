@@ -971,7 +971,8 @@ class Daemon:
         port = self.options.sensor_port
         if port is None:
             if required:
-                raise InputError("sensor", None, "serve --sensor-port DEVICE", "is not configured")
+                allowed = "a daemon started with serve --sensor-port DEVICE"
+                raise InputError("sensor", None, allowed, "is missing")
             return False
         if protocol.Method.ENVIRONMENT_SET not in self.engine.allowed():
             return False

@@ -357,3 +357,37 @@ async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_r
     assert kept["registers"]["beam"] == ids["la1_6mv"]
     assert kept["register_copy"]["chamber"]["fields"]["serial"] == "SIM-CH-0001"
     assert kept["k_Q"] == 0.992
+
+
+async def test_ctrl_t_has_the_daemon_read_its_sensor_and_without_one_says_so(
+    start_daemon, simulator, metadata
+):
+    """In the air form, Ctrl+T records an entry the daemon reads from its environment sensor
+    (serve --sensor-port); a daemon with no sensor refuses it in words, and the form stays."""
+    plain = start_daemon(simulator)
+    app = console(plain, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: "Not read: sensor" in screen_text(app), "the refusal")
+        assert isinstance(app.screen, EnvironmentScreen)
+    plain.stop()
+    sensed = start_daemon(
+        simulator, None, QUICK_PLAN, True, TIME_SCALE, "--sensor-port", simulator.info["sensor"]
+    )
+    app = console(sensed, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        typed = app.snapshot["environment"]["source"]
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
+        await until(
+            pilot,
+            lambda: app.snapshot["environment"]["source"].startswith("sensor SIM-TP-0001"),
+            "the sensor's entry",
+        )
+    assert typed == "console"  # the form's typed entry, marked as typed at the console
