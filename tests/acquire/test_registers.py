@@ -216,7 +216,10 @@ def test_a_selection_refuses_a_certificate_of_another_chamber(store: Store) -> N
         )
 
 
-def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: Store) -> None:
+def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(
+    store: Store, station: Path, capsys
+) -> None:
+    from chargebook.acquire.commands.cli import main
     from chargebook.acquire.engine.engine import Engine
     from chargebook.corrections.stability import Thresholds
 
@@ -243,6 +246,10 @@ def test_a_session_named_by_register_rows_keeps_their_copy_and_warnings(store: S
     assert store.session(session).metadata()["register_copy"]["chamber"]["fields"]["model"] == (
         "thimble 0.6 cc"
     )
+    assert main(["show", str(session), "--db", str(station)]) == 0
+    shown = " ".join(capsys.readouterr().out.split())
+    assert f"From the registers beam DEMO-LA1 6 MV (row {names['beam']})" in shown
+    assert "Register warnings the certificate SIM-CAL-0001" in shown
 
 
 def test_a_typed_value_that_contradicts_the_registers_is_refused(store: Store) -> None:
