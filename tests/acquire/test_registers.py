@@ -285,3 +285,27 @@ def test_a_recorded_session_started_again_keeps_its_copy_without_the_registers(
     elsewhere = Store.memory()
     again = elsewhere.session(Engine(elsewhere).start_session(recorded, "default")).metadata()
     assert again == recorded
+
+
+def test_a_carried_factor_from_another_chamber_than_the_registers_one_is_refused(
+    store: Store,
+) -> None:
+    from chargebook.acquire.engine.engine import Engine
+
+    ids = _ids(store)
+    names = {
+        "beam": find_beam(store, "6 MV").id,
+        "chamber": ids[("chamber", "SIM-CH-0001")],
+        "electrometer": ids[("electrometer", "SIM-EM-0001")],
+    }
+    other = {"value": 1.002, "source": "entered", "date": "2026-11-02"}
+    meta = {
+        "registers": names,
+        "convention": "trs398",
+        "operator": "operator A",
+        "carried_k_pol": {**other, "chamber_serial": "SIM-CH-0003"},
+        "carried_k_s": {**other, "chamber_serial": "SIM-CH-0001"},
+    }
+    with pytest.raises(InputError, match=r"carried_k_pol\.chamber_serial .*another chamber"):
+        Engine(store).start_session(meta, "monthly-check")
+    assert store.sessions() == []
