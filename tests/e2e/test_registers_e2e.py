@@ -46,7 +46,7 @@ async def test_rows_are_added_through_the_daemon_and_a_session_keeps_their_copy(
     assert [row["name"] for row in listed["rows"]] == ["SIM-CH-0001", "SIM-CH-0003", "SIM-CH-0002"]
     with pytest.raises(DaemonError) as wrong:
         await client.call(protocol.Method.REGISTER_ADD, kind="lamp", fields={})
-    assert wrong.value.code == protocol.INPUT_ERROR and wrong.value.field == "kind"
+    assert wrong.value.code == protocol.INVALID_PARAMS and wrong.value.field == "kind"
     names = {"beam": ids["la1_6mv"], "chamber": ids["ch1"], "electrometer": ids["em1"]}
     metadata = {"registers": names, "convention": "trs398", "operator": "operator A"}
     snapshot = await client.call(protocol.Method.SESSION_START, metadata=metadata)
