@@ -312,3 +312,84 @@ async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_req
     by_console = [e for e in events if e.kind in by_console_kinds]
     assert {e.actor for e in by_console} == {metadata["operator"]}
     assert {e.account for e in by_console} == {getpass.getuser()}
+
+
+async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_rows(
+    start_daemon, simulator, tmp_path
+):
+    """Ctrl+R lists the registers from the daemon; the chosen beam, chamber and electrometer
+    fill the form, the certificate's date is shown, and the session keeps the row ids."""
+    from chargebook.acquire.commands.demo_data import add_demo_registers
+    from chargebook.tui.screens.register_pick import RegisterPickScreen
+    from textual.widgets import Select
+
+    db = tmp_path / "station.sqlite"
+    with Store.open(db) as store:
+        ids = add_demo_registers(store, actor="physicist C")
+    daemon = start_daemon(simulator, db)
+    app = ConsoleApp(
+        daemon.socket,
+        operator="console test",
+        setup_defaults={"operator": "operator A", **bench_air(simulator)},
+    )
+    async with app.run_test(size=(100, 40)) as pilot:
+        await until(pilot, lambda: screen_kind(app) == "setup", "the setup form")
+        await pilot.press("ctrl+r")
+        await until(pilot, lambda: isinstance(app.screen, RegisterPickScreen), "the registers")
+        choices = {
+            kind: [label for label, _ in app.screen.query_one(f"#pick-{kind}", Select)._options]
+            for kind in ("beam", "chamber")
+        }
+        for kind, key in (("beam", "la1_6mv"), ("chamber", "ch1"), ("electrometer", "em1")):
+            app.screen.query_one(f"#pick-{kind}", Select).value = ids[key]
+        await pilot.click("#confirm")
+        await until(pilot, lambda: app.screen.kind == "setup", "the form again")
+        await until(
+            pilot,
+            lambda: app.screen.query_one("#input-chamber_serial").value == "SIM-CH-0001",
+            "the chamber's serial in the form",
+        )
+        shown = " ".join(screen_text(app).split())
+        await start_session(pilot, app)
+        kept = app.snapshot["session"]["metadata"]
+    assert "DEMO-LA1 6 MV" in choices["beam"] and "DEMO-LA1 10 MeV" in choices["beam"]
+    assert "SIM-CH-0003" in choices["chamber"]
+    assert "From the registers: DEMO-LA1 6 MV, chamber SIM-CH-0001" in shown
+    assert "certificate SIM-CAL-0001, Example Calibration Laboratory (fictional) of 20" in shown
+    assert kept["registers"]["beam"] == ids["la1_6mv"]
+    assert kept["register_copy"]["chamber"]["fields"]["serial"] == "SIM-CH-0001"
+    assert kept["k_Q"] == 0.992
+
+
+async def test_ctrl_t_has_the_daemon_read_its_sensor_and_without_one_says_so(
+    start_daemon, simulator, metadata
+):
+    """In the air form, Ctrl+T records an entry the daemon reads from its environment sensor
+    (serve --sensor-port); a daemon with no sensor refuses it in words, and the form stays."""
+    plain = start_daemon(simulator)
+    app = console(plain, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: "Not read: sensor" in screen_text(app), "the refusal")
+        assert isinstance(app.screen, EnvironmentScreen)
+    plain.stop()
+    sensed = start_daemon(
+        simulator, None, QUICK_PLAN, True, TIME_SCALE, "--sensor-port", simulator.info["sensor"]
+    )
+    app = console(sensed, metadata, simulator)
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        typed = app.snapshot["environment"]["source"]
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
+        await until(
+            pilot,
+            lambda: app.snapshot["environment"]["source"].startswith("sensor SIM-TP-0001"),
+            "the sensor's entry",
+        )
+    assert typed == "console"  # the form's typed entry, marked as typed at the console
