@@ -256,7 +256,8 @@ async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_
         await run_until(
             pilot, app, lambda: "step.manual_done" in allowed(app), "a step done by hand"
         )
-        await run_until(pilot, app, lambda: "Do now:" in screen_text(app), "the instruction drawn")
+        # Wait without moving: a move here would press "d" before the instruction is drawn.
+        await until(pilot, lambda: "Do now:" in screen_text(app), "the instruction drawn")
         shown = " ".join(screen_text(app).split())
         asked = app.snapshot["prompt"]["text"]  # the daemon's words, e.g. "Turn the bias to ..."
         assert "step.arm" not in allowed(app)  # no readings before the switch is turned
