@@ -12,7 +12,8 @@ chooses.
 ``async with running(daemon) as daemon:`` starts it; time stands still until the test moves it:
 ``daemon.time.advance(s)``, or :meth:`InProcessDaemon.let_time_run` (a task that moves the clock
 one poll interval at a time, each step once the instrument thread has read the electrometer at
-the step before, so no reading is skipped however loaded the machine).
+the step before, so no reading is skipped however loaded the machine; at full speed, or at the
+pace of a real clock for a console under test).
 
 Use this for what the engine and daemon decide; the pty and the processes are proven by the
 end-to-end tests in ``tests/e2e`` (the real ``chargebook serve`` on ``chargebook simulate``).
@@ -113,10 +114,13 @@ class InProcessDaemon(Daemon):
         self.engine.bench = self.bench is not None
 
     # -- time ----------------------------------------------------------------------------------
-    def let_time_run(self) -> None:
-        """Move the hand clock on, one poll interval per step, until :meth:`stop_time`."""
+    def let_time_run(self, real_s_per_step: float = 0.0) -> None:
+        """Move the hand clock on, one poll interval per step, until :meth:`stop_time`; each
+        step also lasts ``real_s_per_step`` real seconds at least (0: as fast as the daemon
+        reads; POLL_INTERVAL_S: the pace of a real clock, for a console that draws each live
+        snapshot as a person would see it)."""
         if self._runner is None:
-            self._runner = asyncio.create_task(self._run_time(), name="hand clock")
+            self._runner = asyncio.create_task(self._run_time(real_s_per_step), name="hand clock")
 
     async def stop_time(self) -> None:
         """Stop moving the clock (after the step in progress)."""
@@ -126,10 +130,10 @@ class InProcessDaemon(Daemon):
             with contextlib.suppress(asyncio.CancelledError):
                 await runner
 
-    async def _run_time(self) -> None:
+    async def _run_time(self, real_s_per_step: float) -> None:
         while True:
             now_s = self.time.advance(POLL_INTERVAL_S)
-            await self.caught_up(now_s)
+            await asyncio.gather(self.caught_up(now_s), asyncio.sleep(real_s_per_step))
 
     async def caught_up(self, now_s: float) -> None:
         """Return once the instrument thread has read the electrometer at ``now_s`` or later
@@ -149,6 +153,16 @@ class InProcessDaemon(Daemon):
         return served_s is not None and served_s >= now_s
 
     # -- clients -------------------------------------------------------------------------------
+    @property
+    def socket(self) -> Path:
+        """The control socket (as ``DaemonProcess.socket`` of the end-to-end fixtures)."""
+        return self.options.socket_path
+
+    @property
+    def db(self) -> Path:
+        """The station file (as ``DaemonProcess.db``)."""
+        return self.options.db_path
+
     async def connect(self, operator: str | None = "test operator") -> DaemonClient:
         """Return a connected client of this daemon's control socket."""
         return await DaemonClient.connect(

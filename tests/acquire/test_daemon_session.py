@@ -86,8 +86,8 @@ async def test_the_default_plan_runs_start_to_finish_and_recovers_the_true_facto
         final = await operator.run(metadata)
         await client.close()
         truth = daemon.sim.device.truth()
-        socket_mode = stat.S_IMODE(os.stat(daemon.options.socket_path).st_mode)
-        directory_mode = stat.S_IMODE(os.stat(daemon.options.socket_path.parent).st_mode)
+        socket_mode = stat.S_IMODE(os.stat(daemon.socket).st_mode)
+        directory_mode = stat.S_IMODE(os.stat(daemon.socket.parent).st_mode)
     results = final["results"]
     assert final["state"] == "finished" and final["session"]["status"] == "finished"
     assert results["k_TP"] == pytest.approx(truth["k_TP"], abs=K_TP_TOLERANCE)
@@ -99,7 +99,7 @@ async def test_the_default_plan_runs_start_to_finish_and_recovers_the_true_facto
     assert per_MU == pytest.approx(truth["sensitivity_nC_per_MU"], rel=CHARGE_TOLERANCE)
     expected_dose = truth["sensitivity_nC_per_MU"] * routine_mu * metadata["N_Dw"] * metadata["k_Q"]
     assert results["dose_Gy"] == pytest.approx(expected_dose, rel=CHARGE_TOLERANCE)
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         session_id = final["session"]["id"]
         assert sorted(seen) == [r.id for r in store.readings(session_id)]
         assert {s.status for s in store.sets(session_id)} == {"accepted"}
@@ -129,7 +129,7 @@ async def test_a_spiked_set_is_flagged_and_redone_keeping_the_old_set(daemon, me
     assert snapshot["state"] == "waiting_for_operator"
     snapshot = await operator.run_until(snapshot, state_is("reviewing"))
     await client.close()
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         sets = [s for s in store.sets(snapshot["session"]["id"]) if s.step_key == "routine"]
         assert [(s.attempt, s.status) for s in sets] == [(1, "superseded"), (2, "reviewing")]
         assert sets[0].reason == "spike on the first reading"
@@ -147,7 +147,7 @@ async def test_abort_needs_confirmation_and_keeps_everything(daemon, metadata):
     assert snapshot["state"] == "aborted"
     await client.close()
     session_id = snapshot["session"]["id"]
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         assert store.session(session_id).status == "aborted"
         assert store.session(session_id).reason == "phantom moved"
         assert store.sets(session_id)[-1].status == "aborted"
@@ -163,7 +163,7 @@ async def test_each_event_a_request_causes_names_the_unix_account_beside_the_ope
     snapshot = await AutoOperator(client, daemon.bench.environment).start(metadata)
     await client.close()
     account = pwd.getpwuid(os.getuid()).pw_name
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         events = store.events(snapshot["session"]["id"])
         (started,) = [e for e in store.events(None) if e.kind == "daemon_started"]
     by_client = [e for e in events if e.actor == "claimed name"]
@@ -190,7 +190,7 @@ async def test_the_instrument_disconnected_mid_set_then_back(daemon, metadata):
     daemon.let_time_run()
     final = await operator.run_until(back, state_is("finished"))
     await client.close()
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         kinds = [e.kind for e in store.events(final["session"]["id"])]
         assert "instrument_lost" in kinds and "instrument_back" in kinds
         assert kept <= {r.id for r in store.readings(final["session"]["id"])}
@@ -199,7 +199,7 @@ async def test_the_instrument_disconnected_mid_set_then_back(daemon, metadata):
 async def test_malformed_messages_from_one_client_leave_another_undisturbed(daemon, metadata):
     good, operator = await daemon.operator()
     snapshot = await operator.start(metadata)
-    socket_path = str(daemon.options.socket_path)
+    socket_path = str(daemon.socket)
     reader, writer = await asyncio.open_unix_connection(socket_path, limit=1 << 20)
 
     async def send(raw: bytes) -> dict:
@@ -263,7 +263,7 @@ async def test_bad_operator_input_is_refused_naming_the_field(daemon, metadata):
     snapshot = await client.status()
     await client.close()
     assert snapshot["environment"]["temperature_C"] == 21.5
-    with stored(daemon.options.db_path) as store:
+    with stored(daemon.db) as store:
         assert len(store.environment(snapshot["session"]["id"])) == 1  # nothing lost, nothing added
 
 
@@ -281,7 +281,7 @@ async def test_the_stop_an_abort_sends_is_recorded_with_the_aborted_session_not_
     await client.close()
     first, second = aborted["session"]["id"], following["session"]["id"]
     for _ in range(400):  # the stop goes out within a turn of the instrument thread
-        with stored(daemon.options.db_path) as store:
+        with stored(daemon.db) as store:
             sent = [row.line for row in store.traffic(first) if row.direction == "tx"]
             later = [row.line for row in store.traffic(second) if row.direction == "tx"]
         if sent and sent[-1].strip() == b"HOLD":  # query-plain's stop (its profile's template)
