@@ -102,6 +102,7 @@ class InProcessDaemon(Daemon):
         )
         self.bench = DeviceBench(self.sim) if bench else None
         self._runner: asyncio.Task[None] | None = None
+        self._task: asyncio.Task[None] | None = None
 
     def _build(self) -> None:
         """Build the daemon as ``serve`` does, then put the in-process electrometer and bench on
@@ -112,6 +113,25 @@ class InProcessDaemon(Daemon):
         self.link.electrometer = self.sim.driver
         self.link.bench = self.bench
         self.engine.bench = self.bench is not None
+
+    # -- running -------------------------------------------------------------------------------
+    async def start(self) -> None:
+        """Start serving on this loop; return once the sockets listen (raise why if it fails)."""
+        ready = asyncio.Event()
+        self._task = asyncio.create_task(self.run(lambda info: ready.set()), name="daemon")
+        ready_wait = asyncio.create_task(ready.wait())
+        await asyncio.wait({self._task, ready_wait}, return_when=asyncio.FIRST_COMPLETED)
+        if self._task.done():
+            ready_wait.cancel()
+            self._task.result()
+
+    async def stop(self) -> None:
+        """Stop as SIGTERM would and wait until the station file and its lock are released."""
+        await self.stop_time()
+        task, self._task = self._task, None
+        if task is not None:
+            self.shutdown("SIGTERM")
+            await task
 
     # -- time ----------------------------------------------------------------------------------
     def let_time_run(self, real_s_per_step: float = 0.0) -> None:
@@ -178,20 +198,30 @@ class InProcessDaemon(Daemon):
 
 @contextlib.asynccontextmanager
 async def running(daemon: InProcessDaemon) -> AsyncIterator[InProcessDaemon]:
-    """Run ``daemon`` on this loop until the block ends, then stop it as SIGTERM would."""
-    ready = asyncio.Event()
-    task = asyncio.create_task(daemon.run(lambda info: ready.set()), name="daemon")
-    ready_wait = asyncio.create_task(ready.wait())
-    await asyncio.wait({task, ready_wait}, return_when=asyncio.FIRST_COMPLETED)
-    if task.done():
-        ready_wait.cancel()
-        task.result()  # raises why it did not start
+    """Run ``daemon`` on this loop until the block ends (or :meth:`InProcessDaemon.stop`),
+    then stop it as SIGTERM would."""
+    await daemon.start()
     try:
         yield daemon
     finally:
-        await daemon.stop_time()
-        daemon.shutdown("SIGTERM")
-        await task
+        await daemon.stop()
 
 
-__all__ = ["QUICK_PLAN", "TIME_SCALE", "InProcessDaemon", "demo_metadata", "running"]
+@contextlib.asynccontextmanager
+async def session_daemon(
+    directory: Path, *, real_s_per_step: float = 0.0, **options: Any
+) -> AsyncIterator[InProcessDaemon]:
+    """Run an :class:`InProcessDaemon` (``options``: its keywords) with time running."""
+    async with running(InProcessDaemon(directory, **options)) as daemon:
+        daemon.let_time_run(real_s_per_step)
+        yield daemon
+
+
+__all__ = [
+    "QUICK_PLAN",
+    "TIME_SCALE",
+    "InProcessDaemon",
+    "demo_metadata",
+    "running",
+    "session_daemon",
+]

@@ -27,7 +27,7 @@ from chargebook.acquire.client import DaemonError
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, AutoOperatorError
 from chargebook.acquire.record.store import Store
 
-from tests.acquire.in_process_daemon import InProcessDaemon, demo_metadata, running
+from tests.acquire.in_process_daemon import InProcessDaemon, demo_metadata, session_daemon
 
 #: The simulator's noise is 0.03 % per reading (its ``truth`` says so); set means of 3–4
 #: readings are good to about 0.02 %, so factors are compared at these tolerances.
@@ -70,8 +70,7 @@ def metadata() -> dict[str, Any]:
 @pytest.fixture
 async def daemon(tmp_path: Path) -> AsyncIterator[InProcessDaemon]:
     """The daemon on the quick plan with the bench, time running."""
-    async with running(InProcessDaemon(tmp_path)) as daemon:
-        daemon.let_time_run()
+    async with session_daemon(tmp_path) as daemon:
         yield daemon
 
 
@@ -79,8 +78,7 @@ async def daemon(tmp_path: Path) -> AsyncIterator[InProcessDaemon]:
 async def test_the_default_plan_runs_start_to_finish_and_recovers_the_true_factors(
     tmp_path, metadata
 ):
-    async with running(InProcessDaemon(tmp_path, plan="default")) as daemon:
-        daemon.let_time_run()
+    async with session_daemon(tmp_path, plan="default") as daemon:
         seen = []
         client, operator = await daemon.operator(on_reading=lambda s, r: seen.append(r["id"]))
         final = await operator.run(metadata)

@@ -37,7 +37,7 @@ from console_driver import (
 )
 from screen_text import screen_text
 
-from tests.acquire.in_process_daemon import InProcessDaemon, running
+from tests.acquire.in_process_daemon import InProcessDaemon, session_daemon
 
 pytestmark = pytest.mark.e2e
 
@@ -72,15 +72,13 @@ def console(daemon, metadata, air: dict | None = None) -> ConsoleApp:
 @pytest.fixture
 async def daemon(tmp_path: Path) -> AsyncIterator[InProcessDaemon]:
     """The daemon in this process on the quick plan, with the bench, time running."""
-    async with running(InProcessDaemon(tmp_path, seed=SEED)) as daemon:
-        daemon.let_time_run(REAL_PACE_S)
+    async with session_daemon(tmp_path, seed=SEED, real_s_per_step=REAL_PACE_S) as daemon:
         yield daemon
 
 
 async def unattended_results(tmp_path: Path, metadata: dict[str, Any]) -> dict:
     """Return the results of the automatic operator's session on a twin daemon, same seed."""
-    async with running(InProcessDaemon(tmp_path / "twin", seed=SEED)) as twin:
-        twin.let_time_run()
+    async with session_daemon(tmp_path / "twin", seed=SEED) as twin:
         client, operator = await twin.operator()
         final = await operator.run(metadata)
         await client.close()
@@ -218,8 +216,9 @@ async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_con
     # reading by hand (capture). The cable is pulled with the hand clock stopped after the first
     # reading, so the set is unfinished at the pull by construction (with a timer and the bench
     # the set could end before the pull on a loaded machine, and did).
-    async with running(InProcessDaemon(tmp_path, seed=SEED, bench=False)) as daemon:
-        daemon.let_time_run(REAL_PACE_S)
+    async with session_daemon(
+        tmp_path, seed=SEED, bench=False, real_s_per_step=REAL_PACE_S
+    ) as daemon:
         app = console(daemon, metadata)
         async with app.run_test(size=SIZE) as pilot:
             await start_and_reach_step(pilot, app, ROUTINE_STEP)
@@ -271,10 +270,9 @@ async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_
 ):
     # push-exponent has no remote bias supply
     async with (
-        running(InProcessDaemon(tmp_path, profile="push-exponent")) as daemon,
+        session_daemon(tmp_path, profile="push-exponent", real_s_per_step=REAL_PACE_S) as daemon,
         console(daemon, metadata).run_test(size=SIZE) as pilot,
     ):
-        daemon.let_time_run(REAL_PACE_S)
         app = pilot.app
         await start_session(pilot, app)
         await run_until(
