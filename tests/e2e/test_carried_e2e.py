@@ -24,6 +24,7 @@ pytestmark = pytest.mark.e2e
 QUICK_MONTHLY = str(Path(__file__).parent / "plans" / "quick-monthly.toml")
 
 
+@pytest.mark.slow  # two whole sessions and a replay
 async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit(
     daemon, simulator, metadata
 ):
@@ -69,6 +70,7 @@ async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit
     assert replayed == stored
 
 
+@pytest.mark.slow  # two whole sessions
 async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from_one(
     daemon, simulator, metadata
 ):
@@ -96,6 +98,7 @@ async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from
     assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
 
 
+@pytest.mark.slow  # four demo runs, each a simulator and a daemon process
 def test_demo_monthly_check_after_a_full_calibration_gives_a_dose_with_carried_factors(tmp_path):
     db = tmp_path / "demo.sqlite"
 

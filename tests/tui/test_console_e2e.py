@@ -209,6 +209,7 @@ async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanw
         assert screen_text(app).startswith(f" Session {session_id} · DEMO-LA1 6 MV")
 
 
+@pytest.mark.slow  # a reconnection at the daemon's backoff
 async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_continues(
     tmp_path, metadata
 ):
