@@ -14,7 +14,14 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["pipeline", "scpi", "reanalysis", "startup", "console_latency", "memory"]
+SCRIPTS = [
+    "pipeline",
+    "scpi",
+    "reanalysis",
+    "startup",
+    "console_latency",
+    pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
+]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)
