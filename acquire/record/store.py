@@ -977,6 +977,31 @@ class Store:
             ).fetchall()
         return {int(row_id): int(seq) for row_id, seq in rows}
 
+    def chained_rows(
+        self, table: str, session_id: int | None, after_seq: int = 0
+    ) -> list[tuple[Any, ...]]:
+        """Return the rows of the chained ``table`` that belong to session ``session_id`` (None:
+        outside sessions) past place ``after_seq`` of its chain, ordered by id: the values of
+        ``chain.COLUMNS[table]``, then ``chain_seq`` and ``chain_hash`` (for ``verify`` and
+        ``publish``)."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        owner = "id" if table == "sessions" else "session_id"
+        sql = (
+            f"SELECT {', '.join(chain.COLUMNS[table])}, chain_seq, chain_hash FROM {table} "
+            f"WHERE {owner} IS ? AND (chain_seq IS NULL OR chain_seq > ?) ORDER BY id"
+        )
+        return self.read(sql, (session_id, after_seq))
+
+    def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
+        """Return (place, hash) of the last row the store recorded in the session's chain
+        (None: outside sessions), or None when it recorded none."""
+        found = self.read(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
+            (chain.chain_key(session_id),),
+        )
+        return (int(found[0][0]), str(found[0][1])) if found else None
+
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
         """Return the newest event of one of ``kinds``, in any session or none; None if none."""
         marks = ", ".join("?" for _ in kinds)

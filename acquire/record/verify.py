@@ -116,13 +116,8 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
     no place in it."""
     rows: list[Chained] = []
     problems: list[Problem] = []
-    for table, columns in chain.COLUMNS.items():
-        owner = "id" if table == "sessions" else "session_id"
-        sql = (
-            f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-            f"WHERE {owner} IS ? ORDER BY id"
-        )
-        for *values, seq, digest in store.read(sql, (session_id,)):
+    for table in chain.CHAINED_TABLES:
+        for *values, seq, digest in store.chained_rows(table, session_id):
             if seq is None or digest is None:
                 problems.append(
                     Problem(
@@ -173,10 +168,7 @@ def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
 
 def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> list[Problem]:
     """Return a problem when the chain ends before the end the store recorded."""
-    heads = store.read(
-        "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (chain.chain_key(session_id),)
-    )
-    found = heads[0] if heads else None
+    found = store.chain_head(session_id)
     last_seq, last_hash = (rows[-1][2], rows[-1][3]) if rows else (0, chain.GENESIS)
     if found is None:
         if rows:
