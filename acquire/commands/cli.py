@@ -37,6 +37,7 @@ COMMANDS: dict[str, str] = {
     "verify": "verify",
     "review": "review",
     "backup": "backup",
+    "publish": "publish",
     "completion": "completion",
 }
 

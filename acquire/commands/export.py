@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 
 from chargebook.acquire.commands.station_reader import (
-    add_db_argument,
     add_output_argument,
+    add_record_argument,
     add_session_argument,
     run_reader,
 )
@@ -28,7 +28,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--traffic", action="store_true", help="json: include the raw instrument lines"
     )
-    add_db_argument(parser)
+    add_record_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from chargebook.acquire.commands.station_reader import (
-    add_db_argument,
+    add_record_argument,
     add_session_argument,
     run_reader,
 )
@@ -18,7 +18,7 @@ HELP = (
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_session_argument(parser)
-    add_db_argument(parser)
+    add_record_argument(parser)
     parser.add_argument("--json", action="store_true", help="print the JSON export instead of text")
 
 

@@ -29,6 +29,30 @@ def add_db_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--db", metavar="FILE", type=Path, default=None, help=DB_HELP)
 
 
+def _record_location(text: str) -> Path | str:
+    """Return a station file's path, or a department database's URL as given."""
+    from chargebook.acquire.record.department import is_department_url
+
+    return text if is_department_url(text) else Path(text)
+
+
+def add_record_argument(parser: argparse.ArgumentParser) -> None:
+    """Add ``--db FILE|URL`` and ``--station``: a station file, or the department record."""
+    parser.add_argument(
+        "--db",
+        metavar="FILE|URL",
+        type=_record_location,
+        default=None,
+        help=DB_HELP + "; or the department record, postgresql://... (`chargebook publish`)",
+    )
+    parser.add_argument(
+        "--station",
+        metavar="NAME|UUID",
+        help="with --db postgresql://...: only the sessions of this station (default: every "
+        "station published there)",
+    )
+
+
 def add_output_argument(parser: argparse.ArgumentParser) -> None:
     """Add ``-o/--output FILE``: write there (whole, or not at all) instead of stdout."""
     parser.add_argument(
@@ -59,20 +83,31 @@ def missing_station_words(path: Path) -> str:
     return words
 
 
-def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
+def run_reader(
+    args: argparse.Namespace,
+    body: Callable[[Store], int],
+    across: Callable[[list[Store]], int] | None = None,
+) -> int:
     """Open the station read-only, run ``body`` on it, and turn known failures into words.
+
+    With ``--db postgresql://...`` the department record is read instead: ``body`` runs on
+    the one station chosen (``--station``, the only one published, or the one that holds the
+    session asked for), or ``across`` on every station's sessions when it is given.
 
     A missing database, a missing session or bad input exits with status 2, a database that
     cannot be read with 1; each prints one line on stderr saying what is wrong.
     """
-    from chargebook.acquire.record.store import (
-        NotFound,
-        StoreError,
-        UnreadableRecord,
-        default_db_path,
-    )
-    from chargebook.corrections.errors import InputError
+    from chargebook.acquire.record.store import StoreError, default_db_path
 
+    if isinstance(args.db, str):
+        return _run_department(args, body, across)
+    if getattr(args, "station", None) is not None:
+        print(
+            "chargebook: --station chooses a station of the department record "
+            "(--db postgresql://...); a station file holds one station",
+            file=sys.stderr,
+        )
+        return EXIT_INVALID_INPUT
     path = args.db or default_db_path()
     if not Path(path).is_file():
         print(f"chargebook: {missing_station_words(Path(path))}", file=sys.stderr)
@@ -83,7 +118,18 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
         print(f"chargebook: {error}", file=sys.stderr)
         return EXIT_FAILURE
     try:
-        return body(store)
+        return _answer(lambda: body(store), f"the station database {store.path}")
+    finally:
+        store.close()
+
+
+def _answer(call: Callable[[], int], where: str) -> int:
+    """Return ``call()``, or the exit status of a known failure, said in one line on stderr."""
+    from chargebook.acquire.record.store import NotFound, UnreadableRecord
+    from chargebook.corrections.errors import InputError
+
+    try:
+        return call()
     except NotFound as error:
         print(f"chargebook: {error} (`chargebook sessions` lists them)", file=sys.stderr)
         return EXIT_INVALID_INPUT
@@ -92,7 +138,7 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
         return EXIT_INVALID_INPUT
     except UnreadableRecord as error:  # a damaged file shows only when its pages are read
         print(
-            f"chargebook: the station database {store.path} cannot be read: {error}; "
+            f"chargebook: {where} cannot be read: {error}; "
             "restore it from a backup (`sqlite3 FILE .recover` may save what is left)",
             file=sys.stderr,
         )
@@ -102,8 +148,52 @@ def run_reader(args: argparse.Namespace, body: Callable[[Store], int]) -> int:
         # documentation on SIGPIPE advises, so that the interpreter's final flush stays silent.
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return EXIT_FAILURE
-    finally:
-        store.close()
+
+
+def _run_department(
+    args: argparse.Namespace,
+    body: Callable[[Store], int],
+    across: Callable[[list[Store]], int] | None,
+) -> int:
+    """Run a read command on the department record named by ``--db postgresql://...``."""
+    from chargebook.acquire.record.department import ReadFailed, open_department
+    from chargebook.acquire.record.store import StoreError
+
+    try:
+        database = open_department(args.db)
+    except StoreError as error:
+        print(f"chargebook: {error}", file=sys.stderr)
+        return EXIT_FAILURE
+    with database:
+        try:
+            return _answer(
+                lambda: _on_stations(args, database, body, across),
+                f"the department record {database.where}",
+            )
+        except ReadFailed as error:
+            print(f"chargebook: {error}", file=sys.stderr)
+            return EXIT_FAILURE
+
+
+def _on_stations(args, database, body, across) -> int:
+    """Run ``body`` on the one station meant, or ``across`` on them all."""
+    from chargebook.acquire.record.department import stations_named
+    from chargebook.acquire.record.store import NotFound
+    from chargebook.corrections.errors import InputError
+
+    stores = [database.store(station) for station in stations_named(database, args.station)]
+    if len(stores) == 1:
+        return body(stores[0])
+    if across is not None:
+        return across(stores)
+    holding = [store for store in stores if store.holds(args.session)]
+    if len(holding) == 1:
+        return body(holding[0])
+    if not holding:
+        raise NotFound(f"no session with id {args.session} in {database.where}")
+    names = ", ".join(store.station().name for store in holding)
+    allowed = f"--station NAME, one of {names}"
+    raise InputError("session", args.session, allowed, "is recorded at several stations")
 
 
 def write_output(text: str, output: Path | None) -> int:

@@ -46,6 +46,7 @@ from chargebook.acquire.record.store import (
     TrafficRow,
     _reading_row,
 )
+from chargebook.corrections.errors import InputError
 
 #: The PostgreSQL schema that holds the record, and the version of its layout.
 SCHEMA = "chargebook"
@@ -185,6 +186,10 @@ END $$""",
 # ----------------------------------------------------------------------------- connecting
 
 
+class ReadFailed(StoreError):
+    """The department database failed while a command read it (the server went away)."""
+
+
 class PublishInterrupted(StoreError):
     """The connection was lost while publishing; what was committed before it stays."""
 
@@ -217,9 +222,20 @@ class DepartmentDatabase:
         with self.connection.transaction(), self.connection.cursor() as cursor:
             yield cursor
 
+    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+        """Return the rows of one query; :class:`ReadFailed` in words if the server fails."""
+        import psycopg
+
+        try:
+            return self.execute(sql, params)
+        except psycopg.Error as error:
+            raise ReadFailed(
+                f"reading the department record {self.where} failed: {_first_line(error)}"
+            ) from None
+
     def stations(self) -> list[StationRow]:
         """Return every station published here (its newest name), in the order first seen."""
-        rows = self.execute(
+        rows = self.read(
             f"SELECT s.uuid, (SELECT n.name FROM {SCHEMA}.station_names n "
             f"WHERE n.station_uuid = s.uuid ORDER BY n.seq DESC LIMIT 1), s.created_at "
             f"FROM {SCHEMA}.stations s ORDER BY s.published_at, s.uuid"
@@ -239,6 +255,22 @@ class DepartmentDatabase:
 
     def __exit__(self, *exc_info: object) -> None:
         self.close()
+
+
+def stations_named(database: DepartmentDatabase, choice: str | None) -> list[StationRow]:
+    """Return the stations ``choice`` names (a UUID, or a name regardless of case), or all of
+    them when it is None; InputError naming the stations published when none matches."""
+    stations = database.stations()
+    if choice is None:
+        return stations
+    found = [s for s in stations if s.uuid == choice.strip().lower()]
+    found = found or [s for s in stations if s.name.casefold() == choice.strip().casefold()]
+    if len(found) == 1:
+        return found
+    names = ", ".join(f"{s.name} ({s.uuid})" for s in stations) or "none published yet"
+    if not found:
+        raise InputError("--station", choice, names, "is not a station of the department record")
+    raise InputError("--station", choice, names, "names several stations: give its UUID")
 
 
 def open_department(url: str, *, require_record: bool = True) -> DepartmentDatabase:
@@ -458,7 +490,7 @@ class DepartmentStore:
             f"SELECT {', '.join(_columns(table))} FROM {SCHEMA}.{table} "
             f"WHERE station_uuid = %s AND {where} ORDER BY id"
         )
-        return self.database.execute(sql, (self._station.uuid, *params))
+        return self.database.read(sql, (self._station.uuid, *params))
 
     def _select(self, table: str, where: str, params: tuple = ()) -> list:
         row_class = ROW_CLASSES[table]
@@ -469,6 +501,10 @@ class DepartmentStore:
         if not found:
             raise NotFound(f"no {what} with id {row_id} in {self.path}")
         return found[0]
+
+    def holds(self, session_id: int) -> bool:
+        """Return True when the station published a session with this id."""
+        return bool(self._rows("sessions", "id = %s", (session_id,)))
 
     def sessions(self) -> list[SessionRow]:
         """Return every published session of the station, oldest first."""
@@ -514,7 +550,7 @@ class DepartmentStore:
         """Return how many raw lines were published for the session."""
         where = "session_id IS NULL" if session_id is None else "session_id = %s"
         params = () if session_id is None else (session_id,)
-        ((count,),) = self.database.execute(
+        ((count,),) = self.database.read(
             f"SELECT count(*) FROM {SCHEMA}.traffic WHERE station_uuid = %s AND {where}",
             (self._station.uuid, *params),
         )
@@ -532,11 +568,11 @@ class DepartmentStore:
             f"WHERE station_uuid = %s AND {owner} IS NOT DISTINCT FROM %s AND chain_seq > %s "
             "ORDER BY id"
         )
-        return self.database.execute(sql, (self._station.uuid, session_id, after_seq))
+        return self.database.read(sql, (self._station.uuid, session_id, after_seq))
 
     def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
         """Return (place, hash) of the last row of the session's chain published, or None."""
-        found = self.database.execute(
+        found = self.database.read(
             f"SELECT seq, hash FROM {SCHEMA}.chain_heads WHERE station_uuid = %s AND "
             "session_key = %s ORDER BY seq DESC LIMIT 1",
             (self._station.uuid, chain.chain_key(session_id)),
