@@ -50,6 +50,14 @@ class Server:
         """Return the libpq URL of ``database`` as ``user``, over the Unix socket."""
         return f"postgresql://{user}@/{database}?host={self.socket_dir}"
 
+    def new_database(self, name: str) -> str:
+        """Create an empty database ``name`` owned by the cluster's owner; return its URL."""
+        import psycopg
+
+        with psycopg.connect(self.url(), autocommit=True) as connection:
+            connection.execute(f'CREATE DATABASE "{name}"')
+        return self.url(database=name)
+
 
 def _as_server_user(command: list[str]) -> list[str]:
     if os.geteuid() != 0:
