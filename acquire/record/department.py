@@ -329,13 +329,12 @@ class Publication:
     rows: int
 
 
-def _insert_sql(table: str) -> str:
+def _copy_sql(table: str) -> str:
     names = ("station_uuid", *_columns(table), "chain_seq", "chain_hash")
-    marks = ", ".join("%s" for _ in names)
-    return f"INSERT INTO {SCHEMA}.{table} ({', '.join(names)}) VALUES ({marks})"
+    return f"COPY {SCHEMA}.{table} ({', '.join(names)}) FROM STDIN"
 
 
-def _station_rows(store: Store, table: str, where: str, params: tuple) -> list[tuple]:
+def station_rows(store: Store, table: str, where: str, params: tuple) -> list[tuple]:
     """Return the station file's rows of ``table`` to copy: its columns, place and hash."""
     sql = (
         f"SELECT {', '.join(_columns(table))}, chain_seq, chain_hash FROM {table} "
@@ -365,9 +364,13 @@ def _publish_station_row(database: DepartmentDatabase, station: StationRow) -> N
             )
 
 
-def _copy_rows(cursor: Any, table: str, station_uuid: str, rows: list[tuple]) -> int:
+def copy_rows(cursor: Any, table: str, station_uuid: str, rows: list[tuple]) -> int:
+    """Append ``rows`` (a station file's, as :func:`station_rows` gives them) to the
+    department's ``table`` with PostgreSQL's COPY; return how many there were."""
     if rows:
-        cursor.executemany(_insert_sql(table), [(station_uuid, *row) for row in rows])
+        with cursor.copy(_copy_sql(table)) as copy:
+            for row in rows:
+                copy.write_row((station_uuid, *row))
     return len(rows)
 
 
@@ -383,8 +386,8 @@ def _publish_session(
         for table in ROW_CLASSES:
             owner = "id" if table == "sessions" else "session_id"
             where = f"{owner} = ? AND chain_seq > ? AND chain_seq <= ?"
-            rows = _station_rows(store, table, where, (session_id, after, head[0]))
-            copied += _copy_rows(cursor, table, station_uuid, rows)
+            rows = station_rows(store, table, where, (session_id, after, head[0]))
+            copied += copy_rows(cursor, table, station_uuid, rows)
         cursor.execute(
             f"INSERT INTO {SCHEMA}.chain_heads (station_uuid, session_key, seq, hash) "
             "VALUES (%s, %s, %s, %s)",
@@ -400,9 +403,9 @@ def _publish_events_outside(database: DepartmentDatabase, store: Store, station_
         "WHERE station_uuid = %s AND session_id IS NULL",
         (station_uuid,),
     )
-    rows = _station_rows(store, "events", "session_id IS NULL AND id > ?", (last,))
+    rows = station_rows(store, "events", "session_id IS NULL AND id > ?", (last,))
     with database.transaction() as cursor:
-        return _copy_rows(cursor, "events", station_uuid, rows)
+        return copy_rows(cursor, "events", station_uuid, rows)
 
 
 def published_heads(database: DepartmentDatabase, station_uuid: str) -> dict[int, int]:
