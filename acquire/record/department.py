@@ -121,6 +121,58 @@ CREATE TABLE IF NOT EXISTS {SCHEMA}.{table} (
 _TABLES = ("stations", "station_names", *ROW_CLASSES, "chain_heads", "layout")
 
 
+def _text(key: str) -> str:
+    return f"m ->> '{key}'"
+
+
+def _number(key: str) -> str:
+    return f"(m ->> '{key}')::double precision"
+
+
+def _first_review(key: str) -> str:
+    return (
+        f"(SELECT e.detail_json::jsonb ->> '{key}' FROM {SCHEMA}.events e "
+        "WHERE e.station_uuid = s.station_uuid AND e.session_id = s.id "
+        "AND e.kind = 'session_reviewed' ORDER BY e.id LIMIT 1)"
+    )
+
+
+#: The station file's ``session_overview`` view (migration ``browse_views``), across stations:
+#: the same columns, after the station's UUID, for any PostgreSQL client.
+_SESSION_OVERVIEW = f"""CREATE OR REPLACE VIEW {SCHEMA}.session_overview AS
+SELECT
+    s.station_uuid,
+    s.id AS session_id,
+    s.uuid AS session_uuid,
+    (SELECT n.name FROM {SCHEMA}.station_names n WHERE n.station_uuid = s.station_uuid
+        ORDER BY n.seq DESC LIMIT 1) AS station_name,
+    s.created_at AS started_at_utc,
+    s.closed_at AS closed_at_utc,
+    s.status,
+    s.reason,
+    {_text("treatment_machine")} AS machine,
+    coalesce({_text("beam")}, s.beam) AS beam,
+    coalesce({_text("modality")}, 'photon') AS modality,
+    s.convention,
+    {_text("chamber_model")} AS chamber_model,
+    {_text("chamber_serial")} AS chamber_serial,
+    {_text("electrometer_model")} AS electrometer_model,
+    {_text("electrometer_serial")} AS electrometer_serial,
+    {_text("operator")} AS operator,
+    {_number("N_Dw")} AS "N_Dw",
+    coalesce({_text("N_Dw_unit")}, 'Gy/nC') AS "N_Dw_unit",
+    {_number("k_Q")} AS "k_Q",
+    {_text("k_Q_source")} AS "k_Q_source",
+    {_number("expected_cGy_per_MU")} AS "expected_cGy_per_MU",
+    {_text("calibration_date")} AS calibration_date,
+    (SELECT count(*) FROM {SCHEMA}.readings r WHERE r.station_uuid = s.station_uuid
+        AND r.session_id = s.id AND r.settling = 0) AS readings_used,
+    {_first_review("status")} AS review,
+    {_first_review("reviewer")} AS reviewer,
+    s.replay_of AS replay_of_session_id
+FROM {SCHEMA}.sessions s CROSS JOIN LATERAL (SELECT s.metadata_json::jsonb AS m) AS metadata"""
+
+
 def _schema_statements() -> list[str]:
     """Return the statements that make the department record (each safe to run again)."""
     statements = [
@@ -166,6 +218,7 @@ $$""",
             f"CREATE OR REPLACE TRIGGER {table}_no_truncate BEFORE TRUNCATE ON "
             f"{SCHEMA}.{table} FOR EACH STATEMENT EXECUTE FUNCTION {SCHEMA}.refuse_change()",
         ]
+    statements.append(_SESSION_OVERVIEW)
     statements += [
         f"""DO $$ BEGIN
     IF NOT EXISTS (SELECT FROM pg_roles WHERE rolname = '{PUBLISHER_ROLE}') THEN

@@ -12,6 +12,7 @@ from __future__ import annotations
 import itertools
 import json
 import re
+import sqlite3
 from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -289,3 +290,31 @@ def test_publish_refuses_what_is_not_a_postgresql_url_and_an_empty_database(
     assert "--create-schema" in capsys.readouterr().err
     assert main(["publish", "--db", str(path), "--to", empty, "--create-schema"]) == EXIT_OK
     assert "published 1 session(s)" in capsys.readouterr().out
+
+
+def test_the_session_overview_is_the_station_files_view_across_stations(
+    stations: list[Path], url: str, capsys
+) -> None:
+    for path in stations:
+        _publish(path, url, capsys)
+    with psycopg.connect(url) as connection:
+        cursor = connection.execute(
+            "SELECT * FROM chargebook.session_overview ORDER BY station_uuid, session_id"
+        )
+        names = [column.name for column in cursor.description]
+        found = [dict(zip(names, row, strict=True)) for row in cursor.fetchall()]
+    expected = []
+    for path in stations:
+        connection = sqlite3.connect(path)
+        cursor = connection.execute("SELECT * FROM session_overview ORDER BY session_id")
+        station = connection.execute("SELECT uuid FROM station").fetchone()[0]
+        columns = [column[0] for column in cursor.description]
+        expected += [
+            {"station_uuid": station, **dict(zip(columns, row, strict=True))} for row in cursor
+        ]
+        connection.close()
+    expected.sort(key=lambda row: (row["station_uuid"], row["session_id"]))
+    assert found == expected
+    assert [row["review"] for row in found] == [
+        "approved" if row["session_id"] == 2 else None for row in found
+    ]
