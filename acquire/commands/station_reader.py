@@ -1,5 +1,6 @@
 """What the read-side commands (sessions, show, export, history) share: the --db option,
-opening the station database read-only, and reporting failures in words.
+opening the station database read-only (or the department record on PostgreSQL, one station's
+sessions at a time through the same read methods), and reporting failures in words.
 
 Light at import: the store (and sqlite-utils) is imported only when a command runs.
 """
@@ -16,6 +17,7 @@ from typing import TYPE_CHECKING
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 
 if TYPE_CHECKING:
+    from chargebook.acquire.record.department import DepartmentDatabase
     from chargebook.acquire.record.store import Store
 
 DB_HELP = (
@@ -175,7 +177,12 @@ def _run_department(
             return EXIT_FAILURE
 
 
-def _on_stations(args, database, body, across) -> int:
+def _on_stations(
+    args: argparse.Namespace,
+    database: DepartmentDatabase,
+    body: Callable[[Store], int],
+    across: Callable[[list[Store]], int] | None,
+) -> int:
     """Run ``body`` on the one station meant, or ``across`` on them all."""
     from chargebook.acquire.record.department import stations_named
     from chargebook.acquire.record.store import NotFound
