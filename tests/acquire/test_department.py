@@ -290,6 +290,8 @@ def test_publish_refuses_what_is_not_a_postgresql_url_and_an_empty_database(
     assert "--create-schema" in capsys.readouterr().err
     assert main(["publish", "--db", str(path), "--to", empty, "--create-schema"]) == EXIT_OK
     assert "published 1 session(s)" in capsys.readouterr().out
+    assert main(["sessions", "--db", str(path), "--station", "station-a"]) == EXIT_INVALID_INPUT
+    assert "a station file holds one station" in capsys.readouterr().err
 
 
 def test_the_session_overview_is_the_station_files_view_across_stations(
