@@ -7,7 +7,7 @@ import argparse
 from chargebook.acquire.commands.station_reader import (
     add_output_argument,
     add_record_argument,
-    add_session_argument,
+    add_session_or_uuid_argument,
     run_reader,
 )
 
@@ -20,7 +20,7 @@ FORMATS = ("csv", "json", "html")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_argument(parser)
+    add_session_or_uuid_argument(parser)
     parser.add_argument(
         "--format", choices=FORMATS, default="json", help="the export format (default: json)"
     )

@@ -6,7 +6,7 @@ import argparse
 
 from chargebook.acquire.commands.station_reader import (
     add_record_argument,
-    add_session_argument,
+    add_session_or_uuid_argument,
     run_reader,
 )
 
@@ -17,7 +17,7 @@ HELP = (
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_argument(parser)
+    add_session_or_uuid_argument(parser)
     add_record_argument(parser)
     parser.add_argument("--json", action="store_true", help="print the JSON export instead of text")
 

@@ -67,6 +67,44 @@ def add_session_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("session", metavar="SESSION", type=int, help="session id")
 
 
+def _session_key(text: str) -> int | str:
+    """Return a session id (a whole number) or a session UUID (lower case), as typed."""
+    import uuid
+
+    try:
+        return int(text)
+    except ValueError:
+        pass
+    try:
+        return str(uuid.UUID(text))
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"SESSION = {text!r} is neither a session id nor a session UUID"
+        ) from None
+
+
+def add_session_or_uuid_argument(parser: argparse.ArgumentParser) -> None:
+    """Add SESSION: a session id (as `chargebook sessions` lists) or a session's UUID."""
+    parser.add_argument(
+        "session",
+        metavar="SESSION",
+        type=_session_key,
+        help="session id, or the session's UUID (unique across stations)",
+    )
+
+
+def _session_id(store: Store, key: int | str) -> int | None:
+    """Return the id of the session ``key`` names (an id or a UUID), None when not held."""
+    from chargebook.acquire.record.store import NotFound
+
+    if isinstance(key, str):
+        return next((row.id for row in store.sessions() if row.uuid == key), None)
+    try:
+        return store.session(key).id
+    except NotFound:
+        return None
+
+
 def open_station(args: argparse.Namespace) -> Store:
     """Return the station database named by ``--db`` (or the default), opened read-only."""
     from chargebook.acquire.record.store import Store, default_db_path
@@ -120,9 +158,22 @@ def run_reader(
         print(f"chargebook: {error}", file=sys.stderr)
         return EXIT_FAILURE
     try:
-        return _answer(lambda: body(store), f"the station database {store.path}")
+        return _answer(lambda: _on_station(args, store, body), f"the station database {store.path}")
     finally:
         store.close()
+
+
+def _on_station(args: argparse.Namespace, store: Store, body: Callable[[Store], int]) -> int:
+    """Run ``body`` on the station file, a session named by UUID turned into its id."""
+    from chargebook.acquire.record.store import NotFound
+
+    key = getattr(args, "session", None)
+    if isinstance(key, str):
+        found = _session_id(store, key)
+        if found is None:
+            raise NotFound(f"no session with UUID {key} in {store.path}")
+        args.session = found
+    return body(store)
 
 
 def _answer(call: Callable[[], int], where: str) -> int:
@@ -183,24 +234,27 @@ def _on_stations(
     body: Callable[[Store], int],
     across: Callable[[list[Store]], int] | None,
 ) -> int:
-    """Run ``body`` on the one station meant, or ``across`` on them all."""
+    """Run ``body`` on the station meant (``--station``, the only one, or the one holding the
+    session asked for, by id or UUID), or ``across`` on them all."""
     from chargebook.acquire.record.department import stations_named
     from chargebook.acquire.record.store import NotFound
     from chargebook.corrections.errors import InputError
 
     stores = [database.store(station) for station in stations_named(database, args.station)]
-    if len(stores) == 1:
-        return body(stores[0])
     if across is not None:
-        return across(stores)
-    holding = [store for store in stores if store.holds(args.session)]
+        return body(stores[0]) if len(stores) == 1 else across(stores)
+    key = args.session
+    holding = [(store, _session_id(store, key)) for store in stores]
+    holding = [(store, found) for store, found in holding if found is not None]
     if len(holding) == 1:
-        return body(holding[0])
+        ((store, args.session),) = holding
+        return body(store)
+    what = "UUID" if isinstance(key, str) else "id"
     if not holding:
-        raise NotFound(f"no session with id {args.session} in {database.where}")
-    names = ", ".join(store.station().name for store in holding)
-    allowed = f"--station NAME, one of {names}"
-    raise InputError("session", args.session, allowed, "is recorded at several stations")
+        raise NotFound(f"no session with {what} {key} in {database.where}")
+    names = ", ".join(store.station().name for store, _ in holding)
+    allowed = f"--station NAME (one of {names}) or the session's UUID"
+    raise InputError("session", key, allowed, "is recorded at several stations")
 
 
 def write_output(text: str, output: Path | None) -> int:

@@ -558,10 +558,6 @@ class DepartmentStore:
             raise NotFound(f"no {what} with id {row_id} in {self.path}")
         return found[0]
 
-    def holds(self, session_id: int) -> bool:
-        """Return True when the station published a session with this id."""
-        return bool(self._rows("sessions", "id = %s", (session_id,)))
-
     def sessions(self) -> list[SessionRow]:
         """Return every published session of the station, oldest first."""
         return self._select("sessions", "TRUE")

@@ -183,6 +183,17 @@ def test_show_finds_the_station_of_a_session_or_asks_which(
     assert json.loads(capsys.readouterr().out)["station"]["name"] == "station-a"
     assert main(["show", "2", "--db", url]) == EXIT_INVALID_INPUT
     assert "is recorded at several stations" in capsys.readouterr().err
+    with Store.open(second, read_only=True) as store:
+        key = store.session(2).uuid  # a session's UUID names it across stations
+    for where in (url, str(second)):
+        assert main(["export", key.upper(), "--db", where, "--format", "json"]) == EXIT_OK
+        exported = json.loads(capsys.readouterr().out)
+        assert (exported["station"]["name"], exported["session"]["id"]) == ("station-b", 2)
+    assert main(["show", key, "--db", str(first)]) == EXIT_INVALID_INPUT
+    assert f"no session with UUID {key}" in capsys.readouterr().err
+    with pytest.raises(SystemExit):
+        main(["show", "not-a-session", "--db", url])
+    assert "neither a session id nor a session UUID" in capsys.readouterr().err
     assert main(["show", "9", "--db", url]) == EXIT_INVALID_INPUT
     assert "no session with id 9" in capsys.readouterr().err
     assert main(["sessions", "--db", url, "--station", "station-z"]) == EXIT_INVALID_INPUT
