@@ -427,11 +427,52 @@ def copy_rows(cursor: Any, table: str, station_uuid: str, rows: list[tuple]) -> 
     return len(rows)
 
 
+def _hash_at(store: Store, session_id: int, seq: int) -> str | None:
+    """Return the hash of the station file's row at place ``seq`` of the session's chain."""
+    for table in ROW_CLASSES:
+        owner = "id" if table == "sessions" else "session_id"
+        found = store.read(
+            f"SELECT chain_hash FROM {table} WHERE {owner} = ? AND chain_seq = ?", (session_id, seq)
+        )
+        if found:
+            return str(found[0][0])
+    return None
+
+
+def _require_same_history(
+    store: Store,
+    station: StationRow,
+    session: SessionRow,
+    head: tuple[int, str] | None,
+    published: tuple[int, str],
+) -> None:
+    """Refuse, in words, a station file whose chain of ``session`` is not the one published
+    up to the place published (a replaced file, or one restored from an older copy)."""
+    seq, digest = published
+    if head is not None and head[0] >= seq and _hash_at(store, session.id, seq) == digest:
+        return
+    raise StoreError(
+        f"session {session.id} ({session.uuid}) of station {station.name} ({station.uuid}) is "
+        f"not the one in the department record, which holds its chain to place {seq} with "
+        f"hash {digest[:16]}...: was the station file replaced, or restored from an older "
+        "copy? Nothing more was published; `chargebook verify` checks the file"
+    )
+
+
 def _publish_session(
-    database: DepartmentDatabase, store: Store, station_uuid: str, session_id: int, after: int
+    database: DepartmentDatabase,
+    store: Store,
+    station: StationRow,
+    session: SessionRow,
+    published: tuple[int, str] | None,
 ) -> int:
-    """Copy the session's chain past place ``after`` in one transaction; the rows copied."""
-    head = store.chain_head(session_id)
+    """Copy the session's chain past the place ``published`` (place, hash) in one transaction;
+    return the rows copied."""
+    head = store.chain_head(session.id)
+    after = 0
+    if published is not None:
+        _require_same_history(store, station, session, head, published)
+        after = published[0]
     if head is None or head[0] <= after:
         return 0
     copied = 0
@@ -439,12 +480,12 @@ def _publish_session(
         for table in ROW_CLASSES:
             owner = "id" if table == "sessions" else "session_id"
             where = f"{owner} = ? AND chain_seq > ? AND chain_seq <= ?"
-            rows = station_rows(store, table, where, (session_id, after, head[0]))
-            copied += copy_rows(cursor, table, station_uuid, rows)
+            rows = station_rows(store, table, where, (session.id, after, head[0]))
+            copied += copy_rows(cursor, table, station.uuid, rows)
         cursor.execute(
             f"INSERT INTO {SCHEMA}.chain_heads (station_uuid, session_key, seq, hash) "
             "VALUES (%s, %s, %s, %s)",
-            (station_uuid, chain.chain_key(session_id), head[0], head[1]),
+            (station.uuid, chain.chain_key(session.id), head[0], head[1]),
         )
     return copied
 
@@ -461,14 +502,15 @@ def _publish_events_outside(database: DepartmentDatabase, store: Store, station_
         return copy_rows(cursor, "events", station_uuid, rows)
 
 
-def published_heads(database: DepartmentDatabase, station_uuid: str) -> dict[int, int]:
-    """Return session id -> the last place of its chain published, for one station."""
+def published_heads(database: DepartmentDatabase, station_uuid: str) -> dict[int, tuple[int, str]]:
+    """Return session id -> (place, hash) of the last row of its chain published, for one
+    station."""
     rows = database.execute(
-        f"SELECT session_key, max(seq) FROM {SCHEMA}.chain_heads WHERE station_uuid = %s "
-        "GROUP BY session_key",
+        f"SELECT DISTINCT ON (session_key) session_key, seq, hash FROM {SCHEMA}.chain_heads "
+        "WHERE station_uuid = %s ORDER BY session_key, seq DESC",
         (station_uuid,),
     )
-    return {int(key): int(seq) for key, seq in rows}
+    return {int(key): (int(seq), str(digest)) for key, seq, digest in rows}
 
 
 def publish_station(
@@ -494,8 +536,7 @@ def publish_station(
         sessions = store.sessions()
         closed = [s for s in sessions if s.status in SESSION_FINAL_STATUSES]
         for session in closed:
-            after = heads.get(session.id, 0)
-            copied = _publish_session(database, store, station.uuid, session.id, after)
+            copied = _publish_session(database, store, station, session, heads.get(session.id))
             if copied == 0:
                 already += 1
                 continue

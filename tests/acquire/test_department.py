@@ -331,3 +331,35 @@ def test_the_session_overview_is_the_station_files_view_across_stations(
     assert [row["review"] for row in found] == [
         "approved" if row["session_id"] == 2 else None for row in found
     ]
+
+
+def test_a_renamed_station_is_read_by_its_new_name(tmp_path: Path, url: str, capsys) -> None:
+    path = _station_file(tmp_path, 0, sessions=1)
+    _publish(path, url, capsys)
+    with Store.open(path) as store:
+        store.name_station("linac hall 2")
+    _publish(path, url, capsys)
+    assert main(["sessions", "--db", url, "--station", "LINAC HALL 2", "--json"]) == EXIT_OK
+    (row,) = json.loads(capsys.readouterr().out)
+    assert row["station_name"] == "linac hall 2"
+    assert _counts(url)["station_names"] == 2  # the old name is kept, append-only
+
+
+def test_a_replaced_station_file_is_refused_in_words(tmp_path: Path, url: str, capsys) -> None:
+    original = _station_file(tmp_path, 0, sessions=1)
+    replaced = tmp_path / "replaced.sqlite"
+    replaced.write_bytes(original.read_bytes())  # the same station, then two histories
+    for path, scale in ((original, 1.0), (replaced, 1.01)):
+        with Store.open(path) as store:
+            record_example_session(store, scale=scale)
+    _publish(original, url, capsys)
+    before = _counts(url)
+    for attempt in range(2):  # the same length of chain, then one row longer (a review)
+        assert main(["publish", "--db", str(replaced), "--to", url]) == EXIT_FAILURE
+        err = capsys.readouterr().err
+        assert "session 2 (" in err and "of station station-a" in err
+        assert "is not the one in the department record" in err and "replaced" in err
+        assert _counts(url) == before  # nothing of the other history was published
+        if attempt == 0:
+            with Store.open(replaced) as store:
+                record_review(store, 2, "approve", "reviewer B", "fine")
