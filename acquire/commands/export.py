@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import (
     add_output_argument,
@@ -10,6 +11,9 @@ from chargebook.acquire.commands.station_reader import (
     add_session_or_uuid_argument,
     run_reader,
 )
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 HELP = (
     "export one recorded session: csv (the readings), json (everything) or html "
@@ -35,7 +39,7 @@ def run(args: argparse.Namespace) -> int:
     return run_reader(args, lambda store: _export(store, args))
 
 
-def _export(store, args: argparse.Namespace) -> int:
+def _export(store: RecordReader, args: argparse.Namespace) -> int:
     from chargebook.acquire.commands.station_reader import write_output
     from chargebook.acquire.reports import export
     from chargebook.acquire.reports.data import load_record

@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import add_record_argument, run_reader
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from chargebook.acquire.record.reader import RecordReader
 
 FORMATS = ("text", "json", "html")
 
@@ -52,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
     )
 
 
-def _history(stores, args: argparse.Namespace) -> int:
+def _history(stores: Sequence[RecordReader], args: argparse.Namespace) -> int:
     import json
     import sys
 

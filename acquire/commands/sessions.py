@@ -3,8 +3,14 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import add_record_argument, run_reader
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from chargebook.acquire.record.reader import RecordReader
 
 HELP = "list the recorded sessions: id, date, status, review, machine, beam, operator, readings"
 
@@ -27,13 +33,13 @@ def run(args: argparse.Namespace) -> int:
     )
 
 
-def _across(stores, args: argparse.Namespace) -> list[dict]:
+def _across(stores: Sequence[RecordReader], args: argparse.Namespace) -> list[dict]:
     """Return the sessions of every station, in the order they started."""
     rows = [row for store in stores for row in _rows(store, args)]
     return sorted(rows, key=lambda row: row["created_at"])
 
 
-def _rows(store, args: argparse.Namespace) -> list[dict]:
+def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
     """Return the station's sessions that match the filters, as the JSON output lists them."""
     from chargebook.acquire.record.review import review_of, review_status
     from chargebook.acquire.reports.history import matches

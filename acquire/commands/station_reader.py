@@ -10,7 +10,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -18,6 +18,7 @@ from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT
 
 if TYPE_CHECKING:
     from chargebook.acquire.record.department import DepartmentDatabase
+    from chargebook.acquire.record.reader import RecordReader
     from chargebook.acquire.record.store import Store
 
 DB_HELP = (
@@ -93,7 +94,7 @@ def add_session_or_uuid_argument(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def _session_id(store: Store, key: int | str) -> int | None:
+def _session_id(store: RecordReader, key: int | str) -> int | None:
     """Return the id of the session ``key`` names (an id or a UUID), None when not held."""
     from chargebook.acquire.record.store import NotFound
 
@@ -125,8 +126,8 @@ def missing_station_words(path: Path) -> str:
 
 def run_reader(
     args: argparse.Namespace,
-    body: Callable[[Store], int],
-    across: Callable[[list[Store]], int] | None = None,
+    body: Callable[[RecordReader], int],
+    across: Callable[[Sequence[RecordReader]], int] | None = None,
 ) -> int:
     """Open the station read-only, run ``body`` on it, and turn known failures into words.
 
@@ -163,7 +164,7 @@ def run_reader(
         store.close()
 
 
-def _on_station(args: argparse.Namespace, store: Store, body: Callable[[Store], int]) -> int:
+def _on_station(args: argparse.Namespace, store: Store, body: Callable[[RecordReader], int]) -> int:
     """Run ``body`` on the station file, a session named by UUID turned into its id."""
     from chargebook.acquire.record.store import NotFound
 
@@ -205,8 +206,8 @@ def _answer(call: Callable[[], int], where: str) -> int:
 
 def _run_department(
     args: argparse.Namespace,
-    body: Callable[[Store], int],
-    across: Callable[[list[Store]], int] | None,
+    body: Callable[[RecordReader], int],
+    across: Callable[[Sequence[RecordReader]], int] | None,
 ) -> int:
     """Run a read command on the department record named by ``--db postgresql://...``."""
     from chargebook.acquire.record.department import ReadFailed, open_department
@@ -231,8 +232,8 @@ def _run_department(
 def _on_stations(
     args: argparse.Namespace,
     database: DepartmentDatabase,
-    body: Callable[[Store], int],
-    across: Callable[[list[Store]], int] | None,
+    body: Callable[[RecordReader], int],
+    across: Callable[[Sequence[RecordReader]], int] | None,
 ) -> int:
     """Run ``body`` on the station meant (``--station``, the only one, or the one holding the
     session asked for, by id or UUID), or ``across`` on them all."""

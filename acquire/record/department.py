@@ -16,9 +16,10 @@ The department database is append-only: triggers refuse UPDATE, DELETE and TRUNC
 table, whoever asks, and :func:`create_schema` makes two roles to grant to logins:
 ``chargebook_publisher`` (SELECT and INSERT: the stations) and ``chargebook_reader`` (SELECT).
 
-:class:`DepartmentStore` reads one station's sessions back through the read methods of
-:class:`~chargebook.acquire.record.store.Store` that the reports use, returning the same rows,
-so `sessions`, `show`, `export` and `history` say the same from here as from the station file.
+:class:`DepartmentStore` reads one station's sessions back through the read methods the
+reports use (:class:`~chargebook.acquire.record.reader.RecordReader`, which the station file's
+:class:`~chargebook.acquire.record.store.Store` provides too), returning the same rows, so
+`sessions`, `show`, `export` and `history` say the same from here as from the station file.
 
 psycopg (the ``department`` extra) is imported only here, when a command opens the database.
 """
@@ -29,7 +30,7 @@ import re
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.migrations import SESSION_FINAL_STATUSES
@@ -38,6 +39,7 @@ from chargebook.acquire.record.store import (
     EventRow,
     NotFound,
     ReadingRow,
+    Row,
     SessionRow,
     SetRow,
     StationRow,
@@ -47,6 +49,9 @@ from chargebook.acquire.record.store import (
     _reading_row,
 )
 from chargebook.corrections.errors import InputError
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 #: The PostgreSQL schema that holds the record, and the version of its layout.
 SCHEMA = "chargebook"
@@ -263,7 +268,7 @@ class DepartmentDatabase:
         """Return the database's URL without its password, for messages."""
         return shown_url(self.url)
 
-    def execute(self, sql: str, params: tuple = ()) -> list[tuple]:
+    def execute(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one statement (none for a statement that returns none)."""
         with self.connection.cursor() as cursor:
             cursor.execute(sql, params)
@@ -275,7 +280,7 @@ class DepartmentDatabase:
         with self.connection.transaction(), self.connection.cursor() as cursor:
             yield cursor
 
-    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+    def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query; :class:`ReadFailed` in words if the server fails."""
         import psycopg
 
@@ -387,7 +392,9 @@ def _copy_sql(table: str) -> str:
     return f"COPY {SCHEMA}.{table} ({', '.join(names)}) FROM STDIN"
 
 
-def station_rows(store: Store, table: str, where: str, params: tuple) -> list[tuple]:
+def station_rows(
+    store: Store, table: str, where: str, params: tuple[Any, ...]
+) -> list[tuple[Any, ...]]:
     """Return the station file's rows of ``table`` to copy: its columns, place and hash."""
     sql = (
         f"SELECT {', '.join(_columns(table))}, chain_seq, chain_hash FROM {table} "
@@ -417,7 +424,7 @@ def _publish_station_row(database: DepartmentDatabase, station: StationRow) -> N
             )
 
 
-def copy_rows(cursor: Any, table: str, station_uuid: str, rows: list[tuple]) -> int:
+def copy_rows(cursor: Any, table: str, station_uuid: str, rows: list[tuple[Any, ...]]) -> int:
     """Append ``rows`` (a station file's, as :func:`station_rows` gives them) to the
     department's ``table`` with PostgreSQL's COPY; return how many there were."""
     if rows:
@@ -564,7 +571,7 @@ def publish_station(
 
 
 class DepartmentStore:
-    """One station's published sessions, read with the read methods of a station's Store.
+    """One station's published sessions, read as a :class:`RecordReader` (as a station's Store).
 
     Each method returns the rows the station file's :class:`Store` returns for the same
     call (as far as published: closed sessions and events outside sessions).
@@ -575,45 +582,39 @@ class DepartmentStore:
         self._station = station
         self.path = f"{database.where} (station {station.name})"
 
-    def close(self) -> None:
-        """Nothing to close: the database is closed by whoever opened it."""
-
     def station(self) -> StationRow:
         """Return the station these sessions were published from (its newest name)."""
         return self._station
 
-    def _rows(self, table: str, where: str, params: tuple = ()) -> list[tuple]:
+    def _rows(self, table: str, where: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         sql = (
             f"SELECT {', '.join(_columns(table))} FROM {SCHEMA}.{table} "
             f"WHERE station_uuid = %s AND {where} ORDER BY id"
         )
         return self.database.read(sql, (self._station.uuid, *params))
 
-    def _select(self, table: str, where: str, params: tuple = ()) -> list:
-        row_class = ROW_CLASSES[table]
-        return [row_class(*row) for row in self._rows(table, where, params)]
+    def _select(
+        self, cls: type[Row], table: str, where: str, params: tuple[Any, ...] = ()
+    ) -> list[Row]:
+        return [cls(*row) for row in self._rows(table, where, params)]
 
-    def _one(self, table: str, row_id: int, what: str) -> Any:
-        found = self._select(table, "id = %s", (row_id,))
+    def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
+        found = self._select(cls, table, "id = %s", (row_id,))
         if not found:
             raise NotFound(f"no {what} with id {row_id} in {self.path}")
         return found[0]
 
     def sessions(self) -> list[SessionRow]:
         """Return every published session of the station, oldest first."""
-        return self._select("sessions", "TRUE")
+        return self._select(SessionRow, "sessions", "TRUE")
 
     def session(self, session_id: int) -> SessionRow:
         """Return one session; NotFound when it is not published."""
-        return self._one("sessions", session_id, "session")
+        return self._one(SessionRow, "sessions", session_id, "session")
 
     def sets(self, session_id: int) -> list[SetRow]:
         """Return the session's reading sets, oldest first."""
-        return self._select("reading_sets", "session_id = %s", (session_id,))
-
-    def reading_set(self, set_id: int) -> SetRow:
-        """Return one reading set; NotFound when it is not published."""
-        return self._one("reading_sets", set_id, "reading set")
+        return self._select(SetRow, "reading_sets", "session_id = %s", (session_id,))
 
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
@@ -625,19 +626,19 @@ class DepartmentStore:
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
         """Return the session's environment entries, oldest first."""
-        return self._select("environment", "session_id = %s", (session_id,))
+        return self._select(EnvironmentRow, "environment", "session_id = %s", (session_id,))
 
     def events(self, session_id: int | None) -> list[EventRow]:
         """Return the session's events, oldest first (None: events outside any session)."""
         if session_id is None:
-            return self._select("events", "session_id IS NULL")
-        return self._select("events", "session_id = %s", (session_id,))
+            return self._select(EventRow, "events", "session_id IS NULL")
+        return self._select(EventRow, "events", "session_id = %s", (session_id,))
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded."""
         if session_id is None:
-            return self._select("traffic", "session_id IS NULL")
-        return self._select("traffic", "session_id = %s", (session_id,))
+            return self._select(TrafficRow, "traffic", "session_id IS NULL")
+        return self._select(TrafficRow, "traffic", "session_id = %s", (session_id,))
 
     def traffic_count(self, session_id: int | None) -> int:
         """Return how many raw lines were published for the session."""
@@ -671,3 +672,8 @@ class DepartmentStore:
             (self._station.uuid, chain.chain_key(session_id)),
         )
         return (int(found[0][0]), str(found[0][1])) if found else None
+
+
+if TYPE_CHECKING:
+    # The type checker holds the department's reader to the read side the reports use.
+    _READS_AS_A_STATION: type[RecordReader] = DepartmentStore

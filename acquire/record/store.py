@@ -38,7 +38,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 from chargebook.acquire.record import chain, events
 from chargebook.acquire.record.events import EventKind
@@ -57,6 +57,9 @@ from chargebook.acquire.record.migrations import (
 )
 from chargebook.corrections.errors import InputError
 from sqlite_utils import Database
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 __all__ = [
     "CAPTURE_MODES",
@@ -1156,3 +1159,8 @@ def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
     columns = list(row)
     columns[_SETTLING] = bool(columns[_SETTLING])
     return ReadingRow(*columns)
+
+
+if TYPE_CHECKING:
+    # The type checker holds the station file's store to the read side the reports use.
+    _READS_AS_A_STATION: type[RecordReader] = Store

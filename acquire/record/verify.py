@@ -21,6 +21,7 @@ from typing import Any
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
 
@@ -79,7 +80,7 @@ class ChainReport:
         return "\n".join(lines)
 
 
-def verify_session(store: Store, session_id: int | None) -> ChainReport:
+def verify_session(store: RecordReader, session_id: int | None) -> ChainReport:
     """Return the check of the chain of session ``session_id`` (None: rows outside sessions).
 
     Raises ``NotFound`` for a session id that is not in the database.
@@ -112,7 +113,9 @@ def verify_all(store: Store) -> list[ChainReport]:
 Chained = tuple[str, tuple[Any, ...], int, str]
 
 
-def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], list[Problem]]:
+def _chained_rows(
+    store: RecordReader, session_id: int | None
+) -> tuple[list[Chained], list[Problem]]:
     """Return the chain's rows (table, values, seq, hash) in chain order, and the rows that have
     no place in it."""
     rows: list[Chained] = []
@@ -167,7 +170,7 @@ def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
     return previous, problems
 
 
-def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> list[Problem]:
+def _check_head(store: RecordReader, session_id: int | None, rows: list[Chained]) -> list[Problem]:
     """Return a problem when the chain ends before the end the store recorded."""
     found = store.chain_head(session_id)
     last_seq, last_hash = (rows[-1][2], rows[-1][3]) if rows else (0, chain.GENESIS)
@@ -191,7 +194,9 @@ def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> li
     return []
 
 
-def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_statuses(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return the session and sets whose status, reason or end time is not the one their last
     status event in the chain gave them."""
     kind_at = chain.COLUMNS["events"].index("kind")
@@ -224,7 +229,9 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     return problems
 
 
-def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_uuid(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return a problem when the session's UUID is not the one its chain recorded: the one in
     its ``session_created`` event, or (a session recorded before sessions had UUIDs) the one
     the migration derives from the station's UUID and the session id."""

@@ -18,10 +18,12 @@ from __future__ import annotations
 
 import contextlib
 import statistics
+from collections.abc import Sequence
 from dataclasses import dataclass
 
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, review_status
-from chargebook.acquire.record.store import NotFound, SessionRow, Store
+from chargebook.acquire.record.store import NotFound, SessionRow
 from chargebook.acquire.reports.data import SessionRecord, load_record
 from chargebook.acquire.reports.sections import Table, number, signed, when
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
@@ -156,7 +158,7 @@ def _point(
 
 
 def _baseline_value(
-    choice: str | int | float, stores: list[Store], records: list[SessionRecord]
+    choice: str | int | float, stores: Sequence[RecordReader], records: list[SessionRecord]
 ) -> tuple[float | None, str]:
     """Return (baseline dose per MU or None for 'expected', and a label saying what it is)."""
     if choice == "expected":
@@ -190,14 +192,14 @@ def _station_of(record: SessionRecord) -> str | None:
     return record.station.name if record.station is not None else None
 
 
-def _name(record: SessionRecord, stores: list[Store]) -> str:
+def _name(record: SessionRecord, stores: Sequence[RecordReader]) -> str:
     """Return a session's id, after its station's name when from several stations."""
     if len(stores) == 1 or record.station is None:
         return str(record.session.id)
     return f"{record.station.name}:{record.session.id}"
 
 
-def _baseline_record(stores: list[Store], session_id: int) -> SessionRecord:
+def _baseline_record(stores: Sequence[RecordReader], session_id: int) -> SessionRecord:
     """Return the record of the baseline session ``session_id``: InputError when no station
     holds it, or several do (ids repeat across stations: --station chooses one)."""
     found = []
@@ -214,7 +216,7 @@ def _baseline_record(stores: list[Store], session_id: int) -> SessionRecord:
 
 
 def load_history(
-    store: Store,
+    store: RecordReader,
     beam: str,
     machine: str | None = None,
     baseline: str = "expected",
@@ -226,7 +228,7 @@ def load_history(
 
 
 def load_history_across(
-    stores: list[Store],
+    stores: Sequence[RecordReader],
     beam: str,
     machine: str | None = None,
     baseline: str = "expected",
@@ -273,7 +275,7 @@ def _no_match(history: History) -> str:
     return words
 
 
-def _beams_like(store: Store, beam: str) -> tuple[str, ...]:
+def _beams_like(store: RecordReader, beam: str) -> tuple[str, ...]:
     """Return the beams recorded at the station, those whose names are close to ``beam``
     first (a mistyped "7 MV" finds "6 MV")."""
     import difflib
