@@ -1,7 +1,9 @@
 """The type checker of CI (.ci/typecheck, mypy as [tool.mypy] in pyproject.toml sets it).
 
 The package passes it, and it catches what the typed vocabularies are for: an event detail of
-the wrong shape, a driver command's value read as another quantity, a snapshot missing a key.
+the wrong shape, a driver command's value read as another quantity, a snapshot missing a key,
+a reader of the record (RecordReader: a station file, or the department record) lacking a read
+method the reports call.
 """
 
 import subprocess
@@ -19,10 +21,19 @@ MISTAKES = textwrap.dedent(
     from chargebook.acquire.engine.driver_commands import SetBias
     from chargebook.acquire.protocol import LiveReading
     from chargebook.acquire.record.events import BiasChanged
+    from chargebook.acquire.reports.data import load_record
 
     changed: BiasChanged = {"volts": 300.0}
     monitor_units: float = SetBias(bias_V=300.0).monitor_units
     live: LiveReading = {"phase": "idle"}
+
+
+    class SessionsOnly:
+        def sessions(self) -> list[object]:
+            return []
+
+
+    record = load_record(SessionsOnly(), 1)
     """
 )
 
@@ -43,7 +54,9 @@ def test_the_package_passes_the_type_checker_and_it_names_each_mistake(tmp_path:
     # Every error is in the mistakes: the package itself is clean.
     assert all(line.startswith(str(mistakes)) for line in errors), result.stdout
     by_line = {int(line.split(":")[1]): line for line in errors}
-    assert '"how"' in by_line[5]  # the detail of bias_changed lacks its key
-    assert '"monitor_units"' in by_line[6]  # SetBias carries volts, never MU
-    assert "LiveReading" in by_line[7] and '"charge_nC"' in by_line[7]
-    assert len(errors) == 3
+    assert '"how"' in by_line[6]  # the detail of bias_changed lacks its key
+    assert '"monitor_units"' in by_line[7]  # SetBias carries volts, never MU
+    assert "LiveReading" in by_line[8] and '"charge_nC"' in by_line[8]
+    # A reader of the record must have every read method the reports call (RecordReader).
+    assert '"RecordReader"' in by_line[16] and "load_record" in by_line[16]
+    assert len(errors) == 4

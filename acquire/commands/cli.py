@@ -38,6 +38,7 @@ COMMANDS: dict[str, str] = {
     "review": "review",
     "register": "register",
     "backup": "backup",
+    "publish": "publish",
     "completion": "completion",
 }
 

@@ -478,6 +478,84 @@ def _registers(db: Database) -> None:
     _run_triggers(db, _register_triggers())
 
 
+#: The views a physicist reads when browsing a station file (Datasette, the sqlite3 shell): one
+#: row per session with its metadata out of the JSON, readings with their set, traffic as text.
+#: They read the tables as stored; results (k_TP, dose ...) are computed by chargebook, not here.
+_BROWSE_VIEWS = """
+    CREATE VIEW session_overview AS
+    SELECT
+        s.id AS session_id,
+        s.uuid AS session_uuid,
+        (SELECT name FROM station) AS station_name,
+        s.created_at AS started_at_utc,
+        s.closed_at AS closed_at_utc,
+        s.status,
+        s.reason,
+        json_extract(s.metadata_json, '$.treatment_machine') AS machine,
+        coalesce(json_extract(s.metadata_json, '$.beam'), s.beam) AS beam,
+        coalesce(json_extract(s.metadata_json, '$.modality'), 'photon') AS modality,
+        s.convention,
+        json_extract(s.metadata_json, '$.chamber_model') AS chamber_model,
+        json_extract(s.metadata_json, '$.chamber_serial') AS chamber_serial,
+        json_extract(s.metadata_json, '$.electrometer_model') AS electrometer_model,
+        json_extract(s.metadata_json, '$.electrometer_serial') AS electrometer_serial,
+        json_extract(s.metadata_json, '$.operator') AS operator,
+        json_extract(s.metadata_json, '$.N_Dw') AS N_Dw,
+        coalesce(json_extract(s.metadata_json, '$.N_Dw_unit'), 'Gy/nC') AS N_Dw_unit,
+        json_extract(s.metadata_json, '$.k_Q') AS k_Q,
+        json_extract(s.metadata_json, '$.k_Q_source') AS k_Q_source,
+        json_extract(s.metadata_json, '$.expected_cGy_per_MU') AS expected_cGy_per_MU,
+        json_extract(s.metadata_json, '$.calibration_date') AS calibration_date,
+        (SELECT count(*) FROM readings r WHERE r.session_id = s.id AND r.settling = 0)
+            AS readings_used,
+        (SELECT json_extract(e.detail_json, '$.status') FROM events e
+            WHERE e.session_id = s.id AND e.kind = 'session_reviewed' ORDER BY e.id LIMIT 1)
+            AS review,
+        (SELECT json_extract(e.detail_json, '$.reviewer') FROM events e
+            WHERE e.session_id = s.id AND e.kind = 'session_reviewed' ORDER BY e.id LIMIT 1)
+            AS reviewer,
+        s.replay_of AS replay_of_session_id
+    FROM sessions s;
+    CREATE VIEW reading_overview AS
+    SELECT
+        r.id AS reading_id,
+        r.session_id,
+        r.set_id,
+        rs.step_index,
+        rs.purpose,
+        rs.polarity,
+        rs.bias_V,
+        rs.attempt,
+        rs.status AS set_status,
+        r.seq,
+        r.charge_nC,
+        r.settling,
+        r.capture,
+        r.status AS instrument_status,
+        r.t_s,
+        r.recorded_at AS recorded_at_utc
+    FROM readings r JOIN reading_sets rs ON rs.id = r.set_id;
+    CREATE VIEW traffic_text AS
+    SELECT
+        id AS line_id,
+        session_id,
+        t_s,
+        recorded_at AS recorded_at_utc,
+        CASE direction WHEN 'tx' THEN 'sent' ELSE 'received' END AS direction,
+        rtrim(CAST(line AS TEXT), char(13, 10)) AS line_text,
+        hex(line) AS line_hex
+    FROM traffic;
+"""
+
+
+def _browse_views(db: Database) -> None:
+    """Add the read-only views of :data:`_BROWSE_VIEWS` (``session_overview``,
+    ``reading_overview``, ``traffic_text``)."""
+    for statement in _BROWSE_VIEWS.split(";"):
+        if statement.strip():
+            db.execute(statement)
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
@@ -485,6 +563,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("chain_appended_rows", _chain_appended_rows),
     Migration("station_identity", _station_identity),
     Migration("registers", _registers),
+    Migration("browse_views", _browse_views),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

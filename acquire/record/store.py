@@ -38,7 +38,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 from chargebook.acquire.record import chain, events
 from chargebook.acquire.record.events import EventKind
@@ -57,6 +57,9 @@ from chargebook.acquire.record.migrations import (
 )
 from chargebook.corrections.errors import InputError
 from sqlite_utils import Database
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 __all__ = [
     "CAPTURE_MODES",
@@ -997,6 +1000,31 @@ class Store:
             ).fetchall()
         return {int(row_id): int(seq) for row_id, seq in rows}
 
+    def chained_rows(
+        self, table: str, session_id: int | None, after_seq: int = 0
+    ) -> list[tuple[Any, ...]]:
+        """Return the rows of the chained ``table`` that belong to session ``session_id`` (None:
+        outside sessions) past place ``after_seq`` of its chain, ordered by id: the values of
+        ``chain.COLUMNS[table]``, then ``chain_seq`` and ``chain_hash`` (for ``verify`` and
+        ``publish``)."""
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        owner = "id" if table == "sessions" else "session_id"
+        sql = (
+            f"SELECT {', '.join(chain.COLUMNS[table])}, chain_seq, chain_hash FROM {table} "
+            f"WHERE {owner} IS ? AND (chain_seq IS NULL OR chain_seq > ?) ORDER BY id"
+        )
+        return self.read(sql, (session_id, after_seq))
+
+    def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
+        """Return (place, hash) of the last row the store recorded in the session's chain
+        (None: outside sessions), or None when it recorded none."""
+        found = self.read(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
+            (chain.chain_key(session_id),),
+        )
+        return (int(found[0][0]), str(found[0][1])) if found else None
+
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
         """Return the newest event of one of ``kinds``, in any session or none; None if none."""
         marks = ", ".join("?" for _ in kinds)
@@ -1131,3 +1159,8 @@ def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
     columns = list(row)
     columns[_SETTLING] = bool(columns[_SETTLING])
     return ReadingRow(*columns)
+
+
+if TYPE_CHECKING:
+    # The type checker holds the station file's store to the read side the reports use.
+    _READS_AS_A_STATION: type[RecordReader] = Store

@@ -21,6 +21,7 @@ from typing import Any
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.registers import register_row_problems
 from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
@@ -80,7 +81,7 @@ class ChainReport:
         return "\n".join(lines)
 
 
-def verify_session(store: Store, session_id: int | None) -> ChainReport:
+def verify_session(store: RecordReader, session_id: int | None) -> ChainReport:
     """Return the check of the chain of session ``session_id`` (None: rows outside sessions).
 
     Raises ``NotFound`` for a session id that is not in the database.
@@ -95,7 +96,7 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_statuses(store, session_id, events)
         problems += _check_uuid(store, session_id, events)
-    else:
+    elif isinstance(store, Store):  # a station file's registers (the department holds none)
         problems += [
             Problem("register_rows", row_id, None, words)
             for row_id, words in register_row_problems(store)
@@ -118,18 +119,15 @@ def verify_all(store: Store) -> list[ChainReport]:
 Chained = tuple[str, tuple[Any, ...], int, str]
 
 
-def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], list[Problem]]:
+def _chained_rows(
+    store: RecordReader, session_id: int | None
+) -> tuple[list[Chained], list[Problem]]:
     """Return the chain's rows (table, values, seq, hash) in chain order, and the rows that have
     no place in it."""
     rows: list[Chained] = []
     problems: list[Problem] = []
-    for table, columns in chain.COLUMNS.items():
-        owner = "id" if table == "sessions" else "session_id"
-        sql = (
-            f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-            f"WHERE {owner} IS ? ORDER BY id"
-        )
-        for *values, seq, digest in store.read(sql, (session_id,)):
+    for table in chain.CHAINED_TABLES:
+        for *values, seq, digest in store.chained_rows(table, session_id):
             if seq is None or digest is None:
                 problems.append(
                     Problem(
@@ -178,12 +176,9 @@ def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
     return previous, problems
 
 
-def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> list[Problem]:
+def _check_head(store: RecordReader, session_id: int | None, rows: list[Chained]) -> list[Problem]:
     """Return a problem when the chain ends before the end the store recorded."""
-    heads = store.read(
-        "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (chain.chain_key(session_id),)
-    )
-    found = heads[0] if heads else None
+    found = store.chain_head(session_id)
     last_seq, last_hash = (rows[-1][2], rows[-1][3]) if rows else (0, chain.GENESIS)
     if found is None:
         if rows:
@@ -205,7 +200,9 @@ def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> li
     return []
 
 
-def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_statuses(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return the session and sets whose status, reason or end time is not the one their last
     status event in the chain gave them."""
     kind_at = chain.COLUMNS["events"].index("kind")
@@ -238,7 +235,9 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     return problems
 
 
-def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_uuid(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return a problem when the session's UUID is not the one its chain recorded: the one in
     its ``session_created`` event, or (a session recorded before sessions had UUIDs) the one
     the migration derives from the station's UUID and the session id."""

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import Review, review_of
 from chargebook.acquire.record.store import (
     EnvironmentRow,
@@ -26,7 +27,6 @@ from chargebook.acquire.record.store import (
     SessionRow,
     SetRow,
     StationRow,
-    Store,
 )
 from chargebook.acquire.record.verify import ChainReport, verify_session
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session, stored_context
@@ -120,7 +120,7 @@ def _worth_auditing(event: EventRow) -> bool:
 
 
 def instrument_identity(
-    store: Store, session: SessionRow, events: tuple[EventRow, ...]
+    store: RecordReader, session: SessionRow, events: tuple[EventRow, ...]
 ) -> dict[str, Any] | None:
     """Return the instrument identity the daemon recorded for the session, or None.
 
@@ -136,7 +136,7 @@ def instrument_identity(
     return found[-1].detail() if found else None
 
 
-def load_record(store: Store, session_id: int, *, check_chain: bool = True) -> SessionRecord:
+def load_record(store: RecordReader, session_id: int, *, check_chain: bool = True) -> SessionRecord:
     """Return the session's stored record with results recomputed; NotFound if it is missing.
 
     ``integrity`` is the check of the session's hash chain (``verify``), unless ``check_chain``

@@ -43,7 +43,7 @@ from importlib import metadata as package_metadata
 from typing import Any
 
 from chargebook.acquire.protocol import CAUTION
-from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.reports.data import SessionRecord, plain
 from chargebook.acquire.session.numbering import reading_labels
 
@@ -166,7 +166,7 @@ def to_csv(record: SessionRecord) -> str:
 
 
 def to_json_data(
-    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+    record: SessionRecord, store: RecordReader | None = None, include_traffic: bool = False
 ) -> dict[str, Any]:
     """Return the session as a JSON-ready dict with the keys of :data:`JSON_KEYS`."""
     session = plain(record.session)
@@ -206,7 +206,7 @@ def to_json_data(
 
 
 def to_json(
-    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+    record: SessionRecord, store: RecordReader | None = None, include_traffic: bool = False
 ) -> str:
     """Return the session as JSON text (see :func:`to_json_data`), strict: no NaN."""
     data = to_json_data(record, store, include_traffic)

@@ -20,6 +20,7 @@ SCRIPTS = [
     "reanalysis",
     "startup",
     "console_latency",
+    "publish",
     pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
 ]
 
