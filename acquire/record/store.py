@@ -65,6 +65,7 @@ __all__ = [
     "TRAFFIC_DIRECTIONS",
     "EnvironmentRow",
     "EventRow",
+    "InputRow",
     "NotFound",
     "ReadingRow",
     "SchemaTooNew",
@@ -273,6 +274,23 @@ class EventRow:
 
 
 @dataclass(frozen=True, slots=True)
+class InputRow:
+    """One input that changed a session, as logged: its ``kind`` (an ``inputs`` record's),
+    who gave it (``actor``) and its fields (``detail()``); see ``acquire/engine/inputs.py``."""
+
+    id: int
+    session_id: int | None
+    recorded_at: str
+    kind: str
+    actor: str
+    detail_json: str
+    account: str | None = None
+
+    def detail(self) -> dict[str, Any]:
+        return json.loads(self.detail_json)
+
+
+@dataclass(frozen=True, slots=True)
 class TrafficRow:
     """One raw line sent to (``tx``) or received from (``rx``) the instrument."""
 
@@ -284,7 +302,7 @@ class TrafficRow:
     line: bytes
 
 
-Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
@@ -991,6 +1009,34 @@ class Store:
     def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
         """Return the session's events newer than ``event_id``, oldest first."""
         return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
+
+    # ------------------------------------------------------------------------- input log
+
+    def add_inputs(self, session_id: int | None, entries: Sequence[tuple[str, str, dict]]) -> int:
+        """Log inputs that changed the session, each (kind, actor, detail), in order, in one
+        transaction (the caller's, when inside :meth:`atomic`); return the last one's id."""
+        row_id = 0
+        with self.atomic():
+            for kind, actor, detail in entries:
+                row_id = self._append(
+                    "inputs",
+                    {
+                        "session_id": session_id,
+                        "recorded_at": self._stamp(),
+                        "kind": _require_text("kind", kind),
+                        "actor": _require_text("actor", actor),
+                        "detail_json": _to_json("detail", detail),
+                        "account": self._account,
+                    },
+                )
+        return row_id
+
+    def inputs(self, session_id: int | None) -> list[InputRow]:
+        """Return the session's logged inputs in the order they were applied (``None``:
+        inputs outside any session)."""
+        if session_id is None:
+            return self._select(InputRow, "inputs", "session_id IS NULL")
+        return self._select(InputRow, "inputs", "session_id = ?", (session_id,))
 
     # ---------------------------------------------------------------------------- traffic
 
