@@ -431,16 +431,18 @@ class Engine:
         metadata, plan, actor = given.metadata, given.plan, given.actor
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
-        checked = rules.validate_metadata(
-            carried_metadata(
-                self.store, rules.validate_metadata(metadata), resolved, self.store.stamp()[:10]
+        checked = rules.validate_metadata(metadata)
+        if given.replay_of is None:
+            today = self.store.stamp()[:10]
+            checked = rules.validate_metadata(
+                carried_metadata(self.store, checked, resolved, today)
             )
-        )
         session_id = self.store.create_session(
             metadata=checked,
             plan=resolved.to_dict(),
             convention=str(checked["convention"]),
             beam=str(checked["beam"]),
+            replay_of=given.replay_of,
             actor=actor,
         )
         self.session_id, self.plan, self.metadata = session_id, resolved, checked

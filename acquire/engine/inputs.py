@@ -53,12 +53,17 @@ def _logged(value: Any) -> Any:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class StartSession(Input):
-    """Open a session: its metadata, and a plan (name, dict or Plan; None: the default)."""
+    """Open a session: its metadata, and a plan (name, dict or Plan; None: the default).
+
+    ``replay_of``: the session a replay starts again (its metadata taken as recorded, carried
+    factors included: nothing is looked up again).
+    """
 
     kind: ClassVar[str] = "session_start"
     method: ClassVar[str | None] = Method.SESSION_START
     metadata: dict[str, Any]
     plan: Any = None
+    replay_of: int | None = None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

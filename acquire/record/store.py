@@ -601,15 +601,6 @@ class Store:
             raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
         return found[0]
 
-    def append_row(self, table: str, row: dict[str, Any]) -> int:
-        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
-        and commit it; return its id. For copying a recorded session (a replay): the recording
-        methods above check their values, this one does not."""
-        if table not in chain.CHAINED_TABLES:
-            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
-        with self.atomic():
-            return self._append(table, row)
-
     def _append(self, table: str, row: dict[str, Any]) -> int:
         """Append one row to a chained table, linked to its session's chain; return its id.
 

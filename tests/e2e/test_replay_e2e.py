@@ -17,6 +17,7 @@ from __future__ import annotations
 import asyncio
 import hashlib
 import json
+import os
 import shutil
 import sqlite3
 import subprocess
@@ -32,6 +33,7 @@ from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import (
@@ -307,6 +309,25 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
         assert evaluate_session(store, replay_id).results() == results
         assert report["results_compared"] == len(results)
         SESSION_CHECKS[which](store, replay_id)
+        fed_from_the_input_log(store, original_id, replay_id)
+
+
+def fed_from_the_input_log(store: Store, original_id: int, replay_id: int) -> None:
+    """Check that the replay took exactly the original's logged inputs, in order: the same
+    kinds, fields and engine clocks, by the same actors (replayed), each sample parsed again
+    from a line of the same bytes."""
+    old_log, new_log = store.inputs(original_id), store.inputs(replay_id)
+    assert len(old_log) > 10
+    assert [(r.kind, f"{r.actor} (replayed)") for r in old_log] == [
+        (r.kind, r.actor) for r in new_log
+    ]
+    for before, after in zip(old_log[1:], new_log[1:], strict=True):  # after the start
+        old_fields, new_fields = before.detail(), after.detail()
+        if before.kind == "sample":
+            old_line = line_of(store, original_id, old_fields.pop("line_id"))
+            assert old_line is not None
+            assert line_of(store, replay_id, new_fields.pop("line_id")) == old_line
+        assert new_fields == old_fields
 
 
 def step_the_clock_back(db: Path, session_id: int, seconds: float) -> None:
@@ -588,6 +609,37 @@ def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(
     before = file_state(db)
     status, message = replay_in_process(capsys, db, open_id, "--speed", "0")
     assert status == 2 and f"session {open_id} is still open" in message
+    assert file_state(db) == before
+
+
+def test_a_replay_into_a_station_file_a_daemon_holds_is_refused_naming_it(station: Station, capsys):
+    db = copy_of(station, "held.sqlite")
+    before = file_state(db)
+    with StationLock(db):  # as a running daemon holds it
+        status, message = replay_in_process(capsys, db, station.clean, "--speed", "0")
+        assert status == 2 and "the replay cannot be stored" in message
+        assert f"in use by another chargebook daemon (pid {os.getpid()})" in message
+        assert "--dry-run replays without writing anything" in message
+        assert file_state(db) == before
+        # a dry run writes nothing, so the daemon's hold does not stop it
+        dry = replay(db, station.clean, "--speed", "0", "--dry-run", "--json")
+        assert dry.returncode == 0, dry.stderr
+        assert json.loads(dry.stdout)["reproduced"] is True
+    assert file_state(db) == before
+
+
+def test_a_session_recorded_before_the_input_log_is_refused_saying_why(station: Station, capsys):
+    db = copy_of(station, "before-the-input-log.sqlite")
+    conn = sqlite3.connect(db)
+    with conn:  # the session as an older chargebook left it: no input log
+        conn.execute("DROP TRIGGER inputs_refuse_delete")
+        conn.execute("DELETE FROM inputs WHERE session_id = ?", (station.clean,))
+    conn.close()
+    before = file_state(db)
+    status, message = replay_in_process(capsys, db, station.clean, "--speed", "0")
+    assert status == 2
+    assert f"session {station.clean} was recorded before the input log" in message
+    assert "cannot be replayed exactly" in message
     assert file_state(db) == before
 
 
