@@ -16,9 +16,10 @@ from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_session
+from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 from chargebook.drivers_generic.interface import Capability
 
-from tests.acquire.test_engine import METADATA, Clock, deliver, small_plan
+from tests.acquire.test_engine import CAPTURE, METADATA, Clock, deliver, small_plan
 
 S = EngineState
 OPERATOR = "operator A"
@@ -60,12 +61,28 @@ def record_every_kind(engine: Engine, clock: Clock) -> int:
     return session_id
 
 
-def replay_log(store: Store, session_id: int, path: Path) -> Engine:
-    """Apply the session's logged inputs, in order, to a new engine on a new file."""
-    engine = Engine(Store.open(path), capabilities=CAPS, clock=lambda: float("nan"))
+def replay_log(store: Store, session_id: int, path: Path, caps: set = CAPS) -> Engine:
+    """Apply the session's logged inputs, in order, to a new engine on a new file (a new
+    engine for a logged restart, as a daemon started again)."""
+    engine = Engine(Store.open(path), capabilities=caps, clock=lambda: float("nan"))
     for row in store.inputs(session_id):
-        engine.apply(inputs.from_logged(row.kind, row.actor, row.detail()))
+        given = inputs.from_logged(row.kind, row.actor, row.detail())
+        if isinstance(given, inputs.Restart):
+            engine = Engine(engine.store, capabilities=caps, clock=lambda: float("nan"))
+        engine.apply(given)
     return engine
+
+
+def facts(store: Store, session_id: int) -> tuple[list, list, list]:
+    """Return the session's readings, sets and events, less what the wall clock stamps."""
+    readings = [(r.set_id, r.seq, r.t_s, r.charge_nC, r.capture, r.settling) for r in
+                store.readings(session_id)]  # fmt: skip
+    sets = [(s.step_key, s.attempt, s.status, s.reason) for s in store.sets(session_id)]
+    events = [(e.kind, e.actor, e.detail()) for e in store.events(session_id)]
+    for _, _, detail in events:
+        for stamped in ("uuid", "ended_at", "closed_at", "pid"):  # random or the wall clock's
+            detail.pop(stamped, None)
+    return readings, sets, events
 
 
 def test_every_input_is_logged_in_order_with_its_parameters_and_actor(tmp_path: Path) -> None:
@@ -103,18 +120,7 @@ def test_the_logged_inputs_applied_again_give_the_same_record(tmp_path: Path) ->
     session_id = record_every_kind(engine, clock)
     again = replay_log(engine.store, session_id, tmp_path / "again.sqlite")
 
-    def facts(store: Store) -> tuple[list, list, list]:
-        readings = [(r.set_id, r.seq, r.t_s, r.charge_nC, r.capture, r.settling) for r in
-                    store.readings(session_id)]  # fmt: skip
-        sets = [(s.step_key, s.attempt, s.status, s.reason) for s in store.sets(session_id)]
-        events = [(e.kind, e.actor, e.detail()) for e in store.events(session_id)]
-        for _, _, detail in events:
-            detail.pop("uuid", None)  # each session gets a new random uuid
-            detail.pop("ended_at", None)  # wall-clock stamps of the store
-            detail.pop("closed_at", None)
-        return readings, sets, events
-
-    assert facts(again.store) == facts(engine.store)
+    assert facts(again.store, session_id) == facts(engine.store, session_id)
     assert again.store.session(session_id).status == "aborted"
     assert [r.kind for r in again.store.inputs(session_id)] == [
         r.kind for r in engine.store.inputs(session_id)
@@ -205,3 +211,52 @@ def test_a_request_becomes_its_input_and_a_logged_row_the_same_input_again() -> 
     # every operator action of the protocol has its input
     assert set(inputs.BY_METHOD) == {m for m in Method if m.startswith(("session.", "step.",
         "reading.", "set.", "environment."))} - {Method.SESSION_REVIEW}  # fmt: skip
+
+
+def test_a_settling_wait_a_restart_a_skip_and_a_stop_apply_again_from_the_log(
+    tmp_path: Path,
+) -> None:
+    waits = SettlingRule(wait_s=5.0)
+    steps = (
+        Step("routine", "routine", 1, 300.0, 1, 100.0, waits),
+        Step("check", "return_check", 1, 300.0, 1, 100.0, optional=True),
+        Step("reduced", "reduced", 1, 100.0, 1, 100.0),
+    )
+    plan = Plan("waits", steps, 300.0, 100.0, capture=CAPTURE)
+    clock = Clock()
+    path = tmp_path / "station.sqlite"
+    caps = {Capability.SET_BIAS, *CAPS}
+    engine = Engine(Store.open(path), capabilities=caps, clock=clock)
+    session_id = engine.start_session(METADATA, plan, actor=OPERATOR)
+    engine.set_environment(20.0, 101.325, actor=OPERATOR)
+    engine.arm(actor=OPERATOR)
+    clock.now += 1.0
+    engine.tick()  # the wait goes on: not an input
+    clock.now += 5.0
+    engine.tick()  # the wait is over: the reading is armed at this clock
+    clock.now += 0.1
+    engine.on_sample(clock.now, 2.0)
+    engine.store.close()  # the daemon dies here, with a reading under way
+    revived = Engine(Store.open(path), capabilities=caps, clock=clock)
+    assert revived.restore() is True and revived.state is S.INTERRUPTED
+    revived.arm(actor=OPERATOR)  # continue the interrupted set: no wait, the bias is set
+    clock.now += 6.0
+    revived.tick()  # no wait to end: not an input
+    deliver(revived, clock, 20.0)
+    revived.accept(actor=OPERATOR)
+    revived.skip(actor=OPERATOR)
+    revived.stop("only the routine output was needed", actor=OPERATOR)
+    logged = revived.store.inputs(session_id)
+    kinds = [row.kind for row in logged if row.kind != "sample"]
+    assert kinds == [
+        "session_start", "environment", "arm", "tick", "restart", "arm", "accept", "skip",
+        "stop",
+    ]  # fmt: skip
+    ticks = [row.detail()["clock_s"] for row in logged if row.kind == "tick"]
+    assert ticks == [1006.0]
+    # the sample taken before the crash died with it; the log holds what the record holds
+    again = replay_log(revived.store, session_id, tmp_path / "again.sqlite", caps)
+    assert facts(again.store, session_id) == facts(revived.store, session_id)
+    assert again.store.session(session_id).status == "finished"
+    revived.store.close()
+    again.store.close()
