@@ -1005,22 +1005,36 @@ class Store:
 
     def add_inputs(self, session_id: int | None, entries: Sequence[tuple[str, str, dict]]) -> int:
         """Log inputs that changed the session, each (kind, actor, detail), in order, in one
-        transaction (the caller's, when inside :meth:`atomic`); return the last one's id."""
-        row_id = 0
+        transaction (the caller's, when inside :meth:`atomic`); return the last one's id.
+
+        Written in one pass, like raw lines: a reading may bring thousands of samples with it.
+        """
+        stamp = self._stamp()
+        rows = [
+            (
+                session_id,
+                stamp,
+                _require_text("kind", kind),
+                _require_text("actor", actor),
+                _to_json("detail", detail),
+                self._account,
+            )
+            for kind, actor, detail in entries
+        ]
         with self.atomic():
-            for kind, actor, detail in entries:
-                row_id = self._append(
-                    "inputs",
-                    {
-                        "session_id": session_id,
-                        "recorded_at": self._stamp(),
-                        "kind": _require_text("kind", kind),
-                        "actor": _require_text("actor", actor),
-                        "detail_json": _to_json("detail", detail),
-                        "account": self._account,
-                    },
-                )
-        return row_id
+            next_id = self._next_id("inputs")
+            key = chain.chain_key(session_id)
+            seq, digest = self._chain_head(key)
+            chained = []
+            for offset, row in enumerate(rows):
+                values = (next_id + offset, *row)
+                seq += 1
+                digest = chain.link(digest, seq, "inputs", values)
+                chained.append((*values, seq, digest))
+            self.db.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            if chained:
+                self._set_chain_head(key, seq, digest)
+        return next_id + len(rows) - 1 if rows else 0
 
     def inputs(self, session_id: int | None) -> list[InputRow]:
         """Return the session's logged inputs in the order they were applied (``None``:
@@ -1116,8 +1130,9 @@ class Store:
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_CHAINED = {
-    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
-    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
+    table: f"INSERT INTO {table} ({', '.join(chain.COLUMNS[table])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS[table])}, ?, ?)"
+    for table in ("traffic", "inputs")
 }
 
 
