@@ -52,6 +52,7 @@ pytestmark = [pytest.mark.e2e, pytest.mark.slow]
 TIME_SCALE = 0.01
 REDO_REASON = "spike on the first routine reading"
 ABORT_REASON = "phantom moved"
+STOP_REASON = "only the leakage and routine sets were needed"
 
 
 @dataclass(frozen=True)
@@ -65,6 +66,7 @@ class Station:
     aborted: int
     interrupted: int
     pushed: int
+    stopped: int
 
 
 def start_simulator(work: Path, profile: str = "query-plain") -> SimulatorProcess:
@@ -108,7 +110,7 @@ def collecting(step: int, readings_done: int):
 async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProcess):
     """Record a session whose routine set is spiked and redone, one paused, captured by hand
     and aborted mid-set, and one interrupted twice: the cable pulled, then the daemon killed."""
-    redone, aborted = await record_redo_and_abort(daemon, simulator)
+    redone, aborted, stopped = await record_redo_abort_and_stop(daemon, simulator)
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -129,7 +131,7 @@ async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProc
     )
     await client.close()
     assert final["session"]["id"] == snapshot["session"]["id"]
-    return redone, aborted, final["session"]["id"]
+    return redone, aborted, final["session"]["id"], stopped
 
 
 async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
@@ -145,9 +147,9 @@ async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
     pytest.fail("no sample arrived for the reading under way")
 
 
-async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProcess):
+async def record_redo_abort_and_stop(daemon: DaemonProcess, simulator: SimulatorProcess):
     """Record a session whose routine set is spiked and redone, then one paused, resumed,
-    captured by hand and aborted mid-set."""
+    captured by hand and aborted mid-set, then one stopped early mid-set."""
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -166,8 +168,11 @@ async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProce
     await operator.run_until(snapshot, collecting(1, 1))
     await capture_by_hand(client)  # the second routine reading, mid-beam
     aborted = await client.call("session.abort", reason=ABORT_REASON, confirm=True)
+    snapshot = await operator.start(demo_metadata())
+    await operator.run_until(snapshot, collecting(1, 2))
+    stopped = await client.call("session.stop", reason=STOP_REASON)
     await client.close()
-    return redone["session"]["id"], aborted["session"]["id"]
+    return redone["session"]["id"], aborted["session"]["id"], stopped["session"]["id"]
 
 
 @pytest.fixture(scope="module")
@@ -184,7 +189,8 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
         daemon = DaemonProcess(args, work / "run" / "daemon.sock", db, work / "daemon.log")
         daemon.start()
         try:
-            redone, aborted, interrupted = asyncio.run(record_with_the_daemon(daemon, simulator))
+            recorded = asyncio.run(record_with_the_daemon(daemon, simulator))
+            redone, aborted, interrupted, stopped = recorded
         finally:
             daemon.stop()
     finally:
@@ -194,7 +200,7 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
         pushed = run_unattended(pushing, db)
     finally:
         stop_process(pushing.process)
-    yield Station(db, work, clean, redone, aborted, interrupted, pushed)
+    yield Station(db, work, clean, redone, aborted, interrupted, pushed, stopped)
 
 
 def copy_of(station: Station, name: str) -> Path:
@@ -276,12 +282,19 @@ def bias_turned_by_hand(store: Store, replay_id: int) -> None:
     assert {r.capture for r in store.readings(replay_id)} >= {"pushed"}
 
 
+def stopped_early(store: Store, replay_id: int) -> None:
+    session = store.session(replay_id)
+    assert (session.status, session.reason) == ("finished", STOP_REASON)
+    assert store.sets(replay_id)[-1].status == "aborted"  # the set under way when stopped
+
+
 SESSION_CHECKS = {
     "clean": lambda store, replay_id: None,
     "pushed": bias_turned_by_hand,
     "redone": redo_kept_with_its_reason,
     "aborted": pause_capture_and_abort_kept,
     "interrupted": interruptions_where_they_happened,
+    "stopped": stopped_early,
 }
 
 
