@@ -212,7 +212,8 @@ class Conductor:
         )
 
     def _call(self, call: Callable[[], Any]) -> Any:
-        """Run a transport call; an error the original also met is recorded in the lines."""
+        """Run a transport call; an instrument error (the playback did not answer as the
+        recording says it did) is a divergence."""
         try:
             return call()
         except InstrumentError as error:
