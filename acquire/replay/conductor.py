@@ -32,7 +32,8 @@ from collections.abc import Callable
 from typing import Any
 
 from chargebook.acquire.engine import inputs
-from chargebook.acquire.engine.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.engine.driver_commands import Command, SetBias
+from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState as S
 from chargebook.acquire.replay.recording import LoggedInput, RecordedLine, Recording
@@ -166,7 +167,7 @@ class Conductor:
             if command.action == name:
                 for _ in range(index + 1):  # the ones before it were never sent
                     self.pending.popleft()
-                arguments = {"volts": command.value} if command.action == "set_bias" else {}
+                arguments = {"volts": command.bias_V} if isinstance(command, SetBias) else {}
                 return self.driver.profile.command(name).render(**arguments)[0]
         return text
 
@@ -277,6 +278,7 @@ class Conductor:
         if engine.active is None or engine.state not in (S.SETTLING, S.COLLECTING):
             return ""
         step = engine.step
+        assert step is not None  # a set is being taken: its step is current
         return (
             f"; the plan still collects step '{step.key}' after {engine.active.used_count} of "
             f"its {step.readings} readings: the recording holds no more readings for it"

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind, Replay
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.conductor import Conductor, Pacer, WhatIfStop
 from chargebook.acquire.replay.recording import RecordedLine, Recording
@@ -30,8 +31,6 @@ from chargebook.corrections.stability import Thresholds
 
 #: Who the replay names as the actor of the events it writes itself.
 REPLAY_ACTOR = "replay"
-#: The event a replayed session starts with: what was replayed, and how.
-REPLAY_EVENT = "replay"
 
 
 @dataclass(frozen=True)
@@ -66,7 +65,7 @@ def replayed(actor: str) -> str:
 
 
 def run_pipeline(
-    setup: Setup, speed: float, detail: dict[str, Any], store: Store, replay_of: int | None
+    setup: Setup, speed: float, detail: Replay, store: Store, replay_of: int | None
 ) -> PipelineRun:
     """Run the recording through the playback simulator, the driver and the engine, which
     writes the replayed session to ``store`` through the store's API (as a replay of session
@@ -106,7 +105,7 @@ def run_pipeline(
 def _play(
     setup: Setup,
     speed: float,
-    detail: dict[str, Any],
+    detail: Replay,
     follower: TrafficFollower,
     driver: Any,
     store: Store,
@@ -126,7 +125,7 @@ def _play(
     )
     session_id = engine.apply(start)
     follower.attach(store, session_id)
-    store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
+    store.add_event(session_id, REPLAY_ACTOR, EventKind.REPLAY, detail)
     conductor = Conductor(
         engine,
         driver,

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.engine import inputs
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import EventRow, InputRow, SessionRow, Store, TrafficRow
 from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
@@ -190,9 +191,9 @@ def _acquisition(events: Sequence[EventRow]) -> tuple[str | None, float | None]:
     profile: str | None = None
     for event in events:
         detail = event.detail()
-        if event.kind == rules.ACQUISITION_EVENT:
+        if event.kind == EventKind.ACQUISITION:
             profile = detail.get("profile") or profile
-        elif event.kind == "instrument_identified" and profile is None:
+        elif event.kind == EventKind.INSTRUMENT_IDENTIFIED and profile is None:
             profile = detail.get("profile")
     return profile, rules.recorded_time_scale(events)
 
@@ -229,9 +230,10 @@ def _after_event(
     if reading_set is None:
         return current
     name = f"reading set '{reading_set.step_key}' (attempt {reading_set.attempt})"
-    if event.kind == "reading_recorded":
+    if event.kind == EventKind.READING_RECORDED:
         readings[set_id] = readings.get(set_id, 0) + 1
     taken = readings.get(set_id, 0)
-    if event.kind == "set_status" and detail.get("to") in ("accepted", "superseded", "aborted"):
+    ended = detail.get("to") in ("accepted", "superseded", "aborted")
+    if event.kind == EventKind.SET_STATUS and ended:
         return f"after {name} ended {detail['to']}"
     return f"in {name} after {taken} reading{'s' if taken != 1 else ''}"

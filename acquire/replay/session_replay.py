@@ -32,6 +32,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind, Replay, ReplayNotReproduced
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.compare import (
     Change,
@@ -89,10 +90,6 @@ class ReplayRequest:
     time_scale: float | None = None
     dry_run: bool = False
     keep: bool = False
-
-
-#: The event that marks a stored replay of an edited traffic log that did not reproduce.
-NOT_REPRODUCED_EVENT = "replay_not_reproduced"
 
 
 @dataclass
@@ -215,7 +212,7 @@ def _into_station(
     setup: Setup,
     changes: list[Change],
     request: ReplayRequest,
-    detail: dict[str, Any],
+    detail: Replay,
 ) -> tuple[PipelineRun, Comparison, str | None]:
     """Replay into the station file, in one transaction, holding the station's lock: the engine
     writes the session through the store's API, and the transaction is committed only for a
@@ -275,12 +272,12 @@ def _mark_not_reproduced(station: Store, replay_id: int, request: ReplayRequest)
     """Record that a replay of a traffic log was kept although it does not reproduce."""
     from chargebook.acquire.replay.pipeline import REPLAY_ACTOR
 
-    detail = {
-        "traffic_log": str(request.traffic_log),
-        "why": "stored with --keep although this traffic log does not reproduce the session "
+    kept = ReplayNotReproduced(
+        traffic_log=str(request.traffic_log),
+        why="stored with --keep although this traffic log does not reproduce the session "
         "it replays",
-    }
-    station.add_event(replay_id, REPLAY_ACTOR, NOT_REPRODUCED_EVENT, detail)
+    )
+    station.add_event(replay_id, REPLAY_ACTOR, EventKind.REPLAY_NOT_REPRODUCED, kept)
 
 
 def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | None) -> int:
@@ -319,12 +316,12 @@ def _given_or_recorded(recording: Recording, given: Any, recorded: Any, what: st
     return value
 
 
-def _replay_detail(recording: Recording, request: ReplayRequest) -> dict[str, Any]:
+def _replay_detail(recording: Recording, request: ReplayRequest) -> Replay:
     """Return the detail of the event a replayed session starts with."""
-    return {
-        "replay_of": recording.session_id,
-        "speed": request.speed,
-        "traffic_log": str(request.traffic_log) if request.traffic_log else None,
-        "plan": request.plan,
-        "thresholds": request.thresholds or None,
-    }
+    return Replay(
+        replay_of=recording.session_id,
+        speed=request.speed,
+        traffic_log=str(request.traffic_log) if request.traffic_log else None,
+        plan=request.plan,
+        thresholds=request.thresholds or None,
+    )

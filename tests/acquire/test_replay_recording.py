@@ -10,6 +10,8 @@ from datetime import UTC, datetime, timedelta
 
 import pytest
 from chargebook.acquire.engine import inputs
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.recording import (
     NotReplayable,
@@ -133,8 +135,8 @@ def test_a_session_that_starts_mid_exchange_gets_the_command_from_before_it(stor
 
 def test_the_profile_and_time_scale_come_from_the_acquisition_event(store: Store):
     session_id = started(store)
-    detail = {"profile": "push-exponent", "time_scale": 0.02}
-    store.add_event(session_id, "daemon", "acquisition", detail)
+    detail = ev.Acquisition(profile="push-exponent", time_scale=0.02)
+    store.add_event(session_id, "daemon", EventKind.ACQUISITION, detail)
     store.set_session_status(session_id, "finished")
     recording = load_recording(store, session_id)
     assert (recording.profile, recording.time_scale) == ("push-exponent", 0.02)
@@ -149,11 +151,19 @@ def test_an_open_session_is_not_replayable(store: Store):
 def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
     session_id = started(store)
     set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
-    store.add_event(
-        session_id, "operator A", "state_changed", {"action": "step.arm", "set_id": set_id}
-    )
+    armed = {"from": "waiting_for_operator", "to": "collecting", "action": "step.arm"}
+    store.add_event(session_id, "operator A", EventKind.STATE_CHANGED, {**armed, "set_id": set_id})
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
-    store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "set_id": set_id})
+    recorded = ev.ReadingRecorded(
+        reading_id=1,
+        set_id=set_id,
+        charge_nC=19.6,
+        capture="auto",
+        settling=False,
+        integration_s=0.5,
+        armed_t_s=0.501,
+    )
+    store.add_event(session_id, "daemon", EventKind.READING_RECORDED, recorded)
     exchange(store, session_id, 2.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
     store.set_set_status(set_id, "reviewing")
     store.set_set_status(set_id, "accepted")
