@@ -34,7 +34,6 @@ import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine import driver_commands, inputs
@@ -65,8 +64,8 @@ DAEMON_ACTOR = inputs.DAEMON_ACTOR
 UNCHANGED = object()
 #: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
 Results = tuple[dict[str, Any] | None, bool, str | None]
-#: A plan as the engine may be given it: a Plan, a shipped plan's name, a TOML path, a plan dict.
-PlanSource = Plan | str | Path | Mapping[str, Any]
+#: A plan as the engine may be given it (see :mod:`inputs`).
+PlanSource = inputs.PlanSource
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
 

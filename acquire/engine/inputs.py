@@ -16,13 +16,18 @@ the engine reads no other clock while applying an input, so the log holds every 
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Mapping
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, ClassVar
 
 from chargebook.acquire.protocol import Method
+from chargebook.acquire.session.plan import Plan
 
 #: Who the daemon names as the actor of the inputs it gives itself (samples, ticks, ...).
 DAEMON_ACTOR = "daemon"
+#: A plan as the engine may be given it: a Plan, a shipped plan's name, a TOML path, a plan dict.
+PlanSource = Plan | str | Path | Mapping[str, Any]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -62,7 +67,7 @@ class StartSession(Input):
     kind: ClassVar[str] = "session_start"
     method: ClassVar[str | None] = Method.SESSION_START
     metadata: dict[str, Any]
-    plan: Any = None
+    plan: PlanSource | None = None
     replay_of: int | None = None
 
 

@@ -15,6 +15,7 @@ import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.engine import inputs
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.conductor import Conductor, Pacer
 from chargebook.acquire.replay.recording import LoggedInput, RecordedLine, Recording
@@ -140,7 +141,9 @@ def test_readings_are_taken_from_the_logged_samples_read_again_by_the_driver():
     engine, session_id = replay(lines, logged)
     readings = engine.store.readings(session_id)
     assert [(r.charge_nC, r.t_s) for r in readings] == [(20.0, 1.251)]
-    events = [e.detail() for e in engine.store.events(session_id) if e.kind == "reading_recorded"]
+    events = [
+        e.detail() for e in engine.store.events(session_id) if e.kind == EventKind.READING_RECORDED
+    ]
     assert [e["armed_t_s"] for e in events] == [0.99]  # the logged arm's clock
     # the reading names the line the replay wrote for the sample it was taken at
     line = {t.id: t for t in engine.store.traffic(session_id)}[readings[0].traffic_id]

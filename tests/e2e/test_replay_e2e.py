@@ -33,6 +33,7 @@ from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
@@ -270,14 +271,17 @@ def pause_capture_and_abort_kept(store: Store, replay_id: int) -> None:
 
 def interruptions_where_they_happened(store: Store, replay_id: int) -> None:
     kinds = {e.kind for e in store.events(replay_id)}
-    assert {"instrument_lost", "instrument_back", "session_resumed"} <= kinds
-    reasons = [e.detail()["reason"] for e in store.events(replay_id) if e.kind == "set_status"]
+    resumed = {EventKind.INSTRUMENT_LOST, EventKind.INSTRUMENT_BACK, EventKind.SESSION_RESUMED}
+    assert resumed <= kinds
+    reasons = [
+        e.detail()["reason"] for e in store.events(replay_id) if e.kind == EventKind.SET_STATUS
+    ]
     assert "continued after the interruption" in reasons
     assert "the daemon restarted while the set was being collected" in reasons
 
 
 def bias_turned_by_hand(store: Store, replay_id: int) -> None:
-    done = [e for e in store.events(replay_id) if e.kind == "manual_step_done"]
+    done = [e for e in store.events(replay_id) if e.kind == EventKind.MANUAL_STEP_DONE]
     assert len(done) >= 2 and all(e.actor.endswith("(replayed)") for e in done)
     assert {r.capture for r in store.readings(replay_id)} >= {"pushed"}
 
@@ -597,7 +601,7 @@ def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_mark
     with Store.open(db, read_only=True) as store:
         replay_id = store.sessions()[-1].id
         assert store.session(replay_id).replay_of == station.clean
-        marks = [e for e in store.events(replay_id) if e.kind == "replay_not_reproduced"]
+        marks = [e for e in store.events(replay_id) if e.kind == EventKind.REPLAY_NOT_REPRODUCED]
     assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
 
 
