@@ -34,7 +34,7 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
-from chargebook.acquire.engine import driver_commands
+from chargebook.acquire.engine import driver_commands, inputs
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.record import events as ev
@@ -587,7 +587,7 @@ class Daemon:
             raise
         assert self.engine is not None and self.link is not None and self.store is not None
         self._record_start()
-        resumed = self.engine.restore()
+        resumed = self.engine.apply(inputs.Restart()) is True
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
         try:
@@ -775,11 +775,11 @@ class Daemon:
         engine = self.engine
         assert engine is not None
         if kind == "connected":
-            engine.instrument_back(payload)
+            engine.apply(inputs.InstrumentBack(identity=payload))
         elif kind == "lost":
-            engine.instrument_lost(payload)
+            engine.apply(inputs.InstrumentLost(message=payload))
         elif kind == "fault":
-            engine.instrument_lost(payload, still_connected=True)
+            engine.apply(inputs.InstrumentLost(message=payload, still_connected=True))
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 
@@ -791,13 +791,14 @@ class Daemon:
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
             try:
-                engine.on_sample(
-                    sample.t_s,
-                    sample.charge_nC,
-                    sample.complete,
-                    sample.status.value,
+                taken = inputs.Sample(
+                    t_s=sample.t_s,
+                    charge_nC=sample.charge_nC,
+                    complete=sample.complete,
+                    status=sample.status.value,
                     line_id=None if line is None else line.id,
                 )
+                engine.apply(taken)
             except Exception:
                 del samples[:index]  # those were taken; the rest are tried again
                 raise
@@ -809,7 +810,7 @@ class Daemon:
             try:
                 self._check_record()
                 if not self._faults:
-                    self.engine.tick()
+                    self.engine.apply(inputs.Tick())
                 await self.after_change()
             except Exception:  # supervised, as the instrument events are
                 self._unexpected("the clock tick")
@@ -1042,31 +1043,5 @@ class Daemon:
         return review.to_dict()
 
     def _perform(self, method: str, params: dict[str, Any], actor: str) -> None:
-        engine = self.engine
-        assert engine is not None
-        M = protocol.Method
-        actions: dict[str, Callable[[], Any]] = {
-            M.SESSION_START: lambda: engine.start_session(
-                params["metadata"], params.get("plan"), actor=actor
-            ),
-            M.ENVIRONMENT_SET: lambda: engine.set_environment(
-                params["temperature_C"],
-                params["pressure"],
-                params.get("pressure_unit", "kPa"),
-                params.get("humidity_pct"),
-                params.get("source", "operator"),
-                actor=actor,
-            ),
-            M.STEP_ARM: lambda: engine.arm(actor=actor),
-            M.STEP_MANUAL_DONE: lambda: engine.manual_done(params.get("note"), actor=actor),
-            M.STEP_SKIP: lambda: engine.skip(actor=actor),
-            M.READING_CAPTURE: lambda: engine.capture(actor=actor),
-            M.SET_ACCEPT: lambda: engine.accept(actor=actor),
-            M.SET_REDO: lambda: engine.redo(params["reason"], actor=actor),
-            M.SESSION_PAUSE: lambda: engine.pause(actor=actor),
-            M.SESSION_RESUME: lambda: engine.resume(actor=actor),
-            M.SESSION_STOP: lambda: engine.stop(params["reason"], actor=actor),
-            M.SESSION_ABORT: lambda: engine.abort(params["reason"], params["confirm"], actor=actor),
-            M.SESSION_CLOSE: lambda: engine.close(actor=actor),
-        }
-        actions[method]()
+        assert self.engine is not None
+        self.engine.apply(inputs.from_request(method, params, actor))

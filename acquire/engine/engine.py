@@ -28,17 +28,16 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
+import dataclasses
 import datetime
-import functools
 import logging
 import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from pathlib import Path
-from typing import Any, ParamSpec, TypeVar
+from typing import Any
 
-from chargebook.acquire.engine import driver_commands
+from chargebook.acquire.engine import driver_commands, inputs
 from chargebook.acquire.engine.capture import (
     Captured,
     CaptureSettings,
@@ -61,14 +60,14 @@ from chargebook.drivers_generic.interface import Capability
 
 log = logging.getLogger(__name__)
 S = EngineState
-P = ParamSpec("P")
-R = TypeVar("R")
 
-DAEMON_ACTOR = "daemon"
+DAEMON_ACTOR = inputs.DAEMON_ACTOR
+#: What an input's handler returns when the input changed nothing (so nothing is logged).
+UNCHANGED = object()
 #: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
 Results = tuple[dict[str, Any] | None, bool, str | None]
-#: A plan as the engine may be given it: a Plan, a shipped plan's name, a TOML path, a plan dict.
-PlanSource = Plan | str | Path | Mapping[str, Any]
+#: A plan as the engine may be given it (see :mod:`inputs`).
+PlanSource = inputs.PlanSource
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
 
@@ -93,27 +92,6 @@ class ActiveSet:
     @property
     def used_count(self) -> int:
         return sum(1 for r in self.readings if not r.settling)
-
-
-def one_transaction(method: Callable[P, R]) -> Callable[P, R]:
-    """Run an Engine input (an operator action, an instrument change, a tick that ends a wait)
-    as one store transaction: all of its rows (set status, events, readings) or none.
-
-    This is the one place the engine's transaction boundary is drawn. If the input fails
-    part-way (an error, a commit the disk refuses), the store rolls the transaction back and
-    the engine's own state is put back as it was before the input, so memory and record agree.
-    Inputs nest (an action calling another is one transaction, the inner one a savepoint).
-    """
-
-    @functools.wraps(method)
-    def run(*args: P.args, **kwargs: P.kwargs) -> R:
-        engine = args[0]
-        assert isinstance(engine, Engine)
-        with engine.all_or_nothing():
-            return method(*args, **kwargs)
-
-    run.one_transaction = True  # type: ignore[attr-defined]  # checked by the tests
-    return run
 
 
 class Engine:
@@ -167,6 +145,9 @@ class Engine:
         #: discarded by a pause), kept until the next reading is recorded or the set is closed.
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
+        #: Samples taken since the last input logged, logged with the next one (in order).
+        self._unlogged_samples: list[inputs.Sample] = []
+        self._input_clock_s: float | None = None  # the clock of the input being applied
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Results] | None = None
         self.seq = 0  # every snapshot
@@ -248,7 +229,7 @@ class Engine:
     @contextmanager
     def all_or_nothing(self) -> Iterator[None]:
         """Run the block as one store transaction; on an error, roll the record back and put
-        the engine's state back as it was (see :func:`one_transaction`)."""
+        the engine's state back as it was (see :meth:`apply`)."""
         saved = self._checkpoint()
         try:
             with self.store.atomic():
@@ -276,6 +257,146 @@ class Engine:
             vars(self.reading).update(reading)
         if self.active is not None and readings is not None:
             self.active.readings = readings
+
+    # -------------------------------------------------------------------------- inputs
+    def apply(self, given: inputs.Input) -> Any:
+        """Apply one input: the only way the engine's state changes. Return what its handler
+        returns (a new session's id, an environment entry's id, or None).
+
+        An input that changes the session runs as one store transaction with the input logged
+        in it (table ``inputs``), beside all of its effects: all of them or none. If it fails
+        part-way (an error, a commit the disk refuses), the store rolls the transaction back
+        and the engine's own state is put back as it was before the input, so memory and
+        record agree. An input refused (an illegal action, bad values) raises and
+        leaves nothing. Samples that only move the charge and ticks that end no wait write
+        nothing; a sample is logged with the next input that writes.
+        """
+        if given.clock_s is None:
+            given = dataclasses.replace(given, clock_s=self.clock())
+        assert given.clock_s is not None
+        if isinstance(given, inputs.Sample):
+            return self._take_sample(given)
+        if isinstance(given, inputs.Tick) and not self._wait_over(given.clock_s):
+            return None
+        handler = HANDLERS[type(given)]
+        return self._in_transaction(given, lambda: handler(self, given))
+
+    def _in_transaction(self, given: inputs.Input, handle: Callable[[], Any]) -> Any:
+        """Run ``handle`` for ``given`` in one transaction and log ``given`` with its effects
+        (not when it returns UNCHANGED: then nothing was recorded, and None is returned)."""
+        session_id = self.session_id
+        with self.all_or_nothing():
+            self._input_clock_s = given.clock_s
+            try:
+                result = handle()
+            finally:
+                self._input_clock_s = None
+            if result is UNCHANGED:
+                return None
+            self._log(session_id if session_id is not None else self.session_id, given)
+        return result
+
+    def _log(self, session_id: int | None, given: inputs.Input) -> None:
+        """Append ``given`` to the input log, after the samples taken before it."""
+        entries = [*self._unlogged_samples, given] if session_id is not None else [given]
+        self.store.add_inputs(session_id, [(e.kind, e.actor, e.fields()) for e in entries])
+        self._unlogged_samples = []
+
+    def _now(self) -> float:
+        """Return the engine's clock: the one of the input being applied (s)."""
+        return self.clock() if self._input_clock_s is None else self._input_clock_s
+
+    # The operator's actions and the daemon's inputs, by name: each builds its input and
+    # applies it (see :mod:`chargebook.acquire.engine.inputs` for what each does).
+    def start_session(
+        self, metadata: dict[str, Any], plan: PlanSource | None = None, actor: str = DAEMON_ACTOR
+    ) -> int:
+        """Open a session with validated metadata and a plan; return its id."""
+        session_id: int = self.apply(inputs.StartSession(metadata=metadata, plan=plan, actor=actor))
+        return session_id
+
+    def set_environment(
+        self,
+        temperature_C: float,
+        pressure: float,
+        pressure_unit: str = "kPa",
+        humidity_pct: float | None = None,
+        source: str = "operator",
+        actor: str = DAEMON_ACTOR,
+    ) -> int:
+        """Record an environment entry (°C, pressure in its unit, % RH); return its id."""
+        entry = inputs.EnterEnvironment(
+            temperature_C=temperature_C,
+            pressure=pressure,
+            pressure_unit=pressure_unit,
+            humidity_pct=humidity_pct,
+            source=source,
+            actor=actor,
+        )
+        entry_id: int = self.apply(entry)
+        return entry_id
+
+    def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.ManualDone(note=note, actor=actor))
+
+    def skip(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Skip(actor=actor))
+
+    def arm(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Arm(actor=actor))
+
+    def capture(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Capture(actor=actor))
+
+    def accept(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Accept(actor=actor))
+
+    def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Redo(reason=reason, actor=actor))
+
+    def pause(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Pause(actor=actor))
+
+    def resume(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Resume(actor=actor))
+
+    def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Stop(reason=reason, actor=actor))
+
+    def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Abort(reason=reason, confirm=confirm, actor=actor))
+
+    def close(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Close(actor=actor))
+
+    def on_sample(
+        self,
+        t_s: float,
+        charge_nC: float,
+        complete: bool = False,
+        status: str = "ok",
+        *,
+        line_id: int | None = None,
+    ) -> None:
+        """Give the engine one sample (see :class:`inputs.Sample`)."""
+        sample = inputs.Sample(
+            t_s=t_s, charge_nC=charge_nC, complete=complete, status=status, line_id=line_id
+        )
+        self.apply(sample)
+
+    def tick(self, now_s: float | None = None) -> None:
+        """End a settling wait that is over at ``now_s`` (s on the engine's clock)."""
+        self.apply(inputs.Tick(clock_s=now_s))
+
+    def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
+        self.apply(inputs.InstrumentLost(message=message, still_connected=still_connected))
+
+    def instrument_back(self, identity: str | None = None) -> None:
+        self.apply(inputs.InstrumentBack(identity=identity))
+
+    def restore(self) -> bool:
+        """Resume the store's open session, if any; return True when one was resumed."""
+        return self.apply(inputs.Restart()) is True
 
     # -------------------------------------------------------------------------- guards
     def refusal(self, action: str) -> str | None:
@@ -316,11 +437,9 @@ class Engine:
             raise IllegalTransition(action, self.state, self.allowed(), why)
 
     # ----------------------------------------------------------------- session actions
-    @one_transaction
-    def start_session(
-        self, metadata: dict[str, Any], plan: PlanSource | None = None, actor: str = DAEMON_ACTOR
-    ) -> int:
+    def _on_start_session(self, given: inputs.StartSession) -> int:
         """Open a session with validated metadata and a plan; return its id."""
+        metadata, plan, actor = given.metadata, given.plan, given.actor
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
         today = self.store.stamp()[:10]
@@ -330,14 +449,17 @@ class Engine:
             on=datetime.date.fromisoformat(today),
             validity_years=self.default_thresholds.certificate_validity_years,
         )
-        checked = rules.validate_metadata(
-            carried_metadata(self.store, rules.validate_metadata(filled), resolved, today)
-        )
+        checked = rules.validate_metadata(filled)
+        if given.replay_of is None:
+            checked = rules.validate_metadata(
+                carried_metadata(self.store, checked, resolved, today)
+            )
         session_id = self.store.create_session(
             metadata=checked,
             plan=resolved.to_dict(),
             convention=str(checked["convention"]),
             beam=str(checked["beam"]),
+            replay_of=given.replay_of,
             actor=actor,
         )
         self.session_id, self.plan, self.metadata = session_id, resolved, checked
@@ -361,19 +483,13 @@ class Engine:
         self._changed()
         return session_id
 
-    @one_transaction
-    def set_environment(
-        self,
-        temperature_C: float,
-        pressure: float,
-        pressure_unit: str = "kPa",
-        humidity_pct: float | None = None,
-        source: str = "operator",
-        actor: str = DAEMON_ACTOR,
-    ) -> int:
+    def _on_environment(self, given: inputs.EnterEnvironment) -> int:
         """Record an environment entry (°C, pressure in its unit, % RH) after range checks."""
         self._require(Method.ENVIRONMENT_SET)
-        entry = rules.check_environment(temperature_C, pressure, pressure_unit, humidity_pct)
+        entry = rules.check_environment(
+            given.temperature_C, given.pressure, given.pressure_unit, given.humidity_pct
+        )
+        source, actor = given.source, given.actor
         assert self.session_id is not None
         entry_id = self.store.add_environment(self.session_id, source=source, **entry)
         entered = ev.EnvironmentEntered(environment_id=entry_id, source=source, **entry)
@@ -381,9 +497,9 @@ class Engine:
         self._changed()
         return entry_id
 
-    @one_transaction
-    def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
+    def _on_manual_done(self, given: inputs.ManualDone) -> None:
         """Record that the pending manual step was done by hand (who: ``actor``)."""
+        note, actor = given.note, given.actor
         self._require(Method.STEP_MANUAL_DONE)
         manual = self.pending_manual
         assert manual is not None
@@ -398,9 +514,9 @@ class Engine:
         self.pending_manual = None
         self._changed()
 
-    @one_transaction
-    def skip(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_skip(self, given: inputs.Skip) -> None:
         """Skip the current (optional) step."""
+        actor = given.actor
         self._require(Method.STEP_SKIP)
         assert self.step_index is not None and self.step is not None
         skipped = ev.StepSkipped(step_index=self.step_index, step_key=self.step.key)
@@ -409,9 +525,9 @@ class Engine:
         self._advance(actor, Method.STEP_SKIP)
         self._changed()
 
-    @one_transaction
-    def arm(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_arm(self, given: inputs.Arm) -> None:
         """Start the current step's set (or continue an interrupted one)."""
+        actor = given.actor
         self._require(Method.STEP_ARM)
         if self.state is S.INTERRUPTED:
             assert self.active is not None
@@ -432,15 +548,15 @@ class Engine:
         self._apply_bias(actor)
         wait_s = rules.settling_wait_s(step) * self.time_scale
         if wait_s > 0:
-            self.settle_until_s = self.clock() + wait_s
+            self.settle_until_s = self._now() + wait_s
             self._goto(S.SETTLING, Method.STEP_ARM, actor, set_id=set_id, wait_s=wait_s)
         else:
             self._begin_reading(actor, Method.STEP_ARM)
         self._changed()
 
-    @one_transaction
-    def capture(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_capture(self, given: inputs.Capture) -> None:
         """Capture the charge integrated so far (as of the latest sample) as a manual reading."""
+        actor = given.actor
         self._require(Method.READING_CAPTURE)
         assert self.reading is not None and self.reading.last_t_s is not None
         captured = self.reading.capture_now(self.reading.last_t_s)
@@ -448,9 +564,9 @@ class Engine:
             self._record(captured, actor)
         self._changed()
 
-    @one_transaction
-    def accept(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_accept(self, given: inputs.Accept) -> None:
         """Accept the reviewed set and go on to the next step (or finish)."""
+        actor = given.actor
         self._require(Method.SET_ACCEPT)
         assert self.active is not None
         self.store.set_set_status(self.active.id, "accepted", actor=actor)
@@ -459,11 +575,10 @@ class Engine:
         self._advance(actor, Method.SET_ACCEPT)
         self._changed()
 
-    @one_transaction
-    def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+    def _on_redo(self, given: inputs.Redo) -> None:
         """Mark the current set superseded with ``reason`` and rewind to the same step."""
         self._require(Method.SET_REDO)
-        reason = rules.require_reason("reason", reason)
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
         self._drop_reading(actor, "redo")
         self.notice = None  # the operator chose to start the set again: nothing to repeat
         if self.active is not None:
@@ -473,18 +588,18 @@ class Engine:
         self._goto(S.WAITING_FOR_OPERATOR, Method.SET_REDO, actor, reason=reason)
         self._changed()
 
-    @one_transaction
-    def pause(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_pause(self, given: inputs.Pause) -> None:
         """Hold the sequence; a reading in progress is dropped and logged."""
+        actor = given.actor
         self._require(Method.SESSION_PAUSE)
         self._drop_reading(actor, "pause")
         self.paused_from = self.state
         self._goto(S.PAUSED, Method.SESSION_PAUSE, actor)
         self._changed()
 
-    @one_transaction
-    def resume(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_resume(self, given: inputs.Resume) -> None:
         """Return to the state the session was paused from; re-arm a set that was collecting."""
+        actor = given.actor
         self._require(Method.SESSION_RESUME)
         target = self.paused_from or S.WAITING_FOR_OPERATOR
         self.paused_from = None
@@ -493,7 +608,7 @@ class Engine:
         if target in (S.SETTLING, S.COLLECTING):
             if self.settle_until_s is not None:
                 wait_s = rules.settling_wait_s(self.step) * self.time_scale
-                self.settle_until_s = self.clock() + wait_s
+                self.settle_until_s = self._now() + wait_s
                 self._goto(S.SETTLING, Method.SESSION_RESUME, actor)
             else:
                 self._begin_reading(actor, Method.SESSION_RESUME)
@@ -501,27 +616,25 @@ class Engine:
             self._goto(target, Method.SESSION_RESUME, actor)
         self._changed()
 
-    @one_transaction
-    def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+    def _on_stop(self, given: inputs.Stop) -> None:
         """End the session early as finished; a set not yet accepted is closed as aborted."""
         self._require(Method.SESSION_STOP)
-        reason = rules.require_reason("reason", reason)
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
         self._close_session("finished", S.FINISHED, Method.SESSION_STOP, reason, actor)
 
-    @one_transaction
-    def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
+    def _on_abort(self, given: inputs.Abort) -> None:
         """Abandon the session (needs confirm=True); everything recorded is kept."""
         self._require(Method.SESSION_ABORT)
-        reason = rules.require_reason("reason", reason)
-        if confirm is not True:
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
+        if given.confirm is not True:
             raise ConfirmationRequired(
                 "abort needs confirm = true: the session will end as aborted (nothing is deleted)"
             )
         self._close_session("aborted", S.ABORTED, Method.SESSION_ABORT, reason, actor)
 
-    @one_transaction
-    def close(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_close(self, given: inputs.Close) -> None:
         """Leave a finished or aborted session; the engine is idle again."""
+        actor = given.actor
         self._require(Method.SESSION_CLOSE)
         self._goto(S.IDLE, Method.SESSION_CLOSE, actor)
         self.session_id, self.plan, self.step_index, self.active = None, None, None, None
@@ -543,65 +656,60 @@ class Engine:
         self._changed()
 
     # ---------------------------------------------------------------- instrument input
-    def on_sample(
-        self,
-        t_s: float,
-        charge_nC: float,
-        complete: bool = False,
-        status: str = "ok",
-        *,
-        line_id: int | None = None,
-    ) -> None:
+    def _take_sample(self, sample: inputs.Sample) -> None:
         """Take one sample from the instrument (charge in nC, receive time in s on the driver's
         clock; its raw line, row ``line_id``, is in the store before the sample reaches the
-        engine). A reading names the raw line of the sample it was taken at."""
+        engine). A reading names the raw line of the sample it was taken at.
+
+        A sample that only moves the charge writes nothing: it is kept, in order, and logged
+        with the next input that writes (the capture it leads to, or any other). Such a sample
+        changes only what is in memory, which a crash loses with it.
+        """
         reading = self.reading
         if reading is None:
             return
-        before = vars(reading).copy(), self.reading_status
-        self.reading_status = status
-        if t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
-            self.sample_line_id = line_id
-        captured = reading.feed(t_s, charge_nC, complete)
+        before = vars(reading).copy(), self.reading_status, self.sample_line_id
+        self.reading_status = sample.status
+        if sample.t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
+            self.sample_line_id = sample.line_id
+        self._unlogged_samples.append(sample)
+        captured = reading.feed(sample.t_s, sample.charge_nC, sample.complete)
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
+        self._unlogged_samples.pop()  # logged as the input of the capture's transaction
         try:
-            self._record_captured(captured)
+            self._in_transaction(sample, lambda: self._record_captured(captured))
         except BaseException:  # the sample is not taken: the next one may capture again
             vars(reading).update(before[0])
-            self.reading_status = before[1]
+            self.reading_status, self.sample_line_id = before[1], before[2]
             raise
 
-    @one_transaction
     def _record_captured(self, captured: Captured) -> None:
-        """Record a captured reading and all that follows from it in one transaction."""
+        """Record a captured reading and all that follows from it."""
         self._record(captured, DAEMON_ACTOR)
         self._changed()
 
-    def tick(self, now_s: float | None = None) -> None:
-        """End a settling wait that is over at ``now_s`` (s on the engine's clock).
+    def _wait_over(self, now_s: float) -> bool:
+        """Return True when a settling wait is over at ``now_s`` (s on the engine's clock)."""
+        waiting = self.state is S.SETTLING and self.reading is None
+        return waiting and self.settle_until_s is not None and now_s >= self.settle_until_s
 
-        Readings are not captured here: the hold time and a timed integration end with the
+    def _on_tick(self, given: inputs.Tick) -> None:
+        """Begin the reading a settling wait held back.
+
+        Readings are not captured on ticks: the hold time and a timed integration end with the
         first sample received after them (see the module docstring).
         """
-        now_s = self.clock() if now_s is None else now_s
-        waiting = self.state is S.SETTLING and self.reading is None
-        if waiting and self.settle_until_s is not None and now_s >= self.settle_until_s:
-            self._end_settling_wait()
-
-    @one_transaction
-    def _end_settling_wait(self) -> None:
-        """Begin the reading a settling wait held back, in one transaction."""
         self.settle_until_s = None
         self._begin_reading(DAEMON_ACTOR, "settling wait over")
         self._changed()
 
-    @one_transaction
-    def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
+    def _on_instrument_lost(self, given: inputs.InstrumentLost) -> object:
         """The electrometer went away (or failed a command, ``still_connected``): a set in
         progress becomes interrupted with its readings kept."""
         if not self.instrument_connected:
-            return
+            return UNCHANGED
+        message, still_connected = given.message, given.still_connected
         self.instrument_connected = still_connected
         self.instrument_message = message
         kind = EventKind.INSTRUMENT_FAULT if still_connected else EventKind.INSTRUMENT_LOST
@@ -617,6 +725,7 @@ class Engine:
             else:
                 self._goto(S.INTERRUPTED, "instrument lost", DAEMON_ACTOR, reason=message)
         self._changed()
+        return None
 
     def instrument_unreachable(self, message: str) -> None:
         """The electrometer cannot be reached yet (or again): show why, while it stays away."""
@@ -625,10 +734,10 @@ class Engine:
         self.instrument_message = message
         self._changed()
 
-    @one_transaction
-    def instrument_back(self, identity: str | None = None) -> None:
+    def _on_instrument_back(self, given: inputs.InstrumentBack) -> object:
         """The electrometer answers again (or for the first time); record who it says it is
-        (``identity``, an ``instrument_identified`` event) with its return, in one transaction."""
+        (``identity``, an ``instrument_identified`` event) with its return."""
+        identity = given.identity
         if identity:
             self.identity = identity
             detail = ev.InstrumentIdentified(identity=identity, profile=self.profile)
@@ -639,10 +748,11 @@ class Engine:
             )
         if self.instrument_connected and self.instrument_message is None:
             self._changed()
-            return
+            return None if identity else UNCHANGED
         self.instrument_connected, self.instrument_message = True, None
         self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_BACK, ev.InstrumentBack(identity=identity))
         self._changed()
+        return None
 
     def wants_samples(self) -> bool:
         """Return True while a reading is being integrated (the daemon then reads samples)."""
@@ -698,7 +808,7 @@ class Engine:
         timed_s = rules.timed_s(step)
         self.reading = ReadingCapture(
             capture_settings(self.plan, self.time_scale),
-            self.clock(),
+            self._now(),
             None if timed_s is None else timed_s * self.time_scale,
             baseline_nC=0.0 if zeroed else None,
         )
@@ -760,12 +870,11 @@ class Engine:
         self._goto(S.REVIEWING, "set complete", actor, set_id=active.id)
 
     # ------------------------------------------------------------------------ restart
-    @one_transaction
-    def restore(self) -> bool:
+    def _on_restart(self, given: inputs.Restart) -> object:
         """Resume the store's open session, if any; return True when one was resumed."""
         row = self.store.open_session()
         if row is None:
-            return False
+            return UNCHANGED
         self.session_id, self.metadata = row.id, row.metadata()
         self.plan = rules.resolve_plan(row.plan())
         events = self.store.events(row.id)
@@ -832,6 +941,28 @@ class Engine:
     @property
     def live_phase(self) -> ReadingPhase:
         return self.reading.phase if self.reading is not None else ReadingPhase.IDLE
+
+
+#: Each kind of input and the Engine method that applies it: the engine's one dispatch.
+HANDLERS: dict[type[inputs.Input], Callable[[Engine, Any], Any]] = {
+    inputs.StartSession: Engine._on_start_session,
+    inputs.EnterEnvironment: Engine._on_environment,
+    inputs.Arm: Engine._on_arm,
+    inputs.ManualDone: Engine._on_manual_done,
+    inputs.Skip: Engine._on_skip,
+    inputs.Capture: Engine._on_capture,
+    inputs.Accept: Engine._on_accept,
+    inputs.Redo: Engine._on_redo,
+    inputs.Pause: Engine._on_pause,
+    inputs.Resume: Engine._on_resume,
+    inputs.Stop: Engine._on_stop,
+    inputs.Abort: Engine._on_abort,
+    inputs.Close: Engine._on_close,
+    inputs.Tick: Engine._on_tick,
+    inputs.InstrumentLost: Engine._on_instrument_lost,
+    inputs.InstrumentBack: Engine._on_instrument_back,
+    inputs.Restart: Engine._on_restart,
+}
 
 
 def dropped_reading_notice(phase: ReadingPhase, charge_nC: float | None, why: str) -> str:

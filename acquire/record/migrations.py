@@ -298,7 +298,7 @@ def _chain_appended_rows(db: Database) -> None:
     order replay used for them, so that old files verify and replay as before.
     """
     db.execute("ALTER TABLE events ADD COLUMN account TEXT")  # the client's Unix account
-    for table in chain.CHAINED_TABLES:
+    for table in chain.FIRST_CHAINED_TABLES:
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_seq INTEGER")
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_hash TEXT")
     for table in APPEND_ONLY_TABLES:
@@ -310,7 +310,8 @@ def _chain_appended_rows(db: Database) -> None:
     order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
     rank = {table: index for index, table in enumerate(order)}
     rows: list[tuple[int, str, int, str, tuple[object, ...]]] = []
-    for table, columns in chain.COLUMNS.items():
+    for table in chain.FIRST_CHAINED_TABLES:
+        columns = chain.COLUMNS[table]
         stamped = _STAMP_COLUMNS.get(table, "recorded_at")
         sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"
         for *values, stamp in db.execute(sql).fetchall():
@@ -333,7 +334,7 @@ def _chain_appended_rows(db: Database) -> None:
     )
     for table in APPEND_ONLY_TABLES:
         _run_triggers(db, _refuse_update_trigger(table))
-    for table in chain.CHAINED_TABLES:
+    for table in chain.FIRST_CHAINED_TABLES:
         _run_triggers(db, _chain_triggers(table))
     for table in ("sessions", "reading_sets"):
         _run_triggers(db, _refuse_chain_change_trigger(table))
@@ -556,6 +557,25 @@ def _browse_views(db: Database) -> None:
             db.execute(statement)
 
 
+def _input_log(db: Database) -> None:
+    """Add the input log: every input that changed a session (an operator action with its
+    actor, an environment entry, a sample the engine consumed, a tick that ended a wait, the
+    instrument lost or back, a restart), one chained, append-only row each, written in the
+    transaction of its effects (``acquire/engine/inputs.py`` holds the records).
+
+    Sessions recorded before have no input log, and none is made up for them from their
+    effects: replay refuses them in words (a session's log begins with its ``session_start``).
+    """
+    db.execute(
+        "CREATE TABLE inputs ("
+        "id INTEGER PRIMARY KEY, session_id INTEGER REFERENCES sessions(id), "
+        "recorded_at TEXT NOT NULL, kind TEXT NOT NULL, actor TEXT NOT NULL, "
+        "detail_json TEXT NOT NULL, account TEXT, chain_seq INTEGER, chain_hash TEXT)"
+    )
+    db.execute("CREATE INDEX inputs_by_session ON inputs(session_id)")
+    _run_triggers(db, _append_only_triggers("inputs") + _chain_triggers("inputs"))
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
@@ -564,6 +584,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("station_identity", _station_identity),
     Migration("registers", _registers),
     Migration("browse_views", _browse_views),
+    Migration("input_log", _input_log),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

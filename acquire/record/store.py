@@ -69,6 +69,7 @@ __all__ = [
     "TRAFFIC_DIRECTIONS",
     "EnvironmentRow",
     "EventRow",
+    "InputRow",
     "NotFound",
     "ReadingRow",
     "SchemaTooNew",
@@ -277,6 +278,23 @@ class EventRow:
 
 
 @dataclass(frozen=True, slots=True)
+class InputRow:
+    """One input that changed a session, as logged: its ``kind`` (an ``inputs`` record's),
+    who gave it (``actor``) and its fields (``detail()``); see ``acquire/engine/inputs.py``."""
+
+    id: int
+    session_id: int | None
+    recorded_at: str
+    kind: str
+    actor: str
+    detail_json: str
+    account: str | None = None
+
+    def detail(self) -> dict[str, Any]:
+        return _json_object(self.detail_json)
+
+
+@dataclass(frozen=True, slots=True)
 class TrafficRow:
     """One raw line sent to (``tx``) or received from (``rx``) the instrument."""
 
@@ -288,7 +306,7 @@ class TrafficRow:
     line: bytes
 
 
-Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
@@ -601,15 +619,6 @@ class Store:
         if not found:
             raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
         return found[0]
-
-    def append_row(self, table: str, row: dict[str, Any]) -> int:
-        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
-        and commit it; return its id. For copying a recorded session (a replay): the recording
-        methods above check their values, this one does not."""
-        if table not in chain.CHAINED_TABLES:
-            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not appended")
-        with self.atomic():
-            return self._append(table, row)
 
     def _append(self, table: str, row: dict[str, Any]) -> int:
         """Append one row to a chained table, linked to its session's chain; return its id.
@@ -1040,6 +1049,50 @@ class Store:
         """Return the session's events newer than ``event_id``, oldest first."""
         return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
 
+    # ------------------------------------------------------------------------- input log
+
+    def add_inputs(
+        self, session_id: int | None, entries: Sequence[tuple[str, str, dict[str, Any]]]
+    ) -> int:
+        """Log inputs that changed the session, each (kind, actor, detail), in order, in one
+        transaction (the caller's, when inside :meth:`atomic`); return the last one's id.
+
+        Written in one pass, like raw lines: a reading may bring thousands of samples with it.
+        """
+        stamp = self._stamp()
+        rows = [
+            (
+                session_id,
+                stamp,
+                _require_text("kind", kind),
+                _require_text("actor", actor),
+                _to_json("detail", detail),
+                self._account,
+            )
+            for kind, actor, detail in entries
+        ]
+        with self.atomic():
+            next_id = self._next_id("inputs")
+            key = chain.chain_key(session_id)
+            seq, digest = self._chain_head(key)
+            chained = []
+            for offset, row in enumerate(rows):
+                values = (next_id + offset, *row)
+                seq += 1
+                digest = chain.link(digest, seq, "inputs", values)
+                chained.append((*values, seq, digest))
+            self.db.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            if chained:
+                self._set_chain_head(key, seq, digest)
+        return next_id + len(rows) - 1 if rows else 0
+
+    def inputs(self, session_id: int | None) -> list[InputRow]:
+        """Return the session's logged inputs in the order they were applied (``None``:
+        inputs outside any session)."""
+        if session_id is None:
+            return self._select(InputRow, "inputs", "session_id IS NULL")
+        return self._select(InputRow, "inputs", "session_id = ?", (session_id,))
+
     # ---------------------------------------------------------------------------- traffic
 
     def add_traffic(self, session_id: int | None, t_s: float, direction: str, line: bytes) -> int:
@@ -1121,8 +1174,9 @@ class Store:
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_CHAINED = {
-    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
-    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
+    table: f"INSERT INTO {table} ({', '.join(chain.COLUMNS[table])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS[table])}, ?, ?)"
+    for table in ("traffic", "inputs")
 }
 
 

@@ -15,7 +15,8 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine.engine import HANDLERS, Engine
 from chargebook.acquire.protocol import EngineState
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
@@ -207,6 +208,7 @@ def test_a_reading_that_fails_to_record_is_not_half_kept_and_the_next_sample_tak
 NOT_INPUTS = {
     "all_or_nothing",
     "allowed",
+    "apply",
     "instrument_unreachable",  # shown, never recorded
     "refusal",
     "results",
@@ -217,23 +219,21 @@ NOT_INPUTS = {
     "touch_live",
     "wants_samples",
 }
-#: Inputs that decide first, without writing, whether they change anything at all (most
-#: samples and ticks do not) and then call a one-transaction method.
-CHEAP_ENTRIES = {"on_sample": "_record_captured", "tick": "_end_settling_wait"}
 
 
-def test_every_public_input_of_the_engine_is_one_transaction() -> None:
+def test_every_public_input_of_the_engine_goes_through_apply_and_every_input_has_a_handler() -> (
+    None
+):
     public = {
         name
         for name, member in inspect.getmembers(Engine, inspect.isfunction)
         if not name.startswith("_")
     }
-    inputs = public - NOT_INPUTS - set(CHEAP_ENTRIES)
-    assert inputs >= {"arm", "accept", "redo", "abort", "set_environment", "instrument_lost"}
-    undecorated = [
-        n for n in sorted(inputs) if not getattr(Engine, n).__dict__.get("one_transaction")
+    entries = public - NOT_INPUTS
+    assert entries >= {"arm", "accept", "redo", "abort", "set_environment", "on_sample", "tick"}
+    bypassing = [
+        n for n in sorted(entries) if "self.apply(" not in inspect.getsource(getattr(Engine, n))
     ]
-    assert undecorated == []
-    for entry, inner in CHEAP_ENTRIES.items():
-        assert getattr(Engine, inner).__dict__.get("one_transaction"), inner
-        assert inner in inspect.getsource(getattr(Engine, entry)), entry
+    assert bypassing == []
+    # one dispatch: every kind of input but the sample (taken cheaply) has its handler
+    assert set(HANDLERS) | {inputs.Sample} == set(inputs.KINDS.values())
