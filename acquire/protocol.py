@@ -153,6 +153,11 @@ class Method(enum.StrEnum):
     VISIT_CONFIRM_AIR = "visit.confirm_air"
     VISIT_CLOSE = "visit.close"
     VISIT_REVIEW = "visit.review"
+    REGISTER_LIST = "register.list"
+    REGISTER_ADD = "register.add"
+    REGISTER_SUPERSEDE = "register.supersede"
+    REGISTER_PICK = "register.pick"
+    ENVIRONMENT_READ = "environment.read"
 
 
 #: The calibration visit's methods (answered beside the engine's actions; the snapshot's
@@ -175,6 +180,7 @@ OPERATOR_ACTIONS: tuple[str, ...] = (
     Method.STEP_MANUAL_DONE,
     Method.STEP_SKIP,
     Method.READING_CAPTURE,
+    Method.READING_SHORT,
     Method.SET_ACCEPT,
     Method.SET_REDO,
     Method.SESSION_PAUSE,
@@ -189,6 +195,17 @@ NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
 REVIEW_DECISIONS = ("approve", "reject")
+#: What the station's registers hold, one kind per row (``register.*`` requests).
+REGISTER_KINDS = (
+    "machine",
+    "beam",
+    "chamber",
+    "certificate",
+    "electrometer",
+    "thermometer",
+    "barometer",
+    "k_Q",
+)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -414,6 +431,54 @@ METHODS: dict[str, MethodSpec] = {
             ),
             result=REVIEW_RESULT,
         ),
+        MethodSpec(
+            Method.REGISTER_LIST,
+            "List the station's register rows (machines, beams, chambers, certificates, "
+            "electrometers, thermometers, barometers, k_Q), each with its name in words.",
+            (
+                Param("kind", "string", doc="only rows of this kind", choices=REGISTER_KINDS),
+                Param("include_superseded", "boolean", doc="superseded rows too (default false)"),
+            ),
+            result="{rows: [register row with its name]}",
+        ),
+        MethodSpec(
+            Method.REGISTER_ADD,
+            "Add a register entry (its first row); the connection's operator is the actor.",
+            (
+                Param("kind", "string", required=True, doc="the kind", choices=REGISTER_KINDS),
+                Param("fields", "object", required=True, doc="field -> value"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the row added",
+        ),
+        MethodSpec(
+            Method.REGISTER_SUPERSEDE,
+            "Supersede a register row with its fields changed as given; the old row is kept.",
+            (
+                Param("row", "integer", required=True, doc="the current row of the entry"),
+                Param("fields", "object", required=True, doc="field -> new value"),
+                Param("reason", "string", required=True, doc="why, in words"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the new row",
+        ),
+        MethodSpec(
+            Method.ENVIRONMENT_READ,
+            "Read the air temperature and pressure from the daemon's environment sensor "
+            "(serve --sensor-port) now, its certificate corrections from the registers applied, "
+            "and record them as an entry whose source names the sensor. The daemon also reads "
+            "it by itself when a session starts and before each set.",
+        ),
+        MethodSpec(
+            Method.REGISTER_PICK,
+            "Say what a session using these register rows would be given: the metadata they "
+            "fill and the warnings (an expired or missing certificate, no k_Q ...). Writes "
+            "nothing; send the ids as `registers` in session.start's metadata to use them.",
+            (Param("registers", "object", required=True, doc="kind -> row id"),),
+            result="{registers: kind -> row id, fields: metadata, warnings: [text]}",
+        ),
     )
 }
 
@@ -629,7 +694,7 @@ class Snapshot(TypedDict):
     """The whole daemon state, as sent in ``snapshot`` notifications and method results.
 
     ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed by
-    ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
+    ``acquire.session.evaluation.evaluate_session`` from the accepted sets, the environment
     entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
     in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
     *pending* (``factor_states``) and values that depend on them are null; k_pol and k_s of an
@@ -688,7 +753,9 @@ class HelloResult(TypedDict):
 # ---------------------------------------------------------------------------------------------
 # Messages
 # ---------------------------------------------------------------------------------------------
-def request(request_id: int | str, method: str, params: dict[str, Any] | None = None) -> dict:
+def request(
+    request_id: int | str, method: str, params: dict[str, Any] | None = None
+) -> dict[str, Any]:
     """Return a JSON-RPC request object."""
     message: dict[str, Any] = {"jsonrpc": JSONRPC, "id": request_id, "method": method}
     if params:
@@ -696,19 +763,19 @@ def request(request_id: int | str, method: str, params: dict[str, Any] | None = 
     return message
 
 
-def notification(method: str, params: Any) -> dict:
+def notification(method: str, params: Any) -> dict[str, Any]:
     """Return a JSON-RPC notification object (a request without an id)."""
     return {"jsonrpc": JSONRPC, "method": method, "params": params}
 
 
-def result_response(request_id: int | str | None, result: Any) -> dict:
+def result_response(request_id: int | str | None, result: Any) -> dict[str, Any]:
     """Return a JSON-RPC success response."""
     return {"jsonrpc": JSONRPC, "id": request_id, "result": result}
 
 
 def error_response(
     request_id: int | str | None, code: int, message: str, data: Any | None = None
-) -> dict:
+) -> dict[str, Any]:
     """Return a JSON-RPC error response; ``data`` is included when given."""
     error: dict[str, Any] = {"code": code, "message": message}
     if data is not None:
@@ -716,7 +783,7 @@ def error_response(
     return {"jsonrpc": JSONRPC, "id": request_id, "error": error}
 
 
-def encode(message: dict, limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
+def encode(message: dict[str, Any], limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
     """Return ``message`` as one line of UTF-8 JSON ending in a newline.
 
     Raises ValueError if the line would exceed ``limit_bytes`` (a client's request limit unless
@@ -730,7 +797,7 @@ def encode(message: dict, limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
     return line
 
 
-def encode_from_daemon(message: dict) -> bytes:
+def encode_from_daemon(message: dict[str, Any]) -> bytes:
     """Return a message of the daemon's as one line, bounded by MAX_DAEMON_MESSAGE_BYTES."""
     return encode(message, MAX_DAEMON_MESSAGE_BYTES)
 

@@ -10,7 +10,7 @@ import sys
 from chargebook.acquire.commands.cli import build_parser
 parser = build_parser()
 parser.format_help()
-print(sorted(name for name in ("numpy", "textual", "sqlite_utils", "pyvisa", "serial")
+print(sorted(name for name in ("numpy", "textual", "sqlite_utils", "pyvisa", "serial", "psycopg")
              if name in sys.modules))
 """
 

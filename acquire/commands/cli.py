@@ -36,7 +36,9 @@ COMMANDS: dict[str, str] = {
     "history": "history",
     "verify": "verify",
     "review": "review",
+    "register": "register",
     "backup": "backup",
+    "publish": "publish",
     "completion": "completion",
 }
 

@@ -29,8 +29,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--plan",
-        help="measure one session on this plan (default: unattended, a calibration visit of "
-        "three beams of DEMO-LA1; with the console, the plan default)",
+        action="append",
+        help="measure one session on this plan; repeated, sessions one after another (e.g. "
+        "--plan default --plan monthly-check: a full calibration, then a monthly check "
+        "carrying its k_pol and k_s); without it the unattended demo runs a calibration "
+        "visit of three beams of DEMO-LA1 and the console starts on the plan default",
     )
     parser.add_argument(
         "--time-scale",

@@ -3,14 +3,18 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import (
-    add_db_argument,
     add_output_argument,
+    add_record_argument,
     add_session_or_visit_arguments,
     require_session_or_visit,
     run_reader,
 )
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 HELP = (
     "export one recorded session: csv (the readings), json (everything) or html "
@@ -21,7 +25,7 @@ FORMATS = ("csv", "json", "html")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_or_visit_arguments(parser)
+    add_session_or_visit_arguments(parser, session_uuid=True)
     parser.add_argument(
         "--format", choices=FORMATS, default="json", help="the export format (default: json)"
     )
@@ -29,14 +33,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--traffic", action="store_true", help="json: include the raw instrument lines"
     )
-    add_db_argument(parser)
+    add_record_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     return run_reader(args, lambda store: _export(store, args))
 
 
-def _export(store, args: argparse.Namespace) -> int:
+def _export(store: RecordReader, args: argparse.Namespace) -> int:
     from chargebook.acquire.commands.station_reader import write_output
     from chargebook.acquire.reports import export
     from chargebook.acquire.reports.data import load_record

@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from chargebook.acquire.commands.station_reader import add_db_argument, run_reader
+from chargebook.acquire.commands.station_reader import add_record_argument, run_reader
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from chargebook.acquire.record.reader import RecordReader
 
 FORMATS = ("text", "json", "html")
 
@@ -16,7 +22,13 @@ HELP = (
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--beam", metavar="NAME", required=True, help='the beam, e.g. "6 MV"')
+    parser.add_argument(
+        "--beam",
+        metavar="NAME",
+        required=True,
+        help='the beam: its name in the registers ("DEMO-LA1 6 MV", "6MV") or its row id, or '
+        'as typed in sessions ("6 MV"); close matches are listed when none matches',
+    )
     parser.add_argument("--machine", metavar="NAME", help="only this treatment machine")
     parser.add_argument(
         "--baseline",
@@ -43,14 +55,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     # Before -o existed: `--html FILE` is `--format html -o FILE`, kept for one release.
     parser.add_argument("--html", metavar="FILE", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--no-plot", action="store_true", help="leave out the terminal plot")
-    add_db_argument(parser)
+    add_record_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
-    return run_reader(args, lambda store: _history(store, args))
+    return run_reader(
+        args, lambda store: _history([store], args), across=lambda stores: _history(stores, args)
+    )
 
 
-def _history(store, args: argparse.Namespace) -> int:
+def _history(stores: Sequence[RecordReader], args: argparse.Namespace) -> int:
     import json
     import sys
 
@@ -58,11 +72,15 @@ def _history(store, args: argparse.Namespace) -> int:
     from chargebook.acquire.protocol import CAUTION
     from chargebook.acquire.reports.data import plain
     from chargebook.acquire.reports.export import chargebook_version, generated_at
-    from chargebook.acquire.reports.history import history_table, load_history, plot_labels
+    from chargebook.acquire.reports.history import (
+        history_table,
+        load_history_across,
+        plot_labels,
+    )
     from chargebook.acquire.reports.html import history_html
     from chargebook.acquire.reports.text import deviation_plot, table_text
 
-    history = load_history(store, args.beam, args.machine, args.baseline, args.all)
+    history = load_history_across(stores, args.beam, args.machine, args.baseline, args.all)
     table = history_table(history)
     output_format, output = args.format, args.output
     if args.json:
@@ -80,7 +98,12 @@ def _history(store, args: argparse.Namespace) -> int:
     if history.points and history.tolerance_pct is not None and not args.no_plot:
         labels, legend = plot_labels(history)
         plot = deviation_plot(
-            [p.deviation_pct for p in history.points], history.tolerance_pct, labels
+            [p.deviation_pct for p in history.points],
+            history.tolerance_pct,
+            labels,
+            uncertainties_pct=[p.U_expanded_pct for p in history.points],
+            action_pct=history.action_pct,
+            dates=[p.created_at[5:10] for p in history.points],
         )
         parts.append(plot if legend is None else f"{plot}\n{legend}")
     parts.append(CAUTION)

@@ -137,9 +137,10 @@ class AutoOperator:
         beams: list[tuple[dict[str, Any], str]],
         on_beam: Callable[[dict[str, Any], str], None] | None = None,
     ) -> dict[str, Any]:
-        """Open a visit at ``machine``, measure ``beams`` ((session metadata, plan) each) in
-        order, close the visit; return the final snapshot (its ``visit`` is the summary).
-        ``on_beam`` is told of each beam as it starts."""
+        """Open a visit at ``machine``, measure ``beams`` ((session metadata, plan) each; the
+        metadata's ``registers``, if any, are the beam's register rows) in order, close the
+        visit; return the final snapshot (its ``visit`` is the summary). ``on_beam`` is told of
+        each beam as it starts."""
         snapshot = await self.client.subscribe()
         if snapshot["state"] in (EngineState.FINISHED, EngineState.ABORTED):
             snapshot = await self.client.call(Method.SESSION_CLOSE)
@@ -148,7 +149,11 @@ class AutoOperator:
                 Method.VISIT_START, machine=machine, metadata={"operator": operator}
             )
             for index, (metadata, plan) in enumerate(beams):
-                await self.client.call(Method.VISIT_ADD_BEAM, metadata=metadata, plan=plan)
+                given = {k: v for k, v in metadata.items() if k != "registers"}
+                registers = metadata.get("registers") or {}  # the beam's register rows
+                await self.client.call(
+                    Method.VISIT_ADD_BEAM, metadata=given, plan=plan, register_ids=registers
+                )
                 if on_beam is not None:
                     on_beam(metadata, plan)
                 self.confirm_air = index > 0

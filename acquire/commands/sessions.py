@@ -3,8 +3,14 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
-from chargebook.acquire.commands.station_reader import add_db_argument, run_reader
+from chargebook.acquire.commands.station_reader import add_record_argument, run_reader
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from chargebook.acquire.record.reader import RecordReader
 
 HELP = "list the recorded sessions: id, date, status, review, machine, beam, operator, readings"
 
@@ -12,7 +18,7 @@ STATUSES = ("open", "finished", "aborted", "interrupted")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_db_argument(parser)
+    add_record_argument(parser)
     parser.add_argument("--status", choices=STATUSES, help="only sessions with this status")
     parser.add_argument("--beam", metavar="NAME", help='only this beam, e.g. "6 MV"')
     parser.add_argument("--machine", metavar="NAME", help="only this treatment machine")
@@ -20,17 +26,23 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    return run_reader(args, lambda store: _list(store, args))
+    return run_reader(
+        args,
+        lambda store: _print(_rows(store, args), args, by_station=False),
+        across=lambda stores: _print(_across(stores, args), args, by_station=True),
+    )
 
 
-def _list(store, args: argparse.Namespace) -> int:
-    import json
+def _across(stores: Sequence[RecordReader], args: argparse.Namespace) -> list[dict]:
+    """Return the sessions of every station, in the order they started."""
+    rows = [row for store in stores for row in _rows(store, args)]
+    return sorted(rows, key=lambda row: row["created_at"])
 
-    from chargebook.acquire.exit_codes import EXIT_OK
+
+def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
+    """Return the station's sessions that match the filters, as the JSON output lists them."""
     from chargebook.acquire.record.review import review_of, review_status
     from chargebook.acquire.reports.history import matches
-    from chargebook.acquire.reports.sections import Table, when
-    from chargebook.acquire.reports.text import table_text
 
     station = store.station()
     rows = []
@@ -63,12 +75,25 @@ def _list(store, args: argparse.Namespace) -> int:
                 "reviewed_at": review.reviewed_at if review else None,
             }
         )
+    return rows
+
+
+def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> int:
+    """Print the sessions as JSON or as a table (with their station when from several)."""
+    import json
+
+    from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.reports.sections import Table, when
+    from chargebook.acquire.reports.text import table_text
+
     if args.json:
         print(json.dumps(rows, indent=2, ensure_ascii=False))
         return EXIT_OK
+    station = ("station",) if by_station else ()
     table = Table(
         "Sessions",
         (
+            *station,
             "id",
             "started",
             "status",
@@ -82,6 +107,7 @@ def _list(store, args: argparse.Namespace) -> int:
         ),
         tuple(
             (
+                *((str(r["station_name"]),) if by_station else ()),
                 str(r["id"]),
                 when(r["created_at"]),
                 r["status"],

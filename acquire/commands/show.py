@@ -3,13 +3,17 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import (
-    add_db_argument,
+    add_record_argument,
     add_session_or_visit_arguments,
     require_session_or_visit,
     run_reader,
 )
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 HELP = (
     "show one recorded session: metadata, environment, reading sets, factors, results, "
@@ -18,8 +22,8 @@ HELP = (
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_session_or_visit_arguments(parser)
-    add_db_argument(parser)
+    add_session_or_visit_arguments(parser, session_uuid=True)
+    add_record_argument(parser)
     parser.add_argument("--json", action="store_true", help="print the JSON export instead of text")
 
 
@@ -27,7 +31,7 @@ def run(args: argparse.Namespace) -> int:
     return run_reader(args, lambda store: _show(store, args))
 
 
-def _show(store, args: argparse.Namespace) -> int:
+def _show(store: RecordReader, args: argparse.Namespace) -> int:
     import shutil
     import textwrap
 

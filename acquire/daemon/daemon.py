@@ -34,12 +34,17 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
-from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
+from chargebook.acquire.engine import driver_commands, inputs
+from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.engine.visit_desk import VisitDesk
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
+from chargebook.acquire.session.register_requests import REGISTER_METHODS
+from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -61,7 +66,7 @@ TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
-LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
+LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
 MAX_SAMPLES_PER_BATCH = 1024
 #: A pause between pushed lines longer than this ends a burst, s.
@@ -117,6 +122,8 @@ class DaemonOptions:
     visa_library: str | None = None  # pyvisa's library for a resource; None: $PYVISA_LIBRARY/@py
     socket_group: str | None = None  # a group that may use the sockets (0750 / 0660); None: 0700
     station_name: str | None = None  # the station's name; None: keep the recorded one
+    sensor_port: str | None = None  # serial port of a thermometer-barometer; None: typed air
+    sensor_profile: str = "sensor-plain"  # its profile
 
     @property
     def watch_socket_path(self) -> Path:
@@ -171,7 +178,7 @@ class InstrumentLink(threading.Thread):
         self.backlog_full = False
 
     # -- called from the asyncio loop ----------------------------------------------------------
-    def send(self, command: Command) -> None:
+    def send(self, command: driver_commands.Command) -> None:
         """Queue one engine command."""
         self.inbox.put(("command", command))
 
@@ -265,7 +272,7 @@ class InstrumentLink(threading.Thread):
                 self.generation = value
             elif kind == "session":
                 self.session_id = value
-            elif kind == "command" and value.action in ("beam", "bench_bias"):
+            elif kind == "command" and isinstance(value, driver_commands.BENCH_COMMANDS):
                 self._bench(value)
             else:
                 log.info("electrometer away: dropped command %s", value)
@@ -329,33 +336,33 @@ class InstrumentLink(threading.Thread):
         with contextlib.suppress(Exception):
             self.electrometer.close()
 
-    def _execute(self, command: Command) -> None:
-        action = command.action
-        if action in ("beam", "bench_bias"):
+    def _execute(self, command: driver_commands.Command) -> None:
+        if isinstance(command, driver_commands.BENCH_COMMANDS):
             self._bench(command)
             return
-        if action == "zero":
-            self.electrometer.zero()
-        elif action == "start":
-            self.electrometer.start_integration()
-        elif action == "stop":
-            self.electrometer.stop_integration()
-        elif action == "set_bias":
-            assert command.value is not None
-            self.electrometer.set_bias(command.value)
+        match command:
+            case driver_commands.Zero():
+                self.electrometer.zero()
+            case driver_commands.StartIntegration():
+                self.electrometer.start_integration()
+            case driver_commands.StopIntegration():
+                self.electrometer.stop_integration()
+            case driver_commands.SetBias(bias_V=bias_V):
+                self.electrometer.set_bias(bias_V)
         self.fresh_after_s = self.clock()
         self._timeouts = 0
 
-    def _bench(self, command: Command) -> None:
+    def _bench(self, command: driver_commands.BenchCommand) -> None:
         from chargebook.acquire.daemon.bench import BenchError
 
         if self.bench is None:
             return
         try:
-            if command.action == "beam":
-                self.bench.deliver(command.value)
-            else:
-                self.bench.turn_bias(command.value)
+            match command:
+                case driver_commands.DeliverBeam(monitor_units=monitor_units):
+                    self.bench.deliver(monitor_units)
+                case driver_commands.TurnBiasSwitch(bias_V=bias_V):
+                    self.bench.turn_bias(bias_V)
         except BenchError as error:
             self._hand_over("fault", str(error))
 
@@ -395,7 +402,7 @@ class InstrumentLink(threading.Thread):
             timeout_s = BURST_GAP_S
 
 
-def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
+def _snapshot_notification(snapshot: protocol.Snapshot) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
 
@@ -436,7 +443,7 @@ class Daemon:
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
         #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
-        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
+        self._built: tuple[int, protocol.Snapshot, bytes | None] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         self._published_event_id = 0
@@ -582,7 +589,7 @@ class Daemon:
             raise
         assert self.engine is not None and self.link is not None and self.store is not None
         self._record_start()
-        resumed = self.engine.restore()
+        resumed = self.engine.apply(inputs.Restart()) is True
         info_visit = self.visit_desk().visit_id
         self.link.session_id = self._line_session = self.engine.session_id
         await self.server.start()
@@ -648,24 +655,28 @@ class Daemon:
         previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
         assert self.store is not None
         session = self.store.open_session()
-        detail: dict[str, Any] = {"pid": os.getpid()}
+        session_id = session.id if session else None
         last = self.store.last_event_of(LIFECYCLE_EVENTS)
         if last is None:
-            kind = "daemon_started"
-        else:
-            kind = "daemon_restarted"
-            clean = last.kind == "daemon_stopped"
-            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
-            detail["previous_stop"] = last.detail().get("reason") if clean else None
-            detail["previous_pid"] = last.detail().get("pid")
-        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+            started = ev.DaemonStarted(pid=os.getpid())
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STARTED, started)
+            return
+        clean = last.kind == EventKind.DAEMON_STOPPED
+        restarted = ev.DaemonRestarted(
+            pid=os.getpid(),
+            previous_run="stopped cleanly" if clean else "crashed",
+            previous_stop=last.detail().get("reason") if clean else None,
+            previous_pid=last.detail().get("pid"),
+        )
+        self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
     def _record_stop(self) -> None:
         """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
         assert self.store is not None and self.engine is not None
-        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        detail = ev.DaemonStopped(pid=os.getpid(), reason=self._stop_reason)
         try:
-            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+            session_id = self.engine.session_id
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
         except Exception:  # the stop goes on; the next start will say the run crashed
             log.exception("could not record the daemon's stop")
 
@@ -768,11 +779,11 @@ class Daemon:
         engine = self.engine
         assert engine is not None
         if kind == "connected":
-            engine.instrument_back(payload)
+            engine.apply(inputs.InstrumentBack(identity=payload))
         elif kind == "lost":
-            engine.instrument_lost(payload)
+            engine.apply(inputs.InstrumentLost(message=payload))
         elif kind == "fault":
-            engine.instrument_lost(payload, still_connected=True)
+            engine.apply(inputs.InstrumentLost(message=payload, still_connected=True))
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 
@@ -784,13 +795,14 @@ class Daemon:
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
             try:
-                engine.on_sample(
-                    sample.t_s,
-                    sample.charge_nC,
-                    sample.complete,
-                    sample.status.value,
+                taken = inputs.Sample(
+                    t_s=sample.t_s,
+                    charge_nC=sample.charge_nC,
+                    complete=sample.complete,
+                    status=sample.status.value,
                     line_id=None if line is None else line.id,
                 )
+                engine.apply(taken)
             except Exception:
                 del samples[:index]  # those were taken; the rest are tried again
                 raise
@@ -802,7 +814,7 @@ class Daemon:
             try:
                 self._check_record()
                 if not self._faults:
-                    self.engine.tick()
+                    self.engine.apply(inputs.Tick())
                 await self.after_change()
             except Exception:  # supervised, as the instrument events are
                 self._unexpected("the clock tick")
@@ -814,8 +826,9 @@ class Daemon:
             return
         with contextlib.suppress(Exception):
             error = traceback.format_exc(limit=8)
+            failed: ev.DaemonError = {"while": doing, "error": error}
             self.store.add_event(
-                self.engine.session_id, "daemon", "daemon_error", {"while": doing, "error": error}
+                self.engine.session_id, DAEMON_ACTOR, EventKind.DAEMON_ERROR, failed
             )
 
     async def after_change(self) -> None:
@@ -874,11 +887,11 @@ class Daemon:
         for server in (self.server, self.watch_server):
             await server.broadcast_line(line)
 
-    def snapshot(self) -> dict[str, Any]:
+    def snapshot(self) -> protocol.Snapshot:
         """Return the engine's snapshot, trimmed to fit one message if it must be."""
         return self._snapshot_and_line()[0]
 
-    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
+    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[protocol.Snapshot, bytes | None]:
         """Return the engine's snapshot, trimmed to fit one message if it must be, and its
         notification line, encoded once (None if even the trimmed snapshot does not fit).
 
@@ -894,7 +907,7 @@ class Daemon:
         self._built = (seq, snapshot, line)
         return snapshot, line
 
-    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
+    def _build_snapshot(self) -> tuple[protocol.Snapshot, bytes | None]:
         assert self.engine is not None
         snapshot = self.engine.snapshot()
         snapshot["visit"] = self.visit_desk().snapshot()
@@ -915,7 +928,7 @@ class Daemon:
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
         """Carry out one request from ``connection`` and return its result."""
-        assert self.engine is not None
+        assert self.engine is not None and self.store is not None
         if method == protocol.Method.HELLO:
             connection.client = params.get("client") or connection.client
             connection.operator = params.get("operator")
@@ -940,6 +953,17 @@ class Daemon:
             review = self._review_visit(connection, params)
             await self.after_change()
             return review
+        if method == protocol.Method.ENVIRONMENT_READ:
+            if not await self._read_sensor(connection, required=True):
+                raise IllegalTransition(method, self.engine.state, self.engine.allowed(), "")
+            return self._snapshot_and_line(reuse=True)[0]
+        if method == protocol.Method.STEP_ARM:
+            await self._read_sensor(connection, required=False)  # the air before each set
+        if method in REGISTER_METHODS:
+            self._same_station(params)
+            with self.store.on_behalf_of(connection.account):
+                handler = REGISTER_METHODS[method]
+                return handler(self.store, params, connection.actor, self.engine.default_thresholds)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -951,7 +975,65 @@ class Daemon:
             raise IllegalTransition(method, self.engine.state, [], why) from error
         finally:
             await self.after_change()  # a refused request may still have recorded something
+        if method == protocol.Method.SESSION_START:
+            await self._read_sensor(connection, required=False)  # the air the session starts in
         return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+
+    async def _read_sensor(self, connection: Connection, *, required: bool) -> bool:
+        """Record an air entry read from the environment sensor, when one is configured and
+        the session takes one now; return True if one was recorded. A sensor that cannot be
+        read is logged (and raised when ``required``): the operator can still type the air."""
+        from chargebook.acquire.session.register_rows import sensor_entry
+        from chargebook.drivers_generic.sensor import open_sensor
+
+        assert self.engine is not None and self.store is not None
+        port = self.options.sensor_port
+        if port is None:
+            if required:
+                allowed = "a daemon started with serve --sensor-port DEVICE"
+                raise InputError("sensor", None, allowed, "is missing")
+            return False
+        if protocol.Method.ENVIRONMENT_SET not in self.engine.allowed():
+            return False
+
+        def read() -> Any:
+            with open_sensor(self.options.sensor_profile, port=port) as sensor:
+                return sensor.read()
+
+        try:
+            reading = await asyncio.to_thread(read)
+        except (InstrumentError, OSError) as error:
+            log.warning("the environment sensor on %s cannot be read: %s", port, error)
+            if required:
+                raise
+            return False
+        if reading.temperature_C is None or reading.pressure_kPa is None:
+            raise InputError("sensor", reading.written, "a temperature and a pressure", "lacks one")
+        entry = sensor_entry(
+            self.store,
+            reading.serial,
+            self.options.sensor_profile,
+            reading.temperature_C,
+            reading.pressure_kPa,
+            reading.written,
+        )
+        try:
+            with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
+                self.engine.set_environment(
+                    entry.temperature_C, entry.pressure_kPa, "kPa", None, entry.source,
+                    actor=DAEMON_ACTOR,
+                )  # fmt: skip
+        finally:
+            await self.after_change()
+        return True
+
+    def _same_station(self, params: dict[str, Any]) -> None:
+        """Refuse a request meant for another station file (its ``db``, when given)."""
+        meant = params.get("db")
+        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
+            raise InputError(
+                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
+            )
 
     def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
         """Record a review (``session.review``); the reviewer named in it is the actor."""
@@ -974,14 +1056,8 @@ class Daemon:
     ) -> dict[str, Any]:
         """Record a review of ``of`` with ``record`` on behalf of the connection's account;
         refuse a review meant for another station file (``db``)."""
-        from chargebook.corrections.errors import InputError
-
         assert self.store is not None
-        meant = params.get("db")
-        if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
-            raise InputError(
-                "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
-            )
+        self._same_station(params)
         with self.store.on_behalf_of(connection.account):
             review = record(
                 self.store,
@@ -1006,7 +1082,7 @@ class Daemon:
         engine, desk = self.engine, self.visit_desk()
         assert engine is not None
         M = protocol.Method
-        actions: dict[str, Callable[[], Any]] = {
+        visit_actions: dict[str, Callable[[], Any]] = {
             M.VISIT_START: lambda: desk.start(params["machine"], params["metadata"], actor),
             M.VISIT_ADD_BEAM: lambda: desk.add_beam(
                 params["metadata"], params.get("plan"), actor, params.get("register_ids")
@@ -1017,33 +1093,8 @@ class Daemon:
             M.VISIT_SKIP_BEAM: lambda: desk.skip_beam(params["beam"], params["reason"], actor),
             M.VISIT_CONFIRM_AIR: lambda: desk.confirm_air(actor),
             M.VISIT_CLOSE: lambda: desk.close(params.get("reason"), actor),
-            M.SESSION_START: lambda: engine.start_session(
-                params["metadata"],
-                params.get("plan"),
-                actor=actor,
-                mu_per_reading=params.get("mu_per_reading"),
-            ),
-            M.ENVIRONMENT_SET: lambda: engine.set_environment(
-                params["temperature_C"],
-                params["pressure"],
-                params.get("pressure_unit", "kPa"),
-                params.get("humidity_pct"),
-                params.get("source", "operator"),
-                actor=actor,
-            ),
-            M.STEP_ARM: lambda: engine.arm(actor=actor),
-            M.STEP_MANUAL_DONE: lambda: engine.manual_done(params.get("note"), actor=actor),
-            M.STEP_SKIP: lambda: engine.skip(actor=actor),
-            M.READING_CAPTURE: lambda: engine.capture(actor=actor),
-            M.READING_SHORT: lambda: engine.record_short_delivery(
-                params["reading"], params["actual_MU"], params["reason"], actor=actor
-            ),
-            M.SET_ACCEPT: lambda: engine.accept(actor=actor),
-            M.SET_REDO: lambda: engine.redo(params["reason"], actor=actor),
-            M.SESSION_PAUSE: lambda: engine.pause(actor=actor),
-            M.SESSION_RESUME: lambda: engine.resume(actor=actor),
-            M.SESSION_STOP: lambda: engine.stop(params["reason"], actor=actor),
-            M.SESSION_ABORT: lambda: engine.abort(params["reason"], params["confirm"], actor=actor),
-            M.SESSION_CLOSE: lambda: engine.close(actor=actor),
         }
-        actions[method]()
+        if method in visit_actions:
+            visit_actions[method]()  # a beam's session starts through the engine's input
+        else:
+            engine.apply(inputs.from_request(method, params, actor))

@@ -28,26 +28,33 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
-import functools
+import dataclasses
+import datetime
 import logging
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from typing import Any, ParamSpec, TypeVar
+from typing import Any
 
+from chargebook.acquire.engine import driver_commands, inputs
 from chargebook.acquire.engine.capture import (
     Captured,
     CaptureSettings,
     ReadingCapture,
     capture_settings,
 )
+from chargebook.acquire.engine.driver_commands import Command
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
-from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.protocol import EngineState, Method, ReadingPhase, Snapshot
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
+from chargebook.acquire.session.plan import Plan, Step
+from chargebook.acquire.session.register_rows import fill_from_registers
 from chargebook.corrections.delivered_mu import check_actual_MU
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
@@ -55,27 +62,16 @@ from chargebook.drivers_generic.interface import Capability
 
 log = logging.getLogger(__name__)
 S = EngineState
-P = ParamSpec("P")
-R = TypeVar("R")
 
-DAEMON_ACTOR = "daemon"
+DAEMON_ACTOR = inputs.DAEMON_ACTOR
+#: What an input's handler returns when the input changed nothing (so nothing is logged).
+UNCHANGED = object()
+#: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
+Results = tuple[dict[str, Any] | None, bool, str | None]
+#: A plan as the engine may be given it (see :mod:`inputs`).
+PlanSource = inputs.PlanSource
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
-#: The event recording the carried k_pol and k_s copied into a session at its start.
-CARRIED_EVENT = "carried_factors"
-
-
-@dataclass(frozen=True, slots=True)
-class Command:
-    """One thing the daemon must do for the engine.
-
-    ``action``: ``zero``, ``start`` / ``stop`` (integration), ``set_bias`` (volts, remote),
-    ``beam`` (the bench delivers ``value`` MU), ``bench_bias`` (the bench turns the bias switch
-    the operator confirmed, volts).
-    """
-
-    action: str
-    value: float | None = None
 
 
 class ConfirmationRequired(Exception):
@@ -100,27 +96,6 @@ class ActiveSet:
         return sum(1 for r in self.readings if not r.settling)
 
 
-def one_transaction(method: Callable[P, R]) -> Callable[P, R]:
-    """Run an Engine input (an operator action, an instrument change, a tick that ends a wait)
-    as one store transaction: all of its rows (set status, events, readings) or none.
-
-    This is the one place the engine's transaction boundary is drawn. If the input fails
-    part-way (an error, a commit the disk refuses), the store rolls the transaction back and
-    the engine's own state is put back as it was before the input, so memory and record agree.
-    Inputs nest (an action calling another is one transaction, the inner one a savepoint).
-    """
-
-    @functools.wraps(method)
-    def run(*args: P.args, **kwargs: P.kwargs) -> R:
-        engine = args[0]
-        assert isinstance(engine, Engine)
-        with engine.all_or_nothing():
-            return method(*args, **kwargs)
-
-    run.one_transaction = True  # type: ignore[attr-defined]  # checked by the tests
-    return run
-
-
 class Engine:
     """The sequence state machine over one store. See the module docstring."""
 
@@ -131,7 +106,7 @@ class Engine:
         capabilities: frozenset[Capability] | set[Capability] = frozenset(),
         bench: bool = False,
         clock: Callable[[], float] = time.monotonic,
-        default_plan: Any = "default",
+        default_plan: PlanSource = "default",
         profile: str = "",
         time_scale: float = 1.0,
         thresholds: Thresholds | None = None,
@@ -150,12 +125,12 @@ class Engine:
         self.state = S.IDLE
         self.paused_from: EngineState | None = None
         self.session_id: int | None = None
-        self.plan: Any = None
+        self.plan: Plan | None = None
         self.metadata: dict[str, Any] = {}
         self.step_index: int | None = None
         self.active: ActiveSet | None = None
         self.bias_V: float | None = None  # the chamber bias as last set or confirmed
-        self.pending_manual: dict[str, Any] | None = None
+        self.pending_manual: ev.ManualAction | None = None
         self.skipped: set[int] = set()
         self.reading: ReadingCapture | None = None
         self.settle_until_s: float | None = None
@@ -173,14 +148,17 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self.actual_MU: dict[int, float] = {}  # reading id -> MU delivered, when stopped short
+        #: Samples taken since the last input logged, logged with the next one (in order).
+        self._unlogged_samples: list[inputs.Sample] = []
+        self._input_clock_s: float | None = None  # the clock of the input being applied
         self._commands: list[Command] = []
-        self._results_cache: tuple[int, Any] | None = None
+        self._results_cache: tuple[int, Results] | None = None
         self.seq = 0  # every snapshot
         self.data_version = 0  # every change of what is recorded or of the state
 
     # ------------------------------------------------------------------------ plumbing
     @property
-    def step(self) -> Any:
+    def step(self) -> Step | None:
         """Return the current plan step (None outside a session or after the last step)."""
         if self.plan is None or self.step_index is None:
             return None
@@ -220,25 +198,38 @@ class Engine:
         """Count a new snapshot for the reading in progress (results stay cached)."""
         self.seq += 1
 
-    def _goto(self, new: EngineState, action: str, actor: str, **detail: Any) -> None:
+    def _goto(
+        self,
+        new: EngineState,
+        action: str,
+        actor: str,
+        *,
+        set_id: int | None = None,
+        wait_s: float | None = None,
+        reason: str | None = None,
+        next_step: int | None = None,
+    ) -> None:
         check_transition(self.state, new, action)
         old = self.state
         self.state = new
         log.info("%s: %s -> %s", action, old.value, new.value)
-        if self.session_id is not None:
-            self.store.add_event(
-                self.session_id,
-                actor,
-                "state_changed",
-                {"from": old.value, "to": new.value, "action": action, **detail},
-            )
+        change: ev.StateChanged = {"from": old.value, "to": new.value, "action": action}
+        if set_id is not None:
+            change["set_id"] = set_id
+        if wait_s is not None:
+            change["wait_s"] = wait_s
+        if reason is not None:
+            change["reason"] = reason
+        if next_step is not None:
+            change["next_step"] = next_step
+        self._event(actor, EventKind.STATE_CHANGED, change)
 
-    def _event(self, actor: str, kind: str, **detail: Any) -> None:
+    def _event(self, actor: str, kind: EventKind, detail: Mapping[str, object]) -> None:
         if self.session_id is not None:
             self.store.add_event(self.session_id, actor, kind, detail)
 
-    def _issue(self, action: str, value: float | None = None) -> None:
-        self._commands.append(Command(action, value))
+    def _issue(self, command: Command) -> None:
+        self._commands.append(command)
 
     def _can(self, capability: Capability) -> bool:
         return capability in self.capabilities
@@ -246,7 +237,7 @@ class Engine:
     @contextmanager
     def all_or_nothing(self) -> Iterator[None]:
         """Run the block as one store transaction; on an error, roll the record back and put
-        the engine's state back as it was (see :func:`one_transaction`)."""
+        the engine's state back as it was (see :meth:`apply`)."""
         saved = self._checkpoint()
         try:
             with self.store.atomic():
@@ -275,6 +266,164 @@ class Engine:
         if self.active is not None and readings is not None:
             self.active.readings = readings
 
+    # -------------------------------------------------------------------------- inputs
+    def apply(self, given: inputs.Input) -> Any:
+        """Apply one input: the only way the engine's state changes. Return what its handler
+        returns (a new session's id, an environment entry's id, or None).
+
+        An input that changes the session runs as one store transaction with the input logged
+        in it (table ``inputs``), beside all of its effects: all of them or none. If it fails
+        part-way (an error, a commit the disk refuses), the store rolls the transaction back
+        and the engine's own state is put back as it was before the input, so memory and
+        record agree. An input refused (an illegal action, bad values) raises and
+        leaves nothing. Samples that only move the charge and ticks that end no wait write
+        nothing; a sample is logged with the next input that writes.
+        """
+        if given.clock_s is None:
+            given = dataclasses.replace(given, clock_s=self.clock())
+        assert given.clock_s is not None
+        if isinstance(given, inputs.Sample):
+            return self._take_sample(given)
+        if isinstance(given, inputs.Tick) and not self._wait_over(given.clock_s):
+            return None
+        handler = HANDLERS[type(given)]
+        return self._in_transaction(given, lambda: handler(self, given))
+
+    def _in_transaction(self, given: inputs.Input, handle: Callable[[], Any]) -> Any:
+        """Run ``handle`` for ``given`` in one transaction and log ``given`` with its effects
+        (not when it returns UNCHANGED: then nothing was recorded, and None is returned)."""
+        session_id = self.session_id
+        with self.all_or_nothing():
+            self._input_clock_s = given.clock_s
+            try:
+                result = handle()
+            finally:
+                self._input_clock_s = None
+            if result is UNCHANGED:
+                return None
+            self._log(session_id if session_id is not None else self.session_id, given)
+        return result
+
+    def _log(self, session_id: int | None, given: inputs.Input) -> None:
+        """Append ``given`` to the input log, after the samples taken before it."""
+        entries = [*self._unlogged_samples, given] if session_id is not None else [given]
+        self.store.add_inputs(session_id, [(e.kind, e.actor, e.fields()) for e in entries])
+        self._unlogged_samples = []
+
+    def _now(self) -> float:
+        """Return the engine's clock: the one of the input being applied (s)."""
+        return self.clock() if self._input_clock_s is None else self._input_clock_s
+
+    # The operator's actions and the daemon's inputs, by name: each builds its input and
+    # applies it (see :mod:`chargebook.acquire.engine.inputs` for what each does).
+    def start_session(
+        self,
+        metadata: dict[str, Any],
+        plan: PlanSource | None = None,
+        actor: str = DAEMON_ACTOR,
+        mu_per_reading: float | None = None,
+    ) -> int:
+        """Open a session with validated metadata and a plan (MU per reading as chosen, or
+        the plan's when None); return its id."""
+        started = inputs.StartSession(
+            metadata=metadata, plan=plan, actor=actor, mu_per_reading=mu_per_reading
+        )
+        session_id: int = self.apply(started)
+        return session_id
+
+    def record_short_delivery(
+        self, reading_id: int, actual_MU: float, reason: str, actor: str = DAEMON_ACTOR
+    ) -> None:
+        """Record that a reading's delivery stopped short at ``actual_MU``, for ``reason``."""
+        self.apply(
+            inputs.ShortDelivery(
+                reading=reading_id, actual_MU=actual_MU, reason=reason, actor=actor
+            )
+        )
+
+    def set_environment(
+        self,
+        temperature_C: float,
+        pressure: float,
+        pressure_unit: str = "kPa",
+        humidity_pct: float | None = None,
+        source: str = "operator",
+        actor: str = DAEMON_ACTOR,
+    ) -> int:
+        """Record an environment entry (°C, pressure in its unit, % RH); return its id."""
+        entry = inputs.EnterEnvironment(
+            temperature_C=temperature_C,
+            pressure=pressure,
+            pressure_unit=pressure_unit,
+            humidity_pct=humidity_pct,
+            source=source,
+            actor=actor,
+        )
+        entry_id: int = self.apply(entry)
+        return entry_id
+
+    def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.ManualDone(note=note, actor=actor))
+
+    def skip(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Skip(actor=actor))
+
+    def arm(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Arm(actor=actor))
+
+    def capture(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Capture(actor=actor))
+
+    def accept(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Accept(actor=actor))
+
+    def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Redo(reason=reason, actor=actor))
+
+    def pause(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Pause(actor=actor))
+
+    def resume(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Resume(actor=actor))
+
+    def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Stop(reason=reason, actor=actor))
+
+    def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Abort(reason=reason, confirm=confirm, actor=actor))
+
+    def close(self, actor: str = DAEMON_ACTOR) -> None:
+        self.apply(inputs.Close(actor=actor))
+
+    def on_sample(
+        self,
+        t_s: float,
+        charge_nC: float,
+        complete: bool = False,
+        status: str = "ok",
+        *,
+        line_id: int | None = None,
+    ) -> None:
+        """Give the engine one sample (see :class:`inputs.Sample`)."""
+        sample = inputs.Sample(
+            t_s=t_s, charge_nC=charge_nC, complete=complete, status=status, line_id=line_id
+        )
+        self.apply(sample)
+
+    def tick(self, now_s: float | None = None) -> None:
+        """End a settling wait that is over at ``now_s`` (s on the engine's clock)."""
+        self.apply(inputs.Tick(clock_s=now_s))
+
+    def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
+        self.apply(inputs.InstrumentLost(message=message, still_connected=still_connected))
+
+    def instrument_back(self, identity: str | None = None) -> None:
+        self.apply(inputs.InstrumentBack(identity=identity))
+
+    def restore(self) -> bool:
+        """Resume the store's open session, if any; return True when one was resumed."""
+        return self.apply(inputs.Restart()) is True
+
     # -------------------------------------------------------------------------- guards
     def refusal(self, action: str) -> str | None:
         """Return why ``action`` is not legal now, in words, or None when it is."""
@@ -290,6 +439,7 @@ class Engine:
             if not self.instrument_connected:
                 return "the electrometer is not connected"
             if self.state is S.WAITING_FOR_OPERATOR:
+                assert self.session_id is not None  # waiting: a session is open
                 if not self.store.environment(self.session_id):
                     return "enter the air temperature and pressure first (environment.set)"
                 if self.pending_manual is not None:
@@ -313,102 +463,94 @@ class Engine:
             raise IllegalTransition(action, self.state, self.allowed(), why)
 
     # ----------------------------------------------------------------- session actions
-    @one_transaction
-    def start_session(
-        self,
-        metadata: dict[str, Any],
-        plan: Any = None,
-        actor: str = DAEMON_ACTOR,
-        mu_per_reading: float | None = None,
-    ) -> int:
+    def _on_start_session(self, given: inputs.StartSession) -> int:
         """Open a session with validated metadata and a plan; return its id.
 
-        ``mu_per_reading``: the MU per reading the operator chose in the setup for the plan's
-        compared steps (routine, opposite, reduced, return check), instead of the plan's.
+        ``given.mu_per_reading``: the MU per reading the operator chose in the setup for the
+        plan's compared steps (routine, opposite, reduced, return check), instead of the plan's.
         """
+        metadata, plan, actor = given.metadata, given.plan, given.actor
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
         planned_mu = resolved.result_mu_per_reading()
-        if mu_per_reading is not None:
-            resolved = resolved.with_mu_per_reading(mu_per_reading)
-        checked = rules.validate_metadata(
-            carried_metadata(
-                self.store, rules.validate_metadata(metadata), resolved, self.store.stamp()[:10]
-            )
+        if given.mu_per_reading is not None:
+            resolved = resolved.with_mu_per_reading(given.mu_per_reading)
+        today = self.store.stamp()[:10]
+        filled = fill_from_registers(
+            self.store,
+            metadata,
+            on=datetime.date.fromisoformat(today),
+            validity_years=self.default_thresholds.certificate_validity_years,
         )
+        checked = rules.validate_metadata(filled)
+        if given.replay_of is None:
+            checked = rules.validate_metadata(
+                carried_metadata(self.store, checked, resolved, today)
+            )
         session_id = self.store.create_session(
             metadata=checked,
             plan=resolved.to_dict(),
             convention=str(checked["convention"]),
             beam=str(checked["beam"]),
+            replay_of=given.replay_of,
             actor=actor,
         )
         self.session_id, self.plan, self.metadata = session_id, resolved, checked
         self.skipped, self.active, self.bias_V = set(), None, None
         self.integration_s, self.actual_MU = {}, {}
         self.thresholds = self.default_thresholds
-        self._event(actor, rules.THRESHOLDS_EVENT, **asdict(self.thresholds))
-        self._event(
-            actor, rules.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale
-        )
+        self._event(actor, EventKind.THRESHOLDS, asdict(self.thresholds))
+        acquisition = ev.Acquisition(profile=self.profile, time_scale=self.time_scale)
+        self._event(actor, EventKind.ACQUISITION, acquisition)
         carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
         if carried:
-            self._event(actor, CARRIED_EVENT, **carried)
-        if mu_per_reading is not None:
-            self._event(
-                actor,
-                "mu_per_reading_set",
-                plan_MU=planned_mu,
-                mu_per_reading=resolved.result_mu_per_reading(),
+            self._event(actor, EventKind.CARRIED_FACTORS, carried)
+        if given.mu_per_reading is not None:
+            chosen_mu = ev.MuPerReadingSet(
+                plan_MU=planned_mu, mu_per_reading=resolved.result_mu_per_reading()
             )
+            self._event(actor, EventKind.MU_PER_READING_SET, chosen_mu)
         if checked.get("subtract_leakage"):
-            self._event(actor, rules.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
+            chosen = ev.LeakageSubtractionChosen(subtract_leakage=True)
+            self._event(actor, EventKind.LEAKAGE_SUBTRACTION_CHOSEN, chosen)
         if self.identity is not None:
-            self._event(
-                DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
-            )
+            identified = ev.InstrumentIdentified(identity=self.identity, profile=self.profile)
+            self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, identified)
         self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
         self._enter_step(0, actor)
         self._changed()
         return session_id
 
-    @one_transaction
-    def set_environment(
-        self,
-        temperature_C: float,
-        pressure: float,
-        pressure_unit: str = "kPa",
-        humidity_pct: float | None = None,
-        source: str = "operator",
-        actor: str = DAEMON_ACTOR,
-    ) -> int:
+    def _on_environment(self, given: inputs.EnterEnvironment) -> int:
         """Record an environment entry (°C, pressure in its unit, % RH) after range checks."""
         self._require(Method.ENVIRONMENT_SET)
-        entry = rules.check_environment(temperature_C, pressure, pressure_unit, humidity_pct)
+        entry = rules.check_environment(
+            given.temperature_C, given.pressure, given.pressure_unit, given.humidity_pct
+        )
+        source, actor = given.source, given.actor
         assert self.session_id is not None
         entry_id = self.store.add_environment(self.session_id, source=source, **entry)
-        self._event(actor, "environment_entered", environment_id=entry_id, source=source, **entry)
+        entered = ev.EnvironmentEntered(environment_id=entry_id, source=source, **entry)
+        self._event(actor, EventKind.ENVIRONMENT_ENTERED, entered)
         self._changed()
         return entry_id
 
-    @one_transaction
-    def record_short_delivery(
-        self, reading_id: int, actual_MU: float, reason: str, actor: str = DAEMON_ACTOR
-    ) -> None:
-        """Record that the delivery of a reading of this session stopped short at ``actual_MU``
-        (the MU the treatment machine reports), with the operator's reason; the results then
-        refer the reading to the planned MU. Refused by name for a reading of another session
-        or without beam, an MU not below the planned, an empty reason, or a second record."""
-        if self.session_id is None or self.state in (S.IDLE, S.FINISHED, S.ABORTED):
-            raise IllegalTransition(
-                Method.READING_SHORT, self.state, self.allowed(), "no session is being measured"
-            )
+    def _on_short_delivery(self, given: inputs.ShortDelivery) -> None:
+        """Record that the delivery of a reading of this session stopped short at
+        ``given.actual_MU`` (the MU the treatment machine reports), with the operator's reason;
+        the results then refer the reading to the planned MU. Refused by name for a reading of
+        another session or without beam, an MU not below the planned, an empty reason, or a
+        second record."""
+        reading_id, reason = given.reading, given.reason
+        self._require(Method.READING_SHORT)
+        assert self.session_id is not None
         found = [r for r in self.store.readings(self.session_id) if r.id == reading_id]
         if not found:
             raise InputError(
                 "reading", reading_id, f"a reading of session {self.session_id}", "is not one"
             )
         reading = found[0]
+        assert self.plan is not None
         step = self.plan.steps[self.store.reading_set(reading.set_id).step_index]
         if not step.uses_beam:
             raise InputError("reading", reading_id, "a reading with beam", "was read without beam")
@@ -420,49 +562,51 @@ class Engine:
                 f"is already recorded at {self.actual_MU[reading_id]:g} MU",
             )
         planned = float(step.mu_per_reading)
-        actual = check_actual_MU(actual_MU, planned)
+        actual = check_actual_MU(given.actual_MU, planned)
         if not isinstance(reason, str) or not reason.strip():
             raise InputError("reason", reason, "why the delivery stopped short", "is empty")
-        self._event(
-            actor,
-            rules.SHORT_DELIVERY_EVENT,
+        short = ev.DeliveryShort(
             reading_id=reading_id,
             set_id=reading.set_id,
             planned_MU=planned,
             actual_MU=actual,
             reason=reason.strip(),
         )
+        self._event(given.actor, EventKind.DELIVERY_SHORT, short)
         self.actual_MU[reading_id] = actual
         self._changed()
 
-    @one_transaction
-    def manual_done(self, note: str | None = None, actor: str = DAEMON_ACTOR) -> None:
+    def _on_manual_done(self, given: inputs.ManualDone) -> None:
         """Record that the pending manual step was done by hand (who: ``actor``)."""
+        note, actor = given.note, given.actor
         self._require(Method.STEP_MANUAL_DONE)
         manual = self.pending_manual
         assert manual is not None
-        self._event(actor, "manual_step_done", by_hand=True, note=note, **manual)
-        if manual.get("action") == "set_bias":
+        done = ev.ManualStepDone(by_hand=True, note=note, **manual)
+        self._event(actor, EventKind.MANUAL_STEP_DONE, done)
+        if manual["action"] == "set_bias":
             self.bias_V = float(manual["volts"])
-            self._event(actor, "bias_changed", volts=self.bias_V, how="by hand")
+            changed = ev.BiasChanged(volts=self.bias_V, how="by hand")
+            self._event(actor, EventKind.BIAS_CHANGED, changed)
             if self.bench:
-                self._issue("bench_bias", self.bias_V)
+                self._issue(driver_commands.TurnBiasSwitch(self.bias_V))
         self.pending_manual = None
         self._changed()
 
-    @one_transaction
-    def skip(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_skip(self, given: inputs.Skip) -> None:
         """Skip the current (optional) step."""
+        actor = given.actor
         self._require(Method.STEP_SKIP)
-        assert self.step_index is not None
-        self._event(actor, "step_skipped", step_index=self.step_index, step_key=self.step.key)
+        assert self.step_index is not None and self.step is not None
+        skipped = ev.StepSkipped(step_index=self.step_index, step_key=self.step.key)
+        self._event(actor, EventKind.STEP_SKIPPED, skipped)
         self.skipped.add(self.step_index)
         self._advance(actor, Method.STEP_SKIP)
         self._changed()
 
-    @one_transaction
-    def arm(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_arm(self, given: inputs.Arm) -> None:
         """Start the current step's set (or continue an interrupted one)."""
+        actor = given.actor
         self._require(Method.STEP_ARM)
         if self.state is S.INTERRUPTED:
             assert self.active is not None
@@ -483,15 +627,15 @@ class Engine:
         self._apply_bias(actor)
         wait_s = rules.settling_wait_s(step) * self.time_scale
         if wait_s > 0:
-            self.settle_until_s = self.clock() + wait_s
+            self.settle_until_s = self._now() + wait_s
             self._goto(S.SETTLING, Method.STEP_ARM, actor, set_id=set_id, wait_s=wait_s)
         else:
             self._begin_reading(actor, Method.STEP_ARM)
         self._changed()
 
-    @one_transaction
-    def capture(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_capture(self, given: inputs.Capture) -> None:
         """Capture the charge integrated so far (as of the latest sample) as a manual reading."""
+        actor = given.actor
         self._require(Method.READING_CAPTURE)
         assert self.reading is not None and self.reading.last_t_s is not None
         captured = self.reading.capture_now(self.reading.last_t_s)
@@ -499,9 +643,9 @@ class Engine:
             self._record(captured, actor)
         self._changed()
 
-    @one_transaction
-    def accept(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_accept(self, given: inputs.Accept) -> None:
         """Accept the reviewed set and go on to the next step (or finish)."""
+        actor = given.actor
         self._require(Method.SET_ACCEPT)
         assert self.active is not None
         self.store.set_set_status(self.active.id, "accepted", actor=actor)
@@ -510,11 +654,10 @@ class Engine:
         self._advance(actor, Method.SET_ACCEPT)
         self._changed()
 
-    @one_transaction
-    def redo(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+    def _on_redo(self, given: inputs.Redo) -> None:
         """Mark the current set superseded with ``reason`` and rewind to the same step."""
         self._require(Method.SET_REDO)
-        reason = rules.require_reason("reason", reason)
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
         self._drop_reading(actor, "redo")
         self.notice = None  # the operator chose to start the set again: nothing to repeat
         if self.active is not None:
@@ -524,18 +667,18 @@ class Engine:
         self._goto(S.WAITING_FOR_OPERATOR, Method.SET_REDO, actor, reason=reason)
         self._changed()
 
-    @one_transaction
-    def pause(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_pause(self, given: inputs.Pause) -> None:
         """Hold the sequence; a reading in progress is dropped and logged."""
+        actor = given.actor
         self._require(Method.SESSION_PAUSE)
         self._drop_reading(actor, "pause")
         self.paused_from = self.state
         self._goto(S.PAUSED, Method.SESSION_PAUSE, actor)
         self._changed()
 
-    @one_transaction
-    def resume(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_resume(self, given: inputs.Resume) -> None:
         """Return to the state the session was paused from; re-arm a set that was collecting."""
+        actor = given.actor
         self._require(Method.SESSION_RESUME)
         target = self.paused_from or S.WAITING_FOR_OPERATOR
         self.paused_from = None
@@ -544,7 +687,7 @@ class Engine:
         if target in (S.SETTLING, S.COLLECTING):
             if self.settle_until_s is not None:
                 wait_s = rules.settling_wait_s(self.step) * self.time_scale
-                self.settle_until_s = self.clock() + wait_s
+                self.settle_until_s = self._now() + wait_s
                 self._goto(S.SETTLING, Method.SESSION_RESUME, actor)
             else:
                 self._begin_reading(actor, Method.SESSION_RESUME)
@@ -552,27 +695,25 @@ class Engine:
             self._goto(target, Method.SESSION_RESUME, actor)
         self._changed()
 
-    @one_transaction
-    def stop(self, reason: str, actor: str = DAEMON_ACTOR) -> None:
+    def _on_stop(self, given: inputs.Stop) -> None:
         """End the session early as finished; a set not yet accepted is closed as aborted."""
         self._require(Method.SESSION_STOP)
-        reason = rules.require_reason("reason", reason)
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
         self._close_session("finished", S.FINISHED, Method.SESSION_STOP, reason, actor)
 
-    @one_transaction
-    def abort(self, reason: str, confirm: bool = False, actor: str = DAEMON_ACTOR) -> None:
+    def _on_abort(self, given: inputs.Abort) -> None:
         """Abandon the session (needs confirm=True); everything recorded is kept."""
         self._require(Method.SESSION_ABORT)
-        reason = rules.require_reason("reason", reason)
-        if confirm is not True:
+        reason, actor = rules.require_reason("reason", given.reason), given.actor
+        if given.confirm is not True:
             raise ConfirmationRequired(
                 "abort needs confirm = true: the session will end as aborted (nothing is deleted)"
             )
         self._close_session("aborted", S.ABORTED, Method.SESSION_ABORT, reason, actor)
 
-    @one_transaction
-    def close(self, actor: str = DAEMON_ACTOR) -> None:
+    def _on_close(self, given: inputs.Close) -> None:
         """Leave a finished or aborted session; the engine is idle again."""
+        actor = given.actor
         self._require(Method.SESSION_CLOSE)
         self._goto(S.IDLE, Method.SESSION_CLOSE, actor)
         self.session_id, self.plan, self.step_index, self.active = None, None, None, None
@@ -594,69 +735,64 @@ class Engine:
         self._changed()
 
     # ---------------------------------------------------------------- instrument input
-    def on_sample(
-        self,
-        t_s: float,
-        charge_nC: float,
-        complete: bool = False,
-        status: str = "ok",
-        *,
-        line_id: int | None = None,
-    ) -> None:
+    def _take_sample(self, sample: inputs.Sample) -> None:
         """Take one sample from the instrument (charge in nC, receive time in s on the driver's
         clock; its raw line, row ``line_id``, is in the store before the sample reaches the
-        engine). A reading names the raw line of the sample it was taken at."""
+        engine). A reading names the raw line of the sample it was taken at.
+
+        A sample that only moves the charge writes nothing: it is kept, in order, and logged
+        with the next input that writes (the capture it leads to, or any other). Such a sample
+        changes only what is in memory, which a crash loses with it.
+        """
         reading = self.reading
         if reading is None:
             return
-        before = vars(reading).copy(), self.reading_status
-        self.reading_status = status
-        if t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
-            self.sample_line_id = line_id
-        captured = reading.feed(t_s, charge_nC, complete)
+        before = vars(reading).copy(), self.reading_status, self.sample_line_id
+        self.reading_status = sample.status
+        if sample.t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
+            self.sample_line_id = sample.line_id
+        self._unlogged_samples.append(sample)
+        captured = reading.feed(sample.t_s, sample.charge_nC, sample.complete)
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
+        self._unlogged_samples.pop()  # logged as the input of the capture's transaction
         try:
-            self._record_captured(captured)
+            self._in_transaction(sample, lambda: self._record_captured(captured))
         except BaseException:  # the sample is not taken: the next one may capture again
             vars(reading).update(before[0])
-            self.reading_status = before[1]
+            self.reading_status, self.sample_line_id = before[1], before[2]
             raise
 
-    @one_transaction
     def _record_captured(self, captured: Captured) -> None:
-        """Record a captured reading and all that follows from it in one transaction."""
+        """Record a captured reading and all that follows from it."""
         self._record(captured, DAEMON_ACTOR)
         self._changed()
 
-    def tick(self, now_s: float | None = None) -> None:
-        """End a settling wait that is over at ``now_s`` (s on the engine's clock).
+    def _wait_over(self, now_s: float) -> bool:
+        """Return True when a settling wait is over at ``now_s`` (s on the engine's clock)."""
+        waiting = self.state is S.SETTLING and self.reading is None
+        return waiting and self.settle_until_s is not None and now_s >= self.settle_until_s
 
-        Readings are not captured here: the hold time and a timed integration end with the
+    def _on_tick(self, given: inputs.Tick) -> None:
+        """Begin the reading a settling wait held back.
+
+        Readings are not captured on ticks: the hold time and a timed integration end with the
         first sample received after them (see the module docstring).
         """
-        now_s = self.clock() if now_s is None else now_s
-        waiting = self.state is S.SETTLING and self.reading is None
-        if waiting and self.settle_until_s is not None and now_s >= self.settle_until_s:
-            self._end_settling_wait()
-
-    @one_transaction
-    def _end_settling_wait(self) -> None:
-        """Begin the reading a settling wait held back, in one transaction."""
         self.settle_until_s = None
         self._begin_reading(DAEMON_ACTOR, "settling wait over")
         self._changed()
 
-    @one_transaction
-    def instrument_lost(self, message: str, *, still_connected: bool = False) -> None:
+    def _on_instrument_lost(self, given: inputs.InstrumentLost) -> object:
         """The electrometer went away (or failed a command, ``still_connected``): a set in
         progress becomes interrupted with its readings kept."""
         if not self.instrument_connected:
-            return
+            return UNCHANGED
+        message, still_connected = given.message, given.still_connected
         self.instrument_connected = still_connected
         self.instrument_message = message
-        kind = "instrument_fault" if still_connected else "instrument_lost"
-        self._event(DAEMON_ACTOR, kind, message=message)
+        kind = EventKind.INSTRUMENT_FAULT if still_connected else EventKind.INSTRUMENT_LOST
+        self._event(DAEMON_ACTOR, kind, ev.InstrumentMessage(message=message))
         busy = (S.SETTLING, S.COLLECTING)
         if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
             self._drop_reading(DAEMON_ACTOR, "instrument lost")
@@ -668,6 +804,7 @@ class Engine:
             else:
                 self._goto(S.INTERRUPTED, "instrument lost", DAEMON_ACTOR, reason=message)
         self._changed()
+        return None
 
     def instrument_unreachable(self, message: str) -> None:
         """The electrometer cannot be reached yet (or again): show why, while it stays away."""
@@ -676,22 +813,25 @@ class Engine:
         self.instrument_message = message
         self._changed()
 
-    @one_transaction
-    def instrument_back(self, identity: str | None = None) -> None:
+    def _on_instrument_back(self, given: inputs.InstrumentBack) -> object:
         """The electrometer answers again (or for the first time); record who it says it is
-        (``identity``, an ``instrument_identified`` event) with its return, in one transaction."""
+        (``identity``, an ``instrument_identified`` event) with its return."""
+        identity = given.identity
         if identity:
             self.identity = identity
-            detail = {"identity": identity, "profile": self.profile}
+            detail = ev.InstrumentIdentified(identity=identity, profile=self.profile)
             # recorded outside any session too: a report finds the instrument of a session
             # started later from the station's latest identification
-            self.store.add_event(self.session_id, DAEMON_ACTOR, "instrument_identified", detail)
+            self.store.add_event(
+                self.session_id, DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, detail
+            )
         if self.instrument_connected and self.instrument_message is None:
             self._changed()
-            return
+            return None if identity else UNCHANGED
         self.instrument_connected, self.instrument_message = True, None
-        self._event(DAEMON_ACTOR, "instrument_back", identity=identity)
+        self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_BACK, ev.InstrumentBack(identity=identity))
         self._changed()
+        return None
 
     def wants_samples(self) -> bool:
         """Return True while a reading is being integrated (the daemon then reads samples)."""
@@ -705,8 +845,9 @@ class Engine:
         if step is None:
             return
         if not self._can(Capability.SET_BIAS) and self.bias_V != step.bias_V:
-            self.pending_manual = {"action": "set_bias", "volts": float(step.bias_V)}
-        self._event(actor, "step_entered", step_index=index, step_key=step.key)
+            self.pending_manual = ev.ManualAction(action="set_bias", volts=float(step.bias_V))
+        entered = ev.StepEntered(step_index=index, step_key=step.key)
+        self._event(actor, EventKind.STEP_ENTERED, entered)
 
     def _advance(self, actor: str, action: str) -> None:
         assert self.step_index is not None and self.plan is not None
@@ -723,18 +864,19 @@ class Engine:
     def _apply_bias(self, actor: str) -> None:
         step = self.step
         if self._can(Capability.SET_BIAS) and step is not None:
-            self._issue("set_bias", float(step.bias_V))
+            self._issue(driver_commands.SetBias(float(step.bias_V)))
             if self.bias_V != step.bias_V:
                 self.bias_V = float(step.bias_V)
-                self._event(actor, "bias_changed", volts=self.bias_V, how="remote")
+                changed = ev.BiasChanged(volts=self.bias_V, how="remote")
+                self._event(actor, EventKind.BIAS_CHANGED, changed)
 
     def _settling_needed(self) -> bool:
-        assert self.active is not None
+        assert self.active is not None and self.step is not None
         return rules.settling_needed(self.step, self.active.readings, MAX_SETTLING_READINGS)
 
     def _begin_reading(self, actor: str, action: str) -> None:
         step = self.step
-        assert step is not None and self.active is not None
+        assert step is not None and self.active is not None and self.plan is not None
         settling = self._settling_needed()
         new_state = S.SETTLING if settling else S.COLLECTING
         if self.instrument_connected:
@@ -745,26 +887,27 @@ class Engine:
         timed_s = rules.timed_s(step)
         self.reading = ReadingCapture(
             capture_settings(self.plan, self.time_scale),
-            self.clock(),
+            self._now(),
             None if timed_s is None else timed_s * self.time_scale,
             baseline_nC=0.0 if zeroed else None,
         )
         self.reading_status = "ok"
         if self._can(Capability.ZERO):
-            self._issue("zero")
+            self._issue(driver_commands.Zero())
         if self._can(Capability.INTEGRATE):
-            self._issue("start")
+            self._issue(driver_commands.StartIntegration())
         if self.bench and float(step.mu_per_reading) > 0:
-            self._issue("beam", float(step.mu_per_reading))
+            self._issue(driver_commands.DeliverBeam(float(step.mu_per_reading)))
 
     def _drop_reading(self, actor: str, why: str) -> None:
         if self.reading is None:
             return
-        self._event(actor, "reading_dropped", why=why, charge_nC=self.reading.last_charge_nC)
+        dropped = ev.ReadingDropped(why=why, charge_nC=self.reading.last_charge_nC)
+        self._event(actor, EventKind.READING_DROPPED, dropped)
         self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
-            self._issue("stop")
+            self._issue(driver_commands.StopIntegration())
 
     def _record(self, captured: Captured, actor: str) -> None:
         step, active = self.step, self.active
@@ -775,7 +918,7 @@ class Engine:
         self.reading = None
         self.notice = None
         if self._can(Capability.INTEGRATE):
-            self._issue("stop")
+            self._issue(driver_commands.StopIntegration())
         reading_id = self.store.add_reading(
             self.session_id,
             active.id,
@@ -789,9 +932,7 @@ class Engine:
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s
-        self._event(
-            actor,
-            "reading_recorded",
+        recorded = ev.ReadingRecorded(
             reading_id=reading_id,
             set_id=active.id,
             charge_nC=captured.charge_nC,
@@ -800,6 +941,7 @@ class Engine:
             integration_s=captured.integration_s,
             armed_t_s=armed_t_s,
         )
+        self._event(actor, EventKind.READING_RECORDED, recorded)
         if self._settling_needed() or active.used_count < int(step.readings):
             self._begin_reading(actor, "reading recorded")
             return
@@ -807,17 +949,18 @@ class Engine:
         self._goto(S.REVIEWING, "set complete", actor, set_id=active.id)
 
     # ------------------------------------------------------------------------ restart
-    @one_transaction
-    def restore(self) -> bool:
+    def _on_restart(self, given: inputs.Restart) -> object:
         """Resume the store's open session, if any; return True when one was resumed."""
         row = self.store.open_session()
         if row is None:
-            return False
+            return UNCHANGED
         self.session_id, self.metadata = row.id, row.metadata()
         self.plan = rules.resolve_plan(row.plan())
         events = self.store.events(row.id)
-        self.skipped = {e.detail()["step_index"] for e in events if e.kind == "step_skipped"}
-        bias_events = [e.detail() for e in events if e.kind == "bias_changed"]
+        self.skipped = {
+            e.detail()["step_index"] for e in events if e.kind == EventKind.STEP_SKIPPED
+        }
+        bias_events = [e.detail() for e in events if e.kind == EventKind.BIAS_CHANGED]
         if bias_events:
             self.bias_V = float(bias_events[-1]["volts"])
         self.integration_s = rules.integration_times(events)
@@ -827,7 +970,8 @@ class Engine:
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
         index = next((i for i in range(len(self.plan.steps)) if i not in done), None)
         self.state = S.WAITING_FOR_OPERATOR
-        self.store.add_event(row.id, DAEMON_ACTOR, "session_resumed", {"step_index": index})
+        resumed = ev.SessionResumed(step_index=index)
+        self.store.add_event(row.id, DAEMON_ACTOR, EventKind.SESSION_RESUMED, resumed)
         if index is None:
             self.step_index = len(self.plan.steps)
             self._goto(S.FINISHED, "restore", DAEMON_ACTOR)
@@ -845,18 +989,20 @@ class Engine:
                 self.store.set_set_status(open_set.id, "interrupted", reason)
             restored = S.REVIEWING if open_set.status == "reviewing" else S.INTERRUPTED
             self.state = restored
-            self._event(DAEMON_ACTOR, "state_restored", to=restored.value, set_id=open_set.id)
+            back = ev.StateRestored(to=restored.value, set_id=open_set.id)
+            self._event(DAEMON_ACTOR, EventKind.STATE_RESTORED, back)
         self._changed()
         return True
 
     # ----------------------------------------------------------------------- snapshot
-    def results(self) -> tuple[dict[str, Any] | None, bool, str | None]:
+    def results(self) -> Results:
         """Return (Evaluation.to_dict() so far, provisional?, error), cached until a change."""
         if self._results_cache is not None and self._results_cache[0] == self.data_version:
             return self._results_cache[1]
         if self.session_id is None:
-            value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
+            value: Results = (None, False, None)
         else:
+            assert self.plan is not None  # a session is open: its plan is known
             context = SessionContext(
                 self.plan,
                 self.metadata,
@@ -871,8 +1017,8 @@ class Engine:
         self._results_cache = (self.data_version, value)
         return value
 
-    def snapshot(self) -> dict[str, Any]:
-        """Return the whole state as a protocol Snapshot dict."""
+    def snapshot(self) -> Snapshot:
+        """Return the whole state as the protocol's Snapshot."""
         from chargebook.acquire.engine.snapshot import build_snapshot
 
         return build_snapshot(self)
@@ -880,6 +1026,29 @@ class Engine:
     @property
     def live_phase(self) -> ReadingPhase:
         return self.reading.phase if self.reading is not None else ReadingPhase.IDLE
+
+
+#: Each kind of input and the Engine method that applies it: the engine's one dispatch.
+HANDLERS: dict[type[inputs.Input], Callable[[Engine, Any], Any]] = {
+    inputs.StartSession: Engine._on_start_session,
+    inputs.EnterEnvironment: Engine._on_environment,
+    inputs.ShortDelivery: Engine._on_short_delivery,
+    inputs.Arm: Engine._on_arm,
+    inputs.ManualDone: Engine._on_manual_done,
+    inputs.Skip: Engine._on_skip,
+    inputs.Capture: Engine._on_capture,
+    inputs.Accept: Engine._on_accept,
+    inputs.Redo: Engine._on_redo,
+    inputs.Pause: Engine._on_pause,
+    inputs.Resume: Engine._on_resume,
+    inputs.Stop: Engine._on_stop,
+    inputs.Abort: Engine._on_abort,
+    inputs.Close: Engine._on_close,
+    inputs.Tick: Engine._on_tick,
+    inputs.InstrumentLost: Engine._on_instrument_lost,
+    inputs.InstrumentBack: Engine._on_instrument_back,
+    inputs.Restart: Engine._on_restart,
+}
 
 
 def dropped_reading_notice(phase: ReadingPhase, charge_nC: float | None, why: str) -> str:

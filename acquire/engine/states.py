@@ -59,6 +59,7 @@ ACTION_STATES: dict[str, frozenset[EngineState]] = {
     Method.STEP_MANUAL_DONE: frozenset({S.WAITING_FOR_OPERATOR}),
     Method.STEP_SKIP: frozenset({S.WAITING_FOR_OPERATOR}),
     Method.READING_CAPTURE: _BUSY,
+    Method.READING_SHORT: ACTIVE,
     Method.SET_ACCEPT: frozenset({S.REVIEWING}),
     Method.SET_REDO: _BUSY | {S.REVIEWING, S.INTERRUPTED},
     Method.SESSION_PAUSE: _BUSY | {S.WAITING_FOR_OPERATOR, S.REVIEWING},

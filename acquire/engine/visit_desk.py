@@ -94,9 +94,11 @@ class VisitDesk:
                 "a beam planned, skipped or left unfinished",
                 f"is {state.status} (session {state.session_id})",
             )
-        session_id = self.engine.start_session(
-            state.beam.metadata(), state.beam.plan, actor, mu_per_reading
-        )
+        metadata = state.beam.metadata()
+        registers = state.beam.register_ids()
+        if registers:  # the session's metadata filled from the station registers
+            metadata = {**metadata, "registers": registers}
+        session_id = self.engine.start_session(metadata, state.beam.plan, actor, mu_per_reading)
         visits.link_session(self.store, current.id, state.beam.id, session_id, actor)
         self._changed()
         return session_id
@@ -126,7 +128,7 @@ class VisitDesk:
                 Method.VISIT_CONFIRM_AIR, engine.state, engine.allowed(), "no beam is measured now"
             )
         read, read_in = self._last_read(current.id)
-        if read is None:
+        if read is None or read_in is None:
             raise InputError(
                 "environment",
                 None,

@@ -1,7 +1,7 @@
 """The hash chain that makes a changed record show: one chain per session over its appended rows.
 
-Every row appended to readings, environment, events and traffic carries ``chain_seq``, its place
-in its session's sequence of rows (1, 2, 3, ... across the tables, in the order the rows were
+Every row appended to readings, environment, events, traffic and inputs carries ``chain_seq``, its
+place in its session's sequence of rows (1, 2, 3, ... across the tables, in the order the rows were
 written; status changes of sessions and sets are events, so they are in it too), and
 ``chain_hash``, the SHA-256 of the previous row's hash and this row's canonical bytes
 (:func:`link`). The session's own row and its reading sets are in the chain too, by their fixed
@@ -53,6 +53,7 @@ COLUMNS: dict[str, tuple[str, ...]] = {
     ),
     "events": _names("id session_id recorded_at actor kind detail_json account"),
     "traffic": _names("id session_id t_s recorded_at direction line"),
+    "inputs": _names("id session_id recorded_at kind actor detail_json account"),
 }
 #: Columns stored as REAL: hashed as floats, so 1 and 1.0 hash the same as SQLite stores them.
 _REAL = {
@@ -62,6 +63,7 @@ _REAL = {
     "environment": ("temperature_C", "pressure_kPa", "pressure_entered", "humidity_pct"),
     "events": (),
     "traffic": ("t_s",),
+    "inputs": (),
 }
 _REAL_INDEX = {
     table: tuple(COLUMNS[table].index(name) for name in names) for table, names in _REAL.items()
@@ -69,6 +71,9 @@ _REAL_INDEX = {
 
 #: The chained tables; a session's chain runs across all of them.
 CHAINED_TABLES = tuple(COLUMNS)
+#: The tables chained when the chain was introduced (migration ``chain_appended_rows``), before
+#: the input log (migration ``input_log``) added ``inputs``.
+FIRST_CHAINED_TABLES = CHAINED_TABLES[: CHAINED_TABLES.index("inputs")]
 
 #: The tables of calibration visits (migration ``visits``), chained with the rows outside any
 #: session (chain 0): a visit spans several sessions and belongs to none. Kept apart from
@@ -140,9 +145,9 @@ def owner(table: str, values: Sequence[Any]) -> int | None:
     rows of a visit, which belong to no one session)."""
     if table in VISIT_COLUMNS:
         return None
-    if table == "sessions":
-        return values[0]
-    return values[1]  # session_id is the second column of every other chained table
+    # session_id is the second column of every other chained table
+    session = values[0] if table == "sessions" else values[1]
+    return None if session is None else int(session)
 
 
 def chain_key(session_id: int | None) -> int:

@@ -25,6 +25,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record import chain
 from sqlite_utils import Database
 
@@ -39,6 +40,9 @@ CAPTURE_MODES = ("auto", "pushed", "manual")
 TRAFFIC_DIRECTIONS = ("tx", "rx")
 
 APPEND_ONLY_TABLES = ("readings", "environment", "events", "traffic")
+#: The event written before each register row, holding the row's whole content (a migration
+#: keeps its own literal: ``EventKind.REGISTER_ROW`` has the same value).
+REGISTER_EVENT = "register_row"
 VISIT_STATUSES = ("open", "closed")
 #: A visit in one of these states is closed for good.
 VISIT_FINAL_STATUSES = ("closed",)
@@ -297,7 +301,7 @@ def _chain_appended_rows(db: Database) -> None:
     order replay used for them, so that old files verify and replay as before.
     """
     db.execute("ALTER TABLE events ADD COLUMN account TEXT")  # the client's Unix account
-    for table in chain.CHAINED_TABLES:
+    for table in chain.FIRST_CHAINED_TABLES:
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_seq INTEGER")
         db.execute(f"ALTER TABLE {table} ADD COLUMN chain_hash TEXT")
     for table in APPEND_ONLY_TABLES:
@@ -308,8 +312,9 @@ def _chain_appended_rows(db: Database) -> None:
     )
     order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
     rank = {table: index for index, table in enumerate(order)}
-    rows: list[tuple[int, str, int, str, tuple]] = []
-    for table, columns in chain.COLUMNS.items():
+    rows: list[tuple[int, str, int, str, tuple[object, ...]]] = []
+    for table in chain.FIRST_CHAINED_TABLES:
+        columns = chain.COLUMNS[table]
         stamped = _STAMP_COLUMNS.get(table, "recorded_at")
         sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"
         for *values, stamp in db.execute(sql).fetchall():
@@ -332,7 +337,7 @@ def _chain_appended_rows(db: Database) -> None:
     )
     for table in APPEND_ONLY_TABLES:
         _run_triggers(db, _refuse_update_trigger(table))
-    for table in chain.CHAINED_TABLES:
+    for table in chain.FIRST_CHAINED_TABLES:
         _run_triggers(db, _chain_triggers(table))
     for table in ("sessions", "reading_sets"):
         _run_triggers(db, _refuse_chain_change_trigger(table))
@@ -410,6 +415,168 @@ def _station_identity(db: Database) -> None:
     )
     db.execute("CREATE UNIQUE INDEX sessions_by_uuid ON sessions(uuid)")
     _run_triggers(db, _STATION_TRIGGERS)
+
+
+_REGISTER_TABLE = f"""
+    CREATE TABLE register_rows (
+        id INTEGER PRIMARY KEY,
+        kind TEXT NOT NULL CHECK (kind IN ({_sql_list(REGISTER_KINDS)})),
+        entry_id INTEGER NOT NULL,
+        supersedes INTEGER UNIQUE REFERENCES register_rows(id),
+        effective_from TEXT NOT NULL,
+        fields_json TEXT NOT NULL,
+        recorded_at TEXT NOT NULL,
+        event_id INTEGER NOT NULL UNIQUE REFERENCES events(id)
+    )
+"""
+
+
+def _register_triggers() -> str:
+    detail = "json_extract(detail_json, '$.{}') IS NEW.{}".format
+    audited = " AND ".join(
+        (
+            "id = NEW.event_id",
+            "id = (SELECT max(id) FROM events)",
+            "session_id IS NULL",
+            f"kind = '{REGISTER_EVENT}'",
+            detail("row", "id"),
+            detail("kind", "kind"),
+            detail("entry", "entry_id"),
+            detail("supersedes", "supersedes"),
+            detail("effective_from", "effective_from"),
+            "recorded_at IS NEW.recorded_at",
+        )
+    )
+    return f"""
+    {_refuse_update_trigger("register_rows")}
+    CREATE TRIGGER register_rows_refuse_delete BEFORE DELETE ON register_rows
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a register row is kept: supersede it instead');
+    END;
+    CREATE TRIGGER register_rows_refuse_replace BEFORE INSERT ON register_rows
+    WHEN EXISTS (SELECT 1 FROM register_rows WHERE id = NEW.id)
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a recorded row cannot be replaced');
+    END;
+    CREATE TRIGGER register_rows_refuse_unaudited BEFORE INSERT ON register_rows
+    WHEN NOT EXISTS (SELECT 1 FROM events WHERE {audited})
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a row must follow its register_row event');
+    END;
+    CREATE TRIGGER register_rows_refuse_bad_entry BEFORE INSERT ON register_rows
+    WHEN (NEW.supersedes IS NULL AND NEW.entry_id IS NOT NEW.id)
+    OR (NEW.supersedes IS NOT NULL AND NOT EXISTS (
+        SELECT 1 FROM register_rows
+        WHERE id = NEW.supersedes AND entry_id = NEW.entry_id AND kind = NEW.kind))
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a row supersedes a row of its own entry and kind');
+    END;
+    """
+
+
+def _registers(db: Database) -> None:
+    """Add the station's registers (``register_rows``): append-only rows, each written after
+    its ``register_row`` event (in the chain of rows outside sessions), edited by superseding."""
+    db.execute(_REGISTER_TABLE)
+    db.execute("CREATE INDEX register_rows_by_entry ON register_rows(entry_id)")
+    _run_triggers(db, _register_triggers())
+
+
+#: The views a physicist reads when browsing a station file (Datasette, the sqlite3 shell): one
+#: row per session with its metadata out of the JSON, readings with their set, traffic as text.
+#: They read the tables as stored; results (k_TP, dose ...) are computed by chargebook, not here.
+_BROWSE_VIEWS = """
+    CREATE VIEW session_overview AS
+    SELECT
+        s.id AS session_id,
+        s.uuid AS session_uuid,
+        (SELECT name FROM station) AS station_name,
+        s.created_at AS started_at_utc,
+        s.closed_at AS closed_at_utc,
+        s.status,
+        s.reason,
+        json_extract(s.metadata_json, '$.treatment_machine') AS machine,
+        coalesce(json_extract(s.metadata_json, '$.beam'), s.beam) AS beam,
+        coalesce(json_extract(s.metadata_json, '$.modality'), 'photon') AS modality,
+        s.convention,
+        json_extract(s.metadata_json, '$.chamber_model') AS chamber_model,
+        json_extract(s.metadata_json, '$.chamber_serial') AS chamber_serial,
+        json_extract(s.metadata_json, '$.electrometer_model') AS electrometer_model,
+        json_extract(s.metadata_json, '$.electrometer_serial') AS electrometer_serial,
+        json_extract(s.metadata_json, '$.operator') AS operator,
+        json_extract(s.metadata_json, '$.N_Dw') AS N_Dw,
+        coalesce(json_extract(s.metadata_json, '$.N_Dw_unit'), 'Gy/nC') AS N_Dw_unit,
+        json_extract(s.metadata_json, '$.k_Q') AS k_Q,
+        json_extract(s.metadata_json, '$.k_Q_source') AS k_Q_source,
+        json_extract(s.metadata_json, '$.expected_cGy_per_MU') AS expected_cGy_per_MU,
+        json_extract(s.metadata_json, '$.calibration_date') AS calibration_date,
+        (SELECT count(*) FROM readings r WHERE r.session_id = s.id AND r.settling = 0)
+            AS readings_used,
+        (SELECT json_extract(e.detail_json, '$.status') FROM events e
+            WHERE e.session_id = s.id AND e.kind = 'session_reviewed' ORDER BY e.id LIMIT 1)
+            AS review,
+        (SELECT json_extract(e.detail_json, '$.reviewer') FROM events e
+            WHERE e.session_id = s.id AND e.kind = 'session_reviewed' ORDER BY e.id LIMIT 1)
+            AS reviewer,
+        s.replay_of AS replay_of_session_id
+    FROM sessions s;
+    CREATE VIEW reading_overview AS
+    SELECT
+        r.id AS reading_id,
+        r.session_id,
+        r.set_id,
+        rs.step_index,
+        rs.purpose,
+        rs.polarity,
+        rs.bias_V,
+        rs.attempt,
+        rs.status AS set_status,
+        r.seq,
+        r.charge_nC,
+        r.settling,
+        r.capture,
+        r.status AS instrument_status,
+        r.t_s,
+        r.recorded_at AS recorded_at_utc
+    FROM readings r JOIN reading_sets rs ON rs.id = r.set_id;
+    CREATE VIEW traffic_text AS
+    SELECT
+        id AS line_id,
+        session_id,
+        t_s,
+        recorded_at AS recorded_at_utc,
+        CASE direction WHEN 'tx' THEN 'sent' ELSE 'received' END AS direction,
+        rtrim(CAST(line AS TEXT), char(13, 10)) AS line_text,
+        hex(line) AS line_hex
+    FROM traffic;
+"""
+
+
+def _browse_views(db: Database) -> None:
+    """Add the read-only views of :data:`_BROWSE_VIEWS` (``session_overview``,
+    ``reading_overview``, ``traffic_text``)."""
+    for statement in _BROWSE_VIEWS.split(";"):
+        if statement.strip():
+            db.execute(statement)
+
+
+def _input_log(db: Database) -> None:
+    """Add the input log: every input that changed a session (an operator action with its
+    actor, an environment entry, a sample the engine consumed, a tick that ended a wait, the
+    instrument lost or back, a restart), one chained, append-only row each, written in the
+    transaction of its effects (``acquire/engine/inputs.py`` holds the records).
+
+    Sessions recorded before have no input log, and none is made up for them from their
+    effects: replay refuses them in words (a session's log begins with its ``session_start``).
+    """
+    db.execute(
+        "CREATE TABLE inputs ("
+        "id INTEGER PRIMARY KEY, session_id INTEGER REFERENCES sessions(id), "
+        "recorded_at TEXT NOT NULL, kind TEXT NOT NULL, actor TEXT NOT NULL, "
+        "detail_json TEXT NOT NULL, account TEXT, chain_seq INTEGER, chain_hash TEXT)"
+    )
+    db.execute("CREATE INDEX inputs_by_session ON inputs(session_id)")
+    _run_triggers(db, _append_only_triggers("inputs") + _chain_triggers("inputs"))
 
 
 def _visits_tables() -> str:
@@ -494,6 +661,9 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("index_rows_by_session", _index_rows_by_session),
     Migration("chain_appended_rows", _chain_appended_rows),
     Migration("station_identity", _station_identity),
+    Migration("registers", _registers),
+    Migration("browse_views", _browse_views),
+    Migration("input_log", _input_log),
     Migration("visits", _visits),
 )
 

@@ -33,14 +33,15 @@ import tempfile
 import threading
 import time
 import uuid
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
-from chargebook.acquire.record import chain
+from chargebook.acquire.record import chain, events
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import (
     CAPTURE_MODES,
     SCHEMA_VERSION,
@@ -57,6 +58,9 @@ from chargebook.acquire.record.migrations import (
 from chargebook.corrections.errors import InputError
 from sqlite_utils import Database
 
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
+
 __all__ = [
     "CAPTURE_MODES",
     "SESSION_STATUSES",
@@ -65,6 +69,7 @@ __all__ = [
     "TRAFFIC_DIRECTIONS",
     "EnvironmentRow",
     "EventRow",
+    "InputRow",
     "NotFound",
     "ReadingRow",
     "SchemaTooNew",
@@ -191,10 +196,10 @@ class SessionRow:
     uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
-        return json.loads(self.metadata_json)
+        return _json_object(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
-        return json.loads(self.plan_json)
+        return _json_object(self.plan_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -269,7 +274,24 @@ class EventRow:
     account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
-        return json.loads(self.detail_json)
+        return _json_object(self.detail_json)
+
+
+@dataclass(frozen=True, slots=True)
+class InputRow:
+    """One input that changed a session, as logged: its ``kind`` (an ``inputs`` record's),
+    who gave it (``actor``) and its fields (``detail()``); see ``acquire/engine/inputs.py``."""
+
+    id: int
+    session_id: int | None
+    recorded_at: str
+    kind: str
+    actor: str
+    detail_json: str
+    account: str | None = None
+
+    def detail(self) -> dict[str, Any]:
+        return _json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -284,7 +306,7 @@ class TrafficRow:
     line: bytes
 
 
-Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
+Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
 #: One raw line to record, in the traffic table's column order:
@@ -314,13 +336,24 @@ def _require_int(field: str, value: object, minimum: int) -> int:
     return value
 
 
-def _require_finite(field: str, value: object, *, optional: bool = False) -> float | None:
-    if value is None and optional:
+def _require_finite(field: str, value: object) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise InputError(field, value, "a finite number", "is not a finite number")
+    return float(value)
+
+
+def _finite_or_none(field: str, value: object) -> float | None:
+    if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-        allowed = "a finite number" + (" or None" if optional else "")
-        raise InputError(field, value, allowed, "is not a finite number")
+        raise InputError(field, value, "a finite number or None", "is not a finite number")
     return float(value)
+
+
+def _json_object(text: str) -> dict[str, Any]:
+    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail)."""
+    loaded: dict[str, Any] = json.loads(text)
+    return loaded
 
 
 def _to_json(field: str, value: object) -> str:
@@ -568,10 +601,14 @@ class Store:
             return utc_stamp_now()
         return self._now().astimezone(UTC).isoformat(timespec="microseconds")
 
-    def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
+    def _select(
+        self, cls: type[Row], table: str, where: str, params: tuple[Any, ...] = ()
+    ) -> list[Row]:
         return [cls(*row) for row in self._rows(cls, table, where, params)]
 
-    def _rows(self, cls: type, table: str, where: str, params: tuple = ()) -> list[tuple]:
+    def _rows(
+        self, cls: type, table: str, where: str, params: tuple[Any, ...] = ()
+    ) -> list[tuple[Any, ...]]:
         """Return the raw rows of ``table`` with the columns of ``cls``, ordered by id."""
         sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
         with self._lock:
@@ -582,17 +619,6 @@ class Store:
         if not found:
             raise NotFound(f"no {what} with id {row_id} in {self.path or 'the database'}")
         return found[0]
-
-    def append_row(self, table: str, row: dict[str, Any]) -> int:
-        """Append one row, as given (its columns but ``id`` and the chain's), to a chained table
-        and commit it; return its id. For copying a recorded session (a replay): the recording
-        methods above check their values, this one does not. The visit tables
-        (``chain.VISIT_COLUMNS``) are appended through it by ``record.visits``."""
-        appended = (*chain.CHAINED_TABLES, *chain.VISIT_COLUMNS)
-        if table not in appended:
-            raise InputError("table", table, ", ".join(appended), "is not appended")
-        with self.atomic():
-            return self._append(table, row)
 
     def _append(self, table: str, row: dict[str, Any]) -> int:
         """Append one row to a chained table, linked to its session's chain; return its id.
@@ -614,6 +640,15 @@ class Store:
         )
         self._set_chain_head(key, seq + 1, digest)
         return row_id
+
+    def append_visit_row(self, table: str, row: dict[str, Any]) -> int:
+        """Append one row, as given (its columns but ``id`` and the chain's), to a visit table
+        (``chain.VISIT_COLUMNS``) and commit it; return its id. ``record.visits`` checks the
+        values and writes the row's event first, in the same transaction."""
+        if table not in chain.VISIT_COLUMNS:
+            raise InputError("table", table, ", ".join(chain.VISIT_COLUMNS), "is not a visit table")
+        with self.atomic():
+            return self._append(table, row)
 
     def _append_traffic(self, lines: Sequence[TrafficLine]) -> int:
         """Append checked raw lines, each linked to its session's chain, in one pass; return
@@ -663,14 +698,16 @@ class Store:
             finally:
                 self._account = previous
 
-    def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
+    def _event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
         return self._append(
             "events",
             {
                 "session_id": session_id,
                 "recorded_at": self._stamp(),
                 "actor": _require_text("actor", actor),
-                "kind": _require_text("kind", kind),
+                "kind": events.check_detail(kind, detail).value,
                 "detail_json": _to_json("detail", detail),
                 "account": self._account,
             },
@@ -680,8 +717,8 @@ class Store:
 
     def create_session(
         self,
-        metadata: dict,
-        plan: dict,
+        metadata: dict[str, Any],
+        plan: dict[str, Any],
         convention: str,
         beam: str,
         replay_of: int | None = None,
@@ -707,17 +744,13 @@ class Store:
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
             session_id = self._append("sessions", row)
-            self._event(
-                session_id,
-                actor,
-                "session_created",
-                {
-                    "convention": convention,
-                    "beam": beam,
-                    "replay_of": replay_of,
-                    "uuid": session_uuid,
-                },
-            )
+            created: events.SessionCreated = {
+                "convention": convention,
+                "beam": beam,
+                "replay_of": replay_of,
+                "uuid": session_uuid,
+            }
+            self._event(session_id, actor, EventKind.SESSION_CREATED, created)
         return session_id
 
     def open_session(self) -> SessionRow | None:
@@ -741,12 +774,14 @@ class Store:
                     f"session {session_id} is {old.status}; its status can no longer change"
                 )
             closed_at = None if status == "open" else (old.closed_at or self._stamp())
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                session_id,
-                actor,
-                "session_status",
-                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
-            )
+            change: events.SessionStatus = {
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "closed_at": closed_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(session_id, actor, EventKind.SESSION_STATUS, change)
             self.db.execute(
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
@@ -766,7 +801,8 @@ class Store:
             old = self.station().name
             if old == name:
                 return False
-            self._event(None, actor, "station_named", {"from": old, "to": name})
+            renamed: events.StationNamed = {"from": old, "to": name}
+            self._event(None, actor, EventKind.STATION_NAMED, renamed)
             self.db.execute("UPDATE station SET name = ?", (name,))
         return True
 
@@ -834,20 +870,17 @@ class Store:
                 ended_at = old.ended_at
             else:
                 ended_at = old.ended_at or self._stamp()
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                old.session_id,
-                actor,
-                "set_status",
-                {
-                    "set_id": set_id,
-                    "step_key": old.step_key,
-                    "attempt": old.attempt,
-                    "from": old.status,
-                    "to": status,
-                    "reason": reason,
-                    "ended_at": ended_at,
-                },
-            )
+            change: events.SetStatus = {
+                "set_id": set_id,
+                "step_key": old.step_key,
+                "attempt": old.attempt,
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "ended_at": ended_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(old.session_id, actor, EventKind.SET_STATUS, change)
             self.db.execute(
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
@@ -936,7 +969,7 @@ class Store:
             "pressure_kPa": _require_finite("pressure_kPa", pressure_kPa),
             "pressure_entered": _require_finite("pressure_entered", pressure_entered),
             "pressure_unit": _require_text("pressure_unit", pressure_unit),
-            "humidity_pct": _require_finite("humidity_pct", humidity_pct, optional=True),
+            "humidity_pct": _finite_or_none("humidity_pct", humidity_pct),
             "source": _require_text("source", source),
         }
         with self.atomic():
@@ -949,8 +982,14 @@ class Store:
 
     # ----------------------------------------------------------------------------- events
 
-    def add_event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        """Record one audit event (who, what, and why in ``detail``); return its id."""
+    def add_event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
+        """Record one audit event (who, what, and why in ``detail``); return its id.
+
+        Raises InputError naming the kind and the key when ``detail`` is not the shape
+        ``kind`` declares (``acquire/record/events.py``); nothing is written then.
+        """
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
@@ -962,7 +1001,7 @@ class Store:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
 
-    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+    def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""
         with self._lock:
             return self.db.execute(sql, params).fetchall()
@@ -979,6 +1018,38 @@ class Store:
             ).fetchall()
         return {int(row_id): int(seq) for row_id, seq in rows}
 
+    def chained_rows(
+        self, table: str, session_id: int | None, after_seq: int = 0
+    ) -> list[tuple[Any, ...]]:
+        """Return the rows of the chained ``table`` that belong to session ``session_id`` (None:
+        outside sessions) past place ``after_seq`` of its chain, ordered by id: the values of
+        ``chain.COLUMNS[table]``, then ``chain_seq`` and ``chain_hash`` (for ``verify`` and
+        ``publish``)."""
+        if table in chain.VISIT_COLUMNS:  # a visit's rows are all outside sessions
+            sql = (
+                f"SELECT {', '.join(chain.VISIT_COLUMNS[table])}, chain_seq, chain_hash "
+                f"FROM {table} WHERE ? IS NULL AND (chain_seq IS NULL OR chain_seq > ?) "
+                "ORDER BY id"
+            )
+            return self.read(sql, (session_id, after_seq))
+        if table not in chain.CHAINED_TABLES:
+            raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
+        owner = "id" if table == "sessions" else "session_id"
+        sql = (
+            f"SELECT {', '.join(chain.COLUMNS[table])}, chain_seq, chain_hash FROM {table} "
+            f"WHERE {owner} IS ? AND (chain_seq IS NULL OR chain_seq > ?) ORDER BY id"
+        )
+        return self.read(sql, (session_id, after_seq))
+
+    def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
+        """Return (place, hash) of the last row the store recorded in the session's chain
+        (None: outside sessions), or None when it recorded none."""
+        found = self.read(
+            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
+            (chain.chain_key(session_id),),
+        )
+        return (int(found[0][0]), str(found[0][1])) if found else None
+
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
         """Return the newest event of one of ``kinds``, in any session or none; None if none."""
         marks = ", ".join("?" for _ in kinds)
@@ -994,21 +1065,59 @@ class Store:
         """Return the session's events newer than ``event_id``, oldest first."""
         return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
 
+    # ------------------------------------------------------------------------- input log
+
+    def add_inputs(
+        self, session_id: int | None, entries: Sequence[tuple[str, str, dict[str, Any]]]
+    ) -> int:
+        """Log inputs that changed the session, each (kind, actor, detail), in order, in one
+        transaction (the caller's, when inside :meth:`atomic`); return the last one's id.
+
+        Written in one pass, like raw lines: a reading may bring thousands of samples with it.
+        """
+        stamp = self._stamp()
+        rows = [
+            (
+                session_id,
+                stamp,
+                _require_text("kind", kind),
+                _require_text("actor", actor),
+                _to_json("detail", detail),
+                self._account,
+            )
+            for kind, actor, detail in entries
+        ]
+        with self.atomic():
+            next_id = self._next_id("inputs")
+            key = chain.chain_key(session_id)
+            seq, digest = self._chain_head(key)
+            chained = []
+            for offset, row in enumerate(rows):
+                values = (next_id + offset, *row)
+                seq += 1
+                digest = chain.link(digest, seq, "inputs", values)
+                chained.append((*values, seq, digest))
+            self.db.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            if chained:
+                self._set_chain_head(key, seq, digest)
+        return next_id + len(rows) - 1 if rows else 0
+
+    def inputs(self, session_id: int | None) -> list[InputRow]:
+        """Return the session's logged inputs in the order they were applied (``None``:
+        inputs outside any session)."""
+        if session_id is None:
+            return self._select(InputRow, "inputs", "session_id IS NULL")
+        return self._select(InputRow, "inputs", "session_id = ?", (session_id,))
+
     # ---------------------------------------------------------------------------- traffic
 
     def add_traffic(self, session_id: int | None, t_s: float, direction: str, line: bytes) -> int:
         """Record one raw instrument line exactly as sent or received; return its id."""
-        row = dict(
-            zip(
-                _TRAFFIC_COLUMNS,
-                _traffic_row((session_id, t_s, self._stamp(), direction, line)),
-                strict=True,
-            )
-        )
+        row = _traffic_row((session_id, t_s, self._stamp(), direction, line))
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
-            return self._append_traffic([tuple(row.values())])
+            return self._append_traffic([row])
 
     def stamp(self) -> str:
         """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
@@ -1026,7 +1135,7 @@ class Store:
         """
         rows = [_traffic_row(line) for line in lines]
         with self.atomic():
-            for session_id in {row[0] for row in rows} - {None}:
+            for session_id in {row[0] for row in rows if row[0] is not None}:
                 self._one(SessionRow, "sessions", session_id, "session")
             self._append_traffic(rows)
         return len(rows)
@@ -1081,8 +1190,9 @@ class Store:
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_CHAINED = {
-    "traffic": f"INSERT INTO traffic ({', '.join(chain.COLUMNS['traffic'])}, chain_seq, "
-    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS['traffic'])}, ?, ?)"
+    table: f"INSERT INTO {table} ({', '.join(chain.COLUMNS[table])}, chain_seq, "
+    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS[table])}, ?, ?)"
+    for table in ("traffic", "inputs")
 }
 
 
@@ -1114,6 +1224,13 @@ def _column_list(cls: type) -> str:
 _SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
 
 
-def _reading_row(row: tuple) -> ReadingRow:
+def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
     """Return a ReadingRow from its raw columns, ``settling`` as a bool (stored 0 or 1)."""
-    return ReadingRow(*row[:_SETTLING], bool(row[_SETTLING]), *row[_SETTLING + 1 :])
+    columns = list(row)
+    columns[_SETTLING] = bool(columns[_SETTLING])
+    return ReadingRow(*columns)
+
+
+if TYPE_CHECKING:
+    # The type checker holds the station file's store to the read side the reports use.
+    _READS_AS_A_STATION: type[RecordReader] = Store

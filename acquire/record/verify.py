@@ -19,8 +19,11 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.record import chain
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
-from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.reader import RecordReader
+from chargebook.acquire.record.registers import register_row_problems
+from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,7 +81,7 @@ class ChainReport:
         return "\n".join(lines)
 
 
-def verify_session(store: Store, session_id: int | None) -> ChainReport:
+def verify_session(store: RecordReader, session_id: int | None) -> ChainReport:
     """Return the check of the chain of session ``session_id`` (None: rows outside sessions).
 
     Raises ``NotFound`` for a session id that is not in the database.
@@ -93,7 +96,11 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_statuses(store, session_id, events)
         problems += _check_uuid(store, session_id, events)
-    else:
+    elif isinstance(store, Store):  # a station file's registers and visits (not the department's)
+        problems += [
+            Problem("register_rows", row_id, None, words)
+            for row_id, words in register_row_problems(store)
+        ]
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_visit_statuses(store, events)
     return ChainReport(session_id, len(rows), head, tuple(problems))
@@ -111,23 +118,18 @@ def verify_all(store: Store) -> list[ChainReport]:
     return [*reports, verify_session(store, None)]
 
 
-Chained = tuple[str, tuple[Any, ...], int | None, str | None]
+Chained = tuple[str, tuple[Any, ...], int, str]
 
 
-def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], list[Problem]]:
+def _chained_rows(
+    store: RecordReader, session_id: int | None
+) -> tuple[list[Chained], list[Problem]]:
     """Return the chain's rows (table, values, seq, hash) in chain order, and the rows that have
     no place in it."""
     rows: list[Chained] = []
     problems: list[Problem] = []
-    for table, columns in _tables_of(session_id):
-        owner = "id" if table == "sessions" else "session_id"
-        where = "1" if table in chain.VISIT_COLUMNS else f"{owner} IS ?"
-        sql = (
-            f"SELECT {', '.join(columns)}, chain_seq, chain_hash FROM {table} "
-            f"WHERE {where} ORDER BY id"
-        )
-        params = () if table in chain.VISIT_COLUMNS else (session_id,)
-        for *values, seq, digest in store.read(sql, params):
+    for table in _tables_of(store, session_id):
+        for *values, seq, digest in store.chained_rows(table, session_id):
             if seq is None or digest is None:
                 problems.append(
                     Problem(
@@ -143,11 +145,12 @@ def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], 
     return rows, problems
 
 
-def _tables_of(session_id: int | None) -> list[tuple[str, tuple[str, ...]]]:
-    """Return the tables (and their hashed columns) whose rows a chain holds: the visit
-    tables are in the chain of the rows outside any session."""
-    tables = list(chain.COLUMNS.items())
-    return tables if session_id is not None else [*tables, *chain.VISIT_COLUMNS.items()]
+def _tables_of(store: RecordReader, session_id: int | None) -> tuple[str, ...]:
+    """Return the tables whose rows a chain holds: the visit tables are in a station file's
+    chain of the rows outside any session (the department does not hold visits yet)."""
+    if session_id is None and isinstance(store, Store):
+        return (*chain.CHAINED_TABLES, *chain.VISIT_COLUMNS)
+    return chain.CHAINED_TABLES
 
 
 def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
@@ -183,12 +186,9 @@ def _check_links(rows: list[Chained]) -> tuple[str, list[Problem]]:
     return previous, problems
 
 
-def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> list[Problem]:
+def _check_head(store: RecordReader, session_id: int | None, rows: list[Chained]) -> list[Problem]:
     """Return a problem when the chain ends before the end the store recorded."""
-    heads = store.read(
-        "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (chain.chain_key(session_id),)
-    )
-    found = heads[0] if heads else None
+    found = store.chain_head(session_id)
     last_seq, last_hash = (rows[-1][2], rows[-1][3]) if rows else (0, chain.GENESIS)
     if found is None:
         if rows:
@@ -210,7 +210,9 @@ def _check_head(store: Store, session_id: int | None, rows: list[Chained]) -> li
     return []
 
 
-def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_statuses(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return the session and sets whose status, reason or end time is not the one their last
     status event in the chain gave them."""
     kind_at = chain.COLUMNS["events"].index("kind")
@@ -218,18 +220,18 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     session_status: dict[str, Any] = {"to": "open", "reason": None, "closed_at": None}
     set_status: dict[int, dict[str, Any]] = {}
     for values in events:
-        if values[kind_at] not in ("session_status", "set_status"):
+        if values[kind_at] not in (EventKind.SESSION_STATUS, EventKind.SET_STATUS):
             continue
         try:
             detail = json.loads(values[detail_at])
         except ValueError:
             continue  # a changed event: the link check has named it
-        if values[kind_at] == "session_status":
+        if values[kind_at] == EventKind.SESSION_STATUS:
             session_status = detail
         elif isinstance(detail.get("set_id"), int):
             set_status[detail["set_id"]] = detail
     session = store.session(session_id)
-    checks = [
+    checks: list[tuple[str, int, dict[str, Any], SessionRow | SetRow, str]] = [
         ("sessions", session.id, session_status, session, "closed_at"),
         *(
             ("reading_sets", row.id, set_status.get(row.id, _NEVER_CHANGED), row, "ended_at")
@@ -267,7 +269,9 @@ def _check_visit_statuses(store: Store, events: list[tuple[Any, ...]]) -> list[P
     return problems
 
 
-def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) -> list[Problem]:
+def _check_uuid(
+    store: RecordReader, session_id: int, events: list[tuple[Any, ...]]
+) -> list[Problem]:
     """Return a problem when the session's UUID is not the one its chain recorded: the one in
     its ``session_created`` event, or (a session recorded before sessions had UUIDs) the one
     the migration derives from the station's UUID and the session id."""
@@ -275,7 +279,7 @@ def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) ->
     detail_at = chain.COLUMNS["events"].index("detail_json")
     recorded: Any = None
     for values in events:
-        if values[kind_at] == "session_created":
+        if values[kind_at] == EventKind.SESSION_CREATED:
             try:
                 recorded = json.loads(values[detail_at]).get("uuid")
             except ValueError:

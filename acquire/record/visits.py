@@ -24,6 +24,7 @@ import uuid
 from dataclasses import dataclass
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import VISIT_FINAL_STATUSES
 from chargebook.acquire.record.store import (
     DAEMON_ACTOR,
@@ -34,19 +35,25 @@ from chargebook.acquire.record.store import (
 )
 from chargebook.corrections.errors import InputError
 
-VISIT_CREATED = "visit_created"
-VISIT_STATUS = "visit_status"
-BEAM_ADDED = "visit_beam_added"
-BEAM_STARTED = "visit_beam_started"
-BEAM_STATUS = "visit_beam_status"
+VISIT_CREATED = EventKind.VISIT_CREATED
+VISIT_STATUS = EventKind.VISIT_STATUS
+BEAM_ADDED = EventKind.VISIT_BEAM_ADDED
+BEAM_STARTED = EventKind.VISIT_BEAM_STARTED
+BEAM_STATUS = EventKind.VISIT_BEAM_STATUS
 #: The event in a beam's session naming its visit and beam.
-SESSION_BEAM = "visit_beam"
+SESSION_BEAM = EventKind.VISIT_BEAM
 #: What an operator may set a beam to by hand (a measured beam is its session's doing).
 BEAM_MARKS = ("skipped", "unfinished")
 #: Beam statuses, as :func:`beam_states` reads them.
 BEAM_STATUSES = ("planned", "measuring", "measured", "unfinished", "skipped")
 #: A beam in one of these may be measured (again, in a new session).
 STARTABLE = ("planned", "unfinished", "skipped")
+
+
+def _json_object(text: str) -> dict[str, Any]:
+    """Return the JSON object a row holds as text."""
+    found: dict[str, Any] = json.loads(text)
+    return found
 
 
 @dataclass(frozen=True, slots=True)
@@ -63,7 +70,7 @@ class VisitRow:
     reason: str | None
 
     def metadata(self) -> dict[str, Any]:
-        return json.loads(self.metadata_json)
+        return _json_object(self.metadata_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -80,10 +87,10 @@ class VisitBeamRow:
     recorded_at: str
 
     def metadata(self) -> dict[str, Any]:
-        return json.loads(self.metadata_json)
+        return _json_object(self.metadata_json)
 
     def register_ids(self) -> dict[str, int]:
-        return json.loads(self.register_ids_json)
+        return {str(k): int(v) for k, v in _json_object(self.register_ids_json).items()}
 
 
 @dataclass(frozen=True, slots=True)
@@ -226,7 +233,7 @@ def create_visit(
             "metadata_json": json.dumps(metadata, sort_keys=True, allow_nan=False),
             "status": "open",
         }
-        visit_id = store.append_row("visits", row)
+        visit_id = store.append_visit_row("visits", row)
         store.add_event(
             None,
             actor,
@@ -275,7 +282,7 @@ def add_beam(
             "register_ids_json": json.dumps(register_ids or {}, sort_keys=True),
             "recorded_at": store.stamp(),
         }
-        beam_id = store.append_row("visit_beams", row)
+        beam_id = store.append_visit_row("visit_beams", row)
         store.add_event(
             None,
             actor,
@@ -299,7 +306,7 @@ def link_session(
     with store.atomic():
         current = _require_open(store, visit_id)
         beam = _beam(store, visit_id, beam_id)
-        store.append_row(
+        store.append_visit_row(
             "visit_sessions",
             {
                 "visit_id": visit_id,

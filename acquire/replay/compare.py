@@ -123,7 +123,6 @@ class Explanations:
     changes: Sequence[Change] = ()
     traffic_notes: Sequence[str] = ()
     stopped: str | None = None
-    arming_times_recorded: bool = True
 
 
 @dataclass(frozen=True)
@@ -264,10 +263,6 @@ def _value(value: Any) -> str:
 NOT_REACHED = "not reached: the replay stopped early (see above)"
 STOPPED = "the replay stopped before the end (see above)"
 READINGS_DIFFER = "the readings or sets it is computed from differ (see above)"
-OLD_ARMING = (
-    "the session was recorded before arming times were kept: integration times are rebuilt "
-    "from capture times and may differ in the last digits"
-)
 
 
 class _Reasons:
@@ -281,7 +276,6 @@ class _Reasons:
         self.thresholds = [c for c in changes if c.what.startswith("threshold")]
         self.notes = list(explanations.traffic_notes)
         self.stopped = explanations.stopped is not None
-        self.old_arming = not explanations.arming_times_recorded
 
     @staticmethod
     def _join(reasons: Sequence[str]) -> str:
@@ -303,8 +297,6 @@ class _Reasons:
         reasons = self._words(own or self.plan)
         if reading:
             reasons += self.notes
-            if self.old_arming:
-                reasons.append(OLD_ARMING)
         return self._join(reasons)
 
     def result(self, key: str, readings_differ: bool = False) -> str:
@@ -315,6 +307,4 @@ class _Reasons:
         reasons += self._words(self.plan)
         if readings_differ:
             reasons.append(READINGS_DIFFER)
-        if not reasons and self.old_arming:
-            reasons.append(OLD_ARMING)
         return self._join(reasons)

@@ -3,12 +3,14 @@
 :func:`run_pipeline` starts ``chargebook simulate --playback`` on the recorded lines (a process
 of its own, on a real pseudo-terminal), opens the profile's driver on it with the
 :class:`~chargebook.acquire.replay.traffic.TrafficFollower` as its clock and traffic listener,
-starts the session again in a new engine on a scratch store in memory, and lets the
-:class:`~chargebook.acquire.replay.conductor.Conductor` play the recording through them.
+starts the session again in a new engine on the store it is given (the station's, inside one
+transaction, or a scratch store in memory for a dry run), and lets the
+:class:`~chargebook.acquire.replay.conductor.Conductor` feed it the session's logged inputs.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -16,16 +18,19 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind, Replay
 from chargebook.acquire.record.store import Store
-from chargebook.acquire.replay.conductor import ArmingClock, Conductor, Pacer, WhatIfStop
+from chargebook.acquire.replay.conductor import Conductor, Pacer, WhatIfStop
 from chargebook.acquire.replay.recording import RecordedLine, Recording
-from chargebook.acquire.replay.traffic import TrafficFollower, write_playback_log
+from chargebook.acquire.replay.traffic import (
+    TrafficFollower,
+    command_namer,
+    write_playback_log,
+)
 from chargebook.corrections.stability import Thresholds
 
 #: Who the replay names as the actor of the events it writes itself.
 REPLAY_ACTOR = "replay"
-#: The event a replayed session starts with: what was replayed, and how.
-REPLAY_EVENT = "replay"
 
 
 @dataclass(frozen=True)
@@ -46,7 +51,7 @@ class Setup:
 
 @dataclass
 class PipelineRun:
-    """The replayed session in its scratch store, and why it stopped early if it did."""
+    """The replayed session in the store it was written to, and why it stopped early if it did."""
 
     store: Store
     session_id: int
@@ -59,8 +64,12 @@ def replayed(actor: str) -> str:
     return f"{actor} (replayed)"
 
 
-def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> PipelineRun:
-    """Run the recording through the playback simulator, the driver and the engine.
+def run_pipeline(
+    setup: Setup, speed: float, detail: Replay, store: Store, replay_of: int | None
+) -> PipelineRun:
+    """Run the recording through the playback simulator, the driver and the engine, which
+    writes the replayed session to ``store`` through the store's API (as a replay of session
+    ``replay_of`` when given).
 
     ``speed`` paces it (0: as fast as possible); ``detail`` is written with the session's
     ``replay`` event. Raises Divergence (strict) or TrafficLogError where the recording does
@@ -88,50 +97,53 @@ def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> Pipeline
                 traffic=follower,
                 clock=follower.clock,
             )
-            return _play(setup, speed, detail, follower, driver)
+            return _play(setup, speed, detail, follower, driver, store, replay_of)
         finally:
             stop_child(simulator.process)
 
 
 def _play(
-    setup: Setup, speed: float, detail: dict[str, Any], follower: TrafficFollower, driver: Any
+    setup: Setup,
+    speed: float,
+    detail: Replay,
+    follower: TrafficFollower,
+    driver: Any,
+    store: Store,
+    replay_of: int | None,
 ) -> PipelineRun:
-    """Start the session again in a new engine and play the recording through the driver."""
+    """Start the session again in a new engine and feed it the logged inputs, playing the
+    recorded lines through the driver."""
     recording = setup.recording
-    store = Store.memory()
-    start = _starting_line(setup.profile)
-    clock = ArmingClock(
-        recording.armed_times_s,
-        played=lambda: follower.played_t_s,
-        until=lambda: follower.next_sent_t_s(start),
-        otherwise=lambda: follower.last_t_s,
-    )
-    new_engine = _engine_factory(setup, store, clock)
+    new_engine = _engine_factory(setup, store, lambda: follower.last_t_s)
     engine = new_engine()
-    session_id = engine.start_session(
-        recording.session.metadata(), setup.plan, actor=replayed(recording.start_actor)
+    start = dataclasses.replace(
+        recording.start,
+        metadata=recording.session.metadata(),  # as validated, with its carried factors
+        plan=setup.plan,
+        replay_of=replay_of,
+        actor=replayed(recording.start.actor),
     )
+    session_id = engine.apply(start)
     follower.attach(store, session_id)
-    store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
+    store.add_event(session_id, REPLAY_ACTOR, EventKind.REPLAY, detail)
     conductor = Conductor(
         engine,
         driver,
         follower,
-        recording.inputs,
+        recording,
         strict=setup.strict,
         pacer=Pacer(speed),
         actor=replayed,
-        original_lines=recording.lines,
-        session_id=recording.session_id,
         restart=lambda: _restarted(new_engine()),
-        captured_times_s=recording.captured_times_s,
+        edited=setup.lines != recording.lines,
+        name_of=None if setup.strict else command_namer(setup.profile),
     )
     stopped = None
     driver.open()
     try:
         conductor.run()
     except WhatIfStop as stop:
-        stopped = _plan_words(engine) or str(stop)
+        stopped = _plan_words(conductor.engine) or str(stop)
     finally:
         driver.close()
     notes = [
@@ -139,7 +151,7 @@ def _play(
         f"{n.recorded!r}"
         for n in follower.notes
     ]
-    return PipelineRun(store, session_id, stopped, notes)
+    return PipelineRun(store, session_id, stopped, [*notes, *conductor.notes])
 
 
 def _plan_words(engine: Any) -> str | None:
@@ -155,16 +167,7 @@ def _plan_words(engine: Any) -> str | None:
     )
 
 
-def _starting_line(profile: Any) -> str | None:
-    """Return the line that begins a reading's integration (start, else zero), if any: each
-    arming sends it, and nothing else does."""
-    for name in ("start", "zero"):
-        if name in profile.commands:
-            return profile.command(name).templates[0]
-    return None
-
-
-def _engine_factory(setup: Setup, store: Store, clock: ArmingClock) -> Callable[[], Engine]:
+def _engine_factory(setup: Setup, store: Store, clock: Callable[[], float]) -> Callable[[], Engine]:
     """Return a maker of engines set up as the session's daemon set up its own."""
 
     def new_engine() -> Engine:
@@ -182,27 +185,17 @@ def _engine_factory(setup: Setup, store: Store, clock: ArmingClock) -> Callable[
 
 
 def _restarted(engine: Engine) -> Engine:
-    """Return ``engine`` resuming the open session, as a daemon started again on the same file
-    does it (``Daemon.run``): not yet connected to the instrument."""
+    """Return ``engine`` as a daemon started again on the same file has it (``Daemon.run``):
+    not yet connected to the instrument; the logged restart then resumes the session."""
     engine.instrument_connected = False
     engine.instrument_message = "connecting to the electrometer"
-    engine.restore()
     return engine
 
 
 def same_command(profile: Any) -> Callable[[str, str], bool]:
     """Return a test of whether two sent lines are the same command of ``profile`` (a what-if
     plan may send a command with other values, such as another bias)."""
-    from chargebook.drivers_generic.simulator.dialect import template_pattern
-
-    patterns = [
-        (spec.name, template_pattern(template))
-        for spec in profile.commands.values()
-        for template in spec.templates
-    ]
-
-    def name_of(text: str) -> str | None:
-        return next((name for name, pattern in patterns if pattern.fullmatch(text)), None)
+    name_of = command_namer(profile)
 
     def same(recorded: str, sent: str) -> bool:
         name = name_of(recorded)

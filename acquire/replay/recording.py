@@ -1,54 +1,36 @@
 """What a replay needs from a recorded session, read from the station database.
 
 A :class:`Recording` holds the session's raw traffic (every line sent and received, with its
-receive time ``t_s`` on the daemon's clock), the inputs the engine had that did not come over the
-wire (the operator's actions, and the instrument going away and coming back), each placed at the
-point of the traffic where it happened, and the time each recorded reading was armed. Nothing
-else: the readings and results of the session are what the replay must produce again, so they
-are not read here (``replay_compare`` reads them to compare).
+receive time ``t_s`` on the daemon's clock) and its input log (``acquire/engine/inputs.py``):
+every input that changed the session, in the order the engine applied it, each placed at the
+point of the traffic where it was applied. Nothing is inferred from the session's effects: the
+readings and results are what the replay must produce again, so they are not read here
+(``replay_compare`` reads them to compare).
 
-Where an input happened: every traffic line and every event has its place in the session's
-chain (``chain_seq``, see ``chain``), in the order they happened. An input's ``position`` is the
-number of the session's traffic lines before its event in that order, so the replay applies it
-after exactly those lines. The places do not depend on the wall clock: a clock stepped back
-during the session (``recorded_at`` going backwards) does not move an input.
+Where an input happened: every traffic line and every input has its place in the session's
+chain (``chain_seq``, see ``chain``), in the order they were written. An input's ``position`` is
+the number of the session's traffic lines before it in that order, so the replay applies it
+after exactly those lines. A sample names the traffic line it was parsed from (``line_id``): it
+is applied right after that line. The places do not depend on the wall clock.
+
+A session recorded before the input log (migration ``input_log``) has no log to feed back: its
+log does not begin with its ``session_start``, and it is refused in words.
 """
 
 from __future__ import annotations
 
-import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from chargebook.acquire.protocol import Method
-from chargebook.acquire.record.store import EventRow, SessionRow, Store, TrafficRow
+from chargebook.acquire.engine import inputs
+from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.store import EventRow, InputRow, SessionRow, Store, TrafficRow
 from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
 
 #: Session statuses a replay accepts: the session is over, nothing writes to it any more.
 REPLAYABLE_STATUSES = ("finished", "aborted", "interrupted")
-
-#: The operator actions, by the ``action`` their ``state_changed`` event names.
-ACTIONS_BY_STATE_CHANGE: dict[str, str] = {
-    Method.STEP_ARM: "arm",
-    Method.STEP_SKIP: "skip",
-    Method.SET_ACCEPT: "accept",
-    Method.SET_REDO: "redo",
-    Method.SESSION_PAUSE: "pause",
-    Method.SESSION_RESUME: "resume",
-    Method.SESSION_STOP: "stop",
-    Method.SESSION_ABORT: "abort",
-    Method.SESSION_CLOSE: "close",
-}
-#: Inputs that are events of their own kind.
-ACTIONS_BY_EVENT_KIND: dict[str, str] = {
-    "environment_entered": "environment",
-    "manual_step_done": "manual_done",
-    "instrument_lost": "instrument_lost",
-    "instrument_fault": "instrument_fault",
-    "session_resumed": "restart",
-}
 
 
 class NotReplayable(Exception):
@@ -66,19 +48,18 @@ class RecordedLine:
 
 
 @dataclass(frozen=True, slots=True)
-class RecordedInput:
-    """One input to the engine that did not come over the wire, at its place in the traffic.
+class LoggedInput:
+    """One input of the session's log, at its place in the traffic.
 
-    ``kind`` is an operator action (``arm``, ``accept``, ``redo``, ``environment`` ...) or an
-    instrument input (``instrument_lost``, ``instrument_fault``, ``instrument_back``,
-    ``restart``); ``detail`` is its recorded event's detail.
+    ``position``: the lines played before it is applied; ``line``: for a sample, the index of
+    the traffic line it was parsed from (None for other inputs); ``input_id``: its row in the
+    log, to name it.
     """
 
     position: int
-    kind: str
-    actor: str
-    detail: dict[str, Any]
-    event_id: int
+    given: inputs.Input
+    input_id: int
+    line: int | None = None
 
 
 @dataclass(frozen=True)
@@ -90,22 +71,34 @@ class Recording:
     profile: str | None
     time_scale: float | None
     lines: tuple[RecordedLine, ...]
-    inputs: tuple[RecordedInput, ...]
+    start: inputs.StartSession
+    inputs: tuple[LoggedInput, ...]  # every logged input after the session's start
     places: tuple[int, ...]  # each line's place in the session's chain (0: before the session)
-    armed_times_s: tuple[float, ...]
-    armed_times_recorded: bool
-    captured_times_s: frozenset[float]  # when each reading was taken: its sample's time
-    start_actor: str
 
     @property
     def session_id(self) -> int:
         return self.session.id
 
+    @property
+    def sample_lines(self) -> frozenset[int]:
+        """Return the indexes of the lines whose samples the engine consumed."""
+        return frozenset(i.line for i in self.inputs if i.line is not None)
+
+
+def before_the_input_log(session_id: int) -> str:
+    """Return why a session recorded before the input log cannot be replayed, in words."""
+    return (
+        f"session {session_id} was recorded before the input log (by a chargebook without "
+        "migration input_log), so it cannot be replayed exactly: a replay feeds back the "
+        "inputs the engine took, and this session has no record of them"
+    )
+
 
 def load_recording(store: Store, session_id: int) -> Recording:
     """Return the recording of session ``session_id``.
 
-    Raises NotFound for an unknown session and NotReplayable for one that is still open.
+    Raises NotFound for an unknown session and NotReplayable for one that is still open or
+    was recorded before the input log.
     """
     session = store.session(session_id)
     if session.status not in REPLAYABLE_STATUSES:
@@ -113,16 +106,18 @@ def load_recording(store: Store, session_id: int) -> Recording:
             f"session {session_id} is still {session.status}: a daemon may still be writing to "
             "it; replay it once it is finished or aborted"
         )
+    logged = store.inputs(session_id)
+    if not logged or logged[0].kind != inputs.StartSession.kind:
+        raise NotReplayable(before_the_input_log(session_id))
     events = store.events(session_id)
     traffic = store.traffic(session_id)
     traffic = [*exchange_before(store, traffic), *traffic]
     line_places = store.chain_places("traffic", session_id)
     places = tuple(line_places.get(row.id, 0) for row in traffic)
-    event_places = store.chain_places("events", session_id)
     profile, time_scale = _acquisition(events)
-    armed, armed_recorded = armed_times(events, store, session_id)
-    captured = _capture_times(store, session_id)
-    created = next((e for e in events if e.kind == "session_created"), None)
+    start = inputs.from_logged(logged[0].kind, logged[0].actor, logged[0].detail())
+    assert isinstance(start, inputs.StartSession)
+    input_places = store.chain_places("inputs", session_id)
     return Recording(
         session=session,
         thresholds=rules.session_thresholds(events),
@@ -132,18 +127,41 @@ def load_recording(store: Store, session_id: int) -> Recording:
             RecordedLine(index, row.t_s, row.direction, row.line)
             for index, row in enumerate(traffic)
         ),
-        inputs=tuple(recorded_inputs(events, event_places, traffic, places, captured)),
+        start=start,
+        inputs=tuple(placed_inputs(logged[1:], input_places, traffic, places)),
         places=places,
-        armed_times_s=armed,
-        armed_times_recorded=armed_recorded,
-        captured_times_s=frozenset(captured.values()),
-        start_actor=created.actor if created is not None else "daemon",
     )
 
 
-def _capture_times(store: Store, session_id: int) -> dict[int, float]:
-    """Return each reading's time (s): the receive time of the sample it was taken from."""
-    return {reading.id: reading.t_s for reading in store.readings(session_id)}
+def placed_inputs(
+    logged: Sequence[InputRow],
+    input_places: dict[int, int],
+    traffic: Sequence[TrafficRow],
+    places: Sequence[int],
+) -> list[LoggedInput]:
+    """Return the logged inputs, in order, each placed after the traffic lines before it in the
+    session's chain (``input_places``: input id -> place; ``places``: each line's place), a
+    sample right after the line it names. NotReplayable for a sample naming no line the
+    session received."""
+    line_index = {row.id: index for index, row in enumerate(traffic)}
+    found: list[LoggedInput] = []
+    position = 0
+    for row in logged:
+        given = inputs.from_logged(row.kind, row.actor, row.detail())
+        line = None
+        if isinstance(given, inputs.Sample):
+            line = line_index.get(given.line_id) if given.line_id is not None else None
+            if line is None or traffic[line].direction != "rx":
+                raise NotReplayable(
+                    f"input {row.id} of session {row.session_id} is a sample of traffic line id "
+                    f"{given.line_id}, which is not a line the session received"
+                )
+            position = max(position, line + 1)
+        else:
+            while position < len(places) and places[position] < input_places[row.id]:
+                position += 1
+        found.append(LoggedInput(position, given, row.id, line))
+    return found
 
 
 def exchange_before(store: Store, traffic: Sequence[TrafficRow]) -> list[TrafficRow]:
@@ -173,85 +191,11 @@ def _acquisition(events: Sequence[EventRow]) -> tuple[str | None, float | None]:
     profile: str | None = None
     for event in events:
         detail = event.detail()
-        if event.kind == rules.ACQUISITION_EVENT:
+        if event.kind == EventKind.ACQUISITION:
             profile = detail.get("profile") or profile
-        elif event.kind == "instrument_identified" and profile is None:
+        elif event.kind == EventKind.INSTRUMENT_IDENTIFIED and profile is None:
             profile = detail.get("profile")
     return profile, rules.recorded_time_scale(events)
-
-
-def armed_times(
-    events: Sequence[EventRow], store: Store, session_id: int
-) -> tuple[tuple[float, ...], bool]:
-    """Return the arming time (s) of each recorded reading, in order, and whether every one
-    was recorded as such (older sessions only give capture time minus integration time)."""
-    times: list[float] = []
-    exact = True
-    captured = {r.id: r.t_s for r in store.readings(session_id)}
-    for event in events:
-        if event.kind != "reading_recorded":
-            continue
-        detail = event.detail()
-        if "armed_t_s" in detail:
-            times.append(float(detail["armed_t_s"]))
-        else:
-            exact = False
-            t_s = captured.get(int(detail["reading_id"]), math.nan)
-            times.append(t_s - float(detail.get("integration_s", 0.0)))
-    return tuple(times), exact
-
-
-def recorded_inputs(
-    events: Sequence[EventRow],
-    event_places: Mapping[int, int],
-    traffic: Sequence[TrafficRow],
-    places: Sequence[int],
-    captured_at: dict[int, float] | None = None,
-) -> list[RecordedInput]:
-    """Return the engine's inputs that are not traffic, each placed after the traffic lines
-    before it in the session's chain (``event_places``: event id -> place; ``places``: each
-    line's place; see the module docstring).
-
-    A capture by hand is placed exactly: right after the line of the sample it took
-    (``captured_at``: reading id -> its time, the sample's receive time). A sample written just
-    before the operator's request may reach the engine just after it; the reading says which
-    sample the engine had.
-    """
-    received = {row.t_s: index for index, row in enumerate(traffic) if row.direction == "rx"}
-    inputs: list[RecordedInput] = []
-    position = 0
-    lost = False
-    for event in events:
-        kind = input_kind(event, lost)
-        if kind is None:
-            continue
-        lost = kind in ("instrument_lost", "instrument_fault", "restart") or (
-            lost and kind != "instrument_back"
-        )
-        while position < len(places) and places[position] < event_places[event.id]:
-            position += 1
-        placed = position
-        if kind == "capture" and captured_at is not None:
-            sample = received.get(captured_at.get(event.detail().get("reading_id"), math.nan))
-            if sample is not None:
-                placed = max(sample + 1, inputs[-1].position if inputs else 0)
-        inputs.append(RecordedInput(placed, kind, event.actor, event.detail(), event.id))
-    return inputs
-
-
-def input_kind(event: EventRow, instrument_away: bool) -> str | None:
-    """Return the input an event records (see RecordedInput.kind), or None for an outcome.
-
-    ``instrument_back`` is an input only after the instrument was lost or the daemon
-    restarted: the first connection of the daemon is not part of the session's sequence.
-    """
-    if event.kind == "state_changed":
-        return ACTIONS_BY_STATE_CHANGE.get(event.detail().get("action", ""))
-    if event.kind == "reading_recorded" and event.detail().get("capture") == "manual":
-        return "capture"
-    if event.kind == "instrument_back":
-        return "instrument_back" if instrument_away else None
-    return ACTIONS_BY_EVENT_KIND.get(event.kind)
 
 
 def traffic_positions(store: Store, recording: Recording) -> list[str]:
@@ -286,9 +230,10 @@ def _after_event(
     if reading_set is None:
         return current
     name = f"reading set '{reading_set.step_key}' (attempt {reading_set.attempt})"
-    if event.kind == "reading_recorded":
+    if event.kind == EventKind.READING_RECORDED:
         readings[set_id] = readings.get(set_id, 0) + 1
     taken = readings.get(set_id, 0)
-    if event.kind == "set_status" and detail.get("to") in ("accepted", "superseded", "aborted"):
+    ended = detail.get("to") in ("accepted", "superseded", "aborted")
+    if event.kind == EventKind.SET_STATUS and ended:
         return f"after {name} ended {detail['to']}"
     return f"in {name} after {taken} reading{'s' if taken != 1 else ''}"

@@ -6,23 +6,24 @@ real pseudo-terminal), reads it with the real driver of the session's profile, i
 with the real engine, stores it with the real store, and compares the new session with the
 original, reading by reading and result by result (``replay_compare``).
 
-What makes it exact: the engine decides from the samples it is given and from the times it is
-given (see ``chargebook.acquire.engine.engine``). The driver stamps every line with the time it was
-recorded with, the engine's clock reads the time each reading was armed in the original, and
-the recorded operator's actions are applied at the same points of the traffic
-(``replay_conductor``). The readings are parsed again from the same bytes, so an unchanged
-replay gives bit-identical numbers. The only part of the daemon a replay leaves out is its
-timing: when to poll and when the operator acted come from the recording.
+What makes it exact: the engine's state changes only by the inputs it is given, and the session's
+input log holds every one of them with the engine's clock when it was applied (see
+``chargebook.acquire.engine.inputs``). The replay feeds them back in order, each after the
+traffic lines recorded before it (``replay_conductor``); the samples are parsed again by the
+real driver from the played-back bytes and must match the logged ones, so an unchanged replay
+gives bit-identical numbers. Nothing is inferred from the session's effects.
 
 What if: another plan (``plan``) or other thresholds (``thresholds``) run the same recording
 through an engine set up differently; the comparison then says what differs and why. A
 threshold only changes flags; a plan may ask for what the recording does not hold (a reading
 more than was taken), and then the replay stops there and says so.
 
-Nothing is written to the station database unless the replay ran to the end: it runs against a
-scratch store in memory and is then copied in one transaction (``replay_copy``), as a new
-session with ``replay_of`` set to the original's id. A corrupted or truncated traffic log is
-refused before anything runs.
+Nothing is written to the station database unless the replay ran to the end: the engine writes
+the replayed session through the store's API, as a new session with ``replay_of`` set to the
+original's id, all in one transaction that is rolled back unless the replay is to be kept (a dry
+run writes to a scratch store in memory instead). The replay holds the station's lock meanwhile,
+and refuses a station file that a running daemon holds, naming it. A corrupted or truncated
+traffic log is refused before anything runs.
 """
 
 from __future__ import annotations
@@ -31,6 +32,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind, Replay, ReplayNotReproduced
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.compare import (
     Change,
@@ -65,13 +67,6 @@ __all__ = [
 ]
 
 
-#: Why a session recorded before readings were captured on samples may not replay exactly.
-OLDER_RECORDING = (
-    "the session was recorded by an older chargebook, which captured readings on clock ticks "
-    "and kept no arming times: its capture decisions cannot be made again from its traffic"
-)
-
-
 @dataclass(frozen=True)
 class ReplayRequest:
     """What to replay, and how. ``speed`` 0 runs as fast as the pipeline allows.
@@ -95,10 +90,6 @@ class ReplayRequest:
     time_scale: float | None = None
     dry_run: bool = False
     keep: bool = False
-
-
-#: The event that marks a stored replay of an edited traffic log that did not reproduce.
-NOT_REPRODUCED_EVENT = "replay_not_reproduced"
 
 
 @dataclass
@@ -143,22 +134,22 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
     """Replay one stored session as asked; return the report.
 
     Raises NotFound for an unknown session, NotReplayable (TrafficLogError for a corrupted or
-    truncated log) and InputError for what cannot be replayed as asked, Divergence when an
-    unchanged replay does not follow its recording. None of these writes anything.
+    truncated log; a station file a running daemon holds) and InputError for what cannot be
+    replayed as asked, Divergence when an unchanged replay does not follow its recording. None
+    of these writes anything.
     """
     original = Store.open(request.db_path, read_only=True)
     try:
         setup, changes = _setup(original, request)
-        try:
-            run = run_pipeline(setup, request.speed, _replay_detail(setup.recording, request))
-        except Divergence as divergence:
-            if setup.recording.armed_times_recorded:
-                raise
-            raise Divergence(f"{divergence} ({OLDER_RECORDING})") from None
-        try:
-            replay_id, comparison, not_stored = _finish(original, setup, run, changes, request)
-        finally:
-            run.store.close()
+        detail = _replay_detail(setup.recording, request)
+        if request.dry_run:
+            with Store.memory() as scratch:
+                run = run_pipeline(setup, request.speed, detail, scratch, None)
+                comparison = _compare(original, setup, run, changes)
+            replay_id, not_stored = None, None
+        else:
+            run, comparison, not_stored = _into_station(original, setup, changes, request, detail)
+            replay_id = run.session_id if not_stored is None and run.stopped is None else None
     finally:
         original.close()
     return ReplayReport(
@@ -208,55 +199,85 @@ def _setup(original: Store, request: ReplayRequest) -> tuple[Setup, list[Change]
     return setup, changes
 
 
-def _finish(
-    original: Store, setup: Setup, run: PipelineRun, changes: list[Change], request: ReplayRequest
-) -> tuple[int | None, Comparison, str | None]:
-    """Store a replay that ran to the end (unless a dry run, or an unchanged replay of a traffic
-    log that does not reproduce the session, unless kept); compare it with the original.
-    Return the stored session's id, the comparison, and why it was not stored if it was not."""
-    from chargebook.acquire.replay.kept_copy import copy_session
+class _NotStored(Exception):
+    """Rolls back a replay that ran but is not to be stored; carries what it found."""
+
+    def __init__(self, run: PipelineRun, comparison: Comparison, why: str | None) -> None:
+        super().__init__(why)
+        self.run, self.comparison, self.why = run, comparison, why
+
+
+def _into_station(
+    original: Store,
+    setup: Setup,
+    changes: list[Change],
+    request: ReplayRequest,
+    detail: Replay,
+) -> tuple[PipelineRun, Comparison, str | None]:
+    """Replay into the station file, in one transaction, holding the station's lock: the engine
+    writes the session through the store's API, and the transaction is committed only for a
+    replay that ran to the end and is to be kept (not a traffic log that does not reproduce
+    the session, unless kept). Return the run, its comparison with the original and why it was
+    not stored (None: stored, or stopped early). NotReplayable while a daemon holds the file."""
+    from chargebook.acquire.record.station_lock import StationInUse, StationLock
+
+    lock = StationLock(request.db_path)
+    try:
+        lock.acquire()
+    except StationInUse as busy:
+        raise NotReplayable(
+            f"the replay cannot be stored: {busy}; --dry-run replays without writing anything"
+        ) from None
+    try:
+        with Store.open(request.db_path) as station:
+            try:
+                with station.atomic():
+                    replay_of = setup.recording.session_id
+                    run = run_pipeline(setup, request.speed, detail, station, replay_of)
+                    comparison = _compare(original, setup, run, changes)
+                    why = _why_not_stored(comparison, changes, request)
+                    if run.stopped is not None or why is not None:
+                        raise _NotStored(run, comparison, why)
+                    if request.traffic_log is not None and not changes and not comparison.exact:
+                        _mark_not_reproduced(station, run.session_id, request)
+            except _NotStored as rolled_back:
+                return rolled_back.run, rolled_back.comparison, rolled_back.why
+    finally:
+        lock.release()
+    return run, comparison, None
+
+
+def _compare(original: Store, setup: Setup, run: PipelineRun, changes: list[Change]) -> Comparison:
+    """Return the comparison of the replayed session with the original."""
+    explanations = Explanations(changes=changes, traffic_notes=run.notes, stopped=run.stopped)
+    return compare_sessions(
+        original, setup.recording.session_id, run.store, run.session_id, explanations
+    )
+
+
+def _why_not_stored(
+    comparison: Comparison, changes: list[Change], request: ReplayRequest
+) -> str | None:
+    """Return why an unchanged replay of a traffic log is not stored (None: it is)."""
+    from_log = request.traffic_log is not None and not changes
+    if from_log and not comparison.exact and not request.keep:
+        return (
+            f"the traffic log {request.traffic_log} does not reproduce the session; pass "
+            "--keep to store the replay all the same, marked as not reproduced"
+        )
+    return None
+
+
+def _mark_not_reproduced(station: Store, replay_id: int, request: ReplayRequest) -> None:
+    """Record that a replay of a traffic log was kept although it does not reproduce."""
     from chargebook.acquire.replay.pipeline import REPLAY_ACTOR
 
-    recording = setup.recording
-    explanations = Explanations(
-        changes=changes,
-        traffic_notes=run.notes,
-        stopped=run.stopped,
-        arming_times_recorded=recording.armed_times_recorded,
+    kept = ReplayNotReproduced(
+        traffic_log=str(request.traffic_log),
+        why="stored with --keep although this traffic log does not reproduce the session "
+        "it replays",
     )
-    if run.stopped is not None or request.dry_run:
-        comparison = compare_sessions(
-            original, recording.session_id, run.store, run.session_id, explanations
-        )
-        return None, comparison, None
-    from_log = request.traffic_log is not None and not changes
-    if from_log:
-        comparison = compare_sessions(
-            original, recording.session_id, run.store, run.session_id, explanations
-        )
-        if not comparison.exact and not request.keep:
-            why = (
-                f"the traffic log {request.traffic_log} does not reproduce the session; pass "
-                "--keep to store the replay all the same, marked as not reproduced"
-            )
-            return None, comparison, why
-    with Store.open(request.db_path) as station:
-        replay_id = copy_session(run.store, run.session_id, station, recording.session_id)
-        comparison = compare_sessions(
-            original, recording.session_id, station, replay_id, explanations
-        )
-        if from_log and not comparison.exact:
-            station.add_event(
-                replay_id,
-                REPLAY_ACTOR,
-                NOT_REPRODUCED_EVENT,
-                {
-                    "traffic_log": str(request.traffic_log),
-                    "why": "stored with --keep although this traffic log does not reproduce "
-                    "the session it replays",
-                },
-            )
-    return replay_id, comparison, None
+    station.add_event(replay_id, REPLAY_ACTOR, EventKind.REPLAY_NOT_REPRODUCED, kept)
 
 
 def save_traffic_log(db_path: Path, session_id: int, path: Path, profile: str | None) -> int:
@@ -295,12 +316,12 @@ def _given_or_recorded(recording: Recording, given: Any, recorded: Any, what: st
     return value
 
 
-def _replay_detail(recording: Recording, request: ReplayRequest) -> dict[str, Any]:
+def _replay_detail(recording: Recording, request: ReplayRequest) -> Replay:
     """Return the detail of the event a replayed session starts with."""
-    return {
-        "replay_of": recording.session_id,
-        "speed": request.speed,
-        "traffic_log": str(request.traffic_log) if request.traffic_log else None,
-        "plan": request.plan,
-        "thresholds": request.thresholds or None,
-    }
+    return Replay(
+        replay_of=recording.session_id,
+        speed=request.speed,
+        traffic_log=str(request.traffic_log) if request.traffic_log else None,
+        plan=request.plan,
+        thresholds=request.thresholds or None,
+    )

@@ -64,6 +64,22 @@ def shown(text: str, limit: int = 60) -> str:
     return repr(visible if len(visible) <= limit else visible[:limit] + "...")
 
 
+def command_namer(profile: Profile) -> Callable[[str], str | None]:
+    """Return a function naming the command of ``profile`` a sent line is (None: none)."""
+    from chargebook.drivers_generic.simulator.dialect import template_pattern
+
+    patterns = [
+        (spec.name, template_pattern(template))
+        for spec in profile.commands.values()
+        for template in spec.templates
+    ]
+
+    def name_of(text: str) -> str | None:
+        return next((name for name, pattern in patterns if pattern.fullmatch(text)), None)
+
+    return name_of
+
+
 # -------------------------------------------------------------------------------- the logs
 def write_playback_log(profile: Profile, lines: Sequence[RecordedLine], path: Path) -> Path:
     """Write the lines as a playback log for ``chargebook simulate --playback``; return it."""

@@ -43,7 +43,7 @@ from importlib import metadata as package_metadata
 from typing import Any
 
 from chargebook.acquire.protocol import CAUTION
-from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.reports.data import SessionRecord, plain
 from chargebook.acquire.session.numbering import reading_labels
 
@@ -166,7 +166,7 @@ def to_csv(record: SessionRecord) -> str:
 
 
 def to_json_data(
-    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+    record: SessionRecord, store: RecordReader | None = None, include_traffic: bool = False
 ) -> dict[str, Any]:
     """Return the session as a JSON-ready dict with the keys of :data:`JSON_KEYS`."""
     session = plain(record.session)
@@ -206,7 +206,7 @@ def to_json_data(
 
 
 def to_json(
-    record: SessionRecord, store: Store | None = None, include_traffic: bool = False
+    record: SessionRecord, store: RecordReader | None = None, include_traffic: bool = False
 ) -> str:
     """Return the session as JSON text (see :func:`to_json_data`), strict: no NaN."""
     data = to_json_data(record, store, include_traffic)
@@ -221,13 +221,18 @@ def to_html(record: SessionRecord) -> str:
     return session_html(record, stamp)
 
 
-def visit_text(store: Store, visit_id: int, format_: str) -> str:
+def visit_text(store: RecordReader, visit_id: int, format_: str) -> str:
     """Return a calibration visit's export: its summary as JSON, or its printable HTML report
     (csv holds readings, which are the sessions': export each beam's session for them)."""
 
+    from chargebook.acquire.record.store import Store
     from chargebook.acquire.reports.visit import load_visit, visit_html
     from chargebook.corrections.errors import InputError
 
+    if not isinstance(store, Store):
+        raise InputError(
+            "--visit", visit_id, "a station file (--db FILE)", "is not in the department record"
+        )
     summary, events = load_visit(store, visit_id)
     if format_ == "json":
         data = {"generated_at": generated_at(), "chargebook_version": chargebook_version()}

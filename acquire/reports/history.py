@@ -16,9 +16,12 @@ library's default from AAPM TG-142). Each session's kind says whether it measure
 
 from __future__ import annotations
 
+import contextlib
 import statistics
+from collections.abc import Sequence
 from dataclasses import dataclass
 
+from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, review_status
 from chargebook.acquire.record.store import NotFound, SessionRow, Store
 from chargebook.acquire.reports.data import SessionRecord, load_record
@@ -54,6 +57,15 @@ class HistoryPoint:
     #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
     review: str = UNREVIEWED
     session_uuid: str | None = None  # the session's id across stations
+    #: The expanded uncertainty of the session's dose, %, drawn as the point's bar.
+    U_expanded_pct: float | None = None
+    #: The station's name, when the history spans several stations (their ids may repeat).
+    station: str | None = None
+
+    @property
+    def label(self) -> str:
+        """Return the session's id, after its station's name when from several stations."""
+        return str(self.session_id) if self.station is None else f"{self.station}:{self.session_id}"
 
 
 @dataclass(frozen=True)
@@ -69,6 +81,10 @@ class History:
     station_uuid: str | None = None  # the station that keeps the sessions
     #: When no session matches: the beams recorded at the station, the closest names first.
     known_beams: tuple[str, ...] = ()
+    #: The beam's action level, %, from the station's registers (None: not registered).
+    action_pct: float | None = None
+    #: The register row of the beam asked for (id, name), when the registers hold it.
+    register_beam: tuple[int, str] | None = None
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -108,7 +124,9 @@ def parse_baseline(text: str) -> str | int | float:
     return float(limits.EXPECTED_CGY_PER_MU.check("baseline", value))
 
 
-def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryPoint:
+def _point(
+    record: SessionRecord, baseline_cGy_per_MU: float | None, station: str | None = None
+) -> HistoryPoint:
     evaluation = record.evaluation
     meta = record.metadata
     per_MU = evaluation.dose_per_MU_cGy if evaluation else None
@@ -141,29 +159,26 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         kind=session_kind(record.session.plan()),
         review=review_status(record.review),
         session_uuid=record.session.uuid,
+        U_expanded_pct=evaluation.U_expanded_pct if evaluation else None,
+        station=station,
     )
 
 
 def _baseline_value(
-    choice: str | int | float, store: Store, records: list[SessionRecord]
+    choice: str | int | float, stores: Sequence[RecordReader], records: list[SessionRecord]
 ) -> tuple[float | None, str]:
     """Return (baseline dose per MU or None for 'expected', and a label saying what it is)."""
     if choice == "expected":
         return None, "each session's expected output"
     values = [
-        (r.session.id, r.evaluation.dose_per_MU_cGy)
+        (r, r.evaluation.dose_per_MU_cGy)
         for r in records
         if r.evaluation is not None and r.evaluation.dose_per_MU_cGy is not None
     ]
     if isinstance(choice, float):
         return choice, f"{choice:g} cGy/MU"
     if isinstance(choice, int):
-        try:
-            record = load_record(store, choice, check_chain=False)
-        except NotFound:
-            raise InputError(
-                "baseline", f"session:{choice}", "a session recorded here", "is not recorded"
-            ) from None
+        record = _baseline_record(stores, choice)
         if record.evaluation is None or record.evaluation.dose_per_MU_cGy is None:
             problem = "has no dose per MU"
             raise InputError("baseline", f"session:{choice}", "a session with a result", problem)
@@ -174,14 +189,41 @@ def _baseline_value(
             "baseline", choice, "expected, when no session has a result", "has no data"
         )
     if choice == "first":
-        session_id, value = values[0]
-        return value, f"the first session, {session_id} ({value:.4f} cGy/MU)"
+        first, value = values[0]
+        return value, f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
     mean = statistics.fmean(v for _, v in values)
     return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
 
 
+def _station_of(record: SessionRecord) -> str | None:
+    return record.station.name if record.station is not None else None
+
+
+def _name(record: SessionRecord, stores: Sequence[RecordReader]) -> str:
+    """Return a session's id, after its station's name when from several stations."""
+    if len(stores) == 1 or record.station is None:
+        return str(record.session.id)
+    return f"{record.station.name}:{record.session.id}"
+
+
+def _baseline_record(stores: Sequence[RecordReader], session_id: int) -> SessionRecord:
+    """Return the record of the baseline session ``session_id``: InputError when no station
+    holds it, or several do (ids repeat across stations: --station chooses one)."""
+    found = []
+    for store in stores:
+        with contextlib.suppress(NotFound):
+            found.append(load_record(store, session_id, check_chain=False))
+    if len(found) == 1:
+        return found[0]
+    text = f"session:{session_id}"
+    if not found:
+        raise InputError("baseline", text, "a session recorded here", "is not recorded")
+    names = ", ".join(str(r.station.name if r.station else "?") for r in found)
+    raise InputError("baseline", text, f"one station's session (--station {names})", "is ambiguous")
+
+
 def load_history(
-    store: Store,
+    store: RecordReader,
     beam: str,
     machine: str | None = None,
     baseline: str = "expected",
@@ -189,26 +231,111 @@ def load_history(
 ) -> History:
     """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
     review, unless ``include_all`` (then every session, a rejected one marked)."""
+    return load_history_across([store], beam, machine, baseline, include_all)
+
+
+def load_history_across(
+    stores: Sequence[RecordReader],
+    beam: str,
+    machine: str | None = None,
+    baseline: str = "expected",
+    include_all: bool = False,
+) -> History:
+    """Return :func:`load_history` over the sessions of several stations (a department
+    record), in the order they started, each point naming its station when there are several."""
     choice = parse_baseline(baseline)
-    rows = [
-        row
-        for row in store.sessions()
-        if matches(row, beam, machine)
-        and (include_all or (row.status == "finished" and row.replay_of is None))
-    ]
-    records = [load_record(store, row.id, check_chain=False) for row in rows]
+    records: list[SessionRecord] = []
+    known: list[str] = []
+    registered: _RegisteredBeam | None = None
+    for store in stores:
+        # A station file's registers name its beams; the department record holds sessions only.
+        here = _register_beam(store, beam, machine) if isinstance(store, Store) else None
+        if here is None:
+            rows = [row for row in store.sessions() if matches(row, beam, machine)]
+        else:
+            rows = [row for row in store.sessions() if here.matches(row)]
+            registered = registered or here
+        rows = [
+            row
+            for row in rows
+            if include_all or (row.status == "finished" and row.replay_of is None)
+        ]
+        records += [load_record(store, row.id, check_chain=False) for row in rows]
+        known += [] if rows else [b for b in _beams_like(store, beam) if b not in known]
+    if registered is not None:
+        beam, machine = registered.beam, registered.machine
     if not include_all:
         records = [r for r in records if review_status(r.review) != "rejected"]
-    value, label = _baseline_value(choice, store, records)
+    records.sort(key=lambda record: record.session.created_at)
+    value, label = _baseline_value(choice, stores, records)
+    several = len(stores) > 1
     return History(
         beam=beam,
         machine=machine,
         baseline=baseline,
         baseline_label=label,
         baseline_cGy_per_MU=value,
-        points=tuple(_point(record, value) for record in records),
-        station_uuid=store.station().uuid,
-        known_beams=() if rows else _beams_like(store, beam),
+        points=tuple(
+            _point(r, value, r.station.name if several and r.station else None) for r in records
+        ),
+        station_uuid=stores[0].station().uuid if len(stores) == 1 else None,
+        known_beams=() if records or not known else tuple(known),
+        action_pct=None if registered is None else registered.action_pct,
+        register_beam=None if registered is None else (registered.row_id, registered.name),
+    )
+
+
+@dataclass(frozen=True)
+class _RegisteredBeam:
+    """A beam of the station's registers and how its sessions are recognised."""
+
+    row_id: int
+    entry_id: int
+    name: str  # "DEMO-LA1 6 MV"
+    machine: str
+    beam: str
+    action_pct: float | None
+
+    def matches(self, row: SessionRow) -> bool:
+        """Return True for a session that named this beam's register entry, or (recorded
+        before the registers, or typed) its machine and beam, spaces and case aside."""
+        meta = row.metadata()
+        named = (meta.get("register_copy") or {}).get("beam")
+        if named is not None:
+            return named.get("entry_id") == self.entry_id
+        return _squeezed(meta.get("treatment_machine")) == _squeezed(self.machine) and (
+            _squeezed(meta.get("beam") or row.beam) == _squeezed(self.beam)
+        )
+
+
+def _squeezed(text: object) -> str:
+    return "".join(str(text or "").split()).casefold()
+
+
+def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredBeam | None:
+    """Return the registers' beam named by ``text`` (its id or name), or None when the station
+    has no beams registered, or when none matches but typed sessions do (recorded before the
+    registers). InputError listing the close matches when neither does."""
+    from chargebook.acquire.record.registers import register_rows
+    from chargebook.acquire.session.register_rows import find_beam, row_name
+
+    if not register_rows(store, "beam"):
+        return None
+    wanted = text if machine is None else f"{machine} {text}"
+    try:
+        row = find_beam(store, wanted)
+    except InputError:
+        if any(matches(session, text, machine) for session in store.sessions()):
+            return None
+        raise
+    name = row_name(store, row)
+    return _RegisteredBeam(
+        row_id=row.id,
+        entry_id=row.entry_id,
+        name=name,
+        machine=name.removesuffix(f" {row.fields['name']}"),
+        beam=str(row.fields["name"]),
+        action_pct=row.fields.get("action_pct"),
     )
 
 
@@ -220,7 +347,7 @@ def _no_match(history: History) -> str:
     return words
 
 
-def _beams_like(store: Store, beam: str) -> tuple[str, ...]:
+def _beams_like(store: RecordReader, beam: str) -> tuple[str, ...]:
     """Return the beams recorded at the station, those whose names are close to ``beam``
     first (a mistyped "7 MV" finds "6 MV")."""
     import difflib
@@ -247,8 +374,7 @@ def plot_labels(history: History) -> tuple[list[str], str | None]:
     """Return the session ids to label the plot's columns (output checks marked), and the
     legend line for the mark (None when no output check is listed)."""
     labels = [
-        f"{p.session_id}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}"
-        for p in history.points
+        f"{p.label}{OUTPUT_CHECK_MARK if p.kind == OUTPUT_CHECK else ''}" for p in history.points
     ]
     marked = any(p.kind == OUTPUT_CHECK for p in history.points)
     return labels, OUTPUT_CHECK_LEGEND if marked else None
@@ -259,7 +385,7 @@ def history_table(history: History) -> Table:
     within = {None: "—", True: "yes", False: "NO"}
     rows = tuple(
         (
-            str(p.session_id),
+            p.label,
             when(p.created_at),
             p.machine,
             p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.review import review_words
 from chargebook.acquire.reports.audit import event_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
@@ -90,6 +91,22 @@ def set_stats(record: SetRecord) -> SetStatistics | None:
 # ------------------------------------------------------------------------------ sections
 
 
+def _register_rows(meta: dict) -> list[tuple[str, str, str]]:
+    """Return the rows saying which register rows the session used (as copied when it
+    started) and the warnings they raised; none for a session typed in."""
+    copy = meta.get("register_copy")
+    if not copy:
+        return []
+    used = "; ".join(
+        f"{kind} {row.get('name')} (row {row.get('id')})" for kind, row in copy.items()
+    )
+    warnings = meta.get("register_warnings") or []
+    return [
+        ("From the registers", used, "registers"),
+        ("Register warnings", "; ".join(warnings) or "none", "register_warnings"),
+    ]
+
+
 def identity(record: SessionRecord) -> Table:
     """Return who measured what, with what, under which code of practice."""
     meta = record.metadata
@@ -123,6 +140,7 @@ def identity(record: SessionRecord) -> Table:
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
+    rows += _register_rows(meta)
     electron = _electron_text(record)
     if electron is not None:
         rows.append(("Electron beam", electron, "beam_quality_text"))
@@ -494,7 +512,9 @@ def audit(record: SessionRecord) -> Table:
     rows = [(when(e.recorded_at), e.actor, *event_words(record, e)) for e in record.audit()]
     keys = [f"event-{e.id}" for e in record.audit()]
     recorded_by = {
-        e.detail().get("reading_id"): e.actor for e in record.events if e.kind == "reading_recorded"
+        e.detail().get("reading_id"): e.actor
+        for e in record.events
+        if e.kind == EventKind.READING_RECORDED
     }
     for reading_set, reading in record.manual_readings:
         rows.append(

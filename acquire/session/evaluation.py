@@ -29,7 +29,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
-from chargebook.acquire.record.store import EnvironmentRow, EventRow, ReadingRow, SetRow, Store
+from chargebook.acquire.record.reader import RecordReader
+from chargebook.acquire.record.store import EnvironmentRow, EventRow, ReadingRow, SetRow
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.metadata import SessionMetadata, validate_metadata
 from chargebook.acquire.session.plan import Plan
@@ -91,7 +92,9 @@ class SessionEvaluation:
         return None if self.evaluation is None else self.evaluation.to_dict()
 
 
-def stored_context(store: Store, session_id: int, events: Sequence[EventRow]) -> SessionContext:
+def stored_context(
+    store: RecordReader, session_id: int, events: Sequence[EventRow]
+) -> SessionContext:
     """Return the context a stored session was started with; InputError if the plan is bad."""
     row = store.session(session_id)
     return SessionContext(
@@ -105,7 +108,7 @@ def stored_context(store: Store, session_id: int, events: Sequence[EventRow]) ->
 
 
 def evaluate_session(
-    store: Store,
+    store: RecordReader,
     session_id: int,
     context: SessionContext | None = None,
     active_set_id: int | None = None,
@@ -186,7 +189,7 @@ class _ResultSets:
 
 
 def _recorded_sets(
-    store: Store, session_id: int
+    store: RecordReader, session_id: int
 ) -> tuple[list[SetRow], dict[int, list[ReadingRow]]]:
     """Return the session's sets and their readings by set id, read once per evaluation."""
     by_set: dict[int, list[ReadingRow]] = {}
@@ -312,7 +315,7 @@ def _pressure_conversions(entries: Sequence[EnvironmentRow]) -> list[Conversion]
 
 
 def _inputs(
-    store: Store,
+    store: RecordReader,
     session_id: int,
     context: SessionContext,
     meta: SessionMetadata,

@@ -15,8 +15,10 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine.engine import HANDLERS, Engine
 from chargebook.acquire.protocol import EngineState
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 from chargebook.drivers_generic.interface import Capability
@@ -136,7 +138,7 @@ def test_a_tick_that_ends_a_settling_wait_is_one_commit_and_other_ticks_none(
     one_commit(engine, engine.tick)
     assert engine.reading is not None and engine.state is S.COLLECTING
     last = engine.store.events(engine.session_id)[-1]
-    assert (last.kind, last.detail()["action"]) == ("state_changed", "settling wait over")
+    assert (last.kind, last.detail()["action"]) == (EventKind.STATE_CHANGED, "settling wait over")
     engine.store.close()
 
 
@@ -164,7 +166,7 @@ def test_a_redo_that_fails_part_way_leaves_neither_its_rows_nor_its_state(
         deliver(engine, clock, charge)
     events_before = len(engine.store.events(session_id))
     # The set's status is written first, then the state_changed event, which SQLite refuses.
-    _fail_on_event(engine, "state_changed")
+    _fail_on_event(engine, EventKind.STATE_CHANGED)
     with pytest.raises(sqlite3.DatabaseError, match="disk refused"):
         engine.redo("spike on reading 3", actor=OPERATOR)
     assert [s.status for s in engine.store.sets(session_id)] == ["reviewing"]
@@ -187,7 +189,7 @@ def test_a_reading_that_fails_to_record_is_not_half_kept_and_the_next_sample_tak
     engine.arm()
     deliver(engine, clock, 20.0)
     deliver(engine, clock, 20.0)
-    _fail_on_event(engine, "set_status")  # the third reading completes the set
+    _fail_on_event(engine, EventKind.SET_STATUS)  # the third reading completes the set
     reading = engine.reading
     with pytest.raises(sqlite3.DatabaseError, match="disk refused"):
         deliver(engine, clock, 20.0)
@@ -206,6 +208,7 @@ def test_a_reading_that_fails_to_record_is_not_half_kept_and_the_next_sample_tak
 NOT_INPUTS = {
     "all_or_nothing",
     "allowed",
+    "apply",
     "instrument_unreachable",  # shown, never recorded
     "record_changed",  # counts a visit's change, written in the daemon's one transaction
     "refusal",
@@ -217,23 +220,21 @@ NOT_INPUTS = {
     "touch_live",
     "wants_samples",
 }
-#: Inputs that decide first, without writing, whether they change anything at all (most
-#: samples and ticks do not) and then call a one-transaction method.
-CHEAP_ENTRIES = {"on_sample": "_record_captured", "tick": "_end_settling_wait"}
 
 
-def test_every_public_input_of_the_engine_is_one_transaction() -> None:
+def test_every_public_input_of_the_engine_goes_through_apply_and_every_input_has_a_handler() -> (
+    None
+):
     public = {
         name
         for name, member in inspect.getmembers(Engine, inspect.isfunction)
         if not name.startswith("_")
     }
-    inputs = public - NOT_INPUTS - set(CHEAP_ENTRIES)
-    assert inputs >= {"arm", "accept", "redo", "abort", "set_environment", "instrument_lost"}
-    undecorated = [
-        n for n in sorted(inputs) if not getattr(Engine, n).__dict__.get("one_transaction")
+    entries = public - NOT_INPUTS
+    assert entries >= {"arm", "accept", "redo", "abort", "set_environment", "on_sample", "tick"}
+    bypassing = [
+        n for n in sorted(entries) if "self.apply(" not in inspect.getsource(getattr(Engine, n))
     ]
-    assert undecorated == []
-    for entry, inner in CHEAP_ENTRIES.items():
-        assert getattr(Engine, inner).__dict__.get("one_transaction"), inner
-        assert inner in inspect.getsource(getattr(Engine, entry)), entry
+    assert bypassing == []
+    # one dispatch: every kind of input but the sample (taken cheaply) has its handler
+    assert set(HANDLERS) | {inputs.Sample} == set(inputs.KINDS.values())

@@ -3,13 +3,12 @@
 from __future__ import annotations
 
 import argparse
-import math
 from pathlib import Path
 
 import pytest
 from chargebook.acquire.commands.replay import add_arguments, threshold_values
 from chargebook.acquire.replay.compare import Change, Comparison, Difference
-from chargebook.acquire.replay.conductor import ArmingClock, Pacer
+from chargebook.acquire.replay.conductor import Pacer
 from chargebook.acquire.replay.session_replay import ReplayReport
 from chargebook.acquire.replay.text import cell, replay_text
 from chargebook.corrections.errors import InputError
@@ -44,24 +43,6 @@ def test_speed_zero_never_waits():
     for recorded_s in (100.0, 200.0, 300.0):
         pacer.wait_until(recorded_s)
     assert time.slept == []
-
-
-def test_the_arming_clock_reads_the_original_arming_time_at_the_same_point_of_the_traffic():
-    window = {"now": 10.0, "until": 10.2}  # the latest line played, the next command sent
-    clock = ArmingClock(
-        (10.05, 20.5),
-        played=lambda: window["now"],
-        until=lambda: window["until"],
-        otherwise=lambda: window["now"],
-    )
-    assert clock() == 10.05
-    assert clock() == 10.05  # read twice for one arming (a settling wait, then the reading)
-    window.update(now=20.5, until=20.51)  # the original armed just as the line came in
-    assert clock() == 20.5
-    window.update(now=15.0, until=15.1)  # a what-if arms where the original armed nothing
-    assert clock() == 15.0
-    window.update(now=-math.inf, until=10.1)  # before the first line: the first arming
-    assert clock() == 10.05
 
 
 def parse(*argv: str) -> argparse.Namespace:

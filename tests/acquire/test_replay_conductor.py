@@ -1,25 +1,28 @@
 """The replay's loop without processes: the real query-plain driver over a scripted transport (the
 recorded lines, as the instrument's side), the real engine, an in-memory store.
 
-The recordings are written here line by line, as the daemon would have recorded them, so that
-the moments the daemon leaves to chance (a stale poll, a sample that reaches the engine just
-after the operator's abort) are there every time. Charges and times are invented round numbers.
+The recordings are written here line by line with their input logs, as the daemon would have
+recorded them, so that the moments the daemon leaves to chance (a stale poll the engine never
+took, a sample that reaches the engine just after the operator's abort) are there every time.
+Charges and times are invented round numbers.
 """
 
 from __future__ import annotations
 
-import math
+import dataclasses
 
 import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.engine import inputs
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
-from chargebook.acquire.replay.conductor import ArmingClock, Conductor, Pacer
-from chargebook.acquire.replay.recording import RecordedInput, RecordedLine
+from chargebook.acquire.replay.conductor import Conductor, Pacer
+from chargebook.acquire.replay.recording import LoggedInput, RecordedLine, Recording
 from chargebook.acquire.replay.traffic import Divergence, TrafficFollower, line_bytes
 from chargebook.acquire.session.plan import CaptureRule, Plan, Step
+from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic import ProfileElectrometer, load_profile
-from chargebook.drivers_generic.interface import TrafficDirection
 from chargebook.drivers_generic.transport import ScriptedTransport
 
 QUERY_PLAIN = load_profile("query-plain")
@@ -29,9 +32,9 @@ PLAN = Plan(
     300.0,
     capture=CaptureRule(hold_s=0.1),
 )
-ENVIRONMENT = {
-    "temperature_C": 21.5, "pressure_entered": 100.8, "pressure_unit": "kPa", "source": "bench",
-}  # fmt: skip
+ENVIRONMENT = inputs.EnterEnvironment(
+    temperature_C=21.5, pressure=100.8, source="bench", actor="operator A", clock_s=0.5
+)
 
 
 def recorded(*exchanges: tuple[float, str, str | None]) -> tuple[RecordedLine, ...]:
@@ -55,13 +58,8 @@ def arming(*polls: tuple[float, str], start_s: float = 1.0) -> list[tuple[float,
     return exchanges + [(t_s, "Q?", f"Q {charge} nC A") for t_s, charge in polls]
 
 
-def replay(
-    lines: tuple[RecordedLine, ...],
-    inputs: list[RecordedInput],
-    captured_times_s: frozenset[float] = frozenset(),
-    armed_times_s: tuple[float, ...] = (),
-) -> tuple[Engine, int]:
-    """Play ``lines`` and ``inputs`` through the driver and the engine; return both."""
+def replay(lines: tuple[RecordedLine, ...], logged: list[LoggedInput]) -> tuple[Engine, int]:
+    """Play ``lines`` and the ``logged`` inputs through the driver and the engine; return both."""
     follower = TrafficFollower(lines, QUERY_PLAIN)
     script = [
         (follower.text(line), [follower.text(n) for n in _answers(lines, line.index)])
@@ -73,27 +71,34 @@ def replay(
     )
     driver = ProfileElectrometer(QUERY_PLAIN, transport)
     store = Store.memory()
-    clock = ArmingClock(
-        armed_times_s or (0.99,),
-        played=lambda: follower.played_t_s,
-        until=lambda: follower.next_sent_t_s("RUN"),
-        otherwise=lambda: follower.last_t_s,
-    )
-    engine = Engine(
-        store, capabilities=QUERY_PLAIN.capabilities, clock=clock, profile="query-plain"
-    )
-    session_id = engine.start_session(demo_metadata(), PLAN, actor="operator A")
+
+    def new_engine() -> Engine:
+        return Engine(store, capabilities=QUERY_PLAIN.capabilities, profile="query-plain")
+
+    engine = new_engine()
+    start = inputs.StartSession(metadata=demo_metadata(), plan=PLAN, actor="operator A")
+    session_id = engine.apply(dataclasses.replace(start, clock_s=0.0))
     follower.attach(store, session_id)
+    recording = Recording(
+        session=store.session(session_id),
+        thresholds=Thresholds(),
+        profile="query-plain",
+        time_scale=1.0,
+        lines=lines,
+        start=start,
+        inputs=tuple(logged),
+        places=(),
+    )
     driver.open()
     Conductor(
         engine,
         driver,
         follower,
-        inputs,
+        recording,
         strict=True,
         pacer=Pacer(0),
         actor=lambda actor: f"{actor} (replayed)",
-        captured_times_s=captured_times_s,
+        restart=new_engine,
     ).run()
     driver.close()  # the script fails here if a recorded exchange was not played
     return engine, session_id
@@ -108,104 +113,95 @@ def _answers(lines: tuple[RecordedLine, ...], index: int) -> list[RecordedLine]:
     return answers
 
 
-def operator(position: int, kind: str, **detail) -> RecordedInput:
-    return RecordedInput(position, kind, "operator A", detail, event_id=position)
+def operator(position: int, given: inputs.Input, input_id: int = 0) -> LoggedInput:
+    return LoggedInput(position, given, input_id)
 
 
-def test_readings_are_taken_from_the_recorded_lines_at_their_recorded_times():
+def sample(lines: tuple[RecordedLine, ...], index: int, clock_s: float) -> LoggedInput:
+    """Return the logged sample of line ``index`` (a poll's answer), as the daemon logged it."""
+    text = lines[index].raw.decode()
+    charge_nC = float(text.split()[1])
+    given = inputs.Sample(
+        t_s=lines[index].t_s, charge_nC=charge_nC, line_id=index + 1, clock_s=clock_s
+    )
+    return LoggedInput(index + 1, given, input_id=100 + index, line=index)
+
+
+def answers_of(lines: tuple[RecordedLine, ...], *times_s: float) -> list[int]:
+    """Return the indexes of the answers to the polls sent at ``times_s``."""
+    return [line.index + 1 for line in lines if line.direction == "tx" and line.t_s in times_s]
+
+
+def test_readings_are_taken_from_the_logged_samples_read_again_by_the_driver():
     flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.15, "+20.0000"), (1.25, "+20.0000")]
-    second = [(2.05, "+19.0000"), (2.10, "+19.0000"), (2.25, "+19.0000")]
-    lines = recorded(
-        *arming(*flat),
-        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
-        *[(t, "Q?", f"Q {q} nC A") for t, q in second],
-        (2.30, "HOLD", "OK"),
-    )  # fmt: skip
-    inputs = [operator(0, "environment", **ENVIRONMENT), operator(0, "arm")]
-    engine, session_id = replay(lines, inputs, armed_times_s=(0.99, 1.305))
+    lines = recorded(*arming(*flat), (1.30, "HOLD", "OK"))
+    arm = inputs.Arm(actor="operator A", clock_s=0.99)
+    logged = [operator(0, ENVIRONMENT), operator(0, arm)]
+    logged += [sample(lines, i, clock_s=2.0) for i in answers_of(lines, 1.05, 1.10, 1.15, 1.25)]
+    engine, session_id = replay(lines, logged)
     readings = engine.store.readings(session_id)
-    assert [(r.charge_nC, r.t_s) for r in readings] == [(20.0, 1.251), (19.0, 2.251)]
-    events = [e.detail() for e in engine.store.events(session_id) if e.kind == "reading_recorded"]
-    assert [e["armed_t_s"] for e in events] == [0.99, 1.305]
-    assert engine.state.value == "reviewing"
+    assert [(r.charge_nC, r.t_s) for r in readings] == [(20.0, 1.251)]
+    events = [
+        e.detail() for e in engine.store.events(session_id) if e.kind == EventKind.READING_RECORDED
+    ]
+    assert [e["armed_t_s"] for e in events] == [0.99]  # the logged arm's clock
+    # the reading names the line the replay wrote for the sample it was taken at
+    line = {t.id: t for t in engine.store.traffic(session_id)}[readings[0].traffic_id]
+    assert line.line == b"Q +20.0000 nC A\r\n" and line.t_s == 1.251
+    assert engine.state.value == "collecting"  # the next reading, armed at the logged clock
 
 
-def test_a_poll_sent_before_the_engines_commands_is_stale_as_it_was_for_the_daemon():
+def test_a_poll_the_engine_never_took_is_played_and_given_to_nobody():
     flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.25, "+20.0000")]
     lines = recorded(
         *arming(*flat),
-        (1.27, "Q?", "Q +20.0100 nC A"),  # polled before the daemon sent HOLD: stale
-        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
+        (1.27, "Q?", "Q +99.0000 nC A"),  # polled, but stale for the daemon: not logged
+        (1.30, "HOLD", "OK"),
     )  # fmt: skip
-    inputs = [operator(0, "environment", **ENVIRONMENT), operator(0, "arm")]
-    engine, session_id = replay(lines, inputs)
+    logged = [operator(0, ENVIRONMENT), operator(0, inputs.Arm(actor="op", clock_s=0.99))]
+    logged += [sample(lines, i, clock_s=2.0) for i in answers_of(lines, 1.05, 1.10, 1.25)]
+    engine, session_id = replay(lines, logged)
     assert [r.charge_nC for r in engine.store.readings(session_id)] == [20.0]
-    assert engine.state.value == "collecting"  # the second reading is armed, no sample yet
+    assert len(engine.store.traffic(session_id)) == len(lines)  # every line played
 
 
-def test_a_sample_that_reached_the_engine_after_the_abort_takes_no_reading():
-    # The last poll would end the reading (flat for the 0.1 s hold), but the original took no
-    # reading from it: the operator's abort reached the engine first.
+def test_a_sample_logged_before_the_abort_reaches_the_engine_before_it_and_none_after():
     flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.25, "+20.0000")]
     lines = recorded(*arming(*flat), (1.30, "HOLD", "OK"))
-    abort_at = len(lines) - 2  # recorded after the last poll, before the HOLD it caused
-    inputs = [
-        operator(0, "environment", **ENVIRONMENT),
-        operator(0, "arm"),
-        operator(abort_at, "abort", reason="phantom moved"),
-    ]
-    engine, session_id = replay(lines, inputs)
+    # the last poll would end the reading, but the operator's abort reached the engine first:
+    # its sample was never given to the engine, so it is not in the log
+    logged = [operator(0, ENVIRONMENT), operator(0, inputs.Arm(actor="op", clock_s=0.99))]
+    logged += [sample(lines, i, clock_s=2.0) for i in answers_of(lines, 1.05, 1.10)]
+    logged.append(operator(len(lines) - 2, inputs.Abort(reason="phantom moved", confirm=True)))
+    engine, session_id = replay(lines, logged)
     assert engine.store.readings(session_id) == []
     assert engine.store.session(session_id).status == "aborted"
 
 
-def test_the_same_sample_taken_as_a_reading_in_the_original_is_taken_again():
-    flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.25, "+20.0000")]
-    lines = recorded(
-        *arming(*flat),
-        (1.30, "HOLD", "OK"), (1.31, "QZ", "OK"), (1.32, "RUN", "OK"),
-        (1.40, "HOLD", "OK"),  # sent for the abort
-    )  # fmt: skip
-    inputs = [
-        operator(0, "environment", **ENVIRONMENT),
-        operator(0, "arm"),
-        operator(len(lines) - 8, "abort", reason="phantom moved"),  # right after the last poll
-    ]
-    engine, session_id = replay(lines, inputs, captured_times_s=frozenset({1.251}))
-    assert [r.t_s for r in engine.store.readings(session_id)] == [1.251]
-    assert engine.store.session(session_id).status == "aborted"
+def test_a_logged_sample_the_driver_reads_differently_stops_an_exact_replay_naming_it():
+    flat = [(1.05, "+10.0000"), (1.10, "+20.0000")]
+    lines = recorded(*arming(*flat))
+    logged = [operator(0, ENVIRONMENT), operator(0, inputs.Arm(actor="op", clock_s=0.99))]
+    first, second = (sample(lines, i, clock_s=2.0) for i in answers_of(lines, 1.05, 1.10))
+    changed = dataclasses.replace(second.given, charge_nC=20.5)
+    with pytest.raises(Divergence) as stopped:
+        replay(lines, [*logged, first, dataclasses.replace(second, given=changed)])
+    assert str(stopped.value) == (
+        f"the logged sample (input {second.input_id}, traffic line {second.line + 1}) has "
+        "charge_nC = 20.5; the driver read 20.0 from the played-back line"
+    )
 
 
 def test_an_input_the_engine_cannot_take_stops_an_exact_replay_naming_it():
     lines = recorded(*arming((1.05, "+10.0000")))
-    inputs = [
-        operator(0, "environment", **ENVIRONMENT),
-        operator(0, "arm"),
-        operator(len(lines), "accept"),
+    logged = [
+        operator(0, ENVIRONMENT),
+        operator(0, inputs.Arm(actor="operator A", clock_s=0.99)),
+        operator(len(lines), inputs.Accept(actor="operator A", clock_s=2.0), input_id=7),
     ]
     with pytest.raises(Divergence) as stopped:
-        replay(lines, inputs)
-    assert f"the recorded accept by operator A (event {len(lines)}" in str(stopped.value)
-    assert "cannot set.accept while the sequence is collecting" in str(stopped.value)
-
-
-def test_the_first_arming_reads_the_original_time_before_any_line():
-    assert math.isinf(TrafficFollower(recorded((1.0, "Q?", None)), QUERY_PLAIN).played_t_s)
-
-
-def test_an_input_reads_the_time_of_the_lines_before_it_not_of_lines_read_since():
-    # A pushing electrometer's lines arrive between a command and its answer; the replay reads
-    # them with the answer, past an input the original took before they arrived. Reading the
-    # time of the latest line seen there, an arming took a later time than the original's.
-    follower = TrafficFollower(
-        recorded((1.0, "Q?", "Q +1.0000 nC A"), (2.0, "Q?", None)), QUERY_PLAIN
+        replay(lines, logged)
+    assert f"the logged accept by operator A (input 7, after traffic line {len(lines)})" in str(
+        stopped.value
     )
-    for line in follower.lines[:3]:
-        follower(TrafficDirection(line.direction), line.t_s, line.raw)
-    assert follower.played_t_s == follower.lines[2].t_s
-    follower.input_position = 1  # the input was recorded after the first line only
-    assert follower.played_t_s == follower.lines[0].t_s
-    follower.input_position = 0
-    assert math.isinf(follower.played_t_s)
-    follower.input_position = None
-    assert follower.played_t_s == follower.lines[2].t_s
+    assert "cannot set.accept while the sequence is collecting" in str(stopped.value)

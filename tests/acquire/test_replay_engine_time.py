@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.plan import CaptureRule, Plan, Step
 from chargebook.drivers_generic.interface import Capability
@@ -65,7 +66,9 @@ def into_routine(engine: Engine, clock: Clock) -> None:
 
 def test_the_session_records_its_profile_and_time_scale():
     engine, _, session_id = started(time_scale=0.02)
-    details = [e.detail() for e in engine.store.events(session_id) if e.kind == "acquisition"]
+    details = [
+        e.detail() for e in engine.store.events(session_id) if e.kind == EventKind.ACQUISITION
+    ]
     assert details == [{"profile": "query-plain", "time_scale": 0.02}]
 
 
@@ -93,7 +96,9 @@ def test_a_reading_records_when_it_was_armed_and_links_to_its_raw_line():
         sample(engine, t_s, charge)
     sample(engine, 701.3, 19.0, b"Q +19.0000 nC A\r\n")
     reading = engine.store.readings(session_id)[-1]
-    event = [e.detail() for e in engine.store.events(session_id) if e.kind == "reading_recorded"]
+    event = [
+        e.detail() for e in engine.store.events(session_id) if e.kind == EventKind.READING_RECORDED
+    ]
     assert event[-1]["armed_t_s"] == 700.0
     assert event[-1]["integration_s"] == 701.3 - 700.0
     line = {row.id: row for row in engine.store.traffic(session_id)}[reading.traffic_id]

@@ -1,7 +1,7 @@
-"""Reading what a replay needs from a stored session: inputs placed in the traffic, arming times.
+"""Reading what a replay needs from a stored session: its logged inputs placed in its traffic.
 
-Sessions here are written through the Store API with a hand clock for ``recorded_at``, so that
-where each event falls among the traffic lines is known exactly.
+Sessions here are written through the Store API, inputs logged as the engine logs them, so that
+where each input falls among the traffic lines is known exactly.
 """
 
 from __future__ import annotations
@@ -9,9 +9,13 @@ from __future__ import annotations
 from datetime import UTC, datetime, timedelta
 
 import pytest
+from chargebook.acquire.engine import inputs
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.recording import (
     NotReplayable,
+    before_the_input_log,
     load_recording,
     traffic_positions,
 )
@@ -40,9 +44,16 @@ def new_session(store: Store) -> int:
     return store.create_session(metadata, plan, "trs398", "6 MV", actor="operator A")
 
 
-def state_changed(store: Store, session_id: int, action: str, actor: str = "operator A", **more):
-    detail = {"from": "a", "to": "b", "action": action, **more}
-    store.add_event(session_id, actor, "state_changed", detail)
+def logged(store: Store, session_id: int, kind: str, actor: str = "operator A", **detail):
+    """Log one input of the session, as the engine does (clock_s, the engine's clock)."""
+    store.add_inputs(session_id, [(kind, actor, {"clock_s": 1.0, **detail})])
+
+
+def started(store: Store) -> int:
+    """Return a new session whose input log begins with its start, as a daemon's does."""
+    session_id = new_session(store)
+    logged(store, session_id, "session_start", metadata=example_metadata(), plan=None)
+    return session_id
 
 
 def exchange(store: Store, session_id: int | None, t_s: float, command: bytes, answer: bytes):
@@ -50,55 +61,66 @@ def exchange(store: Store, session_id: int | None, t_s: float, command: bytes, a
     store.add_traffic(session_id, t_s + 0.001, "rx", answer)
 
 
-def test_each_operator_action_is_placed_after_the_lines_written_before_it(store: Store):
-    session_id = new_session(store)
-    state_changed(store, session_id, "session.start")  # the start is not a replayed input
-    store.add_event(
-        session_id,
-        "operator A",
-        "environment_entered",
-        {"temperature_C": 21.0, "pressure_kPa": 101.0},
-    )
-    state_changed(store, session_id, "step.arm")
+def test_each_input_is_placed_after_the_lines_written_before_it_a_sample_after_its_line(
+    store: Store,
+):
+    session_id = started(store)
+    environment = {"temperature_C": 21.0, "pressure": 101.0, "source": "bench"}
+    logged(store, session_id, "environment", **environment)
+    logged(store, session_id, "arm")
     exchange(store, session_id, 10.0, b"BIAS +300\r\n", b"OK\r\n")
     exchange(store, session_id, 10.1, b"Q?\r\n", b"Q +0.0001 nC A\r\n")
-    store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "capture": "auto"})
-    store.add_event(
-        session_id, "operator A", "reading_recorded", {"reading_id": 2, "capture": "manual"}
-    )
-    exchange(store, session_id, 10.2, b"HOLD\r\n", b"OK\r\n")
-    state_changed(store, session_id, "set.redo", reason="the phantom moved")
+    exchange(store, session_id, 10.2, b"Q?\r\n", b"Q +0.0002 nC A\r\n")
+    first_sample = store.traffic(session_id)[3].id  # the answer to the first poll
+    # the sample is logged later, with the next input that writes (the redo)
+    sample = {"t_s": 10.101, "charge_nC": 0.0001, "line_id": first_sample}
+    logged(store, session_id, "sample", actor="daemon", **sample)
+    logged(store, session_id, "redo", reason="the phantom moved")
     store.set_session_status(session_id, "aborted", "stopped for the day")
     recording = load_recording(store, session_id)
-    placed = [(i.position, i.kind, i.actor) for i in recording.inputs]
+    placed = [(i.position, i.given.kind, i.given.actor, i.line) for i in recording.inputs]
     assert placed == [
-        (0, "environment", "operator A"),
-        (0, "arm", "operator A"),
-        (4, "capture", "operator A"),  # a manual capture; the automatic one is an outcome
-        (6, "redo", "operator A"),
+        (0, "environment", "operator A", None),
+        (0, "arm", "operator A", None),
+        (4, "sample", "daemon", 3),  # right after the line it was parsed from
+        (6, "redo", "operator A", None),  # after every line written before it
     ]
-    assert recording.inputs[-1].detail["reason"] == "the phantom moved"
+    assert recording.inputs[-1].given == inputs.Redo(
+        reason="the phantom moved", actor="operator A", clock_s=1.0
+    )
+    assert recording.start.metadata == example_metadata()
     assert [line.direction for line in recording.lines] == ["tx", "rx"] * 3
 
 
-def test_the_instrument_coming_back_is_an_input_only_after_it_was_lost(store: Store):
-    session_id = new_session(store)
-    identity = {"identity": "chargebook-sim, QUERY-PLAIN, SIM-EM-0001, 0.1.0"}
-    store.add_event(session_id, "daemon", "instrument_back", identity)  # first connection
+def test_a_session_recorded_before_the_input_log_is_refused_saying_why(store: Store):
+    old = new_session(store)  # no input log at all
+    store.set_session_status(old, "finished")
+    with pytest.raises(NotReplayable) as refused:
+        load_recording(store, old)
+    assert str(refused.value) == before_the_input_log(old)
+    assert f"session {old} was recorded before the input log" in str(refused.value)
+    assert "cannot be replayed exactly" in str(refused.value)
+    # begun before the upgrade, resumed after it: its log begins with the restart
+    resumed = new_session(store)
+    logged(store, resumed, "restart", actor="daemon")
+    store.set_session_status(resumed, "finished")
+    with pytest.raises(NotReplayable, match=f"session {resumed} was recorded before the input"):
+        load_recording(store, resumed)
+
+
+def test_a_sample_naming_no_line_the_session_received_is_refused(store: Store):
+    session_id = started(store)
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    store.add_event(session_id, "daemon", "instrument_lost", {"message": "cable pulled"})
-    exchange(
-        store, session_id, 5.0, b"ID?\r\n", b"chargebook-sim;QUERY-PLAIN;SIM-EM-0001;0.1.0\r\n"
-    )
-    store.add_event(session_id, "daemon", "instrument_back", identity)
+    sent = store.traffic(session_id)[0].id
+    logged(store, session_id, "sample", actor="daemon", t_s=1.0, charge_nC=1.0, line_id=sent)
     store.set_session_status(session_id, "finished")
-    kinds = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
-    assert kinds == [(2, "instrument_lost"), (4, "instrument_back")]
+    with pytest.raises(NotReplayable, match=f"traffic line id {sent}, which is not a line"):
+        load_recording(store, session_id)
 
 
 def test_a_session_that_starts_mid_exchange_gets_the_command_from_before_it(store: Store):
     store.add_traffic(None, 0.5, "tx", b"*IDN?\n")  # sent before the session existed
-    session_id = new_session(store)
+    session_id = started(store)
     store.add_traffic(session_id, 0.6, "rx", b"chargebook-sim,SIM-SCPI,SIM-EM-0001,0.1.0\n")
     exchange(store, session_id, 1.0, b"FETC?\n", b"+2.0E-08\n")
     store.set_session_status(session_id, "finished")
@@ -111,27 +133,10 @@ def test_a_session_that_starts_mid_exchange_gets_the_command_from_before_it(stor
     ]
 
 
-def test_arming_times_are_read_from_the_readings_events(store: Store):
-    session_id = new_session(store)
-    set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
-    first = store.add_reading(session_id, set_id, 1, 20.5, 19.6, "auto", False, "ok")
-    second = store.add_reading(session_id, set_id, 2, 31.0, 19.6, "auto", False, "ok")
-    detail = {"reading_id": first, "integration_s": 0.5, "armed_t_s": 20.0}
-    store.add_event(session_id, "daemon", "reading_recorded", detail)
-    store.add_event(
-        session_id, "daemon", "reading_recorded", {"reading_id": second, "integration_s": 0.75}
-    )
-    store.set_session_status(session_id, "finished")
-    recording = load_recording(store, session_id)
-    # An older session: the second arming time is rebuilt as capture time - integration time.
-    assert recording.armed_times_s == (20.0, 30.25)
-    assert recording.armed_times_recorded is False
-
-
 def test_the_profile_and_time_scale_come_from_the_acquisition_event(store: Store):
-    session_id = new_session(store)
-    detail = {"profile": "push-exponent", "time_scale": 0.02}
-    store.add_event(session_id, "daemon", "acquisition", detail)
+    session_id = started(store)
+    detail = ev.Acquisition(profile="push-exponent", time_scale=0.02)
+    store.add_event(session_id, "daemon", EventKind.ACQUISITION, detail)
     store.set_session_status(session_id, "finished")
     recording = load_recording(store, session_id)
     assert (recording.profile, recording.time_scale) == ("push-exponent", 0.02)
@@ -144,11 +149,21 @@ def test_an_open_session_is_not_replayable(store: Store):
 
 
 def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
-    session_id = new_session(store)
+    session_id = started(store)
     set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
-    state_changed(store, session_id, "step.arm", set_id=set_id)
+    armed = {"from": "waiting_for_operator", "to": "collecting", "action": "step.arm"}
+    store.add_event(session_id, "operator A", EventKind.STATE_CHANGED, {**armed, "set_id": set_id})
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
-    store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "set_id": set_id})
+    recorded = ev.ReadingRecorded(
+        reading_id=1,
+        set_id=set_id,
+        charge_nC=19.6,
+        capture="auto",
+        settling=False,
+        integration_s=0.5,
+        armed_t_s=0.501,
+    )
+    store.add_event(session_id, "daemon", EventKind.READING_RECORDED, recorded)
     exchange(store, session_id, 2.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
     store.set_set_status(set_id, "reviewing")
     store.set_set_status(set_id, "accepted")
@@ -157,19 +172,3 @@ def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
     assert words[0] == "in reading set 'routine' (attempt 1) after 0 readings"
     assert words[2] == "in reading set 'routine' (attempt 1) after 1 reading"
     assert words[4] == "after reading set 'routine' (attempt 1) ended accepted"
-
-
-def test_a_capture_by_hand_is_placed_right_after_the_sample_it_took(store: Store):
-    session_id = new_session(store)
-    set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
-    state_changed(store, session_id, "step.arm", set_id=set_id)
-    exchange(store, session_id, 10.1, b"Q?\r\n", b"Q +7.5000 nC A\r\n")
-    # The next sample was written before the request reached the engine, but came after it.
-    exchange(store, session_id, 10.15, b"Q?\r\n", b"Q +9.9000 nC A\r\n")
-    received_t_s = 10.1 + 0.001  # the first sample's line, as exchange() writes it
-    reading = store.add_reading(session_id, set_id, 1, received_t_s, 7.5, "manual", False, "ok")
-    detail = {"reading_id": reading, "capture": "manual", "set_id": set_id}
-    store.add_event(session_id, "operator A", "reading_recorded", detail)
-    store.set_session_status(session_id, "aborted", "phantom moved")
-    placed = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
-    assert placed == [(0, "arm"), (2, "capture")]

@@ -42,6 +42,8 @@ def recording() -> Recording:
     session_id = store.create_session(
         example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
     )
+    start = {"metadata": example_metadata(), "plan": None, "clock_s": 0.0}
+    store.add_inputs(session_id, [("session_start", "operator A", start)])
     for line in LINES:
         store.add_traffic(session_id, line.t_s, line.direction, line.raw)
     store.set_session_status(session_id, "finished")

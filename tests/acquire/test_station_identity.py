@@ -17,6 +17,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import MIGRATIONS, migrate, session_uuid_at_migration
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all, verify_session
@@ -80,7 +81,7 @@ def test_an_old_file_gets_ids_at_migration_and_still_verifies(tmp_path: Path) ->
     # uuid5 of the session in the station's namespace: the same whenever it is computed again
     assert found == {n: str(uuid.uuid5(uuid.UUID(station), f"session {n}")) for n in (1, 2)}
     assert found == {n: session_uuid_at_migration(station, n) for n in (1, 2)}
-    assert ("station_identity",) in applied
+    assert ("station_identity",) in applied  # later migrations may follow it
     with Store.open(path) as store:
         assert {n: store.session(n).uuid for n in (1, 2)} == found
 
@@ -112,7 +113,8 @@ def test_a_station_name_is_configured_and_its_change_audited(tmp_path: Path) -> 
         named = store.station()
         events = store.events(None)
     assert (named.uuid, named.name) == (first.uuid, "Physics bench 2")
-    assert [(e.kind, e.detail()["to"]) for e in events] == [("station_named", "Physics bench 2")]
+    named_events = [(EventKind.STATION_NAMED, "Physics bench 2")]
+    assert [(e.kind, e.detail()["to"]) for e in events] == named_events
 
 
 def test_every_export_carries_the_station_and_session_uuids(tmp_path: Path, capsys) -> None:

@@ -14,7 +14,15 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["pipeline", "scpi", "reanalysis", "startup", "console_latency", "memory"]
+SCRIPTS = [
+    "pipeline",
+    "scpi",
+    "reanalysis",
+    "startup",
+    "console_latency",
+    "publish",
+    pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
+]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)

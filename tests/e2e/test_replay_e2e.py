@@ -17,6 +17,7 @@ from __future__ import annotations
 import asyncio
 import hashlib
 import json
+import os
 import shutil
 import sqlite3
 import subprocess
@@ -32,6 +33,8 @@ from chargebook.acquire.client import DaemonClient, DaemonError
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import (
@@ -50,6 +53,7 @@ pytestmark = [pytest.mark.e2e, pytest.mark.slow]
 TIME_SCALE = 0.01
 REDO_REASON = "spike on the first routine reading"
 ABORT_REASON = "phantom moved"
+STOP_REASON = "only the leakage and routine sets were needed"
 
 
 @dataclass(frozen=True)
@@ -63,6 +67,7 @@ class Station:
     aborted: int
     interrupted: int
     pushed: int
+    stopped: int
 
 
 def start_simulator(work: Path, profile: str = "query-plain") -> SimulatorProcess:
@@ -106,7 +111,7 @@ def collecting(step: int, readings_done: int):
 async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProcess):
     """Record a session whose routine set is spiked and redone, one paused, captured by hand
     and aborted mid-set, and one interrupted twice: the cable pulled, then the daemon killed."""
-    redone, aborted = await record_redo_and_abort(daemon, simulator)
+    redone, aborted, stopped = await record_redo_abort_and_stop(daemon, simulator)
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -127,7 +132,7 @@ async def record_with_the_daemon(daemon: DaemonProcess, simulator: SimulatorProc
     )
     await client.close()
     assert final["session"]["id"] == snapshot["session"]["id"]
-    return redone, aborted, final["session"]["id"]
+    return redone, aborted, final["session"]["id"], stopped
 
 
 async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
@@ -143,9 +148,9 @@ async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
     pytest.fail("no sample arrived for the reading under way")
 
 
-async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProcess):
+async def record_redo_abort_and_stop(daemon: DaemonProcess, simulator: SimulatorProcess):
     """Record a session whose routine set is spiked and redone, then one paused, resumed,
-    captured by hand and aborted mid-set."""
+    captured by hand and aborted mid-set, then one stopped early mid-set."""
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -164,8 +169,11 @@ async def record_redo_and_abort(daemon: DaemonProcess, simulator: SimulatorProce
     await operator.run_until(snapshot, collecting(1, 1))
     await capture_by_hand(client)  # the second routine reading, mid-beam
     aborted = await client.call("session.abort", reason=ABORT_REASON, confirm=True)
+    snapshot = await operator.start(demo_metadata())
+    await operator.run_until(snapshot, collecting(1, 2))
+    stopped = await client.call("session.stop", reason=STOP_REASON)
     await client.close()
-    return redone["session"]["id"], aborted["session"]["id"]
+    return redone["session"]["id"], aborted["session"]["id"], stopped["session"]["id"]
 
 
 @pytest.fixture(scope="module")
@@ -182,7 +190,8 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
         daemon = DaemonProcess(args, work / "run" / "daemon.sock", db, work / "daemon.log")
         daemon.start()
         try:
-            redone, aborted, interrupted = asyncio.run(record_with_the_daemon(daemon, simulator))
+            recorded = asyncio.run(record_with_the_daemon(daemon, simulator))
+            redone, aborted, interrupted, stopped = recorded
         finally:
             daemon.stop()
     finally:
@@ -192,7 +201,7 @@ def station(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Station]:
         pushed = run_unattended(pushing, db)
     finally:
         stop_process(pushing.process)
-    yield Station(db, work, clean, redone, aborted, interrupted, pushed)
+    yield Station(db, work, clean, redone, aborted, interrupted, pushed, stopped)
 
 
 def copy_of(station: Station, name: str) -> Path:
@@ -262,16 +271,25 @@ def pause_capture_and_abort_kept(store: Store, replay_id: int) -> None:
 
 def interruptions_where_they_happened(store: Store, replay_id: int) -> None:
     kinds = {e.kind for e in store.events(replay_id)}
-    assert {"instrument_lost", "instrument_back", "session_resumed"} <= kinds
-    reasons = [e.detail()["reason"] for e in store.events(replay_id) if e.kind == "set_status"]
+    resumed = {EventKind.INSTRUMENT_LOST, EventKind.INSTRUMENT_BACK, EventKind.SESSION_RESUMED}
+    assert resumed <= kinds
+    reasons = [
+        e.detail()["reason"] for e in store.events(replay_id) if e.kind == EventKind.SET_STATUS
+    ]
     assert "continued after the interruption" in reasons
     assert "the daemon restarted while the set was being collected" in reasons
 
 
 def bias_turned_by_hand(store: Store, replay_id: int) -> None:
-    done = [e for e in store.events(replay_id) if e.kind == "manual_step_done"]
+    done = [e for e in store.events(replay_id) if e.kind == EventKind.MANUAL_STEP_DONE]
     assert len(done) >= 2 and all(e.actor.endswith("(replayed)") for e in done)
     assert {r.capture for r in store.readings(replay_id)} >= {"pushed"}
+
+
+def stopped_early(store: Store, replay_id: int) -> None:
+    session = store.session(replay_id)
+    assert (session.status, session.reason) == ("finished", STOP_REASON)
+    assert store.sets(replay_id)[-1].status == "aborted"  # the set under way when stopped
 
 
 SESSION_CHECKS = {
@@ -280,6 +298,7 @@ SESSION_CHECKS = {
     "redone": redo_kept_with_its_reason,
     "aborted": pause_capture_and_abort_kept,
     "interrupted": interruptions_where_they_happened,
+    "stopped": stopped_early,
 }
 
 
@@ -307,6 +326,25 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
         assert evaluate_session(store, replay_id).results() == results
         assert report["results_compared"] == len(results)
         SESSION_CHECKS[which](store, replay_id)
+        fed_from_the_input_log(store, original_id, replay_id)
+
+
+def fed_from_the_input_log(store: Store, original_id: int, replay_id: int) -> None:
+    """Check that the replay took exactly the original's logged inputs, in order: the same
+    kinds, fields and engine clocks, by the same actors (replayed), each sample parsed again
+    from a line of the same bytes."""
+    old_log, new_log = store.inputs(original_id), store.inputs(replay_id)
+    assert len(old_log) > 10
+    assert [(r.kind, f"{r.actor} (replayed)") for r in old_log] == [
+        (r.kind, r.actor) for r in new_log
+    ]
+    for before, after in zip(old_log[1:], new_log[1:], strict=True):  # after the start
+        old_fields, new_fields = before.detail(), after.detail()
+        if before.kind == "sample":
+            old_line = line_of(store, original_id, old_fields.pop("line_id"))
+            assert old_line is not None
+            assert line_of(store, replay_id, new_fields.pop("line_id")) == old_line
+        assert new_fields == old_fields
 
 
 def step_the_clock_back(db: Path, session_id: int, seconds: float) -> None:
@@ -563,7 +601,7 @@ def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_mark
     with Store.open(db, read_only=True) as store:
         replay_id = store.sessions()[-1].id
         assert store.session(replay_id).replay_of == station.clean
-        marks = [e for e in store.events(replay_id) if e.kind == "replay_not_reproduced"]
+        marks = [e for e in store.events(replay_id) if e.kind == EventKind.REPLAY_NOT_REPRODUCED]
     assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
 
 
@@ -588,6 +626,37 @@ def test_an_unknown_or_still_open_session_is_refused_and_nothing_is_written(
     before = file_state(db)
     status, message = replay_in_process(capsys, db, open_id, "--speed", "0")
     assert status == 2 and f"session {open_id} is still open" in message
+    assert file_state(db) == before
+
+
+def test_a_replay_into_a_station_file_a_daemon_holds_is_refused_naming_it(station: Station, capsys):
+    db = copy_of(station, "held.sqlite")
+    before = file_state(db)
+    with StationLock(db):  # as a running daemon holds it
+        status, message = replay_in_process(capsys, db, station.clean, "--speed", "0")
+        assert status == 2 and "the replay cannot be stored" in message
+        assert f"in use by another chargebook daemon (pid {os.getpid()})" in message
+        assert "--dry-run replays without writing anything" in message
+        assert file_state(db) == before
+        # a dry run writes nothing, so the daemon's hold does not stop it
+        dry = replay(db, station.clean, "--speed", "0", "--dry-run", "--json")
+        assert dry.returncode == 0, dry.stderr
+        assert json.loads(dry.stdout)["reproduced"] is True
+    assert file_state(db) == before
+
+
+def test_a_session_recorded_before_the_input_log_is_refused_saying_why(station: Station, capsys):
+    db = copy_of(station, "before-the-input-log.sqlite")
+    conn = sqlite3.connect(db)
+    with conn:  # the session as an older chargebook left it: no input log
+        conn.execute("DROP TRIGGER inputs_refuse_delete")
+        conn.execute("DELETE FROM inputs WHERE session_id = ?", (station.clean,))
+    conn.close()
+    before = file_state(db)
+    status, message = replay_in_process(capsys, db, station.clean, "--speed", "0")
+    assert status == 2
+    assert f"session {station.clean} was recorded before the input log" in message
+    assert "cannot be replayed exactly" in message
     assert file_state(db) == before
 
 

@@ -1,11 +1,12 @@
 """Operator actions killed in flight: what an action leaves in the record when the daemon dies.
 
-An action is *whole* when all of its rows are in the record (its status change and its event),
-*absent* when none are, and *partial* otherwise: the last must never happen, because each
-action is one transaction. Each action is judged by two counts read from the station file
-before and after the kill: the rows its status change leaves (a superseded set, an accepted set,
-an aborted session, an environment entry) and the events that record the action (the
-``state_changed`` event with the action's name, or ``environment_entered``).
+An action is *whole* when all of its rows are in the record (its status change, its event and
+its input in the input log), *absent* when none are, and *partial* otherwise: the last must
+never happen, because each action is one transaction. Each action is judged by three counts read
+from the station file before and after the kill: the rows its status change leaves (a superseded
+set, an accepted set, an aborted session, an environment entry), the events that record the
+action (the ``state_changed`` event with the action's name, or ``environment_entered``) and the
+action's rows in the input log (table ``inputs``).
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.client import DaemonClient, DaemonError
+from chargebook.acquire.engine import inputs
 from chargebook.acquire.protocol import Method
 
 from tests.bench.harness import Station, read_db
@@ -61,13 +63,16 @@ _EFFECTS: dict[str, tuple[str, str]] = {
 }
 
 
-def effect_counts(world: Station, action: str) -> tuple[int, int]:
-    """Return (status rows, recording events) of ``action`` in the station database."""
+def effect_counts(world: Station, action: str) -> tuple[int, int, int]:
+    """Return (status rows, recording events, logged inputs) of ``action`` in the station
+    database."""
     rows_sql, events_sql = _EFFECTS[action]
     params = () if "?" not in events_sql else (str(action),)
     rows = int(read_db(world.db, rows_sql)[0][0])
     events = int(read_db(world.db, events_sql, params)[0][0])
-    return rows, events
+    kind = inputs.BY_METHOD[action].kind
+    logged = int(read_db(world.db, "SELECT count(*) FROM inputs WHERE kind = ?", (kind,))[0][0])
+    return rows, events, logged
 
 
 def record_disagreements(world: Station) -> list[str]:
@@ -75,9 +80,11 @@ def record_disagreements(world: Station) -> list[str]:
     the other way round (every action ever taken on the file, the automatic operator's too)."""
     problems = []
     for action in _EFFECTS:
-        rows, events = effect_counts(world, action)
-        if rows != events:
-            problems.append(f"{action}: {rows} status rows but {events} events")
+        rows, events, logged = effect_counts(world, action)
+        if not rows == events == logged:
+            problems.append(
+                f"{action}: {rows} status rows, {events} events and {logged} logged inputs"
+            )
     return problems
 
 
@@ -124,6 +131,6 @@ async def kill_inside(
     with contextlib.suppress(Exception):
         await request
     after = effect_counts(world, action)
-    grown = (after[0] - before[0], after[1] - before[1])
-    outcome = {(0, 0): "absent", (1, 1): "whole"}.get(grown, "partial")
+    grown = tuple(now - then for now, then in zip(after, before, strict=True))
+    outcome = {(0, 0, 0): "absent", (1, 1, 1): "whole"}.get(grown, "partial")
     return ActionKill(str(action), outcome)

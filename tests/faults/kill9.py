@@ -17,9 +17,10 @@ Counted at every kill:
 * sessions resumed: the restarted daemon reports the session that was open as resumed (a
   session an abort closed before the kill is not open, so not counted);
 * actions killed in flight: whole (all of the action's rows), absent (none) or partial (some:
-  its status change without its event or the other way round);
-* at the end, over the whole file: for each of those action kinds, the status rows and the
-  events that record them must be as many (every action the automatic operator took, too).
+  its status change, its event and its row in the input log not all there);
+* at the end, over the whole file: for each of those action kinds, the status rows, the events
+  that record them and the logged inputs must be as many (every action the automatic operator
+  took, too).
 
 At the end the last session is taken to its end. Targets (issues 7 and 11), 20 + 16 kills:
 0 readings lost, every open session resumes, 0 actions partial, 0 disagreements in the record.
@@ -138,7 +139,7 @@ def main(argv: list[str] | None = None) -> int:
     out.target("0 actions partial", partial == 0, f"{partial} of {in_actions}")
     disagreements = counts["disagreements"]
     out.target(
-        "0 disagreements between status rows and events in the record",
+        "0 disagreements between status rows, events and logged inputs in the record",
         not disagreements,
         "; ".join(disagreements) or "none",
     )
