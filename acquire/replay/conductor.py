@@ -225,6 +225,8 @@ class Conductor:
         given = dataclasses.replace(logged.given, actor=self.actor(logged.given.actor))
         if isinstance(given, inputs.Sample):
             given = self._sample_read_again(logged, given)
+        elif isinstance(given, inputs.ShortDelivery):
+            given = dataclasses.replace(given, reading=self._reading_again(given.reading))
         elif isinstance(given, inputs.Restart):
             self.engine = self.restart()
             self.pending.clear()
@@ -244,6 +246,16 @@ class Conductor:
         if self.name_of is not None:
             profile_commands = self.driver.profile.commands
             self.pending.extend(c for c in commands if c.action in profile_commands)
+
+    def _reading_again(self, recorded_id: int) -> int:
+        """Return the id of the replay's reading at the place of the recorded reading
+        ``recorded_id`` (the id itself when the replay has no reading there yet: the engine
+        then refuses the input by name)."""
+        if recorded_id not in self.recording.reading_ids or self.engine.session_id is None:
+            return recorded_id
+        place = self.recording.reading_ids.index(recorded_id)
+        replayed = self.engine.store.readings(self.engine.session_id)
+        return replayed[place].id if place < len(replayed) else recorded_id
 
     def _sample_read_again(self, logged: LoggedInput, given: inputs.Sample) -> inputs.Sample:
         """Return the sample the driver read from the logged sample's line, with the row id

@@ -74,6 +74,9 @@ class Recording:
     start: inputs.StartSession
     inputs: tuple[LoggedInput, ...]  # every logged input after the session's start
     places: tuple[int, ...]  # each line's place in the session's chain (0: before the session)
+    #: The session's readings' ids, in the order taken: an input naming a reading (a short
+    #: delivery) names the replay's reading at the same place.
+    reading_ids: tuple[int, ...] = ()
 
     @property
     def session_id(self) -> int:
@@ -130,6 +133,7 @@ def load_recording(store: Store, session_id: int) -> Recording:
         start=start,
         inputs=tuple(placed_inputs(logged[1:], input_places, traffic, places)),
         places=places,
+        reading_ids=tuple(row.id for row in store.readings(session_id)),
     )
 
 

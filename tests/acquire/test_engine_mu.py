@@ -112,3 +112,29 @@ def test_a_setup_MU_per_reading_out_of_range_is_refused_by_name_and_no_session_o
     assert refused.value.field.endswith("mu_per_reading")
     assert engine.state is EngineState.IDLE
     assert engine.store.sessions() == []
+
+
+def test_a_short_delivery_and_the_MU_chosen_are_logged_as_inputs_with_their_effects():
+    """The input log (acquire/engine/inputs.py) holds the operator's short delivery and the
+    MU per reading chosen at the start, so a replay feeds them back to the engine."""
+    engine, session_id, short = _routine_with_a_short_delivery()
+    refused_before = len(engine.store.inputs(session_id))
+    with pytest.raises(InputError):
+        engine.record_short_delivery(short.id, 150.0, "interlock", actor=OPERATOR)
+    assert len(engine.store.inputs(session_id)) == refused_before  # a refusal logs nothing
+    engine.record_short_delivery(short.id, 50.0, "beam hold: door interlock", actor=OPERATOR)
+    logged = engine.store.inputs(session_id)[-1]
+    assert (logged.kind, logged.actor) == ("short_delivery", OPERATOR)
+    assert {k: logged.detail()[k] for k in ("reading", "actual_MU", "reason")} == {
+        "reading": short.id,
+        "actual_MU": 50.0,
+        "reason": "beam hold: door interlock",
+    }
+    assert "reading.short_delivery" in engine.allowed()
+
+
+def test_the_MU_per_reading_chosen_is_in_the_logged_session_start():
+    engine, _clock = make_engine()
+    session_id = engine.start_session(METADATA, "default", actor=OPERATOR, mu_per_reading=200)
+    start = engine.store.inputs(session_id)[0]
+    assert start.kind == "session_start" and start.detail()["mu_per_reading"] == 200.0

@@ -200,3 +200,26 @@ def test_a_beam_keeps_its_register_row_ids_and_refuses_ones_that_are_not_ids(
         desk.add_beam(_beam("18 MV"), "default", OPERATOR, {"chambers": "the blue one"})
     assert refused.value.field == "register_ids"
     assert [b["name"] for b in desk.snapshot()["beams"]] == ["6 MV", "10 MV", "15 MV"]
+
+
+def test_a_beam_added_with_register_ids_starts_its_session_filled_from_the_registers(
+    tmp_path: Path, clock: WallClock
+):
+    """Issue 14 meets issue 15: a visit's beam names its register rows (register_ids); its
+    session's metadata is filled from them and keeps a copy (``register_copy``)."""
+    from chargebook.acquire.commands.demo_data import DEMO_PICK, add_demo_registers
+
+    desk = _desk(tmp_path / "station.sqlite", clock)
+    try:
+        ids = add_demo_registers(desk.store, actor=OPERATOR, today=clock.now.date())
+        picked = {kind: ids[key] for kind, key in DEMO_PICK.items()}
+        desk.start("DEMO-LA1", {"operator": OPERATOR}, OPERATOR)
+        beam_id = desk.add_beam(_beam("6 MV"), "default", OPERATOR, picked)
+        session_id = desk.start_beam(beam_id, OPERATOR)
+        kept = desk.store.session(session_id).metadata()
+        assert picked.items() <= kept["registers"].items()  # with the rows they lead to
+        assert kept["register_copy"]["beam"]["name"] == "DEMO-LA1 6 MV"
+        assert kept["register_copy"]["certificate"]["fields"]["number"] == "SIM-CAL-0001"
+        assert visits.beams(desk.store, desk.visit_id)[0].register_ids() == picked
+    finally:
+        desk.store.close()

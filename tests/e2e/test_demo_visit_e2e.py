@@ -16,6 +16,7 @@ import sys
 from pathlib import Path
 
 import pytest
+from chargebook.acquire.record import visits
 from chargebook.acquire.record.store import Store
 from e2e_support import TIME_SCALE, chargebook_command
 
@@ -60,6 +61,12 @@ def test_the_demo_measures_a_visit_of_three_beams_that_a_second_person_approves(
         check = sessions["10 MV"].metadata()
         electron = sessions["10 MeV"].metadata()
         air = store.environment(sessions["10 MV"].id)[-1]
+        photon = sessions["6 MV"].metadata()
+        beam_rows = visits.beams(store, visit["id"])
+    # The 6 MV beam names the demo clinic's register rows; its session was filled from them.
+    assert beam_rows[0].register_ids()["beam"] == photon["registers"]["beam"]
+    assert photon["register_copy"]["beam"]["name"] == "DEMO-LA1 6 MV"
+    assert beam_rows[1].register_ids() == {}
     # The output check's k_pol is carried (the demo enters the simulator's true value).
     assert check["carried_k_pol"]["value"] == pytest.approx(
         visit["truth"]["k_pol"], abs=K_POL_TOLERANCE

@@ -63,17 +63,19 @@ async def test_rows_are_added_through_the_daemon_and_a_session_keeps_their_copy(
 
 
 def test_the_demo_picks_from_its_registers_then_a_monthly_check_carries_the_factors(tmp_path):
-    """Issue 14 item 6: `chargebook demo` (no --plan) names its beam, chamber and certificate
-    date from the invented clinic's registers, runs a full calibration, then a monthly check
-    whose k_pol and k_s are carried from it; `history` of that register beam shows both."""
+    """Issue 14 item 6: `chargebook demo --plan default --plan monthly-check` names its beam,
+    chamber and certificate date from the invented clinic's registers, runs a full calibration,
+    then a monthly check whose k_pol and k_s are carried from it; `history` of that register
+    beam shows both. (Without --plan the demo measures a visit: test_demo_visit_e2e.)"""
     import json
 
     from e2e_support import TIME_SCALE
 
     db = tmp_path / "demo.sqlite"
     command = chargebook_command(
-        "demo", "--unattended", "--json", "--db", str(db), "--time-scale", str(TIME_SCALE)
-    )
+        "demo", "--unattended", "--json", "--db", str(db), "--time-scale", str(TIME_SCALE),
+        "--plan", "default", "--plan", "monthly-check",
+    )  # fmt: skip
     done = subprocess.run(command, capture_output=True, text=True, timeout=240, check=False)
     assert done.returncode == 0, done.stderr
     assert "registers: beam DEMO-LA1 6 MV, chamber SIM-CH-0001 (certificate SIM-CAL-0001" in (

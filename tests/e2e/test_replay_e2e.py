@@ -54,6 +54,7 @@ TIME_SCALE = 0.01
 REDO_REASON = "spike on the first routine reading"
 ABORT_REASON = "phantom moved"
 STOP_REASON = "only the leakage and routine sets were needed"
+SHORT_REASON = "beam hold: door interlock opened"
 
 
 @dataclass(frozen=True)
@@ -150,7 +151,8 @@ async def capture_by_hand(client: DaemonClient, attempts: int = 500) -> None:
 
 async def record_redo_abort_and_stop(daemon: DaemonProcess, simulator: SimulatorProcess):
     """Record a session whose routine set is spiked and redone, then one paused, resumed,
-    captured by hand and aborted mid-set, then one stopped early mid-set."""
+    captured by hand and aborted mid-set, then one stopped early mid-set after the operator
+    recorded that a reading's delivery stopped short."""
     client = await daemon.connect(operator=ACTOR)
     operator = AutoOperator(client, environment_from_bench(simulator.control))
     snapshot = await operator.start(demo_metadata())
@@ -170,7 +172,12 @@ async def record_redo_abort_and_stop(daemon: DaemonProcess, simulator: Simulator
     await capture_by_hand(client)  # the second routine reading, mid-beam
     aborted = await client.call("session.abort", reason=ABORT_REASON, confirm=True)
     snapshot = await operator.start(demo_metadata())
-    await operator.run_until(snapshot, collecting(1, 2))
+    snapshot = await operator.run_until(snapshot, collecting(1, 2))
+    first = next(r for r in snapshot["current_set"]["readings"] if not r["settling"])
+    planned_MU = snapshot["plan"][1]["mu_per_reading"]
+    await client.call(  # an operator action the input log holds, naming a reading by its id
+        "reading.short_delivery", reading=first["id"], actual_MU=planned_MU / 2, reason=SHORT_REASON
+    )
     stopped = await client.call("session.stop", reason=STOP_REASON)
     await client.close()
     return redone["session"]["id"], aborted["session"]["id"], stopped["session"]["id"]
@@ -290,6 +297,17 @@ def stopped_early(store: Store, replay_id: int) -> None:
     session = store.session(replay_id)
     assert (session.status, session.reason) == ("finished", STOP_REASON)
     assert store.sets(replay_id)[-1].status == "aborted"  # the set under way when stopped
+    # The short delivery applied again, to the replay's own reading at the original's place.
+    original_id = session.replay_of
+    assert original_id is not None
+
+    def shorts(session_id: int) -> list[tuple[int, float, str]]:
+        place = {r.id: n for n, r in enumerate(store.readings(session_id))}
+        found = [e.detail() for e in store.events(session_id) if e.kind == "delivery_short"]
+        return [(place[d["reading_id"]], d["actual_MU"], d["reason"]) for d in found]
+
+    assert len(shorts(original_id)) == 1 and shorts(replay_id) == shorts(original_id)
+    assert shorts(replay_id)[0][2] == SHORT_REASON
 
 
 SESSION_CHECKS = {
@@ -332,7 +350,7 @@ def test_every_recorded_session_replays_exactly(station: Station, which: str):
 def fed_from_the_input_log(store: Store, original_id: int, replay_id: int) -> None:
     """Check that the replay took exactly the original's logged inputs, in order: the same
     kinds, fields and engine clocks, by the same actors (replayed), each sample parsed again
-    from a line of the same bytes."""
+    from a line of the same bytes, a short delivery naming the reading at the same place."""
     old_log, new_log = store.inputs(original_id), store.inputs(replay_id)
     assert len(old_log) > 10
     assert [(r.kind, f"{r.actor} (replayed)") for r in old_log] == [
@@ -344,6 +362,10 @@ def fed_from_the_input_log(store: Store, original_id: int, replay_id: int) -> No
             old_line = line_of(store, original_id, old_fields.pop("line_id"))
             assert old_line is not None
             assert line_of(store, replay_id, new_fields.pop("line_id")) == old_line
+        if before.kind == "short_delivery":  # each names its own session's reading, same place
+            old_place = [r.id for r in store.readings(original_id)].index(old_fields.pop("reading"))
+            new_place = [r.id for r in store.readings(replay_id)].index(new_fields.pop("reading"))
+            assert new_place == old_place
         assert new_fields == old_fields
 
 

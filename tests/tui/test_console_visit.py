@@ -12,7 +12,7 @@ from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
 from chargebook.tui.widgets.fields import Field
 from console_driver import daemon_record, press_and_wait, screen_kind, until
 from screen_text import screen_text
-from test_console_e2e import SIZE, console
+from test_console_e2e import SIZE, console, simulator_air
 
 pytestmark = pytest.mark.e2e
 
@@ -36,7 +36,7 @@ async def _reason(pilot, app, dialog: type, words: str) -> None:
 async def test_a_visit_by_keys_measures_beams_carries_the_air_only_when_confirmed_and_closes(
     simulator, daemon, metadata
 ):
-    app = console(daemon, metadata, simulator)
+    app = console(daemon, metadata, simulator_air(simulator))
     async with app.run_test(size=SIZE) as pilot:
         await until(pilot, lambda: screen_kind(app) == "setup", "the setup form")
         await press_and_wait(pilot, app, "ctrl+o")
