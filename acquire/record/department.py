@@ -2,12 +2,12 @@
 
 Publishing (:func:`publish_station`) copies a station file's closed sessions (finished or
 aborted) one way into the department database: every row of each session's hash chain (the
-session, its reading sets, readings, environment entries, events and raw traffic) with its
-place and hash as recorded, keyed by the station's UUID and the row's id (a session's UUID is
-unique across stations too). Each session is copied in one transaction, from the place of its
-chain past the one already published: publishing twice adds nothing, a dropped connection loses
-only the session being copied and publishing again resumes, and a review recorded later (an
-event appended to the chain) is added by the next publish. Events outside sessions (the
+session, its reading sets, readings, environment entries, events, raw traffic and input log)
+with its place and hash as recorded, keyed by the station's UUID and the row's id (a session's
+UUID is unique across stations too). Each session is copied in one transaction, from the place
+of its chain past the one already published: publishing twice adds nothing, a dropped connection
+loses only the session being copied and publishing again resumes, and a review recorded later
+(an event appended to the chain) is added by the next publish. Events outside sessions (the
 instrument identified, the station renamed) are copied too; raw traffic outside sessions is not.
 The station file is only read (a read-only open, as `show` does): the daemon goes on measuring,
 and while the server is away the station works as before.
@@ -37,6 +37,7 @@ from chargebook.acquire.record.migrations import SESSION_FINAL_STATUSES
 from chargebook.acquire.record.store import (
     EnvironmentRow,
     EventRow,
+    InputRow,
     NotFound,
     ReadingRow,
     Row,
@@ -70,6 +71,7 @@ ROW_CLASSES: dict[str, type] = {
     "environment": EnvironmentRow,
     "events": EventRow,
     "traffic": TrafficRow,
+    "inputs": InputRow,  # the input log: a published session can be replayed from its copy
 }
 _INTEGER = {
     "id",
