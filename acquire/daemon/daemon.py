@@ -20,6 +20,7 @@ from __future__ import annotations
 import asyncio
 import collections
 import contextlib
+import json
 import logging
 import os
 import queue
@@ -38,7 +39,7 @@ from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
-from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
+from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -394,6 +395,18 @@ class InstrumentLink(threading.Thread):
             timeout_s = BURST_GAP_S
 
 
+def _event_info(event: EventRow) -> protocol.EventInfo:
+    """Return the ``event`` notification's params for one committed audit event."""
+    return {
+        "id": event.id,
+        "session_id": event.session_id,
+        "recorded_at": event.recorded_at,
+        "actor": event.actor,
+        "kind": event.kind,
+        "detail": json.loads(event.detail_json),
+    }
+
+
 def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
@@ -437,8 +450,8 @@ class Daemon:
         self._built: tuple[int, dict[str, Any], bytes | None] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
-        self._published_event_id = 0
-        self._events_checked_at: int | None = None  # engine.data_version at the last look
+        #: Events committed and not yet broadcast, in order (the store hands them over).
+        self._emitted: list[EventRow] = []
         self._last_live: tuple[float, float | None] = (0.0, None)
         self._stopping = asyncio.Event()
         self._stop_reason = "asked to stop"
@@ -452,6 +465,7 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        self.store.on_events_committed = self._emitted.extend
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
@@ -837,24 +851,14 @@ class Daemon:
         await self.publish()
 
     async def publish(self) -> None:
-        """Broadcast new audit events and, if the state changed, the snapshot."""
+        """Broadcast the audit events committed since the last call (as the store handed them
+        over: nothing is read back) and, if the state changed, the snapshot."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
-        if engine.session_id is not None and self._events_checked_at != engine.data_version:
-            self._events_checked_at = engine.data_version
-            for event in self.store.events_after(engine.session_id, self._published_event_id):
-                self._published_event_id = event.id
-                await self._broadcast(
-                    protocol.NOTIFY_EVENT,
-                    {
-                        "id": event.id,
-                        "session_id": event.session_id,
-                        "recorded_at": event.recorded_at,
-                        "actor": event.actor,
-                        "kind": event.kind,
-                        "detail": event.detail(),
-                    },
-                )
+        emitted = self._emitted[:]
+        self._emitted.clear()  # the same list: the store extends it
+        for event in emitted:
+            await self._broadcast(protocol.NOTIFY_EVENT, _event_info(event))
         if engine.seq != self._published_seq:
             self._published_seq = engine.seq
             servers = (self.server, self.watch_server)

@@ -355,6 +355,10 @@ class Store:
         self._in_flight_told: list[LineIdListener | None] = []
         self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
         self._account: str | None = None  # the Unix account a client's request comes from
+        #: Told the events of each transaction once it is committed, in the order written (the
+        #: daemon broadcasts them from there instead of reading them back); None: nobody.
+        self.on_events_committed: Callable[[list[EventRow]], None] | None = None
+        self._events_in_flight: list[EventRow] = []  # written in the open transaction
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -505,8 +509,13 @@ class Store:
         with self._lock:
             conn = self.db.conn
             if conn.in_transaction:
-                with self.db.atomic():  # a savepoint inside the open transaction
-                    yield self.db
+                written = len(self._events_in_flight)
+                try:
+                    with self.db.atomic():  # a savepoint inside the open transaction
+                        yield self.db
+                except BaseException:
+                    del self._events_in_flight[written:]  # rolled back with the savepoint
+                    raise
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
@@ -523,6 +532,13 @@ class Store:
                 self._keep_again()
                 raise
             self._in_flight, self._in_flight_told = [], []
+            self._tell_committed_events()
+
+    def _tell_committed_events(self) -> None:
+        """Hand the events of the transaction just committed to :attr:`on_events_committed`."""
+        events, self._events_in_flight = self._events_in_flight, []
+        if events and self.on_events_committed is not None:
+            self.on_events_committed(events)
 
     def _write_kept_traffic(self) -> None:
         """Append the kept raw lines (lock held, transaction open) and tell each line's
@@ -537,7 +553,9 @@ class Store:
                     told(first_id + offset)
 
     def _keep_again(self) -> None:
-        """Put the lines of a failed transaction back in front of the kept ones."""
+        """Put the lines of a failed transaction back in front of the kept ones (and forget
+        its events: they were never committed)."""
+        self._events_in_flight = []
         with self._pending_lock:
             self._pending[:0] = self._in_flight
             self._pending_told[:0] = self._in_flight_told
@@ -662,17 +680,18 @@ class Store:
                 self._account = previous
 
     def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        return self._append(
-            "events",
-            {
-                "session_id": session_id,
-                "recorded_at": self._stamp(),
-                "actor": _require_text("actor", actor),
-                "kind": _require_text("kind", kind),
-                "detail_json": _to_json("detail", detail),
-                "account": self._account,
-            },
-        )
+        row = {
+            "session_id": session_id,
+            "recorded_at": self._stamp(),
+            "actor": _require_text("actor", actor),
+            "kind": _require_text("kind", kind),
+            "detail_json": _to_json("detail", detail),
+            "account": self._account,
+        }
+        event_id = self._append("events", row)
+        if self.on_events_committed is not None:
+            self._events_in_flight.append(EventRow(event_id, **row))
+        return event_id
 
     # ------------------------------------------------------------------------- sessions
 
@@ -987,10 +1006,6 @@ class Store:
             tuple(kinds),
         )
         return found[0] if found else None
-
-    def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
-        """Return the session's events newer than ``event_id``, oldest first."""
-        return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
 
     # ---------------------------------------------------------------------------- traffic
 

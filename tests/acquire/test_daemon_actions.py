@@ -14,7 +14,7 @@ from chargebook.acquire.client import DaemonClient, Notification
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions, InstrumentLink
 from chargebook.acquire.engine.engine import Engine
-from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
+from chargebook.acquire.protocol import NOTIFY_EVENT, NOTIFY_SNAPSHOT
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic import build_electrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
@@ -34,17 +34,35 @@ def daemon_on_file(tmp_path: Path) -> Daemon:
     return daemon
 
 
-async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
-    tmp_path: Path,
-) -> None:
+def daemon_with_engine(tmp_path: Path) -> Daemon:
+    """Return a daemon (not running) with its station file, engine and instrument thread (never
+    started), wired as ``Daemon.run`` wires them."""
     daemon = daemon_on_file(tmp_path)
-    options = daemon.options
+    daemon.store.on_events_committed = daemon._emitted.extend
     profile = load_profile("query-plain")
     daemon.engine = Engine(
         daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
     )
     electrometer = build_electrometer(profile, port=str(tmp_path / "no-such-port"))
     daemon.link = InstrumentLink(electrometer, lambda kind, payload: None)  # never started
+    return daemon
+
+
+ACTIONS = [
+    ("session.start", {"metadata": demo_metadata()}),
+    ("environment.set", {"temperature_C": 20.0, "pressure": 101.325}),
+    ("step.arm", {}),
+    ("session.pause", {}),
+    ("session.resume", {}),
+    ("session.abort", {"reason": "chamber cable damaged", "confirm": True}),
+]
+
+
+async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    options = daemon.options
     builds: list[int] = []
     engine_snapshot = daemon.engine.snapshot
 
@@ -64,15 +82,7 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
     try:
         client.add_listener(heard)
         await client.subscribe()
-        actions = [
-            ("session.start", {"metadata": demo_metadata()}),
-            ("environment.set", {"temperature_C": 20.0, "pressure": 101.325}),
-            ("step.arm", {}),
-            ("session.pause", {}),
-            ("session.resume", {}),
-            ("session.abort", {"reason": "chamber cable damaged", "confirm": True}),
-        ]
-        for method, params in actions:
+        for method, params in ACTIONS:
             builds.clear()
             reply = await client.call(method, **params)
             await client.wait_for_snapshot(lambda s, seq=reply["seq"]: s["seq"] == seq, 10)
@@ -107,3 +117,30 @@ def test_each_received_line_committed_gives_its_row_id_to_the_sample_read_from_i
         assert rows[second_ref.id].line == second[2]  # not found by its (shared) time
     finally:
         daemon.store.close()
+
+
+async def test_events_are_broadcast_as_committed_without_reading_them_back(tmp_path: Path) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    statements: list[str] = []
+    daemon.store.db.conn.set_trace_callback(statements.append)
+    await daemon.server.start()
+    heard: list[dict] = []
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    try:
+        client.add_listener(lambda note: note.method == NOTIFY_EVENT and heard.append(note.params))
+        await client.subscribe()
+        for method, params in ACTIONS:
+            await client.call(method, **params)
+        await client.call("session.close")
+        await client.call("status")  # the notifications before it have arrived
+    finally:
+        await client.close()
+        await daemon.server.close()
+    daemon.store.db.conn.set_trace_callback(None)
+    recorded = daemon.store.events(1)
+    daemon.store.close()
+    assert [event["id"] for event in heard] == [event.id for event in recorded]
+    assert heard[-1]["kind"] == "state_changed" and heard[-1]["detail"]["action"] == "session.close"
+    assert heard[0]["actor"] == "operator A" and heard[0]["detail"] == recorded[0].detail()
+    read_back = [sql for sql in statements if "FROM events WHERE" in sql]
+    assert read_back == []

@@ -565,3 +565,25 @@ def test_a_kept_line_is_told_its_row_id_when_written_and_none_when_its_commit_fa
     rows = {row.id: row.line for row in store.traffic(session_id)}
     assert rows[told["first"][-1]] == b"20.1\n"
     assert rows[told["second"][-1]] == b"20.2\n"
+
+
+def test_committed_events_are_handed_over_once_in_order_and_rolled_back_ones_never(
+    store: Store,
+) -> None:
+    session_id, set_id = _session_with_set(store)
+    told: list[list[tuple[int, str]]] = []
+    store.on_events_committed = lambda events: told.append([(e.id, e.kind) for e in events])
+    with store.atomic():
+        first = store.add_event(session_id, "operator A", "note", {"text": "kept"})
+        with pytest.raises(InputError), store.atomic():  # a savepoint that fails
+            store.add_event(session_id, "operator A", "lost", {"text": "rolled back"})
+            store.add_event(session_id, "operator A", "bad", {"value": NAN})
+        assert told == []  # nothing is told before the commit
+        store.set_set_status(set_id, "reviewing", actor="operator A")
+    with pytest.raises(InputError), store.atomic():  # a transaction that fails whole
+        store.add_event(session_id, "operator A", "gone", {"text": "rolled back"})
+        store.add_event(session_id, "operator A", "bad", {"value": NAN})
+    recorded = [(e.id, e.kind) for e in store.events(session_id)]
+    assert told == [[(first, "note"), recorded[-1]]]
+    assert recorded[-2:] == told[0]  # as committed: the same ids and kinds, in order
+    assert [e for e in store.events(session_id) if e.kind in ("lost", "gone")] == []
