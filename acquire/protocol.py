@@ -15,9 +15,13 @@ Sequence of a client
     1. ``hello`` {client, operator?}: names the client and the person at the keyboard (the
        *actor* written in the audit log for every request on this connection).
     2. ``subscribe``: from now on the daemon sends notifications on this connection:
-       ``snapshot`` (params: a whole :class:`Snapshot`, after every change) and ``event``
-       (params: one :class:`EventInfo`, the audit-log entry just committed).
-       ``subscribe`` returns the current snapshot, so a client never misses the state.
+       ``delta`` (params: a :class:`Delta`, what changed since the snapshot of seq
+       ``base_seq``, after every change) and ``event`` (params: one :class:`EventInfo`, the
+       audit-log entry just committed). ``subscribe`` returns the whole current snapshot, the
+       base of the first delta; :func:`apply_delta` turns a snapshot and a delta into the next
+       snapshot. A client whose snapshot is not the delta's base (it missed one) asks for the
+       whole snapshot again (``status``). So the bytes sent per reading do not grow with the
+       session: a reading sends its set, the results and the prompt, not every set before it.
     3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
        lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
 
@@ -165,6 +169,7 @@ OPERATOR_ACTIONS: tuple[str, ...] = (
 )
 
 NOTIFY_SNAPSHOT = "snapshot"
+NOTIFY_DELTA = "delta"
 NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
@@ -212,8 +217,8 @@ METHODS: dict[str, MethodSpec] = {
         ),
         MethodSpec(
             Method.SUBSCRIBE,
-            "Start `snapshot` and `event` notifications on this connection.",
-            result="the current snapshot",
+            "Start `delta` and `event` notifications on this connection.",
+            result="the current snapshot, the base of the first delta",
         ),
         MethodSpec(Method.UNSUBSCRIBE, "Stop notifications on this connection.", result="{}"),
         MethodSpec(Method.STATUS, "Return the current snapshot.", result="the current snapshot"),
@@ -550,6 +555,73 @@ class Snapshot(TypedDict):
     instrument: InstrumentInfo
     record: RecordInfo
     caution: str
+
+
+class Delta(TypedDict):
+    """What changed from the snapshot of seq ``base_seq`` to the one of seq ``seq`` (params of
+    the ``delta`` notification; see :func:`snapshot_delta` and :func:`apply_delta`)."""
+
+    seq: int
+    base_seq: int
+    changed: dict[str, Any]  # the top-level Snapshot keys whose value changed, new values
+    sets: list[SetInfo]  # sets new or changed since the base, whole, in the snapshot's order
+
+
+class DeltaGap(ValueError):
+    """A delta does not apply to the snapshot held: its base is another snapshot."""
+
+
+def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
+    """Return the :class:`Delta` that turns snapshot ``old`` into snapshot ``new``.
+
+    Sets are compared one by one (by position, their ids checked): only those new or changed
+    are sent. When ``new`` does not extend ``old``'s sets (another session), ``sets`` is sent
+    whole among ``changed``.
+    """
+    changed = {
+        key: value
+        for key, value in new.items()
+        if key not in ("seq", "sets") and (key not in old or old[key] != value)
+    }
+    old_sets, new_sets = old.get("sets") or [], new.get("sets") or []
+    extends = len(new_sets) >= len(old_sets) and all(
+        before["id"] == after["id"] for before, after in zip(old_sets, new_sets, strict=False)
+    )
+    sets: list[Any] = []
+    if not extends:
+        changed["sets"] = new_sets
+    else:
+        sets = [
+            entry
+            for index, entry in enumerate(new_sets)
+            if index >= len(old_sets) or old_sets[index] != entry
+        ]
+    return {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": sets}
+
+
+def apply_delta(snapshot: Mapping[str, Any], delta: Mapping[str, Any]) -> dict[str, Any]:
+    """Return the snapshot ``delta`` leads to from ``snapshot`` (which is left as it was).
+
+    What did not change is the very object of ``snapshot`` (a client can tell what to redraw
+    by identity). Raises :class:`DeltaGap` when ``snapshot`` is not the delta's base.
+    """
+    if snapshot.get("seq") != delta["base_seq"]:
+        raise DeltaGap(
+            f"the delta applies to snapshot {delta['base_seq']}, not to {snapshot.get('seq')}"
+        )
+    result = {**snapshot, **delta["changed"], "seq": delta["seq"]}
+    if delta["sets"]:
+        sets = list(result.get("sets") or [])
+        for entry in delta["sets"]:
+            place = next(
+                (i for i in range(len(sets) - 1, -1, -1) if sets[i]["id"] == entry["id"]), None
+            )
+            if place is None:
+                sets.append(entry)
+            else:
+                sets[place] = entry
+        result["sets"] = sets
+    return result
 
 
 class EventInfo(TypedDict):

@@ -407,6 +407,21 @@ def _event_info(event: EventRow) -> protocol.EventInfo:
     }
 
 
+def _fitted(snapshot: dict[str, Any]) -> dict[str, Any]:
+    """Return ``snapshot``, or, if it is too long for one message, a copy without the readings
+    of the sets other than the current one."""
+    try:
+        _snapshot_notification(snapshot)
+    except ValueError:
+        current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
+        sets = [
+            entry if entry["id"] == current else {**entry, "readings": []}
+            for entry in snapshot["sets"]
+        ]
+        return {**snapshot, "sets": sets}
+    return snapshot
+
+
 def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
@@ -446,8 +461,10 @@ class Daemon:
         self._latest_received: LineRef | None = None  # the newest received line's ref
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
-        #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
-        self._built: tuple[int, dict[str, Any], bytes | None] | None = None
+        #: The latest snapshot built: (engine.seq it shows, snapshot).
+        self._built: tuple[int, dict[str, Any]] | None = None
+        #: The snapshot every subscriber holds, the base of the next delta (None: no subscriber).
+        self._sent: dict[str, Any] | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         #: Events committed and not yet broadcast, in order (the store hands them over).
@@ -859,14 +876,17 @@ class Daemon:
         self._emitted.clear()  # the same list: the store extends it
         for event in emitted:
             await self._broadcast(protocol.NOTIFY_EVENT, _event_info(event))
-        if engine.seq != self._published_seq:
-            self._published_seq = engine.seq
-            servers = (self.server, self.watch_server)
-            if any(server.has_subscribers() for server in servers):  # else: nothing to build
-                _, line = self._snapshot_and_line()
-                if line is not None:
-                    for server in servers:
-                        await server.broadcast_line(line)
+        if engine.seq == self._published_seq:
+            return
+        self._published_seq = engine.seq
+        servers = (self.server, self.watch_server)
+        if not any(server.has_subscribers() for server in servers):  # nothing to build
+            self._sent = None
+            return
+        line = self._change_line(self._current_snapshot())
+        if line is not None:
+            for server in servers:
+                await server.broadcast_line(line)
 
     async def _broadcast(self, method: str, params: Any) -> None:
         """Send a notification to the subscribers of both sockets."""
@@ -874,41 +894,49 @@ class Daemon:
         for server in (self.server, self.watch_server):
             await server.broadcast_line(line)
 
-    def snapshot(self) -> dict[str, Any]:
-        """Return the engine's snapshot, trimmed to fit one message if it must be."""
-        return self._snapshot_and_line()[0]
-
-    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[dict[str, Any], bytes | None]:
-        """Return the engine's snapshot, trimmed to fit one message if it must be, and its
-        notification line, encoded once (None if even the trimmed snapshot does not fit).
-
-        ``reuse``: the one built last, if nothing changed since (``engine.seq``), so that an
-        action's reply is the snapshot its change was published with, built once.
-        """
-        assert self.engine is not None
-        built = self._built
-        if reuse and built is not None and built[0] == self.engine.seq:
-            return built[1], built[2]
-        seq = self.engine.seq
-        snapshot, line = self._build_snapshot()
-        self._built = (seq, snapshot, line)
-        return snapshot, line
-
-    def _build_snapshot(self) -> tuple[dict[str, Any], bytes | None]:
-        assert self.engine is not None
-        snapshot = self.engine.snapshot()
+    def _change_line(self, snapshot: dict[str, Any]) -> bytes | None:
+        """Return the notification that brings every subscriber to ``snapshot``: a ``delta``
+        from the one they hold, or (none held, or a delta too long) the whole snapshot."""
+        base, self._sent = self._sent, snapshot
+        if base is not None:
+            with contextlib.suppress(ValueError):  # too long: the whole snapshot, trimmed
+                delta = protocol.snapshot_delta(base, snapshot)
+                return protocol.encode_from_daemon(
+                    protocol.notification(protocol.NOTIFY_DELTA, delta)
+                )
+        fitted = _fitted(snapshot)
+        self._sent = fitted
         try:
-            return snapshot, _snapshot_notification(snapshot)
-        except ValueError:
-            current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
-            for entry in snapshot["sets"]:
-                if entry["id"] != current:
-                    entry["readings"] = []
-        try:
-            return snapshot, _snapshot_notification(snapshot)
+            return _snapshot_notification(fitted)
         except ValueError as error:
             log.error("a snapshot was not sent: %s", error)
-            return snapshot, None
+            return None
+
+    def snapshot(self) -> dict[str, Any]:
+        """Return the engine's snapshot now (the one built last, if nothing changed since),
+        trimmed to fit one message if it must be."""
+        return _fitted(self._current_snapshot())
+
+    def _subscriber_snapshot(self) -> dict[str, Any]:
+        """Return the snapshot a new subscriber starts from: the one the other subscribers
+        hold (the next delta's base), or, with none, the snapshot now, which becomes it."""
+        if self._sent is None:
+            assert self.engine is not None
+            self._published_seq = self.engine.seq
+            self._sent = _fitted(self._current_snapshot())
+        return self._sent
+
+    def _current_snapshot(self) -> dict[str, Any]:
+        """Return the engine's snapshot at ``engine.seq``, built once per change: an action's
+        reply is the snapshot its change was published with."""
+        assert self.engine is not None
+        built = self._built
+        if built is not None and built[0] == self.engine.seq:
+            return built[1]
+        seq = self.engine.seq
+        snapshot = self.engine.snapshot()
+        self._built = (seq, snapshot)
+        return snapshot
 
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
@@ -926,7 +954,7 @@ class Daemon:
             }
         if method == protocol.Method.SUBSCRIBE:
             connection.subscribed = True
-            return self.snapshot()
+            return self._subscriber_snapshot()
         if method == protocol.Method.UNSUBSCRIBE:
             connection.subscribed = False
             return {}
@@ -945,7 +973,7 @@ class Daemon:
             raise IllegalTransition(method, self.engine.state, [], why) from error
         finally:
             await self.after_change()  # a refused request may still have recorded something
-        return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+        return self.snapshot()  # the one the subscribers were brought to
 
     def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
         """Record a review (``session.review``); the reviewer named in it is the actor."""

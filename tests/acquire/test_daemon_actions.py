@@ -8,13 +8,16 @@ built once (it was built twice, once to publish and once to reply).
 
 from __future__ import annotations
 
+import asyncio
+import itertools
+import json
 from pathlib import Path
 
 from chargebook.acquire.client import DaemonClient, Notification
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions, InstrumentLink
 from chargebook.acquire.engine.engine import Engine
-from chargebook.acquire.protocol import NOTIFY_EVENT, NOTIFY_SNAPSHOT
+from chargebook.acquire.protocol import NOTIFY_DELTA, NOTIFY_EVENT, NOTIFY_SNAPSHOT, apply_delta
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic import build_electrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
@@ -144,3 +147,59 @@ async def test_events_are_broadcast_as_committed_without_reading_them_back(tmp_p
     assert heard[0]["actor"] == "operator A" and heard[0]["detail"] == recorded[0].detail()
     read_back = [sql for sql in statements if "FROM events WHERE" in sql]
     assert read_back == []
+
+
+class RawSubscriber:
+    """A subscriber on the daemon's socket that keeps every line it is sent, as sent."""
+
+    def __init__(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        self.reader, self.writer = reader, writer
+        self.ids = itertools.count(1)
+
+    @classmethod
+    async def connect(cls, path: Path) -> RawSubscriber:
+        reader, writer = await asyncio.open_unix_connection(str(path), limit=2**25)
+        return cls(reader, writer)
+
+    async def call(self, method: str) -> tuple[dict, list[dict]]:
+        """Send one request; return its reply and the notifications that came before it."""
+        request_id = next(self.ids)
+        self.writer.write(
+            json.dumps({"jsonrpc": "2.0", "id": request_id, "method": method}).encode() + b"\n"
+        )
+        notes = []
+        while True:
+            message = json.loads(await self.reader.readline())
+            if message.get("id") == request_id:
+                return message["result"], notes
+            notes.append(message)
+
+    def close(self) -> None:
+        self.writer.close()
+
+
+async def test_subscribers_are_sent_what_changed_and_rebuild_each_snapshot_from_it(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    await daemon.server.start()
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    raw = await RawSubscriber.connect(daemon.options.socket_path)
+    try:
+        held, _ = await raw.call("subscribe")
+        redo = [("set.redo", {"reason": "cable moved"}), ("step.arm", {})]
+        for method, params in [*ACTIONS[:3], *redo * 3, ("session.pause", {})]:
+            reply = await client.call(method, **params)
+            _, notes = await raw.call("hello")  # every notification of the action is in
+            deltas = [n["params"] for n in notes if n["method"] == NOTIFY_DELTA]
+            assert [n["method"] for n in notes if n["method"] != NOTIFY_EVENT] == [NOTIFY_DELTA]
+            held = apply_delta(held, deltas[0])
+            assert held == reply, method
+        assert len(held["sets"]) == 4  # three redone and the one paused
+        assert deltas[0]["sets"] == []  # a pause changes no set: none is sent
+        assert "sets" not in deltas[0]["changed"] and "plan" not in deltas[0]["changed"]
+    finally:
+        raw.close()
+        await client.close()
+        await daemon.server.close()
+        daemon.store.close()

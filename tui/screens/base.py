@@ -30,6 +30,7 @@ class ConsoleScreen(Screen):
         self.link = LinkStatus(False, "")
         self._shown_allowed: list[str] | None = None
         self._composed = False
+        self._drawn_parts: dict[str, object] = {}  # snapshot key -> the object drawn from it
 
     @property
     def status_line(self) -> StatusLine:
@@ -72,6 +73,15 @@ class ConsoleScreen(Screen):
     def on_mount(self) -> None:
         self._composed = True
         self.show(self.snapshot, self.link)
+
+    def _part_is_new(self, key: str, snapshot: dict[str, Any]) -> bool:
+        """Return whether ``snapshot[key]`` is another object than the one last drawn: the
+        client keeps a part the daemon's delta did not change as the very same object."""
+        part = snapshot.get(key)
+        if key in self._drawn_parts and part is self._drawn_parts[key]:
+            return False
+        self._drawn_parts[key] = part
+        return True
 
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         """Draw ``snapshot``; each screen shows its own part of it."""
