@@ -483,6 +483,7 @@ class Daemon:
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
         self.store.on_events_committed = self._emitted.extend
+        self.store.remember_rows()  # the one writer, under the station lock
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)

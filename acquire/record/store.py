@@ -35,7 +35,7 @@ import time
 import uuid
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
@@ -284,6 +284,24 @@ class TrafficRow:
     line: bytes
 
 
+#: The rows of a session after a given id, found by the id (the unary + keeps SQLite from
+#: scanning the session's index instead: the cost is the new rows', not the session's).
+_NEWER_OF_SESSION = "id > ? AND +session_id = ?"
+
+
+@dataclass
+class _KnownRows:
+    """A session's sets (by id, oldest first) and readings as last read, the highest ids read,
+    and the sets whose status changed since (see :meth:`Store.remember_rows`)."""
+
+    sets: dict[int, SetRow] = field(default_factory=dict)
+    readings: list[ReadingRow] = field(default_factory=list)
+    by_set: dict[int, tuple[ReadingRow, ...]] = field(default_factory=dict)
+    last_set_id: int = 0
+    last_reading_id: int = 0
+    stale: set[int] = field(default_factory=set)
+
+
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
@@ -359,6 +377,8 @@ class Store:
         #: daemon broadcasts them from there instead of reading them back); None: nobody.
         self.on_events_committed: Callable[[list[EventRow]], None] | None = None
         self._events_in_flight: list[EventRow] = []  # written in the open transaction
+        #: Per session, its sets and readings as last read (None: not kept; remember_rows).
+        self._known: dict[int, _KnownRows] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -515,6 +535,7 @@ class Store:
                         yield self.db
                 except BaseException:
                     del self._events_in_flight[written:]  # rolled back with the savepoint
+                    self._forget_known_rows()
                     raise
                 return
             conn.execute("BEGIN IMMEDIATE")
@@ -533,6 +554,51 @@ class Store:
                 raise
             self._in_flight, self._in_flight_told = [], []
             self._tell_committed_events()
+
+    def remember_rows(self) -> None:
+        """Keep each session's sets and readings in memory from now on: :meth:`sets` and
+        :meth:`readings` of a session then read only the rows new or changed since they last
+        did, so their cost does not grow with the session.
+
+        Only for the one writer of the file (the daemon, which holds the station lock): the
+        changes it knows of are its own writes (a set's status through :meth:`set_set_status`);
+        a rolled-back transaction makes it read everything again.
+        """
+        with self._lock:
+            if self._known is None:
+                self._known = {}
+
+    def _forget_known_rows(self) -> None:
+        if self._known is not None:
+            self._known.clear()
+
+    def _known_rows(self, session_id: int) -> _KnownRows:
+        """Return the session's rows as kept, brought up to date (lock held)."""
+        assert self._known is not None
+        known = self._known.setdefault(session_id, _KnownRows())
+        changed = [
+            *self._select(
+                SetRow, "reading_sets", _NEWER_OF_SESSION, (known.last_set_id, session_id)
+            ),
+            *(self._one(SetRow, "reading_sets", set_id, "reading set") for set_id in known.stale),
+        ]
+        known.stale.clear()
+        for row in changed:
+            known.sets[row.id] = row
+            known.last_set_id = max(known.last_set_id, row.id)
+        rows = self._rows(
+            ReadingRow, "readings", _NEWER_OF_SESSION, (known.last_reading_id, session_id)
+        )
+        new = [_reading_row(row) for row in rows]
+        known.readings += new
+        for set_id in dict.fromkeys(reading.set_id for reading in new):
+            known.by_set[set_id] = (
+                *known.by_set.get(set_id, ()),
+                *(reading for reading in new if reading.set_id == set_id),
+            )
+        if known.readings:
+            known.last_reading_id = known.readings[-1].id
+        return known
 
     def _tell_committed_events(self) -> None:
         """Hand the events of the transaction just committed to :attr:`on_events_committed`."""
@@ -556,6 +622,7 @@ class Store:
         """Put the lines of a failed transaction back in front of the kept ones (and forget
         its events: they were never committed)."""
         self._events_in_flight = []
+        self._forget_known_rows()
         with self._pending_lock:
             self._pending[:0] = self._in_flight
             self._pending_told[:0] = self._in_flight_told
@@ -869,9 +936,14 @@ class Store:
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
             )
+            if self._known is not None and old.session_id in self._known:
+                self._known[old.session_id].stale.add(set_id)
 
     def sets(self, session_id: int) -> list[SetRow]:
         """Return the session's reading sets, oldest first (superseded attempts included)."""
+        with self._lock:
+            if self._known is not None:
+                return list(self._known_rows(session_id).sets.values())
         return self._select(SetRow, "reading_sets", "session_id = ?", (session_id,))
 
     def reading_set(self, set_id: int) -> SetRow:
@@ -922,12 +994,27 @@ class Store:
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
         if set_id is None:
+            with self._lock:
+                if self._known is not None:
+                    return list(self._known_rows(session_id).readings)
             rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
         else:
             rows = self._rows(
                 ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
             )
         return [_reading_row(row) for row in rows]
+
+    def readings_by_set(self, session_id: int) -> dict[int, tuple[ReadingRow, ...]]:
+        """Return the session's readings by set id, oldest first within a set (a set without
+        readings is absent). While rows are remembered (:meth:`remember_rows`), the readings of
+        a set that gained none since the last call are the very tuple returned then."""
+        with self._lock:
+            if self._known is not None:
+                return dict(self._known_rows(session_id).by_set)
+        grouped: dict[int, list[ReadingRow]] = {}
+        for reading in self.readings(session_id):
+            grouped.setdefault(reading.set_id, []).append(reading)
+        return {set_id: tuple(rows) for set_id, rows in grouped.items()}
 
     # ------------------------------------------------------------------------ environment
 

@@ -14,7 +14,15 @@ from tests.bench.harness import run_smoke
 
 pytestmark = pytest.mark.e2e
 
-SCRIPTS = ["pipeline", "scpi", "reanalysis", "startup", "console_latency", "memory"]
+SCRIPTS = [
+    "pipeline",
+    "scpi",
+    "reanalysis",
+    "startup",
+    "console_latency",
+    "memory",
+    "session_length",
+]
 
 
 @pytest.mark.parametrize("name", SCRIPTS)
