@@ -42,11 +42,9 @@ from __future__ import annotations
 import enum
 import json
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Literal, NotRequired, TypedDict, TypeVar
+from typing import Any, Literal, NamedTuple, NotRequired, TypedDict, TypeVar
 
 #: Shown with every result: by the console, the command line, reports and exports.
 CAUTION = (
@@ -182,8 +180,7 @@ REVIEW_DECISIONS = ("approve", "reject")
 ParamKind = Literal["string", "number", "integer", "boolean", "object", "string_or_object"]
 
 
-@dataclass(frozen=True, slots=True)
-class Param:
+class Param(NamedTuple):
     """One named parameter of a method: its JSON kind, whether it is required, what it means."""
 
     name: str
@@ -193,8 +190,7 @@ class Param:
     choices: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True, slots=True)
-class MethodSpec:
+class MethodSpec(NamedTuple):
     """A method: its parameters (by name), what it does and what it returns."""
 
     name: str
@@ -705,6 +701,8 @@ WATCH_ONLY = "this is the watch-only socket: actions are taken on the control so
 def default_socket_dir() -> Path:
     """Return the directory for the daemon's socket: ``$XDG_RUNTIME_DIR/chargebook``, else
     ``<tmp>/chargebook-<uid>``. The daemon creates it with mode 0700."""
+    import tempfile  # here, not at the top: `chargebook --help` does not need it
+
     runtime = os.environ.get("XDG_RUNTIME_DIR")
     if runtime and Path(runtime).is_dir():
         return Path(runtime) / "chargebook"
@@ -765,6 +763,8 @@ def _client_directory_problem(directory: Path, info: Any, mode: int, mine: bool)
         return None
     if info.st_gid not in {os.getgid(), *os.getgroups()} or not mode & 0o050:
         return f"{directory} belongs to another user (uid {info.st_uid}) and not to your group"
+    import tempfile
+
     if directory == Path(tempfile.gettempdir()) / f"chargebook-{os.getuid()}":
         return f"{directory} is named for your uid but belongs to another user (uid {info.st_uid})"
     return None
