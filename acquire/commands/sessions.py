@@ -27,12 +27,14 @@ def _list(store, args: argparse.Namespace) -> int:
     import json
 
     from chargebook.acquire.exit_codes import EXIT_OK
-    from chargebook.acquire.record.review import review_of, review_status
+    from chargebook.acquire.record.review import REVIEW_EVENT, review_of, review_status
     from chargebook.acquire.reports.history import matches
     from chargebook.acquire.reports.sections import Table, when
     from chargebook.acquire.reports.text import table_text
 
     station = store.station()
+    set_counts, reading_counts = store.set_counts(), store.reading_counts()
+    reviews = store.events_of_kind(REVIEW_EVENT)
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:
@@ -40,8 +42,8 @@ def _list(store, args: argparse.Namespace) -> int:
         if not matches(session, args.beam, args.machine):
             continue
         meta = session.metadata()
-        sets = store.sets(session.id)
-        review = review_of(store.events(session.id))
+        sets, accepted = set_counts.get(session.id, (0, 0))
+        review = review_of(reviews.get(session.id, []))
         rows.append(
             {
                 "id": session.id,
@@ -54,9 +56,9 @@ def _list(store, args: argparse.Namespace) -> int:
                 "beam": meta.get("beam", session.beam),
                 "operator": meta.get("operator"),
                 "convention": session.convention,
-                "sets_accepted": sum(1 for s in sets if s.status == "accepted"),
-                "sets": len(sets),
-                "readings": len(store.readings(session.id)),
+                "sets_accepted": accepted,
+                "sets": sets,
+                "readings": reading_counts.get(session.id, 0),
                 "replay_of": session.replay_of,
                 "review": review_status(review),
                 "reviewer": review.reviewer if review else None,

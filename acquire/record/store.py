@@ -946,6 +946,20 @@ class Store:
                 return list(self._known_rows(session_id).sets.values())
         return self._select(SetRow, "reading_sets", "session_id = ?", (session_id,))
 
+    def set_counts(self) -> dict[int, tuple[int, int]]:
+        """Return, per session id, (its reading sets, those accepted), in one query: a listing
+        of every session does not read each session's sets."""
+        rows = self.read(
+            "SELECT session_id, count(*), sum(status = 'accepted') FROM reading_sets "
+            "GROUP BY session_id"
+        )
+        return {int(session_id): (int(sets), int(accepted)) for session_id, sets, accepted in rows}
+
+    def reading_counts(self) -> dict[int, int]:
+        """Return, per session id, how many readings it holds, in one query."""
+        rows = self.read("SELECT session_id, count(*) FROM readings GROUP BY session_id")
+        return {int(session_id): int(count) for session_id, count in rows}
+
     def reading_set(self, set_id: int) -> SetRow:
         """Return one reading set. Raises :class:`NotFound` (a KeyError) when there is none."""
         return self._one(SetRow, "reading_sets", set_id, "reading set")
@@ -1065,6 +1079,14 @@ class Store:
         if session_id is None:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
+
+    def events_of_kind(self, kind: str) -> dict[int | None, list[EventRow]]:
+        """Return the events of one kind by session id (None: outside any session), oldest
+        first, in one query."""
+        found: dict[int | None, list[EventRow]] = {}
+        for event in self._select(EventRow, "events", "kind = ?", (kind,)):
+            found.setdefault(event.session_id, []).append(event)
+        return found
 
     def read(self, sql: str, params: tuple = ()) -> list[tuple]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""

@@ -7,7 +7,8 @@
 * Measured: ``chargebook --help``, the installed console script (or, where there is none,
   ``python -m chargebook --help``): the parser with every subcommand.
 
-Runs alternate; the median wall time of each is compared. Target (issue 17, target 7): at most 2 times.
+Runs alternate; the median wall time of each is compared. Target (issue 17, target 7): at
+most 2 times.
 """
 
 from __future__ import annotations
