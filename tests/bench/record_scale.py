@@ -43,7 +43,7 @@ from tests.bench.startup import chargebook_help_command
 MACHINES = ("DEMO-LA1", "DEMO-LA2", "DEMO-LA3", "DEMO-LA4")
 FULL_DAYS, SMOKE_DAYS = 3650, 20
 FULL_SETS, SMOKE_SETS = 500, 20
-FULL_RUNS, SMOKE_RUNS = 5, 1
+FULL_RUNS, SMOKE_RUNS = 3, 1
 TARGET_S = 1.0
 TARGET_RATIO = 5.0
 FIRST_DAY = datetime(2016, 1, 4, 7, 30, tzinfo=UTC)
