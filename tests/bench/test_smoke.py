@@ -22,6 +22,7 @@ SCRIPTS = [
     "console_latency",
     "memory",
     "session_length",
+    "record_scale",
 ]
 
 
