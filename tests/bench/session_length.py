@@ -138,6 +138,7 @@ async def take_readings(world: Station, readings: int) -> PerReading:
     counter = CountingSubscriber()
     try:
         await client.subscribe()
+        await client.wait_for_snapshot(lambda s: s["instrument"]["connected"], DEADLINE_S)
         await counter.attach(world.socket)
         if Method.STEP_MANUAL_DONE in client.latest_snapshot["allowed"]:
             await client.call(Method.STEP_MANUAL_DONE, note="benchmark")
