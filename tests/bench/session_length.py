@@ -147,7 +147,7 @@ async def take_readings(world: Station, readings: int) -> PerReading:
         await asyncio.sleep(1.0)  # the arming's notifications are in
         cpu_before, bytes_before = sum(process.cpu_times()[:2]), counter.notified_bytes
         with world.bench() as bench:
-            bench.flood(LINES_PER_S, readings * 4)  # more than enough; the rest unread
+            bench.flood(LINES_PER_S, readings * 10)  # more than enough under load; the rest unread
         deadline = time.monotonic() + DEADLINE_S
         while (taken := readings_in(world, set_id)) < readings:
             if time.monotonic() > deadline:
