@@ -331,11 +331,10 @@ class DaemonClient:
             log.warning("ignoring a message from the daemon that is not an object")
             return
         if "method" in message and "id" not in message:
-            note = Notification(str(message["method"]), message.get("params"))
-            if note.method == protocol.NOTIFY_DELTA:
-                note = self._applied(note.params)
-                if note is None:
-                    return
+            sent = Notification(str(message["method"]), message.get("params"))
+            note = self._applied(sent.params) if sent.method == protocol.NOTIFY_DELTA else sent
+            if note is None:
+                return
             if note.method == protocol.NOTIFY_SNAPSHOT and isinstance(note.params, dict):
                 await self._take_snapshot(note.params)
                 return

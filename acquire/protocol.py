@@ -522,7 +522,7 @@ class Snapshot(TypedDict):
     """The whole daemon state, as sent in ``snapshot`` notifications and method results.
 
     ``results`` is ``chargebook.corrections.evaluate.Evaluation.to_dict()`` computed by
-    ``acquire.session_evaluation.evaluate_session`` from the accepted sets, the environment
+    ``acquire.session.evaluation.evaluate_session`` from the accepted sets, the environment
     entry in force for each set (``results["set_air"][set]["entry"]`` is its position, from 1,
     in ``environment_entries``), the session's thresholds and metadata; factors not yet measured are
     *pending* (``factor_states``) and values that depend on them are null; k_pol and k_s of an
@@ -641,7 +641,9 @@ class HelloResult(TypedDict):
 # ---------------------------------------------------------------------------------------------
 # Messages
 # ---------------------------------------------------------------------------------------------
-def request(request_id: int | str, method: str, params: dict[str, Any] | None = None) -> dict:
+def request(
+    request_id: int | str, method: str, params: dict[str, Any] | None = None
+) -> dict[str, Any]:
     """Return a JSON-RPC request object."""
     message: dict[str, Any] = {"jsonrpc": JSONRPC, "id": request_id, "method": method}
     if params:
@@ -649,19 +651,19 @@ def request(request_id: int | str, method: str, params: dict[str, Any] | None = 
     return message
 
 
-def notification(method: str, params: Any) -> dict:
+def notification(method: str, params: Any) -> dict[str, Any]:
     """Return a JSON-RPC notification object (a request without an id)."""
     return {"jsonrpc": JSONRPC, "method": method, "params": params}
 
 
-def result_response(request_id: int | str | None, result: Any) -> dict:
+def result_response(request_id: int | str | None, result: Any) -> dict[str, Any]:
     """Return a JSON-RPC success response."""
     return {"jsonrpc": JSONRPC, "id": request_id, "result": result}
 
 
 def error_response(
     request_id: int | str | None, code: int, message: str, data: Any | None = None
-) -> dict:
+) -> dict[str, Any]:
     """Return a JSON-RPC error response; ``data`` is included when given."""
     error: dict[str, Any] = {"code": code, "message": message}
     if data is not None:
@@ -669,7 +671,7 @@ def error_response(
     return {"jsonrpc": JSONRPC, "id": request_id, "error": error}
 
 
-def encode(message: dict, limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
+def encode(message: dict[str, Any], limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
     """Return ``message`` as one line of UTF-8 JSON ending in a newline.
 
     Raises ValueError if the line would exceed ``limit_bytes`` (a client's request limit unless
@@ -683,7 +685,7 @@ def encode(message: dict, limit_bytes: int = MAX_MESSAGE_BYTES) -> bytes:
     return line
 
 
-def encode_from_daemon(message: dict) -> bytes:
+def encode_from_daemon(message: dict[str, Any]) -> bytes:
     """Return a message of the daemon's as one line, bounded by MAX_DAEMON_MESSAGE_BYTES."""
     return encode(message, MAX_DAEMON_MESSAGE_BYTES)
 

@@ -48,9 +48,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _number(value: float | None, digits: int = 5, unit: str = "", missing: str = "—") -> str:
+    """Return a computed value to ``digits`` significant digits, trailing zeros kept (14.7490 nC
+    says five digits; 14.749 would say four)."""
     if value is None:
         return missing
-    text = f"{value:.{digits}g}" if abs(value) >= 1e-3 or value == 0 else f"{value:.4e}"
+    text = f"{value:#.{digits}g}" if abs(value) >= 1e-3 or value == 0 else f"{value:.4e}"
     return f"{text} {unit}".rstrip()
 
 
@@ -163,7 +165,7 @@ def _results(evaluation: Evaluation) -> list[str]:
         ["dose per MU", _number(evaluation.dose_per_MU_cGy, 5, "cGy/MU", "— (needs dose and MU)")],
     ]
     if evaluation.expected_cGy_per_MU is not None:
-        rows.append(["expected", _number(evaluation.expected_cGy_per_MU, 5, "cGy/MU")])
+        rows.append(["expected", f"{evaluation.expected_cGy_per_MU:g} cGy/MU (as entered)"])
     if evaluation.deviation_pct is not None:
         verdict = "within tolerance" if evaluation.within_tolerance else "OUTSIDE tolerance"
         rows.append(

@@ -27,14 +27,15 @@ def _list(store, args: argparse.Namespace) -> int:
     import json
 
     from chargebook.acquire.exit_codes import EXIT_OK
-    from chargebook.acquire.record.review import REVIEW_EVENT, review_of, review_status
+    from chargebook.acquire.record.events import EventKind
+    from chargebook.acquire.record.review import review_of, review_status
     from chargebook.acquire.reports.history import matches
     from chargebook.acquire.reports.sections import Table, when
     from chargebook.acquire.reports.text import table_text
 
     station = store.station()
     set_counts, reading_counts = store.set_counts(), store.reading_counts()
-    reviews = store.events_of_kind(REVIEW_EVENT)
+    reviews = store.events_of_kind(EventKind.SESSION_REVIEWED)
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:

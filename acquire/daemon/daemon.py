@@ -35,8 +35,11 @@ from typing import Any
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.server import Connection, RpcServer
-from chargebook.acquire.engine.engine import DAEMON_ACTOR, Command, Engine
+from chargebook.acquire.engine import driver_commands
+from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
@@ -61,7 +64,7 @@ TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
-LIFECYCLE_EVENTS = ("daemon_started", "daemon_restarted", "daemon_stopped")
+LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine).
 MAX_SAMPLES_PER_BATCH = 1024
 #: A pause between pushed lines longer than this ends a burst, s.
@@ -171,7 +174,7 @@ class InstrumentLink(threading.Thread):
         self.backlog_full = False
 
     # -- called from the asyncio loop ----------------------------------------------------------
-    def send(self, command: Command) -> None:
+    def send(self, command: driver_commands.Command) -> None:
         """Queue one engine command."""
         self.inbox.put(("command", command))
 
@@ -265,7 +268,7 @@ class InstrumentLink(threading.Thread):
                 self.generation = value
             elif kind == "session":
                 self.session_id = value
-            elif kind == "command" and value.action in ("beam", "bench_bias"):
+            elif kind == "command" and isinstance(value, driver_commands.BENCH_COMMANDS):
                 self._bench(value)
             else:
                 log.info("electrometer away: dropped command %s", value)
@@ -329,33 +332,33 @@ class InstrumentLink(threading.Thread):
         with contextlib.suppress(Exception):
             self.electrometer.close()
 
-    def _execute(self, command: Command) -> None:
-        action = command.action
-        if action in ("beam", "bench_bias"):
+    def _execute(self, command: driver_commands.Command) -> None:
+        if isinstance(command, driver_commands.BENCH_COMMANDS):
             self._bench(command)
             return
-        if action == "zero":
-            self.electrometer.zero()
-        elif action == "start":
-            self.electrometer.start_integration()
-        elif action == "stop":
-            self.electrometer.stop_integration()
-        elif action == "set_bias":
-            assert command.value is not None
-            self.electrometer.set_bias(command.value)
+        match command:
+            case driver_commands.Zero():
+                self.electrometer.zero()
+            case driver_commands.StartIntegration():
+                self.electrometer.start_integration()
+            case driver_commands.StopIntegration():
+                self.electrometer.stop_integration()
+            case driver_commands.SetBias(bias_V=bias_V):
+                self.electrometer.set_bias(bias_V)
         self.fresh_after_s = self.clock()
         self._timeouts = 0
 
-    def _bench(self, command: Command) -> None:
+    def _bench(self, command: driver_commands.BenchCommand) -> None:
         from chargebook.acquire.daemon.bench import BenchError
 
         if self.bench is None:
             return
         try:
-            if command.action == "beam":
-                self.bench.deliver(command.value)
-            else:
-                self.bench.turn_bias(command.value)
+            match command:
+                case driver_commands.DeliverBeam(monitor_units=monitor_units):
+                    self.bench.deliver(monitor_units)
+                case driver_commands.TurnBiasSwitch(bias_V=bias_V):
+                    self.bench.turn_bias(bias_V)
         except BenchError as error:
             self._hand_over("fault", str(error))
 
@@ -407,7 +410,7 @@ def _event_info(event: EventRow) -> protocol.EventInfo:
     }
 
 
-def _fitted(snapshot: dict[str, Any]) -> dict[str, Any]:
+def _fitted(snapshot: protocol.Snapshot) -> protocol.Snapshot:
     """Return ``snapshot``, or, if it is too long for one message, a copy without the readings
     of the sets other than the current one."""
     try:
@@ -415,14 +418,21 @@ def _fitted(snapshot: dict[str, Any]) -> dict[str, Any]:
     except ValueError:
         current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
         sets = [
-            entry if entry["id"] == current else {**entry, "readings": []}
+            entry if entry["id"] == current else _without_readings(entry)
             for entry in snapshot["sets"]
         ]
         return {**snapshot, "sets": sets}
     return snapshot
 
 
-def _snapshot_notification(snapshot: dict[str, Any]) -> bytes:
+def _without_readings(entry: protocol.SetInfo) -> protocol.SetInfo:
+    """Return a copy of a set's entry without its readings (statistics and flags kept)."""
+    trimmed = entry.copy()
+    trimmed["readings"] = []
+    return trimmed
+
+
+def _snapshot_notification(snapshot: protocol.Snapshot) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
 
@@ -462,9 +472,9 @@ class Daemon:
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
         #: The latest snapshot built: (engine.seq it shows, snapshot).
-        self._built: tuple[int, dict[str, Any]] | None = None
+        self._built: tuple[int, protocol.Snapshot] | None = None
         #: The snapshot every subscriber holds, the base of the next delta (None: no subscriber).
-        self._sent: dict[str, Any] | None = None
+        self._sent: protocol.Snapshot | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
         #: Events committed and not yet broadcast, in order (the store hands them over).
@@ -676,24 +686,28 @@ class Daemon:
         previous run stopped cleanly (its ``daemon_stopped`` is the last word) or crashed."""
         assert self.store is not None
         session = self.store.open_session()
-        detail: dict[str, Any] = {"pid": os.getpid()}
+        session_id = session.id if session else None
         last = self.store.last_event_of(LIFECYCLE_EVENTS)
         if last is None:
-            kind = "daemon_started"
-        else:
-            kind = "daemon_restarted"
-            clean = last.kind == "daemon_stopped"
-            detail["previous_run"] = "stopped cleanly" if clean else "crashed"
-            detail["previous_stop"] = last.detail().get("reason") if clean else None
-            detail["previous_pid"] = last.detail().get("pid")
-        self.store.add_event(session.id if session else None, DAEMON_ACTOR, kind, detail)
+            started = ev.DaemonStarted(pid=os.getpid())
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STARTED, started)
+            return
+        clean = last.kind == EventKind.DAEMON_STOPPED
+        restarted = ev.DaemonRestarted(
+            pid=os.getpid(),
+            previous_run="stopped cleanly" if clean else "crashed",
+            previous_stop=last.detail().get("reason") if clean else None,
+            previous_pid=last.detail().get("pid"),
+        )
+        self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
     def _record_stop(self) -> None:
         """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
         assert self.store is not None and self.engine is not None
-        detail = {"pid": os.getpid(), "reason": self._stop_reason}
+        detail = ev.DaemonStopped(pid=os.getpid(), reason=self._stop_reason)
         try:
-            self.store.add_event(self.engine.session_id, DAEMON_ACTOR, "daemon_stopped", detail)
+            session_id = self.engine.session_id
+            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
         except Exception:  # the stop goes on; the next start will say the run crashed
             log.exception("could not record the daemon's stop")
 
@@ -842,8 +856,9 @@ class Daemon:
             return
         with contextlib.suppress(Exception):
             error = traceback.format_exc(limit=8)
+            failed: ev.DaemonError = {"while": doing, "error": error}
             self.store.add_event(
-                self.engine.session_id, "daemon", "daemon_error", {"while": doing, "error": error}
+                self.engine.session_id, DAEMON_ACTOR, EventKind.DAEMON_ERROR, failed
             )
 
     async def after_change(self) -> None:
@@ -895,7 +910,7 @@ class Daemon:
         for server in (self.server, self.watch_server):
             await server.broadcast_line(line)
 
-    def _change_line(self, snapshot: dict[str, Any]) -> bytes | None:
+    def _change_line(self, snapshot: protocol.Snapshot) -> bytes | None:
         """Return the notification that brings every subscriber to ``snapshot``: a ``delta``
         from the one they hold, or (none held, or a delta too long) the whole snapshot."""
         base, self._sent = self._sent, snapshot
@@ -913,12 +928,12 @@ class Daemon:
             log.error("a snapshot was not sent: %s", error)
             return None
 
-    def snapshot(self) -> dict[str, Any]:
+    def snapshot(self) -> protocol.Snapshot:
         """Return the engine's snapshot now (the one built last, if nothing changed since),
         trimmed to fit one message if it must be."""
         return _fitted(self._current_snapshot())
 
-    def _subscriber_snapshot(self) -> dict[str, Any]:
+    def _subscriber_snapshot(self) -> protocol.Snapshot:
         """Return the snapshot a new subscriber starts from: the one the other subscribers
         hold (the next delta's base), or, with none, the snapshot now, which becomes it."""
         if self._sent is None:
@@ -927,7 +942,7 @@ class Daemon:
             self._sent = _fitted(self._current_snapshot())
         return self._sent
 
-    def _current_snapshot(self) -> dict[str, Any]:
+    def _current_snapshot(self) -> protocol.Snapshot:
         """Return the engine's snapshot at ``engine.seq``, built once per change: an action's
         reply is the snapshot its change was published with."""
         assert self.engine is not None
@@ -942,7 +957,7 @@ class Daemon:
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
         """Carry out one request from ``connection`` and return its result."""
-        assert self.engine is not None
+        assert self.engine is not None and self.store is not None
         if method == protocol.Method.HELLO:
             connection.client = params.get("client") or connection.client
             connection.operator = params.get("operator")

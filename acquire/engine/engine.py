@@ -31,23 +31,29 @@ from __future__ import annotations
 import functools
 import logging
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 from typing import Any, ParamSpec, TypeVar
 
+from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.capture import (
     Captured,
     CaptureSettings,
     ReadingCapture,
     capture_settings,
 )
+from chargebook.acquire.engine.driver_commands import Command
 from chargebook.acquire.engine.states import ACTION_STATES, IllegalTransition, check_transition
-from chargebook.acquire.protocol import EngineState, Method, ReadingPhase
+from chargebook.acquire.protocol import EngineState, Method, ReadingPhase, Snapshot
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import ReadingRow, SetRow, Store
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
+from chargebook.acquire.session.plan import Plan, Step
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -57,23 +63,12 @@ P = ParamSpec("P")
 R = TypeVar("R")
 
 DAEMON_ACTOR = "daemon"
+#: A session's results so far: (Evaluation.to_dict(), provisional?, why none could be computed).
+Results = tuple[dict[str, Any] | None, bool, str | None]
+#: A plan as the engine may be given it: a Plan, a shipped plan's name, a TOML path, a plan dict.
+PlanSource = Plan | str | Path | Mapping[str, Any]
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
-#: The event recording the carried k_pol and k_s copied into a session at its start.
-CARRIED_EVENT = "carried_factors"
-
-
-@dataclass(frozen=True, slots=True)
-class Command:
-    """One thing the daemon must do for the engine.
-
-    ``action``: ``zero``, ``start`` / ``stop`` (integration), ``set_bias`` (volts, remote),
-    ``beam`` (the bench delivers ``value`` MU), ``bench_bias`` (the bench turns the bias switch
-    the operator confirmed, volts).
-    """
-
-    action: str
-    value: float | None = None
 
 
 class ConfirmationRequired(Exception):
@@ -129,7 +124,7 @@ class Engine:
         capabilities: frozenset[Capability] | set[Capability] = frozenset(),
         bench: bool = False,
         clock: Callable[[], float] = time.monotonic,
-        default_plan: Any = "default",
+        default_plan: PlanSource = "default",
         profile: str = "",
         time_scale: float = 1.0,
         thresholds: Thresholds | None = None,
@@ -148,12 +143,12 @@ class Engine:
         self.state = S.IDLE
         self.paused_from: EngineState | None = None
         self.session_id: int | None = None
-        self.plan: Any = None
+        self.plan: Plan | None = None
         self.metadata: dict[str, Any] = {}
         self.step_index: int | None = None
         self.active: ActiveSet | None = None
         self.bias_V: float | None = None  # the chamber bias as last set or confirmed
-        self.pending_manual: dict[str, Any] | None = None
+        self.pending_manual: ev.ManualAction | None = None
         self.skipped: set[int] = set()
         self.reading: ReadingCapture | None = None
         self.settle_until_s: float | None = None
@@ -171,13 +166,13 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self._commands: list[Command] = []
-        self._results_cache: tuple[int, Any] | None = None
+        self._results_cache: tuple[int, Results] | None = None
         self.seq = 0  # every snapshot
         self.data_version = 0  # every change of what is recorded or of the state
 
     # ------------------------------------------------------------------------ plumbing
     @property
-    def step(self) -> Any:
+    def step(self) -> Step | None:
         """Return the current plan step (None outside a session or after the last step)."""
         if self.plan is None or self.step_index is None:
             return None
@@ -212,25 +207,38 @@ class Engine:
         """Count a new snapshot for the reading in progress (results stay cached)."""
         self.seq += 1
 
-    def _goto(self, new: EngineState, action: str, actor: str, **detail: Any) -> None:
+    def _goto(
+        self,
+        new: EngineState,
+        action: str,
+        actor: str,
+        *,
+        set_id: int | None = None,
+        wait_s: float | None = None,
+        reason: str | None = None,
+        next_step: int | None = None,
+    ) -> None:
         check_transition(self.state, new, action)
         old = self.state
         self.state = new
         log.info("%s: %s -> %s", action, old.value, new.value)
-        if self.session_id is not None:
-            self.store.add_event(
-                self.session_id,
-                actor,
-                "state_changed",
-                {"from": old.value, "to": new.value, "action": action, **detail},
-            )
+        change: ev.StateChanged = {"from": old.value, "to": new.value, "action": action}
+        if set_id is not None:
+            change["set_id"] = set_id
+        if wait_s is not None:
+            change["wait_s"] = wait_s
+        if reason is not None:
+            change["reason"] = reason
+        if next_step is not None:
+            change["next_step"] = next_step
+        self._event(actor, EventKind.STATE_CHANGED, change)
 
-    def _event(self, actor: str, kind: str, **detail: Any) -> None:
+    def _event(self, actor: str, kind: EventKind, detail: Mapping[str, object]) -> None:
         if self.session_id is not None:
             self.store.add_event(self.session_id, actor, kind, detail)
 
-    def _issue(self, action: str, value: float | None = None) -> None:
-        self._commands.append(Command(action, value))
+    def _issue(self, command: Command) -> None:
+        self._commands.append(command)
 
     def _can(self, capability: Capability) -> bool:
         return capability in self.capabilities
@@ -282,6 +290,7 @@ class Engine:
             if not self.instrument_connected:
                 return "the electrometer is not connected"
             if self.state is S.WAITING_FOR_OPERATOR:
+                assert self.session_id is not None  # waiting: a session is open
                 if not self.store.environment(self.session_id):
                     return "enter the air temperature and pressure first (environment.set)"
                 if self.pending_manual is not None:
@@ -307,7 +316,7 @@ class Engine:
     # ----------------------------------------------------------------- session actions
     @one_transaction
     def start_session(
-        self, metadata: dict[str, Any], plan: Any = None, actor: str = DAEMON_ACTOR
+        self, metadata: dict[str, Any], plan: PlanSource | None = None, actor: str = DAEMON_ACTOR
     ) -> int:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
@@ -328,19 +337,18 @@ class Engine:
         self.skipped, self.active, self.bias_V = set(), None, None
         self.integration_s = {}
         self.thresholds = self.default_thresholds
-        self._event(actor, rules.THRESHOLDS_EVENT, **asdict(self.thresholds))
-        self._event(
-            actor, rules.ACQUISITION_EVENT, profile=self.profile, time_scale=self.time_scale
-        )
+        self._event(actor, EventKind.THRESHOLDS, asdict(self.thresholds))
+        acquisition = ev.Acquisition(profile=self.profile, time_scale=self.time_scale)
+        self._event(actor, EventKind.ACQUISITION, acquisition)
         carried = {k: checked[f"carried_{k}"] for k in MEASURED_BY if checked[f"carried_{k}"]}
         if carried:
-            self._event(actor, CARRIED_EVENT, **carried)
+            self._event(actor, EventKind.CARRIED_FACTORS, carried)
         if checked.get("subtract_leakage"):
-            self._event(actor, rules.LEAKAGE_SUBTRACTION_EVENT, subtract_leakage=True)
+            chosen = ev.LeakageSubtractionChosen(subtract_leakage=True)
+            self._event(actor, EventKind.LEAKAGE_SUBTRACTION_CHOSEN, chosen)
         if self.identity is not None:
-            self._event(
-                DAEMON_ACTOR, "instrument_identified", identity=self.identity, profile=self.profile
-            )
+            identified = ev.InstrumentIdentified(identity=self.identity, profile=self.profile)
+            self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, identified)
         self._goto(S.WAITING_FOR_OPERATOR, Method.SESSION_START, actor)
         self._enter_step(0, actor)
         self._changed()
@@ -361,7 +369,8 @@ class Engine:
         entry = rules.check_environment(temperature_C, pressure, pressure_unit, humidity_pct)
         assert self.session_id is not None
         entry_id = self.store.add_environment(self.session_id, source=source, **entry)
-        self._event(actor, "environment_entered", environment_id=entry_id, source=source, **entry)
+        entered = ev.EnvironmentEntered(environment_id=entry_id, source=source, **entry)
+        self._event(actor, EventKind.ENVIRONMENT_ENTERED, entered)
         self._changed()
         return entry_id
 
@@ -371,12 +380,14 @@ class Engine:
         self._require(Method.STEP_MANUAL_DONE)
         manual = self.pending_manual
         assert manual is not None
-        self._event(actor, "manual_step_done", by_hand=True, note=note, **manual)
-        if manual.get("action") == "set_bias":
+        done = ev.ManualStepDone(by_hand=True, note=note, **manual)
+        self._event(actor, EventKind.MANUAL_STEP_DONE, done)
+        if manual["action"] == "set_bias":
             self.bias_V = float(manual["volts"])
-            self._event(actor, "bias_changed", volts=self.bias_V, how="by hand")
+            changed = ev.BiasChanged(volts=self.bias_V, how="by hand")
+            self._event(actor, EventKind.BIAS_CHANGED, changed)
             if self.bench:
-                self._issue("bench_bias", self.bias_V)
+                self._issue(driver_commands.TurnBiasSwitch(self.bias_V))
         self.pending_manual = None
         self._changed()
 
@@ -384,8 +395,9 @@ class Engine:
     def skip(self, actor: str = DAEMON_ACTOR) -> None:
         """Skip the current (optional) step."""
         self._require(Method.STEP_SKIP)
-        assert self.step_index is not None
-        self._event(actor, "step_skipped", step_index=self.step_index, step_key=self.step.key)
+        assert self.step_index is not None and self.step is not None
+        skipped = ev.StepSkipped(step_index=self.step_index, step_key=self.step.key)
+        self._event(actor, EventKind.STEP_SKIPPED, skipped)
         self.skipped.add(self.step_index)
         self._advance(actor, Method.STEP_SKIP)
         self._changed()
@@ -585,8 +597,8 @@ class Engine:
             return
         self.instrument_connected = still_connected
         self.instrument_message = message
-        kind = "instrument_fault" if still_connected else "instrument_lost"
-        self._event(DAEMON_ACTOR, kind, message=message)
+        kind = EventKind.INSTRUMENT_FAULT if still_connected else EventKind.INSTRUMENT_LOST
+        self._event(DAEMON_ACTOR, kind, ev.InstrumentMessage(message=message))
         busy = (S.SETTLING, S.COLLECTING)
         if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
             self._drop_reading(DAEMON_ACTOR, "instrument lost")
@@ -612,15 +624,17 @@ class Engine:
         (``identity``, an ``instrument_identified`` event) with its return, in one transaction."""
         if identity:
             self.identity = identity
-            detail = {"identity": identity, "profile": self.profile}
+            detail = ev.InstrumentIdentified(identity=identity, profile=self.profile)
             # recorded outside any session too: a report finds the instrument of a session
             # started later from the station's latest identification
-            self.store.add_event(self.session_id, DAEMON_ACTOR, "instrument_identified", detail)
+            self.store.add_event(
+                self.session_id, DAEMON_ACTOR, EventKind.INSTRUMENT_IDENTIFIED, detail
+            )
         if self.instrument_connected and self.instrument_message is None:
             self._changed()
             return
         self.instrument_connected, self.instrument_message = True, None
-        self._event(DAEMON_ACTOR, "instrument_back", identity=identity)
+        self._event(DAEMON_ACTOR, EventKind.INSTRUMENT_BACK, ev.InstrumentBack(identity=identity))
         self._changed()
 
     def wants_samples(self) -> bool:
@@ -635,8 +649,9 @@ class Engine:
         if step is None:
             return
         if not self._can(Capability.SET_BIAS) and self.bias_V != step.bias_V:
-            self.pending_manual = {"action": "set_bias", "volts": float(step.bias_V)}
-        self._event(actor, "step_entered", step_index=index, step_key=step.key)
+            self.pending_manual = ev.ManualAction(action="set_bias", volts=float(step.bias_V))
+        entered = ev.StepEntered(step_index=index, step_key=step.key)
+        self._event(actor, EventKind.STEP_ENTERED, entered)
 
     def _advance(self, actor: str, action: str) -> None:
         assert self.step_index is not None and self.plan is not None
@@ -653,18 +668,19 @@ class Engine:
     def _apply_bias(self, actor: str) -> None:
         step = self.step
         if self._can(Capability.SET_BIAS) and step is not None:
-            self._issue("set_bias", float(step.bias_V))
+            self._issue(driver_commands.SetBias(float(step.bias_V)))
             if self.bias_V != step.bias_V:
                 self.bias_V = float(step.bias_V)
-                self._event(actor, "bias_changed", volts=self.bias_V, how="remote")
+                changed = ev.BiasChanged(volts=self.bias_V, how="remote")
+                self._event(actor, EventKind.BIAS_CHANGED, changed)
 
     def _settling_needed(self) -> bool:
-        assert self.active is not None
+        assert self.active is not None and self.step is not None
         return rules.settling_needed(self.step, self.active.readings, MAX_SETTLING_READINGS)
 
     def _begin_reading(self, actor: str, action: str) -> None:
         step = self.step
-        assert step is not None and self.active is not None
+        assert step is not None and self.active is not None and self.plan is not None
         settling = self._settling_needed()
         new_state = S.SETTLING if settling else S.COLLECTING
         if self.instrument_connected:
@@ -681,20 +697,21 @@ class Engine:
         )
         self.reading_status = "ok"
         if self._can(Capability.ZERO):
-            self._issue("zero")
+            self._issue(driver_commands.Zero())
         if self._can(Capability.INTEGRATE):
-            self._issue("start")
+            self._issue(driver_commands.StartIntegration())
         if self.bench and float(step.mu_per_reading) > 0:
-            self._issue("beam", float(step.mu_per_reading))
+            self._issue(driver_commands.DeliverBeam(float(step.mu_per_reading)))
 
     def _drop_reading(self, actor: str, why: str) -> None:
         if self.reading is None:
             return
-        self._event(actor, "reading_dropped", why=why, charge_nC=self.reading.last_charge_nC)
+        dropped = ev.ReadingDropped(why=why, charge_nC=self.reading.last_charge_nC)
+        self._event(actor, EventKind.READING_DROPPED, dropped)
         self.notice = dropped_reading_notice(self.reading.phase, self.reading.last_charge_nC, why)
         self.reading = None
         if self._can(Capability.INTEGRATE) and self.instrument_connected:
-            self._issue("stop")
+            self._issue(driver_commands.StopIntegration())
 
     def _record(self, captured: Captured, actor: str) -> None:
         step, active = self.step, self.active
@@ -705,7 +722,7 @@ class Engine:
         self.reading = None
         self.notice = None
         if self._can(Capability.INTEGRATE):
-            self._issue("stop")
+            self._issue(driver_commands.StopIntegration())
         reading_id = self.store.add_reading(
             self.session_id,
             active.id,
@@ -719,9 +736,7 @@ class Engine:
         )
         active.readings = self.store.readings(self.session_id, active.id)
         self.integration_s[reading_id] = captured.integration_s
-        self._event(
-            actor,
-            "reading_recorded",
+        recorded = ev.ReadingRecorded(
             reading_id=reading_id,
             set_id=active.id,
             charge_nC=captured.charge_nC,
@@ -730,6 +745,7 @@ class Engine:
             integration_s=captured.integration_s,
             armed_t_s=armed_t_s,
         )
+        self._event(actor, EventKind.READING_RECORDED, recorded)
         if self._settling_needed() or active.used_count < int(step.readings):
             self._begin_reading(actor, "reading recorded")
             return
@@ -746,8 +762,10 @@ class Engine:
         self.session_id, self.metadata = row.id, row.metadata()
         self.plan = rules.resolve_plan(row.plan())
         events = self.store.events(row.id)
-        self.skipped = {e.detail()["step_index"] for e in events if e.kind == "step_skipped"}
-        bias_events = [e.detail() for e in events if e.kind == "bias_changed"]
+        self.skipped = {
+            e.detail()["step_index"] for e in events if e.kind == EventKind.STEP_SKIPPED
+        }
+        bias_events = [e.detail() for e in events if e.kind == EventKind.BIAS_CHANGED]
         if bias_events:
             self.bias_V = float(bias_events[-1]["volts"])
         self.integration_s = rules.integration_times(events)
@@ -756,7 +774,8 @@ class Engine:
         done = {s.step_index for s in sets if s.status == "accepted"} | self.skipped
         index = next((i for i in range(len(self.plan.steps)) if i not in done), None)
         self.state = S.WAITING_FOR_OPERATOR
-        self.store.add_event(row.id, DAEMON_ACTOR, "session_resumed", {"step_index": index})
+        resumed = ev.SessionResumed(step_index=index)
+        self.store.add_event(row.id, DAEMON_ACTOR, EventKind.SESSION_RESUMED, resumed)
         if index is None:
             self.step_index = len(self.plan.steps)
             self._goto(S.FINISHED, "restore", DAEMON_ACTOR)
@@ -774,18 +793,20 @@ class Engine:
                 self.store.set_set_status(open_set.id, "interrupted", reason)
             restored = S.REVIEWING if open_set.status == "reviewing" else S.INTERRUPTED
             self.state = restored
-            self._event(DAEMON_ACTOR, "state_restored", to=restored.value, set_id=open_set.id)
+            back = ev.StateRestored(to=restored.value, set_id=open_set.id)
+            self._event(DAEMON_ACTOR, EventKind.STATE_RESTORED, back)
         self._changed()
         return True
 
     # ----------------------------------------------------------------------- snapshot
-    def results(self) -> tuple[dict[str, Any] | None, bool, str | None]:
+    def results(self) -> Results:
         """Return (Evaluation.to_dict() so far, provisional?, error), cached until a change."""
         if self._results_cache is not None and self._results_cache[0] == self.data_version:
             return self._results_cache[1]
         if self.session_id is None:
-            value: tuple[dict[str, Any] | None, bool, str | None] = (None, False, None)
+            value: Results = (None, False, None)
         else:
+            assert self.plan is not None  # a session is open: its plan is known
             context = SessionContext(
                 self.plan, self.metadata, self.thresholds, self.integration_s, self.time_scale
             )
@@ -795,8 +816,8 @@ class Engine:
         self._results_cache = (self.data_version, value)
         return value
 
-    def snapshot(self) -> dict[str, Any]:
-        """Return the whole state as a protocol Snapshot dict."""
+    def snapshot(self) -> Snapshot:
+        """Return the whole state as the protocol's Snapshot."""
         from chargebook.acquire.engine.snapshot import build_snapshot
 
         return build_snapshot(self)

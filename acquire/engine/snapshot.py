@@ -1,4 +1,4 @@
-"""The engine's whole state as a protocol ``Snapshot`` dict (see ``acquire/protocol.py``)."""
+"""The engine's whole state as the protocol's ``Snapshot`` (see ``acquire/protocol.py``)."""
 
 from __future__ import annotations
 
@@ -6,10 +6,22 @@ import weakref
 from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
-from chargebook.acquire.protocol import CAUTION, EngineState, ReadingPhase
-from chargebook.acquire.record.store import ReadingRow, SetRow
+from chargebook.acquire.protocol import (
+    CAUTION,
+    EngineState,
+    EnvironmentInfo,
+    LiveReading,
+    PromptInfo,
+    ReadingPhase,
+    SessionInfo,
+    SetInfo,
+    Snapshot,
+    StepInfo,
+)
+from chargebook.acquire.record.store import EnvironmentRow, ReadingRow, SetRow
 from chargebook.acquire.session import rules
 from chargebook.acquire.session.numbering import next_reading_label, reading_labels
+from chargebook.acquire.session.plan import Step
 
 if TYPE_CHECKING:
     from chargebook.acquire.engine.engine import Engine
@@ -19,19 +31,20 @@ S = EngineState
 #: Per engine, per set id: (what the set's entry was computed from, the entry). A set's
 #: statistics and flags are recomputed only when its row, its readings, the thresholds or its
 #: plan step changed, so a finished set costs nothing while another one is being taken.
-_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], dict[str, Any]]]]
+_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], SetInfo]]]
 _SET_CACHE = weakref.WeakKeyDictionary()
 
 
-def build_snapshot(engine: Engine) -> dict[str, Any]:
+def build_snapshot(engine: Engine) -> Snapshot:
     """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...)."""
     store, session_id = engine.store, engine.session_id
-    sets: list[dict[str, Any]] = []
-    environment = None
-    entries: list[dict[str, Any]] = []
-    session = None
+    sets: list[SetInfo] = []
+    environment: EnvironmentInfo | None = None
+    entries: list[EnvironmentInfo] = []
+    session: SessionInfo | None = None
     results, provisional, results_error = engine.results()
     if session_id is not None:
+        assert engine.plan is not None  # a session is open: its plan is known
         row = store.session(session_id)
         session = {
             "id": row.id,
@@ -85,14 +98,16 @@ def build_snapshot(engine: Engine) -> dict[str, Any]:
 
 def _sets_info(
     engine: Engine, rows: list[SetRow], by_set: Mapping[int, tuple[ReadingRow, ...]]
-) -> list[dict[str, Any]]:
+) -> list[SetInfo]:
     """Return every set's entry, reusing the entries of sets whose inputs did not change (the
     very dict: a set that did not change is the same object in the next snapshot)."""
     cache = _SET_CACHE.setdefault(engine, {})
-    fresh: dict[int, tuple[tuple[Any, ...], dict[str, Any]]] = {}
-    entries = []
-    reference = rules.routine_nC_per_MU(engine.plan, rows, by_set)
-    steps = engine.plan.steps
+    fresh: dict[int, tuple[tuple[Any, ...], SetInfo]] = {}
+    entries: list[SetInfo] = []
+    plan = engine.plan
+    assert plan is not None  # sets exist only in a session
+    reference = rules.routine_nC_per_MU(plan, rows, by_set)
+    steps = plan.steps
     for row in rows:
         own = by_set.get(row.id, ())
         step = steps[row.step_index] if row.step_index < len(steps) else None
@@ -110,8 +125,8 @@ def _sets_info(
 
 
 def _set_info(
-    engine: Engine, row: SetRow, own: list[ReadingRow], step: Any | None, reference: float | None
-) -> dict[str, Any]:
+    engine: Engine, row: SetRow, own: list[ReadingRow], step: Step | None, reference: float | None
+) -> SetInfo:
     """Return the protocol entry of one set: its readings, statistics and flags (``reference``:
     the routine set's charge per MU, nC/MU)."""
     stats, flags, per_reading = rules.set_summary(row.purpose, row.bias_V, own, engine.thresholds)
@@ -148,7 +163,7 @@ def _set_info(
     }
 
 
-def _environment_info(entry: Any) -> dict[str, Any]:
+def _environment_info(entry: EnvironmentRow) -> EnvironmentInfo:
     return {
         "temperature_C": entry.temperature_C,
         "pressure_kPa": entry.pressure_kPa,
@@ -160,11 +175,11 @@ def _environment_info(entry: Any) -> dict[str, Any]:
     }
 
 
-def _plan_info(engine: Engine, sets: list[dict[str, Any]]) -> list[dict[str, Any]]:
+def _plan_info(engine: Engine, sets: list[SetInfo]) -> list[StepInfo]:
     if engine.plan is None:
         return []
     accepted = {s["step_index"] for s in sets if s["status"] == "accepted"}
-    steps = []
+    steps: list[StepInfo] = []
     for index, step in enumerate(engine.plan.steps):
         if index in accepted:
             status = "accepted"
@@ -191,7 +206,7 @@ def _plan_info(engine: Engine, sets: list[dict[str, Any]]) -> list[dict[str, Any
     return steps
 
 
-def _live(engine: Engine) -> dict[str, Any]:
+def _live(engine: Engine) -> LiveReading:
     reading = engine.reading
     if reading is None:
         return {
@@ -221,7 +236,7 @@ def _bias_text(volts: float) -> str:
     return f"{volts:+g} V".replace("-", "−")
 
 
-def prompt(engine: Engine) -> dict[str, Any]:
+def prompt(engine: Engine) -> PromptInfo:
     """Return what the operator must do now, in plain words (PromptInfo)."""
     state, step = engine.state, engine.step
     if engine.record_fault is not None:
@@ -262,7 +277,7 @@ def prompt(engine: Engine) -> dict[str, Any]:
     return _beam_prompt(engine, step)
 
 
-def _waiting_prompt(engine: Engine, step: Any) -> dict[str, Any]:
+def _waiting_prompt(engine: Engine, step: Step) -> PromptInfo:
     if engine.session_id is not None and not engine.store.environment(engine.session_id):
         return {
             "kind": "environment",
@@ -273,14 +288,14 @@ def _waiting_prompt(engine: Engine, step: Any) -> dict[str, Any]:
         return {
             "kind": "manual",
             "text": f"Turn the bias to {_bias_text(volts)} by hand, then confirm it is done.",
-            "manual_action": dict(engine.pending_manual),
+            "manual_action": {**engine.pending_manual},
         }
     if not engine.instrument_connected:
         return {"kind": "interrupted", "text": "The electrometer is not connected: waiting for it."}
     return {"kind": "arm", "text": f"{step.prompt} Arm when ready."}
 
 
-def _beam_prompt(engine: Engine, step: Any) -> dict[str, Any]:
+def _beam_prompt(engine: Engine, step: Step) -> PromptInfo:
     active = engine.active
     done = active.used_count if active is not None else 0
     if not step.uses_beam:

@@ -121,9 +121,9 @@ def _plain_text(value: object) -> bool:
 
 def owner(table: str, values: Sequence[Any]) -> int | None:
     """Return the session a chained row belongs to (its own id for a session row)."""
-    if table == "sessions":
-        return values[0]
-    return values[1]  # session_id is the second column of every other chained table
+    # session_id is the second column of every other chained table
+    session = values[0] if table == "sessions" else values[1]
+    return None if session is None else int(session)
 
 
 def chain_key(session_id: int | None) -> int:

@@ -305,7 +305,7 @@ def _chain_appended_rows(db: Database) -> None:
     )
     order = ("sessions", "reading_sets", "traffic", "readings", "environment", "events")
     rank = {table: index for index, table in enumerate(order)}
-    rows: list[tuple[int, str, int, str, tuple]] = []
+    rows: list[tuple[int, str, int, str, tuple[object, ...]]] = []
     for table, columns in chain.COLUMNS.items():
         stamped = _STAMP_COLUMNS.get(table, "recorded_at")
         sql = f"SELECT {', '.join(columns)}, {stamped} FROM {table}"

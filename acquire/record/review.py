@@ -18,10 +18,10 @@ import getpass
 from dataclasses import dataclass
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind, SessionReviewed
 from chargebook.acquire.record.store import EventRow, NotFound, Store
 from chargebook.corrections.errors import InputError
 
-REVIEW_EVENT = "session_reviewed"
 #: What the command line and the protocol ask for -> what the record says.
 DECISIONS = {"approve": "approved", "reject": "rejected"}
 #: A session's review status as shown by ``sessions``, ``show`` and the reports.
@@ -56,7 +56,7 @@ class Review:
 def review_of(events: tuple[EventRow, ...] | list[EventRow]) -> Review | None:
     """Return the review among a session's events (the first, the one that stands), or None."""
     for event in events:
-        if event.kind == REVIEW_EVENT:
+        if event.kind == EventKind.SESSION_REVIEWED:
             detail = event.detail()
             return Review(
                 status=str(detail.get("status")),
@@ -100,7 +100,7 @@ def _same_person(a: object, b: object) -> bool:
 def _started_by_account(events: list[EventRow]) -> str | None:
     """Return the Unix account that started the session, if recorded."""
     for event in events:
-        if event.kind == "session_created":
+        if event.kind == EventKind.SESSION_CREATED:
             return event.account
     return None
 
@@ -166,18 +166,14 @@ def record_review(
         operator = session.metadata().get("operator")
         if not allow_self_review:
             _refuse_self_review(reviewer, operator, _started_by_account(events))
-        store.add_event(
-            session_id,
-            reviewer,
-            REVIEW_EVENT,
-            {
-                "status": DECISIONS[decision],
-                "reviewer": reviewer,
-                "comment": comment,
-                "measured_by": operator,
-                "self_review_allowed": allow_self_review,
-            },
+        review = SessionReviewed(
+            status=DECISIONS[decision],
+            reviewer=reviewer,
+            comment=comment,
+            measured_by=operator,
+            self_review_allowed=allow_self_review,
         )
+        store.add_event(session_id, reviewer, EventKind.SESSION_REVIEWED, review)
         found = review_of(store.events(session_id))
     assert found is not None
     return found

@@ -33,14 +33,15 @@ import tempfile
 import threading
 import time
 import uuid
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field, fields, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
-from chargebook.acquire.record import chain
+from chargebook.acquire.record import chain, events
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import (
     CAPTURE_MODES,
     SCHEMA_VERSION,
@@ -191,10 +192,10 @@ class SessionRow:
     uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
-        return json.loads(self.metadata_json)
+        return _json_object(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
-        return json.loads(self.plan_json)
+        return _json_object(self.plan_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -269,7 +270,7 @@ class EventRow:
     account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
-        return json.loads(self.detail_json)
+        return _json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -284,6 +285,8 @@ class TrafficRow:
     line: bytes
 
 
+#: The columns an event is appended with (its id and chain columns are added by _append).
+_EVENT_COLUMNS = ("session_id", "recorded_at", "actor", "kind", "detail_json", "account")
 #: The rows of a session after a given id, found by the id (the unary + keeps SQLite from
 #: scanning the session's index instead: the cost is the new rows', not the session's).
 _NEWER_OF_SESSION = "id > ? AND +session_id = ?"
@@ -332,13 +335,24 @@ def _require_int(field: str, value: object, minimum: int) -> int:
     return value
 
 
-def _require_finite(field: str, value: object, *, optional: bool = False) -> float | None:
-    if value is None and optional:
+def _require_finite(field: str, value: object) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise InputError(field, value, "a finite number", "is not a finite number")
+    return float(value)
+
+
+def _finite_or_none(field: str, value: object) -> float | None:
+    if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-        allowed = "a finite number" + (" or None" if optional else "")
-        raise InputError(field, value, allowed, "is not a finite number")
+        raise InputError(field, value, "a finite number or None", "is not a finite number")
     return float(value)
+
+
+def _json_object(text: str) -> dict[str, Any]:
+    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail)."""
+    loaded: dict[str, Any] = json.loads(text)
+    return loaded
 
 
 def _to_json(field: str, value: object) -> str:
@@ -653,10 +667,14 @@ class Store:
             return utc_stamp_now()
         return self._now().astimezone(UTC).isoformat(timespec="microseconds")
 
-    def _select(self, cls: type[Row], table: str, where: str, params: tuple = ()) -> list[Row]:
+    def _select(
+        self, cls: type[Row], table: str, where: str, params: tuple[Any, ...] = ()
+    ) -> list[Row]:
         return [cls(*row) for row in self._rows(cls, table, where, params)]
 
-    def _rows(self, cls: type, table: str, where: str, params: tuple = ()) -> list[tuple]:
+    def _rows(
+        self, cls: type, table: str, where: str, params: tuple[Any, ...] = ()
+    ) -> list[tuple[Any, ...]]:
         """Return the raw rows of ``table`` with the columns of ``cls``, ordered by id."""
         sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
         with self._lock:
@@ -746,26 +764,30 @@ class Store:
             finally:
                 self._account = previous
 
-    def _event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        row = {
-            "session_id": session_id,
-            "recorded_at": self._stamp(),
-            "actor": _require_text("actor", actor),
-            "kind": _require_text("kind", kind),
-            "detail_json": _to_json("detail", detail),
-            "account": self._account,
-        }
+    def _event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
+        event = EventRow(
+            0,  # the id is the next one, given by _append
+            session_id,
+            self._stamp(),
+            _require_text("actor", actor),
+            events.check_detail(kind, detail).value,
+            _to_json("detail", detail),
+            self._account,
+        )
+        row = {name: getattr(event, name) for name in _EVENT_COLUMNS}
         event_id = self._append("events", row)
         if self.on_events_committed is not None:
-            self._events_in_flight.append(EventRow(event_id, **row))
+            self._events_in_flight.append(replace(event, id=event_id))
         return event_id
 
     # ------------------------------------------------------------------------- sessions
 
     def create_session(
         self,
-        metadata: dict,
-        plan: dict,
+        metadata: dict[str, Any],
+        plan: dict[str, Any],
         convention: str,
         beam: str,
         replay_of: int | None = None,
@@ -791,17 +813,13 @@ class Store:
             if replay_of is not None:
                 self._one(SessionRow, "sessions", replay_of, "session")
             session_id = self._append("sessions", row)
-            self._event(
-                session_id,
-                actor,
-                "session_created",
-                {
-                    "convention": convention,
-                    "beam": beam,
-                    "replay_of": replay_of,
-                    "uuid": session_uuid,
-                },
-            )
+            created: events.SessionCreated = {
+                "convention": convention,
+                "beam": beam,
+                "replay_of": replay_of,
+                "uuid": session_uuid,
+            }
+            self._event(session_id, actor, EventKind.SESSION_CREATED, created)
         return session_id
 
     def open_session(self) -> SessionRow | None:
@@ -825,12 +843,14 @@ class Store:
                     f"session {session_id} is {old.status}; its status can no longer change"
                 )
             closed_at = None if status == "open" else (old.closed_at or self._stamp())
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                session_id,
-                actor,
-                "session_status",
-                {"from": old.status, "to": status, "reason": reason, "closed_at": closed_at},
-            )
+            change: events.SessionStatus = {
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "closed_at": closed_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(session_id, actor, EventKind.SESSION_STATUS, change)
             self.db.execute(
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
@@ -850,7 +870,8 @@ class Store:
             old = self.station().name
             if old == name:
                 return False
-            self._event(None, actor, "station_named", {"from": old, "to": name})
+            renamed: events.StationNamed = {"from": old, "to": name}
+            self._event(None, actor, EventKind.STATION_NAMED, renamed)
             self.db.execute("UPDATE station SET name = ?", (name,))
         return True
 
@@ -918,20 +939,17 @@ class Store:
                 ended_at = old.ended_at
             else:
                 ended_at = old.ended_at or self._stamp()
-            self._event(  # first: a trigger refuses a status change that is not its last event
-                old.session_id,
-                actor,
-                "set_status",
-                {
-                    "set_id": set_id,
-                    "step_key": old.step_key,
-                    "attempt": old.attempt,
-                    "from": old.status,
-                    "to": status,
-                    "reason": reason,
-                    "ended_at": ended_at,
-                },
-            )
+            change: events.SetStatus = {
+                "set_id": set_id,
+                "step_key": old.step_key,
+                "attempt": old.attempt,
+                "from": old.status,
+                "to": status,
+                "reason": reason,
+                "ended_at": ended_at,
+            }
+            # first: a trigger refuses a status change that is not its last event
+            self._event(old.session_id, actor, EventKind.SET_STATUS, change)
             self.db.execute(
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
@@ -1054,7 +1072,7 @@ class Store:
             "pressure_kPa": _require_finite("pressure_kPa", pressure_kPa),
             "pressure_entered": _require_finite("pressure_entered", pressure_entered),
             "pressure_unit": _require_text("pressure_unit", pressure_unit),
-            "humidity_pct": _require_finite("humidity_pct", humidity_pct, optional=True),
+            "humidity_pct": _finite_or_none("humidity_pct", humidity_pct),
             "source": _require_text("source", source),
         }
         with self.atomic():
@@ -1067,8 +1085,14 @@ class Store:
 
     # ----------------------------------------------------------------------------- events
 
-    def add_event(self, session_id: int | None, actor: str, kind: str, detail: dict) -> int:
-        """Record one audit event (who, what, and why in ``detail``); return its id."""
+    def add_event(
+        self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
+    ) -> int:
+        """Record one audit event (who, what, and why in ``detail``); return its id.
+
+        Raises InputError naming the kind and the key when ``detail`` is not the shape
+        ``kind`` declares (``acquire/record/events.py``); nothing is written then.
+        """
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
@@ -1088,7 +1112,7 @@ class Store:
             found.setdefault(event.session_id, []).append(event)
         return found
 
-    def read(self, sql: str, params: tuple = ()) -> list[tuple]:
+    def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""
         with self._lock:
             return self.db.execute(sql, params).fetchall()
@@ -1120,17 +1144,11 @@ class Store:
 
     def add_traffic(self, session_id: int | None, t_s: float, direction: str, line: bytes) -> int:
         """Record one raw instrument line exactly as sent or received; return its id."""
-        row = dict(
-            zip(
-                _TRAFFIC_COLUMNS,
-                _traffic_row((session_id, t_s, self._stamp(), direction, line)),
-                strict=True,
-            )
-        )
+        row = _traffic_row((session_id, t_s, self._stamp(), direction, line))
         with self.atomic():
             if session_id is not None:
                 self._one(SessionRow, "sessions", session_id, "session")
-            return self._append_traffic([tuple(row.values())])
+            return self._append_traffic([row])
 
     def stamp(self) -> str:
         """Return the time now as the store writes it in ``recorded_at`` (UTC ISO 8601)."""
@@ -1148,7 +1166,7 @@ class Store:
         """
         rows = [_traffic_row(line) for line in lines]
         with self.atomic():
-            for session_id in {row[0] for row in rows} - {None}:
+            for session_id in {row[0] for row in rows if row[0] is not None}:
                 self._one(SessionRow, "sessions", session_id, "session")
             self._append_traffic(rows)
         return len(rows)
@@ -1236,6 +1254,8 @@ def _column_list(cls: type) -> str:
 _SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
 
 
-def _reading_row(row: tuple) -> ReadingRow:
+def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
     """Return a ReadingRow from its raw columns, ``settling`` as a bool (stored 0 or 1)."""
-    return ReadingRow(*row[:_SETTLING], bool(row[_SETTLING]), *row[_SETTLING + 1 :])
+    columns = list(row)
+    columns[_SETTLING] = bool(columns[_SETTLING])
+    return ReadingRow(*columns)

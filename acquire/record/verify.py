@@ -19,8 +19,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.record import chain
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
-from chargebook.acquire.record.store import Store
+from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
 
 @dataclass(frozen=True, slots=True)
@@ -108,7 +109,7 @@ def verify_all(store: Store) -> list[ChainReport]:
     return [*reports, verify_session(store, None)]
 
 
-Chained = tuple[str, tuple[Any, ...], int | None, str | None]
+Chained = tuple[str, tuple[Any, ...], int, str]
 
 
 def _chained_rows(store: Store, session_id: int | None) -> tuple[list[Chained], list[Problem]]:
@@ -206,18 +207,18 @@ def _check_statuses(store: Store, session_id: int, events: list[tuple[Any, ...]]
     session_status: dict[str, Any] = {"to": "open", "reason": None, "closed_at": None}
     set_status: dict[int, dict[str, Any]] = {}
     for values in events:
-        if values[kind_at] not in ("session_status", "set_status"):
+        if values[kind_at] not in (EventKind.SESSION_STATUS, EventKind.SET_STATUS):
             continue
         try:
             detail = json.loads(values[detail_at])
         except ValueError:
             continue  # a changed event: the link check has named it
-        if values[kind_at] == "session_status":
+        if values[kind_at] == EventKind.SESSION_STATUS:
             session_status = detail
         elif isinstance(detail.get("set_id"), int):
             set_status[detail["set_id"]] = detail
     session = store.session(session_id)
-    checks = [
+    checks: list[tuple[str, int, dict[str, Any], SessionRow | SetRow, str]] = [
         ("sessions", session.id, session_status, session, "closed_at"),
         *(
             ("reading_sets", row.id, set_status.get(row.id, _NEVER_CHANGED), row, "ended_at")
@@ -239,7 +240,7 @@ def _check_uuid(store: Store, session_id: int, events: list[tuple[Any, ...]]) ->
     detail_at = chain.COLUMNS["events"].index("detail_json")
     recorded: Any = None
     for values in events:
-        if values[kind_at] == "session_created":
+        if values[kind_at] == EventKind.SESSION_CREATED:
             try:
                 recorded = json.loads(values[detail_at]).get("uuid")
             except ValueError:

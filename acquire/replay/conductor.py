@@ -33,7 +33,8 @@ from collections import deque
 from collections.abc import Callable, Sequence
 from typing import Any
 
-from chargebook.acquire.engine.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.engine.driver_commands import BENCH_COMMANDS, Command, SetBias
+from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState as S
 from chargebook.acquire.replay.recording import RecordedInput, RecordedLine
@@ -52,8 +53,6 @@ log = logging.getLogger(__name__)
 UNASKED_WAIT_S = 10.0
 #: Inputs that drop a reading under way.
 DROPPING_INPUTS = ("pause", "redo", "stop", "abort", "instrument_lost", "instrument_fault")
-#: Commands for the bench (the simulated linac and bias switch), not for the electrometer.
-BENCH_ACTIONS = ("beam", "bench_bias")
 
 
 #: What a driver call returns in a replay when the instrument refused it or a line was garbled.
@@ -302,7 +301,7 @@ class Conductor:
     # -- commands ----------------------------------------------------------------------------
     def _take_commands(self) -> None:
         for command in self.engine.take_commands():
-            if command.action in BENCH_ACTIONS:
+            if isinstance(command, BENCH_COMMANDS):
                 continue  # the bench is not replayed: the recorded lines are the instrument
             if not self.engine.instrument_connected:
                 log.info("instrument away: dropped command %s (as the daemon does)", command)
@@ -315,7 +314,7 @@ class Conductor:
             "zero": driver.zero,
             "start": driver.start_integration,
             "stop": driver.stop_integration,
-            "set_bias": lambda: driver.set_bias(command.value),
+            "set_bias": lambda: driver.set_bias(_bias_V(command)),
         }
         if self._call(calls[command.action]) is not FAILED:
             self.fresh_after_s = self.follower.last_t_s  # as the daemon, after a command done
@@ -382,6 +381,7 @@ class Conductor:
         if engine.active is None or engine.state not in (S.SETTLING, S.COLLECTING):
             return ""
         step = engine.step
+        assert step is not None  # a set is being taken: its step is current
         return (
             f"; the plan still collects step '{step.key}' after {engine.active.used_count} of "
             f"its {step.readings} readings: the recording holds no more readings for it"
@@ -445,8 +445,14 @@ class Conductor:
 
 def _command_lines(profile: Any, command: Command) -> list[str]:
     """Return the lines the profile sends for an engine command."""
-    arguments = {"volts": command.value} if command.action == "set_bias" else {}
+    arguments = {"volts": command.bias_V} if isinstance(command, SetBias) else {}
     return profile.command(command.action).render(**arguments)
+
+
+def _bias_V(command: Command) -> float:
+    """Return the bias a SetBias command sets, V (signed)."""
+    assert isinstance(command, SetBias)
+    return command.bias_V
 
 
 def _first_line(profile: Any, name: str) -> str | None:

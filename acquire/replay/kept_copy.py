@@ -16,6 +16,7 @@ import json
 from collections.abc import Callable
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 
 #: Copied tables, with the columns that refer to rows of other copied tables. Rows are copied
@@ -70,6 +71,6 @@ def _fix_row(
         for key, other in DETAIL_IDS.items():
             if isinstance(detail.get(key), int):
                 detail[key] = new_id(other, detail[key])
-        if row["kind"] == "session_created":
+        if row["kind"] == EventKind.SESSION_CREATED:
             detail["replay_of"] = replay_of
         row["detail_json"] = json.dumps(detail, sort_keys=True, allow_nan=False, ensure_ascii=False)

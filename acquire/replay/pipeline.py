@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine.engine import Engine
+from chargebook.acquire.record.events import EventKind, Replay
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.conductor import ArmingClock, Conductor, Pacer, WhatIfStop
 from chargebook.acquire.replay.recording import RecordedLine, Recording
@@ -24,8 +25,6 @@ from chargebook.corrections.stability import Thresholds
 
 #: Who the replay names as the actor of the events it writes itself.
 REPLAY_ACTOR = "replay"
-#: The event a replayed session starts with: what was replayed, and how.
-REPLAY_EVENT = "replay"
 
 
 @dataclass(frozen=True)
@@ -59,7 +58,7 @@ def replayed(actor: str) -> str:
     return f"{actor} (replayed)"
 
 
-def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> PipelineRun:
+def run_pipeline(setup: Setup, speed: float, detail: Replay) -> PipelineRun:
     """Run the recording through the playback simulator, the driver and the engine.
 
     ``speed`` paces it (0: as fast as possible); ``detail`` is written with the session's
@@ -94,7 +93,7 @@ def run_pipeline(setup: Setup, speed: float, detail: dict[str, Any]) -> Pipeline
 
 
 def _play(
-    setup: Setup, speed: float, detail: dict[str, Any], follower: TrafficFollower, driver: Any
+    setup: Setup, speed: float, detail: Replay, follower: TrafficFollower, driver: Any
 ) -> PipelineRun:
     """Start the session again in a new engine and play the recording through the driver."""
     recording = setup.recording
@@ -112,7 +111,7 @@ def _play(
         recording.session.metadata(), setup.plan, actor=replayed(recording.start_actor)
     )
     follower.attach(store, session_id)
-    store.add_event(session_id, REPLAY_ACTOR, REPLAY_EVENT, detail)
+    store.add_event(session_id, REPLAY_ACTOR, EventKind.REPLAY, detail)
     conductor = Conductor(
         engine,
         driver,

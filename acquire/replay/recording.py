@@ -22,6 +22,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.protocol import Method
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import EventRow, SessionRow, Store, TrafficRow
 from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
@@ -43,11 +44,11 @@ ACTIONS_BY_STATE_CHANGE: dict[str, str] = {
 }
 #: Inputs that are events of their own kind.
 ACTIONS_BY_EVENT_KIND: dict[str, str] = {
-    "environment_entered": "environment",
-    "manual_step_done": "manual_done",
-    "instrument_lost": "instrument_lost",
-    "instrument_fault": "instrument_fault",
-    "session_resumed": "restart",
+    EventKind.ENVIRONMENT_ENTERED: "environment",
+    EventKind.MANUAL_STEP_DONE: "manual_done",
+    EventKind.INSTRUMENT_LOST: "instrument_lost",
+    EventKind.INSTRUMENT_FAULT: "instrument_fault",
+    EventKind.SESSION_RESUMED: "restart",
 }
 
 
@@ -122,7 +123,7 @@ def load_recording(store: Store, session_id: int) -> Recording:
     profile, time_scale = _acquisition(events)
     armed, armed_recorded = armed_times(events, store, session_id)
     captured = _capture_times(store, session_id)
-    created = next((e for e in events if e.kind == "session_created"), None)
+    created = next((e for e in events if e.kind == EventKind.SESSION_CREATED), None)
     return Recording(
         session=session,
         thresholds=rules.session_thresholds(events),
@@ -173,9 +174,9 @@ def _acquisition(events: Sequence[EventRow]) -> tuple[str | None, float | None]:
     profile: str | None = None
     for event in events:
         detail = event.detail()
-        if event.kind == rules.ACQUISITION_EVENT:
+        if event.kind == EventKind.ACQUISITION:
             profile = detail.get("profile") or profile
-        elif event.kind == "instrument_identified" and profile is None:
+        elif event.kind == EventKind.INSTRUMENT_IDENTIFIED and profile is None:
             profile = detail.get("profile")
     return profile, rules.recorded_time_scale(events)
 
@@ -189,7 +190,7 @@ def armed_times(
     exact = True
     captured = {r.id: r.t_s for r in store.readings(session_id)}
     for event in events:
-        if event.kind != "reading_recorded":
+        if event.kind != EventKind.READING_RECORDED:
             continue
         detail = event.detail()
         if "armed_t_s" in detail:
@@ -245,11 +246,11 @@ def input_kind(event: EventRow, instrument_away: bool) -> str | None:
     ``instrument_back`` is an input only after the instrument was lost or the daemon
     restarted: the first connection of the daemon is not part of the session's sequence.
     """
-    if event.kind == "state_changed":
+    if event.kind == EventKind.STATE_CHANGED:
         return ACTIONS_BY_STATE_CHANGE.get(event.detail().get("action", ""))
-    if event.kind == "reading_recorded" and event.detail().get("capture") == "manual":
+    if event.kind == EventKind.READING_RECORDED and event.detail().get("capture") == "manual":
         return "capture"
-    if event.kind == "instrument_back":
+    if event.kind == EventKind.INSTRUMENT_BACK:
         return "instrument_back" if instrument_away else None
     return ACTIONS_BY_EVENT_KIND.get(event.kind)
 
@@ -286,9 +287,10 @@ def _after_event(
     if reading_set is None:
         return current
     name = f"reading set '{reading_set.step_key}' (attempt {reading_set.attempt})"
-    if event.kind == "reading_recorded":
+    if event.kind == EventKind.READING_RECORDED:
         readings[set_id] = readings.get(set_id, 0) + 1
     taken = readings.get(set_id, 0)
-    if event.kind == "set_status" and detail.get("to") in ("accepted", "superseded", "aborted"):
+    ended = detail.get("to") in ("accepted", "superseded", "aborted")
+    if event.kind == EventKind.SET_STATUS and ended:
         return f"after {name} ended {detail['to']}"
     return f"in {name} after {taken} reading{'s' if taken != 1 else ''}"

@@ -31,6 +31,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind, Replay, ReplayNotReproduced
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.compare import (
     Change,
@@ -95,10 +96,6 @@ class ReplayRequest:
     time_scale: float | None = None
     dry_run: bool = False
     keep: bool = False
-
-
-#: The event that marks a stored replay of an edited traffic log that did not reproduce.
-NOT_REPRODUCED_EVENT = "replay_not_reproduced"
 
 
 @dataclass
@@ -246,16 +243,12 @@ def _finish(
             original, recording.session_id, station, replay_id, explanations
         )
         if from_log and not comparison.exact:
-            station.add_event(
-                replay_id,
-                REPLAY_ACTOR,
-                NOT_REPRODUCED_EVENT,
-                {
-                    "traffic_log": str(request.traffic_log),
-                    "why": "stored with --keep although this traffic log does not reproduce "
-                    "the session it replays",
-                },
+            kept = ReplayNotReproduced(
+                traffic_log=str(request.traffic_log),
+                why="stored with --keep although this traffic log does not reproduce "
+                "the session it replays",
             )
+            station.add_event(replay_id, REPLAY_ACTOR, EventKind.REPLAY_NOT_REPRODUCED, kept)
     return replay_id, comparison, None
 
 
@@ -295,12 +288,12 @@ def _given_or_recorded(recording: Recording, given: Any, recorded: Any, what: st
     return value
 
 
-def _replay_detail(recording: Recording, request: ReplayRequest) -> dict[str, Any]:
+def _replay_detail(recording: Recording, request: ReplayRequest) -> Replay:
     """Return the detail of the event a replayed session starts with."""
-    return {
-        "replay_of": recording.session_id,
-        "speed": request.speed,
-        "traffic_log": str(request.traffic_log) if request.traffic_log else None,
-        "plan": request.plan,
-        "thresholds": request.thresholds or None,
-    }
+    return Replay(
+        replay_of=recording.session_id,
+        speed=request.speed,
+        traffic_log=str(request.traffic_log) if request.traffic_log else None,
+        plan=request.plan,
+        thresholds=request.thresholds or None,
+    )

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import EventRow
 from chargebook.acquire.reports.data import SessionRecord
 
@@ -51,7 +52,7 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
     """Return (what happened, its detail) for one audit event, in words."""
     detail = event.detail()
     kind = event.kind
-    if kind == "set_status":
+    if kind == EventKind.SET_STATUS:
         rows = {s.row.id: s.row for s in record.sets}
         row = rows.get(detail.get("set_id"))
         step = (
@@ -65,18 +66,18 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
             f"attempt {detail.get('attempt', '?')} (set {detail.get('set_id')}) "
             f"{detail.get('to')}, {_reason(detail.get('reason'))}",
         )
-    if kind == "step_skipped":
+    if kind == EventKind.STEP_SKIPPED:
         step = _step_of(record, detail.get("step_index"), str(detail.get("step_key", "?")))
         return f"{step}: skipped", "the optional step was not taken"
-    if kind == "session_resumed":
+    if kind == EventKind.SESSION_RESUMED:
         step = _step_of(record, detail.get("step_index"), "?")
         return "session resumed", f"at {step}"
-    if kind == "session_status":
+    if kind == EventKind.SESSION_STATUS:
         return (
             f"session {detail.get('to')}",
             f"was {detail.get('from')}, {_reason(detail.get('reason'))}",
         )
-    if kind == "manual_step_done":
+    if kind == EventKind.MANUAL_STEP_DONE:
         action = (
             f"bias set to {_volts(detail['volts'])}"
             if detail.get("action") == "set_bias" and "volts" in detail
@@ -84,17 +85,17 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         )
         note = f"; note: {detail['note']}" if detail.get("note") else ""
         return "manual step done by hand", action + note
-    if kind == "bias_changed":
+    if kind == EventKind.BIAS_CHANGED:
         return "bias changed by hand", f"to {_volts(detail.get('volts'))}"
-    if kind == "reading_dropped":
+    if kind == EventKind.READING_DROPPED:
         charge = detail.get("charge_nC")
         value = f" ({charge:+.4f} nC)" if isinstance(charge, int | float) else ""
         return "reading dropped", f"{detail.get('why', 'no reason given')}{value}"
-    if kind == "daemon_restarted":
+    if kind == EventKind.DAEMON_RESTARTED:
         previous = detail.get("previous_run", "unknown")
         stop = f" ({detail['previous_stop']})" if detail.get("previous_stop") else ""
         return "daemon restarted", f"the previous run {previous}{stop}"
-    if kind == "daemon_stopped":
+    if kind == EventKind.DAEMON_STOPPED:
         return "daemon stopped", _reason(detail.get("reason"))
     return kind.replace("_", " "), _detail_text(detail)
 

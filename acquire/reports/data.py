@@ -17,6 +17,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.review import Review, review_of
 from chargebook.acquire.record.store import (
     EnvironmentRow,
@@ -30,7 +31,6 @@ from chargebook.acquire.record.store import (
 from chargebook.acquire.record.verify import ChainReport, verify_session
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session, stored_context
 from chargebook.acquire.session.plan import Plan
-from chargebook.acquire.session.rules import LEAKAGE_SUBTRACTION_EVENT
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
 
@@ -38,19 +38,18 @@ from chargebook.corrections.evaluate import Evaluation
 UNUSED_SET_STATUSES = ("superseded", "aborted", "interrupted")
 #: Event kinds the audit of a session lists (besides set and session status changes).
 AUDIT_EVENT_KINDS = (
-    "manual_step_done",
-    "bias_changed",
-    "step_skipped",
-    "reading_dropped",
-    "instrument_lost",
-    "instrument_back",
-    "session_resumed",
-    "daemon_stopped",
-    "daemon_restarted",
-    "note",
-    LEAKAGE_SUBTRACTION_EVENT,
+    EventKind.MANUAL_STEP_DONE,
+    EventKind.BIAS_CHANGED,
+    EventKind.STEP_SKIPPED,
+    EventKind.READING_DROPPED,
+    EventKind.INSTRUMENT_LOST,
+    EventKind.INSTRUMENT_BACK,
+    EventKind.SESSION_RESUMED,
+    EventKind.DAEMON_STOPPED,
+    EventKind.DAEMON_RESTARTED,
+    EventKind.NOTE,
+    EventKind.LEAKAGE_SUBTRACTION_CHOSEN,
 )
-INSTRUMENT_EVENT = "instrument_identified"
 
 
 @dataclass(frozen=True)
@@ -113,11 +112,11 @@ class SessionRecord:
 
 
 def _worth_auditing(event: EventRow) -> bool:
-    if event.kind == "set_status":
+    if event.kind == EventKind.SET_STATUS:
         return event.detail().get("to") in UNUSED_SET_STATUSES
-    if event.kind == "bias_changed":
+    if event.kind == EventKind.BIAS_CHANGED:
         return event.detail().get("how") != "remote"  # a change by hand is a manual step
-    return event.kind in AUDIT_EVENT_KINDS or event.kind == "session_status"
+    return event.kind in AUDIT_EVENT_KINDS or event.kind == EventKind.SESSION_STATUS
 
 
 def instrument_identity(
@@ -129,12 +128,11 @@ def instrument_identity(
     identifies the instrument before a session opens, the latest one recorded outside any
     session before the session closed.
     """
-    found = [e for e in events if e.kind == INSTRUMENT_EVENT]
+    identified = EventKind.INSTRUMENT_IDENTIFIED
+    found = [e for e in events if e.kind == identified]
     if not found:
         end = session.closed_at or "9999"
-        found = [
-            e for e in store.events(None) if e.kind == INSTRUMENT_EVENT and e.recorded_at <= end
-        ]
+        found = [e for e in store.events(None) if e.kind == identified and e.recorded_at <= end]
     return found[-1].detail() if found else None
 
 

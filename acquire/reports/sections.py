@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.review import review_words
 from chargebook.acquire.reports.audit import event_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
@@ -497,7 +498,9 @@ def audit(record: SessionRecord) -> Table:
     rows = [(when(e.recorded_at), e.actor, *event_words(record, e)) for e in record.audit()]
     keys = [f"event-{e.id}" for e in record.audit()]
     recorded_by = {
-        e.detail().get("reading_id"): e.actor for e in record.events if e.kind == "reading_recorded"
+        e.detail().get("reading_id"): e.actor
+        for e in record.events
+        if e.kind == EventKind.READING_RECORDED
     }
     for reading_set, reading in record.manual_readings:
         rows.append(

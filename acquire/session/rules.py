@@ -14,6 +14,9 @@ from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+from chargebook.acquire.protocol import FlagInfo
+from chargebook.acquire.record.events import EnvironmentEntry, EventKind
 from chargebook.acquire.record.store import EventRow, ReadingRow, SetRow
 from chargebook.acquire.session import metadata as session_metadata
 from chargebook.acquire.session.metadata import SessionMetadata
@@ -34,7 +37,7 @@ from chargebook.corrections.statistics import set_statistics
 # ------------------------------------------------------------------------- operator input
 def check_environment(
     temperature_C: object, pressure: object, pressure_unit: str = "kPa", humidity_pct: object = None
-) -> dict[str, Any]:
+) -> EnvironmentEntry:
     """Return an environment entry (°C, kPa, pressure as entered, unit, % RH) after range checks.
 
     Raises InputError naming the field as the request names it (``temperature_C``,
@@ -46,13 +49,13 @@ def check_environment(
     humidity = None
     if humidity_pct is not None:
         humidity = float(limits.HUMIDITY_PCT.check("humidity_pct", humidity_pct))
-    return {
-        "temperature_C": temperature,
-        "pressure_kPa": pressure_kPa,
-        "pressure_entered": float(pressure),  # type: ignore[arg-type]
-        "pressure_unit": pressure_unit,
-        "humidity_pct": humidity,
-    }
+    return EnvironmentEntry(
+        temperature_C=temperature,
+        pressure_kPa=pressure_kPa,
+        pressure_entered=float(pressure),  # type: ignore[arg-type]
+        pressure_unit=pressure_unit,
+        humidity_pct=humidity,
+    )
 
 
 def require_reason(field: str, value: object) -> str:
@@ -63,7 +66,7 @@ def require_reason(field: str, value: object) -> str:
 
 
 def validate_metadata(metadata: Mapping[str, Any]) -> dict[str, Any]:
-    """Return the session metadata checked by ``acquire.session_meta``, as plain data."""
+    """Return the session metadata checked by ``acquire.session.metadata``, as plain data."""
     return _session_metadata(metadata).to_dict()
 
 
@@ -117,11 +120,16 @@ def settling_needed(step: Step, readings: Sequence[ReadingRow], limit: int | Non
 
 
 # --------------------------------------------------------------------------- statistics
-def _flag(code: str, message: str, severity: str = "warning") -> dict[str, str]:
+def _flag(code: str, message: str, severity: str = "warning") -> FlagInfo:
     return {"code": code, "message": message, "severity": severity}
 
 
-def reading_flags(reading: ReadingRow, against_bias: bool) -> list[dict[str, str]]:
+def _flag_info(flag: Flag) -> FlagInfo:
+    """Return a flag of ``corrections`` as the snapshot carries it."""
+    return _flag(flag.code, flag.message, flag.severity)
+
+
+def reading_flags(reading: ReadingRow, against_bias: bool) -> list[FlagInfo]:
     """Return the flags of one reading: instrument status, settling, and its sign against the
     bias (``against_bias``, judged by ``corrections.signs.contradicting``)."""
     flags = []
@@ -144,14 +152,14 @@ def reading_flags(reading: ReadingRow, against_bias: bool) -> list[dict[str, str
 
 def set_summary(
     purpose: str, bias_V: float, readings: Sequence[ReadingRow], thresholds: Thresholds
-) -> tuple[dict[str, Any] | None, list[dict[str, str]], dict[int, list[dict[str, str]]]]:
+) -> tuple[dict[str, Any] | None, list[FlagInfo], dict[int, list[FlagInfo]]]:
     """Return (statistics, set flags, flags per reading id) of a set's non-settling readings."""
     used = [r for r in readings if not r.settling]
     against = [False] * len(readings)
     if purpose != "leakage":  # leakage carries no bias-given sign
         against = contradicting(
-            [r.charge_nC for r in readings],
-            [r.charge_nC for r in used or readings],  # the set's sign: as the results take it
+            np.array([r.charge_nC for r in readings]),
+            np.array([r.charge_nC for r in used or readings]),  # the set's sign: as results take it
             bias_V,
             thresholds.charge_sign_for_positive_bias,
         ).tolist()
@@ -179,7 +187,7 @@ def set_summary(
                 "test): look for a spike or an interrupted beam before accepting.",
             )
         )
-    flags = [flag.to_dict() for flag in set_flags(purpose, stats, thresholds)]
+    flags = [_flag_info(flag) for flag in set_flags(purpose, stats, thresholds)]
     return _plain(stats), flags, per_reading
 
 
@@ -189,10 +197,10 @@ def delivery_flags(
     integration_s: Mapping[int, float],
     time_scale: float,
     reference_nC_per_MU: float | None,
-) -> list[dict[str, str]]:
+) -> list[FlagInfo]:
     """Return :func:`delivery_flag_list` as the snapshot's flag dicts."""
     flags = delivery_flag_list(step, readings, integration_s, time_scale, reference_nC_per_MU)
-    return [flag.to_dict() for flag in flags]
+    return [_flag_info(flag) for flag in flags]
 
 
 def delivery_flag_list(
@@ -242,7 +250,7 @@ def routine_nC_per_MU(
     return sum(abs(r.charge_nC) for r in used) / len(used) / float(step.mu_per_reading)
 
 
-def _unsummarised(purpose: str, error: InputError) -> dict[str, str]:
+def _unsummarised(purpose: str, error: InputError) -> FlagInfo:
     """Return the flag shown in place of a set's statistics that cannot be formed."""
     if purpose == "leakage":
         return _flag(
@@ -263,24 +271,13 @@ def _plain(stats: Any) -> dict[str, Any]:
 
 
 # ----------------------------------------------------------------------------- thresholds
-THRESHOLDS_EVENT = "thresholds"
-#: The event that records, at session start, the instrument profile and the daemon's time scale
-#: (what a replay needs to read the traffic and to time the plan's waits as the daemon did).
-ACQUISITION_EVENT = "acquisition"
-
-
 def recorded_time_scale(events: Sequence[EventRow]) -> float | None:
     """Return the daemon's time scale as its ``acquisition`` event recorded it (None: none did)."""
     scale: float | None = None
     for event in events:
-        if event.kind == ACQUISITION_EVENT:
+        if event.kind == EventKind.ACQUISITION:
             scale = event.detail().get("time_scale", scale)
     return scale
-
-
-#: The event that records, at session start, the operator's choice to subtract the measured
-#: leakage from the routine reading (metadata ``subtract_leakage``); the audit lists it.
-LEAKAGE_SUBTRACTION_EVENT = "leakage_subtraction_chosen"
 
 
 def load_thresholds(path: str | Path) -> Thresholds:
@@ -311,7 +308,7 @@ def thresholds_from_dict(data: Mapping[str, Any]) -> Thresholds:
 def session_thresholds(events: Sequence[EventRow]) -> Thresholds:
     """Return the thresholds a session was started with (its ``thresholds`` event)."""
     for event in events:
-        if event.kind == THRESHOLDS_EVENT:
+        if event.kind == EventKind.THRESHOLDS:
             return thresholds_from_dict(event.detail())
     return Thresholds()
 
@@ -321,7 +318,7 @@ def integration_times(events: Sequence[EventRow]) -> dict[int, float]:
     """Return reading id -> seconds from arming to capture, from ``reading_recorded`` events."""
     times: dict[int, float] = {}
     for event in events:
-        if event.kind == "reading_recorded":
+        if event.kind == EventKind.READING_RECORDED:
             detail = event.detail()
             if "integration_s" in detail:
                 times[int(detail["reading_id"])] = float(detail["integration_s"])

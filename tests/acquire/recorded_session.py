@@ -15,6 +15,12 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from chargebook.acquire.record.events import (
+    BiasChanged,
+    EventKind,
+    InstrumentIdentified,
+    ReadingRecorded,
+)
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.metadata import validate_metadata
 from chargebook.acquire.session.plan import Plan, SettlingRule, Step
@@ -25,6 +31,11 @@ LEAKAGE_DURATION_S = 60.0
 SETTLING_READING_nC = 14.790
 SUPERSEDED_nC = (-14.702, -14.688)
 SUPERSEDE_REASON = "chamber cable moved during the beam"
+#: The instrument as the daemon records it: the answer to its identification, joined, and the
+#: profile it reads the wire with (``Engine.instrument_back``).
+INSTRUMENT = InstrumentIdentified(
+    identity="Bench, SIM-MODEL-1, SIM-EM-0001, 1.4", profile="scpi-generic"
+)
 
 
 def example() -> dict[str, Any]:
@@ -90,22 +101,23 @@ def _readings(
     ids = []
     for offset, charge in enumerate(charges):
         capture = kw.get("capture_of", {}).get(offset, "auto")
+        t_s = 10.0 * (first_seq + offset)
+        settling = kw.get("settling", False)
+        integration_s = kw.get("integration_s", 6.0)
         reading_id = store.add_reading(
-            session_id,
-            set_id,
-            first_seq + offset,
-            10.0 * (first_seq + offset),
-            charge,
-            capture,
-            kw.get("settling", False),
-            "ok",
+            session_id, set_id, first_seq + offset, t_s, charge, capture, settling, "ok"
         )
-        store.add_event(
-            session_id,
-            OPERATOR if capture == "manual" else "daemon",
-            "reading_recorded",
-            {"reading_id": reading_id, "integration_s": kw.get("integration_s", 6.0)},
+        recorded = ReadingRecorded(
+            reading_id=reading_id,
+            set_id=set_id,
+            charge_nC=charge,
+            capture=capture,
+            settling=settling,
+            integration_s=integration_s,
+            armed_t_s=t_s - integration_s,
         )
+        actor = OPERATOR if capture == "manual" else "daemon"
+        store.add_event(session_id, actor, EventKind.READING_RECORDED, recorded)
         ids.append(reading_id)
     return ids
 
@@ -136,17 +148,7 @@ def record_example_session(
         replay_of=replay_of,
         actor=OPERATOR,
     )
-    store.add_event(
-        session_id,
-        "daemon",
-        "instrument_identified",
-        {
-            "manufacturer": "Bench",
-            "model": "SIM-MODEL-1",
-            "serial": "SIM-EM-0001",
-            "firmware": "1.4",
-        },
-    )
+    store.add_event(session_id, "daemon", EventKind.INSTRUMENT_IDENTIFIED, INSTRUMENT)
     env = data["environment"]
     store.add_environment(
         session_id, env["temperature_C"] - 0.2, env["pressure_kPa"], 1006.0, "hPa", 45.0, "operator"
@@ -166,13 +168,15 @@ def record_example_session(
     _readings(store, session_id, leakage, [leakage_nC], integration_s=LEAKAGE_DURATION_S)
     _accept(store, leakage)
 
-    store.add_event(session_id, "daemon", "bias_changed", {"volts": 300.0, "how": "remote"})
+    remote = BiasChanged(volts=300.0, how="remote")
+    store.add_event(session_id, "daemon", EventKind.BIAS_CHANGED, remote)
     routine = store.add_set(session_id, 1, "routine", "routine", 1, plan.routine_bias_V, 1)
     _readings(store, session_id, routine, [SETTLING_READING_nC * scale], settling=True)
     _readings(store, session_id, routine, [q * scale for q in readings["routine_nC"]], first_seq=2)
     _accept(store, routine)
 
-    store.add_event(session_id, OPERATOR, "bias_changed", {"volts": -300.0, "how": "by hand"})
+    by_hand = BiasChanged(volts=-300.0, how="by hand")
+    store.add_event(session_id, OPERATOR, EventKind.BIAS_CHANGED, by_hand)
     first_try = store.add_set(session_id, 2, "opposite", "opposite", -1, -plan.routine_bias_V, 1)
     _readings(store, session_id, first_try, [q * scale for q in SUPERSEDED_nC])
     store.set_set_status(first_try, "superseded", SUPERSEDE_REASON, actor=OPERATOR)

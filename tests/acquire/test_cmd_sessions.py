@@ -14,6 +14,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from recorded_session import record_example_session
 
@@ -83,7 +84,7 @@ def test_a_missing_station_database_points_to_the_demo_database(
 
 def test_reading_while_the_daemon_writes_changes_nothing(station: Path, capsys) -> None:
     with Store.open(station) as writer:
-        writer.add_event(2, "daemon", "note", {"why": "still measuring"})
+        writer.add_event(2, "daemon", EventKind.NOTE, {"text": "still measuring"})
         before = [len(writer.events(i)) for i in (1, 2, 3)]
         assert main(["sessions", "--db", str(station), "--json"]) == EXIT_OK
         assert main(["show", "2", "--db", str(station)]) == EXIT_OK

@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
-from chargebook.acquire.engine.engine import Command, ConfirmationRequired, Engine
+from chargebook.acquire.engine import driver_commands
+from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.plan import CaptureRule, Plan, SettlingRule, Step
 from chargebook.corrections.errors import InputError
@@ -152,7 +154,8 @@ def test_arming_waits_for_the_environment_and_for_the_manual_bias_step():
         engine.arm()
     engine.manual_done(note="switch at +300 V", actor="operator A")
     assert Method.STEP_ARM in engine.allowed()
-    events = [e for e in engine.store.events(engine.session_id) if e.kind == "manual_step_done"]
+    recorded = engine.store.events(engine.session_id)
+    events = [e for e in recorded if e.kind == EventKind.MANUAL_STEP_DONE]
     assert events[0].actor == "operator A" and events[0].detail()["by_hand"] is True
 
 
@@ -195,12 +198,12 @@ def test_pause_drops_the_reading_in_progress_and_resume_arms_again():
     engine.take_commands()
     engine.pause()
     assert engine.state is S.PAUSED and engine.reading is None
-    assert Command("stop") in engine.take_commands()
+    assert driver_commands.StopIntegration() in engine.take_commands()
     engine.resume()
     assert engine.state is S.SETTLING and engine.reading is not None
-    assert engine.take_commands()[-1] == Command("start")
+    assert engine.take_commands()[-1] == driver_commands.StartIntegration()
     kinds = [e.kind for e in engine.store.events(engine.session_id)]
-    assert "reading_dropped" in kinds
+    assert EventKind.READING_DROPPED in kinds
 
 
 def test_a_reading_dropped_by_a_pause_is_said_until_a_reading_is_recorded():
@@ -296,10 +299,10 @@ def test_remote_bias_and_the_bench_turn_prompts_into_commands():
     assert engine.pending_manual is None
     engine.arm()
     assert engine.take_commands() == [
-        Command("set_bias", 300.0),
-        Command("zero"),
-        Command("start"),
-        Command("beam", 100.0),
+        driver_commands.SetBias(bias_V=300.0),
+        driver_commands.Zero(),
+        driver_commands.StartIntegration(),
+        driver_commands.DeliverBeam(monitor_units=100.0),
     ]
 
 
@@ -307,7 +310,7 @@ def test_manual_bias_confirmed_with_a_bench_turns_the_simulated_switch():
     engine, _ = make_engine(bench=True)
     started(engine)
     engine.manual_done()
-    assert engine.take_commands() == [Command("bench_bias", 300.0)]
+    assert engine.take_commands() == [driver_commands.TurnBiasSwitch(bias_V=300.0)]
 
 
 def test_settling_until_stable_keeps_taking_settling_readings():
@@ -401,7 +404,7 @@ def test_a_refused_command_interrupts_the_set_but_it_can_go_on_at_once():
     engine.arm()
     assert engine.snapshot()["instrument"]["message"] is None
     kinds = [e.kind for e in engine.store.events(engine.session_id)]
-    assert "instrument_fault" in kinds
+    assert EventKind.INSTRUMENT_FAULT in kinds
 
 
 def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():

@@ -17,6 +17,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import EngineState
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.plan import Plan, SettlingRule, Step
 from chargebook.drivers_generic.interface import Capability
@@ -136,7 +137,7 @@ def test_a_tick_that_ends_a_settling_wait_is_one_commit_and_other_ticks_none(
     one_commit(engine, engine.tick)
     assert engine.reading is not None and engine.state is S.COLLECTING
     last = engine.store.events(engine.session_id)[-1]
-    assert (last.kind, last.detail()["action"]) == ("state_changed", "settling wait over")
+    assert (last.kind, last.detail()["action"]) == (EventKind.STATE_CHANGED, "settling wait over")
     engine.store.close()
 
 
@@ -164,7 +165,7 @@ def test_a_redo_that_fails_part_way_leaves_neither_its_rows_nor_its_state(
         deliver(engine, clock, charge)
     events_before = len(engine.store.events(session_id))
     # The set's status is written first, then the state_changed event, which SQLite refuses.
-    _fail_on_event(engine, "state_changed")
+    _fail_on_event(engine, EventKind.STATE_CHANGED)
     with pytest.raises(sqlite3.DatabaseError, match="disk refused"):
         engine.redo("spike on reading 3", actor=OPERATOR)
     assert [s.status for s in engine.store.sets(session_id)] == ["reviewing"]
@@ -187,7 +188,7 @@ def test_a_reading_that_fails_to_record_is_not_half_kept_and_the_next_sample_tak
     engine.arm()
     deliver(engine, clock, 20.0)
     deliver(engine, clock, 20.0)
-    _fail_on_event(engine, "set_status")  # the third reading completes the set
+    _fail_on_event(engine, EventKind.SET_STATUS)  # the third reading completes the set
     reading = engine.reading
     with pytest.raises(sqlite3.DatabaseError, match="disk refused"):
         deliver(engine, clock, 20.0)

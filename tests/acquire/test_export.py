@@ -14,10 +14,12 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.protocol import CAUTION
+from chargebook.acquire.record.events import EventKind, InstrumentIdentified
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.reports.data import load_record
 from chargebook.acquire.reports.export import CSV_COLUMNS, JSON_KEYS, to_csv, to_json
 from recorded_session import (
+    INSTRUMENT,
     SUPERSEDE_REASON,
     SETTLING_READING_nC,
     example,
@@ -128,7 +130,7 @@ def test_json_session_sets_and_readings_match_the_store(reader: Store) -> None:
     assert [e["kind"] for e in data["events"]] == [e.kind for e in reader.events(1)]
     assert data["events"][0]["detail"] == reader.events(1)[0].detail()
     assert [e["pressure_unit"] for e in data["environment"]] == ["hPa", "hPa"]
-    assert data["instrument"]["serial"] == "SIM-EM-0001"
+    assert data["instrument"] == INSTRUMENT
     assert data["traffic_lines"] == 2 and "traffic" not in data
 
 
@@ -151,17 +153,25 @@ def test_json_with_traffic_keeps_the_raw_lines(reader: Store) -> None:
     ]
 
 
+IDENTIFIED = EventKind.INSTRUMENT_IDENTIFIED
+
+
+def identified(identity: str) -> InstrumentIdentified:
+    """Return an instrument's identification as the engine records it."""
+    return InstrumentIdentified(identity=identity, profile="scpi-generic")
+
+
 def test_an_identity_taken_before_the_session_opened_is_reported(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "old, SIM-EM-1000"})
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "sim, SIM-EM-0001"})
+        store.add_event(None, "daemon", IDENTIFIED, identified("old, SIM-EM-1000"))
+        store.add_event(None, "daemon", IDENTIFIED, identified("sim, SIM-EM-0001"))
         session_id = store.create_session({"beam": "6 MV"}, {"steps": []}, "trs398", "6 MV")
         store.set_session_status(session_id, "finished")
-        store.add_event(None, "daemon", "instrument_identified", {"identity": "later, SIM-EM-3000"})
+        store.add_event(None, "daemon", IDENTIFIED, identified("later, SIM-EM-3000"))
     with Store.open(path, read_only=True) as store:
         data = _strict(to_json(load_record(store, session_id)))
-    assert data["instrument"] == {"identity": "sim, SIM-EM-0001"}
+    assert data["instrument"] == identified("sim, SIM-EM-0001")
 
 
 def test_a_session_without_results_exports_what_it_has(tmp_path: Path) -> None:

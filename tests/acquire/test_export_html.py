@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.protocol import CAUTION, by_severity
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.review import record_review
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.reports.data import load_record
@@ -152,7 +153,7 @@ def test_environment_instrument_and_audit_are_shown(report) -> None:
         ["21.80", "100.600", "1006 hPa"],
     ]
     instrument = parsed.rows[("Session", "instrument")][1]
-    assert "serial SIM-EM-0001" in instrument and "model SIM-MODEL-1" in instrument
+    assert instrument == "identity Bench, SIM-MODEL-1, SIM-EM-0001, 1.4, profile scpi-generic"
     audit = [row for (s, _), row in parsed.rows.items() if s.startswith("Audit")]
     # In words, steps numbered from 1 as the console numbers them: the opposite-polarity set
     # is the plan's third step (step_index 2).
@@ -263,7 +264,8 @@ def test_a_recorded_review_fills_the_review_block_and_the_result(tmp_path: Path)
         record_review(store, session_id, "approve", "reviewer B", "k_s checked by hand")
     with Store.open(path, read_only=True) as store:
         record = load_record(store, session_id)
-        reviewed_at = next(e for e in record.events if e.kind == "session_reviewed").recorded_at
+        reviewed = next(e for e in record.events if e.kind == EventKind.SESSION_REVIEWED)
+        reviewed_at = reviewed.recorded_at
         parsed = Report()
         parsed.feed(to_html(record))
     stamp = reviewed_at[:19].replace("T", " ") + " UTC"

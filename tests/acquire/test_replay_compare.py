@@ -10,6 +10,7 @@ import math
 import sqlite3
 
 import pytest
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import NotFound, Store
 from chargebook.acquire.replay.compare import (
     UNEXPLAINED,
@@ -58,7 +59,7 @@ def test_the_copy_links_every_row_and_event_to_the_new_session(station: Store):
         assert detail.get("set_id", min(new_sets)) in new_sets
         assert detail.get("reading_id", min(new_readings)) in new_readings
         assert detail.get("environment_id", min(new_environment)) in new_environment
-    created = next(e for e in station.events(replayed) if e.kind == "session_created")
+    created = next(e for e in station.events(replayed) if e.kind == EventKind.SESSION_CREATED)
     assert created.detail()["replay_of"] == original
     assert [t.line for t in station.traffic(replayed)] == [t.line for t in scratch.traffic(source)]
 

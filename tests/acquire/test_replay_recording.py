@@ -6,9 +6,12 @@ where each event falls among the traffic lines is known exactly.
 
 from __future__ import annotations
 
+import json
 from datetime import UTC, datetime, timedelta
 
 import pytest
+from chargebook.acquire.record import events as ev
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.recording import (
     NotReplayable,
@@ -41,8 +44,32 @@ def new_session(store: Store) -> int:
 
 
 def state_changed(store: Store, session_id: int, action: str, actor: str = "operator A", **more):
-    detail = {"from": "a", "to": "b", "action": action, **more}
-    store.add_event(session_id, actor, "state_changed", detail)
+    detail = {"from": "waiting_for_operator", "to": "collecting", "action": action, **more}
+    store.add_event(session_id, actor, EventKind.STATE_CHANGED, detail)
+
+
+def reading_recorded(
+    store: Store,
+    session_id: int,
+    reading_id: int,
+    set_id: int,
+    *,
+    capture: str = "auto",
+    actor: str = "daemon",
+    t_s: float = 10.0,
+    integration_s: float = 0.5,
+) -> None:
+    """Record a reading's event in the shape the engine writes it."""
+    detail = ev.ReadingRecorded(
+        reading_id=reading_id,
+        set_id=set_id,
+        charge_nC=7.5,
+        capture=capture,
+        settling=False,
+        integration_s=integration_s,
+        armed_t_s=t_s - integration_s,
+    )
+    store.add_event(session_id, actor, EventKind.READING_RECORDED, detail)
 
 
 def exchange(store: Store, session_id: int | None, t_s: float, command: bytes, answer: bytes):
@@ -53,19 +80,21 @@ def exchange(store: Store, session_id: int | None, t_s: float, command: bytes, a
 def test_each_operator_action_is_placed_after_the_lines_written_before_it(store: Store):
     session_id = new_session(store)
     state_changed(store, session_id, "session.start")  # the start is not a replayed input
-    store.add_event(
-        session_id,
-        "operator A",
-        "environment_entered",
-        {"temperature_C": 21.0, "pressure_kPa": 101.0},
+    entry = ev.EnvironmentEntered(
+        temperature_C=21.0,
+        pressure_kPa=101.0,
+        pressure_entered=101.0,
+        pressure_unit="kPa",
+        humidity_pct=None,
+        environment_id=1,
+        source="operator",
     )
+    store.add_event(session_id, "operator A", EventKind.ENVIRONMENT_ENTERED, entry)
     state_changed(store, session_id, "step.arm")
     exchange(store, session_id, 10.0, b"BIAS +300\r\n", b"OK\r\n")
     exchange(store, session_id, 10.1, b"Q?\r\n", b"Q +0.0001 nC A\r\n")
-    store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "capture": "auto"})
-    store.add_event(
-        session_id, "operator A", "reading_recorded", {"reading_id": 2, "capture": "manual"}
-    )
+    reading_recorded(store, session_id, 1, 1)
+    reading_recorded(store, session_id, 2, 1, capture="manual", actor="operator A")
     exchange(store, session_id, 10.2, b"HOLD\r\n", b"OK\r\n")
     state_changed(store, session_id, "set.redo", reason="the phantom moved")
     store.set_session_status(session_id, "aborted", "stopped for the day")
@@ -83,14 +112,15 @@ def test_each_operator_action_is_placed_after_the_lines_written_before_it(store:
 
 def test_the_instrument_coming_back_is_an_input_only_after_it_was_lost(store: Store):
     session_id = new_session(store)
-    identity = {"identity": "chargebook-sim, QUERY-PLAIN, SIM-EM-0001, 0.1.0"}
-    store.add_event(session_id, "daemon", "instrument_back", identity)  # first connection
+    identity = ev.InstrumentBack(identity="chargebook-sim, QUERY-PLAIN, SIM-EM-0001, 0.1.0")
+    store.add_event(session_id, "daemon", EventKind.INSTRUMENT_BACK, identity)  # first connection
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    store.add_event(session_id, "daemon", "instrument_lost", {"message": "cable pulled"})
+    lost = ev.InstrumentMessage(message="cable pulled")
+    store.add_event(session_id, "daemon", EventKind.INSTRUMENT_LOST, lost)
     exchange(
         store, session_id, 5.0, b"ID?\r\n", b"chargebook-sim;QUERY-PLAIN;SIM-EM-0001;0.1.0\r\n"
     )
-    store.add_event(session_id, "daemon", "instrument_back", identity)
+    store.add_event(session_id, "daemon", EventKind.INSTRUMENT_BACK, identity)
     store.set_session_status(session_id, "finished")
     kinds = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
     assert kinds == [(2, "instrument_lost"), (4, "instrument_back")]
@@ -116,10 +146,18 @@ def test_arming_times_are_read_from_the_readings_events(store: Store):
     set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
     first = store.add_reading(session_id, set_id, 1, 20.5, 19.6, "auto", False, "ok")
     second = store.add_reading(session_id, set_id, 2, 31.0, 19.6, "auto", False, "ok")
-    detail = {"reading_id": first, "integration_s": 0.5, "armed_t_s": 20.0}
-    store.add_event(session_id, "daemon", "reading_recorded", detail)
-    store.add_event(
-        session_id, "daemon", "reading_recorded", {"reading_id": second, "integration_s": 0.75}
+    reading_recorded(store, session_id, first, set_id, t_s=20.5, integration_s=0.5)
+    # An event as an older daemon wrote it, without the arming time: copied in as stored.
+    older = {"reading_id": second, "integration_s": 0.75}
+    store.append_row(
+        "events",
+        {
+            "session_id": session_id,
+            "recorded_at": store.stamp(),
+            "actor": "daemon",
+            "kind": EventKind.READING_RECORDED.value,
+            "detail_json": json.dumps(older),
+        },
     )
     store.set_session_status(session_id, "finished")
     recording = load_recording(store, session_id)
@@ -130,8 +168,8 @@ def test_arming_times_are_read_from_the_readings_events(store: Store):
 
 def test_the_profile_and_time_scale_come_from_the_acquisition_event(store: Store):
     session_id = new_session(store)
-    detail = {"profile": "push-exponent", "time_scale": 0.02}
-    store.add_event(session_id, "daemon", "acquisition", detail)
+    detail = ev.Acquisition(profile="push-exponent", time_scale=0.02)
+    store.add_event(session_id, "daemon", EventKind.ACQUISITION, detail)
     store.set_session_status(session_id, "finished")
     recording = load_recording(store, session_id)
     assert (recording.profile, recording.time_scale) == ("push-exponent", 0.02)
@@ -148,7 +186,7 @@ def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
     set_id = store.add_set(session_id, 1, "routine", "routine", 1, 300.0, 1)
     state_changed(store, session_id, "step.arm", set_id=set_id)
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
-    store.add_event(session_id, "daemon", "reading_recorded", {"reading_id": 1, "set_id": set_id})
+    reading_recorded(store, session_id, 1, set_id)
     exchange(store, session_id, 2.0, b"Q?\r\n", b"Q +19.6000 nC A\r\n")
     store.set_set_status(set_id, "reviewing")
     store.set_set_status(set_id, "accepted")
@@ -168,8 +206,9 @@ def test_a_capture_by_hand_is_placed_right_after_the_sample_it_took(store: Store
     exchange(store, session_id, 10.15, b"Q?\r\n", b"Q +9.9000 nC A\r\n")
     received_t_s = 10.1 + 0.001  # the first sample's line, as exchange() writes it
     reading = store.add_reading(session_id, set_id, 1, received_t_s, 7.5, "manual", False, "ok")
-    detail = {"reading_id": reading, "capture": "manual", "set_id": set_id}
-    store.add_event(session_id, "operator A", "reading_recorded", detail)
+    reading_recorded(
+        store, session_id, reading, set_id, capture="manual", actor="operator A", t_s=received_t_s
+    )
     store.set_session_status(session_id, "aborted", "phantom moved")
     placed = [(i.position, i.kind) for i in load_recording(store, session_id).inputs]
     assert placed == [(0, "arm"), (2, "capture")]

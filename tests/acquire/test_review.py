@@ -16,7 +16,8 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
-from chargebook.acquire.record.review import REVIEW_EVENT, record_review
+from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.review import record_review
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all
@@ -58,7 +59,7 @@ def test_an_approval_is_an_audit_event_with_who_and_when(station: Path, capsys) 
     with Store.open(station, read_only=True) as store:
         event = store.events(1)[-1]
         reports = verify_all(store)
-    assert (event.kind, event.actor) == (REVIEW_EVENT, REVIEWER)
+    assert (event.kind, event.actor) == (EventKind.SESSION_REVIEWED, REVIEWER)
     assert event.account == getpass.getuser()  # the Unix account that asked, beside the name
     assert event.detail()["status"] == "approved"
     assert event.detail()["measured_by"] == OPERATOR
@@ -121,7 +122,7 @@ def test_a_direct_review_holds_the_station_lock_while_it_writes(station: Path) -
         no_daemon = str(station.parent / "no.sock")
         assert _review(station, 1, "approve", REVIEWER, "--socket", no_daemon) == EXIT_FAILURE
     with Store.open(station, read_only=True) as store:
-        assert all(event.kind != REVIEW_EVENT for event in store.events(1))
+        assert all(event.kind != EventKind.SESSION_REVIEWED for event in store.events(1))
 
 
 def test_sessions_and_show_say_unreviewed_approved_or_rejected(station: Path, capsys) -> None:

@@ -23,6 +23,7 @@ from chargebook.acquire.commands.cli import main
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.compare import stored_results
 from chargebook.acquire.reports.history import load_history
@@ -186,7 +187,7 @@ def test_leakage_is_subtracted_only_when_chosen_and_the_choice_is_audited(
         audited = [e.kind for e in store.events(chosen)]
         a = evaluate_session(store, kept).evaluation
         b = evaluate_session(store, taken).evaluation
-    assert "leakage_subtraction_chosen" in audited
+    assert EventKind.LEAKAGE_SUBTRACTION_CHOSEN in audited
     assert not a.leakage_subtracted and b.leakage_subtracted
     # The leakage set's 60 s charge scaled to a 6 s routine reading gives back the example's
     # leakage per reading (common practice: leakage current times integration time).

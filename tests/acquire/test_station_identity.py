@@ -17,6 +17,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_OK
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import MIGRATIONS, migrate, session_uuid_at_migration
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all, verify_session
@@ -112,7 +113,8 @@ def test_a_station_name_is_configured_and_its_change_audited(tmp_path: Path) -> 
         named = store.station()
         events = store.events(None)
     assert (named.uuid, named.name) == (first.uuid, "Physics bench 2")
-    assert [(e.kind, e.detail()["to"]) for e in events] == [("station_named", "Physics bench 2")]
+    named_events = [(EventKind.STATION_NAMED, "Physics bench 2")]
+    assert [(e.kind, e.detail()["to"]) for e in events] == named_events
 
 
 def test_every_export_carries_the_station_and_session_uuids(tmp_path: Path, capsys) -> None:

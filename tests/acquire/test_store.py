@@ -15,6 +15,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
+from chargebook.acquire.record.events import EventKind, InstrumentIdentified
 from chargebook.acquire.record.migrations import MIGRATIONS, SCHEMA_VERSION, migrate, schema_version
 from chargebook.acquire.record.store import (
     NotFound,
@@ -50,6 +51,12 @@ def store() -> Store:
     s = Store.memory(now=TickingClock())
     yield s
     s.close()
+
+
+#: An instrument's identification, as the engine records it.
+IDENTIFIED = InstrumentIdentified(
+    identity="Bench, SIM-MODEL-1, SIM-EM-0001, 1.4", profile="scpi-generic"
+)
 
 
 def _session_with_set(store: Store) -> tuple[int, int]:
@@ -145,7 +152,7 @@ def test_read_only_open_needs_an_existing_file_and_cannot_write(tmp_path: Path) 
         with Store.open(path, read_only=True) as reader:
             assert reader.session(session_id).beam == "6 MV"
             with pytest.raises(sqlite3.OperationalError, match="readonly"):
-                reader.add_event(session_id, "someone", "note", {})
+                reader.add_event(session_id, "someone", EventKind.NOTE, {"text": "read only"})
         assert len(writer.events(session_id)) == 1
 
 
@@ -180,7 +187,8 @@ def test_rows_read_back_as_written(store: Store) -> None:
         session_id, set_id, 0, 12.5, 20.512, "pushed", True, "ok", traffic_id
     )
     env_id = store.add_environment(session_id, 21.3, 101.2, 1012.0, "hPa", 45.0, "operator")
-    event_id = store.add_event(session_id, "operator F", "note", {"why": "chamber swapped"})
+    note = {"text": "chamber swapped"}
+    event_id = store.add_event(session_id, "operator F", EventKind.NOTE, note)
 
     session = store.session(session_id)
     assert (session.status, session.convention, session.beam) == ("open", "trs398", "6 MV")
@@ -212,9 +220,9 @@ def test_rows_read_back_as_written(store: Store) -> None:
     assert env.humidity_pct == 45.0 and env.source == "operator"
 
     events = store.events(session_id)
-    assert [e.kind for e in events] == ["session_created", "note"]
+    assert [e.kind for e in events] == [EventKind.SESSION_CREATED, "note"]
     assert events[-1].id == event_id and events[-1].actor == "operator F"
-    assert events[-1].detail() == {"why": "chamber swapped"}
+    assert events[-1].detail() == {"text": "chamber swapped"}
 
     (line,) = store.traffic(session_id)
     assert line.line == b"Q=+20.512E-9 C\r\n" and line.direction == "rx" and line.t_s == 12.5
@@ -233,10 +241,10 @@ def test_readings_filter_by_set_and_keep_their_order(store: Store) -> None:
 
 def test_traffic_and_events_outside_a_session(store: Store) -> None:
     store.add_traffic(None, 0.1, "tx", b"*IDN?\n")
-    store.add_event(None, "daemon", "instrument_identified", {"serial": "SIM-EM-0001"})
+    store.add_event(None, "daemon", EventKind.INSTRUMENT_IDENTIFIED, IDENTIFIED)
     assert [t.line for t in store.traffic(None)] == [b"*IDN?\n"]
     assert store.traffic_count(None) == 1
-    assert [e.detail() for e in store.events(None)] == [{"serial": "SIM-EM-0001"}]
+    assert [e.detail() for e in store.events(None)] == [IDENTIFIED]
 
 
 def test_open_session_is_the_newest_open_one(store: Store) -> None:
@@ -281,13 +289,13 @@ def test_session_status_changes_are_written_as_events(store: Store) -> None:
     assert store.session(session_id).closed_at is None
     store.set_session_status(session_id, "aborted", "beam fault")
     closed, aborted = interrupted.closed_at, store.session(session_id).closed_at
-    changes = [e.detail() for e in store.events(session_id) if e.kind == "session_status"]
+    changes = [e.detail() for e in store.events(session_id) if e.kind == EventKind.SESSION_STATUS]
     assert changes == [
         {"from": "open", "to": "interrupted", "reason": "daemon restarted", "closed_at": closed},
         {"from": "interrupted", "to": "open", "reason": "resumed", "closed_at": None},
         {"from": "open", "to": "aborted", "reason": "beam fault", "closed_at": aborted},
     ]
-    actors = [e.actor for e in store.events(session_id) if e.kind == "session_status"]
+    actors = [e.actor for e in store.events(session_id) if e.kind == EventKind.SESSION_STATUS]
     assert actors == ["daemon", "reviewer B", "daemon"]
 
 
@@ -380,8 +388,11 @@ def test_append_only_tables_refuse_update_and_delete(store: Store, table: str) -
         (lambda s, ses, set_id: s.set_session_status(ses, "closed"), "status"),
         (lambda s, ses, set_id: s.add_traffic(ses, 1.0, "in", b"x"), "direction"),
         (lambda s, ses, set_id: s.add_traffic(ses, 1.0, "rx", "text"), "line"),
-        (lambda s, ses, set_id: s.add_event(ses, "", "note", {}), "actor"),
-        (lambda s, ses, set_id: s.add_event(ses, "me", "note", {"x": float("inf")}), "detail"),
+        (lambda s, ses, set_id: s.add_event(ses, "", EventKind.NOTE, {"text": "x"}), "actor"),
+        (
+            lambda s, ses, set_id: s.add_event(ses, "me", EventKind.NOTE, {"text": float("inf")}),
+            "detail",
+        ),
         (
             lambda s, ses, set_id: s.add_environment(ses, 20.0, None, 1.0, "kPa", None, "op"),
             "pressure_kPa",
@@ -559,7 +570,7 @@ def test_a_kept_line_is_told_its_row_id_when_written_and_none_when_its_commit_fa
     store.keep_traffic((session_id, 2.0, store.stamp(), "tx", b"Q?\n"))  # nobody asks its id
     store.keep_traffic((session_id, 2.0, store.stamp(), "rx", b"20.2\n"), told["second"].append)
     with pytest.raises(InputError), store.atomic():  # a transaction that fails after the write
-        store.add_event(session_id, "daemon", "note", {"bad": float("nan")})
+        store.add_event(session_id, "daemon", EventKind.NOTE, {"text": float("nan")})
     assert told == {"first": [told["first"][0], None], "second": [told["second"][0], None]}
     store.commit_traffic()
     rows = {row.id: row.line for row in store.traffic(session_id)}

@@ -16,6 +16,7 @@ import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 from chargebook.acquire.record import chain
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import migrate
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all, verify_session
@@ -236,7 +237,7 @@ def test_an_old_file_is_chained_in_stamp_order_by_the_migration_and_verifies(
         ).fetchall()
         assert order == [("events", 1, 2), ("traffic", 1, 3), ("events", 2, 4)]  # session: 1
         assert verify_session(store, 1).verified
-        store.add_event(1, "operator A", "note", {"text": "after the migration"})
+        store.add_event(1, "operator A", EventKind.NOTE, {"text": "after the migration"})
         report = verify_session(store, 1)
     assert report.verified and report.rows == 5
 
@@ -247,7 +248,7 @@ def test_a_line_kept_before_an_event_comes_before_it_in_the_chain(tmp_path: Path
     with Store.open(tmp_path / "station.sqlite") as store:
         session_id = store.create_session({}, {}, "trs398", "6 MV")
         store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"))
-        event_id = store.add_event(session_id, "operator A", "note", {})
+        event_id = store.add_event(session_id, "operator A", EventKind.NOTE, {"text": "checked"})
         store.keep_traffic((session_id, 2.0, store.stamp(), "rx", b"20.2\n"))
         assert store.commit_traffic() == 1
         rows = store.db.execute(
@@ -294,9 +295,9 @@ def test_kept_lines_survive_a_transaction_that_fails_and_go_with_the_next(tmp_pa
         session_id = store.create_session({}, {}, "trs398", "6 MV")
         store.keep_traffic((session_id, 1.0, store.stamp(), "rx", b"20.1\n"))
         with pytest.raises(KeyError):  # NotFound, after the kept line was written: rolled back
-            store.add_event(999, "operator A", "note", {})
+            store.add_event(999, "operator A", EventKind.NOTE, {"text": "checked"})
         assert store.traffic_count(session_id) == 0
-        store.add_event(session_id, "operator A", "note", {})
+        store.add_event(session_id, "operator A", EventKind.NOTE, {"text": "checked"})
         assert [row.line for row in store.traffic(session_id)] == [b"20.1\n"]
         assert store.commit_traffic() == 0
         assert verify_session(store, session_id).verified

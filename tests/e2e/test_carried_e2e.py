@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.client import DaemonError
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
@@ -45,7 +46,7 @@ async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit
     assert f"session {full_id} of {date}, full calibration" in results["factor_sources"]["k_pol"]
     assert results["carried"]["k_s"]["date"] == date
     assert copied["from_session"] == full_id and copied["value"] == full["k_pol"]
-    assert "carried_factors" in events
+    assert EventKind.CARRIED_FACTORS in events
     # The Type A uncertainty of the full session's factor is carried with it (Type B here).
     assert results["carried"]["k_pol"]["u_pct"] == full["factor_u_rel_pct"]["k_pol"]
     # TRS-398: D = M · k_TP · k_h · k_pol · k_s · k_elec · N_D,w · k_Q (k_h = k_elec = 1 here).

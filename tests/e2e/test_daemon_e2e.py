@@ -19,6 +19,7 @@ import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonError
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, environment_from_bench
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
@@ -181,9 +182,9 @@ async def test_each_event_a_request_causes_names_the_unix_account_beside_the_ope
     account = pwd.getpwuid(os.getuid()).pw_name
     with stored(daemon.db) as store:
         events = store.events(snapshot["session"]["id"])
-        (started,) = [e for e in store.events(None) if e.kind == "daemon_started"]
+        (started,) = [e for e in store.events(None) if e.kind == EventKind.DAEMON_STARTED]
     by_client = [e for e in events if e.actor == "claimed name"]
-    assert {e.kind for e in by_client} >= {"session_created", "acquisition"}
+    assert {e.kind for e in by_client} >= {EventKind.SESSION_CREATED, EventKind.ACQUISITION}
     assert all(e.account == account for e in by_client)
     assert started.account is None  # no client asked for it
 
@@ -205,14 +206,14 @@ async def test_the_audit_tells_a_clean_stop_from_a_crash(daemon, simulator, meta
         lifecycle = [
             (e.kind, e.detail())
             for e in store.events(session_id)
-            if e.kind in ("daemon_stopped", "daemon_restarted")
+            if e.kind in (EventKind.DAEMON_STOPPED, EventKind.DAEMON_RESTARTED)
         ]
-        (started,) = [e.detail() for e in store.events(None) if e.kind == "daemon_started"]
+        (started,) = [e.detail() for e in store.events(None) if e.kind == EventKind.DAEMON_STARTED]
     assert started["pid"] == first_pid
     assert lifecycle == [
-        ("daemon_stopped", {"pid": first_pid, "reason": "SIGTERM"}),
+        (EventKind.DAEMON_STOPPED, {"pid": first_pid, "reason": "SIGTERM"}),
         (
-            "daemon_restarted",
+            EventKind.DAEMON_RESTARTED,
             {
                 "pid": second_pid,
                 "previous_run": "stopped cleanly",
@@ -221,7 +222,7 @@ async def test_the_audit_tells_a_clean_stop_from_a_crash(daemon, simulator, meta
             },
         ),
         (
-            "daemon_restarted",
+            EventKind.DAEMON_RESTARTED,
             {
                 "pid": daemon.pid,
                 "previous_run": "crashed",
@@ -251,7 +252,7 @@ async def test_the_instrument_disconnected_mid_set_then_back(daemon, simulator, 
     await client.close()
     with stored(daemon.db) as store:
         kinds = [e.kind for e in store.events(final["session"]["id"])]
-        assert "instrument_lost" in kinds and "instrument_back" in kinds
+        assert EventKind.INSTRUMENT_LOST in kinds and EventKind.INSTRUMENT_BACK in kinds
         assert kept <= {r.id for r in store.readings(final["session"]["id"])}
 
 

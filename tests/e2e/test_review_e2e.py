@@ -15,7 +15,7 @@ import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonError
 from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
-from chargebook.acquire.record.review import REVIEW_EVENT
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from e2e_support import chargebook_command
 
@@ -66,7 +66,8 @@ async def test_a_review_goes_through_the_daemon_with_the_reviewer_and_the_accoun
     await client.close()
     with Store.open(daemon.db, read_only=True) as store:
         event = store.events(session_id)[-1]
-    assert (event.kind, event.actor, event.account) == (REVIEW_EVENT, REVIEWER, getpass.getuser())
+    expected = (EventKind.SESSION_REVIEWED, REVIEWER, getpass.getuser())
+    assert (event.kind, event.actor, event.account) == expected
     verified = subprocess.run(
         chargebook_command("verify", "--db", str(daemon.db)),
         capture_output=True, text=True, timeout=60, check=False,
@@ -119,4 +120,4 @@ def test_serve_names_the_station_in_its_file(simulator, tmp_path):
         daemon.stop()
     with Store.open(db, read_only=True) as store:
         assert store.station().name == "Physics bench 2"
-        assert [e.kind for e in store.events(None)].count("station_named") == 1
+        assert [e.kind for e in store.events(None)].count(EventKind.STATION_NAMED) == 1

@@ -1,10 +1,10 @@
 """What the fault runs share: a station whose sessions run by themselves, and what they saw.
 
 The daemon runs on the simulated electrometer (query-plain dialect) with its bench attached, the
-end-to-end tests' quick plan and time scale, so a whole session takes a few seconds. The
-automatic operator (``acquire.operator_auto``) takes sessions through, one after another, as a
-background task; a :class:`Witness` subscribed beside it notes every reading a client was told
-of, and the session that was open, so that a run can check them against the database.
+end-to-end tests' quick plan and time scale, so a whole session takes a few seconds. The automatic
+operator (``acquire.commands.operator_auto``) takes sessions through, one after another, as a
+background task; a :class:`Witness` subscribed beside it notes every reading a client was told of,
+and the session that was open, so that a run can check them against the database.
 """
 
 from __future__ import annotations

@@ -13,6 +13,7 @@ import json
 import subprocess
 
 import pytest
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.tui.app import ConsoleApp
 from chargebook.tui.screens.dialogs import ConfirmScreen, ReasonScreen
@@ -307,6 +308,7 @@ async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_req
         session_id = app.snapshot["session"]["id"]
     with Store.open(daemon.db, read_only=True) as store:
         events = store.events(session_id)
-    by_console = [e for e in events if e.kind in ("session_created", "environment_entered")]
+    by_console_kinds = (EventKind.SESSION_CREATED, EventKind.ENVIRONMENT_ENTERED)
+    by_console = [e for e in events if e.kind in by_console_kinds]
     assert {e.actor for e in by_console} == {metadata["operator"]}
     assert {e.account for e in by_console} == {getpass.getuser()}
