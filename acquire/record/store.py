@@ -570,9 +570,9 @@ class Store:
             self._tell_committed_events()
 
     def remember_rows(self) -> None:
-        """Keep each session's sets and readings in memory from now on: :meth:`sets` and
-        :meth:`readings` of a session then read only the rows new or changed since they last
-        did, so their cost does not grow with the session.
+        """Keep a session's sets and readings in memory from now on (of the session last read:
+        the open one): :meth:`sets` and :meth:`readings` of it then read only the rows new or
+        changed since they last did, so their cost does not grow with the session.
 
         Only for the one writer of the file (the daemon, which holds the station lock): the
         changes it knows of are its own writes (a set's status through :meth:`set_set_status`);
@@ -589,6 +589,8 @@ class Store:
     def _known_rows(self, session_id: int) -> _KnownRows:
         """Return the session's rows as kept, brought up to date (lock held)."""
         assert self._known is not None
+        if session_id not in self._known:
+            self._known.clear()  # one session at a time (the open one): memory stays bounded
         known = self._known.setdefault(session_id, _KnownRows())
         changed = [
             *self._select(
