@@ -561,6 +561,8 @@ class Delta(TypedDict):
     base_seq: int
     changed: dict[str, Any]  # the top-level Snapshot keys whose value changed, new values
     sets: list[SetInfo]  # sets new or changed since the base, whole, in the snapshot's order
+    #: The current set is this one of the sets sent (sent once, not again as ``current_set``).
+    current_set_id: NotRequired[int]
 
 
 class DeltaGap(ValueError):
@@ -572,7 +574,8 @@ def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
 
     Sets are compared one by one (by position, their ids checked): only those new or changed
     are sent. When ``new`` does not extend ``old``'s sets (another session), ``sets`` is sent
-    whole among ``changed``.
+    whole among ``changed``. The current set, when it is one of the sets sent, is named by its
+    id (``current_set_id``) instead of being sent twice.
     """
     changed = {
         key: value
@@ -592,7 +595,15 @@ def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
             for index, entry in enumerate(new_sets)
             if index >= len(old_sets) or old_sets[index] != entry
         ]
-    return {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": sets}
+    delta: Delta = {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": sets}
+    current = changed.get("current_set")
+    sent = changed.get("sets", sets)
+    if current is not None and any(
+        entry["id"] == current["id"] and entry == current for entry in sent
+    ):
+        del changed["current_set"]
+        delta["current_set_id"] = current["id"]
+    return delta
 
 
 def apply_delta(snapshot: Mapping[str, Any], delta: Mapping[str, Any]) -> dict[str, Any]:
@@ -617,6 +628,9 @@ def apply_delta(snapshot: Mapping[str, Any], delta: Mapping[str, Any]) -> dict[s
             else:
                 sets[place] = entry
         result["sets"] = sets
+    if "current_set_id" in delta:
+        wanted = delta["current_set_id"]
+        result["current_set"] = next(s for s in reversed(result["sets"]) if s["id"] == wanted)
     return result
 
 

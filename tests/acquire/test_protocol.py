@@ -111,6 +111,21 @@ def test_a_delta_carries_only_what_changed_and_rebuilds_the_next_snapshot():
     assert rebuilt["results"] is old["results"]
 
 
+def test_the_current_set_is_sent_once_and_is_the_very_set_among_the_sets():
+    # invented readings, for the shape of the message only
+    sets = [_set(i, "superseded", (20.01, 20.02)) for i in range(1, 4)]
+    old = {**_snapshot(7, [*sets, _set(4, "collecting", (20.03,))]), "current_set": None}
+    old["current_set"] = old["sets"][-1]
+    grown = _set(4, "collecting", (20.03, 20.04))
+    new = {**_snapshot(8, [*sets, grown]), "current_set": grown}
+    delta = protocol.snapshot_delta(old, new)
+    assert "current_set" not in delta["changed"] and delta["current_set_id"] == 4
+    assert protocol.encode_from_daemon(delta).count(b"20.04") == 1
+    rebuilt = protocol.apply_delta(old, json.loads(json.dumps(delta)))
+    assert rebuilt == new
+    assert rebuilt["current_set"] is rebuilt["sets"][-1]
+
+
 def test_a_delta_of_another_session_sends_its_sets_whole_and_a_missed_delta_is_named():
     old = _snapshot(3, [_set(1, "accepted", (20.0,)), _set(2, "reviewing", (20.1,))])
     new = _snapshot(4, [_set(3, "collecting", ())], state="waiting_for_operator")
