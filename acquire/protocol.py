@@ -147,6 +147,11 @@ class Method(enum.StrEnum):
     SESSION_ABORT = "session.abort"
     SESSION_CLOSE = "session.close"
     SESSION_REVIEW = "session.review"
+    REGISTER_LIST = "register.list"
+    REGISTER_ADD = "register.add"
+    REGISTER_SUPERSEDE = "register.supersede"
+    REGISTER_PICK = "register.pick"
+    ENVIRONMENT_READ = "environment.read"
 
 
 #: Methods that change the measurement; the snapshot's ``allowed`` is a subset of these.
@@ -172,6 +177,17 @@ NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
 REVIEW_DECISIONS = ("approve", "reject")
+#: What the station's registers hold, one kind per row (``register.*`` requests).
+REGISTER_KINDS = (
+    "machine",
+    "beam",
+    "chamber",
+    "certificate",
+    "electrometer",
+    "thermometer",
+    "barometer",
+    "k_Q",
+)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -306,6 +322,54 @@ METHODS: dict[str, MethodSpec] = {
                 ),
             ),
             result="the review: status, reviewer, comment, reviewed_at, account, measured_by",
+        ),
+        MethodSpec(
+            Method.REGISTER_LIST,
+            "List the station's register rows (machines, beams, chambers, certificates, "
+            "electrometers, thermometers, barometers, k_Q), each with its name in words.",
+            (
+                Param("kind", "string", doc="only rows of this kind", choices=REGISTER_KINDS),
+                Param("include_superseded", "boolean", doc="superseded rows too (default false)"),
+            ),
+            result="{rows: [register row with its name]}",
+        ),
+        MethodSpec(
+            Method.REGISTER_ADD,
+            "Add a register entry (its first row); the connection's operator is the actor.",
+            (
+                Param("kind", "string", required=True, doc="the kind", choices=REGISTER_KINDS),
+                Param("fields", "object", required=True, doc="field -> value"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the row added",
+        ),
+        MethodSpec(
+            Method.REGISTER_SUPERSEDE,
+            "Supersede a register row with its fields changed as given; the old row is kept.",
+            (
+                Param("row", "integer", required=True, doc="the current row of the entry"),
+                Param("fields", "object", required=True, doc="field -> new value"),
+                Param("reason", "string", required=True, doc="why, in words"),
+                Param("effective_from", "string", doc="YYYY-MM-DD (default: today)"),
+                Param("db", "string", doc="the station file the client means"),
+            ),
+            result="the new row",
+        ),
+        MethodSpec(
+            Method.ENVIRONMENT_READ,
+            "Read the air temperature and pressure from the daemon's environment sensor "
+            "(serve --sensor-port) now, its certificate corrections from the registers applied, "
+            "and record them as an entry whose source names the sensor. The daemon also reads "
+            "it by itself when a session starts and before each set.",
+        ),
+        MethodSpec(
+            Method.REGISTER_PICK,
+            "Say what a session using these register rows would be given: the metadata they "
+            "fill and the warnings (an expired or missing certificate, no k_Q ...). Writes "
+            "nothing; send the ids as `registers` in session.start's metadata to use them.",
+            (Param("registers", "object", required=True, doc="kind -> row id"),),
+            result="{registers: kind -> row id, fields: metadata, warnings: [text]}",
         ),
     )
 }

@@ -85,6 +85,9 @@ class Thresholds:
     #: Oldest carried k_pol or k_s, in days, accepted without a flag: a full calibration a
     #: year old (common practice; the AAPM TG-142 annual calibration, from memory).
     carried_max_age_days: float = 365.0
+    #: A calibration certificate in the station's registers older than this, in years, is
+    #: flagged at session start (common practice: two years).
+    certificate_validity_years: float = 2.0
     #: A reading within this % of its set's median is never an outlier, however small the MAD:
     #: four readings 0.03 % apart are a good set, not one with an outlier (common practice).
     outlier_floor_pct: float = 0.05
@@ -110,6 +113,7 @@ class Thresholds:
             "temperature_change_C",
             "pressure_change_kPa",
             "carried_max_age_days",
+            "certificate_validity_years",
             "outlier_floor_pct",
             "return_check_pct",
         ):

@@ -224,8 +224,11 @@ class Profile:
 
 
 def available_profiles() -> list[str]:
-    """Return the names of the profiles shipped with chargebook, sorted."""
-    return sorted(path.stem for path in PROFILE_DIR.glob("*.toml"))
+    """Return the names of the electrometer profiles shipped with chargebook, sorted (those
+    of environment sensors, ``sensor-*``, are listed by ``available_sensor_profiles``)."""
+    return sorted(
+        path.stem for path in PROFILE_DIR.glob("*.toml") if not path.stem.startswith("sensor-")
+    )
 
 
 def resolve_profile_path(profile: str | Path) -> Path:

@@ -36,6 +36,7 @@ COMMANDS: dict[str, str] = {
     "history": "history",
     "verify": "verify",
     "review": "review",
+    "register": "register",
     "backup": "backup",
     "completion": "completion",
 }

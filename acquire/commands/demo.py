@@ -26,7 +26,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--db", metavar="FILE", help="demo database (default <data dir>/chargebook/demo.sqlite)"
     )
-    parser.add_argument("--plan", default="default", help="measurement plan (default: default)")
+    parser.add_argument(
+        "--plan",
+        default=None,
+        help="measurement plan; without it the unattended demo runs a full calibration "
+        "(the default plan), then a monthly check carrying its k_pol and k_s",
+    )
     parser.add_argument(
         "--time-scale",
         type=float,

@@ -22,6 +22,9 @@ from typing import Any, TextIO
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
 from chargebook.acquire.processes import Child, ChildStartError, start_child, stop_child
 
+#: The demo's flow when no --plan is given: a full calibration, then an output check.
+FULL_PLAN, CHECK_PLAN = "default", "monthly-check"
+
 
 @contextlib.contextmanager
 def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child, Child]]:
@@ -42,9 +45,10 @@ def demo_world(args: argparse.Namespace, workdir: Path) -> Iterator[tuple[Child,
             [
                 "serve", "--profile", args.profile, "--port", simulator.info["serial"],
                 "--bench-control", simulator.info["control"], "--db", str(args.db_path),
-                "--socket", str(workdir / "daemon.sock"), "--plan", args.plan,
+                "--socket", str(workdir / "daemon.sock"), "--plan", args.plan or FULL_PLAN,
                 "--time-scale", str(args.time_scale), "--log-level", "INFO",
                 "--config", os.devnull,  # the demo reads no station file
+                "--sensor-port", simulator.info["sensor"],  # the air, read by the daemon
             ],
             workdir / "daemon.log",
         )  # fmt: skip
@@ -65,6 +69,7 @@ def run_demo(args: argparse.Namespace) -> int:
     args.db_path.parent.mkdir(parents=True, exist_ok=True)
     out = sys.stderr if args.json else sys.stdout
     print(f"demo database: {args.db_path}", file=out)
+    args.registers = _pick_registers(args.db_path, out)
     workdir = Path(tempfile.mkdtemp(prefix="chargebook-demo-"))
     try:
         with demo_world(args, workdir) as (simulator, daemon):
@@ -80,6 +85,32 @@ def run_demo(args: argparse.Namespace) -> int:
         return 130
     finally:
         shutil.rmtree(workdir, ignore_errors=True)
+
+
+def _pick_registers(db_path: Path, out: TextIO) -> dict[str, int]:
+    """Give the demo database the invented clinic's registers (once), say which beam,
+    chamber and certificate the demo uses, and return their row ids (kind -> id)."""
+    import datetime
+
+    from chargebook.acquire.commands.demo_data import demo_registers
+    from chargebook.acquire.commands.operator_auto import ACTOR
+    from chargebook.acquire.record.station_lock import StationLock
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.session.register_rows import select
+
+    with StationLock(db_path), Store.open(db_path) as store:
+        ids = demo_registers(store, actor=ACTOR)
+        picked = select(store, ids, on=datetime.datetime.now(datetime.UTC).date())
+        filled, names = picked.metadata_fields(), picked.names
+    print(
+        f"registers: beam {names['beam']}, chamber {names['chamber']} (certificate "
+        f"{filled.get('certificate', 'none')}, dated {filled.get('calibration_date', '—')}), "
+        f"electrometer {names['electrometer']}",
+        file=out,
+    )
+    for warning in picked.warnings():
+        print(f"!! {warning}", file=out)
+    return ids
 
 
 def _open_console(args: argparse.Namespace, socket_path: str, simulator: Child) -> int | None:
@@ -98,6 +129,7 @@ def _open_console(args: argparse.Namespace, socket_path: str, simulator: Child) 
         bench.close()
     defaults = {
         **demo_metadata(),
+        "registers": args.registers,
         "temperature_C": temperature_C,
         "pressure_entered": pressure_kPa,
         "pressure_unit": "kPa",
@@ -127,9 +159,16 @@ async def _unattended(
     def progress(reading_set: dict[str, Any], reading: dict[str, Any]) -> None:
         print(reading_line(reading_set, reading), file=out, flush=True)
 
+    metadata = {**demo_metadata(), "registers": args.registers}
+    plans = [args.plan] if args.plan else [FULL_PLAN, CHECK_PLAN]
     client = await DaemonClient.connect(socket_path, client="demo", operator=ACTOR)
+    finals = []
     try:
-        final = await AutoOperator(client, environment, on_reading=progress).run(demo_metadata())
+        for plan in plans:
+            if len(plans) > 1:
+                print(f"-- {_PLAN_WORDS[plan]} (plan {plan})", file=out, flush=True)
+            operator = AutoOperator(client, environment, on_reading=progress)
+            finals.append(await operator.run(metadata, plan))
         truth = bench.truth()
     except AutoOperatorError as error:
         print(f"chargebook demo: {error}", file=sys.stderr)
@@ -138,10 +177,17 @@ async def _unattended(
         await client.close()
         bench.close()
     with Store.open(args.db_path, read_only=True) as store:
-        document = result_document(store, final["session"]["id"])
-    if args.json:
-        print(json.dumps({**document, "truth": truth}, indent=2, ensure_ascii=False))
+        documents = [result_document(store, final["session"]["id"]) for final in finals]
+    if args.json and len(documents) == 1:
+        print(json.dumps({**documents[0], "truth": truth}, indent=2, ensure_ascii=False))
+    elif args.json:
+        flow = {"full_calibration": documents[0], "monthly_check": documents[1], "truth": truth}
+        print(json.dumps(flow, indent=2, ensure_ascii=False))
     else:
-        print("", file=out)
-        print(result_table(document, truth), file=out)
+        for plan, document in zip(plans, documents, strict=True):
+            print(f"\n{_PLAN_WORDS.get(plan, 'session')}:", file=out)
+            print(result_table(document, truth), file=out)
     return EXIT_OK
+
+
+_PLAN_WORDS = {FULL_PLAN: "full calibration", CHECK_PLAN: "monthly check, k_pol and k_s carried"}

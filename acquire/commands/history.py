@@ -16,7 +16,13 @@ HELP = (
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--beam", metavar="NAME", required=True, help='the beam, e.g. "6 MV"')
+    parser.add_argument(
+        "--beam",
+        metavar="NAME",
+        required=True,
+        help='the beam: its name in the registers ("DEMO-LA1 6 MV", "6MV") or its row id, or '
+        'as typed in sessions ("6 MV"); close matches are listed when none matches',
+    )
     parser.add_argument("--machine", metavar="NAME", help="only this treatment machine")
     parser.add_argument(
         "--baseline",
@@ -80,7 +86,12 @@ def _history(store, args: argparse.Namespace) -> int:
     if history.points and history.tolerance_pct is not None and not args.no_plot:
         labels, legend = plot_labels(history)
         plot = deviation_plot(
-            [p.deviation_pct for p in history.points], history.tolerance_pct, labels
+            [p.deviation_pct for p in history.points],
+            history.tolerance_pct,
+            labels,
+            uncertainties_pct=[p.U_expanded_pct for p in history.points],
+            action_pct=history.action_pct,
+            dates=[p.created_at[5:10] for p in history.points],
         )
         parts.append(plot if legend is None else f"{plot}\n{legend}")
     parts.append(CAUTION)

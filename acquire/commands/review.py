@@ -6,6 +6,11 @@ import argparse
 from pathlib import Path
 
 from chargebook.acquire.commands.station_reader import add_db_argument, add_session_argument
+from chargebook.acquire.commands.station_writer import (
+    add_socket_argument,
+    ask_daemon,
+    write_station,
+)
 
 HELP = (
     "review a finished or aborted session as a second person: approve or reject it with a "
@@ -35,47 +40,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "audit records that it was allowed)",
     )
     add_db_argument(parser)
-    parser.add_argument(
-        "--socket",
-        metavar="PATH",
-        type=Path,
-        help="the daemon's control socket, used when a daemon holds the station file "
-        "(default: the daemon's default socket)",
-    )
+    add_socket_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     """Record the review through the daemon that holds the station file, else directly."""
-    import sys
-
-    from chargebook.acquire.commands.station_reader import missing_station_words
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
-    from chargebook.acquire.record.station_lock import StationInUse, StationLock
-    from chargebook.acquire.record.store import StoreError, default_db_path
-    from chargebook.corrections.errors import InputError
+    from chargebook.acquire.record.store import default_db_path
 
     path = Path(args.db or default_db_path()).expanduser()
-    if not path.is_file():
-        print(f"chargebook: {missing_station_words(path)}", file=sys.stderr)
-        return EXIT_INVALID_INPUT
-    lock = StationLock(path)
-    try:
-        lock.acquire()  # held while writing: no daemon starts on the file meanwhile
-    except StationInUse:
-        return _through_daemon(args, path)
-    except OSError as error:
-        print(f"chargebook: cannot lock {path}: {error.strerror}", file=sys.stderr)
-        return EXIT_FAILURE
-    try:
-        return _directly(args, path)
-    except InputError as error:
-        print(f"chargebook: {error}", file=sys.stderr)
-        return EXIT_INVALID_INPUT
-    except StoreError as error:
-        print(f"chargebook: {error}", file=sys.stderr)
-        return EXIT_FAILURE
-    finally:
-        lock.release()
+    return write_station(path, lambda: _directly(args, path), lambda: _through_daemon(args, path))
 
 
 def _directly(args: argparse.Namespace, path: Path) -> int:
@@ -99,43 +72,28 @@ def _directly(args: argparse.Namespace, path: Path) -> int:
 
 def _through_daemon(args: argparse.Namespace, path: Path) -> int:
     """Ask the daemon that holds the station file to record the review (``session.review``)."""
-    import asyncio
-    import sys
-
     from chargebook.acquire import protocol
-    from chargebook.acquire.client import ConnectionLost, DaemonClient, DaemonError
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.exit_codes import EXIT_OK
     from chargebook.acquire.record.review import Review, review_words
 
-    socket_path = args.socket or protocol.default_socket_path()
-
-    async def call() -> dict:
-        async with await DaemonClient.connect(
-            socket_path, client="review", operator=args.reviewer
-        ) as client:
-            return await client.call(
-                protocol.Method.SESSION_REVIEW,
-                session=args.session,
-                decision=args.decision,
-                reviewer=args.reviewer,
-                comment=args.comment,
-                allow_self_review=args.allow_self_review,
-                db=str(path.resolve()),
-            )
-
-    try:
-        review = asyncio.run(call())
-    except DaemonError as error:
-        print(f"chargebook: the daemon refused the review: {error.message}", file=sys.stderr)
-        input_codes = (protocol.INPUT_ERROR, protocol.INVALID_PARAMS)
-        return EXIT_INVALID_INPUT if error.code in input_codes else EXIT_FAILURE
-    except (OSError, ConnectionLost) as error:
-        print(
-            f"chargebook: a daemon holds {path}, so the review must go through it, but its "
-            f"socket {socket_path} cannot be reached ({error}); pass --socket PATH",
-            file=sys.stderr,
-        )
-        return EXIT_FAILURE
+    status, review = ask_daemon(
+        path,
+        args.socket,
+        client="review",
+        operator=args.reviewer,
+        method=protocol.Method.SESSION_REVIEW,
+        params={
+            "session": args.session,
+            "decision": args.decision,
+            "reviewer": args.reviewer,
+            "comment": args.comment,
+            "allow_self_review": args.allow_self_review,
+            "db": str(path.resolve()),
+        },
+        what="review",
+    )
+    if status != EXIT_OK:
+        return status
     words = review_words(Review(**review))
     print(f"session {args.session} {words}: recorded by the daemon that holds {path}")
     return EXIT_OK

@@ -91,9 +91,22 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--config",
         metavar="FILE",
         help="station file (TOML) with the keys station_name, profile, port or resource, "
-        "visa_library, plan, database, thresholds, socket, socket_group; options given here "
+        "visa_library, plan, database, thresholds, socket, socket_group, sensor_port, "
+        "sensor_profile; options given here "
         "override it (default: $XDG_CONFIG_HOME/chargebook/station.toml, else "
         "/etc/chargebook/station.toml, when present)",
+    )
+    parser.add_argument(
+        "--sensor-port",
+        metavar="DEVICE",
+        help="serial port of a digital thermometer-barometer: the daemon reads the air from it "
+        "when a session starts, before each set and on demand (typed entries stay possible)",
+    )
+    parser.add_argument(
+        "--sensor-profile",
+        metavar="NAME",
+        default="sensor-plain",
+        help="the sensor's profile: a shipped sensor-* name or a .toml file (default sensor-plain)",
     )
     parser.add_argument(
         "--station-name",

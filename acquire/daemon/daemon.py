@@ -43,6 +43,8 @@ from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
+from chargebook.acquire.session.register_requests import REGISTER_METHODS
+from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import (
     Capability,
     Electrometer,
@@ -120,6 +122,8 @@ class DaemonOptions:
     visa_library: str | None = None  # pyvisa's library for a resource; None: $PYVISA_LIBRARY/@py
     socket_group: str | None = None  # a group that may use the sockets (0750 / 0660); None: 0700
     station_name: str | None = None  # the station's name; None: keep the recorded one
+    sensor_port: str | None = None  # serial port of a thermometer-barometer; None: typed air
+    sensor_profile: str = "sensor-plain"  # its profile
 
     @property
     def watch_socket_path(self) -> Path:
@@ -978,6 +982,17 @@ class Daemon:
             return self.snapshot()
         if method == protocol.Method.SESSION_REVIEW:
             return self._review(connection, params)
+        if method == protocol.Method.ENVIRONMENT_READ:
+            if not await self._read_sensor(connection, required=True):
+                raise IllegalTransition(method, self.engine.state, self.engine.allowed(), "")
+            return self.snapshot()
+        if method == protocol.Method.STEP_ARM:
+            await self._read_sensor(connection, required=False)  # the air before each set
+        if method in REGISTER_METHODS:
+            self._same_station(params)
+            with self.store.on_behalf_of(connection.account):
+                handler = REGISTER_METHODS[method]
+                return handler(self.store, params, connection.actor, self.engine.default_thresholds)
         try:
             with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
                 self._perform(method, params, connection.actor)
@@ -989,19 +1004,72 @@ class Daemon:
             raise IllegalTransition(method, self.engine.state, [], why) from error
         finally:
             await self.after_change()  # a refused request may still have recorded something
+        if method == protocol.Method.SESSION_START:
+            await self._read_sensor(connection, required=False)  # the air the session starts in
         return self.snapshot()  # the one the subscribers were brought to
 
-    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
-        """Record a review (``session.review``); the reviewer named in it is the actor."""
-        from chargebook.acquire.record.review import record_review
-        from chargebook.corrections.errors import InputError
+    async def _read_sensor(self, connection: Connection, *, required: bool) -> bool:
+        """Record an air entry read from the environment sensor, when one is configured and
+        the session takes one now; return True if one was recorded. A sensor that cannot be
+        read is logged (and raised when ``required``): the operator can still type the air."""
+        from chargebook.acquire.session.register_rows import sensor_entry
+        from chargebook.drivers_generic.sensor import open_sensor
 
-        assert self.store is not None
+        assert self.engine is not None and self.store is not None
+        port = self.options.sensor_port
+        if port is None:
+            if required:
+                allowed = "a daemon started with serve --sensor-port DEVICE"
+                raise InputError("sensor", None, allowed, "is missing")
+            return False
+        if protocol.Method.ENVIRONMENT_SET not in self.engine.allowed():
+            return False
+
+        def read() -> Any:
+            with open_sensor(self.options.sensor_profile, port=port) as sensor:
+                return sensor.read()
+
+        try:
+            reading = await asyncio.to_thread(read)
+        except (InstrumentError, OSError) as error:
+            log.warning("the environment sensor on %s cannot be read: %s", port, error)
+            if required:
+                raise
+            return False
+        if reading.temperature_C is None or reading.pressure_kPa is None:
+            raise InputError("sensor", reading.written, "a temperature and a pressure", "lacks one")
+        entry = sensor_entry(
+            self.store,
+            reading.serial,
+            self.options.sensor_profile,
+            reading.temperature_C,
+            reading.pressure_kPa,
+            reading.written,
+        )
+        try:
+            with self.store.on_behalf_of(connection.account), self.engine.all_or_nothing():
+                self.engine.set_environment(
+                    entry.temperature_C, entry.pressure_kPa, "kPa", None, entry.source,
+                    actor=DAEMON_ACTOR,
+                )  # fmt: skip
+        finally:
+            await self.after_change()
+        return True
+
+    def _same_station(self, params: dict[str, Any]) -> None:
+        """Refuse a request meant for another station file (its ``db``, when given)."""
         meant = params.get("db")
         if meant is not None and Path(meant).resolve() != self.options.db_path.resolve():
             raise InputError(
                 "db", meant, f"the file this daemon keeps, {self.options.db_path}", "is another"
             )
+
+    def _review(self, connection: Connection, params: dict[str, Any]) -> dict[str, Any]:
+        """Record a review (``session.review``); the reviewer named in it is the actor."""
+        from chargebook.acquire.record.review import record_review
+
+        assert self.store is not None
+        self._same_station(params)
         with self.store.on_behalf_of(connection.account):
             review = record_review(
                 self.store,

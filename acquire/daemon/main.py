@@ -50,6 +50,8 @@ def options_from_args(args: argparse.Namespace, socket_path: Path | None = None)
         visa_library=getattr(args, "visa_library", None),
         socket_group=getattr(args, "socket_group", None),
         station_name=station_name,
+        sensor_port=getattr(args, "sensor_port", None),
+        sensor_profile=getattr(args, "sensor_profile", None) or "sensor-plain",
     )
 
 

@@ -29,6 +29,8 @@ KEYS: dict[str, tuple[str, type, str]] = {
     "thresholds": ("thresholds", str, "stability thresholds, a TOML file"),
     "socket": ("socket", str, "the control socket path"),
     "socket_group": ("socket_group", str, "a group whose members may use the sockets"),
+    "sensor_port": ("sensor_port", str, "serial port of the thermometer-barometer"),
+    "sensor_profile": ("sensor_profile", str, "the sensor's profile (default sensor-plain)"),
 }
 #: Keys naming the electrometer: one of them is the choice, and a command-line choice wins.
 WHERE_KEYS = ("port", "resource")

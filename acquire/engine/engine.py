@@ -28,6 +28,7 @@ A pause is not carried over a restart: the session comes back waiting, reviewing
 
 from __future__ import annotations
 
+import datetime
 import functools
 import logging
 import time
@@ -54,6 +55,7 @@ from chargebook.acquire.session import rules
 from chargebook.acquire.session.carried import MEASURED_BY, carried_metadata
 from chargebook.acquire.session.evaluation import SessionContext, evaluate_session
 from chargebook.acquire.session.plan import Plan, Step
+from chargebook.acquire.session.register_rows import fill_from_registers
 from chargebook.corrections.stability import Thresholds
 from chargebook.drivers_generic.interface import Capability
 
@@ -321,10 +323,15 @@ class Engine:
         """Open a session with validated metadata and a plan; return its id."""
         self._require(Method.SESSION_START)
         resolved = rules.resolve_plan(plan if plan is not None else self.default_plan)
+        today = self.store.stamp()[:10]
+        filled = fill_from_registers(
+            self.store,
+            metadata,
+            on=datetime.date.fromisoformat(today),
+            validity_years=self.default_thresholds.certificate_validity_years,
+        )
         checked = rules.validate_metadata(
-            carried_metadata(
-                self.store, rules.validate_metadata(metadata), resolved, self.store.stamp()[:10]
-            )
+            carried_metadata(self.store, rules.validate_metadata(filled), resolved, today)
         )
         session_id = self.store.create_session(
             metadata=checked,

@@ -64,6 +64,8 @@ class EventKind(enum.StrEnum):
     REPLAY_NOT_REPRODUCED = "replay_not_reproduced"
     #: A remark in words for the audit log (the reports show it; the daemon writes none).
     NOTE = "note"
+    # the station's registers (outside any session)
+    REGISTER_ROW = "register_row"
 
 
 # ----------------------------------------------------------------- written by the store
@@ -258,6 +260,18 @@ class Note(TypedDict):
     text: str
 
 
+class RegisterRowAdded(TypedDict):
+    """A register row added (``supersedes`` None) or superseding another; its fields as stored."""
+
+    row: int
+    kind: str
+    entry: int
+    supersedes: int | None
+    effective_from: str
+    fields: dict[str, Any]
+    reason: str | None
+
+
 #: The declared shape of each kind's detail: a TypedDict, or a dataclass whose fields it holds.
 DETAIL_TYPES: dict[EventKind, type] = {
     EventKind.SESSION_CREATED: SessionCreated,
@@ -290,6 +304,7 @@ DETAIL_TYPES: dict[EventKind, type] = {
     EventKind.REPLAY: Replay,
     EventKind.REPLAY_NOT_REPRODUCED: ReplayNotReproduced,
     EventKind.NOTE: Note,
+    EventKind.REGISTER_ROW: RegisterRowAdded,
 }
 
 

@@ -25,6 +25,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record import chain
 from sqlite_utils import Database
 
@@ -39,6 +40,9 @@ CAPTURE_MODES = ("auto", "pushed", "manual")
 TRAFFIC_DIRECTIONS = ("tx", "rx")
 
 APPEND_ONLY_TABLES = ("readings", "environment", "events", "traffic")
+#: The event written before each register row, holding the row's whole content (a migration
+#: keeps its own literal: ``EventKind.REGISTER_ROW`` has the same value).
+REGISTER_EVENT = "register_row"
 
 
 class SchemaTooNew(RuntimeError):
@@ -409,12 +413,78 @@ def _station_identity(db: Database) -> None:
     _run_triggers(db, _STATION_TRIGGERS)
 
 
+_REGISTER_TABLE = f"""
+    CREATE TABLE register_rows (
+        id INTEGER PRIMARY KEY,
+        kind TEXT NOT NULL CHECK (kind IN ({_sql_list(REGISTER_KINDS)})),
+        entry_id INTEGER NOT NULL,
+        supersedes INTEGER UNIQUE REFERENCES register_rows(id),
+        effective_from TEXT NOT NULL,
+        fields_json TEXT NOT NULL,
+        recorded_at TEXT NOT NULL,
+        event_id INTEGER NOT NULL UNIQUE REFERENCES events(id)
+    )
+"""
+
+
+def _register_triggers() -> str:
+    detail = "json_extract(detail_json, '$.{}') IS NEW.{}".format
+    audited = " AND ".join(
+        (
+            "id = NEW.event_id",
+            "id = (SELECT max(id) FROM events)",
+            "session_id IS NULL",
+            f"kind = '{REGISTER_EVENT}'",
+            detail("row", "id"),
+            detail("kind", "kind"),
+            detail("entry", "entry_id"),
+            detail("supersedes", "supersedes"),
+            detail("effective_from", "effective_from"),
+            "recorded_at IS NEW.recorded_at",
+        )
+    )
+    return f"""
+    {_refuse_update_trigger("register_rows")}
+    CREATE TRIGGER register_rows_refuse_delete BEFORE DELETE ON register_rows
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a register row is kept: supersede it instead');
+    END;
+    CREATE TRIGGER register_rows_refuse_replace BEFORE INSERT ON register_rows
+    WHEN EXISTS (SELECT 1 FROM register_rows WHERE id = NEW.id)
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a recorded row cannot be replaced');
+    END;
+    CREATE TRIGGER register_rows_refuse_unaudited BEFORE INSERT ON register_rows
+    WHEN NOT EXISTS (SELECT 1 FROM events WHERE {audited})
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a row must follow its register_row event');
+    END;
+    CREATE TRIGGER register_rows_refuse_bad_entry BEFORE INSERT ON register_rows
+    WHEN (NEW.supersedes IS NULL AND NEW.entry_id IS NOT NEW.id)
+    OR (NEW.supersedes IS NOT NULL AND NOT EXISTS (
+        SELECT 1 FROM register_rows
+        WHERE id = NEW.supersedes AND entry_id = NEW.entry_id AND kind = NEW.kind))
+    BEGIN
+        SELECT RAISE(ABORT, 'register_rows: a row supersedes a row of its own entry and kind');
+    END;
+    """
+
+
+def _registers(db: Database) -> None:
+    """Add the station's registers (``register_rows``): append-only rows, each written after
+    its ``register_row`` event (in the chain of rows outside sessions), edited by superseding."""
+    db.execute(_REGISTER_TABLE)
+    db.execute("CREATE INDEX register_rows_by_entry ON register_rows(entry_id)")
+    _run_triggers(db, _register_triggers())
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
     Migration("index_rows_by_session", _index_rows_by_session),
     Migration("chain_appended_rows", _chain_appended_rows),
     Migration("station_identity", _station_identity),
+    Migration("registers", _registers),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

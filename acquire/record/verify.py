@@ -21,6 +21,7 @@ from typing import Any
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.migrations import session_uuid_at_migration
+from chargebook.acquire.record.registers import register_row_problems
 from chargebook.acquire.record.store import SessionRow, SetRow, Store
 
 
@@ -94,6 +95,11 @@ def verify_session(store: Store, session_id: int | None) -> ChainReport:
         events = [values for table, values, _seq, _hash in rows if table == "events"]
         problems += _check_statuses(store, session_id, events)
         problems += _check_uuid(store, session_id, events)
+    else:
+        problems += [
+            Problem("register_rows", row_id, None, words)
+            for row_id, words in register_row_problems(store)
+        ]
     return ChainReport(session_id, len(rows), head, tuple(problems))
 
 

@@ -54,6 +54,8 @@ class HistoryPoint:
     #: unreviewed, approved or rejected (a rejected session is listed only with include_all).
     review: str = UNREVIEWED
     session_uuid: str | None = None  # the session's id across stations
+    #: The expanded uncertainty of the session's dose, %, drawn as the point's bar.
+    U_expanded_pct: float | None = None
 
 
 @dataclass(frozen=True)
@@ -69,6 +71,10 @@ class History:
     station_uuid: str | None = None  # the station that keeps the sessions
     #: When no session matches: the beams recorded at the station, the closest names first.
     known_beams: tuple[str, ...] = ()
+    #: The beam's action level, %, from the station's registers (None: not registered).
+    action_pct: float | None = None
+    #: The register row of the beam asked for (id, name), when the registers hold it.
+    register_beam: tuple[int, str] | None = None
 
     @property
     def tolerance_pct(self) -> float | None:
@@ -141,6 +147,7 @@ def _point(record: SessionRecord, baseline_cGy_per_MU: float | None) -> HistoryP
         kind=session_kind(record.session.plan()),
         review=review_status(record.review),
         session_uuid=record.session.uuid,
+        U_expanded_pct=evaluation.U_expanded_pct if evaluation else None,
     )
 
 
@@ -190,11 +197,16 @@ def load_history(
     """Return the output history of ``beam``: finished, non-replay sessions not rejected by a
     review, unless ``include_all`` (then every session, a rejected one marked)."""
     choice = parse_baseline(baseline)
+    registered = _register_beam(store, beam, machine)
+    if registered is None:
+        matched = [row for row in store.sessions() if matches(row, beam, machine)]
+    else:
+        matched = [row for row in store.sessions() if registered.matches(row)]
+        beam, machine = registered.beam, registered.machine
     rows = [
         row
-        for row in store.sessions()
-        if matches(row, beam, machine)
-        and (include_all or (row.status == "finished" and row.replay_of is None))
+        for row in matched
+        if include_all or (row.status == "finished" and row.replay_of is None)
     ]
     records = [load_record(store, row.id, check_chain=False) for row in rows]
     if not include_all:
@@ -209,6 +221,62 @@ def load_history(
         points=tuple(_point(record, value) for record in records),
         station_uuid=store.station().uuid,
         known_beams=() if rows else _beams_like(store, beam),
+        action_pct=None if registered is None else registered.action_pct,
+        register_beam=None if registered is None else (registered.row_id, registered.name),
+    )
+
+
+@dataclass(frozen=True)
+class _RegisteredBeam:
+    """A beam of the station's registers and how its sessions are recognised."""
+
+    row_id: int
+    entry_id: int
+    name: str  # "DEMO-LA1 6 MV"
+    machine: str
+    beam: str
+    action_pct: float | None
+
+    def matches(self, row: SessionRow) -> bool:
+        """Return True for a session that named this beam's register entry, or (recorded
+        before the registers, or typed) its machine and beam, spaces and case aside."""
+        meta = row.metadata()
+        named = (meta.get("register_copy") or {}).get("beam")
+        if named is not None:
+            return named.get("entry_id") == self.entry_id
+        return _squeezed(meta.get("treatment_machine")) == _squeezed(self.machine) and (
+            _squeezed(meta.get("beam") or row.beam) == _squeezed(self.beam)
+        )
+
+
+def _squeezed(text: object) -> str:
+    return "".join(str(text or "").split()).casefold()
+
+
+def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredBeam | None:
+    """Return the registers' beam named by ``text`` (its id or name), or None when the station
+    has no beams registered, or when none matches but typed sessions do (recorded before the
+    registers). InputError listing the close matches when neither does."""
+    from chargebook.acquire.record.registers import register_rows
+    from chargebook.acquire.session.register_rows import find_beam, row_name
+
+    if not register_rows(store, "beam"):
+        return None
+    wanted = text if machine is None else f"{machine} {text}"
+    try:
+        row = find_beam(store, wanted)
+    except InputError:
+        if any(matches(session, text, machine) for session in store.sessions()):
+            return None
+        raise
+    name = row_name(store, row)
+    return _RegisteredBeam(
+        row_id=row.id,
+        entry_id=row.entry_id,
+        name=name,
+        machine=name.removesuffix(f" {row.fields['name']}"),
+        beam=str(row.fields["name"]),
+        action_pct=row.fields.get("action_pct"),
     )
 
 

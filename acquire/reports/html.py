@@ -241,37 +241,56 @@ def _review_words(review: SignOff) -> str:
     return f"{review.decision} by {review.reviewer} on {review.when}"
 
 
+def history_days(history: History) -> list[float]:
+    """Return each session's date as days (fractional) after the first session's."""
+    from datetime import datetime
+
+    stamps = [datetime.fromisoformat(p.created_at) for p in history.points]
+    return [(stamp - stamps[0]).total_seconds() / 86400 for stamp in stamps]
+
+
 def history_html(history: History, history_table: Table, generated: str) -> str:
     """Return a beam's output history as one page: the plot against the band, then the table."""
+    days = history_days(history)
     points = [
         Point(
-            x=float(index),
+            x=day,
             y=point.deviation_pct,
             alarm=not point.within_tolerance,
             hollow=point.kind == OUTPUT_CHECK,
+            error=point.U_expanded_pct,
             attrs={
                 "session-id": str(point.session_id),
                 "kind": point.kind,
+                "date": point.created_at[:10],
                 "dose-per-mu-cgy": repr(point.dose_per_MU_cGy),
                 "deviation-pct": repr(point.deviation_pct),
+                "u-expanded-pct": repr(point.U_expanded_pct),
             },
         )
-        for index, point in enumerate(history.points)
+        for day, point in zip(days, history.points, strict=True)
         if point.deviation_pct is not None
     ]
-    tolerance = history.tolerance_pct
+    tolerance, action = history.tolerance_pct, history.action_pct
+    action_lines = (
+        []
+        if action is None
+        else [Line(action, f"action +{action:g} %", dashed=True), Line(-action, "", dashed=True)]
+    )
     svg = plot(
         points,
         title=f"Output of {history.beam}: deviation from {history.baseline_label}",
-        x_label="session",
+        x_label="date (days from the first session)",
         y_label="deviation (%)",
-        lines=[Line(0.0, "baseline")],
+        lines=[Line(0.0, "baseline"), *action_lines],
         bands=[] if tolerance is None else [Band(-tolerance, tolerance, f"±{tolerance:g} %")],
-        x_ticks=[(float(i), str(p.session_id)) for i, p in enumerate(history.points)],
+        x_ticks=[(day, p.created_at[:10]) for day, p in zip(days, history.points, strict=True)],
     )
     caption = (
-        f"Dose per MU by session, as a deviation from {escape(history.baseline_label)}; "
+        f"Dose per MU by session date, as a deviation from {escape(history.baseline_label)}, "
+        "each with its expanded uncertainty as a bar; "
         + (f"the band is the ±{tolerance:g} % tolerance. " if tolerance is not None else "")
+        + (f"Dashed lines: the ±{action:g} % action level. " if action is not None else "")
         + "Red points lie outside their session's tolerance. Filled points are full "
         "calibrations; hollow points are output checks, whose k_pol and k_s were carried."
     )

@@ -94,6 +94,22 @@ def set_stats(record: SetRecord) -> SetStatistics | None:
 # ------------------------------------------------------------------------------ sections
 
 
+def _register_rows(meta: dict) -> list[tuple[str, str, str]]:
+    """Return the rows saying which register rows the session used (as copied when it
+    started) and the warnings they raised; none for a session typed in."""
+    copy = meta.get("register_copy")
+    if not copy:
+        return []
+    used = "; ".join(
+        f"{kind} {row.get('name')} (row {row.get('id')})" for kind, row in copy.items()
+    )
+    warnings = meta.get("register_warnings") or []
+    return [
+        ("From the registers", used, "registers"),
+        ("Register warnings", "; ".join(warnings) or "none", "register_warnings"),
+    ]
+
+
 def identity(record: SessionRecord) -> Table:
     """Return who measured what, with what, under which code of practice."""
     meta = record.metadata
@@ -127,6 +143,7 @@ def identity(record: SessionRecord) -> Table:
     for label, name in (("Beam quality", "beam_quality"), ("Notes", "notes")):
         if meta.get(name):
             rows.append((label, str(meta[name]), name))
+    rows += _register_rows(meta)
     electron = _electron_text(record)
     if electron is not None:
         rows.append(("Electron beam", electron, "beam_quality_text"))

@@ -29,13 +29,15 @@ HALO = ' paint-order="stroke" stroke="#fff" stroke-width="3"'
 
 @dataclass(frozen=True)
 class Point:
-    """One plotted point; ``hollow`` draws an open marker, ``attrs`` become data- attributes."""
+    """One plotted point; ``hollow`` draws an open marker, ``attrs`` become data- attributes,
+    ``error`` (in y units) draws a bar from y − error to y + error."""
 
     x: float
     y: float
     hollow: bool = False
     alarm: bool = False
     attrs: Mapping[str, str] = field(default_factory=dict)
+    error: float | None = None
 
 
 @dataclass(frozen=True)
@@ -117,6 +119,7 @@ def plot(
     ``y_min_step``: the finest y tick step (no finer than that resolution).
     """
     ys = [p.y for p in points] + [line.y for line in lines]
+    ys += [p.y + sign * p.error for p in points if p.error is not None for sign in (-1, 1)]
     ys += [v for band in bands for v in (band.low, band.high)]
     xs = [p.x for p in points] or [0.0]
     y_low, y_high = _limits(ys or [0.0])
@@ -161,6 +164,12 @@ def plot(
         css = "point" + (" hollow" if point.hollow else "") + (" alarm" if point.alarm else "")
         colour = ALARM if point.alarm else POINT
         fill = "#fff" if point.hollow else colour
+        if point.error is not None:
+            parts.append(
+                f'<line class="error-bar" stroke="{colour}" x1="{sx(point.x):.1f}" '
+                f'x2="{sx(point.x):.1f}" y1="{sy(point.y - point.error):.1f}" '
+                f'y2="{sy(point.y + point.error):.1f}" data-error="{point.error!r}"/>'
+            )
         parts.append(
             f'<circle class="{css}" fill="{fill}" stroke="{colour}" cx="{sx(point.x):.1f}" '
             f'cy="{sy(point.y):.1f}" r="4"{attrs}/>'

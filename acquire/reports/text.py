@@ -130,29 +130,37 @@ def deviation_plot(
     tolerance_pct: float,
     labels: Sequence[str],
     height: int = 21,
+    *,
+    uncertainties_pct: Sequence[float | None] | None = None,
+    action_pct: float | None = None,
+    dates: Sequence[str] | None = None,
 ) -> str:
     """Return a character plot of deviations (%) with the ±tolerance band, one column each.
 
     ``o`` is a point within tolerance, ``X`` one outside, ``?`` a session without a result.
     Rows run from the largest deviation (top) to the most negative, ``height`` rows at most, a
-    whole number of them per tolerance; ``=`` marks the tolerance lines and ``.`` zero. A point
-    beyond the plot is drawn on its edge row as ``^`` (above) or ``v`` (below).
+    whole number of them per tolerance; ``=`` marks the tolerance lines, ``#`` the action
+    lines (``action_pct``) and ``.`` zero. A point beyond the plot is drawn on its edge row as
+    ``^`` (above) or ``v`` (below). ``uncertainties_pct``: each point's expanded uncertainty,
+    drawn as ``|`` above and below it. ``dates``: a second label row (the columns are in date
+    order).
     """
     known = [abs(d) for d in deviations_pct if d is not None]
-    span = max([tolerance_pct * 1.5, *known])
+    span = max([tolerance_pct * 1.5, (action_pct or 0.0) * 1.2, *known])
     half = (height - 1) // 2
-    # A whole number of rows per tolerance, so that the tolerance lines fall on rows.
-    step = tolerance_pct / max(1, math.floor(half * tolerance_pct / span))
+    step = _row_step(tolerance_pct, action_pct, max(1, math.floor(half * tolerance_pct / span)))
     levels = [i * step for i in range(half, -half - 1, -1)]
-    column = max([3, *(len(label) + 1 for label in labels)])
+    column = max([3, *(len(label) + 1 for label in [*labels, *(dates or ())])])
     row_of = [_nearest_row(d, levels[0], step, len(levels)) for d in deviations_pct]
+    bars = _bar_rows(deviations_pct, uncertainties_pct, levels[0], step, len(levels))
     rows = []
     for index, level in enumerate(levels):
-        marker = _axis_marker(level, tolerance_pct, step)
+        marker = _axis_marker(level, tolerance_pct, step, action_pct)
         cells = []
-        for deviation, row in zip(deviations_pct, row_of, strict=True):
+        for deviation, row, bar in zip(deviations_pct, row_of, bars, strict=True):
             if row != index:
-                cells.append(marker)
+                in_bar = bar[0] <= index <= bar[1] and marker in (" ", ".")
+                cells.append("|" if in_bar else marker)
             elif deviation is None:
                 cells.append("?")
             elif deviation > levels[0] + step / 2 or deviation < levels[-1] - step / 2:
@@ -166,12 +174,58 @@ def deviation_plot(
         f"o within ±{tolerance_pct:g} %   X outside   ^ v beyond the plot   ? no result   "
         f"= tolerance   . zero   columns: session ids"
     )
-    return "\n".join([*rows, axis, names, legend])
+    extra = []
+    if dates is not None:
+        extra.append((" " * 11 + "".join(d.center(column) for d in dates)).rstrip())
+        legend += ", then their dates"
+    if uncertainties_pct is not None:
+        legend += "   | expanded uncertainty"
+    if action_pct is not None:
+        legend += f"   # action level ±{action_pct:g} %"
+    return "\n".join([*rows, axis, names, *extra, legend])
 
 
-def _axis_marker(level: float, tolerance_pct: float, step: float) -> str:
+def _row_step(tolerance_pct: float, action_pct: float | None, most: int) -> float:
+    """Return the plot's row step: a whole number of rows per tolerance (at most ``most``), so
+    that the tolerance lines fall on rows, and per action level too when one allows it."""
+    for rows in range(most, 0, -1):
+        step = tolerance_pct / rows
+        if action_pct is None or abs(action_pct / step - round(action_pct / step)) < 1e-9:
+            return step
+    return tolerance_pct / most
+
+
+def _bar_rows(
+    deviations_pct: Sequence[float | None],
+    uncertainties_pct: Sequence[float | None] | None,
+    top: float,
+    step: float,
+    count: int,
+) -> list[tuple[int, int]]:
+    """Return, per point, the first and last row its uncertainty bar covers ((1, 0): none)."""
+    if uncertainties_pct is None:
+        return [(1, 0)] * len(deviations_pct)
+    found = []
+    for deviation, u in zip(deviations_pct, uncertainties_pct, strict=True):
+        if deviation is None or u is None:
+            found.append((1, 0))
+            continue
+        found.append(
+            (
+                _nearest_row(deviation + u, top, step, count),
+                _nearest_row(deviation - u, top, step, count),
+            )
+        )
+    return found
+
+
+def _axis_marker(
+    level: float, tolerance_pct: float, step: float, action_pct: float | None = None
+) -> str:
     if abs(abs(level) - tolerance_pct) < step / 2:
         return "="
+    if action_pct is not None and abs(abs(level) - action_pct) < step / 2:
+        return "#"
     if abs(level) < step / 2:
         return "."
     return " "

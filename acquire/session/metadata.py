@@ -45,6 +45,11 @@ Keys (required unless a default is shown)::
                                   an electron beam, refused for a photon beam
     chamber_type          None    cylindrical | plane-parallel (required for an electron beam;
                                   a cylindrical chamber below the protocol's R50 is flagged)
+    registers             None    the register rows the session uses: {beam, chamber,
+                                  electrometer, certificate?, k_Q?, thermometer?, barometer?}
+                                  -> row id; the daemon fills the fields they hold, and keeps
+                                  register_copy (the rows as they were) and register_warnings
+                                  (an expired certificate, no k_Q ... in words)
     k_Q_source            None    where k_Q comes from (the code of practice's table for this
                                   chamber and beam quality, or the user's own determination);
                                   required for an electron beam
@@ -147,6 +152,9 @@ class SessionMetadata:
     R50_cm: float | None = None
     chamber_type: str | None = None
     k_Q_source: str | None = None
+    registers: dict[str, int] | None = None
+    register_copy: dict[str, Any] | None = None
+    register_warnings: list[str] | None = None
 
     def quality(self) -> BeamQuality:
         """Return the beam quality for ``evaluate``: modality, R50 (cm), chamber type, k_Q's
@@ -373,7 +381,33 @@ def validate_metadata(data: Mapping[str, Any]) -> SessionMetadata:
         R50_cm=quality.R50_cm,
         chamber_type=quality.chamber_type,
         k_Q_source=quality.k_Q_source,
+        **_register_link(data),
     )
+
+
+def _register_link(data: Mapping[str, Any]) -> dict[str, Any]:
+    """Return the register rows a session names (kind -> row id), their copy and warnings, as
+    stored (filled in by ``register_rows.fill_from_registers`` at session start)."""
+    ids = data.get("registers")
+    if ids is None:
+        return {}
+    if not isinstance(ids, Mapping) or not all(
+        isinstance(v, int) and not isinstance(v, bool) for v in ids.values()
+    ):
+        raise InputError("registers", ids, "an object: kind -> register row id", "is not one")
+    copy = data.get("register_copy")
+    warnings = data.get("register_warnings")
+    if copy is not None and not isinstance(copy, Mapping):
+        raise InputError("register_copy", copy, "an object: kind -> row", "is not one")
+    if warnings is not None and not (
+        isinstance(warnings, list) and all(isinstance(w, str) for w in warnings)
+    ):
+        raise InputError("register_warnings", warnings, "a list of texts", "is not one")
+    return {
+        "registers": dict(ids),
+        "register_copy": None if copy is None else dict(copy),
+        "register_warnings": None if warnings is None else list(warnings),
+    }
 
 
 def _quality(data: Mapping[str, Any], beam_type: Beam) -> BeamQuality:

@@ -68,6 +68,10 @@ class SimulatorOptions:
             raise SimulatorInputError("--playback", str(self.playback), "an existing log file")
 
 
+#: The simulated thermometer-barometer's dialect.
+SENSOR_PROFILE = "sensor-plain"
+
+
 class Simulator:
     """The running simulated electrometer with all its wires (pty, SCPI socket, control)."""
 
@@ -87,6 +91,7 @@ class Simulator:
         self.directory = Path(options.directory or tempfile.mkdtemp(prefix="chargebook-sim-"))
         self.directory.chmod(0o700)
         self.pty = None
+        self.sensor_pty = None
         self.scpi = None
         self.control = ControlServer(self.directory / "control.sock", self._ops())
 
@@ -118,6 +123,7 @@ class Simulator:
                 self._responder("serial"), self.profile.framing, self.directory / "electrometer"
             )
             self.pty.start()
+            self.sensor_pty = self._sensor_wire()
         if self.options.scpi_port is not None:
             from chargebook.drivers_generic.simulator.scpi_server import ScpiServer
 
@@ -125,6 +131,19 @@ class Simulator:
             self.scpi.start()
         self.control.start()
         return self.announcement()
+
+    def _sensor_wire(self) -> Any:
+        """Open the simulated thermometer-barometer on a pty of its own (``sensor``)."""
+        from chargebook.drivers_generic.sensor import load_sensor_profile
+        from chargebook.drivers_generic.simulator.sensor_dialect import SensorResponder
+        from chargebook.drivers_generic.simulator.serial_server import PtyServer
+
+        profile = load_sensor_profile(SENSOR_PROFILE)
+        wire = PtyServer(
+            SensorResponder(profile, self.device), profile.framing, self.directory / "sensor"
+        )
+        wire.start()
+        return wire
 
     def announcement(self) -> dict[str, Any]:
         """Return the line printed on stdout: where each wire is."""
@@ -136,6 +155,8 @@ class Simulator:
             "control": str(self.control.path),
             "profile": self.profile.name,
             "pid": os.getpid(),
+            "sensor": str(self.sensor_pty.link_path) if self.sensor_pty else None,
+            "sensor_profile": SENSOR_PROFILE if self.sensor_pty else None,
         }
 
     def stop(self) -> None:
@@ -143,6 +164,8 @@ class Simulator:
         self.control.stop()
         if self.pty is not None:
             self.pty.stop()
+        if self.sensor_pty is not None:
+            self.sensor_pty.stop()
         if self.scpi is not None:
             self.scpi.stop()
         shutil.rmtree(self.directory, ignore_errors=True)

@@ -15,7 +15,6 @@ from __future__ import annotations
 import math
 import re
 import string
-import time
 from typing import Protocol
 
 from chargebook.drivers_generic.profile import CHARGE_UNITS_IN_nC, CommandSpec, Profile
@@ -103,7 +102,7 @@ class DialectResponder:
         }
         self._last_stream_at = 0.0
         self._deliveries_seen = device.deliveries_completed
-        self._started = time.monotonic()
+        self._started = device.clock()
 
     # -- answering commands -------------------------------------------------------------------
     def respond(self, line: str) -> list[str]:
@@ -177,7 +176,7 @@ class DialectResponder:
         text = format_number(value, reading.number_format, reading.digits)
         template = reading.final_format if final and reading.final_format else reading.format
         word = self._status_words.get(status, self._status_words.get("ok", ""))
-        return template.format(value=text, status=word, t_s=time.monotonic() - self._started)
+        return template.format(value=text, status=word, t_s=self.device.clock() - self._started)
 
     def flood_line(self, index: int) -> str:
         """Return one reading line for a flood: the present charge, status as read."""
@@ -191,7 +190,7 @@ class DialectResponder:
             return []
         device = self.device
         lines: list[str] = []
-        now = time.monotonic()
+        now = device.clock()
         with device.lock:
             charge_nC, status = device.read()
             completed = device.deliveries_completed

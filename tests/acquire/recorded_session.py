@@ -10,6 +10,10 @@ reading captured by hand), a reduced-bias set, the instrument identity, two envi
 
 from __future__ import annotations
 
+import atexit
+import functools
+import shutil
+import tempfile
 import tomllib
 from importlib import resources
 from pathlib import Path
@@ -197,10 +201,27 @@ def record_example_session(
 
 
 def recorded_station(folder: Path) -> Path:
-    """Return a new station file in ``folder`` holding the example as one finished session."""
+    """Return a new station file in ``folder`` holding the example as one finished session.
+
+    The file is recorded once per test run (every write commits with a sync to disk, some 0.3 s
+    in all) and copied: each caller gets a file of its own, byte for byte the same, to read or
+    to tamper with.
+    """
     path = folder / "station.sqlite"
+    folder.mkdir(parents=True, exist_ok=True)  # as Store.open makes it
+    shutil.copy(_recorded_once(), path)
+    return path
+
+
+@functools.cache
+def _recorded_once() -> Path:
+    """Return the example station file recorded for this test run (closed: no -wal beside it)."""
+    path = Path(tempfile.mkdtemp(prefix="chargebook-recorded-")) / "station.sqlite"
+    atexit.register(shutil.rmtree, path.parent, True)
     with Store.open(path) as store:
         record_example_session(store)
+    if path.with_name(path.name + "-wal").exists():
+        raise RuntimeError(f"{path} kept a -wal file after closing: a copy would miss rows")
     return path
 
 

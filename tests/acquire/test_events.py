@@ -60,6 +60,7 @@ STORED_KINDS = (
     "replay",
     "replay_not_reproduced",
     "note",
+    "register_row",
 )
 
 

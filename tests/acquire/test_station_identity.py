@@ -81,7 +81,7 @@ def test_an_old_file_gets_ids_at_migration_and_still_verifies(tmp_path: Path) ->
     # uuid5 of the session in the station's namespace: the same whenever it is computed again
     assert found == {n: str(uuid.uuid5(uuid.UUID(station), f"session {n}")) for n in (1, 2)}
     assert found == {n: session_uuid_at_migration(station, n) for n in (1, 2)}
-    assert applied[-1] == ("station_identity",)
+    assert ("station_identity",) in applied  # later migrations may follow it
     with Store.open(path) as store:
         assert {n: store.session(n).uuid for n in (1, 2)} == found
 

@@ -20,9 +20,9 @@ SCRIPTS = [
     "reanalysis",
     "startup",
     "console_latency",
-    "memory",
-    "session_length",
-    "record_scale",
+    pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
+    pytest.param("session_length", marks=pytest.mark.slow),  # two daemons, some 20 s
+    pytest.param("record_scale", marks=pytest.mark.slow),  # a station file made, some 10 s
 ]
 
 

@@ -14,7 +14,9 @@ from .conftest import FAST
 
 def test_the_announcement_is_one_json_line_with_the_contract_keys(simulator):
     sim = simulator("--serial", "--scpi", "0", "--profile", "query-engineering", *FAST)
-    assert set(sim.info) == {"serial", "scpi", "control", "profile", "pid"}
+    assert set(sim.info) == {
+        "serial", "scpi", "control", "profile", "pid", "sensor", "sensor_profile"
+    }  # fmt: skip
     assert sim.info["pid"] == sim.process.pid
     assert sim.info["profile"] == "query-engineering"
     link = Path(sim.serial)

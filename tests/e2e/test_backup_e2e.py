@@ -46,6 +46,7 @@ async def run_chargebook(*args: str) -> tuple[int, str, str]:
     return process.returncode or 0, out.decode(), err.decode()
 
 
+@pytest.mark.slow  # a session recorded while the copy is taken
 async def test_a_backup_while_the_daemon_records_holds_everything_committed_before(
     daemon, simulator, metadata, tmp_path
 ):

@@ -1,6 +1,8 @@
 """End to end: a full calibration, then an output check that carries its k_pol and k_s.
 
-The real daemon and the simulated electrometer on a pty, one station file. The check value is
+The real daemon and the simulated electrometer on a pty, one station file (the refusal of another
+chamber's factor, the engine's decision alone, runs the daemon in process on a hand clock:
+tests/acquire/in_process_daemon.py). The check value is
 an identity: the output check's k_pol and k_s are, bit for bit, those the full calibration
 measured, and its dose is TRS-398's D = M · k_TP · k_h · k_pol · k_s · k_elec · N_D,w · k_Q
 with them.
@@ -20,11 +22,14 @@ from chargebook.acquire.record.store import Store
 from chargebook.acquire.session.evaluation import evaluate_session
 from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
 
+from tests.acquire.in_process_daemon import session_daemon
+
 pytestmark = pytest.mark.e2e
 
 QUICK_MONTHLY = str(Path(__file__).parent / "plans" / "quick-monthly.toml")
 
 
+@pytest.mark.slow  # two whole sessions and a replay
 async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit(
     daemon, simulator, metadata
 ):
@@ -71,32 +76,35 @@ async def test_an_output_check_carries_the_full_calibrations_factors_bit_for_bit
 
 
 async def test_a_factor_from_another_chamber_is_refused_and_none_is_carried_from_one(
-    daemon, simulator, metadata
+    tmp_path, metadata
 ):
-    client = await daemon.connect(operator=ACTOR)
-    await client.subscribe()
-    entered = dict(
-        metadata,
-        carried_k_pol={"value": 1.001, "source": "report", "date": "2026-03-02",
-                       "chamber_serial": "SIM-CH-9999"},
-    )  # fmt: skip
-    with pytest.raises(DaemonError) as refused:
-        await client.call("session.start", metadata=entered, plan=QUICK_MONTHLY)
-    assert refused.value.field == "carried_k_pol.chamber_serial"
-    assert "is from another chamber" in refused.value.message
-    with Store.open(daemon.db, read_only=True) as store:
-        assert store.sessions() == []  # nothing was started, nothing recorded is lost
-    environment = environment_from_bench(simulator.control)
-    await AutoOperator(client, environment).run(dict(metadata, chamber_serial="SIM-CH-9999"))
-    check = await AutoOperator(client, environment).run(metadata, plan=QUICK_MONTHLY)
-    await client.close()
-    # The only full calibration used another chamber: nothing is carried, the dose is pending.
-    assert check["results"]["factor_states"]["k_pol"] == "pending"
-    assert check["results"]["dose_Gy"] is None
-    codes = [flag["code"] for flag in check["results"]["flags"]]
-    assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
+    # The engine's and the daemon's decision only: the daemon in this process, on a hand clock.
+    async with session_daemon(tmp_path) as daemon:
+        client = await daemon.connect(operator=ACTOR)
+        await client.subscribe()
+        entered = dict(
+            metadata,
+            carried_k_pol={"value": 1.001, "source": "report", "date": "2026-03-02",
+                           "chamber_serial": "SIM-CH-9999"},
+        )  # fmt: skip
+        with pytest.raises(DaemonError) as refused:
+            await client.call("session.start", metadata=entered, plan=QUICK_MONTHLY)
+        assert refused.value.field == "carried_k_pol.chamber_serial"
+        assert "is from another chamber" in refused.value.message
+        with Store.open(daemon.db, read_only=True) as store:
+            assert store.sessions() == []  # nothing was started, nothing recorded is lost
+        environment = daemon.bench.environment
+        await AutoOperator(client, environment).run(dict(metadata, chamber_serial="SIM-CH-9999"))
+        check = await AutoOperator(client, environment).run(metadata, plan=QUICK_MONTHLY)
+        await client.close()
+        # The only full calibration used another chamber: nothing is carried, the dose is pending.
+        assert check["results"]["factor_states"]["k_pol"] == "pending"
+        assert check["results"]["dose_Gy"] is None
+        codes = [flag["code"] for flag in check["results"]["flags"]]
+        assert "k_pol_not_measured" in codes and "k_s_not_measured" in codes
 
 
+@pytest.mark.slow  # four demo runs, each a simulator and a daemon process
 def test_demo_monthly_check_after_a_full_calibration_gives_a_dose_with_carried_factors(tmp_path):
     db = tmp_path / "demo.sqlite"
 

@@ -44,6 +44,7 @@ def run(*args: str) -> str:
     return done.stdout
 
 
+@pytest.mark.slow  # a whole session, show, export and a replay
 async def test_an_electron_session_shows_R50_and_z_ref_and_no_photon_wording(
     daemon, simulator, metadata, tmp_path
 ):

@@ -43,6 +43,7 @@ def rows(db) -> tuple[int, int, int]:
         )
 
 
+@pytest.mark.slow  # a whole session, then reviews
 async def test_a_review_goes_through_the_daemon_with_the_reviewer_and_the_account(
     daemon, simulator, metadata
 ):

@@ -156,6 +156,7 @@ def test_the_station_file_runs_the_daemon_and_the_command_line_overrides_it(
         assert store.station().name == "Bunker B bench"  # station_name from the file
 
 
+@pytest.mark.slow  # a whole demo run
 def test_the_demo_reads_no_station_file(tmp_path):
     # A station machine's own file (here one serve would refuse) must not reach the demo.
     (tmp_path / "chargebook").mkdir()

@@ -52,8 +52,9 @@ RATE_PER_S = 200
 DISK_FULL_S = (10.0, 1.5)
 LOCK_S = (10.0, 6.0)
 WRITER_S = (10.0, 2.0)
-#: Lines pushed before the fault strikes and after it is cleared, s of flood.
-MARGIN_S = 2.0
+#: Lines pushed before the fault strikes and after it is cleared, s of flood: (full run, smoke
+#: run; 100 lines on each side at RATE_PER_S).
+MARGIN_S = (2.0, 0.5)
 TMPFS_SIZE = "24m"
 NOT_WRITABLE = "record not writable"
 
@@ -138,14 +139,20 @@ def other_writer(db: Path, seconds: float, how: str) -> subprocess.Popen[str]:
 
 
 async def fault_case(
-    world: Station, client: DaemonClient, watch: Watch, name: str, hold_s: float
+    world: Station,
+    client: DaemonClient,
+    watch: Watch,
+    name: str,
+    hold_s: float,
+    margin_s: float,
 ) -> dict:
-    """Push lines, strike with fault ``name`` for ``hold_s`` mid-flood, clear it; return counts."""
-    count = int(RATE_PER_S * (hold_s + 2 * MARGIN_S))
+    """Push lines, strike with fault ``name`` for ``hold_s`` after ``margin_s`` of flood, clear
+    it, push ``margin_s`` more; return counts."""
+    count = int(RATE_PER_S * (hold_s + 2 * margin_s))
     first_id = last_traffic_id(world.db)
     with world.bench(timeout_s=600) as bench:
         flood = asyncio.create_task(asyncio.to_thread(bench.flood, RATE_PER_S, count, wait=True))
-        await asyncio.sleep(MARGIN_S)
+        await asyncio.sleep(margin_s)
         started = time.monotonic()
         told, refusal = await strike(world, client, watch, name, hold_s)
         fault_s = time.monotonic() - started
@@ -221,7 +228,7 @@ def received_since(world: Station, first_id: int) -> int:
     return int(read_db(world.db, sql, (first_id,))[0][0])
 
 
-async def run_cases(world: Station, cases: list[tuple[str, float]]) -> list[dict]:
+async def run_cases(world: Station, cases: list[tuple[str, float]], margin_s: float) -> list[dict]:
     """Collect a set on the station and strike it with each fault in turn."""
     client = await collecting_daemon(world)
     watch = Watch()
@@ -230,7 +237,7 @@ async def run_cases(world: Station, cases: list[tuple[str, float]]) -> list[dict
     results = []
     try:
         for name, hold_s in cases:
-            results.append(await fault_case(world, client, watch, name, hold_s))
+            results.append(await fault_case(world, client, watch, name, hold_s, margin_s))
     finally:
         await client.close()
     return results
@@ -251,7 +258,7 @@ def main(argv: list[str] | None = None) -> int:
         else:
             out.note(f"disk full: SKIPPED, the tmpfs could not be mounted ({mount_failure})")
         with station_in(workdir, "push-exponent", *QUIET_STREAM) as world:
-            results = asyncio.run(run_cases(world, cases))
+            results = asyncio.run(run_cases(world, cases, MARGIN_S[pick]))
     return summarise(out, results)
 
 

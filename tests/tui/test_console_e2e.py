@@ -1,18 +1,24 @@
 """The console against the real daemon and the simulated electrometer, by key presses only.
 
-``chargebook simulate`` and ``chargebook serve`` run as subprocesses (tests/e2e fixtures); the
-console is the real ``ConsoleApp`` under Textual's Pilot at 80 × 24. Check values are the
-daemon's own record (read back over a second connection, or from ``chargebook run
---unattended`` on a simulator with the same seed) and the simulator's bench.
+The daemon is the real one in this process (``tests/acquire/in_process_daemon.py``: its engine,
+instrument thread, SQLite file and Unix socket), its electrometer the simulator on the in-memory
+wire with a hand clock, so the cable is pulled at a moment the test chooses. The console is the
+real ``ConsoleApp`` under Textual's Pilot at 80 × 24, talking to the daemon over its socket.
+A restart of the daemon process is shown against ``chargebook serve`` itself (tests/e2e
+fixtures), and the console in a real terminal in ``test_console_tmux.py``. Check values are the
+daemon's own record (read back over a second connection, or from the automatic operator on a
+twin daemon with the same seed) and the simulator's bench.
 """
 
 from __future__ import annotations
 
 import getpass
-import json
-import subprocess
+from collections.abc import AsyncIterator
+from pathlib import Path
+from typing import Any
 
 import pytest
+from chargebook.acquire.daemon.daemon import POLL_INTERVAL_S
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.tui.app import ConsoleApp
@@ -30,18 +36,34 @@ from console_driver import (
     state,
     until,
 )
-from e2e_support import QUICK_PLAN, TIME_SCALE, chargebook_command
+from e2e_support import QUICK_PLAN, TIME_SCALE
 from screen_text import screen_text
+
+from tests.acquire.in_process_daemon import InProcessDaemon, session_daemon
 
 pytestmark = pytest.mark.e2e
 
 SIZE = (80, 24)
 SEED = 5
 ROUTINE_STEP = 1  # the quick plan's second step (tests/e2e/plans/quick.toml)
+#: Real seconds per poll interval of instrument time: the console sees live charges at the pace
+#: a person would (faster, it spends its time drawing snapshots nobody could read).
+REAL_PACE_S = POLL_INTERVAL_S
 
 
-def bench_air(simulator) -> dict:
+def bench_air(daemon) -> dict:
     """Return the air temperature and pressure the bench's thermometer and barometer read."""
+    reply = daemon.sim.device.environment()
+    return {
+        "temperature_C": reply["temperature_C"],
+        "pressure_entered": reply["pressure_kPa"],
+        "pressure_unit": "kPa",
+    }
+
+
+def simulator_air(simulator) -> dict:
+    """Return the air the simulator process's thermometer and barometer read (for a console on
+    a daemon started as a process)."""
     with simulator.bench() as bench:
         reply = bench.environment()
     return {
@@ -51,43 +73,44 @@ def bench_air(simulator) -> dict:
     }
 
 
-def console(daemon, metadata, simulator) -> ConsoleApp:
-    """Return the console attached to ``daemon``, its form filled as an operator would."""
+def console(daemon, metadata, air: dict | None = None) -> ConsoleApp:
+    """Return the console attached to ``daemon``, its form filled as an operator would (the
+    air as ``air`` says, else as the in-process daemon's bench reads it)."""
     return ConsoleApp(
         daemon.socket,
         operator="console test",
-        setup_defaults={**metadata, **bench_air(simulator)},
+        setup_defaults={**metadata, **(air or bench_air(daemon))},
     )
 
 
-def unattended_results(start_simulator, tmp_path, metadata) -> dict:
-    """Return `chargebook run --unattended --json` on a fresh simulator with the same seed."""
-    twin = start_simulator(seed=SEED)
-    metadata_file = tmp_path / "metadata.json"
-    metadata_file.write_text(json.dumps(metadata))
-    command = chargebook_command(
-        "run", "--unattended", "--json", "--profile", twin.profile, "--port", twin.serial,
-        "--bench-control", twin.control, "--plan", QUICK_PLAN, "--time-scale", str(TIME_SCALE),
-        "--db", str(tmp_path / "unattended.sqlite"), "--metadata", str(metadata_file),
-    )  # fmt: skip
-    done = subprocess.run(command, capture_output=True, check=True, timeout=120)
-    return json.loads(done.stdout)
+@pytest.fixture
+async def daemon(tmp_path: Path) -> AsyncIterator[InProcessDaemon]:
+    """The daemon in this process on the quick plan, with the bench, time running."""
+    async with session_daemon(tmp_path, seed=SEED, real_s_per_step=REAL_PACE_S) as daemon:
+        yield daemon
+
+
+async def unattended_results(tmp_path: Path, metadata: dict[str, Any]) -> dict:
+    """Return the results of the automatic operator's session on a twin daemon, same seed."""
+    async with session_daemon(tmp_path / "twin", seed=SEED) as twin:
+        client, operator = await twin.operator()
+        final = await operator.run(metadata)
+        await client.close()
+    return final["results"]
 
 
 @pytest.mark.slow
 async def test_a_whole_session_by_keys_ends_in_the_summary_the_unattended_run_gives(
-    start_simulator, start_daemon, metadata, tmp_path
+    daemon, metadata, tmp_path
 ):
-    simulator = start_simulator(seed=SEED)
-    daemon = start_daemon(simulator)
-    app = console(daemon, metadata, simulator)
+    app = console(daemon, metadata)
     async with app.run_test(size=SIZE) as pilot:
         await start_session(pilot, app)
         await run_until(pilot, app, lambda: state(app) == "finished", "the end of the plan")
         await until(pilot, lambda: screen_kind(app) == "summary", "the summary")
         shown = screen_text(app)
         results = dict(app.snapshot["results"])
-    expected = unattended_results(start_simulator, tmp_path, metadata)
+    expected = await unattended_results(tmp_path, metadata)
     # Same seed, same plan, same air: the console's session is the unattended session. A
     # reading may differ in its last printed digit (0.0001 nC, about 5e-6 of a reading) when
     # the end of beam is sampled a poll later, so the match is to 1e-4 relative, well inside
@@ -100,14 +123,11 @@ async def test_a_whole_session_by_keys_ends_in_the_summary_the_unattended_run_gi
 
 
 @pytest.mark.slow
-async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
-    simulator, daemon, metadata
-):
-    app = console(daemon, metadata, simulator)
+async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(daemon, metadata):
+    app = console(daemon, metadata)
     async with app.run_test(size=SIZE) as pilot:
         await start_and_reach_step(pilot, app, ROUTINE_STEP)
-        with simulator.bench() as bench:
-            bench.spike()  # the next reading carries a spike
+        daemon.sim.device.set_spike()  # the next reading carries a spike
         await run_until(pilot, app, lambda: state(app) == "reviewing", "the routine set's review")
         assert "4 Flags" in screen_text(app)
         await pilot.press("r")
@@ -132,10 +152,8 @@ async def test_redo_by_keys_keeps_the_spiked_set_superseded_with_the_reason(
 
 
 @pytest.mark.slow
-async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborted(
-    simulator, daemon, metadata
-):
-    app = console(daemon, metadata, simulator)
+async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborted(daemon, metadata):
+    app = console(daemon, metadata)
     async with app.run_test(size=SIZE) as pilot:
         await start_and_reach_step(pilot, app, ROUTINE_STEP)
         readings_before = sum(len(s["readings"]) for s in app.snapshot["sets"])
@@ -152,9 +170,9 @@ async def test_abort_by_keys_asks_to_confirm_then_keeps_everything_marked_aborte
 
 
 async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lost(
-    simulator, daemon, metadata
+    daemon, metadata
 ):
-    app = console(daemon, metadata, simulator)
+    app = console(daemon, metadata)
     async with app.run_test(size=SIZE) as pilot:
         await start_and_reach_step(pilot, app, ROUTINE_STEP)
         before = app.snapshot
@@ -178,9 +196,10 @@ async def test_80_degrees_is_refused_naming_the_field_and_nothing_recorded_is_lo
 
 
 async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanwhile(
-    simulator, daemon, metadata
+    simulator, start_daemon, metadata
 ):
-    app = console(daemon, metadata, simulator)
+    daemon = start_daemon(simulator)  # the real `chargebook serve`: it is killed and restarted
+    app = console(daemon, metadata, simulator_air(simulator))
     async with app.run_test(size=SIZE) as pilot:
         await start_session(pilot, app)
         session_id = app.snapshot["session"]["id"]
@@ -194,36 +213,41 @@ async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanw
         assert screen_text(app).startswith(f" Session {session_id} · DEMO-LA1 6 MV")
 
 
-@pytest.mark.slow
+@pytest.mark.slow  # a reconnection at the daemon's backoff
 async def test_an_instrument_disconnect_mid_set_is_shown_plainly_and_the_set_continues(
-    simulator, start_daemon, metadata
+    tmp_path, metadata
 ):
-    # No bench: no beam is delivered, so the set cannot end by itself. The operator takes each
-    # reading by hand (capture), so the cable is pulled at a moment fixed by what the console
-    # shows, never by timing (with the bench the set could end before the pull on a loaded
-    # machine, and did).
-    daemon = start_daemon(simulator, bench=False)
-    app = console(daemon, metadata, simulator)
-    async with app.run_test(size=SIZE) as pilot:
-        await start_and_reach_step(pilot, app, ROUTINE_STEP)
-        await press_and_wait(pilot, app, "a")
-        await capture_by_hand(pilot, app)
-        assert state(app) == "collecting" and readings_done(app) == 1
-        with simulator.bench() as bench:
-            bench.drop(1.0)  # the cable is pulled for a second
-        await until(pilot, lambda: not instrument_connected(app), "the lost electrometer")
-        assert screen_text(app).startswith(" !! Electrometer DISCONNECTED")
-        await until(pilot, lambda: state(app) == "interrupted", "the interrupted set")
-        kept = readings_done(app)
-        assert kept == 1
-        await until(pilot, lambda: instrument_connected(app), "the electrometer back")
-        shown = screen_text(app)
-        assert "electrometer connected" in shown.splitlines()[0]
-        assert "interrupted" in shown
-        await press_and_wait(pilot, app, "a")  # continue the interrupted set
-        while state(app) != "reviewing":
+    # No bench: no beam is delivered, so the set cannot end by itself; the operator takes each
+    # reading by hand (capture). The cable is pulled with the hand clock stopped after the first
+    # reading, so the set is unfinished at the pull by construction (with a timer and the bench
+    # the set could end before the pull on a loaded machine, and did).
+    async with session_daemon(
+        tmp_path, seed=SEED, bench=False, real_s_per_step=REAL_PACE_S
+    ) as daemon:
+        app = console(daemon, metadata)
+        async with app.run_test(size=SIZE) as pilot:
+            await start_and_reach_step(pilot, app, ROUTINE_STEP)
+            await press_and_wait(pilot, app, "a")
             await capture_by_hand(pilot, app)
-        assert readings_done(app) == 3  # the reading taken before the drop is kept
+            assert state(app) == "collecting" and readings_done(app) == 1
+            await daemon.stop_time()
+            daemon.sim.wire.unplug()  # the cable is pulled
+            daemon.time.advance(0.05)  # one poll interval: the daemon finds no instrument
+            await until(pilot, lambda: not instrument_connected(app), "the lost electrometer")
+            assert screen_text(app).startswith(" !! Electrometer DISCONNECTED")
+            await until(pilot, lambda: state(app) == "interrupted", "the interrupted set")
+            kept = readings_done(app)
+            assert kept == 1
+            daemon.sim.wire.plug()  # and put back
+            await until(pilot, lambda: instrument_connected(app), "the electrometer back")
+            shown = screen_text(app)
+            assert "electrometer connected" in shown.splitlines()[0]
+            assert "interrupted" in shown
+            daemon.let_time_run(REAL_PACE_S)
+            await press_and_wait(pilot, app, "a")  # continue the interrupted set
+            while state(app) != "reviewing":
+                await capture_by_hand(pilot, app)
+            assert readings_done(app) == 3  # the reading taken before the pull is kept
 
 
 async def capture_by_hand(pilot, app: ConsoleApp) -> None:
@@ -247,36 +271,35 @@ def instrument_connected(app: ConsoleApp) -> bool:
 
 @pytest.mark.slow
 async def test_a_bias_change_the_electrometer_cannot_make_is_asked_for_and_done_by_hand(
-    start_simulator, start_daemon, metadata
+    tmp_path, metadata
 ):
-    simulator = start_simulator(profile="push-exponent")  # no remote bias supply
-    daemon = start_daemon(simulator)
-    app = console(daemon, metadata, simulator)
-    async with app.run_test(size=SIZE) as pilot:
+    # push-exponent has no remote bias supply
+    async with (
+        session_daemon(tmp_path, profile="push-exponent", real_s_per_step=REAL_PACE_S) as daemon,
+        console(daemon, metadata).run_test(size=SIZE) as pilot,
+    ):
+        app = pilot.app
         await start_session(pilot, app)
         await run_until(
             pilot, app, lambda: "step.manual_done" in allowed(app), "a step done by hand"
         )
-        await run_until(pilot, app, lambda: "Do now:" in screen_text(app), "the instruction drawn")
+        # Wait without moving: a move here would press "d" before the instruction is drawn.
+        await until(pilot, lambda: "Do now:" in screen_text(app), "the instruction drawn")
         shown = " ".join(screen_text(app).split())
         asked = app.snapshot["prompt"]["text"]  # the daemon's words, e.g. "Turn the bias to ..."
         assert "step.arm" not in allowed(app)  # no readings before the switch is turned
         await press_and_wait(pilot, app, "d")
         await run_until(pilot, app, lambda: state(app) == "finished", "the end of the plan")
+        record = await daemon_record(daemon)
     assert "by hand" in asked
     assert f"Do now: {asked}" in shown  # said in plain words on the measure screen
-    record = await daemon_record(daemon)
     assert record["session"]["status"] == "finished"
 
 
-async def test_the_watch_console_shows_the_session_and_offers_no_action(
-    daemon, metadata, simulator
-):
-    from chargebook.acquire.commands.operator_auto import AutoOperator, environment_from_bench
+async def test_the_watch_console_shows_the_session_and_offers_no_action(daemon, metadata):
     from chargebook.tui.actions import ACTIONS
 
-    control = await daemon.connect()
-    operator = AutoOperator(control, environment_from_bench(simulator.control))
+    control, operator = await daemon.operator()
     snapshot = await operator.start(metadata)
     snapshot = await operator.run_until(snapshot, lambda s: "step.arm" in s["allowed"])
     app = ConsoleApp(daemon.socket.parent / "watch.sock", watch=True)
@@ -299,10 +322,10 @@ async def test_the_watch_console_shows_the_session_and_offers_no_action(
 
 
 async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_requests(
-    simulator, daemon, metadata
+    daemon, metadata
 ):
     # The console was started as "console test"; the form says who measures (issue 15).
-    app = console(daemon, metadata, simulator)
+    app = console(daemon, metadata)
     async with app.run_test(size=SIZE) as pilot:
         await start_session(pilot, app)
         session_id = app.snapshot["session"]["id"]
@@ -312,3 +335,84 @@ async def test_the_operator_typed_into_the_form_is_the_actor_of_the_consoles_req
     by_console = [e for e in events if e.kind in by_console_kinds]
     assert {e.actor for e in by_console} == {metadata["operator"]}
     assert {e.account for e in by_console} == {getpass.getuser()}
+
+
+async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_rows(
+    start_daemon, simulator, tmp_path
+):
+    """Ctrl+R lists the registers from the daemon; the chosen beam, chamber and electrometer
+    fill the form, the certificate's date is shown, and the session keeps the row ids."""
+    from chargebook.acquire.commands.demo_data import add_demo_registers
+    from chargebook.tui.screens.register_pick import RegisterPickScreen
+    from textual.widgets import Select
+
+    db = tmp_path / "station.sqlite"
+    with Store.open(db) as store:
+        ids = add_demo_registers(store, actor="physicist C")
+    daemon = start_daemon(simulator, db)
+    app = ConsoleApp(
+        daemon.socket,
+        operator="console test",
+        setup_defaults={"operator": "operator A", **simulator_air(simulator)},
+    )
+    async with app.run_test(size=(100, 40)) as pilot:
+        await until(pilot, lambda: screen_kind(app) == "setup", "the setup form")
+        await pilot.press("ctrl+r")
+        await until(pilot, lambda: isinstance(app.screen, RegisterPickScreen), "the registers")
+        choices = {
+            kind: [label for label, _ in app.screen.query_one(f"#pick-{kind}", Select)._options]
+            for kind in ("beam", "chamber")
+        }
+        for kind, key in (("beam", "la1_6mv"), ("chamber", "ch1"), ("electrometer", "em1")):
+            app.screen.query_one(f"#pick-{kind}", Select).value = ids[key]
+        await pilot.click("#confirm")
+        await until(pilot, lambda: app.screen.kind == "setup", "the form again")
+        await until(
+            pilot,
+            lambda: app.screen.query_one("#input-chamber_serial").value == "SIM-CH-0001",
+            "the chamber's serial in the form",
+        )
+        shown = " ".join(screen_text(app).split())
+        await start_session(pilot, app)
+        kept = app.snapshot["session"]["metadata"]
+    assert "DEMO-LA1 6 MV" in choices["beam"] and "DEMO-LA1 10 MeV" in choices["beam"]
+    assert "SIM-CH-0003" in choices["chamber"]
+    assert "From the registers: DEMO-LA1 6 MV, chamber SIM-CH-0001" in shown
+    assert "certificate SIM-CAL-0001, Example Calibration Laboratory (fictional) of 20" in shown
+    assert kept["registers"]["beam"] == ids["la1_6mv"]
+    assert kept["register_copy"]["chamber"]["fields"]["serial"] == "SIM-CH-0001"
+    assert kept["k_Q"] == 0.992
+
+
+async def test_ctrl_t_has_the_daemon_read_its_sensor_and_without_one_says_so(
+    start_daemon, simulator, metadata
+):
+    """In the air form, Ctrl+T records an entry the daemon reads from its environment sensor
+    (serve --sensor-port); a daemon with no sensor refuses it in words, and the form stays."""
+    plain = start_daemon(simulator)
+    app = console(plain, metadata, simulator_air(simulator))
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: "Not read: sensor" in screen_text(app), "the refusal")
+        assert isinstance(app.screen, EnvironmentScreen)
+    plain.stop()
+    sensed = start_daemon(
+        simulator, None, QUICK_PLAN, True, TIME_SCALE, "--sensor-port", simulator.info["sensor"]
+    )
+    app = console(sensed, metadata, simulator_air(simulator))
+    async with app.run_test(size=SIZE) as pilot:
+        await start_session(pilot, app)
+        typed = app.snapshot["environment"]["source"]
+        await pilot.press("t")
+        await until(pilot, lambda: isinstance(app.screen, EnvironmentScreen), "the air form")
+        await pilot.press("ctrl+t")
+        await until(pilot, lambda: not isinstance(app.screen, EnvironmentScreen), "the form shut")
+        await until(
+            pilot,
+            lambda: app.snapshot["environment"]["source"].startswith("sensor SIM-TP-0001"),
+            "the sensor's entry",
+        )
+    assert typed == "console"  # the form's typed entry, marked as typed at the console

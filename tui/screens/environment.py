@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
-from typing import Any
+from typing import Any, ClassVar
 
 from chargebook.acquire.client import ConnectionLost, DaemonError
 from chargebook.acquire.protocol import Method
@@ -12,6 +12,7 @@ from chargebook.tui.screens.dialog_base import Dialog
 from chargebook.tui.widgets.environment_fields import EnvironmentFields
 from textual import on, work
 from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
 from textual.containers import Vertical
 from textual.widgets import Button, Input, Label, Static
 
@@ -19,6 +20,10 @@ READ_THE_INSTRUMENTS = "Read the thermometer and barometer at the chamber, then 
 
 
 class EnvironmentScreen(Dialog[bool]):
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("ctrl+t", "read_sensor", "Read the sensor", priority=True)
+    ]
+
     """Enter a new temperature and pressure; dismissed with True once the daemon recorded them.
 
     A value the console or the daemon refuses stays on screen with the reason under its entry;
@@ -34,7 +39,9 @@ class EnvironmentScreen(Dialog[bool]):
         with Vertical(classes="dialog"):
             yield Label("New air temperature and pressure", classes="dialog-title")
             yield Static(
-                "Read the thermometer and barometer at the chamber, then Enter.", markup=False
+                "Read the thermometer and barometer at the chamber, then Enter; or Ctrl+T: "
+                "the daemon reads its sensor.",
+                markup=False,
             )
             yield EnvironmentFields(self.current)
             yield Static("", id="environment-problem", classes="dialog-warning", markup=False)
@@ -67,6 +74,19 @@ class EnvironmentScreen(Dialog[bool]):
             return
         except ConnectionLost as error:
             self._say(f"!! Not recorded: {error}")
+            return
+        self.dismiss(True)
+
+    @work(exclusive=True, group="environment")
+    async def action_read_sensor(self) -> None:
+        """Ask the daemon to read its environment sensor now (recorded with its source)."""
+        try:
+            await self.send(Method.ENVIRONMENT_READ)
+        except DaemonError as error:
+            self._say(f"!! Not read: {error.message}")
+            return
+        except ConnectionLost as error:
+            self._say(f"!! Not read: {error}")
             return
         self.dismiss(True)
 

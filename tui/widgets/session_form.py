@@ -227,6 +227,18 @@ class SessionForm(Vertical):
                 )
         return metadata
 
+    def fill(self, values: Mapping[str, Any]) -> None:
+        """Put ``values`` (metadata keys, as the daemon gives them from the registers) in their
+        entries and choices; keys with no entry here are left out."""
+        for field in self.query(Field):
+            if field.field_name in values:
+                field.input.value = _shown(values[field.field_name])
+        for choice_field in self.query(ChoiceField):
+            if values.get(choice_field.field_name) is not None:
+                choice_field.query_one(Select).value = str(values[choice_field.field_name])
+        if values.get("N_Dw_unit") is not None:
+            self.query_one("#choice-N_Dw_unit", Select).value = str(values["N_Dw_unit"])
+
     def show_refusal(self, field_name: str | None, message: str) -> bool:
         """Show the daemon's refusal under the entry it names; return False if none matches."""
         if not field_name:
