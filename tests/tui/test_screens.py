@@ -562,3 +562,15 @@ async def test_a_delta_that_changes_only_the_set_in_progress_redraws_neither_his
         screen.show(shown, screen.link)
         await pilot.pause()
         assert drawn == {"history": 2, "plan": 1}  # nothing of them changed: not drawn again
+
+
+async def test_a_screen_being_taken_down_ignores_a_late_snapshot():
+    from chargebook.tui.widgets.status_line import StatusLine
+
+    app = ScreenHarness(MeasureScreen, load_snapshot("collecting"))
+    async with app.run_test(size=SIZE) as pilot:
+        screen = app.screen
+        await screen.query_one(StatusLine).remove()  # as when the app switches screens
+        screen.show(load_snapshot("reviewing_spike"), screen.link)  # raised NoMatches
+        await pilot.pause()
+        assert screen.snapshot == load_snapshot("reviewing_spike")

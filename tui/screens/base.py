@@ -7,6 +7,7 @@ from typing import Any
 
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.widgets.status_line import StatusLine
+from textual.css.query import NoMatches
 from textual.screen import Screen
 
 #: Sends one request to the daemon and returns its result (``ConsoleApp.call_daemon``).
@@ -61,8 +62,12 @@ class ConsoleScreen(Screen):
         self.snapshot, self.link = snapshot, link
         if not self._composed:
             return
-        self.status_line.link = link
-        self.status_line.snapshot = snapshot
+        try:
+            status_line = self.status_line
+        except NoMatches:  # being taken down (switched away from): nothing left to draw on
+            return
+        status_line.link = link
+        status_line.snapshot = snapshot
         if snapshot is not None:
             self.render_snapshot(snapshot)
         allowed = self.allowed()
