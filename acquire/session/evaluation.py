@@ -185,12 +185,9 @@ class _ResultSets:
 
 def _recorded_sets(
     store: RecordReader, session_id: int
-) -> tuple[list[SetRow], dict[int, list[ReadingRow]]]:
+) -> tuple[list[SetRow], dict[int, tuple[ReadingRow, ...]]]:
     """Return the session's sets and their readings by set id, read once per evaluation."""
-    by_set: dict[int, list[ReadingRow]] = {}
-    for reading in store.readings(session_id):
-        by_set.setdefault(reading.set_id, []).append(reading)
-    return store.sets(session_id), by_set
+    return store.sets(session_id), store.readings_by_set(session_id)
 
 
 def _result_sets(
