@@ -10,6 +10,11 @@ and scripts can use it without pulling in the store or the drivers.
         if note.method == "snapshot": ...
     await client.close()
 
+The daemon sends what changed (``delta`` notifications); the client applies each to the
+snapshot it holds and passes the result on as a ``snapshot`` notification whose unchanged parts
+are the very objects of the one before (so a console can redraw only what changed). A missed
+delta makes it ask for the whole snapshot (``status``) and go on from that.
+
 ``call`` raises :class:`DaemonError` (with ``code``, ``message``, ``data`` and ``field``) when the
 daemon answers with an error, and :class:`ConnectionLost` when the socket goes away; pending
 calls then fail and :meth:`DaemonClient.notifications` ends. :func:`connect_with_retry` waits
@@ -135,6 +140,10 @@ class DaemonClient:
         self._snapshot_changed = asyncio.Condition()
         self._write_lock = asyncio.Lock()
         self.latest_snapshot: dict[str, Any] | None = None
+        #: The snapshot the daemon's next delta applies to (None: none yet, or one was missed).
+        self._base: dict[str, Any] | None = None
+        self._resync_id: int | None = None  # the status request that replaces a missed delta
+        self._base_ids: set[int] = set()  # requests whose result becomes the base (subscribe)
         self.hello: dict[str, Any] | None = None
         self._closed = False
         self._reader_task = asyncio.create_task(self._read_loop(), name="daemon-client-reader")
@@ -205,9 +214,16 @@ class DaemonClient:
         Raises :class:`DaemonError` for an error response and :class:`ConnectionLost` if the
         connection closes first. ``None`` values are left out of the params.
         """
+        return await self._request(method, params)
+
+    async def _request(self, method: str, params: dict[str, Any], *, base: bool = False) -> Any:
+        """Send one request and return its result; ``base``: the result is a whole snapshot
+        that the deltas sent after it apply to, held as it is read (before any of them)."""
         if not self.connected:
             raise ConnectionLost("not connected to the daemon")
         request_id = next(self._ids)
+        if base:
+            self._base_ids.add(request_id)
         clean = {name: value for name, value in params.items() if value is not None}
         line = protocol.encode(protocol.request(request_id, str(method), clean))
         future: asyncio.Future[Any] = asyncio.get_running_loop().create_future()
@@ -217,6 +233,7 @@ class DaemonClient:
             return await future
         finally:
             self._pending.pop(request_id, None)
+            self._base_ids.discard(request_id)
 
     async def send_raw(self, data: bytes) -> None:
         """Write bytes to the socket as they are (for tests of the daemon's robustness)."""
@@ -228,8 +245,8 @@ class DaemonClient:
                 raise ConnectionLost(f"lost the daemon while sending: {error}") from error
 
     async def subscribe(self) -> dict[str, Any]:
-        """Start notifications and return the current snapshot."""
-        snapshot = await self.call(protocol.Method.SUBSCRIBE)
+        """Start notifications and return the current snapshot (the base of the first delta)."""
+        snapshot = await self._request(protocol.Method.SUBSCRIBE, {}, base=True)
         await self._remember_snapshot(snapshot)
         return snapshot
 
@@ -314,16 +331,22 @@ class DaemonClient:
             log.warning("ignoring a message from the daemon that is not an object")
             return
         if "method" in message and "id" not in message:
-            note = Notification(str(message["method"]), message.get("params"))
+            sent = Notification(str(message["method"]), message.get("params"))
+            note = self._applied(sent.params) if sent.method == protocol.NOTIFY_DELTA else sent
+            if note is None:
+                return
             if note.method == protocol.NOTIFY_SNAPSHOT and isinstance(note.params, dict):
-                await self._remember_snapshot(note.params)
-            self._enqueue(note)
-            for callback in list(self._callbacks):
-                try:
-                    callback(note)
-                except Exception:
-                    log.exception("a notification listener failed")
+                await self._take_snapshot(note.params)
+                return
+            self._pass_on(note)
             return
+        if self._resync_id is not None and message.get("id") == self._resync_id:
+            self._resync_id = None
+            if isinstance(message.get("result"), dict):  # the whole snapshot, in its place
+                await self._take_snapshot(message["result"])
+            return
+        if message.get("id") in self._base_ids and isinstance(message.get("result"), dict):
+            self._base = message["result"]
         future = self._pending.get(message.get("id"))  # type: ignore[arg-type]
         if future is None or future.done():
             if message.get("id") is None and "error" in message:
@@ -340,6 +363,47 @@ class DaemonClient:
             )
         else:
             future.set_result(message.get("result"))
+
+    async def _take_snapshot(self, snapshot: dict[str, Any]) -> None:
+        """Hold a whole snapshot (the next delta's base) and pass it on as a notification."""
+        self._base = snapshot
+        await self._remember_snapshot(snapshot)
+        self._pass_on(Notification(protocol.NOTIFY_SNAPSHOT, snapshot))
+
+    def _pass_on(self, note: Notification) -> None:
+        """Give a notification to the iterators and the listeners."""
+        self._enqueue(note)
+        for callback in list(self._callbacks):
+            try:
+                callback(note)
+            except Exception:
+                log.exception("a notification listener failed")
+
+    def _applied(self, delta: Any) -> Notification | None:
+        """Return the ``snapshot`` notification a ``delta`` leads to from the snapshot held;
+        None when it is not the delta's base (one was missed: the whole snapshot is asked for,
+        and deltas are ignored until it comes) or already newer than the delta."""
+        base = self._base
+        if not isinstance(delta, dict) or self._resync_id is not None:
+            return None
+        if base is not None and delta.get("seq", 0) <= base.get("seq", 0):
+            return None  # the snapshot held is already as new (a status reply overtook it)
+        try:
+            if base is None:
+                raise protocol.DeltaGap("no snapshot to apply a delta to")
+            return Notification(protocol.NOTIFY_SNAPSHOT, protocol.apply_delta(base, delta))
+        except (protocol.DeltaGap, KeyError, TypeError) as error:
+            log.info("asking the daemon for the whole snapshot: %s", error)
+            self._resync()
+            return None
+
+    def _resync(self) -> None:
+        """Ask for the whole snapshot; its reply replaces the one held (see :meth:`_dispatch`)."""
+        request_id = next(self._ids)
+        self._resync_id = request_id
+        line = protocol.encode(protocol.request(request_id, str(protocol.Method.STATUS)))
+        with contextlib.suppress(ConnectionError, RuntimeError):
+            self._writer.write(line)
 
     def _enqueue(self, note: Notification) -> None:
         if self._queue.full():

@@ -15,9 +15,13 @@ Sequence of a client
     1. ``hello`` {client, operator?}: names the client and the person at the keyboard (the
        *actor* written in the audit log for every request on this connection).
     2. ``subscribe``: from now on the daemon sends notifications on this connection:
-       ``snapshot`` (params: a whole :class:`Snapshot`, after every change) and ``event``
-       (params: one :class:`EventInfo`, the audit-log entry just committed).
-       ``subscribe`` returns the current snapshot, so a client never misses the state.
+       ``delta`` (params: a :class:`Delta`, what changed since the snapshot of seq
+       ``base_seq``, after every change) and ``event`` (params: one :class:`EventInfo`, the
+       audit-log entry just committed). ``subscribe`` returns the whole current snapshot, the
+       base of the first delta; :func:`apply_delta` turns a snapshot and a delta into the next
+       snapshot. A client whose snapshot is not the delta's base (it missed one) asks for the
+       whole snapshot again (``status``). So the bytes sent per reading do not grow with the
+       session: a reading sends its set, the results and the prompt, not every set before it.
     3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
        lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
 
@@ -38,11 +42,9 @@ from __future__ import annotations
 import enum
 import json
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Literal, NotRequired, TypedDict, TypeVar
+from typing import Any, Literal, NamedTuple, NotRequired, TypedDict, TypeVar
 
 #: Shown with every result: by the console, the command line, reports and exports.
 CAUTION = (
@@ -191,6 +193,7 @@ OPERATOR_ACTIONS: tuple[str, ...] = (
 )
 
 NOTIFY_SNAPSHOT = "snapshot"
+NOTIFY_DELTA = "delta"
 NOTIFY_EVENT = "event"
 
 PRESSURE_UNITS = ("kPa", "hPa", "mmHg")
@@ -214,8 +217,7 @@ REGISTER_KINDS = (
 ParamKind = Literal["string", "number", "integer", "boolean", "object", "string_or_object"]
 
 
-@dataclass(frozen=True, slots=True)
-class Param:
+class Param(NamedTuple):
     """One named parameter of a method: its JSON kind, whether it is required, what it means."""
 
     name: str
@@ -225,8 +227,7 @@ class Param:
     choices: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True, slots=True)
-class MethodSpec:
+class MethodSpec(NamedTuple):
     """A method: its parameters (by name), what it does and what it returns."""
 
     name: str
@@ -263,8 +264,8 @@ METHODS: dict[str, MethodSpec] = {
         ),
         MethodSpec(
             Method.SUBSCRIBE,
-            "Start `snapshot` and `event` notifications on this connection.",
-            result="the current snapshot",
+            "Start `delta` and `event` notifications on this connection.",
+            result="the current snapshot, the base of the first delta",
         ),
         MethodSpec(Method.UNSUBSCRIBE, "Stop notifications on this connection.", result="{}"),
         MethodSpec(Method.STATUS, "Return the current snapshot.", result="the current snapshot"),
@@ -732,6 +733,87 @@ class Snapshot(TypedDict):
     plans: NotRequired[list[dict[str, Any]]]
 
 
+class Delta(TypedDict):
+    """What changed from the snapshot of seq ``base_seq`` to the one of seq ``seq`` (params of
+    the ``delta`` notification; see :func:`snapshot_delta` and :func:`apply_delta`)."""
+
+    seq: int
+    base_seq: int
+    changed: dict[str, Any]  # the top-level Snapshot keys whose value changed, new values
+    sets: list[SetInfo]  # sets new or changed since the base, whole, in the snapshot's order
+    #: The current set is this one of the sets sent (sent once, not again as ``current_set``).
+    current_set_id: NotRequired[int]
+
+
+class DeltaGap(ValueError):
+    """A delta does not apply to the snapshot held: its base is another snapshot."""
+
+
+def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
+    """Return the :class:`Delta` that turns snapshot ``old`` into snapshot ``new``.
+
+    Sets are compared one by one (by position, their ids checked): only those new or changed
+    are sent. When ``new`` does not extend ``old``'s sets (another session), ``sets`` is sent
+    whole among ``changed``. The current set, when it is one of the sets sent, is named by its
+    id (``current_set_id``) instead of being sent twice.
+    """
+    changed = {
+        key: value
+        for key, value in new.items()
+        if key not in ("seq", "sets") and (key not in old or old[key] != value)
+    }
+    old_sets, new_sets = old.get("sets") or [], new.get("sets") or []
+    extends = len(new_sets) >= len(old_sets) and all(
+        before["id"] == after["id"] for before, after in zip(old_sets, new_sets, strict=False)
+    )
+    sets: list[Any] = []
+    if not extends:
+        changed["sets"] = new_sets
+    else:
+        sets = [
+            entry
+            for index, entry in enumerate(new_sets)
+            if index >= len(old_sets) or old_sets[index] != entry
+        ]
+    delta: Delta = {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": sets}
+    current = changed.get("current_set")
+    sent = changed.get("sets", sets)
+    if current is not None and any(
+        entry["id"] == current["id"] and entry == current for entry in sent
+    ):
+        del changed["current_set"]
+        delta["current_set_id"] = current["id"]
+    return delta
+
+
+def apply_delta(snapshot: Mapping[str, Any], delta: Mapping[str, Any]) -> dict[str, Any]:
+    """Return the snapshot ``delta`` leads to from ``snapshot`` (which is left as it was).
+
+    What did not change is the very object of ``snapshot`` (a client can tell what to redraw
+    by identity). Raises :class:`DeltaGap` when ``snapshot`` is not the delta's base.
+    """
+    if snapshot.get("seq") != delta["base_seq"]:
+        raise DeltaGap(
+            f"the delta applies to snapshot {delta['base_seq']}, not to {snapshot.get('seq')}"
+        )
+    result = {**snapshot, **delta["changed"], "seq": delta["seq"]}
+    if delta["sets"]:
+        sets = list(result.get("sets") or [])
+        for entry in delta["sets"]:
+            place = next(
+                (i for i in range(len(sets) - 1, -1, -1) if sets[i]["id"] == entry["id"]), None
+            )
+            if place is None:
+                sets.append(entry)
+            else:
+                sets[place] = entry
+        result["sets"] = sets
+    if "current_set_id" in delta:
+        wanted = delta["current_set_id"]
+        result["current_set"] = next(s for s in reversed(result["sets"]) if s["id"] == wanted)
+    return result
+
+
 class EventInfo(TypedDict):
     """One audit-log entry, as committed (params of the ``event`` notification)."""
 
@@ -815,6 +897,8 @@ WATCH_ONLY = "this is the watch-only socket: actions are taken on the control so
 def default_socket_dir() -> Path:
     """Return the directory for the daemon's socket: ``$XDG_RUNTIME_DIR/chargebook``, else
     ``<tmp>/chargebook-<uid>``. The daemon creates it with mode 0700."""
+    import tempfile  # here, not at the top: `chargebook --help` does not need it
+
     runtime = os.environ.get("XDG_RUNTIME_DIR")
     if runtime and Path(runtime).is_dir():
         return Path(runtime) / "chargebook"
@@ -875,6 +959,8 @@ def _client_directory_problem(directory: Path, info: Any, mode: int, mine: bool)
         return None
     if info.st_gid not in {os.getgid(), *os.getgroups()} or not mode & 0o050:
         return f"{directory} belongs to another user (uid {info.st_uid}) and not to your group"
+    import tempfile
+
     if directory == Path(tempfile.gettempdir()) / f"chargebook-{os.getuid()}":
         return f"{directory} is named for your uid but belongs to another user (uid {info.st_uid})"
     return None

@@ -41,10 +41,13 @@ def _across(stores: Sequence[RecordReader], args: argparse.Namespace) -> list[di
 
 def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
     """Return the station's sessions that match the filters, as the JSON output lists them."""
+    from chargebook.acquire.record.events import EventKind
     from chargebook.acquire.record.review import review_of, review_status
     from chargebook.acquire.reports.history import matches
 
     station = store.station()
+    set_counts, reading_counts = store.set_counts(), store.reading_counts()
+    reviews = store.events_of_kind(EventKind.SESSION_REVIEWED)
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:
@@ -52,8 +55,8 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
         if not matches(session, args.beam, args.machine):
             continue
         meta = session.metadata()
-        sets = store.sets(session.id)
-        review = review_of(store.events(session.id))
+        sets, accepted = set_counts.get(session.id, (0, 0))
+        review = review_of(reviews.get(session.id, []))
         rows.append(
             {
                 "id": session.id,
@@ -66,9 +69,9 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
                 "beam": meta.get("beam", session.beam),
                 "operator": meta.get("operator"),
                 "convention": session.convention,
-                "sets_accepted": sum(1 for s in sets if s.status == "accepted"),
-                "sets": len(sets),
-                "readings": len(store.readings(session.id)),
+                "sets_accepted": accepted,
+                "sets": sets,
+                "readings": reading_counts.get(session.id, 0),
                 "replay_of": session.replay_of,
                 "review": review_status(review),
                 "reviewer": review.reviewer if review else None,

@@ -20,6 +20,7 @@ from __future__ import annotations
 import asyncio
 import collections
 import contextlib
+import json
 import logging
 import os
 import queue
@@ -42,7 +43,7 @@ from chargebook.acquire.record import events as ev
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
-from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, Store, require_writable
+from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
 from chargebook.acquire.session.register_requests import REGISTER_METHODS
 from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import (
@@ -402,6 +403,40 @@ class InstrumentLink(threading.Thread):
             timeout_s = BURST_GAP_S
 
 
+def _event_info(event: EventRow) -> protocol.EventInfo:
+    """Return the ``event`` notification's params for one committed audit event."""
+    return {
+        "id": event.id,
+        "session_id": event.session_id,
+        "recorded_at": event.recorded_at,
+        "actor": event.actor,
+        "kind": event.kind,
+        "detail": json.loads(event.detail_json),
+    }
+
+
+def _fitted(snapshot: protocol.Snapshot) -> protocol.Snapshot:
+    """Return ``snapshot``, or, if it is too long for one message, a copy without the readings
+    of the sets other than the current one."""
+    try:
+        _snapshot_notification(snapshot)
+    except ValueError:
+        current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
+        sets = [
+            entry if entry["id"] == current else _without_readings(entry)
+            for entry in snapshot["sets"]
+        ]
+        return {**snapshot, "sets": sets}
+    return snapshot
+
+
+def _without_readings(entry: protocol.SetInfo) -> protocol.SetInfo:
+    """Return a copy of a set's entry without its readings (statistics and flags kept)."""
+    trimmed = entry.copy()
+    trimmed["readings"] = []
+    return trimmed
+
+
 def _snapshot_notification(snapshot: protocol.Snapshot) -> bytes:
     """Return the encoded ``snapshot`` notification; ValueError if it is over the size limit."""
     return protocol.encode_from_daemon(protocol.notification(protocol.NOTIFY_SNAPSHOT, snapshot))
@@ -442,12 +477,14 @@ class Daemon:
         self._latest_received: LineRef | None = None  # the newest received line's ref
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
-        #: The latest snapshot built: (engine.seq it shows, snapshot, notification line).
-        self._built: tuple[int, protocol.Snapshot, bytes | None] | None = None
+        #: The latest snapshot built: (engine.seq it shows, snapshot).
+        self._built: tuple[int, protocol.Snapshot] | None = None
+        #: The snapshot every subscriber holds, the base of the next delta (None: no subscriber).
+        self._sent: protocol.Snapshot | None = None
         self._sampled_reading: object = None
         self._published_seq = -1
-        self._published_event_id = 0
-        self._events_checked_at: int | None = None  # engine.data_version at the last look
+        #: Events committed and not yet broadcast, in order (the store hands them over).
+        self._emitted: list[EventRow] = []
         self._last_live: tuple[float, float | None] = (0.0, None)
         self._stopping = asyncio.Event()
         self._stop_reason = "asked to stop"
@@ -461,6 +498,8 @@ class Daemon:
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)
+        self.store.on_events_committed = self._emitted.extend
+        self.store.remember_rows()  # the one writer, under the station lock
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
@@ -854,32 +893,25 @@ class Daemon:
         await self.publish()
 
     async def publish(self) -> None:
-        """Broadcast new audit events and, if the state changed, the snapshot."""
+        """Broadcast the audit events committed since the last call (as the store handed them
+        over: nothing is read back) and, if the state changed, the snapshot."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
-        if engine.session_id is not None and self._events_checked_at != engine.data_version:
-            self._events_checked_at = engine.data_version
-            for event in self.store.events_after(engine.session_id, self._published_event_id):
-                self._published_event_id = event.id
-                await self._broadcast(
-                    protocol.NOTIFY_EVENT,
-                    {
-                        "id": event.id,
-                        "session_id": event.session_id,
-                        "recorded_at": event.recorded_at,
-                        "actor": event.actor,
-                        "kind": event.kind,
-                        "detail": event.detail(),
-                    },
-                )
-        if engine.seq != self._published_seq:
-            self._published_seq = engine.seq
-            servers = (self.server, self.watch_server)
-            if any(server.has_subscribers() for server in servers):  # else: nothing to build
-                _, line = self._snapshot_and_line()
-                if line is not None:
-                    for server in servers:
-                        await server.broadcast_line(line)
+        emitted = self._emitted[:]
+        self._emitted.clear()  # the same list: the store extends it
+        for event in emitted:
+            await self._broadcast(protocol.NOTIFY_EVENT, _event_info(event))
+        if engine.seq == self._published_seq:
+            return
+        self._published_seq = engine.seq
+        servers = (self.server, self.watch_server)
+        if not any(server.has_subscribers() for server in servers):  # nothing to build
+            self._sent = None
+            return
+        line = self._change_line(self._current_snapshot())
+        if line is not None:
+            for server in servers:
+                await server.broadcast_line(line)
 
     async def _broadcast(self, method: str, params: Any) -> None:
         """Send a notification to the subscribers of both sockets."""
@@ -887,43 +919,51 @@ class Daemon:
         for server in (self.server, self.watch_server):
             await server.broadcast_line(line)
 
+    def _change_line(self, snapshot: protocol.Snapshot) -> bytes | None:
+        """Return the notification that brings every subscriber to ``snapshot``: a ``delta``
+        from the one they hold, or (none held, or a delta too long) the whole snapshot."""
+        base, self._sent = self._sent, snapshot
+        if base is not None:
+            with contextlib.suppress(ValueError):  # too long: the whole snapshot, trimmed
+                delta = protocol.snapshot_delta(base, snapshot)
+                return protocol.encode_from_daemon(
+                    protocol.notification(protocol.NOTIFY_DELTA, delta)
+                )
+        fitted = _fitted(snapshot)
+        self._sent = fitted
+        try:
+            return _snapshot_notification(fitted)
+        except ValueError as error:
+            log.error("a snapshot was not sent: %s", error)
+            return None
+
     def snapshot(self) -> protocol.Snapshot:
-        """Return the engine's snapshot, trimmed to fit one message if it must be."""
-        return self._snapshot_and_line()[0]
+        """Return the engine's snapshot now (the one built last, if nothing changed since),
+        trimmed to fit one message if it must be."""
+        return _fitted(self._current_snapshot())
 
-    def _snapshot_and_line(self, *, reuse: bool = False) -> tuple[protocol.Snapshot, bytes | None]:
-        """Return the engine's snapshot, trimmed to fit one message if it must be, and its
-        notification line, encoded once (None if even the trimmed snapshot does not fit).
+    def _subscriber_snapshot(self) -> protocol.Snapshot:
+        """Return the snapshot a new subscriber starts from: the one the other subscribers
+        hold (the next delta's base), or, with none, the snapshot now, which becomes it."""
+        if self._sent is None:
+            assert self.engine is not None
+            self._published_seq = self.engine.seq
+            self._sent = _fitted(self._current_snapshot())
+        return self._sent
 
-        ``reuse``: the one built last, if nothing changed since (``engine.seq``), so that an
-        action's reply is the snapshot its change was published with, built once.
-        """
+    def _current_snapshot(self) -> protocol.Snapshot:
+        """Return the engine's snapshot at ``engine.seq``, built once per change: an action's
+        reply is the snapshot its change was published with."""
         assert self.engine is not None
         built = self._built
-        if reuse and built is not None and built[0] == self.engine.seq:
-            return built[1], built[2]
+        if built is not None and built[0] == self.engine.seq:
+            return built[1]
         seq = self.engine.seq
-        snapshot, line = self._build_snapshot()
-        self._built = (seq, snapshot, line)
-        return snapshot, line
-
-    def _build_snapshot(self) -> tuple[protocol.Snapshot, bytes | None]:
-        assert self.engine is not None
         snapshot = self.engine.snapshot()
         snapshot["visit"] = self.visit_desk().snapshot()
         snapshot["plans"] = self.visit_desk().plan_choices()
-        try:
-            return snapshot, _snapshot_notification(snapshot)
-        except ValueError:
-            current = snapshot["current_set"]["id"] if snapshot["current_set"] else None
-            for entry in snapshot["sets"]:
-                if entry["id"] != current:
-                    entry["readings"] = []
-        try:
-            return snapshot, _snapshot_notification(snapshot)
-        except ValueError as error:
-            log.error("a snapshot was not sent: %s", error)
-            return snapshot, None
+        self._built = (seq, snapshot)
+        return snapshot
 
     # -- requests ------------------------------------------------------------------------------
     async def dispatch(self, connection: Connection, method: str, params: dict[str, Any]) -> Any:
@@ -941,7 +981,7 @@ class Daemon:
             }
         if method == protocol.Method.SUBSCRIBE:
             connection.subscribed = True
-            return self.snapshot()
+            return self._subscriber_snapshot()
         if method == protocol.Method.UNSUBSCRIBE:
             connection.subscribed = False
             return {}
@@ -956,7 +996,7 @@ class Daemon:
         if method == protocol.Method.ENVIRONMENT_READ:
             if not await self._read_sensor(connection, required=True):
                 raise IllegalTransition(method, self.engine.state, self.engine.allowed(), "")
-            return self._snapshot_and_line(reuse=True)[0]
+            return self.snapshot()
         if method == protocol.Method.STEP_ARM:
             await self._read_sensor(connection, required=False)  # the air before each set
         if method in REGISTER_METHODS:
@@ -977,7 +1017,7 @@ class Daemon:
             await self.after_change()  # a refused request may still have recorded something
         if method == protocol.Method.SESSION_START:
             await self._read_sensor(connection, required=False)  # the air the session starts in
-        return self._snapshot_and_line(reuse=True)[0]  # the one the subscribers were sent
+        return self.snapshot()  # the one the subscribers were brought to
 
     async def _read_sensor(self, connection: Connection, *, required: bool) -> bool:
         """Record an air entry read from the environment sensor, when one is configured and

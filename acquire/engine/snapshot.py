@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import weakref
+from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.protocol import (
@@ -55,12 +56,12 @@ def build_snapshot(engine: Engine) -> Snapshot:
             "plan_name": engine.plan.name,
             "reason": row.reason,
         }
-        readings = store.readings(session_id)
-        sets = _sets_info(engine, store.sets(session_id), readings)
+        sets = _sets_info(engine, store.sets(session_id), store.readings_by_set(session_id))
         entries = [_environment_info(entry) for entry in store.environment(session_id)]
         if entries:
             environment = entries[-1]
-    current = next((s for s in sets if engine.active and s["id"] == engine.active.id), None)
+    active_id = engine.active.id if engine.active is not None else None
+    current = next((s for s in reversed(sets) if s["id"] == active_id), None)
     return {
         "seq": engine.seq,
         "state": engine.state.value,
@@ -95,27 +96,30 @@ def build_snapshot(engine: Engine) -> Snapshot:
     }
 
 
-def _sets_info(engine: Engine, rows: list[SetRow], readings: list[ReadingRow]) -> list[SetInfo]:
-    """Return every set's entry, reusing the entries of sets whose inputs did not change."""
-    by_set: dict[int, list[ReadingRow]] = {row.id: [] for row in rows}
-    for reading in readings:
-        by_set.setdefault(reading.set_id, []).append(reading)
+def _sets_info(
+    engine: Engine, rows: list[SetRow], by_set: Mapping[int, tuple[ReadingRow, ...]]
+) -> list[SetInfo]:
+    """Return every set's entry, reusing the entries of sets whose inputs did not change (the
+    very dict: a set that did not change is the same object in the next snapshot)."""
     cache = _SET_CACHE.setdefault(engine, {})
     fresh: dict[int, tuple[tuple[Any, ...], SetInfo]] = {}
     entries: list[SetInfo] = []
     plan = engine.plan
     assert plan is not None  # sets exist only in a session
     reference = rules.routine_nC_per_MU(plan, rows, by_set)
+    steps = plan.steps
     for row in rows:
-        own = by_set[row.id]
-        step = plan.steps[row.step_index] if row.step_index < len(plan.steps) else None
-        inputs = (row, tuple(own), engine.thresholds, step, reference)
+        own = by_set.get(row.id, ())
+        step = steps[row.step_index] if row.step_index < len(steps) else None
+        # only the delivery flags of a beam set other than the routine one use the reference
+        compared = step is not None and step.uses_beam and step.purpose != "routine"
+        inputs = (row, own, engine.thresholds, step, reference if compared else None)
         cached = cache.get(row.id)
         entry = cached[1] if cached is not None and cached[0] == inputs else None
         if entry is None:
-            entry = _set_info(engine, row, own, step, reference)
+            entry = _set_info(engine, row, list(own), step, reference)
         fresh[row.id] = (inputs, entry)
-        entries.append(entry.copy())  # a shallow copy: a caller may trim the copy's readings
+        entries.append(entry)
     _SET_CACHE[engine] = fresh
     return entries
 

@@ -2,12 +2,12 @@
 
 Publishing (:func:`publish_station`) copies a station file's closed sessions (finished or
 aborted) one way into the department database: every row of each session's hash chain (the
-session, its reading sets, readings, environment entries, events and raw traffic) with its
-place and hash as recorded, keyed by the station's UUID and the row's id (a session's UUID is
-unique across stations too). Each session is copied in one transaction, from the place of its
-chain past the one already published: publishing twice adds nothing, a dropped connection loses
-only the session being copied and publishing again resumes, and a review recorded later (an
-event appended to the chain) is added by the next publish. Events outside sessions (the
+session, its reading sets, readings, environment entries, events, raw traffic and input log)
+with its place and hash as recorded, keyed by the station's UUID and the row's id (a session's
+UUID is unique across stations too). Each session is copied in one transaction, from the place
+of its chain past the one already published: publishing twice adds nothing, a dropped connection
+loses only the session being copied and publishing again resumes, and a review recorded later
+(an event appended to the chain) is added by the next publish. Events outside sessions (the
 instrument identified, the station renamed) are copied too; raw traffic outside sessions is not.
 The station file is only read (a read-only open, as `show` does): the daemon goes on measuring,
 and while the server is away the station works as before.
@@ -37,6 +37,7 @@ from chargebook.acquire.record.migrations import SESSION_FINAL_STATUSES
 from chargebook.acquire.record.store import (
     EnvironmentRow,
     EventRow,
+    InputRow,
     NotFound,
     ReadingRow,
     Row,
@@ -70,6 +71,7 @@ ROW_CLASSES: dict[str, type] = {
     "environment": EnvironmentRow,
     "events": EventRow,
     "traffic": TrafficRow,
+    "inputs": InputRow,  # the input log: a published session can be replayed from its copy
 }
 _INTEGER = {
     "id",
@@ -624,6 +626,13 @@ class DepartmentStore:
             rows = self._rows("readings", "session_id = %s AND set_id = %s", (session_id, set_id))
         return [_reading_row(row) for row in rows]
 
+    def readings_by_set(self, session_id: int) -> dict[int, tuple[ReadingRow, ...]]:
+        """Return the session's readings by set id, oldest first within a set."""
+        grouped: dict[int, list[ReadingRow]] = {}
+        for reading in self.readings(session_id):
+            grouped.setdefault(reading.set_id, []).append(reading)
+        return {set_id: tuple(rows) for set_id, rows in grouped.items()}
+
     def environment(self, session_id: int) -> list[EnvironmentRow]:
         """Return the session's environment entries, oldest first."""
         return self._select(EnvironmentRow, "environment", "session_id = %s", (session_id,))
@@ -633,6 +642,32 @@ class DepartmentStore:
         if session_id is None:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = %s", (session_id,))
+
+    def set_counts(self) -> dict[int, tuple[int, int]]:
+        """Return, per session id, (its reading sets, those accepted), in one query."""
+        rows = self.database.read(
+            f"SELECT session_id, count(*), count(*) FILTER (WHERE status = 'accepted') "
+            f"FROM {SCHEMA}.reading_sets WHERE station_uuid = %s GROUP BY session_id",
+            (self._station.uuid,),
+        )
+        return {int(session_id): (int(sets), int(accepted)) for session_id, sets, accepted in rows}
+
+    def reading_counts(self) -> dict[int, int]:
+        """Return, per session id, how many readings it holds, in one query."""
+        rows = self.database.read(
+            f"SELECT session_id, count(*) FROM {SCHEMA}.readings WHERE station_uuid = %s "
+            "GROUP BY session_id",
+            (self._station.uuid,),
+        )
+        return {int(session_id): int(count) for session_id, count in rows}
+
+    def events_of_kind(self, kind: str) -> dict[int | None, list[EventRow]]:
+        """Return the events of one kind by session id (None: outside any session), oldest
+        first, in one query."""
+        found: dict[int | None, list[EventRow]] = {}
+        for event in self._select(EventRow, "events", "kind = %s", (str(kind),)):
+            found.setdefault(event.session_id, []).append(event)
+        return found
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded."""

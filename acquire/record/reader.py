@@ -41,6 +41,22 @@ class RecordReader(Protocol):
         """Return the session's readings (of one set if ``set_id`` is given)."""
         ...
 
+    def set_counts(self) -> dict[int, tuple[int, int]]:
+        """Return, per session id, (its reading sets, those accepted)."""
+        ...
+
+    def reading_counts(self) -> dict[int, int]:
+        """Return, per session id, how many readings it holds."""
+        ...
+
+    def events_of_kind(self, kind: str) -> dict[int | None, list[store.EventRow]]:
+        """Return the events of one kind by session id (None: outside any session)."""
+        ...
+
+    def readings_by_set(self, session_id: int) -> dict[int, tuple[store.ReadingRow, ...]]:
+        """Return the session's readings by set id, oldest first within a set."""
+        ...
+
     def environment(self, session_id: int) -> list[store.EnvironmentRow]:
         """Return the session's environment entries (the last one is current)."""
         ...

@@ -35,7 +35,7 @@ import time
 import uuid
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar
@@ -306,6 +306,26 @@ class TrafficRow:
     line: bytes
 
 
+#: The columns an event is appended with (its id and chain columns are added by _append).
+_EVENT_COLUMNS = ("session_id", "recorded_at", "actor", "kind", "detail_json", "account")
+#: The rows of a session after a given id, found by the id (the unary + keeps SQLite from
+#: scanning the session's index instead: the cost is the new rows', not the session's).
+_NEWER_OF_SESSION = "id > ? AND +session_id = ?"
+
+
+@dataclass
+class _KnownRows:
+    """A session's sets (by id, oldest first) and readings as last read, the highest ids read,
+    and the sets whose status changed since (see :meth:`Store.remember_rows`)."""
+
+    sets: dict[int, SetRow] = field(default_factory=dict)
+    readings: list[ReadingRow] = field(default_factory=list)
+    by_set: dict[int, tuple[ReadingRow, ...]] = field(default_factory=dict)
+    last_set_id: int = 0
+    last_reading_id: int = 0
+    stale: set[int] = field(default_factory=set)
+
+
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
@@ -388,6 +408,12 @@ class Store:
         self._in_flight_told: list[LineIdListener | None] = []
         self._snapshot: Path | None = None  # the private copy a read-only open reads, if any
         self._account: str | None = None  # the Unix account a client's request comes from
+        #: Told the events of each transaction once it is committed, in the order written (the
+        #: daemon broadcasts them from there instead of reading them back); None: nobody.
+        self.on_events_committed: Callable[[list[EventRow]], None] | None = None
+        self._events_in_flight: list[EventRow] = []  # written in the open transaction
+        #: Per session, its sets and readings as last read (None: not kept; remember_rows).
+        self._known: dict[int, _KnownRows] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -538,8 +564,14 @@ class Store:
         with self._lock:
             conn = self.db.conn
             if conn.in_transaction:
-                with self.db.atomic():  # a savepoint inside the open transaction
-                    yield self.db
+                written = len(self._events_in_flight)
+                try:
+                    with self.db.atomic():  # a savepoint inside the open transaction
+                        yield self.db
+                except BaseException:
+                    del self._events_in_flight[written:]  # rolled back with the savepoint
+                    self._forget_known_rows()
+                    raise
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
@@ -556,6 +588,60 @@ class Store:
                 self._keep_again()
                 raise
             self._in_flight, self._in_flight_told = [], []
+            self._tell_committed_events()
+
+    def remember_rows(self) -> None:
+        """Keep a session's sets and readings in memory from now on (of the session last read:
+        the open one): :meth:`sets` and :meth:`readings` of it then read only the rows new or
+        changed since they last did, so their cost does not grow with the session.
+
+        Only for the one writer of the file (the daemon, which holds the station lock): the
+        changes it knows of are its own writes (a set's status through :meth:`set_set_status`);
+        a rolled-back transaction makes it read everything again.
+        """
+        with self._lock:
+            if self._known is None:
+                self._known = {}
+
+    def _forget_known_rows(self) -> None:
+        if self._known is not None:
+            self._known.clear()
+
+    def _known_rows(self, session_id: int) -> _KnownRows:
+        """Return the session's rows as kept, brought up to date (lock held)."""
+        assert self._known is not None
+        if session_id not in self._known:
+            self._known.clear()  # one session at a time (the open one): memory stays bounded
+        known = self._known.setdefault(session_id, _KnownRows())
+        changed = [
+            *self._select(
+                SetRow, "reading_sets", _NEWER_OF_SESSION, (known.last_set_id, session_id)
+            ),
+            *(self._one(SetRow, "reading_sets", set_id, "reading set") for set_id in known.stale),
+        ]
+        known.stale.clear()
+        for row in changed:
+            known.sets[row.id] = row
+            known.last_set_id = max(known.last_set_id, row.id)
+        rows = self._rows(
+            ReadingRow, "readings", _NEWER_OF_SESSION, (known.last_reading_id, session_id)
+        )
+        new = [_reading_row(row) for row in rows]
+        known.readings += new
+        for set_id in dict.fromkeys(reading.set_id for reading in new):
+            known.by_set[set_id] = (
+                *known.by_set.get(set_id, ()),
+                *(reading for reading in new if reading.set_id == set_id),
+            )
+        if known.readings:
+            known.last_reading_id = known.readings[-1].id
+        return known
+
+    def _tell_committed_events(self) -> None:
+        """Hand the events of the transaction just committed to :attr:`on_events_committed`."""
+        events, self._events_in_flight = self._events_in_flight, []
+        if events and self.on_events_committed is not None:
+            self.on_events_committed(events)
 
     def _write_kept_traffic(self) -> None:
         """Append the kept raw lines (lock held, transaction open) and tell each line's
@@ -570,7 +656,10 @@ class Store:
                     told(first_id + offset)
 
     def _keep_again(self) -> None:
-        """Put the lines of a failed transaction back in front of the kept ones."""
+        """Put the lines of a failed transaction back in front of the kept ones (and forget
+        its events: they were never committed)."""
+        self._events_in_flight = []
+        self._forget_known_rows()
         with self._pending_lock:
             self._pending[:0] = self._in_flight
             self._pending_told[:0] = self._in_flight_told
@@ -701,17 +790,20 @@ class Store:
     def _event(
         self, session_id: int | None, actor: str, kind: EventKind, detail: Mapping[str, object]
     ) -> int:
-        return self._append(
-            "events",
-            {
-                "session_id": session_id,
-                "recorded_at": self._stamp(),
-                "actor": _require_text("actor", actor),
-                "kind": events.check_detail(kind, detail).value,
-                "detail_json": _to_json("detail", detail),
-                "account": self._account,
-            },
+        event = EventRow(
+            0,  # the id is the next one, given by _append
+            session_id,
+            self._stamp(),
+            _require_text("actor", actor),
+            events.check_detail(kind, detail).value,
+            _to_json("detail", detail),
+            self._account,
         )
+        row = {name: getattr(event, name) for name in _EVENT_COLUMNS}
+        event_id = self._append("events", row)
+        if self.on_events_committed is not None:
+            self._events_in_flight.append(replace(event, id=event_id))
+        return event_id
 
     # ------------------------------------------------------------------------- sessions
 
@@ -885,10 +977,29 @@ class Store:
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
             )
+            if self._known is not None and old.session_id in self._known:
+                self._known[old.session_id].stale.add(set_id)
 
     def sets(self, session_id: int) -> list[SetRow]:
         """Return the session's reading sets, oldest first (superseded attempts included)."""
+        with self._lock:
+            if self._known is not None:
+                return list(self._known_rows(session_id).sets.values())
         return self._select(SetRow, "reading_sets", "session_id = ?", (session_id,))
+
+    def set_counts(self) -> dict[int, tuple[int, int]]:
+        """Return, per session id, (its reading sets, those accepted), in one query: a listing
+        of every session does not read each session's sets."""
+        rows = self.read(
+            "SELECT session_id, count(*), sum(status = 'accepted') FROM reading_sets "
+            "GROUP BY session_id"
+        )
+        return {int(session_id): (int(sets), int(accepted)) for session_id, sets, accepted in rows}
+
+    def reading_counts(self) -> dict[int, int]:
+        """Return, per session id, how many readings it holds, in one query."""
+        rows = self.read("SELECT session_id, count(*) FROM readings GROUP BY session_id")
+        return {int(session_id): int(count) for session_id, count in rows}
 
     def reading_set(self, set_id: int) -> SetRow:
         """Return one reading set. Raises :class:`NotFound` (a KeyError) when there is none."""
@@ -938,12 +1049,27 @@ class Store:
     def readings(self, session_id: int, set_id: int | None = None) -> list[ReadingRow]:
         """Return the session's readings (of one set if ``set_id`` is given), oldest first."""
         if set_id is None:
+            with self._lock:
+                if self._known is not None:
+                    return list(self._known_rows(session_id).readings)
             rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
         else:
             rows = self._rows(
                 ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
             )
         return [_reading_row(row) for row in rows]
+
+    def readings_by_set(self, session_id: int) -> dict[int, tuple[ReadingRow, ...]]:
+        """Return the session's readings by set id, oldest first within a set (a set without
+        readings is absent). While rows are remembered (:meth:`remember_rows`), the readings of
+        a set that gained none since the last call are the very tuple returned then."""
+        with self._lock:
+            if self._known is not None:
+                return dict(self._known_rows(session_id).by_set)
+        grouped: dict[int, list[ReadingRow]] = {}
+        for reading in self.readings(session_id):
+            grouped.setdefault(reading.set_id, []).append(reading)
+        return {set_id: tuple(rows) for set_id, rows in grouped.items()}
 
     # ------------------------------------------------------------------------ environment
 
@@ -1000,6 +1126,14 @@ class Store:
         if session_id is None:
             return self._select(EventRow, "events", "session_id IS NULL")
         return self._select(EventRow, "events", "session_id = ?", (session_id,))
+
+    def events_of_kind(self, kind: str) -> dict[int | None, list[EventRow]]:
+        """Return the events of one kind by session id (None: outside any session), oldest
+        first, in one query."""
+        found: dict[int | None, list[EventRow]] = {}
+        for event in self._select(EventRow, "events", "kind = ?", (kind,)):
+            found.setdefault(event.session_id, []).append(event)
+        return found
 
     def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""
@@ -1060,10 +1194,6 @@ class Store:
             tuple(kinds),
         )
         return found[0] if found else None
-
-    def events_after(self, session_id: int, event_id: int) -> list[EventRow]:
-        """Return the session's events newer than ``event_id``, oldest first."""
-        return self._select(EventRow, "events", "session_id = ? AND id > ?", (session_id, event_id))
 
     # ------------------------------------------------------------------------- input log
 

@@ -149,11 +149,8 @@ def load_record(store: RecordReader, session_id: int, *, check_chain: bool = Tru
     ``evaluation`` is None and ``results_error`` says why, in the words of the InputError.
     """
     session = store.session(session_id)
-    readings = store.readings(session_id)
-    sets = tuple(
-        SetRecord(row, tuple(r for r in readings if r.set_id == row.id))
-        for row in store.sets(session_id)
-    )
+    by_set = store.readings_by_set(session_id)
+    sets = tuple(SetRecord(row, by_set.get(row.id, ())) for row in store.sets(session_id))
     environment = tuple(store.environment(session_id))
     events = tuple(store.events(session_id))
     context: SessionContext | None = None

@@ -10,6 +10,7 @@ machine reading the HTML can find a figure.
 from __future__ import annotations
 
 import contextlib
+import functools
 import json
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -77,8 +78,10 @@ def when(stamp: str | None) -> str:
     return stamp[:19].replace("T", " ") + " UTC"
 
 
+@functools.lru_cache(maxsize=1024)
 def set_stats(record: SetRecord) -> SetStatistics | None:
-    """Return the statistics of a set's used readings (None when there are none to judge)."""
+    """Return the statistics of a set's used readings (None when there are none to judge);
+    computed once per set, although its table row and its figure both show them."""
     charges = [r.charge_nC for r in record.used]
     if not charges:
         return None

@@ -190,24 +190,21 @@ class _ResultSets:
 
 def _recorded_sets(
     store: RecordReader, session_id: int
-) -> tuple[list[SetRow], dict[int, list[ReadingRow]]]:
+) -> tuple[list[SetRow], dict[int, tuple[ReadingRow, ...]]]:
     """Return the session's sets and their readings by set id, read once per evaluation."""
-    by_set: dict[int, list[ReadingRow]] = {}
-    for reading in store.readings(session_id):
-        by_set.setdefault(reading.set_id, []).append(reading)
-    return store.sets(session_id), by_set
+    return store.sets(session_id), store.readings_by_set(session_id)
 
 
 def _at_planned_MU(
-    context: SessionContext, sets: Sequence[SetRow], by_set: dict[int, list[ReadingRow]]
-) -> dict[int, list[ReadingRow]]:
+    context: SessionContext, sets: Sequence[SetRow], by_set: dict[int, tuple[ReadingRow, ...]]
+) -> dict[int, tuple[ReadingRow, ...]]:
     """Return the readings by set with each short delivery's charge referred to the planned MU
     (``corrections.delivered_mu``), so that the charge per MU and the dose use the actual MU."""
     if not context.actual_MU:
         return by_set
     steps = {row.id: context.plan.steps[row.step_index] for row in sets}
     return {
-        set_id: [
+        set_id: tuple(
             replace(
                 reading,
                 charge_nC=charge_at_planned_MU_nC(
@@ -219,7 +216,7 @@ def _at_planned_MU(
             if reading.id in context.actual_MU
             else reading
             for reading in readings
-        ]
+        )
         for set_id, readings in by_set.items()
     }
 

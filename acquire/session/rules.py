@@ -8,6 +8,7 @@ themselves come from :func:`chargebook.acquire.session.evaluation.evaluate_sessi
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Mapping, Sequence
 from dataclasses import fields
 from pathlib import Path
@@ -230,15 +231,22 @@ def routine_nC_per_MU(
 ) -> float | None:
     """Return the routine set's mean |charge| per MU (nC/MU): its accepted set's, else its
     latest set's with readings; None before there is one."""
-    candidates = []
-    for row in sets:
-        step = plan.steps[row.step_index] if row.step_index < len(plan.steps) else None
+    steps = plan.steps
+    latest: tuple[list[ReadingRow], Step] | None = None
+    accepted_first = itertools.chain(
+        (row for row in reversed(sets) if row.status == "accepted"), reversed(sets)
+    )
+    for row in accepted_first:
+        step = steps[row.step_index] if row.step_index < len(steps) else None
+        if step is None or step.purpose != "routine" or not step.uses_beam:
+            continue
         used = [r for r in readings.get(row.id, ()) if not r.settling]
-        if step is not None and step.purpose == "routine" and step.uses_beam and used:
-            candidates.append((row.status == "accepted", row.id, used, step))
-    if not candidates:
+        if used:
+            latest = used, step
+            break
+    if latest is None:
         return None
-    _, _, used, step = max(candidates, key=lambda c: (c[0], c[1]))
+    used, step = latest
     return sum(abs(r.charge_nC) for r in used) / len(used) / float(step.mu_per_reading)
 
 

@@ -8,13 +8,16 @@ built once (it was built twice, once to publish and once to reply).
 
 from __future__ import annotations
 
+import asyncio
+import itertools
+import json
 from pathlib import Path
 
 from chargebook.acquire.client import DaemonClient, Notification
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions, InstrumentLink
 from chargebook.acquire.engine.engine import Engine
-from chargebook.acquire.protocol import NOTIFY_SNAPSHOT
+from chargebook.acquire.protocol import NOTIFY_DELTA, NOTIFY_EVENT, NOTIFY_SNAPSHOT, apply_delta
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic import build_electrometer, load_profile
 from chargebook.drivers_generic.interface import TrafficDirection
@@ -34,17 +37,35 @@ def daemon_on_file(tmp_path: Path) -> Daemon:
     return daemon
 
 
-async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
-    tmp_path: Path,
-) -> None:
+def daemon_with_engine(tmp_path: Path) -> Daemon:
+    """Return a daemon (not running) with its station file, engine and instrument thread (never
+    started), wired as ``Daemon.run`` wires them."""
     daemon = daemon_on_file(tmp_path)
-    options = daemon.options
+    daemon.store.on_events_committed = daemon._emitted.extend
     profile = load_profile("query-plain")
     daemon.engine = Engine(
         daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
     )
     electrometer = build_electrometer(profile, port=str(tmp_path / "no-such-port"))
     daemon.link = InstrumentLink(electrometer, lambda kind, payload: None)  # never started
+    return daemon
+
+
+ACTIONS = [
+    ("session.start", {"metadata": demo_metadata()}),
+    ("environment.set", {"temperature_C": 20.0, "pressure": 101.325}),
+    ("step.arm", {}),
+    ("session.pause", {}),
+    ("session.resume", {}),
+    ("session.abort", {"reason": "chamber cable damaged", "confirm": True}),
+]
+
+
+async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    options = daemon.options
     builds: list[int] = []
     engine_snapshot = daemon.engine.snapshot
 
@@ -64,15 +85,7 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
     try:
         client.add_listener(heard)
         await client.subscribe()
-        actions = [
-            ("session.start", {"metadata": demo_metadata()}),
-            ("environment.set", {"temperature_C": 20.0, "pressure": 101.325}),
-            ("step.arm", {}),
-            ("session.pause", {}),
-            ("session.resume", {}),
-            ("session.abort", {"reason": "chamber cable damaged", "confirm": True}),
-        ]
-        for method, params in actions:
+        for method, params in ACTIONS:
             builds.clear()
             reply = await client.call(method, **params)
             await client.wait_for_snapshot(lambda s, seq=reply["seq"]: s["seq"] == seq, 10)
@@ -106,4 +119,87 @@ def test_each_received_line_committed_gives_its_row_id_to_the_sample_read_from_i
         assert rows[first_ref.id].line == first[2]
         assert rows[second_ref.id].line == second[2]  # not found by its (shared) time
     finally:
+        daemon.store.close()
+
+
+async def test_events_are_broadcast_as_committed_without_reading_them_back(tmp_path: Path) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    statements: list[str] = []
+    daemon.store.db.conn.set_trace_callback(statements.append)
+    await daemon.server.start()
+    heard: list[dict] = []
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    try:
+        client.add_listener(lambda note: note.method == NOTIFY_EVENT and heard.append(note.params))
+        await client.subscribe()
+        for method, params in ACTIONS:
+            await client.call(method, **params)
+        await client.call("session.close")
+        await client.call("status")  # the notifications before it have arrived
+    finally:
+        await client.close()
+        await daemon.server.close()
+    daemon.store.db.conn.set_trace_callback(None)
+    recorded = daemon.store.events(1)
+    daemon.store.close()
+    assert [event["id"] for event in heard] == [event.id for event in recorded]
+    assert heard[-1]["kind"] == "state_changed" and heard[-1]["detail"]["action"] == "session.close"
+    assert heard[0]["actor"] == "operator A" and heard[0]["detail"] == recorded[0].detail()
+    read_back = [sql for sql in statements if "FROM events WHERE" in sql]
+    assert read_back == []
+
+
+class RawSubscriber:
+    """A subscriber on the daemon's socket that keeps every line it is sent, as sent."""
+
+    def __init__(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        self.reader, self.writer = reader, writer
+        self.ids = itertools.count(1)
+
+    @classmethod
+    async def connect(cls, path: Path) -> RawSubscriber:
+        reader, writer = await asyncio.open_unix_connection(str(path), limit=2**25)
+        return cls(reader, writer)
+
+    async def call(self, method: str) -> tuple[dict, list[dict]]:
+        """Send one request; return its reply and the notifications that came before it."""
+        request_id = next(self.ids)
+        self.writer.write(
+            json.dumps({"jsonrpc": "2.0", "id": request_id, "method": method}).encode() + b"\n"
+        )
+        notes = []
+        while True:
+            message = json.loads(await self.reader.readline())
+            if message.get("id") == request_id:
+                return message["result"], notes
+            notes.append(message)
+
+    def close(self) -> None:
+        self.writer.close()
+
+
+async def test_subscribers_are_sent_what_changed_and_rebuild_each_snapshot_from_it(
+    tmp_path: Path,
+) -> None:
+    daemon = daemon_with_engine(tmp_path)
+    await daemon.server.start()
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    raw = await RawSubscriber.connect(daemon.options.socket_path)
+    try:
+        held, _ = await raw.call("subscribe")
+        redo = [("set.redo", {"reason": "cable moved"}), ("step.arm", {})]
+        for method, params in [*ACTIONS[:3], *redo * 3, ("session.pause", {})]:
+            reply = await client.call(method, **params)
+            _, notes = await raw.call("hello")  # every notification of the action is in
+            deltas = [n["params"] for n in notes if n["method"] == NOTIFY_DELTA]
+            assert [n["method"] for n in notes if n["method"] != NOTIFY_EVENT] == [NOTIFY_DELTA]
+            held = apply_delta(held, deltas[0])
+            assert held == reply, method
+        assert len(held["sets"]) == 4  # three redone and the one paused
+        assert deltas[0]["sets"] == []  # a pause changes no set: none is sent
+        assert "sets" not in deltas[0]["changed"] and "plan" not in deltas[0]["changed"]
+    finally:
+        raw.close()
+        await client.close()
+        await daemon.server.close()
         daemon.store.close()

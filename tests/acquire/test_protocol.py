@@ -84,3 +84,53 @@ def test_the_default_socket_lives_in_the_runtime_dir_or_a_per_user_temp_dir(monk
     monkeypatch.delenv("XDG_RUNTIME_DIR")
     fallback = protocol.default_socket_dir()
     assert fallback.name == f"chargebook-{os.getuid()}"
+
+
+def _set(set_id: int, status: str, charges_nC: tuple[float, ...]) -> dict:
+    readings = [{"id": 10 * set_id + i, "charge_nC": q} for i, q in enumerate(charges_nC)]
+    return {"id": set_id, "status": status, "readings": readings}
+
+
+def _snapshot(seq: int, sets: list[dict], state: str = "collecting") -> dict:
+    return {"seq": seq, "state": state, "sets": sets, "results": {"k_TP": 1.0093}}
+
+
+def test_a_delta_carries_only_what_changed_and_rebuilds_the_next_snapshot():
+    # invented readings, for the shape of the message only
+    old_sets = [_set(i, "superseded", (20.01, 20.02)) for i in range(1, 500)]
+    old = _snapshot(7, [*old_sets, _set(500, "collecting", (20.03,))])
+    new = _snapshot(9, [*[dict(s) for s in old_sets], _set(500, "collecting", (20.03, 20.04))])
+    delta = protocol.snapshot_delta(old, new)
+    assert delta["base_seq"] == 7 and delta["seq"] == 9
+    assert delta["changed"] == {}  # state and results as before
+    assert [entry["id"] for entry in delta["sets"]] == [500]
+    assert len(protocol.encode_from_daemon(delta)) < 300  # not the 500 sets
+    rebuilt = protocol.apply_delta(old, json.loads(json.dumps(delta)))
+    assert rebuilt == new
+    assert rebuilt["sets"][0] is old["sets"][0]  # unchanged parts are the very objects held
+    assert rebuilt["results"] is old["results"]
+
+
+def test_the_current_set_is_sent_once_and_is_the_very_set_among_the_sets():
+    # invented readings, for the shape of the message only
+    sets = [_set(i, "superseded", (20.01, 20.02)) for i in range(1, 4)]
+    old = {**_snapshot(7, [*sets, _set(4, "collecting", (20.03,))]), "current_set": None}
+    old["current_set"] = old["sets"][-1]
+    grown = _set(4, "collecting", (20.03, 20.04))
+    new = {**_snapshot(8, [*sets, grown]), "current_set": grown}
+    delta = protocol.snapshot_delta(old, new)
+    assert "current_set" not in delta["changed"] and delta["current_set_id"] == 4
+    assert protocol.encode_from_daemon(delta).count(b"20.04") == 1
+    rebuilt = protocol.apply_delta(old, json.loads(json.dumps(delta)))
+    assert rebuilt == new
+    assert rebuilt["current_set"] is rebuilt["sets"][-1]
+
+
+def test_a_delta_of_another_session_sends_its_sets_whole_and_a_missed_delta_is_named():
+    old = _snapshot(3, [_set(1, "accepted", (20.0,)), _set(2, "reviewing", (20.1,))])
+    new = _snapshot(4, [_set(3, "collecting", ())], state="waiting_for_operator")
+    delta = protocol.snapshot_delta(old, new)
+    assert delta["changed"]["sets"] == new["sets"] and delta["sets"] == []
+    assert protocol.apply_delta(old, delta) == new
+    with pytest.raises(protocol.DeltaGap, match="applies to snapshot 4, not to 3"):
+        protocol.apply_delta(old, protocol.snapshot_delta(new, new | {"seq": 5}))

@@ -576,3 +576,52 @@ def test_a_kept_line_is_told_its_row_id_when_written_and_none_when_its_commit_fa
     rows = {row.id: row.line for row in store.traffic(session_id)}
     assert rows[told["first"][-1]] == b"20.1\n"
     assert rows[told["second"][-1]] == b"20.2\n"
+
+
+def test_committed_events_are_handed_over_once_in_order_and_rolled_back_ones_never(
+    store: Store,
+) -> None:
+    session_id, set_id = _session_with_set(store)
+    told: list[list[tuple[int, str]]] = []
+    store.on_events_committed = lambda events: told.append([(e.id, e.kind) for e in events])
+    with store.atomic():
+        first = store.add_event(session_id, "operator A", "note", {"text": "kept"})
+        with pytest.raises(InputError), store.atomic():  # a savepoint that fails
+            store.add_event(session_id, "operator A", "lost", {"text": "rolled back"})
+            store.add_event(session_id, "operator A", "bad", {"value": NAN})
+        assert told == []  # nothing is told before the commit
+        store.set_set_status(set_id, "reviewing", actor="operator A")
+    with pytest.raises(InputError), store.atomic():  # a transaction that fails whole
+        store.add_event(session_id, "operator A", "gone", {"text": "rolled back"})
+        store.add_event(session_id, "operator A", "bad", {"value": NAN})
+    recorded = [(e.id, e.kind) for e in store.events(session_id)]
+    assert told == [[(first, "note"), recorded[-1]]]
+    assert recorded[-2:] == told[0]  # as committed: the same ids and kinds, in order
+    assert [e for e in store.events(session_id) if e.kind in ("lost", "gone")] == []
+
+
+def test_remembered_rows_are_the_rows_recorded_after_new_rows_status_changes_and_rollbacks(
+    store: Store,
+) -> None:
+    store.remember_rows()
+    session_id, first = _session_with_set(store)
+    other_session, other_set = _session_with_set(store)  # rows of another session between
+    _reading(store, session_id, first, 1, 20.01)
+    assert store.sets(session_id)[0].status == "collecting"
+    _reading(store, other_session, other_set, 1, 19.99)
+    store.set_set_status(first, "superseded", "cable moved")
+    second = store.add_set(session_id, 2, "routine", "routine", 1, 300.0, 2)
+    _reading(store, session_id, second, 1, 20.02)
+    with pytest.raises(InputError), store.atomic():  # rolled back: never recorded
+        _reading(store, session_id, second, 2, 20.03)
+        store.sets(session_id), store.readings(session_id)  # read inside the transaction
+        _reading(store, session_id, second, 3, NAN)
+    grouped = store.readings_by_set(session_id)
+    _reading(store, session_id, second, 2, 20.04)
+    fresh = Store(store.db, None)  # the same file read afresh, nothing remembered
+    assert store.sets(session_id) == fresh.sets(session_id)
+    assert [s.status for s in store.sets(session_id)] == ["superseded", "collecting"]
+    assert store.readings(session_id) == fresh.readings(session_id)
+    assert [r.charge_nC for r in store.readings(session_id)] == [20.01, 20.02, 20.04]
+    assert store.readings_by_set(session_id) == fresh.readings_by_set(session_id)
+    assert store.readings_by_set(session_id)[first] is grouped[first]  # no reading since

@@ -22,6 +22,8 @@ SCRIPTS = [
     "console_latency",
     "publish",
     pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
+    pytest.param("session_length", marks=pytest.mark.slow),  # two daemons, some 20 s
+    pytest.param("record_scale", marks=pytest.mark.slow),  # a station file made, some 10 s
 ]
 
 

@@ -522,3 +522,55 @@ async def test_the_setup_form_takes_the_certificates_k_and_your_own_uncertainty_
     assert checked.k_N_Dw == 2.2 and checked.u_reference_conditions_pct == 0.3
     assert checked.u_long_term_stability_pct == 0.2 and checked.u_beam_monitor_pct == 0.1
     assert checked.u_electrometer_resolution_pct == 0.05
+
+
+async def test_a_delta_that_changes_only_the_set_in_progress_redraws_neither_history_nor_plan(
+    monkeypatch,
+):
+    from chargebook.acquire.protocol import apply_delta, snapshot_delta
+    from chargebook.tui import snapshot_view
+    from chargebook.tui.widgets import plan_view
+
+    before = load_snapshot("collecting")
+    current = before["current_set"]
+    reading = {**current["readings"][-1], "id": 999, "seq": len(current["readings"]) + 1}
+    grown = {**current, "readings": [*current["readings"], reading]}
+    after = {**before, "seq": before["seq"] + 1, "current_set": grown}
+    after["sets"] = [grown if entry["id"] == grown["id"] else entry for entry in before["sets"]]
+    drawn = {"history": 0, "plan": 0}
+    history_rows, plan_table = snapshot_view.history_rows, plan_view.plan_table
+
+    def counted(name, draw):  # counts, changes nothing
+        def run(*args):
+            drawn[name] += 1
+            return draw(*args)
+
+        return run
+
+    monkeypatch.setattr(snapshot_view, "history_rows", counted("history", history_rows))
+    monkeypatch.setattr(plan_view, "plan_table", counted("plan", plan_table))
+    app = ScreenHarness(MeasureScreen, before)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press("3")  # the plan tab, so the plan is drawn
+        await pilot.pause()
+        assert drawn == {"history": 1, "plan": 1}
+        screen = app.screen
+        screen.show(apply_delta(before, snapshot_delta(before, after)), screen.link)
+        await pilot.pause()
+        assert drawn == {"history": 2, "plan": 1}  # the set grew: its history row is new
+        shown = apply_delta(screen.snapshot, snapshot_delta(screen.snapshot, after | {"seq": 99}))
+        screen.show(shown, screen.link)
+        await pilot.pause()
+        assert drawn == {"history": 2, "plan": 1}  # nothing of them changed: not drawn again
+
+
+async def test_a_screen_being_taken_down_ignores_a_late_snapshot():
+    from chargebook.tui.widgets.status_line import StatusLine
+
+    app = ScreenHarness(MeasureScreen, load_snapshot("collecting"))
+    async with app.run_test(size=SIZE) as pilot:
+        screen = app.screen
+        await screen.query_one(StatusLine).remove()  # as when the app switches screens
+        screen.show(load_snapshot("reviewing_spike"), screen.link)  # raised NoMatches
+        await pilot.pause()
+        assert screen.snapshot == load_snapshot("reviewing_spike")

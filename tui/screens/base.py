@@ -7,6 +7,7 @@ from typing import Any
 
 from chargebook.tui.messages import LinkStatus
 from chargebook.tui.widgets.status_line import StatusLine
+from textual.css.query import NoMatches
 from textual.screen import Screen
 
 #: Sends one request to the daemon and returns its result (``ConsoleApp.call_daemon``).
@@ -30,6 +31,7 @@ class ConsoleScreen(Screen):
         self.link = LinkStatus(False, "")
         self._shown_allowed: list[str] | None = None
         self._composed = False
+        self._drawn_parts: dict[str, object] = {}  # snapshot key -> the object drawn from it
 
     @property
     def status_line(self) -> StatusLine:
@@ -60,8 +62,12 @@ class ConsoleScreen(Screen):
         self.snapshot, self.link = snapshot, link
         if not self._composed:
             return
-        self.status_line.link = link
-        self.status_line.snapshot = snapshot
+        try:
+            status_line = self.status_line
+        except NoMatches:  # being taken down (switched away from): nothing left to draw on
+            return
+        status_line.link = link
+        status_line.snapshot = snapshot
         if snapshot is not None:
             self.render_snapshot(snapshot)
         allowed = self.allowed()
@@ -72,6 +78,15 @@ class ConsoleScreen(Screen):
     def on_mount(self) -> None:
         self._composed = True
         self.show(self.snapshot, self.link)
+
+    def _part_is_new(self, key: str, snapshot: dict[str, Any]) -> bool:
+        """Return whether ``snapshot[key]`` is another object than the one last drawn: the
+        client keeps a part the daemon's delta did not change as the very same object."""
+        part = snapshot.get(key)
+        if key in self._drawn_parts and part is self._drawn_parts[key]:
+            return False
+        self._drawn_parts[key] = part
+        return True
 
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         """Draw ``snapshot``; each screen shows its own part of it."""

@@ -105,8 +105,12 @@ class MeasureScreen(ConsoleScreen):
         if str(tab.label) != label:
             tab.label = label
         self.query_one(ResultsPanel).snapshot = snapshot
-        self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
-        self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
+        # the history and the plan grow with the session: drawn again only when the daemon
+        # sent them anew (a part the daemon did not change is the very object drawn before)
+        if self._part_is_new("sets", snapshot):
+            self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
+        if self._part_is_new("plan", snapshot):
+            self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
         action_bar = self.query_one(ActionBar)
         action_bar.display = not self.watching  # a watching console offers no action
         action_bar.show_allowed(self.allowed())

@@ -1,0 +1,209 @@
+"""Benchmark: the read commands on a station file of ten years of daily output checks.
+
+    python -m tests.bench.record_scale [--smoke]
+
+A station file is generated through the store API (in this process, with a clock that moves
+one day at a time): ten years of daily output checks (the shipped ``monthly-check`` plan: a
+warm-up reading, then a settling reading and three routine readings, k_pol and k_s carried) on
+each of four machines, about 14,600 sessions, every one finished. A session of 500 reading sets
+(``tests.bench.session_length``: a set taken and redone) is added to another file. The readings
+and air data are invented (demo only: Example Clinic (fictional)).
+
+Each command runs as a user runs it (``chargebook ...``, a new process), alternating with its
+baseline, a new Python process that runs a bare SQL query of the same rows on the same file
+(sqlite3, read-only) and prints them; the medians of the wall times are compared.
+
+* ``chargebook sessions``: every session; baseline, the sessions' rows.
+* ``chargebook history --beam "6 MV" --machine DEMO-LA1 --no-plot``: one machine's ten years;
+  baseline, the sessions of that beam and machine with their readings.
+* ``chargebook export ID --format html`` of the 500-set session: under 1 s (no baseline ratio:
+  the issue sets an absolute bound).
+
+Targets (issue 17, target 6): ``sessions`` and ``history`` each under 1 s and within 5 times
+their baseline; the HTML report under 1 s.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import time
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session import rules
+
+from tests.bench import report
+from tests.bench.harness import scratch
+from tests.bench.session_length import record_sets
+from tests.bench.startup import chargebook_help_command
+
+MACHINES = ("DEMO-LA1", "DEMO-LA2", "DEMO-LA3", "DEMO-LA4")
+FULL_DAYS, SMOKE_DAYS = 3650, 20
+FULL_SETS, SMOKE_SETS = 500, 20
+FULL_RUNS, SMOKE_RUNS = 3, 1
+TARGET_S = 1.0
+TARGET_RATIO = 5.0
+FIRST_DAY = datetime(2016, 1, 4, 7, 30, tzinfo=UTC)
+#: Invented carried factors (demo only), as an annual calibration of the same chamber would give.
+CARRIED = {
+    "carried_k_pol": {
+        "value": 1.0011,
+        "source": "annual calibration (invented)",
+        "date": "2016-01-02",
+    },
+    "carried_k_s": {
+        "value": 1.0042,
+        "source": "annual calibration (invented)",
+        "date": "2016-01-02",
+    },
+}
+HISTORY_QUERY = """
+SELECT s.id, s.created_at, s.status, s.beam, s.metadata_json, r.id, r.set_id, r.charge_nC
+FROM sessions s JOIN readings r ON r.session_id = s.id
+WHERE s.beam = ? AND json_extract(s.metadata_json, '$.treatment_machine') = ?
+ORDER BY s.id, r.id
+"""
+SESSIONS_QUERY = "SELECT id, created_at, status, beam, metadata_json FROM sessions ORDER BY id"
+BARE = """
+import sqlite3, sys
+connection = sqlite3.connect(f"file:{sys.argv[1]}?mode=ro", uri=True)
+for row in connection.execute(sys.argv[2], tuple(sys.argv[3:])):
+    print(*row)
+"""
+
+
+class DayClock:
+    """The store's clock: a given day at 07:30 UTC, moved on by a second per call."""
+
+    def __init__(self) -> None:
+        self.now = FIRST_DAY
+
+    def __call__(self) -> datetime:
+        self.now += timedelta(seconds=1)
+        return self.now
+
+
+def record_output_check(store: Store, machine: str, day: int) -> int:
+    """Record one finished output check of ``machine`` through the store API; return its id."""
+    metadata = rules.validate_metadata(
+        {**demo_metadata(), **CARRIED, "treatment_machine": machine, "operator": "operator A"}
+    )
+    plan = rules.resolve_plan("monthly-check")
+    session_id = store.create_session(
+        metadata, plan.to_dict(), metadata["convention"], metadata["beam"], actor="operator A"
+    )
+    # invented air data and charges (demo only): about 20 nC per 100 MU
+    store.add_environment(session_id, 21.0 + day % 3 * 0.5, 101.1, 101.1, "kPa", None, "operator")
+    charges = {"warmup": (60.2,), "routine": (20.11, 20.05, 20.06 + day % 5 * 0.01, 20.07)}
+    for index, step in enumerate(plan.steps):
+        set_id = store.add_set(session_id, index, step.key, step.purpose, 1, float(step.bias_V), 1)
+        for seq, charge_nC in enumerate(charges[step.purpose], start=1):
+            settling = step.purpose == "routine" and seq == 1
+            store.add_reading(
+                session_id, set_id, seq, 10.0 * seq, charge_nC, "pushed", settling, "ok"
+            )
+        store.set_set_status(set_id, "reviewing", actor="operator A")
+        store.set_set_status(set_id, "accepted", actor="operator A")
+    store.set_session_status(session_id, "finished", "plan complete", actor="operator A")
+    return session_id
+
+
+def record_years(db: Path, days: int) -> int:
+    """Record ``days`` days of output checks on every machine; return the number of sessions."""
+    clock = DayClock()
+    with Store.open(db, now=clock) as store:
+        for day in range(days):
+            clock.now = FIRST_DAY + timedelta(days=day)
+            with store.atomic():  # one commit a day: generating, not measuring
+                for machine in MACHINES:
+                    record_output_check(store, machine, day)
+    return days * len(MACHINES)
+
+
+def wall_s(command: list[str]) -> float:
+    """Return the wall time of one run of ``command`` (it must succeed), in seconds."""
+    started = time.perf_counter()
+    subprocess.run(command, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return time.perf_counter() - started
+
+
+def medians(commands: list[list[str]], runs: int) -> list[float]:
+    """Return the median wall time of each command, the commands run in turn ``runs`` times."""
+    for command in commands:
+        wall_s(command)  # warm the file cache once
+    times: list[list[float]] = [[] for _ in commands]
+    for _ in range(runs):
+        for spent, command in zip(times, commands, strict=True):
+            spent.append(wall_s(command))
+    return [report.median(spent) for spent in times]
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    days, sets, runs = (
+        (SMOKE_DAYS, SMOKE_SETS, SMOKE_RUNS) if args.smoke else (FULL_DAYS, FULL_SETS, FULL_RUNS)
+    )
+    chargebook = chargebook_help_command()[:-1]
+    out = report.Report(
+        f"the record at scale: {days} days of output checks on {len(MACHINES)} machines, "
+        f"a session of {sets} sets; medians of {runs} runs",
+        args.smoke,
+    )
+    with scratch("record-scale") as workdir:
+        db, long_db = workdir / "station.sqlite", workdir / "long.sqlite"
+        started = time.perf_counter()
+        sessions = record_years(db, days)
+        long_id = record_sets(long_db, sets - 1)
+        out.note(f"{sessions} sessions generated in {time.perf_counter() - started:.0f} s")
+        bare = [sys.executable, "-c", BARE, str(db)]
+        listing, listing_bare = medians(
+            [[*chargebook, "sessions", "--db", str(db)], [*bare, SESSIONS_QUERY]], runs
+        )
+        history_command = [*chargebook, "history", "--beam", "6 MV", "--machine", MACHINES[0]]
+        history, history_bare = medians(
+            [
+                [*history_command, "--no-plot", "--db", str(db)],
+                [*bare, HISTORY_QUERY, "6 MV", MACHINES[0]],
+            ],
+            runs,
+        )
+        html_command = [*chargebook, "export", str(long_id), "--format", "html"]
+        (html,) = medians(
+            [[*html_command, "-o", str(workdir / "r.html"), "--db", str(long_db)]], runs
+        )
+    out.baseline("bare SQL of the sessions' rows (median)", listing_bare * 1000, "ms")
+    out.measured("chargebook sessions (median)", listing * 1000, "ms")
+    out.baseline(
+        "bare SQL of one machine's 6 MV sessions and readings (median)", history_bare * 1000, "ms"
+    )
+    out.measured(
+        "chargebook history --beam '6 MV' --machine DEMO-LA1 (median)", history * 1000, "ms"
+    )
+    out.measured(
+        f"chargebook export --format html of the {sets}-set session (median)", html * 1000, "ms"
+    )
+    out.ratio(listing / listing_bare, "sessions / its bare SQL")
+    out.ratio(history / history_bare, "history / its bare SQL")
+    for name, spent, ratio in (
+        ("sessions", listing, listing / listing_bare),
+        ("history", history, history / history_bare),
+    ):
+        out.target(f"{name} under {TARGET_S:g} s", spent < TARGET_S, f"{spent:.2f} s")
+        out.target(
+            f"{name} within {TARGET_RATIO:g} x its bare SQL",
+            ratio <= TARGET_RATIO,
+            f"{ratio:.1f} x",
+        )
+    out.target(
+        f"HTML report of the {sets}-set session under {TARGET_S:g} s",
+        html < TARGET_S,
+        f"{html:.2f} s",
+    )
+    return out.finish()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
