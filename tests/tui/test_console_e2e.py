@@ -415,4 +415,4 @@ async def test_ctrl_t_has_the_daemon_read_its_sensor_and_without_one_says_so(
             lambda: app.snapshot["environment"]["source"].startswith("sensor SIM-TP-0001"),
             "the sensor's entry",
         )
-    assert typed == "console"  # the form's typed entry, marked as typed at the console
+    assert typed == "typed at the console"  # the form's typed entry, marked as typed

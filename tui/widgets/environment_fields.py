@@ -92,7 +92,7 @@ class EnvironmentFields(Vertical):
         self.field("humidity_pct").input.value = _entered(entry.get("humidity_pct"))
         self.confirmed_last = True
 
-    def source(self, typed: str = "console") -> str:
+    def source(self, typed: str = "typed at the console") -> str:
         """Return the source to record: typed, or the last entry confirmed for a new session."""
         if self.confirmed_last and self.last_entry is not None:
             when = text.local_time(self.last_entry.get("recorded_at"))
