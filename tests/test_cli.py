@@ -6,10 +6,13 @@ import shutil
 import subprocess
 import sys
 from importlib.metadata import version
+from pathlib import Path
 
 import pytest
 from chargebook.acquire.commands.cli import COMMANDS, build_parser
 from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
+
+ROOT = Path(__file__).resolve().parents[1]
 
 
 def _chargebook(*argv: str) -> subprocess.CompletedProcess[str]:
@@ -80,3 +83,18 @@ def test_the_zsh_completion_script_names_every_command() -> None:
     assert done.returncode == EXIT_OK, done.stderr
     assert done.stdout.startswith("#compdef chargebook")
     assert all(f"\n    {name}:'" in done.stdout for name in COMMANDS)
+
+
+@pytest.mark.parametrize(
+    "argv", [("correct", "acquire/examples/demo-la1-6mv.toml"), ("ports",), ("completion", "zsh")]
+)
+def test_every_command_stops_quietly_when_its_reader_goes_away(argv: tuple[str, ...]) -> None:
+    process = subprocess.Popen(
+        [sys.executable, "-m", "chargebook", *argv],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        cwd=ROOT,
+    )
+    process.stdout.close()  # like `| head` exiting before anything is written
+    _, err = process.communicate(timeout=60)
+    assert b"Traceback" not in err and err == b""

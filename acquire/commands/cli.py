@@ -96,7 +96,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     if getattr(args, "_run", None) is None:
         parser.print_help(sys.stderr)
         return EXIT_INVALID_INPUT
-    return args._run(args)
+    try:
+        return args._run(args)
+    except BrokenPipeError:  # `chargebook correct ... | head`: every command, not only readers
+        from chargebook.acquire.commands.station_reader import output_closed
+
+        return output_closed()
 
 
 if __name__ == "__main__":

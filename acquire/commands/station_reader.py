@@ -227,10 +227,14 @@ def _answer(call: Callable[[], int], where: str) -> int:
         )
         return EXIT_FAILURE
     except BrokenPipeError:
-        # Whoever read the output went away (`| head`): stop quietly, as the Python
-        # documentation on SIGPIPE advises, so that the interpreter's final flush stays silent.
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-        return EXIT_FAILURE
+        return output_closed()
+
+
+def output_closed() -> int:
+    """Stop quietly when whoever read the output went away (`| head`), as the Python
+    documentation on SIGPIPE advises, so that the interpreter's final flush stays silent."""
+    os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+    return EXIT_FAILURE
 
 
 def _run_department(

@@ -88,6 +88,19 @@ DAEMON_ACTOR = "daemon"
 BUSY_TIMEOUT_MS = 5000
 
 
+#: The range of SQLite's INTEGER: a whole number outside it cannot be bound to a query.
+_SQLITE_INT_MIN, _SQLITE_INT_MAX = -(2**63), 2**63 - 1
+
+
+def _storable(params: Sequence[Any]) -> bool:
+    """Return False when a whole number among ``params`` is outside SQLite's INTEGER range
+    (a mistyped id: SQLite would raise OverflowError; no row can hold it)."""
+    return all(
+        not isinstance(value, int) or _SQLITE_INT_MIN <= value <= _SQLITE_INT_MAX
+        for value in params
+    )
+
+
 #: What a damaged file raises when its pages are first read, after it opened; the commands catch
 #: it to say so in words, without importing sqlite3 themselves.
 UnreadableRecord = sqlite3.DatabaseError
@@ -699,6 +712,8 @@ class Store:
         self, cls: type, table: str, where: str, params: tuple[Any, ...] = ()
     ) -> list[tuple[Any, ...]]:
         """Return the raw rows of ``table`` with the columns of ``cls``, ordered by id."""
+        if not _storable(params):
+            return []  # an id no SQLite row can have (a typed 10**30): nothing matches it
         sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
         with self._lock:
             return self.db.execute(sql, params).fetchall()
@@ -1137,6 +1152,8 @@ class Store:
 
     def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""
+        if not _storable(params):
+            return []  # an id no SQLite row can have: nothing matches it
         with self._lock:
             return self.db.execute(sql, params).fetchall()
 

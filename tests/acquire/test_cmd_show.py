@@ -71,6 +71,16 @@ def test_an_unknown_session_is_named(station: Path, capsys) -> None:
     assert "no session with id 42" in err and "chargebook sessions" in err
 
 
+@pytest.mark.parametrize("command", ["show", "export", "verify", "replay"])
+def test_an_id_beyond_sqlites_integers_is_an_unknown_session_not_a_traceback(
+    station: Path, command: str, capsys
+) -> None:
+    too_big = str(2**63)  # the first whole number SQLite cannot bind (OverflowError before)
+    assert main([command, too_big, "--db", str(station)]) == EXIT_INVALID_INPUT
+    err = capsys.readouterr().err
+    assert f"no session with id {too_big}" in err and "Traceback" not in err
+
+
 def test_a_session_whose_values_cannot_be_evaluated_is_still_shown(tmp_path: Path, capsys) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:

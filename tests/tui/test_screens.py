@@ -487,7 +487,10 @@ async def test_a_new_session_asks_for_the_air_again_or_a_confirmation_of_the_las
         "pressure_unit": "hPa",
         "humidity_pct": 45.0,
     }
-    assert source == "typed at the console: the entry of 2025-03-14 09:30:00 +00:00 confirmed by the operator"
+    assert (
+        source
+        == "typed at the console: the entry of 2025-03-14 09:30:00 +00:00 confirmed by the operator"
+    )
 
 
 async def test_the_focused_entry_is_marked_in_text_not_only_by_a_shade():
