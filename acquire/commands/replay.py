@@ -118,6 +118,7 @@ def run(args: argparse.Namespace) -> int:
     import os
     import sys
 
+    from chargebook.acquire.commands.station_reader import missing_station_words
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
     from chargebook.acquire.processes import ChildStartError
     from chargebook.acquire.protocol import CAUTION
@@ -133,11 +134,13 @@ def run(args: argparse.Namespace) -> int:
     from chargebook.corrections.errors import InputError
     from chargebook.drivers_generic import ProfileError
 
+    db_path = Path(args.db or default_db_path())
+    if not db_path.is_file():  # the input cannot be used: status 2, as for every command
+        print(f"chargebook replay: {missing_station_words(db_path)}", file=sys.stderr)
+        return EXIT_INVALID_INPUT
     try:
         if args.write_traffic_log is not None:
-            count = save_traffic_log(
-                args.db or default_db_path(), args.session, args.write_traffic_log, args.profile
-            )
+            count = save_traffic_log(db_path, args.session, args.write_traffic_log, args.profile)
             print(
                 f"wrote {args.write_traffic_log}: {count} lines of session {args.session}",
                 file=sys.stderr,
@@ -148,7 +151,7 @@ def run(args: argparse.Namespace) -> int:
         if args.time_scale is not None and not args.time_scale > 0:
             raise InputError("--time-scale", args.time_scale, "a number above 0")
         request = ReplayRequest(
-            db_path=args.db or default_db_path(),
+            db_path=db_path,
             session_id=args.session,
             speed=args.speed,
             plan=args.plan,

@@ -64,7 +64,8 @@ def test_a_missing_database_is_named_and_not_created(tmp_path: Path, capsys) -> 
     missing = tmp_path / "nowhere.sqlite"
     # A file the user named that does not exist is unusable input: 2, as `correct` gives for a
     # missing worksheet and `show` for a missing session.
-    for argv in (["sessions"], ["show", "1"], ["export", "1"], ["history", "--beam", "6 MV"]):
+    reads = (["sessions"], ["show", "1"], ["export", "1"], ["history", "--beam", "6 MV"])
+    for argv in (*reads, ["replay", "1"], ["verify", "1"]):
         assert main([*argv, "--db", str(missing)]) == EXIT_INVALID_INPUT, argv
         assert f"no station database at {missing}" in capsys.readouterr().err
     assert not missing.exists()
