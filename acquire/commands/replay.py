@@ -118,7 +118,7 @@ def run(args: argparse.Namespace) -> int:
     import os
     import sys
 
-    from chargebook.acquire.commands.station_reader import missing_station_words
+    from chargebook.acquire.commands.station_reader import listed_hint, missing_station_words
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
     from chargebook.acquire.processes import ChildStartError
     from chargebook.acquire.protocol import CAUTION
@@ -164,7 +164,7 @@ def run(args: argparse.Namespace) -> int:
         )
         report = replay_session(request)
     except NotFound as error:
-        print(f"chargebook replay: {error} (`chargebook sessions` lists them)", file=sys.stderr)
+        print(f"chargebook replay: {error}{listed_hint(error)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
     except (NotReplayable, InputError, ProfileError) as error:
         print(f"chargebook replay: {error}; nothing was written", file=sys.stderr)

@@ -214,7 +214,7 @@ def _answer(call: Callable[[], int], where: str) -> int:
     try:
         return call()
     except NotFound as error:
-        print(f"chargebook: {error} (`chargebook sessions` lists them)", file=sys.stderr)
+        print(f"chargebook: {error}{listed_hint(error)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
     except InputError as error:
         print(f"chargebook: {error}", file=sys.stderr)
@@ -228,6 +228,12 @@ def _answer(call: Callable[[], int], where: str) -> int:
         return EXIT_FAILURE
     except BrokenPipeError:
         return output_closed()
+
+
+def listed_hint(error: Exception) -> str:
+    """Return " (`COMMAND` lists them)" for a NotFound whose kind some command lists."""
+    listed_by = getattr(error, "listed_by", None)
+    return f" (`{listed_by}` lists them)" if listed_by else ""
 
 
 def output_closed() -> int:

@@ -20,7 +20,7 @@ from typing import Any
 
 from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record.events import EventKind, RegisterRowAdded
-from chargebook.acquire.record.store import NotFound, Store
+from chargebook.acquire.record.store import NotFound, RegisterRowNotFound, Store
 from chargebook.corrections.errors import InputError
 
 KINDS = REGISTER_KINDS
@@ -160,7 +160,9 @@ def register_row(store: Store, row_id: int) -> RegisterRow:
     """Return register row ``row_id``; raise ``NotFound`` naming it when there is none."""
     found = store.read(f"{_SELECT} WHERE r.id = ?", (row_id,))
     if not found:
-        raise NotFound(f"no register row with id {row_id} in {store.path or 'the database'}")
+        raise RegisterRowNotFound(
+            f"no register row with id {row_id} in {store.path or 'the database'}"
+        )
     return _row(found[0])
 
 

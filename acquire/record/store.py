@@ -113,8 +113,23 @@ class StoreError(Exception):
 class NotFound(StoreError, KeyError):
     """A session or reading set with the given id is not in the database."""
 
+    #: The command that lists what may be asked for, named beside the error (None: none does).
+    listed_by: str | None = "chargebook sessions"
+
     def __str__(self) -> str:
         return str(self.args[0]) if self.args else "not found"
+
+
+class RegisterRowNotFound(NotFound):
+    """A register row with the given id is not in the station's registers."""
+
+    listed_by: str | None = "chargebook register list"
+
+
+class VisitNotFound(NotFound):
+    """A calibration visit with the given id is not in the database."""
+
+    listed_by: str | None = None
 
 
 def default_db_path() -> Path:

@@ -32,6 +32,7 @@ from chargebook.acquire.record.store import (
     NotFound,
     SessionRow,
     Store,
+    VisitNotFound,
 )
 from chargebook.corrections.errors import InputError
 
@@ -127,7 +128,7 @@ def visit(store: Store, visit_id: int) -> VisitRow:
     """Return one visit. Raises :class:`NotFound` when there is none."""
     rows = store.read(f"SELECT {_VISIT} FROM visits WHERE id = ?", (visit_id,))
     if not rows:
-        raise NotFound(f"no visit with id {visit_id} in {store.path or 'the database'}")
+        raise VisitNotFound(f"no visit with id {visit_id} in {store.path or 'the database'}")
     return VisitRow(*rows[0])
 
 
