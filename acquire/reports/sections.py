@@ -381,7 +381,11 @@ def factors_of(evaluation: Evaluation | None, missing: str = "No results.") -> T
         ("symbol", "value", "state", "u (%)", "source"),
         rows,
         tuple(evaluation.factors),
-        note="A pending factor is not yet known: results that need it are not shown.",
+        note=(
+            "A pending factor is not yet known: results that need it are not shown."
+            if any(factor.value is None for factor in evaluation.factors.values())
+            else ""
+        ),
     )
 
 

@@ -44,6 +44,15 @@ def test_text_shows_every_section_and_the_results(station: Path, capsys) -> None
     assert SUPERSEDE_REASON in out
     assert "Instrument as identified" in out and "serial SIM-EM-0001" in out
     assert out.rstrip().endswith(CAUTION)
+    assert "A pending factor" not in out  # every factor is known: no note says otherwise
+
+
+def test_the_factor_table_says_a_factor_is_pending_only_when_one_is() -> None:
+    from chargebook.acquire.reports.sections import factors_of
+    from chargebook.corrections.evaluate import MeasurementInputs, evaluate
+
+    nothing_measured = factors_of(evaluate(MeasurementInputs()))
+    assert nothing_measured.note.startswith("A pending factor is not yet known")
 
 
 def test_json_is_the_export(station: Path, capsys) -> None:
