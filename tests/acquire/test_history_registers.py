@@ -107,3 +107,18 @@ def test_show_and_the_html_report_read_the_action_level_the_registers_copied(
     assert "not set in this record" not in html
     assert main(["show", "1", "--db", str(station)]) == EXIT_OK
     assert re.search(r"action level \(%\)\s+not set in this record", capsys.readouterr().out)
+
+
+@pytest.mark.parametrize(
+    ("metadata", "expected"),
+    [
+        ({"register_copy": {"beam": {"fields": {"action_pct": 3}}}}, 3.0),
+        ({"action_level_pct": 2.5, "register_copy": {"beam": {"fields": {"action_pct": 3}}}}, 2.5),
+        ({"register_copy": {"beam": {"fields": {}}}}, None),
+        ({}, None),
+    ],
+)
+def test_a_typed_action_level_comes_before_the_register_copy(metadata: dict, expected) -> None:
+    from chargebook.acquire.session.metadata import action_level_pct
+
+    assert action_level_pct(metadata) == expected
