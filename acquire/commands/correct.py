@@ -310,10 +310,6 @@ def run(args: argparse.Namespace) -> int:
             worksheet = parse_worksheet(stdin_document(sys.stdin.read()), "<stdin>")
         else:
             worksheet = read_worksheet(args.worksheet)
-    except InputError as error:
-        print(f"chargebook correct: invalid input in {source}: {error}", file=sys.stderr)
-        return EXIT_INVALID_INPUT
-    try:
         evaluation = evaluate(worksheet.inputs)
     except InputError as error:
         key = worksheet_key(error.field)

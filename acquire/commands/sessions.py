@@ -75,6 +75,7 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
                 "replay_of": session.replay_of,
                 "review": review_status(review),
                 "reviewer": review.reviewer if review else None,
+                "self_review": review.self_review if review else None,
                 "reviewed_at": review.reviewed_at if review else None,
             }
         )
@@ -132,6 +133,9 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
 
 def _review_cell(row: dict) -> str:
     """Return the review column: unreviewed, or the decision, reviewer and date."""
+    from chargebook.acquire.record.review import SELF_REVIEW_WORDS
+
     if row["reviewer"] is None:
         return str(row["review"])
-    return f"{row['review']} by {row['reviewer']} {str(row['reviewed_at'])[:10]}"
+    mark = f" {SELF_REVIEW_WORDS}" if row["self_review"] else ""
+    return f"{row['review']} by {row['reviewer']}{mark} {str(row['reviewed_at'])[:10]}"

@@ -250,6 +250,7 @@ class SessionReviewed(TypedDict):
     comment: str
     measured_by: str | None
     self_review_allowed: bool
+    self_review: bool  # the reviewer measured or started it (allowed by self_review_allowed)
 
 
 class Replay(TypedDict):

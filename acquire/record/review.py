@@ -42,6 +42,8 @@ class Review:
     reviewed_at: str
     account: str | None
     measured_by: str | None
+    #: The reviewer measured (or started) what they reviewed, as --allow-self-review let them.
+    self_review: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         """Return the review as JSON-ready data."""
@@ -52,6 +54,7 @@ class Review:
             "reviewed_at": self.reviewed_at,
             "account": self.account,
             "measured_by": self.measured_by,
+            "self_review": self.self_review,
         }
 
 
@@ -63,13 +66,19 @@ def review_of(
     for event in events:
         if event.kind == kind:
             detail = event.detail()
+            reviewer = str(detail.get("reviewer"))
+            # Reviews recorded before "self_review" was kept: the operator reviewing, allowed.
+            allowed_self = bool(detail.get("self_review_allowed")) and _same_person(
+                reviewer, detail.get("measured_by")
+            )
             return Review(
                 status=str(detail.get("status")),
-                reviewer=str(detail.get("reviewer")),
+                reviewer=reviewer,
                 comment=str(detail.get("comment", "")),
                 reviewed_at=event.recorded_at,
                 account=event.account,
                 measured_by=detail.get("measured_by"),
+                self_review=bool(detail.get("self_review", allowed_self)),
             )
     return None
 
@@ -80,12 +89,21 @@ def review_status(review: Review | None) -> str:
 
 
 def review_words(review: Review | None) -> str:
-    """Return the review in words: "approved by reviewer B on 2026-12-03 07:10 UTC" or
-    "unreviewed"."""
+    """Return the review in words: "approved by reviewer B on 2026-12-03 07:10 UTC" (with
+    :data:`SELF_REVIEW_WORDS` after the name for a self-review) or "unreviewed"."""
     if review is None:
         return UNREVIEWED
     stamp = review.reviewed_at[:16].replace("T", " ") + " UTC"
-    return f"{review.status} by {review.reviewer} on {stamp}"
+    return f"{review.status} by {reviewer_words(review)} on {stamp}"
+
+
+#: What a review by the person who measured says beside the reviewer's name.
+SELF_REVIEW_WORDS = "(self-review, allowed by --allow-self-review)"
+
+
+def reviewer_words(review: Review) -> str:
+    """Return the reviewer's name, marked "(self-review, ...)" when they reviewed their own."""
+    return f"{review.reviewer} {SELF_REVIEW_WORDS}" if review.self_review else review.reviewer
 
 
 def local_account() -> str | None:
@@ -166,14 +184,16 @@ def record_review(
                 f"is already {review_words(earlier)}",
             )
         operator = session.metadata().get("operator")
+        started_by = _started_by_account(events)
         if not allow_self_review:
-            _refuse_self_review(reviewer, operator, _started_by_account(events))
+            _refuse_self_review(reviewer, operator, started_by)
         review = SessionReviewed(
             status=DECISIONS[decision],
             reviewer=reviewer,
             comment=comment,
             measured_by=operator,
             self_review_allowed=allow_self_review,
+            self_review=_is_self_review(reviewer, [operator, started_by]),
         )
         store.add_event(session_id, reviewer, EventKind.SESSION_REVIEWED, review)
         found = review_of(store.events(session_id))
@@ -229,11 +249,15 @@ def record_visit_review(
                 "visit", visit_id, "a visit not yet reviewed", f"is already {review_words(earlier)}"
             )
         operator = visit.metadata().get("operator")
+        created = next((e for e in events if e.kind == EventKind.VISIT_CREATED), None)
+        started_by = created.account if created else None
+        beam_operators = [
+            store.session(session_id).metadata().get("operator")
+            for session_id in sorted({s for state in states for s in state.sessions})
+        ]
         if not allow_self_review:
-            created = next((e for e in events if e.kind == EventKind.VISIT_CREATED), None)
-            _refuse_self_review(reviewer, operator, created.account if created else None)
-            for session_id in {s for state in states for s in state.sessions}:
-                measured_by = store.session(session_id).metadata().get("operator")
+            _refuse_self_review(reviewer, operator, started_by)
+            for measured_by in beam_operators:
                 _refuse_self_review(reviewer, measured_by, None)
         store.add_event(
             None,
@@ -246,6 +270,7 @@ def record_visit_review(
                 "comment": comment,
                 "measured_by": operator,
                 "self_review_allowed": allow_self_review,
+                "self_review": _is_self_review(reviewer, [operator, started_by, *beam_operators]),
             },
         )
         found = review_of(visits.visit_events(store, visit_id), VISIT_REVIEW_EVENT)
@@ -265,6 +290,11 @@ def _text(field: str, value: object) -> str:
     if not isinstance(value, str) or not value.strip():
         raise InputError(field, value, "a non-empty text", "is empty")
     return " ".join(value.split()) if field == "reviewer" else value.strip()
+
+
+def _is_self_review(reviewer: str, people: list[object]) -> bool:
+    """Return True when ``reviewer`` is one of the people who measured or started the work."""
+    return any(_same_person(reviewer, person) for person in people)
 
 
 def _refuse_self_review(reviewer: str, operator: object, started_by: str | None) -> None:

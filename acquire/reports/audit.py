@@ -9,6 +9,7 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.review import review_of, reviewer_words
 from chargebook.acquire.record.store import EventRow
 from chargebook.acquire.reports.data import SessionRecord
 
@@ -107,12 +108,24 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         return "MU per reading set in the setup", (
             f"{detail.get('mu_per_reading'):g} MU (the plan's: {detail.get('plan_MU'):g} MU)"
         )
+    if kind == EventKind.SESSION_REVIEWED:
+        return review_event_words(event)
     if kind == "visit_beam":
         return "beam of a visit", (
             f"beam {detail.get('position')}, {detail.get('beam')}, "
             f"of visit {detail.get('visit_id')}"
         )
     return kind.replace("_", " "), _detail_text(detail)
+
+
+def review_event_words(event: EventRow, reviewed: str = "session") -> tuple[str, str]:
+    """Return (what, detail) of a review event of a session (or ``reviewed`` "visit"): the
+    decision, who, their comment, and whether the reviewer was the person who measured (a
+    self-review, allowed) or a second one."""
+    review = review_of([event], EventKind(event.kind))
+    assert review is not None
+    who = reviewer_words(review) if review.self_review else f"{review.reviewer}, a second person"
+    return f"{reviewed} {review.status}", f"by {who}; comment: {review.comment}"
 
 
 def _detail_text(detail: dict[str, Any]) -> str:

@@ -52,6 +52,7 @@ AUDIT_EVENT_KINDS = (
     EventKind.DELIVERY_SHORT,
     EventKind.MU_PER_READING_SET,
     EventKind.VISIT_BEAM,
+    EventKind.SESSION_REVIEWED,
 )
 
 

@@ -27,6 +27,7 @@ from chargebook.acquire.record.store import NotFound, SessionRow, Store
 from chargebook.acquire.reports.data import SessionRecord, load_record
 from chargebook.acquire.reports.sections import Table, number, signed, when
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
+from chargebook.acquire.session.metadata import action_level_pct
 from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
 
@@ -280,9 +281,18 @@ def load_history_across(
         ),
         station_uuid=stores[0].station().uuid if len(stores) == 1 else None,
         known_beams=() if records or not known else tuple(known),
-        action_pct=None if registered is None else registered.action_pct,
+        action_pct=_action_pct(registered, records),
         register_beam=None if registered is None else (registered.row_id, registered.name),
     )
+
+
+def _action_pct(registered: _RegisteredBeam | None, records: list[SessionRecord]) -> float | None:
+    """Return the action level to draw, %: the registers' beam row as it is now, else (a
+    department record, or sessions typed before the registers) the latest session's own."""
+    if registered is not None and registered.action_pct is not None:
+        return registered.action_pct
+    levels = [action_level_pct(r.metadata) for r in records]
+    return next((level for level in reversed(levels) if level is not None), None)
 
 
 @dataclass(frozen=True)

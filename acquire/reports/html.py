@@ -17,6 +17,7 @@ import math
 from collections.abc import Mapping, Sequence
 from html import escape
 
+from chargebook.acquire.record.review import Review, reviewer_words
 from chargebook.acquire.reports.audit import step_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
 from chargebook.acquire.reports.history import History
@@ -180,10 +181,15 @@ def budget_with_coverage(table: Table, evaluation: Evaluation | None) -> Table:
 def recorded_sign_off(record: SessionRecord) -> SignOff | None:
     """Return the session's recorded review (``chargebook review``) as the review block shows
     it, or None while the session is unreviewed."""
-    review = record.review
+    return sign_off(record.review)
+
+
+def sign_off(review: Review | None) -> SignOff | None:
+    """Return a recorded review (of a session or a visit) as the review block shows it: the
+    reviewer marked when it was a self-review; None while unreviewed."""
     if review is None:
         return None
-    return SignOff(review.reviewer, review.status, review.comment, when(review.reviewed_at))
+    return SignOff(reviewer_words(review), review.status, review.comment, when(review.reviewed_at))
 
 
 def session_html(record: SessionRecord, generated: str, review: SignOff | None = None) -> str:

@@ -110,7 +110,8 @@ def page(title: str, running_head: str, generated: str, body: Sequence[str]) -> 
 @dataclass(frozen=True)
 class SignOff:
     """A recorded review, as a review event gives it: who, ``decision`` (approved or rejected),
-    their comment, and when, as it is to be printed (e.g. "2026-12-03 07:10:00 UTC")."""
+    their comment, and when, as it is to be printed (e.g. "2026-12-03 07:10:00 UTC");
+    ``reviewer`` carries the self-review words when the reviewer measured it."""
 
     reviewer: str
     decision: str

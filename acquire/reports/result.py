@@ -18,10 +18,12 @@ from chargebook.acquire.reports.sections import (
     NOT_GIVEN,
     PENDING,
     Table,
+    action_level_text,
     keyed_table,
     number,
     signed,
 )
+from chargebook.acquire.session.metadata import ACTION_LEVEL_KEY
 from chargebook.acquire.session.plan import Plan
 from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.student_t import dof_text
@@ -34,8 +36,6 @@ REFERENCE_CONDITIONS = (
     ("sad_cm", "SAD (cm)"),
     ("field_size_cm", "field size at the reference plane (cm)"),
 )
-#: Metadata key of an action level (%), wider than the tolerance, when one is set.
-ACTION_LEVEL_KEY = "action_level_pct"
 
 
 def verdict_text(evaluation: Evaluation) -> str:
@@ -90,7 +90,6 @@ def result_table(
     if evaluation is None:
         rows.append(("results_error", "result", missing))
     else:
-        action = metadata.get(ACTION_LEVEL_KEY)
         rows += [
             (
                 "dose_per_MU_cGy",
@@ -107,7 +106,7 @@ def result_table(
             (
                 ACTION_LEVEL_KEY,
                 "action level",
-                "not set in this record" if action is None else f"±{action:g} %",
+                action_level_text(metadata),
             ),
             ("U_expanded_pct", "expanded uncertainty U", expanded_uncertainty_text(evaluation)),
             (

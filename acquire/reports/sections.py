@@ -22,6 +22,7 @@ from chargebook.acquire.record.review import review_words
 from chargebook.acquire.reports.audit import event_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
 from chargebook.acquire.reports.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
+from chargebook.acquire.session.metadata import action_level_pct
 from chargebook.acquire.session.numbering import reading_labels
 from chargebook.corrections.beam_quality import quality_text
 from chargebook.corrections.conventions import constants
@@ -389,6 +390,12 @@ def factors_of(evaluation: Evaluation | None, missing: str = "No results.") -> T
     )
 
 
+def action_level_text(metadata: dict[str, Any]) -> str:
+    """Return the session's action level in words: "±3 %", or that the record sets none."""
+    action = action_level_pct(metadata)
+    return "not set in this record" if action is None else f"±{action:g} %"
+
+
 def results(record: SessionRecord) -> Table:
     """Return charge, dose, dose per MU, deviation and uncertainty."""
     evaluation = record.evaluation
@@ -409,6 +416,7 @@ def results(record: SessionRecord) -> Table:
             f"±{evaluation.tolerance_pct:g} ({evaluation.tolerance_source})",
         ),
         ("within_tolerance", "within tolerance", within),
+        ("action_level_pct", "action level (%)", action_level_text(record.metadata)),
         (
             "u_combined_pct",
             "combined standard uncertainty u_c (%)",

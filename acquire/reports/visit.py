@@ -14,8 +14,9 @@ from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
 from chargebook.acquire.record import visits
 from chargebook.acquire.record.review import review_words
 from chargebook.acquire.record.store import EventRow, Store
-from chargebook.acquire.reports.html import table_html
-from chargebook.acquire.reports.printed import SignOff, page, review_block
+from chargebook.acquire.reports.audit import review_event_words
+from chargebook.acquire.reports.html import sign_off, table_html
+from chargebook.acquire.reports.printed import page, review_block
 from chargebook.acquire.reports.result import expanded_uncertainty_text
 from chargebook.acquire.reports.sections import (
     NOT_GIVEN,
@@ -155,7 +156,7 @@ def _event_words(event: EventRow) -> tuple[str, str]:
     if kind == "visit_status":
         return f"visit {detail.get('to')}", str(detail.get("reason") or NOT_GIVEN)
     if kind == "visit_reviewed":
-        return f"visit {detail.get('status')}", str(detail.get("comment", ""))
+        return review_event_words(event, "visit")
     return kind, ""
 
 
@@ -207,15 +208,10 @@ def visit_html(summary: VisitSummary, events: list[EventRow], generated: str) ->
     """Return the visit's report as one self-contained, printable HTML page: the result by
     beam first, the visit id on every printed page, the review block last."""
     visit = summary.visit
-    review = summary.review
-    sign_off = (
-        None
-        if review is None
-        else SignOff(review.reviewer, review.status, review.comment, when(review.reviewed_at))
-    )
+    signed = sign_off(summary.review)
     body = [table_html(table) for table in visit_tables(summary, events)]
     operator = str(visit.metadata().get("operator", NOT_GIVEN))
-    body.append(review_block(operator, when(visit.created_at), sign_off))
+    body.append(review_block(operator, when(visit.created_at), signed))
     title = f"chargebook visit {visit.id}: {visit.machine}"
     running_head = f"chargebook visit {visit.id} · {visit.machine}"
     return page(title, running_head, generated, body)

@@ -50,6 +50,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime
+import itertools
 import json
 import tomllib
 from collections.abc import Mapping
@@ -176,6 +177,29 @@ def _is_number(value: object) -> bool:
     return isinstance(value, int | float) and not isinstance(value, bool)
 
 
+def _refuse_split_numbers(name: str, charges_nC: list[Any]) -> None:
+    """Refuse a charge list that mixes integers with decimals, the mark of a typed comma.
+
+    ``[14.747, 14,749]`` is valid TOML and JSON (the integers 14 and 749), so the slip would
+    otherwise pass as two readings and surface only as an odd ratio or a flag.
+    """
+    integers = [item for item in charges_nC if isinstance(item, int)]
+    if not integers or len(integers) == len(charges_nC):
+        return
+    shown = " and ".join(str(item) for item in integers)
+    hint = ""
+    for first, second in itertools.pairwise(charges_nC):
+        if isinstance(first, int) and isinstance(second, int):
+            hint = f" Write {first}.{second}"
+            break
+    raise InputError(
+        name,
+        charges_nC,
+        "charges in nC written with a decimal point",
+        f"holds {shown} among decimal readings: a comma inside a number?{hint}",
+    )
+
+
 def _typed(section: str, key: str, value: object) -> Any:
     kind = SCHEMA[section][key]
     name = _name(section, key)
@@ -193,6 +217,7 @@ def _typed(section: str, key: str, value: object) -> Any:
         for index, item in enumerate(value):
             if not _is_number(item):
                 raise InputError(f"{name}[{index}]", item, "a charge in nC", "is not a number")
+        _refuse_split_numbers(name, value)
         return tuple(float(item) for item in value)
     raise InputError(name, value, kind, f"is of the wrong type ({type(value).__name__})")
 

@@ -526,3 +526,29 @@ def test_an_empty_worksheet_and_a_missing_key_are_said_in_plain_words(monkeypatc
     assert main(["correct", "-"]) == EXIT_INVALID_INPUT
     err = capsys.readouterr().err
     assert "convention is missing (allowed: trs398 or tg51)" in err and "None" not in err
+
+
+def _refused(tmp_path: Path, capsys, pressure_kPa: str, routine_nC: str) -> str:
+    """Return what `correct` says on stderr, refusing (exit 2) a worksheet with these lines."""
+    sheet = tmp_path / "sheet.toml"
+    sheet.write_text(
+        'convention = "trs398"\nbeam = "pulsed"\n'
+        f"[environment]\ntemperature_C = 21.8\npressure_kPa = {pressure_kPa}\n"
+        f"[readings]\nroutine_nC = {routine_nC}\n",
+        encoding="utf-8",
+    )
+    assert main(["correct", str(sheet)]) == EXIT_INVALID_INPUT
+    return capsys.readouterr().err
+
+
+def test_a_comma_inside_a_charge_is_refused_by_correct(tmp_path: Path, capsys) -> None:
+    err = _refused(tmp_path, capsys, "100.6", "[14.747, 14.751, 14,749, 14.752]")
+    assert "readings.routine_nC" in err and "holds 14 and 749 among decimal readings" in err
+    assert "Write 14.749" in err
+    assert "charge ratio" not in err
+
+
+def test_an_out_of_range_pressure_names_its_worksheet_key(tmp_path: Path, capsys) -> None:
+    err = _refused(tmp_path, capsys, "150.0", "[14.7]")
+    assert "pressure_kPa = 150 is outside the allowed range 60 to 110 kPa" in err
+    assert err.rstrip().endswith("(worksheet key environment.pressure_kPa)")

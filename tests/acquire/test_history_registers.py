@@ -90,3 +90,35 @@ def test_the_plot_draws_bars_action_lines_dates_and_marks_output_checks(
     assert page.count('stroke-dasharray="4 3"') == 2  # the two action lines
     assert "action +3 %" in page and 'data-kind="output check"' in page
     assert "date (days from the first session)" in page
+
+
+def test_show_and_the_html_report_read_the_action_level_the_registers_copied(
+    station: Path, tmp_path: Path, capsys
+) -> None:
+    # Session 4 named the register beam, whose row holds action_pct = 3 (the invented demo
+    # registers); session 1 was typed before the registers and sets no action level.
+    assert main(["show", "4", "--db", str(station)]) == EXIT_OK
+    shown = capsys.readouterr().out
+    assert re.search(r"action level \(%\)\s+±3 %", shown)
+    page = tmp_path / "4.html"
+    assert main(["export", "4", "--format", "html", "-o", str(page), "--db", str(station)]) == 0
+    html = page.read_text(encoding="utf-8")
+    assert "±3 %" in html and "action level not set" not in html
+    assert "not set in this record" not in html
+    assert main(["show", "1", "--db", str(station)]) == EXIT_OK
+    assert re.search(r"action level \(%\)\s+not set in this record", capsys.readouterr().out)
+
+
+@pytest.mark.parametrize(
+    ("metadata", "expected"),
+    [
+        ({"register_copy": {"beam": {"fields": {"action_pct": 3}}}}, 3.0),
+        ({"action_level_pct": 2.5, "register_copy": {"beam": {"fields": {"action_pct": 3}}}}, 2.5),
+        ({"register_copy": {"beam": {"fields": {}}}}, None),
+        ({}, None),
+    ],
+)
+def test_a_typed_action_level_comes_before_the_register_copy(metadata: dict, expected) -> None:
+    from chargebook.acquire.session.metadata import action_level_pct
+
+    assert action_level_pct(metadata) == expected

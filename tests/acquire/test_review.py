@@ -17,7 +17,7 @@ import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 from chargebook.acquire.record.events import EventKind
-from chargebook.acquire.record.review import record_review
+from chargebook.acquire.record.review import record_review, review_of
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all
@@ -177,3 +177,41 @@ def test_a_replay_is_not_a_measurement_and_cannot_be_reviewed(tmp_path: Path) ->
             record_review(store, replay, "approve", "reviewer B", "fine")
         assert refused.value.field == "session"
         assert record_review(store, original, "approve", "reviewer B", "fine").status == "approved"
+
+
+SELF_WORDS = f"approved by {OPERATOR} (self-review, allowed by --allow-self-review)"
+
+
+def test_an_allowed_self_review_is_said_wherever_a_person_reads(
+    station: Path, tmp_path: Path, capsys
+) -> None:
+    assert _review(station, 1, "approve", OPERATOR, "--allow-self-review") == EXIT_OK
+    assert _review(station, 4, "approve", REVIEWER) == EXIT_OK
+    capsys.readouterr()
+    assert main(["sessions", "--db", str(station)]) == EXIT_OK
+    lines = capsys.readouterr().out.splitlines()
+    one = next(line for line in lines if line.split()[:1] == ["1"])
+    four = next(line for line in lines if line.split()[:1] == ["4"])
+    assert SELF_WORDS.removeprefix("approved ") in one  # the table's "by ..." cell
+    assert "self-review" not in four and f"by {REVIEWER}" in four
+    assert main(["show", "1", "--db", str(station)]) == EXIT_OK
+    shown = capsys.readouterr().out
+    assert SELF_WORDS in shown
+    audit = shown[shown.index("Audit") :]
+    assert "session approved" in audit
+    assert f"by {OPERATOR} (self-review, allowed by --allow-self-review); comment: checked" in audit
+    page = tmp_path / "1.html"
+    assert main(["export", "1", "--format", "html", "-o", str(page), "--db", str(station)]) == 0
+    html = page.read_text(encoding="utf-8")
+    block = html[html.index('data-key="review"') :]
+    assert "self-review, allowed by --allow-self-review" in block
+    assert "session approved" in html  # the audit table lists the review
+    assert main(["show", "4", "--db", str(station)]) == EXIT_OK
+    assert f"by {REVIEWER}, a second person; comment: checked" in capsys.readouterr().out
+
+
+def test_the_allowance_alone_does_not_make_a_second_person_a_self_reviewer(station: Path) -> None:
+    assert _review(station, 1, "approve", REVIEWER, "--allow-self-review") == EXIT_OK
+    with Store.open(station, read_only=True) as store:
+        found = review_of(store.events(1))
+    assert found.self_review is False

@@ -93,3 +93,17 @@ def test_every_printed_page_of_the_visit_report_carries_the_visit_id(
     pages = printed_pages(html, tmp_path, "A4", "chargebook visit 1 ")
     assert f"{dose_per_MU:.4f}" in pages[0] and "PASS" in pages[0]
     assert "Reviewed by" in pages[-1] and REVIEWER in pages[-1]
+
+
+def test_a_visit_reviewed_by_its_operator_says_so(tmp_path: Path, capsys) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        visit_id = visits.create_visit(store, "DEMO-LA1", {"operator": OPERATOR}, OPERATOR)
+        beam = visits.add_beam(store, visit_id, "6 MV", "default", {}, OPERATOR)
+        visits.link_session(store, visit_id, beam, record_example_session(store), OPERATOR)
+        visits.close_visit(store, visit_id, None, OPERATOR)
+        record_visit_review(store, visit_id, "approve", OPERATOR, "fine", allow_self_review=True)
+    assert main(["show", "--visit", "1", "--db", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert f"approved by {OPERATOR} (self-review, allowed by --allow-self-review)" in out
+    assert f"by {OPERATOR} (self-review, allowed by --allow-self-review); comment: fine" in out

@@ -281,3 +281,44 @@ def test_carried_factors_without_a_session_date_are_checked_against_today() -> N
     assert worksheet_key("carried.k_pol.date") == "carried.k_pol.date"
     with pytest.raises(InputError, match=r"carried\.k_elec .*is not a known key"):
         parse_worksheet({**document, "carried": {"k_elec": {}}})
+
+
+@pytest.mark.parametrize(
+    ("name", "text"),
+    [
+        (
+            "sheet.toml",
+            MINIMAL.replace("[14.7, 14.71, 14.69]", "[14.747, 14.751, 14,749, 14.752]"),
+        ),
+        (
+            "sheet.json",
+            json.dumps(
+                {
+                    "convention": "trs398",
+                    "beam": "pulsed",
+                    "readings": {"routine_nC": [14.7], "opposite_nC": [-14.775, -14, 777]},
+                }
+            ),
+        ),
+    ],
+)
+def test_a_comma_inside_a_charge_is_refused_naming_the_integers(
+    tmp_path: Path, name: str, text: str
+) -> None:
+    # `14,749` is valid TOML and JSON (the integers 14 and 749): a typing slip, not two readings.
+    with pytest.raises(InputError) as raised:
+        load_worksheet(write(tmp_path, text, name))
+    message = str(raised.value)
+    assert raised.value.field.startswith("readings.")
+    assert "a comma inside a number?" in message
+    if name == "sheet.toml":
+        assert message.startswith("readings.routine_nC = ")
+        assert "holds 14 and 749 among decimal readings" in message
+        assert "Write 14.749" in message
+    else:
+        assert "readings.opposite_nC" in message and "holds -14 and 777" in message
+
+
+def test_whole_number_charges_alone_are_accepted(tmp_path: Path) -> None:
+    inputs = load_worksheet(write(tmp_path, MINIMAL.replace("[14.7, 14.71, 14.69]", "[15, 16]")))
+    assert inputs.routine_nC == (15.0, 16.0)
