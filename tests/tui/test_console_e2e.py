@@ -210,7 +210,12 @@ async def test_the_console_reconnects_when_the_daemon_restarts_and_says_so_meanw
         await until(pilot, lambda: app.link.connected, "the daemon back")
         await until(pilot, lambda: screen_kind(app) == "measure", "the measure screen")
         assert app.snapshot["session"]["id"] == session_id  # the same session, resumed
-        assert screen_text(app).startswith(f" Session {session_id} · DEMO-LA1 6 MV")
+        # The restarted daemon may still be reaching the electrometer (a banner says so first).
+        await until(
+            pilot,
+            lambda: screen_text(app).startswith(f" Session {session_id} · DEMO-LA1 6 MV"),
+            "the session's line once the electrometer is back",
+        )
 
 
 @pytest.mark.slow  # a reconnection at the daemon's backoff

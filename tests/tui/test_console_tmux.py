@@ -44,9 +44,12 @@ class Terminal:
     def open_console(self, socket: Path) -> None:
         """Start `chargebook console --socket SOCKET` in a fresh 80 × 24 window."""
         command = " ".join(chargebook_command("console", "--socket", str(socket)))
-        self.run("new-session", "-d", "-s", self.name, "-x", "80", "-y", "24", command)
-        # Keep the window when the console exits, so its last words can be read.
+        # The window is made with a shell and kept when its program exits, before the console
+        # replaces the shell: a console that stops at once leaves its last words to read, not a
+        # tmux server that exited under the test ("server exited unexpectedly").
+        self.run("new-session", "-d", "-s", self.name, "-x", "80", "-y", "24")
         self.run("set-option", "-t", self.name, "remain-on-exit", "on")
+        self.run("respawn-pane", "-k", "-t", self.name, command)
 
     def is_open(self) -> bool:
         """Return True while the console's window is still there."""
