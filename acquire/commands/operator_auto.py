@@ -28,7 +28,15 @@ STALL_TIMEOUT_S = 120.0
 
 
 class AutoOperatorError(RuntimeError):
-    """The automatic operator cannot go on; the message says why in plain words."""
+    """The automatic operator cannot go on; the message says why in plain words.
+
+    ``code`` is the daemon's error code when the daemon refused a request (else None), so a
+    command can tell input the daemon refused from a failure.
+    """
+
+    def __init__(self, message: str, code: int | None = None) -> None:
+        super().__init__(message)
+        self.code = code
 
 
 @dataclass(frozen=True)
@@ -105,7 +113,9 @@ class AutoOperator:
                     Method.SESSION_START, metadata=metadata, plan=plan
                 )
             except DaemonError as refused:
-                raise AutoOperatorError(f"the session cannot start: {refused.message}") from None
+                raise AutoOperatorError(
+                    f"the session cannot start: {refused.message}", refused.code
+                ) from None
         return snapshot
 
     async def run_until(
@@ -162,7 +172,9 @@ class AutoOperator:
                 await self.client.call(Method.SESSION_CLOSE)
             return await self.client.call(Method.VISIT_CLOSE)
         except DaemonError as refused:
-            raise AutoOperatorError(f"the visit cannot go on: {refused.message}") from None
+            raise AutoOperatorError(
+                f"the visit cannot go on: {refused.message}", refused.code
+            ) from None
 
     async def act(self, snapshot: dict[str, Any]) -> dict[str, Any]:
         """Do the one thing the snapshot asks for (or wait for the next snapshot)."""

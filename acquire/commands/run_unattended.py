@@ -62,6 +62,7 @@ def run(args: argparse.Namespace) -> int:
     import asyncio
     import sys
 
+    from chargebook.acquire.client import DaemonError
     from chargebook.acquire.daemon.main import startup_errors
     from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT
     from chargebook.corrections.errors import InputError
@@ -78,6 +79,22 @@ def run(args: argparse.Namespace) -> int:
     except (InputError, *startup_errors()) as error:
         print(f"chargebook run: {error}", file=sys.stderr)
         return EXIT_INVALID_INPUT
+    except DaemonError as error:
+        print(f"chargebook run: the daemon refused: {error}", file=sys.stderr)
+        return daemon_error_status(error)
+
+
+def daemon_error_status(error: Exception) -> int:
+    """Return 2 when the daemon refused a value the operator gave (input, params), else 1.
+
+    ``error`` is a DaemonError or an AutoOperatorError (its ``code`` None when no request was
+    refused).
+    """
+    from chargebook.acquire import protocol
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
+
+    refused_input = (protocol.INPUT_ERROR, protocol.INVALID_PARAMS)
+    return EXIT_INVALID_INPUT if getattr(error, "code", None) in refused_input else EXIT_FAILURE
 
 
 async def _run(args: argparse.Namespace) -> int:
@@ -93,7 +110,7 @@ async def _run(args: argparse.Namespace) -> int:
     from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, AutoOperatorError
     from chargebook.acquire.daemon.daemon import Daemon
     from chargebook.acquire.daemon.main import options_from_args
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.exit_codes import EXIT_OK
     from chargebook.acquire.reports.summary_text import reading_line, result_table
     from chargebook.acquire.session.result import result_document
     from chargebook.corrections.errors import InputError
@@ -126,7 +143,7 @@ async def _run(args: argparse.Namespace) -> int:
             document = result_document(daemon.store, final["session"]["id"])
         except AutoOperatorError as error:
             print(f"chargebook run: {error}", file=sys.stderr)
-            return EXIT_FAILURE
+            return daemon_error_status(error)
         finally:
             await client.close()
             daemon.shutdown()
@@ -146,6 +163,7 @@ def environment_source(args: argparse.Namespace):
     given = [(getattr(args, f"pressure_{unit}"), unit) for unit in PRESSURE_OPTION_UNITS]
     pressure, unit = next(((value, unit) for value, unit in given if value is not None), (None, ""))
     if args.temperature_C is not None and pressure is not None:
+        check_given_environment(args.temperature_C, pressure, unit)
         fixed = Environment(args.temperature_C, pressure, "entered for the run", unit)
         return lambda: fixed
     if args.bench_control:
@@ -156,3 +174,20 @@ def environment_source(args: argparse.Namespace):
         "both, or --bench-control",
         "are missing",
     )
+
+
+def check_given_environment(temperature_C: float, pressure: float, unit: str) -> None:
+    """Refuse, before any session starts, what the daemon would refuse (°C; pressure in ``unit``).
+
+    The checks are the daemon's own (``rules.check_environment``); the InputError names the
+    option the value came in (``--temperature-C``, ``--pressure-hPa``).
+    """
+    from chargebook.acquire.session.rules import check_environment
+    from chargebook.corrections.errors import InputError
+
+    options = {"temperature_C": "--temperature-C", "pressure": f"--pressure-{unit}"}
+    try:
+        check_environment(temperature_C, pressure, unit)
+    except InputError as error:
+        field = options.get(error.field, error.field)
+        raise InputError(field, error.value, error.allowed, error.problem) from None

@@ -34,16 +34,24 @@ def write_station(
 ) -> int:
     """Run ``directly`` while holding the station lock of ``path``, or ``through_daemon`` when a
     daemon holds it; turn bad input and store failures of ``directly`` into words and an exit
-    status (nothing is recorded on a refusal)."""
+    status (nothing is recorded on a refusal). A file at ``path`` that is not a station database
+    (empty, schema version 0) is refused before anything is written; a missing one too when
+    ``must_exist`` (else ``directly`` creates it)."""
     from chargebook.acquire.commands.station_reader import missing_station_words
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT
     from chargebook.acquire.record.station_lock import StationInUse, StationLock
-    from chargebook.acquire.record.store import NotFound, StoreError
+    from chargebook.acquire.record.store import NotAStation, NotFound, StoreError, require_station
     from chargebook.corrections.errors import InputError
 
     if must_exist and not path.is_file():
         print(f"chargebook: {missing_station_words(path)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
+    if path.is_file():  # never turn a file that is not a station database into one
+        try:
+            require_station(path)
+        except StoreError as error:  # NotAStation: bad input; unreadable: a failure
+            print(f"chargebook: {error}", file=sys.stderr)
+            return EXIT_INVALID_INPUT if isinstance(error, NotAStation) else EXIT_FAILURE
     lock = StationLock(path)
     try:
         lock.acquire()  # held while writing: no daemon starts on the file meanwhile

@@ -495,6 +495,8 @@ class Daemon:
 
         options = self.options
         profile = load_profile(options.profile)
+        for server in (self.server, self.watch_server):
+            server.prepare_directory()  # a refused socket folder leaves the station file untouched
         require_writable(options.db_path)  # refused in words, before the lock file is made
         self.station_lock.acquire()  # before anything is written: one daemon per station file
         self.store = Store.open(options.db_path)

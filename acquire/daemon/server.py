@@ -172,7 +172,12 @@ def prepare_socket_dir(path: Path, gid: int | None = None) -> None:
     """
     directory = path.parent
     if not directory.is_symlink():
-        directory.mkdir(mode=0o700, parents=True, exist_ok=True)
+        try:
+            directory.mkdir(mode=0o700, parents=True, exist_ok=True)
+        except OSError as error:
+            raise UnsafeSocketDirectory(
+                f"cannot create the socket's folder {directory}: {error.strerror}; choose --socket"
+            ) from None
         if gid is not None and directory.lstat().st_uid == os.getuid():
             os.chown(directory, -1, gid)
             os.chmod(directory, 0o750)
@@ -221,10 +226,16 @@ class RpcServer:
         self._server: asyncio.base_events.Server | None = None
         self._numbers = 0
 
-    async def start(self) -> None:
-        """Listen on the socket (private directory and mode 0600, or the group's 0750/0660)."""
+    def prepare_directory(self) -> int | None:
+        """Create the socket's directory, or check an existing one (:func:`prepare_socket_dir`);
+        return the group's id (None: this user only). Raises UnsafeSocketDirectory."""
         gid = group_id(self.group) if self.group else None
         prepare_socket_dir(self.socket_path, gid)
+        return gid
+
+    async def start(self) -> None:
+        """Listen on the socket (private directory and mode 0600, or the group's 0750/0660)."""
+        gid = self.prepare_directory()
         remove_stale_socket(self.socket_path)
         old_umask = os.umask(0o177)  # the socket file is born 0600
         try:

@@ -167,6 +167,34 @@ def require_writable(path: Path) -> None:
         )
 
 
+class NotAStation(StoreError):
+    """The file exists but holds no chargebook record (empty, or schema version 0)."""
+
+
+def require_station(path: Path) -> None:
+    """Raise unless ``path`` is an existing station database, writing nothing to it.
+
+    Raises :class:`NotFound` when there is no file, :class:`NotAStation` when the file holds no
+    chargebook record (a 0-byte file, or SQLite at schema version 0), and :class:`StoreError`
+    when it is not an SQLite database this user can read. A file at an older schema version
+    passes: a writable open migrates it.
+    """
+    if not path.is_file():
+        raise NotFound(f"no station database at {path} (pass --db FILE to choose one)")
+    conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True)
+    try:
+        version = int(conn.execute("PRAGMA user_version").fetchone()[0])
+    except sqlite3.DatabaseError as error:
+        raise StoreError(f"{path} is not a usable chargebook database: {error}") from None
+    finally:
+        conn.close()
+    if version == 0:
+        raise NotAStation(
+            f"{path} is not a station database (it holds no chargebook record); nothing was "
+            "written: pass --db FILE naming a station database"
+        )
+
+
 def _writable(path: Path) -> bool:
     """Return True when this user can write the file ``path`` and create files beside it."""
     return os.access(path, os.W_OK) and os.access(path.parent, os.W_OK | os.X_OK)

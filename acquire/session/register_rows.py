@@ -357,6 +357,59 @@ def _effective(effective_from: Any, today: datetime.date) -> str:
     )
 
 
+#: The fields that name an entry among the current ones of its kind: one chamber, electrometer,
+#: thermometer or barometer per serial, one machine per name, one beam per name on its machine.
+_IDENTITY: dict[str, tuple[str, ...]] = {
+    "machine": ("name",),
+    "beam": ("machine", "name"),
+    **dict.fromkeys(("chamber", "electrometer", "thermometer", "barometer"), ("serial",)),
+}
+#: The references that say what a row belongs to: a certificate to its chamber, a k_Q to its
+#: chamber and beam. A superseding row keeps them (a new owner is a new entry).
+_OWNERS: dict[str, tuple[str, ...]] = {"certificate": ("chamber",), "k_Q": ("chamber", "beam")}
+
+
+def _identity(fields: Mapping[str, Any], names: tuple[str, ...]) -> tuple[Any, ...]:
+    """Return the identifying values, text compared without regard to case or spacing."""
+    return tuple(
+        " ".join(value.split()).casefold() if isinstance(value, str) else value
+        for value in (fields.get(name) for name in names)
+    )
+
+
+def _refuse_duplicate(
+    store: Store, kind: str, checked: Mapping[str, Any], entry_id: int | None = None
+) -> None:
+    """Raise InputError when another entry's current ``kind`` row has the same identity (its
+    serial, or its name), naming that row; ``entry_id`` is the entry being superseded."""
+    names = _IDENTITY.get(kind)
+    if names is None:
+        return
+    wanted = _identity(checked, names)
+    for row in register_rows(store, kind):
+        if row.entry_id != entry_id and _identity(row.fields, names) == wanted:
+            field_name = names[-1]
+            raise InputError(
+                field_name,
+                checked[field_name],
+                f"a {field_name} no current {kind} row holds",
+                f"is already registered as row {row.id} ({kind} {row_name(store, row)}): "
+                "supersede it",
+            )
+
+
+def _refuse_new_owner(old: RegisterRow, checked: Mapping[str, Any]) -> None:
+    """Raise InputError naming the field when a superseding row names another owner."""
+    for field_name in _OWNERS.get(old.kind, ()):
+        if checked.get(field_name) != old.fields.get(field_name):
+            raise InputError(
+                field_name,
+                checked.get(field_name),
+                f"{old.fields.get(field_name)}, the {field_name} that row {old.id} belongs to",
+                f"would move a {old.kind} to another {field_name}; add a new {old.kind} instead",
+            )
+
+
 def add_row(
     store: Store,
     kind: str,
@@ -369,6 +422,7 @@ def add_row(
     """Check the fields of a new ``kind`` entry and store its first row; return it."""
     day = _today(today)
     checked = check_fields(store, kind, given, day)
+    _refuse_duplicate(store, kind, checked)
     return append_register_row(
         store, kind, checked, actor=actor, effective_from=_effective(effective_from, day)
     )
@@ -393,6 +447,8 @@ def supersede_row(
     checked = check_fields(
         store, old.kind, {k: v for k, v in merged.items() if v not in (None, "")}, day
     )
+    _refuse_new_owner(old, checked)
+    _refuse_duplicate(store, old.kind, checked, old.entry_id)
     effective = _effective(effective_from, day)
     if effective < old.effective_from:
         raise InputError(

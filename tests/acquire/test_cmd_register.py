@@ -93,3 +93,60 @@ def test_a_write_waits_for_no_daemon_but_is_refused_while_another_holds_the_lock
                      "--socket", str(socket)]) == 1  # fmt: skip
     assert "must go through it" in capsys.readouterr().err
     assert len(_rows(db)) == 1
+
+
+def _beam(machine: int, name: str) -> list[str]:
+    """A photon beam row (invented demo values; TPR20,10 0.67 is typical of 6 MV, from memory)."""
+    return ["add", "beam", f"machine={machine}", f"name={name}", "modality=photon",
+            "nominal_energy=6", "beam_type=pulsed", "TPR20_10=0.67",
+            "quality_measured_on=2026-05-01"]  # fmt: skip
+
+
+def test_a_second_current_entry_of_the_same_thing_is_refused(tmp_path: Path, capsys) -> None:
+    """One current entry per chamber (serial), per machine (name), per beam on its machine."""
+    db = tmp_path / "station.sqlite"
+    assert _register(db, "add", "chamber", *CHAMBER) == EXIT_OK  # row 1
+    assert _register(db, "add", "machine", "name=DEMO-LA1") == EXIT_OK  # row 2
+    assert _register(db, "add", "machine", "name=DEMO-LA2") == EXIT_OK  # row 3
+    assert _register(db, *_beam(2, "6 MV")) == EXIT_OK  # row 4
+    assert _register(db, "add", "chamber", "serial=SIM-CH-0002", "type=cylindrical") == EXIT_OK
+    capsys.readouterr()
+    before = _rows(db)
+    for args, named in (
+        (["add", "chamber", *CHAMBER], "is already registered as row 1 (chamber SIM-CH-0001)"),
+        (["add", "chamber", "serial= sim-ch-0001", "type=cylindrical"], "as row 1"),
+        (["add", "machine", "name=demo-la1"], "is already registered as row 2"),
+        (_beam(2, "6  mv"), "is already registered as row 4 (beam DEMO-LA1 6 MV)"),
+        (["supersede", "5", "serial=SIM-CH-0001", "--reason", "typo"], "as row 1"),
+    ):  # fmt: skip
+        assert _register(db, *args) == EXIT_INVALID_INPUT, args
+        err = capsys.readouterr().err
+        assert named in err and "supersede it" in err, (args, err)
+    assert _rows(db) == before
+    assert _register(db, "add", "electrometer", "serial=SIM-CH-0001") == EXIT_OK  # another kind
+    assert _register(db, *_beam(3, "6 MV")) == EXIT_OK  # the same name on another machine
+    assert _register(db, "supersede", "1", "model=thimble", "--reason", "read again") == EXIT_OK
+
+
+def test_a_certificate_or_k_q_keeps_the_chamber_it_belongs_to(tmp_path: Path, capsys) -> None:
+    db = tmp_path / "station.sqlite"
+    assert _register(db, "add", "chamber", *CHAMBER) == EXIT_OK  # row 1
+    assert _register(db, "add", "chamber", "serial=SIM-CH-0002", "type=cylindrical") == EXIT_OK
+    assert _register(db, "add", "certificate", *CERTIFICATE) == EXIT_OK  # row 3, chamber 1
+    assert _register(db, "add", "machine", "name=DEMO-LA1") == EXIT_OK  # row 4
+    assert _register(db, *_beam(4, "6 MV")) == EXIT_OK  # row 5
+    assert _register(db, *_beam(4, "10 MV")) == EXIT_OK  # row 6
+    k_q = ["add", "k_Q", "chamber=1", "beam=5", "value=0.99", "source=invented", "u_pct=0.5"]
+    assert _register(db, *k_q) == EXIT_OK  # row 7
+    capsys.readouterr()
+    before = _rows(db)
+    moved = ["--reason", "moved"]
+    for args, named in (
+        (["supersede", "3", "chamber=2", *moved], "chamber = 2 would move a certificate"),
+        (["supersede", "7", "chamber=2", *moved], "chamber = 2 would move a k_Q"),
+        (["supersede", "7", "beam=6", *moved], "beam = 6 would move a k_Q"),
+    ):  # fmt: skip
+        assert _register(db, *args) == EXIT_INVALID_INPUT, args
+        assert named in capsys.readouterr().err, args
+    assert _rows(db) == before
+    assert _register(db, "supersede", "3", "U_pct=1.2", "--reason", "read again") == EXIT_OK

@@ -148,7 +148,7 @@ def test_serve_refuses_a_read_only_file_in_words(shared_folder: Path) -> None:
     path.chmod(0o444)
     shared_folder.chmod(0o777)  # the folder is writable (by nobody too): only the file is not
     argv = ["serve", "--profile", "query-plain", "--port", "/dev/null", "--db", str(path)]
-    argv += ["--socket", str(shared_folder / "daemon.sock")]
+    argv += ["--socket", str(shared_folder / "run" / "daemon.sock")]  # its own 0700 folder
     _warm_up_serve()
     status, _out, err = _run_unprivileged(argv)
     assert status == EXIT_INVALID_INPUT
@@ -161,8 +161,10 @@ def test_serve_refuses_a_new_database_in_an_unwritable_folder_in_words(
     folder = shared_folder / "locked"
     folder.mkdir(mode=0o555)
     folder.chmod(0o555)
+    shared_folder.chmod(0o777)  # where the daemon may make its socket's own 0700 folder
     argv = ["serve", "--profile", "query-plain", "--port", "/dev/null"]
-    argv += ["--db", str(folder / "new.sqlite"), "--socket", str(shared_folder / "daemon.sock")]
+    argv += ["--db", str(folder / "new.sqlite")]
+    argv += ["--socket", str(shared_folder / "run" / "daemon.sock")]  # its own 0700 folder
     _warm_up_serve()
     status, _out, err = _run_unprivileged(argv)
     assert status == EXIT_INVALID_INPUT
