@@ -48,6 +48,8 @@ from chargebook.acquire.record.store import (
     StoreError,
     TrafficRow,
     _reading_row,
+    group_by_session,
+    group_by_set,
 )
 from chargebook.corrections.errors import InputError
 
@@ -628,10 +630,7 @@ class DepartmentStore:
 
     def readings_by_set(self, session_id: int) -> dict[int, tuple[ReadingRow, ...]]:
         """Return the session's readings by set id, oldest first within a set."""
-        grouped: dict[int, list[ReadingRow]] = {}
-        for reading in self.readings(session_id):
-            grouped.setdefault(reading.set_id, []).append(reading)
-        return {set_id: tuple(rows) for set_id, rows in grouped.items()}
+        return group_by_set(self.readings(session_id))
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
         """Return the session's environment entries, oldest first."""
@@ -664,10 +663,7 @@ class DepartmentStore:
     def events_of_kind(self, kind: str) -> dict[int | None, list[EventRow]]:
         """Return the events of one kind by session id (None: outside any session), oldest
         first, in one query."""
-        found: dict[int | None, list[EventRow]] = {}
-        for event in self._select(EventRow, "events", "kind = %s", (str(kind),)):
-            found.setdefault(event.session_id, []).append(event)
-        return found
+        return group_by_session(self._select(EventRow, "events", "kind = %s", (str(kind),)))
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded."""

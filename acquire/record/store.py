@@ -33,7 +33,7 @@ import tempfile
 import threading
 import time
 import uuid
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields, replace
 from datetime import UTC, datetime
@@ -86,6 +86,22 @@ __all__ = [
 DAEMON_ACTOR = "daemon"
 #: How long a reader or the writer waits for the other's lock before giving up, in ms.
 BUSY_TIMEOUT_MS = 5000
+
+
+def group_by_set(readings: Iterable[ReadingRow]) -> dict[int, tuple[ReadingRow, ...]]:
+    """Return ``readings`` grouped by set id, in the order given within each set."""
+    grouped: dict[int, list[ReadingRow]] = {}
+    for reading in readings:
+        grouped.setdefault(reading.set_id, []).append(reading)
+    return {set_id: tuple(rows) for set_id, rows in grouped.items()}
+
+
+def group_by_session(events: Iterable[EventRow]) -> dict[int | None, list[EventRow]]:
+    """Return ``events`` grouped by session id (None: outside any session), in order."""
+    found: dict[int | None, list[EventRow]] = {}
+    for event in events:
+        found.setdefault(event.session_id, []).append(event)
+    return found
 
 
 #: The range of SQLite's INTEGER: a whole number outside it cannot be bound to a query.
@@ -1124,10 +1140,7 @@ class Store:
         with self._lock:
             if self._known is not None:
                 return dict(self._known_rows(session_id).by_set)
-        grouped: dict[int, list[ReadingRow]] = {}
-        for reading in self.readings(session_id):
-            grouped.setdefault(reading.set_id, []).append(reading)
-        return {set_id: tuple(rows) for set_id, rows in grouped.items()}
+        return group_by_set(self.readings(session_id))
 
     # ------------------------------------------------------------------------ environment
 
@@ -1188,10 +1201,7 @@ class Store:
     def events_of_kind(self, kind: str) -> dict[int | None, list[EventRow]]:
         """Return the events of one kind by session id (None: outside any session), oldest
         first, in one query."""
-        found: dict[int | None, list[EventRow]] = {}
-        for event in self._select(EventRow, "events", "kind = ?", (kind,)):
-            found.setdefault(event.session_id, []).append(event)
-        return found
+        return group_by_session(self._select(EventRow, "events", "kind = ?", (kind,)))
 
     def read(self, sql: str, params: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
         """Return the rows of one query, run under the store's lock (for ``verify``)."""
