@@ -15,7 +15,8 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from typing import Any
 
 from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK, EXIT_STATUS_HELP
 from chargebook.acquire.protocol import CAUTION
@@ -64,8 +65,47 @@ class _VersionAction(argparse.Action):
         parser.exit(EXIT_OK)
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """Return the argument parser with every subcommand that is installed."""
+class _CommandParser(argparse.ArgumentParser):
+    """A subcommand's parser that adds the subcommand's arguments only when it is first used.
+
+    `chargebook --help` and `chargebook COMMAND ...` then pay for one command's arguments at
+    most, not for every command's (issue 17: `--help` within 2 x a bare interpreter's start).
+    """
+
+    def __init__(
+        self,
+        *args: Any,
+        add_arguments: Callable[[argparse.ArgumentParser], None] | None = None,
+        **kwargs: Any,
+    ) -> None:
+        super().__init__(*args, **kwargs)
+        self._add_arguments = add_arguments
+
+    def populate(self) -> None:
+        """Add the subcommand's arguments, once."""
+        add_arguments, self._add_arguments = self._add_arguments, None
+        if add_arguments is not None:
+            add_arguments(self)
+
+    def parse_known_args(self, args: Any = None, namespace: Any = None) -> Any:
+        self.populate()
+        return super().parse_known_args(args, namespace)
+
+    def format_usage(self) -> str:
+        self.populate()
+        return super().format_usage()
+
+    def format_help(self) -> str:
+        self.populate()
+        return super().format_help()
+
+
+def build_parser(*, every_command: bool = False) -> argparse.ArgumentParser:
+    """Return the argument parser with every subcommand that is installed.
+
+    A subcommand's own arguments are added when it is chosen or its help is asked for, unless
+    ``every_command`` (a completion script walks every command's options).
+    """
     parser = argparse.ArgumentParser(
         prog="chargebook",
         description="Electrometer data acquisition and charge-to-dose corrections for "
@@ -73,7 +113,9 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=f"{EXIT_STATUS_HELP}. {CAUTION}",
     )
     parser.add_argument("--version", action=_VersionAction)
-    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    subparsers = parser.add_subparsers(
+        dest="command", metavar="COMMAND", parser_class=_CommandParser
+    )
     for name, module_name in COMMANDS.items():
         try:
             module = _load(module_name)
@@ -82,10 +124,15 @@ def build_parser() -> argparse.ArgumentParser:
                 raise
             continue
         sub = subparsers.add_parser(
-            name, help=module.HELP, description=module.HELP, epilog=EXIT_STATUS_HELP
+            name,
+            help=module.HELP,
+            description=module.HELP,
+            epilog=EXIT_STATUS_HELP,
+            add_arguments=module.add_arguments,
         )
-        module.add_arguments(sub)
         sub.set_defaults(_run=module.run)
+        if every_command:
+            sub.populate()
     return parser
 
 

@@ -28,5 +28,5 @@ def run(args: argparse.Namespace) -> int:
     from chargebook.acquire.commands.cli import build_parser
     from chargebook.acquire.exit_codes import EXIT_OK
 
-    print(shtab.complete(build_parser(), shell=args.shell), end="")
+    print(shtab.complete(build_parser(every_command=True), shell=args.shell), end="")
     return EXIT_OK
