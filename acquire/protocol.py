@@ -46,11 +46,9 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any, Literal, NamedTuple, NotRequired, TypedDict, TypeVar
 
-#: Shown with every result: by the console, the command line, reports and exports.
-CAUTION = (
-    "chargebook supports, and never replaces, the judgement of a qualified medical physicist "
-    "working under local regulations and the local code of practice."
-)
+#: Shown with every result: by the console, the command line, reports and exports (defined in
+#: the package root, where `chargebook --help` reads it without importing this module).
+from chargebook import CAUTION as CAUTION
 
 T = TypeVar("T")
 

@@ -14,12 +14,16 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Callable, Sequence
-from typing import Any
 
+from chargebook import CAUTION
 from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK, EXIT_STATUS_HELP
-from chargebook.acquire.protocol import CAUTION
+
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
+if TYPE_CHECKING:
+    from typing import Any
 
 #: Subcommand name -> module under chargebook.acquire.commands, in the order shown by --help.
 COMMANDS: dict[str, str] = {
@@ -65,6 +69,39 @@ class _VersionAction(argparse.Action):
         parser.exit(EXIT_OK)
 
 
+def _terminal_columns() -> int:
+    """Return the terminal's width in columns, as ``shutil.get_terminal_size`` reckons it.
+
+    ``COLUMNS`` if it is a positive number, else the width of standard output's terminal, else
+    80. (argparse asks shutil, whose import costs `--help` some 3 ms of its start-up.)
+    """
+    try:
+        columns = int(os.environ["COLUMNS"])
+    except (KeyError, ValueError):
+        columns = 0
+    if columns <= 0:
+        try:
+            columns = os.get_terminal_size(sys.__stdout__.fileno()).columns  # type: ignore[union-attr]
+        except (AttributeError, ValueError, OSError):
+            columns = 0
+    return columns if columns > 0 else 80
+
+
+class _HelpFormatter(argparse.HelpFormatter):
+    """argparse's help formatter, told the terminal's width by :func:`_terminal_columns`."""
+
+    def __init__(
+        self,
+        prog: str,
+        indent_increment: int = 2,
+        max_help_position: int = 24,
+        width: int | None = None,
+    ) -> None:
+        if width is None:
+            width = _terminal_columns() - 2  # argparse's own margin
+        super().__init__(prog, indent_increment, max_help_position, width)
+
+
 class _CommandParser(argparse.ArgumentParser):
     """A subcommand's parser that adds the subcommand's arguments only when it is first used.
 
@@ -78,6 +115,7 @@ class _CommandParser(argparse.ArgumentParser):
         add_arguments: Callable[[argparse.ArgumentParser], None] | None = None,
         **kwargs: Any,
     ) -> None:
+        kwargs.setdefault("formatter_class", _HelpFormatter)
         super().__init__(*args, **kwargs)
         self._add_arguments = add_arguments
 
@@ -111,6 +149,7 @@ def build_parser(*, every_command: bool = False) -> argparse.ArgumentParser:
         description="Electrometer data acquisition and charge-to-dose corrections for "
         "reference dosimetry of radiotherapy beams.",
         epilog=f"{EXIT_STATUS_HELP}. {CAUTION}",
+        formatter_class=_HelpFormatter,
     )
     parser.add_argument("--version", action=_VersionAction)
     subparsers = parser.add_subparsers(

@@ -12,11 +12,12 @@ invalid input with the message on stderr.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
-from typing import TYPE_CHECKING, Any
 
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
 if TYPE_CHECKING:
+    from typing import Any
+
     from chargebook.acquire.session.worksheet import Worksheet
     from chargebook.corrections.evaluate import Evaluation
 
@@ -258,6 +259,8 @@ def render_table(worksheet: Worksheet, evaluation: Evaluation) -> str:
 
 def render_json(worksheet: Worksheet, evaluation: Evaluation) -> str:
     """Return the evaluation as one JSON object, with the worksheet's session description."""
+    import json
+
     from chargebook.acquire.protocol import CAUTION
 
     document: dict[str, Any] = {

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import (
     add_output_argument,
@@ -13,6 +12,7 @@ from chargebook.acquire.commands.station_reader import (
     run_reader,
 )
 
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
 if TYPE_CHECKING:
     from chargebook.acquire.record.reader import RecordReader
 

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from chargebook.acquire.commands.station_reader import add_record_argument, run_reader
 
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
 if TYPE_CHECKING:
     from collections.abc import Sequence
 

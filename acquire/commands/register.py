@@ -11,7 +11,6 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import Any
 
 from chargebook.acquire.commands.station_reader import add_db_argument
 from chargebook.acquire.commands.station_writer import (
@@ -19,7 +18,10 @@ from chargebook.acquire.commands.station_writer import (
     ask_daemon,
     write_station,
 )
-from chargebook.acquire.protocol import REGISTER_KINDS as KINDS
+
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
+if TYPE_CHECKING:
+    from typing import Any
 
 HELP = (
     "the station's registers: machines and beams, chambers and their certificates, "
@@ -50,6 +52,8 @@ def _write_options(parser: argparse.ArgumentParser) -> None:
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
+    from chargebook.acquire.protocol import REGISTER_KINDS as KINDS
+
     actions = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
     listing = actions.add_parser("list", help="list the current rows (of one kind)")
     listing.add_argument("--kind", choices=KINDS, help="only rows of this kind")

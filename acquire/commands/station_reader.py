@@ -12,10 +12,10 @@ import os
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
 if TYPE_CHECKING:
     from chargebook.acquire.record.department import DepartmentDatabase
     from chargebook.acquire.record.reader import RecordReader

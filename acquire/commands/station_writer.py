@@ -11,7 +11,10 @@ import argparse
 import sys
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
+if TYPE_CHECKING:
+    from typing import Any
 
 
 def add_socket_argument(parser: argparse.ArgumentParser) -> None:
