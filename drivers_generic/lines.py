@@ -65,20 +65,20 @@ def parse_reading(fmt: ReadingFormat, raw: bytes, t_s: float, encoding: str = "a
     match = fmt.pattern.fullmatch(text)
     if match is None:
         raise ProtocolError(f"line does not match the reading pattern: {text[:80]!r}", raw)
-    groups = match.groupdict()
-    value = parse_number(groups["value"], fmt.number_format, raw)
-    unit = groups.get("unit") or fmt.unit
+    groups = fmt.pattern.groupindex  # read group by group: no dict of every group per line
+    value = parse_number(match["value"], fmt.number_format, raw)
+    unit = ("unit" in groups and match["unit"]) or fmt.unit
     if unit not in CHARGE_UNITS_IN_nC:
         raise ProtocolError(f"unknown charge unit {unit!r}", raw)
     charge_nC = value * CHARGE_UNITS_IN_nC[unit]
     if not math.isfinite(charge_nC):
         raise ProtocolError(f"charge {value!r} {unit} is not finite in nC", raw)
-    status = _status(fmt, groups.get("status"), raw)
+    status = _status(fmt, match["status"] if "status" in groups else None, raw)
     if fmt.overrange_abs is not None and abs(value) >= fmt.overrange_abs:
         status = ReadingStatus.OVERRANGE
     complete = False
     if fmt.complete_group is not None:
-        complete = groups[fmt.complete_group] == fmt.complete_value
+        complete = match[fmt.complete_group] == fmt.complete_value
     return Sample(t_s=t_s, charge_nC=charge_nC, status=status, complete=complete, raw=text)
 
 
