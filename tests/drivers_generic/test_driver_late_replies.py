@@ -22,6 +22,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.drivers_generic import build_electrometer
+from chargebook.drivers_generic.driver import SLOW_WINDOW
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "e2e"))
 from e2e_support import QUICK_PLAN, DaemonProcess
@@ -105,6 +106,17 @@ def test_an_instrument_answering_in_good_time_has_no_note(instrument):
     driver = instrument(lambda n: 0.0)
     driver.zero()
     assert driver.read_charge().charge_nC == 1.0
+    assert driver.reply_note is None
+
+
+def test_a_slow_answer_is_reported_until_it_leaves_the_latest_answers(instrument):
+    driver = instrument(lambda n: 0.6 if n == 1 else 0.0)  # only the first answer is slow
+    assert driver.read_charge().charge_nC == 1.0
+    assert "answers are slow: 1 of the last 1 took over 0.5 s" in driver.reply_note
+    for expected in range(2, SLOW_WINDOW + 1):  # the window fills with answers in good time
+        assert driver.read_charge().charge_nC == expected
+    assert f"answers are slow: 1 of the last {SLOW_WINDOW} took over" in driver.reply_note
+    assert driver.read_charge().charge_nC == SLOW_WINDOW + 1  # the slow one leaves the window
     assert driver.reply_note is None
 
 
