@@ -17,6 +17,13 @@ reading lines as fast as the reader takes them (``SimulatorControl.flood(0, coun
 
 Targets: at least 80 % of the baseline (issue 17, target 3), and at least 10 times the line
 rate of a 115200-baud port (issue 7: about 720 readings/s, so 7200 readings/s).
+
+Each round also notes the CPU time spent per line: the simulated electrometer's while the raw
+reader reads (the raw reader itself spends well under a microsecond a line: the simulator
+writing the lines is what sets the baseline's rate) and the daemon's (its process, both
+threads, while it reads, commits and feeds the engine). On a machine shared with other work
+the rates swing with the load; CPU per line swings much less, and says where the ratio would
+settle on a quiet machine with a core for each.
 """
 
 from __future__ import annotations
@@ -27,6 +34,7 @@ import sqlite3
 import sys
 import time
 
+import psutil
 from chargebook.acquire.client import DaemonClient
 from chargebook.acquire.protocol import Method
 
@@ -53,36 +61,57 @@ SETTLE_S = 0.3
 
 def raw_readline_per_s(world: Station, count: int, *, buffered: bool = True) -> float:
     """Return the lines per second pyserial's readline takes from a flood of ``count`` lines."""
+    return raw_readline(world, count, buffered=buffered)[0]
+
+
+def raw_readline(world: Station, count: int, *, buffered: bool = True) -> tuple[float, float]:
+    """Return (lines per second, the simulator's CPU seconds per line) of pyserial's readline
+    on a flood of ``count`` lines."""
     import serial
 
+    assert world.simulator is not None
+    simulator = psutil.Process(world.simulator.process.pid)
     port = serial.serial_for_url(world.serial, baudrate=115200, timeout=0.05)
     reader = io.BufferedReader(port, 65536) if buffered else port
     try:
         with world.bench() as bench:
-            started = time.perf_counter()
+            started, cpu_started = time.perf_counter(), _cpu_s(simulator)
             bench.flood(0, count)
             received = 0
             while received < count and reader.readline():
                 received += 1
-            elapsed = time.perf_counter() - started
+            elapsed, cpu_s = time.perf_counter() - started, _cpu_s(simulator) - cpu_started
     finally:
         port.close()
     if received != count:
         raise RuntimeError(f"raw readline received {received} of {count} lines")
-    return count / elapsed
+    return count / elapsed, cpu_s / count
+
+
+def _cpu_s(process: psutil.Process) -> float:
+    times = process.cpu_times()
+    return times.user + times.system
 
 
 async def daemon_per_s(world: Station, client: DaemonClient, count: int) -> float:
     """Return the lines per second the collecting daemon commits and hands to its engine."""
+    return (await daemon_rate(world, client, count))[0]
+
+
+async def daemon_rate(world: Station, client: DaemonClient, count: int) -> tuple[float, float]:
+    """Return (lines per second, CPU seconds per line) of the collecting daemon as it commits
+    the lines and hands their samples to its engine."""
+    assert world.daemon is not None
+    daemon = psutil.Process(world.daemon.process.pid)
     await asyncio.sleep(SETTLE_S)  # let the arming commands' lines land first
     first_id = last_traffic_id(world.db)
     watch = sqlite3.connect(f"{world.db.resolve().as_uri()}?mode=ro", uri=True)
     try:
         with world.bench() as bench:
-            started = time.perf_counter()
+            started, cpu_started = time.perf_counter(), _cpu_s(daemon)
             bench.flood(0, count)
             await _wait_for_lines(watch, first_id, count, started)
-            elapsed = time.perf_counter() - started
+            elapsed, cpu_s = time.perf_counter() - started, _cpu_s(daemon) - cpu_started
         status = await client.status()
         received = watch.execute(
             "SELECT count(*) FROM traffic WHERE id > ? AND direction = 'rx'", (first_id,)
@@ -91,7 +120,7 @@ async def daemon_per_s(world: Station, client: DaemonClient, count: int) -> floa
         watch.close()
     if status["state"] != "collecting" or received < count:
         raise RuntimeError(f"the daemon recorded {received} of {count} lines ({status['state']})")
-    return count / elapsed
+    return count / elapsed, cpu_s / count
 
 
 async def _wait_for_lines(watch: sqlite3.Connection, first_id: int, count: int, started: float):
@@ -104,27 +133,34 @@ async def _wait_for_lines(watch: sqlite3.Connection, first_id: int, count: int, 
         await asyncio.sleep(POLL_S)
 
 
-async def interleaved(world: Station, count: int, rounds: int) -> tuple[list[float], list[float]]:
-    """Return (raw rates, daemon rates) of ``rounds`` alternating runs on the same pty.
+async def interleaved(
+    world: Station, count: int, rounds: int
+) -> tuple[list[float], list[float], list[float], list[float]]:
+    """Return (raw rates, daemon rates, raw CPU s per line, daemon CPU s per line) of
+    ``rounds`` alternating runs on the same pty.
 
     Between its runs the daemon's session is paused: it then does not read the port, and the
     raw reader has the lines to itself.
     """
     client = await collecting_daemon(world)
-    raw, daemon = [], []
+    raw, daemon, raw_cpu, daemon_cpu = [], [], [], []
     try:
         for number in range(rounds):
             if number:
                 snapshot = await client.call(Method.SESSION_RESUME)
                 if snapshot["state"] != "collecting":
                     raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
-            daemon.append(await daemon_per_s(world, client, count))
+            rate, cpu = await daemon_rate(world, client, count)
+            daemon.append(rate)
+            daemon_cpu.append(cpu)
             snapshot = await client.call(Method.SESSION_PAUSE)
             await asyncio.sleep(SETTLE_S)
-            raw.append(raw_readline_per_s(world, count))
+            rate, cpu = raw_readline(world, count)
+            raw.append(rate)
+            raw_cpu.append(cpu)
     finally:
         await client.close()
-    return raw, daemon
+    return raw, daemon, raw_cpu, daemon_cpu
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -138,11 +174,19 @@ def main(argv: list[str] | None = None) -> int:
     )
     with station("pipeline", "push-exponent", *QUIET_STREAM) as world:
         naive = raw_readline_per_s(world, max(count // 20, 500), buffered=False)
-        raw, daemon = asyncio.run(interleaved(world, count, rounds))
+        raw, daemon, raw_cpu, daemon_cpu = asyncio.run(interleaved(world, count, rounds))
     ratios = [d / r for d, r in zip(daemon, raw, strict=True)]
     out.note(
         "rounds, raw / daemon readings/s: "
         + ", ".join(f"{r:.0f} / {d:.0f}" for r, d in zip(raw, daemon, strict=True))
+    )
+    out.note(
+        "rounds, CPU µs per line, the simulator writing (raw rounds) / the daemon: "
+        + ", ".join(
+            f"{r * 1e6:.1f} / {d * 1e6:.1f}" for r, d in zip(raw_cpu, daemon_cpu, strict=True)
+        )
+        + f" (simulator / daemon, median: "
+        f"{report.median([r / d for r, d in zip(raw_cpu, daemon_cpu, strict=True)]):.2f})"
     )
     out.note(f"pyserial's unbuffered Serial.readline (one read per byte): {naive:.0f}/s (not used)")
     baseline, measured, ratio = report.median(raw), report.median(daemon), report.median(ratios)
