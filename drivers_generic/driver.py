@@ -69,6 +69,7 @@ class ProfileElectrometer:
         #: The latest answers: seconds each took, or None for a late answer set aside.
         self._recent: deque[float | None] = deque(maxlen=SLOW_WINDOW)
         self._unusual = 0  # late or slow answers in _recent
+        self._slow_s = SLOW_SHARE * profile.timing.timeout_s  # an answer slower is slow
         self.late_replies = 0  # answers that came after their command was given up on, in all
         #: Plain words when answers are late or slow (None while they come in good time).
         self.reply_note: str | None = None
@@ -184,7 +185,7 @@ class ProfileElectrometer:
                 answer = self._await_answer(interpret, timing.timeout_s)
             except _NoReply:
                 continue
-            self._note_answer_time(time.monotonic() - sent_s)
+            self._remember_answer(time.monotonic() - sent_s)
             return answer
         if ask_error_queue and self.profile.confirmation.style == "error_queue":
             self._check_error_queue(line)
@@ -247,24 +248,19 @@ class ProfileElectrometer:
         self.late_replies += 1
         self._remember_answer(None)
 
-    def _note_answer_time(self, answer_s: float) -> None:
-        self._remember_answer(answer_s)
-
     def _remember_answer(self, answer_s: float | None) -> None:
         """Add an answer's time (None: a late answer set aside) to the latest answers, and
         say again what they show unless all of them came in good time, as before."""
-        recent = self._recent
-        if len(recent) == recent.maxlen and self._is_unusual(recent[0]):
-            self._unusual -= 1  # the oldest leaves the window
+        recent, slow_s = self._recent, self._slow_s
+        if len(recent) == recent.maxlen:
+            oldest = recent[0]  # leaves the window
+            if oldest is None or oldest > slow_s:
+                self._unusual -= 1
         recent.append(answer_s)
-        if self._is_unusual(answer_s):
+        if answer_s is None or answer_s > slow_s:
             self._unusual += 1
         if self._unusual or self.reply_note is not None:
             self._update_reply_note()  # words only while some answer is late or slow
-
-    def _is_unusual(self, answer_s: float | None) -> bool:
-        """Return True for a late answer (None) or a slow one."""
-        return answer_s is None or answer_s > SLOW_SHARE * self.profile.timing.timeout_s
 
     def _update_reply_note(self) -> None:
         """Say, from the latest answers, whether answers come late or slow (None: in time)."""

@@ -133,11 +133,17 @@ class VisaTransport(Transport):
                 instrument.close()
 
     def _write(self, data: bytes) -> None:
-        import pyvisa
-
         try:
             self._instrument.write_raw(data)
-        except (pyvisa.Error, OSError) as error:
+        except Exception as error:  # sorted out below; pyvisa is imported only on this path
+            self._after_write_error(error)
+            raise
+
+    def _after_write_error(self, error: Exception) -> None:
+        """Raise InstrumentDisconnected when a write failed because the wire is gone."""
+        import pyvisa
+
+        if isinstance(error, pyvisa.Error | OSError):
             raise InstrumentDisconnected(
                 f"VISA resource {self.resource} went away: {error}"
             ) from None

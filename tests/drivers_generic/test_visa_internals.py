@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import socket
+import time
 
 import pytest
 import serial
@@ -89,5 +90,20 @@ def test_the_visa_library_is_the_option_else_pyvisa_library_else_at_py(simulator
     driver = open_electrometer("scpi-generic", resource=sim.scpi, visa_library="@py")
     try:
         assert driver.identify().model == "SIM-SCPI"  # the option wins over the variable
+    finally:
+        driver.close()
+
+
+def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):
+    sim = simulator("--scpi", "0", *FAST)
+    driver = open_electrometer("scpi-generic", resource=sim.scpi)
+    try:
+        driver.identify()
+        sim.control.drop(2.0)  # the simulator closes the socket (it listens again after 2 s)
+        with pytest.raises(InstrumentDisconnected, match="went away"):
+            for _ in range(200):  # the first sends may still land in the socket's buffer
+                driver.transport.write_line("*IDN?")
+                time.sleep(0.005)
+        assert not driver.transport.is_open
     finally:
         driver.close()
