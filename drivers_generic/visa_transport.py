@@ -41,6 +41,10 @@ _FLOW_CONTROL_NAMES = {
 #: ``interface`` (the socket.socket of a TCPIP SOCKET resource; a serial.Serial for ASRL).
 PYVISA_PY_INTERNALS = ("visalib.sessions", "sessions[session].interface")
 DEFAULT_VISA_LIBRARY = "@py"
+#: The least time a command is given to leave, ms. VISA has one timeout for reads and writes,
+#: and a read that only looks for waiting lines sets it to 1 ms: a write under that timeout
+#: fails on a busy machine, and a failed write counts as the instrument gone.
+WRITE_TIMEOUT_MS = 1000
 
 
 def visa_library_spec(explicit: str | None = None, environ: dict[str, str] | None = None) -> str:
@@ -136,6 +140,9 @@ class VisaTransport(Transport):
         import pyvisa
 
         try:
+            if self._timeout_ms is None or self._timeout_ms < WRITE_TIMEOUT_MS:
+                self._instrument.timeout = WRITE_TIMEOUT_MS
+                self._timeout_ms = WRITE_TIMEOUT_MS
             self._instrument.write_raw(data)
         except (pyvisa.Error, OSError) as error:
             raise InstrumentDisconnected(
