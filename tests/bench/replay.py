@@ -20,6 +20,10 @@ the input log a replay feeds back.
   replay stored in the station file), timed from its start to its exit; it must say
   ``reproduced``, or the run fails.
 
+Both run with Python's default of caching compiled bytecode (an installed copy has its
+bytecode; an editable one under ``PYTHONDONTWRITEBYTECODE`` would compile every module at every
+start), after one untimed run of each.
+
 Rounds alternate the two, each over the whole visit. Target (issue 17, target 5): the visit's
 replay within 3 times the time to push the same lines through the pty alone.
 """
@@ -145,7 +149,16 @@ async def _run_time(daemon: InProcessDaemon) -> None:
 
 
 # ----------------------------------------------------------------------------- the baseline
-def pty_alone_s(recorded: Recorded) -> float:
+def children_env(workdir: Path) -> dict[str, str]:
+    """Return the environment of the timed processes: Python's own default of caching the
+    bytecode it compiles (kept in ``workdir``), as an installed copy has it, even where the
+    shell says not to write bytecode (``PYTHONDONTWRITEBYTECODE``)."""
+    env = {**os.environ, "PYTHONPYCACHEPREFIX": str(workdir / "pycache")}
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    return env
+
+
+def pty_alone_s(recorded: Recorded, env: dict[str, str]) -> float:
     """Return the wall time of a new process reading the session's lines from a pty, s.
 
     The reader says when its port is open (pyserial empties the port's input on opening);
@@ -158,6 +171,7 @@ def pty_alone_s(recorded: Recorded) -> float:
         reader = subprocess.Popen(
             [sys.executable, "-c", READER, os.ttyname(slave), str(len(recorded.lines))],
             stdout=subprocess.PIPE,
+            env=env,
         )
         assert reader.stdout is not None
         if reader.stdout.readline() != b"open\n":
@@ -181,14 +195,16 @@ def _write_all(fd: int, data: bytes) -> None:
 
 
 # ----------------------------------------------------------------------------- the replay
-def replay_s(db: Path, recorded: Recorded) -> float:
+def replay_s(db: Path, recorded: Recorded, env: dict[str, str]) -> float:
     """Return the wall time of `chargebook replay SESSION --speed 0`, a new process, s; raise
     RuntimeError unless it says the session was reproduced."""
     command = chargebook_args(
         "replay", str(recorded.session_id), "--db", str(db), "--speed", "0", "--json"
     )
     started = time.perf_counter()
-    done = subprocess.run(command, capture_output=True, text=True, timeout=GIVE_UP_S, check=False)
+    done = subprocess.run(
+        command, capture_output=True, text=True, timeout=GIVE_UP_S, check=False, env=env
+    )
     elapsed = time.perf_counter() - started
     said = json.loads(done.stdout) if done.returncode == 0 and done.stdout else {}
     if not said.get("reproduced") or said.get("traffic_lines") != len(recorded.lines):
@@ -218,10 +234,25 @@ def main(argv: list[str] | None = None) -> int:
             f"recorded in {recording_s:.1f} s: sessions "
             + ", ".join(f"{r.session_id} ({len(r.lines)} lines)" for r in visit)
         )
-        alone, replayed = [], []
+        env = children_env(workdir)
+        smallest = min(visit, key=lambda r: len(r.lines))
+        replay_s(db, smallest, env), pty_alone_s(smallest, env)  # untimed: bytecode compiled
+        by_session: dict[int, tuple[list[float], list[float]]] = {
+            r.session_id: ([], []) for r in visit
+        }
         for _ in range(rounds):
-            alone.append(sum(pty_alone_s(r) for r in visit))
-            replayed.append(sum(replay_s(db, r) for r in visit))
+            for r in visit:
+                by_session[r.session_id][0].append(pty_alone_s(r, env))
+            for r in visit:
+                by_session[r.session_id][1].append(replay_s(db, r, env))
+        alone = [sum(times[0][n] for times in by_session.values()) for n in range(rounds)]
+        replayed = [sum(times[1][n] for times in by_session.values()) for n in range(rounds)]
+    for r in visit:
+        base, measured_s = by_session[r.session_id]
+        out.note(
+            f"session {r.session_id}, {len(r.lines)} lines: pty alone "
+            f"{report.median(base):.2f} s, replay {report.median(measured_s):.2f} s (medians)"
+        )
     ratios = [m / b for m, b in zip(replayed, alone, strict=True)]
     out.note(
         "rounds, pty alone / replay (s, whole visit): "
