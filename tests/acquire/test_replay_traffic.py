@@ -139,13 +139,19 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_session_and_line(
     assert "session 1" in str(refused.value) and message in str(refused.value)
 
 
-def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
+def attached_follower() -> tuple[Store, int, TrafficFollower]:
+    """Return a store in memory, a session in it, and a follower of LINES writing to it."""
     store = Store.memory()
     session_id = store.create_session(
         example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
     )
     follower = TrafficFollower(LINES, QUERY_PLAIN)
     follower.attach(store, session_id)
+    return store, session_id, follower
+
+
+def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
+    store, session_id, follower = attached_follower()
     for line in LINES:
         t_s = follower.clock()
         follower(TrafficDirection(line.direction), t_s, line.raw)
@@ -159,12 +165,7 @@ def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
 def test_the_follower_writes_its_lines_a_batch_at_a_time_and_names_the_last_received():
     # One statement per batch, not per line: nothing is written until the lines are flushed
     # (before anything else is written) or the id of the line a sample came from is asked.
-    store = Store.memory()
-    session_id = store.create_session(
-        example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
-    )
-    follower = TrafficFollower(LINES, QUERY_PLAIN)
-    follower.attach(store, session_id)
+    store, session_id, follower = attached_follower()
     for line in LINES[:3]:  # BIAS, OK, Q?: the latest received line is the OK
         follower(TrafficDirection(line.direction), follower.clock(), line.raw)
     assert store.traffic(session_id) == []

@@ -103,6 +103,34 @@ def record_visit(db: Path, beams: int, visit_s: float) -> list[Recorded]:
     ]
 
 
+#: Names of the beams past the demo's own three, by the demo beam they repeat (invented).
+MORE_BEAMS = {
+    "6 MV": ("15 MV", "18 MV"),
+    "10 MV": ("6 MV FFF", "10 MV FFF"),
+    "10 MeV": ("12 MeV", "15 MeV"),
+}
+
+
+def visit_beams(demo: list[tuple[dict[str, Any], str]], beams: int) -> list[tuple[dict, str]]:
+    """Return ``beams`` beams: the demo visit's three, then the same measurements of further
+    beams of the machine under their own names (a visit measures each beam once). One beam
+    alone is the short output check (the smoke run)."""
+    if beams == 1:
+        return [demo[1]]
+    found = []
+    for number in range(beams):
+        metadata, plan = demo[number % len(demo)]
+        repeat = number // len(demo)
+        if repeat:
+            name = MORE_BEAMS[metadata["beam"]][repeat - 1]
+            metadata = {**metadata, "beam": name}
+            if name.endswith("MeV"):  # E0 = 2.33 MeV/cm x R50 (common practice)
+                mev = float(name.split()[0])
+                metadata |= {"beam_quality": f"{name} electrons", "R50_cm": round(mev / 2.33, 1)}
+        found.append((metadata, plan))
+    return found
+
+
 async def _record(db: Path, beams: int, visit_s: float) -> None:
     daemon = InProcessDaemon(db.parent, profile=PROFILE, plan="default", time_scale=1.0)
     started_s = daemon.time()
@@ -111,9 +139,7 @@ async def _record(db: Path, beams: int, visit_s: float) -> None:
         client, operator = await daemon.operator()
         truth = daemon.sim.device.truth()
         demo = demo_visit_beams(truth, datetime.date.today().isoformat())
-        # The smoke run's one beam is the short output check (the demo's second beam).
-        first = 0 if beams > 1 else 1
-        visit = [demo[(first + number) % len(demo)] for number in range(beams)]
+        visit = visit_beams(demo, beams)
         # The physicist's set-up between beams: idle time, spread so the visit lasts visit_s.
         # Each gap is taken before a beam, from what is left of the visit's time.
         begun: list[int] = []
@@ -253,22 +279,22 @@ def main(argv: list[str] | None = None) -> int:
             f"session {r.session_id}, {len(r.lines)} lines: pty alone "
             f"{report.median(base):.2f} s, replay {report.median(measured_s):.2f} s (medians)"
         )
-    ratios = [m / b for m, b in zip(replayed, alone, strict=True)]
-    out.note(
-        "rounds, pty alone / replay (s, whole visit): "
-        + ", ".join(f"{b:.2f} / {m:.2f}" for b, m in zip(alone, replayed, strict=True))
-    )
-    out.note(f"ratios: {', '.join(f'{r:.2f}' for r in ratios)}; every replay reproduced")
-    baseline, measured, ratio = report.median(alone), report.median(replayed), report.median(ratios)
+    for number, (base_s, replay_total_s) in enumerate(zip(alone, replayed, strict=True), 1):
+        out.note(
+            f"round {number}, whole visit: pty alone {base_s:.2f} s, replay {replay_total_s:.2f} s,"
+            f" ratio {replay_total_s / base_s:.2f}; every replay reproduced"
+        )
+    ratio = report.median([m / b for m, b in zip(replayed, alone, strict=True)])
     out.baseline(
-        "the same lines through a pty, read by a new process with pyserial (median)", baseline, "s"
+        "the same lines through a pty, read by a new process with pyserial (median)",
+        report.median(alone),
+        "s",
     )
-    out.measured("chargebook replay --speed 0, reproduced (median)", measured, "s")
+    out.measured("chargebook replay --speed 0, reproduced (median)", report.median(replayed), "s")
     out.ratio(ratio, "median of the rounds' replay / pty alone")
+    met = ratio <= TARGET_RATIO
     out.target(
-        f"replay <= {TARGET_RATIO:g} x the pty alone",
-        ratio <= TARGET_RATIO,
-        f"{ratio / TARGET_RATIO:.1f} times it",
+        f"replay <= {TARGET_RATIO:g} x the pty alone", met, f"{ratio / TARGET_RATIO:.1f} times it"
     )
     return out.finish()
 
