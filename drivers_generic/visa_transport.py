@@ -41,6 +41,10 @@ _FLOW_CONTROL_NAMES = {
 #: ``interface`` (the socket.socket of a TCPIP SOCKET resource; a serial.Serial for ASRL).
 PYVISA_PY_INTERNALS = ("visalib.sessions", "sessions[session].interface")
 DEFAULT_VISA_LIBRARY = "@py"
+#: The least time a command is given to leave, ms. VISA has one timeout for reads and writes,
+#: and a read that only looks for waiting lines sets it to 1 ms: a write under that timeout
+#: fails on a busy machine, and a failed write counts as the instrument gone.
+WRITE_TIMEOUT_MS = 1000
 
 
 def visa_library_spec(explicit: str | None = None, environ: dict[str, str] | None = None) -> str:
@@ -134,6 +138,9 @@ class VisaTransport(Transport):
 
     def _write(self, data: bytes) -> None:
         try:
+            if self._timeout_ms is None or self._timeout_ms < WRITE_TIMEOUT_MS:
+                self._instrument.timeout = WRITE_TIMEOUT_MS
+                self._timeout_ms = WRITE_TIMEOUT_MS
             self._instrument.write_raw(data)
         except Exception as error:  # sorted out below; pyvisa is imported only on this path
             self._after_write_error(error)

@@ -133,6 +133,7 @@ class Conductor:
                 self._play_to(logged.position)
                 self._apply(logged)
             self._play_to(len(self.follower.lines))
+            self.follower.flush()
         except Divergence as divergence:
             if self.strict:
                 raise
@@ -231,6 +232,7 @@ class Conductor:
             self.engine = self.restart()
             self.pending.clear()
             self.driver.open()
+        self.follower.flush()  # the lines played so far come before what the input writes
         try:
             self.engine.apply(given)
         except (IllegalTransition, InputError, ConfirmationRequired) as error:

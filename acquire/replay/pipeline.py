@@ -146,6 +146,7 @@ def _play(
         stopped = _plan_words(conductor.engine) or str(stop)
     finally:
         driver.close()
+    follower.flush()  # what a what-if played before it stopped, and a last partial line
     notes = [
         f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
         f"{n.recorded!r}"

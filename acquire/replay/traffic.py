@@ -8,7 +8,9 @@
 * :class:`TrafficFollower` is the driver's clock and traffic listener while it replays: every
   line the driver sends or receives must be the next recorded line (the replay stops, naming
   the line, where it is not), gets the time the line was recorded with, and is written to the
-  replay's session as its own traffic.
+  replay's session as its own traffic. The lines are written a batch at a time
+  (:meth:`TrafficFollower.flush`, before anything else is written: the chain keeps the order in
+  which they came), not one statement per line.
 """
 
 from __future__ import annotations
@@ -211,13 +213,34 @@ class TrafficFollower:
         self.notes: list[TrafficNote] = []
         self.store: Store | None = None
         self.session_id: int | None = None
-        #: The row id of the latest received line written: the line a sample came from.
-        self.last_received_id: int | None = None
+        self._last_received_id: int | None = None
+        #: Lines seen, not yet written: (session, t_s, recorded_at, direction, bytes) each, and
+        #: the place among them of the latest received line (None: none of them).
+        self._unwritten: list[tuple[int | None, float, str, str, bytes]] = []
+        self._received_at: int | None = None
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
 
     def attach(self, store: Store, session_id: int) -> None:
         """Write the lines from now on to ``session_id`` in ``store``."""
         self.store, self.session_id = store, session_id
+
+    @property
+    def last_received_id(self) -> int | None:
+        """Return the row id of the latest received line (the line a sample came from),
+        writing the lines seen so far first (None: no line received since attached)."""
+        self.flush()
+        return self._last_received_id
+
+    def flush(self) -> None:
+        """Write the lines seen and not yet written, in one statement; call it before anything
+        else is written to the replay's session, so that the lines come first in its chain."""
+        if not self._unwritten or self.store is None:
+            return
+        self.store.add_traffic_many(self._unwritten)
+        if self._received_at is not None:
+            last_id = self.store.newest_traffic_id()
+            self._last_received_id = last_id - (len(self._unwritten) - 1 - self._received_at)
+        self._unwritten, self._received_at = [], None
 
     @property
     def finished(self) -> bool:
@@ -264,9 +287,10 @@ class TrafficFollower:
         self._check(direction.value, bytes(raw))
         self._last_t_s = t_s
         if self.store is not None:
-            line_id = self.store.add_traffic(self.session_id, t_s, direction.value, bytes(raw))
+            line = (self.session_id, t_s, self.store.stamp(), direction.value, bytes(raw))
+            self._unwritten.append(line)
             if direction is TrafficDirection.RECEIVED:
-                self.last_received_id = line_id
+                self._received_at = len(self._unwritten) - 1
         self.position += 1
 
     def _check(self, direction: str, raw: bytes) -> None:

@@ -139,20 +139,44 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_session_and_line(
     assert "session 1" in str(refused.value) and message in str(refused.value)
 
 
-def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
+def attached_follower() -> tuple[Store, int, TrafficFollower]:
+    """Return a store in memory, a session in it, and a follower of LINES writing to it."""
     store = Store.memory()
     session_id = store.create_session(
         example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
     )
     follower = TrafficFollower(LINES, QUERY_PLAIN)
     follower.attach(store, session_id)
+    return store, session_id, follower
+
+
+def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
+    store, session_id, follower = attached_follower()
     for line in LINES:
         t_s = follower.clock()
         follower(TrafficDirection(line.direction), t_s, line.raw)
+    follower.flush()
     assert follower.finished and follower.last_t_s == 10.503906
     assert [(r.t_s, r.direction, r.line) for r in store.traffic(session_id)] == [
         (line.t_s, line.direction, line.raw) for line in LINES
     ]
+
+
+def test_the_follower_writes_its_lines_a_batch_at_a_time_and_names_the_last_received():
+    # One statement per batch, not per line: nothing is written until the lines are flushed
+    # (before anything else is written) or the id of the line a sample came from is asked.
+    store, session_id, follower = attached_follower()
+    for line in LINES[:3]:  # BIAS, OK, Q?: the latest received line is the OK
+        follower(TrafficDirection(line.direction), follower.clock(), line.raw)
+    assert store.traffic(session_id) == []
+    received_id = follower.last_received_id
+    rows = store.traffic(session_id)
+    assert [r.line for r in rows] == [line.raw for line in LINES[:3]]
+    assert received_id == rows[1].id and rows[1].line == b"OK\r\n"
+    follower(TrafficDirection.RECEIVED, follower.clock(), LINES[3].raw)
+    assert follower.last_received_id == store.traffic(session_id)[3].id
+    follower.flush()  # nothing left: writes nothing more
+    assert len(store.traffic(session_id)) == len(LINES)
 
 
 def test_the_follower_stops_a_replay_at_the_first_line_that_differs():

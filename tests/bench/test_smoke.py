@@ -24,6 +24,7 @@ SCRIPTS = [
     pytest.param("memory", marks=pytest.mark.slow),  # some 5 s: sessions of every size
     pytest.param("session_length", marks=pytest.mark.slow),  # two daemons, some 20 s
     pytest.param("record_scale", marks=pytest.mark.slow),  # a station file made, some 10 s
+    pytest.param("replay", marks=pytest.mark.slow),  # a visit recorded and replayed, some 15 s
 ]
 
 

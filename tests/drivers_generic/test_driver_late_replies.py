@@ -18,11 +18,13 @@ import threading
 import time
 import tty
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
 from chargebook.drivers_generic import build_electrometer
 from chargebook.drivers_generic.driver import SLOW_WINDOW
+from chargebook.drivers_generic.profile import load_profile
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "e2e"))
 from e2e_support import QUICK_PLAN, DaemonProcess
@@ -59,14 +61,18 @@ class SlowInstrument(threading.Thread):
 
 @pytest.fixture
 def instrument() -> Iterator[Callable[[Callable[[int], float]], object]]:
-    """Start a SlowInstrument on a fresh pty; return a driver (query-plain) opened on it."""
+    """Start a SlowInstrument on a fresh pty; return a driver (query-plain, its answer time
+    ``timeout_s`` if given) opened on it."""
     opened = []
 
-    def start(delay_s: Callable[[int], float]):
+    def start(delay_s: Callable[[int], float], timeout_s: float | None = None):
         master, slave = os.openpty()
         tty.setraw(slave)
         SlowInstrument(master, delay_s).start()
-        driver = build_electrometer("query-plain", port=os.ttyname(slave))
+        profile = load_profile("query-plain")
+        if timeout_s is not None:
+            profile = replace(profile, timing=replace(profile.timing, timeout_s=timeout_s))
+        driver = build_electrometer(profile, port=os.ttyname(slave))
         driver.open()
         opened.append((driver, master, slave))
         return driver
@@ -94,11 +100,13 @@ def test_one_late_answer_does_not_put_the_following_commands_off_by_one(instrume
 
 
 def test_a_uniformly_slow_instrument_is_reported(instrument):
-    driver = instrument(lambda n: 0.6)  # every answer after 0.6 s of the 1.0 s allowed
+    # Every answer after 1.25 s of 2.0 s allowed: slow (over half the allowance), and late only
+    # if the machine is so loaded that this thread wakes 0.75 s late.
+    driver = instrument(lambda n: 1.25, timeout_s=2.0)
     for expected in (1.0, 2.0, 3.0):
         assert driver.read_charge().charge_nC == expected
     assert driver.reply_note is not None
-    assert "answers are slow: 3 of the last 3 took over 0.5 s" in driver.reply_note
+    assert "answers are slow: 3 of the last 3 took over 1 s" in driver.reply_note
     assert driver.late_replies == 0
 
 
@@ -110,9 +118,10 @@ def test_an_instrument_answering_in_good_time_has_no_note(instrument):
 
 
 def test_a_slow_answer_is_reported_until_it_leaves_the_latest_answers(instrument):
-    driver = instrument(lambda n: 0.6 if n == 1 else 0.0)  # only the first answer is slow
+    # Only the first answer is slow: 1.25 s of the 2.0 s allowed (0.75 s short of late).
+    driver = instrument(lambda n: 1.25 if n == 1 else 0.0, timeout_s=2.0)
     assert driver.read_charge().charge_nC == 1.0
-    assert "answers are slow: 1 of the last 1 took over 0.5 s" in driver.reply_note
+    assert "answers are slow: 1 of the last 1 took over 1 s" in driver.reply_note
     for expected in range(2, SLOW_WINDOW + 1):  # the window fills with answers in good time
         assert driver.read_charge().charge_nC == expected
     assert f"answers are slow: 1 of the last {SLOW_WINDOW} took over" in driver.reply_note

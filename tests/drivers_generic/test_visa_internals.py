@@ -17,6 +17,7 @@ from chargebook.drivers_generic import load_profile, open_electrometer
 from chargebook.drivers_generic.interface import InstrumentDisconnected
 from chargebook.drivers_generic.visa_transport import (
     PYVISA_PY_INTERNALS,
+    WRITE_TIMEOUT_MS,
     VisaTransport,
     pyvisa_py_interface,
     visa_library_spec,
@@ -92,6 +93,23 @@ def test_the_visa_library_is_the_option_else_pyvisa_library_else_at_py(simulator
         assert driver.identify().model == "SIM-SCPI"  # the option wins over the variable
     finally:
         driver.close()
+
+
+def test_a_command_after_a_look_for_waiting_lines_gets_a_writers_timeout(simulator):
+    """VISA has one timeout for reads and writes: a read that only looks for waiting lines sets
+    it to 1 ms, and a command written under it failed on a busy machine (a failed write counts
+    as the instrument gone)."""
+    sim = simulator("--serial", "--profile", "query-plain", *FAST)
+    profile = load_profile("query-plain")
+    transport = VisaTransport(f"ASRL{sim.serial}::INSTR", profile.framing, settings=profile.port)
+    transport.open()
+    try:
+        assert transport.read_line(0.0) is None  # nothing waiting: a 1 ms look
+        transport.write_line("ID?")
+        assert transport.interface.write_timeout >= WRITE_TIMEOUT_MS / 1000
+        assert transport.read_line(2.0) is not None  # and the command went through
+    finally:
+        transport.close()
 
 
 def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):

@@ -23,7 +23,7 @@ from chargebook.acquire.engine import inputs
 from chargebook.acquire.protocol import Method
 
 from tests.bench.harness import Station, read_db
-from tests.faults.sessions import Witness
+from tests.faults.sessions import Witness, open_a_session
 
 #: The actions the run kills inside, with the parameters each is sent with.
 ACTIONS: dict[str, dict[str, Any]] = {
@@ -119,11 +119,15 @@ async def kill_inside(
     world: Station, client: DaemonClient, witness: Witness, wanted: str, rng: random.Random
 ) -> ActionKill:
     """Send ``wanted`` (or, if it cannot be made legal, the first legal action of ACTIONS) and
-    kill the daemon a seeded few milliseconds later; return what the action left."""
+    kill the daemon a seeded few milliseconds later; return what the action left. Every action
+    needs an open session: one is started if the operator was stopped between two."""
+    await open_a_session(client, world)
     action = wanted
     if not await _make_legal(client, witness, wanted):
         allowed = (await client.status()).get("allowed", [])
-        action = next(a for a in ACTIONS if a in allowed)
+        action = next((a for a in ACTIONS if a in allowed), None)
+        if action is None:
+            raise RuntimeError(f"none of {list(ACTIONS)} became allowed (allowed: {allowed})")
     before = effect_counts(world, action)
     request = asyncio.create_task(client.call(action, **ACTIONS[action]))
     await asyncio.sleep(rng.uniform(*KILL_AFTER_SEND_S))

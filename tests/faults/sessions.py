@@ -76,6 +76,13 @@ async def operate(client: DaemonClient, world: Station, sessions: int | None = N
     return finished
 
 
+async def open_a_session(client: DaemonClient, world: Station) -> None:
+    """Start a session with the automatic operator's metadata unless one is open (a session
+    left open by the daemon is taken over as it is)."""
+    operator = AutoOperator(client, environment_from_bench(world.control), stall_timeout_s=60)
+    await operator.start(demo_metadata(), take_over=True)
+
+
 async def watched_client(world: Station, witness: Witness) -> DaemonClient:
     """Return a client of the daemon whose snapshots the witness sees."""
     client = await world.connect(operator="automatic operator")

@@ -16,6 +16,7 @@ from chargebook.tui.screens.setup import SetupScreen
 from chargebook.tui.screens.summary import SummaryScreen
 from chargebook.tui.widgets.fields import Field
 from chargebook.tui.widgets.results_panel import ResultsPanel
+from console_driver import until
 from harness import ScreenHarness, load_snapshot
 from screen_text import screen_text
 from textual.widgets import Select
@@ -72,13 +73,12 @@ async def test_p_pauses_or_resumes_as_the_daemon_allows():
     paused["allowed"] = ["environment.set", "session.resume", "session.stop", "session.abort"]
     app = ScreenHarness(MeasureScreen, paused)
     async with app.run_test(size=SIZE) as pilot:
-        await pilot.pause()
-        assert "p Resume" in screen_text(app)
+        await until(pilot, lambda: "p Resume" in screen_text(app), "p Resume")
         await pilot.press("p")
         await pilot.pause()
         app.console_screen.show(load_snapshot("collecting"), app.initial_link)
-        await pilot.pause()
-        assert "p Pause" in screen_text(app)
+        # The key bar is drawn on a later frame than the snapshot's arrival.
+        await until(pilot, lambda: "p Pause" in screen_text(app), "p Pause")
         await pilot.press("p")
         await pilot.pause()
     assert app.sent == [("session.resume", {}), ("session.pause", {})]

@@ -1,0 +1,303 @@
+"""Benchmark: `chargebook replay --speed 0` of a recorded 4-hour visit, against the pty alone.
+
+    python -m tests.bench.replay [--smoke]
+
+A calibration visit of six beams of the fictional clinic's DEMO-LA1 (invented demo data; three
+full calibrations and three output checks, one session each) is recorded by the real daemon
+(``Daemon``: its engine, its store on a real SQLite file, its instrument thread and its
+``query-plain`` driver, polling every 0.05 s while a reading is taken) with the simulated
+electrometer on an in-memory wire and a hand clock (``tests/acquire/in_process_daemon.py``),
+so that four hours of the daemon's clock take a minute or two. The physicist's set-up time
+between beams is idle time on that clock. The visit records about 10^5 raw traffic lines and
+the input log a replay feeds back.
+
+* Baseline: for each session, the same raw lines (both directions, as recorded) written to a
+  real pseudo-terminal as fast as a reader takes them, and read by a new Python process with
+  pyserial (``readline`` on an ``io.BufferedReader`` over the port, timeout 0.05 s, as in the
+  pipeline benchmark), timed from its start to its exit.
+* Measured: for each session, ``chargebook replay SESSION --speed 0 --json`` as a user runs it
+  (a new process: the playback simulator on a real pty, the real driver, engine and store, the
+  replay stored in the station file), timed from its start to its exit; it must say
+  ``reproduced``, or the run fails.
+
+Both run with Python's default of caching compiled bytecode (an installed copy has its
+bytecode; an editable one under ``PYTHONDONTWRITEBYTECODE`` would compile every module at every
+start), after one untimed run of each.
+
+Rounds alternate the two, each over the whole visit. Target (issue 17, target 5): the visit's
+replay within 3 times the time to push the same lines through the pty alone.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import datetime
+import json
+import os
+import subprocess
+import sys
+import time
+import tty
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire.commands.demo_data import DEMO_METADATA, demo_visit_beams
+from chargebook.acquire.daemon.daemon import POLL_INTERVAL_S
+from chargebook.acquire.processes import chargebook_args
+
+from tests.acquire.in_process_daemon import InProcessDaemon, running
+from tests.bench import report
+from tests.bench.harness import read_db, scratch
+
+#: The visit's beams, the demo visit's three (6 MV full, 10 MV output check, electrons full) over
+#: and over.
+FULL_BEAMS, SMOKE_BEAMS = 9, 1
+#: The visit's length on the daemon's clock, s: the set-up time between beams makes it up.
+FULL_VISIT_S, SMOKE_VISIT_S = 4 * 3600.0, 1800.0
+PROFILE = "query-plain"
+FULL_ROUNDS, SMOKE_ROUNDS = 3, 1
+TARGET_RATIO = 3.0
+#: The longest a replay or a reader may take before the run is given up, s.
+GIVE_UP_S = 600.0
+
+#: The baseline's reader process: pyserial, buffered readline, until COUNT lines.
+READER = """
+import io, sys, serial
+port = serial.Serial(sys.argv[1], baudrate=115200, timeout=0.05)
+reader = io.BufferedReader(port, 65536)
+print("open", flush=True)
+count = int(sys.argv[2])
+received = 0
+while received < count:  # a line cut by the timeout is counted once, when its end comes
+    received += reader.readline().endswith(b"\\n")
+"""
+
+
+@dataclass(frozen=True)
+class Recorded:
+    """One session of the visit: its id and raw traffic lines (bytes, terminators kept)."""
+
+    session_id: int
+    lines: tuple[bytes, ...]
+
+
+# ---------------------------------------------------------------------------- recording
+def record_visit(db: Path, beams: int, visit_s: float) -> list[Recorded]:
+    """Record a visit of ``beams`` beams lasting ``visit_s`` on the daemon's clock into ``db``;
+    return its sessions, in the order measured."""
+    asyncio.run(_record(db, beams, visit_s))
+    sessions = read_db(db, "SELECT id FROM sessions ORDER BY id")
+    return [
+        Recorded(
+            int(session_id),
+            tuple(
+                bytes(line)
+                for (line,) in read_db(
+                    db, "SELECT line FROM traffic WHERE session_id = ? ORDER BY id", (session_id,)
+                )
+            ),
+        )
+        for (session_id,) in sessions
+    ]
+
+
+#: Names of the beams past the demo's own three, by the demo beam they repeat (invented).
+MORE_BEAMS = {
+    "6 MV": ("15 MV", "18 MV"),
+    "10 MV": ("6 MV FFF", "10 MV FFF"),
+    "10 MeV": ("12 MeV", "15 MeV"),
+}
+
+
+def visit_beams(demo: list[tuple[dict[str, Any], str]], beams: int) -> list[tuple[dict, str]]:
+    """Return ``beams`` beams: the demo visit's three, then the same measurements of further
+    beams of the machine under their own names (a visit measures each beam once). One beam
+    alone is the short output check (the smoke run)."""
+    if beams == 1:
+        return [demo[1]]
+    found = []
+    for number in range(beams):
+        metadata, plan = demo[number % len(demo)]
+        repeat = number // len(demo)
+        if repeat:
+            name = MORE_BEAMS[metadata["beam"]][repeat - 1]
+            metadata = {**metadata, "beam": name}
+            if name.endswith("MeV"):  # E0 = 2.33 MeV/cm x R50 (common practice)
+                mev = float(name.split()[0])
+                metadata |= {"beam_quality": f"{name} electrons", "R50_cm": round(mev / 2.33, 1)}
+        found.append((metadata, plan))
+    return found
+
+
+async def _record(db: Path, beams: int, visit_s: float) -> None:
+    daemon = InProcessDaemon(db.parent, profile=PROFILE, plan="default", time_scale=1.0)
+    started_s = daemon.time()
+    async with running(daemon):
+        clock = asyncio.create_task(_run_time(daemon))
+        client, operator = await daemon.operator()
+        truth = daemon.sim.device.truth()
+        demo = demo_visit_beams(truth, datetime.date.today().isoformat())
+        visit = visit_beams(demo, beams)
+        # The physicist's set-up between beams: idle time, spread so the visit lasts visit_s.
+        # Each gap is taken before a beam, from what is left of the visit's time.
+        begun: list[int] = []
+
+        def set_up(metadata: dict[str, Any], plan: str) -> None:
+            begun.append(1)
+            if len(begun) > 1:
+                left_s = visit_s - (daemon.time() - started_s)
+                daemon.time.advance(max(0.0, left_s / (beams - len(begun) + 2)))
+
+        try:
+            await operator.run_visit(
+                DEMO_METADATA["treatment_machine"], DEMO_METADATA["operator"], visit, set_up
+            )
+            left_s = visit_s - (daemon.time() - started_s)
+            daemon.time.advance(max(0.0, left_s))
+        finally:
+            await client.close()
+            clock.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await clock
+
+
+async def _run_time(daemon: InProcessDaemon) -> None:
+    """Move the hand clock on one poll interval at a time, as ``let_time_run`` does, and wake
+    the instrument thread at each step: in query mode it waits for its next poll on a real
+    timer, which would make each poll of the hand clock last 0.05 s of wall time."""
+    assert daemon.link is not None
+    while True:
+        now_s = daemon.time.advance(POLL_INTERVAL_S)
+        daemon.link.inbox.put(("", None))  # an empty post: nothing to do, then poll if due
+        await daemon.caught_up(now_s)
+
+
+# ----------------------------------------------------------------------------- the baseline
+def children_env(workdir: Path) -> dict[str, str]:
+    """Return the environment of the timed processes: Python's own default of caching the
+    bytecode it compiles (kept in ``workdir``), as an installed copy has it, even where the
+    shell says not to write bytecode (``PYTHONDONTWRITEBYTECODE``)."""
+    env = {**os.environ, "PYTHONPYCACHEPREFIX": str(workdir / "pycache")}
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    return env
+
+
+def pty_alone_s(recorded: Recorded, env: dict[str, str]) -> float:
+    """Return the wall time of a new process reading the session's lines from a pty, s.
+
+    The reader says when its port is open (pyserial empties the port's input on opening);
+    the lines are then written to the pty's near end as fast as they are read.
+    """
+    master, slave = os.openpty()
+    tty.setraw(slave)
+    try:
+        started = time.perf_counter()
+        reader = subprocess.Popen(
+            [sys.executable, "-c", READER, os.ttyname(slave), str(len(recorded.lines))],
+            stdout=subprocess.PIPE,
+            env=env,
+        )
+        assert reader.stdout is not None
+        if reader.stdout.readline() != b"open\n":
+            reader.kill()
+        _write_all(master, b"".join(recorded.lines))
+        status = reader.wait(timeout=GIVE_UP_S)
+        elapsed = time.perf_counter() - started
+        reader.stdout.close()
+    finally:
+        os.close(master)
+        os.close(slave)
+    if status != 0:
+        raise RuntimeError(f"the pty reader failed on session {recorded.session_id}: {status}")
+    return elapsed
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view) :]
+
+
+# ----------------------------------------------------------------------------- the replay
+def replay_s(db: Path, recorded: Recorded, env: dict[str, str]) -> float:
+    """Return the wall time of `chargebook replay SESSION --speed 0`, a new process, s; raise
+    RuntimeError unless it says the session was reproduced."""
+    command = chargebook_args(
+        "replay", str(recorded.session_id), "--db", str(db), "--speed", "0", "--json"
+    )
+    started = time.perf_counter()
+    done = subprocess.run(
+        command, capture_output=True, text=True, timeout=GIVE_UP_S, check=False, env=env
+    )
+    elapsed = time.perf_counter() - started
+    said = json.loads(done.stdout) if done.returncode == 0 and done.stdout else {}
+    if not said.get("reproduced") or said.get("traffic_lines") != len(recorded.lines):
+        raise RuntimeError(
+            f"the replay of session {recorded.session_id} did not say reproduced "
+            f"(exit {done.returncode}): {done.stdout[-400:]} {done.stderr[-400:]}"
+        )
+    return elapsed
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    beams, visit_s = (SMOKE_BEAMS, SMOKE_VISIT_S) if args.smoke else (FULL_BEAMS, FULL_VISIT_S)
+    rounds = SMOKE_ROUNDS if args.smoke else FULL_ROUNDS
+    with scratch("replay") as workdir:
+        db = workdir / "station.sqlite"
+        started = time.perf_counter()
+        visit = record_visit(db, beams, visit_s)
+        recording_s = time.perf_counter() - started
+        total = sum(len(r.lines) for r in visit)
+        out = report.Report(
+            f"replay: a visit of {beams} beam(s) over {visit_s / 3600:g} h of the daemon's clock, "
+            f"{total} traffic lines ({PROFILE}), {rounds} round(s)",
+            args.smoke,
+        )
+        out.note(
+            f"recorded in {recording_s:.1f} s: sessions "
+            + ", ".join(f"{r.session_id} ({len(r.lines)} lines)" for r in visit)
+        )
+        env = children_env(workdir)
+        smallest = min(visit, key=lambda r: len(r.lines))
+        replay_s(db, smallest, env), pty_alone_s(smallest, env)  # untimed: bytecode compiled
+        by_session: dict[int, tuple[list[float], list[float]]] = {
+            r.session_id: ([], []) for r in visit
+        }
+        for _ in range(rounds):
+            for r in visit:
+                by_session[r.session_id][0].append(pty_alone_s(r, env))
+            for r in visit:
+                by_session[r.session_id][1].append(replay_s(db, r, env))
+        alone = [sum(times[0][n] for times in by_session.values()) for n in range(rounds)]
+        replayed = [sum(times[1][n] for times in by_session.values()) for n in range(rounds)]
+    for r in visit:
+        base, measured_s = by_session[r.session_id]
+        out.note(
+            f"session {r.session_id}, {len(r.lines)} lines: pty alone "
+            f"{report.median(base):.2f} s, replay {report.median(measured_s):.2f} s (medians)"
+        )
+    for number, (base_s, replay_total_s) in enumerate(zip(alone, replayed, strict=True), 1):
+        out.note(
+            f"round {number}, whole visit: pty alone {base_s:.2f} s, replay {replay_total_s:.2f} s,"
+            f" ratio {replay_total_s / base_s:.2f}; every replay reproduced"
+        )
+    ratio = report.median([m / b for m, b in zip(replayed, alone, strict=True)])
+    out.baseline(
+        "the same lines through a pty, read by a new process with pyserial (median)",
+        report.median(alone),
+        "s",
+    )
+    out.measured("chargebook replay --speed 0, reproduced (median)", report.median(replayed), "s")
+    out.ratio(ratio, "median of the rounds' replay / pty alone")
+    met = ratio <= TARGET_RATIO
+    out.target(
+        f"replay <= {TARGET_RATIO:g} x the pty alone", met, f"{ratio / TARGET_RATIO:.1f} times it"
+    )
+    return out.finish()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
