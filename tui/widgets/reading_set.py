@@ -9,7 +9,7 @@ from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
-from textual.containers import Vertical, VerticalScroll
+from textual.containers import Vertical
 from textual.reactive import reactive
 
 #: The readings' columns: heading, least width in characters, aligned right?
@@ -101,8 +101,7 @@ class ReadingSetPanel(Vertical):
         yield TextBlock(id="set-title", classes="panel-title")
         yield TextBlock(id="readings-heading")
         yield ReadingLines(id="readings-table")
-        with VerticalScroll(id="set-flags-scroll"):
-            yield TextBlock(id="set-flags")
+        yield ReadingLines(id="set-flags", follow=False, wrap=True)
         yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
@@ -118,7 +117,9 @@ class ReadingSetPanel(Vertical):
         self.query_one("#set-title", TextBlock).show(title)
         heading, *lines = readings_lines(set_info)
         self.query_one("#readings-heading", TextBlock).show(heading)
-        self.query_one(ReadingLines).show_lines(lines, rows_for(set_info), another=another_set)
+        self.query_one("#readings-table", ReadingLines).show_lines(
+            lines, rows_for(set_info), another=another_set
+        )
         charges = snapshot_view.set_charges_nC(set_info)
         mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
         bars = text.deviation_bars(charges, mean_nC)
@@ -128,4 +129,4 @@ class ReadingSetPanel(Vertical):
         self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )
-        self.query_one("#set-flags", TextBlock).show("\n".join(reading_flag_lines(set_info)))
+        self.query_one("#set-flags", ReadingLines).show_lines(reading_flag_lines(set_info))
