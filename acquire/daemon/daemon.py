@@ -953,16 +953,21 @@ class Daemon:
         self._results_task = asyncio.create_task(self._send_results(), name="results")
 
     async def _send_results(self) -> None:
-        """Send the results of what is recorded now, if readings left them behind."""
-        assert self.engine is not None
+        """Send the results of what is recorded now, if readings left them behind; after the
+        change being published now, if one is (its reading goes out first, alone). Readings
+        taken meanwhile get theirs in turn."""
+        engine = self.engine
+        assert engine is not None
         try:
-            if self.engine.results_stale:
-                self.engine.touch_live()  # a new snapshot: the same state, its results now
+            if engine.seq == self._published_seq and engine.results_stale:
+                engine.touch_live()  # a new snapshot: the same state, its results now
                 await self.publish()
         except Exception:  # supervised, as the instrument events are
             self._unexpected("sending the results")
         finally:
             self._results_task = None
+            if engine.results_stale and self._sent is not None:
+                self._results_later()
 
     async def _broadcast(self, method: str, params: Any) -> None:
         """Send a notification to the subscribers of both sockets."""

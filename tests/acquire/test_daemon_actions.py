@@ -228,12 +228,35 @@ prompt = "Readings arrive pushed by the electrometer."
 """
 
 
+async def stream_readings(daemon: Daemon, client: DaemonClient, count: int) -> None:
+    """Open a session on ``daemon``, arm its set and hand it ``count`` completed readings as the
+    instrument thread would, each once the client has seen the one before."""
+    for method, params in ACTIONS[:2]:  # start, air
+        await client.call(method, **params)
+    await client.call("step.manual_done", note="bias set by hand")  # no remote bias here
+    await client.call("step.arm")
+    for number in range(1, count + 1):
+        # invented charges (demo only), received after the reading was armed (daemon's clock)
+        charge_nC = 20.0 + 0.001 * (number % 3)
+        sample = Sample(t_s=time.monotonic(), charge_nC=charge_nC, complete=True)
+        daemon._events.put_nowait(("samples", (daemon._generation, [(sample, None)])))
+        await client.wait_for_snapshot(
+            lambda s, n=number: len((s["current_set"] or s["sets"][-1])["readings"]) >= n, 10
+        )
+
+
+def streaming_daemon(tmp_path: Path) -> Daemon:
+    """Return a daemon (not running) whose every pushed line is a completed reading, on a plan
+    of one set of STREAMED_READINGS readings."""
+    plan = tmp_path / "streamed.toml"
+    plan.write_text(STREAMED_PLAN)
+    return daemon_with_engine(tmp_path, str(PUSHED_EVERY_LINE), str(plan))
+
+
 async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set_follow(
     tmp_path: Path,
 ) -> None:
-    plan = tmp_path / "streamed.toml"
-    plan.write_text(STREAMED_PLAN)
-    daemon = daemon_with_engine(tmp_path, str(PUSHED_EVERY_LINE), str(plan))
+    daemon = streaming_daemon(tmp_path)
     await daemon.server.start()
     consumer = asyncio.create_task(daemon._consume_instrument())
     client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
@@ -241,19 +264,7 @@ async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set
     try:
         held, _ = await raw.call("subscribe")
         await client.subscribe()
-        for method, params in ACTIONS[:2]:  # start, air
-            await client.call(method, **params)
-        await client.call("step.manual_done", note="bias set by hand")  # no remote bias here
-        await client.call("step.arm")
-        for count in range(1, STREAMED_READINGS + 1):
-            # invented charges (demo only), as the instrument thread hands them over, received
-            # after the reading was armed (on the daemon's clock)
-            charge_nC = 20.0 + 0.001 * (count % 3)
-            sample = Sample(t_s=time.monotonic(), charge_nC=charge_nC, complete=True)
-            daemon._events.put_nowait(("samples", (daemon._generation, [(sample, None)])))
-            await client.wait_for_snapshot(
-                lambda s, n=count: len((s["current_set"] or s["sets"][-1])["readings"]) >= n, 10
-            )
+        await stream_readings(daemon, client, STREAMED_READINGS)
         _, notes = await raw.call("hello")  # every notification so far is in
         final = await client.call("status")
     finally:
@@ -279,3 +290,29 @@ async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set
     assert routine["stats"]["count"] == STREAMED_READINGS
     # the raw charge M of the results is the mean of all twelve readings, not of fewer
     assert held["results"]["M_raw_nC"] == pytest.approx(routine["stats"]["mean_nC"], rel=1e-12)
+
+
+async def test_readings_that_stop_mid_set_get_the_results_of_all_of_them_without_more_input(
+    tmp_path: Path,
+) -> None:
+    daemon = streaming_daemon(tmp_path)
+    await daemon.server.start()
+    consumer = asyncio.create_task(daemon._consume_instrument())
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    try:
+        await client.subscribe()
+        await stream_readings(daemon, client, 5)  # then the beam stops: the set is collecting
+
+        def all_five_in_results(snapshot: dict) -> bool:
+            readings = snapshot["current_set"]["readings"]
+            mean_nC = sum(r["charge_nC"] for r in readings) / len(readings)
+            raw_nC = (snapshot["results"] or {}).get("M_raw_nC")
+            return len(readings) == 5 and raw_nC == pytest.approx(mean_nC, rel=1e-12)
+
+        held = await client.wait_for_snapshot(all_five_in_results, 10)
+    finally:
+        consumer.cancel()
+        await client.close()
+        await daemon.server.close()
+        daemon.store.close()
+    assert held["state"] == "collecting" and held["results_provisional"] is True
