@@ -9,9 +9,11 @@ built once (it was built twice, once to publish and once to reply).
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import itertools
 import json
 import time
+from collections.abc import AsyncIterator
 from pathlib import Path
 
 import pytest
@@ -245,33 +247,39 @@ async def stream_readings(daemon: Daemon, client: DaemonClient, count: int) -> N
         )
 
 
-def streaming_daemon(tmp_path: Path) -> Daemon:
-    """Return a daemon (not running) whose every pushed line is a completed reading, on a plan
-    of one set of STREAMED_READINGS readings."""
+@contextlib.asynccontextmanager
+async def streaming_daemon(tmp_path: Path) -> AsyncIterator[tuple[Daemon, DaemonClient]]:
+    """Yield a daemon serving its socket and taking the instrument's news, whose every pushed
+    line is a completed reading, on a plan of one set of STREAMED_READINGS readings, and a
+    subscribed client of it."""
     plan = tmp_path / "streamed.toml"
     plan.write_text(STREAMED_PLAN)
-    return daemon_with_engine(tmp_path, str(PUSHED_EVERY_LINE), str(plan))
+    daemon = daemon_with_engine(tmp_path, str(PUSHED_EVERY_LINE), str(plan))
+    await daemon.server.start()
+    consumer = asyncio.create_task(daemon._consume_instrument())
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    try:
+        await client.subscribe()
+        yield daemon, client
+    finally:
+        consumer.cancel()
+        await client.close()
+        await daemon.server.close()
+        daemon.store.close()
 
 
 async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set_follow(
     tmp_path: Path,
 ) -> None:
-    daemon = streaming_daemon(tmp_path)
-    await daemon.server.start()
-    consumer = asyncio.create_task(daemon._consume_instrument())
-    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
-    raw = await RawSubscriber.connect(daemon.options.socket_path)
-    try:
-        held, _ = await raw.call("subscribe")
-        await client.subscribe()
-        await stream_readings(daemon, client, STREAMED_READINGS)
-        _, notes = await raw.call("hello")  # every notification so far is in
-        final = await client.call("status")
-    finally:
-        consumer.cancel()
-        raw.close()
-        await client.close()
-        await daemon.server.close()
+    async with streaming_daemon(tmp_path) as (daemon, client):
+        raw = await RawSubscriber.connect(daemon.options.socket_path)
+        try:
+            held, _ = await raw.call("subscribe")
+            await stream_readings(daemon, client, STREAMED_READINGS)
+            _, notes = await raw.call("hello")  # every notification so far is in
+            final = await client.call("status")
+        finally:
+            raw.close()
     deltas = [note["params"] for note in notes if note["method"] == NOTIFY_DELTA]
     sent_readings = []
     for delta in deltas:
@@ -280,7 +288,6 @@ async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set
             sent_readings += [reading["seq"] for _position, reading in change["readings_at"]]
             if change["readings_at"] and held["state"] == "collecting":
                 assert "results" not in delta["changed"]  # they follow in a delta of their own
-    daemon.store.close()
     # every reading was sent once, alone: never again with the next ones
     assert sorted(sent_readings) == list(range(1, STREAMED_READINGS + 1))
     # the set complete: the snapshot held shows the results of all its readings, at once
@@ -295,12 +302,7 @@ async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set
 async def test_readings_that_stop_mid_set_get_the_results_of_all_of_them_without_more_input(
     tmp_path: Path,
 ) -> None:
-    daemon = streaming_daemon(tmp_path)
-    await daemon.server.start()
-    consumer = asyncio.create_task(daemon._consume_instrument())
-    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
-    try:
-        await client.subscribe()
+    async with streaming_daemon(tmp_path) as (daemon, client):
         await stream_readings(daemon, client, 5)  # then the beam stops: the set is collecting
 
         def all_five_in_results(snapshot: dict) -> bool:
@@ -310,9 +312,4 @@ async def test_readings_that_stop_mid_set_get_the_results_of_all_of_them_without
             return len(readings) == 5 and raw_nC == pytest.approx(mean_nC, rel=1e-12)
 
         held = await client.wait_for_snapshot(all_five_in_results, 10)
-    finally:
-        consumer.cancel()
-        await client.close()
-        await daemon.server.close()
-        daemon.store.close()
     assert held["state"] == "collecting" and held["results_provisional"] is True
