@@ -21,7 +21,9 @@ Sequence of a client
        base of the first delta; :func:`apply_delta` turns a snapshot and a delta into the next
        snapshot. A client whose snapshot is not the delta's base (it missed one) asks for the
        whole snapshot again (``status``). So the bytes sent per reading do not grow with the
-       session: a reading sends its set, the results and the prompt, not every set before it.
+       session nor with the set: a reading sends itself, its set's new statistics and what
+       else changed (the prompt), not its set's other readings nor the sets before it. The
+       results follow in a later delta while readings stream (see the daemon).
     3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
        lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
 
@@ -731,6 +733,18 @@ class Snapshot(TypedDict):
     plans: NotRequired[list[dict[str, Any]]]
 
 
+class SetChange(TypedDict):
+    """What changed in one set the base snapshot already held (in a :class:`Delta`): its keys
+    other than ``readings`` whose value changed, and its readings new or changed, by position.
+    A reading added to a set of sixty sends that one reading (and the set's new statistics),
+    not the sixty."""
+
+    id: int
+    changed: dict[str, Any]  # the set's keys (not ``readings``) whose value changed, new values
+    readings_count: int  # how many readings the set holds now
+    readings_at: list[tuple[int, ReadingInfo]]  # (position from 0, reading) new or changed
+
+
 class Delta(TypedDict):
     """What changed from the snapshot of seq ``base_seq`` to the one of seq ``seq`` (params of
     the ``delta`` notification; see :func:`snapshot_delta` and :func:`apply_delta`)."""
@@ -738,8 +752,11 @@ class Delta(TypedDict):
     seq: int
     base_seq: int
     changed: dict[str, Any]  # the top-level Snapshot keys whose value changed, new values
-    sets: list[SetInfo]  # sets new or changed since the base, whole, in the snapshot's order
-    #: The current set is this one of the sets sent (sent once, not again as ``current_set``).
+    sets: list[SetInfo]  # sets new since the base, whole, in the snapshot's order
+    #: Sets the base held that changed, each as what changed in it (in the snapshot's order).
+    set_changes: NotRequired[list[SetChange]]
+    #: The current set is this one of the snapshot's sets (sent once, not again as
+    #: ``current_set``).
     current_set_id: NotRequired[int]
 
 
@@ -747,13 +764,51 @@ class DeltaGap(ValueError):
     """A delta does not apply to the snapshot held: its base is another snapshot."""
 
 
+def set_change(old: Mapping[str, Any], new: Mapping[str, Any]) -> SetChange:
+    """Return the :class:`SetChange` that turns set entry ``old`` into ``new`` (the same id)."""
+    old_readings, new_readings = old.get("readings") or [], new.get("readings") or []
+    return {
+        "id": new["id"],
+        "changed": {
+            key: value
+            for key, value in new.items()
+            if key != "readings" and (key not in old or old[key] != value)
+        },
+        "readings_count": len(new_readings),
+        "readings_at": [
+            (index, reading)
+            for index, reading in enumerate(new_readings)
+            if index >= len(old_readings) or old_readings[index] != reading
+        ],
+    }
+
+
+def changed_set(entry: Mapping[str, Any], change: Mapping[str, Any]) -> dict[str, Any]:
+    """Return set ``entry`` with ``change`` (a :class:`SetChange`) applied (``entry`` is left as
+    it was; its readings that did not change are the very objects it held)."""
+    readings = list(entry.get("readings") or [])[: change["readings_count"]]
+    for index, reading in change["readings_at"]:
+        if index < len(readings):
+            readings[index] = reading
+        elif index == len(readings):
+            readings.append(reading)
+        else:
+            raise DeltaGap(f"set {entry['id']} has no reading at position {index - 1}")
+    if len(readings) != change["readings_count"]:
+        raise DeltaGap(
+            f"set {entry['id']} would hold {len(readings)} readings, not {change['readings_count']}"
+        )
+    return {**entry, **change["changed"], "readings": readings}
+
+
 def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
     """Return the :class:`Delta` that turns snapshot ``old`` into snapshot ``new``.
 
-    Sets are compared one by one (by position, their ids checked): only those new or changed
-    are sent. When ``new`` does not extend ``old``'s sets (another session), ``sets`` is sent
-    whole among ``changed``. The current set, when it is one of the sets sent, is named by its
-    id (``current_set_id``) instead of being sent twice.
+    Sets are compared one by one (by position, their ids checked): new sets are sent whole, a
+    set that changed as what changed in it (its new readings, its statistics: a
+    :class:`SetChange`). When ``new`` does not extend ``old``'s sets (another session),
+    ``sets`` is sent whole among ``changed``. The current set, when it is one of the new
+    snapshot's sets, is named by its id (``current_set_id``) instead of being sent again.
     """
     changed = {
         key: value
@@ -764,20 +819,22 @@ def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
     extends = len(new_sets) >= len(old_sets) and all(
         before["id"] == after["id"] for before, after in zip(old_sets, new_sets, strict=False)
     )
-    sets: list[Any] = []
+    delta: Delta = {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": []}
     if not extends:
         changed["sets"] = new_sets
     else:
-        sets = [
-            entry
-            for index, entry in enumerate(new_sets)
-            if index >= len(old_sets) or old_sets[index] != entry
+        delta["sets"] = new_sets[len(old_sets) :]
+        changes = [
+            set_change(before, after)
+            for before, after in zip(old_sets, new_sets, strict=False)
+            if before is not after and before != after
         ]
-    delta: Delta = {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": sets}
+        if changes:
+            delta["set_changes"] = changes
     current = changed.get("current_set")
-    sent = changed.get("sets", sets)
     if current is not None and any(
-        entry["id"] == current["id"] and entry == current for entry in sent
+        entry["id"] == current["id"] and (entry is current or entry == current)
+        for entry in reversed(new_sets)
     ):
         del changed["current_set"]
         delta["current_set_id"] = current["id"]
@@ -788,23 +845,24 @@ def apply_delta(snapshot: Mapping[str, Any], delta: Mapping[str, Any]) -> dict[s
     """Return the snapshot ``delta`` leads to from ``snapshot`` (which is left as it was).
 
     What did not change is the very object of ``snapshot`` (a client can tell what to redraw
-    by identity). Raises :class:`DeltaGap` when ``snapshot`` is not the delta's base.
+    by identity). Raises :class:`DeltaGap` when ``snapshot`` is not the delta's base, or a
+    set it changes is not held as the delta expects.
     """
     if snapshot.get("seq") != delta["base_seq"]:
         raise DeltaGap(
             f"the delta applies to snapshot {delta['base_seq']}, not to {snapshot.get('seq')}"
         )
     result = {**snapshot, **delta["changed"], "seq": delta["seq"]}
-    if delta["sets"]:
+    changes = delta.get("set_changes") or []
+    if delta["sets"] or changes:
         sets = list(result.get("sets") or [])
-        for entry in delta["sets"]:
-            place = next(
-                (i for i in range(len(sets) - 1, -1, -1) if sets[i]["id"] == entry["id"]), None
-            )
-            if place is None:
-                sets.append(entry)
-            else:
-                sets[place] = entry
+        where = {entry["id"]: index for index, entry in enumerate(sets)}
+        for change in changes:
+            if change["id"] not in where:
+                raise DeltaGap(f"the delta changes set {change['id']}, which is not held")
+            index = where[change["id"]]
+            sets[index] = changed_set(sets[index], change)
+        sets.extend(delta["sets"])
         result["sets"] = sets
     if "current_set_id" in delta:
         wanted = delta["current_set_id"]

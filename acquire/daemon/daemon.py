@@ -66,6 +66,14 @@ POLL_INTERVAL_S = 0.05
 TICK_S = 0.05
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
+#: While readings stream, shortest time between two computations of the results (with their
+#: uncertainty budget and dose), s: each reading is sent at once with its set's statistics, and
+#: the results follow in a delta of their own at most this often. Once readings stop (the set
+#: complete, paused, interrupted ...) the results are computed with the change that stopped
+#: them, and a set still collecting gets its results within this time of its latest reading.
+RESULTS_INTERVAL_S = 0.1
+#: The states in which readings stream in from the instrument (results may follow them).
+STREAMING_STATES = frozenset({protocol.EngineState.COLLECTING, protocol.EngineState.SETTLING})
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
 LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine). Each
@@ -490,6 +498,11 @@ class Daemon:
         #: Events committed and not yet broadcast, in order (the store hands them over).
         self._emitted: list[EventRow] = []
         self._last_live: tuple[float, float | None] = (0.0, None)
+        #: When results were last computed for the subscribers (time.monotonic), and the
+        #: timer (then the task) that sends the results readings left behind.
+        self._results_at = -RESULTS_INTERVAL_S
+        self._results_timer: asyncio.TimerHandle | None = None
+        self._results_task: asyncio.Task[None] | None = None
         self._stopping = asyncio.Event()
         self._stop_reason = "asked to stop"
 
@@ -665,6 +678,10 @@ class Daemon:
         try:
             await self._stopping.wait()
         finally:
+            if self._results_timer is not None:
+                self._results_timer.cancel()
+            if self._results_task is not None:
+                tasks.append(self._results_task)
             for task in tasks:
                 task.cancel()
             await asyncio.gather(*tasks, return_exceptions=True)
@@ -735,7 +752,7 @@ class Daemon:
                 else:
                     self._held_events.append((kind, payload))
                     self._take_held_events()
-                await self.after_change()
+                await self.after_change(streaming=True)
             except Exception:  # supervised: log it, record it, keep taking the instrument's news
                 self._unexpected(f"handling the instrument's {kind!r}")
 
@@ -862,7 +879,7 @@ class Daemon:
                 self._check_record()
                 if not self._faults:
                     self.engine.apply(inputs.Tick())
-                await self.after_change()
+                await self.after_change(streaming=True)
             except Exception:  # supervised, as the instrument events are
                 self._unexpected("the clock tick")
 
@@ -878,8 +895,10 @@ class Daemon:
                 self.engine.session_id, DAEMON_ACTOR, EventKind.DAEMON_ERROR, failed
             )
 
-    async def after_change(self) -> None:
-        """Send the engine's commands to the instrument and publish what changed."""
+    async def after_change(self, *, streaming: bool = False) -> None:
+        """Send the engine's commands to the instrument and publish what changed;
+        ``streaming``: the change came from the instrument or the clock, not from a request
+        (the results may then follow in a later delta, see :data:`RESULTS_INTERVAL_S`)."""
         assert self.engine is not None and self.link is not None
         engine = self.engine
         if engine.session_id != self._line_session:  # a session began or was left
@@ -898,11 +917,13 @@ class Daemon:
             if reading.last_charge_nC != last_charge and now - last_at >= LIVE_INTERVAL_S:
                 self._last_live = (now, reading.last_charge_nC)
                 engine.touch_live()
-        await self.publish()
+        await self.publish(streaming=streaming)
 
-    async def publish(self) -> None:
+    async def publish(self, *, streaming: bool = False) -> None:
         """Broadcast the audit events committed since the last call (as the store handed them
-        over: nothing is read back) and, if the state changed, the snapshot."""
+        over: nothing is read back) and, if the state changed, the snapshot. ``streaming``:
+        while readings stream, a reading is sent with the results computed last, and the
+        results follow in a delta of their own (:meth:`_results_later`)."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
         emitted = self._emitted[:]
@@ -916,10 +937,43 @@ class Daemon:
         if not any(server.has_subscribers() for server in servers):  # nothing to build
             self._sent = None
             return
-        line = self._change_line(self._current_snapshot())
+        later = streaming and engine.state in STREAMING_STATES and engine.results_stale
+        line = self._change_line(self._current_snapshot(results_later=later))
         if line is not None:
             for server in servers:
                 await server.broadcast_line(line)
+        if later:
+            self._results_later()
+
+    def _results_later(self) -> None:
+        """Compute and send the results readings left behind, once, as soon as
+        :data:`RESULTS_INTERVAL_S` has passed since they were last computed (at once if it
+        has: after the readings' own delta, which is on its way already)."""
+        if self._results_timer is not None or self._results_task is not None:
+            return  # already due: it will show every reading taken until then
+        delay_s = max(0.0, self._results_at + RESULTS_INTERVAL_S - time.monotonic())
+        self._results_timer = asyncio.get_running_loop().call_later(delay_s, self._results_due)
+
+    def _results_due(self) -> None:
+        self._results_timer = None
+        self._results_task = asyncio.create_task(self._send_results(), name="results")
+
+    async def _send_results(self) -> None:
+        """Send the results of what is recorded now, if readings left them behind; after the
+        change being published now, if one is (its reading goes out first, alone). Readings
+        taken meanwhile get theirs in turn."""
+        engine = self.engine
+        assert engine is not None
+        try:
+            if engine.seq == self._published_seq and engine.results_stale:
+                engine.touch_live()  # a new snapshot: the same state, its results now
+                await self.publish()
+        except Exception:  # supervised, as the instrument events are
+            self._unexpected("sending the results")
+        finally:
+            self._results_task = None
+            if engine.results_stale and self._sent is not None:
+                self._results_later()
 
     async def _broadcast(self, method: str, params: Any) -> None:
         """Send a notification to the subscribers of both sockets."""
@@ -959,15 +1013,19 @@ class Daemon:
             self._sent = _fitted(self._current_snapshot())
         return self._sent
 
-    def _current_snapshot(self) -> protocol.Snapshot:
+    def _current_snapshot(self, *, results_later: bool = False) -> protocol.Snapshot:
         """Return the engine's snapshot at ``engine.seq``, built once per change: an action's
-        reply is the snapshot its change was published with."""
+        reply is the snapshot its change was published with. ``results_later``: show the
+        results computed last (when there are any) instead of computing them now."""
         assert self.engine is not None
         built = self._built
         if built is not None and built[0] == self.engine.seq:
             return built[1]
         seq = self.engine.seq
-        snapshot = self.engine.snapshot()
+        shown = self.engine.last_results() if results_later else None
+        if shown is None:
+            self._results_at = time.monotonic()
+        snapshot = self.engine.snapshot(shown)
         snapshot["visit"] = self.visit_desk().snapshot()
         snapshot["plans"] = self.visit_desk().plan_choices()
         self._built = (seq, snapshot)

@@ -1017,11 +1017,23 @@ class Engine:
         self._results_cache = (self.data_version, value)
         return value
 
-    def snapshot(self) -> Snapshot:
-        """Return the whole state as the protocol's Snapshot."""
+    @property
+    def results_stale(self) -> bool:
+        """Return True when what is recorded changed since the results were last computed."""
+        cache = self._results_cache
+        return cache is None or cache[0] != self.data_version
+
+    def last_results(self) -> Results | None:
+        """Return the results computed last (perhaps before the latest change; see
+        :attr:`results_stale`), or None when none were computed yet."""
+        return None if self._results_cache is None else self._results_cache[1]
+
+    def snapshot(self, results: Results | None = None) -> Snapshot:
+        """Return the whole state as the protocol's Snapshot; with ``results`` (the results
+        computed last, while readings stream) those are shown instead of computing them anew."""
         from chargebook.acquire.engine.snapshot import build_snapshot
 
-        return build_snapshot(self)
+        return build_snapshot(self, results)
 
     @property
     def live_phase(self) -> ReadingPhase:

@@ -24,7 +24,7 @@ from chargebook.acquire.session.numbering import next_reading_label, reading_lab
 from chargebook.acquire.session.plan import Step
 
 if TYPE_CHECKING:
-    from chargebook.acquire.engine.engine import Engine
+    from chargebook.acquire.engine.engine import Engine, Results
 
 S = EngineState
 
@@ -35,14 +35,16 @@ _SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], S
 _SET_CACHE = weakref.WeakKeyDictionary()
 
 
-def build_snapshot(engine: Engine) -> Snapshot:
-    """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...)."""
+def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snapshot:
+    """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...);
+    ``results_shown``: the results to show, when not the engine's results now."""
     store, session_id = engine.store, engine.session_id
     sets: list[SetInfo] = []
     environment: EnvironmentInfo | None = None
     entries: list[EnvironmentInfo] = []
     session: SessionInfo | None = None
-    results, provisional, results_error = engine.results()
+    shown = engine.results() if results_shown is None else results_shown
+    results, provisional, results_error = shown
     if session_id is not None:
         assert engine.plan is not None  # a session is open: its plan is known
         row = store.session(session_id)

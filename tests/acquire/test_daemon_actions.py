@@ -9,10 +9,14 @@ built once (it was built twice, once to publish and once to reply).
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import itertools
 import json
+import time
+from collections.abc import AsyncIterator
 from pathlib import Path
 
+import pytest
 from chargebook.acquire.client import DaemonClient, Notification
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions, InstrumentLink
@@ -20,7 +24,7 @@ from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.protocol import NOTIFY_DELTA, NOTIFY_EVENT, NOTIFY_SNAPSHOT, apply_delta
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic import build_electrometer, load_profile
-from chargebook.drivers_generic.interface import TrafficDirection
+from chargebook.drivers_generic.interface import Sample, TrafficDirection
 
 from tests.acquire.test_engine import small_plan
 
@@ -37,14 +41,16 @@ def daemon_on_file(tmp_path: Path) -> Daemon:
     return daemon
 
 
-def daemon_with_engine(tmp_path: Path) -> Daemon:
+def daemon_with_engine(
+    tmp_path: Path, profile_name: str = "query-plain", plan: object = None
+) -> Daemon:
     """Return a daemon (not running) with its station file, engine and instrument thread (never
     started), wired as ``Daemon.run`` wires them."""
     daemon = daemon_on_file(tmp_path)
     daemon.store.on_events_committed = daemon._emitted.extend
-    profile = load_profile("query-plain")
+    profile = load_profile(profile_name)
     daemon.engine = Engine(
-        daemon.store, capabilities=profile.capabilities, default_plan=small_plan()
+        daemon.store, capabilities=profile.capabilities, default_plan=plan or small_plan()
     )
     electrometer = build_electrometer(profile, port=str(tmp_path / "no-such-port"))
     daemon.link = InstrumentLink(electrometer, lambda kind, payload: None)  # never started
@@ -69,9 +75,9 @@ async def test_an_action_builds_one_snapshot_and_replies_with_the_one_published(
     builds: list[int] = []
     engine_snapshot = daemon.engine.snapshot
 
-    def counted() -> dict:
+    def counted(*results: object) -> dict:
         builds.append(daemon.engine.seq)
-        return engine_snapshot()
+        return engine_snapshot(*results)
 
     daemon.engine.snapshot = counted  # type: ignore[method-assign]  # counts, changes nothing
     await daemon.server.start()
@@ -203,3 +209,107 @@ async def test_subscribers_are_sent_what_changed_and_rebuild_each_snapshot_from_
         await client.close()
         await daemon.server.close()
         daemon.store.close()
+
+
+#: A dialect in which every line the electrometer pushes is a completed reading.
+PUSHED_EVERY_LINE = Path(__file__).parents[1] / "bench" / "profiles" / "pushed-every-line.toml"
+STREAMED_READINGS = 12
+#: One routine set of STREAMED_READINGS pushed readings, no settling reading.
+STREAMED_PLAN = f"""
+name = "streamed"
+description = "One routine set of pushed readings"
+routine_bias_V = 300.0
+
+[[steps]]
+key = "routine"
+purpose = "routine"
+readings = {STREAMED_READINGS}
+mu_per_reading = 1.0
+settling = {{}}
+prompt = "Readings arrive pushed by the electrometer."
+"""
+
+
+async def stream_readings(daemon: Daemon, client: DaemonClient, count: int) -> None:
+    """Open a session on ``daemon``, arm its set and hand it ``count`` completed readings as the
+    instrument thread would, each once the client has seen the one before."""
+    for method, params in ACTIONS[:2]:  # start, air
+        await client.call(method, **params)
+    await client.call("step.manual_done", note="bias set by hand")  # no remote bias here
+    await client.call("step.arm")
+    for number in range(1, count + 1):
+        # invented charges (demo only), received after the reading was armed (daemon's clock)
+        charge_nC = 20.0 + 0.001 * (number % 3)
+        sample = Sample(t_s=time.monotonic(), charge_nC=charge_nC, complete=True)
+        daemon._events.put_nowait(("samples", (daemon._generation, [(sample, None)])))
+        await client.wait_for_snapshot(
+            lambda s, n=number: len((s["current_set"] or s["sets"][-1])["readings"]) >= n, 10
+        )
+
+
+@contextlib.asynccontextmanager
+async def streaming_daemon(tmp_path: Path) -> AsyncIterator[tuple[Daemon, DaemonClient]]:
+    """Yield a daemon serving its socket and taking the instrument's news, whose every pushed
+    line is a completed reading, on a plan of one set of STREAMED_READINGS readings, and a
+    subscribed client of it."""
+    plan = tmp_path / "streamed.toml"
+    plan.write_text(STREAMED_PLAN)
+    daemon = daemon_with_engine(tmp_path, str(PUSHED_EVERY_LINE), str(plan))
+    await daemon.server.start()
+    consumer = asyncio.create_task(daemon._consume_instrument())
+    client = await DaemonClient.connect(daemon.options.socket_path, operator="operator A")
+    try:
+        await client.subscribe()
+        yield daemon, client
+    finally:
+        consumer.cancel()
+        await client.close()
+        await daemon.server.close()
+        daemon.store.close()
+
+
+async def test_a_streamed_reading_is_sent_alone_and_the_results_of_the_whole_set_follow(
+    tmp_path: Path,
+) -> None:
+    async with streaming_daemon(tmp_path) as (daemon, client):
+        raw = await RawSubscriber.connect(daemon.options.socket_path)
+        try:
+            held, _ = await raw.call("subscribe")
+            await stream_readings(daemon, client, STREAMED_READINGS)
+            _, notes = await raw.call("hello")  # every notification so far is in
+            final = await client.call("status")
+        finally:
+            raw.close()
+    deltas = [note["params"] for note in notes if note["method"] == NOTIFY_DELTA]
+    sent_readings = []
+    for delta in deltas:
+        held = apply_delta(held, delta)
+        for change in delta.get("set_changes", []):
+            sent_readings += [reading["seq"] for _position, reading in change["readings_at"]]
+            if change["readings_at"] and held["state"] == "collecting":
+                assert "results" not in delta["changed"]  # they follow in a delta of their own
+    # every reading was sent once, alone: never again with the next ones
+    assert sorted(sent_readings) == list(range(1, STREAMED_READINGS + 1))
+    # the set complete: the snapshot held shows the results of all its readings, at once
+    assert held["state"] == "reviewing" and held == final
+    routine = held["sets"][-1]
+    assert len(routine["readings"]) == STREAMED_READINGS
+    assert routine["stats"]["count"] == STREAMED_READINGS
+    # the raw charge M of the results is the mean of all twelve readings, not of fewer
+    assert held["results"]["M_raw_nC"] == pytest.approx(routine["stats"]["mean_nC"], rel=1e-12)
+
+
+async def test_readings_that_stop_mid_set_get_the_results_of_all_of_them_without_more_input(
+    tmp_path: Path,
+) -> None:
+    async with streaming_daemon(tmp_path) as (daemon, client):
+        await stream_readings(daemon, client, 5)  # then the beam stops: the set is collecting
+
+        def all_five_in_results(snapshot: dict) -> bool:
+            readings = snapshot["current_set"]["readings"]
+            mean_nC = sum(r["charge_nC"] for r in readings) / len(readings)
+            raw_nC = (snapshot["results"] or {}).get("M_raw_nC")
+            return len(readings) == 5 and raw_nC == pytest.approx(mean_nC, rel=1e-12)
+
+        held = await client.wait_for_snapshot(all_five_in_results, 10)
+    assert held["state"] == "collecting" and held["results_provisional"] is True

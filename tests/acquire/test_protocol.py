@@ -103,7 +103,8 @@ def test_a_delta_carries_only_what_changed_and_rebuilds_the_next_snapshot():
     delta = protocol.snapshot_delta(old, new)
     assert delta["base_seq"] == 7 and delta["seq"] == 9
     assert delta["changed"] == {}  # state and results as before
-    assert [entry["id"] for entry in delta["sets"]] == [500]
+    assert delta["sets"] == []  # no new set
+    assert [change["id"] for change in delta["set_changes"]] == [500]
     assert len(protocol.encode_from_daemon(delta)) < 300  # not the 500 sets
     rebuilt = protocol.apply_delta(old, json.loads(json.dumps(delta)))
     assert rebuilt == new
@@ -121,6 +122,7 @@ def test_the_current_set_is_sent_once_and_is_the_very_set_among_the_sets():
     delta = protocol.snapshot_delta(old, new)
     assert "current_set" not in delta["changed"] and delta["current_set_id"] == 4
     assert protocol.encode_from_daemon(delta).count(b"20.04") == 1
+    assert b"20.03" not in protocol.encode_from_daemon(delta)  # the reading held is not resent
     rebuilt = protocol.apply_delta(old, json.loads(json.dumps(delta)))
     assert rebuilt == new
     assert rebuilt["current_set"] is rebuilt["sets"][-1]
@@ -134,3 +136,50 @@ def test_a_delta_of_another_session_sends_its_sets_whole_and_a_missed_delta_is_n
     assert protocol.apply_delta(old, delta) == new
     with pytest.raises(protocol.DeltaGap, match="applies to snapshot 4, not to 3"):
         protocol.apply_delta(old, protocol.snapshot_delta(new, new | {"seq": 5}))
+
+
+def _reading(set_id: int, seq: int, charge_nC: float, flags: list | None = None) -> dict:
+    return {"id": 1000 * set_id + seq, "seq": seq, "charge_nC": charge_nC, "flags": flags or []}
+
+
+def test_a_reading_added_to_a_long_set_sends_that_reading_and_the_sets_statistics_only():
+    # invented readings, for the shape of the message only
+    held = [_reading(7, seq, 20.0 + 0.001 * seq) for seq in range(1, 60)]
+    old_set = {"id": 7, "status": "collecting", "readings": held, "stats": {"mean_nC": 20.03}}
+    new_reading = _reading(7, 60, 20.06)
+    new_set = {**old_set, "readings": [*held, new_reading], "stats": {"mean_nC": 20.0305}}
+    old = {**_snapshot(11, [old_set]), "current_set": old_set}
+    new = {**_snapshot(12, [new_set]), "current_set": new_set}
+    delta = json.loads(json.dumps(protocol.snapshot_delta(old, new)))
+    assert delta["sets"] == [] and delta["current_set_id"] == 7
+    (change,) = delta["set_changes"]
+    assert change["changed"] == {"stats": {"mean_nC": 20.0305}}
+    assert change["readings_count"] == 60
+    assert change["readings_at"] == [[59, new_reading]]  # the new reading, none of the 59 held
+    rebuilt = protocol.apply_delta(old, delta)
+    assert rebuilt == new and rebuilt["current_set"] is rebuilt["sets"][0]
+    assert rebuilt["sets"][0]["readings"][0] is held[0]  # readings held are kept, not resent
+
+
+def test_a_reading_whose_flags_changed_is_sent_again_by_its_position():
+    # invented readings: a third reading makes the first an outlier (its flags change)
+    first, second = _reading(3, 1, 20.0), _reading(3, 2, 20.01)
+    flagged = {**first, "flags": [{"code": "outlier", "message": "x", "severity": "warning"}]}
+    third = _reading(3, 3, 20.011)
+    old = _snapshot(4, [{"id": 3, "readings": [first, second]}])
+    new = _snapshot(5, [{"id": 3, "readings": [flagged, second, third]}])
+    delta = protocol.snapshot_delta(old, new)
+    assert delta["set_changes"][0]["readings_at"] == [(0, flagged), (2, third)]
+    assert protocol.apply_delta(old, json.loads(json.dumps(delta))) == new
+
+
+def test_a_set_change_that_does_not_fit_the_set_held_is_a_gap_not_a_wrong_set():
+    # invented readings: the client holds a set with one reading fewer than the delta expects
+    held = _snapshot(4, [{"id": 3, "readings": [_reading(3, 1, 20.0)]}])
+    change = {"id": 3, "changed": {}, "readings_count": 3, "readings_at": [[2, _reading(3, 3, 1)]]}
+    delta = {"seq": 5, "base_seq": 4, "changed": {}, "sets": [], "set_changes": [change]}
+    with pytest.raises(protocol.DeltaGap, match="set 3"):
+        protocol.apply_delta(held, delta)
+    unknown = {**delta, "set_changes": [{**change, "id": 9}]}
+    with pytest.raises(protocol.DeltaGap, match="set 9, which is not held"):
+        protocol.apply_delta(held, unknown)

@@ -527,7 +527,7 @@ async def test_the_setup_form_takes_the_certificates_k_and_your_own_uncertainty_
     assert checked.u_electrometer_resolution_pct == 0.05
 
 
-async def test_a_delta_that_changes_only_the_set_in_progress_redraws_neither_history_nor_plan(
+async def test_a_delta_that_changes_only_the_set_in_progress_redraws_no_hidden_tab(
     monkeypatch,
 ):
     from chargebook.acquire.protocol import apply_delta, snapshot_delta
@@ -556,15 +556,18 @@ async def test_a_delta_that_changes_only_the_set_in_progress_redraws_neither_his
     async with app.run_test(size=SIZE) as pilot:
         await pilot.press("3")  # the plan tab, so the plan is drawn
         await pilot.pause()
-        assert drawn == {"history": 1, "plan": 1}
+        assert drawn == {"history": 0, "plan": 1}  # the history's tab is hidden
         screen = app.screen
         screen.show(apply_delta(before, snapshot_delta(before, after)), screen.link)
         await pilot.pause()
-        assert drawn == {"history": 2, "plan": 1}  # the set grew: its history row is new
+        assert drawn == {"history": 0, "plan": 1}  # the plan did not change
+        await pilot.press("2")  # the history's tab: drawn as it is shown, with the grown set
+        await pilot.pause()
+        assert drawn == {"history": 1, "plan": 1}
         shown = apply_delta(screen.snapshot, snapshot_delta(screen.snapshot, after | {"seq": 99}))
         screen.show(shown, screen.link)
         await pilot.pause()
-        assert drawn == {"history": 2, "plan": 1}  # nothing of them changed: not drawn again
+        assert drawn == {"history": 1, "plan": 1}  # nothing of them changed: not drawn again
 
 
 async def test_a_screen_being_taken_down_ignores_a_late_snapshot():
@@ -577,3 +580,70 @@ async def test_a_screen_being_taken_down_ignores_a_late_snapshot():
         screen.show(load_snapshot("reviewing_spike"), screen.link)  # raised NoMatches
         await pilot.pause()
         assert screen.snapshot == load_snapshot("reviewing_spike")
+
+
+def _with_readings(before: dict, charges_nC: list[float], needed: int) -> dict:
+    """Return ``before`` (a collecting snapshot) whose set in progress has these readings more
+    (the fixture's invented charges continued, for the shape only) and needs ``needed``."""
+    current = before["current_set"]
+    held = current["readings"]
+    added = [
+        {**held[-1], "id": 1000 + n, "seq": len(held) + n, "label": str(len(held) + n - 1)}
+        | {"charge_nC": charge_nC}
+        for n, charge_nC in enumerate(charges_nC, start=1)
+    ]
+    done = current["readings_done"] + len(added)
+    grown = {**current, "readings": [*held, *added], "readings_done": done}
+    grown["readings_needed"] = needed
+    after = {**before, "seq": before["seq"] + len(added), "current_set": grown}
+    after["sets"] = [grown if entry["id"] == grown["id"] else entry for entry in before["sets"]]
+    return after
+
+
+async def test_a_new_reading_takes_its_line_in_the_rows_kept_for_the_set_and_stays_in_sight():
+    from chargebook.acquire.protocol import apply_delta, snapshot_delta
+    from chargebook.tui.widgets.reading_lines import ReadingLines
+
+    before = _with_readings(load_snapshot("collecting"), [], needed=12)
+    app = ScreenHarness(MeasureScreen, before)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        lines = app.screen.query_one(ReadingLines)
+        assert lines.rows == 13  # twelve readings and the settling one: kept from the start
+        held = before
+        for count in range(3, 13):  # readings 3 to 12 arrive one by one
+            after = _with_readings(held, [18.53 + 0.0001 * count], needed=12)
+            app.screen.show(apply_delta(held, snapshot_delta(held, after)), app.screen.link)
+            held = after
+            await pilot.pause()
+            assert lines.rows == 13  # the same height: no new layout for a reading
+            shown = screen_text(app)
+            assert f"  {count}    {18.53 + 0.0001 * count:.4f}  auto" in shown  # in sight
+        assert "12 of 12 readings (+1 settling)" in " ".join(shown.split())
+
+
+async def test_the_flags_tab_is_drawn_when_shown_not_at_every_reading(monkeypatch):
+    from chargebook.tui.widgets import flag_list
+
+    drawn: list[str] = []
+    flag_text = flag_list.flag_text
+
+    def counted(*args):  # counts, changes nothing
+        drawn.append(text := flag_text(*args))
+        return text
+
+    monkeypatch.setattr(flag_list, "flag_text", counted)
+    before = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, before)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        for count in (3, 4):
+            app.screen.show(
+                _with_readings(before, [18.53] * (count - 2), needed=4), app.screen.link
+            )
+            await pilot.pause()
+        assert drawn == []  # the flags tab is hidden
+        await pilot.press("4")
+        await pilot.pause()
+        assert len(drawn) == 1 and "The routine set has 2 readings" in drawn[0]
+        assert "The routine set has 2 readings" in " ".join(screen_text(app).split())

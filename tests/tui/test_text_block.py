@@ -1,25 +1,73 @@
-"""When a changed text may skip Textual's layout: only when it keeps its height."""
+"""When a changed text may skip Textual's layout: only when it keeps its height, as Textual
+wraps it at the widget's width; and no line of the new text is ever cut off."""
 
-from chargebook.tui.widgets.text_block import same_height
+from __future__ import annotations
 
+from chargebook.tui.widgets.text_block import TextBlock
+from screen_text import screen_text
+from textual.app import App, ComposeResult
 
-def test_same_line_count_and_every_line_narrower_than_the_widget_keeps_the_height() -> None:
-    assert same_height("12 of 100 readings\nok", "13 of 100 readings\nok", 38)
-
-
-def test_another_line_count_needs_a_layout() -> None:
-    assert not same_height("ok", "ok\n#3 ! outlier", 38)
-
-
-def test_a_line_that_could_wrap_needs_a_layout() -> None:
-    assert not same_height("short", "x" * 38, 38)  # exactly the width: may wrap, be safe
-    assert not same_height("x" * 40, "short", 38)  # the old text wrapped
+WIDTH = 20
 
 
-def test_wide_characters_count_by_their_cells() -> None:
-    assert not same_height("ab", "表表", 4)  # two cells each: four cells in a 4-cell widget
-    assert same_height("a · b", "c · d", 6)
+class OneBlock(App[None]):
+    """A TextBlock 20 cells wide, counting the layouts it asks for."""
+
+    CSS = f"TextBlock {{ width: {WIDTH}; height: auto; }}"
+
+    def __init__(self, first: str) -> None:
+        super().__init__()
+        self.first = first
+        self.layouts = 0
+
+    def compose(self) -> ComposeResult:
+        yield TextBlock(self.first, id="block")
+
+    def count_layouts(self) -> TextBlock:
+        block = self.query_one("#block", TextBlock)
+        refresh = block.refresh
+
+        def counted(*regions, **options):
+            self.layouts += bool(options.get("layout"))
+            return refresh(*regions, **options)
+
+        block.refresh = counted  # type: ignore[method-assign]  # counts, changes nothing
+        return block
 
 
-def test_a_widget_not_laid_out_yet_needs_a_layout() -> None:
-    assert not same_height("a", "b", 0)
+async def shown(first: str, then: str) -> tuple[int, list[str]]:
+    """Show ``first``, then ``then``; return (layouts asked for by ``then``, screen lines)."""
+    app = OneBlock(first)
+    async with app.run_test(size=(40, 8)) as pilot:
+        await pilot.pause()
+        block = app.count_layouts()
+        block.show(then)
+        await pilot.pause()
+        lines = [line.rstrip() for line in screen_text(app).splitlines()]
+    return app.layouts, [line for line in lines if line]
+
+
+async def test_a_wrapped_text_whose_figures_change_keeps_its_height_without_a_layout() -> None:
+    # 36 characters: two lines at 20 cells, before and after
+    layouts, lines = await shown(
+        "12 of 100 readings · mean 20.01 nC", "13 of 100 readings · mean 20.02 nC"
+    )
+    assert layouts == 0
+    assert lines == ["13 of 100 readings ·", "mean 20.02 nC"]
+
+
+async def test_a_text_that_wraps_to_more_lines_is_laid_out_and_shown_whole() -> None:
+    layouts, lines = await shown("ok", "#3 ! outlier: look for a spike before accepting")
+    assert layouts >= 1
+    assert " ".join(lines) == "#3 ! outlier: look for a spike before accepting"
+
+
+async def test_wide_characters_count_by_their_cells() -> None:
+    # ten two-cell characters fill 20 cells; eleven take a second line
+    layouts, lines = await shown("表" * 10, "表" * 11)
+    assert layouts >= 1 and lines == ["表" * 10, "表"]
+
+
+async def test_the_same_text_again_draws_nothing() -> None:
+    layouts, lines = await shown("ok", "ok")
+    assert layouts == 0 and lines == ["ok"]

@@ -98,19 +98,14 @@ class MeasureScreen(ConsoleScreen):
         step_panel.snapshot = snapshot
         self.show_air()
         self.query_one(ReadingSetPanel).set_info = shown_set
-        self.query_one(FlagList).show_flags(shown_set, snapshot)
+        tabs = self.query_one(TabbedContent)
+        self._draw_tab(tabs.active, snapshot)
         count = flag_count(shown_set, snapshot)
         label = f"{TABS[3][2]} ({count} !)" if count else TABS[3][2]
-        tab = self.query_one(TabbedContent).get_tab("flags")
+        tab = tabs.get_tab("flags")
         if str(tab.label) != label:
             tab.label = label
         self.query_one(ResultsPanel).snapshot = snapshot
-        # the history and the plan grow with the session: drawn again only when the daemon
-        # sent them anew (a part the daemon did not change is the very object drawn before)
-        if self._part_is_new("sets", snapshot):
-            self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
-        if self._part_is_new("plan", snapshot):
-            self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
         action_bar = self.query_one(ActionBar)
         action_bar.display = not self.watching  # a watching console offers no action
         action_bar.show_allowed(self.allowed())
@@ -150,6 +145,24 @@ class MeasureScreen(ConsoleScreen):
     @on(ActionRequested)
     async def button_action(self, message: ActionRequested) -> None:
         await self.run_action(f"do('{message.name}')")
+
+    def _draw_tab(self, tab: str | None, snapshot: dict[str, Any]) -> None:
+        """Draw the tab ``tab`` (the one shown) from ``snapshot``; the other tabs are drawn
+        when they are shown, not at every reading. The history and the plan grow with the
+        session: drawn again only when the daemon sent them anew (a part the daemon did not
+        change is the very object drawn before)."""
+        if tab == "sets" and self._part_is_new("sets", snapshot):
+            self.query_one(SetHistory).show_sets(snapshot.get("sets") or [])
+        elif tab == "plan" and self._part_is_new("plan", snapshot):
+            self.query_one(PlanView).show_plan(snapshot.get("plan") or [])
+        elif tab == "flags":
+            self.query_one(FlagList).show_flags(self._shown_set(snapshot), snapshot)
+
+    @on(TabbedContent.TabActivated)
+    def tab_shown(self, event: TabbedContent.TabActivated) -> None:
+        """Draw a tab as it is shown from the latest snapshot (it was not drawn while hidden)."""
+        if self.snapshot is not None and event.pane.id is not None:
+            self._draw_tab(event.pane.id, self.snapshot)
 
     def action_show_tab(self, tab: str) -> None:
         """Show one of the tabs: the set now, the history of sets, or the plan."""

@@ -9,7 +9,7 @@ from chargebook.tui import snapshot_view, text
 from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
-from textual.containers import Vertical, VerticalScroll
+from textual.containers import Vertical
 from textual.reactive import reactive
 
 #: The readings' columns: heading, least width in characters, aligned right?
@@ -35,6 +35,16 @@ def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
         str(reading.get("capture") or ""),
         marker,
     )
+
+
+def rows_for(set_info: dict[str, Any] | None) -> int:
+    """Return how many lines the set's readings will take when it is complete: the readings it
+    needs and the settling readings taken so far (or the readings it holds, if more)."""
+    if not set_info:
+        return 0
+    readings = set_info.get("readings", [])
+    settling = sum(1 for reading in readings if reading.get("settling"))
+    return max(len(readings), int(set_info.get("readings_needed") or 0) + settling)
 
 
 def readings_lines(set_info: dict[str, Any] | None) -> list[str]:
@@ -76,29 +86,40 @@ def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
 
 class ReadingSetPanel(Vertical):
     """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
-    relative SD, flags."""
+    relative SD, flags.
+
+    The readings' area keeps a line for every reading the set will hold, so a new reading is
+    drawn in its own line without laying the screen out again; the area follows the newest
+    reading. The set's flags sit under it, worst first, in a box of a few lines that scrolls
+    (every flag in full: tab 4).
+    """
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
 
     def compose(self) -> ComposeResult:
         yield TextBlock(id="set-title", classes="panel-title")
-        with VerticalScroll(id="readings-scroll"):
-            yield ReadingLines(id="readings-table")
-            yield TextBlock(id="set-flags")
+        yield TextBlock(id="readings-heading")
+        yield ReadingLines(id="readings-table")
+        yield ReadingLines(id="set-flags", follow=False, wrap=True)
         yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
         if set_info == self._shown_set and self._shown_set is not None:
             return  # the same set, the same readings: nothing to redraw
+        another_set = (set_info or {}).get("id") != (self._shown_set or {}).get("id")
         self._shown_set = set_info
         title = "No reading set yet"
         if set_info:
             status = text.set_status(set_info["status"])
             title = f"{snapshot_view.set_title(set_info)}: {status}"
         self.query_one("#set-title", TextBlock).show(title)
-        self.query_one(ReadingLines).show_lines(readings_lines(set_info))
+        heading, *lines = readings_lines(set_info)
+        self.query_one("#readings-heading", TextBlock).show(heading)
+        self.query_one("#readings-table", ReadingLines).show_lines(
+            lines, rows_for(set_info), another=another_set
+        )
         charges = snapshot_view.set_charges_nC(set_info)
         mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
         bars = text.deviation_bars(charges, mean_nC)
@@ -108,4 +129,4 @@ class ReadingSetPanel(Vertical):
         self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )
-        self.query_one("#set-flags", TextBlock).show("\n".join(reading_flag_lines(set_info)))
+        self.query_one("#set-flags", ReadingLines).show_lines(reading_flag_lines(set_info))

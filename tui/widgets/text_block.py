@@ -2,9 +2,9 @@
 
 Every ``Static.update`` asks Textual for a new layout of the screen; at 50 readings a second
 most parts of a snapshot are the same as in the one before, so drawing them again only costs
-the console time it needs for the parts that did change. When only the wording of plain text
-changes (a count, a mean, a flag's figures) and every line, old and new, fits the widget's
-width, the text keeps its height, so the screen needs no new layout, only a repaint.
+the console time it needs for the parts that did change. When only the wording changes (a
+count, a mean, a flag's figures) and the new text, wrapped as Textual wraps it at the widget's
+width, takes as many screen lines as the old, the screen needs no new layout, only a repaint.
 """
 
 from __future__ import annotations
@@ -16,19 +16,6 @@ from rich.cells import cell_len
 from textual.widgets import Static
 
 
-def same_height(old: str, new: str, width_cells: int) -> bool:
-    """Return whether plain text ``new`` takes as many screen lines as ``old`` at ``width_cells``.
-
-    True only when both have the same number of lines and no line of either could wrap (a
-    line exactly as wide as the widget is counted as possibly wrapping, to be safe).
-    """
-    old_lines = old.split("\n")
-    new_lines = new.split("\n")
-    if width_cells <= 0 or len(old_lines) != len(new_lines):
-        return False
-    return all(cell_len(line) < width_cells for line in (*old_lines, *new_lines))
-
-
 class TextBlock(Static):
     """Static text (never markup) that is replaced only when it differs from what is shown."""
 
@@ -36,21 +23,45 @@ class TextBlock(Static):
         kwargs.setdefault("markup", False)
         super().__init__(content, **kwargs)
         self._shown_from: object = content
+        self._content: Any = content  # what is shown (what ``show_built`` built)
+        self._height = (0, 0)  # (width, height in screen lines) of what is shown, measured
 
     def show(self, content: str) -> None:
         """Show ``content`` unless it is exactly what is on screen already."""
         if content == self._shown_from:
             return
-        shown = self._shown_from
         self._shown_from = content
-        keeps_height = isinstance(shown, str) and same_height(
-            shown, content, self.content_size.width
-        )
-        self.update(content, layout=not keeps_height)
+        self._replace(content)
 
     def show_built(self, source: Hashable | object, build: Callable[[], Any]) -> None:
         """Show ``build()`` (e.g. a Rich table) unless ``source``, what it is built from, is
         equal to the source of what is on screen already."""
         if source != self._shown_from:
             self._shown_from = source
-            self.update(build())
+            self._replace(build())
+
+    def _replace(self, content: Any) -> None:
+        """Show ``content``; lay the screen out again only when its height in screen lines, at
+        the widget's width, is not the height of what it replaces (or the widget has no width
+        yet): Textual's own measure of both, so no line is ever cut off."""
+        width = self.content_size.width
+        before = self._height
+        if before[0] != width:  # not measured at this width yet: the content on show now
+            before = (width, self._measure(self._content, width))
+        self._content = content
+        self.update(content, layout=False)
+        self._height = (width, self._measure(content, width))
+        if width <= 0 or self._height != before:  # another width is another height, to be safe
+            self.refresh(layout=True)
+
+    def _measure(self, content: Any, width: int) -> int:
+        """Return the height of ``content``, the one shown, in screen lines at ``width`` (0: no
+        width): its count of lines when it is plain text none of whose lines can wrap (the
+        cheap case: a count, a mean), else as Textual wraps it."""
+        if width <= 0:
+            return 0
+        if isinstance(content, str):
+            lines = content.split("\n")
+            if all(cell_len(line) < width for line in lines):
+                return len(lines)
+        return self.visual.get_height(self.styles, width)
