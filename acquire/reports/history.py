@@ -26,6 +26,7 @@ from chargebook.acquire.record.review import UNREVIEWED, review_status
 from chargebook.acquire.record.store import NotFound, SessionRow, Store
 from chargebook.acquire.reports.data import SessionRecord, load_record
 from chargebook.acquire.reports.sections import Table, number, signed, when
+from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
 from chargebook.acquire.session.metadata import action_level_pct
 from chargebook.corrections import dose, limits
@@ -92,20 +93,6 @@ class History:
         """Return the tolerance of the latest session with one (for drawing the band)."""
         known = [p.tolerance_pct for p in self.points if p.tolerance_pct is not None]
         return known[-1] if known else None
-
-
-def _same(a: object, b: str) -> bool:
-    return isinstance(a, str) and " ".join(a.split()).casefold() == " ".join(b.split()).casefold()
-
-
-def matches(row: SessionRow, beam: str | None, machine: str | None) -> bool:
-    """Return True when the session measured ``beam`` on ``machine`` (None: any).
-
-    Names compare without regard to case or repeated spaces ("6 mv" is "6 MV").
-    """
-    meta = row.metadata()
-    beam_ok = beam is None or _same(meta.get("beam"), beam) or _same(row.beam, beam)
-    return beam_ok and (machine is None or _same(meta.get("treatment_machine"), machine))
 
 
 def parse_baseline(text: str) -> str | int | float:

@@ -7,7 +7,7 @@ import textwrap
 from collections.abc import Sequence
 from dataclasses import replace
 
-from chargebook.acquire.reports.sections import Table
+from chargebook.acquire.reports.table import Table
 
 #: Control characters (C0 but tab and newline, DEL, C1) mapped to visible ``\\xNN`` escapes.
 _CONTROL_ESCAPES = {
@@ -23,6 +23,8 @@ def printable(text: str) -> str:
     Stored text (an operator's comment, a metadata field, an instrument's identity) may hold
     terminal escape sequences; printed raw they could rewrite what a reader sees.
     """
+    if text.isascii() and text.isprintable():
+        return text  # the common case, tested in C: nothing to escape
     return text.translate(_CONTROL_ESCAPES)
 
 
@@ -42,9 +44,10 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
     )
     lines = [table.title, "-" * len(table.title)] if title else []
     if table.rows:
-        widths = [len(h) for h in table.headers]
-        for row in table.rows:
-            widths = [max(w, len(cell)) for w, cell in zip(widths, row, strict=True)]
+        columns = zip(*table.rows, strict=True)
+        widths = [
+            max(len(h), *map(len, column)) for h, column in zip(table.headers, columns, strict=True)
+        ]
         if width is not None:
             longest_words = [
                 max((len(word) for row in table.rows for word in row[i].split()), default=0)
@@ -107,6 +110,8 @@ def _fit_widths(
 
 def _wrapped_row(cells: Sequence[str], widths: Sequence[int]) -> list[str]:
     """Return one row as one or more lines, each cell wrapped to its column's width."""
+    if all(len(cell) <= w for cell, w in zip(cells, widths, strict=True)):
+        return [_row(cells, widths)]  # the common case: every cell fits on one line
     columns = [
         textwrap.wrap(cell, w, break_long_words=False) or [""] if len(cell) > w else [cell]
         for cell, w in zip(cells, widths, strict=True)
