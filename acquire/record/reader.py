@@ -53,6 +53,11 @@ class RecordReader(Protocol):
         """Return the events of one kind by session id (None: outside any session)."""
         ...
 
+    def session_results(self) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions: session id -> (evaluation stamp, JSON);
+        a record that keeps none returns {} (each session is then evaluated live)."""
+        ...
+
     def readings_by_set(self, session_id: int) -> dict[int, tuple[store.ReadingRow, ...]]:
         """Return the session's readings by set id, oldest first within a set."""
         ...

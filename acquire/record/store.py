@@ -486,6 +486,10 @@ class Store:
         self._events_in_flight: list[EventRow] = []  # written in the open transaction
         #: Per session, its sets and readings as last read (None: not kept; remember_rows).
         self._known: dict[int, _KnownRows] | None = None
+        #: Called inside the transaction that closes a session (its status leaves open): the
+        #: session's evaluated result as (evaluation stamp, JSON), kept in ``session_results``
+        #: (``acquire.session.stored_result.stored_row``). None: no result is kept.
+        self.results_on_close: Callable[[Store, int], tuple[str, str]] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -952,6 +956,37 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+            if status == "open":  # resumed: what it recorded before is no longer its result
+                self.db.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
+            elif self.results_on_close is not None:
+                self.put_session_result(session_id, *self.results_on_close(self, session_id))
+
+    def put_session_result(self, session_id: int, stamp: str, result_json: str) -> None:
+        """Keep a closed session's evaluated result (replacing the one kept), with the stamp of
+        the evaluation that computed it (``acquire.session.stored_result``)."""
+        with self.atomic():
+            self._one(SessionRow, "sessions", session_id, "session")
+            self.db.execute(
+                "INSERT OR REPLACE INTO session_results "
+                "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
+                (session_id, _require_text("stamp", stamp), result_json, self._stamp()),
+            )
+
+    def session_results(self) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions: session id -> (stamp, JSON)."""
+        rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
+
+    def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
+        """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
+        or was computed by another evaluation than ``stamp``."""
+        rows = self.read(
+            "SELECT s.id FROM sessions s LEFT JOIN session_results r ON r.session_id = s.id "
+            "WHERE s.status != 'open' AND (r.stamp IS NULL OR r.stamp != ?) "
+            "ORDER BY s.id LIMIT ?",
+            (stamp, limit),
+        )
+        return [int(session_id) for (session_id,) in rows]
 
     def station(self) -> StationRow:
         """Return the station that keeps this file (its UUID and name)."""
