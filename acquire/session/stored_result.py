@@ -18,6 +18,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import json
+import uuid
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -100,17 +101,26 @@ def evaluation_stamp() -> str:
     even one that leaves every result as it was, changes it: the stored rows are then
     evaluated again rather than trusted."""
     digest = hashlib.sha256()
-    for path in _source_files():
-        digest.update(path.relative_to(_ROOT).as_posix().encode() + b"\0")
-        digest.update(path.read_bytes() + b"\0")
+    try:
+        for path in _source_files():
+            digest.update(path.relative_to(_ROOT).as_posix().encode() + b"\0")
+            digest.update(path.read_bytes() + b"\0")
+    except OSError:
+        # No source to stamp (an installation without .py files): a stamp of this process
+        # alone, so that no stored result is trusted, and none this process stores ever is.
+        return f"unstamped-{uuid.uuid4()}"
     return digest.hexdigest()
 
 
 def _source_files() -> list[Path]:
+    """Return the source files of :data:`EVALUATION_SOURCES`; OSError when one is missing."""
     files: list[Path] = []
     for name in EVALUATION_SOURCES:
         path = _ROOT / name
-        files += sorted(path.rglob("*.py")) if path.is_dir() else [path]
+        found = sorted(path.rglob("*.py")) if path.is_dir() else [path]
+        if not found or not all(f.is_file() for f in found):
+            raise FileNotFoundError(f"no evaluation source at {path}")
+        files += found
     return files
 
 

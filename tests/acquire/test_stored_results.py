@@ -121,6 +121,15 @@ def test_the_evaluation_stamp_changes_with_the_source_of_the_evaluation(
     assert stamp() == copied
 
 
+def test_without_the_evaluation_source_no_stored_result_is_ever_trusted(
+    tmp_path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setattr(stored_result, "_ROOT", tmp_path)  # an installation without .py files
+    stamp = stored_result.evaluation_stamp.__wrapped__
+    first, second = stamp(), stamp()
+    assert first != second and first.startswith("unstamped-")
+
+
 def test_resuming_an_interrupted_session_drops_its_kept_result(tmp_path) -> None:
     with Store.open(tmp_path / "station.sqlite") as store:
         store.results_on_close = stored_row
