@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 import textwrap
 from collections.abc import Sequence
 from dataclasses import replace
@@ -15,6 +16,10 @@ _CONTROL_ESCAPES = {
     for code in (*range(0x20), 0x7F, *range(0x80, 0xA0))
     if code not in (0x09, 0x0A)
 }
+
+
+#: Any character :func:`printable` escapes.
+_CONTROL = re.compile("[" + "".join(re.escape(chr(code)) for code in _CONTROL_ESCAPES) + "]")
 
 
 def printable(text: str) -> str:
@@ -35,11 +40,14 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
     With ``width`` (characters, e.g. the terminal's), a table wider than that has its widest
     columns wrapped onto continuation lines, and the note is wrapped, so no line runs past it.
     """
+    rows = table.rows
+    if _CONTROL.search("\t".join("\t".join(row) for row in rows)):  # else nothing to escape
+        rows = tuple(tuple(printable(cell) for cell in row) for row in rows)
     table = replace(
         table,
         title=printable(table.title),
         headers=tuple(printable(h) for h in table.headers),
-        rows=tuple(tuple(printable(cell) for cell in row) for row in table.rows),
+        rows=rows,
         note=printable(table.note),
     )
     lines = [table.title, "-" * len(table.title)] if title else []
@@ -59,8 +67,11 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
         else:
             lines += _wrapped_row(table.headers, widths)
             lines.append(_row(tuple("-" * w for w in widths), widths))
-            for row in table.rows:
-                lines += _wrapped_row(row, widths)
+            if width is None:  # each column as wide as its widest cell: no cell wraps
+                lines += [_row(row, widths) for row in table.rows]
+            else:
+                for row in table.rows:
+                    lines += _wrapped_row(row, widths)
     if table.note:
         lines += textwrap.wrap(table.note, width) if width is not None else [table.note]
     return "\n".join(lines)
