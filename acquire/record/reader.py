@@ -41,6 +41,11 @@ class RecordReader(Protocol):
         """Return the session's readings (of one set if ``set_id`` is given)."""
         ...
 
+    def session_names(self) -> dict[int, dict[str, str | None]]:
+        """Return, per session id, the machine, beam and operator its metadata names (the keys
+        it holds of ``store.NAMED_KEYS``); a session left out is read from its metadata."""
+        ...
+
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted)."""
         ...

@@ -26,7 +26,7 @@ from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
 from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
-from chargebook.acquire.reports.session_filter import matches, matching_metadata
+from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
 from chargebook.acquire.session.metadata import action_level_pct
@@ -265,9 +265,13 @@ def load_history_across(
             for row in store.sessions()
             if include_all or (row.status == "finished" and row.replay_of is None)
         ]
-        if here is None:
-            found = ((row, matching_metadata(row, beam, machine)) for row in listed)
-            rows = [(row, meta) for row, meta in found if meta is not None]
+        if here is None:  # matched on the names, read without decoding each one's metadata
+            names = store.session_names()
+            rows = [
+                (row, row.metadata())
+                for row in listed
+                if matches(row, beam, machine, names.get(row.id))
+            ]
         else:
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]

@@ -129,10 +129,15 @@ def evaluate_summary(store: RecordReader, session_id: int) -> ResultSummary:
     return summarize(evaluate_session(store, session_id))
 
 
-def stored_row(store: RecordReader, session_id: int) -> tuple[str, str]:
+def stored_row(store: RecordReader, session_id: int) -> tuple[str, str] | None:
     """Return (stamp, JSON) of the session's result as the store keeps it: what a store calls,
-    inside the transaction that closes a session (``Store.results_on_close``)."""
-    return evaluation_stamp(), evaluate_summary(store, session_id).to_json()
+    inside the transaction that closes a session (``Store.results_on_close``). None, and
+    nothing kept, when the evaluation fails unexpectedly: the session still closes, and is
+    evaluated live (where the failure shows) until a refresh."""
+    try:
+        return evaluation_stamp(), evaluate_summary(store, session_id).to_json()
+    except Exception:  # a bug in the evaluation must not undo the operator's close
+        return None
 
 
 def results_of(store: RecordReader, session_ids: Iterable[int]) -> dict[int, ResultSummary]:

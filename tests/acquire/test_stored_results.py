@@ -142,6 +142,23 @@ def test_resuming_an_interrupted_session_drops_its_kept_result(tmp_path) -> None
         assert store.session_results() == {}
 
 
+def test_a_failing_evaluation_never_stops_a_session_from_closing(
+    tmp_path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    def broken(store: object, session_id: int) -> ResultSummary:
+        raise RuntimeError("a bug in the evaluation")
+
+    monkeypatch.setattr(stored_result, "evaluate_summary", broken)
+    with Store.open(tmp_path / "station.sqlite") as store:
+        store.results_on_close = stored_row
+        session_id = store.create_session(
+            demo_metadata(), {"steps": []}, "TRS-398", BEAM, actor="operator A"
+        )
+        store.set_session_status(session_id, "finished", "plan complete")
+        assert store.session(session_id).status == "finished"
+        assert store.session_results() == {}  # nothing kept: evaluated live, where it shows
+
+
 def test_verify_names_a_kept_result_that_no_longer_equals_a_fresh_evaluation(
     unkept, tmp_path, capsys: pytest.CaptureFixture[str]
 ) -> None:
