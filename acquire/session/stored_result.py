@@ -5,10 +5,10 @@ of seconds. So when a session closes, the store writes its :class:`ResultSummary
 ``history`` shows of it: dose per MU, expected, deviation, tolerance, U, flags, or why there
 is no result) in the same transaction, computed by :func:`evaluate_session`, and stamped with
 :func:`evaluation_stamp`: a digest of the source of everything that evaluation runs
-(``corrections/``, ``acquire/session/`` and the store's rows). A row whose stamp is not the
-running code's is never used: that session is evaluated again, live (correct, slower), until
-the daemon refreshes the row (:func:`refresh_results`). A stored float is written with
-``repr`` (JSON), so it reads back as the same float, bit for bit.
+(``corrections/``, ``acquire/session/``, the store's rows and the event kinds). A row whose
+stamp is not the running code's is never used: that session is evaluated again, live (correct,
+slower), until the daemon refreshes the row (:func:`refresh_results`). A stored float is
+written with ``repr`` (JSON), so it reads back as the same float, bit for bit.
 
 Nothing here computes physics.
 """
@@ -35,6 +35,7 @@ EVALUATION_SOURCES = (
     "acquire/session",
     "acquire/record/store.py",
     "acquire/record/reader.py",
+    "acquire/record/events.py",  # the detail shapes the evaluation reads from events
 )
 
 
