@@ -70,14 +70,11 @@ def _history(stores: Sequence[RecordReader], args: argparse.Namespace) -> int:
 
     from chargebook.acquire.commands.station_reader import write_output
     from chargebook.acquire.protocol import CAUTION
-    from chargebook.acquire.reports.data import plain
-    from chargebook.acquire.reports.export import chargebook_version, generated_at
     from chargebook.acquire.reports.history import (
         history_table,
         load_history_across,
         plot_labels,
     )
-    from chargebook.acquire.reports.html import history_html
     from chargebook.acquire.reports.text import deviation_plot, table_text
 
     history = load_history_across(stores, args.beam, args.machine, args.baseline, args.all)
@@ -88,10 +85,15 @@ def _history(stores: Sequence[RecordReader], args: argparse.Namespace) -> int:
     if args.html is not None:
         print("chargebook history: --html FILE is now --format html -o FILE", file=sys.stderr)
         output_format, output = "html", args.html
-    if output_format == "html":
+    if output_format == "html":  # the HTML and JSON writers are imported only when asked for
+        from chargebook.acquire.reports.export import chargebook_version, generated_at
+        from chargebook.acquire.reports.html import history_html
+
         stamp = f"Generated {generated_at()} by chargebook {chargebook_version()}."
         return write_output(history_html(history, table, stamp), output)
     if output_format == "json":
+        from chargebook.acquire.reports.data import plain
+
         text = json.dumps(plain(history), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
         return write_output(text, output)
     parts = [table_text(table)]

@@ -43,18 +43,20 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
     """Return the station's sessions that match the filters, as the JSON output lists them."""
     from chargebook.acquire.record.events import EventKind
     from chargebook.acquire.record.review import review_of, review_status
-    from chargebook.acquire.reports.history import matches
+    from chargebook.acquire.reports.session_filter import matches
 
     station = store.station()
     set_counts, reading_counts = store.set_counts(), store.reading_counts()
     reviews = store.events_of_kind(EventKind.SESSION_REVIEWED)
+    names = store.session_names()  # what the listing reads of the metadata, not decoded
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:
             continue
-        if not matches(session, args.beam, args.machine):
+        meta = names.get(session.id)
+        meta = session.metadata() if meta is None else meta
+        if not matches(session, args.beam, args.machine, meta):
             continue
-        meta = session.metadata()
         sets, accepted = set_counts.get(session.id, (0, 0))
         review = review_of(reviews.get(session.id, []))
         rows.append(
@@ -87,7 +89,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
     import json
 
     from chargebook.acquire.exit_codes import EXIT_OK
-    from chargebook.acquire.reports.sections import Table, when
+    from chargebook.acquire.reports.table import Table, when
     from chargebook.acquire.reports.text import table_text
 
     if args.json:

@@ -8,7 +8,8 @@ from chargebook.acquire.commands.station_reader import add_db_argument, run_read
 
 HELP = (
     "check that the record was not changed: recompute each session's hash chain and name "
-    "the row of the table that no longer matches (exit 0 verified, 1 not, 2 bad input)"
+    "the row of the table that no longer matches, and each stored session result that no "
+    "longer equals a fresh evaluation (exit 0 verified, 1 not, 2 bad input)"
 )
 
 
@@ -29,16 +30,19 @@ def _verify(store, args: argparse.Namespace) -> int:
 
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
     from chargebook.acquire.record.verify import file_damage, verify_all, verify_session
+    from chargebook.acquire.session.stored_result import differing_results
 
     damage = file_damage(store)
     one = args.session is not None
     reports = [verify_session(store, args.session)] if one else verify_all(store)
-    verified = not damage and all(report.verified for report in reports)
+    results = differing_results(store, [args.session] if one else None)
+    verified = not damage and not results and all(report.verified for report in reports)
     if args.json:
         data = {
             "verified": verified,
             "file_damage": damage,
             "chains": [report.to_dict() for report in reports],
+            "stored_results": results,
         }
         print(json.dumps(data, indent=2))
     else:
@@ -47,5 +51,7 @@ def _verify(store, args: argparse.Namespace) -> int:
             print("\n".join(f"  {line}" for line in damage))
         for report in reports:
             print(report.summary())
+        for line in results:
+            print(f"STORED RESULT DIFFERS: {line}")
         print("the record verifies" if verified else "THE RECORD DOES NOT VERIFY: see above")
     return EXIT_OK if verified else EXIT_FAILURE

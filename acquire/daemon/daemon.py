@@ -44,6 +44,7 @@ from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
 from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
+from chargebook.acquire.session import stored_result
 from chargebook.acquire.session.register_requests import REGISTER_METHODS
 from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import (
@@ -64,6 +65,9 @@ log = logging.getLogger(__name__)
 POLL_INTERVAL_S = 0.05
 #: How often the engine's timers are advanced, s.
 TICK_S = 0.05
+#: Between two closed sessions whose stored result the daemon refreshes, s: the loop serves
+#: readings and clients meanwhile.
+REFRESH_PAUSE_S = 0.01
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: While readings stream, shortest time between two computations of the results (with their
@@ -519,6 +523,7 @@ class Daemon:
         self.store = Store.open(options.db_path)
         self.store.on_events_committed = self._emitted.extend
         self.store.remember_rows()  # the one writer, under the station lock
+        self.store.results_on_close = stored_result.stored_row  # kept as each session closes
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
@@ -671,6 +676,7 @@ class Daemon:
         tasks = [
             asyncio.create_task(self._consume_instrument(), name="instrument-events"),
             asyncio.create_task(self._tick(), name="ticker"),
+            asyncio.create_task(self._refresh_results(), name="stored-results"),
         ]
         watchdog_s = sd_notify.watchdog_interval_s()
         if watchdog_s is not None:
@@ -882,6 +888,18 @@ class Daemon:
                 await self.after_change(streaming=True)
             except Exception:  # supervised, as the instrument events are
                 self._unexpected("the clock tick")
+
+    async def _refresh_results(self) -> None:
+        """Keep the stored result of every closed session current: those recorded before the
+        record kept results, or computed by another version of the evaluation, are evaluated
+        again and stored, one at a time between the loop's other work (until then, history
+        evaluates them live: never a stale result shown as current)."""
+        assert self.store is not None
+        try:
+            while stored_result.refresh_some(self.store, 1):
+                await asyncio.sleep(REFRESH_PAUSE_S)
+        except Exception:  # supervised: the results stay live until the next start
+            self._unexpected("refreshing the stored session results")
 
     def _unexpected(self, doing: str) -> None:
         """Log an unexpected error with its traceback and record it as an event; carry on."""

@@ -651,6 +651,16 @@ class DepartmentStore:
         )
         return {int(session_id): (int(sets), int(accepted)) for session_id, sets, accepted in rows}
 
+    def session_names(self) -> dict[int, dict[str, str | None]]:
+        """Return {}: each session's names are read from its decoded metadata."""
+        return {}
+
+    def session_results(self) -> dict[int, tuple[str, str]]:
+        """Return {}: the department record keeps no evaluated results, so each of its sessions
+        is evaluated from its published rows, by the reader's own code (whatever the version
+        of the station that published it)."""
+        return {}
+
     def reading_counts(self) -> dict[int, int]:
         """Return, per session id, how many readings it holds, in one query."""
         rows = self.database.read(

@@ -655,6 +655,19 @@ def _visits(db: Database) -> None:
     _run_triggers(db, triggers + _VISIT_STATUS_AUDIT)
 
 
+def _session_results(db: Database) -> None:
+    """Add ``session_results``: each closed session's evaluated result (what ``history``
+    lists), written in the transaction that closes the session, with the evaluation stamp of
+    the code that computed it. A derived copy, not a record: outside the hash chain, replaced
+    when the evaluation changes (a row whose stamp is not the running code's is never used).
+    Sessions recorded before have no row until the daemon refreshes them."""
+    db.execute(
+        "CREATE TABLE session_results ("
+        "session_id INTEGER PRIMARY KEY REFERENCES sessions(id), "
+        "stamp TEXT NOT NULL, result_json TEXT NOT NULL, evaluated_at TEXT NOT NULL)"
+    )
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
@@ -665,6 +678,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("browse_views", _browse_views),
     Migration("input_log", _input_log),
     Migration("visits", _visits),
+    Migration("session_results", _session_results),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

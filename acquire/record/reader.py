@@ -41,6 +41,11 @@ class RecordReader(Protocol):
         """Return the session's readings (of one set if ``set_id`` is given)."""
         ...
 
+    def session_names(self) -> dict[int, dict[str, str | None]]:
+        """Return, per session id, the machine, beam and operator its metadata names (the keys
+        it holds of ``store.NAMED_KEYS``); a session left out is read from its metadata."""
+        ...
+
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted)."""
         ...
@@ -51,6 +56,11 @@ class RecordReader(Protocol):
 
     def events_of_kind(self, kind: str) -> dict[int | None, list[store.EventRow]]:
         """Return the events of one kind by session id (None: outside any session)."""
+        ...
+
+    def session_results(self) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions: session id -> (evaluation stamp, JSON);
+        a record that keeps none returns {} (each session is then evaluated live)."""
         ...
 
     def readings_by_set(self, session_id: int) -> dict[int, tuple[store.ReadingRow, ...]]:

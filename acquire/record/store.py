@@ -122,6 +122,11 @@ def _storable(params: Sequence[Any]) -> bool:
 UnreadableRecord = sqlite3.DatabaseError
 
 
+#: The metadata keys :meth:`Store.session_names` reads: what a listing of sessions shows and
+#: filters on.
+NAMED_KEYS = ("treatment_machine", "beam", "operator")
+
+
 class StoreError(Exception):
     """The station database cannot do what was asked (missing file, final status, ...)."""
 
@@ -486,6 +491,10 @@ class Store:
         self._events_in_flight: list[EventRow] = []  # written in the open transaction
         #: Per session, its sets and readings as last read (None: not kept; remember_rows).
         self._known: dict[int, _KnownRows] | None = None
+        #: Called inside the transaction that closes a session (its status leaves open): the
+        #: session's evaluated result as (evaluation stamp, JSON), kept in ``session_results``
+        #: (``acquire.session.stored_result.stored_row``). None: no result is kept.
+        self.results_on_close: Callable[[Store, int], tuple[str, str] | None] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -952,6 +961,39 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+            if status == "open":  # resumed: what it recorded before is no longer its result
+                self.db.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
+            elif self.results_on_close is not None:
+                kept = self.results_on_close(self, session_id)
+                if kept is not None:
+                    self.put_session_result(session_id, *kept)
+
+    def put_session_result(self, session_id: int, stamp: str, result_json: str) -> None:
+        """Keep a closed session's evaluated result (replacing the one kept), with the stamp of
+        the evaluation that computed it (``acquire.session.stored_result``)."""
+        with self.atomic():
+            self._one(SessionRow, "sessions", session_id, "session")
+            self.db.execute(
+                "INSERT OR REPLACE INTO session_results "
+                "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
+                (session_id, _require_text("stamp", stamp), result_json, self._stamp()),
+            )
+
+    def session_results(self) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions: session id -> (stamp, JSON)."""
+        rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
+
+    def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
+        """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
+        or was computed by another evaluation than ``stamp``."""
+        rows = self.read(
+            "SELECT s.id FROM sessions s LEFT JOIN session_results r ON r.session_id = s.id "
+            "WHERE s.status != 'open' AND (r.stamp IS NULL OR r.stamp != ?) "
+            "ORDER BY s.id LIMIT ?",
+            (stamp, limit),
+        )
+        return [int(session_id) for (session_id,) in rows]
 
     def station(self) -> StationRow:
         """Return the station that keeps this file (its UUID and name)."""
@@ -1060,6 +1102,31 @@ class Store:
             if self._known is not None:
                 return list(self._known_rows(session_id).sets.values())
         return self._select(SetRow, "reading_sets", "session_id = ?", (session_id,))
+
+    def session_names(self) -> dict[int, dict[str, str | None]]:
+        """Return, per session id, the names of :data:`NAMED_KEYS` its metadata holds (a key
+        it lacks is left out; a JSON null is None), read by SQLite's JSON functions: a listing
+        of thousands of sessions does not decode each one's metadata. A session whose metadata
+        holds one of them as something other than text or null is left out (decode it)."""
+        columns = ", ".join(
+            f"json_type(metadata_json, '$.{key}'), json_extract(metadata_json, '$.{key}')"
+            for key in NAMED_KEYS
+        )
+        try:
+            rows = self.read(f"SELECT id, {columns} FROM sessions")
+        except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
+            return {}
+        names: dict[int, dict[str, str | None]] = {}
+        for session_id, *values in rows:
+            found: dict[str, str | None] = {}
+            for key, kind, value in zip(NAMED_KEYS, values[::2], values[1::2], strict=True):
+                if kind == "text" or kind == "null":
+                    found[key] = value
+                elif kind is not None:
+                    break  # not a name: the caller decodes this session's metadata
+            else:
+                names[int(session_id)] = found
+        return names
 
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted), in one query: a listing

@@ -55,6 +55,7 @@ from chargebook.acquire.replay.traffic import (
     read_traffic_log,
     write_playback_log,
 )
+from chargebook.acquire.session.stored_result import stored_row
 
 __all__ = [
     "Divergence",
@@ -230,6 +231,7 @@ def _into_station(
         ) from None
     try:
         with Store.open(request.db_path) as station:
+            station.results_on_close = stored_row  # as the daemon keeps it
             try:
                 with station.atomic():
                     replay_of = setup.recording.session_id

@@ -54,8 +54,7 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
     detail = event.detail()
     kind = event.kind
     if kind == EventKind.SET_STATUS:
-        rows = {s.row.id: s.row for s in record.sets}
-        row = rows.get(detail.get("set_id"))
+        row = record.set_rows.get(detail.get("set_id"))
         step = (
             _step_of(record, row.step_index, row.step_key)
             if row

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import functools
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -84,6 +85,11 @@ class SessionRecord:
     instrument: dict[str, Any] | None = None
     integrity: ChainReport | None = None  # the check of the session's hash chain
     station: StationRow | None = None  # the station that keeps the record
+
+    @functools.cached_property
+    def set_rows(self) -> dict[int, SetRow]:
+        """Return the session's set rows by id (made once: the audit looks up each event's)."""
+        return {s.row.id: s.row for s in self.sets}
 
     @property
     def review(self) -> Review | None:

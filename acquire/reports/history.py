@@ -20,14 +20,17 @@ import contextlib
 import statistics
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
-from chargebook.acquire.record.review import UNREVIEWED, review_status
-from chargebook.acquire.record.store import NotFound, SessionRow, Store
-from chargebook.acquire.reports.data import SessionRecord, load_record
-from chargebook.acquire.reports.sections import Table, number, signed, when
+from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
+from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
+from chargebook.acquire.reports.session_filter import matches
+from chargebook.acquire.reports.table import Table, number, signed, when
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
 from chargebook.acquire.session.metadata import action_level_pct
+from chargebook.acquire.session.stored_result import ResultSummary, results_of
 from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
 
@@ -94,20 +97,6 @@ class History:
         return known[-1] if known else None
 
 
-def _same(a: object, b: str) -> bool:
-    return isinstance(a, str) and " ".join(a.split()).casefold() == " ".join(b.split()).casefold()
-
-
-def matches(row: SessionRow, beam: str | None, machine: str | None) -> bool:
-    """Return True when the session measured ``beam`` on ``machine`` (None: any).
-
-    Names compare without regard to case or repeated spaces ("6 mv" is "6 MV").
-    """
-    meta = row.metadata()
-    beam_ok = beam is None or _same(meta.get("beam"), beam) or _same(row.beam, beam)
-    return beam_ok and (machine is None or _same(meta.get("treatment_machine"), machine))
-
-
 def parse_baseline(text: str) -> str | int | float:
     """Return a baseline choice: a word, a session id (int) or a dose per MU (float)."""
     cleaned = text.strip().lower()
@@ -125,15 +114,41 @@ def parse_baseline(text: str) -> str | int | float:
     return float(limits.EXPECTED_CGY_PER_MU.check("baseline", value))
 
 
+@dataclass(frozen=True)
+class _Entry:
+    """One session of a history, as listed: its row, metadata, result and review."""
+
+    session: SessionRow
+    metadata: dict[str, Any]
+    result: ResultSummary
+    review: Review | None
+    station: StationRow
+
+
+def _entries(
+    store: RecordReader, rows: Sequence[tuple[SessionRow, dict[str, Any]]]
+) -> list[_Entry]:
+    """Return the sessions ``rows`` (each with its decoded metadata) with their results (stored
+    when current, else evaluated now: ``stored_result``) and reviews, read in a few queries
+    however many sessions."""
+    results = results_of(store, [row.id for row, _ in rows])
+    reviews = store.events_of_kind(EventKind.SESSION_REVIEWED) if rows else {}
+    station = store.station()
+    return [
+        _Entry(row, meta, results[row.id], review_of(reviews.get(row.id, [])), station)
+        for row, meta in rows
+    ]
+
+
 def _point(
-    record: SessionRecord, baseline_cGy_per_MU: float | None, station: str | None = None
+    entry: _Entry, baseline_cGy_per_MU: float | None, station: str | None = None
 ) -> HistoryPoint:
-    evaluation = record.evaluation
-    meta = record.metadata
-    per_MU = evaluation.dose_per_MU_cGy if evaluation else None
-    tolerance = evaluation.tolerance_pct if evaluation else None
+    result = entry.result
+    meta = entry.metadata
+    per_MU = result.dose_per_MU_cGy
+    tolerance = result.tolerance_pct
     if baseline_cGy_per_MU is None:
-        deviation = evaluation.deviation_pct if evaluation else None
+        deviation = result.deviation_pct
     else:
         deviation = (
             None if per_MU is None else float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
@@ -141,49 +156,46 @@ def _point(
     within = None
     if deviation is not None and tolerance is not None:
         within = bool(dose.within_tolerance(deviation, tolerance))
-    problem = record.results_error
+    problem = result.error
     if problem is None and per_MU is None:
         problem = "dose per MU pending (a factor or reading set is missing)"
     return HistoryPoint(
-        session_id=record.session.id,
-        created_at=record.session.created_at,
-        status=record.session.status,
+        session_id=entry.session.id,
+        created_at=entry.session.created_at,
+        status=entry.session.status,
         machine=str(meta.get("treatment_machine", "")),
-        beam=str(meta.get("beam", record.session.beam)),
+        beam=str(meta.get("beam", entry.session.beam)),
         dose_per_MU_cGy=per_MU,
-        expected_cGy_per_MU=evaluation.expected_cGy_per_MU if evaluation else None,
+        expected_cGy_per_MU=result.expected_cGy_per_MU,
         deviation_pct=deviation,
         tolerance_pct=tolerance,
         within_tolerance=within,
         problem=problem,
-        flags=tuple(f.code for f in evaluation.flags if f.severity != "info") if evaluation else (),
-        kind=session_kind(record.session.plan()),
-        review=review_status(record.review),
-        session_uuid=record.session.uuid,
-        U_expanded_pct=evaluation.U_expanded_pct if evaluation else None,
+        flags=tuple(code for code, _ in result.flags),
+        kind=session_kind(entry.session.plan()),
+        review=review_status(entry.review),
+        session_uuid=entry.session.uuid,
+        U_expanded_pct=result.U_expanded_pct,
         station=station,
     )
 
 
 def _baseline_value(
-    choice: str | int | float, stores: Sequence[RecordReader], records: list[SessionRecord]
+    choice: str | int | float, stores: Sequence[RecordReader], entries: list[_Entry]
 ) -> tuple[float | None, str]:
     """Return (baseline dose per MU or None for 'expected', and a label saying what it is)."""
     if choice == "expected":
         return None, "each session's expected output"
     values = [
-        (r, r.evaluation.dose_per_MU_cGy)
-        for r in records
-        if r.evaluation is not None and r.evaluation.dose_per_MU_cGy is not None
+        (e, e.result.dose_per_MU_cGy) for e in entries if e.result.dose_per_MU_cGy is not None
     ]
     if isinstance(choice, float):
         return choice, f"{choice:g} cGy/MU"
     if isinstance(choice, int):
-        record = _baseline_record(stores, choice)
-        if record.evaluation is None or record.evaluation.dose_per_MU_cGy is None:
+        value = _baseline_entry(stores, choice).result.dose_per_MU_cGy
+        if value is None:
             problem = "has no dose per MU"
             raise InputError("baseline", f"session:{choice}", "a session with a result", problem)
-        value = record.evaluation.dose_per_MU_cGy
         return value, f"session {choice} ({value:.4f} cGy/MU)"
     if not values:
         raise InputError(
@@ -196,30 +208,27 @@ def _baseline_value(
     return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
 
 
-def _station_of(record: SessionRecord) -> str | None:
-    return record.station.name if record.station is not None else None
-
-
-def _name(record: SessionRecord, stores: Sequence[RecordReader]) -> str:
+def _name(entry: _Entry, stores: Sequence[RecordReader]) -> str:
     """Return a session's id, after its station's name when from several stations."""
-    if len(stores) == 1 or record.station is None:
-        return str(record.session.id)
-    return f"{record.station.name}:{record.session.id}"
+    if len(stores) == 1:
+        return str(entry.session.id)
+    return f"{entry.station.name}:{entry.session.id}"
 
 
-def _baseline_record(stores: Sequence[RecordReader], session_id: int) -> SessionRecord:
-    """Return the record of the baseline session ``session_id``: InputError when no station
-    holds it, or several do (ids repeat across stations: --station chooses one)."""
+def _baseline_entry(stores: Sequence[RecordReader], session_id: int) -> _Entry:
+    """Return the baseline session ``session_id``: InputError when no station holds it, or
+    several do (ids repeat across stations: --station chooses one)."""
     found = []
     for store in stores:
         with contextlib.suppress(NotFound):
-            found.append(load_record(store, session_id, check_chain=False))
+            row = store.session(session_id)
+            found += _entries(store, [(row, row.metadata())])
     if len(found) == 1:
         return found[0]
     text = f"session:{session_id}"
     if not found:
         raise InputError("baseline", text, "a session recorded here", "is not recorded")
-    names = ", ".join(str(r.station.name if r.station else "?") for r in found)
+    names = ", ".join(str(e.station.name) for e in found)
     raise InputError("baseline", text, f"one station's session (--station {names})", "is ambiguous")
 
 
@@ -245,30 +254,36 @@ def load_history_across(
     """Return :func:`load_history` over the sessions of several stations (a department
     record), in the order they started, each point naming its station when there are several."""
     choice = parse_baseline(baseline)
-    records: list[SessionRecord] = []
+    entries: list[_Entry] = []
     known: list[str] = []
     registered: _RegisteredBeam | None = None
     for store in stores:
         # A station file's registers name its beams; the department record holds sessions only.
         here = _register_beam(store, beam, machine) if isinstance(store, Store) else None
-        if here is None:
-            rows = [row for row in store.sessions() if matches(row, beam, machine)]
-        else:
-            rows = [row for row in store.sessions() if here.matches(row)]
-            registered = registered or here
-        rows = [
+        listed = [
             row
-            for row in rows
+            for row in store.sessions()
             if include_all or (row.status == "finished" and row.replay_of is None)
         ]
-        records += [load_record(store, row.id, check_chain=False) for row in rows]
+        if here is None:  # matched on the names, read without decoding each one's metadata
+            names = store.session_names()
+            rows = [
+                (row, row.metadata())
+                for row in listed
+                if matches(row, beam, machine, names.get(row.id))
+            ]
+        else:
+            decoded = ((row, row.metadata()) for row in listed)
+            rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
+            registered = registered or here
+        entries += _entries(store, rows)
         known += [] if rows else [b for b in _beams_like(store, beam) if b not in known]
     if registered is not None:
         beam, machine = registered.beam, registered.machine
     if not include_all:
-        records = [r for r in records if review_status(r.review) != "rejected"]
-    records.sort(key=lambda record: record.session.created_at)
-    value, label = _baseline_value(choice, stores, records)
+        entries = [e for e in entries if review_status(e.review) != "rejected"]
+    entries.sort(key=lambda entry: entry.session.created_at)
+    value, label = _baseline_value(choice, stores, entries)
     several = len(stores) > 1
     return History(
         beam=beam,
@@ -276,22 +291,20 @@ def load_history_across(
         baseline=baseline,
         baseline_label=label,
         baseline_cGy_per_MU=value,
-        points=tuple(
-            _point(r, value, r.station.name if several and r.station else None) for r in records
-        ),
+        points=tuple(_point(e, value, e.station.name if several else None) for e in entries),
         station_uuid=stores[0].station().uuid if len(stores) == 1 else None,
-        known_beams=() if records or not known else tuple(known),
-        action_pct=_action_pct(registered, records),
+        known_beams=() if entries or not known else tuple(known),
+        action_pct=_action_pct(registered, entries),
         register_beam=None if registered is None else (registered.row_id, registered.name),
     )
 
 
-def _action_pct(registered: _RegisteredBeam | None, records: list[SessionRecord]) -> float | None:
+def _action_pct(registered: _RegisteredBeam | None, entries: list[_Entry]) -> float | None:
     """Return the action level to draw, %: the registers' beam row as it is now, else (a
     department record, or sessions typed before the registers) the latest session's own."""
     if registered is not None and registered.action_pct is not None:
         return registered.action_pct
-    levels = [action_level_pct(r.metadata) for r in records]
+    levels = [action_level_pct(e.metadata) for e in entries]
     return next((level for level in reversed(levels) if level is not None), None)
 
 
@@ -306,10 +319,10 @@ class _RegisteredBeam:
     beam: str
     action_pct: float | None
 
-    def matches(self, row: SessionRow) -> bool:
-        """Return True for a session that named this beam's register entry, or (recorded
-        before the registers, or typed) its machine and beam, spaces and case aside."""
-        meta = row.metadata()
+    def matches(self, row: SessionRow, meta: dict[str, Any]) -> bool:
+        """Return True for a session (``meta``: its metadata) that named this beam's register
+        entry, or (recorded before the registers, or typed) its machine and beam, spaces and
+        case aside."""
         named = (meta.get("register_copy") or {}).get("beam")
         if named is not None:
             return named.get("entry_id") == self.entry_id

@@ -13,7 +13,6 @@ import contextlib
 import functools
 import json
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from typing import Any
 
 from chargebook.acquire.protocol import SEVERITY_MARKERS, by_severity
@@ -22,6 +21,14 @@ from chargebook.acquire.record.review import review_words
 from chargebook.acquire.reports.audit import event_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
 from chargebook.acquire.reports.summary_text import SET_NAMES, boag_text, leakage_text, set_air_rows
+from chargebook.acquire.reports.table import (
+    NOT_GIVEN,
+    PENDING,
+    Table,
+    number,
+    signed,
+    when,
+)
 from chargebook.acquire.session.metadata import action_level_pct
 from chargebook.acquire.session.numbering import reading_labels
 from chargebook.corrections.beam_quality import quality_text
@@ -31,21 +38,6 @@ from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.statistics import SetStatistics, set_statistics
 from chargebook.corrections.student_t import dof_text
 from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
-
-PENDING = "pending"
-NOT_GIVEN = "—"
-
-
-@dataclass(frozen=True)
-class Table:
-    """A titled table of formatted cells; ``keys`` names each row for machine readers."""
-
-    title: str
-    headers: tuple[str, ...]
-    rows: tuple[tuple[str, ...], ...]
-    keys: tuple[str, ...] = ()
-    note: str = ""
-    extra: dict[str, Any] = field(default_factory=dict)
 
 
 def keyed_table(
@@ -60,23 +52,6 @@ def keyed_table(
         note=note,
         extra=extra,
     )
-
-
-def number(value: float | None, digits: int, missing: str = PENDING) -> str:
-    """Return ``value`` with ``digits`` decimals, or ``missing`` when it is None."""
-    return missing if value is None else f"{value:.{digits}f}"
-
-
-def signed(value: float | None, digits: int, missing: str = PENDING) -> str:
-    """Return ``value`` with a sign and ``digits`` decimals, or ``missing`` when None."""
-    return missing if value is None else f"{value:+.{digits}f}"
-
-
-def when(stamp: str | None) -> str:
-    """Return a stored UTC ISO time as 'YYYY-MM-DD HH:MM:SS UTC' ('—' when None)."""
-    if not stamp:
-        return NOT_GIVEN
-    return stamp[:19].replace("T", " ") + " UTC"
 
 
 @functools.lru_cache(maxsize=1024)

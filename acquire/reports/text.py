@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import math
+import re
 import textwrap
 from collections.abc import Sequence
 from dataclasses import replace
 
-from chargebook.acquire.reports.sections import Table
+from chargebook.acquire.reports.table import Table
 
 #: Control characters (C0 but tab and newline, DEL, C1) mapped to visible ``\\xNN`` escapes.
 _CONTROL_ESCAPES = {
@@ -17,12 +18,18 @@ _CONTROL_ESCAPES = {
 }
 
 
+#: Any character :func:`printable` escapes.
+_CONTROL = re.compile("[" + "".join(re.escape(chr(code)) for code in _CONTROL_ESCAPES) + "]")
+
+
 def printable(text: str) -> str:
     """Return ``text`` with control characters shown as ``\\xNN``, newlines kept.
 
     Stored text (an operator's comment, a metadata field, an instrument's identity) may hold
     terminal escape sequences; printed raw they could rewrite what a reader sees.
     """
+    if text.isascii() and text.isprintable():
+        return text  # the common case, tested in C: nothing to escape
     return text.translate(_CONTROL_ESCAPES)
 
 
@@ -33,18 +40,22 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
     With ``width`` (characters, e.g. the terminal's), a table wider than that has its widest
     columns wrapped onto continuation lines, and the note is wrapped, so no line runs past it.
     """
+    rows = table.rows
+    if _CONTROL.search("\t".join("\t".join(row) for row in rows)):  # else nothing to escape
+        rows = tuple(tuple(printable(cell) for cell in row) for row in rows)
     table = replace(
         table,
         title=printable(table.title),
         headers=tuple(printable(h) for h in table.headers),
-        rows=tuple(tuple(printable(cell) for cell in row) for row in table.rows),
+        rows=rows,
         note=printable(table.note),
     )
     lines = [table.title, "-" * len(table.title)] if title else []
     if table.rows:
-        widths = [len(h) for h in table.headers]
-        for row in table.rows:
-            widths = [max(w, len(cell)) for w, cell in zip(widths, row, strict=True)]
+        columns = zip(*table.rows, strict=True)
+        widths = [
+            max(len(h), *map(len, column)) for h, column in zip(table.headers, columns, strict=True)
+        ]
         if width is not None:
             longest_words = [
                 max((len(word) for row in table.rows for word in row[i].split()), default=0)
@@ -56,8 +67,11 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
         else:
             lines += _wrapped_row(table.headers, widths)
             lines.append(_row(tuple("-" * w for w in widths), widths))
-            for row in table.rows:
-                lines += _wrapped_row(row, widths)
+            if width is None:  # each column as wide as its widest cell: no cell wraps
+                lines += [_row(row, widths) for row in table.rows]
+            else:
+                for row in table.rows:
+                    lines += _wrapped_row(row, widths)
     if table.note:
         lines += textwrap.wrap(table.note, width) if width is not None else [table.note]
     return "\n".join(lines)
@@ -107,6 +121,8 @@ def _fit_widths(
 
 def _wrapped_row(cells: Sequence[str], widths: Sequence[int]) -> list[str]:
     """Return one row as one or more lines, each cell wrapped to its column's width."""
+    if all(len(cell) <= w for cell, w in zip(cells, widths, strict=True)):
+        return [_row(cells, widths)]  # the common case: every cell fits on one line
     columns = [
         textwrap.wrap(cell, w, break_long_words=False) or [""] if len(cell) > w else [cell]
         for cell, w in zip(cells, widths, strict=True)

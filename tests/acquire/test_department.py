@@ -25,6 +25,7 @@ from chargebook.acquire.record import department
 from chargebook.acquire.record.review import record_review
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_session
+from chargebook.acquire.session.stored_result import stored_row
 from postgres_server import Server, running_server
 from recorded_session import record_example_session
 
@@ -70,6 +71,7 @@ def _station_file(folder: Path, index: int, sessions: int = 2) -> Path:
     path = folder / f"{STATIONS[index]}.sqlite"
     clock = Clock()
     with Store.open(path, now=clock) as store:
+        store.results_on_close = stored_row  # as the daemon keeps them; the department does not
         store.name_station(STATIONS[index])
         for n in range(sessions):
             clock.day(1 + index + 3 * n)
@@ -144,6 +146,8 @@ def test_reads_from_the_department_are_the_station_files_bit_for_bit(
     for path in stations:
         _publish(path, url, capsys)
     for name, path in zip(STATIONS, stations, strict=True):
+        with Store.open(path, read_only=True) as store:  # history reads the kept results
+            assert len(store.session_results()) == len(store.sessions())
         assert main([*command, "--db", str(path)]) == EXIT_OK
         from_file = capsys.readouterr().out
         assert main([*command, "--db", url, "--station", name]) == EXIT_OK

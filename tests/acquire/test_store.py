@@ -625,3 +625,24 @@ def test_remembered_rows_are_the_rows_recorded_after_new_rows_status_changes_and
     assert [r.charge_nC for r in store.readings(session_id)] == [20.01, 20.02, 20.04]
     assert store.readings_by_set(session_id) == fresh.readings_by_set(session_id)
     assert store.readings_by_set(session_id)[first] is grouped[first]  # no reading since
+
+
+def test_session_names_are_what_the_decoded_metadata_names(store: Store) -> None:
+    # The listing reads the machine, beam and operator with SQLite's JSON functions instead of
+    # decoding each session's metadata: it must find what the decoded metadata holds.
+    from chargebook.acquire.record.store import NAMED_KEYS
+
+    given = [
+        {"treatment_machine": "LA 1", "beam": "6 MV", "operator": "operator A"},
+        {"treatment_machine": "Ünïcode \x1b[2J", "beam": '10 "FFF" \\ MV'},  # no operator
+        {"treatment_machine": None, "beam": "6 MV", "operator": "B"},
+        {"treatment_machine": "LA 2", "beam": 6, "operator": "B"},  # not text: decoded instead
+    ]
+    ids = [store.create_session(meta, {"steps": []}, "TRS-398", "6 MV") for meta in given]
+    names = store.session_names()
+    for session_id, meta in zip(ids[:3], given[:3], strict=True):
+        assert names[session_id] == {k: meta[k] for k in NAMED_KEYS if k in meta}
+        assert names[session_id] == {
+            k: v for k, v in store.session(session_id).metadata().items() if k in NAMED_KEYS
+        }
+    assert ids[3] not in names

@@ -43,8 +43,9 @@ def _visit(store: Store) -> tuple[int, int, int, int]:
     return visit_id, *beams
 
 
-def test_the_visits_migration_is_appended_last_under_its_name() -> None:
-    assert MIGRATIONS[-1].name == "visits"
+def test_the_visits_migration_is_appended_after_the_input_log_under_its_name() -> None:
+    names = [migration.name for migration in MIGRATIONS]
+    assert names.index("visits") == names.index("input_log") + 1
 
 
 def test_beams_keep_the_order_they_were_added_in_and_each_session_is_linked(store) -> None:

@@ -5,9 +5,10 @@
 A station file is generated through the store API (in this process, with a clock that moves
 one day at a time): ten years of daily output checks (the shipped ``monthly-check`` plan: a
 warm-up reading, then a settling reading and three routine readings, k_pol and k_s carried) on
-each of four machines, about 14,600 sessions, every one finished. A session of 500 reading sets
-(``tests.bench.session_length``: a set taken and redone) is added to another file. The readings
-and air data are invented (demo only: Example Clinic (fictional)).
+each of four machines, about 14,600 sessions, every one finished, its result kept in the
+record as it closed (as the daemon keeps it: ``acquire/session/stored_result.py``). A session of
+500 reading sets (``tests.bench.session_length``: a set taken and redone) is added to another
+file. The readings and air data are invented (demo only: Example Clinic (fictional)).
 
 Each command runs as a user runs it (``chargebook ...``, a new process), alternating with its
 baseline, a new Python process that runs a bare SQL query of the same rows on the same file
@@ -25,6 +26,8 @@ their baseline; the HTML report under 1 s.
 
 from __future__ import annotations
 
+import os
+import resource
 import subprocess
 import sys
 import time
@@ -34,6 +37,7 @@ from pathlib import Path
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session import rules
+from chargebook.acquire.session.stored_result import stored_row
 
 from tests.bench import report
 from tests.bench.harness import scratch
@@ -115,6 +119,7 @@ def record_years(db: Path, days: int) -> int:
     """Record ``days`` days of output checks on every machine; return the number of sessions."""
     clock = DayClock()
     with Store.open(db, now=clock) as store:
+        store.results_on_close = stored_row  # kept as each session closes, as by the daemon
         for day in range(days):
             clock.now = FIRST_DAY + timedelta(days=day)
             with store.atomic():  # one commit a day: generating, not measuring
@@ -123,22 +128,40 @@ def record_years(db: Path, days: int) -> int:
     return days * len(MACHINES)
 
 
-def wall_s(command: list[str]) -> float:
-    """Return the wall time of one run of ``command`` (it must succeed), in seconds."""
+def wall_s(command: list[str]) -> tuple[float, float]:
+    """Return the wall time and the CPU time (user and system) of one run of ``command`` (it
+    must succeed), in seconds. The CPU time says what the command costs whatever the load: on
+    a shared machine the wall time is mostly waiting for a core.
+
+    Python may keep compiled bytecode (``__pycache__``), as an installed chargebook has it (pip
+    compiles it on install): a shell with PYTHONDONTWRITEBYTECODE set would otherwise compile
+    every module from source on every run, which no user's installation does.
+    """
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
-    subprocess.run(command, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    return time.perf_counter() - started
+    subprocess.run(
+        command, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env
+    )
+    wall = time.perf_counter() - started
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime
+    return wall, cpu
 
 
-def medians(commands: list[list[str]], runs: int) -> list[float]:
-    """Return the median wall time of each command, the commands run in turn ``runs`` times."""
+def medians(commands: list[list[str]], runs: int) -> list[tuple[float, float]]:
+    """Return the median wall and CPU times of each command, the commands run in turn ``runs``
+    times."""
     for command in commands:
         wall_s(command)  # warm the file cache once
-    times: list[list[float]] = [[] for _ in commands]
+    times: list[list[tuple[float, float]]] = [[] for _ in commands]
     for _ in range(runs):
         for spent, command in zip(times, commands, strict=True):
             spent.append(wall_s(command))
-    return [report.median(spent) for spent in times]
+    return [
+        (report.median([w for w, _ in spent]), report.median([c for _, c in spent]))
+        for spent in times
+    ]
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -159,11 +182,11 @@ def main(argv: list[str] | None = None) -> int:
         long_id = record_sets(long_db, sets - 1)
         out.note(f"{sessions} sessions generated in {time.perf_counter() - started:.0f} s")
         bare = [sys.executable, "-c", BARE, str(db)]
-        listing, listing_bare = medians(
+        (listing, listing_cpu), (listing_bare, listing_bare_cpu) = medians(
             [[*chargebook, "sessions", "--db", str(db)], [*bare, SESSIONS_QUERY]], runs
         )
         history_command = [*chargebook, "history", "--beam", "6 MV", "--machine", MACHINES[0]]
-        history, history_bare = medians(
+        (history, history_cpu), (history_bare, history_bare_cpu) = medians(
             [
                 [*history_command, "--no-plot", "--db", str(db)],
                 [*bare, HISTORY_QUERY, "6 MV", MACHINES[0]],
@@ -171,7 +194,7 @@ def main(argv: list[str] | None = None) -> int:
             runs,
         )
         html_command = [*chargebook, "export", str(long_id), "--format", "html"]
-        (html,) = medians(
+        ((html, html_cpu),) = medians(
             [[*html_command, "-o", str(workdir / "r.html"), "--db", str(long_db)]], runs
         )
     out.baseline("bare SQL of the sessions' rows (median)", listing_bare * 1000, "ms")
@@ -184,6 +207,12 @@ def main(argv: list[str] | None = None) -> int:
     )
     out.measured(
         f"chargebook export --format html of the {sets}-set session (median)", html * 1000, "ms"
+    )
+    out.note(
+        f"CPU time, user + system (median; wall time on a loaded machine is mostly waiting): "
+        f"sessions {listing_cpu * 1000:.0f} ms (its bare SQL {listing_bare_cpu * 1000:.0f} ms), "
+        f"history {history_cpu * 1000:.0f} ms (its bare SQL {history_bare_cpu * 1000:.0f} ms), "
+        f"HTML report {html_cpu * 1000:.0f} ms"
     )
     out.ratio(listing / listing_bare, "sessions / its bare SQL")
     out.ratio(history / history_bare, "history / its bare SQL")

@@ -1,0 +1,205 @@
+"""A closed session's result as kept in the record (``session_results``), and when to trust it.
+
+``history`` lists one machine's years of sessions; evaluating each of them again takes tens
+of seconds. So when a session closes, the store writes its :class:`ResultSummary` (what
+``history`` shows of it: dose per MU, expected, deviation, tolerance, U, flags, or why there
+is no result) in the same transaction, computed by :func:`evaluate_session`, and stamped with
+:func:`evaluation_stamp`: a digest of the source of everything that evaluation runs
+(``corrections/``, ``acquire/session/``, the store's rows and the event kinds). A row whose
+stamp is not the running code's is never used: that session is evaluated again, live (correct,
+slower), until the daemon refreshes the row (:func:`refresh_results`). A stored float is
+written with ``repr`` (JSON), so it reads back as the same float, bit for bit.
+
+Nothing here computes physics.
+"""
+
+from __future__ import annotations
+
+import functools
+import hashlib
+import json
+import uuid
+from collections.abc import Iterable
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Any
+
+from chargebook.acquire.record.reader import RecordReader
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.session.evaluation import SessionEvaluation, evaluate_session
+
+#: The source folders (relative to the package) and files whose code decides a result.
+_ROOT = Path(__file__).resolve().parents[2]
+EVALUATION_SOURCES = (
+    "corrections",
+    "acquire/session",
+    "acquire/record/store.py",
+    "acquire/record/reader.py",
+    "acquire/record/events.py",  # the detail shapes the evaluation reads from events
+)
+
+
+@dataclass(frozen=True)
+class ResultSummary:
+    """What ``history`` shows of one session's result. Values are None where the session has
+    no result; ``error`` then says why (the evaluation's words)."""
+
+    dose_per_MU_cGy: float | None
+    expected_cGy_per_MU: float | None
+    deviation_pct: float | None
+    tolerance_pct: float | None
+    within_tolerance: bool | None
+    M_corrected_nC: float | None
+    dose_Gy: float | None
+    U_expanded_pct: float | None
+    #: The warning and error flags, (code, severity), in the evaluation's order (info left out).
+    flags: tuple[tuple[str, str], ...]
+    error: str | None
+
+    def to_json(self) -> str:
+        """Return the summary as JSON (floats as ``repr``: they read back bit for bit)."""
+        return json.dumps(asdict(self), sort_keys=True)
+
+    @classmethod
+    def from_json(cls, text: str) -> ResultSummary:
+        """Return the summary stored as ``text`` (:meth:`to_json`)."""
+        data: dict[str, Any] = json.loads(text)
+        data["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
+        return cls(**data)
+
+
+def summarize(found: SessionEvaluation) -> ResultSummary:
+    """Return what ``history`` shows of one evaluation."""
+    evaluation = found.evaluation
+    if evaluation is None:
+        return ResultSummary(None, None, None, None, None, None, None, None, (), found.error)
+    return ResultSummary(
+        dose_per_MU_cGy=_float(evaluation.dose_per_MU_cGy),
+        expected_cGy_per_MU=_float(evaluation.expected_cGy_per_MU),
+        deviation_pct=_float(evaluation.deviation_pct),
+        tolerance_pct=_float(evaluation.tolerance_pct),
+        within_tolerance=None
+        if evaluation.within_tolerance is None
+        else bool(evaluation.within_tolerance),
+        M_corrected_nC=_float(evaluation.M_corrected_nC),
+        dose_Gy=_float(evaluation.dose_Gy),
+        U_expanded_pct=_float(evaluation.U_expanded_pct),
+        flags=tuple((f.code, f.severity) for f in evaluation.flags if f.severity != "info"),
+        error=found.error,
+    )
+
+
+def _float(value: float | None) -> float | None:
+    """Return ``value`` as a Python float, the same bits (a numpy float64 would otherwise show
+    its type where a report writes the number's repr)."""
+    return None if value is None else float(value)
+
+
+@functools.cache
+def evaluation_stamp() -> str:
+    """Return the stamp of the running evaluation: a SHA-256 of the source files that decide a
+    session's result (:data:`EVALUATION_SOURCES`), by path and content. Any change to them,
+    even one that leaves every result as it was, changes it: the stored rows are then
+    evaluated again rather than trusted."""
+    digest = hashlib.sha256()
+    try:
+        for path in _source_files():
+            digest.update(path.relative_to(_ROOT).as_posix().encode() + b"\0")
+            digest.update(path.read_bytes() + b"\0")
+    except OSError:
+        # No source to stamp (an installation without .py files): a stamp of this process
+        # alone, so that no stored result is trusted, and none this process stores ever is.
+        return f"unstamped-{uuid.uuid4()}"
+    return digest.hexdigest()
+
+
+def _source_files() -> list[Path]:
+    """Return the source files of :data:`EVALUATION_SOURCES`; OSError when one is missing."""
+    files: list[Path] = []
+    for name in EVALUATION_SOURCES:
+        path = _ROOT / name
+        found = sorted(path.rglob("*.py")) if path.is_dir() else [path]
+        if not found or not all(f.is_file() for f in found):
+            raise FileNotFoundError(f"no evaluation source at {path}")
+        files += found
+    return files
+
+
+def evaluate_summary(store: RecordReader, session_id: int) -> ResultSummary:
+    """Return the session's result evaluated now, from what is recorded."""
+    return summarize(evaluate_session(store, session_id))
+
+
+def stored_row(store: RecordReader, session_id: int) -> tuple[str, str] | None:
+    """Return (stamp, JSON) of the session's result as the store keeps it: what a store calls,
+    inside the transaction that closes a session (``Store.results_on_close``). None, and
+    nothing kept, when the evaluation fails unexpectedly: the session still closes, and is
+    evaluated live (where the failure shows) until a refresh."""
+    try:
+        return evaluation_stamp(), evaluate_summary(store, session_id).to_json()
+    except Exception:  # a bug in the evaluation must not undo the operator's close
+        return None
+
+
+def results_of(store: RecordReader, session_ids: Iterable[int]) -> dict[int, ResultSummary]:
+    """Return the result of each session: the stored one when the running code computed it
+    (its stamp), else (stale, missing, not closed) evaluated now, from what is recorded."""
+    stamp, stored = evaluation_stamp(), store.session_results()
+    found: dict[int, ResultSummary] = {}
+    for session_id in session_ids:
+        row = stored.get(session_id)
+        current = row is not None and row[0] == stamp
+        found[session_id] = (
+            ResultSummary.from_json(row[1])
+            if row is not None and current
+            else evaluate_summary(store, session_id)
+        )
+    return found
+
+
+def refresh_some(store: Store, limit: int) -> int:
+    """Write, in one transaction, the result of up to ``limit`` closed sessions whose stored
+    one is missing (recorded before ``session_results``) or stale (another stamp); return how
+    many were written (0: none is left)."""
+    stamp = evaluation_stamp()
+    with store.atomic():
+        wanting = store.sessions_without_result(stamp, limit)
+        for session_id in wanting:
+            store.put_session_result(
+                session_id, stamp, evaluate_summary(store, session_id).to_json()
+            )
+    return len(wanting)
+
+
+def refresh_results(store: Store, batch: int = 50) -> int:
+    """Write the result of every closed session whose stored one is missing or stale, ``batch``
+    sessions per transaction; return how many were written."""
+    written = 0
+    while found := refresh_some(store, batch):
+        written += found
+    return written
+
+
+def differing_results(store: RecordReader, session_ids: Iterable[int] | None = None) -> list[str]:
+    """Return, in words, each stored result of the running evaluation (its stamp: the ones
+    ``history`` shows) that no longer equals a fresh evaluation of its session (of
+    ``session_ids``; None: every session), naming the session and the fields that differ."""
+    stamp, stored = evaluation_stamp(), store.session_results()
+    wanted = sorted(stored) if session_ids is None else [i for i in session_ids if i in stored]
+    found: list[str] = []
+    for session_id in wanted:
+        row_stamp, text = stored[session_id]
+        if row_stamp != stamp:
+            continue  # another version's: never shown, refreshed by the daemon
+        kept, fresh = json.loads(text), json.loads(evaluate_summary(store, session_id).to_json())
+        fields = [name for name in sorted(fresh) if kept.get(name) != fresh[name]]
+        if fields:
+            changes = "; ".join(
+                f"{name}: stored {kept.get(name)!r}, evaluated now {fresh[name]!r}"
+                for name in fields
+            )
+            found.append(
+                f"session {session_id}: its stored result differs from a fresh evaluation of "
+                f"its recorded values ({changes})"
+            )
+    return found

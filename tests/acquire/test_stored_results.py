@@ -1,0 +1,208 @@
+"""The closed sessions' results kept in the record (``session_results``), and when they are used.
+
+Sessions are recorded with the real engine into real SQLite files (the session of
+``test_session_evaluation``: invented readings, demo only). A kept result is used only when its
+stamp is the running evaluation's; a stale one is never shown, the daemon refreshes it, and
+``verify`` names one that no longer equals a fresh evaluation.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import shutil
+import sqlite3
+from pathlib import Path
+
+import pytest
+from chargebook.acquire.commands.cli import main
+from chargebook.acquire.commands.demo_data import demo_metadata
+from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+from chargebook.acquire.record.migrations import MIGRATIONS
+from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.history import load_history
+from chargebook.acquire.session import stored_result
+from chargebook.acquire.session.stored_result import (
+    ResultSummary,
+    evaluate_summary,
+    evaluation_stamp,
+    refresh_results,
+    stored_row,
+)
+from test_session_evaluation import record
+
+from tests.acquire.in_process_daemon import InProcessDaemon, running
+
+BEAM = demo_metadata()["beam"]
+
+
+@pytest.fixture(scope="module")
+def unkept(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int, dict]:
+    """A finished session recorded without keeping its result (as before the migration)."""
+    path = tmp_path_factory.mktemp("unkept") / "station.sqlite"
+    session_id, console = record(path)
+    return path, session_id, console
+
+
+def _copy(path: Path, tmp_path: Path) -> Path:
+    copy = tmp_path / "station.sqlite"
+    shutil.copyfile(path, copy)
+    return copy
+
+
+def _set_result(path: Path, stamp: str, dose_per_MU_cGy: float) -> None:
+    """Write a kept result by hand, as a bug or an edit of the file could leave it."""
+    with Store.open(path) as store:
+        (session_id,) = [row.id for row in store.sessions()]
+        summary = evaluate_summary(store, session_id)
+        data = {**json.loads(summary.to_json()), "dose_per_MU_cGy": dose_per_MU_cGy}
+        store.put_session_result(session_id, stamp, json.dumps(data))
+
+
+def test_the_migration_is_appended_last_under_its_name() -> None:
+    assert MIGRATIONS[-1].name == "session_results"
+
+
+def test_a_session_recorded_before_results_were_kept_is_evaluated_live_then_refreshed(
+    unkept, tmp_path
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id, console = unkept[1], unkept[2]
+    with Store.open(path, read_only=True) as store:
+        assert store.session_results() == {}
+        (live,) = load_history(store, BEAM).points
+    assert live.dose_per_MU_cGy == console["dose_per_MU_cGy"]
+    with Store.open(path) as store:
+        assert refresh_results(store) == 1
+        assert refresh_results(store) == 0  # nothing left to refresh
+        stamp, text = store.session_results()[session_id]
+        (kept,) = load_history(store, BEAM).points
+    assert stamp == evaluation_stamp()
+    assert ResultSummary.from_json(text).dose_per_MU_cGy == console["dose_per_MU_cGy"]
+    assert kept == live
+
+
+def test_a_result_kept_by_another_evaluation_is_never_shown(unkept, tmp_path) -> None:
+    path = _copy(unkept[0], tmp_path)
+    _set_result(path, "another version", 9.999)
+    with Store.open(path, read_only=True) as store:
+        (point,) = load_history(store, BEAM).points
+    assert point.dose_per_MU_cGy == unkept[2]["dose_per_MU_cGy"] != 9.999
+    with Store.open(path) as store:
+        assert refresh_results(store) == 1  # the stale row is rewritten
+        (point,) = load_history(store, BEAM).points
+    assert point.dose_per_MU_cGy == unkept[2]["dose_per_MU_cGy"]
+
+
+def test_the_evaluation_stamp_changes_with_the_source_of_the_evaluation(
+    tmp_path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    root = stored_result._ROOT
+    for name in (*stored_result.EVALUATION_SOURCES, "acquire/reports/history.py"):
+        source = root / name
+        target = tmp_path / name
+        if source.is_dir():
+            shutil.copytree(source, target, ignore=shutil.ignore_patterns("__pycache__"))
+        else:
+            target.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(source, target)
+    monkeypatch.setattr(stored_result, "_ROOT", tmp_path)
+    stamp = stored_result.evaluation_stamp.__wrapped__
+    copied = stamp()
+    assert copied == evaluation_stamp()  # the same source, the same stamp
+    (tmp_path / "acquire/reports/history.py").write_text("# not part of the evaluation\n")
+    assert stamp() == copied
+    for changed in ("corrections/dose.py", "acquire/session/evaluation.py"):
+        path = tmp_path / changed
+        original = path.read_text()
+        path.write_text(original + "\n# one more line\n")
+        assert stamp() != copied, changed
+        path.write_text(original)
+    assert stamp() == copied
+
+
+def test_without_the_evaluation_source_no_stored_result_is_ever_trusted(
+    tmp_path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setattr(stored_result, "_ROOT", tmp_path)  # an installation without .py files
+    stamp = stored_result.evaluation_stamp.__wrapped__
+    first, second = stamp(), stamp()
+    assert first != second and first.startswith("unstamped-")
+
+
+def test_resuming_an_interrupted_session_drops_its_kept_result(tmp_path) -> None:
+    with Store.open(tmp_path / "station.sqlite") as store:
+        store.results_on_close = stored_row
+        session_id = store.create_session(
+            demo_metadata(), {"steps": []}, "TRS-398", BEAM, actor="operator A"
+        )
+        store.set_session_status(session_id, "interrupted", "daemon stopped")
+        assert session_id in store.session_results()
+        store.set_session_status(session_id, "open", "resumed")
+        assert store.session_results() == {}
+
+
+def test_a_failing_evaluation_never_stops_a_session_from_closing(
+    tmp_path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    def broken(store: object, session_id: int) -> ResultSummary:
+        raise RuntimeError("a bug in the evaluation")
+
+    monkeypatch.setattr(stored_result, "evaluate_summary", broken)
+    with Store.open(tmp_path / "station.sqlite") as store:
+        store.results_on_close = stored_row
+        session_id = store.create_session(
+            demo_metadata(), {"steps": []}, "TRS-398", BEAM, actor="operator A"
+        )
+        store.set_session_status(session_id, "finished", "plan complete")
+        assert store.session(session_id).status == "finished"
+        assert store.session_results() == {}  # nothing kept: evaluated live, where it shows
+
+
+def test_verify_names_a_kept_result_that_no_longer_equals_a_fresh_evaluation(
+    unkept, tmp_path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id = unkept[1]
+    with Store.open(path) as store:
+        refresh_results(store)
+    assert main(["verify", "--db", str(path)]) == EXIT_OK
+    capsys.readouterr()
+    _set_result(path, evaluation_stamp(), 9.999)
+    assert main(["verify", str(session_id), "--db", str(path)]) == EXIT_FAILURE
+    out = capsys.readouterr().out
+    assert f"session {session_id}: its stored result differs" in out
+    assert "dose_per_MU_cGy: stored 9.999" in out
+    assert main(["verify", "--db", str(path), "--json"]) == EXIT_FAILURE
+    found = json.loads(capsys.readouterr().out)
+    assert not found["verified"] and len(found["stored_results"]) == 1
+
+
+async def test_the_daemon_keeps_each_result_as_the_session_closes_and_refreshes_old_ones(
+    unkept, tmp_path
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    old_id = unkept[1]
+    async with running(InProcessDaemon(tmp_path, db_path=path)) as daemon:
+        daemon.let_time_run()
+        client, operator = await daemon.operator()
+        final = await operator.run(demo_metadata())
+        await client.close()
+        new_id = final["session"]["id"]
+        assert final["session"]["status"] == "finished"
+        with Store.open(path, read_only=True) as store:
+            kept = store.session_results()
+        assert kept[new_id][0] == evaluation_stamp()  # written as the session closed
+        summary = ResultSummary.from_json(kept[new_id][1])
+        assert summary.dose_per_MU_cGy == final["results"]["dose_per_MU_cGy"]
+        for _ in range(1200):  # refreshed in the background, between the loop's other work
+            if old_id in _kept_ids(path):
+                break
+            await asyncio.sleep(0.05)
+    with Store.open(path, read_only=True) as store:
+        assert store.session_results()[old_id][0] == evaluation_stamp()
+
+
+def _kept_ids(path: Path) -> set[int]:
+    with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as connection:
+        return {row[0] for row in connection.execute("SELECT session_id FROM session_results")}
