@@ -105,7 +105,14 @@ class ReadingSetPanel(Vertical):
         yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
+    def on_mount(self) -> None:
+        self._draw(self.set_info)  # a set that arrived before the panel was composed
+
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
+        if self.is_mounted:  # before that, its parts do not exist yet: on_mount draws it
+            self._draw(set_info)
+
+    def _draw(self, set_info: dict[str, Any] | None) -> None:
         if set_info == self._shown_set and self._shown_set is not None:
             return  # the same set, the same readings: nothing to redraw
         another_set = (set_info or {}).get("id") != (self._shown_set or {}).get("id")
