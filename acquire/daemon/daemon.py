@@ -1040,7 +1040,7 @@ class Daemon:
         if built is not None and built[0] == self.engine.seq:
             return built[1]
         seq = self.engine.seq
-        shown = self.engine.last_results() if results_later else None
+        shown = self.engine.last_results if results_later else None
         if shown is None:
             self._results_at = time.monotonic()
         snapshot = self.engine.snapshot(shown)

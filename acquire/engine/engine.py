@@ -1023,8 +1023,9 @@ class Engine:
         cache = self._results_cache
         return cache is None or cache[0] != self.data_version
 
+    @property
     def last_results(self) -> Results | None:
-        """Return the results computed last (perhaps before the latest change; see
+        """The results computed last (perhaps before the latest change; see
         :attr:`results_stale`), or None when none were computed yet."""
         return None if self._results_cache is None else self._results_cache[1]
 

@@ -106,11 +106,16 @@ class ReadingSetPanel(Vertical):
         yield TextBlock(id="set-stats")
 
     def on_mount(self) -> None:
-        self._draw(self.set_info)  # a set that arrived before the panel was composed
+        self.call_after_refresh(self._draw_if_composed)  # a set that came before its parts
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
-        if self.is_mounted:  # before that, its parts do not exist yet: on_mount draws it
-            self._draw(set_info)
+        self._draw_if_composed()
+
+    def _draw_if_composed(self) -> None:
+        """Draw the set held once the panel's parts exist: a snapshot can reach the panel
+        before it has composed, or while its screen is being taken down."""
+        if self.query("#set-title"):
+            self._draw(self.set_info)
 
     def _draw(self, set_info: dict[str, Any] | None) -> None:
         if set_info == self._shown_set and self._shown_set is not None:

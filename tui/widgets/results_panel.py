@@ -59,9 +59,19 @@ class ResultsPanel(VerticalScroll):
         yield TextBlock(id="results-table")
         yield TextBlock(id="session-flags")
 
+    def on_mount(self) -> None:
+        self.call_after_refresh(self._draw_if_composed)  # a snapshot that came before its parts
+
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
-        if snapshot is None:
-            return
+        self._draw_if_composed()
+
+    def _draw_if_composed(self) -> None:
+        """Draw the snapshot held once the panel's parts exist: a snapshot can reach the panel
+        before it has composed, or while its screen is being taken down."""
+        if self.snapshot is not None and self.query("#results-title"):
+            self._draw(self.snapshot)
+
+    def _draw(self, snapshot: dict[str, Any]) -> None:
         self.query_one("#results-title", TextBlock).show(results_title(snapshot))
         problem = snapshot.get("results_error")
         note = self.query_one("#results-problem", TextBlock)

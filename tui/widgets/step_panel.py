@@ -28,9 +28,19 @@ class StepPanel(Vertical):
         yield TextBlock(id="step-prompt")
         yield TextBlock(id="step-live")
 
+    def on_mount(self) -> None:
+        self.call_after_refresh(self._draw_if_composed)  # a snapshot that came before its parts
+
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
-        if snapshot is None:
-            return
+        self._draw_if_composed()
+
+    def _draw_if_composed(self) -> None:
+        """Draw the snapshot held once the panel's parts exist: a snapshot can reach the panel
+        before it has composed, or while its screen is being taken down."""
+        if self.snapshot is not None and self.query("#step-heading"):
+            self._draw(self.snapshot)
+
+    def _draw(self, snapshot: dict[str, Any]) -> None:
         self.query_one("#step-heading", TextBlock).show(snapshot_view.step_heading(snapshot))
         done, total = snapshot_view.steps_done(snapshot)
         bar = self.query_one(ProgressBar)
