@@ -194,6 +194,11 @@ class ConsoleApp(App[int]):
                 self._say_waiting()
             return
         wanted = snapshot_view.screen_for(self.snapshot)
+        if current is not None and current.kind != wanted and not current.is_mounted:
+            # A screen still being put up is not taken down: its widgets would mount without
+            # their parts (seen on a loaded machine). The latest snapshot is routed once it is up.
+            self.call_after_refresh(self._route)
+            return
         if current is not None and (current.kind == wanted or current.holds_screen()):
             current.show(self.snapshot, self.link)
             return

@@ -371,7 +371,11 @@ async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_r
         for kind, key in (("beam", "la1_6mv"), ("chamber", "ch1"), ("electrometer", "em1")):
             app.screen.query_one(f"#pick-{kind}", Select).value = ids[key]
         await pilot.click("#confirm")
-        await until(pilot, lambda: app.screen.kind == "setup", "the form again")
+        await until(
+            pilot,
+            lambda: not isinstance(app.screen, RegisterPickScreen) and screen_kind(app) == "setup",
+            "the form again",
+        )
         await until(
             pilot,
             lambda: app.screen.query_one("#input-chamber_serial").value == "SIM-CH-0001",
