@@ -3,7 +3,9 @@
 Resources such as ``TCPIP::127.0.0.1::5025::SOCKET`` or ``ASRL/dev/ttyUSB0::INSTR``. pyvisa is
 imported when the resource is opened. The VISA library is ``--visa-library`` (``@py``, ``@ivi``
 or a vendor library's path), else ``$PYVISA_LIBRARY``, else ``@py``. ASRL resources get the
-profile's serial settings, flow control included.
+profile's serial settings, flow control included. Bytes go through pyvisa's low-level calls
+(``visalib.read`` and ``visalib.write``: viRead, viWrite), which the resource's ``read_raw`` and
+``write_raw`` wrap in layers of their own; a line is framed here, once, as on every wire.
 
 pyvisa-py reports a peer that closed a socket as a plain timeout, so after a timeout the socket
 is checked, and a closed peer becomes InstrumentDisconnected rather than an endless run of
@@ -83,11 +85,18 @@ class VisaTransport(Transport):
         self.open_timeout_s = open_timeout_s
         self._manager: Any = None
         self._instrument: Any = None
+        #: pyvisa's low-level library and the session number: reads and writes go straight to
+        #: them (viRead, viWrite), as the resource's read_raw and write_raw do under their layers
+        self._visalib: Any = None
+        self._session: Any = None
+        self._chunk_bytes = 0
+        self._quiet = contextlib.ExitStack()  # the warnings ignored while open, as read_raw does
         self._sock: socket.socket | None = None  # the TCP socket under a SOCKET resource
         self._timeout_ms: float | None = None
 
     def _open(self) -> None:
         import pyvisa
+        from pyvisa.constants import StatusCode
 
         try:
             if self._manager is None:
@@ -100,6 +109,15 @@ class VisaTransport(Transport):
                 f"cannot open VISA resource {self.resource}: {error}"
             ) from None
         self._instrument = instrument
+        self._visalib, self._session = instrument.visalib, instrument.session
+        self._chunk_bytes = instrument.chunk_size
+        # a chunk read whole, or a device that does not say it is there, is no error
+        self._quiet.enter_context(
+            instrument.ignore_warning(
+                StatusCode.success_device_not_present,
+                StatusCode.success_max_count_read,
+            )
+        )
         self._sock = self._socket()
         self._timeout_ms = None
         instrument.read_termination = self.framing.read_terminator[-1:].decode("latin-1")
@@ -131,7 +149,10 @@ class VisaTransport(Transport):
 
     def _close(self) -> None:
         instrument, self._instrument, self._sock = self._instrument, None, None
+        self._visalib = self._session = None
         if instrument is not None:
+            with contextlib.suppress(Exception):
+                self._quiet.close()
             # a session whose peer vanished may refuse to close cleanly
             with contextlib.suppress(Exception):
                 instrument.close()
@@ -141,7 +162,7 @@ class VisaTransport(Transport):
             if self._timeout_ms is None or self._timeout_ms < WRITE_TIMEOUT_MS:
                 self._instrument.timeout = WRITE_TIMEOUT_MS
                 self._timeout_ms = WRITE_TIMEOUT_MS
-            self._instrument.write_raw(data)
+            self._visalib.write(self._session, data)
         except Exception as error:  # sorted out below; pyvisa is imported only on this path
             self._after_write_error(error)
             raise
@@ -163,7 +184,7 @@ class VisaTransport(Transport):
             self._instrument.timeout = timeout_ms
             self._timeout_ms = timeout_ms
         try:
-            return self._instrument.read_raw()
+            return self._visalib.read(self._session, self._chunk_bytes)[0]
         except Exception as error:  # sorted out below; pyvisa is imported only on this path
             return self._after_read_error(error)
 

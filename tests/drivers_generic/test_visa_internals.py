@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import dataclasses
 import socket
+import threading
 import time
+import warnings
 
 import pytest
 import serial
 from chargebook.drivers_generic import load_profile, open_electrometer
-from chargebook.drivers_generic.interface import InstrumentDisconnected
+from chargebook.drivers_generic.interface import InstrumentDisconnected, ProtocolError
 from chargebook.drivers_generic.visa_transport import (
     PYVISA_PY_INTERNALS,
     WRITE_TIMEOUT_MS,
@@ -125,3 +127,44 @@ def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):
         assert not driver.transport.is_open
     finally:
         driver.close()
+
+
+def _serve_once(reply: bytes) -> tuple[socket.socket, threading.Thread]:
+    """Listen on a loopback port; send ``reply`` to the first client once it has sent a line."""
+    server = socket.create_server(("127.0.0.1", 0))
+
+    def serve() -> None:
+        connection, _ = server.accept()
+        with connection:
+            connection.recv(64)
+            connection.sendall(reply)
+            connection.recv(64)  # hold the connection open until the client closes it
+
+    thread = threading.Thread(target=serve, daemon=True)
+    thread.start()
+    return server, thread
+
+
+def test_an_answer_longer_than_a_visa_chunk_is_read_whole_and_silently():
+    """Reads ask VISA for one chunk at a time (viRead); an answer longer than a chunk is read
+    on, chunk after chunk, with no VisaIOWarning for a chunk read whole (as read_raw has none),
+    and framed as the profile says: an over-long line is refused, the next line still read."""
+    profile = load_profile("scpi-generic")
+    over_long = b"9" * 50_000  # longer than pyvisa's chunk of 20 KiB: several reads
+    server, thread = _serve_once(over_long + b"\n+1.5E-09\n")
+    transport = VisaTransport(
+        f"TCPIP::127.0.0.1::{server.getsockname()[1]}::SOCKET", profile.framing
+    )
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")  # a VisaIOWarning fails the test
+            transport.open()
+            transport.write_line("FETC?")
+            with pytest.raises(ProtocolError, match="longer than 256 bytes") as refused:
+                transport.read_line(5.0)
+            assert refused.value.line == over_long[:256]
+            assert transport.read_line(5.0).raw == b"+1.5E-09"
+    finally:
+        transport.close()
+        server.close()
+        thread.join(5.0)
