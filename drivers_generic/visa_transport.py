@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import select
 import socket
 import time
 from collections.abc import Callable
@@ -31,6 +32,15 @@ from chargebook.drivers_generic.transport import Transport
 _PARITY_NAMES = {"N": "none", "E": "even", "O": "odd", "M": "mark", "S": "space"}
 _STOPBITS_NAMES = {1: "one", 1.5: "one_and_a_half", 2: "two"}
 _PEEK_WITHOUT_WAITING = int(socket.MSG_PEEK | socket.MSG_DONTWAIT)
+#: What poll is asked to report on the socket: bytes, urgent data, and on Linux the far end's
+#: close (POLLRDHUP); errors and hang-ups are always reported. Without poll, every look peeks.
+_POLL_EVENTS = (
+    select.POLLIN | select.POLLPRI | getattr(select, "POLLRDHUP", 0)
+    if hasattr(select, "poll")
+    else 0
+)
+#: Bytes waiting and nothing else: where POLLRDHUP exists, the far end is still there.
+_ONLY_BYTES = select.POLLIN if getattr(select, "POLLRDHUP", 0) else -1
 #: The profile's flow control, by pyvisa's ControlFlow name (dsrdtr: VISA's dtr_dsr).
 _FLOW_CONTROL_NAMES = {
     "none": "none",
@@ -92,6 +102,7 @@ class VisaTransport(Transport):
         self._chunk_bytes = 0
         self._quiet = contextlib.ExitStack()  # the warnings ignored while open, as read_raw does
         self._sock: socket.socket | None = None  # the TCP socket under a SOCKET resource
+        self._poll: Any = None  # select.poll on that socket, where the system has poll
         self._timeout_ms: float | None = None
 
     def _open(self) -> None:
@@ -119,6 +130,10 @@ class VisaTransport(Transport):
             )
         )
         self._sock = self._socket()
+        self._poll = None
+        if self._sock is not None and _POLL_EVENTS:
+            self._poll = select.poll()
+            self._poll.register(self._sock, _POLL_EVENTS)
         self._timeout_ms = None
         instrument.read_termination = self.framing.read_terminator[-1:].decode("latin-1")
         instrument.write_termination = ""
@@ -148,7 +163,7 @@ class VisaTransport(Transport):
         )
 
     def _close(self) -> None:
-        instrument, self._instrument, self._sock = self._instrument, None, None
+        instrument, self._instrument, self._sock, self._poll = self._instrument, None, None, None
         self._visalib = self._session = None
         if instrument is not None:
             with contextlib.suppress(Exception):
@@ -211,11 +226,17 @@ class VisaTransport(Transport):
         """Return True when the resource is a socket whose far end has closed or refused.
 
         One non-blocking peek: it reads b"" after the far end closed, and raises the socket's
-        pending error (reset, refused) if there is one.
+        pending error (reset, refused) if there is one. A poll comes first where the system has
+        one, and the peek only when it reports a close, an error or a hang-up: with nothing to
+        read, or bytes and no close (the common cases), the far end is there.
         """
         sock = self._sock
         if sock is None:
             return False
+        if self._poll is not None:
+            events = self._poll.poll(0)
+            if not events or events[0][1] == _ONLY_BYTES:
+                return False
         try:
             return sock.recv(1, _PEEK_WITHOUT_WAITING) == b""
         except BlockingIOError:

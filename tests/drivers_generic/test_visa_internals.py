@@ -129,8 +129,11 @@ def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):
         driver.close()
 
 
-def _serve_once(reply: bytes) -> tuple[socket.socket, threading.Thread]:
-    """Listen on a loopback port; send ``reply`` to the first client once it has sent a line."""
+def _serve_once(
+    reply: bytes, *, then_close: bool = False
+) -> tuple[socket.socket, threading.Thread]:
+    """Listen on a loopback port; send ``reply`` to the first client once it has sent a line,
+    then close the connection (``then_close``) or hold it open until the client closes it."""
     server = socket.create_server(("127.0.0.1", 0))
 
     def serve() -> None:
@@ -138,7 +141,8 @@ def _serve_once(reply: bytes) -> tuple[socket.socket, threading.Thread]:
         with connection:
             connection.recv(64)
             connection.sendall(reply)
-            connection.recv(64)  # hold the connection open until the client closes it
+            if not then_close:
+                connection.recv(64)
 
     thread = threading.Thread(target=serve, daemon=True)
     thread.start()
@@ -168,3 +172,25 @@ def test_an_answer_longer_than_a_visa_chunk_is_read_whole_and_silently():
         transport.close()
         server.close()
         thread.join(5.0)
+
+
+def test_a_last_answer_before_the_far_end_closes_is_read_then_the_close_is_seen():
+    """The look for a closed peer before each read (poll, then a peek only when poll reports a
+    close) must neither lose an answer sent just before the close nor miss the close: a read
+    that waited for pyvisa-py's own timeout instead would outlast this test's time limit."""
+    profile = load_profile("scpi-generic")
+    server, thread = _serve_once(b"+1.5E-09\n", then_close=True)
+    transport = VisaTransport(
+        f"TCPIP::127.0.0.1::{server.getsockname()[1]}::SOCKET", profile.framing
+    )
+    try:
+        transport.open()
+        transport.write_line("FETC?")
+        thread.join(5.0)  # the answer sent and the connection closed
+        assert transport.read_line(1000.0).raw == b"+1.5E-09"
+        with pytest.raises(InstrumentDisconnected, match="closed the connection"):
+            transport.read_line(1000.0)
+        assert not transport.is_open
+    finally:
+        transport.close()
+        server.close()
