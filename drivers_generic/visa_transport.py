@@ -9,10 +9,12 @@ profile's serial settings, flow control included. Bytes go through pyvisa's low-
 
 pyvisa-py reports a peer that closed a socket as a plain timeout, so after a timeout the socket
 is checked, and a closed peer becomes InstrumentDisconnected rather than an endless run of
-timeouts. The socket is found through pyvisa-py internals that are not its public interface
-(:data:`PYVISA_PY_INTERNALS`); tests/drivers_generic/test_visa_internals.py fails loudly when a
-pyvisa-py release changes them. With another VISA library there is no such socket, and a closed
-peer shows as timeouts until the driver counts the instrument lost.
+timeouts. Before a command, lines already waiting (late answers, in the socket or in the bytes
+pyvisa-py read past its last line) are reported, so the driver sets them aside as it does on a
+serial port. The socket and those bytes are found through pyvisa-py internals that are not its
+public interface (:data:`PYVISA_PY_INTERNALS`); tests/drivers_generic/test_visa_internals.py
+fails loudly when a pyvisa-py release changes them. With another VISA library there is no such
+socket, and a closed peer shows as timeouts until the driver counts the instrument lost.
 """
 
 from __future__ import annotations
@@ -51,7 +53,13 @@ _FLOW_CONTROL_NAMES = {
 #: The attribute paths into pyvisa-py this module relies on, not part of its public interface:
 #: ``resource.visalib.sessions`` (session number -> session object) and that session's
 #: ``interface`` (the socket.socket of a TCPIP SOCKET resource; a serial.Serial for ASRL).
-PYVISA_PY_INTERNALS = ("visalib.sessions", "sessions[session].interface")
+#: Also, for a TCPIP SOCKET session, its ``_pending_buffer``: the bytes it received past the
+#: line it returned (a bytearray, replaced by each read), which only it can see.
+PYVISA_PY_INTERNALS = (
+    "visalib.sessions",
+    "sessions[session].interface",
+    "sessions[session]._pending_buffer",
+)
 DEFAULT_VISA_LIBRARY = "@py"
 #: The least time a command is given to leave, ms. VISA has one timeout for reads and writes,
 #: and a read that only looks for waiting lines sets it to 1 ms: a write under that timeout
@@ -65,12 +73,17 @@ def visa_library_spec(explicit: str | None = None, environ: dict[str, str] | Non
     return explicit or env.get("PYVISA_LIBRARY") or DEFAULT_VISA_LIBRARY
 
 
+def pyvisa_py_session(resource: Any) -> Any:
+    """Return pyvisa-py's session object for an open ``resource``, or None when the library is
+    not pyvisa-py or its internals differ."""
+    sessions = getattr(resource.visalib, "sessions", None)
+    return sessions.get(resource.session) if isinstance(sessions, dict) else None
+
+
 def pyvisa_py_interface(resource: Any) -> Any:
     """Return the object pyvisa-py talks through for an open ``resource`` (a socket, a serial
     port), or None when the library is not pyvisa-py or its internals differ."""
-    sessions = getattr(resource.visalib, "sessions", None)
-    session = sessions.get(resource.session) if isinstance(sessions, dict) else None
-    return getattr(session, "interface", None)
+    return getattr(pyvisa_py_session(resource), "interface", None)
 
 
 class VisaTransport(Transport):
@@ -103,6 +116,7 @@ class VisaTransport(Transport):
         self._quiet = contextlib.ExitStack()  # the warnings ignored while open, as read_raw does
         self._sock: socket.socket | None = None  # the TCP socket under a SOCKET resource
         self._poll: Any = None  # select.poll on that socket, where the system has poll
+        self._visa_session: Any = None  # pyvisa-py's session when it holds a _pending_buffer
         self._timeout_ms: float | None = None
 
     def _open(self) -> None:
@@ -130,7 +144,11 @@ class VisaTransport(Transport):
             )
         )
         self._sock = self._socket()
-        self._poll = None
+        self._poll = self._visa_session = None
+        if self._sock is not None:
+            session = pyvisa_py_session(instrument)
+            if isinstance(getattr(session, "_pending_buffer", None), bytearray):
+                self._visa_session = session
         if self._sock is not None and _POLL_EVENTS:
             self._poll = select.poll()
             self._poll.register(self._sock, _POLL_EVENTS)
@@ -164,6 +182,7 @@ class VisaTransport(Transport):
 
     def _close(self) -> None:
         instrument, self._instrument, self._sock, self._poll = self._instrument, None, None, None
+        self._visa_session = None
         self._visalib = self._session = None
         if instrument is not None:
             with contextlib.suppress(Exception):
@@ -181,6 +200,14 @@ class VisaTransport(Transport):
         except Exception as error:  # sorted out below; pyvisa is imported only on this path
             self._after_write_error(error)
             raise
+
+    def input_waiting(self) -> bool:
+        """Return True when received bytes wait: in this transport's buffer, in pyvisa-py's own
+        (bytes read past the line it returned), or in the socket; or when the far end closed
+        or failed (the read that follows says so). One poll; no look without a socket."""
+        if self._buffer or (self._visa_session and self._visa_session._pending_buffer):
+            return True
+        return self._poll is not None and bool(self._poll.poll(0))
 
     def _after_write_error(self, error: Exception) -> None:
         """Raise InstrumentDisconnected when a write failed because the wire is gone."""
