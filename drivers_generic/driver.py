@@ -45,6 +45,8 @@ SLOW_SHARE = 0.5
 SLOW_WINDOW = 20
 #: The most stale lines dropped before one command (an instrument that never stops talking).
 MAX_STALE_LINES = 1000
+#: The most command lines kept framed for sending again (commands with arguments vary).
+MAX_FRAMES_KEPT = 64
 
 
 class _NoReply(Exception):
@@ -66,6 +68,10 @@ class ProfileElectrometer:
         self.clock = clock
         self._pending: deque[Sample | ProtocolError] = deque()
         self._rendered: dict[str, list[str]] = {}  # commands without arguments, rendered
+        self._frames: dict[str, bytes] = {}  # lines as sent: encoded, terminated, once each
+        self._push = profile.mode == "push"
+        #: The read query when it is one line without arguments (the common case), or None.
+        self._read_query = self._single_line("read")
         #: The latest answers: seconds each took, or None for a late answer set aside.
         self._recent: deque[float | None] = deque(maxlen=SLOW_WINDOW)
         self._unusual = 0  # late or slow answers in _recent
@@ -114,7 +120,10 @@ class ProfileElectrometer:
 
     def read_charge(self) -> Sample:
         """Return the integrated charge now, in nC, with the instrument's status."""
-        return self._run("read", self._reading)
+        query = self._read_query
+        if query is None:  # not declared (refused), or several lines (sent in turn)
+            return self._run("read", self._reading)
+        return self._exchange(query, self._reading)
 
     def next_sample(self, timeout_s: float) -> Sample | None:
         """Return the next reading line the instrument sends unasked, or None after timeout_s."""
@@ -158,6 +167,19 @@ class ProfileElectrometer:
                 result = self._exchange(line, interpret)
         return result  # type: ignore[return-value]
 
+    def _single_line(self, name: str) -> str | None:
+        """Return command ``name``'s line when the instrument can do it and it is one line
+        without arguments (rendered here, once), else None."""
+        spec = self.profile.commands.get(name)
+        if (
+            spec is None
+            or COMMAND_CAPABILITY[name] not in self.profile.capabilities
+            or spec.arguments
+            or len(spec.templates) != 1
+        ):
+            return None
+        return self._lines(spec, {})[0]
+
     def _lines(self, spec: CommandSpec, arguments: dict[str, object]) -> list[str]:
         """Return the command's lines; a command without arguments is rendered once."""
         if arguments:
@@ -177,16 +199,12 @@ class ProfileElectrometer:
         :class:`InstrumentTimeout`, not in a chain of queries without end.
         """
         timing = self.profile.timing
+        frame = self._frame(line)
         for _ in range(timing.retries + 1):
-            self._drop_stale_lines()
-            self.transport.write_line(line)
-            sent_s = time.monotonic()
             try:
-                answer = self._await_answer(interpret, timing.timeout_s)
+                return self._ask(frame, interpret, timing.timeout_s)
             except _NoReply:
                 continue
-            self._remember_answer(time.monotonic() - sent_s)
-            return answer
         if ask_error_queue and self.profile.confirmation.style == "error_queue":
             self._check_error_queue(line)
         raise InstrumentTimeout(
@@ -194,25 +212,53 @@ class ProfileElectrometer:
             f"of {timing.timeout_s} s"
         )
 
-    def _await_answer(self, interpret: Callable[[ReceivedLine], T], timeout_s: float) -> T:
-        push = self.profile.mode == "push"
-        deadline = time.monotonic() + timeout_s
+    def _frame(self, line: str) -> bytes:
+        """Return ``line`` as sent, framed by the transport once (commands without arguments
+        are sent again and again; those with arguments are kept until there are many)."""
+        frame = self._frames.get(line)
+        if frame is None:
+            frame = self.transport.frame(line)
+            if len(self._frames) < MAX_FRAMES_KEPT:
+                self._frames[line] = frame
+        return frame
+
+    def _ask(self, frame: bytes, interpret: Callable[[ReceivedLine], T], timeout_s: float) -> T:
+        """Send ``frame`` once and return its interpreted answer; raise _NoReply when none came
+        within ``timeout_s``.
+
+        The common case is flat: one write, one line read, one parse. Lines waiting before the
+        write are late answers (taken first, :meth:`_drop_stale_lines`); a line that is not
+        this command's answer is set aside on the way (:meth:`_set_aside`).
+        """
+        transport = self.transport
+        if transport.input_waiting():
+            self._drop_stale_lines()
+        transport.send(frame)
+        sent_s = time.monotonic()
+        keep_readings = self._push and interpret != self._reading  # pushed while waiting
+        remaining_s = timeout_s
         while True:
-            remaining = deadline - time.monotonic()
             try:
-                line = self.transport.read_line(max(remaining, 0.0))
+                line = transport.read_line(remaining_s)
                 if line is None:
                     raise _NoReply
-                if push and interpret != self._reading and self._keep_if_reading(line):
-                    continue
-                return interpret(line)
+                if not (keep_readings and self._keep_if_reading(line)):
+                    answer = interpret(line)
+                    self._remember_answer(time.monotonic() - sent_s)
+                    return answer
             except ProtocolError as error:
-                if push:
-                    self._pending.append(error)
-                elif error.line and self._answers_another_command(error.line):
-                    self._late_reply()  # a late answer to an earlier command: not this one's
-                else:
-                    raise
+                self._set_aside(error)
+            remaining_s = max(sent_s + timeout_s - time.monotonic(), 0.0)
+
+    def _set_aside(self, error: ProtocolError) -> None:
+        """Keep a refused line for next_sample (push mode) or count it as a late answer to an
+        earlier command; raise ``error`` when it is this command's answer, and wrong."""
+        if self._push:
+            self._pending.append(error)
+        elif error.line and self._answers_another_command(error.line):
+            self._late_reply()  # a late answer to an earlier command: not this one's
+        else:
+            raise error
 
     # -- late and slow answers -----------------------------------------------------------------
     def _drop_stale_lines(self) -> None:

@@ -68,22 +68,23 @@ def parse_reading(fmt: ReadingFormat, raw: bytes, t_s: float, encoding: str = "a
     groups = fmt.pattern.groupindex  # read group by group: no dict of every group per line
     value = parse_number(match["value"], fmt.number_format, raw)
     unit = ("unit" in groups and match["unit"]) or fmt.unit
-    if unit not in CHARGE_UNITS_IN_nC:
+    scale = CHARGE_UNITS_IN_nC.get(unit)
+    if scale is None:
         raise ProtocolError(f"unknown charge unit {unit!r}", raw)
-    charge_nC = value * CHARGE_UNITS_IN_nC[unit]
+    charge_nC = value * scale
     if not math.isfinite(charge_nC):
         raise ProtocolError(f"charge {value!r} {unit} is not finite in nC", raw)
-    status = _status(fmt, match["status"] if "status" in groups else None, raw)
+    status = _status(fmt, match["status"], raw) if "status" in groups else ReadingStatus.OK
     if fmt.overrange_abs is not None and abs(value) >= fmt.overrange_abs:
         status = ReadingStatus.OVERRANGE
     complete = False
     if fmt.complete_group is not None:
         complete = match[fmt.complete_group] == fmt.complete_value
-    return Sample(t_s=t_s, charge_nC=charge_nC, status=status, complete=complete, raw=text)
+    return Sample(t_s, charge_nC, status, complete, text)
 
 
 def _status(fmt: ReadingFormat, word: str | None, raw: bytes) -> ReadingStatus:
-    if word is None:
+    if word is None:  # an optional status field left out
         return ReadingStatus.OK
     try:
         return fmt.status_map[word]

@@ -96,16 +96,22 @@ class Transport(ABC):
             self._open_now = False
             self._close()
 
+    def frame(self, line: str | bytes) -> bytes:
+        """Return the bytes that send ``line``: encoded, with the profile's write terminator."""
+        data = line.encode(self.framing.encoding) if isinstance(line, str) else line
+        return data + self.framing.write_terminator
+
     def write_line(self, line: str | bytes) -> None:
         """Send one line, adding the profile's write terminator."""
+        self.send(self.frame(line))
+
+    def send(self, frame: bytes) -> None:
+        """Send a line already framed by :meth:`frame` (a command rendered once, sent often)."""
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
-        data = (line.encode(self.framing.encoding) if isinstance(line, str) else line) + (
-            self.framing.write_terminator
-        )
-        self._record(TrafficDirection.SENT, data)
+        self._record(TrafficDirection.SENT, frame)
         try:
-            self._write(data)
+            self._write(frame)
         except InstrumentDisconnected:
             self._lost()
             raise
@@ -118,21 +124,26 @@ class Transport(ABC):
         """
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
-        deadline = time.monotonic() + timeout_s
-        while True:
-            line = self._take_line() if self._buffer else None
+        if self._buffer:
+            line = self._take_line()
             if line is not None:
                 return line
-            remaining = deadline - time.monotonic()
+        remaining = timeout_s if timeout_s > 0 else 0.0
+        deadline = time.monotonic() + remaining
+        while True:
             try:
-                chunk = self._read_available(max(remaining, 0.0))
+                chunk = self._read_available(remaining)
             except InstrumentDisconnected:
                 self._lost()
                 raise
             if chunk:
                 self._buffer += chunk
+                line = self._take_line()
+                if line is not None:
+                    return line
             elif chunk is None or remaining <= 0:
                 return None
+            remaining = max(deadline - time.monotonic(), 0.0)
 
     def input_waiting(self) -> bool:
         """Return True when received bytes wait to be read (those already buffered here; a

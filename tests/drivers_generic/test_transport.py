@@ -56,6 +56,29 @@ def test_every_line_is_reported_to_the_traffic_listener_with_its_terminator():
     assert received.t_s == 2.0
 
 
+def test_a_command_framed_once_is_recorded_with_its_own_time_each_time_it_is_sent():
+    seen = []
+    ticks = iter([1.0, 2.0, 3.0, 4.0])
+    transport = opened(
+        [("FETC?", "+1"), ("FETC?", "+2")],
+        traffic=lambda d, t, raw: seen.append((d.value, t, raw)),
+        clock=ticks.__next__,
+    )
+    frame = transport.frame("FETC?")
+    assert frame == b"FETC?\r\n"
+    answers = []
+    for _ in range(2):
+        transport.send(frame)
+        answers.append(transport.read_line(0.0))
+    assert [(line.t_s, line.raw) for line in answers] == [(2.0, b"+1"), (4.0, b"+2")]
+    assert seen == [
+        ("tx", 1.0, b"FETC?\r\n"),
+        ("rx", 2.0, b"+1\r\n"),
+        ("tx", 3.0, b"FETC?\r\n"),
+        ("rx", 4.0, b"+2\r\n"),
+    ]
+
+
 def test_a_closed_transport_refuses_to_write_or_read():
     transport = ScriptedTransport(CRLF, [])
     with pytest.raises(InstrumentDisconnected):
