@@ -10,10 +10,9 @@ a polarity effect above 0.4 %, unstable readings): it is returned with the resul
 from __future__ import annotations
 
 import enum
+import numbers
 from dataclasses import dataclass
 from typing import Literal, TypeVar
-
-import numpy as np
 
 Severity = Literal["info", "warning", "error"]
 Choice = TypeVar("Choice", bound=enum.StrEnum)
@@ -24,7 +23,9 @@ def describe_value(value: object) -> str:
     """Return a short printable form of an input value for an error message."""
     if isinstance(value, bool) or value is None:
         return repr(value)
-    if isinstance(value, int | float | np.integer | np.floating):
+    # numbers.Real holds numpy's integers and floats too, without importing numpy (a command
+    # that only reads the record imports this module and no numpy)
+    if isinstance(value, numbers.Real):
         return f"{float(value):g}"
     if isinstance(value, str):
         return repr(value)

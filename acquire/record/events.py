@@ -4,7 +4,7 @@ An event is who (``actor``) did what (``kind``), when, and why (``detail``, a JS
 kind is a member of :class:`EventKind`, whose values are exactly the strings stored in the
 ``events.kind`` column, so station files written before this module read the same. Each kind
 declares its detail as a ``TypedDict`` (or, for ``thresholds``, the frozen dataclass whose fields
-it stores) in :data:`DETAIL_TYPES`. Writers build the detail as that type, so the type checker
+it stores) in :func:`detail_types`. Writers build the detail as that type, so the type checker
 sees its keys; :meth:`Store.add_event` calls :func:`check_detail`, which refuses, naming the kind
 and the key, a detail with a key missing or a key the kind does not declare.
 
@@ -17,11 +17,11 @@ from __future__ import annotations
 
 import dataclasses
 import enum
+import functools
 from collections.abc import Mapping
 from typing import Any, NotRequired, TypedDict, is_typeddict
 
 from chargebook.corrections.errors import InputError
-from chargebook.corrections.stability import Thresholds
 
 
 class EventKind(enum.StrEnum):
@@ -352,49 +352,56 @@ class VisitReviewed(SessionReviewed):
     visit_id: int
 
 
-#: The declared shape of each kind's detail: a TypedDict, or a dataclass whose fields it holds.
-DETAIL_TYPES: dict[EventKind, type] = {
-    EventKind.SESSION_CREATED: SessionCreated,
-    EventKind.SESSION_STATUS: SessionStatus,
-    EventKind.SET_STATUS: SetStatus,
-    EventKind.STATION_NAMED: StationNamed,
-    EventKind.THRESHOLDS: Thresholds,
-    EventKind.ACQUISITION: Acquisition,
-    EventKind.CARRIED_FACTORS: CarriedFactors,
-    EventKind.LEAKAGE_SUBTRACTION_CHOSEN: LeakageSubtractionChosen,
-    EventKind.STATE_CHANGED: StateChanged,
-    EventKind.STEP_ENTERED: StepEntered,
-    EventKind.STEP_SKIPPED: StepSkipped,
-    EventKind.ENVIRONMENT_ENTERED: EnvironmentEntered,
-    EventKind.MANUAL_STEP_DONE: ManualStepDone,
-    EventKind.BIAS_CHANGED: BiasChanged,
-    EventKind.READING_RECORDED: ReadingRecorded,
-    EventKind.READING_DROPPED: ReadingDropped,
-    EventKind.SESSION_RESUMED: SessionResumed,
-    EventKind.STATE_RESTORED: StateRestored,
-    EventKind.INSTRUMENT_IDENTIFIED: InstrumentIdentified,
-    EventKind.INSTRUMENT_LOST: InstrumentMessage,
-    EventKind.INSTRUMENT_FAULT: InstrumentMessage,
-    EventKind.INSTRUMENT_BACK: InstrumentBack,
-    EventKind.DAEMON_STARTED: DaemonStarted,
-    EventKind.DAEMON_RESTARTED: DaemonRestarted,
-    EventKind.DAEMON_STOPPED: DaemonStopped,
-    EventKind.DAEMON_ERROR: DaemonError,
-    EventKind.SESSION_REVIEWED: SessionReviewed,
-    EventKind.REPLAY: Replay,
-    EventKind.REPLAY_NOT_REPRODUCED: ReplayNotReproduced,
-    EventKind.NOTE: Note,
-    EventKind.REGISTER_ROW: RegisterRowAdded,
-    EventKind.MU_PER_READING_SET: MuPerReadingSet,
-    EventKind.DELIVERY_SHORT: DeliveryShort,
-    EventKind.VISIT_CREATED: VisitCreated,
-    EventKind.VISIT_STATUS: VisitStatus,
-    EventKind.VISIT_BEAM_ADDED: VisitBeamAdded,
-    EventKind.VISIT_BEAM_STARTED: VisitBeamStarted,
-    EventKind.VISIT_BEAM: VisitBeam,
-    EventKind.VISIT_BEAM_STATUS: VisitBeamStatus,
-    EventKind.VISIT_REVIEWED: VisitReviewed,
-}
+@functools.cache
+def detail_types() -> dict[EventKind, type]:
+    """Return the declared shape of each kind's detail (by kind): a TypedDict,
+    or a dataclass whose fields it holds. Made on first use: ``thresholds`` declares its
+    detail as corrections' :class:`Thresholds`, whose module imports numpy, which a command
+    that only reads the record then never imports."""
+    from chargebook.corrections.stability import Thresholds
+
+    return {
+        EventKind.SESSION_CREATED: SessionCreated,
+        EventKind.SESSION_STATUS: SessionStatus,
+        EventKind.SET_STATUS: SetStatus,
+        EventKind.STATION_NAMED: StationNamed,
+        EventKind.THRESHOLDS: Thresholds,
+        EventKind.ACQUISITION: Acquisition,
+        EventKind.CARRIED_FACTORS: CarriedFactors,
+        EventKind.LEAKAGE_SUBTRACTION_CHOSEN: LeakageSubtractionChosen,
+        EventKind.STATE_CHANGED: StateChanged,
+        EventKind.STEP_ENTERED: StepEntered,
+        EventKind.STEP_SKIPPED: StepSkipped,
+        EventKind.ENVIRONMENT_ENTERED: EnvironmentEntered,
+        EventKind.MANUAL_STEP_DONE: ManualStepDone,
+        EventKind.BIAS_CHANGED: BiasChanged,
+        EventKind.READING_RECORDED: ReadingRecorded,
+        EventKind.READING_DROPPED: ReadingDropped,
+        EventKind.SESSION_RESUMED: SessionResumed,
+        EventKind.STATE_RESTORED: StateRestored,
+        EventKind.INSTRUMENT_IDENTIFIED: InstrumentIdentified,
+        EventKind.INSTRUMENT_LOST: InstrumentMessage,
+        EventKind.INSTRUMENT_FAULT: InstrumentMessage,
+        EventKind.INSTRUMENT_BACK: InstrumentBack,
+        EventKind.DAEMON_STARTED: DaemonStarted,
+        EventKind.DAEMON_RESTARTED: DaemonRestarted,
+        EventKind.DAEMON_STOPPED: DaemonStopped,
+        EventKind.DAEMON_ERROR: DaemonError,
+        EventKind.SESSION_REVIEWED: SessionReviewed,
+        EventKind.REPLAY: Replay,
+        EventKind.REPLAY_NOT_REPRODUCED: ReplayNotReproduced,
+        EventKind.NOTE: Note,
+        EventKind.REGISTER_ROW: RegisterRowAdded,
+        EventKind.MU_PER_READING_SET: MuPerReadingSet,
+        EventKind.DELIVERY_SHORT: DeliveryShort,
+        EventKind.VISIT_CREATED: VisitCreated,
+        EventKind.VISIT_STATUS: VisitStatus,
+        EventKind.VISIT_BEAM_ADDED: VisitBeamAdded,
+        EventKind.VISIT_BEAM_STARTED: VisitBeamStarted,
+        EventKind.VISIT_BEAM: VisitBeam,
+        EventKind.VISIT_BEAM_STATUS: VisitBeamStatus,
+        EventKind.VISIT_REVIEWED: VisitReviewed,
+    }
 
 
 _KINDS = frozenset(kind.value for kind in EventKind)
@@ -402,7 +409,7 @@ _KINDS = frozenset(kind.value for kind in EventKind)
 
 def detail_keys(kind: EventKind) -> tuple[frozenset[str], frozenset[str]]:
     """Return (required keys, optional keys) of the detail ``kind`` declares."""
-    declared = DETAIL_TYPES[kind]
+    declared = detail_types()[kind]
     if is_typeddict(declared):
         required: frozenset[str] = getattr(declared, "__required_keys__")  # noqa: B009
         optional: frozenset[str] = getattr(declared, "__optional_keys__")  # noqa: B009
@@ -456,4 +463,4 @@ def _keys_allowed(required: frozenset[str], optional: frozenset[str]) -> str:
     return words
 
 
-__all__ = ["DETAIL_TYPES", "EventKind", "check_detail", "detail_keys", "event_kind"]
+__all__ = ["EventKind", "check_detail", "detail_keys", "detail_types", "event_kind"]

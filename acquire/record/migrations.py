@@ -24,10 +24,15 @@ import uuid
 from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record import chain
-from sqlite_utils import Database
+
+if TYPE_CHECKING:
+    import sqlite3
+
+    from sqlite_utils import Database
 
 SESSION_STATUSES = ("open", "finished", "aborted", "interrupted")
 #: A session in one of these states is closed for good: its status can no longer change.
@@ -684,7 +689,7 @@ MIGRATIONS: tuple[Migration, ...] = (
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
-def schema_version(db: Database) -> int:
+def schema_version(db: Database | sqlite3.Connection) -> int:
     """Return the schema version of ``db`` (``PRAGMA user_version``; 0 for a new file)."""
     return int(db.execute("PRAGMA user_version").fetchone()[0])
 

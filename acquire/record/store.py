@@ -56,10 +56,10 @@ from chargebook.acquire.record.migrations import (
     schema_version,
 )
 from chargebook.corrections.errors import InputError
-from sqlite_utils import Database
 
 if TYPE_CHECKING:
     from chargebook.acquire.record.reader import RecordReader
+    from sqlite_utils import Database
 
 __all__ = [
     "CAPTURE_MODES",
@@ -470,10 +470,13 @@ class Store:
     """The station database. Every public write method commits before it returns."""
 
     def __init__(
-        self, db: Database, path: Path | None, now: Callable[[], datetime] = utc_now
+        self, conn: sqlite3.Connection, path: Path | None, now: Callable[[], datetime] = utc_now
     ) -> None:
         """Wrap an open, migrated database. Use :meth:`open` or :meth:`memory` instead."""
-        self.db = db
+        #: The connection every read and write goes through (plain sqlite3: a read-side
+        #: command imports no sqlite-utils, which brings numpy, click and dateutil with it).
+        self.conn = conn
+        self._db: Database | None = None
         self.path = path
         self._now = now
         self._lock = threading.RLock()
@@ -585,11 +588,11 @@ class Store:
         read_only: bool,
         now: Callable[[], datetime],
     ) -> Store:
-        db = Database(conn)
-        db.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
-        db.execute("PRAGMA foreign_keys = ON")
+        conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        conn.execute("PRAGMA foreign_keys = ON")
+        store = cls(conn, path, now)
         if read_only:
-            version = schema_version(db)
+            version = schema_version(conn)
             if version > SCHEMA_VERSION:
                 raise StoreError(
                     f"schema version {version} was written by a newer chargebook; this one reads "
@@ -602,15 +605,25 @@ class Store:
                 )
         else:
             if path is not None:
-                db.enable_wal()
-            db.execute("PRAGMA synchronous = FULL")
-            migrate(db)
-        return cls(db, path, now)
+                store.db.enable_wal()
+            conn.execute("PRAGMA synchronous = FULL")
+            migrate(store.db)
+        return store
+
+    @property
+    def db(self) -> Database:
+        """The connection as sqlite-utils' Database (for migrating and savepoints), imported
+        and made on first use: reading the record needs none of it."""
+        if self._db is None:
+            from sqlite_utils import Database
+
+            self._db = Database(self.conn)
+        return self._db
 
     def close(self) -> None:
         """Close the database connection (everything written is already committed)."""
         with self._lock:
-            self.db.close()
+            self.conn.close()
             if self._snapshot is not None:
                 shutil.rmtree(self._snapshot, ignore_errors=True)
                 self._snapshot = None
@@ -625,7 +638,7 @@ class Store:
     def schema_version(self) -> int:
         """Return the schema version of the open database."""
         with self._lock:
-            return schema_version(self.db)
+            return schema_version(self.conn)
 
     # ---------------------------------------------------------------------------- helpers
 
@@ -643,7 +656,7 @@ class Store:
         time; if the transaction fails, those lines are kept again for the next commit.
         """
         with self._lock:
-            conn = self.db.conn
+            conn = self.conn
             if conn.in_transaction:
                 written = len(self._events_in_flight)
                 try:
@@ -754,7 +767,7 @@ class Store:
         """Hold the lock; in the block, wait at most ``timeout_ms`` for another writer's lock
         (instead of BUSY_TIMEOUT_MS)."""
         with self._lock:
-            conn = self.db.conn
+            conn = self.conn
             conn.execute(f"PRAGMA busy_timeout = {int(timeout_ms)}")
             try:
                 yield
@@ -764,7 +777,7 @@ class Store:
     def checkpoint(self) -> None:
         """Copy every commit held in the ``-wal`` file into the database file itself."""
         with self._lock:
-            self.db.conn.execute("PRAGMA wal_checkpoint(FULL)").fetchall()
+            self.conn.execute("PRAGMA wal_checkpoint(FULL)").fetchall()
 
     def _stamp(self) -> str:
         if self._now is utc_now:
@@ -784,7 +797,7 @@ class Store:
             return []  # an id no SQLite row can have (a typed 10**30): nothing matches it
         sql = f"SELECT {_column_list(cls)} FROM {table} WHERE {where} ORDER BY id"
         with self._lock:
-            return self.db.execute(sql, params).fetchall()
+            return self.conn.execute(sql, params).fetchall()
 
     def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
         found = self._select(cls, table, "id = ?", (row_id,))
@@ -806,7 +819,7 @@ class Store:
         seq, previous = self._chain_head(key)
         digest = chain.link(previous, seq + 1, table, values)
         columns = [*row, "chain_seq", "chain_hash"]
-        self.db.execute(
+        self.conn.execute(
             f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join('?' * len(columns))})",
             (*row.values(), seq + 1, digest),
         )
@@ -836,23 +849,23 @@ class Store:
             rows.append((*values, seq + 1, digest))
             heads[key] = (seq + 1, digest)
             next_id += 1
-        self.db.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        self.conn.executemany(_INSERT_CHAINED["traffic"], rows)
         for key, (seq, digest) in heads.items():
             self._set_chain_head(key, seq, digest)
         return next_id - 1
 
     def _next_id(self, table: str) -> int:
-        return int(self.db.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+        return int(self.conn.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
 
     def _chain_head(self, key: int) -> tuple[int, str]:
         """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
-        row = self.db.execute(
+        row = self.conn.execute(
             "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
         ).fetchone()
         return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
 
     def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
-        self.db.execute(
+        self.conn.execute(
             "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
             "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
             (key, seq, digest),
@@ -957,12 +970,12 @@ class Store:
             }
             # first: a trigger refuses a status change that is not its last event
             self._event(session_id, actor, EventKind.SESSION_STATUS, change)
-            self.db.execute(
+            self.conn.execute(
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
             if status == "open":  # resumed: what it recorded before is no longer its result
-                self.db.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
+                self.conn.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
             elif self.results_on_close is not None:
                 kept = self.results_on_close(self, session_id)
                 if kept is not None:
@@ -973,7 +986,7 @@ class Store:
         the evaluation that computed it (``acquire.session.stored_result``)."""
         with self.atomic():
             self._one(SessionRow, "sessions", session_id, "session")
-            self.db.execute(
+            self.conn.execute(
                 "INSERT OR REPLACE INTO session_results "
                 "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
                 (session_id, _require_text("stamp", stamp), result_json, self._stamp()),
@@ -998,7 +1011,7 @@ class Store:
     def station(self) -> StationRow:
         """Return the station that keeps this file (its UUID and name)."""
         with self._lock:
-            row = self.db.execute("SELECT uuid, name, created_at FROM station").fetchone()
+            row = self.conn.execute("SELECT uuid, name, created_at FROM station").fetchone()
         return StationRow(*row)
 
     def name_station(self, name: str, actor: str = DAEMON_ACTOR) -> bool:
@@ -1011,7 +1024,7 @@ class Store:
                 return False
             renamed: events.StationNamed = {"from": old, "to": name}
             self._event(None, actor, EventKind.STATION_NAMED, renamed)
-            self.db.execute("UPDATE station SET name = ?", (name,))
+            self.conn.execute("UPDATE station SET name = ?", (name,))
         return True
 
     def sessions(self) -> list[SessionRow]:
@@ -1089,7 +1102,7 @@ class Store:
             }
             # first: a trigger refuses a status change that is not its last event
             self._event(old.session_id, actor, EventKind.SET_STATUS, change)
-            self.db.execute(
+            self.conn.execute(
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
             )
@@ -1275,7 +1288,7 @@ class Store:
         if not _storable(params):
             return []  # an id no SQLite row can have: nothing matches it
         with self._lock:
-            return self.db.execute(sql, params).fetchall()
+            return self.conn.execute(sql, params).fetchall()
 
     def chain_places(self, table: str, session_id: int) -> dict[int, int]:
         """Return row id -> place in the session's chain (``chain_seq``) for the session's rows
@@ -1284,7 +1297,7 @@ class Store:
         if table not in chain.CHAINED_TABLES:
             raise InputError("table", table, ", ".join(chain.CHAINED_TABLES), "is not chained")
         with self._lock:
-            rows = self.db.execute(
+            rows = self.conn.execute(
                 f"SELECT id, chain_seq FROM {table} WHERE session_id = ?", (session_id,)
             ).fetchall()
         return {int(row_id): int(seq) for row_id, seq in rows}
@@ -1364,7 +1377,7 @@ class Store:
                 seq += 1
                 digest = chain.link(digest, seq, "inputs", values)
                 chained.append((*values, seq, digest))
-            self.db.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            self.conn.executemany(_INSERT_CHAINED["inputs"], chained)
             if chained:
                 self._set_chain_head(key, seq, digest)
         return next_id + len(rows) - 1 if rows else 0
@@ -1440,13 +1453,15 @@ class Store:
         params = () if session_id is None else (session_id,)
         with self._lock:
             return int(
-                self.db.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[0]
+                self.conn.execute(f"SELECT count(*) FROM traffic WHERE {where}", params).fetchone()[
+                    0
+                ]
             )
 
     def newest_traffic_id(self) -> int:
         """Return the id of the newest raw line recorded (0 when there is none)."""
         with self._lock:
-            return int(self.db.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
+            return int(self.conn.execute("SELECT coalesce(max(id), 0) FROM traffic").fetchone()[0])
 
     def traffic(self, session_id: int | None) -> list[TrafficRow]:
         """Return the session's raw traffic in the order recorded (``None``: outside sessions)."""

@@ -17,6 +17,8 @@ library's default from AAPM TG-142). Each session's kind says whether it measure
 from __future__ import annotations
 
 import contextlib
+import functools
+import json
 import statistics
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -172,12 +174,19 @@ def _point(
         within_tolerance=within,
         problem=problem,
         flags=tuple(code for code, _ in result.flags),
-        kind=session_kind(entry.session.plan()),
+        kind=_plan_kind(entry.session.plan_json),
         review=review_status(entry.review),
         session_uuid=entry.session.uuid,
         U_expanded_pct=result.U_expanded_pct,
         station=station,
     )
+
+
+@functools.lru_cache(maxsize=64)
+def _plan_kind(plan_json: str) -> str:
+    """Return the kind of session a stored plan makes (``session_kind``), each distinct plan
+    decoded once: a station's thousands of sessions follow a few plans."""
+    return session_kind(json.loads(plan_json))
 
 
 def _baseline_value(

@@ -15,11 +15,11 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.record.events import (
-    DETAIL_TYPES,
     EventKind,
     InstrumentIdentified,
     check_detail,
     detail_keys,
+    detail_types,
 )
 from chargebook.acquire.record.store import EventRow, Store
 from chargebook.corrections.errors import InputError
@@ -88,7 +88,7 @@ def _checked(events: list[EventRow]) -> set[str]:
 
 def test_every_stored_kind_round_trips_through_a_station_file(tmp_path: Path) -> None:
     assert [kind.value for kind in EventKind] == list(STORED_KINDS)
-    assert set(DETAIL_TYPES) == set(EventKind)
+    assert set(detail_types()) == set(EventKind)
     path = tmp_path / "station.sqlite"
     with Store.open(path) as store:
         session_id = store.create_session({}, {"steps": []}, "trs398", "6 MV")

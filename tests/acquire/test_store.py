@@ -618,7 +618,7 @@ def test_remembered_rows_are_the_rows_recorded_after_new_rows_status_changes_and
         _reading(store, session_id, second, 3, NAN)
     grouped = store.readings_by_set(session_id)
     _reading(store, session_id, second, 2, 20.04)
-    fresh = Store(store.db, None)  # the same file read afresh, nothing remembered
+    fresh = Store(store.conn, None)  # the same file read afresh, nothing remembered
     assert store.sets(session_id) == fresh.sets(session_id)
     assert [s.status for s in store.sets(session_id)] == ["superseded", "collecting"]
     assert store.readings(session_id) == fresh.readings(session_id)
