@@ -403,6 +403,59 @@ class _KnownRows:
     stale: set[int] = field(default_factory=set)
 
 
+#: How many chains' ends and rows' owners :class:`_Known` keeps before it starts again (a
+#: daemon appends to one or two chains; a bulk import through the store to thousands).
+_KNOWN_AT_MOST = 256
+
+
+@dataclass
+class _Known:
+    """What the store's connection knows of the file without asking it again: the next id of
+    each appended table, the ends of the chains (as committed, and as the open transaction
+    moved them, written to ``chain_heads`` at its commit), the sessions known to exist and each
+    known reading set's session. All of it is forgotten when another connection commits to the
+    file (``PRAGMA data_version``, checked as each transaction begins) or a transaction fails."""
+
+    data_version: int | None = None
+    next_ids: dict[str, int] = field(default_factory=dict)
+    heads: dict[int, tuple[int, str]] = field(default_factory=dict)
+    heads_written: dict[int, tuple[int, str]] = field(default_factory=dict)
+    sessions: set[int] = field(default_factory=set)
+    set_sessions: dict[int, int] = field(default_factory=dict)
+
+    def remember_head(self, key: int, head: tuple[int, str]) -> None:
+        if len(self.heads) >= _KNOWN_AT_MOST:
+            self.heads.clear()
+        self.heads[key] = head
+
+    def committed(self) -> None:
+        """The open transaction committed: its chains' ends are the file's now."""
+        for key, head in self.heads_written.items():
+            self.remember_head(key, head)
+        self.heads_written = {}
+        if len(self.sessions) >= _KNOWN_AT_MOST or len(self.set_sessions) >= _KNOWN_AT_MOST:
+            self.sessions.clear()
+            self.set_sessions.clear()
+
+    def saved(self) -> tuple[dict[str, int], dict[int, tuple[int, str]]]:
+        """Return what a savepoint's rollback must put back (the rest stays true)."""
+        return dict(self.next_ids), dict(self.heads_written)
+
+    def restore(self, saved: tuple[dict[str, int], dict[int, tuple[int, str]]]) -> None:
+        """Put back what :meth:`saved` returned: a savepoint was rolled back."""
+        self.next_ids, self.heads_written = saved
+        self.sessions.clear()  # a session created in the savepoint may have been noted
+        self.set_sessions.clear()
+
+    def forget(self) -> None:
+        """Forget everything (the data version apart): the file is to be asked again."""
+        self.next_ids.clear()
+        self.heads.clear()
+        self.heads_written = {}
+        self.sessions.clear()
+        self.set_sessions.clear()
+
+
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
 #: Told the row id of a kept raw line once it is written (None when its transaction failed).
 LineIdListener = Callable[[int | None], None]
@@ -495,6 +548,8 @@ class Store:
         #: session's evaluated result as (evaluation stamp, JSON), kept in ``session_results``
         #: (``acquire.session.stored_result.stored_row``). None: no result is kept.
         self.results_on_close: Callable[[Store, int], tuple[str, str] | None] | None = None
+        #: What this connection knows of the file without asking it again (see _Known).
+        self._ids = _Known()
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -646,18 +701,22 @@ class Store:
             conn = self.db.conn
             if conn.in_transaction:
                 written = len(self._events_in_flight)
+                saved = self._ids.saved()
                 try:
                     with self.db.atomic():  # a savepoint inside the open transaction
                         yield self.db
                 except BaseException:
                     del self._events_in_flight[written:]  # rolled back with the savepoint
                     self._forget_known_rows()
+                    self._ids.restore(saved)
                     raise
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
+                self._require_own_view()
                 self._write_kept_traffic()
                 yield self.db
+                self._write_chain_heads()
             except BaseException:
                 conn.rollback()
                 self._keep_again()
@@ -668,6 +727,7 @@ class Store:
                 conn.rollback()
                 self._keep_again()
                 raise
+            self._ids.committed()
             self._in_flight, self._in_flight_told = [], []
             self._tell_committed_events()
 
@@ -741,6 +801,7 @@ class Store:
         its events: they were never committed)."""
         self._events_in_flight = []
         self._forget_known_rows()
+        self._ids.forget()
         with self._pending_lock:
             self._pending[:0] = self._in_flight
             self._pending_told[:0] = self._in_flight_told
@@ -786,6 +847,22 @@ class Store:
         with self._lock:
             return self.db.execute(sql, params).fetchall()
 
+    def _require_session(self, session_id: int) -> None:
+        """Raise :class:`NotFound` unless session ``session_id`` is recorded (lock held). A
+        session is never deleted, so one found is not looked up again."""
+        if session_id not in self._ids.sessions:
+            self._one(SessionRow, "sessions", session_id, "session")
+            self._ids.sessions.add(session_id)
+
+    def _session_of_set(self, set_id: int) -> int:
+        """Return the session of reading set ``set_id`` (lock held); raise :class:`NotFound`
+        when there is no such set. A set never changes session, nor is deleted."""
+        session_id = self._ids.set_sessions.get(set_id)
+        if session_id is None:
+            session_id = self._one(SetRow, "reading_sets", set_id, "reading set").session_id
+            self._ids.set_sessions[set_id] = session_id
+        return session_id
+
     def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
         found = self._select(cls, table, "id = ?", (row_id,))
         if not found:
@@ -800,6 +877,7 @@ class Store:
         not cover (a status) are stored too; those it covers and ``row`` lacks are NULL.
         """
         row_id = self._next_id(table)
+        self._set_next_id(table, row_id + 1)
         row = {"id": row_id, **row}
         values = tuple(row.get(column) for column in chain.columns_of(table))
         key = chain.chain_key(chain.owner(table, values))
@@ -837,26 +915,59 @@ class Store:
             heads[key] = (seq + 1, digest)
             next_id += 1
         self.db.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        self._set_next_id("traffic", next_id)
         for key, (seq, digest) in heads.items():
             self._set_chain_head(key, seq, digest)
         return next_id - 1
 
     def _next_id(self, table: str) -> int:
-        return int(self.db.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+        """Return the id the next row appended to ``table`` takes (lock held, in a transaction);
+        asked of the file once, then counted: ``_set_next_id`` says how many were taken."""
+        found = self._ids.next_ids.get(table)
+        if found is None:
+            sql = f"SELECT coalesce(max(id), 0) + 1 FROM {table}"
+            found = self._ids.next_ids[table] = int(self.db.execute(sql).fetchone()[0])
+        return found
+
+    def _set_next_id(self, table: str, next_id: int) -> None:
+        self._ids.next_ids[table] = next_id
 
     def _chain_head(self, key: int) -> tuple[int, str]:
-        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
-        row = self.db.execute(
-            "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
-        ).fetchone()
-        return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first):
+        as this transaction left it, else as the file has it."""
+        ids = self._ids
+        found = ids.heads_written.get(key) or ids.heads.get(key)
+        if found is None:
+            row = self.db.execute(
+                "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
+            ).fetchone()
+            found = (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+            ids.remember_head(key, found)
+        return found
 
     def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
-        self.db.execute(
-            "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
-            "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
-            (key, seq, digest),
-        )
+        """Note the new end of chain ``key``; written to ``chain_heads`` once, at the commit."""
+        self._ids.heads_written[key] = (seq, digest)
+
+    def _write_chain_heads(self) -> None:
+        """Write the ends of the chains this transaction appended to (lock held), in one pass."""
+        written = self._ids.heads_written
+        if written:
+            self.db.conn.executemany(
+                "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
+                "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
+                [(key, seq, digest) for key, (seq, digest) in written.items()],
+            )
+
+    def _require_own_view(self) -> None:
+        """Forget what this connection knows of the file when another connection committed to
+        it since (``PRAGMA data_version`` moves only for others' commits); lock held, the
+        write lock taken."""
+        version = int(self.db.conn.execute("PRAGMA data_version").fetchone()[0])
+        if version != self._ids.data_version:
+            self._ids.forget()
+            self._forget_known_rows()
+            self._ids.data_version = version
 
     @contextmanager
     def on_behalf_of(self, account: str | None) -> Iterator[None]:
@@ -972,7 +1083,7 @@ class Store:
         """Keep a closed session's evaluated result (replacing the one kept), with the stamp of
         the evaluation that computed it (``acquire.session.stored_result``)."""
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             self.db.execute(
                 "INSERT OR REPLACE INTO session_results "
                 "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
@@ -1054,7 +1165,7 @@ class Store:
             "started_at": self._stamp(),
         }
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             return self._append("reading_sets", row)
 
     def set_set_status(
@@ -1177,13 +1288,13 @@ class Store:
             "recorded_at": self._stamp(),
         }
         with self.atomic():
-            reading_set = self._one(SetRow, "reading_sets", set_id, "reading set")
-            if reading_set.session_id != session_id:
+            owner = self._session_of_set(set_id)
+            if owner != session_id:
                 raise InputError(
                     "set_id",
                     set_id,
                     f"a reading set of session {session_id}",
-                    f"belongs to session {reading_set.session_id}",
+                    f"belongs to session {owner}",
                 )
             return self._append("readings", row)
 
@@ -1237,7 +1348,7 @@ class Store:
             "source": _require_text("source", source),
         }
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
@@ -1256,7 +1367,7 @@ class Store:
         """
         with self.atomic():
             if session_id is not None:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             return self._event(session_id, actor, kind, detail)
 
     def events(self, session_id: int | None) -> list[EventRow]:
@@ -1315,10 +1426,11 @@ class Store:
     def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
         """Return (place, hash) of the last row the store recorded in the session's chain
         (None: outside sessions), or None when it recorded none."""
-        found = self.read(
-            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
-            (chain.chain_key(session_id),),
-        )
+        key = chain.chain_key(session_id)
+        with self._lock:
+            if key in self._ids.heads_written:  # moved by the open transaction, not yet written
+                return self._ids.heads_written[key]
+            found = self.read("SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,))
         return (int(found[0][0]), str(found[0][1])) if found else None
 
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
@@ -1365,6 +1477,7 @@ class Store:
                 digest = chain.link(digest, seq, "inputs", values)
                 chained.append((*values, seq, digest))
             self.db.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            self._set_next_id("inputs", next_id + len(chained))
             if chained:
                 self._set_chain_head(key, seq, digest)
         return next_id + len(rows) - 1 if rows else 0
@@ -1383,7 +1496,7 @@ class Store:
         row = _traffic_row((session_id, t_s, self._stamp(), direction, line))
         with self.atomic():
             if session_id is not None:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             return self._append_traffic([row])
 
     def stamp(self) -> str:
@@ -1403,7 +1516,7 @@ class Store:
         rows = [_traffic_row(line) for line in lines]
         with self.atomic():
             for session_id in {row[0] for row in rows if row[0] is not None}:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             self._append_traffic(rows)
         return len(rows)
 
