@@ -393,7 +393,8 @@ _NEWER_OF_SESSION = "id > ? AND +session_id = ?"
 @dataclass
 class _KnownRows:
     """A session's sets (by id, oldest first) and readings as last read, the highest ids read,
-    and the sets whose status changed since (see :meth:`Store.remember_rows`)."""
+    and the sets whose status changed since (see :meth:`Store.remember_rows`); ``current``
+    once read: from then on the store's own writes keep them up to date, without reading."""
 
     sets: dict[int, SetRow] = field(default_factory=dict)
     readings: list[ReadingRow] = field(default_factory=list)
@@ -401,6 +402,21 @@ class _KnownRows:
     last_set_id: int = 0
     last_reading_id: int = 0
     stale: set[int] = field(default_factory=set)
+    current: bool = False
+
+    def add(self, sets: Iterable[SetRow], readings: list[ReadingRow]) -> None:
+        """Take in sets (new, or with a new status) and new readings, in id order."""
+        for row in sets:
+            self.sets[row.id] = row
+            self.last_set_id = max(self.last_set_id, row.id)
+        self.readings += readings
+        for set_id in dict.fromkeys(reading.set_id for reading in readings):
+            self.by_set[set_id] = (
+                *self.by_set.get(set_id, ()),
+                *(reading for reading in readings if reading.set_id == set_id),
+            )
+        if self.readings:
+            self.last_reading_id = self.readings[-1].id
 
 
 #: How many chains' ends and rows' owners :class:`_Known` keeps before it starts again (a
@@ -754,6 +770,8 @@ class Store:
         if session_id not in self._known:
             self._known.clear()  # one session at a time (the open one): memory stays bounded
         known = self._known.setdefault(session_id, _KnownRows())
+        if known.current:
+            return known
         changed = [
             *self._select(
                 SetRow, "reading_sets", _NEWER_OF_SESSION, (known.last_set_id, session_id)
@@ -761,22 +779,30 @@ class Store:
             *(self._one(SetRow, "reading_sets", set_id, "reading set") for set_id in known.stale),
         ]
         known.stale.clear()
-        for row in changed:
-            known.sets[row.id] = row
-            known.last_set_id = max(known.last_set_id, row.id)
         rows = self._rows(
             ReadingRow, "readings", _NEWER_OF_SESSION, (known.last_reading_id, session_id)
         )
-        new = [_reading_row(row) for row in rows]
-        known.readings += new
-        for set_id in dict.fromkeys(reading.set_id for reading in new):
-            known.by_set[set_id] = (
-                *known.by_set.get(set_id, ()),
-                *(reading for reading in new if reading.set_id == set_id),
-            )
-        if known.readings:
-            known.last_reading_id = known.readings[-1].id
+        known.add(changed, [_reading_row(row) for row in rows])
+        known.current = True
         return known
+
+    def _known_current(self, session_id: int) -> _KnownRows | None:
+        """Return the session's kept rows if they are up to date, to be kept so by a write of
+        this store (lock held); None when nothing, or nothing current, is kept of it."""
+        if self._known is None:
+            return None
+        known = self._known.get(session_id)
+        return known if known is not None and known.current else None
+
+    def _keep_appended(self, table: str, row: dict[str, Any]) -> None:
+        """Take a set or a reading this store just appended into the session's kept rows."""
+        known = self._known_current(row["session_id"])
+        if known is None:
+            return
+        if table == "reading_sets":
+            known.add([_row_of(SetRow, row)], [])
+        elif table == "readings":
+            known.add([], [_reading_row(tuple(row.get(name) for name in _READING_FIELDS))])
 
     def _tell_committed_events(self) -> None:
         """Hand the events of the transaction just committed to :attr:`on_events_committed`."""
@@ -889,6 +915,8 @@ class Store:
             (*row.values(), seq + 1, digest),
         )
         self._set_chain_head(key, seq + 1, digest)
+        if table in _KEPT_TABLES:
+            self._keep_appended(table, row)
         return row_id
 
     def append_visit_row(self, table: str, row: dict[str, Any]) -> int:
@@ -1204,7 +1232,10 @@ class Store:
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
             )
-            if self._known is not None and old.session_id in self._known:
+            known = self._known_current(old.session_id)
+            if known is not None:
+                known.add([replace(old, status=status, reason=reason, ended_at=ended_at)], [])
+            elif self._known is not None and old.session_id in self._known:
                 self._known[old.session_id].stale.add(set_id)
 
     def sets(self, session_id: int) -> list[SetRow]:
@@ -1306,6 +1337,9 @@ class Store:
                     return list(self._known_rows(session_id).readings)
             rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
         else:
+            with self._lock:
+                if self._known is not None:
+                    return list(self._known_rows(session_id).by_set.get(set_id, ()))
             rows = self._rows(
                 ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
             )
@@ -1601,7 +1635,15 @@ def _column_list(cls: type) -> str:
     return ", ".join(field.name for field in fields(cls))
 
 
-_SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
+_READING_FIELDS = tuple(field.name for field in fields(ReadingRow))
+_SETTLING = _READING_FIELDS.index("settling")
+#: The tables whose rows a remembering store keeps (:meth:`Store.remember_rows`).
+_KEPT_TABLES = ("reading_sets", "readings")
+
+
+def _row_of(cls: type[Row], row: Mapping[str, Any]) -> Row:
+    """Return a row dataclass from the columns of an appended row (those it lacks None)."""
+    return cls(*(row.get(field.name) for field in fields(cls)))
 
 
 def _reading_row(row: tuple[Any, ...]) -> ReadingRow:

@@ -105,3 +105,37 @@ def test_a_failed_transaction_makes_the_store_ask_the_file_again(tmp_path: Path)
         assert _asks(statements, "FROM chain_heads") == 1
         assert [e.detail().get("text") for e in store.events(session_id)][-1] == "kept"
         assert verify_session(store, session_id).verified
+
+
+def test_a_remembering_store_keeps_its_sets_and_readings_from_its_own_writes(
+    tmp_path: Path,
+) -> None:
+    engine, clock = file_engine(tmp_path)
+    engine.store.remember_rows()
+    session_id = engine.start_session(METADATA, small_plan(), actor=OPERATOR)
+    engine.set_environment(20.0, 101.325, actor=OPERATOR)
+    engine.manual_done(actor=OPERATOR)
+    engine.arm(actor=OPERATOR)
+    deliver(engine, clock, 20.0)
+    engine.store.sets(session_id)  # read once: from now on kept from the store's own writes
+    with traced(engine.store.db.conn) as statements:
+        for charge in (20.1, 20.2):
+            deliver(engine, clock, charge)
+        engine.redo("spike on reading 3", actor=OPERATOR)  # a status change and a new set
+        engine.arm(actor=OPERATOR)
+        deliver(engine, clock, 20.3)
+        kept = (
+            engine.store.sets(session_id),
+            engine.store.readings(session_id),
+            engine.store.readings_by_set(session_id),
+        )
+    assert _asks(statements, "FROM reading_sets") + _asks(statements, "FROM readings") == 2
+    with Store.open(tmp_path / "station.sqlite", read_only=True) as reader:
+        read = (
+            reader.sets(session_id),
+            reader.readings(session_id),
+            reader.readings_by_set(session_id),
+        )
+    assert kept == read
+    assert [s.status for s in kept[0]] == ["superseded", "collecting"]
+    assert len(kept[1]) == 4 and [len(r) for r in kept[2].values()] == [3, 1]
