@@ -800,7 +800,7 @@ class Store:
         if known is None:
             return
         if table == "reading_sets":
-            known.add([_row_of(SetRow, row)], [])
+            known.add([_set_row(row)], [])
         elif table == "readings":
             known.add([], [_reading_row(tuple(row.get(name) for name in _READING_FIELDS))])
 
@@ -1641,9 +1641,10 @@ _SETTLING = _READING_FIELDS.index("settling")
 _KEPT_TABLES = ("reading_sets", "readings")
 
 
-def _row_of(cls: type[Row], row: Mapping[str, Any]) -> Row:
-    """Return a row dataclass from the columns of an appended row (those it lacks None)."""
-    return cls(*(row.get(field.name) for field in fields(cls)))
+def _set_row(row: Mapping[str, Any]) -> SetRow:
+    """Return a SetRow from the columns of an appended set (those it lacks None)."""
+    values: list[Any] = [row.get(field.name) for field in fields(SetRow)]
+    return SetRow(*values)
 
 
 def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
