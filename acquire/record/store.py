@@ -393,7 +393,8 @@ _NEWER_OF_SESSION = "id > ? AND +session_id = ?"
 @dataclass
 class _KnownRows:
     """A session's sets (by id, oldest first) and readings as last read, the highest ids read,
-    and the sets whose status changed since (see :meth:`Store.remember_rows`)."""
+    and the sets whose status changed since (see :meth:`Store.remember_rows`); ``current``
+    once read: from then on the store's own writes keep them up to date, without reading."""
 
     sets: dict[int, SetRow] = field(default_factory=dict)
     readings: list[ReadingRow] = field(default_factory=list)
@@ -401,6 +402,74 @@ class _KnownRows:
     last_set_id: int = 0
     last_reading_id: int = 0
     stale: set[int] = field(default_factory=set)
+    current: bool = False
+
+    def add(self, sets: Iterable[SetRow], readings: list[ReadingRow]) -> None:
+        """Take in sets (new, or with a new status) and new readings, in id order."""
+        for row in sets:
+            self.sets[row.id] = row
+            self.last_set_id = max(self.last_set_id, row.id)
+        self.readings += readings
+        for set_id in dict.fromkeys(reading.set_id for reading in readings):
+            self.by_set[set_id] = (
+                *self.by_set.get(set_id, ()),
+                *(reading for reading in readings if reading.set_id == set_id),
+            )
+        if self.readings:
+            self.last_reading_id = self.readings[-1].id
+
+
+#: How many chains' ends and rows' owners :class:`_Known` keeps before it starts again (a
+#: daemon appends to one or two chains; a bulk import through the store to thousands).
+_KNOWN_AT_MOST = 256
+
+
+@dataclass
+class _Known:
+    """What the store's connection knows of the file without asking it again: the next id of
+    each appended table, the ends of the chains (as committed, and as the open transaction
+    moved them, written to ``chain_heads`` at its commit), the sessions known to exist and each
+    known reading set's session. All of it is forgotten when another connection commits to the
+    file (``PRAGMA data_version``, checked as each transaction begins) or a transaction fails."""
+
+    data_version: int | None = None
+    next_ids: dict[str, int] = field(default_factory=dict)
+    heads: dict[int, tuple[int, str]] = field(default_factory=dict)
+    heads_written: dict[int, tuple[int, str]] = field(default_factory=dict)
+    sessions: set[int] = field(default_factory=set)
+    set_sessions: dict[int, int] = field(default_factory=dict)
+
+    def remember_head(self, key: int, head: tuple[int, str]) -> None:
+        if len(self.heads) >= _KNOWN_AT_MOST:
+            self.heads.clear()
+        self.heads[key] = head
+
+    def committed(self) -> None:
+        """The open transaction committed: its chains' ends are the file's now."""
+        for key, head in self.heads_written.items():
+            self.remember_head(key, head)
+        self.heads_written = {}
+        if len(self.sessions) >= _KNOWN_AT_MOST or len(self.set_sessions) >= _KNOWN_AT_MOST:
+            self.sessions.clear()
+            self.set_sessions.clear()
+
+    def saved(self) -> tuple[dict[str, int], dict[int, tuple[int, str]]]:
+        """Return what a savepoint's rollback must put back (the rest stays true)."""
+        return dict(self.next_ids), dict(self.heads_written)
+
+    def restore(self, saved: tuple[dict[str, int], dict[int, tuple[int, str]]]) -> None:
+        """Put back what :meth:`saved` returned: a savepoint was rolled back."""
+        self.next_ids, self.heads_written = saved
+        self.sessions.clear()  # a session created in the savepoint may have been noted
+        self.set_sessions.clear()
+
+    def forget(self) -> None:
+        """Forget everything (the data version apart): the file is to be asked again."""
+        self.next_ids.clear()
+        self.heads.clear()
+        self.heads_written = {}
+        self.sessions.clear()
+        self.set_sessions.clear()
 
 
 Row = TypeVar("Row", SessionRow, SetRow, ReadingRow, EnvironmentRow, EventRow, TrafficRow, InputRow)
@@ -498,6 +567,8 @@ class Store:
         #: session's evaluated result as (evaluation stamp, JSON), kept in ``session_results``
         #: (``acquire.session.stored_result.stored_row``). None: no result is kept.
         self.results_on_close: Callable[[Store, int], tuple[str, str] | None] | None = None
+        #: What this connection knows of the file without asking it again (see _Known).
+        self._ids = _Known()
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -659,18 +730,22 @@ class Store:
             conn = self.conn
             if conn.in_transaction:
                 written = len(self._events_in_flight)
+                saved = self._ids.saved()
                 try:
                     with self.db.atomic():  # a savepoint inside the open transaction
                         yield self.db
                 except BaseException:
                     del self._events_in_flight[written:]  # rolled back with the savepoint
                     self._forget_known_rows()
+                    self._ids.restore(saved)
                     raise
                 return
             conn.execute("BEGIN IMMEDIATE")
             try:
+                self._require_own_view()
                 self._write_kept_traffic()
                 yield self.db
+                self._write_chain_heads()
             except BaseException:
                 conn.rollback()
                 self._keep_again()
@@ -681,6 +756,7 @@ class Store:
                 conn.rollback()
                 self._keep_again()
                 raise
+            self._ids.committed()
             self._in_flight, self._in_flight_told = [], []
             self._tell_committed_events()
 
@@ -707,6 +783,8 @@ class Store:
         if session_id not in self._known:
             self._known.clear()  # one session at a time (the open one): memory stays bounded
         known = self._known.setdefault(session_id, _KnownRows())
+        if known.current:
+            return known
         changed = [
             *self._select(
                 SetRow, "reading_sets", _NEWER_OF_SESSION, (known.last_set_id, session_id)
@@ -714,22 +792,30 @@ class Store:
             *(self._one(SetRow, "reading_sets", set_id, "reading set") for set_id in known.stale),
         ]
         known.stale.clear()
-        for row in changed:
-            known.sets[row.id] = row
-            known.last_set_id = max(known.last_set_id, row.id)
         rows = self._rows(
             ReadingRow, "readings", _NEWER_OF_SESSION, (known.last_reading_id, session_id)
         )
-        new = [_reading_row(row) for row in rows]
-        known.readings += new
-        for set_id in dict.fromkeys(reading.set_id for reading in new):
-            known.by_set[set_id] = (
-                *known.by_set.get(set_id, ()),
-                *(reading for reading in new if reading.set_id == set_id),
-            )
-        if known.readings:
-            known.last_reading_id = known.readings[-1].id
+        known.add(changed, [_reading_row(row) for row in rows])
+        known.current = True
         return known
+
+    def _known_current(self, session_id: int) -> _KnownRows | None:
+        """Return the session's kept rows if they are up to date, to be kept so by a write of
+        this store (lock held); None when nothing, or nothing current, is kept of it."""
+        if self._known is None:
+            return None
+        known = self._known.get(session_id)
+        return known if known is not None and known.current else None
+
+    def _keep_appended(self, table: str, row: dict[str, Any]) -> None:
+        """Take a set or a reading this store just appended into the session's kept rows."""
+        known = self._known_current(row["session_id"])
+        if known is None:
+            return
+        if table == "reading_sets":
+            known.add([_set_row(row)], [])
+        elif table == "readings":
+            known.add([], [_reading_row(tuple(row.get(name) for name in _READING_FIELDS))])
 
     def _tell_committed_events(self) -> None:
         """Hand the events of the transaction just committed to :attr:`on_events_committed`."""
@@ -754,6 +840,7 @@ class Store:
         its events: they were never committed)."""
         self._events_in_flight = []
         self._forget_known_rows()
+        self._ids.forget()
         with self._pending_lock:
             self._pending[:0] = self._in_flight
             self._pending_told[:0] = self._in_flight_told
@@ -799,6 +886,22 @@ class Store:
         with self._lock:
             return self.conn.execute(sql, params).fetchall()
 
+    def _require_session(self, session_id: int) -> None:
+        """Raise :class:`NotFound` unless session ``session_id`` is recorded (lock held). A
+        session is never deleted, so one found is not looked up again."""
+        if session_id not in self._ids.sessions:
+            self._one(SessionRow, "sessions", session_id, "session")
+            self._ids.sessions.add(session_id)
+
+    def _session_of_set(self, set_id: int) -> int:
+        """Return the session of reading set ``set_id`` (lock held); raise :class:`NotFound`
+        when there is no such set. A set never changes session, nor is deleted."""
+        session_id = self._ids.set_sessions.get(set_id)
+        if session_id is None:
+            session_id = self._one(SetRow, "reading_sets", set_id, "reading set").session_id
+            self._ids.set_sessions[set_id] = session_id
+        return session_id
+
     def _one(self, cls: type[Row], table: str, row_id: int, what: str) -> Row:
         found = self._select(cls, table, "id = ?", (row_id,))
         if not found:
@@ -813,6 +916,7 @@ class Store:
         not cover (a status) are stored too; those it covers and ``row`` lacks are NULL.
         """
         row_id = self._next_id(table)
+        self._set_next_id(table, row_id + 1)
         row = {"id": row_id, **row}
         values = tuple(row.get(column) for column in chain.columns_of(table))
         key = chain.chain_key(chain.owner(table, values))
@@ -824,6 +928,8 @@ class Store:
             (*row.values(), seq + 1, digest),
         )
         self._set_chain_head(key, seq + 1, digest)
+        if table in _KEPT_TABLES:
+            self._keep_appended(table, row)
         return row_id
 
     def append_visit_row(self, table: str, row: dict[str, Any]) -> int:
@@ -850,26 +956,59 @@ class Store:
             heads[key] = (seq + 1, digest)
             next_id += 1
         self.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        self._set_next_id("traffic", next_id)
         for key, (seq, digest) in heads.items():
             self._set_chain_head(key, seq, digest)
         return next_id - 1
 
     def _next_id(self, table: str) -> int:
-        return int(self.conn.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0])
+        """Return the id the next row appended to ``table`` takes (lock held, in a transaction);
+        asked of the file once, then counted: ``_set_next_id`` says how many were taken."""
+        found = self._ids.next_ids.get(table)
+        if found is None:
+            sql = f"SELECT coalesce(max(id), 0) + 1 FROM {table}"
+            found = self._ids.next_ids[table] = int(self.conn.execute(sql).fetchone()[0])
+        return found
+
+    def _set_next_id(self, table: str, next_id: int) -> None:
+        self._ids.next_ids[table] = next_id
 
     def _chain_head(self, key: int) -> tuple[int, str]:
-        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first)."""
-        row = self.conn.execute(
-            "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
-        ).fetchone()
-        return (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+        """Return (seq, hash) of the last row of chain ``key`` ((0, GENESIS) before the first):
+        as this transaction left it, else as the file has it."""
+        ids = self._ids
+        found = ids.heads_written.get(key) or ids.heads.get(key)
+        if found is None:
+            row = self.conn.execute(
+                "SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,)
+            ).fetchone()
+            found = (0, chain.GENESIS) if row is None else (int(row[0]), str(row[1]))
+            ids.remember_head(key, found)
+        return found
 
     def _set_chain_head(self, key: int, seq: int, digest: str) -> None:
-        self.conn.execute(
-            "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
-            "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
-            (key, seq, digest),
-        )
+        """Note the new end of chain ``key``; written to ``chain_heads`` once, at the commit."""
+        self._ids.heads_written[key] = (seq, digest)
+
+    def _write_chain_heads(self) -> None:
+        """Write the ends of the chains this transaction appended to (lock held), in one pass."""
+        written = self._ids.heads_written
+        if written:
+            self.conn.executemany(
+                "INSERT INTO chain_heads (session_key, seq, hash) VALUES (?, ?, ?) "
+                "ON CONFLICT (session_key) DO UPDATE SET seq = excluded.seq, hash = excluded.hash",
+                [(key, seq, digest) for key, (seq, digest) in written.items()],
+            )
+
+    def _require_own_view(self) -> None:
+        """Forget what this connection knows of the file when another connection committed to
+        it since (``PRAGMA data_version`` moves only for others' commits); lock held, the
+        write lock taken."""
+        version = int(self.conn.execute("PRAGMA data_version").fetchone()[0])
+        if version != self._ids.data_version:
+            self._ids.forget()
+            self._forget_known_rows()
+            self._ids.data_version = version
 
     @contextmanager
     def on_behalf_of(self, account: str | None) -> Iterator[None]:
@@ -985,7 +1124,7 @@ class Store:
         """Keep a closed session's evaluated result (replacing the one kept), with the stamp of
         the evaluation that computed it (``acquire.session.stored_result``)."""
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             self.conn.execute(
                 "INSERT OR REPLACE INTO session_results "
                 "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
@@ -1067,7 +1206,7 @@ class Store:
             "started_at": self._stamp(),
         }
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             return self._append("reading_sets", row)
 
     def set_set_status(
@@ -1106,7 +1245,10 @@ class Store:
                 "UPDATE reading_sets SET status = ?, reason = ?, ended_at = ? WHERE id = ?",
                 (status, reason, ended_at, set_id),
             )
-            if self._known is not None and old.session_id in self._known:
+            known = self._known_current(old.session_id)
+            if known is not None:
+                known.add([replace(old, status=status, reason=reason, ended_at=ended_at)], [])
+            elif self._known is not None and old.session_id in self._known:
                 self._known[old.session_id].stale.add(set_id)
 
     def sets(self, session_id: int) -> list[SetRow]:
@@ -1190,13 +1332,13 @@ class Store:
             "recorded_at": self._stamp(),
         }
         with self.atomic():
-            reading_set = self._one(SetRow, "reading_sets", set_id, "reading set")
-            if reading_set.session_id != session_id:
+            owner = self._session_of_set(set_id)
+            if owner != session_id:
                 raise InputError(
                     "set_id",
                     set_id,
                     f"a reading set of session {session_id}",
-                    f"belongs to session {reading_set.session_id}",
+                    f"belongs to session {owner}",
                 )
             return self._append("readings", row)
 
@@ -1208,6 +1350,9 @@ class Store:
                     return list(self._known_rows(session_id).readings)
             rows = self._rows(ReadingRow, "readings", "session_id = ?", (session_id,))
         else:
+            with self._lock:
+                if self._known is not None:
+                    return list(self._known_rows(session_id).by_set.get(set_id, ()))
             rows = self._rows(
                 ReadingRow, "readings", "session_id = ? AND set_id = ?", (session_id, set_id)
             )
@@ -1250,7 +1395,7 @@ class Store:
             "source": _require_text("source", source),
         }
         with self.atomic():
-            self._one(SessionRow, "sessions", session_id, "session")
+            self._require_session(session_id)
             return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
@@ -1269,7 +1414,7 @@ class Store:
         """
         with self.atomic():
             if session_id is not None:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             return self._event(session_id, actor, kind, detail)
 
     def events(self, session_id: int | None) -> list[EventRow]:
@@ -1328,10 +1473,11 @@ class Store:
     def chain_head(self, session_id: int | None) -> tuple[int, str] | None:
         """Return (place, hash) of the last row the store recorded in the session's chain
         (None: outside sessions), or None when it recorded none."""
-        found = self.read(
-            "SELECT seq, hash FROM chain_heads WHERE session_key = ?",
-            (chain.chain_key(session_id),),
-        )
+        key = chain.chain_key(session_id)
+        with self._lock:
+            if key in self._ids.heads_written:  # moved by the open transaction, not yet written
+                return self._ids.heads_written[key]
+            found = self.read("SELECT seq, hash FROM chain_heads WHERE session_key = ?", (key,))
         return (int(found[0][0]), str(found[0][1])) if found else None
 
     def last_event_of(self, kinds: Sequence[str]) -> EventRow | None:
@@ -1378,6 +1524,7 @@ class Store:
                 digest = chain.link(digest, seq, "inputs", values)
                 chained.append((*values, seq, digest))
             self.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            self._set_next_id("inputs", next_id + len(chained))
             if chained:
                 self._set_chain_head(key, seq, digest)
         return next_id + len(rows) - 1 if rows else 0
@@ -1396,7 +1543,7 @@ class Store:
         row = _traffic_row((session_id, t_s, self._stamp(), direction, line))
         with self.atomic():
             if session_id is not None:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             return self._append_traffic([row])
 
     def stamp(self) -> str:
@@ -1416,7 +1563,7 @@ class Store:
         rows = [_traffic_row(line) for line in lines]
         with self.atomic():
             for session_id in {row[0] for row in rows if row[0] is not None}:
-                self._one(SessionRow, "sessions", session_id, "session")
+                self._require_session(session_id)
             self._append_traffic(rows)
         return len(rows)
 
@@ -1503,7 +1650,16 @@ def _column_list(cls: type) -> str:
     return ", ".join(field.name for field in fields(cls))
 
 
-_SETTLING = [field.name for field in fields(ReadingRow)].index("settling")
+_READING_FIELDS = tuple(field.name for field in fields(ReadingRow))
+_SETTLING = _READING_FIELDS.index("settling")
+#: The tables whose rows a remembering store keeps (:meth:`Store.remember_rows`).
+_KEPT_TABLES = ("reading_sets", "readings")
+
+
+def _set_row(row: Mapping[str, Any]) -> SetRow:
+    """Return a SetRow from the columns of an appended set (those it lacks None)."""
+    values: list[Any] = [row.get(field.name) for field in fields(SetRow)]
+    return SetRow(*values)
 
 
 def _reading_row(row: tuple[Any, ...]) -> ReadingRow:
