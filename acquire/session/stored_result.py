@@ -15,9 +15,11 @@ Nothing here computes physics.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import json
+import sys
 import uuid
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
@@ -64,6 +66,7 @@ class ResultSummary:
     def from_json(cls, text: str) -> ResultSummary:
         """Return the summary stored as ``text`` (:meth:`to_json`)."""
         data: dict[str, Any] = json.loads(text)
+        data.pop("seal", None)
         data["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
         return cls(**data)
 
@@ -97,11 +100,14 @@ def _float(value: float | None) -> float | None:
 
 @functools.cache
 def evaluation_stamp() -> str:
-    """Return the stamp of the running evaluation: a SHA-256 of the source files that decide a
-    session's result (:data:`EVALUATION_SOURCES`), by path and content. Any change to them,
+    """Return the stamp of the running evaluation: a SHA-256 of the Python and numpy releases
+    and of the source files that decide a session's result (:data:`EVALUATION_SOURCES`), by
+    path and content. Any change to them,
     even one that leaves every result as it was, changes it: the stored rows are then
     evaluated again rather than trusted."""
     digest = hashlib.sha256()
+    # The arithmetic under the source: the Python and numpy releases (read without importing).
+    digest.update(f"python {sys.version_info[:2]} numpy {_numpy_version()}\0".encode())
     try:
         for path in _source_files():
             digest.update(path.relative_to(_ROOT).as_posix().encode() + b"\0")
@@ -111,6 +117,15 @@ def evaluation_stamp() -> str:
         # alone, so that no stored result is trusted, and none this process stores ever is.
         return f"unstamped-{uuid.uuid4()}"
     return digest.hexdigest()
+
+
+def _numpy_version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("numpy")
+    except PackageNotFoundError:
+        return "unknown"
 
 
 def _source_files() -> list[Path]:
@@ -130,13 +145,45 @@ def evaluate_summary(store: RecordReader, session_id: int) -> ResultSummary:
     return summarize(evaluate_session(store, session_id))
 
 
+def sealed_json(session_id: int, stamp: str, summary: ResultSummary) -> str:
+    """Return the summary as kept: its JSON with a ``seal``, a SHA-256 of the session's id, the
+    stamp and the rest of the JSON, so that a row edited outside chargebook is told apart from
+    one it wrote (and evaluated again rather than shown)."""
+    data = json.loads(summary.to_json())
+    data["seal"] = _seal(session_id, stamp, data)
+    return json.dumps(data, sort_keys=True)
+
+
+def _seal(session_id: int, stamp: str, data: dict[str, Any]) -> str:
+    body = json.dumps({k: v for k, v in data.items() if k != "seal"}, sort_keys=True)
+    return hashlib.sha256(f"{session_id}\0{stamp}\0{body}".encode()).hexdigest()
+
+
+def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
+    """Return the summary kept as ``text`` for ``session_id`` under ``stamp``; ValueError,
+    naming what is wrong, when it cannot be read or its seal does not match."""
+    try:
+        data = json.loads(text)
+    except ValueError as error:
+        raise ValueError(f"its stored result is not JSON ({error})") from None
+    if not isinstance(data, dict) or data.get("seal") != _seal(session_id, stamp, data):
+        raise ValueError(
+            "its stored result was changed after it was kept (its seal does not match)"
+        )
+    try:
+        return ResultSummary.from_json(text)
+    except (TypeError, ValueError, KeyError) as error:
+        raise ValueError(f"its stored result has not the shape of one ({error})") from None
+
+
 def stored_row(store: RecordReader, session_id: int) -> tuple[str, str] | None:
     """Return (stamp, JSON) of the session's result as the store keeps it: what a store calls,
     inside the transaction that closes a session (``Store.results_on_close``). None, and
     nothing kept, when the evaluation fails unexpectedly: the session still closes, and is
     evaluated live (where the failure shows) until a refresh."""
     try:
-        return evaluation_stamp(), evaluate_summary(store, session_id).to_json()
+        stamp = evaluation_stamp()
+        return stamp, sealed_json(session_id, stamp, evaluate_summary(store, session_id))
     except Exception:  # a bug in the evaluation must not undo the operator's close
         return None
 
@@ -148,12 +195,11 @@ def results_of(store: RecordReader, session_ids: Iterable[int]) -> dict[int, Res
     found: dict[int, ResultSummary] = {}
     for session_id in session_ids:
         row = stored.get(session_id)
-        current = row is not None and row[0] == stamp
-        found[session_id] = (
-            ResultSummary.from_json(row[1])
-            if row is not None and current
-            else evaluate_summary(store, session_id)
-        )
+        kept = None
+        if row is not None and row[0] == stamp:
+            with contextlib.suppress(ValueError):  # unreadable or edited: `verify` names it
+                kept = kept_summary(session_id, stamp, row[1])
+        found[session_id] = kept if kept is not None else evaluate_summary(store, session_id)
     return found
 
 
@@ -165,9 +211,8 @@ def refresh_some(store: Store, limit: int) -> int:
     with store.atomic():
         wanting = store.sessions_without_result(stamp, limit)
         for session_id in wanting:
-            store.put_session_result(
-                session_id, stamp, evaluate_summary(store, session_id).to_json()
-            )
+            summary = evaluate_summary(store, session_id)
+            store.put_session_result(session_id, stamp, sealed_json(session_id, stamp, summary))
     return len(wanting)
 
 
@@ -191,6 +236,11 @@ def differing_results(store: RecordReader, session_ids: Iterable[int] | None = N
         row_stamp, text = stored[session_id]
         if row_stamp != stamp:
             continue  # another version's: never shown, refreshed by the daemon
+        try:
+            kept_summary(session_id, stamp, text)
+        except ValueError as error:
+            found.append(f"session {session_id}: {error}")
+            continue
         kept, fresh = json.loads(text), json.loads(evaluate_summary(store, session_id).to_json())
         fields = [name for name in sorted(fresh) if kept.get(name) != fresh[name]]
         if fields:

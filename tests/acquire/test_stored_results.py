@@ -51,12 +51,21 @@ def _copy(path: Path, tmp_path: Path) -> Path:
 
 
 def _set_result(path: Path, stamp: str, dose_per_MU_cGy: float) -> None:
-    """Write a kept result by hand, as a bug or an edit of the file could leave it."""
+    """Write a kept result by hand, sealed, as a bug in the evaluation could leave it."""
     with Store.open(path) as store:
         (session_id,) = [row.id for row in store.sessions()]
         summary = evaluate_summary(store, session_id)
         data = {**json.loads(summary.to_json()), "dose_per_MU_cGy": dose_per_MU_cGy}
-        store.put_session_result(session_id, stamp, json.dumps(data))
+        wrong = stored_result.ResultSummary.from_json(json.dumps(data))
+        store.put_session_result(
+            session_id, stamp, stored_result.sealed_json(session_id, stamp, wrong)
+        )
+
+
+def _edit_result(path: Path, sql_expression: str) -> None:
+    """Change the kept result with sqlite3, as someone editing the file outside chargebook."""
+    with sqlite3.connect(path) as db:
+        db.execute(f"UPDATE session_results SET result_json = {sql_expression}")
 
 
 def test_the_migration_is_appended_last_under_its_name() -> None:
@@ -206,3 +215,27 @@ async def test_the_daemon_keeps_each_result_as_the_session_closes_and_refreshes_
 def _kept_ids(path: Path) -> set[int]:
     with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as connection:
         return {row[0] for row in connection.execute("SELECT session_id FROM session_results")}
+
+
+@pytest.mark.parametrize(
+    ("edit", "named"),
+    [
+        ("json_set(result_json, '$.dose_per_MU_cGy', 1.05)", "changed after it was kept"),
+        ("'{not json'", "is not JSON"),
+        ("json_remove(result_json, '$.dose_per_MU_cGy')", "changed after it was kept"),
+    ],
+)
+def test_a_kept_result_edited_outside_chargebook_is_not_shown_and_verify_names_it(
+    unkept, tmp_path, capsys: pytest.CaptureFixture[str], edit: str, named: str
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id, console = unkept[1], unkept[2]
+    with Store.open(path) as store:
+        refresh_results(store)
+    _edit_result(path, edit)
+    with Store.open(path, read_only=True) as store:
+        (point,) = load_history(store, BEAM).points
+    assert point.dose_per_MU_cGy == console["dose_per_MU_cGy"]  # evaluated from the record
+    assert main(["verify", "--db", str(path)]) == EXIT_FAILURE
+    out = capsys.readouterr().out
+    assert f"session {session_id}: its stored result" in out and named in out
