@@ -42,6 +42,13 @@ async def test_the_measure_view_says_flags_in_words_with_markers_at_80_by_24():
     assert "  s2   \u221218.6400  auto    settling" in shown
     assert "   3   \u221219.4200  auto    !" in shown
     assert "#3 ! This reading lies far from" in shown
+    # Every reading of the set is in sight with the flags: the worst, then how many more.
+    for label in ("s1", "s2", "1", "2", "3", "4"):
+        assert (
+            f"\n {label.rjust(3)}   \u221218." in shown
+            or f"\n {label.rjust(3)}   \u221219." in shown
+        )
+    assert "+7 more flags: press 4" in shown
     assert "rel. SD 2.281 %" in shown  # as the daemon computed it
     assert "4 Flags (7 !)" in shown
     assert "k Accept" in shown and "r Redo" in shown  # the key help is on screen

@@ -84,14 +84,21 @@ def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
     return lines or text.flags_or_ok([], "set: no flags")
 
 
+def flag_summary_lines(set_info: dict[str, Any] | None) -> list[str]:
+    """Return the set's flags in at most two lines: the worst, then how many more (the Flags
+    tab lists them all), so the readings keep the rest of the panel."""
+    lines = reading_flag_lines(set_info)
+    more = len(lines) - 1
+    return lines[:1] + ([f"+{more} more flag{'s' if more > 1 else ''}: press 4"] if more else [])
+
+
 class ReadingSetPanel(Vertical):
     """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
     relative SD, flags.
 
     The readings' area keeps a line for every reading the set will hold, so a new reading is
     drawn in its own line without laying the screen out again; the area follows the newest
-    reading. The set's flags sit under it, worst first, in a box of a few lines that scrolls
-    (every flag in full: tab 4).
+    reading. Under it, the set's worst flag and how many more (every flag in full: tab 4).
     """
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
@@ -101,7 +108,7 @@ class ReadingSetPanel(Vertical):
         yield TextBlock(id="set-title", classes="panel-title")
         yield TextBlock(id="readings-heading")
         yield ReadingLines(id="readings-table")
-        yield ReadingLines(id="set-flags", follow=False, wrap=True)
+        yield ReadingLines(id="set-flags", follow=False)
         yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
@@ -141,4 +148,4 @@ class ReadingSetPanel(Vertical):
         self.query_one("#set-stats", TextBlock).show(
             f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
         )
-        self.query_one("#set-flags", ReadingLines).show_lines(reading_flag_lines(set_info))
+        self.query_one("#set-flags", ReadingLines).show_lines(flag_summary_lines(set_info))
