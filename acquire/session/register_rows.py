@@ -517,7 +517,7 @@ def find_beam(store: Store, text: str | int) -> RegisterRow:
         raise InputError("beam", text, allowed, "names several beams of the registers")
     close = difflib.get_close_matches(str(text), every, n=5, cutoff=0.4)
     allowed = (
-        "close matches: " + ", ".join(close)
+        "a beam of the registers, the closest being " + ", ".join(close)
         if close
         else "one of " + (", ".join(every) or "(no beams registered)")
     )

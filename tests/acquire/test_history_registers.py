@@ -64,7 +64,7 @@ def test_the_register_beam_gathers_its_sessions_typed_or_named(station: Path) ->
 def test_close_matches_are_listed_when_nothing_matches(station: Path, capsys) -> None:
     with Store.open(station, read_only=True) as store, pytest.raises(InputError) as refused:
         load_history(store, "DEMO-LA1 7 MV")
-    assert "close matches: DEMO-LA1 6 MV" in str(refused.value)
+    assert "a beam of the registers, the closest being DEMO-LA1 6 MV" in str(refused.value)
     assert main(["history", "--beam", "7 MV", "--db", str(station)]) == EXIT_INVALID_INPUT
     assert "is not a beam of the registers" in capsys.readouterr().err
 

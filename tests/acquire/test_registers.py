@@ -158,7 +158,7 @@ def test_a_beam_is_found_by_name_whatever_the_spacing_or_by_id(store: Store) -> 
     six = find_beam(store, "DEMO-LA1 6 MV")
     assert find_beam(store, "6mv").id == six.id
     assert find_beam(store, str(six.id)).id == six.id
-    with pytest.raises(InputError, match="close matches: DEMO-LA1 10 MeV"):
+    with pytest.raises(InputError, match="the closest being DEMO-LA1 10 MeV"):
         find_beam(store, "DEMO-LA1 10 MV")
 
 
