@@ -84,7 +84,11 @@ async def start_session(pilot: Pilot, app: ConsoleApp) -> None:
     await pilot.press("ctrl+s")
     await until(
         pilot,
-        lambda: screen_kind(app) == "measure" and (app.snapshot or {}).get("environment"),
+        lambda: (
+            screen_kind(app) == "measure"
+            and app.main_screen.is_mounted  # put up whole: a test may end the app right after
+            and (app.snapshot or {}).get("environment")
+        ),
         "the measure screen with the air data recorded",
     )
 
