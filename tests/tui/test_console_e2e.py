@@ -363,7 +363,11 @@ async def test_the_form_is_filled_from_the_registers_and_the_session_names_the_r
     async with app.run_test(size=(100, 40)) as pilot:
         await until(pilot, lambda: screen_kind(app) == "setup", "the setup form")
         await pilot.press("ctrl+r")
-        await until(pilot, lambda: isinstance(app.screen, RegisterPickScreen), "the registers")
+        await until(
+            pilot,
+            lambda: isinstance(app.screen, RegisterPickScreen) and app.screen.is_mounted,
+            "the registers, put up whole",
+        )
         choices = {
             kind: [label for label, _ in app.screen.query_one(f"#pick-{kind}", Select)._options]
             for kind in ("beam", "chamber")
