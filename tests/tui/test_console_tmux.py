@@ -97,6 +97,9 @@ def terminal(tmp_path: Path):
 
 #: The key for each action, in the order a plain run takes them.
 KEYS = ((Method.STEP_MANUAL_DONE, "d"), (Method.SET_ACCEPT, "k"), (Method.STEP_ARM, "a"))
+#: States the daemon leaves by itself as readings come: the console may draw the next snapshot
+#: instead (under load it skips to the newest), so the test does not wait to see them.
+PASSING_STATES = ("settling", "collecting")
 
 
 async def next_key(terminal: Terminal, client, snapshot: dict) -> dict:
@@ -104,7 +107,8 @@ async def next_key(terminal: Terminal, client, snapshot: dict) -> dict:
     (it hears of each change a moment after this test's own client), then return the next
     snapshot."""
     await terminal.shows(f"Step {snapshot['step_index'] + 1} of")
-    await terminal.shows(text.state(snapshot["state"]))
+    if snapshot["state"] not in PASSING_STATES:
+        await terminal.shows(text.state(snapshot["state"]))
     for method, key in KEYS:
         if method in snapshot["allowed"]:
             terminal.keys(key)
