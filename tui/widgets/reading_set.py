@@ -6,6 +6,7 @@ from typing import Any
 
 from chargebook.acquire.protocol import severity_rank
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.drawn_when_composed import DrawnWhenComposed
 from chargebook.tui.widgets.reading_lines import ReadingLines
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
@@ -92,7 +93,7 @@ def flag_summary_lines(set_info: dict[str, Any] | None) -> list[str]:
     return lines[:1] + ([f"+{more} more flag{'s' if more > 1 else ''}: press 4"] if more else [])
 
 
-class ReadingSetPanel(Vertical):
+class ReadingSetPanel(DrawnWhenComposed, Vertical):
     """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
     relative SD, flags.
 
@@ -112,17 +113,11 @@ class ReadingSetPanel(Vertical):
         yield TextBlock(id="readings-plot")
         yield TextBlock(id="set-stats")
 
-    def on_mount(self) -> None:
-        self.call_after_refresh(self._draw_if_composed)  # a set that came before its parts
-
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
-        self._draw_if_composed()
+        self.redraw()
 
-    def _draw_if_composed(self) -> None:
-        """Draw the set held once the panel's parts exist: a snapshot can reach the panel
-        before it has composed, or while its screen is being taken down."""
-        if self.query("#set-title"):
-            self._draw(self.set_info)
+    def _draw_held(self) -> None:
+        self._draw(self.set_info)
 
     def _draw(self, set_info: dict[str, Any] | None) -> None:
         if set_info == self._shown_set and self._shown_set is not None:

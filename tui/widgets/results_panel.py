@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.drawn_when_composed import DrawnWhenComposed
 from chargebook.tui.widgets.text_block import TextBlock
 from rich.table import Table
 from textual.app import ComposeResult
@@ -43,7 +44,7 @@ def results_title(snapshot: dict[str, Any]) -> str:
     return title
 
 
-class ResultsPanel(VerticalScroll):
+class ResultsPanel(DrawnWhenComposed, VerticalScroll):
     """Factor table, results and the session's flags, as the daemon computed them.
 
     It scrolls, and takes the focus (Tab), so that every line can be reached from the keyboard
@@ -59,16 +60,11 @@ class ResultsPanel(VerticalScroll):
         yield TextBlock(id="results-table")
         yield TextBlock(id="session-flags")
 
-    def on_mount(self) -> None:
-        self.call_after_refresh(self._draw_if_composed)  # a snapshot that came before its parts
-
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
-        self._draw_if_composed()
+        self.redraw()
 
-    def _draw_if_composed(self) -> None:
-        """Draw the snapshot held once the panel's parts exist: a snapshot can reach the panel
-        before it has composed, or while its screen is being taken down."""
-        if self.snapshot is not None and self.query("#results-title"):
+    def _draw_held(self) -> None:
+        if self.snapshot is not None:
             self._draw(self.snapshot)
 
     def _draw(self, snapshot: dict[str, Any]) -> None:

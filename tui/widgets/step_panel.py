@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui import snapshot_view
+from chargebook.tui.widgets.drawn_when_composed import DrawnWhenComposed
 from chargebook.tui.widgets.text_block import TextBlock
 from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
@@ -12,7 +13,7 @@ from textual.reactive import reactive
 from textual.widgets import ProgressBar
 
 
-class StepPanel(Vertical):
+class StepPanel(DrawnWhenComposed, Vertical):
     """Step heading with progress, then "Do now: …" in the daemon's words, then the live reading."""
 
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
@@ -28,16 +29,11 @@ class StepPanel(Vertical):
         yield TextBlock(id="step-prompt")
         yield TextBlock(id="step-live")
 
-    def on_mount(self) -> None:
-        self.call_after_refresh(self._draw_if_composed)  # a snapshot that came before its parts
-
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
-        self._draw_if_composed()
+        self.redraw()
 
-    def _draw_if_composed(self) -> None:
-        """Draw the snapshot held once the panel's parts exist: a snapshot can reach the panel
-        before it has composed, or while its screen is being taken down."""
-        if self.snapshot is not None and self.query("#step-heading"):
+    def _draw_held(self) -> None:
+        if self.snapshot is not None:
             self._draw(self.snapshot)
 
     def _draw(self, snapshot: dict[str, Any]) -> None:
