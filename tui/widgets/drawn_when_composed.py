@@ -6,11 +6,13 @@ from typing import Any
 
 
 class DrawnWhenComposed:
-    """Mixin, before its widget class, of a panel the screen feeds through a reactive: what it
-    holds can arrive before the panel has composed its parts, or while its screen is being taken down (both seen on a
-    loaded machine, where a query for a missing part stopped the console). The reactive's
-    watcher calls :meth:`redraw`; the panel draws itself again once mounted. A mixin, not a
-    Widget: a Widget base would hide what its container class sets (``can_focus``)."""
+    """Mixin, before its widget class, of a panel the screen feeds through a reactive.
+
+    What the panel holds can arrive before it has composed its parts, or while its screen is
+    being taken down (both seen on a loaded machine, where a query for a missing part stopped
+    the console). The reactive's watcher calls :meth:`redraw`; the panel draws itself again
+    once mounted. A mixin, not a Widget: a Widget base would hide what its container class
+    sets (``can_focus``)."""
 
     children: Any
     call_after_refresh: Any
