@@ -39,9 +39,11 @@ def allowed(app: ConsoleApp) -> list[str]:
 
 
 def screen_kind(app: ConsoleApp) -> str:
-    """Return which main screen is up: "setup", "measure", "summary" (or "" before any)."""
+    """Return which main screen is up: "setup", "measure", "summary" (or "" before any, and
+    while the next one is still mounting: on a loaded machine a test that read it then would
+    see an empty screen)."""
     screen = app.main_screen
-    return screen.kind if screen is not None else ""
+    return screen.kind if screen is not None and screen.is_mounted else ""
 
 
 #: The key an operator presses for each action, in the order of preference of a plain run.

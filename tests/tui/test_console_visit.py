@@ -48,8 +48,8 @@ async def test_a_visit_by_keys_measures_beams_carries_the_air_only_when_confirme
         await pilot.press("ctrl+s")
         await until(pilot, lambda: screen_kind(app) == "measure", "the measure screen")
         await until(pilot, lambda: app.snapshot.get("environment"), "the air data recorded")
-        shown = screen_text(app)
-        assert "Air:" in shown and "min ago" in shown  # the entry, its source and its age
+        await until(pilot, lambda: "Air:" in screen_text(app), "the air entry")
+        assert "min ago" in screen_text(app)  # the entry, its source and its age
         beams = _visit(app)["beams"]
         assert [(b["name"], b["status"]) for b in beams] == [("6 MV", "measuring")]
         assert {s["mu_per_reading"] for s in app.snapshot["plan"] if s["purpose"] == "routine"} == {
