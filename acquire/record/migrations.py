@@ -673,6 +673,18 @@ def _session_results(db: Database) -> None:
     )
 
 
+def restore_session_results(db: Database) -> bool:
+    """Create ``session_results`` again when it is missing from a file migrated past it (the
+    table dropped by hand: it is a cache, not the record), by the very statement its migration
+    ran; return True when it was missing. The daemon then keeps each session's result again."""
+    if db.conn.execute(
+        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'session_results'"
+    ).fetchone():
+        return False
+    _session_results(db)
+    return True
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),

@@ -53,6 +53,7 @@ from chargebook.acquire.record.migrations import (
     TRAFFIC_DIRECTIONS,
     SchemaTooNew,
     migrate,
+    restore_session_results,
     schema_version,
 )
 from chargebook.corrections.errors import InputError
@@ -679,6 +680,7 @@ class Store:
                 store.db.enable_wal()
             conn.execute("PRAGMA synchronous = FULL")
             migrate(store.db)
+            restore_session_results(store.db)
         return store
 
     @property
@@ -1125,6 +1127,7 @@ class Store:
         the evaluation that computed it (``acquire.session.stored_result``)."""
         with self.atomic():
             self._require_session(session_id)
+            restore_session_results(self.db)  # dropped while the daemon runs: keep it again
             self.conn.execute(
                 "INSERT OR REPLACE INTO session_results "
                 "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
@@ -1132,13 +1135,33 @@ class Store:
             )
 
     def session_results(self) -> dict[int, tuple[str, str]]:
-        """Return the kept results of closed sessions: session id -> (stamp, JSON)."""
-        rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
+        the file has lost its ``session_results`` table (a cache: each session is then
+        evaluated live, and a writable open keeps them again)."""
+        try:
+            rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        except sqlite3.OperationalError:
+            if self.keeps_results():
+                raise
+            return {}
         return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
+
+    def keeps_results(self) -> bool:
+        """Return True when the file has its ``session_results`` table (False: it was dropped
+        by hand; the next writable open, or the next result kept, creates it again)."""
+        return bool(
+            self.read(
+                "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
+                ("session_results",),
+            )
+        )
 
     def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
         """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
-        or was computed by another evaluation than ``stamp``."""
+        or was computed by another evaluation than ``stamp`` (all of them when the table was
+        dropped while the file was open: it is created again here, empty)."""
+        with self.atomic():
+            restore_session_results(self.db)
         rows = self.read(
             "SELECT s.id FROM sessions s LEFT JOIN session_results r ON r.session_id = s.id "
             "WHERE s.status != 'open' AND (r.stamp IS NULL OR r.stamp != ?) "
