@@ -1306,6 +1306,17 @@ class Store:
                 names[int(session_id)] = found
         return names
 
+    def session_visits(self) -> dict[int, tuple[int, int]]:
+        """Return, per session measuring a beam of a calibration visit, (the visit's id, the
+        beam's position in it), in one query; a session of no visit is left out."""
+        rows = self.read(
+            "SELECT s.session_id, s.visit_id, b.position FROM visit_sessions s "
+            "JOIN visit_beams b ON b.id = s.beam_id"
+        )
+        return {
+            int(session_id): (int(visit), int(position)) for session_id, visit, position in rows
+        }
+
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted), in one query: a listing
         of every session does not read each session's sets."""
