@@ -274,10 +274,10 @@ class SessionRow:
     uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
-        return _json_object(self.metadata_json)
+        return json_object(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
-        return _json_object(self.plan_json)
+        return json_object(self.plan_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -352,7 +352,7 @@ class EventRow:
     account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
-        return _json_object(self.detail_json)
+        return json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -369,7 +369,7 @@ class InputRow:
     account: str | None = None
 
     def detail(self) -> dict[str, Any]:
-        return _json_object(self.detail_json)
+        return json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -517,8 +517,9 @@ def _finite_or_none(field: str, value: object) -> float | None:
     return float(value)
 
 
-def _json_object(text: str) -> dict[str, Any]:
-    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail)."""
+def json_object(text: str) -> dict[str, Any]:
+    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail, or a
+    visit's row)."""
     loaded: dict[str, Any] = json.loads(text)
     return loaded
 
