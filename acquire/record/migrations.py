@@ -349,6 +349,14 @@ def _chain_appended_rows(db: Database) -> None:
     _run_triggers(db, _STATUS_AUDIT_TRIGGERS)
 
 
+def _run_statements(db: Database, sql: str) -> None:
+    """Run the statements in ``sql`` (separated by ``;``, none holding one) one at a time,
+    inside the open transaction (``executescript`` would commit it first)."""
+    for statement in sql.split(";"):
+        if statement.strip():
+            db.execute(statement)
+
+
 def _run_triggers(db: Database, sql: str) -> None:
     """Create the triggers in ``sql`` one statement at a time, inside the open transaction
     (``executescript`` would commit it first)."""
@@ -560,9 +568,7 @@ _BROWSE_VIEWS = """
 def _browse_views(db: Database) -> None:
     """Add the read-only views of :data:`_BROWSE_VIEWS` (``session_overview``,
     ``reading_overview``, ``traffic_text``)."""
-    for statement in _BROWSE_VIEWS.split(";"):
-        if statement.strip():
-            db.execute(statement)
+    _run_statements(db, _BROWSE_VIEWS)
 
 
 def _input_log(db: Database) -> None:
@@ -648,9 +654,7 @@ def _visits(db: Database) -> None:
     written first); ``visit_beams`` (the beams in the order the physicist added them) and
     ``visit_sessions`` (the session measuring a beam) are append-only. All three are chained
     with the rows outside any session (``chain.VISIT_COLUMNS``)."""
-    for statement in _visits_tables().split(";"):
-        if statement.strip():
-            db.execute(statement)
+    _run_statements(db, _visits_tables())
     triggers = _facts_fixed_trigger(
         "visits", ("id", "uuid", "created_at", "machine", "metadata_json"), VISIT_FINAL_STATUSES
     )
