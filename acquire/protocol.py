@@ -249,6 +249,12 @@ REVIEW_DB_PARAM = Param(
     "db", "string", doc="the station file the client means; refused if the daemon keeps another"
 )
 REVIEW_RESULT = "the review: status, reviewer, comment, reviewed_at, account, measured_by"
+#: The MU per reading a session (or a visit's beam) is started with, instead of the plan's.
+MU_PER_READING_PARAM = Param(
+    "mu_per_reading",
+    "number",
+    doc="MU per reading of the plan's compared steps, instead of the plan's",
+)
 
 METHODS: dict[str, MethodSpec] = {
     spec.name: spec
@@ -277,11 +283,7 @@ METHODS: dict[str, MethodSpec] = {
             (
                 Param("metadata", "object", required=True, doc="session metadata"),
                 Param("plan", "string_or_object", doc="plan name or plan dict"),
-                Param(
-                    "mu_per_reading",
-                    "number",
-                    doc="MU per reading of the plan's compared steps, instead of the plan's",
-                ),
+                MU_PER_READING_PARAM,
             ),
         ),
         MethodSpec(
@@ -395,11 +397,7 @@ METHODS: dict[str, MethodSpec] = {
             "Start the session of a beam of the visit (planned, skipped or left unfinished).",
             (
                 Param("beam", "string", required=True, doc="the beam's name"),
-                Param(
-                    "mu_per_reading",
-                    "number",
-                    doc="MU per reading of the plan's compared steps, instead of the plan's",
-                ),
+                MU_PER_READING_PARAM,
             ),
         ),
         MethodSpec(

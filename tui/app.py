@@ -9,6 +9,7 @@ through :meth:`ConsoleApp.call_daemon`. Closing the console never stops a measur
 from __future__ import annotations
 
 import asyncio
+import sys
 from collections.abc import Awaitable, Callable, Mapping
 from pathlib import Path
 from typing import Any, ClassVar
@@ -34,6 +35,10 @@ ClientFactory = Callable[[str], Awaitable[DaemonClient]]
 #: First and longest wait between attempts to reach the daemon, in seconds.
 RETRY_FIRST_S = 0.2
 RETRY_LONGEST_S = 2.0
+#: How many times the console tries to reach a daemon it has not reached yet (about 9 s in
+#: all, for a daemon still starting) before it says no daemon listens there and exits. Once
+#: attached, it retries for ever: a daemon that goes away mid-session is being restarted.
+FIRST_ATTEMPTS = 8
 
 
 class ConsoleApp(App[int]):
@@ -56,8 +61,10 @@ class ConsoleApp(App[int]):
         setup_defaults: Mapping[str, Any] | None = None,
         client_factory: ClientFactory | None = None,
         watch: bool = False,
+        first_attempts: int = FIRST_ATTEMPTS,
     ) -> None:
-        """``watch``: attach to the watch-only socket ``socket_path``, offering no action."""
+        """``watch``: attach to the watch-only socket ``socket_path``, offering no action.
+        ``first_attempts``: how many times to try a daemon not reached yet before giving up."""
         super().__init__()
         self.watch_only = watch
         self.socket_path = str(socket_path)
@@ -69,6 +76,9 @@ class ConsoleApp(App[int]):
         self.link = LinkStatus(False, NOT_CONNECTED)
         self._latest_seq = -1
         self._incoming: dict[str, Any] | None = None
+        self.first_attempts = first_attempts
+        #: Why the console gave up before it ever reached a daemon (None: it did not).
+        self.unreachable: str | None = None
 
     def compose(self) -> ComposeResult:
         yield Static(
@@ -85,16 +95,25 @@ class ConsoleApp(App[int]):
     @work(exclusive=True, group="daemon-link")
     async def follow_daemon(self) -> None:
         """Stay attached to the daemon: subscribe, relay snapshots, reconnect with backoff."""
-        delay_s = RETRY_FIRST_S
+        delay_s, failed, attached = RETRY_FIRST_S, 0, False
         while True:
             try:
                 client = await self.client_factory(self.socket_path)
             except (OSError, ConnectionLost, DaemonError) as error:
-                self.post_message(LinkChanged(LinkStatus(False, f"{NOT_CONNECTED} ({error})")))
+                failed += 1
+                if not attached and failed >= self.first_attempts:
+                    self.unreachable = no_daemon_words(self.socket_path, error, failed)
+                    self.exit(1)
+                    return
+                text = f"{NOT_CONNECTED} ({error})"
+                if not attached:
+                    text = f"No daemon answers yet: attempt {failed} of {self.first_attempts} "
+                    text += f"({_why_unreachable(error)}); retrying…"
+                self.post_message(LinkChanged(LinkStatus(False, text)))
                 await asyncio.sleep(delay_s)
                 delay_s = min(2 * delay_s, RETRY_LONGEST_S)
                 continue
-            delay_s = RETRY_FIRST_S
+            delay_s, failed, attached = RETRY_FIRST_S, 0, True
             await self._relay(client)
             self.post_message(LinkChanged(LinkStatus(False, NOT_CONNECTED)))
 
@@ -225,6 +244,26 @@ class ConsoleApp(App[int]):
         return SetupScreen(self.call_daemon, self.setup_defaults)
 
 
+def _why_unreachable(error: BaseException) -> str:
+    """Return why a connection to the daemon's socket failed, in words."""
+    if isinstance(error, FileNotFoundError):
+        return "no socket there"
+    if isinstance(error, ConnectionRefusedError):
+        return "a socket file is there but nothing listens on it"
+    return str(error) or type(error).__name__
+
+
+def no_daemon_words(socket_path: str, error: BaseException, attempts: int) -> str:
+    """Return what the console says when it never reached a daemon at ``socket_path``: that
+    none listens there, why the last attempt failed, and how to start one."""
+    return (
+        f"no chargebook daemon listens at {socket_path} ({_why_unreachable(error)}; tried "
+        f"{attempts} times). Start one with `chargebook serve --port DEVICE` (and --socket "
+        "PATH when its socket is not the default), or `chargebook demo` for the simulated "
+        "bench; or give the console the --socket of a running daemon."
+    )
+
+
 def closing_words(
     snapshot: Mapping[str, Any] | None,
     socket_path: str,
@@ -271,5 +310,8 @@ def run_console(
     """
     app = ConsoleApp(socket_path, operator=operator, setup_defaults=setup_defaults, watch=watch)
     result = app.run()
+    if app.unreachable is not None:
+        print(f"chargebook console: {app.unreachable}", file=sys.stderr)
+        return 1
     print(closing_words(app.snapshot, str(socket_path), demo_database=demo_database))
     return 0 if result is None else int(result)

@@ -78,8 +78,10 @@ def run_demo(args: argparse.Namespace) -> int:
     try:
         with demo_world(args, workdir) as (simulator, daemon):
             socket_path = daemon.info["socket"]
-            if not args.unattended and _open_console(args, socket_path, simulator) is not None:
-                return EXIT_OK
+            if not args.unattended:
+                status = _open_console(args, socket_path, simulator)
+                if status is not None:  # 1 when the console never reached the daemon
+                    return status
             return asyncio.run(_unattended(args, socket_path, simulator, out))
     except ChildStartError as error:
         print(f"chargebook demo: {error}", file=sys.stderr)

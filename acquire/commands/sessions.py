@@ -12,7 +12,10 @@ if TYPE_CHECKING:
 
     from chargebook.acquire.record.reader import RecordReader
 
-HELP = "list the recorded sessions: id, date, status, review, machine, beam, operator, readings"
+HELP = (
+    "list the recorded sessions: id, date, status, review, machine, beam, operator, readings, "
+    "and the calibration visit a session measured a beam of"
+)
 
 STATUSES = ("open", "finished", "aborted", "interrupted")
 
@@ -49,6 +52,7 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
     set_counts, reading_counts = store.set_counts(), store.reading_counts()
     reviews = store.events_of_kind(EventKind.SESSION_REVIEWED)
     names = store.session_names()  # what the listing reads of the metadata, not decoded
+    visits = store.session_visits()
     rows = []
     for session in store.sessions():
         if args.status and session.status != args.status:
@@ -59,6 +63,7 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
             continue
         sets, accepted = set_counts.get(session.id, (0, 0))
         review = review_of(reviews.get(session.id, []))
+        visit_id, beam_position = visits.get(session.id, (None, None))
         rows.append(
             {
                 "id": session.id,
@@ -75,6 +80,8 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
                 "sets": sets,
                 "readings": reading_counts.get(session.id, 0),
                 "replay_of": session.replay_of,
+                "visit_id": visit_id,
+                "visit_beam": beam_position,
                 "review": review_status(review),
                 "reviewer": review.reviewer if review else None,
                 "self_review": review.self_review if review else None,
@@ -96,6 +103,9 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
         print(json.dumps(rows, indent=2, ensure_ascii=False))
         return EXIT_OK
     station = ("station",) if by_station else ()
+    # The visit column only when a listed session measured a beam of a calibration visit: a
+    # station that records no visits keeps the listing as narrow as it was.
+    visit = ("visit",) if any(r["visit_id"] is not None for r in rows) else ()
     table = Table(
         "Sessions",
         (
@@ -110,6 +120,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
             "sets",
             "readings",
             "replay of",
+            *visit,
         ),
         tuple(
             (
@@ -124,6 +135,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
                 f"{r['sets_accepted']}/{r['sets']} accepted",
                 str(r["readings"]),
                 "" if r["replay_of"] is None else str(r["replay_of"]),
+                *((_visit_cell(r),) if visit else ()),
             )
             for r in rows
         ),
@@ -131,6 +143,13 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
     )
     print(table_text(table, title=False))
     return EXIT_OK
+
+
+def _visit_cell(row: dict) -> str:
+    """Return the visit column: the visit's id and the beam's position in it, or nothing."""
+    if row["visit_id"] is None:
+        return ""
+    return f"{row['visit_id']}, beam {row['visit_beam']}"
 
 
 def _review_cell(row: dict) -> str:

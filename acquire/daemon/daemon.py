@@ -381,7 +381,7 @@ class InstrumentLink(threading.Thread):
                 case driver_commands.TurnBiasSwitch(bias_V=bias_V):
                     self.bench.turn_bias(bias_V)
         except BenchError as error:
-            self._hand_over("fault", str(error))
+            self._hand_over("bench_refused", str(error))
 
     def _read_samples(self, pushes: bool) -> None:
         samples: list[tuple[Sample, LineRef | None]] = []
@@ -852,6 +852,8 @@ class Daemon:
             engine.apply(inputs.InstrumentLost(message=payload))
         elif kind == "fault":
             engine.apply(inputs.InstrumentLost(message=payload, still_connected=True))
+        elif kind == "bench_refused":
+            engine.apply(inputs.BenchRefused(message=payload))
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 

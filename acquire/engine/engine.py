@@ -793,18 +793,47 @@ class Engine:
         self.instrument_message = message
         kind = EventKind.INSTRUMENT_FAULT if still_connected else EventKind.INSTRUMENT_LOST
         self._event(DAEMON_ACTOR, kind, ev.InstrumentMessage(message=message))
-        busy = (S.SETTLING, S.COLLECTING)
-        if self.state in busy or (self.state is S.PAUSED and self.paused_from in busy):
-            self._drop_reading(DAEMON_ACTOR, "instrument lost")
-            assert self.active is not None
-            self.store.set_set_status(self.active.id, "interrupted", message)
-            self.settle_until_s = None
-            if self.state is S.PAUSED:
-                self.paused_from = S.INTERRUPTED
-            else:
-                self._goto(S.INTERRUPTED, "instrument lost", DAEMON_ACTOR, reason=message)
+        self._interrupt_set("instrument lost", message)
         self._changed()
         return None
+
+    def _on_bench_refused(self, given: inputs.BenchRefused) -> None:
+        """The bench refused what the daemon asked of it (a beam, while the one before is still
+        on after an early capture; a turn of the bias switch): the reading it was for cannot be
+        taken, so a set in progress is interrupted with its readings kept. Said as the bench's
+        refusal: the electrometer's state and message are not touched."""
+        message, active = given.message, self.active
+        number = None if self.reading is None or active is None else len(active.readings) + 1
+        refused = ev.BenchRefused(
+            message=message, set_id=None if active is None else active.id, reading_number=number
+        )
+        self._event(DAEMON_ACTOR, EventKind.BENCH_REFUSED, refused)
+        if self._interrupt_set("bench refused", message):
+            of = "" if number is None else f" of reading {number}"
+            self.notice = (
+                f"The beam{of} could not be started: {message}. The set is interrupted and "
+                "its readings are kept: continue it (arm) once the bench is ready, or redo it."
+            )
+        else:
+            self.notice = f"The bench refused: {message}."
+        self._changed()
+
+    def _interrupt_set(self, why: str, message: str) -> bool:
+        """Interrupt the set in progress (settling or collecting, or paused there) because of
+        ``why`` (the state change's action) and ``message`` (its reason): the reading in
+        progress is dropped, the readings taken are kept. Return False when none was."""
+        busy = (S.SETTLING, S.COLLECTING)
+        if not (self.state in busy or (self.state is S.PAUSED and self.paused_from in busy)):
+            return False
+        self._drop_reading(DAEMON_ACTOR, why)
+        assert self.active is not None
+        self.store.set_set_status(self.active.id, "interrupted", message)
+        self.settle_until_s = None
+        if self.state is S.PAUSED:
+            self.paused_from = S.INTERRUPTED
+        else:
+            self._goto(S.INTERRUPTED, why, DAEMON_ACTOR, reason=message)
+        return True
 
     def instrument_unreachable(self, message: str) -> None:
         """The electrometer cannot be reached yet (or again): show why, while it stays away."""
@@ -1061,6 +1090,7 @@ HANDLERS: dict[type[inputs.Input], Callable[[Engine, Any], Any]] = {
     inputs.InstrumentLost: Engine._on_instrument_lost,
     inputs.InstrumentBack: Engine._on_instrument_back,
     inputs.Restart: Engine._on_restart,
+    inputs.BenchRefused: Engine._on_bench_refused,
 }
 
 

@@ -221,6 +221,15 @@ class InstrumentLost(Input):
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class BenchRefused(Input):
+    """The bench (the simulated linac or bias switch) refused what the daemon asked of it; the
+    electrometer is not concerned."""
+
+    kind: ClassVar[str] = "bench_refused"
+    message: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class InstrumentBack(Input):
     """The electrometer answers again (or for the first time), saying who it is."""
 
@@ -258,6 +267,7 @@ KINDS: dict[str, type[Input]] = {
         InstrumentLost,
         InstrumentBack,
         Restart,
+        BenchRefused,
     )
 }
 #: The operator's inputs, by the request that gives them.

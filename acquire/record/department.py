@@ -655,6 +655,10 @@ class DepartmentStore:
         """Return {}: each session's names are read from its decoded metadata."""
         return {}
 
+    def session_visits(self) -> dict[int, tuple[int, int]]:
+        """Return {}: visits are not published to the department record (yet)."""
+        return {}
+
     def session_results(self) -> dict[int, tuple[str, str]]:
         """Return {}: the department record keeps no evaluated results, so each of its sessions
         is evaluated from its published rows, by the reader's own code (whatever the version

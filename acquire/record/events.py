@@ -77,6 +77,8 @@ class EventKind(enum.StrEnum):
     VISIT_BEAM_STATUS = "visit_beam_status"
     VISIT_BEAM = "visit_beam"
     VISIT_REVIEWED = "visit_reviewed"
+    # the bench (the simulated linac and bias switch), as the engine hears of it
+    BENCH_REFUSED = "bench_refused"
 
 
 # ----------------------------------------------------------------- written by the store
@@ -217,6 +219,15 @@ class InstrumentMessage(TypedDict):
     """``instrument_lost`` / ``instrument_fault``: the driver's words."""
 
     message: str
+
+
+class BenchRefused(TypedDict):
+    """``bench_refused``: the bench's words, and the reading whose beam it was asked for (its
+    set and its number in the set; None when no reading was in progress)."""
+
+    message: str
+    set_id: int | None
+    reading_number: int | None
 
 
 class InstrumentBack(TypedDict):
@@ -401,6 +412,7 @@ def detail_types() -> dict[EventKind, type]:
         EventKind.VISIT_BEAM: VisitBeam,
         EventKind.VISIT_BEAM_STATUS: VisitBeamStatus,
         EventKind.VISIT_REVIEWED: VisitReviewed,
+        EventKind.BENCH_REFUSED: BenchRefused,
     }
 
 

@@ -349,6 +349,14 @@ def _chain_appended_rows(db: Database) -> None:
     _run_triggers(db, _STATUS_AUDIT_TRIGGERS)
 
 
+def _run_statements(db: Database, sql: str) -> None:
+    """Run the statements in ``sql`` (separated by ``;``, none holding one) one at a time,
+    inside the open transaction (``executescript`` would commit it first)."""
+    for statement in sql.split(";"):
+        if statement.strip():
+            db.execute(statement)
+
+
 def _run_triggers(db: Database, sql: str) -> None:
     """Create the triggers in ``sql`` one statement at a time, inside the open transaction
     (``executescript`` would commit it first)."""
@@ -560,9 +568,7 @@ _BROWSE_VIEWS = """
 def _browse_views(db: Database) -> None:
     """Add the read-only views of :data:`_BROWSE_VIEWS` (``session_overview``,
     ``reading_overview``, ``traffic_text``)."""
-    for statement in _BROWSE_VIEWS.split(";"):
-        if statement.strip():
-            db.execute(statement)
+    _run_statements(db, _BROWSE_VIEWS)
 
 
 def _input_log(db: Database) -> None:
@@ -648,9 +654,7 @@ def _visits(db: Database) -> None:
     written first); ``visit_beams`` (the beams in the order the physicist added them) and
     ``visit_sessions`` (the session measuring a beam) are append-only. All three are chained
     with the rows outside any session (``chain.VISIT_COLUMNS``)."""
-    for statement in _visits_tables().split(";"):
-        if statement.strip():
-            db.execute(statement)
+    _run_statements(db, _visits_tables())
     triggers = _facts_fixed_trigger(
         "visits", ("id", "uuid", "created_at", "machine", "metadata_json"), VISIT_FINAL_STATUSES
     )
@@ -671,6 +675,18 @@ def _session_results(db: Database) -> None:
         "session_id INTEGER PRIMARY KEY REFERENCES sessions(id), "
         "stamp TEXT NOT NULL, result_json TEXT NOT NULL, evaluated_at TEXT NOT NULL)"
     )
+
+
+def restore_session_results(db: Database) -> bool:
+    """Create ``session_results`` again when it is missing from a file migrated past it (the
+    table dropped by hand: it is a cache, not the record), by the very statement its migration
+    ran; return True when it was missing. The daemon then keeps each session's result again."""
+    if db.conn.execute(
+        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'session_results'"
+    ).fetchone():
+        return False
+    _session_results(db)
+    return True
 
 
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.

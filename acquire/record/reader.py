@@ -46,6 +46,11 @@ class RecordReader(Protocol):
         it holds of ``store.NAMED_KEYS``); a session left out is read from its metadata."""
         ...
 
+    def session_visits(self) -> dict[int, tuple[int, int]]:
+        """Return, per session measuring a beam of a calibration visit, (the visit's id, the
+        beam's position in it); a session of no visit is left out."""
+        ...
+
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted)."""
         ...

@@ -53,6 +53,7 @@ from chargebook.acquire.record.migrations import (
     TRAFFIC_DIRECTIONS,
     SchemaTooNew,
     migrate,
+    restore_session_results,
     schema_version,
 )
 from chargebook.corrections.errors import InputError
@@ -273,10 +274,10 @@ class SessionRow:
     uuid: str | None = None  # the session's global id (migration station_identity)
 
     def metadata(self) -> dict[str, Any]:
-        return _json_object(self.metadata_json)
+        return json_object(self.metadata_json)
 
     def plan(self) -> dict[str, Any]:
-        return _json_object(self.plan_json)
+        return json_object(self.plan_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -351,7 +352,7 @@ class EventRow:
     account: str | None = None  # the Unix account of the client that asked, if one did
 
     def detail(self) -> dict[str, Any]:
-        return _json_object(self.detail_json)
+        return json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -368,7 +369,7 @@ class InputRow:
     account: str | None = None
 
     def detail(self) -> dict[str, Any]:
-        return _json_object(self.detail_json)
+        return json_object(self.detail_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -516,8 +517,9 @@ def _finite_or_none(field: str, value: object) -> float | None:
     return float(value)
 
 
-def _json_object(text: str) -> dict[str, Any]:
-    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail)."""
+def json_object(text: str) -> dict[str, Any]:
+    """Return the JSON object stored as ``text`` (metadata, plan or an event's detail, or a
+    visit's row)."""
     loaded: dict[str, Any] = json.loads(text)
     return loaded
 
@@ -679,6 +681,7 @@ class Store:
                 store.db.enable_wal()
             conn.execute("PRAGMA synchronous = FULL")
             migrate(store.db)
+            restore_session_results(store.db)
         return store
 
     @property
@@ -1125,6 +1128,7 @@ class Store:
         the evaluation that computed it (``acquire.session.stored_result``)."""
         with self.atomic():
             self._require_session(session_id)
+            restore_session_results(self.db)  # dropped while the daemon runs: keep it again
             self.conn.execute(
                 "INSERT OR REPLACE INTO session_results "
                 "(session_id, stamp, result_json, evaluated_at) VALUES (?, ?, ?, ?)",
@@ -1132,13 +1136,33 @@ class Store:
             )
 
     def session_results(self) -> dict[int, tuple[str, str]]:
-        """Return the kept results of closed sessions: session id -> (stamp, JSON)."""
-        rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
+        the file has lost its ``session_results`` table (a cache: each session is then
+        evaluated live, and a writable open keeps them again)."""
+        try:
+            rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+        except sqlite3.OperationalError:
+            if self.keeps_results():
+                raise
+            return {}
         return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
+
+    def keeps_results(self) -> bool:
+        """Return True when the file has its ``session_results`` table (False: it was dropped
+        by hand; the next writable open, or the next result kept, creates it again)."""
+        return bool(
+            self.read(
+                "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
+                ("session_results",),
+            )
+        )
 
     def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
         """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
-        or was computed by another evaluation than ``stamp``."""
+        or was computed by another evaluation than ``stamp`` (all of them when the table was
+        dropped while the file was open: it is created again here, empty)."""
+        with self.atomic():
+            restore_session_results(self.db)
         rows = self.read(
             "SELECT s.id FROM sessions s LEFT JOIN session_results r ON r.session_id = s.id "
             "WHERE s.status != 'open' AND (r.stamp IS NULL OR r.stamp != ?) "
@@ -1282,6 +1306,17 @@ class Store:
             else:
                 names[int(session_id)] = found
         return names
+
+    def session_visits(self) -> dict[int, tuple[int, int]]:
+        """Return, per session measuring a beam of a calibration visit, (the visit's id, the
+        beam's position in it), in one query; a session of no visit is left out."""
+        rows = self.read(
+            "SELECT s.session_id, s.visit_id, b.position FROM visit_sessions s "
+            "JOIN visit_beams b ON b.id = s.beam_id"
+        )
+        return {
+            int(session_id): (int(visit), int(position)) for session_id, visit, position in rows
+        }
 
     def set_counts(self) -> dict[int, tuple[int, int]]:
         """Return, per session id, (its reading sets, those accepted), in one query: a listing

@@ -33,6 +33,7 @@ from chargebook.acquire.record.store import (
     SessionRow,
     Store,
     VisitNotFound,
+    json_object,
 )
 from chargebook.corrections.errors import InputError
 
@@ -51,12 +52,6 @@ BEAM_STATUSES = ("planned", "measuring", "measured", "unfinished", "skipped")
 STARTABLE = ("planned", "unfinished", "skipped")
 
 
-def _json_object(text: str) -> dict[str, Any]:
-    """Return the JSON object a row holds as text."""
-    found: dict[str, Any] = json.loads(text)
-    return found
-
-
 @dataclass(frozen=True, slots=True)
 class VisitRow:
     """One calibration visit: its machine, its metadata (``metadata()``) and its status."""
@@ -71,7 +66,7 @@ class VisitRow:
     reason: str | None
 
     def metadata(self) -> dict[str, Any]:
-        return _json_object(self.metadata_json)
+        return json_object(self.metadata_json)
 
 
 @dataclass(frozen=True, slots=True)
@@ -88,10 +83,10 @@ class VisitBeamRow:
     recorded_at: str
 
     def metadata(self) -> dict[str, Any]:
-        return _json_object(self.metadata_json)
+        return json_object(self.metadata_json)
 
     def register_ids(self) -> dict[str, int]:
-        return {str(k): int(v) for k, v in _json_object(self.register_ids_json).items()}
+        return {str(k): int(v) for k, v in json_object(self.register_ids_json).items()}
 
 
 @dataclass(frozen=True, slots=True)

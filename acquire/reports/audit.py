@@ -97,6 +97,10 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         return "daemon restarted", f"the previous run {previous}{stop}"
     if kind == EventKind.DAEMON_STOPPED:
         return "daemon stopped", _reason(detail.get("reason"))
+    if kind == EventKind.BENCH_REFUSED:
+        number, set_id = detail.get("reading_number"), detail.get("set_id")
+        of = "" if number is None else f"the beam of reading {number} of set {set_id}: "
+        return "the bench refused", f"{of}{detail.get('message')}"
     if kind == "delivery_short":
         return "delivery stopped short", (
             f"reading {detail.get('reading_id')}: {detail.get('actual_MU'):g} MU delivered of "

@@ -45,6 +45,7 @@ AUDIT_EVENT_KINDS = (
     EventKind.READING_DROPPED,
     EventKind.INSTRUMENT_LOST,
     EventKind.INSTRUMENT_BACK,
+    EventKind.BENCH_REFUSED,
     EventKind.SESSION_RESUMED,
     EventKind.DAEMON_STOPPED,
     EventKind.DAEMON_RESTARTED,

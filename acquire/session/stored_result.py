@@ -253,3 +253,32 @@ def differing_results(store: RecordReader, session_ids: Iterable[int] | None = N
                 f"its recorded values ({changes})"
             )
     return found
+
+
+def missing_results(store: Store, session_ids: Iterable[int] | None = None) -> list[str]:
+    """Return, in words, what is missing of the kept results of the closed sessions among
+    ``session_ids`` (None: every session): the whole ``session_results`` table, or the rows of
+    some sessions. Never a fault of the record: kept results are a cache of each session's
+    evaluation, outside the hash chain; those sessions are evaluated live from their recorded
+    rows until the daemon keeps their results again, as it starts on the file."""
+    rebuilt = (
+        "they are a cache, not the record: each session is evaluated live from its recorded "
+        "rows (what `history` shows) until the daemon rebuilds them the next time it starts on "
+        "this file (`chargebook serve --db FILE`)"
+    )
+    if not store.keeps_results():
+        return [f"the kept session results (table session_results) are missing: {rebuilt}"]
+    wanted = None if session_ids is None else set(session_ids)
+    kept = store.session_results()
+    without = [
+        session.id
+        for session in store.sessions()
+        if session.status != "open"
+        and session.id not in kept
+        and (wanted is None or session.id in wanted)
+    ]
+    if not without:
+        return []
+    names = ", ".join(str(session_id) for session_id in without)
+    plural = "s" if len(without) > 1 else ""
+    return [f"closed session{plural} {names} ha{'ve' if plural else 's'} no kept result: {rebuilt}"]

@@ -124,3 +124,33 @@ def test_a_damaged_station_file_is_refused_in_words_not_a_traceback(
     err = capsys.readouterr().err
     assert "cannot be read" in err and str(station) in err
     assert "Traceback" not in err
+
+
+def test_a_session_measuring_a_beam_of_a_visit_shows_the_visit_and_the_beam(
+    station: Path, capsys
+) -> None:
+    from chargebook.acquire.record import visits
+
+    with Store.open(station) as store:
+        visit_id = visits.create_visit(store, "DEMO-LA1", {"operator": "operator A"}, "operator A")
+        _six, ten = (
+            visits.add_beam(store, visit_id, beam, "default", {"beam": beam}, "operator A")
+            for beam in ("6 MV", "10 MV")
+        )
+        ten_session = record_example_session(store, status="open", beam="10 MV")
+        visits.link_session(store, visit_id, ten, ten_session, "operator A")
+    assert main(["sessions", "--db", str(station)]) == EXIT_OK
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].split()[-1] == "visit"
+    rows = {line.split()[0]: line for line in lines[2:]}
+    assert rows[str(ten_session)].endswith(f"{visit_id}, beam 2")  # the second beam of visit 1
+    assert all(not rows[str(i)].endswith("beam 2") for i in (1, 2, 3))  # of no visit
+    assert main(["sessions", "--db", str(station), "--json"]) == EXIT_OK
+    found = {r["id"]: (r["visit_id"], r["visit_beam"]) for r in json.loads(capsys.readouterr().out)}
+    assert found == {1: (None, None), 2: (None, None), 3: (None, None), 4: (visit_id, 2)}
+
+
+def test_a_station_without_visits_lists_no_visit_column(station: Path, capsys) -> None:
+    assert main(["sessions", "--db", str(station)]) == EXIT_OK
+    header = capsys.readouterr().out.splitlines()[0]
+    assert header.split()[-2:] == ["replay", "of"]

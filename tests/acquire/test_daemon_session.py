@@ -25,6 +25,7 @@ import pytest
 from chargebook.acquire import protocol
 from chargebook.acquire.client import DaemonError
 from chargebook.acquire.commands.operator_auto import ACTOR, AutoOperator, AutoOperatorError
+from chargebook.acquire.daemon.daemon import POLL_INTERVAL_S
 from chargebook.acquire.record.store import Store
 
 from tests.acquire.in_process_daemon import InProcessDaemon, demo_metadata, session_daemon
@@ -303,3 +304,54 @@ async def test_the_automatic_operator_never_takes_over_a_session_it_did_not_star
         await console.close()
     assert still["session"]["id"] == started["session"]["id"]
     assert still["sets"] == started["sets"]  # nothing accepted on the operator's behalf
+
+
+async def test_an_early_capture_while_the_beam_is_on_is_a_bench_refusal_not_a_lost_electrometer(
+    daemon, metadata
+):
+    client, operator = await daemon.operator()
+    snapshot = await operator.start(metadata)
+    snapshot = await operator.run_until(
+        snapshot, lambda s: s["step_index"] == 1 and "step.arm" in s["allowed"]
+    )
+    await daemon.stop_time()  # instrument time moves only as this test says
+    await client.call(protocol.Method.STEP_ARM)  # the bench starts the first beam (100 MU)
+    engine, device = daemon.engine, daemon.sim.device
+    for _ in range(4000):  # until the reading has a sample to capture, its beam still on
+        reading = engine.reading
+        if reading is not None and reading.last_t_s is not None and device.beam_on():
+            break
+        if not device.beam_on() or daemon.link.generation is not None:
+            # before the beam nothing is missed; once on, each poll interval is read
+            await daemon.caught_up(daemon.time.advance(POLL_INTERVAL_S))
+        await asyncio.sleep(0.005)  # the instrument thread's turn
+    assert device.beam_on()
+    captured = await client.call(protocol.Method.READING_CAPTURE)  # its beam still on
+    assert captured["current_set"]["readings_done"] == 1
+    refused = await client.wait_for_snapshot(state_is("interrupted"), 20)
+    assert refused["instrument"]["connected"] and refused["instrument"]["message"] is None
+    assert refused["notice"].startswith("The beam of reading 2 could not be started: the bench ")
+    assert "a beam is already on" in refused["notice"] and "electrometer" not in refused["notice"]
+    session_id = refused["session"]["id"]
+    with stored(daemon.db) as store:
+        events = store.events(session_id)
+    kinds = [e.kind for e in events]
+    assert "instrument_fault" not in kinds and "instrument_lost" not in kinds
+    # in causal order: the capture, the refused beam of the next reading, its reading dropped,
+    # the set interrupted, the state change that says why
+    start = kinds.index("reading_recorded", kinds.index("step_entered", kinds.index("set_status")))
+    assert kinds[start : start + 5] == [
+        "reading_recorded",
+        "bench_refused",
+        "reading_dropped",
+        "set_status",
+        "state_changed",
+    ]
+    recorded, bench, dropped, _status, changed = (e.detail() for e in events[start : start + 5])
+    assert recorded["capture"] == "manual"
+    assert bench["set_id"] == recorded["set_id"] and bench["reading_number"] == 2
+    assert dropped["why"] == "bench refused" and changed["action"] == "bench refused"
+    daemon.let_time_run()  # the beam ends; the operator continues the set, nothing was lost
+    final = await operator.run_until(refused, state_is("finished"))
+    await client.close()
+    assert final["session"]["status"] == "finished"

@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
-from chargebook.acquire.engine import driver_commands
+from chargebook.acquire.engine import driver_commands, inputs
 from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.protocol import EngineState, Method
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
+from chargebook.acquire.reports.audit import event_words
+from chargebook.acquire.reports.data import load_record
 from chargebook.acquire.session.plan import CaptureRule, Plan, SettlingRule, Step
 from chargebook.corrections.errors import InputError
 from chargebook.drivers_generic.interface import Capability
@@ -405,6 +407,58 @@ def test_a_refused_command_interrupts_the_set_but_it_can_go_on_at_once():
     assert engine.snapshot()["instrument"]["message"] is None
     kinds = [e.kind for e in engine.store.events(engine.session_id)]
     assert EventKind.INSTRUMENT_FAULT in kinds
+
+
+BENCH_WORDS = "the bench refused to deliver 100 MU: a beam is already on; wait for it to end"
+
+
+def test_a_bench_refusal_interrupts_the_set_in_its_own_words_and_leaves_the_electrometer_be():
+    engine, clock = make_engine()
+    session_id = started(engine)
+    take_set(engine, clock, [20.5])  # one reading taken, the next armed
+    assert engine.reading is not None
+    engine.apply(inputs.BenchRefused(message=BENCH_WORDS))
+    snapshot = engine.snapshot()
+    assert snapshot["state"] == "interrupted"
+    assert snapshot["instrument"]["connected"] and snapshot["instrument"]["message"] is None
+    assert snapshot["notice"].startswith(
+        f"The beam of reading 2 could not be started: {BENCH_WORDS}"
+    )
+    events = engine.store.events(session_id)
+    kinds = [e.kind for e in events]
+    assert EventKind.INSTRUMENT_FAULT not in kinds and EventKind.INSTRUMENT_LOST not in kinds
+    assert kinds[-4:] == [
+        EventKind.BENCH_REFUSED,
+        EventKind.READING_DROPPED,
+        EventKind.SET_STATUS,
+        EventKind.STATE_CHANGED,
+    ]
+    refused, dropped, status, changed = (e.detail() for e in events[-4:])
+    assert refused == {"message": BENCH_WORDS, "set_id": status["set_id"], "reading_number": 2}
+    assert dropped["why"] == "bench refused" and status["reason"] == BENCH_WORDS
+    assert changed["action"] == "bench refused"
+    record = load_record(engine.store, session_id)
+    bench = next(e for e in record.audit() if e.kind == EventKind.BENCH_REFUSED)
+    what, detail = event_words(record, bench)
+    assert (what, detail) == (
+        "the bench refused",
+        f"the beam of reading 2 of set {status['set_id']}: {BENCH_WORDS}",
+    )
+    engine.arm()  # the set goes on: its reading is kept
+    assert engine.state is EngineState.COLLECTING
+    assert len(engine.store.readings(session_id)) == 1
+
+
+def test_a_bench_refusal_between_sets_is_said_and_interrupts_nothing():
+    engine, _clock = make_engine()
+    started(engine)
+    engine.apply(inputs.BenchRefused(message="the bench refused to set the bias to +300 V: busy"))
+    snapshot = engine.snapshot()
+    assert snapshot["state"] == "waiting_for_operator"
+    assert (
+        snapshot["notice"]
+        == "The bench refused: the bench refused to set the bias to +300 V: busy."
+    )
 
 
 def test_a_set_whose_readings_average_zero_leaves_the_snapshot_standing():

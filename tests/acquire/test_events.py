@@ -70,6 +70,7 @@ STORED_KINDS = (
     "visit_beam_status",
     "visit_beam",
     "visit_reviewed",
+    "bench_refused",
 )
 
 

@@ -261,3 +261,26 @@ def test_a_settling_wait_a_restart_a_skip_and_a_stop_apply_again_from_the_log(
     assert again.store.session(session_id).status == "finished"
     revived.store.close()
     again.store.close()
+
+
+def test_a_bench_refusal_is_logged_and_applies_again_from_the_log(tmp_path: Path) -> None:
+    clock = Clock()
+    engine = file_engine(tmp_path / "station.sqlite", clock)
+    session_id = engine.start_session(METADATA, small_plan(), actor=OPERATOR)
+    engine.set_environment(20.0, 101.325, actor=OPERATOR)
+    if engine.pending_manual is not None:
+        engine.manual_done(actor=OPERATOR)
+    engine.arm(actor=OPERATOR)
+    deliver(engine, clock, 20.5)
+    engine.apply(inputs.BenchRefused(message="the bench refused to deliver 100 MU: busy"))
+    engine.arm(actor=OPERATOR)  # continue the interrupted set
+    deliver(engine, clock, 20.0)
+    logged = [row for row in engine.store.inputs(session_id) if row.kind == "bench_refused"]
+    assert [(row.actor, row.detail()["message"]) for row in logged] == [
+        ("daemon", "the bench refused to deliver 100 MU: busy")
+    ]
+    again = replay_log(engine.store, session_id, tmp_path / "again.sqlite")
+    assert facts(again.store, session_id) == facts(engine.store, session_id)
+    assert "bench_refused" in [kind for kind, _, _ in facts(again.store, session_id)[2]]
+    engine.store.close()
+    again.store.close()

@@ -239,3 +239,60 @@ def test_a_kept_result_edited_outside_chargebook_is_not_shown_and_verify_names_i
     assert main(["verify", "--db", str(path)]) == EXIT_FAILURE
     out = capsys.readouterr().out
     assert f"session {session_id}: its stored result" in out and named in out
+
+
+def _drop_kept_results(path: Path) -> None:
+    """Drop the kept results' table with sqlite3, as someone tidying the file by hand."""
+    with sqlite3.connect(path) as db:
+        db.execute("DROP TABLE session_results")
+
+
+def test_verify_checks_the_record_when_the_kept_results_table_is_dropped_and_says_so(
+    unkept, tmp_path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id, console = unkept[1], unkept[2]
+    with Store.open(path) as store:
+        refresh_results(store)
+    _drop_kept_results(path)
+    assert main(["verify", "--db", str(path)]) == EXIT_OK  # a cache gone: the record verifies
+    out = capsys.readouterr().out
+    assert f"session {session_id}: verified" in out and "the record verifies" in out
+    assert "kept session results (table session_results) are missing" in out
+    assert "the daemon rebuilds them" in out
+    assert main(["verify", "--db", str(path), "--json"]) == EXIT_OK
+    found = json.loads(capsys.readouterr().out)
+    assert found["verified"] and all(chain["verified"] for chain in found["chains"])
+    assert len(found["stored_results_missing"]) == 1
+    with Store.open(path, read_only=True) as store:  # history still has its result, live
+        (point,) = load_history(store, BEAM).points
+    assert point.dose_per_MU_cGy == console["dose_per_MU_cGy"]
+    with Store.open(path) as store:  # as the daemon opens it, then refreshes
+        assert refresh_results(store) == 1
+        assert store.session_results()[session_id][0] == evaluation_stamp()
+    assert main(["verify", "--db", str(path)]) == EXIT_OK
+    assert "note:" not in capsys.readouterr().out
+
+
+def test_verify_names_the_closed_sessions_whose_kept_result_rows_are_absent(
+    unkept, tmp_path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id = unkept[1]
+    assert main(["verify", str(session_id), "--db", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert f"closed session {session_id} has no kept result" in out
+    assert "evaluated live from its recorded rows" in out and "the record verifies" in out
+
+
+def test_a_result_is_kept_even_when_the_table_was_dropped_while_the_file_was_open(
+    unkept, tmp_path
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id, console = unkept[1], unkept[2]
+    with Store.open(path) as store:  # the daemon holds the file; someone drops the table
+        _drop_kept_results(path)
+        assert not store.keeps_results() and store.session_results() == {}
+        assert refresh_results(store) == 1  # created again, then kept
+        kept = ResultSummary.from_json(store.session_results()[session_id][1])
+    assert kept.dose_per_MU_cGy == console["dose_per_MU_cGy"]

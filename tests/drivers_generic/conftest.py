@@ -8,6 +8,7 @@ directory is checked to be gone.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import select
 import signal
@@ -19,7 +20,8 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from chargebook.drivers_generic.interface import Sample
+from chargebook.drivers_generic import open_electrometer
+from chargebook.drivers_generic.interface import Electrometer, Sample
 from chargebook.drivers_generic.readout import capture_reading
 from chargebook.drivers_generic.simulator.control import SimulatorControl
 
@@ -95,3 +97,15 @@ def simulator() -> Iterator:
 def capture(driver, control, mu: float = MU) -> Sample:
     """Return one reading of ``mu`` MU, the beam delivered by the simulator's bench."""
     return capture_reading(driver, lambda wait: control.beam(mu, wait=wait), timeout_s=10.0)
+
+
+@contextlib.contextmanager
+def scpi_driver(simulator, *options: str) -> Iterator[tuple[RunningSimulator, Electrometer]]:
+    """Start a simulator serving SCPI on a loopback socket (``options`` added, fast time) with
+    the ``scpi-generic`` driver open on it; yield both, and close the driver after."""
+    sim = simulator("--scpi", "0", *options, *FAST)
+    driver = open_electrometer("scpi-generic", resource=sim.scpi)
+    try:
+        yield sim, driver
+    finally:
+        driver.close()

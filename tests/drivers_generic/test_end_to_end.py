@@ -27,7 +27,7 @@ from chargebook.drivers_generic.interface import (
     SettingOutOfRange,
 )
 
-from .conftest import FAST, MU, capture
+from .conftest import FAST, MU, capture, scpi_driver
 
 #: Simulated noise is 0.03 % per delivery; 0.15 % is five standard deviations.
 NOISE_BOUND = 0.0015
@@ -118,17 +118,13 @@ def test_the_pty_drops_and_comes_back_at_the_same_path(simulator, profile):
 
 
 def test_the_scpi_socket_drops_and_comes_back(simulator):
-    sim = simulator("--scpi", "0", *FAST)
-    driver = open_electrometer("scpi-generic", resource=sim.scpi)
-    try:
+    with scpi_driver(simulator) as (sim, driver):
         driver.identify()
         sim.control.drop(0.3)
         with pytest.raises(InstrumentDisconnected):
             driver.identify()
         reconnect(driver, attempts=30, backoff_s=0.02)
         assert driver.identify().model == "SIM-SCPI"
-    finally:
-        driver.close()
 
 
 def test_a_missing_port_is_instrument_disconnected_and_reconnect_gives_up(tmp_path):

@@ -27,7 +27,7 @@ from chargebook.drivers_generic.visa_transport import (
     visa_library_spec,
 )
 
-from .conftest import FAST
+from .conftest import FAST, scpi_driver
 
 
 def _open_raw(resource: str):
@@ -119,9 +119,7 @@ def test_a_command_after_a_look_for_waiting_lines_gets_a_writers_timeout(simulat
 
 
 def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):
-    sim = simulator("--scpi", "0", *FAST)
-    driver = open_electrometer("scpi-generic", resource=sim.scpi)
-    try:
+    with scpi_driver(simulator) as (sim, driver):
         driver.identify()
         sim.control.drop(2.0)  # the simulator closes the socket (it listens again after 2 s)
         with pytest.raises(InstrumentDisconnected, match="went away"):
@@ -129,8 +127,6 @@ def test_writes_to_a_peer_gone_end_in_a_disconnection(simulator):
                 driver.transport.write_line("*IDN?")
                 time.sleep(0.005)
         assert not driver.transport.is_open
-    finally:
-        driver.close()
 
 
 def _serve_once(

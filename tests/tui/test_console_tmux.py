@@ -34,6 +34,7 @@ class Terminal:
             pytest.fail("tmux is not installed: apt-get install -y tmux (CI installs it)")
         self.tmux = [tmux, "-S", str(tmp_path / "tmux.sock")]
         self.name = "console"
+        self.exit_status = ""  # the console's exit status, once it has exited (last_words)
 
     def run(self, *args: str) -> str:
         done = subprocess.run([*self.tmux, *args], capture_output=True, text=True, timeout=30)
@@ -77,6 +78,8 @@ class Terminal:
         """Wait until the console has exited; return what it printed last, then close it."""
         for _ in range(int(DEADLINE_S / 0.1)):
             if self.run("display-message", "-p", "-t", self.name, "#{pane_dead}").strip() == "1":
+                status = "#{pane_dead_status}"
+                self.exit_status = self.run("display-message", "-p", "-t", self.name, status)
                 # -J unwraps long lines; -S - includes what scrolled off the top
                 screen = self.run("capture-pane", "-p", "-J", "-S", "-", "-t", self.name)
                 self.run("kill-session", "-t", self.name)
@@ -159,3 +162,18 @@ async def test_the_console_in_a_terminal_attaches_quits_without_stopping_and_fin
     assert f"Dose per MU {results['dose_per_MU_cGy']:.4f} cGy/MU" in words
     assert f"Corrected M_Q {results['M_corrected_nC']:.4f} nC" in words
     assert "Caution: chargebook supports, and never replaces" in screen
+
+
+@pytest.mark.slow  # the console tries for about 9 s, as for a daemon still starting
+async def test_the_console_on_a_socket_where_no_daemon_listens_says_so_and_exits_non_zero(
+    terminal, tmp_path: Path
+):
+    missing = tmp_path / "nowhere" / "daemon.sock"
+    terminal.open_console(missing)
+    screen = await terminal.shows("No daemon answers yet: attempt ")  # 1, or later under load
+    assert "of 8 (no socket there)" in " ".join(screen.split())
+    words = " ".join((await terminal.last_words()).split())
+    assert f"chargebook console: no chargebook daemon listens at {missing}" in words
+    assert "(no socket there; tried 8 times)" in words
+    assert "Start one with `chargebook serve --port DEVICE`" in words
+    assert terminal.exit_status.strip() == "1"
