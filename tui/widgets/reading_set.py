@@ -145,11 +145,11 @@ class ReadingSetPanel(DrawnWhenComposed, Vertical):
         self.redraw()
 
     def _draw_held(self) -> None:
+        if self.set_info is self._shown_set and self.set_info is not None:
+            return  # the client's very object: the daemon changed nothing in the set
         self._draw(self.set_info)
 
     def _draw(self, set_info: dict[str, Any] | None) -> None:
-        if set_info is self._shown_set and set_info is not None:
-            return  # the client's very object: the daemon changed nothing in the set
         another_set = (set_info or {}).get("id") != (self._shown_set or {}).get("id")
         if another_set:
             self._cells.forget()

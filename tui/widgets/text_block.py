@@ -55,12 +55,13 @@ class TextBlock(Static):
         before = self._height
         if before[0] != width:  # not measured at this width yet: the content on show now
             before = (width, self._measure(self._content, width))
-        height = self._measure(content, width)
-        if self.keep_height and isinstance(content, str) and 0 < height < before[1]:
-            content += "\n" * (before[1] - height)  # blank lines keep the height shown
-            height = before[1]
         self._content = content
         self.update(content, layout=False)
+        height = self._measure(content, width)
+        if self.keep_height and isinstance(content, str) and 0 < height < before[1]:
+            self._content = content + "\n" * (before[1] - height)  # blank lines keep the height
+            self.update(self._content, layout=False)
+            height = before[1]
         self._height = (width, height)
         if width <= 0 or self._height != before:  # another width is another height, to be safe
             self.refresh(layout=True)
