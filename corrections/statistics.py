@@ -122,9 +122,26 @@ def readings_array(field: str, readings_nC: Sequence[float] | np.ndarray) -> np.
         raise InputError(field, readings_nC, "a list of charges in nC", "is not a list of numbers")
     if len(readings_nC) == 0:
         raise InputError(field, [], "at least one reading", "is an empty reading set")
-    for index, value in enumerate(readings_nC):
+    plain = _plain_charges(readings_nC)
+    if plain is not None:
+        return plain
+    for index, value in enumerate(readings_nC):  # names the first reading that is wrong
         CHARGE_NC.check(f"{field}[{index}]", value)
     return np.asarray(readings_nC, dtype=float)
+
+
+def _plain_charges(readings_nC: Sequence[float] | np.ndarray) -> np.ndarray | None:
+    """Return the readings as a float array when every one is a finite int or float within
+    :data:`CHARGE_NC` (checked in one pass, as the daemon recomputes a set's statistics at
+    every reading), else None: the caller then checks them one by one to name the wrong one."""
+    if isinstance(readings_nC, np.ndarray):
+        if readings_nC.dtype.kind not in "iuf":
+            return None
+    elif not all(type(value) is float or type(value) is int for value in readings_nC):
+        return None  # bools, strings, None, numpy scalars: the one-by-one check words them
+    array = np.asarray(readings_nC, dtype=float)
+    inside = np.isfinite(array) & (array >= CHARGE_NC.low) & (array <= CHARGE_NC.high)
+    return array if inside.all() else None
 
 
 def set_statistics(

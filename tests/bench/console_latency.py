@@ -17,6 +17,13 @@ count, "37 of 100 readings".
 * Measured: when the terminal received the frame showing the set's count reach that reading.
   A reading drawn together with a later one counts from the later one's frame.
 
+* CPU: the console's and the daemon's processor time (user + system) from the first pushed
+  line to the last frame, divided by the readings committed: what each reading costs them.
+  On a shared machine this is steadier than the latencies, which wait for the processor.
+  A console short of processor draws several readings in one frame and so spends less per
+  reading: its CPU per count drawn (each set's count as it reached the screen) says how much
+  one frame costs it.
+
 Targets (issue 17, target 1): median at most 16 ms (one frame at 60 Hz), 95th percentile at
 most 50 ms, and the median within 2 times the plain client's.
 """
@@ -24,11 +31,14 @@ most 50 ms, and the median within 2 times the plain client's.
 from __future__ import annotations
 
 import asyncio
+import os
 import re
 import sys
 import time
+from dataclasses import dataclass, field
 from datetime import datetime
 
+import psutil
 from chargebook.acquire.client import Notification
 from chargebook.acquire.processes import chargebook_args
 from chargebook.acquire.protocol import NOTIFY_SNAPSHOT, Method
@@ -76,6 +86,29 @@ class SnapshotClock:
             self.first_seen.setdefault(reading["id"], arrived)
 
 
+@dataclass
+class CpuMeter:
+    """Processor time (user + system, s) spent by processes between :meth:`start` and
+    :meth:`stop`, by name."""
+
+    processes: dict[str, psutil.Process]
+    spent_s: dict[str, float] = field(default_factory=dict)
+    _at_start: dict[str, float] = field(default_factory=dict)
+
+    @staticmethod
+    def _cpu_s(process: psutil.Process) -> float:
+        times = process.cpu_times()
+        return times.user + times.system
+
+    def start(self) -> None:
+        self._at_start = {name: self._cpu_s(p) for name, p in self.processes.items()}
+
+    def stop(self) -> None:
+        self.spent_s = {
+            name: self._cpu_s(p) - self._at_start[name] for name, p in self.processes.items()
+        }
+
+
 async def wait_until(predicate, what: str) -> None:
     deadline = time.monotonic() + DEADLINE_S
     while not predicate():
@@ -85,8 +118,9 @@ async def wait_until(predicate, what: str) -> None:
 
 
 async def take_readings(world: Station, rounds: int, per_round: int):
-    """Run the rounds with the console attached; return (terminal, subscribed client clock)."""
-    world.start_daemon(MANY_READINGS_PLAN)
+    """Run the rounds with the console attached; return (terminal, subscribed client clock,
+    the console's and the daemon's CPU meter)."""
+    daemon = world.start_daemon(MANY_READINGS_PLAN)
     client = await world.connect()
     clock = SnapshotClock()
     client.add_listener(clock)
@@ -95,6 +129,13 @@ async def take_readings(world: Station, rounds: int, per_round: int):
         await client.subscribe()
         snapshot = await arm_first_step(client)
         await wait_until(lambda: terminal.shows(COUNT), "the console to show the set")
+        cpu = CpuMeter(
+            {
+                "console": psutil.Process(terminal.process.pid),
+                "daemon": psutil.Process(daemon.process.pid),
+            }
+        )
+        cpu.start()
         with world.bench() as bench:
             bench.flood(LINES_PER_S, rounds * per_round * 4)  # more than enough; the rest unread
         for number in range(rounds):
@@ -106,10 +147,11 @@ async def take_readings(world: Station, rounds: int, per_round: int):
                 lambda s, set_id=set_id: _done_in(s, set_id) >= per_round, DEADLINE_S
             )
         await asyncio.sleep(0.5)  # the last frame
+        cpu.stop()
     finally:
         await client.close()
         terminal.close()
-    return terminal, clock
+    return terminal, clock, cpu
 
 
 def _done_in(snapshot: dict, set_id: int) -> int:
@@ -181,13 +223,25 @@ def main(argv: list[str] | None = None) -> int:
         args.smoke,
     )
     with station("console", PUSHED_EVERY_LINE, *QUIET_STREAM) as world:
-        terminal, clock = asyncio.run(take_readings(world, rounds, per_round))
+        terminal, clock, cpu = asyncio.run(take_readings(world, rounds, per_round))
         client_ms, screen_ms = latencies_ms(world, terminal, clock)
         committed, rate = commit_rate(world)
     if not screen_ms:
         raise SystemExit("no reading was seen both on screen and by the client")
     out.note(
         f"{committed} readings committed, {rate:.1f}/s within each set; {len(screen_ms)} timed"
+    )
+    out.note(
+        "CPU per reading committed: "
+        + ", ".join(
+            f"{name} {spent / committed * 1000:.1f} ms" for name, spent in cpu.spent_s.items()
+        )
+        + f" (load average {os.getloadavg()[0]:.1f})"
+    )
+    counts = sum(len(shown) for shown in on_screen_times(terminal))
+    out.note(
+        f"{counts} counts drawn (a count drawn with a later one is skipped): the console's "
+        f"CPU per count drawn {cpu.spent_s['console'] / counts * 1000:.1f} ms"
     )
     p95 = percentile(screen_ms, 0.95)
     out.note(f"on screen: 95th percentile {p95:.1f} ms, largest {max(screen_ms):.1f} ms")

@@ -127,6 +127,9 @@ def test_rows_are_processed_at_once() -> None:
         ([], "readings_nC"),
         ([20.1, "x"], "readings_nC[1]"),
         ([20.1, float("nan")], "readings_nC[1]"),
+        ([20.1, 20.2, 2e9], "readings_nC[2]"),  # beyond the plausible charge range
+        ([20.1, True], "readings_nC[1]"),  # a yes/no is no charge, though Python counts it 1
+        (np.array([20.1, np.inf]), "readings_nC[1]"),
         ("20.1", "readings_nC"),
         ([20.0, -20.0], "readings_nC"),
     ],
@@ -135,6 +138,13 @@ def test_bad_sets_are_refused(readings: object, field: str) -> None:
     with pytest.raises(InputError) as caught:
         set_statistics(readings)  # type: ignore[arg-type]
     assert caught.value.field == field
+
+
+def test_readings_given_as_integers_or_an_array_give_the_statistics_of_the_floats() -> None:
+    as_floats = set_statistics([20.0, 21.0, 22.0, 20.0])
+    assert set_statistics([20, 21, 22, 20]) == as_floats
+    assert set_statistics(np.array([20, 21, 22, 20])) == as_floats
+    assert set_statistics(np.array([20.0, 21.0, 22.0, 20.0], dtype=np.float32)) == as_floats
 
 
 def test_a_first_reading_against_others_that_average_zero_has_no_offset() -> None:

@@ -31,11 +31,13 @@ from chargebook.tui.widgets.reading_set import ReadingSetPanel
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from chargebook.tui.widgets.status_line import StatusLine
 from chargebook.tui.widgets.step_panel import StepPanel
+from rich.cells import cell_len
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, VerticalScroll
-from textual.widgets import Footer, Static, TabbedContent, TabPane
+from textual.content import Content
+from textual.widgets import Footer, Static, Tab, TabbedContent, TabPane
 
 #: How often the air data's age is counted again while the screen stands still, in s.
 AIR_AGE_REFRESH_S = 30.0
@@ -57,6 +59,20 @@ TABS: tuple[tuple[str, str, str], ...] = (
     ("3", "plan", "3 Plan"),
     ("4", "flags", "4 Flags"),
 )
+
+
+def relabel(tab: Tab, label: str) -> None:
+    """Give ``tab`` the words ``label``; when they take as many cells as the words they replace
+    (a count of flags going from 3 to 4), only the tab is repainted: Textual's own relabelling
+    lays the whole screen out again, which at 50 readings a second costs more than the rest of
+    a reading's drawing."""
+    if label == tab.label.plain:
+        return
+    if cell_len(label) != cell_len(tab.label.plain):
+        tab.label = label  # a new width: the tabs are laid out again
+        return
+    tab._label = Content(label)  # what Tab.label returns; its setter would lay out the screen
+    Static.update(tab, tab._label, layout=False)
 
 
 class MeasureScreen(ConsoleScreen):
@@ -101,10 +117,7 @@ class MeasureScreen(ConsoleScreen):
         tabs = self.query_one(TabbedContent)
         self._draw_tab(tabs.active, snapshot)
         count = flag_count(shown_set, snapshot)
-        label = f"{TABS[3][2]} ({count} !)" if count else TABS[3][2]
-        tab = tabs.get_tab("flags")
-        if str(tab.label) != label:
-            tab.label = label
+        relabel(tabs.get_tab("flags"), f"{TABS[3][2]} ({count} !)" if count else TABS[3][2])
         self.query_one(ResultsPanel).snapshot = snapshot
         action_bar = self.query_one(ActionBar)
         action_bar.display = not self.watching  # a watching console offers no action

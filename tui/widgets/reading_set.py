@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from chargebook.acquire.protocol import severity_rank
@@ -38,6 +39,25 @@ def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     )
 
 
+class CellsByReading:
+    """Each reading's cells, worked out once: the client keeps a reading the daemon did not
+    change as the very object it held, so at the 60th reading of a set only the new one is
+    formatted."""
+
+    def __init__(self) -> None:
+        self._held: dict[int, tuple[dict[str, Any], tuple[str, str, str, str]]] = {}
+
+    def __call__(self, reading: dict[str, Any]) -> tuple[str, str, str, str]:
+        held = self._held.get(id(reading))
+        if held is None or held[0] is not reading:  # an id reused by another object
+            held = self._held[id(reading)] = (reading, reading_cells(reading))
+        return held[1]
+
+    def forget(self) -> None:
+        """Forget the readings held (another set is shown)."""
+        self._held.clear()
+
+
 def rows_for(set_info: dict[str, Any] | None) -> int:
     """Return how many lines the set's readings will take when it is complete: the readings it
     needs and the settling readings taken so far (or the readings it holds, if more)."""
@@ -48,13 +68,17 @@ def rows_for(set_info: dict[str, Any] | None) -> int:
     return max(len(readings), int(set_info.get("readings_needed") or 0) + settling)
 
 
-def readings_lines(set_info: dict[str, Any] | None) -> list[str]:
-    """Return the set's readings as fixed-width lines under a heading line.
+def readings_lines(
+    set_info: dict[str, Any] | None,
+    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+) -> list[str]:
+    """Return the set's readings as fixed-width lines under a heading line; ``cells`` gives a
+    reading's cells (:func:`reading_cells`, or a :class:`CellsByReading` that remembers them).
 
     Plain lines, not a table widget: at 50 readings a second the console redraws them many
     times a second, and plain lines cost little to measure and paint.
     """
-    rows = [reading_cells(reading) for reading in (set_info or {}).get("readings", [])]
+    rows = [cells(reading) for reading in (set_info or {}).get("readings", [])]
     headings = tuple(heading for heading, _width, _right in READING_COLUMNS)
     widths = [
         max(least, *(len(row[index]) for row in (headings, *rows)))
@@ -105,6 +129,10 @@ class ReadingSetPanel(DrawnWhenComposed, Vertical):
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
 
+    def __init__(self, *, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self._cells = CellsByReading()
+
     def compose(self) -> ComposeResult:
         yield TextBlock(id="set-title", classes="panel-title")
         yield TextBlock(id="readings-heading")
@@ -117,19 +145,21 @@ class ReadingSetPanel(DrawnWhenComposed, Vertical):
         self.redraw()
 
     def _draw_held(self) -> None:
+        if self.set_info is self._shown_set and self.set_info is not None:
+            return  # the client's very object: the daemon changed nothing in the set
         self._draw(self.set_info)
 
     def _draw(self, set_info: dict[str, Any] | None) -> None:
-        if set_info == self._shown_set and self._shown_set is not None:
-            return  # the same set, the same readings: nothing to redraw
         another_set = (set_info or {}).get("id") != (self._shown_set or {}).get("id")
+        if another_set:
+            self._cells.forget()
         self._shown_set = set_info
         title = "No reading set yet"
         if set_info:
             status = text.set_status(set_info["status"])
             title = f"{snapshot_view.set_title(set_info)}: {status}"
         self.query_one("#set-title", TextBlock).show(title)
-        heading, *lines = readings_lines(set_info)
+        heading, *lines = readings_lines(set_info, self._cells)
         self.query_one("#readings-heading", TextBlock).show(heading)
         self.query_one("#readings-table", ReadingLines).show_lines(
             lines, rows_for(set_info), another=another_set

@@ -44,6 +44,10 @@ def results_title(snapshot: dict[str, Any]) -> str:
     return title
 
 
+#: The parts of a snapshot the results panel is drawn from.
+RESULTS_PARTS = ("results", "results_error", "results_provisional", "environment_entries")
+
+
 class ResultsPanel(DrawnWhenComposed, VerticalScroll):
     """Factor table, results and the session's flags, as the daemon computed them.
 
@@ -52,20 +56,28 @@ class ResultsPanel(DrawnWhenComposed, VerticalScroll):
     """
 
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
+    _drawn_from: tuple[object, ...] = ()
 
     def compose(self) -> ComposeResult:
         yield TextBlock("Results", id="results-title", classes="panel-title")
         yield TextBlock(id="results-problem")
         yield TextBlock(id="factor-table")
         yield TextBlock(id="results-table")
-        yield TextBlock(id="session-flags")
+        yield TextBlock(id="session-flags", keep_height=True)
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         self.redraw()
 
     def _draw_held(self) -> None:
-        if self.snapshot is not None:
-            self._draw(self.snapshot)
+        if self.snapshot is None:
+            return
+        parts = tuple(self.snapshot.get(key) for key in RESULTS_PARTS)
+        if len(parts) == len(self._drawn_from) and all(
+            part is drawn for part, drawn in zip(parts, self._drawn_from, strict=True)
+        ):
+            return  # the client's very objects: the daemon sent no new results (most readings)
+        self._drawn_from = parts
+        self._draw(self.snapshot)
 
     def _draw(self, snapshot: dict[str, Any]) -> None:
         self.query_one("#results-title", TextBlock).show(results_title(snapshot))

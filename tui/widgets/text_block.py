@@ -19,9 +19,12 @@ from textual.widgets import Static
 class TextBlock(Static):
     """Static text (never markup) that is replaced only when it differs from what is shown."""
 
-    def __init__(self, content: str = "", **kwargs: Any) -> None:
+    def __init__(self, content: str = "", *, keep_height: bool = False, **kwargs: Any) -> None:
+        """``keep_height``: never shrink while shown (a shorter text is padded with blank
+        lines), so text whose wrapped height wavers costs no layout of the screen."""
         kwargs.setdefault("markup", False)
         super().__init__(content, **kwargs)
+        self.keep_height = keep_height
         self._shown_from: object = content
         self._content: Any = content  # what is shown (what ``show_built`` built)
         self._height = (0, 0)  # (width, height in screen lines) of what is shown, measured
@@ -44,15 +47,30 @@ class TextBlock(Static):
         """Show ``content``; lay the screen out again only when its height in screen lines, at
         the widget's width, is not the height of what it replaces (or the widget has no width
         yet): Textual's own measure of both, so no line is ever cut off."""
+        if self._height_fixed():
+            self._content = content
+            self.update(content, layout=False)
+            return
         width = self.content_size.width
         before = self._height
         if before[0] != width:  # not measured at this width yet: the content on show now
             before = (width, self._measure(self._content, width))
         self._content = content
         self.update(content, layout=False)
-        self._height = (width, self._measure(content, width))
+        height = self._measure(content, width)
+        if self.keep_height and isinstance(content, str) and 0 < height < before[1]:
+            self._content = content + "\n" * (before[1] - height)  # blank lines keep the height
+            self.update(self._content, layout=False)
+            height = before[1]
+        self._height = (width, height)
         if width <= 0 or self._height != before:  # another width is another height, to be safe
             self.refresh(layout=True)
+
+    def _height_fixed(self) -> bool:
+        """Return True when the style sheet sets the block's height in lines (``height: 2``)
+        and its width other than by its content: what it shows never changes the layout."""
+        height, width = self.styles.height, self.styles.width
+        return height is not None and height.is_cells and not (width is not None and width.is_auto)
 
     def _measure(self, content: Any, width: int) -> int:
         """Return the height of ``content``, the one shown, in screen lines at ``width`` (0: no
