@@ -30,10 +30,9 @@ from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, revi
 from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
-from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
-from chargebook.acquire.session.metadata import action_level_pct
+from chargebook.acquire.session.action_level import action_level_pct
+from chargebook.acquire.session.session_kind import OUTPUT_CHECK, session_kind
 from chargebook.acquire.session.stored_result import ResultSummary, results_of
-from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
 
 BASELINE_WORDS = ("expected", "first", "mean")
@@ -113,6 +112,8 @@ def parse_baseline(text: str) -> str | int | float:
         value = float(cleaned)
     except ValueError:
         raise InputError("baseline", text, BASELINE_ALLOWED, "is not known") from None
+    from chargebook.corrections import limits
+
     return float(limits.EXPECTED_CGY_PER_MU.check("baseline", value))
 
 
@@ -149,15 +150,12 @@ def _point(
     meta = entry.metadata
     per_MU = result.dose_per_MU_cGy
     tolerance = result.tolerance_pct
-    if baseline_cGy_per_MU is None:
-        deviation = result.deviation_pct
+    if baseline_cGy_per_MU is None:  # the session's own deviation, as its evaluation judged it
+        deviation, within = result.deviation_pct, result.within_tolerance
     else:
-        deviation = (
-            None if per_MU is None else float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
-        )
-    within = None
-    if deviation is not None and tolerance is not None:
-        within = bool(dose.within_tolerance(deviation, tolerance))
+        deviation, within = _against(per_MU, baseline_cGy_per_MU, tolerance)
+    if deviation is None or tolerance is None:
+        within = None
     problem = result.error
     if problem is None and per_MU is None:
         problem = "dose per MU pending (a factor or reading set is missing)"
@@ -180,6 +178,22 @@ def _point(
         U_expanded_pct=result.U_expanded_pct,
         station=station,
     )
+
+
+def _against(
+    per_MU: float | None, baseline_cGy_per_MU: float, tolerance_pct: float | None
+) -> tuple[float | None, bool | None]:
+    """Return the deviation, %, of a dose per MU from a baseline chosen for the history, and
+    whether it is within the tolerance (None where either is unknown). The physics is imported
+    here, only when a baseline other than each session's expected output is asked for."""
+    from chargebook.corrections import dose
+
+    if per_MU is None:
+        return None, None
+    deviation = float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
+    if tolerance_pct is None:
+        return deviation, None
+    return deviation, bool(dose.within_tolerance(deviation, tolerance_pct))
 
 
 @functools.lru_cache(maxsize=64)
@@ -349,10 +363,11 @@ def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredB
     has no beams registered, or when none matches but typed sessions do (recorded before the
     registers). InputError listing the close matches when neither does."""
     from chargebook.acquire.record.registers import register_rows
-    from chargebook.acquire.session.register_rows import find_beam, row_name
 
     if not register_rows(store, "beam"):
         return None
+    from chargebook.acquire.session.register_rows import find_beam, row_name
+
     wanted = text if machine is None else f"{machine} {text}"
     try:
         row = find_beam(store, wanted)

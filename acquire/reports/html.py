@@ -47,7 +47,7 @@ from chargebook.acquire.reports.sections import (
     when,
 )
 from chargebook.acquire.reports.svg import Band, Line, Point, plot
-from chargebook.acquire.session.carried import OUTPUT_CHECK
+from chargebook.acquire.session.session_kind import OUTPUT_CHECK
 from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.reading_scale import (
     deviations_from_mean_pct,

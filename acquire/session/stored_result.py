@@ -10,7 +10,8 @@ stamp is not the running code's is never used: that session is evaluated again, 
 slower), until the daemon refreshes the row (:func:`refresh_results`). A stored float is
 written with ``repr`` (JSON), so it reads back as the same float, bit for bit.
 
-Nothing here computes physics.
+Nothing here computes physics, and nothing here imports it until a session must be evaluated
+live: reading kept results needs neither numpy nor ``corrections``.
 """
 
 from __future__ import annotations
@@ -24,11 +25,13 @@ import uuid
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.record.reader import RecordReader
-from chargebook.acquire.record.store import Store
-from chargebook.acquire.session.evaluation import SessionEvaluation, evaluate_session
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.session.evaluation import SessionEvaluation
 
 #: The source folders (relative to the package) and files whose code decides a result.
 _ROOT = Path(__file__).resolve().parents[2]
@@ -141,7 +144,10 @@ def _source_files() -> list[Path]:
 
 
 def evaluate_summary(store: RecordReader, session_id: int) -> ResultSummary:
-    """Return the session's result evaluated now, from what is recorded."""
+    """Return the session's result evaluated now, from what is recorded (the physics is
+    imported here, only when a session has no current kept result)."""
+    from chargebook.acquire.session.evaluation import evaluate_session
+
     return summarize(evaluate_session(store, session_id))
 
 
