@@ -20,7 +20,7 @@ import contextlib
 import functools
 import json
 import statistics
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -119,21 +119,28 @@ def parse_baseline(text: str) -> str | int | float:
 
 @dataclass(frozen=True)
 class _Entry:
-    """One session of a history, as listed: its row, metadata, result and review."""
+    """One session of a history, as listed: its row, names, result and review."""
 
     session: SessionRow
-    metadata: dict[str, Any]
+    #: What the history shows of its metadata: the names (``RecordReader.session_names``),
+    #: or the whole decoded metadata when the caller has it.
+    names: Mapping[str, Any]
     result: ResultSummary
     review: Review | None
     station: StationRow
 
+    @functools.cached_property
+    def metadata(self) -> dict[str, Any]:
+        """Return the session's metadata, decoded when first asked for (most are never)."""
+        return self.session.metadata()
+
 
 def _entries(
-    store: RecordReader, rows: Sequence[tuple[SessionRow, dict[str, Any]]]
+    store: RecordReader, rows: Sequence[tuple[SessionRow, Mapping[str, Any]]]
 ) -> list[_Entry]:
-    """Return the sessions ``rows`` (each with its decoded metadata) with their results (stored
-    when current, else evaluated now: ``stored_result``) and reviews, read in a few queries
-    however many sessions."""
+    """Return the sessions ``rows`` (each with its names or its decoded metadata) with their
+    results (stored when current, else evaluated now: ``stored_result``) and reviews, read in a
+    few queries however many sessions."""
     results = results_of(store, [row.id for row, _ in rows])
     reviews = store.events_of_kind(EventKind.SESSION_REVIEWED) if rows else {}
     station = store.station()
@@ -147,7 +154,7 @@ def _point(
     entry: _Entry, baseline_cGy_per_MU: float | None, station: str | None = None
 ) -> HistoryPoint:
     result = entry.result
-    meta = entry.metadata
+    meta = entry.names
     per_MU = result.dose_per_MU_cGy
     tolerance = result.tolerance_pct
     if baseline_cGy_per_MU is None:  # the session's own deviation, as its evaluation judged it
@@ -290,11 +297,8 @@ def load_history_across(
         ]
         if here is None:  # matched on the names, read without decoding each one's metadata
             names = store.session_names()
-            rows = [
-                (row, row.metadata())
-                for row in listed
-                if matches(row, beam, machine, names.get(row.id))
-            ]
+            named = ((row, names.get(row.id) or row.metadata()) for row in listed)
+            rows = [(row, meta) for row, meta in named if matches(row, beam, machine, meta)]
         else:
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
@@ -327,8 +331,14 @@ def _action_pct(registered: _RegisteredBeam | None, entries: list[_Entry]) -> fl
     department record, or sessions typed before the registers) the latest session's own."""
     if registered is not None and registered.action_pct is not None:
         return registered.action_pct
-    levels = [action_level_pct(e.metadata) for e in entries]
-    return next((level for level in reversed(levels) if level is not None), None)
+    for entry in reversed(entries):
+        # json.dumps writes keys as they are: metadata whose text names neither key has none
+        text = entry.session.metadata_json
+        if "action_level_pct" in text or "action_pct" in text:
+            level = action_level_pct(entry.metadata)
+            if level is not None:
+                return level
+    return None
 
 
 @dataclass(frozen=True)

@@ -68,10 +68,14 @@ class ResultSummary:
     @classmethod
     def from_json(cls, text: str) -> ResultSummary:
         """Return the summary stored as ``text`` (:meth:`to_json`)."""
-        data: dict[str, Any] = json.loads(text)
-        data.pop("seal", None)
-        data["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
-        return cls(**data)
+        return cls.from_data(json.loads(text))
+
+    @classmethod
+    def from_data(cls, data: dict[str, Any]) -> ResultSummary:
+        """Return the summary whose decoded JSON is ``data`` (its seal, if any, left aside)."""
+        fields = {name: value for name, value in data.items() if name != "seal"}
+        fields["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
+        return cls(**fields)
 
 
 def summarize(found: SessionEvaluation) -> ResultSummary:
@@ -123,6 +127,20 @@ def evaluation_stamp() -> str:
 
 
 def _numpy_version() -> str:
+    """Return the installed numpy's version, read from the name of its distribution's folder
+    beside the package (neither numpy nor ``importlib.metadata``, which looks through every
+    installed distribution, is imported: this runs on every read of a kept result)."""
+    from importlib.util import find_spec
+
+    spec = find_spec("numpy")
+    if spec is None or spec.origin is None:
+        return "unknown"
+    folder = Path(spec.origin).parent.parent
+    found = sorted(
+        p.name for kind in ("dist-info", "egg-info") for p in folder.glob(f"numpy-*.{kind}")
+    )
+    if found:  # "numpy-2.4.6.dist-info"
+        return found[-1].removeprefix("numpy-").rsplit(".", 1)[0]
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -177,7 +195,7 @@ def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
             "its stored result was changed after it was kept (its seal does not match)"
         )
     try:
-        return ResultSummary.from_json(text)
+        return ResultSummary.from_data(data)
     except (TypeError, ValueError, KeyError) as error:
         raise ValueError(f"its stored result has not the shape of one ({error})") from None
 
