@@ -125,6 +125,9 @@ UnreadableRecord = sqlite3.DatabaseError
 #: The metadata keys :meth:`Store.session_names` reads: what a listing of sessions shows and
 #: filters on.
 NAMED_KEYS = ("treatment_machine", "beam", "operator")
+#: How much of a station file a read-only open maps into memory (SQLite maps no more than the
+#: file holds): 1 GiB, far beyond decades of daily checks.
+READ_MMAP_BYTES = 1 << 30
 
 
 class StoreError(Exception):
@@ -663,6 +666,10 @@ class Store:
         conn.execute("PRAGMA foreign_keys = ON")
         store = cls(conn, path, now)
         if read_only:
+            # A read command scans whole tables of years of sessions: SQLite reads the pages
+            # through a memory map instead of a system call and a copy per page (about a
+            # third of the time of such a scan). Only where nothing is written.
+            conn.execute(f"PRAGMA mmap_size = {READ_MMAP_BYTES}")
             version = schema_version(conn)
             if version > SCHEMA_VERSION:
                 raise StoreError(
@@ -1262,15 +1269,37 @@ class Store:
         """Return, per session id, the names of :data:`NAMED_KEYS` its metadata holds (a key
         it lacks is left out; a JSON null is None), read by SQLite's JSON functions: a listing
         of thousands of sessions does not decode each one's metadata. A session whose metadata
-        holds one of them as something other than text or null is left out (decode it)."""
+        holds one of them as something other than text is left out (decode it)."""
+        # One look into each session's metadata for all the names (an array of their values):
+        # a name missing or null reads as null there, and is told apart by a second look.
+        paths = ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
+        try:
+            rows = self.read(f"SELECT id, json_extract(metadata_json, {paths}) FROM sessions")
+        except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
+            return {}
+        names: dict[int, dict[str, str | None]] = {}
+        unsure: list[int] = []
+        for session_id, text in rows:
+            values = json.loads(text) if text is not None else None
+            if not isinstance(values, list) or not all(isinstance(v, str) for v in values):
+                unsure.append(int(session_id))
+                continue
+            names[int(session_id)] = dict(zip(NAMED_KEYS, values, strict=True))
+        if unsure:  # null or missing names, or names that are not text: looked at by type
+            names.update(self._typed_names(unsure))
+        return names
+
+    def _typed_names(self, session_ids: list[int]) -> dict[int, dict[str, str | None]]:
+        """Return :meth:`session_names` of the sessions ``session_ids``, each name read with its
+        JSON type (one query)."""
         columns = ", ".join(
             f"json_type(metadata_json, '$.{key}'), json_extract(metadata_json, '$.{key}')"
             for key in NAMED_KEYS
         )
-        try:
-            rows = self.read(f"SELECT id, {columns} FROM sessions")
-        except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
-            return {}
+        rows = self.read(
+            f"SELECT id, {columns} FROM sessions WHERE id IN (SELECT value FROM json_each(?))",
+            (json.dumps(session_ids),),
+        )
         names: dict[int, dict[str, str | None]] = {}
         for session_id, *values in rows:
             found: dict[str, str | None] = {}
