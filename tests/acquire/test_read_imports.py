@@ -22,6 +22,8 @@ import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
 from test_session_evaluation import record
 
+from tests.bench.session_length import record_sets
+
 #: Run one command in this process, then print (as JSON) its exit status and which of the
 #: heavy modules it imported (``corrections``: its modules other than its error type, which
 #: every command's error handling names).
@@ -29,12 +31,13 @@ PROBE = """
 import json, sys
 from chargebook.acquire.commands.cli import main
 status = main(sys.argv[1:])
-heavy = ("sqlite_utils", "numpy", "click", "dateutil")
+heavy = ("sqlite_utils", "numpy", "numpy.ma", "click", "dateutil")
 physics = any(
     name.startswith("chargebook.corrections.") and name != "chargebook.corrections.errors"
     for name in sys.modules
 )
 found = [name for name in heavy if name in sys.modules] + ["corrections"] * physics
+print()  # the status on a line of its own, whatever the output ended with
 print(json.dumps([status, sorted(found)]))
 """
 
@@ -97,3 +100,15 @@ def test_history_of_a_stale_result_evaluates_it_live(kept: tuple[Path, int], tmp
     output, heavy = _imports(["history", "--beam", beam, "--no-plot", "--db", str(stale)])
     assert "numpy" in heavy and "corrections" in heavy  # evaluated, then only then
     assert output == kept_output  # the same result, evaluated live
+
+
+def test_the_html_report_of_many_sets_imports_no_masked_arrays(tmp_path) -> None:
+    # a session of sets taken and redone, as the benchmark's (invented readings, demo only)
+    path = tmp_path / "station.sqlite"
+    session_id = record_sets(path, 4)
+    argv = ["export", str(session_id), "--format", "html", "--db", str(path)]
+    output, heavy = _imports(argv)
+    # each set's statistics are computed (numpy), their medians without np.median's look for
+    # masked arrays, which imports numpy.ma
+    assert "numpy" in heavy and "numpy.ma" not in heavy
+    assert output.count("<svg") >= 4  # each set taken drawn
