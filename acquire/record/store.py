@@ -108,6 +108,15 @@ def group_by_session(events: Iterable[EventRow]) -> dict[int | None, list[EventR
 _SQLITE_INT_MIN, _SQLITE_INT_MAX = -(2**63), 2**63 - 1
 
 
+def _text_names(text: str | None) -> tuple[str, ...] | None:
+    """Return the names in a JSON array of them (``session_names``), or None unless every one
+    is text."""
+    values = None if text is None else json.loads(text)
+    if not isinstance(values, list) or not all(isinstance(v, str) for v in values):
+        return None
+    return tuple(values)
+
+
 def _storable(params: Sequence[Any]) -> bool:
     """Return False when a whole number among ``params`` is outside SQLite's INTEGER range
     (a mistyped id: SQLite would raise OverflowError; no row can hold it)."""
@@ -1279,12 +1288,16 @@ class Store:
             return {}
         names: dict[int, dict[str, str | None]] = {}
         unsure: list[int] = []
+        decoded: dict[str | None, tuple[str, ...] | None] = {}  # a few machines, beams, people
         for session_id, text in rows:
-            values = json.loads(text) if text is not None else None
-            if not isinstance(values, list) or not all(isinstance(v, str) for v in values):
+            if text in decoded:
+                values = decoded[text]
+            else:
+                values = decoded[text] = _text_names(text)
+            if values is None:
                 unsure.append(int(session_id))
-                continue
-            names[int(session_id)] = dict(zip(NAMED_KEYS, values, strict=True))
+            else:
+                names[int(session_id)] = dict(zip(NAMED_KEYS, values, strict=True))
         if unsure:  # null or missing names, or names that are not text: looked at by type
             names.update(self._typed_names(unsure))
         return names

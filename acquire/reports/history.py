@@ -19,7 +19,6 @@ from __future__ import annotations
 import contextlib
 import functools
 import json
-import statistics
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -234,6 +233,8 @@ def _baseline_value(
     if choice == "first":
         first, value = values[0]
         return value, f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
+    import statistics  # only for this baseline: it brings fractions and decimal
+
     mean = statistics.fmean(v for _, v in values)
     return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
 

@@ -20,7 +20,6 @@ from html import escape
 from chargebook.acquire.record.review import Review, reviewer_words
 from chargebook.acquire.reports.audit import step_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
-from chargebook.acquire.reports.history import History
 from chargebook.acquire.reports.printed import SignOff, page, review_block
 from chargebook.acquire.reports.result import (
     deliveries_table,
@@ -54,6 +53,10 @@ from chargebook.corrections.reading_scale import (
     recorded_resolution_nC,
     resolution_pct,
 )
+
+TYPE_CHECKING = False  # not typing's: a session's report needs no history (nor its imports)
+if TYPE_CHECKING:
+    from chargebook.acquire.reports.history import History
 
 
 def table_html(table: Table) -> str:
