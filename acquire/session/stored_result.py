@@ -180,7 +180,27 @@ def sealed_json(session_id: int, stamp: str, summary: ResultSummary) -> str:
 
 def _seal(session_id: int, stamp: str, data: dict[str, Any]) -> str:
     body = json.dumps({k: v for k, v in data.items() if k != "seal"}, sort_keys=True)
+    return _digest(session_id, stamp, body)
+
+
+def _digest(session_id: int, stamp: str, body: str) -> str:
     return hashlib.sha256(f"{session_id}\0{stamp}\0{body}".encode()).hexdigest()
+
+
+def _sealed(session_id: int, stamp: str, data: dict[str, Any], text: str) -> bool:
+    """Return True when the seal of ``data`` (decoded from ``text``) matches its content.
+
+    As :func:`sealed_json` writes it, the sealed JSON is ``text`` without its seal: checked
+    first, without encoding the content again (a history reads thousands). Text written
+    otherwise (the same content, spaced or ordered differently) is checked by its content.
+    """
+    seal = data.get("seal")
+    if not isinstance(seal, str):
+        return False
+    body = text.replace(f'"seal": "{seal}", ', "", 1)
+    if body != text and _digest(session_id, stamp, body) == seal:
+        return True
+    return _seal(session_id, stamp, data) == seal
 
 
 def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
@@ -190,7 +210,7 @@ def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
         data = json.loads(text)
     except ValueError as error:
         raise ValueError(f"its stored result is not JSON ({error})") from None
-    if not isinstance(data, dict) or data.get("seal") != _seal(session_id, stamp, data):
+    if not isinstance(data, dict) or not _sealed(session_id, stamp, data, text):
         raise ValueError(
             "its stored result was changed after it was kept (its seal does not match)"
         )
