@@ -63,12 +63,29 @@ def drift_pct_per_reading(readings_nC: np.ndarray) -> np.ndarray:
     return 100.0 * slope / mean
 
 
+def median(values: np.ndarray, *, keepdims: bool = False) -> np.ndarray:
+    """Return the median along the last axis, as ``np.median`` computes it: the mean
+    (``np.mean``) of the middle one or two of the ordered values, NaN where a value is NaN.
+
+    ``np.median`` looks for masked arrays on every call, which imports ``numpy.ma`` (tens of
+    milliseconds) the first time: a report of hundreds of sets starts faster without it.
+    """
+    values = np.asarray(values)
+    count = values.shape[-1]
+    if count == 0:
+        return np.median(values, axis=-1, keepdims=keepdims)
+    ordered = np.sort(values, axis=-1)  # NaN sorts last, as np.median's partition puts it
+    middle = np.mean(ordered[..., (count - 1) // 2 : count // 2 + 1], axis=-1, keepdims=True)
+    found = np.where(np.isnan(ordered[..., -1:]), np.nan, middle)
+    return (found if keepdims else found[..., 0])[()]
+
+
 def modified_z_scores(readings_nC: np.ndarray) -> np.ndarray:
     """Return Iglewicz and Hoaglin's modified z-scores of the readings along the last axis."""
     readings = np.asarray(readings_nC, dtype=float)
-    median = np.median(readings, axis=-1, keepdims=True)
-    deviation = readings - median
-    mad = np.median(np.abs(deviation), axis=-1, keepdims=True)
+    median_nC = median(readings, keepdims=True)
+    deviation = readings - median_nC
+    mad = median(np.abs(deviation), keepdims=True)
     mean_ad = np.mean(np.abs(deviation), axis=-1, keepdims=True) * MEAN_ABSOLUTE_DEVIATION_SCALE
     mad_z_scale = np.where(mad > 0, mad / MODIFIED_Z_SCALE, mean_ad)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -176,8 +193,8 @@ def set_statistics(
         # None when the other readings average zero: no offset relative to them exists
         offset = offset_pct if np.isfinite(offset_pct) else None
         z = modified_z_scores(readings)
-        median = np.median(readings)
-        scale = abs(median) if median != 0 else abs(mean)
-        apart = 100.0 * np.abs(readings - median) / scale > outlier_floor_pct
+        middle = median(readings)
+        scale = abs(middle) if middle != 0 else abs(mean)
+        apart = 100.0 * np.abs(readings - middle) / scale > outlier_floor_pct
         outliers = tuple(int(i) for i in np.flatnonzero((np.abs(z) > outlier_threshold) & apart))
     return SetStatistics(count, mean, sd, rel_sd, se, rel_range, drift, offset, outliers)

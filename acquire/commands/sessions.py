@@ -128,7 +128,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
                 str(r["id"]),
                 when(r["created_at"]),
                 r["status"],
-                _review_cell(r),
+                str(r["review"]) if r["reviewer"] is None else _review_cell(r),
                 str(r["treatment_machine"] or "—"),
                 str(r["beam"] or "—"),
                 str(r["operator"] or "—"),
@@ -153,10 +153,8 @@ def _visit_cell(row: dict) -> str:
 
 
 def _review_cell(row: dict) -> str:
-    """Return the review column: unreviewed, or the decision, reviewer and date."""
+    """Return the review column of a reviewed session: the decision, reviewer and date."""
     from chargebook.acquire.record.review import SELF_REVIEW_WORDS
 
-    if row["reviewer"] is None:
-        return str(row["review"])
     mark = f" {SELF_REVIEW_WORDS}" if row["self_review"] else ""
     return f"{row['review']} by {row['reviewer']}{mark} {str(row['reviewed_at'])[:10]}"

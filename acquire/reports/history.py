@@ -19,8 +19,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import json
-import statistics
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -30,10 +29,9 @@ from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, revi
 from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
-from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
-from chargebook.acquire.session.metadata import action_level_pct
+from chargebook.acquire.session.action_level import action_level_pct
+from chargebook.acquire.session.session_kind import OUTPUT_CHECK, session_kind
 from chargebook.acquire.session.stored_result import ResultSummary, results_of
-from chargebook.corrections import dose, limits
 from chargebook.corrections.errors import InputError
 
 BASELINE_WORDS = ("expected", "first", "mean")
@@ -113,26 +111,35 @@ def parse_baseline(text: str) -> str | int | float:
         value = float(cleaned)
     except ValueError:
         raise InputError("baseline", text, BASELINE_ALLOWED, "is not known") from None
+    from chargebook.corrections import limits
+
     return float(limits.EXPECTED_CGY_PER_MU.check("baseline", value))
 
 
 @dataclass(frozen=True)
 class _Entry:
-    """One session of a history, as listed: its row, metadata, result and review."""
+    """One session of a history, as listed: its row, names, result and review."""
 
     session: SessionRow
-    metadata: dict[str, Any]
+    #: What the history shows of its metadata: the names (``RecordReader.session_names``),
+    #: or the whole decoded metadata when the caller has it.
+    names: Mapping[str, Any]
     result: ResultSummary
     review: Review | None
     station: StationRow
 
+    @functools.cached_property
+    def metadata(self) -> dict[str, Any]:
+        """Return the session's metadata, decoded when first asked for (most are never)."""
+        return self.session.metadata()
+
 
 def _entries(
-    store: RecordReader, rows: Sequence[tuple[SessionRow, dict[str, Any]]]
+    store: RecordReader, rows: Sequence[tuple[SessionRow, Mapping[str, Any]]]
 ) -> list[_Entry]:
-    """Return the sessions ``rows`` (each with its decoded metadata) with their results (stored
-    when current, else evaluated now: ``stored_result``) and reviews, read in a few queries
-    however many sessions."""
+    """Return the sessions ``rows`` (each with its names or its decoded metadata) with their
+    results (stored when current, else evaluated now: ``stored_result``) and reviews, read in a
+    few queries however many sessions."""
     results = results_of(store, [row.id for row, _ in rows])
     reviews = store.events_of_kind(EventKind.SESSION_REVIEWED) if rows else {}
     station = store.station()
@@ -146,18 +153,15 @@ def _point(
     entry: _Entry, baseline_cGy_per_MU: float | None, station: str | None = None
 ) -> HistoryPoint:
     result = entry.result
-    meta = entry.metadata
+    meta = entry.names
     per_MU = result.dose_per_MU_cGy
     tolerance = result.tolerance_pct
-    if baseline_cGy_per_MU is None:
-        deviation = result.deviation_pct
+    if baseline_cGy_per_MU is None:  # the session's own deviation, as its evaluation judged it
+        deviation, within = result.deviation_pct, result.within_tolerance
     else:
-        deviation = (
-            None if per_MU is None else float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
-        )
-    within = None
-    if deviation is not None and tolerance is not None:
-        within = bool(dose.within_tolerance(deviation, tolerance))
+        deviation, within = _against(per_MU, baseline_cGy_per_MU, tolerance)
+    if deviation is None or tolerance is None:
+        within = None
     problem = result.error
     if problem is None and per_MU is None:
         problem = "dose per MU pending (a factor or reading set is missing)"
@@ -180,6 +184,22 @@ def _point(
         U_expanded_pct=result.U_expanded_pct,
         station=station,
     )
+
+
+def _against(
+    per_MU: float | None, baseline_cGy_per_MU: float, tolerance_pct: float | None
+) -> tuple[float | None, bool | None]:
+    """Return the deviation, %, of a dose per MU from a baseline chosen for the history, and
+    whether it is within the tolerance (None where either is unknown). The physics is imported
+    here, only when a baseline other than each session's expected output is asked for."""
+    from chargebook.corrections import dose
+
+    if per_MU is None:
+        return None, None
+    deviation = float(dose.deviation_pct(per_MU, baseline_cGy_per_MU))
+    if tolerance_pct is None:
+        return deviation, None
+    return deviation, bool(dose.within_tolerance(deviation, tolerance_pct))
 
 
 @functools.lru_cache(maxsize=64)
@@ -213,6 +233,8 @@ def _baseline_value(
     if choice == "first":
         first, value = values[0]
         return value, f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
+    import statistics  # only for this baseline: it brings fractions and decimal
+
     mean = statistics.fmean(v for _, v in values)
     return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
 
@@ -276,11 +298,8 @@ def load_history_across(
         ]
         if here is None:  # matched on the names, read without decoding each one's metadata
             names = store.session_names()
-            rows = [
-                (row, row.metadata())
-                for row in listed
-                if matches(row, beam, machine, names.get(row.id))
-            ]
+            named = ((row, names.get(row.id) or row.metadata()) for row in listed)
+            rows = [(row, meta) for row, meta in named if matches(row, beam, machine, meta)]
         else:
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
@@ -313,8 +332,14 @@ def _action_pct(registered: _RegisteredBeam | None, entries: list[_Entry]) -> fl
     department record, or sessions typed before the registers) the latest session's own."""
     if registered is not None and registered.action_pct is not None:
         return registered.action_pct
-    levels = [action_level_pct(e.metadata) for e in entries]
-    return next((level for level in reversed(levels) if level is not None), None)
+    for entry in reversed(entries):
+        # json.dumps writes keys as they are: metadata whose text names neither key has none
+        text = entry.session.metadata_json
+        if "action_level_pct" in text or "action_pct" in text:
+            level = action_level_pct(entry.metadata)
+            if level is not None:
+                return level
+    return None
 
 
 @dataclass(frozen=True)
@@ -349,10 +374,11 @@ def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredB
     has no beams registered, or when none matches but typed sessions do (recorded before the
     registers). InputError listing the close matches when neither does."""
     from chargebook.acquire.record.registers import register_rows
-    from chargebook.acquire.session.register_rows import find_beam, row_name
 
     if not register_rows(store, "beam"):
         return None
+    from chargebook.acquire.session.register_rows import find_beam, row_name
+
     wanted = text if machine is None else f"{machine} {text}"
     try:
         row = find_beam(store, wanted)

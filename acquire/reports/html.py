@@ -20,7 +20,6 @@ from html import escape
 from chargebook.acquire.record.review import Review, reviewer_words
 from chargebook.acquire.reports.audit import step_words
 from chargebook.acquire.reports.data import SessionRecord, SetRecord
-from chargebook.acquire.reports.history import History
 from chargebook.acquire.reports.printed import SignOff, page, review_block
 from chargebook.acquire.reports.result import (
     deliveries_table,
@@ -47,13 +46,17 @@ from chargebook.acquire.reports.sections import (
     when,
 )
 from chargebook.acquire.reports.svg import Band, Line, Point, plot
-from chargebook.acquire.session.carried import OUTPUT_CHECK
+from chargebook.acquire.session.session_kind import OUTPUT_CHECK
 from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.reading_scale import (
     deviations_from_mean_pct,
     recorded_resolution_nC,
     resolution_pct,
 )
+
+TYPE_CHECKING = False  # not typing's: a session's report needs no history (nor its imports)
+if TYPE_CHECKING:
+    from chargebook.acquire.reports.history import History
 
 
 def table_html(table: Table) -> str:

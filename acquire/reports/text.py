@@ -68,7 +68,8 @@ def table_text(table: Table, *, title: bool = True, width: int | None = None) ->
             lines += _wrapped_row(table.headers, widths)
             lines.append(_row(tuple("-" * w for w in widths), widths))
             if width is None:  # each column as wide as its widest cell: no cell wraps
-                lines += [_row(row, widths) for row in table.rows]
+                padded = "  ".join(f"{{:<{w}}}" for w in widths)  # _row's, for many rows
+                lines += [padded.format(*row).rstrip() for row in table.rows]
             else:
                 for row in table.rows:
                     lines += _wrapped_row(row, widths)

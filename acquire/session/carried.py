@@ -27,20 +27,13 @@ from typing import Any
 from chargebook.acquire.record.store import SessionRow, Store
 from chargebook.acquire.session.evaluation import evaluate_session
 from chargebook.acquire.session.plan import Plan
+from chargebook.acquire.session.session_kind import FULL_CALIBRATION, session_kind
 from chargebook.corrections.carried import MEASURED_BY
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import SET_NAMES
 
 #: The metadata fields a full calibration must share with the output check.
 MATCHED_FIELDS = ("treatment_machine", "beam", "chamber_serial", "electrometer_serial")
-FULL_CALIBRATION = "full calibration"
-OUTPUT_CHECK = "output check"
-
-
-def session_kind(plan: Mapping[str, Any]) -> str:
-    """Return "full calibration" when a stored plan measures k_pol and k_s, else "output check"."""
-    purposes = {step.get("purpose") for step in plan.get("steps", ())}
-    return FULL_CALIBRATION if {"opposite", "reduced"} <= purposes else OUTPUT_CHECK
 
 
 def carried_metadata(

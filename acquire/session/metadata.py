@@ -80,6 +80,8 @@ from collections.abc import Mapping
 from dataclasses import asdict, dataclass, fields
 from typing import Any
 
+from chargebook.acquire.session.action_level import ACTION_LEVEL_KEY as ACTION_LEVEL_KEY
+from chargebook.acquire.session.action_level import action_level_pct as action_level_pct
 from chargebook.corrections import dose, limits, units
 from chargebook.corrections.beam_quality import BeamQuality, check_quality, check_wording
 from chargebook.corrections.carried import (
@@ -420,21 +422,3 @@ def _quality(data: Mapping[str, Any], beam_type: Beam) -> BeamQuality:
         data.get("k_Q_source"),
     )
     return check_quality(given, beam_type)
-
-
-#: Metadata key of an action level (%), wider than the tolerance, when one is typed.
-ACTION_LEVEL_KEY = "action_level_pct"
-
-
-def action_level_pct(metadata: Mapping[str, Any]) -> float | None:
-    """Return a session's action level, % (± about the expected output), or None if not set.
-
-    The one place every output reads it from: the metadata's ``action_level_pct`` when typed,
-    else the ``action_pct`` of the beam's register row as copied into the session when it began.
-    """
-    typed = metadata.get(ACTION_LEVEL_KEY)
-    if typed is not None:
-        return float(typed)
-    beam = (metadata.get("register_copy") or {}).get("beam") or {}
-    registered = (beam.get("fields") or {}).get("action_pct")
-    return None if registered is None else float(registered)

@@ -10,7 +10,8 @@ stamp is not the running code's is never used: that session is evaluated again, 
 slower), until the daemon refreshes the row (:func:`refresh_results`). A stored float is
 written with ``repr`` (JSON), so it reads back as the same float, bit for bit.
 
-Nothing here computes physics.
+Nothing here computes physics, and nothing here imports it until a session must be evaluated
+live: reading kept results needs neither numpy nor ``corrections``.
 """
 
 from __future__ import annotations
@@ -24,11 +25,13 @@ import uuid
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.record.reader import RecordReader
-from chargebook.acquire.record.store import Store
-from chargebook.acquire.session.evaluation import SessionEvaluation, evaluate_session
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.session.evaluation import SessionEvaluation
 
 #: The source folders (relative to the package) and files whose code decides a result.
 _ROOT = Path(__file__).resolve().parents[2]
@@ -65,10 +68,14 @@ class ResultSummary:
     @classmethod
     def from_json(cls, text: str) -> ResultSummary:
         """Return the summary stored as ``text`` (:meth:`to_json`)."""
-        data: dict[str, Any] = json.loads(text)
-        data.pop("seal", None)
-        data["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
-        return cls(**data)
+        return cls.from_data(json.loads(text))
+
+    @classmethod
+    def from_data(cls, data: dict[str, Any]) -> ResultSummary:
+        """Return the summary whose decoded JSON is ``data`` (its seal, if any, left aside)."""
+        fields = {name: value for name, value in data.items() if name != "seal"}
+        fields["flags"] = tuple((str(code), str(severity)) for code, severity in data["flags"])
+        return cls(**fields)
 
 
 def summarize(found: SessionEvaluation) -> ResultSummary:
@@ -120,6 +127,20 @@ def evaluation_stamp() -> str:
 
 
 def _numpy_version() -> str:
+    """Return the installed numpy's version, read from the name of its distribution's folder
+    beside the package (neither numpy nor ``importlib.metadata``, which looks through every
+    installed distribution, is imported: this runs on every read of a kept result)."""
+    from importlib.util import find_spec
+
+    spec = find_spec("numpy")
+    if spec is None or spec.origin is None:
+        return "unknown"
+    folder = Path(spec.origin).parent.parent
+    found = sorted(
+        p.name for kind in ("dist-info", "egg-info") for p in folder.glob(f"numpy-*.{kind}")
+    )
+    if found:  # "numpy-2.4.6.dist-info"
+        return found[-1].removeprefix("numpy-").rsplit(".", 1)[0]
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -141,7 +162,10 @@ def _source_files() -> list[Path]:
 
 
 def evaluate_summary(store: RecordReader, session_id: int) -> ResultSummary:
-    """Return the session's result evaluated now, from what is recorded."""
+    """Return the session's result evaluated now, from what is recorded (the physics is
+    imported here, only when a session has no current kept result)."""
+    from chargebook.acquire.session.evaluation import evaluate_session
+
     return summarize(evaluate_session(store, session_id))
 
 
@@ -156,7 +180,27 @@ def sealed_json(session_id: int, stamp: str, summary: ResultSummary) -> str:
 
 def _seal(session_id: int, stamp: str, data: dict[str, Any]) -> str:
     body = json.dumps({k: v for k, v in data.items() if k != "seal"}, sort_keys=True)
+    return _digest(session_id, stamp, body)
+
+
+def _digest(session_id: int, stamp: str, body: str) -> str:
     return hashlib.sha256(f"{session_id}\0{stamp}\0{body}".encode()).hexdigest()
+
+
+def _sealed(session_id: int, stamp: str, data: dict[str, Any], text: str) -> bool:
+    """Return True when the seal of ``data`` (decoded from ``text``) matches its content.
+
+    As :func:`sealed_json` writes it, the sealed JSON is ``text`` without its seal: checked
+    first, without encoding the content again (a history reads thousands). Text written
+    otherwise (the same content, spaced or ordered differently) is checked by its content.
+    """
+    seal = data.get("seal")
+    if not isinstance(seal, str):
+        return False
+    body = text.replace(f'"seal": "{seal}", ', "", 1)
+    if body != text and _digest(session_id, stamp, body) == seal:
+        return True
+    return _seal(session_id, stamp, data) == seal
 
 
 def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
@@ -166,12 +210,12 @@ def kept_summary(session_id: int, stamp: str, text: str) -> ResultSummary:
         data = json.loads(text)
     except ValueError as error:
         raise ValueError(f"its stored result is not JSON ({error})") from None
-    if not isinstance(data, dict) or data.get("seal") != _seal(session_id, stamp, data):
+    if not isinstance(data, dict) or not _sealed(session_id, stamp, data, text):
         raise ValueError(
             "its stored result was changed after it was kept (its seal does not match)"
         )
     try:
-        return ResultSummary.from_json(text)
+        return ResultSummary.from_data(data)
     except (TypeError, ValueError, KeyError) as error:
         raise ValueError(f"its stored result has not the shape of one ({error})") from None
 

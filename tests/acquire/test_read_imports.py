@@ -12,6 +12,8 @@ SQLite file (invented readings, demo only).
 from __future__ import annotations
 
 import json
+import shutil
+import sqlite3
 import subprocess
 import sys
 from pathlib import Path
@@ -20,14 +22,23 @@ import pytest
 from chargebook.acquire.commands.demo_data import demo_metadata
 from test_session_evaluation import record
 
+from tests.bench.session_length import record_sets
+
 #: Run one command in this process, then print (as JSON) its exit status and which of the
-#: heavy modules it imported.
+#: heavy modules it imported (``corrections``: its modules other than its error type, which
+#: every command's error handling names).
 PROBE = """
 import json, sys
 from chargebook.acquire.commands.cli import main
 status = main(sys.argv[1:])
-heavy = ("sqlite_utils", "numpy", "click", "dateutil")
-print(json.dumps([status, sorted(name for name in heavy if name in sys.modules)]))
+heavy = ("sqlite_utils", "numpy", "numpy.ma", "click", "dateutil")
+physics = any(
+    name.startswith("chargebook.corrections.") and name != "chargebook.corrections.errors"
+    for name in sys.modules
+)
+found = [name for name in heavy if name in sys.modules] + ["corrections"] * physics
+print()  # the status on a line of its own, whatever the output ended with
+print(json.dumps([status, sorted(found)]))
 """
 
 
@@ -59,10 +70,45 @@ def test_sessions_imports_neither_sqlite_utils_nor_numpy(kept: tuple[Path, int])
     assert f"\n{session_id} " in f"\n{output}"  # the session is listed, read all the same
 
 
-def test_history_of_kept_results_imports_no_sqlite_utils(kept: tuple[Path, int]) -> None:
+def test_history_of_kept_results_imports_no_physics(kept: tuple[Path, int]) -> None:
     path, _ = kept
     beam = demo_metadata()["beam"]
     output, heavy = _imports(["history", "--beam", beam, "--no-plot", "--db", str(path)])
-    # numpy still comes with the physics that history computes (deviation from a baseline)
-    assert "sqlite_utils" not in heavy and "click" not in heavy and "dateutil" not in heavy
-    assert "cGy/MU" in output
+    # every session's result is kept: none is evaluated, so neither numpy nor corrections
+    assert heavy == []
+    assert "cGy/MU" in output and "yes" in output  # the session listed, within tolerance
+
+
+def test_history_against_a_chosen_baseline_imports_the_physics(kept: tuple[Path, int]) -> None:
+    path, _ = kept
+    beam = demo_metadata()["beam"]
+    argv = ["history", "--beam", beam, "--baseline", "first", "--no-plot", "--db", str(path)]
+    output, heavy = _imports(argv)
+    # the deviation from the first session is computed now, in corrections, with numpy
+    assert "numpy" in heavy and "corrections" in heavy and "sqlite_utils" not in heavy
+    assert "Deviation from the first session" in output
+
+
+def test_history_of_a_stale_result_evaluates_it_live(kept: tuple[Path, int], tmp_path) -> None:
+    path, _ = kept
+    stale = tmp_path / "stale.sqlite"
+    shutil.copyfile(path, stale)
+    with sqlite3.connect(stale) as connection:  # as a file kept by another version would be
+        connection.execute("UPDATE session_results SET stamp = 'another version'")
+    beam = demo_metadata()["beam"]
+    kept_output, _ = _imports(["history", "--beam", beam, "--no-plot", "--db", str(path)])
+    output, heavy = _imports(["history", "--beam", beam, "--no-plot", "--db", str(stale)])
+    assert "numpy" in heavy and "corrections" in heavy  # evaluated, then only then
+    assert output == kept_output  # the same result, evaluated live
+
+
+def test_the_html_report_of_many_sets_imports_no_masked_arrays(tmp_path) -> None:
+    # a session of sets taken and redone, as the benchmark's (invented readings, demo only)
+    path = tmp_path / "station.sqlite"
+    session_id = record_sets(path, 4)
+    argv = ["export", str(session_id), "--format", "html", "--db", str(path)]
+    output, heavy = _imports(argv)
+    # each set's statistics are computed (numpy), their medians without np.median's look for
+    # masked arrays, which imports numpy.ma
+    assert "numpy" in heavy and "numpy.ma" not in heavy
+    assert output.count("<svg") >= 4  # each set taken drawn

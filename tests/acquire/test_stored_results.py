@@ -217,6 +217,21 @@ def _kept_ids(path: Path) -> set[int]:
         return {row[0] for row in connection.execute("SELECT session_id FROM session_results")}
 
 
+@pytest.mark.parametrize("respaced", [False, True])
+def test_a_kept_result_is_trusted_by_its_sealed_content_however_spaced(
+    unkept, tmp_path, respaced: bool
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    _set_result(path, evaluation_stamp(), 9.999)  # sealed by chargebook: shown as kept
+    if respaced:  # the same content, written without spaces (SQLite's json() minifies)
+        _edit_result(path, "json(result_json)")
+    with Store.open(path, read_only=True) as store:
+        (text,) = [text for _, text in store.session_results().values()]
+        (point,) = load_history(store, BEAM).points
+    assert (": " in text) is not respaced
+    assert point.dose_per_MU_cGy == 9.999  # the kept value, not a live evaluation
+
+
 @pytest.mark.parametrize(
     ("edit", "named"),
     [

@@ -1,6 +1,6 @@
 """Benchmark: the read commands on a station file of ten years of daily output checks.
 
-    python -m tests.bench.record_scale [--smoke]
+    python -m tests.bench.record_scale [--smoke] [--files DIR]
 
 A station file is generated through the store API (in this process, with a clock that moves
 one day at a time): ten years of daily output checks (the shipped ``monthly-check`` plan: a
@@ -20,24 +20,32 @@ baseline, a new Python process that runs a bare SQL query of the same rows on th
 * ``chargebook export ID --format html`` of the 500-set session: under 1 s (no baseline ratio:
   the issue sets an absolute bound).
 
+``--files DIR`` keeps the two files in DIR and uses them again in a later run (generating
+takes minutes), as long as the station file holds the sessions of this run and each of its
+kept results bears the running evaluation's stamp (else history would evaluate them live):
+otherwise both are generated again.
+
 Targets (issue 17, target 6): ``sessions`` and ``history`` each under 1 s and within 5 times
 their baseline; the HTML report under 1 s.
 """
 
 from __future__ import annotations
 
+import contextlib
 import os
 import resource
+import sqlite3
 import subprocess
 import sys
 import time
+from contextlib import closing
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 from chargebook.acquire.commands.demo_data import demo_metadata
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.session import rules
-from chargebook.acquire.session.stored_result import stored_row
+from chargebook.acquire.session.stored_result import evaluation_stamp, stored_row
 
 from tests.bench import report
 from tests.bench.harness import scratch
@@ -50,6 +58,7 @@ FULL_SETS, SMOKE_SETS = 500, 20
 FULL_RUNS, SMOKE_RUNS = 3, 1
 TARGET_S = 1.0
 TARGET_RATIO = 5.0
+LONG_SESSION_ID = 1  # the long session is the only one of its file
 FIRST_DAY = datetime(2016, 1, 4, 7, 30, tzinfo=UTC)
 #: Invented carried factors (demo only), as an annual calibration of the same chamber would give.
 CARRIED = {
@@ -128,6 +137,38 @@ def record_years(db: Path, days: int) -> int:
     return days * len(MACHINES)
 
 
+def kept_files(db: Path, long_db: Path, sessions: int) -> bool:
+    """Return True when ``db`` holds ``sessions`` sessions, each with its result kept under
+    the running evaluation's stamp, and ``long_db`` exists: a run may use them again."""
+    if not (db.is_file() and long_db.is_file()):
+        return False
+    with closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True)) as connection:
+        (held,) = connection.execute("SELECT count(*) FROM sessions").fetchone()
+        (current,) = connection.execute(
+            "SELECT count(*) FROM session_results WHERE stamp = ?", (evaluation_stamp(),)
+        ).fetchone()
+    return held == current == sessions
+
+
+def station_files(folder: Path, days: int, sets: int, out: report.Report) -> tuple[Path, Path, int]:
+    """Generate the station file and the long session's file in ``folder`` (unless a previous
+    run's are there and current: :func:`kept_files`); return their paths and the long
+    session's id."""
+    db, long_db = folder / "station.sqlite", folder / "long.sqlite"
+    sessions = days * len(MACHINES)
+    if kept_files(db, long_db, sessions):
+        out.note(f"{sessions} sessions of a previous run, in {folder}")
+        return db, long_db, LONG_SESSION_ID
+    for path in folder.glob("*.sqlite*"):
+        path.unlink()
+    started = time.perf_counter()
+    record_years(db, days)
+    long_id = record_sets(long_db, sets - 1)
+    assert long_id == LONG_SESSION_ID  # the only session of its file
+    out.note(f"{sessions} sessions generated in {time.perf_counter() - started:.0f} s")
+    return db, long_db, long_id
+
+
 def wall_s(command: list[str]) -> tuple[float, float]:
     """Return the wall time and the CPU time (user and system) of one run of ``command`` (it
     must succeed), in seconds. The CPU time says what the command costs whatever the load: on
@@ -165,7 +206,14 @@ def medians(commands: list[list[str]], runs: int) -> list[tuple[float, float]]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = report.parser(__doc__.splitlines()[0]).parse_args(argv)
+    parser = report.parser(__doc__.splitlines()[0])
+    parser.add_argument(
+        "--files",
+        metavar="DIR",
+        type=Path,
+        help="keep the generated files here, and use them again when current",
+    )
+    args = parser.parse_args(argv)
     days, sets, runs = (
         (SMOKE_DAYS, SMOKE_SETS, SMOKE_RUNS) if args.smoke else (FULL_DAYS, FULL_SETS, FULL_RUNS)
     )
@@ -175,12 +223,13 @@ def main(argv: list[str] | None = None) -> int:
         f"a session of {sets} sets; medians of {runs} runs",
         args.smoke,
     )
-    with scratch("record-scale") as workdir:
-        db, long_db = workdir / "station.sqlite", workdir / "long.sqlite"
-        started = time.perf_counter()
-        sessions = record_years(db, days)
-        long_id = record_sets(long_db, sets - 1)
-        out.note(f"{sessions} sessions generated in {time.perf_counter() - started:.0f} s")
+    with contextlib.ExitStack() as stack:
+        if args.files is None:
+            workdir = stack.enter_context(scratch("record-scale"))
+        else:
+            workdir = args.files
+            workdir.mkdir(parents=True, exist_ok=True)
+        db, long_db, long_id = station_files(workdir, days, sets, out)
         bare = [sys.executable, "-c", BARE, str(db)]
         (listing, listing_cpu), (listing_bare, listing_bare_cpu) = medians(
             [[*chargebook, "sessions", "--db", str(db)], [*bare, SESSIONS_QUERY]], runs

@@ -9,6 +9,7 @@ import pytest
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.statistics import (
     drift_pct_per_reading,
+    median,
     modified_z_scores,
     relative_sd_pct,
     set_statistics,
@@ -154,3 +155,32 @@ def test_a_first_reading_against_others_that_average_zero_has_no_offset() -> Non
     stats = set_statistics([20.0, -20.0, 20.0])
     assert stats.first_reading_offset_pct is None
     assert stats.mean_nC == pytest.approx(20.0 / 3)
+
+
+@given(
+    st.lists(
+        st.lists(
+            st.sampled_from([20.11, 20.12, -0.0, 0.0, float("nan")])
+            | st.floats(-1e6, 1e6, allow_nan=False),
+            min_size=5,
+            max_size=5,
+        ),
+        min_size=1,
+        max_size=4,
+    ),
+    st.integers(1, 5),
+)
+def test_the_median_is_numpys_bit_for_bit(rows: list[list[float]], count: int) -> None:
+    # Reference library: numpy's own np.median, compared exactly (the same bits, the sign of a
+    # zero and NaN included), row by row and for one set.
+    values = np.array(rows)[:, :count]
+    for keepdims in (False, True):
+        expected = np.median(values, axis=-1, keepdims=keepdims)
+        found = median(values, keepdims=keepdims)
+        assert found.shape == expected.shape
+        assert np.array_equal(found, expected, equal_nan=True)
+        assert np.array_equal(np.signbit(found), np.signbit(expected))
+    one, expected_one = median(values[0]), np.median(values[0])
+    assert type(one) is type(expected_one)
+    assert np.array_equal(one, expected_one, equal_nan=True)
+    assert np.signbit(one) == np.signbit(expected_one)
