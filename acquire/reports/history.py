@@ -27,7 +27,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
-from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
+from chargebook.acquire.record.store import NotFound, SessionRow, StationRow
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
 from chargebook.acquire.session.carried import OUTPUT_CHECK, session_kind
@@ -267,8 +267,7 @@ def load_history_across(
     known: list[str] = []
     registered: _RegisteredBeam | None = None
     for store in stores:
-        # A station file's registers name its beams; the department record holds sessions only.
-        here = _register_beam(store, beam, machine) if isinstance(store, Store) else None
+        here = _register_beam(store, beam, machine)  # the registers' beam, if they name one
         listed = [
             row
             for row in store.sessions()
@@ -344,7 +343,7 @@ def _squeezed(text: object) -> str:
     return "".join(str(text or "").split()).casefold()
 
 
-def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredBeam | None:
+def _register_beam(store: RecordReader, text: str, machine: str | None) -> _RegisteredBeam | None:
     """Return the registers' beam named by ``text`` (its id or name), or None when the station
     has no beams registered, or when none matches but typed sessions do (recorded before the
     registers). InputError listing the close matches when neither does."""
