@@ -10,18 +10,28 @@ edit shows, and :func:`register_row_problems` says which row no longer matches i
 
 This module stores what it is given; the fields are checked by
 :mod:`chargebook.acquire.session.register_rows` before they get here.
+
+Reading works on any record (:class:`~chargebook.acquire.record.reader.RecordReader`): a station
+file answers from its ``register_rows`` table; the department record, which holds no such table,
+from the published ``register_row`` events outside sessions, each the whole content of its row
+(the events a station file's rows are checked against), so `history --beam "DEMO-LA1 6 MV"`
+finds the registers' beam there too.
 """
 
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
-from typing import Any
+from collections.abc import Iterable
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.protocol import REGISTER_KINDS
 from chargebook.acquire.record.events import EventKind, RegisterRowAdded
-from chargebook.acquire.record.store import NotFound, RegisterRowNotFound, Store
+from chargebook.acquire.record.store import EventRow, NotFound, RegisterRowNotFound, Store
 from chargebook.corrections.errors import InputError
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 KINDS = REGISTER_KINDS
 
@@ -156,37 +166,67 @@ def _row(values: tuple[Any, ...]) -> RegisterRow:
     )
 
 
-def register_row(store: Store, row_id: int) -> RegisterRow:
-    """Return register row ``row_id``; raise ``NotFound`` naming it when there is none."""
-    found = store.read(f"{_SELECT} WHERE r.id = ?", (row_id,))
-    if not found:
-        raise RegisterRowNotFound(
-            f"no register row with id {row_id} in {store.path or 'the database'}"
+def rows_from_events(events: Iterable[EventRow]) -> list[RegisterRow]:
+    """Return the register rows that ``register_row`` events record, oldest first, each
+    marked with the row that superseded it (events of other kinds are ignored)."""
+    rows: list[RegisterRow] = []
+    for event in events:
+        if event.kind != EventKind.REGISTER_ROW.value or event.session_id is not None:
+            continue
+        detail = event.detail()
+        rows.append(
+            RegisterRow(
+                id=int(detail["row"]),
+                kind=str(detail["kind"]),
+                entry_id=int(detail["entry"]),
+                supersedes=detail["supersedes"],
+                effective_from=str(detail["effective_from"]),
+                fields=dict(detail["fields"]),
+                recorded_at=event.recorded_at,
+                event_id=event.id,
+            )
         )
-    return _row(found[0])
+    by = {row.supersedes: row.id for row in rows if row.supersedes is not None}
+    marked = [replace(row, superseded_by=by.get(row.id)) for row in rows]
+    return sorted(marked, key=lambda row: row.id)
+
+
+def _every_row(
+    store: RecordReader, where: str = "", params: tuple[Any, ...] = ()
+) -> list[RegisterRow]:
+    """Return the record's register rows (those ``where`` selects in a station file), by id."""
+    if isinstance(store, Store):
+        return [_row(values) for values in store.read(f"{_SELECT} {where} ORDER BY r.id", params)]
+    return rows_from_events(store.events_of_kind(EventKind.REGISTER_ROW.value).get(None, []))
+
+
+def register_row(store: RecordReader, row_id: int) -> RegisterRow:
+    """Return register row ``row_id``; raise ``NotFound`` naming it when there is none."""
+    found = [row for row in _every_row(store, "WHERE r.id = ?", (row_id,)) if row.id == row_id]
+    if not found:
+        where = store.path if isinstance(store, Store) else None
+        raise RegisterRowNotFound(f"no register row with id {row_id} in {where or 'the database'}")
+    return found[0]
 
 
 def register_rows(
-    store: Store, kind: str | None = None, *, include_superseded: bool = False
+    store: RecordReader, kind: str | None = None, *, include_superseded: bool = False
 ) -> list[RegisterRow]:
     """Return the register rows of ``kind`` (None: every kind), oldest first: the current row
     of each entry, or every row with ``include_superseded``."""
     if kind is not None and kind not in KINDS:
         raise InputError("kind", kind, ", ".join(KINDS), "is not a kind of register row")
-    rows = [_row(values) for values in store.read(f"{_SELECT} ORDER BY r.id")]
     return [
         row
-        for row in rows
+        for row in _every_row(store)
         if (kind is None or row.kind == kind) and (include_superseded or row.current)
     ]
 
 
-def entry_rows(store: Store, entry_id: int) -> list[RegisterRow]:
+def entry_rows(store: RecordReader, entry_id: int) -> list[RegisterRow]:
     """Return every row of one entry, oldest first (the last is current)."""
-    return [
-        _row(values)
-        for values in store.read(f"{_SELECT} WHERE r.entry_id = ? ORDER BY r.id", (entry_id,))
-    ]
+    chosen = _every_row(store, "WHERE r.entry_id = ?", (entry_id,))
+    return [row for row in chosen if row.entry_id == entry_id]
 
 
 def _current_of(store: Store, entry_id: int) -> RegisterRow:
@@ -239,4 +279,5 @@ __all__ = [
     "register_row",
     "register_row_problems",
     "register_rows",
+    "rows_from_events",
 ]

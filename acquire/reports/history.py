@@ -26,7 +26,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
-from chargebook.acquire.record.store import NotFound, SessionRow, StationRow, Store
+from chargebook.acquire.record.store import NotFound, SessionRow, StationRow
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
 from chargebook.acquire.session.action_level import action_level_pct
@@ -289,8 +289,7 @@ def load_history_across(
     known: list[str] = []
     registered: _RegisteredBeam | None = None
     for store in stores:
-        # A station file's registers name its beams; the department record holds sessions only.
-        here = _register_beam(store, beam, machine) if isinstance(store, Store) else None
+        here = _register_beam(store, beam, machine)  # the registers' beam, if they name one
         listed = [
             row
             for row in store.sessions()
@@ -369,7 +368,7 @@ def _squeezed(text: object) -> str:
     return "".join(str(text or "").split()).casefold()
 
 
-def _register_beam(store: Store, text: str, machine: str | None) -> _RegisteredBeam | None:
+def _register_beam(store: RecordReader, text: str, machine: str | None) -> _RegisteredBeam | None:
     """Return the registers' beam named by ``text`` (its id or name), or None when the station
     has no beams registered, or when none matches but typed sessions do (recorded before the
     registers). InputError listing the close matches when neither does."""

@@ -23,7 +23,7 @@ import difflib
 import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.record.registers import (
     KINDS,
@@ -38,6 +38,9 @@ from chargebook.corrections import limits, units
 from chargebook.corrections.carried import checked_text, parse_date
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.stability import Thresholds
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 #: A calibration certificate older than this is flagged (common practice: two years); the
 #: daemon's setting is ``Thresholds.certificate_validity_years``.
@@ -471,7 +474,7 @@ def supersede_row(
 # ------------------------------------------------------------------------------------ naming
 
 
-def row_name(store: Store, row: RegisterRow) -> str:
+def row_name(store: RecordReader, row: RegisterRow) -> str:
     """Return a row's name in words: "beam DEMO-LA1 6 MV", "chamber SIM-CH-0001" ..."""
     fields = row.fields
     if row.kind == "beam":
@@ -486,7 +489,7 @@ def row_name(store: Store, row: RegisterRow) -> str:
     return str(fields["serial"])
 
 
-def _current(store: Store, entry_id: int) -> RegisterRow:
+def _current(store: RecordReader, entry_id: int) -> RegisterRow:
     return entry_rows(store, entry_id)[-1]
 
 
@@ -494,7 +497,7 @@ def _squeeze(text: str) -> str:
     return re.sub(r"[\s_\-]+", "", text).casefold()
 
 
-def find_beam(store: Store, text: str | int) -> RegisterRow:
+def find_beam(store: RecordReader, text: str | int) -> RegisterRow:
     """Return the current beam row named by ``text``: a row id, or a name with or without its
     machine ("DEMO-LA1 6 MV", "6MV": spaces and case do not matter). InputError listing the
     close matches (or every beam) when none or several match."""

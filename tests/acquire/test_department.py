@@ -14,20 +14,25 @@ import json
 import re
 import sqlite3
 from collections.abc import Iterator
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
 import psycopg
 import pytest
 from chargebook.acquire.commands.cli import main
+from chargebook.acquire.commands.demo_data import add_demo_registers
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 from chargebook.acquire.record import department
+from chargebook.acquire.record.registers import register_rows
 from chargebook.acquire.record.review import record_review
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_session
+from chargebook.acquire.session.carried import carried_metadata
+from chargebook.acquire.session.register_rows import select
 from chargebook.acquire.session.stored_result import stored_row
 from postgres_server import Server, running_server
-from recorded_session import record_example_session
+from recorded_session import example_metadata, record_example_session
+from test_carried_start import MONTHLY, TODAY, record_output_check
 
 pytestmark = pytest.mark.slow
 
@@ -174,6 +179,65 @@ def test_history_across_stations_is_sorted_by_date(stations: list[Path], url: st
     assert [line.split()[:2] for line in listed[:6]] == [
         [name, str(n)] for n in (1, 2) for name in STATIONS
     ]
+
+
+def _station_with_registers(folder: Path) -> Path:
+    """A station whose registers name DEMO-LA1's 6 MV beam (the invented demo registers): two
+    typed sessions of it, one of DEMO-LA2, and an output check that named the register beam."""
+    path = folder / "registered.sqlite"
+    with Store.open(path, now=Clock()) as store:
+        store.name_station("station-r")
+        ids = add_demo_registers(store, actor="physicist C", today=date(2026, 11, 1))
+        record_example_session(store)
+        record_example_session(store, treatment_machine="DEMO-LA2")
+        record_example_session(store, scale=1.004)
+        picked = select(
+            store,
+            {"beam": ids["la1_6mv"], "chamber": ids["ch1"], "electrometer": ids["em1"]},
+            on=date(2026, 11, 1),
+        )
+        named = example_metadata(registers=picked.ids(), register_copy=picked.copy())
+        record_output_check(store, carried_metadata(store, named, MONTHLY, TODAY))
+    return path
+
+
+@pytest.mark.parametrize(
+    "command",
+    [
+        ["history", "--beam", "DEMO-LA1 6 MV"],
+        ["history", "--beam", "6mv", "--format", "json"],
+        ["history", "--beam", "DEMO-LA1 7 MV"],  # refused alike, naming the closest beam
+    ],
+)
+def test_the_registers_beam_names_its_history_in_the_department_too(
+    tmp_path: Path, url: str, command: list[str], capsys
+) -> None:
+    """The registers reach the department as their published register_row events, so a
+    register beam's name finds the same sessions there as in the station file."""
+    path = _station_with_registers(tmp_path)
+    _publish(path, url, capsys)
+    from_file = main([*command, "--db", str(path)]), capsys.readouterr()
+    from_department = main([*command, "--db", url]), capsys.readouterr()
+    assert from_department[0] == from_file[0]
+    assert _normal(from_department[1].out) == _normal(from_file[1].out)
+    assert from_department[1].err == from_file[1].err
+    if "7 MV" in command[2]:
+        assert from_file[0] == EXIT_INVALID_INPUT and "DEMO-LA1 6 MV" in from_file[1].err
+    else:
+        assert from_file[0] == EXIT_OK and "DEMO-LA2" not in from_file[1].out
+
+
+def test_register_rows_read_from_the_department_are_the_station_files(
+    tmp_path: Path, url: str, capsys
+) -> None:
+    path = _station_with_registers(tmp_path)
+    _publish(path, url, capsys)
+    with Store.open(path, read_only=True) as store:
+        in_file = register_rows(store, include_superseded=True)
+    with department.open_department(url) as database:
+        (station,) = database.stations()
+        in_department = register_rows(database.store(station), include_superseded=True)
+    assert in_department == in_file and len(in_file) > 5
 
 
 def test_show_finds_the_station_of_a_session_or_asks_which(
