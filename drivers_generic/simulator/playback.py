@@ -17,16 +17,22 @@ sent with their recorded spacing divided by ``speed`` (``speed`` 0: as fast as p
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import json
 import logging
 import math
+import tempfile
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from chargebook.drivers_generic.interface import TrafficDirection
+
+if TYPE_CHECKING:
+    from chargebook.drivers_generic.profile import Framing
 
 log = logging.getLogger("chargebook.simulator.playback")
 
@@ -134,7 +140,10 @@ class PlaybackResponder:
     push_wait_s = 30.0
 
     def tick_interval_s(self) -> float:
-        """Return how often the server should call :meth:`tick`, in seconds."""
+        """Return how often the server should call :meth:`tick`, in seconds (query mode sends
+        nothing unasked: the server only wakes for commands, and to see whether to stop)."""
+        if self.mode == "query":
+            return 0.1
         return 0.002 if self.speed == 0 else 0.01
 
     def flood_line(self, index: int) -> str:
@@ -168,6 +177,25 @@ class PlaybackResponder:
             return True
         wall_anchor, log_anchor = self._anchor
         return self.clock() >= wall_anchor + (t_s - log_anchor) / self.speed
+
+
+@contextlib.contextmanager
+def playback_port(
+    entries: Sequence[tuple[float, str, str]], framing: Framing, mode: str, speed: float
+) -> Iterator[Path]:
+    """Play ``entries`` (see :func:`parse_log`) on a real pseudo-terminal served by a thread of
+    this process, as ``chargebook simulate --playback`` serves them from a process of its own;
+    yield the path of the port to open. The pty is closed on the way out."""
+    from chargebook.drivers_generic.simulator.serial_server import PtyServer
+
+    responder = PlaybackResponder(list(entries), mode, speed)
+    with tempfile.TemporaryDirectory(prefix="chargebook-playback-") as directory:
+        server = PtyServer(responder, framing, Path(directory) / "electrometer")
+        server.start()
+        try:
+            yield server.link_path
+        finally:
+            server.stop()
 
 
 class TrafficRecorder:
