@@ -569,6 +569,11 @@ class Store:
         self.results_on_close: Callable[[Store, int], tuple[str, str] | None] | None = None
         #: What this connection knows of the file without asking it again (see _Known).
         self._ids = _Known()
+        #: Called at the start of every write block (:meth:`atomic`, nested ones too), the lock
+        #: held: a writer that holds back rows of its own (a replay's raw lines, written a
+        #: batch at a time) writes them there, so that they come first in the chain. None:
+        #: nobody holds rows back.
+        self.before_write: Callable[[], None] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -727,6 +732,8 @@ class Store:
         time; if the transaction fails, those lines are kept again for the next commit.
         """
         with self._lock:
+            if self.before_write is not None:
+                self.before_write()
             conn = self.conn
             if conn.in_transaction:
                 written = len(self._events_in_flight)

@@ -71,7 +71,7 @@ def run_pipeline(
     ``replay`` event. Raises Divergence (strict) or TrafficLogError where the recording does
     not fit; a what-if that cannot go on comes back with ``stopped`` set.
     """
-    from chargebook.drivers_generic import build_electrometer
+    from chargebook.drivers_generic.driver import ProfileElectrometer
     from chargebook.drivers_generic.simulator.playback import playback_port
 
     profile = setup.profile
@@ -79,7 +79,8 @@ def run_pipeline(
     with playback_port(entries, profile.framing, profile.mode, speed) as port:
         same = None if setup.strict else same_command(profile)
         follower = TrafficFollower(setup.lines, profile, same_command=same)
-        driver = build_electrometer(profile, port=str(port), traffic=follower, clock=follower.clock)
+        transport = port.transport(profile, follower, follower.clock)
+        driver = ProfileElectrometer(profile, transport, clock=follower.clock)
         return _play(setup, speed, detail, follower, driver, store, replay_of)
 
 
@@ -127,7 +128,7 @@ def _play(
         stopped = _plan_words(conductor.engine) or str(stop)
     finally:
         driver.close()
-    follower.flush()  # what a what-if played before it stopped, and a last partial line
+        follower.detach()  # what a what-if played before it stopped, and a last partial line
     notes = [
         f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
         f"{n.recorded!r}"
