@@ -1623,6 +1623,20 @@ class Store:
             return self._select(TrafficRow, "traffic", "session_id IS NULL")
         return self._select(TrafficRow, "traffic", "session_id = ?", (session_id,))
 
+    def traffic_lines(self, session_id: int, ids: Iterable[int]) -> dict[int, bytes]:
+        """Return the raw bytes of the session's traffic rows with these ids, by id (an id
+        that is not one of the session's rows is left out): a few lines of a long session
+        without reading all of it."""
+        wanted = sorted({int(row_id) for row_id in ids})
+        found: dict[int, bytes] = {}
+        with self._lock:
+            for start in range(0, len(wanted), 500):  # well within SQLite's bound on ? marks
+                chunk = wanted[start : start + 500]
+                marks = ", ".join("?" for _ in chunk)
+                sql = f"SELECT id, line FROM traffic WHERE session_id = ? AND id IN ({marks})"
+                found.update(self.conn.execute(sql, (session_id, *chunk)).fetchall())
+        return found
+
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _INSERT_CHAINED = {

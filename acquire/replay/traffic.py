@@ -297,17 +297,25 @@ class TrafficFollower:
 
     def __call__(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
         """Check one line against the recording, then write it to the replay's session."""
-        direction = TrafficDirection(direction)
-        self._check(direction.value, bytes(raw))
+        value = TrafficDirection(direction).value
+        raw = bytes(raw)
+        position = self.position
+        if position < len(self.lines):
+            expected = self.lines[position]
+            if expected.raw != raw or expected.direction != value:
+                self._check(value, raw)
+        else:
+            self._check(value, raw)
         self._last_t_s = t_s
         if self.store is not None:
-            if direction is TrafficDirection.RECEIVED:
+            if value == RX:
                 self._last_received_id = self._next_id + len(self._unwritten)
-            line = (self.session_id, t_s, self.store.stamp(), direction.value, bytes(raw))
-            self._unwritten.append(line)
-        self.position += 1
+            self._unwritten.append((self.session_id, t_s, self.store.stamp(), value, raw))
+        self.position = position + 1
 
     def _check(self, direction: str, raw: bytes) -> None:
+        """Raise Divergence for a line that is not the recorded one (note it, for the same
+        command sent with other values in a what-if)."""
         verb = "sent" if direction == TX else "received"
         got = line_text(self.profile, RecordedLine(self.position, 0.0, direction, raw))
         if self.position >= len(self.lines):
@@ -315,8 +323,6 @@ class TrafficFollower:
                 f"after the last recorded line ({len(self.lines)}) the replay {verb} {shown(got)}"
             )
         expected = self.lines[self.position]
-        if expected.direction == direction and expected.raw == raw:
-            return
         recorded = self.text(expected)
         number = self.position + 1
         if (
