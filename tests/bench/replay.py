@@ -15,7 +15,8 @@ the input log a replay feeds back.
 * Baseline: the same raw lines of the whole visit (both directions, as recorded) written to a
   real pseudo-terminal as fast as a reader takes them, and read by one new Python process with
   pyserial (``readline`` on an ``io.BufferedReader`` over the port, timeout 0.05 s, as in the
-  pipeline benchmark), timed from its start to its exit.
+  pipeline benchmark), timed from its start to its exit. Also shown, as the earlier figures
+  were measured: each session's lines read by a process of its own, the nine times summed.
 * Measured: ``chargebook replay --visit ID --speed 0 --json`` as a user runs it for the visit
   (one new process: the playback simulator on a real pty, the real driver, engine and store,
   each replay stored in the station file), timed from its start to its exit, with its CPU time;
@@ -282,15 +283,19 @@ def main(argv: list[str] | None = None) -> int:
         )
         env = children_env(workdir)
         replay_visit(db, visit_id, visit, env), pty_alone(lines, env)  # untimed: bytecode
-        alone, replayed = [], []
+        alone, by_session, replayed = [], [], []
         for _ in range(rounds):
             alone.append(pty_alone(lines, env))
+            by_session.append(sum(pty_alone(list(r.lines), env).wall_s for r in visit))
             replayed.append(replay_visit(db, visit_id, visit, env))
-    for number, (base, measured) in enumerate(zip(alone, replayed, strict=True), 1):
+    for number, (base, apart_s, measured) in enumerate(
+        zip(alone, by_session, replayed, strict=True), 1
+    ):
         out.note(
             f"round {number}: pty alone {base.wall_s:.2f} s (CPU {base.cpu_s:.2f} s), replay "
             f"{measured.wall_s:.2f} s (CPU {measured.cpu_s:.2f} s), ratio "
             f"{measured.wall_s / base.wall_s:.2f} (CPU {measured.cpu_s / base.cpu_s:.2f}); "
+            f"a reader per session {apart_s:.2f} s (ratio {measured.wall_s / apart_s:.2f}); "
             "every session reproduced"
         )
     out.note(f"load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
