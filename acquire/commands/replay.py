@@ -1,26 +1,43 @@
-"""`chargebook replay SESSION`: replay a recorded session and say whether it reproduces.
+"""`chargebook replay SESSION...`: replay recorded sessions and say whether each reproduces.
 
-See ``chargebook.acquire.replay.session_replay`` for how. ``--write-traffic-log FILE`` only
-writes the session's recorded traffic as a JSON-lines log, which ``--traffic-log FILE`` plays back.
+See ``chargebook.acquire.replay.session_replay`` for how. Several sessions, or a calibration
+visit's (``--visit ID``), are replayed one after another in this one process, each in its own
+transaction. ``--write-traffic-log FILE`` only writes one session's recorded traffic as a
+JSON-lines log, which ``--traffic-log FILE`` plays back.
 """
 
 from __future__ import annotations
 
 import argparse
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
-from chargebook.acquire.commands.station_reader import add_db_argument, add_session_argument
+from chargebook.acquire.commands.station_reader import add_db_argument
 
 HELP = (
     "replay a recorded session's raw instrument traffic through the simulated electrometer, "
     "the driver and the engine into a new session; check that it reproduces exactly, or ask "
-    "what another plan or other thresholds would have given"
+    "what another plan or other thresholds would have given; several sessions, or a "
+    "calibration visit's (--visit), in one run"
 )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Declare the replay's options."""
-    add_session_argument(parser)
+    parser.add_argument(
+        "session",
+        metavar="SESSION",
+        type=int,
+        nargs="*",
+        help="session id; several are replayed one after another, each stored on its own",
+    )
+    parser.add_argument(
+        "--visit",
+        metavar="ID",
+        type=int,
+        help="replay every session of this calibration visit, in the order they were measured",
+    )
     add_db_argument(parser)
     parser.add_argument(
         "--speed",
@@ -111,38 +128,44 @@ def threshold_values(args: argparse.Namespace) -> dict[str, object]:
     return values
 
 
+@dataclass
+class Outcome:
+    """How one session's replay went: its exit status, and its report or why there is none."""
+
+    session_id: int
+    status: int
+    report: Any = None  # ReplayReport
+    error: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the outcome as JSON-ready data: the report's, or the error's."""
+        if self.report is not None:
+            return {**self.report.to_dict(), "exit_status": self.status}
+        return {"original_session_id": self.session_id, "error": self.error,
+                "exit_status": self.status}  # fmt: skip
+
+
 def run(args: argparse.Namespace) -> int:
-    """Replay the session; print the verdict; return 0 when it reproduced (or a what-if ran),
-    1 when an unchanged replay did not reproduce or failed, 2 for input that cannot be used."""
-    import json
-    import os
+    """Replay the sessions asked for; print each verdict; return 0 when each reproduced (or each
+    what-if ran), 1 when one did not reproduce or failed, 2 for input that cannot be used."""
     import sys
 
     from chargebook.acquire.commands.station_reader import listed_hint, missing_station_words
-    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
-    from chargebook.acquire.processes import ChildStartError
-    from chargebook.acquire.protocol import CAUTION
-    from chargebook.acquire.record.store import NotFound, StoreError, default_db_path
-    from chargebook.acquire.replay.session_replay import (
-        Divergence,
-        NotReplayable,
-        ReplayRequest,
-        replay_session,
-        save_traffic_log,
-    )
-    from chargebook.acquire.replay.text import replay_text
+    from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.record.store import NotFound, default_db_path
+    from chargebook.acquire.replay.session_replay import NotReplayable, save_traffic_log
     from chargebook.corrections.errors import InputError
-    from chargebook.drivers_generic import ProfileError
 
     db_path = Path(args.db or default_db_path())
     if not db_path.is_file():  # the input cannot be used: status 2, as for every command
         print(f"chargebook replay: {missing_station_words(db_path)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
     try:
+        sessions = _session_ids(args, db_path)
         if args.write_traffic_log is not None:
-            count = save_traffic_log(db_path, args.session, args.write_traffic_log, args.profile)
+            count = save_traffic_log(db_path, sessions[0], args.write_traffic_log, args.profile)
             print(
-                f"wrote {args.write_traffic_log}: {count} lines of session {args.session}",
+                f"wrote {args.write_traffic_log}: {count} lines of session {sessions[0]}",
                 file=sys.stderr,
             )
             return EXIT_OK
@@ -150,42 +173,149 @@ def run(args: argparse.Namespace) -> int:
             raise InputError("--speed", args.speed, "0 (as fast as possible) or more")
         if args.time_scale is not None and not args.time_scale > 0:
             raise InputError("--time-scale", args.time_scale, "a number above 0")
-        request = ReplayRequest(
-            db_path=db_path,
-            session_id=args.session,
-            speed=args.speed,
-            plan=args.plan,
-            thresholds=threshold_values(args),
-            traffic_log=args.traffic_log,
-            profile=args.profile,
-            time_scale=args.time_scale,
-            dry_run=args.dry_run,
-            keep=args.keep,
-        )
-        report = replay_session(request)
+        thresholds = threshold_values(args)
     except NotFound as error:
         print(f"chargebook replay: {error}{listed_hint(error)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
-    except (NotReplayable, InputError, ProfileError) as error:
+    except (NotReplayable, InputError) as error:
         print(f"chargebook replay: {error}; nothing was written", file=sys.stderr)
         return EXIT_INVALID_INPUT
-    except Divergence as error:
-        print(
-            f"chargebook replay: session {args.session} was NOT reproduced: {error}; "
-            "nothing was written",
-            file=sys.stderr,
+    if len(sessions) == 1 and args.visit is None:
+        outcome = _replay_one(args, db_path, sessions[0], thresholds)
+        _print(lambda: _print_one(outcome, args.json))
+        return outcome.status
+    outcomes = []
+    for session_id in sessions:  # each in its own transaction; one that fails stops no other
+        outcome = _replay_one(args, db_path, session_id, thresholds)
+        outcomes.append(outcome)
+        if not args.json:
+            _print(lambda outcome=outcome: _print_one(outcome, False, caution=False))
+    _print(lambda: _print_many(outcomes, args))
+    return max(outcome.status for outcome in outcomes)
+
+
+def _session_ids(args: argparse.Namespace, db_path: Path) -> list[int]:
+    """Return the ids of the sessions to replay: those given, or the visit's.
+
+    Raises InputError for none, both, a visit with no session, or several sessions with an
+    option that takes one; NotFound for a visit that does not exist."""
+    from chargebook.acquire.record.store import Store
+    from chargebook.acquire.record.visits import visit_session_ids
+    from chargebook.corrections.errors import InputError
+
+    if args.visit is None and not args.session:
+        raise InputError("SESSION", None, "a session id (or several), or --visit ID", "is missing")
+    if args.visit is not None and args.session:
+        raise InputError(
+            "--visit", args.visit, "session ids or --visit ID, not both", "is given with sessions"
         )
-        return EXIT_FAILURE
-    except (StoreError, ChildStartError, OSError) as error:
-        print(f"chargebook replay: {error}", file=sys.stderr)
-        return EXIT_FAILURE
+    sessions = list(dict.fromkeys(args.session))  # each once, in the order given
+    if args.visit is not None:
+        with Store.open(db_path, read_only=True) as store:
+            sessions = visit_session_ids(store, args.visit)
+        if not sessions:
+            raise InputError("--visit", args.visit, "a visit with a session", "measured no beam")
+    for option, value in (
+        ("--traffic-log", args.traffic_log),
+        ("--write-traffic-log", args.write_traffic_log),
+    ):
+        if value is not None and (len(sessions) > 1 or args.visit is not None):
+            raise InputError(option, str(value), "one SESSION", f"is given for {len(sessions)}")
+    return sessions
+
+
+def _replay_one(
+    args: argparse.Namespace, db_path: Path, session_id: int, thresholds: dict[str, object]
+) -> Outcome:
+    """Replay one session as the options ask; return how it went (never raises for a replay
+    that cannot run: the outcome says why, in the words printed on stderr)."""
+    from chargebook.acquire.commands.station_reader import listed_hint
+    from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+    from chargebook.acquire.processes import ChildStartError
+    from chargebook.acquire.record.store import NotFound, StoreError
+    from chargebook.acquire.replay.session_replay import (
+        Divergence,
+        NotReplayable,
+        ReplayRequest,
+        replay_session,
+    )
+    from chargebook.corrections.errors import InputError
+    from chargebook.drivers_generic import ProfileError
+
+    options = ("speed", "plan", "traffic_log", "profile", "time_scale", "dry_run", "keep")
+    request = ReplayRequest(
+        db_path,
+        session_id,
+        thresholds=thresholds,
+        **{name: getattr(args, name) for name in options},
+    )
     try:
-        if args.json:
-            print(json.dumps(report.to_dict(), indent=2, ensure_ascii=False, default=str))
-        else:
-            print(replay_text(report))
-            print()
+        report = replay_session(request)
+    except NotFound as error:
+        return Outcome(session_id, EXIT_INVALID_INPUT, error=f"{error}{listed_hint(error)}")
+    except (NotReplayable, InputError, ProfileError) as error:
+        return Outcome(session_id, EXIT_INVALID_INPUT, error=f"{error}; nothing was written")
+    except Divergence as error:
+        words = f"session {session_id} was NOT reproduced: {error}; nothing was written"
+        return Outcome(session_id, EXIT_FAILURE, error=words)
+    except (StoreError, ChildStartError, OSError) as error:
+        return Outcome(session_id, EXIT_FAILURE, error=str(error))
+    status = EXIT_OK if report.reproduced or report.what_if else EXIT_FAILURE
+    return Outcome(session_id, status, report=report)
+
+
+def _print(show: Any) -> None:
+    """Run ``show``; whoever read the output going away (`| head`) stops no replay."""
+    from chargebook.acquire.commands.station_reader import output_closed
+
+    try:
+        show()
+    except BrokenPipeError:
+        output_closed()
+
+
+def _print_one(outcome: Outcome, as_json: bool, *, caution: bool = True) -> None:
+    """Print one session's report (its error on stderr), with the caution when asked."""
+    import json
+    import sys
+
+    from chargebook.acquire.protocol import CAUTION
+    from chargebook.acquire.replay.text import replay_text
+
+    if outcome.report is None:
+        print(f"chargebook replay: {outcome.error}", file=sys.stderr)
+    elif as_json:
+        print(json.dumps(outcome.report.to_dict(), indent=2, ensure_ascii=False, default=str))
+    else:
+        print(replay_text(outcome.report))
+        print()
+        if caution:
             print(CAUTION)
-    except BrokenPipeError:  # whoever read the output went away (`| head`): stop quietly
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-    return EXIT_OK if report.reproduced or report.what_if else EXIT_FAILURE
+
+
+def _print_many(outcomes: list[Outcome], args: argparse.Namespace) -> None:
+    """Print what several replays came to: one JSON object, or a closing line and the caution."""
+    import json
+
+    from chargebook.acquire.protocol import CAUTION
+
+    reproduced = sum(o.report is not None and o.report.reproduced for o in outcomes)
+    ran = sum(o.report is not None for o in outcomes)
+    if args.json:
+        data = {
+            "visit_id": args.visit,
+            "sessions": [outcome.to_dict() for outcome in outcomes],
+            "replayed": ran,
+            "reproduced": all(o.report is not None and o.report.reproduced for o in outcomes),
+        }
+        print(json.dumps(data, indent=2, ensure_ascii=False, default=str))
+        return
+    what = f"visit {args.visit}" if args.visit is not None else "the sessions given"
+    failed = [str(o.session_id) for o in outcomes if o.status != 0]
+    lines = [
+        f"{what}: {len(outcomes)} session(s), {ran} replayed, {reproduced} reproduced exactly"
+        + (f"; not reproduced or not run: session(s) {', '.join(failed)}" if failed else "")
+    ]
+    print("\n".join(lines))
+    print()
+    print(CAUTION)

@@ -583,6 +583,11 @@ class Store:
         self.results_on_close: Callable[[Store, int], tuple[str, str] | None] | None = None
         #: What this connection knows of the file without asking it again (see _Known).
         self._ids = _Known()
+        #: Called at the start of every write block (:meth:`atomic`, nested ones too), the lock
+        #: held: a writer that holds back rows of its own (a replay's raw lines, written a
+        #: batch at a time) writes them there, so that they come first in the chain. None:
+        #: nobody holds rows back.
+        self.before_write: Callable[[], None] | None = None
 
     # ------------------------------------------------------------------ opening and closing
 
@@ -746,6 +751,8 @@ class Store:
         time; if the transaction fails, those lines are kept again for the next commit.
         """
         with self._lock:
+            if self.before_write is not None:
+                self.before_write()
             conn = self.conn
             if conn.in_transaction:
                 written = len(self._events_in_flight)
@@ -1692,6 +1699,20 @@ class Store:
         if session_id is None:
             return self._select(TrafficRow, "traffic", "session_id IS NULL")
         return self._select(TrafficRow, "traffic", "session_id = ?", (session_id,))
+
+    def traffic_lines(self, session_id: int, ids: Iterable[int]) -> dict[int, bytes]:
+        """Return the raw bytes of the session's traffic rows with these ids, by id (an id
+        that is not one of the session's rows is left out): a few lines of a long session
+        without reading all of it."""
+        wanted = sorted({int(row_id) for row_id in ids})
+        found: dict[int, bytes] = {}
+        with self._lock:
+            for start in range(0, len(wanted), 500):  # well within SQLite's bound on ? marks
+                chunk = wanted[start : start + 500]
+                marks = ", ".join("?" for _ in chunk)
+                sql = f"SELECT id, line FROM traffic WHERE session_id = ? AND id IN ({marks})"
+                found.update(self.conn.execute(sql, (session_id, *chunk)).fetchall())
+        return found
 
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")

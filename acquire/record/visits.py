@@ -156,6 +156,16 @@ def visit_of_session(store: Store, session_id: int) -> tuple[int, int] | None:
     return (int(rows[0][0]), int(rows[0][1])) if rows else None
 
 
+def visit_session_ids(store: Store, visit_id: int) -> list[int]:
+    """Return the ids of the sessions that measured the visit's beams, in the order they were
+    started. Raises :class:`NotFound` when there is no such visit."""
+    visit(store, visit_id)
+    rows = store.read(
+        "SELECT session_id FROM visit_sessions WHERE visit_id = ? ORDER BY id", (visit_id,)
+    )
+    return [int(session_id) for (session_id,) in rows]
+
+
 def beam_states(store: Store, visit_id: int) -> list[BeamState]:
     """Return each beam of the visit with its status, in the visit's order (see the module)."""
     happened: dict[int, list[tuple[int, str, Any]]] = {}

@@ -141,9 +141,10 @@ class _Side:
         sets = {(s.step_index, s.step_key, s.attempt): s for s in store.sets(session_id)}
         keys = {s.id: key for key, s in sets.items()}
         readings = {(keys[r.set_id], r.seq): r for r in store.readings(session_id)}
+        ids = [r.traffic_id for r in readings.values() if r.traffic_id]
         lines = {
-            row.id: row.line.decode("ascii", errors="backslashreplace")
-            for row in store.traffic(session_id)
+            row_id: line.decode("ascii", errors="backslashreplace")
+            for row_id, line in store.traffic_lines(session_id, ids).items()
         }
         times = rules.integration_times(store.events(session_id))
         return cls(store, session_id, sets, readings, lines, times)

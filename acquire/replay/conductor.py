@@ -232,7 +232,6 @@ class Conductor:
             self.engine = self.restart()
             self.pending.clear()
             self.driver.open()
-        self.follower.flush()  # the lines played so far come before what the input writes
         try:
             self.engine.apply(given)
         except (IllegalTransition, InputError, ConfirmationRequired) as error:

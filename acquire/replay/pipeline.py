@@ -1,7 +1,9 @@
-"""The replay's pipeline: the playback simulator process, the real driver and the real engine.
+"""The replay's pipeline: the playback simulator, the real driver and the real engine.
 
-:func:`run_pipeline` starts ``chargebook simulate --playback`` on the recorded lines (a process
-of its own, on a real pseudo-terminal), opens the profile's driver on it with the
+:func:`run_pipeline` plays the recorded lines with the simulated electrometer's playback (the
+same responder and pty server as ``chargebook simulate --playback``, on a real pseudo-terminal,
+served by a thread of the replay's own process: no second process to start, and an answer
+needs no hop between processes), opens the profile's driver on it with the
 :class:`~chargebook.acquire.replay.traffic.TrafficFollower` as its clock and traffic listener,
 starts the session again in a new engine on the store it is given (the station's, inside one
 transaction, or a scratch store in memory for a dry run), and lets the
@@ -11,10 +13,8 @@ transaction, or a scratch store in memory for a dry run), and lets the
 from __future__ import annotations
 
 import dataclasses
-import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 from chargebook.acquire.engine.engine import Engine
@@ -22,11 +22,7 @@ from chargebook.acquire.record.events import EventKind, Replay
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.conductor import Conductor, Pacer, WhatIfStop
 from chargebook.acquire.replay.recording import RecordedLine, Recording
-from chargebook.acquire.replay.traffic import (
-    TrafficFollower,
-    command_namer,
-    write_playback_log,
-)
+from chargebook.acquire.replay.traffic import TrafficFollower, command_namer, line_text
 from chargebook.corrections.stability import Thresholds
 
 #: Who the replay names as the actor of the events it writes itself.
@@ -75,31 +71,17 @@ def run_pipeline(
     ``replay`` event. Raises Divergence (strict) or TrafficLogError where the recording does
     not fit; a what-if that cannot go on comes back with ``stopped`` set.
     """
-    from chargebook.acquire.processes import start_child, stop_child
-    from chargebook.drivers_generic import build_electrometer
+    from chargebook.drivers_generic.driver import ProfileElectrometer
+    from chargebook.drivers_generic.simulator.playback import playback_port
 
-    with tempfile.TemporaryDirectory(prefix="chargebook-replay-") as work:
-        playback = write_playback_log(setup.profile, setup.lines, Path(work) / "playback.jsonl")
-        simulator = start_child(
-            "simulated electrometer (playback)",
-            [
-                "simulate", "--serial", "--profile", setup.profile.name,
-                "--playback", str(playback), "--speed", str(speed),
-            ],
-            Path(work) / "simulator.log",
-        )  # fmt: skip
-        try:
-            same = None if setup.strict else same_command(setup.profile)
-            follower = TrafficFollower(setup.lines, setup.profile, same_command=same)
-            driver = build_electrometer(
-                setup.profile,
-                port=simulator.info["serial"],
-                traffic=follower,
-                clock=follower.clock,
-            )
-            return _play(setup, speed, detail, follower, driver, store, replay_of)
-        finally:
-            stop_child(simulator.process)
+    profile = setup.profile
+    entries = [(line.t_s, line.direction, line_text(profile, line)) for line in setup.lines]
+    with playback_port(entries, profile.framing, profile.mode, speed) as port:
+        same = None if setup.strict else same_command(profile)
+        follower = TrafficFollower(setup.lines, profile, same_command=same)
+        transport = port.transport(profile, follower, follower.clock)
+        driver = ProfileElectrometer(profile, transport, clock=follower.clock)
+        return _play(setup, speed, detail, follower, driver, store, replay_of)
 
 
 def _play(
@@ -146,7 +128,7 @@ def _play(
         stopped = _plan_words(conductor.engine) or str(stop)
     finally:
         driver.close()
-    follower.flush()  # what a what-if played before it stopped, and a last partial line
+        follower.detach()  # what a what-if played before it stopped, and a last partial line
     notes = [
         f"traffic line {n.index + 1}: the replay sent {n.sent!r} where the original sent "
         f"{n.recorded!r}"

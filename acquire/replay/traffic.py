@@ -214,33 +214,47 @@ class TrafficFollower:
         self.store: Store | None = None
         self.session_id: int | None = None
         self._last_received_id: int | None = None
-        #: Lines seen, not yet written: (session, t_s, recorded_at, direction, bytes) each, and
-        #: the place among them of the latest received line (None: none of them).
+        #: Lines seen, not yet written: (session, t_s, recorded_at, direction, bytes) each,
+        #: and the row id the first of them will have.
         self._unwritten: list[tuple[int | None, float, str, str, bytes]] = []
-        self._received_at: int | None = None
+        self._next_id = 0
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
 
     def attach(self, store: Store, session_id: int) -> None:
-        """Write the lines from now on to ``session_id`` in ``store``."""
+        """Write the lines from now on to ``session_id`` in ``store``: each batch as the store
+        is about to write anything else (its ``before_write``), so that the lines come first
+        in the session's chain, and the lines' row ids are counted, not asked of the file
+        (nothing else writes raw lines to the store meanwhile: the replay holds the station)."""
         self.store, self.session_id = store, session_id
+        self._next_id = store.newest_traffic_id() + 1
+        store.before_write = self.flush
+
+    def detach(self) -> None:
+        """Write the lines not yet written, and stop writing to the store."""
+        self.flush()
+        if self.store is not None and self.store.before_write == self.flush:
+            self.store.before_write = None
 
     @property
     def last_received_id(self) -> int | None:
-        """Return the row id of the latest received line (the line a sample came from),
-        writing the lines seen so far first (None: no line received since attached)."""
-        self.flush()
+        """Return the row id of the latest received line (the line a sample came from), which
+        it has or will have once written (None: no line received since attached)."""
         return self._last_received_id
 
     def flush(self) -> None:
-        """Write the lines seen and not yet written, in one statement; call it before anything
-        else is written to the replay's session, so that the lines come first in its chain."""
+        """Write the lines seen and not yet written, in one statement (the store calls it
+        before anything else is written: see :meth:`attach`)."""
         if not self._unwritten or self.store is None:
             return
-        self.store.add_traffic_many(self._unwritten)
-        if self._received_at is not None:
-            last_id = self.store.newest_traffic_id()
-            self._last_received_id = last_id - (len(self._unwritten) - 1 - self._received_at)
-        self._unwritten, self._received_at = [], None
+        lines, self._unwritten = self._unwritten, []  # the store's before_write comes back here
+        self.store.add_traffic_many(lines)
+        self._next_id += len(lines)
+        newest = self.store.newest_traffic_id()
+        if newest != self._next_id - 1:
+            raise RuntimeError(
+                f"the replay's raw lines were written up to row {newest}, not {self._next_id - 1}"
+                ": something else wrote raw lines to the station file during the replay"
+            )
 
     @property
     def finished(self) -> bool:
@@ -283,17 +297,25 @@ class TrafficFollower:
 
     def __call__(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
         """Check one line against the recording, then write it to the replay's session."""
-        direction = TrafficDirection(direction)
-        self._check(direction.value, bytes(raw))
+        value = TrafficDirection(direction).value
+        raw = bytes(raw)
+        position = self.position
+        if position < len(self.lines):
+            expected = self.lines[position]
+            if expected.raw != raw or expected.direction != value:
+                self._check(value, raw)
+        else:
+            self._check(value, raw)
         self._last_t_s = t_s
         if self.store is not None:
-            line = (self.session_id, t_s, self.store.stamp(), direction.value, bytes(raw))
-            self._unwritten.append(line)
-            if direction is TrafficDirection.RECEIVED:
-                self._received_at = len(self._unwritten) - 1
-        self.position += 1
+            if value == RX:
+                self._last_received_id = self._next_id + len(self._unwritten)
+            self._unwritten.append((self.session_id, t_s, self.store.stamp(), value, raw))
+        self.position = position + 1
 
     def _check(self, direction: str, raw: bytes) -> None:
+        """Raise Divergence for a line that is not the recorded one (note it, for the same
+        command sent with other values in a what-if)."""
         verb = "sent" if direction == TX else "received"
         got = line_text(self.profile, RecordedLine(self.position, 0.0, direction, raw))
         if self.position >= len(self.lines):
@@ -301,8 +323,6 @@ class TrafficFollower:
                 f"after the last recorded line ({len(self.lines)}) the replay {verb} {shown(got)}"
             )
         expected = self.lines[self.position]
-        if expected.direction == direction and expected.raw == raw:
-            return
         recorded = self.text(expected)
         number = self.position + 1
         if (

@@ -17,16 +17,24 @@ sent with their recorded spacing divided by ``speed`` (``speed`` 0: as fast as p
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import json
 import logging
 import math
+import tempfile
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
-from chargebook.drivers_generic.interface import TrafficDirection
+from chargebook.drivers_generic.interface import TrafficDirection, TrafficListener
+from chargebook.drivers_generic.serial_transport import SerialTransport
+
+if TYPE_CHECKING:
+    from chargebook.drivers_generic.profile import Framing, Profile
 
 log = logging.getLogger("chargebook.simulator.playback")
 
@@ -134,7 +142,10 @@ class PlaybackResponder:
     push_wait_s = 30.0
 
     def tick_interval_s(self) -> float:
-        """Return how often the server should call :meth:`tick`, in seconds."""
+        """Return how often the server should call :meth:`tick`, in seconds (query mode sends
+        nothing unasked: the server only wakes for commands, and to see whether to stop)."""
+        if self.mode == "query":
+            return 0.1
         return 0.002 if self.speed == 0 else 0.01
 
     def flood_line(self, index: int) -> str:
@@ -168,6 +179,83 @@ class PlaybackResponder:
             return True
         wall_anchor, log_anchor = self._anchor
         return self.clock() >= wall_anchor + (t_s - log_anchor) / self.speed
+
+
+#: The longest wait for a command just written to come through the pty, in seconds.
+COMMAND_THROUGH_S = 2.0
+
+
+@dataclass(frozen=True)
+class PlaybackPort:
+    """A playback served on a real pseudo-terminal (see :func:`playback_port`).
+
+    ``answer`` is None when a thread serves the pty; else the function that answers the
+    commands written to it, which the caller runs after each write (:meth:`transport`).
+    """
+
+    path: Path
+    answer: Callable[[], None] | None
+
+    def transport(
+        self, profile: Profile, traffic: TrafficListener, clock: Callable[[], float]
+    ) -> SerialTransport:
+        """Return an unopened serial transport on the port for ``profile``'s driver."""
+        from chargebook.drivers_generic import build_transport
+
+        if self.answer is None:
+            return build_transport(profile, port=str(self.path), traffic=traffic, clock=clock)
+        return AnsweredTransport(
+            str(self.path),
+            profile.port,
+            profile.framing,
+            write_timeout_s=profile.timing.timeout_s,
+            traffic=traffic,
+            clock=clock,
+            answer=self.answer,
+        )
+
+
+@contextlib.contextmanager
+def playback_port(
+    entries: Sequence[tuple[float, str, str]], framing: Framing, mode: str, speed: float
+) -> Iterator[PlaybackPort]:
+    """Play ``entries`` (see :func:`parse_log`) on a real pseudo-terminal, in this process; the
+    pty is closed on the way out.
+
+    In query mode at speed 0, where every recorded answer follows its command at once, the
+    commands are answered in the caller's own thread, each as soon as it is written (the
+    transport of :meth:`PlaybackPort.transport`): the driver still writes each command to the
+    pty and reads the answer's bytes from it, with no thread to wake and no wait between.
+    Otherwise (pushed lines, or a recorded pace to keep) a thread serves the pty, as
+    ``chargebook simulate --playback`` serves it from a process of its own.
+    """
+    from chargebook.drivers_generic.simulator.serial_server import PtyServer
+
+    responder = PlaybackResponder(list(entries), mode, speed)
+    in_turn = mode == "query" and speed == 0
+    with tempfile.TemporaryDirectory(prefix="chargebook-playback-") as directory:
+        server = PtyServer(responder, framing, Path(directory) / "electrometer")
+        if in_turn:
+            server.open()
+        else:
+            server.start()
+        try:
+            answer = (lambda: server.answer_waiting(COMMAND_THROUGH_S)) if in_turn else None
+            yield PlaybackPort(server.link_path, answer)
+        finally:
+            server.stop()
+
+
+class AnsweredTransport(SerialTransport):
+    """A serial transport after each of whose writes the playback answers, in this thread."""
+
+    def __init__(self, *args: Any, answer: Callable[[], None], **keywords: Any) -> None:
+        super().__init__(*args, **keywords)
+        self._answer = answer
+
+    def _write(self, data: bytes) -> None:
+        super()._write(data)
+        self._answer()
 
 
 class TrafficRecorder:

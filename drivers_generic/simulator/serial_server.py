@@ -61,6 +61,26 @@ class PtyServer:
         self._open_pty()
         self._thread.start()
 
+    def open(self) -> None:
+        """Open the pty and create the symlink, with no serving thread: the caller answers
+        each command itself, with :meth:`answer_waiting` (no pushed lines, no drops)."""
+        self._open_pty()
+
+    def answer_waiting(self, wait_s: float) -> None:
+        """Answer the command lines written to the port, waiting up to ``wait_s`` for them to
+        come through the pty, until no part of a line is left unanswered."""
+        master = self._master
+        if master is None:
+            return
+        deadline = time.monotonic() + wait_s
+        while True:
+            ready, _, _ = select.select([master], [], [], max(deadline - time.monotonic(), 0.0))
+            if not ready:
+                return
+            self._receive(os.read(master, 4096))
+            if not self._buffer:
+                return
+
     def stop(self) -> None:
         """Stop serving, close the pty and remove the symlink."""
         self._stop.set()

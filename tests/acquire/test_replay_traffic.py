@@ -10,6 +10,7 @@ import json
 from pathlib import Path
 
 import pytest
+from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.pipeline import same_command
 from chargebook.acquire.replay.recording import RecordedLine, Recording, load_recording
@@ -163,20 +164,44 @@ def test_the_follower_stamps_each_line_with_its_recorded_time_and_writes_it():
 
 
 def test_the_follower_writes_its_lines_a_batch_at_a_time_and_names_the_last_received():
-    # One statement per batch, not per line: nothing is written until the lines are flushed
-    # (before anything else is written) or the id of the line a sample came from is asked.
+    # One statement per batch, not per line: nothing is written until the store is about to
+    # write anything else (the lines then come first in the chain) or the lines are flushed;
+    # the id of the line a sample came from is known before it is written, and is its id.
     store, session_id, follower = attached_follower()
     for line in LINES[:3]:  # BIAS, OK, Q?: the latest received line is the OK
         follower(TrafficDirection(line.direction), follower.clock(), line.raw)
-    assert store.traffic(session_id) == []
     received_id = follower.last_received_id
+    assert store.traffic(session_id) == []
+    detail = {"replay_of": 1, "speed": 0.0, "traffic_log": None, "plan": None, "thresholds": None}
+    event_id = store.add_event(session_id, "replay", EventKind.REPLAY, detail)
     rows = store.traffic(session_id)
     assert [r.line for r in rows] == [line.raw for line in LINES[:3]]
     assert received_id == rows[1].id and rows[1].line == b"OK\r\n"
+    seq = "SELECT max(chain_seq) FROM {} WHERE session_id = ?"
+    lines_seq = store.conn.execute(seq.format("traffic"), (session_id,)).fetchone()[0]
+    event_seq = store.conn.execute(
+        "SELECT chain_seq FROM events WHERE id = ?", (event_id,)
+    ).fetchone()[0]
+    assert lines_seq < event_seq  # the lines came first in the chain, as they came first
     follower(TrafficDirection.RECEIVED, follower.clock(), LINES[3].raw)
-    assert follower.last_received_id == store.traffic(session_id)[3].id
+    received_id = follower.last_received_id
+    follower.detach()
+    assert received_id == store.traffic(session_id)[3].id
+    assert store.before_write is None
     follower.flush()  # nothing left: writes nothing more
     assert len(store.traffic(session_id)) == len(LINES)
+
+
+def test_the_follower_refuses_to_go_on_when_something_else_wrote_raw_lines():
+    # Row ids are counted, not asked: a raw line written by anyone else would shift them, and
+    # a sample would name the wrong line; the replay stops instead.
+    store, session_id, follower = attached_follower()
+    follower(TrafficDirection(LINES[0].direction), follower.clock(), LINES[0].raw)
+    follower.store = None  # write one line as another writer would, around the follower
+    store.add_traffic_many([(session_id, 0.0, store.stamp(), "rx", b"X\r\n")])
+    follower.store = store
+    with pytest.raises(RuntimeError, match="something else wrote raw lines"):
+        follower.flush()
 
 
 def test_the_follower_stops_a_replay_at_the_first_line_that_differs():

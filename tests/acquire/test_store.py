@@ -463,6 +463,19 @@ def test_a_burst_of_raw_lines_is_recorded_in_order_with_the_stamps_given(store: 
     ]
 
 
+def test_a_few_raw_lines_are_read_by_id_and_only_from_their_own_session(store: Store) -> None:
+    session_id, _ = _session_with_set(store)
+    other_id, _ = _session_with_set(store)
+    lines = [(session_id, float(i), store.stamp(), "rx", f"{i}\n".encode()) for i in range(600)]
+    store.add_traffic_many([*lines, (other_id, 0.0, store.stamp(), "rx", b"other\n")])
+    rows = store.traffic(session_id)
+    other_line = store.traffic(other_id)[0].id
+    wanted = [rows[3].id, rows[599].id, rows[3].id, other_line, 10**6]
+    assert store.traffic_lines(session_id, wanted) == {rows[3].id: b"3\n", rows[599].id: b"599\n"}
+    every = store.traffic_lines(session_id, [row.id for row in rows])  # more than one chunk
+    assert every == {row.id: row.line for row in rows}
+
+
 def test_the_quick_stamp_is_the_iso_text_of_now() -> None:
     slack = timedelta(microseconds=1)  # the two clocks may round the same instant apart
     before = datetime.now(UTC)

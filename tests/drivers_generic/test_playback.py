@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import subprocess
 import sys
+import threading
+import time
 
 import pytest
 from chargebook.drivers_generic import load_profile, open_electrometer
@@ -165,3 +167,36 @@ def test_a_log_line_just_within_the_bound_is_read(tmp_path):
     body = "9" * (MAX_LOG_LINE_BYTES - len(head) - len(tail))
     path.write_text(head + body + tail)
     assert read_log(path) == [(1.0, "rx", body)]
+
+
+@pytest.mark.parametrize(("speed", "in_turn"), [(0.0, True), (1e6, False)])
+def test_a_playback_port_in_this_process_answers_the_real_driver_over_a_real_pty(speed, in_turn):
+    # Query mode at speed 0: each command is answered in the caller's own thread as it is
+    # written (no serving thread); at a recorded pace a thread serves the pty. Either way the
+    # driver writes to a real pty and parses the recorded answer's bytes from it.
+    from chargebook.drivers_generic.driver import ProfileElectrometer
+    from chargebook.drivers_generic.simulator.playback import playback_port
+
+    profile = load_profile("query-plain")
+    seen: list[tuple[str, bytes]] = []
+    entries = [(0.0, "tx", "Q?"), (0.1, "rx", "Q +1.2500 nC A"), (0.2, "tx", "Q?")]
+    entries.append((0.3, "rx", "Q -0.5000 nC A"))
+    threads_before = threading.active_count()
+    with playback_port(entries, profile.framing, profile.mode, speed) as port:
+        assert (port.answer is not None) == in_turn
+        assert (threading.active_count() == threads_before) == in_turn
+        assert port.path.resolve().is_char_device()  # a real terminal device
+        traffic = lambda direction, t_s, raw: seen.append((direction.value, bytes(raw)))  # noqa: E731
+        driver = ProfileElectrometer(profile, port.transport(profile, traffic, time.monotonic))
+        driver.open()
+        try:
+            charges = [driver.read_charge().charge_nC for _ in range(2)]
+        finally:
+            driver.close()
+    assert charges == [1.25, -0.5]
+    assert [line for _, line in seen] == [
+        b"Q?\r\n",
+        b"Q +1.2500 nC A\r\n",
+        b"Q?\r\n",
+        b"Q -0.5000 nC A\r\n",
+    ]

@@ -627,6 +627,85 @@ def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_mark
     assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
 
 
+# ------------------------------------------------------------------- several in one run
+def replay_many(db: Path, *arguments: str) -> subprocess.CompletedProcess:
+    command = chargebook_command("replay", *arguments, "--db", str(db), "--speed", "0", "--json")
+    return subprocess.run(command, capture_output=True, text=True, timeout=300, check=False)
+
+
+def test_several_sessions_replay_in_one_run_each_stored_and_one_refused_stops_no_other(
+    station: Station,
+):
+    db = copy_of(station, "several.sqlite")
+    done = replay_many(db, str(station.clean), "999", str(station.redone))
+    assert done.returncode == 2, done.stderr  # session 999 cannot be used; the others ran
+    report = json.loads(done.stdout)
+    assert [s["original_session_id"] for s in report["sessions"]] == [
+        station.clean,
+        999,
+        station.redone,
+    ]
+    clean, missing, redone = report["sessions"]
+    assert "no session with id 999" in missing["error"] and missing["exit_status"] == 2
+    assert report["replayed"] == 2 and report["reproduced"] is False
+    with Store.open(db, read_only=True) as store:
+        for original_id, said in ((station.clean, clean), (station.redone, redone)):
+            assert said["reproduced"] is True and said["exit_status"] == 0
+            replay_id = said["replay_session_id"]
+            assert store.session(replay_id).replay_of == original_id
+            assert readings_by_set(store, replay_id) == readings_by_set(store, original_id)
+            fed_from_the_input_log(store, original_id, replay_id)
+
+
+def test_a_visit_replays_its_sessions_in_the_order_measured_in_one_run(station: Station):
+    from chargebook.acquire.record import visits
+
+    db = copy_of(station, "visit.sqlite")
+    measured = (station.pushed, station.clean)  # the order the beams were measured in
+    with Store.open(db) as store:  # a visit of two beams, through the store's API
+        visit_id = visits.create_visit(store, "DEMO-LA1", {"operator": "test"})
+        for number, session_id in enumerate(measured, 1):
+            beam = visits.add_beam(store, visit_id, f"beam {number}", "quick", {})
+            visits.link_session(store, visit_id, beam, session_id)
+    done = replay_many(db, "--visit", str(visit_id))
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout)
+    assert report["visit_id"] == visit_id and report["reproduced"] is True
+    assert [s["original_session_id"] for s in report["sessions"]] == list(measured)
+    with Store.open(db, read_only=True) as store:
+        for said in report["sessions"]:
+            replay_id, original_id = said["replay_session_id"], said["original_session_id"]
+            assert readings_by_set(store, replay_id) == readings_by_set(store, original_id)
+    text = subprocess.run(
+        chargebook_command("replay", "--visit", str(visit_id), "--db", str(db), "--dry-run",
+                           "--speed", "0"),
+        capture_output=True, text=True, timeout=300, check=False,
+    )  # fmt: skip
+    assert text.returncode == 0, text.stderr
+    assert f"visit {visit_id}: 2 session(s), 2 replayed, 2 reproduced exactly" in text.stdout
+    assert "qualified medical physicist" in text.stdout
+
+
+@pytest.mark.parametrize(
+    ("arguments", "named"),
+    [
+        ([], "SESSION"),
+        (["1", "--visit", "1"], "--visit"),
+        (["--visit", "99"], "no visit with id 99"),
+        (["1", "2", "--traffic-log", "x.jsonl"], "--traffic-log"),
+        (["1", "2", "--write-traffic-log", "x.jsonl"], "--write-traffic-log"),
+    ],
+)
+def test_a_request_for_several_sessions_that_cannot_be_used_is_refused_naming_it(
+    station: Station, capsys, arguments, named
+):
+    before = file_state(station.db)
+    status = main(["replay", *arguments, "--db", str(station.db), "--speed", "0"])
+    captured = capsys.readouterr()
+    assert status == 2 and named in captured.err and captured.out == ""
+    assert file_state(station.db) == before
+
+
 # ---------------------------------------------------------------------------- bad requests
 def replay_in_process(capsys, db: Path, session_id: int, *options: str) -> tuple[int, str]:
     """Run `chargebook replay` in this process (for refusals, which start nothing)."""
