@@ -16,6 +16,7 @@ from chargebook.drivers_generic.interface import (
     InstrumentReportedError,
     ProtocolError,
     ReadingStatus,
+    SampleBurst,
     TrafficListeners,
 )
 from chargebook.drivers_generic.transport import ScriptedTransport
@@ -77,43 +78,40 @@ def _driver(profile_name: str, chunks: list[bytes], recorder: Recorder, *, burst
 
 def one_by_one(profile_name: str, chunks: list[bytes]):
     """Return (samples, rejected messages, refusals, traffic) read with next_sample."""
+    return _read_all(profile_name, chunks, bursts=False)
+
+
+def by_bursts(profile_name: str, chunks: list[bytes]):
+    """Return (samples, rejected messages, refusals, traffic) read with read_samples."""
+    return _read_all(profile_name, chunks, bursts=True)
+
+
+def _read_all(profile_name: str, chunks: list[bytes], *, bursts: bool):
     recorder = Recorder()
-    driver = _driver(profile_name, chunks, recorder, bursts=False)
+    driver = _driver(profile_name, chunks, recorder, bursts=bursts)
     samples, rejected, refused = [], [], []
     for _ in range(10_000):
         try:
-            sample = driver.next_sample(0.0)
-        except ProtocolError as error:
+            read = driver.read_samples(0.0) if bursts else _one_line(driver)
+        except ProtocolError as error:  # one line at a time only: a burst returns them
             rejected.append((str(error), error.line))
             continue
         except InstrumentReportedError as error:
             refused.append(str(error))
             continue
-        if sample is None:
+        if not read.count:
             break
-        samples.append(sample)
+        assert read.lines is None or len(read.lines) == len(read.samples)
+        samples.extend(read.samples)
+        rejected.extend((str(error), error.line) for error in read.rejected)
     driver.close()
     return samples, rejected, refused, recorder.lines
 
 
-def by_bursts(profile_name: str, chunks: list[bytes]):
-    """Return (samples, rejected messages, refusals, traffic) read with read_samples."""
-    recorder = Recorder()
-    driver = _driver(profile_name, chunks, recorder, bursts=True)
-    samples, rejected, refused = [], [], []
-    for _ in range(10_000):
-        try:
-            burst = driver.read_samples(0.0)
-        except InstrumentReportedError as error:
-            refused.append(str(error))
-            continue
-        if not burst.count:
-            break
-        assert burst.lines is None or len(burst.lines) == len(burst.samples)
-        samples.extend(burst.samples)
-        rejected.extend((str(error), error.line) for error in burst.rejected)
-    driver.close()
-    return samples, rejected, refused, recorder.lines
+def _one_line(driver: ProfileElectrometer) -> SampleBurst:
+    """Return next_sample's answer in the shape of a burst."""
+    sample = driver.next_sample(0.0)
+    return SampleBurst([] if sample is None else [sample], None, [], int(sample is not None))
 
 
 def _stream(profile_name: str, lines: list[str]) -> bytes:
