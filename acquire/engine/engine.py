@@ -32,7 +32,7 @@ import dataclasses
 import datetime
 import logging
 import time
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from typing import Any
@@ -148,8 +148,11 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self.actual_MU: dict[int, float] = {}  # reading id -> MU delivered, when stopped short
-        #: Samples taken since the last input logged, logged with the next one (in order).
-        self._unlogged_samples: list[inputs.Sample] = []
+        #: Samples taken since the last input logged, logged with the next one (in order):
+        #: each an inputs.Sample, or (clock_s, sample, line_id) as :meth:`take_samples` took it.
+        self._unlogged_samples: list[inputs.Sample | tuple[float, Any, int | None]] = []
+        #: How many samples the latest :meth:`take_samples` took (so far, if it raised).
+        self.samples_taken = 0
         self._input_clock_s: float | None = None  # the clock of the input being applied
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Results] | None = None
@@ -307,7 +310,7 @@ class Engine:
     def _log(self, session_id: int | None, given: inputs.Input) -> None:
         """Append ``given`` to the input log, after the samples taken before it."""
         entries = [*self._unlogged_samples, given] if session_id is not None else [given]
-        self.store.add_inputs(session_id, [(e.kind, e.actor, e.fields()) for e in entries])
+        self.store.add_inputs(session_id, [_logged_input(entry) for entry in entries])
         self._unlogged_samples = []
 
     def _now(self) -> float:
@@ -756,6 +759,58 @@ class Engine:
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
         self._unlogged_samples.pop()  # logged as the input of the capture's transaction
+        self._capture_at(sample, captured, before)
+
+    def take_samples(
+        self, samples: Sequence[Any], line_ids: Iterable[int | None], clock_s: float
+    ) -> int:
+        """Take pushed samples in order until one completes the reading: the same state, the
+        same record and the same input log as applying an :class:`inputs.Sample` for each, one
+        at a time, at ``clock_s``, but in one call (a streaming instrument brings thousands a
+        second, nearly all of which only move the charge). Each sample has ``t_s`` (s),
+        ``charge_nC``, ``complete`` and ``status`` (text); ``line_ids`` the row of each one's
+        raw line. Return how many were taken (:attr:`samples_taken` says it too, as they are
+        taken: a capture that fails to be recorded raises, and its sample is not taken).
+        """
+        self.samples_taken = 0
+        reading = self.reading
+        if reading is None:
+            return 0
+        unlogged, feed, armed_t_s = self._unlogged_samples, reading.feed, reading.armed_t_s
+        latest = None
+        for sample, line_id in zip(samples, line_ids, strict=False):
+            before = vars(reading).copy()
+            captured = feed(sample.t_s, sample.charge_nC, sample.complete)
+            if captured is not None:
+                if latest is not None:
+                    self.reading_status = str(latest.status)
+                taken = _sample_input(clock_s, sample, line_id)
+                status, line = self.reading_status, self.sample_line_id
+                self.reading_status = taken.status
+                if sample.t_s >= armed_t_s:
+                    self.sample_line_id = line_id
+                self._capture_at(taken, captured, (before, status, line))
+                self.samples_taken += 1
+                return self.samples_taken
+            unlogged.append((clock_s, sample, line_id))
+            if sample.t_s >= armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
+                self.sample_line_id = line_id
+            latest = sample
+            self.samples_taken += 1
+        if latest is not None:
+            self.reading_status = str(latest.status)
+        return self.samples_taken
+
+    def _capture_at(
+        self,
+        sample: inputs.Sample,
+        captured: Captured,
+        before: tuple[dict[str, Any], str, int | None],
+    ) -> None:
+        """Record the reading ``sample`` completed; if that fails, put the reading, its status
+        and its line back as ``before`` the sample, and raise."""
+        reading = self.reading
+        assert reading is not None
         try:
             self._in_transaction(sample, lambda: self._record_captured(captured))
         except BaseException:  # the sample is not taken: the next one may capture again
@@ -1097,3 +1152,22 @@ __all__ = [
     "Engine",
     "IllegalTransition",
 ]
+
+
+def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sample:
+    """Return the input a pushed sample (as :meth:`Engine.take_samples` takes it) stands for."""
+    return inputs.Sample(
+        t_s=sample.t_s,
+        charge_nC=sample.charge_nC,
+        complete=sample.complete,
+        status=str(sample.status),
+        line_id=line_id,
+        clock_s=clock_s,
+    )
+
+
+def _logged_input(entry: inputs.Input | tuple[float, Any, int | None]) -> tuple[str, str, dict]:
+    """Return (kind, actor, detail) of an input as the log holds it."""
+    if isinstance(entry, tuple):
+        entry = _sample_input(*entry)
+    return entry.kind, entry.actor, entry.fields()
