@@ -67,11 +67,12 @@ class BurstParser:
             if shape is None or not usable
             else re.compile(f"(?:{shape.pattern})(?:\n(?:{shape.pattern}))*", shape.flags)
         )
-        #: A line that is a confirmation (a late ack): such a burst is read line by line.
-        self._ack = None
-        if ack is not None:
-            after, before = f"(?:\\A|(?<={re.escape(end)}))", f"(?={re.escape(end)})"
-            self._ack = re.compile(f"{after}(?:{ack.pattern}){before}", ack.flags)
+        #: A line that is a confirmation (a late ack) sends the burst line by line: ``_ack``
+        #: finds the bursts that may hold one (a quick search), ``ack`` tells for sure.
+        self.ack = ack
+        self._ack = (
+            None if ack is None else re.compile(f"(?:{ack.pattern})(?={re.escape(end)})", ack.flags)
+        )
 
         def group(name: str | None) -> itemgetter | None:
             return itemgetter(groups[name]) if name in groups else None
@@ -92,14 +93,16 @@ class BurstParser:
             return None
         if text.count("\r") + text.count("\n") != count * self.end_chars:
             return None  # a carriage return or line feed inside a line
-        if self._ack is not None and self._ack.search(text) is not None:
-            return None
         found = self._line.findall(text)
         texts = list(map(_TEXT, found))
         # non-overlapping matches, each ending with a terminator, as many as the lines and as
         # long as the text all together: each match is exactly one line
         if len(found) != count or sum(map(len, texts)) + count * self.end_length != len(text):
             return None
+        if self._ack is not None and self._ack.search(text) is not None:
+            assert self.ack is not None
+            if any(map(self.ack.fullmatch, texts)):
+                return None
         values = list(map(self._value, found))
         if self._numbers.fullmatch("\n".join(values)) is None:
             return None
