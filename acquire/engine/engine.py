@@ -32,9 +32,10 @@ import dataclasses
 import datetime
 import logging
 import time
-from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
+from itertools import repeat
 from typing import Any
 
 from chargebook.acquire.engine import driver_commands, inputs
@@ -762,7 +763,7 @@ class Engine:
         self._capture_at(sample, captured, before)
 
     def take_samples(
-        self, samples: Sequence[Any], line_ids: Iterable[int | None], clock_s: float
+        self, samples: Sequence[Any], line_ids: Sequence[int | None], clock_s: float
     ) -> int:
         """Take pushed samples in order until one completes the reading: the same state, the
         same record and the same input log as applying an :class:`inputs.Sample` for each, one
@@ -774,32 +775,26 @@ class Engine:
         """
         self.samples_taken = 0
         reading = self.reading
-        if reading is None:
+        if reading is None or not samples:
             return 0
-        unlogged, feed, armed_t_s = self._unlogged_samples, reading.feed, reading.armed_t_s
-        latest = None
-        for sample, line_id in zip(samples, line_ids, strict=False):
-            before = vars(reading).copy()
-            captured = feed(sample.t_s, sample.charge_nC, sample.complete)
-            if captured is not None:
-                if latest is not None:
-                    self.reading_status = str(latest.status)
-                taken = _sample_input(clock_s, sample, line_id)
-                status, line = self.reading_status, self.sample_line_id
-                self.reading_status = taken.status
-                if sample.t_s >= armed_t_s:
-                    self.sample_line_id = line_id
-                self._capture_at(taken, captured, (before, status, line))
-                self.samples_taken += 1
-                return self.samples_taken
-            unlogged.append((clock_s, sample, line_id))
-            if sample.t_s >= armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
-                self.sample_line_id = line_id
-            latest = sample
-            self.samples_taken += 1
-        if latest is not None:
-            self.reading_status = str(latest.status)
-        return self.samples_taken
+        fed, captured, before = reading.feed_run(samples)
+        kept = fed - 1 if captured is not None else fed  # the one that completed it is logged
+        # with its capture, after the ones that only moved the charge
+        self._unlogged_samples.extend(zip(repeat(clock_s), samples[:kept], line_ids, strict=False))
+        status, line_id = self.reading_status, self.sample_line_id
+        if kept:
+            status = str(samples[kept - 1].status)
+            line_id = _latest_line(samples, line_ids, kept, reading.armed_t_s, line_id)
+        self.samples_taken = kept
+        if captured is None:
+            self.reading_status, self.sample_line_id = status, line_id
+            return kept
+        taken = _sample_input(clock_s, samples[kept], line_ids[kept])
+        self.reading_status = taken.status
+        self.sample_line_id = taken.line_id if taken.t_s >= reading.armed_t_s else line_id
+        self._capture_at(taken, captured, (before, status, line_id))
+        self.samples_taken = fed
+        return fed
 
     def _capture_at(
         self,
@@ -1154,6 +1149,21 @@ __all__ = [
 ]
 
 
+def _latest_line(
+    samples: Sequence[Any],
+    line_ids: Sequence[int | None],
+    count: int,
+    armed_t_s: float,
+    otherwise: int | None,
+) -> int | None:
+    """Return the line of the latest of the first ``count`` samples that is not stale (from
+    before ``armed_t_s``); ``otherwise`` when all are."""
+    for index in range(count - 1, -1, -1):
+        if samples[index].t_s >= armed_t_s:
+            return line_ids[index]
+    return otherwise
+
+
 def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sample:
     """Return the input a pushed sample (as :meth:`Engine.take_samples` takes it) stands for."""
     return inputs.Sample(
@@ -1167,7 +1177,17 @@ def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sa
 
 
 def _logged_input(entry: inputs.Input | tuple[float, Any, int | None]) -> tuple[str, str, dict]:
-    """Return (kind, actor, detail) of an input as the log holds it."""
-    if isinstance(entry, tuple):
-        entry = _sample_input(*entry)
-    return entry.kind, entry.actor, entry.fields()
+    """Return (kind, actor, detail) of an input as the log holds it: a sample kept as
+    (clock_s, sample, line_id) is logged as its :class:`inputs.Sample` would be."""
+    if not isinstance(entry, tuple):
+        return entry.kind, entry.actor, entry.fields()
+    clock_s, sample, line_id = entry
+    detail = {
+        "clock_s": clock_s,
+        "t_s": sample.t_s,
+        "charge_nC": sample.charge_nC,
+        "complete": sample.complete,
+        "status": str(sample.status),
+        "line_id": line_id,
+    }
+    return inputs.Sample.kind, DAEMON_ACTOR, detail

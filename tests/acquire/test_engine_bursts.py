@@ -14,6 +14,7 @@ import re
 from datetime import UTC, datetime
 
 from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine.capture import CaptureSettings, ReadingCapture
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic.interface import Capability, ReadingStatus, Sample
@@ -142,3 +143,38 @@ def test_a_burst_that_completes_a_reading_records_it_and_stops_there():
     assert (reading.charge_nC, reading.capture) == (20.1, "pushed")
     logged = [row for row in engine.store.inputs(engine.session_id) if row.kind == "sample"]
     assert len(logged) == 12  # the eleven that only moved the charge, then the one that ended it
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    timed_s=st.sampled_from([None, 0.5, 2.0]),
+    baseline_nC=st.sampled_from([None, 0.0]),
+    stream=st.lists(
+        st.tuples(
+            st.sampled_from([0.0, 0.05, 0.3, 1.2, -50.0]),
+            st.sampled_from([0.0, 0.01, 5.0, 20.0, 20.001, -20.0]),
+            st.sampled_from([False] * 6 + [True]),
+        ),
+        max_size=40,
+    ),
+)
+def test_a_run_fed_to_a_capture_leaves_what_feeding_one_at_a_time_leaves(
+    timed_s, baseline_nC, stream
+):
+    # a timed integration (leakage, no beam) or a beam reading, from a zeroed integrator or not
+    settings_ = CaptureSettings(hold_s=1.0)
+    one = ReadingCapture(settings_, 100.0, timed_s=timed_s, baseline_nC=baseline_nC)
+    run = ReadingCapture(settings_, 100.0, timed_s=timed_s, baseline_nC=baseline_nC)
+    t_s, samples = 100.0, []
+    for dt, charge_nC, complete in stream:
+        t_s += max(dt, 0.0)
+        samples.append(Sample(t_s + min(dt, 0.0), charge_nC, ReadingStatus.OK, complete, ""))
+    captured, fed = None, 0
+    for sample in samples:
+        before = dict(vars(one))
+        fed += 1
+        captured = one.feed(sample.t_s, sample.charge_nC, sample.complete)
+        if captured is not None:
+            break
+    assert run.feed_run(samples) == (fed, captured, before if captured else {})
+    assert vars(run) == vars(one)
