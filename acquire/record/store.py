@@ -524,12 +524,17 @@ def _json_object(text: str) -> dict[str, Any]:
     return loaded
 
 
+#: What :func:`_to_json` writes with: ``json.dumps(value, sort_keys=True, allow_nan=False,
+#: ensure_ascii=False)``, the encoder made once (dumps makes one a call given these options).
+_JSON = json.JSONEncoder(sort_keys=True, allow_nan=False, ensure_ascii=False)
+
+
 def _to_json(field: str, value: object) -> str:
     allowed = "a dict of JSON values with finite numbers"
     if not isinstance(value, dict):
         raise InputError(field, value, allowed, "is not a dict")
     try:
-        return json.dumps(value, sort_keys=True, allow_nan=False, ensure_ascii=False)
+        return _JSON.encode(value)
     except (TypeError, ValueError) as error:
         raise InputError(field, value, allowed, f"cannot be stored as JSON ({error})") from None
 
@@ -1525,7 +1530,7 @@ class Store:
             for offset, row in enumerate(rows):
                 values = (next_id + offset, *row)
                 seq += 1
-                digest = chain.link(digest, seq, "inputs", values)
+                digest = chain.link_input(digest, seq, values)
                 chained.append((*values, seq, digest))
             self.conn.executemany(_INSERT_CHAINED["inputs"], chained)
             self._set_next_id("inputs", next_id + len(chained))

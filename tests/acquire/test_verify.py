@@ -370,3 +370,16 @@ def test_lines_kept_a_burst_at_a_time_show_an_edit_a_deletion_or_an_insertion(
     problems = _problems(path, session_id)
     assert problems and any(p[0] == "traffic" for p in problems)
     assert all(said in p[2] for p in problems if p[0] == "traffic")
+
+
+@pytest.mark.parametrize(
+    "values",
+    [
+        (7, 3, "2026-12-03T06:11:37.123456+00:00", "sample", "daemon", '{"t_s": 1.5}', None),
+        (8, None, "x", "note", "operator Ä", '{"text": "a \\"quoted\\" \\\\ é\\u001b"}', "u"),
+        (9, 3, "x", "k\n", "a\x00b", "{}", "account\ttab"),
+        (10, True, "x", "k", "a", "{}", None),  # not an id: the general path
+    ],
+)
+def test_the_fast_input_link_hashes_the_same_bytes_as_the_general_one(values: tuple) -> None:
+    assert chain.link_input("e" * 64, 4, values) == chain.link("e" * 64, 4, "inputs", values)
