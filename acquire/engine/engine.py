@@ -760,7 +760,12 @@ class Engine:
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
         self._unlogged_samples.pop()  # logged as the input of the capture's transaction
-        self._capture_at(sample, captured, before)
+        try:
+            self._in_transaction(sample, lambda: self._record_captured(captured))
+        except BaseException:  # the sample is not taken: the next one may capture again
+            vars(reading).update(before[0])
+            self.reading_status, self.sample_line_id = before[1], before[2]
+            raise
 
     def take_samples(
         self, samples: Sequence[Any], line_ids: Sequence[int | None], clock_s: float
@@ -789,29 +794,13 @@ class Engine:
         if captured is None:
             self.reading_status, self.sample_line_id = status, line_id
             return kept
-        taken = _sample_input(clock_s, samples[kept], line_ids[kept])
-        self.reading_status = taken.status
-        self.sample_line_id = taken.line_id if taken.t_s >= reading.armed_t_s else line_id
-        self._capture_at(taken, captured, (before, status, line_id))
+        # the sample that completes the reading is applied as one input, from the state
+        # before it: its capture is recorded (or refused) exactly as apply records one
+        vars(reading).update(before)
+        self.reading_status, self.sample_line_id = status, line_id
+        self.apply(_sample_input(clock_s, samples[kept], line_ids[kept]))
         self.samples_taken = fed
         return fed
-
-    def _capture_at(
-        self,
-        sample: inputs.Sample,
-        captured: Captured,
-        before: tuple[dict[str, Any], str, int | None],
-    ) -> None:
-        """Record the reading ``sample`` completed; if that fails, put the reading, its status
-        and its line back as ``before`` the sample, and raise."""
-        reading = self.reading
-        assert reading is not None
-        try:
-            self._in_transaction(sample, lambda: self._record_captured(captured))
-        except BaseException:  # the sample is not taken: the next one may capture again
-            vars(reading).update(before[0])
-            self.reading_status, self.sample_line_id = before[1], before[2]
-            raise
 
     def _record_captured(self, captured: Captured) -> None:
         """Record a captured reading and all that follows from it."""
