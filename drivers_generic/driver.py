@@ -22,6 +22,7 @@ from collections import deque
 from collections.abc import Callable
 from typing import TypeVar
 
+from chargebook.drivers_generic.burst import BurstParser
 from chargebook.drivers_generic.interface import (
     Capability,
     Identity,
@@ -30,10 +31,11 @@ from chargebook.drivers_generic.interface import (
     NotSupported,
     ProtocolError,
     Sample,
+    SampleBurst,
 )
 from chargebook.drivers_generic.lines import decode_line, parse_identity, parse_reading
 from chargebook.drivers_generic.profile import COMMAND_CAPABILITY, CommandSpec, Profile
-from chargebook.drivers_generic.transport import ReceivedLine, Transport
+from chargebook.drivers_generic.transport import ReceivedBurst, ReceivedLine, Transport
 
 T = TypeVar("T")
 
@@ -47,6 +49,10 @@ SLOW_WINDOW = 20
 MAX_STALE_LINES = 1000
 #: The most command lines kept framed for sending again (commands with arguments vary).
 MAX_FRAMES_KEPT = 64
+
+
+#: What a read that brought nothing in time returns.
+_NOTHING = SampleBurst([], None, [], 0)
 
 
 class _NoReply(Exception):
@@ -66,10 +72,13 @@ class ProfileElectrometer:
         self.profile = profile
         self.transport = transport
         self.clock = clock
-        self._pending: deque[Sample | ProtocolError] = deque()
+        self._pending: deque[Sample | ProtocolError | InstrumentReportedError] = deque()
         self._rendered: dict[str, list[str]] = {}  # commands without arguments, rendered
         self._frames: dict[str, bytes] = {}  # lines as sent: encoded, terminated, once each
         self._push = profile.mode == "push"
+        self._burst = BurstParser(
+            profile.reading, profile.framing, profile.confirmation.ack_pattern
+        )
         #: The read query when it is one line without arguments (the common case), or None.
         self._read_query = self._single_line("read")
         #: The latest answers: seconds each took, or None for a late answer set aside.
@@ -137,6 +146,26 @@ class ProfileElectrometer:
             sample = self._pushed(line)
             if sample is not None:
                 return sample
+
+    def read_samples(self, timeout_s: float) -> SampleBurst:
+        """Return the reading lines the instrument sent unasked that one read brings, waiting
+        up to ``timeout_s`` for the first: a whole burst parsed in one pass when it is plainly
+        a run of readings (:class:`BurstParser`), else line by line as :meth:`next_sample`
+        reads them. Samples kept while a command was answered come first, in a burst of their
+        own; a refusal the instrument pushed (InstrumentReportedError) is raised in its turn.
+        """
+        if self._pending:
+            return self._pending_burst()
+        try:
+            burst = self.transport.read_burst(timeout_s)
+        except ProtocolError as error:  # an over-long line, refused on its own
+            return SampleBurst([], None, [error], 1)
+        if burst is None:
+            return _NOTHING
+        samples = self._burst.parse(burst.data, burst.count, burst.t_s)
+        if samples is not None:
+            return SampleBurst(samples, None, [], burst.count)
+        return self._burst_by_line(burst)
 
     def set_bias(self, volts: float) -> None:
         """Set the chamber bias in volts, signed; refused outside the profile's limits."""
@@ -420,8 +449,59 @@ class ProfileElectrometer:
         self._pending.append(sample)
         return True
 
+    def _burst_by_line(self, burst: ReceivedBurst) -> SampleBurst:
+        """Parse a burst line by line (see :meth:`read_samples`); a refusal the instrument
+        pushed ends the burst: it and the lines after it are kept for the next call."""
+        samples: list[Sample] = []
+        places: list[int] = []
+        rejected: list[ProtocolError] = []
+        terminator = self.profile.framing.read_terminator
+        lines = burst.data.split(terminator)[: burst.count]
+        for place, raw in enumerate(lines):
+            try:
+                sample = self._pushed(ReceivedLine(burst.t_s, raw))
+            except ProtocolError as error:
+                rejected.append(error)
+                continue
+            except InstrumentReportedError as error:
+                self._pending.append(error)
+                for rest in lines[place + 1 :]:
+                    self._keep_pushed(ReceivedLine(burst.t_s, rest))
+                break
+            if sample is not None:
+                samples.append(sample)
+                places.append(place)
+        return SampleBurst(samples, places, rejected, burst.count)
+
+    def _keep_pushed(self, line: ReceivedLine) -> None:
+        """Keep what a pushed line holds for later: its sample, or the error it raises."""
+        try:
+            sample = self._pushed(line)
+        except (ProtocolError, InstrumentReportedError) as error:
+            self._pending.append(error)
+            return
+        if sample is not None:
+            self._pending.append(sample)
+
+    def _pending_burst(self) -> SampleBurst:
+        """Return the samples and refused lines kept earlier, up to the first refusal the
+        instrument sent (raised when it comes first)."""
+        samples: list[Sample] = []
+        rejected: list[ProtocolError] = []
+        pending = self._pending
+        while pending:
+            item = pending[0]
+            if isinstance(item, InstrumentReportedError):
+                if samples or rejected:
+                    break
+                pending.popleft()
+                raise item
+            pending.popleft()
+            (rejected if isinstance(item, ProtocolError) else samples).append(item)
+        return SampleBurst(samples, [-1] * len(samples), rejected, len(samples) + len(rejected))
+
     def _unqueue(self) -> Sample:
         item = self._pending.popleft()
-        if isinstance(item, ProtocolError):
+        if isinstance(item, ProtocolError | InstrumentReportedError):
             raise item
         return item

@@ -11,7 +11,7 @@ A capability the instrument lacks is declared absent, never faked: calling the m
 from __future__ import annotations
 
 import enum
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import NamedTuple, Protocol, runtime_checkable
 
@@ -63,8 +63,40 @@ class TrafficDirection(enum.StrEnum):
 
 
 #: Called by the transport for every line sent or received, before it is parsed:
-#: (direction, t_s, raw bytes including terminators as far as they were seen).
+#: (direction, t_s, raw bytes including terminators as far as they were seen). A listener that
+#: also has a ``burst`` attribute (a :data:`TrafficBurstListener`) is told the lines one read
+#: brought in one call instead: see :class:`TrafficListeners`.
 TrafficListener = Callable[[TrafficDirection, float, bytes], None]
+#: Told the lines one read brought, in one call: (direction, t_s they arrived at, the raw bytes
+#: of each line, terminator included), in order.
+TrafficBurstListener = Callable[[TrafficDirection, float, Sequence[bytes]], None]
+
+
+class TrafficListeners:
+    """A :data:`TrafficListener` that is told single lines by ``one`` and the lines of one read
+    together by ``burst`` (a streaming instrument's lines, thousands a second)."""
+
+    __slots__ = ("burst", "one")
+
+    def __init__(self, one: TrafficListener, burst: TrafficBurstListener) -> None:
+        self.one = one
+        self.burst = burst
+
+    def __call__(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        self.one(direction, t_s, raw)
+
+
+class SampleBurst(NamedTuple):
+    """The pushed lines one read brought: ``samples`` in order; ``lines`` the place of each
+    sample's line among the lines the read recorded as traffic (None: one sample a line, in
+    order; -1: a sample read earlier, kept while a command was answered); ``rejected`` the
+    lines refused, as the ProtocolError each raised; ``count`` how many lines were read (0:
+    nothing arrived in time)."""
+
+    samples: list[Sample]
+    lines: list[int] | None
+    rejected: list[ProtocolError]
+    count: int
 
 
 class InstrumentError(Exception):
@@ -147,6 +179,10 @@ class Electrometer(Protocol):
 
     def next_sample(self, timeout_s: float) -> Sample | None:
         """Return the next pushed sample (stream / push-readings mode), or None on timeout."""
+
+    def read_samples(self, timeout_s: float) -> SampleBurst:
+        """Return the pushed samples one read brings, waiting up to ``timeout_s`` for the first
+        line (stream / push-readings mode); raises an InstrumentError the instrument sent."""
 
     def set_bias(self, volts: float) -> None:
         """Set the chamber bias in volts, signed. Raises NotSupported without SET_BIAS."""

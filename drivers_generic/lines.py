@@ -16,7 +16,7 @@ from chargebook.drivers_generic.interface import Identity, ProtocolError, Readin
 from chargebook.drivers_generic.profile import CHARGE_UNITS_IN_nC, IdentityFormat, ReadingFormat
 
 _MANTISSA = r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)"
-_NUMBER_SHAPES = {
+NUMBER_SHAPES = {
     "plain": re.compile(_MANTISSA, re.ASCII),
     "exponent": re.compile(_MANTISSA + r"(?:[eE][+-]?[0-9]{1,4})?", re.ASCII),
     "engineering": re.compile(f"(?P<mantissa>{_MANTISSA})(?P<suffix>[fpnumk]?)", re.ASCII),
@@ -47,7 +47,7 @@ def decode_line(raw: bytes, encoding: str) -> str:
 
 def parse_number(text: str, number_format: str, raw: bytes = b"") -> float:
     """Return the finite number written in ``text`` (plain, exponent, or engineering suffix)."""
-    match = _NUMBER_SHAPES[number_format].fullmatch(text)
+    match = NUMBER_SHAPES[number_format].fullmatch(text)
     if match is None:
         raise ProtocolError(f"{text!r} is not a {number_format} number", raw)
     if number_format == "engineering":

@@ -15,14 +15,16 @@ as fast as it arrives.
 from __future__ import annotations
 
 import logging
+import re
 import time
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Iterable, Sequence
-from typing import NamedTuple
+from typing import NamedTuple, TypeVar
 
 from chargebook.drivers_generic.interface import (
     InstrumentDisconnected,
     ProtocolError,
+    TrafficBurstListener,
     TrafficDirection,
     TrafficListener,
 )
@@ -30,12 +32,23 @@ from chargebook.drivers_generic.profile import Framing
 
 wire_log = logging.getLogger("chargebook.drivers_generic.wire")
 
+T = TypeVar("T")
+
 
 class ReceivedLine(NamedTuple):
     """One line as received: ``t_s`` on the transport's clock, ``raw`` without its terminator."""
 
     t_s: float
     raw: bytes
+
+
+class ReceivedBurst(NamedTuple):
+    """The complete lines one read brought: ``t_s`` on the transport's clock (they arrived
+    together), ``data`` the ``count`` lines as received, each with its terminator."""
+
+    t_s: float
+    data: bytes
+    count: int
 
 
 class Transport(ABC):
@@ -51,11 +64,14 @@ class Transport(ABC):
     ) -> None:
         self.framing = framing
         self.traffic = traffic
+        #: Told a burst of lines in one call when the listener offers it (see TrafficListener).
+        self.traffic_burst: TrafficBurstListener | None = getattr(traffic, "burst", None)
         self.clock = clock
         self.name = name
         self._buffer = bytearray()
         self._discarding = False
         self._open_now = False
+        self._line_cutter: tuple[bytes, re.Pattern[bytes]] | None = None
 
     # -- what subclasses implement -------------------------------------------------------------
     @abstractmethod
@@ -122,12 +138,26 @@ class Transport(ABC):
         Raises ProtocolError (carrying the first ``max_line_bytes`` bytes) for an over-long line,
         and InstrumentDisconnected when the wire goes away.
         """
+        return self._read(timeout_s, self._take_line)
+
+    def read_burst(self, timeout_s: float) -> ReceivedBurst | None:
+        """Return every complete line received so far, waiting up to ``timeout_s`` seconds for
+        the first (None on timeout): framed, checked and recorded as traffic in one pass.
+
+        Raises as :meth:`read_line` does; an over-long line is refused on its own, the lines
+        before it come first in a burst of their own.
+        """
+        return self._read(timeout_s, self._take_burst)
+
+    def _read(self, timeout_s: float, take: Callable[[], T | None]) -> T | None:
+        """Return what ``take`` cuts from the received bytes, reading more for up to
+        ``timeout_s`` seconds while it cuts nothing."""
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
         if self._buffer:
-            line = self._take_line()
-            if line is not None:
-                return line
+            taken = take()
+            if taken is not None:
+                return taken
         remaining = timeout_s if timeout_s > 0 else 0.0
         deadline = time.monotonic() + remaining
         while True:
@@ -138,9 +168,9 @@ class Transport(ABC):
                 raise
             if chunk:
                 self._buffer += chunk
-                line = self._take_line()
-                if line is not None:
-                    return line
+                taken = take()
+                if taken is not None:
+                    return taken
             elif chunk is None or remaining <= 0:
                 return None
             remaining = max(deadline - time.monotonic(), 0.0)
@@ -182,6 +212,39 @@ class Transport(ABC):
             if end > limit:
                 raise ProtocolError(f"line longer than {limit} bytes", data[:limit])
             return ReceivedLine(t_s, data[:end])
+
+    def _take_burst(self) -> ReceivedBurst | None:
+        terminator = self.framing.read_terminator
+        buffer = self._buffer
+        end = -1 if self._discarding else buffer.rfind(terminator)
+        if end >= 0:
+            data = bytes(buffer[: end + len(terminator)])
+            lines = self._lines_of(data)
+            if max(map(len, lines)) <= self.framing.max_line_bytes + len(terminator):
+                del buffer[: len(data)]
+                return ReceivedBurst(self._record_burst(lines), data, len(lines))
+        line = self._take_line()  # an over-long line, or the rest of one being skipped
+        return None if line is None else ReceivedBurst(line.t_s, line.raw + terminator, 1)
+
+    def _lines_of(self, data: bytes) -> list[bytes]:
+        """Return the lines of ``data`` (which ends with a terminator), terminators kept."""
+        terminator = self.framing.read_terminator
+        if self._line_cutter is None or self._line_cutter[0] != terminator:
+            self._line_cutter = (terminator, re.compile(b".*?" + re.escape(terminator), re.S))
+        return self._line_cutter[1].findall(data)
+
+    def _record_burst(self, lines: list[bytes]) -> float:
+        """Record received ``lines`` as traffic, all at one time; return it."""
+        t_s = self.clock()
+        if wire_log.isEnabledFor(logging.DEBUG):
+            for data in lines:
+                wire_log.debug("%s %s %r", self.name, TrafficDirection.RECEIVED.value, data)
+        if self.traffic_burst is not None:
+            self.traffic_burst(TrafficDirection.RECEIVED, t_s, lines)
+        elif self.traffic is not None:
+            for data in lines:
+                self.traffic(TrafficDirection.RECEIVED, t_s, data)
+        return t_s
 
     def _refuse_long_line(self, head: bytes) -> None:
         self._buffer.clear()

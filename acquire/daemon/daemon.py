@@ -27,7 +27,7 @@ import queue
 import threading
 import time
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -56,7 +56,9 @@ from chargebook.drivers_generic.interface import (
     NotSupported,
     ProtocolError,
     Sample,
+    SampleBurst,
     TrafficDirection,
+    TrafficListeners,
 )
 
 log = logging.getLogger(__name__)
@@ -109,9 +111,10 @@ LINES_WAIT_MS = 200
 
 
 class LineRef:
-    """A raw line received from the instrument, kept for the next traffic commit; ``id`` is
-    its row id once committed (None before, or if it could not be recorded). A sample carries
-    the LineRef of the line it was read from, so its reading names that line."""
+    """Raw lines received from the instrument together (one read), kept for the next traffic
+    commit; ``id`` is the row id of the first once committed (the others follow it, one id
+    each; None before, or if they could not be recorded). A sample carries the LineRef of the
+    lines it was read from and its place among them, so its reading names its line."""
 
     __slots__ = ("id",)
 
@@ -121,6 +124,12 @@ class LineRef:
     def written(self, line_id: int | None) -> None:
         """Take the line's row id, as the store tells it (None: not written after all)."""
         self.id = line_id
+
+
+#: Samples read together, handed to the engine together: the samples, and where each one's
+#: raw line is: (LineRef, None) when they are the LineRef's lines one for one, in order, else
+#: (None, [(LineRef or None, place among its lines)] one a sample).
+SampleChunk = tuple[list[Sample], LineRef | None, list[tuple[LineRef | None, int]] | None]
 
 
 @dataclass(frozen=True)
@@ -153,7 +162,7 @@ class InstrumentLink(threading.Thread):
     """The thread that owns the electrometer (see the module docstring).
 
     ``post(kind, payload)`` is called from this thread for ``samples`` ((generation, list of
-    (Sample, LineRef of its raw line or None))), ``connected`` (identity text or None),
+    :data:`SampleChunk`)), ``connected`` (identity text or None),
     ``lost`` (message) and ``fault`` (message).
     ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
     commit; it is called before every ``post`` and after every turn of the thread's loop, so no
@@ -171,12 +180,16 @@ class InstrumentLink(threading.Thread):
         clock: Callable[[], float] = time.monotonic,
         flush: Callable[[], bool] = lambda: True,
         line_of: Callable[[], LineRef | None] = lambda: None,
+        lines_read: Callable[[], list[tuple[LineRef, int]]] = list,
     ) -> None:
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
         self.post = post
         self.flush = flush
         self.line_of = line_of  # the latest line received: the one a sample just read came from
+        #: The LineRefs of the lines received since it was last called, and how many lines each
+        #: stands for (it forgets them as it tells them).
+        self.lines_read = lines_read
         self.bench = bench
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
@@ -295,6 +308,7 @@ class InstrumentLink(threading.Thread):
                 log.info("electrometer away: dropped command %s", value)
 
     def _serve_once(self) -> None:
+        self.lines_read()  # forget the lines of the last turn: only a read's own are looked up
         pushes = bool(
             self.electrometer.capabilities & {Capability.STREAM, Capability.PUSH_READINGS}
         )
@@ -384,39 +398,73 @@ class InstrumentLink(threading.Thread):
             self._hand_over("bench_refused", str(error))
 
     def _read_samples(self, pushes: bool) -> None:
-        samples: list[tuple[Sample, LineRef | None]] = []
+        chunks: list[SampleChunk] = []
         try:
             if pushes:
-                self._drain_pushed(samples)
+                self._drain_pushed(chunks)
             else:
                 now_s = self.clock()
                 if now_s < self._next_poll_s:
                     return
                 self._next_poll_s = now_s + POLL_INTERVAL_S
-                samples.append((self.electrometer.read_charge(), self.line_of()))
+                chunks.append(([self.electrometer.read_charge()], None, [(self.line_of(), 0)]))
             self._timeouts = 0
         finally:  # samples read before a disconnection are still handed over
-            fresh = [pair for pair in samples if pair[0].t_s >= self.fresh_after_s]
+            fresh = [chunk for chunk in map(self._fresh, chunks) if chunk[0]]
             if fresh:
                 self._hand_over("samples", (self.generation, fresh))
 
-    def _drain_pushed(self, samples: list[tuple[Sample, LineRef | None]]) -> None:
-        """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next one
-        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH.
+    def _fresh(self, chunk: SampleChunk) -> SampleChunk:
+        """Return the chunk without its samples received before ``fresh_after_s``."""
+        samples, ref, places = chunk
+        after_s = self.fresh_after_s
+        if places is None and after_s <= samples[0].t_s == samples[-1].t_s:
+            return chunk  # a burst parsed at once: all its lines arrived together, in time
+        pairs = places if places is not None else [(ref, place) for place in range(len(samples))]
+        kept = [index for index, sample in enumerate(samples) if sample.t_s >= after_s]
+        return [samples[i] for i in kept], None, [pairs[i] for i in kept]
+
+    def _drain_pushed(self, chunks: list[SampleChunk]) -> None:
+        """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next read
+        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH samples.
 
         A rejected line is logged and skipped; the burst goes on.
         """
         timeout_s = POLL_INTERVAL_S
-        while len(samples) < MAX_SAMPLES_PER_BATCH:
-            try:
-                sample = self.electrometer.next_sample(timeout_s)
-            except ProtocolError as error:
+        count = 0
+        while count < MAX_SAMPLES_PER_BATCH:
+            self.lines_read()  # forget lines recorded outside this read (commands' answers)
+            burst = self.electrometer.read_samples(timeout_s)
+            for error in burst.rejected:
                 log.warning("rejected a line from the electrometer: %s", error)
-            else:
-                if sample is None:
-                    return
-                samples.append((sample, self.line_of()))
+            if not burst.count:
+                return
+            if burst.samples:
+                chunks.append(_chunk(burst, self.lines_read()))
+                count += len(burst.samples)
             timeout_s = BURST_GAP_S
+
+
+def _chunk(burst: SampleBurst, read: list[tuple[LineRef, int]]) -> SampleChunk:
+    """Return a burst's samples with where each one's line is, from the LineRefs its read
+    recorded (each with how many lines it stands for)."""
+    if burst.lines is None and len(read) == 1 and read[0][1] == len(burst.samples):
+        return burst.samples, read[0][0], None
+    lines: list[tuple[LineRef | None, int]] = [
+        (ref, place) for ref, count in read for place in range(count)
+    ]
+    places = burst.lines if burst.lines is not None else range(len(burst.samples))
+    return burst.samples, None, [lines[p] if 0 <= p < len(lines) else (None, 0) for p in places]
+
+
+def _line_ids(
+    samples: list[Sample], ref: LineRef | None, places: list[tuple[LineRef | None, int]] | None
+) -> Sequence[int | None]:
+    """Return the row id of each sample's raw line (None where it was not recorded)."""
+    if places is None:
+        first = None if ref is None else ref.id
+        return [None] * len(samples) if first is None else range(first, first + len(samples))
+    return [None if line is None or line.id is None else line.id + place for line, place in places]
 
 
 def _event_info(event: EventRow) -> protocol.EventInfo:
@@ -491,6 +539,9 @@ class Daemon:
         self._files_checked_at = 0.0
         self._events_tried_at = 0.0
         self._latest_received: LineRef | None = None  # the newest received line's ref
+        #: The LineRefs of lines received since the instrument thread last took them, each
+        #: with how many lines it stands for (instrument thread only).
+        self._lines_read: list[tuple[LineRef, int]] = []
         self._generation = 0
         self._line_session: int | None = None  # the session last given to the link's lines
         #: The latest snapshot built: (engine.seq it shows, snapshot).
@@ -536,7 +587,7 @@ class Daemon:
             profile,
             port=options.port,
             resource=options.resource,
-            traffic=self._record_traffic,
+            traffic=TrafficListeners(self._record_traffic, self._record_traffic_burst),
             clock=self.clock,
             visa_library=options.visa_library,
         )
@@ -564,6 +615,7 @@ class Daemon:
             clock=self.clock,
             flush=self._commit_traffic,
             line_of=lambda: self._latest_received,
+            lines_read=self._take_lines_read,
         )
 
     def _record_traffic(self, direction: TrafficDirection, t_s: float, raw: bytes) -> None:
@@ -579,8 +631,36 @@ class Daemon:
         ref = None
         if direction == TrafficDirection.RECEIVED:
             ref = self._latest_received = LineRef()
+            self._lines_read.append((ref, 1))
         line = (session_id, t_s, stamp, _DIRECTION_TEXT[direction], bytes(raw))
         self.store.keep_traffic(line, None if ref is None else ref.written)
+
+    def _record_traffic_burst(
+        self, direction: TrafficDirection, t_s: float, lines: Sequence[bytes]
+    ) -> None:
+        """Keep raw lines that one read brought, stamped now, for the next commit, as
+        :meth:`_record_traffic` keeps one (in the instrument thread only)."""
+        if self.store is None:
+            return
+        session_id = self.link.session_id if self.link is not None else None
+        ref = None
+        if direction == TrafficDirection.RECEIVED:
+            ref = self._latest_received = LineRef()
+            self._lines_read.append((ref, len(lines)))
+        self.store.keep_traffic_burst(
+            session_id,
+            t_s,
+            self.store.stamp(),
+            _DIRECTION_TEXT[direction],
+            lines,
+            None if ref is None else ref.written,
+        )
+
+    def _take_lines_read(self) -> list[tuple[LineRef, int]]:
+        """Return the LineRefs of the lines received since the last call, and forget them
+        (instrument thread only)."""
+        read, self._lines_read = self._lines_read, []
+        return read
 
     def _commit_traffic(self) -> bool:
         """Commit the raw lines kept so far in one transaction (instrument thread only); return
@@ -857,27 +937,24 @@ class Daemon:
         elif kind == "unreachable":
             engine.instrument_unreachable(payload)
 
-    def _feed(self, generation: int | None, samples: list[tuple[Sample, LineRef | None]]) -> None:
+    def _feed(self, generation: int | None, chunks: list[SampleChunk]) -> None:
         """Give the engine the samples of the reading now armed, until one completes it."""
         assert self.engine is not None
         engine = self.engine
         clock = engine.clock
-        for index, (sample, line) in enumerate(samples):
+        while chunks:
             if generation != self._generation or engine.reading is not self._sampled_reading:
                 return  # the rest belong to a reading already captured or dropped
+            samples, ref, places = chunks[0]
             try:
-                taken = inputs.Sample(
-                    t_s=sample.t_s,
-                    charge_nC=sample.charge_nC,
-                    complete=sample.complete,
-                    status=sample.status.value,
-                    line_id=None if line is None else line.id,
-                    clock_s=clock(),  # as apply() would stamp it, without a second Sample
-                )
-                engine.apply(taken)
+                engine.take_samples(samples, _line_ids(samples, ref, places), clock())
             except Exception:
-                del samples[:index]  # those were taken; the rest are tried again
+                taken = engine.samples_taken  # those were taken; the rest are tried again
+                if taken:
+                    pairs = places or [(ref, place) for place in range(len(samples))]
+                    chunks[0] = samples[taken:], None, pairs[taken:]
                 raise
+            del chunks[0]
 
     async def _tick(self) -> None:
         assert self.engine is not None

@@ -15,7 +15,9 @@ Pure: no I/O and no clock of its own; times are the instrument clock's seconds p
 from __future__ import annotations
 
 import enum
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
+from typing import Any
 
 from chargebook.acquire.protocol import ReadingPhase
 from chargebook.acquire.session.plan import Plan
@@ -113,6 +115,45 @@ class ReadingCapture:
             return None
         self.phase = ReadingPhase.HOLDING
         return self.tick(t_s)
+
+    def feed_run(self, samples: Sequence[Any]) -> tuple[int, Captured | None, dict[str, Any]]:
+        """Feed samples (each with ``t_s``, ``charge_nC`` and ``complete``) in order until one
+        completes the reading: as :meth:`feed` for each, in one call. Return (how many were fed,
+        the reading or None, this capture's state before the last sample fed, to put back if
+        the reading cannot be recorded; {} when no sample completed it).
+
+        A sample that cannot complete the reading (see :meth:`_may_complete`) is fed without a
+        copy of the state: of a timed integration only its charge and time are kept here.
+        """
+        for index, sample in enumerate(samples):
+            t_s = sample.t_s
+            if t_s < self.armed_t_s:
+                continue  # a stale line, ignored as feed ignores it
+            if not self._may_complete(t_s, sample.complete):
+                if self.phase is ReadingPhase.TIMED:
+                    if self.baseline_nC is None:
+                        self.baseline_nC = sample.charge_nC
+                    self.last_charge_nC, self.last_t_s = sample.charge_nC, t_s
+                else:
+                    self.feed(t_s, sample.charge_nC, sample.complete)
+                continue
+            before = vars(self).copy()
+            captured = self.feed(t_s, sample.charge_nC, sample.complete)
+            if captured is not None:
+                return index + 1, captured, before
+        return len(samples), None, {}
+
+    def _may_complete(self, t_s: float, complete: bool) -> bool:
+        """Return False when a sample at ``t_s`` (not stale) surely does not complete the
+        reading: :meth:`feed` completes one only when it is marked complete, when a timed
+        integration's time is up, or when the charge has held flat for the hold time."""
+        if complete:
+            return True
+        if self.phase is ReadingPhase.TIMED:
+            return self.timed_s is not None and t_s - self.armed_t_s >= self.timed_s
+        if self.phase is ReadingPhase.ARMED:
+            return False
+        return t_s - self._flat_since_s >= self.settings.hold_s or self.phase is ReadingPhase.IDLE
 
     def tick(self, now_s: float) -> Captured | None:
         """Return the reading if the hold time (or the timed duration) has passed at ``now_s``."""

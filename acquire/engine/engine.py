@@ -32,9 +32,10 @@ import dataclasses
 import datetime
 import logging
 import time
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
+from itertools import repeat
 from typing import Any
 
 from chargebook.acquire.engine import driver_commands, inputs
@@ -148,8 +149,11 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self.actual_MU: dict[int, float] = {}  # reading id -> MU delivered, when stopped short
-        #: Samples taken since the last input logged, logged with the next one (in order).
-        self._unlogged_samples: list[inputs.Sample] = []
+        #: Samples taken since the last input logged, logged with the next one (in order):
+        #: each an inputs.Sample, or (clock_s, sample, line_id) as :meth:`take_samples` took it.
+        self._unlogged_samples: list[inputs.Sample | tuple[float, Any, int | None]] = []
+        #: How many samples the latest :meth:`take_samples` took (so far, if it raised).
+        self.samples_taken = 0
         self._input_clock_s: float | None = None  # the clock of the input being applied
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Results] | None = None
@@ -307,7 +311,7 @@ class Engine:
     def _log(self, session_id: int | None, given: inputs.Input) -> None:
         """Append ``given`` to the input log, after the samples taken before it."""
         entries = [*self._unlogged_samples, given] if session_id is not None else [given]
-        self.store.add_inputs(session_id, [(e.kind, e.actor, e.fields()) for e in entries])
+        self.store.add_inputs(session_id, [_logged_input(entry) for entry in entries])
         self._unlogged_samples = []
 
     def _now(self) -> float:
@@ -763,6 +767,41 @@ class Engine:
             self.reading_status, self.sample_line_id = before[1], before[2]
             raise
 
+    def take_samples(
+        self, samples: Sequence[Any], line_ids: Sequence[int | None], clock_s: float
+    ) -> int:
+        """Take pushed samples in order until one completes the reading: the same state, the
+        same record and the same input log as applying an :class:`inputs.Sample` for each, one
+        at a time, at ``clock_s``, but in one call (a streaming instrument brings thousands a
+        second, nearly all of which only move the charge). Each sample has ``t_s`` (s),
+        ``charge_nC``, ``complete`` and ``status`` (text); ``line_ids`` the row of each one's
+        raw line. Return how many were taken (:attr:`samples_taken` says it too, as they are
+        taken: a capture that fails to be recorded raises, and its sample is not taken).
+        """
+        self.samples_taken = 0
+        reading = self.reading
+        if reading is None or not samples:
+            return 0
+        fed, captured, before = reading.feed_run(samples)
+        kept = fed - 1 if captured is not None else fed  # the one that completed it is logged
+        # with its capture, after the ones that only moved the charge
+        self._unlogged_samples.extend(zip(repeat(clock_s), samples[:kept], line_ids, strict=False))
+        status, line_id = self.reading_status, self.sample_line_id
+        if kept:
+            status = str(samples[kept - 1].status)
+            line_id = _latest_line(samples, line_ids, kept, reading.armed_t_s, line_id)
+        self.samples_taken = kept
+        if captured is None:
+            self.reading_status, self.sample_line_id = status, line_id
+            return kept
+        # the sample that completes the reading is applied as one input, from the state
+        # before it: its capture is recorded (or refused) exactly as apply records one
+        vars(reading).update(before)
+        self.reading_status, self.sample_line_id = status, line_id
+        self.apply(_sample_input(clock_s, samples[kept], line_ids[kept]))
+        self.samples_taken = fed
+        return fed
+
     def _record_captured(self, captured: Captured) -> None:
         """Record a captured reading and all that follows from it."""
         self._record(captured, DAEMON_ACTOR)
@@ -1127,3 +1166,47 @@ __all__ = [
     "Engine",
     "IllegalTransition",
 ]
+
+
+def _latest_line(
+    samples: Sequence[Any],
+    line_ids: Sequence[int | None],
+    count: int,
+    armed_t_s: float,
+    otherwise: int | None,
+) -> int | None:
+    """Return the line of the latest of the first ``count`` samples that is not stale (from
+    before ``armed_t_s``); ``otherwise`` when all are."""
+    for index in range(count - 1, -1, -1):
+        if samples[index].t_s >= armed_t_s:
+            return line_ids[index]
+    return otherwise
+
+
+def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sample:
+    """Return the input a pushed sample (as :meth:`Engine.take_samples` takes it) stands for."""
+    return inputs.Sample(
+        t_s=sample.t_s,
+        charge_nC=sample.charge_nC,
+        complete=sample.complete,
+        status=str(sample.status),
+        line_id=line_id,
+        clock_s=clock_s,
+    )
+
+
+def _logged_input(entry: inputs.Input | tuple[float, Any, int | None]) -> tuple[str, str, dict]:
+    """Return (kind, actor, detail) of an input as the log holds it: a sample kept as
+    (clock_s, sample, line_id) is logged as its :class:`inputs.Sample` would be."""
+    if not isinstance(entry, tuple):
+        return entry.kind, entry.actor, entry.fields()
+    clock_s, sample, line_id = entry
+    detail = {
+        "clock_s": clock_s,
+        "t_s": sample.t_s,
+        "charge_nC": sample.charge_nC,
+        "complete": sample.complete,
+        "status": str(sample.status),
+        "line_id": line_id,
+    }
+    return inputs.Sample.kind, DAEMON_ACTOR, detail

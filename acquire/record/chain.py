@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import json.encoder
 from collections.abc import Sequence
 from typing import Any
 
@@ -138,6 +139,70 @@ def link_traffic(previous_hash: str, seq: int, values: Sequence[Any]) -> str:
         )
         return hashlib.sha256(text.encode()).hexdigest()
     return link(previous_hash, seq, "traffic", values)
+
+
+def traffic_rows(
+    previous_hash: str, seq: int, first_id: int, lines: Sequence[Sequence[Any]]
+) -> list[tuple[Any, ...]]:
+    """Return traffic rows of one session's chain, linked on from place ``seq`` (whose hash is
+    ``previous_hash``): each line (session_id, t_s, recorded_at, direction, line bytes) becomes
+    (id, its columns, chain_seq, chain_hash), ids counted from ``first_id``. The same hashes as
+    :func:`link_traffic` line by line, in one tight loop: a burst holds thousands of lines."""
+    rows: list[tuple[Any, ...]] = []
+    plain: set[tuple[Any, Any, Any]] = set()  # (recorded_at, direction, session) JSON writes as is
+    sha256 = hashlib.sha256
+    row_id = first_id
+    for line in lines:
+        session_id, t_s, recorded_at, direction, data = line
+        seq += 1
+        if (
+            (recorded_at, direction, session_id) in plain
+            and type(t_s) is float
+            and (type(data) is bytes)
+        ):
+            owner_text = "null" if session_id is None else session_id
+            previous_hash = sha256(
+                f'{previous_hash}:{seq}:["traffic",{row_id},{owner_text},{t_s!r},'
+                f'"{recorded_at}","{direction}","{data.hex()}"]'.encode()
+            ).hexdigest()
+        else:
+            previous_hash = link_traffic(previous_hash, seq, (row_id, *line))
+            if (
+                _plain_text(recorded_at)
+                and _plain_text(direction)
+                and (session_id is None or type(session_id) is int)
+            ):
+                plain.add((recorded_at, direction, session_id))
+        rows.append((row_id, session_id, t_s, recorded_at, direction, data, seq, previous_hash))
+        row_id += 1
+    return rows
+
+
+#: A string as JSON writes it with ``ensure_ascii=False``, quotes included (json's own).
+_json_text = json.encoder.encode_basestring
+
+
+def link_input(previous_hash: str, seq: int, values: Sequence[Any]) -> str:
+    """Return :func:`link` for an input log row, the same bytes built without a JSON encoder
+    for each row: a reading logs every sample that led to it, thousands at a time."""
+    row_id, session_id, recorded_at, kind, actor, detail_json, account = values
+    if not (
+        type(row_id) is int
+        and (session_id is None or type(session_id) is int)
+        and type(recorded_at) is str
+        and type(kind) is str
+        and type(actor) is str
+        and type(detail_json) is str
+        and (account is None or type(account) is str)
+    ):
+        return link(previous_hash, seq, "inputs", values)
+    owner_text = "null" if session_id is None else session_id
+    account_text = "null" if account is None else _json_text(account)
+    text = (
+        f'{previous_hash}:{seq}:["inputs",{row_id},{owner_text},{_json_text(recorded_at)},'
+        f"{_json_text(kind)},{_json_text(actor)},{_json_text(detail_json)},{account_text}]"
+    )
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 def _plain_text(value: object) -> bool:

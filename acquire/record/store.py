@@ -37,6 +37,8 @@ from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields, replace
 from datetime import UTC, datetime
+from itertools import repeat
+from operator import itemgetter
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar
 
@@ -536,12 +538,17 @@ def json_object(text: str) -> dict[str, Any]:
     return loaded
 
 
+#: What :func:`_to_json` writes with: ``json.dumps(value, sort_keys=True, allow_nan=False,
+#: ensure_ascii=False)``, the encoder made once (dumps makes one a call given these options).
+_JSON = json.JSONEncoder(sort_keys=True, allow_nan=False, ensure_ascii=False)
+
+
 def _to_json(field: str, value: object) -> str:
     allowed = "a dict of JSON values with finite numbers"
     if not isinstance(value, dict):
         raise InputError(field, value, allowed, "is not a dict")
     try:
-        return json.dumps(value, sort_keys=True, allow_nan=False, ensure_ascii=False)
+        return _JSON.encode(value)
     except (TypeError, ValueError) as error:
         raise InputError(field, value, allowed, f"cannot be stored as JSON ({error})") from None
 
@@ -971,20 +978,22 @@ class Store:
         """Append checked raw lines, each linked to its session's chain, in one pass; return
         the id of the last."""
         next_id = self._next_id("traffic")
-        heads: dict[int, tuple[int, str]] = {}
-        rows = []
-        for line in lines:
-            key = chain.chain_key(line[0])
-            seq, previous = heads[key] if key in heads else self._chain_head(key)
-            values = (next_id, *line)
-            digest = chain.link_traffic(previous, seq + 1, values)
-            rows.append((*values, seq + 1, digest))
-            heads[key] = (seq + 1, digest)
-            next_id += 1
+        rows: list[tuple[Any, ...]] = []
+        one_session = len(set(map(_SESSION_OF, lines))) == 1
+        start = 0
+        while start < len(lines):  # a run of lines of one session at a time
+            session_id = lines[start][0]
+            end = len(lines) if one_session else start + 1
+            while end < len(lines) and lines[end][0] == session_id:
+                end += 1
+            key = chain.chain_key(session_id)
+            seq, digest = self._chain_head(key)
+            rows += chain.traffic_rows(digest, seq, next_id, lines[start:end])
+            self._set_chain_head(key, rows[-1][-2], rows[-1][-1])
+            next_id += end - start
+            start = end
         self.conn.executemany(_INSERT_CHAINED["traffic"], rows)
         self._set_next_id("traffic", next_id)
-        for key, (seq, digest) in heads.items():
-            self._set_chain_head(key, seq, digest)
         return next_id - 1
 
     def _next_id(self, table: str) -> int:
@@ -1605,7 +1614,7 @@ class Store:
             for offset, row in enumerate(rows):
                 values = (next_id + offset, *row)
                 seq += 1
-                digest = chain.link(digest, seq, "inputs", values)
+                digest = chain.link_input(digest, seq, values)
                 chained.append((*values, seq, digest))
             self.conn.executemany(_INSERT_CHAINED["inputs"], chained)
             self._set_next_id("inputs", next_id + len(chained))
@@ -1664,6 +1673,30 @@ class Store:
             self._pending.append(row)
             self._pending_told.append(told)
 
+    def keep_traffic_burst(
+        self,
+        session_id: int | None,
+        t_s: float,
+        recorded_at: str,
+        direction: str,
+        lines: Sequence[bytes],
+        told: LineIdListener | None = None,
+    ) -> None:
+        """Keep raw lines that arrived together (one read) as :meth:`keep_traffic` keeps one:
+        each is recorded with ``t_s``, ``recorded_at`` and ``direction``, checked once for
+        the burst. ``told(row_id)`` is told the row id of the first line (the others follow
+        it, one id each)."""
+        if not lines:
+            return
+        first = _traffic_row((session_id, t_s, recorded_at, direction, lines[0]))
+        if set(map(type, lines)) != {bytes}:
+            raise InputError("line", lines, "the raw bytes of each line", "is not bytes")
+        rows = list(zip(*(repeat(value) for value in first[:4]), lines, strict=False))
+        with self._pending_lock:
+            self._pending.extend(rows)
+            self._pending_told.append(told)
+            self._pending_told.extend(repeat(None, len(rows) - 1))
+
     def kept_traffic_count(self) -> int:
         """Return how many raw lines are kept, not yet committed (safe from any thread)."""
         with self._pending_lock:
@@ -1716,6 +1749,7 @@ class Store:
 
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
+_SESSION_OF = itemgetter(0)
 _INSERT_CHAINED = {
     table: f"INSERT INTO {table} ({', '.join(chain.COLUMNS[table])}, chain_seq, "
     f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS[table])}, ?, ?)"

@@ -241,7 +241,8 @@ async def stream_readings(daemon: Daemon, client: DaemonClient, count: int) -> N
         # invented charges (demo only), received after the reading was armed (daemon's clock)
         charge_nC = 20.0 + 0.001 * (number % 3)
         sample = Sample(t_s=time.monotonic(), charge_nC=charge_nC, complete=True)
-        daemon._events.put_nowait(("samples", (daemon._generation, [(sample, None)])))
+        chunk = ([sample], None, [(None, 0)])  # one sample, its line not recorded
+        daemon._events.put_nowait(("samples", (daemon._generation, [chunk])))
         await client.wait_for_snapshot(
             lambda s, n=number: len((s["current_set"] or s["sets"][-1])["readings"]) >= n, 10
         )

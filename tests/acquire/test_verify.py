@@ -301,3 +301,85 @@ def test_kept_lines_survive_a_transaction_that_fails_and_go_with_the_next(tmp_pa
         assert [row.line for row in store.traffic(session_id)] == [b"20.1\n"]
         assert store.commit_traffic() == 0
         assert verify_session(store, session_id).verified
+
+
+@pytest.mark.parametrize("session_id", [None, 7])
+def test_a_run_of_traffic_rows_links_as_each_row_does_alone(session_id: int | None) -> None:
+    stamp = "2026-12-03T06:11:37.123456+00:00"
+    lines = [
+        (session_id, 1.5, stamp, "rx", b"S t=0.100 q=+1.000000E-09 C OK\n"),
+        (session_id, 1.5, stamp, "rx", b""),
+        (session_id, 2.0, 'a"b', "tx", b"GO\n"),  # text JSON must escape: the general path
+        (session_id, 2.25, stamp, "rx", b"\x00\xff"),
+    ]
+    rows = chain.traffic_rows("f" * 64, 9, 100, lines)
+    previous = "f" * 64
+    for seq, (row, line) in enumerate(zip(rows, lines, strict=True), start=10):
+        values = (row[0], *line)
+        previous = chain.link(previous, seq, "traffic", values)  # the general canonical bytes
+        assert row == (*values, seq, previous)
+    assert [row[0] for row in rows] == [100, 101, 102, 103]
+
+
+def _burst_station(path: Path) -> tuple[Path, int]:
+    """Return a station file with a session whose raw lines were kept a burst at a time."""
+    with Store.open(path) as store:
+        session_id = store.create_session({}, {}, "trs398", "6 MV")
+        ids: list[int | None] = []
+        for burst in range(3):
+            lines = [f"S t={burst}.{n:03d} q=+1.000000E-09 C OK\n".encode() for n in range(50)]
+            store.keep_traffic_burst(
+                session_id, float(burst), store.stamp(), "rx", lines, ids.append
+            )
+            store.keep_traffic((None, float(burst), store.stamp(), "tx", b"GO\n"))
+        store.commit_traffic()
+        store.add_event(session_id, "operator A", EventKind.NOTE, {"text": "checked"})
+        assert store.traffic_count(session_id) == 150 and store.traffic_count(None) == 3
+        rows = store.traffic(session_id)
+        # each burst's listener is told the row id of its first line; the others follow it
+        assert ids == [rows[0].id, rows[50].id, rows[100].id]
+        assert rows[51].line == b"S t=1.001 q=+1.000000E-09 C OK\n" and rows[51].t_s == 1.0
+        assert verify_session(store, session_id).verified
+        assert verify_session(store, None).verified
+    return path, session_id
+
+
+@pytest.mark.parametrize(
+    ("statements", "said"),
+    [
+        (
+            ["DROP TRIGGER traffic_refuse_update", "UPDATE traffic SET line = x'00' WHERE id = 60"],
+            "changed",
+        ),
+        (["DROP TRIGGER traffic_refuse_delete", "DELETE FROM traffic WHERE id = 60"], "missing"),
+        (
+            [  # a line slipped in, with the place and hash of one already there
+                "INSERT INTO traffic (id, session_id, t_s, recorded_at, direction, line, "
+                "chain_seq, chain_hash) SELECT 1000, session_id, t_s, recorded_at, direction, "
+                "x'00', chain_seq, chain_hash FROM traffic WHERE id = 60",
+            ],
+            "",
+        ),
+    ],
+)
+def test_lines_kept_a_burst_at_a_time_show_an_edit_a_deletion_or_an_insertion(
+    tmp_path: Path, statements: list[str], said: str
+) -> None:
+    path, session_id = _burst_station(tmp_path / "station.sqlite")
+    _tamper(path, *statements)
+    problems = _problems(path, session_id)
+    assert problems and any(p[0] == "traffic" for p in problems)
+    assert all(said in p[2] for p in problems if p[0] == "traffic")
+
+
+@pytest.mark.parametrize(
+    "values",
+    [
+        (7, 3, "2026-12-03T06:11:37.123456+00:00", "sample", "daemon", '{"t_s": 1.5}', None),
+        (8, None, "x", "note", "operator Ä", '{"text": "a \\"quoted\\" \\\\ é\\u001b"}', "u"),
+        (9, 3, "x", "k\n", "a\x00b", "{}", "account\ttab"),
+        (10, True, "x", "k", "a", "{}", None),  # not an id: the general path
+    ],
+)
+def test_the_fast_input_link_hashes_the_same_bytes_as_the_general_one(values: tuple) -> None:
+    assert chain.link_input("e" * 64, 4, values) == chain.link("e" * 64, 4, "inputs", values)

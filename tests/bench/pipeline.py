@@ -135,15 +135,20 @@ async def _wait_for_lines(watch: sqlite3.Connection, first_id: int, count: int, 
 
 async def interleaved(
     world: Station, count: int, rounds: int
-) -> tuple[list[float], list[float], list[float], list[float]]:
-    """Return (raw rates, daemon rates, raw CPU s per line, daemon CPU s per line) of
-    ``rounds`` alternating runs on the same pty.
+) -> tuple[list[float], list[float], list[float], list[float], list[float]]:
+    """Return (raw rates, daemon rates, raw CPU s per line, daemon CPU s per line, the
+    daemon's CPU s per line logging the samples at the pause) of ``rounds`` alternating runs
+    on the same pty.
 
     Between its runs the daemon's session is paused: it then does not read the port, and the
-    raw reader has the lines to itself.
+    raw reader has the lines to itself. The pause is the first input since the flood that
+    writes, so it logs every sample the flood brought in the input log (replay re-applies
+    them): the CPU that takes, per line, is noted apart (it is outside the timed window).
     """
     client = await collecting_daemon(world)
-    raw, daemon, raw_cpu, daemon_cpu = [], [], [], []
+    assert world.daemon is not None
+    process = psutil.Process(world.daemon.process.pid)
+    raw, daemon, raw_cpu, daemon_cpu, log_cpu = [], [], [], [], []
     try:
         for number in range(rounds):
             if number:
@@ -153,14 +158,16 @@ async def interleaved(
             rate, cpu = await daemon_rate(world, client, count)
             daemon.append(rate)
             daemon_cpu.append(cpu)
+            cpu_before = _cpu_s(process)
             snapshot = await client.call(Method.SESSION_PAUSE)
+            log_cpu.append((_cpu_s(process) - cpu_before) / count)
             await asyncio.sleep(SETTLE_S)
             rate, cpu = raw_readline(world, count)
             raw.append(rate)
             raw_cpu.append(cpu)
     finally:
         await client.close()
-    return raw, daemon, raw_cpu, daemon_cpu
+    return raw, daemon, raw_cpu, daemon_cpu, log_cpu
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -174,7 +181,7 @@ def main(argv: list[str] | None = None) -> int:
     )
     with station("pipeline", "push-exponent", *QUIET_STREAM) as world:
         naive = raw_readline_per_s(world, max(count // 20, 500), buffered=False)
-        raw, daemon, raw_cpu, daemon_cpu = asyncio.run(interleaved(world, count, rounds))
+        raw, daemon, raw_cpu, daemon_cpu, log_cpu = asyncio.run(interleaved(world, count, rounds))
     ratios = [d / r for d, r in zip(daemon, raw, strict=True)]
     out.note(
         "rounds, raw / daemon readings/s: "
@@ -187,6 +194,10 @@ def main(argv: list[str] | None = None) -> int:
         )
         + f" (simulator / daemon, median: "
         f"{report.median([r / d for r, d in zip(raw_cpu, daemon_cpu, strict=True)]):.2f})"
+    )
+    out.note(
+        "rounds, the daemon's CPU µs per line logging the flood's samples at the pause "
+        "(outside the timed window): " + ", ".join(f"{c * 1e6:.1f}" for c in log_cpu)
     )
     out.note(f"pyserial's unbuffered Serial.readline (one read per byte): {naive:.0f}/s (not used)")
     baseline, measured, ratio = report.median(raw), report.median(daemon), report.median(ratios)
