@@ -1195,7 +1195,9 @@ def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sa
     )
 
 
-def _logged_input(entry: inputs.Input | tuple[float, Any, int | None]) -> tuple[str, str, dict]:
+def _logged_input(
+    entry: inputs.Input | tuple[float, Any, int | None],
+) -> tuple[str, str, dict[str, Any]]:
     """Return (kind, actor, detail) of an input as the log holds it: a sample kept as
     (clock_s, sample, line_id) is logged as its :class:`inputs.Sample` would be."""
     if not isinstance(entry, tuple):
