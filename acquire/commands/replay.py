@@ -9,11 +9,15 @@ JSON-lines log, which ``--traffic-log FILE`` plays back.
 from __future__ import annotations
 
 import argparse
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 from chargebook.acquire.commands.station_reader import add_db_argument
+
+TYPE_CHECKING = False  # not typing's: `chargebook --help` imports no typing (DEVELOPERS.md)
+if TYPE_CHECKING:
+    from collections.abc import Callable
+
+    from chargebook.acquire.replay.outcome import Outcome
 
 HELP = (
     "replay a recorded session's raw instrument traffic through the simulated electrometer, "
@@ -128,26 +132,10 @@ def threshold_values(args: argparse.Namespace) -> dict[str, object]:
     return values
 
 
-@dataclass
-class Outcome:
-    """How one session's replay went: its exit status, and its report or why there is none."""
-
-    session_id: int
-    status: int
-    report: Any = None  # ReplayReport
-    error: str | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        """Return the outcome as JSON-ready data: the report's, or the error's."""
-        if self.report is not None:
-            return {**self.report.to_dict(), "exit_status": self.status}
-        return {"original_session_id": self.session_id, "error": self.error,
-                "exit_status": self.status}  # fmt: skip
-
-
 def run(args: argparse.Namespace) -> int:
     """Replay the sessions asked for; print each verdict; return 0 when each reproduced (or each
     what-if ran), 1 when one did not reproduce or failed, 2 for input that cannot be used."""
+    import functools
     import sys
 
     from chargebook.acquire.commands.station_reader import listed_hint, missing_station_words
@@ -189,7 +177,7 @@ def run(args: argparse.Namespace) -> int:
         outcome = _replay_one(args, db_path, session_id, thresholds)
         outcomes.append(outcome)
         if not args.json:
-            _print(lambda outcome=outcome: _print_one(outcome, False, caution=False))
+            _print(functools.partial(_print_one, outcome, False, caution=False))
     _print(lambda: _print_many(outcomes, args))
     return max(outcome.status for outcome in outcomes)
 
@@ -233,6 +221,7 @@ def _replay_one(
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
     from chargebook.acquire.processes import ChildStartError
     from chargebook.acquire.record.store import NotFound, StoreError
+    from chargebook.acquire.replay.outcome import Outcome
     from chargebook.acquire.replay.session_replay import (
         Divergence,
         NotReplayable,
@@ -264,7 +253,7 @@ def _replay_one(
     return Outcome(session_id, status, report=report)
 
 
-def _print(show: Any) -> None:
+def _print(show: Callable[[], None]) -> None:
     """Run ``show``; whoever read the output going away (`| head`) stops no replay."""
     from chargebook.acquire.commands.station_reader import output_closed
 
