@@ -77,9 +77,13 @@ class Terminal:
     async def last_words(self) -> str:
         """Wait until the console has exited; return what it printed last, then close it."""
         for _ in range(int(DEADLINE_S / 0.1)):
-            if self.run("display-message", "-p", "-t", self.name, "#{pane_dead}").strip() == "1":
-                status = "#{pane_dead_status}"
-                self.exit_status = self.run("display-message", "-p", "-t", self.name, status)
+            # tmux marks the pane dead when its terminal closes, and knows the exit status only
+            # once it has reaped the process (empty until then, seen on a loaded machine).
+            dead, status = self.run(
+                "display-message", "-p", "-t", self.name, "#{pane_dead} #{pane_dead_status}"
+            ).split(" ", 1)
+            if dead == "1" and status.strip():
+                self.exit_status = status
                 # -J unwraps long lines; -S - includes what scrolled off the top
                 screen = self.run("capture-pane", "-p", "-J", "-S", "-", "-t", self.name)
                 self.run("kill-session", "-t", self.name)
