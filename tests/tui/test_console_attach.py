@@ -62,6 +62,15 @@ async def test_a_socket_file_nobody_listens_on_is_named_as_such(tmp_path: Path) 
     assert "a socket file is there but nothing listens on it; tried 2 times" in words
 
 
+async def test_a_plain_file_at_the_socket_path_is_not_called_a_socket(tmp_path: Path) -> None:
+    path = tmp_path / "daemon.sock"
+    path.write_text("not a socket\n", encoding="utf-8")  # Linux refuses it as a stale socket
+    shown, words = await gives_up(ConsoleApp(path, first_attempts=2))
+    assert "of 2 (the file there is not a socket); retrying" in " ".join(" ".join(shown).split())
+    assert "the file there is not a socket; tried 2 times" in words
+    assert "a socket file is there" not in words
+
+
 @pytest.fixture
 async def daemon(tmp_path: Path) -> AsyncIterator[InProcessDaemon]:
     async with session_daemon(tmp_path) as daemon:
