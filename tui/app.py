@@ -297,6 +297,8 @@ def closing_words(
             f"{demo_database}. `chargebook demo` resumes it; "
             f"`chargebook sessions --db {demo_database}` lists it."
         )
+    if snapshot is None and demo_database is None:  # no daemon ever answered this console
+        return f"Console closed before a daemon at {socket_path} answered; nothing was asked of it."
     again = f"Re-attach with: chargebook console --socket {socket_path}"
     if is_open:
         return (
