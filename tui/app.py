@@ -9,6 +9,8 @@ through :meth:`ConsoleApp.call_daemon`. Closing the console never stops a measur
 from __future__ import annotations
 
 import asyncio
+import os
+import stat
 import sys
 from collections.abc import Awaitable, Callable, Mapping
 from pathlib import Path
@@ -108,7 +110,7 @@ class ConsoleApp(App[int]):
                 text = f"{NOT_CONNECTED} ({error})"
                 if not attached:
                     text = f"No daemon answers yet: attempt {failed} of {self.first_attempts} "
-                    text += f"({_why_unreachable(error)}); retrying…"
+                    text += f"({_why_unreachable(error, self.socket_path)}); retrying…"
                 self.post_message(LinkChanged(LinkStatus(False, text)))
                 await asyncio.sleep(delay_s)
                 delay_s = min(2 * delay_s, RETRY_LONGEST_S)
@@ -244,21 +246,31 @@ class ConsoleApp(App[int]):
         return SetupScreen(self.call_daemon, self.setup_defaults)
 
 
-def _why_unreachable(error: BaseException) -> str:
-    """Return why a connection to the daemon's socket failed, in words."""
+def _why_unreachable(error: BaseException, socket_path: str | Path) -> str:
+    """Return why a connection to the daemon's socket at ``socket_path`` failed, in words."""
     if isinstance(error, FileNotFoundError):
         return "no socket there"
     if isinstance(error, ConnectionRefusedError):
+        if not _is_socket(socket_path):  # Linux refuses a connection to a regular file too
+            return "the file there is not a socket"
         return "a socket file is there but nothing listens on it"
     return str(error) or type(error).__name__
+
+
+def _is_socket(path: str | Path) -> bool:
+    """Return True when ``path`` is a socket (or cannot be looked at: then say no more)."""
+    try:
+        return stat.S_ISSOCK(os.stat(path).st_mode)
+    except OSError:
+        return True
 
 
 def no_daemon_words(socket_path: str, error: BaseException, attempts: int) -> str:
     """Return what the console says when it never reached a daemon at ``socket_path``: that
     none listens there, why the last attempt failed, and how to start one."""
     return (
-        f"no chargebook daemon listens at {socket_path} ({_why_unreachable(error)}; tried "
-        f"{attempts} times). Start one with `chargebook serve --port DEVICE` (and --socket "
+        f"no chargebook daemon listens at {socket_path} ({_why_unreachable(error, socket_path)}; "
+        f"tried {attempts} times). Start one with `chargebook serve --port DEVICE` (and --socket "
         "PATH when its socket is not the default), or `chargebook demo` for the simulated "
         "bench; or give the console the --socket of a running daemon."
     )
@@ -285,6 +297,8 @@ def closing_words(
             f"{demo_database}. `chargebook demo` resumes it; "
             f"`chargebook sessions --db {demo_database}` lists it."
         )
+    if snapshot is None and demo_database is None:  # no daemon ever answered this console
+        return f"Console closed before a daemon at {socket_path} answered; nothing was asked of it."
     again = f"Re-attach with: chargebook console --socket {socket_path}"
     if is_open:
         return (

@@ -287,9 +287,13 @@ def load_history_across(
     choice = parse_baseline(baseline)
     entries: list[_Entry] = []
     known: list[str] = []
-    registered: _RegisteredBeam | None = None
-    for store in stores:
-        here = _register_beam(store, beam, machine)  # the registers' beam, if they name one
+    found, refusals = _register_beams(stores, beam, machine)
+    registered = next((here for here in found if here is not None), None)
+    # A station whose registers do not name the beam (or that has none) matches its typed
+    # sessions by the names typed, or those another station's registers gave: "DEMO-LA1 6 MV"
+    # is machine DEMO-LA1, beam 6 MV at every station of a department.
+    typed = [(beam, machine)] + ([] if registered is None else [registered.names])
+    for store, here in zip(stores, found, strict=True):
         listed = [
             row
             for row in store.sessions()
@@ -298,13 +302,18 @@ def load_history_across(
         if here is None:  # matched on the names, read without decoding each one's metadata
             names = store.session_names()
             named = ((row, names.get(row.id) or row.metadata()) for row in listed)
-            rows = [(row, meta) for row, meta in named if matches(row, beam, machine, meta)]
+            rows = [
+                (row, meta)
+                for row, meta in named
+                if any(matches(row, b, m, meta) for b, m in typed)
+            ]
         else:
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
-            registered = registered or here
         entries += _entries(store, rows)
         known += [] if rows else [b for b in _beams_like(store, beam) if b not in known]
+    if refusals and not entries:  # no station measured it: say what the registers hold
+        raise refusals[0]
     if registered is not None:
         beam, machine = registered.beam, registered.machine
     if not include_all:
@@ -352,6 +361,11 @@ class _RegisteredBeam:
     beam: str
     action_pct: float | None
 
+    @property
+    def names(self) -> tuple[str, str]:
+        """Return the beam's name and its machine's, as a typed session names them."""
+        return self.beam, self.machine
+
     def matches(self, row: SessionRow, meta: dict[str, Any]) -> bool:
         """Return True for a session (``meta``: its metadata) that named this beam's register
         entry, or (recorded before the registers, or typed) its machine and beam, spaces and
@@ -366,6 +380,26 @@ class _RegisteredBeam:
 
 def _squeezed(text: object) -> str:
     return "".join(str(text or "").split()).casefold()
+
+
+def _register_beams(
+    stores: Sequence[RecordReader], text: str, machine: str | None
+) -> tuple[list[_RegisteredBeam | None], list[InputError]]:
+    """Return each station's registers' beam named by ``text`` (None where they name none),
+    and the refusals of the stations whose registers do not know it. One station's refusal
+    stands alone; among several, a station that does not know a beam another one measured is
+    left out of its history, not a reason to refuse it."""
+    found: list[_RegisteredBeam | None] = []
+    refusals: list[InputError] = []
+    for store in stores:
+        try:
+            found.append(_register_beam(store, text, machine))
+        except InputError as error:
+            if len(stores) == 1:
+                raise
+            found.append(None)
+            refusals.append(error)
+    return found, refusals
 
 
 def _register_beam(store: RecordReader, text: str, machine: str | None) -> _RegisteredBeam | None:

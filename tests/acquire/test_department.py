@@ -227,6 +227,34 @@ def test_the_registers_beam_names_its_history_in_the_department_too(
         assert from_file[0] == EXIT_OK and "DEMO-LA2" not in from_file[1].out
 
 
+def test_a_register_beams_history_across_stations_keeps_the_stations_without_registers(
+    tmp_path: Path, url: str, capsys
+) -> None:
+    """One station's registers name DEMO-LA1's 6 MV beam; another station has no registers
+    (its sessions typed DEMO-LA1 and 6 MV) and a third measured only a machine the first one's
+    registers do not know. The register beam's name finds the typed sessions too, and a beam
+    only the third measured is not refused because the first station's registers lack it."""
+    _publish(_station_with_registers(tmp_path), url, capsys)
+    _publish(_station_file(tmp_path, 0), url, capsys)  # station-a: no registers
+    other = tmp_path / "other.sqlite"
+    with Store.open(other, now=Clock()) as store:
+        store.name_station("station-o")
+        record_example_session(store, treatment_machine="DEMO-LA9")
+    _publish(other, url, capsys)
+    assert main(["history", "--beam", "DEMO-LA1 6 MV", "--db", url, "--format", "json"]) == 0
+    named = json.loads(capsys.readouterr().out)
+    command = ["history", "--beam", "6 MV", "--machine", "DEMO-LA1", "--db", url]
+    assert main([*command, "--format", "json"]) == EXIT_OK
+    typed = json.loads(capsys.readouterr().out)
+    stations = {point["station"] for point in named["points"]}
+    assert stations == {"station-r", "station-a"}
+    assert [p["session_id"] for p in named["points"]] == [p["session_id"] for p in typed["points"]]
+    assert main(["history", "--beam", "6 MV", "--machine", "DEMO-LA9", "--db", url]) == EXIT_OK
+    assert "station-o:1" in capsys.readouterr().out
+    assert main(["history", "--beam", "DEMO-LA7 6 MV", "--db", url]) == EXIT_INVALID_INPUT
+    assert "is not a beam of the registers" in capsys.readouterr().err
+
+
 def test_register_rows_read_from_the_department_are_the_station_files(
     tmp_path: Path, url: str, capsys
 ) -> None:

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 from chargebook.acquire.client import DaemonClient
-from chargebook.tui.app import ConsoleApp
+from chargebook.tui.app import ConsoleApp, closing_words
 from console_driver import DEADLINE_S, STEP_S, until
 from screen_text import screen_text
 
@@ -60,6 +60,28 @@ async def test_a_socket_file_nobody_listens_on_is_named_as_such(tmp_path: Path) 
     finally:
         stale.close()
     assert "a socket file is there but nothing listens on it; tried 2 times" in words
+
+
+async def test_a_plain_file_at_the_socket_path_is_not_called_a_socket(tmp_path: Path) -> None:
+    path = tmp_path / "daemon.sock"
+    path.write_text("not a socket\n", encoding="utf-8")  # Linux refuses it as a stale socket
+    shown, words = await gives_up(ConsoleApp(path, first_attempts=2))
+    assert "of 2 (the file there is not a socket); retrying" in " ".join(" ".join(shown).split())
+    assert "the file there is not a socket; tried 2 times" in words
+    assert "a socket file is there" not in words
+
+
+async def test_quitting_before_any_daemon_answered_does_not_say_one_goes_on_running(
+    tmp_path: Path,
+) -> None:
+    path = tmp_path / "no-daemon" / "daemon.sock"
+    app = ConsoleApp(path)
+    async with app.run_test(size=SIZE) as pilot:
+        await until(pilot, lambda: "No daemon answers yet" in screen_text(app), "a retry")
+        await pilot.press("ctrl+q")
+    words = closing_words(app.snapshot, str(path))
+    assert app.unreachable is None and "goes on running" not in words
+    assert words == f"Console closed before a daemon at {path} answered; nothing was asked of it."
 
 
 @pytest.fixture
