@@ -287,6 +287,7 @@ def load_history_across(
     choice = parse_baseline(baseline)
     entries: list[_Entry] = []
     known: list[str] = []
+    beam, machine = _machine_named_first(stores, beam, machine)
     found, refusals = _register_beams(stores, beam, machine)
     registered = next((here for here in found if here is not None), None)
     # A station whose registers do not name the beam (or that has none) matches its typed
@@ -376,6 +377,28 @@ class _RegisteredBeam:
         return _squeezed(meta.get("treatment_machine")) == _squeezed(self.machine) and (
             _squeezed(meta.get("beam") or row.beam) == _squeezed(self.beam)
         )
+
+
+def _machine_named_first(
+    stores: Sequence[RecordReader], beam: str, machine: str | None
+) -> tuple[str, str | None]:
+    """Return (beam, machine) with a machine that sessions recorded split off the front of
+    ``beam``, as the registers name a beam ("DEMO-LA1 10 MV": beam 10 MV on DEMO-LA1), so a
+    beam typed in its sessions is found by that name too; unchanged when ``machine`` is given
+    or no recorded machine begins ``beam``."""
+    words = beam.casefold().split()
+    if machine is not None:
+        return beam, machine
+    for store in stores:
+        for names in store.session_names().values():
+            known = str(names.get("treatment_machine") or "").split()
+            if (
+                known
+                and len(words) > len(known)
+                and words[: len(known)] == [word.casefold() for word in known]
+            ):
+                return " ".join(beam.split()[len(known) :]), " ".join(known)
+    return beam, machine
 
 
 def _squeezed(text: object) -> str:

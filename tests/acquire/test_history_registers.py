@@ -61,6 +61,24 @@ def test_the_register_beam_gathers_its_sessions_typed_or_named(station: Path) ->
     assert [p.U_expanded_pct for p in by_name.points] == [e.U_expanded_pct for e in evaluations]
 
 
+def test_a_typed_beam_is_found_by_its_machine_and_beam_named_as_the_registers_name_one(
+    tmp_path: Path, capsys
+) -> None:
+    """The demo registers hold DEMO-LA1's 6 MV and 10 MeV, not 10 MV; a session typed 10 MV
+    on DEMO-LA1 is found by "DEMO-LA1 10 MV", not refused with "the closest being 10 MeV"."""
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        add_demo_registers(store, actor="physicist C", today=datetime.date(2026, 12, 3))
+        record_example_session(store, beam="10 MV")
+        record_example_session(store, beam="10 MV", treatment_machine="DEMO-LA2")
+    with Store.open(path, read_only=True) as store:
+        found = load_history(store, "demo-la1  10 MV")  # case and spaces aside
+    assert (found.beam, found.machine) == ("10 MV", "DEMO-LA1")
+    assert [p.session_id for p in found.points] == [1]  # not DEMO-LA2's session 2
+    assert main(["history", "--beam", "DEMO-LA1 10 MV", "--db", str(path)]) == EXIT_OK
+    assert "Output history: 10 MV on DEMO-LA1" in capsys.readouterr().out
+
+
 def test_close_matches_are_listed_when_nothing_matches(station: Path, capsys) -> None:
     with Store.open(station, read_only=True) as store, pytest.raises(InputError) as refused:
         load_history(store, "DEMO-LA1 7 MV")
