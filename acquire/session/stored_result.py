@@ -306,9 +306,9 @@ def missing_results(store: Store, session_ids: Iterable[int] | None = None) -> l
     evaluation, outside the hash chain; those sessions are evaluated live from their recorded
     rows until the daemon keeps their results again, as it starts on the file."""
     rebuilt = (
-        "they are a cache, not the record: each session is evaluated live from its recorded "
-        "rows (what `history` shows) until the daemon rebuilds them the next time it starts on "
-        "this file (`chargebook serve --db FILE`)"
+        "kept results are a cache, not the record: each session is evaluated live from its "
+        "recorded rows (what `history` shows) until the daemon keeps its result again the next "
+        "time it starts on this file (`chargebook serve --db FILE`)"
     )
     if not store.keeps_results():
         return [f"the kept session results (table session_results) are missing: {rebuilt}"]

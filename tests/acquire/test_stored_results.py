@@ -274,7 +274,7 @@ def test_verify_checks_the_record_when_the_kept_results_table_is_dropped_and_say
     out = capsys.readouterr().out
     assert f"session {session_id}: verified" in out and "the record verifies" in out
     assert "kept session results (table session_results) are missing" in out
-    assert "the daemon rebuilds them" in out
+    assert "the daemon keeps its result again" in out
     assert main(["verify", "--db", str(path), "--json"]) == EXIT_OK
     found = json.loads(capsys.readouterr().out)
     assert found["verified"] and all(chain["verified"] for chain in found["chains"])
