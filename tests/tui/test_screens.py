@@ -364,11 +364,17 @@ async def test_a_pressure_in_hpa_and_an_n_dw_in_gy_per_c_show_what_the_daemon_wi
         screen.query_one("#field-pressure", Field).input.value = "1012"
         screen.query_one("#choice-N_Dw_unit", Select).value = "Gy/C"
         screen.query_one("#field-N_Dw", Field).input.value = "5.04e7"
-        await pilot.pause()
-        words = " ".join(screen_text(app).split())
+
+        # Each change is drawn once its events have gone round (more than one pause when loaded).
+        def words() -> str:
+            return " ".join(screen_text(app).split())
+
+        await until(pilot, lambda: "(converted from 5.04e7 Gy/C)" in words(), "the N_D,w")
+        await until(pilot, lambda: "(converted from 1012 hPa)" in words(), "the pressure")
+        shown = words()
     # 1 hPa = 0.1 kPa; 1 Gy/C = 1e-9 Gy/nC (SI prefixes).
-    assert "= 101.200 kPa (converted from 1012 hPa)" in words
-    assert "= 0.050400 Gy/nC (converted from 5.04e7 Gy/C)" in words
+    assert "= 101.200 kPa (converted from 1012 hPa)" in shown
+    assert "= 0.050400 Gy/nC (converted from 5.04e7 Gy/C)" in shown
 
 
 async def test_the_results_panel_shows_leakage_boag_and_the_air_of_each_set():
