@@ -19,7 +19,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import json
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -287,21 +287,23 @@ def load_history_across(
     choice = parse_baseline(baseline)
     entries: list[_Entry] = []
     known: list[str] = []
-    beam, machine = _machine_named_first(stores, beam, machine)
+    # Each station's session names, read once (a listing of thousands of sessions) if needed.
+    names_of = functools.cache(lambda index: stores[index].session_names())
+    beam, machine = _machine_named_first(stores, beam, machine, names_of)
     found, refusals = _register_beams(stores, beam, machine)
     registered = next((here for here in found if here is not None), None)
     # A station whose registers do not name the beam (or that has none) matches its typed
     # sessions by the names typed, or those another station's registers gave: "DEMO-LA1 6 MV"
     # is machine DEMO-LA1, beam 6 MV at every station of a department.
     typed = [(beam, machine)] + ([] if registered is None else [registered.names])
-    for store, here in zip(stores, found, strict=True):
+    for index, (store, here) in enumerate(zip(stores, found, strict=True)):
         listed = [
             row
             for row in store.sessions()
             if include_all or (row.status == "finished" and row.replay_of is None)
         ]
         if here is None:  # matched on the names, read without decoding each one's metadata
-            names = store.session_names()
+            names = names_of(index)
             named = ((row, names.get(row.id) or row.metadata()) for row in listed)
             rows = [
                 (row, meta)
@@ -380,17 +382,20 @@ class _RegisteredBeam:
 
 
 def _machine_named_first(
-    stores: Sequence[RecordReader], beam: str, machine: str | None
+    stores: Sequence[RecordReader],
+    beam: str,
+    machine: str | None,
+    names_of: Callable[[int], dict[int, dict[str, str | None]]],
 ) -> tuple[str, str | None]:
     """Return (beam, machine) with a machine that sessions recorded split off the front of
     ``beam``, as the registers name a beam ("DEMO-LA1 10 MV": beam 10 MV on DEMO-LA1), so a
     beam typed in its sessions is found by that name too; unchanged when ``machine`` is given
-    or no recorded machine begins ``beam``."""
+    or no recorded machine begins ``beam``. ``names_of(i)``: station i's session names."""
     words = beam.casefold().split()
     if machine is not None:
         return beam, machine
-    for store in stores:
-        for names in store.session_names().values():
+    for index in range(len(stores)):
+        for names in names_of(index).values():
             known = str(names.get("treatment_machine") or "").split()
             if (
                 known
