@@ -57,6 +57,7 @@ from chargebook.acquire.record.migrations import (
     migrate,
     restore_session_results,
     schema_version,
+    session_results_shape,
 )
 from chargebook.corrections.errors import InputError
 
@@ -1169,25 +1170,26 @@ class Store:
 
     def session_results(self) -> dict[int, tuple[str, str]]:
         """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
-        the file has lost its ``session_results`` table (a cache: each session is then
-        evaluated live, and a writable open keeps them again)."""
+        the file has lost its ``session_results`` table, or holds one of other columns (a
+        cache: each session is then evaluated live, and a writable open keeps them again)."""
         try:
             rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
         except sqlite3.OperationalError:
-            if self.keeps_results():
+            if self.results_table() == "kept":
                 raise
             return {}
         return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
 
     def keeps_results(self) -> bool:
         """Return True when the file has its ``session_results`` table (False: it was dropped
-        by hand; the next writable open, or the next result kept, creates it again)."""
-        return bool(
-            self.read(
-                "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
-                ("session_results",),
-            )
-        )
+        or replaced by hand; the next writable open, or the next result kept, makes it again)."""
+        return self.results_table() == "kept"
+
+    def results_table(self) -> str:
+        """Return "kept", "missing" or "other": what the file holds of ``session_results``
+        (``migrations.session_results_shape``)."""
+        with self._lock:
+            return session_results_shape(self.conn)
 
     def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
         """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
