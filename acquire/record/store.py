@@ -138,6 +138,11 @@ UnreadableRecord = sqlite3.DatabaseError
 #: The metadata keys :meth:`Store.session_names` reads: what a listing of sessions shows and
 #: filters on.
 NAMED_KEYS = ("treatment_machine", "beam", "operator")
+#: One look into a session's metadata for all of :data:`NAMED_KEYS` (an array of their values):
+#: a name missing or null reads as null there, and is told apart by a second look.
+_NAMES_EXTRACTED = "json_extract(metadata_json, {})".format(
+    ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
+)
 #: How much of a station file a read-only open maps into memory (SQLite maps no more than the
 #: file holds): 1 GiB, far beyond decades of daily checks.
 READ_MMAP_BYTES = 1 << 30
@@ -293,6 +298,35 @@ class SessionRow:
 
     def plan(self) -> dict[str, Any]:
         return json_object(self.plan_json)
+
+
+@dataclass(frozen=True, slots=True)
+class ListedSession:
+    """One session as a listing of thousands shows it: its row without the stored metadata and
+    plan (what makes a row large), and the names its metadata holds (:data:`NAMED_KEYS`, a key
+    it lacks left out), or None when they are not all text (decode the session's metadata)."""
+
+    id: int
+    created_at: str
+    status: str
+    convention: str
+    beam: str
+    replay_of: int | None
+    uuid: str | None
+    names: dict[str, str | None] | None
+
+
+#: The columns of a listed session (:class:`ListedSession`, less its names), as stored.
+LISTED_COLUMNS = "id, created_at, status, convention, beam, replay_of, uuid"
+
+
+def names_in(metadata: Mapping[str, Any]) -> dict[str, str | None] | None:
+    """Return the names of :data:`NAMED_KEYS` decoded ``metadata`` holds (a key it lacks left
+    out), or None when one of them is something other than text or null."""
+    names = {key: metadata[key] for key in NAMED_KEYS if key in metadata}
+    if all(value is None or isinstance(value, str) for value in names.values()):
+        return names
+    return None
 
 
 @dataclass(frozen=True, slots=True)
@@ -1321,13 +1355,30 @@ class Store:
         it lacks is left out; a JSON null is None), read by SQLite's JSON functions: a listing
         of thousands of sessions does not decode each one's metadata. A session whose metadata
         holds one of them as something other than text is left out (decode it)."""
-        # One look into each session's metadata for all the names (an array of their values):
-        # a name missing or null reads as null there, and is told apart by a second look.
-        paths = ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
         try:
-            rows = self.read(f"SELECT id, json_extract(metadata_json, {paths}) FROM sessions")
+            rows = self.read(f"SELECT id, {_NAMES_EXTRACTED} FROM sessions")
         except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
             return {}
+        return self._names_of(rows)
+
+    def listed_sessions(self) -> list[ListedSession]:
+        """Return every session, oldest first, as a listing shows it (:class:`ListedSession`):
+        one query, reading neither the stored metadata nor the plan into Python, which for
+        thousands of sessions costs more than the rest of the listing."""
+        sql = f"SELECT {LISTED_COLUMNS}, {{}} FROM sessions ORDER BY id"
+        try:
+            rows = self.read(sql.format(_NAMES_EXTRACTED))
+            names = self._names_of((row[0], row[-1]) for row in rows)
+        except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
+            rows, names = self.read(sql.format("NULL")), {}
+        return [
+            ListedSession(id_, created, status, convention, beam, replay_of, uuid, names.get(id_))
+            for id_, created, status, convention, beam, replay_of, uuid, _ in rows
+        ]
+
+    def _names_of(self, rows: Iterable[tuple[int, str | None]]) -> dict[int, dict[str, str | None]]:
+        """Return :meth:`session_names` from (session id, the array of its names that
+        :data:`_NAMES_EXTRACTED` reads)."""
         names: dict[int, dict[str, str | None]] = {}
         unsure: list[int] = []
         decoded: dict[str | None, tuple[str, ...] | None] = {}  # a few machines, beams, people
