@@ -764,7 +764,7 @@ class Engine:
         if sample.t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
             self.sample_line_id = sample.line_id
         assert sample.clock_s is not None  # apply gave it the engine's clock
-        self._unlogged_samples.append((sample.clock_s, (sample,), (sample.line_id,)))
+        self._unlogged_samples.append((sample.clock_s, (sample,), (sample.line_id,), sample.actor))
         captured = reading.feed(sample.t_s, sample.charge_nC, sample.complete)
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
@@ -777,15 +777,20 @@ class Engine:
             raise
 
     def take_samples(
-        self, samples: Sequence[Any], line_ids: Sequence[int | None], clock_s: float
+        self,
+        samples: Sequence[Any],
+        line_ids: Sequence[int | None],
+        clock_s: float,
+        actor: str = DAEMON_ACTOR,
     ) -> int:
         """Take pushed samples in order until one completes the reading: the same state, the
         same record and the same input log as applying an :class:`inputs.Sample` for each, one
         at a time, at ``clock_s``, but in one call (a streaming instrument brings thousands a
         second, nearly all of which only move the charge). Each sample has ``t_s`` (s),
         ``charge_nC``, ``complete`` and ``status`` (text); ``line_ids`` the row of each one's
-        raw line. Return how many were taken (:attr:`samples_taken` says it too, as they are
-        taken: a capture that fails to be recorded raises, and its sample is not taken).
+        raw line; ``actor`` who gives them (the daemon, or a replay of it). Return how many were
+        taken (:attr:`samples_taken` says it too, as they are taken: a capture that fails to be
+        recorded raises, and its sample is not taken).
         """
         self.samples_taken = 0
         reading = self.reading
@@ -796,7 +801,7 @@ class Engine:
         # with its capture, after the ones that only moved the charge
         status, line_id = self.reading_status, self.sample_line_id
         if kept:
-            self._unlogged_samples.append((clock_s, samples[:kept], line_ids[:kept]))
+            self._unlogged_samples.append((clock_s, samples[:kept], line_ids[:kept], actor))
             status = str(samples[kept - 1].status)
             line_id = _latest_line(samples, line_ids, kept, reading.armed_t_s, line_id)
         self.samples_taken = kept
@@ -807,7 +812,7 @@ class Engine:
         # before it: its capture is recorded (or refused) exactly as apply records one
         vars(reading).update(before)
         self.reading_status, self.sample_line_id = status, line_id
-        self.apply(sample_log.sample_input(clock_s, samples[kept], line_ids[kept]))
+        self.apply(sample_log.sample_input(clock_s, samples[kept], line_ids[kept], actor))
         self.samples_taken = fed
         return fed
 

@@ -20,16 +20,20 @@ from typing import Any
 
 from chargebook.acquire.engine import inputs
 
-#: Samples taken in one call: (clock_s, the samples, each one's traffic row or None).
-Chunk = tuple[float, Sequence[Any], Sequence[int | None]]
+#: Samples taken in one call: (clock_s, the samples, each one's traffic row or None, the
+#: actor who gave them: the daemon, or a replay of it).
+Chunk = tuple[float, Sequence[Any], Sequence[int | None], str]
 #: An entry of the input log as ``Store.add_inputs`` takes it: (kind, actor, detail).
 Entry = tuple[str, str, dict[str, Any]]
 
 
-def sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sample:
+def sample_input(
+    clock_s: float, sample: Any, line_id: int | None, actor: str = inputs.DAEMON_ACTOR
+) -> inputs.Sample:
     """Return the input one sample stands for (``t_s`` in s, ``charge_nC``, ``complete``,
-    ``status`` as text; ``line_id`` its traffic row), taken at ``clock_s`` (s)."""
+    ``status`` as text; ``line_id`` its traffic row), given by ``actor`` at ``clock_s`` (s)."""
     return inputs.Sample(
+        actor=actor,
         t_s=sample.t_s,
         charge_nC=sample.charge_nC,
         complete=sample.complete,
@@ -41,23 +45,25 @@ def sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sam
 
 def logged_entries(chunks: Sequence[Chunk]) -> list[Entry]:
     """Return the input-log entries for the samples of ``chunks``, in order: each run of samples
-    on consecutive traffic rows as one ``sample_run``, any other sample as one ``sample``."""
+    on consecutive traffic rows (given by one actor) as one ``sample_run``, any other sample as
+    one ``sample``."""
     entries: list[Entry] = []
     parts: list[Sequence[Any]] = []  # the samples of the run being gathered
     first_id = next_id = None  # the rows of its first sample and of the sample after its last
-    clock_s = 0.0
-    for chunk_clock_s, samples, line_ids in chunks:
+    clock_s, actor = 0.0, inputs.DAEMON_ACTOR
+    for chunk_clock_s, samples, line_ids, chunk_actor in chunks:
         for start, stop, line_id in _spans(line_ids):
-            if line_id is None or line_id != next_id:
-                entries.extend(_run_entries(parts, first_id, clock_s))
-                parts, first_id, next_id = [], line_id, line_id
+            if line_id is None or line_id != next_id or chunk_actor != actor:
+                entries.extend(_run_entries(parts, first_id, clock_s, actor))
+                parts, first_id, next_id, actor = [], line_id, line_id, chunk_actor
             if line_id is None:
-                entries.append(_entry(sample_input(chunk_clock_s, samples[start], None)))
+                lone = sample_input(chunk_clock_s, samples[start], None, actor)
+                entries.append((lone.kind, lone.actor, lone.fields()))
                 continue
             parts.append(samples[start:stop])
             next_id = line_id + stop - start
             clock_s = chunk_clock_s
-    entries.extend(_run_entries(parts, first_id, clock_s))
+    entries.extend(_run_entries(parts, first_id, clock_s, actor))
     return entries
 
 
@@ -76,16 +82,20 @@ def _spans(line_ids: Sequence[int | None]) -> Iterator[tuple[int, int, int | Non
             start = index
 
 
-def _run_entries(parts: list[Sequence[Any]], first_id: int | None, clock_s: float) -> list[Entry]:
+def _run_entries(
+    parts: list[Sequence[Any]], first_id: int | None, clock_s: float, actor: str
+) -> list[Entry]:
     """Return the entry of the samples ``parts`` holds, on the rows from ``first_id``: none
     for no sample, a ``sample`` for one, a ``sample_run`` for more."""
     samples = parts[0] if len(parts) == 1 else list(chain.from_iterable(parts))
     if not samples or first_id is None:
         return []
     if len(samples) == 1:
-        return [_entry(sample_input(clock_s, samples[0], first_id))]
+        lone = sample_input(clock_s, samples[0], first_id, actor)
+        return [(lone.kind, lone.actor, lone.fields())]
     last = samples[-1]
     run = inputs.SampleRun(
+        actor=actor,
         clock_s=clock_s,
         first_line_id=first_id,
         count=len(samples),
@@ -95,8 +105,4 @@ def _run_entries(parts: list[Sequence[Any]], first_id: int | None, clock_s: floa
         status=str(last.status),
         digest=inputs.run_digest(samples),
     )
-    return [_entry(run)]
-
-
-def _entry(given: inputs.Input) -> Entry:
-    return given.kind, given.actor, given.fields()
+    return [(run.kind, run.actor, run.fields())]

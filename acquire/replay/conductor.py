@@ -311,7 +311,7 @@ class Conductor:
         )  # fmt: skip
         engine, version, taken = self.engine, self.engine.data_version, 0
         while taken < len(samples) and engine.reading is not None:
-            fed = engine.take_samples(samples[taken:], line_ids[taken:], clock_s)
+            fed = engine.take_samples(samples[taken:], line_ids[taken:], clock_s, given.actor)
             if not fed:
                 break
             taken += fed
