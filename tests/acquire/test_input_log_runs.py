@@ -127,17 +127,41 @@ async def _flood_then_abort(world, count: int) -> None:
         await client.close()
 
 
-@pytest.fixture(scope="module")
-def flooded(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int]:
-    """Return a station file where the real daemon took a flood of pushed lines, and the id of
-    its session (aborted after a pause)."""
-    target = tmp_path_factory.mktemp("runs") / "station.sqlite"
+def _record_flood(target: Path) -> tuple[Path, int]:
+    """Record a flood of pushed lines with the real daemon into ``target``; return it and the
+    id of its session (aborted after a pause)."""
     with station("runs", "push-exponent", *QUIET_STREAM) as world:
         asyncio.run(_flood_then_abort(world, FLOODED))
         world.stop_daemon()
         shutil.copyfile(world.db, target)
     session_id = read_db(target, "SELECT max(id) FROM sessions")[0][0]
     return target, session_id
+
+
+@pytest.fixture(scope="module")
+def flooded(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int]:
+    """Return a station file where the real daemon took a flood of pushed lines, and the id of
+    its session."""
+    return _record_flood(tmp_path_factory.mktemp("runs") / "station.sqlite")
+
+
+#: Loaded by the daemon's interpreter at start-up (``sitecustomize``): it logs every sample as
+#: its own entry, as chargebook did before runs, so the file is one of the previous version.
+ONE_ENTRY_A_SAMPLE = """
+from chargebook.acquire.engine import sample_log
+
+
+def logged_entries(chunks):
+    return [
+        (given.kind, given.actor, given.fields())
+        for clock_s, samples, line_ids, actor in chunks
+        for given in map(sample_log.sample_input, [clock_s] * len(samples), samples, line_ids,
+                         [actor] * len(samples))
+    ]
+
+
+sample_log.logged_entries = logged_entries
+"""
 
 
 def _tampered(flooded: tuple[Path, int], tmp_path: Path, *statements: str) -> Path:
@@ -169,6 +193,21 @@ def test_a_flooded_session_logs_o1_entries_and_replays_exactly(flooded):
     kinds = [row.kind for row in logged]
     assert kinds.count("sample") + kinds.count("sample_run") <= 3  # not one per line
     assert _run_entry(db, session_id)[2] >= FLOODED
+    report = replay_session(ReplayRequest(db, session_id, speed=0, dry_run=True))
+    assert report.reproduced, report.comparison.to_dict()
+
+
+@pytest.mark.e2e
+def test_a_file_logged_one_entry_a_sample_still_verifies_and_replays_exactly(tmp_path):
+    (tmp_path / "site").mkdir()
+    (tmp_path / "site" / "sitecustomize.py").write_text(ONE_ENTRY_A_SAMPLE)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv("PYTHONPATH", str(tmp_path / "site"))
+        db, session_id = _record_flood(tmp_path / "station.sqlite")
+    with Store.open(db, read_only=True) as store:
+        kinds = [row.kind for row in store.inputs(session_id)]
+        assert verify_session(store, session_id).verified
+    assert kinds.count("sample") >= FLOODED and "sample_run" not in kinds
     report = replay_session(ReplayRequest(db, session_id, speed=0, dry_run=True))
     assert report.reproduced, report.comparison.to_dict()
 
