@@ -255,7 +255,7 @@ def run_digest(samples: Sequence[Any]) -> str:
     digest.update(times.tobytes())
     digest.update(charges.tobytes())
     digest.update(bytes(map(_COMPLETE, samples)))
-    digest.update("\n".join(map(_STATUS, samples)).encode())
+    digest.update("\n".join(map(str, map(_STATUS, samples))).encode())
     return digest.hexdigest()
 
 
