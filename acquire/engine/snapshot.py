@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import weakref
 from collections.abc import Mapping
+from dataclasses import dataclass, field
+from itertools import compress, repeat
+from operator import attrgetter, eq, is_not, itemgetter, or_
 from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.protocol import (
@@ -28,11 +31,36 @@ if TYPE_CHECKING:
 
 S = EngineState
 
-#: Per engine, per set id: (what the set's entry was computed from, the entry). A set's
-#: statistics and flags are recomputed only when its row, its readings, the thresholds or its
-#: plan step changed, so a finished set costs nothing while another one is being taken.
-_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], SetInfo]]]
-_SET_CACHE = weakref.WeakKeyDictionary()
+_ID = attrgetter("id")
+_STATUS = itemgetter("status")
+_STEP_INDEX = itemgetter("step_index")
+
+
+@dataclass
+class _Kept:
+    """What an engine's last snapshot was built from, and the parts built, to be used again
+    where nothing they depend on changed (the very objects: a client compares by identity,
+    and :func:`protocol.snapshot_delta` finds what changed without comparing the rest)."""
+
+    #: The sets' rows, their readings, whether each one's flags use the routine set's
+    #: charge per MU, the plan, thresholds and that reference they were computed with.
+    rows: list[SetRow] = field(default_factory=list)
+    owns: list[tuple[ReadingRow, ...]] = field(default_factory=list)
+    compared: list[bool] = field(default_factory=list)
+    plan: object = None
+    thresholds: object = None
+    reference: float | None = None
+    entries: list[SetInfo] = field(default_factory=list)
+    #: The session's row and its entry; the environment rows and their entries.
+    session: tuple[object, str, SessionInfo | None] = (None, "", None)
+    environment: tuple[list[object], list[EnvironmentInfo]] = ([], [])
+
+
+#: Per engine: what its last snapshot was built from (see :class:`_Kept`). A set's statistics
+#: and flags are recomputed only when its row, its readings, the thresholds or the plan
+#: changed, so a finished set costs nothing while another one is being taken, and finding
+#: the set that changed among hundreds is a few passes in C, not a Python loop over them.
+_KEPT: weakref.WeakKeyDictionary[Engine, _Kept] = weakref.WeakKeyDictionary()
 
 
 def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snapshot:
@@ -47,19 +75,10 @@ def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snap
     results, provisional, results_error = shown
     if session_id is not None:
         assert engine.plan is not None  # a session is open: its plan is known
-        row = store.session(session_id)
-        session = {
-            "id": row.id,
-            "status": row.status,
-            "created_at": row.created_at,
-            "metadata": row.metadata(),
-            "convention": row.convention,
-            "beam": row.beam,
-            "plan_name": engine.plan.name,
-            "reason": row.reason,
-        }
+        kept = _KEPT.setdefault(engine, _Kept())
+        session = _session_info(kept, store.session(session_id), engine.plan.name)
         sets = _sets_info(engine, store.sets(session_id), store.readings_by_set(session_id))
-        entries = [_environment_info(entry) for entry in store.environment(session_id)]
+        entries = _environment_entries(kept, store.environment(session_id))
         if entries:
             environment = entries[-1]
     active_id = engine.active.id if engine.active is not None else None
@@ -98,32 +117,71 @@ def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snap
     }
 
 
+def _session_info(kept: _Kept, row: Any, plan_name: str) -> SessionInfo:
+    """Return the session's entry: the one built last while its row and plan are the same."""
+    if kept.session[2] is not None and kept.session[1] == plan_name and kept.session[0] == row:
+        return kept.session[2]
+    session: SessionInfo = {
+        "id": row.id,
+        "status": row.status,
+        "created_at": row.created_at,
+        "metadata": row.metadata(),
+        "convention": row.convention,
+        "beam": row.beam,
+        "plan_name": plan_name,
+        "reason": row.reason,
+    }
+    kept.session = (row, plan_name, session)
+    return session
+
+
+def _environment_entries(kept: _Kept, rows: list[EnvironmentRow]) -> list[EnvironmentInfo]:
+    """Return the session's environment entries: the list built last while its rows are."""
+    if rows == kept.environment[0]:
+        return kept.environment[1]
+    entries = [_environment_info(entry) for entry in rows]
+    kept.environment = (list(rows), entries)
+    return entries
+
+
 def _sets_info(
     engine: Engine, rows: list[SetRow], by_set: Mapping[int, tuple[ReadingRow, ...]]
 ) -> list[SetInfo]:
     """Return every set's entry, reusing the entries of sets whose inputs did not change (the
     very dict: a set that did not change is the same object in the next snapshot)."""
-    cache = _SET_CACHE.setdefault(engine, {})
-    fresh: dict[int, tuple[tuple[Any, ...], SetInfo]] = {}
-    entries: list[SetInfo] = []
     plan = engine.plan
     assert plan is not None  # sets exist only in a session
+    kept = _KEPT.setdefault(engine, _Kept())
     reference = rules.routine_nC_per_MU(plan, rows, by_set)
+    owns: list[tuple[ReadingRow, ...]] = list(map(by_set.get, map(_ID, rows), repeat(())))
+    if kept.plan is plan and kept.thresholds == engine.thresholds:
+        same = min(len(rows), len(kept.rows))
+        kept_rows, kept_owns = kept.rows, kept.owns
+        # the sets whose row or readings are other objects (in C), then those really changed
+        moved = compress(
+            range(same), map(or_, map(is_not, rows, kept_rows), map(is_not, owns, kept_owns))
+        )
+        changed = {i for i in moved if rows[i] != kept_rows[i] or owns[i] != kept_owns[i]}
+        if reference != kept.reference:  # only the delivery flags of compared sets use it
+            changed.update(compress(range(same), kept.compared))
+        entries, compared = kept.entries[:same], kept.compared[:same]
+    else:
+        same, changed, entries, compared = 0, set(), [], []
     steps = plan.steps
-    for row in rows:
-        own = by_set.get(row.id, ())
+    for index in sorted(changed) + list(range(same, len(rows))):
+        row = rows[index]
         step = steps[row.step_index] if row.step_index < len(steps) else None
+        entry = _set_info(engine, row, list(owns[index]), step, reference)
         # only the delivery flags of a beam set other than the routine one use the reference
-        compared = step is not None and step.uses_beam and step.purpose != "routine"
-        inputs = (row, own, engine.thresholds, step, reference if compared else None)
-        cached = cache.get(row.id)
-        entry = cached[1] if cached is not None and cached[0] == inputs else None
-        if entry is None:
-            entry = _set_info(engine, row, list(own), step, reference)
-        fresh[row.id] = (inputs, entry)
-        entries.append(entry)
-    _SET_CACHE[engine] = fresh
-    return entries
+        uses = step is not None and step.uses_beam and step.purpose != "routine"
+        if index < same:
+            entries[index], compared[index] = entry, uses
+        else:
+            entries.append(entry)
+            compared.append(uses)
+    kept.rows, kept.owns, kept.compared, kept.entries = list(rows), owns, compared, entries
+    kept.plan, kept.thresholds, kept.reference = plan, engine.thresholds, reference
+    return list(entries)
 
 
 def _set_info(
@@ -180,7 +238,9 @@ def _environment_info(entry: EnvironmentRow) -> EnvironmentInfo:
 def _plan_info(engine: Engine, sets: list[SetInfo]) -> list[StepInfo]:
     if engine.plan is None:
         return []
-    accepted = {s["step_index"] for s in sets if s["status"] == "accepted"}
+    accepted = set(
+        map(_STEP_INDEX, compress(sets, map(eq, map(_STATUS, sets), repeat("accepted"))))
+    )
     steps: list[StepInfo] = []
     for index, step in enumerate(engine.plan.steps):
         if index in accepted:
