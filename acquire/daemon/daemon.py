@@ -215,6 +215,7 @@ class InstrumentLink(threading.Thread):
         self._quit = threading.Event()
         self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
         self._flushed_at = 0.0  # when the raw lines were last committed (time.monotonic)
+        self._burst_lines = 0  # how many lines the last burst of pushed lines brought
         self._reply_note: str | None = None  # the driver's note on late or slow answers
         self.backlog_full = False
 
@@ -448,23 +449,31 @@ class InstrumentLink(threading.Thread):
 
     def _drain_pushed(self, chunks: list[SampleChunk]) -> None:
         """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next read
-        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH samples.
+        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH samples. A lone line after a burst
+        of one line ends its burst at once: an instrument that sends its lines one at a time
+        (tens or hundreds a second) is not waited on for a next line that is not coming.
 
         A rejected line is logged and skipped; the burst goes on.
         """
         timeout_s = POLL_INTERVAL_S
-        count = 0
-        while count < MAX_SAMPLES_PER_BATCH:
-            self.lines_read()  # forget lines recorded outside this read (commands' answers)
-            burst = self.electrometer.read_samples(timeout_s)
-            for error in burst.rejected:
-                log.warning("rejected a line from the electrometer: %s", error)
-            if not burst.count:
-                return
-            if burst.samples:
-                chunks.append(_chunk(burst, self.lines_read()))
-                count += len(burst.samples)
-            timeout_s = BURST_GAP_S
+        count = lines = 0
+        try:
+            while count < MAX_SAMPLES_PER_BATCH:
+                self.lines_read()  # forget lines recorded outside this read (commands' answers)
+                burst = self.electrometer.read_samples(timeout_s)
+                for error in burst.rejected:
+                    log.warning("rejected a line from the electrometer: %s", error)
+                if not burst.count:
+                    return
+                lines += burst.count
+                if burst.samples:
+                    chunks.append(_chunk(burst, self.lines_read()))
+                    count += len(burst.samples)
+                if lines == 1 and self._burst_lines == 1:
+                    return
+                timeout_s = BURST_GAP_S
+        finally:
+            self._burst_lines = lines
 
 
 def _chunk(burst: SampleBurst, read: list[tuple[LineRef, int]]) -> SampleChunk:
