@@ -22,8 +22,9 @@ Sequence of a client
        snapshot. A client whose snapshot is not the delta's base (it missed one) asks for the
        whole snapshot again (``status``). So the bytes sent per reading do not grow with the
        session nor with the set: a reading sends itself, its set's new statistics and what
-       else changed (the prompt), not its set's other readings nor the sets before it. The
-       results follow in a later delta while readings stream (see the daemon).
+       else changed (the prompt), not its set's other readings nor the sets before it. While
+       readings stream, the set's statistics and the results follow in a later delta (see
+       the daemon).
     3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
        lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
 

@@ -73,10 +73,11 @@ REFRESH_PAUSE_S = 0.01
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: While readings stream, shortest time between two computations of the results (with their
-#: uncertainty budget and dose), s: each reading is sent at once with its set's statistics, and
-#: the results follow in a delta of their own at most this often. Once readings stop (the set
-#: complete, paused, interrupted ...) the results are computed with the change that stopped
-#: them, and a set still collecting gets its results within this time of its latest reading.
+#: uncertainty budget and dose) and of the collecting set's statistics and flags, s: each
+#: reading is sent at once (with its label and the flags of its own status), and the set's
+#: statistics and the results follow in a delta of their own at most this often. Once readings
+#: stop (the set complete, paused, interrupted ...) they are computed with the change that
+#: stopped them, and a set still collecting gets them within this time of its latest reading.
 RESULTS_INTERVAL_S = 0.1
 #: The states in which readings stream in from the instrument (results may follow them).
 STREAMING_STATES = frozenset({protocol.EngineState.COLLECTING, protocol.EngineState.SETTLING})
@@ -1057,8 +1058,8 @@ class Daemon:
     async def publish(self, *, streaming: bool = False) -> None:
         """Broadcast the audit events committed since the last call (as the store handed them
         over: nothing is read back) and, if the state changed, the snapshot. ``streaming``:
-        while readings stream, a reading is sent with the results computed last, and the
-        results follow in a delta of their own (:meth:`_results_later`)."""
+        while readings stream, a reading is sent with the results (and its set's statistics)
+        computed last, and those follow in a delta of their own (:meth:`_results_later`)."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
         servers = (self.server, self.watch_server)

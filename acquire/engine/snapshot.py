@@ -13,8 +13,10 @@ from chargebook.acquire.protocol import (
     CAUTION,
     EngineState,
     EnvironmentInfo,
+    FlagInfo,
     LiveReading,
     PromptInfo,
+    ReadingInfo,
     ReadingPhase,
     SessionInfo,
     SetInfo,
@@ -51,6 +53,8 @@ class _Kept:
     thresholds: object = None
     reference: float | None = None
     entries: list[SetInfo] = field(default_factory=list)
+    #: The sets whose entry shows statistics and flags from before its latest readings.
+    grown: set[int] = field(default_factory=set)
     #: The session's row and its entry; the environment rows and their entries.
     session: tuple[object, str, SessionInfo | None] = (None, "", None)
     environment: tuple[list[object], list[EnvironmentInfo]] = ([], [])
@@ -65,7 +69,10 @@ _KEPT: weakref.WeakKeyDictionary[Engine, _Kept] = weakref.WeakKeyDictionary()
 
 def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snapshot:
     """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...);
-    ``results_shown``: the results to show, when not the engine's results now."""
+    ``results_shown``: the results to show, when not the engine's results now (computed last,
+    while readings stream). With them, a set that only gained readings since the last snapshot
+    shows its new readings at once and its statistics and flags as computed last: those are
+    computed again with the results, which follow (see :func:`_grown_entry`)."""
     store, session_id = engine.store, engine.session_id
     sets: list[SetInfo] = []
     environment: EnvironmentInfo | None = None
@@ -77,7 +84,8 @@ def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snap
         assert engine.plan is not None  # a session is open: its plan is known
         kept = _KEPT.setdefault(engine, _Kept())
         session = _session_info(kept, store.session(session_id), engine.plan.name)
-        sets = _sets_info(engine, store.sets(session_id), store.readings_by_set(session_id))
+        rows, by_set = store.sets(session_id), store.readings_by_set(session_id)
+        sets = _sets_info(engine, rows, by_set, summaries_later=results_shown is not None)
         entries = _environment_entries(kept, store.environment(session_id))
         if entries:
             environment = entries[-1]
@@ -145,10 +153,16 @@ def _environment_entries(kept: _Kept, rows: list[EnvironmentRow]) -> list[Enviro
 
 
 def _sets_info(
-    engine: Engine, rows: list[SetRow], by_set: Mapping[int, tuple[ReadingRow, ...]]
+    engine: Engine,
+    rows: list[SetRow],
+    by_set: Mapping[int, tuple[ReadingRow, ...]],
+    *,
+    summaries_later: bool = False,
 ) -> list[SetInfo]:
     """Return every set's entry, reusing the entries of sets whose inputs did not change (the
-    very dict: a set that did not change is the same object in the next snapshot)."""
+    very dict: a set that did not change is the same object in the next snapshot).
+    ``summaries_later``: a set that only gained readings keeps its statistics and flags as
+    computed last (:func:`_grown_entry`); the next snapshot without it computes them."""
     plan = engine.plan
     assert plan is not None  # sets exist only in a session
     kept = _KEPT.setdefault(engine, _Kept())
@@ -164,14 +178,23 @@ def _sets_info(
         changed = {i for i in moved if rows[i] != kept_rows[i] or owns[i] != kept_owns[i]}
         if reference != kept.reference:  # only the delivery flags of compared sets use it
             changed.update(compress(range(same), kept.compared))
+        # the sets shown with earlier statistics: theirs are due, unless they wait again
+        changed.update(index for index in kept.grown if index < same)
         entries, compared = kept.entries[:same], kept.compared[:same]
     else:
         same, changed, entries, compared = 0, set(), [], []
     steps = plan.steps
+    kept.grown = set()
     for index in sorted(changed) + list(range(same, len(rows))):
         row = rows[index]
         step = steps[row.step_index] if row.step_index < len(steps) else None
-        entry = _set_info(engine, row, list(owns[index]), step, reference)
+        entry = None
+        if summaries_later and index < same and rows[index] == kept.rows[index]:
+            entry = _grown_entry(entries[index], kept.owns[index], owns[index])
+        if entry is not None:
+            kept.grown.add(index)
+        else:
+            entry = _set_info(engine, row, list(owns[index]), step, reference)
         # only the delivery flags of a beam set other than the routine one use the reference
         uses = step is not None and step.uses_beam and step.purpose != "routine"
         if index < same:
@@ -182,6 +205,42 @@ def _sets_info(
     kept.rows, kept.owns, kept.compared, kept.entries = list(rows), owns, compared, entries
     kept.plan, kept.thresholds, kept.reference = plan, engine.thresholds, reference
     return list(entries)
+
+
+def _grown_entry(
+    entry: SetInfo, before: tuple[ReadingRow, ...], own: tuple[ReadingRow, ...]
+) -> SetInfo | None:
+    """Return a set's ``entry`` with the readings it gained since it showed ``before`` (each
+    with the flags of its own status; the flags that compare it with the others follow with the
+    statistics), its statistics and flags unchanged; None unless ``own`` only extends
+    ``before``. While readings stream in at tens a second, the statistics and flags are then
+    computed with the results, at most every few tenths of a second, not at every reading."""
+    held = len(before)
+    if len(own) <= held or own[:held] != before:
+        return None
+    labels = reading_labels(reading.settling for reading in own)[held:]
+    added = [
+        _reading_info(reading, label, rules.reading_flags(reading, False))
+        for reading, label in zip(own[held:], labels, strict=True)
+    ]
+    done = entry["readings_done"] + sum(1 for reading in own[held:] if not reading.settling)
+    return {**entry, "readings": [*entry["readings"], *added], "readings_done": done}
+
+
+def _reading_info(reading: ReadingRow, label: str, flags: list[FlagInfo]) -> ReadingInfo:
+    """Return one reading's entry in its set's (``label``: its number as shown)."""
+    return {
+        "id": reading.id,
+        "seq": reading.seq,
+        "label": label,
+        "t_s": reading.t_s,
+        "charge_nC": reading.charge_nC,
+        "capture": reading.capture,
+        "settling": bool(reading.settling),
+        "status": reading.status,
+        "recorded_at": reading.recorded_at,
+        "flags": flags,
+    }
 
 
 def _set_info(
@@ -202,18 +261,7 @@ def _set_info(
         "status": row.status,
         "reason": row.reason,
         "readings": [
-            {
-                "id": r.id,
-                "seq": r.seq,
-                "label": label,
-                "t_s": r.t_s,
-                "charge_nC": r.charge_nC,
-                "capture": r.capture,
-                "settling": bool(r.settling),
-                "status": r.status,
-                "recorded_at": r.recorded_at,
-                "flags": per_reading.get(r.id, []),
-            }
+            _reading_info(r, label, per_reading.get(r.id, []))
             for r, label in zip(own, reading_labels(r.settling for r in own), strict=True)
         ],
         "readings_needed": int(step.readings) if step is not None else len(own),
