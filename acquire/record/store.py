@@ -453,6 +453,9 @@ class _KnownRows:
     last_reading_id: int = 0
     stale: set[int] = field(default_factory=set)
     current: bool = False
+    #: The session's row and its environment entries as last read (None: read them again).
+    session: SessionRow | None = None
+    environment: tuple[EnvironmentRow, ...] | None = None
 
     def add(self, sets: Iterable[SetRow], readings: list[ReadingRow]) -> None:
         """Take in sets (new, or with a new status) and new readings, in id order."""
@@ -1183,6 +1186,9 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+            known = self._known_current(session_id)
+            if known is not None:
+                known.session = None  # read again, with its new status
             if status == "open":  # resumed: what it recorded before is no longer its result
                 self.conn.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
             elif self.results_on_close is not None:
@@ -1263,8 +1269,17 @@ class Store:
         return self._select(SessionRow, "sessions", "1")
 
     def session(self, session_id: int) -> SessionRow:
-        """Return one session. Raises :class:`NotFound` (a KeyError) when there is none."""
-        return self._one(SessionRow, "sessions", session_id, "session")
+        """Return one session. Raises :class:`NotFound` (a KeyError) when there is none.
+        While rows are remembered (:meth:`remember_rows`), the open session's row is read once
+        and again only after this store changed its status."""
+        with self._lock:
+            known = self._known_current(session_id)
+            if known is not None and known.session is not None:
+                return known.session
+            row = self._one(SessionRow, "sessions", session_id, "session")
+            if known is not None:
+                known.session = row
+        return row
 
     # ---------------------------------------------------------------------- reading sets
 
@@ -1542,11 +1557,23 @@ class Store:
         }
         with self.atomic():
             self._require_session(session_id)
+            known = self._known_current(session_id)
+            if known is not None:
+                known.environment = None  # read again, with the new entry
             return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
-        """Return the session's environment entries, oldest first (the last one is current)."""
-        return self._select(EnvironmentRow, "environment", "session_id = ?", (session_id,))
+        """Return the session's environment entries, oldest first (the last one is current).
+        While rows are remembered (:meth:`remember_rows`), the open session's are read once
+        and again only after this store added one."""
+        with self._lock:
+            known = self._known_current(session_id)
+            if known is not None and known.environment is not None:
+                return list(known.environment)
+            rows = self._select(EnvironmentRow, "environment", "session_id = ?", (session_id,))
+            if known is not None:
+                known.environment = tuple(rows)
+        return rows
 
     # ----------------------------------------------------------------------------- events
 
