@@ -79,6 +79,8 @@ class MeasureScreen(ConsoleScreen):
     """The screen for an open session: everything the operator needs at each step."""
 
     kind = "measure"
+    _offered: tuple[bool, tuple[str, ...]] | None = None  # (watching, allowed) on the buttons
+    _air_words: str | None = None  # the air line shown (None: hidden)
     BINDINGS: ClassVar[list[BindingType]] = [
         *(
             Binding(action.key, f"do('{action.name}')", action.key_help, tooltip=action.help)
@@ -89,47 +91,58 @@ class MeasureScreen(ConsoleScreen):
     ]
 
     def compose(self) -> ComposeResult:
+        # The parts drawn at every snapshot are held, not looked up by a query each time.
+        self._step_panel = StepPanel(id="step-panel")
+        self._air_line = Static("", id="air-line", markup=False)
+        self._air_line.display = False  # shown in a calibration visit (show_air)
+        self._tabs = TabbedContent(id="measure-tabs", initial="now")
+        self._set_panel = ReadingSetPanel(id="reading-set")
+        self._results = ResultsPanel(id="results")
+        self._action_bar = ActionBar(id="action-bar")
         yield StatusLine(id="status-line", markup=False)
-        yield StepPanel(id="step-panel")
-        yield Static("", id="air-line", markup=False)
-        with TabbedContent(id="measure-tabs", initial="now"):
+        yield self._step_panel
+        yield self._air_line
+        with self._tabs:
             with TabPane(TABS[0][2], id="now"), Horizontal(id="now-columns"):
-                yield ReadingSetPanel(id="reading-set")
-                yield ResultsPanel(id="results")
+                yield self._set_panel
+                yield self._results
             with TabPane(TABS[1][2], id="sets"):
                 yield SetHistory(id="set-history")
             with TabPane(TABS[2][2], id="plan"), VerticalScroll():
                 yield PlanView(id="plan-view")
             with TabPane(TABS[3][2], id="flags"), VerticalScroll():
                 yield FlagList(id="flag-list", markup=False)
-        yield ActionBar(id="action-bar")
+        yield self._action_bar
         yield CautionLine()
         yield Footer(compact=True, show_command_palette=False)
 
     # -- drawing, from the latest snapshot only --------------------------------------------
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         shown_set = self._shown_set(snapshot)
-        step_panel = self.query_one(StepPanel)
-        step_panel.connected = self.link.connected
-        step_panel.snapshot = snapshot
+        self._step_panel.connected = self.link.connected
+        self._step_panel.snapshot = snapshot
         self.show_air()
-        self.query_one(ReadingSetPanel).set_info = shown_set
-        tabs = self.query_one(TabbedContent)
-        self._draw_tab(tabs.active, snapshot)
+        self._set_panel.set_info = shown_set
+        self._draw_tab(self._tabs.active, snapshot)
         count = flag_count(shown_set, snapshot)
-        relabel(tabs.get_tab("flags"), f"{TABS[3][2]} ({count} !)" if count else TABS[3][2])
-        self.query_one(ResultsPanel).snapshot = snapshot
-        action_bar = self.query_one(ActionBar)
-        action_bar.display = not self.watching  # a watching console offers no action
-        action_bar.show_allowed(self.allowed())
+        relabel(self._tabs.get_tab("flags"), f"{TABS[3][2]} ({count} !)" if count else TABS[3][2])
+        self._results.snapshot = snapshot
+        offered = (self.watching, tuple(self.allowed()))
+        if offered != self._offered:  # the buttons change only when the allowed actions do
+            self._offered = offered
+            self._action_bar.display = not self.watching  # a watching console offers no action
+            self._action_bar.show_allowed(offered[1])
 
     def show_air(self) -> None:
         """Show, in a calibration visit, the air entry in force, its source and its age now."""
-        shown = self.query_one("#air-line", Static)
         visit = (self.snapshot or {}).get("visit") or {}
-        shown.display = visit.get("status") == "open"
-        if shown.display:
-            shown.update(visit_view.air_line(self.snapshot, datetime.now(UTC)))
+        words = visit_view.air_line(self.snapshot, datetime.now(UTC)) if visit else None
+        if visit.get("status") != "open":
+            words = None
+        if words != self._air_words:  # an update lays the screen out: only when it changed
+            self._air_words = words
+            self._air_line.display = words is not None
+            self._air_line.update(words or "")
 
     def on_mount(self) -> None:
         super().on_mount()
