@@ -138,6 +138,9 @@ class OwnLines(Widget):
             return
         if len(lines) != count and not self._height_fixed():
             self.refresh(layout=True)
+            # and again after this frame: asked while the screen handles a resize (the first
+            # lines, built as the widget gets its width), the first request is lost
+            self.call_after_refresh(self.refresh, layout=True)
         else:
             first, past = span
             self.refresh(Region(0, first, max(self.size.width, 1), past - first))
