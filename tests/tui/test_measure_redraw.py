@@ -8,12 +8,14 @@ from __future__ import annotations
 
 from typing import Any
 
-from chargebook.tui.screens.measure import MeasureScreen, relabel
+from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
 from chargebook.tui.widgets.results_panel import ResultsPanel
+from chargebook.tui.widgets.tab_strip import TabStrip
 from harness import CONNECTED, ScreenHarness, load_snapshot
 from screen_text import screen_text
-from textual.widgets import TabbedContent
+from test_screens import _with_readings
+from textual.widget import Widget
 
 SIZE = (80, 24)
 
@@ -58,26 +60,94 @@ async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_result
         assert "!! Results not computed: no reading" in screen_text(app)
 
 
-async def test_the_flags_tab_shows_its_new_count_repainted_in_place_or_laid_out_wider() -> None:
+async def test_the_flags_tab_shows_its_new_count_in_its_one_line_without_a_layout() -> None:
     app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
-        tab = app.screen.query_one(TabbedContent).get_tab("flags")
+        strip = app.screen.query_one(TabStrip)
+        assert "4 Flags (7 !)" in screen_text(app)
         layouts = []
-        refresh = tab.refresh
+        refresh = strip.refresh
 
-        def counted(*regions: Any, **options: Any) -> None:
+        def counted(*regions: Any, **options: Any) -> Any:
             layouts.append(bool(options.get("layout")))
-            refresh(*regions, **options)
+            return refresh(*regions, **options)
 
-        tab.refresh = counted  # counts, changes nothing
-        relabel(tab, "4 Flags (8 !)")  # as wide as "4 Flags (7 !)"
+        strip.refresh = counted  # counts, changes nothing
+        strip.relabel("flags", "4 Flags (8 !)")
         await pilot.pause()
-        assert "4 Flags (8 !)" in screen_text(app) and tab.label.plain == "4 Flags (8 !)"
-        assert not any(layouts)
-        relabel(tab, "4 Flags (12 !)")
+        assert "4 Flags (8 !)" in screen_text(app)
+        strip.relabel("flags", "4 Flags (12 !)")  # wider: still the same one line
         await pilot.pause()
-        assert "4 Flags (12 !)" in screen_text(app) and any(layouts)
+        assert "4 Flags (12 !)" in screen_text(app)
+        assert layouts == [False, False]
+
+
+async def test_a_click_on_a_tab_label_shows_that_tab() -> None:
+    app = ScreenHarness(MeasureScreen, load_snapshot("instrument_lost"))
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        strip = app.screen.query_one(TabStrip)
+        x = strip.plain_lines[0].index("2 Sets") + 1  # the label's place in the line
+        assert strip.tab_at(x) == "sets" and strip.tab_at(0) == "now"
+        await pilot.click(TabStrip, offset=(x + 2, 0))  # the strip's left padding: one cell
+        await pilot.pause()
+        assert "Leakage check +300 V" in screen_text(app)  # the history of sets
+        assert strip.active == "sets"
+
+
+async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
+    monkeypatch,
+) -> None:
+    before = _with_readings(load_snapshot("collecting"), [], needed=12)
+    app = ScreenHarness(MeasureScreen, before)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        drawn_before = panel.plain_lines
+        asked: list[str] = []
+        refresh = Widget.refresh
+
+        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
+            asked.append(type(self).__name__)
+            return refresh(self, *regions, **options)
+
+        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        after = _with_readings(before, [18.5312], needed=12)
+        after["live"] = {"phase": "armed", "seq": 5, "label": "4"}
+        after["prompt"] = {"text": "Deliver 100 MU now (reading 4 of 12)."}
+        app.screen.show(after, CONNECTED)
+        await pilot.pause()
+        drawn_after, redrawn = panel.plain_lines, set(asked)
+    assert redrawn == {"ReadingSetPanel", "StepPanel"}
+    # The title, the heading and the scale's caption are the very lines they were; the new
+    # reading has its own line, and the count says so.
+    changed = [y for y, line in enumerate(drawn_after) if line != drawn_before[y]]
+    assert 0 not in changed and 1 not in changed
+    caption = next(y for y, line in enumerate(drawn_after) if "of the mean" in line)
+    assert caption not in changed
+    assert "  3    18.5312  auto    ok" in drawn_after[changed[0]]
+    assert "3 of 12 readings (+1 settling)" in " ".join(drawn_after)
+
+
+async def test_the_readings_scroll_back_with_the_keys_and_follow_the_newest_again() -> None:
+    snapshot = _with_readings(
+        load_snapshot("collecting"), [18.53 + 0.0001 * n for n in range(30)], needed=40
+    )
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        newest = "  32    18.5329  auto"
+        assert newest in " ".join(panel.plain_lines)
+        panel.focus()
+        await pilot.press("home")
+        await pilot.pause()
+        shown = screen_text(app)
+        assert "  s1    18.7420  auto    settling" in shown and newest not in shown
+        await pilot.press("end")
+        await pilot.pause()
+        assert newest in screen_text(app)
 
 
 async def test_a_new_reading_is_drawn_and_the_set_unchanged_is_not_drawn_again() -> None:
