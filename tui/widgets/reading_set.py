@@ -143,6 +143,9 @@ class ReadingSetPanel(OwnLines, can_focus=True):
     ReadingSetPanel {
         height: 1fr;
     }
+    ReadingSetPanel > .reading-set--title {
+        text-style: bold;
+    }
     """
     COMPONENT_CLASSES: ClassVar[set[str]] = {"reading-set--title"}
     BINDINGS: ClassVar[list[BindingType]] = [
