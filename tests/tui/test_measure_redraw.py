@@ -177,3 +177,27 @@ def test_a_readings_cells_are_worked_out_once_and_again_when_it_changed() -> Non
     assert cells(reading) is cells(reading)
     changed = {**reading, "charge_nC": 12.5}
     assert cells(changed) == reading_cells(changed) != reading_cells(reading)
+
+
+async def test_following_the_newest_a_reading_mostly_draws_its_own_line_not_the_whole_area():
+    """The area moves on by half its height when the newest reading reaches its foot, so
+    between two such moves a new reading changes its own line only (bars aside: they move
+    with the mean)."""
+    held = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, held)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        moves = 0
+        for count in range(3, 33):
+            before = [line[:-2] for line in panel.plain_lines if "  auto  " in line]
+            after_snapshot = _with_readings(held, [18.5300 + 0.0001 * count], needed=40)
+            app.screen.show(after_snapshot, CONNECTED)
+            held = after_snapshot
+            await pilot.pause()
+            after = [line[:-2] for line in panel.plain_lines if "  auto  " in line]
+            assert f"{count}    {18.5300 + 0.0001 * count:.4f}  auto" in after[-1]  # in sight
+            changed = sum(1 for old, new in zip(before, after, strict=False) if old != new)
+            changed += len(after) - len(before)
+            moves += changed > 1
+        assert moves <= 30 // 4  # a move of the area every half height (about 5 readings)

@@ -13,7 +13,7 @@ from __future__ import annotations
 import textwrap
 from collections.abc import Iterable, Sequence
 
-from rich.cells import cell_len
+from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from rich.style import Style
 from textual.geometry import Region, Size
@@ -89,12 +89,29 @@ class HeldLines:
             self._strips.clear()
         held = self._strips.get(index)
         if held is None:
-            if index >= len(self.lines):
-                held = Strip.blank(width, base)
-            else:
-                held = Strip(self.lines[index]).apply_style(base).adjust_cell_length(width, base)
-            self._strips[index] = held
+            line = self.lines[index] if index < len(self.lines) else ()
+            held = self._strips[index] = Strip(fitted(line, width, base), width)
         return held
+
+
+def fitted(line: Line, width: int, base: Style) -> list[Segment]:
+    """Return ``line``'s segments over ``base``, cut or padded to ``width`` cells (one strip
+    built from them, where cutting and styling a strip builds a new strip each time)."""
+    segments, room = [], width
+    for segment in line:
+        text = segment.text
+        cells = cell_len(text)
+        if cells > room:
+            text, cells = set_cell_size(text, room), room
+        if text:
+            style = base if segment.style is None else base + segment.style
+            segments.append(Segment(text, style))
+        room -= cells
+        if room <= 0:
+            break
+    if room > 0:
+        segments.append(Segment(" " * room, base))
+    return segments
 
 
 class OwnLines(Widget):

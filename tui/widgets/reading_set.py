@@ -213,9 +213,19 @@ class ReadingSetPanel(OwnLines, can_focus=True):
         last_first = max(len(self._rows) - self._window, 0)
         if self._first is not None and self._first >= last_first:
             self._first = None  # scrolled down to the newest: follow it again
-        first = last_first if self._first is None else self._first
+        first = self._newest_first() if self._first is None else self._first
         shown = [text_line(row) for row in self._rows[first : first + self._window]]
         return shown + [()] * (self._window - len(shown))
+
+    def _newest_first(self) -> int:
+        """Return the first reading line in sight while following the newest: when the newest
+        reaches the foot of the area, the area moves on by half its height (blank lines
+        below), so most readings draw their own line and the count, not the whole area."""
+        over = len(self._rows) - self._window
+        if over <= 0:
+            return 0
+        step = max(self._window // 2, 1)
+        return -(-over // step) * step
 
     def action_scroll_readings(self, lines: int) -> None:
         """Scroll the readings' area by ``lines`` (negative: back to earlier readings)."""
