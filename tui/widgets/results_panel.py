@@ -139,7 +139,10 @@ class ResultsPanel(ScrollView, can_focus=True):
         count = len(self._held.lines)
         span = self._held.replace(lines)
         if len(lines) != count:
-            self.virtual_size = Size(0, len(lines))  # lays out the panel alone
+            # A new height to scroll: the screen is laid out again only when the scrollbar
+            # comes or goes (Textual lays it out for every new virtual size).
+            self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
+            self._scroll_update(self.virtual_size)
             self.refresh()
         elif span is not None:
             self.refresh_lines(span[0], span[1] - span[0])
