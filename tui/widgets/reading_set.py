@@ -110,6 +110,15 @@ def flag_summary_lines(set_info: dict[str, Any] | None) -> list[str]:
 LEAST_READING_ROWS = 3
 #: Lines the set's flags take at most under the readings (every flag in full: tab 4).
 FLAG_ROWS = 2
+#: The keys that scroll the readings' area (with the focus), by how many lines, and what for.
+SCROLL_KEYS: tuple[tuple[str, int, str], ...] = (
+    ("up", -1, "Earlier"),
+    ("down", 1, "Later"),
+    ("pageup", -10, "Page up"),
+    ("pagedown", 10, "Page down"),
+    ("home", -100_000, "First"),
+    ("end", 100_000, "Newest"),
+)
 
 
 def reading_rows(
@@ -149,12 +158,8 @@ class ReadingSetPanel(OwnLines, can_focus=True):
     """
     COMPONENT_CLASSES: ClassVar[set[str]] = {"reading-set--title"}
     BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("up", "scroll_readings(-1)", "Earlier", show=False),
-        Binding("down", "scroll_readings(1)", "Later", show=False),
-        Binding("pageup", "scroll_readings(-10)", "Page up", show=False),
-        Binding("pagedown", "scroll_readings(10)", "Page down", show=False),
-        Binding("home", "scroll_readings(-100000)", "First", show=False),
-        Binding("end", "scroll_readings(100000)", "Newest", show=False),
+        Binding(key, f"scroll_readings({lines})", words, show=False)
+        for key, lines, words in SCROLL_KEYS
     ]
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
