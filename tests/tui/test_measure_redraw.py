@@ -9,6 +9,8 @@ from __future__ import annotations
 from typing import Any
 
 from chargebook.tui.screens.measure import MeasureScreen
+from chargebook.tui.widgets.action_bar import ActionBar
+from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from chargebook.tui.widgets.tab_strip import TabStrip
@@ -201,3 +203,29 @@ async def test_following_the_newest_a_reading_mostly_draws_its_own_line_not_the_
             changed += len(after) - len(before)
             moves += changed > 1
         assert moves <= 30 // 4  # a move of the area every half height (about 5 readings)
+
+
+async def test_new_allowed_actions_redraw_the_buttons_and_keys_without_a_layout(monkeypatch):
+    held = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, held)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        bar, keys = app.screen.query_one(ActionBar), app.screen.query_one(KeyLine)
+        assert "p Pause" in keys.plain_lines[0] and " Pause " in bar.plain_lines[0]
+        layouts: list[str] = []
+        refresh = Widget.refresh
+
+        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
+            if options.get("layout"):
+                layouts.append(type(self).__name__)
+            return refresh(self, *regions, **options)
+
+        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        allowed = ["environment.set", "session.resume", "session.stop", "session.abort"]
+        app.screen.show(following(held, allowed=allowed), CONNECTED)
+        await pilot.pause()
+        key_words, buttons, laid_out = keys.plain_lines[0], bar.plain_lines[0], list(layouts)
+        assert "p Resume" in key_words and "p Pause" not in key_words
+        assert " Resume " in buttons and " Pause " not in buttons
+        assert " Arm " in buttons  # shown, not allowed now (dimmed)
+        assert laid_out == []

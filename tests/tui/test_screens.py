@@ -14,6 +14,7 @@ from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.screens.setup import SetupScreen
 from chargebook.tui.screens.summary import SummaryScreen
+from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.fields import Field
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from console_driver import until
@@ -68,8 +69,10 @@ async def test_a_key_sends_its_action_only_when_the_daemon_allows_it():
 async def test_the_mouse_does_what_the_keys_do_and_a_disabled_button_does_nothing():
     app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
     async with app.run_test(size=SIZE) as pilot:
-        await pilot.click("#do-arm")  # not allowed while reviewing: the button is disabled
-        await pilot.click("#do-accept")
+        bar = app.screen.query_one(ActionBar)
+        # (the bar's left padding: one cell)
+        await pilot.click(ActionBar, offset=(bar.place_of("arm") + 2, 0))  # disabled: reviewing
+        await pilot.click(ActionBar, offset=(bar.place_of("accept") + 2, 0))
         await pilot.pause()
     assert app.sent == [("set.accept", {})]
 

@@ -26,6 +26,7 @@ from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.flag_list import FlagList, flag_count
 from chargebook.tui.widgets.history import SetHistory
+from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.plan_view import PlanView
 from chargebook.tui.widgets.reading_set import ReadingSetPanel
 from chargebook.tui.widgets.results_panel import ResultsPanel
@@ -36,7 +37,7 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, VerticalScroll
-from textual.widgets import ContentSwitcher, Footer, Static
+from textual.widgets import ContentSwitcher, Static
 
 #: How often the air data's age is counted again while the screen stands still, in s.
 AIR_AGE_REFRESH_S = 30.0
@@ -100,7 +101,7 @@ class MeasureScreen(ConsoleScreen):
                 yield FlagList(id="flag-list", markup=False)
         yield self._action_bar
         yield CautionLine()
-        yield Footer(compact=True, show_command_palette=False)
+        yield KeyLine()
 
     # -- drawing, from the latest snapshot only --------------------------------------------
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
