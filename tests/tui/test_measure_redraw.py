@@ -13,6 +13,7 @@ from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
 from chargebook.tui.widgets.results_panel import ResultsPanel
+from chargebook.tui.widgets.step_panel import StepPanel
 from chargebook.tui.widgets.tab_strip import TabStrip
 from harness import CONNECTED, ScreenHarness, load_snapshot
 from screen_text import screen_text
@@ -229,3 +230,28 @@ async def test_new_allowed_actions_redraw_the_buttons_and_keys_without_a_layout(
         assert " Resume " in buttons and " Pause " not in buttons
         assert " Arm " in buttons  # shown, not allowed now (dimmed)
         assert laid_out == []
+
+
+async def test_the_step_panel_keeps_its_height_when_the_prompt_takes_fewer_lines(monkeypatch):
+    reviewing = load_snapshot("reviewing_spike")  # "Do now: The set is complete. ..." (2 lines)
+    app = ScreenHarness(MeasureScreen, reviewing)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(StepPanel)
+        height = len(panel.lines)
+        layouts: list[str] = []
+        refresh = Widget.refresh
+
+        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
+            if options.get("layout"):
+                layouts.append(type(self).__name__)
+            return refresh(self, *regions, **options)
+
+        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        prompt = {"text": "Deliver 100 MU now (reading 1 of 4)."}
+        app.screen.show(following(reviewing, prompt=prompt), CONNECTED)
+        await pilot.pause()
+        shown, lines, laid_out = screen_text(app), panel.plain_lines, list(layouts)
+    assert "Do now: Deliver 100 MU now (reading 1 of 4)." in shown
+    assert len(lines) == height and lines[-1] == ""  # a blank line keeps the height
+    assert "StepPanel" not in laid_out

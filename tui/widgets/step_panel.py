@@ -26,7 +26,9 @@ def progress_bar(done: int, total: int, cells: int = BAR_CELLS) -> tuple[str, st
 class StepPanel(OwnLines):
     """Step heading with the plan's progress, then a notice from the daemon if any, "Do now: …"
     in the daemon's words, then the reading in progress: one widget drawing its own lines, so a
-    reading redraws only the prompt's and the live reading's lines."""
+    reading redraws only the prompt's and the live reading's lines. It keeps the height it
+    reached (blank lines under shorter text), so the screen is not laid out again as the
+    prompt's wording changes."""
 
     COMPONENT_CLASSES: ClassVar[set[str]] = {
         "step-panel--heading",
@@ -48,6 +50,7 @@ class StepPanel(OwnLines):
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     #: Whether the console hears from the daemon; set before ``snapshot`` by the screen.
     connected: bool = True
+    _tallest = 0  # the most lines the panel has shown
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
         self.rebuild()
@@ -61,14 +64,16 @@ class StepPanel(OwnLines):
         if width <= 0 or snapshot is None:
             return
         live = cut(snapshot_view.live_text(snapshot), width)
-        self.show_lines(
-            [
-                *self._heading(snapshot, width),
-                *self._notice(snapshot, width),
-                *self._prompt(snapshot, width),
-                text_line(live, self.part_style("step-panel--live")),
-            ]
-        )
+        lines = [
+            *self._heading(snapshot, width),
+            *self._notice(snapshot, width),
+            *self._prompt(snapshot, width),
+            text_line(live, self.part_style("step-panel--live")),
+        ]
+        # Never shorter than it has been: a prompt of one line after one of two (a set's end,
+        # then the next set's start) would lay the screen out again while readings arrive.
+        self._tallest = max(self._tallest, len(lines))
+        self.show_lines(lines + [()] * (self._tallest - len(lines)))
 
     def _heading(self, snapshot: dict[str, Any], width: int) -> list[Line]:
         """The step in words (wrapped, never cut), the progress bar and "2/6 done" beside it."""
