@@ -41,6 +41,21 @@ def count_draws(panel: Any) -> list[int]:
     return draws
 
 
+def count_refreshes(monkeypatch: Any, *, layouts_only: bool = False) -> list[str]:
+    """From now on, note the class of every widget that asks to be drawn again (or, with
+    ``layouts_only``, to lay the screen out again); the list fills as they ask."""
+    asked: list[str] = []
+    refresh = Widget.refresh
+
+    def counted(self: Widget, *regions: Any, **options: Any) -> Any:
+        if options.get("layout") or not layouts_only:
+            asked.append(type(self).__name__)
+        return refresh(self, *regions, **options)
+
+    monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+    return asked
+
+
 async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results() -> None:
     first = load_snapshot("reviewing_spike")
     app = ScreenHarness(MeasureScreen, first)
@@ -108,14 +123,7 @@ async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
         await pilot.pause()
         panel = app.screen.query_one(ReadingSetPanel)
         drawn_before = panel.plain_lines
-        asked: list[str] = []
-        refresh = Widget.refresh
-
-        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
-            asked.append(type(self).__name__)
-            return refresh(self, *regions, **options)
-
-        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        asked = count_refreshes(monkeypatch)
         after = _with_readings(before, [18.5312], needed=12)
         after["live"] = {"phase": "armed", "seq": 5, "label": "4"}
         after["prompt"] = {"text": "Deliver 100 MU now (reading 4 of 12)."}
@@ -213,15 +221,7 @@ async def test_new_allowed_actions_redraw_the_buttons_and_keys_without_a_layout(
         await pilot.pause()
         bar, keys = app.screen.query_one(ActionBar), app.screen.query_one(KeyLine)
         assert "p Pause" in keys.plain_lines[0] and " Pause " in bar.plain_lines[0]
-        layouts: list[str] = []
-        refresh = Widget.refresh
-
-        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
-            if options.get("layout"):
-                layouts.append(type(self).__name__)
-            return refresh(self, *regions, **options)
-
-        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        layouts = count_refreshes(monkeypatch, layouts_only=True)
         allowed = ["environment.set", "session.resume", "session.stop", "session.abort"]
         app.screen.show(following(held, allowed=allowed), CONNECTED)
         await pilot.pause()
@@ -239,15 +239,7 @@ async def test_the_step_panel_keeps_its_height_when_the_prompt_takes_fewer_lines
         await pilot.pause()
         panel = app.screen.query_one(StepPanel)
         height = len(panel.lines)
-        layouts: list[str] = []
-        refresh = Widget.refresh
-
-        def counted(self: Widget, *regions: Any, **options: Any) -> Any:
-            if options.get("layout"):
-                layouts.append(type(self).__name__)
-            return refresh(self, *regions, **options)
-
-        monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+        layouts = count_refreshes(monkeypatch, layouts_only=True)
         prompt = {"text": "Deliver 100 MU now (reading 1 of 4)."}
         app.screen.show(following(reviewing, prompt=prompt), CONNECTED)
         await pilot.pause()
