@@ -8,12 +8,17 @@ from __future__ import annotations
 
 from typing import Any
 
-from chargebook.tui.screens.measure import MeasureScreen, relabel
+from chargebook.tui.screens.measure import MeasureScreen
+from chargebook.tui.widgets.action_bar import ActionBar
+from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
 from chargebook.tui.widgets.results_panel import ResultsPanel
+from chargebook.tui.widgets.step_panel import StepPanel
+from chargebook.tui.widgets.tab_strip import TabStrip
 from harness import CONNECTED, ScreenHarness, load_snapshot
 from screen_text import screen_text
-from textual.widgets import TabbedContent
+from test_screens import _with_readings
+from textual.widget import Widget
 
 SIZE = (80, 24)
 
@@ -34,6 +39,21 @@ def count_draws(panel: Any) -> list[int]:
 
     panel._draw = counted  # counts, changes nothing
     return draws
+
+
+def count_refreshes(monkeypatch: Any, *, layouts_only: bool = False) -> list[str]:
+    """From now on, note the class of every widget that asks to be drawn again (or, with
+    ``layouts_only``, to lay the screen out again); the list fills as they ask."""
+    asked: list[str] = []
+    refresh = Widget.refresh
+
+    def counted(self: Widget, *regions: Any, **options: Any) -> Any:
+        if options.get("layout") or not layouts_only:
+            asked.append(type(self).__name__)
+        return refresh(self, *regions, **options)
+
+    monkeypatch.setattr(Widget, "refresh", counted)  # counts, changes nothing
+    return asked
 
 
 async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results() -> None:
@@ -58,26 +78,87 @@ async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_result
         assert "!! Results not computed: no reading" in screen_text(app)
 
 
-async def test_the_flags_tab_shows_its_new_count_repainted_in_place_or_laid_out_wider() -> None:
+async def test_the_flags_tab_shows_its_new_count_in_its_one_line_without_a_layout() -> None:
     app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
-        tab = app.screen.query_one(TabbedContent).get_tab("flags")
+        strip = app.screen.query_one(TabStrip)
+        assert "4 Flags (7 !)" in screen_text(app)
         layouts = []
-        refresh = tab.refresh
+        refresh = strip.refresh
 
-        def counted(*regions: Any, **options: Any) -> None:
+        def counted(*regions: Any, **options: Any) -> Any:
             layouts.append(bool(options.get("layout")))
-            refresh(*regions, **options)
+            return refresh(*regions, **options)
 
-        tab.refresh = counted  # counts, changes nothing
-        relabel(tab, "4 Flags (8 !)")  # as wide as "4 Flags (7 !)"
+        strip.refresh = counted  # counts, changes nothing
+        strip.relabel("flags", "4 Flags (8 !)")
         await pilot.pause()
-        assert "4 Flags (8 !)" in screen_text(app) and tab.label.plain == "4 Flags (8 !)"
-        assert not any(layouts)
-        relabel(tab, "4 Flags (12 !)")
+        assert "4 Flags (8 !)" in screen_text(app)
+        strip.relabel("flags", "4 Flags (12 !)")  # wider: still the same one line
         await pilot.pause()
-        assert "4 Flags (12 !)" in screen_text(app) and any(layouts)
+        assert "4 Flags (12 !)" in screen_text(app)
+        assert layouts == [False, False]
+
+
+async def test_a_click_on_a_tab_label_shows_that_tab() -> None:
+    app = ScreenHarness(MeasureScreen, load_snapshot("instrument_lost"))
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        strip = app.screen.query_one(TabStrip)
+        x = strip.plain_lines[0].index("2 Sets") + 1  # the label's place in the line
+        assert strip.tab_at(x) == "sets" and strip.tab_at(0) == "now"
+        await pilot.click(TabStrip, offset=(x + 2, 0))  # the strip's left padding: one cell
+        await pilot.pause()
+        assert "Leakage check +300 V" in screen_text(app)  # the history of sets
+        assert strip.active == "sets"
+
+
+async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
+    monkeypatch,
+) -> None:
+    before = _with_readings(load_snapshot("collecting"), [], needed=12)
+    app = ScreenHarness(MeasureScreen, before)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        drawn_before = panel.plain_lines
+        asked = count_refreshes(monkeypatch)
+        after = _with_readings(before, [18.5312], needed=12)
+        after["live"] = {"phase": "armed", "seq": 5, "label": "4"}
+        after["prompt"] = {"text": "Deliver 100 MU now (reading 4 of 12)."}
+        app.screen.show(after, CONNECTED)
+        await pilot.pause()
+        drawn_after, redrawn = panel.plain_lines, set(asked)
+    assert redrawn == {"ReadingSetPanel", "StepPanel"}
+    # The title, the heading and the scale's caption are the very lines they were; the new
+    # reading has its own line, and the count says so.
+    changed = [y for y, line in enumerate(drawn_after) if line != drawn_before[y]]
+    assert 0 not in changed and 1 not in changed
+    caption = next(y for y, line in enumerate(drawn_after) if "of the mean" in line)
+    assert caption not in changed
+    assert "  3    18.5312  auto    ok" in drawn_after[changed[0]]
+    assert "3 of 12 readings (+1 settling)" in " ".join(drawn_after)
+
+
+async def test_the_readings_scroll_back_with_the_keys_and_follow_the_newest_again() -> None:
+    snapshot = _with_readings(
+        load_snapshot("collecting"), [18.53 + 0.0001 * n for n in range(30)], needed=40
+    )
+    app = ScreenHarness(MeasureScreen, snapshot)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        newest = "  32    18.5329  auto"
+        assert newest in " ".join(panel.plain_lines)
+        panel.focus()
+        await pilot.press("home")
+        await pilot.pause()
+        shown = screen_text(app)
+        assert "  s1    18.7420  auto    settling" in shown and newest not in shown
+        await pilot.press("end")
+        await pilot.pause()
+        assert newest in screen_text(app)
 
 
 async def test_a_new_reading_is_drawn_and_the_set_unchanged_is_not_drawn_again() -> None:
@@ -107,3 +188,62 @@ def test_a_readings_cells_are_worked_out_once_and_again_when_it_changed() -> Non
     assert cells(reading) is cells(reading)
     changed = {**reading, "charge_nC": 12.5}
     assert cells(changed) == reading_cells(changed) != reading_cells(reading)
+
+
+async def test_following_the_newest_a_reading_mostly_draws_its_own_line_not_the_whole_area():
+    """The area moves on by half its height when the newest reading reaches its foot, so
+    between two such moves a new reading changes its own line only (bars aside: they move
+    with the mean)."""
+    held = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, held)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(ReadingSetPanel)
+        moves = 0
+        for count in range(3, 33):
+            before = [line[:-2] for line in panel.plain_lines if "  auto  " in line]
+            after_snapshot = _with_readings(held, [18.5300 + 0.0001 * count], needed=40)
+            app.screen.show(after_snapshot, CONNECTED)
+            held = after_snapshot
+            await pilot.pause()
+            after = [line[:-2] for line in panel.plain_lines if "  auto  " in line]
+            assert f"{count}    {18.5300 + 0.0001 * count:.4f}  auto" in after[-1]  # in sight
+            changed = sum(1 for old, new in zip(before, after, strict=False) if old != new)
+            changed += len(after) - len(before)
+            moves += changed > 1
+        assert moves <= 30 // 4  # a move of the area every half height (about 5 readings)
+
+
+async def test_new_allowed_actions_redraw_the_buttons_and_keys_without_a_layout(monkeypatch):
+    held = load_snapshot("collecting")
+    app = ScreenHarness(MeasureScreen, held)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        bar, keys = app.screen.query_one(ActionBar), app.screen.query_one(KeyLine)
+        assert "p Pause" in keys.plain_lines[0] and " Pause " in bar.plain_lines[0]
+        layouts = count_refreshes(monkeypatch, layouts_only=True)
+        allowed = ["environment.set", "session.resume", "session.stop", "session.abort"]
+        app.screen.show(following(held, allowed=allowed), CONNECTED)
+        await pilot.pause()
+        key_words, buttons, laid_out = keys.plain_lines[0], bar.plain_lines[0], list(layouts)
+        assert "p Resume" in key_words and "p Pause" not in key_words
+        assert " Resume " in buttons and " Pause " not in buttons
+        assert " Arm " in buttons  # shown, not allowed now (dimmed)
+        assert laid_out == []
+
+
+async def test_the_step_panel_keeps_its_height_when_the_prompt_takes_fewer_lines(monkeypatch):
+    reviewing = load_snapshot("reviewing_spike")  # "Do now: The set is complete. ..." (2 lines)
+    app = ScreenHarness(MeasureScreen, reviewing)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        panel = app.screen.query_one(StepPanel)
+        height = len(panel.lines)
+        layouts = count_refreshes(monkeypatch, layouts_only=True)
+        prompt = {"text": "Deliver 100 MU now (reading 1 of 4)."}
+        app.screen.show(following(reviewing, prompt=prompt), CONNECTED)
+        await pilot.pause()
+        shown, lines, laid_out = screen_text(app), panel.plain_lines, list(layouts)
+    assert "Do now: Deliver 100 MU now (reading 1 of 4)." in shown
+    assert len(lines) == height and lines[-1] == ""  # a blank line keeps the height
+    assert "StepPanel" not in laid_out

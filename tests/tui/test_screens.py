@@ -14,6 +14,7 @@ from chargebook.tui.screens.environment import EnvironmentScreen
 from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.screens.setup import SetupScreen
 from chargebook.tui.screens.summary import SummaryScreen
+from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.fields import Field
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from console_driver import until
@@ -68,8 +69,10 @@ async def test_a_key_sends_its_action_only_when_the_daemon_allows_it():
 async def test_the_mouse_does_what_the_keys_do_and_a_disabled_button_does_nothing():
     app = ScreenHarness(MeasureScreen, load_snapshot("reviewing_spike"))
     async with app.run_test(size=SIZE) as pilot:
-        await pilot.click("#do-arm")  # not allowed while reviewing: the button is disabled
-        await pilot.click("#do-accept")
+        bar = app.screen.query_one(ActionBar)
+        # (the bar's left padding: one cell)
+        await pilot.click(ActionBar, offset=(bar.place_of("arm") + 2, 0))  # disabled: reviewing
+        await pilot.click(ActionBar, offset=(bar.place_of("accept") + 2, 0))
         await pilot.pause()
     assert app.sent == [("set.accept", {})]
 
@@ -614,25 +617,27 @@ def _with_readings(before: dict, charges_nC: list[float], needed: int) -> dict:
     return after
 
 
-async def test_a_new_reading_takes_its_line_in_the_rows_kept_for_the_set_and_stays_in_sight():
+async def test_a_new_reading_takes_its_line_in_the_set_panel_and_stays_in_sight():
     from chargebook.acquire.protocol import apply_delta, snapshot_delta
-    from chargebook.tui.widgets.reading_lines import ReadingLines
+    from chargebook.tui.widgets.reading_set import ReadingSetPanel
 
     before = _with_readings(load_snapshot("collecting"), [], needed=12)
     app = ScreenHarness(MeasureScreen, before)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
-        lines = app.screen.query_one(ReadingLines)
-        assert lines.rows == 13  # twelve readings and the settling one: kept from the start
+        panel = app.screen.query_one(ReadingSetPanel)
+        height = len(panel.lines)
+        assert panel.rows == 3  # the settling reading and two readings
         held = before
         for count in range(3, 13):  # readings 3 to 12 arrive one by one
             after = _with_readings(held, [18.53 + 0.0001 * count], needed=12)
             app.screen.show(apply_delta(held, snapshot_delta(held, after)), app.screen.link)
             held = after
             await pilot.pause()
-            assert lines.rows == 13  # the same height: no new layout for a reading
+            assert len(panel.lines) == height  # the same lines: no new layout for a reading
             shown = screen_text(app)
             assert f"  {count}    {18.53 + 0.0001 * count:.4f}  auto" in shown  # in sight
+        assert panel.rows == 13
         assert "12 of 12 readings (+1 settling)" in " ".join(shown.split())
 
 

@@ -26,18 +26,18 @@ from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.flag_list import FlagList, flag_count
 from chargebook.tui.widgets.history import SetHistory
+from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.plan_view import PlanView
 from chargebook.tui.widgets.reading_set import ReadingSetPanel
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from chargebook.tui.widgets.status_line import StatusLine
 from chargebook.tui.widgets.step_panel import StepPanel
-from rich.cells import cell_len
+from chargebook.tui.widgets.tab_strip import TabStrip
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, VerticalScroll
-from textual.content import Content
-from textual.widgets import Footer, Static, Tab, TabbedContent, TabPane
+from textual.widgets import ContentSwitcher, Static
 
 #: How often the air data's age is counted again while the screen stands still, in s.
 AIR_AGE_REFRESH_S = 30.0
@@ -61,24 +61,12 @@ TABS: tuple[tuple[str, str, str], ...] = (
 )
 
 
-def relabel(tab: Tab, label: str) -> None:
-    """Give ``tab`` the words ``label``; when they take as many cells as the words they replace
-    (a count of flags going from 3 to 4), only the tab is repainted: Textual's own relabelling
-    lays the whole screen out again, which at 50 readings a second costs more than the rest of
-    a reading's drawing."""
-    if label == tab.label.plain:
-        return
-    if cell_len(label) != cell_len(tab.label.plain):
-        tab.label = label  # a new width: the tabs are laid out again
-        return
-    tab._label = Content(label)  # what Tab.label returns; its setter would lay out the screen
-    Static.update(tab, tab._label, layout=False)
-
-
 class MeasureScreen(ConsoleScreen):
     """The screen for an open session: everything the operator needs at each step."""
 
     kind = "measure"
+    _offered: tuple[bool, tuple[str, ...]] | None = None  # (watching, allowed) on the buttons
+    _air_words: str | None = None  # the air line shown (None: hidden)
     BINDINGS: ClassVar[list[BindingType]] = [
         *(
             Binding(action.key, f"do('{action.name}')", action.key_help, tooltip=action.help)
@@ -89,47 +77,59 @@ class MeasureScreen(ConsoleScreen):
     ]
 
     def compose(self) -> ComposeResult:
+        # The parts drawn at every snapshot are held, not looked up by a query each time.
+        self._step_panel = StepPanel(id="step-panel")
+        self._air_line = Static("", id="air-line", markup=False)
+        self._air_line.display = False  # shown in a calibration visit (show_air)
+        self._tab_strip = TabStrip([(name, title) for _key, name, title in TABS], "now")
+        self._tabs = ContentSwitcher(id="measure-tabs", initial="now")
+        self._set_panel = ReadingSetPanel(id="reading-set")
+        self._results = ResultsPanel(id="results")
+        self._action_bar = ActionBar(id="action-bar")
         yield StatusLine(id="status-line", markup=False)
-        yield StepPanel(id="step-panel")
-        yield Static("", id="air-line", markup=False)
-        with TabbedContent(id="measure-tabs", initial="now"):
-            with TabPane(TABS[0][2], id="now"), Horizontal(id="now-columns"):
-                yield ReadingSetPanel(id="reading-set")
-                yield ResultsPanel(id="results")
-            with TabPane(TABS[1][2], id="sets"):
-                yield SetHistory(id="set-history")
-            with TabPane(TABS[2][2], id="plan"), VerticalScroll():
+        yield self._step_panel
+        yield self._air_line
+        yield self._tab_strip
+        with self._tabs:
+            with Horizontal(id="now"):
+                yield self._set_panel
+                yield self._results
+            yield SetHistory(id="sets")
+            with VerticalScroll(id="plan"):
                 yield PlanView(id="plan-view")
-            with TabPane(TABS[3][2], id="flags"), VerticalScroll():
+            with VerticalScroll(id="flags"):
                 yield FlagList(id="flag-list", markup=False)
-        yield ActionBar(id="action-bar")
+        yield self._action_bar
         yield CautionLine()
-        yield Footer(compact=True, show_command_palette=False)
+        yield KeyLine()
 
     # -- drawing, from the latest snapshot only --------------------------------------------
     def render_snapshot(self, snapshot: dict[str, Any]) -> None:
         shown_set = self._shown_set(snapshot)
-        step_panel = self.query_one(StepPanel)
-        step_panel.connected = self.link.connected
-        step_panel.snapshot = snapshot
+        self._step_panel.connected = self.link.connected
+        self._step_panel.snapshot = snapshot
         self.show_air()
-        self.query_one(ReadingSetPanel).set_info = shown_set
-        tabs = self.query_one(TabbedContent)
-        self._draw_tab(tabs.active, snapshot)
+        self._set_panel.set_info = shown_set
+        self._draw_tab(self._tabs.current, snapshot)
         count = flag_count(shown_set, snapshot)
-        relabel(tabs.get_tab("flags"), f"{TABS[3][2]} ({count} !)" if count else TABS[3][2])
-        self.query_one(ResultsPanel).snapshot = snapshot
-        action_bar = self.query_one(ActionBar)
-        action_bar.display = not self.watching  # a watching console offers no action
-        action_bar.show_allowed(self.allowed())
+        self._tab_strip.relabel("flags", f"{TABS[3][2]} ({count} !)" if count else TABS[3][2])
+        self._results.snapshot = snapshot
+        offered = (self.watching, tuple(self.allowed()))
+        if offered != self._offered:  # the buttons change only when the allowed actions do
+            self._offered = offered
+            self._action_bar.display = not self.watching  # a watching console offers no action
+            self._action_bar.show_allowed(offered[1])
 
     def show_air(self) -> None:
         """Show, in a calibration visit, the air entry in force, its source and its age now."""
-        shown = self.query_one("#air-line", Static)
         visit = (self.snapshot or {}).get("visit") or {}
-        shown.display = visit.get("status") == "open"
-        if shown.display:
-            shown.update(visit_view.air_line(self.snapshot, datetime.now(UTC)))
+        words = visit_view.air_line(self.snapshot, datetime.now(UTC)) if visit else None
+        if visit.get("status") != "open":
+            words = None
+        if words != self._air_words:  # an update lays the screen out: only when it changed
+            self._air_words = words
+            self._air_line.display = words is not None
+            self._air_line.update(words or "")
 
     def on_mount(self) -> None:
         super().on_mount()
@@ -171,15 +171,19 @@ class MeasureScreen(ConsoleScreen):
         elif tab == "flags":
             self.query_one(FlagList).show_flags(self._shown_set(snapshot), snapshot)
 
-    @on(TabbedContent.TabActivated)
-    def tab_shown(self, event: TabbedContent.TabActivated) -> None:
-        """Draw a tab as it is shown from the latest snapshot (it was not drawn while hidden)."""
-        if self.snapshot is not None and event.pane.id is not None:
-            self._draw_tab(event.pane.id, self.snapshot)
+    @on(TabStrip.Chosen)
+    def tab_clicked(self, event: TabStrip.Chosen) -> None:
+        self.action_show_tab(event.tab)
 
     def action_show_tab(self, tab: str) -> None:
-        """Show one of the tabs: the set now, the history of sets, or the plan."""
-        self.query_one(TabbedContent).active = tab
+        """Show one of the tabs: the set now, the history of sets, the plan or every flag;
+        a tab is drawn as it is shown, from the latest snapshot (not while hidden)."""
+        if tab == self._tabs.current:
+            return
+        self._tabs.current = tab
+        self._tab_strip.show_tab(tab)
+        if self.snapshot is not None:
+            self._draw_tab(tab, self.snapshot)
 
     def action_do(self, name: str) -> None:
         """Carry out the operator action ``name`` (see ACTIONS); questions come first."""

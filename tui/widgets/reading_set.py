@@ -1,17 +1,16 @@
-"""The readings of the current set as they arrive, a small plot, running statistics and flags."""
+"""The readings of the current set as they arrive, each with its bar, running statistics and
+flags: one widget that draws its own lines (:mod:`chargebook.tui.widgets.own_lines`)."""
 
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import Any
+from typing import Any, ClassVar
 
 from chargebook.acquire.protocol import severity_rank
 from chargebook.tui import snapshot_view, text
-from chargebook.tui.widgets.drawn_when_composed import DrawnWhenComposed
-from chargebook.tui.widgets.reading_lines import ReadingLines
-from chargebook.tui.widgets.text_block import TextBlock
-from textual.app import ComposeResult
-from textual.containers import Vertical
+from chargebook.tui.widgets.own_lines import Line, OwnLines, at_most, text_line, wrapped
+from textual import events
+from textual.binding import Binding, BindingType
 from textual.reactive import reactive
 
 #: The readings' columns: heading, least width in characters, aligned right?
@@ -56,16 +55,6 @@ class CellsByReading:
     def forget(self) -> None:
         """Forget the readings held (another set is shown)."""
         self._held.clear()
-
-
-def rows_for(set_info: dict[str, Any] | None) -> int:
-    """Return how many lines the set's readings will take when it is complete: the readings it
-    needs and the settling readings taken so far (or the readings it holds, if more)."""
-    if not set_info:
-        return 0
-    readings = set_info.get("readings", [])
-    settling = sum(1 for reading in readings if reading.get("settling"))
-    return max(len(readings), int(set_info.get("readings_needed") or 0) + settling)
 
 
 def readings_lines(
@@ -117,14 +106,61 @@ def flag_summary_lines(set_info: dict[str, Any] | None) -> list[str]:
     return lines[:1] + ([f"+{more} more flag{'s' if more > 1 else ''}: press 4"] if more else [])
 
 
-class ReadingSetPanel(DrawnWhenComposed, Vertical):
-    """The set being taken (or just taken): table, a bar per reading on a stated scale, mean and
-    relative SD, flags.
+#: Lines the readings' area keeps at least, however little room the panel has.
+LEAST_READING_ROWS = 3
+#: Lines the set's flags take at most under the readings (every flag in full: tab 4).
+FLAG_ROWS = 2
+#: The keys that scroll the readings' area (with the focus), by how many lines, and what for.
+SCROLL_KEYS: tuple[tuple[str, int, str], ...] = (
+    ("up", -1, "Earlier"),
+    ("down", 1, "Later"),
+    ("pageup", -10, "Page up"),
+    ("pagedown", 10, "Page down"),
+    ("home", -100_000, "First"),
+    ("end", 100_000, "Newest"),
+)
 
-    The readings' area keeps a line for every reading the set will hold, so a new reading is
-    drawn in its own line without laying the screen out again; the area follows the newest
-    reading. Under it, the set's worst flag and how many more (every flag in full: tab 4).
+
+def reading_rows(
+    set_info: dict[str, Any] | None,
+    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+) -> tuple[str, list[str]]:
+    """Return (heading, one line per reading): the readings' lines with, last, each reading's
+    bar for its deviation from the set's mean on the stated scale (see
+    :func:`chargebook.tui.text.deviation_bars`)."""
+    heading, *lines = readings_lines(set_info, cells)
+    charges = snapshot_view.set_charges_nC(set_info)
+    mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
+    bars = text.deviation_bars(charges, mean_nC).split(" ") if charges else []
+    if len(bars) != len(lines):
+        return heading, lines
+    return heading, [f"{line}{bar}" for line, bar in zip(lines, bars, strict=True)]
+
+
+class ReadingSetPanel(OwnLines, can_focus=True):
+    """The set being taken (or just taken): its title, a line per reading with a bar for its
+    deviation from the mean on a stated scale, the worst flag and how many more, the count,
+    mean and relative SD.
+
+    One widget drawing its own lines: a new reading changes the lines of the readings' area
+    (which follows the newest reading) and the statistics, and only those are drawn again,
+    with no new layout of the screen. With the focus, ↑ ↓, Page Up, Page Down, Home and End
+    (or the mouse wheel) scroll back through the readings; End follows the newest again.
     """
+
+    DEFAULT_CSS = """
+    ReadingSetPanel {
+        height: 1fr;
+    }
+    ReadingSetPanel > .reading-set--title {
+        text-style: bold;
+    }
+    """
+    COMPONENT_CLASSES: ClassVar[set[str]] = {"reading-set--title"}
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding(key, f"scroll_readings({lines})", words, show=False)
+        for key, lines, words in SCROLL_KEYS
+    ]
 
     set_info: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _shown_set: dict[str, Any] | None = None
@@ -132,45 +168,81 @@ class ReadingSetPanel(DrawnWhenComposed, Vertical):
     def __init__(self, *, id: str | None = None) -> None:
         super().__init__(id=id)
         self._cells = CellsByReading()
+        self._rows: list[str] = []  # every reading's line, the heading apart
+        self._window = 0  # how many reading lines are in sight
+        self._first: int | None = None  # first reading line in sight; None: follow the newest
 
-    def compose(self) -> ComposeResult:
-        yield TextBlock(id="set-title", classes="panel-title")
-        yield TextBlock(id="readings-heading")
-        yield ReadingLines(id="readings-table")
-        yield ReadingLines(id="set-flags", follow=False)
-        yield TextBlock(id="readings-plot")
-        yield TextBlock(id="set-stats")
+    @property
+    def rows(self) -> int:
+        """Return how many lines the set's readings hold (one per reading)."""
+        return len(self._rows)
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
-        self.redraw()
-
-    def _draw_held(self) -> None:
         if self.set_info is self._shown_set and self.set_info is not None:
             return  # the client's very object: the daemon changed nothing in the set
         self._draw(self.set_info)
 
+    def on_mount(self) -> None:
+        self._draw(self.set_info)  # a set given before the panel was mounted
+
     def _draw(self, set_info: dict[str, Any] | None) -> None:
-        another_set = (set_info or {}).get("id") != (self._shown_set or {}).get("id")
-        if another_set:
+        if (set_info or {}).get("id") != (self._shown_set or {}).get("id"):
             self._cells.forget()
+            self._first = None
         self._shown_set = set_info
+        self.rebuild()
+
+    def rebuild(self) -> None:
+        """Build the panel's lines from the set shown, at the panel's size."""
+        width, height = self.content_region.size
+        if width <= 0:
+            return
+        set_info = self._shown_set
         title = "No reading set yet"
         if set_info:
-            status = text.set_status(set_info["status"])
-            title = f"{snapshot_view.set_title(set_info)}: {status}"
-        self.query_one("#set-title", TextBlock).show(title)
-        heading, *lines = readings_lines(set_info, self._cells)
-        self.query_one("#readings-heading", TextBlock).show(heading)
-        self.query_one("#readings-table", ReadingLines).show_lines(
-            lines, rows_for(set_info), another=another_set
-        )
-        charges = snapshot_view.set_charges_nC(set_info)
-        mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
-        bars = text.deviation_bars(charges, mean_nC)
-        self.query_one("#readings-plot", TextBlock).show(
-            f"{bars}\n{text.bar_scale_caption()}" if bars else ""
-        )
-        self.query_one("#set-stats", TextBlock).show(
-            f"{snapshot_view.set_count_text(set_info)} · {snapshot_view.set_stats_text(set_info)}"
-        )
-        self.query_one("#set-flags", ReadingLines).show_lines(flag_summary_lines(set_info))
+            title = f"{snapshot_view.set_title(set_info)}: {text.set_status(set_info['status'])}"
+        bold = self.part_style("reading-set--title")
+        heading, self._rows = reading_rows(set_info, self._cells)
+        above = [text_line(line, bold) for line in wrapped([title], width)]
+        above.append(text_line(heading, bold))
+        below = [text_line(line) for line in flag_summary_lines(set_info)[:FLAG_ROWS]]
+        below.append(text_line(" " + text.bar_scale_caption()))
+        count = snapshot_view.set_count_text(set_info)
+        stats = snapshot_view.set_stats_text(set_info)
+        below += [text_line(line) for line in at_most(wrapped([f"{count} · {stats}"], width), 2)]
+        self._window = max(LEAST_READING_ROWS, height - len(above) - len(below))
+        self.show_lines([*above, *self._in_sight(), *below])
+
+    def _in_sight(self) -> list[Line]:
+        """Return the reading lines in sight (blank lines fill a window not yet full)."""
+        last_first = max(len(self._rows) - self._window, 0)
+        if self._first is not None and self._first >= last_first:
+            self._first = None  # scrolled down to the newest: follow it again
+        first = self._newest_first() if self._first is None else self._first
+        shown = [text_line(row) for row in self._rows[first : first + self._window]]
+        return shown + [()] * (self._window - len(shown))
+
+    def _newest_first(self) -> int:
+        """Return the first reading line in sight while following the newest: when the newest
+        reaches the foot of the area, the area moves on by half its height (blank lines
+        below), so most readings draw their own line and the count, not the whole area."""
+        over = len(self._rows) - self._window
+        if over <= 0:
+            return 0
+        step = max(self._window // 2, 1)
+        return -(-over // step) * step
+
+    def action_scroll_readings(self, lines: int) -> None:
+        """Scroll the readings' area by ``lines`` (negative: back to earlier readings)."""
+        last_first = max(len(self._rows) - self._window, 0)
+        first = last_first if self._first is None else self._first
+        self._first = min(max(first + lines, 0), last_first)
+        self.rebuild()
+
+    def on_mouse_scroll_up(self, event: events.MouseScrollUp) -> None:
+        event.stop()
+        self.action_scroll_readings(-3)
+
+    def on_mouse_scroll_down(self, event: events.MouseScrollDown) -> None:
+        event.stop()
+        self.action_scroll_readings(3)

@@ -1,16 +1,18 @@
-"""Every correction factor with its state, then corrected charge, dose, deviation, uncertainty."""
+"""Every correction factor with its state, then corrected charge, dose, deviation, uncertainty:
+one scrolling widget that draws its own lines (see :mod:`chargebook.tui.widgets.own_lines`)."""
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, ClassVar
 
 from chargebook.tui import snapshot_view, text
-from chargebook.tui.widgets.drawn_when_composed import DrawnWhenComposed
-from chargebook.tui.widgets.text_block import TextBlock
+from chargebook.tui.widgets.own_lines import HeldLines, Line, text_line, wrapped
+from rich.console import Console
 from rich.table import Table
-from textual.app import ComposeResult
-from textual.containers import VerticalScroll
+from textual.geometry import Size
 from textual.reactive import reactive
+from textual.scroll_view import ScrollView
+from textual.strip import Strip
 
 
 def factor_table(results: dict[str, Any] | None) -> Table:
@@ -48,52 +50,103 @@ def results_title(snapshot: dict[str, Any]) -> str:
 RESULTS_PARTS = ("results", "results_error", "results_provisional", "environment_entries")
 
 
-class ResultsPanel(DrawnWhenComposed, VerticalScroll):
+def table_lines(console: Console, table: Table, width: int) -> list[Line]:
+    """Return ``table`` drawn by Rich at ``width`` cells, one line of segments per screen line."""
+    options = console.options.update_width(width)
+    return [tuple(line) for line in console.render_lines(table, options, pad=False)]
+
+
+class ResultsPanel(ScrollView, can_focus=True):
     """Factor table, results and the session's flags, as the daemon computed them.
 
     It scrolls, and takes the focus (Tab), so that every line can be reached from the keyboard
-    (↑ ↓, Page Up, Page Down, Home, End) on an 80 × 24 terminal.
+    (↑ ↓, Page Up, Page Down, Home, End) on an 80 × 24 terminal. One widget drawing its own
+    lines: new results redraw the lines that changed; a reading that brings none draws nothing.
+    """
+
+    COMPONENT_CLASSES: ClassVar[set[str]] = {"results-panel--title"}
+    DEFAULT_CSS = """
+    ResultsPanel > .results-panel--title { text-style: bold; }
     """
 
     snapshot: reactive[dict[str, Any] | None] = reactive(None, always_update=True, repaint=False)
     _drawn_from: tuple[object, ...] = ()
 
-    def compose(self) -> ComposeResult:
-        yield TextBlock("Results", id="results-title", classes="panel-title")
-        yield TextBlock(id="results-problem")
-        yield TextBlock(id="factor-table")
-        yield TextBlock(id="results-table")
-        yield TextBlock(id="session-flags", keep_height=True)
+    def __init__(self, *, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self._held = HeldLines()
+        self._tables: dict[str, tuple[object, list[Line]]] = {}  # drawn tables, by source
+        self._width = 0
+
+    @property
+    def plain_lines(self) -> list[str]:
+        """Return the panel's lines as plain text (what an operator reads, scrolled or not)."""
+        return ["".join(segment.text for segment in line) for line in self._held.lines]
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
-        self.redraw()
-
-    def _draw_held(self) -> None:
-        if self.snapshot is None:
+        if snapshot is None:
             return
-        parts = tuple(self.snapshot.get(key) for key in RESULTS_PARTS)
+        parts = tuple(snapshot.get(key) for key in RESULTS_PARTS)
         if len(parts) == len(self._drawn_from) and all(
             part is drawn for part, drawn in zip(parts, self._drawn_from, strict=True)
         ):
             return  # the client's very objects: the daemon sent no new results (most readings)
         self._drawn_from = parts
-        self._draw(self.snapshot)
+        self._draw(snapshot)
+
+    def on_mount(self) -> None:
+        if self.snapshot is not None:  # given before the panel was mounted
+            self._draw(self.snapshot)
+
+    def on_resize(self) -> None:
+        if self.scrollable_content_region.width != self._width and self.snapshot is not None:
+            self._draw(self.snapshot)
+
+    def _table(self, name: str, source: object, build: Any, width: int) -> list[Line]:
+        """Return the table ``name`` drawn at ``width``, drawn again only when its source
+        (the rows it shows) or the width changed."""
+        held = self._tables.get(name)
+        if held is None or held[0] != (source, width):
+            held = self._tables[name] = (
+                (source, width),
+                table_lines(self.app.console, build(), width),
+            )
+        return held[1]
 
     def _draw(self, snapshot: dict[str, Any]) -> None:
-        self.query_one("#results-title", TextBlock).show(results_title(snapshot))
+        width = self._width = self.scrollable_content_region.width
+        if width <= 0:
+            return
+        title = self.get_component_rich_style("results-panel--title", partial=True)
+        lines = [text_line(line, title) for line in wrapped([results_title(snapshot)], width)]
         problem = snapshot.get("results_error")
-        note = self.query_one("#results-problem", TextBlock)
-        note.show(f"!! Results not computed: {problem}" if problem else "")
-        note.display = bool(problem)
+        if problem:
+            lines += [
+                text_line(line) for line in wrapped([f"!! Results not computed: {problem}"], width)
+            ]
         results = snapshot.get("results")
         factors = snapshot_view.factor_rows(results)
-        self.query_one("#factor-table", TextBlock).show_built(
-            factors, lambda: factor_table(results)
-        )
+        lines += self._table("factors", factors, lambda: factor_table(results), width)
         rows = snapshot_view.result_rows(snapshot)
-        self.query_one("#results-table", TextBlock).show_built(
-            rows, lambda: results_table(snapshot)
-        )
+        lines += self._table("results", rows, lambda: results_table(snapshot), width)
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
-        shown = "\n".join(["Session flags (every flag: tab 4):", *flags])
-        self.query_one("#session-flags", TextBlock).show(shown)
+        flag_words = ["Session flags (every flag: tab 4):", *flags]
+        lines += [text_line(line) for line in wrapped(flag_words, width)]
+        self._show(lines)
+
+    def _show(self, lines: list[Line]) -> None:
+        """Show ``lines``, drawing again only those that changed."""
+        count = len(self._held.lines)
+        span = self._held.replace(lines)
+        if len(lines) != count:
+            # A new height to scroll: the screen is laid out again only when the scrollbar
+            # comes or goes (Textual lays it out for every new virtual size).
+            self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
+            self._scroll_update(self.virtual_size)
+            self.refresh()
+        elif span is not None:
+            self.refresh_lines(span[0], span[1] - span[0])
+
+    def render_line(self, y: int) -> Strip:
+        width = self.scrollable_content_region.width
+        return self._held.strip(y + self.scroll_offset.y, width, self.visual_style.rich_style)
