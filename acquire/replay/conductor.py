@@ -25,6 +25,7 @@ shows what it changed).
 
 from __future__ import annotations
 
+import bisect
 import dataclasses
 import time
 from collections import deque
@@ -50,6 +51,8 @@ from chargebook.drivers_generic.interface import (
 UNASKED_WAIT_S = 10.0
 #: The fields of a logged sample that the driver's reading of its line must give again.
 SAMPLE_FIELDS = ("t_s", "charge_nC", "complete", "status")
+#: The most polls kept in flight at once at speed 0 (their answers fit the pty's buffer).
+MAX_POLLS_IN_FLIGHT = 64
 
 
 class WhatIfStop(Exception):
@@ -120,6 +123,14 @@ class Conductor:
         pushing = {Capability.STREAM, Capability.PUSH_READINGS}
         self.push = bool(driver.profile.capabilities & pushing)
         self.sample_lines = recording.sample_lines
+        #: Polls may be kept in flight (:meth:`_poll_run`): an exact replay at speed 0 of a
+        #: query-mode instrument, whose recording says what each poll was answered.
+        self.in_flight = strict and pacer.speed == 0 and not self.push
+        #: Where a logged input other than a sample is applied (lines played before it): a run
+        #: of polls in flight ends before it.
+        self.input_places = sorted(
+            {i.position for i in recording.inputs if not isinstance(i.given, inputs.Sample)}
+        )
         #: What the driver read from each sample line: (sample, the replay's row id of it).
         self.read: dict[int, tuple[Sample, int | None]] = {}
         self.notes: list[str] = []
@@ -154,7 +165,11 @@ class Conductor:
         """Send a recorded line; a poll whose answer the engine took is the driver's."""
         following = line.index + 1
         if following in self.sample_lines and not self.push:
-            self._read_sample(following, self.driver.read_charge)
+            count = self._poll_run(line.index) if self.in_flight else 1
+            if count > 1:
+                self._read_run(line.index, count)
+            else:
+                self._read_sample(following, self.driver.read_charge)
             return
         text = self._what_if_line(self.follower.text(line))
         self._call(lambda: self.driver.transport.write_line(text))
@@ -196,6 +211,50 @@ class Conductor:
             raise Divergence(f"traffic line {index + 1} did not arrive from the playback")
         self.read[index] = (sample, self.follower.last_received_id)
 
+    def _poll_run(self, index: int) -> int:
+        """Return how many polls from line ``index`` on can be kept in flight: the recording
+        has the same query answered, line after line, by a sample the engine took, with no
+        other logged input applied between them (at most MAX_POLLS_IN_FLIGHT)."""
+        lines, samples = self.follower.lines, self.sample_lines
+        query = lines[index].raw
+        place = bisect.bisect_right(self.input_places, index)
+        end = self.input_places[place] if place < len(self.input_places) else len(lines)
+        count = 1
+        while count < MAX_POLLS_IN_FLIGHT:
+            sent = index + 2 * count
+            if sent + 2 > end or lines[sent].raw != query or sent + 1 not in samples:
+                break
+            count += 1
+        return count
+
+    def _read_run(self, index: int, count: int) -> None:
+        """Have the driver read ``count`` polls from line ``index`` on, kept in flight; keep
+        what it parsed from each answer, with the time the recording received it."""
+        follower = self.follower
+        follower.answered.clear()
+        try:
+            samples = self.driver.read_charges(count)
+        except ProtocolError as error:
+            raise self._unreadable(self._line_of(error, index, count), error) from None
+        except InstrumentError as error:
+            raise Divergence(
+                f"traffic lines {index + 1} to {index + 2 * count}, whose samples the engine "
+                f"took, could not be read again: {error}"
+            ) from None
+        answered = follower.answered
+        if len(answered) != count or len(samples) != count:
+            raise Divergence(f"traffic line {index + 2} did not arrive from the playback")
+        lines = follower.lines
+        for (line, row_id), sample in zip(answered, samples, strict=True):
+            self.read[line] = (sample._replace(t_s=lines[line].t_s), row_id)
+
+    def _line_of(self, error: ProtocolError, index: int, count: int) -> int:
+        """Return the index of the answer among ``count`` polls from ``index`` that ``error``
+        is about (the first answer when it names none of them)."""
+        lines, raw = self.follower.lines, error.line
+        answers = range(index + 1, index + 2 * count, 2)
+        return next((i for i in answers if raw and lines[i].raw.startswith(raw)), index + 1)
+
     def _unreadable(self, index: int, error: ProtocolError) -> Exception:
         """Return why a sample line the driver cannot parse stops the replay: a traffic log
         that changed the line is refused, naming it; else the replay diverged."""
@@ -226,6 +285,8 @@ class Conductor:
         given = dataclasses.replace(logged.given, actor=self.actor(logged.given.actor))
         if isinstance(given, inputs.Sample):
             given = self._sample_read_again(logged, given)
+            if not self.engine.wants_samples():
+                self._taken_too_early(logged)
         elif isinstance(given, inputs.ShortDelivery):
             given = dataclasses.replace(given, reading=self._reading_again(given.reading))
         elif isinstance(given, inputs.Restart):
@@ -247,6 +308,22 @@ class Conductor:
         if self.name_of is not None:
             profile_commands = self.driver.profile.commands
             self.pending.extend(c for c in commands if c.action in profile_commands)
+
+    def _taken_too_early(self, logged: LoggedInput) -> None:
+        """Say that the engine no longer takes samples where the recording logged one: the
+        engine that recorded it was still taking a reading there (it logs no other sample), so
+        the replayed engine ended it earlier. Divergence in an exact replay (noted for a user's
+        traffic log); a what-if plan may well end it earlier (the comparison says so)."""
+        assert logged.line is not None
+        message = (
+            f"the logged sample (input {logged.input_id}, traffic line {logged.line + 1}) came "
+            "while the replayed engine was no longer taking a reading: it ended the reading "
+            "earlier than the recording did"
+        )
+        if self.strict and not self.edited:
+            raise Divergence(message)
+        if self.strict:
+            self.notes.append(message)
 
     def _reading_again(self, recorded_id: int) -> int:
         """Return the id of the replay's reading at the place of the recorded reading
