@@ -51,8 +51,9 @@ from chargebook.drivers_generic.interface import (
 UNASKED_WAIT_S = 10.0
 #: The fields of a logged sample that the driver's reading of its line must give again.
 SAMPLE_FIELDS = ("t_s", "charge_nC", "complete", "status")
-#: The most polls kept in flight at once at speed 0 (their answers fit the pty's buffer).
-MAX_POLLS_IN_FLIGHT = 64
+#: The most bytes of answers kept in flight at speed 0: the playback writes them all before
+#: the driver reads any, so they must fit a pty's buffer (about 18 KiB each way on Linux).
+MAX_BYTES_IN_FLIGHT = 4096
 
 
 class WhatIfStop(Exception):
@@ -214,15 +215,20 @@ class Conductor:
     def _poll_run(self, index: int) -> int:
         """Return how many polls from line ``index`` on can be kept in flight: the recording
         has the same query answered, line after line, by a sample the engine took, with no
-        other logged input applied between them (at most MAX_POLLS_IN_FLIGHT)."""
+        other logged input applied between them (queries and answers of at most
+        MAX_BYTES_IN_FLIGHT bytes each way)."""
         lines, samples = self.follower.lines, self.sample_lines
         query = lines[index].raw
         place = bisect.bisect_right(self.input_places, index)
         end = self.input_places[place] if place < len(self.input_places) else len(lines)
+        size = max(len(query), len(lines[index + 1].raw))
         count = 1
-        while count < MAX_POLLS_IN_FLIGHT:
+        while True:
             sent = index + 2 * count
             if sent + 2 > end or lines[sent].raw != query or sent + 1 not in samples:
+                break
+            size += max(len(query), len(lines[sent + 1].raw))
+            if size > MAX_BYTES_IN_FLIGHT:
                 break
             count += 1
         return count
