@@ -113,10 +113,17 @@ def load_recording(store: Store, session_id: int) -> Recording:
     if not logged or logged[0].kind != inputs.StartSession.kind:
         raise NotReplayable(before_the_input_log(session_id))
     events = store.events(session_id)
-    traffic = store.traffic(session_id)
-    traffic = [*exchange_before(store, traffic), *traffic]
-    line_places = store.chain_places("traffic", session_id)
-    places = tuple(line_places.get(row.id, 0) for row in traffic)
+    placed = store.placed_traffic(session_id)  # (id, t_s, direction, line, place) each
+    first = [TrafficRow(p[0], session_id, p[1], "", p[2], p[3]) for p in placed[:1]]
+    before = exchange_before(store, first)  # outside the session: place 0
+    line_ids = [row.id for row in before] + [p[0] for p in placed]
+    lines = tuple(
+        RecordedLine(index, t_s, direction, raw)
+        for index, (t_s, direction, raw) in enumerate(
+            [*((r.t_s, r.direction, r.line) for r in before), *(p[1:4] for p in placed)]
+        )
+    )
+    places = (0,) * len(before) + tuple(p[4] for p in placed)
     profile, time_scale = _acquisition(events)
     start = inputs.from_logged(logged[0].kind, logged[0].actor, logged[0].detail())
     assert isinstance(start, inputs.StartSession)
@@ -126,12 +133,9 @@ def load_recording(store: Store, session_id: int) -> Recording:
         thresholds=rules.session_thresholds(events),
         profile=profile,
         time_scale=time_scale,
-        lines=tuple(
-            RecordedLine(index, row.t_s, row.direction, row.line)
-            for index, row in enumerate(traffic)
-        ),
+        lines=lines,
         start=start,
-        inputs=tuple(placed_inputs(logged[1:], input_places, traffic, places)),
+        inputs=tuple(placed_inputs(logged[1:], input_places, lines, line_ids, places)),
         places=places,
         reading_ids=tuple(row.id for row in store.readings(session_id)),
     )
@@ -140,14 +144,15 @@ def load_recording(store: Store, session_id: int) -> Recording:
 def placed_inputs(
     logged: Sequence[InputRow],
     input_places: dict[int, int],
-    traffic: Sequence[TrafficRow],
+    lines: Sequence[RecordedLine],
+    line_ids: Sequence[int],
     places: Sequence[int],
 ) -> list[LoggedInput]:
     """Return the logged inputs, in order, each placed after the traffic lines before it in the
-    session's chain (``input_places``: input id -> place; ``places``: each line's place), a
-    sample right after the line it names. NotReplayable for a sample naming no line the
-    session received."""
-    line_index = {row.id: index for index, row in enumerate(traffic)}
+    session's chain (``input_places``: input id -> place; ``line_ids`` and ``places``: each
+    line's row id and place), a sample right after the line it names. NotReplayable for a
+    sample naming no line the session received."""
+    line_index = {row_id: index for index, row_id in enumerate(line_ids)}
     found: list[LoggedInput] = []
     position = 0
     for row in logged:
@@ -155,7 +160,7 @@ def placed_inputs(
         line = None
         if isinstance(given, inputs.Sample):
             line = line_index.get(given.line_id) if given.line_id is not None else None
-            if line is None or traffic[line].direction != "rx":
+            if line is None or lines[line].direction != "rx":
                 raise NotReplayable(
                     f"input {row.id} of session {row.session_id} is a sample of traffic line id "
                     f"{given.line_id}, which is not a line the session received"
