@@ -126,11 +126,7 @@ class Transport(ABC):
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
         self._record(TrafficDirection.SENT, frame)
-        try:
-            self._write(frame)
-        except InstrumentDisconnected:
-            self._lost()
-            raise
+        self._write_or_lose(self._write, frame)
 
     def send_all(self, frames: Sequence[bytes]) -> None:
         """Send lines framed by :meth:`frame` in one write (queries kept in flight: see
@@ -139,8 +135,12 @@ class Transport(ABC):
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
         self._record_all(TrafficDirection.SENT, frames)
+        self._write_or_lose(self._write_all, frames)
+
+    def _write_or_lose(self, write: Callable[[T], None], data: T) -> None:
+        """Run ``write(data)``; when the wire is gone, mark it lost and raise."""
         try:
-            self._write_all(frames)
+            write(data)
         except InstrumentDisconnected:
             self._lost()
             raise
