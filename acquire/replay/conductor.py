@@ -132,8 +132,9 @@ class Conductor:
         self.input_places = sorted(
             {i.position for i in recording.inputs if not isinstance(i.given, inputs.Sample)}
         )
-        #: What the driver read from each sample line: (sample, the replay's row id of it).
-        self.read: dict[int, tuple[Sample, int | None]] = {}
+        #: What the driver read from each sample line: (its receive time on the driver's clock,
+        #: the sample, the replay's row id of the line).
+        self.read: dict[int, tuple[float, Sample, int | None]] = {}
         self.notes: list[str] = []
 
     # -- the loop ----------------------------------------------------------------------------
@@ -210,7 +211,7 @@ class Conductor:
             ) from None
         if sample is None or self.follower.position <= index:
             raise Divergence(f"traffic line {index + 1} did not arrive from the playback")
-        self.read[index] = (sample, self.follower.last_received_id)
+        self.read[index] = (sample.t_s, sample, self.follower.last_received_id)
 
     def _poll_run(self, index: int) -> int:
         """Return how many polls from line ``index`` on can be kept in flight: the recording
@@ -252,7 +253,7 @@ class Conductor:
             raise Divergence(f"traffic line {index + 2} did not arrive from the playback")
         lines = follower.lines
         for (line, row_id), sample in zip(answered, samples, strict=True):
-            self.read[line] = (sample._replace(t_s=lines[line].t_s), row_id)
+            self.read[line] = (lines[line].t_s, sample, row_id)  # received as recorded
 
     def _line_of(self, error: ProtocolError, index: int, count: int) -> int:
         """Return the index of the answer among ``count`` polls from ``index`` that ``error``
@@ -348,11 +349,11 @@ class Conductor:
         the replay wrote it under; Divergence where it differs from the logged one (noted
         instead for a user's traffic log)."""
         assert logged.line is not None
-        sample, line_id = self.read[logged.line]
+        t_s, sample, line_id = self.read[logged.line]
         again = inputs.Sample(
             actor=self.actor(given.actor),
             clock_s=given.clock_s,
-            t_s=sample.t_s,
+            t_s=t_s,
             charge_nC=sample.charge_nC,
             complete=sample.complete,
             status=sample.status.value,
