@@ -258,9 +258,10 @@ class Conductor:
     def _line_of(self, error: ProtocolError, index: int, count: int) -> int:
         """Return the index of the answer among ``count`` polls from ``index`` that ``error``
         is about (the first answer when it names none of them)."""
-        lines, raw = self.follower.lines, error.line
+        lines = self.follower.lines
+        raw = error.line + self.driver.profile.framing.read_terminator
         answers = range(index + 1, index + 2 * count, 2)
-        return next((i for i in answers if raw and lines[i].raw.startswith(raw)), index + 1)
+        return next((i for i in answers if lines[i].raw == raw), index + 1)
 
     def _unreadable(self, index: int, error: ProtocolError) -> Exception:
         """Return why a sample line the driver cannot parse stops the replay: a traffic log
