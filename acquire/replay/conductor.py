@@ -10,6 +10,11 @@ recorded lines up to the input's place, so that the simulated instrument stays i
   name;
 * every other line is sent or read as recorded, through the driver's transport.
 
+At speed 0, an exact replay of a query-mode recording keeps polls in flight: a run of the same
+query, each answered by a sample the engine took, with no other input between them, is sent in
+one write and its answers read and parsed together (``ProfileElectrometer.read_charges``); each
+sample is then checked and applied in its turn, as above.
+
 Then it applies the input with ``Engine.apply``, as the daemon did: the logged sample (with the
 row id of the line the replay wrote), the operator's actions, ticks that ended a wait, the
 instrument lost or back, and a restart (a new engine resumes the session). Every input carries

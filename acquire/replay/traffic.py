@@ -10,7 +10,9 @@
   the line, where it is not), gets the time the line was recorded with, and is written to the
   replay's session as its own traffic. The lines are written a batch at a time
   (:meth:`TrafficFollower.flush`, before anything else is written: the chain keeps the order in
-  which they came), not one statement per line.
+  which they came), not one statement per line. Queries sent in one write (polls kept in
+  flight, :meth:`TrafficFollower.burst`) are the next exchanges' queries, each answer that
+  comes is its query's, and each pair is written as recorded.
 """
 
 from __future__ import annotations
