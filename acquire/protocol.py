@@ -22,8 +22,9 @@ Sequence of a client
        snapshot. A client whose snapshot is not the delta's base (it missed one) asks for the
        whole snapshot again (``status``). So the bytes sent per reading do not grow with the
        session nor with the set: a reading sends itself, its set's new statistics and what
-       else changed (the prompt), not its set's other readings nor the sets before it. The
-       results follow in a later delta while readings stream (see the daemon).
+       else changed (the prompt), not its set's other readings nor the sets before it. While
+       readings stream, the set's statistics and the results follow in a later delta (see
+       the daemon).
     3. Operator actions (the methods in :data:`OPERATOR_ACTIONS`); the snapshot's ``allowed``
        lists the actions that are legal *now*; any other gets :data:`ILLEGAL_TRANSITION`.
 
@@ -42,7 +43,9 @@ mmHg (converted once by the daemon, both values kept), bias in V (signed), time 
 from __future__ import annotations
 
 import enum
+import itertools
 import json
+import operator
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -799,6 +802,9 @@ def changed_set(entry: Mapping[str, Any], change: Mapping[str, Any]) -> dict[str
     return {**entry, **change["changed"], "readings": readings}
 
 
+_ID = operator.itemgetter("id")
+
+
 def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
     """Return the :class:`Delta` that turns snapshot ``old`` into snapshot ``new``.
 
@@ -814,18 +820,22 @@ def snapshot_delta(old: Mapping[str, Any], new: Mapping[str, Any]) -> Delta:
         if key not in ("seq", "sets") and (key not in old or old[key] != value)
     }
     old_sets, new_sets = old.get("sets") or [], new.get("sets") or []
-    extends = len(new_sets) >= len(old_sets) and all(
-        before["id"] == after["id"] for before, after in zip(old_sets, new_sets, strict=False)
+    held = len(old_sets)
+    # compared in C, a pass over each list: a session may hold hundreds of sets, and this
+    # runs at every reading
+    extends = len(new_sets) >= held and list(map(_ID, old_sets)) == list(
+        map(_ID, itertools.islice(new_sets, held))
     )
     delta: Delta = {"seq": new["seq"], "base_seq": old["seq"], "changed": changed, "sets": []}
     if not extends:
         changed["sets"] = new_sets
     else:
-        delta["sets"] = new_sets[len(old_sets) :]
+        delta["sets"] = new_sets[held:]
+        moved = itertools.compress(range(held), map(operator.is_not, old_sets, new_sets))
         changes = [
-            set_change(before, after)
-            for before, after in zip(old_sets, new_sets, strict=False)
-            if before is not after and before != after
+            set_change(old_sets[index], new_sets[index])
+            for index in moved
+            if old_sets[index] != new_sets[index]
         ]
         if changes:
             delta["set_changes"] = changes

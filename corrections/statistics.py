@@ -17,7 +17,7 @@ are None: said, not guessed. The array functions work along the last axis for ma
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 from chargebook.corrections.errors import InputError
@@ -123,10 +123,15 @@ class SetStatistics:
 
     def to_dict(self) -> dict[str, object]:
         """Return the statistics as JSON-ready plain types."""
-        result = asdict(self)
+        # its fields are numbers and a tuple of ints: no deep copy (dataclasses.asdict) needed,
+        # and the daemon builds this at every reading
+        result: dict[str, object] = {name: getattr(self, name) for name in _STATISTICS_FIELDS}
         result["outliers"] = list(self.outliers)
         result["relative_standard_error_pct"] = self.relative_standard_error_pct
         return result
+
+
+_STATISTICS_FIELDS = tuple(item.name for item in fields(SetStatistics))
 
 
 def readings_array(field: str, readings_nC: Sequence[float] | np.ndarray) -> np.ndarray:

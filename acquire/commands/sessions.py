@@ -51,14 +51,13 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
     station = store.station()
     set_counts, reading_counts = store.set_counts(), store.reading_counts()
     reviews = store.events_of_kind(EventKind.SESSION_REVIEWED)
-    names = store.session_names()  # what the listing reads of the metadata, not decoded
     visits = store.session_visits()
     rows = []
-    for session in store.sessions():
+    for session in store.listed_sessions():  # its names read, its metadata not decoded
         if args.status and session.status != args.status:
             continue
-        meta = names.get(session.id)
-        meta = session.metadata() if meta is None else meta
+        meta = session.names
+        meta = store.session(session.id).metadata() if meta is None else meta
         if not matches(session, args.beam, args.machine, meta):
             continue
         sets, accepted = set_counts.get(session.id, (0, 0))

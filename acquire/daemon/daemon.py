@@ -73,10 +73,11 @@ REFRESH_PAUSE_S = 0.01
 #: Shortest time between two snapshots that only show the live charge, s.
 LIVE_INTERVAL_S = 0.25
 #: While readings stream, shortest time between two computations of the results (with their
-#: uncertainty budget and dose), s: each reading is sent at once with its set's statistics, and
-#: the results follow in a delta of their own at most this often. Once readings stop (the set
-#: complete, paused, interrupted ...) the results are computed with the change that stopped
-#: them, and a set still collecting gets its results within this time of its latest reading.
+#: uncertainty budget and dose) and of the collecting set's statistics and flags, s: each
+#: reading is sent at once (with its label and the flags of its own status), and the set's
+#: statistics and the results follow in a delta of their own at most this often. Once readings
+#: stop (the set complete, paused, interrupted ...) they are computed with the change that
+#: stopped them, and a set still collecting gets them within this time of its latest reading.
 RESULTS_INTERVAL_S = 0.1
 #: The states in which readings stream in from the instrument (results may follow them).
 STREAMING_STATES = frozenset({protocol.EngineState.COLLECTING, protocol.EngineState.SETTLING})
@@ -90,6 +91,9 @@ LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventK
 MAX_SAMPLES_PER_BATCH = 4096
 #: A pause between pushed lines longer than this ends a burst, s.
 BURST_GAP_S = 0.002
+#: While samples are read, longest time raw lines wait in memory for the commit before the
+#: next post to the engine (see :class:`InstrumentLink`), s.
+LINES_COMMIT_S = 0.1
 #: How each traffic direction is written in the store.
 _DIRECTION_TEXT = {direction: direction.value for direction in TrafficDirection}
 #: Timeouts in a row after which the instrument counts as lost.
@@ -166,9 +170,12 @@ class InstrumentLink(threading.Thread):
     ``lost`` (message) and ``fault`` (message).
     ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
     commit; it is called before every ``post`` and after every turn of the thread's loop, so no
-    line waits longer than one turn. What the engine must hear of after lines that could not be
-    committed is held, in order, and posted once they are. While ``backlog_full`` is set (too
-    many lines held) no samples are read.
+    line waits longer than one turn; except that while samples are read, lines that nothing is
+    posted after (the answers to the commands that re-arm a reading, stale samples) wait for the
+    next post's commit, at most :data:`LINES_COMMIT_S`: one commit (one fsync) a reading, not
+    one for the commands and another for the sample. What the engine must hear of after lines
+    that could not be committed is held, in order, and posted once they are. While
+    ``backlog_full`` is set (too many lines held) no samples are read.
     """
 
     def __init__(
@@ -194,6 +201,10 @@ class InstrumentLink(threading.Thread):
         self.clock = clock
         self.inbox: queue.Queue[tuple[str, Any]] = queue.Queue()
         self.generation: int | None = None  # samples are read while this is set
+        #: The generation the loop asked for last (set at once, where ``generation`` follows
+        #: in order with the commands): samples of an older one are not posted, since the
+        #: loop would drop them, and their lines wait for the next commit.
+        self.wanted_generation: int | None = None
         #: The session the lines now sent and received belong to: set in order with the
         #: commands (:meth:`lines_for`), so a command issued for one session is recorded with
         #: it even when the loop has moved on to the next session before the line goes out.
@@ -204,6 +215,8 @@ class InstrumentLink(threading.Thread):
         self._next_poll_s = 0.0
         self._quit = threading.Event()
         self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
+        self._flushed_at = 0.0  # when the raw lines were last committed (time.monotonic)
+        self._burst_lines = 0  # how many lines the last burst of pushed lines brought
         self._reply_note: str | None = None  # the driver's note on late or slow answers
         self.backlog_full = False
 
@@ -218,6 +231,7 @@ class InstrumentLink(threading.Thread):
 
     def sample_for(self, generation: int | None) -> None:
         """Read samples tagged ``generation`` from now on (None: stop reading)."""
+        self.wanted_generation = generation
         self.inbox.put(("sampling", generation))
 
     def stop(self) -> None:
@@ -246,6 +260,7 @@ class InstrumentLink(threading.Thread):
 
     def _release(self) -> None:
         """Commit the raw lines recorded so far; if that worked, post what was held."""
+        self._flushed_at = time.monotonic()
         if not self.flush() or not self._held:
             return
         held, self._held = self._held, []
@@ -351,8 +366,17 @@ class InstrumentLink(threading.Thread):
         except InstrumentError as error:
             self._hand_over("fault", f"the electrometer refused a command: {error}")
         finally:
-            self._release()
+            self._end_turn()
             self._tell_reply_note()
+
+    def _end_turn(self) -> None:
+        """Commit the turn's raw lines (see :meth:`_release`), unless samples are being read
+        and the lines last committed less than LINES_COMMIT_S ago: then the lines wait for the
+        commit before the next post (a sample's), which records them all at once."""
+        sampling = self.generation is not None and not self.backlog_full
+        if sampling and not self._held and time.monotonic() - self._flushed_at < LINES_COMMIT_S:
+            return
+        self._release()
 
     def _tell_reply_note(self) -> None:
         """Post the driver's note on late or slow answers when it changed."""
@@ -411,7 +435,7 @@ class InstrumentLink(threading.Thread):
             self._timeouts = 0
         finally:  # samples read before a disconnection are still handed over
             fresh = [chunk for chunk in map(self._fresh, chunks) if chunk[0]]
-            if fresh:
+            if fresh and self.generation == self.wanted_generation:
                 self._hand_over("samples", (self.generation, fresh))
 
     def _fresh(self, chunk: SampleChunk) -> SampleChunk:
@@ -426,23 +450,31 @@ class InstrumentLink(threading.Thread):
 
     def _drain_pushed(self, chunks: list[SampleChunk]) -> None:
         """Read a burst of pushed lines: the first within POLL_INTERVAL_S, then each next read
-        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH samples.
+        within BURST_GAP_S, at most MAX_SAMPLES_PER_BATCH samples. A lone line after a burst
+        of one line ends its burst at once: an instrument that sends its lines one at a time
+        (tens or hundreds a second) is not waited on for a next line that is not coming.
 
         A rejected line is logged and skipped; the burst goes on.
         """
         timeout_s = POLL_INTERVAL_S
-        count = 0
-        while count < MAX_SAMPLES_PER_BATCH:
-            self.lines_read()  # forget lines recorded outside this read (commands' answers)
-            burst = self.electrometer.read_samples(timeout_s)
-            for error in burst.rejected:
-                log.warning("rejected a line from the electrometer: %s", error)
-            if not burst.count:
-                return
-            if burst.samples:
-                chunks.append(_chunk(burst, self.lines_read()))
-                count += len(burst.samples)
-            timeout_s = BURST_GAP_S
+        count = lines = 0
+        try:
+            while count < MAX_SAMPLES_PER_BATCH:
+                self.lines_read()  # forget lines recorded outside this read (commands' answers)
+                burst = self.electrometer.read_samples(timeout_s)
+                for error in burst.rejected:
+                    log.warning("rejected a line from the electrometer: %s", error)
+                if not burst.count:
+                    return
+                lines += burst.count
+                if burst.samples:
+                    chunks.append(_chunk(burst, self.lines_read()))
+                    count += len(burst.samples)
+                if lines == 1 and self._burst_lines == 1:
+                    return
+                timeout_s = BURST_GAP_S
+        finally:
+            self._burst_lines = lines
 
 
 def _chunk(burst: SampleBurst, read: list[tuple[LineRef, int]]) -> SampleChunk:
@@ -477,6 +509,13 @@ def _event_info(event: EventRow) -> protocol.EventInfo:
         "kind": event.kind,
         "detail": json.loads(event.detail_json),
     }
+
+
+def _event_line(event: EventRow) -> bytes:
+    """Return the encoded ``event`` notification of one committed audit event."""
+    return protocol.encode_from_daemon(
+        protocol.notification(protocol.NOTIFY_EVENT, _event_info(event))
+    )
 
 
 def _fitted(snapshot: protocol.Snapshot) -> protocol.Snapshot:
@@ -1019,26 +1058,29 @@ class Daemon:
     async def publish(self, *, streaming: bool = False) -> None:
         """Broadcast the audit events committed since the last call (as the store handed them
         over: nothing is read back) and, if the state changed, the snapshot. ``streaming``:
-        while readings stream, a reading is sent with the results computed last, and the
-        results follow in a delta of their own (:meth:`_results_later`)."""
+        while readings stream, a reading is sent with the results (and its set's statistics)
+        computed last, and those follow in a delta of their own (:meth:`_results_later`)."""
         assert self.engine is not None and self.store is not None
         engine = self.engine
-        emitted = self._emitted[:]
-        self._emitted.clear()  # the same list: the store extends it
-        for event in emitted:
-            await self._broadcast(protocol.NOTIFY_EVENT, _event_info(event))
-        if engine.seq == self._published_seq:
-            return
-        self._published_seq = engine.seq
         servers = (self.server, self.watch_server)
-        if not any(server.has_subscribers() for server in servers):  # nothing to build
-            self._sent = None
-            return
-        later = streaming and engine.state in STREAMING_STATES and engine.results_stale
-        line = self._change_line(self._current_snapshot(results_later=later))
-        if line is not None:
+        heard = any(server.has_subscribers() for server in servers)
+        # the events and the change, in order, in one write to each subscriber
+        lines = [_event_line(event) for event in self._emitted] if heard else []
+        self._emitted.clear()  # the same list: the store extends it
+        later = False
+        if engine.seq != self._published_seq:
+            self._published_seq = engine.seq
+            if not heard:  # nothing to build
+                self._sent = None
+            else:
+                later = streaming and engine.state in STREAMING_STATES and engine.results_stale
+                line = self._change_line(self._current_snapshot(results_later=later))
+                if line is not None:
+                    lines.append(line)
+        if lines:
+            sent = b"".join(lines)
             for server in servers:
-                await server.broadcast_line(line)
+                server.queue_for_subscribers(sent)
         if later:
             self._results_later()
 
@@ -1071,12 +1113,6 @@ class Daemon:
             self._results_task = None
             if engine.results_stale and self._sent is not None:
                 self._results_later()
-
-    async def _broadcast(self, method: str, params: Any) -> None:
-        """Send a notification to the subscribers of both sockets."""
-        line = protocol.encode_from_daemon(protocol.notification(method, params))
-        for server in (self.server, self.watch_server):
-            await server.broadcast_line(line)
 
     def _change_line(self, snapshot: protocol.Snapshot) -> bytes | None:
         """Return the notification that brings every subscriber to ``snapshot``: a ``delta``

@@ -66,7 +66,12 @@ class Connection:
         return self.operator or self.client
 
     async def send(self, line: bytes) -> None:
-        """Queue one encoded message for this client; never wait for the client to read it.
+        """Queue one encoded message for this client (see :meth:`queue`)."""
+        self.queue(line)
+
+    def queue(self, line: bytes) -> None:
+        """Queue encoded messages (one or more whole lines) for this client; never wait for
+        the client to read them.
 
         The connection's outgoing queue is its transport's buffer, written out by the event
         loop as the client reads. A client that falls more than MAX_PENDING_OUTPUT_BYTES behind
@@ -270,9 +275,15 @@ class RpcServer:
         )
 
     async def broadcast_line(self, line: bytes) -> None:
-        """Send an encoded notification line to every subscribed connection."""
-        targets = [c for c in self.connections if c.subscribed and not c.closed]
-        await asyncio.gather(*(c.send(line) for c in targets))
+        """Send encoded notification lines (one or more whole lines) to every subscribed
+        connection."""
+        self.queue_for_subscribers(line)
+
+    def queue_for_subscribers(self, line: bytes) -> None:
+        """Queue encoded notification lines for every subscribed connection, in one write each
+        (no task per connection: the write never waits, see :meth:`Connection.queue`)."""
+        for connection in [c for c in self.connections if c.subscribed and not c.closed]:
+            connection.queue(line)
 
     def has_subscribers(self) -> bool:
         """Return True when at least one open connection asked for notifications."""

@@ -125,7 +125,9 @@ class ReadingCapture:
         A sample that cannot complete the reading (see :meth:`_may_complete`) is fed without a
         copy of the state: of a timed integration only its charge and time are kept here.
         """
-        for index, sample in enumerate(samples):
+        start = self._take_timed(samples) if self.phase is ReadingPhase.TIMED else 0
+        for index in range(start, len(samples)):
+            sample = samples[index]
             t_s = sample.t_s
             if t_s < self.armed_t_s:
                 continue  # a stale line, ignored as feed ignores it
@@ -142,6 +144,26 @@ class ReadingCapture:
             if captured is not None:
                 return index + 1, captured, before
         return len(samples), None, {}
+
+    def _take_timed(self, samples: Sequence[Any]) -> int:
+        """Take the samples of a timed integration up to the first that may complete it (as
+        :meth:`feed_run` takes each, in one tight loop: a streaming instrument pushes thousands
+        while it integrates); return that sample's index (the count when none may)."""
+        armed_t_s, timed_s = self.armed_t_s, self.timed_s
+        last, stop = None, len(samples)
+        for index, sample in enumerate(samples):
+            t_s = sample.t_s
+            if t_s < armed_t_s:
+                continue  # a stale line, ignored as feed ignores it
+            if sample.complete or (timed_s is not None and t_s - armed_t_s >= timed_s):
+                stop = index
+                break
+            if last is None and self.baseline_nC is None:
+                self.baseline_nC = sample.charge_nC
+            last = sample
+        if last is not None:
+            self.last_charge_nC, self.last_t_s = last.charge_nC, last.t_s
+        return stop
 
     def _may_complete(self, t_s: float, complete: bool) -> bool:
         """Return False when a sample at ``t_s`` (not stale) surely does not complete the

@@ -35,10 +35,9 @@ import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
-from itertools import repeat
 from typing import Any
 
-from chargebook.acquire.engine import driver_commands, inputs
+from chargebook.acquire.engine import driver_commands, inputs, sample_log
 from chargebook.acquire.engine.capture import (
     Captured,
     CaptureSettings,
@@ -149,9 +148,9 @@ class Engine:
         self.notice: str | None = None
         self.integration_s: dict[int, float] = {}  # reading id -> seconds from arm to capture
         self.actual_MU: dict[int, float] = {}  # reading id -> MU delivered, when stopped short
-        #: Samples taken since the last input logged, logged with the next one (in order):
-        #: each an inputs.Sample, or (clock_s, sample, line_id) as :meth:`take_samples` took it.
-        self._unlogged_samples: list[inputs.Sample | tuple[float, Any, int | None]] = []
+        #: Samples taken since the last input logged, logged with the next one (in order), as
+        #: each call took them (see :mod:`sample_log`).
+        self._unlogged_samples: list[sample_log.Chunk] = []
         #: How many samples the latest :meth:`take_samples` took (so far, if it raised).
         self.samples_taken = 0
         self._input_clock_s: float | None = None  # the clock of the input being applied
@@ -288,6 +287,11 @@ class Engine:
         assert given.clock_s is not None
         if isinstance(given, inputs.Sample):
             return self._take_sample(given)
+        if isinstance(given, inputs.SampleRun):
+            raise TypeError(
+                "a logged run of samples is taken with Engine.take_samples, given the samples "
+                "its traffic lines hold"
+            )
         if isinstance(given, inputs.Tick) and not self._wait_over(given.clock_s):
             return None
         handler = HANDLERS[type(given)]
@@ -310,8 +314,11 @@ class Engine:
 
     def _log(self, session_id: int | None, given: inputs.Input) -> None:
         """Append ``given`` to the input log, after the samples taken before it."""
-        entries = [*self._unlogged_samples, given] if session_id is not None else [given]
-        self.store.add_inputs(session_id, [_logged_input(entry) for entry in entries])
+        entries = (
+            sample_log.logged_entries(self._unlogged_samples) if session_id is not None else []
+        )
+        entries.append((given.kind, given.actor, given.fields()))
+        self.store.add_inputs(session_id, entries)
         self._unlogged_samples = []
 
     def _now(self) -> float:
@@ -745,8 +752,9 @@ class Engine:
         engine). A reading names the raw line of the sample it was taken at.
 
         A sample that only moves the charge writes nothing: it is kept, in order, and logged
-        with the next input that writes (the capture it leads to, or any other). Such a sample
-        changes only what is in memory, which a crash loses with it.
+        with the next input that writes (the capture it leads to, or any other), in a run with
+        the samples of the lines next to its own (see :mod:`sample_log`). Such a sample changes
+        only what is in memory, which a crash loses with it.
         """
         reading = self.reading
         if reading is None:
@@ -755,7 +763,8 @@ class Engine:
         self.reading_status = sample.status
         if sample.t_s >= reading.armed_t_s:  # a stale sample is ignored (see ReadingCapture.feed)
             self.sample_line_id = sample.line_id
-        self._unlogged_samples.append(sample)
+        assert sample.clock_s is not None  # apply gave it the engine's clock
+        self._unlogged_samples.append((sample.clock_s, (sample,), (sample.line_id,), sample.actor))
         captured = reading.feed(sample.t_s, sample.charge_nC, sample.complete)
         if captured is None:
             return  # nothing recorded: no transaction for a sample that only moves the charge
@@ -768,15 +777,20 @@ class Engine:
             raise
 
     def take_samples(
-        self, samples: Sequence[Any], line_ids: Sequence[int | None], clock_s: float
+        self,
+        samples: Sequence[Any],
+        line_ids: Sequence[int | None],
+        clock_s: float,
+        actor: str = DAEMON_ACTOR,
     ) -> int:
         """Take pushed samples in order until one completes the reading: the same state, the
         same record and the same input log as applying an :class:`inputs.Sample` for each, one
         at a time, at ``clock_s``, but in one call (a streaming instrument brings thousands a
         second, nearly all of which only move the charge). Each sample has ``t_s`` (s),
         ``charge_nC``, ``complete`` and ``status`` (text); ``line_ids`` the row of each one's
-        raw line. Return how many were taken (:attr:`samples_taken` says it too, as they are
-        taken: a capture that fails to be recorded raises, and its sample is not taken).
+        raw line; ``actor`` who gives them (the daemon, or a replay of it). Return how many were
+        taken (:attr:`samples_taken` says it too, as they are taken: a capture that fails to be
+        recorded raises, and its sample is not taken).
         """
         self.samples_taken = 0
         reading = self.reading
@@ -785,9 +799,9 @@ class Engine:
         fed, captured, before = reading.feed_run(samples)
         kept = fed - 1 if captured is not None else fed  # the one that completed it is logged
         # with its capture, after the ones that only moved the charge
-        self._unlogged_samples.extend(zip(repeat(clock_s), samples[:kept], line_ids, strict=False))
         status, line_id = self.reading_status, self.sample_line_id
         if kept:
+            self._unlogged_samples.append((clock_s, samples[:kept], line_ids[:kept], actor))
             status = str(samples[kept - 1].status)
             line_id = _latest_line(samples, line_ids, kept, reading.armed_t_s, line_id)
         self.samples_taken = kept
@@ -798,7 +812,7 @@ class Engine:
         # before it: its capture is recorded (or refused) exactly as apply records one
         vars(reading).update(before)
         self.reading_status, self.sample_line_id = status, line_id
-        self.apply(_sample_input(clock_s, samples[kept], line_ids[kept]))
+        self.apply(sample_log.sample_input(clock_s, samples[kept], line_ids[kept], actor))
         self.samples_taken = fed
         return fed
 
@@ -1181,34 +1195,3 @@ def _latest_line(
         if samples[index].t_s >= armed_t_s:
             return line_ids[index]
     return otherwise
-
-
-def _sample_input(clock_s: float, sample: Any, line_id: int | None) -> inputs.Sample:
-    """Return the input a pushed sample (as :meth:`Engine.take_samples` takes it) stands for."""
-    return inputs.Sample(
-        t_s=sample.t_s,
-        charge_nC=sample.charge_nC,
-        complete=sample.complete,
-        status=str(sample.status),
-        line_id=line_id,
-        clock_s=clock_s,
-    )
-
-
-def _logged_input(
-    entry: inputs.Input | tuple[float, Any, int | None],
-) -> tuple[str, str, dict[str, Any]]:
-    """Return (kind, actor, detail) of an input as the log holds it: a sample kept as
-    (clock_s, sample, line_id) is logged as its :class:`inputs.Sample` would be."""
-    if not isinstance(entry, tuple):
-        return entry.kind, entry.actor, entry.fields()
-    clock_s, sample, line_id = entry
-    detail = {
-        "clock_s": clock_s,
-        "t_s": sample.t_s,
-        "charge_nC": sample.charge_nC,
-        "complete": sample.complete,
-        "status": str(sample.status),
-        "line_id": line_id,
-    }
-    return inputs.Sample.kind, DAEMON_ACTOR, detail

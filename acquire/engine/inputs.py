@@ -16,8 +16,12 @@ the engine reads no other clock while applying an input, so the log holds every 
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Mapping
+import hashlib
+import sys
+from array import array
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from operator import attrgetter
 from pathlib import Path
 from typing import Any, ClassVar
 
@@ -205,6 +209,57 @@ class Sample(Input):
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class SampleRun(Input):
+    """Samples the engine consumed in a row that only moved the charge, logged as one entry.
+
+    Their raw lines are ``count`` consecutive rows of the traffic table from ``first_line_id``
+    (each sample parsed from one of them, in order); ``t_s``, ``charge_nC``, ``complete`` and
+    ``status`` are the last sample's, and ``digest`` is :func:`run_digest` of all of them, so a
+    replay that reads the same lines again proves it re-derived the same samples. ``clock_s``
+    is the engine's clock when the last of them was taken (a sample that only moves the charge
+    reads no clock). The samples themselves come from the traffic: a replay gives them to
+    ``Engine.take_samples``, as the daemon did.
+    """
+
+    kind: ClassVar[str] = "sample_run"
+    first_line_id: int
+    count: int
+    t_s: float
+    charge_nC: float
+    complete: bool = False
+    status: str = "ok"
+    digest: str
+
+    @property
+    def line_ids(self) -> range:
+        """Return the traffic rows of the run's lines, in order."""
+        return range(self.first_line_id, self.first_line_id + self.count)
+
+
+_T_S, _CHARGE_NC = attrgetter("t_s"), attrgetter("charge_nC")
+_COMPLETE, _STATUS = attrgetter("complete"), attrgetter("status")
+
+
+def run_digest(samples: Sequence[Any]) -> str:
+    """Return the digest (BLAKE2b, 128 bits, hex) of samples' ``t_s`` and ``charge_nC`` (as
+    IEEE 754 doubles, little-endian), ``complete`` and ``status`` (its text), in order.
+
+    Each field is gathered in one pass in C (no Python object per sample): a run may hold a
+    hundred thousand samples.
+    """
+    times, charges = array("d", map(_T_S, samples)), array("d", map(_CHARGE_NC, samples))
+    if sys.byteorder == "big":
+        times.byteswap()
+        charges.byteswap()
+    digest = hashlib.blake2b(digest_size=16)
+    digest.update(times.tobytes())
+    digest.update(charges.tobytes())
+    digest.update(bytes(map(_COMPLETE, samples)))
+    digest.update("\n".join(map(str, map(_STATUS, samples))).encode())
+    return digest.hexdigest()
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Tick(Input):
     """A clock tick at ``clock_s``; logged only when it ended a settling wait."""
 
@@ -263,6 +318,7 @@ KINDS: dict[str, type[Input]] = {
         Abort,
         Close,
         Sample,
+        SampleRun,
         Tick,
         InstrumentLost,
         InstrumentBack,

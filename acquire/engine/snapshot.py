@@ -4,14 +4,19 @@ from __future__ import annotations
 
 import weakref
 from collections.abc import Mapping
+from dataclasses import dataclass, field
+from itertools import compress, repeat
+from operator import attrgetter, eq, is_not, itemgetter, or_
 from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.protocol import (
     CAUTION,
     EngineState,
     EnvironmentInfo,
+    FlagInfo,
     LiveReading,
     PromptInfo,
+    ReadingInfo,
     ReadingPhase,
     SessionInfo,
     SetInfo,
@@ -28,16 +33,46 @@ if TYPE_CHECKING:
 
 S = EngineState
 
-#: Per engine, per set id: (what the set's entry was computed from, the entry). A set's
-#: statistics and flags are recomputed only when its row, its readings, the thresholds or its
-#: plan step changed, so a finished set costs nothing while another one is being taken.
-_SET_CACHE: weakref.WeakKeyDictionary[Engine, dict[int, tuple[tuple[Any, ...], SetInfo]]]
-_SET_CACHE = weakref.WeakKeyDictionary()
+_ID = attrgetter("id")
+_STATUS = itemgetter("status")
+_STEP_INDEX = itemgetter("step_index")
+
+
+@dataclass
+class _Kept:
+    """What an engine's last snapshot was built from, and the parts built, to be used again
+    where nothing they depend on changed (the very objects: a client compares by identity,
+    and :func:`protocol.snapshot_delta` finds what changed without comparing the rest)."""
+
+    #: The sets' rows, their readings, whether each one's flags use the routine set's
+    #: charge per MU, the plan, thresholds and that reference they were computed with.
+    rows: list[SetRow] = field(default_factory=list)
+    owns: list[tuple[ReadingRow, ...]] = field(default_factory=list)
+    compared: list[bool] = field(default_factory=list)
+    plan: object = None
+    thresholds: object = None
+    reference: float | None = None
+    entries: list[SetInfo] = field(default_factory=list)
+    #: The sets whose entry shows statistics and flags from before its latest readings.
+    grown: set[int] = field(default_factory=set)
+    #: The session's row and its entry; the environment rows and their entries.
+    session: tuple[object, str, SessionInfo | None] = (None, "", None)
+    environment: tuple[list[object], list[EnvironmentInfo]] = ([], [])
+
+
+#: Per engine: what its last snapshot was built from (see :class:`_Kept`). A set's statistics
+#: and flags are recomputed only when its row, its readings, the thresholds or the plan
+#: changed, so a finished set costs nothing while another one is being taken, and finding
+#: the set that changed among hundreds is a few passes in C, not a Python loop over them.
+_KEPT: weakref.WeakKeyDictionary[Engine, _Kept] = weakref.WeakKeyDictionary()
 
 
 def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snapshot:
     """Return the protocol Snapshot of ``engine`` (session, plan, sets, live, results ...);
-    ``results_shown``: the results to show, when not the engine's results now."""
+    ``results_shown``: the results to show, when not the engine's results now (computed last,
+    while readings stream). With them, a set that only gained readings since the last snapshot
+    shows its new readings at once and its statistics and flags as computed last: those are
+    computed again with the results, which follow (see :func:`_grown_entry`)."""
     store, session_id = engine.store, engine.session_id
     sets: list[SetInfo] = []
     environment: EnvironmentInfo | None = None
@@ -47,19 +82,11 @@ def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snap
     results, provisional, results_error = shown
     if session_id is not None:
         assert engine.plan is not None  # a session is open: its plan is known
-        row = store.session(session_id)
-        session = {
-            "id": row.id,
-            "status": row.status,
-            "created_at": row.created_at,
-            "metadata": row.metadata(),
-            "convention": row.convention,
-            "beam": row.beam,
-            "plan_name": engine.plan.name,
-            "reason": row.reason,
-        }
-        sets = _sets_info(engine, store.sets(session_id), store.readings_by_set(session_id))
-        entries = [_environment_info(entry) for entry in store.environment(session_id)]
+        kept = _KEPT.setdefault(engine, _Kept())
+        session = _session_info(kept, store.session(session_id), engine.plan.name)
+        rows, by_set = store.sets(session_id), store.readings_by_set(session_id)
+        sets = _sets_info(engine, rows, by_set, summaries_later=results_shown is not None)
+        entries = _environment_entries(kept, store.environment(session_id))
         if entries:
             environment = entries[-1]
     active_id = engine.active.id if engine.active is not None else None
@@ -98,32 +125,122 @@ def build_snapshot(engine: Engine, results_shown: Results | None = None) -> Snap
     }
 
 
+def _session_info(kept: _Kept, row: Any, plan_name: str) -> SessionInfo:
+    """Return the session's entry: the one built last while its row and plan are the same."""
+    if kept.session[2] is not None and kept.session[1] == plan_name and kept.session[0] == row:
+        return kept.session[2]
+    session: SessionInfo = {
+        "id": row.id,
+        "status": row.status,
+        "created_at": row.created_at,
+        "metadata": row.metadata(),
+        "convention": row.convention,
+        "beam": row.beam,
+        "plan_name": plan_name,
+        "reason": row.reason,
+    }
+    kept.session = (row, plan_name, session)
+    return session
+
+
+def _environment_entries(kept: _Kept, rows: list[EnvironmentRow]) -> list[EnvironmentInfo]:
+    """Return the session's environment entries: the list built last while its rows are."""
+    if rows == kept.environment[0]:
+        return kept.environment[1]
+    entries = [_environment_info(entry) for entry in rows]
+    kept.environment = (list(rows), entries)
+    return entries
+
+
 def _sets_info(
-    engine: Engine, rows: list[SetRow], by_set: Mapping[int, tuple[ReadingRow, ...]]
+    engine: Engine,
+    rows: list[SetRow],
+    by_set: Mapping[int, tuple[ReadingRow, ...]],
+    *,
+    summaries_later: bool = False,
 ) -> list[SetInfo]:
     """Return every set's entry, reusing the entries of sets whose inputs did not change (the
-    very dict: a set that did not change is the same object in the next snapshot)."""
-    cache = _SET_CACHE.setdefault(engine, {})
-    fresh: dict[int, tuple[tuple[Any, ...], SetInfo]] = {}
-    entries: list[SetInfo] = []
+    very dict: a set that did not change is the same object in the next snapshot).
+    ``summaries_later``: a set that only gained readings keeps its statistics and flags as
+    computed last (:func:`_grown_entry`); the next snapshot without it computes them."""
     plan = engine.plan
     assert plan is not None  # sets exist only in a session
+    kept = _KEPT.setdefault(engine, _Kept())
     reference = rules.routine_nC_per_MU(plan, rows, by_set)
+    owns: list[tuple[ReadingRow, ...]] = list(map(by_set.get, map(_ID, rows), repeat(())))
+    if kept.plan is plan and kept.thresholds == engine.thresholds:
+        same = min(len(rows), len(kept.rows))
+        kept_rows, kept_owns = kept.rows, kept.owns
+        # the sets whose row or readings are other objects (in C), then those really changed
+        moved = compress(
+            range(same), map(or_, map(is_not, rows, kept_rows), map(is_not, owns, kept_owns))
+        )
+        changed = {i for i in moved if rows[i] != kept_rows[i] or owns[i] != kept_owns[i]}
+        if reference != kept.reference:  # only the delivery flags of compared sets use it
+            changed.update(compress(range(same), kept.compared))
+        # the sets shown with earlier statistics: theirs are due, unless they wait again
+        changed.update(index for index in kept.grown if index < same)
+        entries, compared = kept.entries[:same], kept.compared[:same]
+    else:
+        same, changed, entries, compared = 0, set(), [], []
     steps = plan.steps
-    for row in rows:
-        own = by_set.get(row.id, ())
+    kept.grown = set()
+    for index in sorted(changed) + list(range(same, len(rows))):
+        row = rows[index]
         step = steps[row.step_index] if row.step_index < len(steps) else None
+        entry = None
+        if summaries_later and index < same and rows[index] == kept.rows[index]:
+            entry = _grown_entry(entries[index], kept.owns[index], owns[index])
+        if entry is not None:
+            kept.grown.add(index)
+        else:
+            entry = _set_info(engine, row, list(owns[index]), step, reference)
         # only the delivery flags of a beam set other than the routine one use the reference
-        compared = step is not None and step.uses_beam and step.purpose != "routine"
-        inputs = (row, own, engine.thresholds, step, reference if compared else None)
-        cached = cache.get(row.id)
-        entry = cached[1] if cached is not None and cached[0] == inputs else None
-        if entry is None:
-            entry = _set_info(engine, row, list(own), step, reference)
-        fresh[row.id] = (inputs, entry)
-        entries.append(entry)
-    _SET_CACHE[engine] = fresh
-    return entries
+        uses = step is not None and step.uses_beam and step.purpose != "routine"
+        if index < same:
+            entries[index], compared[index] = entry, uses
+        else:
+            entries.append(entry)
+            compared.append(uses)
+    kept.rows, kept.owns, kept.compared, kept.entries = list(rows), owns, compared, entries
+    kept.plan, kept.thresholds, kept.reference = plan, engine.thresholds, reference
+    return list(entries)
+
+
+def _grown_entry(
+    entry: SetInfo, before: tuple[ReadingRow, ...], own: tuple[ReadingRow, ...]
+) -> SetInfo | None:
+    """Return a set's ``entry`` with the readings it gained since it showed ``before`` (each
+    with the flags of its own status; the flags that compare it with the others follow with the
+    statistics), its statistics and flags unchanged; None unless ``own`` only extends
+    ``before``. While readings stream in at tens a second, the statistics and flags are then
+    computed with the results, at most every few tenths of a second, not at every reading."""
+    held = len(before)
+    if len(own) <= held or own[:held] != before:
+        return None
+    labels = reading_labels(reading.settling for reading in own)[held:]
+    added = [
+        _reading_info(reading, label, rules.reading_flags(reading, False))
+        for reading, label in zip(own[held:], labels, strict=True)
+    ]
+    done = entry["readings_done"] + sum(1 for reading in own[held:] if not reading.settling)
+    return {**entry, "readings": [*entry["readings"], *added], "readings_done": done}
+
+
+def _reading_info(reading: ReadingRow, label: str, flags: list[FlagInfo]) -> ReadingInfo:
+    """Return one reading's entry in its set's (``label``: its number as shown)."""
+    return {
+        "id": reading.id,
+        "seq": reading.seq,
+        "label": label,
+        "t_s": reading.t_s,
+        "charge_nC": reading.charge_nC,
+        "capture": reading.capture,
+        "settling": bool(reading.settling),
+        "status": reading.status,
+        "recorded_at": reading.recorded_at,
+        "flags": flags,
+    }
 
 
 def _set_info(
@@ -144,18 +261,7 @@ def _set_info(
         "status": row.status,
         "reason": row.reason,
         "readings": [
-            {
-                "id": r.id,
-                "seq": r.seq,
-                "label": label,
-                "t_s": r.t_s,
-                "charge_nC": r.charge_nC,
-                "capture": r.capture,
-                "settling": bool(r.settling),
-                "status": r.status,
-                "recorded_at": r.recorded_at,
-                "flags": per_reading.get(r.id, []),
-            }
+            _reading_info(r, label, per_reading.get(r.id, []))
             for r, label in zip(own, reading_labels(r.settling for r in own), strict=True)
         ],
         "readings_needed": int(step.readings) if step is not None else len(own),
@@ -180,7 +286,9 @@ def _environment_info(entry: EnvironmentRow) -> EnvironmentInfo:
 def _plan_info(engine: Engine, sets: list[SetInfo]) -> list[StepInfo]:
     if engine.plan is None:
         return []
-    accepted = {s["step_index"] for s in sets if s["status"] == "accepted"}
+    accepted = set(
+        map(_STEP_INDEX, compress(sets, map(eq, map(_STATUS, sets), repeat("accepted"))))
+    )
     steps: list[StepInfo] = []
     for index, step in enumerate(engine.plan.steps):
         if index in accepted:

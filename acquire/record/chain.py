@@ -28,6 +28,7 @@ import hashlib
 import json
 import json.encoder
 from collections.abc import Sequence
+from itertools import count
 from typing import Any
 
 #: The hash before a session's first row.
@@ -124,19 +125,9 @@ def link_traffic(previous_hash: str, seq: int, values: Sequence[Any]) -> str:
     """Return :func:`link` for a traffic row, the same bytes built faster: raw lines may arrive
     by the ten thousand a second, and this runs once for each."""
     row_id, session_id, t_s, recorded_at, direction, line = values
-    if (
-        type(t_s) is float
-        and type(line) is bytes
-        and type(row_id) is int
-        and (session_id is None or type(session_id) is int)
-        and _plain_text(recorded_at)
-        and _plain_text(direction)
-    ):
-        owner_text = "null" if session_id is None else session_id
-        text = (
-            f'{previous_hash}:{seq}:["traffic",{row_id},{owner_text},{t_s!r},'
-            f'"{recorded_at}","{direction}","{line.hex()}"]'
-        )
+    middle = _traffic_middle(session_id, t_s, recorded_at, direction)
+    if middle is not None and type(line) is bytes and type(row_id) is int:
+        text = f'{previous_hash}:{seq}:["traffic",{row_id}{middle}{line.hex()}"]'
         return hashlib.sha256(text.encode()).hexdigest()
     return link(previous_hash, seq, "traffic", values)
 
@@ -147,35 +138,60 @@ def traffic_rows(
     """Return traffic rows of one session's chain, linked on from place ``seq`` (whose hash is
     ``previous_hash``): each line (session_id, t_s, recorded_at, direction, line bytes) becomes
     (id, its columns, chain_seq, chain_hash), ids counted from ``first_id``. The same hashes as
-    :func:`link_traffic` line by line, in one tight loop: a burst holds thousands of lines."""
-    rows: list[tuple[Any, ...]] = []
-    plain: set[tuple[Any, Any, Any]] = set()  # (recorded_at, direction, session) JSON writes as is
+    :func:`link_traffic` line by line, in one tight loop: a burst holds thousands of lines.
+
+    The lines of one read share their session, time, stamp and direction (the same objects):
+    the text those give the hashed bytes is made once for them, and each line adds its own id,
+    place and bytes.
+    """
+    if not lines:
+        return []
+    hashes: list[str] = []
     sha256 = hashlib.sha256
-    row_id = first_id
-    for line in lines:
-        session_id, t_s, recorded_at, direction, data = line
-        seq += 1
-        if (
-            (recorded_at, direction, session_id) in plain
-            and type(t_s) is float
-            and (type(data) is bytes)
+    shared: tuple[Any, Any, Any, Any] | None = None  # the previous line's, compared by identity
+    middle: str | None = None
+    for place, row_id, (session_id, t_s, recorded_at, direction, data) in zip(
+        count(seq + 1), count(first_id), lines
+    ):
+        if shared is None or not (
+            t_s is shared[1]
+            and recorded_at is shared[2]
+            and direction is shared[3]
+            and session_id is shared[0]
         ):
-            owner_text = "null" if session_id is None else session_id
+            shared = (session_id, t_s, recorded_at, direction)
+            middle = _traffic_middle(session_id, t_s, recorded_at, direction)
+        if middle is not None and type(data) is bytes:
             previous_hash = sha256(
-                f'{previous_hash}:{seq}:["traffic",{row_id},{owner_text},{t_s!r},'
-                f'"{recorded_at}","{direction}","{data.hex()}"]'.encode()
+                f'{previous_hash}:{place}:["traffic",{row_id}{middle}{data.hex()}"]'.encode()
             ).hexdigest()
         else:
-            previous_hash = link_traffic(previous_hash, seq, (row_id, *line))
-            if (
-                _plain_text(recorded_at)
-                and _plain_text(direction)
-                and (session_id is None or type(session_id) is int)
-            ):
-                plain.add((recorded_at, direction, session_id))
-        rows.append((row_id, session_id, t_s, recorded_at, direction, data, seq, previous_hash))
-        row_id += 1
-    return rows
+            values = (row_id, session_id, t_s, recorded_at, direction, data)
+            previous_hash = link_traffic(previous_hash, place, values)
+        hashes.append(previous_hash)
+    return list(
+        zip(
+            range(first_id, first_id + len(lines)),
+            *zip(*lines, strict=True),
+            range(seq + 1, seq + 1 + len(lines)),
+            hashes,
+            strict=True,
+        )
+    )
+
+
+def _traffic_middle(session_id: Any, t_s: Any, recorded_at: Any, direction: Any) -> str | None:
+    """Return the text between a traffic row's id and its bytes' hex in the hashed bytes (as
+    :func:`link_traffic` writes it), or None when the values need the general JSON path."""
+    if not (
+        type(t_s) is float
+        and (session_id is None or type(session_id) is int)
+        and _plain_text(recorded_at)
+        and _plain_text(direction)
+    ):
+        return None
+    owner_text = "null" if session_id is None else session_id
+    return f',{owner_text},{t_s!r},"{recorded_at}","{direction}","'
 
 
 #: A string as JSON writes it with ``ensure_ascii=False``, quotes included (json's own).

@@ -38,6 +38,7 @@ from chargebook.acquire.record.store import (
     EnvironmentRow,
     EventRow,
     InputRow,
+    ListedSession,
     NotFound,
     ReadingRow,
     Row,
@@ -50,6 +51,7 @@ from chargebook.acquire.record.store import (
     _reading_row,
     group_by_session,
     group_by_set,
+    names_in,
 )
 from chargebook.corrections.errors import InputError
 
@@ -611,6 +613,23 @@ class DepartmentStore:
     def sessions(self) -> list[SessionRow]:
         """Return every published session of the station, oldest first."""
         return self._select(SessionRow, "sessions", "TRUE")
+
+    def listed_sessions(self) -> list[ListedSession]:
+        """Return every published session of the station, oldest first, as a listing shows
+        it: the names read from each one's decoded metadata."""
+        return [
+            ListedSession(
+                row.id,
+                row.created_at,
+                row.status,
+                row.convention,
+                row.beam,
+                row.replay_of,
+                row.uuid,
+                names_in(row.metadata()),
+            )
+            for row in self.sessions()
+        ]
 
     def session(self, session_id: int) -> SessionRow:
         """Return one session; NotFound when it is not published."""

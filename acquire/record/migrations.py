@@ -677,14 +677,39 @@ def _session_results(db: Database) -> None:
     )
 
 
+#: The columns of ``session_results`` as its migration makes them, in order.
+SESSION_RESULTS_COLUMNS = ("session_id", "stamp", "result_json", "evaluated_at")
+
+
+def session_results_shape(conn: sqlite3.Connection) -> str:
+    """Return what the file holds of ``session_results``: "kept" (the table its migration
+    made), "missing" (none), or "other" (a table of that name with other columns, made by
+    hand: not one chargebook can read or write)."""
+    columns = tuple(row[1] for row in conn.execute("PRAGMA table_info(session_results)"))
+    if not columns:
+        return "missing"
+    return "kept" if columns == SESSION_RESULTS_COLUMNS else "other"
+
+
 def restore_session_results(db: Database) -> bool:
     """Create ``session_results`` again when it is missing from a file migrated past it (the
     table dropped by hand: it is a cache, not the record), by the very statement its migration
-    ran; return True when it was missing. The daemon then keeps each session's result again."""
-    if db.conn.execute(
-        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'session_results'"
-    ).fetchone():
+    ran; return True when it was missing. The daemon then keeps each session's result again.
+
+    A table of that name with other columns is not chargebook's: it is renamed, not dropped
+    (``session_results_set_aside``, then ``_2``, ...: whatever it holds stays in the file),
+    and the cache is made anew beside it."""
+    shape = session_results_shape(db.conn)
+    if shape == "kept":
         return False
+    if shape == "other":
+        taken = set(db.table_names())
+        aside = next(
+            name
+            for n in range(1, len(taken) + 2)
+            if (name := "session_results_set_aside" + ("" if n == 1 else f"_{n}")) not in taken
+        )
+        db.execute(f"ALTER TABLE session_results RENAME TO {aside}")
     _session_results(db)
     return True
 

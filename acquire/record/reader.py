@@ -29,6 +29,11 @@ class RecordReader(Protocol):
         """Return every session, oldest first."""
         ...
 
+    def listed_sessions(self) -> list[store.ListedSession]:
+        """Return every session, oldest first, as a listing shows it: without its stored
+        metadata and plan, with the names its metadata holds."""
+        ...
+
     def session(self, session_id: int) -> store.SessionRow:
         """Return one session; :class:`~chargebook.acquire.record.store.NotFound` if missing."""
         ...

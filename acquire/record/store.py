@@ -57,6 +57,7 @@ from chargebook.acquire.record.migrations import (
     migrate,
     restore_session_results,
     schema_version,
+    session_results_shape,
 )
 from chargebook.corrections.errors import InputError
 
@@ -137,6 +138,11 @@ UnreadableRecord = sqlite3.DatabaseError
 #: The metadata keys :meth:`Store.session_names` reads: what a listing of sessions shows and
 #: filters on.
 NAMED_KEYS = ("treatment_machine", "beam", "operator")
+#: One look into a session's metadata for all of :data:`NAMED_KEYS` (an array of their values):
+#: a name missing or null reads as null there, and is told apart by a second look.
+_NAMES_EXTRACTED = "json_extract(metadata_json, {})".format(
+    ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
+)
 #: How much of a station file a read-only open maps into memory (SQLite maps no more than the
 #: file holds): 1 GiB, far beyond decades of daily checks.
 READ_MMAP_BYTES = 1 << 30
@@ -295,6 +301,35 @@ class SessionRow:
 
 
 @dataclass(frozen=True, slots=True)
+class ListedSession:
+    """One session as a listing of thousands shows it: its row without the stored metadata and
+    plan (what makes a row large), and the names its metadata holds (:data:`NAMED_KEYS`, a key
+    it lacks left out), or None when they are not all text (decode the session's metadata)."""
+
+    id: int
+    created_at: str
+    status: str
+    convention: str
+    beam: str
+    replay_of: int | None
+    uuid: str | None
+    names: dict[str, str | None] | None
+
+
+#: The columns of a listed session (:class:`ListedSession`, less its names), as stored.
+LISTED_COLUMNS = "id, created_at, status, convention, beam, replay_of, uuid"
+
+
+def names_in(metadata: Mapping[str, Any]) -> dict[str, str | None] | None:
+    """Return the names of :data:`NAMED_KEYS` decoded ``metadata`` holds (a key it lacks left
+    out), or None when one of them is something other than text or null."""
+    names = {key: metadata[key] for key in NAMED_KEYS if key in metadata}
+    if all(value is None or isinstance(value, str) for value in names.values()):
+        return names
+    return None
+
+
+@dataclass(frozen=True, slots=True)
 class StationRow:
     """The station that keeps this file: its global id and its configured name."""
 
@@ -418,6 +453,9 @@ class _KnownRows:
     last_reading_id: int = 0
     stale: set[int] = field(default_factory=set)
     current: bool = False
+    #: The session's row and its environment entries as last read (None: read them again).
+    session: SessionRow | None = None
+    environment: tuple[EnvironmentRow, ...] | None = None
 
     def add(self, sets: Iterable[SetRow], readings: list[ReadingRow]) -> None:
         """Take in sets (new, or with a new status) and new readings, in id order."""
@@ -1148,6 +1186,9 @@ class Store:
                 "UPDATE sessions SET status = ?, reason = ?, closed_at = ? WHERE id = ?",
                 (status, reason, closed_at, session_id),
             )
+            known = self._known_current(session_id)
+            if known is not None:
+                known.session = None  # read again, with its new status
             if status == "open":  # resumed: what it recorded before is no longer its result
                 self.conn.execute("DELETE FROM session_results WHERE session_id = ?", (session_id,))
             elif self.results_on_close is not None:
@@ -1169,25 +1210,26 @@ class Store:
 
     def session_results(self) -> dict[int, tuple[str, str]]:
         """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
-        the file has lost its ``session_results`` table (a cache: each session is then
-        evaluated live, and a writable open keeps them again)."""
+        the file has lost its ``session_results`` table, or holds one of other columns (a
+        cache: each session is then evaluated live, and a writable open keeps them again)."""
         try:
             rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
         except sqlite3.OperationalError:
-            if self.keeps_results():
+            if self.results_table() == "kept":
                 raise
             return {}
         return {int(session_id): (str(stamp), str(text)) for session_id, stamp, text in rows}
 
     def keeps_results(self) -> bool:
         """Return True when the file has its ``session_results`` table (False: it was dropped
-        by hand; the next writable open, or the next result kept, creates it again)."""
-        return bool(
-            self.read(
-                "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
-                ("session_results",),
-            )
-        )
+        or replaced by hand; the next writable open, or the next result kept, makes it again)."""
+        return self.results_table() == "kept"
+
+    def results_table(self) -> str:
+        """Return "kept", "missing" or "other": what the file holds of ``session_results``
+        (``migrations.session_results_shape``)."""
+        with self._lock:
+            return session_results_shape(self.conn)
 
     def sessions_without_result(self, stamp: str, limit: int) -> list[int]:
         """Return up to ``limit`` closed sessions, oldest first, whose kept result is missing
@@ -1227,8 +1269,17 @@ class Store:
         return self._select(SessionRow, "sessions", "1")
 
     def session(self, session_id: int) -> SessionRow:
-        """Return one session. Raises :class:`NotFound` (a KeyError) when there is none."""
-        return self._one(SessionRow, "sessions", session_id, "session")
+        """Return one session. Raises :class:`NotFound` (a KeyError) when there is none.
+        While rows are remembered (:meth:`remember_rows`), the open session's row is read once
+        and again only after this store changed its status."""
+        with self._lock:
+            known = self._known_current(session_id)
+            if known is not None and known.session is not None:
+                return known.session
+            row = self._one(SessionRow, "sessions", session_id, "session")
+            if known is not None:
+                known.session = row
+        return row
 
     # ---------------------------------------------------------------------- reading sets
 
@@ -1319,13 +1370,30 @@ class Store:
         it lacks is left out; a JSON null is None), read by SQLite's JSON functions: a listing
         of thousands of sessions does not decode each one's metadata. A session whose metadata
         holds one of them as something other than text is left out (decode it)."""
-        # One look into each session's metadata for all the names (an array of their values):
-        # a name missing or null reads as null there, and is told apart by a second look.
-        paths = ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
         try:
-            rows = self.read(f"SELECT id, json_extract(metadata_json, {paths}) FROM sessions")
+            rows = self.read(f"SELECT id, {_NAMES_EXTRACTED} FROM sessions")
         except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
             return {}
+        return self._names_of(rows)
+
+    def listed_sessions(self) -> list[ListedSession]:
+        """Return every session, oldest first, as a listing shows it (:class:`ListedSession`):
+        one query, reading neither the stored metadata nor the plan into Python, which for
+        thousands of sessions costs more than the rest of the listing."""
+        sql = f"SELECT {LISTED_COLUMNS}, {{}} FROM sessions ORDER BY id"
+        try:
+            rows = self.read(sql.format(_NAMES_EXTRACTED))
+            names = self._names_of((row[0], row[-1]) for row in rows)
+        except sqlite3.OperationalError:  # metadata that is not JSON: each row decodes, and says
+            rows, names = self.read(sql.format("NULL")), {}
+        return [
+            ListedSession(id_, created, status, convention, beam, replay_of, uuid, names.get(id_))
+            for id_, created, status, convention, beam, replay_of, uuid, _ in rows
+        ]
+
+    def _names_of(self, rows: Iterable[tuple[int, str | None]]) -> dict[int, dict[str, str | None]]:
+        """Return :meth:`session_names` from (session id, the array of its names that
+        :data:`_NAMES_EXTRACTED` reads)."""
         names: dict[int, dict[str, str | None]] = {}
         unsure: list[int] = []
         decoded: dict[str | None, tuple[str, ...] | None] = {}  # a few machines, beams, people
@@ -1489,11 +1557,23 @@ class Store:
         }
         with self.atomic():
             self._require_session(session_id)
+            known = self._known_current(session_id)
+            if known is not None:
+                known.environment = None  # read again, with the new entry
             return self._append("environment", row)
 
     def environment(self, session_id: int) -> list[EnvironmentRow]:
-        """Return the session's environment entries, oldest first (the last one is current)."""
-        return self._select(EnvironmentRow, "environment", "session_id = ?", (session_id,))
+        """Return the session's environment entries, oldest first (the last one is current).
+        While rows are remembered (:meth:`remember_rows`), the open session's are read once
+        and again only after this store added one."""
+        with self._lock:
+            known = self._known_current(session_id)
+            if known is not None and known.environment is not None:
+                return list(known.environment)
+            rows = self._select(EnvironmentRow, "environment", "session_id = ?", (session_id,))
+            if known is not None:
+                known.environment = tuple(rows)
+        return rows
 
     # ----------------------------------------------------------------------------- events
 

@@ -16,7 +16,9 @@ one write and its answers read and parsed together (``ProfileElectrometer.read_c
 sample is then checked and applied in its turn, as above.
 
 Then it applies the input with ``Engine.apply``, as the daemon did: the logged sample (with the
-row id of the line the replay wrote), the operator's actions, ticks that ended a wait, the
+row id of the line the replay wrote), a logged run of samples (through ``Engine.take_samples``,
+the samples the driver read from the run's lines, which must give the logged digest and last
+sample), the operator's actions, ticks that ended a wait, the
 instrument lost or back, and a restart (a new engine resumes the session). Every input carries
 the engine's clock as recorded, so nothing is decided on the replay's own clock, and nothing
 is inferred from the session's effects.
@@ -37,7 +39,7 @@ from collections import deque
 from collections.abc import Callable
 from typing import Any
 
-from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine import inputs, sample_log
 from chargebook.acquire.engine.driver_commands import Command, SetBias
 from chargebook.acquire.engine.engine import ConfirmationRequired, Engine
 from chargebook.acquire.engine.states import IllegalTransition
@@ -134,9 +136,7 @@ class Conductor:
         self.in_flight = strict and pacer.speed == 0 and not self.push
         #: Where a logged input other than a sample is applied (lines played before it): a run
         #: of polls in flight ends before it.
-        self.input_places = sorted(
-            {i.position for i in recording.inputs if not isinstance(i.given, inputs.Sample)}
-        )
+        self.input_places = sorted({i.position for i in recording.inputs if i.line is None})
         #: What the driver read from each sample line: (its receive time on the driver's clock,
         #: the sample, the replay's row id of the line).
         self.read: dict[int, tuple[float, Sample, int | None]] = {}
@@ -300,6 +300,9 @@ class Conductor:
             given = self._sample_read_again(logged, given)
             if not self.engine.wants_samples():
                 self._taken_too_early(logged)
+        elif isinstance(given, inputs.SampleRun):
+            self._take_run(logged, dataclasses.replace(given, actor=self.actor(given.actor)))
+            return
         else:
             given = dataclasses.replace(given, actor=self.actor(given.actor))
         if isinstance(given, inputs.ShortDelivery):
@@ -311,15 +314,25 @@ class Conductor:
         try:
             self.engine.apply(given)
         except (IllegalTransition, InputError, ConfirmationRequired) as error:
-            message = (
-                f"the logged {given.kind.replace('_', ' ')} by {logged.given.actor} (input "
-                f"{logged.input_id}, after traffic line {logged.position}) does not fit the "
-                f"replayed engine: {error}{self._still_collecting()}"
-            )
-            if self.strict:
-                raise Divergence(message) from None
-            raise WhatIfStop(message) from None
-        commands = self.engine.take_commands()  # the recorded lines are what was sent
+            raise self._does_not_fit(logged, given, error) from None
+        self._after_input()
+
+    def _does_not_fit(
+        self, logged: LoggedInput, given: inputs.Input, error: Exception
+    ) -> Exception:
+        """Return the Divergence (strict) or WhatIfStop for a logged input the replayed engine
+        refuses, naming it and why."""
+        message = (
+            f"the logged {given.kind.replace('_', ' ')} by {logged.given.actor} (input "
+            f"{logged.input_id}, after traffic line {logged.position}) does not fit the "
+            f"replayed engine: {error}{self._still_collecting()}"
+        )
+        return Divergence(message) if self.strict else WhatIfStop(message)
+
+    def _after_input(self) -> None:
+        """Forget the engine's commands (the recorded lines are what was sent); a what-if keeps
+        them to render its own lines."""
+        commands = self.engine.take_commands()
         if self.name_of is not None:
             profile_commands = self.driver.profile.commands
             self.pending.extend(c for c in commands if c.action in profile_commands)
@@ -371,19 +384,63 @@ class Conductor:
             given.complete,
             given.status,
         ):
-            return again  # the common case: the fields below, all equal
-        for name in SAMPLE_FIELDS:
-            if getattr(again, name) != getattr(given, name):
+            return again  # the common case: the fields compared below, all equal
+        self._compare(logged, [(name, getattr(given, name), getattr(again, name)) for name in
+                               SAMPLE_FIELDS])  # fmt: skip
+        return again
+
+    def _take_run(self, logged: LoggedInput, given: inputs.SampleRun) -> None:
+        """Give the engine the samples the driver read from a logged run's lines, as the daemon
+        gave them; Divergence where they do not give the logged digest and last sample (noted
+        instead for a user's traffic log), or where the engine ends a reading within the run
+        (the daemon's did not: the run holds only samples that moved the charge)."""
+        read = [self.read[index] for index in logged.lines]
+        samples = [sample for _, sample, _ in read]
+        line_ids = [line_id for _, _, line_id in read]
+        clock_s = given.clock_s or 0.0  # logged with every run
+        last = sample_log.sample_input(clock_s, samples[-1], None)
+        self._compare(
+            logged,
+            [
+                *((f"last sample's {name}", getattr(given, name), getattr(last, name))
+                  for name in SAMPLE_FIELDS),
+                ("digest", given.digest, inputs.run_digest(samples)),
+            ],
+        )  # fmt: skip
+        engine, version, taken = self.engine, self.engine.data_version, 0
+        while taken < len(samples) and engine.reading is not None:
+            fed = engine.take_samples(samples[taken:], line_ids[taken:], clock_s, given.actor)
+            if not fed:
+                break
+            taken += fed
+        if self.strict and (taken < len(samples) or engine.data_version != version):
+            raise Divergence(
+                f"the logged run of {len(samples)} samples (input {logged.input_id}, traffic "
+                f"lines {logged.lines[0] + 1} to {logged.lines[-1] + 1}) only moved the "
+                "charge; the replayed engine "
+                f"{'ended a reading' if engine.data_version != version else 'was not reading'} "
+                f"within it, after {taken} of them"
+            )
+        self._after_input()
+
+    def _compare(self, logged: LoggedInput, values: list[tuple[str, Any, Any]]) -> None:
+        """Raise Divergence (noted instead for a user's traffic log) at the first of ``values``,
+        each (name, logged, read again by the driver), that differs."""
+        lines = f"traffic line {logged.lines[0] + 1}"
+        if logged.count > 1:
+            lines = f"traffic lines {logged.lines[0] + 1} to {logged.lines[-1] + 1}"
+        what = "sample" if isinstance(logged.given, inputs.Sample) else "run of samples"
+        for name, recorded, again in values:
+            if again != recorded:
                 message = (
-                    f"the logged sample (input {logged.input_id}, traffic line "
-                    f"{logged.line + 1}) has {name} = {getattr(given, name)!r}; the driver read "
-                    f"{getattr(again, name)!r} from the played-back line"
+                    f"the logged {what} (input {logged.input_id}, {lines}) has {name} = "
+                    f"{recorded!r}; the driver read {again!r} from the played-back "
+                    f"line{'s' if logged.count > 1 else ''}"
                 )
                 if not self.edited:
                     raise Divergence(message)
                 self.notes.append(message)
-                break
-        return again
+                return
 
     def _still_collecting(self) -> str:
         """Return, when the engine is still taking a set, how far it got, in words."""

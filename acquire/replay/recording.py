@@ -11,7 +11,8 @@ Where an input happened: every traffic line and every input has its place in the
 chain (``chain_seq``, see ``chain``), in the order they were written. An input's ``position`` is
 the number of the session's traffic lines before it in that order, so the replay applies it
 after exactly those lines. A sample names the traffic line it was parsed from (``line_id``): it
-is applied right after that line. The places do not depend on the wall clock.
+is applied right after that line; a run of samples (``sample_run``) names its consecutive lines,
+and is applied right after the last. The places do not depend on the wall clock.
 
 A session recorded before the input log (migration ``input_log``) has no log to feed back: its
 log does not begin with its ``session_start``, and it is refused in words.
@@ -52,14 +53,22 @@ class LoggedInput:
     """One input of the session's log, at its place in the traffic.
 
     ``position``: the lines played before it is applied; ``line``: for a sample, the index of
-    the traffic line it was parsed from (None for other inputs); ``input_id``: its row in the
-    log, to name it.
+    the traffic line it was parsed from, for a run of samples the index of its first line (None
+    for other inputs); ``count``: the lines of a run (1 for a sample); ``input_id``: its row in
+    the log, to name it.
     """
 
     position: int
     given: inputs.Input
     input_id: int
     line: int | None = None
+    count: int = 1
+
+    @property
+    def lines(self) -> range:
+        """Return the indexes of the traffic lines its samples were parsed from (none for an
+        input that is not a sample)."""
+        return range(0) if self.line is None else range(self.line, self.line + self.count)
 
 
 @dataclass(frozen=True)
@@ -85,7 +94,7 @@ class Recording:
     @property
     def sample_lines(self) -> frozenset[int]:
         """Return the indexes of the lines whose samples the engine consumed."""
-        return frozenset(i.line for i in self.inputs if i.line is not None)
+        return frozenset(line for logged in self.inputs for line in logged.lines)
 
 
 def before_the_input_log(session_id: int) -> str:
@@ -150,27 +159,49 @@ def placed_inputs(
 ) -> list[LoggedInput]:
     """Return the logged inputs, in order, each placed after the traffic lines before it in the
     session's chain (``input_places``: input id -> place; ``line_ids`` and ``places``: each
-    line's row id and place), a sample right after the line it names. NotReplayable for a
-    sample naming no line the session received."""
-    line_index = {row_id: index for index, row_id in enumerate(line_ids)}
+    line's row id and place), a sample right after the line it names, a run of samples after
+    its last line. NotReplayable for a sample naming a line the session did not receive."""
+    line_index: dict[int | None, int] = {row_id: index for index, row_id in enumerate(line_ids)}
     found: list[LoggedInput] = []
     position = 0
     for row in logged:
         given = inputs.from_logged(row.kind, row.actor, row.detail())
-        line = None
-        if isinstance(given, inputs.Sample):
-            line = line_index.get(given.line_id) if given.line_id is not None else None
-            if line is None or lines[line].direction != "rx":
-                raise NotReplayable(
-                    f"input {row.id} of session {row.session_id} is a sample of traffic line id "
-                    f"{given.line_id}, which is not a line the session received"
-                )
-            position = max(position, line + 1)
+        line, count = None, 1
+        if isinstance(given, inputs.Sample | inputs.SampleRun):
+            named = given.line_ids if isinstance(given, inputs.SampleRun) else [given.line_id]
+            line = _received_lines(row, named, line_index, lines, line_ids)
+            count = len(named)
+            position = max(position, line + count)
         else:
             while position < len(places) and places[position] < input_places[row.id]:
                 position += 1
-        found.append(LoggedInput(position, given, row.id, line))
+        found.append(LoggedInput(position, given, row.id, line, count))
     return found
+
+
+def _received_lines(
+    row: InputRow,
+    named: Sequence[int | None],
+    line_index: dict[int | None, int],
+    lines: Sequence[RecordedLine],
+    line_ids: Sequence[int],
+) -> int:
+    """Return the index of the first of the traffic lines (row ids ``named``) a logged sample
+    or run names (``line_ids``: each line's row id); NotReplayable where one is not a line the
+    session received, right after the one before it."""
+    first = line_index.get(named[0]) if named else None
+    for offset, line_id in enumerate(named):
+        index = -1 if first is None else first + offset
+        if not (0 <= index < len(lines) and line_ids[index] == line_id) or (
+            lines[index].direction != "rx"
+        ):
+            raise NotReplayable(
+                f"input {row.id} of session {row.session_id} is a sample of traffic line id "
+                f"{line_id}, which is not a line the session received"
+            )
+    if first is None:
+        raise NotReplayable(f"input {row.id} of session {row.session_id} names no traffic line")
+    return first
 
 
 def exchange_before(store: Store, traffic: Sequence[TrafficRow]) -> list[TrafficRow]:

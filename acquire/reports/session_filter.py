@@ -6,7 +6,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from chargebook.acquire.record.store import SessionRow
+from chargebook.acquire.record.store import ListedSession, SessionRow
 
 
 def _same(a: object, b: str) -> bool:
@@ -14,7 +14,7 @@ def _same(a: object, b: str) -> bool:
 
 
 def matches(
-    row: SessionRow,
+    row: SessionRow | ListedSession,
     beam: str | None,
     machine: str | None,
     meta: Mapping[str, Any] | None = None,
@@ -22,10 +22,14 @@ def matches(
     """Return True when the session measured ``beam`` on ``machine`` (None: any).
 
     Names compare without regard to case or repeated spaces ("6 mv" is "6 MV"). ``meta``: the
-    session's metadata (or its names: ``RecordReader.session_names``) when the caller has it.
+    session's metadata (or its names: ``RecordReader.session_names``) when the caller has it;
+    a listed session (:class:`ListedSession`) must be given them.
     """
     if beam is None and machine is None:
         return True
-    meta = row.metadata() if meta is None else meta
+    if meta is None:
+        if isinstance(row, ListedSession):
+            raise TypeError("a listed session holds no metadata: pass its names as meta")
+        meta = row.metadata()
     beam_ok = beam is None or _same(meta.get("beam"), beam) or _same(row.beam, beam)
     return beam_ok and (machine is None or _same(meta.get("treatment_machine"), machine))

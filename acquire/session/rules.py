@@ -9,6 +9,7 @@ themselves come from :func:`chargebook.acquire.session.evaluation.evaluate_sessi
 from __future__ import annotations
 
 import itertools
+import operator
 from collections.abc import Mapping, Sequence
 from dataclasses import fields
 from pathlib import Path
@@ -233,9 +234,11 @@ def routine_nC_per_MU(
     latest set's with readings; None before there is one."""
     steps = plan.steps
     latest: tuple[list[ReadingRow], Step] | None = None
-    accepted_first = itertools.chain(
-        (row for row in reversed(sets) if row.status == "accepted"), reversed(sets)
-    )
+    # the accepted sets picked out in C: the daemon asks at every reading, of hundreds of sets
+    statuses = map(operator.attrgetter("status"), reversed(sets))
+    is_accepted = map(operator.eq, statuses, itertools.repeat("accepted"))
+    accepted = itertools.compress(reversed(sets), is_accepted)
+    accepted_first = itertools.chain(accepted, reversed(sets))
     for row in accepted_first:
         step = steps[row.step_index] if row.step_index < len(steps) else None
         if step is None or step.purpose != "routine" or not step.uses_beam:

@@ -310,8 +310,15 @@ def missing_results(store: Store, session_ids: Iterable[int] | None = None) -> l
         "recorded rows (what `history` shows) until the daemon keeps its result again the next "
         "time it starts on this file (`chargebook serve --db FILE`)"
     )
-    if not store.keeps_results():
+    table = store.results_table()
+    if table == "missing":
         return [f"the kept session results (table session_results) are missing: {rebuilt}"]
+    if table == "other":
+        return [
+            "the kept session results (table session_results) have columns other than "
+            f"chargebook's, and are not read; the daemon sets that table aside, renamed, as it "
+            f"starts on this file: {rebuilt}"
+        ]
     wanted = None if session_ids is None else set(session_ids)
     kept = store.session_results()
     without = [

@@ -52,6 +52,25 @@ def test_json_and_filters(station: Path, capsys) -> None:
     assert [r["id"] for r in json.loads(capsys.readouterr().out)] == [2]
 
 
+def test_a_session_whose_names_are_not_all_text_is_listed_from_its_decoded_metadata(
+    tmp_path: Path, capsys
+) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:  # an operator kept as a number: read by decoding the row
+        store.create_session(
+            {"treatment_machine": "DEMO-LA3", "beam": "6 MV", "operator": 7},
+            {"steps": []},
+            "TRS-398",
+            "6 MV",
+        )
+        store.create_session(
+            {"treatment_machine": "DEMO-LA4", "beam": "6 MV"}, {"steps": []}, "TRS-398", "6 MV"
+        )
+    assert main(["sessions", "--db", str(path), "--json", "--machine", "demo-la3"]) == EXIT_OK
+    (row,) = json.loads(capsys.readouterr().out)
+    assert (row["id"], row["treatment_machine"], row["operator"]) == (1, "DEMO-LA3", 7)
+
+
 def test_default_database_follows_xdg_data_home(tmp_path: Path, monkeypatch, capsys) -> None:
     monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path))
     with Store.open(tmp_path / "chargebook" / "station.sqlite") as store:

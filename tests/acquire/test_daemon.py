@@ -1,14 +1,26 @@
 """The daemon's record condition, in words: what the operator is told while raw lines wait in
 memory for a record that cannot commit (the real daemon under these faults is in
-``tests/faults/store_faults.py`` and ``tests/e2e/test_record_files_e2e.py``)."""
+``tests/faults/store_faults.py`` and ``tests/e2e/test_record_files_e2e.py``); and when the
+instrument thread commits the raw lines it read, on the simulated electrometer's dialect.
+"""
 
 from __future__ import annotations
 
+import time
 from pathlib import Path
 
-from chargebook.acquire.daemon.daemon import MAX_HELD_LINES, Daemon, DaemonOptions
+from chargebook.acquire.daemon.daemon import (
+    LINES_COMMIT_S,
+    MAX_HELD_LINES,
+    Daemon,
+    DaemonOptions,
+    InstrumentLink,
+)
+from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.record.store import Store
+from chargebook.drivers_generic.interface import TrafficDirection
+from chargebook.drivers_generic.simulator.memory_wire import in_process_electrometer
 
 
 def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(tmp_path: Path):
@@ -28,3 +40,43 @@ def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(t
     daemon._lines_not_writable(None, 0)
     assert daemon.engine.record_fault is None
     assert "session.start" in daemon.engine.snapshot()["allowed"]
+
+
+def test_a_line_nobody_waits_for_is_not_posted_and_waits_for_the_next_commit() -> None:
+    received: list[bytes] = []
+
+    def heard(direction: TrafficDirection, t_s: float, raw: bytes) -> None:
+        if direction == TrafficDirection.RECEIVED:
+            received.append(raw)
+
+    sim = in_process_electrometer("push-exponent", traffic=heard)
+    posted: list[str] = []
+    commits: list[float] = []
+    link = InstrumentLink(
+        sim.driver,
+        lambda kind, payload: posted.append(kind),
+        flush=lambda: commits.append(time.monotonic()) or True,
+    )
+    sim.driver.open()
+    link.sample_for(1)
+    link.send(driver_commands.Zero())
+    link.send(driver_commands.StartIntegration())
+    link._serve_once()  # the thread's turn: it reads for reading 1, re-armed
+    link.sample_for(2)  # the loop took reading 1 and armed reading 2: not yet in the thread's turn
+    posted.clear()
+    commits.clear()
+    seen = len(received)
+    for _ in range(200):  # the simulator pushes a line every 0.2 s or so
+        link._read_samples(True)
+        if len(received) > seen:
+            break
+    assert len(received) > seen  # a line was read, for reading 1
+    # the loop would drop its sample (another reading): not posted, nor committed for it
+    assert posted == [] and commits == []
+    link._release()  # committed with whatever is posted next ...
+    link._end_turn()  # ... not again at the end of the turn, while samples are read ...
+    assert len(commits) == 1
+    time.sleep(LINES_COMMIT_S)
+    link._end_turn()  # ... and at the latest LINES_COMMIT_S later
+    assert len(commits) == 2
+    sim.driver.close()

@@ -13,7 +13,7 @@ from __future__ import annotations
 import re
 from datetime import UTC, datetime
 
-from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine import inputs, sample_log
 from chargebook.acquire.engine.capture import CaptureSettings, ReadingCapture
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.record.store import Store
@@ -51,10 +51,7 @@ def _state(engine: Engine) -> dict:
         "reading": None if reading is None else dict(vars(reading), settings=None),
         "reading_status": (engine.reading_status, type(engine.reading_status)),
         "sample_line_id": engine.sample_line_id,
-        "unlogged": [
-            inputs.Sample(**{"actor": a, **d}) if k == "sample" else (k, a, d)
-            for k, a, d in map(_logged, engine._unlogged_samples)
-        ],
+        "unlogged": sample_log.logged_entries(engine._unlogged_samples),
         "record": {
             table: [
                 tuple(re.sub(r'"uuid": "[^"]*"', "", v) if isinstance(v, str) else v for v in row)
@@ -63,12 +60,6 @@ def _state(engine: Engine) -> dict:
             for table, columns in TABLES.items()
         },
     }
-
-
-def _logged(entry):
-    from chargebook.acquire.engine.engine import _logged_input
-
-    return _logged_input(entry)
 
 
 def _bursts(engine: Engine, clock: Clock, stream, cuts):

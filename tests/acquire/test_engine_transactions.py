@@ -236,5 +236,6 @@ def test_every_public_input_of_the_engine_goes_through_apply_and_every_input_has
         n for n in sorted(entries) if "self.apply(" not in inspect.getsource(getattr(Engine, n))
     ]
     assert bypassing == []
-    # one dispatch: every kind of input but the sample (taken cheaply) has its handler
-    assert set(HANDLERS) | {inputs.Sample} == set(inputs.KINDS.values())
+    # one dispatch: every kind of input but the sample and the logged run of samples (taken
+    # cheaply, the run with the samples its traffic lines hold) has its handler
+    assert set(HANDLERS) | {inputs.Sample, inputs.SampleRun} == set(inputs.KINDS.values())

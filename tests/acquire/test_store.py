@@ -643,7 +643,7 @@ def test_remembered_rows_are_the_rows_recorded_after_new_rows_status_changes_and
 def test_session_names_are_what_the_decoded_metadata_names(store: Store) -> None:
     # The listing reads the machine, beam and operator with SQLite's JSON functions instead of
     # decoding each session's metadata: it must find what the decoded metadata holds.
-    from chargebook.acquire.record.store import NAMED_KEYS
+    from chargebook.acquire.record.store import NAMED_KEYS, names_in
 
     given = [
         {"treatment_machine": "LA 1", "beam": "6 MV", "operator": "operator A"},
@@ -659,3 +659,13 @@ def test_session_names_are_what_the_decoded_metadata_names(store: Store) -> None
             k: v for k, v in store.session(session_id).metadata().items() if k in NAMED_KEYS
         }
     assert ids[3] not in names
+    # A listing reads the same names with each session's row, without its metadata or plan.
+    listed = {session.id: session for session in store.listed_sessions()}
+    for session_id, meta in zip(ids, given, strict=True):
+        row, names_read = store.session(session_id), names_in(meta)
+        assert listed[session_id].names == names_read == names.get(session_id)
+        assert (listed[session_id].status, listed[session_id].beam) == (row.status, row.beam)
+        assert (listed[session_id].uuid, listed[session_id].created_at) == (
+            row.uuid,
+            row.created_at,
+        )

@@ -139,3 +139,35 @@ def test_a_remembering_store_keeps_its_sets_and_readings_from_its_own_writes(
     assert kept == read
     assert [s.status for s in kept[0]] == ["superseded", "collecting"]
     assert len(kept[1]) == 4 and [len(r) for r in kept[2].values()] == [3, 1]
+
+
+def test_a_remembering_store_reads_the_open_sessions_row_and_air_only_after_writing_them(
+    tmp_path: Path,
+) -> None:
+    engine, clock = file_engine(tmp_path)
+    store = engine.store
+    store.remember_rows()
+    session_id = engine.start_session(METADATA, small_plan(), actor=OPERATOR)
+    engine.set_environment(20.0, 101.325, actor=OPERATOR)
+    engine.manual_done(actor=OPERATOR)
+    engine.arm(actor=OPERATOR)
+    store.sets(session_id)  # the session's rows are remembered from here on
+    first = (store.session(session_id), store.environment(session_id))
+    with traced(store.db.conn) as statements:
+        deliver(engine, clock, 20.0)
+        again = [(store.session(session_id), store.environment(session_id)) for _ in range(3)]
+    # what a snapshot at every reading read again (was a SELECT of each per snapshot)
+    assert _asks(statements, "FROM sessions") == 0
+    assert _asks(statements, "FROM environment") == 0
+    assert all(read == first for read in again)
+    with traced(store.db.conn) as statements:
+        engine.set_environment(21.0, 100.9, actor=OPERATOR)  # written: read again, once
+        entries = [store.environment(session_id) for _ in range(3)]
+        engine.stop("enough for this test", actor=OPERATOR)  # the row's status changes
+        row = store.session(session_id)
+    assert _asks(statements, "FROM environment") == 1
+    assert [entry.temperature_C for entry in entries[-1]] == [20.0, 21.0]
+    with Store.open(tmp_path / "station.sqlite", read_only=True) as reader:
+        assert reader.environment(session_id) == entries[-1]
+        assert reader.session(session_id) == row
+    assert row.status == "finished"

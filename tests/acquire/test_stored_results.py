@@ -311,3 +311,32 @@ def test_a_result_is_kept_even_when_the_table_was_dropped_while_the_file_was_ope
         assert refresh_results(store) == 1  # created again, then kept
         kept = ResultSummary.from_json(store.session_results()[session_id][1])
     assert kept.dose_per_MU_cGy == console["dose_per_MU_cGy"]
+
+
+def test_a_kept_results_table_of_other_columns_is_a_missing_cache_and_is_set_aside_not_lost(
+    unkept, tmp_path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id, console = unkept[1], unkept[2]
+    with sqlite3.connect(path) as db:  # someone replaces the cache with a table of their own
+        db.execute("DROP TABLE session_results")
+        db.execute("CREATE TABLE session_results (session_id INTEGER, note TEXT)")
+        db.execute("INSERT INTO session_results VALUES (?, 'checked by hand')", (session_id,))
+    assert main(["verify", "--db", str(path)]) == EXIT_OK  # the record itself verifies
+    out = capsys.readouterr().out
+    assert "the record verifies" in out
+    assert "(table session_results) have columns other than chargebook's" in out
+    with Store.open(path, read_only=True) as store:  # history evaluates it live
+        assert store.results_table() == "other" and store.session_results() == {}
+        (point,) = load_history(store, BEAM).points
+    assert point.dose_per_MU_cGy == console["dose_per_MU_cGy"]
+    with Store.open(path) as store:  # as the daemon opens it: set aside, made anew, refilled
+        assert store.results_table() == "kept"
+        assert refresh_results(store) == 1
+        assert store.session_results()[session_id][0] == evaluation_stamp()
+    with sqlite3.connect(path) as db:  # what the hand-made table held is still in the file
+        assert db.execute("SELECT * FROM session_results_set_aside").fetchall() == [
+            (session_id, "checked by hand")
+        ]
+    assert main(["verify", "--db", str(path)]) == EXIT_OK
+    assert "note:" not in capsys.readouterr().out

@@ -312,13 +312,17 @@ def test_a_run_of_traffic_rows_links_as_each_row_does_alone(session_id: int | No
         (session_id, 2.0, 'a"b', "tx", b"GO\n"),  # text JSON must escape: the general path
         (session_id, 2.25, stamp, "rx", b"\x00\xff"),
     ]
+    shared = (session_id, 3.0, stamp, "rx")  # the same objects in each line of a burst
+    burst = [(*shared, b"1\n"), (*shared, b"2\n")]
+    lines += [*burst, (session_id, 3.5, stamp, "rx", bytearray(b"3\n")), *burst]
     rows = chain.traffic_rows("f" * 64, 9, 100, lines)
     previous = "f" * 64
     for seq, (row, line) in enumerate(zip(rows, lines, strict=True), start=10):
         values = (row[0], *line)
         previous = chain.link(previous, seq, "traffic", values)  # the general canonical bytes
         assert row == (*values, seq, previous)
-    assert [row[0] for row in rows] == [100, 101, 102, 103]
+    assert [row[0] for row in rows] == list(range(100, 109))
+    assert chain.traffic_rows("f" * 64, 9, 100, []) == []
 
 
 def _burst_station(path: Path) -> tuple[Path, int]:

@@ -362,11 +362,22 @@ def fed_from_the_input_log(store: Store, original_id: int, replay_id: int) -> No
             old_line = line_of(store, original_id, old_fields.pop("line_id"))
             assert old_line is not None
             assert line_of(store, replay_id, new_fields.pop("line_id")) == old_line
+        if before.kind == "sample_run":  # the same lines' bytes, each session's own rows
+            old_lines = run_lines(store, original_id, old_fields.pop("first_line_id"), before)
+            new_lines = run_lines(store, replay_id, new_fields.pop("first_line_id"), before)
+            assert len(old_lines) == old_fields["count"] and new_lines == old_lines
         if before.kind == "short_delivery":  # each names its own session's reading, same place
             old_place = [r.id for r in store.readings(original_id)].index(old_fields.pop("reading"))
             new_place = [r.id for r in store.readings(replay_id)].index(new_fields.pop("reading"))
             assert new_place == old_place
         assert new_fields == old_fields
+
+
+def run_lines(store: Store, session_id: int, first_line_id: int, run: Any) -> list[bytes]:
+    """Return the raw lines of a logged run of samples, from ``first_line_id`` on, in order."""
+    ids = range(first_line_id, first_line_id + run.detail()["count"])
+    found = store.traffic_lines(session_id, ids)
+    return [found[row_id] for row_id in ids if row_id in found]
 
 
 def step_the_clock_back(db: Path, session_id: int, seconds: float) -> None:
