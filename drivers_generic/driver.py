@@ -134,6 +134,46 @@ class ProfileElectrometer:
             return self._run("read", self._reading)
         return self._exchange(query, self._reading)
 
+    def read_charges(self, count: int) -> list[Sample]:
+        """Return ``count`` readings of the integrated charge taken with the read query sent
+        ``count`` times in one write, their answers read together and parsed in one pass
+        (:class:`BurstParser`; line by line when the answers are not plainly readings).
+
+        Only for an instrument that answers queries kept in flight, in order, one line each
+        (the replay's playback of a recording). A live instrument is polled one query at a
+        time (:meth:`read_charge`), with its retries; here nothing is sent again: missing
+        answers raise InstrumentTimeout, a line that is no reading ProtocolError (the answers
+        read with it are recorded as traffic and dropped).
+        """
+        query = self._read_query
+        if query is None or count < 2:
+            return [self.read_charge() for _ in range(count)]
+        transport, timing = self.transport, self.profile.timing
+        if transport.input_waiting():
+            self._drop_stale_lines()
+        transport.send_all([self._frame(query)] * count)
+        timeout_s = timing.timeout_s * (timing.retries + 1)
+        deadline = time.monotonic() + timeout_s
+        samples: list[Sample] = []
+        while len(samples) < count:
+            burst = transport.read_burst(max(deadline - time.monotonic(), 0.0))
+            if burst is None:
+                raise InstrumentTimeout(
+                    f"{self.profile.name}: {len(samples)} of {count} answers to {query!r} "
+                    f"came within {timeout_s:g} s"
+                )
+            parsed = self._burst.parse(burst.data, burst.count, burst.t_s)
+            samples += parsed if parsed is not None else self._answers_by_line(burst)
+        if len(samples) > count:
+            raise ProtocolError(f"{len(samples)} answers came to {count} queries", b"")
+        return samples
+
+    def _answers_by_line(self, burst: ReceivedBurst) -> list[Sample]:
+        """Return the readings of a burst of answers parsed line by line (raises at the first
+        line that is not one, as :meth:`read_charge` would)."""
+        lines = burst.data.split(self.profile.framing.read_terminator)[: burst.count]
+        return [self._reading(ReceivedLine(burst.t_s, raw)) for raw in lines]
+
     def next_sample(self, timeout_s: float) -> Sample | None:
         """Return the next reading line the instrument sends unasked, or None after timeout_s."""
         if self._pending:

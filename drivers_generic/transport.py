@@ -126,11 +126,28 @@ class Transport(ABC):
         if not self._open_now:
             raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
         self._record(TrafficDirection.SENT, frame)
+        self._write_or_lose(self._write, frame)
+
+    def send_all(self, frames: Sequence[bytes]) -> None:
+        """Send lines framed by :meth:`frame` in one write (queries kept in flight: see
+        ``ProfileElectrometer.read_charges``), each recorded as a line of its own, at one time
+        (the burst listener is told them in one call when there is one)."""
+        if not self._open_now:
+            raise InstrumentDisconnected(f"{self.name or 'transport'} is not open")
+        self._record_all(TrafficDirection.SENT, frames)
+        self._write_or_lose(self._write_all, frames)
+
+    def _write_or_lose(self, write: Callable[[T], None], data: T) -> None:
+        """Run ``write(data)``; when the wire is gone, mark it lost and raise."""
         try:
-            self._write(frame)
+            write(data)
         except InstrumentDisconnected:
             self._lost()
             raise
+
+    def _write_all(self, frames: Sequence[bytes]) -> None:
+        """Send the framed lines; one write of them all, unless a wire must take them apart."""
+        self._write(b"".join(frames))
 
     def read_line(self, timeout_s: float) -> ReceivedLine | None:
         """Return the next complete line within ``timeout_s`` seconds, or None on timeout.
@@ -235,15 +252,19 @@ class Transport(ABC):
 
     def _record_burst(self, lines: list[bytes]) -> float:
         """Record received ``lines`` as traffic, all at one time; return it."""
+        return self._record_all(TrafficDirection.RECEIVED, lines)
+
+    def _record_all(self, direction: TrafficDirection, lines: Sequence[bytes]) -> float:
+        """Record ``lines`` going ``direction`` as traffic, all at one time; return it."""
         t_s = self.clock()
         if wire_log.isEnabledFor(logging.DEBUG):
             for data in lines:
-                wire_log.debug("%s %s %r", self.name, TrafficDirection.RECEIVED.value, data)
+                wire_log.debug("%s %s %r", self.name, direction.value, data)
         if self.traffic_burst is not None:
-            self.traffic_burst(TrafficDirection.RECEIVED, t_s, lines)
+            self.traffic_burst(direction, t_s, lines)
         elif self.traffic is not None:
             for data in lines:
-                self.traffic(TrafficDirection.RECEIVED, t_s, data)
+                self.traffic(direction, t_s, data)
         return t_s
 
     def _refuse_long_line(self, head: bytes) -> None:
@@ -359,6 +380,10 @@ class ScriptedTransport(Transport):
         """Drop buffered input only: the script's lines are what arrives after the open."""
         self._buffer.clear()
         self._incoming.clear()
+
+    def _write_all(self, frames: Sequence[bytes]) -> None:
+        for frame in frames:  # the script answers one command at a time
+            self._write(frame)
 
     def _read_available(self, timeout_s: float) -> bytes | None:
         self._deliver_unasked()

@@ -18,6 +18,7 @@ if TYPE_CHECKING:
     from collections.abc import Callable
 
     from chargebook.acquire.replay.outcome import Outcome
+    from chargebook.acquire.replay.session_replay import StationReplays
 
 HELP = (
     "replay a recorded session's raw instrument traffic through the simulated electrometer, "
@@ -141,7 +142,11 @@ def run(args: argparse.Namespace) -> int:
     from chargebook.acquire.commands.station_reader import listed_hint, missing_station_words
     from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_OK
     from chargebook.acquire.record.store import NotFound, default_db_path
-    from chargebook.acquire.replay.session_replay import NotReplayable, save_traffic_log
+    from chargebook.acquire.replay.session_replay import (
+        NotReplayable,
+        StationReplays,
+        save_traffic_log,
+    )
     from chargebook.corrections.errors import InputError
 
     db_path = Path(args.db or default_db_path())
@@ -168,16 +173,17 @@ def run(args: argparse.Namespace) -> int:
     except (NotReplayable, InputError) as error:
         print(f"chargebook replay: {error}; nothing was written", file=sys.stderr)
         return EXIT_INVALID_INPUT
-    if len(sessions) == 1 and args.visit is None:
-        outcome = _replay_one(args, db_path, sessions[0], thresholds)
-        _print(lambda: _print_one(outcome, args.json))
-        return outcome.status
-    outcomes = []
-    for session_id in sessions:  # each in its own transaction; one that fails stops no other
-        outcome = _replay_one(args, db_path, session_id, thresholds)
-        outcomes.append(outcome)
-        if not args.json:
-            _print(functools.partial(_print_one, outcome, False, caution=False))
+    with StationReplays(db_path) as replays:  # the file opened once for every session
+        if len(sessions) == 1 and args.visit is None:
+            outcome = _replay_one(args, replays, sessions[0], thresholds)
+            _print(lambda: _print_one(outcome, args.json))
+            return outcome.status
+        outcomes = []
+        for session_id in sessions:  # each in its own transaction; one that fails stops none
+            outcome = _replay_one(args, replays, session_id, thresholds)
+            outcomes.append(outcome)
+            if not args.json:
+                _print(functools.partial(_print_one, outcome, False, caution=False))
     _print(lambda: _print_many(outcomes, args))
     return max(outcome.status for outcome in outcomes)
 
@@ -213,7 +219,10 @@ def _session_ids(args: argparse.Namespace, db_path: Path) -> list[int]:
 
 
 def _replay_one(
-    args: argparse.Namespace, db_path: Path, session_id: int, thresholds: dict[str, object]
+    args: argparse.Namespace,
+    replays: StationReplays,
+    session_id: int,
+    thresholds: dict[str, object],
 ) -> Outcome:
     """Replay one session as the options ask; return how it went (never raises for a replay
     that cannot run: the outcome says why, in the words printed on stderr)."""
@@ -226,20 +235,19 @@ def _replay_one(
         Divergence,
         NotReplayable,
         ReplayRequest,
-        replay_session,
     )
     from chargebook.corrections.errors import InputError
     from chargebook.drivers_generic import ProfileError
 
     options = ("speed", "plan", "traffic_log", "profile", "time_scale", "dry_run", "keep")
     request = ReplayRequest(
-        db_path,
+        replays.db_path,
         session_id,
         thresholds=thresholds,
         **{name: getattr(args, name) for name in options},
     )
     try:
-        report = replay_session(request)
+        report = replays.replay(request)
     except NotFound as error:
         return Outcome(session_id, EXIT_INVALID_INPUT, error=f"{error}{listed_hint(error)}")
     except (NotReplayable, InputError, ProfileError) as error:

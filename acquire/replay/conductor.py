@@ -10,6 +10,11 @@ recorded lines up to the input's place, so that the simulated instrument stays i
   name;
 * every other line is sent or read as recorded, through the driver's transport.
 
+At speed 0, an exact replay of a query-mode recording keeps polls in flight: a run of the same
+query, each answered by a sample the engine took, with no other input between them, is sent in
+one write and its answers read and parsed together (``ProfileElectrometer.read_charges``); each
+sample is then checked and applied in its turn, as above.
+
 Then it applies the input with ``Engine.apply``, as the daemon did: the logged sample (with the
 row id of the line the replay wrote), a logged run of samples (through ``Engine.take_samples``,
 the samples the driver read from the run's lines, which must give the logged digest and last
@@ -27,6 +32,7 @@ shows what it changed).
 
 from __future__ import annotations
 
+import bisect
 import dataclasses
 import time
 from collections import deque
@@ -52,6 +58,9 @@ from chargebook.drivers_generic.interface import (
 UNASKED_WAIT_S = 10.0
 #: The fields of a logged sample that the driver's reading of its line must give again.
 SAMPLE_FIELDS = ("t_s", "charge_nC", "complete", "status")
+#: The most bytes of answers kept in flight at speed 0: the playback writes them all before
+#: the driver reads any, so they must fit a pty's buffer (about 18 KiB each way on Linux).
+MAX_BYTES_IN_FLIGHT = 4096
 
 
 class WhatIfStop(Exception):
@@ -122,8 +131,15 @@ class Conductor:
         pushing = {Capability.STREAM, Capability.PUSH_READINGS}
         self.push = bool(driver.profile.capabilities & pushing)
         self.sample_lines = recording.sample_lines
-        #: What the driver read from each sample line: (sample, the replay's row id of it).
-        self.read: dict[int, tuple[Sample, int | None]] = {}
+        #: Polls may be kept in flight (:meth:`_poll_run`): an exact replay at speed 0 of a
+        #: query-mode instrument, whose recording says what each poll was answered.
+        self.in_flight = strict and pacer.speed == 0 and not self.push
+        #: Where a logged input other than a sample is applied (lines played before it): a run
+        #: of polls in flight ends before it.
+        self.input_places = sorted({i.position for i in recording.inputs if i.line is None})
+        #: What the driver read from each sample line: (its receive time on the driver's clock,
+        #: the sample, the replay's row id of the line).
+        self.read: dict[int, tuple[float, Sample, int | None]] = {}
         self.notes: list[str] = []
 
     # -- the loop ----------------------------------------------------------------------------
@@ -156,7 +172,11 @@ class Conductor:
         """Send a recorded line; a poll whose answer the engine took is the driver's."""
         following = line.index + 1
         if following in self.sample_lines and not self.push:
-            self._read_sample(following, self.driver.read_charge)
+            count = self._poll_run(line.index) if self.in_flight else 1
+            if count > 1:
+                self._read_run(line.index, count)
+            else:
+                self._read_sample(following, self.driver.read_charge)
             return
         text = self._what_if_line(self.follower.text(line))
         self._call(lambda: self.driver.transport.write_line(text))
@@ -196,7 +216,57 @@ class Conductor:
             ) from None
         if sample is None or self.follower.position <= index:
             raise Divergence(f"traffic line {index + 1} did not arrive from the playback")
-        self.read[index] = (sample, self.follower.last_received_id)
+        self.read[index] = (sample.t_s, sample, self.follower.last_received_id)
+
+    def _poll_run(self, index: int) -> int:
+        """Return how many polls from line ``index`` on can be kept in flight: the recording
+        has the same query answered, line after line, by a sample the engine took, with no
+        other logged input applied between them (queries and answers of at most
+        MAX_BYTES_IN_FLIGHT bytes each way)."""
+        lines, samples = self.follower.lines, self.sample_lines
+        query = lines[index].raw
+        place = bisect.bisect_right(self.input_places, index)
+        end = self.input_places[place] if place < len(self.input_places) else len(lines)
+        size = max(len(query), len(lines[index + 1].raw))
+        count = 1
+        while True:
+            sent = index + 2 * count
+            if sent + 2 > end or lines[sent].raw != query or sent + 1 not in samples:
+                break
+            size += max(len(query), len(lines[sent + 1].raw))
+            if size > MAX_BYTES_IN_FLIGHT:
+                break
+            count += 1
+        return count
+
+    def _read_run(self, index: int, count: int) -> None:
+        """Have the driver read ``count`` polls from line ``index`` on, kept in flight; keep
+        what it parsed from each answer, with the time the recording received it."""
+        follower = self.follower
+        follower.answered.clear()
+        try:
+            samples = self.driver.read_charges(count)
+        except ProtocolError as error:
+            raise self._unreadable(self._line_of(error, index, count), error) from None
+        except InstrumentError as error:
+            raise Divergence(
+                f"traffic lines {index + 1} to {index + 2 * count}, whose samples the engine "
+                f"took, could not be read again: {error}"
+            ) from None
+        answered = follower.answered
+        if len(answered) != count or len(samples) != count:
+            raise Divergence(f"traffic line {index + 2} did not arrive from the playback")
+        lines = follower.lines
+        for (line, row_id), sample in zip(answered, samples, strict=True):
+            self.read[line] = (lines[line].t_s, sample, row_id)  # received as recorded
+
+    def _line_of(self, error: ProtocolError, index: int, count: int) -> int:
+        """Return the index of the answer among ``count`` polls from ``index`` that ``error``
+        is about (the first answer when it names none of them)."""
+        lines = self.follower.lines
+        raw = error.line + self.driver.profile.framing.read_terminator
+        answers = range(index + 1, index + 2 * count, 2)
+        return next((i for i in answers if lines[i].raw == raw), index + 1)
 
     def _unreadable(self, index: int, error: ProtocolError) -> Exception:
         """Return why a sample line the driver cannot parse stops the replay: a traffic log
@@ -225,13 +295,17 @@ class Conductor:
 
     # -- logged inputs -----------------------------------------------------------------------
     def _apply(self, logged: LoggedInput) -> None:
-        given = dataclasses.replace(logged.given, actor=self.actor(logged.given.actor))
+        given = logged.given
         if isinstance(given, inputs.Sample):
             given = self._sample_read_again(logged, given)
+            if not self.engine.wants_samples():
+                self._taken_too_early(logged)
         elif isinstance(given, inputs.SampleRun):
-            self._take_run(logged, given)
+            self._take_run(logged, dataclasses.replace(given, actor=self.actor(given.actor)))
             return
-        elif isinstance(given, inputs.ShortDelivery):
+        else:
+            given = dataclasses.replace(given, actor=self.actor(given.actor))
+        if isinstance(given, inputs.ShortDelivery):
             given = dataclasses.replace(given, reading=self._reading_again(given.reading))
         elif isinstance(given, inputs.Restart):
             self.engine = self.restart()
@@ -263,6 +337,22 @@ class Conductor:
             profile_commands = self.driver.profile.commands
             self.pending.extend(c for c in commands if c.action in profile_commands)
 
+    def _taken_too_early(self, logged: LoggedInput) -> None:
+        """Say that the engine no longer takes samples where the recording logged one: the
+        engine that recorded it was still taking a reading there (it logs no other sample), so
+        the replayed engine ended it earlier. Divergence in an exact replay (noted for a user's
+        traffic log); a what-if plan may well end it earlier (the comparison says so)."""
+        assert logged.line is not None
+        message = (
+            f"the logged sample (input {logged.input_id}, traffic line {logged.line + 1}) came "
+            "while the replayed engine was no longer taking a reading: it ended the reading "
+            "earlier than the recording did"
+        )
+        if self.strict and not self.edited:
+            raise Divergence(message)
+        if self.strict:
+            self.notes.append(message)
+
     def _reading_again(self, recorded_id: int) -> int:
         """Return the id of the replay's reading at the place of the recorded reading
         ``recorded_id`` (the id itself when the replay has no reading there yet: the engine
@@ -278,15 +368,23 @@ class Conductor:
         the replay wrote it under; Divergence where it differs from the logged one (noted
         instead for a user's traffic log)."""
         assert logged.line is not None
-        sample, line_id = self.read[logged.line]
-        again = dataclasses.replace(
-            given,
-            t_s=sample.t_s,
+        t_s, sample, line_id = self.read[logged.line]
+        again = inputs.Sample(
+            actor=self.actor(given.actor),
+            clock_s=given.clock_s,
+            t_s=t_s,
             charge_nC=sample.charge_nC,
             complete=sample.complete,
             status=sample.status.value,
             line_id=line_id,
         )
+        if (again.t_s, again.charge_nC, again.complete, again.status) == (
+            given.t_s,
+            given.charge_nC,
+            given.complete,
+            given.status,
+        ):
+            return again  # the common case: the fields compared below, all equal
         self._compare(logged, [(name, getattr(given, name), getattr(again, name)) for name in
                                SAMPLE_FIELDS])  # fmt: skip
         return again
@@ -297,8 +395,8 @@ class Conductor:
         instead for a user's traffic log), or where the engine ends a reading within the run
         (the daemon's did not: the run holds only samples that moved the charge)."""
         read = [self.read[index] for index in logged.lines]
-        samples = [sample for sample, _ in read]
-        line_ids = [line_id for _, line_id in read]
+        samples = [sample for _, sample, _ in read]
+        line_ids = [line_id for _, _, line_id in read]
         clock_s = given.clock_s or 0.0  # logged with every run
         last = sample_log.sample_input(clock_s, samples[-1], None)
         self._compare(

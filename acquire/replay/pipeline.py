@@ -75,7 +75,13 @@ def run_pipeline(
     from chargebook.drivers_generic.simulator.playback import playback_port
 
     profile = setup.profile
-    entries = [(line.t_s, line.direction, line_text(profile, line)) for line in setup.lines]
+    texts: dict[tuple[str, bytes], str] = {}  # a recording says a few lines again and again
+    entries = []
+    for line in setup.lines:
+        text = texts.get((line.direction, line.raw))
+        if text is None:
+            text = texts[line.direction, line.raw] = line_text(profile, line)
+        entries.append((line.t_s, line.direction, text))
     with playback_port(entries, profile.framing, profile.mode, speed) as port:
         same = None if setup.strict else same_command(profile)
         follower = TrafficFollower(setup.lines, profile, same_command=same)

@@ -122,10 +122,17 @@ def load_recording(store: Store, session_id: int) -> Recording:
     if not logged or logged[0].kind != inputs.StartSession.kind:
         raise NotReplayable(before_the_input_log(session_id))
     events = store.events(session_id)
-    traffic = store.traffic(session_id)
-    traffic = [*exchange_before(store, traffic), *traffic]
-    line_places = store.chain_places("traffic", session_id)
-    places = tuple(line_places.get(row.id, 0) for row in traffic)
+    placed = store.placed_traffic(session_id)  # (id, t_s, direction, line, place) each
+    first = [TrafficRow(p[0], session_id, p[1], "", p[2], p[3]) for p in placed[:1]]
+    before = exchange_before(store, first)  # outside the session: place 0
+    line_ids = [row.id for row in before] + [p[0] for p in placed]
+    lines = tuple(
+        RecordedLine(index, t_s, direction, raw)
+        for index, (t_s, direction, raw) in enumerate(
+            [*((r.t_s, r.direction, r.line) for r in before), *(p[1:4] for p in placed)]
+        )
+    )
+    places = (0,) * len(before) + tuple(p[4] for p in placed)
     profile, time_scale = _acquisition(events)
     start = inputs.from_logged(logged[0].kind, logged[0].actor, logged[0].detail())
     assert isinstance(start, inputs.StartSession)
@@ -135,12 +142,9 @@ def load_recording(store: Store, session_id: int) -> Recording:
         thresholds=rules.session_thresholds(events),
         profile=profile,
         time_scale=time_scale,
-        lines=tuple(
-            RecordedLine(index, row.t_s, row.direction, row.line)
-            for index, row in enumerate(traffic)
-        ),
+        lines=lines,
         start=start,
-        inputs=tuple(placed_inputs(logged[1:], input_places, traffic, places)),
+        inputs=tuple(placed_inputs(logged[1:], input_places, lines, line_ids, places)),
         places=places,
         reading_ids=tuple(row.id for row in store.readings(session_id)),
     )
@@ -149,22 +153,24 @@ def load_recording(store: Store, session_id: int) -> Recording:
 def placed_inputs(
     logged: Sequence[InputRow],
     input_places: dict[int, int],
-    traffic: Sequence[TrafficRow],
+    lines: Sequence[RecordedLine],
+    line_ids: Sequence[int],
     places: Sequence[int],
 ) -> list[LoggedInput]:
     """Return the logged inputs, in order, each placed after the traffic lines before it in the
-    session's chain (``input_places``: input id -> place; ``places``: each line's place), a
-    sample right after the line it names, a run of samples after its last line. NotReplayable
-    for a sample naming a line the session did not receive."""
-    line_index: dict[int | None, int] = {row.id: index for index, row in enumerate(traffic)}
+    session's chain (``input_places``: input id -> place; ``line_ids`` and ``places``: each
+    line's row id and place), a sample right after the line it names, a run of samples after
+    its last line. NotReplayable for a sample naming a line the session did not receive."""
+    line_index: dict[int | None, int] = {row_id: index for index, row_id in enumerate(line_ids)}
     found: list[LoggedInput] = []
     position = 0
     for row in logged:
         given = inputs.from_logged(row.kind, row.actor, row.detail())
         line, count = None, 1
         if isinstance(given, inputs.Sample | inputs.SampleRun):
-            line_ids = given.line_ids if isinstance(given, inputs.SampleRun) else [given.line_id]
-            line, count = _received_lines(row, line_ids, line_index, traffic), len(line_ids)
+            named = given.line_ids if isinstance(given, inputs.SampleRun) else [given.line_id]
+            line = _received_lines(row, named, line_index, lines, line_ids)
+            count = len(named)
             position = max(position, line + count)
         else:
             while position < len(places) and places[position] < input_places[row.id]:
@@ -175,18 +181,19 @@ def placed_inputs(
 
 def _received_lines(
     row: InputRow,
-    line_ids: Sequence[int | None],
+    named: Sequence[int | None],
     line_index: dict[int | None, int],
-    traffic: Sequence[TrafficRow],
+    lines: Sequence[RecordedLine],
+    line_ids: Sequence[int],
 ) -> int:
-    """Return the index of the first of the traffic lines ``line_ids`` a logged sample or run
-    names; NotReplayable where one is not a line the session received, right after the one
-    before it."""
-    first = line_index.get(line_ids[0]) if line_ids else None
-    for offset, line_id in enumerate(line_ids):
+    """Return the index of the first of the traffic lines (row ids ``named``) a logged sample
+    or run names (``line_ids``: each line's row id); NotReplayable where one is not a line the
+    session received, right after the one before it."""
+    first = line_index.get(named[0]) if named else None
+    for offset, line_id in enumerate(named):
         index = -1 if first is None else first + offset
-        if not (0 <= index < len(traffic) and traffic[index].id == line_id) or (
-            traffic[index].direction != "rx"
+        if not (0 <= index < len(lines) and line_ids[index] == line_id) or (
+            lines[index].direction != "rx"
         ):
             raise NotReplayable(
                 f"input {row.id} of session {row.session_id} is a sample of traffic line id "

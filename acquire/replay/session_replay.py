@@ -62,6 +62,7 @@ __all__ = [
     "NotReplayable",
     "ReplayReport",
     "ReplayRequest",
+    "StationReplays",
     "TrafficLogError",
     "replay_session",
     "save_traffic_log",
@@ -139,8 +140,72 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
     replayed as asked, Divergence when an unchanged replay does not follow its recording. None
     of these writes anything.
     """
-    original = Store.open(request.db_path, read_only=True)
-    try:
+    with StationReplays(request.db_path) as replays:
+        return replays.replay(request)
+
+
+class StationReplays:
+    """Replays sessions of one station file, one after another: the file is opened (and, for
+    a replay to store, its lock taken) once for them all, not once per session (opening the
+    file for writing checks it whole, SQLite's quick check). Each replay is still stored, or
+    not, in its own transaction. A context manager: the file is closed and the lock released
+    on the way out."""
+
+    def __init__(self, db_path: Path) -> None:
+        self.db_path = db_path
+        self._original: Store | None = None
+        self._station: Store | None = None
+        self._lock: Any = None
+
+    def __enter__(self) -> StationReplays:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Close the file and release the station's lock, if taken."""
+        for store in (self._original, self._station):
+            if store is not None:
+                store.close()
+        self._original = self._station = None
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
+
+    def original(self) -> Store:
+        """Return the station file opened read-only, to read recordings from."""
+        if self._original is None:
+            self._original = Store.open(self.db_path, read_only=True)
+        return self._original
+
+    def station(self) -> Store:
+        """Return the station file opened for writing, its lock held; NotReplayable while a
+        daemon holds the file."""
+        from chargebook.acquire.record.station_lock import StationInUse, StationLock
+
+        if self._station is None:
+            lock = StationLock(self.db_path)
+            try:
+                lock.acquire()
+            except StationInUse as busy:
+                raise NotReplayable(
+                    f"the replay cannot be stored: {busy}; --dry-run replays without writing "
+                    "anything"
+                ) from None
+            try:
+                self._station = Store.open(self.db_path)
+            except BaseException:
+                lock.release()
+                raise
+            self._lock = lock
+            self._station.results_on_close = stored_row  # as the daemon keeps it
+        return self._station
+
+    def replay(self, request: ReplayRequest) -> ReplayReport:
+        """Replay one stored session of the file as asked; return the report (raises as
+        :func:`replay_session` does)."""
+        original = self.original()
         setup, changes = _setup(original, request)
         detail = _replay_detail(setup.recording, request)
         if request.dry_run:
@@ -149,10 +214,24 @@ def replay_session(request: ReplayRequest) -> ReplayReport:
                 comparison = _compare(original, setup, run, changes)
             replay_id, not_stored = None, None
         else:
-            run, comparison, not_stored = _into_station(original, setup, changes, request, detail)
+            station = self.station()
+            run, comparison, not_stored = _into_station(
+                original, station, setup, changes, request, detail
+            )
             replay_id = run.session_id if not_stored is None and run.stopped is None else None
-    finally:
-        original.close()
+        return _report(setup, request, changes, run, comparison, replay_id, not_stored)
+
+
+def _report(
+    setup: Setup,
+    request: ReplayRequest,
+    changes: list[Change],
+    run: PipelineRun,
+    comparison: Comparison,
+    replay_id: int | None,
+    not_stored: str | None,
+) -> ReplayReport:
+    """Return the report of a replay that ran."""
     return ReplayReport(
         original_id=setup.recording.session_id,
         replay_id=replay_id,
@@ -210,42 +289,29 @@ class _NotStored(Exception):
 
 def _into_station(
     original: Store,
+    station: Store,
     setup: Setup,
     changes: list[Change],
     request: ReplayRequest,
     detail: Replay,
 ) -> tuple[PipelineRun, Comparison, str | None]:
-    """Replay into the station file, in one transaction, holding the station's lock: the engine
-    writes the session through the store's API, and the transaction is committed only for a
-    replay that ran to the end and is to be kept (not a traffic log that does not reproduce
-    the session, unless kept). Return the run, its comparison with the original and why it was
-    not stored (None: stored, or stopped early). NotReplayable while a daemon holds the file."""
-    from chargebook.acquire.record.station_lock import StationInUse, StationLock
-
-    lock = StationLock(request.db_path)
+    """Replay into the station file (``station``, its lock held), in one transaction: the
+    engine writes the session through the store's API, and the transaction is committed only
+    for a replay that ran to the end and is to be kept (not a traffic log that does not
+    reproduce the session, unless kept). Return the run, its comparison with the original and
+    why it was not stored (None: stored, or stopped early)."""
     try:
-        lock.acquire()
-    except StationInUse as busy:
-        raise NotReplayable(
-            f"the replay cannot be stored: {busy}; --dry-run replays without writing anything"
-        ) from None
-    try:
-        with Store.open(request.db_path) as station:
-            station.results_on_close = stored_row  # as the daemon keeps it
-            try:
-                with station.atomic():
-                    replay_of = setup.recording.session_id
-                    run = run_pipeline(setup, request.speed, detail, station, replay_of)
-                    comparison = _compare(original, setup, run, changes)
-                    why = _why_not_stored(comparison, changes, request)
-                    if run.stopped is not None or why is not None:
-                        raise _NotStored(run, comparison, why)
-                    if request.traffic_log is not None and not changes and not comparison.exact:
-                        _mark_not_reproduced(station, run.session_id, request)
-            except _NotStored as rolled_back:
-                return rolled_back.run, rolled_back.comparison, rolled_back.why
-    finally:
-        lock.release()
+        with station.atomic():
+            replay_of = setup.recording.session_id
+            run = run_pipeline(setup, request.speed, detail, station, replay_of)
+            comparison = _compare(original, setup, run, changes)
+            why = _why_not_stored(comparison, changes, request)
+            if run.stopped is not None or why is not None:
+                raise _NotStored(run, comparison, why)
+            if request.traffic_log is not None and not changes and not comparison.exact:
+                _mark_not_reproduced(station, run.session_id, request)
+    except _NotStored as rolled_back:
+        return rolled_back.run, rolled_back.comparison, rolled_back.why
     return run, comparison, None
 
 

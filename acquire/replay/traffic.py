@@ -10,7 +10,9 @@
   the line, where it is not), gets the time the line was recorded with, and is written to the
   replay's session as its own traffic. The lines are written a batch at a time
   (:meth:`TrafficFollower.flush`, before anything else is written: the chain keeps the order in
-  which they came), not one statement per line.
+  which they came), not one statement per line. Queries sent in one write (polls kept in
+  flight, :meth:`TrafficFollower.burst`) are the next exchanges' queries, each answer that
+  comes is its query's, and each pair is written as recorded.
 """
 
 from __future__ import annotations
@@ -219,6 +221,11 @@ class TrafficFollower:
         self._unwritten: list[tuple[int | None, float, str, str, bytes]] = []
         self._next_id = 0
         self._last_t_s = self.lines[0].t_s if self.lines else 0.0
+        #: Queries sent in one write whose answers are still to come (see :meth:`burst`).
+        self._in_flight = 0
+        #: The answers to queries kept in flight, as they came: (line index, row id) each.
+        self.answered: list[tuple[int, int | None]] = []
+        self._sent_at = ""  # when the queries in flight were sent (``recorded_at``)
 
     def attach(self, store: Store, session_id: int) -> None:
         """Write the lines from now on to ``session_id`` in ``store``: each batch as the store
@@ -312,6 +319,66 @@ class TrafficFollower:
                 self._last_received_id = self._next_id + len(self._unwritten)
             self._unwritten.append((self.session_id, t_s, self.store.stamp(), value, raw))
         self.position = position + 1
+
+    def burst(self, direction: TrafficDirection, t_s: float, lines: Sequence[bytes]) -> None:
+        """Check lines sent or received together against the recording, then write them.
+
+        Queries sent in one write (polls kept in flight) are exchanges of the recording, one
+        line each way: the ``k`` lines sent are checked against the next ``k`` exchanges'
+        queries, and each line received after them against its query's answer; each pair is
+        written as the recording has it, query then answer, when its answer comes, and noted
+        in :attr:`answered`. Other lines are taken one by one, as :meth:`__call__` takes them.
+        """
+        value = TrafficDirection(direction).value
+        if value == TX and len(lines) > 1:
+            self._send_in_flight(lines)
+            return
+        for raw in lines:
+            if value == RX and self._in_flight:
+                self._answer_in_flight(bytes(raw))
+            else:
+                self(direction, self.clock(), raw)
+
+    def _send_in_flight(self, lines: Sequence[bytes]) -> None:
+        """Check queries sent in one write against the queries of the next exchanges."""
+        if self._in_flight:
+            raise Divergence(
+                f"at traffic line {self.position + 1} the replay sent {len(lines)} queries "
+                f"while {self._in_flight} earlier ones were still unanswered"
+            )
+        for number, raw in enumerate(lines):
+            place = self.position + 2 * number
+            after = self.lines[place + 1] if place + 1 < len(self.lines) else None
+            expected = self.lines[place] if place < len(self.lines) else None
+            if expected is None or expected.raw != raw or expected.direction != TX:
+                self.position = place
+                self._check(TX, bytes(raw))
+            if after is None or after.direction != RX:
+                raise Divergence(
+                    f"traffic line {place + 1} was sent with others in one write, but the "
+                    "recording has no answer to it on the next line"
+                )
+        self._in_flight = len(lines)
+        if self.store is not None:  # one write, one time: the chain links such rows fastest
+            self._sent_at = self.store.stamp()
+
+    def _answer_in_flight(self, raw: bytes) -> None:
+        """Check the answer to the oldest query in flight, then write the pair."""
+        query, answer = self.lines[self.position], self.lines[self.position + 1]
+        if answer.raw != raw:
+            self.position += 1
+            self._check(RX, raw)
+        row_id = None
+        if self.store is not None:
+            stamp = self._sent_at
+            row_id = self._next_id + len(self._unwritten) + 1
+            self._unwritten.append((self.session_id, query.t_s, stamp, TX, query.raw))
+            self._unwritten.append((self.session_id, answer.t_s, stamp, RX, raw))
+            self._last_received_id = row_id
+        self.answered.append((answer.index, row_id))
+        self._last_t_s = answer.t_s
+        self.position += 2
+        self._in_flight -= 1
 
     def _check(self, direction: str, raw: bytes) -> None:
         """Raise Divergence for a line that is not the recorded one (note it, for the same

@@ -190,11 +190,12 @@ class PlaybackPort:
     """A playback served on a real pseudo-terminal (see :func:`playback_port`).
 
     ``answer`` is None when a thread serves the pty; else the function that answers the
-    commands written to it, which the caller runs after each write (:meth:`transport`).
+    commands written to it (given how many lines were written), which the caller runs after
+    each write (:meth:`transport`).
     """
 
     path: Path
-    answer: Callable[[], None] | None
+    answer: Callable[[int], None] | None
 
     def transport(
         self, profile: Profile, traffic: TrafficListener, clock: Callable[[], float]
@@ -240,7 +241,11 @@ def playback_port(
         else:
             server.start()
         try:
-            answer = (lambda: server.answer_waiting(COMMAND_THROUGH_S)) if in_turn else None
+            answer = (
+                (lambda commands: server.answer_waiting(COMMAND_THROUGH_S, commands))
+                if in_turn
+                else None
+            )
             yield PlaybackPort(server.link_path, answer)
         finally:
             server.stop()
@@ -249,13 +254,21 @@ def playback_port(
 class AnsweredTransport(SerialTransport):
     """A serial transport after each of whose writes the playback answers, in this thread."""
 
-    def __init__(self, *args: Any, answer: Callable[[], None], **keywords: Any) -> None:
+    def __init__(self, *args: Any, answer: Callable[[int], None], **keywords: Any) -> None:
         super().__init__(*args, **keywords)
         self._answer = answer
+        self._commands = 1
+
+    def _write_all(self, frames: Sequence[bytes]) -> None:
+        self._commands = len(frames)  # one write of several commands: all of them answered
+        try:
+            super()._write_all(frames)
+        finally:
+            self._commands = 1
 
     def _write(self, data: bytes) -> None:
         super()._write(data)
-        self._answer()
+        self._answer(self._commands)
 
 
 class TrafficRecorder:

@@ -66,9 +66,10 @@ class PtyServer:
         each command itself, with :meth:`answer_waiting` (no pushed lines, no drops)."""
         self._open_pty()
 
-    def answer_waiting(self, wait_s: float) -> None:
+    def answer_waiting(self, wait_s: float, commands: int = 1) -> None:
         """Answer the command lines written to the port, waiting up to ``wait_s`` for them to
-        come through the pty, until no part of a line is left unanswered."""
+        come through the pty, until ``commands`` lines are answered and no part of a line is
+        left unanswered."""
         master = self._master
         if master is None:
             return
@@ -77,8 +78,8 @@ class PtyServer:
             ready, _, _ = select.select([master], [], [], max(deadline - time.monotonic(), 0.0))
             if not ready:
                 return
-            self._receive(os.read(master, 4096))
-            if not self._buffer:
+            commands -= self._receive(os.read(master, 4096))
+            if not self._buffer and commands <= 0:
                 return
 
     def stop(self) -> None:
@@ -167,17 +168,23 @@ class PtyServer:
         else:
             self._stop.wait(interval_s)
 
-    def _receive(self, data: bytes) -> None:
+    def _receive(self, data: bytes) -> int:
+        """Answer the command lines ``data`` completes, in one write; return how many."""
         self._buffer += data
         terminator = self.framing.write_terminator
+        answers: list[str] = []
+        count = 0
         while (end := self._buffer.find(terminator)) >= 0:
             raw = bytes(self._buffer[:end])
             del self._buffer[: end + len(terminator)]
             line = raw.decode(self.framing.encoding, errors="replace").strip("\r\n")
-            self.send(self.responder.respond(line), wait_s=ANSWER_WRITE_TIMEOUT_s)
+            answers += self.responder.respond(line)
+            count += 1
+        self.send(answers, wait_s=ANSWER_WRITE_TIMEOUT_s)
         if len(self._buffer) > MAX_COMMAND_BYTES:
             log.warning("discarding %d bytes without a terminator", len(self._buffer))
             self._buffer.clear()
+        return count
 
     def send(self, lines: list[str], *, wait_s: float) -> bool:
         """Write lines to the port; return False if the port stayed full for ``wait_s``."""

@@ -205,3 +205,43 @@ def test_an_input_the_engine_cannot_take_stops_an_exact_replay_naming_it():
         stopped.value
     )
     assert "cannot set.accept while the sequence is collecting" in str(stopped.value)
+
+
+def test_a_logged_sample_after_the_engine_ended_its_readings_stops_an_exact_replay_naming_it():
+    # Two readings of the set, each flat for the hold time, then one poll more logged as a
+    # sample: the engine that recorded this was still taking a reading there, the replayed
+    # one had ended both. Polls in flight or not, that is a divergence, not a sample ignored.
+    first = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.15, "+20.0000"), (1.25, "+20.0000")]
+    second = [(1.30, "+30.0000"), (1.35, "+40.0000"), (1.40, "+40.0000"), (1.50, "+40.0000")]
+    lines = recorded(*arming(*first, *second, (1.55, "+40.0000")))
+    logged = [operator(0, ENVIRONMENT), operator(0, inputs.Arm(actor="op", clock_s=0.99))]
+    polls = answers_of(lines, *(t_s for t_s, _ in [*first, *second, (1.55, "")]))
+    logged += [sample(lines, i, clock_s=lines[i].t_s) for i in polls]
+    with pytest.raises(Divergence) as stopped:
+        replay(lines, logged)
+    assert str(stopped.value) == (
+        f"the logged sample (input {logged[-1].input_id}, traffic line {polls[-1] + 1}) came "
+        "while the replayed engine was no longer taking a reading: it ended the reading "
+        "earlier than the recording did"
+    )
+    engine, session_id = replay(lines, logged[:-1])  # the recording as the engine left it
+    assert [r.charge_nC for r in engine.store.readings(session_id)] == [20.0, 40.0]
+
+
+def test_an_unreadable_answer_among_polls_in_flight_is_named_by_its_own_line():
+    # Three polls kept in flight; the recording's third answer (one the engine took, by the
+    # log) is not a reading the driver can parse: the replay stops naming that line, not the
+    # run's first.
+    flat = [(1.05, "+10.0000"), (1.10, "+20.0000"), (1.15, "+2O.0000")]
+    lines = recorded(*arming(*flat))
+    logged = [operator(0, ENVIRONMENT), operator(0, inputs.Arm(actor="op", clock_s=0.99))]
+    polls = answers_of(lines, 1.05, 1.10, 1.15)
+    logged += [sample(lines, i, clock_s=2.0) for i in polls[:2]]
+    garbled = inputs.Sample(t_s=lines[polls[2]].t_s, charge_nC=20.0, line_id=polls[2] + 1)
+    logged.append(LoggedInput(polls[2] + 1, garbled, input_id=102, line=polls[2]))
+    with pytest.raises(Divergence) as stopped:
+        replay(lines, logged)
+    assert str(stopped.value).startswith(
+        f"traffic line {polls[2] + 1}, whose sample the engine took, cannot be read by profile "
+        "query-plain (line does not match the reading pattern: 'Q +2O.0000 nC A')"
+    )

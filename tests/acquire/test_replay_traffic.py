@@ -237,3 +237,54 @@ def test_the_log_keeps_recorded_times_exactly(tmp_path: Path):
     awkward = (RecordedLine(0, 1234.5678901234567, "tx", b"Q?\r\n"),)
     path = write_playback_log(QUERY_PLAIN, awkward, tmp_path / "times.jsonl")
     assert json.loads(path.read_text())["t_s"] == 1234.5678901234567
+
+
+POLLS = (
+    *LINES[:2],
+    RecordedLine(2, 10.5, "tx", b"Q?\r\n"),
+    RecordedLine(3, 10.51, "rx", b"Q +19.6023 nC A\r\n"),
+    RecordedLine(4, 10.55, "tx", b"Q?\r\n"),
+    RecordedLine(5, 10.56, "rx", b"Q +19.7001 nC A\r\n"),
+    RecordedLine(6, 10.6, "tx", b"Q?\r\n"),
+    RecordedLine(7, 10.61, "rx", b"Q +19.8002 nC A\r\n"),
+)
+
+
+def test_polls_in_flight_are_written_as_recorded_each_query_then_its_answer():
+    # Three queries sent in one write and their answers read in two bursts: each pair is
+    # checked against the recording and written as the recording has it, with its recorded
+    # times, and the follower names the row of each answer.
+    store = Store.memory()
+    session_id = store.create_session(
+        example_metadata(), example_plan().to_dict(), "trs398", "6 MV"
+    )
+    follower = TrafficFollower(POLLS, QUERY_PLAIN)
+    follower.attach(store, session_id)
+    for line in POLLS[:2]:
+        follower(TrafficDirection(line.direction), follower.clock(), line.raw)
+    follower.burst(TrafficDirection.SENT, follower.clock(), [b"Q?\r\n"] * 3)
+    follower.burst(TrafficDirection.RECEIVED, follower.clock(), [POLLS[3].raw])
+    follower.burst(TrafficDirection.RECEIVED, follower.clock(), [POLLS[5].raw, POLLS[7].raw])
+    follower.detach()
+    rows = store.traffic(session_id)
+    assert [(r.t_s, r.direction, r.line) for r in rows] == [
+        (line.t_s, line.direction, line.raw) for line in POLLS
+    ]
+    assert follower.answered == [(3, rows[3].id), (5, rows[5].id), (7, rows[7].id)]
+    assert follower.finished and follower.last_t_s == 10.61
+
+
+def test_an_answer_in_flight_that_differs_from_the_recording_stops_the_replay_naming_it():
+    follower = TrafficFollower(POLLS, QUERY_PLAIN)
+    for line in POLLS[:2]:
+        follower(TrafficDirection(line.direction), follower.clock(), line.raw)
+    follower.burst(TrafficDirection.SENT, follower.clock(), [b"Q?\r\n"] * 3)
+    with pytest.raises(Divergence) as diverged:
+        follower.burst(TrafficDirection.RECEIVED, 0.0, [POLLS[3].raw, b"Q +19.7002 nC A\r\n"])
+    assert str(diverged.value) == (
+        "at traffic line 6 the replay received 'Q +19.7002 nC A' where the original received "
+        "'Q +19.7001 nC A'"
+    )
+    queries = TrafficFollower(POLLS, QUERY_PLAIN)  # more queries than the recording has
+    with pytest.raises(Divergence, match="at traffic line 1 the replay sent 'Q\\?'"):
+        queries.burst(TrafficDirection.SENT, 0.0, [b"Q?\r\n"] * 2)

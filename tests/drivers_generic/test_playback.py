@@ -9,6 +9,7 @@ import time
 
 import pytest
 from chargebook.drivers_generic import load_profile, open_electrometer
+from chargebook.drivers_generic.interface import InstrumentReportedError
 from chargebook.drivers_generic.readout import capture_reading
 from chargebook.drivers_generic.simulator.playback import (
     MAX_LOG_LINE_BYTES,
@@ -200,3 +201,53 @@ def test_a_playback_port_in_this_process_answers_the_real_driver_over_a_real_pty
         b"Q?\r\n",
         b"Q -0.5000 nC A\r\n",
     ]
+
+
+class _Writes:
+    """A traffic listener that notes each line and, told lines in one call, the call too."""
+
+    def __init__(self) -> None:
+        self.lines: list[tuple[str, bytes]] = []
+        self.calls: list[tuple[str, int]] = []
+
+    def __call__(self, direction, t_s: float, raw: bytes) -> None:
+        self.lines.append((direction.value, bytes(raw)))
+
+    def burst(self, direction, t_s: float, lines) -> None:
+        self.calls.append((direction.value, len(lines)))
+        self.lines += [(direction.value, bytes(raw)) for raw in lines]
+
+
+@pytest.mark.parametrize("speed", [0.0, 1e6])
+def test_polls_kept_in_flight_are_sent_in_one_write_and_read_in_one_pass_over_a_real_pty(speed):
+    # The replay at speed 0 keeps a recording's run of polls in flight: the real driver writes
+    # the k queries at once to a real pty, the playback answers them all, and the driver
+    # parses the k answers' bytes as one burst. Same readings as polling one at a time.
+    from chargebook.drivers_generic.driver import ProfileElectrometer
+    from chargebook.drivers_generic.simulator.playback import playback_port
+
+    profile = load_profile("query-plain")
+    charges = [0.0, 0.098, -1.5, 20.1234, 20.1234, 0.0001]
+    entries = []
+    for number, charge in enumerate(charges):
+        entries += [(number * 0.05, "tx", "Q?"), (number * 0.05, "rx", f"Q {charge:+.4f} nC A")]
+    entries += [(1.0, "tx", "Q?"), (1.0, "rx", "Q +7.0000 nC O")]  # overrange: line by line
+    entries += [(1.1, "tx", "Q?"), (1.1, "rx", "ERR 3")]  # a refusal where a reading was due
+    writes = _Writes()
+    with playback_port(entries, profile.framing, profile.mode, speed) as port:
+        driver = ProfileElectrometer(profile, port.transport(profile, writes, time.monotonic))
+        driver.open()
+        try:
+            read = driver.read_charges(len(charges))
+            (overrange,) = driver.read_charges(1)
+            with pytest.raises(InstrumentReportedError, match="error 3"):
+                driver.read_charges(2)  # the second query is never answered: the first refused
+        finally:
+            driver.close()
+    assert [sample.charge_nC for sample in read] == charges  # parse_reading's own values
+    assert [sample.status.value for sample in read] == ["ok"] * len(charges)
+    assert overrange.status.value == "overrange" and overrange.charge_nC == 7.0
+    assert writes.calls[0] == ("tx", len(charges))  # the queries in one write
+    received = sum(count for direction, count in writes.calls if direction == "rx")
+    assert received >= len(charges)  # the answers read a burst at a time, not line by line
+    assert writes.lines[: len(charges)] == [("tx", b"Q?\r\n")] * len(charges)

@@ -539,6 +539,32 @@ def test_a_plan_asking_for_more_readings_than_were_taken_stops_there_and_writes_
     assert file_state(db) == before
 
 
+def test_one_run_of_replays_holds_the_station_throughout_and_a_replay_not_stored_spoils_none(
+    station: Station,
+):
+    # Several replays of one run share the station file, opened and locked once: a replay
+    # rolled back (a what-if that stops early) leaves the open file fit for the next, which is
+    # stored; the lock is held until the run ends, and then released.
+    from chargebook.acquire.record.station_lock import StationInUse
+    from chargebook.acquire.replay.session_replay import ReplayRequest, StationReplays
+
+    db = copy_of(station, "one-run.sqlite")
+    plan = reduced_bias_plan(station.work / "more-readings.toml", 100.0, routine_readings=4)
+    with StationReplays(db) as replays:
+        stopped = replays.replay(ReplayRequest(db, station.clean, speed=0, plan=str(plan)))
+        assert stopped.stopped is not None and stopped.replay_id is None
+        with pytest.raises(StationInUse):
+            StationLock(db).acquire()  # held by the run, as a daemon would be refused
+        kept = replays.replay(ReplayRequest(db, station.clean, speed=0))
+        assert kept.reproduced and kept.replay_id is not None
+        again = replays.replay(ReplayRequest(db, station.redone, speed=0))
+        assert again.reproduced and again.replay_id == kept.replay_id + 1
+    with StationLock(db), Store.open(db, read_only=True) as store:  # released at the end
+        for original_id, report in ((station.clean, kept), (station.redone, again)):
+            assert store.session(report.replay_id).replay_of == original_id
+            fed_from_the_input_log(store, original_id, report.replay_id)
+
+
 # ---------------------------------------------------------------- corrupted and truncated logs
 def traffic_log(station: Station, path: Path, session_id: int, capsys) -> list[str]:
     """Write the session's stored traffic as a JSON-lines log with `chargebook replay
