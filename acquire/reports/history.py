@@ -305,11 +305,8 @@ def load_history_across(
         if here is None:  # matched on the names, read without decoding each one's metadata
             names = names_of(index)
             named = ((row, names.get(row.id) or row.metadata()) for row in listed)
-            rows = [
-                (row, meta)
-                for row, meta in named
-                if any(matches(row, b, m, meta) for b, m in typed)
-            ]
+            judge = _typed_judge(typed)
+            rows = [(row, meta) for row, meta in named if judge(row, meta)]
         else:
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
@@ -336,6 +333,27 @@ def load_history_across(
         action_pct=_action_pct(registered, entries),
         register_beam=None if registered is None else (registered.row_id, registered.name),
     )
+
+
+def _typed_judge(
+    typed: Sequence[tuple[str, str | None]],
+) -> Callable[[SessionRow, Mapping[str, Any]], bool]:
+    """Return a test of whether a session (its row and names) measured one of the beams
+    ``typed`` ((beam, machine) pairs, as :func:`matches` takes them). A station's thousands of
+    sessions name a few machines and beams: each distinct set of names is judged once."""
+    judged: dict[tuple[object, object, object], bool] = {}
+
+    def judge(row: SessionRow, meta: Mapping[str, Any]) -> bool:
+        key = (row.beam, meta.get("beam"), meta.get("treatment_machine"))  # what matches reads
+        try:
+            return judged[key]
+        except KeyError:
+            found = judged[key] = any(matches(row, b, m, meta) for b, m in typed)
+        except TypeError:  # a name that is not text (a list, say): judged on its own
+            found = any(matches(row, b, m, meta) for b, m in typed)
+        return found
+
+    return judge
 
 
 def _action_pct(registered: _RegisteredBeam | None, entries: list[_Entry]) -> float | None:
