@@ -27,7 +27,7 @@ psycopg (the ``department`` extra) is imported only here, when a command opens t
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
@@ -678,7 +678,9 @@ class DepartmentStore:
         """Return {}: visits are not published to the department record (yet)."""
         return {}
 
-    def session_results(self) -> dict[int, tuple[str, str]]:
+    def session_results(
+        self, session_ids: Iterable[int] | None = None
+    ) -> dict[int, tuple[str, str]]:
         """Return {}: the department record keeps no evaluated results, so each of its sessions
         is evaluated from its published rows, by the reader's own code (whatever the version
         of the station that published it)."""

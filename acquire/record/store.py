@@ -1202,12 +1202,19 @@ class Store:
                 (session_id, _require_text("stamp", stamp), result_json, self._stamp()),
             )
 
-    def session_results(self) -> dict[int, tuple[str, str]]:
-        """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
-        the file has lost its ``session_results`` table, or holds one of other columns (a
-        cache: each session is then evaluated live, and a writable open keeps them again)."""
+    def session_results(
+        self, session_ids: Iterable[int] | None = None
+    ) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions (of ``session_ids``; None: all of them,
+        one query either way): session id -> (stamp, JSON); {} when the file has lost its
+        ``session_results`` table, or holds one of other columns (a cache: each session is then
+        evaluated live, and a writable open keeps them again)."""
+        sql, params = "SELECT session_id, stamp, result_json FROM session_results", ()
+        if session_ids is not None:  # a history of one beam of thousands: only its sessions'
+            sql += " WHERE session_id IN (SELECT value FROM json_each(?))"
+            params = (json.dumps([int(session_id) for session_id in session_ids]),)
         try:
-            rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+            rows = self.read(sql, params)
         except sqlite3.OperationalError:
             if self.results_table() == "kept":
                 raise
