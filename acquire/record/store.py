@@ -1209,7 +1209,8 @@ class Store:
         one query either way): session id -> (stamp, JSON); {} when the file has lost its
         ``session_results`` table, or holds one of other columns (a cache: each session is then
         evaluated live, and a writable open keeps them again)."""
-        sql, params = "SELECT session_id, stamp, result_json FROM session_results", ()
+        sql = "SELECT session_id, stamp, result_json FROM session_results"
+        params: tuple[str, ...] = ()
         if session_ids is not None:  # a history of one beam of thousands: only its sessions'
             sql += " WHERE session_id IN (SELECT value FROM json_each(?))"
             params = (json.dumps([int(session_id) for session_id in session_ids]),)
