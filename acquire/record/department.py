@@ -631,6 +631,11 @@ class DepartmentStore:
             for row in self.sessions()
         ]
 
+    def sessions_of(self, session_ids: Iterable[int]) -> list[SessionRow]:
+        """Return the published sessions ``session_ids``, oldest first, in one query."""
+        wanted = [int(session_id) for session_id in session_ids]
+        return self._select(SessionRow, "sessions", "id = ANY(%s)", (wanted,))
+
     def session(self, session_id: int) -> SessionRow:
         """Return one session; NotFound when it is not published."""
         return self._one(SessionRow, "sessions", session_id, "session")

@@ -36,6 +36,10 @@ class RecordReader(Protocol):
         metadata and plan, with the names its metadata holds."""
         ...
 
+    def sessions_of(self, session_ids: Iterable[int]) -> list[store.SessionRow]:
+        """Return the sessions ``session_ids`` (those recorded), oldest first."""
+        ...
+
     def session(self, session_id: int) -> store.SessionRow:
         """Return one session; :class:`~chargebook.acquire.record.store.NotFound` if missing."""
         ...

@@ -143,6 +143,8 @@ NAMED_KEYS = ("treatment_machine", "beam", "operator")
 _NAMES_EXTRACTED = "json_extract(metadata_json, {})".format(
     ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
 )
+#: A condition that ``column`` is one of the ids of a JSON array given as one parameter.
+_IN_JSON_IDS = "{} IN (SELECT value FROM json_each(?))"
 #: How much of a station file a read-only open maps into memory (SQLite maps no more than the
 #: file holds): 1 GiB, far beyond decades of daily checks.
 READ_MMAP_BYTES = 1 << 30
@@ -1212,7 +1214,7 @@ class Store:
         sql = "SELECT session_id, stamp, result_json FROM session_results"
         params: tuple[str, ...] = ()
         if session_ids is not None:  # a history of one beam of thousands: only its sessions'
-            sql += " WHERE session_id IN (SELECT value FROM json_each(?))"
+            sql += " WHERE " + _IN_JSON_IDS.format("session_id")
             params = (json.dumps([int(session_id) for session_id in session_ids]),)
         try:
             rows = self.read(sql, params)
@@ -1273,6 +1275,12 @@ class Store:
     def session(self, session_id: int) -> SessionRow:
         """Return one session. Raises :class:`NotFound` (a KeyError) when there is none."""
         return self._one(SessionRow, "sessions", session_id, "session")
+
+    def sessions_of(self, session_ids: Iterable[int]) -> list[SessionRow]:
+        """Return the sessions ``session_ids`` (those recorded), oldest first, in one query:
+        a history reads the whole rows of one beam's sessions, not of the station's."""
+        ids = json.dumps([int(session_id) for session_id in session_ids])
+        return self._select(SessionRow, "sessions", _IN_JSON_IDS.format("id"), (ids,))
 
     # ---------------------------------------------------------------------- reading sets
 
