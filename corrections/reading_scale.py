@@ -35,13 +35,22 @@ def recorded_resolution_nC(charges_nC: Sequence[float]) -> float | None:
     array = np.asarray(charges_nC, dtype=float)
     if array.size == 0:
         return None
-    step = 1.0
+    multiples = array / _STEPS_nC[:, None]  # every step at once: a report draws hundreds of sets
+    whole = np.all(np.abs(multiples - np.round(multiples)) < 1e-6, axis=-1)
+    return float(_STEPS_nC[np.argmax(whole)]) if whole.any() else None
+
+
+def _steps_nC() -> np.ndarray:
+    """Return the steps looked at, coarsest first: 1 nC, divided by ten down to
+    :data:`FINEST_RESOLUTION_nC`."""
+    steps, step = [], 1.0
     while step >= FINEST_RESOLUTION_nC * 0.5:
-        multiples = array / step
-        if np.all(np.abs(multiples - np.round(multiples)) < 1e-6):
-            return step
+        steps.append(step)
         step /= 10.0
-    return None
+    return np.array(steps)
+
+
+_STEPS_nC = _steps_nC()
 
 
 def resolution_pct(resolution_nC: float, mean_nC: float) -> float:

@@ -181,15 +181,12 @@ def set_statistics(
     """
     readings = readings_array(field, readings_nC)
     count = readings.size
-    mean = float(readings.mean())
-    if mean == 0:
-        raise InputError(field, readings.tolist(), "readings with a non-zero mean", "averages zero")
-    sd = se = rel_sd = rel_range = drift = offset = None
+    mean, sd = _mean_and_sd(field, readings)
+    se = rel_sd = rel_range = drift = offset = None
     outliers: tuple[int, ...] = ()
-    if count >= 2:
-        sd = float(np.std(readings, ddof=1))
+    if sd is not None:
         se = sd / np.sqrt(count)
-        rel_sd = 100.0 * sd / abs(mean)
+        rel_sd = _relative_sd_pct(sd, mean)
         rel_range = float(relative_range_pct(readings))
     if count >= MINIMUM_FOR_TRENDS:
         drift = float(drift_pct_per_reading(readings))
@@ -203,3 +200,36 @@ def set_statistics(
         apart = 100.0 * np.abs(readings - middle) / scale > outlier_floor_pct
         outliers = tuple(int(i) for i in np.flatnonzero((np.abs(z) > outlier_threshold) & apart))
     return SetStatistics(count, mean, sd, rel_sd, se, rel_range, drift, offset, outliers)
+
+
+def _mean_and_sd(field: str, readings: np.ndarray) -> tuple[float, float | None]:
+    """Return the mean (nC) and the sample SD (ddof = 1, nC; None with one reading) of a set's
+    readings (a 1-D array); InputError when they average zero."""
+    mean = float(readings.mean())
+    if mean == 0:
+        raise InputError(field, readings.tolist(), "readings with a non-zero mean", "averages zero")
+    return mean, float(np.std(readings, ddof=1)) if readings.size >= 2 else None
+
+
+def _relative_sd_pct(sd_nC: float, mean_nC: float) -> float:
+    """Return an SD in % of the magnitude of the mean."""
+    return 100.0 * sd_nC / abs(mean_nC)
+
+
+@dataclass(frozen=True)
+class SetSpread:
+    """The mean and relative SD of one reading set: what a report shows of each of hundreds
+    of sets, the same values :func:`set_statistics` gives."""
+
+    count: int
+    mean_nC: float
+    relative_sd_pct: float | None  # None with one reading
+
+
+def set_spread(readings_nC: Sequence[float] | np.ndarray, field: str = "readings_nC") -> SetSpread:
+    """Return the mean and relative SD (%) of one reading set (charges in nC), computed as
+    :func:`set_statistics` computes them, without the rest (drift, outliers ...). Raises
+    InputError for an empty set, a value that is not a finite number, or a zero mean."""
+    readings = readings_array(field, readings_nC)
+    mean, sd = _mean_and_sd(field, readings)
+    return SetSpread(readings.size, mean, None if sd is None else _relative_sd_pct(sd, mean))

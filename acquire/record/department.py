@@ -27,7 +27,7 @@ psycopg (the ``department`` extra) is imported only here, when a command opens t
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
@@ -631,6 +631,11 @@ class DepartmentStore:
             for row in self.sessions()
         ]
 
+    def sessions_of(self, session_ids: Iterable[int]) -> list[SessionRow]:
+        """Return the published sessions ``session_ids``, oldest first, in one query."""
+        wanted = [int(session_id) for session_id in session_ids]
+        return self._select(SessionRow, "sessions", "id = ANY(%s)", (wanted,))
+
     def session(self, session_id: int) -> SessionRow:
         """Return one session; NotFound when it is not published."""
         return self._one(SessionRow, "sessions", session_id, "session")
@@ -678,7 +683,9 @@ class DepartmentStore:
         """Return {}: visits are not published to the department record (yet)."""
         return {}
 
-    def session_results(self) -> dict[int, tuple[str, str]]:
+    def session_results(
+        self, session_ids: Iterable[int] | None = None
+    ) -> dict[int, tuple[str, str]]:
         """Return {}: the department record keeps no evaluated results, so each of its sessions
         is evaluated from its published rows, by the reader's own code (whatever the version
         of the station that published it)."""

@@ -15,6 +15,8 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any, Protocol
 
 if TYPE_CHECKING:
+    from collections.abc import Iterable
+
     from chargebook.acquire.record import store
 
 
@@ -32,6 +34,10 @@ class RecordReader(Protocol):
     def listed_sessions(self) -> list[store.ListedSession]:
         """Return every session, oldest first, as a listing shows it: without its stored
         metadata and plan, with the names its metadata holds."""
+        ...
+
+    def sessions_of(self, session_ids: Iterable[int]) -> list[store.SessionRow]:
+        """Return the sessions ``session_ids`` (those recorded), oldest first."""
         ...
 
     def session(self, session_id: int) -> store.SessionRow:
@@ -68,9 +74,12 @@ class RecordReader(Protocol):
         """Return the events of one kind by session id (None: outside any session)."""
         ...
 
-    def session_results(self) -> dict[int, tuple[str, str]]:
-        """Return the kept results of closed sessions: session id -> (evaluation stamp, JSON);
-        a record that keeps none returns {} (each session is then evaluated live)."""
+    def session_results(
+        self, session_ids: Iterable[int] | None = None
+    ) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions (of ``session_ids``; None: all): session
+        id -> (evaluation stamp, JSON); a record that keeps none returns {} (each session is
+        then evaluated live)."""
         ...
 
     def readings_by_set(self, session_id: int) -> dict[int, tuple[store.ReadingRow, ...]]:

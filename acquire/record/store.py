@@ -143,6 +143,8 @@ NAMED_KEYS = ("treatment_machine", "beam", "operator")
 _NAMES_EXTRACTED = "json_extract(metadata_json, {})".format(
     ", ".join(f"'$.{key}'" for key in NAMED_KEYS)
 )
+#: A condition that ``column`` is one of the ids of a JSON array given as one parameter.
+_IN_JSON_IDS = "{} IN (SELECT value FROM json_each(?))"
 #: How much of a station file a read-only open maps into memory (SQLite maps no more than the
 #: file holds): 1 GiB, far beyond decades of daily checks.
 READ_MMAP_BYTES = 1 << 30
@@ -1208,12 +1210,20 @@ class Store:
                 (session_id, _require_text("stamp", stamp), result_json, self._stamp()),
             )
 
-    def session_results(self) -> dict[int, tuple[str, str]]:
-        """Return the kept results of closed sessions: session id -> (stamp, JSON); {} when
-        the file has lost its ``session_results`` table, or holds one of other columns (a
-        cache: each session is then evaluated live, and a writable open keeps them again)."""
+    def session_results(
+        self, session_ids: Iterable[int] | None = None
+    ) -> dict[int, tuple[str, str]]:
+        """Return the kept results of closed sessions (of ``session_ids``; None: all of them,
+        one query either way): session id -> (stamp, JSON); {} when the file has lost its
+        ``session_results`` table, or holds one of other columns (a cache: each session is then
+        evaluated live, and a writable open keeps them again)."""
+        sql = "SELECT session_id, stamp, result_json FROM session_results"
+        params: tuple[str, ...] = ()
+        if session_ids is not None:  # a history of one beam of thousands: only its sessions'
+            sql += " WHERE " + _IN_JSON_IDS.format("session_id")
+            params = (json.dumps([int(session_id) for session_id in session_ids]),)
         try:
-            rows = self.read("SELECT session_id, stamp, result_json FROM session_results")
+            rows = self.read(sql, params)
         except sqlite3.OperationalError:
             if self.results_table() == "kept":
                 raise
@@ -1280,6 +1290,12 @@ class Store:
             if known is not None:
                 known.session = row
         return row
+
+    def sessions_of(self, session_ids: Iterable[int]) -> list[SessionRow]:
+        """Return the sessions ``session_ids`` (those recorded), oldest first, in one query:
+        a history reads the whole rows of one beam's sessions, not of the station's."""
+        ids = json.dumps([int(session_id) for session_id in session_ids])
+        return self._select(SessionRow, "sessions", _IN_JSON_IDS.format("id"), (ids,))
 
     # ---------------------------------------------------------------------- reading sets
 

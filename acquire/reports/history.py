@@ -26,7 +26,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
-from chargebook.acquire.record.store import NotFound, SessionRow, StationRow
+from chargebook.acquire.record.store import ListedSession, NotFound, SessionRow, StationRow
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
 from chargebook.acquire.session.action_level import action_level_pct
@@ -296,21 +296,11 @@ def load_history_across(
     # sessions by the names typed, or those another station's registers gave: "DEMO-LA1 6 MV"
     # is machine DEMO-LA1, beam 6 MV at every station of a department.
     typed = [(beam, machine)] + ([] if registered is None else [registered.names])
-    for index, (store, here) in enumerate(zip(stores, found, strict=True)):
-        listed = [
-            row
-            for row in store.sessions()
-            if include_all or (row.status == "finished" and row.replay_of is None)
-        ]
+    for store, here in zip(stores, found, strict=True):
         if here is None:  # matched on the names, read without decoding each one's metadata
-            names = names_of(index)
-            named = ((row, names.get(row.id) or row.metadata()) for row in listed)
-            rows = [
-                (row, meta)
-                for row, meta in named
-                if any(matches(row, b, m, meta) for b, m in typed)
-            ]
+            rows = _typed_rows(store, typed, include_all)
         else:
+            listed = [row for row in store.sessions() if _listed(row, include_all)]
             decoded = ((row, row.metadata()) for row in listed)
             rows = [(row, meta) for row, meta in decoded if here.matches(row, meta)]
         entries += _entries(store, rows)
@@ -336,6 +326,50 @@ def load_history_across(
         action_pct=_action_pct(registered, entries),
         register_beam=None if registered is None else (registered.row_id, registered.name),
     )
+
+
+def _listed(row: SessionRow | ListedSession, include_all: bool) -> bool:
+    """Return True for a session a history lists: finished and not a replay, unless all."""
+    return include_all or (row.status == "finished" and row.replay_of is None)
+
+
+def _typed_rows(
+    store: RecordReader, typed: Sequence[tuple[str, str | None]], include_all: bool
+) -> list[tuple[SessionRow, Mapping[str, Any]]]:
+    """Return the listed sessions that measured one of the beams ``typed`` ((beam, machine)
+    pairs), each with the names it was matched on: matched on the names the listing reads (the
+    metadata decoded only of a session whose names are not all text), then the whole rows of
+    those sessions alone read, in one query, not the metadata and plan of the station's
+    thousands."""
+    listed = [row for row in store.listed_sessions() if _listed(row, include_all)]
+    unnamed = [row.id for row in listed if row.names is None]
+    decoded = {row.id: row.metadata() for row in store.sessions_of(unnamed)} if unnamed else {}
+    judge = _typed_judge(typed)
+    named = ((row, decoded[row.id] if row.names is None else row.names) for row in listed)
+    matched = [(row.id, names) for row, names in named if judge(row, names)]
+    whole = {row.id: row for row in store.sessions_of(session_id for session_id, _ in matched)}
+    return [(whole[session_id], names) for session_id, names in matched]
+
+
+def _typed_judge(
+    typed: Sequence[tuple[str, str | None]],
+) -> Callable[[SessionRow | ListedSession, Mapping[str, Any]], bool]:
+    """Return a test of whether a session (its row and names) measured one of the beams
+    ``typed`` ((beam, machine) pairs, as :func:`matches` takes them). A station's thousands of
+    sessions name a few machines and beams: each distinct set of names is judged once."""
+    judged: dict[tuple[object, object, object], bool] = {}
+
+    def judge(row: SessionRow | ListedSession, meta: Mapping[str, Any]) -> bool:
+        key = (row.beam, meta.get("beam"), meta.get("treatment_machine"))  # what matches reads
+        try:
+            return judged[key]
+        except KeyError:
+            found = judged[key] = any(matches(row, b, m, meta) for b, m in typed)
+        except TypeError:  # a name that is not text (a list, say): judged on its own
+            found = any(matches(row, b, m, meta) for b, m in typed)
+        return found
+
+    return judge
 
 
 def _action_pct(registered: _RegisteredBeam | None, entries: list[_Entry]) -> float | None:

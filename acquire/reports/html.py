@@ -15,7 +15,6 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Mapping, Sequence
-from html import escape
 
 from chargebook.acquire.record.review import Review, reviewer_words
 from chargebook.acquire.reports.audit import step_words
@@ -45,7 +44,7 @@ from chargebook.acquire.reports.sections import (
     set_stats,
     when,
 )
-from chargebook.acquire.reports.svg import Band, Line, Point, plot
+from chargebook.acquire.reports.svg import Band, Line, Point, escape, plot
 from chargebook.acquire.session.session_kind import OUTPUT_CHECK
 from chargebook.corrections.evaluate import Evaluation
 from chargebook.corrections.reading_scale import (

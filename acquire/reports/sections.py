@@ -35,7 +35,7 @@ from chargebook.corrections.beam_quality import quality_text
 from chargebook.corrections.conventions import constants
 from chargebook.corrections.errors import InputError
 from chargebook.corrections.evaluate import Evaluation
-from chargebook.corrections.statistics import SetStatistics, set_statistics
+from chargebook.corrections.statistics import SetSpread, set_spread
 from chargebook.corrections.student_t import dof_text
 from chargebook.corrections.uncertainty import CERTIFICATE_COVERAGE_FACTOR
 
@@ -55,14 +55,15 @@ def keyed_table(
 
 
 @functools.lru_cache(maxsize=1024)
-def set_stats(record: SetRecord) -> SetStatistics | None:
-    """Return the statistics of a set's used readings (None when there are none to judge);
-    computed once per set, although its table row and its figure both show them."""
+def set_stats(record: SetRecord) -> SetSpread | None:
+    """Return the mean and relative SD of a set's used readings, all a report shows of a set
+    (None when there are none to judge); computed once per set, although its table row and its
+    figure both show them."""
     charges = [r.charge_nC for r in record.used]
     if not charges:
         return None
     try:
-        return set_statistics(charges, f"set {record.row.id} readings")
+        return set_spread(charges, f"set {record.row.id} readings")
     except InputError:
         return None  # e.g. a leakage set that averages exactly zero
 
@@ -499,14 +500,16 @@ def flags_of(evaluation: Evaluation | None, missing: str = "No results.") -> Tab
 def audit(record: SessionRecord) -> Table:
     """Return the audit of redos, aborts, manual steps and status changes, oldest first, in
     words: "Step 6, return-to-start check: redone" (steps numbered from 1, as the console)."""
-    rows = [(when(e.recorded_at), e.actor, *event_words(record, e)) for e in record.audit()]
-    keys = [f"event-{e.id}" for e in record.audit()]
-    recorded_by = {
+    audited = record.audit()
+    rows = [(when(e.recorded_at), e.actor, *event_words(record, e)) for e in audited]
+    keys = [f"event-{e.id}" for e in audited]
+    manual = record.manual_readings
+    recorded_by = {  # who captured each reading: decoded only when one was captured by hand
         e.detail().get("reading_id"): e.actor
-        for e in record.events
+        for e in (record.events if manual else ())
         if e.kind == EventKind.READING_RECORDED
     }
-    for reading_set, reading in record.manual_readings:
+    for reading_set, reading in manual:
         rows.append(
             (
                 when(reading.recorded_at),

@@ -235,7 +235,8 @@ def stored_row(store: RecordReader, session_id: int) -> tuple[str, str] | None:
 def results_of(store: RecordReader, session_ids: Iterable[int]) -> dict[int, ResultSummary]:
     """Return the result of each session: the stored one when the running code computed it
     (its stamp), else (stale, missing, not closed) evaluated now, from what is recorded."""
-    stamp, stored = evaluation_stamp(), store.session_results()
+    session_ids = list(session_ids)
+    stamp, stored = evaluation_stamp(), store.session_results(session_ids)
     found: dict[int, ResultSummary] = {}
     for session_id in session_ids:
         row = stored.get(session_id)

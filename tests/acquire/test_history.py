@@ -18,7 +18,7 @@ from chargebook.acquire.reports.history import history_table, load_history, pars
 from chargebook.acquire.reports.html import history_html
 from chargebook.acquire.reports.text import deviation_plot
 from chargebook.corrections.errors import InputError
-from recorded_session import record_example_session
+from recorded_session import example_metadata, example_plan, record_example_session
 
 SCALES = (1.0, 1.008, 0.975, 1.0)
 #: The example's tolerance is "annual": 1 % (AAPM TG-142, from memory; see docs/physics.md).
@@ -166,3 +166,25 @@ def test_html_history_plots_each_session_against_the_band(store: Store) -> None:
     assert ["alarm" in p["class"] for p in parsed.points] == [False, False, True, False]
     (band,) = parsed.bands
     assert (float(band["data-low"]), float(band["data-high"])) == (-1.0, 1.0)
+
+
+def test_a_session_whose_names_are_not_all_text_is_matched_on_its_decoded_metadata(
+    tmp_path,
+) -> None:
+    # The listing reads the names with SQLite's JSON functions and leaves out a session whose
+    # names are not all text; history decodes that one's metadata and lists it all the same.
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as writer:
+        kept = record_example_session(writer)
+        meta = {**example_metadata(), "operator": ["A", "B"]}  # written by another program
+        odd = writer.create_session(meta, example_plan().to_dict(), meta["convention"], "6 MV")
+        writer.set_session_status(odd, "finished")
+        assert [row.names is None for row in writer.listed_sessions()] == [False, True]
+    with Store.open(path, read_only=True) as reader:
+        points = load_history(reader, "6 MV", machine="DEMO-LA1").points
+    assert [(p.session_id, p.machine, p.beam) for p in points] == [
+        (kept, "DEMO-LA1", "6 MV"),
+        (odd, "DEMO-LA1", "6 MV"),
+    ]
+    assert points[0].dose_per_MU_cGy is not None
+    assert points[1].dose_per_MU_cGy is None and "operator" in (points[1].problem or "")

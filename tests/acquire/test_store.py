@@ -640,6 +640,18 @@ def test_remembered_rows_are_the_rows_recorded_after_new_rows_status_changes_and
     assert store.readings_by_set(session_id)[first] is grouped[first]  # no reading since
 
 
+def test_some_sessions_are_read_whole_in_the_order_recorded(store: Store) -> None:
+    # history reads the whole rows of one beam's sessions only, not of the station's thousands
+    ids = [
+        store.create_session({"beam": beam}, {"steps": []}, "TRS-398", beam)
+        for beam in ("6 MV", "10 MV", "6 MV")
+    ]
+    every = {row.id: row for row in store.sessions()}
+    assert store.sessions_of([ids[2], ids[0]]) == [every[ids[0]], every[ids[2]]]
+    assert store.sessions_of(iter([ids[1], 10**6, ids[1]])) == [every[ids[1]]]  # once each
+    assert store.sessions_of([]) == []
+
+
 def test_session_names_are_what_the_decoded_metadata_names(store: Store) -> None:
     # The listing reads the machine, beam and operator with SQLite's JSON functions instead of
     # decoding each session's metadata: it must find what the decoded metadata holds.

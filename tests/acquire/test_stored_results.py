@@ -340,3 +340,17 @@ def test_a_kept_results_table_of_other_columns_is_a_missing_cache_and_is_set_asi
         ]
     assert main(["verify", "--db", str(path)]) == EXIT_OK
     assert "note:" not in capsys.readouterr().out
+
+
+def test_the_kept_results_of_some_sessions_are_read_alone(unkept, tmp_path) -> None:
+    # history reads the results of one beam's sessions, not of the station's thousands
+    path = _copy(unkept[0], tmp_path)
+    session_id = unkept[1]
+    with Store.open(path) as store:
+        assert refresh_results(store) == 1
+        every = store.session_results()
+        assert set(every) == {session_id}
+        assert store.session_results([session_id]) == every
+        assert store.session_results(iter([session_id, session_id + 1])) == every
+        assert store.session_results([session_id + 1]) == {}
+        assert store.session_results([]) == {}

@@ -387,3 +387,33 @@ def test_lines_kept_a_burst_at_a_time_show_an_edit_a_deletion_or_an_insertion(
 )
 def test_the_fast_input_link_hashes_the_same_bytes_as_the_general_one(values: tuple) -> None:
     assert chain.link_input("e" * 64, 4, values) == chain.link("e" * 64, 4, "inputs", values)
+
+
+@pytest.mark.parametrize(
+    ("table", "values"),
+    [
+        ("events", (7, 3, "2026-12-03T06:11:37+00:00", "operator Ä", "note", '{"t": "é"}', None)),
+        ("events", (8, None, "x", "a\x00b\u2028", "k\n", "{}", "account\ttab")),
+        ("readings", (3, 1, 2, 4, 1.5, -12.345678, "auto", 0, "ok", None, "t")),
+        ("readings", (3, 1, 2, 4, 1, -12, "auto", 1, "ok", 7, "t")),  # whole REALs: floats
+        ("environment", (1, 1, "t", 20, 101.325, 760.0, "mmHg", None, "typed")),
+        ("sessions", (1, "t", '{"beam": "6 MV"}', "{}", "trs398", "6 MV", None)),
+        ("reading_sets", (1, 1, 0, "ref", "routine", -1, -300.0, 1, "t")),
+    ],
+)
+def test_the_plain_link_hashes_the_same_bytes_as_the_general_one(table: str, values: tuple) -> None:
+    assert chain.plain_link("e" * 64, 4, table, values) == chain.link("e" * 64, 4, table, values)
+
+
+@pytest.mark.parametrize(
+    ("table", "values"),
+    [
+        ("readings", (3, 1, 2, 4, float("nan"), 1.0, "auto", 0, "ok", None, "t")),
+        ("events", (7, True, "x", "a", "k", "{}", None)),  # a yes/no is not an id
+        ("traffic", (1, 1, 1.0, "t", "in", b"S\n")),  # bytes: hashed as hex by the general path
+    ],
+)
+def test_a_row_the_plain_link_cannot_write_is_left_to_the_general_one(
+    table: str, values: tuple
+) -> None:
+    assert chain.plain_link("e" * 64, 4, table, values) is None

@@ -12,9 +12,10 @@ from chargebook.corrections.statistics import (
     median,
     modified_z_scores,
     relative_sd_pct,
+    set_spread,
     set_statistics,
 )
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 READINGS = [20.112, 20.118, 20.109, 20.115, 20.111, 20.121]
@@ -184,3 +185,38 @@ def test_the_median_is_numpys_bit_for_bit(rows: list[list[float]], count: int) -
     assert type(one) is type(expected_one)
     assert np.array_equal(one, expected_one, equal_nan=True)
     assert np.signbit(one) == np.signbit(expected_one)
+
+
+def test_a_sets_spread_matches_the_standard_library_and_its_full_statistics() -> None:
+    # Reference library: Python's statistics module (mean, sample stdev with n − 1); the
+    # values a report shows of a set are its full statistics', bit for bit.
+    spread, full = set_spread(READINGS), set_statistics(READINGS)
+    assert spread.count == 6
+    assert spread.mean_nC == pytest.approx(reference.mean(READINGS), rel=1e-15)
+    assert spread.relative_sd_pct == pytest.approx(
+        100 * reference.stdev(READINGS) / reference.mean(READINGS), rel=1e-12
+    )
+    assert (spread.mean_nC, spread.relative_sd_pct) == (full.mean_nC, full.relative_sd_pct)
+
+
+@settings(max_examples=200)
+@given(st.lists(st.floats(min_value=-1e3, max_value=1e3), min_size=1, max_size=20))
+def test_a_sets_spread_is_its_full_statistics_bit_for_bit(readings: list[float]) -> None:
+    try:
+        full = set_statistics(readings)
+    except InputError:  # averages zero: refused alike
+        with pytest.raises(InputError, match="averages zero"):
+            set_spread(readings)
+        return
+    spread = set_spread(readings)
+    assert (spread.count, spread.mean_nC, spread.relative_sd_pct) == (
+        full.count,
+        full.mean_nC,
+        full.relative_sd_pct,
+    )
+
+
+@pytest.mark.parametrize("readings", [[], [float("nan")], "12.1", [1e30]])
+def test_a_bad_set_has_no_spread(readings: object) -> None:
+    with pytest.raises(InputError, match="readings_nC"):
+        set_spread(readings)  # type: ignore[arg-type]
