@@ -714,6 +714,14 @@ def restore_session_results(db: Database) -> bool:
     return True
 
 
+def _input_log_sample_runs(db: Database) -> None:
+    """Mark the files whose input log may hold ``sample_run`` entries (a run of pushed samples
+    that only moved the charge, logged as one entry naming its raw lines: see
+    ``acquire/engine/inputs.py``). The tables do not change; the version does, so that a
+    chargebook that knows only one entry per sample refuses the file in words ("open it with
+    the newer chargebook") instead of verifying it and then failing to replay it."""
+
+
 #: Every migration ever shipped, oldest first. Never edit or reorder one: append a new one.
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("create_core_tables", _create_core_tables),
@@ -725,6 +733,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("input_log", _input_log),
     Migration("visits", _visits),
     Migration("session_results", _session_results),
+    Migration("input_log_sample_runs", _input_log_sample_runs),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)
