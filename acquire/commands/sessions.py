@@ -57,7 +57,7 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
         if args.status and session.status != args.status:
             continue
         meta = session.names
-        meta = store.session(session.id).metadata() if meta is None else meta
+        meta = _decoded_metadata(store, session.id) if meta is None else meta
         if not matches(session, args.beam, args.machine, meta):
             continue
         sets, accepted = set_counts.get(session.id, (0, 0))
@@ -88,6 +88,26 @@ def _rows(store: RecordReader, args: argparse.Namespace) -> list[dict]:
             }
         )
     return rows
+
+
+def _decoded_metadata(store: RecordReader, session_id: int) -> dict:
+    """Return a session's decoded metadata; {} when it is not a JSON object (listed without
+    its names, and said on stderr: the rest of the listing is still shown)."""
+    import sys
+
+    try:
+        meta = store.session(session_id).metadata()
+    except ValueError:  # json.JSONDecodeError
+        meta = None
+    if isinstance(meta, dict):
+        return meta
+    print(
+        f"chargebook: session {session_id}: its stored metadata is not a JSON object, so it "
+        f"is listed without machine, beam or operator (`chargebook verify {session_id}` checks "
+        "its record)",
+        file=sys.stderr,
+    )
+    return {}
 
 
 def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> int:

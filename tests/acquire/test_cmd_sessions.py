@@ -7,6 +7,7 @@ The station is a real SQLite file holding the invented example worksheet (Exampl
 from __future__ import annotations
 
 import json
+import sqlite3
 import subprocess
 import sys
 from pathlib import Path
@@ -173,3 +174,21 @@ def test_a_station_without_visits_lists_no_visit_column(station: Path, capsys) -
     assert main(["sessions", "--db", str(station)]) == EXIT_OK
     header = capsys.readouterr().out.splitlines()[0]
     assert header.split()[-2:] == ["replay", "of"]
+
+
+def test_a_session_whose_metadata_is_not_json_is_listed_without_names_and_said(
+    tmp_path: Path, capsys
+) -> None:
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as store:
+        for machine in ("DEMO-LA3", "DEMO-LA4"):
+            meta = {"treatment_machine": machine, "beam": "6 MV"}
+            store.create_session(meta, {"steps": []}, "TRS-398", "6 MV")
+    with sqlite3.connect(path) as db:  # damaged by hand, its guard dropped: not JSON at all
+        db.execute("DROP TRIGGER sessions_refuse_fact_change")
+        db.execute("UPDATE sessions SET metadata_json = '{not json' WHERE id = 1")
+    assert main(["sessions", "--db", str(path), "--json"]) == EXIT_OK
+    captured = capsys.readouterr()
+    rows = json.loads(captured.out)
+    assert [(r["id"], r["treatment_machine"]) for r in rows] == [(1, None), (2, "DEMO-LA4")]
+    assert "session 1: its stored metadata is not a JSON object" in captured.err
