@@ -165,7 +165,7 @@ def placed_inputs(
     found: list[LoggedInput] = []
     position = 0
     for row in logged:
-        given = inputs.from_logged(row.kind, row.actor, row.detail())
+        given = _logged_input(row)
         line, count = None, 1
         if isinstance(given, inputs.Sample | inputs.SampleRun):
             named = given.line_ids if isinstance(given, inputs.SampleRun) else [given.line_id]
@@ -177,6 +177,42 @@ def placed_inputs(
                 position += 1
         found.append(LoggedInput(position, given, row.id, line, count))
     return found
+
+
+def _logged_input(row: InputRow) -> inputs.Input:
+    """Return the input a row of the log holds; NotReplayable, in words, for a row whose detail
+    is not what its kind holds (a field missing, unknown, or of another type: edited by hand,
+    which ``verify`` names too)."""
+    try:
+        given = inputs.from_logged(row.kind, row.actor, row.detail())
+        if isinstance(given, inputs.Sample | inputs.SampleRun):
+            _check_sample_fields(given)
+    except (TypeError, ValueError) as error:
+        raise NotReplayable(
+            f"input {row.id} of session {row.session_id} ({row.kind}) cannot be read from the "
+            f"input log: {error} (`chargebook verify {row.session_id}` checks the record)"
+        ) from None
+    return given
+
+
+def _check_sample_fields(given: inputs.Sample | inputs.SampleRun) -> None:
+    """Raise TypeError unless a logged sample's or run's values have the types replay reads."""
+    numbers = {"t_s": given.t_s, "charge_nC": given.charge_nC}
+    if isinstance(given, inputs.SampleRun):
+        wholes = {"first_line_id": given.first_line_id, "count": given.count}
+        texts = {"digest": given.digest, "status": given.status}
+    else:
+        wholes = {} if given.line_id is None else {"line_id": given.line_id}
+        texts = {"status": given.status}
+    for name, value in numbers.items():
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise TypeError(f"{name} is {value!r}, not a number")
+    for name, value in wholes.items():
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise TypeError(f"{name} is {value!r}, not a whole number of at least 1")
+    for name, value in texts.items():
+        if not isinstance(value, str):
+            raise TypeError(f"{name} is {value!r}, not text")
 
 
 def _received_lines(

@@ -24,6 +24,7 @@ from chargebook.acquire.engine import inputs
 from chargebook.acquire.protocol import Method
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_session
+from chargebook.acquire.replay.recording import NotReplayable
 from chargebook.acquire.replay.session_replay import ReplayRequest, replay_session
 from chargebook.acquire.replay.traffic import Divergence
 from chargebook.drivers_generic.interface import ReadingStatus, Sample
@@ -121,10 +122,26 @@ async def _flood_then_abort(world, count: int) -> None:
             bench.flood(0, count)
             while last_traffic_id(world.db) - first < count:
                 await asyncio.sleep(0.05)
+        await _engine_caught_up(client)
         await client.call(Method.SESSION_PAUSE)
         await client.call(Method.SESSION_ABORT, reason="flood recorded", confirm=True)
     finally:
         await client.close()
+
+
+async def _engine_caught_up(client) -> None:
+    """Wait until the engine has taken the last committed lines: a line is committed before
+    the engine hears of it, so a pause sent as soon as the last one is on disk can reach the
+    engine before that line's sample, which the paused reading then never takes. The flood is
+    over, so the live reading stops moving once the engine has them all."""
+    before = None
+    while True:
+        live = (await client.status())["live"]
+        now = (live["elapsed_s"], live["charge_nC"])
+        if now == before:
+            return
+        before = now
+        await asyncio.sleep(0.25)
 
 
 def _record_flood(target: Path) -> tuple[Path, int]:
@@ -248,4 +265,26 @@ def test_an_altered_run_entry_is_reported_by_verify_and_replay(flooded, tmp_path
         problems = verify_session(store, session_id).problems
     assert problems and any(p.table == "inputs" and p.row_id == input_id for p in problems)
     with pytest.raises(Divergence, match=f"input {input_id}.*digest"):
+        replay_session(ReplayRequest(copy, session_id, speed=0, dry_run=True))
+
+
+@pytest.mark.parametrize(
+    ("edit", "named"),
+    [
+        ("json_set(detail_json, '$.count', 'ten')", "count is 'ten'"),
+        ("json_set(detail_json, '$.count', 1.5)", "count is 1.5"),
+        ("json_set(detail_json, '$.first_line_id', json('null'))", "first_line_id is None"),
+        ("json_remove(detail_json, '$.digest')", "digest"),
+    ],
+)
+def test_a_run_entry_edited_out_of_shape_is_refused_in_words(flooded, tmp_path, edit, named):
+    db, session_id = flooded
+    input_id, _, _ = _run_entry(db, session_id)
+    copy = _tampered(
+        flooded,
+        tmp_path,
+        "DROP TRIGGER inputs_refuse_update",
+        f"UPDATE inputs SET detail_json = {edit} WHERE id = {input_id}",
+    )
+    with pytest.raises(NotReplayable, match=f"input {input_id} .*sample_run.*{named}"):
         replay_session(ReplayRequest(copy, session_id, speed=0, dry_run=True))

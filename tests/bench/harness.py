@@ -11,6 +11,7 @@ Everything lives in a scratch directory on disk (not in memory), removed at the 
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import os
 import shutil
@@ -204,7 +205,31 @@ async def collecting_daemon(world: Station, plan: Path = FLOOD_PLAN) -> DaemonCl
     if snapshot["state"] != "collecting":
         await client.close()
         raise RuntimeError(f"the daemon is {snapshot['state']}, not collecting")
+    await commands_answered(world.db)
     return client
+
+
+async def commands_answered(db: Path, deadline_s: float = 30.0) -> None:
+    """Wait until the instrument has answered every command the daemon sent in the newest
+    session (as many lines received as sent: the quiet stream pushes none of its own). The arm
+    request returns before the electrometer acknowledged its start; lines pushed before that
+    are older than the reading and are not taken, so a flood waits for this.
+
+    Raises RuntimeError when the answers are not all recorded within ``deadline_s``.
+    """
+    sql = (
+        "SELECT count(*), coalesce(sum(direction = 'rx'), 0) FROM traffic "
+        "WHERE session_id = (SELECT max(id) FROM sessions)"
+    )
+    waited_s = 0.0
+    while True:
+        ((lines, received),) = read_db(db, sql)
+        if lines and 2 * received >= lines:
+            return
+        if waited_s >= deadline_s:
+            raise RuntimeError(f"{lines - received} command(s) unanswered after {deadline_s} s")
+        await asyncio.sleep(0.02)
+        waited_s += 0.02
 
 
 def read_db(db: Path, sql: str, params: tuple = ()) -> list[tuple]:
