@@ -19,6 +19,7 @@ facts, and are never deleted.
 
 from __future__ import annotations
 
+import re
 import socket
 import uuid
 from collections.abc import Callable
@@ -683,12 +684,14 @@ SESSION_RESULTS_COLUMNS = ("session_id", "stamp", "result_json", "evaluated_at")
 
 def session_results_shape(conn: sqlite3.Connection) -> str:
     """Return what the file holds of ``session_results``: "kept" (the table its migration
-    made), "missing" (none), or "other" (a table of that name with other columns, made by
-    hand: not one chargebook can read or write)."""
-    columns = tuple(row[1] for row in conn.execute("PRAGMA table_info(session_results)"))
-    if not columns:
+    made), "missing" (none), or "other" (a table of that name with other columns, or a view,
+    made by hand: not one chargebook can read or write)."""
+    found = conn.execute("SELECT type FROM sqlite_master WHERE name = 'session_results'")
+    kind = found.fetchone()
+    if kind is None:
         return "missing"
-    return "kept" if columns == SESSION_RESULTS_COLUMNS else "other"
+    columns = tuple(row[1] for row in conn.execute("PRAGMA table_info(session_results)"))
+    return "kept" if kind[0] == "table" and columns == SESSION_RESULTS_COLUMNS else "other"
 
 
 def restore_session_results(db: Database) -> bool:
@@ -703,15 +706,28 @@ def restore_session_results(db: Database) -> bool:
     if shape == "kept":
         return False
     if shape == "other":
-        taken = set(db.table_names())
-        aside = next(
-            name
-            for n in range(1, len(taken) + 2)
-            if (name := "session_results_set_aside" + ("" if n == 1 else f"_{n}")) not in taken
-        )
-        db.execute(f"ALTER TABLE session_results RENAME TO {aside}")
+        _set_aside_session_results(db)
     _session_results(db)
     return True
+
+
+def _set_aside_session_results(db: Database) -> None:
+    """Rename a ``session_results`` that is not chargebook's to the first free name of
+    ``session_results_set_aside``, ``_2``, ...: a table keeps its rows, a view its query."""
+    kind, sql = db.conn.execute(
+        "SELECT type, sql FROM sqlite_master WHERE name = 'session_results'"
+    ).fetchone()
+    taken = {name for (name,) in db.conn.execute("SELECT name FROM sqlite_master")}
+    aside = next(
+        name
+        for n in range(1, len(taken) + 2)
+        if (name := "session_results_set_aside" + ("" if n == 1 else f"_{n}")) not in taken
+    )
+    if kind == "view":  # SQLite renames no view: made again under the new name
+        db.execute("DROP VIEW session_results")
+        db.execute(re.sub(r"session_results", aside, sql, count=1))
+    else:
+        db.execute(f"ALTER TABLE session_results RENAME TO {aside}")
 
 
 def _input_log_sample_runs(db: Database) -> None:

@@ -26,6 +26,7 @@ from chargebook.acquire.session.stored_result import (
     ResultSummary,
     evaluate_summary,
     evaluation_stamp,
+    missing_results,
     refresh_results,
     stored_row,
 )
@@ -68,8 +69,9 @@ def _edit_result(path: Path, sql_expression: str) -> None:
         db.execute(f"UPDATE session_results SET result_json = {sql_expression}")
 
 
-def test_the_migration_is_appended_last_under_its_name() -> None:
-    assert MIGRATIONS[-1].name == "session_results"
+def test_the_migration_is_appended_after_the_input_log_and_visits_under_its_name() -> None:
+    names = [migration.name for migration in MIGRATIONS]
+    assert names.index("session_results") == names.index("visits") + 1
 
 
 def test_a_session_recorded_before_results_were_kept_is_evaluated_live_then_refreshed(
@@ -354,3 +356,29 @@ def test_the_kept_results_of_some_sessions_are_read_alone(unkept, tmp_path) -> N
         assert store.session_results(iter([session_id, session_id + 1])) == every
         assert store.session_results([session_id + 1]) == {}
         assert store.session_results([]) == {}
+
+
+def test_a_kept_results_view_made_by_hand_is_set_aside_as_a_view(unkept, tmp_path) -> None:
+    path = _copy(unkept[0], tmp_path)
+    session_id = unkept[1]
+    with sqlite3.connect(path) as db:  # a view of the same columns: nothing can be kept in it
+        db.execute("DROP TABLE session_results")
+        db.execute(
+            "CREATE VIEW session_results AS SELECT id AS session_id, 'x' AS stamp, "
+            "'{}' AS result_json, created_at AS evaluated_at FROM sessions"
+        )
+    with Store.open(path, read_only=True) as store:  # its rows bear no stamp of this code
+        assert store.results_table() == "other"
+        assert missing_results(store)[0].startswith("the kept session results (table ")
+        (point,) = load_history(store, BEAM).points  # evaluated live
+    assert point.dose_per_MU_cGy == unkept[2]["dose_per_MU_cGy"]
+    with Store.open(path) as store:  # as the daemon opens it
+        assert store.results_table() == "kept"
+        assert refresh_results(store) == 1
+        assert session_id in store.session_results()
+    with sqlite3.connect(path) as db:  # the view is kept, under its new name
+        kinds = dict(
+            db.execute("SELECT name, type FROM sqlite_master WHERE name LIKE 'session_r%'")
+        )
+        assert kinds == {"session_results": "table", "session_results_set_aside": "view"}
+        assert db.execute("SELECT count(*) FROM session_results_set_aside").fetchone()[0] >= 1
