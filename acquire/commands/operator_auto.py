@@ -213,9 +213,12 @@ class AutoOperator:
                 )
             return await self.client.call(Method.STEP_ARM)
         seq = snapshot["seq"]
-        return await self.client.wait_for_snapshot(
-            lambda s: s["seq"] > seq, timeout_s=self.stall_timeout_s
-        )
+        try:
+            return await self.client.wait_for_snapshot(
+                lambda s: s["seq"] > seq, timeout_s=self.stall_timeout_s
+            )
+        except TimeoutError:
+            raise AutoOperatorError(stalled(snapshot, self.stall_timeout_s)) from None
 
     def _report(self, snapshot: dict[str, Any]) -> None:
         if self.on_reading is None:
@@ -231,3 +234,25 @@ def _needs_beam(snapshot: dict[str, Any]) -> bool:
     index = snapshot["step_index"]
     plan = snapshot["plan"]
     return index is not None and index < len(plan) and plan[index]["mu_per_reading"] > 0
+
+
+def stalled(snapshot: dict[str, Any], waited_s: float) -> str:
+    """Return, in words, why an unattended session gave up waiting: nothing changed in
+    ``waited_s`` seconds; what the daemon says of the electrometer; what became of the
+    session (left open, recorded as it stood)."""
+    instrument = snapshot["instrument"]
+    state = "connected" if instrument["connected"] else "not reachable"
+    said = f" ({instrument['message']})" if instrument["message"] else ""
+    session = (snapshot.get("session") or {}).get("id")
+    left = (
+        ""
+        if session is None
+        else (
+            f"; session {session} is left open as recorded: resume it with `chargebook serve` "
+            "and `chargebook console`, or abort it there"
+        )
+    )
+    return (
+        f"nothing changed for {waited_s:.0f} s while the session waited on the electrometer, "
+        f"which is {state}{said}{left}"
+    )

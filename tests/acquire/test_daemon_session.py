@@ -195,6 +195,26 @@ async def test_the_instrument_disconnected_mid_set_then_back(daemon, metadata):
         assert kept <= {r.id for r in store.readings(final["session"]["id"])}
 
 
+async def test_an_unattended_run_gives_up_in_words_when_the_electrometer_stays_away(
+    daemon, metadata
+):
+    client, operator = await daemon.operator(stall_timeout_s=1.0)
+    snapshot = await operator.start(metadata)
+    snapshot = await operator.run_until(snapshot, collecting_with(1))
+    await daemon.stop_time()
+    daemon.sim.wire.unplug()
+    daemon.time.advance(0.05)  # one poll interval: the daemon reads, and finds no instrument
+    lost = await client.wait_for_snapshot(state_is("interrupted"), 20)
+    with pytest.raises(AutoOperatorError) as gave_up:
+        await operator.run_until(lost, state_is("finished"))
+    said = str(gave_up.value)
+    assert said.startswith("nothing changed for 1 s while the session waited on the electrometer")
+    assert "which is not reachable (" in said
+    assert f"session {lost['session']['id']} is left open as recorded" in said
+    await client.close()
+    daemon.sim.wire.plug()
+
+
 async def test_malformed_messages_from_one_client_leave_another_undisturbed(daemon, metadata):
     good, operator = await daemon.operator()
     snapshot = await operator.start(metadata)
