@@ -148,6 +148,7 @@ def run(args: argparse.Namespace) -> int:
         save_traffic_log,
     )
     from chargebook.corrections.errors import InputError
+    from chargebook.drivers_generic import ProfileError
 
     db_path = Path(args.db or default_db_path())
     if not db_path.is_file():  # the input cannot be used: status 2, as for every command
@@ -167,14 +168,21 @@ def run(args: argparse.Namespace) -> int:
         if args.time_scale is not None and not args.time_scale > 0:
             raise InputError("--time-scale", args.time_scale, "a number above 0")
         thresholds = threshold_values(args)
+        _check_what_every_replay_uses(args, thresholds)
     except NotFound as error:
         print(f"chargebook replay: {error}{listed_hint(error)}", file=sys.stderr)
         return EXIT_INVALID_INPUT
-    except (NotReplayable, InputError) as error:
+    except (NotReplayable, InputError, ProfileError) as error:
         print(f"chargebook replay: {error}; nothing was written", file=sys.stderr)
         return EXIT_INVALID_INPUT
     with StationReplays(db_path) as replays:  # the file opened once for every session
-        if len(sessions) == 1 and args.visit is None:
+        if not args.dry_run and len(sessions) > 1:
+            try:  # a daemon holding the file stops every replay: said once, not per session
+                replays.station()
+            except NotReplayable as error:
+                print(f"chargebook replay: {error}; nothing was written", file=sys.stderr)
+                return EXIT_INVALID_INPUT
+        if len(args.session) == 1 and args.visit is None:
             outcome = _replay_one(args, replays, sessions[0], thresholds)
             _print(lambda: _print_one(outcome, args.json))
             return outcome.status
@@ -186,6 +194,22 @@ def run(args: argparse.Namespace) -> int:
                 _print(functools.partial(_print_one, outcome, False, caution=False))
     _print(lambda: _print_many(outcomes, args))
     return max(outcome.status for outcome in outcomes)
+
+
+def _check_what_every_replay_uses(args: argparse.Namespace, thresholds: dict[str, object]) -> None:
+    """Raise InputError or ProfileError, once, for a --plan, --profile or threshold that no
+    replay could use, before any session is replayed (each would refuse it in the same words)."""
+    from chargebook.acquire.session import rules
+    from chargebook.corrections.stability import Thresholds
+    from chargebook.drivers_generic import load_profile
+
+    if args.plan is not None:
+        rules.resolve_plan(args.plan)
+    if args.profile is not None:
+        load_profile(args.profile)
+    if thresholds:
+        defaults = {f: getattr(Thresholds(), f) for f in Thresholds.__dataclass_fields__}
+        rules.thresholds_from_dict({**defaults, **thresholds})
 
 
 def _session_ids(args: argparse.Namespace, db_path: Path) -> list[int]:

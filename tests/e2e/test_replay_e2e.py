@@ -743,6 +743,47 @@ def test_a_request_for_several_sessions_that_cannot_be_used_is_refused_naming_it
     assert file_state(station.db) == before
 
 
+@pytest.mark.parametrize(
+    ("options", "named"),
+    [
+        (["--threshold", "nonsense=1"], "thresholds.nonsense"),
+        (["--plan", "no-such-plan"], "no-such-plan"),
+        (["--profile", "no-such-profile"], "no-such-profile"),
+    ],
+)
+def test_a_mistake_every_replay_would_make_is_said_once_before_any_replay(
+    station: Station, capsys, options, named
+):
+    before = file_state(station.db)
+    sessions = [str(station.clean), str(station.redone), str(station.pushed)]
+    status = main(["replay", *sessions, "--db", str(station.db), "--speed", "0", *options])
+    captured = capsys.readouterr()
+    assert status == 2 and captured.out == ""
+    (said,) = captured.err.strip().splitlines()  # once, not once a session
+    assert named in said and said.endswith("nothing was written")
+    assert file_state(station.db) == before
+
+
+def test_a_daemon_holding_the_file_is_said_once_for_several_sessions(station: Station, capsys):
+    db = copy_of(station, "held-many.sqlite")
+    before = file_state(db)
+    with StationLock(db):  # as a running daemon holds it
+        status = main(["replay", str(station.clean), str(station.redone), "--db", str(db)])
+        captured = capsys.readouterr()
+    assert status == 2 and captured.out == ""
+    (said,) = captured.err.strip().splitlines()
+    assert "the replay cannot be stored" in said and "--dry-run" in said
+    assert file_state(db) == before
+
+
+def test_a_session_given_twice_is_replayed_once_and_the_run_is_counted(station: Station, capsys):
+    clean = str(station.clean)
+    assert main(["replay", clean, clean, "--db", str(station.db), "--dry-run", "--speed", "0"]) == 0
+    out = capsys.readouterr().out
+    assert out.count("reproduced exactly") >= 1
+    assert "the sessions given: 1 session(s), 1 replayed, 1 reproduced exactly" in out
+
+
 # ---------------------------------------------------------------------------- bad requests
 def replay_in_process(capsys, db: Path, session_id: int, *options: str) -> tuple[int, str]:
     """Run `chargebook replay` in this process (for refusals, which start nothing)."""
