@@ -22,7 +22,10 @@ from chargebook.acquire.engine import driver_commands
 from chargebook.acquire.engine.engine import Engine
 from chargebook.acquire.record.store import Store
 from chargebook.drivers_generic.interface import TrafficDirection
-from chargebook.drivers_generic.simulator.memory_wire import in_process_electrometer
+from chargebook.drivers_generic.simulator.memory_wire import (
+    InProcessElectrometer,
+    in_process_electrometer,
+)
 
 
 def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(tmp_path: Path):
@@ -44,14 +47,20 @@ def test_the_operator_is_told_how_many_lines_are_held_and_when_the_bound_nears(t
     assert "session.start" in daemon.engine.snapshot()["allowed"]
 
 
-def test_a_line_nobody_waits_for_is_not_posted_and_waits_for_the_next_commit() -> None:
-    received: list[bytes] = []
+def _pushing_electrometer(received: list[bytes]) -> InProcessElectrometer:
+    """Return the simulated electrometer (push-exponent dialect, in process) whose driver
+    appends each line it receives to ``received``."""
 
     def heard(direction: TrafficDirection, t_s: float, raw: bytes) -> None:
         if direction == TrafficDirection.RECEIVED:
             received.append(raw)
 
-    sim = in_process_electrometer("push-exponent", traffic=heard)
+    return in_process_electrometer("push-exponent", traffic=heard)
+
+
+def test_a_line_nobody_waits_for_is_not_posted_and_waits_for_the_next_commit() -> None:
+    received: list[bytes] = []
+    sim = _pushing_electrometer(received)
     posted: list[str] = []
     commits: list[float] = []
     link = InstrumentLink(
@@ -96,12 +105,7 @@ def _until(condition: Callable[[], bool], limit_s: float = 20.0) -> bool:
 
 def test_the_port_is_read_on_while_a_commit_waits_and_nothing_is_posted_before_it() -> None:
     received: list[bytes] = []
-
-    def heard(direction: TrafficDirection, t_s: float, raw: bytes) -> None:
-        if direction == TrafficDirection.RECEIVED:
-            received.append(raw)
-
-    sim = in_process_electrometer("push-exponent", traffic=heard)
+    sim = _pushing_electrometer(received)
     posted: list[str] = []
     hold, holding, release = threading.Event(), threading.Event(), threading.Event()
     waiting: list[int] = []  # lines received when the held commit began
