@@ -8,7 +8,9 @@ Three parts, wired here:
   polled at :data:`POLL_INTERVAL_S` in query mode), records every raw line as traffic, and
   reconnects with backoff when the instrument goes away. The raw lines of one burst (a pushed
   stream drained up to :data:`MAX_SAMPLES_PER_BATCH` lines, or one command's exchange) are
-  committed together, before the engine hears of any sample among them;
+  committed together, before the engine hears of any sample among them, by its
+  :class:`~chargebook.acquire.daemon.committer.Committer` thread, while it reads the next
+  ones (one transaction for all the lines read during the previous commit);
 * the :class:`~chargebook.acquire.engine.engine.Engine`, driven only from the asyncio loop;
 * the :class:`~chargebook.acquire.daemon.server.RpcServer` on the Unix socket.
 
