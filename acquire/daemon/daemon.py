@@ -8,7 +8,9 @@ Three parts, wired here:
   polled at :data:`POLL_INTERVAL_S` in query mode), records every raw line as traffic, and
   reconnects with backoff when the instrument goes away. The raw lines of one burst (a pushed
   stream drained up to :data:`MAX_SAMPLES_PER_BATCH` lines, or one command's exchange) are
-  committed together, before the engine hears of any sample among them;
+  committed together, before the engine hears of any sample among them, by its
+  :class:`~chargebook.acquire.daemon.committer.Committer` thread, while it reads the next
+  ones (one transaction for all the lines read during the previous commit);
 * the :class:`~chargebook.acquire.engine.engine.Engine`, driven only from the asyncio loop;
 * the :class:`~chargebook.acquire.daemon.server.RpcServer` on the Unix socket.
 
@@ -34,6 +36,7 @@ from typing import Any
 
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
+from chargebook.acquire.daemon.committer import RETRY_S, Committer
 from chargebook.acquire.daemon.server import Connection, RpcServer
 from chargebook.acquire.engine import driver_commands, inputs
 from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
@@ -107,11 +110,11 @@ MAX_HELD_LINES = 200_000
 HELD_WARNING_SHARE = 0.8
 #: How often the daemon checks that its database and -wal files are the ones it opened, s.
 FILES_CHECK_S = 1.0
-#: How often commits that failed are tried again, s.
-RETRY_S = 0.5
 #: How long a commit of raw lines waits for another program's write lock, ms: the lines are
 #: held meanwhile, so the instrument thread never stops reading the port for long.
 LINES_WAIT_MS = 200
+#: Longest wait, as the instrument thread ends, for the last commit of its lines, s.
+STOP_COMMIT_S = 4.0
 
 
 class LineRef:
@@ -169,8 +172,10 @@ class InstrumentLink(threading.Thread):
     :data:`SampleChunk`)), ``connected`` (identity text or None),
     ``lost`` (message) and ``fault`` (message).
     ``flush()`` commits the raw lines recorded so far and returns False when the record cannot
-    commit; it is called before every ``post`` and after every turn of the thread's loop, so no
-    line waits longer than one turn; except that while samples are read, lines that nothing is
+    commit; a :class:`Committer` calls it, in a thread of its own, before every ``post`` and
+    after every turn of this thread's loop, so no line waits longer than one turn, and this
+    thread reads on while the commit waits for its fsync (group commit: the lines read
+    meanwhile go in the next one); except that while samples are read, lines that nothing is
     posted after (the answers to the commands that re-arm a reading, stale samples) wait for the
     next post's commit, at most :data:`LINES_COMMIT_S`: one commit (one fsync) a reading, not
     one for the commands and another for the sample. What the engine must hear of after lines
@@ -192,7 +197,8 @@ class InstrumentLink(threading.Thread):
         super().__init__(name="instrument", daemon=True)
         self.electrometer = electrometer
         self.post = post
-        self.flush = flush
+        #: Commits the lines and posts what follows them, while this thread reads on.
+        self.committer = Committer(flush, post)
         self.line_of = line_of  # the latest line received: the one a sample just read came from
         #: The LineRefs of the lines received since it was last called, and how many lines each
         #: stands for (it forgets them as it tells them).
@@ -214,8 +220,6 @@ class InstrumentLink(threading.Thread):
         self._timeouts = 0
         self._next_poll_s = 0.0
         self._quit = threading.Event()
-        self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit
-        self._flushed_at = 0.0  # when the raw lines were last committed (time.monotonic)
         self._burst_lines = 0  # how many lines the last burst of pushed lines brought
         self._reply_note: str | None = None  # the driver's note on late or slow answers
         self.backlog_full = False
@@ -241,6 +245,7 @@ class InstrumentLink(threading.Thread):
 
     # -- the thread ----------------------------------------------------------------------------
     def run(self) -> None:
+        self.committer.start()
         try:
             while not self._quit.is_set():
                 if not self.connected:
@@ -250,22 +255,16 @@ class InstrumentLink(threading.Thread):
         finally:
             with contextlib.suppress(Exception):
                 self.electrometer.close()
-            self._release()
+            self.committer.stop(STOP_COMMIT_S)
 
     def _hand_over(self, kind: str, payload: Any) -> None:
-        """Commit the raw lines recorded so far, then post ``kind`` to the engine's loop (held,
-        in order, while the lines cannot be committed)."""
-        self._held.append((kind, payload))
-        self._release()
+        """Have the raw lines recorded so far committed, then ``kind`` posted to the engine's
+        loop (held, in order, while the lines cannot be committed)."""
+        self.committer.hand_over(kind, payload)
 
     def _release(self) -> None:
-        """Commit the raw lines recorded so far; if that worked, post what was held."""
-        self._flushed_at = time.monotonic()
-        if not self.flush() or not self._held:
-            return
-        held, self._held = self._held, []
-        for kind, payload in held:
-            self.post(kind, payload)
+        """Have the raw lines recorded so far committed, and what was held posted."""
+        self.committer.commit_soon()
 
     def _connect(self) -> None:
         delay_s = RECONNECT_FIRST_S
@@ -279,7 +278,7 @@ class InstrumentLink(threading.Thread):
                 log.log(level, "electrometer not reachable (%s); retrying in %.1f s", why, delay_s)
                 if why != said:
                     said = why
-                    self.post("unreachable", f"electrometer not reachable: {why}")
+                    self._hand_over("unreachable", f"electrometer not reachable: {why}")
                 self._drain_while_away()
                 if self._quit.wait(delay_s):
                     return
@@ -374,7 +373,12 @@ class InstrumentLink(threading.Thread):
         and the lines last committed less than LINES_COMMIT_S ago: then the lines wait for the
         commit before the next post (a sample's), which records them all at once."""
         sampling = self.generation is not None and not self.backlog_full
-        if sampling and not self._held and time.monotonic() - self._flushed_at < LINES_COMMIT_S:
+        committer = self.committer
+        if (
+            sampling
+            and not committer.holding()
+            and time.monotonic() - committer.flushed_at < LINES_COMMIT_S
+        ):
             return
         self._release()
 
@@ -702,7 +706,7 @@ class Daemon:
         return read
 
     def _commit_traffic(self) -> bool:
-        """Commit the raw lines kept so far in one transaction (instrument thread only); return
+        """Commit the raw lines kept so far in one transaction (committer thread only); return
         False when the record cannot commit: the store keeps the lines, in order, for the next try
         (they go first in whatever commits next, so the chain keeps the order things happened).
         """
@@ -748,7 +752,7 @@ class Daemon:
         self._tell_held_lines()
 
     def _tell_held_lines(self) -> None:
-        """Tell the loop why lines are held and how many (instrument thread only)."""
+        """Tell the loop why lines are held and how many (committer thread only)."""
         assert self.store is not None
         held = self.store.kept_traffic_count() if self._lines_fault is not None else 0
         told = (self._lines_fault, held * 20 // MAX_HELD_LINES)  # in steps of 5 % of the bound
