@@ -247,3 +247,10 @@ async def test_the_step_panel_keeps_its_height_when_the_prompt_takes_fewer_lines
     assert "Do now: Deliver 100 MU now (reading 1 of 4)." in shown
     assert len(lines) == height and lines[-1] == ""  # a blank line keeps the height
     assert "StepPanel" not in laid_out
+
+
+def test_a_step_without_a_set_shows_no_count_of_more_flags() -> None:
+    from chargebook.tui.widgets.reading_set import flag_summary_lines
+
+    assert not any("more flag" in line for line in flag_summary_lines(None))
+    assert not any(line.startswith("+-") for line in flag_summary_lines({"readings": []}))

@@ -43,7 +43,7 @@ class RegisterPickScreen(Dialog[dict[str, int] | None]):
                 yield Label(label)
                 yield Select(
                     options(self.rows, kind),
-                    prompt=f"choose a {kind}",
+                    prompt=f"choose {'an' if kind[:1] in 'aeiou' else 'a'} {kind}",
                     id=f"pick-{kind}",
                     compact=True,
                 )

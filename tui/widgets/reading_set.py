@@ -103,7 +103,9 @@ def flag_summary_lines(set_info: dict[str, Any] | None) -> list[str]:
     tab lists them all), so the readings keep the rest of the panel."""
     lines = reading_flag_lines(set_info)
     more = len(lines) - 1
-    return lines[:1] + ([f"+{more} more flag{'s' if more > 1 else ''}: press 4"] if more else [])
+    return lines[:1] + (
+        [f"+{more} more flag{'s' if more > 1 else ''}: press 4"] if more > 0 else []
+    )
 
 
 #: Lines the readings' area keeps at least, however little room the panel has.
