@@ -250,16 +250,24 @@ def test_an_altered_raw_line_of_a_run_is_reported_by_verify_and_replay(flooded, 
         replay_session(ReplayRequest(copy, session_id, speed=0, dry_run=True))
 
 
-@pytest.mark.e2e
-def test_an_altered_run_entry_is_reported_by_verify_and_replay(flooded, tmp_path):
-    db, session_id = flooded
-    input_id, _, _ = _run_entry(db, session_id)
+def _run_entry_edited(flooded: tuple[Path, int], tmp_path: Path, edit: str) -> tuple[int, Path]:
+    """Return the id of the flooded session's largest run entry and a copy of the file where
+    its detail is ``edit`` (an SQL expression of ``detail_json``), as a local user could."""
+    input_id, _, _ = _run_entry(*flooded)
     copy = _tampered(
         flooded,
         tmp_path,
         "DROP TRIGGER inputs_refuse_update",
-        "UPDATE inputs SET detail_json = json_set(detail_json, '$.digest', "
-        f"'0123456789abcdef0123456789abcdef') WHERE id = {input_id}",
+        f"UPDATE inputs SET detail_json = {edit} WHERE id = {input_id}",
+    )
+    return input_id, copy
+
+
+@pytest.mark.e2e
+def test_an_altered_run_entry_is_reported_by_verify_and_replay(flooded, tmp_path):
+    session_id = flooded[1]
+    input_id, copy = _run_entry_edited(
+        flooded, tmp_path, "json_set(detail_json, '$.digest', '0123456789abcdef0123456789abcdef')"
     )
     with Store.open(copy, read_only=True) as store:
         problems = verify_session(store, session_id).problems
@@ -278,13 +286,7 @@ def test_an_altered_run_entry_is_reported_by_verify_and_replay(flooded, tmp_path
     ],
 )
 def test_a_run_entry_edited_out_of_shape_is_refused_in_words(flooded, tmp_path, edit, named):
-    db, session_id = flooded
-    input_id, _, _ = _run_entry(db, session_id)
-    copy = _tampered(
-        flooded,
-        tmp_path,
-        "DROP TRIGGER inputs_refuse_update",
-        f"UPDATE inputs SET detail_json = {edit} WHERE id = {input_id}",
-    )
+    session_id = flooded[1]
+    input_id, copy = _run_entry_edited(flooded, tmp_path, edit)
     with pytest.raises(NotReplayable, match=f"input {input_id} .*sample_run.*{named}"):
         replay_session(ReplayRequest(copy, session_id, speed=0, dry_run=True))
