@@ -200,16 +200,13 @@ def _check_what_every_replay_uses(args: argparse.Namespace, thresholds: dict[str
     """Raise InputError or ProfileError, once, for a --plan, --profile or threshold that no
     replay could use, before any session is replayed (each would refuse it in the same words)."""
     from chargebook.acquire.session import rules
-    from chargebook.corrections.stability import Thresholds
     from chargebook.drivers_generic import load_profile
 
     if args.plan is not None:
         rules.resolve_plan(args.plan)
     if args.profile is not None:
         load_profile(args.profile)
-    if thresholds:
-        defaults = {f: getattr(Thresholds(), f) for f in Thresholds.__dataclass_fields__}
-        rules.thresholds_from_dict({**defaults, **thresholds})
+    rules.thresholds_from_dict(thresholds)  # the names and values, over the defaults
 
 
 def _session_ids(args: argparse.Namespace, db_path: Path) -> list[int]:

@@ -1434,7 +1434,7 @@ class Store:
             for key in NAMED_KEYS
         )
         rows = self.read(
-            f"SELECT id, {columns} FROM sessions WHERE id IN (SELECT value FROM json_each(?))",
+            f"SELECT id, {columns} FROM sessions WHERE {_IN_JSON_IDS.format('id')}",
             (json.dumps(session_ids),),
         )
         names: dict[int, dict[str, str | None]] = {}
