@@ -197,7 +197,7 @@ class ProfileElectrometer:
         if self._pending:
             return self._pending_burst()
         try:
-            burst = self.transport.read_burst(timeout_s)
+            burst = self.transport.read_burst(timeout_s, wakeable=True)
         except ProtocolError as error:  # an over-long line, refused on its own
             return SampleBurst([], None, [error], 1)
         if burst is None:
@@ -206,6 +206,11 @@ class ProfileElectrometer:
         if samples is not None:
             return SampleBurst(samples, None, [], burst.count)
         return self._burst_by_line(burst)
+
+    def wake(self) -> None:
+        """End a :meth:`read_samples` wait in another thread now (it returns nothing, as on a
+        timeout): the daemon's thread then sends the commands just queued for it."""
+        self.transport.wake()
 
     def set_bias(self, volts: float) -> None:
         """Set the chamber bias in volts, signed; refused outside the profile's limits."""

@@ -184,6 +184,10 @@ class Electrometer(Protocol):
         """Return the pushed samples one read brings, waiting up to ``timeout_s`` for the first
         line (stream / push-readings mode); raises an InstrumentError the instrument sent."""
 
+    def wake(self) -> None:
+        """End a :meth:`read_samples` wait in another thread at once (from any thread): it
+        returns no samples, as on a timeout."""
+
     def set_bias(self, volts: float) -> None:
         """Set the chamber bias in volts, signed. Raises NotSupported without SET_BIAS."""
 

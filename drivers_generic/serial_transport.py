@@ -5,8 +5,11 @@ pyserial is imported when the port is opened, so importing this module stays che
 
 from __future__ import annotations
 
+import contextlib
 import errno
+import os
 import select
+import threading
 import time
 from collections.abc import Callable
 from typing import Any
@@ -41,6 +44,10 @@ class SerialTransport(Transport):
         self.settings = settings
         self.write_timeout_s = write_timeout_s
         self._serial: Any = None
+        #: A pipe whose read end a wakeable wait also watches (see :meth:`wake`): made with the
+        #: transport, closed with it, under a lock so that a wake never writes to a closed one.
+        self._wake_lock = threading.Lock()
+        self._wake_pipe: tuple[int, int] | None = None
 
     def _open(self) -> None:
         import serial
@@ -72,6 +79,30 @@ class SerialTransport(Transport):
         port, self._serial = self._serial, None
         if port is not None:
             port.close()
+        with self._wake_lock:
+            pipe, self._wake_pipe = self._wake_pipe, None
+        if pipe is not None:
+            for fd in pipe:
+                os.close(fd)
+
+    def wake(self) -> None:
+        """End a wakeable wait for pushed lines now (see Transport.wake): one byte down the
+        wake pipe, which the wait's ``select`` watches beside the port."""
+        with self._wake_lock:
+            if self._wake_pipe is not None:
+                # a full pipe holds wakes not yet taken: the wait ends anyway
+                with contextlib.suppress(BlockingIOError):
+                    os.write(self._wake_pipe[1], b"!")
+
+    def _wake_fd(self) -> int:
+        """Return the read end of the wake pipe, making the pipe on first use."""
+        with self._wake_lock:
+            if self._wake_pipe is None:
+                read_fd, write_fd = os.pipe()
+                os.set_blocking(read_fd, False)
+                os.set_blocking(write_fd, False)
+                self._wake_pipe = (read_fd, write_fd)
+            return self._wake_pipe[0]
 
     def _write(self, data: bytes) -> None:
         try:
@@ -88,19 +119,22 @@ class SerialTransport(Transport):
         except _port_errors():
             return True  # the read that follows says the port went away
 
-    def _read_available(self, timeout_s: float) -> bytes:
+    def _read_available(self, timeout_s: float) -> bytes | None:
         port = self._serial
         try:
             waiting = port.in_waiting
             if not waiting:
-                if not self._wait_readable(timeout_s):
-                    return b""
+                readable = self._wait_readable(timeout_s)
+                if not readable:
+                    return None if readable is None else b""
                 waiting = max(port.in_waiting, 1)
             return port.read(waiting)
         except _port_errors() as error:
             raise InstrumentDisconnected(f"serial port {self.port} went away: {error}") from None
 
-    def _wait_readable(self, timeout_s: float) -> bool:
+    def _wait_readable(self, timeout_s: float) -> bool | None:
+        """Wait up to ``timeout_s`` for the port to have bytes: True when it has, False on
+        timeout, None when a wakeable wait was woken (:meth:`wake`)."""
         try:
             fd = self._serial.fileno()
         except (AttributeError, OSError, NotImplementedError):
@@ -109,8 +143,24 @@ class SerialTransport(Transport):
             if self._serial.timeout != timeout_s:
                 self._serial.timeout = timeout_s
             return True
-        ready, _, _ = select.select([fd], [], [], timeout_s)
-        return bool(ready)
+        if not self._wakeable:
+            ready, _, _ = select.select([fd], [], [], timeout_s)
+            return bool(ready)
+        wake_fd = self._wake_fd()
+        ready, _, _ = select.select([fd, wake_fd], [], [], timeout_s)
+        if fd in ready:
+            return True
+        if ready:
+            _drain(wake_fd)
+            return None
+        return False
+
+
+def _drain(fd: int) -> None:
+    """Read a non-blocking pipe empty."""
+    with contextlib.suppress(BlockingIOError):
+        while os.read(fd, 4096):
+            pass
 
 
 def _port_errors() -> tuple[type[BaseException], ...]:

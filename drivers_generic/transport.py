@@ -72,6 +72,9 @@ class Transport(ABC):
         self._discarding = False
         self._open_now = False
         self._line_cutter: tuple[bytes, re.Pattern[bytes]] | None = None
+        #: True while a read waits for lines the instrument pushes unasked: only such a wait
+        #: may be cut short by :meth:`wake` (a command's answer is always waited for).
+        self._wakeable = False
 
     # -- what subclasses implement -------------------------------------------------------------
     @abstractmethod
@@ -89,8 +92,14 @@ class Transport(ABC):
     def _read_available(self, timeout_s: float) -> bytes | None:
         """Return the bytes that arrive within ``timeout_s`` (b"" if none); never sleep longer.
 
-        None means "nothing can arrive before the next write" (a script), so stop waiting.
+        None means "stop waiting": nothing can arrive before the next write (a script), or
+        :meth:`wake` cut a wakeable wait short.
         """
+
+    def wake(self) -> None:  # noqa: B027 (a transport whose waits are short need not)
+        """Make a wait for pushed lines (``read_burst(..., wakeable=True)``) in another thread
+        return at once, as if it timed out; safe to call from any thread, at any time. A
+        transport whose waits are short anyway does nothing."""
 
     # -- the interface -------------------------------------------------------------------------
     @property
@@ -157,14 +166,22 @@ class Transport(ABC):
         """
         return self._read(timeout_s, self._take_line)
 
-    def read_burst(self, timeout_s: float) -> ReceivedBurst | None:
+    def read_burst(self, timeout_s: float, *, wakeable: bool = False) -> ReceivedBurst | None:
         """Return every complete line received so far, waiting up to ``timeout_s`` seconds for
         the first (None on timeout): framed, checked and recorded as traffic in one pass.
+        ``wakeable``: the wait is for lines pushed unasked, and :meth:`wake` may end it early
+        (None, as a timeout).
 
         Raises as :meth:`read_line` does; an over-long line is refused on its own, the lines
         before it come first in a burst of their own.
         """
-        return self._read(timeout_s, self._take_burst)
+        if not wakeable:
+            return self._read(timeout_s, self._take_burst)
+        self._wakeable = True
+        try:
+            return self._read(timeout_s, self._take_burst)
+        finally:
+            self._wakeable = False
 
     def _read(self, timeout_s: float, take: Callable[[], T | None]) -> T | None:
         """Return what ``take`` cuts from the received bytes, reading more for up to

@@ -227,21 +227,28 @@ class InstrumentLink(threading.Thread):
     # -- called from the asyncio loop ----------------------------------------------------------
     def send(self, command: driver_commands.Command) -> None:
         """Queue one engine command."""
-        self.inbox.put(("command", command))
+        self._tell("command", command)
 
     def lines_for(self, session_id: int | None) -> None:
         """Record the lines of the commands queued from now on with ``session_id``."""
-        self.inbox.put(("session", session_id))
+        self._tell("session", session_id)
 
     def sample_for(self, generation: int | None) -> None:
         """Read samples tagged ``generation`` from now on (None: stop reading)."""
         self.wanted_generation = generation
-        self.inbox.put(("sampling", generation))
+        self._tell("sampling", generation)
 
     def stop(self) -> None:
         """Ask the thread to end (it closes the instrument)."""
         self._quit.set()
-        self.inbox.put(("quit", None))
+        self._tell("quit", None)
+
+    def _tell(self, kind: str, value: Any) -> None:
+        """Queue one message for the thread, and cut short its wait for pushed lines so that
+        it takes the message now: a re-arm goes out within the gap between two pushed
+        readings, not after the next line (which would then be stale)."""
+        self.inbox.put((kind, value))
+        self.electrometer.wake()
 
     # -- the thread ----------------------------------------------------------------------------
     def run(self) -> None:

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import contextlib
 import os
+import threading
+import time
 import tty
 
 import pytest
@@ -118,3 +120,45 @@ def test_serial_transport_open_of_a_missing_port_is_instrument_disconnected(tmp_
     transport = SerialTransport(str(tmp_path / "ttyGone"), PortSettings(), CRLF)
     with pytest.raises(InstrumentDisconnected, match="ttyGone"):
         transport.open()
+
+
+def _read_in_thread(read) -> tuple[threading.Thread, list]:
+    """Start ``read()`` in a thread of its own; return the thread and where its result goes."""
+    result: list = []
+    thread = threading.Thread(target=lambda: result.append(read()), daemon=True)
+    thread.start()
+    return thread, result
+
+
+def test_a_wake_ends_a_wait_for_pushed_lines_and_loses_no_line(pty_pair):
+    # The daemon's instrument thread waits for pushed lines; a command queued meanwhile must
+    # go out now, not after the next line (the re-arm of a reading, issue 17 target 1).
+    master, name = pty_pair
+    transport = SerialTransport(name, PortSettings(baud=115200), CRLF)
+    transport.open()
+    thread, result = _read_in_thread(lambda: transport.read_burst(60.0, wakeable=True))
+    time.sleep(0.1)  # the reader is in its wait (if not, the wake is taken at its start)
+    transport.wake()
+    thread.join(30.0)  # a deadline for a hung test, not a timing check: the wait was 60 s
+    assert not thread.is_alive() and result == [None]
+    os.write(master, b"S 1\r\nS 2\r\n")  # lines after a wake are all still read
+    burst = transport.read_burst(5.0, wakeable=True)
+    assert burst is not None and burst.count == 2
+    transport.close()
+
+
+def test_a_wake_does_not_end_a_wait_for_a_commands_answer(pty_pair):
+    # A command's answer is always waited for: a wake then would read as a timeout.
+    master, name = pty_pair
+    transport = SerialTransport(name, PortSettings(baud=115200), CRLF)
+    transport.open()
+    thread, result = _read_in_thread(lambda: transport.read_line(60.0))
+    time.sleep(0.1)
+    transport.wake()
+    time.sleep(0.2)
+    assert thread.is_alive()  # still waiting for its answer
+    os.write(master, b"ACK GO\r\n")
+    thread.join(30.0)
+    assert result[0].raw == b"ACK GO"
+    transport.close()
+    transport.wake()  # a wake after close is harmless
