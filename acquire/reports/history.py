@@ -5,7 +5,9 @@ baseline is one of:
 
 * ``expected``: each session's own expected output (the deviation ``evaluate`` reports);
 * ``first``: the dose per MU of the first session listed;
-* ``mean``: the mean dose per MU of the sessions listed;
+* ``mean``: the mean dose per MU of the sessions listed
+  (with include_all, both count only the sessions a plain history lists: finished, not
+  replays, not rejected; the label then says so);
 * ``session:ID``: the dose per MU of session ID (for example the last annual calibration);
 * a number: a dose per MU in cGy/MU.
 
@@ -65,6 +67,15 @@ class HistoryPoint:
     U_expanded_pct: float | None = None
     #: The station's name, when the history spans several stations (their ids may repeat).
     station: str | None = None
+    #: The session this one replayed (listed only with include_all), else None.
+    replay_of: int | None = None
+
+    @property
+    def shown_status(self) -> str:
+        """Return the status as the table shows it: with the review, and what a replay
+        reproduced ("finished, replay of 12")."""
+        status = self.status if self.review == UNREVIEWED else f"{self.status}, {self.review}"
+        return status if self.replay_of is None else f"{status}, replay of {self.replay_of}"
 
     @property
     def label(self) -> str:
@@ -183,6 +194,7 @@ def _point(
         session_uuid=entry.session.uuid,
         U_expanded_pct=result.U_expanded_pct,
         station=station,
+        replay_of=entry.session.replay_of,
     )
 
 
@@ -215,8 +227,9 @@ def _baseline_value(
     """Return (baseline dose per MU or None for 'expected', and a label saying what it is)."""
     if choice == "expected":
         return None, "each session's expected output"
+    counted = [e for e in entries if _counted(e)]
     values = [
-        (e, e.result.dose_per_MU_cGy) for e in entries if e.result.dose_per_MU_cGy is not None
+        (e, e.result.dose_per_MU_cGy) for e in counted if e.result.dose_per_MU_cGy is not None
     ]
     if isinstance(choice, float):
         return choice, f"{choice:g} cGy/MU"
@@ -232,11 +245,24 @@ def _baseline_value(
         )
     if choice == "first":
         first, value = values[0]
-        return value, f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
+        label = f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
+        return value, label + _NOT_COUNTED if len(counted) < len(entries) else label
     import statistics  # only for this baseline: it brings fractions and decimal
 
     mean = statistics.fmean(v for _, v in values)
-    return mean, f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
+    label = f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
+    return mean, label + _NOT_COUNTED if len(counted) < len(entries) else label
+
+
+#: Said after a first or mean baseline when the history lists sessions it does not count.
+_NOT_COUNTED = "; finished sessions only: replays and open, aborted or rejected ones not counted"
+
+
+def _counted(entry: _Entry) -> bool:
+    """Return True for a session a first or mean baseline counts: one a history lists without
+    include_all (finished, not a replay, not rejected). A replay reproduces its original's
+    result, so counting it would count that session twice."""
+    return _listed(entry.session, False) and review_status(entry.review) != "rejected"
 
 
 def _name(entry: _Entry, stores: Sequence[RecordReader]) -> str:
@@ -541,7 +567,7 @@ def history_table(history: History) -> Table:
             p.label,
             when(p.created_at),
             p.machine,
-            p.status if p.review == UNREVIEWED else f"{p.status}, {p.review}",
+            p.shown_status,
             p.kind,
             number(p.dose_per_MU_cGy, 4, "—"),
             number(p.expected_cGy_per_MU, 4, "—"),

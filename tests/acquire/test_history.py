@@ -95,6 +95,25 @@ def test_all_includes_aborted_sessions_and_replays(store: Store) -> None:
     ]
 
 
+def test_all_marks_a_replay_and_its_baselines_count_only_what_a_plain_history_lists(
+    store: Store,
+) -> None:
+    # Session 6 replays session 1 (same charges: the same dose); session 5 was aborted with
+    # every charge 1.5 times. Counting them would move the mean by 8.7 %, and count session 1
+    # twice: the mean and first baselines of --all are those of the plain history.
+    shown = load_history(store, "6 MV", machine="DEMO-LA1", include_all=True, baseline="mean")
+    plain = load_history(store, "6 MV", machine="DEMO-LA1", baseline="mean")
+    assert shown.baseline_cGy_per_MU == plain.baseline_cGy_per_MU
+    assert "replays and open, aborted or rejected ones not counted" in shown.baseline_label
+    assert "not counted" not in plain.baseline_label
+    replay = next(p for p in shown.points if p.session_id == 6)
+    assert replay.replay_of == 1 and replay.shown_status == "finished, replay of 1"
+    statuses = {row[0]: row[3] for row in history_table(shown).rows}
+    assert statuses["6"] == "finished, replay of 1" and statuses["1"] == "finished"
+    first = load_history(store, "6 MV", machine="DEMO-LA1", include_all=True, baseline="first")
+    assert first.baseline_cGy_per_MU == load_record(store, 1).evaluation.dose_per_MU_cGy
+
+
 @pytest.mark.parametrize(
     ("text", "words"),
     [
