@@ -248,6 +248,11 @@ def _coverage_factor(results: dict[str, Any]) -> str:
 
 
 def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
+    """Return (label, value) rows: :func:`answer_rows`, then :func:`check_rows`."""
+    return [*answer_rows(snapshot), *check_rows(snapshot)]
+
+
+def answer_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
     """Return (label, value) rows: an electron beam's R50 and z_ref (as the daemon worded
     them), raw and corrected charge, dose, per MU, deviation, u_c."""
     results = snapshot.get("results") or {}
@@ -271,7 +276,6 @@ def result_rows(snapshot: Snapshot) -> list[tuple[str, str]]:
         ("Dose per MU", text.number(results.get("dose_per_MU_cGy"), 4, "cGy/MU")),
         ("Deviation", deviation_text(snapshot)),
         ("Uncertainty u_c", uncertainty),
-        *check_rows(snapshot),
     ]
 
 

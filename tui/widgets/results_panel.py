@@ -1,5 +1,6 @@
-"""Every correction factor with its state, then corrected charge, dose, deviation, uncertainty:
-one scrolling widget that draws its own lines (see :mod:`chargebook.tui.widgets.own_lines`)."""
+"""Corrected charge, dose, deviation and uncertainty, then every correction factor with its
+state, then the checks sent beside them: one scrolling widget that draws its own lines (see
+:mod:`chargebook.tui.widgets.own_lines`)."""
 
 from __future__ import annotations
 
@@ -27,11 +28,17 @@ def factor_table(results: dict[str, Any] | None) -> Table:
 
 
 def results_table(snapshot: dict[str, Any]) -> Table:
-    """Return the results table: raw and corrected charge, dose, per MU, deviation, u_c."""
+    """Return the results table: raw and corrected charge, dose, per MU, deviation, u_c, and
+    the checks sent beside them (leakage, Boag's k_s, the air)."""
+    return labelled_table(snapshot_view.result_rows(snapshot))
+
+
+def labelled_table(rows: list[tuple[str, str]]) -> Table:
+    """Return a two-column table of (label, value) rows, without a header."""
     table = Table(box=None, padding=(0, 1), show_header=False, show_edge=False, expand=True)
     table.add_column("What")
     table.add_column("Value")
-    for label, value in snapshot_view.result_rows(snapshot):
+    for label, value in rows:
         table.add_row(*text.plain_row((label, value)))
     return table
 
@@ -124,11 +131,16 @@ class ResultsPanel(ScrollView, can_focus=True):
             lines += [
                 text_line(line) for line in wrapped([f"!! Results not computed: {problem}"], width)
             ]
+        # The answer first (dose, deviation, uncertainty), then the factors it came from: at
+        # 80 x 24 a deviation outside tolerance takes three lines, and the uncertainty below it
+        # was scrolled out of sight.
+        answer = snapshot_view.answer_rows(snapshot)
+        lines += self._table("answer", answer, lambda: labelled_table(answer), width)
         results = snapshot.get("results")
         factors = snapshot_view.factor_rows(results)
         lines += self._table("factors", factors, lambda: factor_table(results), width)
-        rows = snapshot_view.result_rows(snapshot)
-        lines += self._table("results", rows, lambda: results_table(snapshot), width)
+        checks = snapshot_view.check_rows(snapshot)
+        lines += self._table("checks", checks, lambda: labelled_table(checks), width)
         flags = text.flags_or_ok(snapshot_view.session_flags(snapshot), "session: no flags")
         flag_words = ["Session flags (every flag: tab 4):", *flags]
         lines += [text_line(line) for line in wrapped(flag_words, width)]
