@@ -208,6 +208,8 @@ class ConsoleApp(App[int]):
 
     def _route(self) -> None:
         """Show the screen the latest snapshot belongs to, and pass the snapshot down."""
+        if not self.screen_stack:
+            return  # the console is closing: a message still queued has no screen to reach
         current = self.main_screen
         if self.snapshot is None:
             if current is not None:
