@@ -43,6 +43,7 @@ from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.engine.visit_desk import VisitDesk
 from chargebook.acquire.record import events as ev
+from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
@@ -113,7 +114,9 @@ FILES_CHECK_S = 1.0
 #: How long a commit of raw lines waits for another program's write lock, ms: the lines are
 #: held meanwhile, so the instrument thread never stops reading the port for long.
 LINES_WAIT_MS = 200
-#: Longest wait, as the instrument thread ends, for the last commit of its lines, s.
+#: Longest wait, as the instrument thread ends, for the last commit of its lines, s: lines that
+#: still cannot be committed then are set aside in a file beside the database
+#: (``record.unrecorded``), recorded by the next start.
 STOP_COMMIT_S = 4.0
 
 
@@ -603,6 +606,10 @@ class Daemon:
         self._results_task: asyncio.Task[None] | None = None
         self._stopping = asyncio.Event()
         self._stop_reason = "asked to stop"
+        #: At the stop, raw lines the record could not commit: said in words (None: none), and
+        #: the side file they were set aside in (None: none, or it could not be written).
+        self.stop_problem: str | None = None
+        self.set_aside_in: Path | None = None
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -621,6 +628,7 @@ class Daemon:
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
+        self._record_set_aside()
         bench = None
         if options.bench_control:
             from chargebook.acquire.daemon.bench import Bench
@@ -817,11 +825,12 @@ class Daemon:
             await self.server.close()
             await self.watch_server.close()
             self.link.stop()
-            await asyncio.to_thread(self.link.join, 5.0)
+            await asyncio.to_thread(self.link.join, STOP_COMMIT_S + 2.0)
             if self.options.bench_control and self.link.bench is not None:
                 self.link.bench.close()
             if self._stopping.is_set():
                 self._record_stop()
+            self._set_aside_held_lines()
             self.store.close()
             self.station_lock.release()
 
@@ -862,14 +871,66 @@ class Daemon:
         self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
     def _record_stop(self) -> None:
-        """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
+        """Record ``daemon_stopped`` with its reason, in the open session if there is one (with
+        the raw lines still held: if the instrument thread could not commit them in
+        STOP_COMMIT_S, it waits no longer than a commit of lines does)."""
         assert self.store is not None and self.engine is not None
         detail = ev.DaemonStopped(pid=os.getpid(), reason=self._stop_reason)
+        wait_ms = LINES_WAIT_MS if self.store.kept_traffic_count() else BUSY_TIMEOUT_MS
         try:
             session_id = self.engine.session_id
-            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
-        except Exception:  # the stop goes on; the next start will say the run crashed
-            log.exception("could not record the daemon's stop")
+            with self.store.busy_timeout(wait_ms):
+                self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
+        except Exception as error:  # the stop goes on; the next start will say the run crashed
+            cause = commit_failure(error)
+            if cause is None:
+                log.exception("could not record the daemon's stop")
+            else:
+                log.error("could not record the daemon's stop: %s", not_writable(cause))
+
+    def _set_aside_held_lines(self) -> None:
+        """Write the raw lines the record could not commit by the stop to a side file beside
+        the database (``record.unrecorded``), and say how many and where (:attr:`stop_problem`,
+        logged); the next start records them. If the file cannot be written either, say that
+        they are lost, and why."""
+        assert self.store is not None
+        lines = self.store.take_kept_traffic()
+        if not lines:
+            return
+        cause = self._lines_fault or self._faults.get("engine") or "the record could not commit"
+        count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
+        try:
+            path = unrecorded.set_aside(
+                self.options.db_path, lines, reason=self._stop_reason, cause=cause
+            )
+        except OSError as error:
+            self.stop_problem = (
+                f"{count} read from the electrometer could not be recorded ({cause}) nor "
+                f"written beside the database ({error}): they are lost"
+            )
+        else:
+            self.set_aside_in = path
+            self.stop_problem = (
+                f"{count} read from the electrometer could not be recorded at the stop "
+                f"({cause}); they are set aside in {path}, and the next daemon start on "
+                f"{self.options.db_path} records them"
+            )
+        log.error("%s", self.stop_problem)
+
+    def _record_set_aside(self) -> None:
+        """Record the raw lines a previous run set aside at its stop, file by file (at the
+        start, before anything else is written); a file that cannot be read as one is refused
+        (UnrecordedFileError naming it and the line) and left in place."""
+        assert self.store is not None
+        for path in unrecorded.side_files(self.options.db_path):
+            count = unrecorded.recover(self.store, path)
+            done = f"recorded {count:,} raw lines" if count else "found recorded already the lines"
+            log.warning(
+                "%s read before the last stop, from %s (renamed *%s)",
+                done,
+                path,
+                unrecorded.RECOVERED_SUFFIX,
+            )
 
     # -- the loop's work -----------------------------------------------------------------------
     async def _consume_instrument(self) -> None:
