@@ -24,6 +24,8 @@ from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all
+from chargebook.acquire.reports import sections
+from chargebook.acquire.reports.data import load_record
 
 from tests.bench.harness import QUIET_STREAM, collecting_daemon, last_traffic_id, read_db, station
 from tests.faults.sessions import until
@@ -93,6 +95,13 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
             assert detail["file"] == side_file.name
             assert "no reading was derived from them" in detail["note"]
             assert all(report.verified for report in verify_all(store))
+            said = sections.audit(load_record(store, session_id)).rows
+            assert (
+                "raw lines recovered",
+                f"{len(set_aside)} raw lines read before the daemon's last stop, while the record "
+                f"could not commit, recorded at the next start from {side_file.name}; no reading "
+                "was derived from them",
+            ) in [row[2:] for row in said]
             ids = {
                 row.id for row in store.traffic(session_id) if row.recorded_at >= set_aside[0][2]
             }
