@@ -87,6 +87,23 @@ def side_files(db_path: Path) -> list[Path]:
     )
 
 
+def waiting(db_path: Path) -> list[str]:
+    """Return, in words, each side file beside ``db_path`` whose raw lines are not yet in the
+    record (what ``verify`` says): how many lines, or why the file cannot be read."""
+    said = []
+    for path in side_files(db_path):
+        try:
+            count = len(read_set_aside(path).lines)
+        except (UnrecordedFileError, OSError) as error:
+            said.append(f"{path} cannot be recorded: {error}")
+            continue
+        said.append(
+            f"{path} holds {count:,} raw lines read before a daemon's stop, not yet in the "
+            "record: the next daemon start on this database records them"
+        )
+    return said
+
+
 def set_aside(
     db_path: Path, lines: Sequence[TrafficLine], *, reason: str, cause: str | None
 ) -> Path:

@@ -80,6 +80,19 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
         assert f"{len(set_aside):,} raw lines read from the electrometer" in logs
         assert f"set aside in {side_file}" in logs
 
+        verify = subprocess.run(
+            chargebook_args("verify", "--db", str(world.db)),
+            capture_output=True,
+            text=True,
+            timeout=60,
+            check=False,
+        )
+        assert verify.returncode == 0, verify.stdout
+        assert (
+            f"RAW LINES NOT YET RECORDED: {side_file} holds {len(set_aside):,} raw lines read "
+            "before a daemon's stop"
+        ) in verify.stdout
+
         world.restart_daemon()  # the lock is free now: the side file is recorded at the start
         recorded = _rows_after(world.db, first_id)
         assert [row for row in recorded if row in set(set_aside)] == list(set_aside)
