@@ -610,6 +610,7 @@ class Daemon:
         #: the side file they were set aside in (None: none, or it could not be written).
         self.stop_problem: str | None = None
         self.set_aside_in: Path | None = None
+        self._stop_cause: str | None = None  # why the stop could not be recorded, in words
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -882,7 +883,7 @@ class Daemon:
             with self.store.busy_timeout(wait_ms):
                 self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
         except Exception as error:  # the stop goes on; the next start will say the run crashed
-            cause = commit_failure(error)
+            cause = self._stop_cause = commit_failure(error)
             if cause is None:
                 log.exception("could not record the daemon's stop")
             else:
@@ -897,7 +898,7 @@ class Daemon:
         lines = self.store.take_kept_traffic()
         if not lines:
             return
-        cause = self._lines_fault or self._faults.get("engine") or "the record could not commit"
+        cause = self._lines_fault or self._stop_cause or "the record could not commit"
         count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
         try:
             path = unrecorded.set_aside(
