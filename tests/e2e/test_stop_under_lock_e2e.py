@@ -3,8 +3,9 @@ lock loses no raw line.
 
 It used to exit 0 with the lines it held in memory gone. Now it sets them aside in a file beside
 the station database, says how many and where, and exits with EXIT_LINES_SET_ASIDE; its next
-start records every one of them (chained, with an event saying so) and renames the file. A side
-file that cannot be read is refused in words naming the file and the line, and left in place.
+start records every one of them (chained, with an event saying so) and renames the file, and the
+session still replays exactly (no reading came from those lines). A side file that cannot be
+read is refused in words naming the file and the line, and left in place.
 Real processes: the simulated electrometer on a pty, the daemon, another process holding
 SQLite's write lock (as in ``tests/faults/store_faults.py``).
 """
@@ -20,6 +21,7 @@ from pathlib import Path
 import pytest
 from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_LINES_SET_ASIDE
 from chargebook.acquire.processes import chargebook_args
+from chargebook.acquire.protocol import Method
 from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.store import Store
@@ -41,6 +43,12 @@ def _held(message: str | None) -> int:
     """Return how many raw lines the record condition says are held (0 when it says none)."""
     found = re.search(r"\(([\d,]+) raw lines? held in memory", message or "")
     return int(found.group(1).replace(",", "")) if found else 0
+
+
+def _chargebook(*args: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        chargebook_args(*args), capture_output=True, text=True, timeout=60, check=False
+    )
 
 
 def _rows_after(db: Path, first_id: int) -> list[tuple]:
@@ -80,13 +88,7 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
         assert f"{len(set_aside):,} raw lines read from the electrometer" in logs
         assert f"set aside in {side_file}" in logs
 
-        verify = subprocess.run(
-            chargebook_args("verify", "--db", str(world.db)),
-            capture_output=True,
-            text=True,
-            timeout=60,
-            check=False,
-        )
+        verify = _chargebook("verify", "--db", str(world.db))
         assert verify.returncode == 0, verify.stdout
         assert (
             f"RAW LINES NOT YET RECORDED: {side_file} holds {len(set_aside):,} raw lines read "
@@ -98,6 +100,9 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
         assert [row for row in recorded if row in set(set_aside)] == list(set_aside)
         assert not side_file.exists()
         assert side_file.with_name(side_file.name + unrecorded.RECOVERED_SUFFIX).exists()
+        client = await world.connect()
+        await client.call(Method.SESSION_ABORT, reason="the stop test is over", confirm=True)
+        await client.close()
         world.stop_daemon()
         with Store.open(world.db, read_only=True) as store:
             events = store.events_of_kind(EventKind.UNRECORDED_LINES_RECOVERED)
@@ -120,6 +125,10 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
             }
             readings = store.readings(session_id)
         assert not [reading for reading in readings if reading.traffic_id in ids]
+        # the recovered lines change nothing the engine did: the session replays exactly
+        replay = _chargebook("replay", str(session_id), "--db", str(world.db))
+        assert replay.returncode == 0, replay.stdout + replay.stderr
+        assert "exact reproduction" in replay.stdout
 
 
 def test_a_malformed_side_file_is_refused_naming_the_file_and_line_and_left_in_place(
@@ -133,16 +142,10 @@ def test_a_malformed_side_file_is_refused_naming_the_file_and_line_and_left_in_p
     text = side_file.read_text().splitlines()
     text[2] = text[2].replace('"rx"', '"sideways"')
     side_file.write_text("\n".join(text) + "\n")
-    done = subprocess.run(
-        chargebook_args(
-            "serve",
-            *("--profile", "push-exponent", "--port", str(tmp_path / "no-port")),
-            *("--db", str(db), "--socket", str(tmp_path / "run" / "d.sock")),
-        ),
-        capture_output=True,
-        text=True,
-        timeout=60,
-        check=False,
+    done = _chargebook(
+        "serve",
+        *("--profile", "push-exponent", "--port", str(tmp_path / "no-port")),
+        *("--db", str(db), "--socket", str(tmp_path / "run" / "d.sock")),
     )
     assert done.returncode == EXIT_INVALID_INPUT
     assert f"{side_file} line 3: direction 'sideways' is not one of tx, rx" in done.stderr
