@@ -87,6 +87,9 @@ RESULTS_INTERVAL_S = 0.1
 STREAMING_STATES = frozenset({protocol.EngineState.COLLECTING, protocol.EngineState.SETTLING})
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
 LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
+#: How ``daemon_restarted`` says a previous run ended that could not record its stop, the raw
+#: lines it held set aside (``record.unrecorded``) and recorded by this start.
+STOPPED_LINES_SET_ASIDE = "stopped, its stop not recorded: its raw lines were set aside"
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine). Each
 #: commit waits for an fsync (some 4-10 ms on the development machine), so under a flood the
 #: burst's size sets how much of that wait each line bears: at 4096 lines about 1-2 µs. A burst
@@ -611,6 +614,8 @@ class Daemon:
         self.stop_problem: str | None = None
         self.set_aside_in: Path | None = None
         self._stop_cause: str | None = None  # why the stop could not be recorded, in words
+        #: The runs whose raw lines this start recorded from side files: pid -> why it stopped.
+        self._set_aside_by: dict[int | None, str | None] = {}
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -863,11 +868,18 @@ class Daemon:
             self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STARTED, started)
             return
         clean = last.kind == EventKind.DAEMON_STOPPED
+        previous_pid = last.detail().get("pid")
+        previous_run, previous_stop = "crashed", None
+        if clean:
+            previous_run, previous_stop = "stopped cleanly", last.detail().get("reason")
+        elif previous_pid in self._set_aside_by:  # it stopped, with its lines set aside
+            previous_run = STOPPED_LINES_SET_ASIDE
+            previous_stop = self._set_aside_by[previous_pid]
         restarted = ev.DaemonRestarted(
             pid=os.getpid(),
-            previous_run="stopped cleanly" if clean else "crashed",
-            previous_stop=last.detail().get("reason") if clean else None,
-            previous_pid=last.detail().get("pid"),
+            previous_run=previous_run,
+            previous_stop=previous_stop,
+            previous_pid=previous_pid,
         )
         self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
@@ -924,7 +936,8 @@ class Daemon:
         (UnrecordedFileError naming it and the line) and left in place."""
         assert self.store is not None
         for path in unrecorded.side_files(self.options.db_path):
-            count = unrecorded.recover(self.store, path)
+            count, found = unrecorded.recover(self.store, path)
+            self._set_aside_by[found.pid] = found.stopped_by
             done = f"recorded {count:,} raw lines" if count else "found recorded already the lines"
             log.warning(
                 "%s read before the last stop, from %s (renamed *%s)",

@@ -242,7 +242,7 @@ class DaemonStarted(TypedDict):
 
 class DaemonRestarted(TypedDict):
     pid: int
-    previous_run: str  # "stopped cleanly" | "crashed"
+    previous_run: str  # "stopped cleanly" | "crashed" | daemon.STOPPED_LINES_SET_ASIDE
     previous_stop: str | None
     previous_pid: int | None
 
@@ -265,6 +265,8 @@ class UnrecordedLinesRecovered(TypedDict):
     file_lines: int  # in the whole file
     first_recorded_at: str  # when the file's first line was read (UTC)
     last_recorded_at: str  # when its last line was read (UTC)
+    stopped_by: str | None  # why the run that set them aside stopped (SIGTERM, SIGINT ...)
+    cause: str | None  # why its record could not commit, in words
     note: str  # read before the last stop; no reading derived from them
 
 

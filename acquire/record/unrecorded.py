@@ -70,11 +70,16 @@ class UnrecordedFileError(StoreError):
 
 @dataclass(frozen=True)
 class SetAside:
-    """Raw lines read from a side file: where from, the lines, and the file's SHA-256."""
+    """Raw lines read from a side file: where from, the lines, the file's SHA-256, and what
+    its header says of the run that wrote it (its pid, why it stopped, why it could not
+    commit; None where the header does not say)."""
 
     path: Path
     lines: tuple[TrafficLine, ...]
     sha256: str
+    pid: int | None = None
+    stopped_by: str | None = None
+    cause: str | None = None
 
 
 def side_files(db_path: Path) -> list[Path]:
@@ -141,7 +146,9 @@ def read_set_aside(path: Path) -> SetAside:
     """Return the raw lines of a side file, each checked; UnrecordedFileError naming the line
     that is not one (or a header whose count does not match)."""
     data = path.read_bytes()
-    texts = data.decode("utf-8", errors="replace").splitlines()
+    texts = data.decode("utf-8", errors="replace").split("\n")
+    if texts and texts[-1] == "":
+        del texts[-1]  # the newline that ends the last line
     if not texts:
         raise UnrecordedFileError(path, 1, "the file is empty (no header)")
     header = _object(path, 1, texts[0])
@@ -152,15 +159,23 @@ def read_set_aside(path: Path) -> SetAside:
         raise UnrecordedFileError(
             path, 1, f"the header says {header.get('lines')!r} lines, the file holds {len(lines)}"
         )
-    return SetAside(path, lines, hashlib.sha256(data).hexdigest())
+    return SetAside(
+        path,
+        lines,
+        hashlib.sha256(data).hexdigest(),
+        pid=_of_type(header.get("pid"), int),
+        stopped_by=_of_type(header.get("reason"), str),
+        cause=_of_type(header.get("cause"), str),
+    )
 
 
-def recover(store: Store, path: Path) -> int:
+def recover(store: Store, path: Path) -> tuple[int, SetAside]:
     """Record the raw lines of side file ``path`` in the traffic table (one transaction, with
     an ``unrecorded_lines_recovered`` event per session), then rename the file ``*.recovered``;
     return how many lines were recorded (0 when a recovery event already names the file's
-    SHA-256: it was recorded before, and is only renamed). UnrecordedFileError when the file
-    is malformed or names a session the database does not hold: nothing is recorded then."""
+    SHA-256: it was recorded before, and is only renamed) and what the file held.
+    UnrecordedFileError when the file is malformed or names a session the database does not
+    hold: nothing is recorded then."""
     found = read_set_aside(path)
     recorded = 0
     if not _recovered_before(store, found.sha256):
@@ -175,6 +190,8 @@ def recover(store: Store, path: Path) -> int:
                     file_lines=len(found.lines),
                     first_recorded_at=found.lines[0][2],
                     last_recorded_at=found.lines[-1][2],
+                    stopped_by=found.stopped_by,
+                    cause=found.cause,
                     note=RECOVERY_NOTE,
                 )
                 store.add_event(
@@ -182,7 +199,12 @@ def recover(store: Store, path: Path) -> int:
                 )
         recorded = len(found.lines)
     os.replace(path, path.with_name(path.name + RECOVERED_SUFFIX))
-    return recorded
+    return recorded, found
+
+
+def _of_type(value: object, kind: type) -> Any:
+    """Return ``value`` if it is a ``kind`` (not a bool), else None."""
+    return value if isinstance(value, kind) and not isinstance(value, bool) else None
 
 
 def _line_object(line: TrafficLine) -> dict[str, Any]:

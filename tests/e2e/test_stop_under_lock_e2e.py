@@ -19,11 +19,13 @@ import subprocess
 from pathlib import Path
 
 import pytest
+from chargebook.acquire.daemon.daemon import STOPPED_LINES_SET_ASIDE
 from chargebook.acquire.exit_codes import EXIT_INVALID_INPUT, EXIT_LINES_SET_ASIDE
 from chargebook.acquire.processes import chargebook_args
 from chargebook.acquire.protocol import Method
 from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
+from chargebook.acquire.record.health import LOCKED
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_all
 from chargebook.acquire.reports import sections
@@ -112,6 +114,11 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
             assert detail["lines"] == detail["file_lines"] == len(set_aside)
             assert detail["file"] == side_file.name
             assert "no reading was derived from them" in detail["note"]
+            assert (detail["stopped_by"], detail["cause"]) == ("SIGTERM", LOCKED)
+            restarted = store.last_event_of([EventKind.DAEMON_RESTARTED])
+            assert restarted is not None and restarted.id > event.id
+            assert restarted.detail()["previous_run"] == STOPPED_LINES_SET_ASIDE
+            assert restarted.detail()["previous_stop"] == "SIGTERM"
             assert all(report.verified for report in verify_all(store))
             said = sections.audit(load_record(store, session_id)).rows
             assert (
@@ -163,8 +170,8 @@ def test_a_side_file_recorded_before_its_rename_is_not_recorded_twice(tmp_path: 
         ]
         side_file = unrecorded.set_aside(db, lines, reason="SIGTERM", cause="test")
         kept = side_file.read_bytes()
-        assert unrecorded.recover(store, side_file) == 3
+        assert unrecorded.recover(store, side_file)[0] == 3
         side_file.write_bytes(kept)  # as if the power went between the commit and the rename
-        assert unrecorded.recover(store, side_file) == 0
+        assert unrecorded.recover(store, side_file)[0] == 0
         assert len(store.traffic(session_id)) == 3
         assert unrecorded.side_files(db) == []
