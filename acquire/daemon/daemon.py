@@ -631,10 +631,10 @@ class Daemon:
         self.store.on_events_committed = self._emitted.extend
         self.store.remember_rows()  # the one writer, under the station lock
         self.store.results_on_close = stored_result.stored_row  # kept as each session closes
+        self._record_set_aside()
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
-        self._record_set_aside()
         bench = None
         if options.bench_control:
             from chargebook.acquire.daemon.bench import Bench
@@ -894,7 +894,8 @@ class Daemon:
             session_id = self.engine.session_id
             with self.store.busy_timeout(wait_ms):
                 self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
-        except Exception as error:  # the stop goes on; the next start will say the run crashed
+        except Exception as error:  # the stop goes on; the next start says the run crashed, or,
+            # with its raw lines set aside, that it stopped so
             cause = self._stop_cause = commit_failure(error)
             if cause is None:
                 log.exception("could not record the daemon's stop")
@@ -912,19 +913,18 @@ class Daemon:
             return
         cause = self._lines_fault or self._stop_cause or "the record could not commit"
         count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
+        reason = self._stop_reason if self._stopping.is_set() else "an unexpected error"
         try:
-            path = unrecorded.set_aside(
-                self.options.db_path, lines, reason=self._stop_reason, cause=cause
-            )
+            path = unrecorded.set_aside(self.options.db_path, lines, reason=reason, cause=cause)
         except OSError as error:
             self.stop_problem = (
-                f"{count} read from the electrometer could not be recorded ({cause}) nor "
+                f"{count} exchanged with the electrometer could not be recorded ({cause}) nor "
                 f"written beside the database ({error}): they are lost"
             )
         else:
             self.set_aside_in = path
             self.stop_problem = (
-                f"{count} read from the electrometer could not be recorded at the stop "
+                f"{count} exchanged with the electrometer could not be recorded at the stop "
                 f"({cause}); they are set aside in {path}, and the next daemon start on "
                 f"{self.options.db_path} records them"
             )
@@ -938,9 +938,9 @@ class Daemon:
         for path in unrecorded.side_files(self.options.db_path):
             count, found = unrecorded.recover(self.store, path)
             self._set_aside_by[found.pid] = found.stopped_by
-            done = f"recorded {count:,} raw lines" if count else "found recorded already the lines"
+            done = f"recorded {count:,}" if count else "found already recorded the"
             log.warning(
-                "%s read before the last stop, from %s (renamed *%s)",
+                "%s raw lines read before the last stop, from %s (renamed *%s)",
                 done,
                 path,
                 unrecorded.RECOVERED_SUFFIX,

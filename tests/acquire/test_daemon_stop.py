@@ -34,8 +34,8 @@ def test_held_lines_are_set_aside_beside_the_database_and_said_with_their_count(
     assert daemon.set_aside_in == side_file
     assert unrecorded.read_set_aside(side_file).lines == (LINE, LINE)
     assert daemon.stop_problem == (
-        f"2 raw lines read from the electrometer could not be recorded at the stop ({LOCKED}); "
-        f"they are set aside in {side_file}, and the next daemon start on "
+        f"2 raw lines exchanged with the electrometer could not be recorded at the stop "
+        f"({LOCKED}); they are set aside in {side_file}, and the next daemon start on "
         f"{tmp_path / 'station.sqlite'} records them"
     )
     assert daemon.store is not None and daemon.store.kept_traffic_count() == 0
@@ -47,7 +47,7 @@ def test_lines_that_cannot_be_set_aside_either_are_said_lost_with_why(tmp_path: 
     assert daemon.set_aside_in is None
     assert daemon.stop_problem is not None
     assert daemon.stop_problem.startswith(
-        f"2 raw lines read from the electrometer could not be recorded ({LOCKED}) nor written "
+        f"2 raw lines exchanged with the electrometer could not be recorded ({LOCKED}) nor written "
         "beside the database ([Errno 2] No such file or directory"
     )
     assert daemon.stop_problem.endswith("they are lost")

@@ -87,7 +87,7 @@ async def test_sigterm_under_a_held_lock_sets_every_line_aside_and_the_next_star
         received = [line for line in set_aside if line[3] == "rx"]
         assert len(received) >= written == FLOOD_LINES
         logs = world.daemon_logs()
-        assert f"{len(set_aside):,} raw lines read from the electrometer" in logs
+        assert f"{len(set_aside):,} raw lines exchanged with the electrometer" in logs
         assert f"set aside in {side_file}" in logs
 
         verify = _chargebook("verify", "--db", str(world.db))
