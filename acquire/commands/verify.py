@@ -27,8 +27,10 @@ def run(args: argparse.Namespace) -> int:
 
 def _verify(store, args: argparse.Namespace) -> int:
     import json
+    from pathlib import Path
 
     from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_OK
+    from chargebook.acquire.record.unrecorded import waiting
     from chargebook.acquire.record.verify import file_damage, verify_all, verify_session
     from chargebook.acquire.session.stored_result import differing_results, missing_results
 
@@ -37,6 +39,8 @@ def _verify(store, args: argparse.Namespace) -> int:
     reports = [verify_session(store, args.session)] if one else verify_all(store)
     results = differing_results(store, [args.session] if one else None)
     missing = missing_results(store, [args.session] if one else None)  # a cache: never a fault
+    db_path = getattr(store, "path", None)  # a station file (None: the department record)
+    set_aside = waiting(Path(db_path)) if db_path else []  # not yet recorded: never a change
     verified = not damage and not results and all(report.verified for report in reports)
     if args.json:
         data = {
@@ -45,6 +49,7 @@ def _verify(store, args: argparse.Namespace) -> int:
             "chains": [report.to_dict() for report in reports],
             "stored_results": results,
             "stored_results_missing": missing,
+            "raw_lines_set_aside": set_aside,
         }
         print(json.dumps(data, indent=2))
     else:
@@ -57,5 +62,7 @@ def _verify(store, args: argparse.Namespace) -> int:
             print(f"STORED RESULT DIFFERS: {line}")
         for line in missing:
             print(f"note: {line}")
+        for line in set_aside:
+            print(f"RAW LINES NOT YET RECORDED: {line}")
         print("the record verifies" if verified else "THE RECORD DOES NOT VERIFY: see above")
     return EXIT_OK if verified else EXIT_FAILURE

@@ -9,7 +9,8 @@ by the next one: one transaction for all the lines that queued meanwhile, howeve
 Issue 11's rules hold: a post is made only once every line kept before it was handed over is
 committed (the count of posts a commit covers is taken before the commit starts); posts go out
 in the order they were handed over, from this one thread; a commit that fails holds every
-post, in order, and is tried again (at the latest every RETRY_S).
+post, in order, and is tried again (at the latest every RETRY_S); at the stop, for as long as
+the stop waits.
 """
 
 from __future__ import annotations
@@ -41,6 +42,7 @@ class Committer:
         self._held: list[tuple[str, Any]] = []  # posts waiting for their lines' commit, in order
         self._wanted = False  # a commit was asked for since the last one began
         self._stopping = False
+        self._stop_by = 0.0  # when a stop gives up on a commit that fails (time.monotonic)
         self._thread: threading.Thread | None = None
         #: When the last commit began (time.monotonic).
         self.flushed_at = 0.0
@@ -73,22 +75,26 @@ class Committer:
             self._cond.notify()
 
     def stop(self, timeout_s: float) -> None:
-        """Commit what is kept, post what that allows, and end the thread (waiting at most
-        ``timeout_s`` for it)."""
+        """Commit what is kept, post what that allows, and end the thread: a commit that fails
+        is tried again (every RETRY_S) for at most ``timeout_s``. Lines that still cannot be
+        committed then stay kept, for the daemon to set aside."""
         thread = self._thread
         if thread is None:
             self._commit_once()
             return
         with self._cond:
+            self._stop_by = time.monotonic() + timeout_s
             self._stopping = True
             self._cond.notify()
-        thread.join(timeout_s)
+        thread.join(timeout_s + RETRY_S)
 
     def _run(self) -> None:
         failing = False
         while True:
             with self._cond:
-                if not self._wanted and not self._stopping:
+                if failing and self._stopping:  # tried again until the stop's wait is over
+                    self._cond.wait(max(0.0, min(RETRY_S, self._stop_by - time.monotonic())))
+                elif not self._wanted and not self._stopping:
                     self._cond.wait(RETRY_S if failing else None)
                 stopping, self._wanted = self._stopping, False
             try:
@@ -96,7 +102,7 @@ class Committer:
             except Exception:  # the thread must live on: posts would otherwise wait forever
                 log.exception("could not commit the raw lines or post what followed them")
                 failing = True
-            if stopping:
+            if stopping and (not failing or time.monotonic() >= self._stop_by):
                 return
 
     def _commit_once(self) -> bool:

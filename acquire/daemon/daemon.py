@@ -43,6 +43,7 @@ from chargebook.acquire.engine.engine import DAEMON_ACTOR, Engine
 from chargebook.acquire.engine.states import IllegalTransition
 from chargebook.acquire.engine.visit_desk import VisitDesk
 from chargebook.acquire.record import events as ev
+from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
@@ -86,6 +87,9 @@ RESULTS_INTERVAL_S = 0.1
 STREAMING_STATES = frozenset({protocol.EngineState.COLLECTING, protocol.EngineState.SETTLING})
 #: The audit events of the daemon's own starts and stops: the last one says how it last ended.
 LIFECYCLE_EVENTS = (EventKind.DAEMON_STARTED, EventKind.DAEMON_RESTARTED, EventKind.DAEMON_STOPPED)
+#: How ``daemon_restarted`` says a previous run ended that could not record its stop, the raw
+#: lines it held set aside (``record.unrecorded``) and recorded by this start.
+STOPPED_LINES_SET_ASIDE = "stopped, its stop not recorded: its raw lines were set aside"
 #: Most pushed lines read in one burst (one traffic commit, one hand-over to the engine). Each
 #: commit waits for an fsync (some 4-10 ms on the development machine), so under a flood the
 #: burst's size sets how much of that wait each line bears: at 4096 lines about 1-2 µs. A burst
@@ -113,7 +117,9 @@ FILES_CHECK_S = 1.0
 #: How long a commit of raw lines waits for another program's write lock, ms: the lines are
 #: held meanwhile, so the instrument thread never stops reading the port for long.
 LINES_WAIT_MS = 200
-#: Longest wait, as the instrument thread ends, for the last commit of its lines, s.
+#: Longest wait, as the instrument thread ends, for the last commit of its lines, s: lines that
+#: still cannot be committed then are set aside in a file beside the database
+#: (``record.unrecorded``), recorded by the next start.
 STOP_COMMIT_S = 4.0
 
 
@@ -610,6 +616,13 @@ class Daemon:
         self._results_task: asyncio.Task[None] | None = None
         self._stopping = asyncio.Event()
         self._stop_reason = "asked to stop"
+        #: At the stop, raw lines the record could not commit: said in words (None: none), and
+        #: the side file they were set aside in (None: none, or it could not be written).
+        self.stop_problem: str | None = None
+        self.set_aside_in: Path | None = None
+        self._stop_cause: str | None = None  # why the stop could not be recorded, in words
+        #: The runs whose raw lines this start recorded from side files: pid -> why it stopped.
+        self._set_aside_by: dict[int | None, str | None] = {}
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -625,6 +638,7 @@ class Daemon:
         self.store.on_events_committed = self._emitted.extend
         self.store.remember_rows()  # the one writer, under the station lock
         self.store.results_on_close = stored_result.stored_row  # kept as each session closes
+        self._record_set_aside()
         if options.station_name:
             self.store.name_station(options.station_name)
         self._files = RecordFiles.taken_now(options.db_path)
@@ -824,11 +838,12 @@ class Daemon:
             await self.server.close()
             await self.watch_server.close()
             self.link.stop()
-            await asyncio.to_thread(self.link.join, 5.0)
+            await asyncio.to_thread(self.link.join, STOP_COMMIT_S + 2.0)
             if self.options.bench_control and self.link.bench is not None:
                 self.link.bench.close()
             if self._stopping.is_set():
                 self._record_stop()
+            self._set_aside_held_lines()
             self.store.close()
             self.station_lock.release()
 
@@ -860,23 +875,83 @@ class Daemon:
             self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STARTED, started)
             return
         clean = last.kind == EventKind.DAEMON_STOPPED
+        previous_pid = last.detail().get("pid")
+        previous_run, previous_stop = "crashed", None
+        if clean:
+            previous_run, previous_stop = "stopped cleanly", last.detail().get("reason")
+        elif previous_pid in self._set_aside_by:  # it stopped, with its lines set aside
+            previous_run = STOPPED_LINES_SET_ASIDE
+            previous_stop = self._set_aside_by[previous_pid]
         restarted = ev.DaemonRestarted(
             pid=os.getpid(),
-            previous_run="stopped cleanly" if clean else "crashed",
-            previous_stop=last.detail().get("reason") if clean else None,
-            previous_pid=last.detail().get("pid"),
+            previous_run=previous_run,
+            previous_stop=previous_stop,
+            previous_pid=previous_pid,
         )
         self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_RESTARTED, restarted)
 
     def _record_stop(self) -> None:
-        """Record ``daemon_stopped`` with its reason, in the open session if there is one."""
+        """Record ``daemon_stopped`` with its reason, in the open session if there is one (with
+        the raw lines still held: if the instrument thread could not commit them in
+        STOP_COMMIT_S, it waits no longer than a commit of lines does)."""
         assert self.store is not None and self.engine is not None
         detail = ev.DaemonStopped(pid=os.getpid(), reason=self._stop_reason)
+        wait_ms = LINES_WAIT_MS if self.store.kept_traffic_count() else BUSY_TIMEOUT_MS
         try:
             session_id = self.engine.session_id
-            self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
-        except Exception:  # the stop goes on; the next start will say the run crashed
-            log.exception("could not record the daemon's stop")
+            with self.store.busy_timeout(wait_ms):
+                self.store.add_event(session_id, DAEMON_ACTOR, EventKind.DAEMON_STOPPED, detail)
+        except Exception as error:  # the stop goes on; the next start says the run crashed, or,
+            # with its raw lines set aside, that it stopped so
+            cause = self._stop_cause = commit_failure(error)
+            if cause is None:
+                log.exception("could not record the daemon's stop")
+            else:
+                log.error("could not record the daemon's stop: %s", not_writable(cause))
+
+    def _set_aside_held_lines(self) -> None:
+        """Write the raw lines the record could not commit by the stop to a side file beside
+        the database (``record.unrecorded``), and say how many and where (:attr:`stop_problem`,
+        logged); the next start records them. If the file cannot be written either, say that
+        they are lost, and why."""
+        assert self.store is not None
+        lines = self.store.take_kept_traffic()
+        if not lines:
+            return
+        cause = self._lines_fault or self._stop_cause or "the record could not commit"
+        count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
+        reason = self._stop_reason if self._stopping.is_set() else "an unexpected error"
+        try:
+            path = unrecorded.set_aside(self.options.db_path, lines, reason=reason, cause=cause)
+        except OSError as error:
+            self.stop_problem = (
+                f"{count} exchanged with the electrometer could not be recorded ({cause}) nor "
+                f"written beside the database ({error}): they are lost"
+            )
+        else:
+            self.set_aside_in = path
+            self.stop_problem = (
+                f"{count} exchanged with the electrometer could not be recorded at the stop "
+                f"({cause}); they are set aside in {path}, and the next daemon start on "
+                f"{self.options.db_path} records them"
+            )
+        log.error("%s", self.stop_problem)
+
+    def _record_set_aside(self) -> None:
+        """Record the raw lines a previous run set aside at its stop, file by file (at the
+        start, before anything else is written); a file that cannot be read as one is refused
+        (UnrecordedFileError naming it and the line) and left in place."""
+        assert self.store is not None
+        for path in unrecorded.side_files(self.options.db_path):
+            count, found = unrecorded.recover(self.store, path)
+            self._set_aside_by[found.pid] = found.stopped_by
+            done = f"recorded {count:,}" if count else "found already recorded the"
+            log.warning(
+                "%s raw lines read before the last stop, from %s (renamed *%s)",
+                done,
+                path,
+                unrecorded.RECOVERED_SUFFIX,
+            )
 
     # -- the loop's work -----------------------------------------------------------------------
     async def _consume_instrument(self) -> None:

@@ -13,7 +13,12 @@ from pathlib import Path
 from chargebook.acquire import protocol
 from chargebook.acquire.daemon import sd_notify
 from chargebook.acquire.daemon.daemon import Daemon, DaemonOptions
-from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
+from chargebook.acquire.exit_codes import (
+    EXIT_FAILURE,
+    EXIT_INVALID_INPUT,
+    EXIT_LINES_SET_ASIDE,
+    EXIT_OK,
+)
 
 log = logging.getLogger(__name__)
 
@@ -111,4 +116,7 @@ async def _serve(options: DaemonOptions) -> int:
         sd_notify.notify(sd_notify.READY)
 
     await daemon.run(ready)
-    return EXIT_OK
+    if daemon.stop_problem is None:
+        return EXIT_OK
+    print(f"chargebook serve: {daemon.stop_problem}", file=sys.stderr)
+    return EXIT_LINES_SET_ASIDE if daemon.set_aside_in is not None else EXIT_FAILURE

@@ -58,6 +58,7 @@ class EventKind(enum.StrEnum):
     DAEMON_RESTARTED = "daemon_restarted"
     DAEMON_STOPPED = "daemon_stopped"
     DAEMON_ERROR = "daemon_error"
+    UNRECORDED_LINES_RECOVERED = "unrecorded_lines_recovered"
     # after the session
     SESSION_REVIEWED = "session_reviewed"
     REPLAY = "replay"
@@ -241,7 +242,7 @@ class DaemonStarted(TypedDict):
 
 class DaemonRestarted(TypedDict):
     pid: int
-    previous_run: str  # "stopped cleanly" | "crashed"
+    previous_run: str  # "stopped cleanly" | "crashed" | daemon.STOPPED_LINES_SET_ASIDE
     previous_stop: str | None
     previous_pid: int | None
 
@@ -252,6 +253,21 @@ class DaemonStopped(TypedDict):
 
 
 DaemonError = TypedDict("DaemonError", {"while": str, "error": str})
+
+
+class UnrecordedLinesRecovered(TypedDict):
+    """Raw lines of this session recorded at a daemon start from the side file a daemon that
+    stopped while the record could not commit wrote (``acquire/record/unrecorded.py``)."""
+
+    file: str  # the side file's name, beside the database (renamed *.recovered)
+    sha256: str  # of the side file as read
+    lines: int  # of this session
+    file_lines: int  # in the whole file
+    first_recorded_at: str  # when the file's first line was read (UTC)
+    last_recorded_at: str  # when its last line was read (UTC)
+    stopped_by: str | None  # why the run that set them aside stopped (SIGTERM, SIGINT ...)
+    cause: str | None  # why its record could not commit, in words
+    note: str  # read before the last stop; no reading derived from them
 
 
 # ----------------------------------------------------------------------- after a session
@@ -398,6 +414,7 @@ def detail_types() -> dict[EventKind, type]:
         EventKind.DAEMON_RESTARTED: DaemonRestarted,
         EventKind.DAEMON_STOPPED: DaemonStopped,
         EventKind.DAEMON_ERROR: DaemonError,
+        EventKind.UNRECORDED_LINES_RECOVERED: UnrecordedLinesRecovered,
         EventKind.SESSION_REVIEWED: SessionReviewed,
         EventKind.REPLAY: Replay,
         EventKind.REPLAY_NOT_REPRODUCED: ReplayNotReproduced,

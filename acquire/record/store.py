@@ -1798,6 +1798,15 @@ class Store:
         with self._pending_lock:
             return len(self._pending) + len(self._in_flight)
 
+    def take_kept_traffic(self) -> list[TrafficLine]:
+        """Return the raw lines kept and not committed, in order, and forget them: what a
+        daemon that stops while the record cannot commit sets aside in a file
+        (``record.unrecorded``). Waits for a transaction in flight, so no line is in two places.
+        """
+        with self._lock, self._pending_lock:
+            lines, self._pending, self._pending_told = self._pending, [], []
+        return lines
+
     def commit_traffic(self) -> int:
         """Write the raw lines kept so far in one commit; return how many there were."""
         with self._pending_lock:

@@ -97,6 +97,12 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         return "daemon restarted", f"the previous run {previous}{stop}"
     if kind == EventKind.DAEMON_STOPPED:
         return "daemon stopped", _reason(detail.get("reason"))
+    if kind == EventKind.UNRECORDED_LINES_RECOVERED:
+        return "raw lines recovered", (
+            f"{detail.get('lines')} raw lines read before the daemon's last stop, while the "
+            f"record could not commit, recorded at the next start from {detail.get('file')}; "
+            "no reading was derived from them"
+        )
     if kind == EventKind.BENCH_REFUSED:
         number, set_id = detail.get("reading_number"), detail.get("set_id")
         of = "" if number is None else f"the beam of reading {number} of set {set_id}: "

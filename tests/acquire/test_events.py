@@ -56,6 +56,7 @@ STORED_KINDS = (
     "daemon_restarted",
     "daemon_stopped",
     "daemon_error",
+    "unrecorded_lines_recovered",
     "session_reviewed",
     "replay",
     "replay_not_reproduced",
