@@ -140,6 +140,8 @@ def test_file_store_uses_wal_and_full_sync(tmp_path: Path) -> None:
         # SQLite documentation, PRAGMA synchronous: FULL is 2.
         assert store.db.execute("PRAGMA synchronous").fetchone()[0] == 2
         assert store.db.execute("PRAGMA foreign_keys").fetchone()[0] == 1
+        # SQLite documentation, PRAGMA temp_store: MEMORY is 2 (a savepoint's undo pages).
+        assert store.db.execute("PRAGMA temp_store").fetchone()[0] == 2
 
 
 def test_read_only_open_needs_an_existing_file_and_cannot_write(tmp_path: Path) -> None:
