@@ -16,6 +16,7 @@ the engine reads no other clock while applying an input, so the log holds every 
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import sys
 from array import array
@@ -48,14 +49,24 @@ class Input:
 
     def fields(self) -> dict[str, Any]:
         """Return the input's own fields (not ``actor``), as they are logged (JSON values)."""
-        found = {
-            f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "actor"
-        }
-        return {name: _logged(value) for name, value in found.items()}
+        return {name: _logged(getattr(self, name)) for name in _logged_names(type(self))}
+
+
+@functools.cache
+def _logged_names(kind: type[Input]) -> tuple[str, ...]:
+    """Return the names of the fields an input of class ``kind`` logs (all but ``actor``),
+    found once per class: the daemon logs every sample that leads to a reading."""
+    return tuple(f.name for f in dataclasses.fields(kind) if f.name != "actor")
+
+
+#: Values logged as they are: JSON holds them with no conversion.
+_JSON_SCALARS = frozenset({float, int, str, bool, type(None)})
 
 
 def _logged(value: Any) -> Any:
     """Return ``value`` as JSON can hold it (a plan object as its dict)."""
+    if type(value) in _JSON_SCALARS:
+        return value
     to_dict = getattr(value, "to_dict", None)
     return to_dict() if callable(to_dict) else value
 
