@@ -1834,6 +1834,18 @@ class Store:
             return self._select(TrafficRow, "traffic", "session_id IS NULL")
         return self._select(TrafficRow, "traffic", "session_id = ?", (session_id,))
 
+    def placed_inputs(self, session_id: int) -> list[tuple[int, str, str, str, int]]:
+        """Return the session's logged inputs in the order they were applied, each as (id,
+        kind, actor, detail as JSON text, place in the session's chain): what a replay feeds
+        back, in one query, without a row object per input (a query-mode session logs one a
+        poll)."""
+        sql = (
+            "SELECT id, kind, actor, detail_json, chain_seq FROM inputs WHERE session_id = ? "
+            "ORDER BY id"
+        )
+        with self._lock:
+            return self.conn.execute(sql, (session_id,)).fetchall()
+
     def placed_traffic(self, session_id: int) -> list[tuple[int, float, str, bytes, int]]:
         """Return the session's raw traffic in the order recorded, each line as (id, t_s,
         direction, line bytes, place in the session's chain): what a replay plays, in one
