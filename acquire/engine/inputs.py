@@ -49,7 +49,10 @@ class Input:
 
     def fields(self) -> dict[str, Any]:
         """Return the input's own fields (not ``actor``), as they are logged (JSON values)."""
-        return {name: _logged(getattr(self, name)) for name in _logged_names(type(self))}
+        return {
+            name: value if type(value := getattr(self, name)) in _JSON_SCALARS else _logged(value)
+            for name in _logged_names(type(self))
+        }
 
 
 @functools.cache
@@ -65,8 +68,6 @@ _JSON_SCALARS = frozenset({float, int, str, bool, type(None)})
 
 def _logged(value: Any) -> Any:
     """Return ``value`` as JSON can hold it (a plan object as its dict)."""
-    if type(value) in _JSON_SCALARS:
-        return value
     to_dict = getattr(value, "to_dict", None)
     return to_dict() if callable(to_dict) else value
 
