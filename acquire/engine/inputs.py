@@ -16,7 +16,6 @@ the engine reads no other clock while applying an input, so the log holds every 
 from __future__ import annotations
 
 import dataclasses
-import functools
 import hashlib
 import sys
 from array import array
@@ -55,11 +54,18 @@ class Input:
         }
 
 
-@functools.cache
+#: The names of the fields each class of input logs, found once per class.
+_LOGGED_NAMES: dict[type, tuple[str, ...]] = {}
+
+
 def _logged_names(kind: type[Input]) -> tuple[str, ...]:
     """Return the names of the fields an input of class ``kind`` logs (all but ``actor``),
     found once per class: the daemon logs every sample that leads to a reading."""
-    return tuple(f.name for f in dataclasses.fields(kind) if f.name != "actor")
+    names = _LOGGED_NAMES.get(kind)
+    if names is None:
+        found = (f.name for f in dataclasses.fields(kind) if f.name != "actor")
+        names = _LOGGED_NAMES[kind] = tuple(found)
+    return names
 
 
 #: Values logged as they are: JSON holds them with no conversion.

@@ -108,12 +108,19 @@ def test_a_session_recorded_before_the_input_log_is_refused_saying_why(store: St
         load_recording(store, resumed)
 
 
-def test_a_sample_naming_no_line_the_session_received_is_refused(store: Store):
+def sampled_once(store: Store, of_line: int, **sample) -> tuple[int, int]:
+    """Return (session id, line id) of a finished session of one poll, whose line ``of_line``
+    (0 the query, 1 the answer) a logged sample names, with ``sample``'s values."""
     session_id = started(store)
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    sent = store.traffic(session_id)[0].id
-    logged(store, session_id, "sample", actor="daemon", t_s=1.0, charge_nC=1.0, line_id=sent)
+    line_id = store.traffic(session_id)[of_line].id
+    logged(store, session_id, "sample", actor="daemon", **{"line_id": line_id, **sample})
     store.set_session_status(session_id, "finished")
+    return session_id, line_id
+
+
+def test_a_sample_naming_no_line_the_session_received_is_refused(store: Store):
+    session_id, sent = sampled_once(store, 0, t_s=1.0, charge_nC=1.0)
     with pytest.raises(NotReplayable, match=f"traffic line id {sent}, which is not a line"):
         load_recording(store, session_id)
 
@@ -187,12 +194,7 @@ def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
 def test_a_logged_sample_edited_by_hand_is_refused_naming_the_input_and_the_field(
     store: Store, edited: dict, said: str
 ):
-    session_id = started(store)
-    exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    answer = store.traffic(session_id)[1].id
-    sample = {"t_s": 1.001, "charge_nC": 1.0, "line_id": answer, **edited}
-    logged(store, session_id, "sample", actor="daemon", **sample)
-    store.set_session_status(session_id, "finished")
+    session_id, _ = sampled_once(store, 1, **{"t_s": 1.001, "charge_nC": 1.0, **edited})
     input_id = store.inputs(session_id)[-1].id
     with pytest.raises(NotReplayable) as refused:
         load_recording(store, session_id)
@@ -201,11 +203,7 @@ def test_a_logged_sample_edited_by_hand_is_refused_naming_the_input_and_the_fiel
 
 
 def test_a_logged_sample_with_whole_numbers_is_read_as_logged(store: Store):
-    session_id = started(store)
-    exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    answer = store.traffic(session_id)[1].id
-    logged(store, session_id, "sample", actor="daemon", t_s=2, charge_nC=1, line_id=answer)
-    store.set_session_status(session_id, "finished")
+    session_id, answer = sampled_once(store, 1, t_s=2, charge_nC=1)
     (sample,) = load_recording(store, session_id).inputs
     assert sample.given == inputs.Sample(
         actor="daemon", clock_s=1.0, t_s=2, charge_nC=1, line_id=answer

@@ -23,17 +23,18 @@ the input log a replay feeds back.
   is whole: no parsing, no store) to the same playback simulator on a real pty, answered in
   the same thread as the replay's are at speed 0, by one new process timed from its start to
   its exit (about 55,000 round trips for the full visit). The replay's ratio against it is
-  printed beside the target's.
+  printed beside the target's. (The replay keeps runs of polls in flight, one write and one
+  read a run, so its own traffic through the pty costs less than these round trips.)
 * Measured: ``chargebook replay --visit ID --speed 0 --json`` as a user runs it for the visit
   (one new process: the playback simulator on a real pty, the real driver, engine and store,
   each replay stored in the station file), timed from its start to its exit, with its CPU time;
   it must say ``reproduced`` for every session, or the run fails.
 
-Both run with Python's default of caching compiled bytecode (an installed copy has its
+All run with Python's default of caching compiled bytecode (an installed copy has its
 bytecode; an editable one under ``PYTHONDONTWRITEBYTECODE`` would compile every module at every
 start), after one untimed run of each.
 
-Rounds alternate the two. Target (issue 17, target 5): the visit's replay within 3 times the
+Rounds alternate them. Target (issue 17, target 5): the visit's replay within 3 times the
 time to push the same lines through the pty alone.
 """
 
