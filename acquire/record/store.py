@@ -581,6 +581,17 @@ def json_object(text: str) -> dict[str, Any]:
 #: What :func:`_to_json` writes with: ``json.dumps(value, sort_keys=True, allow_nan=False,
 #: ensure_ascii=False)``, the encoder made once (dumps makes one a call given these options).
 _JSON = json.JSONEncoder(sort_keys=True, allow_nan=False, ensure_ascii=False)
+#: The C part of that encoder, made once too (``encode`` makes it anew at every call: some
+#: microseconds, and the input log encodes one sample's detail a poll), without the check for
+#: a value that holds itself (then the recursion is caught, and ``encode`` names it). None
+#: where Python has no C encoder.
+_C_ENCODER = (
+    json.encoder.c_make_encoder(
+        None, _JSON.default, json.encoder.encode_basestring, None, ": ", ", ", True, False, False
+    )
+    if json.encoder.c_make_encoder is not None
+    else None
+)
 
 
 def _to_json(field: str, value: object) -> str:
@@ -588,7 +599,12 @@ def _to_json(field: str, value: object) -> str:
     if not isinstance(value, dict):
         raise InputError(field, value, allowed, "is not a dict")
     try:
-        return _JSON.encode(value)
+        if _C_ENCODER is None:
+            return _JSON.encode(value)
+        try:
+            return "".join(_C_ENCODER(value, 0))
+        except RecursionError:
+            return _JSON.encode(value)  # a value that holds itself: "Circular reference"
     except (TypeError, ValueError) as error:
         raise InputError(field, value, allowed, f"cannot be stored as JSON ({error})") from None
 
