@@ -585,11 +585,12 @@ _JSON = json.JSONEncoder(sort_keys=True, allow_nan=False, ensure_ascii=False)
 #: microseconds, and the input log encodes one sample's detail a poll), without the check for
 #: a value that holds itself (then the recursion is caught, and ``encode`` names it). None
 #: where Python has no C encoder.
+_MAKE_C_ENCODER = getattr(json.encoder, "c_make_encoder", None)  # no type stub names it
 _C_ENCODER = (
-    json.encoder.c_make_encoder(
+    _MAKE_C_ENCODER(
         None, _JSON.default, json.encoder.encode_basestring, None, ": ", ", ", True, False, False
     )
-    if json.encoder.c_make_encoder is not None
+    if _MAKE_C_ENCODER is not None
     else None
 )
 
