@@ -48,10 +48,28 @@ class Input:
 
     def fields(self) -> dict[str, Any]:
         """Return the input's own fields (not ``actor``), as they are logged (JSON values)."""
-        found = {
-            f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "actor"
+        return {
+            name: value if type(value := getattr(self, name)) in _JSON_SCALARS else _logged(value)
+            for name in _logged_names(type(self))
         }
-        return {name: _logged(value) for name, value in found.items()}
+
+
+#: The names of the fields each class of input logs, found once per class.
+_LOGGED_NAMES: dict[type, tuple[str, ...]] = {}
+
+
+def _logged_names(kind: type[Input]) -> tuple[str, ...]:
+    """Return the names of the fields an input of class ``kind`` logs (all but ``actor``),
+    found once per class: the daemon logs every sample that leads to a reading."""
+    names = _LOGGED_NAMES.get(kind)
+    if names is None:
+        found = (f.name for f in dataclasses.fields(kind) if f.name != "actor")
+        names = _LOGGED_NAMES[kind] = tuple(found)
+    return names
+
+
+#: Values logged as they are: JSON holds them with no conversion.
+_JSON_SCALARS = frozenset({float, int, str, bool, type(None)})
 
 
 def _logged(value: Any) -> Any:

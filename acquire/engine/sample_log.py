@@ -57,14 +57,27 @@ def logged_entries(chunks: Sequence[Chunk]) -> list[Entry]:
                 entries.extend(_run_entries(parts, first_id, clock_s, actor))
                 parts, first_id, next_id, actor = [], line_id, line_id, chunk_actor
             if line_id is None:
-                lone = sample_input(chunk_clock_s, samples[start], None, actor)
-                entries.append((lone.kind, lone.actor, lone.fields()))
+                entries.append(_lone_entry(chunk_clock_s, samples[start], None, actor))
                 continue
             parts.append(samples[start:stop])
             next_id = line_id + stop - start
             clock_s = chunk_clock_s
     entries.extend(_run_entries(parts, first_id, clock_s, actor))
     return entries
+
+
+def _lone_entry(clock_s: float, sample: Any, line_id: int | None, actor: str) -> Entry:
+    """Return the ``sample`` entry of one sample: the input the engine was given, where it
+    was given one (``Engine.apply``, the same clock, row and actor), else one made for it."""
+    if not (
+        type(sample) is inputs.Sample
+        and type(sample.status) is str
+        and sample.clock_s == clock_s
+        and sample.line_id == line_id
+        and sample.actor == actor
+    ):
+        sample = sample_input(clock_s, sample, line_id, actor)
+    return sample.kind, sample.actor, sample.fields()
 
 
 def _spans(line_ids: Sequence[int | None]) -> Iterator[tuple[int, int, int | None]]:
@@ -91,8 +104,7 @@ def _run_entries(
     if not samples or first_id is None:
         return []
     if len(samples) == 1:
-        lone = sample_input(clock_s, samples[0], first_id, actor)
-        return [(lone.kind, lone.actor, lone.fields())]
+        return [_lone_entry(clock_s, samples[0], first_id, actor)]
     last = samples[-1]
     run = inputs.SampleRun(
         actor=actor,

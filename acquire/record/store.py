@@ -581,6 +581,18 @@ def json_object(text: str) -> dict[str, Any]:
 #: What :func:`_to_json` writes with: ``json.dumps(value, sort_keys=True, allow_nan=False,
 #: ensure_ascii=False)``, the encoder made once (dumps makes one a call given these options).
 _JSON = json.JSONEncoder(sort_keys=True, allow_nan=False, ensure_ascii=False)
+#: The C part of that encoder, made once too (``encode`` makes it anew at every call: some
+#: microseconds, and the input log encodes one sample's detail a poll), without the check for
+#: a value that holds itself (then the recursion is caught, and ``encode`` names it). None
+#: where Python has no C encoder.
+_MAKE_C_ENCODER = getattr(json.encoder, "c_make_encoder", None)  # no type stub names it
+_C_ENCODER = (
+    _MAKE_C_ENCODER(
+        None, _JSON.default, json.encoder.encode_basestring, None, ": ", ", ", True, False, False
+    )
+    if _MAKE_C_ENCODER is not None
+    else None
+)
 
 
 def _to_json(field: str, value: object) -> str:
@@ -588,7 +600,12 @@ def _to_json(field: str, value: object) -> str:
     if not isinstance(value, dict):
         raise InputError(field, value, allowed, "is not a dict")
     try:
-        return _JSON.encode(value)
+        if _C_ENCODER is None:
+            return _JSON.encode(value)
+        try:
+            return "".join(_C_ENCODER(value, 0))
+        except RecursionError:
+            return _JSON.encode(value)  # a value that holds itself: "Circular reference"
     except (TypeError, ValueError) as error:
         raise InputError(field, value, allowed, f"cannot be stored as JSON ({error})") from None
 
@@ -748,6 +765,11 @@ class Store:
             if path is not None:
                 store.db.enable_wal()
             conn.execute("PRAGMA synchronous = FULL")
+            # A nested ``atomic`` block is a savepoint, whose undo copies of the pages it changes
+            # (the statement journal) SQLite would write to a temporary file: a replay writes a
+            # whole session in savepoints within one transaction, 0.6 s of a visit's 110,000
+            # raw lines. Kept in memory, they cost a third of that.
+            conn.execute("PRAGMA temp_store = MEMORY")
             migrate(store.db)
             restore_session_results(store.db)
         return store
@@ -1837,6 +1859,18 @@ class Store:
         if session_id is None:
             return self._select(TrafficRow, "traffic", "session_id IS NULL")
         return self._select(TrafficRow, "traffic", "session_id = ?", (session_id,))
+
+    def placed_inputs(self, session_id: int) -> list[tuple[int, str, str, str, int]]:
+        """Return the session's logged inputs in the order they were applied, each as (id,
+        kind, actor, detail as JSON text, place in the session's chain): what a replay feeds
+        back, in one query, without a row object per input (a query-mode session logs one a
+        poll)."""
+        sql = (
+            "SELECT id, kind, actor, detail_json, chain_seq FROM inputs WHERE session_id = ? "
+            "ORDER BY id"
+        )
+        with self._lock:
+            return self.conn.execute(sql, (session_id,)).fetchall()
 
     def placed_traffic(self, session_id: int) -> list[tuple[int, float, str, bytes, int]]:
         """Return the session's raw traffic in the order recorded, each line as (id, t_s,

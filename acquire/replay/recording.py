@@ -20,13 +20,20 @@ log does not begin with its ``session_start``, and it is refused in words.
 
 from __future__ import annotations
 
+import json
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 from chargebook.acquire.engine import inputs
 from chargebook.acquire.record.events import EventKind
-from chargebook.acquire.record.store import EventRow, InputRow, SessionRow, Store, TrafficRow
+from chargebook.acquire.record.store import (
+    EventRow,
+    SessionRow,
+    Store,
+    TrafficRow,
+    json_object,
+)
 from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
 
@@ -118,8 +125,8 @@ def load_recording(store: Store, session_id: int) -> Recording:
             f"session {session_id} is still {session.status}: a daemon may still be writing to "
             "it; replay it once it is finished or aborted"
         )
-    logged = store.inputs(session_id)
-    if not logged or logged[0].kind != inputs.StartSession.kind:
+    logged = store.placed_inputs(session_id)  # (id, kind, actor, detail, place) each
+    if not logged or logged[0][1] != inputs.StartSession.kind:
         raise NotReplayable(before_the_input_log(session_id))
     events = store.events(session_id)
     placed = store.placed_traffic(session_id)  # (id, t_s, direction, line, place) each
@@ -134,9 +141,9 @@ def load_recording(store: Store, session_id: int) -> Recording:
     )
     places = (0,) * len(before) + tuple(p[4] for p in placed)
     profile, time_scale = _acquisition(events)
-    start = inputs.from_logged(logged[0].kind, logged[0].actor, logged[0].detail())
+    _, kind, actor, detail, _ = logged[0]
+    start = inputs.from_logged(kind, actor, json_object(detail))
     assert isinstance(start, inputs.StartSession)
-    input_places = store.chain_places("inputs", session_id)
     return Recording(
         session=session,
         thresholds=rules.session_thresholds(events),
@@ -144,54 +151,92 @@ def load_recording(store: Store, session_id: int) -> Recording:
         time_scale=time_scale,
         lines=lines,
         start=start,
-        inputs=tuple(placed_inputs(logged[1:], input_places, lines, line_ids, places)),
+        inputs=tuple(placed_inputs(session_id, logged[1:], lines, line_ids, places)),
         places=places,
         reading_ids=tuple(row.id for row in store.readings(session_id)),
     )
 
 
+#: A logged input as :meth:`Store.placed_inputs` gives it: (id, kind, actor, detail as JSON
+#: text, place in the session's chain).
+LoggedRow = tuple[int, str, str, str, int]
+
+
 def placed_inputs(
-    logged: Sequence[InputRow],
-    input_places: dict[int, int],
+    session_id: int,
+    logged: Sequence[LoggedRow],
     lines: Sequence[RecordedLine],
     line_ids: Sequence[int],
     places: Sequence[int],
 ) -> list[LoggedInput]:
-    """Return the logged inputs, in order, each placed after the traffic lines before it in the
-    session's chain (``input_places``: input id -> place; ``line_ids`` and ``places``: each
-    line's row id and place), a sample right after the line it names, a run of samples after
-    its last line. NotReplayable for a sample naming a line the session did not receive."""
+    """Return the logged inputs of session ``session_id``, in order, each placed after the
+    traffic lines before it in the session's chain (``line_ids`` and ``places``: each line's
+    row id and place), a sample right after the line it names, a run of samples after its last
+    line. NotReplayable for a sample naming a line the session did not receive."""
     line_index: dict[int | None, int] = {row_id: index for index, row_id in enumerate(line_ids)}
     found: list[LoggedInput] = []
     position = 0
     for row in logged:
-        given = _logged_input(row)
+        given = _logged_input(session_id, row)
         line, count = None, 1
         if isinstance(given, inputs.Sample | inputs.SampleRun):
             named = given.line_ids if isinstance(given, inputs.SampleRun) else [given.line_id]
-            line = _received_lines(row, named, line_index, lines, line_ids)
+            line = _received_lines(session_id, row[0], named, line_index, lines, line_ids)
             count = len(named)
             position = max(position, line + count)
         else:
-            while position < len(places) and places[position] < input_places[row.id]:
+            while position < len(places) and places[position] < row[4]:
                 position += 1
-        found.append(LoggedInput(position, given, row.id, line, count))
+        found.append(LoggedInput(position, given, row[0], line, count))
     return found
 
 
-def _logged_input(row: InputRow) -> inputs.Input:
+def _logged_input(session_id: int, row: LoggedRow) -> inputs.Input:
     """Return the input a row of the log holds; NotReplayable, in words, for a row whose detail
     is not what its kind holds (a field missing, unknown, or of another type: edited by hand,
     which ``verify`` names too)."""
+    row_id, kind, actor, detail, _ = row
     try:
-        given = inputs.from_logged(row.kind, row.actor, row.detail())
-        if isinstance(given, inputs.Sample | inputs.SampleRun):
+        if kind == inputs.Sample.kind:  # most of a query-mode log: one a poll
+            return _logged_sample(actor, _detail(detail))
+        given = inputs.from_logged(kind, actor, _detail(detail))
+        if isinstance(given, inputs.SampleRun):
             _check_sample_fields(given)
     except (TypeError, ValueError) as error:
         raise NotReplayable(
-            f"input {row.id} of session {row.session_id} ({row.kind}) cannot be read from the "
-            f"input log: {error} (`chargebook verify {row.session_id}` checks the record)"
+            f"input {row_id} of session {session_id} ({kind}) cannot be read from the "
+            f"input log: {error} (`chargebook verify {session_id}` checks the record)"
         ) from None
+    return given
+
+
+#: Decodes one JSON value at the start of a text: (the value, where it ends).
+_DECODE = json.JSONDecoder().raw_decode
+
+
+def _detail(text: str) -> Any:
+    """Return the value of a logged input's detail (JSON text): json.loads's, without its
+    steps around the decoding (a query-mode session logs one input a poll); ValueError, as
+    json.loads says it, where the text is not one JSON value."""
+    try:
+        value, end = _DECODE(text)
+    except ValueError:
+        end = -1
+    return value if end == len(text) else json_object(text)
+
+
+def _logged_sample(actor: str, detail: dict[str, Any]) -> inputs.Sample:
+    """Return the sample a logged detail holds, its values checked as
+    :func:`_check_sample_fields` checks them (TypeError or ValueError where they are not)."""
+    given = inputs.Sample(actor=actor, **detail)
+    line_id = given.line_id
+    if not (
+        type(given.t_s) is float
+        and type(given.charge_nC) is float
+        and type(given.status) is str
+        and (line_id is None or (type(line_id) is int and line_id >= 1))
+    ):
+        _check_sample_fields(given)  # an integer value, or one that names what is wrong
     return given
 
 
@@ -216,7 +261,8 @@ def _check_sample_fields(given: inputs.Sample | inputs.SampleRun) -> None:
 
 
 def _received_lines(
-    row: InputRow,
+    session_id: int,
+    input_id: int,
     named: Sequence[int | None],
     line_index: dict[int | None, int],
     lines: Sequence[RecordedLine],
@@ -232,11 +278,11 @@ def _received_lines(
             lines[index].direction != "rx"
         ):
             raise NotReplayable(
-                f"input {row.id} of session {row.session_id} is a sample of traffic line id "
+                f"input {input_id} of session {session_id} is a sample of traffic line id "
                 f"{line_id}, which is not a line the session received"
             )
     if first is None:
-        raise NotReplayable(f"input {row.id} of session {row.session_id} names no traffic line")
+        raise NotReplayable(f"input {input_id} of session {session_id} names no traffic line")
     return first
 
 

@@ -20,7 +20,7 @@ import struct
 from pathlib import Path
 
 import pytest
-from chargebook.acquire.engine import inputs
+from chargebook.acquire.engine import inputs, sample_log
 from chargebook.acquire.protocol import Method
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.record.verify import verify_session
@@ -105,6 +105,30 @@ def test_samples_on_lines_apart_or_unrecorded_are_logged_apart_in_order():
     ]
     assert logged[1][1]["charge_nC"] == samples[2].charge_nC
     assert logged[2][1]["digest"] == expected_digest(samples[3:])
+
+
+def test_a_lone_sample_is_logged_with_the_values_of_the_input_that_gave_it():
+    given = inputs.Sample(
+        actor="daemon (replayed)",
+        clock_s=7.25,
+        t_s=7.2,
+        charge_nC=1.5,
+        complete=True,
+        status="overrange",
+        line_id=12,
+    )
+    logged = {"clock_s": 7.25, "t_s": 7.2, "charge_nC": 1.5, "complete": True}
+    logged |= {"status": "overrange", "line_id": 12}
+    assert sample_log.logged_entries([(7.25, (given,), (12,), given.actor)]) == [
+        ("sample", "daemon (replayed)", logged)
+    ]
+    # a driver's sample (its status a ReadingStatus), and an input given at another clock,
+    # on another row or by another actor, are logged as the engine took them
+    read = Sample(7.2, 1.5, ReadingStatus.OVERRANGE, True)
+    for taken in (read, given):
+        entries = sample_log.logged_entries([(8.5, (taken,), (14,), "daemon")])
+        assert entries == [("sample", "daemon", logged | {"clock_s": 8.5, "line_id": 14})]
+        assert type(entries[0][2]["status"]) is str
 
 
 def test_a_logged_run_cannot_be_applied_without_its_samples():

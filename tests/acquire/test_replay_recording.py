@@ -108,12 +108,19 @@ def test_a_session_recorded_before_the_input_log_is_refused_saying_why(store: St
         load_recording(store, resumed)
 
 
-def test_a_sample_naming_no_line_the_session_received_is_refused(store: Store):
+def sampled_once(store: Store, of_line: int, **sample) -> tuple[int, int]:
+    """Return (session id, line id) of a finished session of one poll, whose line ``of_line``
+    (0 the query, 1 the answer) a logged sample names, with ``sample``'s values."""
     session_id = started(store)
     exchange(store, session_id, 1.0, b"Q?\r\n", b"Q +1.0000 nC A\r\n")
-    sent = store.traffic(session_id)[0].id
-    logged(store, session_id, "sample", actor="daemon", t_s=1.0, charge_nC=1.0, line_id=sent)
+    line_id = store.traffic(session_id)[of_line].id
+    logged(store, session_id, "sample", actor="daemon", **{"line_id": line_id, **sample})
     store.set_session_status(session_id, "finished")
+    return session_id, line_id
+
+
+def test_a_sample_naming_no_line_the_session_received_is_refused(store: Store):
+    session_id, sent = sampled_once(store, 0, t_s=1.0, charge_nC=1.0)
     with pytest.raises(NotReplayable, match=f"traffic line id {sent}, which is not a line"):
         load_recording(store, session_id)
 
@@ -172,3 +179,54 @@ def test_where_the_session_stood_at_each_line_is_said_in_words(store: Store):
     assert words[0] == "in reading set 'routine' (attempt 1) after 0 readings"
     assert words[2] == "in reading set 'routine' (attempt 1) after 1 reading"
     assert words[4] == "after reading set 'routine' (attempt 1) ended accepted"
+
+
+@pytest.mark.parametrize(
+    ("edited", "said"),
+    [
+        ({"t_s": "ten"}, "t_s is 'ten', not a number"),
+        ({"charge_nC": True}, "charge_nC is True, not a number"),
+        ({"status": 0}, "status is 0, not text"),
+        ({"line_id": 0}, "line_id is 0, not a whole number of at least 1"),
+        ({"volts": 300.0}, "unexpected keyword argument 'volts'"),
+    ],
+)
+def test_a_logged_sample_edited_by_hand_is_refused_naming_the_input_and_the_field(
+    store: Store, edited: dict, said: str
+):
+    session_id, _ = sampled_once(store, 1, **{"t_s": 1.001, "charge_nC": 1.0, **edited})
+    input_id = store.inputs(session_id)[-1].id
+    with pytest.raises(NotReplayable) as refused:
+        load_recording(store, session_id)
+    assert f"input {input_id} of session {session_id} (sample) cannot be read" in str(refused.value)
+    assert said in str(refused.value)
+
+
+def test_a_logged_sample_with_whole_numbers_is_read_as_logged(store: Store):
+    session_id, answer = sampled_once(store, 1, t_s=2, charge_nC=1)
+    (sample,) = load_recording(store, session_id).inputs
+    assert sample.given == inputs.Sample(
+        actor="daemon", clock_s=1.0, t_s=2, charge_nC=1, line_id=answer
+    )
+    assert (sample.position, sample.line) == (2, 1)
+
+
+@pytest.mark.parametrize(
+    ("detail_json", "said"),
+    [('{"t_s": 1.0, "charge_nC"', "Expecting ':' delimiter"), ('{"t_s": 1.0} {}', "Extra data")],
+)
+def test_a_logged_detail_that_is_not_one_json_object_is_refused_as_json_says(
+    store: Store, detail_json: str, said: str
+):
+    session_id = started(store)
+    with store.atomic():  # written by hand past the store's API, chain values and all
+        store.conn.execute(
+            "INSERT INTO inputs (session_id, recorded_at, kind, actor, detail_json, chain_seq, "
+            "chain_hash) VALUES (?, 'then', 'sample', 'daemon', ?, 99, 'edited')",
+            (session_id, detail_json),
+        )
+    store.set_session_status(session_id, "finished")
+    with pytest.raises(NotReplayable, match=f"session {session_id} \\(sample\\) cannot be read"):
+        load_recording(store, session_id)
+    with pytest.raises(NotReplayable, match=said):
+        load_recording(store, session_id)

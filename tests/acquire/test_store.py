@@ -6,6 +6,7 @@ that dies without closing) for WAL, durability and resume.
 
 from __future__ import annotations
 
+import json
 import sqlite3
 import subprocess
 import sys
@@ -140,6 +141,8 @@ def test_file_store_uses_wal_and_full_sync(tmp_path: Path) -> None:
         # SQLite documentation, PRAGMA synchronous: FULL is 2.
         assert store.db.execute("PRAGMA synchronous").fetchone()[0] == 2
         assert store.db.execute("PRAGMA foreign_keys").fetchone()[0] == 1
+        # SQLite documentation, PRAGMA temp_store: MEMORY is 2 (a savepoint's undo pages).
+        assert store.db.execute("PRAGMA temp_store").fetchone()[0] == 2
 
 
 def test_read_only_open_needs_an_existing_file_and_cannot_write(tmp_path: Path) -> None:
@@ -363,6 +366,23 @@ def test_append_only_tables_refuse_update_and_delete(store: Store, table: str) -
 # ---------------------------------------------------------------------------- bad input
 
 
+def _holding_itself() -> dict:
+    detail: dict = {"text": "x"}
+    detail["again"] = detail
+    return detail
+
+
+def test_an_inputs_detail_is_stored_as_pythons_json_writes_it_keys_sorted(store: Store) -> None:
+    session_id, _ = _session_with_set(store)
+    detail = {"t_s": 0.1 + 0.2, "b": [1, None, "é\n"], "a": {"z": True, "y": 2}}
+    store.add_inputs(session_id, [("note", "me", detail)])
+    row = store.inputs(session_id)[-1]
+    # the reference: Python's json module, with the options the store documents
+    written = json.dumps(detail, sort_keys=True, allow_nan=False, ensure_ascii=False)
+    assert row.detail_json == written
+    assert row.detail() == detail
+
+
 @pytest.mark.parametrize(
     ("call", "field"),
     [
@@ -398,6 +418,7 @@ def test_append_only_tables_refuse_update_and_delete(store: Store, table: str) -
             "pressure_kPa",
         ),
         (lambda s, ses, set_id: s.create_session({"a": {1, 2}}, {}, "trs398", "6 MV"), "metadata"),
+        (lambda s, ses, set_id: s.add_inputs(ses, [("note", "me", _holding_itself())]), "detail"),
         (lambda s, ses, set_id: s.create_session({}, [], "trs398", "6 MV"), "plan"),
     ],
 )

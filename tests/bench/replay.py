@@ -17,16 +17,24 @@ the input log a replay feeds back.
   pyserial (``readline`` on an ``io.BufferedReader`` over the port, timeout 0.05 s, as in the
   pipeline benchmark), timed from its start to its exit. Also shown, as the earlier figures
   were measured: each session's lines read by a process of its own, the nine times summed.
+* The floor of a replay that must query: a query-mode recording is played by answering each
+  poll, so a replay cannot push its lines one way. The same visit's queries sent one at a time
+  with bare pyserial (``write``, then ``read`` of the bytes waiting until the recorded answer
+  is whole: no parsing, no store) to the same playback simulator on a real pty, answered in
+  the same thread as the replay's are at speed 0, by one new process timed from its start to
+  its exit (about 55,000 round trips for the full visit). The replay's ratio against it is
+  printed beside the target's. (The replay keeps runs of polls in flight, one write and one
+  read a run, so its own traffic through the pty costs less than these round trips.)
 * Measured: ``chargebook replay --visit ID --speed 0 --json`` as a user runs it for the visit
   (one new process: the playback simulator on a real pty, the real driver, engine and store,
   each replay stored in the station file), timed from its start to its exit, with its CPU time;
   it must say ``reproduced`` for every session, or the run fails.
 
-Both run with Python's default of caching compiled bytecode (an installed copy has its
+All run with Python's default of caching compiled bytecode (an installed copy has its
 bytecode; an editable one under ``PYTHONDONTWRITEBYTECODE`` would compile every module at every
 start), after one untimed run of each.
 
-Rounds alternate the two. Target (issue 17, target 5): the visit's replay within 3 times the
+Rounds alternate them. Target (issue 17, target 5): the visit's replay within 3 times the
 time to push the same lines through the pty alone.
 """
 
@@ -37,6 +45,7 @@ import contextlib
 import datetime
 import json
 import os
+import pickle
 import resource
 import subprocess
 import sys
@@ -49,6 +58,9 @@ from typing import Any
 from chargebook.acquire.commands.demo_data import DEMO_METADATA, demo_visit_beams
 from chargebook.acquire.daemon.daemon import POLL_INTERVAL_S
 from chargebook.acquire.processes import chargebook_args
+from chargebook.acquire.replay.recording import RecordedLine
+from chargebook.acquire.replay.traffic import TX, line_text
+from chargebook.drivers_generic import load_profile
 
 from tests.acquire.in_process_daemon import InProcessDaemon, running
 from tests.bench import report
@@ -78,6 +90,32 @@ while received < count:  # a line cut by the timeout is counted once, when its e
 """
 
 
+#: The floor's process: the playback simulator on a pty in this process (answering in turn, as
+#: at speed 0), each recorded query written with pyserial and its recorded answer read back
+#: whole, one round trip at a time. argv: the pickled sessions, the profile's name.
+ROUND_TRIPS = """
+import pickle, sys, serial
+from chargebook.drivers_generic import load_profile
+from chargebook.drivers_generic.simulator.playback import playback_port
+framing = load_profile(sys.argv[2]).framing
+with open(sys.argv[1], "rb") as file:
+    sessions = pickle.load(file)
+wrong = 0
+for entries, exchanges in sessions:
+    with playback_port(entries, framing, "query", 0) as port:
+        link = serial.Serial(str(port.path), baudrate=115200, timeout=2.0)
+        for query, answer in exchanges:
+            link.write(query)
+            port.answer(1)
+            got = b""
+            while len(got) < len(answer):
+                got += link.read(max(link.in_waiting, 1))
+            wrong += got != answer
+        link.close()
+sys.exit(1 if wrong else 0)
+"""
+
+
 @dataclass(frozen=True)
 class Timed:
     """A timed process: its wall time and the CPU time (user + system) it used, s."""
@@ -88,10 +126,12 @@ class Timed:
 
 @dataclass(frozen=True)
 class Recorded:
-    """One session of the visit: its id and raw traffic lines (bytes, terminators kept)."""
+    """One session of the visit: its id, raw traffic lines (bytes, terminators kept) and each
+    line's direction (``tx`` sent, ``rx`` received)."""
 
     session_id: int
     lines: tuple[bytes, ...]
+    directions: tuple[str, ...]
 
 
 # ---------------------------------------------------------------------------- recording
@@ -100,18 +140,18 @@ def record_visit(db: Path, beams: int, visit_s: float) -> list[Recorded]:
     return its sessions, in the order measured."""
     asyncio.run(_record(db, beams, visit_s))
     sessions = read_db(db, "SELECT id FROM sessions ORDER BY id")
-    return [
-        Recorded(
-            int(session_id),
-            tuple(
-                bytes(line)
-                for (line,) in read_db(
-                    db, "SELECT line FROM traffic WHERE session_id = ? ORDER BY id", (session_id,)
-                )
-            ),
+    found = []
+    for (session_id,) in sessions:
+        sql = "SELECT line, direction FROM traffic WHERE session_id = ? ORDER BY id"
+        rows = read_db(db, sql, (session_id,))
+        found.append(
+            Recorded(
+                int(session_id),
+                tuple(bytes(line) for line, _ in rows),
+                tuple(direction for _, direction in rows),
+            )
         )
-        for (session_id,) in sessions
-    ]
+    return found
 
 
 #: Names of the beams past the demo's own three, by the demo beam they repeat (invented).
@@ -238,6 +278,50 @@ def _write_all(fd: int, data: bytes) -> None:
         view = view[os.write(fd, view) :]
 
 
+def round_trips(visit: list[Recorded], workdir: Path, env: dict[str, str]) -> Timed:
+    """Return the wall and CPU time of a new process sending the visit's queries to the
+    playback simulator on a pty with bare pyserial, one round trip at a time (see
+    ``ROUND_TRIPS``)."""
+    played = workdir / "round_trips.pickle"
+    if not played.exists():
+        profile = load_profile(PROFILE)
+        sessions = [_exchanges(profile, recorded) for recorded in visit]
+        played.write_bytes(pickle.dumps(sessions, protocol=pickle.HIGHEST_PROTOCOL))
+    command = [sys.executable, "-c", ROUND_TRIPS, str(played), PROFILE]
+    cpu_before = _children_cpu_s()
+    started = time.perf_counter()
+    done = subprocess.run(command, capture_output=True, timeout=GIVE_UP_S, check=False, env=env)
+    elapsed = time.perf_counter() - started
+    if done.returncode != 0:
+        raise RuntimeError(
+            f"the round trips failed (exit {done.returncode}): {done.stderr.decode()[-400:]}"
+        )
+    return Timed(elapsed, _children_cpu_s() - cpu_before)
+
+
+def _exchanges(
+    profile: Any, recorded: Recorded
+) -> tuple[list[tuple[float, str, str]], list[tuple[bytes, bytes]]]:
+    """Return one session's playback entries (a line received before the session's first
+    query, the answer to a query sent outside it, is left out) and its exchanges: each query
+    sent with the bytes of the answer recorded after it."""
+    pairs = list(zip(recorded.directions, recorded.lines, strict=True))
+    while pairs and pairs[0][0] != TX:
+        pairs.pop(0)
+    entries = [
+        (0.0, direction, line_text(profile, RecordedLine(index, 0.0, direction, raw)))
+        for index, (direction, raw) in enumerate(pairs)
+    ]
+    exchanges: list[tuple[bytes, bytes]] = []
+    for direction, raw in pairs:
+        if direction == TX:
+            exchanges.append((raw, b""))
+        else:
+            query, answer = exchanges[-1]
+            exchanges[-1] = (query, answer + raw)
+    return entries, exchanges
+
+
 # ----------------------------------------------------------------------------- the replay
 def replay_visit(db: Path, visit_id: int, visit: list[Recorded], env: dict[str, str]) -> Timed:
     """Return the wall and CPU time of `chargebook replay --visit ID --speed 0`, a new process;
@@ -282,20 +366,26 @@ def main(argv: list[str] | None = None) -> int:
             + ", ".join(f"{r.session_id} ({len(r.lines)} lines)" for r in visit)
         )
         env = children_env(workdir)
-        replay_visit(db, visit_id, visit, env), pty_alone(lines, env)  # untimed: bytecode
-        alone, by_session, replayed = [], [], []
+        replay_visit(db, visit_id, visit, env)  # untimed, each once: bytecode
+        pty_alone(lines, env)
+        round_trips(visit, workdir, env)
+        alone, by_session, floor, replayed = [], [], [], []
         for _ in range(rounds):
             alone.append(pty_alone(lines, env))
             by_session.append(sum(pty_alone(list(r.lines), env).wall_s for r in visit))
+            floor.append(round_trips(visit, workdir, env))
             replayed.append(replay_visit(db, visit_id, visit, env))
-    for number, (base, apart_s, measured) in enumerate(
-        zip(alone, by_session, replayed, strict=True), 1
+    queries = sum(direction == TX for r in visit for direction in r.directions)
+    for number, (base, apart_s, trips, measured) in enumerate(
+        zip(alone, by_session, floor, replayed, strict=True), 1
     ):
         out.note(
             f"round {number}: pty alone {base.wall_s:.2f} s (CPU {base.cpu_s:.2f} s), replay "
             f"{measured.wall_s:.2f} s (CPU {measured.cpu_s:.2f} s), ratio "
             f"{measured.wall_s / base.wall_s:.2f} (CPU {measured.cpu_s / base.cpu_s:.2f}); "
             f"a reader per session {apart_s:.2f} s (ratio {measured.wall_s / apart_s:.2f}); "
+            f"{queries} round trips {trips.wall_s:.2f} s (CPU {trips.cpu_s:.2f} s, ratio "
+            f"{measured.wall_s / trips.wall_s:.2f}, CPU {measured.cpu_s / trips.cpu_s:.2f}); "
             "every session reproduced"
         )
     out.note(f"load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
@@ -311,6 +401,16 @@ def main(argv: list[str] | None = None) -> int:
         "s",
     )
     out.ratio(ratio, "median of the rounds' replay / pty alone")
+    out.baseline(
+        f"the floor: the visit's {queries} queries as bare pyserial query/answer round trips "
+        "to the playback simulator on a pty, one new process (median)",
+        report.median([t.wall_s for t in floor]),
+        "s",
+    )
+    out.ratio(
+        report.median([m.wall_s / t.wall_s for m, t in zip(replayed, floor, strict=True)]),
+        "median of the rounds' replay / round trips (the floor of a replay that must query)",
+    )
     met = ratio <= TARGET_RATIO
     out.target(
         f"replay <= {TARGET_RATIO:g} x the pty alone", met, f"{ratio / TARGET_RATIO:.1f} times it"

@@ -39,3 +39,6 @@ def test_the_smoke_run_prints_its_figures(name: str) -> None:
     met = all(line.endswith(report.MET) for line in lines["target"])
     assert lines["result"] == [report.MET if met else report.MISSED]
     assert (done.returncode == report.EXIT_MET) == met
+    if name == "replay":  # beside the target's baseline, the floor of a replay that must query
+        assert len(lines["baseline"]) == len(lines["ratio"]) == 2, said
+        assert "query/answer round trips" in lines["baseline"][1], said
