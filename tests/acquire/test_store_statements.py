@@ -63,6 +63,22 @@ def test_a_reading_asks_the_file_for_no_id_or_chain_end_the_store_already_knows(
     assert verify_session(engine.store, engine.session_id).verified
 
 
+def test_a_thousand_kept_raw_lines_go_in_six_statements_every_row_chained(tmp_path: Path) -> None:
+    with Store.open(tmp_path / "station.sqlite") as store:
+        session_id = store.create_session({}, {}, "trs398", "6 MV")
+        lines = [f"S q=+{number}.0E-09 C OK\n".encode() for number in range(1000)]
+        store.keep_traffic_burst(session_id, 1.0, store.stamp(), "rx", lines)
+        with traced(store.db.conn) as statements:
+            assert store.commit_traffic() == 1000
+        # 512 + 256 + 128 + 64 + 32 + 8 rows; was one statement per row
+        # (the trace repeats a statement for each trigger it runs: count the distinct ones)
+        assert len({text for text in statements if text.startswith("INSERT INTO traffic")}) == 6
+        rows = store.traffic(session_id)
+        assert [row.line for row in rows] == lines
+        assert [row.id for row in rows] == list(range(rows[0].id, rows[0].id + 1000))
+        assert verify_session(store, session_id).verified
+
+
 def test_rows_another_connection_commits_are_seen_before_the_next_append(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as daemon, Store.open(path) as other:
