@@ -1859,25 +1859,30 @@ class Store:
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _SESSION_OF = itemgetter(0)
 #: The most rows one INSERT statement of :func:`_insert_chained` carries (8 values a traffic
-#: row: well inside SQLite's 32,766 parameters a statement).
+#: row; fewer where the SQLite library takes fewer parameters a statement: 999 before 3.32).
 ROWS_PER_INSERT = 512
 
 
 def _insert_chained(conn: sqlite3.Connection, table: str, rows: Sequence[tuple[Any, ...]]) -> None:
     """Insert rows of a chained table (``traffic`` or ``inputs``), each its hashed columns then
     ``chain_seq`` and ``chain_hash``, in as few statements as carry them: ROWS_PER_INSERT rows
-    a statement, the rest in statements of a power of two rows (a dozen texts, each prepared
-    once). Every row passes the table's triggers and constraints as it would alone.
+    a statement (or as many as the library's limit on parameters allows), the rest in
+    statements of a power of two rows (a dozen texts, each prepared once). Every row passes
+    the table's triggers and constraints as it would alone.
 
     One row a statement (``executemany``) would drop and take back the GIL around every row:
     the instrument thread, reading a streaming port meanwhile, would then hand it back and
     forth at each line, and the commit would wait a switch interval for it again and again.
     SQLite runs a statement of many rows without the GIL, beside that thread's work.
     """
+    columns = len(chain.COLUMNS[table]) + 2
+    most = max(
+        min(ROWS_PER_INSERT, conn.getlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER) // columns), 1
+    )
     start, total = 0, len(rows)
     while start < total:
         left = total - start
-        size = ROWS_PER_INSERT if left >= ROWS_PER_INSERT else 1 << (left.bit_length() - 1)
+        size = most if left >= most else 1 << (left.bit_length() - 1)
         values = list(chain_iterables.from_iterable(rows[start : start + size]))
         conn.execute(_insert_sql(table, size), values)
         start += size

@@ -79,6 +79,21 @@ def test_a_thousand_kept_raw_lines_go_in_six_statements_every_row_chained(tmp_pa
         assert verify_session(store, session_id).verified
 
 
+def test_kept_raw_lines_fit_a_library_taking_999_parameters_a_statement(tmp_path: Path) -> None:
+    # SQLite before 3.32 takes at most 999 parameters a statement (sqlite.org/limits.html)
+    with Store.open(tmp_path / "station.sqlite") as store:
+        store.db.conn.setlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER, 999)
+        session_id = store.create_session({}, {}, "trs398", "6 MV")
+        lines = [f"S q=+{number}.0E-09 C OK\n".encode() for number in range(1000)]
+        store.keep_traffic_burst(session_id, 1.0, store.stamp(), "rx", lines)
+        with traced(store.db.conn) as statements:
+            assert store.commit_traffic() == 1000
+        # 8 x 124 rows (8 values a row) and 8 rows
+        assert len({text for text in statements if text.startswith("INSERT INTO traffic")}) == 9
+        assert [row.line for row in store.traffic(session_id)] == lines
+        assert verify_session(store, session_id).verified
+
+
 def test_rows_another_connection_commits_are_seen_before_the_next_append(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as daemon, Store.open(path) as other:
