@@ -132,4 +132,6 @@ class BurstParser:
         complete: list[bool] | repeat[bool] = repeat(False)
         if self._kind is not None:
             complete = list(map(fmt.complete_value.__eq__, map(self._kind, found)))
-        return list(map(Sample._make, zip(repeat(t_s), charges, statuses, complete, texts)))
+        # tuple.__new__ straight from C: Sample._make is a Python call per line
+        rows = zip(repeat(t_s), charges, statuses, complete, texts)
+        return list(map(tuple.__new__, repeat(Sample), rows))

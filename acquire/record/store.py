@@ -37,6 +37,7 @@ from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields, replace
 from datetime import UTC, datetime
+from itertools import chain as chain_iterables
 from itertools import repeat
 from operator import itemgetter
 from pathlib import Path
@@ -1054,7 +1055,7 @@ class Store:
             self._set_chain_head(key, rows[-1][-2], rows[-1][-1])
             next_id += end - start
             start = end
-        self.conn.executemany(_INSERT_CHAINED["traffic"], rows)
+        _insert_chained(self.conn, "traffic", rows)
         self._set_next_id("traffic", next_id)
         return next_id - 1
 
@@ -1734,7 +1735,7 @@ class Store:
                 seq += 1
                 digest = chain.link_input(digest, seq, values)
                 chained.append((*values, seq, digest))
-            self.conn.executemany(_INSERT_CHAINED["inputs"], chained)
+            _insert_chained(self.conn, "inputs", chained)
             self._set_next_id("inputs", next_id + len(chained))
             if chained:
                 self._set_chain_head(key, seq, digest)
@@ -1900,11 +1901,42 @@ class Store:
 
 _TRAFFIC_COLUMNS = ("session_id", "t_s", "recorded_at", "direction", "line")
 _SESSION_OF = itemgetter(0)
-_INSERT_CHAINED = {
-    table: f"INSERT INTO {table} ({', '.join(chain.COLUMNS[table])}, chain_seq, "
-    f"chain_hash) VALUES ({', '.join('?' for _ in chain.COLUMNS[table])}, ?, ?)"
-    for table in ("traffic", "inputs")
-}
+#: The most rows one INSERT statement of :func:`_insert_chained` carries (8 values a traffic
+#: row; fewer where the SQLite library takes fewer parameters a statement: 999 before 3.32).
+ROWS_PER_INSERT = 512
+
+
+def _insert_chained(conn: sqlite3.Connection, table: str, rows: Sequence[tuple[Any, ...]]) -> None:
+    """Insert rows of a chained table (``traffic`` or ``inputs``), each its hashed columns then
+    ``chain_seq`` and ``chain_hash``, in as few statements as carry them: ROWS_PER_INSERT rows
+    a statement (or as many as the library's limit on parameters allows), the rest in
+    statements of a power of two rows (a dozen texts, each prepared once). Every row passes
+    the table's triggers and constraints as it would alone.
+
+    One row a statement (``executemany``) would drop and take back the GIL around every row:
+    the instrument thread, reading a streaming port meanwhile, would then hand it back and
+    forth at each line, and the commit would wait a switch interval for it again and again.
+    SQLite runs a statement of many rows without the GIL, beside that thread's work.
+    """
+    columns = len(chain.COLUMNS[table]) + 2
+    most = max(
+        min(ROWS_PER_INSERT, conn.getlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER) // columns), 1
+    )
+    start, total = 0, len(rows)
+    while start < total:
+        left = total - start
+        size = most if left >= most else 1 << (left.bit_length() - 1)
+        values = list(chain_iterables.from_iterable(rows[start : start + size]))
+        conn.execute(_insert_sql(table, size), values)
+        start += size
+
+
+@functools.cache
+def _insert_sql(table: str, rows: int) -> str:
+    """Return the INSERT of ``rows`` rows of chained ``table`` (see :func:`_insert_chained`)."""
+    columns = (*chain.COLUMNS[table], "chain_seq", "chain_hash")
+    one_row = f"({', '.join('?' for _ in columns)})"
+    return f"INSERT INTO {table} ({', '.join(columns)}) VALUES {', '.join([one_row] * rows)}"
 
 
 def _traffic_row(line: TrafficLine) -> TrafficLine:

@@ -63,6 +63,35 @@ def test_a_reading_asks_the_file_for_no_id_or_chain_end_the_store_already_knows(
     assert verify_session(engine.store, engine.session_id).verified
 
 
+def _inserts_of_a_thousand_lines(store: Store) -> int:
+    """Keep and commit a thousand raw lines in a new session; check every row is recorded, in
+    order, and chained; return how many INSERT statements wrote them."""
+    session_id = store.create_session({}, {}, "trs398", "6 MV")
+    lines = [f"S q=+{number}.0E-09 C OK\n".encode() for number in range(1000)]
+    store.keep_traffic_burst(session_id, 1.0, store.stamp(), "rx", lines)
+    with traced(store.db.conn) as statements:
+        assert store.commit_traffic() == 1000
+    rows = store.traffic(session_id)
+    assert [row.line for row in rows] == lines
+    assert [row.id for row in rows] == list(range(rows[0].id, rows[0].id + 1000))
+    assert verify_session(store, session_id).verified
+    # the trace repeats a statement for each trigger it runs: count the distinct ones
+    return len({text for text in statements if text.startswith("INSERT INTO traffic")})
+
+
+def test_a_thousand_kept_raw_lines_go_in_six_statements_every_row_chained(tmp_path: Path) -> None:
+    with Store.open(tmp_path / "station.sqlite") as store:
+        # 512 + 256 + 128 + 64 + 32 + 8 rows; was one statement per row
+        assert _inserts_of_a_thousand_lines(store) == 6
+
+
+def test_kept_raw_lines_fit_a_library_taking_999_parameters_a_statement(tmp_path: Path) -> None:
+    # SQLite before 3.32 takes at most 999 parameters a statement (sqlite.org/limits.html)
+    with Store.open(tmp_path / "station.sqlite") as store:
+        store.db.conn.setlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER, 999)
+        assert _inserts_of_a_thousand_lines(store) == 9  # 8 x 124 rows (8 values a row), 8
+
+
 def test_rows_another_connection_commits_are_seen_before_the_next_append(tmp_path: Path) -> None:
     path = tmp_path / "station.sqlite"
     with Store.open(path) as daemon, Store.open(path) as other:
