@@ -47,7 +47,14 @@ from chargebook.acquire.record import unrecorded
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.health import LOCKED, RecordFiles, commit_failure, not_writable
 from chargebook.acquire.record.station_lock import StationLock
-from chargebook.acquire.record.store import BUSY_TIMEOUT_MS, EventRow, Store, require_writable
+from chargebook.acquire.record.store import (
+    BUSY_TIMEOUT_MS,
+    EventRow,
+    Store,
+    StoreError,
+    TrafficLine,
+    require_writable,
+)
 from chargebook.acquire.session import stored_result
 from chargebook.acquire.session.register_requests import REGISTER_METHODS
 from chargebook.corrections.errors import InputError
@@ -623,6 +630,7 @@ class Daemon:
         self._stop_cause: str | None = None  # why the stop could not be recorded, in words
         #: The runs whose raw lines this start recorded from side files: pid -> why it stopped.
         self._set_aside_by: dict[int | None, str | None] = {}
+        self._station_uuid: str | None = None
 
     # -- starting and stopping -----------------------------------------------------------------
     def _build(self) -> None:
@@ -638,6 +646,7 @@ class Daemon:
         self.store.on_events_committed = self._emitted.extend
         self.store.remember_rows()  # the one writer, under the station lock
         self.store.results_on_close = stored_result.stored_row  # kept as each session closes
+        self._station_uuid = self.store.station().uuid  # whose lines a stop may set aside
         self._record_set_aside()
         if options.station_name:
             self.store.name_station(options.station_name)
@@ -789,13 +798,22 @@ class Daemon:
         """Serve until :meth:`shutdown`; call ``ready(info)`` once the socket listens."""
         try:
             self._build()
-        except BaseException:
+            self._record_start()
+        except BaseException as error:
             if self.store is not None:
                 self.store.close()
             self.station_lock.release()
-            raise
+            # a refused socket folder or port is said as it is; SQLite's refusals in words
+            cause = None if isinstance(error, OSError) else commit_failure(error)
+            if cause is None:
+                raise
+            raise StoreError(
+                f"the station database {self.options.db_path} could not be written as the "
+                f"daemon started ({cause}): clear that (close the other program, free space), "
+                "then start the daemon again; nothing recorded is lost, and raw lines a stop "
+                "set aside stay beside the database until a start records them"
+            ) from None
         assert self.engine is not None and self.link is not None and self.store is not None
-        self._record_start()
         resumed = self.engine.apply(inputs.Restart()) is True
         info_visit = self.visit_desk().visit_id
         self.link.session_id = self._line_session = self.engine.session_id
@@ -922,7 +940,14 @@ class Daemon:
         count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
         reason = self._stop_reason if self._stopping.is_set() else "an unexpected error"
         try:
-            path = unrecorded.set_aside(self.options.db_path, lines, reason=reason, cause=cause)
+            path = unrecorded.set_aside(
+                self.options.db_path,
+                lines,
+                reason=reason,
+                cause=cause,
+                station_uuid=self._station_uuid,
+                session_uuids=self._session_uuids(lines),
+            )
         except OSError as error:
             self.stop_problem = (
                 f"{count} exchanged with the electrometer could not be recorded ({cause}) nor "
@@ -937,6 +962,18 @@ class Daemon:
             )
         log.error("%s", self.stop_problem)
 
+    def _session_uuids(self, lines: Sequence[TrafficLine]) -> dict[int, str]:
+        """Return the uuid of each session ``lines`` belong to, as the record holds them (none
+        when it cannot be read either: the lines are then set aside without them)."""
+        assert self.store is not None
+        ids = {line[0] for line in lines if line[0] is not None}
+        try:
+            sessions = self.store.sessions_of(ids)
+            return {session.id: session.uuid for session in sessions if session.uuid is not None}
+        except Exception as error:  # the lines matter more than their sessions' uuids
+            log.warning("the sessions of the raw lines set aside could not be read: %s", error)
+            return {}
+
     def _record_set_aside(self) -> None:
         """Record the raw lines a previous run set aside at its stop, file by file (at the
         start, before anything else is written); a file that cannot be read as one is refused
@@ -945,9 +982,10 @@ class Daemon:
         for path in unrecorded.side_files(self.options.db_path):
             count, found = unrecorded.recover(self.store, path)
             self._set_aside_by[found.pid] = found.stopped_by
-            done = f"recorded {count:,}" if count else "found already recorded the"
+            lines = f"{len(found.lines):,} raw line{'' if len(found.lines) == 1 else 's'}"
+            done = f"recorded {lines}" if count else f"found already recorded the {lines}"
             log.warning(
-                "%s raw lines read before the last stop, from %s (renamed *%s)",
+                "%s read before the last stop, from %s (renamed *%s)",
                 done,
                 path,
                 unrecorded.RECOVERED_SUFFIX,

@@ -11,7 +11,10 @@ such file into the traffic table, chained as usual, in one transaction per file 
 that cannot be read as one is refused, naming the file and the line, and left where it is.
 
 The file: one JSON object per line. The first is the header (``format``, ``database``,
-``lines``, ``written_at``, ``pid``, ``reason``, ``cause``); each following one a raw line:
+``station_uuid``, ``session_uuids`` (session id -> uuid), ``lines`` (how many), ``lines_sha256``
+(of the lines after the header, as written), ``written_at``, ``pid``, ``reason``, ``cause``);
+lines whose SHA-256 is not the header's, or read for another station, or for a session this
+database does not hold as it was, are refused. Each following object is a raw line:
 ``session_id`` (null outside a session), ``t_s`` (the daemon's clock when read, s),
 ``recorded_at`` (UTC ISO 8601, when read), ``direction`` (``tx``/``rx``) and ``line_b64`` (the
 line's bytes exactly as sent or received, base64).
@@ -24,12 +27,13 @@ from __future__ import annotations
 
 import base64
 import binascii
+import glob
 import hashlib
 import json
 import math
 import os
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -80,14 +84,18 @@ class SetAside:
     pid: int | None = None
     stopped_by: str | None = None
     cause: str | None = None
+    #: The station and the sessions the lines were read for (checked before they are recorded).
+    station_uuid: str | None = None
+    session_uuids: Mapping[int, str] = field(default_factory=dict)
 
 
 def side_files(db_path: Path) -> list[Path]:
-    """Return the side files of raw lines beside ``db_path`` not yet recorded, oldest first."""
+    """Return the side files of raw lines beside ``db_path`` not yet recorded, oldest first
+    (the database's name taken as it is: ``room[1].sqlite`` is no pattern)."""
     prefix = db_path.name + INFIX
     return sorted(
         path
-        for path in db_path.parent.glob(f"{db_path.name}{INFIX}*.jsonl")
+        for path in db_path.parent.glob(f"{glob.escape(db_path.name)}{INFIX}*.jsonl")
         if path.name.startswith(prefix)
     )
 
@@ -110,24 +118,35 @@ def waiting(db_path: Path) -> list[str]:
 
 
 def set_aside(
-    db_path: Path, lines: Sequence[TrafficLine], *, reason: str, cause: str | None
+    db_path: Path,
+    lines: Sequence[TrafficLine],
+    *,
+    reason: str,
+    cause: str | None,
+    station_uuid: str | None,
+    session_uuids: Mapping[int, str],
 ) -> Path:
     """Write ``lines`` to a new side file beside ``db_path`` (whole or not at all, fsynced);
     return its path. ``reason``: why the daemon stops; ``cause``: why the record could not
-    commit. Raises OSError when it cannot be written."""
+    commit; ``station_uuid`` and ``session_uuids`` (session id -> uuid): whose lines they are,
+    checked before they are recorded (None where the record could not say). Raises OSError
+    when it cannot be written."""
     now = datetime.now(UTC)
     path = db_path.with_name(f"{db_path.name}{INFIX}{now:%Y%m%dT%H%M%S.%fZ}.jsonl")
+    body = [json.dumps(_line_object(line)) for line in lines]
     header = {
         "format": FORMAT,
         "database": db_path.name,
+        "station_uuid": station_uuid,
+        "session_uuids": {str(key): value for key, value in session_uuids.items()},
         "lines": len(lines),
+        "lines_sha256": _body_digest(body),
         "written_at": now.isoformat(timespec="microseconds"),
         "pid": os.getpid(),
         "reason": reason,
         "cause": cause,
     }
-    rows = [json.dumps(header)]
-    rows += [json.dumps(_line_object(line)) for line in lines]
+    rows = [json.dumps(header), *body]
     temporary = path.with_name(path.name + ".tmp")
     with open(temporary, "w", encoding="utf-8") as out:
         out.write("\n".join(rows) + "\n")
@@ -155,9 +174,14 @@ def read_set_aside(path: Path) -> SetAside:
     if header.get("format") != FORMAT:
         raise UnrecordedFileError(path, 1, f"the header's format is not {FORMAT!r}")
     lines = tuple(_traffic_line(path, number, text) for number, text in enumerate(texts[1:], 2))
-    if header.get("lines") != len(lines):
+    count = header.get("lines")
+    if type(count) is not int or count != len(lines):
+        held = _count(len(lines), "line")
+        said = f"the header's count of lines is {count!r}"
+        raise UnrecordedFileError(path, 1, f"{said}, and the file holds {held}")
+    if header.get("lines_sha256") != _body_digest(texts[1:]):
         raise UnrecordedFileError(
-            path, 1, f"the header says {header.get('lines')!r} lines, the file holds {len(lines)}"
+            path, 1, "the lines are not those the daemon wrote (their SHA-256 is not the header's)"
         )
     return SetAside(
         path,
@@ -166,7 +190,29 @@ def read_set_aside(path: Path) -> SetAside:
         pid=_of_type(header.get("pid"), int),
         stopped_by=_of_type(header.get("reason"), str),
         cause=_of_type(header.get("cause"), str),
+        station_uuid=_of_type(header.get("station_uuid"), str),
+        session_uuids=_session_uuids(path, header.get("session_uuids")),
     )
+
+
+def _body_digest(texts: Sequence[str]) -> str:
+    """Return the SHA-256 of a side file's lines after the header, as written (a line a
+    newline)."""
+    return hashlib.sha256("".join(text + "\n" for text in texts).encode("utf-8")).hexdigest()
+
+
+def _session_uuids(path: Path, value: object) -> dict[int, str]:
+    """Return the header's session id -> uuid map, checked."""
+    if not isinstance(value, dict) or not all(
+        key.isdigit() and isinstance(uuid, str) for key, uuid in value.items()
+    ):
+        raise UnrecordedFileError(path, 1, "session_uuids is not a map of session ids to uuids")
+    return {int(key): uuid for key, uuid in value.items()}
+
+
+def _count(number: int, noun: str) -> str:
+    """Return "1 line", "2 lines"."""
+    return f"{number:,} {noun}{'' if number == 1 else 's'}"
 
 
 def recover(store: Store, path: Path) -> tuple[int, SetAside]:
@@ -179,7 +225,7 @@ def recover(store: Store, path: Path) -> tuple[int, SetAside]:
     found = read_set_aside(path)
     recorded = 0
     if not _recovered_before(store, found.sha256):
-        _require_sessions(store, found)
+        _require_station_and_sessions(store, found)
         with store.atomic():
             store.add_traffic_many(found.lines)
             for session_id, count in _per_session(found.lines).items():
@@ -260,13 +306,35 @@ def _per_session(lines: Sequence[TrafficLine]) -> dict[int | None, int]:
     return counts
 
 
-def _require_sessions(store: Store, found: SetAside) -> None:
+def _require_station_and_sessions(store: Store, found: SetAside) -> None:
+    """Refuse lines written for another station, or for sessions this database does not hold
+    as they were (the database replaced or restored from a backup since)."""
+    station = store.station().uuid
+    if found.station_uuid is not None and found.station_uuid != station:
+        raise UnrecordedFileError(
+            found.path,
+            1,
+            f"its lines were read for station {found.station_uuid}, and this database is "
+            f"station {station}: put the file beside that station's database",
+        )
     wanted = {line[0] for line in found.lines if line[0] is not None}
-    held = {session.id for session in store.sessions_of(wanted)}
+    held = {session.id: session.uuid for session in store.sessions_of(wanted)}
     for number, line in enumerate(found.lines, 2):
-        if line[0] is not None and line[0] not in held:
+        session_id = line[0]
+        if session_id is None:
+            continue
+        if session_id not in held:
             raise UnrecordedFileError(
-                found.path, number, f"session {line[0]} is not in the station database"
+                found.path, number, f"session {session_id} is not in the station database"
+            )
+        written = found.session_uuids.get(session_id)
+        if written is not None and written != held[session_id]:
+            raise UnrecordedFileError(
+                found.path,
+                number,
+                f"session {session_id} of this database is not the session the line was read "
+                f"in (uuid {held[session_id]}, not {written}): was the database replaced or "
+                "restored from a backup?",
             )
 
 

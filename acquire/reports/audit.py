@@ -98,8 +98,10 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
     if kind == EventKind.DAEMON_STOPPED:
         return "daemon stopped", _reason(detail.get("reason"))
     if kind == EventKind.UNRECORDED_LINES_RECOVERED:
+        lines = detail.get("lines")
         return "raw lines recovered", (
-            f"{detail.get('lines')} raw lines read before the daemon's last stop, while the "
+            f"{lines} raw line{'' if lines == 1 else 's'} read before the daemon's last stop, "
+            "while the "
             f"record could not commit, recorded at the next start from {detail.get('file')}; "
             "no reading was derived from them"
         )

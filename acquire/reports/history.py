@@ -240,9 +240,10 @@ def _baseline_value(
             raise InputError("baseline", f"session:{choice}", "a session with a result", problem)
         return value, f"session {choice} ({value:.4f} cGy/MU)"
     if not values:
-        raise InputError(
-            "baseline", choice, "expected, when no session has a result", "has no data"
-        )
+        problem = "has no data"
+        if len(counted) < len(entries):  # --all lists more than a baseline counts
+            problem += " (it counts only finished, unrejected sessions that are not replays)"
+        raise InputError("baseline", choice, "expected, when no session has a result", problem)
     if choice == "first":
         first, value = values[0]
         label = f"the first session, {_name(first, stores)} ({value:.4f} cGy/MU)"
@@ -250,7 +251,8 @@ def _baseline_value(
     import statistics  # only for this baseline: it brings fractions and decimal
 
     mean = statistics.fmean(v for _, v in values)
-    label = f"the mean of {len(values)} sessions ({mean:.4f} cGy/MU)"
+    sessions = f"{len(values)} session{'' if len(values) == 1 else 's'}"
+    label = f"the mean of {sessions} ({mean:.4f} cGy/MU)"
     return mean, label + _NOT_COUNTED if len(counted) < len(entries) else label
 
 

@@ -114,6 +114,16 @@ def test_all_marks_a_replay_and_its_baselines_count_only_what_a_plain_history_li
     assert first.baseline_cGy_per_MU == load_record(store, 1).evaluation.dose_per_MU_cGy
 
 
+def test_a_mean_of_all_with_no_session_it_counts_says_what_it_counts(tmp_path) -> None:
+    # --all lists an aborted session with a dose; the mean counts none, and says why.
+    path = tmp_path / "station.sqlite"
+    with Store.open(path) as writer:
+        record_example_session(writer, scale=1.0, status="aborted")
+    with Store.open(path, read_only=True) as reader, pytest.raises(InputError) as refused:
+        load_history(reader, "6 MV", include_all=True, baseline="mean")
+    assert "counts only finished, unrejected sessions that are not replays" in str(refused.value)
+
+
 @pytest.mark.parametrize(
     ("text", "words"),
     [

@@ -145,7 +145,7 @@ def test_a_malformed_side_file_is_refused_naming_the_file_and_line_and_left_in_p
     with Store.open(db) as store:
         session_id = store.create_session({}, {"steps": []}, "trs398", "6 MV")
     line = (session_id, 1.5, "2026-12-03T21:00:00.000001+00:00", "rx", b"+1.0E-09\r\n")
-    side_file = unrecorded.set_aside(db, [line, line], reason="SIGTERM", cause="test")
+    side_file = _set_aside_for(db, [line, line])
     text = side_file.read_text().splitlines()
     text[2] = text[2].replace('"rx"', '"sideways"')
     side_file.write_text("\n".join(text) + "\n")
@@ -168,10 +168,122 @@ def test_a_side_file_recorded_before_its_rename_is_not_recorded_twice(tmp_path: 
         lines = [
             (session_id, float(n), f"2026-12-03T21:00:0{n}+00:00", "rx", b"x") for n in range(3)
         ]
-        side_file = unrecorded.set_aside(db, lines, reason="SIGTERM", cause="test")
+        side_file = unrecorded.set_aside(
+            db,
+            lines,
+            reason="SIGTERM",
+            cause="test",
+            station_uuid=store.station().uuid,
+            session_uuids={session_id: store.sessions_of([session_id])[0].uuid},
+        )
         kept = side_file.read_bytes()
         assert unrecorded.recover(store, side_file)[0] == 3
         side_file.write_bytes(kept)  # as if the power went between the commit and the rename
         assert unrecorded.recover(store, side_file)[0] == 0
         assert len(store.traffic(session_id)) == 3
         assert unrecorded.side_files(db) == []
+
+
+def _one_session_station(db: Path) -> tuple[int, list]:
+    """Make a station file with one session; return its id and three raw lines of it."""
+    with Store.open(db) as store:
+        session_id = store.create_session({}, {"steps": []}, "trs398", "6 MV")
+    lines = [(session_id, float(n), f"2026-12-03T21:00:0{n}+00:00", "rx", b"x") for n in range(3)]
+    return session_id, lines
+
+
+def _set_aside_for(db: Path, lines: list) -> Path:
+    """Set ``lines`` aside as the daemon does, with the station's and sessions' uuids."""
+    with Store.open(db, read_only=True) as store:
+        station = store.station().uuid
+        uuids = {row.id: row.uuid for row in store.sessions_of({line[0] for line in lines})}
+    return unrecorded.set_aside(
+        db, lines, reason="SIGTERM", cause="test", station_uuid=station, session_uuids=uuids
+    )
+
+
+def test_a_database_whose_name_holds_glob_characters_finds_its_side_files(tmp_path: Path) -> None:
+    # A review found room[1].sqlite's side files never recorded: "[1]" was read as a pattern.
+    db = tmp_path / "room[1].sqlite"
+    session_id, lines = _one_session_station(db)
+    side_file = _set_aside_for(db, lines)
+    assert unrecorded.side_files(db) == [side_file]
+    with Store.open(db) as store:
+        assert unrecorded.recover(store, side_file)[0] == 3
+        assert len(store.traffic(session_id)) == 3
+
+
+def test_a_side_file_beside_another_stations_database_is_refused(tmp_path: Path) -> None:
+    first, second = tmp_path / "a" / "station.sqlite", tmp_path / "b" / "station.sqlite"
+    first.parent.mkdir()
+    second.parent.mkdir()
+    _session_id, lines = _one_session_station(first)
+    _one_session_station(second)
+    side_file = _set_aside_for(first, lines)
+    moved = second.parent / side_file.name
+    side_file.rename(moved)  # copied between station folders: both files are station.sqlite
+    with Store.open(second) as store, pytest.raises(unrecorded.UnrecordedFileError) as refused:
+        unrecorded.recover(store, moved)
+    assert f"{moved} line 1: its lines were read for station" in str(refused.value)
+    assert "put the file beside that station's database" in str(refused.value)
+    assert moved.exists()
+    with Store.open(second, read_only=True) as store:
+        assert store.traffic(1) == []
+
+
+def test_a_side_file_whose_line_bytes_were_changed_is_refused(tmp_path: Path) -> None:
+    db = tmp_path / "station.sqlite"
+    session_id, lines = _one_session_station(db)
+    side_file = _set_aside_for(db, lines)
+    text = side_file.read_text()
+    side_file.write_text(text.replace('"line_b64": "eA=="', '"line_b64": "eQ=="', 1))  # x -> y
+    with Store.open(db) as store, pytest.raises(unrecorded.UnrecordedFileError) as refused:
+        unrecorded.recover(store, side_file)
+    assert "line 1: the lines are not those the daemon wrote" in str(refused.value)
+    with Store.open(db, read_only=True) as store:
+        assert store.traffic(session_id) == []
+
+
+def test_lines_of_a_session_a_restored_database_holds_under_another_uuid_are_refused(
+    tmp_path: Path,
+) -> None:
+    db, other = tmp_path / "station.sqlite", tmp_path / "other" / "station.sqlite"
+    other.parent.mkdir()
+    _session_id, lines = _one_session_station(db)
+    _one_session_station(other)  # its session 1 is another session
+    side_file = _set_aside_for(db, lines)
+    with Store.open(db, read_only=True) as store:
+        station = store.station().uuid
+    with Store.open(other) as store:
+        header = side_file.read_text().splitlines()
+        theirs = store.station().uuid
+    side_file.write_text("\n".join([header[0].replace(station, theirs), *header[1:]]) + "\n")
+    moved = other.parent / side_file.name
+    side_file.rename(moved)
+    with Store.open(other) as store, pytest.raises(unrecorded.UnrecordedFileError) as refused:
+        unrecorded.recover(store, moved)
+    assert "line 2: session 1 of this database is not the session the line was read in" in str(
+        refused.value
+    )
+
+
+def test_a_start_while_another_program_holds_the_write_lock_is_refused_in_words(
+    tmp_path: Path,
+) -> None:
+    # It ended in a raw "sqlite3.OperationalError: database is locked" traceback.
+    db = tmp_path / "station.sqlite"
+    _one_session_station(db)
+    holder = other_writer(db, 30.0, "hold")
+    try:
+        done = _chargebook(
+            "serve",
+            *("--profile", "push-exponent", "--port", str(tmp_path / "no-port")),
+            *("--db", str(db), "--socket", str(tmp_path / "run" / "d.sock")),
+        )
+    finally:
+        holder.kill()
+        holder.wait()
+    assert done.returncode == EXIT_INVALID_INPUT
+    assert "Traceback" not in done.stderr
+    assert f"the station database {db} could not be written as the daemon started" in done.stderr
+    assert LOCKED in done.stderr
