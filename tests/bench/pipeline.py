@@ -71,7 +71,9 @@ def raw_readline(world: Station, count: int, *, buffered: bool = True) -> tuple[
 
     assert world.simulator is not None
     simulator = psutil.Process(world.simulator.process.pid)
-    port = serial.serial_for_url(world.serial, baudrate=115200, timeout=0.05)
+    # A read that waits 2 s for the flood: the loop ends at the count, and a loaded machine
+    # left the simulator unscheduled for longer than 50 ms (a run ended at 60,838 of 200,000).
+    port = serial.serial_for_url(world.serial, baudrate=115200, timeout=2.0)
     reader = io.BufferedReader(port, 65536) if buffered else port
     try:
         with world.bench() as bench:
