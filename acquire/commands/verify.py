@@ -40,7 +40,7 @@ def _verify(store, args: argparse.Namespace) -> int:
     results = differing_results(store, [args.session] if one else None)
     missing = missing_results(store, [args.session] if one else None)  # a cache: never a fault
     db_path = getattr(store, "path", None)  # a station file (None: the department record)
-    set_aside = waiting(Path(db_path)) if db_path else []  # not yet recorded: never a change
+    set_aside = waiting(store, Path(db_path)) if db_path else []  # never a change
     verified = not damage and not results and all(report.verified for report in reports)
     if args.json:
         data = {

@@ -100,15 +100,18 @@ def side_files(db_path: Path) -> list[Path]:
     )
 
 
-def waiting(db_path: Path) -> list[str]:
+def waiting(store: Store, db_path: Path) -> list[str]:
     """Return, in words, each side file beside ``db_path`` whose raw lines are not yet in the
-    record (what ``verify`` says): how many lines, or why the file cannot be read."""
+    record of ``store`` (what ``verify`` says): how many lines, or why a start would refuse it
+    (the same checks as :func:`recover`)."""
     said = []
     for path in side_files(db_path):
         try:
-            count = len(read_set_aside(path).lines)
+            found = read_set_aside(path)
+            _require_station_and_sessions(store, found)
+            count = len(found.lines)
         except (UnrecordedFileError, OSError) as error:
-            said.append(f"{path} cannot be recorded: {error}")
+            said.append(f"cannot be recorded: {error}")
             continue
         said.append(
             f"{path} holds {count:,} raw lines read before a daemon's stop, not yet in the "
@@ -203,11 +206,15 @@ def _body_digest(texts: Sequence[str]) -> str:
 
 def _session_uuids(path: Path, value: object) -> dict[int, str]:
     """Return the header's session id -> uuid map, checked."""
-    if not isinstance(value, dict) or not all(
-        key.isdigit() and isinstance(uuid, str) for key, uuid in value.items()
-    ):
-        raise UnrecordedFileError(path, 1, "session_uuids is not a map of session ids to uuids")
-    return {int(key): uuid for key, uuid in value.items()}
+    wrong = UnrecordedFileError(path, 1, "session_uuids is not a map of session ids to uuids")
+    if not isinstance(value, dict):
+        raise wrong
+    uuids = {}
+    for key, uuid in value.items():
+        if not (key.isascii() and key.isdecimal()) or not isinstance(uuid, str) or not uuid:
+            raise wrong
+        uuids[int(key)] = uuid
+    return uuids
 
 
 def _count(number: int, noun: str) -> str:
@@ -285,8 +292,8 @@ def _traffic_line(path: Path, number: int, text: str) -> TrafficLine:
         raise UnrecordedFileError(path, number, f"session_id {session_id!r} is not a session id")
     if type(t_s) not in (int, float) or not math.isfinite(t_s):
         raise UnrecordedFileError(path, number, f"t_s {t_s!r} is not a finite number of seconds")
-    if not isinstance(value["recorded_at"], str) or not value["recorded_at"]:
-        raise UnrecordedFileError(path, number, "recorded_at is not a UTC time")
+    if not _is_utc_time(value["recorded_at"]):
+        raise UnrecordedFileError(path, number, "recorded_at is not a UTC time (ISO 8601)")
     if value["direction"] not in TRAFFIC_DIRECTIONS:
         allowed = ", ".join(TRAFFIC_DIRECTIONS)
         raise UnrecordedFileError(
@@ -297,6 +304,18 @@ def _traffic_line(path: Path, number: int, text: str) -> TrafficLine:
     except (binascii.Error, ValueError):
         raise UnrecordedFileError(path, number, "line_b64 is not base64") from None
     return (session_id, float(t_s), value["recorded_at"], value["direction"], data)
+
+
+def _is_utc_time(value: object) -> bool:
+    """Return True for an ISO 8601 time with a zero UTC offset, as the daemon stamps lines."""
+    if not isinstance(value, str):
+        return False
+    try:
+        stamp = datetime.fromisoformat(value)
+    except ValueError:
+        return False
+    offset = stamp.utcoffset()
+    return offset is not None and not offset
 
 
 def _per_session(lines: Sequence[TrafficLine]) -> dict[int | None, int]:
@@ -310,7 +329,9 @@ def _require_station_and_sessions(store: Store, found: SetAside) -> None:
     """Refuse lines written for another station, or for sessions this database does not hold
     as they were (the database replaced or restored from a backup since)."""
     station = store.station().uuid
-    if found.station_uuid is not None and found.station_uuid != station:
+    if not found.station_uuid:
+        raise UnrecordedFileError(found.path, 1, "the header does not name its station's uuid")
+    if found.station_uuid != station:
         raise UnrecordedFileError(
             found.path,
             1,
@@ -318,7 +339,7 @@ def _require_station_and_sessions(store: Store, found: SetAside) -> None:
             f"station {station}: put the file beside that station's database",
         )
     wanted = {line[0] for line in found.lines if line[0] is not None}
-    held = {session.id: session.uuid for session in store.sessions_of(wanted)}
+    held = {session.id: session for session in store.sessions_of(wanted)}
     for number, line in enumerate(found.lines, 2):
         session_id = line[0]
         if session_id is None:
@@ -327,13 +348,25 @@ def _require_station_and_sessions(store: Store, found: SetAside) -> None:
             raise UnrecordedFileError(
                 found.path, number, f"session {session_id} is not in the station database"
             )
+        if held[session_id].status != "open":
+            # the daemon closes no session while its lines cannot be committed
+            raise UnrecordedFileError(
+                found.path,
+                number,
+                f"session {session_id} is {held[session_id].status}, and a daemon sets aside "
+                "only the lines of a session still open",
+            )
         written = found.session_uuids.get(session_id)
-        if written is not None and written != held[session_id]:
+        if written is None and found.session_uuids:
+            raise UnrecordedFileError(
+                found.path, number, f"session {session_id} is not named in the header"
+            )
+        if written is not None and written != held[session_id].uuid:
             raise UnrecordedFileError(
                 found.path,
                 number,
                 f"session {session_id} of this database is not the session the line was read "
-                f"in (uuid {held[session_id]}, not {written}): was the database replaced or "
+                f"in (uuid {held[session_id].uuid}, not {written}): was the database replaced or "
                 "restored from a backup?",
             )
 

@@ -13,6 +13,7 @@ SQLite's write lock (as in ``tests/faults/store_faults.py``).
 from __future__ import annotations
 
 import asyncio
+import json
 import re
 import signal
 import subprocess
@@ -287,3 +288,52 @@ def test_a_start_while_another_program_holds_the_write_lock_is_refused_in_words(
     assert "Traceback" not in done.stderr
     assert f"the station database {db} could not be written as the daemon started" in done.stderr
     assert LOCKED in done.stderr
+
+
+def _edit_header(side_file: Path, **changes: object) -> None:
+    """Change the header of a side file (its lines, and so their SHA-256, untouched)."""
+    header, *lines = side_file.read_text().splitlines()
+    fields = json.loads(header)
+    fields.update(changes)
+    side_file.write_text("\n".join([json.dumps(fields), *lines]) + "\n")
+
+
+@pytest.mark.parametrize(
+    ("changes", "words"),
+    [
+        ({"station_uuid": None}, "line 1: the header does not name its station's uuid"),
+        ({"session_uuids": {"²": "x"}}, "line 1: session_uuids is not a map of session ids"),
+        ({"session_uuids": {"7": "x"}}, "line 2: session 1 is not named in the header"),
+    ],
+)
+def test_a_side_file_whose_header_does_not_name_whose_lines_they_are_is_refused(
+    tmp_path: Path, changes: dict, words: str
+) -> None:
+    # A second review dropped the station's uuid (or the session's) from a header and had the
+    # lines recorded into another station's session; "²" passed isdigit() and crashed int().
+    db = tmp_path / "station.sqlite"
+    session_id, lines = _one_session_station(db)
+    side_file = _set_aside_for(db, lines)
+    _edit_header(side_file, **changes)
+    with Store.open(db) as store:
+        assert words in unrecorded.waiting(store, db)[0]  # verify says it, without a traceback
+        with pytest.raises(unrecorded.UnrecordedFileError, match=words):
+            unrecorded.recover(store, side_file)
+        assert store.traffic(session_id) == []
+
+
+def test_lines_for_a_closed_session_or_with_a_time_that_is_not_one_are_refused(
+    tmp_path: Path,
+) -> None:
+    # A daemon sets aside only an open session's lines (it closes none while they are held).
+    db = tmp_path / "station.sqlite"
+    session_id, lines = _one_session_station(db)
+    side_file = _set_aside_for(db, lines)
+    with Store.open(db) as store:
+        store.set_session_status(session_id, "finished")
+        with pytest.raises(unrecorded.UnrecordedFileError, match="session 1 is finished"):
+            unrecorded.recover(store, side_file)
+    side_file.unlink()
+    banana = [(session_id, 1.0, "banana", "rx", b"x")]
+    with pytest.raises(unrecorded.UnrecordedFileError, match="recorded_at is not a UTC time"):
+        unrecorded.read_set_aside(_set_aside_for(db, banana))
