@@ -937,7 +937,7 @@ class Daemon:
         if not lines:
             return
         cause = self._lines_fault or self._stop_cause or "the record could not commit"
-        count = f"{len(lines):,} raw line{'s' if len(lines) != 1 else ''}"
+        count = unrecorded.raw_lines(len(lines))
         reason = self._stop_reason if self._stopping.is_set() else "an unexpected error"
         try:
             path = unrecorded.set_aside(
@@ -982,7 +982,7 @@ class Daemon:
         for path in unrecorded.side_files(self.options.db_path):
             count, found = unrecorded.recover(self.store, path)
             self._set_aside_by[found.pid] = found.stopped_by
-            lines = f"{len(found.lines):,} raw line{'' if len(found.lines) == 1 else 's'}"
+            lines = unrecorded.raw_lines(len(found.lines))
             done = f"recorded {lines}" if count else f"found already recorded the {lines}"
             log.warning(
                 "%s read before the last stop, from %s (renamed *%s)",

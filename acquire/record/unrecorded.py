@@ -32,6 +32,7 @@ import hashlib
 import json
 import math
 import os
+from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -92,12 +93,7 @@ class SetAside:
 def side_files(db_path: Path) -> list[Path]:
     """Return the side files of raw lines beside ``db_path`` not yet recorded, oldest first
     (the database's name taken as it is: ``room[1].sqlite`` is no pattern)."""
-    prefix = db_path.name + INFIX
-    return sorted(
-        path
-        for path in db_path.parent.glob(f"{glob.escape(db_path.name)}{INFIX}*.jsonl")
-        if path.name.startswith(prefix)
-    )
+    return sorted(db_path.parent.glob(f"{glob.escape(db_path.name)}{INFIX}*.jsonl"))
 
 
 def waiting(store: Store, db_path: Path) -> list[str]:
@@ -114,7 +110,7 @@ def waiting(store: Store, db_path: Path) -> list[str]:
             said.append(f"cannot be recorded: {error}")
             continue
         said.append(
-            f"{path} holds {count:,} raw lines read before a daemon's stop, not yet in the "
+            f"{path} holds {raw_lines(count)} read before a daemon's stop, not yet in the "
             "record: the next daemon start on this database records them"
         )
     return said
@@ -179,7 +175,7 @@ def read_set_aside(path: Path) -> SetAside:
     lines = tuple(_traffic_line(path, number, text) for number, text in enumerate(texts[1:], 2))
     count = header.get("lines")
     if type(count) is not int or count != len(lines):
-        held = _count(len(lines), "line")
+        held = f"{len(lines):,} line{'' if len(lines) == 1 else 's'}"
         said = f"the header's count of lines is {count!r}"
         raise UnrecordedFileError(path, 1, f"{said}, and the file holds {held}")
     if header.get("lines_sha256") != _body_digest(texts[1:]):
@@ -217,9 +213,9 @@ def _session_uuids(path: Path, value: object) -> dict[int, str]:
     return uuids
 
 
-def _count(number: int, noun: str) -> str:
-    """Return "1 line", "2 lines"."""
-    return f"{number:,} {noun}{'' if number == 1 else 's'}"
+def raw_lines(count: int) -> str:
+    """Return "1 raw line", "1,234 raw lines": how the daemon and ``verify`` count them."""
+    return f"{count:,} raw line{'' if count == 1 else 's'}"
 
 
 def recover(store: Store, path: Path) -> tuple[int, SetAside]:
@@ -235,7 +231,7 @@ def recover(store: Store, path: Path) -> tuple[int, SetAside]:
         _require_station_and_sessions(store, found)
         with store.atomic():
             store.add_traffic_many(found.lines)
-            for session_id, count in _per_session(found.lines).items():
+            for session_id, count in Counter(line[0] for line in found.lines).items():
                 detail = ev.UnrecordedLinesRecovered(
                     file=path.name,
                     sha256=found.sha256,
@@ -316,13 +312,6 @@ def _is_utc_time(value: object) -> bool:
         return False
     offset = stamp.utcoffset()
     return offset is not None and not offset
-
-
-def _per_session(lines: Sequence[TrafficLine]) -> dict[int | None, int]:
-    counts: dict[int | None, int] = {}
-    for line in lines:
-        counts[line[0]] = counts.get(line[0], 0) + 1
-    return counts
 
 
 def _require_station_and_sessions(store: Store, found: SetAside) -> None:

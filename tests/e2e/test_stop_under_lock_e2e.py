@@ -164,20 +164,10 @@ def test_a_malformed_side_file_is_refused_naming_the_file_and_line_and_left_in_p
 
 def test_a_side_file_recorded_before_its_rename_is_not_recorded_twice(tmp_path: Path) -> None:
     db = tmp_path / "station.sqlite"
+    session_id, lines = _one_session_station(db)
+    side_file = _set_aside_for(db, lines)
+    kept = side_file.read_bytes()
     with Store.open(db) as store:
-        session_id = store.create_session({}, {"steps": []}, "trs398", "6 MV")
-        lines = [
-            (session_id, float(n), f"2026-12-03T21:00:0{n}+00:00", "rx", b"x") for n in range(3)
-        ]
-        side_file = unrecorded.set_aside(
-            db,
-            lines,
-            reason="SIGTERM",
-            cause="test",
-            station_uuid=store.station().uuid,
-            session_uuids={session_id: store.sessions_of([session_id])[0].uuid},
-        )
-        kept = side_file.read_bytes()
         assert unrecorded.recover(store, side_file)[0] == 3
         side_file.write_bytes(kept)  # as if the power went between the commit and the rename
         assert unrecorded.recover(store, side_file)[0] == 0
