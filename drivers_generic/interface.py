@@ -25,6 +25,10 @@ class Capability(enum.StrEnum):
     READ_CHARGE = "read_charge"  # query the integrated charge
     STREAM = "stream"  # the instrument pushes (time, charge) samples while integrating
     PUSH_READINGS = "push_readings"  # the instrument pushes a completed reading at end of beam
+    #: after pushing a completed reading the instrument zeroes its integrator and integrates the
+    #: next reading by itself (an auto-reset mode): it is not stopped, zeroed and started again
+    #: between the readings of a set
+    AUTO_RESET = "auto_reset"
     SET_BIAS = "set_bias"  # the bias supply is under remote control
     SET_RANGE = "set_range"
 

@@ -347,6 +347,12 @@ class _Builder:
                 )
         if capabilities & PUSH_CAPABILITIES and mode != "push":
             raise self.fail("profile.mode", mode, "push, since stream/push_readings are declared")
+        if Capability.AUTO_RESET in capabilities and Capability.PUSH_READINGS not in capabilities:
+            raise self.fail(
+                "profile.capabilities",
+                Capability.AUTO_RESET.value,
+                "declared with push_readings: it resets after a completed reading it pushes",
+            )
         return frozenset(capabilities)
 
     def port(self) -> PortSettings:

@@ -523,6 +523,13 @@ def _line_ids(
     return [None if line is None or line.id is None else line.id + place for line, place in places]
 
 
+def _rest(chunk: SampleChunk, taken: int) -> SampleChunk:
+    """Return ``chunk`` without its first ``taken`` samples."""
+    samples, ref, places = chunk
+    pairs = places or [(ref, place) for place in range(len(samples))]
+    return samples[taken:], None, pairs[taken:]
+
+
 def _event_info(event: EventRow) -> protocol.EventInfo:
     """Return the ``event`` notification's params for one committed audit event."""
     return {
@@ -611,7 +618,7 @@ class Daemon:
         self._built: tuple[int, protocol.Snapshot] | None = None
         #: The snapshot every subscriber holds, the base of the next delta (None: no subscriber).
         self._sent: protocol.Snapshot | None = None
-        self._sampled_reading: object = None
+        self._sampled_run: int | None = None  # the engine's sampling_run the link reads for
         self._published_seq = -1
         #: Events committed and not yet broadcast, in order (the store hands them over).
         self._emitted: list[EventRow] = []
@@ -1101,23 +1108,26 @@ class Daemon:
             engine.instrument_unreachable(payload)
 
     def _feed(self, generation: int | None, chunks: list[SampleChunk]) -> None:
-        """Give the engine the samples of the reading now armed, until one completes it."""
+        """Give the engine the samples of the arming now read, until one ends it: a capture
+        ends it, except on an auto-reset instrument, whose next reading takes the samples
+        that follow (see :attr:`Engine.sampling_run`)."""
         assert self.engine is not None
         engine = self.engine
         clock = engine.clock
         while chunks:
-            if generation != self._generation or engine.reading is not self._sampled_reading:
-                return  # the rest belong to a reading already captured or dropped
+            if generation != self._generation or engine.sampling_run != self._sampled_run:
+                return  # the rest belong to an arming already ended
             samples, ref, places = chunks[0]
             try:
-                engine.take_samples(samples, _line_ids(samples, ref, places), clock())
+                taken = engine.take_samples(samples, _line_ids(samples, ref, places), clock())
             except Exception:
-                taken = engine.samples_taken  # those were taken; the rest are tried again
-                if taken:
-                    pairs = places or [(ref, place) for place in range(len(samples))]
-                    chunks[0] = samples[taken:], None, pairs[taken:]
+                if engine.samples_taken:  # those were taken; the rest are tried again
+                    chunks[0] = _rest(chunks[0], engine.samples_taken)
                 raise
-            del chunks[0]
+            if 0 < taken < len(samples):
+                chunks[0] = _rest(chunks[0], taken)  # the next reading's, if the arming runs on
+            else:
+                del chunks[0]
 
     async def _tick(self) -> None:
         assert self.engine is not None
@@ -1166,8 +1176,8 @@ class Daemon:
             self.link.lines_for(engine.session_id)
         for command in engine.take_commands():
             self.link.send(command)
-        if engine.reading is not self._sampled_reading:
-            self._sampled_reading = engine.reading
+        if engine.sampling_run != self._sampled_run:
+            self._sampled_run = engine.sampling_run
             self._generation += 1
             self.link.sample_for(self._generation if engine.reading is not None else None)
         reading = engine.reading

@@ -40,6 +40,7 @@ from typing import Any
 from chargebook.acquire.engine import driver_commands, inputs, sample_log
 from chargebook.acquire.engine.capture import (
     Captured,
+    CaptureKind,
     CaptureSettings,
     ReadingCapture,
     capture_settings,
@@ -154,6 +155,7 @@ class Engine:
         #: How many samples the latest :meth:`take_samples` took (so far, if it raised).
         self.samples_taken = 0
         self._input_clock_s: float | None = None  # the clock of the input being applied
+        self._run = 0  # counts the armings of the instrument (see sampling_run)
         self._commands: list[Command] = []
         self._results_cache: tuple[int, Results] | None = None
         self.seq = 0  # every snapshot
@@ -168,6 +170,16 @@ class Engine:
         if 0 <= self.step_index < len(self.plan.steps):
             return self.plan.steps[self.step_index]
         return None
+
+    @property
+    def sampling_run(self) -> int | None:
+        """Return the arming the reading in progress takes its samples from (None: no reading).
+
+        Each arming of the instrument (zero, start) begins a new one. An auto-reset
+        instrument's next reading in a set continues it: it takes the samples that follow the
+        one that completed the reading before, and nothing is sent to the instrument between.
+        """
+        return None if self.reading is None else self._run
 
     def take_commands(self) -> list[Command]:
         """Return and forget the instrument commands issued since the last call."""
@@ -956,7 +968,11 @@ class Engine:
         assert self.active is not None and self.step is not None
         return rules.settling_needed(self.step, self.active.readings, MAX_SETTLING_READINGS)
 
-    def _begin_reading(self, actor: str, action: str) -> None:
+    def _begin_reading(self, actor: str, action: str, run_on_at_s: float | None = None) -> None:
+        """Arm the next reading: zero and start the instrument, and the beam if the bench gives
+        it. ``run_on_at_s``: the instrument resets itself (auto-reset) and integrates on from
+        this time (s, the driver's clock: the sample that completed the reading before), so
+        nothing is sent to it, and the samples after that one belong to this reading."""
         step = self.step
         assert step is not None and self.active is not None and self.plan is not None
         settling = self._settling_needed()
@@ -965,19 +981,22 @@ class Engine:
             self.instrument_message = None  # a fault the operator has seen and acted on
         if self.state is not new_state:
             self._goto(new_state, action, actor, set_id=self.active.id)
-        zeroed = self._can(Capability.ZERO)
+        runs_on = run_on_at_s is not None
+        zeroed = self._can(Capability.ZERO) or runs_on
         timed_s = rules.timed_s(step)
         self.reading = ReadingCapture(
             capture_settings(self.plan, self.time_scale),
-            self._now(),
+            self._now() if run_on_at_s is None else run_on_at_s,
             None if timed_s is None else timed_s * self.time_scale,
             baseline_nC=0.0 if zeroed else None,
         )
         self.reading_status = "ok"
-        if self._can(Capability.ZERO):
-            self._issue(driver_commands.Zero())
-        if self._can(Capability.INTEGRATE):
-            self._issue(driver_commands.StartIntegration())
+        if not runs_on:  # else the instrument zeroed itself and integrates on: the same arming
+            self._run += 1
+            if self._can(Capability.ZERO):
+                self._issue(driver_commands.Zero())
+            if self._can(Capability.INTEGRATE):
+                self._issue(driver_commands.StartIntegration())
         if self.bench and float(step.mu_per_reading) > 0:
             self._issue(driver_commands.DeliverBeam(float(step.mu_per_reading)))
 
@@ -999,7 +1018,9 @@ class Engine:
         armed_t_s = self.reading.armed_t_s
         self.reading = None
         self.notice = None
-        if self._can(Capability.INTEGRATE):
+        # an auto-reset instrument goes on to the next reading by itself: stopped at the set's end
+        runs_on = self._can(Capability.AUTO_RESET) and captured.capture is CaptureKind.PUSHED
+        if self._can(Capability.INTEGRATE) and not runs_on:
             self._issue(driver_commands.StopIntegration())
         reading_id = self.store.add_reading(
             self.session_id,
@@ -1025,8 +1046,10 @@ class Engine:
         )
         self._event(actor, EventKind.READING_RECORDED, recorded)
         if self._settling_needed() or active.used_count < int(step.readings):
-            self._begin_reading(actor, "reading recorded")
+            self._begin_reading(actor, "reading recorded", captured.t_s if runs_on else None)
             return
+        if self._can(Capability.INTEGRATE) and runs_on:
+            self._issue(driver_commands.StopIntegration())
         self.store.set_set_status(active.id, "reviewing", actor=actor)
         self._goto(S.REVIEWING, "set complete", actor, set_id=active.id)
 

@@ -17,6 +17,7 @@ import re
 import string
 from typing import Protocol
 
+from chargebook.drivers_generic.interface import Capability
 from chargebook.drivers_generic.profile import CHARGE_UNITS_IN_nC, CommandSpec, Profile
 from chargebook.drivers_generic.simulator.device import (
     RANGES,
@@ -103,6 +104,7 @@ class DialectResponder:
         self._last_stream_at = 0.0
         self._deliveries_seen = device.deliveries_completed
         self._started = device.clock()
+        self._resets_itself = Capability.AUTO_RESET in profile.capabilities
 
     # -- answering commands -------------------------------------------------------------------
     def respond(self, line: str) -> list[str]:
@@ -181,7 +183,21 @@ class DialectResponder:
     def flood_line(self, index: int) -> str:
         """Return one reading line for a flood: the present charge, status as read."""
         charge_nC, status = self.device.read()
-        return self.reading_line(charge_nC, status)
+        return self._pushed(self.reading_line(charge_nC, status))
+
+    def _pushed(self, line: str) -> str:
+        """Return a reading line to push; an auto-reset instrument zeroes its integrator once
+        it has pushed a completed reading (and integrates on, for the next one)."""
+        if self._resets_itself and self._completes(line):
+            self.device.zero()
+        return line
+
+    def _completes(self, line: str) -> bool:
+        """Return True if the driver reads ``line`` as a completed reading."""
+        reading = self.profile.reading
+        group = reading.complete_group
+        match = None if group is None else reading.pattern.fullmatch(line)
+        return match is not None and match[group] == reading.complete_value
 
     # -- unasked lines (push mode) ------------------------------------------------------------
     def tick(self) -> list[str]:
@@ -202,7 +218,7 @@ class DialectResponder:
             self._deliveries_seen = completed
             if integrating:
                 lines.append(self.reading_line(charge_nC, status, final=True))
-        return lines
+        return [self._pushed(line) for line in lines]
 
     def tick_interval_s(self) -> float:
         """Return how often :meth:`tick` wants to be called, in wall seconds."""

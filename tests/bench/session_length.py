@@ -7,7 +7,7 @@ daemon would record them): a session whose routine set was taken (three readings
 until it holds 499 sets, and a session with none. The real daemon (``chargebook serve``) then
 resumes each in turn on the simulated electrometer, in a dialect where every pushed line is a
 completed reading (``profiles/pushed-every-line.toml``), and takes the readings of the next set
-(set 500, or set 1) as they are pushed at 100 lines/s, about 50 readings/s, with a subscribed
+(set 500, or set 1) as they are pushed at 50 lines/s, 50 readings/s, with a subscribed
 client attached as the console would be.
 
 * Baseline: at set 1, the daemon's CPU time (user + system, from the kernel's count of the
@@ -50,7 +50,7 @@ from tests.bench.harness import (
 FULL_SETS, SMOKE_SETS = 500, 30
 FULL_READINGS, SMOKE_READINGS = 60, 15
 READINGS_PER_EARLIER_SET = 3
-LINES_PER_S = 100.0  # every other line is stale while the daemon re-arms: about 50 readings/s
+LINES_PER_S = 50.0  # each a completed reading (auto-reset): 50 readings/s
 TARGET_RATIO = 1.5
 DEADLINE_S = 60.0
 #: Invented air data for the recorded sessions (demo only).
