@@ -18,6 +18,7 @@ from dataclasses import asdict, dataclass, field
 from typing import Any
 
 from chargebook.acquire.record.store import ReadingRow, SetRow, Store
+from chargebook.acquire.replay.recording import RecordedLine
 from chargebook.acquire.session import rules
 from chargebook.corrections.stability import Thresholds
 
@@ -29,6 +30,11 @@ THRESHOLD_KEYS = ("flags", "sets")
 #: Plan changes that change no number (they are listed, never given as a reason).
 COSMETIC_PLAN_CHANGES = ("plan name", "plan description")
 UNEXPLAINED = "not explained by any change: an exact replay must reproduce it"
+#: Why a line of a traffic log (``--traffic-log``) is a difference: only the stored traffic,
+#: played as it is, reproduces the session, however equal the results come out.
+TRAFFIC_LOG_DIFFERS = "the traffic log played is not the traffic stored with the session"
+#: Lines of a traffic log listed where they differ from the stored traffic; the rest counted.
+LISTED_LINES = 10
 
 
 @dataclass(frozen=True, slots=True)
@@ -108,6 +114,35 @@ def threshold_changes(original: Thresholds, replay: Thresholds) -> list[Change]:
 
 
 # ----------------------------------------------------------------------------- comparing
+def traffic_differences(
+    stored: Sequence[RecordedLine], played: Sequence[RecordedLine]
+) -> list[Difference]:
+    """Return the lines of a traffic log (``played``) that differ from the session's stored
+    traffic in time (s), direction or bytes, the first :data:`LISTED_LINES` by number, then
+    how many more, and any lines one holds past the other's end."""
+    differing = [
+        (old, new)
+        for old, new in zip(stored, played, strict=False)
+        if (old.raw, old.direction, old.t_s) != (new.raw, new.direction, new.t_s)
+    ]
+    found = [
+        Difference(f"traffic line {old.index + 1}", _line(old), _line(new), TRAFFIC_LOG_DIFFERS)
+        for old, new in differing[:LISTED_LINES]
+    ]
+    if len(differing) > LISTED_LINES:
+        more = len(differing) - LISTED_LINES
+        found.append(Difference("traffic lines", f"{more} more differ", "", TRAFFIC_LOG_DIFFERS))
+    if len(stored) != len(played):
+        found.append(Difference("traffic lines", len(stored), len(played), TRAFFIC_LOG_DIFFERS))
+    return found
+
+
+def _line(line: RecordedLine) -> str:
+    """Return a traffic line as ``t=… s rx 'text'`` (its bytes decoded, errors shown)."""
+    text = line.raw.decode("ascii", errors="backslashreplace").rstrip("\r\n")
+    return f"t={line.t_s!r} s {line.direction} {text!r}"
+
+
 def stored_results(store: Store, session_id: int) -> tuple[dict[str, Any] | None, str | None]:
     """Return (``evaluate(...).to_dict()`` of a stored session, None) or (None, why not)."""
     from chargebook.acquire.session.evaluation import evaluate_session

@@ -41,6 +41,7 @@ from chargebook.acquire.replay.compare import (
     compare_sessions,
     plan_changes,
     threshold_changes,
+    traffic_differences,
 )
 from chargebook.acquire.replay.pipeline import PipelineRun, Setup, run_pipeline
 from chargebook.acquire.replay.recording import (
@@ -318,9 +319,12 @@ def _into_station(
 def _compare(original: Store, setup: Setup, run: PipelineRun, changes: list[Change]) -> Comparison:
     """Return the comparison of the replayed session with the original."""
     explanations = Explanations(changes=changes, traffic_notes=run.notes, stopped=run.stopped)
-    return compare_sessions(
+    comparison = compare_sessions(
         original, setup.recording.session_id, run.store, run.session_id, explanations
     )
+    if setup.lines is not setup.recording.lines:  # a traffic log: it must be the stored traffic
+        comparison.differences += traffic_differences(setup.recording.lines, setup.lines)
+    return comparison
 
 
 def _why_not_stored(

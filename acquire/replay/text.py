@@ -39,7 +39,7 @@ def replay_text(report: ReplayReport) -> str:
             ),
         ]
     if report.traffic_notes:
-        lines += ["", "Commands sent differently:", *(f"  {n}" for n in report.traffic_notes)]
+        lines += ["", "Where the traffic differs:", *(f"  {n}" for n in report.traffic_notes)]
     return "\n".join(lines)
 
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import asyncio
 import hashlib
+import itertools
 import json
 import os
 import shutil
@@ -662,6 +663,46 @@ def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_mark
         assert store.session(replay_id).replay_of == station.clean
         marks = [e for e in store.events(replay_id) if e.kind == EventKind.REPLAY_NOT_REPRODUCED]
     assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
+
+
+def test_a_log_with_one_line_changed_is_not_called_exact_though_its_results_agree(
+    station: Station, capsys
+):
+    # A charge on the way up during a beam moves no reading: the results come out the same,
+    # but the log is not the stored traffic, so the replay does not reproduce the session.
+    db = copy_of(station, "log-one-line.sqlite")
+    log = station.work / "one-line.jsonl"
+    lines = traffic_log(station, log, station.clean, capsys)
+    read = [(index, _charge_nC(text)) for index, text in enumerate(lines)]
+    read = [(index, charge) for index, charge in read if charge is not None]
+    number = next(  # the first charge on the way up, well before the next
+        index + 1
+        for (index, charge), (_, following) in itertools.pairwise(read)
+        if 2.0 < charge < 8.0 and following > charge + 1.0
+    )
+    entry = json.loads(lines[number - 1])
+    original = entry["line"]
+    head, value, *rest = original.split(" ")
+    last = "1" if value[-1] == "0" else "0"  # the charge's last digit, by 0.0001 nC or so
+    entry["line"] = " ".join([head, value[:-1] + last, *rest])
+    lines[number - 1] = json.dumps(entry)
+    log.write_text("\n".join(lines) + "\n")
+    before = file_state(db)
+    done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
+    assert done.returncode == 1, done.stdout + done.stderr
+    assert "NOT reproduced: 1 difference" in done.stdout and "(not stored)" in done.stdout
+    assert f"traffic line {number} " in done.stdout and value in done.stdout  # table cells wrap
+    assert "the traffic log played is not the traffic stored with the session" in done.stdout
+    assert file_state(db) == before  # nothing written
+
+
+def _charge_nC(log_line: str) -> float | None:
+    """Return the charge of a received reading line of the query-plain log (None: another)."""
+    entry = json.loads(log_line)
+    words = entry["line"].split()
+    if entry["dir"] != "rx" or len(words) != 4 or words[0] != "Q":
+        return None
+    return float(words[1])
 
 
 # ------------------------------------------------------------------- several in one run
