@@ -104,7 +104,8 @@ class ConsoleApp(App[int]):
                 client = await self.client_factory(self.socket_path)
             except (OSError, ConnectionLost, DaemonError) as error:
                 failed += 1
-                if not attached and failed >= self.first_attempts:
+                refused = isinstance(error, PermissionError)  # trying again will not help
+                if not attached and (failed >= self.first_attempts or refused):
                     self.unreachable = no_daemon_words(self.socket_path, error, failed)
                     self.exit(1)
                     return
@@ -281,7 +282,15 @@ def _settle_heap() -> None:
 
 def no_daemon_words(socket_path: str, error: BaseException, attempts: int) -> str:
     """Return what the console says when it never reached a daemon at ``socket_path``: that
-    none listens there, why the last attempt failed, and how to start one."""
+    none listens there, why the last attempt failed, and how to start one; or, when this user
+    may not use the socket (a PermissionError: not retried), why and what to do."""
+    if isinstance(error, PermissionError):
+        return (
+            f"this account may not use the daemon's socket at {socket_path} ({error}). Run the "
+            "console as the account the daemon runs as, or as a member of the socket group it "
+            "was started with (`chargebook serve --socket-group NAME`); or give the console the "
+            "--socket of a daemon of your own."
+        )
     return (
         f"no chargebook daemon listens at {socket_path} ({_why_unreachable(error, socket_path)}; "
         f"tried {attempts} times). Start one with `chargebook serve --port DEVICE` (and --socket "

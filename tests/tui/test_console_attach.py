@@ -9,6 +9,7 @@ exit status of the real ``chargebook console`` process in a terminal are in
 
 from __future__ import annotations
 
+import os
 import socket
 from collections.abc import AsyncIterator
 from pathlib import Path
@@ -69,6 +70,22 @@ async def test_a_plain_file_at_the_socket_path_is_not_called_a_socket(tmp_path: 
     assert "of 2 (the file there is not a socket); retrying" in " ".join(" ".join(shown).split())
     assert "the file there is not a socket; tried 2 times" in words
     assert "a socket file is there" not in words
+
+
+async def test_a_socket_this_account_may_not_use_is_refused_at_once_in_words(
+    tmp_path: Path,
+) -> None:
+    # Another account's private directory (uid 65534, "nobody" on most systems, invented here):
+    # no number of tries will let this account in, so the console does not retry.
+    directory = tmp_path / "theirs"
+    directory.mkdir(mode=0o700)
+    os.chown(directory, 65534, 65534)
+    path = directory / "daemon.sock"
+    shown, words = await gives_up(ConsoleApp(path, first_attempts=5))
+    assert not any("attempt 2 of 5" in text for text in shown)
+    assert words.startswith(f"this account may not use the daemon's socket at {path} (")
+    assert f"{directory} belongs to another user (uid 65534)" in words
+    assert "--socket-group NAME" in words and "no chargebook daemon listens" not in words
 
 
 async def test_quitting_before_any_daemon_answered_does_not_say_one_goes_on_running(
