@@ -115,6 +115,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
     import json
 
     from chargebook.acquire.exit_codes import EXIT_OK
+    from chargebook.acquire.record.station_label import station_labels
     from chargebook.acquire.reports.table import Table, when
     from chargebook.acquire.reports.text import table_text
 
@@ -122,6 +123,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
         print(json.dumps(rows, indent=2, ensure_ascii=False))
         return EXIT_OK
     station = ("station",) if by_station else ()
+    labels = station_labels((r["station_uuid"], r["station_name"]) for r in rows)
     # The visit column only when a listed session measured a beam of a calibration visit: a
     # station that records no visits keeps the listing as narrow as it was.
     visit = ("visit",) if any(r["visit_id"] is not None for r in rows) else ()
@@ -143,7 +145,7 @@ def _print(rows: list[dict], args: argparse.Namespace, *, by_station: bool) -> i
         ),
         tuple(
             (
-                *((str(r["station_name"]),) if by_station else ()),
+                *((labels[r["station_uuid"]],) if by_station else ()),
                 str(r["id"]),
                 when(r["created_at"]),
                 r["status"],

@@ -292,7 +292,10 @@ def _on_stations(
     what = "UUID" if isinstance(key, str) else "id"
     if not holding:
         raise NotFound(f"no session with {what} {key} in {database.where}")
-    names = ", ".join(store.station().name for store, _ in holding)
+    from chargebook.acquire.record.station_label import station_choices
+
+    choices = station_choices((s.uuid, s.name) for s in (store.station() for store in stores))
+    names = ", ".join(choices[store.station().uuid] for store, _ in holding)
     allowed = f"--station NAME (one of {names}) or the session's UUID"
     raise InputError("session", key, allowed, "is recorded at several stations")
 

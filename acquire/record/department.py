@@ -34,6 +34,7 @@ from typing import TYPE_CHECKING, Any
 
 from chargebook.acquire.record import chain
 from chargebook.acquire.record.migrations import SESSION_FINAL_STATUSES
+from chargebook.acquire.record.station_label import UUID_PREFIX_CHARS
 from chargebook.acquire.record.store import (
     EnvironmentRow,
     EventRow,
@@ -322,12 +323,15 @@ class DepartmentDatabase:
 
 
 def stations_named(database: DepartmentDatabase, choice: str | None) -> list[StationRow]:
-    """Return the stations ``choice`` names (a UUID, or a name regardless of case), or all of
-    them when it is None; InputError naming the stations published when none matches."""
+    """Return the stations ``choice`` names (a UUID or its first UUID_PREFIX_CHARS characters
+    or more, as listings show it beside a name stations share; or a name regardless of case),
+    or all of them when it is None; InputError naming the stations published when none
+    matches."""
     stations = database.stations()
     if choice is None:
         return stations
-    found = [s for s in stations if s.uuid == choice.strip().lower()]
+    key = choice.strip().lower()
+    found = [s for s in stations if len(key) >= UUID_PREFIX_CHARS and s.uuid.startswith(key)]
     found = found or [s for s in stations if s.name.casefold() == choice.strip().casefold()]
     if len(found) == 1:
         return found

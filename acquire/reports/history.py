@@ -28,6 +28,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
+from chargebook.acquire.record.station_label import station_choices, station_labels
 from chargebook.acquire.record.store import ListedSession, NotFound, SessionRow, StationRow
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
@@ -65,7 +66,8 @@ class HistoryPoint:
     session_uuid: str | None = None  # the session's id across stations
     #: The expanded uncertainty of the session's dose, %, drawn as the point's bar.
     U_expanded_pct: float | None = None
-    #: The station's name, when the history spans several stations (their ids may repeat).
+    #: The station's name, when the history spans several stations (their ids may repeat),
+    #: with the start of its UUID where stations share the name.
     station: str | None = None
     #: The session this one replayed (listed only with include_all), else None.
     replay_of: int | None = None
@@ -268,10 +270,16 @@ def _counted(entry: _Entry) -> bool:
 
 
 def _name(entry: _Entry, stores: Sequence[RecordReader]) -> str:
-    """Return a session's id, after its station's name when from several stations."""
+    """Return a session's id, after its station's label when from several stations."""
     if len(stores) == 1:
         return str(entry.session.id)
-    return f"{entry.station.name}:{entry.session.id}"
+    label = station_labels(_stations(stores))[entry.station.uuid]
+    return f"{label}:{entry.session.id}"
+
+
+def _stations(stores: Sequence[RecordReader]) -> list[tuple[str, str]]:
+    """Return each station's (UUID, name)."""
+    return [(station.uuid, station.name) for station in (store.station() for store in stores)]
 
 
 def _baseline_entry(stores: Sequence[RecordReader], session_id: int) -> _Entry:
@@ -287,7 +295,8 @@ def _baseline_entry(stores: Sequence[RecordReader], session_id: int) -> _Entry:
     text = f"session:{session_id}"
     if not found:
         raise InputError("baseline", text, "a session recorded here", "is not recorded")
-    names = ", ".join(str(e.station.name) for e in found)
+    choices = station_choices(_stations(stores))
+    names = ", ".join(choices[e.station.uuid] for e in found)
     raise InputError("baseline", text, f"one station's session (--station {names})", "is ambiguous")
 
 
@@ -341,14 +350,14 @@ def load_history_across(
         entries = [e for e in entries if review_status(e.review) != "rejected"]
     entries.sort(key=lambda entry: entry.session.created_at)
     value, label = _baseline_value(choice, stores, entries)
-    several = len(stores) > 1
+    labels = station_labels(_stations(stores)) if len(stores) > 1 else {}
     return History(
         beam=beam,
         machine=machine,
         baseline=baseline,
         baseline_label=label,
         baseline_cGy_per_MU=value,
-        points=tuple(_point(e, value, e.station.name if several else None) for e in entries),
+        points=tuple(_point(e, value, labels.get(e.station.uuid)) for e in entries),
         station_uuid=stores[0].station().uuid if len(stores) == 1 else None,
         known_beams=() if entries or not known else tuple(known),
         action_pct=_action_pct(registered, entries),

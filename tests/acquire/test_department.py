@@ -459,3 +459,33 @@ def test_a_replaced_station_file_is_refused_in_words(tmp_path: Path, url: str, c
         if attempt == 0:
             with Store.open(replaced) as store:
                 record_review(store, 2, "approve", "reviewer B", "fine")
+
+
+def test_stations_that_share_a_name_are_told_apart_by_their_uuid(
+    tmp_path: Path, url: str, capsys
+) -> None:
+    # Two stations that kept the same name (as two left at their default, the host's, would).
+    paths = []
+    for folder in ("first", "second"):
+        (tmp_path / folder).mkdir()
+        paths.append(_station_file(tmp_path / folder, 0, sessions=1))
+        _publish(paths[-1], url, capsys)
+    uuids = []
+    for path in paths:
+        with Store.open(path, read_only=True) as store:
+            uuids.append(store.station().uuid)
+    labels = [f"{STATIONS[0]} ({uuid[:8]})" for uuid in uuids]
+    assert main(["sessions", "--db", url]) == EXIT_OK
+    listed = capsys.readouterr().out
+    assert all(label in listed for label in labels)
+    assert main(["history", "--beam", "6 MV", "--db", url, "--format", "json"]) == EXIT_OK
+    points = json.loads(capsys.readouterr().out)["points"]
+    assert sorted(point["station"] for point in points) == sorted(labels)
+    # the start of the UUID the listing shows chooses the station
+    assert main(["sessions", "--db", url, "--station", uuids[1][:8], "--json"]) == EXIT_OK
+    (row,) = json.loads(capsys.readouterr().out)
+    assert row["station_uuid"] == uuids[1] and row["station_name"] == STATIONS[0]
+    # a session id both hold is refused, naming what chooses each
+    assert main(["show", "1", "--db", url]) != EXIT_OK
+    refusal = capsys.readouterr().err
+    assert uuids[0][:8] in refusal and uuids[1][:8] in refusal
