@@ -7,6 +7,7 @@ identities: the carried factor is the full calibration's own k_pol and k_s.
 
 from __future__ import annotations
 
+from datetime import datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -23,9 +24,22 @@ MONTHLY = load_plan("monthly-check")
 TODAY = "2026-12-03"
 
 
+class StoreClock:
+    """A store's clock for tests (``Store.open(now=...)``): from ``start``, a millisecond later
+    at each reading of it. An output check dated TODAY carries from sessions recorded before
+    it only if they are recorded on TODAY, whatever the date the tests run on."""
+
+    def __init__(self, start: datetime | None = None) -> None:
+        self.now = start or datetime.fromisoformat(f"{TODAY}T08:00:00+00:00")
+
+    def __call__(self) -> datetime:
+        self.now += timedelta(milliseconds=1)
+        return self.now
+
+
 @pytest.fixture
 def store(tmp_path: Path) -> Store:
-    with Store.open(tmp_path / "station.sqlite") as opened:
+    with Store.open(tmp_path / "station.sqlite", now=StoreClock()) as opened:
         yield opened
 
 

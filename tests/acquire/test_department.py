@@ -14,7 +14,7 @@ import json
 import re
 import sqlite3
 from collections.abc import Iterator
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, date, datetime
 from pathlib import Path
 
 import psycopg
@@ -32,7 +32,7 @@ from chargebook.acquire.session.register_rows import select
 from chargebook.acquire.session.stored_result import stored_row
 from postgres_server import Server, running_server
 from recorded_session import example_metadata, record_example_session
-from test_carried_start import MONTHLY, TODAY, record_output_check
+from test_carried_start import MONTHLY, TODAY, StoreClock, record_output_check
 
 pytestmark = pytest.mark.slow
 
@@ -56,18 +56,14 @@ def url(server: Server) -> str:
     return found
 
 
-class Clock:
+class Clock(StoreClock):
     """The store's clock: each reading of it a millisecond later than the last, from ``day``."""
 
     def __init__(self) -> None:
-        self.now = datetime(2026, 11, 1, 8, 0, tzinfo=UTC)
+        super().__init__(datetime(2026, 11, 1, 8, 0, tzinfo=UTC))
 
     def day(self, day: int) -> None:
         self.now = datetime(2026, 11, day, 8, 0, tzinfo=UTC)
-
-    def __call__(self) -> datetime:
-        self.now += timedelta(milliseconds=1)
-        return self.now
 
 
 def _station_file(folder: Path, index: int, sessions: int = 2) -> Path:

@@ -24,7 +24,7 @@ from chargebook.acquire.session.evaluation import evaluate_session
 from chargebook.acquire.session.register_rows import find_beam, select
 from chargebook.corrections.errors import InputError
 from recorded_session import example_metadata, record_example_session
-from test_carried_start import MONTHLY, TODAY, record_output_check
+from test_carried_start import MONTHLY, TODAY, StoreClock, record_output_check
 
 
 @pytest.fixture
@@ -32,7 +32,7 @@ def station(tmp_path: Path) -> Path:
     """Two typed full calibrations of DEMO-LA1 6 MV, one of DEMO-LA2, and an output check
     that named the register beam."""
     path = tmp_path / "station.sqlite"
-    with Store.open(path) as store:
+    with Store.open(path, now=StoreClock()) as store:
         ids = add_demo_registers(store, actor="physicist C", today=datetime.date(2026, 12, 3))
         record_example_session(store)
         record_example_session(store, scale=1.004)
