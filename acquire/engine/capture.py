@@ -184,8 +184,8 @@ class ReadingCapture:
         complete the reading: :meth:`feed` completes one only when it is marked complete, when a
         timed integration's time is up, when the charge has held flat for the hold time, or
         when an auto-reset instrument's charge fell back to the baseline (a lost reading)."""
-        if complete or self._reset_seen(charge_nC):
-            return True
+        if complete or (self.resets_itself and self._reset_seen(charge_nC)):
+            return True  # (resets_itself first: no call per sample of a plain instrument)
         if self.phase is ReadingPhase.TIMED:
             return self.timed_s is not None and t_s - self.armed_t_s >= self.timed_s
         if self.phase is ReadingPhase.ARMED:
