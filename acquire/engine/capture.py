@@ -9,6 +9,11 @@ Three ways a reading is captured (the ``capture`` column of the store):
 * ``pushed``: the instrument itself sends a completed reading (``Sample.complete``).
 * ``manual``: the operator captures the charge integrated so far.
 
+An auto-reset instrument (``resets_itself``) zeroes its integrator once it has pushed a
+completed reading. If that line never arrives (garbled on the wire, refused by the driver), the
+charge falls from the beam's back to where it started: the reading is ``lost`` (never stored:
+the engine drops it), where end-of-beam detection would take the reset integrator's charge.
+
 Pure: no I/O and no clock of its own; times are the instrument clock's seconds passed in.
 """
 
@@ -27,6 +32,9 @@ class CaptureKind(enum.StrEnum):
     AUTO = "auto"
     PUSHED = "pushed"
     MANUAL = "manual"
+    #: not a reading (never stored): an auto-reset instrument reset itself before its
+    #: completed reading was received
+    LOST = "lost"
 
 
 @dataclass(frozen=True, slots=True)
@@ -67,6 +75,8 @@ class ReadingCapture:
     ``timed_s`` set: a timed integration (no beam) that ends ``timed_s`` seconds after arming.
     ``baseline_nC``: the charge at arming when known (0 after the integrator was zeroed), so a
     beam already under way at the first sample is still seen rising; None takes the first sample.
+    ``resets_itself``: the instrument zeroes itself after a completed reading it pushes (see the
+    module docstring: a fall back to the baseline after the rise is a lost reading).
     """
 
     def __init__(
@@ -75,8 +85,10 @@ class ReadingCapture:
         armed_t_s: float,
         timed_s: float | None = None,
         baseline_nC: float | None = None,
+        resets_itself: bool = False,
     ):
         self.settings = settings
+        self.resets_itself = resets_itself
         self.armed_t_s = armed_t_s
         self.timed_s = timed_s
         self.phase = ReadingPhase.TIMED if timed_s is not None else ReadingPhase.ARMED
@@ -95,6 +107,8 @@ class ReadingCapture:
             return None
         if self.baseline_nC is None:
             self.baseline_nC = charge_nC
+        if not complete and self._reset_seen(charge_nC):
+            return self._done(CaptureKind.LOST, t_s)  # the charge the beam had brought, kept
         self.last_charge_nC, self.last_t_s = charge_nC, t_s
         if complete:
             return self._done(CaptureKind.PUSHED, t_s)
@@ -131,7 +145,7 @@ class ReadingCapture:
             t_s = sample.t_s
             if t_s < self.armed_t_s:
                 continue  # a stale line, ignored as feed ignores it
-            if not self._may_complete(t_s, sample.complete):
+            if not self._may_complete(t_s, sample.complete, sample.charge_nC):
                 if self.phase is ReadingPhase.TIMED:
                     if self.baseline_nC is None:
                         self.baseline_nC = sample.charge_nC
@@ -165,17 +179,29 @@ class ReadingCapture:
             self.last_charge_nC, self.last_t_s = last.charge_nC, last.t_s
         return stop
 
-    def _may_complete(self, t_s: float, complete: bool) -> bool:
-        """Return False when a sample at ``t_s`` (not stale) surely does not complete the
-        reading: :meth:`feed` completes one only when it is marked complete, when a timed
-        integration's time is up, or when the charge has held flat for the hold time."""
-        if complete:
-            return True
+    def _may_complete(self, t_s: float, complete: bool, charge_nC: float) -> bool:
+        """Return False when a sample at ``t_s`` (not stale) of ``charge_nC`` surely does not
+        complete the reading: :meth:`feed` completes one only when it is marked complete, when a
+        timed integration's time is up, when the charge has held flat for the hold time, or
+        when an auto-reset instrument's charge fell back to the baseline (a lost reading)."""
+        if complete or (self.resets_itself and self._reset_seen(charge_nC)):
+            return True  # (resets_itself first: no call per sample of a plain instrument)
         if self.phase is ReadingPhase.TIMED:
             return self.timed_s is not None and t_s - self.armed_t_s >= self.timed_s
         if self.phase is ReadingPhase.ARMED:
             return False
         return t_s - self._flat_since_s >= self.settings.hold_s or self.phase is ReadingPhase.IDLE
+
+    def _reset_seen(self, charge_nC: float) -> bool:
+        """Return True if ``charge_nC`` (nC) shows that an auto-reset instrument zeroed itself
+        after the beam: the charge rose, and is now back within the rise threshold of the
+        baseline (nothing else takes the charge an integrator holds back down)."""
+        return (
+            self.resets_itself
+            and self.phase in (ReadingPhase.RISING, ReadingPhase.HOLDING)
+            and self.baseline_nC is not None
+            and abs(charge_nC - self.baseline_nC) <= self.settings.rise_threshold_nC
+        )
 
     def tick(self, now_s: float) -> Captured | None:
         """Return the reading if the hold time (or the timed duration) has passed at ``now_s``."""

@@ -73,6 +73,9 @@ Results = tuple[dict[str, Any] | None, bool, str | None]
 PlanSource = inputs.PlanSource
 #: Settling readings taken at most while waiting for two consecutive readings to agree.
 MAX_SETTLING_READINGS = 10
+#: Why a reading is dropped when an auto-reset instrument reset itself without the completed
+#: reading reaching the engine (the ``why`` of its ``reading_dropped`` event).
+LOST_READING = "completed reading lost"
 
 
 class ConfirmationRequired(Exception):
@@ -829,9 +832,23 @@ class Engine:
         return fed
 
     def _record_captured(self, captured: Captured) -> None:
-        """Record a captured reading and all that follows from it."""
-        self._record(captured, DAEMON_ACTOR)
+        """Record a captured reading and all that follows from it (or drop a lost one)."""
+        if captured.capture is CaptureKind.LOST:
+            self._lose_reading(captured)
+        else:
+            self._record(captured, DAEMON_ACTOR)
         self._changed()
+
+    def _lose_reading(self, captured: Captured) -> None:
+        """Drop the reading in progress: the auto-reset instrument zeroed itself after it, but
+        its completed reading never arrived. Nothing is sent: the next reading integrates on
+        from the sample that showed the reset (s, ``captured.t_s``)."""
+        why = LOST_READING
+        dropped = ev.ReadingDropped(why=why, charge_nC=captured.charge_nC)
+        self._event(DAEMON_ACTOR, EventKind.READING_DROPPED, dropped)
+        self.reading = None
+        self._begin_reading(DAEMON_ACTOR, why, captured.t_s)
+        self.notice = dropped_reading_notice(ReadingPhase.HOLDING, captured.charge_nC, why)
 
     def _wait_over(self, now_s: float) -> bool:
         """Return True when a settling wait is over at ``now_s`` (s on the engine's clock)."""
@@ -989,6 +1006,7 @@ class Engine:
             self._now() if run_on_at_s is None else run_on_at_s,
             None if timed_s is None else timed_s * self.time_scale,
             baseline_nC=0.0 if zeroed else None,
+            resets_itself=self._can(Capability.AUTO_RESET),
         )
         self.reading_status = "ok"
         if not runs_on:  # else the instrument zeroed itself and integrates on: the same arming
@@ -1173,6 +1191,10 @@ HANDLERS: dict[type[inputs.Input], Callable[[Engine, Any], Any]] = {
 def dropped_reading_notice(phase: ReadingPhase, charge_nC: float | None, why: str) -> str:
     """Return what the operator must be told when a reading in progress is discarded."""
     cause = {
+        LOST_READING: (
+            "the electrometer reset itself after it (auto-reset) but its completed reading "
+            "never arrived (a line lost or refused on the way)"
+        ),
         "pause": "the session was paused",
         "redo": "the set was redone",
         "instrument lost": "the electrometer was lost",

@@ -111,7 +111,7 @@ def identity(record: SessionRecord) -> Table:
     if session.reason:
         rows.insert(3, ("Reason", session.reason, "reason"))
     if session.replay_of is not None:
-        rows.insert(3, ("Replay of session", str(session.replay_of), "replay_of"))
+        rows.insert(3, ("Replay of session", _replay_text(record), "replay_of"))
     rows[1:1] = [
         ("Review", _review_text(record), "review"),
         ("Session UUID", session.uuid or NOT_GIVEN, "session_uuid"),
@@ -135,6 +135,17 @@ def identity(record: SessionRecord) -> Table:
 def _station_text(record: SessionRecord) -> str:
     station = record.station
     return NOT_GIVEN if station is None else f"{station.name}, UUID {station.uuid}"
+
+
+def _replay_text(record: SessionRecord) -> str:
+    """Return the session a replay is of, saying so when the replay was kept although its
+    traffic log does not reproduce that session (its ``replay_not_reproduced`` event)."""
+    text = str(record.session.replay_of)
+    for event in record.events:
+        if event.kind == EventKind.REPLAY_NOT_REPRODUCED:
+            log = event.detail()["traffic_log"]
+            return f"{text}, NOT reproduced: traffic log {log} differs, kept with --keep"
+    return text
 
 
 def _review_text(record: SessionRecord) -> str:

@@ -118,6 +118,84 @@ def _hand_burst(daemon: Daemon, samples: list[Sample]) -> None:
     daemon._events.put_nowait(("samples", (daemon._generation, [chunk])))
 
 
+def _beam(charge_nC: float, start_s: float, completed: bool = True) -> list[Sample]:
+    """Return the pushed samples of one beam from ``start_s``: the charge rising to
+    ``charge_nC`` (invented, demo only) over 1 s, then its completed line unless lost."""
+    rising = [Sample(start_s + 0.1 * n, charge_nC * n / 10) for n in range(1, 11)]
+    return rising + ([Sample(start_s + 1.1, charge_nC, complete=True)] if completed else [])
+
+
+def _reset(start_s: float, count: int = 30) -> list[Sample]:
+    """Return the samples of a reset integrator, 0.1 s apart: leakage only (invented)."""
+    return [Sample(start_s + 0.1 * n, 0.0001) for n in range(count)]
+
+
+def _losing_a_line(engine: Engine, feed) -> list[list[str]]:
+    """Feed (with ``feed(samples)``) a settling beam, a beam whose completed line is lost on the
+    way, the instrument's reset integrator after it, and three more beams; return the commands
+    issued after each part, by name."""
+    issued = []
+    for samples in (
+        _beam(20.0, 1001.0),
+        _beam(20.1, 1003.0, completed=False),
+        _reset(1004.2),
+        _beam(20.2, 1008.0),
+        _beam(20.3, 1010.0),
+        _beam(20.4, 1012.0),
+    ):
+        feed(samples)
+        issued.append([type(command).__name__ for command in engine.take_commands()])
+    return issued
+
+
+@pytest.mark.parametrize("way", ["one at a time", "in runs"])
+def test_a_reading_whose_completed_line_is_lost_is_dropped_not_taken_from_the_reset(way):
+    # The instrument zeroed itself after the beam, but its completed line never arrived
+    # (garbled, refused by the driver): end-of-beam detection took the reset integrator's
+    # 0.0001 nC as the reading. It is dropped, said so, and the set goes on with nothing sent.
+    engine, clock = _armed(PUSHES | {Capability.AUTO_RESET})
+    engine.take_commands()
+
+    def one_at_a_time(samples: list[Sample]) -> None:
+        for sample in samples:
+            clock.now = sample.t_s
+            engine.on_sample(sample.t_s, sample.charge_nC, sample.complete)
+
+    def in_runs(samples: list[Sample]) -> None:  # as the daemon feeds a burst
+        clock.now = samples[-1].t_s
+        while samples and engine.reading is not None:
+            taken = engine.take_samples(samples, [None] * len(samples), clock.now)
+            samples = samples[taken:]
+
+    issued = _losing_a_line(engine, one_at_a_time if way == "one at a time" else in_runs)
+    readings = engine.store.readings(engine.session_id)
+    assert [(r.charge_nC, r.capture) for r in readings] == [
+        (20.0, "pushed"),
+        (20.2, "pushed"),
+        (20.3, "pushed"),
+        (20.4, "pushed"),
+    ]
+    assert issued == [[], [], [], [], [], ["StopIntegration"]]  # armed once, stopped at the end
+    events = engine.store.events(engine.session_id)
+    (dropped,) = [e.detail() for e in events if e.kind == "reading_dropped"]
+    assert dropped == {"why": "completed reading lost", "charge_nC": 20.1}
+    # the next reading integrated on from the sample that showed the reset
+    assert engine.integration_s[readings[1].id] == pytest.approx(1009.1 - 1004.2, abs=1e-9)
+    assert engine.state.value == "reviewing"
+
+
+def test_a_lost_reading_is_said_to_the_operator():
+    engine, clock = _armed(PUSHES | {Capability.AUTO_RESET})
+    for sample in _beam(20.1, 1001.0, completed=False) + _reset(1002.2, 2):
+        clock.now = sample.t_s
+        engine.on_sample(sample.t_s, sample.charge_nC)
+    assert engine.store.readings(engine.session_id) == []
+    assert engine.reading is not None and engine.state.value == "settling"  # still the first
+    assert engine.notice is not None and "(+20.1000 nC so far) was discarded" in engine.notice
+    assert "reset itself after it (auto-reset) but its completed reading never" in engine.notice
+    assert "Deliver that beam again" in engine.notice
+
+
 def test_the_simulated_instrument_zeroes_after_each_completed_reading_it_pushes():
     profile = load_profile(str(PUSHED_EVERY_LINE))
     device = SimulatedElectrometer(ChamberPhysics(ChamberParameters(), seed=1))

@@ -15,6 +15,7 @@ import pytest
 from chargebook.acquire.commands.cli import main
 from chargebook.acquire.exit_codes import EXIT_FAILURE, EXIT_INVALID_INPUT, EXIT_OK
 from chargebook.acquire.protocol import CAUTION
+from chargebook.acquire.record.events import EventKind, ReplayNotReproduced
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.reports.export import JSON_KEYS
 from recorded_session import SUPERSEDE_REASON, record_example_session, recorded_station
@@ -132,3 +133,33 @@ def test_text_fits_the_terminal_width_and_loses_no_word(
     # Every word is still printed (a table with too many columns becomes one block per row, so
     # its headers repeat and its rules of dashes go).
     assert {word for word in wide.split() if set(word) != {"-"}} <= set(wrapped.split())
+
+
+def test_a_replay_kept_although_its_traffic_log_did_not_reproduce_is_shown_as_such(
+    station: Path, capsys
+) -> None:
+    # `replay --traffic-log F --keep` stores a replay of an edited log with a
+    # replay_not_reproduced event; shown only as "Replay of session 1", it read as a
+    # reproduction of the session.
+    log = "/records/edited-copy.jsonl"
+    with Store.open(station) as store:
+        faithful = record_example_session(store, replay_of=1)
+        kept = record_example_session(store, replay_of=1)
+        why = "stored with --keep although this traffic log does not reproduce the session"
+        store.add_event(
+            kept,
+            "replay",
+            EventKind.REPLAY_NOT_REPRODUCED,
+            ReplayNotReproduced(traffic_log=log, why=why),
+        )
+    shown = {}
+    for session_id in (faithful, kept):
+        assert main(["show", str(session_id), "--db", str(station)]) == EXIT_OK
+        (line,) = [
+            line
+            for line in capsys.readouterr().out.splitlines()
+            if line.startswith("Replay of session  ")
+        ]
+        shown[session_id] = line.removeprefix("Replay of session").strip()
+    assert shown[faithful] == "1"
+    assert shown[kept] == f"1, NOT reproduced: traffic log {log} differs, kept with --keep"
