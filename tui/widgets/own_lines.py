@@ -10,6 +10,7 @@ again unless the number of lines changes.
 
 from __future__ import annotations
 
+import functools
 import textwrap
 from collections.abc import Iterable, Sequence
 
@@ -30,16 +31,27 @@ def text_line(text: str, style: Style | None = None) -> Line:
     return (Segment(text, style),)
 
 
+#: What :mod:`textwrap` turns into a space before wrapping.
+_WRAP_SPACES = frozenset("\t\n\x0b\x0c\r")
+
+
 def wrapped(lines: Iterable[str], width: int) -> list[str]:
     """Return ``lines`` wrapped on spaces to ``width`` cells (long words broken; no-break
     spaces kept, so a number stays with its unit)."""
     if width <= 0:
         return list(lines)
-    return [
-        piece
-        for line in lines
-        for piece in (textwrap.wrap(line, width, break_on_hyphens=False) or [""])
-    ]
+    return [piece for line in lines for piece in _wrapped_line(line, width)]
+
+
+@functools.lru_cache(maxsize=512)
+def _wrapped_line(line: str, width: int) -> tuple[str, ...]:
+    """Return one line wrapped as :func:`textwrap.wrap` wraps it (``("",)`` for none). At
+    every reading the same headings and prompts are wrapped again: they are remembered, and
+    a line that fits as it is is returned without wrapping."""
+    last_word = line[line.rfind(" ") + 1 :]  # textwrap drops a last word of white space
+    if len(line) <= width and last_word.strip() and _WRAP_SPACES.isdisjoint(line):
+        return (line,)
+    return tuple(textwrap.wrap(line, width, break_on_hyphens=False)) or ("",)
 
 
 def cut(text: str, width: int) -> str:
@@ -67,19 +79,22 @@ class HeldLines:
         self._strips: dict[int, Strip] = {}
         self._built_for: tuple[int, Style] | None = None
 
-    def replace(self, lines: Sequence[Line]) -> tuple[int, int] | None:
-        """Hold ``lines``; return the span (first, past the last) of lines that changed, or
-        None when none did."""
+    def replace(self, lines: Sequence[Line]) -> list[tuple[int, int]]:
+        """Hold ``lines``; return the runs (first, past the last) of lines that changed, in
+        order (none: nothing changed). A reading changes a few lines far apart (its own, the
+        count): each run is drawn again, not the lines between them."""
         old, new = self.lines, tuple(lines)
         self.lines = new
-        changed = [
-            y
-            for y in range(max(len(old), len(new)))
-            if y >= len(old) or y >= len(new) or old[y] != new[y]
-        ]
-        for y in changed:
+        runs: list[tuple[int, int]] = []
+        for y in range(max(len(old), len(new))):
+            if y < len(old) and y < len(new) and old[y] == new[y]:
+                continue
             self._strips.pop(y, None)
-        return (changed[0], changed[-1] + 1) if changed else None
+            if runs and runs[-1][1] == y:
+                runs[-1] = (runs[-1][0], y + 1)
+            else:
+                runs.append((y, y + 1))
+        return runs
 
     def strip(self, index: int, width: int, base: Style) -> Strip:
         """Return line ``index`` as a strip of ``width`` cells over ``base`` (blank past the
@@ -150,8 +165,8 @@ class OwnLines(Widget):
         """Show ``lines``: only those that differ from the lines shown are drawn again, and
         the screen is laid out again only when their number changes."""
         count = len(self._held.lines)
-        span = self._held.replace(lines)
-        if span is None:
+        runs = self._held.replace(lines)
+        if not runs:
             return
         if len(lines) != count and not self._height_fixed():
             self.refresh(layout=True)
@@ -159,8 +174,8 @@ class OwnLines(Widget):
             # lines, built as the widget gets its width), the first request is lost
             self.call_after_refresh(self.refresh, layout=True)
         else:
-            first, past = span
-            self.refresh(Region(0, first, max(self.size.width, 1), past - first))
+            width = max(self.size.width, 1)
+            self.refresh(*(Region(0, first, width, past - first) for first, past in runs))
 
     def _height_fixed(self) -> bool:
         height = self.styles.height

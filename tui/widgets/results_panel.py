@@ -149,15 +149,16 @@ class ResultsPanel(ScrollView, can_focus=True):
     def _show(self, lines: list[Line]) -> None:
         """Show ``lines``, drawing again only those that changed."""
         count = len(self._held.lines)
-        span = self._held.replace(lines)
+        runs = self._held.replace(lines)
         if len(lines) != count:
             # A new height to scroll: the screen is laid out again only when the scrollbar
             # comes or goes (Textual lays it out for every new virtual size).
             self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
             self._scroll_update(self.virtual_size)
             self.refresh()
-        elif span is not None:
-            self.refresh_lines(span[0], span[1] - span[0])
+        else:
+            for first, past in runs:
+                self.refresh_lines(first, past - first)
 
     def render_line(self, y: int) -> Strip:
         width = self.scrollable_content_region.width
