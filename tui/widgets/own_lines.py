@@ -14,6 +14,7 @@ import functools
 import textwrap
 from collections.abc import Iterable, Sequence
 
+from chargebook.tui.widgets.held_render import HeldRender, runs
 from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from rich.style import Style
@@ -85,16 +86,14 @@ class HeldLines:
         count): each run is drawn again, not the lines between them."""
         old, new = self.lines, tuple(lines)
         self.lines = new
-        runs: list[tuple[int, int]] = []
-        for y in range(max(len(old), len(new))):
-            if y < len(old) and y < len(new) and old[y] == new[y]:
-                continue
+        changed = [
+            y
+            for y in range(max(len(old), len(new)))
+            if y >= len(old) or y >= len(new) or old[y] != new[y]
+        ]
+        for y in changed:
             self._strips.pop(y, None)
-            if runs and runs[-1][1] == y:
-                runs[-1] = (runs[-1][0], y + 1)
-            else:
-                runs.append((y, y + 1))
-        return runs
+        return runs(changed)
 
     def strip(self, index: int, width: int, base: Style) -> Strip:
         """Return line ``index`` as a strip of ``width`` cells over ``base`` (blank past the
@@ -129,7 +128,7 @@ def fitted(line: Line, width: int, base: Style) -> list[Segment]:
     return segments
 
 
-class OwnLines(Widget):
+class OwnLines(HeldRender, Widget):
     """A widget drawn from :meth:`show_lines` alone, as tall as its lines unless its style
     sheet sets its height. Subclasses build their lines from what they show, at
     :attr:`line_width`, and build them again when the width changes (:meth:`rebuild`)."""

@@ -7,6 +7,7 @@ from __future__ import annotations
 from typing import Any, ClassVar
 
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.held_render import HeldRender
 from chargebook.tui.widgets.own_lines import HeldLines, Line, text_line, wrapped
 from rich.console import Console
 from rich.table import Table
@@ -63,7 +64,7 @@ def table_lines(console: Console, table: Table, width: int) -> list[Line]:
     return [tuple(line) for line in console.render_lines(table, options, pad=False)]
 
 
-class ResultsPanel(ScrollView, can_focus=True):
+class ResultsPanel(HeldRender, ScrollView, can_focus=True):
     """Factor table, results and the session's flags, as the daemon computed them.
 
     It scrolls, and takes the focus (Tab), so that every line can be reached from the keyboard

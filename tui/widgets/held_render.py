@@ -1,0 +1,87 @@
+"""Widgets that keep what they rendered from one frame to the next (issue 17, target 1).
+
+At every frame that changes any part of the screen, Textual's compositor renders every widget
+the changed part's container holds, whole (only then are the lines that changed picked out),
+each through its style cache: its background worked out from every ancestor, then each of its
+lines looked up and passed through the app's colour filters. At 50 readings a second a frame
+changes a few lines of one panel, and the rest of the screen cost as much again as them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from typing import TYPE_CHECKING
+
+from textual.containers import Horizontal
+from textual.geometry import Region
+from textual.strip import Strip
+from textual.widget import Widget
+from textual.widgets import ContentSwitcher
+
+if TYPE_CHECKING:
+    _Mixin = Widget
+else:
+    _Mixin = object  # not a node itself: Textual takes a widget's style sheet from its first
+    # node base, which must stay the widget class it is mixed into (Static, Horizontal...)
+
+
+class HeldRender(_Mixin):
+    """A widget whose rendered lines are kept from one frame to the next until it is marked
+    for drawing again: what the last render returned is returned again while the widget has
+    not been marked dirty since (every refresh, style change and new size goes through
+    ``_set_dirty``, where the style cache itself learns what to draw again), for the same
+    part of the widget, at the same size, through the same filters. Put it first among a
+    widget's bases, before the widget class."""
+
+    _rendered: tuple[object, list[Strip]] | None = None
+    _rows_dirty: frozenset[int] | set[int] = frozenset()  # rows marked since, of the widget
+
+    def _set_dirty(self, *regions: Region) -> None:
+        super()._set_dirty(*regions)
+        if not regions or self._rendered is None:
+            self._rendered = None  # all of it: rendered again whole
+            return
+        if not isinstance(self._rows_dirty, set):
+            self._rows_dirty = set()
+        offset = self.content_offset  # the regions are the content's, as Textual takes them
+        for region in regions:
+            self._rows_dirty.update(region.translate(offset).line_range)
+
+    def render_lines(self, crop: Region) -> list[Strip]:
+        """Return the lines of ``crop`` (a region of the widget): those kept from the last
+        render, with the rows marked dirty since rendered again (all of them when the part,
+        the size or the filters changed, or the whole widget was marked)."""
+        key = (crop, self.size, tuple(self.get_line_filters()))
+        held, dirty = self._rendered, self._rows_dirty
+        self._rows_dirty = frozenset()
+        if held is None or held[0] != key:
+            strips = super().render_lines(crop)
+        else:
+            strips = held[1]
+            wanted = [y for y in crop.line_range if y in dirty]
+            if wanted:
+                strips = list(strips)
+                for first, past in runs(wanted):
+                    part = Region(crop.x, first, crop.width, past - first)
+                    strips[first - crop.y : past - crop.y] = super().render_lines(part)
+        self._rendered = (key, strips)
+        return strips
+
+
+def runs(rows: Iterable[int]) -> list[tuple[int, int]]:
+    """Return ``rows`` (ascending) as runs of consecutive rows: (first, past the last)."""
+    found: list[tuple[int, int]] = []
+    for y in rows:
+        if found and found[-1][1] == y:
+            found[-1] = (found[-1][0], y + 1)
+        else:
+            found.append((y, y + 1))
+    return found
+
+
+class HeldHorizontal(HeldRender, Horizontal):
+    """A :class:`~textual.containers.Horizontal` that keeps what it rendered (its background)."""
+
+
+class HeldContentSwitcher(HeldRender, ContentSwitcher):
+    """A :class:`~textual.widgets.ContentSwitcher` that keeps what it rendered."""
