@@ -63,9 +63,10 @@ HEADINGS = tuple(heading for heading, _width, _right in READING_COLUMNS)
 
 def column_widths(rows: Sequence[tuple[str, ...]]) -> list[int]:
     """Return each column's width in characters: its widest cell, heading included."""
+    columns = zip(HEADINGS, *rows, strict=True)  # each column's cells, the heading first
     return [
-        max(least, *(len(row[index]) for row in (HEADINGS, *rows)))
-        for index, (_heading, least, _right) in enumerate(READING_COLUMNS)
+        max(least, *map(len, column))
+        for column, (_heading, least, _right) in zip(columns, READING_COLUMNS, strict=True)
     ]
 
 
