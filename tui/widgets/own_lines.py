@@ -49,10 +49,27 @@ def _wrapped_line(line: str, width: int) -> tuple[str, ...]:
     """Return one line wrapped as :func:`textwrap.wrap` wraps it (``("",)`` for none). At
     every reading the same headings and prompts are wrapped again: they are remembered, and
     a line that fits as it is is returned without wrapping."""
-    last_word = line[line.rfind(" ") + 1 :]  # textwrap drops a last word of white space
-    if len(line) <= width and last_word.strip() and _WRAP_SPACES.isdisjoint(line):
-        return (line,)
+    if _WRAP_SPACES.isdisjoint(line):
+        words = line.split(" ")
+        # textwrap drops a word of white space at a line's start or end, and breaks a word
+        # longer than a line: none of that here, so it wraps word by word
+        if all(len(word) <= width and word.strip() for word in words):
+            return tuple(_filled(words, width))
     return tuple(textwrap.wrap(line, width, break_on_hyphens=False)) or ("",)
+
+
+def _filled(words: list[str], width: int) -> list[str]:
+    """Return ``words`` (none empty, none longer than ``width``) in lines of at most ``width``
+    characters, one space between two words, each line as full as the next word allows."""
+    lines, line = [], words[0]
+    for word in words[1:]:
+        if len(line) + 1 + len(word) <= width:
+            line = f"{line} {word}"
+        else:
+            lines.append(line)
+            line = word
+    lines.append(line)
+    return lines
 
 
 def cut(text: str, width: int) -> str:
