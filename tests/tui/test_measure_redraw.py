@@ -11,7 +11,12 @@ from typing import Any
 from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.key_line import KeyLine
-from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
+from chargebook.tui.widgets.reading_set import (
+    CellsByReading,
+    ReadingSetPanel,
+    column_widths,
+    reading_cells,
+)
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from chargebook.tui.widgets.step_panel import StepPanel
 from chargebook.tui.widgets.tab_strip import TabStrip
@@ -221,6 +226,17 @@ def test_a_readings_cells_are_worked_out_once_and_again_when_it_changed() -> Non
     assert cells(reading) is cells(reading)
     changed = {**reading, "charge_nC": 12.5}
     assert cells(changed) == reading_cells(changed) != reading_cells(reading)
+
+
+def test_the_columns_widths_follow_the_readings_added_and_narrow_when_one_is_replaced() -> None:
+    readings = load_snapshot("collecting")["current_set"]["readings"]
+    cells = CellsByReading()
+    every = cells.widths(readings)
+    assert every == column_widths([reading_cells(reading) for reading in readings])
+    wide = {**readings[0], "charge_nC": -123456.7891, "capture": "by hand"}
+    grown = cells.widths([*readings, wide])  # the readings before are the very same objects
+    assert grown == column_widths([reading_cells(r) for r in [*readings, wide]]) != every
+    assert cells.widths(readings) == every  # the wide one gone again: as narrow as before
 
 
 async def test_following_the_newest_a_reading_mostly_draws_its_own_line_not_the_whole_area():

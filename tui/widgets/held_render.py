@@ -34,7 +34,7 @@ class HeldRender(_Mixin):
     widget's bases, before the widget class."""
 
     _rendered: tuple[object, list[Strip]] | None = None
-    _rows_dirty: frozenset[int] | set[int] = frozenset()  # rows marked since, of the widget
+    _rows_dirty: frozenset[int] | set[int] = frozenset()  # rows marked since, of the content
 
     def _set_dirty(self, *regions: Region) -> None:
         super()._set_dirty(*regions)
@@ -43,9 +43,8 @@ class HeldRender(_Mixin):
             return
         if not isinstance(self._rows_dirty, set):
             self._rows_dirty = set()
-        offset = self.content_offset  # the regions are the content's, as Textual takes them
-        for region in regions:
-            self._rows_dirty.update(region.translate(offset).line_range)
+        for region in regions:  # the content's rows, as Textual takes them
+            self._rows_dirty.update(region.line_range)
 
     def render_lines(self, crop: Region) -> list[Strip]:
         """Return the lines of ``crop`` (a region of the widget): those kept from the last
@@ -58,7 +57,8 @@ class HeldRender(_Mixin):
             strips = super().render_lines(crop)
         else:
             strips = held[1]
-            wanted = [y for y in crop.line_range if y in dirty]
+            top = self.content_offset.y if dirty else 0  # the content's first row
+            wanted = [y for y in crop.line_range if y - top in dirty]
             if wanted:
                 strips = list(strips)
                 for first, past in runs(wanted):

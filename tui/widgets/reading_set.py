@@ -3,7 +3,8 @@ flags: one widget that draws its own lines (:mod:`chargebook.tui.widgets.own_lin
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+import operator
+from collections.abc import Sequence
 from typing import Any, ClassVar
 
 from chargebook.acquire.protocol import severity_rank
@@ -38,6 +39,25 @@ def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     )
 
 
+#: The readings' heading line's cells.
+HEADINGS = tuple(heading for heading, _width, _right in READING_COLUMNS)
+
+
+#: Each column's width without a reading: its least, or its heading's.
+LEAST_WIDTHS = tuple(max(least, len(heading)) for heading, least, _right in READING_COLUMNS)
+
+
+def column_widths(
+    rows: Sequence[tuple[str, ...]], at_least: Sequence[int] = LEAST_WIDTHS
+) -> list[int]:
+    """Return each column's width in characters: its widest cell, heading included, and at
+    least ``at_least`` (the widths of rows measured before)."""
+    if not rows:
+        return list(at_least)
+    columns = zip(*rows, strict=True)  # each column's cells
+    return [max(least, *map(len, column)) for column, least in zip(columns, at_least, strict=True)]
+
+
 class CellsByReading:
     """Each reading's cells, worked out once: the client keeps a reading the daemon did not
     change as the very object it held, so at the 60th reading of a set only the new one is
@@ -45,6 +65,7 @@ class CellsByReading:
 
     def __init__(self) -> None:
         self._held: dict[int, tuple[dict[str, Any], tuple[str, str, str, str]]] = {}
+        self._measured: tuple[list[dict[str, Any]], list[int]] = ([], list(LEAST_WIDTHS))
 
     def __call__(self, reading: dict[str, Any]) -> tuple[str, str, str, str]:
         held = self._held.get(id(reading))
@@ -52,22 +73,22 @@ class CellsByReading:
             held = self._held[id(reading)] = (reading, reading_cells(reading))
         return held[1]
 
+    def widths(self, readings: list[dict[str, Any]]) -> list[int]:
+        """Return the columns' widths for ``readings`` (:func:`column_widths` of their cells):
+        when the readings measured last are the very first objects of ``readings`` (a reading
+        added), only the new ones are measured."""
+        measured, widths = self._measured
+        if len(measured) <= len(readings) and all(map(operator.is_, measured, readings)):
+            widths = column_widths([self(reading) for reading in readings[len(measured) :]], widths)
+        else:
+            widths = column_widths([self(reading) for reading in readings])
+        self._measured = (list(readings), widths)
+        return widths
+
     def forget(self) -> None:
         """Forget the readings held (another set is shown)."""
         self._held.clear()
-
-
-#: The readings' heading line's cells.
-HEADINGS = tuple(heading for heading, _width, _right in READING_COLUMNS)
-
-
-def column_widths(rows: Sequence[tuple[str, ...]]) -> list[int]:
-    """Return each column's width in characters: its widest cell, heading included."""
-    columns = zip(HEADINGS, *rows, strict=True)  # each column's cells, the heading first
-    return [
-        max(least, *map(len, column))
-        for column, (_heading, least, _right) in zip(columns, READING_COLUMNS, strict=True)
-    ]
+        self._measured = ([], list(LEAST_WIDTHS))
 
 
 def aligned(cells: tuple[str, ...], widths: Sequence[int]) -> str:
@@ -81,20 +102,21 @@ def aligned(cells: tuple[str, ...], widths: Sequence[int]) -> str:
 
 def readings_lines(
     set_info: dict[str, Any] | None,
-    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+    cells: CellsByReading | None = None,
     shown: slice = slice(None),
 ) -> list[str]:
     """Return the set's readings ``shown`` (all by default) as fixed-width lines under a
-    heading line; ``cells`` gives a reading's cells (:func:`reading_cells`, or a
-    :class:`CellsByReading` that remembers them). The columns are as wide as every reading
-    needs, shown or not, so scrolling never moves them.
+    heading line; ``cells`` gives the readings' cells and widths, remembered from one call to
+    the next (a new one by default). The columns are as wide as every reading needs, shown or
+    not, so scrolling never moves them.
 
     Plain lines, not a table widget: at 50 readings a second the console redraws them many
     times a second, and plain lines cost little to measure and paint.
     """
-    rows = [cells(reading) for reading in (set_info or {}).get("readings", [])]
-    widths = column_widths(rows)
-    return [aligned(row, widths) for row in (HEADINGS, *rows[shown])]
+    cells = cells or CellsByReading()
+    readings = (set_info or {}).get("readings", [])
+    widths = cells.widths(readings)
+    return [aligned(row, widths) for row in (HEADINGS, *map(cells, readings[shown]))]
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
@@ -138,7 +160,7 @@ SCROLL_KEYS: tuple[tuple[str, int, str], ...] = (
 
 def reading_rows(
     set_info: dict[str, Any] | None,
-    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+    cells: CellsByReading | None = None,
     shown: slice = slice(None),
 ) -> tuple[str, list[str]]:
     """Return (heading, one line per reading ``shown``, all by default): the readings' lines
