@@ -11,7 +11,7 @@ from chargebook.tui.widgets.held_render import HeldRender
 from chargebook.tui.widgets.own_lines import HeldLines, Line, text_line, wrapped
 from rich.console import Console
 from rich.table import Table
-from textual.geometry import Size
+from textual.geometry import Region, Size
 from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
@@ -157,9 +157,9 @@ class ResultsPanel(HeldRender, ScrollView, can_focus=True):
             self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
             self._scroll_update(self.virtual_size)
             self.refresh()
-        else:
-            for first, past in runs:
-                self.refresh_lines(first, past - first)
+        elif runs:  # the lines that changed, in one refresh (as ScrollView.refresh_lines)
+            top, width = self.scroll_offset.y, max(self.virtual_size.width, self.size.width)
+            self.refresh(*(Region(0, first - top, width, past - first) for first, past in runs))
 
     def render_line(self, y: int) -> Strip:
         width = self.scrollable_content_region.width
