@@ -156,8 +156,8 @@ class ResultsPanel(HeldRender, ScrollView, can_focus=True):
             # comes or goes (Textual lays it out for every new virtual size).
             self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
             self._scroll_update(self.virtual_size)
-            self.refresh()
-        elif runs:  # the lines that changed, in one refresh (as ScrollView.refresh_lines)
+        if runs:  # the lines that changed, in one refresh (as ScrollView.refresh_lines): a
+            # flag's new wording at the foot, out of sight, redraws nothing in sight
             top, width = self.scroll_offset.y, max(self.virtual_size.width, self.size.width)
             self.refresh(*(Region(0, first - top, width, past - first) for first, past in runs))
 
