@@ -76,7 +76,9 @@ def count_renders(monkeypatch: Any) -> list[tuple[str, int]]:
     return rendered
 
 
-async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results() -> None:
+async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results(
+    monkeypatch,
+) -> None:
     first = load_snapshot("reviewing_spike")
     app = ScreenHarness(MeasureScreen, first)
     async with app.run_test(size=SIZE) as pilot:
@@ -96,6 +98,16 @@ async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_result
         screen.show(failed, CONNECTED)
         await pilot.pause()
         assert "!! Results not computed: no reading" in screen_text(app)
+        # New results whose only change is out of sight (the last flag, one line longer, at
+        # the foot) render no line in sight.
+        rendered = count_renders(monkeypatch)
+        *flags, last = first["results"]["flags"]
+        longer = {**last, "message": last["message"] + " Said again: " + last["message"]}
+        results = {**first["results"], "flags": [*flags, longer]}
+        screen.show(following(failed, results=results), CONNECTED)
+        await pilot.pause()
+        assert "Said again" in " ".join(screen.query_one(ResultsPanel).plain_lines)
+        assert "ResultsPanel" not in {name for name, _rows in rendered}
 
 
 async def test_the_flags_tab_shows_its_new_count_in_its_one_line_without_a_layout() -> None:
