@@ -5,8 +5,7 @@ from __future__ import annotations
 
 import textwrap
 
-from chargebook.tui.widgets.held_render import runs
-from chargebook.tui.widgets.own_lines import HeldLines, text_line, wrapped
+from chargebook.tui.widgets.own_lines import HeldLines, runs, text_line, wrapped
 from hypothesis import given
 from hypothesis import strategies as st
 

@@ -9,7 +9,6 @@ changes a few lines of one panel, and the rest of the screen cost as much again 
 
 from __future__ import annotations
 
-from collections.abc import Iterable
 from typing import TYPE_CHECKING
 
 from textual.containers import Horizontal
@@ -60,23 +59,15 @@ class HeldRender(_Mixin):
             top = self.content_offset.y if dirty else 0  # the content's first row
             wanted = [y for y in crop.line_range if y - top in dirty]
             if wanted:
+                # one render from the first row marked to the last: the style cache draws
+                # the rows marked and looks the rows between up, and a render costs more
+                # (the background from every ancestor...) than a row looked up
+                first, past = wanted[0], wanted[-1] + 1
                 strips = list(strips)
-                for first, past in runs(wanted):
-                    part = Region(crop.x, first, crop.width, past - first)
-                    strips[first - crop.y : past - crop.y] = super().render_lines(part)
+                part = Region(crop.x, first, crop.width, past - first)
+                strips[first - crop.y : past - crop.y] = super().render_lines(part)
         self._rendered = (key, strips)
         return strips
-
-
-def runs(rows: Iterable[int]) -> list[tuple[int, int]]:
-    """Return ``rows`` (ascending) as runs of consecutive rows: (first, past the last)."""
-    found: list[tuple[int, int]] = []
-    for y in rows:
-        if found and found[-1][1] == y:
-            found[-1] = (found[-1][0], y + 1)
-        else:
-            found.append((y, y + 1))
-    return found
 
 
 class HeldHorizontal(HeldRender, Horizontal):

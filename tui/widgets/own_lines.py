@@ -14,7 +14,7 @@ import functools
 import textwrap
 from collections.abc import Iterable, Sequence
 
-from chargebook.tui.widgets.held_render import HeldRender, runs
+from chargebook.tui.widgets.held_render import HeldRender
 from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from rich.style import Style
@@ -87,6 +87,17 @@ def at_most(lines: Sequence[str], count: int) -> list[str]:
     kept = list(lines[:count])
     kept[-1] = kept[-1].rstrip() + ELLIPSIS
     return kept
+
+
+def runs(rows: Iterable[int]) -> list[tuple[int, int]]:
+    """Return ``rows`` (ascending) as runs of consecutive rows: (first, past the last)."""
+    found: list[tuple[int, int]] = []
+    for y in rows:
+        if found and found[-1][1] == y:
+            found[-1] = (found[-1][0], y + 1)
+        else:
+            found.append((y, y + 1))
+    return found
 
 
 class HeldLines:
