@@ -49,7 +49,7 @@ class HeldRender(_Mixin):
         """Return the lines of ``crop`` (a region of the widget): those kept from the last
         render, with the rows marked dirty since rendered again (all of them when the part,
         the size or the filters changed, or the whole widget was marked)."""
-        key = (crop, self.size, tuple(self.get_line_filters()))
+        key = (crop, tuple(self.get_line_filters()))  # a new size marks all of it dirty
         held, dirty = self._rendered, self._rows_dirty
         self._rows_dirty = frozenset()
         if held is None or held[0] != key:
