@@ -11,7 +11,12 @@ from typing import Any
 from chargebook.tui.screens.measure import MeasureScreen
 from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.key_line import KeyLine
-from chargebook.tui.widgets.reading_set import CellsByReading, ReadingSetPanel, reading_cells
+from chargebook.tui.widgets.reading_set import (
+    CellsByReading,
+    ReadingSetPanel,
+    column_widths,
+    reading_cells,
+)
 from chargebook.tui.widgets.results_panel import ResultsPanel
 from chargebook.tui.widgets.step_panel import StepPanel
 from chargebook.tui.widgets.tab_strip import TabStrip
@@ -28,16 +33,17 @@ def following(snapshot: dict[str, Any], **changed: Any) -> dict[str, Any]:
     return {**snapshot, **changed, "seq": int(snapshot.get("seq", 0)) + 1}
 
 
-def count_draws(panel: Any) -> list[int]:
-    """Count the panel's draws from now on (the count is the list's one item)."""
+def count_draws(panel: Any, method: str = "_draw") -> list[int]:
+    """Count the panel's draws (calls of its ``method``) from now on (the count is the list's
+    one item)."""
     draws = [0]
-    draw = panel._draw
+    draw = getattr(panel, method)
 
     def counted(*args: Any) -> None:
         draws[0] += 1
         draw(*args)
 
-    panel._draw = counted  # counts, changes nothing
+    setattr(panel, method, counted)  # counts, changes nothing
     return draws
 
 
@@ -56,7 +62,23 @@ def count_refreshes(monkeypatch: Any, *, layouts_only: bool = False) -> list[str
     return asked
 
 
-async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results() -> None:
+def count_renders(monkeypatch: Any) -> list[tuple[str, int]]:
+    """From now on, note (class, rows) of every widget Textual renders through its style cache
+    (a widget that keeps what it rendered is not noted when it hands back kept lines)."""
+    rendered: list[tuple[str, int]] = []
+    render_lines = Widget.render_lines
+
+    def counted(self: Widget, crop: Any) -> Any:
+        rendered.append((type(self).__name__, crop.height))
+        return render_lines(self, crop)
+
+    monkeypatch.setattr(Widget, "render_lines", counted)  # counts, changes nothing
+    return rendered
+
+
+async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_results(
+    monkeypatch,
+) -> None:
     first = load_snapshot("reviewing_spike")
     app = ScreenHarness(MeasureScreen, first)
     async with app.run_test(size=SIZE) as pilot:
@@ -76,6 +98,16 @@ async def test_new_results_are_drawn_and_a_snapshot_without_them_draws_no_result
         screen.show(failed, CONNECTED)
         await pilot.pause()
         assert "!! Results not computed: no reading" in screen_text(app)
+        # New results whose only change is out of sight (the last flag, one line longer, at
+        # the foot) render no line in sight.
+        rendered = count_renders(monkeypatch)
+        *flags, last = first["results"]["flags"]
+        longer = {**last, "message": last["message"] + " Said again: " + last["message"]}
+        results = {**first["results"], "flags": [*flags, longer]}
+        screen.show(following(failed, results=results), CONNECTED)
+        await pilot.pause()
+        assert "Said again" in " ".join(screen.query_one(ResultsPanel).plain_lines)
+        assert "ResultsPanel" not in {name for name, _rows in rendered}
 
 
 async def test_the_flags_tab_shows_its_new_count_in_its_one_line_without_a_layout() -> None:
@@ -114,6 +146,15 @@ async def test_a_click_on_a_tab_label_shows_that_tab() -> None:
         assert strip.active == "sets"
 
 
+def one_more_reading(before: dict[str, Any]) -> dict[str, Any]:
+    """Return the snapshot after ``before`` (a set of 12 without its readings) once its first
+    reading, 18.5312 nC, came in: the set, the reading in progress and the prompt change."""
+    after = _with_readings(before, [18.5312], needed=12)
+    after["live"] = {"phase": "armed", "seq": 5, "label": "4"}
+    after["prompt"] = {"text": "Deliver 100 MU now (reading 4 of 12)."}
+    return after
+
+
 async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
     monkeypatch,
 ) -> None:
@@ -124,13 +165,20 @@ async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
         panel = app.screen.query_one(ReadingSetPanel)
         drawn_before = panel.plain_lines
         asked = count_refreshes(monkeypatch)
-        after = _with_readings(before, [18.5312], needed=12)
-        after["live"] = {"phase": "armed", "seq": 5, "label": "4"}
-        after["prompt"] = {"text": "Deliver 100 MU now (reading 4 of 12)."}
-        app.screen.show(after, CONNECTED)
+        rendered = count_renders(monkeypatch)
+        app.screen.show(one_more_reading(before), CONNECTED)
         await pilot.pause()
         drawn_after, redrawn = panel.plain_lines, set(asked)
+        shown = screen_text(app)  # the whole screen, from what each widget holds
     assert redrawn == {"ReadingSetPanel", "StepPanel"}
+    # At every frame Textual's compositor asks every widget of the screen for its lines: one
+    # that did not change hands back what it rendered before, and one that did renders only
+    # its rows that changed (issue 17: the console redraws only what changed).
+    widgets = {name for name, _rows in rendered}
+    assert widgets & {"KeyLine", "CautionLine", "StatusLine", "ActionBar", "TabStrip"} == set()
+    assert widgets & {"ResultsPanel", "MeasureScreen", "HeldHorizontal"} == set()
+    assert "Do now: Deliver 100 MU now (reading 4 of 12)." in shown
+    assert "k Accept" in shown or "a Arm" in shown  # the kept key help is still there
     # The title, the heading and the scale's caption are the very lines they were; the new
     # reading has its own line, and the count says so.
     changed = [y for y, line in enumerate(drawn_after) if line != drawn_before[y]]
@@ -139,6 +187,11 @@ async def test_one_new_reading_redraws_the_set_panel_and_the_step_panel_only(
     assert caption not in changed
     assert "  3    18.5312  auto    ok" in drawn_after[changed[0]]
     assert "3 of 12 readings (+1 settling)" in " ".join(drawn_after)
+    assert "  3    18.5312  auto    ok" in shown
+    # rendered from the first line that changed to the last (the ones between looked up)
+    span = changed[-1] - changed[0] + 1
+    assert 0 < sum(rows for name, rows in rendered if name == "ReadingSetPanel") <= span
+    assert span < len(drawn_after)
 
 
 async def test_the_readings_scroll_back_with_the_keys_and_follow_the_newest_again() -> None:
@@ -188,6 +241,17 @@ def test_a_readings_cells_are_worked_out_once_and_again_when_it_changed() -> Non
     assert cells(reading) is cells(reading)
     changed = {**reading, "charge_nC": 12.5}
     assert cells(changed) == reading_cells(changed) != reading_cells(reading)
+
+
+def test_the_columns_widths_follow_the_readings_added_and_narrow_when_one_is_replaced() -> None:
+    readings = load_snapshot("collecting")["current_set"]["readings"]
+    cells = CellsByReading()
+    every = cells.widths(readings)
+    assert every == column_widths([reading_cells(reading) for reading in readings])
+    wide = {**readings[0], "charge_nC": -123456.7891, "capture": "by hand"}
+    grown = cells.widths([*readings, wide])  # the readings before are the very same objects
+    assert grown == column_widths([reading_cells(r) for r in [*readings, wide]]) != every
+    assert cells.widths(readings) == every  # the wide one gone again: as narrow as before
 
 
 async def test_following_the_newest_a_reading_mostly_draws_its_own_line_not_the_whole_area():
@@ -254,3 +318,20 @@ def test_a_step_without_a_set_shows_no_count_of_more_flags() -> None:
 
     assert not any("more flag" in line for line in flag_summary_lines(None))
     assert not any(line.startswith("+-") for line in flag_summary_lines({"readings": []}))
+
+
+async def test_the_step_panel_is_not_built_again_for_a_snapshot_of_new_results_only() -> None:
+    first = load_snapshot("reviewing_spike")
+    app = ScreenHarness(MeasureScreen, first)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        builds = count_draws(app.screen.query_one(StepPanel), "rebuild")
+        new_results = following(first, results={**first["results"]})
+        app.screen.show(new_results, CONNECTED)
+        await pilot.pause()
+        assert builds == [0]
+        live = {"phase": "armed", "seq": 9, "label": "9"}
+        app.screen.show(following(new_results, live=live), CONNECTED)
+        await pilot.pause()
+        assert builds == [1]
+        assert "Reading 9: " in screen_text(app)

@@ -34,3 +34,18 @@ async def test_a_set_given_before_the_panel_composed_is_drawn_once_it_is() -> No
     # (the screen's text reads no-break spaces as spaces)
     assert snapshot_view.set_title(given).replace("\xa0", " ") in shown
     assert snapshot_view.set_count_text(given).replace("\xa0", " ") in shown
+
+
+def test_the_readings_in_sight_are_the_same_lines_as_among_all_with_columns_for_all() -> None:
+    from chargebook.tui.widgets.reading_set import reading_rows
+
+    given = load_snapshot("reviewing_spike")["current_set"]
+    heading, every = reading_rows(given)
+    assert len(every) == len(given["readings"])
+    assert reading_rows(given, shown=slice(2, 5)) == (heading, every[2:5])
+    wide = {**given["readings"][0], "charge_nC": -123456.7891, "capture": "by hand"}
+    widened = {**given, "readings": [*given["readings"], wide]}
+    wide_heading, wide_rows = reading_rows(widened, shown=slice(0, 2))
+    # a reading out of sight still sets the columns' widths: they never move as one scrolls
+    assert len(wide_heading) > len(heading) and len(wide_rows[0]) > len(every[0])
+    assert wide_rows == reading_rows(widened)[1][:2]

@@ -6,6 +6,7 @@ from collections.abc import Awaitable, Callable
 from typing import Any
 
 from chargebook.tui.messages import LinkStatus
+from chargebook.tui.widgets.held_render import HeldRender
 from chargebook.tui.widgets.status_line import StatusLine
 from textual.css.query import NoMatches
 from textual.screen import Screen
@@ -14,7 +15,7 @@ from textual.screen import Screen
 Sender = Callable[..., Awaitable[Any]]
 
 
-class ConsoleScreen(Screen):
+class ConsoleScreen(HeldRender, Screen):
     """A main screen: shown from the latest snapshot, never holding measurement state.
 
     The app calls :meth:`show` after every snapshot and every change of the daemon link; a

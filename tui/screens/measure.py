@@ -25,6 +25,7 @@ from chargebook.tui.screens.short_delivery import ShortDeliveryScreen, latest_re
 from chargebook.tui.widgets.action_bar import ActionBar
 from chargebook.tui.widgets.caution_line import CautionLine
 from chargebook.tui.widgets.flag_list import FlagList, flag_count
+from chargebook.tui.widgets.held_render import HeldContentSwitcher, HeldHorizontal
 from chargebook.tui.widgets.history import SetHistory
 from chargebook.tui.widgets.key_line import KeyLine
 from chargebook.tui.widgets.plan_view import PlanView
@@ -36,8 +37,8 @@ from chargebook.tui.widgets.tab_strip import TabStrip
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Horizontal, VerticalScroll
-from textual.widgets import ContentSwitcher, Static
+from textual.containers import VerticalScroll
+from textual.widgets import Static
 
 #: How often the air data's age is counted again while the screen stands still, in s.
 AIR_AGE_REFRESH_S = 30.0
@@ -82,7 +83,7 @@ class MeasureScreen(ConsoleScreen):
         self._air_line = Static("", id="air-line", markup=False)
         self._air_line.display = False  # shown in a calibration visit (show_air)
         self._tab_strip = TabStrip([(name, title) for _key, name, title in TABS], "now")
-        self._tabs = ContentSwitcher(id="measure-tabs", initial="now")
+        self._tabs = HeldContentSwitcher(id="measure-tabs", initial="now")
         self._set_panel = ReadingSetPanel(id="reading-set")
         self._results = ResultsPanel(id="results")
         self._action_bar = ActionBar(id="action-bar")
@@ -91,7 +92,7 @@ class MeasureScreen(ConsoleScreen):
         yield self._air_line
         yield self._tab_strip
         with self._tabs:
-            with Horizontal(id="now"):
+            with HeldHorizontal(id="now"):
                 yield self._set_panel
                 yield self._results
             yield SetHistory(id="sets")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from chargebook.tui.widgets.held_render import HeldRender
 from textual.widgets import Static
 
 #: Short enough for an 80-column terminal; the full caution is on the setup form, the summary,
@@ -9,7 +10,7 @@ from textual.widgets import Static
 CAUTION_LINE = "Caution: supports, never replaces, a qualified medical physicist's judgement"
 
 
-class CautionLine(Static):
+class CautionLine(HeldRender, Static):
     """One line above the keys: the caution, shown on every screen."""
 
     def __init__(self) -> None:

@@ -10,9 +10,11 @@ again unless the number of lines changes.
 
 from __future__ import annotations
 
+import functools
 import textwrap
 from collections.abc import Iterable, Sequence
 
+from chargebook.tui.widgets.held_render import HeldRender
 from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from rich.style import Style
@@ -30,16 +32,44 @@ def text_line(text: str, style: Style | None = None) -> Line:
     return (Segment(text, style),)
 
 
+#: What :mod:`textwrap` turns into a space before wrapping.
+_WRAP_SPACES = frozenset("\t\n\x0b\x0c\r")
+
+
 def wrapped(lines: Iterable[str], width: int) -> list[str]:
     """Return ``lines`` wrapped on spaces to ``width`` cells (long words broken; no-break
     spaces kept, so a number stays with its unit)."""
     if width <= 0:
         return list(lines)
-    return [
-        piece
-        for line in lines
-        for piece in (textwrap.wrap(line, width, break_on_hyphens=False) or [""])
-    ]
+    return [piece for line in lines for piece in _wrapped_line(line, width)]
+
+
+@functools.lru_cache(maxsize=512)
+def _wrapped_line(line: str, width: int) -> tuple[str, ...]:
+    """Return one line wrapped as :func:`textwrap.wrap` wraps it (``("",)`` for none). At
+    every reading the same headings and prompts are wrapped again: they are remembered, and
+    a line that fits as it is is returned without wrapping."""
+    if _WRAP_SPACES.isdisjoint(line):
+        words = line.split(" ")
+        # textwrap drops a word of white space at a line's start or end, and breaks a word
+        # longer than a line: none of that here, so it wraps word by word
+        if all(len(word) <= width and word.strip() for word in words):
+            return tuple(_filled(words, width))
+    return tuple(textwrap.wrap(line, width, break_on_hyphens=False)) or ("",)
+
+
+def _filled(words: list[str], width: int) -> list[str]:
+    """Return ``words`` (none empty, none longer than ``width``) in lines of at most ``width``
+    characters, one space between two words, each line as full as the next word allows."""
+    lines, line = [], words[0]
+    for word in words[1:]:
+        if len(line) + 1 + len(word) <= width:
+            line = f"{line} {word}"
+        else:
+            lines.append(line)
+            line = word
+    lines.append(line)
+    return lines
 
 
 def cut(text: str, width: int) -> str:
@@ -59,6 +89,17 @@ def at_most(lines: Sequence[str], count: int) -> list[str]:
     return kept
 
 
+def runs(rows: Iterable[int]) -> list[tuple[int, int]]:
+    """Return ``rows`` (ascending) as runs of consecutive rows: (first, past the last)."""
+    found: list[tuple[int, int]] = []
+    for y in rows:
+        if found and found[-1][1] == y:
+            found[-1] = (found[-1][0], y + 1)
+        else:
+            found.append((y, y + 1))
+    return found
+
+
 class HeldLines:
     """The lines a widget shows, and each one's strip, built once at the widget's width."""
 
@@ -67,9 +108,10 @@ class HeldLines:
         self._strips: dict[int, Strip] = {}
         self._built_for: tuple[int, Style] | None = None
 
-    def replace(self, lines: Sequence[Line]) -> tuple[int, int] | None:
-        """Hold ``lines``; return the span (first, past the last) of lines that changed, or
-        None when none did."""
+    def replace(self, lines: Sequence[Line]) -> list[tuple[int, int]]:
+        """Hold ``lines``; return the runs (first, past the last) of lines that changed, in
+        order (none: nothing changed). A reading changes a few lines far apart (its own, the
+        count): each run is drawn again, not the lines between them."""
         old, new = self.lines, tuple(lines)
         self.lines = new
         changed = [
@@ -79,7 +121,7 @@ class HeldLines:
         ]
         for y in changed:
             self._strips.pop(y, None)
-        return (changed[0], changed[-1] + 1) if changed else None
+        return runs(changed)
 
     def strip(self, index: int, width: int, base: Style) -> Strip:
         """Return line ``index`` as a strip of ``width`` cells over ``base`` (blank past the
@@ -114,7 +156,7 @@ def fitted(line: Line, width: int, base: Style) -> list[Segment]:
     return segments
 
 
-class OwnLines(Widget):
+class OwnLines(HeldRender, Widget):
     """A widget drawn from :meth:`show_lines` alone, as tall as its lines unless its style
     sheet sets its height. Subclasses build their lines from what they show, at
     :attr:`line_width`, and build them again when the width changes (:meth:`rebuild`)."""
@@ -150,8 +192,8 @@ class OwnLines(Widget):
         """Show ``lines``: only those that differ from the lines shown are drawn again, and
         the screen is laid out again only when their number changes."""
         count = len(self._held.lines)
-        span = self._held.replace(lines)
-        if span is None:
+        runs = self._held.replace(lines)
+        if not runs:
             return
         if len(lines) != count and not self._height_fixed():
             self.refresh(layout=True)
@@ -159,8 +201,8 @@ class OwnLines(Widget):
             # lines, built as the widget gets its width), the first request is lost
             self.call_after_refresh(self.refresh, layout=True)
         else:
-            first, past = span
-            self.refresh(Region(0, first, max(self.size.width, 1), past - first))
+            width = max(self.size.width, 1)
+            self.refresh(*(Region(0, first, width, past - first) for first, past in runs))
 
     def _height_fixed(self) -> bool:
         height = self.styles.height

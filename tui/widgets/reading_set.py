@@ -3,12 +3,13 @@ flags: one widget that draws its own lines (:mod:`chargebook.tui.widgets.own_lin
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import operator
+from collections.abc import Sequence
 from typing import Any, ClassVar
 
 from chargebook.acquire.protocol import severity_rank
 from chargebook.tui import snapshot_view, text
-from chargebook.tui.widgets.own_lines import Line, OwnLines, at_most, text_line, wrapped
+from chargebook.tui.widgets.own_lines import OwnLines, at_most, text_line, wrapped
 from textual import events
 from textual.binding import Binding, BindingType
 from textual.reactive import reactive
@@ -38,6 +39,25 @@ def reading_cells(reading: dict[str, Any]) -> tuple[str, str, str, str]:
     )
 
 
+#: The readings' heading line's cells.
+HEADINGS = tuple(heading for heading, _width, _right in READING_COLUMNS)
+
+
+#: Each column's width without a reading: its least, or its heading's.
+LEAST_WIDTHS = tuple(max(least, len(heading)) for heading, least, _right in READING_COLUMNS)
+
+
+def column_widths(
+    rows: Sequence[tuple[str, ...]], at_least: Sequence[int] = LEAST_WIDTHS
+) -> list[int]:
+    """Return each column's width in characters: its widest cell, heading included, and at
+    least ``at_least`` (the widths of rows measured before)."""
+    if not rows:
+        return list(at_least)
+    columns = zip(*rows, strict=True)  # each column's cells
+    return [max(least, *map(len, column)) for column, least in zip(columns, at_least, strict=True)]
+
+
 class CellsByReading:
     """Each reading's cells, worked out once: the client keeps a reading the daemon did not
     change as the very object it held, so at the 60th reading of a set only the new one is
@@ -45,6 +65,7 @@ class CellsByReading:
 
     def __init__(self) -> None:
         self._held: dict[int, tuple[dict[str, Any], tuple[str, str, str, str]]] = {}
+        self._measured: tuple[list[dict[str, Any]], list[int]] = ([], list(LEAST_WIDTHS))
 
     def __call__(self, reading: dict[str, Any]) -> tuple[str, str, str, str]:
         held = self._held.get(id(reading))
@@ -52,36 +73,50 @@ class CellsByReading:
             held = self._held[id(reading)] = (reading, reading_cells(reading))
         return held[1]
 
+    def widths(self, readings: list[dict[str, Any]]) -> list[int]:
+        """Return the columns' widths for ``readings`` (:func:`column_widths` of their cells):
+        when the readings measured last are the very first objects of ``readings`` (a reading
+        added), only the new ones are measured."""
+        measured, widths = self._measured
+        if len(measured) <= len(readings) and all(map(operator.is_, measured, readings)):
+            widths = column_widths([self(reading) for reading in readings[len(measured) :]], widths)
+        else:
+            widths = column_widths([self(reading) for reading in readings])
+        self._measured = (list(readings), widths)
+        return widths
+
     def forget(self) -> None:
         """Forget the readings held (another set is shown)."""
         self._held.clear()
+        self._measured = ([], list(LEAST_WIDTHS))
+
+
+def aligned(cells: tuple[str, ...], widths: Sequence[int]) -> str:
+    """Return one line of the readings: ``cells`` padded to ``widths``, aligned by column."""
+    padded = (
+        cell.rjust(width) if right else cell.ljust(width)
+        for cell, width, (_h, _l, right) in zip(cells, widths, READING_COLUMNS, strict=True)
+    )
+    return " " + "  ".join(padded) + " "
 
 
 def readings_lines(
     set_info: dict[str, Any] | None,
-    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+    cells: CellsByReading | None = None,
+    shown: slice = slice(None),
 ) -> list[str]:
-    """Return the set's readings as fixed-width lines under a heading line; ``cells`` gives a
-    reading's cells (:func:`reading_cells`, or a :class:`CellsByReading` that remembers them).
+    """Return the set's readings ``shown`` (all by default) as fixed-width lines under a
+    heading line; ``cells`` gives the readings' cells and widths, remembered from one call to
+    the next (a new one by default). The columns are as wide as every reading needs, shown or
+    not, so scrolling never moves them.
 
     Plain lines, not a table widget: at 50 readings a second the console redraws them many
     times a second, and plain lines cost little to measure and paint.
     """
-    rows = [cells(reading) for reading in (set_info or {}).get("readings", [])]
-    headings = tuple(heading for heading, _width, _right in READING_COLUMNS)
-    widths = [
-        max(least, *(len(row[index]) for row in (headings, *rows)))
-        for index, (_heading, least, _right) in enumerate(READING_COLUMNS)
-    ]
-
-    def line(cells: tuple[str, ...]) -> str:
-        padded = (
-            cell.rjust(width) if right else cell.ljust(width)
-            for cell, width, (_h, _l, right) in zip(cells, widths, READING_COLUMNS, strict=True)
-        )
-        return " " + "  ".join(padded) + " "
-
-    return [line(cells) for cells in (headings, *rows)]
+    cells = cells or CellsByReading()
+    readings = (set_info or {}).get("readings", [])
+    widths = cells.widths(readings)
+    return [aligned(row, widths) for row in (HEADINGS, *map(cells, readings[shown]))]
 
 
 def reading_flag_lines(set_info: dict[str, Any] | None) -> list[str]:
@@ -125,13 +160,15 @@ SCROLL_KEYS: tuple[tuple[str, int, str], ...] = (
 
 def reading_rows(
     set_info: dict[str, Any] | None,
-    cells: Callable[[dict[str, Any]], tuple[str, str, str, str]] = reading_cells,
+    cells: CellsByReading | None = None,
+    shown: slice = slice(None),
 ) -> tuple[str, list[str]]:
-    """Return (heading, one line per reading): the readings' lines with, last, each reading's
-    bar for its deviation from the set's mean on the stated scale (see
-    :func:`chargebook.tui.text.deviation_bars`)."""
-    heading, *lines = readings_lines(set_info, cells)
-    charges = snapshot_view.set_charges_nC(set_info)
+    """Return (heading, one line per reading ``shown``, all by default): the readings' lines
+    with, last, each reading's bar for its deviation from the set's mean on the stated scale
+    (see :func:`chargebook.tui.text.deviation_bars`). Only the lines asked for are built: the
+    panel shows a window of a set of a hundred readings, at every reading."""
+    heading, *lines = readings_lines(set_info, cells, shown)
+    charges = snapshot_view.set_charges_nC(set_info)[shown]
     mean_nC = ((set_info or {}).get("stats") or {}).get("mean_nC")
     bars = text.deviation_bars(charges, mean_nC).split(" ") if charges else []
     if len(bars) != len(lines):
@@ -170,14 +207,14 @@ class ReadingSetPanel(OwnLines, can_focus=True):
     def __init__(self, *, id: str | None = None) -> None:
         super().__init__(id=id)
         self._cells = CellsByReading()
-        self._rows: list[str] = []  # every reading's line, the heading apart
+        self._count = 0  # how many readings the set shown holds (one line each)
         self._window = 0  # how many reading lines are in sight
         self._first: int | None = None  # first reading line in sight; None: follow the newest
 
     @property
     def rows(self) -> int:
         """Return how many lines the set's readings hold (one per reading)."""
-        return len(self._rows)
+        return self._count
 
     def watch_set_info(self, set_info: dict[str, Any] | None) -> None:
         if self.set_info is self._shown_set and self.set_info is not None:
@@ -204,31 +241,33 @@ class ReadingSetPanel(OwnLines, can_focus=True):
         if set_info:
             title = f"{snapshot_view.set_title(set_info)}: {text.set_status(set_info['status'])}"
         bold = self.part_style("reading-set--title")
-        heading, self._rows = reading_rows(set_info, self._cells)
         above = [text_line(line, bold) for line in wrapped([title], width)]
-        above.append(text_line(heading, bold))
         below = [text_line(line) for line in flag_summary_lines(set_info)[:FLAG_ROWS]]
         below.append(text_line(" " + text.bar_scale_caption()))
         count = snapshot_view.set_count_text(set_info)
         stats = snapshot_view.set_stats_text(set_info)
         below += [text_line(line) for line in at_most(wrapped([f"{count} · {stats}"], width), 2)]
-        self._window = max(LEAST_READING_ROWS, height - len(above) - len(below))
-        self.show_lines([*above, *self._in_sight(), *below])
+        self._count = len((set_info or {}).get("readings") or [])
+        self._window = max(LEAST_READING_ROWS, height - len(above) - 1 - len(below))
+        first = self._first_in_sight()
+        shown = slice(first, first + self._window)
+        heading, rows = reading_rows(set_info, self._cells, shown)
+        in_sight = [text_line(row) for row in rows]
+        in_sight += [()] * (self._window - len(in_sight))  # blank lines fill a window not full
+        self.show_lines([*above, text_line(heading, bold), *in_sight, *below])
 
-    def _in_sight(self) -> list[Line]:
-        """Return the reading lines in sight (blank lines fill a window not yet full)."""
-        last_first = max(len(self._rows) - self._window, 0)
+    def _first_in_sight(self) -> int:
+        """Return the first reading line in sight (the newest followed, or scrolled back)."""
+        last_first = max(self._count - self._window, 0)
         if self._first is not None and self._first >= last_first:
             self._first = None  # scrolled down to the newest: follow it again
-        first = self._newest_first() if self._first is None else self._first
-        shown = [text_line(row) for row in self._rows[first : first + self._window]]
-        return shown + [()] * (self._window - len(shown))
+        return self._newest_first() if self._first is None else self._first
 
     def _newest_first(self) -> int:
         """Return the first reading line in sight while following the newest: when the newest
         reaches the foot of the area, the area moves on by half its height (blank lines
         below), so most readings draw their own line and the count, not the whole area."""
-        over = len(self._rows) - self._window
+        over = self._count - self._window
         if over <= 0:
             return 0
         step = max(self._window // 2, 1)
@@ -236,7 +275,7 @@ class ReadingSetPanel(OwnLines, can_focus=True):
 
     def action_scroll_readings(self, lines: int) -> None:
         """Scroll the readings' area by ``lines`` (negative: back to earlier readings)."""
-        last_first = max(len(self._rows) - self._window, 0)
+        last_first = max(self._count - self._window, 0)
         first = last_first if self._first is None else self._first
         self._first = min(max(first + lines, 0), last_first)
         self.rebuild()

@@ -7,10 +7,11 @@ from __future__ import annotations
 from typing import Any, ClassVar
 
 from chargebook.tui import snapshot_view, text
+from chargebook.tui.widgets.held_render import HeldRender
 from chargebook.tui.widgets.own_lines import HeldLines, Line, text_line, wrapped
 from rich.console import Console
 from rich.table import Table
-from textual.geometry import Size
+from textual.geometry import Region, Size
 from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
@@ -63,7 +64,7 @@ def table_lines(console: Console, table: Table, width: int) -> list[Line]:
     return [tuple(line) for line in console.render_lines(table, options, pad=False)]
 
 
-class ResultsPanel(ScrollView, can_focus=True):
+class ResultsPanel(HeldRender, ScrollView, can_focus=True):
     """Factor table, results and the session's flags, as the daemon computed them.
 
     It scrolls, and takes the focus (Tab), so that every line can be reached from the keyboard
@@ -149,15 +150,16 @@ class ResultsPanel(ScrollView, can_focus=True):
     def _show(self, lines: list[Line]) -> None:
         """Show ``lines``, drawing again only those that changed."""
         count = len(self._held.lines)
-        span = self._held.replace(lines)
+        runs = self._held.replace(lines)
         if len(lines) != count:
             # A new height to scroll: the screen is laid out again only when the scrollbar
             # comes or goes (Textual lays it out for every new virtual size).
             self.set_reactive(ResultsPanel.virtual_size, Size(0, len(lines)))
             self._scroll_update(self.virtual_size)
-            self.refresh()
-        elif span is not None:
-            self.refresh_lines(span[0], span[1] - span[0])
+        if runs:  # the lines that changed, in one refresh (as ScrollView.refresh_lines): a
+            # flag's new wording at the foot, out of sight, redraws nothing in sight
+            top, width = self.scroll_offset.y, max(self.virtual_size.width, self.size.width)
+            self.refresh(*(Region(0, first - top, width, past - first) for first, past in runs))
 
     def render_line(self, y: int) -> Strip:
         width = self.scrollable_content_region.width

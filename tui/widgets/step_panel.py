@@ -23,6 +23,10 @@ def progress_bar(done: int, total: int, cells: int = BAR_CELLS) -> tuple[str, st
     return BAR_DONE * filled, (BAR_EDGE + BAR_LEFT * (left - 1)) if left else ""
 
 
+#: The parts of a snapshot the step panel is drawn from.
+STEP_PARTS = ("plan", "step_index", "notice", "prompt", "state", "live")
+
+
 class StepPanel(OwnLines):
     """Step heading with the plan's progress, then a notice from the daemon if any, "Do now: …"
     in the daemon's words, then the reading in progress: one widget drawing its own lines, so a
@@ -51,8 +55,17 @@ class StepPanel(OwnLines):
     #: Whether the console hears from the daemon; set before ``snapshot`` by the screen.
     connected: bool = True
     _tallest = 0  # the most lines the panel has shown
+    _drawn_from: tuple[object, ...] = ()  # connected, then the STEP_PARTS drawn last
 
     def watch_snapshot(self, snapshot: dict[str, Any] | None) -> None:
+        if snapshot is None:
+            return
+        parts = (self.connected, *(snapshot.get(key) for key in STEP_PARTS))
+        if len(parts) == len(self._drawn_from) and all(
+            part is drawn for part, drawn in zip(parts, self._drawn_from, strict=True)
+        ):
+            return  # the client's very objects: nothing the panel shows changed (new results)
+        self._drawn_from = parts
         self.rebuild()
 
     def on_mount(self) -> None:

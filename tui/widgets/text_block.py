@@ -12,11 +12,12 @@ from __future__ import annotations
 from collections.abc import Callable, Hashable
 from typing import Any
 
+from chargebook.tui.widgets.held_render import HeldRender
 from rich.cells import cell_len
 from textual.widgets import Static
 
 
-class TextBlock(Static):
+class TextBlock(HeldRender, Static):
     """Static text (never markup) that is replaced only when it differs from what is shown."""
 
     def __init__(self, content: str = "", *, keep_height: bool = False, **kwargs: Any) -> None:
