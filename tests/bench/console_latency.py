@@ -227,10 +227,15 @@ def commit_rate(world: Station, since_s: float) -> tuple[int, float]:
 
 def shown_rate(terminal: Terminal, since_s: float) -> float:
     """Return the readings/s the console's screen advanced by within each set, from the first
-    count it drew at or after ``since_s`` (wall time, s) to the set's last count."""
+    reading it drew at or after ``since_s`` (wall time, s) to the set's last, as
+    :func:`commit_rate` counts from a set's first reading to its last. A set's "0 of 100" is
+    not counted: it is drawn when the set is armed, and the wait for the set's first line
+    (the arming's commands, then up to a line's 20 ms) is the daemon's, not the console's."""
     advanced, seconds = 0, 0.0
     for shown in on_screen_times(terminal):
-        timed = sorted((arrived, count) for count, arrived in shown.items() if arrived >= since_s)
+        timed = sorted(
+            (arrived, count) for count, arrived in shown.items() if count and arrived >= since_s
+        )
         if len(timed) > 1:
             advanced += timed[-1][1] - timed[0][1]
             seconds += timed[-1][0] - timed[0][0]
