@@ -474,9 +474,11 @@ class Engine:
             return "no manual step is waiting"
         if action == Method.STEP_SKIP and not (step is not None and step.optional):
             return "only an optional step can be skipped"
-        no_charge = self.reading is None or self.reading.last_charge_nC is None
-        if action == Method.READING_CAPTURE and no_charge:
-            return "no reading is in progress"
+        if action == Method.READING_CAPTURE:
+            if self.reading is None:
+                return "no reading is in progress"
+            if self.reading.last_charge_nC is None:
+                return "the reading in progress has no charge yet: capture once one has come"
         return None
 
     def allowed(self) -> list[str]:

@@ -338,6 +338,18 @@ def test_only_an_optional_step_can_be_skipped():
     assert engine.store.session(session_id).status == "finished"
 
 
+def test_a_capture_before_any_charge_is_refused_saying_so():
+    engine, clock = make_engine(capabilities={Capability.PUSH_READINGS, Capability.STREAM})
+    started(engine)
+    engine.manual_done()
+    engine.arm()  # armed: the electrometer has sent nothing yet
+    with pytest.raises(IllegalTransition, match="the reading in progress has no charge yet"):
+        engine.capture()
+    engine.on_sample(clock.now + 1, 12.0)
+    engine.capture()
+    assert [r.charge_nC for r in engine.store.readings(engine.session_id)] == [12.0]
+
+
 def test_manual_and_pushed_capture():
     engine, clock = make_engine(
         capabilities={Capability.PUSH_READINGS, Capability.STREAM}, default_plan=small_plan()
