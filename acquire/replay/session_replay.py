@@ -35,6 +35,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind, Replay, ReplayNotReproduced
 from chargebook.acquire.record.store import Store
 from chargebook.acquire.replay.compare import (
+    TRAFFIC_LOG_DIFFERS,
     Change,
     Comparison,
     Explanations,
@@ -309,7 +310,7 @@ def _into_station(
             why = _why_not_stored(comparison, changes, request)
             if run.stopped is not None or why is not None:
                 raise _NotStored(run, comparison, why)
-            if request.traffic_log is not None and not changes and not comparison.exact:
+            if _not_reproduced(comparison, changes, request):
                 _mark_not_reproduced(station, run.session_id, request)
     except _NotStored as rolled_back:
         return rolled_back.run, rolled_back.comparison, rolled_back.why
@@ -330,14 +331,30 @@ def _compare(original: Store, setup: Setup, run: PipelineRun, changes: list[Chan
 def _why_not_stored(
     comparison: Comparison, changes: list[Change], request: ReplayRequest
 ) -> str | None:
-    """Return why an unchanged replay of a traffic log is not stored (None: it is)."""
-    from_log = request.traffic_log is not None and not changes
-    if from_log and not comparison.exact and not request.keep:
-        return (
-            f"the traffic log {request.traffic_log} does not reproduce the session; pass "
-            "--keep to store the replay all the same, marked as not reproduced"
-        )
-    return None
+    """Return why a replay of a traffic log is not stored (None: it is): a log that is not the
+    stored traffic (a what-if's too), or an unchanged replay's log that does not reproduce."""
+    if not _not_reproduced(comparison, changes, request) or request.keep:
+        return None
+    what = "does not reproduce the session"
+    if _log_differs(comparison):
+        what = "is not the traffic stored with the session"
+    return (
+        f"the traffic log {request.traffic_log} {what}; pass --keep to store the replay all "
+        "the same, marked as not reproduced"
+    )
+
+
+def _not_reproduced(comparison: Comparison, changes: list[Change], request: ReplayRequest) -> bool:
+    """Return True for a replay of a traffic log that is not the stored traffic, or (unchanged)
+    that does not reproduce the session."""
+    if request.traffic_log is None:
+        return False
+    return _log_differs(comparison) or (not changes and not comparison.exact)
+
+
+def _log_differs(comparison: Comparison) -> bool:
+    """Return True when a line of the traffic log played differs from the stored traffic."""
+    return any(d.why == TRAFFIC_LOG_DIFFERS for d in comparison.differences)
 
 
 def _mark_not_reproduced(station: Store, replay_id: int, request: ReplayRequest) -> None:

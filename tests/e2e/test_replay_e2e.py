@@ -666,14 +666,9 @@ def test_an_edited_log_that_does_not_reproduce_is_stored_only_with_keep_and_mark
     assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
 
 
-def test_a_log_with_one_line_changed_is_not_called_exact_though_its_results_agree(
-    station: Station, capsys
-):
-    # A charge on the way up during a beam moves no reading: the results come out the same,
-    # but the log is not the stored traffic, so the replay does not reproduce the session.
-    db = copy_of(station, "log-one-line.sqlite")
-    log = station.work / "one-line.jsonl"
-    lines = traffic_log(station, log, station.clean, capsys)
+def one_rising_charge_changed(lines: list[str]) -> tuple[list[str], int, str]:
+    """Return the log with the last digit of one charge on the way up during a beam changed
+    (by about 0.0001 nC: it moves no reading), that line's number and its original value."""
     read = [(index, _charge_nC(text)) for index, text in enumerate(lines)]
     read = [(index, charge) for index, charge in read if charge is not None]
     number = next(  # the first charge on the way up, well before the next
@@ -682,11 +677,22 @@ def test_a_log_with_one_line_changed_is_not_called_exact_though_its_results_agre
         if 2.0 < charge < 8.0 and following > charge + 1.0
     )
     entry = json.loads(lines[number - 1])
-    original = entry["line"]
-    head, value, *rest = original.split(" ")
-    last = "1" if value[-1] == "0" else "0"  # the charge's last digit, by 0.0001 nC or so
+    head, value, *rest = entry["line"].split(" ")
+    last = "1" if value[-1] == "0" else "0"
     entry["line"] = " ".join([head, value[:-1] + last, *rest])
-    lines[number - 1] = json.dumps(entry)
+    return [*lines[: number - 1], json.dumps(entry), *lines[number:]], number, value
+
+
+def test_a_log_with_one_line_changed_is_not_called_exact_though_its_results_agree(
+    station: Station, capsys
+):
+    # A charge on the way up during a beam moves no reading: the results come out the same,
+    # but the log is not the stored traffic, so the replay does not reproduce the session.
+    db = copy_of(station, "log-one-line.sqlite")
+    log = station.work / "one-line.jsonl"
+    lines, number, value = one_rising_charge_changed(
+        traffic_log(station, log, station.clean, capsys)
+    )
     log.write_text("\n".join(lines) + "\n")
     before = file_state(db)
     done = replay(db, station.clean, "--speed", "0", "--traffic-log", str(log))
@@ -695,6 +701,27 @@ def test_a_log_with_one_line_changed_is_not_called_exact_though_its_results_agre
     assert f"traffic line {number} " in done.stdout and value in done.stdout  # table cells wrap
     assert "the traffic log played is not the traffic stored with the session" in done.stdout
     assert file_state(db) == before  # nothing written
+
+
+def test_a_what_if_of_a_changed_log_is_stored_only_with_keep_and_marked(station: Station, capsys):
+    db = copy_of(station, "log-what-if.sqlite")
+    log = station.work / "what-if.jsonl"
+    lines, _number, _value = one_rising_charge_changed(
+        traffic_log(station, log, station.clean, capsys)
+    )
+    log.write_text("\n".join(lines) + "\n")
+    what_if = ("--speed", "0", "--traffic-log", str(log), "--threshold", "relative_sd_pct=0.01")
+    before = file_state(db)
+    done = replay(db, station.clean, *what_if)
+    assert "(not stored)" in done.stdout, done.stdout + done.stderr
+    assert "is not the traffic stored with the session; pass --keep" in done.stdout
+    assert file_state(db) == before  # nothing written
+    replay(db, station.clean, *what_if, "--keep")
+    with Store.open(db, read_only=True) as store:
+        replay_id = store.sessions()[-1].id
+        assert store.session(replay_id).replay_of == station.clean
+        marks = [e for e in store.events(replay_id) if e.kind == EventKind.REPLAY_NOT_REPRODUCED]
+    assert len(marks) == 1 and marks[0].detail()["traffic_log"] == str(log)
 
 
 def _charge_nC(log_line: str) -> float | None:
