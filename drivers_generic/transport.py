@@ -238,14 +238,13 @@ class Transport(ABC):
                 continue
             if end < 0:
                 if len(self._buffer) > limit:
-                    self._refuse_long_line(bytes(self._buffer[: limit + 1]))
+                    self._refuse_long_line(bytes(self._buffer[:limit]))
                 return None
             data = bytes(self._buffer[: end + len(terminator)])
             del self._buffer[: end + len(terminator)]
-            if end > limit:
-                self._record(TrafficDirection.RECEIVED, data[: limit + 1])
-                raise ProtocolError(f"line longer than {limit} bytes", data[:limit])
             t_s = self._record(TrafficDirection.RECEIVED, data)
+            if end > limit:
+                raise ProtocolError(f"line longer than {limit} bytes", data[:limit])
             return ReceivedLine(t_s, data[:end])
 
     def _take_burst(self) -> ReceivedBurst | None:
@@ -286,17 +285,11 @@ class Transport(ABC):
         return t_s
 
     def _refuse_long_line(self, head: bytes) -> None:
-        """Refuse an over-long line whose end has not come yet; skip to its terminator.
-
-        An over-long line is recorded as its first ``max_line_bytes + 1`` bytes, with no
-        terminator, whether its end came in the same read or not: the record is the same
-        however the wire cut it, and a played-back record (those bytes and a terminator) is
-        over-long again and recorded the same (an exact replay)."""
         self._buffer.clear()
         self._discarding = True
         self._record(TrafficDirection.RECEIVED, head)
         limit = self.framing.max_line_bytes
-        raise ProtocolError(f"line longer than {limit} bytes without a terminator", head[:limit])
+        raise ProtocolError(f"line longer than {limit} bytes without a terminator", head)
 
     def _record(self, direction: TrafficDirection, data: bytes) -> float:
         t_s = self.clock()

@@ -44,43 +44,6 @@ def test_an_over_long_line_with_its_terminator_is_refused_too():
     assert transport.read_line(0.0).raw == b"OK"
 
 
-def _recorded_reading(chunks: list[bytes]) -> tuple[list[bytes], list[object]]:
-    """Read every line of ``chunks`` (a read each); return the lines recorded as received
-    traffic and what each read gave (a line's bytes, or the refusal's type)."""
-    seen: list[bytes] = []
-    transport = opened(
-        [(None, chunk) for chunk in chunks], traffic=lambda d, t, raw: seen.append(raw)
-    )
-    given: list[object] = []
-    for _ in range(2 * len(chunks) + 2):
-        try:
-            line = transport.read_line(0.0)
-        except ProtocolError as refused:
-            given.append(type(refused))
-        else:
-            if line is not None:
-                given.append(line.raw)
-    return seen, given
-
-
-@pytest.mark.parametrize(
-    "chunks",
-    [
-        [b"X" * 20 + b"\r\nOK\r\n"],  # its end in the same read
-        [b"X" * 17, b"XXX\r\nOK\r\n"],  # refused before its end came
-        [b"X" * 10, b"X" * 10 + b"\r\nOK\r\n"],  # neither read alone too long
-    ],
-)
-def test_an_over_long_line_is_recorded_alike_however_the_wire_cut_it(chunks):
-    seen, given = _recorded_reading(chunks)
-    assert seen == [b"X" * 17, b"OK\r\n"]  # its first max_line_bytes + 1 bytes, no terminator
-    assert given == [ProtocolError, b"OK"]
-    # played back as a replay plays it (the record and a terminator), it is refused again and
-    # recorded with the same bytes: the replay's traffic is the original's
-    again, given_again = _recorded_reading([seen[0] + b"\r\n", b"OK\r\n"])
-    assert again == seen and given_again == given
-
-
 def test_every_line_is_reported_to_the_traffic_listener_with_its_terminator():
     seen = []
     ticks = iter([1.0, 2.0, 3.0])
