@@ -148,7 +148,7 @@ def _refuse_a_missing_or_repeated_line(
     where: Sequence[str],
 ) -> None:
     """Raise TrafficLogError naming the line if the log is the session's traffic with one line
-    deleted from its middle or one line written twice; return otherwise."""
+    deleted from its middle, written twice or added; return otherwise."""
     if abs(len(entries) - len(stored)) != 1:
         return
 
@@ -172,13 +172,22 @@ def _refuse_a_missing_or_repeated_line(
                 f"{shown(line_text(profile, missing))}, {where[first]}) is missing from the log, "
                 f"deleted between log lines {first} and {first + 1}"
             )
-    if len(entries) > len(stored) and first > 0:
+    if len(entries) > len(stored):
         rest = zip(entries[first + 1 :], stored[first:], strict=True)
-        if same(entries[first], stored[first - 1]) and all(same(e, line) for e, line in rest):
+        if not all(same(e, line) for e, line in rest):
+            return
+        if first > 0 and same(entries[first], stored[first - 1]):
             raise TrafficLogError(
                 f"{counts}: log line {first + 1} repeats line {first} "
                 f"({shown(entries[first][2])}), a line written twice"
             )
+        if first == len(stored):
+            return  # one line past the end: the caller says it belongs to no part
+        raise TrafficLogError(
+            f"{counts}: log line {first + 1} ({shown(entries[first][2])}) is not in the "
+            f"session's traffic, a line added before line {first + 1} of the session "
+            f"({where[first]})"
+        )
 
 
 # ---------------------------------------------------------------------------- the follower

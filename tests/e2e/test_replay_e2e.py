@@ -598,7 +598,9 @@ def corrupt_reading_line(lines: list[str]) -> tuple[list[str], int, str]:
     raise AssertionError("no reading line with a beam charge in the log")
 
 
-@pytest.mark.parametrize("fault", ["garbled reading", "not json", "truncated mid-set"])
+@pytest.mark.parametrize(
+    "fault", ["garbled reading", "not json", "truncated mid-set", "line added"]
+)
 def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_written(
     station: Station, fault: str, capsys
 ):
@@ -612,6 +614,12 @@ def test_a_corrupted_or_truncated_log_is_refused_naming_the_line_and_nothing_is_
         number = len(lines) // 2
         lines[number - 1] = lines[number - 1][:-5]
         expected = [f"line {number}", "not valid JSON"]
+    elif fault == "line added":
+        number = next(i for i, t in enumerate(lines) if "Q +1" in t) + 4  # inside the routine set
+        added = json.loads(lines[number - 1])
+        added["line"] = "Q +7.0000 nC A"  # a reading line of the dialect, never received
+        lines.insert(number - 1, json.dumps(added))
+        expected = [f"log line {number} ('Q +7.0000 nC A') is not in the session's traffic"]
     else:
         cut = next(i for i, t in enumerate(lines) if "Q +1" in t) + 8  # inside the routine set
         lines = lines[:cut]
