@@ -237,7 +237,9 @@ class Transport(ABC):
                 self._discarding = False
                 continue
             if end < 0:
-                if len(self._buffer) > limit:
+                # the line so far, and maybe the first bytes of its terminator: a line of
+                # max_line_bytes whose CR came without its LF is not over-long yet
+                if len(self._buffer) > limit + len(terminator) - 1:
                     self._refuse_long_line(bytes(self._buffer[:limit]))
                 return None
             data = bytes(self._buffer[: end + len(terminator)])

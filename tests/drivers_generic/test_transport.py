@@ -122,6 +122,20 @@ def test_serial_transport_open_of_a_missing_port_is_instrument_disconnected(tmp_
         transport.open()
 
 
+def test_a_longest_line_whose_terminator_comes_in_two_reads_is_read_whole(pty_pair):
+    # A line of exactly max_line_bytes (16 here) whose CR arrives before its LF is not
+    # over-long: it is read, and the line after it too.
+    master, name = pty_pair
+    transport = SerialTransport(name, PortSettings(baud=115200), CRLF)
+    transport.open()
+    os.write(master, b"A" * 16 + b"\r")
+    assert transport.read_line(0.2) is None  # the line's end has not come yet
+    os.write(master, b"\nOK\r\n")
+    assert transport.read_line(2.0).raw == b"A" * 16
+    assert transport.read_line(2.0).raw == b"OK"
+    transport.close()
+
+
 def _read_in_thread(read) -> tuple[threading.Thread, list]:
     """Start ``read()`` in a thread of its own; return the thread and where its result goes."""
     result: list = []
