@@ -292,9 +292,9 @@ def _on_stations(
     what = "UUID" if isinstance(key, str) else "id"
     if not holding:
         raise NotFound(f"no session with {what} {key} in {database.where}")
-    from chargebook.acquire.record.station_label import station_choices
+    from chargebook.acquire.record.station_label import station_choices, stations_of
 
-    choices = station_choices((s.uuid, s.name) for s in (store.station() for store in stores))
+    choices = station_choices(stations_of(stores))
     names = ", ".join(choices[store.station().uuid] for store, _ in holding)
     allowed = f"--station NAME (one of {names}) or the session's UUID"
     raise InputError("session", key, allowed, "is recorded at several stations")

@@ -4,6 +4,10 @@ from __future__ import annotations
 
 from collections import Counter
 from collections.abc import Iterable
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from chargebook.acquire.record.reader import RecordReader
 
 #: Characters of a station's UUID that stand for it where another station has the same name;
 #: ``--station`` takes them as well as the whole UUID.
@@ -31,3 +35,8 @@ def station_labels(stations: Iterable[tuple[str, str]]) -> dict[str, str]:
         uuid: name if choices[uuid] == name else f"{name} ({choices[uuid]})"
         for uuid, name in named.items()
     }
+
+
+def stations_of(stores: Iterable[RecordReader]) -> list[tuple[str, str]]:
+    """Return the (UUID, name) of each store's station, as the functions above take them."""
+    return [(station.uuid, station.name) for station in (store.station() for store in stores)]

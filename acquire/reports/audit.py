@@ -101,9 +101,8 @@ def event_words(record: SessionRecord, event: EventRow) -> tuple[str, str]:
         lines = detail.get("lines")
         return "raw lines recovered", (
             f"{lines} raw line{'' if lines == 1 else 's'} read before the daemon's last stop, "
-            "while the "
-            f"record could not commit, recorded at the next start from {detail.get('file')}; "
-            "no reading was derived from them"
+            "while the record could not commit, recorded at the next start from "
+            f"{detail.get('file')}; no reading was derived from them"
         )
     if kind == EventKind.BENCH_REFUSED:
         number, set_id = detail.get("reading_number"), detail.get("set_id")

@@ -28,7 +28,7 @@ from typing import Any
 from chargebook.acquire.record.events import EventKind
 from chargebook.acquire.record.reader import RecordReader
 from chargebook.acquire.record.review import UNREVIEWED, Review, review_of, review_status
-from chargebook.acquire.record.station_label import station_choices, station_labels
+from chargebook.acquire.record.station_label import station_choices, station_labels, stations_of
 from chargebook.acquire.record.store import ListedSession, NotFound, SessionRow, StationRow
 from chargebook.acquire.reports.session_filter import matches
 from chargebook.acquire.reports.table import Table, number, signed, when
@@ -273,13 +273,8 @@ def _name(entry: _Entry, stores: Sequence[RecordReader]) -> str:
     """Return a session's id, after its station's label when from several stations."""
     if len(stores) == 1:
         return str(entry.session.id)
-    label = station_labels(_stations(stores))[entry.station.uuid]
+    label = station_labels(stations_of(stores))[entry.station.uuid]
     return f"{label}:{entry.session.id}"
-
-
-def _stations(stores: Sequence[RecordReader]) -> list[tuple[str, str]]:
-    """Return each station's (UUID, name)."""
-    return [(station.uuid, station.name) for station in (store.station() for store in stores)]
 
 
 def _baseline_entry(stores: Sequence[RecordReader], session_id: int) -> _Entry:
@@ -295,7 +290,7 @@ def _baseline_entry(stores: Sequence[RecordReader], session_id: int) -> _Entry:
     text = f"session:{session_id}"
     if not found:
         raise InputError("baseline", text, "a session recorded here", "is not recorded")
-    choices = station_choices(_stations(stores))
+    choices = station_choices(stations_of(stores))
     names = ", ".join(choices[e.station.uuid] for e in found)
     raise InputError("baseline", text, f"one station's session (--station {names})", "is ambiguous")
 
@@ -350,7 +345,7 @@ def load_history_across(
         entries = [e for e in entries if review_status(e.review) != "rejected"]
     entries.sort(key=lambda entry: entry.session.created_at)
     value, label = _baseline_value(choice, stores, entries)
-    labels = station_labels(_stations(stores)) if len(stores) > 1 else {}
+    labels = station_labels(stations_of(stores)) if len(stores) > 1 else {}
     return History(
         beam=beam,
         machine=machine,
